@@ -1,0 +1,54 @@
+"""The ``orthoclimb`` command line.
+
+Each subcommand lives in its own module with two functions: ``add_arguments(parser)`` and
+``run(args) -> int``. Bad input (any ValueError/TypeError raised while running) is reported as
+``orthoclimb: error: ...`` with exit code 2, like argparse's own usage errors.
+"""
+
+from __future__ import annotations
+
+import argparse
+import sys
+from collections.abc import Sequence
+from importlib import import_module
+
+# subcommand name -> (module under orthoclimb.cli, one-line help)
+_COMMANDS: dict[str, tuple[str, str]] = {
+    "theory": ("theory_cmd", "what a mixture predicts: full-RSB verdict, ALG, ground state"),
+}
+
+
+def build_parser() -> argparse.ArgumentParser:
+    parser = argparse.ArgumentParser(
+        prog="orthoclimb",
+        description="Random polynomials on the sphere: sample, evaluate, optimize, compare "
+        "with the theory.",
+    )
+    from .. import __version__
+
+    parser.add_argument("--version", action="version", version=f"orthoclimb {__version__}")
+    sub = parser.add_subparsers(dest="command", metavar="COMMAND")
+    sub.required = True
+    for name, (module, help_text) in _COMMANDS.items():
+        cmd = sub.add_parser(name, help=help_text, description=help_text)
+        mod = import_module(f"{__name__}.{module}")
+        mod.add_arguments(cmd)
+        cmd.set_defaults(_run=mod.run)
+    return parser
+
+
+def main(argv: Sequence[str] | None = None) -> int:
+    parser = build_parser()
+    args = parser.parse_args(argv)
+    try:
+        return int(args._run(args) or 0)
+    except (ValueError, TypeError) as exc:
+        print(f"orthoclimb {args.command}: error: {exc}", file=sys.stderr)
+        return 2
+    except KeyboardInterrupt:
+        print(f"orthoclimb {args.command}: interrupted", file=sys.stderr)
+        return 130
+
+
+if __name__ == "__main__":  # pragma: no cover
+    sys.exit(main())

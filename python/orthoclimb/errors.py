@@ -1,0 +1,32 @@
+"""Exceptions raised by orthoclimb.
+
+Every error the package raises on bad input is a subclass of :class:`ValueError` or
+:class:`TypeError`, so ``except ValueError`` in user code keeps working; the subclasses let
+callers tell the kinds apart.
+"""
+
+from __future__ import annotations
+
+
+class MixtureError(ValueError):
+    """A mixture specification is invalid (degree outside 1..8, negative or non-finite gamma,
+    empty mixture, malformed text)."""
+
+
+class ShapeError(ValueError):
+    """An array has the wrong shape or length; the message names the expected and the actual."""
+
+
+class NonFiniteError(ValueError):
+    """An input array holds NaN or infinity."""
+
+
+class InsufficientMemoryError(MemoryError, ValueError):
+    """An instance would need more memory than the machine has available.
+
+    Raised *before* anything is allocated; the message gives the bytes needed and available.
+    """
+
+
+class CoreError(RuntimeError):
+    """An internal invariant of the Rust core failed. This is a bug: please report it."""

@@ -1,0 +1,207 @@
+"""Mixtures: the covariance function of a mixed p-spin random polynomial.
+
+A mixture is a finite set of pairs (p, gamma_p) with 1 <= p <= 8 and gamma_p >= 0. Its mixture
+polynomial is
+
+    xi(q) = sum_p gamma_p^2 q^p,
+
+and the random polynomial H built from it (see :class:`orthoclimb.Hamiltonian`) satisfies
+E[H(x) H(y)] = n xi(<x, y>). The term p = 1 is a random external field.
+"""
+
+from __future__ import annotations
+
+import math
+from collections.abc import Iterable, Mapping
+from typing import Any
+
+import numpy as np
+
+from ..errors import MixtureError
+
+MAX_DEGREE = 8
+"""Largest degree p the kernels support."""
+
+
+def _check_degree(p: Any) -> int:
+    if isinstance(p, bool) or not isinstance(p, (int, np.integer)):
+        raise MixtureError(f"degree p must be an integer in 1..{MAX_DEGREE}, got {p!r}")
+    p = int(p)
+    if not 1 <= p <= MAX_DEGREE:
+        raise MixtureError(f"degree p must be in 1..{MAX_DEGREE}, got p = {p}")
+    return p
+
+
+def _check_gamma(p: int, gamma: Any, what: str = "gamma") -> float:
+    try:
+        value = float(gamma)
+    except (TypeError, ValueError):
+        raise MixtureError(f"{what} for p = {p} must be a real number, got {gamma!r}") from None
+    if not math.isfinite(value) or value < 0:
+        raise MixtureError(f"{what} for p = {p} must be finite and >= 0, got {gamma!r}")
+    return value
+
+
+class Mixture:
+    """A mixture {p: gamma_p}: degrees 1..8 with nonnegative weights gamma_p (not squared).
+
+    Degrees whose gamma is exactly 0 are dropped (they contribute nothing). At least one
+    gamma must be positive.
+
+    >>> m = Mixture({2: 1.0, 4: 0.3})
+    >>> m.degrees
+    (2, 4)
+    >>> float(m.xi(1.0))   # 1.0**2 + 0.3**2
+    1.09
+    """
+
+    __slots__ = ("_gammas",)
+
+    def __init__(self, gammas: Mapping[int, float] | Iterable[tuple[int, float]]):
+        items = gammas.items() if isinstance(gammas, Mapping) else gammas
+        checked: dict[int, float] = {}
+        try:
+            pairs = list(items)
+        except TypeError:
+            raise MixtureError(
+                f"a mixture is a mapping p -> gamma_p, got {type(gammas).__name__}"
+            ) from None
+        for pair in pairs:
+            try:
+                p_raw, g_raw = pair
+            except (TypeError, ValueError):
+                raise MixtureError(f"mixture entries are (p, gamma) pairs, got {pair!r}") from None
+            p = _check_degree(p_raw)
+            if p in checked:
+                raise MixtureError(f"degree p = {p} is given twice")
+            checked[p] = _check_gamma(p, g_raw)
+        kept = {p: g for p, g in sorted(checked.items()) if g > 0.0}
+        if not kept:
+            raise MixtureError(
+                "a mixture needs at least one degree with gamma > 0, got "
+                + (repr(dict(checked)) if checked else "an empty mixture")
+            )
+        self._gammas = kept
+
+    # -- constructors -------------------------------------------------------------------
+
+    @classmethod
+    def from_xi(cls, coeffs: Mapping[int, float]) -> Mixture:
+        """Build from the coefficients of xi: a mapping p -> gamma_p^2 (each >= 0)."""
+        if not isinstance(coeffs, Mapping):
+            raise MixtureError(f"from_xi takes a mapping p -> gamma_p^2, got {coeffs!r}")
+        gammas = {}
+        for p, c in coeffs.items():
+            p = _check_degree(p)
+            gammas[p] = math.sqrt(_check_gamma(p, c, what="xi coefficient gamma_p^2"))
+        return cls(gammas)
+
+    @classmethod
+    def parse(cls, text: str, squared: bool = False) -> Mixture:
+        """Parse the text form ``"2:1,4:0.3"`` (p:gamma pairs, comma separated).
+
+        With ``squared=True`` the numbers are gamma_p^2 (the coefficients of xi).
+        """
+        if not isinstance(text, str):
+            raise MixtureError(f"mixture text must be a string, got {text!r}")
+        pairs: dict[int, float] = {}
+        body = text.strip()
+        if not body:
+            raise MixtureError("mixture text is empty; expected p:gamma pairs like '2:1,4:0.3'")
+        for chunk in body.split(","):
+            piece = chunk.strip()
+            p_text, sep, g_text = piece.partition(":")
+            if not sep or not p_text.strip() or not g_text.strip():
+                raise MixtureError(
+                    f"cannot read {piece!r} in mixture text {text!r}; expected p:gamma"
+                    " pairs like '2:1,4:0.3'"
+                )
+            try:
+                p = int(p_text)
+            except ValueError:
+                raise MixtureError(
+                    f"degree {p_text.strip()!r} in mixture text {text!r} is not an integer"
+                ) from None
+            try:
+                g = float(g_text)
+            except ValueError:
+                raise MixtureError(
+                    f"weight {g_text.strip()!r} in mixture text {text!r} is not a number"
+                ) from None
+            p = _check_degree(p)
+            if p in pairs:
+                raise MixtureError(f"degree p = {p} is given twice in mixture text {text!r}")
+            pairs[p] = g
+        return cls.from_xi(pairs) if squared else cls(pairs)
+
+    # -- properties ----------------------------------------------------------------------
+
+    @property
+    def degrees(self) -> tuple[int, ...]:
+        """Degrees p with gamma_p > 0, increasing."""
+        return tuple(self._gammas)
+
+    @property
+    def gammas(self) -> dict[int, float]:
+        """A copy of the mapping p -> gamma_p."""
+        return dict(self._gammas)
+
+    @property
+    def xi_coefficients(self) -> dict[int, float]:
+        """The mapping p -> gamma_p^2 (the coefficients of xi)."""
+        return {p: g * g for p, g in self._gammas.items()}
+
+    @property
+    def max_degree(self) -> int:
+        """The largest degree P; kernels cost about n^P operations."""
+        return max(self._gammas)
+
+    @property
+    def has_field(self) -> bool:
+        """True when the mixture has a p = 1 (external field) term."""
+        return 1 in self._gammas
+
+    def xi(self, q: Any, derivative: int = 0) -> Any:
+        """The mixture polynomial xi(q) = sum_p gamma_p^2 q^p or its derivative of the given
+        order (0, 1, 2, ...), vectorized over ``q``. Returns a float for scalar ``q``."""
+        if isinstance(derivative, bool) or not isinstance(derivative, (int, np.integer)):
+            raise ValueError(f"derivative must be a nonnegative integer, got {derivative!r}")
+        if derivative < 0:
+            raise ValueError(f"derivative must be a nonnegative integer, got {derivative}")
+        q_arr = np.asarray(q, dtype=np.float64)
+        out = np.zeros_like(q_arr)
+        for p, g in self._gammas.items():
+            if derivative > p:
+                continue
+            falling = math.perm(p, derivative)  # p (p-1) ... (p-derivative+1)
+            out = out + (g * g * falling) * q_arr ** (p - derivative)
+        return float(out) if out.ndim == 0 else out
+
+    # -- text and dict forms -------------------------------------------------------------
+
+    def to_text(self) -> str:
+        """The text form read by :meth:`parse` (``repr`` of each gamma, so it round-trips)."""
+        return ",".join(f"{p}:{g!r}" for p, g in self._gammas.items())
+
+    def to_dict(self) -> dict[str, float]:
+        """JSON-friendly form: degree (as a string) -> gamma."""
+        return {str(p): g for p, g in self._gammas.items()}
+
+    @classmethod
+    def from_dict(cls, data: Mapping[str, float]) -> Mixture:
+        """Inverse of :meth:`to_dict`."""
+        try:
+            return cls({int(k): v for k, v in data.items()})
+        except (AttributeError, ValueError, TypeError) as exc:
+            if isinstance(exc, MixtureError):
+                raise
+            raise MixtureError(f"cannot read a mixture from {data!r}") from None
+
+    def __repr__(self) -> str:
+        return f"Mixture({self._gammas!r})"
+
+    def __eq__(self, other: object) -> bool:
+        return isinstance(other, Mixture) and self._gammas == other._gammas
+
+    def __hash__(self) -> int:
+        return hash(tuple(self._gammas.items()))
