@@ -2,8 +2,21 @@
 //! sampling of their coefficients, and multithreaded kernels for the value, gradient,
 //! Hessian and Hessian-vector products.
 //!
-//! The core modules never mention PyO3; the binding layer lives in [`python`] and is only
+//! The core modules never mention PyO3; the binding layer lives in `python.rs` and is only
 //! compiled with the `python` feature (maturin turns it on).
+
+pub mod batch;
+pub mod combinatorics;
+pub mod error;
+pub mod kernels;
+pub mod partition;
+pub mod sampling;
+pub mod simd;
+pub mod storage;
+pub mod threads;
+
+pub use error::CoreError;
+pub use storage::{Coef, Packed};
 
 #[cfg(feature = "python")]
 mod python;

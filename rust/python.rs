@@ -1,8 +1,415 @@
-//! PyO3 binding layer (placeholder while the core is written).
+//! PyO3 binding layer: the only file that knows about Python.
+//!
+//! Each method validates what the core cannot (array layout), takes read-only NumPy views,
+//! releases the GIL with `py.detach` around the kernel, runs rayon only inside it, and maps
+//! core errors to Python exceptions in [`to_py_err`]. A panic inside the core (a bug) is
+//! caught and reported as `orthoclimb.errors.CoreError`, never as a PanicException.
+
+use std::panic::{catch_unwind, AssertUnwindSafe};
+
+use numpy::{
+    IntoPyArray, PyArray1, PyArray2, PyArrayMethods, PyReadonlyArray1, PyReadonlyArray2,
+    PyUntypedArrayMethods,
+};
+use pyo3::exceptions::{PyMemoryError, PyRuntimeError, PyValueError};
 use pyo3::prelude::*;
+use pyo3::types::PyType;
+
+use crate::batch;
+use crate::combinatorics::{advance, num_multisets};
+use crate::error::CoreError;
+use crate::kernels;
+use crate::sampling::Disorder;
+use crate::simd::simd_path;
+use crate::storage::{storage_bytes, Packed};
+use crate::threads;
+
+/// An exception of class `orthoclimb.errors.<class_name>`, or `fallback` when that module
+/// cannot be imported (the core used without its Python package).
+fn package_error(
+    py: Python<'_>,
+    class_name: &str,
+    msg: String,
+    fallback: fn(String) -> PyErr,
+) -> PyErr {
+    let class = py
+        .import("orthoclimb.errors")
+        .and_then(|m| m.getattr(class_name))
+        .and_then(|c| c.cast_into::<PyType>().map_err(PyErr::from));
+    match class {
+        Ok(ty) => PyErr::from_type(ty, msg),
+        Err(_) => fallback(msg),
+    }
+}
+
+/// The one place where core errors become Python exceptions. Classes come from
+/// `orthoclimb.errors` (all subclasses of ValueError).
+fn to_py_err(py: Python<'_>, err: CoreError) -> PyErr {
+    let class = match &err {
+        CoreError::InvalidDegree { .. }
+        | CoreError::DuplicateDegree { .. }
+        | CoreError::NoDegrees
+        | CoreError::InvalidGamma { .. } => "MixtureError",
+        CoreError::LengthMismatch { .. } => "ShapeError",
+        CoreError::AllocationFailed { .. } | CoreError::SizeOverflow { .. } => {
+            return package_error(
+                py,
+                "InsufficientMemoryError",
+                err.to_string(),
+                PyMemoryError::new_err,
+            )
+        }
+        CoreError::InvalidSize { .. }
+        | CoreError::InvalidCorrelation { .. }
+        | CoreError::MissingDegree { .. }
+        | CoreError::InvalidDtype { .. }
+        | CoreError::InvalidThreads { .. } => return PyValueError::new_err(err.to_string()),
+    };
+    package_error(py, class, err.to_string(), PyValueError::new_err)
+}
+
+fn internal_error(py: Python<'_>, what: &str) -> PyErr {
+    let msg = format!("internal error in the orthoclimb core during {what}; please report it");
+    package_error(py, "CoreError", msg, PyRuntimeError::new_err)
+}
+
+/// Runs `f` with the GIL released on the shared pool, mapping errors and panics.
+fn run<T: Send>(
+    py: Python<'_>,
+    what: &str,
+    f: impl FnOnce(&rayon::ThreadPool) -> Result<T, CoreError> + Send,
+) -> PyResult<T> {
+    let pool = threads::shared_pool().map_err(|e| to_py_err(py, e))?;
+    let out = py.detach(move || catch_unwind(AssertUnwindSafe(|| f(&pool))));
+    match out {
+        Ok(Ok(v)) => Ok(v),
+        Ok(Err(e)) => Err(to_py_err(py, e)),
+        Err(_) => Err(internal_error(py, what)),
+    }
+}
+
+fn slice1<'a>(a: &'a PyReadonlyArray1<'_, f64>, name: &str) -> PyResult<&'a [f64]> {
+    a.as_slice()
+        .map_err(|_| PyValueError::new_err(format!("{name} must be a C-contiguous float64 array")))
+}
+
+fn slice2<'a>(a: &'a PyReadonlyArray2<'_, f64>, name: &str) -> PyResult<&'a [f64]> {
+    a.as_slice()
+        .map_err(|_| PyValueError::new_err(format!("{name} must be a C-contiguous float64 array")))
+}
+
+/// (energies (b,), gradients (b, n)) as NumPy arrays.
+type EnergiesGradients<'py> = (Bound<'py, PyArray1<f64>>, Bound<'py, PyArray2<f64>>);
+
+enum Storage {
+    F64(Packed<f64>),
+    F32(Packed<f32>),
+}
+
+/// Runs the same expression on either storage type.
+macro_rules! on_storage {
+    ($s:expr, $p:ident => $body:expr) => {
+        match $s {
+            Storage::F64($p) => $body,
+            Storage::F32($p) => $body,
+        }
+    };
+}
+
+/// A packed random polynomial held by the Rust core (wrapped by `orthoclimb.Hamiltonian`).
+#[pyclass(frozen, name = "PackedPolynomial", module = "orthoclimb._core")]
+struct PyPacked {
+    inner: Storage,
+}
+
+fn parse_dtype(py: Python<'_>, dtype: &str) -> PyResult<bool> {
+    match dtype {
+        "float64" => Ok(false),
+        "float32" => Ok(true),
+        other => Err(to_py_err(
+            py,
+            CoreError::InvalidDtype {
+                name: other.to_string(),
+            },
+        )),
+    }
+}
+
+#[pymethods]
+impl PyPacked {
+    /// Samples the coefficients of every degree from the counter-based streams of `seed`.
+    #[staticmethod]
+    #[pyo3(signature = (n, degrees, gammas, seed, dtype="float64", correlated_with=None))]
+    fn sample(
+        py: Python<'_>,
+        n: usize,
+        degrees: Vec<usize>,
+        gammas: Vec<f64>,
+        seed: u64,
+        dtype: &str,
+        correlated_with: Option<(u64, f64)>,
+    ) -> PyResult<Self> {
+        if degrees.len() != gammas.len() {
+            return Err(PyValueError::new_err(format!(
+                "degrees and gammas differ in length: {} vs {}",
+                degrees.len(),
+                gammas.len()
+            )));
+        }
+        let f32_storage = parse_dtype(py, dtype)?;
+        let terms: Vec<(usize, f64)> = degrees.into_iter().zip(gammas).collect();
+        let disorder = Disorder {
+            seed,
+            correlated_with,
+        };
+        let inner = run(py, "sampling", |pool| {
+            Ok(if f32_storage {
+                Storage::F32(Packed::sample(pool, n, &terms, &disorder)?)
+            } else {
+                Storage::F64(Packed::sample(pool, n, &terms, &disorder)?)
+            })
+        })?;
+        Ok(PyPacked { inner })
+    }
+
+    /// Wraps given coefficient arrays (float64, SPEC order), one per degree.
+    #[staticmethod]
+    #[pyo3(signature = (n, degrees, arrays, dtype="float64"))]
+    fn from_coefficients(
+        py: Python<'_>,
+        n: usize,
+        degrees: Vec<usize>,
+        arrays: Vec<PyReadonlyArray1<'_, f64>>,
+        dtype: &str,
+    ) -> PyResult<Self> {
+        if degrees.len() != arrays.len() {
+            return Err(PyValueError::new_err("degrees and arrays differ in length"));
+        }
+        let f32_storage = parse_dtype(py, dtype)?;
+        let slices: Vec<&[f64]> = arrays
+            .iter()
+            .map(|a| slice1(a, "coefficients"))
+            .collect::<PyResult<_>>()?;
+        let parts: Vec<(usize, &[f64])> = degrees.into_iter().zip(slices).collect();
+        let inner = run(py, "packing", |_| {
+            Ok(if f32_storage {
+                Storage::F32(Packed::from_coefficients(n, &parts)?)
+            } else {
+                Storage::F64(Packed::from_coefficients(n, &parts)?)
+            })
+        })?;
+        Ok(PyPacked { inner })
+    }
+
+    #[getter]
+    fn n(&self) -> usize {
+        on_storage!(&self.inner, p => p.n())
+    }
+
+    #[getter]
+    fn degrees(&self) -> Vec<usize> {
+        on_storage!(&self.inner, p => p.degrees())
+    }
+
+    #[getter]
+    fn dtype(&self) -> &'static str {
+        match &self.inner {
+            Storage::F64(_) => "float64",
+            Storage::F32(_) => "float32",
+        }
+    }
+
+    #[getter]
+    fn num_coefficients(&self) -> usize {
+        on_storage!(&self.inner, p => p.num_coefficients())
+    }
+
+    #[getter]
+    fn nbytes(&self) -> usize {
+        on_storage!(&self.inner, p => p.nbytes())
+    }
+
+    /// H(x).
+    fn energy(&self, py: Python<'_>, x: PyReadonlyArray1<'_, f64>) -> PyResult<f64> {
+        let x = slice1(&x, "x")?;
+        run(
+            py,
+            "energy",
+            |pool| on_storage!(&self.inner, p => kernels::energy(pool, p, x)),
+        )
+    }
+
+    /// (H(x), grad H(x)).
+    fn energy_gradient<'py>(
+        &self,
+        py: Python<'py>,
+        x: PyReadonlyArray1<'_, f64>,
+    ) -> PyResult<(f64, Bound<'py, PyArray1<f64>>)> {
+        let x = slice1(&x, "x")?;
+        let (e, g) = run(
+            py,
+            "gradient",
+            |pool| on_storage!(&self.inner, p => kernels::energy_gradient(pool, p, x)),
+        )?;
+        Ok((e, g.into_pyarray(py)))
+    }
+
+    /// The full n x n Hessian at x.
+    fn hessian<'py>(
+        &self,
+        py: Python<'py>,
+        x: PyReadonlyArray1<'_, f64>,
+    ) -> PyResult<Bound<'py, PyArray2<f64>>> {
+        let n = self.n();
+        let x = slice1(&x, "x")?;
+        let h = run(
+            py,
+            "hessian",
+            |pool| on_storage!(&self.inner, p => kernels::hessian(pool, p, x)),
+        )?;
+        h.into_pyarray(py).reshape([n, n])
+    }
+
+    /// Hess H(x) v for one direction (shape (n,)).
+    fn hvp<'py>(
+        &self,
+        py: Python<'py>,
+        x: PyReadonlyArray1<'_, f64>,
+        v: PyReadonlyArray1<'_, f64>,
+    ) -> PyResult<Bound<'py, PyArray1<f64>>> {
+        let (x, v) = (slice1(&x, "x")?, slice1(&v, "v")?);
+        let w = run(
+            py,
+            "hvp",
+            |pool| on_storage!(&self.inner, p => kernels::hvp(pool, p, x, v)),
+        )?;
+        Ok(w.into_pyarray(py))
+    }
+
+    /// Hess H(x) V for k directions (V of shape (n, k)), in one pass.
+    fn hvp_many<'py>(
+        &self,
+        py: Python<'py>,
+        x: PyReadonlyArray1<'_, f64>,
+        v: PyReadonlyArray2<'_, f64>,
+    ) -> PyResult<Bound<'py, PyArray2<f64>>> {
+        let shape = [v.shape()[0], v.shape()[1]];
+        let (x, vs) = (slice1(&x, "x")?, slice2(&v, "v")?);
+        let w = run(
+            py,
+            "hvp",
+            |pool| on_storage!(&self.inner, p => batch::hvp_many(pool, p, x, vs, shape[1])),
+        )?;
+        w.into_pyarray(py).reshape(shape)
+    }
+
+    /// H at each row of xs (shape (b, n)), in one pass.
+    fn energy_batch<'py>(
+        &self,
+        py: Python<'py>,
+        xs: PyReadonlyArray2<'_, f64>,
+    ) -> PyResult<Bound<'py, PyArray1<f64>>> {
+        let b = xs.shape()[0];
+        let xs = slice2(&xs, "x")?;
+        let e = run(
+            py,
+            "energy",
+            |pool| on_storage!(&self.inner, p => batch::energy_batch(pool, p, xs, b)),
+        )?;
+        Ok(e.into_pyarray(py))
+    }
+
+    /// (H, grad H) at each row of xs (shape (b, n)), in one pass.
+    fn energy_gradient_batch<'py>(
+        &self,
+        py: Python<'py>,
+        xs: PyReadonlyArray2<'_, f64>,
+    ) -> PyResult<EnergiesGradients<'py>> {
+        let shape = [xs.shape()[0], xs.shape()[1]];
+        let xs = slice2(&xs, "x")?;
+        let (e, g) = run(
+            py,
+            "gradient",
+            |pool| on_storage!(&self.inner, p => batch::energy_gradient_batch(pool, p, xs, shape[0])),
+        )?;
+        Ok((e.into_pyarray(py), g.into_pyarray(py).reshape(shape)?))
+    }
+
+    /// The degree-p coefficients a_m as a new float64 array (SPEC order).
+    fn coefficients<'py>(&self, py: Python<'py>, p: usize) -> PyResult<Bound<'py, PyArray1<f64>>> {
+        let data: Vec<f64> = on_storage!(&self.inner, poly => {
+            let block = poly.block(p).map_err(|e| to_py_err(py, e))?;
+            block.coeffs.iter().map(|&c| crate::storage::Coef::to_f64(c)).collect()
+        });
+        Ok(data.into_pyarray(py))
+    }
+}
+
+/// Bytes of coefficient storage for n spins, these degrees and `itemsize` bytes per number.
+#[pyfunction]
+fn storage_nbytes(
+    py: Python<'_>,
+    n: usize,
+    degrees: Vec<usize>,
+    itemsize: usize,
+) -> PyResult<usize> {
+    storage_bytes(n, &degrees, itemsize).map_err(|e| to_py_err(py, e))
+}
+
+/// All sorted index tuples (i1 <= ... <= ip) of 0..n in SPEC order, shape (C(n+p-1, p), p).
+#[pyfunction]
+fn multiset_table<'py>(py: Python<'py>, n: usize, p: usize) -> PyResult<Bound<'py, PyArray2<i64>>> {
+    if n == 0 {
+        return Err(to_py_err(py, CoreError::InvalidSize { n }));
+    }
+    if !(1..=crate::combinatorics::MAX_DEGREE).contains(&p) {
+        return Err(to_py_err(py, CoreError::InvalidDegree { p }));
+    }
+    let count = num_multisets(n, p).map_err(|e| to_py_err(py, e))?;
+    let table = run(py, "enumeration", |_| {
+        let len = count.checked_mul(p).ok_or(CoreError::SizeOverflow {
+            what: format!("index table of {count} x {p}"),
+        })?;
+        let mut out = crate::error::try_zeroed::<i64>(len)?;
+        let mut idx = vec![0usize; p];
+        for row in out.chunks_exact_mut(p) {
+            for (o, &i) in row.iter_mut().zip(&idx) {
+                *o = i as i64;
+            }
+            advance(&mut idx, n);
+        }
+        Ok(out)
+    })?;
+    table.into_pyarray(py).reshape([count, p])
+}
+
+/// Sets the number of threads of the shared pool.
+#[pyfunction]
+fn set_num_threads(py: Python<'_>, k: usize) -> PyResult<()> {
+    threads::set_num_threads(k).map_err(|e| to_py_err(py, e))
+}
+
+/// The number of threads of the shared pool.
+#[pyfunction]
+fn get_num_threads(py: Python<'_>) -> PyResult<usize> {
+    threads::num_threads().map_err(|e| to_py_err(py, e))
+}
+
+/// The instruction-set path of the kernels on this machine ("avx2+fma" or "baseline").
+#[pyfunction]
+fn kernel_path() -> &'static str {
+    simd_path()
+}
 
 #[pymodule]
 fn _core(m: &Bound<'_, PyModule>) -> PyResult<()> {
     m.add("__version__", env!("CARGO_PKG_VERSION"))?;
+    m.add("MAX_DEGREE", crate::combinatorics::MAX_DEGREE)?;
+    m.add_class::<PyPacked>()?;
+    m.add_function(wrap_pyfunction!(storage_nbytes, m)?)?;
+    m.add_function(wrap_pyfunction!(multiset_table, m)?)?;
+    m.add_function(wrap_pyfunction!(set_num_threads, m)?)?;
+    m.add_function(wrap_pyfunction!(get_num_threads, m)?)?;
+    m.add_function(wrap_pyfunction!(kernel_path, m)?)?;
     Ok(())
 }

@@ -5,10 +5,22 @@ Conventions (see the README): H(x) = sum_p H_p(x) with E[H(x) H(y)] = n xi(<x, y
 on the unit sphere |x| = 1; the reported figure is the energy per spin H(x)/n; we maximize.
 """
 
-from . import errors
-from ._core import __version__ as _core_version
-from .model import MAX_DEGREE, Mixture
+from . import errors, reference
+from .model import MAX_DEGREE, Hamiltonian, Mixture, available_memory, estimate_memory
+from .runtime import get_num_threads, kernel_path, set_num_threads
 
 __version__ = "0.1.0"
 
-__all__ = ["MAX_DEGREE", "Mixture", "errors", "__version__"]
+__all__ = [
+    "MAX_DEGREE",
+    "Hamiltonian",
+    "Mixture",
+    "__version__",
+    "available_memory",
+    "errors",
+    "estimate_memory",
+    "get_num_threads",
+    "kernel_path",
+    "reference",
+    "set_num_threads",
+]

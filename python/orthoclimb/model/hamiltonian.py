@@ -1,0 +1,270 @@
+"""The random polynomial H on R^n and its fast kernels.
+
+    H(x) = sum_p H_p(x),   H_p(x) = sum_m a_m x_i1 ... x_ip
+
+over sorted multisets m = (i1 <= ... <= ip), with a_m = sqrt(n) gamma_p sqrt(c(m)) g_m and
+g_m i.i.d. standard Gaussians, so that E[H(x) H(y)] = n xi(<x, y>). On the unit sphere
+|x| = 1, H(x) is of order n; the figure of merit is the energy per spin H(x)/n, and we
+maximize. All kernels run in the Rust core, multithreaded, reading the packed coefficients
+once per call (a batch of points is one pass, too).
+"""
+
+from __future__ import annotations
+
+from collections.abc import Mapping
+from typing import Any
+
+import numpy as np
+from scipy.sparse.linalg import LinearOperator
+
+from .. import _core
+from ..errors import ShapeError
+from . import dense as _dense
+from .arrays import as_directions, as_float_array, as_point, as_points
+from .memory import check_size, estimate_memory, normalize_dtype, require_memory
+from .mixture import MAX_DEGREE, Mixture, _check_degree
+
+_SEED_LIMIT = 2**64
+
+
+def _check_seed(seed: Any, name: str = "seed") -> int:
+    if isinstance(seed, bool) or not isinstance(seed, (int, np.integer)):
+        raise TypeError(f"{name} must be an integer in [0, 2^64), got {seed!r}")
+    if not 0 <= int(seed) < _SEED_LIMIT:
+        raise ValueError(f"{name} must be in [0, 2^64), got {seed}")
+    return int(seed)
+
+
+def _check_correlation(spec: Any) -> tuple[int, float] | None:
+    if spec is None:
+        return None
+    try:
+        seed0, rho = spec
+    except (TypeError, ValueError):
+        raise TypeError(f"correlated_with must be a pair (seed0, rho), got {spec!r}") from None
+    seed0 = _check_seed(seed0, "seed0 in correlated_with")
+    rho = float(rho)
+    if not -1.0 <= rho <= 1.0:  # also refuses NaN
+        raise ValueError(f"correlation rho must be in [-1, 1], got {rho}")
+    return seed0, rho
+
+
+class Hamiltonian:
+    """A sampled (or given) random polynomial with packed coefficients.
+
+    Build one with :meth:`sample`, :meth:`from_coefficients` or :meth:`from_dense`.
+    Points ``x`` are float arrays of shape (n,) or, for a batch, (b, n). Energies are H(x)
+    itself (of order n on the unit sphere); divide by n for the energy per spin.
+    """
+
+    def __init__(
+        self,
+        core: Any,
+        mixture: Mixture | None,
+        seed: int | None,
+        correlated_with: tuple[int, float] | None = None,
+    ):
+        self._core = core
+        self._mixture = mixture
+        self._seed = seed
+        self._correlated_with = correlated_with
+
+    # -- construction ------------------------------------------------------------------
+
+    @classmethod
+    def sample(
+        cls,
+        mixture: Mixture,
+        n: int,
+        seed: int,
+        dtype: str = "float64",
+        correlated_with: tuple[int, float] | None = None,
+        check_memory: bool = True,
+    ) -> Hamiltonian:
+        """Sample an instance with n spins from the counter-based streams of `seed`.
+
+        The coefficient of rank r of degree p is a pure function of (seed, p, r): the same
+        seed gives bitwise the same instance on any thread count. With
+        ``correlated_with=(seed0, rho)`` every Gaussian is rho g(seed0) + sqrt(1-rho^2) g(seed),
+        which is an instance correlated with ``sample(mixture, n, seed0)`` at level rho.
+        ``dtype="float32"`` halves the storage; kernels still accumulate in float64.
+        Storage is checked against the available memory first (``check_memory=False`` skips
+        that check; the allocation itself still fails cleanly if the system refuses).
+        """
+        if not isinstance(mixture, Mixture):
+            raise TypeError(
+                f"mixture must be an orthoclimb.Mixture, got {type(mixture).__name__}"
+            )
+        n = check_size(n)
+        seed = _check_seed(seed)
+        dtype = normalize_dtype(dtype)
+        corr = _check_correlation(correlated_with)
+        if check_memory:
+            require_memory(
+                estimate_memory(mixture, n, dtype), f"an instance of {mixture!r} with n = {n}"
+            )
+        degrees = list(mixture.degrees)
+        gammas = [mixture.gammas[p] for p in degrees]
+        core = _core.PackedPolynomial.sample(n, degrees, gammas, seed, dtype, corr)
+        return cls(core, mixture, seed, corr)
+
+    @classmethod
+    def from_coefficients(
+        cls, n: int, coefficients: Mapping[int, Any], dtype: str = "float64"
+    ) -> Hamiltonian:
+        """Wrap given packed coefficients {p: 1-D array of length C(n+p-1, p)} (SPEC order:
+        sorted index tuples in lexicographic order). ``mixture`` and ``seed`` are None."""
+        n = check_size(n)
+        dtype = normalize_dtype(dtype)
+        if not isinstance(coefficients, Mapping) or not coefficients:
+            raise ValueError(
+                f"coefficients must be a non-empty mapping p -> array, got {coefficients!r}"
+            )
+        degrees, arrays = [], []
+        for p, arr in sorted(coefficients.items()):
+            p = _check_degree(p)
+            a = as_float_array(arr, f"coefficients[{p}]")
+            if a.ndim != 1:
+                raise ShapeError(
+                    f"coefficients[{p}] must be 1-D, got shape {a.shape}"
+                )
+            degrees.append(p)
+            arrays.append(a)
+        core = _core.PackedPolynomial.from_coefficients(n, degrees, arrays, dtype)
+        return cls(core, None, None)
+
+    @classmethod
+    def from_dense(
+        cls, tensors: Mapping[int, Any], symmetrize: bool = False, dtype: str = "float64"
+    ) -> Hamiltonian:
+        """Pack dense tensors {p: array of shape (n,)*p} with H_p(x) = T(x, ..., x).
+
+        Each tensor must be symmetric under axis permutations; a non-symmetric one is refused
+        unless ``symmetrize=True`` (it is then averaged over permutations, which leaves the
+        polynomial unchanged)."""
+        if not isinstance(tensors, Mapping) or not tensors:
+            raise ValueError(f"tensors must be a non-empty mapping p -> array, got {tensors!r}")
+        packed, sizes = {}, set()
+        for p, t in tensors.items():
+            p = _check_degree(p)
+            arr = as_float_array(t, f"tensors[{p}]")
+            packed[p] = _dense.pack(arr, p, symmetrize)
+            sizes.add(arr.shape[0])
+        if len(sizes) != 1:
+            raise ShapeError(f"all tensors must share one n, got sizes {sorted(sizes)}")
+        return cls.from_coefficients(sizes.pop(), packed, dtype)
+
+    # -- description -------------------------------------------------------------------
+
+    @property
+    def n(self) -> int:
+        """Number of spins."""
+        return int(self._core.n)
+
+    @property
+    def mixture(self) -> Mixture | None:
+        """The mixture it was sampled from (None for given coefficients)."""
+        return self._mixture
+
+    @property
+    def seed(self) -> int | None:
+        """The disorder seed (None for given coefficients)."""
+        return self._seed
+
+    @property
+    def correlated_with(self) -> tuple[int, float] | None:
+        """(seed0, rho) when sampled correlated with another instance."""
+        return self._correlated_with
+
+    @property
+    def degrees(self) -> tuple[int, ...]:
+        return tuple(self._core.degrees)
+
+    @property
+    def dtype(self) -> str:
+        """Storage type of the coefficients: 'float64' or 'float32'."""
+        return str(self._core.dtype)
+
+    @property
+    def num_coefficients(self) -> int:
+        """sum_p C(n+p-1, p)."""
+        return int(self._core.num_coefficients)
+
+    @property
+    def nbytes(self) -> int:
+        """Bytes of coefficient storage."""
+        return int(self._core.nbytes)
+
+    def __repr__(self) -> str:
+        origin = f"{self._mixture!r}, seed={self._seed}" if self._mixture else "given"
+        return f"Hamiltonian({origin}, n={self.n}, dtype={self.dtype!r}, nbytes={self.nbytes})"
+
+    # -- kernels -----------------------------------------------------------------------
+
+    def energy(self, x: Any) -> Any:
+        """H(x) for x of shape (n,) (a float) or (b, n) (an array of b values, one pass)."""
+        pts = as_points(x, self.n)
+        if pts.ndim == 1:
+            return float(self._core.energy(pts))
+        return self._core.energy_batch(pts)
+
+    def energy_per_spin(self, x: Any) -> Any:
+        """H(x)/n, the figure reported throughout orthoclimb."""
+        return self.energy(x) / self.n
+
+    def energy_and_gradient(self, x: Any) -> tuple[Any, np.ndarray]:
+        """(H(x), grad H(x)) in one pass; shapes as for :meth:`energy` and :meth:`gradient`."""
+        pts = as_points(x, self.n)
+        if pts.ndim == 1:
+            e, g = self._core.energy_gradient(pts)
+            return float(e), g
+        return self._core.energy_gradient_batch(pts)
+
+    def gradient(self, x: Any) -> np.ndarray:
+        """grad H(x) (the full gradient in R^n, not projected): (n,) -> (n,); (b, n) -> (b, n)."""
+        return self.energy_and_gradient(x)[1]
+
+    def hessian(self, x: Any) -> np.ndarray:
+        """The full (not projected) n x n Hessian of H at x. Costs one pass plus O(n^2)
+        memory per worker thread."""
+        return self._core.hessian(as_point(x, self.n))
+
+    def hvp(self, x: Any, v: Any) -> np.ndarray:
+        """Hess H(x) v for v of shape (n,) or (n, k) (k directions in one pass)."""
+        pt = as_point(x, self.n)
+        dirs = as_directions(v, self.n)
+        if dirs.ndim == 1:
+            return self._core.hvp(pt, dirs)
+        return self._core.hvp_many(pt, dirs)
+
+    def hessian_operator(self, x: Any) -> LinearOperator:
+        """Hess H(x) as a SciPy LinearOperator (symmetric), each product one pass."""
+        pt = as_point(x, self.n).copy()
+        n = self.n
+
+        def matvec(v: np.ndarray) -> np.ndarray:
+            return self.hvp(pt, np.ravel(v))
+
+        def matmat(v: np.ndarray) -> np.ndarray:
+            return self.hvp(pt, np.asarray(v).reshape(n, -1))
+
+        return LinearOperator(
+            (n, n), matvec=matvec, rmatvec=matvec, matmat=matmat, dtype=np.float64
+        )
+
+    # -- coefficients ------------------------------------------------------------------
+
+    def coefficients(self, p: int) -> np.ndarray:
+        """The degree-p coefficients a_m as a new float64 array in SPEC order."""
+        p = _check_degree(p)
+        if p not in self.degrees:
+            raise ValueError(f"this instance has no degree-{p} term (degrees {self.degrees})")
+        return self._core.coefficients(p)
+
+    def to_dense(self, p: int, max_bytes: int = _dense.DEFAULT_DENSE_LIMIT) -> np.ndarray:
+        """The symmetric dense tensor T of degree p with H_p(x) = T(x, ..., x); refuses when
+        it would exceed ``max_bytes`` (n^p * 8 bytes)."""
+        return _dense.to_dense(self.coefficients(p), self.n, p, max_bytes)
+
+
+__all__ = ["Hamiltonian", "MAX_DEGREE"]

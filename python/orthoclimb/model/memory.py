@@ -1,0 +1,81 @@
+"""How much memory an instance needs, and how much the machine has.
+
+Storage is one number per sorted monomial: sum_p C(n+p-1, p) coefficients of 8 (float64) or
+4 (float32) bytes. Kernels add O(n) per call, and the Hessian O(n^2) per worker thread.
+"""
+
+from __future__ import annotations
+
+import os
+
+import numpy as np
+
+from .. import _core
+from ..errors import InsufficientMemoryError
+from .mixture import Mixture
+
+DTYPES = {"float64": 8, "float32": 4}
+
+
+def normalize_dtype(dtype: object) -> str:
+    """'float64' or 'float32' from a string or NumPy dtype; anything else is a ValueError."""
+    try:
+        name = np.dtype(dtype).name  # type: ignore[call-overload]
+    except TypeError:
+        name = None
+    if name not in DTYPES:
+        raise ValueError(f"storage dtype must be 'float64' or 'float32', got {dtype!r}")
+    return name
+
+
+def estimate_memory(mixture: Mixture, n: int, dtype: object = "float64") -> int:
+    """Bytes of coefficient storage for a sampled instance of `mixture` with n spins."""
+    if not isinstance(mixture, Mixture):
+        raise TypeError(f"mixture must be an orthoclimb.Mixture, got {type(mixture).__name__}")
+    n = check_size(n)
+    itemsize = DTYPES[normalize_dtype(dtype)]
+    return int(_core.storage_nbytes(n, list(mixture.degrees), itemsize))
+
+
+def check_size(n: object) -> int:
+    """n as a Python int >= 1, or a ValueError/TypeError naming the bad value."""
+    if isinstance(n, bool) or not isinstance(n, (int, np.integer)):
+        raise TypeError(f"number of spins n must be an integer, got {n!r}")
+    if n < 1:
+        raise ValueError(f"number of spins n must be >= 1, got {n}")
+    return int(n)
+
+
+def available_memory() -> int:
+    """Bytes the kernel reports as available for new allocations (MemAvailable on Linux)."""
+    try:
+        with open("/proc/meminfo", encoding="ascii") as fh:
+            for line in fh:
+                if line.startswith("MemAvailable:"):
+                    return int(line.split()[1]) * 1024
+    except OSError:
+        pass
+    try:
+        return os.sysconf("SC_AVPHYS_PAGES") * os.sysconf("SC_PAGE_SIZE")
+    except (ValueError, OSError, AttributeError):  # pragma: no cover - non-POSIX
+        return 2**63 - 1
+
+
+def format_bytes(nbytes: float) -> str:
+    """Human-readable size: '1.5 GiB'."""
+    value = float(nbytes)
+    for unit in ("B", "KiB", "MiB", "GiB", "TiB"):
+        if abs(value) < 1024 or unit == "TiB":
+            return f"{value:.0f} {unit}" if unit == "B" else f"{value:.1f} {unit}"
+        value /= 1024
+    raise AssertionError("unreachable")
+
+
+def require_memory(needed: int, what: str) -> None:
+    """Raise InsufficientMemoryError when `needed` bytes exceed the available memory."""
+    have = available_memory()
+    if needed > have:
+        raise InsufficientMemoryError(
+            f"{what} needs {needed} bytes ({format_bytes(needed)}) but only {have} bytes "
+            f"({format_bytes(have)}) are available; pass check_memory=False to try anyway"
+        )

@@ -1,0 +1,93 @@
+//! Typed errors of the core. The binding layer maps each variant to one Python exception
+//! type in a single place; nothing in the core panics on bad input.
+
+use std::fmt;
+
+/// Everything the core can refuse.
+#[derive(Debug, Clone, PartialEq)]
+pub enum CoreError {
+    /// The number of spins n must be at least 1.
+    InvalidSize { n: usize },
+    /// A degree outside 1..=MAX_DEGREE.
+    InvalidDegree { p: usize },
+    /// The same degree twice in one polynomial.
+    DuplicateDegree { p: usize },
+    /// A polynomial needs at least one degree.
+    NoDegrees,
+    /// A gamma that is negative, NaN or infinite.
+    InvalidGamma { p: usize, gamma: f64 },
+    /// A correlation rho outside [-1, 1].
+    InvalidCorrelation { rho: f64 },
+    /// An array whose length does not match what the operation needs.
+    LengthMismatch {
+        what: &'static str,
+        expected: usize,
+        got: usize,
+    },
+    /// No degree-p block in this polynomial.
+    MissingDegree { p: usize },
+    /// A count (coefficients, bytes) does not fit in the machine's address space.
+    SizeOverflow { what: String },
+    /// The allocator refused a buffer.
+    AllocationFailed { bytes: usize },
+    /// An unknown storage type name.
+    InvalidDtype { name: String },
+    /// A thread count of zero or a pool that could not be built.
+    InvalidThreads { detail: String },
+}
+
+impl fmt::Display for CoreError {
+    fn fmt(&self, f: &mut fmt::Formatter<'_>) -> fmt::Result {
+        match self {
+            CoreError::InvalidSize { n } => write!(f, "number of spins n must be >= 1, got {n}"),
+            CoreError::InvalidDegree { p } => write!(
+                f,
+                "degree p must be in 1..={}, got p = {p}",
+                crate::combinatorics::MAX_DEGREE
+            ),
+            CoreError::DuplicateDegree { p } => write!(f, "degree p = {p} is given twice"),
+            CoreError::NoDegrees => write!(f, "a polynomial needs at least one degree"),
+            CoreError::InvalidGamma { p, gamma } => {
+                write!(f, "gamma for p = {p} must be finite and >= 0, got {gamma}")
+            }
+            CoreError::InvalidCorrelation { rho } => {
+                write!(f, "correlation rho must be in [-1, 1], got {rho}")
+            }
+            CoreError::LengthMismatch {
+                what,
+                expected,
+                got,
+            } => {
+                write!(f, "{what}: expected length {expected}, got {got}")
+            }
+            CoreError::MissingDegree { p } => write!(f, "this polynomial has no degree-{p} term"),
+            CoreError::SizeOverflow { what } => write!(f, "size overflow: {what}"),
+            CoreError::AllocationFailed { bytes } => {
+                write!(f, "could not allocate {bytes} bytes")
+            }
+            CoreError::InvalidDtype { name } => {
+                write!(
+                    f,
+                    "storage dtype must be 'float64' or 'float32', got {name:?}"
+                )
+            }
+            CoreError::InvalidThreads { detail } => write!(f, "invalid thread setting: {detail}"),
+        }
+    }
+}
+
+impl std::error::Error for CoreError {}
+
+/// Allocate a zeroed `Vec<f64>`-like buffer without aborting on failure.
+pub(crate) fn try_zeroed<T: Copy + Default>(len: usize) -> Result<Vec<T>, CoreError> {
+    let bytes =
+        len.checked_mul(std::mem::size_of::<T>())
+            .ok_or_else(|| CoreError::SizeOverflow {
+                what: format!("{len} elements"),
+            })?;
+    let mut v = Vec::new();
+    v.try_reserve_exact(len)
+        .map_err(|_| CoreError::AllocationFailed { bytes })?;
+    v.resize(len, T::default());
+    Ok(v)
+}

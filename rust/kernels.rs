@@ -1,0 +1,442 @@
+//! Single-point kernels: value, gradient, Hessian and Hessian-vector products.
+//!
+//! For one degree block, H_p(x) = sum_m a_m x_i1 ... x_ip. Group the monomials by their
+//! prefix (i1, ..., i_{p-1}); for a prefix with products P = prod_j x_ij,
+//! Q_j = prod_{k != j} x_ik and R_jk = prod_{l not in {j,k}} x_il, and the segment of
+//! coefficients a_t, t = i_{p-1}..n, the product rule over positions gives
+//!
+//! ```text
+//! energy     H += P S,                    S  = sum_t a_t x_t
+//! gradient   g_t += P a_t,   g_ij += Q_j S
+//! Hessian    A[ij, t] += Q_j a_t,  A[ij, ik] += R_jk S  (j < k),  Hess = A + A^T
+//! Hess . v   w_t += D a_t,   w_ij += Q_j Sv + dQ_j S,
+//!            D = sum_j v_ij Q_j,  dQ_j = sum_{k != j} v_ik R_jk,  Sv = sum_t a_t v_t
+//! ```
+//!
+//! so each pass reads every coefficient once. Repeated indices need no special case: the
+//! positional product rule counts them (d/dx x^2 = 2x). These satisfy the Euler identities
+//! x . grad H_p = p H_p and Hess H_p x = (p - 1) grad H_p, which the tests check.
+
+use rayon::ThreadPool;
+
+use crate::error::CoreError;
+use crate::partition::{plan, reduce, reduce_sums, WorkItem};
+use crate::simd::{
+    axpy, dot, dot2_axpy, dot_axpy, leave_one_out, leave_two_out, simd_dispatch, Madd, Prefixes,
+    MAX_PREFIX,
+};
+use crate::storage::{Coef, Packed};
+
+/// Items per pass for kernels whose accumulator is a vector of length n.
+pub const VECTOR_PIECES: usize = 64;
+/// Items per pass for the Hessian, whose accumulator is an n x n matrix: few enough that
+/// merging accumulators costs little next to the pass.
+pub const MATRIX_PIECES: usize = 8;
+
+pub(crate) fn items_for<T: Coef>(poly: &Packed<T>, pieces: usize) -> Vec<WorkItem> {
+    let blocks: Vec<(usize, usize)> = poly
+        .blocks()
+        .iter()
+        .map(|b| (b.degree, b.coeffs.len()))
+        .collect();
+    plan(poly.n(), &blocks, pieces)
+}
+
+pub(crate) fn check_len(what: &'static str, expected: usize, got: usize) -> Result<(), CoreError> {
+    if expected == got {
+        Ok(())
+    } else {
+        Err(CoreError::LengthMismatch {
+            what,
+            expected,
+            got,
+        })
+    }
+}
+
+#[inline(always)]
+fn gather(x: &[f64], idx: &[usize], out: &mut [f64; MAX_PREFIX]) {
+    for (o, &i) in out.iter_mut().zip(idx) {
+        *o = x[i];
+    }
+}
+
+// ---------------------------------------------------------------------------------------
+// energy
+
+#[inline(always)]
+fn energy_item_body<M: Madd, T: Coef>(n: usize, a: &[T], it: &WorkItem, x: &[f64]) -> f64 {
+    let coeffs = &a[it.start..it.start + it.len];
+    if it.degree == 1 {
+        return dot::<M, T>(coeffs, &x[it.lo..it.hi]);
+    }
+    let mut walk = Prefixes::new(n, it.degree, it.lo, it.hi);
+    let mut xp = [0f64; MAX_PREFIX];
+    let mut e = 0.0;
+    while let Some((t0, pos)) = walk.next_prefix() {
+        let pre = walk.prefix();
+        gather(x, pre, &mut xp);
+        let prod: f64 = xp[..pre.len()].iter().product();
+        e += prod * dot::<M, T>(&coeffs[pos..pos + n - t0], &x[t0..]);
+    }
+    e
+}
+
+simd_dispatch!(fn energy_item => energy_item_body(n: usize, a: &[T], it: &WorkItem, x: &[f64]) -> f64);
+
+/// H(x) = sum_p H_p(x).
+pub fn energy<T: Coef>(pool: &ThreadPool, poly: &Packed<T>, x: &[f64]) -> Result<f64, CoreError> {
+    check_len("x", poly.n(), x.len())?;
+    let items = items_for(poly, VECTOR_PIECES);
+    let blocks = poly.blocks();
+    let n = poly.n();
+    Ok(reduce(
+        pool,
+        &items,
+        || 0.0,
+        |it, acc| *acc += energy_item::<T>(n, &blocks[it.block].coeffs, it, x),
+        |a, b| *a += b,
+    ))
+}
+
+// ---------------------------------------------------------------------------------------
+// gradient
+
+#[inline(always)]
+fn gradient_item_body<M: Madd, T: Coef>(
+    n: usize,
+    a: &[T],
+    it: &WorkItem,
+    x: &[f64],
+    g: &mut [f64],
+) -> f64 {
+    let coeffs = &a[it.start..it.start + it.len];
+    if it.degree == 1 {
+        return dot_axpy::<M, T>(coeffs, &x[it.lo..it.hi], &mut g[it.lo..it.hi], 1.0);
+    }
+    let mut walk = Prefixes::new(n, it.degree, it.lo, it.hi);
+    let (mut xp, mut q) = ([0f64; MAX_PREFIX], [0f64; MAX_PREFIX]);
+    let mut e = 0.0;
+    while let Some((t0, pos)) = walk.next_prefix() {
+        let pre = walk.prefix();
+        let l = pre.len();
+        gather(x, pre, &mut xp);
+        let prod = leave_one_out(&xp[..l], &mut q);
+        let s = dot_axpy::<M, T>(&coeffs[pos..pos + n - t0], &x[t0..], &mut g[t0..], prod);
+        e += prod * s;
+        for j in 0..l {
+            g[pre[j]] += q[j] * s;
+        }
+    }
+    e
+}
+
+simd_dispatch!(fn gradient_item => gradient_item_body(
+    n: usize, a: &[T], it: &WorkItem, x: &[f64], g: &mut [f64]) -> f64);
+
+/// (H(x), grad H(x)).
+pub fn energy_gradient<T: Coef>(
+    pool: &ThreadPool,
+    poly: &Packed<T>,
+    x: &[f64],
+) -> Result<(f64, Vec<f64>), CoreError> {
+    let n = poly.n();
+    check_len("x", n, x.len())?;
+    let items = items_for(poly, VECTOR_PIECES);
+    let blocks = poly.blocks();
+    let (e, g) = reduce_sums(pool, &items, 1, n, |it, e, g| {
+        e[0] += gradient_item::<T>(n, &blocks[it.block].coeffs, it, x, g);
+    })?;
+    Ok((e[0], g))
+}
+
+// ---------------------------------------------------------------------------------------
+// Hessian
+
+#[inline(always)]
+fn hessian_item_body<M: Madd, T: Coef>(
+    n: usize,
+    a: &[T],
+    it: &WorkItem,
+    x: &[f64],
+    acc: &mut [f64],
+) {
+    if it.degree == 1 {
+        return; // a linear term has no curvature
+    }
+    let coeffs = &a[it.start..it.start + it.len];
+    let mut walk = Prefixes::new(n, it.degree, it.lo, it.hi);
+    let (mut xp, mut q) = ([0f64; MAX_PREFIX], [0f64; MAX_PREFIX]);
+    let mut r = [[0f64; MAX_PREFIX]; MAX_PREFIX];
+    while let Some((t0, pos)) = walk.next_prefix() {
+        let pre = walk.prefix();
+        let l = pre.len();
+        let seg = &coeffs[pos..pos + n - t0];
+        gather(x, pre, &mut xp);
+        leave_one_out(&xp[..l], &mut q);
+        if l >= 2 {
+            leave_two_out(&xp[..l], &mut r);
+            let s = dot::<M, T>(seg, &x[t0..]);
+            for j in 0..l {
+                for k in j + 1..l {
+                    acc[pre[j] * n + pre[k]] += r[j][k] * s;
+                }
+            }
+        }
+        // One row update per distinct prefix index (equal indices are adjacent).
+        let mut j = 0;
+        while j < l {
+            let row = pre[j];
+            let mut coef = q[j];
+            let mut k = j + 1;
+            while k < l && pre[k] == row {
+                coef += q[k];
+                k += 1;
+            }
+            axpy::<M, T>(&mut acc[row * n + t0..row * n + n], coef, seg);
+            j = k;
+        }
+    }
+}
+
+simd_dispatch!(fn hessian_item => hessian_item_body(
+    n: usize, a: &[T], it: &WorkItem, x: &[f64], acc: &mut [f64]) -> ());
+
+/// The full n x n Hessian of H at x, row-major.
+pub fn hessian<T: Coef>(
+    pool: &ThreadPool,
+    poly: &Packed<T>,
+    x: &[f64],
+) -> Result<Vec<f64>, CoreError> {
+    let n = poly.n();
+    check_len("x", n, x.len())?;
+    let nn = n.checked_mul(n).ok_or_else(|| CoreError::SizeOverflow {
+        what: format!("Hessian of n = {n}"),
+    })?;
+    let items = items_for(poly, MATRIX_PIECES);
+    let blocks = poly.blocks();
+    let (_, mut upper) = reduce_sums(pool, &items, 0, nn, |it, _, acc| {
+        hessian_item::<T>(n, &blocks[it.block].coeffs, it, x, acc);
+    })?;
+    // Hess = A + A^T, where A holds each unordered pair of positions once.
+    for i in 0..n {
+        for j in i..n {
+            let s = upper[i * n + j] + upper[j * n + i];
+            upper[i * n + j] = s;
+            upper[j * n + i] = s;
+        }
+    }
+    Ok(upper)
+}
+
+// ---------------------------------------------------------------------------------------
+// Hessian-vector product (one direction; several directions are in `batch`)
+
+#[inline(always)]
+fn hvp_item_body<M: Madd, T: Coef>(
+    n: usize,
+    a: &[T],
+    it: &WorkItem,
+    x: &[f64],
+    v: &[f64],
+    w: &mut [f64],
+) {
+    if it.degree == 1 {
+        return;
+    }
+    let coeffs = &a[it.start..it.start + it.len];
+    let mut walk = Prefixes::new(n, it.degree, it.lo, it.hi);
+    let (mut xp, mut vp, mut q) = ([0f64; MAX_PREFIX], [0f64; MAX_PREFIX], [0f64; MAX_PREFIX]);
+    let mut r = [[0f64; MAX_PREFIX]; MAX_PREFIX];
+    while let Some((t0, pos)) = walk.next_prefix() {
+        let pre = walk.prefix();
+        let l = pre.len();
+        gather(x, pre, &mut xp);
+        gather(v, pre, &mut vp);
+        leave_one_out(&xp[..l], &mut q);
+        let d: f64 = (0..l).map(|j| vp[j] * q[j]).sum();
+        let (sx, sv) = dot2_axpy::<M, T>(
+            &coeffs[pos..pos + n - t0],
+            &x[t0..],
+            &v[t0..],
+            &mut w[t0..],
+            d,
+        );
+        if l >= 2 {
+            leave_two_out(&xp[..l], &mut r);
+        }
+        for j in 0..l {
+            let mut dq = 0.0;
+            for k in 0..l {
+                if k != j {
+                    dq += vp[k] * if j < k { r[j][k] } else { r[k][j] };
+                }
+            }
+            w[pre[j]] += q[j] * sv + dq * sx;
+        }
+    }
+}
+
+simd_dispatch!(fn hvp_item => hvp_item_body(
+    n: usize, a: &[T], it: &WorkItem, x: &[f64], v: &[f64], w: &mut [f64]) -> ());
+
+/// Hess H(x) v for one direction v.
+pub fn hvp<T: Coef>(
+    pool: &ThreadPool,
+    poly: &Packed<T>,
+    x: &[f64],
+    v: &[f64],
+) -> Result<Vec<f64>, CoreError> {
+    let n = poly.n();
+    check_len("x", n, x.len())?;
+    check_len("v", n, v.len())?;
+    let items = items_for(poly, VECTOR_PIECES);
+    let blocks = poly.blocks();
+    let (_, w) = reduce_sums(pool, &items, 0, n, |it, _, w| {
+        hvp_item::<T>(n, &blocks[it.block].coeffs, it, x, v, w);
+    })?;
+    Ok(w)
+}
+
+#[cfg(test)]
+pub(crate) mod tests {
+    use super::*;
+    use crate::combinatorics::{advance, num_multisets};
+    use crate::sampling::Disorder;
+
+    pub fn pool(k: usize) -> ThreadPool {
+        rayon::ThreadPoolBuilder::new()
+            .num_threads(k)
+            .build()
+            .unwrap()
+    }
+
+    /// Direct evaluation: sum over monomials of a_m prod x, and its derivatives by the
+    /// positional product rule applied term by term (no shared code with the kernels).
+    pub fn naive(poly: &Packed<f64>, x: &[f64]) -> (f64, Vec<f64>, Vec<f64>) {
+        let n = poly.n();
+        let (mut e, mut g, mut h) = (0.0, vec![0.0; n], vec![0.0; n * n]);
+        for b in poly.blocks() {
+            let p = b.degree;
+            let mut idx = vec![0usize; p];
+            for &a in &b.coeffs {
+                e += a * idx.iter().map(|&i| x[i]).product::<f64>();
+                for j in 0..p {
+                    let others: f64 = (0..p).filter(|&l| l != j).map(|l| x[idx[l]]).product();
+                    g[idx[j]] += a * others;
+                    for k in 0..p {
+                        if k != j {
+                            let rest: f64 = (0..p)
+                                .filter(|&l| l != j && l != k)
+                                .map(|l| x[idx[l]])
+                                .product();
+                            h[idx[j] * n + idx[k]] += a * rest;
+                        }
+                    }
+                }
+                advance(&mut idx, n);
+            }
+        }
+        (e, g, h)
+    }
+
+    fn point(n: usize, s: f64) -> Vec<f64> {
+        (0..n).map(|i| ((i as f64 + 1.0) * s).sin()).collect()
+    }
+
+    fn close(a: f64, b: f64, scale: f64) -> bool {
+        (a - b).abs() <= 1e-11 * scale.max(1.0)
+    }
+
+    #[test]
+    fn kernels_match_naive_evaluation() {
+        for n in [1usize, 2, 3, 5, 9, 17] {
+            let terms = [(1usize, 0.3), (2, 1.0), (3, 0.7), (4, 0.4), (5, 0.2)];
+            let poly =
+                Packed::<f64>::sample(&pool(2), n, &terms, &Disorder::new(n as u64)).unwrap();
+            let x = point(n, 0.7);
+            let v = point(n, 1.3);
+            let (e0, g0, h0) = naive(&poly, &x);
+            let scale = e0.abs() + g0.iter().map(|t| t.abs()).sum::<f64>();
+            let p = pool(2);
+            assert!(close(energy(&p, &poly, &x).unwrap(), e0, scale));
+            let (e1, g1) = energy_gradient(&p, &poly, &x).unwrap();
+            assert!(close(e1, e0, scale));
+            for (a, b) in g1.iter().zip(&g0) {
+                assert!(close(*a, *b, scale), "gradient n={n}");
+            }
+            let h1 = hessian(&p, &poly, &x).unwrap();
+            for (a, b) in h1.iter().zip(&h0) {
+                assert!(close(*a, *b, scale), "hessian n={n}: {a} vs {b}");
+            }
+            let w = hvp(&p, &poly, &x, &v).unwrap();
+            for i in 0..n {
+                let want: f64 = (0..n).map(|j| h0[i * n + j] * v[j]).sum();
+                assert!(close(w[i], want, scale), "hvp n={n}");
+            }
+        }
+    }
+
+    #[test]
+    fn euler_identities_per_degree() {
+        let n = 23;
+        for p in 1..=8usize {
+            let poly = Packed::<f64>::sample(&pool(2), n, &[(p, 1.0)], &Disorder::new(3)).unwrap();
+            let x = point(n, 0.37);
+            let pl = pool(2);
+            let (e, g) = energy_gradient(&pl, &poly, &x).unwrap();
+            let xg: f64 = x.iter().zip(&g).map(|(a, b)| a * b).sum();
+            assert!((xg - p as f64 * e).abs() < 1e-9 * (1.0 + e.abs()), "p={p}");
+            let hx = hvp(&pl, &poly, &x, &x).unwrap();
+            for (a, b) in hx.iter().zip(&g) {
+                assert!(
+                    (a - (p as f64 - 1.0) * b).abs() < 1e-9 * (1.0 + b.abs()),
+                    "p={p}"
+                );
+            }
+        }
+    }
+
+    #[test]
+    fn bitwise_identical_across_thread_counts() {
+        let n = 70;
+        let poly =
+            Packed::<f32>::sample(&pool(2), n, &[(2, 1.0), (3, 0.5)], &Disorder::new(9)).unwrap();
+        let x = point(n, 0.21);
+        let v = point(n, 0.9);
+        let runs: Vec<_> = [1usize, 2, 4]
+            .iter()
+            .map(|&k| {
+                let p = pool(k);
+                (
+                    energy(&p, &poly, &x).unwrap().to_bits(),
+                    energy_gradient(&p, &poly, &x).unwrap().1,
+                    hessian(&p, &poly, &x).unwrap(),
+                    hvp(&p, &poly, &x, &v).unwrap(),
+                )
+            })
+            .collect();
+        for r in &runs[1..] {
+            assert_eq!(r.0, runs[0].0);
+            assert_eq!(r.1, runs[0].1);
+            assert_eq!(r.2, runs[0].2);
+            assert_eq!(r.3, runs[0].3);
+        }
+        assert!(num_multisets(n, 3).unwrap() > 50_000);
+    }
+
+    #[test]
+    fn wrong_lengths_are_errors() {
+        let poly = Packed::<f64>::sample(&pool(1), 4, &[(2, 1.0)], &Disorder::new(1)).unwrap();
+        let p = pool(1);
+        assert!(matches!(
+            energy(&p, &poly, &[0.0; 3]),
+            Err(CoreError::LengthMismatch {
+                expected: 4,
+                got: 3,
+                ..
+            })
+        ));
+        assert!(hvp(&p, &poly, &[0.0; 4], &[0.0; 5]).is_err());
+    }
+}

@@ -1,0 +1,344 @@
+//! Inner loops shared by the kernels, and the run-time choice of instruction set.
+//!
+//! Every loop is written once, generic over [`Madd`] (how a*b + c is evaluated) and the
+//! coefficient type. [`simd_dispatch!`] instantiates a kernel twice: with fused multiply-add
+//! inside an `avx2,fma` target-feature function (chosen at run time when the processor has
+//! them) and with plain arithmetic for any other x86-64 or other architecture. One machine
+//! always takes the same path, so results stay bitwise reproducible there.
+//!
+//! Reductions use `LANES` independent accumulators combined in a fixed order; that is what
+//! lets the compiler vectorize them without reassociating floating-point sums.
+
+use crate::storage::Coef;
+
+/// How `a * b + c` is evaluated.
+pub trait Madd {
+    fn madd(a: f64, b: f64, c: f64) -> f64;
+}
+
+/// Fused multiply-add (one rounding); used only where the processor has FMA.
+pub struct Fused;
+/// Multiply then add (two roundings).
+pub struct Plain;
+
+impl Madd for Fused {
+    #[inline(always)]
+    fn madd(a: f64, b: f64, c: f64) -> f64 {
+        a.mul_add(b, c)
+    }
+}
+
+impl Madd for Plain {
+    #[inline(always)]
+    fn madd(a: f64, b: f64, c: f64) -> f64 {
+        a * b + c
+    }
+}
+
+/// True when the processor has AVX2 and FMA (checked once, then cached by std).
+#[inline]
+pub fn has_avx2_fma() -> bool {
+    #[cfg(target_arch = "x86_64")]
+    {
+        std::is_x86_feature_detected!("avx2") && std::is_x86_feature_detected!("fma")
+    }
+    #[cfg(not(target_arch = "x86_64"))]
+    {
+        false
+    }
+}
+
+/// Name of the instruction-set path the kernels take on this machine.
+pub fn simd_path() -> &'static str {
+    if has_avx2_fma() {
+        "avx2+fma"
+    } else {
+        "baseline"
+    }
+}
+
+/// Defines `pub fn $name<T: Coef>(args) -> ret` that calls `$body::<Fused, T>` inside an
+/// `avx2,fma` function when available and `$body::<Plain, T>` otherwise. `$body` must be
+/// `#[inline(always)]` so that its loops are compiled with the chosen features.
+macro_rules! simd_dispatch {
+    ($(#[$meta:meta])* $vis:vis fn $name:ident => $body:ident ($($arg:ident : $ty:ty),* $(,)?) -> $ret:ty) => {
+        $(#[$meta])*
+        $vis fn $name<T: $crate::storage::Coef>($($arg: $ty),*) -> $ret {
+            #[cfg(target_arch = "x86_64")]
+            {
+                #[target_feature(enable = "avx2,fma")]
+                unsafe fn fast<T: $crate::storage::Coef>($($arg: $ty),*) -> $ret {
+                    $body::<$crate::simd::Fused, T>($($arg),*)
+                }
+                if $crate::simd::has_avx2_fma() {
+                    // SAFETY: the processor has the features `fast` was compiled for.
+                    return unsafe { fast::<T>($($arg),*) };
+                }
+            }
+            $body::<$crate::simd::Plain, T>($($arg),*)
+        }
+    };
+}
+pub(crate) use simd_dispatch;
+
+const LANES: usize = 8;
+
+#[inline(always)]
+fn combine(acc: &[f64; LANES]) -> f64 {
+    ((acc[0] + acc[4]) + (acc[1] + acc[5])) + ((acc[2] + acc[6]) + (acc[3] + acc[7]))
+}
+
+/// sum_t a_t x_t.
+#[inline(always)]
+pub fn dot<M: Madd, T: Coef>(a: &[T], x: &[f64]) -> f64 {
+    let x = &x[..a.len()];
+    let mut acc = [0f64; LANES];
+    let (ca, cx) = (a.chunks_exact(LANES), x.chunks_exact(LANES));
+    let (ra, rx) = (ca.remainder(), cx.remainder());
+    for (ac, xc) in ca.zip(cx) {
+        for l in 0..LANES {
+            acc[l] = M::madd(ac[l].to_f64(), xc[l], acc[l]);
+        }
+    }
+    let mut tail = 0.0;
+    for (ai, xi) in ra.iter().zip(rx) {
+        tail = M::madd(ai.to_f64(), *xi, tail);
+    }
+    combine(&acc) + tail
+}
+
+/// y_t += alpha a_t.
+#[inline(always)]
+pub fn axpy<M: Madd, T: Coef>(y: &mut [f64], alpha: f64, a: &[T]) {
+    let y = &mut y[..a.len()];
+    for (yi, ai) in y.iter_mut().zip(a) {
+        *yi = M::madd(alpha, ai.to_f64(), *yi);
+    }
+}
+
+/// Returns sum_t a_t x_t and does y_t += alpha a_t, reading `a` once.
+#[inline(always)]
+pub fn dot_axpy<M: Madd, T: Coef>(a: &[T], x: &[f64], y: &mut [f64], alpha: f64) -> f64 {
+    let len = a.len();
+    let (x, y) = (&x[..len], &mut y[..len]);
+    let mut acc = [0f64; LANES];
+    let (ca, cx, cy) = (
+        a.chunks_exact(LANES),
+        x.chunks_exact(LANES),
+        y.chunks_exact_mut(LANES),
+    );
+    let (ra, rx) = (ca.remainder(), cx.remainder());
+    let body = len - ra.len();
+    for ((ac, xc), yc) in ca.zip(cx).zip(cy) {
+        for l in 0..LANES {
+            let av = ac[l].to_f64();
+            acc[l] = M::madd(av, xc[l], acc[l]);
+            yc[l] = M::madd(alpha, av, yc[l]);
+        }
+    }
+    let mut tail = 0.0;
+    for ((ai, xi), yi) in ra.iter().zip(rx).zip(y[body..].iter_mut()) {
+        let av = ai.to_f64();
+        tail = M::madd(av, *xi, tail);
+        *yi = M::madd(alpha, av, *yi);
+    }
+    combine(&acc) + tail
+}
+
+/// Returns (sum_t a_t x_t, sum_t a_t v_t) and does w_t += alpha a_t, reading `a` once.
+#[inline(always)]
+pub fn dot2_axpy<M: Madd, T: Coef>(
+    a: &[T],
+    x: &[f64],
+    v: &[f64],
+    w: &mut [f64],
+    alpha: f64,
+) -> (f64, f64) {
+    let len = a.len();
+    let (x, v, w) = (&x[..len], &v[..len], &mut w[..len]);
+    let mut ax = [0f64; LANES];
+    let mut av_ = [0f64; LANES];
+    let ca = a.chunks_exact(LANES);
+    let ra = ca.remainder();
+    let body = len - ra.len();
+    for (((ac, xc), vc), wc) in ca
+        .zip(x.chunks_exact(LANES))
+        .zip(v.chunks_exact(LANES))
+        .zip(w.chunks_exact_mut(LANES))
+    {
+        for l in 0..LANES {
+            let c = ac[l].to_f64();
+            ax[l] = M::madd(c, xc[l], ax[l]);
+            av_[l] = M::madd(c, vc[l], av_[l]);
+            wc[l] = M::madd(alpha, c, wc[l]);
+        }
+    }
+    let (mut tx, mut tv) = (0.0, 0.0);
+    for (j, ai) in ra.iter().enumerate() {
+        let c = ai.to_f64();
+        let t = body + j;
+        tx = M::madd(c, x[t], tx);
+        tv = M::madd(c, v[t], tv);
+        w[t] = M::madd(alpha, c, w[t]);
+    }
+    (combine(&ax) + tx, combine(&av_) + tv)
+}
+
+/// Largest prefix length (p - 1) a kernel sees.
+pub const MAX_PREFIX: usize = crate::combinatorics::MAX_DEGREE - 1;
+
+/// Given the prefix values xp (length L <= 7), writes q[j] = prod_{k != j} xp[k] and returns
+/// prod_k xp[k]. Uses prefix and suffix products (no division, so zeros are fine).
+#[inline(always)]
+pub fn leave_one_out(xp: &[f64], q: &mut [f64; MAX_PREFIX]) -> f64 {
+    let l = xp.len();
+    let mut pre = 1.0;
+    for j in 0..l {
+        q[j] = pre;
+        pre *= xp[j];
+    }
+    let mut suf = 1.0;
+    for j in (0..l).rev() {
+        q[j] *= suf;
+        suf *= xp[j];
+    }
+    pre
+}
+
+/// r[j][k] = prod_{l not in {j, k}} xp[l] for j < k (entries with j >= k are left alone).
+#[inline(always)]
+pub fn leave_two_out(xp: &[f64], r: &mut [[f64; MAX_PREFIX]; MAX_PREFIX]) {
+    let l = xp.len();
+    let mut suf = [1.0f64; MAX_PREFIX + 1];
+    for j in (0..l).rev() {
+        suf[j] = suf[j + 1] * xp[j];
+    }
+    let mut pre = 1.0;
+    for j in 0..l {
+        let mut mid = 1.0;
+        for k in j + 1..l {
+            r[j][k] = pre * mid * suf[k + 1];
+            mid *= xp[k];
+        }
+        pre *= xp[j];
+    }
+}
+
+/// Walks the prefixes (i1 <= ... <= i_{p-1}) with i1 in lo..hi in lexicographic order. For
+/// each, the coefficients with that prefix are the next n - i_{p-1} entries of the item's
+/// coefficient range, for last index t = i_{p-1}..n.
+pub struct Prefixes {
+    pub idx: [usize; MAX_PREFIX],
+    len: usize,
+    n: usize,
+    hi: usize,
+    pos: usize,
+    started: bool,
+}
+
+impl Prefixes {
+    #[inline(always)]
+    pub fn new(n: usize, degree: usize, lo: usize, hi: usize) -> Self {
+        debug_assert!(degree >= 2);
+        Prefixes {
+            idx: [lo; MAX_PREFIX],
+            len: degree - 1,
+            n,
+            hi,
+            pos: 0,
+            started: false,
+        }
+    }
+
+    /// Advances; returns (t0, offset of the first coefficient of this prefix in the item).
+    #[inline(always)]
+    pub fn next_prefix(&mut self) -> Option<(usize, usize)> {
+        let l = self.len;
+        if self.started {
+            self.pos += self.n - self.idx[l - 1];
+            if !crate::combinatorics::advance(&mut self.idx[..l], self.n) || self.idx[0] >= self.hi
+            {
+                return None;
+            }
+        } else {
+            if self.idx[0] >= self.hi {
+                return None;
+            }
+            self.started = true;
+        }
+        Some((self.idx[l - 1], self.pos))
+    }
+
+    #[inline(always)]
+    pub fn prefix(&self) -> &[usize] {
+        &self.idx[..self.len]
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn loops_match_plain_sums() {
+        let a: Vec<f64> = (0..37).map(|i| (i as f64 * 0.37).sin()).collect();
+        let x: Vec<f64> = (0..37).map(|i| (i as f64 * 0.11).cos()).collect();
+        let v: Vec<f64> = (0..37).map(|i| 1.0 / (1.0 + i as f64)).collect();
+        let want: f64 = a.iter().zip(&x).map(|(p, q)| p * q).sum();
+        let wantv: f64 = a.iter().zip(&v).map(|(p, q)| p * q).sum();
+        assert!((dot::<Plain, f64>(&a, &x) - want).abs() < 1e-13);
+        assert!((dot::<Fused, f64>(&a, &x) - want).abs() < 1e-13);
+        let mut y = vec![1.0; 37];
+        let s = dot_axpy::<Plain, f64>(&a, &x, &mut y, 2.0);
+        assert!((s - want).abs() < 1e-13);
+        for (yi, ai) in y.iter().zip(&a) {
+            assert!((yi - (1.0 + 2.0 * ai)).abs() < 1e-15);
+        }
+        let mut w = vec![0.0; 37];
+        let (sx, sv) = dot2_axpy::<Plain, f64>(&a, &x, &v, &mut w, -1.0);
+        assert!((sx - want).abs() < 1e-13 && (sv - wantv).abs() < 1e-13);
+        assert!(w.iter().zip(&a).all(|(wi, ai)| *wi == -ai));
+        let mut z = vec![0.0; 37];
+        axpy::<Plain, f32>(
+            &mut z,
+            3.0,
+            &a.iter().map(|&t| t as f32).collect::<Vec<_>>(),
+        );
+        assert!((z[5] - 3.0 * (a[5] as f32) as f64).abs() < 1e-15);
+    }
+
+    #[test]
+    fn leave_out_products() {
+        let xp = [2.0, 3.0, 0.0, 5.0];
+        let mut q = [0.0; MAX_PREFIX];
+        let all = leave_one_out(&xp, &mut q);
+        assert_eq!(all, 0.0);
+        assert_eq!(&q[..4], &[0.0, 0.0, 30.0, 0.0]);
+        let mut r = [[0.0; MAX_PREFIX]; MAX_PREFIX];
+        leave_two_out(&xp, &mut r);
+        assert_eq!(r[0][1], 0.0);
+        assert_eq!(r[0][2], 15.0);
+        assert_eq!(r[1][2], 10.0);
+        assert_eq!(r[2][3], 6.0);
+    }
+
+    #[test]
+    fn prefixes_partition_the_item() {
+        let (n, p) = (6, 3);
+        let mut pr = Prefixes::new(n, p, 1, 4);
+        let mut seen = vec![];
+        let mut total = 0;
+        while let Some((t0, pos)) = pr.next_prefix() {
+            assert_eq!(pos, total);
+            assert_eq!(t0, pr.prefix()[1]);
+            seen.push(pr.prefix().to_vec());
+            total += n - t0;
+        }
+        let want: usize = (1..4)
+            .map(|s| crate::combinatorics::count_with_first(n, p, s))
+            .sum();
+        assert_eq!(total, want);
+        assert_eq!(seen.first().unwrap(), &vec![1, 1]);
+        assert_eq!(seen.last().unwrap(), &vec![3, 5]);
+    }
+}

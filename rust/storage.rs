@@ -1,0 +1,267 @@
+//! Packed storage of a random polynomial: one coefficient per sorted monomial and degree.
+//!
+//! A [`Packed`] holds, for each degree p of the mixture, the coefficients a_m of
+//! H_p(x) = sum_m a_m x_i1 ... x_ip over multisets m = (i1 <= ... <= ip) of 0..n in
+//! lexicographic order: C(n+p-1, p) numbers instead of the n^p of a dense tensor.
+//! Coefficients are stored as f64 or f32 ([`Coef`]); kernels always accumulate in f64.
+
+use rayon::ThreadPool;
+
+use crate::combinatorics::{num_multisets, MAX_DEGREE};
+use crate::error::{try_zeroed, CoreError};
+use crate::sampling::{fill_block, Disorder};
+
+/// A storage type for coefficients. Arithmetic is always done in f64.
+pub trait Coef: Copy + Send + Sync + Default + PartialEq + std::fmt::Debug + 'static {
+    const NAME: &'static str;
+    fn to_f64(self) -> f64;
+    fn from_f64(v: f64) -> Self;
+}
+
+impl Coef for f64 {
+    const NAME: &'static str = "float64";
+    #[inline(always)]
+    fn to_f64(self) -> f64 {
+        self
+    }
+    #[inline(always)]
+    fn from_f64(v: f64) -> Self {
+        v
+    }
+}
+
+impl Coef for f32 {
+    const NAME: &'static str = "float32";
+    #[inline(always)]
+    fn to_f64(self) -> f64 {
+        self as f64
+    }
+    #[inline(always)]
+    fn from_f64(v: f64) -> Self {
+        v as f32
+    }
+}
+
+/// The degree-p part of a polynomial.
+#[derive(Debug, Clone)]
+pub struct Block<T> {
+    pub degree: usize,
+    /// gamma_p when the block was sampled; `None` for user-given coefficients.
+    pub gamma: Option<f64>,
+    pub coeffs: Vec<T>,
+}
+
+/// A polynomial on R^n stored as packed blocks, sorted by degree.
+#[derive(Debug, Clone)]
+pub struct Packed<T> {
+    n: usize,
+    blocks: Vec<Block<T>>,
+}
+
+/// Checks n and the degrees; returns the coefficient count of each degree, in the given order.
+pub fn block_lengths(n: usize, degrees: &[usize]) -> Result<Vec<usize>, CoreError> {
+    if n == 0 {
+        return Err(CoreError::InvalidSize { n });
+    }
+    if degrees.is_empty() {
+        return Err(CoreError::NoDegrees);
+    }
+    let mut seen = [false; MAX_DEGREE + 1];
+    degrees
+        .iter()
+        .map(|&p| {
+            if !(1..=MAX_DEGREE).contains(&p) {
+                return Err(CoreError::InvalidDegree { p });
+            }
+            if std::mem::replace(&mut seen[p], true) {
+                return Err(CoreError::DuplicateDegree { p });
+            }
+            num_multisets(n, p)
+        })
+        .collect()
+}
+
+/// Bytes of coefficient storage for n spins and these degrees with `elem` bytes per number.
+pub fn storage_bytes(n: usize, degrees: &[usize], elem: usize) -> Result<usize, CoreError> {
+    let lens = block_lengths(n, degrees)?;
+    lens.iter()
+        .try_fold(0usize, |acc, &l| acc.checked_add(l.checked_mul(elem)?))
+        .ok_or_else(|| CoreError::SizeOverflow {
+            what: format!("storage for n = {n}, degrees {degrees:?}"),
+        })
+}
+
+impl<T: Coef> Packed<T> {
+    /// Samples every block from its counter-based Gaussian stream (see [`crate::sampling`]).
+    /// `terms` are (p, gamma_p) pairs.
+    pub fn sample(
+        pool: &ThreadPool,
+        n: usize,
+        terms: &[(usize, f64)],
+        disorder: &Disorder,
+    ) -> Result<Self, CoreError> {
+        disorder.validate()?;
+        for &(p, gamma) in terms {
+            if !gamma.is_finite() || gamma < 0.0 {
+                return Err(CoreError::InvalidGamma { p, gamma });
+            }
+        }
+        let degrees: Vec<usize> = terms.iter().map(|t| t.0).collect();
+        let lens = block_lengths(n, &degrees)?;
+        storage_bytes(n, &degrees, std::mem::size_of::<T>())?;
+        let mut blocks = Vec::with_capacity(terms.len());
+        for (&(p, gamma), &len) in terms.iter().zip(&lens) {
+            let mut coeffs = try_zeroed::<T>(len)?;
+            fill_block(pool, n, p, gamma, disorder, &mut coeffs);
+            blocks.push(Block {
+                degree: p,
+                gamma: Some(gamma),
+                coeffs,
+            });
+        }
+        Ok(Self::sorted(n, blocks))
+    }
+
+    /// Wraps user-given coefficients (f64, rounded to T), one array per degree.
+    pub fn from_coefficients(n: usize, parts: &[(usize, &[f64])]) -> Result<Self, CoreError> {
+        let degrees: Vec<usize> = parts.iter().map(|t| t.0).collect();
+        let lens = block_lengths(n, &degrees)?;
+        let mut blocks = Vec::with_capacity(parts.len());
+        for (&(p, data), &len) in parts.iter().zip(&lens) {
+            if data.len() != len {
+                return Err(CoreError::LengthMismatch {
+                    what: "coefficients of degree p (C(n+p-1, p) of them)",
+                    expected: len,
+                    got: data.len(),
+                });
+            }
+            let mut coeffs = Vec::new();
+            coeffs
+                .try_reserve_exact(len)
+                .map_err(|_| CoreError::AllocationFailed {
+                    bytes: len * std::mem::size_of::<T>(),
+                })?;
+            coeffs.extend(data.iter().map(|&v| T::from_f64(v)));
+            blocks.push(Block {
+                degree: p,
+                gamma: None,
+                coeffs,
+            });
+        }
+        Ok(Self::sorted(n, blocks))
+    }
+
+    fn sorted(n: usize, mut blocks: Vec<Block<T>>) -> Self {
+        blocks.sort_by_key(|b| b.degree);
+        Packed { n, blocks }
+    }
+
+    pub fn n(&self) -> usize {
+        self.n
+    }
+
+    pub fn blocks(&self) -> &[Block<T>] {
+        &self.blocks
+    }
+
+    pub fn degrees(&self) -> Vec<usize> {
+        self.blocks.iter().map(|b| b.degree).collect()
+    }
+
+    pub fn block(&self, p: usize) -> Result<&Block<T>, CoreError> {
+        self.blocks
+            .iter()
+            .find(|b| b.degree == p)
+            .ok_or(CoreError::MissingDegree { p })
+    }
+
+    pub fn max_degree(&self) -> usize {
+        self.blocks.iter().map(|b| b.degree).max().unwrap_or(0)
+    }
+
+    pub fn num_coefficients(&self) -> usize {
+        self.blocks.iter().map(|b| b.coeffs.len()).sum()
+    }
+
+    pub fn nbytes(&self) -> usize {
+        self.num_coefficients() * std::mem::size_of::<T>()
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    fn pool() -> ThreadPool {
+        rayon::ThreadPoolBuilder::new()
+            .num_threads(2)
+            .build()
+            .unwrap()
+    }
+
+    #[test]
+    fn lengths_and_bytes() {
+        assert_eq!(block_lengths(10, &[1, 3]).unwrap(), vec![10, 220]);
+        assert_eq!(storage_bytes(10, &[1, 3], 8).unwrap(), 230 * 8);
+        assert_eq!(block_lengths(0, &[2]), Err(CoreError::InvalidSize { n: 0 }));
+        assert_eq!(
+            block_lengths(3, &[9]),
+            Err(CoreError::InvalidDegree { p: 9 })
+        );
+        assert_eq!(
+            block_lengths(3, &[0]),
+            Err(CoreError::InvalidDegree { p: 0 })
+        );
+        assert_eq!(
+            block_lengths(3, &[2, 2]),
+            Err(CoreError::DuplicateDegree { p: 2 })
+        );
+        assert_eq!(block_lengths(3, &[]), Err(CoreError::NoDegrees));
+        assert!(matches!(
+            storage_bytes(1 << 40, &[8], 8),
+            Err(CoreError::SizeOverflow { .. })
+        ));
+    }
+
+    #[test]
+    fn sample_validates_and_sorts() {
+        let d = Disorder::new(1);
+        let bad = Packed::<f64>::sample(&pool(), 4, &[(2, -1.0)], &d);
+        assert!(matches!(bad, Err(CoreError::InvalidGamma { p: 2, .. })));
+        let nan = Packed::<f64>::sample(&pool(), 4, &[(2, f64::NAN)], &d);
+        assert!(matches!(nan, Err(CoreError::InvalidGamma { .. })));
+        let ok = Packed::<f32>::sample(&pool(), 5, &[(3, 1.0), (1, 0.5)], &d).unwrap();
+        assert_eq!(ok.degrees(), vec![1, 3]);
+        assert_eq!(ok.num_coefficients(), 5 + 35);
+        assert_eq!(ok.nbytes(), 40 * 4);
+    }
+
+    #[test]
+    fn float32_storage_rounds_the_float64_sample() {
+        let d = Disorder::new(8);
+        let a = Packed::<f64>::sample(&pool(), 9, &[(2, 1.0), (4, 0.2)], &d).unwrap();
+        let b = Packed::<f32>::sample(&pool(), 9, &[(2, 1.0), (4, 0.2)], &d).unwrap();
+        for (ba, bb) in a.blocks().iter().zip(b.blocks()) {
+            for (x, y) in ba.coeffs.iter().zip(&bb.coeffs) {
+                assert_eq!(*x as f32, *y);
+            }
+        }
+    }
+
+    #[test]
+    fn from_coefficients_checks_lengths() {
+        let data = vec![1.0; 6];
+        let ok = Packed::<f64>::from_coefficients(3, &[(2, &data)]).unwrap();
+        assert_eq!(ok.block(2).unwrap().coeffs, data);
+        assert!(ok.block(3).is_err());
+        let bad = Packed::<f64>::from_coefficients(3, &[(2, &data[..5])]);
+        assert!(matches!(
+            bad,
+            Err(CoreError::LengthMismatch {
+                expected: 6,
+                got: 5,
+                ..
+            })
+        ));
+    }
+}
