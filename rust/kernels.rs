@@ -218,15 +218,26 @@ pub fn hessian<T: Coef>(
     let (_, mut upper) = reduce_sums(pool, &items, 0, nn, |it, _, acc| {
         hessian_item::<T>(n, &blocks[it.block].coeffs, it, x, acc);
     })?;
-    // Hess = A + A^T, where A holds each unordered pair of positions once.
-    for i in 0..n {
-        for j in i..n {
-            let s = upper[i * n + j] + upper[j * n + i];
-            upper[i * n + j] = s;
-            upper[j * n + i] = s;
+    symmetrize(&mut upper, n);
+    Ok(upper)
+}
+
+/// Replaces A by A + A^T in place (A is n x n row-major), in square tiles so that both the
+/// rows and the columns being read stay in cache.
+fn symmetrize(a: &mut [f64], n: usize) {
+    const TILE: usize = 32;
+    for bi in (0..n).step_by(TILE) {
+        for bj in (bi..n).step_by(TILE) {
+            for i in bi..(bi + TILE).min(n) {
+                let j0 = if bi == bj { i } else { bj };
+                for j in j0..(bj + TILE).min(n) {
+                    let s = a[i * n + j] + a[j * n + i];
+                    a[i * n + j] = s;
+                    a[j * n + i] = s;
+                }
+            }
         }
     }
-    Ok(upper)
 }
 
 // ---------------------------------------------------------------------------------------

@@ -11,6 +11,7 @@ pub mod error;
 pub mod kernels;
 pub mod partition;
 pub mod sampling;
+pub mod scratch;
 pub mod simd;
 pub mod storage;
 pub mod threads;

@@ -10,7 +10,8 @@
 use rayon::ThreadPool;
 
 use crate::combinatorics::{count_with_first, first_index_offset};
-use crate::error::{try_zeroed, CoreError};
+use crate::error::CoreError;
+use crate::scratch;
 
 /// One contiguous piece of one degree block.
 #[derive(Debug, Clone, Copy, PartialEq, Eq)]
@@ -117,6 +118,7 @@ struct Sums {
 /// [`reduce`] with two f64 accumulators of lengths `a_len` and `b_len` per leaf, summed
 /// entry by entry along the fixed tree. `leaf(item, a, b)` adds the item's contribution.
 /// An accumulator that cannot be allocated makes the whole call an error (no abort).
+/// Accumulators come from, and merged ones go back to, the [`scratch`] cache.
 pub fn reduce_sums<L>(
     pool: &ThreadPool,
     items: &[WorkItem],
@@ -127,7 +129,7 @@ pub fn reduce_sums<L>(
 where
     L: Fn(&WorkItem, &mut [f64], &mut [f64]) + Sync,
 {
-    let zero = || match (try_zeroed::<f64>(a_len), try_zeroed::<f64>(b_len)) {
+    let zero = || match (scratch::take(a_len), scratch::take(b_len)) {
         (Ok(a), Ok(b)) => Sums { a, b, err: None },
         (Err(err), _) | (_, Err(err)) => Sums {
             a: Vec::new(),
@@ -152,12 +154,14 @@ where
                 *left = right;
                 return;
             }
-            for (x, y) in left.a.iter_mut().zip(right.a) {
+            for (x, y) in left.a.iter_mut().zip(&right.a) {
                 *x += y;
             }
-            for (x, y) in left.b.iter_mut().zip(right.b) {
+            for (x, y) in left.b.iter_mut().zip(&right.b) {
                 *x += y;
             }
+            scratch::give(right.a);
+            scratch::give(right.b);
         },
     );
     match sums.err {
