@@ -18,7 +18,7 @@ def as_float_array(a: object, name: str) -> np.ndarray:
         raise TypeError(f"{name} must be a real array, got complex dtype {arr.dtype}")
     if kind not in "fiu":
         raise TypeError(f"{name} must be a real numeric array, got dtype {arr.dtype}")
-    arr = np.ascontiguousarray(arr, dtype=np.float64)
+    arr = np.asarray(arr, dtype=np.float64, order="C")
     if not np.isfinite(arr).all():
         bad = np.argwhere(~np.isfinite(arr))[0]
         where = tuple(int(i) for i in bad)

@@ -92,9 +92,7 @@ class Hamiltonian:
         that check; the allocation itself still fails cleanly if the system refuses).
         """
         if not isinstance(mixture, Mixture):
-            raise TypeError(
-                f"mixture must be an orthoclimb.Mixture, got {type(mixture).__name__}"
-            )
+            raise TypeError(f"mixture must be an orthoclimb.Mixture, got {type(mixture).__name__}")
         n = check_size(n)
         seed = _check_seed(seed)
         dtype = normalize_dtype(dtype)
@@ -125,9 +123,7 @@ class Hamiltonian:
             p = _check_degree(p)
             a = as_float_array(arr, f"coefficients[{p}]")
             if a.ndim != 1:
-                raise ShapeError(
-                    f"coefficients[{p}] must be 1-D, got shape {a.shape}"
-                )
+                raise ShapeError(f"coefficients[{p}] must be 1-D, got shape {a.shape}")
             degrees.append(p)
             arrays.append(a)
         core = _core.PackedPolynomial.from_coefficients(n, degrees, arrays, dtype)

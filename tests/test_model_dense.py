@@ -1,0 +1,61 @@
+"""Packing dense tensors and unpacking them again."""
+
+from __future__ import annotations
+
+import itertools
+
+import numpy as np
+import pytest
+
+import orthoclimb as oc
+from conftest import unit
+from orthoclimb import reference
+from orthoclimb.errors import ShapeError
+
+
+def test_to_dense_is_symmetric_and_round_trips():
+    mix = oc.Mixture({1: 0.5, 2: 1.0, 3: 0.4, 4: 0.2})
+    ham = oc.Hamiltonian.sample(mix, 7, seed=2)
+    tensors = reference.dense_tensors(ham)
+    for p, t in tensors.items():
+        for perm in itertools.permutations(range(p)):
+            np.testing.assert_array_equal(t, t.transpose(perm))
+    back = oc.Hamiltonian.from_dense(tensors)
+    for p in mix.degrees:
+        np.testing.assert_allclose(back.coefficients(p), ham.coefficients(p), rtol=1e-14)
+    assert back.mixture is None and back.seed is None
+
+
+def test_from_dense_matches_polynomial_of_a_random_tensor(rng):
+    # H(x) = T(x, x, x) for any tensor; symmetrizing does not change the polynomial (exact)
+    n = 6
+    t = rng.standard_normal((n, n, n))
+    with pytest.raises(ValueError, match="not symmetric"):
+        oc.Hamiltonian.from_dense({3: t})
+    ham = oc.Hamiltonian.from_dense({3: t}, symmetrize=True)
+    x = unit(rng.standard_normal(n))
+    assert abs(ham.energy(x) - np.einsum("ijk,i,j,k->", t, x, x, x)) < 1e-12
+
+
+def test_from_coefficients_round_trip_and_length_check():
+    n = 5
+    a = np.arange(15, dtype=float)
+    ham = oc.Hamiltonian.from_coefficients(n, {2: a})
+    np.testing.assert_array_equal(ham.coefficients(2), a)
+    with pytest.raises(ShapeError, match="expected length 15, got 14"):
+        oc.Hamiltonian.from_coefficients(n, {2: a[:-1]})
+
+
+def test_to_dense_refuses_above_limit():
+    ham = oc.Hamiltonian.sample(oc.Mixture({3: 1.0}), 40, seed=0)
+    with pytest.raises(ValueError, match="512000 bytes"):
+        ham.to_dense(3, max_bytes=1000)
+
+
+def test_dense_shape_errors():
+    with pytest.raises(ShapeError):
+        oc.Hamiltonian.from_dense({3: np.zeros((3, 3))})
+    with pytest.raises(ShapeError):
+        oc.Hamiltonian.from_dense({2: np.zeros((3, 4))})
+    with pytest.raises(ShapeError, match="share one n"):
+        oc.Hamiltonian.from_dense({1: np.zeros(3), 2: np.zeros((4, 4))})

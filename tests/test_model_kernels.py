@@ -1,0 +1,141 @@
+"""Rust kernels against the pure-NumPy dense reference and against exact identities.
+
+The reference (orthoclimb.reference) contracts dense symmetric tensors with matrix products;
+the dense tensors are built by an independent NumPy path from the packed coefficients.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+import pytest
+from scipy.sparse.linalg import eigsh
+
+import orthoclimb as oc
+from conftest import unit
+from orthoclimb import reference
+
+CASES = [
+    ({1: 0.7}, 1),
+    ({2: 1.0}, 1),
+    ({1: 0.3, 2: 1.0, 3: 0.5}, 2),
+    ({3: 1.0}, 5),
+    ({1: 0.2, 2: 0.8, 3: 0.6, 4: 0.4, 5: 0.3}, 7),
+    ({2: 1.0, 4: 0.5}, 13),
+    ({3: 1.0, 5: 0.2}, 17),
+    ({1: 1.0, 2: 0.5}, 30),
+    ({4: 1.0}, 22),
+]
+
+
+def _close(a, b, scale):
+    np.testing.assert_allclose(a, b, rtol=0, atol=1e-10 * scale)
+
+
+@pytest.mark.parametrize("dtype", ["float64", "float32"])
+@pytest.mark.parametrize("gammas, n", CASES)
+def test_kernels_match_dense_reference(gammas, n, dtype, rng):
+    ham = oc.Hamiltonian.sample(oc.Mixture(gammas), n, seed=n, dtype=dtype)
+    tensors = reference.dense_tensors(ham)  # built from the (rounded) stored coefficients
+    x = unit(rng.standard_normal(n))
+    v = rng.standard_normal(n)
+    vs = rng.standard_normal((n, 3))
+    e_ref = reference.energy(tensors, x)
+    g_ref = reference.gradient(tensors, x)
+    h_ref = reference.hessian(tensors, x)
+    scale = 1.0 + abs(e_ref) + np.abs(h_ref).max()
+    _close(ham.energy(x), e_ref, scale)
+    e, g = ham.energy_and_gradient(x)
+    _close(e, e_ref, scale)
+    _close(g, g_ref, scale)
+    _close(ham.gradient(x), g_ref, scale)
+    _close(ham.hessian(x), h_ref, scale)
+    _close(ham.hvp(x, v), h_ref @ v, scale)
+    _close(ham.hvp(x, vs), h_ref @ vs, scale)
+    xs = unit(rng.standard_normal((4, n)))
+    _close(ham.energy(xs), [reference.energy(tensors, p) for p in xs], scale)
+    eb, gb = ham.energy_and_gradient(xs)
+    _close(eb, [reference.energy(tensors, p) for p in xs], scale)
+    _close(gb, np.stack([reference.gradient(tensors, p) for p in xs]), scale)
+
+
+def test_energy_gradient_agree_with_central_differences(rng):
+    # exact calculus: (H(x + h v) - H(x - h v)) / 2h = <grad H, v> + O(h^2)
+    n = 25
+    ham = oc.Hamiltonian.sample(oc.Mixture({1: 0.5, 2: 1.0, 3: 0.7, 4: 0.3}), n, seed=4)
+    x = unit(rng.standard_normal(n))
+    v = unit(rng.standard_normal(n))
+    h = 1e-5
+    fd = (ham.energy(x + h * v) - ham.energy(x - h * v)) / (2 * h)
+    assert abs(fd - ham.gradient(x) @ v) < 1e-6 * (1 + abs(fd))
+    fd2 = (ham.gradient(x + h * v) - ham.gradient(x - h * v)) / (2 * h)
+    np.testing.assert_allclose(fd2, ham.hvp(x, v), atol=1e-6 * (1 + np.abs(fd2).max()))
+
+
+@pytest.mark.parametrize("p", range(1, 9))
+def test_euler_identities(p, rng):
+    # SPEC section 2 (Euler, homogeneity): x.grad H_p = p H_p and Hess H_p x = (p-1) grad H_p
+    n = 11 if p >= 7 else 19
+    ham = oc.Hamiltonian.sample(oc.Mixture({p: 1.0}), n, seed=p)
+    x = rng.standard_normal(n)
+    e, g = ham.energy_and_gradient(x)
+    assert abs(x @ g - p * e) <= 1e-9 * (1 + abs(p * e))
+    np.testing.assert_allclose(ham.hessian(x) @ x, (p - 1) * g, atol=1e-9 * (1 + np.abs(g).max()))
+    np.testing.assert_allclose(ham.hvp(x, x), (p - 1) * g, atol=1e-9 * (1 + np.abs(g).max()))
+
+
+def test_hessian_is_symmetric_and_operator_matches(rng):
+    n = 40
+    ham = oc.Hamiltonian.sample(oc.Mixture({2: 1.0, 3: 0.6, 4: 0.3}), n, seed=11)
+    x = unit(rng.standard_normal(n))
+    hess = ham.hessian(x)
+    np.testing.assert_array_equal(hess, hess.T)
+    op = ham.hessian_operator(x)
+    v = rng.standard_normal((n, 2))
+    np.testing.assert_allclose(op @ v, hess @ v, atol=1e-10 * np.abs(hess).max())
+    top = eigsh(op, k=1, which="LA", tol=1e-10)[0][0]
+    assert abs(top - np.linalg.eigvalsh(hess)[-1]) < 1e-8 * abs(top)
+
+
+def test_float32_storage_is_the_rounded_float64_instance(rng):
+    n = 30
+    mix = oc.Mixture({2: 1.0, 3: 0.5})
+    h64 = oc.Hamiltonian.sample(mix, n, seed=3)
+    h32 = oc.Hamiltonian.sample(mix, n, seed=3, dtype="float32")
+    for p in mix.degrees:
+        np.testing.assert_array_equal(
+            h32.coefficients(p), h64.coefficients(p).astype(np.float32).astype(np.float64)
+        )
+    x = unit(rng.standard_normal(n))
+    # float32 rounding of coefficients perturbs the value by ~1e-7 relative, no more
+    assert abs(h32.energy(x) - h64.energy(x)) < 1e-6 * np.abs(h64.gradient(x)).sum()
+
+
+def test_kernels_are_bitwise_identical_across_thread_counts(rng):
+    n = 90
+    mix = oc.Mixture({1: 0.4, 2: 1.0, 3: 0.7})
+    x = unit(rng.standard_normal(n))
+    v = rng.standard_normal((n, 2))
+    xs = unit(rng.standard_normal((3, n)))
+    before = oc.get_num_threads()
+    results = []
+    try:
+        for k in (1, 2, 4):
+            oc.set_num_threads(k)
+            ham = oc.Hamiltonian.sample(mix, n, seed=77, dtype="float32")
+            results.append(
+                [
+                    np.concatenate([ham.coefficients(p) for p in mix.degrees]),
+                    np.array([ham.energy(x)]),
+                    ham.gradient(x),
+                    ham.hessian(x),
+                    ham.hvp(x, v[:, 0]),
+                    ham.hvp(x, v),
+                    ham.energy(xs),
+                    ham.gradient(xs),
+                ]
+            )
+    finally:
+        oc.set_num_threads(before)
+    for other in results[1:]:
+        for a, b in zip(results[0], other, strict=True):
+            np.testing.assert_array_equal(a, b)

@@ -1,0 +1,73 @@
+"""Mixture: validation, text form, and xi against NumPy's polynomial evaluation."""
+
+from __future__ import annotations
+
+import math
+
+import numpy as np
+import pytest
+from numpy.polynomial import polynomial as P
+
+from orthoclimb import Mixture
+from orthoclimb.errors import MixtureError
+
+
+def test_gammas_xi_and_derivatives_match_numpy_polynomials():
+    m = Mixture({1: 0.5, 2: 1.0, 4: 0.3})
+    coeffs = np.zeros(5)
+    for p, g in m.gammas.items():
+        coeffs[p] = g * g
+    q = np.linspace(0.0, 1.0, 11)
+    for k in range(6):
+        # exact identity: derivative of the polynomial sum_p gamma_p^2 q^p
+        want = P.polyval(q, P.polyder(coeffs, k)) if k <= 4 else np.zeros_like(q)
+        np.testing.assert_allclose(m.xi(q, derivative=k), want, rtol=1e-14, atol=1e-14)
+    assert m.degrees == (1, 2, 4)
+    assert m.max_degree == 4
+    assert m.has_field
+    assert isinstance(m.xi(0.5), float)
+
+
+def test_from_xi_and_parse_agree():
+    a = Mixture.from_xi({2: 1.0, 4: 0.09})
+    b = Mixture.parse("2:1, 4:0.3")
+    c = Mixture.parse("2:1,4:0.09", squared=True)
+    assert a.degrees == b.degrees == c.degrees
+    for p in a.degrees:
+        assert math.isclose(a.gammas[p], b.gammas[p]) and math.isclose(a.gammas[p], c.gammas[p])
+    assert Mixture.parse(b.to_text()) == b
+    assert Mixture.from_dict(b.to_dict()) == b
+
+
+def test_zero_gammas_are_dropped():
+    assert Mixture({2: 1.0, 3: 0.0}).degrees == (2,)
+
+
+@pytest.mark.parametrize(
+    "spec, fragment",
+    [
+        ({}, "empty"),
+        ({0: 1.0}, "p = 0"),
+        ({9: 1.0}, "p = 9"),
+        ({2: -1.0}, "-1.0"),
+        ({2: float("nan")}, "nan"),
+        ({2: float("inf")}, "inf"),
+        ({2.5: 1.0}, "2.5"),
+        ({2: "x"}, "'x'"),
+        ({2: 0.0}, "at least one"),
+    ],
+)
+def test_bad_mixtures_name_the_value(spec, fragment):
+    with pytest.raises(MixtureError, match=fragment):
+        Mixture(spec)
+
+
+@pytest.mark.parametrize("text", ["", "2", "2:", ":1", "a:1", "2:b", "2:1,2:1", "2:1;3:1", "9:1"])
+def test_malformed_text_is_refused(text):
+    with pytest.raises(MixtureError):
+        Mixture.parse(text)
+
+
+def test_bad_derivative_order():
+    with pytest.raises(ValueError, match="-1"):
+        Mixture({2: 1.0}).xi(0.5, derivative=-1)

@@ -1,0 +1,88 @@
+"""The law of the sampled coefficients (SPEC section 2) and the covariance of H.
+
+Statistical checks use fixed seeds and tolerances of several standard errors, so they are
+deterministic and would catch a wrong normalization (a factor sqrt(2) or c(m) misplaced).
+"""
+
+from __future__ import annotations
+
+import math
+
+import numpy as np
+
+import orthoclimb as oc
+from conftest import unit
+from orthoclimb.model.dense import multisets, orderings
+
+
+def test_standardized_coefficients_are_standard_gaussians():
+    # a_m / sqrt(n gamma^2 c(m)) must be i.i.d. N(0, 1) (SPEC section 2)
+    n, gamma = 120, 0.7
+    ham = oc.Hamiltonian.sample(oc.Mixture({3: gamma}), n, seed=5)
+    a = ham.coefficients(3)
+    c = orderings(multisets(n, 3))
+    g = a / np.sqrt(n * gamma**2 * c)
+    m = g.size  # 295,240 draws
+    se_mean, se_var = 1 / math.sqrt(m), math.sqrt(2 / m)
+    assert abs(g.mean()) < 5 * se_mean
+    assert abs(g.var() - 1) < 5 * se_var
+    # the repeated-index coefficients (c(m) < 6) follow the same law
+    rep = g[c < 6]
+    assert abs(rep.var() - 1) < 5 * math.sqrt(2 / rep.size)
+    # fourth moment of a Gaussian is 3
+    assert abs(np.mean(g**4) - 3) < 5 * math.sqrt(96 / m)
+
+
+def test_covariance_is_n_xi_of_overlap():
+    # E[H(x) H(y)] = n xi(<x, y>) (SPEC section 1); estimated over independent seeds
+    n, seeds = 12, 3000
+    mix = oc.Mixture({1: 0.5, 2: 1.0, 3: 0.6})
+    rng = np.random.default_rng(3)
+    x = unit(rng.standard_normal(n))
+    y = unit(x + 0.9 * unit(rng.standard_normal(n)))
+    r = float(x @ y)
+    prods, sq = [], []
+    for s in range(seeds):
+        ham = oc.Hamiltonian.sample(mix, n, seed=s)
+        hx, hy = ham.energy(np.stack([x, y]))
+        prods.append(hx * hy)
+        sq.append(hx * hx)
+    prods, sq = np.array(prods), np.array(sq)
+    for est, q in ((prods, r), (sq, 1.0)):
+        want = n * mix.xi(q)
+        se = est.std(ddof=1) / math.sqrt(seeds)
+        assert abs(est.mean() - want) < 4 * se, (est.mean(), want, se)
+
+
+def test_same_seed_same_instance_and_seeds_differ():
+    mix = oc.Mixture({2: 1.0, 4: 0.2})
+    a = oc.Hamiltonian.sample(mix, 15, seed=1)
+    b = oc.Hamiltonian.sample(mix, 15, seed=1)
+    c = oc.Hamiltonian.sample(mix, 15, seed=2)
+    np.testing.assert_array_equal(a.coefficients(4), b.coefficients(4))
+    assert not np.array_equal(a.coefficients(4), c.coefficients(4))
+
+
+def test_correlated_instances():
+    mix = oc.Mixture({3: 1.0})
+    n = 60
+    base = oc.Hamiltonian.sample(mix, n, seed=10)
+    same = oc.Hamiltonian.sample(mix, n, seed=99, correlated_with=(10, 1.0))
+    np.testing.assert_array_equal(same.coefficients(3), base.coefficients(3))
+    other = oc.Hamiltonian.sample(mix, n, seed=99)
+    half = oc.Hamiltonian.sample(mix, n, seed=99, correlated_with=(10, 0.5))
+    # exact construction: rho g0 + sqrt(1 - rho^2) g
+    want = 0.5 * base.coefficients(3) + math.sqrt(0.75) * other.coefficients(3)
+    np.testing.assert_allclose(half.coefficients(3), want, rtol=1e-12, atol=1e-12)
+    assert half.correlated_with == (10, 0.5)
+
+
+def test_nbytes_and_estimate_memory():
+    mix = oc.Mixture({1: 1.0, 3: 1.0})
+    n = 50
+    count = n + math.comb(n + 2, 3)
+    for dtype, size in (("float64", 8), ("float32", 4)):
+        ham = oc.Hamiltonian.sample(mix, n, seed=0, dtype=dtype)
+        assert ham.num_coefficients == count
+        assert ham.nbytes == size * count == oc.estimate_memory(mix, n, dtype)
+        assert ham.dtype == dtype
