@@ -14,6 +14,7 @@ from importlib import import_module
 
 # subcommand name -> (module under orthoclimb.cli, one-line help)
 _COMMANDS: dict[str, tuple[str, str]] = {
+    "demo": ("demo_cmd", "a short guided tour: theory, sampling and kernels on two landscapes"),
     "theory": ("theory_cmd", "what a mixture predicts: full-RSB verdict, ALG, ground state"),
 }
 

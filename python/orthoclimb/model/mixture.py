@@ -205,3 +205,42 @@ class Mixture:
 
     def __hash__(self) -> int:
         return hash(tuple(self._gammas.items()))
+
+    # -- theory (thin wrappers around orthoclimb.theory, imported lazily) -----------------
+
+    def full_rsb(self) -> Any:
+        """The full-RSB criterion; see :func:`orthoclimb.theory.full_rsb`."""
+        from ..theory import full_rsb
+
+        return full_rsb(self)
+
+    def algorithmic_energy(self) -> float:
+        """ALG, energy per spin; see :func:`orthoclimb.theory.algorithmic_energy`."""
+        from ..theory import algorithmic_energy
+
+        return algorithmic_energy(self)
+
+    def algorithmic_threshold(self) -> float:
+        """q_hat (0 without a field); see :func:`orthoclimb.theory.algorithmic_threshold`."""
+        from ..theory import algorithmic_threshold
+
+        return algorithmic_threshold(self)
+
+    def path_energy(self, q: Any) -> Any:
+        """Predicted energy per spin at radius sqrt(q); see
+        :func:`orthoclimb.theory.path_energy`."""
+        from ..theory import path_energy
+
+        return path_energy(self, q)
+
+    def hessian_edge(self, q: Any) -> Any:
+        """2 sqrt(xi''(q)); see :func:`orthoclimb.theory.hessian_edge`."""
+        from ..theory import hessian_edge
+
+        return hessian_edge(self, q)
+
+    def ground_state(self, **kwargs: Any) -> Any:
+        """Zero-temperature Parisi ground state; see :func:`orthoclimb.theory.ground_state`."""
+        from ..theory import ground_state
+
+        return ground_state(self, **kwargs)

@@ -1,0 +1,216 @@
+"""``orthoclimb theory``: what the theory predicts for one mixture.
+
+Prints xi, the full-RSB verdict (with the intervals where xi''^(-1/2) is not concave), ALG (and
+q_hat with a field), the Parisi ground state GS, the gap GS - ALG, and for pure models with p >= 3
+the threshold energy E_inf and the zero of the complexity. ``--json`` prints the same as JSON;
+``--plot FILE.png`` draws xi''^(-1/2), the predicted path curve and the Parisi alpha.
+All energies are per spin, maximization convention.
+"""
+
+from __future__ import annotations
+
+import argparse
+import json
+import math
+import os
+from typing import Any
+
+import numpy as np
+
+from ..fileio import save_figure_atomic
+from ..model.mixture import Mixture
+from ..theory import (
+    algorithmic_energy,
+    algorithmic_threshold,
+    complexity_ground_state,
+    full_rsb,
+    ground_state,
+    path_energy,
+    threshold_energy,
+)
+
+__all__ = ["add_arguments", "run"]
+
+
+def add_arguments(parser: argparse.ArgumentParser) -> None:
+    which = parser.add_mutually_exclusive_group(required=True)
+    which.add_argument(
+        "--gammas",
+        metavar="P:G,...",
+        help="the mixture as p:gamma_p pairs, e.g. 2:1,4:0.3",
+    )
+    which.add_argument(
+        "--xi",
+        metavar="P:C,...",
+        help="the mixture as p:gamma_p^2 pairs (coefficients of xi), e.g. 2:1,4:0.09",
+    )
+    parser.add_argument(
+        "--tol",
+        type=float,
+        default=1e-6,
+        help="tolerance of the ground-state solver (default 1e-6)",
+    )
+    parser.add_argument("--json", action="store_true", help="print JSON instead of a table")
+    parser.add_argument(
+        "--plot",
+        metavar="FILE.png",
+        help="also draw xi''^(-1/2), the path curve and the Parisi alpha into this PNG file",
+    )
+
+
+def _xi_text(mixture: Mixture) -> str:
+    terms = []
+    for p, c in mixture.xi_coefficients.items():
+        power = "q" if p == 1 else f"q^{p}"
+        terms.append(power if c == 1.0 else f"{c:.6g} {power}")
+    return " + ".join(terms)
+
+
+def _pure(mixture: Mixture, gs_value: float) -> dict[str, Any] | None:
+    """Complexity cross-check for a pure model with p >= 3 (energies scale with gamma_p)."""
+    if len(mixture.degrees) != 1 or mixture.degrees[0] < 3:
+        return None
+    p = mixture.degrees[0]
+    gamma = mixture.gammas[p]
+    zero = gamma * complexity_ground_state(p)
+    return {
+        "p": p,
+        "gamma": gamma,
+        "threshold_energy": gamma * threshold_energy(p),
+        "complexity_ground_state": zero,
+        "parisi_minus_complexity": gs_value - zero,
+    }
+
+
+def _report(mixture: Mixture, tol: float) -> dict[str, Any]:
+    verdict = full_rsb(mixture)
+    gs = ground_state(mixture, tol=tol)
+    return {
+        "mixture": {"gammas": mixture.to_dict(), "xi": _xi_text(mixture)},
+        "full_rsb": {
+            "holds": verdict.holds,
+            "failing_intervals": [list(iv) for iv in verdict.failing_intervals],
+            "q_hat": verdict.q_hat,
+            "gs_equals_alg": verdict.gs_equals_alg,
+            "linear": verdict.linear,
+            "verdict": verdict.describe(),
+        },
+        "alg": algorithmic_energy(mixture),
+        "q_hat": algorithmic_threshold(mixture),
+        "ground_state": gs.to_dict(),
+        "gap": gs.gap,
+        "pure": _pure(mixture, gs.value),
+        "units": "energy per spin H(x)/n on the unit sphere, maximization",
+    }
+
+
+def _table(report: dict[str, Any]) -> str:
+    gs = report["ground_state"]
+    rows = [
+        ("mixture", "xi(q) = " + report["mixture"]["xi"]),
+        ("full RSB", report["full_rsb"]["verdict"]),
+    ]
+    if report["q_hat"] > 0.0:
+        rows.append(("q_hat", f"{report['q_hat']:.10g}"))
+    rows.append(("ALG", f"{report['alg']:.10f}"))
+    status = "converged" if gs["converged"] else "NOT converged"
+    rows.append(
+        (
+            "GS (Parisi)",
+            f"{gs['value']:.10f}   ({gs['n_steps']} step(s), grid {gs['grid_size']},"
+            f" {status}, last change {gs['change']:.1e}, tol {gs['tol']:.0e})",
+        )
+    )
+    rows.append(("GS - ALG", f"{report['gap']:.3e}"))
+    rows.append(("B", f"{gs['B']:.10g}"))
+    pure = report["pure"]
+    if pure is not None:
+        rows.append(("E_inf", f"{pure['threshold_energy']:.10f}"))
+        rows.append(("complexity zero", f"{pure['complexity_ground_state']:.10f}"))
+        rows.append(("GS - that zero", f"{pure['parisi_minus_complexity']:.3e}"))
+    width = max(len(k) for k, _ in rows)
+    lines = [f"{k.ljust(width)}  {v}" for k, v in rows]
+    lines.append("(energies per spin, maximization convention)")
+    return "\n".join(lines)
+
+
+def _plot(mixture: Mixture, report: dict[str, Any], path: str) -> None:
+    from matplotlib.figure import Figure
+
+    folder = os.path.dirname(os.path.abspath(path))
+    if not os.path.isdir(folder):
+        raise ValueError(f"cannot write the plot {path!r}: folder {folder!r} does not exist")
+
+    gs = report["ground_state"]
+    verdict = report["full_rsb"]
+    q_hat = report["q_hat"]
+    fig = Figure(figsize=(15, 4.6), dpi=110, layout="constrained")
+    ax1, ax2, ax3 = fig.subplots(1, 3)
+    fig.suptitle(f"xi(q) = {report['mixture']['xi']}", fontsize=12)
+
+    # Panel 1: xi''^(-1/2) with the non-concave region shaded.
+    q = np.linspace(0.0, 1.0, 801)[1:]
+    second = np.asarray(mixture.xi(q, 2), dtype=np.float64)
+    if verdict["linear"]:
+        ax1.text(0.5, 0.5, "xi'' = 0 (linear polynomial)", ha="center", transform=ax1.transAxes)
+    else:
+        f = second**-0.5
+        ax1.plot(q, f, color="C0", label="xi''(q)^(-1/2)")
+        # f decreases; when xi''(0) = 0 it blows up at 0, so cut the axis at q = 0.1.
+        top = float(f[0]) if mixture.xi(0.0, 2) > 0 else float(f[q >= 0.1][0])
+        ax1.set_ylim(0.0, 1.15 * top)
+    for k, (lo, hi) in enumerate(verdict["failing_intervals"]):
+        ax1.axvspan(lo, hi, color="C3", alpha=0.18, label="not concave" if k == 0 else None)
+    if 0.0 < q_hat < 1.0:
+        ax1.axvline(q_hat, color="0.4", ls="--", lw=1, label=f"q_hat = {q_hat:.3g}")
+    ax1.set_xlim(0.0, 1.0)
+    ax1.set_xlabel("q")
+    ax1.set_title("full-RSB criterion: " + ("holds" if verdict["holds"] else "fails"))
+    if ax1.get_legend_handles_labels()[0]:
+        ax1.legend(loc="best", fontsize=9)
+
+    # Panel 2: predicted path curve with ALG and GS.
+    qq = np.linspace(0.0, 1.0, 201)
+    ax2.plot(qq, path_energy(mixture, qq), color="C0", label="path energy E_path(q)")
+    ax2.axhline(report["alg"], color="C2", ls="--", lw=1.2, label=f"ALG = {report['alg']:.6f}")
+    ax2.axhline(gs["value"], color="C3", ls=":", lw=1.5, label=f"GS = {gs['value']:.6f}")
+    ax2.set_xlim(0.0, 1.0)
+    ax2.set_xlabel("q = |x|^2")
+    ax2.set_ylabel("energy per spin")
+    ax2.set_title("predicted ascent")
+    ax2.legend(loc="lower right", fontsize=9)
+
+    # Panel 3: the Parisi alpha (steps) and the full-RSB formula -d/dq xi''^(-1/2) for reference.
+    breaks = np.asarray(gs["breakpoints"])
+    alpha = np.asarray(gs["alpha"])
+    ax3.stairs(alpha, breaks, color="C0", lw=2, label=f"Parisi alpha ({gs['n_steps']} step(s))")
+    peak = float(alpha.max()) if alpha.size else 0.0
+    if not verdict["linear"]:
+        ref = 0.5 * np.asarray(mixture.xi(q, 3), dtype=np.float64) * second**-1.5
+        shown = q >= q_hat
+        ax3.plot(q[shown], ref[shown], color="C1", ls="--", lw=1, label="-d/dq xi''(q)^(-1/2)")
+    ax3.set_ylim(0.0, 1.3 * peak if peak > 0 else 1.0)
+    ax3.set_xlim(0.0, 1.0)
+    ax3.set_xlabel("q")
+    ax3.set_title(f"zero-temperature Parisi alpha, B = {gs['B']:.4g}")
+    ax3.legend(loc="best", fontsize=9)
+
+    save_figure_atomic(fig, path, format="png")
+
+
+def run(args: argparse.Namespace) -> int:
+    text = args.gammas if args.gammas is not None else args.xi
+    mixture = Mixture.parse(text, squared=args.xi is not None)
+    if not (math.isfinite(args.tol) and args.tol > 0):
+        raise ValueError(f"--tol must be a positive number, got {args.tol!r}")
+    report = _report(mixture, args.tol)
+    if args.plot:
+        _plot(mixture, report, args.plot)
+        report["plot"] = args.plot
+    if args.json:
+        print(json.dumps(report, indent=2))
+    else:
+        print(_table(report))
+        if args.plot:
+            print(f"plot written to {args.plot}")
+    return 0

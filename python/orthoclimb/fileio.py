@@ -1,0 +1,51 @@
+"""Atomic file writes: results are never left half-written.
+
+Each writer creates a temporary file in the destination folder, writes and flushes it, then
+renames it over the destination (os.replace, atomic on POSIX and Windows). A crash at any
+moment leaves either the old file or the new one.
+"""
+
+from __future__ import annotations
+
+import json
+import os
+import tempfile
+from collections.abc import Callable
+from pathlib import Path
+from typing import IO, Any
+
+
+def write_atomic(path: str | os.PathLike, write: Callable[[IO[bytes]], None]) -> Path:
+    """Create or replace `path` with what `write(fh)` writes to a binary file handle."""
+    dest = Path(path)
+    dest.parent.mkdir(parents=True, exist_ok=True)
+    fd, tmp = tempfile.mkstemp(dir=dest.parent, prefix=f".{dest.name}.", suffix=".tmp")
+    try:
+        with os.fdopen(fd, "wb") as fh:
+            write(fh)
+            fh.flush()
+            os.fsync(fh.fileno())
+        os.replace(tmp, dest)
+    except BaseException:
+        try:
+            os.unlink(tmp)
+        except FileNotFoundError:
+            pass
+        raise
+    return dest
+
+
+def write_text_atomic(path: str | os.PathLike, text: str) -> Path:
+    """Create or replace a UTF-8 text file atomically."""
+    return write_atomic(path, lambda fh: fh.write(text.encode("utf-8")))
+
+
+def write_json_atomic(path: str | os.PathLike, data: Any) -> Path:
+    """Create or replace a JSON file atomically (indented, keys in insertion order)."""
+    return write_text_atomic(path, json.dumps(data, indent=2, allow_nan=True) + "\n")
+
+
+def save_figure_atomic(fig: Any, path: str | os.PathLike, **kwargs: Any) -> Path:
+    """Save a matplotlib figure atomically; the format follows the file name's suffix."""
+    fmt = kwargs.pop("format", Path(path).suffix.lstrip(".") or "png")
+    return write_atomic(path, lambda fh: fig.savefig(fh, format=fmt, **kwargs))

@@ -1,0 +1,137 @@
+"""The algorithmic energy ALG, the predicted path curve and the predicted Hessian edge.
+
+Units and sign: energies are per spin, e = H(x)/n, for points x of the unit ball; we maximize.
+
+Without a field (no p = 1 term) the predicted energy reached at radius sqrt(q) by an ascent that
+always steps along the top eigenvector of the tangent Hessian is
+
+    E_path(q) = int_0^q sqrt(xi''(s)) ds,        ALG = E_path(1).
+
+The reason: at radius sqrt(q) the top tangent eigenvalue of the Hessian, per spin, is close to
+2 sqrt(xi''(q)) (see :func:`hessian_edge`); a step whose squared length is dq gains about half that
+times dq.
+
+With a field, the ascent first moves in the direction the field points to. Let q_hat be the root of
+q xi''(q) = xi'(q) in (0, 1] (q_hat = 1 when xi''(1) <= xi'(1)); then
+
+    ALG = sqrt(q_hat xi'(q_hat)) + int_{q_hat}^1 sqrt(xi''(q)) dq.
+
+(The field rule is recalled from memory of the spherical case of arXiv:2110.07847 and is checked
+numerically against the Parisi ground state in the tests.) Without a field q_hat = 0 and the two
+formulas agree.
+"""
+
+from __future__ import annotations
+
+import math
+from typing import Any
+
+import numpy as np
+from scipy.integrate import quad_vec
+from scipy.optimize import brentq
+
+from ..model.mixture import Mixture
+from ._checks import check_mixture, check_overlap, scalar_or_array
+
+__all__ = [
+    "algorithmic_energy",
+    "algorithmic_threshold",
+    "hessian_edge",
+    "path_energy",
+]
+
+
+def algorithmic_threshold(mixture: Mixture) -> float:
+    """The overlap q_hat where the field-driven first stage of the ascent ends.
+
+    q_hat is the root in (0, 1] of g(q) = q xi''(q) - xi'(q). Without a field g(0) = 0 and
+    q_hat = 0. With a field g(0) = -gamma_1^2 < 0 and g is nondecreasing (g' = q xi''' >= 0), so
+    the root is unique when g(1) >= 0; when g(1) < 0, i.e. xi''(1) < xi'(1), q_hat = 1 and the
+    whole path is field-driven (ALG = sqrt(xi'(1)), the replica-symmetric value).
+    """
+    mixture = check_mixture(mixture, "algorithmic_threshold")
+    if not mixture.has_field:
+        return 0.0
+
+    def g(q: float) -> float:
+        return q * mixture.xi(q, 2) - mixture.xi(q, 1)
+
+    if g(1.0) <= 0.0:
+        return 1.0
+    return float(brentq(g, 0.0, 1.0, xtol=1e-15, rtol=4 * np.finfo(float).eps, maxiter=200))
+
+
+def _sqrt_curvature_integral(mixture: Mixture, q: np.ndarray) -> np.ndarray:
+    """F(q) = int_0^q sqrt(xi''(s)) ds for every entry of the 1-d array ``q``.
+
+    Substituting s = q t^2 gives F(q) = int_0^1 2 q t sqrt(xi''(q t^2)) dt. When the lowest degree
+    with p >= 2 is k, xi''(s) = s^(k-2) R(s) with R(0) > 0, so the new integrand is
+    t^(k-1) sqrt(R(q t^2)) times constants: smooth, with no square-root cusp at t = 0. SciPy's
+    adaptive ``quad_vec`` integrates all q at once.
+    """
+    if q.size == 0:
+        return np.zeros_like(q)
+
+    def integrand(t: float) -> np.ndarray:
+        s = q * (t * t)
+        return 2.0 * q * t * np.sqrt(np.maximum(mixture.xi(s, 2), 0.0))
+
+    value, _err = quad_vec(integrand, 0.0, 1.0, epsabs=1e-14, epsrel=1e-13, norm="max")
+    return np.asarray(value, dtype=np.float64)
+
+
+def path_energy(mixture: Mixture, q: Any) -> Any:
+    """Predicted energy per spin reached at radius sqrt(q), for q in [0, 1] (vectorized).
+
+    It is the algorithmic energy of the same random polynomial restricted to the sphere of radius
+    sqrt(q), whose mixture is r -> xi(q r):
+
+        E_path(q) = sqrt(q xi'(q))                                   for q <= q_hat,
+        E_path(q) = sqrt(q_hat xi'(q_hat)) + int_{q_hat}^q sqrt(xi''(s)) ds   for q >= q_hat,
+
+    with q_hat from :func:`algorithmic_threshold` (q_hat = 0 without a field, so the first line
+    never applies and E_path(q) = int_0^q sqrt(xi''(s)) ds). E_path(1) = ALG. Returns a float for
+    scalar ``q``, an array of the same shape otherwise.
+    """
+    mixture = check_mixture(mixture, "path_energy")
+    q_arr = check_overlap(q, "path_energy")
+    flat = q_arr.ravel()
+    q_hat = algorithmic_threshold(mixture)
+    out = np.empty_like(flat)
+    low = flat <= q_hat
+    if np.any(low):
+        out[low] = np.sqrt(flat[low] * mixture.xi(flat[low], 1))
+    high = ~low
+    if np.any(high):
+        upper = _sqrt_curvature_integral(mixture, flat[high])
+        if q_hat > 0.0:
+            start = math.sqrt(q_hat * mixture.xi(q_hat, 1))
+            base = _sqrt_curvature_integral(mixture, np.array([q_hat]))[0]
+            upper = start + (upper - base)
+        out[high] = upper
+    return scalar_or_array(out.reshape(q_arr.shape))
+
+
+def algorithmic_energy(mixture: Mixture) -> float:
+    """ALG: the energy per spin the best known efficient ascent reaches (SPEC section 3).
+
+    ALG = sqrt(q_hat xi'(q_hat)) + int_{q_hat}^1 sqrt(xi''(q)) dq, i.e. ``path_energy(mixture,
+    1.0)``; without a field this is int_0^1 sqrt(xi''(q)) dq. For a pure linear mixture (p = 1
+    only) it is gamma_1, the exact maximum of a linear function on the unit sphere.
+    """
+    mixture = check_mixture(mixture, "algorithmic_energy")
+    return float(path_energy(mixture, 1.0))
+
+
+def hessian_edge(mixture: Mixture, q: Any) -> Any:
+    """Predicted top eigenvalue per spin of the Hessian restricted to the tangent space at a point
+    of radius sqrt(q): 2 sqrt(xi''(q)) (vectorized over q in [0, 1]).
+
+    At radius sqrt(q) the Hessian restricted to the tangent space, divided by n, is a Gaussian
+    symmetric matrix with semicircle radius 2 sqrt(xi''(q)) for large n; a covariance computation
+    shows it is independent of the value H(x), so the edge holds along the whole ascent.
+    """
+    mixture = check_mixture(mixture, "hessian_edge")
+    q_arr = check_overlap(q, "hessian_edge")
+    out = 2.0 * np.sqrt(np.maximum(np.asarray(mixture.xi(q_arr, 2), dtype=np.float64), 0.0))
+    return scalar_or_array(out)

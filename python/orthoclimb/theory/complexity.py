@@ -1,0 +1,86 @@
+"""Complexity of local maxima of pure p-spin models (Auffinger, Ben Arous and Cerny 2013).
+
+For the pure model xi(q) = q^p (gamma_p = 1), p >= 3, the expected number of local maxima of H on
+the unit sphere with energy per spin near E grows like exp(n Theta_p(E)). Auffinger, Ben Arous and
+Cerny (arXiv:1003.1129) state it for minima at energy u <= -E_inf; we maximize, so we use
+u = -E:
+
+    E_inf = 2 sqrt((p - 1) / p),
+    Theta_p(E) = 1/2 log(p - 1) - (p - 2) / (4 (p - 1)) E^2 - I_1(E)      for E >= E_inf,
+    I_1(E) = (E / E_inf^2) sqrt(E^2 - E_inf^2) - log(E + sqrt(E^2 - E_inf^2)) + log E_inf.
+
+(I_1 is the same function as theirs at u = -E.) I_1(E_inf) = 0 and
+I_1(E) = (2 / E_inf^2) int_{E_inf}^E sqrt(s^2 - E_inf^2) ds, so Theta_p decreases on
+[E_inf, inf) from a positive value; its zero is the ground-state energy per spin, an independent
+cross-check of the Parisi value. For gamma_p != 1 every energy scales by gamma_p.
+"""
+
+from __future__ import annotations
+
+import math
+from typing import Any
+
+import numpy as np
+from scipy.optimize import brentq
+
+from ..errors import NonFiniteError
+from ._checks import scalar_or_array
+
+__all__ = ["complexity", "complexity_ground_state", "threshold_energy"]
+
+
+def _check_p(p: Any, where: str) -> int:
+    if isinstance(p, bool) or not isinstance(p, (int, np.integer)):
+        raise TypeError(f"{where}(): the degree p must be an integer >= 3, got {p!r}")
+    if p < 3:
+        raise ValueError(
+            f"{where}(): the complexity formula is for pure p-spin models with p >= 3, got p = {p}"
+            " (p = 2 has no exponential number of critical points; p = 1 has one maximum)"
+        )
+    return int(p)
+
+
+def threshold_energy(p: int) -> float:
+    """E_inf = 2 sqrt((p - 1) / p): energy per spin where the pure p-spin landscape's local maxima
+    concentrate (Auffinger, Ben Arous and Cerny 2013); equals ALG for the pure model."""
+    p = _check_p(p, "threshold_energy")
+    return 2.0 * math.sqrt((p - 1) / p)
+
+
+def complexity(p: int, energy: Any) -> Any:
+    """Theta_p(E), the exponential growth rate (per spin) of the expected number of local maxima
+    with energy per spin E >= E_inf for the pure p-spin model with gamma_p = 1 (maximizing sign;
+    see the module docstring). Vectorized over ``energy``."""
+    p = _check_p(p, "complexity")
+    try:
+        e = np.asarray(energy, dtype=np.float64)
+    except (TypeError, ValueError):
+        raise TypeError(f"complexity(): energy must be a real number, got {energy!r}") from None
+    if not np.all(np.isfinite(e)):
+        bad = e[~np.isfinite(e)].flat[0]
+        raise NonFiniteError(f"complexity(): energy must be finite, got energy = {bad!r}")
+    e_inf = 2.0 * math.sqrt((p - 1) / p)
+    below = e < e_inf
+    if np.any(below):
+        bad = float(e[below].flat[0])
+        raise ValueError(
+            f"complexity(): the formula holds for energy >= E_inf = {e_inf!r} (p = {p}),"
+            f" got energy = {bad!r}"
+        )
+    root = np.sqrt(e * e - e_inf * e_inf)
+    i1 = (e / e_inf**2) * root - np.log((e + root) / e_inf)
+    theta = 0.5 * math.log(p - 1) - (p - 2) / (4.0 * (p - 1)) * e * e - i1
+    return scalar_or_array(theta)
+
+
+def complexity_ground_state(p: int) -> float:
+    """The zero of Theta_p above E_inf: the ground-state energy per spin of the pure p-spin model
+    with gamma_p = 1 according to the complexity (found with scipy.optimize.brentq)."""
+    p = _check_p(p, "complexity_ground_state")
+    e_inf = threshold_energy(p)
+    # Theta_p(E_inf) > 0 for p >= 3 and Theta_p decreases at least like -E^2 / 4 (p-2)/(p-1);
+    # double the bracket until the sign changes.
+    hi = 2.0 * e_inf
+    while complexity(p, hi) > 0.0:
+        hi *= 2.0
+    return float(brentq(lambda e: complexity(p, e), e_inf, hi, xtol=1e-15, rtol=1e-15))

@@ -1,0 +1,185 @@
+"""Tests of orthoclimb.theory.algorithmic: ALG, q_hat, the path curve and the Hessian edge."""
+
+from __future__ import annotations
+
+import math
+
+import numpy as np
+import pytest
+from scipy.integrate import quad
+from scipy.linalg import eigvalsh
+
+from orthoclimb import Mixture
+from orthoclimb.errors import NonFiniteError
+from orthoclimb.theory import (
+    algorithmic_energy,
+    algorithmic_threshold,
+    hessian_edge,
+    path_energy,
+)
+
+MIXTURES = [
+    Mixture({2: 1.0}),
+    Mixture({3: 1.0}),
+    Mixture({2: 1.0, 4: 0.3}),
+    Mixture({3: 0.5, 5: 1.2, 8: 0.3}),
+    Mixture({1: 0.4, 2: 1.0, 4: 0.2}),
+    Mixture({1: 0.3, 3: 1.0}),
+    Mixture({2: 0.1, 7: 2.0}),
+]
+
+
+def _quad_path(mixture: Mixture, lo: float, hi: float) -> float:
+    value, _ = quad(lambda s: math.sqrt(mixture.xi(s, 2)), lo, hi, epsabs=1e-14, epsrel=1e-13)
+    return value
+
+
+def test_pure_two_spin_alg_is_the_semicircle_edge():
+    # Wigner semicircle edge: xi = q^2, ALG = int_0^1 sqrt(2) dq = sqrt(2).
+    assert algorithmic_energy(Mixture({2: 1.0})) == pytest.approx(math.sqrt(2), abs=1e-12)
+
+
+def test_pure_three_spin_alg():
+    # Auffinger, Ben Arous and Cerny 2013: E_inf = 2 sqrt(2/3) for p = 3 (= ALG, SPEC section 4).
+    assert algorithmic_energy(Mixture({3: 1.0})) == pytest.approx(2 * math.sqrt(2 / 3), abs=1e-12)
+
+
+@pytest.mark.parametrize("p", range(2, 9))
+@pytest.mark.parametrize("gamma", [0.5, 1.0, 1.7])
+def test_pure_p_path_closed_form(p, gamma):
+    # xi'' = gamma^2 p (p-1) q^(p-2): int_0^q sqrt(xi'') = gamma sqrt(p (p-1)) (2/p) q^(p/2).
+    mixture = Mixture({p: gamma})
+    q = np.linspace(0.0, 1.0, 11)
+    expected = gamma * math.sqrt(p * (p - 1)) * (2 / p) * q ** (p / 2)
+    np.testing.assert_allclose(path_energy(mixture, q), expected, rtol=1e-12, atol=1e-14)
+    assert algorithmic_energy(mixture) == pytest.approx(gamma * 2 * math.sqrt((p - 1) / p))
+
+
+def test_two_plus_four_path_closed_form():
+    # xi = a q^2 + b q^4: int_0^q sqrt(A + B s^2) ds with A = 2a, B = 12b equals
+    # q/2 sqrt(A + B q^2) + A / (2 sqrt B) asinh(q sqrt(B / A)) (a table integral).
+    a, b = 1.0, 0.09
+    A, B = 2 * a, 12 * b
+    q = np.linspace(0.0, 1.0, 21)
+    expected = q / 2 * np.sqrt(A + B * q**2) + A / (2 * math.sqrt(B)) * np.arcsinh(
+        q * math.sqrt(B / A)
+    )
+    np.testing.assert_allclose(
+        path_energy(Mixture.from_xi({2: a, 4: b}), q), expected, rtol=1e-12, atol=1e-15
+    )
+
+
+@pytest.mark.parametrize("mixture", MIXTURES, ids=repr)
+def test_path_energy_against_quad(mixture):
+    # E_path(q) = sqrt(q_hat xi'(q_hat)) + int_{q_hat}^q sqrt(xi'') for q >= q_hat (SPEC section 3),
+    # sqrt(q xi'(q)) below q_hat; the integral is recomputed with scipy.integrate.quad.
+    q_hat = algorithmic_threshold(mixture)
+    for q in [0.0, 0.05, 0.3, 0.5, 0.77, 1.0]:
+        if q <= q_hat:
+            expected = math.sqrt(q * mixture.xi(q, 1))
+        else:
+            expected = math.sqrt(q_hat * mixture.xi(q_hat, 1)) + _quad_path(mixture, q_hat, q)
+        assert path_energy(mixture, q) == pytest.approx(expected, rel=1e-11, abs=1e-13)
+
+
+@pytest.mark.parametrize("mixture", MIXTURES, ids=repr)
+def test_path_energy_is_alg_of_the_restricted_polynomial(mixture):
+    # On the sphere of radius sqrt(q) the polynomial has mixture r -> xi(q r), i.e. gammas
+    # gamma_p q^(p/2); path_energy(q) is defined as the ALG of that mixture.
+    for q in [0.1, 0.4, 0.9]:
+        restricted = Mixture({p: g * q ** (p / 2) for p, g in mixture.gammas.items()})
+        assert path_energy(mixture, q) == pytest.approx(algorithmic_energy(restricted), rel=1e-11)
+
+
+@pytest.mark.parametrize("mixture", MIXTURES, ids=repr)
+def test_path_energy_is_increasing_and_ends_at_alg(mixture):
+    q = np.linspace(0.0, 1.0, 101)
+    values = path_energy(mixture, q)
+    assert values[0] == 0.0
+    assert np.all(np.diff(values) > 0)
+    assert values[-1] == pytest.approx(algorithmic_energy(mixture), rel=1e-14)
+
+
+def test_pure_field():
+    # p = 1 alone: H(x) = sqrt(n) gamma_1 <g, x>, whose maximum on the unit sphere is
+    # gamma_1 |g| / sqrt(n) -> gamma_1 per spin (maximum of a linear function, exact).
+    assert algorithmic_threshold(Mixture({1: 0.8})) == 1.0
+    assert algorithmic_energy(Mixture({1: 0.8})) == pytest.approx(0.8, rel=1e-14)
+
+
+def test_field_plus_two_spin_uses_q_hat_one():
+    # xi = h^2 q + c q^2: q xi''(q) - xi'(q) = 2cq - h^2 - 2cq = -h^2 < 0 on [0, 1], so no root:
+    # q_hat = 1 by the rule of SPEC section 3 and ALG = sqrt(q_hat xi'(q_hat)) = sqrt(h^2 + 2c).
+    mixture = Mixture.from_xi({1: 0.5, 2: 1.0})
+    assert algorithmic_threshold(mixture) == 1.0
+    assert algorithmic_energy(mixture) == pytest.approx(math.sqrt(0.5 + 2.0), rel=1e-14)
+
+
+def test_field_plus_three_spin_closed_form():
+    # xi = h^2 q + c q^3: q xi'' - xi' = 3 c q^2 - h^2, so q_hat = h / sqrt(3c) when < 1, and
+    # ALG = sqrt(q_hat (h^2 + 3 c q_hat^2)) + sqrt(6c) (2/3) (1 - q_hat^(3/2)).
+    h2, c = 0.09, 1.0
+    mixture = Mixture.from_xi({1: h2, 3: c})
+    q_hat = math.sqrt(h2 / (3 * c))
+    assert algorithmic_threshold(mixture) == pytest.approx(q_hat, rel=1e-13)
+    expected = math.sqrt(q_hat * (h2 + 3 * c * q_hat**2)) + math.sqrt(6 * c) * (2 / 3) * (
+        1 - q_hat**1.5
+    )
+    assert algorithmic_energy(mixture) == pytest.approx(expected, rel=1e-12)
+
+
+def test_no_field_means_q_hat_zero():
+    assert algorithmic_threshold(Mixture({2: 1.0, 5: 0.4})) == 0.0
+
+
+def test_hessian_edge_formula_and_shapes():
+    mixture = Mixture({2: 1.0, 4: 0.3})
+    q = np.array([[0.0, 0.5], [0.25, 1.0]])
+    np.testing.assert_allclose(hessian_edge(mixture, q), 2 * np.sqrt(mixture.xi(q, 2)), rtol=1e-15)
+    assert isinstance(hessian_edge(mixture, 0.5), float)
+    assert hessian_edge(mixture, q).shape == (2, 2)
+    assert path_energy(mixture, q).shape == (2, 2)
+    assert isinstance(path_energy(mixture, 0.5), float)
+    assert path_energy(mixture, np.array([])).shape == (0,)
+
+
+def test_hessian_edge_matches_a_sampled_two_spin_hessian():
+    # For xi = gamma^2 q^2 the Hessian of H(x) = sqrt(n) gamma x^T J x is sqrt(n) gamma (J + J^T),
+    # a Gaussian symmetric matrix with off-diagonal variance 2 n gamma^2: semicircle edge
+    # 2 sqrt(2 n) sqrt(n) gamma = n * 2 sqrt(xi''). Restricting to the tangent space of a unit
+    # vector removes one dimension and does not move the edge. Finite-n edge fluctuations are
+    # of order n^(-2/3); n = 600 and a 3% tolerance.
+    n, gamma = 600, 0.8
+    rng = np.random.default_rng(7)
+    J = rng.standard_normal((n, n))
+    hess = math.sqrt(n) * gamma * (J + J.T)
+    u = rng.standard_normal(n)
+    u /= np.linalg.norm(u)
+    basis = np.linalg.qr(np.column_stack([u, rng.standard_normal((n, n - 1))]))[0][:, 1:]
+    top = eigvalsh(basis.T @ hess @ basis, subset_by_index=[n - 2, n - 2])[0] / n
+    assert top == pytest.approx(hessian_edge(Mixture({2: gamma}), 0.3), rel=0.03)
+
+
+@pytest.mark.parametrize("function", [path_energy, hessian_edge])
+def test_q_validation(function):
+    mixture = Mixture({2: 1.0})
+    with pytest.raises(ValueError, match=r"\[0, 1\].*1\.5"):
+        function(mixture, 1.5)
+    with pytest.raises(ValueError, match=r"-0\.25"):
+        function(mixture, [0.5, -0.25])
+    with pytest.raises(NonFiniteError, match="nan"):
+        function(mixture, [0.5, float("nan")])
+    with pytest.raises(NonFiniteError, match="inf"):
+        function(mixture, float("inf"))
+    with pytest.raises(TypeError, match="'half'"):
+        function(mixture, "half")
+    with pytest.raises(TypeError, match="Mixture"):
+        function({2: 1.0}, 0.5)
+
+
+@pytest.mark.parametrize("function", [algorithmic_energy, algorithmic_threshold])
+def test_mixture_validation(function):
+    with pytest.raises(TypeError, match="NoneType"):
+        function(None)
+    with pytest.raises(TypeError, match="dict"):
+        function({2: 1.0})

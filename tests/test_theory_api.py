@@ -1,0 +1,31 @@
+"""The theory is reachable from the package top level and from Mixture methods."""
+
+from __future__ import annotations
+
+import numpy as np
+import pytest
+
+import orthoclimb
+from orthoclimb import Mixture, theory
+
+
+def test_top_level_exports():
+    for name in ("theory", "full_rsb", "algorithmic_energy", "ground_state", "path_energy"):
+        assert name in orthoclimb.__all__
+    assert orthoclimb.full_rsb is theory.full_rsb
+    assert orthoclimb.ground_state is theory.ground_state
+
+
+def test_mixture_methods_delegate():
+    m = Mixture({1: 0.2, 2: 1.0, 4: 0.25})
+    assert m.full_rsb() == theory.full_rsb(m)
+    assert m.algorithmic_energy() == theory.algorithmic_energy(m)
+    assert m.algorithmic_threshold() == theory.algorithmic_threshold(m)
+    q = np.linspace(0, 1, 5)
+    np.testing.assert_array_equal(m.path_energy(q), theory.path_energy(m, q))
+    np.testing.assert_array_equal(m.hessian_edge(q), theory.hessian_edge(m, q))
+    assert m.ground_state(tol=1e-7).value == theory.ground_state(m, tol=1e-7).value
+    with pytest.raises(ValueError, match="tol"):
+        m.ground_state(tol=-1)
+    with pytest.raises(ValueError, match="1.5"):
+        m.path_energy(1.5)

@@ -1,0 +1,122 @@
+"""Tests of the ``orthoclimb theory`` command (orthoclimb.cli.theory_cmd)."""
+
+from __future__ import annotations
+
+import json
+import math
+import os
+
+import pytest
+
+from orthoclimb import Mixture
+from orthoclimb.cli import main
+from orthoclimb.theory import (
+    algorithmic_energy,
+    complexity_ground_state,
+    full_rsb,
+    ground_state,
+    threshold_energy,
+)
+
+
+def _json(capsys, argv):
+    assert main(argv) == 0
+    return json.loads(capsys.readouterr().out)
+
+
+def test_json_for_pure_three_spin_matches_the_functions(capsys):
+    out = _json(capsys, ["theory", "--gammas", "3:1", "--json"])
+    mixture = Mixture({3: 1.0})
+    assert out["alg"] == pytest.approx(algorithmic_energy(mixture), rel=1e-14)
+    assert out["ground_state"]["value"] == pytest.approx(ground_state(mixture).value, rel=1e-12)
+    assert out["full_rsb"]["holds"] is False
+    assert out["full_rsb"]["failing_intervals"] == [[0.0, 1.0]]
+    assert out["pure"]["threshold_energy"] == pytest.approx(threshold_energy(3), rel=1e-15)
+    assert out["pure"]["complexity_ground_state"] == pytest.approx(complexity_ground_state(3))
+    # Parisi and complexity agree (Auffinger, Ben Arous and Cerny 2013; Chen and Sen 2017)
+    assert abs(out["pure"]["parisi_minus_complexity"]) < 1e-6
+    assert out["gap"] == pytest.approx(out["ground_state"]["value"] - out["alg"], abs=1e-15)
+
+
+def test_pure_model_with_gamma_scales_energies(capsys):
+    out = _json(capsys, ["theory", "--gammas", "4:2", "--json"])
+    assert out["pure"]["threshold_energy"] == pytest.approx(2 * threshold_energy(4))
+    assert out["pure"]["complexity_ground_state"] == pytest.approx(2 * complexity_ground_state(4))
+    assert out["ground_state"]["value"] == pytest.approx(2 * complexity_ground_state(4), abs=1e-6)
+
+
+def test_xi_and_gammas_give_the_same_mixture(capsys):
+    a = _json(capsys, ["theory", "--gammas", "2:1,4:0.3", "--json"])
+    b = _json(capsys, ["theory", "--xi", "2:1,4:0.09", "--json"])
+    assert a["alg"] == pytest.approx(b["alg"], rel=1e-14)
+    assert a["full_rsb"] == b["full_rsb"]
+    assert a["pure"] is None
+
+
+def test_field_reports_q_hat(capsys):
+    out = _json(capsys, ["theory", "--xi", "1:0.09,3:1", "--json"])
+    assert out["q_hat"] == pytest.approx(math.sqrt(0.09 / 3), rel=1e-12)
+    assert out["full_rsb"]["q_hat"] == out["q_hat"]
+    assert main(["theory", "--xi", "1:0.09,3:1"]) == 0
+    assert "q_hat" in capsys.readouterr().out
+
+
+def test_table(capsys):
+    assert main(["theory", "--gammas", "3:1"]) == 0
+    text = capsys.readouterr().out
+    for label in ("xi(q) = q^3", "full RSB", "ALG", "GS (Parisi)", "GS - ALG", "E_inf"):
+        assert label in text
+    assert "complexity zero" in text
+    assert f"{complexity_ground_state(3):.10f}" in text
+    assert main(["theory", "--xi", "2:1,4:0.05"]) == 0
+    text = capsys.readouterr().out
+    assert "holds" in text and "E_inf" not in text
+    assert full_rsb(Mixture.from_xi({2: 1, 4: 0.05})).holds
+
+
+def test_plot_writes_a_png_atomically(tmp_path, capsys):
+    target = tmp_path / "theory.png"
+    assert main(["theory", "--xi", "2:1,4:0.5", "--plot", str(target)]) == 0
+    data = target.read_bytes()
+    assert data[:8] == b"\x89PNG\r\n\x1a\n" and len(data) > 10_000
+    assert os.listdir(tmp_path) == ["theory.png"]  # no temporary file left behind
+    assert "plot written" in capsys.readouterr().out
+    # overwriting works and JSON mode records the file
+    out = _json(capsys, ["theory", "--gammas", "1:0.3,3:1", "--plot", str(target), "--json"])
+    assert out["plot"] == str(target)
+    assert target.read_bytes()[:8] == b"\x89PNG\r\n\x1a\n"
+
+
+def test_plot_for_a_linear_mixture(tmp_path):
+    target = tmp_path / "linear.png"
+    assert main(["theory", "--gammas", "1:1", "--plot", str(target)]) == 0
+    assert target.stat().st_size > 0
+
+
+def test_plot_into_a_missing_folder_is_an_error(tmp_path, capsys):
+    target = tmp_path / "nowhere" / "x.png"
+    assert main(["theory", "--gammas", "3:1", "--plot", str(target)]) == 2
+    assert "does not exist" in capsys.readouterr().err
+
+
+@pytest.mark.parametrize("text", ["2:x", "2", "9:1", "2:-1", "", "2:1,2:3"])
+def test_malformed_mixture_exit_code_2(text, capsys):
+    assert main(["theory", "--gammas", text]) == 2
+    err = capsys.readouterr().err
+    assert err.startswith("orthoclimb theory: error:")
+
+
+def test_bad_tolerance_exit_code_2(capsys):
+    assert main(["theory", "--gammas", "3:1", "--tol", "-1"]) == 2
+    assert "-1" in capsys.readouterr().err
+
+
+@pytest.mark.parametrize(
+    "argv",
+    [["theory"], ["theory", "--gammas", "3:1", "--xi", "3:1"], ["theory", "--gammas"]],
+)
+def test_argument_errors(argv, capsys):
+    # exactly one of --gammas / --xi (argparse usage error, exit code 2)
+    with pytest.raises(SystemExit) as info:
+        main(argv)
+    assert info.value.code == 2

@@ -1,0 +1,339 @@
+"""Tests of orthoclimb.theory.parisi: the zero-temperature Parisi formula (Chen-Sen form)."""
+
+from __future__ import annotations
+
+import json
+import math
+import time
+
+import numpy as np
+import pytest
+from scipy.integrate import quad
+from scipy.optimize import check_grad
+
+from orthoclimb import Mixture
+from orthoclimb.errors import NonFiniteError
+from orthoclimb.theory import (
+    algorithmic_energy,
+    complexity_ground_state,
+    full_rsb,
+    ground_state,
+    parisi_functional,
+    parisi_gradient,
+)
+from orthoclimb.theory.parisi import _Grid
+
+
+def _functional_by_quad(mixture, B, breakpoints, alpha):
+    """P(B, alpha) of arXiv:1512.08492 (our B-form) from its definition, integrated pointwise
+    with scipy.integrate.quad: independent of the closed forms in the module."""
+    q = np.asarray(breakpoints, dtype=float)
+    a = np.asarray(alpha, dtype=float)
+
+    def alpha_at(s):
+        return a[min(np.searchsorted(q, s, side="right") - 1, a.size - 1)]
+
+    def c_at(s):
+        # C(s) = B + int_s^1 alpha
+        lengths = np.clip(q[1:] - np.maximum(s, q[:-1]), 0.0, None)
+        return B + float(lengths @ a)
+
+    opts = {"points": q[1:-1].tolist(), "epsabs": 1e-13, "epsrel": 1e-12, "limit": 200}
+    linear, _ = quad(lambda s: mixture.xi(s, 1) * alpha_at(s), 0.0, 1.0, **opts)
+    inverse, _ = quad(lambda s: 1.0 / c_at(s), 0.0, 1.0, **opts)
+    return 0.5 * (mixture.xi(1.0, 1) * B + linear + inverse)
+
+
+STEP_CASES = [
+    (Mixture({2: 1.0, 4: 0.3}), 0.4, [0.0, 0.3, 0.7, 1.0], [0.0, 0.5, 2.0]),
+    (Mixture({3: 1.0}), 0.34, [0.0, 1.0], [0.62]),
+    (Mixture({1: 0.5, 3: 1.0, 6: 0.2}), 0.2, [0.0, 0.1, 0.2, 0.5, 0.9, 1.0], [0.1, 0.1, 1, 4, 9]),
+    # tiny m: exercises the series branches of log1p(x)/x and its companion
+    (Mixture({2: 1.0, 5: 0.5}), 1.3, [0.0, 0.5, 1.0], [1e-9, 3e-3]),
+]
+
+
+@pytest.mark.parametrize(("mixture", "B", "breakpoints", "alpha"), STEP_CASES)
+def test_closed_form_functional_against_quad(mixture, B, breakpoints, alpha):
+    # The exact step-function integrals (log((B + ...)/...)/m etc.) against direct quadrature.
+    exact = parisi_functional(mixture, B, breakpoints, alpha)
+    assert exact == pytest.approx(_functional_by_quad(mixture, B, breakpoints, alpha), rel=1e-11)
+
+
+def test_replica_symmetric_value():
+    # SPEC section 3: alpha = 0 gives min_B (xi'(1) B + 1/B)/2 = sqrt(xi'(1)) at B = xi'(1)^(-1/2).
+    mixture = Mixture({2: 1.0, 3: 0.4})
+    s = math.sqrt(mixture.xi(1.0, 1))
+    assert parisi_functional(mixture, 1 / s, [0.0, 1.0], [0.0]) == pytest.approx(s, rel=1e-15)
+
+
+@pytest.mark.parametrize(("mixture", "B", "breakpoints", "alpha"), STEP_CASES)
+def test_gradient_with_check_grad(mixture, B, breakpoints, alpha):
+    # Analytic gradient in (B, increments of alpha) against finite differences.
+    q = np.asarray(breakpoints)
+
+    def unpack(theta):
+        return theta[0], np.cumsum(theta[1:])
+
+    def f(theta):
+        b, a = unpack(theta)
+        return parisi_functional(mixture, b, q, a)
+
+    def g(theta):
+        b, a = unpack(theta)
+        return parisi_gradient(mixture, b, q, a)
+
+    theta = np.concatenate(([B], np.diff(alpha, prepend=0.0)))
+    # keep the finite-difference steps inside the feasible set (increments >= 0)
+    theta[1:] = np.maximum(theta[1:], 1e-3)
+    err = check_grad(f, g, theta, epsilon=1e-7)
+    assert err < 1e-6 * max(1.0, float(np.linalg.norm(g(theta))))
+
+
+def test_directional_derivative_matches_inserting_a_step():
+    # D(t)/2 is the derivative of P when a step e 1_[t,1) is added to alpha (module docstring);
+    # compare with a Richardson-extrapolated difference of the closed-form functional.
+    mixture = Mixture({1: 0.3, 2: 1.0, 5: 0.6})
+    q = np.array([0.0, 0.25, 0.6, 1.0])
+    alpha = np.array([0.0, 0.8, 1.5])
+    B = 0.3
+    grid = _Grid(mixture, q)
+    theta = np.concatenate(([B], np.diff(alpha, prepend=0.0)))
+    for t, piece in [(0.1, 0), (0.4, 1), (0.95, 2)]:
+        q_new = np.sort(np.append(q, t))
+        a_new = np.insert(alpha, piece + 1, alpha[piece])
+
+        def bumped(e, q_new=q_new, a_new=a_new, piece=piece):
+            a = a_new.copy()
+            a[piece + 1 :] += e
+            return parisi_functional(mixture, B, q_new, a)
+
+        base = bumped(0.0)
+        e = 1e-5
+        slope = 2 * (bumped(e / 2) - base) / (e / 2) - (bumped(e) - base) / e
+        d_value = grid.directional(theta, np.array([t]), np.array([piece]))[0]
+        assert slope == pytest.approx(d_value / 2, rel=1e-6, abs=1e-9)
+
+
+def test_pure_two_spin():
+    # Wigner semicircle edge: GS = ALG = sqrt(2) for xi = q^2.
+    gs = ground_state(Mixture({2: 1.0}), tol=1e-8)
+    assert gs.converged
+    assert gs.value == pytest.approx(math.sqrt(2), abs=1e-8)
+    assert abs(gs.gap) < 1e-8
+    # xi'' = 2 is constant, so the full-RSB alpha -d/dq xi''^(-1/2) vanishes: replica symmetric,
+    # with B = xi''(1)^(-1/2) = 1/sqrt(2) (module docstring of orthoclimb.theory.parisi).
+    assert gs.n_steps == 1 and gs.alpha[0] == 0.0
+    assert gs.B == pytest.approx(1 / math.sqrt(2), rel=1e-6)
+
+
+def test_pure_three_spin_value():
+    # Crisanti and Sommers 1992 (Z. Phys. B 87); Auffinger, Ben Arous and Cerny 2013: GS = 1.657
+    # for p = 3 (three digits given): |GS - 1.657| < 5e-4.
+    gs = ground_state(Mixture({3: 1.0}))
+    assert abs(gs.value - 1.657) < 5e-4
+    # and ALG = E_inf = 2 sqrt(2/3) < GS (Auffinger, Ben Arous and Cerny 2013)
+    assert gs.alg == pytest.approx(2 * math.sqrt(2 / 3), abs=1e-12)
+    assert gs.gap > 0.02
+
+
+@pytest.mark.parametrize("p", [3, 4, 5, 6])
+def test_parisi_equals_complexity_zero(p):
+    # Two independent published formulas: the zero-temperature Parisi minimum (Chen and Sen) and
+    # the zero of the complexity (Auffinger, Ben Arous and Cerny 2013) agree to 1e-6.
+    start = time.perf_counter()
+    gs = ground_state(Mixture({p: 1.0}), tol=1e-9)
+    elapsed = time.perf_counter() - start
+    assert gs.converged
+    assert gs.value == pytest.approx(complexity_ground_state(p), abs=1e-6)
+    # SPEC section 3: the optimum of a pure model has one step, alpha constant on [0, 1).
+    assert gs.n_steps == 1 and gs.alpha[0] > 0
+    assert elapsed < 10.0, f"one-step solve took {elapsed:.1f} s"
+
+
+@pytest.mark.parametrize(
+    "xi",
+    [
+        {2: 1.0, 4: 1.0 / 20},  # b = a/20 < a/12
+        {2: 0.5, 4: 0.03},  # b = 0.72 a/12
+        {2: 1.0, 4: 0.04, 6: 0.003},  # checked to hold below
+    ],
+)
+def test_full_rsb_mixture_reaches_alg(xi):
+    # arXiv:1812.04588: when xi''^(-1/2) is concave on (0, 1], GS = ALG.
+    mixture = Mixture.from_xi(xi)
+    assert full_rsb(mixture).holds
+    start = time.perf_counter()
+    gs = ground_state(mixture, tol=1e-5)
+    elapsed = time.perf_counter() - start
+    assert gs.converged
+    assert abs(gs.value - algorithmic_energy(mixture)) < 1e-4
+    assert elapsed < 10.0, f"full-RSB solve took {elapsed:.1f} s"
+    # the solution follows alpha = -d/dq xi''^(-1/2) (module docstring): compare at piece midpoints
+    mids = 0.5 * (gs.breakpoints[1:] + gs.breakpoints[:-1])
+    frsb = 0.5 * mixture.xi(mids, 3) * mixture.xi(mids, 2) ** -1.5
+    assert np.max(np.abs(gs.alpha - frsb)) < 0.05 * np.max(frsb)
+
+
+def test_just_past_the_boundary_gs_exceeds_alg():
+    # SPEC section 3 worked example: for xi = a q^2 + b q^4 with b = 2 a/12 the criterion fails on
+    # (sqrt(1/2), 1], so GS > ALG. The gap is small this close to the boundary (about 1.5e-7),
+    # hence the tight tolerance; it must exceed the solver's own error estimates by far.
+    a = 1.0
+    mixture = Mixture.from_xi({2: a, 4: 2 * a / 12})
+    verdict = full_rsb(mixture)
+    assert not verdict.holds and verdict.failing_intervals[-1][1] == 1.0
+    gs = ground_state(mixture, tol=1e-9)
+    assert gs.converged
+    assert gs.gap > 100 * max(gs.tol, gs.change, gs.jump_gain)
+
+
+def test_gap_grows_past_the_boundary():
+    # Moving further from b = a/12 makes the mixture less full-RSB: the gap increases.
+    gaps = [ground_state(Mixture.from_xi({2: 1.0, 4: f / 12}), tol=1e-9).gap for f in (3, 6, 12)]
+    assert gaps[0] > 1e-7
+    assert gaps[0] < gaps[1] < gaps[2]
+
+
+def test_pure_field():
+    # p = 1 alone: maximum of a linear function on the unit sphere, GS = ALG = gamma_1 (exact).
+    gs = ground_state(Mixture({1: 0.8}))
+    assert gs.value == pytest.approx(0.8, abs=1e-9)
+    assert gs.alg == pytest.approx(0.8, rel=1e-14)
+    assert np.all(gs.alpha == 0.0)
+
+
+def test_field_plus_two_spin_is_replica_symmetric():
+    # xi = h^2 q + q^2: q_hat = 1 (see test_theory_algorithmic), ALG = sqrt(xi'(1)), and the
+    # Parisi minimum is the replica-symmetric value sqrt(xi'(1)) too.
+    mixture = Mixture.from_xi({1: 0.5, 2: 1.0})
+    gs = ground_state(mixture, tol=1e-8)
+    assert gs.value == pytest.approx(math.sqrt(2.5), abs=1e-8)
+    assert gs.alg == pytest.approx(math.sqrt(2.5), rel=1e-14)
+
+
+def test_strong_field_three_spin_is_replica_symmetric():
+    # xi = h^2 q + c q^3 with h^2 > 3c: q_hat = 1, so GS = ALG = sqrt(xi'(1)) = sqrt(h^2 + 3c).
+    mixture = Mixture.from_xi({1: 4.0, 3: 1.0})
+    gs = ground_state(mixture, tol=1e-8)
+    assert gs.value == pytest.approx(math.sqrt(7.0), abs=1e-8)
+    assert gs.alg == pytest.approx(math.sqrt(7.0), rel=1e-14)
+
+
+def test_field_full_rsb_confirms_the_q_hat_rule():
+    # SPEC section 3 gives the field version of ALG from memory and asks for a numerical check:
+    # for xi = 0.1 q + q^2 + 0.05 q^4 (concave above q_hat) the Parisi minimum must equal it.
+    mixture = Mixture.from_xi({1: 0.1, 2: 1.0, 4: 0.05})
+    assert full_rsb(mixture).gs_equals_alg
+    gs = ground_state(mixture, tol=1e-7)
+    assert abs(gs.gap) < 1e-6
+    # the alternative without the q_hat correction would be off by far more
+    no_q_hat = quad(lambda s: math.sqrt(mixture.xi(s, 2)), 0, 1)[0]
+    assert abs(gs.value - no_q_hat) > 1e-2
+
+
+def test_weak_field_three_spin_exceeds_alg():
+    # xi = 0.09 q + q^3 fails the criterion above q_hat, so GS > ALG.
+    gs = ground_state(Mixture.from_xi({1: 0.09, 3: 1.0}), tol=1e-8)
+    assert gs.gap > 1e-3
+
+
+@pytest.mark.parametrize("lam", [0.1, 3.0])
+def test_scaling(lam):
+    # Multiplying every gamma by lam multiplies H, hence GS, by lam.
+    base = Mixture({2: 0.7, 3: 0.5, 1: 0.2})
+    scaled = Mixture({p: lam * g for p, g in base.gammas.items()})
+    assert ground_state(scaled, tol=1e-8).value == pytest.approx(
+        lam * ground_state(base, tol=1e-8).value, rel=1e-7
+    )
+
+
+@pytest.mark.parametrize("seed", range(6))
+def test_random_mixtures_bounds_and_consistency(seed):
+    # ALG <= GS (an algorithm cannot beat the maximum) and GS <= sqrt(xi'(1)) (alpha = 0 is
+    # admissible); the returned (B, alpha) reproduces the value.
+    rng = np.random.default_rng(100 + seed)
+    degrees = rng.choice(np.arange(1, 9), size=3, replace=False)
+    mixture = Mixture({int(p): float(rng.uniform(0.1, 1.5)) for p in degrees})
+    gs = ground_state(mixture)
+    assert gs.converged
+    assert gs.value >= gs.alg - 1e-9
+    assert gs.value <= math.sqrt(mixture.xi(1.0, 1)) + 1e-12
+    assert parisi_functional(mixture, gs.B, gs.breakpoints, gs.alpha) == pytest.approx(
+        gs.value, rel=1e-12
+    )
+    assert gs.breakpoints[0] == 0.0 and gs.breakpoints[-1] == 1.0
+    assert np.all(np.diff(gs.breakpoints) > 0)
+    assert np.all(gs.alpha >= 0) and np.all(np.diff(gs.alpha) > 0)
+    assert gs.n_steps == gs.alpha.size
+    json.dumps(gs.to_dict())
+
+
+def test_result_is_frozen():
+    gs = ground_state(Mixture({3: 1.0}))
+    with pytest.raises(AttributeError):
+        gs.value = 0.0  # type: ignore[misc]
+
+
+def test_ground_state_validation():
+    m = Mixture({2: 1.0})
+    with pytest.raises(ValueError, match="tol = 0"):
+        ground_state(m, tol=0)
+    with pytest.raises(ValueError, match="tol = -1e-06"):
+        ground_state(m, tol=-1e-6)
+    with pytest.raises(NonFiniteError, match="nan"):
+        ground_state(m, tol=float("nan"))
+    with pytest.raises(TypeError, match="tol"):
+        ground_state(m, tol="small")
+    with pytest.raises(ValueError, match="initial_steps = 0"):
+        ground_state(m, initial_steps=0)
+    with pytest.raises(TypeError, match="initial_steps"):
+        ground_state(m, initial_steps=2.5)
+    with pytest.raises(TypeError, match="Mixture"):
+        ground_state("2:1")
+
+
+def test_functional_validation():
+    m = Mixture({2: 1.0})
+    with pytest.raises(ValueError, match="B = 0"):
+        parisi_functional(m, 0.0, [0, 1], [0.0])
+    with pytest.raises(ValueError, match="nondecreasing"):
+        parisi_functional(m, 1.0, [0, 0.5, 1], [1.0, 0.5])
+    with pytest.raises(ValueError, match="nondecreasing"):
+        parisi_functional(m, 1.0, [0, 1], [-1.0])
+    with pytest.raises(ValueError, match="from 0 to 1"):
+        parisi_functional(m, 1.0, [0.1, 1], [0.0])
+    with pytest.raises(ValueError, match="one value per piece"):
+        parisi_functional(m, 1.0, [0, 0.5, 1], [0.0])
+    with pytest.raises(TypeError, match="Mixture"):
+        parisi_gradient(None, 1.0, [0, 1], [0.0])
+
+
+def test_interior_jump_matches_a_direct_one_step_optimization():
+    # xi = 0.09 q + q^3: alpha is 0 below some t and constant above (convex xi''^(-1/2), field).
+    # Independent reference: optimize (B, m) for each t on the 2-piece grid [0, t, 1] and then t
+    # itself with scipy (minimize_scalar); the adaptive solver must agree to its tolerance even
+    # though its jump can only sit on dyadic grid points.
+    from scipy.optimize import minimize, minimize_scalar
+
+    mixture = Mixture.from_xi({1: 0.09, 3: 1.0})
+
+    def best_for(t):
+        def f(z):
+            return parisi_functional(mixture, z[0], [0.0, t, 1.0], [0.0, z[1]])
+
+        res = minimize(
+            f,
+            [0.35, 0.5],
+            method="L-BFGS-B",
+            bounds=[(1e-6, None), (0.0, None)],
+            options={"ftol": 1e-15, "gtol": 1e-12},
+        )
+        return res.fun
+
+    ref = minimize_scalar(best_for, bounds=(0.01, 0.5), method="bounded", options={"xatol": 1e-9})
+    for tol in (1e-5, 1e-7):
+        gs = ground_state(mixture, tol=tol)
+        assert gs.converged and gs.n_steps == 2
+        assert abs(gs.value - ref.fun) < tol, f"tol {tol}: {gs.value} vs {ref.fun}"
+        assert gs.breakpoints[1] == pytest.approx(ref.x, abs=0.01)
