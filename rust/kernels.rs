@@ -22,16 +22,21 @@ use rayon::ThreadPool;
 use crate::error::CoreError;
 use crate::partition::{plan, reduce, reduce_sums, WorkItem};
 use crate::simd::{
-    axpy, dot, dot2_axpy, dot_axpy, leave_one_out, leave_two_out, simd_dispatch, Madd, Prefixes,
-    MAX_PREFIX,
+    axpy, dot, dot2_axpy, dot_axpy, dot_axpy2, leave_one_out, leave_two_out, simd_dispatch, Madd,
+    Prefixes, MAX_PREFIX,
 };
 use crate::storage::{Coef, Packed};
 
 /// Items per pass for kernels whose accumulator is a vector of length n.
 pub const VECTOR_PIECES: usize = 64;
-/// Items per pass for the Hessian, whose accumulator is an n x n matrix: few enough that
-/// merging accumulators costs little next to the pass.
-pub const MATRIX_PIECES: usize = 8;
+/// Work items for the Hessian, whose accumulator is an n x n matrix: zeroing and merging
+/// one costs about n^2, so use a power of two near coefficients / (32 n^2), between 2 and 64,
+/// keeping that overhead to a few percent of the pass. Depends on the instance only.
+pub fn matrix_pieces(num_coefficients: usize, n: usize) -> usize {
+    let ratio = num_coefficients / (32 * n * n).max(1);
+    let pow2 = if ratio == 0 { 1 } else { 1 << ratio.ilog2() };
+    pow2.clamp(2, 64)
+}
 
 pub(crate) fn items_for<T: Coef>(poly: &Packed<T>, pieces: usize) -> Vec<WorkItem> {
     let blocks: Vec<(usize, usize)> = poly
@@ -174,27 +179,43 @@ fn hessian_item_body<M: Madd, T: Coef>(
         let seg = &coeffs[pos..pos + n - t0];
         gather(x, pre, &mut xp);
         leave_one_out(&xp[..l], &mut q);
+        // Distinct prefix indices (equal ones are adjacent) and their summed row weights.
+        let (mut rows, mut weights, mut d) = ([0usize; MAX_PREFIX], [0f64; MAX_PREFIX], 0);
+        for j in 0..l {
+            if d > 0 && rows[d - 1] == pre[j] {
+                weights[d - 1] += q[j];
+            } else {
+                rows[d] = pre[j];
+                weights[d] = q[j];
+                d += 1;
+            }
+        }
+        // Row updates A[row, t0..] += weight * a, fused with S = sum_t a_t x_t when needed.
+        let first = 2.min(d);
         if l >= 2 {
+            let s = if d >= 2 {
+                let (head, tail) = acc.split_at_mut(rows[1] * n);
+                dot_axpy2::<M, T>(
+                    seg,
+                    &x[t0..],
+                    (&mut head[rows[0] * n + t0..rows[0] * n + n], weights[0]),
+                    (&mut tail[t0..n], weights[1]),
+                )
+            } else {
+                let row = &mut acc[rows[0] * n + t0..rows[0] * n + n];
+                dot_axpy::<M, T>(seg, &x[t0..], row, weights[0])
+            };
             leave_two_out(&xp[..l], &mut r);
-            let s = dot::<M, T>(seg, &x[t0..]);
             for j in 0..l {
                 for k in j + 1..l {
                     acc[pre[j] * n + pre[k]] += r[j][k] * s;
                 }
             }
+        } else {
+            axpy::<M, T>(&mut acc[rows[0] * n + t0..rows[0] * n + n], weights[0], seg);
         }
-        // One row update per distinct prefix index (equal indices are adjacent).
-        let mut j = 0;
-        while j < l {
-            let row = pre[j];
-            let mut coef = q[j];
-            let mut k = j + 1;
-            while k < l && pre[k] == row {
-                coef += q[k];
-                k += 1;
-            }
-            axpy::<M, T>(&mut acc[row * n + t0..row * n + n], coef, seg);
-            j = k;
+        for e in first..d {
+            axpy::<M, T>(&mut acc[rows[e] * n + t0..rows[e] * n + n], weights[e], seg);
         }
     }
 }
@@ -213,7 +234,7 @@ pub fn hessian<T: Coef>(
     let nn = n.checked_mul(n).ok_or_else(|| CoreError::SizeOverflow {
         what: format!("Hessian of n = {n}"),
     })?;
-    let items = items_for(poly, MATRIX_PIECES);
+    let items = items_for(poly, matrix_pieces(poly.num_coefficients(), n));
     let blocks = poly.blocks();
     let (_, mut upper) = reduce_sums(pool, &items, 0, nn, |it, _, acc| {
         hessian_item::<T>(n, &blocks[it.block].coeffs, it, x, acc);
@@ -434,6 +455,15 @@ pub(crate) mod tests {
             assert_eq!(r.3, runs[0].3);
         }
         assert!(num_multisets(n, 3).unwrap() > 50_000);
+    }
+
+    #[test]
+    fn matrix_pieces_grow_with_work_per_entry() {
+        assert_eq!(matrix_pieces(10, 5), 2);
+        assert_eq!(matrix_pieces(num_multisets(400, 3).unwrap(), 400), 2);
+        assert_eq!(matrix_pieces(num_multisets(800, 3).unwrap(), 800), 4);
+        assert_eq!(matrix_pieces(num_multisets(120, 4).unwrap(), 120), 16);
+        assert_eq!(matrix_pieces(usize::MAX / 2, 10), 64);
     }
 
     #[test]

@@ -161,6 +161,36 @@ pub fn dot_axpy<M: Madd, T: Coef>(a: &[T], x: &[f64], y: &mut [f64], alpha: f64)
     combine(&acc)
 }
 
+/// Returns sum_t a_t x_t and does y_t += alpha a_t, z_t += beta a_t, reading `a` once.
+#[inline(always)]
+pub fn dot_axpy2<M: Madd, T: Coef>(
+    a: &[T],
+    x: &[f64],
+    (y, alpha): (&mut [f64], f64),
+    (z, beta): (&mut [f64], f64),
+) -> f64 {
+    let len = a.len();
+    let (x, y, z) = (&x[..len], &mut y[..len], &mut z[..len]);
+    let mut acc = [0f64; LANES];
+    let ((ca, ra), (cx, rx)) = (a.as_chunks::<LANES>(), x.as_chunks::<LANES>());
+    let ((cy, ry), (cz, rz)) = (y.as_chunks_mut::<LANES>(), z.as_chunks_mut::<LANES>());
+    for (((ac, xc), yc), zc) in ca.iter().zip(cx).zip(cy).zip(cz) {
+        for l in 0..LANES {
+            let c = ac[l].to_f64();
+            acc[l] = M::madd(c, xc[l], acc[l]);
+            yc[l] = M::madd(alpha, c, yc[l]);
+            zc[l] = M::madd(beta, c, zc[l]);
+        }
+    }
+    for (((ai, xi), yi), zi) in ra.iter().zip(rx).zip(ry).zip(rz) {
+        let c = ai.to_f64();
+        acc[0] = M::madd(c, *xi, acc[0]);
+        *yi = M::madd(alpha, c, *yi);
+        *zi = M::madd(beta, c, *zi);
+    }
+    combine(&acc)
+}
+
 /// Returns (sum_t a_t x_t, sum_t a_t v_t) and does w_t += alpha a_t, reading `a` once.
 #[inline(always)]
 pub fn dot2_axpy<M: Madd, T: Coef>(
@@ -306,6 +336,12 @@ mod tests {
         let (sx, sv) = dot2_axpy::<Plain, f64>(&a, &x, &v, &mut w, -1.0);
         assert!((sx - want).abs() < 1e-13 && (sv - wantv).abs() < 1e-13);
         assert!(w.iter().zip(&a).all(|(wi, ai)| *wi == -ai));
+        let (mut y1, mut y2) = (vec![0.5; 37], vec![0.0; 37]);
+        let s2 = dot_axpy2::<Fused, f64>(&a, &x, (&mut y1, 2.0), (&mut y2, -3.0));
+        assert!((s2 - want).abs() < 1e-13);
+        for ((p, q), ai) in y1.iter().zip(&y2).zip(&a) {
+            assert!((p - (0.5 + 2.0 * ai)).abs() < 1e-15 && (q + 3.0 * ai).abs() < 1e-15);
+        }
         let mut z = vec![0.0; 37];
         axpy::<Plain, f32>(
             &mut z,
