@@ -383,6 +383,12 @@ fn multiset_table<'py>(py: Python<'py>, n: usize, p: usize) -> PyResult<Bound<'p
     table.into_pyarray(py).reshape([count, p])
 }
 
+/// Number of n x n accumulators a Hessian pass of this polynomial uses (fixed by the instance).
+#[pyfunction]
+fn hessian_groups(num_coefficients: usize, n: usize) -> usize {
+    kernels::matrix_pieces(num_coefficients, n)
+}
+
 /// Sets the number of threads of the shared pool.
 #[pyfunction]
 fn set_num_threads(py: Python<'_>, k: usize) -> PyResult<()> {
@@ -408,6 +414,7 @@ fn _core(m: &Bound<'_, PyModule>) -> PyResult<()> {
     m.add_class::<PyPacked>()?;
     m.add_function(wrap_pyfunction!(storage_nbytes, m)?)?;
     m.add_function(wrap_pyfunction!(multiset_table, m)?)?;
+    m.add_function(wrap_pyfunction!(hessian_groups, m)?)?;
     m.add_function(wrap_pyfunction!(set_num_threads, m)?)?;
     m.add_function(wrap_pyfunction!(get_num_threads, m)?)?;
     m.add_function(wrap_pyfunction!(kernel_path, m)?)?;

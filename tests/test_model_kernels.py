@@ -139,3 +139,9 @@ def test_kernels_are_bitwise_identical_across_thread_counts(rng):
     for other in results[1:]:
         for a, b in zip(results[0], other, strict=True):
             np.testing.assert_array_equal(a, b)
+
+
+def test_hessian_workspace_is_reported():
+    ham = oc.Hamiltonian.sample(oc.Mixture({3: 1.0}), 50, seed=0)
+    # 2 accumulators (the minimum, rust/kernels.rs matrix_pieces) plus the result
+    assert ham.hessian_workspace_nbytes == 3 * 50 * 50 * 8

@@ -16,6 +16,7 @@ from importlib import import_module
 _COMMANDS: dict[str, tuple[str, str]] = {
     "demo": ("demo_cmd", "a short guided tour: theory, sampling and kernels on two landscapes"),
     "theory": ("theory_cmd", "what a mixture predicts: full-RSB verdict, ALG, ground state"),
+    "climb": ("climb_cmd", "run Hessian ascent or a baseline on one instance, compare with theory"),
 }
 
 

@@ -191,6 +191,13 @@ class Hamiltonian:
         """Bytes of coefficient storage."""
         return int(self._core.nbytes)
 
+    @property
+    def hessian_workspace_nbytes(self) -> int:
+        """Peak bytes a :meth:`hessian` call allocates: its n x n accumulators (a number fixed
+        by the instance, 2 to 64) and the result, 8 bytes per entry each."""
+        groups = int(_core.hessian_groups(self.num_coefficients, self.n))
+        return (groups + 1) * self.n * self.n * 8
+
     def __repr__(self) -> str:
         origin = f"{self._mixture!r}, seed={self._seed}" if self._mixture else "given"
         return f"Hamiltonian({origin}, n={self.n}, dtype={self.dtype!r}, nbytes={self.nbytes})"

@@ -1,0 +1,66 @@
+"""Input checks shared by the algorithms: every refusal names the bad value."""
+
+from __future__ import annotations
+
+import math
+from typing import Any
+
+import numpy as np
+
+from ..errors import NonFiniteError, ShapeError
+from ..model.hamiltonian import Hamiltonian
+
+__all__ = [
+    "check_count",
+    "check_ham",
+    "check_positive",
+    "check_seed",
+    "check_unit_start",
+]
+
+
+def check_ham(ham: Any, where: str) -> Hamiltonian:
+    if not isinstance(ham, Hamiltonian):
+        raise TypeError(f"{where} needs an orthoclimb.Hamiltonian, got {type(ham).__name__}")
+    return ham
+
+
+def check_count(value: Any, name: str, minimum: int = 1) -> int:
+    if isinstance(value, bool) or not isinstance(value, (int, np.integer)):
+        raise TypeError(f"{name} must be an integer >= {minimum}, got {value!r}")
+    if value < minimum:
+        raise ValueError(f"{name} must be >= {minimum}, got {value}")
+    return int(value)
+
+
+def check_positive(value: Any, name: str) -> float:
+    if isinstance(value, bool) or not isinstance(value, (int, float, np.integer, np.floating)):
+        raise TypeError(f"{name} must be a positive real number, got {value!r}")
+    v = float(value)
+    if not math.isfinite(v) or v <= 0.0:
+        raise ValueError(f"{name} must be finite and > 0, got {value!r}")
+    return v
+
+
+def check_seed(seed: Any, name: str = "seed") -> int:
+    if isinstance(seed, bool) or not isinstance(seed, (int, np.integer)):
+        raise TypeError(f"{name} must be a nonnegative integer, got {seed!r}")
+    if seed < 0:
+        raise ValueError(f"{name} must be >= 0, got {seed}")
+    return int(seed)
+
+
+def check_unit_start(x: Any, n: int, name: str = "x") -> np.ndarray:
+    """A float64 copy of a nonzero finite vector of length n, normalized to |x| = 1."""
+    try:
+        arr = np.array(x, dtype=np.float64)
+    except (TypeError, ValueError):
+        raise TypeError(f"{name} must be a real vector of length {n}, got {x!r}") from None
+    if arr.shape != (n,):
+        raise ShapeError(f"{name} must have shape ({n},), got {arr.shape}")
+    if not np.all(np.isfinite(arr)):
+        raise NonFiniteError(f"{name} holds NaN or infinity")
+    norm = float(np.linalg.norm(arr))
+    if norm == 0.0:
+        raise ValueError(f"{name} is the zero vector; it has no direction on the sphere")
+    return arr / norm

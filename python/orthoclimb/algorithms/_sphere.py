@@ -1,0 +1,83 @@
+"""Geometry of the sphere of radius r in R^n, and derivatives read off one Hessian pass.
+
+Tangent space at x (|x| = r): the orthogonal complement of u = x/|x|, with projector
+P = I - u u^T. The retraction used everywhere is the metric projection R(y) = r y/|y|.
+
+Reading the energy and the gradient off the Hessian (exact identities, SPEC section 2). Write
+H = H_1 + H_2 + sum_{p >= 3} H_p. Then Hess H_1 = 0, Hess H_2 = C is the constant matrix
+Hess H(0), and for each homogeneous part Hess H_p(x) x = (p - 1) grad H_p(x) and
+x . grad H_p(x) = p H_p(x) (Euler). So when at most one degree p >= 3 is present,
+
+    grad H(x) = h + C x + (Hess H(x) - C) x / (p - 1),
+    H(x)      = h . x + x.C x / 2 + x.(Hess H(x) - C) x / (p (p - 1)),
+
+with h = grad H_1 (the field coefficients, constant). The Hessian pass then also gives H and
+grad H for free; with two or more degrees >= 3 one extra energy-and-gradient pass is needed.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+
+from ..model.hamiltonian import Hamiltonian
+
+__all__ = ["HessianReader", "project_tangent", "random_unit", "retract"]
+
+
+def random_unit(n: int, rng: np.random.Generator) -> np.ndarray:
+    """A uniformly random point of the unit sphere S^{n-1} (normalized standard Gaussian)."""
+    while True:
+        g = rng.standard_normal(n)
+        norm = float(np.linalg.norm(g))
+        if norm > 0.0:
+            return g / norm
+
+
+def project_tangent(v: np.ndarray, u: np.ndarray) -> np.ndarray:
+    """P v = v - u (u . v) for a unit vector u (the tangent part of v at x = |x| u)."""
+    return v - u * float(u @ v)
+
+
+def retract(y: np.ndarray, radius: float = 1.0) -> np.ndarray:
+    """Metric-projection retraction onto the sphere of the given radius: r y / |y|."""
+    return (radius / float(np.linalg.norm(y))) * y
+
+
+class HessianReader:
+    """Energy and gradient of ``ham`` from its Hessian at the same point (see module doc).
+
+    ``exact`` tells whether the identities apply (at most one degree >= 3); otherwise
+    :meth:`energy_gradient` falls back to one ``ham.energy_and_gradient`` pass.
+    """
+
+    def __init__(self, ham: Hamiltonian):
+        self.ham = ham
+        degrees = ham.degrees
+        high = [p for p in degrees if p >= 3]
+        self.exact = len(high) <= 1
+        self.high = high[0] if len(high) == 1 else None
+        n = ham.n
+        self.field = ham.coefficients(1) if 1 in degrees else None
+        self.constant = ham.hessian(np.zeros(n)) if (2 in degrees and self.exact) else None
+        self.constant_only = max(degrees) <= 2
+
+    def energy_gradient(self, x: np.ndarray, hess: np.ndarray) -> tuple[float, np.ndarray]:
+        """(H(x), grad H(x)) given hess = Hess H(x) (full, unprojected)."""
+        if not self.exact:
+            return self.ham.energy_and_gradient(x)
+        grad = np.zeros_like(x)
+        energy = 0.0
+        if self.field is not None:
+            grad += self.field
+            energy += float(self.field @ x)
+        cx = None
+        if self.constant is not None:
+            cx = self.constant @ x
+            grad += cx
+            energy += 0.5 * float(x @ cx)
+        if self.high is not None:
+            p = self.high
+            rx = hess @ x if cx is None else hess @ x - cx
+            grad += rx / (p - 1)
+            energy += float(x @ rx) / (p * (p - 1))
+        return energy, grad

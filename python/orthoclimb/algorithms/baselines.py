@@ -1,0 +1,182 @@
+"""Baselines a practitioner would try: Riemannian gradient ascent from a random start, and
+Langevin dynamics with a cooling schedule.
+
+Both work with the energy per spin e(x) = H(x)/n on the unit sphere and its Riemannian gradient
+G(x) = P grad H(x)/n, P = I - x x^T.
+
+* :func:`gradient_ascent`: x_0 uniform on the sphere (seeded), then the Riemannian ascent of
+  ``_riemannian`` (Barzilai-Borwein step, nonmonotone Armijo backtracking, retraction
+  x -> x/|x|): nothing to tune.
+* :func:`langevin_anneal`: the Langevin diffusion of the Gibbs measure exp(n e(x) / T) on the
+  sphere, dx = G dt + sqrt(2 T / n) dB_S (B_S Brownian motion on the sphere), discretized by
+  projected Euler-Maruyama with retraction,
+
+      x_{k+1} = R(x_k + eta G(x_k) + sqrt(2 eta T_k / n) P xi_k),   xi_k ~ N(0, I_n),
+
+  R(y) = y/|y|, one gradient pass per step, with temperatures T_k from ``schedule``; then
+  :func:`orthoclimb.polish` climbs to the nearest near-critical point. The step ``eta`` (per-spin
+  time units) must be small against 1/|Hess e| (the tangent Hessian of e has spectral radius
+  about 2 sqrt(xi''(1)) + xi'(1), about 8 for p = 3); the default 0.02 is safe for the mixtures
+  of SPEC section 4.
+"""
+
+from __future__ import annotations
+
+import math
+import time
+from collections.abc import Callable
+from typing import Any
+
+import numpy as np
+
+from ..model.hamiltonian import Hamiltonian
+from ._checks import check_count, check_ham, check_positive, check_seed
+from ._config import base_config
+from ._riemannian import sphere_ascent
+from ._sphere import project_tangent, random_unit, retract
+from .polish import local_max_info
+from .polish import polish as polish_point
+from .result import Result
+
+__all__ = ["geometric_schedule", "gradient_ascent", "langevin_anneal"]
+
+
+def geometric_schedule(t_start: float = 1.0, t_end: float = 0.01, steps: int = 400) -> np.ndarray:
+    """Temperatures decreasing geometrically from ``t_start`` to ``t_end`` in ``steps`` steps
+    (energy-per-spin units: the Gibbs weight is exp(n e / T))."""
+    t_start = check_positive(t_start, "t_start")
+    t_end = check_positive(t_end, "t_end")
+    steps = check_count(steps, "steps")
+    return np.geomspace(t_start, t_end, steps)
+
+
+def _check_schedule(schedule: Any) -> np.ndarray:
+    if schedule is None:
+        return geometric_schedule()
+    try:
+        temps = np.array(schedule, dtype=np.float64)
+    except (TypeError, ValueError):
+        raise TypeError(f"schedule must be a sequence of temperatures, got {schedule!r}") from None
+    if temps.ndim != 1 or temps.size == 0:
+        raise ValueError(f"schedule must be a non-empty 1-D sequence, got shape {temps.shape}")
+    bad = ~np.isfinite(temps) | (temps < 0.0)
+    if np.any(bad):
+        i = int(np.argmax(bad))
+        raise ValueError(f"schedule temperatures must be finite and >= 0; entry {i} is {temps[i]}")
+    return temps
+
+
+def gradient_ascent(
+    ham: Hamiltonian,
+    seed: int = 0,
+    gtol: float = 1e-7,
+    max_iter: int = 2000,
+    callback: Callable[[dict[str, Any]], Any] | None = None,
+    check: bool = True,
+) -> Result:
+    """Riemannian gradient ascent from a uniformly random point of the sphere (``seed``).
+
+    Stops when |P grad H|/n <= ``gtol`` or after ``max_iter`` iterations (one energy-and-
+    gradient pass each, plus one per backtracking halving). ``check`` runs the local-maximum
+    check at the end. ``path`` columns: ``iteration``, ``energy`` (per spin), ``grad_norm``,
+    ``alpha``.
+    """
+    ham = check_ham(ham, "gradient_ascent")
+    seed = check_seed(seed)
+    gtol = check_positive(gtol, "gtol")
+    max_iter = check_count(max_iter, "max_iter", minimum=0)
+    if callback is not None and not callable(callback):
+        raise TypeError(f"callback must be callable or None, got {callback!r}")
+    start = time.perf_counter()
+    x0 = random_unit(ham.n, np.random.default_rng(seed))
+
+    def cb(it: int, _x: np.ndarray, e: float, g: float) -> None:
+        if callback is not None:
+            callback({"step": it, "q": 1.0, "energy": e, "grad_norm": g})
+
+    trace = sphere_ascent(ham, x0, gtol=gtol, max_iter=max_iter, callback=cb)
+    info: dict[str, Any] = {
+        "grad_norm": trace.grad_norm,
+        "status": trace.status,
+        "iterations": trace.iterations,
+        "passes": trace.passes,
+    }
+    if check:
+        info.update(local_max_info(ham, trace.x))
+    _add_theory(ham, info, trace.energy)
+    config = base_config(ham, "gradient", seed=seed, gtol=gtol, max_iter=max_iter)
+    path = {k: np.asarray(v) for k, v in trace.rows.items()}
+    return Result(trace.x, trace.energy, path, config, time.perf_counter() - start, info)
+
+
+def langevin_anneal(
+    ham: Hamiltonian,
+    seed: int = 0,
+    schedule: Any = None,
+    eta: float = 0.02,
+    polish: bool = True,
+    callback: Callable[[dict[str, Any]], Any] | None = None,
+) -> Result:
+    """Langevin dynamics on the unit sphere with the temperatures of ``schedule`` (one step per
+    entry; default ``geometric_schedule()``: 400 steps from T = 1 to 0.01), started uniformly at
+    random (``seed`` drives the start and the noise), then polished (see the module doc).
+
+    ``path`` columns: ``step``, ``temperature``, ``energy`` (per spin, before the step's
+    update), ``grad_norm`` (|P grad H|/n).
+    """
+    ham = check_ham(ham, "langevin_anneal")
+    seed = check_seed(seed)
+    temps = _check_schedule(schedule)
+    eta = check_positive(eta, "eta")
+    if not isinstance(polish, (bool, np.bool_)):
+        raise TypeError(f"polish must be True or False, got {polish!r}")
+    if callback is not None and not callable(callback):
+        raise TypeError(f"callback must be callable or None, got {callback!r}")
+    start = time.perf_counter()
+    n = ham.n
+    rng = np.random.default_rng(seed)
+    x = random_unit(n, rng)
+    rows: dict[str, list] = {"step": [], "temperature": [], "energy": [], "grad_norm": []}
+    for k, temp in enumerate(temps):
+        e, g = ham.energy_and_gradient(x)
+        gr = project_tangent(g, x) / n
+        rows["step"].append(k)
+        rows["temperature"].append(float(temp))
+        rows["energy"].append(e / n)
+        rows["grad_norm"].append(float(np.linalg.norm(gr)))
+        noise = project_tangent(rng.standard_normal(n), x)
+        x = retract(x + eta * gr + math.sqrt(2.0 * eta * temp / n) * noise)
+        if callback is not None:
+            callback({"step": k, "q": 1.0, "energy": e / n, "temperature": float(temp)})
+    energy = ham.energy(x) / n
+    info: dict[str, Any] = {"energy_anneal": energy, "steps": int(temps.size)}
+    if polish:
+        pol = polish_point(ham, x, check=True)
+        x, energy = pol.x, pol.energy
+        info["polish"] = pol.info
+        for key in ("grad_norm", "n_positive", "top_eigenvalue", "local_max"):
+            info[key] = pol.info[key]
+    _add_theory(ham, info, energy)
+    config = base_config(
+        ham,
+        "anneal",
+        seed=seed,
+        steps=int(temps.size),
+        eta=eta,
+        t_start=float(temps[0]),
+        t_end=float(temps[-1]),
+        schedule=temps.tolist(),
+        polish=bool(polish),
+    )
+    path = {k: np.asarray(v) for k, v in rows.items()}
+    path["step"] = path["step"].astype(np.int64)
+    return Result(x, energy, path, config, time.perf_counter() - start, info)
+
+
+def _add_theory(ham: Hamiltonian, info: dict[str, Any], energy: float) -> None:
+    if ham.mixture is not None:
+        from ..theory import algorithmic_energy
+
+        alg = algorithmic_energy(ham.mixture)
+        info["alg"] = alg
+        info["alg_gap"] = energy - alg

@@ -1,0 +1,299 @@
+"""Hessian ascent (arXiv:1812.04588; SPEC section 5): climb from near the origin to the unit
+sphere by orthogonal steps along the top eigenvector of the tangent Hessian.
+
+Without a field (no p = 1 term). Start at x_0 of norm 1/sqrt(K) in a seeded uniformly random
+direction. Step i = 0..K-2, at x = x_i with u = x/|x|:
+
+1. M = Hess H(x) (one pass of the Rust kernel), projected: M_T = P M P, P = I - u u^T;
+2. v = top eigenvector of M_T by Lanczos (``eigsh``), warm-started from the previous step's v,
+   stopped when its Rayleigh quotient is within delta n of the top eigenvalue (see ``_eigen``);
+3. flip v if <grad H(x), v> < 0;  x_{i+1} = x_i + v/sqrt(K).
+
+The steps are orthogonal to x, so |x_{i+1}|^2 = |x_i|^2 + 1/K = (i + 2)/K and |x_{K-1}| = 1.
+The step gains H(x + v/sqrt K) - H(x) ~ <grad H, v>/sqrt K + v.M v/(2K); with the top tangent
+eigenvalue ~ 2 sqrt(xi''(q)) n (``hessian_edge``) the energy per spin follows
+E_path(q) = int_0^q sqrt(xi''(s)) ds (``path_energy``) up to ALG at q = 1.
+
+Scaling check (pure p = 2, gamma = 1): H(x) = x.A x with A symmetric, A_ii = a_ii of variance
+n and A_ij = a_ij/2 of variance n/2 (i < j), so A is a Wigner matrix with semicircle radius
+2 sqrt(n * n/2) = sqrt(2) n; Hess H = 2A, whose top eigenvalue per spin is 2 sqrt(2) =
+2 sqrt(xi''(q)) with xi'' = 2: ``eigenvalue`` and ``predicted_edge`` share units (per spin, of
+Hess H itself, not of H/n's Hessian times n). Verified numerically in the tests.
+
+With a field (a p = 1 term). Let q_hat be the root of q xi''(q) = xi'(q)
+(``algorithmic_threshold``). On the sphere of radius sqrt(q) the restricted polynomial has
+mixture r -> xi(q r), whose maximum is the replica-symmetric value sqrt(q xi'(q)) for
+q <= q_hat, and the landscape there is dominated by the field (from memory: a field with
+xi_q''(1) <= xi_q'(1) leaves a single maximum up to lower-order effects). So stage 1 maximizes H on
+the sphere of radius sqrt(q_hat) by Riemannian gradient ascent started from the field direction,
+reaching about sqrt(q_hat xi'(q_hat)) = E_path(q_hat); stage 2 takes K - 1 Hessian steps of
+length sqrt((1 - q_hat)/(K - 1)) from there to the unit sphere (the increments stay orthogonal to
+x, so the last one lands on |x| = 1). The energy reached is compared with ALG in
+``info["alg_gap"]``; at q = q_hat the restricted maximum is only marginally stable, so stage 1
+converges slowly and is capped (``first_stage_iter``), which costs a little energy at finite n.
+
+Cost. Each stage-2 step costs one Hessian pass plus O(n^2) for the projection and a few dozen
+dense matrix-vector products for Lanczos. When at most one degree >= 3 is present, the energy
+and the gradient are read off the same Hessian (exact Euler identities, see ``_sphere``); with
+degrees <= 2 the Hessian is constant and computed once. Otherwise one extra energy-and-gradient
+pass per step is needed. BLAS runs single-threaded during the loop (``threadpoolctl``): the
+dense products of Lanczos are small, and OpenBLAS threads that busy-wait after a call would
+otherwise steal the cores of the next Rust pass.
+
+Hessian or Hessian-vector products (``hessian="auto"``). One HVP costs almost a Hessian pass
+(measured at n = 800, p = 3: 0.07 s against 0.08 s on 2 cores), and Lanczos needs at least ten
+products, so the dense Hessian is used whenever it fits: the kernel's accumulators
+(``Hamiltonian.hessian_workspace_nbytes``) plus four working n x n copies at most half the
+available memory. Beyond that the matrix-free ``hessian_operator`` is used (each Lanczos
+iteration one pass; much slower).
+"""
+
+from __future__ import annotations
+
+import math
+import time
+from collections.abc import Callable
+from typing import Any
+
+import numpy as np
+from scipy.sparse.linalg import LinearOperator
+from threadpoolctl import threadpool_limits
+
+from ..model.hamiltonian import Hamiltonian
+from ..model.memory import available_memory
+from ..theory import algorithmic_energy, algorithmic_threshold, hessian_edge, path_energy
+from ._checks import check_count, check_ham, check_positive, check_seed
+from ._config import base_config
+from ._eigen import project_matrix_inplace, top_tangent_eigenpair
+from ._riemannian import sphere_ascent
+from ._sphere import HessianReader, project_tangent, random_unit
+from .polish import polish as polish_point
+from .result import Result
+
+__all__ = ["hessian_ascent"]
+
+HESSIAN_MODES = ("auto", "dense", "operator")
+_WORKING_COPIES = 4  # projected copy, eigen-solver workspace, slack
+_COLUMNS = (
+    "step",
+    "stage",
+    "q",
+    "energy",
+    "eigenvalue",
+    "first_order",
+    "predicted_energy",
+    "predicted_edge",
+    "t_hessian",
+    "t_gradient",
+    "t_eigen",
+)
+
+
+def _choose_mode(ham: Hamiltonian, mode: str) -> str:
+    if mode not in HESSIAN_MODES:
+        raise ValueError(f"hessian must be one of {HESSIAN_MODES}, got {mode!r}")
+    if mode != "auto":
+        return mode
+    if max(ham.degrees) <= 2:
+        return "dense"
+    need = ham.hessian_workspace_nbytes + _WORKING_COPIES * ham.n * ham.n * 8
+    return "dense" if need <= available_memory() // 2 else "operator"
+
+
+def _tangent_operator(ham: Hamiltonian, x: np.ndarray, u: np.ndarray) -> LinearOperator:
+    n = ham.n
+
+    def matvec(v: np.ndarray) -> np.ndarray:
+        pv = project_tangent(np.ravel(v), u)
+        return project_tangent(ham.hvp(x, pv), u)
+
+    return LinearOperator((n, n), matvec=matvec, rmatvec=matvec, dtype=np.float64)
+
+
+def _first_stage(ham: Hamiltonian, q_hat: float, max_iter: int) -> tuple[np.ndarray, dict]:
+    """Maximize H on |x| = sqrt(q_hat) from the field direction (see the module doc)."""
+    h = ham.coefficients(1)
+    start = h / np.linalg.norm(h)
+    trace = sphere_ascent(ham, start, radius=math.sqrt(q_hat), gtol=1e-8, max_iter=max_iter)
+    return trace.x, {
+        "q_hat": q_hat,
+        "energy": trace.energy,
+        "grad_norm": trace.grad_norm,
+        "iterations": trace.iterations,
+        "passes": trace.passes,
+        "status": trace.status,
+        "seconds": trace.seconds,
+    }
+
+
+def hessian_ascent(
+    ham: Hamiltonian,
+    steps: int = 200,
+    tol: float = 1e-3,
+    seed: int = 0,
+    polish: bool = True,
+    callback: Callable[[dict[str, Any]], Any] | None = None,
+    hessian: str = "auto",
+    first_stage_iter: int = 400,
+) -> Result:
+    """Run Hessian ascent on ``ham`` with K = ``steps`` and eigen tolerance delta = ``tol``.
+
+    Parameters: ``steps`` K >= 1 (K - 1 Hessian steps); ``tol`` delta > 0, the accepted gap
+    between the Rayleigh quotient of the step direction and the top tangent eigenvalue, per spin
+    (each step then loses at most delta/(2K) energy per spin, the whole run at most delta/2);
+    ``seed`` the start direction (and the first Lanczos start vector); ``polish`` finish with
+    :func:`orthoclimb.polish` and the local-maximum check; ``callback(row)`` is called after
+    every step with the path row (a dict); ``hessian`` "auto", "dense" or "operator" (see the
+    module doc); ``first_stage_iter`` caps stage 1 with a field.
+
+    Returns a :class:`Result`: ``energy`` per spin at the final (polished) point, ``path`` with
+    one row per visited point: ``step``, ``stage`` (1 = field stage, 2 = Hessian steps), ``q`` =
+    |x|^2, ``energy`` H(x)/n, ``eigenvalue`` (top tangent eigenvalue of Hess H(x), per spin),
+    ``first_order`` <grad H(x), v>/n after the sign choice, ``predicted_energy`` E_path(q),
+    ``predicted_edge`` 2 sqrt(xi''(q)), and the seconds of the Hessian pass (``t_hessian``),
+    the extra gradient pass if any (``t_gradient``) and the eigen-solve (``t_eigen``). The last
+    row is the end point (no eigen-solve there: NaN).
+    """
+    ham = check_ham(ham, "hessian_ascent")
+    k = check_count(steps, "steps")
+    delta = check_positive(tol, "tol")
+    seed = check_seed(seed)
+    if not isinstance(polish, (bool, np.bool_)):
+        raise TypeError(f"polish must be True or False, got {polish!r}")
+    if callback is not None and not callable(callback):
+        raise TypeError(f"callback must be callable or None, got {callback!r}")
+    first_stage_iter = check_count(first_stage_iter, "first_stage_iter", minimum=0)
+    mode = _choose_mode(ham, hessian)
+    n = ham.n
+    mixture = ham.mixture
+    t_start = time.perf_counter()
+    rng = np.random.default_rng(seed)
+    reader = HessianReader(ham) if mode == "dense" else None
+    constant = reader.constant if (reader is not None and reader.constant_only) else None
+    if constant is None and reader is not None and max(ham.degrees) <= 2:
+        constant = np.zeros((n, n))  # a pure field: Hess H = 0
+
+    info: dict[str, Any] = {"hessian_mode": mode}
+    q_hat = algorithmic_threshold(mixture) if mixture is not None else 0.0
+    if 1 in ham.degrees and mixture is None:
+        info["note"] = "given coefficients: no mixture, so no q_hat and no first stage"
+    rows: dict[str, list] = {c: [] for c in _COLUMNS}
+
+    def add_row(**row: Any) -> None:
+        for c in _COLUMNS:
+            rows[c].append(row.get(c, math.nan))
+
+    if q_hat > 0.0:
+        x, info["first_stage"] = _first_stage(ham, q_hat, first_stage_iter)
+        info["first_stage"]["predicted"] = float(path_energy(mixture, q_hat))
+        stage = 1
+    else:
+        x = random_unit(n, rng) / math.sqrt(k)
+        stage = 2
+    n_moves = k - 1
+    eps = math.sqrt(max(1.0 - float(x @ x), 0.0) / n_moves) if n_moves > 0 else 0.0
+    v_prev = None
+    theta_scale = None
+    fallbacks = 0
+    with threadpool_limits(limits=1, user_api="blas"):
+        for i in range(n_moves + 1):
+            t0 = time.perf_counter()
+            t_grad = 0.0
+            if mode == "dense":
+                hess = constant.copy() if constant is not None else ham.hessian(x)
+                t1 = time.perf_counter()
+                energy, grad = reader.energy_gradient(x, hess)
+                t_grad = time.perf_counter() - t1
+            t_hess = time.perf_counter() - t0 - t_grad
+            if i == n_moves:  # the end point: its energy only
+                if mode != "dense":
+                    energy = ham.energy(x)
+                add_row(step=i, stage=stage, q=float(x @ x), energy=energy / n)
+                break
+            if mode != "dense":
+                t1 = time.perf_counter()
+                energy, grad = ham.energy_and_gradient(x)
+                t_grad = time.perf_counter() - t1
+            u = x / np.linalg.norm(x)
+            t2 = time.perf_counter()
+            if mode == "dense":
+                op = project_matrix_inplace(hess, u)
+                if theta_scale is None:
+                    theta_scale = float(np.linalg.norm(op))
+            else:
+                op = _tangent_operator(ham, x, u)
+                if theta_scale is None:
+                    theta_scale = float(np.linalg.norm(grad)) + 1.0
+            v0 = random_unit(n, rng) if v_prev is None else v_prev
+            v0 = project_tangent(v0, u)
+            rel_tol = min(0.1, delta * n / max(theta_scale, 1e-300))
+            theta, v, fell_back = top_tangent_eigenpair(op, u, v0, rel_tol)
+            t_eig = time.perf_counter() - t2
+            fallbacks += fell_back
+            theta_scale = max(abs(theta), 1e-12 * n)
+            first = float(grad @ v)
+            if first < 0.0:
+                v, first = -v, -first
+            add_row(
+                step=i,
+                stage=stage,
+                q=float(x @ x),
+                energy=energy / n,
+                eigenvalue=theta / n,
+                first_order=first / n,
+                t_hessian=t_hess,
+                t_gradient=t_grad,
+                t_eigen=t_eig,
+            )
+            if callback is not None:
+                callback({c: rows[c][-1] for c in _COLUMNS})
+            x = x + eps * v
+            v_prev = v
+            stage = 2
+    ascent_seconds = time.perf_counter() - t_start
+
+    path = {c: np.asarray(rows[c], dtype=np.float64) for c in _COLUMNS}
+    path["step"] = path["step"].astype(np.int64)
+    path["stage"] = path["stage"].astype(np.int64)
+    qs = np.clip(path["q"], 0.0, 1.0)
+    if mixture is not None:
+        path["predicted_energy"] = np.asarray(path_energy(mixture, qs), dtype=np.float64)
+        path["predicted_edge"] = np.asarray(hessian_edge(mixture, qs), dtype=np.float64)
+    norm = float(np.linalg.norm(x))
+    x = x / norm
+    e_ascent = float(path["energy"][-1])
+    info.update(
+        {
+            "energy_ascent": e_ascent,
+            "final_norm": norm,
+            "eigen_fallbacks": fallbacks,
+            "ascent_seconds": ascent_seconds,
+            "hessian_seconds": float(np.sum(path["t_hessian"][:-1])),
+            "gradient_seconds": float(np.sum(path["t_gradient"][:-1])),
+            "eigen_seconds": float(np.sum(path["t_eigen"][:-1])),
+            "energy_gradient_from_hessian": bool(reader is not None and reader.exact),
+        }
+    )
+    if mixture is not None:
+        alg = algorithmic_energy(mixture)
+        info["alg"] = alg
+        info["q_hat"] = q_hat
+        info["alg_gap"] = e_ascent - alg
+    energy = e_ascent
+    if polish:
+        pol = polish_point(ham, x, check=True)
+        x, energy = pol.x, pol.energy
+        info["polish"] = pol.info
+        info.update({k_: pol.info[k_] for k_ in ("n_positive", "top_eigenvalue", "local_max")})
+        info["grad_norm"] = pol.info["grad_norm"]
+    config = base_config(
+        ham,
+        "hessian",
+        steps=k,
+        tol=delta,
+        seed=seed,
+        polish=bool(polish),
+        hessian=hessian,
+        first_stage_iter=first_stage_iter,
+    )
+    return Result(x, energy, path, config, time.perf_counter() - t_start, info)

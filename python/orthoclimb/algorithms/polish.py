@@ -1,0 +1,130 @@
+"""Polishing a point to a near-critical point of the energy on the unit sphere, and checking
+whether it is a local maximum.
+
+:func:`polish` runs the Riemannian gradient ascent of :mod:`._riemannian` (Barzilai-Borwein
+steps, nonmonotone Armijo test, retraction x -> x/|x|) until |P grad H(x)|/n <= gtol.
+
+Local-maximum check (:func:`tangent_spectrum`). On the unit sphere the Riemannian Hessian of H at
+x is the tangent restriction of
+
+    Hess_S H(x) = P (Hess H(x) - (x . grad H(x)) I) P,     P = I - x x^T,
+
+(the second term is the curvature of the sphere: along a geodesic x cos t + v sin t,
+d^2/dt^2 H = v.Hess H v - x.grad H). x is a strict local maximum when all n - 1 tangent
+eigenvalues are negative at a critical point, so the check reports how many are positive
+(0 = local maximum) and the largest one per spin. It uses one Hessian pass and
+``scipy.linalg.eigvalsh`` for n <= 3000 (all n - 1 eigenvalues) and otherwise ``eigsh``
+(Lanczos) for the top 10 only, in which case a count of 10 means "at least 10". The radial
+direction is moved out of the way by giving it the eigenvalue -(|Hess H| + |x.grad H| + 1) * n.
+An eigenvalue counts as positive when it exceeds 1e-9 n (rounding level of the kernels).
+"""
+
+from __future__ import annotations
+
+import time
+from typing import Any
+
+import numpy as np
+import scipy.linalg
+from scipy.sparse.linalg import eigsh
+
+from ..model.hamiltonian import Hamiltonian
+from ._checks import check_count, check_ham, check_positive, check_unit_start
+from ._config import base_config
+from ._riemannian import sphere_ascent
+from .result import Result
+
+__all__ = ["polish", "tangent_spectrum"]
+
+DENSE_EIGVALS_MAX_N = 3000
+LANCZOS_TOP = 10
+POSITIVE_THRESHOLD = 1e-9  # per spin
+
+
+def tangent_spectrum(ham: Hamiltonian, x: Any) -> dict[str, Any]:
+    """Local-maximum check at x (normalized to |x| = 1), see the module doc.
+
+    Returns ``n_positive`` (positive tangent eigenvalues of the Riemannian Hessian; 0 means a
+    local maximum when x is critical), ``top_eigenvalue`` (the largest, per spin),
+    ``exhaustive`` (False when only the top ``LANCZOS_TOP`` were computed) and ``grad_norm``
+    (|P grad H|/n).
+    """
+    ham = check_ham(ham, "tangent_spectrum")
+    n = ham.n
+    x = check_unit_start(x, n)
+    hess = ham.hessian(x)
+    _e, g = ham.energy_and_gradient(x)
+    radial = float(x @ g)
+    tangent_grad = g - radial * x
+    # A = P Hess P - radial P - big x x^T  =  Hess - x w^T - w x^T + c x x^T - radial I.
+    w = hess @ x
+    a = float(x @ w)
+    big = (float(np.abs(hess).sum(axis=1).max()) + abs(radial) + 1.0) * n
+    c = a - big + radial
+    hess -= np.outer(x, w) + np.outer(w, x) - c * np.outer(x, x)
+    hess[np.diag_indices(n)] -= radial
+    hess = 0.5 * (hess + hess.T)
+    if n <= DENSE_EIGVALS_MAX_N:
+        vals = scipy.linalg.eigvalsh(hess)
+        exhaustive = True
+    else:
+        vals = eigsh(hess, k=LANCZOS_TOP, which="LA", tol=1e-8, return_eigenvectors=False)
+        exhaustive = False
+    vals = np.sort(vals)[::-1]
+    return {
+        "n_positive": int(np.count_nonzero(vals > POSITIVE_THRESHOLD * n)),
+        "top_eigenvalue": float(vals[0]) / n,
+        "exhaustive": exhaustive,
+        "grad_norm": float(np.linalg.norm(tangent_grad)) / n,
+    }
+
+
+def polish(
+    ham: Hamiltonian,
+    x: Any,
+    gtol: float = 1e-7,
+    max_iter: int = 2000,
+    check: bool = True,
+) -> Result:
+    """Riemannian gradient ascent of e = H/n on the unit sphere from x to a near-critical point.
+
+    ``gtol`` bounds the final tangent-gradient norm |P grad H(x)|/n (per-spin units);
+    ``max_iter`` bounds the iterations (each costs one energy-and-gradient pass, plus one per
+    backtracking halving). With ``check=True`` the local-maximum check of
+    :func:`tangent_spectrum` is run at the end (one Hessian pass and an eigenvalue solve).
+
+    The result's ``path`` has columns ``iteration``, ``energy`` (per spin), ``grad_norm`` and
+    ``alpha`` (accepted step); ``info`` has ``grad_norm``, ``status`` ("converged", "stalled" =
+    no progress at rounding level, or "max_iter"), ``iterations``, ``passes``,
+    ``energy_start`` and, with the check, ``n_positive``, ``top_eigenvalue``, ``local_max``.
+    """
+    ham = check_ham(ham, "polish")
+    x0 = check_unit_start(x, ham.n)
+    gtol = check_positive(gtol, "gtol")
+    max_iter = check_count(max_iter, "max_iter", minimum=0)
+    start = time.perf_counter()
+    e_start = ham.energy(x0) / ham.n
+    trace = sphere_ascent(ham, x0, gtol=gtol, max_iter=max_iter)
+    info: dict[str, Any] = {
+        "energy_start": e_start,
+        "grad_norm": trace.grad_norm,
+        "status": trace.status,
+        "iterations": trace.iterations,
+        "passes": trace.passes + 1,
+    }
+    if check:
+        info.update(local_max_info(ham, trace.x))
+    config = base_config(ham, "polish", gtol=gtol, max_iter=max_iter)
+    path = {k: np.asarray(v) for k, v in trace.rows.items()}
+    return Result(trace.x, trace.energy, path, config, time.perf_counter() - start, info)
+
+
+def local_max_info(ham: Hamiltonian, x: np.ndarray) -> dict[str, Any]:
+    """The :func:`tangent_spectrum` fields plus ``local_max`` (no positive eigenvalue)."""
+    spec = tangent_spectrum(ham, x)
+    return {
+        "n_positive": spec["n_positive"],
+        "top_eigenvalue": spec["top_eigenvalue"],
+        "spectrum_exhaustive": spec["exhaustive"],
+        "local_max": spec["n_positive"] == 0,
+    }

@@ -1,0 +1,184 @@
+"""The result of a run, and its files.
+
+``result.save("runs/a")`` writes two files atomically (temporary file, then rename):
+
+* ``runs/a.json``: ``{"format": "orthoclimb-result", "format_version": 1, "sha256": ...,
+  "payload": {...}}``. The payload holds the summary (energy per spin, seconds, info), the full
+  configuration, the per-step path table (one list per column) and the SHA-256 and shape of x.
+  ``sha256`` is the hex digest of the payload serialized canonically (``json.dumps`` with sorted
+  keys and separators ``(",", ":")``, UTF-8), so any edit or truncation is detected.
+* ``runs/a.npz``: the final point ``x`` (float64, |x| = 1).
+
+:func:`load_result` reads both back and checks format, version, checksum, and that x matches its
+recorded digest; any failure is a ValueError that names the file and the problem.
+"""
+
+from __future__ import annotations
+
+import hashlib
+import json
+import math
+import os
+import zipfile
+from dataclasses import dataclass, field
+from pathlib import Path
+from typing import Any
+
+import numpy as np
+
+from ..fileio import write_atomic, write_json_atomic
+
+__all__ = ["FORMAT_VERSION", "Result", "load_result"]
+
+FORMAT = "orthoclimb-result"
+FORMAT_VERSION = 1
+
+
+def _plain(value: Any) -> Any:
+    """JSON-ready copy: NumPy scalars and arrays become Python numbers and lists."""
+    if isinstance(value, dict):
+        return {str(k): _plain(v) for k, v in value.items()}
+    if isinstance(value, (list, tuple)):
+        return [_plain(v) for v in value]
+    if isinstance(value, np.ndarray):
+        return _plain(value.tolist())
+    if isinstance(value, (np.bool_, bool)):
+        return bool(value)
+    if isinstance(value, np.integer):
+        return int(value)
+    if isinstance(value, np.floating):
+        return float(value)
+    return value
+
+
+def _digest(payload: Any) -> str:
+    text = json.dumps(payload, sort_keys=True, separators=(",", ":"), allow_nan=True)
+    return hashlib.sha256(text.encode("utf-8")).hexdigest()
+
+
+def _x_digest(x: np.ndarray) -> str:
+    return hashlib.sha256(np.ascontiguousarray(x, dtype="<f8").tobytes()).hexdigest()
+
+
+def _stem(path: str | os.PathLike) -> Path:
+    p = Path(path)
+    return p.with_suffix("") if p.suffix in (".json", ".npz") else p
+
+
+@dataclass
+class Result:
+    """What an algorithm returns.
+
+    Attributes: ``x`` the final unit vector (|x| = 1), ``energy`` the energy per spin H(x)/n at
+    x, ``path`` the per-step table (column name -> 1-D NumPy array), ``config`` everything needed
+    to reproduce the run (mixture, n, seeds, steps, tol, dtype, version, threads, kernel path,
+    method), ``seconds`` the wall-clock time of the run, ``info`` method-specific diagnostics
+    (polish outcome, local-maximum check, ALG reached or not, ...).
+    """
+
+    x: np.ndarray
+    energy: float
+    path: dict[str, np.ndarray]
+    config: dict[str, Any]
+    seconds: float
+    info: dict[str, Any] = field(default_factory=dict)
+
+    @property
+    def method(self) -> str:
+        return str(self.config.get("method", "?"))
+
+    def summary(self) -> dict[str, Any]:
+        """The JSON-ready summary: energy, seconds, method, config and info (no path table)."""
+        return _plain(
+            {
+                "method": self.method,
+                "energy": self.energy,
+                "seconds": self.seconds,
+                "config": self.config,
+                "info": self.info,
+            }
+        )
+
+    def payload(self) -> dict[str, Any]:
+        x = np.asarray(self.x, dtype=np.float64)
+        return {
+            **self.summary(),
+            "path": _plain({k: np.asarray(v) for k, v in self.path.items()}),
+            "x_sha256": _x_digest(x),
+            "x_shape": list(x.shape),
+        }
+
+    def save(self, path: str | os.PathLike) -> tuple[Path, Path]:
+        """Write ``<stem>.json`` and ``<stem>.npz`` atomically (a ``.json``/``.npz`` suffix on
+        ``path`` is dropped to get the stem). Returns the two paths."""
+        stem = _stem(path)
+        payload = self.payload()
+        doc = {
+            "format": FORMAT,
+            "format_version": FORMAT_VERSION,
+            "sha256": _digest(payload),
+            "payload": payload,
+        }
+        npz_path = stem.with_name(stem.name + ".npz")
+        json_path = stem.with_name(stem.name + ".json")
+        x = np.asarray(self.x, dtype=np.float64)
+        write_atomic(npz_path, lambda fh: np.savez(fh, x=x))
+        write_json_atomic(json_path, doc)
+        return json_path, npz_path
+
+    def __repr__(self) -> str:
+        steps = len(next(iter(self.path.values()))) if self.path else 0
+        return (
+            f"Result(method={self.method!r}, n={self.config.get('n')}, "
+            f"energy={self.energy:.6f}, rows={steps}, seconds={self.seconds:.3g})"
+        )
+
+
+def _fail(path: Path, why: str) -> ValueError:
+    return ValueError(f"cannot load the result {str(path)!r}: {why}")
+
+
+def load_result(path: str | os.PathLike) -> Result:
+    """Read a result written by :meth:`Result.save` (give the stem or either file name)."""
+    stem = _stem(path)
+    json_path = stem.with_name(stem.name + ".json")
+    npz_path = stem.with_name(stem.name + ".npz")
+    try:
+        text = json_path.read_text(encoding="utf-8")
+    except FileNotFoundError:
+        raise _fail(json_path, "file not found") from None
+    except UnicodeDecodeError:
+        raise _fail(json_path, "not UTF-8 text (corrupted?)") from None
+    try:
+        doc = json.loads(text)
+    except json.JSONDecodeError as exc:
+        raise _fail(json_path, f"not valid JSON (truncated or corrupted?): {exc}") from None
+    if not isinstance(doc, dict) or doc.get("format") != FORMAT:
+        raise _fail(json_path, f"not an orthoclimb result (format is not {FORMAT!r})")
+    version = doc.get("format_version")
+    if version != FORMAT_VERSION:
+        raise _fail(
+            json_path, f"format version {version!r}, this orthoclimb reads {FORMAT_VERSION}"
+        )
+    payload = doc.get("payload")
+    if not isinstance(payload, dict) or _digest(payload) != doc.get("sha256"):
+        raise _fail(json_path, "checksum mismatch: the file was modified or corrupted")
+    try:
+        with np.load(npz_path, allow_pickle=False) as data:
+            x = np.array(data["x"], dtype=np.float64)
+    except FileNotFoundError:
+        raise _fail(npz_path, "file not found") from None
+    except (OSError, ValueError, KeyError, EOFError, zipfile.BadZipFile) as exc:
+        raise _fail(npz_path, f"unreadable (truncated or corrupted?): {exc}") from None
+    if list(x.shape) != payload.get("x_shape") or _x_digest(x) != payload.get("x_sha256"):
+        raise _fail(npz_path, "x does not match the digest recorded in the JSON file")
+    path_table = {k: np.asarray(v) for k, v in payload.get("path", {}).items()}
+    energy = payload["energy"]
+    return Result(
+        x=x,
+        energy=float(energy) if energy is not None else math.nan,
+        path=path_table,
+        config=payload["config"],
+        seconds=float(payload["seconds"]),
+        info=payload.get("info", {}),
+    )

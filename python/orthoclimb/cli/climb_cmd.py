@@ -1,0 +1,199 @@
+"""``orthoclimb climb``: run one algorithm on one sampled instance and compare with the theory.
+
+Before sampling it prints the memory the instance needs; after sampling it times one kernel
+pass on the instance and prints an estimate of the run time (steps x that pass, plus the
+polish). A tqdm progress bar shows step, q = |x|^2 and the energy per spin. At the end it
+prints the energy per spin, ALG, the Parisi ground state GS (when the solver converges), the
+gaps, the local-maximum check and the time, and writes into ``--out``: ``result.json`` and
+``result.npz`` (see :meth:`orthoclimb.Result.save`) and ``path.png`` (energy along the path vs
+the predicted curve, top tangent eigenvalue vs the predicted edge). ``--json`` prints the summary
+as JSON instead of the table. Energies are per spin, maximization convention.
+"""
+
+from __future__ import annotations
+
+import argparse
+import json
+import math
+import time
+from pathlib import Path
+from typing import Any
+
+import numpy as np
+
+from ..model import Hamiltonian, Mixture, estimate_memory
+from ..model.memory import format_bytes, require_memory
+from ..runtime import get_num_threads, kernel_path, set_num_threads
+
+__all__ = ["add_arguments", "run"]
+
+METHODS = ("hessian", "gradient", "anneal")
+
+
+def add_arguments(parser: argparse.ArgumentParser) -> None:
+    which = parser.add_mutually_exclusive_group(required=True)
+    which.add_argument("--gammas", metavar="P:G,...", help="mixture as p:gamma_p pairs, e.g. 3:1")
+    which.add_argument("--xi", metavar="P:C,...", help="mixture as p:gamma_p^2 pairs (xi)")
+    parser.add_argument("--n", type=int, required=True, help="number of spins")
+    parser.add_argument("--seed", type=int, default=0, help="disorder seed (default 0)")
+    parser.add_argument(
+        "--start-seed", type=int, default=0, help="seed of the start point / noise (default 0)"
+    )
+    parser.add_argument("--method", choices=METHODS, default="hessian", help="default hessian")
+    parser.add_argument(
+        "--steps",
+        type=int,
+        default=None,
+        help="hessian: K (default 200); gradient: max iterations (default 2000); "
+        "anneal: Langevin steps (default 400)",
+    )
+    parser.add_argument(
+        "--tol", type=float, default=1e-3, help="hessian: eigen tolerance delta (default 1e-3)"
+    )
+    parser.add_argument("--no-polish", action="store_true", help="skip the final polish")
+    parser.add_argument("--dtype", choices=("float64", "float32"), default="float64")
+    parser.add_argument("--threads", type=int, default=None, help="kernel worker threads")
+    parser.add_argument("--out", default="orthoclimb-climb", help="output folder")
+    parser.add_argument("--json", action="store_true", help="print the summary as JSON")
+    parser.add_argument("--no-progress", action="store_true", help="no progress bar")
+
+
+def _time_pass(ham: Hamiltonian, method: str) -> float:
+    x = np.full(ham.n, 1.0 / math.sqrt(ham.n))
+    fn = ham.hessian if method == "hessian" else ham.energy_and_gradient
+    best = math.inf
+    for _ in range(2):
+        t = time.perf_counter()
+        fn(x)
+        best = min(best, time.perf_counter() - t)
+    return best
+
+
+def _ground_state(mixture: Mixture) -> float | None:
+    from ..theory import ground_state
+
+    try:
+        gs = ground_state(mixture)
+    except (ValueError, RuntimeError):
+        return None
+    return float(gs.value) if gs.converged else None
+
+
+def _summary(result: Any, gs: float | None, files: dict[str, str]) -> dict[str, Any]:
+    info = result.info
+    out = {
+        "method": result.method,
+        "energy": result.energy,
+        "alg": info.get("alg"),
+        "ground_state": gs,
+        "gap_to_alg": result.energy - info["alg"] if info.get("alg") is not None else None,
+        "gap_to_ground_state": result.energy - gs if gs is not None else None,
+        "local_max": info.get("local_max"),
+        "n_positive": info.get("n_positive"),
+        "grad_norm": info.get("grad_norm"),
+        "seconds": result.seconds,
+        "files": files,
+        "units": "energy per spin H(x)/n on the unit sphere, maximization",
+    }
+    if result.method == "hessian":
+        out["energy_before_polish"] = info["energy_ascent"]
+        out["q_hat"] = info.get("q_hat")
+    return out
+
+
+def _table(s: dict[str, Any]) -> str:
+    def num(v: Any) -> str:
+        return "unknown" if v is None else f"{v:.6f}"
+
+    rows = [("method", s["method"]), ("energy per spin", num(s["energy"]))]
+    if "energy_before_polish" in s:
+        rows.append(("  before polish", num(s["energy_before_polish"])))
+    rows += [
+        ("ALG", num(s["alg"])),
+        ("GS (Parisi)", num(s["ground_state"])),
+        ("energy - ALG", num(s["gap_to_alg"])),
+        ("energy - GS", num(s["gap_to_ground_state"])),
+    ]
+    if s["local_max"] is not None:
+        verdict = "yes" if s["local_max"] else f"no ({s['n_positive']} positive eigenvalues)"
+        rows.append(("local maximum", f"{verdict}; |P grad H|/n = {s['grad_norm']:.1e}"))
+    rows.append(("time", f"{s['seconds']:.2f} s"))
+    for k, v in s["files"].items():
+        rows.append((k, v))
+    width = max(len(k) for k, _ in rows)
+    return "\n".join(f"{k.ljust(width)}  {v}" for k, v in rows)
+
+
+def run(args: argparse.Namespace) -> int:
+    from ..algorithms import gradient_ascent, hessian_ascent, langevin_anneal
+    from ..algorithms.baselines import geometric_schedule
+    from ..algorithms.plotting import plot_result
+
+    text = args.gammas if args.gammas is not None else args.xi
+    mixture = Mixture.parse(text, squared=args.xi is not None)
+    if args.threads is not None:
+        set_num_threads(args.threads)
+    if args.n < 1:
+        raise ValueError(f"--n must be >= 1, got {args.n}")
+    default_steps = {"hessian": 200, "gradient": 2000, "anneal": 400}[args.method]
+    steps = default_steps if args.steps is None else args.steps
+    if steps < 1:
+        raise ValueError(f"--steps must be >= 1, got {steps}")
+    if not (math.isfinite(args.tol) and args.tol > 0):
+        raise ValueError(f"--tol must be a positive number, got {args.tol!r}")
+    say = (lambda *a: None) if args.json else print
+    need = estimate_memory(mixture, args.n, args.dtype)
+    say(
+        f"instance: {mixture!r}, n = {args.n}, seed = {args.seed}, {args.dtype}: "
+        f"{format_bytes(need)} of coefficients; {get_num_threads()} threads, {kernel_path()}"
+    )
+    require_memory(need, f"an instance of {mixture!r} with n = {args.n}")
+    ham = Hamiltonian.sample(mixture, args.n, args.seed, dtype=args.dtype)
+    one = _time_pass(ham, args.method)
+    what = "Hessian" if args.method == "hessian" else "gradient"
+    say(f"one {what} pass: {one * 1e3:.1f} ms; estimated run time {1.3 * steps * one:.1f} s")
+
+    from tqdm import tqdm
+
+    total = steps - 1 if args.method == "hessian" else steps
+    bar = tqdm(total=total, disable=args.no_progress or args.json, unit="step", leave=False)
+
+    def progress(row: dict[str, Any]) -> None:
+        bar.update(1)
+        bar.set_postfix(step=row["step"], q=f"{row['q']:.3f}", energy=f"{row['energy']:.4f}")
+
+    polish = not args.no_polish
+    try:
+        if args.method == "hessian":
+            result = hessian_ascent(
+                ham,
+                steps=steps,
+                tol=args.tol,
+                seed=args.start_seed,
+                polish=polish,
+                callback=progress,
+            )
+        elif args.method == "gradient":
+            result = gradient_ascent(ham, seed=args.start_seed, max_iter=steps, callback=progress)
+        else:
+            result = langevin_anneal(
+                ham,
+                seed=args.start_seed,
+                schedule=geometric_schedule(1.0, 0.01, steps),
+                polish=polish,
+                callback=progress,
+            )
+    finally:
+        bar.close()
+    out = Path(args.out)
+    json_path, npz_path = result.save(out / "result")
+    png = out / "path.png"
+    plot_result(result, png)
+    files = {"result": str(json_path), "x": str(npz_path), "plot": str(png)}
+    summary = _summary(result, _ground_state(mixture), files)
+    if args.json:
+        print(json.dumps(summary, indent=2))
+    else:
+        print(_table(summary))
+        print("(energies per spin, maximization convention)")
+    return 0

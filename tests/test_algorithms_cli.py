@@ -1,0 +1,80 @@
+"""``orthoclimb climb`` end to end on small cases."""
+
+from __future__ import annotations
+
+import json
+
+import pytest
+
+import orthoclimb as oc
+from orthoclimb.cli import main
+
+
+def test_climb_hessian_writes_files(tmp_path, capsys):
+    out = tmp_path / "a"
+    code = main(
+        [
+            "climb",
+            "--gammas",
+            "3:1",
+            "--n",
+            "40",
+            "--seed",
+            "4",
+            "--method",
+            "hessian",
+            "--steps",
+            "20",
+            "--out",
+            str(out),
+            "--no-progress",
+        ]
+    )
+    assert code == 0
+    text = capsys.readouterr().out
+    assert "of coefficients" in text and "estimated run time" in text
+    assert "ALG" in text and "local maximum" in text
+    for name in ("result.json", "result.npz", "path.png"):
+        assert (out / name).stat().st_size > 0
+    res = oc.load_result(out / "result")
+    assert res.config["n"] == 40 and res.config["steps"] == 20
+
+
+@pytest.mark.parametrize("method", ["gradient", "anneal"])
+def test_climb_baselines_json(tmp_path, capsys, method):
+    out = tmp_path / method
+    code = main(
+        [
+            "climb",
+            "--xi",
+            "2:1,4:0.0625",
+            "--n",
+            "20",
+            "--method",
+            method,
+            "--steps",
+            "50",
+            "--out",
+            str(out),
+            "--json",
+            "--threads",
+            "1",
+        ]
+    )
+    assert code == 0
+    summary = json.loads(capsys.readouterr().out)
+    assert summary["method"] == method and summary["alg"] > 0
+    assert (out / "path.png").exists()
+
+
+@pytest.mark.parametrize(
+    "extra", [["--steps", "0"], ["--tol", "-1"], ["--n", "0"], ["--gammas", "9:1"]]
+)
+def test_climb_bad_input(tmp_path, capsys, extra):
+    args = ["climb", "--gammas", "3:1", "--n", "10", "--out", str(tmp_path)]
+    if extra[0] == "--gammas":
+        args[2] = extra[1]
+    else:
+        args += extra
+    assert main(args) == 2
+    assert "error" in capsys.readouterr().err

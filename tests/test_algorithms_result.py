@@ -1,0 +1,64 @@
+"""Result files: round trip, checksum, truncation."""
+
+from __future__ import annotations
+
+import json
+
+import numpy as np
+import pytest
+
+import orthoclimb as oc
+
+
+@pytest.fixture(scope="module")
+def result():
+    ham = oc.Hamiltonian.sample(oc.Mixture({3: 1.0}), 30, seed=1)
+    return oc.hessian_ascent(ham, steps=10, seed=2)
+
+
+def test_round_trip(result, tmp_path):
+    json_path, npz_path = result.save(tmp_path / "run")
+    assert json_path.name == "run.json" and npz_path.name == "run.npz"
+    back = oc.load_result(tmp_path / "run.json")
+    np.testing.assert_array_equal(back.x, result.x)
+    assert back.energy == result.energy
+    assert back.config == json.loads(json.dumps(result.config))
+    for k, v in result.path.items():
+        np.testing.assert_array_equal(back.path[k], v)
+    assert back.path["step"].dtype.kind == "i"
+    assert back.info["local_max"] == result.info["local_max"]
+    doc = json.loads(json_path.read_text())
+    assert doc["format_version"] == oc.algorithms.FORMAT_VERSION and len(doc["sha256"]) == 64
+
+
+def test_modified_json_fails(result, tmp_path):
+    json_path, _ = result.save(tmp_path / "run")
+    doc = json.loads(json_path.read_text())
+    doc["payload"]["energy"] += 0.1
+    json_path.write_text(json.dumps(doc))
+    with pytest.raises(ValueError, match="checksum"):
+        oc.load_result(json_path)
+
+
+def test_truncated_files_fail(result, tmp_path):
+    json_path, npz_path = result.save(tmp_path / "a")
+    text = json_path.read_text()
+    json_path.write_text(text[: len(text) // 2])
+    with pytest.raises(ValueError, match="truncated"):
+        oc.load_result(tmp_path / "a")
+    json_path, npz_path = result.save(tmp_path / "b")
+    data = npz_path.read_bytes()
+    npz_path.write_bytes(data[: len(data) // 2])
+    with pytest.raises(ValueError, match="npz"):
+        oc.load_result(tmp_path / "b")
+
+
+def test_wrong_version_and_missing(result, tmp_path):
+    json_path, _ = result.save(tmp_path / "c")
+    doc = json.loads(json_path.read_text())
+    doc["format_version"] = 99
+    json_path.write_text(json.dumps(doc))
+    with pytest.raises(ValueError, match="version"):
+        oc.load_result(json_path)
+    with pytest.raises(ValueError, match="not found"):
+        oc.load_result(tmp_path / "missing")

@@ -1,0 +1,48 @@
+"""Stability of the algorithms to a change of the disorder (correlated instances)."""
+
+from __future__ import annotations
+
+import numpy as np
+import pytest
+
+import orthoclimb as oc
+
+
+def test_hessian_ascent_stability():
+    # exact: at rho = 1 the instances coincide and a deterministic algorithm gives overlap 1;
+    # the overlap decreases as rho decreases (eigenvector steps are stable when the change,
+    # about sqrt(1 - rho^2) relative, is small against the edge gaps, about n^(-2/3))
+    rhos = [1.0, 1 - 1e-8, 1 - 1e-4, 0.9, 0.0]
+    st = oc.stability("hessian", oc.Mixture({3: 1.0}), 80, seed=3, rhos=rhos, steps=30)
+    assert st.overlaps[0] == pytest.approx(1.0, abs=1e-12)
+    assert st.overlaps[1] > 0.999
+    assert st.overlaps[1] >= st.overlaps[2] > st.overlaps[3]
+    assert abs(st.overlaps[4]) < 0.5
+    assert st.to_dict()["config"]["other_seed"] == 4
+
+
+def test_stability_validation():
+    mix = oc.Mixture({3: 1.0})
+    with pytest.raises(ValueError, match="rho"):
+        oc.stability("gradient", mix, 10, seed=1, rhos=[1.5])
+    with pytest.raises(ValueError, match="rho"):
+        oc.stability("gradient", mix, 10, seed=1, rhos=[float("nan")])
+    with pytest.raises(ValueError, match="other_seed"):
+        oc.stability("gradient", mix, 10, seed=1, rhos=[0.5], other_seed=1)
+    with pytest.raises(ValueError, match="algorithm"):
+        oc.stability("simplex", mix, 10, seed=1, rhos=[0.5])
+    with pytest.raises(TypeError, match="mixture"):
+        oc.stability("gradient", {3: 1.0}, 10, seed=1, rhos=[0.5])
+
+
+def test_stability_with_callable():
+    calls = []
+
+    def algo(ham):
+        calls.append(ham.correlated_with)
+        return oc.gradient_ascent(ham, seed=0)
+
+    st = oc.stability(algo, oc.Mixture({2: 1.0}), 30, seed=5, rhos=[1.0, 0.5])
+    assert calls == [None, (5, 1.0), (5, 0.5)]
+    assert st.overlaps[0] == pytest.approx(1.0, abs=1e-12)
+    assert np.all(np.abs(st.overlaps) <= 1.0 + 1e-12)
