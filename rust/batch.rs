@@ -1,18 +1,22 @@
 //! Batched kernels: b points (or k directions) in one pass over the coefficients.
 //!
-//! The points are transposed to an n x b layout so the inner loop over the batch runs over
-//! contiguous lanes: for each coefficient a_t of a prefix segment,
+//! The coefficients are the expensive stream (they come from main memory); the points are
+//! small and stay in cache. So each prefix segment a_t, t = i_{p-1}..n, is read from memory
+//! once and then reused from L1 for every point beta, with the same vectorized loops as the
+//! single-point kernels:
 //!
 //! ```text
-//! S[beta] += a_t X[t, beta],   G[t, beta] += a_t P[beta]
+//! S[beta] = sum_t a_t X[beta, t],   G[beta, t] += P[beta] a_t,   G[beta, ij] += Q_j[beta] S[beta]
 //! ```
 //!
-//! with the same prefix formulas as [`crate::kernels`]. A batch of b points therefore costs
-//! one read of the coefficients plus O(b) arithmetic per coefficient, instead of b reads.
-//! For several Hessian-vector products at one point x (directions V, n x k):
+//! (P, Q_j the prefix products of [`crate::kernels`] at point beta). A batch of b points costs
+//! one read of the coefficients plus O(b) cached arithmetic per coefficient, instead of b
+//! reads. For several Hessian-vector products at one point x (directions V, n x k, taken as
+//! k rows):
 //!
 //! ```text
-//! W[t, kappa] += a_t D[kappa],   Sv[kappa] += a_t V[t, kappa],   Sx += a_t x_t.
+//! Sx = sum_t a_t x_t,  W[kappa, t] += D[kappa] a_t,  Sv[kappa] = sum_t a_t V[kappa, t],
+//! W[kappa, ij] += Q_j Sv[kappa] + dQ_j[kappa] Sx.
 //! ```
 
 use rayon::ThreadPool;
@@ -20,10 +24,12 @@ use rayon::ThreadPool;
 use crate::error::CoreError;
 use crate::kernels::{check_len, items_for};
 use crate::partition::{reduce_sums, WorkItem};
-use crate::simd::{leave_one_out, leave_two_out, simd_dispatch, Madd, Prefixes, MAX_PREFIX};
+use crate::simd::{
+    dot, dot_axpy, lanes, leave_one_out, leave_two_out, simd_dispatch, Madd, Prefixes, MAX_PREFIX,
+};
 use crate::storage::{Coef, Packed};
 
-/// Items per batched pass (each holds an n x b accumulator).
+/// Items per batched pass (each holds a b x n accumulator).
 pub const BATCH_PIECES: usize = 32;
 
 fn transpose(src: &[f64], rows: usize, cols: usize) -> Vec<f64> {
@@ -36,88 +42,117 @@ fn transpose(src: &[f64], rows: usize, cols: usize) -> Vec<f64> {
     out
 }
 
-/// Energies of an item added to `e`, and, unless `g` is empty, gradients added to `g` (n x b).
+/// Lanes handled per pass over a segment (four AVX2 registers).
+const GROUP: usize = 16;
+
+/// The points in lane layout and their products over the current prefix.
+struct Lanes<'a> {
+    xt: &'a [f64],
+    stride: usize,
+    prod: &'a [f64],
+    /// q[j * stride + beta]: product over the prefix except position j, at point beta.
+    q: &'a [f64],
+}
+
+/// One segment (last index t0.., prefix `pre`) for every lane, in groups of `GROUP` lanes.
 #[inline(always)]
-fn batch_item_body<M: Madd, T: Coef>(
-    n: usize,
-    a: &[T],
-    it: &WorkItem,
-    xt: &[f64],
-    b: usize,
+fn batch_pass<M: Madd, T: Coef>(
+    lane: &Lanes<'_>,
+    t0: usize,
+    seg: &[T],
+    pre: &[usize],
     e: &mut [f64],
     g: &mut [f64],
+    s: &mut [f64; GROUP],
 ) {
+    let stride = lane.stride;
     let want_grad = !g.is_empty();
-    let coeffs = &a[it.start..it.start + it.len];
-    let mut s = vec![0f64; b];
-    if it.degree == 1 {
-        for (k, &c) in coeffs.iter().enumerate() {
-            let t = it.lo + k;
-            let c = c.to_f64();
-            let row = &xt[t * b..t * b + b];
-            for beta in 0..b {
-                s[beta] = M::madd(c, row[beta], s[beta]);
-            }
+    for g0 in (0..stride).step_by(GROUP) {
+        let width = GROUP.min(stride - g0);
+        let x0 = &lane.xt[t0 * stride + g0..];
+        let grad = if want_grad {
+            Some((&mut g[t0 * stride + g0..], &lane.prod[g0..g0 + width]))
+        } else {
+            None
+        };
+        lanes::<M, T>(seg, x0, stride, width, grad, s);
+        for k in 0..width {
+            let beta = g0 + k;
+            e[beta] += lane.prod[beta] * s[k];
             if want_grad {
-                for gv in &mut g[t * b..t * b + b] {
-                    *gv += c;
-                }
-            }
-        }
-        for beta in 0..b {
-            e[beta] += s[beta];
-        }
-        return;
-    }
-    let l = it.degree - 1;
-    // per-lane prefix products: prod[beta], q[j * b + beta]
-    let mut prod = vec![0f64; b];
-    let mut q = vec![0f64; MAX_PREFIX * b];
-    let (mut xp, mut qq) = ([0f64; MAX_PREFIX], [0f64; MAX_PREFIX]);
-    let mut walk = Prefixes::new(n, it.degree, it.lo, it.hi);
-    while let Some((t0, pos)) = walk.next_prefix() {
-        let pre = walk.prefix();
-        for beta in 0..b {
-            for j in 0..l {
-                xp[j] = xt[pre[j] * b + beta];
-            }
-            prod[beta] = leave_one_out(&xp[..l], &mut qq);
-            for j in 0..l {
-                q[j * b + beta] = qq[j];
-            }
-        }
-        s.iter_mut().for_each(|v| *v = 0.0);
-        let seg = &coeffs[pos..pos + n - t0];
-        for (k, &c) in seg.iter().enumerate() {
-            let t = t0 + k;
-            let c = c.to_f64();
-            let row = &xt[t * b..t * b + b];
-            for beta in 0..b {
-                s[beta] = M::madd(c, row[beta], s[beta]);
-            }
-            if want_grad {
-                let grow = &mut g[t * b..t * b + b];
-                for beta in 0..b {
-                    grow[beta] = M::madd(c, prod[beta], grow[beta]);
-                }
-            }
-        }
-        for beta in 0..b {
-            e[beta] += prod[beta] * s[beta];
-        }
-        if want_grad {
-            for j in 0..l {
-                let grow = &mut g[pre[j] * b..pre[j] * b + b];
-                for beta in 0..b {
-                    grow[beta] += q[j * b + beta] * s[beta];
+                for (j, &i) in pre.iter().enumerate() {
+                    g[i * stride + beta] += lane.q[j * stride + beta] * s[k];
                 }
             }
         }
     }
 }
 
+/// Energies of an item added to `e` (length `stride`, one lane per point, padded lanes have
+/// x = 0) and, unless `g` is empty, gradients added to `g` (n x stride, lane layout). `xt` is
+/// the points in lane layout: X[t, beta] = xt[t * stride + beta].
+#[inline(always)]
+fn batch_item_body<M: Madd, T: Coef>(
+    n: usize,
+    a: &[T],
+    it: &WorkItem,
+    xt: &[f64],
+    e: &mut [f64],
+    g: &mut [f64],
+) {
+    let stride = e.len();
+    let coeffs = &a[it.start..it.start + it.len];
+    let mut s = [0f64; GROUP];
+    let l = it.degree - 1;
+    // per-lane products over the prefix, as vectors over the lanes (rows of xt are contiguous)
+    let mut prod = vec![1.0f64; stride];
+    let mut q = vec![0f64; MAX_PREFIX * stride];
+    let mut run = vec![1.0f64; stride];
+    if it.degree == 1 {
+        let lane = Lanes {
+            xt,
+            stride,
+            prod: &prod,
+            q: &q,
+        };
+        batch_pass::<M, T>(&lane, it.lo, coeffs, &[], e, g, &mut s);
+        return;
+    }
+    let mut walk = Prefixes::new(n, it.degree, it.lo, it.hi);
+    while let Some((t0, pos)) = walk.next_prefix() {
+        let pre = walk.prefix();
+        // q_j = (prod_{k<j} x_k) (prod_{k>j} x_k) lane by lane; prod = prod_k x_k
+        run.fill(1.0);
+        for (j, &i) in pre.iter().enumerate() {
+            let row = &xt[i * stride..i * stride + stride];
+            let qj = &mut q[j * stride..j * stride + stride];
+            for ((qv, rv), xv) in qj.iter_mut().zip(run.iter_mut()).zip(row) {
+                *qv = *rv;
+                *rv *= xv;
+            }
+        }
+        prod.copy_from_slice(&run);
+        run.fill(1.0);
+        for (j, &i) in pre.iter().enumerate().rev() {
+            let row = &xt[i * stride..i * stride + stride];
+            let qj = &mut q[j * stride..j * stride + stride];
+            for ((qv, rv), xv) in qj.iter_mut().zip(run.iter_mut()).zip(row) {
+                *qv *= *rv;
+                *rv *= xv;
+            }
+        }
+        let lane = Lanes {
+            xt,
+            stride,
+            prod: &prod,
+            q: &q[..l * stride],
+        };
+        batch_pass::<M, T>(&lane, t0, &coeffs[pos..pos + n - t0], pre, e, g, &mut s);
+    }
+}
+
 simd_dispatch!(fn batch_item => batch_item_body(
-    n: usize, a: &[T], it: &WorkItem, xt: &[f64], b: usize, e: &mut [f64], g: &mut [f64]) -> ());
+    n: usize, a: &[T], it: &WorkItem, xt: &[f64], e: &mut [f64], g: &mut [f64]) -> ());
 
 fn run_batch<T: Coef>(
     pool: &ThreadPool,
@@ -131,20 +166,31 @@ fn run_batch<T: Coef>(
         what: format!("batch of {b} points"),
     })?;
     check_len("points (b x n)", len, xs.len())?;
-    let xt = transpose(xs, b, n);
+    // lane layout, padded to a multiple of 4 lanes with zero points
+    let stride = b.div_ceil(4) * 4;
+    let mut xt = vec![0.0; n * stride];
+    for beta in 0..b {
+        for t in 0..n {
+            xt[t * stride + beta] = xs[beta * n + t];
+        }
+    }
     let items = items_for(poly, BATCH_PIECES);
     let blocks = poly.blocks();
-    let glen = if want_grad { len } else { 0 };
-    let (e, g) = reduce_sums(pool, &items, b, glen, |it, e, g| {
-        let coeffs = &blocks[it.block].coeffs;
-        batch_item::<T>(n, coeffs, it, &xt, b, e, g);
+    let glen = if want_grad { n * stride } else { 0 };
+    let (mut e, g) = reduce_sums(pool, &items, stride, glen, |it, e, g| {
+        batch_item::<T>(n, &blocks[it.block].coeffs, it, &xt, e, g);
     })?;
-    let g = if want_grad {
-        transpose(&g, n, b)
-    } else {
-        Vec::new()
-    };
-    Ok((e, g))
+    e.truncate(b);
+    let mut grads = Vec::new();
+    if want_grad {
+        grads = vec![0.0; len];
+        for beta in 0..b {
+            for t in 0..n {
+                grads[beta * n + t] = g[t * stride + beta];
+            }
+        }
+    }
+    Ok((e, grads))
 }
 
 /// H at each of b points (`xs` is b x n row-major).
@@ -167,6 +213,7 @@ pub fn energy_gradient_batch<T: Coef>(
     run_batch(pool, poly, xs, b, true)
 }
 
+/// Hessian-vector products of an item for k directions `vs` (k x n) added to `w` (k x n).
 #[inline(always)]
 fn hvp_many_item_body<M: Madd, T: Coef>(
     n: usize,
@@ -174,22 +221,20 @@ fn hvp_many_item_body<M: Madd, T: Coef>(
     it: &WorkItem,
     x: &[f64],
     vs: &[f64],
-    k: usize,
     w: &mut [f64],
 ) {
     if it.degree == 1 {
         return;
     }
+    let k = vs.len() / n;
     let coeffs = &a[it.start..it.start + it.len];
     let l = it.degree - 1;
     let (mut xp, mut q) = ([0f64; MAX_PREFIX], [0f64; MAX_PREFIX]);
     let mut r = [[0f64; MAX_PREFIX]; MAX_PREFIX];
-    let mut d = vec![0f64; k];
-    let mut sv = vec![0f64; k];
-    let mut dq = vec![0f64; MAX_PREFIX * k];
     let mut walk = Prefixes::new(n, it.degree, it.lo, it.hi);
     while let Some((t0, pos)) = walk.next_prefix() {
         let pre = walk.prefix();
+        let seg = &coeffs[pos..pos + n - t0];
         for j in 0..l {
             xp[j] = x[pre[j]];
         }
@@ -197,47 +242,27 @@ fn hvp_many_item_body<M: Madd, T: Coef>(
         if l >= 2 {
             leave_two_out(&xp[..l], &mut r);
         }
-        d.iter_mut().for_each(|v| *v = 0.0);
-        dq.iter_mut().for_each(|v| *v = 0.0);
-        for j in 0..l {
-            let vrow = &vs[pre[j] * k..pre[j] * k + k];
-            for kap in 0..k {
-                d[kap] += vrow[kap] * q[j];
-            }
-            for m in 0..l {
-                if m != j {
-                    let rr = if j < m { r[j][m] } else { r[m][j] };
-                    for kap in 0..k {
-                        dq[m * k + kap] += vrow[kap] * rr;
+        let sx = dot::<M, T>(seg, &x[t0..]);
+        for kap in 0..k {
+            let v = &vs[kap * n..kap * n + n];
+            let wrow = &mut w[kap * n..kap * n + n];
+            let d: f64 = (0..l).map(|j| v[pre[j]] * q[j]).sum();
+            let sv = dot_axpy::<M, T>(seg, &v[t0..], &mut wrow[t0..], d);
+            for j in 0..l {
+                let mut dq = 0.0;
+                for m in 0..l {
+                    if m != j {
+                        dq += v[pre[m]] * if j < m { r[j][m] } else { r[m][j] };
                     }
                 }
-            }
-        }
-        sv.iter_mut().for_each(|v| *v = 0.0);
-        let mut sx = 0.0;
-        let seg = &coeffs[pos..pos + n - t0];
-        for (o, &c) in seg.iter().enumerate() {
-            let t = t0 + o;
-            let c = c.to_f64();
-            sx = M::madd(c, x[t], sx);
-            let vrow = &vs[t * k..t * k + k];
-            let wrow = &mut w[t * k..t * k + k];
-            for kap in 0..k {
-                sv[kap] = M::madd(c, vrow[kap], sv[kap]);
-                wrow[kap] = M::madd(c, d[kap], wrow[kap]);
-            }
-        }
-        for j in 0..l {
-            let wrow = &mut w[pre[j] * k..pre[j] * k + k];
-            for kap in 0..k {
-                wrow[kap] += q[j] * sv[kap] + dq[j * k + kap] * sx;
+                wrow[pre[j]] += q[j] * sv + dq * sx;
             }
         }
     }
 }
 
 simd_dispatch!(fn hvp_many_item => hvp_many_item_body(
-    n: usize, a: &[T], it: &WorkItem, x: &[f64], vs: &[f64], k: usize, w: &mut [f64]) -> ());
+    n: usize, a: &[T], it: &WorkItem, x: &[f64], vs: &[f64], w: &mut [f64]) -> ());
 
 /// Hess H(x) V for k directions; `vs` and the result are n x k row-major.
 pub fn hvp_many<T: Coef>(
@@ -253,12 +278,13 @@ pub fn hvp_many<T: Coef>(
         what: format!("{k} directions"),
     })?;
     check_len("directions (n x k)", len, vs.len())?;
+    let rows = transpose(vs, n, k); // k x n: one contiguous row per direction
     let items = items_for(poly, BATCH_PIECES);
     let blocks = poly.blocks();
     let (_, w) = reduce_sums(pool, &items, 0, len, |it, _, w| {
-        hvp_many_item::<T>(n, &blocks[it.block].coeffs, it, x, vs, k, w);
+        hvp_many_item::<T>(n, &blocks[it.block].coeffs, it, x, &rows, w);
     })?;
-    Ok(w)
+    Ok(transpose(&w, k, n))
 }
 
 #[cfg(test)]

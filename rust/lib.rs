@@ -5,6 +5,8 @@
 //! The core modules never mention PyO3; the binding layer lives in `python.rs` and is only
 //! compiled with the `python` feature (maturin turns it on).
 
+#[cfg(target_arch = "x86_64")]
+mod avx2;
 pub mod batch;
 pub mod combinatorics;
 pub mod error;

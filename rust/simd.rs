@@ -11,20 +11,67 @@
 
 use crate::storage::Coef;
 
-/// How `a * b + c` is evaluated.
+/// How the arithmetic of a kernel is carried out: `madd` is a * b + c, and the segment
+/// loops below are either portable Rust or AVX2 + FMA intrinsics.
 pub trait Madd {
     fn madd(a: f64, b: f64, c: f64) -> f64;
+    fn dot<T: Coef>(a: &[T], x: &[f64]) -> f64;
+    fn axpy<T: Coef>(y: &mut [f64], alpha: f64, a: &[T]);
+    fn dot_axpy<T: Coef>(a: &[T], x: &[f64], y: &mut [f64], alpha: f64) -> f64;
+    fn dot_axpy2<T: Coef>(a: &[T], x: &[f64], y: (&mut [f64], f64), z: (&mut [f64], f64)) -> f64;
+    fn dot2_axpy<T: Coef>(a: &[T], x: &[f64], v: &[f64], w: &mut [f64], alpha: f64) -> (f64, f64);
+    /// Batch lanes (see [`lanes`]).
+    fn lanes<T: Coef>(
+        a: &[T],
+        xt: &[f64],
+        stride: usize,
+        width: usize,
+        grad: Option<(&mut [f64], &[f64])>,
+        s: &mut [f64],
+    );
 }
 
-/// Fused multiply-add (one rounding); used only where the processor has FMA.
+/// AVX2 + fused multiply-add (one rounding); only reached where the processor has both.
 pub struct Fused;
-/// Multiply then add (two roundings).
+/// Portable Rust, multiply then add (two roundings).
 pub struct Plain;
 
+#[cfg(target_arch = "x86_64")]
 impl Madd for Fused {
     #[inline(always)]
     fn madd(a: f64, b: f64, c: f64) -> f64 {
         a.mul_add(b, c)
+    }
+    #[inline(always)]
+    fn dot<T: Coef>(a: &[T], x: &[f64]) -> f64 {
+        crate::avx2::dot(a, x)
+    }
+    #[inline(always)]
+    fn axpy<T: Coef>(y: &mut [f64], alpha: f64, a: &[T]) {
+        crate::avx2::axpy(y, alpha, a)
+    }
+    #[inline(always)]
+    fn dot_axpy<T: Coef>(a: &[T], x: &[f64], y: &mut [f64], alpha: f64) -> f64 {
+        crate::avx2::dot_axpy(a, x, y, alpha)
+    }
+    #[inline(always)]
+    fn dot_axpy2<T: Coef>(a: &[T], x: &[f64], y: (&mut [f64], f64), z: (&mut [f64], f64)) -> f64 {
+        crate::avx2::dot_axpy2(a, x, y, z)
+    }
+    #[inline(always)]
+    fn dot2_axpy<T: Coef>(a: &[T], x: &[f64], v: &[f64], w: &mut [f64], alpha: f64) -> (f64, f64) {
+        crate::avx2::dot2_axpy(a, x, v, w, alpha)
+    }
+    #[inline(always)]
+    fn lanes<T: Coef>(
+        a: &[T],
+        xt: &[f64],
+        stride: usize,
+        width: usize,
+        grad: Option<(&mut [f64], &[f64])>,
+        s: &mut [f64],
+    ) {
+        crate::avx2::lanes(a, xt, stride, width, grad, s)
     }
 }
 
@@ -33,6 +80,115 @@ impl Madd for Plain {
     fn madd(a: f64, b: f64, c: f64) -> f64 {
         a * b + c
     }
+    #[inline(always)]
+    fn dot<T: Coef>(a: &[T], x: &[f64]) -> f64 {
+        portable_dot::<Plain, T>(a, x)
+    }
+    #[inline(always)]
+    fn axpy<T: Coef>(y: &mut [f64], alpha: f64, a: &[T]) {
+        portable_axpy::<Plain, T>(y, alpha, a)
+    }
+    #[inline(always)]
+    fn dot_axpy<T: Coef>(a: &[T], x: &[f64], y: &mut [f64], alpha: f64) -> f64 {
+        portable_dot_axpy::<Plain, T>(a, x, y, alpha)
+    }
+    #[inline(always)]
+    fn dot_axpy2<T: Coef>(a: &[T], x: &[f64], y: (&mut [f64], f64), z: (&mut [f64], f64)) -> f64 {
+        portable_dot_axpy2::<Plain, T>(a, x, y, z)
+    }
+    #[inline(always)]
+    fn dot2_axpy<T: Coef>(a: &[T], x: &[f64], v: &[f64], w: &mut [f64], alpha: f64) -> (f64, f64) {
+        portable_dot2_axpy::<Plain, T>(a, x, v, w, alpha)
+    }
+    #[inline(always)]
+    fn lanes<T: Coef>(
+        a: &[T],
+        xt: &[f64],
+        stride: usize,
+        width: usize,
+        grad: Option<(&mut [f64], &[f64])>,
+        s: &mut [f64],
+    ) {
+        let s = &mut s[..width];
+        s.fill(0.0);
+        match grad {
+            None => {
+                for (t, c) in a.iter().enumerate() {
+                    let c = c.to_f64();
+                    for (sb, xb) in s.iter_mut().zip(&xt[t * stride..t * stride + width]) {
+                        *sb += c * xb;
+                    }
+                }
+            }
+            Some((g, prod)) => {
+                for (t, c) in a.iter().enumerate() {
+                    let c = c.to_f64();
+                    for (sb, xb) in s.iter_mut().zip(&xt[t * stride..t * stride + width]) {
+                        *sb += c * xb;
+                    }
+                    for (gb, pb) in g[t * stride..t * stride + width].iter_mut().zip(prod) {
+                        *gb += c * pb;
+                    }
+                }
+            }
+        }
+    }
+}
+
+/// Batch lanes: for beta < `width` (a multiple of 4, at most 16), s[beta] = sum_t a_t
+/// X[t, beta] over rows of `xt` with stride `stride`, and with `grad = Some((g, prod))` also
+/// G[t, beta] += prod[beta] a_t. Each coefficient is loaded once for all `width` lanes.
+#[inline(always)]
+pub fn lanes<M: Madd, T: Coef>(
+    a: &[T],
+    xt: &[f64],
+    stride: usize,
+    width: usize,
+    grad: Option<(&mut [f64], &[f64])>,
+    s: &mut [f64],
+) {
+    M::lanes(a, xt, stride, width, grad, s)
+}
+
+/// sum_t a_t x_t.
+#[inline(always)]
+pub fn dot<M: Madd, T: Coef>(a: &[T], x: &[f64]) -> f64 {
+    M::dot(a, x)
+}
+
+/// y_t += alpha a_t.
+#[inline(always)]
+pub fn axpy<M: Madd, T: Coef>(y: &mut [f64], alpha: f64, a: &[T]) {
+    M::axpy(y, alpha, a)
+}
+
+/// Returns sum_t a_t x_t and does y_t += alpha a_t, reading `a` once.
+#[inline(always)]
+pub fn dot_axpy<M: Madd, T: Coef>(a: &[T], x: &[f64], y: &mut [f64], alpha: f64) -> f64 {
+    M::dot_axpy(a, x, y, alpha)
+}
+
+/// Returns sum_t a_t x_t and does y_t += alpha a_t, z_t += beta a_t, reading `a` once.
+#[inline(always)]
+pub fn dot_axpy2<M: Madd, T: Coef>(
+    a: &[T],
+    x: &[f64],
+    y: (&mut [f64], f64),
+    z: (&mut [f64], f64),
+) -> f64 {
+    M::dot_axpy2(a, x, y, z)
+}
+
+/// Returns (sum_t a_t x_t, sum_t a_t v_t) and does w_t += alpha a_t, reading `a` once.
+#[inline(always)]
+pub fn dot2_axpy<M: Madd, T: Coef>(
+    a: &[T],
+    x: &[f64],
+    v: &[f64],
+    w: &mut [f64],
+    alpha: f64,
+) -> (f64, f64) {
+    M::dot2_axpy(a, x, v, w, alpha)
 }
 
 /// True when the processor has AVX2 and FMA (checked once, then cached by std).
@@ -81,6 +237,8 @@ macro_rules! simd_dispatch {
 }
 pub(crate) use simd_dispatch;
 
+// Portable segment loops (the `Plain` path).
+
 /// Independent accumulators of the main loop (four AVX2 registers of f64), enough to hide
 /// the latency of fused multiply-add. Leftovers go through a 4-wide loop, then a scalar one.
 /// The loops run over fixed-size arrays (`as_chunks`) so the compiler sees no bounds checks
@@ -99,7 +257,7 @@ fn combine(acc: &[f64; LANES]) -> f64 {
 
 /// sum_t a_t x_t.
 #[inline(always)]
-pub fn dot<M: Madd, T: Coef>(a: &[T], x: &[f64]) -> f64 {
+fn portable_dot<M: Madd, T: Coef>(a: &[T], x: &[f64]) -> f64 {
     let x = &x[..a.len()];
     let mut acc = [0f64; LANES];
     let ((ca, ra), (cx, rx)) = (a.as_chunks::<LANES>(), x.as_chunks::<LANES>());
@@ -122,7 +280,7 @@ pub fn dot<M: Madd, T: Coef>(a: &[T], x: &[f64]) -> f64 {
 
 /// y_t += alpha a_t.
 #[inline(always)]
-pub fn axpy<M: Madd, T: Coef>(y: &mut [f64], alpha: f64, a: &[T]) {
+fn portable_axpy<M: Madd, T: Coef>(y: &mut [f64], alpha: f64, a: &[T]) {
     let y = &mut y[..a.len()];
     for (yi, ai) in y.iter_mut().zip(a) {
         *yi = M::madd(alpha, ai.to_f64(), *yi);
@@ -131,7 +289,7 @@ pub fn axpy<M: Madd, T: Coef>(y: &mut [f64], alpha: f64, a: &[T]) {
 
 /// Returns sum_t a_t x_t and does y_t += alpha a_t, reading `a` once.
 #[inline(always)]
-pub fn dot_axpy<M: Madd, T: Coef>(a: &[T], x: &[f64], y: &mut [f64], alpha: f64) -> f64 {
+fn portable_dot_axpy<M: Madd, T: Coef>(a: &[T], x: &[f64], y: &mut [f64], alpha: f64) -> f64 {
     let len = a.len();
     let (x, y) = (&x[..len], &mut y[..len]);
     let mut acc = [0f64; LANES];
@@ -163,7 +321,7 @@ pub fn dot_axpy<M: Madd, T: Coef>(a: &[T], x: &[f64], y: &mut [f64], alpha: f64)
 
 /// Returns sum_t a_t x_t and does y_t += alpha a_t, z_t += beta a_t, reading `a` once.
 #[inline(always)]
-pub fn dot_axpy2<M: Madd, T: Coef>(
+fn portable_dot_axpy2<M: Madd, T: Coef>(
     a: &[T],
     x: &[f64],
     (y, alpha): (&mut [f64], f64),
@@ -193,7 +351,7 @@ pub fn dot_axpy2<M: Madd, T: Coef>(
 
 /// Returns (sum_t a_t x_t, sum_t a_t v_t) and does w_t += alpha a_t, reading `a` once.
 #[inline(always)]
-pub fn dot2_axpy<M: Madd, T: Coef>(
+fn portable_dot2_axpy<M: Madd, T: Coef>(
     a: &[T],
     x: &[f64],
     v: &[f64],
@@ -325,7 +483,9 @@ mod tests {
         let want: f64 = a.iter().zip(&x).map(|(p, q)| p * q).sum();
         let wantv: f64 = a.iter().zip(&v).map(|(p, q)| p * q).sum();
         assert!((dot::<Plain, f64>(&a, &x) - want).abs() < 1e-13);
-        assert!((dot::<Fused, f64>(&a, &x) - want).abs() < 1e-13);
+        if has_avx2_fma() {
+            assert!((dot::<Fused, f64>(&a, &x) - want).abs() < 1e-13);
+        }
         let mut y = vec![1.0; 37];
         let s = dot_axpy::<Plain, f64>(&a, &x, &mut y, 2.0);
         assert!((s - want).abs() < 1e-13);
@@ -337,7 +497,7 @@ mod tests {
         assert!((sx - want).abs() < 1e-13 && (sv - wantv).abs() < 1e-13);
         assert!(w.iter().zip(&a).all(|(wi, ai)| *wi == -ai));
         let (mut y1, mut y2) = (vec![0.5; 37], vec![0.0; 37]);
-        let s2 = dot_axpy2::<Fused, f64>(&a, &x, (&mut y1, 2.0), (&mut y2, -3.0));
+        let s2 = dot_axpy2::<Plain, f64>(&a, &x, (&mut y1, 2.0), (&mut y2, -3.0));
         assert!((s2 - want).abs() < 1e-13);
         for ((p, q), ai) in y1.iter().zip(&y2).zip(&a) {
             assert!((p - (0.5 + 2.0 * ai)).abs() < 1e-15 && (q + 3.0 * ai).abs() < 1e-15);
@@ -349,6 +509,51 @@ mod tests {
             &a.iter().map(|&t| t as f32).collect::<Vec<_>>(),
         );
         assert!((z[5] - 3.0 * (a[5] as f32) as f64).abs() < 1e-15);
+    }
+
+    /// The AVX2 loops against the portable ones, for every length class (blocks of 16, of 4,
+    /// scalar tail) and both coefficient types.
+    #[test]
+    fn vector_paths_match_portable_paths() {
+        if !has_avx2_fma() {
+            return;
+        }
+        fn check<T: Coef>(conv: fn(f64) -> T) {
+            for len in 0..45usize {
+                let a: Vec<T> = (0..len).map(|i| conv((i as f64 * 0.7).sin())).collect();
+                let x: Vec<f64> = (0..len).map(|i| (i as f64 * 0.3).cos()).collect();
+                let v: Vec<f64> = (0..len).map(|i| 1.0 / (2.0 + i as f64)).collect();
+                let close = |p: f64, q: f64| (p - q).abs() <= 1e-13 * (1.0 + q.abs());
+                assert!(
+                    close(dot::<Fused, T>(&a, &x), dot::<Plain, T>(&a, &x)),
+                    "dot {len}"
+                );
+                let (mut y1, mut y2) = (v.clone(), v.clone());
+                axpy::<Fused, T>(&mut y1, 0.5, &a);
+                axpy::<Plain, T>(&mut y2, 0.5, &a);
+                assert!(y1.iter().zip(&y2).all(|(p, q)| close(*p, *q)), "axpy {len}");
+                let (mut y1, mut y2) = (v.clone(), v.clone());
+                let s1 = dot_axpy::<Fused, T>(&a, &x, &mut y1, -1.5);
+                let s2 = dot_axpy::<Plain, T>(&a, &x, &mut y2, -1.5);
+                assert!(close(s1, s2) && y1.iter().zip(&y2).all(|(p, q)| close(*p, *q)));
+                let (mut y1, mut z1, mut y2, mut z2) = (v.clone(), x.clone(), v.clone(), x.clone());
+                let s1 = dot_axpy2::<Fused, T>(&a, &x, (&mut y1, 2.0), (&mut z1, 3.0));
+                let s2 = dot_axpy2::<Plain, T>(&a, &x, (&mut y2, 2.0), (&mut z2, 3.0));
+                assert!(close(s1, s2), "dot_axpy2 {len}");
+                assert!(y1
+                    .iter()
+                    .zip(&y2)
+                    .chain(z1.iter().zip(&z2))
+                    .all(|(p, q)| close(*p, *q)));
+                let (mut w1, mut w2) = (x.clone(), x.clone());
+                let (p1, q1) = dot2_axpy::<Fused, T>(&a, &x, &v, &mut w1, 0.25);
+                let (p2, q2) = dot2_axpy::<Plain, T>(&a, &x, &v, &mut w2, 0.25);
+                assert!(close(p1, p2) && close(q1, q2), "dot2_axpy {len}");
+                assert!(w1.iter().zip(&w2).all(|(p, q)| close(*p, *q)));
+            }
+        }
+        check::<f64>(|v| v);
+        check::<f32>(|v| v as f32);
     }
 
     #[test]

@@ -16,6 +16,13 @@ pub trait Coef: Copy + Send + Sync + Default + PartialEq + std::fmt::Debug + 'st
     const NAME: &'static str;
     fn to_f64(self) -> f64;
     fn from_f64(v: f64) -> Self;
+    /// Four consecutive coefficients widened to f64 lanes.
+    ///
+    /// # Safety
+    /// The processor must have AVX and `p` must be valid for reading four values; only call
+    /// it from code compiled with the `avx2` target feature (see `crate::avx2`).
+    #[cfg(target_arch = "x86_64")]
+    unsafe fn load4(p: *const Self) -> core::arch::x86_64::__m256d;
 }
 
 impl Coef for f64 {
@@ -28,6 +35,11 @@ impl Coef for f64 {
     fn from_f64(v: f64) -> Self {
         v
     }
+    #[cfg(target_arch = "x86_64")]
+    #[inline(always)]
+    unsafe fn load4(p: *const Self) -> core::arch::x86_64::__m256d {
+        core::arch::x86_64::_mm256_loadu_pd(p)
+    }
 }
 
 impl Coef for f32 {
@@ -39,6 +51,12 @@ impl Coef for f32 {
     #[inline(always)]
     fn from_f64(v: f64) -> Self {
         v as f32
+    }
+    #[cfg(target_arch = "x86_64")]
+    #[inline(always)]
+    unsafe fn load4(p: *const Self) -> core::arch::x86_64::__m256d {
+        use core::arch::x86_64::{_mm256_cvtps_pd, _mm_loadu_ps};
+        _mm256_cvtps_pd(_mm_loadu_ps(p))
     }
 }
 

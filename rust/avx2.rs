@@ -1,0 +1,284 @@
+//! The segment loops of [`crate::simd`] written with AVX2 + FMA intrinsics.
+//!
+//! These functions are `#[inline(always)]` and must only be reached from inside a function
+//! compiled with `#[target_feature(enable = "avx2,fma")]` on a processor that has both (the
+//! `simd_dispatch!` macro guarantees it); there the intrinsics inline into plain vector
+//! instructions. Reductions use four 4-wide accumulators (16 lanes) over blocks of 16, then
+//! one accumulator over blocks of 4, then a scalar tail, combined in a fixed order.
+
+use core::arch::x86_64::*;
+
+use crate::storage::Coef;
+
+#[inline(always)]
+unsafe fn hsum(v: __m256d) -> f64 {
+    let pair = _mm_add_pd(_mm256_castpd256_pd128(v), _mm256_extractf128_pd::<1>(v));
+    _mm_cvtsd_f64(_mm_add_sd(pair, _mm_unpackhi_pd(pair, pair)))
+}
+
+#[inline(always)]
+unsafe fn combine(acc: &[__m256d; 4]) -> f64 {
+    hsum(_mm256_add_pd(
+        _mm256_add_pd(acc[0], acc[2]),
+        _mm256_add_pd(acc[1], acc[3]),
+    ))
+}
+
+/// sum_t a_t x_t.
+#[inline(always)]
+pub fn dot<T: Coef>(a: &[T], x: &[f64]) -> f64 {
+    let len = a.len();
+    let x = &x[..len];
+    // SAFETY: every pointer offset below stays under `len`, the length of `a` and `x`.
+    unsafe {
+        let (pa, px) = (a.as_ptr(), x.as_ptr());
+        let mut acc = [_mm256_setzero_pd(); 4];
+        let mut i = 0;
+        while i + 16 <= len {
+            for (k, slot) in acc.iter_mut().enumerate() {
+                let j = i + 4 * k;
+                *slot = _mm256_fmadd_pd(T::load4(pa.add(j)), _mm256_loadu_pd(px.add(j)), *slot);
+            }
+            i += 16;
+        }
+        while i + 4 <= len {
+            acc[0] = _mm256_fmadd_pd(T::load4(pa.add(i)), _mm256_loadu_pd(px.add(i)), acc[0]);
+            i += 4;
+        }
+        let mut tail = 0.0f64;
+        while i < len {
+            tail = a[i].to_f64().mul_add(x[i], tail);
+            i += 1;
+        }
+        combine(&acc) + tail
+    }
+}
+
+/// y_t += alpha a_t.
+#[inline(always)]
+pub fn axpy<T: Coef>(y: &mut [f64], alpha: f64, a: &[T]) {
+    let len = a.len();
+    let y = &mut y[..len];
+    // SAFETY: offsets stay under `len`, the length of `a` and `y`.
+    unsafe {
+        let (pa, py) = (a.as_ptr(), y.as_mut_ptr());
+        let al = _mm256_set1_pd(alpha);
+        let mut i = 0;
+        while i + 4 <= len {
+            let yv = _mm256_fmadd_pd(al, T::load4(pa.add(i)), _mm256_loadu_pd(py.add(i)));
+            _mm256_storeu_pd(py.add(i), yv);
+            i += 4;
+        }
+        while i < len {
+            y[i] = alpha.mul_add(a[i].to_f64(), y[i]);
+            i += 1;
+        }
+    }
+}
+
+/// Returns sum_t a_t x_t and does y_t += alpha a_t.
+#[inline(always)]
+pub fn dot_axpy<T: Coef>(a: &[T], x: &[f64], y: &mut [f64], alpha: f64) -> f64 {
+    let len = a.len();
+    let (x, y) = (&x[..len], &mut y[..len]);
+    // SAFETY: offsets stay under `len`, the length of `a`, `x` and `y`.
+    unsafe {
+        let (pa, px, py) = (a.as_ptr(), x.as_ptr(), y.as_mut_ptr());
+        let al = _mm256_set1_pd(alpha);
+        let mut acc = [_mm256_setzero_pd(); 4];
+        let mut i = 0;
+        while i + 16 <= len {
+            for (k, slot) in acc.iter_mut().enumerate() {
+                let j = i + 4 * k;
+                let c = T::load4(pa.add(j));
+                *slot = _mm256_fmadd_pd(c, _mm256_loadu_pd(px.add(j)), *slot);
+                _mm256_storeu_pd(
+                    py.add(j),
+                    _mm256_fmadd_pd(al, c, _mm256_loadu_pd(py.add(j))),
+                );
+            }
+            i += 16;
+        }
+        while i + 4 <= len {
+            let c = T::load4(pa.add(i));
+            acc[0] = _mm256_fmadd_pd(c, _mm256_loadu_pd(px.add(i)), acc[0]);
+            _mm256_storeu_pd(
+                py.add(i),
+                _mm256_fmadd_pd(al, c, _mm256_loadu_pd(py.add(i))),
+            );
+            i += 4;
+        }
+        let mut tail = 0.0f64;
+        while i < len {
+            let c = a[i].to_f64();
+            tail = c.mul_add(x[i], tail);
+            y[i] = alpha.mul_add(c, y[i]);
+            i += 1;
+        }
+        combine(&acc) + tail
+    }
+}
+
+/// Returns sum_t a_t x_t and does y_t += alpha a_t, z_t += beta a_t.
+#[inline(always)]
+pub fn dot_axpy2<T: Coef>(
+    a: &[T],
+    x: &[f64],
+    (y, alpha): (&mut [f64], f64),
+    (z, beta): (&mut [f64], f64),
+) -> f64 {
+    let len = a.len();
+    let (x, y, z) = (&x[..len], &mut y[..len], &mut z[..len]);
+    // SAFETY: offsets stay under `len`, the length of every slice.
+    unsafe {
+        let (pa, px, py, pz) = (a.as_ptr(), x.as_ptr(), y.as_mut_ptr(), z.as_mut_ptr());
+        let (al, be) = (_mm256_set1_pd(alpha), _mm256_set1_pd(beta));
+        let mut acc = [_mm256_setzero_pd(); 4];
+        let mut i = 0;
+        while i + 16 <= len {
+            for (k, slot) in acc.iter_mut().enumerate() {
+                let j = i + 4 * k;
+                let c = T::load4(pa.add(j));
+                *slot = _mm256_fmadd_pd(c, _mm256_loadu_pd(px.add(j)), *slot);
+                _mm256_storeu_pd(
+                    py.add(j),
+                    _mm256_fmadd_pd(al, c, _mm256_loadu_pd(py.add(j))),
+                );
+                _mm256_storeu_pd(
+                    pz.add(j),
+                    _mm256_fmadd_pd(be, c, _mm256_loadu_pd(pz.add(j))),
+                );
+            }
+            i += 16;
+        }
+        while i + 4 <= len {
+            let c = T::load4(pa.add(i));
+            acc[0] = _mm256_fmadd_pd(c, _mm256_loadu_pd(px.add(i)), acc[0]);
+            _mm256_storeu_pd(
+                py.add(i),
+                _mm256_fmadd_pd(al, c, _mm256_loadu_pd(py.add(i))),
+            );
+            _mm256_storeu_pd(
+                pz.add(i),
+                _mm256_fmadd_pd(be, c, _mm256_loadu_pd(pz.add(i))),
+            );
+            i += 4;
+        }
+        let mut tail = 0.0f64;
+        while i < len {
+            let c = a[i].to_f64();
+            tail = c.mul_add(x[i], tail);
+            y[i] = alpha.mul_add(c, y[i]);
+            z[i] = beta.mul_add(c, z[i]);
+            i += 1;
+        }
+        combine(&acc) + tail
+    }
+}
+
+/// Returns (sum_t a_t x_t, sum_t a_t v_t) and does w_t += alpha a_t.
+#[inline(always)]
+pub fn dot2_axpy<T: Coef>(a: &[T], x: &[f64], v: &[f64], w: &mut [f64], alpha: f64) -> (f64, f64) {
+    let len = a.len();
+    let (x, v, w) = (&x[..len], &v[..len], &mut w[..len]);
+    // SAFETY: offsets stay under `len`, the length of every slice.
+    unsafe {
+        let (pa, px, pv, pw) = (a.as_ptr(), x.as_ptr(), v.as_ptr(), w.as_mut_ptr());
+        let al = _mm256_set1_pd(alpha);
+        let mut ax = [_mm256_setzero_pd(); 4];
+        let mut av = [_mm256_setzero_pd(); 4];
+        let mut i = 0;
+        while i + 16 <= len {
+            for k in 0..4 {
+                let j = i + 4 * k;
+                let c = T::load4(pa.add(j));
+                ax[k] = _mm256_fmadd_pd(c, _mm256_loadu_pd(px.add(j)), ax[k]);
+                av[k] = _mm256_fmadd_pd(c, _mm256_loadu_pd(pv.add(j)), av[k]);
+                _mm256_storeu_pd(
+                    pw.add(j),
+                    _mm256_fmadd_pd(al, c, _mm256_loadu_pd(pw.add(j))),
+                );
+            }
+            i += 16;
+        }
+        while i + 4 <= len {
+            let c = T::load4(pa.add(i));
+            ax[0] = _mm256_fmadd_pd(c, _mm256_loadu_pd(px.add(i)), ax[0]);
+            av[0] = _mm256_fmadd_pd(c, _mm256_loadu_pd(pv.add(i)), av[0]);
+            _mm256_storeu_pd(
+                pw.add(i),
+                _mm256_fmadd_pd(al, c, _mm256_loadu_pd(pw.add(i))),
+            );
+            i += 4;
+        }
+        let (mut tx, mut tv) = (0.0f64, 0.0f64);
+        while i < len {
+            let c = a[i].to_f64();
+            tx = c.mul_add(x[i], tx);
+            tv = c.mul_add(v[i], tv);
+            w[i] = alpha.mul_add(c, w[i]);
+            i += 1;
+        }
+        (combine(&ax) + tx, combine(&av) + tv)
+    }
+}
+
+/// Lane-blocked segment sums for a batch: for every lane beta < width,
+/// s[beta] = sum_t a_t X[t, beta] where X rows start at `xt` with stride `stride`
+/// (t = 0..a.len()), and, when `g` is given, G[t, beta] += prod[beta] a_t (same layout).
+/// `width` is a multiple of 4 and at most 16, so the sums stay in four registers while the
+/// segment streams through once.
+#[inline(always)]
+pub fn lanes<T: Coef>(
+    a: &[T],
+    xt: &[f64],
+    stride: usize,
+    width: usize,
+    grad: Option<(&mut [f64], &[f64])>,
+    s: &mut [f64],
+) {
+    debug_assert!(width.is_multiple_of(4) && width <= 16 && stride >= width);
+    let len = a.len();
+    assert!(len == 0 || xt.len() >= (len - 1) * stride + width);
+    let groups = width / 4;
+    // SAFETY: row t of X (and G) covers [t*stride, t*stride + width), inside the slices by
+    // the assertion above; `s` and `prod` have at least `width` entries (checked below).
+    unsafe {
+        let px = xt.as_ptr();
+        let mut acc = [_mm256_setzero_pd(); 4];
+        match grad {
+            None => {
+                for (t, at) in a.iter().enumerate() {
+                    let c = _mm256_set1_pd(at.to_f64());
+                    let row = px.add(t * stride);
+                    for (k, slot) in acc.iter_mut().enumerate().take(groups) {
+                        *slot = _mm256_fmadd_pd(c, _mm256_loadu_pd(row.add(4 * k)), *slot);
+                    }
+                }
+            }
+            Some((g, prod)) => {
+                assert!(prod.len() >= width);
+                assert!(len == 0 || g.len() >= (len - 1) * stride + width);
+                let pg = g.as_mut_ptr();
+                let mut pr = [_mm256_setzero_pd(); 4];
+                for (k, slot) in pr.iter_mut().enumerate().take(groups) {
+                    *slot = _mm256_loadu_pd(prod.as_ptr().add(4 * k));
+                }
+                for (t, at) in a.iter().enumerate() {
+                    let c = _mm256_set1_pd(at.to_f64());
+                    let row = px.add(t * stride);
+                    let grow = pg.add(t * stride);
+                    for k in 0..groups {
+                        acc[k] = _mm256_fmadd_pd(c, _mm256_loadu_pd(row.add(4 * k)), acc[k]);
+                        let gv = _mm256_fmadd_pd(c, pr[k], _mm256_loadu_pd(grow.add(4 * k)));
+                        _mm256_storeu_pd(grow.add(4 * k), gv);
+                    }
+                }
+            }
+        }
+        assert!(s.len() >= width);
+        for (k, slot) in acc.iter().enumerate().take(groups) {
+            _mm256_storeu_pd(s.as_mut_ptr().add(4 * k), *slot);
+        }
+    }
+}
