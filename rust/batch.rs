@@ -76,12 +76,12 @@ fn batch_pass<M: Madd, T: Coef>(
             None
         };
         lanes::<M, T>(seg, x0, stride, width, grad, s);
-        for k in 0..width {
+        for (k, &sk) in s.iter().enumerate().take(width) {
             let beta = g0 + k;
-            e[beta] += lane.prod[beta] * s[k];
+            e[beta] += lane.prod[beta] * sk;
             if want_grad {
                 for (j, &i) in pre.iter().enumerate() {
-                    g[i * stride + beta] += lane.q[j * stride + beta] * s[k];
+                    g[i * stride + beta] += lane.q[j * stride + beta] * sk;
                 }
             }
         }

@@ -14,9 +14,12 @@ from importlib import import_module
 
 # subcommand name -> (module under orthoclimb.cli, one-line help)
 _COMMANDS: dict[str, tuple[str, str]] = {
-    "demo": ("demo_cmd", "a short guided tour: theory, sampling and kernels on two landscapes"),
+    "demo": ("demo_cmd", "the main job: a small study on two landscapes, extrapolated vs theory"),
     "theory": ("theory_cmd", "what a mixture predicts: full-RSB verdict, ALG, ground state"),
     "climb": ("climb_cmd", "run Hessian ascent or a baseline on one instance, compare with theory"),
+    "sweep": ("sweep_cmd", "run a study grid (mixtures x n x seeds x methods) on Dask, resumably"),
+    "report": ("report_cmd", "statistics, n -> infinity extrapolation and plots of a study"),
+    "profile": ("profile_cmd", "time the kernels at several n and fit the exponent of time vs n"),
 }
 
 

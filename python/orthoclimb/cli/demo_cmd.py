@@ -1,120 +1,77 @@
-"""``orthoclimb demo``: a short guided tour on two invented landscapes.
+"""``orthoclimb demo``: the main job, a small study on the embedded Dask cluster.
 
-The scenario: a lab compares a "gentle" landscape, xi(q) = q^2 + q^4/16 (gamma_2 = 1,
-gamma_4 = 1/4, inside the full-RSB phase since 1/16 <= 1/12), with a "rugged" one, the pure
-3-spin model. For each it prints what the theory predicts (full-RSB verdict, ALG, ground
-state, their gap), states the memory an instance needs before sampling it, samples one,
-checks the kernels against exact identities, and times one pass of each kernel.
-A JSON summary is written atomically to ``--out`` (default ``./orthoclimb-demo``).
+The scenario (invented): a lab compares two landscapes and two climbers.
+
+* "gentle": xi(q) = q^2 + q^4/16 (gamma_2 = 1, gamma_4 = 1/4). The full-RSB criterion holds
+  (b = 1/16 <= a/12), so the ground state equals the algorithmic energy ALG.
+* "rugged": the pure 3-spin model, xi(q) = q^3. The criterion fails: ALG = 2 sqrt(2/3) =
+  1.633 < GS = 1.657, a gap that Hessian ascent is not expected to close.
+
+Climbers: Hessian ascent (K steps, then polish) and gradient ascent from a random point. Each
+(landscape, n, seed, climber) is one task on the embedded LocalCluster; the study folder is
+``--out`` (default ``./orthoclimb-demo``; rerunning resumes). The report extrapolates the mean
+energy per spin in n^(-2/3) and sets it beside ALG and GS; its findings are computed from the
+measurements. ``--quick`` is a smaller variant (CI).
 """
 
 from __future__ import annotations
 
 import argparse
 import time
-from pathlib import Path
 
-import numpy as np
+from ..model import Mixture
+from ..studies.grid import MethodSpec, MixtureSpec, StudySpec
+from .sweep_cmd import add_engine_arguments, execute
 
-from .. import __version__, get_num_threads, kernel_path
-from ..fileio import write_json_atomic
-from ..model import Hamiltonian, Mixture, estimate_memory
-from ..model.memory import format_bytes, require_memory
-from ..theory import algorithmic_energy, full_rsb, ground_state
+__all__ = ["add_arguments", "demo_spec", "run"]
 
-SCENARIO = {
-    "gentle (2+4, full RSB)": Mixture({2: 1.0, 4: 0.25}),
-    "rugged (pure 3-spin)": Mixture({3: 1.0}),
-}
+GENTLE = Mixture({2: 1.0, 4: 0.25})
+RUGGED = Mixture({3: 1.0})
+
+
+def demo_spec(quick: bool = False) -> StudySpec:
+    """The built-in study (see the module doc)."""
+    if quick:
+        sizes, gentle_sizes, seeds, steps = (30, 45, 60), (20, 30, 40), tuple(range(6)), 40
+    else:
+        sizes, gentle_sizes, seeds, steps = (100, 150, 220, 320), (40, 60, 90, 130), 10, 100
+        seeds = tuple(range(seeds))
+    return StudySpec(
+        (
+            MixtureSpec.make(GENTLE, "gentle (2+4)", gentle_sizes),
+            MixtureSpec.make(RUGGED, "rugged (3)"),
+        ),
+        sizes,
+        seeds,
+        (MethodSpec.make("hessian", {"steps": steps}), MethodSpec.make("gradient")),
+    )
 
 
 def add_arguments(parser: argparse.ArgumentParser) -> None:
-    parser.add_argument("--quick", action="store_true", help="smaller sizes (about 10 s)")
     parser.add_argument(
-        "--out", default="orthoclimb-demo", help="folder for the summary (default: %(default)s)"
+        "--quick", action="store_true", help="a smaller study (well under a minute; used by CI)"
     )
-    parser.add_argument("--seed", type=int, default=2026, help="disorder seed")
-
-
-def _best_of(fn, repeats: int = 3) -> float:
-    times = []
-    for _ in range(repeats):
-        start = time.perf_counter()
-        fn()
-        times.append(time.perf_counter() - start)
-    return min(times)
-
-
-def _tour_one(name: str, mix: Mixture, n: int, seed: int) -> dict:
-    verdict = full_rsb(mix)
-    alg = algorithmic_energy(mix)
-    gs = ground_state(mix)
-    print(
-        f"\n== {name}: xi(q) = "
-        + " + ".join(f"{c:g} q^{p}" for p, c in mix.xi_coefficients.items())
+    parser.add_argument(
+        "--out", default="orthoclimb-demo", help="study folder (default: %(default)s)"
     )
-    print(
-        f"   full-RSB criterion: {'holds' if verdict.holds else 'fails'}"
-        + ("" if verdict.holds else f" on {verdict.failing_intervals}")
-    )
-    print(f"   ALG = {alg:.6f}   ground state = {gs.value:.6f}   gap = {gs.value - alg:.2e}")
-    need = estimate_memory(mix, n)
-    print(f"   sampling n = {n}: {format_bytes(need)} of coefficients", flush=True)
-    require_memory(need, f"the demo instance of {name}")
-    start = time.perf_counter()
-    ham = Hamiltonian.sample(mix, n, seed=seed)
-    t_sample = time.perf_counter() - start
-    rng = np.random.default_rng(seed)
-    x = rng.standard_normal(n)
-    x /= np.linalg.norm(x)
-    e, g = ham.energy_and_gradient(x)
-    euler = abs(x @ g - _euler_sum(ham, x))
-    times = {
-        "sample": t_sample,
-        "energy": _best_of(lambda: ham.energy(x)),
-        "gradient": _best_of(lambda: ham.gradient(x)),
-        "hvp": _best_of(lambda: ham.hvp(x, g)),
-        "hessian": _best_of(lambda: ham.hessian(x)),
-    }
-    spread = np.sqrt(mix.xi(1.0) / n)
-    print(
-        f"   energy per spin at a random point: {e / n:+.4f} (standard deviation "
-        f"sqrt(xi(1)/n) = {spread:.3f}; the maximum is near {gs.value:.3f})"
-    )
-    print(f"   Euler identity x.grad H = sum_p p H_p holds to {euler:.1e}")
-    print("   one pass: " + ", ".join(f"{k} {v * 1e3:.1f} ms" for k, v in times.items()))
-    return {
-        "mixture": mix.to_dict(),
-        "n": n,
-        "seed": seed,
-        "full_rsb": verdict.holds,
-        "failing_intervals": verdict.failing_intervals,
-        "alg": alg,
-        "ground_state": gs.value,
-        "gap": gs.value - alg,
-        "energy_per_spin_random_point": e / n,
-        "euler_residual": euler,
-        "seconds": times,
-        "nbytes": ham.nbytes,
-    }
-
-
-def _euler_sum(ham: Hamiltonian, x: np.ndarray) -> float:
-    """sum_p p H_p(x), from one single-degree instance view per degree (exact identity)."""
-    total = 0.0
-    for p in ham.degrees:
-        part = Hamiltonian.from_coefficients(ham.n, {p: ham.coefficients(p)})
-        total += p * part.energy(x)
-    return total
+    add_engine_arguments(parser)
 
 
 def run(args: argparse.Namespace) -> int:
-    n_by_degree = {4: 40, 3: 120} if args.quick else {4: 70, 3: 300}
-    print(f"orthoclimb {__version__}: {get_num_threads()} threads, kernels {kernel_path()}")
-    summary = {"version": __version__, "threads": get_num_threads(), "cases": []}
-    for name, mix in SCENARIO.items():
-        n = n_by_degree[mix.max_degree]
-        summary["cases"].append(_tour_one(name, mix, n, args.seed))
-    out = write_json_atomic(Path(args.out) / "summary.json", summary)
-    print(f"\nsummary written to {out}")
-    return 0
+    spec = demo_spec(args.quick)
+    print("orthoclimb demo: a lab compares two landscapes and two climbers.")
+    print("  gentle (2+4): xi = q^2 + q^4/16, full RSB holds, so GS = ALG")
+    print("  rugged (3):   xi = q^3, full RSB fails, so GS > ALG")
+    print("  climbers: Hessian ascent vs gradient ascent; energies per spin, maximized")
+    start = time.perf_counter()
+    outcome, rep = execute(spec, args.out, args, report=True)
+    print()
+    print(rep.table())
+    print("\nwhat this run measured:")
+    for f in rep.findings:
+        print(f"- {f}")
+    print(f"\nreport: {rep.files['markdown']}")
+    print(f"plots:  {rep.files['energy_vs_n']}  {rep.files['distribution']}")
+    print(f"table:  {args.out}/results.parquet, {args.out}/results.csv")
+    print(f"demo finished in {time.perf_counter() - start:.0f} s")
+    return 1 if outcome.failed else 0

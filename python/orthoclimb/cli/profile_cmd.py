@@ -1,0 +1,52 @@
+"""``orthoclimb profile --gammas 3:1 --n 100,200,400,800``: time the kernels at each n.
+
+Prints one line per n (seconds per pass of energy, energy+gradient, one HVP, the Hessian) and
+the fitted exponent b of t ~ n^b per kernel (close to the largest degree P for large n), and
+writes profile.json and profile.png into ``--out``.
+"""
+
+from __future__ import annotations
+
+import argparse
+import json
+
+__all__ = ["add_arguments", "run"]
+
+
+def add_arguments(parser: argparse.ArgumentParser) -> None:
+    which = parser.add_mutually_exclusive_group(required=True)
+    which.add_argument("--gammas", metavar="P:G,...", help="mixture as p:gamma_p pairs")
+    which.add_argument("--xi", metavar="P:C,...", help="mixture as p:gamma_p^2 pairs")
+    parser.add_argument("--n", dest="sizes", required=True, help="sizes, e.g. 100,200,400")
+    parser.add_argument("--repeats", type=int, default=3, help="best of (default 3)")
+    parser.add_argument("--threads", type=int, default=None, help="kernel threads")
+    parser.add_argument("--out", default="orthoclimb-profile", help="output folder")
+    parser.add_argument("--json", action="store_true", help="print JSON")
+
+
+def run(args: argparse.Namespace) -> int:
+    from ..model import Mixture
+    from ..runtime import set_num_threads
+    from ..studies.grid import parse_sizes
+    from ..studies.profile import KERNELS, profile_kernels, write_profile
+
+    mix = Mixture.parse(
+        args.gammas if args.gammas is not None else args.xi, squared=args.xi is not None
+    )
+    if args.threads is not None:
+        set_num_threads(args.threads)
+    prof = profile_kernels(mix, parse_sizes(args.sizes), args.repeats)
+    files = write_profile(prof, args.out)
+    if args.json:
+        print(json.dumps({**prof, "files": files}, indent=2))
+        return 0
+    print(f"{'n':>6} " + " ".join(f"{k:>20}" for k in KERNELS))
+    for r in prof["rows"]:
+        print(f"{r['n']:>6} " + " ".join(f"{r[k]:>19.4g}s" for k in KERNELS))
+    print(
+        "exponent b (t ~ n^b): "
+        + ", ".join(f"{k} {prof['exponents'][k]:.2f}" for k in KERNELS)
+        + f"; largest degree P = {prof['max_degree']}"
+    )
+    print(f"wrote {files['json']} and {files['plot']}")
+    return 0

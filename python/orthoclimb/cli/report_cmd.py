@@ -1,0 +1,49 @@
+"""``orthoclimb report STUDY_DIR``: statistics, extrapolation and plots of a study.
+
+Per (mixture, method, n): mean energy per spin, standard error and count; per (mixture,
+method): e_inf of the fit e_inf + a n^(-k) (weighted least squares, bootstrap interval) beside
+ALG and GS with the difference in standard errors. Writes report.md, report.json,
+energy_vs_n.png and distribution.png into the folder and prints the table.
+"""
+
+from __future__ import annotations
+
+import argparse
+import json
+
+__all__ = ["add_arguments", "run"]
+
+
+def add_arguments(parser: argparse.ArgumentParser) -> None:
+    parser.add_argument("study", help="study folder written by `orthoclimb sweep`")
+    parser.add_argument(
+        "--exponent",
+        type=float,
+        default=None,
+        help="finite-size exponent k (default: the study's, 2/3)",
+    )
+    parser.add_argument("--level", type=float, default=0.9, help="interval level (default 0.9)")
+    parser.add_argument("--bootstrap", type=int, default=2000, help="replicates (default 2000)")
+    parser.add_argument("--no-plots", action="store_true", help="skip the PNG plots")
+    parser.add_argument("--json", action="store_true", help="print the report as JSON")
+
+
+def run(args: argparse.Namespace) -> int:
+    from ..studies.report import write_report
+
+    if not 0 < args.level < 1:
+        raise ValueError(f"--level must be in (0, 1), got {args.level}")
+    if args.bootstrap < 100:
+        raise ValueError(f"--bootstrap must be >= 100, got {args.bootstrap}")
+    rep = write_report(
+        args.study, args.exponent, args.level, args.bootstrap, plots=not args.no_plots
+    )
+    if args.json:
+        print(json.dumps(rep.to_dict(), indent=2))
+        return 0
+    print(rep.table())
+    print()
+    for f in rep.findings:
+        print(f"- {f}")
+    print(f"report: {rep.files['markdown']}")
+    return 0

@@ -1,0 +1,177 @@
+"""``orthoclimb sweep``: run a study grid on Dask into a resumable study folder.
+
+    orthoclimb sweep --gammas 3:1 --n 100,200,400 --seeds 0-19 --methods hessian,gradient \\
+        --out study/
+    orthoclimb sweep study.toml --out study/          # the grid from a TOML file
+    orthoclimb sweep ... --scheduler tcp://HOST:PORT  # an existing Dask cluster
+
+Before it starts it prints the number of tasks, the memory of the largest instance and a rough
+time estimate; a progress bar shows done / running / failed and the time left. Each result is
+written as it arrives; rerunning the same command skips completed tasks. At the end the report
+(``orthoclimb report``) is written into the folder. Energies are per spin, maximized.
+"""
+
+from __future__ import annotations
+
+import argparse
+import time
+from typing import Any
+
+from ..studies.grid import DEFAULT_EXPONENT, StudySpec, spec_from_flags, spec_from_toml
+
+__all__ = ["add_arguments", "execute", "run"]
+
+
+def add_engine_arguments(parser: argparse.ArgumentParser) -> None:
+    parser.add_argument(
+        "--scheduler",
+        metavar="tcp://HOST:PORT",
+        default=None,
+        help="submit to an existing Dask scheduler (default: embedded cluster)",
+    )
+    parser.add_argument(
+        "--workers",
+        type=int,
+        default=None,
+        help="worker processes of the embedded cluster (default: sized to cores)",
+    )
+    parser.add_argument(
+        "--threads",
+        type=int,
+        default=None,
+        help="kernel threads per task (default: cores / workers; 1 on an external cluster)",
+    )
+    parser.add_argument("--retries", type=int, default=2, help="Dask retries per task (default 2)")
+    parser.add_argument(
+        "--timeout", type=float, default=20.0, help="seconds to reach the scheduler (default 20)"
+    )
+    parser.add_argument("--no-progress", action="store_true", help="no progress bar")
+
+
+def add_arguments(parser: argparse.ArgumentParser) -> None:
+    parser.add_argument("spec", nargs="?", default=None, help="study TOML file (instead of flags)")
+    parser.add_argument(
+        "--gammas",
+        action="append",
+        metavar="P:G,...",
+        help="a mixture as p:gamma_p pairs; repeat for several mixtures",
+    )
+    parser.add_argument(
+        "--xi",
+        action="append",
+        metavar="P:C,...",
+        help="a mixture as p:gamma_p^2 pairs; repeatable",
+    )
+    parser.add_argument("--n", dest="sizes", default=None, help="sizes, e.g. 100,200,400")
+    parser.add_argument("--seeds", default=None, help="disorder seeds, e.g. 0-19 or 1,5,9")
+    parser.add_argument(
+        "--methods", default="hessian,gradient", help="methods: hessian,gradient (default both)"
+    )
+    parser.add_argument("--steps", type=int, default=None, help="hessian: K (default 200)")
+    parser.add_argument("--tol", type=float, default=None, help="hessian: delta (default 1e-3)")
+    parser.add_argument("--no-polish", action="store_true", help="hessian: skip the polish")
+    parser.add_argument(
+        "--max-iter", type=int, default=None, help="gradient: iteration cap (default 2000)"
+    )
+    parser.add_argument(
+        "--exponent",
+        type=float,
+        default=None,
+        help="finite-size exponent k of e_inf + a n^-k (default 2/3)",
+    )
+    parser.add_argument("--out", required=True, help="study folder")
+    parser.add_argument("--no-report", action="store_true", help="skip the report at the end")
+    add_engine_arguments(parser)
+
+
+def _spec(args: argparse.Namespace) -> StudySpec:
+    flags = [args.gammas, args.xi, args.sizes, args.seeds, args.steps, args.tol, args.max_iter]
+    if args.spec is not None:
+        if any(f is not None for f in flags) or args.no_polish:
+            raise ValueError("give the study either as a TOML file or as flags, not both")
+        spec = spec_from_toml(args.spec)
+        if args.exponent is not None:
+            raise ValueError("set the exponent inside the TOML file (key 'exponent')")
+        return spec
+    if args.sizes is None or args.seeds is None:
+        raise ValueError("give --n and --seeds (and --gammas), or a study TOML file")
+    opts: dict[str, dict[str, Any]] = {"hessian": {}, "gradient": {}}
+    if args.steps is not None:
+        opts["hessian"]["steps"] = args.steps
+    if args.tol is not None:
+        opts["hessian"]["tol"] = args.tol
+    if args.no_polish:
+        opts["hessian"]["polish"] = False
+    if args.max_iter is not None:
+        opts["gradient"]["max_iter"] = args.max_iter
+    exponent = DEFAULT_EXPONENT if args.exponent is None else args.exponent
+    return spec_from_flags(
+        args.gammas, args.xi, args.sizes, args.seeds, args.methods, opts, exponent
+    )
+
+
+def execute(
+    spec: StudySpec, out: str, args: argparse.Namespace, report: bool = True, say=print
+) -> tuple[Any, Any]:
+    """Run ``spec`` into ``out`` with the engine flags of ``args``; then write the report."""
+    from ..model.memory import format_bytes
+    from ..studies.engine import run_study
+    from ..studies.estimate import estimate_seconds, largest_instance
+    from ..studies.report import write_report
+
+    def on_start(pending: list, plan) -> None:
+        total = len(spec.tasks())
+        nbytes, mix, n = largest_instance(spec, pending)
+        say(
+            f"study: {total} tasks ({total - len(pending)} already done, {len(pending)} to run)"
+            f" in {out}"
+        )
+        say(
+            f"largest instance: {mix}, n = {n}: {format_bytes(nbytes)} of coefficients per "
+            "running task"
+        )
+        if plan is not None:
+            say(
+                f"embedded Dask cluster: {plan.workers} worker processes x {plan.dask_threads} "
+                f"task x {plan.rayon_threads} kernel threads = {plan.cores_used} cores"
+            )
+            workers, threads = plan.workers, plan.rayon_threads
+        else:
+            say(f"Dask scheduler: {args.scheduler}")
+            workers, threads = 1, args.threads or 1
+        est = estimate_seconds(spec, pending, workers, threads)
+        where = " (for one worker of the external cluster)" if plan is None else ""
+        say(f"rough time estimate: {est:.0f} s{where}", flush=True)
+
+    start = time.perf_counter()
+    outcome = run_study(
+        spec,
+        out,
+        scheduler=args.scheduler,
+        workers=args.workers,
+        threads=args.threads,
+        retries=args.retries,
+        timeout=args.timeout,
+        progress=not args.no_progress,
+        on_start=on_start,
+    )
+    say(
+        f"sweep: {outcome.done} tasks run, {outcome.skipped} skipped (already done), "
+        f"{outcome.failed} failed, {time.perf_counter() - start:.1f} s"
+    )
+    if outcome.failed:
+        say(f"failed tasks are listed in {out}/failed/; rerun the same command to retry them")
+    rep = write_report(out) if report else None
+    return outcome, rep
+
+
+def run(args: argparse.Namespace) -> int:
+    spec = _spec(args)
+    outcome, rep = execute(spec, args.out, args, report=not args.no_report)
+    if rep is not None:
+        print(rep.table())
+        print(
+            f"report: {rep.files['markdown']}; plots: {rep.files.get('energy_vs_n')}, "
+            f"{rep.files.get('distribution')}"
+        )
+    return 1 if outcome.failed else 0

@@ -1,0 +1,246 @@
+"""Run the tasks of a study on Dask distributed.
+
+By default an embedded :class:`distributed.LocalCluster` of worker *processes* on loopback,
+sized by :func:`plan_workers`; with ``scheduler="tcp://HOST:PORT"`` the tasks go to an existing
+cluster (its workers need orthoclimb installed). Tasks are submitted as futures with Dask's
+``retries=`` and collected with ``as_completed``: no scheduler, pool or retry loop of our own.
+Each finished task's row is written atomically by the driver as soon as it arrives
+(:class:`~orthoclimb.studies.store.Store`), so a killed driver loses only the running tasks,
+and a worker that dies loses its running task, which Dask reschedules on another worker.
+
+Thread sizing. Each worker process runs one task at a time (one Dask thread) and gives its
+kernels ``rayon`` threads, with workers x dask_threads x rayon <= cores, so the two levels of
+parallelism never oversubscribe the machine.
+"""
+
+from __future__ import annotations
+
+import math
+import os
+import signal
+import time
+from collections.abc import Callable
+from dataclasses import dataclass
+from typing import Any
+
+from .grid import StudySpec
+from .store import Store
+from .tasks import Task, run_task
+
+__all__ = ["SweepOutcome", "WorkerPlan", "available_cores", "plan_workers", "run_study"]
+
+
+@dataclass(frozen=True)
+class WorkerPlan:
+    """``workers`` processes x ``dask_threads`` tasks each x ``rayon_threads`` kernel threads."""
+
+    workers: int
+    dask_threads: int
+    rayon_threads: int
+
+    @property
+    def cores_used(self) -> int:
+        return self.workers * self.dask_threads * self.rayon_threads
+
+
+def available_cores() -> int:
+    """Cores this process may run on (CPU affinity where the OS reports it)."""
+    try:
+        return max(1, len(os.sched_getaffinity(0)))
+    except AttributeError:  # pragma: no cover - not Linux
+        return max(1, os.cpu_count() or 1)
+
+
+def plan_workers(
+    cores: int,
+    tasks: int | None = None,
+    workers: int | None = None,
+    memory_per_task: int | None = None,
+    memory: int | None = None,
+) -> WorkerPlan:
+    """Choose worker processes and threads for ``cores`` cores.
+
+    Policy: one task per worker at a time (dask_threads = 1: the Python parts of an algorithm
+    hold the GIL, so processes, not threads, give task parallelism); as many workers as cores
+    (many small tasks scale best across processes), but no more than the number of ``tasks``,
+    than ``workers`` if given, nor than ``memory // (2 memory_per_task)`` (each running task
+    holds one instance plus working copies); the cores left go to rayon inside each task:
+    rayon_threads = cores // workers. Always workers x dask_threads x rayon_threads <= cores.
+    """
+    if isinstance(cores, bool) or not isinstance(cores, int) or cores < 1:
+        raise ValueError(f"cores must be a positive integer, got {cores!r}")
+    limit = cores
+    if workers is not None:
+        if isinstance(workers, bool) or not isinstance(workers, int) or workers < 1:
+            raise ValueError(f"--workers must be a positive integer, got {workers!r}")
+        limit = min(limit, workers)
+    if tasks is not None:
+        limit = min(limit, max(1, int(tasks)))
+    if memory_per_task and memory:
+        limit = min(limit, max(1, int(memory // (2 * memory_per_task))))
+    n_workers = max(1, limit)
+    return WorkerPlan(n_workers, 1, max(1, cores // n_workers))
+
+
+@dataclass
+class SweepOutcome:
+    total: int
+    skipped: int
+    done: int
+    failed: int
+    seconds: float
+    plan: WorkerPlan | None
+    address: str | None
+
+
+def _connect(scheduler: str | None, plan: WorkerPlan, timeout: float):
+    """A (client, cluster) pair; cluster is None for an external scheduler."""
+    from distributed import Client, LocalCluster
+
+    if scheduler is None:
+        cluster = LocalCluster(
+            n_workers=plan.workers,
+            threads_per_worker=plan.dask_threads,
+            processes=True,
+            host="127.0.0.1",
+            dashboard_address=":0",
+            env={"ORTHOCLIMB_NUM_THREADS": str(plan.rayon_threads)},
+            silence_logs=40,
+        )
+        return Client(cluster, timeout=timeout), cluster
+    if not isinstance(scheduler, str) or "://" not in scheduler:
+        raise ValueError(f"--scheduler must be an address like tcp://HOST:PORT, got {scheduler!r}")
+    try:
+        client = Client(scheduler, timeout=timeout)
+    except (OSError, TimeoutError) as exc:
+        raise ValueError(
+            f"cannot reach the Dask scheduler at {scheduler} within {timeout:g} s ({exc}); "
+            "check the address, or omit --scheduler to use an embedded local cluster"
+        ) from None
+    return client, None
+
+
+def _term_to_interrupt(signum, frame):  # pragma: no cover - exercised by a subprocess test
+    raise KeyboardInterrupt
+
+
+def run_study(
+    spec: StudySpec,
+    folder: str | os.PathLike,
+    scheduler: str | None = None,
+    workers: int | None = None,
+    threads: int | None = None,
+    retries: int = 2,
+    timeout: float = 20.0,
+    progress: bool = True,
+    log: Callable[[str], Any] = print,
+    on_start: Callable[[list, WorkerPlan | None], Any] | None = None,
+) -> SweepOutcome:
+    """Run the pending tasks of ``spec`` into the study folder; returns counts and time.
+
+    ``workers``/``threads``: override the plan (embedded cluster) or set the kernel threads per
+    task (external cluster; default 1). ``retries``: Dask retries per task after an exception.
+    ``timeout``: seconds to reach the scheduler. ``on_start(pending, plan)`` is called before
+    the cluster starts with the pending tasks (the CLI prints counts and estimates there).
+    """
+    from tqdm import tqdm
+
+    if isinstance(retries, bool) or not isinstance(retries, int) or retries < 0:
+        raise ValueError(f"--retries must be an integer >= 0, got {retries!r}")
+    if not (isinstance(timeout, (int, float)) and math.isfinite(timeout) and timeout > 0):
+        raise ValueError(f"--timeout must be a positive number of seconds, got {timeout!r}")
+    if threads is not None and (isinstance(threads, bool) or threads < 1):
+        raise ValueError(f"--threads must be a positive integer, got {threads!r}")
+    store = Store.open(folder, spec)
+    tasks = spec.tasks()
+    pending = store.pending(tasks)
+    skipped = len(tasks) - len(pending)
+    plan: WorkerPlan | None = None
+    start = time.perf_counter()
+    if not pending:
+        store.write_table()
+        return SweepOutcome(len(tasks), skipped, 0, 0, 0.0, None, None)
+    if scheduler is None:
+        from ..model import available_memory, estimate_memory
+
+        biggest = max(estimate_memory(t.mixture.mixture, t.n, t.dtype) for t in pending)
+        plan = plan_workers(available_cores(), len(pending), workers, biggest, available_memory())
+        if threads is not None:
+            plan = WorkerPlan(plan.workers, 1, min(threads, plan.rayon_threads))
+    if on_start is not None:
+        on_start(pending, plan)
+    old_term = signal.getsignal(signal.SIGTERM)
+    try:  # SIGTERM -> KeyboardInterrupt, so the cluster is shut down cleanly
+        signal.signal(signal.SIGTERM, _term_to_interrupt)
+    except ValueError:  # pragma: no cover - not the main thread
+        old_term = None
+    done = failed = 0
+    client = cluster = None
+    bar = None
+    try:
+        client, cluster = _connect(scheduler, plan or WorkerPlan(1, 1, 1), timeout)
+        task_threads = plan.rayon_threads if plan is not None else (threads or 1)
+        from distributed import as_completed
+
+        by_key: dict[str, Task] = {}
+        futures = []
+        for task in pending:
+            fut = client.submit(
+                run_task,
+                task,
+                task_threads,
+                key=f"orthoclimb-{task.task_id}",
+                retries=retries,
+                pure=False,
+            )
+            by_key[fut.key] = task
+            futures.append(fut)
+        bar = tqdm(
+            total=len(tasks),
+            initial=skipped,
+            disable=not progress,
+            unit="task",
+            dynamic_ncols=True,
+            smoothing=0.1,
+            mininterval=0.5,
+        )
+
+        try:
+            slots = sum(client.nthreads().values())
+        except Exception:  # noqa: BLE001 - the count is cosmetic
+            slots = 10**9
+
+        def show() -> None:
+            try:  # tasks assigned to workers, at most one per worker thread is executing
+                running = min(slots, sum(len(v) for v in client.processing().values()))
+            except Exception:  # noqa: BLE001 - the count is cosmetic
+                running = -1
+            bar.set_postfix(done=skipped + done, running=running, failed=failed, refresh=True)
+
+        show()
+        for fut in as_completed(futures):
+            task = by_key[fut.key]
+            if fut.status == "finished":
+                store.write_row(fut.result())
+                done += 1
+            else:
+                exc = fut.exception()
+                store.write_failure(task.task_id, task.config(), f"{type(exc).__name__}: {exc}")
+                failed += 1
+            bar.update(1)
+            show()
+            fut.release()
+    finally:
+        if bar is not None:
+            bar.close()
+        if client is not None:
+            client.close()
+        if cluster is not None:
+            cluster.close()
+        if old_term is not None:
+            signal.signal(signal.SIGTERM, old_term)
+        store.write_table()
+    address = None if scheduler is None else scheduler
+    return SweepOutcome(
+        len(tasks), skipped, done, failed, time.perf_counter() - start, plan, address
+    )

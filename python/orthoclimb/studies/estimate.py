@@ -1,0 +1,84 @@
+"""Rough up-front cost of a study: memory of its largest instance and a time estimate.
+
+Time model (seconds, per task): a kernel pass at size n costs t_pass(n0) (n/n0)^P, with
+t_pass timed on the driver at a calibration size n0 (the largest size whose instance takes at
+most 64 MB, at most 120) and P the largest degree. Hessian ascent: K x (a Hessian pass plus
+Lanczos, about 1e-7 n^2 + 2e-3 s) plus about 150 energy-and-gradient passes for the polish;
+gradient ascent: about 500 passes x 1.5 for backtracking (its iteration count is not known in
+advance), capped by max_iter. The total is divided by the number of
+workers. It is a rough guide (a factor of 2 either way), printed before a sweep starts.
+"""
+
+from __future__ import annotations
+
+import math
+import time
+
+import numpy as np
+
+from .grid import StudySpec
+
+__all__ = ["estimate_seconds", "largest_instance"]
+
+_CAL_BYTES = 64 * 2**20
+
+
+def largest_instance(spec: StudySpec, tasks=None) -> tuple[int, str, int]:
+    """(bytes, mixture name, n) of the largest instance among ``tasks`` (default: all)."""
+    from ..model import estimate_memory
+
+    tasks = spec.tasks() if tasks is None else tasks
+    best = (0, "", 0)
+    for t in tasks:
+        b = estimate_memory(t.mixture.mixture, t.n, t.dtype)
+        if b > best[0]:
+            best = (b, t.mixture.name, t.n)
+    return best
+
+
+def _best(fn, repeats: int = 2) -> float:
+    out = math.inf
+    for _ in range(repeats):
+        t = time.perf_counter()
+        fn()
+        out = min(out, time.perf_counter() - t)
+    return out
+
+
+def estimate_seconds(spec: StudySpec, tasks, workers: int, threads: int = 1) -> float:
+    """Rough wall-clock seconds for ``tasks`` on ``workers`` workers (see the module doc)."""
+    from ..model import Hamiltonian, estimate_memory
+    from ..runtime import get_num_threads, set_num_threads
+
+    if not tasks:
+        return 0.0
+    old = get_num_threads()
+    set_num_threads(max(1, threads))
+    try:
+        cal: dict[str, tuple[int, float, float, int]] = {}
+        for m in spec.mixtures:
+            mix = m.mixture
+            fits = [n for n in spec.sizes if estimate_memory(mix, n) <= _CAL_BYTES]
+            n0 = max(fits) if fits else min(spec.sizes)
+            n0 = min(n0, 120)
+            ham = Hamiltonian.sample(mix, n0, seed=0)
+            x = np.full(n0, 1.0 / math.sqrt(n0))
+            cal[m.name] = (
+                n0,
+                _best(lambda h=ham, v=x: h.hessian(v)),
+                _best(lambda h=ham, v=x: h.energy_and_gradient(v)),
+                mix.max_degree,
+            )
+    finally:
+        set_num_threads(old)
+    total = 0.0
+    for t in tasks:
+        n0, th, tg, p = cal[t.mixture.name]
+        scale = (t.n / n0) ** p
+        opts = dict(t.method.options)
+        if t.method.name == "hessian":
+            eigen = 1e-7 * t.n**2 + 2e-3  # Lanczos on the n x n tangent Hessian, per step
+            total += scale * (opts["steps"] * th + 150 * tg) + eigen * opts["steps"]
+        else:
+            total += scale * min(500, opts["max_iter"]) * tg * 1.5
+    return total / max(1, workers)

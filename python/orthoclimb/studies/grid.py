@@ -1,0 +1,373 @@
+"""Study specification: the grid mixtures x sizes n x seeds x methods (with options).
+
+A study is read from command-line flags (:func:`spec_from_flags`) or from a TOML file
+(:func:`spec_from_toml`)::
+
+    exponent = 0.6666666666666666     # finite-size law e(n) = e_inf + a n^(-exponent)
+    sizes = [100, 200, 400]
+    seeds = "0-19"                    # or a list of integers
+
+    [[mixture]]
+    name = "rugged"
+    gammas = { 3 = 1.0 }              # p -> gamma_p; or xi = { 3 = 1.0 } (p -> gamma_p^2)
+    # sizes = [50, 100]               # optional: this mixture's own sizes
+
+    [[method]]
+    name = "hessian"                  # hessian | gradient
+    steps = 100                       # options of that method (see METHOD_OPTIONS)
+
+Each task is one (mixture, n, seed, method + options); see :mod:`orthoclimb.studies.tasks`.
+Energies throughout are per spin, H(x)/n on the unit sphere, maximized.
+"""
+
+from __future__ import annotations
+
+import math
+import sys
+from collections.abc import Iterable, Mapping
+from dataclasses import dataclass
+from pathlib import Path
+from typing import Any
+
+from ..model import Mixture
+
+if sys.version_info >= (3, 11):
+    import tomllib
+else:  # pragma: no cover - Python 3.10
+    import tomli as tomllib
+
+__all__ = [
+    "DEFAULT_EXPONENT",
+    "METHOD_OPTIONS",
+    "MethodSpec",
+    "MixtureSpec",
+    "StudySpec",
+    "parse_methods",
+    "parse_seeds",
+    "parse_sizes",
+    "spec_from_flags",
+    "spec_from_toml",
+]
+
+DEFAULT_EXPONENT = 2.0 / 3.0
+
+# method -> option -> (type, default). Defaults follow orthoclimb.hessian_ascent /
+# orthoclimb.gradient_ascent.
+METHOD_OPTIONS: dict[str, dict[str, tuple[type, Any]]] = {
+    "hessian": {"steps": (int, 200), "tol": (float, 1e-3), "polish": (bool, True)},
+    "gradient": {"max_iter": (int, 2000), "gtol": (float, 1e-7)},
+}
+MAX_SIZE = 100_000
+
+
+def _int_token(text: str, what: str, whole: str) -> int:
+    try:
+        return int(text.strip())
+    except ValueError:
+        raise ValueError(f"{what} {text.strip()!r} in {whole!r} is not an integer") from None
+
+
+def parse_seeds(text: str | Iterable[int]) -> tuple[int, ...]:
+    """Seeds from text like ``"0-19"``, ``"1,5,9"`` or ``"0-4,10-12"`` (ranges inclusive),
+    or from a list of integers. Refuses empty, negative, reversed (``"5-2"``) and repeated seeds."""
+    if isinstance(text, str):
+        body = text.strip()
+        if not body:
+            raise ValueError("seeds are empty; expected e.g. '0-19' or '1,5,9'")
+        seeds: list[int] = []
+        for chunk in body.split(","):
+            piece = chunk.strip()
+            if not piece:
+                raise ValueError(f"empty item in seeds {text!r}; expected e.g. '0-19' or '1,5,9'")
+            lo_text, dash, hi_text = piece.partition("-")
+            if dash:
+                if not lo_text.strip():
+                    raise ValueError(f"seeds must be >= 0; cannot read {piece!r} in {text!r}")
+                lo = _int_token(lo_text, "seed", text)
+                hi = _int_token(hi_text, "seed", text)
+                if hi < lo:
+                    raise ValueError(
+                        f"seed range {piece!r} in {text!r} is reversed (end {hi} < start {lo});"
+                        f" write '{hi}-{lo}'"
+                    )
+                seeds.extend(range(lo, hi + 1))
+            else:
+                seeds.append(_int_token(piece, "seed", text))
+    else:
+        try:
+            items = list(text)
+        except TypeError:
+            raise TypeError(
+                f"seeds must be text like '0-19' or a list of integers, got {text!r}"
+            ) from None
+        seeds = []
+        for s in items:
+            if isinstance(s, bool) or not isinstance(s, int):
+                raise TypeError(f"seeds must be integers, got {s!r}")
+            seeds.append(s)
+        if not seeds:
+            raise ValueError("the list of seeds is empty")
+    bad = [s for s in seeds if s < 0 or s >= 2**63]
+    if bad:
+        raise ValueError(f"seeds must be in [0, 2^63), got {bad[0]}")
+    dup = sorted({s for s in seeds if seeds.count(s) > 1})
+    if dup:
+        raise ValueError(f"seed {dup[0]} is given twice")
+    return tuple(seeds)
+
+
+def parse_sizes(text: str | Iterable[int]) -> tuple[int, ...]:
+    """Sizes n from text like ``"100,200,400"`` or a list; each 2 <= n <= 100000, distinct."""
+    if isinstance(text, str):
+        if not text.strip():
+            raise ValueError("sizes are empty; expected e.g. '100,200,400'")
+        sizes = [_int_token(t, "size", text) for t in text.split(",")]
+    else:
+        sizes = []
+        for s in text:
+            if isinstance(s, bool) or not isinstance(s, int):
+                raise TypeError(f"sizes must be integers, got {s!r}")
+            sizes.append(s)
+    if not sizes:
+        raise ValueError("the list of sizes is empty")
+    for s in sizes:
+        if not 2 <= s <= MAX_SIZE:
+            raise ValueError(f"size n must be in [2, {MAX_SIZE}], got {s}")
+    if len(set(sizes)) != len(sizes):
+        raise ValueError(f"a size is given twice in {list(sizes)}")
+    return tuple(sorted(sizes))
+
+
+@dataclass(frozen=True)
+class MethodSpec:
+    """An algorithm and its options (every option filled in with its default)."""
+
+    name: str
+    options: tuple[tuple[str, Any], ...]
+
+    @classmethod
+    def make(cls, name: str, options: Mapping[str, Any] | None = None) -> MethodSpec:
+        if name not in METHOD_OPTIONS:
+            raise ValueError(f"unknown method {name!r}; choose from {sorted(METHOD_OPTIONS)}")
+        allowed = METHOD_OPTIONS[name]
+        given = dict(options or {})
+        unknown = sorted(set(given) - set(allowed))
+        if unknown:
+            raise ValueError(
+                f"method {name!r} has no option {unknown[0]!r}; its options are {sorted(allowed)}"
+            )
+        out = {}
+        for key, (kind, default) in allowed.items():
+            value = given.get(key, default)
+            if kind is bool:
+                if not isinstance(value, bool):
+                    raise TypeError(f"option {key} of {name} must be true/false, got {value!r}")
+            elif kind is int:
+                if isinstance(value, bool) or not isinstance(value, int) or value < 1:
+                    raise ValueError(
+                        f"option {key} of {name} must be an integer >= 1, got {value!r}"
+                    )
+            else:
+                if isinstance(value, bool) or not isinstance(value, (int, float)):
+                    raise TypeError(f"option {key} of {name} must be a number, got {value!r}")
+                value = float(value)
+                if not (math.isfinite(value) and value > 0):
+                    raise ValueError(f"option {key} of {name} must be positive, got {value!r}")
+            out[key] = value
+        return cls(name, tuple(sorted(out.items())))
+
+    @property
+    def label(self) -> str:
+        return self.name
+
+    def to_dict(self) -> dict[str, Any]:
+        return {"name": self.name, **dict(self.options)}
+
+
+@dataclass(frozen=True)
+class MixtureSpec:
+    """A named mixture; ``gammas`` as sorted (p, gamma_p) pairs; ``sizes`` overrides the
+    study's sizes for this mixture (higher degrees cost n^P, so they often need smaller n)."""
+
+    name: str
+    gammas: tuple[tuple[int, float], ...]
+    sizes: tuple[int, ...] | None = None
+
+    @classmethod
+    def make(
+        cls, mixture: Mixture, name: str | None = None, sizes: Iterable[int] | str | None = None
+    ) -> MixtureSpec:
+        own = None if sizes is None else parse_sizes(sizes)
+        return cls(name or mixture.to_text(), tuple(sorted(mixture.gammas.items())), own)
+
+    @property
+    def mixture(self) -> Mixture:
+        return Mixture(dict(self.gammas))
+
+    def to_dict(self) -> dict[str, Any]:
+        out: dict[str, Any] = {"name": self.name, "gammas": {str(p): g for p, g in self.gammas}}
+        if self.sizes is not None:
+            out["sizes"] = list(self.sizes)
+        return out
+
+
+@dataclass(frozen=True)
+class StudySpec:
+    """The full study grid. ``to_dict`` is the canonical configuration stored in study.json."""
+
+    mixtures: tuple[MixtureSpec, ...]
+    sizes: tuple[int, ...]
+    seeds: tuple[int, ...]
+    methods: tuple[MethodSpec, ...]
+    exponent: float = DEFAULT_EXPONENT
+    dtype: str = "float64"
+
+    def __post_init__(self) -> None:
+        if not self.mixtures:
+            raise ValueError("a study needs at least one mixture")
+        if not self.methods:
+            raise ValueError("a study needs at least one method")
+        names = [m.name for m in self.mixtures]
+        if len(set(names)) != len(names):
+            raise ValueError(f"mixture names must be distinct, got {names}")
+        labels = [m.label for m in self.methods]
+        if len(set(labels)) != len(labels):
+            raise ValueError(f"each method may appear once, got {labels}")
+        if not (math.isfinite(self.exponent) and self.exponent > 0):
+            raise ValueError(f"the extrapolation exponent must be positive, got {self.exponent}")
+        if self.dtype not in ("float64", "float32"):
+            raise ValueError(f"dtype must be float64 or float32, got {self.dtype!r}")
+
+    def to_dict(self) -> dict[str, Any]:
+        return {
+            "mixtures": [m.to_dict() for m in self.mixtures],
+            "sizes": list(self.sizes),
+            "seeds": list(self.seeds),
+            "methods": [m.to_dict() for m in self.methods],
+            "exponent": self.exponent,
+            "dtype": self.dtype,
+        }
+
+    @classmethod
+    def from_dict(cls, data: Mapping[str, Any]) -> StudySpec:
+        try:
+            mixtures = tuple(
+                MixtureSpec.make(Mixture.from_dict(m["gammas"]), m["name"], m.get("sizes"))
+                for m in data["mixtures"]
+            )
+            methods = tuple(
+                MethodSpec.make(m["name"], {k: v for k, v in m.items() if k != "name"})
+                for m in data["methods"]
+            )
+            return cls(
+                mixtures,
+                parse_sizes(data["sizes"]),
+                parse_seeds(data["seeds"]),
+                methods,
+                float(data.get("exponent", DEFAULT_EXPONENT)),
+                str(data.get("dtype", "float64")),
+            )
+        except KeyError as exc:
+            raise ValueError(f"study configuration lacks the key {exc.args[0]!r}") from None
+
+    def tasks(self) -> list:
+        """All tasks, in the order mixture, method, n (small first), seed."""
+        from .tasks import Task
+
+        return [
+            Task(mix, n, seed, method, self.dtype)
+            for mix in self.mixtures
+            for n in (mix.sizes or self.sizes)
+            for method in self.methods
+            for seed in self.seeds
+        ]
+
+
+def parse_methods(text: str, options: Mapping[str, Mapping[str, Any]] | None = None):
+    """Methods from ``"hessian,gradient"``; ``options`` maps a method name to its options."""
+    names = [t.strip() for t in text.split(",") if t.strip()]
+    if not names:
+        raise ValueError("no method given; choose from " + ", ".join(sorted(METHOD_OPTIONS)))
+    options = options or {}
+    return tuple(MethodSpec.make(name, options.get(name)) for name in names)
+
+
+def spec_from_flags(
+    gammas: list[str] | None,
+    xi: list[str] | None,
+    sizes: str,
+    seeds: str,
+    methods: str,
+    method_options: Mapping[str, Mapping[str, Any]] | None = None,
+    exponent: float = DEFAULT_EXPONENT,
+) -> StudySpec:
+    """Build a study from the ``sweep`` flags (each ``--gammas``/``--xi`` adds a mixture)."""
+    mixes = [MixtureSpec.make(Mixture.parse(t)) for t in gammas or []]
+    mixes += [MixtureSpec.make(Mixture.parse(t, squared=True)) for t in xi or []]
+    if not mixes:
+        raise ValueError("give at least one mixture with --gammas (or --xi), or a TOML file")
+    return StudySpec(
+        tuple(mixes),
+        parse_sizes(sizes),
+        parse_seeds(seeds),
+        parse_methods(methods, method_options),
+        float(exponent),
+    )
+
+
+def _toml_mixture(entry: Any, i: int) -> MixtureSpec:
+    if not isinstance(entry, dict):
+        raise ValueError(f"[[mixture]] entry {i} must be a table")
+    has_g, has_xi = "gammas" in entry, "xi" in entry
+    if has_g == has_xi:
+        raise ValueError(f"[[mixture]] entry {i} needs exactly one of 'gammas' or 'xi'")
+    table = entry["gammas"] if has_g else entry["xi"]
+    if not isinstance(table, dict):
+        raise ValueError(f"[[mixture]] entry {i}: write gammas/xi as a table like {{ 3 = 1.0 }}")
+    try:
+        pairs = {int(k): v for k, v in table.items()}
+    except ValueError:
+        raise ValueError(f"[[mixture]] entry {i}: degrees must be integers, got {table}") from None
+    mix = Mixture(pairs) if has_g else Mixture.from_xi(pairs)
+    unknown = sorted(set(entry) - {"name", "gammas", "xi", "sizes"})
+    if unknown:
+        raise ValueError(f"[[mixture]] entry {i} has an unknown key {unknown[0]!r}")
+    return MixtureSpec.make(mix, entry.get("name"), entry.get("sizes"))
+
+
+def spec_from_toml(path: str | Path) -> StudySpec:
+    """Read a study from a TOML file (format in the module doc). Errors name the file."""
+    p = Path(path)
+    try:
+        text = p.read_text(encoding="utf-8")
+    except OSError as exc:
+        raise ValueError(f"cannot read the study file {str(p)!r}: {exc.strerror}") from None
+    try:
+        data = tomllib.loads(text)
+    except tomllib.TOMLDecodeError as exc:
+        raise ValueError(f"malformed TOML in {str(p)!r}: {exc}") from None
+    known = {"exponent", "sizes", "seeds", "mixture", "method", "dtype"}
+    unknown = sorted(set(data) - known)
+    if unknown:
+        raise ValueError(f"{str(p)!r}: unknown key {unknown[0]!r}; known keys {sorted(known)}")
+    for key in ("sizes", "seeds", "mixture", "method"):
+        if key not in data:
+            raise ValueError(f"{str(p)!r}: missing key {key!r}")
+    try:
+        mixes = tuple(_toml_mixture(e, i) for i, e in enumerate(data["mixture"]))
+        methods = []
+        for i, entry in enumerate(data["method"]):
+            if not isinstance(entry, dict) or "name" not in entry:
+                raise ValueError(f"[[method]] entry {i} needs a 'name'")
+            opts = {k: v for k, v in entry.items() if k != "name"}
+            methods.append(MethodSpec.make(entry["name"], opts))
+        return StudySpec(
+            mixes,
+            parse_sizes(data["sizes"]),
+            parse_seeds(data["seeds"]),
+            tuple(methods),
+            float(data.get("exponent", DEFAULT_EXPONENT)),
+            str(data.get("dtype", "float64")),
+        )
+    except (ValueError, TypeError) as exc:
+        raise ValueError(f"in study file {str(p)!r}: {exc}") from None

@@ -1,0 +1,441 @@
+"""The study report: per-group statistics, finite-size extrapolation, comparison with theory.
+
+Groups are (mixture, method, n). For each: the mean energy per spin over seeds, its standard
+error s = sd/sqrt(count) (sd with ddof = 1) and the count. For each (mixture, method) with at
+least two sizes: the extrapolation e_inf of the mean in n^(-k) (:mod:`.extrapolate`), set beside
+ALG and the Parisi ground state GS of the mixture, with z = (e_inf - ALG)/se(e_inf) and
+(e_inf - GS)/se(e_inf), the "difference in standard errors". The findings are sentences computed
+from these numbers (what was measured, whatever it is).
+
+Files written into the study folder (atomically): ``report.md``, ``report.json``,
+``energy_vs_n.png`` (mean +- s vs n^(-k), fitted lines, ALG and GS lines, e_inf with its
+interval at n^(-k) = 0) and ``distribution.png`` (energies over seeds at each n).
+"""
+
+from __future__ import annotations
+
+import math
+import os
+from collections import defaultdict
+from dataclasses import dataclass, field
+from pathlib import Path
+from typing import Any
+
+import numpy as np
+
+from ..fileio import save_figure_atomic, write_json_atomic, write_text_atomic
+from .extrapolate import Extrapolation, extrapolate
+from .grid import StudySpec
+from .store import Store, read_config
+from .tasks import theory_values
+
+__all__ = ["Report", "build_report", "write_report"]
+
+Z_CONSISTENT = 2.0  # |z| <= 2: "consistent with"
+
+
+@dataclass
+class Report:
+    spec: StudySpec
+    groups: list[dict[str, Any]]
+    fits: list[dict[str, Any]]
+    theory: dict[str, dict[str, Any]]
+    findings: list[str]
+    missing: int
+    files: dict[str, str] = field(default_factory=dict)
+
+    def table(self) -> str:
+        """Plain-text table for the terminal."""
+        lines = [
+            f"{'mixture':<22} {'method':<9} {'n':>5} {'mean':>8} {'s.e.':>7} {'count':>5}",
+        ]
+        for g in self.groups:
+            lines.append(
+                f"{g['mixture']:<22} {g['method']:<9} {g['n']:>5} {g['mean']:>8.4f} "
+                f"{g['se']:>7.4f} {g['count']:>5}"
+            )
+        lines.append("")
+        lvl = int(round(100 * self.spec_level()))
+        lines.append(
+            f"{'mixture':<22} {'method':<9} {'e_inf':>8} {f'{lvl}% interval':>19} {'ALG':>7} "
+            f"{'GS':>7} {'z(ALG)':>7} {'z(GS)':>7}"
+        )
+        for f in self.fits:
+            if f.get("value") is None:
+                lines.append(f"{f['mixture']:<22} {f['method']:<9} {'--':>8}  {f['note']}")
+                continue
+            lines.append(
+                f"{f['mixture']:<22} {f['method']:<9} {f['value']:>8.4f} "
+                f"[{f['low']:>8.4f},{f['high']:>8.4f}] {f['alg']:>7.4f} {f['gs']:>7.4f} "
+                f"{f['z_alg']:>7.1f} {f['z_gs']:>7.1f}"
+            )
+        return "\n".join(lines)
+
+    def spec_level(self) -> float:
+        for f in self.fits:
+            if f.get("level") is not None:
+                return float(f["level"])
+        return 0.9
+
+    def to_dict(self) -> dict[str, Any]:
+        return {
+            "config": self.spec.to_dict(),
+            "groups": self.groups,
+            "extrapolations": self.fits,
+            "theory": self.theory,
+            "findings": self.findings,
+            "missing_tasks": self.missing,
+            "files": self.files,
+            "units": "energy per spin H(x)/n on the unit sphere, maximization",
+        }
+
+
+def _by_seed(rows: list[dict[str, Any]]) -> dict[tuple[str, str, int], dict[int, float]]:
+    acc: dict[tuple[str, str, int], dict[int, float]] = defaultdict(dict)
+    for r in rows:
+        acc[(r["mixture"], r["method"], int(r["n"]))][int(r["seed"])] = float(r["energy"])
+    return dict(acc)
+
+
+def _groups(rows: list[dict[str, Any]]) -> dict[tuple[str, str, int], np.ndarray]:
+    return {k: np.array(list(v.values())) for k, v in _by_seed(rows).items()}
+
+
+def build_report(
+    folder: str | os.PathLike,
+    exponent: float | None = None,
+    level: float = 0.9,
+    n_boot: int = 2000,
+) -> Report:
+    """Read the rows of the study in ``folder`` and compute the report (no files written)."""
+    spec = read_config(folder)
+    store = Store(folder, spec)
+    rows = store.rows()
+    if not rows:
+        raise ValueError(f"the study in {str(folder)!r} has no completed tasks yet")
+    k = spec.exponent if exponent is None else float(exponent)
+    if not (math.isfinite(k) and k > 0):
+        raise ValueError(f"--exponent must be positive, got {exponent}")
+    data = _groups(rows)
+    order = {m.name: i for i, m in enumerate(spec.mixtures)}
+    morder = {m.name: i for i, m in enumerate(spec.methods)}
+    keys = sorted(data, key=lambda t: (order.get(t[0], 99), morder.get(t[1], 99), t[2]))
+    groups = []
+    for mix, method, n in keys:
+        a = data[(mix, method, n)]
+        se = float(a.std(ddof=1) / math.sqrt(a.size)) if a.size > 1 else math.nan
+        groups.append(
+            {
+                "mixture": mix,
+                "method": method,
+                "n": n,
+                "mean": float(a.mean()),
+                "se": se,
+                "count": int(a.size),
+                "sd": float(a.std(ddof=1)) if a.size > 1 else math.nan,
+            }
+        )
+    theory = {}
+    for m in spec.mixtures:
+        alg, gs, holds = theory_values(m.gammas)
+        theory[m.name] = {
+            "gammas": m.mixture.to_text(),
+            "alg": alg,
+            "gs": gs,
+            "full_rsb": holds,
+            "gap_gs_alg": gs - alg,
+        }
+    fits = []
+    for m in spec.mixtures:
+        for meth in spec.methods:
+            sizes = [n for (a, b, n) in keys if a == m.name and b == meth.name]
+            th = theory[m.name]
+            entry: dict[str, Any] = {
+                "mixture": m.name,
+                "method": meth.name,
+                "alg": th["alg"],
+                "gs": th["gs"],
+            }
+            try:
+                ex: Extrapolation = extrapolate(
+                    sizes,
+                    [data[(m.name, meth.name, n)] for n in sizes],
+                    k,
+                    level,
+                    n_boot,
+                    seed=len(fits),
+                )
+            except ValueError as exc:
+                entry.update(value=None, note=str(exc))
+                fits.append(entry)
+                continue
+            entry.update(ex.to_dict())
+            entry["sizes"] = list(ex.sizes)
+            se = ex.se if ex.se > 0 else math.nan
+            entry["z_alg"] = (ex.value - th["alg"]) / se
+            entry["z_gs"] = (ex.value - th["gs"]) / se
+            fits.append(entry)
+    missing = len(spec.tasks()) - len(rows)
+    rep = Report(spec, groups, fits, theory, [], missing)
+    rep.findings = _findings(rep, _by_seed(rows))
+    return rep
+
+
+def _verdict(value: float, target: float, z: float, what: str) -> str:
+    if not math.isfinite(z):
+        return f"compared with {what} {target:.4f}: no error estimate"
+    if abs(z) <= Z_CONSISTENT:
+        return f"consistent with {what} = {target:.4f} ({z:+.1f} s.e.)"
+    side = "below" if z < 0 else "above"
+    return f"{abs(value - target):.4f} {side} {what} = {target:.4f} ({z:+.1f} s.e.)"
+
+
+def _findings(rep: Report, seeds: dict) -> list[str]:
+    out = []
+    for name, th in rep.theory.items():
+        if th["full_rsb"]:
+            out.append(
+                f"{name}: the full-RSB criterion holds, so GS = ALG = {th['alg']:.4f} "
+                f"(Parisi solver: GS - ALG = {th['gap_gs_alg']:.1e})."
+            )
+        else:
+            out.append(
+                f"{name}: the full-RSB criterion fails; GS = {th['gs']:.4f} exceeds "
+                f"ALG = {th['alg']:.4f} by {th['gap_gs_alg']:.4f}, a gap no algorithm of this "
+                "kind is predicted to close."
+            )
+    for f in rep.fits:
+        if f.get("value") is None:
+            out.append(f"{f['mixture']}, {f['method']}: no extrapolation ({f['note']}).")
+            continue
+        lvl = int(round(100 * f["level"]))
+        text = (
+            f"{f['mixture']}, {f['method']}: e_inf = {f['value']:.4f} "
+            f"[{lvl}%: {f['low']:.4f}, {f['high']:.4f}] from n = "
+            f"{', '.join(str(n) for n in f['sizes'])}; "
+            + _verdict(f["value"], f["alg"], f["z_alg"], "ALG")
+        )
+        if f["dof"] > 0 and f["chi2"] / f["dof"] > 4:
+            text += (
+                f"; chi2/dof = {f['chi2']:.1f}/{f['dof']}: the n^(-{f['exponent']:.3g}) law fits"
+                " poorly, so the interval understates the uncertainty"
+            )
+        out.append(text + ".")
+    # head-to-head at the largest common size, per mixture
+    methods = [m.name for m in rep.spec.methods]
+    if len(methods) >= 2:
+        a, b = methods[0], methods[1]
+        for mix in rep.theory:
+            common = sorted(
+                n for (m1, me, n) in seeds if m1 == mix and me == a and (mix, b, n) in seeds
+            )
+            if not common:
+                continue
+            n = common[-1]
+            pa_, pb_ = seeds[(mix, a, n)], seeds[(mix, b, n)]
+            both = sorted(set(pa_) & set(pb_))
+            if len(both) < 2:
+                continue
+            # paired over seeds: both methods ran on the same instances
+            d = np.array([pa_[s] - pb_[s] for s in both])
+            diff = float(d.mean())
+            se = float(d.std(ddof=1) / math.sqrt(d.size))
+            z = diff / se if se > 0 else math.nan
+            if math.isfinite(z) and abs(z) > Z_CONSISTENT:
+                lead = f"{a} is ahead of {b}" if diff > 0 else f"{b} is ahead of {a}"
+                out.append(
+                    f"{mix}, n = {n}: {lead} by {abs(diff):.4f} per spin ({abs(z):.1f} s.e., "
+                    f"paired over {len(both)} seeds)."
+                )
+            else:
+                out.append(
+                    f"{mix}, n = {n}: {a} - {b} = {diff:+.4f} per spin, not distinguishable "
+                    f"over {len(both)} paired seeds ({z:+.1f} s.e.)."
+                )
+    if rep.missing:
+        out.append(f"{rep.missing} task(s) of the study have no result yet; rerun the sweep.")
+    return out
+
+
+def _markdown(rep: Report) -> str:
+    spec = rep.spec
+    lvl = int(round(100 * rep.spec_level()))
+    lines = [
+        "# orthoclimb study report",
+        "",
+        "Energies are per spin, H(x)/n on the unit sphere, maximized. Mean over seeds and its "
+        "standard error s.e. = sd/sqrt(count). Extrapolation: weighted least squares of the "
+        f"mean in n^(-{_exp_text(rep)}), {lvl}% bootstrap interval over seeds; "
+        "z = (e_inf - theory)/s.e.(e_inf).",
+        "",
+        f"Sizes {list(spec.sizes)}, {len(spec.seeds)} seeds, methods "
+        + ", ".join(
+            f"{m.name} ({', '.join(f'{k}={v}' for k, v in m.options)})" for m in spec.methods
+        )
+        + ".",
+        "",
+        "## Findings",
+        "",
+        *[f"- {f}" for f in rep.findings],
+        "",
+        "## Theory",
+        "",
+        "| mixture | gammas | full RSB | ALG | GS | GS - ALG |",
+        "| --- | --- | --- | ---: | ---: | ---: |",
+    ]
+    for name, th in rep.theory.items():
+        lines.append(
+            f"| {name} | {th['gammas']} | {'holds' if th['full_rsb'] else 'fails'} | "
+            f"{th['alg']:.6f} | {th['gs']:.6f} | {th['gap_gs_alg']:.2e} |"
+        )
+    lines += [
+        "",
+        "## Extrapolation",
+        "",
+        f"| mixture | method | e_inf | {lvl}% interval | s.e. | ALG | z(ALG) | GS | z(GS) |"
+        " chi2/dof |",
+        "| --- | --- | ---: | --- | ---: | ---: | ---: | ---: | ---: | ---: |",
+    ]
+    for f in rep.fits:
+        if f.get("value") is None:
+            lines.append(f"| {f['mixture']} | {f['method']} | -- | {f['note']} | | | | | | |")
+            continue
+        lines.append(
+            f"| {f['mixture']} | {f['method']} | {f['value']:.4f} | [{f['low']:.4f}, "
+            f"{f['high']:.4f}] | {f['se']:.4f} | {f['alg']:.4f} | {f['z_alg']:+.1f} | "
+            f"{f['gs']:.4f} | {f['z_gs']:+.1f} | {f['chi2']:.1f}/{f['dof']} |"
+        )
+    lines += [
+        "",
+        "## Per size",
+        "",
+        "| mixture | method | n | mean | s.e. | count |",
+        "| --- | --- | ---: | ---: | ---: | ---: |",
+    ]
+    for g in rep.groups:
+        lines.append(
+            f"| {g['mixture']} | {g['method']} | {g['n']} | {g['mean']:.4f} | {g['se']:.4f} "
+            f"| {g['count']} |"
+        )
+    if rep.files:
+        lines += ["", "## Files", ""] + [f"- {k}: `{v}`" for k, v in rep.files.items()]
+    return "\n".join(lines) + "\n"
+
+
+def _exp_text(rep: Report) -> str:
+    for f in rep.fits:
+        if f.get("exponent") is not None:
+            k = float(f["exponent"])
+            return "2/3" if abs(k - 2 / 3) < 1e-12 else f"{k:.4g}"
+    return "k"
+
+
+def _plots(rep: Report, data: dict, folder: Path) -> dict[str, str]:
+    from matplotlib.figure import Figure
+
+    mixtures = list(rep.theory)
+    methods = [m.name for m in rep.spec.methods]
+    colors = {m: f"C{i}" for i, m in enumerate(methods)}
+    k = next((f["exponent"] for f in rep.fits if f.get("exponent")), rep.spec.exponent)
+    fig = Figure(figsize=(5.2 * len(mixtures), 4.2), layout="constrained")
+    axes = fig.subplots(1, len(mixtures), squeeze=False)[0]
+    for ax, mix in zip(axes, mixtures, strict=True):
+        th = rep.theory[mix]
+        xmax = 0.0
+        for meth in methods:
+            gs_ = [g for g in rep.groups if g["mixture"] == mix and g["method"] == meth]
+            if not gs_:
+                continue
+            x = np.array([g["n"] for g in gs_], float) ** (-k)
+            xmax = max(xmax, float(x.max()))
+            ax.errorbar(
+                x,
+                [g["mean"] for g in gs_],
+                yerr=[g["se"] for g in gs_],
+                fmt="o",
+                color=colors[meth],
+                label=meth,
+                capsize=3,
+            )
+            fit = next(
+                (
+                    f
+                    for f in rep.fits
+                    if f["mixture"] == mix and f["method"] == meth and f.get("value") is not None
+                ),
+                None,
+            )
+            if fit:
+                xs = np.linspace(0, x.max(), 50)
+                ax.plot(xs, fit["value"] + fit["slope"] * xs, "-", color=colors[meth], lw=1)
+                ax.errorbar(
+                    [0],
+                    [fit["value"]],
+                    yerr=[[fit["value"] - fit["low"]], [fit["high"] - fit["value"]]],
+                    fmt="s",
+                    color=colors[meth],
+                    capsize=4,
+                    mfc="white",
+                )
+        ax.axhline(th["alg"], color="k", ls="--", lw=1, label=f"ALG {th['alg']:.4f}")
+        if abs(th["gap_gs_alg"]) > 1e-4:
+            ax.axhline(th["gs"], color="0.4", ls=":", lw=1.5, label=f"GS {th['gs']:.4f}")
+        ax.set_xlim(-0.03 * max(xmax, 1e-3), 1.05 * max(xmax, 1e-3))
+        ax.set_xlabel(f"n^(-{k:.3g})")
+        ax.set_ylabel("energy per spin H(x)/n")
+        ax.set_title(f"{mix}  (xi: {th['gammas']})", fontsize=10)
+        ax.legend(fontsize=8)
+    out = {"energy_vs_n": str(save_figure_atomic(fig, folder / "energy_vs_n.png", dpi=110))}
+
+    fig = Figure(figsize=(5.2 * len(mixtures), 4.2), layout="constrained")
+    axes = fig.subplots(1, len(mixtures), squeeze=False)[0]
+    rng = np.random.default_rng(0)
+    for ax, mix in zip(axes, mixtures, strict=True):
+        sizes = sorted({n for (m, _, n) in data if m == mix})
+        width = 0.8 / max(1, len(methods))
+        for j, meth in enumerate(methods):
+            for i, n in enumerate(sizes):
+                v = data.get((mix, meth, n))
+                if v is None:
+                    continue
+                pos = i + (j - (len(methods) - 1) / 2) * width
+                ax.scatter(
+                    pos + rng.uniform(-0.3, 0.3, v.size) * width,
+                    v,
+                    s=10,
+                    color=colors[meth],
+                    alpha=0.6,
+                    label=meth if i == 0 else None,
+                )
+                ax.hlines(v.mean(), pos - 0.4 * width, pos + 0.4 * width, color="k", lw=1.5)
+        th = rep.theory[mix]
+        ax.axhline(th["alg"], color="k", ls="--", lw=1, label="ALG")
+        if abs(th["gap_gs_alg"]) > 1e-4:
+            ax.axhline(th["gs"], color="0.4", ls=":", lw=1.5, label="GS")
+        ax.set_xticks(range(len(sizes)), [str(n) for n in sizes])
+        ax.set_xlabel("n")
+        ax.set_ylabel("energy per spin over seeds (bar: mean)")
+        ax.set_title(mix, fontsize=10)
+        ax.legend(fontsize=8)
+    out["distribution"] = str(save_figure_atomic(fig, folder / "distribution.png", dpi=110))
+    return out
+
+
+def write_report(
+    folder: str | os.PathLike,
+    exponent: float | None = None,
+    level: float = 0.9,
+    n_boot: int = 2000,
+    plots: bool = True,
+) -> Report:
+    """Compute the report and write report.md, report.json and the plots into ``folder``."""
+    folder = Path(folder)
+    rep = build_report(folder, exponent, level, n_boot)
+    data = _groups(Store(folder, rep.spec).rows())
+    if plots:
+        rep.files.update(_plots(rep, data, folder))
+    rep.files["markdown"] = str(folder / "report.md")
+    rep.files["json"] = str(folder / "report.json")
+    write_text_atomic(folder / "report.md", _markdown(rep))
+    write_json_atomic(folder / "report.json", rep.to_dict())
+    return rep

@@ -1,0 +1,133 @@
+"""One task of a study: (mixture, n, seed, method + options), run on a worker.
+
+The task carries only its configuration; the worker regenerates the instance from the seed
+(``Hamiltonian.sample(mixture, n, seed)`` is a pure function of the seed, see the README), so
+no coefficient data travels. The same seed also seeds the algorithm's start point.
+
+The task id is the first 16 hex digits of SHA-256 of the canonical JSON of the configuration
+(sorted keys, ``repr``-exact floats), so it is stable across runs, machines and Python versions.
+
+Row fields (one row per task; energies per spin e = H(x)/n, maximization):
+``task_id``, ``mixture`` (name), ``gammas`` (text p:gamma,...), ``n``, ``seed``, ``method``,
+``options`` (JSON), ``dtype``, ``energy``, ``energy_before_polish`` (Hessian ascent),
+``alg``, ``ground_state`` (Parisi GS, NaN when the solver does not converge), ``gap_alg`` =
+energy - ALG, ``gap_gs`` = energy - GS, ``local_max``, ``grad_norm`` (|P grad H|/n),
+``seconds_sample``, ``seconds_run`` (wall seconds), ``threads`` (rayon threads used),
+``version`` (orthoclimb), ``worker`` (host:pid), ``finished`` (UTC ISO time).
+"""
+
+from __future__ import annotations
+
+import functools
+import hashlib
+import json
+import math
+import os
+import socket
+import time
+from dataclasses import dataclass
+from datetime import datetime, timezone
+from typing import Any
+
+from .grid import MethodSpec, MixtureSpec
+
+__all__ = ["Task", "run_task", "theory_values"]
+
+
+@dataclass(frozen=True)
+class Task:
+    mixture: MixtureSpec
+    n: int
+    seed: int
+    method: MethodSpec
+    dtype: str = "float64"
+
+    def config(self) -> dict[str, Any]:
+        """The canonical configuration (what the id hashes)."""
+        return {
+            "gammas": [[p, g] for p, g in self.mixture.gammas],
+            "n": self.n,
+            "seed": self.seed,
+            "method": self.method.name,
+            "options": dict(self.method.options),
+            "dtype": self.dtype,
+        }
+
+    @property
+    def task_id(self) -> str:
+        text = json.dumps(self.config(), sort_keys=True, separators=(",", ":"))
+        return hashlib.sha256(text.encode("utf-8")).hexdigest()[:16]
+
+
+@functools.lru_cache(maxsize=64)
+def theory_values(gammas: tuple[tuple[int, float], ...]) -> tuple[float, float, bool]:
+    """(ALG, GS, full-RSB holds) for a mixture; GS is NaN when the Parisi solver fails."""
+    from ..model import Mixture
+    from ..theory import algorithmic_energy, full_rsb, ground_state
+
+    mix = Mixture(dict(gammas))
+    alg = float(algorithmic_energy(mix))
+    try:
+        gs_res = ground_state(mix)
+        gs = float(gs_res.value) if gs_res.converged else math.nan
+    except (ValueError, RuntimeError):
+        gs = math.nan
+    return alg, gs, bool(full_rsb(mix).holds)
+
+
+def run_task(task: Task, threads: int | None = None) -> dict[str, Any]:
+    """Sample the instance of ``task`` from its seed, run its method, return its row.
+
+    ``threads``: rayon threads for the kernels in this process (``orthoclimb.set_num_threads``);
+    None keeps the current setting. BLAS inside the algorithms is already single-threaded.
+    """
+    from .. import __version__
+    from ..algorithms import gradient_ascent, hessian_ascent
+    from ..model import Hamiltonian
+    from ..runtime import get_num_threads, set_num_threads
+
+    if threads is not None:
+        set_num_threads(int(threads))
+    mix = task.mixture.mixture
+    opts = dict(task.method.options)
+    t0 = time.perf_counter()
+    ham = Hamiltonian.sample(mix, task.n, task.seed, dtype=task.dtype)
+    t1 = time.perf_counter()
+    if task.method.name == "hessian":
+        res = hessian_ascent(
+            ham, steps=opts["steps"], tol=opts["tol"], seed=task.seed, polish=opts["polish"]
+        )
+        before = float(res.info.get("energy_ascent", res.energy))
+    elif task.method.name == "gradient":
+        res = gradient_ascent(ham, seed=task.seed, gtol=opts["gtol"], max_iter=opts["max_iter"])
+        before = float(res.energy)
+    else:  # pragma: no cover - MethodSpec.make refuses other names
+        raise ValueError(f"unknown method {task.method.name!r}")
+    t2 = time.perf_counter()
+    alg, gs, _ = theory_values(task.mixture.gammas)
+    energy = float(res.energy)
+    local_max = res.info.get("local_max")
+    return {
+        "task_id": task.task_id,
+        "mixture": task.mixture.name,
+        "gammas": mix.to_text(),
+        "n": task.n,
+        "seed": task.seed,
+        "method": task.method.name,
+        "options": json.dumps(opts, sort_keys=True),
+        "dtype": task.dtype,
+        "energy": energy,
+        "energy_before_polish": before,
+        "alg": alg,
+        "ground_state": gs,
+        "gap_alg": energy - alg,
+        "gap_gs": energy - gs,
+        "local_max": None if local_max is None else bool(local_max),
+        "grad_norm": float(res.info.get("grad_norm", math.nan)),
+        "seconds_sample": t1 - t0,
+        "seconds_run": t2 - t1,
+        "threads": get_num_threads(),
+        "version": __version__,
+        "worker": f"{socket.gethostname()}:{os.getpid()}",
+        "finished": datetime.now(timezone.utc).isoformat(timespec="seconds"),
+    }

@@ -1,0 +1,166 @@
+"""The Dask engine: worker sizing, a real two-process LocalCluster, resume after a kill,
+an unreachable scheduler, a folder of another study."""
+
+from __future__ import annotations
+
+import json
+import os
+import signal
+import subprocess
+import sys
+import time
+
+import pyarrow.parquet as pq
+import pytest
+
+from orthoclimb.cli import main
+from orthoclimb.studies.engine import WorkerPlan, plan_workers, run_study
+from orthoclimb.studies.grid import spec_from_flags
+from orthoclimb.studies.store import Store, StudyMismatchError
+
+
+@pytest.mark.parametrize("cores", [1, 2, 3, 4, 7, 8, 16, 64])
+@pytest.mark.parametrize("tasks", [1, 2, 5, 1000])
+@pytest.mark.parametrize("workers", [None, 1, 3, 100])
+def test_plan_never_oversubscribes(cores, tasks, workers):
+    # common practice: processes x tasks per process x kernel threads <= cores
+    plan = plan_workers(cores, tasks, workers)
+    assert plan.workers * plan.dask_threads * plan.rayon_threads <= cores
+    assert plan.workers >= 1 and plan.rayon_threads >= 1 and plan.dask_threads == 1
+    assert plan.workers <= tasks
+    if workers is not None:
+        assert plan.workers <= workers
+    # and uses the machine: no more than one worker's share of cores is idle
+    assert plan.cores_used > cores - plan.workers
+
+
+def test_plan_memory_and_examples():
+    assert plan_workers(8, 1000) == WorkerPlan(8, 1, 1)
+    assert plan_workers(8, 2) == WorkerPlan(2, 1, 4)
+    assert plan_workers(8, 1000, memory_per_task=10, memory=45).workers == 2
+    with pytest.raises(ValueError):
+        plan_workers(0)
+
+
+def _spec(seeds="0-3"):
+    return spec_from_flags(
+        ["3:1"], None, "16,24", seeds, "hessian,gradient", {"hessian": {"steps": 10}}
+    )
+
+
+def test_sweep_on_two_worker_local_cluster(tmp_path):
+    spec = _spec()
+    out = run_study(spec, tmp_path / "s", workers=2, progress=False)
+    assert out.plan is not None and out.plan.workers == 2
+    assert out.done == len(spec.tasks()) == 16 and out.failed == 0
+    table = pq.read_table(tmp_path / "s" / "results.parquet").to_pylist()
+    assert len(table) == 16
+    assert sorted(r["task_id"] for r in table) == sorted(t.task_id for t in spec.tasks())
+    assert len({r["worker"] for r in table}) >= 1
+    assert all(r["threads"] == out.plan.rayon_threads for r in table)
+    # rerun: everything skipped, nothing rewritten
+    again = run_study(spec, tmp_path / "s", workers=2, progress=False)
+    assert again.skipped == 16 and again.done == 0
+
+
+def test_refuses_folder_of_a_different_study(tmp_path, capsys):
+    folder = tmp_path / "s"
+    Store.open(folder, _spec("0-3"))
+    with pytest.raises(StudyMismatchError, match="different configuration.*seeds"):
+        Store.open(folder, _spec("0-4"))
+    code = main(
+        [
+            "sweep",
+            "--gammas",
+            "3:1",
+            "--n",
+            "16,24",
+            "--seeds",
+            "0-4",
+            "--out",
+            str(folder),
+            "--no-progress",
+        ]
+    )
+    assert code == 2
+    assert "different configuration" in capsys.readouterr().err
+
+
+def test_unreachable_scheduler_is_a_clear_error(tmp_path, capsys):
+    start = time.perf_counter()
+    code = main(
+        [
+            "sweep",
+            "--gammas",
+            "3:1",
+            "--n",
+            "16,24",
+            "--seeds",
+            "0-1",
+            "--out",
+            str(tmp_path / "s"),
+            "--scheduler",
+            "tcp://127.0.0.1:9",
+            "--timeout",
+            "2",
+            "--no-progress",
+        ]
+    )
+    assert code == 2
+    assert "cannot reach the Dask scheduler" in capsys.readouterr().err
+    assert time.perf_counter() - start < 30
+
+
+def test_kill_driver_then_resume(tmp_path):
+    # the guarantee under test: atomic rows + skip-on-rerun => each task done exactly once
+    folder = tmp_path / "s"
+    args = [
+        "--gammas",
+        "3:1",
+        "--n",
+        "40,60",
+        "--seeds",
+        "0-11",
+        "--methods",
+        "hessian",
+        "--steps",
+        "30",
+        "--workers",
+        "2",
+        "--out",
+        str(folder),
+        "--no-progress",
+        "--no-report",
+    ]
+    cmd = [sys.executable, "-m", "orthoclimb", "sweep", *args]
+    proc = subprocess.Popen(
+        cmd, stdout=subprocess.DEVNULL, stderr=subprocess.DEVNULL, start_new_session=True
+    )
+    rows = folder / "rows"
+    deadline = time.time() + 120
+    try:
+        while time.time() < deadline:
+            if rows.is_dir() and len(list(rows.glob("*.json"))) >= 3:
+                break
+            assert proc.poll() is None, "sweep finished or died before it could be killed"
+            time.sleep(0.05)
+        else:
+            pytest.fail("no rows appeared within 120 s")
+        os.killpg(proc.pid, signal.SIGKILL)  # the driver and its cluster, abruptly
+        proc.wait(timeout=30)
+    finally:
+        if proc.poll() is None:
+            os.killpg(proc.pid, signal.SIGKILL)
+    before = {p.name: p.read_bytes() for p in rows.glob("*.json")}
+    spec = spec_from_flags(["3:1"], None, "40,60", "0-11", "hessian", {"hessian": {"steps": 30}})
+    assert 3 <= len(before) < len(spec.tasks()), "kill came too late to test a resume"
+    for b in before.values():
+        json.loads(b)  # complete files only
+    assert main(["sweep", *args]) == 0
+    after = {p.name: p.read_bytes() for p in rows.glob("*.json")}
+    assert sorted(after) == sorted(f"{t.task_id}.json" for t in spec.tasks())
+    for name, data in before.items():
+        assert after[name] == data, f"row {name} changed on rerun"
+    table = pq.read_table(folder / "results.parquet").to_pylist()
+    ids = [r["task_id"] for r in table]
+    assert len(ids) == len(set(ids)) == len(spec.tasks())

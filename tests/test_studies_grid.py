@@ -1,0 +1,102 @@
+"""Study specification: flags, TOML, seeds text, stable task ids, bad input (exit code 2)."""
+
+from __future__ import annotations
+
+import pytest
+
+from orthoclimb.cli import main
+from orthoclimb.studies.grid import parse_seeds, parse_sizes, spec_from_flags, spec_from_toml
+
+
+def test_parse_seeds_ranges_and_lists():
+    # common practice: inclusive ranges, comma lists
+    assert parse_seeds("0-3") == (0, 1, 2, 3)
+    assert parse_seeds("1,5,9") == (1, 5, 9)
+    assert parse_seeds("0-1,7") == (0, 1, 7)
+    assert parse_seeds([3, 4]) == (3, 4)
+
+
+@pytest.mark.parametrize(
+    "text, words",
+    [
+        ("5-2", "reversed"),
+        ("", "empty"),
+        ("a-3", "not an integer"),
+        ("1,1", "twice"),
+        ("-3", ">= 0"),
+        ("1,,2", "empty item"),
+    ],
+)
+def test_parse_seeds_refuses(text, words):
+    with pytest.raises(ValueError, match=words):
+        parse_seeds(text)
+
+
+def test_parse_sizes():
+    assert parse_sizes("200,100") == (100, 200)
+    with pytest.raises(ValueError, match="twice"):
+        parse_sizes("100,100")
+    with pytest.raises(ValueError, match="size n"):
+        parse_sizes("1")
+
+
+def test_task_ids_stable_and_distinct():
+    # exact identity: the id is a hash of the configuration only
+    a = spec_from_flags(["3:1"], None, "20,30", "0-2", "hessian,gradient")
+    b = spec_from_flags(["3:1"], None, "20,30", "0-2", "hessian,gradient")
+    ids = [t.task_id for t in a.tasks()]
+    assert ids == [t.task_id for t in b.tasks()]
+    assert len(set(ids)) == len(ids) == 2 * 3 * 2
+    c = spec_from_flags(
+        ["3:1"], None, "20,30", "0-2", "hessian,gradient", {"hessian": {"steps": 7}}
+    )
+    assert set(ids) != {t.task_id for t in c.tasks()}
+
+
+def test_toml_matches_flags(tmp_path):
+    path = tmp_path / "s.toml"
+    path.write_text(
+        'sizes = [20, 30]\nseeds = "0-2"\n[[mixture]]\ngammas = { 3 = 1.0 }\n'
+        '[[method]]\nname = "hessian"\n[[method]]\nname = "gradient"\n'
+    )
+    flags = spec_from_flags(["3:1"], None, "20,30", "0-2", "hessian,gradient")
+    assert [t.task_id for t in spec_from_toml(path).tasks()] == [t.task_id for t in flags.tasks()]
+
+
+def test_malformed_toml_is_a_clear_error(tmp_path, capsys):
+    bad = tmp_path / "bad.toml"
+    bad.write_text("sizes = [20, 30\nseeds = 1\n")
+    with pytest.raises(ValueError, match="malformed TOML"):
+        spec_from_toml(bad)
+    assert main(["sweep", str(bad), "--out", str(tmp_path / "o")]) == 2
+    assert "malformed TOML" in capsys.readouterr().err
+
+
+def test_toml_unknown_method_option(tmp_path):
+    p = tmp_path / "s.toml"
+    p.write_text(
+        "sizes=[20,30]\nseeds=[0,1]\n[[mixture]]\ngammas={3=1.0}\n"
+        '[[method]]\nname="hessian"\nstepz=3\n'
+    )
+    with pytest.raises(ValueError, match="no option 'stepz'"):
+        spec_from_toml(p)
+
+
+def test_cli_bad_seeds_exit_2(tmp_path, capsys):
+    code = main(
+        [
+            "sweep",
+            "--gammas",
+            "3:1",
+            "--n",
+            "20,30",
+            "--seeds",
+            "5-2",
+            "--out",
+            str(tmp_path / "o"),
+            "--no-progress",
+        ]
+    )
+    assert code == 2
+    assert "reversed" in capsys.readouterr().err
+    assert not (tmp_path / "o").exists()  # refused before anything is written

@@ -1,0 +1,114 @@
+"""Extrapolation (synthetic coverage, pure p = 2 real sweep), the report, profile and demo."""
+
+from __future__ import annotations
+
+import json
+import math
+
+import numpy as np
+import pytest
+
+from orthoclimb.cli import main
+from orthoclimb.studies.engine import run_study
+from orthoclimb.studies.extrapolate import extrapolate
+from orthoclimb.studies.grid import spec_from_flags
+from orthoclimb.studies.report import write_report
+
+
+def test_extrapolation_exact_law_without_noise():
+    # exact identity: a noiseless e_inf + a n^(-2/3) law is recovered exactly
+    sizes = [50, 100, 200, 400]
+    samples = [1.5 - 2.0 * n ** (-2 / 3) + np.array([-1e-3, 1e-3]) for n in sizes]
+    ex = extrapolate(sizes, samples)
+    assert ex.value == pytest.approx(1.5, abs=1e-10)
+    assert ex.slope == pytest.approx(-2.0, abs=1e-8)
+
+
+def test_extrapolation_interval_covers_at_stated_rate():
+    # common practice (frequentist coverage): over 200 synthetic studies with a known
+    # n^(-2/3) law and Gaussian noise, the 90% interval covers e_inf = 1.5 in 90% +- 3
+    # binomial s.e. (sqrt(0.9 * 0.1 / 200) = 0.021) of draws; fixed seeds, not flaky.
+    rng = np.random.default_rng(20261201)
+    sizes = [50, 100, 200, 400]
+    draws, hits, widths = 200, 0, []
+    for r in range(draws):
+        samples = [
+            1.5 - 2.0 * n ** (-2 / 3) + 0.3 * n ** (-1 / 3) * rng.standard_normal(10) for n in sizes
+        ]
+        ex = extrapolate(sizes, samples, level=0.9, n_boot=1000, seed=r)
+        hits += ex.low <= 1.5 <= ex.high
+        widths.append(ex.high - ex.low)
+    rate = hits / draws
+    assert abs(rate - 0.9) <= 3 * math.sqrt(0.9 * 0.1 / draws), rate
+    assert np.median(widths) < 0.2  # and the interval is not trivially wide
+
+
+def test_extrapolation_refuses_too_little_data():
+    with pytest.raises(ValueError, match="2 sizes"):
+        extrapolate([10], [[1.0, 2.0]])
+    with pytest.raises(ValueError, match="2 seeds"):
+        extrapolate([10, 20], [[1.0], [1.0, 2.0]])
+
+
+def test_pure_p2_sweep_extrapolates_to_sqrt2(tmp_path):
+    # Wigner semicircle edge: pure p = 2 has GS = ALG = sqrt(2); the top eigenvalue's mean
+    # approaches it as n^(-2/3) (Tracy-Widom scale), and gradient ascent finds the maximum.
+    spec = spec_from_flags(["2:1"], None, "20,40,80,160", "0-15", "gradient")
+    out = run_study(spec, tmp_path / "p2", workers=2, progress=False)
+    assert out.failed == 0
+    rep = write_report(tmp_path / "p2", n_boot=2000)
+    (fit,) = rep.fits
+    assert fit["low"] <= math.sqrt(2) <= fit["high"], fit
+    assert fit["high"] - fit["low"] < 0.15
+    assert rep.theory["2:1.0"]["alg"] == pytest.approx(math.sqrt(2), abs=1e-9)
+    for name in (
+        "report.md",
+        "report.json",
+        "energy_vs_n.png",
+        "distribution.png",
+        "results.parquet",
+        "results.csv",
+    ):
+        assert (tmp_path / "p2" / name).stat().st_size > 0
+    # the report command reads the same folder
+    assert main(["report", str(tmp_path / "p2"), "--no-plots", "--json"]) == 0
+
+
+def test_report_of_non_study_folder(tmp_path, capsys):
+    assert main(["report", str(tmp_path)]) == 2
+    assert "not a study folder" in capsys.readouterr().err
+
+
+def test_profile_command(tmp_path, capsys):
+    code = main(
+        [
+            "profile",
+            "--gammas",
+            "3:1",
+            "--n",
+            "30,60",
+            "--repeats",
+            "1",
+            "--out",
+            str(tmp_path / "p"),
+            "--json",
+        ]
+    )
+    assert code == 0
+    prof = json.loads(capsys.readouterr().out)
+    assert [r["n"] for r in prof["rows"]] == [30, 60]
+    assert set(prof["exponents"]) >= {"energy", "hessian"}
+    assert (tmp_path / "p" / "profile.png").stat().st_size > 0
+
+
+def test_demo_quick_completes_and_writes_report(tmp_path, capsys):
+    out = tmp_path / "demo"
+    assert main(["demo", "--quick", "--out", str(out), "--no-progress"]) == 0
+    text = capsys.readouterr().out
+    assert "rough time estimate" in text and "of coefficients" in text
+    assert "what this run measured" in text and "GS" in text
+    md = (out / "report.md").read_text()
+    assert "rugged (3)" in md and "gentle (2+4)" in md and "full-RSB criterion fails" in md
+    data = json.loads((out / "report.json").read_text())
+    assert data["theory"]["rugged (3)"]["gap_gs_alg"] == pytest.approx(0.024, abs=1e-3)
+    assert (out / "energy_vs_n.png").stat().st_size > 0
