@@ -1,0 +1,175 @@
+"""Rendering of benchmark results (the JSON dict written by kernels.py) as text and Markdown.
+
+Times are shown in adaptive units (ns, us, ms, s) per call; ratios as "5.1x"; roofline
+fractions as plain numbers (1.00 = streaming the coefficients at the measured read bandwidth).
+"""
+
+from __future__ import annotations
+
+COLUMNS = (
+    "kernel",
+    "impl",
+    "median",
+    "min",
+    "reps",
+    "ratio",
+    "roofline",
+    "rel.err",
+    "target / note",
+)
+
+
+def fmt_time(seconds: float | None) -> str:
+    """Seconds per call in a readable unit."""
+    if seconds is None:
+        return "-"
+    for unit, scale in (("s", 1.0), ("ms", 1e-3), ("us", 1e-6)):
+        if seconds >= scale:
+            return f"{seconds / scale:.3g} {unit}"
+    return f"{seconds / 1e-9:.3g} ns"
+
+
+def fmt_bytes(nbytes: float) -> str:
+    value = float(nbytes)
+    for unit in ("B", "KiB", "MiB", "GiB"):
+        if value < 1024 or unit == "GiB":
+            return f"{value:.0f} {unit}" if unit == "B" else f"{value:.1f} {unit}"
+        value /= 1024
+    raise AssertionError("unreachable")
+
+
+def fmt_rate(bytes_per_s: float | None) -> str:
+    return "-" if bytes_per_s is None else f"{bytes_per_s / 1e9:.1f} GB/s"
+
+
+def _num(value: float | None, spec: str, suffix: str = "") -> str:
+    return "-" if value is None else f"{value:{spec}}{suffix}"
+
+
+def target_text(target: dict | None) -> str:
+    """E.g. '>= 5x PASS' (or 'info' when measured at other sizes than the target's)."""
+    if not target:
+        return ""
+    unit = "x" if target["metric"] != "roofline" else ""
+    return f">= {target['threshold']:g}{unit} {target['status']}"
+
+
+def row_cells(row: dict) -> list[str]:
+    """The table cells of one measured row."""
+    impl = row["impl"] + (f":{row['variant']}" if row.get("variant") else "")
+    if row.get("best"):
+        impl += " *"
+    note = " ".join(s for s in (target_text(row.get("target")), row.get("note", "")) if s)
+    return [
+        row["kernel"],
+        impl,
+        fmt_time(row["median_s"]),
+        fmt_time(row["min_s"]),
+        str(row["repeats"]),
+        _num(row.get("ratio"), ".2f", "x"),
+        _num(row.get("roofline"), ".2f"),
+        _num(row.get("rel_err"), ".1e"),
+        note,
+    ]
+
+
+def _aligned(rows: list[list[str]]) -> str:
+    widths = [max(len(r[i]) for r in rows) for i in range(len(rows[0]))]
+    lines = []
+    for r in rows:
+        last = len(r) - 1
+        cells = [
+            c.ljust(w) if i < 2 or i == last else c.rjust(w)
+            for i, (c, w) in enumerate(zip(r, widths, strict=True))
+        ]
+        lines.append("  ".join(cells).rstrip())
+    lines.insert(1, "  ".join("-" * w for w in widths))
+    return "\n".join(lines)
+
+
+def case_header(case: dict) -> list[str]:
+    """Title, parameters and what the ratio column means, as lines."""
+    lines = [f"== {case['name']}: {case['title']} =="]
+    if case.get("status") != "ok":
+        lines.append(f"   {case.get('status', 'skipped').upper()}: {case.get('reason')}")
+        return lines
+    lines.append(f"   ratio = {case['ratio_meaning']}")
+    others = case.get("other_processes_cores")
+    if others is not None:
+        lines.append(f"   other processes used {others:.2f} cores on average during this case")
+    for name, bw in case.get("bandwidth", {}).items():
+        probes = ", ".join(f"{k} {fmt_rate(v['median_Bps'])}" for k, v in bw["probes"].items())
+        lines.append(
+            f"   read bandwidth over {name} ({fmt_bytes(bw['probes']['sum']['bytes'])}): "
+            f"{fmt_rate(bw['Bps'])} (best of {probes})"
+        )
+    lines += [f"   note: {note}" for note in case.get("notes", [])]
+    return lines
+
+
+def case_text(case: dict) -> str:
+    """A case as a header plus an aligned text table."""
+    lines = case_header(case)
+    if case.get("status") == "ok" and case["rows"]:
+        lines.append(_aligned([list(COLUMNS)] + [row_cells(r) for r in case["rows"]]))
+    return "\n".join(lines)
+
+
+def targets_text(targets: list[dict]) -> str:
+    """One line per target: status, value against threshold, where it was measured."""
+    if not targets:
+        return "targets: none evaluated"
+    lines = ["== targets (median-based) =="]
+    for t in targets:
+        unit = "" if t["metric"] == "roofline" else "x"
+        value = "not measured" if t["value"] is None else f"{t['value']:.2f}{unit}"
+        lines.append(
+            f"  {t['status']:<5} {t['description']}: {value} (target >= {t['threshold']:g}{unit})"
+        )
+    return "\n".join(lines)
+
+
+def meta_text(meta: dict) -> str:
+    """Short description of the machine and settings."""
+    cpu = meta["cpu"]
+    v = meta["versions"]
+    return (
+        f"date {meta['date_utc']}  cpu {cpu.get('model')} ({cpu.get('usable_cpus')} usable)  "
+        f"threads {meta['threads']}  kernel_path {meta['kernel_path']}\n"
+        f"numpy {v['numpy']}  scipy {v['scipy']}  opt_einsum {v['opt_einsum']}  "
+        f"torch {v['torch']}  load average at start {meta['load_average_start']}  "
+        f"other processes' cores at start {_num(meta.get('other_processes_cores_start'), '.2f')}"
+    )
+
+
+def _md_table(header: list[str], rows: list[list[str]]) -> list[str]:
+    def esc(cell: str) -> str:
+        return cell.replace("|", "\\|")
+
+    out = ["| " + " | ".join(header) + " |", "|" + "---|" * len(header)]
+    out += ["| " + " | ".join(esc(c) for c in r) + " |" for r in rows]
+    return out
+
+
+def render_markdown(results: dict) -> str:
+    """The whole result set as Markdown: settings, one table per case, the targets."""
+    meta = results["meta"]
+    lines = ["## Kernel benchmarks", "", meta_text(meta).replace("\n", "  \n"), ""]
+    lines += [f"> {note}" for note in results.get("notes", [])]
+    if results.get("notes"):
+        lines.append("")
+    targets = results.get("targets", [])
+    if targets:
+        lines += ["### Targets (median of repeats)", ""]
+        rows = []
+        for t in targets:
+            unit = "" if t["metric"] == "roofline" else "x"
+            value = "-" if t["value"] is None else f"{t['value']:.2f}{unit}"
+            rows.append([t["description"], f">= {t['threshold']:g}{unit}", value, t["status"]])
+        lines += _md_table(["target", "threshold", "measured", "status"], rows) + [""]
+    for case in results["cases"]:
+        head = case_header(case)
+        lines += [f"### {head[0].strip('= ')}", ""] + [h.strip() + "  " for h in head[1:]] + [""]
+        if case.get("status") == "ok" and case["rows"]:
+            lines += _md_table(list(COLUMNS), [row_cells(r) for r in case["rows"]]) + [""]
+    return "\n".join(lines)

@@ -1,0 +1,201 @@
+"""Timing primitives for the kernel benchmarks.
+
+Every time here is wall-clock seconds per call, from ``time.perf_counter``. Functions of one
+group are measured in interleaved rounds (each round takes a short block of consecutive
+samples of every function, in a rotated order), so that slow drifts in the load of a shared
+machine hit all of them alike and their ratios stay meaningful. Before each block the process
+sleeps a little, so that worker threads left spinning by the previous function (OpenBLAS
+busy-waits after a call) have parked and do not steal a core from the next one.
+"""
+
+from __future__ import annotations
+
+import gc
+import math
+import statistics
+import time
+from collections.abc import Callable, Hashable, Mapping
+from dataclasses import dataclass
+
+import numpy as np
+
+GEMV_COLUMNS = 16384
+"""Row length of the matrix view used by the 'gemv' bandwidth probe."""
+WIDE_ROWS = 128
+"""Row count of the matrix view used by the 'gemv-wide' bandwidth probe."""
+
+
+@dataclass(frozen=True)
+class Plan:
+    """How hard to measure.
+
+    Each function gets at least ``min_repeats`` samples (``min_slow_repeats`` when one sample
+    takes longer than ``slow_s`` seconds) and, when it is cheap, more, up to ``max_repeats``,
+    within about ``budget_s`` seconds of sampling. A sample is ``number`` back-to-back calls,
+    with ``number`` chosen so that a sample lasts at least ``min_sample_s``. Samples are spread
+    over ``rounds`` interleaved rounds, with a pause of ``settle_s`` before each block.
+    """
+
+    min_repeats: int = 7
+    min_slow_repeats: int = 5
+    slow_s: float = 0.25
+    max_repeats: int = 41
+    budget_s: float = 1.5
+    rounds: int = 3
+    settle_s: float = 0.1
+    min_sample_s: float = 1e-3
+
+
+QUICK_PLAN = Plan(
+    min_repeats=3,
+    min_slow_repeats=3,
+    max_repeats=7,
+    budget_s=0.15,
+    rounds=1,
+    settle_s=0.005,
+    min_sample_s=2e-4,
+)
+
+
+@dataclass
+class Stats:
+    """Samples of one function: seconds per call, each averaged over ``number`` calls."""
+
+    samples: list[float]
+    number: int
+
+    @property
+    def median(self) -> float:
+        return statistics.median(self.samples)
+
+    @property
+    def min(self) -> float:
+        return min(self.samples)
+
+    @property
+    def repeats(self) -> int:
+        return len(self.samples)
+
+    def to_dict(self) -> dict:
+        return {
+            "median_s": self.median,
+            "min_s": self.min,
+            "repeats": self.repeats,
+            "number": self.number,
+            "samples_s": self.samples,
+        }
+
+
+def _time_calls(fn: Callable[[], object], number: int) -> float:
+    """Seconds per call of ``number`` back-to-back calls of fn."""
+    start = time.perf_counter()
+    for _ in range(number):
+        fn()
+    return (time.perf_counter() - start) / number
+
+
+def warm_up(fn: Callable[[], object]) -> tuple[float, object]:
+    """Call fn once (twice when it is fast); return the seconds and the result of the last
+    call."""
+    for attempt in range(2):
+        start = time.perf_counter()
+        value = fn()
+        seconds = time.perf_counter() - start
+        if seconds > 0.2 or attempt == 1:
+            break
+    return seconds, value
+
+
+def _calls_per_sample(seconds: float, plan: Plan) -> int:
+    return max(1, min(10_000, math.ceil(plan.min_sample_s / max(seconds, 1e-9))))
+
+
+def _repeats(sample_s: float, plan: Plan) -> int:
+    floor = plan.min_slow_repeats if sample_s > plan.slow_s else plan.min_repeats
+    return max(floor, min(plan.max_repeats, int(plan.budget_s / max(sample_s, 1e-9))))
+
+
+def _sample_block(fn: Callable[[], object], number: int, count: int) -> list[float]:
+    """``count`` samples of fn with the garbage collector off."""
+    enabled = gc.isenabled()
+    gc.disable()
+    try:
+        return [_time_calls(fn, number) for _ in range(count)]
+    finally:
+        if enabled:
+            gc.enable()
+
+
+def measure(
+    fns: Mapping[Hashable, Callable[[], object]],
+    plan: Plan,
+    on_warm: Callable[[Hashable, object], None] | None = None,
+) -> dict[Hashable, Stats]:
+    """Warm every function up, then sample all of them in interleaved rounds.
+
+    ``on_warm(key, result)`` is called with each function's warm-up result (to check it).
+    Returns seconds-per-call statistics keyed like ``fns``.
+    """
+    names = list(fns)
+    number, wanted = {}, {}
+    for name in names:
+        seconds, value = warm_up(fns[name])
+        if on_warm is not None:
+            on_warm(name, value)
+        number[name] = _calls_per_sample(seconds, plan)
+        wanted[name] = _repeats(seconds * number[name], plan)
+    samples: dict[Hashable, list[float]] = {name: [] for name in names}
+    for r in range(plan.rounds):
+        shift = r % len(names) if names else 0
+        for name in names[shift:] + names[:shift]:
+            block = math.ceil(wanted[name] / plan.rounds)
+            count = min(block, wanted[name] - len(samples[name]))
+            if count <= 0:
+                continue
+            time.sleep(plan.settle_s)
+            samples[name] += _sample_block(fns[name], number[name], count)
+    return {name: Stats(samples[name], number[name]) for name in names}
+
+
+def bandwidth_probes(flat: np.ndarray) -> dict[str, tuple[Callable[[], object], int]]:
+    """Read-bandwidth probes over the 1-D float array ``flat``: (function, bytes read).
+
+    'sum' is ``numpy.sum`` over all of it (one thread, vectorized). 'gemv' and 'gemv-wide'
+    are BLAS matrix-vector products (all BLAS threads) over it viewed as rows of
+    GEMV_COLUMNS numbers, and as WIDE_ROWS long rows: OpenBLAS streams the two shapes at
+    different speeds, and the faster one counts.
+    """
+    probes = {"sum": (flat.sum, flat.nbytes)}
+    for name, rows in (("gemv", flat.size // GEMV_COLUMNS), ("gemv-wide", WIDE_ROWS)):
+        rows = max(1, min(rows, flat.size))
+        cols = flat.size // rows
+        matrix = flat[: rows * cols].reshape(rows, cols)
+        ones = np.ones(cols, dtype=flat.dtype)
+        probes[name] = (lambda m=matrix, o=ones: m @ o, matrix.nbytes)
+    return probes
+
+
+def bandwidth(stats: Mapping[str, Stats], nbytes: Mapping[str, int]) -> dict:
+    """Read bandwidth in bytes per second from probe statistics: each probe's bytes over its
+    median (and over its min), and the best probe by median."""
+    per_probe = {
+        name: {
+            "bytes": nbytes[name],
+            "median_Bps": nbytes[name] / s.median,
+            "max_Bps": nbytes[name] / s.min,
+        }
+        for name, s in stats.items()
+    }
+    best = max(per_probe, key=lambda k: per_probe[k]["median_Bps"])
+    return {
+        "probes": per_probe,
+        "best_probe": best,
+        "Bps": per_probe[best]["median_Bps"],
+        "max_Bps": max(p["max_Bps"] for p in per_probe.values()),
+    }
+
+
+def roofline_fraction(nbytes: int, bytes_per_s: float, seconds: float) -> float:
+    """(bytes / bandwidth) / kernel time: 1.0 means the kernel streams its data at the
+    measured read bandwidth."""
+    return (nbytes / bytes_per_s) / seconds

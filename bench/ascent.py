@@ -1,0 +1,73 @@
+"""Cost of Hessian ascent against K x one Hessian pass, measured in the same run.
+
+    python bench/ascent.py                    # n = 800, p = 3, K = 200 (about 30 s on 2 cores)
+    python bench/ascent.py --n 400 --steps 100 --json bench/results/ascent.json
+
+Times one Hessian pass (median of 5, taken before and after the run, interleaved with nothing
+else), runs ``hessian_ascent`` with and without polish, and prints the ratios
+total / (K x pass). The machine is shared: compare ratios, not absolute seconds.
+"""
+
+from __future__ import annotations
+
+import argparse
+import statistics
+import time
+
+import numpy as np
+
+import orthoclimb as oc
+from orthoclimb.fileio import write_json_atomic
+
+
+def _pass_time(ham: oc.Hamiltonian, repeats: int = 5) -> float:
+    x = np.random.default_rng(0).standard_normal(ham.n)
+    x /= np.linalg.norm(x)
+    times = []
+    for _ in range(repeats):
+        t = time.perf_counter()
+        ham.hessian(x)
+        times.append(time.perf_counter() - t)
+    return statistics.median(times)
+
+
+def main() -> None:
+    ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
+    ap.add_argument("--n", type=int, default=800)
+    ap.add_argument("--p", type=int, default=3)
+    ap.add_argument("--steps", type=int, default=200)
+    ap.add_argument("--json", default=None, help="also write the numbers to this JSON file")
+    args = ap.parse_args()
+    ham = oc.Hamiltonian.sample(oc.Mixture({args.p: 1.0}), args.n, seed=0)
+    before = _pass_time(ham)
+    bare = oc.hessian_ascent(ham, steps=args.steps, seed=1, polish=False)
+    full = oc.hessian_ascent(ham, steps=args.steps, seed=1, polish=True)
+    after = _pass_time(ham)
+    one = 0.5 * (before + after)
+    k = args.steps
+    p = bare.path
+    out = {
+        "n": args.n,
+        "p": args.p,
+        "steps": k,
+        "threads": oc.get_num_threads(),
+        "hessian_pass_s": one,
+        "step_hessian_median_s": float(np.median(p["t_hessian"][:-1])),
+        "step_eigen_median_s": float(np.median(p["t_eigen"][:-1])),
+        "ascent_s": bare.seconds,
+        "with_polish_s": full.seconds,
+        "ratio_ascent": bare.seconds / (k * one),
+        "ratio_with_polish": full.seconds / (k * one),
+        "energy_ascent": bare.energy,
+        "energy_polished": full.energy,
+        "alg": bare.info["alg"],
+        "polish_iterations": full.info["polish"]["iterations"],
+    }
+    for key, val in out.items():
+        print(f"{key:24s} {val:.6g}" if isinstance(val, float) else f"{key:24s} {val}")
+    if args.json:
+        write_json_atomic(args.json, out)
+
+
+if __name__ == "__main__":
+    main()
