@@ -22,15 +22,12 @@
 use rayon::ThreadPool;
 
 use crate::error::CoreError;
-use crate::kernels::{check_len, items_for};
+use crate::kernels::{check_len, items_for, pieces};
 use crate::partition::{reduce_sums, WorkItem};
 use crate::simd::{
     dot, dot_axpy, lanes, leave_one_out, leave_two_out, simd_dispatch, Madd, Prefixes, MAX_PREFIX,
 };
 use crate::storage::{Coef, Packed};
-
-/// Items per batched pass (each holds a b x n accumulator).
-pub const BATCH_PIECES: usize = 32;
 
 fn transpose(src: &[f64], rows: usize, cols: usize) -> Vec<f64> {
     let mut out = vec![0.0; src.len()];
@@ -174,9 +171,9 @@ fn run_batch<T: Coef>(
             xt[t * stride + beta] = xs[beta * n + t];
         }
     }
-    let items = items_for(poly, BATCH_PIECES);
-    let blocks = poly.blocks();
     let glen = if want_grad { n * stride } else { 0 };
+    let items = items_for(poly, pieces(poly.num_coefficients(), glen.max(stride)));
+    let blocks = poly.blocks();
     let (mut e, g) = reduce_sums(pool, &items, stride, glen, |it, e, g| {
         batch_item::<T>(n, &blocks[it.block].coeffs, it, &xt, e, g);
     })?;
@@ -279,7 +276,7 @@ pub fn hvp_many<T: Coef>(
     })?;
     check_len("directions (n x k)", len, vs.len())?;
     let rows = transpose(vs, n, k); // k x n: one contiguous row per direction
-    let items = items_for(poly, BATCH_PIECES);
+    let items = items_for(poly, pieces(poly.num_coefficients(), len));
     let blocks = poly.blocks();
     let (_, w) = reduce_sums(pool, &items, 0, len, |it, _, w| {
         hvp_many_item::<T>(n, &blocks[it.block].coeffs, it, x, &rows, w);
@@ -291,7 +288,7 @@ pub fn hvp_many<T: Coef>(
 mod tests {
     use super::*;
     use crate::kernels::tests::{naive, pool};
-    use crate::kernels::{energy_gradient, hvp};
+    use crate::kernels::{energy_gradient, hvp, pieces};
     use crate::sampling::Disorder;
 
     #[test]
@@ -339,8 +336,9 @@ mod tests {
 
     #[test]
     fn batch_is_bitwise_identical_across_thread_counts() {
-        let n = 30;
+        let n = 60; // 37,820 coefficients: 2 work items
         let poly = Packed::<f64>::sample(&pool(2), n, &[(3, 1.0)], &Disorder::new(6)).unwrap();
+        assert!(pieces(poly.num_coefficients(), 4 * n) >= 2);
         let xs: Vec<f64> = (0..4 * n).map(|i| ((i as f64) * 0.05).sin()).collect();
         let one = energy_gradient_batch(&pool(1), &poly, &xs, 4).unwrap();
         for k in [2, 4] {

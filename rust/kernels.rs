@@ -27,15 +27,26 @@ use crate::simd::{
 };
 use crate::storage::{Coef, Packed};
 
-/// Items per pass for kernels whose accumulator is a vector of length n.
-pub const VECTOR_PIECES: usize = 64;
-/// Work items for the Hessian, whose accumulator is an n x n matrix: zeroing and merging
-/// one costs about n^2, so use a power of two near coefficients / (32 n^2), between 2 and 64,
-/// keeping that overhead to a few percent of the pass. Depends on the instance only.
-pub fn matrix_pieces(num_coefficients: usize, n: usize) -> usize {
-    let ratio = num_coefficients / (32 * n * n).max(1);
-    let pow2 = if ratio == 0 { 1 } else { 1 << ratio.ilog2() };
-    pow2.clamp(2, 64)
+/// Most work items of one pass (enough to keep 64 threads busy).
+pub const MAX_PIECES: usize = 64;
+/// Fewest coefficients worth a work item of their own: below this, handing an item to
+/// another thread costs more than it saves.
+pub const MIN_ITEM: usize = 1 << 14;
+
+/// Number of work items for a pass over `num_coefficients` whose per-item accumulator has
+/// `acc_len` numbers: a power of two, at most [`MAX_PIECES`], with at least [`MIN_ITEM`]
+/// coefficients and at least 32 * acc_len coefficients per item, so that zeroing and merging
+/// accumulators stays a few percent of the pass. It depends on the instance only, never on
+/// the thread count, which keeps results bitwise reproducible.
+pub fn pieces(num_coefficients: usize, acc_len: usize) -> usize {
+    let by_acc = num_coefficients / 32usize.saturating_mul(acc_len).max(1);
+    let by_work = num_coefficients / MIN_ITEM;
+    let most = by_acc.min(by_work).min(MAX_PIECES);
+    if most <= 1 {
+        1
+    } else {
+        1 << most.ilog2()
+    }
 }
 
 pub(crate) fn items_for<T: Coef>(poly: &Packed<T>, pieces: usize) -> Vec<WorkItem> {
@@ -92,9 +103,9 @@ simd_dispatch!(fn energy_item => energy_item_body(n: usize, a: &[T], it: &WorkIt
 /// H(x) = sum_p H_p(x).
 pub fn energy<T: Coef>(pool: &ThreadPool, poly: &Packed<T>, x: &[f64]) -> Result<f64, CoreError> {
     check_len("x", poly.n(), x.len())?;
-    let items = items_for(poly, VECTOR_PIECES);
-    let blocks = poly.blocks();
     let n = poly.n();
+    let items = items_for(poly, pieces(poly.num_coefficients(), 1));
+    let blocks = poly.blocks();
     Ok(reduce(
         pool,
         &items,
@@ -147,7 +158,7 @@ pub fn energy_gradient<T: Coef>(
 ) -> Result<(f64, Vec<f64>), CoreError> {
     let n = poly.n();
     check_len("x", n, x.len())?;
-    let items = items_for(poly, VECTOR_PIECES);
+    let items = items_for(poly, pieces(poly.num_coefficients(), n));
     let blocks = poly.blocks();
     let (e, g) = reduce_sums(pool, &items, 1, n, |it, e, g| {
         e[0] += gradient_item::<T>(n, &blocks[it.block].coeffs, it, x, g);
@@ -234,7 +245,7 @@ pub fn hessian<T: Coef>(
     let nn = n.checked_mul(n).ok_or_else(|| CoreError::SizeOverflow {
         what: format!("Hessian of n = {n}"),
     })?;
-    let items = items_for(poly, matrix_pieces(poly.num_coefficients(), n));
+    let items = items_for(poly, pieces(poly.num_coefficients(), nn));
     let blocks = poly.blocks();
     let (_, mut upper) = reduce_sums(pool, &items, 0, nn, |it, _, acc| {
         hessian_item::<T>(n, &blocks[it.block].coeffs, it, x, acc);
@@ -322,7 +333,7 @@ pub fn hvp<T: Coef>(
     let n = poly.n();
     check_len("x", n, x.len())?;
     check_len("v", n, v.len())?;
-    let items = items_for(poly, VECTOR_PIECES);
+    let items = items_for(poly, pieces(poly.num_coefficients(), n));
     let blocks = poly.blocks();
     let (_, w) = reduce_sums(pool, &items, 0, n, |it, _, w| {
         hvp_item::<T>(n, &blocks[it.block].coeffs, it, x, v, w);
@@ -458,12 +469,32 @@ pub(crate) mod tests {
     }
 
     #[test]
-    fn matrix_pieces_grow_with_work_per_entry() {
-        assert_eq!(matrix_pieces(10, 5), 2);
-        assert_eq!(matrix_pieces(num_multisets(400, 3).unwrap(), 400), 2);
-        assert_eq!(matrix_pieces(num_multisets(800, 3).unwrap(), 800), 4);
-        assert_eq!(matrix_pieces(num_multisets(120, 4).unwrap(), 120), 16);
-        assert_eq!(matrix_pieces(usize::MAX / 2, 10), 64);
+    fn pieces_grow_with_work_per_accumulator_entry() {
+        let m = |n: usize, p: usize| num_multisets(n, p).unwrap();
+        assert_eq!(pieces(10, 25), 1);
+        assert_eq!(pieces(m(24, 3), 24), 1, "tiny instances run as one item");
+        assert_eq!(pieces(m(400, 3), 400 * 400), 2);
+        assert_eq!(pieces(m(800, 3), 800 * 800), 4);
+        assert_eq!(pieces(m(120, 4), 120 * 120), 16);
+        assert_eq!(pieces(m(400, 3), 400), 64);
+        assert_eq!(pieces(usize::MAX / 2, 10), 64);
+    }
+
+    #[test]
+    fn hessian_with_several_accumulators_is_bitwise_identical_across_thread_counts() {
+        let n = 60; // 595,665 coefficients of degree 4: 4 accumulators
+        let poly =
+            Packed::<f64>::sample(&pool(2), n, &[(2, 1.0), (4, 0.5)], &Disorder::new(2)).unwrap();
+        assert!(pieces(poly.num_coefficients(), n * n) >= 4);
+        let x = point(n, 0.4);
+        let one = hessian(&pool(1), &poly, &x).unwrap();
+        for k in [2, 3] {
+            assert_eq!(hessian(&pool(k), &poly, &x).unwrap(), one);
+        }
+        let (_, _, h0) = naive(&poly, &x);
+        for (a, b) in one.iter().zip(&h0) {
+            assert!((a - b).abs() < 1e-9 * (1.0 + b.abs()));
+        }
     }
 
     #[test]

@@ -386,7 +386,7 @@ fn multiset_table<'py>(py: Python<'py>, n: usize, p: usize) -> PyResult<Bound<'p
 /// Number of n x n accumulators a Hessian pass of this polynomial uses (fixed by the instance).
 #[pyfunction]
 fn hessian_groups(num_coefficients: usize, n: usize) -> usize {
-    kernels::matrix_pieces(num_coefficients, n)
+    kernels::pieces(num_coefficients, n.saturating_mul(n))
 }
 
 /// Sets the number of threads of the shared pool.

@@ -142,6 +142,8 @@ def test_kernels_are_bitwise_identical_across_thread_counts(rng):
 
 
 def test_hessian_workspace_is_reported():
-    ham = oc.Hamiltonian.sample(oc.Mixture({3: 1.0}), 50, seed=0)
-    # 2 accumulators (the minimum, rust/kernels.rs matrix_pieces) plus the result
-    assert ham.hessian_workspace_nbytes == 3 * 50 * 50 * 8
+    # rust/kernels.rs `pieces`: one accumulator per 32 n^2 coefficients, as a power of two
+    small = oc.Hamiltonian.sample(oc.Mixture({3: 1.0}), 50, seed=0)  # 22,100 coefficients
+    assert small.hessian_workspace_nbytes == (1 + 1) * 50 * 50 * 8
+    big = oc.Hamiltonian.sample(oc.Mixture({3: 1.0}), 400, seed=0)  # 10.7 M coefficients
+    assert big.hessian_workspace_nbytes == (2 + 1) * 400 * 400 * 8
