@@ -238,20 +238,38 @@ pub fn lanes<T: Coef>(
     s: &mut [f64],
 ) {
     debug_assert!(width.is_multiple_of(4) && width <= 16 && stride >= width);
+    match width / 4 {
+        4 => lanes_fixed::<T, 4>(a, xt, stride, grad, s),
+        3 => lanes_fixed::<T, 3>(a, xt, stride, grad, s),
+        2 => lanes_fixed::<T, 2>(a, xt, stride, grad, s),
+        _ => lanes_fixed::<T, 1>(a, xt, stride, grad, s),
+    }
+}
+
+/// [`lanes`] for exactly 4 * G lanes; G is a constant so the accumulators stay in registers.
+#[inline(always)]
+fn lanes_fixed<T: Coef, const G: usize>(
+    a: &[T],
+    xt: &[f64],
+    stride: usize,
+    grad: Option<(&mut [f64], &[f64])>,
+    s: &mut [f64],
+) {
     let len = a.len();
+    let width = 4 * G;
     assert!(len == 0 || xt.len() >= (len - 1) * stride + width);
-    let groups = width / 4;
+    assert!(s.len() >= width);
     // SAFETY: row t of X (and G) covers [t*stride, t*stride + width), inside the slices by
-    // the assertion above; `s` and `prod` have at least `width` entries (checked below).
+    // the assertions; `s` and `prod` have at least `width` entries.
     unsafe {
         let px = xt.as_ptr();
-        let mut acc = [_mm256_setzero_pd(); 4];
+        let mut acc = [_mm256_setzero_pd(); G];
         match grad {
             None => {
                 for (t, at) in a.iter().enumerate() {
                     let c = _mm256_set1_pd(at.to_f64());
                     let row = px.add(t * stride);
-                    for (k, slot) in acc.iter_mut().enumerate().take(groups) {
+                    for (k, slot) in acc.iter_mut().enumerate() {
                         *slot = _mm256_fmadd_pd(c, _mm256_loadu_pd(row.add(4 * k)), *slot);
                     }
                 }
@@ -260,15 +278,15 @@ pub fn lanes<T: Coef>(
                 assert!(prod.len() >= width);
                 assert!(len == 0 || g.len() >= (len - 1) * stride + width);
                 let pg = g.as_mut_ptr();
-                let mut pr = [_mm256_setzero_pd(); 4];
-                for (k, slot) in pr.iter_mut().enumerate().take(groups) {
+                let mut pr = [_mm256_setzero_pd(); G];
+                for (k, slot) in pr.iter_mut().enumerate() {
                     *slot = _mm256_loadu_pd(prod.as_ptr().add(4 * k));
                 }
                 for (t, at) in a.iter().enumerate() {
                     let c = _mm256_set1_pd(at.to_f64());
                     let row = px.add(t * stride);
                     let grow = pg.add(t * stride);
-                    for k in 0..groups {
+                    for k in 0..G {
                         acc[k] = _mm256_fmadd_pd(c, _mm256_loadu_pd(row.add(4 * k)), acc[k]);
                         let gv = _mm256_fmadd_pd(c, pr[k], _mm256_loadu_pd(grow.add(4 * k)));
                         _mm256_storeu_pd(grow.add(4 * k), gv);
@@ -276,8 +294,7 @@ pub fn lanes<T: Coef>(
                 }
             }
         }
-        assert!(s.len() >= width);
-        for (k, slot) in acc.iter().enumerate().take(groups) {
+        for (k, slot) in acc.iter().enumerate() {
             _mm256_storeu_pd(s.as_mut_ptr().add(4 * k), *slot);
         }
     }
