@@ -12,11 +12,11 @@ workers. It is a rough guide (a factor of 2 either way), printed before a sweep 
 from __future__ import annotations
 
 import math
-import time
 
 import numpy as np
 
 from .grid import StudySpec
+from .profile import best_time
 
 __all__ = ["estimate_seconds", "largest_instance"]
 
@@ -34,15 +34,6 @@ def largest_instance(spec: StudySpec, tasks=None) -> tuple[int, str, int]:
         if b > best[0]:
             best = (b, t.mixture.name, t.n)
     return best
-
-
-def _best(fn, repeats: int = 2) -> float:
-    out = math.inf
-    for _ in range(repeats):
-        t = time.perf_counter()
-        fn()
-        out = min(out, time.perf_counter() - t)
-    return out
 
 
 def estimate_seconds(spec: StudySpec, tasks, workers: int, threads: int = 1) -> float:
@@ -65,8 +56,8 @@ def estimate_seconds(spec: StudySpec, tasks, workers: int, threads: int = 1) -> 
             x = np.full(n0, 1.0 / math.sqrt(n0))
             cal[m.name] = (
                 n0,
-                _best(lambda h=ham, v=x: h.hessian(v)),
-                _best(lambda h=ham, v=x: h.energy_and_gradient(v)),
+                best_time(lambda h=ham, v=x: h.hessian(v)),
+                best_time(lambda h=ham, v=x: h.energy_and_gradient(v)),
                 mix.max_degree,
             )
     finally:

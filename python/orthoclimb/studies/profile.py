@@ -25,7 +25,8 @@ __all__ = ["KERNELS", "plot_profile", "profile_kernels"]
 KERNELS = ("energy", "energy_and_gradient", "hvp", "hessian")
 
 
-def _best(fn, repeats: int) -> float:
+def best_time(fn, repeats: int = 2) -> float:
+    """Shortest wall time of `repeats` calls of fn(), in seconds."""
     out = math.inf
     for _ in range(repeats):
         t = time.perf_counter()
@@ -53,10 +54,10 @@ def profile_kernels(mixture: Any, sizes: Sequence[int], repeats: int = 3) -> dic
         row: dict[str, Any] = {"n": int(n), "bytes": int(need), "sample": time.perf_counter() - t}
         x = np.full(n, 1.0 / math.sqrt(n))
         v = np.random.default_rng(0).standard_normal(n)
-        row["energy"] = _best(lambda h=ham, x=x: h.energy(x), repeats)
-        row["energy_and_gradient"] = _best(lambda h=ham, x=x: h.energy_and_gradient(x), repeats)
-        row["hvp"] = _best(lambda h=ham, x=x, v=v: h.hvp(x, v), repeats)
-        row["hessian"] = _best(lambda h=ham, x=x: h.hessian(x), repeats)
+        row["energy"] = best_time(lambda h=ham, x=x: h.energy(x), repeats)
+        row["energy_and_gradient"] = best_time(lambda h=ham, x=x: h.energy_and_gradient(x), repeats)
+        row["hvp"] = best_time(lambda h=ham, x=x, v=v: h.hvp(x, v), repeats)
+        row["hessian"] = best_time(lambda h=ham, x=x: h.hessian(x), repeats)
         rows.append(row)
         del ham
     logn = np.log([r["n"] for r in rows])
