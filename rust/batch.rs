@@ -29,11 +29,19 @@ use crate::simd::{
 };
 use crate::storage::{Coef, Packed};
 
-fn transpose(src: &[f64], rows: usize, cols: usize) -> Vec<f64> {
-    let mut out = vec![0.0; src.len()];
+/// The transpose of the rows x cols matrix `src` (rows `src_stride` apart), as cols rows of
+/// length `dst_stride` >= rows (the extra entries, if any, are zero padding).
+fn transpose(
+    src: &[f64],
+    rows: usize,
+    cols: usize,
+    src_stride: usize,
+    dst_stride: usize,
+) -> Vec<f64> {
+    let mut out = vec![0.0; cols * dst_stride];
     for r in 0..rows {
         for c in 0..cols {
-            out[c * rows + r] = src[r * cols + c];
+            out[c * dst_stride + r] = src[r * src_stride + c];
         }
     }
     out
@@ -165,12 +173,7 @@ fn run_batch<T: Coef>(
     check_len("points (b x n)", len, xs.len())?;
     // lane layout, padded to a multiple of 4 lanes with zero points
     let stride = b.div_ceil(4) * 4;
-    let mut xt = vec![0.0; n * stride];
-    for beta in 0..b {
-        for t in 0..n {
-            xt[t * stride + beta] = xs[beta * n + t];
-        }
-    }
+    let xt = transpose(xs, b, n, n, stride);
     let glen = if want_grad { n * stride } else { 0 };
     let items = items_for(poly, pieces(poly.num_coefficients(), glen.max(stride)));
     let blocks = poly.blocks();
@@ -178,15 +181,11 @@ fn run_batch<T: Coef>(
         batch_item::<T>(n, &blocks[it.block].coeffs, it, &xt, e, g);
     })?;
     e.truncate(b);
-    let mut grads = Vec::new();
-    if want_grad {
-        grads = vec![0.0; len];
-        for beta in 0..b {
-            for t in 0..n {
-                grads[beta * n + t] = g[t * stride + beta];
-            }
-        }
-    }
+    let grads = if want_grad {
+        transpose(&g, n, b, stride, n)
+    } else {
+        Vec::new()
+    };
     Ok((e, grads))
 }
 
@@ -275,13 +274,13 @@ pub fn hvp_many<T: Coef>(
         what: format!("{k} directions"),
     })?;
     check_len("directions (n x k)", len, vs.len())?;
-    let rows = transpose(vs, n, k); // k x n: one contiguous row per direction
+    let rows = transpose(vs, n, k, k, n); // k x n: one contiguous row per direction
     let items = items_for(poly, pieces(poly.num_coefficients(), len));
     let blocks = poly.blocks();
     let (_, w) = reduce_sums(pool, &items, 0, len, |it, _, w| {
         hvp_many_item::<T>(n, &blocks[it.block].coeffs, it, x, &rows, w);
     })?;
-    Ok(transpose(&w, k, n))
+    Ok(transpose(&w, k, n, n, k))
 }
 
 #[cfg(test)]
