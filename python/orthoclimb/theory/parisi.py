@@ -87,28 +87,24 @@ _PHI_SERIES = (-1.0) ** _K / (_K + 1.0)
 _PSI_SERIES = (-1.0) ** _K * (_K + 1.0) / (_K + 2.0)
 
 
-def _phi(x: np.ndarray) -> np.ndarray:
-    """log1p(x) / x, with the value 1 at x = 0 (x >= 0)."""
+def _series_or_closed(x: np.ndarray, series: np.ndarray, closed) -> np.ndarray:
+    """The power series below _SMALL_X (where the closed form cancels), the closed form above."""
     x = np.asarray(x, dtype=np.float64)
     out = np.empty_like(x)
     small = x < _SMALL_X
-    xs = x[small]
-    out[small] = np.polynomial.polynomial.polyval(xs, _PHI_SERIES)
-    xl = x[~small]
-    out[~small] = np.log1p(xl) / xl
+    out[small] = np.polynomial.polynomial.polyval(x[small], series)
+    out[~small] = closed(x[~small])
     return out
+
+
+def _phi(x: np.ndarray) -> np.ndarray:
+    """log1p(x) / x, with the value 1 at x = 0 (x >= 0)."""
+    return _series_or_closed(x, _PHI_SERIES, lambda v: np.log1p(v) / v)
 
 
 def _psi(x: np.ndarray) -> np.ndarray:
     """int_0^1 t / (1 + x t)^2 dt = (log1p(x) - x / (1 + x)) / x^2, with the value 1/2 at 0."""
-    x = np.asarray(x, dtype=np.float64)
-    out = np.empty_like(x)
-    small = x < _SMALL_X
-    xs = x[small]
-    out[small] = np.polynomial.polynomial.polyval(xs, _PSI_SERIES)
-    xl = x[~small]
-    out[~small] = (np.log1p(xl) - xl / (1.0 + xl)) / (xl * xl)
-    return out
+    return _series_or_closed(x, _PSI_SERIES, lambda v: (np.log1p(v) - v / (1.0 + v)) / (v * v))
 
 
 class _Grid:
