@@ -194,7 +194,7 @@ class Hamiltonian:
     @property
     def hessian_workspace_nbytes(self) -> int:
         """Peak bytes a :meth:`hessian` call allocates: its n x n accumulators (a number fixed
-        by the instance, 2 to 64) and the result, 8 bytes per entry each."""
+        by the instance, 1 to 64) and the result, 8 bytes per entry each."""
         groups = int(_core.hessian_groups(self.num_coefficients, self.n))
         return (groups + 1) * self.n * self.n * 8
 
