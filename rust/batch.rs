@@ -19,9 +19,8 @@
 //! W[kappa, ij] += Q_j Sv[kappa] + dQ_j[kappa] Sx.
 //! ```
 
-use rayon::ThreadPool;
-
 use crate::error::CoreError;
+use crate::exec::Exec;
 use crate::kernels::{check_len, items_for, pieces};
 use crate::partition::{reduce_sums, WorkItem};
 use crate::simd::{
@@ -160,7 +159,7 @@ simd_dispatch!(fn batch_item => batch_item_body(
     n: usize, a: &[T], it: &WorkItem, xt: &[f64], e: &mut [f64], g: &mut [f64]) -> ());
 
 fn run_batch<T: Coef>(
-    pool: &ThreadPool,
+    exec: &Exec,
     poly: &Packed<T>,
     xs: &[f64],
     b: usize,
@@ -175,9 +174,14 @@ fn run_batch<T: Coef>(
     let stride = b.div_ceil(4) * 4;
     let xt = transpose(xs, b, n, n, stride);
     let glen = if want_grad { n * stride } else { 0 };
-    let items = items_for(poly, pieces(poly.num_coefficients(), glen.max(stride)));
+    let width = if want_grad { 2 * stride } else { stride };
+    let items = items_for(
+        poly,
+        pieces(poly.num_coefficients(), glen.max(stride)),
+        width,
+    );
     let blocks = poly.blocks();
-    let (mut e, g) = reduce_sums(pool, &items, stride, glen, |it, e, g| {
+    let (mut e, g) = reduce_sums(exec, &items, stride, glen, |it, e, g| {
         batch_item::<T>(n, &blocks[it.block].coeffs, it, &xt, e, g);
     })?;
     e.truncate(b);
@@ -191,22 +195,22 @@ fn run_batch<T: Coef>(
 
 /// H at each of b points (`xs` is b x n row-major).
 pub fn energy_batch<T: Coef>(
-    pool: &ThreadPool,
+    exec: &Exec,
     poly: &Packed<T>,
     xs: &[f64],
     b: usize,
 ) -> Result<Vec<f64>, CoreError> {
-    Ok(run_batch(pool, poly, xs, b, false)?.0)
+    Ok(run_batch(exec, poly, xs, b, false)?.0)
 }
 
 /// H and grad H at each of b points; the gradients are returned b x n row-major.
 pub fn energy_gradient_batch<T: Coef>(
-    pool: &ThreadPool,
+    exec: &Exec,
     poly: &Packed<T>,
     xs: &[f64],
     b: usize,
 ) -> Result<(Vec<f64>, Vec<f64>), CoreError> {
-    run_batch(pool, poly, xs, b, true)
+    run_batch(exec, poly, xs, b, true)
 }
 
 /// Hessian-vector products of an item for k directions `vs` (k x n) added to `w` (k x n).
@@ -262,7 +266,7 @@ simd_dispatch!(fn hvp_many_item => hvp_many_item_body(
 
 /// Hess H(x) V for k directions; `vs` and the result are n x k row-major.
 pub fn hvp_many<T: Coef>(
-    pool: &ThreadPool,
+    exec: &Exec,
     poly: &Packed<T>,
     x: &[f64],
     vs: &[f64],
@@ -275,9 +279,9 @@ pub fn hvp_many<T: Coef>(
     })?;
     check_len("directions (n x k)", len, vs.len())?;
     let rows = transpose(vs, n, k, k, n); // k x n: one contiguous row per direction
-    let items = items_for(poly, pieces(poly.num_coefficients(), len));
+    let items = items_for(poly, pieces(poly.num_coefficients(), len), 2 * k + 1);
     let blocks = poly.blocks();
-    let (_, w) = reduce_sums(pool, &items, 0, len, |it, _, w| {
+    let (_, w) = reduce_sums(exec, &items, 0, len, |it, _, w| {
         hvp_many_item::<T>(n, &blocks[it.block].coeffs, it, x, &rows, w);
     })?;
     Ok(transpose(&w, k, n, n, k))

@@ -34,6 +34,8 @@ pub enum CoreError {
     InvalidDtype { name: String },
     /// A thread count of zero or a pool that could not be built.
     InvalidThreads { detail: String },
+    /// The caller asked the call to stop (see [`crate::exec::Exec::request_stop`]).
+    Interrupted,
 }
 
 impl fmt::Display for CoreError {
@@ -72,6 +74,7 @@ impl fmt::Display for CoreError {
                 )
             }
             CoreError::InvalidThreads { detail } => write!(f, "invalid thread setting: {detail}"),
+            CoreError::Interrupted => write!(f, "the call was interrupted before it finished"),
         }
     }
 }

@@ -17,10 +17,9 @@
 //! positional product rule counts them (d/dx x^2 = 2x). These satisfy the Euler identities
 //! x . grad H_p = p H_p and Hess H_p x = (p - 1) grad H_p, which the tests check.
 
-use rayon::ThreadPool;
-
 use crate::error::CoreError;
-use crate::partition::{plan, reduce, reduce_sums, WorkItem};
+use crate::exec::Exec;
+use crate::partition::{plan, reduce, reduce_sums, Plan, WorkItem, CHUNK};
 use crate::simd::{
     axpy, dot, dot2_axpy, dot_axpy, dot_axpy2, leave_one_out, leave_two_out, simd_dispatch, Madd,
     Prefixes, MAX_PREFIX,
@@ -49,13 +48,15 @@ pub fn pieces(num_coefficients: usize, acc_len: usize) -> usize {
     }
 }
 
-pub(crate) fn items_for<T: Coef>(poly: &Packed<T>, pieces: usize) -> Vec<WorkItem> {
+/// The plan of a pass in `pieces` groups, for a kernel doing about `width` multiply-adds per
+/// coefficient (which sets the chunk length, see [`CHUNK`]).
+pub(crate) fn items_for<T: Coef>(poly: &Packed<T>, pieces: usize, width: usize) -> Plan {
     let blocks: Vec<(usize, usize)> = poly
         .blocks()
         .iter()
         .map(|b| (b.degree, b.coeffs.len()))
         .collect();
-    plan(poly.n(), &blocks, pieces)
+    plan(poly.n(), &blocks, pieces, (CHUNK / width.max(1)).max(1))
 }
 
 pub(crate) fn check_len(what: &'static str, expected: usize, got: usize) -> Result<(), CoreError> {
@@ -101,18 +102,18 @@ fn energy_item_body<M: Madd, T: Coef>(n: usize, a: &[T], it: &WorkItem, x: &[f64
 simd_dispatch!(fn energy_item => energy_item_body(n: usize, a: &[T], it: &WorkItem, x: &[f64]) -> f64);
 
 /// H(x) = sum_p H_p(x).
-pub fn energy<T: Coef>(pool: &ThreadPool, poly: &Packed<T>, x: &[f64]) -> Result<f64, CoreError> {
+pub fn energy<T: Coef>(exec: &Exec, poly: &Packed<T>, x: &[f64]) -> Result<f64, CoreError> {
     check_len("x", poly.n(), x.len())?;
     let n = poly.n();
-    let items = items_for(poly, pieces(poly.num_coefficients(), 1));
+    let items = items_for(poly, pieces(poly.num_coefficients(), 1), 1);
     let blocks = poly.blocks();
-    Ok(reduce(
-        pool,
+    reduce(
+        exec,
         &items,
         || 0.0,
         |it, acc| *acc += energy_item::<T>(n, &blocks[it.block].coeffs, it, x),
         |a, b| *a += b,
-    ))
+    )
 }
 
 // ---------------------------------------------------------------------------------------
@@ -152,15 +153,15 @@ simd_dispatch!(fn gradient_item => gradient_item_body(
 
 /// (H(x), grad H(x)).
 pub fn energy_gradient<T: Coef>(
-    pool: &ThreadPool,
+    exec: &Exec,
     poly: &Packed<T>,
     x: &[f64],
 ) -> Result<(f64, Vec<f64>), CoreError> {
     let n = poly.n();
     check_len("x", n, x.len())?;
-    let items = items_for(poly, pieces(poly.num_coefficients(), n));
+    let items = items_for(poly, pieces(poly.num_coefficients(), n), 2);
     let blocks = poly.blocks();
-    let (e, g) = reduce_sums(pool, &items, 1, n, |it, e, g| {
+    let (e, g) = reduce_sums(exec, &items, 1, n, |it, e, g| {
         e[0] += gradient_item::<T>(n, &blocks[it.block].coeffs, it, x, g);
     })?;
     Ok((e[0], g))
@@ -235,19 +236,15 @@ simd_dispatch!(fn hessian_item => hessian_item_body(
     n: usize, a: &[T], it: &WorkItem, x: &[f64], acc: &mut [f64]) -> ());
 
 /// The full n x n Hessian of H at x, row-major.
-pub fn hessian<T: Coef>(
-    pool: &ThreadPool,
-    poly: &Packed<T>,
-    x: &[f64],
-) -> Result<Vec<f64>, CoreError> {
+pub fn hessian<T: Coef>(exec: &Exec, poly: &Packed<T>, x: &[f64]) -> Result<Vec<f64>, CoreError> {
     let n = poly.n();
     check_len("x", n, x.len())?;
     let nn = n.checked_mul(n).ok_or_else(|| CoreError::SizeOverflow {
         what: format!("Hessian of n = {n}"),
     })?;
-    let items = items_for(poly, pieces(poly.num_coefficients(), nn));
+    let items = items_for(poly, pieces(poly.num_coefficients(), nn), poly.max_degree());
     let blocks = poly.blocks();
-    let (_, mut upper) = reduce_sums(pool, &items, 0, nn, |it, _, acc| {
+    let (_, mut upper) = reduce_sums(exec, &items, 0, nn, |it, _, acc| {
         hessian_item::<T>(n, &blocks[it.block].coeffs, it, x, acc);
     })?;
     symmetrize(&mut upper, n);
@@ -325,7 +322,7 @@ simd_dispatch!(fn hvp_item => hvp_item_body(
 
 /// Hess H(x) v for one direction v.
 pub fn hvp<T: Coef>(
-    pool: &ThreadPool,
+    exec: &Exec,
     poly: &Packed<T>,
     x: &[f64],
     v: &[f64],
@@ -333,9 +330,9 @@ pub fn hvp<T: Coef>(
     let n = poly.n();
     check_len("x", n, x.len())?;
     check_len("v", n, v.len())?;
-    let items = items_for(poly, pieces(poly.num_coefficients(), n));
+    let items = items_for(poly, pieces(poly.num_coefficients(), n), 3);
     let blocks = poly.blocks();
-    let (_, w) = reduce_sums(pool, &items, 0, n, |it, _, w| {
+    let (_, w) = reduce_sums(exec, &items, 0, n, |it, _, w| {
         hvp_item::<T>(n, &blocks[it.block].coeffs, it, x, v, w);
     })?;
     Ok(w)
@@ -347,11 +344,8 @@ pub(crate) mod tests {
     use crate::combinatorics::{advance, num_multisets};
     use crate::sampling::Disorder;
 
-    pub fn pool(k: usize) -> ThreadPool {
-        rayon::ThreadPoolBuilder::new()
-            .num_threads(k)
-            .build()
-            .unwrap()
+    pub fn pool(k: usize) -> Exec {
+        Exec::with_threads(k).unwrap()
     }
 
     /// Direct evaluation: sum over monomials of a_m prod x, and its derivatives by the

@@ -10,6 +10,7 @@ mod avx2;
 pub mod batch;
 pub mod combinatorics;
 pub mod error;
+pub mod exec;
 pub mod kernels;
 pub mod partition;
 pub mod sampling;
@@ -19,6 +20,7 @@ pub mod storage;
 pub mod threads;
 
 pub use error::CoreError;
+pub use exec::Exec;
 pub use storage::{Coef, Packed};
 
 #[cfg(feature = "python")]

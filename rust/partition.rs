@@ -1,17 +1,25 @@
 //! Fixed work decomposition and deterministic reduction.
 //!
-//! A kernel pass splits the packed blocks into [`WorkItem`]s whose boundaries depend only on
-//! n, the degrees and a piece count, never on the number of threads. Each item covers the
-//! monomials whose first index i1 lies in `lo..hi` (for p = 1: the indices `lo..hi`
-//! themselves), which are the contiguous coefficient range `start..start+len`.
-//! [`reduce`] combines per-item results along a binary tree that is fixed by the item count,
-//! so every thread count gives bitwise-identical results.
+//! A kernel pass splits the packed blocks into *groups*, each with its own accumulator, and
+//! each group into [`WorkItem`]s (chunks) of at most [`CHUNK`] coefficients that its leaf
+//! processes in order. Both boundaries depend only on n, the degrees and a piece count, never
+//! on the number of threads. Each item covers the monomials whose first index i1 lies in
+//! `lo..hi` (for p = 1: the indices `lo..hi` themselves), which are the contiguous coefficient
+//! range `start..start+len`. [`reduce`] combines per-group results along a binary tree that is
+//! fixed by the group count, so every thread count gives bitwise-identical results; between
+//! chunks it polls the call's stop flag ([`Exec`]).
 
-use rayon::ThreadPool;
+use std::ops::Range;
 
 use crate::combinatorics::{count_with_first, first_index_offset};
 use crate::error::CoreError;
+use crate::exec::Exec;
 use crate::scratch;
+
+/// Multiply-adds in one chunk: the granularity at which a pass notices a stop request
+/// (about a millisecond of work). A chunk holds `CHUNK / width` coefficients for a kernel
+/// doing `width` multiply-adds per coefficient, and never less than one first index.
+pub const CHUNK: usize = 1 << 19;
 
 /// One contiguous piece of one degree block.
 #[derive(Debug, Clone, Copy, PartialEq, Eq)]
@@ -28,40 +36,69 @@ pub struct WorkItem {
     pub len: usize,
 }
 
-/// Splits the blocks (given as (degree, length) pairs) into about `pieces` items of balanced
-/// coefficient counts.
-pub fn plan(n: usize, blocks: &[(usize, usize)], pieces: usize) -> Vec<WorkItem> {
+/// The work of one pass: chunks in storage order, and the groups of consecutive chunks that
+/// share one accumulator.
+#[derive(Debug, Clone, PartialEq, Eq)]
+pub struct Plan {
+    pub items: Vec<WorkItem>,
+    pub groups: Vec<Range<usize>>,
+}
+
+impl Plan {
+    /// The chunks of group `g`.
+    pub fn group(&self, g: usize) -> &[WorkItem] {
+        &self.items[self.groups[g].clone()]
+    }
+}
+
+/// Cuts first indices `lo..hi` of a degree-p block into consecutive ranges of about `target`
+/// coefficients each (at least one first index per range).
+fn cut(n: usize, p: usize, lo: usize, hi: usize, target: usize) -> Vec<(usize, usize)> {
+    let target = target.max(1);
+    let mut out = Vec::new();
+    let mut a = lo;
+    while a < hi {
+        let b = if p == 1 {
+            (a + target).min(hi)
+        } else {
+            let (mut b, mut count) = (a, 0usize);
+            while b < hi && count < target {
+                count += count_with_first(n, p, b);
+                b += 1;
+            }
+            b
+        };
+        out.push((a, b));
+        a = b;
+    }
+    out
+}
+
+/// Splits the blocks (given as (degree, length) pairs) into about `pieces` groups of balanced
+/// coefficient counts, each cut into chunks of about `chunk` coefficients.
+pub fn plan(n: usize, blocks: &[(usize, usize)], pieces: usize, chunk: usize) -> Plan {
     let total: usize = blocks.iter().map(|b| b.1).sum();
     let target = total.div_ceil(pieces.max(1)).max(1);
-    let mut items = Vec::new();
+    let (mut items, mut groups) = (Vec::new(), Vec::new());
     for (bi, &(p, len)) in blocks.iter().enumerate() {
-        let mut lo = 0usize;
-        while lo < n {
-            let hi = if p == 1 {
-                (lo + target).min(n)
-            } else {
-                let mut hi = lo;
-                let mut count = 0usize;
-                while hi < n && count < target {
-                    count += count_with_first(n, p, hi);
-                    hi += 1;
-                }
-                hi
-            };
-            let (start, end) = if p == 1 {
-                (lo, hi)
-            } else {
-                (first_index_offset(n, p, lo), first_index_offset(n, p, hi))
-            };
-            items.push(WorkItem {
-                block: bi,
-                degree: p,
-                lo,
-                hi,
-                start,
-                len: end - start,
-            });
-            lo = hi;
+        for (glo, ghi) in cut(n, p, 0, n, target) {
+            let first = items.len();
+            for (lo, hi) in cut(n, p, glo, ghi, chunk) {
+                let (start, end) = if p == 1 {
+                    (lo, hi)
+                } else {
+                    (first_index_offset(n, p, lo), first_index_offset(n, p, hi))
+                };
+                items.push(WorkItem {
+                    block: bi,
+                    degree: p,
+                    lo,
+                    hi,
+                    start,
+                    len: end - start,
+                });
+            }
+            groups.push(first..items.len());
         }
         debug_assert_eq!(
             items
@@ -72,40 +109,64 @@ pub fn plan(n: usize, blocks: &[(usize, usize)], pieces: usize) -> Vec<WorkItem>
             len
         );
     }
-    items
+    Plan { items, groups }
 }
 
-/// Runs `leaf(item, &mut acc)` for every item on `pool` and merges the accumulators along a
-/// fixed binary tree (`merge(left, right)` adds right into left).
-pub fn reduce<R, Z, L, M>(pool: &ThreadPool, items: &[WorkItem], zero: Z, leaf: L, merge: M) -> R
+/// Runs `leaf(item, &mut acc)` for every chunk of every group on the pool of `exec` and
+/// merges the group accumulators along a fixed binary tree (`merge(left, right)` adds right
+/// into left). Once a stop is requested the remaining chunks are skipped and the result is
+/// `Err(Interrupted)`.
+pub fn reduce<R, Z, L, M>(
+    exec: &Exec,
+    plan: &Plan,
+    zero: Z,
+    leaf: L,
+    merge: M,
+) -> Result<R, CoreError>
 where
     R: Send,
     Z: Fn() -> R + Sync,
     L: Fn(&WorkItem, &mut R) + Sync,
     M: Fn(&mut R, R) + Sync,
 {
-    fn rec<R: Send>(
-        items: &[WorkItem],
-        zero: &(dyn Fn() -> R + Sync),
-        leaf: &(dyn Fn(&WorkItem, &mut R) + Sync),
-        merge: &(dyn Fn(&mut R, R) + Sync),
-    ) -> R {
-        if items.len() <= 1 {
-            let mut acc = zero();
-            for it in items {
-                leaf(it, &mut acc);
+    struct Pass<'a, R> {
+        exec: &'a Exec,
+        plan: &'a Plan,
+        zero: &'a (dyn Fn() -> R + Sync),
+        leaf: &'a (dyn Fn(&WorkItem, &mut R) + Sync),
+        merge: &'a (dyn Fn(&mut R, R) + Sync),
+    }
+    fn rec<R: Send>(pass: &Pass<'_, R>, groups: Range<usize>) -> R {
+        if groups.len() <= 1 {
+            let mut acc = (pass.zero)();
+            for g in groups {
+                for it in pass.plan.group(g) {
+                    if pass.exec.stop_requested() {
+                        return acc;
+                    }
+                    (pass.leaf)(it, &mut acc);
+                }
             }
             return acc;
         }
-        let mid = items.len() / 2;
+        let mid = groups.start + groups.len() / 2;
         let (mut left, right) = rayon::join(
-            || rec(&items[..mid], zero, leaf, merge),
-            || rec(&items[mid..], zero, leaf, merge),
+            || rec(pass, groups.start..mid),
+            || rec(pass, mid..groups.end),
         );
-        merge(&mut left, right);
+        (pass.merge)(&mut left, right);
         left
     }
-    pool.install(|| rec(items, &zero, &leaf, &merge))
+    let pass = Pass {
+        exec,
+        plan,
+        zero: &zero,
+        leaf: &leaf,
+        merge: &merge,
+    };
+    let out = exec.install(|| rec(&pass, 0..plan.groups.len()));
+    exec.check()?;
+    Ok(out)
 }
 
 /// Per-leaf pair of zeroed f64 accumulators, or the allocation error that prevented them.
@@ -120,8 +181,8 @@ struct Sums {
 /// An accumulator that cannot be allocated makes the whole call an error (no abort).
 /// Accumulators come from, and merged ones go back to, the [`scratch`] cache.
 pub fn reduce_sums<L>(
-    pool: &ThreadPool,
-    items: &[WorkItem],
+    exec: &Exec,
+    plan: &Plan,
     a_len: usize,
     b_len: usize,
     leaf: L,
@@ -138,8 +199,8 @@ where
         },
     };
     let sums = reduce(
-        pool,
-        items,
+        exec,
+        plan,
         zero,
         |it, acc| {
             if acc.err.is_none() {
@@ -163,7 +224,7 @@ where
             scratch::give(right.a);
             scratch::give(right.b);
         },
-    );
+    )?;
     match sums.err {
         Some(err) => Err(err),
         None => Ok((sums.a, sums.b)),
@@ -177,15 +238,16 @@ mod tests {
 
     #[test]
     fn plan_covers_each_block_exactly_once() {
-        for n in [1usize, 2, 7, 50] {
+        for n in [1usize, 2, 7, 50, 200] {
             let blocks: Vec<(usize, usize)> = [1usize, 2, 3, 5]
                 .iter()
+                .filter(|&&p| n < 100 || p <= 3)
                 .map(|&p| (p, num_multisets(n, p).unwrap()))
                 .collect();
-            for pieces in [1usize, 3, 16, 64] {
-                let items = plan(n, &blocks, pieces);
-                for (bi, &(_, len)) in blocks.iter().enumerate() {
-                    let mine: Vec<_> = items.iter().filter(|i| i.block == bi).collect();
+            for (pieces, chunk) in [(1usize, CHUNK), (3, 1000), (16, CHUNK), (64, 1 << 12)] {
+                let plan = plan(n, &blocks, pieces, chunk);
+                for (bi, &(p, len)) in blocks.iter().enumerate() {
+                    let mine: Vec<_> = plan.items.iter().filter(|i| i.block == bi).collect();
                     assert_eq!(mine.first().unwrap().start, 0);
                     assert_eq!(mine.first().unwrap().lo, 0);
                     assert_eq!(mine.last().unwrap().hi, n);
@@ -194,31 +256,72 @@ mod tests {
                         assert_eq!(w[0].start + w[0].len, w[1].start);
                     }
                     assert_eq!(mine.iter().map(|i| i.len).sum::<usize>(), len);
+                    // a chunk exceeds `chunk` only by its last first index
+                    for it in &mine {
+                        let last = if p == 1 {
+                            1
+                        } else {
+                            count_with_first(n, p, it.hi - 1)
+                        };
+                        assert!(it.len < chunk + last, "chunk of {} coefficients", it.len);
+                    }
                 }
+                // groups tile the chunks in order, and a group never mixes blocks
+                let mut next = 0;
+                for g in &plan.groups {
+                    assert_eq!(g.start, next);
+                    assert!(g.end > g.start);
+                    let b = plan.items[g.start].block;
+                    assert!(plan.items[g.clone()].iter().all(|i| i.block == b));
+                    next = g.end;
+                }
+                assert_eq!(next, plan.items.len());
             }
         }
     }
 
     #[test]
     fn reduce_is_deterministic_across_pools() {
-        let blocks = [(3usize, num_multisets(60, 3).unwrap())];
-        let items = plan(60, &blocks, 32);
+        let blocks = [(3usize, num_multisets(200, 3).unwrap())];
+        let plan = plan(200, &blocks, 4, 1 << 16);
+        assert!(
+            plan.items.len() > plan.groups.len(),
+            "groups hold several chunks"
+        );
         let run = |k: usize| {
-            let pool = rayon::ThreadPoolBuilder::new()
-                .num_threads(k)
-                .build()
-                .unwrap();
             reduce(
-                &pool,
-                &items,
+                &Exec::with_threads(k).unwrap(),
+                &plan,
                 || 0.0f64,
                 |it, acc| *acc += (it.start as f64 + 0.1).sqrt() * 1e-3 + 1.0 / (it.len as f64),
                 |a, b| *a += b,
             )
+            .unwrap()
         };
         let one = run(1);
         for k in [2, 3, 4] {
             assert_eq!(run(k).to_bits(), one.to_bits());
         }
+    }
+
+    #[test]
+    fn a_stop_request_skips_the_remaining_chunks() {
+        let blocks = [(3usize, num_multisets(150, 3).unwrap())];
+        let plan = plan(150, &blocks, 1, CHUNK);
+        let exec = Exec::with_threads(1).unwrap();
+        let seen = std::sync::atomic::AtomicUsize::new(0);
+        let out = reduce(
+            &exec,
+            &plan,
+            || (),
+            |_, _| {
+                if seen.fetch_add(1, std::sync::atomic::Ordering::Relaxed) == 1 {
+                    exec.request_stop();
+                }
+            },
+            |_, _| (),
+        );
+        assert_eq!(out, Err(CoreError::Interrupted));
+        assert_eq!(seen.into_inner(), 2, "no chunk runs after the request");
     }
 }

@@ -4,20 +4,25 @@
 //! releases the GIL with `py.detach` around the kernel, runs rayon only inside it, and maps
 //! core errors to Python exceptions in [`to_py_err`]. A panic inside the core (a bug) is
 //! caught and reported as `orthoclimb.errors.CoreError`, never as a PanicException.
+//! While a kernel runs, the calling thread checks for Ctrl-C every [`SIGNAL_POLL`] and stops
+//! the kernel at its next chunk; the call then raises what the signal handler raised
+//! (KeyboardInterrupt), and the instance is untouched (kernels only read it).
 
 use std::panic::{catch_unwind, AssertUnwindSafe};
+use std::time::Duration;
 
 use numpy::{
     IntoPyArray, PyArray1, PyArray2, PyArrayMethods, PyReadonlyArray1, PyReadonlyArray2,
     PyUntypedArrayMethods,
 };
-use pyo3::exceptions::{PyMemoryError, PyRuntimeError, PyValueError};
+use pyo3::exceptions::{PyKeyboardInterrupt, PyMemoryError, PyRuntimeError, PyValueError};
 use pyo3::prelude::*;
 use pyo3::types::PyType;
 
 use crate::batch;
 use crate::combinatorics::{advance, num_multisets};
 use crate::error::CoreError;
+use crate::exec::Exec;
 use crate::kernels;
 use crate::sampling::Disorder;
 use crate::simd::simd_path;
@@ -64,6 +69,7 @@ fn to_py_err(py: Python<'_>, err: CoreError) -> PyErr {
         | CoreError::MissingDegree { .. }
         | CoreError::InvalidDtype { .. }
         | CoreError::InvalidThreads { .. } => return PyValueError::new_err(err.to_string()),
+        CoreError::Interrupted => return PyKeyboardInterrupt::new_err(err.to_string()),
     };
     package_error(py, class, err.to_string(), PyValueError::new_err)
 }
@@ -73,14 +79,36 @@ fn internal_error(py: Python<'_>, what: &str) -> PyErr {
     package_error(py, "CoreError", msg, PyRuntimeError::new_err)
 }
 
-/// Runs `f` with the GIL released on the shared pool, mapping errors and panics.
+/// How often the calling thread checks for Ctrl-C while a kernel runs.
+const SIGNAL_POLL: Duration = Duration::from_millis(50);
+
+/// Runs `f` with the GIL released on the shared pool, mapping errors and panics. The
+/// waiting thread re-takes the GIL every [`SIGNAL_POLL`] to run Python's signal handlers;
+/// when one raises, the kernel is stopped and that exception is the call's result (it is
+/// never swallowed, even when the kernel finished in the meantime).
 fn run<T: Send>(
     py: Python<'_>,
     what: &str,
-    f: impl FnOnce(&rayon::ThreadPool) -> Result<T, CoreError> + Send,
+    f: impl FnOnce(&Exec) -> Result<T, CoreError> + Send,
 ) -> PyResult<T> {
-    let pool = threads::shared_pool().map_err(|e| to_py_err(py, e))?;
-    let out = py.detach(move || catch_unwind(AssertUnwindSafe(|| f(&pool))));
+    let exec = Exec::new(threads::shared_pool().map_err(|e| to_py_err(py, e))?);
+    let mut raised: Option<PyErr> = None;
+    let out = py.detach(|| {
+        catch_unwind(AssertUnwindSafe(|| {
+            exec.run_watched(SIGNAL_POLL, f, || {
+                match Python::attach(|py| py.check_signals()) {
+                    Ok(()) => false,
+                    Err(e) => {
+                        raised = Some(e);
+                        true
+                    }
+                }
+            })
+        }))
+    });
+    if let Some(err) = raised {
+        return Err(err);
+    }
     match out {
         Ok(Ok(v)) => Ok(v),
         Ok(Err(e)) => Err(to_py_err(py, e)),
@@ -335,11 +363,26 @@ impl PyPacked {
         Ok((e.into_pyarray(py), g.into_pyarray(py).reshape(shape)?))
     }
 
-    /// The degree-p coefficients a_m as a new float64 array (SPEC order).
-    fn coefficients<'py>(&self, py: Python<'py>, p: usize) -> PyResult<Bound<'py, PyArray1<f64>>> {
+    /// The degree-p coefficients a_m of ranks `start..stop` (default: all) as a new float64
+    /// array (SPEC order).
+    #[pyo3(signature = (p, start=0, stop=None))]
+    fn coefficients<'py>(
+        &self,
+        py: Python<'py>,
+        p: usize,
+        start: usize,
+        stop: Option<usize>,
+    ) -> PyResult<Bound<'py, PyArray1<f64>>> {
         let data: Vec<f64> = on_storage!(&self.inner, poly => {
             let block = poly.block(p).map_err(|e| to_py_err(py, e))?;
-            block.coeffs.iter().map(|&c| crate::storage::Coef::to_f64(c)).collect()
+            let len = block.coeffs.len();
+            let stop = stop.unwrap_or(len);
+            if start > stop || stop > len {
+                return Err(PyValueError::new_err(format!(
+                    "coefficient range {start}..{stop} is outside 0..{len} for degree {p}"
+                )));
+            }
+            block.coeffs[start..stop].iter().map(|&c| crate::storage::Coef::to_f64(c)).collect()
         });
         Ok(data.into_pyarray(py))
     }

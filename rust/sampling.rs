@@ -24,10 +24,10 @@
 use rand_chacha::ChaCha12Rng;
 use rand_core::{Rng, SeedableRng};
 use rayon::prelude::*;
-use rayon::ThreadPool;
 
 use crate::combinatorics::{advance, orderings, unrank, MAX_DEGREE};
 use crate::error::CoreError;
+use crate::exec::Exec;
 use crate::storage::Coef;
 
 /// Ranks generated per parallel task; even, so that Box–Muller pairs never straddle tasks
@@ -140,22 +140,27 @@ pub fn fill_range<T: Coef>(
     }
 }
 
-/// Fills a whole degree-p block, in parallel on `pool`, with fixed chunks of `CHUNK` ranks.
+/// Fills a whole degree-p block, in parallel on the pool of `exec`, with fixed chunks of
+/// `CHUNK` ranks. After a stop request the remaining chunks are skipped and the result is
+/// `Err(Interrupted)` (the block is then incomplete and must be dropped).
 pub fn fill_block<T: Coef>(
-    pool: &ThreadPool,
+    exec: &Exec,
     n: usize,
     p: usize,
     gamma: f64,
     disorder: &Disorder,
     out: &mut [T],
-) {
-    pool.install(|| {
+) -> Result<(), CoreError> {
+    exec.install(|| {
         out.par_chunks_mut(CHUNK)
             .enumerate()
             .for_each(|(i, chunk)| {
-                fill_range(n, p, gamma, disorder, i * CHUNK, chunk);
+                if !exec.stop_requested() {
+                    fill_range(n, p, gamma, disorder, i * CHUNK, chunk);
+                }
             });
     });
+    exec.check()
 }
 
 #[cfg(test)]
@@ -163,11 +168,8 @@ mod tests {
     use super::*;
     use crate::combinatorics::num_multisets;
 
-    fn pool(k: usize) -> ThreadPool {
-        rayon::ThreadPoolBuilder::new()
-            .num_threads(k)
-            .build()
-            .unwrap()
+    fn pool(k: usize) -> Exec {
+        Exec::with_threads(k).unwrap()
     }
 
     #[test]
@@ -220,8 +222,8 @@ mod tests {
         let d = Disorder::new(5);
         let mut one = vec![0f64; len];
         let mut two = vec![0f64; len];
-        fill_block(&pool(1), n, p, 0.5, &d, &mut one);
-        fill_block(&pool(2), n, p, 0.5, &d, &mut two);
+        fill_block(&pool(1), n, p, 0.5, &d, &mut one).unwrap();
+        fill_block(&pool(2), n, p, 0.5, &d, &mut two).unwrap();
         assert_eq!(one, two);
         let mut g = vec![0f64; len];
         gaussians(5, p, 0, &mut g);

@@ -5,10 +5,9 @@
 //! lexicographic order: C(n+p-1, p) numbers instead of the n^p of a dense tensor.
 //! Coefficients are stored as f64 or f32 ([`Coef`]); kernels always accumulate in f64.
 
-use rayon::ThreadPool;
-
 use crate::combinatorics::{num_multisets, MAX_DEGREE};
 use crate::error::{try_zeroed, CoreError};
+use crate::exec::Exec;
 use crate::sampling::{fill_block, Disorder};
 
 /// A storage type for coefficients. Arithmetic is always done in f64.
@@ -113,7 +112,7 @@ impl<T: Coef> Packed<T> {
     /// Samples every block from its counter-based Gaussian stream (see [`crate::sampling`]).
     /// `terms` are (p, gamma_p) pairs.
     pub fn sample(
-        pool: &ThreadPool,
+        exec: &Exec,
         n: usize,
         terms: &[(usize, f64)],
         disorder: &Disorder,
@@ -130,7 +129,7 @@ impl<T: Coef> Packed<T> {
         let mut blocks = Vec::with_capacity(terms.len());
         for (&(p, gamma), &len) in terms.iter().zip(&lens) {
             let mut coeffs = try_zeroed::<T>(len)?;
-            fill_block(pool, n, p, gamma, disorder, &mut coeffs);
+            fill_block(exec, n, p, gamma, disorder, &mut coeffs)?;
             blocks.push(Block {
                 degree: p,
                 gamma: Some(gamma),
@@ -210,11 +209,16 @@ impl<T: Coef> Packed<T> {
 mod tests {
     use super::*;
 
-    fn pool() -> ThreadPool {
-        rayon::ThreadPoolBuilder::new()
-            .num_threads(2)
-            .build()
-            .unwrap()
+    fn pool() -> Exec {
+        Exec::with_threads(2).unwrap()
+    }
+
+    #[test]
+    fn a_stopped_sampling_is_an_error_not_a_partial_instance() {
+        let exec = pool();
+        exec.request_stop();
+        let out = Packed::<f64>::sample(&exec, 300, &[(3, 1.0)], &Disorder::new(1));
+        assert!(matches!(out, Err(CoreError::Interrupted)));
     }
 
     #[test]

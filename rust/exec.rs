@@ -1,0 +1,157 @@
+//! Where one kernel call runs: a thread pool plus that call's stop request.
+//!
+//! Every kernel takes an [`Exec`]. The pool fixes the threads; the stop flag lets the caller
+//! end a long call early. Kernels poll the flag between work chunks (a chunk is at most
+//! [`crate::partition::CHUNK`] coefficients, a few milliseconds of work), skip the chunks that
+//! remain once it is set, and return [`CoreError::Interrupted`] instead of a partial result.
+//! The flag is per call, so stopping one call never disturbs another running at the same time.
+//!
+//! [`Exec::run_watched`] runs a call on the pool while the calling thread wakes up at a fixed
+//! interval to ask a `watch` closure whether to stop (the binding layer checks for Ctrl-C
+//! there), so a 10-second pass answers an interrupt within about one interval plus one chunk.
+
+use std::sync::atomic::{AtomicBool, Ordering};
+use std::sync::mpsc::{sync_channel, RecvTimeoutError};
+use std::sync::Arc;
+use std::time::Duration;
+
+use rayon::{ThreadPool, ThreadPoolBuilder};
+
+use crate::error::CoreError;
+
+/// A thread pool and one call's stop flag (cheap to clone; clones share both).
+#[derive(Clone)]
+pub struct Exec {
+    pool: Arc<ThreadPool>,
+    stop: Arc<AtomicBool>,
+}
+
+impl Exec {
+    /// Runs on `pool`, with a fresh stop flag.
+    pub fn new(pool: Arc<ThreadPool>) -> Self {
+        Exec {
+            pool,
+            stop: Arc::new(AtomicBool::new(false)),
+        }
+    }
+
+    /// A private pool of `k` threads (tests and embedding code).
+    pub fn with_threads(k: usize) -> Result<Self, CoreError> {
+        if k == 0 {
+            return Err(CoreError::InvalidThreads {
+                detail: "thread count must be >= 1, got 0".into(),
+            });
+        }
+        ThreadPoolBuilder::new()
+            .num_threads(k)
+            .build()
+            .map(|p| Exec::new(Arc::new(p)))
+            .map_err(|e| CoreError::InvalidThreads {
+                detail: e.to_string(),
+            })
+    }
+
+    /// Threads of the pool.
+    pub fn num_threads(&self) -> usize {
+        self.pool.current_num_threads()
+    }
+
+    /// Runs `f` inside the pool (directly when already on one of its threads).
+    pub fn install<R: Send>(&self, f: impl FnOnce() -> R + Send) -> R {
+        self.pool.install(f)
+    }
+
+    /// Asks the running call to stop at its next chunk boundary.
+    pub fn request_stop(&self) {
+        self.stop.store(true, Ordering::Relaxed);
+    }
+
+    /// Whether a stop was requested.
+    #[inline]
+    pub fn stop_requested(&self) -> bool {
+        self.stop.load(Ordering::Relaxed)
+    }
+
+    /// `Err(Interrupted)` once a stop was requested.
+    pub fn check(&self) -> Result<(), CoreError> {
+        if self.stop_requested() {
+            Err(CoreError::Interrupted)
+        } else {
+            Ok(())
+        }
+    }
+
+    /// Runs `work` on the pool; meanwhile the calling thread calls `watch` every `every` and
+    /// requests a stop the first time it answers true. Returns what `work` returned (which,
+    /// after a stop, is the kernel's `Err(Interrupted)`). A panic in `work` propagates.
+    pub fn run_watched<T: Send>(
+        &self,
+        every: Duration,
+        work: impl FnOnce(&Exec) -> T + Send,
+        mut watch: impl FnMut() -> bool,
+    ) -> T {
+        let (tx, rx) = sync_channel(1);
+        let out = self.pool.in_place_scope(|scope| {
+            scope.spawn(move |_| {
+                let _ = tx.send(work(self));
+            });
+            let mut asked = false;
+            loop {
+                match rx.recv_timeout(every) {
+                    Ok(v) => return Some(v),
+                    Err(RecvTimeoutError::Timeout) => {
+                        if !asked && watch() {
+                            asked = true;
+                            self.request_stop();
+                        }
+                    }
+                    // `work` panicked before sending; the scope re-raises that panic.
+                    Err(RecvTimeoutError::Disconnected) => return None,
+                }
+            }
+        });
+        out.expect("the scope re-raises a panic of the work before this point")
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use std::time::Instant;
+
+    #[test]
+    fn watched_call_returns_its_value() {
+        let ex = Exec::with_threads(2).unwrap();
+        let v = ex.run_watched(Duration::from_millis(5), |_| 41 + 1, || false);
+        assert_eq!(v, 42);
+        assert!(!ex.stop_requested());
+    }
+
+    #[test]
+    fn watch_stops_a_long_call() {
+        let ex = Exec::with_threads(1).unwrap();
+        let start = Instant::now();
+        let out = ex.run_watched(
+            Duration::from_millis(10),
+            |e| {
+                // a call that polls its flag every millisecond and would take 10 s otherwise
+                for _ in 0..10_000 {
+                    e.check()?;
+                    std::thread::sleep(Duration::from_millis(1));
+                }
+                Ok(())
+            },
+            || start.elapsed() > Duration::from_millis(50),
+        );
+        assert_eq!(out, Err(CoreError::Interrupted));
+        assert!(start.elapsed() < Duration::from_secs(2));
+    }
+
+    #[test]
+    fn zero_threads_is_refused() {
+        assert!(matches!(
+            Exec::with_threads(0),
+            Err(CoreError::InvalidThreads { .. })
+        ));
+    }
+}

@@ -1,0 +1,129 @@
+"""Ctrl-C during a long kernel call: KeyboardInterrupt within a second, instance still usable.
+
+Each case runs in a child process that sends itself SIGINT while a call is running, so a
+hang or an abort of the child is a test failure rather than a dead test session.
+"""
+
+from __future__ import annotations
+
+import json
+import os
+import signal
+import subprocess
+import sys
+import textwrap
+
+import pytest
+
+pytestmark = pytest.mark.skipif(
+    not hasattr(signal, "SIGINT") or os.name != "posix", reason="needs POSIX signals"
+)
+
+# The child measures how long a short version of the call takes, scales it to the full
+# call (kernel cost is linear in the number of directions / points), interrupts the full
+# call one second in, and reports the delay from the signal to the KeyboardInterrupt.
+CHILD = textwrap.dedent(
+    """
+    import json, os, signal, threading, time
+    import numpy as np
+    import orthoclimb as oc
+
+    CASE = {case!r}
+    ham = oc.Hamiltonian.sample(oc.Mixture({{3: 1.0}}), 300, seed=5)
+    rng = np.random.default_rng(0)
+    x = rng.standard_normal(300)
+    x /= np.linalg.norm(x)
+    before = ham.energy(x)
+
+    if CASE == "hvp":
+        small, full = 20, 4000
+        args = lambda k: (x, rng.standard_normal((300, k)))
+        call = ham.hvp
+    else:
+        small, full = 8, 6000
+        args = lambda k: (rng.standard_normal((k, 300)),)
+        call = ham.energy_and_gradient
+
+    a = args(small)
+    t = time.perf_counter(); call(*a); short = time.perf_counter() - t
+    estimate = short * full / small
+
+    sent = {{}}
+    def interrupt():
+        sent["t"] = time.perf_counter()
+        os.kill(os.getpid(), signal.SIGINT)
+    a = args(full)
+    threading.Timer(1.0, interrupt).start()
+    start = time.perf_counter()
+    outcome = "finished"
+    try:
+        call(*a)
+    except KeyboardInterrupt:
+        outcome = "KeyboardInterrupt"
+    done = time.perf_counter()
+    after = ham.energy(x)
+    print(json.dumps({{
+        "outcome": outcome,
+        "estimate": estimate,
+        "delay": done - sent.get("t", done),
+        "elapsed": done - start,
+        "same_energy": after == before,
+        "usable": bool(np.isfinite(ham.gradient(x)).all()),
+    }}))
+    """
+)
+
+
+@pytest.mark.parametrize("case", ["hvp", "batch"])
+def test_ctrl_c_stops_a_long_kernel_call_within_a_second(case):
+    proc = subprocess.run(
+        [sys.executable, "-c", CHILD.format(case=case)],
+        capture_output=True,
+        text=True,
+        timeout=120,
+    )
+    assert proc.returncode == 0, proc.stderr[-2000:]
+    report = json.loads(proc.stdout.strip().splitlines()[-1])
+    # the call must really be a long one, or the check below proves nothing
+    assert report["estimate"] > 5.0, report
+    assert report["outcome"] == "KeyboardInterrupt", report
+    assert report["delay"] < 1.0, report
+    assert report["same_energy"] and report["usable"], report
+
+
+SAMPLING_CHILD = textwrap.dedent(
+    """
+    import json, os, signal, threading, time
+    import orthoclimb as oc
+
+    mix = oc.Mixture({3: 1.0})
+    t = time.perf_counter(); oc.Hamiltonian.sample(mix, 250, seed=1, dtype="float32")
+    estimate = (time.perf_counter() - t) * (800 / 250) ** 3   # sampling cost ~ n^3 for p = 3
+    sent = {}
+    def interrupt():
+        sent["t"] = time.perf_counter()
+        os.kill(os.getpid(), signal.SIGINT)
+    threading.Timer(0.5, interrupt).start()
+    outcome = "finished"
+    try:
+        oc.Hamiltonian.sample(mix, 800, seed=1, dtype="float32")
+    except KeyboardInterrupt:
+        outcome = "KeyboardInterrupt"
+    done = time.perf_counter()
+    small = oc.Hamiltonian.sample(mix, 20, seed=1)     # the core still works afterwards
+    print(json.dumps({"outcome": outcome, "estimate": estimate,
+                      "delay": done - sent.get("t", done), "n": small.n}))
+    """
+)
+
+
+def test_ctrl_c_stops_sampling():
+    proc = subprocess.run(
+        [sys.executable, "-c", SAMPLING_CHILD], capture_output=True, text=True, timeout=120
+    )
+    assert proc.returncode == 0, proc.stderr[-2000:]
+    report = json.loads(proc.stdout.strip().splitlines()[-1])
+    assert report["estimate"] > 1.5, report
+    assert report["outcome"] == "KeyboardInterrupt", report
+    assert report["delay"] < 1.0, report
+    assert report["n"] == 20
