@@ -9,6 +9,7 @@ from __future__ import annotations
 import math
 
 import numpy as np
+import pytest
 
 import orthoclimb as oc
 from conftest import unit
@@ -86,3 +87,18 @@ def test_nbytes_and_estimate_memory():
         assert ham.num_coefficients == count
         assert ham.nbytes == size * count == oc.estimate_memory(mix, n, dtype)
         assert ham.dtype == dtype
+
+
+def test_coefficient_ranges_are_slices_of_the_block():
+    ham = oc.Hamiltonian.sample(oc.Mixture({1: 0.5, 3: 1.0}), 9, seed=4, dtype="float32")
+    full = ham.coefficients(3)
+    for start, stop in [(0, 5), (7, 7), (100, len(full)), (0, None), (len(full), None)]:
+        np.testing.assert_array_equal(ham.coefficients(3, start, stop), full[start:stop])
+    with pytest.raises(ValueError, match=r"165\.\.166 is outside 0\.\.165"):
+        ham.coefficients(3, 165, 166)
+    with pytest.raises(ValueError, match=r"5\.\.2"):
+        ham.coefficients(3, 5, 2)
+    with pytest.raises(ValueError, match="start must be >= 0, got -1"):
+        ham.coefficients(3, -1)
+    with pytest.raises(TypeError, match="stop must be an integer, got 2.5"):
+        ham.coefficients(3, 0, 2.5)

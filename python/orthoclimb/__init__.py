@@ -15,7 +15,14 @@ from .algorithms import (
     polish,
     stability,
 )
-from .model import MAX_DEGREE, Hamiltonian, Mixture, available_memory, estimate_memory
+from .model import (
+    MAX_DEGREE,
+    Hamiltonian,
+    Mixture,
+    available_memory,
+    estimate_memory,
+    load_instance,
+)
 from .runtime import get_num_threads, kernel_path, set_num_threads
 from .theory import algorithmic_energy, full_rsb, ground_state, hessian_edge, path_energy
 
@@ -40,6 +47,7 @@ __all__ = [
     "hessian_edge",
     "kernel_path",
     "langevin_anneal",
+    "load_instance",
     "load_result",
     "path_energy",
     "polish",

@@ -28,5 +28,11 @@ class InsufficientMemoryError(MemoryError, ValueError):
     """
 
 
+class InstanceFileError(ValueError):
+    """An instance file cannot be loaded: missing, unreadable, truncated, corrupted, of another
+    format or a newer format version, or it no longer regenerates the saved instance. The
+    message names the file and the problem."""
+
+
 class CoreError(RuntimeError):
     """An internal invariant of the Rust core failed. This is a bug: please report it."""

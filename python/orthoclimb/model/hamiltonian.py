@@ -11,7 +11,9 @@ once per call (a batch of points is one pass, too).
 
 from __future__ import annotations
 
+import os
 from collections.abc import Mapping
+from pathlib import Path
 from typing import Any
 
 import numpy as np
@@ -255,14 +257,34 @@ class Hamiltonian:
             (n, n), matvec=matvec, rmatvec=matvec, matmat=matmat, dtype=np.float64
         )
 
+    # -- files -------------------------------------------------------------------------
+
+    def save(self, path: str | os.PathLike, check_memory: bool = True) -> tuple[Path, ...]:
+        """Write this instance to ``<stem>.json`` (a sampled instance: its recipe and a
+        fingerprint, about a kilobyte) or ``<stem>.npz`` + ``<stem>.json`` (given coefficients,
+        with their SHA-256), atomically; returns the paths written, JSON first. Saving given
+        coefficients copies one degree at a time as float64, checked against the available
+        memory unless ``check_memory=False``. Read it back with :func:`orthoclimb.load_instance`. Format:
+        see :mod:`orthoclimb.model.instance_file`."""
+        from .instance_file import save_instance
+
+        return save_instance(self, path, check_memory=check_memory)
+
     # -- coefficients ------------------------------------------------------------------
 
-    def coefficients(self, p: int) -> np.ndarray:
-        """The degree-p coefficients a_m as a new float64 array in SPEC order."""
+    def coefficients(self, p: int, start: int = 0, stop: int | None = None) -> np.ndarray:
+        """The degree-p coefficients a_m of ranks ``start <= r < stop`` (default: all
+        C(n+p-1, p) of them) as a new float64 array in SPEC order. A range reads a slice of a
+        large instance without copying the whole block."""
         p = _check_degree(p)
         if p not in self.degrees:
             raise ValueError(f"this instance has no degree-{p} term (degrees {self.degrees})")
-        return self._core.coefficients(p)
+        for name, value in (("start", start), ("stop", stop)):
+            if value is not None and (isinstance(value, bool) or not isinstance(value, int)):
+                raise TypeError(f"{name} must be an integer, got {value!r}")
+            if value is not None and value < 0:
+                raise ValueError(f"{name} must be >= 0, got {value}")
+        return self._core.coefficients(p, start, stop)
 
     def to_dense(self, p: int, max_bytes: int = _dense.DEFAULT_DENSE_LIMIT) -> np.ndarray:
         """The symmetric dense tensor T of degree p with H_p(x) = T(x, ..., x); refuses when
