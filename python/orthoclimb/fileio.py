@@ -2,7 +2,9 @@
 
 Each writer creates a temporary file in the destination folder, writes and flushes it, then
 renames it over the destination (os.replace, atomic on POSIX and Windows). A crash at any
-moment leaves either the old file or the new one.
+moment leaves either the old file or the new one. The new file gets the permissions an
+ordinary ``open(path, "w")`` would give it (0666 less the process umask), not the private
+0600 of a temporary file.
 """
 
 from __future__ import annotations
@@ -15,6 +17,19 @@ from pathlib import Path
 from typing import IO, Any
 
 
+def _umask() -> int:
+    """The process umask, read without changing it (Linux reports it in /proc; elsewhere the
+    usual 022 is assumed, common practice)."""
+    try:
+        with open("/proc/self/status", encoding="ascii") as fh:
+            for line in fh:
+                if line.startswith("Umask:"):
+                    return int(line.split()[1], 8)
+    except (OSError, ValueError, IndexError):
+        pass
+    return 0o022
+
+
 def write_atomic(path: str | os.PathLike, write: Callable[[IO[bytes]], None]) -> Path:
     """Create or replace `path` with what `write(fh)` writes to a binary file handle."""
     dest = Path(path)
@@ -25,6 +40,7 @@ def write_atomic(path: str | os.PathLike, write: Callable[[IO[bytes]], None]) ->
             write(fh)
             fh.flush()
             os.fsync(fh.fileno())
+        os.chmod(tmp, 0o666 & ~_umask())
         os.replace(tmp, dest)
     except BaseException:
         try:
