@@ -37,11 +37,7 @@ impl Exec {
 
     /// A private pool of `k` threads (tests and embedding code).
     pub fn with_threads(k: usize) -> Result<Self, CoreError> {
-        if k == 0 {
-            return Err(CoreError::InvalidThreads {
-                detail: "thread count must be >= 1, got 0".into(),
-            });
-        }
+        crate::threads::check_threads(k)?;
         ThreadPoolBuilder::new()
             .num_threads(k)
             .build()

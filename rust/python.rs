@@ -454,6 +454,7 @@ fn kernel_path() -> &'static str {
 fn _core(m: &Bound<'_, PyModule>) -> PyResult<()> {
     m.add("__version__", env!("CARGO_PKG_VERSION"))?;
     m.add("MAX_DEGREE", crate::combinatorics::MAX_DEGREE)?;
+    m.add("MAX_THREADS", threads::MAX_THREADS)?;
     m.add_class::<PyPacked>()?;
     m.add_function(wrap_pyfunction!(storage_nbytes, m)?)?;
     m.add_function(wrap_pyfunction!(multiset_table, m)?)?;

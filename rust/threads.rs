@@ -15,12 +15,23 @@ static POOL: RwLock<Option<(usize, Arc<ThreadPool>)>> = RwLock::new(None);
 /// Name of the environment variable read for the default thread count.
 pub const ENV_VAR: &str = "ORTHOCLIMB_NUM_THREADS";
 
-fn build(k: usize) -> Result<Arc<ThreadPool>, CoreError> {
-    if k == 0 {
-        return Err(CoreError::InvalidThreads {
-            detail: "thread count must be >= 1, got 0".into(),
-        });
+/// Most threads a pool may have. A larger request is a typo, not a machine: building it
+/// would try to start that many OS threads before failing (seconds to minutes, and memory).
+pub const MAX_THREADS: usize = 1024;
+
+/// `Ok(k)` for 1 <= k <= [`MAX_THREADS`], else the error naming k.
+pub fn check_threads(k: usize) -> Result<usize, CoreError> {
+    if (1..=MAX_THREADS).contains(&k) {
+        Ok(k)
+    } else {
+        Err(CoreError::InvalidThreads {
+            detail: format!("thread count must be in 1..={MAX_THREADS}, got {k}"),
+        })
     }
+}
+
+fn build(k: usize) -> Result<Arc<ThreadPool>, CoreError> {
+    check_threads(k)?;
     ThreadPoolBuilder::new()
         .num_threads(k)
         .thread_name(|i| format!("orthoclimb-{i}"))
@@ -35,9 +46,9 @@ fn build(k: usize) -> Result<Arc<ThreadPool>, CoreError> {
 pub fn default_threads() -> Result<usize, CoreError> {
     match std::env::var(ENV_VAR) {
         Ok(text) => match text.trim().parse::<usize>() {
-            Ok(k) if k >= 1 => Ok(k),
+            Ok(k) if (1..=MAX_THREADS).contains(&k) => Ok(k),
             _ => Err(CoreError::InvalidThreads {
-                detail: format!("{ENV_VAR} must be a positive integer, got {text:?}"),
+                detail: format!("{ENV_VAR} must be an integer in 1..={MAX_THREADS}, got {text:?}"),
             }),
         },
         Err(_) => Ok(std::thread::available_parallelism()
@@ -82,6 +93,8 @@ mod tests {
         set_num_threads(3).unwrap();
         assert_eq!(num_threads().unwrap(), 3);
         assert!(set_num_threads(0).is_err());
+        assert!(set_num_threads(MAX_THREADS + 1).is_err());
+        assert!(set_num_threads(usize::MAX).is_err());
         assert_eq!(
             num_threads().unwrap(),
             3,

@@ -18,9 +18,13 @@ def test_set_and_get_threads():
         assert oc.get_num_threads() == 3
     finally:
         oc.set_num_threads(before)
-    for bad, exc in ((0, ValueError), (-2, ValueError), (1.5, TypeError), (True, TypeError)):
-        with pytest.raises(exc):
+    bad_values = [(0, ValueError), (-2, ValueError), (1.5, TypeError), (True, TypeError)]
+    # an absurd count must be refused at once, not attempted (it would start that many threads)
+    bad_values += [(1025, ValueError), (10**9, ValueError), (2**70, ValueError)]
+    for bad, exc in bad_values:
+        with pytest.raises(exc, match=str(bad) if exc is ValueError else None):
             oc.set_num_threads(bad)
+    assert oc.get_num_threads() == before, "a refused setting keeps the old pool"
     assert oc.kernel_path() in ("avx2+fma", "baseline")
 
 
@@ -42,6 +46,7 @@ def test_bad_environment_variable_is_a_clear_error():
         "import orthoclimb as oc\n"
         "try:\n    oc.get_num_threads()\nexcept ValueError as e:\n    print('ValueError', e)"
     )
-    out = _run(code, "lots")
-    assert out.returncode == 0, out.stderr
-    assert "ValueError" in out.stdout and "'lots'" in out.stdout.replace('"', "'")
+    for value in ("lots", "0", "100000000"):
+        out = _run(code, value)
+        assert out.returncode == 0, out.stderr
+        assert "ValueError" in out.stdout and f"'{value}'" in out.stdout.replace('"', "'")

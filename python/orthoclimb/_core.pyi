@@ -5,6 +5,7 @@ import numpy.typing as npt
 
 __version__: str
 MAX_DEGREE: int
+MAX_THREADS: int
 
 F64 = npt.NDArray[np.float64]
 

@@ -14,11 +14,11 @@ from . import _core
 
 
 def set_num_threads(k: int) -> None:
-    """Use k >= 1 worker threads for all subsequent kernel calls."""
+    """Use k worker threads (1 <= k <= MAX_THREADS = 1024) for all subsequent kernel calls."""
     if isinstance(k, bool) or not isinstance(k, (int, np.integer)):
         raise TypeError(f"thread count must be a positive integer, got {k!r}")
-    if k < 1:
-        raise ValueError(f"thread count must be >= 1, got {k}")
+    if not 1 <= k <= _core.MAX_THREADS:
+        raise ValueError(f"thread count must be in 1..{_core.MAX_THREADS}, got {k}")
     _core.set_num_threads(int(k))
 
 
