@@ -164,3 +164,51 @@ def test_kill_driver_then_resume(tmp_path):
     table = pq.read_table(folder / "results.parquet").to_pylist()
     ids = [r["task_id"] for r in table]
     assert len(ids) == len(set(ids)) == len(spec.tasks())
+
+
+def test_a_killed_worker_loses_only_its_running_task(tmp_path):
+    # Dask's nanny restarts a worker that dies and the scheduler reschedules the tasks it
+    # held (Dask distributed documentation, "worker failure"); the rows written so far stay.
+    psutil = pytest.importorskip("psutil")
+    folder = tmp_path / "s"
+    args = ["--gammas", "3:1", "--n", "40,60", "--seeds", "0-11", "--methods", "hessian"]
+    args += ["--steps", "30", "--workers", "2", "--out", str(folder), "--no-progress"]
+    args += ["--no-report"]
+    proc = subprocess.Popen(
+        [sys.executable, "-m", "orthoclimb", "sweep", *args],
+        stdout=subprocess.DEVNULL,
+        stderr=subprocess.PIPE,
+        start_new_session=True,
+    )
+    rows = folder / "rows"
+    killed, before = [], {}
+    try:
+        deadline = time.time() + 120
+        while time.time() < deadline and not killed:
+            assert proc.poll() is None, "sweep ended before a worker could be killed"
+            if rows.is_dir() and len(list(rows.glob("*.json"))) >= 2:
+                # the workers are the driver's children started by multiprocessing's spawn
+                # (the resource tracker is another child, left alone)
+                before = {p.name: p.read_bytes() for p in rows.glob("*.json")}
+                for child in psutil.Process(proc.pid).children():
+                    try:
+                        if "spawn_main" in " ".join(child.cmdline()):
+                            child.kill()
+                            killed.append(child.pid)
+                            break
+                    except psutil.Error:
+                        continue  # exited meanwhile
+            time.sleep(0.05)
+        assert killed, "found no worker process to kill"
+        _, err = proc.communicate(timeout=300)
+    finally:
+        if proc.poll() is None:
+            os.killpg(proc.pid, signal.SIGKILL)
+    assert proc.returncode == 0, err.decode()[-2000:]
+    spec = spec_from_flags(["3:1"], None, "40,60", "0-11", "hessian", {"hessian": {"steps": 30}})
+    table = pq.read_table(folder / "results.parquet").to_pylist()
+    ids = [r["task_id"] for r in table]
+    assert sorted(ids) == sorted(t.task_id for t in spec.tasks())
+    assert len(ids) == len(set(ids))
+    for name, data in before.items():
+        assert (rows / name).read_bytes() == data, f"row {name} rewritten after the kill"
