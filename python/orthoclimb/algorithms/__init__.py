@@ -12,7 +12,7 @@ Units and sign: energy per spin e(x) = H(x)/n at unit vectors x; we maximize.
 """
 
 from .baselines import geometric_schedule, gradient_ascent, langevin_anneal
-from .hessian_ascent import hessian_ascent
+from .hessian_ascent import auto_steps, hessian_ascent
 from .polish import polish, tangent_spectrum
 from .result import FORMAT_VERSION, Result, load_result
 from .stability import StabilityResult, stability
@@ -21,6 +21,7 @@ __all__ = [
     "FORMAT_VERSION",
     "Result",
     "StabilityResult",
+    "auto_steps",
     "geometric_schedule",
     "gradient_ascent",
     "hessian_ascent",

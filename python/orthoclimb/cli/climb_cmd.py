@@ -44,7 +44,8 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
         "--steps",
         type=int,
         default=None,
-        help="hessian: K (default 200); gradient: max iterations (default 2000); "
+        help="hessian: K (default n/8 clamped to [25, 200]); gradient: max iterations "
+        "(default 2000); "
         "anneal: Langevin steps (default 400)",
     )
     parser.add_argument(
@@ -125,7 +126,7 @@ def _table(s: dict[str, Any]) -> str:
 
 
 def run(args: argparse.Namespace) -> int:
-    from ..algorithms import gradient_ascent, hessian_ascent, langevin_anneal
+    from ..algorithms import auto_steps, gradient_ascent, hessian_ascent, langevin_anneal
     from ..algorithms.baselines import geometric_schedule
     from ..algorithms.plotting import plot_result
 
@@ -135,7 +136,7 @@ def run(args: argparse.Namespace) -> int:
         set_num_threads(args.threads)
     if args.n < 1:
         raise ValueError(f"--n must be >= 1, got {args.n}")
-    default_steps = {"hessian": 200, "gradient": 2000, "anneal": 400}[args.method]
+    default_steps = {"hessian": auto_steps(args.n), "gradient": 2000, "anneal": 400}[args.method]
     steps = default_steps if args.steps is None else args.steps
     if steps < 1:
         raise ValueError(f"--steps must be >= 1, got {steps}")
