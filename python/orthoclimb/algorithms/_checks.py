@@ -7,7 +7,8 @@ from typing import Any
 
 import numpy as np
 
-from ..errors import NonFiniteError, ShapeError
+from ..errors import ShapeError
+from ..model.arrays import as_float_array
 from ..model.hamiltonian import Hamiltonian
 
 __all__ = [
@@ -52,14 +53,9 @@ def check_seed(seed: Any, name: str = "seed") -> int:
 
 def check_unit_start(x: Any, n: int, name: str = "x") -> np.ndarray:
     """A float64 copy of a nonzero finite vector of length n, normalized to |x| = 1."""
-    try:
-        arr = np.array(x, dtype=np.float64)
-    except (TypeError, ValueError):
-        raise TypeError(f"{name} must be a real vector of length {n}, got {x!r}") from None
+    arr = as_float_array(x, name)  # refuses booleans and complex numbers; converts integers
     if arr.shape != (n,):
         raise ShapeError(f"{name} must have shape ({n},), got {arr.shape}")
-    if not np.all(np.isfinite(arr)):
-        raise NonFiniteError(f"{name} holds NaN or infinity")
     norm = float(np.linalg.norm(arr))
     if norm == 0.0:
         raise ValueError(f"{name} is the zero vector; it has no direction on the sphere")

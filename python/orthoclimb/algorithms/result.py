@@ -138,6 +138,34 @@ def _fail(path: Path, why: str) -> ValueError:
     return ValueError(f"cannot load the result {str(path)!r}: {why}")
 
 
+_PAYLOAD_TYPES: dict[str, tuple[type, ...]] = {
+    "energy": (int, float, type(None)),
+    "seconds": (int, float),
+    "config": (dict,),
+    "info": (dict,),
+    "path": (dict,),
+    "x_sha256": (str,),
+    "x_shape": (list,),
+}
+
+
+def _check_payload(path: Path, payload: dict[str, Any]) -> None:
+    """Each field load_result reads is present with the right type (a file whose checksum was
+    recomputed after an edit would otherwise fail later with a bare KeyError)."""
+    for key, types in _PAYLOAD_TYPES.items():
+        if key not in payload:
+            if key == "info":  # optional
+                continue
+            raise _fail(path, f"the payload lacks the field {key!r}")
+        value = payload[key]
+        if isinstance(value, bool) or not isinstance(value, types):
+            names = " or ".join(t.__name__ for t in types)
+            raise _fail(path, f"field {key!r} must be {names}, got {value!r}")
+    for column, values in payload["path"].items():
+        if not isinstance(values, list):
+            raise _fail(path, f"path column {column!r} must be a list, got {values!r}")
+
+
 def load_result(path: str | os.PathLike) -> Result:
     """Read a result written by :meth:`Result.save` (give the stem or either file name)."""
     stem = _stem(path)
@@ -149,6 +177,8 @@ def load_result(path: str | os.PathLike) -> Result:
         raise _fail(json_path, "file not found") from None
     except UnicodeDecodeError:
         raise _fail(json_path, "not UTF-8 text (corrupted?)") from None
+    except OSError as exc:  # a folder in its place, no permission, I/O error
+        raise _fail(json_path, f"unreadable: {exc}") from None
     try:
         doc = json.loads(text)
     except json.JSONDecodeError as exc:
@@ -163,6 +193,7 @@ def load_result(path: str | os.PathLike) -> Result:
     payload = doc.get("payload")
     if not isinstance(payload, dict) or _digest(payload) != doc.get("sha256"):
         raise _fail(json_path, "checksum mismatch: the file was modified or corrupted")
+    _check_payload(json_path, payload)
     try:
         with np.load(npz_path, allow_pickle=False) as data:
             x = np.array(data["x"], dtype=np.float64)

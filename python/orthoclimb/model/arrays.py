@@ -2,6 +2,8 @@
 
 from __future__ import annotations
 
+import reprlib
+
 import numpy as np
 
 from ..errors import NonFiniteError, ShapeError
@@ -10,7 +12,12 @@ from ..errors import NonFiniteError, ShapeError
 def as_float_array(a: object, name: str) -> np.ndarray:
     """A C-contiguous float64 copy or view of `a`. Integers are converted; booleans, complex
     numbers and non-numeric data are refused with TypeError."""
-    arr = np.asarray(a)
+    try:
+        arr = np.asarray(a)
+    except (ValueError, TypeError) as exc:  # ragged nested lists and the like
+        raise ShapeError(
+            f"{name} is not a rectangular numeric array: {reprlib.repr(a)} ({exc})"
+        ) from None
     kind = arr.dtype.kind
     if kind == "b":
         raise TypeError(f"{name} must be a real array, got a boolean array")
@@ -22,7 +29,10 @@ def as_float_array(a: object, name: str) -> np.ndarray:
     if not np.isfinite(arr).all():
         bad = np.argwhere(~np.isfinite(arr))[0]
         where = tuple(int(i) for i in bad)
-        raise NonFiniteError(f"{name} holds a non-finite value {arr[where]} at index {where}")
+        raise NonFiniteError(
+            f"{name} holds a non-finite value {arr[where]} at index {where}"
+            " (NaN and infinity are not allowed)"
+        )
     return arr
 
 

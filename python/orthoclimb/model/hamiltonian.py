@@ -11,6 +11,7 @@ once per call (a batch of points is one pass, too).
 
 from __future__ import annotations
 
+import math
 import os
 from collections.abc import Mapping
 from pathlib import Path
@@ -45,6 +46,8 @@ def _check_correlation(spec: Any) -> tuple[int, float] | None:
     except (TypeError, ValueError):
         raise TypeError(f"correlated_with must be a pair (seed0, rho), got {spec!r}") from None
     seed0 = _check_seed(seed0, "seed0 in correlated_with")
+    if isinstance(rho, bool) or not isinstance(rho, (int, float, np.integer, np.floating)):
+        raise TypeError(f"correlation rho must be a real number in [-1, 1], got {rho!r}")
     rho = float(rho)
     if not -1.0 <= rho <= 1.0:  # also refuses NaN
         raise ValueError(f"correlation rho must be in [-1, 1], got {rho}")
@@ -126,6 +129,12 @@ class Hamiltonian:
             a = as_float_array(arr, f"coefficients[{p}]")
             if a.ndim != 1:
                 raise ShapeError(f"coefficients[{p}] must be 1-D, got shape {a.shape}")
+            expected = math.comb(n + p - 1, p)
+            if a.shape[0] != expected:
+                raise ShapeError(
+                    f"coefficients[{p}] for n = {n} must hold C(n+p-1, p) = C({n + p - 1}, {p})"
+                    f" values: expected length {expected}, got {a.shape[0]}"
+                )
             degrees.append(p)
             arrays.append(a)
         core = _core.PackedPolynomial.from_coefficients(n, degrees, arrays, dtype)
@@ -264,8 +273,8 @@ class Hamiltonian:
         fingerprint, about a kilobyte) or ``<stem>.npz`` + ``<stem>.json`` (given coefficients,
         with their SHA-256), atomically; returns the paths written, JSON first. Saving given
         coefficients copies one degree at a time as float64, checked against the available
-        memory unless ``check_memory=False``. Read it back with :func:`orthoclimb.load_instance`. Format:
-        see :mod:`orthoclimb.model.instance_file`."""
+        memory unless ``check_memory=False``. Read it back with
+        :func:`orthoclimb.load_instance`; format: see :mod:`orthoclimb.model.instance_file`."""
         from .instance_file import save_instance
 
         return save_instance(self, path, check_memory=check_memory)

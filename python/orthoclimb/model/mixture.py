@@ -129,6 +129,11 @@ class Mixture:
                     f"weight {g_text.strip()!r} in mixture text {text!r} is not a number"
                 ) from None
             p = _check_degree(p)
+            if not math.isfinite(g):  # '1e400' overflows to inf: name the text as written
+                raise MixtureError(
+                    f"weight {g_text.strip()!r} for p = {p} in mixture text {text!r} is not a"
+                    " finite number"
+                )
             if p in pairs:
                 raise MixtureError(f"degree p = {p} is given twice in mixture text {text!r}")
             pairs[p] = g

@@ -93,6 +93,49 @@ class SweepOutcome:
     address: str | None
 
 
+def check_scheduler_address(scheduler: Any) -> tuple[str, str, int | None]:
+    """(scheme, host, port) of a Dask address like tcp://HOST:PORT; port is None for schemes
+    other than tcp. A ValueError names a malformed address."""
+    if not isinstance(scheduler, str) or "://" not in scheduler:
+        raise ValueError(f"--scheduler must be an address like tcp://HOST:PORT, got {scheduler!r}")
+    scheme, _, rest = scheduler.partition("://")
+    if scheme != "tcp":
+        return scheme, rest, None
+    from distributed.comm import parse_host_port
+
+    try:
+        host, port = parse_host_port(rest)
+    except ValueError as exc:
+        raise ValueError(
+            f"--scheduler must be an address like tcp://HOST:PORT, got {scheduler!r} ({exc})"
+        ) from None
+    if not host or not 0 < int(port) < 65536:
+        raise ValueError(
+            f"--scheduler must be an address like tcp://HOST:PORT with a host and a port in "
+            f"1..65535, got {scheduler!r}"
+        )
+    return scheme, host, int(port)
+
+
+def _probe(scheduler: str, timeout: float) -> None:
+    """Fail at once when nothing listens at a tcp:// scheduler address (a refused connection
+    is final; Dask's own client would keep retrying until ``timeout``)."""
+    import socket
+
+    _, host, port = check_scheduler_address(scheduler)
+    if port is None:
+        return
+    try:
+        with socket.create_connection((host, port), timeout=timeout):
+            pass
+    except OSError as exc:
+        reason = "timed out" if isinstance(exc, TimeoutError) else (exc.strerror or str(exc))
+        raise ValueError(
+            f"cannot reach the Dask scheduler at {scheduler} ({reason}); check the address, "
+            "or omit --scheduler to use an embedded local cluster"
+        ) from None
+
+
 def _connect(scheduler: str | None, plan: WorkerPlan, timeout: float):
     """A (client, cluster) pair; cluster is None for an external scheduler."""
     from distributed import Client, LocalCluster
@@ -108,8 +151,7 @@ def _connect(scheduler: str | None, plan: WorkerPlan, timeout: float):
             silence_logs=40,
         )
         return Client(cluster, timeout=timeout), cluster
-    if not isinstance(scheduler, str) or "://" not in scheduler:
-        raise ValueError(f"--scheduler must be an address like tcp://HOST:PORT, got {scheduler!r}")
+    _probe(scheduler, timeout)  # also checks the address
     try:
         client = Client(scheduler, timeout=timeout)
     except (OSError, TimeoutError) as exc:
@@ -151,6 +193,8 @@ def run_study(
         raise ValueError(f"--timeout must be a positive number of seconds, got {timeout!r}")
     if threads is not None and (isinstance(threads, bool) or threads < 1):
         raise ValueError(f"--threads must be a positive integer, got {threads!r}")
+    if scheduler is not None:
+        check_scheduler_address(scheduler)  # before the study folder is created
     store = Store.open(folder, spec)
     tasks = spec.tasks()
     pending = store.pending(tasks)

@@ -53,8 +53,53 @@ def read_config(folder: str | os.PathLike) -> StudySpec:
     try:
         data = json.loads(path.read_text(encoding="utf-8"))
         return StudySpec.from_dict(data["config"])
-    except (json.JSONDecodeError, KeyError, TypeError) as exc:
+    except (OSError, ValueError, KeyError, TypeError, AttributeError) as exc:
+        # ValueError covers malformed JSON, non-UTF-8 bytes and invalid configuration values
         raise ValueError(f"cannot read {str(path)!r}: {exc}") from None
+
+
+_ROW_FIELDS: dict[str, tuple[type, ...]] = {
+    "task_id": (str,),
+    "mixture": (str,),
+    "method": (str,),
+    "n": (int,),
+    "seed": (int,),
+    "energy": (int, float),
+}
+
+
+def _read_json(path: Path, what: str) -> Any:
+    """The JSON content of ``path``; a ValueError naming the file when it is unreadable."""
+    try:
+        return json.loads(path.read_text(encoding="utf-8"))
+    except (OSError, ValueError) as exc:  # ValueError: bad JSON or bytes that are not UTF-8
+        raise ValueError(
+            f"cannot read the {what} {str(path)!r} (truncated or corrupted?): {exc}; delete it "
+            "and rerun the sweep to redo that task"
+        ) from None
+
+
+def _read_row(path: Path) -> dict[str, Any]:
+    """A row file, checked to be an object with the fields the report reads."""
+    row = _read_json(path, "row file")
+    if not isinstance(row, dict):
+        raise ValueError(
+            f"the row file {str(path)!r} holds {type(row).__name__} {row!r}, not a JSON object;"
+            " delete it and rerun the sweep to redo that task"
+        )
+    for key, types in _ROW_FIELDS.items():
+        value = row.get(key)
+        if isinstance(value, bool) or not isinstance(value, types):
+            raise ValueError(
+                f"the row file {str(path)!r} has {key} = {value!r}, expected "
+                f"{' or '.join(t.__name__ for t in types)}; delete it and rerun the sweep to "
+                "redo that task"
+            )
+    if row["task_id"] != path.stem:
+        raise ValueError(
+            f"the row file {str(path)!r} holds task {row['task_id']!r}, not {path.stem!r}"
+        )
+    return row
 
 
 class Store:
@@ -79,7 +124,9 @@ class Store:
         if meta.exists():
             try:
                 old = json.loads(meta.read_text(encoding="utf-8"))["config"]
-            except (json.JSONDecodeError, KeyError, TypeError):
+                if not isinstance(old, dict):
+                    raise TypeError(f"config is {type(old).__name__}")
+            except (OSError, ValueError, KeyError, TypeError):
                 raise StudyMismatchError(
                     f"{str(meta)!r} is not a readable study configuration; use another --out folder"
                 ) from None
@@ -153,7 +200,7 @@ class Store:
         out = []
         for p in sorted(self.failed_dir.glob("*.json")):
             if not p.name.startswith("."):
-                out.append(json.loads(p.read_text(encoding="utf-8")))
+                out.append(_read_json(p, "failure record"))
         return out
 
     def rows(self) -> list[dict[str, Any]]:
@@ -162,7 +209,7 @@ class Store:
         for task in self.spec.tasks():
             path = self.row_path(task.task_id)
             if path.exists():
-                out.append(json.loads(path.read_text(encoding="utf-8")))
+                out.append(_read_row(path))
         return out
 
     # -- table ---------------------------------------------------------------------------
