@@ -58,6 +58,8 @@ def test_sweep_on_two_worker_local_cluster(tmp_path):
     assert sorted(r["task_id"] for r in table) == sorted(t.task_id for t in spec.tasks())
     assert len({r["worker"] for r in table}) >= 1
     assert all(r["threads"] == out.plan.rayon_threads for r in table)
+    assert all(r["steps"] == 10 for r in table if r["method"] == "hessian")
+    assert all(r["steps"] >= 1 for r in table if r["method"] == "gradient")
     # rerun: everything skipped, nothing rewritten
     again = run_study(spec, tmp_path / "s", workers=2, progress=False)
     assert again.skipped == 16 and again.done == 0

@@ -5,7 +5,13 @@ from __future__ import annotations
 import pytest
 
 from orthoclimb.cli import main
-from orthoclimb.studies.grid import parse_seeds, parse_sizes, spec_from_flags, spec_from_toml
+from orthoclimb.studies.grid import (
+    MethodSpec,
+    parse_seeds,
+    parse_sizes,
+    spec_from_flags,
+    spec_from_toml,
+)
 
 
 def test_parse_seeds_ranges_and_lists():
@@ -100,3 +106,13 @@ def test_cli_bad_seeds_exit_2(tmp_path, capsys):
     assert code == 2
     assert "reversed" in capsys.readouterr().err
     assert not (tmp_path / "o").exists()  # refused before anything is written
+
+
+def test_hessian_steps_default_to_auto_per_size():
+    # the study default follows orthoclimb.hessian_ascent: K = auto_steps(n), chosen per task
+    assert dict(MethodSpec.make("hessian").options)["steps"] == "auto"
+    assert dict(MethodSpec.make("hessian", {"steps": 40}).options)["steps"] == 40
+    with pytest.raises(ValueError, match=r"integer >= 1 or 'auto', got 'many'"):
+        MethodSpec.make("hessian", {"steps": "many"})
+    with pytest.raises(ValueError, match=r"integer >= 1, got 'auto'"):
+        MethodSpec.make("gradient", {"max_iter": "auto"})

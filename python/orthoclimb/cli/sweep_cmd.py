@@ -67,7 +67,12 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
     parser.add_argument(
         "--methods", default="hessian,gradient", help="methods: hessian,gradient (default both)"
     )
-    parser.add_argument("--steps", type=int, default=None, help="hessian: K (default 200)")
+    parser.add_argument(
+        "--steps",
+        type=int,
+        default=None,
+        help="hessian: K (default n/8 clamped to [25, 200], per size)",
+    )
     parser.add_argument("--tol", type=float, default=None, help="hessian: delta (default 1e-3)")
     parser.add_argument("--no-polish", action="store_true", help="hessian: skip the polish")
     parser.add_argument(

@@ -15,6 +15,7 @@ import math
 
 import numpy as np
 
+from ..algorithms.hessian_ascent import auto_steps
 from .grid import StudySpec
 from .profile import best_time
 
@@ -69,7 +70,8 @@ def estimate_seconds(spec: StudySpec, tasks, workers: int, threads: int = 1) -> 
         opts = dict(t.method.options)
         if t.method.name == "hessian":
             eigen = 1e-7 * t.n**2 + 2e-3  # Lanczos on the n x n tangent Hessian, per step
-            total += scale * (opts["steps"] * th + 150 * tg) + eigen * opts["steps"]
+            k = auto_steps(t.n) if opts["steps"] == "auto" else opts["steps"]
+            total += scale * (k * th + 150 * tg) + eigen * k
         else:
             total += scale * min(500, opts["max_iter"]) * tg * 1.5
     return total / max(1, workers)

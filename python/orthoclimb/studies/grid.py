@@ -14,7 +14,7 @@ A study is read from command-line flags (:func:`spec_from_flags`) or from a TOML
 
     [[method]]
     name = "hessian"                  # hessian | gradient
-    steps = 100                       # options of that method (see METHOD_OPTIONS)
+    steps = 100                       # options of that method (see METHOD_OPTIONS; "auto")
 
 Each task is one (mixture, n, seed, method + options); see :mod:`orthoclimb.studies.tasks`.
 Energies throughout are per spin, H(x)/n on the unit sphere, maximized.
@@ -52,9 +52,10 @@ __all__ = [
 DEFAULT_EXPONENT = 2.0 / 3.0
 
 # method -> option -> (type, default). Defaults follow orthoclimb.hessian_ascent /
-# orthoclimb.gradient_ascent.
+# orthoclimb.gradient_ascent; an integer option whose default is "auto" also takes "auto"
+# (Hessian-ascent steps: orthoclimb.algorithms.auto_steps(n), chosen per task).
 METHOD_OPTIONS: dict[str, dict[str, tuple[type, Any]]] = {
-    "hessian": {"steps": (int, 200), "tol": (float, 1e-3), "polish": (bool, True)},
+    "hessian": {"steps": (int, "auto"), "tol": (float, 1e-3), "polish": (bool, True)},
     "gradient": {"max_iter": (int, 2000), "gtol": (float, 1e-7)},
 }
 MAX_SIZE = 100_000
@@ -163,9 +164,13 @@ class MethodSpec:
                 if not isinstance(value, bool):
                     raise TypeError(f"option {key} of {name} must be true/false, got {value!r}")
             elif kind is int:
-                if isinstance(value, bool) or not isinstance(value, int) or value < 1:
+                auto = default == "auto" and value == "auto"
+                if not auto and (
+                    isinstance(value, bool) or not isinstance(value, int) or value < 1
+                ):
+                    also = " or 'auto'" if default == "auto" else ""
                     raise ValueError(
-                        f"option {key} of {name} must be an integer >= 1, got {value!r}"
+                        f"option {key} of {name} must be an integer >= 1{also}, got {value!r}"
                     )
             else:
                 if isinstance(value, bool) or not isinstance(value, (int, float)):

@@ -80,6 +80,8 @@ def run_task(task: Task, threads: int | None = None) -> dict[str, Any]:
 
     ``threads``: rayon threads for the kernels in this process (``orthoclimb.set_num_threads``);
     None keeps the current setting. BLAS inside the algorithms is already single-threaded.
+    The row's ``steps`` is the work actually done: K for Hessian ascent (what "auto" resolved
+    to at this n), the iterations for gradient ascent.
     """
     from .. import __version__
     from ..algorithms import gradient_ascent, hessian_ascent
@@ -95,12 +97,18 @@ def run_task(task: Task, threads: int | None = None) -> dict[str, Any]:
     t1 = time.perf_counter()
     if task.method.name == "hessian":
         res = hessian_ascent(
-            ham, steps=opts["steps"], tol=opts["tol"], seed=task.seed, polish=opts["polish"]
+            ham,
+            steps=None if opts["steps"] == "auto" else opts["steps"],
+            tol=opts["tol"],
+            seed=task.seed,
+            polish=opts["polish"],
         )
         before = float(res.info.get("energy_ascent", res.energy))
+        steps = int(res.config["steps"])  # K actually used ("auto" resolves per n)
     elif task.method.name == "gradient":
         res = gradient_ascent(ham, seed=task.seed, gtol=opts["gtol"], max_iter=opts["max_iter"])
         before = float(res.energy)
+        steps = int(res.info["iterations"])
     else:  # pragma: no cover - MethodSpec.make refuses other names
         raise ValueError(f"unknown method {task.method.name!r}")
     t2 = time.perf_counter()
@@ -115,6 +123,7 @@ def run_task(task: Task, threads: int | None = None) -> dict[str, Any]:
         "seed": task.seed,
         "method": task.method.name,
         "options": json.dumps(opts, sort_keys=True),
+        "steps": steps,
         "dtype": task.dtype,
         "energy": energy,
         "energy_before_polish": before,
