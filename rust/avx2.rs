@@ -223,6 +223,87 @@ pub fn dot2_axpy<T: Coef>(a: &[T], x: &[f64], v: &[f64], w: &mut [f64], alpha: f
     }
 }
 
+/// Four segments at once: s_j = sum_t a_j,t x_t, rows_j,t += w a_j,t,
+/// z_t += (xi_0 a_0,t + xi_1 a_1,t) + (xi_2 a_2,t + xi_3 a_3,t).
+#[inline(always)]
+pub fn rows4<T: Coef>(
+    a: [&[T]; 4],
+    x: &[f64],
+    rows: [&mut [f64]; 4],
+    w: f64,
+    z: &mut [f64],
+    xi: [f64; 4],
+) -> [f64; 4] {
+    let len = z.len();
+    let x = &x[..len];
+    let a = [&a[0][..len], &a[1][..len], &a[2][..len], &a[3][..len]];
+    let [r0, r1, r2, r3] = rows;
+    let rows = [
+        &mut r0[..len],
+        &mut r1[..len],
+        &mut r2[..len],
+        &mut r3[..len],
+    ];
+    // SAFETY: offsets stay under `len`, the length of every slice; the five written slices
+    // are distinct `&mut` borrows, so they do not overlap.
+    unsafe {
+        let pa = [a[0].as_ptr(), a[1].as_ptr(), a[2].as_ptr(), a[3].as_ptr()];
+        let py = [
+            rows[0].as_mut_ptr(),
+            rows[1].as_mut_ptr(),
+            rows[2].as_mut_ptr(),
+            rows[3].as_mut_ptr(),
+        ];
+        let (px, pz) = (x.as_ptr(), z.as_mut_ptr());
+        let wv = _mm256_set1_pd(w);
+        let xv = [
+            _mm256_set1_pd(xi[0]),
+            _mm256_set1_pd(xi[1]),
+            _mm256_set1_pd(xi[2]),
+            _mm256_set1_pd(xi[3]),
+        ];
+        let mut acc = [_mm256_setzero_pd(); 4];
+        let mut i = 0;
+        while i + 4 <= len {
+            let xt = _mm256_loadu_pd(px.add(i));
+            let mut c = [_mm256_setzero_pd(); 4];
+            for j in 0..4 {
+                c[j] = T::load4(pa[j].add(i));
+                acc[j] = _mm256_fmadd_pd(c[j], xt, acc[j]);
+                let y = _mm256_loadu_pd(py[j].add(i));
+                _mm256_storeu_pd(py[j].add(i), _mm256_fmadd_pd(wv, c[j], y));
+            }
+            let p01 = _mm256_fmadd_pd(xv[1], c[1], _mm256_mul_pd(xv[0], c[0]));
+            let p23 = _mm256_fmadd_pd(xv[3], c[3], _mm256_mul_pd(xv[2], c[2]));
+            let zt = _mm256_loadu_pd(pz.add(i));
+            _mm256_storeu_pd(pz.add(i), _mm256_add_pd(zt, _mm256_add_pd(p01, p23)));
+            i += 4;
+        }
+        let mut out = [hsum(acc[0]), hsum(acc[1]), hsum(acc[2]), hsum(acc[3])];
+        let mut tail = [0f64; 4];
+        while i < len {
+            let c = [
+                a[0][i].to_f64(),
+                a[1][i].to_f64(),
+                a[2][i].to_f64(),
+                a[3][i].to_f64(),
+            ];
+            for j in 0..4 {
+                tail[j] = c[j].mul_add(x[i], tail[j]);
+                *py[j].add(i) = w.mul_add(c[j], *py[j].add(i));
+            }
+            let p01 = xi[1].mul_add(c[1], xi[0] * c[0]);
+            let p23 = xi[3].mul_add(c[3], xi[2] * c[2]);
+            z[i] += p01 + p23;
+            i += 1;
+        }
+        for j in 0..4 {
+            out[j] += tail[j];
+        }
+        out
+    }
+}
+
 /// Lane-blocked segment sums for a batch: for every lane beta < width,
 /// s[beta] = sum_t a_t X[t, beta] where X rows start at `xt` with stride `stride`
 /// (t = 0..a.len()), and, when `g` is given, G[t, beta] += prod[beta] a_t (same layout).

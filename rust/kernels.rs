@@ -17,12 +17,13 @@
 //! positional product rule counts them (d/dx x^2 = 2x). These satisfy the Euler identities
 //! x . grad H_p = p H_p and Hess H_p x = (p - 1) grad H_p, which the tests check.
 
+use crate::combinatorics::first_index_offset;
 use crate::error::CoreError;
 use crate::exec::Exec;
 use crate::partition::{plan, reduce, reduce_sums, Plan, WorkItem, CHUNK};
 use crate::simd::{
-    axpy, dot, dot2_axpy, dot_axpy, dot_axpy2, leave_one_out, leave_two_out, simd_dispatch, Madd,
-    Prefixes, MAX_PREFIX,
+    axpy, dot, dot2_axpy, dot_axpy, dot_axpy2, leave_one_out, leave_two_out, rows4, simd_dispatch,
+    Madd, Prefixes, MAX_PREFIX,
 };
 use crate::storage::{Coef, Packed};
 
@@ -181,6 +182,9 @@ fn hessian_item_body<M: Madd, T: Coef>(
     if it.degree == 1 {
         return; // a linear term has no curvature
     }
+    if it.degree == 3 {
+        return hessian3_item_body::<M, T>(n, a, it, x, acc);
+    }
     let coeffs = &a[it.start..it.start + it.len];
     let mut walk = Prefixes::new(n, it.degree, it.lo, it.hi);
     let (mut xp, mut q) = ([0f64; MAX_PREFIX], [0f64; MAX_PREFIX]);
@@ -232,6 +236,104 @@ fn hessian_item_body<M: Madd, T: Coef>(
     }
 }
 
+/// Start, within the item's coefficients, of the degree-3 segment of prefix (i, j), i <= j:
+/// offset(i) + sum_{k=i}^{j-1} (n - k), relative to the item start `base`.
+#[inline(always)]
+fn segment3(n: usize, base: usize, i: usize, j: usize) -> usize {
+    let skipped = if j == i {
+        0
+    } else {
+        (j - i) * n - (j - i) * (i + j - 1) / 2
+    };
+    first_index_offset(n, 3, i) - base + skipped
+}
+
+/// One degree-3 prefix (i, j) the plain way: rows i and j take x_j a and x_i a (one row with
+/// 2 x_i when i = j), and A[i, j] takes S = sum_t a_t x_t.
+#[inline(always)]
+fn hessian3_prefix<M: Madd, T: Coef>(
+    n: usize,
+    seg: &[T],
+    (i, j): (usize, usize),
+    x: &[f64],
+    acc: &mut [f64],
+) {
+    let s = if i == j {
+        dot_axpy::<M, T>(seg, &x[j..], &mut acc[i * n + j..i * n + n], 2.0 * x[i])
+    } else {
+        let (head, tail) = acc.split_at_mut(j * n);
+        dot_axpy2::<M, T>(
+            seg,
+            &x[j..],
+            (&mut head[i * n + j..i * n + n], x[j]),
+            (&mut tail[j..n], x[i]),
+        )
+    };
+    acc[i * n + j] += s;
+}
+
+/// The degree-3 Hessian pass of one item, four first indices at a time: for first indices
+/// g..g+4 and every second index j >= g + 4, the four segments share row j of the
+/// accumulator, which [`rows4`] reads and writes once for all four (the plain loop touches it
+/// once per segment, and at n in the hundreds those rows live in L2, not L1). Prefixes with
+/// j < g + 4 and first indices left over at the end of the item go the plain way.
+#[inline(always)]
+fn hessian3_item_body<M: Madd, T: Coef>(
+    n: usize,
+    a: &[T],
+    it: &WorkItem,
+    x: &[f64],
+    acc: &mut [f64],
+) {
+    let coeffs = &a[it.start..it.start + it.len];
+    let mut g = it.lo;
+    while g + 4 <= it.hi {
+        for i in g..g + 4 {
+            for j in i..g + 4 {
+                let p = segment3(n, it.start, i, j);
+                hessian3_prefix::<M, T>(n, &coeffs[p..p + n - j], (i, j), x, acc);
+            }
+        }
+        let xi = [x[g], x[g + 1], x[g + 2], x[g + 3]];
+        let mut pos = [0usize; 4];
+        for (k, p) in pos.iter_mut().enumerate() {
+            *p = segment3(n, it.start, g + k, g + 4);
+        }
+        for j in g + 4..n {
+            let len = n - j;
+            let (head, tail) = acc.split_at_mut(j * n);
+            let (r0, rest) = head[g * n..(g + 4) * n].split_at_mut(n);
+            let (r1, rest) = rest.split_at_mut(n);
+            let (r2, r3) = rest.split_at_mut(n);
+            let s = rows4::<M, T>(
+                [
+                    &coeffs[pos[0]..pos[0] + len],
+                    &coeffs[pos[1]..pos[1] + len],
+                    &coeffs[pos[2]..pos[2] + len],
+                    &coeffs[pos[3]..pos[3] + len],
+                ],
+                &x[j..],
+                [&mut r0[j..], &mut r1[j..], &mut r2[j..], &mut r3[j..]],
+                x[j],
+                &mut tail[j..n],
+                xi,
+            );
+            for k in 0..4 {
+                acc[(g + k) * n + j] += s[k];
+                pos[k] += len;
+            }
+        }
+        g += 4;
+    }
+    for i in g..it.hi {
+        let mut p = segment3(n, it.start, i, i);
+        for j in i..n {
+            hessian3_prefix::<M, T>(n, &coeffs[p..p + n - j], (i, j), x, acc);
+            p += n - j;
+        }
+    }
+}
+
 simd_dispatch!(fn hessian_item => hessian_item_body(
     n: usize, a: &[T], it: &WorkItem, x: &[f64], acc: &mut [f64]) -> ());
 
@@ -242,7 +344,8 @@ pub fn hessian<T: Coef>(exec: &Exec, poly: &Packed<T>, x: &[f64]) -> Result<Vec<
     let nn = n.checked_mul(n).ok_or_else(|| CoreError::SizeOverflow {
         what: format!("Hessian of n = {n}"),
     })?;
-    let items = items_for(poly, pieces(poly.num_coefficients(), nn), poly.max_degree());
+    // width 1: a chunk spans several first indices, so the degree-3 pass can take them by four
+    let items = items_for(poly, pieces(poly.num_coefficients(), nn), 1);
     let blocks = poly.blocks();
     let (_, mut upper) = reduce_sums(exec, &items, 0, nn, |it, _, acc| {
         hessian_item::<T>(n, &blocks[it.block].coeffs, it, x, acc);
@@ -488,6 +591,45 @@ pub(crate) mod tests {
         let (_, _, h0) = naive(&poly, &x);
         for (a, b) in one.iter().zip(&h0) {
             assert!((a - b).abs() < 1e-9 * (1.0 + b.abs()));
+        }
+    }
+
+    /// The degree-3 Hessian takes first indices by four; sizes around multiples of 4, items
+    /// that hold several chunks (n = 150) and mixtures with other degrees exercise the
+    /// blocked part, the head prefixes and the leftover first indices against the naive sum.
+    #[test]
+    fn degree_three_hessian_matches_naive_evaluation() {
+        for (n, terms) in [
+            (4usize, vec![(3usize, 1.0)]),
+            (7, vec![(3, 1.0)]),
+            (8, vec![(1, 0.5), (3, 1.0)]),
+            (13, vec![(2, 0.7), (3, 1.0), (4, 0.3)]),
+            (150, vec![(3, 1.0)]),
+        ] {
+            let poly =
+                Packed::<f64>::sample(&pool(2), n, &terms, &Disorder::new(n as u64)).unwrap();
+            let x = point(n, 0.9);
+            let (_, _, want) = naive(&poly, &x);
+            let scale = want.iter().fold(0f64, |m, v| m.max(v.abs())).max(1.0);
+            for k in [1usize, 3] {
+                let got = hessian(&pool(k), &poly, &x).unwrap();
+                for (i, (a, b)) in got.iter().zip(&want).enumerate() {
+                    assert!(close(*a, *b, scale), "n={n} entry {i}: {a} vs {b}");
+                }
+            }
+            // float32 storage: the same pass against the naive sum over the widened values
+            let f32poly = Packed::<f32>::sample(&pool(2), n, &terms, &Disorder::new(1)).unwrap();
+            let wide: Vec<(usize, Vec<f64>)> = f32poly
+                .blocks()
+                .iter()
+                .map(|b| (b.degree, b.coeffs.iter().map(|&c| c as f64).collect()))
+                .collect();
+            let parts: Vec<(usize, &[f64])> = wide.iter().map(|(p, c)| (*p, &c[..])).collect();
+            let (_, _, want32) = naive(&Packed::<f64>::from_coefficients(n, &parts).unwrap(), &x);
+            let got32 = hessian(&pool(2), &f32poly, &x).unwrap();
+            for (a, b) in got32.iter().zip(&want32) {
+                assert!(close(*a, *b, scale), "float32 n={n}: {a} vs {b}");
+            }
         }
     }
 

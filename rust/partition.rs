@@ -51,20 +51,26 @@ impl Plan {
     }
 }
 
+/// First indices come in runs of this many: every group and chunk starts at a multiple of it,
+/// so a kernel may take first indices four at a time (the degree-3 Hessian does).
+pub const QUANTUM: usize = 4;
+
 /// Cuts first indices `lo..hi` of a degree-p block into consecutive ranges of about `target`
-/// coefficients each (at least one first index per range).
+/// coefficients each, each a whole number of [`QUANTUM`] runs (the last one may be shorter).
 fn cut(n: usize, p: usize, lo: usize, hi: usize, target: usize) -> Vec<(usize, usize)> {
     let target = target.max(1);
     let mut out = Vec::new();
     let mut a = lo;
     while a < hi {
         let b = if p == 1 {
-            (a + target).min(hi)
+            (a + target.next_multiple_of(QUANTUM)).min(hi)
         } else {
             let (mut b, mut count) = (a, 0usize);
             while b < hi && count < target {
-                count += count_with_first(n, p, b);
-                b += 1;
+                for s in b..(b + QUANTUM).min(hi) {
+                    count += count_with_first(n, p, s);
+                }
+                b = (b + QUANTUM).min(hi);
             }
             b
         };
@@ -256,12 +262,15 @@ mod tests {
                         assert_eq!(w[0].start + w[0].len, w[1].start);
                     }
                     assert_eq!(mine.iter().map(|i| i.len).sum::<usize>(), len);
-                    // a chunk exceeds `chunk` only by its last first index
+                    // chunks start at multiples of QUANTUM and exceed `chunk` only by their
+                    // last run of QUANTUM first indices
                     for it in &mine {
-                        let last = if p == 1 {
-                            1
+                        assert_eq!(it.lo % QUANTUM, 0);
+                        let run = it.hi.saturating_sub(QUANTUM).max(it.lo)..it.hi;
+                        let last: usize = if p == 1 {
+                            run.len()
                         } else {
-                            count_with_first(n, p, it.hi - 1)
+                            run.map(|s| count_with_first(n, p, s)).sum()
                         };
                         assert!(it.len < chunk + last, "chunk of {} coefficients", it.len);
                     }

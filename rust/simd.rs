@@ -20,6 +20,15 @@ pub trait Madd {
     fn dot_axpy<T: Coef>(a: &[T], x: &[f64], y: &mut [f64], alpha: f64) -> f64;
     fn dot_axpy2<T: Coef>(a: &[T], x: &[f64], y: (&mut [f64], f64), z: (&mut [f64], f64)) -> f64;
     fn dot2_axpy<T: Coef>(a: &[T], x: &[f64], v: &[f64], w: &mut [f64], alpha: f64) -> (f64, f64);
+    /// Four segments at once (see [`rows4`]).
+    fn rows4<T: Coef>(
+        a: [&[T]; 4],
+        x: &[f64],
+        rows: [&mut [f64]; 4],
+        w: f64,
+        z: &mut [f64],
+        xi: [f64; 4],
+    ) -> [f64; 4];
     /// Batch lanes (see [`lanes`]).
     fn lanes<T: Coef>(
         a: &[T],
@@ -63,6 +72,17 @@ impl Madd for Fused {
         crate::avx2::dot2_axpy(a, x, v, w, alpha)
     }
     #[inline(always)]
+    fn rows4<T: Coef>(
+        a: [&[T]; 4],
+        x: &[f64],
+        rows: [&mut [f64]; 4],
+        w: f64,
+        z: &mut [f64],
+        xi: [f64; 4],
+    ) -> [f64; 4] {
+        crate::avx2::rows4(a, x, rows, w, z, xi)
+    }
+    #[inline(always)]
     fn lanes<T: Coef>(
         a: &[T],
         xt: &[f64],
@@ -99,6 +119,17 @@ impl Madd for Plain {
     #[inline(always)]
     fn dot2_axpy<T: Coef>(a: &[T], x: &[f64], v: &[f64], w: &mut [f64], alpha: f64) -> (f64, f64) {
         portable_dot2_axpy::<Plain, T>(a, x, v, w, alpha)
+    }
+    #[inline(always)]
+    fn rows4<T: Coef>(
+        a: [&[T]; 4],
+        x: &[f64],
+        rows: [&mut [f64]; 4],
+        w: f64,
+        z: &mut [f64],
+        xi: [f64; 4],
+    ) -> [f64; 4] {
+        portable_rows4::<Plain, T>(a, x, rows, w, z, xi)
     }
     #[inline(always)]
     fn lanes<T: Coef>(
@@ -189,6 +220,22 @@ pub fn dot2_axpy<M: Madd, T: Coef>(
     alpha: f64,
 ) -> (f64, f64) {
     M::dot2_axpy(a, x, v, w, alpha)
+}
+
+/// Four coefficient segments a_j (j < 4) of one length at once: returns s_j = sum_t a_j,t x_t
+/// and does rows_j,t += w a_j,t and z_t += sum_j xi_j a_j,t (the sum formed in the order
+/// (xi_0 a_0 + xi_1 a_1) + (xi_2 a_2 + xi_3 a_3) before it is added to z). Each z entry is
+/// read and written once for four coefficients.
+#[inline(always)]
+pub fn rows4<M: Madd, T: Coef>(
+    a: [&[T]; 4],
+    x: &[f64],
+    rows: [&mut [f64]; 4],
+    w: f64,
+    z: &mut [f64],
+    xi: [f64; 4],
+) -> [f64; 4] {
+    M::rows4(a, x, rows, w, z, xi)
 }
 
 /// True when the processor has AVX2 and FMA (checked once, then cached by std).
@@ -471,6 +518,74 @@ impl Prefixes {
     }
 }
 
+/// Portable [`rows4`]: per lane, the same operations in the same order as the AVX2 loop
+/// (dot sums in 4 lanes combined as (l0 + l2) + (l1 + l3); the scalar tail added last).
+#[inline(always)]
+#[allow(clippy::needless_range_loop)] // l and j index lanes and segments of several arrays at once
+fn portable_rows4<M: Madd, T: Coef>(
+    a: [&[T]; 4],
+    x: &[f64],
+    rows: [&mut [f64]; 4],
+    w: f64,
+    z: &mut [f64],
+    xi: [f64; 4],
+) -> [f64; 4] {
+    let len = z.len();
+    let [r0, r1, r2, r3] = rows;
+    let rows = [
+        &mut r0[..len],
+        &mut r1[..len],
+        &mut r2[..len],
+        &mut r3[..len],
+    ];
+    let mut acc = [[0f64; SHORT]; 4];
+    let body = len / SHORT * SHORT;
+    let mut t = 0;
+    while t < body {
+        for l in 0..SHORT {
+            let i = t + l;
+            let c = [
+                a[0][i].to_f64(),
+                a[1][i].to_f64(),
+                a[2][i].to_f64(),
+                a[3][i].to_f64(),
+            ];
+            for j in 0..4 {
+                acc[j][l] = M::madd(c[j], x[i], acc[j][l]);
+                rows[j][i] = M::madd(w, c[j], rows[j][i]);
+            }
+            let p01 = M::madd(xi[1], c[1], xi[0] * c[0]);
+            let p23 = M::madd(xi[3], c[3], xi[2] * c[2]);
+            z[i] += p01 + p23;
+        }
+        t += SHORT;
+    }
+    let mut out = [0f64; 4];
+    for j in 0..4 {
+        out[j] = (acc[j][0] + acc[j][2]) + (acc[j][1] + acc[j][3]);
+    }
+    let mut tail = [0f64; 4];
+    for i in body..len {
+        let c = [
+            a[0][i].to_f64(),
+            a[1][i].to_f64(),
+            a[2][i].to_f64(),
+            a[3][i].to_f64(),
+        ];
+        for j in 0..4 {
+            tail[j] = M::madd(c[j], x[i], tail[j]);
+            rows[j][i] = M::madd(w, c[j], rows[j][i]);
+        }
+        let p01 = M::madd(xi[1], c[1], xi[0] * c[0]);
+        let p23 = M::madd(xi[3], c[3], xi[2] * c[2]);
+        z[i] += p01 + p23;
+    }
+    for j in 0..4 {
+        out[j] += tail[j];
+    }
+    out
+}
+
 #[cfg(test)]
 mod tests {
     use super::*;
@@ -509,6 +624,54 @@ mod tests {
             &a.iter().map(|&t| t as f32).collect::<Vec<_>>(),
         );
         assert!((z[5] - 3.0 * (a[5] as f32) as f64).abs() < 1e-15);
+    }
+
+    /// rows4 on both paths against its definition, for every length class and both types.
+    #[test]
+    fn rows4_matches_its_definition() {
+        fn check<T: Coef, M: Madd>(conv: fn(f64) -> T) {
+            for len in 0..23usize {
+                let seg = |k: usize| -> Vec<T> {
+                    (0..len)
+                        .map(|i| conv(((i + 7 * k) as f64 * 0.61).sin()))
+                        .collect()
+                };
+                let a: Vec<Vec<T>> = (0..4).map(seg).collect();
+                let x: Vec<f64> = (0..len).map(|i| (i as f64 * 0.3).cos()).collect();
+                let xi = [0.5, -1.25, 2.0, 0.75];
+                let mut rows: Vec<Vec<f64>> = (0..4).map(|k| vec![k as f64; len]).collect();
+                let mut z = vec![1.0; len];
+                let [r0, r1, r2, r3] = &mut rows[..] else {
+                    unreachable!()
+                };
+                let s = rows4::<M, T>(
+                    [&a[0], &a[1], &a[2], &a[3]],
+                    &x,
+                    [r0, r1, r2, r3],
+                    -0.5,
+                    &mut z,
+                    xi,
+                );
+                let close = |p: f64, q: f64| (p - q).abs() <= 1e-13 * (1.0 + q.abs());
+                for k in 0..4 {
+                    let want: f64 = a[k].iter().zip(&x).map(|(c, xv)| c.to_f64() * xv).sum();
+                    assert!(close(s[k], want), "s[{k}] len {len}");
+                    for t in 0..len {
+                        assert!(close(rows[k][t], k as f64 - 0.5 * a[k][t].to_f64()));
+                    }
+                }
+                for t in 0..len {
+                    let want: f64 = 1.0 + (0..4).map(|k| xi[k] * a[k][t].to_f64()).sum::<f64>();
+                    assert!(close(z[t], want), "z[{t}] len {len}");
+                }
+            }
+        }
+        check::<f64, Plain>(|v| v);
+        check::<f32, Plain>(|v| v as f32);
+        if has_avx2_fma() {
+            check::<f64, Fused>(|v| v);
+            check::<f32, Fused>(|v| v as f32);
+        }
     }
 
     /// The AVX2 loops against the portable ones, for every length class (blocks of 16, of 4,
