@@ -223,6 +223,100 @@ pub fn dot2_axpy<T: Coef>(a: &[T], x: &[f64], v: &[f64], w: &mut [f64], alpha: f
     }
 }
 
+/// Four segments at once: s_j = sum_t a_j,t x_t (and, with `v`, sum_t a_j,t v_t),
+/// z_t += (w_0 a_0,t + w_1 a_1,t) + (w_2 a_2,t + w_3 a_3,t).
+#[inline(always)]
+fn dots_axpy4<T: Coef, const WITH_V: bool>(
+    a: [&[T]; 4],
+    x: &[f64],
+    v: &[f64],
+    z: &mut [f64],
+    w: [f64; 4],
+) -> ([f64; 4], [f64; 4]) {
+    let len = z.len();
+    let x = &x[..len];
+    let v = if WITH_V { &v[..len] } else { v };
+    let a = [&a[0][..len], &a[1][..len], &a[2][..len], &a[3][..len]];
+    // SAFETY: offsets stay under `len`, the length of every slice read or written (v is only
+    // read when WITH_V, and then it was cut to `len` above).
+    unsafe {
+        let pa = [a[0].as_ptr(), a[1].as_ptr(), a[2].as_ptr(), a[3].as_ptr()];
+        let (px, pv, pz) = (x.as_ptr(), v.as_ptr(), z.as_mut_ptr());
+        let wv = [
+            _mm256_set1_pd(w[0]),
+            _mm256_set1_pd(w[1]),
+            _mm256_set1_pd(w[2]),
+            _mm256_set1_pd(w[3]),
+        ];
+        let mut ax = [_mm256_setzero_pd(); 4];
+        let mut av = [_mm256_setzero_pd(); 4];
+        let mut i = 0;
+        while i + 4 <= len {
+            let xt = _mm256_loadu_pd(px.add(i));
+            let mut c = [_mm256_setzero_pd(); 4];
+            for j in 0..4 {
+                c[j] = T::load4(pa[j].add(i));
+                ax[j] = _mm256_fmadd_pd(c[j], xt, ax[j]);
+            }
+            if WITH_V {
+                let vt = _mm256_loadu_pd(pv.add(i));
+                for j in 0..4 {
+                    av[j] = _mm256_fmadd_pd(c[j], vt, av[j]);
+                }
+            }
+            let p01 = _mm256_fmadd_pd(wv[1], c[1], _mm256_mul_pd(wv[0], c[0]));
+            let p23 = _mm256_fmadd_pd(wv[3], c[3], _mm256_mul_pd(wv[2], c[2]));
+            let zt = _mm256_loadu_pd(pz.add(i));
+            _mm256_storeu_pd(pz.add(i), _mm256_add_pd(zt, _mm256_add_pd(p01, p23)));
+            i += 4;
+        }
+        let mut sx = [hsum(ax[0]), hsum(ax[1]), hsum(ax[2]), hsum(ax[3])];
+        let mut sv = [hsum(av[0]), hsum(av[1]), hsum(av[2]), hsum(av[3])];
+        let (mut tx, mut tv) = ([0f64; 4], [0f64; 4]);
+        while i < len {
+            let c = [
+                a[0][i].to_f64(),
+                a[1][i].to_f64(),
+                a[2][i].to_f64(),
+                a[3][i].to_f64(),
+            ];
+            for j in 0..4 {
+                tx[j] = c[j].mul_add(x[i], tx[j]);
+                if WITH_V {
+                    tv[j] = c[j].mul_add(v[i], tv[j]);
+                }
+            }
+            let p01 = w[1].mul_add(c[1], w[0] * c[0]);
+            let p23 = w[3].mul_add(c[3], w[2] * c[2]);
+            z[i] += p01 + p23;
+            i += 1;
+        }
+        for j in 0..4 {
+            sx[j] += tx[j];
+            sv[j] += tv[j];
+        }
+        (sx, sv)
+    }
+}
+
+/// s_j = sum_t a_j,t x_t for four segments; z_t += sum_j w_j a_j,t.
+#[inline(always)]
+pub fn dots4_axpy<T: Coef>(a: [&[T]; 4], x: &[f64], z: &mut [f64], w: [f64; 4]) -> [f64; 4] {
+    dots_axpy4::<T, false>(a, x, x, z, w).0
+}
+
+/// (sum_t a_j,t x_t, sum_t a_j,t v_t) for four segments; z_t += sum_j w_j a_j,t.
+#[inline(always)]
+pub fn dots8_axpy<T: Coef>(
+    a: [&[T]; 4],
+    x: &[f64],
+    v: &[f64],
+    z: &mut [f64],
+    w: [f64; 4],
+) -> ([f64; 4], [f64; 4]) {
+    dots_axpy4::<T, true>(a, x, v, z, w)
+}
+
 /// Four segments at once: s_j = sum_t a_j,t x_t, rows_j,t += w a_j,t,
 /// z_t += (xi_0 a_0,t + xi_1 a_1,t) + (xi_2 a_2,t + xi_3 a_3,t).
 #[inline(always)]

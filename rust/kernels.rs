@@ -22,8 +22,8 @@ use crate::error::CoreError;
 use crate::exec::Exec;
 use crate::partition::{plan, reduce, reduce_sums, Plan, WorkItem, CHUNK};
 use crate::simd::{
-    axpy, dot, dot2_axpy, dot_axpy, dot_axpy2, leave_one_out, leave_two_out, rows4, simd_dispatch,
-    Madd, Prefixes, MAX_PREFIX,
+    axpy, dot, dot2_axpy, dot_axpy, dot_axpy2, dots4_axpy, dots8_axpy, leave_one_out,
+    leave_two_out, rows4, simd_dispatch, Madd, Prefixes, MAX_PREFIX,
 };
 use crate::storage::{Coef, Packed};
 
@@ -132,6 +132,9 @@ fn gradient_item_body<M: Madd, T: Coef>(
     if it.degree == 1 {
         return dot_axpy::<M, T>(coeffs, &x[it.lo..it.hi], &mut g[it.lo..it.hi], 1.0);
     }
+    if it.degree == 3 {
+        return gradient3_item_body::<M, T>(n, coeffs, it, x, g);
+    }
     let mut walk = Prefixes::new(n, it.degree, it.lo, it.hi);
     let (mut xp, mut q) = ([0f64; MAX_PREFIX], [0f64; MAX_PREFIX]);
     let mut e = 0.0;
@@ -144,6 +147,81 @@ fn gradient_item_body<M: Madd, T: Coef>(
         e += prod * s;
         for j in 0..l {
             g[pre[j]] += q[j] * s;
+        }
+    }
+    e
+}
+
+/// Gradient of one degree-3 prefix (i, j) the plain way: g_t += P a_t with P = x_i x_j,
+/// g_i += x_j S and g_j += x_i S with S = sum_t a_t x_t; returns the energy term P S.
+#[inline(always)]
+fn gradient3_prefix<M: Madd, T: Coef>(
+    seg: &[T],
+    (i, j): (usize, usize),
+    x: &[f64],
+    g: &mut [f64],
+) -> f64 {
+    let prod = x[i] * x[j];
+    let s = dot_axpy::<M, T>(seg, &x[j..], &mut g[j..], prod);
+    g[i] += x[j] * s;
+    g[j] += x[i] * s;
+    prod * s
+}
+
+/// The degree-3 gradient pass of one item (`coeffs` are the item's), four first indices at a
+/// time as in [`hessian3_item_body`]: the four segments of (g + k, j) share g_t, t >= j, which
+/// [`dots4_axpy`] reads and writes once for all four. Returns the item's energy.
+#[inline(always)]
+fn gradient3_item_body<M: Madd, T: Coef>(
+    n: usize,
+    coeffs: &[T],
+    it: &WorkItem,
+    x: &[f64],
+    g: &mut [f64],
+) -> f64 {
+    let mut e = 0.0;
+    let mut g0 = it.lo;
+    while g0 + 4 <= it.hi {
+        for i in g0..g0 + 4 {
+            for j in i..g0 + 4 {
+                let p = segment3(n, it.start, i, j);
+                e += gradient3_prefix::<M, T>(&coeffs[p..p + n - j], (i, j), x, g);
+            }
+        }
+        let xi = [x[g0], x[g0 + 1], x[g0 + 2], x[g0 + 3]];
+        let mut pos = [0usize; 4];
+        for (k, p) in pos.iter_mut().enumerate() {
+            *p = segment3(n, it.start, g0 + k, g0 + 4);
+        }
+        for j in g0 + 4..n {
+            let len = n - j;
+            let xj = x[j];
+            let w = [xi[0] * xj, xi[1] * xj, xi[2] * xj, xi[3] * xj];
+            let s = dots4_axpy::<M, T>(
+                [
+                    &coeffs[pos[0]..pos[0] + len],
+                    &coeffs[pos[1]..pos[1] + len],
+                    &coeffs[pos[2]..pos[2] + len],
+                    &coeffs[pos[3]..pos[3] + len],
+                ],
+                &x[j..],
+                &mut g[j..],
+                w,
+            );
+            for k in 0..4 {
+                e += w[k] * s[k];
+                g[g0 + k] += xj * s[k];
+                pos[k] += len;
+            }
+            g[j] += (xi[0] * s[0] + xi[1] * s[1]) + (xi[2] * s[2] + xi[3] * s[3]);
+        }
+        g0 += 4;
+    }
+    for i in g0..it.hi {
+        let mut p = segment3(n, it.start, i, i);
+        for j in i..n {
+            e += gradient3_prefix::<M, T>(&coeffs[p..p + n - j], (i, j), x, g);
+            p += n - j;
         }
     }
     e
@@ -388,6 +466,9 @@ fn hvp_item_body<M: Madd, T: Coef>(
         return;
     }
     let coeffs = &a[it.start..it.start + it.len];
+    if it.degree == 3 {
+        return hvp3_item_body::<M, T>(n, coeffs, it, x, v, w);
+    }
     let mut walk = Prefixes::new(n, it.degree, it.lo, it.hi);
     let (mut xp, mut vp, mut q) = ([0f64; MAX_PREFIX], [0f64; MAX_PREFIX], [0f64; MAX_PREFIX]);
     let mut r = [[0f64; MAX_PREFIX]; MAX_PREFIX];
@@ -416,6 +497,85 @@ fn hvp_item_body<M: Madd, T: Coef>(
                 }
             }
             w[pre[j]] += q[j] * sv + dq * sx;
+        }
+    }
+}
+
+/// Hessian-vector product of one degree-3 prefix (i, j) the plain way: w_t += D a_t with
+/// D = v_i x_j + v_j x_i, then w_i += x_j Sv + v_j Sx and w_j += x_i Sv + v_i Sx.
+#[inline(always)]
+fn hvp3_prefix<M: Madd, T: Coef>(
+    seg: &[T],
+    (i, j): (usize, usize),
+    x: &[f64],
+    v: &[f64],
+    w: &mut [f64],
+) {
+    let d = v[i] * x[j] + v[j] * x[i];
+    let (sx, sv) = dot2_axpy::<M, T>(seg, &x[j..], &v[j..], &mut w[j..], d);
+    w[i] += x[j] * sv + v[j] * sx;
+    w[j] += x[i] * sv + v[i] * sx;
+}
+
+/// The degree-3 HVP pass of one item (`coeffs` are the item's), four first indices at a time
+/// as in [`hessian3_item_body`]: the four segments of (g + k, j) share w_t, t >= j, and the
+/// reads of x_t and v_t, which [`dots8_axpy`] does once for all four.
+#[inline(always)]
+fn hvp3_item_body<M: Madd, T: Coef>(
+    n: usize,
+    coeffs: &[T],
+    it: &WorkItem,
+    x: &[f64],
+    v: &[f64],
+    w: &mut [f64],
+) {
+    let mut g0 = it.lo;
+    while g0 + 4 <= it.hi {
+        for i in g0..g0 + 4 {
+            for j in i..g0 + 4 {
+                let p = segment3(n, it.start, i, j);
+                hvp3_prefix::<M, T>(&coeffs[p..p + n - j], (i, j), x, v, w);
+            }
+        }
+        let (xi, vi) = (&x[g0..g0 + 4], &v[g0..g0 + 4]);
+        let mut pos = [0usize; 4];
+        for (k, p) in pos.iter_mut().enumerate() {
+            *p = segment3(n, it.start, g0 + k, g0 + 4);
+        }
+        for j in g0 + 4..n {
+            let len = n - j;
+            let (xj, vj) = (x[j], v[j]);
+            let mut d = [0f64; 4];
+            for k in 0..4 {
+                d[k] = vi[k] * xj + vj * xi[k];
+            }
+            let (sx, sv) = dots8_axpy::<M, T>(
+                [
+                    &coeffs[pos[0]..pos[0] + len],
+                    &coeffs[pos[1]..pos[1] + len],
+                    &coeffs[pos[2]..pos[2] + len],
+                    &coeffs[pos[3]..pos[3] + len],
+                ],
+                &x[j..],
+                &v[j..],
+                &mut w[j..],
+                d,
+            );
+            let mut wj = [0f64; 4];
+            for k in 0..4 {
+                w[g0 + k] += xj * sv[k] + vj * sx[k];
+                wj[k] = xi[k] * sv[k] + vi[k] * sx[k];
+                pos[k] += len;
+            }
+            w[j] += (wj[0] + wj[1]) + (wj[2] + wj[3]);
+        }
+        g0 += 4;
+    }
+    for i in g0..it.hi {
+        let mut p = segment3(n, it.start, i, i);
+        for j in i..n {
+            hvp3_prefix::<M, T>(&coeffs[p..p + n - j], (i, j), x, v, w);
+            p += n - j;
         }
     }
 }
@@ -594,11 +754,11 @@ pub(crate) mod tests {
         }
     }
 
-    /// The degree-3 Hessian takes first indices by four; sizes around multiples of 4, items
+    /// The degree-3 passes take first indices by four; sizes around multiples of 4, items
     /// that hold several chunks (n = 150) and mixtures with other degrees exercise the
     /// blocked part, the head prefixes and the leftover first indices against the naive sum.
     #[test]
-    fn degree_three_hessian_matches_naive_evaluation() {
+    fn degree_three_passes_match_naive_evaluation() {
         for (n, terms) in [
             (4usize, vec![(3usize, 1.0)]),
             (7, vec![(3, 1.0)]),
@@ -609,8 +769,23 @@ pub(crate) mod tests {
             let poly =
                 Packed::<f64>::sample(&pool(2), n, &terms, &Disorder::new(n as u64)).unwrap();
             let x = point(n, 0.9);
-            let (_, _, want) = naive(&poly, &x);
+            let (e_want, g_want, want) = naive(&poly, &x);
             let scale = want.iter().fold(0f64, |m, v| m.max(v.abs())).max(1.0);
+            let v = point(n, 0.37);
+            let hv_want: Vec<f64> = (0..n)
+                .map(|r| (0..n).map(|c| want[r * n + c] * v[c]).sum())
+                .collect();
+            for k in [1usize, 3] {
+                let (e, g) = energy_gradient(&pool(k), &poly, &x).unwrap();
+                assert!(close(e, e_want, scale), "energy n={n}: {e} vs {e_want}");
+                for (a, b) in g.iter().zip(&g_want) {
+                    assert!(close(*a, *b, scale), "gradient n={n}: {a} vs {b}");
+                }
+                let hv = hvp(&pool(k), &poly, &x, &v).unwrap();
+                for (a, b) in hv.iter().zip(&hv_want) {
+                    assert!(close(*a, *b, scale * n as f64), "hvp n={n}: {a} vs {b}");
+                }
+            }
             for k in [1usize, 3] {
                 let got = hessian(&pool(k), &poly, &x).unwrap();
                 for (i, (a, b)) in got.iter().zip(&want).enumerate() {

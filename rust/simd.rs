@@ -20,6 +20,16 @@ pub trait Madd {
     fn dot_axpy<T: Coef>(a: &[T], x: &[f64], y: &mut [f64], alpha: f64) -> f64;
     fn dot_axpy2<T: Coef>(a: &[T], x: &[f64], y: (&mut [f64], f64), z: (&mut [f64], f64)) -> f64;
     fn dot2_axpy<T: Coef>(a: &[T], x: &[f64], v: &[f64], w: &mut [f64], alpha: f64) -> (f64, f64);
+    /// Four segments at once (see [`dots4_axpy`]).
+    fn dots4_axpy<T: Coef>(a: [&[T]; 4], x: &[f64], z: &mut [f64], w: [f64; 4]) -> [f64; 4];
+    /// Four segments at once (see [`dots8_axpy`]).
+    fn dots8_axpy<T: Coef>(
+        a: [&[T]; 4],
+        x: &[f64],
+        v: &[f64],
+        z: &mut [f64],
+        w: [f64; 4],
+    ) -> ([f64; 4], [f64; 4]);
     /// Four segments at once (see [`rows4`]).
     fn rows4<T: Coef>(
         a: [&[T]; 4],
@@ -72,6 +82,20 @@ impl Madd for Fused {
         crate::avx2::dot2_axpy(a, x, v, w, alpha)
     }
     #[inline(always)]
+    fn dots4_axpy<T: Coef>(a: [&[T]; 4], x: &[f64], z: &mut [f64], w: [f64; 4]) -> [f64; 4] {
+        crate::avx2::dots4_axpy(a, x, z, w)
+    }
+    #[inline(always)]
+    fn dots8_axpy<T: Coef>(
+        a: [&[T]; 4],
+        x: &[f64],
+        v: &[f64],
+        z: &mut [f64],
+        w: [f64; 4],
+    ) -> ([f64; 4], [f64; 4]) {
+        crate::avx2::dots8_axpy(a, x, v, z, w)
+    }
+    #[inline(always)]
     fn rows4<T: Coef>(
         a: [&[T]; 4],
         x: &[f64],
@@ -119,6 +143,20 @@ impl Madd for Plain {
     #[inline(always)]
     fn dot2_axpy<T: Coef>(a: &[T], x: &[f64], v: &[f64], w: &mut [f64], alpha: f64) -> (f64, f64) {
         portable_dot2_axpy::<Plain, T>(a, x, v, w, alpha)
+    }
+    #[inline(always)]
+    fn dots4_axpy<T: Coef>(a: [&[T]; 4], x: &[f64], z: &mut [f64], w: [f64; 4]) -> [f64; 4] {
+        portable_dots8_axpy::<Plain, T>(a, x, None, z, w).0
+    }
+    #[inline(always)]
+    fn dots8_axpy<T: Coef>(
+        a: [&[T]; 4],
+        x: &[f64],
+        v: &[f64],
+        z: &mut [f64],
+        w: [f64; 4],
+    ) -> ([f64; 4], [f64; 4]) {
+        portable_dots8_axpy::<Plain, T>(a, x, Some(v), z, w)
     }
     #[inline(always)]
     fn rows4<T: Coef>(
@@ -236,6 +274,32 @@ pub fn rows4<M: Madd, T: Coef>(
     xi: [f64; 4],
 ) -> [f64; 4] {
     M::rows4(a, x, rows, w, z, xi)
+}
+
+/// Four coefficient segments a_j (j < 4) of one length at once: returns s_j = sum_t a_j,t x_t
+/// and does z_t += (w_0 a_0,t + w_1 a_1,t) + (w_2 a_2,t + w_3 a_3,t), reading each x and z
+/// entry once for four coefficients.
+#[inline(always)]
+pub fn dots4_axpy<M: Madd, T: Coef>(
+    a: [&[T]; 4],
+    x: &[f64],
+    z: &mut [f64],
+    w: [f64; 4],
+) -> [f64; 4] {
+    M::dots4_axpy(a, x, z, w)
+}
+
+/// [`dots4_axpy`] that also returns the four sums with a second vector v:
+/// (sum_t a_j,t x_t, sum_t a_j,t v_t) for j < 4.
+#[inline(always)]
+pub fn dots8_axpy<M: Madd, T: Coef>(
+    a: [&[T]; 4],
+    x: &[f64],
+    v: &[f64],
+    z: &mut [f64],
+    w: [f64; 4],
+) -> ([f64; 4], [f64; 4]) {
+    M::dots8_axpy(a, x, v, z, w)
 }
 
 /// True when the processor has AVX2 and FMA (checked once, then cached by std).
@@ -518,6 +582,72 @@ impl Prefixes {
     }
 }
 
+/// Portable [`dots4_axpy`] (v = None) and [`dots8_axpy`]: per lane, the operations of the
+/// AVX2 loops in their order (4-lane sums combined as (l0 + l2) + (l1 + l3), scalar tail last).
+#[inline(always)]
+#[allow(clippy::needless_range_loop)] // l and j index lanes and segments of several arrays at once
+fn portable_dots8_axpy<M: Madd, T: Coef>(
+    a: [&[T]; 4],
+    x: &[f64],
+    v: Option<&[f64]>,
+    z: &mut [f64],
+    w: [f64; 4],
+) -> ([f64; 4], [f64; 4]) {
+    let len = z.len();
+    let (mut ax, mut av) = ([[0f64; SHORT]; 4], [[0f64; SHORT]; 4]);
+    let body = len / SHORT * SHORT;
+    let mut t = 0;
+    while t < body {
+        for l in 0..SHORT {
+            let i = t + l;
+            let c = [
+                a[0][i].to_f64(),
+                a[1][i].to_f64(),
+                a[2][i].to_f64(),
+                a[3][i].to_f64(),
+            ];
+            for j in 0..4 {
+                ax[j][l] = M::madd(c[j], x[i], ax[j][l]);
+                if let Some(v) = v {
+                    av[j][l] = M::madd(c[j], v[i], av[j][l]);
+                }
+            }
+            let p01 = M::madd(w[1], c[1], w[0] * c[0]);
+            let p23 = M::madd(w[3], c[3], w[2] * c[2]);
+            z[i] += p01 + p23;
+        }
+        t += SHORT;
+    }
+    let (mut sx, mut sv) = ([0f64; 4], [0f64; 4]);
+    for j in 0..4 {
+        sx[j] = (ax[j][0] + ax[j][2]) + (ax[j][1] + ax[j][3]);
+        sv[j] = (av[j][0] + av[j][2]) + (av[j][1] + av[j][3]);
+    }
+    let (mut tx, mut tv) = ([0f64; 4], [0f64; 4]);
+    for i in body..len {
+        let c = [
+            a[0][i].to_f64(),
+            a[1][i].to_f64(),
+            a[2][i].to_f64(),
+            a[3][i].to_f64(),
+        ];
+        for j in 0..4 {
+            tx[j] = M::madd(c[j], x[i], tx[j]);
+            if let Some(v) = v {
+                tv[j] = M::madd(c[j], v[i], tv[j]);
+            }
+        }
+        let p01 = M::madd(w[1], c[1], w[0] * c[0]);
+        let p23 = M::madd(w[3], c[3], w[2] * c[2]);
+        z[i] += p01 + p23;
+    }
+    for j in 0..4 {
+        sx[j] += tx[j];
+        sv[j] += tv[j];
+    }
+    (sx, sv)
+}
+
 /// Portable [`rows4`]: per lane, the same operations in the same order as the AVX2 loop
 /// (dot sums in 4 lanes combined as (l0 + l2) + (l1 + l3); the scalar tail added last).
 #[inline(always)]
@@ -624,6 +754,48 @@ mod tests {
             &a.iter().map(|&t| t as f32).collect::<Vec<_>>(),
         );
         assert!((z[5] - 3.0 * (a[5] as f32) as f64).abs() < 1e-15);
+    }
+
+    /// dots4_axpy and dots8_axpy on both paths against their definition, every length class.
+    #[test]
+    fn dots_axpy4_match_their_definition() {
+        fn check<T: Coef, M: Madd>(conv: fn(f64) -> T) {
+            for len in 0..23usize {
+                let a: Vec<Vec<T>> = (0..4)
+                    .map(|k| {
+                        (0..len)
+                            .map(|i| conv(((i + 5 * k) as f64 * 0.43).cos()))
+                            .collect()
+                    })
+                    .collect();
+                let a4 = [&a[0][..], &a[1][..], &a[2][..], &a[3][..]];
+                let x: Vec<f64> = (0..len).map(|i| (i as f64 * 0.3).sin()).collect();
+                let v: Vec<f64> = (0..len).map(|i| 1.0 / (1.0 + i as f64)).collect();
+                let w = [1.5, -0.25, 0.5, 2.0];
+                let (mut z4, mut z8) = (vec![0.5; len], vec![0.5; len]);
+                let s4 = dots4_axpy::<M, T>(a4, &x, &mut z4, w);
+                let (sx, sv) = dots8_axpy::<M, T>(a4, &x, &v, &mut z8, w);
+                let close = |p: f64, q: f64| (p - q).abs() <= 1e-13 * (1.0 + q.abs());
+                for k in 0..4 {
+                    let dx: f64 = a[k].iter().zip(&x).map(|(c, y)| c.to_f64() * y).sum();
+                    let dv: f64 = a[k].iter().zip(&v).map(|(c, y)| c.to_f64() * y).sum();
+                    assert!(
+                        close(s4[k], dx) && close(sx[k], dx) && close(sv[k], dv),
+                        "{len}"
+                    );
+                }
+                for t in 0..len {
+                    let want = 0.5 + (0..4).map(|k| w[k] * a[k][t].to_f64()).sum::<f64>();
+                    assert!(close(z4[t], want) && close(z8[t], want), "z[{t}] len {len}");
+                }
+            }
+        }
+        check::<f64, Plain>(|v| v);
+        check::<f32, Plain>(|v| v as f32);
+        if has_avx2_fma() {
+            check::<f64, Fused>(|v| v);
+            check::<f32, Fused>(|v| v as f32);
+        }
     }
 
     /// rows4 on both paths against its definition, for every length class and both types.
