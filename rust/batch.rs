@@ -179,6 +179,7 @@ fn run_batch<T: Coef>(
         poly,
         pieces(poly.num_coefficients(), glen.max(stride)),
         width,
+        1,
     );
     let blocks = poly.blocks();
     let (mut e, g) = reduce_sums(exec, &items, stride, glen, |it, e, g| {
@@ -279,7 +280,7 @@ pub fn hvp_many<T: Coef>(
     })?;
     check_len("directions (n x k)", len, vs.len())?;
     let rows = transpose(vs, n, k, k, n); // k x n: one contiguous row per direction
-    let items = items_for(poly, pieces(poly.num_coefficients(), len), 2 * k + 1);
+    let items = items_for(poly, pieces(poly.num_coefficients(), len), 2 * k + 1, 1);
     let blocks = poly.blocks();
     let (_, w) = reduce_sums(exec, &items, 0, len, |it, _, w| {
         hvp_many_item::<T>(n, &blocks[it.block].coeffs, it, x, &rows, w);

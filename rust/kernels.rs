@@ -20,7 +20,7 @@
 use crate::combinatorics::first_index_offset;
 use crate::error::CoreError;
 use crate::exec::Exec;
-use crate::partition::{plan, reduce, reduce_sums, Plan, WorkItem, CHUNK};
+use crate::partition::{plan, reduce, reduce_sums, Plan, WorkItem, CHUNK, QUANTUM};
 use crate::simd::{
     axpy, dot, dot2_axpy, dot_axpy, dot_axpy2, dots4_axpy, dots8_axpy, leave_one_out,
     leave_two_out, rows4, simd_dispatch, Madd, Prefixes, MAX_PREFIX,
@@ -50,14 +50,26 @@ pub fn pieces(num_coefficients: usize, acc_len: usize) -> usize {
 }
 
 /// The plan of a pass in `pieces` groups, for a kernel doing about `width` multiply-adds per
-/// coefficient (which sets the chunk length, see [`CHUNK`]).
-pub(crate) fn items_for<T: Coef>(poly: &Packed<T>, pieces: usize, width: usize) -> Plan {
+/// coefficient (which sets the chunk length, see [`CHUNK`]) and taking first indices in runs
+/// of `quantum` (1, or [`QUANTUM`] for the grouped degree-3 kernels).
+pub(crate) fn items_for<T: Coef>(
+    poly: &Packed<T>,
+    pieces: usize,
+    width: usize,
+    quantum: usize,
+) -> Plan {
     let blocks: Vec<(usize, usize)> = poly
         .blocks()
         .iter()
         .map(|b| (b.degree, b.coeffs.len()))
         .collect();
-    plan(poly.n(), &blocks, pieces, (CHUNK / width.max(1)).max(1))
+    plan(
+        poly.n(),
+        &blocks,
+        pieces,
+        (CHUNK / width.max(1)).max(1),
+        quantum,
+    )
 }
 
 pub(crate) fn check_len(what: &'static str, expected: usize, got: usize) -> Result<(), CoreError> {
@@ -106,7 +118,7 @@ simd_dispatch!(fn energy_item => energy_item_body(n: usize, a: &[T], it: &WorkIt
 pub fn energy<T: Coef>(exec: &Exec, poly: &Packed<T>, x: &[f64]) -> Result<f64, CoreError> {
     check_len("x", poly.n(), x.len())?;
     let n = poly.n();
-    let items = items_for(poly, pieces(poly.num_coefficients(), 1), 1);
+    let items = items_for(poly, pieces(poly.num_coefficients(), 1), 1, 1);
     let blocks = poly.blocks();
     reduce(
         exec,
@@ -238,7 +250,7 @@ pub fn energy_gradient<T: Coef>(
 ) -> Result<(f64, Vec<f64>), CoreError> {
     let n = poly.n();
     check_len("x", n, x.len())?;
-    let items = items_for(poly, pieces(poly.num_coefficients(), n), 2);
+    let items = items_for(poly, pieces(poly.num_coefficients(), n), 2, QUANTUM);
     let blocks = poly.blocks();
     let (e, g) = reduce_sums(exec, &items, 1, n, |it, e, g| {
         e[0] += gradient_item::<T>(n, &blocks[it.block].coeffs, it, x, g);
@@ -423,7 +435,7 @@ pub fn hessian<T: Coef>(exec: &Exec, poly: &Packed<T>, x: &[f64]) -> Result<Vec<
         what: format!("Hessian of n = {n}"),
     })?;
     // width 1: a chunk spans several first indices, so the degree-3 pass can take them by four
-    let items = items_for(poly, pieces(poly.num_coefficients(), nn), 1);
+    let items = items_for(poly, pieces(poly.num_coefficients(), nn), 1, QUANTUM);
     let blocks = poly.blocks();
     let (_, mut upper) = reduce_sums(exec, &items, 0, nn, |it, _, acc| {
         hessian_item::<T>(n, &blocks[it.block].coeffs, it, x, acc);
@@ -593,7 +605,7 @@ pub fn hvp<T: Coef>(
     let n = poly.n();
     check_len("x", n, x.len())?;
     check_len("v", n, v.len())?;
-    let items = items_for(poly, pieces(poly.num_coefficients(), n), 3);
+    let items = items_for(poly, pieces(poly.num_coefficients(), n), 3, QUANTUM);
     let blocks = poly.blocks();
     let (_, w) = reduce_sums(exec, &items, 0, n, |it, _, w| {
         hvp_item::<T>(n, &blocks[it.block].coeffs, it, x, v, w);

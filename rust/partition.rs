@@ -51,26 +51,33 @@ impl Plan {
     }
 }
 
-/// First indices come in runs of this many: every group and chunk starts at a multiple of it,
-/// so a kernel may take first indices four at a time (the degree-3 Hessian does).
+/// The run length of first indices for kernels that take them four at a time (the degree-3
+/// passes): with `quantum = QUANTUM` every group and chunk starts at a multiple of it.
 pub const QUANTUM: usize = 4;
 
 /// Cuts first indices `lo..hi` of a degree-p block into consecutive ranges of about `target`
-/// coefficients each, each a whole number of [`QUANTUM`] runs (the last one may be shorter).
-fn cut(n: usize, p: usize, lo: usize, hi: usize, target: usize) -> Vec<(usize, usize)> {
-    let target = target.max(1);
+/// coefficients each, each a whole number of runs of `quantum` first indices (the last one
+/// may be shorter).
+fn cut(
+    n: usize,
+    p: usize,
+    (lo, hi): (usize, usize),
+    target: usize,
+    quantum: usize,
+) -> Vec<(usize, usize)> {
+    let (target, quantum) = (target.max(1), quantum.max(1));
     let mut out = Vec::new();
     let mut a = lo;
     while a < hi {
         let b = if p == 1 {
-            (a + target.next_multiple_of(QUANTUM)).min(hi)
+            (a + target.next_multiple_of(quantum)).min(hi)
         } else {
             let (mut b, mut count) = (a, 0usize);
             while b < hi && count < target {
-                for s in b..(b + QUANTUM).min(hi) {
+                for s in b..(b + quantum).min(hi) {
                     count += count_with_first(n, p, s);
                 }
-                b = (b + QUANTUM).min(hi);
+                b = (b + quantum).min(hi);
             }
             b
         };
@@ -81,15 +88,22 @@ fn cut(n: usize, p: usize, lo: usize, hi: usize, target: usize) -> Vec<(usize, u
 }
 
 /// Splits the blocks (given as (degree, length) pairs) into about `pieces` groups of balanced
-/// coefficient counts, each cut into chunks of about `chunk` coefficients.
-pub fn plan(n: usize, blocks: &[(usize, usize)], pieces: usize, chunk: usize) -> Plan {
+/// coefficient counts, each cut into chunks of about `chunk` coefficients; groups and chunks
+/// hold whole runs of `quantum` first indices (1, or [`QUANTUM`] for the grouped kernels).
+pub fn plan(
+    n: usize,
+    blocks: &[(usize, usize)],
+    pieces: usize,
+    chunk: usize,
+    quantum: usize,
+) -> Plan {
     let total: usize = blocks.iter().map(|b| b.1).sum();
     let target = total.div_ceil(pieces.max(1)).max(1);
     let (mut items, mut groups) = (Vec::new(), Vec::new());
     for (bi, &(p, len)) in blocks.iter().enumerate() {
-        for (glo, ghi) in cut(n, p, 0, n, target) {
+        for (glo, ghi) in cut(n, p, (0, n), target, quantum) {
             let first = items.len();
-            for (lo, hi) in cut(n, p, glo, ghi, chunk) {
+            for (lo, hi) in cut(n, p, (glo, ghi), chunk, quantum) {
                 let (start, end) = if p == 1 {
                     (lo, hi)
                 } else {
@@ -251,7 +265,8 @@ mod tests {
                 .map(|&p| (p, num_multisets(n, p).unwrap()))
                 .collect();
             for (pieces, chunk) in [(1usize, CHUNK), (3, 1000), (16, CHUNK), (64, 1 << 12)] {
-                let plan = plan(n, &blocks, pieces, chunk);
+                let quantum = if pieces % 2 == 0 { QUANTUM } else { 1 };
+                let plan = plan(n, &blocks, pieces, chunk, quantum);
                 for (bi, &(p, len)) in blocks.iter().enumerate() {
                     let mine: Vec<_> = plan.items.iter().filter(|i| i.block == bi).collect();
                     assert_eq!(mine.first().unwrap().start, 0);
@@ -262,11 +277,11 @@ mod tests {
                         assert_eq!(w[0].start + w[0].len, w[1].start);
                     }
                     assert_eq!(mine.iter().map(|i| i.len).sum::<usize>(), len);
-                    // chunks start at multiples of QUANTUM and exceed `chunk` only by their
-                    // last run of QUANTUM first indices
+                    // chunks start at multiples of the quantum and exceed `chunk` only by
+                    // their last run of `quantum` first indices
                     for it in &mine {
-                        assert_eq!(it.lo % QUANTUM, 0);
-                        let run = it.hi.saturating_sub(QUANTUM).max(it.lo)..it.hi;
+                        assert_eq!(it.lo % quantum, 0);
+                        let run = it.hi.saturating_sub(quantum).max(it.lo)..it.hi;
                         let last: usize = if p == 1 {
                             run.len()
                         } else {
@@ -292,7 +307,7 @@ mod tests {
     #[test]
     fn reduce_is_deterministic_across_pools() {
         let blocks = [(3usize, num_multisets(200, 3).unwrap())];
-        let plan = plan(200, &blocks, 4, 1 << 16);
+        let plan = plan(200, &blocks, 4, 1 << 16, QUANTUM);
         assert!(
             plan.items.len() > plan.groups.len(),
             "groups hold several chunks"
@@ -316,7 +331,7 @@ mod tests {
     #[test]
     fn a_stop_request_skips_the_remaining_chunks() {
         let blocks = [(3usize, num_multisets(150, 3).unwrap())];
-        let plan = plan(150, &blocks, 1, CHUNK);
+        let plan = plan(150, &blocks, 1, CHUNK, 1);
         let exec = Exec::with_threads(1).unwrap();
         let seen = std::sync::atomic::AtomicUsize::new(0);
         let out = reduce(
