@@ -34,6 +34,46 @@ def test_polish_p2_and_spectrum_count():
         assert spec["top_eigenvalue"] == pytest.approx(expected, rel=1e-8, abs=1e-10)
 
 
+def test_polish_newton_phase_reaches_the_same_point_as_gradients_alone(monkeypatch):
+    # exact criterion: both end at a critical point (|P grad H|/n <= gtol) that is a local
+    # maximum; from the same start they must be the same point (same basin, same maximum).
+    import importlib
+
+    polish_module = importlib.import_module("orthoclimb.algorithms.polish")
+
+    n = 200
+    ham = oc.Hamiltonian.sample(oc.Mixture({3: 1.0}), n, seed=4)
+    start = oc.hessian_ascent(ham, steps=40, seed=0, polish=False).x
+    fast = oc.polish(ham, start)
+    assert fast.info["newton_steps"] >= 1 and fast.info["newton_status"] == "converged"
+    assert fast.info["grad_norm"] <= 1e-7 and fast.info["local_max"]
+    assert np.isnan(fast.path["alpha"][-1])  # the last row is a Newton step
+    monkeypatch.setattr(polish_module, "NEWTON_MAX_N", 0)
+    slow = oc.polish(ham, start)
+    assert slow.info["newton_steps"] == 0 and slow.info["newton_status"] == "not used"
+    assert slow.info["grad_norm"] <= 1e-7
+    assert abs(float(fast.x @ slow.x)) == pytest.approx(1.0, abs=1e-9)
+    assert fast.energy == pytest.approx(slow.energy, rel=1e-12)
+    assert fast.info["iterations"] < slow.info["iterations"]
+
+
+def test_newton_refuses_a_point_that_is_not_near_a_maximum():
+    # exact: at the second eigenvector of M (H = x.M x) the Riemannian Hessian has one positive
+    # eigenvalue 2 (lambda_1 - lambda_2), so the Cholesky test of negative definiteness fails
+    from orthoclimb.algorithms._newton import newton_refine
+
+    n = 60
+    ham = oc.Hamiltonian.sample(oc.Mixture({2: 1.0}), n, seed=3)
+    vals, vecs = scipy.linalg.eigh(_sym_from_p2(ham))
+    near = vecs[:, -2] + 1e-3 * vecs[:, 0]
+    out = newton_refine(ham, near / np.linalg.norm(near), gtol=1e-12)
+    assert out.status == "not_a_maximum" and out.steps == 0
+    top = vecs[:, -1] + 1e-2 * vecs[:, 0]
+    out = newton_refine(ham, top / np.linalg.norm(top), gtol=1e-10)
+    assert out.status == "converged"
+    assert out.energy == pytest.approx(vals[-1] / n, rel=1e-12)
+
+
 def test_polish_validation():
     ham = oc.Hamiltonian.sample(oc.Mixture({3: 1.0}), 10, seed=1)
     with pytest.raises(ValueError, match="shape"):

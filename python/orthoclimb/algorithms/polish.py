@@ -2,7 +2,14 @@
 whether it is a local maximum.
 
 :func:`polish` runs the Riemannian gradient ascent of :mod:`._riemannian` (Barzilai-Borwein
-steps, nonmonotone Armijo test, retraction x -> x/|x|) until |P grad H(x)|/n <= gtol.
+steps, nonmonotone Armijo test, retraction x -> x/|x|) until |P grad H(x)|/n <= 1e-3 (or
+``gtol`` if larger), then damped Riemannian Newton steps (:mod:`._newton`: one Hessian pass and
+a dense Cholesky solve each) until |P grad H(x)|/n <= gtol, when the dense Hessian fits in
+memory (n <= 4000). Gradient ascent alone converges linearly with a rate set by the tangent
+spectrum, which near the marginal maxima that climbers reach extends close to zero: measured
+on the pure 3-spin model at n = 800, 201 gradient iterations (8.6 s) against 25 iterations and
+3 Newton steps (1.8 s) to the same point (|P grad H|/n <= 1e-7). If Newton stops short (the
+point is not near a local maximum, or no damped step helps), gradient ascent continues.
 
 Local-maximum check (:func:`tangent_spectrum`). On the unit sphere the Riemannian Hessian of H at
 x is the tangent restriction of
@@ -29,14 +36,19 @@ import scipy.linalg
 from scipy.sparse.linalg import eigsh
 
 from ..model.hamiltonian import Hamiltonian
+from ..model.memory import available_memory
 from ._checks import check_count, check_ham, check_positive, check_unit_start
 from ._config import base_config
+from ._newton import newton_refine
 from ._riemannian import sphere_ascent
 from .result import Result
 
 __all__ = ["polish", "tangent_spectrum"]
 
 DENSE_EIGVALS_MAX_N = 3000
+NEWTON_MAX_N = 4000
+NEWTON_START_GTOL = 1e-3  # per spin: gradient ascent hands over to Newton below this
+NEWTON_MAX_STEPS = 10
 LANCZOS_TOP = 10
 POSITIVE_THRESHOLD = 1e-9  # per spin
 
@@ -94,9 +106,10 @@ def polish(
     :func:`tangent_spectrum` is run at the end (one Hessian pass and an eigenvalue solve).
 
     The result's ``path`` has columns ``iteration``, ``energy`` (per spin), ``grad_norm`` and
-    ``alpha`` (accepted step); ``info`` has ``grad_norm``, ``status`` ("converged", "stalled" =
-    no progress at rounding level, or "max_iter"), ``iterations``, ``passes``,
-    ``energy_start`` and, with the check, ``n_positive``, ``top_eigenvalue``, ``local_max``.
+    ``alpha`` (accepted step; NaN marks a Newton step); ``info`` has ``grad_norm``, ``status``
+    ("converged", "stalled" = no progress at rounding level, or "max_iter"), ``iterations``
+    (gradient iterations), ``newton_steps``, ``newton_status``, ``passes``, ``energy_start``
+    and, with the check, ``n_positive``, ``top_eigenvalue``, ``local_max``.
     """
     ham = check_ham(ham, "polish")
     x0 = check_unit_start(x, ham.n)
@@ -104,19 +117,55 @@ def polish(
     max_iter = check_count(max_iter, "max_iter", minimum=0)
     start = time.perf_counter()
     e_start = ham.energy(x0) / ham.n
-    trace = sphere_ascent(ham, x0, gtol=gtol, max_iter=max_iter)
+    use_newton = _newton_fits(ham)
+    first_gtol = max(gtol, NEWTON_START_GTOL) if use_newton else gtol
+    trace = sphere_ascent(ham, x0, gtol=first_gtol, max_iter=max_iter)
+    rows = {k: list(v) for k, v in trace.rows.items()}
+    x, energy, gnorm, status = trace.x, trace.energy, trace.grad_norm, trace.status
+    iterations, passes = trace.iterations, trace.passes + 1
+    newton_steps, newton_status = 0, "not used"
+    if use_newton and gnorm > gtol and status != "max_iter":
+        out = newton_refine(ham, x, gtol, max_steps=NEWTON_MAX_STEPS)
+        newton_steps, newton_status, passes = out.steps, out.status, passes + out.passes
+        for k, (e_k, g_k) in enumerate(out.history, start=1):
+            rows["iteration"].append(iterations + k)
+            rows["energy"].append(e_k)
+            rows["grad_norm"].append(g_k)
+            rows["alpha"].append(float("nan"))
+        x, energy, gnorm = out.x, out.energy, out.grad_norm
+        status = "converged" if out.status == "converged" else status
+        if gnorm > gtol and iterations < max_iter:  # Newton stopped short: back to gradients
+            rest = sphere_ascent(ham, x, gtol=gtol, max_iter=max_iter - iterations)
+            for k in ("iteration", "energy", "grad_norm", "alpha"):
+                extra = rest.rows[k][1:]
+                if k == "iteration":
+                    extra = [rows["iteration"][-1] + i for i in extra]
+                rows[k].extend(extra)
+            x, energy, gnorm, status = rest.x, rest.energy, rest.grad_norm, rest.status
+            iterations, passes = iterations + rest.iterations, passes + rest.passes
     info: dict[str, Any] = {
         "energy_start": e_start,
-        "grad_norm": trace.grad_norm,
-        "status": trace.status,
-        "iterations": trace.iterations,
-        "passes": trace.passes + 1,
+        "grad_norm": gnorm,
+        "status": status,
+        "iterations": iterations,
+        "newton_steps": newton_steps,
+        "newton_status": newton_status,
+        "passes": passes,
     }
     if check:
-        info.update(local_max_info(ham, trace.x))
+        info.update(local_max_info(ham, x))
     config = base_config(ham, "polish", gtol=gtol, max_iter=max_iter)
-    path = {k: np.asarray(v) for k, v in trace.rows.items()}
-    return Result(trace.x, trace.energy, path, config, time.perf_counter() - start, info)
+    path = {k: np.asarray(v) for k, v in rows.items()}
+    return Result(x, energy, path, config, time.perf_counter() - start, info)
+
+
+def _newton_fits(ham: Hamiltonian) -> bool:
+    """Whether Newton's dense n x n work (the kernel's Hessian accumulators, the Hessian and
+    its Cholesky factor) fits in half the available memory, for n <= NEWTON_MAX_N."""
+    if ham.n > NEWTON_MAX_N or ham.n < 2:
+        return False
+    need = ham.hessian_workspace_nbytes + 3 * ham.n * ham.n * 8
+    return need <= available_memory() // 2
 
 
 def local_max_info(ham: Hamiltonian, x: np.ndarray) -> dict[str, Any]:
