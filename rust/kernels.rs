@@ -17,7 +17,7 @@
 //! positional product rule counts them (d/dx x^2 = 2x). These satisfy the Euler identities
 //! x . grad H_p = p H_p and Hess H_p x = (p - 1) grad H_p, which the tests check.
 
-use crate::combinatorics::first_index_offset;
+use crate::combinatorics::{first_index_offset, num_multisets};
 use crate::error::CoreError;
 use crate::exec::Exec;
 use crate::partition::{plan, reduce, reduce_sums, Plan, WorkItem, CHUNK, QUANTUM};
@@ -144,6 +144,9 @@ fn gradient_item_body<M: Madd, T: Coef>(
     if it.degree == 1 {
         return dot_axpy::<M, T>(coeffs, &x[it.lo..it.hi], &mut g[it.lo..it.hi], 1.0);
     }
+    if it.degree == 4 {
+        return gradient4_item_body::<M, T>(n, coeffs, it, x, g);
+    }
     if it.degree == 3 {
         return gradient3_item_body::<M, T>(n, coeffs, it, x, g);
     }
@@ -234,6 +237,99 @@ fn gradient3_item_body<M: Madd, T: Coef>(
         for j in i..n {
             e += gradient3_prefix::<M, T>(&coeffs[p..p + n - j], (i, j), x, g);
             p += n - j;
+        }
+    }
+    e
+}
+
+/// Start, within the item's coefficients, of the degree-4 segment of prefix (i, k, j),
+/// i <= k <= j: offset(i) + #{(k', j', t): i <= k' < k} + #{(j', t): k <= j' < j}, where the
+/// multisets of size m over values >= s number C(n - s + m - 1, m).
+#[inline(always)]
+fn segment4(n: usize, base: usize, i: usize, k: usize, j: usize) -> usize {
+    let count = |s: usize, m: usize| num_multisets(n - s, m).expect("within the block");
+    first_index_offset(n, 4, i) - base + (count(i, 3) - count(k, 3)) + (count(k, 2) - count(j, 2))
+}
+
+/// Gradient of one degree-4 prefix (i, k, j) the plain way; returns its energy term.
+#[inline(always)]
+fn gradient4_prefix<M: Madd, T: Coef>(
+    seg: &[T],
+    (i, k, j): (usize, usize, usize),
+    x: &[f64],
+    g: &mut [f64],
+) -> f64 {
+    let prod = x[i] * x[k] * x[j];
+    let s = dot_axpy::<M, T>(seg, &x[j..], &mut g[j..], prod);
+    g[i] += (x[k] * x[j]) * s;
+    g[k] += (x[i] * x[j]) * s;
+    g[j] += (x[i] * x[k]) * s;
+    prod * s
+}
+
+/// The degree-4 gradient pass of one item, second indices four at a time: for a first index
+/// i, second indices b..b+4 and a third index j >= b + 4 the four segments of (i, b + m, j)
+/// share g_t, t >= j, and the set-up of the prefix, which [`dots4_axpy`] and one set of
+/// scalar updates do once for the four (the segments are only ~n/4 long at the sizes where
+/// degree 4 fits in memory, so the set-up is most of the cost of the plain walk).
+#[inline(always)]
+fn gradient4_item_body<M: Madd, T: Coef>(
+    n: usize,
+    coeffs: &[T],
+    it: &WorkItem,
+    x: &[f64],
+    g: &mut [f64],
+) -> f64 {
+    let mut e = 0.0;
+    for i in it.lo..it.hi {
+        let xi = x[i];
+        let mut b = i;
+        while b + 4 <= n {
+            for k in b..b + 4 {
+                let mut p = segment4(n, it.start, i, k, k);
+                for j in k..b + 4 {
+                    e += gradient4_prefix::<M, T>(&coeffs[p..p + n - j], (i, k, j), x, g);
+                    p += n - j;
+                }
+            }
+            let xk = [x[b], x[b + 1], x[b + 2], x[b + 3]];
+            let mut pos = [0usize; 4];
+            for (m, p) in pos.iter_mut().enumerate() {
+                *p = segment4(n, it.start, i, b + m, b + 4);
+            }
+            for j in b + 4..n {
+                let len = n - j;
+                let xj = x[j];
+                let xij = xi * xj;
+                let w = [xij * xk[0], xij * xk[1], xij * xk[2], xij * xk[3]];
+                let s = dots4_axpy::<M, T>(
+                    [
+                        &coeffs[pos[0]..pos[0] + len],
+                        &coeffs[pos[1]..pos[1] + len],
+                        &coeffs[pos[2]..pos[2] + len],
+                        &coeffs[pos[3]..pos[3] + len],
+                    ],
+                    &x[j..],
+                    &mut g[j..],
+                    w,
+                );
+                let ks = (xk[0] * s[0] + xk[1] * s[1]) + (xk[2] * s[2] + xk[3] * s[3]);
+                e += xij * ks;
+                g[i] += xj * ks;
+                g[j] += xi * ks;
+                for m in 0..4 {
+                    g[b + m] += xij * s[m];
+                    pos[m] += len;
+                }
+            }
+            b += 4;
+        }
+        for k in b..n {
+            let mut p = segment4(n, it.start, i, k, k);
+            for j in k..n {
+                e += gradient4_prefix::<M, T>(&coeffs[p..p + n - j], (i, k, j), x, g);
+                p += n - j;
+            }
         }
     }
     e
@@ -481,6 +577,9 @@ fn hvp_item_body<M: Madd, T: Coef>(
     if it.degree == 3 {
         return hvp3_item_body::<M, T>(n, coeffs, it, x, v, w);
     }
+    if it.degree == 4 {
+        return hvp4_item_body::<M, T>(n, coeffs, it, x, v, w);
+    }
     let mut walk = Prefixes::new(n, it.degree, it.lo, it.hi);
     let (mut xp, mut vp, mut q) = ([0f64; MAX_PREFIX], [0f64; MAX_PREFIX], [0f64; MAX_PREFIX]);
     let mut r = [[0f64; MAX_PREFIX]; MAX_PREFIX];
@@ -588,6 +687,93 @@ fn hvp3_item_body<M: Madd, T: Coef>(
         for j in i..n {
             hvp3_prefix::<M, T>(&coeffs[p..p + n - j], (i, j), x, v, w);
             p += n - j;
+        }
+    }
+}
+
+/// Hessian-vector product of one degree-4 prefix (i, k, j) the plain way: w_t += D a_t with
+/// D = v_i x_k x_j + v_k x_i x_j + v_j x_i x_k, and for each prefix position the product rule
+/// (its leave-one-out product times Sv plus the derivative of that product along v times Sx).
+#[inline(always)]
+fn hvp4_prefix<M: Madd, T: Coef>(
+    seg: &[T],
+    (i, k, j): (usize, usize, usize),
+    x: &[f64],
+    v: &[f64],
+    w: &mut [f64],
+) {
+    let (xi, xk, xj, vi, vk, vj) = (x[i], x[k], x[j], v[i], v[k], v[j]);
+    let d = vi * (xk * xj) + vk * (xi * xj) + vj * (xi * xk);
+    let (sx, sv) = dot2_axpy::<M, T>(seg, &x[j..], &v[j..], &mut w[j..], d);
+    w[i] += (xk * xj) * sv + (vk * xj + vj * xk) * sx;
+    w[k] += (xi * xj) * sv + (vi * xj + vj * xi) * sx;
+    w[j] += (xi * xk) * sv + (vi * xk + vk * xi) * sx;
+}
+
+/// The degree-4 HVP pass of one item, second indices four at a time as in
+/// [`gradient4_item_body`]: the four segments of (i, b + m, j) share w_t, x_t and v_t, t >= j.
+#[inline(always)]
+fn hvp4_item_body<M: Madd, T: Coef>(
+    n: usize,
+    coeffs: &[T],
+    it: &WorkItem,
+    x: &[f64],
+    v: &[f64],
+    w: &mut [f64],
+) {
+    for i in it.lo..it.hi {
+        let (xi, vi) = (x[i], v[i]);
+        let mut b = i;
+        while b + 4 <= n {
+            for k in b..b + 4 {
+                let mut p = segment4(n, it.start, i, k, k);
+                for j in k..b + 4 {
+                    hvp4_prefix::<M, T>(&coeffs[p..p + n - j], (i, k, j), x, v, w);
+                    p += n - j;
+                }
+            }
+            let (xk, vk) = (&x[b..b + 4], &v[b..b + 4]);
+            let mut pos = [0usize; 4];
+            for (m, p) in pos.iter_mut().enumerate() {
+                *p = segment4(n, it.start, i, b + m, b + 4);
+            }
+            for j in b + 4..n {
+                let len = n - j;
+                let (xj, vj) = (x[j], v[j]);
+                let mut d = [0f64; 4];
+                for m in 0..4 {
+                    d[m] = vi * (xk[m] * xj) + vk[m] * (xi * xj) + vj * (xi * xk[m]);
+                }
+                let (sx, sv) = dots8_axpy::<M, T>(
+                    [
+                        &coeffs[pos[0]..pos[0] + len],
+                        &coeffs[pos[1]..pos[1] + len],
+                        &coeffs[pos[2]..pos[2] + len],
+                        &coeffs[pos[3]..pos[3] + len],
+                    ],
+                    &x[j..],
+                    &v[j..],
+                    &mut w[j..],
+                    d,
+                );
+                let (mut wi, mut wj) = ([0f64; 4], [0f64; 4]);
+                for m in 0..4 {
+                    wi[m] = (xk[m] * xj) * sv[m] + (vk[m] * xj + vj * xk[m]) * sx[m];
+                    w[b + m] += (xi * xj) * sv[m] + (vi * xj + vj * xi) * sx[m];
+                    wj[m] = (xi * xk[m]) * sv[m] + (vi * xk[m] + vk[m] * xi) * sx[m];
+                    pos[m] += len;
+                }
+                w[i] += (wi[0] + wi[1]) + (wi[2] + wi[3]);
+                w[j] += (wj[0] + wj[1]) + (wj[2] + wj[3]);
+            }
+            b += 4;
+        }
+        for k in b..n {
+            let mut p = segment4(n, it.start, i, k, k);
+            for j in k..n {
+                hvp4_prefix::<M, T>(&coeffs[p..p + n - j], (i, k, j), x, v, w);
+                p += n - j;
+            }
         }
     }
 }
@@ -766,17 +952,23 @@ pub(crate) mod tests {
         }
     }
 
-    /// The degree-3 passes take first indices by four; sizes around multiples of 4, items
-    /// that hold several chunks (n = 150) and mixtures with other degrees exercise the
-    /// blocked part, the head prefixes and the leftover first indices against the naive sum.
+    /// The degree-3 passes take first indices by four, the degree-4 gradient and HVP second
+    /// indices;
+    /// sizes around multiples of 4, items that hold several chunks (n = 150) and mixtures with
+    /// other degrees exercise the grouped part, the head prefixes and the leftovers against
+    /// the naive sum.
     #[test]
-    fn degree_three_passes_match_naive_evaluation() {
+    fn grouped_passes_match_naive_evaluation() {
         for (n, terms) in [
             (4usize, vec![(3usize, 1.0)]),
             (7, vec![(3, 1.0)]),
             (8, vec![(1, 0.5), (3, 1.0)]),
             (13, vec![(2, 0.7), (3, 1.0), (4, 0.3)]),
             (150, vec![(3, 1.0)]),
+            // degree 4 takes second indices by four (gradient, HVP)
+            (6, vec![(4, 1.0)]),
+            (9, vec![(2, 0.5), (4, 1.0)]),
+            (40, vec![(4, 1.0)]),
         ] {
             let poly =
                 Packed::<f64>::sample(&pool(2), n, &terms, &Disorder::new(n as u64)).unwrap();
