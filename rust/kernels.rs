@@ -23,7 +23,7 @@ use crate::exec::Exec;
 use crate::partition::{plan, reduce, reduce_sums, Plan, WorkItem, CHUNK, QUANTUM};
 use crate::simd::{
     axpy, dot, dot2_axpy, dot_axpy, dot_axpy2, dots4_axpy, dots8_axpy, leave_one_out,
-    leave_two_out, rows4, simd_dispatch, Madd, Prefixes, MAX_PREFIX,
+    leave_two_out, rows4, rows4_shared2, simd_dispatch, Madd, Prefixes, MAX_PREFIX,
 };
 use crate::storage::{Coef, Packed};
 
@@ -357,6 +357,79 @@ pub fn energy_gradient<T: Coef>(
 // ---------------------------------------------------------------------------------------
 // Hessian
 
+/// Products of a prefix used by the plain Hessian walk (kept across prefixes so that the
+/// 8 x 8 table is not zeroed for each).
+struct PrefixProducts {
+    xp: [f64; MAX_PREFIX],
+    q: [f64; MAX_PREFIX],
+    r: [[f64; MAX_PREFIX]; MAX_PREFIX],
+}
+
+impl PrefixProducts {
+    fn new() -> Self {
+        PrefixProducts {
+            xp: [0.0; MAX_PREFIX],
+            q: [0.0; MAX_PREFIX],
+            r: [[0.0; MAX_PREFIX]; MAX_PREFIX],
+        }
+    }
+}
+
+/// The Hessian contribution of one prefix `pre` (sorted, last index t0) with coefficient
+/// segment `seg` over t = t0..n, the plain way (see the module doc).
+#[inline(always)]
+fn hessian_prefix<M: Madd, T: Coef>(
+    n: usize,
+    seg: &[T],
+    (t0, pre): (usize, &[usize]),
+    x: &[f64],
+    acc: &mut [f64],
+    pp: &mut PrefixProducts,
+) {
+    let l = pre.len();
+    gather(x, pre, &mut pp.xp);
+    leave_one_out(&pp.xp[..l], &mut pp.q);
+    let q = &pp.q;
+    // Distinct prefix indices (equal ones are adjacent) and their summed row weights.
+    let (mut rows, mut weights, mut d) = ([0usize; MAX_PREFIX], [0f64; MAX_PREFIX], 0);
+    for j in 0..l {
+        if d > 0 && rows[d - 1] == pre[j] {
+            weights[d - 1] += q[j];
+        } else {
+            rows[d] = pre[j];
+            weights[d] = q[j];
+            d += 1;
+        }
+    }
+    // Row updates A[row, t0..] += weight * a, fused with S = sum_t a_t x_t when needed.
+    let first = 2.min(d);
+    if l >= 2 {
+        let s = if d >= 2 {
+            let (head, tail) = acc.split_at_mut(rows[1] * n);
+            dot_axpy2::<M, T>(
+                seg,
+                &x[t0..],
+                (&mut head[rows[0] * n + t0..rows[0] * n + n], weights[0]),
+                (&mut tail[t0..n], weights[1]),
+            )
+        } else {
+            let row = &mut acc[rows[0] * n + t0..rows[0] * n + n];
+            dot_axpy::<M, T>(seg, &x[t0..], row, weights[0])
+        };
+        leave_two_out(&pp.xp[..l], &mut pp.r);
+        for j in 0..l {
+            for k in j + 1..l {
+                acc[pre[j] * n + pre[k]] += pp.r[j][k] * s;
+            }
+        }
+    } else {
+        axpy::<M, T>(&mut acc[rows[0] * n + t0..rows[0] * n + n], weights[0], seg);
+    }
+    for e in first..d {
+        axpy::<M, T>(&mut acc[rows[e] * n + t0..rows[e] * n + n], weights[e], seg);
+    }
+}
+
 #[inline(always)]
 fn hessian_item_body<M: Madd, T: Coef>(
     n: usize,
@@ -372,52 +445,117 @@ fn hessian_item_body<M: Madd, T: Coef>(
         return hessian3_item_body::<M, T>(n, a, it, x, acc);
     }
     let coeffs = &a[it.start..it.start + it.len];
+    if it.degree == 4 {
+        return hessian4_item_body::<M, T>(n, coeffs, it, x, acc);
+    }
     let mut walk = Prefixes::new(n, it.degree, it.lo, it.hi);
-    let (mut xp, mut q) = ([0f64; MAX_PREFIX], [0f64; MAX_PREFIX]);
-    let mut r = [[0f64; MAX_PREFIX]; MAX_PREFIX];
+    let mut pp = PrefixProducts::new();
     while let Some((t0, pos)) = walk.next_prefix() {
-        let pre = walk.prefix();
-        let l = pre.len();
         let seg = &coeffs[pos..pos + n - t0];
-        gather(x, pre, &mut xp);
-        leave_one_out(&xp[..l], &mut q);
-        // Distinct prefix indices (equal ones are adjacent) and their summed row weights.
-        let (mut rows, mut weights, mut d) = ([0usize; MAX_PREFIX], [0f64; MAX_PREFIX], 0);
-        for j in 0..l {
-            if d > 0 && rows[d - 1] == pre[j] {
-                weights[d - 1] += q[j];
-            } else {
-                rows[d] = pre[j];
-                weights[d] = q[j];
-                d += 1;
+        hessian_prefix::<M, T>(n, seg, (t0, walk.prefix()), x, acc, &mut pp);
+    }
+}
+
+/// The degree-4 Hessian pass of one item, second indices four at a time: for a first index
+/// i, second indices k = b + m (m < 4, b > i) and a third index j >= b + 4, the four segments
+/// of (i, k, j) update rows k (weight x_i x_j each) and share rows i and j (weights x_j x_k
+/// and x_i x_k), which [`rows4_shared2`] reads and writes once for the four. Prefixes with
+/// k = i, with j < b + 4, and leftover second indices go the plain way.
+#[inline(always)]
+fn hessian4_item_body<M: Madd, T: Coef>(
+    n: usize,
+    coeffs: &[T],
+    it: &WorkItem,
+    x: &[f64],
+    acc: &mut [f64],
+) {
+    let mut pp = PrefixProducts::new();
+    let plain = Plain4 {
+        n,
+        coeffs,
+        base: it.start,
+        x,
+    };
+    for i in it.lo..it.hi {
+        plain.run::<M>(i, i, i..n, acc, &mut pp);
+        let xi = x[i];
+        let mut b = i + 1;
+        while b + 4 <= n {
+            for k in b..b + 4 {
+                plain.run::<M>(i, k, k..b + 4, acc, &mut pp);
             }
-        }
-        // Row updates A[row, t0..] += weight * a, fused with S = sum_t a_t x_t when needed.
-        let first = 2.min(d);
-        if l >= 2 {
-            let s = if d >= 2 {
-                let (head, tail) = acc.split_at_mut(rows[1] * n);
-                dot_axpy2::<M, T>(
-                    seg,
-                    &x[t0..],
-                    (&mut head[rows[0] * n + t0..rows[0] * n + n], weights[0]),
-                    (&mut tail[t0..n], weights[1]),
-                )
-            } else {
-                let row = &mut acc[rows[0] * n + t0..rows[0] * n + n];
-                dot_axpy::<M, T>(seg, &x[t0..], row, weights[0])
-            };
-            leave_two_out(&xp[..l], &mut r);
-            for j in 0..l {
-                for k in j + 1..l {
-                    acc[pre[j] * n + pre[k]] += r[j][k] * s;
+            let xk = [x[b], x[b + 1], x[b + 2], x[b + 3]];
+            let mut pos = [0usize; 4];
+            for (m, p) in pos.iter_mut().enumerate() {
+                *p = segment4(n, it.start, i, b + m, b + 4);
+            }
+            for j in b + 4..n {
+                let len = n - j;
+                let xj = x[j];
+                let (head, rest) = acc.split_at_mut(b * n);
+                let (block, tail) = rest.split_at_mut(4 * n);
+                let (r0, more) = block.split_at_mut(n);
+                let (r1, more) = more.split_at_mut(n);
+                let (r2, r3) = more.split_at_mut(n);
+                let row_j = (j - b - 4) * n;
+                let s = rows4_shared2::<M, T>(
+                    [
+                        &coeffs[pos[0]..pos[0] + len],
+                        &coeffs[pos[1]..pos[1] + len],
+                        &coeffs[pos[2]..pos[2] + len],
+                        &coeffs[pos[3]..pos[3] + len],
+                    ],
+                    &x[j..],
+                    [&mut r0[j..], &mut r1[j..], &mut r2[j..], &mut r3[j..]],
+                    xi * xj,
+                    [
+                        (&mut head[i * n + j..i * n + n], xj),
+                        (&mut tail[row_j + j..row_j + n], xi),
+                    ],
+                    xk,
+                );
+                let mut to_ij = [0f64; 4];
+                for m in 0..4 {
+                    acc[i * n + b + m] += xj * s[m];
+                    acc[(b + m) * n + j] += xi * s[m];
+                    to_ij[m] = xk[m] * s[m];
+                    pos[m] += len;
                 }
+                acc[i * n + j] += (to_ij[0] + to_ij[1]) + (to_ij[2] + to_ij[3]);
             }
-        } else {
-            axpy::<M, T>(&mut acc[rows[0] * n + t0..rows[0] * n + n], weights[0], seg);
+            b += 4;
         }
-        for e in first..d {
-            axpy::<M, T>(&mut acc[rows[e] * n + t0..rows[e] * n + n], weights[e], seg);
+        for k in b..n {
+            plain.run::<M>(i, k, k..n, acc, &mut pp);
+        }
+    }
+}
+
+/// The plain Hessian walk over the degree-4 prefixes (i, k, j), j in a range (a struct rather
+/// than a closure: closures may be compiled without the kernels' target features).
+struct Plain4<'a, T> {
+    n: usize,
+    coeffs: &'a [T],
+    base: usize,
+    x: &'a [f64],
+}
+
+impl<T: Coef> Plain4<'_, T> {
+    #[inline(always)]
+    fn run<M: Madd>(
+        &self,
+        i: usize,
+        k: usize,
+        js: std::ops::Range<usize>,
+        acc: &mut [f64],
+        pp: &mut PrefixProducts,
+    ) {
+        let n = self.n;
+        let mut p = segment4(n, self.base, i, k, js.start);
+        for j in js {
+            let seg = &self.coeffs[p..p + n - j];
+            hessian_prefix::<M, T>(n, seg, (j, &[i, k, j]), self.x, acc, pp);
+            p += n - j;
         }
     }
 }

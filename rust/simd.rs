@@ -30,6 +30,15 @@ pub trait Madd {
         z: &mut [f64],
         w: [f64; 4],
     ) -> ([f64; 4], [f64; 4]);
+    /// Four segments at once (see [`rows4_shared2`]).
+    fn rows4_shared2<T: Coef>(
+        a: [&[T]; 4],
+        x: &[f64],
+        rows: [&mut [f64]; 4],
+        w: f64,
+        shared: [(&mut [f64], f64); 2],
+        xi: [f64; 4],
+    ) -> [f64; 4];
     /// Four segments at once (see [`rows4`]).
     fn rows4<T: Coef>(
         a: [&[T]; 4],
@@ -96,6 +105,17 @@ impl Madd for Fused {
         crate::avx2::dots8_axpy(a, x, v, z, w)
     }
     #[inline(always)]
+    fn rows4_shared2<T: Coef>(
+        a: [&[T]; 4],
+        x: &[f64],
+        rows: [&mut [f64]; 4],
+        w: f64,
+        shared: [(&mut [f64], f64); 2],
+        xi: [f64; 4],
+    ) -> [f64; 4] {
+        crate::avx2::rows4_shared2(a, x, rows, w, shared, xi)
+    }
+    #[inline(always)]
     fn rows4<T: Coef>(
         a: [&[T]; 4],
         x: &[f64],
@@ -157,6 +177,17 @@ impl Madd for Plain {
         w: [f64; 4],
     ) -> ([f64; 4], [f64; 4]) {
         portable_dots8_axpy::<Plain, T>(a, x, Some(v), z, w)
+    }
+    #[inline(always)]
+    fn rows4_shared2<T: Coef>(
+        a: [&[T]; 4],
+        x: &[f64],
+        rows: [&mut [f64]; 4],
+        w: f64,
+        shared: [(&mut [f64], f64); 2],
+        xi: [f64; 4],
+    ) -> [f64; 4] {
+        portable_rows4_shared2::<Plain, T>(a, x, rows, w, shared, xi)
     }
     #[inline(always)]
     fn rows4<T: Coef>(
@@ -300,6 +331,21 @@ pub fn dots8_axpy<M: Madd, T: Coef>(
     w: [f64; 4],
 ) -> ([f64; 4], [f64; 4]) {
     M::dots8_axpy(a, x, v, z, w)
+}
+
+/// [`rows4`] with two shared rows: with u_t = (xi_0 a_0,t + xi_1 a_1,t) + (xi_2 a_2,t +
+/// xi_3 a_3,t), does z1_t += alpha u_t and z2_t += beta u_t for `shared` = [(z1, alpha),
+/// (z2, beta)], besides rows_j,t += w a_j,t and the four dots with x.
+#[inline(always)]
+pub fn rows4_shared2<M: Madd, T: Coef>(
+    a: [&[T]; 4],
+    x: &[f64],
+    rows: [&mut [f64]; 4],
+    w: f64,
+    shared: [(&mut [f64], f64); 2],
+    xi: [f64; 4],
+) -> [f64; 4] {
+    M::rows4_shared2(a, x, rows, w, shared, xi)
 }
 
 /// True when the processor has AVX2 and FMA (checked once, then cached by std).
@@ -648,6 +694,57 @@ fn portable_dots8_axpy<M: Madd, T: Coef>(
     (sx, sv)
 }
 
+/// Portable [`rows4_shared2`]: per lane, the operations of the AVX2 loop in its order.
+#[inline(always)]
+#[allow(clippy::needless_range_loop)] // l and j index lanes and segments of several arrays at once
+fn portable_rows4_shared2<M: Madd, T: Coef>(
+    a: [&[T]; 4],
+    x: &[f64],
+    rows: [&mut [f64]; 4],
+    w: f64,
+    shared: [(&mut [f64], f64); 2],
+    xi: [f64; 4],
+) -> [f64; 4] {
+    let [(z1, alpha), (z2, beta)] = shared;
+    let len = z1.len();
+    let (z1, z2) = (&mut z1[..len], &mut z2[..len]);
+    let [r0, r1, r2, r3] = rows;
+    let rows = [
+        &mut r0[..len],
+        &mut r1[..len],
+        &mut r2[..len],
+        &mut r3[..len],
+    ];
+    let mut acc = [[0f64; SHORT]; 4];
+    let body = len / SHORT * SHORT;
+    let mut tail = [0f64; 4];
+    for i in 0..len {
+        let l = i % SHORT;
+        let c = [
+            a[0][i].to_f64(),
+            a[1][i].to_f64(),
+            a[2][i].to_f64(),
+            a[3][i].to_f64(),
+        ];
+        for j in 0..4 {
+            if i < body {
+                acc[j][l] = M::madd(c[j], x[i], acc[j][l]);
+            } else {
+                tail[j] = M::madd(c[j], x[i], tail[j]);
+            }
+            rows[j][i] = M::madd(w, c[j], rows[j][i]);
+        }
+        let u = M::madd(xi[1], c[1], xi[0] * c[0]) + M::madd(xi[3], c[3], xi[2] * c[2]);
+        z1[i] = M::madd(alpha, u, z1[i]);
+        z2[i] = M::madd(beta, u, z2[i]);
+    }
+    let mut out = [0f64; 4];
+    for j in 0..4 {
+        out[j] = ((acc[j][0] + acc[j][2]) + (acc[j][1] + acc[j][3])) + tail[j];
+    }
+    out
+}
+
 /// Portable [`rows4`]: per lane, the same operations in the same order as the AVX2 loop
 /// (dot sums in 4 lanes combined as (l0 + l2) + (l1 + l3); the scalar tail added last).
 #[inline(always)]
@@ -787,6 +884,55 @@ mod tests {
                 for t in 0..len {
                     let want = 0.5 + (0..4).map(|k| w[k] * a[k][t].to_f64()).sum::<f64>();
                     assert!(close(z4[t], want) && close(z8[t], want), "z[{t}] len {len}");
+                }
+            }
+        }
+        check::<f64, Plain>(|v| v);
+        check::<f32, Plain>(|v| v as f32);
+        if has_avx2_fma() {
+            check::<f64, Fused>(|v| v);
+            check::<f32, Fused>(|v| v as f32);
+        }
+    }
+
+    /// rows4_shared2 on both paths against its definition, every length class.
+    #[test]
+    fn rows4_shared2_matches_its_definition() {
+        fn check<T: Coef, M: Madd>(conv: fn(f64) -> T) {
+            for len in 0..23usize {
+                let a: Vec<Vec<T>> = (0..4)
+                    .map(|k| {
+                        (0..len)
+                            .map(|i| conv(((i + 3 * k) as f64 * 0.53).sin()))
+                            .collect()
+                    })
+                    .collect();
+                let x: Vec<f64> = (0..len).map(|i| (i as f64 * 0.29).cos()).collect();
+                let xi = [0.25, -1.5, 1.0, 0.5];
+                let mut rows: Vec<Vec<f64>> = (0..4).map(|k| vec![k as f64; len]).collect();
+                let (mut z1, mut z2) = (vec![1.0; len], vec![-1.0; len]);
+                let [r0, r1, r2, r3] = &mut rows[..] else {
+                    unreachable!()
+                };
+                let s = rows4_shared2::<M, T>(
+                    [&a[0], &a[1], &a[2], &a[3]],
+                    &x,
+                    [r0, r1, r2, r3],
+                    0.75,
+                    [(&mut z1, 2.0), (&mut z2, -0.5)],
+                    xi,
+                );
+                let close = |p: f64, q: f64| (p - q).abs() <= 1e-13 * (1.0 + q.abs());
+                for k in 0..4 {
+                    let want: f64 = a[k].iter().zip(&x).map(|(c, xv)| c.to_f64() * xv).sum();
+                    assert!(close(s[k], want), "s[{k}] len {len}");
+                    for t in 0..len {
+                        assert!(close(rows[k][t], k as f64 + 0.75 * a[k][t].to_f64()));
+                    }
+                }
+                for t in 0..len {
+                    let u: f64 = (0..4).map(|k| xi[k] * a[k][t].to_f64()).sum();
+                    assert!(close(z1[t], 1.0 + 2.0 * u) && close(z2[t], -1.0 - 0.5 * u));
                 }
             }
         }
