@@ -328,9 +328,23 @@ pub fn rows4_shared2<T: Coef>(
     shared: [(&mut [f64], f64); 2],
     xi: [f64; 4],
 ) -> [f64; 4] {
+    rows4_shared::<T, true>(a, x, rows, w, shared, xi)
+}
+
+/// The loop of [`rows4_shared2`]; with `TWO = false` the second shared row is not touched.
+#[inline(always)]
+fn rows4_shared<T: Coef, const TWO: bool>(
+    a: [&[T]; 4],
+    x: &[f64],
+    rows: [&mut [f64]; 4],
+    w: f64,
+    shared: [(&mut [f64], f64); 2],
+    xi: [f64; 4],
+) -> [f64; 4] {
     let [(z1, alpha), (z2, beta)] = shared;
     let len = z1.len();
-    let (x, z2) = (&x[..len], &mut z2[..len]);
+    let x = &x[..len];
+    let z2 = if TWO { &mut z2[..len] } else { z2 };
     let a = [&a[0][..len], &a[1][..len], &a[2][..len], &a[3][..len]];
     let [r0, r1, r2, r3] = rows;
     let rows = [
@@ -339,8 +353,8 @@ pub fn rows4_shared2<T: Coef>(
         &mut r2[..len],
         &mut r3[..len],
     ];
-    // SAFETY: offsets stay under `len`, the length of every slice; the six written slices are
-    // distinct `&mut` borrows, so they do not overlap.
+    // SAFETY: offsets stay under `len`, the length of every slice written or read (z2 only
+    // when TWO, after it was cut to `len`); the written slices are distinct `&mut` borrows.
     unsafe {
         let pa = [a[0].as_ptr(), a[1].as_ptr(), a[2].as_ptr(), a[3].as_ptr()];
         let py = [
@@ -380,10 +394,12 @@ pub fn rows4_shared2<T: Coef>(
                 p1.add(i),
                 _mm256_fmadd_pd(av, u, _mm256_loadu_pd(p1.add(i))),
             );
-            _mm256_storeu_pd(
-                p2.add(i),
-                _mm256_fmadd_pd(bv, u, _mm256_loadu_pd(p2.add(i))),
-            );
+            if TWO {
+                _mm256_storeu_pd(
+                    p2.add(i),
+                    _mm256_fmadd_pd(bv, u, _mm256_loadu_pd(p2.add(i))),
+                );
+            }
             i += 4;
         }
         let mut out = [hsum(acc[0]), hsum(acc[1]), hsum(acc[2]), hsum(acc[3])];
@@ -401,7 +417,9 @@ pub fn rows4_shared2<T: Coef>(
             }
             let u = xi[1].mul_add(c[1], xi[0] * c[0]) + xi[3].mul_add(c[3], xi[2] * c[2]);
             *p1.add(i) = alpha.mul_add(u, *p1.add(i));
-            *p2.add(i) = beta.mul_add(u, *p2.add(i));
+            if TWO {
+                *p2.add(i) = beta.mul_add(u, *p2.add(i));
+            }
             i += 1;
         }
         for j in 0..4 {
@@ -412,7 +430,8 @@ pub fn rows4_shared2<T: Coef>(
 }
 
 /// Four segments at once: s_j = sum_t a_j,t x_t, rows_j,t += w a_j,t,
-/// z_t += (xi_0 a_0,t + xi_1 a_1,t) + (xi_2 a_2,t + xi_3 a_3,t).
+/// z_t += (xi_0 a_0,t + xi_1 a_1,t) + (xi_2 a_2,t + xi_3 a_3,t): [`rows4_shared2`] with one
+/// shared row of weight 1 (a fused multiply-add by 1 adds exactly, so the sums are the same).
 #[inline(always)]
 pub fn rows4<T: Coef>(
     a: [&[T]; 4],
@@ -422,74 +441,7 @@ pub fn rows4<T: Coef>(
     z: &mut [f64],
     xi: [f64; 4],
 ) -> [f64; 4] {
-    let len = z.len();
-    let x = &x[..len];
-    let a = [&a[0][..len], &a[1][..len], &a[2][..len], &a[3][..len]];
-    let [r0, r1, r2, r3] = rows;
-    let rows = [
-        &mut r0[..len],
-        &mut r1[..len],
-        &mut r2[..len],
-        &mut r3[..len],
-    ];
-    // SAFETY: offsets stay under `len`, the length of every slice; the five written slices
-    // are distinct `&mut` borrows, so they do not overlap.
-    unsafe {
-        let pa = [a[0].as_ptr(), a[1].as_ptr(), a[2].as_ptr(), a[3].as_ptr()];
-        let py = [
-            rows[0].as_mut_ptr(),
-            rows[1].as_mut_ptr(),
-            rows[2].as_mut_ptr(),
-            rows[3].as_mut_ptr(),
-        ];
-        let (px, pz) = (x.as_ptr(), z.as_mut_ptr());
-        let wv = _mm256_set1_pd(w);
-        let xv = [
-            _mm256_set1_pd(xi[0]),
-            _mm256_set1_pd(xi[1]),
-            _mm256_set1_pd(xi[2]),
-            _mm256_set1_pd(xi[3]),
-        ];
-        let mut acc = [_mm256_setzero_pd(); 4];
-        let mut i = 0;
-        while i + 4 <= len {
-            let xt = _mm256_loadu_pd(px.add(i));
-            let mut c = [_mm256_setzero_pd(); 4];
-            for j in 0..4 {
-                c[j] = T::load4(pa[j].add(i));
-                acc[j] = _mm256_fmadd_pd(c[j], xt, acc[j]);
-                let y = _mm256_loadu_pd(py[j].add(i));
-                _mm256_storeu_pd(py[j].add(i), _mm256_fmadd_pd(wv, c[j], y));
-            }
-            let p01 = _mm256_fmadd_pd(xv[1], c[1], _mm256_mul_pd(xv[0], c[0]));
-            let p23 = _mm256_fmadd_pd(xv[3], c[3], _mm256_mul_pd(xv[2], c[2]));
-            let zt = _mm256_loadu_pd(pz.add(i));
-            _mm256_storeu_pd(pz.add(i), _mm256_add_pd(zt, _mm256_add_pd(p01, p23)));
-            i += 4;
-        }
-        let mut out = [hsum(acc[0]), hsum(acc[1]), hsum(acc[2]), hsum(acc[3])];
-        let mut tail = [0f64; 4];
-        while i < len {
-            let c = [
-                a[0][i].to_f64(),
-                a[1][i].to_f64(),
-                a[2][i].to_f64(),
-                a[3][i].to_f64(),
-            ];
-            for j in 0..4 {
-                tail[j] = c[j].mul_add(x[i], tail[j]);
-                *py[j].add(i) = w.mul_add(c[j], *py[j].add(i));
-            }
-            let p01 = xi[1].mul_add(c[1], xi[0] * c[0]);
-            let p23 = xi[3].mul_add(c[3], xi[2] * c[2]);
-            z[i] += p01 + p23;
-            i += 1;
-        }
-        for j in 0..4 {
-            out[j] += tail[j];
-        }
-        out
-    }
+    rows4_shared::<T, false>(a, x, rows, w, [(z, 1.0), (&mut [], 0.0)], xi)
 }
 
 /// Lane-blocked segment sums for a batch: for every lane beta < width,

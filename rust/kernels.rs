@@ -212,17 +212,7 @@ fn gradient3_item_body<M: Madd, T: Coef>(
             let len = n - j;
             let xj = x[j];
             let w = [xi[0] * xj, xi[1] * xj, xi[2] * xj, xi[3] * xj];
-            let s = dots4_axpy::<M, T>(
-                [
-                    &coeffs[pos[0]..pos[0] + len],
-                    &coeffs[pos[1]..pos[1] + len],
-                    &coeffs[pos[2]..pos[2] + len],
-                    &coeffs[pos[3]..pos[3] + len],
-                ],
-                &x[j..],
-                &mut g[j..],
-                w,
-            );
+            let s = dots4_axpy::<M, T>(four_segments(coeffs, &pos, len), &x[j..], &mut g[j..], w);
             for k in 0..4 {
                 e += w[k] * s[k];
                 g[g0 + k] += xj * s[k];
@@ -302,17 +292,8 @@ fn gradient4_item_body<M: Madd, T: Coef>(
                 let xj = x[j];
                 let xij = xi * xj;
                 let w = [xij * xk[0], xij * xk[1], xij * xk[2], xij * xk[3]];
-                let s = dots4_axpy::<M, T>(
-                    [
-                        &coeffs[pos[0]..pos[0] + len],
-                        &coeffs[pos[1]..pos[1] + len],
-                        &coeffs[pos[2]..pos[2] + len],
-                        &coeffs[pos[3]..pos[3] + len],
-                    ],
-                    &x[j..],
-                    &mut g[j..],
-                    w,
-                );
+                let s =
+                    dots4_axpy::<M, T>(four_segments(coeffs, &pos, len), &x[j..], &mut g[j..], w);
                 let ks = (xk[0] * s[0] + xk[1] * s[1]) + (xk[2] * s[2] + xk[3] * s[3]);
                 e += xij * ks;
                 g[i] += xj * ks;
@@ -499,12 +480,7 @@ fn hessian4_item_body<M: Madd, T: Coef>(
                 let (r2, r3) = more.split_at_mut(n);
                 let row_j = (j - b - 4) * n;
                 let s = rows4_shared2::<M, T>(
-                    [
-                        &coeffs[pos[0]..pos[0] + len],
-                        &coeffs[pos[1]..pos[1] + len],
-                        &coeffs[pos[2]..pos[2] + len],
-                        &coeffs[pos[3]..pos[3] + len],
-                    ],
+                    four_segments(coeffs, &pos, len),
                     &x[j..],
                     [&mut r0[j..], &mut r1[j..], &mut r2[j..], &mut r3[j..]],
                     xi * xj,
@@ -558,6 +534,17 @@ impl<T: Coef> Plain4<'_, T> {
             p += n - j;
         }
     }
+}
+
+/// The four segments of length `len` starting at `pos` (a group of the grouped passes).
+#[inline(always)]
+fn four_segments<'a, T>(coeffs: &'a [T], pos: &[usize; 4], len: usize) -> [&'a [T]; 4] {
+    [
+        &coeffs[pos[0]..pos[0] + len],
+        &coeffs[pos[1]..pos[1] + len],
+        &coeffs[pos[2]..pos[2] + len],
+        &coeffs[pos[3]..pos[3] + len],
+    ]
 }
 
 /// Start, within the item's coefficients, of the degree-3 segment of prefix (i, j), i <= j:
@@ -630,12 +617,7 @@ fn hessian3_item_body<M: Madd, T: Coef>(
             let (r1, rest) = rest.split_at_mut(n);
             let (r2, r3) = rest.split_at_mut(n);
             let s = rows4::<M, T>(
-                [
-                    &coeffs[pos[0]..pos[0] + len],
-                    &coeffs[pos[1]..pos[1] + len],
-                    &coeffs[pos[2]..pos[2] + len],
-                    &coeffs[pos[3]..pos[3] + len],
-                ],
+                four_segments(coeffs, &pos, len),
                 &x[j..],
                 [&mut r0[j..], &mut r1[j..], &mut r2[j..], &mut r3[j..]],
                 x[j],
@@ -799,12 +781,7 @@ fn hvp3_item_body<M: Madd, T: Coef>(
                 d[k] = vi[k] * xj + vj * xi[k];
             }
             let (sx, sv) = dots8_axpy::<M, T>(
-                [
-                    &coeffs[pos[0]..pos[0] + len],
-                    &coeffs[pos[1]..pos[1] + len],
-                    &coeffs[pos[2]..pos[2] + len],
-                    &coeffs[pos[3]..pos[3] + len],
-                ],
+                four_segments(coeffs, &pos, len),
                 &x[j..],
                 &v[j..],
                 &mut w[j..],
@@ -883,12 +860,7 @@ fn hvp4_item_body<M: Madd, T: Coef>(
                     d[m] = vi * (xk[m] * xj) + vk[m] * (xi * xj) + vj * (xi * xk[m]);
                 }
                 let (sx, sv) = dots8_axpy::<M, T>(
-                    [
-                        &coeffs[pos[0]..pos[0] + len],
-                        &coeffs[pos[1]..pos[1] + len],
-                        &coeffs[pos[2]..pos[2] + len],
-                        &coeffs[pos[3]..pos[3] + len],
-                    ],
+                    four_segments(coeffs, &pos, len),
                     &x[j..],
                     &v[j..],
                     &mut w[j..],

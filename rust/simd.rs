@@ -628,6 +628,17 @@ impl Prefixes {
     }
 }
 
+/// Entry i of four coefficient segments, widened to f64.
+#[inline(always)]
+fn coef4<T: Coef>(a: &[&[T]; 4], i: usize) -> [f64; 4] {
+    [
+        a[0][i].to_f64(),
+        a[1][i].to_f64(),
+        a[2][i].to_f64(),
+        a[3][i].to_f64(),
+    ]
+}
+
 /// Portable [`dots4_axpy`] (v = None) and [`dots8_axpy`]: per lane, the operations of the
 /// AVX2 loops in their order (4-lane sums combined as (l0 + l2) + (l1 + l3), scalar tail last).
 #[inline(always)]
@@ -646,12 +657,7 @@ fn portable_dots8_axpy<M: Madd, T: Coef>(
     while t < body {
         for l in 0..SHORT {
             let i = t + l;
-            let c = [
-                a[0][i].to_f64(),
-                a[1][i].to_f64(),
-                a[2][i].to_f64(),
-                a[3][i].to_f64(),
-            ];
+            let c = coef4(&a, i);
             for j in 0..4 {
                 ax[j][l] = M::madd(c[j], x[i], ax[j][l]);
                 if let Some(v) = v {
@@ -671,12 +677,7 @@ fn portable_dots8_axpy<M: Madd, T: Coef>(
     }
     let (mut tx, mut tv) = ([0f64; 4], [0f64; 4]);
     for i in body..len {
-        let c = [
-            a[0][i].to_f64(),
-            a[1][i].to_f64(),
-            a[2][i].to_f64(),
-            a[3][i].to_f64(),
-        ];
+        let c = coef4(&a, i);
         for j in 0..4 {
             tx[j] = M::madd(c[j], x[i], tx[j]);
             if let Some(v) = v {
@@ -696,8 +697,21 @@ fn portable_dots8_axpy<M: Madd, T: Coef>(
 
 /// Portable [`rows4_shared2`]: per lane, the operations of the AVX2 loop in its order.
 #[inline(always)]
-#[allow(clippy::needless_range_loop)] // l and j index lanes and segments of several arrays at once
 fn portable_rows4_shared2<M: Madd, T: Coef>(
+    a: [&[T]; 4],
+    x: &[f64],
+    rows: [&mut [f64]; 4],
+    w: f64,
+    shared: [(&mut [f64], f64); 2],
+    xi: [f64; 4],
+) -> [f64; 4] {
+    portable_rows4_shared::<M, T, true>(a, x, rows, w, shared, xi)
+}
+
+/// The loop of [`portable_rows4_shared2`]; with `TWO = false` the second row is not touched.
+#[inline(always)]
+#[allow(clippy::needless_range_loop)] // l and j index lanes and segments of several arrays at once
+fn portable_rows4_shared<M: Madd, T: Coef, const TWO: bool>(
     a: [&[T]; 4],
     x: &[f64],
     rows: [&mut [f64]; 4],
@@ -707,7 +721,6 @@ fn portable_rows4_shared2<M: Madd, T: Coef>(
 ) -> [f64; 4] {
     let [(z1, alpha), (z2, beta)] = shared;
     let len = z1.len();
-    let (z1, z2) = (&mut z1[..len], &mut z2[..len]);
     let [r0, r1, r2, r3] = rows;
     let rows = [
         &mut r0[..len],
@@ -720,12 +733,7 @@ fn portable_rows4_shared2<M: Madd, T: Coef>(
     let mut tail = [0f64; 4];
     for i in 0..len {
         let l = i % SHORT;
-        let c = [
-            a[0][i].to_f64(),
-            a[1][i].to_f64(),
-            a[2][i].to_f64(),
-            a[3][i].to_f64(),
-        ];
+        let c = coef4(&a, i);
         for j in 0..4 {
             if i < body {
                 acc[j][l] = M::madd(c[j], x[i], acc[j][l]);
@@ -736,7 +744,9 @@ fn portable_rows4_shared2<M: Madd, T: Coef>(
         }
         let u = M::madd(xi[1], c[1], xi[0] * c[0]) + M::madd(xi[3], c[3], xi[2] * c[2]);
         z1[i] = M::madd(alpha, u, z1[i]);
-        z2[i] = M::madd(beta, u, z2[i]);
+        if TWO {
+            z2[i] = M::madd(beta, u, z2[i]);
+        }
     }
     let mut out = [0f64; 4];
     for j in 0..4 {
@@ -745,10 +755,8 @@ fn portable_rows4_shared2<M: Madd, T: Coef>(
     out
 }
 
-/// Portable [`rows4`]: per lane, the same operations in the same order as the AVX2 loop
-/// (dot sums in 4 lanes combined as (l0 + l2) + (l1 + l3); the scalar tail added last).
+/// Portable [`rows4`]: [`portable_rows4_shared2`] with one shared row of weight 1 (exact).
 #[inline(always)]
-#[allow(clippy::needless_range_loop)] // l and j index lanes and segments of several arrays at once
 fn portable_rows4<M: Madd, T: Coef>(
     a: [&[T]; 4],
     x: &[f64],
@@ -757,60 +765,7 @@ fn portable_rows4<M: Madd, T: Coef>(
     z: &mut [f64],
     xi: [f64; 4],
 ) -> [f64; 4] {
-    let len = z.len();
-    let [r0, r1, r2, r3] = rows;
-    let rows = [
-        &mut r0[..len],
-        &mut r1[..len],
-        &mut r2[..len],
-        &mut r3[..len],
-    ];
-    let mut acc = [[0f64; SHORT]; 4];
-    let body = len / SHORT * SHORT;
-    let mut t = 0;
-    while t < body {
-        for l in 0..SHORT {
-            let i = t + l;
-            let c = [
-                a[0][i].to_f64(),
-                a[1][i].to_f64(),
-                a[2][i].to_f64(),
-                a[3][i].to_f64(),
-            ];
-            for j in 0..4 {
-                acc[j][l] = M::madd(c[j], x[i], acc[j][l]);
-                rows[j][i] = M::madd(w, c[j], rows[j][i]);
-            }
-            let p01 = M::madd(xi[1], c[1], xi[0] * c[0]);
-            let p23 = M::madd(xi[3], c[3], xi[2] * c[2]);
-            z[i] += p01 + p23;
-        }
-        t += SHORT;
-    }
-    let mut out = [0f64; 4];
-    for j in 0..4 {
-        out[j] = (acc[j][0] + acc[j][2]) + (acc[j][1] + acc[j][3]);
-    }
-    let mut tail = [0f64; 4];
-    for i in body..len {
-        let c = [
-            a[0][i].to_f64(),
-            a[1][i].to_f64(),
-            a[2][i].to_f64(),
-            a[3][i].to_f64(),
-        ];
-        for j in 0..4 {
-            tail[j] = M::madd(c[j], x[i], tail[j]);
-            rows[j][i] = M::madd(w, c[j], rows[j][i]);
-        }
-        let p01 = M::madd(xi[1], c[1], xi[0] * c[0]);
-        let p23 = M::madd(xi[3], c[3], xi[2] * c[2]);
-        z[i] += p01 + p23;
-    }
-    for j in 0..4 {
-        out[j] += tail[j];
-    }
-    out
+    portable_rows4_shared::<M, T, false>(a, x, rows, w, [(z, 1.0), (&mut [], 0.0)], xi)
 }
 
 #[cfg(test)]
