@@ -24,6 +24,13 @@ pub enum CoreError {
         expected: usize,
         got: usize,
     },
+    /// A coefficient array of degree p whose length is not C(n+p-1, p).
+    CoefficientCount {
+        p: usize,
+        n: usize,
+        expected: usize,
+        got: usize,
+    },
     /// No degree-p block in this polynomial.
     MissingDegree { p: usize },
     /// A count (coefficients, bytes) does not fit in the machine's address space.
@@ -62,6 +69,15 @@ impl fmt::Display for CoreError {
             } => {
                 write!(f, "{what}: expected length {expected}, got {got}")
             }
+            CoreError::CoefficientCount {
+                p,
+                n,
+                expected,
+                got,
+            } => write!(
+                f,
+                "degree-{p} coefficients for n = {n}: expected C(n+p-1, p) = {expected}, got {got}"
+            ),
             CoreError::MissingDegree { p } => write!(f, "this polynomial has no degree-{p} term"),
             CoreError::SizeOverflow { what } => write!(f, "size overflow: {what}"),
             CoreError::AllocationFailed { bytes } => {

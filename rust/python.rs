@@ -55,7 +55,7 @@ fn to_py_err(py: Python<'_>, err: CoreError) -> PyErr {
         | CoreError::DuplicateDegree { .. }
         | CoreError::NoDegrees
         | CoreError::InvalidGamma { .. } => "MixtureError",
-        CoreError::LengthMismatch { .. } => "ShapeError",
+        CoreError::LengthMismatch { .. } | CoreError::CoefficientCount { .. } => "ShapeError",
         CoreError::AllocationFailed { .. } | CoreError::SizeOverflow { .. } => {
             return package_error(
                 py,

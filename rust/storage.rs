@@ -146,8 +146,9 @@ impl<T: Coef> Packed<T> {
         let mut blocks = Vec::with_capacity(parts.len());
         for (&(p, data), &len) in parts.iter().zip(&lens) {
             if data.len() != len {
-                return Err(CoreError::LengthMismatch {
-                    what: "coefficients of degree p (C(n+p-1, p) of them)",
+                return Err(CoreError::CoefficientCount {
+                    p,
+                    n,
                     expected: len,
                     got: data.len(),
                 });
@@ -279,11 +280,17 @@ mod tests {
         let bad = Packed::<f64>::from_coefficients(3, &[(2, &data[..5])]);
         assert!(matches!(
             bad,
-            Err(CoreError::LengthMismatch {
+            Err(CoreError::CoefficientCount {
+                p: 2,
+                n: 3,
                 expected: 6,
                 got: 5,
-                ..
             })
         ));
+        let msg = bad.err().unwrap().to_string();
+        assert!(
+            msg.contains("degree-2") && msg.contains("= 6, got 5"),
+            "{msg}"
+        );
     }
 }
