@@ -103,6 +103,7 @@ fn batch_item_body<M: Madd, T: Coef>(
     xt: &[f64],
     e: &mut [f64],
     g: &mut [f64],
+    exec: &Exec,
 ) {
     let stride = e.len();
     let coeffs = &a[it.start..it.start + it.len];
@@ -124,6 +125,9 @@ fn batch_item_body<M: Madd, T: Coef>(
     }
     let mut walk = Prefixes::new(n, it.degree, it.lo, it.hi);
     while let Some((t0, pos)) = walk.next_prefix() {
+        if exec.stop_requested() {
+            return; // a wide batch checks per prefix: one chunk may be seconds of work
+        }
         let pre = walk.prefix();
         // q_j = (prod_{k<j} x_k) (prod_{k>j} x_k) lane by lane; prod = prod_k x_k
         run.fill(1.0);
@@ -156,7 +160,8 @@ fn batch_item_body<M: Madd, T: Coef>(
 }
 
 simd_dispatch!(fn batch_item => batch_item_body(
-    n: usize, a: &[T], it: &WorkItem, xt: &[f64], e: &mut [f64], g: &mut [f64]) -> ());
+    n: usize, a: &[T], it: &WorkItem, xt: &[f64], e: &mut [f64], g: &mut [f64], exec: &Exec)
+    -> ());
 
 fn run_batch<T: Coef>(
     exec: &Exec,
@@ -183,7 +188,7 @@ fn run_batch<T: Coef>(
     );
     let blocks = poly.blocks();
     let (mut e, g) = reduce_sums(exec, &items, stride, glen, |it, e, g| {
-        batch_item::<T>(n, &blocks[it.block].coeffs, it, &xt, e, g);
+        batch_item::<T>(n, &blocks[it.block].coeffs, it, &xt, e, g, exec);
     })?;
     e.truncate(b);
     let grads = if want_grad {
@@ -223,6 +228,7 @@ fn hvp_many_item_body<M: Madd, T: Coef>(
     x: &[f64],
     vs: &[f64],
     w: &mut [f64],
+    exec: &Exec,
 ) {
     if it.degree == 1 {
         return;
@@ -234,6 +240,9 @@ fn hvp_many_item_body<M: Madd, T: Coef>(
     let mut r = [[0f64; MAX_PREFIX]; MAX_PREFIX];
     let mut walk = Prefixes::new(n, it.degree, it.lo, it.hi);
     while let Some((t0, pos)) = walk.next_prefix() {
+        if exec.stop_requested() {
+            return; // many directions: check per prefix, as the batch does
+        }
         let pre = walk.prefix();
         let seg = &coeffs[pos..pos + n - t0];
         for j in 0..l {
@@ -263,7 +272,7 @@ fn hvp_many_item_body<M: Madd, T: Coef>(
 }
 
 simd_dispatch!(fn hvp_many_item => hvp_many_item_body(
-    n: usize, a: &[T], it: &WorkItem, x: &[f64], vs: &[f64], w: &mut [f64]) -> ());
+    n: usize, a: &[T], it: &WorkItem, x: &[f64], vs: &[f64], w: &mut [f64], exec: &Exec) -> ());
 
 /// Hess H(x) V for k directions; `vs` and the result are n x k row-major.
 pub fn hvp_many<T: Coef>(
@@ -283,7 +292,7 @@ pub fn hvp_many<T: Coef>(
     let items = items_for(poly, pieces(poly.num_coefficients(), len), 2 * k + 1, 1);
     let blocks = poly.blocks();
     let (_, w) = reduce_sums(exec, &items, 0, len, |it, _, w| {
-        hvp_many_item::<T>(n, &blocks[it.block].coeffs, it, x, &rows, w);
+        hvp_many_item::<T>(n, &blocks[it.block].coeffs, it, x, &rows, w, exec);
     })?;
     Ok(transpose(&w, k, n, n, k))
 }
