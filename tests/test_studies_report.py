@@ -112,3 +112,20 @@ def test_demo_quick_completes_and_writes_report(tmp_path, capsys):
     data = json.loads((out / "report.json").read_text())
     assert data["theory"]["rugged (3)"]["gap_gs_alg"] == pytest.approx(0.024, abs=1e-3)
     assert (out / "energy_vs_n.png").stat().st_size > 0
+
+
+def test_paired_comparison_sign_test_is_the_exact_binomial():
+    # exact identity: under H0 the count of seeds where a is higher is Binomial(m, 1/2), so
+    # 9 of 10 has two-sided p = 2 (C(10,9) + C(10,10)) / 2^10 = 22/1024; ties are dropped
+    from orthoclimb.studies.report import paired_comparison
+
+    d = np.array([0.01] * 9 + [-0.02, 0.0])
+    c = paired_comparison(d)
+    assert (c["higher"], c["nonzero"]) == (9, 10)
+    assert c["sign_p"] == pytest.approx(22 / 1024, rel=1e-12)
+    assert c["diff"] == pytest.approx(d.mean())
+    assert c["se"] == pytest.approx(d.std(ddof=1) / math.sqrt(d.size))
+    balanced = paired_comparison(np.array([1.0, -1.0] * 5))
+    assert balanced["sign_p"] == pytest.approx(1.0) and balanced["diff"] == 0.0
+    with pytest.raises(ValueError, match="at least 2 seeds"):
+        paired_comparison(np.array([0.1]))

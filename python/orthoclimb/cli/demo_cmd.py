@@ -10,8 +10,9 @@ The scenario (invented): a lab compares two landscapes and two climbers.
 Climbers: Hessian ascent (K steps, then polish) and gradient ascent from a random point. Each
 (landscape, n, seed, climber) is one task on the embedded LocalCluster; the study folder is
 ``--out`` (default ``./orthoclimb-demo``; rerunning resumes). The report extrapolates the mean
-energy per spin in n^(-2/3) and sets it beside ALG and GS; its findings are computed from the
-measurements. ``--quick`` is a smaller variant (CI).
+energy per spin in n^(-2/3) and sets it beside ALG and GS, and compares the climbers on the
+same instances at the largest size (mean difference and a paired sign test); its findings are
+computed from the measurements. ``--quick`` is a smaller variant (CI).
 """
 
 from __future__ import annotations
