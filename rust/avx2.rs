@@ -274,12 +274,7 @@ fn dots_axpy4<T: Coef, const WITH_V: bool>(
         let mut sv = [hsum(av[0]), hsum(av[1]), hsum(av[2]), hsum(av[3])];
         let (mut tx, mut tv) = ([0f64; 4], [0f64; 4]);
         while i < len {
-            let c = [
-                a[0][i].to_f64(),
-                a[1][i].to_f64(),
-                a[2][i].to_f64(),
-                a[3][i].to_f64(),
-            ];
+            let c = crate::simd::coef4(&a, i);
             for j in 0..4 {
                 tx[j] = c[j].mul_add(x[i], tx[j]);
                 if WITH_V {
@@ -405,12 +400,7 @@ fn rows4_shared<T: Coef, const TWO: bool>(
         let mut out = [hsum(acc[0]), hsum(acc[1]), hsum(acc[2]), hsum(acc[3])];
         let mut tail = [0f64; 4];
         while i < len {
-            let c = [
-                a[0][i].to_f64(),
-                a[1][i].to_f64(),
-                a[2][i].to_f64(),
-                a[3][i].to_f64(),
-            ];
+            let c = crate::simd::coef4(&a, i);
             for j in 0..4 {
                 tail[j] = c[j].mul_add(x[i], tail[j]);
                 *py[j].add(i) = w.mul_add(c[j], *py[j].add(i));

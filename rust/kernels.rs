@@ -151,35 +151,32 @@ fn gradient_item_body<M: Madd, T: Coef>(
         return gradient3_item_body::<M, T>(n, coeffs, it, x, g);
     }
     let mut walk = Prefixes::new(n, it.degree, it.lo, it.hi);
-    let (mut xp, mut q) = ([0f64; MAX_PREFIX], [0f64; MAX_PREFIX]);
+    let mut pp = PrefixProducts::new();
     let mut e = 0.0;
     while let Some((t0, pos)) = walk.next_prefix() {
-        let pre = walk.prefix();
-        let l = pre.len();
-        gather(x, pre, &mut xp);
-        let prod = leave_one_out(&xp[..l], &mut q);
-        let s = dot_axpy::<M, T>(&coeffs[pos..pos + n - t0], &x[t0..], &mut g[t0..], prod);
-        e += prod * s;
-        for j in 0..l {
-            g[pre[j]] += q[j] * s;
-        }
+        let seg = &coeffs[pos..pos + n - t0];
+        e += gradient_prefix::<M, T>(seg, (t0, walk.prefix()), x, g, &mut pp);
     }
     e
 }
 
-/// Gradient of one degree-3 prefix (i, j) the plain way: g_t += P a_t with P = x_i x_j,
-/// g_i += x_j S and g_j += x_i S with S = sum_t a_t x_t; returns the energy term P S.
+/// The gradient contribution of one prefix `pre` (sorted, last index t0) with coefficient
+/// segment `seg` over t = t0..n, the plain way: g_t += P a_t, g_{i_j} += Q_j S; returns P S.
 #[inline(always)]
-fn gradient3_prefix<M: Madd, T: Coef>(
+fn gradient_prefix<M: Madd, T: Coef>(
     seg: &[T],
-    (i, j): (usize, usize),
+    (t0, pre): (usize, &[usize]),
     x: &[f64],
     g: &mut [f64],
+    pp: &mut PrefixProducts,
 ) -> f64 {
-    let prod = x[i] * x[j];
-    let s = dot_axpy::<M, T>(seg, &x[j..], &mut g[j..], prod);
-    g[i] += x[j] * s;
-    g[j] += x[i] * s;
+    let l = pre.len();
+    gather(x, pre, &mut pp.xp);
+    let prod = leave_one_out(&pp.xp[..l], &mut pp.q);
+    let s = dot_axpy::<M, T>(seg, &x[t0..], &mut g[t0..], prod);
+    for j in 0..l {
+        g[pre[j]] += pp.q[j] * s;
+    }
     prod * s
 }
 
@@ -194,13 +191,14 @@ fn gradient3_item_body<M: Madd, T: Coef>(
     x: &[f64],
     g: &mut [f64],
 ) -> f64 {
+    let mut pp = PrefixProducts::new();
     let mut e = 0.0;
     let mut g0 = it.lo;
     while g0 + 4 <= it.hi {
         for i in g0..g0 + 4 {
             for j in i..g0 + 4 {
                 let p = segment3(n, it.start, i, j);
-                e += gradient3_prefix::<M, T>(&coeffs[p..p + n - j], (i, j), x, g);
+                e += gradient_prefix::<M, T>(&coeffs[p..p + n - j], (j, &[i, j]), x, g, &mut pp);
             }
         }
         let xi = [x[g0], x[g0 + 1], x[g0 + 2], x[g0 + 3]];
@@ -225,7 +223,7 @@ fn gradient3_item_body<M: Madd, T: Coef>(
     for i in g0..it.hi {
         let mut p = segment3(n, it.start, i, i);
         for j in i..n {
-            e += gradient3_prefix::<M, T>(&coeffs[p..p + n - j], (i, j), x, g);
+            e += gradient_prefix::<M, T>(&coeffs[p..p + n - j], (j, &[i, j]), x, g, &mut pp);
             p += n - j;
         }
     }
@@ -241,22 +239,6 @@ fn segment4(n: usize, base: usize, i: usize, k: usize, j: usize) -> usize {
     first_index_offset(n, 4, i) - base + (count(i, 3) - count(k, 3)) + (count(k, 2) - count(j, 2))
 }
 
-/// Gradient of one degree-4 prefix (i, k, j) the plain way; returns its energy term.
-#[inline(always)]
-fn gradient4_prefix<M: Madd, T: Coef>(
-    seg: &[T],
-    (i, k, j): (usize, usize, usize),
-    x: &[f64],
-    g: &mut [f64],
-) -> f64 {
-    let prod = x[i] * x[k] * x[j];
-    let s = dot_axpy::<M, T>(seg, &x[j..], &mut g[j..], prod);
-    g[i] += (x[k] * x[j]) * s;
-    g[k] += (x[i] * x[j]) * s;
-    g[j] += (x[i] * x[k]) * s;
-    prod * s
-}
-
 /// The degree-4 gradient pass of one item, second indices four at a time: for a first index
 /// i, second indices b..b+4 and a third index j >= b + 4 the four segments of (i, b + m, j)
 /// share g_t, t >= j, and the set-up of the prefix, which [`dots4_axpy`] and one set of
@@ -270,6 +252,7 @@ fn gradient4_item_body<M: Madd, T: Coef>(
     x: &[f64],
     g: &mut [f64],
 ) -> f64 {
+    let mut pp = PrefixProducts::new();
     let mut e = 0.0;
     for i in it.lo..it.hi {
         let xi = x[i];
@@ -278,7 +261,13 @@ fn gradient4_item_body<M: Madd, T: Coef>(
             for k in b..b + 4 {
                 let mut p = segment4(n, it.start, i, k, k);
                 for j in k..b + 4 {
-                    e += gradient4_prefix::<M, T>(&coeffs[p..p + n - j], (i, k, j), x, g);
+                    e += gradient_prefix::<M, T>(
+                        &coeffs[p..p + n - j],
+                        (j, &[i, k, j]),
+                        x,
+                        g,
+                        &mut pp,
+                    );
                     p += n - j;
                 }
             }
@@ -308,7 +297,7 @@ fn gradient4_item_body<M: Madd, T: Coef>(
         for k in b..n {
             let mut p = segment4(n, it.start, i, k, k);
             for j in k..n {
-                e += gradient4_prefix::<M, T>(&coeffs[p..p + n - j], (i, k, j), x, g);
+                e += gradient_prefix::<M, T>(&coeffs[p..p + n - j], (j, &[i, k, j]), x, g, &mut pp);
                 p += n - j;
             }
         }
@@ -338,10 +327,11 @@ pub fn energy_gradient<T: Coef>(
 // ---------------------------------------------------------------------------------------
 // Hessian
 
-/// Products of a prefix used by the plain Hessian walk (kept across prefixes so that the
-/// 8 x 8 table is not zeroed for each).
+/// Scratch of the plain per-prefix steps (x and v over the prefix, leave-one-out and
+/// leave-two-out products), kept across prefixes so the 8 x 8 table is not zeroed for each.
 struct PrefixProducts {
     xp: [f64; MAX_PREFIX],
+    vp: [f64; MAX_PREFIX],
     q: [f64; MAX_PREFIX],
     r: [[f64; MAX_PREFIX]; MAX_PREFIX],
 }
@@ -350,6 +340,7 @@ impl PrefixProducts {
     fn new() -> Self {
         PrefixProducts {
             xp: [0.0; MAX_PREFIX],
+            vp: [0.0; MAX_PREFIX],
             q: [0.0; MAX_PREFIX],
             r: [[0.0; MAX_PREFIX]; MAX_PREFIX],
         }
@@ -559,30 +550,6 @@ fn segment3(n: usize, base: usize, i: usize, j: usize) -> usize {
     first_index_offset(n, 3, i) - base + skipped
 }
 
-/// One degree-3 prefix (i, j) the plain way: rows i and j take x_j a and x_i a (one row with
-/// 2 x_i when i = j), and A[i, j] takes S = sum_t a_t x_t.
-#[inline(always)]
-fn hessian3_prefix<M: Madd, T: Coef>(
-    n: usize,
-    seg: &[T],
-    (i, j): (usize, usize),
-    x: &[f64],
-    acc: &mut [f64],
-) {
-    let s = if i == j {
-        dot_axpy::<M, T>(seg, &x[j..], &mut acc[i * n + j..i * n + n], 2.0 * x[i])
-    } else {
-        let (head, tail) = acc.split_at_mut(j * n);
-        dot_axpy2::<M, T>(
-            seg,
-            &x[j..],
-            (&mut head[i * n + j..i * n + n], x[j]),
-            (&mut tail[j..n], x[i]),
-        )
-    };
-    acc[i * n + j] += s;
-}
-
 /// The degree-3 Hessian pass of one item, four first indices at a time: for first indices
 /// g..g+4 and every second index j >= g + 4, the four segments share row j of the
 /// accumulator, which [`rows4`] reads and writes once for all four (the plain loop touches it
@@ -597,12 +564,13 @@ fn hessian3_item_body<M: Madd, T: Coef>(
     acc: &mut [f64],
 ) {
     let coeffs = &a[it.start..it.start + it.len];
+    let mut pp = PrefixProducts::new();
     let mut g = it.lo;
     while g + 4 <= it.hi {
         for i in g..g + 4 {
             for j in i..g + 4 {
                 let p = segment3(n, it.start, i, j);
-                hessian3_prefix::<M, T>(n, &coeffs[p..p + n - j], (i, j), x, acc);
+                hessian_prefix::<M, T>(n, &coeffs[p..p + n - j], (j, &[i, j]), x, acc, &mut pp);
             }
         }
         let xi = [x[g], x[g + 1], x[g + 2], x[g + 3]];
@@ -634,7 +602,7 @@ fn hessian3_item_body<M: Madd, T: Coef>(
     for i in g..it.hi {
         let mut p = segment3(n, it.start, i, i);
         for j in i..n {
-            hessian3_prefix::<M, T>(n, &coeffs[p..p + n - j], (i, j), x, acc);
+            hessian_prefix::<M, T>(n, &coeffs[p..p + n - j], (j, &[i, j]), x, acc, &mut pp);
             p += n - j;
         }
     }
@@ -701,51 +669,43 @@ fn hvp_item_body<M: Madd, T: Coef>(
         return hvp4_item_body::<M, T>(n, coeffs, it, x, v, w);
     }
     let mut walk = Prefixes::new(n, it.degree, it.lo, it.hi);
-    let (mut xp, mut vp, mut q) = ([0f64; MAX_PREFIX], [0f64; MAX_PREFIX], [0f64; MAX_PREFIX]);
-    let mut r = [[0f64; MAX_PREFIX]; MAX_PREFIX];
+    let mut pp = PrefixProducts::new();
     while let Some((t0, pos)) = walk.next_prefix() {
-        let pre = walk.prefix();
-        let l = pre.len();
-        gather(x, pre, &mut xp);
-        gather(v, pre, &mut vp);
-        leave_one_out(&xp[..l], &mut q);
-        let d: f64 = (0..l).map(|j| vp[j] * q[j]).sum();
-        let (sx, sv) = dot2_axpy::<M, T>(
-            &coeffs[pos..pos + n - t0],
-            &x[t0..],
-            &v[t0..],
-            &mut w[t0..],
-            d,
-        );
-        if l >= 2 {
-            leave_two_out(&xp[..l], &mut r);
-        }
-        for j in 0..l {
-            let mut dq = 0.0;
-            for k in 0..l {
-                if k != j {
-                    dq += vp[k] * if j < k { r[j][k] } else { r[k][j] };
-                }
-            }
-            w[pre[j]] += q[j] * sv + dq * sx;
-        }
+        let seg = &coeffs[pos..pos + n - t0];
+        hvp_prefix::<M, T>(seg, (t0, walk.prefix()), (x, v), w, &mut pp);
     }
 }
 
-/// Hessian-vector product of one degree-3 prefix (i, j) the plain way: w_t += D a_t with
-/// D = v_i x_j + v_j x_i, then w_i += x_j Sv + v_j Sx and w_j += x_i Sv + v_i Sx.
+/// The Hessian-vector contribution of one prefix `pre` (sorted, last index t0) with segment
+/// `seg`, the plain way (module doc): w_t += D a_t, w_{i_j} += Q_j Sv + dQ_j Sx.
 #[inline(always)]
-fn hvp3_prefix<M: Madd, T: Coef>(
+fn hvp_prefix<M: Madd, T: Coef>(
     seg: &[T],
-    (i, j): (usize, usize),
-    x: &[f64],
-    v: &[f64],
+    (t0, pre): (usize, &[usize]),
+    (x, v): (&[f64], &[f64]),
     w: &mut [f64],
+    pp: &mut PrefixProducts,
 ) {
-    let d = v[i] * x[j] + v[j] * x[i];
-    let (sx, sv) = dot2_axpy::<M, T>(seg, &x[j..], &v[j..], &mut w[j..], d);
-    w[i] += x[j] * sv + v[j] * sx;
-    w[j] += x[i] * sv + v[i] * sx;
+    let l = pre.len();
+    gather(x, pre, &mut pp.xp);
+    gather(v, pre, &mut pp.vp);
+    leave_one_out(&pp.xp[..l], &mut pp.q);
+    let (vp, q) = (&pp.vp, &pp.q);
+    let d: f64 = (0..l).map(|j| vp[j] * q[j]).sum();
+    let (sx, sv) = dot2_axpy::<M, T>(seg, &x[t0..], &v[t0..], &mut w[t0..], d);
+    if l >= 2 {
+        leave_two_out(&pp.xp[..l], &mut pp.r);
+    }
+    let r = &pp.r;
+    for j in 0..l {
+        let mut dq = 0.0;
+        for k in 0..l {
+            if k != j {
+                dq += vp[k] * if j < k { r[j][k] } else { r[k][j] };
+            }
+        }
+        w[pre[j]] += q[j] * sv + dq * sx;
+    }
 }
 
 /// The degree-3 HVP pass of one item (`coeffs` are the item's), four first indices at a time
@@ -760,12 +720,13 @@ fn hvp3_item_body<M: Madd, T: Coef>(
     v: &[f64],
     w: &mut [f64],
 ) {
+    let mut pp = PrefixProducts::new();
     let mut g0 = it.lo;
     while g0 + 4 <= it.hi {
         for i in g0..g0 + 4 {
             for j in i..g0 + 4 {
                 let p = segment3(n, it.start, i, j);
-                hvp3_prefix::<M, T>(&coeffs[p..p + n - j], (i, j), x, v, w);
+                hvp_prefix::<M, T>(&coeffs[p..p + n - j], (j, &[i, j]), (x, v), w, &mut pp);
             }
         }
         let (xi, vi) = (&x[g0..g0 + 4], &v[g0..g0 + 4]);
@@ -800,29 +761,10 @@ fn hvp3_item_body<M: Madd, T: Coef>(
     for i in g0..it.hi {
         let mut p = segment3(n, it.start, i, i);
         for j in i..n {
-            hvp3_prefix::<M, T>(&coeffs[p..p + n - j], (i, j), x, v, w);
+            hvp_prefix::<M, T>(&coeffs[p..p + n - j], (j, &[i, j]), (x, v), w, &mut pp);
             p += n - j;
         }
     }
-}
-
-/// Hessian-vector product of one degree-4 prefix (i, k, j) the plain way: w_t += D a_t with
-/// D = v_i x_k x_j + v_k x_i x_j + v_j x_i x_k, and for each prefix position the product rule
-/// (its leave-one-out product times Sv plus the derivative of that product along v times Sx).
-#[inline(always)]
-fn hvp4_prefix<M: Madd, T: Coef>(
-    seg: &[T],
-    (i, k, j): (usize, usize, usize),
-    x: &[f64],
-    v: &[f64],
-    w: &mut [f64],
-) {
-    let (xi, xk, xj, vi, vk, vj) = (x[i], x[k], x[j], v[i], v[k], v[j]);
-    let d = vi * (xk * xj) + vk * (xi * xj) + vj * (xi * xk);
-    let (sx, sv) = dot2_axpy::<M, T>(seg, &x[j..], &v[j..], &mut w[j..], d);
-    w[i] += (xk * xj) * sv + (vk * xj + vj * xk) * sx;
-    w[k] += (xi * xj) * sv + (vi * xj + vj * xi) * sx;
-    w[j] += (xi * xk) * sv + (vi * xk + vk * xi) * sx;
 }
 
 /// The degree-4 HVP pass of one item, second indices four at a time as in
@@ -836,6 +778,7 @@ fn hvp4_item_body<M: Madd, T: Coef>(
     v: &[f64],
     w: &mut [f64],
 ) {
+    let mut pp = PrefixProducts::new();
     for i in it.lo..it.hi {
         let (xi, vi) = (x[i], v[i]);
         let mut b = i;
@@ -843,7 +786,7 @@ fn hvp4_item_body<M: Madd, T: Coef>(
             for k in b..b + 4 {
                 let mut p = segment4(n, it.start, i, k, k);
                 for j in k..b + 4 {
-                    hvp4_prefix::<M, T>(&coeffs[p..p + n - j], (i, k, j), x, v, w);
+                    hvp_prefix::<M, T>(&coeffs[p..p + n - j], (j, &[i, k, j]), (x, v), w, &mut pp);
                     p += n - j;
                 }
             }
@@ -881,7 +824,7 @@ fn hvp4_item_body<M: Madd, T: Coef>(
         for k in b..n {
             let mut p = segment4(n, it.start, i, k, k);
             for j in k..n {
-                hvp4_prefix::<M, T>(&coeffs[p..p + n - j], (i, k, j), x, v, w);
+                hvp_prefix::<M, T>(&coeffs[p..p + n - j], (j, &[i, k, j]), (x, v), w, &mut pp);
                 p += n - j;
             }
         }

@@ -630,7 +630,7 @@ impl Prefixes {
 
 /// Entry i of four coefficient segments, widened to f64.
 #[inline(always)]
-fn coef4<T: Coef>(a: &[&[T]; 4], i: usize) -> [f64; 4] {
+pub(crate) fn coef4<T: Coef>(a: &[&[T]; 4], i: usize) -> [f64; 4] {
     [
         a[0][i].to_f64(),
         a[1][i].to_f64(),
