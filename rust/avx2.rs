@@ -9,6 +9,7 @@
 use core::arch::x86_64::*;
 
 use crate::storage::Coef;
+use crate::tile::{check_tile, tile_coef, TileSums};
 
 #[inline(always)]
 unsafe fn hsum(v: __m256d) -> f64 {
@@ -434,79 +435,102 @@ pub fn rows4<T: Coef>(
     rows4_shared::<T, false>(a, x, rows, w, [(z, 1.0), (&mut [], 0.0)], xi)
 }
 
-/// Lane-blocked segment sums for a batch: for every lane beta < width,
-/// s[beta] = sum_t a_t X[t, beta] where X rows start at `xt` with stride `stride`
-/// (t = 0..a.len()), and, when `g` is given, G[t, beta] += prod[beta] a_t (same layout).
-/// `width` is a multiple of 4 and at most 16, so the sums stay in four registers while the
-/// segment streams through once.
+/// acc[r][k] += c[r] X[u, lanes 4k..4k+4] for the four rows.
 #[inline(always)]
-pub fn lanes<T: Coef>(
-    a: &[T],
-    xt: &[f64],
-    stride: usize,
-    width: usize,
-    grad: Option<(&mut [f64], &[f64])>,
-    s: &mut [f64],
-) {
-    debug_assert!(width.is_multiple_of(4) && width <= 16 && stride >= width);
-    match width / 4 {
-        4 => lanes_fixed::<T, 4>(a, xt, stride, grad, s),
-        3 => lanes_fixed::<T, 3>(a, xt, stride, grad, s),
-        2 => lanes_fixed::<T, 2>(a, xt, stride, grad, s),
-        _ => lanes_fixed::<T, 1>(a, xt, stride, grad, s),
+#[allow(clippy::needless_range_loop)] // r and k index rows and lanes of several arrays
+unsafe fn tile_sums<const G: usize>(acc: &mut [[__m256d; G]; 4], c: [__m256d; 4], row: *const f64) {
+    let mut xv = [_mm256_setzero_pd(); G];
+    for k in 0..G {
+        xv[k] = _mm256_loadu_pd(row.add(4 * k));
+    }
+    for r in 0..4 {
+        for k in 0..G {
+            acc[r][k] = _mm256_fmadd_pd(c[r], xv[k], acc[r][k]);
+        }
     }
 }
 
-/// [`lanes`] for exactly 4 * G lanes; G is a constant so the accumulators stay in registers.
+/// G[u, lanes] += (c0 w0 + c1 w1) + (c2 w2 + c3 w3).
 #[inline(always)]
-fn lanes_fixed<T: Coef, const G: usize>(
-    a: &[T],
-    xt: &[f64],
+#[allow(clippy::needless_range_loop)] // r and k index rows and lanes of several arrays
+unsafe fn tile_spread<const G: usize>(wv: &[[__m256d; G]; 4], c: [__m256d; 4], row: *mut f64) {
+    for k in 0..G {
+        let t01 = _mm256_fmadd_pd(c[1], wv[1][k], _mm256_mul_pd(c[0], wv[0][k]));
+        let t23 = _mm256_fmadd_pd(c[3], wv[3][k], _mm256_mul_pd(c[2], wv[2][k]));
+        let gv = _mm256_loadu_pd(row.add(4 * k));
+        _mm256_storeu_pd(row.add(4 * k), _mm256_add_pd(gv, _mm256_add_pd(t01, t23)));
+    }
+}
+
+/// The coefficients of the four rows at position u >= 3, broadcast.
+#[inline(always)]
+unsafe fn tile_at<T: Coef>(rows: &[&[T]; 4], u: usize) -> [__m256d; 4] {
+    [
+        _mm256_set1_pd((*rows[0].as_ptr().add(u)).to_f64()),
+        _mm256_set1_pd((*rows[1].as_ptr().add(u - 1)).to_f64()),
+        _mm256_set1_pd((*rows[2].as_ptr().add(u - 2)).to_f64()),
+        _mm256_set1_pd((*rows[3].as_ptr().add(u - 3)).to_f64()),
+    ]
+}
+
+/// The coefficients at position u < 3, with zeros for rows that have not started.
+#[inline(always)]
+unsafe fn tile_early<T: Coef>(rows: &[&[T]; 4], u: usize) -> [__m256d; 4] {
+    [0, 1, 2, 3].map(|r| _mm256_set1_pd(tile_coef(rows, r, u)))
+}
+
+/// The batch tile of [`crate::tile`] for 4 G lanes: the sums of four rows stay in 4 G
+/// registers while the rows stream through once; per position, one load of X per lane
+/// register and one broadcast per row.
+#[inline(always)]
+#[allow(clippy::needless_range_loop)] // r and k index rows and lanes of several arrays
+pub fn tile<T: Coef, const G: usize>(
+    rows: [&[T]; 4],
+    x: &[f64],
     stride: usize,
-    grad: Option<(&mut [f64], &[f64])>,
-    s: &mut [f64],
+    grad: Option<(&mut [f64], &TileSums)>,
+    s: &mut TileSums,
 ) {
-    let len = a.len();
-    let width = 4 * G;
-    assert!(len == 0 || xt.len() >= (len - 1) * stride + width);
-    assert!(s.len() >= width);
-    // SAFETY: row t of X (and G) covers [t*stride, t*stride + width), inside the slices by
-    // the assertions; `s` and `prod` have at least `width` entries.
+    let len = check_tile(&rows, x, stride, 4 * G);
+    let head = len.min(3);
+    // SAFETY: row u of X (and G) covers [u*stride, u*stride + 4G), inside the slices by
+    // `check_tile` and the assertion on `g`; row r is read at u - r < len - r, its length.
     unsafe {
-        let px = xt.as_ptr();
-        let mut acc = [_mm256_setzero_pd(); G];
+        let px = x.as_ptr();
+        let mut acc = [[_mm256_setzero_pd(); G]; 4];
         match grad {
             None => {
-                for (t, at) in a.iter().enumerate() {
-                    let c = _mm256_set1_pd(at.to_f64());
-                    let row = px.add(t * stride);
-                    for (k, slot) in acc.iter_mut().enumerate() {
-                        *slot = _mm256_fmadd_pd(c, _mm256_loadu_pd(row.add(4 * k)), *slot);
-                    }
+                for u in 0..head {
+                    tile_sums(&mut acc, tile_early(&rows, u), px.add(u * stride));
+                }
+                for u in head..len {
+                    tile_sums(&mut acc, tile_at(&rows, u), px.add(u * stride));
                 }
             }
-            Some((g, prod)) => {
-                assert!(prod.len() >= width);
-                assert!(len == 0 || g.len() >= (len - 1) * stride + width);
+            Some((g, w)) => {
+                assert!(len == 0 || g.len() >= (len - 1) * stride + 4 * G);
                 let pg = g.as_mut_ptr();
-                let mut pr = [_mm256_setzero_pd(); G];
-                for (k, slot) in pr.iter_mut().enumerate() {
-                    *slot = _mm256_loadu_pd(prod.as_ptr().add(4 * k));
-                }
-                for (t, at) in a.iter().enumerate() {
-                    let c = _mm256_set1_pd(at.to_f64());
-                    let row = px.add(t * stride);
-                    let grow = pg.add(t * stride);
+                let mut wv = [[_mm256_setzero_pd(); G]; 4];
+                for r in 0..4 {
                     for k in 0..G {
-                        acc[k] = _mm256_fmadd_pd(c, _mm256_loadu_pd(row.add(4 * k)), acc[k]);
-                        let gv = _mm256_fmadd_pd(c, pr[k], _mm256_loadu_pd(grow.add(4 * k)));
-                        _mm256_storeu_pd(grow.add(4 * k), gv);
+                        wv[r][k] = _mm256_loadu_pd(w[r].as_ptr().add(4 * k));
                     }
+                }
+                for u in 0..len {
+                    let c = if u < head {
+                        tile_early(&rows, u)
+                    } else {
+                        tile_at(&rows, u)
+                    };
+                    tile_sums(&mut acc, c, px.add(u * stride));
+                    tile_spread(&wv, c, pg.add(u * stride));
                 }
             }
         }
-        for (k, slot) in acc.iter().enumerate() {
-            _mm256_storeu_pd(s.as_mut_ptr().add(4 * k), *slot);
+        for r in 0..4 {
+            for k in 0..G {
+                _mm256_storeu_pd(s[r].as_mut_ptr().add(4 * k), acc[r][k]);
+            }
         }
     }
 }

@@ -1,18 +1,22 @@
 //! Batched kernels: b points (or k directions) in one pass over the coefficients.
 //!
 //! The coefficients are the expensive stream (they come from main memory); the points are
-//! small and stay in cache. So each prefix segment a_t, t = i_{p-1}..n, is read from memory
-//! once and then reused from L1 for every point beta, with the same vectorized loops as the
-//! single-point kernels:
+//! small and stay in cache. The walk takes prefixes four at a time when they differ only in
+//! their last index (a block, whose four segments follow each other in memory), and runs the
+//! register tile of [`crate::tile`] over the block for 8 (4 with a gradient) points at a
+//! time, so that each coefficient is read from memory once and from L1 once per tile:
 //!
 //! ```text
-//! S[beta] = sum_t a_t X[beta, t],   G[beta, t] += P[beta] a_t,   G[beta, ij] += Q_j[beta] S[beta]
+//! S_r[beta] = sum_t a_{r,t} X[beta, t],   G[beta, t] += sum_r P_r[beta] a_{r,t},
+//! E[beta] += sum_r P_r[beta] S_r[beta],  G[beta, ij] += Q_{r,j}[beta] S_r[beta]
 //! ```
 //!
-//! (P, Q_j the prefix products of [`crate::kernels`] at point beta). A batch of b points costs
-//! one read of the coefficients plus O(b) cached arithmetic per coefficient, instead of b
-//! reads. For several Hessian-vector products at one point x (directions V, n x k, taken as
-//! k rows):
+//! (P_r, Q_{r,j} the prefix products of [`crate::kernels`] for row r at point beta). A batch
+//! of b points costs one read of the coefficients plus b cached multiply-adds per coefficient
+//! (2 b with gradients), instead of b reads; with many points the multiply-adds, not the
+//! memory, set the time.
+//!
+//! For several Hessian-vector products at one point x (directions V, n x k, taken as k rows):
 //!
 //! ```text
 //! Sx = sum_t a_t x_t,  W[kappa, t] += D[kappa] a_t,  Sv[kappa] = sum_t a_t V[kappa, t],
@@ -21,12 +25,13 @@
 
 use crate::error::CoreError;
 use crate::exec::Exec;
-use crate::kernels::{check_len, items_for, pieces};
+use crate::kernels::{check_len, energy, energy_gradient, items_for, pieces};
 use crate::partition::{reduce_sums, WorkItem};
 use crate::simd::{
-    dot, dot_axpy, lanes, leave_one_out, leave_two_out, simd_dispatch, Madd, Prefixes, MAX_PREFIX,
+    dot, dot_axpy, leave_one_out, leave_two_out, simd_dispatch, Madd, Prefixes, MAX_PREFIX,
 };
 use crate::storage::{Coef, Packed};
+use crate::tile::{tile, TILE_LANES};
 
 /// The transpose of the rows x cols matrix `src` (rows `src_stride` apart), as cols rows of
 /// length `dst_stride` >= rows (the extra entries, if any, are zero padding).
@@ -46,49 +51,138 @@ fn transpose(
     out
 }
 
-/// Lanes handled per pass over a segment (four AVX2 registers).
-const GROUP: usize = 16;
-
-/// The points in lane layout and their products over the current prefix.
-struct Lanes<'a> {
-    xt: &'a [f64],
-    stride: usize,
-    prod: &'a [f64],
-    /// q[j * stride + beta]: product over the prefix except position j, at point beta.
-    q: &'a [f64],
+/// Up to four consecutive prefixes that differ only in their last index, j0 + r for r <
+/// `count`; their segments follow each other in the item from `pos`.
+struct Block {
+    j0: usize,
+    pos: usize,
+    count: usize,
 }
 
-/// One segment (last index t0.., prefix `pre`) for every lane, in groups of `GROUP` lanes.
-#[inline(always)]
-fn batch_pass<M: Madd, T: Coef>(
-    lane: &Lanes<'_>,
-    t0: usize,
-    seg: &[T],
-    pre: &[usize],
-    e: &mut [f64],
-    g: &mut [f64],
-    s: &mut [f64; GROUP],
-) {
-    let stride = lane.stride;
-    let want_grad = !g.is_empty();
-    for g0 in (0..stride).step_by(GROUP) {
-        let width = GROUP.min(stride - g0);
-        let x0 = &lane.xt[t0 * stride + g0..];
-        let grad = if want_grad {
-            Some((&mut g[t0 * stride + g0..], &lane.prod[g0..g0 + width]))
-        } else {
-            None
-        };
-        lanes::<M, T>(seg, x0, stride, width, grad, s);
-        for (k, &sk) in s.iter().enumerate().take(width) {
-            let beta = g0 + k;
-            e[beta] += lane.prod[beta] * sk;
-            if want_grad {
-                for (j, &i) in pre.iter().enumerate() {
-                    g[i * stride + beta] += lane.q[j * stride + beta] * sk;
+/// Per-lane products over the leading prefix indices (all but the last), shared by every
+/// block of a run: base[beta] = prod_m X[lead_m, beta] and, for the gradient,
+/// loo[m][beta] = the same product without factor m.
+struct Leading {
+    idx: [usize; MAX_PREFIX],
+    len: usize,
+    base: Vec<f64>,
+    loo: Vec<f64>,
+}
+
+impl Leading {
+    fn new(stride: usize) -> Self {
+        Leading {
+            idx: [usize::MAX; MAX_PREFIX],
+            len: usize::MAX,
+            base: vec![1.0; stride],
+            loo: vec![1.0; MAX_PREFIX * stride],
+        }
+    }
+
+    /// Recomputes the products when `lead` differs from the stored indices.
+    fn set(&mut self, lead: &[usize], xt: &[f64], want_loo: bool) {
+        if self.len == lead.len() && self.idx[..lead.len()] == *lead {
+            return;
+        }
+        let stride = self.base.len();
+        self.len = lead.len();
+        self.idx[..lead.len()].copy_from_slice(lead);
+        self.base.fill(1.0);
+        for &i in lead {
+            for (b, xv) in self
+                .base
+                .iter_mut()
+                .zip(&xt[i * stride..i * stride + stride])
+            {
+                *b *= xv;
+            }
+        }
+        if want_loo {
+            for m in 0..lead.len() {
+                let row = &mut self.loo[m * stride..m * stride + stride];
+                row.fill(1.0);
+                for (k, &i) in lead.iter().enumerate() {
+                    if k != m {
+                        for (q, xv) in row.iter_mut().zip(&xt[i * stride..i * stride + stride]) {
+                            *q *= xv;
+                        }
+                    }
                 }
             }
         }
+    }
+}
+
+/// The energies (and gradients) of one block, for every lane, in tiles of 8 or 4 lanes.
+///
+/// With S_r the tile sums of row r and T = sum_r X[j0 + r] S_r, per lane:
+/// E += base T,  G[j0 + r] += base S_r,  G[lead_m] += loo_m T,  and inside the tile
+/// G[t] += sum_r (base X[j0 + r]) a_r(t).
+#[inline(always)]
+#[allow(clippy::too_many_arguments)]
+fn block_pass<M: Madd, T: Coef>(
+    n: usize,
+    blk: &Block,
+    coeffs: &[T],
+    zeros: &[T],
+    lead: &Leading,
+    xt: &[f64],
+    e: &mut [f64],
+    g: &mut [f64],
+) {
+    let stride = e.len();
+    let want_grad = !g.is_empty();
+    let len = n - blk.j0;
+    let mut pos = blk.pos;
+    let rows: [&[T]; 4] = [0, 1, 2, 3].map(|r| {
+        let row_len = len.saturating_sub(r);
+        if r < blk.count {
+            let row = &coeffs[pos..pos + row_len];
+            pos += row_len;
+            row
+        } else {
+            &zeros[..row_len]
+        }
+    });
+    let active = blk.count;
+    let x0 = blk.j0 * stride;
+    let mut s = [[0f64; TILE_LANES]; 4];
+    let mut w = [[0f64; TILE_LANES]; 4];
+    let mut g0 = 0;
+    while g0 < stride {
+        let lanes = if want_grad || stride - g0 < 8 { 4 } else { 8 };
+        let xs = &xt[x0 + g0..];
+        if want_grad {
+            for r in 0..active {
+                for k in 0..lanes {
+                    w[r][k] = lead.base[g0 + k] * xt[x0 + r * stride + g0 + k];
+                }
+            }
+            tile::<M, T, 1>(rows, xs, stride, Some((&mut g[x0 + g0..], &w)), &mut s);
+        } else if lanes == 8 {
+            tile::<M, T, 2>(rows, xs, stride, None, &mut s);
+        } else {
+            tile::<M, T, 1>(rows, xs, stride, None, &mut s);
+        }
+        for k in 0..lanes {
+            let beta = g0 + k;
+            let mut total = 0.0;
+            for (r, sr) in s.iter().enumerate().take(active) {
+                total = M::madd(xt[x0 + r * stride + beta], sr[k], total);
+            }
+            e[beta] = M::madd(lead.base[beta], total, e[beta]);
+            if want_grad {
+                for (r, sr) in s.iter().enumerate().take(active) {
+                    let at = x0 + r * stride + beta;
+                    g[at] = M::madd(lead.base[beta], sr[k], g[at]);
+                }
+                for (m, &i) in lead.idx[..lead.len].iter().enumerate() {
+                    let at = i * stride + beta;
+                    g[at] = M::madd(lead.loo[m * stride + beta], total, g[at]);
+                }
+            }
+        }
+        g0 += lanes;
     }
 }
 
@@ -107,55 +201,49 @@ fn batch_item_body<M: Madd, T: Coef>(
 ) {
     let stride = e.len();
     let coeffs = &a[it.start..it.start + it.len];
-    let mut s = [0f64; GROUP];
-    let l = it.degree - 1;
-    // per-lane products over the prefix, as vectors over the lanes (rows of xt are contiguous)
-    let mut prod = vec![1.0f64; stride];
-    let mut q = vec![0f64; MAX_PREFIX * stride];
-    let mut run = vec![1.0f64; stride];
+    let want_grad = !g.is_empty();
     if it.degree == 1 {
-        let lane = Lanes {
-            xt,
-            stride,
-            prod: &prod,
-            q: &q,
-        };
-        batch_pass::<M, T>(&lane, it.lo, coeffs, &[], e, g, &mut s);
+        // H = sum_t a_t x_t: one short segment
+        for (t, c) in (it.lo..).zip(coeffs) {
+            let c = c.to_f64();
+            for (beta, ev) in e.iter_mut().enumerate() {
+                *ev = M::madd(c, xt[t * stride + beta], *ev);
+            }
+            if want_grad {
+                for gv in &mut g[t * stride..t * stride + stride] {
+                    *gv += c;
+                }
+            }
+        }
         return;
     }
+    let l = it.degree - 1;
+    let zeros = vec![T::default(); n];
+    let mut lead = Leading::new(stride);
+    let mut blk: Option<Block> = None;
     let mut walk = Prefixes::new(n, it.degree, it.lo, it.hi);
-    while let Some((t0, pos)) = walk.next_prefix() {
-        if exec.stop_requested() {
-            return; // a wide batch checks per prefix: one chunk may be seconds of work
-        }
-        let pre = walk.prefix();
-        // q_j = (prod_{k<j} x_k) (prod_{k>j} x_k) lane by lane; prod = prod_k x_k
-        run.fill(1.0);
-        for (j, &i) in pre.iter().enumerate() {
-            let row = &xt[i * stride..i * stride + stride];
-            let qj = &mut q[j * stride..j * stride + stride];
-            for ((qv, rv), xv) in qj.iter_mut().zip(run.iter_mut()).zip(row) {
-                *qv = *rv;
-                *rv *= xv;
+    loop {
+        let next = walk.next_prefix();
+        if let (Some(b), Some((t0, _))) = (&mut blk, next) {
+            // the next prefix of a run has the next last index; a new run starts lower
+            if b.count < 4 && t0 == b.j0 + b.count {
+                b.count += 1;
+                continue;
             }
         }
-        prod.copy_from_slice(&run);
-        run.fill(1.0);
-        for (j, &i) in pre.iter().enumerate().rev() {
-            let row = &xt[i * stride..i * stride + stride];
-            let qj = &mut q[j * stride..j * stride + stride];
-            for ((qv, rv), xv) in qj.iter_mut().zip(run.iter_mut()).zip(row) {
-                *qv *= *rv;
-                *rv *= xv;
+        if let Some(b) = blk.take() {
+            if exec.stop_requested() {
+                return; // a wide batch checks per block: one chunk may be seconds of work
             }
+            block_pass::<M, T>(n, &b, coeffs, &zeros, &lead, xt, e, g);
         }
-        let lane = Lanes {
-            xt,
-            stride,
-            prod: &prod,
-            q: &q[..l * stride],
-        };
-        batch_pass::<M, T>(&lane, t0, &coeffs[pos..pos + n - t0], pre, e, g, &mut s);
+        let Some((t0, pos)) = next else { break };
+        lead.set(&walk.prefix()[..l - 1], xt, want_grad);
+        blk = Some(Block {
+            j0: t0,
+            pos,
+            count: 1,
+        });
     }
 }
 
@@ -199,23 +287,32 @@ fn run_batch<T: Coef>(
     Ok((e, grads))
 }
 
-/// H at each of b points (`xs` is b x n row-major).
+/// H at each of b points (`xs` is b x n row-major). One point takes the single-point
+/// kernel: a tile of four lanes with three of them empty would cost more than it.
 pub fn energy_batch<T: Coef>(
     exec: &Exec,
     poly: &Packed<T>,
     xs: &[f64],
     b: usize,
 ) -> Result<Vec<f64>, CoreError> {
+    if b == 1 {
+        return Ok(vec![energy(exec, poly, xs)?]);
+    }
     Ok(run_batch(exec, poly, xs, b, false)?.0)
 }
 
-/// H and grad H at each of b points; the gradients are returned b x n row-major.
+/// H and grad H at each of b points; the gradients are returned b x n row-major (one point
+/// takes the single-point kernel).
 pub fn energy_gradient_batch<T: Coef>(
     exec: &Exec,
     poly: &Packed<T>,
     xs: &[f64],
     b: usize,
 ) -> Result<(Vec<f64>, Vec<f64>), CoreError> {
+    if b == 1 {
+        let (e, g) = energy_gradient(exec, poly, xs)?;
+        return Ok((vec![e], g));
+    }
     run_batch(exec, poly, xs, b, true)
 }
 
@@ -301,15 +398,16 @@ pub fn hvp_many<T: Coef>(
 mod tests {
     use super::*;
     use crate::kernels::tests::{naive, pool};
-    use crate::kernels::{energy_gradient, hvp, pieces};
+    use crate::kernels::{hvp, pieces};
     use crate::sampling::Disorder;
 
     #[test]
     fn batch_matches_single_points() {
-        for n in [1usize, 4, 11] {
+        // b = 1 (single kernel), 5 (lanes 8 + padding), 11 (8 + 4 lanes); n = 23 gives
+        // blocks of four rows with short and partial blocks at the end of each run
+        for (n, b) in [(1usize, 5usize), (4, 1), (11, 5), (23, 11)] {
             let terms = [(1usize, 0.5), (2, 1.0), (3, 0.6), (5, 0.3)];
             let poly = Packed::<f64>::sample(&pool(2), n, &terms, &Disorder::new(2)).unwrap();
-            let b = 5;
             let xs: Vec<f64> = (0..b * n).map(|i| ((i as f64) * 0.61).cos()).collect();
             let p = pool(2);
             let e_only = energy_batch(&p, &poly, &xs, b).unwrap();
@@ -319,13 +417,42 @@ mod tests {
                 let (e0, g0, _) = naive(&poly, x);
                 let tol = 1e-11 * (1.0 + e0.abs());
                 assert!((e[beta] - e0).abs() < tol && (e_only[beta] - e0).abs() < tol);
-                let (_, g1) = energy_gradient(&p, &poly, x).unwrap();
                 for i in 0..n {
                     assert!((g[beta * n + i] - g0[i]).abs() < 1e-10 * (1.0 + g0[i].abs()));
-                    assert!((g1[i] - g0[i]).abs() < 1e-10 * (1.0 + g0[i].abs()));
                 }
             }
         }
+    }
+
+    #[test]
+    fn portable_and_vector_batch_paths_agree() {
+        use crate::simd::{has_avx2_fma, Fused, Plain};
+        if !has_avx2_fma() {
+            return;
+        }
+        let (n, b, stride) = (19, 6, 8);
+        let terms = [(1usize, 0.4), (2, 1.0), (3, 0.7), (4, 0.2)];
+        let poly = Packed::<f32>::sample(&pool(2), n, &terms, &Disorder::new(8)).unwrap();
+        let xs: Vec<f64> = (0..b * n).map(|i| ((i as f64) * 0.29).sin()).collect();
+        let xt = transpose(&xs, b, n, n, stride);
+        let exec = pool(1);
+        let run = |fused: bool| {
+            let (mut e, mut g) = (vec![0.0; stride], vec![0.0; n * stride]);
+            for it in &items_for(&poly, 3, 1, 1).items {
+                let a = &poly.blocks()[it.block].coeffs;
+                if fused {
+                    batch_item_body::<Fused, f32>(n, a, it, &xt, &mut e, &mut g, &exec);
+                } else {
+                    batch_item_body::<Plain, f32>(n, a, it, &xt, &mut e, &mut g, &exec);
+                }
+            }
+            (e, g)
+        };
+        let ((e1, g1), (e2, g2)) = (run(true), run(false));
+        for (u, v) in e1.iter().zip(&e2).chain(g1.iter().zip(&g2)) {
+            assert!((u - v).abs() < 1e-12 * (1.0 + u.abs()), "{u} vs {v}");
+        }
+        assert!(e1[..b].iter().all(|v| *v != 0.0));
     }
 
     #[test]

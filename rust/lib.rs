@@ -18,6 +18,7 @@ pub mod scratch;
 pub mod simd;
 pub mod storage;
 pub mod threads;
+pub mod tile;
 
 pub use error::CoreError;
 pub use exec::Exec;

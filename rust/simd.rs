@@ -10,6 +10,7 @@
 //! lets the compiler vectorize them without reassociating floating-point sums.
 
 use crate::storage::Coef;
+use crate::tile::TileSums;
 
 /// How the arithmetic of a kernel is carried out: `madd` is a * b + c, and the segment
 /// loops below are either portable Rust or AVX2 + FMA intrinsics.
@@ -48,14 +49,13 @@ pub trait Madd {
         z: &mut [f64],
         xi: [f64; 4],
     ) -> [f64; 4];
-    /// Batch lanes (see [`lanes`]).
-    fn lanes<T: Coef>(
-        a: &[T],
-        xt: &[f64],
+    /// The batch tile (see [`crate::tile`]).
+    fn tile<T: Coef, const G: usize>(
+        rows: [&[T]; 4],
+        x: &[f64],
         stride: usize,
-        width: usize,
-        grad: Option<(&mut [f64], &[f64])>,
-        s: &mut [f64],
+        grad: Option<(&mut [f64], &TileSums)>,
+        s: &mut TileSums,
     );
 }
 
@@ -127,15 +127,14 @@ impl Madd for Fused {
         crate::avx2::rows4(a, x, rows, w, z, xi)
     }
     #[inline(always)]
-    fn lanes<T: Coef>(
-        a: &[T],
-        xt: &[f64],
+    fn tile<T: Coef, const G: usize>(
+        rows: [&[T]; 4],
+        x: &[f64],
         stride: usize,
-        width: usize,
-        grad: Option<(&mut [f64], &[f64])>,
-        s: &mut [f64],
+        grad: Option<(&mut [f64], &TileSums)>,
+        s: &mut TileSums,
     ) {
-        crate::avx2::lanes(a, xt, stride, width, grad, s)
+        crate::avx2::tile::<T, G>(rows, x, stride, grad, s)
     }
 }
 
@@ -201,53 +200,15 @@ impl Madd for Plain {
         portable_rows4::<Plain, T>(a, x, rows, w, z, xi)
     }
     #[inline(always)]
-    fn lanes<T: Coef>(
-        a: &[T],
-        xt: &[f64],
+    fn tile<T: Coef, const G: usize>(
+        rows: [&[T]; 4],
+        x: &[f64],
         stride: usize,
-        width: usize,
-        grad: Option<(&mut [f64], &[f64])>,
-        s: &mut [f64],
+        grad: Option<(&mut [f64], &TileSums)>,
+        s: &mut TileSums,
     ) {
-        let s = &mut s[..width];
-        s.fill(0.0);
-        match grad {
-            None => {
-                for (t, c) in a.iter().enumerate() {
-                    let c = c.to_f64();
-                    for (sb, xb) in s.iter_mut().zip(&xt[t * stride..t * stride + width]) {
-                        *sb += c * xb;
-                    }
-                }
-            }
-            Some((g, prod)) => {
-                for (t, c) in a.iter().enumerate() {
-                    let c = c.to_f64();
-                    for (sb, xb) in s.iter_mut().zip(&xt[t * stride..t * stride + width]) {
-                        *sb += c * xb;
-                    }
-                    for (gb, pb) in g[t * stride..t * stride + width].iter_mut().zip(prod) {
-                        *gb += c * pb;
-                    }
-                }
-            }
-        }
+        crate::tile::portable_tile::<Plain, T, G>(rows, x, stride, grad, s)
     }
-}
-
-/// Batch lanes: for beta < `width` (a multiple of 4, at most 16), s[beta] = sum_t a_t
-/// X[t, beta] over rows of `xt` with stride `stride`, and with `grad = Some((g, prod))` also
-/// G[t, beta] += prod[beta] a_t. Each coefficient is loaded once for all `width` lanes.
-#[inline(always)]
-pub fn lanes<M: Madd, T: Coef>(
-    a: &[T],
-    xt: &[f64],
-    stride: usize,
-    width: usize,
-    grad: Option<(&mut [f64], &[f64])>,
-    s: &mut [f64],
-) {
-    M::lanes(a, xt, stride, width, grad, s)
 }
 
 /// sum_t a_t x_t.

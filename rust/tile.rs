@@ -1,0 +1,203 @@
+//! The register tile of the batched kernels: four consecutive coefficient segments against a
+//! group of 4 G points (lanes) at once.
+//!
+//! Rows r = 0..4 are the segments of four consecutive prefixes that differ only in their last
+//! index (j0 + r), so row r starts one position later than row r - 1 and all end at the same
+//! last index:
+//!
+//! ```text
+//! S[r][k]  = sum_{u = r}^{len-1} a_r[u - r] X[u, k]                 (k < 4 G)
+//! G[u, k] += sum_{r <= u}         a_r[u - r] W[r][k]                 (with a gradient)
+//! ```
+//!
+//! where X[u, k] = x[u * stride + k] is the point of lane k at last index t0 + u. Every
+//! coefficient is loaded once for the 4 G lanes and every row of X once for the four
+//! segments, so the loop does 4 G multiply-adds per two loads; that ratio, not the memory
+//! stream, bounds a batch of many points. Missing rows are passed as zeros.
+
+use crate::simd::Madd;
+use crate::storage::Coef;
+
+/// Widest lane group a tile handles (G = 2: eight lanes in two AVX2 registers per row).
+pub const TILE_LANES: usize = 8;
+
+/// Four sums per lane, one per row.
+pub type TileSums = [[f64; TILE_LANES]; 4];
+
+/// The checks every implementation relies on: row r has len - r entries (none if r >= len),
+/// X (and G) reach row len - 1 at 4 G lanes.
+#[inline(always)]
+pub(crate) fn check_tile<T>(rows: &[&[T]; 4], x: &[f64], stride: usize, lanes: usize) -> usize {
+    let len = rows[0].len();
+    for (r, row) in rows.iter().enumerate() {
+        assert_eq!(row.len(), len.saturating_sub(r), "tile row {r}");
+    }
+    assert!(lanes <= TILE_LANES && lanes <= stride);
+    assert!(len == 0 || x.len() >= (len - 1) * stride + lanes);
+    len
+}
+
+/// Coefficient of row r at position u (zero before the row starts).
+#[inline(always)]
+pub(crate) fn tile_coef<T: Coef>(rows: &[&[T]; 4], r: usize, u: usize) -> f64 {
+    if u >= r {
+        rows[r][u - r].to_f64()
+    } else {
+        0.0
+    }
+}
+
+/// Portable tile: per lane, the operations of the AVX2 tile in its order, so that with fused
+/// multiply-add the two agree bit for bit.
+#[inline(always)]
+#[allow(clippy::needless_range_loop)] // r and k index rows and lanes of several arrays at once
+pub(crate) fn portable_tile<M: Madd, T: Coef, const G: usize>(
+    rows: [&[T]; 4],
+    x: &[f64],
+    stride: usize,
+    grad: Option<(&mut [f64], &TileSums)>,
+    s: &mut TileSums,
+) {
+    let lanes = 4 * G;
+    let len = check_tile(&rows, x, stride, lanes);
+    let mut acc = [[0f64; TILE_LANES]; 4];
+    let mut grad = grad;
+    if let Some((g, _)) = &grad {
+        assert!(len == 0 || g.len() >= (len - 1) * stride + lanes);
+    }
+    for u in 0..len {
+        let c = [0, 1, 2, 3].map(|r| tile_coef(&rows, r, u));
+        let xr = &x[u * stride..u * stride + lanes];
+        for r in 0..4 {
+            for k in 0..lanes {
+                acc[r][k] = M::madd(c[r], xr[k], acc[r][k]);
+            }
+        }
+        if let Some((g, w)) = &mut grad {
+            let gr = &mut g[u * stride..u * stride + lanes];
+            for k in 0..lanes {
+                let t01 = M::madd(c[1], w[1][k], c[0] * w[0][k]);
+                let t23 = M::madd(c[3], w[3][k], c[2] * w[2][k]);
+                gr[k] += t01 + t23;
+            }
+        }
+    }
+    for r in 0..4 {
+        s[r][..lanes].copy_from_slice(&acc[r][..lanes]);
+    }
+}
+
+/// The tile for 4 G lanes (G = 1 or 2), on the instruction set `M` chooses.
+#[inline(always)]
+pub fn tile<M: Madd, T: Coef, const G: usize>(
+    rows: [&[T]; 4],
+    x: &[f64],
+    stride: usize,
+    grad: Option<(&mut [f64], &TileSums)>,
+    s: &mut TileSums,
+) {
+    M::tile::<T, G>(rows, x, stride, grad, s)
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use crate::simd::{has_avx2_fma, Fused, Plain};
+
+    /// The sums of the module doc, written out term by term.
+    fn definition(rows: &[Vec<f64>; 4], x: &[f64], stride: usize, lanes: usize) -> TileSums {
+        let mut s = [[0f64; TILE_LANES]; 4];
+        for (r, row) in rows.iter().enumerate() {
+            for (i, a) in row.iter().enumerate() {
+                for k in 0..lanes {
+                    s[r][k] += a * x[(i + r) * stride + k];
+                }
+            }
+        }
+        s
+    }
+
+    fn run<M: Madd, T: Coef, const G: usize>(
+        rows: &[Vec<T>; 4],
+        x: &[f64],
+        stride: usize,
+        w: Option<&TileSums>,
+    ) -> (TileSums, Vec<f64>) {
+        let refs = [&rows[0][..], &rows[1][..], &rows[2][..], &rows[3][..]];
+        let mut s = [[f64::NAN; TILE_LANES]; 4];
+        let mut g = vec![0.5; x.len()];
+        let grad = w.map(|w| (&mut g[..], w));
+        tile::<M, T, G>(refs, x, stride, grad, &mut s);
+        (s, g)
+    }
+
+    fn check<M: Madd, T: Coef, const G: usize>(len: usize) {
+        let lanes = 4 * G;
+        let stride = lanes + 3; // rows of X not packed tightly, as in a wider batch
+        let rows: [Vec<T>; 4] = [0, 1, 2, 3].map(|r| {
+            (0..len.saturating_sub(r))
+                .map(|i| T::from_f64(((i * 7 + r * 3) as f64 * 0.31).sin()))
+                .collect()
+        });
+        let wide: [Vec<f64>; 4] =
+            [0, 1, 2, 3].map(|r| rows[r].iter().map(|a| a.to_f64()).collect());
+        let x: Vec<f64> = (0..len.max(1) * stride)
+            .map(|i| (i as f64 * 0.13).cos())
+            .collect();
+        let w = [0, 1, 2, 3].map(|r| [0.0; TILE_LANES].map(|_| 0.25 * r as f64 - 0.4));
+        let want = definition(&wide, &x, stride, lanes);
+        let (s, g) = run::<M, T, G>(&rows, &x, stride, Some(&w));
+        let (s_only, untouched) = run::<M, T, G>(&rows, &x, stride, None);
+        for r in 0..4 {
+            for k in 0..lanes {
+                assert!((s[r][k] - want[r][k]).abs() < 1e-12, "row {r} lane {k}");
+                assert_eq!(s[r][k], s_only[r][k]);
+            }
+        }
+        assert!(untouched.iter().all(|&v| v == 0.5));
+        for u in 0..len {
+            for k in 0..stride {
+                let mut want_g = 0.5;
+                if k < lanes {
+                    for r in 0..=u.min(3) {
+                        want_g += wide[r][u - r] * w[r][k];
+                    }
+                }
+                assert!((g[u * stride + k] - want_g).abs() < 1e-12, "G[{u}, {k}]");
+            }
+        }
+    }
+
+    #[test]
+    fn tile_matches_its_definition() {
+        for len in [0, 1, 2, 3, 4, 5, 17] {
+            check::<Plain, f64, 1>(len);
+            check::<Plain, f64, 2>(len);
+            check::<Plain, f32, 2>(len);
+            if has_avx2_fma() {
+                check::<Fused, f64, 1>(len);
+                check::<Fused, f64, 2>(len);
+                check::<Fused, f32, 1>(len);
+            }
+        }
+    }
+
+    #[test]
+    fn vector_tile_matches_portable_tile_bit_for_bit() {
+        if !has_avx2_fma() {
+            return;
+        }
+        let len = 23;
+        let rows: [Vec<f64>; 4] =
+            [0, 1, 2, 3].map(|r| (0..len - r).map(|i| ((i + 5 * r) as f64).sin()).collect());
+        let x: Vec<f64> = (0..len * 8).map(|i| (i as f64 * 0.7).cos()).collect();
+        let w = [0, 1, 2, 3].map(|r| [0.0; TILE_LANES].map(|_| 1.0 / (1.0 + r as f64)));
+        let refs = [&rows[0][..], &rows[1][..], &rows[2][..], &rows[3][..]];
+        let (mut s1, mut s2) = ([[0f64; TILE_LANES]; 4], [[0f64; TILE_LANES]; 4]);
+        let (mut g1, mut g2) = (vec![0.0; len * 8], vec![0.0; len * 8]);
+        tile::<Fused, f64, 2>(refs, &x, 8, Some((&mut g1[..], &w)), &mut s1);
+        portable_tile::<Fused, f64, 2>(refs, &x, 8, Some((&mut g2[..], &w)), &mut s2);
+        assert_eq!(s1, s2);
+        assert_eq!(g1, g2);
+    }
+}
