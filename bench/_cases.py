@@ -589,6 +589,39 @@ def batch_rows(stats: dict, h, xs: np.ndarray, p: int, n: int) -> list[dict]:
     return rows
 
 
+GEMM_SIZE = 2048
+
+
+def gemm_probe() -> Callable[[], object]:
+    """A float64 matrix product of two GEMM_SIZE-square matrices through NumPy's BLAS (all its
+    threads): GEMM_SIZE**3 multiply-adds at close to the machine's peak rate."""
+    rng = np.random.default_rng(SEED)
+    a, b = rng.standard_normal((2, GEMM_SIZE, GEMM_SIZE))
+    return lambda: a @ b
+
+
+def compute_ceiling(stats: dict, rows: list[dict], h, b: int) -> tuple[dict, str]:
+    """The probe's row and a note: the best multiply-add rate of the matrix product, the batch's
+    fraction of it (the energy needs one multiply-add per coefficient and point), and the
+    largest batch ratio that rate allows against the measured single calls."""
+    st = stats[("compute", "probe:dgemm")]
+    rate = GEMM_SIZE**3 / st.min  # the fastest repeat: a ceiling must not be understated
+    probe = make_row("compute", "probe:dgemm", f"{GEMM_SIZE}^3", st, None, None)
+    probe["note"] = f"{rate / 1e9:.1f} G multiply-adds/s"
+    batch = next(r for r in rows if r["kernel"] == "energy" and r["variant"] == f"batch b={b}")
+    singles = next(r for r in rows if r["kernel"] == "energy" and r["variant"] == f"{b} single calls")
+    work = h.num_coefficients * b
+    fraction = work / batch["median_s"] / rate
+    batch["note"] += f"; {fraction:.2f} of the dgemm rate"
+    best = singles["median_s"] / (work / rate)
+    note = (
+        f"n={h.n}: at the dgemm rate ({rate / 1e9:.1f} G multiply-adds/s) one multiply-add per "
+        f"coefficient and point bounds the batch-of-{b} ratio at {best:.1f}x; measured "
+        f"{batch['ratio']:.2f}x ({fraction:.2f} of that rate)"
+    )
+    return probe, note
+
+
 def batch_cost_fit(rows: list[dict], h) -> dict | None:
     """Least-squares fit of the batch-energy median time over b (b = 2..32) as
     t(b) = fixed + per_point * b, in nanoseconds per coefficient."""
@@ -616,6 +649,7 @@ def case_batch(cfg, ws):
         h = ws.instance(p, n)
         xs = points(BATCH, n)
         fns = batch_functions(h, xs, extras=(n == min(sizes)))
+        fns[("compute", "probe:dgemm")] = gemm_probe()
         log(f"   measuring {len(fns)} functions at n={n}")
         stats = _timing.measure(fns, cfg.plan)
         err = _peers.relative_error(h.energy(xs), [h.energy(row) for row in xs])
@@ -623,7 +657,9 @@ def case_batch(cfg, ws):
         for row in new:
             if row["variant"] == f"batch b={BATCH}" and row["kernel"] == "energy":
                 row["rel_err"] = err
-        rows += new
+        probe, ceiling = compute_ceiling(stats, new, h, BATCH)
+        rows += new + [probe]
+        notes.append(ceiling)
         fit = batch_cost_fit(new, h)
         if fit:
             fits.append(fit)
