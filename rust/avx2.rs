@@ -8,6 +8,8 @@
 
 use core::arch::x86_64::*;
 
+use crate::simd::Fused;
+use crate::stagger::{check_rows, coefs_at, head_coefs, stagger_step};
 use crate::storage::Coef;
 use crate::tile::{check_tile, tile_coef, TileSums};
 
@@ -476,7 +478,12 @@ unsafe fn tile_at<T: Coef>(rows: &[&[T]; 4], u: usize) -> [__m256d; 4] {
 /// The coefficients at position u < 3, with zeros for rows that have not started.
 #[inline(always)]
 unsafe fn tile_early<T: Coef>(rows: &[&[T]; 4], u: usize) -> [__m256d; 4] {
-    [0, 1, 2, 3].map(|r| _mm256_set1_pd(tile_coef(rows, r, u)))
+    [
+        _mm256_set1_pd(tile_coef(rows, 0, u)),
+        _mm256_set1_pd(tile_coef(rows, 1, u)),
+        _mm256_set1_pd(tile_coef(rows, 2, u)),
+        _mm256_set1_pd(tile_coef(rows, 3, u)),
+    ]
 }
 
 /// The batch tile of [`crate::tile`] for 4 G lanes: the sums of four rows stay in 4 G
@@ -533,4 +540,113 @@ pub fn tile<T: Coef, const G: usize>(
             }
         }
     }
+}
+
+/// Prefetch distance of [`stagger4`], in bytes.
+const PREFETCH: usize = 4096;
+
+/// The adjacent-rows loop of [`crate::stagger`]: four positions at a time from u = 3, one
+/// load of x (v, z) for the four rows; the first three and the last len mod 4 positions use
+/// the scalar step with fused multiply-add, so a lane does what the portable loop does.
+#[inline(always)]
+#[allow(clippy::needless_range_loop)] // r indexes rows of several arrays at once
+pub fn stagger4<T: Coef>(
+    rows: [&[T]; 4],
+    x: &[f64],
+    v: Option<&[f64]>,
+    z: Option<(&mut [f64], [f64; 4])>,
+) -> ([f64; 4], [f64; 4]) {
+    let zlen = z.as_ref().map_or(0, |(z, _)| z.len());
+    let len = check_rows(&rows, x, v, zlen);
+    let want_v = v.is_some();
+    let vs = v.unwrap_or(x);
+    let (mut z, w) = match z {
+        Some((z, w)) => (Some(z), w),
+        None => (None, [0.0; 4]),
+    };
+    let (mut sx, mut sv) = ([0f64; 4], [0f64; 4]);
+    let head = len.min(3);
+    let body_end = head + (len - head) / 4 * 4;
+    for u in 0..head {
+        let c = head_coefs(&rows, u);
+        let zu = z.as_deref_mut().map(|z| (&mut z[u], &w));
+        stagger_step::<Fused>(c, x[u], vs[u], want_v, &mut sx, &mut sv, zu);
+    }
+    // SAFETY: for head <= u < body_end, positions u..u+4 are < len, within x, v and z (by
+    // `check_rows`), and row r is read at u - r..u - r + 4 <= len - r, its length.
+    let (lx, lv) = unsafe {
+        let (px, pv) = (x.as_ptr(), vs.as_ptr());
+        let pa = [
+            rows[0].as_ptr(),
+            rows[1].as_ptr(),
+            rows[2].as_ptr(),
+            rows[3].as_ptr(),
+        ];
+        let mut ax = [_mm256_setzero_pd(); 4];
+        let mut av = [_mm256_setzero_pd(); 4];
+        let wv = [
+            _mm256_set1_pd(w[0]),
+            _mm256_set1_pd(w[1]),
+            _mm256_set1_pd(w[2]),
+            _mm256_set1_pd(w[3]),
+        ];
+        // The four rows are short streams interleaved in one region, which the hardware
+        // prefetcher does not pick up; prefetch the region PREFETCH bytes ahead of the 16
+        // coefficients each step consumes (wrapping: a prefetch never faults).
+        let mut pf = (pa[0] as *const u8).wrapping_add(PREFETCH);
+        let step = 16 * std::mem::size_of::<T>();
+        let mut u = head;
+        while u < body_end {
+            _mm_prefetch::<_MM_HINT_T0>(pf as *const i8);
+            _mm_prefetch::<_MM_HINT_T0>(pf.wrapping_add(64) as *const i8);
+            pf = pf.wrapping_add(step);
+            let c = [
+                T::load4(pa[0].add(u)),
+                T::load4(pa[1].add(u - 1)),
+                T::load4(pa[2].add(u - 2)),
+                T::load4(pa[3].add(u - 3)),
+            ];
+            let xv = _mm256_loadu_pd(px.add(u));
+            for r in 0..4 {
+                ax[r] = _mm256_fmadd_pd(c[r], xv, ax[r]);
+            }
+            if want_v {
+                let vv = _mm256_loadu_pd(pv.add(u));
+                for r in 0..4 {
+                    av[r] = _mm256_fmadd_pd(c[r], vv, av[r]);
+                }
+            }
+            if let Some(z) = z.as_deref_mut() {
+                let pz = z.as_mut_ptr().add(u);
+                let t01 = _mm256_fmadd_pd(c[1], wv[1], _mm256_mul_pd(c[0], wv[0]));
+                let t23 = _mm256_fmadd_pd(c[3], wv[3], _mm256_mul_pd(c[2], wv[2]));
+                _mm256_storeu_pd(
+                    pz,
+                    _mm256_add_pd(_mm256_loadu_pd(pz), _mm256_add_pd(t01, t23)),
+                );
+            }
+            u += 4;
+        }
+        let mut lx = [0f64; 4];
+        let mut lv = [0f64; 4];
+        for r in 0..4 {
+            lx[r] = hsum(ax[r]);
+            if want_v {
+                lv[r] = hsum(av[r]);
+            }
+        }
+        (lx, lv)
+    };
+    let mut tail_x = [0f64; 4];
+    let mut tail_v = [0f64; 4];
+    for u in body_end..len {
+        let c = coefs_at(&rows, u);
+        let zu = z.as_deref_mut().map(|z| (&mut z[u], &w));
+        stagger_step::<Fused>(c, x[u], vs[u], want_v, &mut tail_x, &mut tail_v, zu);
+    }
+    for r in 0..4 {
+        sx[r] = (lx[r] + sx[r]) + tail_x[r];
+        sv[r] = (lv[r] + sv[r]) + tail_v[r];
+    }
+    (sx, sv)
 }

@@ -17,6 +17,7 @@
 //! positional product rule counts them (d/dx x^2 = 2x). These satisfy the Euler identities
 //! x . grad H_p = p H_p and Hess H_p x = (p - 1) grad H_p, which the tests check.
 
+use crate::adjacent::{energy_blocks, gradient_blocks, hvp_blocks};
 use crate::combinatorics::{first_index_offset, num_multisets};
 use crate::error::CoreError;
 use crate::exec::Exec;
@@ -100,16 +101,7 @@ fn energy_item_body<M: Madd, T: Coef>(n: usize, a: &[T], it: &WorkItem, x: &[f64
     if it.degree == 1 {
         return dot::<M, T>(coeffs, &x[it.lo..it.hi]);
     }
-    let mut walk = Prefixes::new(n, it.degree, it.lo, it.hi);
-    let mut xp = [0f64; MAX_PREFIX];
-    let mut e = 0.0;
-    while let Some((t0, pos)) = walk.next_prefix() {
-        let pre = walk.prefix();
-        gather(x, pre, &mut xp);
-        let prod: f64 = xp[..pre.len()].iter().product();
-        e += prod * dot::<M, T>(&coeffs[pos..pos + n - t0], &x[t0..]);
-    }
-    e
+    energy_blocks::<M, T>(n, it.degree, (it.lo, it.hi), coeffs, x)
 }
 
 simd_dispatch!(fn energy_item => energy_item_body(n: usize, a: &[T], it: &WorkItem, x: &[f64]) -> f64);
@@ -144,8 +136,8 @@ fn gradient_item_body<M: Madd, T: Coef>(
     if it.degree == 1 {
         return dot_axpy::<M, T>(coeffs, &x[it.lo..it.hi], &mut g[it.lo..it.hi], 1.0);
     }
-    if it.degree == 4 {
-        return gradient4_item_body::<M, T>(n, coeffs, it, x, g);
+    if it.degree >= 4 {
+        return gradient_blocks::<M, T>(n, it.degree, (it.lo, it.hi), coeffs, x, g);
     }
     if it.degree == 3 {
         return gradient3_item_body::<M, T>(n, coeffs, it, x, g);
@@ -237,72 +229,6 @@ fn gradient3_item_body<M: Madd, T: Coef>(
 fn segment4(n: usize, base: usize, i: usize, k: usize, j: usize) -> usize {
     let count = |s: usize, m: usize| num_multisets(n - s, m).expect("within the block");
     first_index_offset(n, 4, i) - base + (count(i, 3) - count(k, 3)) + (count(k, 2) - count(j, 2))
-}
-
-/// The degree-4 gradient pass of one item, second indices four at a time: for a first index
-/// i, second indices b..b+4 and a third index j >= b + 4 the four segments of (i, b + m, j)
-/// share g_t, t >= j, and the set-up of the prefix, which [`dots4_axpy`] and one set of
-/// scalar updates do once for the four (the segments are only ~n/4 long at the sizes where
-/// degree 4 fits in memory, so the set-up is most of the cost of the plain walk).
-#[inline(always)]
-fn gradient4_item_body<M: Madd, T: Coef>(
-    n: usize,
-    coeffs: &[T],
-    it: &WorkItem,
-    x: &[f64],
-    g: &mut [f64],
-) -> f64 {
-    let mut pp = PrefixProducts::new();
-    let mut e = 0.0;
-    for i in it.lo..it.hi {
-        let xi = x[i];
-        let mut b = i;
-        while b + 4 <= n {
-            for k in b..b + 4 {
-                let mut p = segment4(n, it.start, i, k, k);
-                for j in k..b + 4 {
-                    e += gradient_prefix::<M, T>(
-                        &coeffs[p..p + n - j],
-                        (j, &[i, k, j]),
-                        x,
-                        g,
-                        &mut pp,
-                    );
-                    p += n - j;
-                }
-            }
-            let xk = [x[b], x[b + 1], x[b + 2], x[b + 3]];
-            let mut pos = [0usize; 4];
-            for (m, p) in pos.iter_mut().enumerate() {
-                *p = segment4(n, it.start, i, b + m, b + 4);
-            }
-            for j in b + 4..n {
-                let len = n - j;
-                let xj = x[j];
-                let xij = xi * xj;
-                let w = [xij * xk[0], xij * xk[1], xij * xk[2], xij * xk[3]];
-                let s =
-                    dots4_axpy::<M, T>(four_segments(coeffs, &pos, len), &x[j..], &mut g[j..], w);
-                let ks = (xk[0] * s[0] + xk[1] * s[1]) + (xk[2] * s[2] + xk[3] * s[3]);
-                e += xij * ks;
-                g[i] += xj * ks;
-                g[j] += xi * ks;
-                for m in 0..4 {
-                    g[b + m] += xij * s[m];
-                    pos[m] += len;
-                }
-            }
-            b += 4;
-        }
-        for k in b..n {
-            let mut p = segment4(n, it.start, i, k, k);
-            for j in k..n {
-                e += gradient_prefix::<M, T>(&coeffs[p..p + n - j], (j, &[i, k, j]), x, g, &mut pp);
-                p += n - j;
-            }
-        }
-    }
-    e
 }
 
 simd_dispatch!(fn gradient_item => gradient_item_body(
@@ -665,8 +591,8 @@ fn hvp_item_body<M: Madd, T: Coef>(
     if it.degree == 3 {
         return hvp3_item_body::<M, T>(n, coeffs, it, x, v, w);
     }
-    if it.degree == 4 {
-        return hvp4_item_body::<M, T>(n, coeffs, it, x, v, w);
+    if it.degree >= 4 {
+        return hvp_blocks::<M, T>(n, it.degree, (it.lo, it.hi), coeffs, (x, v), w);
     }
     let mut walk = Prefixes::new(n, it.degree, it.lo, it.hi);
     let mut pp = PrefixProducts::new();
@@ -763,70 +689,6 @@ fn hvp3_item_body<M: Madd, T: Coef>(
         for j in i..n {
             hvp_prefix::<M, T>(&coeffs[p..p + n - j], (j, &[i, j]), (x, v), w, &mut pp);
             p += n - j;
-        }
-    }
-}
-
-/// The degree-4 HVP pass of one item, second indices four at a time as in
-/// [`gradient4_item_body`]: the four segments of (i, b + m, j) share w_t, x_t and v_t, t >= j.
-#[inline(always)]
-fn hvp4_item_body<M: Madd, T: Coef>(
-    n: usize,
-    coeffs: &[T],
-    it: &WorkItem,
-    x: &[f64],
-    v: &[f64],
-    w: &mut [f64],
-) {
-    let mut pp = PrefixProducts::new();
-    for i in it.lo..it.hi {
-        let (xi, vi) = (x[i], v[i]);
-        let mut b = i;
-        while b + 4 <= n {
-            for k in b..b + 4 {
-                let mut p = segment4(n, it.start, i, k, k);
-                for j in k..b + 4 {
-                    hvp_prefix::<M, T>(&coeffs[p..p + n - j], (j, &[i, k, j]), (x, v), w, &mut pp);
-                    p += n - j;
-                }
-            }
-            let (xk, vk) = (&x[b..b + 4], &v[b..b + 4]);
-            let mut pos = [0usize; 4];
-            for (m, p) in pos.iter_mut().enumerate() {
-                *p = segment4(n, it.start, i, b + m, b + 4);
-            }
-            for j in b + 4..n {
-                let len = n - j;
-                let (xj, vj) = (x[j], v[j]);
-                let mut d = [0f64; 4];
-                for m in 0..4 {
-                    d[m] = vi * (xk[m] * xj) + vk[m] * (xi * xj) + vj * (xi * xk[m]);
-                }
-                let (sx, sv) = dots8_axpy::<M, T>(
-                    four_segments(coeffs, &pos, len),
-                    &x[j..],
-                    &v[j..],
-                    &mut w[j..],
-                    d,
-                );
-                let (mut wi, mut wj) = ([0f64; 4], [0f64; 4]);
-                for m in 0..4 {
-                    wi[m] = (xk[m] * xj) * sv[m] + (vk[m] * xj + vj * xk[m]) * sx[m];
-                    w[b + m] += (xi * xj) * sv[m] + (vi * xj + vj * xi) * sx[m];
-                    wj[m] = (xi * xk[m]) * sv[m] + (vi * xk[m] + vk[m] * xi) * sx[m];
-                    pos[m] += len;
-                }
-                w[i] += (wi[0] + wi[1]) + (wi[2] + wi[3]);
-                w[j] += (wj[0] + wj[1]) + (wj[2] + wj[3]);
-            }
-            b += 4;
-        }
-        for k in b..n {
-            let mut p = segment4(n, it.start, i, k, k);
-            for j in k..n {
-                hvp_prefix::<M, T>(&coeffs[p..p + n - j], (j, &[i, k, j]), (x, v), w, &mut pp);
-                p += n - j;
-            }
         }
     }
 }
@@ -1005,8 +867,8 @@ pub(crate) mod tests {
         }
     }
 
-    /// The degree-3 passes take first indices by four, the degree-4 gradient and HVP second
-    /// indices;
+    /// The degree-3 passes take first indices by four, the degree-4 Hessian second indices,
+    /// and energies, degree >= 4 gradients and HVPs blocks of adjacent prefixes;
     /// sizes around multiples of 4, items that hold several chunks (n = 150) and mixtures with
     /// other degrees exercise the grouped part, the head prefixes and the leftovers against
     /// the naive sum.
@@ -1018,10 +880,11 @@ pub(crate) mod tests {
             (8, vec![(1, 0.5), (3, 1.0)]),
             (13, vec![(2, 0.7), (3, 1.0), (4, 0.3)]),
             (150, vec![(3, 1.0)]),
-            // degree 4 takes second indices by four (gradient, HVP)
+            // degree 4: second indices by four (Hessian), adjacent blocks (the others)
             (6, vec![(4, 1.0)]),
             (9, vec![(2, 0.5), (4, 1.0)]),
             (40, vec![(4, 1.0)]),
+            (11, vec![(5, 1.0), (6, 0.3)]),
         ] {
             let poly =
                 Packed::<f64>::sample(&pool(2), n, &terms, &Disorder::new(n as u64)).unwrap();
@@ -1033,6 +896,8 @@ pub(crate) mod tests {
                 .map(|r| (0..n).map(|c| want[r * n + c] * v[c]).sum())
                 .collect();
             for k in [1usize, 3] {
+                let e = energy(&pool(k), &poly, &x).unwrap();
+                assert!(close(e, e_want, scale), "energy n={n}: {e} vs {e_want}");
                 let (e, g) = energy_gradient(&pool(k), &poly, &x).unwrap();
                 assert!(close(e, e_want, scale), "energy n={n}: {e} vs {e_want}");
                 for (a, b) in g.iter().zip(&g_want) {

@@ -5,6 +5,7 @@
 //! The core modules never mention PyO3; the binding layer lives in `python.rs` and is only
 //! compiled with the `python` feature (maturin turns it on).
 
+mod adjacent;
 #[cfg(target_arch = "x86_64")]
 mod avx2;
 pub mod batch;
@@ -16,6 +17,7 @@ pub mod partition;
 pub mod sampling;
 pub mod scratch;
 pub mod simd;
+pub mod stagger;
 pub mod storage;
 pub mod threads;
 pub mod tile;

@@ -57,6 +57,13 @@ pub trait Madd {
         grad: Option<(&mut [f64], &TileSums)>,
         s: &mut TileSums,
     );
+    /// Four adjacent rows (see [`crate::stagger`]).
+    fn stagger4<T: Coef>(
+        rows: [&[T]; 4],
+        x: &[f64],
+        v: Option<&[f64]>,
+        z: Option<(&mut [f64], [f64; 4])>,
+    ) -> ([f64; 4], [f64; 4]);
 }
 
 /// AVX2 + fused multiply-add (one rounding); only reached where the processor has both.
@@ -136,6 +143,15 @@ impl Madd for Fused {
     ) {
         crate::avx2::tile::<T, G>(rows, x, stride, grad, s)
     }
+    #[inline(always)]
+    fn stagger4<T: Coef>(
+        rows: [&[T]; 4],
+        x: &[f64],
+        v: Option<&[f64]>,
+        z: Option<(&mut [f64], [f64; 4])>,
+    ) -> ([f64; 4], [f64; 4]) {
+        crate::avx2::stagger4(rows, x, v, z)
+    }
 }
 
 impl Madd for Plain {
@@ -208,6 +224,15 @@ impl Madd for Plain {
         s: &mut TileSums,
     ) {
         crate::tile::portable_tile::<Plain, T, G>(rows, x, stride, grad, s)
+    }
+    #[inline(always)]
+    fn stagger4<T: Coef>(
+        rows: [&[T]; 4],
+        x: &[f64],
+        v: Option<&[f64]>,
+        z: Option<(&mut [f64], [f64; 4])>,
+    ) -> ([f64; 4], [f64; 4]) {
+        crate::stagger::portable_stagger4::<Plain, T>(rows, x, v, z)
     }
 }
 

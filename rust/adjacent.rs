@@ -1,0 +1,240 @@
+//! Single-point passes that walk blocks of adjacent prefixes ([`crate::stagger`]).
+//!
+//! A block is the prefixes (L, k0 + r), r < count <= 4, sharing the leading indices L;
+//! the sums over r below run over every block of the run. With
+//! B = prod_m x_{L_m}, Q_m = B / x_{L_m} (as a leave-one-out product), the row sums
+//! Sx_r = sum_t a_{r,t} x_t and Sv_r = sum_t a_{r,t} v_t, and T = sum_r x_{k0+r} Sx_r, the
+//! formulas of [`crate::kernels`] become, per block:
+//!
+//! ```text
+//! energy    H += B T
+//! gradient  g_t += sum_r (B x_{k0+r}) a_{r,t},  g_{k0+r} += B Sx_r,  g_{L_m} += Q_m T
+//! Hess . v  w_t += sum_r D_r a_{r,t},  D_r = dB x_{k0+r} + B v_{k0+r},  dB = sum_m v_{L_m} Q_m
+//!           w_{k0+r} += B Sv_r + dB Sx_r
+//!           w_{L_m} += Q_m sum_r (x_{k0+r} Sv_r + v_{k0+r} Sx_r) + dQ_m T,
+//!           dQ_m = sum_{m' != m} v_{L_m'} R_{m m'}   (R: leave-two-out products over L)
+//! ```
+//!
+//! The products over L and the sums over r only change with the run (all rows k0.. of one L),
+//! so they are formed once per run and the updates of g_{L_m}, w_{L_m} and H are made there.
+
+use crate::simd::{leave_one_out, leave_two_out, Madd, MAX_PREFIX};
+use crate::stagger::{rows_at, stagger4, Runs};
+use crate::storage::Coef;
+
+/// Products over the leading indices of the current run (see the module doc).
+struct Leading {
+    base: f64,
+    q: [f64; MAX_PREFIX],
+    dbase: f64,
+    dq: [f64; MAX_PREFIX],
+}
+
+impl Leading {
+    fn new() -> Self {
+        Leading {
+            base: 1.0,
+            q: [0.0; MAX_PREFIX],
+            dbase: 0.0,
+            dq: [0.0; MAX_PREFIX],
+        }
+    }
+
+    /// The products for a new run with leading indices `lead` (at x, and with `v` the
+    /// directional ones).
+    #[inline(always)]
+    #[allow(clippy::needless_range_loop)] // m and k index the prefix in several arrays
+    fn set(&mut self, lead: &[usize], x: &[f64], v: Option<&[f64]>) {
+        let l = lead.len();
+        let mut xl = [0f64; MAX_PREFIX];
+        for (o, &i) in xl.iter_mut().zip(lead) {
+            *o = x[i];
+        }
+        self.base = leave_one_out(&xl[..l], &mut self.q);
+        if let Some(v) = v {
+            let mut r = [[0f64; MAX_PREFIX]; MAX_PREFIX];
+            if l >= 2 {
+                leave_two_out(&xl[..l], &mut r);
+            }
+            self.dbase = (0..l).map(|m| v[lead[m]] * self.q[m]).sum();
+            for m in 0..l {
+                let mut d = 0.0;
+                for k in 0..l {
+                    if k != m {
+                        d += v[lead[k]] * if m < k { r[m][k] } else { r[k][m] };
+                    }
+                }
+                self.dq[m] = d;
+            }
+        }
+    }
+}
+
+/// Energy of an item's prefixes with first index lo..hi (`coeffs` are the item's).
+#[inline(always)]
+pub(crate) fn energy_blocks<M: Madd, T: Coef>(
+    n: usize,
+    degree: usize,
+    (lo, hi): (usize, usize),
+    coeffs: &[T],
+    x: &[f64],
+) -> f64 {
+    let zeros = vec![T::default(); n];
+    let mut lead = Leading::new();
+    let mut e = 0.0;
+    let mut runs = Runs::new(n, degree, lo, hi);
+    while let Some((mut k, k_end, mut pos)) = runs.next_run() {
+        lead.set(runs.lead(), x, None);
+        let mut run_total = 0.0;
+        while k < k_end {
+            let count = (k_end - k).min(4);
+            let (rows, next) = rows_at(n, k, pos, count, coeffs, &zeros);
+            let (s, _) = stagger4::<M, T>(rows, &x[k..], None, None);
+            for r in 0..count {
+                run_total = M::madd(x[k + r], s[r], run_total);
+            }
+            (k, pos) = (k + count, next);
+        }
+        e = M::madd(lead.base, run_total, e);
+    }
+    e
+}
+
+/// Gradient (added to `g`) and energy (returned) of an item's prefixes.
+#[inline(always)]
+pub(crate) fn gradient_blocks<M: Madd, T: Coef>(
+    n: usize,
+    degree: usize,
+    (lo, hi): (usize, usize),
+    coeffs: &[T],
+    x: &[f64],
+    g: &mut [f64],
+) -> f64 {
+    let zeros = vec![T::default(); n];
+    let mut lead = Leading::new();
+    let mut e = 0.0;
+    let mut runs = Runs::new(n, degree, lo, hi);
+    while let Some((mut k, k_end, mut pos)) = runs.next_run() {
+        lead.set(runs.lead(), x, None);
+        let base = lead.base;
+        let mut run_total = 0.0;
+        while k < k_end {
+            let count = (k_end - k).min(4);
+            let mut w = [0f64; 4];
+            for r in 0..count {
+                w[r] = base * x[k + r];
+            }
+            let (rows, next) = rows_at(n, k, pos, count, coeffs, &zeros);
+            let (s, _) = stagger4::<M, T>(rows, &x[k..], None, Some((&mut g[k..], w)));
+            for r in 0..count {
+                run_total = M::madd(x[k + r], s[r], run_total);
+                g[k + r] = M::madd(base, s[r], g[k + r]);
+            }
+            (k, pos) = (k + count, next);
+        }
+        e = M::madd(base, run_total, e);
+        for (m, &i) in runs.lead().iter().enumerate() {
+            g[i] = M::madd(lead.q[m], run_total, g[i]);
+        }
+    }
+    e
+}
+
+/// Hessian-vector product of an item's prefixes at x along v, added to `w`.
+#[inline(always)]
+pub(crate) fn hvp_blocks<M: Madd, T: Coef>(
+    n: usize,
+    degree: usize,
+    (lo, hi): (usize, usize),
+    coeffs: &[T],
+    (x, v): (&[f64], &[f64]),
+    w: &mut [f64],
+) {
+    let zeros = vec![T::default(); n];
+    let mut lead = Leading::new();
+    let mut runs = Runs::new(n, degree, lo, hi);
+    while let Some((mut k, k_end, mut pos)) = runs.next_run() {
+        lead.set(runs.lead(), x, Some(v));
+        let (base, dbase) = (lead.base, lead.dbase);
+        let (mut mixed, mut total) = (0.0, 0.0);
+        while k < k_end {
+            let count = (k_end - k).min(4);
+            let mut d = [0f64; 4];
+            for r in 0..count {
+                d[r] = M::madd(dbase, x[k + r], base * v[k + r]);
+            }
+            let (rows, next) = rows_at(n, k, pos, count, coeffs, &zeros);
+            let (sx, sv) = stagger4::<M, T>(rows, &x[k..], Some(&v[k..]), Some((&mut w[k..], d)));
+            for r in 0..count {
+                w[k + r] += M::madd(dbase, sx[r], base * sv[r]);
+                mixed = M::madd(v[k + r], sx[r], M::madd(x[k + r], sv[r], mixed));
+                total = M::madd(x[k + r], sx[r], total);
+            }
+            (k, pos) = (k + count, next);
+        }
+        for (m, &i) in runs.lead().iter().enumerate() {
+            w[i] += M::madd(lead.dq[m], total, lead.q[m] * mixed);
+        }
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use crate::kernels::tests::{naive, pool};
+    use crate::sampling::Disorder;
+    use crate::simd::{has_avx2_fma, Fused, Plain};
+    use crate::storage::Packed;
+
+    /// Both instruction-set paths of the three passes against the naive sums, per degree,
+    /// over two items that split the first indices.
+    #[test]
+    fn both_paths_match_naive_sums() {
+        let n = 10;
+        for degree in 2..=6usize {
+            let poly =
+                Packed::<f64>::sample(&pool(1), n, &[(degree, 1.0)], &Disorder::new(5)).unwrap();
+            let coeffs = &poly.blocks()[0].coeffs;
+            let x: Vec<f64> = (0..n).map(|i| 0.3 + (i as f64 * 0.7).sin()).collect();
+            let v: Vec<f64> = (0..n).map(|i| (i as f64 * 0.4).cos()).collect();
+            let (e0, g0, h0) = naive(&poly, &x);
+            let hv0: Vec<f64> = (0..n)
+                .map(|r| (0..n).map(|c| h0[r * n + c] * v[c]).sum())
+                .collect();
+            // items: first indices 0..3 and 3..n (the second starts at the offset of index 3)
+            let split = crate::combinatorics::first_index_offset(n, degree, 3);
+            let parts = [((0, 3), &coeffs[..split]), ((3, n), &coeffs[split..])];
+            let run = |fused: bool| {
+                let (mut e, mut e2, mut g, mut w) = (0.0, 0.0, vec![0.0; n], vec![0.0; n]);
+                for (span, c) in parts {
+                    if fused {
+                        e += energy_blocks::<Fused, f64>(n, degree, span, c, &x);
+                        e2 += gradient_blocks::<Fused, f64>(n, degree, span, c, &x, &mut g);
+                        hvp_blocks::<Fused, f64>(n, degree, span, c, (&x, &v), &mut w);
+                    } else {
+                        e += energy_blocks::<Plain, f64>(n, degree, span, c, &x);
+                        e2 += gradient_blocks::<Plain, f64>(n, degree, span, c, &x, &mut g);
+                        hvp_blocks::<Plain, f64>(n, degree, span, c, (&x, &v), &mut w);
+                    }
+                }
+                (e, e2, g, w)
+            };
+            let mut paths = vec![run(false)];
+            if has_avx2_fma() {
+                paths.push(run(true));
+            }
+            let scale = 1.0 + e0.abs() + h0.iter().map(|t| t.abs()).sum::<f64>();
+            let close = |a: f64, b: f64| (a - b).abs() <= 1e-12 * scale;
+            for (e, e2, g, w) in paths {
+                assert!(
+                    close(e, e0) && close(e2, e0),
+                    "degree {degree}: {e} vs {e0}"
+                );
+                for i in 0..n {
+                    assert!(close(g[i], g0[i]), "degree {degree} gradient {i}");
+                    assert!(close(w[i], hv0[i]), "degree {degree} hvp {i}");
+                }
+            }
+        }
+    }
+}

@@ -1,0 +1,357 @@
+//! Blocks of adjacent prefixes for the single-point kernels, and their inner loop.
+//!
+//! Prefixes that differ only in their last index k, k + 1, ... (a run) have segments that
+//! follow each other in memory; the segment of k + r starts r positions later in t and all
+//! end at the same t. A block is up to four of them. Walking blocks instead of prefixes shares
+//! the prefix set-up, the reads of x_t (v_t, g_t) and the loop overhead among four short
+//! segments, which is what costs most at high degree, where segments are about n / p long.
+//!
+//! The loop ([`stagger4`]) computes, for rows r = 0..4 with row r covering u = r..len:
+//!
+//! ```text
+//! Sx[r] = sum_u a_r[u - r] x[u],   Sv[r] = sum_u a_r[u - r] v[u],
+//! z[u] += sum_r w[r] a_r[u - r]
+//! ```
+//!
+//! The main loop runs four positions at a time from u = 3, where all four rows are active;
+//! the first three positions and the last len mod 4 go through scalar steps.
+
+use crate::simd::{Madd, Prefixes};
+use crate::storage::Coef;
+
+/// The runs of an item (first indices lo..hi of one degree p >= 2): for p >= 3, each
+/// sequence of leading indices L = (i1 <= ... <= i_{p-2}) in lexicographic order, whose rows
+/// (prefixes (L, k)) are k = k0..n with k0 = i_{p-2}; for p = 2, one run of rows k = lo..hi.
+/// Row k has n - k coefficients and the rows of a run follow each other in memory.
+pub struct Runs {
+    walk: Option<Prefixes>,
+    n: usize,
+    pos: usize,
+    next_pos: usize,
+    span: (usize, usize),
+}
+
+impl Runs {
+    pub fn new(n: usize, degree: usize, lo: usize, hi: usize) -> Self {
+        Runs {
+            walk: (degree >= 3).then(|| Prefixes::new(n, degree - 1, lo, hi)),
+            n,
+            pos: 0,
+            next_pos: 0,
+            span: (lo, hi),
+        }
+    }
+
+    /// The next run as (k0, k_end, offset of its first row in the item), or None.
+    #[inline(always)]
+    pub fn next_run(&mut self) -> Option<(usize, usize, usize)> {
+        let n = self.n;
+        match &mut self.walk {
+            None => {
+                let (lo, hi) = std::mem::take(&mut self.span);
+                (lo < hi).then_some((lo, hi, 0))
+            }
+            Some(walk) => {
+                let (k0, _) = walk.next_prefix()?;
+                self.pos = self.next_pos;
+                let m = n - k0;
+                self.next_pos = self.pos + m * (m + 1) / 2;
+                Some((k0, n, self.pos))
+            }
+        }
+    }
+
+    /// The leading indices of the current run (empty for degree 2).
+    #[inline(always)]
+    pub fn lead(&self) -> &[usize] {
+        match &self.walk {
+            Some(walk) => walk.prefix(),
+            None => &[],
+        }
+    }
+}
+
+/// The four rows k..k+4 of a run starting at offset `pos` of `coeffs`, of lengths n - k - r;
+/// rows r >= `count` are zeros. Returns the rows and the offset after the real ones.
+#[inline(always)]
+pub fn rows_at<'a, T>(
+    n: usize,
+    k: usize,
+    pos: usize,
+    count: usize,
+    coeffs: &'a [T],
+    zeros: &'a [T],
+) -> ([&'a [T]; 4], usize) {
+    let len = n - k;
+    let lens = [
+        len,
+        len.saturating_sub(1),
+        len.saturating_sub(2),
+        len.saturating_sub(3),
+    ];
+    let mut rows = [
+        &zeros[..lens[0]],
+        &zeros[..lens[1]],
+        &zeros[..lens[2]],
+        &zeros[..lens[3]],
+    ];
+    let mut p = pos;
+    for r in 0..count {
+        rows[r] = &coeffs[p..p + lens[r]];
+        p += lens[r];
+    }
+    (rows, p)
+}
+
+/// Coefficient of row r at position u (zero before the row starts).
+#[inline(always)]
+fn row_coef<T: Coef>(rows: &[&[T]; 4], r: usize, u: usize) -> f64 {
+    if u >= r {
+        rows[r][u - r].to_f64()
+    } else {
+        0.0
+    }
+}
+
+/// The four coefficients at position u < 3, zeros for rows that have not started.
+#[inline(always)]
+pub(crate) fn head_coefs<T: Coef>(rows: &[&[T]; 4], u: usize) -> [f64; 4] {
+    [
+        row_coef(rows, 0, u),
+        row_coef(rows, 1, u),
+        row_coef(rows, 2, u),
+        row_coef(rows, 3, u),
+    ]
+}
+
+/// The four coefficients at position u >= 3.
+#[inline(always)]
+pub(crate) fn coefs_at<T: Coef>(rows: &[&[T]; 4], u: usize) -> [f64; 4] {
+    [
+        rows[0][u].to_f64(),
+        rows[1][u - 1].to_f64(),
+        rows[2][u - 2].to_f64(),
+        rows[3][u - 3].to_f64(),
+    ]
+}
+
+/// The checks every implementation relies on; returns len.
+#[inline(always)]
+pub(crate) fn check_rows<T>(rows: &[&[T]; 4], x: &[f64], v: Option<&[f64]>, z: usize) -> usize {
+    let len = rows[0].len();
+    for (r, row) in rows.iter().enumerate() {
+        assert_eq!(row.len(), len.saturating_sub(r), "row {r}");
+    }
+    assert!(x.len() >= len && v.is_none_or(|v| v.len() >= len));
+    assert!(z == 0 || z >= len);
+    len
+}
+
+/// One scalar position: the same arithmetic as a lane of the vector loop.
+#[inline(always)]
+#[allow(clippy::too_many_arguments)]
+pub(crate) fn stagger_step<M: Madd>(
+    c: [f64; 4],
+    xu: f64,
+    vu: f64,
+    want_v: bool,
+    sx: &mut [f64; 4],
+    sv: &mut [f64; 4],
+    z: Option<(&mut f64, &[f64; 4])>,
+) {
+    for r in 0..4 {
+        sx[r] = M::madd(c[r], xu, sx[r]);
+        if want_v {
+            sv[r] = M::madd(c[r], vu, sv[r]);
+        }
+    }
+    if let Some((zu, w)) = z {
+        let t01 = M::madd(c[1], w[1], c[0] * w[0]);
+        let t23 = M::madd(c[3], w[3], c[2] * w[2]);
+        *zu += t01 + t23;
+    }
+}
+
+/// Portable [`stagger4`]: per lane the operations of the AVX2 loop in its order (lane sums
+/// combined as (l0 + l2) + (l1 + l3), then the scalar positions added).
+#[inline(always)]
+#[allow(clippy::needless_range_loop)] // r and l index rows and lanes of several arrays at once
+pub(crate) fn portable_stagger4<M: Madd, T: Coef>(
+    rows: [&[T]; 4],
+    x: &[f64],
+    v: Option<&[f64]>,
+    z: Option<(&mut [f64], [f64; 4])>,
+) -> ([f64; 4], [f64; 4]) {
+    let zlen = z.as_ref().map_or(0, |(z, _)| z.len());
+    let len = check_rows(&rows, x, v, zlen);
+    let want_v = v.is_some();
+    let vs = v.unwrap_or(x);
+    let (mut z, w) = match z {
+        Some((z, w)) => (Some(z), w),
+        None => (None, [0.0; 4]),
+    };
+    let (mut sx, mut sv) = ([0f64; 4], [0f64; 4]);
+    let (mut lx, mut lv) = ([[0f64; 4]; 4], [[0f64; 4]; 4]);
+    let head = len.min(3);
+    let body_end = head + (len - head) / 4 * 4;
+    for u in 0..head {
+        let c = head_coefs(&rows, u);
+        let zu = z.as_deref_mut().map(|z| (&mut z[u], &w));
+        stagger_step::<M>(c, x[u], vs[u], want_v, &mut sx, &mut sv, zu);
+    }
+    let mut u = head;
+    while u < body_end {
+        for l in 0..4 {
+            let c = coefs_at(&rows, u + l);
+            let mut tx = [0f64; 4];
+            let mut tv = [0f64; 4];
+            for r in 0..4 {
+                tx[r] = lx[r][l];
+                tv[r] = lv[r][l];
+            }
+            let zu = z.as_deref_mut().map(|z| (&mut z[u + l], &w));
+            stagger_step::<M>(c, x[u + l], vs[u + l], want_v, &mut tx, &mut tv, zu);
+            for r in 0..4 {
+                lx[r][l] = tx[r];
+                lv[r][l] = tv[r];
+            }
+        }
+        u += 4;
+    }
+    let mut tail_x = [0f64; 4];
+    let mut tail_v = [0f64; 4];
+    for u in body_end..len {
+        let c = coefs_at(&rows, u);
+        let zu = z.as_deref_mut().map(|z| (&mut z[u], &w));
+        stagger_step::<M>(c, x[u], vs[u], want_v, &mut tail_x, &mut tail_v, zu);
+    }
+    let fold = |l: &[f64; 4]| (l[0] + l[2]) + (l[1] + l[3]);
+    for r in 0..4 {
+        sx[r] = (fold(&lx[r]) + sx[r]) + tail_x[r];
+        sv[r] = (fold(&lv[r]) + sv[r]) + tail_v[r];
+    }
+    (sx, sv)
+}
+
+/// The loop of the module doc on the instruction set `M` chooses. `v` None skips Sv (returned
+/// as zeros); `z` None skips the update.
+#[inline(always)]
+pub fn stagger4<M: Madd, T: Coef>(
+    rows: [&[T]; 4],
+    x: &[f64],
+    v: Option<&[f64]>,
+    z: Option<(&mut [f64], [f64; 4])>,
+) -> ([f64; 4], [f64; 4]) {
+    M::stagger4(rows, x, v, z)
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use crate::combinatorics::num_multisets;
+    use crate::simd::{has_avx2_fma, Fused, Plain};
+
+    fn check<M: Madd, T: Coef>(len: usize, with_v: bool, with_z: bool) {
+        let rows: [Vec<T>; 4] = [0, 1, 2, 3].map(|r| {
+            (0..len.saturating_sub(r))
+                .map(|i| T::from_f64(((i * 5 + r * 11) as f64 * 0.37).sin()))
+                .collect()
+        });
+        let x: Vec<f64> = (0..len).map(|u| (u as f64 * 0.21).cos()).collect();
+        let v: Vec<f64> = (0..len).map(|u| 1.0 / (2.0 + u as f64)).collect();
+        let w = [0.5, -1.25, 2.0, 0.75];
+        let mut z = vec![0.125; len];
+        let refs = [&rows[0][..], &rows[1][..], &rows[2][..], &rows[3][..]];
+        let zarg = if with_z { Some((&mut z[..], w)) } else { None };
+        let vopt = if with_v { Some(&v[..]) } else { None };
+        let (sx, sv) = stagger4::<M, T>(refs, &x, vopt, zarg);
+        for r in 0..4 {
+            let (mut wx, mut wv) = (0.0, 0.0);
+            for (i, a) in rows[r].iter().enumerate() {
+                wx += a.to_f64() * x[i + r];
+                wv += a.to_f64() * v[i + r];
+            }
+            assert!((sx[r] - wx).abs() < 1e-12, "Sx row {r}, len {len}");
+            let want_v = if with_v { wv } else { 0.0 };
+            assert!((sv[r] - want_v).abs() < 1e-12, "Sv row {r}, len {len}");
+        }
+        for u in 0..len {
+            let mut want = 0.125;
+            if with_z {
+                for r in 0..=u.min(3) {
+                    want += w[r] * rows[r][u - r].to_f64();
+                }
+            }
+            assert!((z[u] - want).abs() < 1e-12, "z[{u}], len {len}");
+        }
+    }
+
+    #[test]
+    fn stagger4_matches_its_definition() {
+        for len in [0, 1, 2, 3, 4, 6, 7, 11, 30] {
+            for (v, z) in [(false, false), (false, true), (true, true)] {
+                check::<Plain, f64>(len, v, z);
+                check::<Plain, f32>(len, v, z);
+                if has_avx2_fma() {
+                    check::<Fused, f64>(len, v, z);
+                    check::<Fused, f32>(len, v, z);
+                }
+            }
+        }
+    }
+
+    #[test]
+    fn vector_loop_matches_portable_loop_bit_for_bit() {
+        if !has_avx2_fma() {
+            return;
+        }
+        let len = 29;
+        let rows: [Vec<f64>; 4] =
+            [0, 1, 2, 3].map(|r| (0..len - r).map(|i| ((i + 3 * r) as f64).sin()).collect());
+        let refs = [&rows[0][..], &rows[1][..], &rows[2][..], &rows[3][..]];
+        let x: Vec<f64> = (0..len).map(|u| (u as f64 * 0.7).cos()).collect();
+        let v: Vec<f64> = (0..len).map(|u| (u as f64 * 0.3).sin()).collect();
+        let w = [0.3, -0.7, 1.1, 0.9];
+        let (mut z1, mut z2) = (vec![0.0; len], vec![0.0; len]);
+        let a = stagger4::<Fused, f64>(refs, &x, Some(&v), Some((&mut z1, w)));
+        let b = portable_stagger4::<Fused, f64>(refs, &x, Some(&v), Some((&mut z2, w)));
+        assert_eq!(a, b);
+        assert_eq!(z1, z2);
+    }
+
+    #[test]
+    fn runs_cover_every_prefix_once_in_order() {
+        for (n, degree, lo, hi) in [(9usize, 2usize, 3usize, 7usize), (9, 3, 2, 6), (7, 4, 0, 7)] {
+            let mut walk = Prefixes::new(n, degree, lo, hi);
+            let mut want = Vec::new();
+            while let Some((t0, pos)) = walk.next_prefix() {
+                want.push((walk.prefix().to_vec(), t0, pos));
+            }
+            let mut got = Vec::new();
+            let mut runs = Runs::new(n, degree, lo, hi);
+            let zeros = vec![0u8; n];
+            let coeffs = vec![0u8; want.last().map_or(0, |w| w.2 + n - w.1)];
+            while let Some((k0, k_end, mut pos)) = runs.next_run() {
+                let mut k = k0;
+                while k < k_end {
+                    let count = (k_end - k).min(4);
+                    let (rows, next) = rows_at(n, k, pos, count, &coeffs, &zeros);
+                    for (r, row) in rows.iter().enumerate() {
+                        assert_eq!(row.len(), (n - k).saturating_sub(r));
+                    }
+                    for r in 0..count {
+                        let mut pre = runs.lead().to_vec();
+                        pre.push(k + r);
+                        got.push((pre, k + r, pos));
+                        pos += n - k - r;
+                    }
+                    assert_eq!(pos, next);
+                    k += count;
+                }
+            }
+            assert_eq!(got, want);
+            let count = |s: usize| num_multisets(n - s, degree - 1).unwrap();
+            assert_eq!(got.len(), count(lo) - count(hi));
+        }
+    }
+}
