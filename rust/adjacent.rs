@@ -19,7 +19,7 @@
 //! so they are formed once per run and the updates of g_{L_m}, w_{L_m} and H are made there.
 
 use crate::simd::{leave_one_out, leave_two_out, Madd, MAX_PREFIX};
-use crate::stagger::{rows_at, stagger4, Runs};
+use crate::stagger::{rows_at, stagger4, stagger4_hess, HessRows, Runs};
 use crate::storage::Coef;
 
 /// Products over the leading indices of the current run (see the module doc).
@@ -178,6 +178,78 @@ pub(crate) fn hvp_blocks<M: Madd, T: Coef>(
     }
 }
 
+/// Hessian accumulator A (n x n, upper part; Hess = A + A^T) of an item's prefixes at x.
+///
+/// Per block, with Sx_r as above: rows k + r get B a_r, the shared rows L_m get Q_m U with
+/// U = sum_r x_{k+r} a_r (equal leading indices share one row, weights summed), and
+/// A[L_m, k + r] += Q_m Sx_r; per run, A[L_m, L_m'] += R_{m m'} T (m < m').
+#[inline(always)]
+pub(crate) fn hessian_blocks<M: Madd, T: Coef>(
+    n: usize,
+    degree: usize,
+    (lo, hi): (usize, usize),
+    coeffs: &[T],
+    x: &[f64],
+    acc: &mut [f64],
+) {
+    let zeros = vec![T::default(); n];
+    let mut runs = Runs::new(n, degree, lo, hi);
+    let mut q = [0f64; MAX_PREFIX];
+    let mut r2 = [[0f64; MAX_PREFIX]; MAX_PREFIX];
+    while let Some((mut k, k_end, mut pos)) = runs.next_run() {
+        let lead = runs.lead();
+        let l = lead.len();
+        let mut xl = [0f64; MAX_PREFIX];
+        for (o, &i) in xl.iter_mut().zip(lead) {
+            *o = x[i];
+        }
+        let base = leave_one_out(&xl[..l], &mut q);
+        if l >= 2 {
+            leave_two_out(&xl[..l], &mut r2);
+        }
+        // distinct leading indices (equal ones are adjacent) with summed weights
+        let mut shared = [(0usize, 0f64); MAX_PREFIX];
+        let mut d = 0;
+        for m in 0..l {
+            if d > 0 && shared[d - 1].0 == lead[m] {
+                shared[d - 1].1 += q[m];
+            } else {
+                shared[d] = (lead[m], q[m]);
+                d += 1;
+            }
+        }
+        let mut total = 0.0;
+        while k < k_end {
+            let count = (k_end - k).min(4);
+            let mut xk = [0f64; 4];
+            xk[..count].copy_from_slice(&x[k..k + count]);
+            let (rows, next) = rows_at(n, k, pos, count, coeffs, &zeros);
+            let h = HessRows {
+                n,
+                k,
+                shared: &shared[..d],
+                b: base,
+                xk,
+            };
+            let s = stagger4_hess::<M, T>(rows, &x[k..], acc, &h);
+            for r in 0..count {
+                total = M::madd(xk[r], s[r], total);
+                for &(i, w) in &shared[..d] {
+                    let at = i * n + k + r;
+                    acc[at] = M::madd(w, s[r], acc[at]);
+                }
+            }
+            (k, pos) = (k + count, next);
+        }
+        for m in 0..l {
+            for m2 in m + 1..l {
+                let at = lead[m] * n + lead[m2];
+                acc[at] = M::madd(r2[m][m2], total, acc[at]);
+            }
+        }
+    }
+}
+
 #[cfg(test)]
 mod tests {
     use super::*;
@@ -186,7 +258,7 @@ mod tests {
     use crate::simd::{has_avx2_fma, Fused, Plain};
     use crate::storage::Packed;
 
-    /// Both instruction-set paths of the three passes against the naive sums, per degree,
+    /// Both instruction-set paths of the four passes against the naive sums, per degree,
     /// over two items that split the first indices.
     #[test]
     fn both_paths_match_naive_sums() {
@@ -206,18 +278,23 @@ mod tests {
             let parts = [((0, 3), &coeffs[..split]), ((3, n), &coeffs[split..])];
             let run = |fused: bool| {
                 let (mut e, mut e2, mut g, mut w) = (0.0, 0.0, vec![0.0; n], vec![0.0; n]);
+                let mut a = vec![0.0; n * n];
                 for (span, c) in parts {
                     if fused {
                         e += energy_blocks::<Fused, f64>(n, degree, span, c, &x);
                         e2 += gradient_blocks::<Fused, f64>(n, degree, span, c, &x, &mut g);
                         hvp_blocks::<Fused, f64>(n, degree, span, c, (&x, &v), &mut w);
+                        hessian_blocks::<Fused, f64>(n, degree, span, c, &x, &mut a);
                     } else {
                         e += energy_blocks::<Plain, f64>(n, degree, span, c, &x);
                         e2 += gradient_blocks::<Plain, f64>(n, degree, span, c, &x, &mut g);
                         hvp_blocks::<Plain, f64>(n, degree, span, c, (&x, &v), &mut w);
+                        hessian_blocks::<Plain, f64>(n, degree, span, c, &x, &mut a);
                     }
                 }
-                (e, e2, g, w)
+                // Hess = A + A^T
+                let hess: Vec<f64> = (0..n * n).map(|i| a[i] + a[(i % n) * n + i / n]).collect();
+                (e, e2, g, w, hess)
             };
             let mut paths = vec![run(false)];
             if has_avx2_fma() {
@@ -225,11 +302,17 @@ mod tests {
             }
             let scale = 1.0 + e0.abs() + h0.iter().map(|t| t.abs()).sum::<f64>();
             let close = |a: f64, b: f64| (a - b).abs() <= 1e-12 * scale;
-            for (e, e2, g, w) in paths {
+            for (e, e2, g, w, hess) in paths {
                 assert!(
                     close(e, e0) && close(e2, e0),
                     "degree {degree}: {e} vs {e0}"
                 );
+                for (i, (a, b)) in hess.iter().zip(&h0).enumerate() {
+                    assert!(
+                        close(*a, *b),
+                        "degree {degree} Hessian entry {i}: {a} vs {b}"
+                    );
+                }
                 for i in 0..n {
                     assert!(close(g[i], g0[i]), "degree {degree} gradient {i}");
                     assert!(close(w[i], hv0[i]), "degree {degree} hvp {i}");

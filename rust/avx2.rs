@@ -9,7 +9,7 @@
 use core::arch::x86_64::*;
 
 use crate::simd::Fused;
-use crate::stagger::{check_rows, coefs_at, head_coefs, stagger_step};
+use crate::stagger::{check_rows, lane_from, short_stagger4, HessRows, Steps};
 use crate::storage::Coef;
 use crate::tile::{check_tile, tile_coef, TileSums};
 
@@ -543,11 +543,41 @@ pub fn tile<T: Coef, const G: usize>(
 }
 
 /// Prefetch distance of [`stagger4`], in bytes.
-const PREFETCH: usize = 4096;
+const PREFETCH: usize = 2048;
 
-/// The adjacent-rows loop of [`crate::stagger`]: four positions at a time from u = 3, one
-/// load of x (v, z) for the four rows; the first three and the last len mod 4 positions use
-/// the scalar step with fused multiply-add, so a lane does what the portable loop does.
+/// The coefficients of a vector step (u, from) of [`crate::stagger::Steps`]: row r at lanes
+/// l >= lane_from(u, from, r), zero elsewhere (masked loads only where lanes are left out).
+#[inline(always)]
+unsafe fn step_coefs<T: Coef>(pa: &[*const T; 4], u: usize, from: usize) -> [__m256d; 4] {
+    if from == 0 && u >= 3 {
+        return [
+            T::load4(pa[0].add(u)),
+            T::load4(pa[1].add(u - 1)),
+            T::load4(pa[2].add(u - 2)),
+            T::load4(pa[3].add(u - 3)),
+        ];
+    }
+    [
+        T::load4_from(pa[0].wrapping_add(u), lane_from(u, from, 0)),
+        T::load4_from(pa[1].wrapping_add(u).wrapping_sub(1), lane_from(u, from, 1)),
+        T::load4_from(pa[2].wrapping_add(u).wrapping_sub(2), lane_from(u, from, 2)),
+        T::load4_from(pa[3].wrapping_add(u).wrapping_sub(3), lane_from(u, from, 3)),
+    ]
+}
+
+/// Software prefetch of the block's region, `step` bytes further each call.
+#[inline(always)]
+unsafe fn prefetch_ahead(pf: &mut *const u8, step: usize) {
+    _mm_prefetch::<_MM_HINT_T0>(*pf as *const i8);
+    _mm_prefetch::<_MM_HINT_T0>(pf.wrapping_add(64) as *const i8);
+    *pf = pf.wrapping_add(step);
+}
+
+/// The adjacent-rows loop of [`crate::stagger`] in vector steps: one load of x (v, z) for
+/// the four rows per four positions, masked coefficient loads at the first and last step;
+/// rows shorter than 4 take the shared scalar path. The four rows are short streams
+/// interleaved in one region, which the hardware prefetcher does not pick up, so the loop
+/// prefetches PREFETCH bytes ahead (wrapping: a prefetch never faults).
 #[inline(always)]
 #[allow(clippy::needless_range_loop)] // r indexes rows of several arrays at once
 pub fn stagger4<T: Coef>(
@@ -558,23 +588,19 @@ pub fn stagger4<T: Coef>(
 ) -> ([f64; 4], [f64; 4]) {
     let zlen = z.as_ref().map_or(0, |(z, _)| z.len());
     let len = check_rows(&rows, x, v, zlen);
+    if len < 4 {
+        return short_stagger4::<Fused, T>(&rows, x, v, z);
+    }
     let want_v = v.is_some();
     let vs = v.unwrap_or(x);
-    let (mut z, w) = match z {
+    let (z, w) = match z {
         Some((z, w)) => (Some(z), w),
         None => (None, [0.0; 4]),
     };
-    let (mut sx, mut sv) = ([0f64; 4], [0f64; 4]);
-    let head = len.min(3);
-    let body_end = head + (len - head) / 4 * 4;
-    for u in 0..head {
-        let c = head_coefs(&rows, u);
-        let zu = z.as_deref_mut().map(|z| (&mut z[u], &w));
-        stagger_step::<Fused>(c, x[u], vs[u], want_v, &mut sx, &mut sv, zu);
-    }
-    // SAFETY: for head <= u < body_end, positions u..u+4 are < len, within x, v and z (by
-    // `check_rows`), and row r is read at u - r..u - r + 4 <= len - r, its length.
-    let (lx, lv) = unsafe {
+    let pz = z.map(|z| z.as_mut_ptr());
+    // SAFETY: every step covers positions u..u+4 <= len, inside x, v and z (`check_rows`);
+    // row r is read at lanes l >= lane_from(u, from, r) only, at u + l - r < len - r.
+    unsafe {
         let (px, pv) = (x.as_ptr(), vs.as_ptr());
         let pa = [
             rows[0].as_ptr(),
@@ -590,22 +616,11 @@ pub fn stagger4<T: Coef>(
             _mm256_set1_pd(w[2]),
             _mm256_set1_pd(w[3]),
         ];
-        // The four rows are short streams interleaved in one region, which the hardware
-        // prefetcher does not pick up; prefetch the region PREFETCH bytes ahead of the 16
-        // coefficients each step consumes (wrapping: a prefetch never faults).
         let mut pf = (pa[0] as *const u8).wrapping_add(PREFETCH);
         let step = 16 * std::mem::size_of::<T>();
-        let mut u = head;
-        while u < body_end {
-            _mm_prefetch::<_MM_HINT_T0>(pf as *const i8);
-            _mm_prefetch::<_MM_HINT_T0>(pf.wrapping_add(64) as *const i8);
-            pf = pf.wrapping_add(step);
-            let c = [
-                T::load4(pa[0].add(u)),
-                T::load4(pa[1].add(u - 1)),
-                T::load4(pa[2].add(u - 2)),
-                T::load4(pa[3].add(u - 3)),
-            ];
+        for (u, from) in Steps::new(len) {
+            prefetch_ahead(&mut pf, step);
+            let c = step_coefs(&pa, u, from);
             let xv = _mm256_loadu_pd(px.add(u));
             for r in 0..4 {
                 ax[r] = _mm256_fmadd_pd(c[r], xv, ax[r]);
@@ -616,8 +631,8 @@ pub fn stagger4<T: Coef>(
                     av[r] = _mm256_fmadd_pd(c[r], vv, av[r]);
                 }
             }
-            if let Some(z) = z.as_deref_mut() {
-                let pz = z.as_mut_ptr().add(u);
+            if let Some(pz) = pz {
+                let pz = pz.add(u);
                 let t01 = _mm256_fmadd_pd(c[1], wv[1], _mm256_mul_pd(c[0], wv[0]));
                 let t23 = _mm256_fmadd_pd(c[3], wv[3], _mm256_mul_pd(c[2], wv[2]));
                 _mm256_storeu_pd(
@@ -625,28 +640,80 @@ pub fn stagger4<T: Coef>(
                     _mm256_add_pd(_mm256_loadu_pd(pz), _mm256_add_pd(t01, t23)),
                 );
             }
-            u += 4;
         }
-        let mut lx = [0f64; 4];
-        let mut lv = [0f64; 4];
+        let (mut sx, mut sv) = ([0f64; 4], [0f64; 4]);
         for r in 0..4 {
-            lx[r] = hsum(ax[r]);
+            sx[r] = hsum(ax[r]);
             if want_v {
-                lv[r] = hsum(av[r]);
+                sv[r] = hsum(av[r]);
             }
         }
-        (lx, lv)
-    };
-    let mut tail_x = [0f64; 4];
-    let mut tail_v = [0f64; 4];
-    for u in body_end..len {
-        let c = coefs_at(&rows, u);
-        let zu = z.as_deref_mut().map(|z| (&mut z[u], &w));
-        stagger_step::<Fused>(c, x[u], vs[u], want_v, &mut tail_x, &mut tail_v, zu);
+        (sx, sv)
     }
-    for r in 0..4 {
-        sx[r] = (lx[r] + sx[r]) + tail_x[r];
-        sv[r] = (lv[r] + sv[r]) + tail_v[r];
+}
+
+/// [`HessRows`] in vector steps: per four positions, four coefficient loads, one load of x,
+/// and the four own rows and the shared rows each loaded, updated and stored once.
+#[inline(always)]
+#[allow(clippy::needless_range_loop)] // r indexes rows of several arrays at once
+pub fn stagger4_hess<T: Coef>(
+    rows: [&[T]; 4],
+    x: &[f64],
+    acc: &mut [f64],
+    h: &HessRows<'_>,
+) -> [f64; 4] {
+    let len = h.check(&rows, x, acc);
+    if len < 4 {
+        return h.short::<Fused, T>(&rows, x, acc);
     }
-    (sx, sv)
+    let (n, k) = (h.n, h.k);
+    // SAFETY: len >= 4, so rows k..k+4 < n exist; a step writes columns k + u..k + u + 4 <= n
+    // of the own rows and of the shared rows (index < n, checked), inside acc (n x n), and
+    // reads x and the rows as in `stagger4`. Own and shared rows may coincide: every access
+    // goes through raw pointers of the one slice, in program order.
+    unsafe {
+        let pacc = acc.as_mut_ptr();
+        let px = x.as_ptr();
+        let pa = [
+            rows[0].as_ptr(),
+            rows[1].as_ptr(),
+            rows[2].as_ptr(),
+            rows[3].as_ptr(),
+        ];
+        let own = [
+            pacc.add(k * n + k),
+            pacc.add((k + 1) * n + k),
+            pacc.add((k + 2) * n + k),
+            pacc.add((k + 3) * n + k),
+        ];
+        let bv = _mm256_set1_pd(h.b);
+        let xk = [
+            _mm256_set1_pd(h.xk[0]),
+            _mm256_set1_pd(h.xk[1]),
+            _mm256_set1_pd(h.xk[2]),
+            _mm256_set1_pd(h.xk[3]),
+        ];
+        let mut sv = [_mm256_setzero_pd(); 4];
+        let mut pf = (pa[0] as *const u8).wrapping_add(PREFETCH);
+        let step = 16 * std::mem::size_of::<T>();
+        for (u, from) in Steps::new(len) {
+            prefetch_ahead(&mut pf, step);
+            let c = step_coefs(&pa, u, from);
+            let xv = _mm256_loadu_pd(px.add(u));
+            for r in 0..4 {
+                sv[r] = _mm256_fmadd_pd(c[r], xv, sv[r]);
+                let row = own[r].add(u);
+                _mm256_storeu_pd(row, _mm256_fmadd_pd(bv, c[r], _mm256_loadu_pd(row)));
+            }
+            let t01 = _mm256_fmadd_pd(c[1], xk[1], _mm256_mul_pd(c[0], xk[0]));
+            let t23 = _mm256_fmadd_pd(c[3], xk[3], _mm256_mul_pd(c[2], xk[2]));
+            let mixed = _mm256_add_pd(t01, t23);
+            for &(i, w) in h.shared {
+                let row = pacc.add(i * n + k + u);
+                let wv = _mm256_set1_pd(w);
+                _mm256_storeu_pd(row, _mm256_fmadd_pd(wv, mixed, _mm256_loadu_pd(row)));
+            }
+        }
+        [hsum(sv[0]), hsum(sv[1]), hsum(sv[2]), hsum(sv[3])]
+    }
 }

@@ -17,7 +17,7 @@
 //! positional product rule counts them (d/dx x^2 = 2x). These satisfy the Euler identities
 //! x . grad H_p = p H_p and Hess H_p x = (p - 1) grad H_p, which the tests check.
 
-use crate::adjacent::{energy_blocks, gradient_blocks, hvp_blocks};
+use crate::adjacent::{energy_blocks, gradient_blocks, hessian_blocks, hvp_blocks};
 use crate::combinatorics::{first_index_offset, num_multisets};
 use crate::error::CoreError;
 use crate::exec::Exec;
@@ -101,7 +101,20 @@ fn energy_item_body<M: Madd, T: Coef>(n: usize, a: &[T], it: &WorkItem, x: &[f64
     if it.degree == 1 {
         return dot::<M, T>(coeffs, &x[it.lo..it.hi]);
     }
-    energy_blocks::<M, T>(n, it.degree, (it.lo, it.hi), coeffs, x)
+    if it.degree != 3 {
+        return energy_blocks::<M, T>(n, it.degree, (it.lo, it.hi), coeffs, x);
+    }
+    // degree 3: segments are long (about n / 3) and one sequential stream reads fastest
+    let mut walk = Prefixes::new(n, it.degree, it.lo, it.hi);
+    let mut xp = [0f64; MAX_PREFIX];
+    let mut e = 0.0;
+    while let Some((t0, pos)) = walk.next_prefix() {
+        let pre = walk.prefix();
+        gather(x, pre, &mut xp);
+        let prod: f64 = xp[..pre.len()].iter().product();
+        e += prod * dot::<M, T>(&coeffs[pos..pos + n - t0], &x[t0..]);
+    }
+    e
 }
 
 simd_dispatch!(fn energy_item => energy_item_body(n: usize, a: &[T], it: &WorkItem, x: &[f64]) -> f64);
@@ -345,6 +358,9 @@ fn hessian_item_body<M: Madd, T: Coef>(
     let coeffs = &a[it.start..it.start + it.len];
     if it.degree == 4 {
         return hessian4_item_body::<M, T>(n, coeffs, it, x, acc);
+    }
+    if it.degree >= 5 {
+        return hessian_blocks::<M, T>(n, it.degree, (it.lo, it.hi), coeffs, x, acc);
     }
     let mut walk = Prefixes::new(n, it.degree, it.lo, it.hi);
     let mut pp = PrefixProducts::new();

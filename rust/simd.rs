@@ -31,6 +31,13 @@ pub trait Madd {
         z: &mut [f64],
         w: [f64; 4],
     ) -> ([f64; 4], [f64; 4]);
+    /// Hessian rows of four adjacent rows (see [`crate::stagger::HessRows`]).
+    fn stagger4_hess<T: Coef>(
+        rows: [&[T]; 4],
+        x: &[f64],
+        acc: &mut [f64],
+        h: &crate::stagger::HessRows<'_>,
+    ) -> [f64; 4];
     /// Four segments at once (see [`rows4_shared2`]).
     fn rows4_shared2<T: Coef>(
         a: [&[T]; 4],
@@ -152,6 +159,15 @@ impl Madd for Fused {
     ) -> ([f64; 4], [f64; 4]) {
         crate::avx2::stagger4(rows, x, v, z)
     }
+    #[inline(always)]
+    fn stagger4_hess<T: Coef>(
+        rows: [&[T]; 4],
+        x: &[f64],
+        acc: &mut [f64],
+        h: &crate::stagger::HessRows<'_>,
+    ) -> [f64; 4] {
+        crate::avx2::stagger4_hess(rows, x, acc, h)
+    }
 }
 
 impl Madd for Plain {
@@ -233,6 +249,15 @@ impl Madd for Plain {
         z: Option<(&mut [f64], [f64; 4])>,
     ) -> ([f64; 4], [f64; 4]) {
         crate::stagger::portable_stagger4::<Plain, T>(rows, x, v, z)
+    }
+    #[inline(always)]
+    fn stagger4_hess<T: Coef>(
+        rows: [&[T]; 4],
+        x: &[f64],
+        acc: &mut [f64],
+        h: &crate::stagger::HessRows<'_>,
+    ) -> [f64; 4] {
+        crate::stagger::portable_stagger4_hess::<Plain, T>(rows, x, acc, h)
     }
 }
 

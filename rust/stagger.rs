@@ -13,8 +13,9 @@
 //! z[u] += sum_r w[r] a_r[u - r]
 //! ```
 //!
-//! The main loop runs four positions at a time from u = 3, where all four rows are active;
-//! the first three positions and the last len mod 4 go through scalar steps.
+//! The loop runs four positions at a time ([`Steps`]): the first step starts every row at its
+//! own lane, and a last, overlapping step covers len mod 4; both load coefficients with lane
+//! masks, so rows of length 4 and more never fall back to scalar steps.
 
 use crate::simd::{Madd, Prefixes};
 use crate::storage::Coef;
@@ -113,25 +114,14 @@ fn row_coef<T: Coef>(rows: &[&[T]; 4], r: usize, u: usize) -> f64 {
     }
 }
 
-/// The four coefficients at position u < 3, zeros for rows that have not started.
+/// The four coefficients at position u, zeros for rows that have not started.
 #[inline(always)]
-pub(crate) fn head_coefs<T: Coef>(rows: &[&[T]; 4], u: usize) -> [f64; 4] {
+pub(crate) fn coefs_at<T: Coef>(rows: &[&[T]; 4], u: usize) -> [f64; 4] {
     [
         row_coef(rows, 0, u),
         row_coef(rows, 1, u),
         row_coef(rows, 2, u),
         row_coef(rows, 3, u),
-    ]
-}
-
-/// The four coefficients at position u >= 3.
-#[inline(always)]
-pub(crate) fn coefs_at<T: Coef>(rows: &[&[T]; 4], u: usize) -> [f64; 4] {
-    [
-        rows[0][u].to_f64(),
-        rows[1][u - 1].to_f64(),
-        rows[2][u - 2].to_f64(),
-        rows[3][u - 3].to_f64(),
     ]
 }
 
@@ -147,7 +137,64 @@ pub(crate) fn check_rows<T>(rows: &[&[T]; 4], x: &[f64], v: Option<&[f64]>, z: u
     len
 }
 
-/// One scalar position: the same arithmetic as a lane of the vector loop.
+/// The vector steps over rows of length len >= 4, as (u, from): positions u..u+4 with lanes
+/// below `from` left out. The first step is at u = 0 (row r then starts at lane r), the full
+/// steps follow at u = 4, 8, ..., and when len is not a multiple of 4 a last step at
+/// u = len - 4 leaves out the lanes already done. Left-out lanes get coefficient zero, so
+/// every step is a whole vector operation and no step reads or writes outside the rows.
+pub(crate) struct Steps {
+    len: usize,
+    u: usize,
+    end: usize,
+}
+
+impl Steps {
+    #[inline(always)]
+    pub(crate) fn new(len: usize) -> Self {
+        debug_assert!(len >= 4);
+        Steps { len, u: 0, end: 0 }
+    }
+}
+
+impl Iterator for Steps {
+    type Item = (usize, usize);
+
+    #[inline(always)]
+    fn next(&mut self) -> Option<(usize, usize)> {
+        if self.end >= self.len {
+            return None;
+        }
+        if self.end + 4 <= self.len {
+            self.u = self.end;
+            self.end += 4;
+            return Some((self.u, 0));
+        }
+        let u = self.len - 4;
+        let from = self.end - u;
+        self.end = self.len;
+        Some((u, from))
+    }
+}
+
+/// Lane l of row r is in step (u, from) when l >= from and the row has started (u + l >= r).
+#[inline(always)]
+pub(crate) fn lane_from(u: usize, from: usize, r: usize) -> usize {
+    from.max(r.saturating_sub(u))
+}
+
+/// The coefficients of a step, per row and lane (zero where left out).
+#[inline(always)]
+fn step_coefs<T: Coef>(rows: &[&[T]; 4], u: usize, from: usize) -> [[f64; 4]; 4] {
+    let mut c = [[0f64; 4]; 4];
+    for (r, cr) in c.iter_mut().enumerate() {
+        for (l, slot) in cr.iter_mut().enumerate().skip(lane_from(u, from, r)) {
+            *slot = rows[r][u + l - r].to_f64();
+        }
+    }
+    c
+}
+
+/// One position of the loop: the same arithmetic as a lane of a vector step.
 #[inline(always)]
 #[allow(clippy::too_many_arguments)]
 pub(crate) fn stagger_step<M: Madd>(
@@ -172,8 +219,36 @@ pub(crate) fn stagger_step<M: Madd>(
     }
 }
 
-/// Portable [`stagger4`]: per lane the operations of the AVX2 loop in its order (lane sums
-/// combined as (l0 + l2) + (l1 + l3), then the scalar positions added).
+/// Rows shorter than 4: one position at a time (shared by both implementations).
+#[inline(always)]
+pub(crate) fn short_stagger4<M: Madd, T: Coef>(
+    rows: &[&[T]; 4],
+    x: &[f64],
+    v: Option<&[f64]>,
+    z: Option<(&mut [f64], [f64; 4])>,
+) -> ([f64; 4], [f64; 4]) {
+    let len = rows[0].len();
+    let want_v = v.is_some();
+    let vs = v.unwrap_or(x);
+    let (mut z, w) = match z {
+        Some((z, w)) => (Some(z), w),
+        None => (None, [0.0; 4]),
+    };
+    let (mut sx, mut sv) = ([0f64; 4], [0f64; 4]);
+    for u in 0..len {
+        let zu = z.as_deref_mut().map(|z| (&mut z[u], &w));
+        stagger_step::<M>(coefs_at(rows, u), x[u], vs[u], want_v, &mut sx, &mut sv, zu);
+    }
+    (sx, sv)
+}
+
+/// Lane sums combined as the vector code does: (l0 + l2) + (l1 + l3).
+#[inline(always)]
+pub(crate) fn fold(l: &[f64; 4]) -> f64 {
+    (l[0] + l[2]) + (l[1] + l[3])
+}
+
+/// Portable [`stagger4`]: per lane the operations of the AVX2 steps in their order.
 #[inline(always)]
 #[allow(clippy::needless_range_loop)] // r and l index rows and lanes of several arrays at once
 pub(crate) fn portable_stagger4<M: Madd, T: Coef>(
@@ -184,53 +259,158 @@ pub(crate) fn portable_stagger4<M: Madd, T: Coef>(
 ) -> ([f64; 4], [f64; 4]) {
     let zlen = z.as_ref().map_or(0, |(z, _)| z.len());
     let len = check_rows(&rows, x, v, zlen);
+    if len < 4 {
+        return short_stagger4::<M, T>(&rows, x, v, z);
+    }
     let want_v = v.is_some();
     let vs = v.unwrap_or(x);
     let (mut z, w) = match z {
         Some((z, w)) => (Some(z), w),
         None => (None, [0.0; 4]),
     };
-    let (mut sx, mut sv) = ([0f64; 4], [0f64; 4]);
     let (mut lx, mut lv) = ([[0f64; 4]; 4], [[0f64; 4]; 4]);
-    let head = len.min(3);
-    let body_end = head + (len - head) / 4 * 4;
-    for u in 0..head {
-        let c = head_coefs(&rows, u);
-        let zu = z.as_deref_mut().map(|z| (&mut z[u], &w));
-        stagger_step::<M>(c, x[u], vs[u], want_v, &mut sx, &mut sv, zu);
-    }
-    let mut u = head;
-    while u < body_end {
+    for (u, from) in Steps::new(len) {
+        let c = step_coefs(&rows, u, from);
         for l in 0..4 {
-            let c = coefs_at(&rows, u + l);
-            let mut tx = [0f64; 4];
-            let mut tv = [0f64; 4];
-            for r in 0..4 {
-                tx[r] = lx[r][l];
-                tv[r] = lv[r][l];
-            }
+            let cl = [c[0][l], c[1][l], c[2][l], c[3][l]];
+            let mut tx = [lx[0][l], lx[1][l], lx[2][l], lx[3][l]];
+            let mut tv = [lv[0][l], lv[1][l], lv[2][l], lv[3][l]];
             let zu = z.as_deref_mut().map(|z| (&mut z[u + l], &w));
-            stagger_step::<M>(c, x[u + l], vs[u + l], want_v, &mut tx, &mut tv, zu);
+            stagger_step::<M>(cl, x[u + l], vs[u + l], want_v, &mut tx, &mut tv, zu);
             for r in 0..4 {
                 lx[r][l] = tx[r];
                 lv[r][l] = tv[r];
             }
         }
-        u += 4;
     }
-    let mut tail_x = [0f64; 4];
-    let mut tail_v = [0f64; 4];
-    for u in body_end..len {
-        let c = coefs_at(&rows, u);
-        let zu = z.as_deref_mut().map(|z| (&mut z[u], &w));
-        stagger_step::<M>(c, x[u], vs[u], want_v, &mut tail_x, &mut tail_v, zu);
-    }
-    let fold = |l: &[f64; 4]| (l[0] + l[2]) + (l[1] + l[3]);
+    let (mut sx, mut sv) = ([0f64; 4], [0f64; 4]);
     for r in 0..4 {
-        sx[r] = (fold(&lx[r]) + sx[r]) + tail_x[r];
-        sv[r] = (fold(&lv[r]) + sv[r]) + tail_v[r];
+        sx[r] = fold(&lx[r]);
+        if want_v {
+            sv[r] = fold(&lv[r]);
+        }
     }
     (sx, sv)
+}
+
+/// The Hessian rows of a block (see [`crate::adjacent`]): for the rows k + r of the n x n
+/// accumulator A and positions u (column k + u),
+///
+/// ```text
+/// S[r] += a_r[u - r] x[u],   A[k + r, k + u] += b a_r[u - r],
+/// A[L_m, k + u] += w_m U(u),  U(u) = (xk0 a_0 + xk1 a_1) + (xk2 a_2 + xk3 a_3)
+/// ```
+///
+/// for the shared rows (L_m, w_m). An own row may be a shared row (k = L_m); the own update
+/// then comes first, in both implementations. The first vector step also adds b * 0 to the
+/// entries A[k + r, k + u], u < r, left of the diagonal, which leaves them unchanged.
+pub struct HessRows<'a> {
+    pub n: usize,
+    pub k: usize,
+    pub shared: &'a [(usize, f64)],
+    pub b: f64,
+    pub xk: [f64; 4],
+}
+
+impl HessRows<'_> {
+    /// The checks the loops rely on: every row written exists and holds columns k..n.
+    #[inline(always)]
+    pub(crate) fn check<T>(&self, rows: &[&[T]; 4], x: &[f64], acc: &[f64]) -> usize {
+        let len = check_rows(rows, x, None, 0);
+        let (n, k) = (self.n, self.k);
+        assert!(k + len == n && acc.len() >= n * n && self.shared.iter().all(|&(i, _)| i < n));
+        len
+    }
+
+    /// One position u of lane arithmetic; `all_rows` writes every own row (a vector step),
+    /// otherwise only the rows that have started (the short path).
+    #[inline(always)]
+    #[allow(clippy::too_many_arguments, clippy::needless_range_loop)]
+    pub(crate) fn step<M: Madd>(
+        &self,
+        c: [f64; 4],
+        u: usize,
+        x: &[f64],
+        s: &mut [f64; 4],
+        acc: &mut [f64],
+        all_rows: bool,
+    ) {
+        let (n, k) = (self.n, self.k);
+        for r in 0..4 {
+            s[r] = M::madd(c[r], x[u], s[r]);
+        }
+        let rows = if all_rows { 4 } else { 4.min(u + 1) };
+        for r in 0..rows {
+            let at = (k + r) * n + k + u;
+            acc[at] = M::madd(self.b, c[r], acc[at]);
+        }
+        let t01 = M::madd(c[1], self.xk[1], c[0] * self.xk[0]);
+        let t23 = M::madd(c[3], self.xk[3], c[2] * self.xk[2]);
+        let mixed = t01 + t23;
+        for &(i, w) in self.shared {
+            let at = i * n + k + u;
+            acc[at] = M::madd(w, mixed, acc[at]);
+        }
+    }
+
+    /// Rows shorter than 4, one position at a time (shared by both implementations).
+    #[inline(always)]
+    pub(crate) fn short<M: Madd, T: Coef>(
+        &self,
+        rows: &[&[T]; 4],
+        x: &[f64],
+        acc: &mut [f64],
+    ) -> [f64; 4] {
+        let mut s = [0f64; 4];
+        for u in 0..rows[0].len() {
+            self.step::<M>(coefs_at(rows, u), u, x, &mut s, acc, false);
+        }
+        s
+    }
+}
+
+/// Portable Hessian rows: per lane the operations of the AVX2 steps in their order.
+#[inline(always)]
+#[allow(clippy::needless_range_loop)] // r and l index rows and lanes of several arrays at once
+pub(crate) fn portable_stagger4_hess<M: Madd, T: Coef>(
+    rows: [&[T]; 4],
+    x: &[f64],
+    acc: &mut [f64],
+    h: &HessRows<'_>,
+) -> [f64; 4] {
+    let len = h.check(&rows, x, acc);
+    if len < 4 {
+        return h.short::<M, T>(&rows, x, acc);
+    }
+    let mut lanes = [[0f64; 4]; 4];
+    for (u, from) in Steps::new(len) {
+        let c = step_coefs(&rows, u, from);
+        for l in 0..4 {
+            let mut t = [lanes[0][l], lanes[1][l], lanes[2][l], lanes[3][l]];
+            let cl = [c[0][l], c[1][l], c[2][l], c[3][l]];
+            h.step::<M>(cl, u + l, x, &mut t, acc, true);
+            for r in 0..4 {
+                lanes[r][l] = t[r];
+            }
+        }
+    }
+    [
+        fold(&lanes[0]),
+        fold(&lanes[1]),
+        fold(&lanes[2]),
+        fold(&lanes[3]),
+    ]
+}
+
+/// [`HessRows`] on the instruction set `M` chooses; returns S.
+#[inline(always)]
+pub fn stagger4_hess<M: Madd, T: Coef>(
+    rows: [&[T]; 4],
+    x: &[f64],
+    acc: &mut [f64],
+    h: &HessRows<'_>,
+) -> [f64; 4] {
+    M::stagger4_hess(rows, x, acc, h)
 }
 
 /// The loop of the module doc on the instruction set `M` chooses. `v` None skips Sv (returned
@@ -305,7 +485,12 @@ mod tests {
         if !has_avx2_fma() {
             return;
         }
-        let len = 29;
+        for len in [4, 5, 8, 29] {
+            bit_for_bit(len);
+        }
+    }
+
+    fn bit_for_bit(len: usize) {
         let rows: [Vec<f64>; 4] =
             [0, 1, 2, 3].map(|r| (0..len - r).map(|i| ((i + 3 * r) as f64).sin()).collect());
         let refs = [&rows[0][..], &rows[1][..], &rows[2][..], &rows[3][..]];
@@ -317,6 +502,80 @@ mod tests {
         let b = portable_stagger4::<Fused, f64>(refs, &x, Some(&v), Some((&mut z2, w)));
         assert_eq!(a, b);
         assert_eq!(z1, z2);
+    }
+
+    /// Row sums and the accumulator updates of [`HessRows`], against the formula term by term,
+    /// for lengths below, at and above 4 (the short path, a single masked step, several steps).
+    fn check_hess<M: Madd, T: Coef>(n: usize, k: usize, shared: &[(usize, f64)]) -> Vec<f64> {
+        let len = n - k;
+        let rows: [Vec<T>; 4] = [0, 1, 2, 3].map(|r| {
+            (0..len.saturating_sub(r))
+                .map(|i| T::from_f64(((i * 3 + r * 7) as f64 * 0.41).cos()))
+                .collect()
+        });
+        let x: Vec<f64> = (0..len).map(|u| (u as f64 * 0.23).sin() + 0.1).collect();
+        let xk = [0.9, -0.4, 1.3, 0.2];
+        let h = HessRows {
+            n,
+            k,
+            shared,
+            b: 0.7,
+            xk,
+        };
+        let mut acc: Vec<f64> = (0..n * n).map(|i| i as f64 * 1e-3).collect();
+        let start = acc.clone();
+        let refs = [&rows[0][..], &rows[1][..], &rows[2][..], &rows[3][..]];
+        let s = stagger4_hess::<M, T>(refs, &x, &mut acc, &h);
+        let mut want = start;
+        for r in 0..4 {
+            let mut sr = 0.0;
+            for (i, a) in rows[r].iter().enumerate() {
+                let (u, a) = (i + r, a.to_f64());
+                sr += a * x[u];
+                want[(k + r) * n + k + u] += 0.7 * a;
+                for &(row, w) in shared {
+                    want[row * n + k + u] += w * xk[r] * a;
+                }
+            }
+            assert!((s[r] - sr).abs() < 1e-12, "S[{r}] n={n} k={k}");
+        }
+        for (i, (a, b)) in acc.iter().zip(&want).enumerate() {
+            assert!((a - b).abs() < 1e-12, "A entry {i} n={n} k={k}: {a} vs {b}");
+        }
+        acc
+    }
+
+    #[test]
+    fn hessian_rows_match_their_definition() {
+        // k = 2 makes own row k the shared row 2 as well (the aliasing case)
+        let shared = [(0usize, 0.5), (2, -1.5)];
+        for (n, k) in [(5usize, 2usize), (6, 2), (9, 2), (13, 3), (12, 2)] {
+            check_hess::<Plain, f64>(n, k, &shared);
+            check_hess::<Plain, f32>(n, k, &shared);
+            if has_avx2_fma() {
+                let a = check_hess::<Fused, f64>(n, k, &shared);
+                check_hess::<Fused, f32>(n, k, &shared);
+                // the vector steps do per lane what the portable steps do
+                let len = n - k;
+                let rows: [Vec<f64>; 4] = [0, 1, 2, 3].map(|r| {
+                    (0..len.saturating_sub(r))
+                        .map(|i| ((i * 3 + r * 7) as f64 * 0.41).cos())
+                        .collect()
+                });
+                let x: Vec<f64> = (0..len).map(|u| (u as f64 * 0.23).sin() + 0.1).collect();
+                let h = HessRows {
+                    n,
+                    k,
+                    shared: &shared,
+                    b: 0.7,
+                    xk: [0.9, -0.4, 1.3, 0.2],
+                };
+                let mut acc: Vec<f64> = (0..n * n).map(|i| i as f64 * 1e-3).collect();
+                let refs = [&rows[0][..], &rows[1][..], &rows[2][..], &rows[3][..]];
+                portable_stagger4_hess::<Fused, f64>(refs, &x, &mut acc, &h);
+                assert_eq!(a, acc, "n={n} k={k}");
+            }
+        }
     }
 
     #[test]
