@@ -79,7 +79,6 @@ pub(crate) fn energy_blocks<M: Madd, T: Coef>(
     coeffs: &[T],
     x: &[f64],
 ) -> f64 {
-    let zeros = vec![T::default(); n];
     let mut lead = Leading::new();
     let mut e = 0.0;
     let mut runs = Runs::new(n, degree, lo, hi);
@@ -88,7 +87,7 @@ pub(crate) fn energy_blocks<M: Madd, T: Coef>(
         let mut run_total = 0.0;
         while k < k_end {
             let count = (k_end - k).min(4);
-            let (rows, next) = rows_at(n, k, pos, count, coeffs, &zeros);
+            let (rows, next) = rows_at(n, k, pos, count, coeffs);
             let (s, _) = stagger4::<M, T>(rows, &x[k..], None, None);
             for r in 0..count {
                 run_total = M::madd(x[k + r], s[r], run_total);
@@ -110,7 +109,6 @@ pub(crate) fn gradient_blocks<M: Madd, T: Coef>(
     x: &[f64],
     g: &mut [f64],
 ) -> f64 {
-    let zeros = vec![T::default(); n];
     let mut lead = Leading::new();
     let mut e = 0.0;
     let mut runs = Runs::new(n, degree, lo, hi);
@@ -124,7 +122,7 @@ pub(crate) fn gradient_blocks<M: Madd, T: Coef>(
             for r in 0..count {
                 w[r] = base * x[k + r];
             }
-            let (rows, next) = rows_at(n, k, pos, count, coeffs, &zeros);
+            let (rows, next) = rows_at(n, k, pos, count, coeffs);
             let (s, _) = stagger4::<M, T>(rows, &x[k..], None, Some((&mut g[k..], w)));
             for r in 0..count {
                 run_total = M::madd(x[k + r], s[r], run_total);
@@ -150,7 +148,6 @@ pub(crate) fn hvp_blocks<M: Madd, T: Coef>(
     (x, v): (&[f64], &[f64]),
     w: &mut [f64],
 ) {
-    let zeros = vec![T::default(); n];
     let mut lead = Leading::new();
     let mut runs = Runs::new(n, degree, lo, hi);
     while let Some((mut k, k_end, mut pos)) = runs.next_run() {
@@ -163,7 +160,7 @@ pub(crate) fn hvp_blocks<M: Madd, T: Coef>(
             for r in 0..count {
                 d[r] = M::madd(dbase, x[k + r], base * v[k + r]);
             }
-            let (rows, next) = rows_at(n, k, pos, count, coeffs, &zeros);
+            let (rows, next) = rows_at(n, k, pos, count, coeffs);
             let (sx, sv) = stagger4::<M, T>(rows, &x[k..], Some(&v[k..]), Some((&mut w[k..], d)));
             for r in 0..count {
                 w[k + r] += M::madd(dbase, sx[r], base * sv[r]);
@@ -192,7 +189,6 @@ pub(crate) fn hessian_blocks<M: Madd, T: Coef>(
     x: &[f64],
     acc: &mut [f64],
 ) {
-    let zeros = vec![T::default(); n];
     let mut runs = Runs::new(n, degree, lo, hi);
     let mut q = [0f64; MAX_PREFIX];
     let mut r2 = [[0f64; MAX_PREFIX]; MAX_PREFIX];
@@ -223,7 +219,7 @@ pub(crate) fn hessian_blocks<M: Madd, T: Coef>(
             let count = (k_end - k).min(4);
             let mut xk = [0f64; 4];
             xk[..count].copy_from_slice(&x[k..k + count]);
-            let (rows, next) = rows_at(n, k, pos, count, coeffs, &zeros);
+            let (rows, next) = rows_at(n, k, pos, count, coeffs);
             let h = HessRows {
                 n,
                 k,

@@ -9,7 +9,7 @@
 use core::arch::x86_64::*;
 
 use crate::simd::Fused;
-use crate::stagger::{check_rows, lane_from, short_stagger4, HessRows, Steps};
+use crate::stagger::{check_rows, lane_from, short_stagger4, HessRows, Rows4, Steps};
 use crate::storage::Coef;
 use crate::tile::{check_tile, tile_coef, TileSums};
 
@@ -545,24 +545,44 @@ pub fn tile<T: Coef, const G: usize>(
 /// Prefetch distance of [`stagger4`], in bytes.
 const PREFETCH: usize = 2048;
 
-/// The coefficients of a vector step (u, from) of [`crate::stagger::Steps`]: row r at lanes
-/// l >= lane_from(u, from, r), zero elsewhere (masked loads only where lanes are left out).
+/// All-ones in lanes l >= f, for f = 0..=4.
+const LANES_FROM: [[u64; 4]; 5] = [
+    [!0, !0, !0, !0],
+    [0, !0, !0, !0],
+    [0, 0, !0, !0],
+    [0, 0, 0, !0],
+    [0, 0, 0, 0],
+];
+
+/// Row pointers of a [`Rows4`] (rows r >= count are never read).
 #[inline(always)]
-unsafe fn step_coefs<T: Coef>(pa: &[*const T; 4], u: usize, from: usize) -> [__m256d; 4] {
-    if from == 0 && u >= 3 {
-        return [
-            T::load4(pa[0].add(u)),
-            T::load4(pa[1].add(u - 1)),
-            T::load4(pa[2].add(u - 2)),
-            T::load4(pa[3].add(u - 3)),
-        ];
+fn row_ptrs<T: Coef>(rows: &Rows4<'_, T>) -> [*const T; 4] {
+    let p = rows.data.as_ptr();
+    [0, 1, 2, 3].map(|r| p.wrapping_add(rows.offset(r)))
+}
+
+/// The coefficients of a vector step (u, from) of [`crate::stagger::Steps`]: row r at lanes
+/// l >= lane_from(u, from, r), zero elsewhere and for the zero rows. Lanes before a row's
+/// start read the end of the previous row (rows are back to back), then are cleared by a
+/// mask, so every load is a plain one inside the rows' data.
+#[inline(always)]
+unsafe fn step_coefs<T: Coef>(
+    pa: &[*const T; 4],
+    count: usize,
+    u: usize,
+    from: usize,
+) -> [__m256d; 4] {
+    let mut c = [_mm256_setzero_pd(); 4];
+    for r in 0..count {
+        let v = T::load4(pa[r].add(u).sub(r));
+        c[r] = if from == 0 && u >= r {
+            v
+        } else {
+            let mask = LANES_FROM[lane_from(u, from, r)];
+            _mm256_and_pd(v, _mm256_loadu_pd(mask.as_ptr() as *const f64))
+        };
     }
-    [
-        T::load4_from(pa[0].wrapping_add(u), lane_from(u, from, 0)),
-        T::load4_from(pa[1].wrapping_add(u).wrapping_sub(1), lane_from(u, from, 1)),
-        T::load4_from(pa[2].wrapping_add(u).wrapping_sub(2), lane_from(u, from, 2)),
-        T::load4_from(pa[3].wrapping_add(u).wrapping_sub(3), lane_from(u, from, 3)),
-    ]
+    c
 }
 
 /// Software prefetch of the block's region, `step` bytes further each call.
@@ -581,7 +601,7 @@ unsafe fn prefetch_ahead(pf: &mut *const u8, step: usize) {
 #[inline(always)]
 #[allow(clippy::needless_range_loop)] // r indexes rows of several arrays at once
 pub fn stagger4<T: Coef>(
-    rows: [&[T]; 4],
+    rows: Rows4<'_, T>,
     x: &[f64],
     v: Option<&[f64]>,
     z: Option<(&mut [f64], [f64; 4])>,
@@ -599,15 +619,12 @@ pub fn stagger4<T: Coef>(
     };
     let pz = z.map(|z| z.as_mut_ptr());
     // SAFETY: every step covers positions u..u+4 <= len, inside x, v and z (`check_rows`);
-    // row r is read at lanes l >= lane_from(u, from, r) only, at u + l - r < len - r.
+    // a real row r is read at u - r..u - r + 4 of its own start: at most its last entry, and
+    // before its start (lanes then masked) only the previous row's last r - u entries, since
+    // len >= 4 puts row r's start at offset >= r of the rows' data (see `step_coefs`).
     unsafe {
         let (px, pv) = (x.as_ptr(), vs.as_ptr());
-        let pa = [
-            rows[0].as_ptr(),
-            rows[1].as_ptr(),
-            rows[2].as_ptr(),
-            rows[3].as_ptr(),
-        ];
+        let pa = row_ptrs(&rows);
         let mut ax = [_mm256_setzero_pd(); 4];
         let mut av = [_mm256_setzero_pd(); 4];
         let wv = [
@@ -620,7 +637,7 @@ pub fn stagger4<T: Coef>(
         let step = 16 * std::mem::size_of::<T>();
         for (u, from) in Steps::new(len) {
             prefetch_ahead(&mut pf, step);
-            let c = step_coefs(&pa, u, from);
+            let c = step_coefs(&pa, rows.count, u, from);
             let xv = _mm256_loadu_pd(px.add(u));
             for r in 0..4 {
                 ax[r] = _mm256_fmadd_pd(c[r], xv, ax[r]);
@@ -657,7 +674,7 @@ pub fn stagger4<T: Coef>(
 #[inline(always)]
 #[allow(clippy::needless_range_loop)] // r indexes rows of several arrays at once
 pub fn stagger4_hess<T: Coef>(
-    rows: [&[T]; 4],
+    rows: Rows4<'_, T>,
     x: &[f64],
     acc: &mut [f64],
     h: &HessRows<'_>,
@@ -674,12 +691,7 @@ pub fn stagger4_hess<T: Coef>(
     unsafe {
         let pacc = acc.as_mut_ptr();
         let px = x.as_ptr();
-        let pa = [
-            rows[0].as_ptr(),
-            rows[1].as_ptr(),
-            rows[2].as_ptr(),
-            rows[3].as_ptr(),
-        ];
+        let pa = row_ptrs(&rows);
         let own = [
             pacc.add(k * n + k),
             pacc.add((k + 1) * n + k),
@@ -698,7 +710,7 @@ pub fn stagger4_hess<T: Coef>(
         let step = 16 * std::mem::size_of::<T>();
         for (u, from) in Steps::new(len) {
             prefetch_ahead(&mut pf, step);
-            let c = step_coefs(&pa, u, from);
+            let c = step_coefs(&pa, rows.count, u, from);
             let xv = _mm256_loadu_pd(px.add(u));
             for r in 0..4 {
                 sv[r] = _mm256_fmadd_pd(c[r], xv, sv[r]);

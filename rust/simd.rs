@@ -33,7 +33,7 @@ pub trait Madd {
     ) -> ([f64; 4], [f64; 4]);
     /// Hessian rows of four adjacent rows (see [`crate::stagger::HessRows`]).
     fn stagger4_hess<T: Coef>(
-        rows: [&[T]; 4],
+        rows: crate::stagger::Rows4<'_, T>,
         x: &[f64],
         acc: &mut [f64],
         h: &crate::stagger::HessRows<'_>,
@@ -66,7 +66,7 @@ pub trait Madd {
     );
     /// Four adjacent rows (see [`crate::stagger`]).
     fn stagger4<T: Coef>(
-        rows: [&[T]; 4],
+        rows: crate::stagger::Rows4<'_, T>,
         x: &[f64],
         v: Option<&[f64]>,
         z: Option<(&mut [f64], [f64; 4])>,
@@ -152,7 +152,7 @@ impl Madd for Fused {
     }
     #[inline(always)]
     fn stagger4<T: Coef>(
-        rows: [&[T]; 4],
+        rows: crate::stagger::Rows4<'_, T>,
         x: &[f64],
         v: Option<&[f64]>,
         z: Option<(&mut [f64], [f64; 4])>,
@@ -161,7 +161,7 @@ impl Madd for Fused {
     }
     #[inline(always)]
     fn stagger4_hess<T: Coef>(
-        rows: [&[T]; 4],
+        rows: crate::stagger::Rows4<'_, T>,
         x: &[f64],
         acc: &mut [f64],
         h: &crate::stagger::HessRows<'_>,
@@ -243,7 +243,7 @@ impl Madd for Plain {
     }
     #[inline(always)]
     fn stagger4<T: Coef>(
-        rows: [&[T]; 4],
+        rows: crate::stagger::Rows4<'_, T>,
         x: &[f64],
         v: Option<&[f64]>,
         z: Option<(&mut [f64], [f64; 4])>,
@@ -252,7 +252,7 @@ impl Madd for Plain {
     }
     #[inline(always)]
     fn stagger4_hess<T: Coef>(
-        rows: [&[T]; 4],
+        rows: crate::stagger::Rows4<'_, T>,
         x: &[f64],
         acc: &mut [f64],
         h: &crate::stagger::HessRows<'_>,

@@ -72,66 +72,84 @@ impl Runs {
     }
 }
 
-/// The four rows k..k+4 of a run starting at offset `pos` of `coeffs`, of lengths n - k - r;
-/// rows r >= `count` are zeros. Returns the rows and the offset after the real ones.
+/// Four adjacent rows of a run over positions u = 0..len: the `count` real rows stored back
+/// to back in `data` (row r starts at u = r and has len - r coefficients); rows r >= count
+/// are zero. Row r - 1 ends where row r starts, which the vector steps rely on.
+#[derive(Clone, Copy, Debug)]
+pub struct Rows4<'a, T> {
+    pub data: &'a [T],
+    pub len: usize,
+    pub count: usize,
+}
+
+impl<'a, T: Coef> Rows4<'a, T> {
+    /// Checks that `data` holds exactly the `count` rows (1 <= count <= 4, each non-empty).
+    #[inline(always)]
+    pub fn new(data: &'a [T], len: usize, count: usize) -> Self {
+        assert!(
+            (1..=4).contains(&count) && count <= len,
+            "rows: count {count}, len {len}"
+        );
+        assert_eq!(
+            data.len(),
+            Self::offset_for(len, count),
+            "rows: coefficients"
+        );
+        Rows4 { data, len, count }
+    }
+
+    #[inline(always)]
+    fn offset_for(len: usize, r: usize) -> usize {
+        r * len - r * r.saturating_sub(1) / 2
+    }
+
+    /// Start of row r in `data`.
+    #[inline(always)]
+    pub fn offset(&self, r: usize) -> usize {
+        Self::offset_for(self.len, r)
+    }
+
+    /// Coefficient of row r at position u (zero before the row starts and for zero rows).
+    #[inline(always)]
+    pub fn coef(&self, r: usize, u: usize) -> f64 {
+        if r < self.count && u >= r {
+            self.data[self.offset(r) + u - r].to_f64()
+        } else {
+            0.0
+        }
+    }
+}
+
+/// The rows k..k + count of a run whose row k starts at offset `pos` of `coeffs` (row k + r
+/// has n - k - r coefficients); returns them and the offset after them.
 #[inline(always)]
-pub fn rows_at<'a, T>(
+pub fn rows_at<T: Coef>(
     n: usize,
     k: usize,
     pos: usize,
     count: usize,
-    coeffs: &'a [T],
-    zeros: &'a [T],
-) -> ([&'a [T]; 4], usize) {
+    coeffs: &[T],
+) -> (Rows4<'_, T>, usize) {
     let len = n - k;
-    let lens = [
-        len,
-        len.saturating_sub(1),
-        len.saturating_sub(2),
-        len.saturating_sub(3),
-    ];
-    let mut rows = [
-        &zeros[..lens[0]],
-        &zeros[..lens[1]],
-        &zeros[..lens[2]],
-        &zeros[..lens[3]],
-    ];
-    let mut p = pos;
-    for r in 0..count {
-        rows[r] = &coeffs[p..p + lens[r]];
-        p += lens[r];
-    }
-    (rows, p)
-}
-
-/// Coefficient of row r at position u (zero before the row starts).
-#[inline(always)]
-fn row_coef<T: Coef>(rows: &[&[T]; 4], r: usize, u: usize) -> f64 {
-    if u >= r {
-        rows[r][u - r].to_f64()
-    } else {
-        0.0
-    }
+    let end = pos + Rows4::<T>::offset_for(len, count);
+    (Rows4::new(&coeffs[pos..end], len, count), end)
 }
 
 /// The four coefficients at position u, zeros for rows that have not started.
 #[inline(always)]
-pub(crate) fn coefs_at<T: Coef>(rows: &[&[T]; 4], u: usize) -> [f64; 4] {
+pub(crate) fn coefs_at<T: Coef>(rows: &Rows4<'_, T>, u: usize) -> [f64; 4] {
     [
-        row_coef(rows, 0, u),
-        row_coef(rows, 1, u),
-        row_coef(rows, 2, u),
-        row_coef(rows, 3, u),
+        rows.coef(0, u),
+        rows.coef(1, u),
+        rows.coef(2, u),
+        rows.coef(3, u),
     ]
 }
 
 /// The checks every implementation relies on; returns len.
 #[inline(always)]
-pub(crate) fn check_rows<T>(rows: &[&[T]; 4], x: &[f64], v: Option<&[f64]>, z: usize) -> usize {
-    let len = rows[0].len();
-    for (r, row) in rows.iter().enumerate() {
-        assert_eq!(row.len(), len.saturating_sub(r), "row {r}");
-    }
+pub(crate) fn check_rows<T>(rows: &Rows4<'_, T>, x: &[f64], v: Option<&[f64]>, z: usize) -> usize {
+    let len = rows.len;
     assert!(x.len() >= len && v.is_none_or(|v| v.len() >= len));
     assert!(z == 0 || z >= len);
     len
@@ -184,11 +202,11 @@ pub(crate) fn lane_from(u: usize, from: usize, r: usize) -> usize {
 
 /// The coefficients of a step, per row and lane (zero where left out).
 #[inline(always)]
-fn step_coefs<T: Coef>(rows: &[&[T]; 4], u: usize, from: usize) -> [[f64; 4]; 4] {
+fn step_coefs<T: Coef>(rows: &Rows4<'_, T>, u: usize, from: usize) -> [[f64; 4]; 4] {
     let mut c = [[0f64; 4]; 4];
     for (r, cr) in c.iter_mut().enumerate() {
         for (l, slot) in cr.iter_mut().enumerate().skip(lane_from(u, from, r)) {
-            *slot = rows[r][u + l - r].to_f64();
+            *slot = rows.coef(r, u + l);
         }
     }
     c
@@ -222,12 +240,12 @@ pub(crate) fn stagger_step<M: Madd>(
 /// Rows shorter than 4: one position at a time (shared by both implementations).
 #[inline(always)]
 pub(crate) fn short_stagger4<M: Madd, T: Coef>(
-    rows: &[&[T]; 4],
+    rows: &Rows4<'_, T>,
     x: &[f64],
     v: Option<&[f64]>,
     z: Option<(&mut [f64], [f64; 4])>,
 ) -> ([f64; 4], [f64; 4]) {
-    let len = rows[0].len();
+    let len = rows.len;
     let want_v = v.is_some();
     let vs = v.unwrap_or(x);
     let (mut z, w) = match z {
@@ -252,7 +270,7 @@ pub(crate) fn fold(l: &[f64; 4]) -> f64 {
 #[inline(always)]
 #[allow(clippy::needless_range_loop)] // r and l index rows and lanes of several arrays at once
 pub(crate) fn portable_stagger4<M: Madd, T: Coef>(
-    rows: [&[T]; 4],
+    rows: Rows4<'_, T>,
     x: &[f64],
     v: Option<&[f64]>,
     z: Option<(&mut [f64], [f64; 4])>,
@@ -315,7 +333,7 @@ pub struct HessRows<'a> {
 impl HessRows<'_> {
     /// The checks the loops rely on: every row written exists and holds columns k..n.
     #[inline(always)]
-    pub(crate) fn check<T>(&self, rows: &[&[T]; 4], x: &[f64], acc: &[f64]) -> usize {
+    pub(crate) fn check<T>(&self, rows: &Rows4<'_, T>, x: &[f64], acc: &[f64]) -> usize {
         let len = check_rows(rows, x, None, 0);
         let (n, k) = (self.n, self.k);
         assert!(k + len == n && acc.len() >= n * n && self.shared.iter().all(|&(i, _)| i < n));
@@ -357,12 +375,12 @@ impl HessRows<'_> {
     #[inline(always)]
     pub(crate) fn short<M: Madd, T: Coef>(
         &self,
-        rows: &[&[T]; 4],
+        rows: &Rows4<'_, T>,
         x: &[f64],
         acc: &mut [f64],
     ) -> [f64; 4] {
         let mut s = [0f64; 4];
-        for u in 0..rows[0].len() {
+        for u in 0..rows.len {
             self.step::<M>(coefs_at(rows, u), u, x, &mut s, acc, false);
         }
         s
@@ -373,7 +391,7 @@ impl HessRows<'_> {
 #[inline(always)]
 #[allow(clippy::needless_range_loop)] // r and l index rows and lanes of several arrays at once
 pub(crate) fn portable_stagger4_hess<M: Madd, T: Coef>(
-    rows: [&[T]; 4],
+    rows: Rows4<'_, T>,
     x: &[f64],
     acc: &mut [f64],
     h: &HessRows<'_>,
@@ -405,7 +423,7 @@ pub(crate) fn portable_stagger4_hess<M: Madd, T: Coef>(
 /// [`HessRows`] on the instruction set `M` chooses; returns S.
 #[inline(always)]
 pub fn stagger4_hess<M: Madd, T: Coef>(
-    rows: [&[T]; 4],
+    rows: Rows4<'_, T>,
     x: &[f64],
     acc: &mut [f64],
     h: &HessRows<'_>,
@@ -417,7 +435,7 @@ pub fn stagger4_hess<M: Madd, T: Coef>(
 /// as zeros); `z` None skips the update.
 #[inline(always)]
 pub fn stagger4<M: Madd, T: Coef>(
-    rows: [&[T]; 4],
+    rows: Rows4<'_, T>,
     x: &[f64],
     v: Option<&[f64]>,
     z: Option<(&mut [f64], [f64; 4])>,
@@ -431,25 +449,59 @@ mod tests {
     use crate::combinatorics::num_multisets;
     use crate::simd::{has_avx2_fma, Fused, Plain};
 
-    fn check<M: Madd, T: Coef>(len: usize, with_v: bool, with_z: bool) {
-        let rows: [Vec<T>; 4] = [0, 1, 2, 3].map(|r| {
-            (0..len.saturating_sub(r))
-                .map(|i| T::from_f64(((i * 5 + r * 11) as f64 * 0.37).sin()))
-                .collect()
-        });
+    /// `count` rows of length len - r with values from `f(i, r)`, packed back to back, and
+    /// the same rows one by one (empty for the zero rows).
+    struct Fixture<T> {
+        data: Vec<T>,
+        rows: [Vec<f64>; 4],
+        len: usize,
+        count: usize,
+    }
+
+    impl<T: Coef> Fixture<T> {
+        fn new(len: usize, count: usize, f: fn(usize, usize) -> f64) -> Self {
+            let rows = [0, 1, 2, 3].map(|r| {
+                if r < count {
+                    (0..len - r)
+                        .map(|i| T::from_f64(f(i, r)).to_f64())
+                        .collect()
+                } else {
+                    Vec::new()
+                }
+            });
+            let data = rows.iter().flatten().map(|&v| T::from_f64(v)).collect();
+            Fixture {
+                data,
+                rows,
+                len,
+                count,
+            }
+        }
+
+        fn rows(&self) -> Rows4<'_, T> {
+            Rows4::new(&self.data, self.len, self.count)
+        }
+    }
+
+    fn wave(i: usize, r: usize) -> f64 {
+        ((i * 5 + r * 11) as f64 * 0.37).sin()
+    }
+
+    #[allow(clippy::needless_range_loop)] // u and r index several arrays at once
+    fn check<M: Madd, T: Coef>(len: usize, count: usize, with_v: bool, with_z: bool) {
+        let fx = Fixture::<T>::new(len, count, wave);
         let x: Vec<f64> = (0..len).map(|u| (u as f64 * 0.21).cos()).collect();
         let v: Vec<f64> = (0..len).map(|u| 1.0 / (2.0 + u as f64)).collect();
         let w = [0.5, -1.25, 2.0, 0.75];
         let mut z = vec![0.125; len];
-        let refs = [&rows[0][..], &rows[1][..], &rows[2][..], &rows[3][..]];
         let zarg = if with_z { Some((&mut z[..], w)) } else { None };
         let vopt = if with_v { Some(&v[..]) } else { None };
-        let (sx, sv) = stagger4::<M, T>(refs, &x, vopt, zarg);
+        let (sx, sv) = stagger4::<M, T>(fx.rows(), &x, vopt, zarg);
         for r in 0..4 {
             let (mut wx, mut wv) = (0.0, 0.0);
-            for (i, a) in rows[r].iter().enumerate() {
-                wx += a.to_f64() * x[i + r];
-                wv += a.to_f64() * v[i + r];
+            for (i, a) in fx.rows[r].iter().enumerate() {
+                wx += a * x[i + r];
+                wv += a * v[i + r];
             }
             assert!((sx[r] - wx).abs() < 1e-12, "Sx row {r}, len {len}");
             let want_v = if with_v { wv } else { 0.0 };
@@ -458,8 +510,8 @@ mod tests {
         for u in 0..len {
             let mut want = 0.125;
             if with_z {
-                for r in 0..=u.min(3) {
-                    want += w[r] * rows[r][u - r].to_f64();
+                for r in 0..count.min(u + 1) {
+                    want += w[r] * fx.rows[r][u - r];
                 }
             }
             assert!((z[u] - want).abs() < 1e-12, "z[{u}], len {len}");
@@ -468,13 +520,24 @@ mod tests {
 
     #[test]
     fn stagger4_matches_its_definition() {
-        for len in [0, 1, 2, 3, 4, 6, 7, 11, 30] {
+        // count < 4 with len >= 4: zero rows inside the vector steps
+        for (len, count) in [
+            (1, 1),
+            (2, 2),
+            (3, 3),
+            (4, 4),
+            (6, 4),
+            (7, 4),
+            (11, 4),
+            (30, 4),
+            (9, 2),
+        ] {
             for (v, z) in [(false, false), (false, true), (true, true)] {
-                check::<Plain, f64>(len, v, z);
-                check::<Plain, f32>(len, v, z);
+                check::<Plain, f64>(len, count, v, z);
+                check::<Plain, f32>(len, count, v, z);
                 if has_avx2_fma() {
-                    check::<Fused, f64>(len, v, z);
-                    check::<Fused, f32>(len, v, z);
+                    check::<Fused, f64>(len, count, v, z);
+                    check::<Fused, f32>(len, count, v, z);
                 }
             }
         }
@@ -485,34 +548,27 @@ mod tests {
         if !has_avx2_fma() {
             return;
         }
-        for len in [4, 5, 8, 29] {
-            bit_for_bit(len);
+        for (len, count) in [(4, 4), (5, 4), (8, 4), (29, 4), (10, 3)] {
+            let fx = Fixture::<f64>::new(len, count, |i, r| ((i + 3 * r) as f64).sin());
+            let x: Vec<f64> = (0..len).map(|u| (u as f64 * 0.7).cos()).collect();
+            let v: Vec<f64> = (0..len).map(|u| (u as f64 * 0.3).sin()).collect();
+            let w = [0.3, -0.7, 1.1, 0.9];
+            let (mut z1, mut z2) = (vec![0.0; len], vec![0.0; len]);
+            let a = stagger4::<Fused, f64>(fx.rows(), &x, Some(&v), Some((&mut z1, w)));
+            let b = portable_stagger4::<Fused, f64>(fx.rows(), &x, Some(&v), Some((&mut z2, w)));
+            assert_eq!(a, b);
+            assert_eq!(z1, z2);
         }
     }
 
-    fn bit_for_bit(len: usize) {
-        let rows: [Vec<f64>; 4] =
-            [0, 1, 2, 3].map(|r| (0..len - r).map(|i| ((i + 3 * r) as f64).sin()).collect());
-        let refs = [&rows[0][..], &rows[1][..], &rows[2][..], &rows[3][..]];
-        let x: Vec<f64> = (0..len).map(|u| (u as f64 * 0.7).cos()).collect();
-        let v: Vec<f64> = (0..len).map(|u| (u as f64 * 0.3).sin()).collect();
-        let w = [0.3, -0.7, 1.1, 0.9];
-        let (mut z1, mut z2) = (vec![0.0; len], vec![0.0; len]);
-        let a = stagger4::<Fused, f64>(refs, &x, Some(&v), Some((&mut z1, w)));
-        let b = portable_stagger4::<Fused, f64>(refs, &x, Some(&v), Some((&mut z2, w)));
-        assert_eq!(a, b);
-        assert_eq!(z1, z2);
-    }
-
-    /// Row sums and the accumulator updates of [`HessRows`], against the formula term by term,
-    /// for lengths below, at and above 4 (the short path, a single masked step, several steps).
-    fn check_hess<M: Madd, T: Coef>(n: usize, k: usize, shared: &[(usize, f64)]) -> Vec<f64> {
+    /// Row sums and the accumulator updates of [`HessRows`], against the formula term by term.
+    fn check_hess<M: Madd, T: Coef>(
+        (n, k, count): (usize, usize, usize),
+        shared: &[(usize, f64)],
+        portable: bool,
+    ) -> Vec<f64> {
         let len = n - k;
-        let rows: [Vec<T>; 4] = [0, 1, 2, 3].map(|r| {
-            (0..len.saturating_sub(r))
-                .map(|i| T::from_f64(((i * 3 + r * 7) as f64 * 0.41).cos()))
-                .collect()
-        });
+        let fx = Fixture::<T>::new(len, count, |i, r| ((i * 3 + r * 7) as f64 * 0.41).cos());
         let x: Vec<f64> = (0..len).map(|u| (u as f64 * 0.23).sin() + 0.1).collect();
         let xk = [0.9, -0.4, 1.3, 0.2];
         let h = HessRows {
@@ -523,14 +579,16 @@ mod tests {
             xk,
         };
         let mut acc: Vec<f64> = (0..n * n).map(|i| i as f64 * 1e-3).collect();
-        let start = acc.clone();
-        let refs = [&rows[0][..], &rows[1][..], &rows[2][..], &rows[3][..]];
-        let s = stagger4_hess::<M, T>(refs, &x, &mut acc, &h);
-        let mut want = start;
+        let mut want = acc.clone();
+        let s = if portable {
+            portable_stagger4_hess::<M, T>(fx.rows(), &x, &mut acc, &h)
+        } else {
+            stagger4_hess::<M, T>(fx.rows(), &x, &mut acc, &h)
+        };
         for r in 0..4 {
             let mut sr = 0.0;
-            for (i, a) in rows[r].iter().enumerate() {
-                let (u, a) = (i + r, a.to_f64());
+            for (i, a) in fx.rows[r].iter().enumerate() {
+                let u = i + r;
                 sr += a * x[u];
                 want[(k + r) * n + k + u] += 0.7 * a;
                 for &(row, w) in shared {
@@ -549,31 +607,21 @@ mod tests {
     fn hessian_rows_match_their_definition() {
         // k = 2 makes own row k the shared row 2 as well (the aliasing case)
         let shared = [(0usize, 0.5), (2, -1.5)];
-        for (n, k) in [(5usize, 2usize), (6, 2), (9, 2), (13, 3), (12, 2)] {
-            check_hess::<Plain, f64>(n, k, &shared);
-            check_hess::<Plain, f32>(n, k, &shared);
+        for case in [
+            (5usize, 2usize, 3usize),
+            (6, 2, 4),
+            (9, 2, 4),
+            (13, 3, 4),
+            (12, 2, 2),
+        ] {
+            check_hess::<Plain, f64>(case, &shared, false);
+            check_hess::<Plain, f32>(case, &shared, false);
             if has_avx2_fma() {
-                let a = check_hess::<Fused, f64>(n, k, &shared);
-                check_hess::<Fused, f32>(n, k, &shared);
+                let a = check_hess::<Fused, f64>(case, &shared, false);
+                check_hess::<Fused, f32>(case, &shared, false);
                 // the vector steps do per lane what the portable steps do
-                let len = n - k;
-                let rows: [Vec<f64>; 4] = [0, 1, 2, 3].map(|r| {
-                    (0..len.saturating_sub(r))
-                        .map(|i| ((i * 3 + r * 7) as f64 * 0.41).cos())
-                        .collect()
-                });
-                let x: Vec<f64> = (0..len).map(|u| (u as f64 * 0.23).sin() + 0.1).collect();
-                let h = HessRows {
-                    n,
-                    k,
-                    shared: &shared,
-                    b: 0.7,
-                    xk: [0.9, -0.4, 1.3, 0.2],
-                };
-                let mut acc: Vec<f64> = (0..n * n).map(|i| i as f64 * 1e-3).collect();
-                let refs = [&rows[0][..], &rows[1][..], &rows[2][..], &rows[3][..]];
-                portable_stagger4_hess::<Fused, f64>(refs, &x, &mut acc, &h);
-                assert_eq!(a, acc, "n={n} k={k}");
+                let b = check_hess::<Fused, f64>(case, &shared, true);
+                assert_eq!(a, b, "{case:?}");
             }
         }
     }
@@ -588,16 +636,13 @@ mod tests {
             }
             let mut got = Vec::new();
             let mut runs = Runs::new(n, degree, lo, hi);
-            let zeros = vec![0u8; n];
-            let coeffs = vec![0u8; want.last().map_or(0, |w| w.2 + n - w.1)];
+            let coeffs = vec![0f64; want.last().map_or(0, |w| w.2 + n - w.1)];
             while let Some((k0, k_end, mut pos)) = runs.next_run() {
                 let mut k = k0;
                 while k < k_end {
                     let count = (k_end - k).min(4);
-                    let (rows, next) = rows_at(n, k, pos, count, &coeffs, &zeros);
-                    for (r, row) in rows.iter().enumerate() {
-                        assert_eq!(row.len(), (n - k).saturating_sub(r));
-                    }
+                    let (rows, next) = rows_at(n, k, pos, count, &coeffs);
+                    assert_eq!((rows.len, rows.count), (n - k, count));
                     for r in 0..count {
                         let mut pre = runs.lead().to_vec();
                         pre.push(k + r);

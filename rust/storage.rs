@@ -22,13 +22,6 @@ pub trait Coef: Copy + Send + Sync + Default + PartialEq + std::fmt::Debug + 'st
     /// it from code compiled with the `avx2` target feature (see `crate::avx2`).
     #[cfg(target_arch = "x86_64")]
     unsafe fn load4(p: *const Self) -> core::arch::x86_64::__m256d;
-    /// Lanes `from`..4 of [`Coef::load4`]; lanes below `from` are zero and their memory is
-    /// not read (a masked load), so `p` may point before the start of the data.
-    ///
-    /// # Safety
-    /// As for `load4`, for the lanes read; the processor must have AVX2.
-    #[cfg(target_arch = "x86_64")]
-    unsafe fn load4_from(p: *const Self, from: usize) -> core::arch::x86_64::__m256d;
 }
 
 impl Coef for f64 {
@@ -45,14 +38,6 @@ impl Coef for f64 {
     #[inline(always)]
     unsafe fn load4(p: *const Self) -> core::arch::x86_64::__m256d {
         core::arch::x86_64::_mm256_loadu_pd(p)
-    }
-    #[cfg(target_arch = "x86_64")]
-    #[inline(always)]
-    unsafe fn load4_from(p: *const Self, from: usize) -> core::arch::x86_64::__m256d {
-        use core::arch::x86_64::*;
-        let lanes = _mm256_setr_epi64x(0, 1, 2, 3);
-        let mask = _mm256_cmpgt_epi64(lanes, _mm256_set1_epi64x(from as i64 - 1));
-        _mm256_maskload_pd(p, mask)
     }
 }
 
@@ -71,14 +56,6 @@ impl Coef for f32 {
     unsafe fn load4(p: *const Self) -> core::arch::x86_64::__m256d {
         use core::arch::x86_64::{_mm256_cvtps_pd, _mm_loadu_ps};
         _mm256_cvtps_pd(_mm_loadu_ps(p))
-    }
-    #[cfg(target_arch = "x86_64")]
-    #[inline(always)]
-    unsafe fn load4_from(p: *const Self, from: usize) -> core::arch::x86_64::__m256d {
-        use core::arch::x86_64::*;
-        let lanes = _mm_setr_epi32(0, 1, 2, 3);
-        let mask = _mm_cmpgt_epi32(lanes, _mm_set1_epi32(from as i32 - 1));
-        _mm256_cvtps_pd(_mm_maskload_ps(p, mask))
     }
 }
 
