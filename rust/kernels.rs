@@ -18,7 +18,7 @@
 //! x . grad H_p = p H_p and Hess H_p x = (p - 1) grad H_p, which the tests check.
 
 use crate::adjacent::{energy_blocks, gradient_blocks, hessian_blocks, hvp_blocks};
-use crate::combinatorics::{first_index_offset, num_multisets};
+use crate::combinatorics::first_index_offset;
 use crate::error::CoreError;
 use crate::exec::Exec;
 use crate::partition::{plan, reduce, reduce_sums, Plan, WorkItem, CHUNK, QUANTUM};
@@ -236,12 +236,16 @@ fn gradient3_item_body<M: Madd, T: Coef>(
 }
 
 /// Start, within the item's coefficients, of the degree-4 segment of prefix (i, k, j),
-/// i <= k <= j: offset(i) + #{(k', j', t): i <= k' < k} + #{(j', t): k <= j' < j}, where the
-/// multisets of size m over values >= s number C(n - s + m - 1, m).
+/// i <= k <= j: head + #{(k', j', t): i <= k' < k} + #{(j', t): k <= j' < j}, where `head` is
+/// the offset of first index i in the item and the multisets of size 3 (2) over the m = n - s
+/// values >= s number m(m+1)(m+2)/6 (m(m+1)/2). Plain integer arithmetic: this runs per group
+/// of segments, and the exact binomials of `combinatorics` (128-bit division) cost a tenth of
+/// the degree-4 Hessian when called here.
 #[inline(always)]
-fn segment4(n: usize, base: usize, i: usize, k: usize, j: usize) -> usize {
-    let count = |s: usize, m: usize| num_multisets(n - s, m).expect("within the block");
-    first_index_offset(n, 4, i) - base + (count(i, 3) - count(k, 3)) + (count(k, 2) - count(j, 2))
+fn segment4(n: usize, head: usize, i: usize, k: usize, j: usize) -> usize {
+    let triples = |m: usize| m * (m + 1) * (m + 2) / 6;
+    let pairs = |m: usize| m * (m + 1) / 2;
+    head + (triples(n - i) - triples(n - k)) + (pairs(n - k) - pairs(n - j))
 }
 
 simd_dispatch!(fn gradient_item => gradient_item_body(
@@ -384,24 +388,20 @@ fn hessian4_item_body<M: Madd, T: Coef>(
     acc: &mut [f64],
 ) {
     let mut pp = PrefixProducts::new();
-    let plain = Plain4 {
-        n,
-        coeffs,
-        base: it.start,
-        x,
-    };
+    let plain = Plain4 { n, coeffs, x };
     for i in it.lo..it.hi {
-        plain.run::<M>(i, i, i..n, acc, &mut pp);
+        let head = first_index_offset(n, 4, i) - it.start;
+        plain.run::<M>((i, head), i, i..n, acc, &mut pp);
         let xi = x[i];
         let mut b = i + 1;
         while b + 4 <= n {
             for k in b..b + 4 {
-                plain.run::<M>(i, k, k..b + 4, acc, &mut pp);
+                plain.run::<M>((i, head), k, k..b + 4, acc, &mut pp);
             }
             let xk = [x[b], x[b + 1], x[b + 2], x[b + 3]];
             let mut pos = [0usize; 4];
             for (m, p) in pos.iter_mut().enumerate() {
-                *p = segment4(n, it.start, i, b + m, b + 4);
+                *p = segment4(n, head, i, b + m, b + 4);
             }
             for j in b + 4..n {
                 let len = n - j;
@@ -435,7 +435,7 @@ fn hessian4_item_body<M: Madd, T: Coef>(
             b += 4;
         }
         for k in b..n {
-            plain.run::<M>(i, k, k..n, acc, &mut pp);
+            plain.run::<M>((i, head), k, k..n, acc, &mut pp);
         }
     }
 }
@@ -445,7 +445,6 @@ fn hessian4_item_body<M: Madd, T: Coef>(
 struct Plain4<'a, T> {
     n: usize,
     coeffs: &'a [T],
-    base: usize,
     x: &'a [f64],
 }
 
@@ -453,14 +452,14 @@ impl<T: Coef> Plain4<'_, T> {
     #[inline(always)]
     fn run<M: Madd>(
         &self,
-        i: usize,
+        (i, head): (usize, usize),
         k: usize,
         js: std::ops::Range<usize>,
         acc: &mut [f64],
         pp: &mut PrefixProducts,
     ) {
         let n = self.n;
-        let mut p = segment4(n, self.base, i, k, js.start);
+        let mut p = segment4(n, head, i, k, js.start);
         for j in js {
             let seg = &self.coeffs[p..p + n - j];
             hessian_prefix::<M, T>(n, seg, (j, &[i, k, j]), self.x, acc, pp);
