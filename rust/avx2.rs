@@ -229,14 +229,14 @@ pub fn dot2_axpy<T: Coef>(a: &[T], x: &[f64], v: &[f64], w: &mut [f64], alpha: f
 /// Four segments at once: s_j = sum_t a_j,t x_t (and, with `v`, sum_t a_j,t v_t),
 /// z_t += (w_0 a_0,t + w_1 a_1,t) + (w_2 a_2,t + w_3 a_3,t).
 #[inline(always)]
-fn dots_axpy4<T: Coef, const WITH_V: bool>(
+fn dots_axpy4<T: Coef, const WITH_V: bool, const WITH_Z: bool>(
     a: [&[T]; 4],
     x: &[f64],
     v: &[f64],
     z: &mut [f64],
     w: [f64; 4],
 ) -> ([f64; 4], [f64; 4]) {
-    let len = z.len();
+    let len = if WITH_Z { z.len() } else { a[0].len() };
     let x = &x[..len];
     let v = if WITH_V { &v[..len] } else { v };
     let a = [&a[0][..len], &a[1][..len], &a[2][..len], &a[3][..len]];
@@ -267,10 +267,12 @@ fn dots_axpy4<T: Coef, const WITH_V: bool>(
                     av[j] = _mm256_fmadd_pd(c[j], vt, av[j]);
                 }
             }
-            let p01 = _mm256_fmadd_pd(wv[1], c[1], _mm256_mul_pd(wv[0], c[0]));
-            let p23 = _mm256_fmadd_pd(wv[3], c[3], _mm256_mul_pd(wv[2], c[2]));
-            let zt = _mm256_loadu_pd(pz.add(i));
-            _mm256_storeu_pd(pz.add(i), _mm256_add_pd(zt, _mm256_add_pd(p01, p23)));
+            if WITH_Z {
+                let p01 = _mm256_fmadd_pd(wv[1], c[1], _mm256_mul_pd(wv[0], c[0]));
+                let p23 = _mm256_fmadd_pd(wv[3], c[3], _mm256_mul_pd(wv[2], c[2]));
+                let zt = _mm256_loadu_pd(pz.add(i));
+                _mm256_storeu_pd(pz.add(i), _mm256_add_pd(zt, _mm256_add_pd(p01, p23)));
+            }
             i += 4;
         }
         let mut sx = [hsum(ax[0]), hsum(ax[1]), hsum(ax[2]), hsum(ax[3])];
@@ -284,9 +286,11 @@ fn dots_axpy4<T: Coef, const WITH_V: bool>(
                     tv[j] = c[j].mul_add(v[i], tv[j]);
                 }
             }
-            let p01 = w[1].mul_add(c[1], w[0] * c[0]);
-            let p23 = w[3].mul_add(c[3], w[2] * c[2]);
-            z[i] += p01 + p23;
+            if WITH_Z {
+                let p01 = w[1].mul_add(c[1], w[0] * c[0]);
+                let p23 = w[3].mul_add(c[3], w[2] * c[2]);
+                z[i] += p01 + p23;
+            }
             i += 1;
         }
         for j in 0..4 {
@@ -300,7 +304,13 @@ fn dots_axpy4<T: Coef, const WITH_V: bool>(
 /// s_j = sum_t a_j,t x_t for four segments; z_t += sum_j w_j a_j,t.
 #[inline(always)]
 pub fn dots4_axpy<T: Coef>(a: [&[T]; 4], x: &[f64], z: &mut [f64], w: [f64; 4]) -> [f64; 4] {
-    dots_axpy4::<T, false>(a, x, x, z, w).0
+    dots_axpy4::<T, false, true>(a, x, x, z, w).0
+}
+
+/// s_j = sum_t a_j,t x_t for four segments of equal length.
+#[inline(always)]
+pub fn dots4<T: Coef>(a: [&[T]; 4], x: &[f64]) -> [f64; 4] {
+    dots_axpy4::<T, false, false>(a, x, x, &mut [], [0.0; 4]).0
 }
 
 /// (sum_t a_j,t x_t, sum_t a_j,t v_t) for four segments; z_t += sum_j w_j a_j,t.
@@ -312,7 +322,7 @@ pub fn dots8_axpy<T: Coef>(
     z: &mut [f64],
     w: [f64; 4],
 ) -> ([f64; 4], [f64; 4]) {
-    dots_axpy4::<T, true>(a, x, v, z, w)
+    dots_axpy4::<T, true, true>(a, x, v, z, w)
 }
 
 /// [`rows4`] with two shared rows: u_t = (xi_0 a_0,t + xi_1 a_1,t) + (xi_2 a_2,t + xi_3 a_3,t),

@@ -23,7 +23,7 @@ use crate::error::CoreError;
 use crate::exec::Exec;
 use crate::partition::{plan, reduce, reduce_sums, Plan, WorkItem, CHUNK, QUANTUM};
 use crate::simd::{
-    axpy, dot, dot2_axpy, dot_axpy, dot_axpy2, dots4_axpy, dots8_axpy, leave_one_out,
+    axpy, dot, dot2_axpy, dot_axpy, dot_axpy2, dots4, dots4_axpy, dots8_axpy, leave_one_out,
     leave_two_out, rows4, rows4_shared2, simd_dispatch, Madd, Prefixes, MAX_PREFIX,
 };
 use crate::storage::{Coef, Packed};
@@ -104,17 +104,60 @@ fn energy_item_body<M: Madd, T: Coef>(n: usize, a: &[T], it: &WorkItem, x: &[f64
     if it.degree != 3 {
         return energy_blocks::<M, T>(n, it.degree, (it.lo, it.hi), coeffs, x);
     }
-    // degree 3: segments are long (about n / 3) and one sequential stream reads fastest
-    let mut walk = Prefixes::new(n, it.degree, it.lo, it.hi);
-    let mut xp = [0f64; MAX_PREFIX];
+    energy3_item_body::<M, T>(n, coeffs, it, x)
+}
+
+/// The degree-3 energy of one item (`coeffs` are the item's), four first indices at a time as
+/// in [`gradient3_item_body`]: the segments of (g + k, j), k < 4, share the range t >= j, so
+/// [`dots4`] reads each x_t once for four coefficients (the plain walk reads it per segment,
+/// which with float32 storage costs more than the coefficients' own bytes).
+#[inline(always)]
+fn energy3_item_body<M: Madd, T: Coef>(n: usize, coeffs: &[T], it: &WorkItem, x: &[f64]) -> f64 {
     let mut e = 0.0;
-    while let Some((t0, pos)) = walk.next_prefix() {
-        let pre = walk.prefix();
-        gather(x, pre, &mut xp);
-        let prod: f64 = xp[..pre.len()].iter().product();
-        e += prod * dot::<M, T>(&coeffs[pos..pos + n - t0], &x[t0..]);
+    let mut g0 = it.lo;
+    while g0 + 4 <= it.hi {
+        for i in g0..g0 + 4 {
+            e += energy3_plain::<M, T>(n, coeffs, it.start, i, i..g0 + 4, x);
+        }
+        let xi = [x[g0], x[g0 + 1], x[g0 + 2], x[g0 + 3]];
+        let mut pos = [0usize; 4];
+        for (k, p) in pos.iter_mut().enumerate() {
+            *p = segment3(n, it.start, g0 + k, g0 + 4);
+        }
+        for j in g0 + 4..n {
+            let len = n - j;
+            let s = dots4::<M, T>(four_segments(coeffs, &pos, len), &x[j..]);
+            e += x[j] * ((xi[0] * s[0] + xi[1] * s[1]) + (xi[2] * s[2] + xi[3] * s[3]));
+            for p in pos.iter_mut() {
+                *p += len;
+            }
+        }
+        g0 += 4;
+    }
+    for i in g0..it.hi {
+        e += energy3_plain::<M, T>(n, coeffs, it.start, i, i..n, x);
     }
     e
+}
+
+/// The degree-3 energy of the prefixes (i, j), j in `js`, one segment at a time (a function
+/// rather than a closure: closures may be compiled without the kernels' target features).
+#[inline(always)]
+fn energy3_plain<M: Madd, T: Coef>(
+    n: usize,
+    coeffs: &[T],
+    base: usize,
+    i: usize,
+    js: std::ops::Range<usize>,
+    x: &[f64],
+) -> f64 {
+    let mut part = 0.0;
+    let mut p = segment3(n, base, i, js.start);
+    for j in js {
+        part += x[i] * x[j] * dot::<M, T>(&coeffs[p..p + n - j], &x[j..]);
+        p += n - j;
+    }
+    part
 }
 
 simd_dispatch!(fn energy_item => energy_item_body(n: usize, a: &[T], it: &WorkItem, x: &[f64]) -> f64);
@@ -123,7 +166,7 @@ simd_dispatch!(fn energy_item => energy_item_body(n: usize, a: &[T], it: &WorkIt
 pub fn energy<T: Coef>(exec: &Exec, poly: &Packed<T>, x: &[f64]) -> Result<f64, CoreError> {
     check_len("x", poly.n(), x.len())?;
     let n = poly.n();
-    let items = items_for(poly, pieces(poly.num_coefficients(), 1), 1, 1);
+    let items = items_for(poly, pieces(poly.num_coefficients(), 1), 1, QUANTUM);
     let blocks = poly.blocks();
     reduce(
         exec,

@@ -21,6 +21,8 @@ pub trait Madd {
     fn dot_axpy<T: Coef>(a: &[T], x: &[f64], y: &mut [f64], alpha: f64) -> f64;
     fn dot_axpy2<T: Coef>(a: &[T], x: &[f64], y: (&mut [f64], f64), z: (&mut [f64], f64)) -> f64;
     fn dot2_axpy<T: Coef>(a: &[T], x: &[f64], v: &[f64], w: &mut [f64], alpha: f64) -> (f64, f64);
+    /// Four segments at once (see [`dots4`]).
+    fn dots4<T: Coef>(a: [&[T]; 4], x: &[f64]) -> [f64; 4];
     /// Four segments at once (see [`dots4_axpy`]).
     fn dots4_axpy<T: Coef>(a: [&[T]; 4], x: &[f64], z: &mut [f64], w: [f64; 4]) -> [f64; 4];
     /// Four segments at once (see [`dots8_axpy`]).
@@ -103,6 +105,10 @@ impl Madd for Fused {
     #[inline(always)]
     fn dot2_axpy<T: Coef>(a: &[T], x: &[f64], v: &[f64], w: &mut [f64], alpha: f64) -> (f64, f64) {
         crate::avx2::dot2_axpy(a, x, v, w, alpha)
+    }
+    #[inline(always)]
+    fn dots4<T: Coef>(a: [&[T]; 4], x: &[f64]) -> [f64; 4] {
+        crate::avx2::dots4(a, x)
     }
     #[inline(always)]
     fn dots4_axpy<T: Coef>(a: [&[T]; 4], x: &[f64], z: &mut [f64], w: [f64; 4]) -> [f64; 4] {
@@ -196,8 +202,12 @@ impl Madd for Plain {
         portable_dot2_axpy::<Plain, T>(a, x, v, w, alpha)
     }
     #[inline(always)]
+    fn dots4<T: Coef>(a: [&[T]; 4], x: &[f64]) -> [f64; 4] {
+        portable_dots8_axpy::<Plain, T>(a, x, None, None, [0.0; 4]).0
+    }
+    #[inline(always)]
     fn dots4_axpy<T: Coef>(a: [&[T]; 4], x: &[f64], z: &mut [f64], w: [f64; 4]) -> [f64; 4] {
-        portable_dots8_axpy::<Plain, T>(a, x, None, z, w).0
+        portable_dots8_axpy::<Plain, T>(a, x, None, Some(z), w).0
     }
     #[inline(always)]
     fn dots8_axpy<T: Coef>(
@@ -207,7 +217,7 @@ impl Madd for Plain {
         z: &mut [f64],
         w: [f64; 4],
     ) -> ([f64; 4], [f64; 4]) {
-        portable_dots8_axpy::<Plain, T>(a, x, Some(v), z, w)
+        portable_dots8_axpy::<Plain, T>(a, x, Some(v), Some(z), w)
     }
     #[inline(always)]
     fn rows4_shared2<T: Coef>(
@@ -316,6 +326,13 @@ pub fn rows4<M: Madd, T: Coef>(
     xi: [f64; 4],
 ) -> [f64; 4] {
     M::rows4(a, x, rows, w, z, xi)
+}
+
+/// s_j = sum_t a_j,t x_t for four segments of equal length, reading each x entry once for
+/// four coefficients.
+#[inline(always)]
+pub fn dots4<M: Madd, T: Coef>(a: [&[T]; 4], x: &[f64]) -> [f64; 4] {
+    M::dots4(a, x)
 }
 
 /// Four coefficient segments a_j (j < 4) of one length at once: returns s_j = sum_t a_j,t x_t
@@ -658,10 +675,10 @@ fn portable_dots8_axpy<M: Madd, T: Coef>(
     a: [&[T]; 4],
     x: &[f64],
     v: Option<&[f64]>,
-    z: &mut [f64],
+    mut z: Option<&mut [f64]>,
     w: [f64; 4],
 ) -> ([f64; 4], [f64; 4]) {
-    let len = z.len();
+    let len = z.as_ref().map_or(a[0].len(), |z| z.len());
     let (mut ax, mut av) = ([[0f64; SHORT]; 4], [[0f64; SHORT]; 4]);
     let body = len / SHORT * SHORT;
     let mut t = 0;
@@ -675,9 +692,11 @@ fn portable_dots8_axpy<M: Madd, T: Coef>(
                     av[j][l] = M::madd(c[j], v[i], av[j][l]);
                 }
             }
-            let p01 = M::madd(w[1], c[1], w[0] * c[0]);
-            let p23 = M::madd(w[3], c[3], w[2] * c[2]);
-            z[i] += p01 + p23;
+            if let Some(z) = z.as_deref_mut() {
+                let p01 = M::madd(w[1], c[1], w[0] * c[0]);
+                let p23 = M::madd(w[3], c[3], w[2] * c[2]);
+                z[i] += p01 + p23;
+            }
         }
         t += SHORT;
     }
@@ -695,9 +714,11 @@ fn portable_dots8_axpy<M: Madd, T: Coef>(
                 tv[j] = M::madd(c[j], v[i], tv[j]);
             }
         }
-        let p01 = M::madd(w[1], c[1], w[0] * c[0]);
-        let p23 = M::madd(w[3], c[3], w[2] * c[2]);
-        z[i] += p01 + p23;
+        if let Some(z) = z.as_deref_mut() {
+            let p01 = M::madd(w[1], c[1], w[0] * c[0]);
+            let p23 = M::madd(w[3], c[3], w[2] * c[2]);
+            z[i] += p01 + p23;
+        }
     }
     for j in 0..4 {
         sx[j] += tx[j];
