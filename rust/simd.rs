@@ -859,6 +859,7 @@ mod tests {
                 let (mut z4, mut z8) = (vec![0.5; len], vec![0.5; len]);
                 let s4 = dots4_axpy::<M, T>(a4, &x, &mut z4, w);
                 let (sx, sv) = dots8_axpy::<M, T>(a4, &x, &v, &mut z8, w);
+                let d4 = dots4::<M, T>(a4, &x);
                 let close = |p: f64, q: f64| (p - q).abs() <= 1e-13 * (1.0 + q.abs());
                 for k in 0..4 {
                     let dx: f64 = a[k].iter().zip(&x).map(|(c, y)| c.to_f64() * y).sum();
@@ -867,6 +868,7 @@ mod tests {
                         close(s4[k], dx) && close(sx[k], dx) && close(sv[k], dv),
                         "{len}"
                     );
+                    assert_eq!(d4[k], s4[k], "dots4 is dots4_axpy's sums, len {len}");
                 }
                 for t in 0..len {
                     let want = 0.5 + (0..4).map(|k| w[k] * a[k][t].to_f64()).sum::<f64>();
