@@ -609,7 +609,9 @@ def compute_ceiling(stats: dict, rows: list[dict], h, b: int) -> tuple[dict, str
     probe = make_row("compute", "probe:dgemm", f"{GEMM_SIZE}^3", st, None, None)
     probe["note"] = f"{rate / 1e9:.1f} G multiply-adds/s"
     batch = next(r for r in rows if r["kernel"] == "energy" and r["variant"] == f"batch b={b}")
-    singles = next(r for r in rows if r["kernel"] == "energy" and r["variant"] == f"{b} single calls")
+    singles = next(
+        r for r in rows if r["kernel"] == "energy" and r["variant"] == f"{b} single calls"
+    )
     work = h.num_coefficients * b
     fraction = work / batch["median_s"] / rate
     batch["note"] += f"; {fraction:.2f} of the dgemm rate"

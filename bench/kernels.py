@@ -17,6 +17,7 @@ What is measured, all in one run and as ratios only (never absolute timed assert
 * float32: float32 against float64 coefficient storage; ratio = float64 s / float32 s.
 * threads: one worker thread against all of them; ratio = 1-thread s / K-thread s.
 * batch: energy of b points in one call against b single calls; ratio = singles s / batch s.
+  A BLAS matrix product timed alongside gives the multiply-add ceiling of that ratio.
 
 Times are seconds per call: median of repeats after a warm-up (min and repeat count kept).
 """
