@@ -604,8 +604,8 @@ unsafe fn prefetch_ahead(pf: &mut *const u8, step: usize) {
 }
 
 /// The adjacent-rows loop of [`crate::stagger`] in vector steps: one load of x (v, z) for
-/// the four rows per four positions, masked coefficient loads at the first and last step;
-/// rows shorter than 4 take the shared scalar path. The four rows are short streams
+/// the four rows per four positions, lanes outside a row cleared by a bit mask at the first
+/// and last step; rows shorter than 4 take the shared scalar path. The four rows are short streams
 /// interleaved in one region, which the hardware prefetcher does not pick up, so the loop
 /// prefetches PREFETCH bytes ahead (wrapping: a prefetch never faults).
 #[inline(always)]

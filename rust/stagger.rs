@@ -14,8 +14,8 @@
 //! ```
 //!
 //! The loop runs four positions at a time ([`Steps`]): the first step starts every row at its
-//! own lane, and a last, overlapping step covers len mod 4; both load coefficients with lane
-//! masks, so rows of length 4 and more never fall back to scalar steps.
+//! own lane, and a last, overlapping step covers len mod 4; in both, lanes outside a row get
+//! coefficient zero, so rows of length 4 and more never fall back to scalar steps.
 
 use crate::simd::{Madd, Prefixes};
 use crate::storage::Coef;
