@@ -30,6 +30,7 @@ use crate::partition::{reduce_sums, WorkItem};
 use crate::simd::{
     dot, dot_axpy, leave_one_out, leave_two_out, simd_dispatch, Madd, Prefixes, MAX_PREFIX,
 };
+use crate::stagger::{rows_at, Rows4, Runs};
 use crate::storage::{Coef, Packed};
 use crate::tile::{tile, TILE_LANES};
 
@@ -51,20 +52,10 @@ fn transpose(
     out
 }
 
-/// Up to four consecutive prefixes that differ only in their last index, j0 + r for r <
-/// `count`; their segments follow each other in the item from `pos`.
-struct Block {
-    j0: usize,
-    pos: usize,
-    count: usize,
-}
-
-/// Per-lane products over the leading prefix indices (all but the last), shared by every
-/// block of a run: base[beta] = prod_m X[lead_m, beta] and, for the gradient,
-/// loo[m][beta] = the same product without factor m.
+/// Per-lane products over the leading prefix indices of a run (all but the last):
+/// base[beta] = prod_m X[lead_m, beta] and, for the gradient, loo[m][beta] = the same product
+/// without factor m.
 struct Leading {
-    idx: [usize; MAX_PREFIX],
-    len: usize,
     base: Vec<f64>,
     loo: Vec<f64>,
 }
@@ -72,38 +63,28 @@ struct Leading {
 impl Leading {
     fn new(stride: usize) -> Self {
         Leading {
-            idx: [usize::MAX; MAX_PREFIX],
-            len: usize::MAX,
             base: vec![1.0; stride],
             loo: vec![1.0; MAX_PREFIX * stride],
         }
     }
 
-    /// Recomputes the products when `lead` differs from the stored indices.
+    /// The products for a run with leading indices `lead`.
     fn set(&mut self, lead: &[usize], xt: &[f64], want_loo: bool) {
-        if self.len == lead.len() && self.idx[..lead.len()] == *lead {
-            return;
-        }
         let stride = self.base.len();
-        self.len = lead.len();
-        self.idx[..lead.len()].copy_from_slice(lead);
+        let row = |i: usize| &xt[i * stride..i * stride + stride];
         self.base.fill(1.0);
         for &i in lead {
-            for (b, xv) in self
-                .base
-                .iter_mut()
-                .zip(&xt[i * stride..i * stride + stride])
-            {
+            for (b, xv) in self.base.iter_mut().zip(row(i)) {
                 *b *= xv;
             }
         }
         if want_loo {
             for m in 0..lead.len() {
-                let row = &mut self.loo[m * stride..m * stride + stride];
-                row.fill(1.0);
+                let out = &mut self.loo[m * stride..m * stride + stride];
+                out.fill(1.0);
                 for (k, &i) in lead.iter().enumerate() {
                     if k != m {
-                        for (q, xv) in row.iter_mut().zip(&xt[i * stride..i * stride + stride]) {
+                        for (q, xv) in out.iter_mut().zip(row(i)) {
                             *q *= xv;
                         }
                     }
@@ -113,39 +94,28 @@ impl Leading {
     }
 }
 
-/// The energies (and gradients) of one block, for every lane, in tiles of 8 or 4 lanes.
+/// The energies (and gradients) of the block of rows k.. of a run with leading indices
+/// `lead`, for every lane, in tiles of 8 or 4 lanes.
 ///
-/// With S_r the tile sums of row r and T = sum_r X[j0 + r] S_r, per lane:
-/// E += base T,  G[j0 + r] += base S_r,  G[lead_m] += loo_m T,  and inside the tile
-/// G[t] += sum_r (base X[j0 + r]) a_r(t).
+/// With S_r the tile sums of row r and T = sum_r X[k + r] S_r, per lane:
+/// E += base T,  G[k + r] += base S_r,  G[lead_m] += loo_m T,  and inside the tile
+/// G[t] += sum_r (base X[k + r]) a_r(t).
 #[inline(always)]
 #[allow(clippy::too_many_arguments)]
 fn block_pass<M: Madd, T: Coef>(
-    n: usize,
-    blk: &Block,
-    coeffs: &[T],
+    k: usize,
+    rows: &Rows4<'_, T>,
     zeros: &[T],
-    lead: &Leading,
+    (lead, products): (&[usize], &Leading),
     xt: &[f64],
     e: &mut [f64],
     g: &mut [f64],
 ) {
     let stride = e.len();
     let want_grad = !g.is_empty();
-    let len = n - blk.j0;
-    let mut pos = blk.pos;
-    let rows: [&[T]; 4] = [0, 1, 2, 3].map(|r| {
-        let row_len = len.saturating_sub(r);
-        if r < blk.count {
-            let row = &coeffs[pos..pos + row_len];
-            pos += row_len;
-            row
-        } else {
-            &zeros[..row_len]
-        }
-    });
-    let active = blk.count;
-    let x0 = blk.j0 * stride;
+    let slices = rows.slices(zeros);
+    let active = rows.count;
+    let x0 = k * stride;
     let mut s = [[0f64; TILE_LANES]; 4];
     let mut w = [[0f64; TILE_LANES]; 4];
     let mut g0 = 0;
@@ -154,31 +124,31 @@ fn block_pass<M: Madd, T: Coef>(
         let xs = &xt[x0 + g0..];
         if want_grad {
             for r in 0..active {
-                for k in 0..lanes {
-                    w[r][k] = lead.base[g0 + k] * xt[x0 + r * stride + g0 + k];
+                for l in 0..lanes {
+                    w[r][l] = products.base[g0 + l] * xt[x0 + r * stride + g0 + l];
                 }
             }
-            tile::<M, T, 1>(rows, xs, stride, Some((&mut g[x0 + g0..], &w)), &mut s);
+            tile::<M, T, 1>(slices, xs, stride, Some((&mut g[x0 + g0..], &w)), &mut s);
         } else if lanes == 8 {
-            tile::<M, T, 2>(rows, xs, stride, None, &mut s);
+            tile::<M, T, 2>(slices, xs, stride, None, &mut s);
         } else {
-            tile::<M, T, 1>(rows, xs, stride, None, &mut s);
+            tile::<M, T, 1>(slices, xs, stride, None, &mut s);
         }
-        for k in 0..lanes {
-            let beta = g0 + k;
+        for l in 0..lanes {
+            let beta = g0 + l;
             let mut total = 0.0;
             for (r, sr) in s.iter().enumerate().take(active) {
-                total = M::madd(xt[x0 + r * stride + beta], sr[k], total);
+                total = M::madd(xt[x0 + r * stride + beta], sr[l], total);
             }
-            e[beta] = M::madd(lead.base[beta], total, e[beta]);
+            e[beta] = M::madd(products.base[beta], total, e[beta]);
             if want_grad {
                 for (r, sr) in s.iter().enumerate().take(active) {
                     let at = x0 + r * stride + beta;
-                    g[at] = M::madd(lead.base[beta], sr[k], g[at]);
+                    g[at] = M::madd(products.base[beta], sr[l], g[at]);
                 }
-                for (m, &i) in lead.idx[..lead.len].iter().enumerate() {
+                for (m, &i) in lead.iter().enumerate() {
                     let at = i * stride + beta;
-                    g[at] = M::madd(lead.loo[m * stride + beta], total, g[at]);
+                    g[at] = M::madd(products.loo[m * stride + beta], total, g[at]);
                 }
             }
         }
@@ -217,33 +187,21 @@ fn batch_item_body<M: Madd, T: Coef>(
         }
         return;
     }
-    let l = it.degree - 1;
     let zeros = vec![T::default(); n];
-    let mut lead = Leading::new(stride);
-    let mut blk: Option<Block> = None;
-    let mut walk = Prefixes::new(n, it.degree, it.lo, it.hi);
-    loop {
-        let next = walk.next_prefix();
-        if let (Some(b), Some((t0, _))) = (&mut blk, next) {
-            // the next prefix of a run has the next last index; a new run starts lower
-            if b.count < 4 && t0 == b.j0 + b.count {
-                b.count += 1;
-                continue;
-            }
-        }
-        if let Some(b) = blk.take() {
+    let mut products = Leading::new(stride);
+    let mut runs = Runs::new(n, it.degree, it.lo, it.hi);
+    while let Some((mut k, k_end, mut pos)) = runs.next_run() {
+        let lead = runs.lead();
+        products.set(lead, xt, want_grad);
+        while k < k_end {
             if exec.stop_requested() {
                 return; // a wide batch checks per block: one chunk may be seconds of work
             }
-            block_pass::<M, T>(n, &b, coeffs, &zeros, &lead, xt, e, g);
+            let count = (k_end - k).min(4);
+            let (rows, next) = rows_at(n, k, pos, count, coeffs);
+            block_pass::<M, T>(k, &rows, &zeros, (lead, &products), xt, e, g);
+            (k, pos) = (k + count, next);
         }
-        let Some((t0, pos)) = next else { break };
-        lead.set(&walk.prefix()[..l - 1], xt, want_grad);
-        blk = Some(Block {
-            j0: t0,
-            pos,
-            count: 1,
-        });
     }
 }
 

@@ -109,6 +109,23 @@ impl<'a, T: Coef> Rows4<'a, T> {
         Self::offset_for(self.len, r)
     }
 
+    /// The four rows as slices (row r: len - r entries), the zero rows taken from `zeros`
+    /// (at least len long).
+    #[inline(always)]
+    pub fn slices(&self, zeros: &'a [T]) -> [&'a [T]; 4] {
+        let mut out = [
+            &zeros[..self.len],
+            &zeros[..self.len.saturating_sub(1)],
+            &zeros[..self.len.saturating_sub(2)],
+            &zeros[..self.len.saturating_sub(3)],
+        ];
+        for (r, slot) in out.iter_mut().enumerate().take(self.count) {
+            let at = self.offset(r);
+            *slot = &self.data[at..at + self.len - r];
+        }
+        out
+    }
+
     /// Coefficient of row r at position u (zero before the row starts and for zero rows).
     #[inline(always)]
     pub fn coef(&self, r: usize, u: usize) -> f64 {
