@@ -11,9 +11,10 @@
 //! ```
 //!
 //! where X[u, k] = x[u * stride + k] is the point of lane k at last index t0 + u. Every
-//! coefficient is loaded once for the 4 G lanes and every row of X once for the four
-//! segments, so the loop does 4 G multiply-adds per two loads; that ratio, not the memory
-//! stream, bounds a batch of many points. Missing rows are passed as zeros.
+//! coefficient is broadcast once for the 4 G lanes and every row of X loaded once for the four
+//! segments: per position, G vector loads and four broadcasts feed 4 G vector multiply-adds.
+//! That arithmetic, not the memory stream, bounds a batch of many points. Missing rows are
+//! passed as zeros.
 
 use crate::simd::Madd;
 use crate::storage::Coef;
