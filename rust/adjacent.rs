@@ -22,10 +22,12 @@ use crate::simd::{leave_one_out, leave_two_out, Madd, MAX_PREFIX};
 use crate::stagger::{rows_at, stagger4, stagger4_hess, HessRows, Runs};
 use crate::storage::Coef;
 
-/// Products over the leading indices of the current run (see the module doc).
+/// Products over the leading indices of the current run (see the module doc): B, Q_m, and
+/// on request the leave-two-out products R_{m m'} (m < m') and the directional dB, dQ_m.
 struct Leading {
     base: f64,
     q: [f64; MAX_PREFIX],
+    r: [[f64; MAX_PREFIX]; MAX_PREFIX],
     dbase: f64,
     dq: [f64; MAX_PREFIX],
 }
@@ -35,27 +37,28 @@ impl Leading {
         Leading {
             base: 1.0,
             q: [0.0; MAX_PREFIX],
+            r: [[0.0; MAX_PREFIX]; MAX_PREFIX],
             dbase: 0.0,
             dq: [0.0; MAX_PREFIX],
         }
     }
 
-    /// The products for a new run with leading indices `lead` (at x, and with `v` the
-    /// directional ones).
+    /// The products for a new run with leading indices `lead` at x; R when `two_out` or
+    /// when `v` is given, and with `v` the directional ones.
     #[inline(always)]
     #[allow(clippy::needless_range_loop)] // m and k index the prefix in several arrays
-    fn set(&mut self, lead: &[usize], x: &[f64], v: Option<&[f64]>) {
+    fn set(&mut self, lead: &[usize], x: &[f64], v: Option<&[f64]>, two_out: bool) {
         let l = lead.len();
         let mut xl = [0f64; MAX_PREFIX];
         for (o, &i) in xl.iter_mut().zip(lead) {
             *o = x[i];
         }
         self.base = leave_one_out(&xl[..l], &mut self.q);
+        if (two_out || v.is_some()) && l >= 2 {
+            leave_two_out(&xl[..l], &mut self.r);
+        }
         if let Some(v) = v {
-            let mut r = [[0f64; MAX_PREFIX]; MAX_PREFIX];
-            if l >= 2 {
-                leave_two_out(&xl[..l], &mut r);
-            }
+            let r = &self.r;
             self.dbase = (0..l).map(|m| v[lead[m]] * self.q[m]).sum();
             for m in 0..l {
                 let mut d = 0.0;
@@ -83,7 +86,7 @@ pub(crate) fn energy_blocks<M: Madd, T: Coef>(
     let mut e = 0.0;
     let mut runs = Runs::new(n, degree, lo, hi);
     while let Some((mut k, k_end, mut pos)) = runs.next_run() {
-        lead.set(runs.lead(), x, None);
+        lead.set(runs.lead(), x, None, false);
         let mut run_total = 0.0;
         while k < k_end {
             let count = (k_end - k).min(4);
@@ -113,7 +116,7 @@ pub(crate) fn gradient_blocks<M: Madd, T: Coef>(
     let mut e = 0.0;
     let mut runs = Runs::new(n, degree, lo, hi);
     while let Some((mut k, k_end, mut pos)) = runs.next_run() {
-        lead.set(runs.lead(), x, None);
+        lead.set(runs.lead(), x, None, false);
         let base = lead.base;
         let mut run_total = 0.0;
         while k < k_end {
@@ -151,7 +154,7 @@ pub(crate) fn hvp_blocks<M: Madd, T: Coef>(
     let mut lead = Leading::new();
     let mut runs = Runs::new(n, degree, lo, hi);
     while let Some((mut k, k_end, mut pos)) = runs.next_run() {
-        lead.set(runs.lead(), x, Some(v));
+        lead.set(runs.lead(), x, Some(v), false);
         let (base, dbase) = (lead.base, lead.dbase);
         let (mut mixed, mut total) = (0.0, 0.0);
         while k < k_end {
@@ -190,19 +193,12 @@ pub(crate) fn hessian_blocks<M: Madd, T: Coef>(
     acc: &mut [f64],
 ) {
     let mut runs = Runs::new(n, degree, lo, hi);
-    let mut q = [0f64; MAX_PREFIX];
-    let mut r2 = [[0f64; MAX_PREFIX]; MAX_PREFIX];
+    let mut products = Leading::new();
     while let Some((mut k, k_end, mut pos)) = runs.next_run() {
         let lead = runs.lead();
         let l = lead.len();
-        let mut xl = [0f64; MAX_PREFIX];
-        for (o, &i) in xl.iter_mut().zip(lead) {
-            *o = x[i];
-        }
-        let base = leave_one_out(&xl[..l], &mut q);
-        if l >= 2 {
-            leave_two_out(&xl[..l], &mut r2);
-        }
+        products.set(lead, x, None, true);
+        let (base, q) = (products.base, &products.q);
         // distinct leading indices (equal ones are adjacent) with summed weights
         let mut shared = [(0usize, 0f64); MAX_PREFIX];
         let mut d = 0;
@@ -240,7 +236,7 @@ pub(crate) fn hessian_blocks<M: Madd, T: Coef>(
         for m in 0..l {
             for m2 in m + 1..l {
                 let at = lead[m] * n + lead[m2];
-                acc[at] = M::madd(r2[m][m2], total, acc[at]);
+                acc[at] = M::madd(products.r[m][m2], total, acc[at]);
             }
         }
     }

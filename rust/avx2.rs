@@ -9,7 +9,7 @@
 use core::arch::x86_64::*;
 
 use crate::simd::Fused;
-use crate::stagger::{check_rows, lane_from, short_stagger4, HessRows, Rows4, Steps};
+use crate::stagger::{check_rows, lane_from, short_stagger4, split_update, HessRows, Rows4, Steps};
 use crate::storage::Coef;
 use crate::tile::{check_tile, tile_coef, TileSums};
 
@@ -17,6 +17,17 @@ use crate::tile::{check_tile, tile_coef, TileSums};
 unsafe fn hsum(v: __m256d) -> f64 {
     let pair = _mm_add_pd(_mm256_castpd256_pd128(v), _mm256_extractf128_pd::<1>(v));
     _mm_cvtsd_f64(_mm_add_sd(pair, _mm_unpackhi_pd(pair, pair)))
+}
+
+/// Four values, each broadcast to all lanes.
+#[inline(always)]
+unsafe fn splat4(v: [f64; 4]) -> [__m256d; 4] {
+    [
+        _mm256_set1_pd(v[0]),
+        _mm256_set1_pd(v[1]),
+        _mm256_set1_pd(v[2]),
+        _mm256_set1_pd(v[3]),
+    ]
 }
 
 #[inline(always)]
@@ -245,12 +256,7 @@ fn dots_axpy4<T: Coef, const WITH_V: bool, const WITH_Z: bool>(
     unsafe {
         let pa = [a[0].as_ptr(), a[1].as_ptr(), a[2].as_ptr(), a[3].as_ptr()];
         let (px, pv, pz) = (x.as_ptr(), v.as_ptr(), z.as_mut_ptr());
-        let wv = [
-            _mm256_set1_pd(w[0]),
-            _mm256_set1_pd(w[1]),
-            _mm256_set1_pd(w[2]),
-            _mm256_set1_pd(w[3]),
-        ];
+        let wv = splat4(w);
         let mut ax = [_mm256_setzero_pd(); 4];
         let mut av = [_mm256_setzero_pd(); 4];
         let mut i = 0;
@@ -377,12 +383,7 @@ fn rows4_shared<T: Coef, const TWO: bool>(
             _mm256_set1_pd(alpha),
             _mm256_set1_pd(beta),
         );
-        let xv = [
-            _mm256_set1_pd(xi[0]),
-            _mm256_set1_pd(xi[1]),
-            _mm256_set1_pd(xi[2]),
-            _mm256_set1_pd(xi[3]),
-        ];
+        let xv = splat4(xi);
         let mut acc = [_mm256_setzero_pd(); 4];
         let mut i = 0;
         while i + 4 <= len {
@@ -623,10 +624,7 @@ pub fn stagger4<T: Coef>(
     }
     let want_v = v.is_some();
     let vs = v.unwrap_or(x);
-    let (z, w) = match z {
-        Some((z, w)) => (Some(z), w),
-        None => (None, [0.0; 4]),
-    };
+    let (z, w) = split_update(z);
     let pz = z.map(|z| z.as_mut_ptr());
     // SAFETY: every step covers positions u..u+4 <= len, inside x, v and z (`check_rows`);
     // a real row r is read at u - r..u - r + 4 of its own start: at most its last entry, and
@@ -637,12 +635,7 @@ pub fn stagger4<T: Coef>(
         let pa = row_ptrs(&rows);
         let mut ax = [_mm256_setzero_pd(); 4];
         let mut av = [_mm256_setzero_pd(); 4];
-        let wv = [
-            _mm256_set1_pd(w[0]),
-            _mm256_set1_pd(w[1]),
-            _mm256_set1_pd(w[2]),
-            _mm256_set1_pd(w[3]),
-        ];
+        let wv = splat4(w);
         let mut pf = (pa[0] as *const u8).wrapping_add(PREFETCH);
         let step = 16 * std::mem::size_of::<T>();
         for (u, from) in Steps::new(len) {
@@ -709,12 +702,7 @@ pub fn stagger4_hess<T: Coef>(
             pacc.add((k + 3) * n + k),
         ];
         let bv = _mm256_set1_pd(h.b);
-        let xk = [
-            _mm256_set1_pd(h.xk[0]),
-            _mm256_set1_pd(h.xk[1]),
-            _mm256_set1_pd(h.xk[2]),
-            _mm256_set1_pd(h.xk[3]),
-        ];
+        let xk = splat4(h.xk);
         let mut sv = [_mm256_setzero_pd(); 4];
         let mut pf = (pa[0] as *const u8).wrapping_add(PREFETCH);
         let step = 16 * std::mem::size_of::<T>();

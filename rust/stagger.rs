@@ -265,16 +265,22 @@ pub(crate) fn short_stagger4<M: Madd, T: Coef>(
     let len = rows.len;
     let want_v = v.is_some();
     let vs = v.unwrap_or(x);
-    let (mut z, w) = match z {
-        Some((z, w)) => (Some(z), w),
-        None => (None, [0.0; 4]),
-    };
+    let (mut z, w) = split_update(z);
     let (mut sx, mut sv) = ([0f64; 4], [0f64; 4]);
     for u in 0..len {
         let zu = z.as_deref_mut().map(|z| (&mut z[u], &w));
         stagger_step::<M>(coefs_at(rows, u), x[u], vs[u], want_v, &mut sx, &mut sv, zu);
     }
     (sx, sv)
+}
+
+/// The update of [`stagger4`] as its target and weights (no target: weights zero).
+#[inline(always)]
+pub(crate) fn split_update(z: Option<(&mut [f64], [f64; 4])>) -> (Option<&mut [f64]>, [f64; 4]) {
+    match z {
+        Some((z, w)) => (Some(z), w),
+        None => (None, [0.0; 4]),
+    }
 }
 
 /// Lane sums combined as the vector code does: (l0 + l2) + (l1 + l3).
@@ -299,10 +305,7 @@ pub(crate) fn portable_stagger4<M: Madd, T: Coef>(
     }
     let want_v = v.is_some();
     let vs = v.unwrap_or(x);
-    let (mut z, w) = match z {
-        Some((z, w)) => (Some(z), w),
-        None => (None, [0.0; 4]),
-    };
+    let (mut z, w) = split_update(z);
     let (mut lx, mut lv) = ([[0f64; 4]; 4], [[0f64; 4]; 4]);
     for (u, from) in Steps::new(len) {
         let c = step_coefs(&rows, u, from);
