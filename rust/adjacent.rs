@@ -24,16 +24,16 @@ use crate::storage::Coef;
 
 /// Products over the leading indices of the current run (see the module doc): B, Q_m, and
 /// on request the leave-two-out products R_{m m'} (m < m') and the directional dB, dQ_m.
-struct Leading {
-    base: f64,
-    q: [f64; MAX_PREFIX],
-    r: [[f64; MAX_PREFIX]; MAX_PREFIX],
-    dbase: f64,
-    dq: [f64; MAX_PREFIX],
+pub(crate) struct Leading {
+    pub base: f64,
+    pub q: [f64; MAX_PREFIX],
+    pub r: [[f64; MAX_PREFIX]; MAX_PREFIX],
+    pub dbase: f64,
+    pub dq: [f64; MAX_PREFIX],
 }
 
 impl Leading {
-    fn new() -> Self {
+    pub fn new() -> Self {
         Leading {
             base: 1.0,
             q: [0.0; MAX_PREFIX],
@@ -47,8 +47,23 @@ impl Leading {
     /// when `v` is given, and with `v` the directional ones.
     #[inline(always)]
     #[allow(clippy::needless_range_loop)] // m and k index the prefix in several arrays
-    fn set(&mut self, lead: &[usize], x: &[f64], v: Option<&[f64]>, two_out: bool) {
+    pub fn set(&mut self, lead: &[usize], x: &[f64], v: Option<&[f64]>, two_out: bool) {
         let l = lead.len();
+        if let &[i, j] = lead {
+            // the general formulas below for two leading indices, spelled out (the degree-4
+            // quads set them once per segment)
+            let (xi, xj) = (x[i], x[j]);
+            self.base = xi * xj;
+            self.q[0] = xj;
+            self.q[1] = xi;
+            self.r[0][1] = 1.0;
+            if let Some(v) = v {
+                self.dbase = v[i] * xj + v[j] * xi;
+                self.dq[0] = v[j];
+                self.dq[1] = v[i];
+            }
+            return;
+        }
         let mut xl = [0f64; MAX_PREFIX];
         for (o, &i) in xl.iter_mut().zip(lead) {
             *o = x[i];
@@ -73,18 +88,16 @@ impl Leading {
     }
 }
 
-/// Energy of an item's prefixes with first index lo..hi (`coeffs` are the item's).
+/// Energy of the prefixes of `runs` (`coeffs` start at the first run's first row).
 #[inline(always)]
 pub(crate) fn energy_blocks<M: Madd, T: Coef>(
     n: usize,
-    degree: usize,
-    (lo, hi): (usize, usize),
+    mut runs: Runs,
     coeffs: &[T],
     x: &[f64],
 ) -> f64 {
     let mut lead = Leading::new();
     let mut e = 0.0;
-    let mut runs = Runs::new(n, degree, lo, hi);
     while let Some((mut k, k_end, mut pos)) = runs.next_run() {
         lead.set(runs.lead(), x, None, false);
         let mut run_total = 0.0;
@@ -102,19 +115,17 @@ pub(crate) fn energy_blocks<M: Madd, T: Coef>(
     e
 }
 
-/// Gradient (added to `g`) and energy (returned) of an item's prefixes.
+/// Gradient (added to `g`) and energy (returned) of the prefixes of `runs`.
 #[inline(always)]
 pub(crate) fn gradient_blocks<M: Madd, T: Coef>(
     n: usize,
-    degree: usize,
-    (lo, hi): (usize, usize),
+    mut runs: Runs,
     coeffs: &[T],
     x: &[f64],
     g: &mut [f64],
 ) -> f64 {
     let mut lead = Leading::new();
     let mut e = 0.0;
-    let mut runs = Runs::new(n, degree, lo, hi);
     while let Some((mut k, k_end, mut pos)) = runs.next_run() {
         lead.set(runs.lead(), x, None, false);
         let base = lead.base;
@@ -141,18 +152,16 @@ pub(crate) fn gradient_blocks<M: Madd, T: Coef>(
     e
 }
 
-/// Hessian-vector product of an item's prefixes at x along v, added to `w`.
+/// Hessian-vector product of the prefixes of `runs` at x along v, added to `w`.
 #[inline(always)]
 pub(crate) fn hvp_blocks<M: Madd, T: Coef>(
     n: usize,
-    degree: usize,
-    (lo, hi): (usize, usize),
+    mut runs: Runs,
     coeffs: &[T],
     (x, v): (&[f64], &[f64]),
     w: &mut [f64],
 ) {
     let mut lead = Leading::new();
-    let mut runs = Runs::new(n, degree, lo, hi);
     while let Some((mut k, k_end, mut pos)) = runs.next_run() {
         lead.set(runs.lead(), x, Some(v), false);
         let (base, dbase) = (lead.base, lead.dbase);
@@ -178,7 +187,7 @@ pub(crate) fn hvp_blocks<M: Madd, T: Coef>(
     }
 }
 
-/// Hessian accumulator A (n x n, upper part; Hess = A + A^T) of an item's prefixes at x.
+/// Hessian accumulator A (n x n, upper part; Hess = A + A^T) of the prefixes of `runs` at x.
 ///
 /// Per block, with Sx_r as above: rows k + r get B a_r, the shared rows L_m get Q_m U with
 /// U = sum_r x_{k+r} a_r (equal leading indices share one row, weights summed), and
@@ -186,13 +195,11 @@ pub(crate) fn hvp_blocks<M: Madd, T: Coef>(
 #[inline(always)]
 pub(crate) fn hessian_blocks<M: Madd, T: Coef>(
     n: usize,
-    degree: usize,
-    (lo, hi): (usize, usize),
+    mut runs: Runs,
     coeffs: &[T],
     x: &[f64],
     acc: &mut [f64],
 ) {
-    let mut runs = Runs::new(n, degree, lo, hi);
     let mut products = Leading::new();
     while let Some((mut k, k_end, mut pos)) = runs.next_run() {
         let lead = runs.lead();
@@ -272,16 +279,17 @@ mod tests {
                 let (mut e, mut e2, mut g, mut w) = (0.0, 0.0, vec![0.0; n], vec![0.0; n]);
                 let mut a = vec![0.0; n * n];
                 for (span, c) in parts {
+                    let runs = || Runs::new(n, degree, span.0, span.1);
                     if fused {
-                        e += energy_blocks::<Fused, f64>(n, degree, span, c, &x);
-                        e2 += gradient_blocks::<Fused, f64>(n, degree, span, c, &x, &mut g);
-                        hvp_blocks::<Fused, f64>(n, degree, span, c, (&x, &v), &mut w);
-                        hessian_blocks::<Fused, f64>(n, degree, span, c, &x, &mut a);
+                        e += energy_blocks::<Fused, f64>(n, runs(), c, &x);
+                        e2 += gradient_blocks::<Fused, f64>(n, runs(), c, &x, &mut g);
+                        hvp_blocks::<Fused, f64>(n, runs(), c, (&x, &v), &mut w);
+                        hessian_blocks::<Fused, f64>(n, runs(), c, &x, &mut a);
                     } else {
-                        e += energy_blocks::<Plain, f64>(n, degree, span, c, &x);
-                        e2 += gradient_blocks::<Plain, f64>(n, degree, span, c, &x, &mut g);
-                        hvp_blocks::<Plain, f64>(n, degree, span, c, (&x, &v), &mut w);
-                        hessian_blocks::<Plain, f64>(n, degree, span, c, &x, &mut a);
+                        e += energy_blocks::<Plain, f64>(n, runs(), c, &x);
+                        e2 += gradient_blocks::<Plain, f64>(n, runs(), c, &x, &mut g);
+                        hvp_blocks::<Plain, f64>(n, runs(), c, (&x, &v), &mut w);
+                        hessian_blocks::<Plain, f64>(n, runs(), c, &x, &mut a);
                     }
                 }
                 // Hess = A + A^T

@@ -17,15 +17,17 @@
 //! positional product rule counts them (d/dx x^2 = 2x). These satisfy the Euler identities
 //! x . grad H_p = p H_p and Hess H_p x = (p - 1) grad H_p, which the tests check.
 
-use crate::adjacent::{energy_blocks, gradient_blocks, hessian_blocks, hvp_blocks};
+use crate::adjacent::{energy_blocks, hessian_blocks};
 use crate::combinatorics::first_index_offset;
 use crate::error::CoreError;
 use crate::exec::Exec;
 use crate::partition::{plan, reduce, reduce_sums, Plan, WorkItem, CHUNK, QUANTUM};
+use crate::quads::{energy_quads, gradient_quads, hvp_quads};
 use crate::simd::{
     axpy, dot, dot2_axpy, dot_axpy, dot_axpy2, dots4, dots4_axpy, dots8_axpy, leave_one_out,
     leave_two_out, rows4, rows4_shared2, simd_dispatch, Madd, Prefixes, MAX_PREFIX,
 };
+use crate::stagger::Runs;
 use crate::storage::{Coef, Packed};
 
 /// Most work items of one pass (enough to keep 64 threads busy).
@@ -101,8 +103,11 @@ fn energy_item_body<M: Madd, T: Coef>(n: usize, a: &[T], it: &WorkItem, x: &[f64
     if it.degree == 1 {
         return dot::<M, T>(coeffs, &x[it.lo..it.hi]);
     }
+    if it.degree >= 4 {
+        return energy_quads::<M, T>(n, it.degree, (it.lo, it.hi, it.start), coeffs, x);
+    }
     if it.degree != 3 {
-        return energy_blocks::<M, T>(n, it.degree, (it.lo, it.hi), coeffs, x);
+        return energy_blocks::<M, T>(n, Runs::new(n, it.degree, it.lo, it.hi), coeffs, x);
     }
     energy3_item_body::<M, T>(n, coeffs, it, x)
 }
@@ -193,7 +198,7 @@ fn gradient_item_body<M: Madd, T: Coef>(
         return dot_axpy::<M, T>(coeffs, &x[it.lo..it.hi], &mut g[it.lo..it.hi], 1.0);
     }
     if it.degree >= 4 {
-        return gradient_blocks::<M, T>(n, it.degree, (it.lo, it.hi), coeffs, x, g);
+        return gradient_quads::<M, T>(n, it.degree, (it.lo, it.hi, it.start), coeffs, x, g);
     }
     if it.degree == 3 {
         return gradient3_item_body::<M, T>(n, coeffs, it, x, g);
@@ -407,7 +412,7 @@ fn hessian_item_body<M: Madd, T: Coef>(
         return hessian4_item_body::<M, T>(n, coeffs, it, x, acc);
     }
     if it.degree >= 5 {
-        return hessian_blocks::<M, T>(n, it.degree, (it.lo, it.hi), coeffs, x, acc);
+        return hessian_blocks::<M, T>(n, Runs::new(n, it.degree, it.lo, it.hi), coeffs, x, acc);
     }
     let mut walk = Prefixes::new(n, it.degree, it.lo, it.hi);
     let mut pp = PrefixProducts::new();
@@ -650,7 +655,7 @@ fn hvp_item_body<M: Madd, T: Coef>(
         return hvp3_item_body::<M, T>(n, coeffs, it, x, v, w);
     }
     if it.degree >= 4 {
-        return hvp_blocks::<M, T>(n, it.degree, (it.lo, it.hi), coeffs, (x, v), w);
+        return hvp_quads::<M, T>(n, it.degree, (it.lo, it.hi, it.start), coeffs, (x, v), w);
     }
     let mut walk = Prefixes::new(n, it.degree, it.lo, it.hi);
     let mut pp = PrefixProducts::new();
@@ -925,8 +930,9 @@ pub(crate) mod tests {
         }
     }
 
-    /// The degree-3 passes take first indices by four, the degree-4 Hessian second indices,
-    /// and energies, degree >= 4 gradients and HVPs blocks of adjacent prefixes;
+    /// The degree-3 passes and the degree >= 4 energies, gradients and HVPs take first indices
+    /// by four, the degree-4 Hessian second indices, and degree-2 energies blocks of adjacent
+    /// prefixes;
     /// sizes around multiples of 4, items that hold several chunks (n = 150) and mixtures with
     /// other degrees exercise the grouped part, the head prefixes and the leftovers against
     /// the naive sum.

@@ -14,6 +14,7 @@ pub mod error;
 pub mod exec;
 pub mod kernels;
 pub mod partition;
+mod quads;
 pub mod sampling;
 pub mod scratch;
 pub mod simd;

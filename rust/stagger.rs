@@ -30,6 +30,7 @@ pub struct Runs {
     pos: usize,
     next_pos: usize,
     span: (usize, usize),
+    stop: usize,
 }
 
 impl Runs {
@@ -40,6 +41,17 @@ impl Runs {
             pos: 0,
             next_pos: 0,
             span: (lo, hi),
+            stop: usize::MAX,
+        }
+    }
+
+    /// The runs of first index i (degree >= 4) whose second index is below `stop`: the first
+    /// runs of i, since runs come in lexicographic order.
+    pub fn below(n: usize, degree: usize, i: usize, stop: usize) -> Self {
+        debug_assert!(degree >= 4);
+        Runs {
+            stop,
+            ..Runs::new(n, degree, i, i + 1)
         }
     }
 
@@ -54,6 +66,9 @@ impl Runs {
             }
             Some(walk) => {
                 let (k0, _) = walk.next_prefix()?;
+                if walk.prefix().get(1).is_some_and(|&j| j >= self.stop) {
+                    return None;
+                }
                 self.pos = self.next_pos;
                 let m = n - k0;
                 self.next_pos = self.pos + m * (m + 1) / 2;

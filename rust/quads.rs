@@ -1,0 +1,354 @@
+//! Single-point passes of degree p >= 4 that take first indices four at a time.
+//!
+//! Take first indices g..g+4 (a quad). The coefficients of first index g + r whose second
+//! index is >= g + 4 close that index's sub-block, and they follow the same order for the four
+//! values of r (lexicographic in the other p - 1 indices). One walk over the prefixes
+//! P = (i2 <= .. <= i_{p-1}) of those tails, with t0 = i_{p-1}, therefore reads four segments
+//! of length n - t0 side by side, like the degree-3 passes of [`crate::kernels`], and each
+//! x_t (v_t, g_t) once for the four. With W = prod_m x_{P_m}, Q_m = W / x_{P_m} (a
+//! leave-one-out product), s_r = sum_t a_{r,t} x_t, sv_r = sum_t a_{r,t} v_t and
+//! T = sum_r x_{g+r} s_r:
+//!
+//! ```text
+//! energy    H += W T
+//! gradient  g_t += sum_r W x_{g+r} a_{r,t},  g_{g+r} += W s_r,  g_{P_m} += Q_m T
+//! Hess . v  w_t += sum_r D_r a_{r,t},  D_r = dW x_{g+r} + W v_{g+r},  dW = sum_m v_{P_m} Q_m
+//!           w_{g+r} += W sv_r + dW s_r
+//!           w_{P_m} += Q_m sum_r (x_{g+r} sv_r + v_{g+r} s_r) + dQ_m T
+//! ```
+//!
+//! These are the formulas of [`crate::adjacent`] with the quad in the place of a block's rows
+//! and P in the place of the leading indices ([`Leading`] forms W, Q, dW, dQ). The runs of
+//! first index g + r with second index < g + 4, and the first indices left over at the end of
+//! an item (items start at multiples of [`crate::partition::QUANTUM`]), go through the blocks
+//! of [`crate::adjacent`]. Compared with those blocks, a segment here costs no masked steps
+//! and no per-block set-up, which at p = 4 and n ~ 100 (segments about 30 long) is about a
+//! quarter of the time of a pass.
+
+use crate::adjacent::{energy_blocks, gradient_blocks, hvp_blocks, Leading};
+use crate::combinatorics::{first_index_offset, num_multisets};
+use crate::simd::{dots4, dots4_axpy, dots8_axpy, Madd, Prefixes, MAX_PREFIX};
+use crate::stagger::Runs;
+use crate::storage::Coef;
+
+/// Where the quad g..g+4 of a degree-p item lies in the item's coefficients (which start at
+/// offset `start` of the block): `head[r]` is where first index g + r starts, `tail[r]` where
+/// its coefficients with second index >= g + 4 start.
+struct Quad {
+    g: usize,
+    head: [usize; 4],
+    tail: [usize; 4],
+}
+
+impl Quad {
+    fn new(n: usize, p: usize, g: usize, start: usize) -> Self {
+        let tail_len = num_multisets(n - g - 4, p - 1).expect("inside the block");
+        Quad {
+            g,
+            head: std::array::from_fn(|r| first_index_offset(n, p, g + r) - start),
+            tail: std::array::from_fn(|r| first_index_offset(n, p, g + r + 1) - start - tail_len),
+        }
+    }
+
+    /// The runs of first index g + r that precede its tail.
+    fn head_runs(&self, n: usize, p: usize, r: usize) -> Runs {
+        Runs::below(n, p, self.g + r, self.g + 4)
+    }
+
+    /// The prefixes of the tails: (P, t0) with P_0 >= g + 4, offsets relative to a tail.
+    fn tail_prefixes(&self, n: usize, p: usize) -> Prefixes {
+        Prefixes::new(n, p - 1, self.g + 4, n)
+    }
+
+    /// The four tail segments at offset `pos` of length `len`.
+    #[inline(always)]
+    fn segments<'a, T>(&self, coeffs: &'a [T], pos: usize, len: usize) -> [&'a [T]; 4] {
+        self.tail.map(|at| &coeffs[at + pos..at + pos + len])
+    }
+
+    /// (y_g, .., y_{g+3}).
+    #[inline(always)]
+    fn of(&self, y: &[f64]) -> [f64; 4] {
+        [y[self.g], y[self.g + 1], y[self.g + 2], y[self.g + 3]]
+    }
+}
+
+/// W, Q_m (and with v: dW, dQ_m) of the tail prefixes P = (P', t0), formed from those of P'
+/// ([`Leading`], set when P' changes, that is when t0 restarts at P'_last):
+/// W = W' x_t0, Q_m = Q'_m x_t0 (m < l - 1), Q_{l-1} = W', dW = dW' x_t0 + W' v_t0,
+/// dQ_m = dQ'_m x_t0 + Q'_m v_t0 (m < l - 1), dQ_{l-1} = dW'.
+struct TailProducts {
+    outer: Leading,
+    base: f64,
+    q: [f64; MAX_PREFIX],
+    dbase: f64,
+    dq: [f64; MAX_PREFIX],
+}
+
+impl TailProducts {
+    fn new() -> Self {
+        TailProducts {
+            outer: Leading::new(),
+            base: 0.0,
+            q: [0.0; MAX_PREFIX],
+            dbase: 0.0,
+            dq: [0.0; MAX_PREFIX],
+        }
+    }
+
+    /// The products of `prefix` (length l >= 2, last entry t0), with v when given.
+    #[inline(always)]
+    fn set(&mut self, prefix: &[usize], x: &[f64], v: Option<&[f64]>) {
+        let l = prefix.len();
+        let (head, t0) = (&prefix[..l - 1], prefix[l - 1]);
+        if t0 == head[l - 2] {
+            self.outer.set(head, x, v, false);
+        }
+        let o = &self.outer;
+        let xt = x[t0];
+        self.base = o.base * xt;
+        for m in 0..l - 1 {
+            self.q[m] = o.q[m] * xt;
+        }
+        self.q[l - 1] = o.base;
+        if let Some(v) = v {
+            let vt = v[t0];
+            self.dbase = o.dbase.mul_add(xt, o.base * vt);
+            for m in 0..l - 1 {
+                self.dq[m] = o.dq[m].mul_add(xt, o.q[m] * vt);
+            }
+            self.dq[l - 1] = o.dbase;
+        }
+    }
+}
+
+/// (a_0 b_0 + a_1 b_1) + (a_2 b_2 + a_3 b_3).
+#[inline(always)]
+fn dot4(a: [f64; 4], b: [f64; 4]) -> f64 {
+    (a[0] * b[0] + a[1] * b[1]) + (a[2] * b[2] + a[3] * b[3])
+}
+
+/// The first indices lo..hi of an item past its last whole quad, through the blocks.
+fn rest_runs(n: usize, p: usize, g: usize, hi: usize, start: usize) -> (Runs, usize) {
+    (Runs::new(n, p, g, hi), first_index_offset(n, p, g) - start)
+}
+
+/// Energy of the degree-p (>= 4) item with first indices lo..hi whose coefficients `coeffs`
+/// start at offset `start` of the block.
+#[inline(always)]
+pub(crate) fn energy_quads<M: Madd, T: Coef>(
+    n: usize,
+    p: usize,
+    (lo, hi, start): (usize, usize, usize),
+    coeffs: &[T],
+    x: &[f64],
+) -> f64 {
+    let mut e = 0.0;
+    let mut g = lo;
+    while g + 4 <= hi {
+        let quad = Quad::new(n, p, g, start);
+        for r in 0..4 {
+            let head = &coeffs[quad.head[r]..];
+            e += energy_blocks::<M, T>(n, quad.head_runs(n, p, r), head, x);
+        }
+        let xg = quad.of(x);
+        let mut walk = quad.tail_prefixes(n, p);
+        let mut part = 0.0;
+        while let Some((t0, pos)) = walk.next_prefix() {
+            let s = dots4::<M, T>(quad.segments(coeffs, pos, n - t0), &x[t0..]);
+            let w: f64 = walk.prefix().iter().map(|&j| x[j]).product();
+            part = M::madd(w, dot4(xg, s), part);
+        }
+        e += part;
+        g += 4;
+    }
+    if g < hi {
+        let (runs, at) = rest_runs(n, p, g, hi, start);
+        e += energy_blocks::<M, T>(n, runs, &coeffs[at..], x);
+    }
+    e
+}
+
+/// Gradient (added to `g`) and energy (returned) of a degree-p (>= 4) item, as in
+/// [`energy_quads`].
+#[inline(always)]
+pub(crate) fn gradient_quads<M: Madd, T: Coef>(
+    n: usize,
+    p: usize,
+    (lo, hi, start): (usize, usize, usize),
+    coeffs: &[T],
+    x: &[f64],
+    g: &mut [f64],
+) -> f64 {
+    let mut lead = TailProducts::new();
+    let mut e = 0.0;
+    let mut first = lo;
+    while first + 4 <= hi {
+        let quad = Quad::new(n, p, first, start);
+        for r in 0..4 {
+            let head = &coeffs[quad.head[r]..];
+            e += gradient_blocks::<M, T>(n, quad.head_runs(n, p, r), head, x, g);
+        }
+        let xg = quad.of(x);
+        let mut own = [0f64; 4];
+        let mut walk = quad.tail_prefixes(n, p);
+        while let Some((t0, pos)) = walk.next_prefix() {
+            lead.set(walk.prefix(), x, None);
+            let base = lead.base;
+            let weights = xg.map(|xr| base * xr);
+            let segs = quad.segments(coeffs, pos, n - t0);
+            let s = dots4_axpy::<M, T>(segs, &x[t0..], &mut g[t0..], weights);
+            let total = dot4(xg, s);
+            e = M::madd(base, total, e);
+            for r in 0..4 {
+                own[r] = M::madd(base, s[r], own[r]);
+            }
+            for (m, &i) in walk.prefix().iter().enumerate() {
+                g[i] = M::madd(lead.q[m], total, g[i]);
+            }
+        }
+        for r in 0..4 {
+            g[first + r] += own[r];
+        }
+        first += 4;
+    }
+    if first < hi {
+        let (runs, at) = rest_runs(n, p, first, hi, start);
+        e += gradient_blocks::<M, T>(n, runs, &coeffs[at..], x, g);
+    }
+    e
+}
+
+/// Hessian-vector product at x along v (added to `w`) of a degree-p (>= 4) item, as in
+/// [`energy_quads`].
+#[inline(always)]
+pub(crate) fn hvp_quads<M: Madd, T: Coef>(
+    n: usize,
+    p: usize,
+    (lo, hi, start): (usize, usize, usize),
+    coeffs: &[T],
+    (x, v): (&[f64], &[f64]),
+    w: &mut [f64],
+) {
+    let mut lead = TailProducts::new();
+    let mut first = lo;
+    while first + 4 <= hi {
+        let quad = Quad::new(n, p, first, start);
+        for r in 0..4 {
+            let head = &coeffs[quad.head[r]..];
+            hvp_blocks::<M, T>(n, quad.head_runs(n, p, r), head, (x, v), w);
+        }
+        let (xg, vg) = (quad.of(x), quad.of(v));
+        let mut own = [0f64; 4];
+        let mut walk = quad.tail_prefixes(n, p);
+        while let Some((t0, pos)) = walk.next_prefix() {
+            lead.set(walk.prefix(), x, Some(v));
+            let (base, dbase) = (lead.base, lead.dbase);
+            let d: [f64; 4] = std::array::from_fn(|r| M::madd(dbase, xg[r], base * vg[r]));
+            let segs = quad.segments(coeffs, pos, n - t0);
+            let (sx, sv) = dots8_axpy::<M, T>(segs, &x[t0..], &v[t0..], &mut w[t0..], d);
+            for r in 0..4 {
+                own[r] += M::madd(dbase, sx[r], base * sv[r]);
+            }
+            let mixed = dot4(xg, sv) + dot4(vg, sx);
+            let total = dot4(xg, sx);
+            for (m, &i) in walk.prefix().iter().enumerate() {
+                w[i] += M::madd(lead.dq[m], total, lead.q[m] * mixed);
+            }
+        }
+        for r in 0..4 {
+            w[first + r] += own[r];
+        }
+        first += 4;
+    }
+    if first < hi {
+        let (runs, at) = rest_runs(n, p, first, hi, start);
+        hvp_blocks::<M, T>(n, runs, &coeffs[at..], (x, v), w);
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use crate::kernels::tests::{naive, pool};
+    use crate::sampling::Disorder;
+    use crate::simd::{has_avx2_fma, Fused, Plain};
+    use crate::storage::Packed;
+
+    /// Both instruction-set paths of the three passes against the naive sums, for degrees 4-7
+    /// and items that start on and off a multiple of four, hold zero, one or two quads, and
+    /// leave 0-3 first indices for the blocks.
+    #[test]
+    fn both_paths_match_naive_sums() {
+        for (n, degree) in [(4usize, 4usize), (9, 4), (13, 4), (11, 5), (10, 6), (9, 7)] {
+            let poly =
+                Packed::<f64>::sample(&pool(1), n, &[(degree, 1.0)], &Disorder::new(7)).unwrap();
+            let coeffs = &poly.blocks()[0].coeffs;
+            let x: Vec<f64> = (0..n).map(|i| 0.4 + (i as f64 * 0.9).sin()).collect();
+            let v: Vec<f64> = (0..n).map(|i| (i as f64 * 0.3).cos()).collect();
+            let (e0, g0, h0) = naive(&poly, &x);
+            let hv0: Vec<f64> = (0..n)
+                .map(|r| (0..n).map(|c| h0[r * n + c] * v[c]).sum())
+                .collect();
+            let scale = 1.0 + e0.abs() + h0.iter().map(|t| t.abs()).sum::<f64>();
+            let close = |a: f64, b: f64| (a - b).abs() <= 1e-12 * scale;
+            for cuts in [vec![0, n], vec![0, 1, n], vec![0, 3, n.min(11), n]] {
+                let run = |fused: bool| {
+                    let (mut e, mut e2, mut g, mut w) = (0.0, 0.0, vec![0.0; n], vec![0.0; n]);
+                    for span in cuts.windows(2).filter(|s| s[0] < s[1]) {
+                        let start = first_index_offset(n, degree, span[0]);
+                        let c = &coeffs[start..first_index_offset(n, degree, span[1])];
+                        let item = (span[0], span[1], start);
+                        if fused {
+                            e += energy_quads::<Fused, f64>(n, degree, item, c, &x);
+                            e2 += gradient_quads::<Fused, f64>(n, degree, item, c, &x, &mut g);
+                            hvp_quads::<Fused, f64>(n, degree, item, c, (&x, &v), &mut w);
+                        } else {
+                            e += energy_quads::<Plain, f64>(n, degree, item, c, &x);
+                            e2 += gradient_quads::<Plain, f64>(n, degree, item, c, &x, &mut g);
+                            hvp_quads::<Plain, f64>(n, degree, item, c, (&x, &v), &mut w);
+                        }
+                    }
+                    (e, e2, g, w)
+                };
+                let mut paths = vec![run(false)];
+                if has_avx2_fma() {
+                    paths.push(run(true));
+                }
+                for (e, e2, g, w) in paths {
+                    let case = format!("n {n} degree {degree} cuts {cuts:?}");
+                    assert!(close(e, e0) && close(e2, e0), "{case}: {e} {e2} vs {e0}");
+                    for i in 0..n {
+                        assert!(close(g[i], g0[i]), "{case}: gradient {i}");
+                        assert!(close(w[i], hv0[i]), "{case}: hvp {i}");
+                    }
+                }
+            }
+        }
+    }
+
+    /// The tail products formed from the outer prefix agree with the direct leave-one-out
+    /// products of [`Leading`] along a walk (degree 6: prefixes of length 4).
+    #[test]
+    fn tail_products_match_direct_products() {
+        let n = 7;
+        let x: Vec<f64> = (0..n).map(|i| 0.5 + 0.25 * i as f64).collect();
+        let v: Vec<f64> = (0..n).map(|i| 1.0 - 0.3 * i as f64).collect();
+        let (mut tail, mut direct) = (TailProducts::new(), Leading::new());
+        let mut walk = Prefixes::new(n, 5, 2, n);
+        let mut seen = 0;
+        while walk.next_prefix().is_some() {
+            let pre = walk.prefix();
+            tail.set(pre, &x, Some(&v));
+            direct.set(pre, &x, Some(&v), false);
+            let close = |a: f64, b: f64| (a - b).abs() <= 1e-13 * (1.0 + b.abs());
+            assert!(close(tail.base, direct.base) && close(tail.dbase, direct.dbase));
+            for m in 0..pre.len() {
+                assert!(close(tail.q[m], direct.q[m]), "{pre:?} q{m}");
+                assert!(close(tail.dq[m], direct.dq[m]), "{pre:?} dq{m}");
+            }
+            seen += 1;
+        }
+        assert_eq!(seen, num_multisets(n - 2, 4).unwrap());
+    }
+}
