@@ -22,10 +22,10 @@ use crate::combinatorics::first_index_offset;
 use crate::error::CoreError;
 use crate::exec::Exec;
 use crate::partition::{plan, reduce, reduce_sums, Plan, WorkItem, CHUNK, QUANTUM};
-use crate::quads::{energy_quads, gradient_quads, hvp_quads};
+use crate::quads::{energy_quads, gradient_quads, hessian4_quads, hvp_quads};
 use crate::simd::{
     axpy, dot, dot2_axpy, dot_axpy, dot_axpy2, dots4, dots4_axpy, dots8_axpy, leave_one_out,
-    leave_two_out, rows4, rows4_shared2, simd_dispatch, Madd, Prefixes, MAX_PREFIX,
+    leave_two_out, rows4, simd_dispatch, Madd, Prefixes, MAX_PREFIX,
 };
 use crate::stagger::Runs;
 use crate::storage::{Coef, Packed};
@@ -283,19 +283,6 @@ fn gradient3_item_body<M: Madd, T: Coef>(
     e
 }
 
-/// Start, within the item's coefficients, of the degree-4 segment of prefix (i, k, j),
-/// i <= k <= j: head + #{(k', j', t): i <= k' < k} + #{(j', t): k <= j' < j}, where `head` is
-/// the offset of first index i in the item and the multisets of size 3 (2) over the m = n - s
-/// values >= s number m(m+1)(m+2)/6 (m(m+1)/2). Plain integer arithmetic: this runs per group
-/// of segments, and the exact binomials of `combinatorics` (128-bit division) cost a tenth of
-/// the degree-4 Hessian when called here.
-#[inline(always)]
-fn segment4(n: usize, head: usize, i: usize, k: usize, j: usize) -> usize {
-    let triples = |m: usize| m * (m + 1) * (m + 2) / 6;
-    let pairs = |m: usize| m * (m + 1) / 2;
-    head + (triples(n - i) - triples(n - k)) + (pairs(n - k) - pairs(n - j))
-}
-
 simd_dispatch!(fn gradient_item => gradient_item_body(
     n: usize, a: &[T], it: &WorkItem, x: &[f64], g: &mut [f64]) -> f64);
 
@@ -409,7 +396,7 @@ fn hessian_item_body<M: Madd, T: Coef>(
     }
     let coeffs = &a[it.start..it.start + it.len];
     if it.degree == 4 {
-        return hessian4_item_body::<M, T>(n, coeffs, it, x, acc);
+        return hessian4_quads::<M, T>(n, (it.lo, it.hi, it.start), coeffs, x, acc);
     }
     if it.degree >= 5 {
         return hessian_blocks::<M, T>(n, Runs::new(n, it.degree, it.lo, it.hi), coeffs, x, acc);
@@ -419,100 +406,6 @@ fn hessian_item_body<M: Madd, T: Coef>(
     while let Some((t0, pos)) = walk.next_prefix() {
         let seg = &coeffs[pos..pos + n - t0];
         hessian_prefix::<M, T>(n, seg, (t0, walk.prefix()), x, acc, &mut pp);
-    }
-}
-
-/// The degree-4 Hessian pass of one item, second indices four at a time: for a first index
-/// i, second indices k = b + m (m < 4, b > i) and a third index j >= b + 4, the four segments
-/// of (i, k, j) update rows k (weight x_i x_j each) and share rows i and j (weights x_j x_k
-/// and x_i x_k), which [`rows4_shared2`] reads and writes once for the four. Prefixes with
-/// k = i, with j < b + 4, and leftover second indices go the plain way.
-#[inline(always)]
-fn hessian4_item_body<M: Madd, T: Coef>(
-    n: usize,
-    coeffs: &[T],
-    it: &WorkItem,
-    x: &[f64],
-    acc: &mut [f64],
-) {
-    let mut pp = PrefixProducts::new();
-    let plain = Plain4 { n, coeffs, x };
-    for i in it.lo..it.hi {
-        let head = first_index_offset(n, 4, i) - it.start;
-        plain.run::<M>((i, head), i, i..n, acc, &mut pp);
-        let xi = x[i];
-        let mut b = i + 1;
-        while b + 4 <= n {
-            for k in b..b + 4 {
-                plain.run::<M>((i, head), k, k..b + 4, acc, &mut pp);
-            }
-            let xk = [x[b], x[b + 1], x[b + 2], x[b + 3]];
-            let mut pos = [0usize; 4];
-            for (m, p) in pos.iter_mut().enumerate() {
-                *p = segment4(n, head, i, b + m, b + 4);
-            }
-            for j in b + 4..n {
-                let len = n - j;
-                let xj = x[j];
-                let (head, rest) = acc.split_at_mut(b * n);
-                let (block, tail) = rest.split_at_mut(4 * n);
-                let (r0, more) = block.split_at_mut(n);
-                let (r1, more) = more.split_at_mut(n);
-                let (r2, r3) = more.split_at_mut(n);
-                let row_j = (j - b - 4) * n;
-                let s = rows4_shared2::<M, T>(
-                    four_segments(coeffs, &pos, len),
-                    &x[j..],
-                    [&mut r0[j..], &mut r1[j..], &mut r2[j..], &mut r3[j..]],
-                    xi * xj,
-                    [
-                        (&mut head[i * n + j..i * n + n], xj),
-                        (&mut tail[row_j + j..row_j + n], xi),
-                    ],
-                    xk,
-                );
-                let mut to_ij = [0f64; 4];
-                for m in 0..4 {
-                    acc[i * n + b + m] += xj * s[m];
-                    acc[(b + m) * n + j] += xi * s[m];
-                    to_ij[m] = xk[m] * s[m];
-                    pos[m] += len;
-                }
-                acc[i * n + j] += (to_ij[0] + to_ij[1]) + (to_ij[2] + to_ij[3]);
-            }
-            b += 4;
-        }
-        for k in b..n {
-            plain.run::<M>((i, head), k, k..n, acc, &mut pp);
-        }
-    }
-}
-
-/// The plain Hessian walk over the degree-4 prefixes (i, k, j), j in a range (a struct rather
-/// than a closure: closures may be compiled without the kernels' target features).
-struct Plain4<'a, T> {
-    n: usize,
-    coeffs: &'a [T],
-    x: &'a [f64],
-}
-
-impl<T: Coef> Plain4<'_, T> {
-    #[inline(always)]
-    fn run<M: Madd>(
-        &self,
-        (i, head): (usize, usize),
-        k: usize,
-        js: std::ops::Range<usize>,
-        acc: &mut [f64],
-        pp: &mut PrefixProducts,
-    ) {
-        let n = self.n;
-        let mut p = segment4(n, head, i, k, js.start);
-        for j in js {
-            let seg = &self.coeffs[p..p + n - j];
-            hessian_prefix::<M, T>(n, seg, (j, &[i, k, j]), self.x, acc, pp);
-            p += n - j;
-        }
     }
 }
 
@@ -930,9 +823,8 @@ pub(crate) mod tests {
         }
     }
 
-    /// The degree-3 passes and the degree >= 4 energies, gradients and HVPs take first indices
-    /// by four, the degree-4 Hessian second indices, and degree-2 energies blocks of adjacent
-    /// prefixes;
+    /// The degree-3 passes, the degree >= 4 energies, gradients and HVPs and the degree-4
+    /// Hessian take first indices by four, and degree-2 energies blocks of adjacent prefixes;
     /// sizes around multiples of 4, items that hold several chunks (n = 150) and mixtures with
     /// other degrees exercise the grouped part, the head prefixes and the leftovers against
     /// the naive sum.
@@ -944,7 +836,7 @@ pub(crate) mod tests {
             (8, vec![(1, 0.5), (3, 1.0)]),
             (13, vec![(2, 0.7), (3, 1.0), (4, 0.3)]),
             (150, vec![(3, 1.0)]),
-            // degree 4: second indices by four (Hessian), adjacent blocks (the others)
+            // degree 4: quads, with head runs and leftover first indices in adjacent blocks
             (6, vec![(4, 1.0)]),
             (9, vec![(2, 0.5), (4, 1.0)]),
             (40, vec![(4, 1.0)]),

@@ -25,9 +25,11 @@
 //! and no per-block set-up, which at p = 4 and n ~ 100 (segments about 30 long) is about a
 //! quarter of the time of a pass.
 
-use crate::adjacent::{energy_blocks, gradient_blocks, hvp_blocks, Leading};
+use crate::adjacent::{energy_blocks, gradient_blocks, hessian_blocks, hvp_blocks, Leading};
 use crate::combinatorics::{first_index_offset, num_multisets};
-use crate::simd::{dots4, dots4_axpy, dots8_axpy, Madd, Prefixes, MAX_PREFIX};
+use crate::simd::{
+    dots4, dots4_axpy, dots8_axpy, rows4, rows4_shared2, Madd, Prefixes, MAX_PREFIX,
+};
 use crate::stagger::Runs;
 use crate::storage::Coef;
 
@@ -267,6 +269,67 @@ pub(crate) fn hvp_quads<M: Madd, T: Coef>(
     }
 }
 
+/// Hessian accumulator (n x n, upper part; Hess = A + A^T, as in [`crate::kernels`]) of a
+/// degree-4 item at x. For a tail prefix (j, k) of the quad, k = t0 >= j >= g + 4, the own
+/// rows g + r get W a_{r,t} (W = x_j x_k), the shared rows j and k get Q_j u_t and Q_k u_t with
+/// u_t = sum_r x_{g+r} a_{r,t} (one row with the weights summed when j = k), and
+/// A[g+r, j] += Q_j s_r, A[g+r, k] += Q_k s_r, A[j, k] += T. The own rows stay the same for the
+/// whole quad, so they stay in L1.
+#[inline(always)]
+pub(crate) fn hessian4_quads<M: Madd, T: Coef>(
+    n: usize,
+    (lo, hi, start): (usize, usize, usize),
+    coeffs: &[T],
+    x: &[f64],
+    acc: &mut [f64],
+) {
+    let p = 4;
+    let mut first = lo;
+    while first + 4 <= hi {
+        let quad = Quad::new(n, p, first, start);
+        for r in 0..4 {
+            let head = &coeffs[quad.head[r]..];
+            hessian_blocks::<M, T>(n, quad.head_runs(n, p, r), head, x, acc);
+        }
+        let xg = quad.of(x);
+        let mut walk = quad.tail_prefixes(n, p);
+        while let Some((k, pos)) = walk.next_prefix() {
+            let j = walk.prefix()[0];
+            let (xj, xk) = (x[j], x[k]);
+            let segs = quad.segments(coeffs, pos, n - k);
+            let (own, rest) = acc[first * n..].split_at_mut(4 * n);
+            let (r0, own) = own.split_at_mut(n);
+            let (r1, own) = own.split_at_mut(n);
+            let (r2, r3) = own.split_at_mut(n);
+            let rows = [&mut r0[k..], &mut r1[k..], &mut r2[k..], &mut r3[k..]];
+            let row_j = (j - first - 4) * n;
+            let s = if j == k {
+                let weight = xj + xk;
+                let shared = &mut rest[row_j + k..row_j + n];
+                rows4::<M, T>(segs, &x[k..], rows, xj * xk, shared, xg.map(|v| weight * v))
+            } else {
+                let (before_k, row_k) = rest.split_at_mut(row_j + (k - j) * n);
+                let shared = [
+                    (&mut before_k[row_j + k..row_j + n], xk),
+                    (&mut row_k[k..n], xj),
+                ];
+                rows4_shared2::<M, T>(segs, &x[k..], rows, xj * xk, shared, xg)
+            };
+            for (r, &sr) in s.iter().enumerate() {
+                let row = (first + r) * n;
+                acc[row + j] = M::madd(xk, sr, acc[row + j]);
+                acc[row + k] = M::madd(xj, sr, acc[row + k]);
+            }
+            acc[j * n + k] += dot4(xg, s);
+        }
+        first += 4;
+    }
+    if first < hi {
+        let (runs, at) = rest_runs(n, p, first, hi, start);
+        hessian_blocks::<M, T>(n, runs, &coeffs[at..], x, acc);
+    }
+}
+
 #[cfg(test)]
 mod tests {
     use super::*;
@@ -275,8 +338,8 @@ mod tests {
     use crate::simd::{has_avx2_fma, Fused, Plain};
     use crate::storage::Packed;
 
-    /// Both instruction-set paths of the three passes against the naive sums, for degrees 4-7
-    /// and items that start on and off a multiple of four, hold zero, one or two quads, and
+    /// Both instruction-set paths of the passes against the naive sums, for degrees 4-7 (the
+    /// Hessian at degree 4) and items that start on and off a multiple of four, hold zero, one or two quads, and
     /// leave 0-3 first indices for the blocks.
     #[test]
     fn both_paths_match_naive_sums() {
@@ -295,6 +358,7 @@ mod tests {
             for cuts in [vec![0, n], vec![0, 1, n], vec![0, 3, n.min(11), n]] {
                 let run = |fused: bool| {
                     let (mut e, mut e2, mut g, mut w) = (0.0, 0.0, vec![0.0; n], vec![0.0; n]);
+                    let mut a = vec![0.0; n * n];
                     for span in cuts.windows(2).filter(|s| s[0] < s[1]) {
                         let start = first_index_offset(n, degree, span[0]);
                         let c = &coeffs[start..first_index_offset(n, degree, span[1])];
@@ -303,20 +367,34 @@ mod tests {
                             e += energy_quads::<Fused, f64>(n, degree, item, c, &x);
                             e2 += gradient_quads::<Fused, f64>(n, degree, item, c, &x, &mut g);
                             hvp_quads::<Fused, f64>(n, degree, item, c, (&x, &v), &mut w);
+                            if degree == 4 {
+                                hessian4_quads::<Fused, f64>(n, item, c, &x, &mut a);
+                            }
                         } else {
                             e += energy_quads::<Plain, f64>(n, degree, item, c, &x);
                             e2 += gradient_quads::<Plain, f64>(n, degree, item, c, &x, &mut g);
                             hvp_quads::<Plain, f64>(n, degree, item, c, (&x, &v), &mut w);
+                            if degree == 4 {
+                                hessian4_quads::<Plain, f64>(n, item, c, &x, &mut a);
+                            }
                         }
                     }
-                    (e, e2, g, w)
+                    // Hess = A + A^T
+                    let hess: Vec<f64> =
+                        (0..n * n).map(|i| a[i] + a[(i % n) * n + i / n]).collect();
+                    (e, e2, g, w, hess)
                 };
                 let mut paths = vec![run(false)];
                 if has_avx2_fma() {
                     paths.push(run(true));
                 }
-                for (e, e2, g, w) in paths {
+                for (e, e2, g, w, hess) in paths {
                     let case = format!("n {n} degree {degree} cuts {cuts:?}");
+                    if degree == 4 {
+                        for (i, (a, b)) in hess.iter().zip(&h0).enumerate() {
+                            assert!(close(*a, *b), "{case}: Hessian entry {i}: {a} vs {b}");
+                        }
+                    }
                     assert!(close(e, e0) && close(e2, e0), "{case}: {e} {e2} vs {e0}");
                     for i in 0..n {
                         assert!(close(g[i], g0[i]), "{case}: gradient {i}");
