@@ -17,6 +17,8 @@
 //! positional product rule counts them (d/dx x^2 = 2x). These satisfy the Euler identities
 //! x . grad H_p = p H_p and Hess H_p x = (p - 1) grad H_p, which the tests check.
 
+use rayon::prelude::*;
+
 use crate::adjacent::{energy_blocks, hessian_blocks};
 use crate::combinatorics::first_index_offset;
 use crate::error::CoreError;
@@ -506,26 +508,41 @@ pub fn hessian<T: Coef>(exec: &Exec, poly: &Packed<T>, x: &[f64]) -> Result<Vec<
     let (_, mut upper) = reduce_sums(exec, &items, 0, nn, |it, _, acc| {
         hessian_item::<T>(n, &blocks[it.block].coeffs, it, x, acc);
     })?;
-    symmetrize(&mut upper, n);
+    exec.install(|| symmetrize(&mut upper, n));
     Ok(upper)
 }
 
 /// Replaces A by A + A^T in place (A is n x n row-major), in square tiles so that both the
-/// rows and the columns being read stay in cache.
+/// rows and the columns being read stay in cache. Bands of TILE rows go to the threads of the
+/// current pool: band b reads and writes the entries (i, j) and (j, i) with i in the band and
+/// j >= i, and no two bands share one, so each entry gets the same sum whatever the split.
 fn symmetrize(a: &mut [f64], n: usize) {
     const TILE: usize = 32;
-    for bi in (0..n).step_by(TILE) {
+    assert_eq!(a.len(), n * n);
+    /// The matrix shared by the bands (each writes only its own entries, see above).
+    struct Shared(*mut f64);
+    // SAFETY: the bands touch disjoint entries, so sharing the pointer across threads is sound.
+    unsafe impl Sync for Shared {}
+    let shared = Shared(a.as_mut_ptr());
+    (0..n.div_ceil(TILE)).into_par_iter().for_each(|band| {
+        let p = &shared;
+        let bi = band * TILE;
         for bj in (bi..n).step_by(TILE) {
             for i in bi..(bi + TILE).min(n) {
                 let j0 = if bi == bj { i } else { bj };
                 for j in j0..(bj + TILE).min(n) {
-                    let s = a[i * n + j] + a[j * n + i];
-                    a[i * n + j] = s;
-                    a[j * n + i] = s;
+                    // SAFETY: i, j < n, inside the n x n matrix; (i, j) and (j, i) with
+                    // i in this band and j >= i belong to this band only.
+                    unsafe {
+                        let (ij, ji) = (p.0.add(i * n + j), p.0.add(j * n + i));
+                        let s = *ij + *ji;
+                        *ij = s;
+                        *ji = s;
+                    }
                 }
             }
         }
-    }
+    });
 }
 
 // ---------------------------------------------------------------------------------------
@@ -792,6 +809,27 @@ pub(crate) mod tests {
             assert_eq!(r.3, runs[0].3);
         }
         assert!(num_multisets(n, 3).unwrap() > 50_000);
+    }
+
+    /// The banded, threaded symmetrize gives A + A^T exactly, for sizes on and off the tile.
+    #[test]
+    fn symmetrize_gives_a_plus_its_transpose_on_any_pool() {
+        for n in [1usize, 31, 32, 77] {
+            let a: Vec<f64> = (0..n * n).map(|i| (i as f64 * 0.73).sin()).collect();
+            for k in [1, 3] {
+                let mut b = a.clone();
+                pool(k).install(|| symmetrize(&mut b, n));
+                for i in 0..n {
+                    for j in 0..n {
+                        assert_eq!(
+                            b[i * n + j],
+                            a[i * n + j] + a[j * n + i],
+                            "n {n} ({i}, {j})"
+                        );
+                    }
+                }
+            }
+        }
     }
 
     #[test]

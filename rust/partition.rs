@@ -11,6 +11,8 @@
 
 use std::ops::Range;
 
+use rayon::prelude::*;
+
 use crate::combinatorics::{count_with_first, first_index_offset};
 use crate::error::CoreError;
 use crate::exec::Exec;
@@ -235,12 +237,8 @@ where
                 *left = right;
                 return;
             }
-            for (x, y) in left.a.iter_mut().zip(&right.a) {
-                *x += y;
-            }
-            for (x, y) in left.b.iter_mut().zip(&right.b) {
-                *x += y;
-            }
+            add_into(&mut left.a, &right.a);
+            add_into(&mut left.b, &right.b);
             scratch::give(right.a);
             scratch::give(right.b);
         },
@@ -251,10 +249,41 @@ where
     }
 }
 
+/// Accumulators at least this long are summed by several threads (the merges run on the
+/// pool, and the last one is otherwise a serial pass over n^2 numbers for a Hessian).
+pub const PARALLEL_ADD_MIN: usize = 1 << 16;
+
+/// left += right, entry by entry (so the result does not depend on how it is split).
+fn add_into(left: &mut [f64], right: &[f64]) {
+    const PART: usize = 1 << 13;
+    if left.len() < PARALLEL_ADD_MIN {
+        left.iter_mut().zip(right).for_each(|(x, y)| *x += y);
+        return;
+    }
+    left.par_chunks_mut(PART)
+        .zip(right.par_chunks(PART))
+        .for_each(|(l, r)| l.iter_mut().zip(r).for_each(|(x, y)| *x += y));
+}
+
 #[cfg(test)]
 mod tests {
     use super::*;
     use crate::combinatorics::num_multisets;
+
+    #[test]
+    fn parallel_add_equals_serial_add_on_any_pool() {
+        let len = PARALLEL_ADD_MIN + 12_345;
+        let right: Vec<f64> = (0..len).map(|i| (i as f64 * 0.37).sin()).collect();
+        let base: Vec<f64> = (0..len).map(|i| (i as f64 * 0.11).cos()).collect();
+        let want: Vec<f64> = base.iter().zip(&right).map(|(a, b)| a + b).collect();
+        for k in [1, 2, 3] {
+            let mut left = base.clone();
+            Exec::with_threads(k)
+                .unwrap()
+                .install(|| add_into(&mut left, &right));
+            assert_eq!(left, want, "{k} threads");
+        }
+    }
 
     #[test]
     fn plan_covers_each_block_exactly_once() {
