@@ -5,7 +5,12 @@ group are measured in interleaved rounds (each round takes a short block of cons
 samples of every function, in a rotated order), so that slow drifts in the load of a shared
 machine hit all of them alike and their ratios stay meaningful. Before each block the process
 sleeps a little, so that worker threads left spinning by the previous function (OpenBLAS
-busy-waits after a call) have parked and do not steal a core from the next one.
+busy-waits after a call) have parked and do not steal a core from the next one. Then it calls
+the block's function, untimed, for a short while: on the virtual machines we measure on, the
+first 30-45 ms of work after such a pause run 1.5-2 times slower (the samples of a block
+without this show it: the first several are slow, then they drop to a steady level). A call
+of a few milliseconds would otherwise spend half its block in that ramp, while a 70 ms peer
+spends one sample in it; both now are timed at their steady pace.
 """
 
 from __future__ import annotations
@@ -33,7 +38,8 @@ class Plan:
     takes longer than ``slow_s`` seconds) and, when it is cheap, more, up to ``max_repeats``,
     within about ``budget_s`` seconds of sampling. A sample is ``number`` back-to-back calls,
     with ``number`` chosen so that a sample lasts at least ``min_sample_s``. Samples are spread
-    over ``rounds`` interleaved rounds, with a pause of ``settle_s`` before each block.
+    over ``rounds`` interleaved rounds, with a pause of ``settle_s`` before each block and then
+    at least ``warm_s`` seconds (and at least one call) of untimed calls of the block's function.
     """
 
     min_repeats: int = 7
@@ -43,6 +49,7 @@ class Plan:
     budget_s: float = 1.5
     rounds: int = 3
     settle_s: float = 0.1
+    warm_s: float = 0.08
     min_sample_s: float = 1e-3
 
 
@@ -53,6 +60,7 @@ QUICK_PLAN = Plan(
     budget_s=0.15,
     rounds=1,
     settle_s=0.005,
+    warm_s=0.005,
     min_sample_s=2e-4,
 )
 
@@ -115,6 +123,14 @@ def _repeats(sample_s: float, plan: Plan) -> int:
     return max(floor, min(plan.max_repeats, int(plan.budget_s / max(sample_s, 1e-9))))
 
 
+def _warm_block(fn: Callable[[], object], seconds: float) -> None:
+    """Call fn, untimed, until ``seconds`` have passed (at least once)."""
+    end = time.perf_counter() + seconds
+    fn()
+    while time.perf_counter() < end:
+        fn()
+
+
 def _sample_block(fn: Callable[[], object], number: int, count: int) -> list[float]:
     """``count`` samples of fn with the garbage collector off."""
     enabled = gc.isenabled()
@@ -153,6 +169,7 @@ def measure(
             if count <= 0:
                 continue
             time.sleep(plan.settle_s)
+            _warm_block(fns[name], plan.warm_s)
             samples[name] += _sample_block(fns[name], number[name], count)
     return {name: Stats(samples[name], number[name]) for name in names}
 
