@@ -19,12 +19,12 @@
 
 use rayon::prelude::*;
 
-use crate::adjacent::{energy_blocks, hessian_blocks};
+use crate::adjacent::energy_blocks;
 use crate::combinatorics::first_index_offset;
 use crate::error::CoreError;
 use crate::exec::Exec;
 use crate::partition::{plan, reduce, reduce_sums, Plan, WorkItem, CHUNK, QUANTUM};
-use crate::quads::{energy_quads, gradient_quads, hessian4_quads, hvp_quads};
+use crate::quads::{energy_quads, gradient_quads, hessian4_quads, hessian_quads, hvp_quads};
 use crate::simd::{
     axpy, dot, dot2_axpy, dot_axpy, dot_axpy2, dots4, dots4_axpy, dots8_axpy, leave_one_out,
     leave_two_out, rows4, simd_dispatch, Madd, Prefixes, MAX_PREFIX,
@@ -401,7 +401,7 @@ fn hessian_item_body<M: Madd, T: Coef>(
         return hessian4_quads::<M, T>(n, (it.lo, it.hi, it.start), coeffs, x, acc);
     }
     if it.degree >= 5 {
-        return hessian_blocks::<M, T>(n, Runs::new(n, it.degree, it.lo, it.hi), coeffs, x, acc);
+        return hessian_quads::<M, T>(n, it.degree, (it.lo, it.hi, it.start), coeffs, x, acc);
     }
     let mut walk = Prefixes::new(n, it.degree, it.lo, it.hi);
     let mut pp = PrefixProducts::new();
@@ -861,8 +861,8 @@ pub(crate) mod tests {
         }
     }
 
-    /// The degree-3 passes, the degree >= 4 energies, gradients and HVPs and the degree-4
-    /// Hessian take first indices by four, and degree-2 energies blocks of adjacent prefixes;
+    /// The degree-3 passes and every degree >= 4 pass take first indices by four, and degree-2
+    /// energies blocks of adjacent prefixes;
     /// sizes around multiples of 4, items that hold several chunks (n = 150) and mixtures with
     /// other degrees exercise the grouped part, the head prefixes and the leftovers against
     /// the naive sum.

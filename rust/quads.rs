@@ -18,7 +18,9 @@
 //! ```
 //!
 //! These are the formulas of [`crate::adjacent`] with the quad in the place of a block's rows
-//! and P in the place of the leading indices ([`Leading`] forms W, Q, dW, dQ). The runs of
+//! and P in the place of the leading indices ([`Leading`] forms W, Q, dW, dQ). The Hessians
+//! ([`hessian4_quads`] for degree 4, [`hessian_quads`] from degree 5) walk the same way; their
+//! formulas are on those functions. The runs of
 //! first index g + r with second index < g + 4, and the first indices left over at the end of
 //! an item (items start at multiples of [`crate::partition::QUANTUM`]), go through the blocks
 //! of [`crate::adjacent`]. Compared with those blocks, a segment here costs no masked steps
@@ -330,6 +332,160 @@ pub(crate) fn hessian4_quads<M: Madd, T: Coef>(
     }
 }
 
+/// Hessian accumulator of a degree-p (>= 5) item at x. A tail prefix P = (P', t0) has l =
+/// p - 2 >= 3 indices; with W' = prod x_{P'}, Q'_m and R'_{m m'} its leave-one-out and
+/// leave-two-out products over P', u_t = sum_r x_{g+r} a_{r,t} and s_r, T as in the module doc:
+///
+/// ```text
+/// own rows g + r        += W' x_t0 a_{r,t}        A[g+r, t0]     += W' s_r
+/// row t0                += W' u_t                 A[P'_m, t0]    += Q'_m T
+/// rows P'_m             += Q'_m x_t0 u_t          A[g+r, P'_m]   += Q'_m x_t0 s_r
+///                                                 A[P'_m, P'_m'] += R'_{m m'} x_t0 T
+/// ```
+///
+/// The terms of the last column depend on t0 only through x_t0, so they are summed over the
+/// run of t0 that shares P' (U_t = sum x_t0 u_t in a scratch row, S'_r, T') and added to the
+/// rows and entries of P' once per run. Per segment [`rows4_shared2`] then updates the four
+/// own rows, row t0 and U in one pass.
+#[inline(always)]
+pub(crate) fn hessian_quads<M: Madd, T: Coef>(
+    n: usize,
+    p: usize,
+    (lo, hi, start): (usize, usize, usize),
+    coeffs: &[T],
+    x: &[f64],
+    acc: &mut [f64],
+) {
+    debug_assert!(p >= 5);
+    let l = p - 2;
+    let mut run = OuterRun::new(n);
+    let mut first = lo;
+    while first + 4 <= hi {
+        let quad = Quad::new(n, p, first, start);
+        for r in 0..4 {
+            let head = &coeffs[quad.head[r]..];
+            hessian_blocks::<M, T>(n, quad.head_runs(n, p, r), head, x, acc);
+        }
+        let xg = quad.of(x);
+        let mut walk = quad.tail_prefixes(n, p);
+        while let Some((t0, pos)) = walk.next_prefix() {
+            let outer = &walk.prefix()[..l - 1];
+            if t0 == outer[l - 2] {
+                run.flush::<M>(first, acc);
+                run.start(outer, t0, x);
+            }
+            let (xt, w_outer) = (x[t0], run.products.base);
+            let segs = quad.segments(coeffs, pos, n - t0);
+            let (own, rest) = acc[first * n..].split_at_mut(4 * n);
+            let (r0, own) = own.split_at_mut(n);
+            let (r1, own) = own.split_at_mut(n);
+            let (r2, r3) = own.split_at_mut(n);
+            let rows = [&mut r0[t0..], &mut r1[t0..], &mut r2[t0..], &mut r3[t0..]];
+            let row_t0 = (t0 - first - 4) * n;
+            let shared = [
+                (&mut rest[row_t0 + t0..row_t0 + n], w_outer),
+                (&mut run.deferred[t0..], xt),
+            ];
+            let s = rows4_shared2::<M, T>(segs, &x[t0..], rows, w_outer * xt, shared, xg);
+            for (r, &sr) in s.iter().enumerate() {
+                let at = (first + r) * n + t0;
+                acc[at] = M::madd(w_outer, sr, acc[at]);
+                run.own[r] = M::madd(xt, sr, run.own[r]);
+            }
+            let total = dot4(xg, s);
+            for (m, &i) in outer.iter().enumerate() {
+                let at = i * n + t0;
+                acc[at] = M::madd(run.products.q[m], total, acc[at]);
+            }
+            run.total = M::madd(xt, total, run.total);
+        }
+        run.flush::<M>(first, acc);
+        first += 4;
+    }
+    if first < hi {
+        let (runs, at) = rest_runs(n, p, first, hi, start);
+        hessian_blocks::<M, T>(n, runs, &coeffs[at..], x, acc);
+    }
+}
+
+/// The sums of [`hessian_quads`] over one run of t0 with the same outer prefix P'.
+struct OuterRun {
+    /// P' (its first `len` entries), and whether a run is open.
+    lead: [usize; MAX_PREFIX],
+    len: usize,
+    open: bool,
+    /// W', Q'_m, R'_{m m'} of P'.
+    products: Leading,
+    /// U_t = sum_t0 x_t0 u_t, nonzero from column `from` (the run's first t0) on.
+    deferred: Vec<f64>,
+    from: usize,
+    /// S'_r = sum_t0 x_t0 s_r and T' = sum_t0 x_t0 T.
+    own: [f64; 4],
+    total: f64,
+}
+
+impl OuterRun {
+    fn new(n: usize) -> Self {
+        OuterRun {
+            lead: [0; MAX_PREFIX],
+            len: 0,
+            open: false,
+            products: Leading::new(),
+            deferred: vec![0.0; n],
+            from: n,
+            own: [0.0; 4],
+            total: 0.0,
+        }
+    }
+
+    #[inline(always)]
+    fn start(&mut self, outer: &[usize], t0: usize, x: &[f64]) {
+        self.len = outer.len();
+        self.lead[..self.len].copy_from_slice(outer);
+        self.products.set(outer, x, None, true);
+        (self.open, self.from, self.own, self.total) = (true, t0, [0.0; 4], 0.0);
+    }
+
+    /// Adds the run's sums to the rows and entries of P' (quad first..first+4) and clears
+    /// them.
+    #[inline(always)]
+    fn flush<M: Madd>(&mut self, first: usize, acc: &mut [f64]) {
+        if !self.open {
+            return;
+        }
+        self.open = false;
+        let n = self.deferred.len();
+        let (lead, q, from) = (&self.lead[..self.len], &self.products.q, self.from);
+        let mut m = 0;
+        while m < lead.len() {
+            // equal indices are adjacent in P': one pass with their weights summed
+            let (row, mut weight) = (lead[m], q[m]);
+            while m + 1 < lead.len() && lead[m + 1] == row {
+                m += 1;
+                weight += q[m];
+            }
+            let dst = &mut acc[row * n + from..row * n + n];
+            for (a, u) in dst.iter_mut().zip(&self.deferred[from..]) {
+                *a = M::madd(weight, *u, *a);
+            }
+            m += 1;
+        }
+        self.deferred[from..].fill(0.0);
+        for (r, &sr) in self.own.iter().enumerate() {
+            for (m, &i) in lead.iter().enumerate() {
+                let at = (first + r) * n + i;
+                acc[at] = M::madd(q[m], sr, acc[at]);
+            }
+        }
+        for m in 0..lead.len() {
+            for m2 in m + 1..lead.len() {
+                let at = lead[m] * n + lead[m2];
+                acc[at] = M::madd(self.products.r[m][m2], self.total, acc[at]);
+            }
+        }
+    }
+}
+
 #[cfg(test)]
 mod tests {
     use super::*;
@@ -338,8 +494,8 @@ mod tests {
     use crate::simd::{has_avx2_fma, Fused, Plain};
     use crate::storage::Packed;
 
-    /// Both instruction-set paths of the passes against the naive sums, for degrees 4-7 (the
-    /// Hessian at degree 4) and items that start on and off a multiple of four, hold zero, one or two quads, and
+    /// Both instruction-set paths of the passes against the naive sums, for degrees 4-7 and
+    /// items that start on and off a multiple of four, hold zero, one or two quads, and
     /// leave 0-3 first indices for the blocks.
     #[test]
     fn both_paths_match_naive_sums() {
@@ -369,6 +525,8 @@ mod tests {
                             hvp_quads::<Fused, f64>(n, degree, item, c, (&x, &v), &mut w);
                             if degree == 4 {
                                 hessian4_quads::<Fused, f64>(n, item, c, &x, &mut a);
+                            } else {
+                                hessian_quads::<Fused, f64>(n, degree, item, c, &x, &mut a);
                             }
                         } else {
                             e += energy_quads::<Plain, f64>(n, degree, item, c, &x);
@@ -376,6 +534,8 @@ mod tests {
                             hvp_quads::<Plain, f64>(n, degree, item, c, (&x, &v), &mut w);
                             if degree == 4 {
                                 hessian4_quads::<Plain, f64>(n, item, c, &x, &mut a);
+                            } else {
+                                hessian_quads::<Plain, f64>(n, degree, item, c, &x, &mut a);
                             }
                         }
                     }
@@ -390,10 +550,8 @@ mod tests {
                 }
                 for (e, e2, g, w, hess) in paths {
                     let case = format!("n {n} degree {degree} cuts {cuts:?}");
-                    if degree == 4 {
-                        for (i, (a, b)) in hess.iter().zip(&h0).enumerate() {
-                            assert!(close(*a, *b), "{case}: Hessian entry {i}: {a} vs {b}");
-                        }
+                    for (i, (a, b)) in hess.iter().zip(&h0).enumerate() {
+                        assert!(close(*a, *b), "{case}: Hessian entry {i}: {a} vs {b}");
                     }
                     assert!(close(e, e0) && close(e2, e0), "{case}: {e} {e2} vs {e0}");
                     for i in 0..n {
