@@ -1,7 +1,7 @@
 //! Inner loops shared by the kernels, and the run-time choice of instruction set.
 //!
 //! Every loop is written once, generic over [`Madd`] (how a*b + c is evaluated) and the
-//! coefficient type. [`simd_dispatch!`] instantiates a kernel twice: with fused multiply-add
+//! coefficient type. `simd_dispatch!` instantiates a kernel twice: with fused multiply-add
 //! inside an `avx2,fma` target-feature function (chosen at run time when the processor has
 //! them) and with plain arithmetic for any other x86-64 or other architecture. One machine
 //! always takes the same path, so results stay bitwise reproducible there.
@@ -568,8 +568,8 @@ fn portable_dot2_axpy<M: Madd, T: Coef>(
 /// Largest prefix length (p - 1) a kernel sees.
 pub const MAX_PREFIX: usize = crate::combinatorics::MAX_DEGREE - 1;
 
-/// Given the prefix values xp (length L <= 7), writes q[j] = prod_{k != j} xp[k] and returns
-/// prod_k xp[k]. Uses prefix and suffix products (no division, so zeros are fine).
+/// Given the prefix values xp (length L <= 7), writes `q[j] = prod_{k != j} xp[k]` and returns
+/// `prod_k xp[k]`. Uses prefix and suffix products (no division, so zeros are fine).
 #[inline(always)]
 pub fn leave_one_out(xp: &[f64], q: &mut [f64; MAX_PREFIX]) -> f64 {
     let l = xp.len();
@@ -586,7 +586,7 @@ pub fn leave_one_out(xp: &[f64], q: &mut [f64; MAX_PREFIX]) -> f64 {
     pre
 }
 
-/// r[j][k] = prod_{l not in {j, k}} xp[l] for j < k (entries with j >= k are left alone).
+/// `r[j][k] = prod_{l not in {j, k}} xp[l]` for j < k (entries with j >= k are left alone).
 #[inline(always)]
 pub fn leave_two_out(xp: &[f64], r: &mut [[f64; MAX_PREFIX]; MAX_PREFIX]) {
     let l = xp.len();

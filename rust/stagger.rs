@@ -13,7 +13,7 @@
 //! z[u] += sum_r w[r] a_r[u - r]
 //! ```
 //!
-//! The loop runs four positions at a time ([`Steps`]): the first step starts every row at its
+//! The loop runs four positions at a time (`Steps`): the first step starts every row at its
 //! own lane, and a last, overlapping step covers len mod 4; in both, lanes outside a row get
 //! coefficient zero, so rows of length 4 and more never fall back to scalar steps.
 
@@ -346,7 +346,7 @@ pub(crate) fn portable_stagger4<M: Madd, T: Coef>(
     (sx, sv)
 }
 
-/// The Hessian rows of a block (see [`crate::adjacent`]): for the rows k + r of the n x n
+/// The Hessian rows of a block (see the `adjacent` module): for the rows k + r of the n x n
 /// accumulator A and positions u (column k + u),
 ///
 /// ```text
