@@ -70,6 +70,28 @@ impl Quad {
         self.tail.map(|at| &coeffs[at + pos..at + pos + len])
     }
 
+    /// The quad's own rows g..g+4 of the n x n accumulator from column `from` on, and the
+    /// rows after them (row g + 4 first).
+    #[inline(always)]
+    fn own_rows<'a>(
+        &self,
+        acc: &'a mut [f64],
+        n: usize,
+        from: usize,
+    ) -> ([&'a mut [f64]; 4], &'a mut [f64]) {
+        let (own, rest) = acc[self.g * n..].split_at_mut(4 * n);
+        let (r0, own) = own.split_at_mut(n);
+        let (r1, own) = own.split_at_mut(n);
+        let (r2, r3) = own.split_at_mut(n);
+        let rows = [
+            &mut r0[from..],
+            &mut r1[from..],
+            &mut r2[from..],
+            &mut r3[from..],
+        ];
+        (rows, rest)
+    }
+
     /// (y_g, .., y_{g+3}).
     #[inline(always)]
     fn of(&self, y: &[f64]) -> [f64; 4] {
@@ -299,11 +321,7 @@ pub(crate) fn hessian4_quads<M: Madd, T: Coef>(
             let j = walk.prefix()[0];
             let (xj, xk) = (x[j], x[k]);
             let segs = quad.segments(coeffs, pos, n - k);
-            let (own, rest) = acc[first * n..].split_at_mut(4 * n);
-            let (r0, own) = own.split_at_mut(n);
-            let (r1, own) = own.split_at_mut(n);
-            let (r2, r3) = own.split_at_mut(n);
-            let rows = [&mut r0[k..], &mut r1[k..], &mut r2[k..], &mut r3[k..]];
+            let (rows, rest) = quad.own_rows(acc, n, k);
             let row_j = (j - first - 4) * n;
             let s = if j == k {
                 let weight = xj + xk;
@@ -376,11 +394,7 @@ pub(crate) fn hessian_quads<M: Madd, T: Coef>(
             }
             let (xt, w_outer) = (x[t0], run.products.base);
             let segs = quad.segments(coeffs, pos, n - t0);
-            let (own, rest) = acc[first * n..].split_at_mut(4 * n);
-            let (r0, own) = own.split_at_mut(n);
-            let (r1, own) = own.split_at_mut(n);
-            let (r2, r3) = own.split_at_mut(n);
-            let rows = [&mut r0[t0..], &mut r1[t0..], &mut r2[t0..], &mut r3[t0..]];
+            let (rows, rest) = quad.own_rows(acc, n, t0);
             let row_t0 = (t0 - first - 4) * n;
             let shared = [
                 (&mut rest[row_t0 + t0..row_t0 + n], w_outer),
