@@ -170,9 +170,9 @@ pub(crate) fn energy_quads<M: Madd, T: Coef>(
     x: &[f64],
 ) -> f64 {
     let mut e = 0.0;
-    let mut g = lo;
-    while g + 4 <= hi {
-        let quad = Quad::new(n, p, g, start);
+    let mut first = lo;
+    while first + 4 <= hi {
+        let quad = Quad::new(n, p, first, start);
         for r in 0..4 {
             let head = &coeffs[quad.head[r]..];
             e += energy_blocks::<M, T>(n, quad.head_runs(n, p, r), head, x);
@@ -186,10 +186,10 @@ pub(crate) fn energy_quads<M: Madd, T: Coef>(
             part = M::madd(w, dot4(xg, s), part);
         }
         e += part;
-        g += 4;
+        first += 4;
     }
-    if g < hi {
-        let (runs, at) = rest_runs(n, p, g, hi, start);
+    if first < hi {
+        let (runs, at) = rest_runs(n, p, first, hi, start);
         e += energy_blocks::<M, T>(n, runs, &coeffs[at..], x);
     }
     e
