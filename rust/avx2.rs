@@ -238,7 +238,7 @@ pub fn dot2_axpy<T: Coef>(a: &[T], x: &[f64], v: &[f64], w: &mut [f64], alpha: f
 }
 
 /// Four segments at once: s_j = sum_t a_j,t x_t (and, with `v`, sum_t a_j,t v_t),
-/// z_t += (w_0 a_0,t + w_1 a_1,t) + (w_2 a_2,t + w_3 a_3,t).
+/// z_t += w_0 a_0,t + w_1 a_1,t + w_2 a_2,t + w_3 a_3,t, summed as in [`crate::simd::weighted4`].
 #[inline(always)]
 fn dots_axpy4<T: Coef, const WITH_V: bool, const WITH_Z: bool>(
     a: [&[T]; 4],
@@ -274,10 +274,16 @@ fn dots_axpy4<T: Coef, const WITH_V: bool, const WITH_Z: bool>(
                 }
             }
             if WITH_Z {
-                let p01 = _mm256_fmadd_pd(wv[1], c[1], _mm256_mul_pd(wv[0], c[0]));
-                let p23 = _mm256_fmadd_pd(wv[3], c[3], _mm256_mul_pd(wv[2], c[2]));
+                let u = if T::WIDENS {
+                    let u = _mm256_fmadd_pd(wv[1], c[1], _mm256_mul_pd(wv[0], c[0]));
+                    _mm256_fmadd_pd(wv[3], c[3], _mm256_fmadd_pd(wv[2], c[2], u))
+                } else {
+                    let p01 = _mm256_fmadd_pd(wv[1], c[1], _mm256_mul_pd(wv[0], c[0]));
+                    let p23 = _mm256_fmadd_pd(wv[3], c[3], _mm256_mul_pd(wv[2], c[2]));
+                    _mm256_add_pd(p01, p23)
+                };
                 let zt = _mm256_loadu_pd(pz.add(i));
-                _mm256_storeu_pd(pz.add(i), _mm256_add_pd(zt, _mm256_add_pd(p01, p23)));
+                _mm256_storeu_pd(pz.add(i), _mm256_add_pd(zt, u));
             }
             i += 4;
         }
@@ -293,9 +299,7 @@ fn dots_axpy4<T: Coef, const WITH_V: bool, const WITH_Z: bool>(
                 }
             }
             if WITH_Z {
-                let p01 = w[1].mul_add(c[1], w[0] * c[0]);
-                let p23 = w[3].mul_add(c[3], w[2] * c[2]);
-                z[i] += p01 + p23;
+                z[i] += crate::simd::weighted4::<Fused, T>(w, c);
             }
             i += 1;
         }

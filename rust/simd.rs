@@ -336,7 +336,7 @@ pub fn dots4<M: Madd, T: Coef>(a: [&[T]; 4], x: &[f64]) -> [f64; 4] {
 }
 
 /// Four coefficient segments a_j (j < 4) of one length at once: returns s_j = sum_t a_j,t x_t
-/// and does z_t += (w_0 a_0,t + w_1 a_1,t) + (w_2 a_2,t + w_3 a_3,t), reading each x and z
+/// and does z_t += w_0 a_0,t + w_1 a_1,t + w_2 a_2,t + w_3 a_3,t (summed as in [`weighted4`]), reading each x and z
 /// entry once for four coefficients.
 #[inline(always)]
 pub fn dots4_axpy<M: Madd, T: Coef>(
@@ -667,6 +667,18 @@ pub(crate) fn coef4<T: Coef>(a: &[&[T]; 4], i: usize) -> [f64; 4] {
     ]
 }
 
+/// w_0 c_0 + w_1 c_1 + w_2 c_2 + w_3 c_3 in the order of the four-segment loops: one chain
+/// for coefficients that widen ([`Coef::WIDENS`]), two pairs otherwise.
+#[inline(always)]
+pub fn weighted4<M: Madd, T: Coef>(w: [f64; 4], c: [f64; 4]) -> f64 {
+    let p01 = M::madd(w[1], c[1], w[0] * c[0]);
+    if T::WIDENS {
+        M::madd(w[3], c[3], M::madd(w[2], c[2], p01))
+    } else {
+        p01 + M::madd(w[3], c[3], w[2] * c[2])
+    }
+}
+
 /// Portable [`dots4_axpy`] (v = None) and [`dots8_axpy`]: per lane, the operations of the
 /// AVX2 loops in their order (4-lane sums combined as (l0 + l2) + (l1 + l3), scalar tail last).
 #[inline(always)]
@@ -693,9 +705,7 @@ fn portable_dots8_axpy<M: Madd, T: Coef>(
                 }
             }
             if let Some(z) = z.as_deref_mut() {
-                let p01 = M::madd(w[1], c[1], w[0] * c[0]);
-                let p23 = M::madd(w[3], c[3], w[2] * c[2]);
-                z[i] += p01 + p23;
+                z[i] += weighted4::<M, T>(w, c);
             }
         }
         t += SHORT;
@@ -715,9 +725,7 @@ fn portable_dots8_axpy<M: Madd, T: Coef>(
             }
         }
         if let Some(z) = z.as_deref_mut() {
-            let p01 = M::madd(w[1], c[1], w[0] * c[0]);
-            let p23 = M::madd(w[3], c[3], w[2] * c[2]);
-            z[i] += p01 + p23;
+            z[i] += weighted4::<M, T>(w, c);
         }
     }
     for j in 0..4 {
@@ -882,6 +890,48 @@ mod tests {
             check::<f64, Fused>(|v| v);
             check::<f32, Fused>(|v| v as f32);
         }
+    }
+
+    /// The AVX2 four-segment loops do, lane by lane, what the portable ones do with fused
+    /// multiply-adds (the portable loops are written to follow them), for both storage types,
+    /// whose z updates sum in different orders ([`weighted4`]).
+    #[test]
+    fn dots_axpy4_vector_loop_matches_portable_loop_bit_for_bit() {
+        fn check<T: Coef>(conv: fn(f64) -> T) {
+            for len in [0, 3, 4, 7, 16, 29] {
+                let a: Vec<Vec<T>> = (0..4)
+                    .map(|k| (0..len).map(|i| conv(((i * 7 + k) as f64).sin())).collect())
+                    .collect();
+                let a4 = [&a[0][..], &a[1][..], &a[2][..], &a[3][..]];
+                let x: Vec<f64> = (0..len).map(|i| (i as f64 * 0.7).cos()).collect();
+                let v: Vec<f64> = (0..len).map(|i| (i as f64 * 0.3).sin()).collect();
+                let w = [0.3, -0.7, 1.1, 0.9];
+                let (mut z1, mut z2) = (vec![0.25; len], vec![0.25; len]);
+                let vector = dots8_axpy::<Fused, T>(a4, &x, &v, &mut z1, w);
+                let portable = portable_dots8_axpy::<Fused, T>(a4, &x, Some(&v), Some(&mut z2), w);
+                assert_eq!(vector, portable, "{} len {len}", T::NAME);
+                assert_eq!(z1, z2, "{} len {len}", T::NAME);
+            }
+        }
+        if has_avx2_fma() {
+            check::<f64>(|v| v);
+            check::<f32>(|v| v as f32);
+        }
+    }
+
+    /// The z update sums its four products in the documented order for each storage type.
+    #[test]
+    fn weighted4_sums_in_its_documented_order() {
+        // 1 + 2^-53 is lost when added to 1 first, kept when the two small terms meet first
+        let (w, c) = (
+            [1.0, 0.5f64.powi(53), 0.5f64.powi(53), 1.0],
+            [1.0, 1.0, 1.0, -1.0],
+        );
+        let chain = ((1.0 + 0.5f64.powi(53)) + 0.5f64.powi(53)) - 1.0;
+        let pairs = (1.0 + 0.5f64.powi(53)) + (0.5f64.powi(53) - 1.0);
+        assert_ne!(chain, pairs);
+        assert_eq!(weighted4::<Plain, f32>(w, c), chain);
+        assert_eq!(weighted4::<Plain, f64>(w, c), pairs);
     }
 
     /// rows4_shared2 on both paths against its definition, every length class.
