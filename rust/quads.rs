@@ -316,31 +316,35 @@ pub(crate) fn hessian4_quads<M: Madd, T: Coef>(
             hessian_blocks::<M, T>(n, quad.head_runs(n, p, r), head, x, acc);
         }
         let xg = quad.of(x);
-        let mut walk = quad.tail_prefixes(n, p);
-        while let Some((k, pos)) = walk.next_prefix() {
-            let j = walk.prefix()[0];
-            let (xj, xk) = (x[j], x[k]);
-            let segs = quad.segments(coeffs, pos, n - k);
-            let (rows, rest) = quad.own_rows(acc, n, k);
-            let row_j = (j - first - 4) * n;
-            let s = if j == k {
-                let weight = xj + xk;
-                let shared = &mut rest[row_j + k..row_j + n];
-                rows4::<M, T>(segs, &x[k..], rows, xj * xk, shared, xg.map(|v| weight * v))
-            } else {
-                let (before_k, row_k) = rest.split_at_mut(row_j + (k - j) * n);
-                let shared = [
-                    (&mut before_k[row_j + k..row_j + n], xk),
-                    (&mut row_k[k..n], xj),
-                ];
-                rows4_shared2::<M, T>(segs, &x[k..], rows, xj * xk, shared, xg)
-            };
-            for (r, &sr) in s.iter().enumerate() {
-                let row = (first + r) * n;
-                acc[row + j] = M::madd(xk, sr, acc[row + j]);
-                acc[row + k] = M::madd(xj, sr, acc[row + k]);
+        // the tail prefixes (j, k), g + 4 <= j <= k < n, in order; (j, k) has n - k
+        // coefficients per tail
+        let mut pos = 0;
+        for j in first + 4..n {
+            for k in j..n {
+                let (xj, xk) = (x[j], x[k]);
+                let segs = quad.segments(coeffs, pos, n - k);
+                pos += n - k;
+                let (rows, rest) = quad.own_rows(acc, n, k);
+                let row_j = (j - first - 4) * n;
+                let s = if j == k {
+                    let weight = xj + xk;
+                    let shared = &mut rest[row_j + k..row_j + n];
+                    rows4::<M, T>(segs, &x[k..], rows, xj * xk, shared, xg.map(|v| weight * v))
+                } else {
+                    let (before_k, row_k) = rest.split_at_mut(row_j + (k - j) * n);
+                    let shared = [
+                        (&mut before_k[row_j + k..row_j + n], xk),
+                        (&mut row_k[k..n], xj),
+                    ];
+                    rows4_shared2::<M, T>(segs, &x[k..], rows, xj * xk, shared, xg)
+                };
+                for (r, &sr) in s.iter().enumerate() {
+                    let row = (first + r) * n;
+                    acc[row + j] = M::madd(xk, sr, acc[row + j]);
+                    acc[row + k] = M::madd(xj, sr, acc[row + k]);
+                }
+                acc[j * n + k] += dot4(xg, s);
             }
-            acc[j * n + k] += dot4(xg, s);
         }
         first += 4;
     }
