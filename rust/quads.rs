@@ -7,7 +7,8 @@
 //! of length n - t0 side by side, like the degree-3 passes of [`crate::kernels`], and each
 //! x_t (v_t, g_t) once for the four. With W = prod_m x_{P_m}, Q_m = W / x_{P_m} (a
 //! leave-one-out product), s_r = sum_t a_{r,t} x_t, sv_r = sum_t a_{r,t} v_t and
-//! T = sum_r x_{g+r} s_r:
+//! T = sum_r x_{g+r} s_r (the walk goes run by run: the outer prefix P' = (i2, .., i_{p-2})
+//! and its products once per run, then a plain loop over t0 from i_{p-2} to n - 1):
 //!
 //! ```text
 //! energy    H += W T
@@ -59,9 +60,11 @@ impl Quad {
         Runs::below(n, p, self.g + r, self.g + 4)
     }
 
-    /// The prefixes of the tails: (P, t0) with P_0 >= g + 4, offsets relative to a tail.
-    fn tail_prefixes(&self, n: usize, p: usize) -> Prefixes {
-        Prefixes::new(n, p - 1, self.g + 4, n)
+    /// The outer prefixes P' of the tails' prefixes P = (P', t0) (P' has p - 3 >= 1
+    /// indices, P'_0 >= g + 4), in order. Each opens a run t0 = P'_last..n whose segments,
+    /// of length n - t0, follow each other in every tail.
+    fn tail_runs(&self, n: usize, p: usize) -> Prefixes {
+        Prefixes::new(n, p - 2, self.g + 4, n)
     }
 
     /// The four tail segments at offset `pos` of length `len`.
@@ -100,9 +103,9 @@ impl Quad {
 }
 
 /// W, Q_m (and with v: dW, dQ_m) of the tail prefixes P = (P', t0), formed from those of P'
-/// ([`Leading`], set when P' changes, that is when t0 restarts at P'_last):
-/// W = W' x_t0, Q_m = Q'_m x_t0 (m < l - 1), Q_{l-1} = W', dW = dW' x_t0 + W' v_t0,
-/// dQ_m = dQ'_m x_t0 + Q'_m v_t0 (m < l - 1), dQ_{l-1} = dW'.
+/// ([`Leading`], set once per run of t0): with l' = p - 3 the length of P',
+/// W = W' x_t0, Q_m = Q'_m x_t0 (m < l'), Q_l' = W', dW = dW' x_t0 + W' v_t0,
+/// dQ_m = dQ'_m x_t0 + Q'_m v_t0 (m < l'), dQ_l' = dW'.
 struct TailProducts {
     outer: Leading,
     base: f64,
@@ -122,28 +125,29 @@ impl TailProducts {
         }
     }
 
-    /// The products of `prefix` (length l >= 2, last entry t0), with v when given.
+    /// The products of the outer prefix of a new run, with v when given.
     #[inline(always)]
-    fn set<M: Madd>(&mut self, prefix: &[usize], x: &[f64], v: Option<&[f64]>) {
-        let l = prefix.len();
-        let (head, t0) = (&prefix[..l - 1], prefix[l - 1]);
-        if t0 == head[l - 2] {
-            self.outer.set(head, x, v, false);
-        }
+    fn start(&mut self, outer: &[usize], x: &[f64], v: Option<&[f64]>) {
+        self.outer.set(outer, x, v, false);
+    }
+
+    /// The products of (P', t0), P' of length `l` the run's outer prefix.
+    #[inline(always)]
+    fn at<M: Madd>(&mut self, l: usize, t0: usize, x: &[f64], v: Option<&[f64]>) {
         let o = &self.outer;
         let xt = x[t0];
         self.base = o.base * xt;
-        for m in 0..l - 1 {
+        for m in 0..l {
             self.q[m] = o.q[m] * xt;
         }
-        self.q[l - 1] = o.base;
+        self.q[l] = o.base;
         if let Some(v) = v {
             let vt = v[t0];
             self.dbase = M::madd(o.dbase, xt, o.base * vt);
-            for m in 0..l - 1 {
+            for m in 0..l {
                 self.dq[m] = M::madd(o.dq[m], xt, o.q[m] * vt);
             }
-            self.dq[l - 1] = o.dbase;
+            self.dq[l] = o.dbase;
         }
     }
 }
@@ -178,12 +182,15 @@ pub(crate) fn energy_quads<M: Madd, T: Coef>(
             e += energy_blocks::<M, T>(n, quad.head_runs(n, p, r), head, x);
         }
         let xg = quad.of(x);
-        let mut walk = quad.tail_prefixes(n, p);
+        let (mut runs, mut pos) = (quad.tail_runs(n, p), 0);
         let mut part = 0.0;
-        while let Some((t0, pos)) = walk.next_prefix() {
-            let s = dots4::<M, T>(quad.segments(coeffs, pos, n - t0), &x[t0..]);
-            let w: f64 = walk.prefix().iter().map(|&j| x[j]).product();
-            part = M::madd(w, dot4(xg, s), part);
+        while let Some((last, _)) = runs.next_prefix() {
+            let w_outer: f64 = runs.prefix().iter().map(|&j| x[j]).product();
+            for t0 in last..n {
+                let s = dots4::<M, T>(quad.segments(coeffs, pos, n - t0), &x[t0..]);
+                pos += n - t0;
+                part = M::madd(w_outer * x[t0], dot4(xg, s), part);
+            }
         }
         e += part;
         first += 4;
@@ -217,20 +224,25 @@ pub(crate) fn gradient_quads<M: Madd, T: Coef>(
         }
         let xg = quad.of(x);
         let mut own = [0f64; 4];
-        let mut walk = quad.tail_prefixes(n, p);
-        while let Some((t0, pos)) = walk.next_prefix() {
-            lead.set::<M>(walk.prefix(), x, None);
-            let base = lead.base;
-            let weights = xg.map(|xr| base * xr);
-            let segs = quad.segments(coeffs, pos, n - t0);
-            let s = dots4_axpy::<M, T>(segs, &x[t0..], &mut g[t0..], weights);
-            let total = dot4(xg, s);
-            e = M::madd(base, total, e);
-            for r in 0..4 {
-                own[r] = M::madd(base, s[r], own[r]);
-            }
-            for (m, &i) in walk.prefix().iter().enumerate() {
-                g[i] = M::madd(lead.q[m], total, g[i]);
+        let (mut runs, mut pos) = (quad.tail_runs(n, p), 0);
+        while let Some((last, _)) = runs.next_prefix() {
+            let outer = runs.prefix();
+            lead.start(outer, x, None);
+            for t0 in last..n {
+                lead.at::<M>(outer.len(), t0, x, None);
+                let base = lead.base;
+                let weights = xg.map(|xr| base * xr);
+                let segs = quad.segments(coeffs, pos, n - t0);
+                pos += n - t0;
+                let s = dots4_axpy::<M, T>(segs, &x[t0..], &mut g[t0..], weights);
+                let total = dot4(xg, s);
+                e = M::madd(base, total, e);
+                for r in 0..4 {
+                    own[r] = M::madd(base, s[r], own[r]);
+                }
+                for (m, &i) in outer.iter().chain([&t0]).enumerate() {
+                    g[i] = M::madd(lead.q[m], total, g[i]);
+                }
             }
         }
         for r in 0..4 {
@@ -266,20 +278,25 @@ pub(crate) fn hvp_quads<M: Madd, T: Coef>(
         }
         let (xg, vg) = (quad.of(x), quad.of(v));
         let mut own = [0f64; 4];
-        let mut walk = quad.tail_prefixes(n, p);
-        while let Some((t0, pos)) = walk.next_prefix() {
-            lead.set::<M>(walk.prefix(), x, Some(v));
-            let (base, dbase) = (lead.base, lead.dbase);
-            let d: [f64; 4] = std::array::from_fn(|r| M::madd(dbase, xg[r], base * vg[r]));
-            let segs = quad.segments(coeffs, pos, n - t0);
-            let (sx, sv) = dots8_axpy::<M, T>(segs, &x[t0..], &v[t0..], &mut w[t0..], d);
-            for r in 0..4 {
-                own[r] += M::madd(dbase, sx[r], base * sv[r]);
-            }
-            let mixed = dot4(xg, sv) + dot4(vg, sx);
-            let total = dot4(xg, sx);
-            for (m, &i) in walk.prefix().iter().enumerate() {
-                w[i] += M::madd(lead.dq[m], total, lead.q[m] * mixed);
+        let (mut runs, mut pos) = (quad.tail_runs(n, p), 0);
+        while let Some((last, _)) = runs.next_prefix() {
+            let outer = runs.prefix();
+            lead.start(outer, x, Some(v));
+            for t0 in last..n {
+                lead.at::<M>(outer.len(), t0, x, Some(v));
+                let (base, dbase) = (lead.base, lead.dbase);
+                let d: [f64; 4] = std::array::from_fn(|r| M::madd(dbase, xg[r], base * vg[r]));
+                let segs = quad.segments(coeffs, pos, n - t0);
+                pos += n - t0;
+                let (sx, sv) = dots8_axpy::<M, T>(segs, &x[t0..], &v[t0..], &mut w[t0..], d);
+                for r in 0..4 {
+                    own[r] += M::madd(dbase, sx[r], base * sv[r]);
+                }
+                let mixed = dot4(xg, sv) + dot4(vg, sx);
+                let total = dot4(xg, sx);
+                for (m, &i) in outer.iter().chain([&t0]).enumerate() {
+                    w[i] += M::madd(lead.dq[m], total, lead.q[m] * mixed);
+                }
             }
         }
         for r in 0..4 {
@@ -379,7 +396,6 @@ pub(crate) fn hessian_quads<M: Madd, T: Coef>(
     acc: &mut [f64],
 ) {
     debug_assert!(p >= 5);
-    let l = p - 2;
     let mut run = OuterRun::new(n);
     let mut first = lo;
     while first + 4 <= hi {
@@ -389,35 +405,36 @@ pub(crate) fn hessian_quads<M: Madd, T: Coef>(
             hessian_blocks::<M, T>(n, quad.head_runs(n, p, r), head, x, acc);
         }
         let xg = quad.of(x);
-        let mut walk = quad.tail_prefixes(n, p);
-        while let Some((t0, pos)) = walk.next_prefix() {
-            let outer = &walk.prefix()[..l - 1];
-            if t0 == outer[l - 2] {
-                run.flush::<M>(first, acc);
-                run.start(outer, t0, x);
+        let (mut runs, mut pos) = (quad.tail_runs(n, p), 0);
+        while let Some((last, _)) = runs.next_prefix() {
+            let outer = runs.prefix();
+            run.start(outer, last, x);
+            let w_outer = run.products.base;
+            for t0 in last..n {
+                let xt = x[t0];
+                let segs = quad.segments(coeffs, pos, n - t0);
+                pos += n - t0;
+                let (rows, rest) = quad.own_rows(acc, n, t0);
+                let row_t0 = (t0 - first - 4) * n;
+                let shared = [
+                    (&mut rest[row_t0 + t0..row_t0 + n], w_outer),
+                    (&mut run.deferred[t0..], xt),
+                ];
+                let s = rows4_shared2::<M, T>(segs, &x[t0..], rows, w_outer * xt, shared, xg);
+                for (r, &sr) in s.iter().enumerate() {
+                    let at = (first + r) * n + t0;
+                    acc[at] = M::madd(w_outer, sr, acc[at]);
+                    run.own[r] = M::madd(xt, sr, run.own[r]);
+                }
+                let total = dot4(xg, s);
+                for (m, &i) in outer.iter().enumerate() {
+                    let at = i * n + t0;
+                    acc[at] = M::madd(run.products.q[m], total, acc[at]);
+                }
+                run.total = M::madd(xt, total, run.total);
             }
-            let (xt, w_outer) = (x[t0], run.products.base);
-            let segs = quad.segments(coeffs, pos, n - t0);
-            let (rows, rest) = quad.own_rows(acc, n, t0);
-            let row_t0 = (t0 - first - 4) * n;
-            let shared = [
-                (&mut rest[row_t0 + t0..row_t0 + n], w_outer),
-                (&mut run.deferred[t0..], xt),
-            ];
-            let s = rows4_shared2::<M, T>(segs, &x[t0..], rows, w_outer * xt, shared, xg);
-            for (r, &sr) in s.iter().enumerate() {
-                let at = (first + r) * n + t0;
-                acc[at] = M::madd(w_outer, sr, acc[at]);
-                run.own[r] = M::madd(xt, sr, run.own[r]);
-            }
-            let total = dot4(xg, s);
-            for (m, &i) in outer.iter().enumerate() {
-                let at = i * n + t0;
-                acc[at] = M::madd(run.products.q[m], total, acc[at]);
-            }
-            run.total = M::madd(xt, total, run.total);
+            run.flush::<M>(first, acc);
         }
-        run.flush::<M>(first, acc);
         first += 4;
     }
     if first < hi {
@@ -428,10 +445,9 @@ pub(crate) fn hessian_quads<M: Madd, T: Coef>(
 
 /// The sums of [`hessian_quads`] over one run of t0 with the same outer prefix P'.
 struct OuterRun {
-    /// P' (its first `len` entries), and whether a run is open.
+    /// P' (its first `len` entries).
     lead: [usize; MAX_PREFIX],
     len: usize,
-    open: bool,
     /// W', Q'_m, R'_{m m'} of P'.
     products: Leading,
     /// U_t = sum_t0 x_t0 u_t, nonzero from column `from` (the run's first t0) on.
@@ -447,7 +463,6 @@ impl OuterRun {
         OuterRun {
             lead: [0; MAX_PREFIX],
             len: 0,
-            open: false,
             products: Leading::new(),
             deferred: vec![0.0; n],
             from: n,
@@ -461,17 +476,13 @@ impl OuterRun {
         self.len = outer.len();
         self.lead[..self.len].copy_from_slice(outer);
         self.products.set(outer, x, None, true);
-        (self.open, self.from, self.own, self.total) = (true, t0, [0.0; 4], 0.0);
+        (self.from, self.own, self.total) = (t0, [0.0; 4], 0.0);
     }
 
     /// Adds the run's sums to the rows and entries of P' (quad first..first+4) and clears
     /// them.
     #[inline(always)]
     fn flush<M: Madd>(&mut self, first: usize, acc: &mut [f64]) {
-        if !self.open {
-            return;
-        }
-        self.open = false;
         let n = self.deferred.len();
         let (lead, q, from) = (&self.lead[..self.len], &self.products.q, self.from);
         let mut m = 0;
@@ -582,26 +593,31 @@ mod tests {
     }
 
     /// The tail products formed from the outer prefix agree with the direct leave-one-out
-    /// products of [`Leading`] along a walk (degree 6: prefixes of length 4).
+    /// products of [`Leading`] along the runs of a walk (degree 6: prefixes of length 4).
     #[test]
     fn tail_products_match_direct_products() {
         let n = 7;
         let x: Vec<f64> = (0..n).map(|i| 0.5 + 0.25 * i as f64).collect();
         let v: Vec<f64> = (0..n).map(|i| 1.0 - 0.3 * i as f64).collect();
         let (mut tail, mut direct) = (TailProducts::new(), Leading::new());
-        let mut walk = Prefixes::new(n, 5, 2, n);
+        // outer prefixes of length 3, each with its run of last indices
+        let mut runs = Prefixes::new(n, 4, 2, n);
         let mut seen = 0;
-        while walk.next_prefix().is_some() {
-            let pre = walk.prefix();
-            tail.set::<Fused>(pre, &x, Some(&v));
-            direct.set(pre, &x, Some(&v), false);
-            let close = |a: f64, b: f64| (a - b).abs() <= 1e-13 * (1.0 + b.abs());
-            assert!(close(tail.base, direct.base) && close(tail.dbase, direct.dbase));
-            for m in 0..pre.len() {
-                assert!(close(tail.q[m], direct.q[m]), "{pre:?} q{m}");
-                assert!(close(tail.dq[m], direct.dq[m]), "{pre:?} dq{m}");
+        while let Some((last, _)) = runs.next_prefix() {
+            let outer = runs.prefix();
+            tail.start(outer, &x, Some(&v));
+            for t0 in last..n {
+                tail.at::<Fused>(outer.len(), t0, &x, Some(&v));
+                let pre = [outer, &[t0]].concat();
+                direct.set(&pre, &x, Some(&v), false);
+                let close = |a: f64, b: f64| (a - b).abs() <= 1e-13 * (1.0 + b.abs());
+                assert!(close(tail.base, direct.base) && close(tail.dbase, direct.dbase));
+                for m in 0..pre.len() {
+                    assert!(close(tail.q[m], direct.q[m]), "{pre:?} q{m}");
+                    assert!(close(tail.dq[m], direct.dq[m]), "{pre:?} dq{m}");
+                }
+                seen += 1;
             }
-            seen += 1;
         }
         assert_eq!(seen, num_multisets(n - 2, 4).unwrap());
     }
