@@ -238,7 +238,8 @@ pub fn dot2_axpy<T: Coef>(a: &[T], x: &[f64], v: &[f64], w: &mut [f64], alpha: f
 }
 
 /// Four segments at once: s_j = sum_t a_j,t x_t (and, with `v`, sum_t a_j,t v_t),
-/// z_t += w_0 a_0,t + w_1 a_1,t + w_2 a_2,t + w_3 a_3,t, summed as in [`crate::simd::weighted4`].
+/// z_t += w_0 a_0,t + w_1 a_1,t + w_2 a_2,t + w_3 a_3,t, summed as in
+/// [`crate::simd::weighted4`].
 #[inline(always)]
 fn dots_axpy4<T: Coef, const WITH_V: bool, const WITH_Z: bool>(
     a: [&[T]; 4],

@@ -336,8 +336,8 @@ pub fn dots4<M: Madd, T: Coef>(a: [&[T]; 4], x: &[f64]) -> [f64; 4] {
 }
 
 /// Four coefficient segments a_j (j < 4) of one length at once: returns s_j = sum_t a_j,t x_t
-/// and does z_t += w_0 a_0,t + w_1 a_1,t + w_2 a_2,t + w_3 a_3,t (summed as in [`weighted4`]), reading each x and z
-/// entry once for four coefficients.
+/// and does z_t += w_0 a_0,t + w_1 a_1,t + w_2 a_2,t + w_3 a_3,t (summed as in [`weighted4`]),
+/// reading each x and z entry once for four coefficients.
 #[inline(always)]
 pub fn dots4_axpy<M: Madd, T: Coef>(
     a: [&[T]; 4],

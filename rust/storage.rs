@@ -18,13 +18,12 @@ pub trait Coef: Copy + Send + Sync + Default + PartialEq + std::fmt::Debug + 'st
     /// On the AVX2 path of the processor this project is measured on (AMD Zen 1), widening
     /// competes with the multiply-adds for execution units (a loop of eight 256-bit fused
     /// multiply-adds took 2.4 cycles longer with four `vcvtps2pd` added, while eight adds took
-    /// no longer with eight of them). Loops that add four weighted
-    /// segments into one vector, z_t += w_0 a_0,t + ... + w_3 a_3,t, then take the sum as one
-    /// chain (a product and three fused multiply-adds, then one add into z) rather than as two
-    /// pairs (two products, two fused multiply-adds and two adds): fewer instructions for a
-    /// longer dependency chain. For f32 that made the degree-3 gradient at n = 800 2-3 %
-    /// faster on one and two threads (the HVP did not change); for f64 the chain was 1-4 %
-    /// slower, so f64 keeps the pairs.
+    /// no longer with eight of them). Loops that add four weighted segments into one vector,
+    /// z_t += w_0 a_0,t + ... + w_3 a_3,t, then take the sum as one chain (a product and three
+    /// fused multiply-adds, then one add into z) rather than as two pairs (two products, two
+    /// fused multiply-adds and two adds): fewer instructions for a longer dependency chain.
+    /// For f32 that made the degree-3 gradient at n = 800 2-3 % faster on one and two threads
+    /// (the HVP did not change); for f64 the chain was 1-4 % slower, so f64 keeps the pairs.
     const WIDENS: bool;
     fn to_f64(self) -> f64;
     fn from_f64(v: f64) -> Self;
