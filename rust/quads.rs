@@ -337,6 +337,8 @@ pub(crate) fn hessian4_quads<M: Madd, T: Coef>(
         // coefficients per tail
         let mut pos = 0;
         for j in first + 4..n {
+            // A[g+r, j] += x_k s_r, summed over the run of k and added once after it
+            let mut at_j = [0f64; 4];
             for k in j..n {
                 let (xj, xk) = (x[j], x[k]);
                 let segs = quad.segments(coeffs, pos, n - k);
@@ -356,11 +358,14 @@ pub(crate) fn hessian4_quads<M: Madd, T: Coef>(
                     rows4_shared2::<M, T>(segs, &x[k..], rows, xj * xk, shared, xg)
                 };
                 for (r, &sr) in s.iter().enumerate() {
-                    let row = (first + r) * n;
-                    acc[row + j] = M::madd(xk, sr, acc[row + j]);
-                    acc[row + k] = M::madd(xj, sr, acc[row + k]);
+                    at_j[r] = M::madd(xk, sr, at_j[r]);
+                    let at = (first + r) * n + k;
+                    acc[at] = M::madd(xj, sr, acc[at]);
                 }
                 acc[j * n + k] += dot4(xg, s);
+            }
+            for (r, sum) in at_j.iter().enumerate() {
+                acc[(first + r) * n + j] += sum;
             }
         }
         first += 4;
