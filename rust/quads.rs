@@ -102,16 +102,15 @@ impl Quad {
     }
 }
 
-/// W, Q_m (and with v: dW, dQ_m) of the tail prefixes P = (P', t0), formed from those of P'
-/// ([`Leading`], set once per run of t0): with l' = p - 3 the length of P',
-/// W = W' x_t0, Q_m = Q'_m x_t0 (m < l'), Q_l' = W', dW = dW' x_t0 + W' v_t0,
-/// dQ_m = dQ'_m x_t0 + Q'_m v_t0 (m < l'), dQ_l' = dW'.
+/// W (and with v: dW) of the tail prefixes P = (P', t0), formed from those of the outer
+/// prefix P' ([`Leading`], set once per run of t0): W = W' x_t0, dW = dW' x_t0 + W' v_t0.
+/// The leave-one-out products of P are Q_m = Q'_m x_t0 (m < l', the length of P') and
+/// Q_l' = W' (with v: dQ_m = dQ'_m x_t0 + Q'_m v_t0 and dQ_l' = dW'); the passes use them
+/// through `outer`, summing the terms of the outer indices over the run.
 struct TailProducts {
     outer: Leading,
     base: f64,
-    q: [f64; MAX_PREFIX],
     dbase: f64,
-    dq: [f64; MAX_PREFIX],
 }
 
 impl TailProducts {
@@ -119,9 +118,7 @@ impl TailProducts {
         TailProducts {
             outer: Leading::new(),
             base: 0.0,
-            q: [0.0; MAX_PREFIX],
             dbase: 0.0,
-            dq: [0.0; MAX_PREFIX],
         }
     }
 
@@ -131,23 +128,14 @@ impl TailProducts {
         self.outer.set(outer, x, v, false);
     }
 
-    /// The products of (P', t0), P' of length `l` the run's outer prefix.
+    /// W and dW of (P', t0), P' the run's outer prefix.
     #[inline(always)]
-    fn at<M: Madd>(&mut self, l: usize, t0: usize, x: &[f64], v: Option<&[f64]>) {
+    fn at<M: Madd>(&mut self, t0: usize, x: &[f64], v: Option<&[f64]>) {
         let o = &self.outer;
         let xt = x[t0];
         self.base = o.base * xt;
-        for m in 0..l {
-            self.q[m] = o.q[m] * xt;
-        }
-        self.q[l] = o.base;
         if let Some(v) = v {
-            let vt = v[t0];
-            self.dbase = M::madd(o.dbase, xt, o.base * vt);
-            for m in 0..l {
-                self.dq[m] = M::madd(o.dq[m], xt, o.q[m] * vt);
-            }
-            self.dq[l] = o.dbase;
+            self.dbase = M::madd(o.dbase, xt, o.base * v[t0]);
         }
     }
 }
@@ -228,8 +216,10 @@ pub(crate) fn gradient_quads<M: Madd, T: Coef>(
         while let Some((last, _)) = runs.next_prefix() {
             let outer = runs.prefix();
             lead.start(outer, x, None);
+            // g[P'_m] += Q'_m x_t0 T summed over the run as Q'_m sum_t0 x_t0 T
+            let mut run_total = 0.0;
             for t0 in last..n {
-                lead.at::<M>(outer.len(), t0, x, None);
+                lead.at::<M>(t0, x, None);
                 let base = lead.base;
                 let weights = xg.map(|xr| base * xr);
                 let segs = quad.segments(coeffs, pos, n - t0);
@@ -240,9 +230,11 @@ pub(crate) fn gradient_quads<M: Madd, T: Coef>(
                 for r in 0..4 {
                     own[r] = M::madd(base, s[r], own[r]);
                 }
-                for (m, &i) in outer.iter().chain([&t0]).enumerate() {
-                    g[i] = M::madd(lead.q[m], total, g[i]);
-                }
+                run_total = M::madd(x[t0], total, run_total);
+                g[t0] = M::madd(lead.outer.base, total, g[t0]);
+            }
+            for (m, &i) in outer.iter().enumerate() {
+                g[i] = M::madd(lead.outer.q[m], run_total, g[i]);
             }
         }
         for r in 0..4 {
@@ -282,8 +274,11 @@ pub(crate) fn hvp_quads<M: Madd, T: Coef>(
         while let Some((last, _)) = runs.next_prefix() {
             let outer = runs.prefix();
             lead.start(outer, x, Some(v));
+            // w[P'_m] += dQ_m T + Q_m M with Q_m = Q'_m x_t0, dQ_m = dQ'_m x_t0 + Q'_m v_t0,
+            // summed over the run as dQ'_m sum x_t0 T + Q'_m sum (v_t0 T + x_t0 M)
+            let (mut run_t, mut run_m) = (0.0, 0.0);
             for t0 in last..n {
-                lead.at::<M>(outer.len(), t0, x, Some(v));
+                lead.at::<M>(t0, x, Some(v));
                 let (base, dbase) = (lead.base, lead.dbase);
                 let d: [f64; 4] = std::array::from_fn(|r| M::madd(dbase, xg[r], base * vg[r]));
                 let segs = quad.segments(coeffs, pos, n - t0);
@@ -294,9 +289,14 @@ pub(crate) fn hvp_quads<M: Madd, T: Coef>(
                 }
                 let mixed = dot4(xg, sv) + dot4(vg, sx);
                 let total = dot4(xg, sx);
-                for (m, &i) in outer.iter().chain([&t0]).enumerate() {
-                    w[i] += M::madd(lead.dq[m], total, lead.q[m] * mixed);
-                }
+                run_t = M::madd(x[t0], total, run_t);
+                run_m += M::madd(v[t0], total, x[t0] * mixed);
+                let o = &lead.outer;
+                w[t0] += M::madd(o.dbase, total, o.base * mixed);
+            }
+            let o = &lead.outer;
+            for (m, &i) in outer.iter().enumerate() {
+                w[i] += M::madd(o.dq[m], run_t, o.q[m] * run_m);
             }
         }
         for r in 0..4 {
@@ -597,8 +597,10 @@ mod tests {
         }
     }
 
-    /// The tail products formed from the outer prefix agree with the direct leave-one-out
-    /// products of [`Leading`] along the runs of a walk (degree 6: prefixes of length 4).
+    /// The tail products formed from the outer prefix, and the leave-one-out products the
+    /// passes form from it (Q_m = Q'_m x_t0, Q_l' = W', dQ_m = dQ'_m x_t0 + Q'_m v_t0,
+    /// dQ_l' = dW'), agree with the direct products of [`Leading`] along the runs of a walk
+    /// (degree 6: prefixes of length 4).
     #[test]
     fn tail_products_match_direct_products() {
         let n = 7;
@@ -612,15 +614,19 @@ mod tests {
             let outer = runs.prefix();
             tail.start(outer, &x, Some(&v));
             for t0 in last..n {
-                tail.at::<Fused>(outer.len(), t0, &x, Some(&v));
+                tail.at::<Fused>(t0, &x, Some(&v));
                 let pre = [outer, &[t0]].concat();
                 direct.set(&pre, &x, Some(&v), false);
                 let close = |a: f64, b: f64| (a - b).abs() <= 1e-13 * (1.0 + b.abs());
                 assert!(close(tail.base, direct.base) && close(tail.dbase, direct.dbase));
-                for m in 0..pre.len() {
-                    assert!(close(tail.q[m], direct.q[m]), "{pre:?} q{m}");
-                    assert!(close(tail.dq[m], direct.dq[m]), "{pre:?} dq{m}");
+                let o = &tail.outer;
+                for m in 0..outer.len() {
+                    assert!(close(o.q[m] * x[t0], direct.q[m]), "{pre:?} q{m}");
+                    let dq = o.dq[m] * x[t0] + o.q[m] * v[t0];
+                    assert!(close(dq, direct.dq[m]), "{pre:?} dq{m}");
                 }
+                let l = outer.len();
+                assert!(close(o.base, direct.q[l]) && close(o.dbase, direct.dq[l]));
                 seen += 1;
             }
         }
