@@ -188,6 +188,45 @@ def probe_bandwidth(stats: dict, label: str, nbytes: dict[str, int]) -> dict:
     return _timing.bandwidth({k: stats[("probe", label, k)] for k in nbytes}, nbytes)
 
 
+HOST_PROBE_SIZE = 256
+"""Side of the small matrix product timed beside the kernels of each case (see add_host_probe)."""
+
+
+def add_host_probe(fns: dict) -> None:
+    """Put a small float64 matrix product (HOST_PROBE_SIZE^3 multiply-adds, operands in cache)
+    into the measured group. Its samples interleave with the case's, and its rate depends only
+    on what else the host runs: the processes of this machine show in the load figures, but
+    other virtual machines sharing the host's cores do not. A case whose probe ran well below
+    the run's best (see host_check) was measured on a busy host."""
+    rng = np.random.default_rng(SEED + 1)
+    a, b = rng.standard_normal((2, HOST_PROBE_SIZE, HOST_PROBE_SIZE))
+    fns[("probe", "host", "dgemm")] = lambda: a @ b
+
+
+def host_probe_row(stats: dict, p: int, n: int) -> dict:
+    """The host probe's row; `host_rate` is its median rate in multiply-adds per second."""
+    st = stats[("probe", "host", "dgemm")]
+    rate = HOST_PROBE_SIZE**3 / st.median
+    row = make_row("compute", "probe", f"host dgemm {HOST_PROBE_SIZE}^3", st, p, n)
+    row["host_rate"] = rate
+    row["note"] = f"{rate / 1e9:.1f} G multiply-adds/s"
+    return row
+
+
+def host_check(cases: list[dict], fraction: float = 0.9) -> dict:
+    """Each case's host-probe rate as a fraction of the best over the run, and the cases below
+    `fraction` of it (their ratios against memory-bound peers are likely understated)."""
+    rates = {
+        c["name"]: r["host_rate"] for c in cases for r in c.get("rows", []) if "host_rate" in r
+    }
+    if not rates:
+        return {"fractions": {}, "busy": []}
+    best = max(rates.values())
+    fractions = {name: rate / best for name, rate in rates.items()}
+    busy = [name for name, f in fractions.items() if f < fraction]
+    return {"fractions": fractions, "busy": busy, "threshold": fraction}
+
+
 def probe_array(nbytes: int) -> np.ndarray:
     """A touched float64 array of about `nbytes` bytes, for the bandwidth probes."""
     return np.ones(max(1, nbytes // 8))
@@ -305,6 +344,7 @@ def run_dense(
     if probes:
         probe_bytes["coefficients"] = add_probes(fns, packed, "coefficients")
         probe_bytes["dense tensor"] = add_probes(fns, tensor.reshape(-1), "dense tensor")
+        add_host_probe(fns)
     errors: dict = {}
     log(f"   measuring {len(fns)} functions")
     stats = _timing.measure(fns, cfg.plan, check_against(refs, errors))
@@ -312,6 +352,8 @@ def run_dense(
     rows = dense_rows(stats, errors, h, tensor, bws)
     for label in probe_bytes:
         rows += probe_rows(stats, bws[label], label, p, n)
+    if probes:
+        rows.append(host_probe_row(stats, p, n))
     fns.clear()  # the peers' closures hold the dense tensor
     del tensor, packed
     return {
@@ -397,6 +439,7 @@ def case_roofline(cfg, ws):
     }
     packed = probe_array(h.nbytes)
     probe_bytes = add_probes(fns, packed, "coefficients")
+    add_host_probe(fns)
     log(f"   measuring {len(fns)} functions")
     stats = _timing.measure(fns, cfg.plan)
     bw = probe_bandwidth(stats, "coefficients", probe_bytes)
@@ -408,6 +451,7 @@ def case_roofline(cfg, ws):
             row["note"] = _report.fmt_rate(h.nbytes / st.median)
             rows.append(row)
     rows += probe_rows(stats, bw, "coefficients", p, n)
+    rows.append(host_probe_row(stats, p, n))
     del packed
     return {
         "name": "roofline",
@@ -440,6 +484,7 @@ def case_float32(cfg, ws):
         arrays.append(probe_array(sizes[d]))
         probe_bytes[d] = add_probes(fns, arrays[-1], f"{d} size")
     refs = {k: fn() for k, fn in oc_kernels(hs["float64"], x, v).items()}
+    add_host_probe(fns)
     log(f"   measuring {len(fns)} functions")
     stats = _timing.measure(fns, cfg.plan)
     bws = {f"{d} size": probe_bandwidth(stats, f"{d} size", probe_bytes[d]) for d in dtypes}
@@ -456,6 +501,7 @@ def case_float32(cfg, ws):
         rows += [r64, r32]
     for d in dtypes:
         rows += probe_rows(stats, bws[f"{d} size"], f"{d} size", p, n)
+    rows.append(host_probe_row(stats, p, n))
     del arrays
     return {
         "name": "float32",

@@ -129,6 +129,22 @@ def targets_text(targets: list[dict]) -> str:
     return "\n".join(lines)
 
 
+def host_check_text(check: dict) -> str:
+    """The host probe's rate per case against the run's best, flagging the busy cases."""
+    fractions = check.get("fractions", {})
+    if not fractions:
+        return "host check: no case ran the host probe"
+    parts = ", ".join(f"{name} {f:.2f}" for name, f in fractions.items())
+    lines = ["== host check (small dgemm rate per case / the run's best) ==", f"  {parts}"]
+    for name in check.get("busy", []):
+        lines.append(
+            f"  BUSY  {name}: the host probe ran at {fractions[name]:.2f} of its best; other "
+            "work on the host slowed this case's arithmetic, so its ratios against "
+            "memory-bound peers are likely understated"
+        )
+    return "\n".join(lines)
+
+
 def meta_text(meta: dict) -> str:
     """Short description of the machine and settings."""
     cpu = meta["cpu"]
@@ -167,6 +183,10 @@ def render_markdown(results: dict) -> str:
             value = "-" if t["value"] is None else f"{t['value']:.2f}{unit}"
             rows.append([t["description"], f">= {t['threshold']:g}{unit}", value, t["status"]])
         lines += _md_table(["target", "threshold", "measured", "status"], rows) + [""]
+    if results.get("host_check", {}).get("fractions"):
+        check = host_check_text(results["host_check"]).splitlines()
+        lines += ["### Host check (small dgemm rate per case / the run's best)", ""]
+        lines += [line.strip() + "  " for line in check[1:]] + [""]
     for case in results["cases"]:
         head = case_header(case)
         lines += [f"### {head[0].strip('= ')}", ""] + [h.strip() + "  " for h in head[1:]] + [""]

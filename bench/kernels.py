@@ -127,6 +127,7 @@ def measure_all(args) -> dict:
         print(_report.case_text(case), flush=True)
     meta["load_average_end"] = _env.load_average()
     meta["elapsed_s"] = time.perf_counter() - start
+    results["host_check"] = _cases.host_check(results["cases"])
     return results
 
 
@@ -208,6 +209,8 @@ def main(argv=None) -> int:
         _cases.log(f"wrote {args.out}")
     print()
     print(_report.targets_text(results["targets"]))
+    if results.get("host_check"):
+        print(_report.host_check_text(results["host_check"]))
     if args.markdown:
         write_atomic(args.markdown, _report.render_markdown(results) + "\n")
         _cases.log(f"wrote {args.markdown}")
