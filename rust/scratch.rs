@@ -63,12 +63,6 @@ pub fn give(buf: Vec<f64>) {
     drop(evicted); // freed after the lock is released
 }
 
-/// Drops every cached buffer.
-pub fn clear() {
-    let all = std::mem::take(&mut kept().0);
-    drop(all);
-}
-
 #[cfg(test)]
 mod tests {
     use super::*;
