@@ -198,9 +198,7 @@ def add_host_probe(fns: dict) -> None:
     on what else the host runs: the processes of this machine show in the load figures, but
     other virtual machines sharing the host's cores do not. A case whose probe ran well below
     the run's best (see host_check) was measured on a busy host."""
-    rng = np.random.default_rng(SEED + 1)
-    a, b = rng.standard_normal((2, HOST_PROBE_SIZE, HOST_PROBE_SIZE))
-    fns[("probe", "host", "dgemm")] = lambda: a @ b
+    fns[("probe", "host", "dgemm")] = gemm_probe(HOST_PROBE_SIZE)
 
 
 def host_probe_row(stats: dict, p: int, n: int) -> dict:
@@ -638,11 +636,11 @@ def batch_rows(stats: dict, h, xs: np.ndarray, p: int, n: int) -> list[dict]:
 GEMM_SIZE = 2048
 
 
-def gemm_probe() -> Callable[[], object]:
-    """A float64 matrix product of two GEMM_SIZE-square matrices through NumPy's BLAS (all its
-    threads): GEMM_SIZE**3 multiply-adds at close to the machine's peak rate."""
+def gemm_probe(size: int = GEMM_SIZE) -> Callable[[], object]:
+    """A float64 matrix product of two size-square matrices through NumPy's BLAS (all its
+    threads): size**3 multiply-adds, at GEMM_SIZE close to the machine's peak rate."""
     rng = np.random.default_rng(SEED)
-    a, b = rng.standard_normal((2, GEMM_SIZE, GEMM_SIZE))
+    a, b = rng.standard_normal((2, size, size))
     return lambda: a @ b
 
 
