@@ -543,12 +543,16 @@ pub fn tile<T: Coef, const G: usize>(
     unsafe {
         let px = x.as_ptr();
         let mut acc = [[_mm256_setzero_pd(); G]; 4];
+        let mut pf = (rows[0].as_ptr() as *const u8).wrapping_add(TILE_AHEAD);
+        let step = 4 * std::mem::size_of::<T>();
         match grad {
             None => {
                 for u in 0..head {
                     tile_sums(&mut acc, tile_early(&rows, u), px.add(u * stride));
                 }
                 for u in head..len {
+                    _mm_prefetch::<_MM_HINT_T0>(pf as *const i8);
+                    pf = pf.wrapping_add(step);
                     tile_sums(&mut acc, tile_at(&rows, u), px.add(u * stride));
                 }
             }
@@ -562,6 +566,8 @@ pub fn tile<T: Coef, const G: usize>(
                     }
                 }
                 for u in 0..len {
+                    _mm_prefetch::<_MM_HINT_T0>(pf as *const i8);
+                    pf = pf.wrapping_add(step);
                     let c = if u < head {
                         tile_early(&rows, u)
                     } else {
@@ -579,6 +585,13 @@ pub fn tile<T: Coef, const G: usize>(
         }
     }
 }
+
+/// Prefetch distance of the batch tile, in bytes. The tile reads its four rows (back to back
+/// in memory) one coefficient each per position, four slow interleaved streams that the
+/// hardware prefetcher followed poorly on a Xeon with a large, slow L3: without the software
+/// prefetch a batch of 4 points at p = 3, n = 400 took 9.0 ms on two threads, with it 5.8 ms
+/// (1024 bytes: 6.6 ms, 2048: 5.9 ms).
+const TILE_AHEAD: usize = 4096;
 
 /// Prefetch distance of [`stagger4`], in bytes.
 const PREFETCH: usize = 2048;
