@@ -20,8 +20,9 @@ pytestmark = pytest.mark.skipif(
 )
 
 # The child measures how long a short version of the call takes, scales it to the full
-# call (kernel cost is linear in the number of directions / points), interrupts the full
-# call one second in, and reports the delay from the signal to the KeyboardInterrupt.
+# call (kernel cost is linear in the number of directions / points; the full size grows on a
+# fast machine), interrupts the full call one second in, and reports the delay from the
+# signal to the KeyboardInterrupt.
 CHILD = textwrap.dedent(
     """
     import json, os, signal, threading, time
@@ -46,6 +47,9 @@ CHILD = textwrap.dedent(
 
     a = args(small)
     t = time.perf_counter(); call(*a); short = time.perf_counter() - t
+    # on a fast machine, more directions / points, so the full call still takes about 12 s
+    # (at most 50000: 120 MB of inputs)
+    full = min(max(full, int(small * 12.0 / short)), 50000)
     estimate = short * full / small
 
     sent = {{}}
