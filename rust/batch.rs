@@ -32,7 +32,7 @@ use crate::simd::{
 };
 use crate::stagger::{rows_at, Rows4, Runs};
 use crate::storage::{Coef, Packed};
-use crate::tile::{tile, TILE_LANES};
+use crate::tile::{tile, TileSums, WideTile, SUM_LANES};
 
 /// The transpose of the rows x cols matrix `src` (rows `src_stride` apart), as cols rows of
 /// length `dst_stride` >= rows (the extra entries, if any, are zero padding).
@@ -110,19 +110,29 @@ fn block_pass<M: Madd, T: Coef>(
     xt: &[f64],
     e: &mut [f64],
     g: &mut [f64],
+    wide: Option<WideTile>,
 ) {
     let stride = e.len();
     let want_grad = !g.is_empty();
     let slices = rows.slices(zeros);
     let active = rows.count;
     let x0 = k * stride;
-    let mut s = [[0f64; TILE_LANES]; 4];
-    let mut w = [[0f64; TILE_LANES]; 4];
+    let mut s: TileSums = [[0f64; SUM_LANES]; 4];
+    let mut w: TileSums = [[0f64; SUM_LANES]; 4];
     let mut g0 = 0;
     while g0 < stride {
-        let lanes = if want_grad || stride - g0 < 8 { 4 } else { 8 };
+        let left = stride - g0;
+        let wide_lanes = WideTile::LANES.into_iter().find(|&l| l <= left);
+        let lanes = match (wide, wide_lanes) {
+            (Some(_), Some(l)) if !want_grad => l,
+            _ if want_grad || left < 8 => 4,
+            _ => 8,
+        };
         let xs = &xt[x0 + g0..];
-        if want_grad {
+        if lanes > 8 {
+            wide.expect("wide lanes only with a WideTile")
+                .sums(lanes, slices, xs, stride, &mut s);
+        } else if want_grad {
             for r in 0..active {
                 for l in 0..lanes {
                     w[r][l] = products.base[g0 + l] * xt[x0 + r * stride + g0 + l];
@@ -167,7 +177,7 @@ fn batch_item_body<M: Madd, T: Coef>(
     xt: &[f64],
     e: &mut [f64],
     g: &mut [f64],
-    exec: &Exec,
+    (exec, wide): (&Exec, Option<WideTile>),
 ) {
     let stride = e.len();
     let coeffs = &a[it.start..it.start + it.len];
@@ -199,23 +209,26 @@ fn batch_item_body<M: Madd, T: Coef>(
             }
             let count = (k_end - k).min(4);
             let (rows, next) = rows_at(n, k, pos, count, coeffs);
-            block_pass::<M, T>(k, &rows, &zeros, (lead, &products), xt, e, g);
+            block_pass::<M, T>(k, &rows, &zeros, (lead, &products), xt, e, g, wide);
             (k, pos) = (k + count, next);
         }
     }
 }
 
 simd_dispatch!(fn batch_item => batch_item_body(
-    n: usize, a: &[T], it: &WorkItem, xt: &[f64], e: &mut [f64], g: &mut [f64], exec: &Exec)
-    -> ());
+    n: usize, a: &[T], it: &WorkItem, xt: &[f64], e: &mut [f64], g: &mut [f64],
+    run: (&Exec, Option<WideTile>)) -> ());
 
+/// The batch of b points; `wide` lets the energy-only tile take 16 or 32 lanes at once
+/// (same bits per lane as without it).
 fn run_batch<T: Coef>(
     exec: &Exec,
     poly: &Packed<T>,
     xs: &[f64],
     b: usize,
-    want_grad: bool,
+    (want_grad, wide): (bool, Option<WideTile>),
 ) -> Result<(Vec<f64>, Vec<f64>), CoreError> {
+    let wide = wide.filter(|_| !want_grad);
     let n = poly.n();
     let len = b.checked_mul(n).ok_or_else(|| CoreError::SizeOverflow {
         what: format!("batch of {b} points"),
@@ -234,7 +247,7 @@ fn run_batch<T: Coef>(
     );
     let blocks = poly.blocks();
     let (mut e, g) = reduce_sums(exec, &items, stride, glen, |it, e, g| {
-        batch_item::<T>(n, &blocks[it.block].coeffs, it, &xt, e, g, exec);
+        batch_item::<T>(n, &blocks[it.block].coeffs, it, &xt, e, g, (exec, wide));
     })?;
     e.truncate(b);
     let grads = if want_grad {
@@ -256,7 +269,7 @@ pub fn energy_batch<T: Coef>(
     if b == 1 {
         return Ok(vec![energy(exec, poly, xs)?]);
     }
-    Ok(run_batch(exec, poly, xs, b, false)?.0)
+    Ok(run_batch(exec, poly, xs, b, (false, WideTile::detect()))?.0)
 }
 
 /// Fewest points for which the energy-and-gradient tile beats single-point calls: at b = 2
@@ -283,7 +296,7 @@ pub fn energy_gradient_batch<T: Coef>(
         }
         return Ok((es, gs));
     }
-    run_batch(exec, poly, xs, b, true)
+    run_batch(exec, poly, xs, b, (true, None))
 }
 
 /// Hessian-vector products of an item for k directions `vs` (k x n) added to `w` (k x n).
@@ -371,12 +384,58 @@ mod tests {
     use crate::kernels::{hvp, pieces};
     use crate::sampling::Disorder;
 
+    /// The wide tile gives every point the same bits as the AVX2 tile: batches whose lanes
+    /// split into 32, 16, 8 and 4, for both storage types.
+    #[test]
+    fn wide_tile_batch_is_bitwise_the_narrow_one() {
+        let Some(wide) = WideTile::detect() else {
+            eprintln!("no AVX-512F on this processor: wide batch not tested");
+            return;
+        };
+        fn both<T: Coef>(poly: &Packed<T>, xs: &[f64], b: usize, wide: WideTile) {
+            let p = pool(2);
+            let (w, _) = run_batch(&p, poly, xs, b, (false, Some(wide))).unwrap();
+            let (nw, _) = run_batch(&p, poly, xs, b, (false, None)).unwrap();
+            assert_eq!(w.len(), b);
+            for (beta, (a, c)) in w.iter().zip(&nw).enumerate() {
+                assert_eq!(a.to_bits(), c.to_bits(), "{} b {b} point {beta}", T::NAME);
+            }
+        }
+        let terms = [(2usize, 1.0), (3, 0.6), (4, 0.4)];
+        for (n, b) in [(17usize, 16usize), (17, 20), (30, 35), (30, 60)] {
+            let xs: Vec<f64> = (0..b * n).map(|i| ((i as f64) * 0.43).sin()).collect();
+            let d = Disorder::new(9);
+            both(
+                &Packed::<f64>::sample(&pool(2), n, &terms, &d).unwrap(),
+                &xs,
+                b,
+                wide,
+            );
+            both(
+                &Packed::<f32>::sample(&pool(2), n, &terms, &d).unwrap(),
+                &xs,
+                b,
+                wide,
+            );
+        }
+    }
+
     #[test]
     fn batch_matches_single_points() {
         // b = 1 (single kernel), 2 (single kernel for gradients, tile for energies), 3 (the
         // smallest gradient tile), 5 (lanes 8 + padding), 11 (8 + 4 lanes); n = 23 gives
         // blocks of four rows with short and partial blocks at the end of each run
-        for (n, b) in [(1usize, 5usize), (4, 1), (9, 2), (9, 3), (11, 5), (23, 11)] {
+        // 19 and 37 (where the processor has AVX-512F) take the 16- and 32-lane wide tile
+        for (n, b) in [
+            (1usize, 5usize),
+            (4, 1),
+            (9, 2),
+            (9, 3),
+            (11, 5),
+            (23, 11),
+            (23, 19),
+            (9, 37),
+        ] {
             let terms = [(1usize, 0.5), (2, 1.0), (3, 0.6), (5, 0.3)];
             let poly = Packed::<f64>::sample(&pool(2), n, &terms, &Disorder::new(2)).unwrap();
             let xs: Vec<f64> = (0..b * n).map(|i| ((i as f64) * 0.61).cos()).collect();
@@ -412,9 +471,9 @@ mod tests {
             for it in &items_for(&poly, 3, 1, 1).items {
                 let a = &poly.blocks()[it.block].coeffs;
                 if fused {
-                    batch_item_body::<Fused, f32>(n, a, it, &xt, &mut e, &mut g, &exec);
+                    batch_item_body::<Fused, f32>(n, a, it, &xt, &mut e, &mut g, (&exec, None));
                 } else {
-                    batch_item_body::<Plain, f32>(n, a, it, &xt, &mut e, &mut g, &exec);
+                    batch_item_body::<Plain, f32>(n, a, it, &xt, &mut e, &mut g, (&exec, None));
                 }
             }
             (e, g)

@@ -8,6 +8,8 @@
 mod adjacent;
 #[cfg(target_arch = "x86_64")]
 mod avx2;
+#[cfg(target_arch = "x86_64")]
+mod avx512;
 pub mod batch;
 pub mod combinatorics;
 pub mod error;

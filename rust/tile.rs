@@ -19,11 +19,15 @@
 use crate::simd::Madd;
 use crate::storage::Coef;
 
-/// Widest lane group a tile handles (G = 2: eight lanes in two AVX2 registers per row).
+/// Widest lane group the AVX2 and portable tiles handle (G = 2: eight lanes in two AVX2
+/// registers per row).
 pub const TILE_LANES: usize = 8;
 
-/// Four sums per lane, one per row.
-pub type TileSums = [[f64; TILE_LANES]; 4];
+/// Widest lane group of any tile (the AVX-512 tile of `crate::avx512`: 32 lanes).
+pub const SUM_LANES: usize = 32;
+
+/// Four sums per lane, one per row (lanes past the tile's width are left alone).
+pub type TileSums = [[f64; SUM_LANES]; 4];
 
 /// The checks every implementation relies on: row r has len - r entries (none if r >= len),
 /// X (and G) reach row len - 1 at 4 G lanes.
@@ -33,7 +37,7 @@ pub(crate) fn check_tile<T>(rows: &[&[T]; 4], x: &[f64], stride: usize, lanes: u
     for (r, row) in rows.iter().enumerate() {
         assert_eq!(row.len(), len.saturating_sub(r), "tile row {r}");
     }
-    assert!(lanes <= TILE_LANES && lanes <= stride);
+    assert!(lanes <= SUM_LANES && lanes <= stride);
     assert!(len == 0 || x.len() >= (len - 1) * stride + lanes);
     len
 }
@@ -100,6 +104,49 @@ pub fn tile<M: Madd, T: Coef, const G: usize>(
     M::tile::<T, G>(rows, x, stride, grad, s)
 }
 
+/// Permission to run the AVX-512 tile (`crate::avx512`): exists only on a processor that
+/// has AVX-512F, AVX2 and FMA, where it gives every lane the same bits as the AVX2 tile.
+#[derive(Clone, Copy, Debug)]
+pub struct WideTile(());
+
+impl WideTile {
+    /// Lanes the wide tile takes at once: 32, or 16 for a group of 16 to 31 lanes.
+    pub const LANES: [usize; 2] = [32, 16];
+
+    /// The permission, on a processor that has the features.
+    pub fn detect() -> Option<Self> {
+        #[cfg(target_arch = "x86_64")]
+        if crate::avx512::wide_tile_available() {
+            return Some(WideTile(()));
+        }
+        None
+    }
+
+    /// The tile sums of the module doc for `lanes` (32 or 16) lanes, into `s[r][..lanes]`.
+    #[inline]
+    pub fn sums<T: Coef>(
+        self,
+        lanes: usize,
+        rows: [&[T]; 4],
+        x: &[f64],
+        stride: usize,
+        s: &mut TileSums,
+    ) {
+        assert!(Self::LANES.contains(&lanes), "wide tile of {lanes} lanes");
+        #[cfg(target_arch = "x86_64")]
+        // SAFETY: a `WideTile` only exists where `wide_tile_available()` held.
+        unsafe {
+            if lanes == 32 {
+                crate::avx512::wide_tile::<T, 4>(rows, x, stride, s);
+            } else {
+                crate::avx512::wide_tile::<T, 2>(rows, x, stride, s);
+            }
+        }
+        #[cfg(not(target_arch = "x86_64"))]
+        unreachable!("no WideTile exists off x86-64: {lanes} {rows:?} {x:?} {stride} {s:?}");
+    }
+}
+
 #[cfg(test)]
 mod tests {
     use super::*;
@@ -107,7 +154,7 @@ mod tests {
 
     /// The sums of the module doc, written out term by term.
     fn definition(rows: &[Vec<f64>; 4], x: &[f64], stride: usize, lanes: usize) -> TileSums {
-        let mut s = [[0f64; TILE_LANES]; 4];
+        let mut s = [[0f64; SUM_LANES]; 4];
         for (r, row) in rows.iter().enumerate() {
             for (i, a) in row.iter().enumerate() {
                 for k in 0..lanes {
@@ -125,7 +172,7 @@ mod tests {
         w: Option<&TileSums>,
     ) -> (TileSums, Vec<f64>) {
         let refs = [&rows[0][..], &rows[1][..], &rows[2][..], &rows[3][..]];
-        let mut s = [[f64::NAN; TILE_LANES]; 4];
+        let mut s = [[f64::NAN; SUM_LANES]; 4];
         let mut g = vec![0.5; x.len()];
         let grad = w.map(|w| (&mut g[..], w));
         tile::<M, T, G>(refs, x, stride, grad, &mut s);
@@ -145,7 +192,7 @@ mod tests {
         let x: Vec<f64> = (0..len.max(1) * stride)
             .map(|i| (i as f64 * 0.13).cos())
             .collect();
-        let w = [0, 1, 2, 3].map(|r| [0.0; TILE_LANES].map(|_| 0.25 * r as f64 - 0.4));
+        let w = [0, 1, 2, 3].map(|r| [0.0; SUM_LANES].map(|_| 0.25 * r as f64 - 0.4));
         let want = definition(&wide, &x, stride, lanes);
         let (s, g) = run::<M, T, G>(&rows, &x, stride, Some(&w));
         let (s_only, untouched) = run::<M, T, G>(&rows, &x, stride, None);
@@ -192,9 +239,9 @@ mod tests {
         let rows: [Vec<f64>; 4] =
             [0, 1, 2, 3].map(|r| (0..len - r).map(|i| ((i + 5 * r) as f64).sin()).collect());
         let x: Vec<f64> = (0..len * 8).map(|i| (i as f64 * 0.7).cos()).collect();
-        let w = [0, 1, 2, 3].map(|r| [0.0; TILE_LANES].map(|_| 1.0 / (1.0 + r as f64)));
+        let w = [0, 1, 2, 3].map(|r| [0.0; SUM_LANES].map(|_| 1.0 / (1.0 + r as f64)));
         let refs = [&rows[0][..], &rows[1][..], &rows[2][..], &rows[3][..]];
-        let (mut s1, mut s2) = ([[0f64; TILE_LANES]; 4], [[0f64; TILE_LANES]; 4]);
+        let (mut s1, mut s2) = ([[0f64; SUM_LANES]; 4], [[0f64; SUM_LANES]; 4]);
         let (mut g1, mut g2) = (vec![0.0; len * 8], vec![0.0; len * 8]);
         tile::<Fused, f64, 2>(refs, &x, 8, Some((&mut g1[..], &w)), &mut s1);
         portable_tile::<Fused, f64, 2>(refs, &x, 8, Some((&mut g2[..], &w)), &mut s2);

@@ -1,0 +1,156 @@
+//! The batch tile of [`crate::tile`] on 512-bit vectors, for processors with AVX-512F.
+//!
+//! Same sums as the AVX2 tile, for 16 or 32 lanes at once (G = 2 or 4 registers of eight
+//! lanes per row):
+//!
+//! ```text
+//! S[r][k] = sum_{u = r}^{len-1} a_r[u - r] X[u, k]        (k < 8 G)
+//! ```
+//!
+//! Per position u: G loads of X, four broadcasts and 4 G multiply-adds, so a coefficient is
+//! broadcast once for up to 32 points instead of once per 8. Each lane runs the same fused
+//! multiply-adds in the same order as in the AVX2 tile and the portable one (positions in
+//! order, zero coefficients before a row starts), so the three agree bit for bit and a batch
+//! gives the same energies on every x86-64 processor with FMA, whichever tile it takes.
+//! Only the energy batch uses it; the gradient tile stays on four lanes.
+
+use core::arch::x86_64::*;
+
+use crate::storage::Coef;
+use crate::tile::{check_tile, tile_coef, TileSums};
+
+/// True when the processor has AVX-512F besides AVX2 and FMA (checked once, then cached by
+/// std).
+#[inline]
+pub fn wide_tile_available() -> bool {
+    std::is_x86_feature_detected!("avx512f") && crate::simd::has_avx2_fma()
+}
+
+/// Prefetch distance, in bytes (the AVX2 tile's; see there).
+const AHEAD: usize = 4096;
+
+/// acc[r][k] += c[r] X[u, lanes 8k..8k+8] for the four rows.
+#[inline(always)]
+#[allow(clippy::needless_range_loop)] // r and k index rows and lanes of several arrays
+unsafe fn sums<const G: usize>(acc: &mut [[__m512d; G]; 4], c: [__m512d; 4], row: *const f64) {
+    let mut xv = [_mm512_setzero_pd(); G];
+    for k in 0..G {
+        xv[k] = _mm512_loadu_pd(row.add(8 * k));
+    }
+    for r in 0..4 {
+        for k in 0..G {
+            acc[r][k] = _mm512_fmadd_pd(c[r], xv[k], acc[r][k]);
+        }
+    }
+}
+
+/// The coefficients of the four rows at position u, broadcast; zeros for rows that have not
+/// started (only when `EARLY`, for u < 3).
+#[inline(always)]
+unsafe fn coefs<T: Coef, const EARLY: bool>(rows: &[&[T]; 4], u: usize) -> [__m512d; 4] {
+    // written out: a closure would not inherit the target features and would not inline
+    if EARLY {
+        [
+            _mm512_set1_pd(tile_coef(rows, 0, u)),
+            _mm512_set1_pd(tile_coef(rows, 1, u)),
+            _mm512_set1_pd(tile_coef(rows, 2, u)),
+            _mm512_set1_pd(tile_coef(rows, 3, u)),
+        ]
+    } else {
+        [
+            _mm512_set1_pd((*rows[0].as_ptr().add(u)).to_f64()),
+            _mm512_set1_pd((*rows[1].as_ptr().add(u - 1)).to_f64()),
+            _mm512_set1_pd((*rows[2].as_ptr().add(u - 2)).to_f64()),
+            _mm512_set1_pd((*rows[3].as_ptr().add(u - 3)).to_f64()),
+        ]
+    }
+}
+
+/// The tile sums S of the module doc for 8 G lanes (G = 2 or 4), written to `s[r][..8 G]`.
+///
+/// # Safety
+/// The processor must have AVX-512F, AVX2 and FMA ([`wide_tile_available`]).
+#[target_feature(enable = "avx512f,avx2,fma")]
+#[allow(clippy::needless_range_loop)] // r and k index rows and lanes of several arrays
+pub unsafe fn wide_tile<T: Coef, const G: usize>(
+    rows: [&[T]; 4],
+    x: &[f64],
+    stride: usize,
+    s: &mut TileSums,
+) {
+    const { assert!(G == 2 || G == 4) };
+    let len = check_tile(&rows, x, stride, 8 * G);
+    let head = len.min(3);
+    // SAFETY (for the caller's processor, see above): row u of X covers [u*stride,
+    // u*stride + 8G), inside `x` by `check_tile`; row r is read at u - r < len - r, its
+    // length; a prefetch never faults.
+    let px = x.as_ptr();
+    let mut acc = [[_mm512_setzero_pd(); G]; 4];
+    for u in 0..head {
+        sums(&mut acc, coefs::<T, true>(&rows, u), px.add(u * stride));
+    }
+    let mut pf = (rows[0].as_ptr() as *const u8).wrapping_add(AHEAD);
+    let step = 4 * std::mem::size_of::<T>();
+    for u in head..len {
+        _mm_prefetch::<_MM_HINT_T0>(pf as *const i8);
+        pf = pf.wrapping_add(step);
+        sums(&mut acc, coefs::<T, false>(&rows, u), px.add(u * stride));
+    }
+    for r in 0..4 {
+        for k in 0..G {
+            _mm512_storeu_pd(s[r].as_mut_ptr().add(8 * k), acc[r][k]);
+        }
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use crate::simd::Fused;
+    use crate::tile::{tile, SUM_LANES};
+
+    /// Every lane of the wide tile equals the AVX2 tile's (eight lanes at a time) bit for
+    /// bit, for row lengths around the three-position head and both storage types.
+    fn check<T: Coef, const G: usize>(len: usize) {
+        let lanes = 8 * G;
+        let stride = lanes + 5;
+        let rows: [Vec<T>; 4] = [0, 1, 2, 3].map(|r| {
+            (0..len.saturating_sub(r))
+                .map(|i| T::from_f64(((i * 5 + r * 11) as f64 * 0.37).sin()))
+                .collect()
+        });
+        let refs = [&rows[0][..], &rows[1][..], &rows[2][..], &rows[3][..]];
+        let x: Vec<f64> = (0..len.max(1) * stride)
+            .map(|i| (i as f64 * 0.29).cos() - 0.1)
+            .collect();
+        let mut wide = [[f64::NAN; SUM_LANES]; 4];
+        unsafe { wide_tile::<T, G>(refs, &x, stride, &mut wide) };
+        for g0 in (0..lanes).step_by(8) {
+            let mut narrow = [[f64::NAN; SUM_LANES]; 4];
+            tile::<Fused, T, 2>(refs, &x[g0..], stride, None, &mut narrow);
+            for r in 0..4 {
+                for k in 0..8 {
+                    assert_eq!(
+                        wide[r][g0 + k].to_bits(),
+                        narrow[r][k].to_bits(),
+                        "len {len} row {r} lane {}",
+                        g0 + k
+                    );
+                }
+            }
+        }
+    }
+
+    #[test]
+    fn wide_tile_matches_the_avx2_tile_bit_for_bit() {
+        if !wide_tile_available() {
+            eprintln!("no AVX-512F on this processor: wide tile not tested");
+            return;
+        }
+        for len in [0, 1, 2, 3, 4, 5, 9, 40] {
+            check::<f64, 2>(len);
+            check::<f64, 4>(len);
+            check::<f32, 4>(len);
+        }
+    }
+}
