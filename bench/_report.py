@@ -145,13 +145,21 @@ def host_check_text(check: dict) -> str:
     return "\n".join(lines)
 
 
+def _wide_tile(cpu: dict) -> str:
+    # the batch energy tile takes 512-bit vectors where the processor has AVX-512F
+    simd = cpu.get("simd")
+    if simd is None:
+        return ""
+    return " (+avx512 batch tile)" if "avx512f" in simd else ""
+
+
 def meta_text(meta: dict) -> str:
     """Short description of the machine and settings."""
     cpu = meta["cpu"]
     v = meta["versions"]
     return (
         f"date {meta['date_utc']}  cpu {cpu.get('model')} ({cpu.get('usable_cpus')} usable)  "
-        f"threads {meta['threads']}  kernel_path {meta['kernel_path']}\n"
+        f"threads {meta['threads']}  kernel_path {meta['kernel_path']}{_wide_tile(cpu)}\n"
         f"numpy {v['numpy']}  scipy {v['scipy']}  opt_einsum {v['opt_einsum']}  "
         f"torch {v['torch']}  load average at start {meta['load_average_start']}  "
         f"other processes' cores at start {_num(meta.get('other_processes_cores_start'), '.2f')}"
