@@ -11,7 +11,7 @@ use core::arch::x86_64::*;
 use crate::simd::Fused;
 use crate::stagger::{check_rows, lane_from, short_stagger4, split_update, HessRows, Rows4, Steps};
 use crate::storage::Coef;
-use crate::tile::{check_tile, tile_coef, TileSums};
+use crate::tile::{check_tile, tile_coef, TileSums, TILE_AHEAD};
 
 #[inline(always)]
 unsafe fn hsum(v: __m256d) -> f64 {
@@ -585,13 +585,6 @@ pub fn tile<T: Coef, const G: usize>(
         }
     }
 }
-
-/// Prefetch distance of the batch tile, in bytes. The tile reads its four rows (back to back
-/// in memory) one coefficient each per position, four slow interleaved streams that the
-/// hardware prefetcher followed poorly on a Xeon with a large, slow L3: without the software
-/// prefetch a batch of 4 points at p = 3, n = 400 took 9.0 ms on two threads, with it 5.8 ms
-/// (1024 bytes: 6.6 ms, 2048: 5.9 ms).
-const TILE_AHEAD: usize = 4096;
 
 /// Prefetch distance of [`stagger4`], in bytes.
 const PREFETCH: usize = 2048;

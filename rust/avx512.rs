@@ -17,7 +17,7 @@
 use core::arch::x86_64::*;
 
 use crate::storage::Coef;
-use crate::tile::{check_tile, tile_coef, TileSums};
+use crate::tile::{check_tile, tile_coef, TileSums, TILE_AHEAD};
 
 /// True when the processor has AVX-512F besides AVX2 and FMA (checked once, then cached by
 /// std).
@@ -25,9 +25,6 @@ use crate::tile::{check_tile, tile_coef, TileSums};
 pub fn wide_tile_available() -> bool {
     std::is_x86_feature_detected!("avx512f") && crate::simd::has_avx2_fma()
 }
-
-/// Prefetch distance, in bytes (the AVX2 tile's; see there).
-const AHEAD: usize = 4096;
 
 /// acc[r][k] += c[r] X[u, lanes 8k..8k+8] for the four rows.
 #[inline(always)]
@@ -89,7 +86,7 @@ pub unsafe fn wide_tile<T: Coef, const G: usize>(
     for u in 0..head {
         sums(&mut acc, coefs::<T, true>(&rows, u), px.add(u * stride));
     }
-    let mut pf = (rows[0].as_ptr() as *const u8).wrapping_add(AHEAD);
+    let mut pf = (rows[0].as_ptr() as *const u8).wrapping_add(TILE_AHEAD);
     let step = 4 * std::mem::size_of::<T>();
     for u in head..len {
         _mm_prefetch::<_MM_HINT_T0>(pf as *const i8);

@@ -220,7 +220,7 @@ simd_dispatch!(fn batch_item => batch_item_body(
     run: (&Exec, Option<WideTile>)) -> ());
 
 /// The batch of b points; `wide` lets the energy-only tile take 16 or 32 lanes at once
-/// (same bits per lane as without it).
+/// (same bits per lane as without it; `block_pass` never uses it with gradients).
 fn run_batch<T: Coef>(
     exec: &Exec,
     poly: &Packed<T>,
@@ -228,7 +228,6 @@ fn run_batch<T: Coef>(
     b: usize,
     (want_grad, wide): (bool, Option<WideTile>),
 ) -> Result<(Vec<f64>, Vec<f64>), CoreError> {
-    let wide = wide.filter(|_| !want_grad);
     let n = poly.n();
     let len = b.checked_mul(n).ok_or_else(|| CoreError::SizeOverflow {
         what: format!("batch of {b} points"),

@@ -26,6 +26,13 @@ pub const TILE_LANES: usize = 8;
 /// Widest lane group of any tile (the AVX-512 tile of `crate::avx512`: 32 lanes).
 pub const SUM_LANES: usize = 32;
 
+/// Prefetch distance of the AVX2 and AVX-512 tiles, in bytes. A tile reads its four rows
+/// (back to back in memory) one coefficient each per position, four slow interleaved streams
+/// that the hardware prefetcher followed poorly on a Xeon with a large, slow L3: without the
+/// software prefetch a batch of 4 points at p = 3, n = 400 took 9.0 ms on two threads, with
+/// it 5.8 ms (1024 bytes: 6.6 ms, 2048: 5.9 ms).
+pub(crate) const TILE_AHEAD: usize = 4096;
+
 /// Four sums per lane, one per row (lanes past the tile's width are left alone).
 pub type TileSums = [[f64; SUM_LANES]; 4];
 
