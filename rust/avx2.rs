@@ -237,20 +237,32 @@ pub fn dot2_axpy<T: Coef>(a: &[T], x: &[f64], v: &[f64], w: &mut [f64], alpha: f
     }
 }
 
-/// Coefficients per 64-byte line of float32 storage: the four-segment loops below issue one
-/// software prefetch per segment and line.
-const WIDE_LINE: usize = 16;
-/// How far ahead (in coefficients, 1 KiB of float32) those prefetches reach. With the
-/// hardware prefetcher alone the two-thread float32 passes read at 0.80-0.95 of the probe's
-/// rate, where float64 reaches 1.0. Measured at p = 3, n = 800, two threads, medians of 8-12
-/// alternating runs: energy 4-6 % and gradient 2-3 % faster, HVP unchanged; 128 and 512
-/// floats ahead did no better.
-const WIDE_AHEAD: usize = 256;
+/// How far ahead (in coefficients: 1 KiB of float32, 2 KiB of float64) the four-segment
+/// loops below prefetch each segment, one software prefetch per segment and 64-byte line.
+/// The four segments are streams some hundred kilobytes apart, which the hardware prefetcher
+/// alone does not run far enough ahead of. float32 first (p = 3, n = 800, two threads,
+/// medians of 8-12 alternating runs): energy 4-6 % and gradient 2-3 % faster, HVP unchanged;
+/// 128 and 512 floats ahead did no better. float64 later (on a Xeon, medians of 5
+/// alternating runs, with huge pages, see [`crate::pages`]): p = 3, n = 400 energy 3.04 ->
+/// 2.66 ms, gradient 2.88 -> 2.47, Hessian 4.43 -> 4.10, HVP 3.40 -> 2.63; n = 800 (read
+/// from memory) 2-8 % faster.
+const AHEAD: usize = 256;
 /// Shortest segments that prefetch. Without this floor the short segments of degree 4 and
 /// up (about 30 long at n = 120) ran 3-5 % slower; with 64 the p = 4, n = 120 float32
 /// energy still lost 2.6 %, with 128 it is unchanged (within 1.5 %) while p = 3, n = 800
 /// keeps its gain.
-const WIDE_MIN_LEN: usize = 128;
+const AHEAD_MIN_LEN: usize = 128;
+
+/// Prefetches the line `AHEAD` coefficients past position i of each segment, once per line
+/// (a prefetch is a hint: the address may lie past the segment and never faults).
+#[inline(always)]
+unsafe fn prefetch_segments<T: Coef>(pa: &[*const T; 4], i: usize) {
+    if i.is_multiple_of(64 / std::mem::size_of::<T>()) {
+        for p in pa {
+            _mm_prefetch::<_MM_HINT_T0>(p.wrapping_add(i + AHEAD) as *const i8);
+        }
+    }
+}
 
 /// Four segments at once: s_j = sum_t a_j,t x_t (and, with `v`, sum_t a_j,t v_t),
 /// z_t += w_0 a_0,t + w_1 a_1,t + w_2 a_2,t + w_3 a_3,t, summed as in
@@ -275,16 +287,13 @@ fn dots_axpy4<T: Coef, const WITH_V: bool, const WITH_Z: bool>(
         let wv = splat4(w);
         let mut ax = [_mm256_setzero_pd(); 4];
         let mut av = [_mm256_setzero_pd(); 4];
-        let prefetch = T::WIDENS && len >= WIDE_MIN_LEN;
+        let prefetch = len >= AHEAD_MIN_LEN;
         let mut i = 0;
         while i + 4 <= len {
             let xt = _mm256_loadu_pd(px.add(i));
             let mut c = [_mm256_setzero_pd(); 4];
-            if prefetch && i % WIDE_LINE == 0 {
-                for p in pa {
-                    let ahead = p.wrapping_add(i + WIDE_AHEAD); // a hint: never faults
-                    _mm_prefetch::<_MM_HINT_T0>(ahead as *const i8);
-                }
+            if prefetch {
+                prefetch_segments(&pa, i);
             }
             for j in 0..4 {
                 c[j] = T::load4(pa[j].add(i));
@@ -412,8 +421,12 @@ fn rows4_shared<T: Coef, const TWO: bool>(
         );
         let xv = splat4(xi);
         let mut acc = [_mm256_setzero_pd(); 4];
+        let prefetch = len >= AHEAD_MIN_LEN;
         let mut i = 0;
         while i + 4 <= len {
+            if prefetch {
+                prefetch_segments(&pa, i);
+            }
             let xt = _mm256_loadu_pd(px.add(i));
             let mut c = [_mm256_setzero_pd(); 4];
             for j in 0..4 {

@@ -97,7 +97,8 @@ impl fmt::Display for CoreError {
 
 impl std::error::Error for CoreError {}
 
-/// Allocate a zeroed `Vec<f64>`-like buffer without aborting on failure.
+/// Allocate a zeroed `Vec<f64>`-like buffer without aborting on failure (with huge pages
+/// when large, see [`crate::pages`]).
 pub(crate) fn try_zeroed<T: Copy + Default>(len: usize) -> Result<Vec<T>, CoreError> {
     let bytes =
         len.checked_mul(std::mem::size_of::<T>())
@@ -107,6 +108,7 @@ pub(crate) fn try_zeroed<T: Copy + Default>(len: usize) -> Result<Vec<T>, CoreEr
     let mut v = Vec::new();
     v.try_reserve_exact(len)
         .map_err(|_| CoreError::AllocationFailed { bytes })?;
+    crate::pages::advise_huge(&mut v);
     v.resize(len, T::default());
     Ok(v)
 }

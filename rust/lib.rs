@@ -15,6 +15,7 @@ pub mod combinatorics;
 pub mod error;
 pub mod exec;
 pub mod kernels;
+mod pages;
 pub mod partition;
 mod quads;
 pub mod sampling;

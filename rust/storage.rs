@@ -173,6 +173,7 @@ impl<T: Coef> Packed<T> {
                 .map_err(|_| CoreError::AllocationFailed {
                     bytes: len * std::mem::size_of::<T>(),
                 })?;
+            crate::pages::advise_huge(&mut coeffs);
             coeffs.extend(data.iter().map(|&v| T::from_f64(v)));
             blocks.push(Block {
                 degree: p,
