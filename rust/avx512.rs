@@ -12,7 +12,14 @@
 //! multiply-adds in the same order as in the AVX2 tile and the portable one (positions in
 //! order, zero coefficients before a row starts), so the three agree bit for bit and a batch
 //! gives the same energies on every x86-64 processor with FMA, whichever tile it takes.
-//! Only the energy batch uses it; the gradient tile stays on four lanes.
+//!
+//! With a gradient it also spreads the rows into G, as the AVX2 tile does, per lane:
+//!
+//! ```text
+//! G[u, k] += (a_0 W[0][k] + a_1 W[1][k]) + (a_2 W[2][k] + a_3 W[3][k])
+//! ```
+//!
+//! with the coefficients a_r of the four rows at position u (zero before a row starts).
 
 use core::arch::x86_64::*;
 
@@ -41,6 +48,18 @@ unsafe fn sums<const G: usize>(acc: &mut [[__m512d; G]; 4], c: [__m512d; 4], row
     }
 }
 
+/// G[u, lanes] += (c0 w0 + c1 w1) + (c2 w2 + c3 w3), in the AVX2 tile's order.
+#[inline(always)]
+#[allow(clippy::needless_range_loop)] // r and k index rows and lanes of several arrays
+unsafe fn spread<const G: usize>(wv: &[[__m512d; G]; 4], c: [__m512d; 4], row: *mut f64) {
+    for k in 0..G {
+        let t01 = _mm512_fmadd_pd(c[1], wv[1][k], _mm512_mul_pd(c[0], wv[0][k]));
+        let t23 = _mm512_fmadd_pd(c[3], wv[3][k], _mm512_mul_pd(c[2], wv[2][k]));
+        let gv = _mm512_loadu_pd(row.add(8 * k));
+        _mm512_storeu_pd(row.add(8 * k), _mm512_add_pd(gv, _mm512_add_pd(t01, t23)));
+    }
+}
+
 /// The coefficients of the four rows at position u, broadcast; zeros for rows that have not
 /// started (only when `EARLY`, for u < 3).
 #[inline(always)]
@@ -63,7 +82,9 @@ unsafe fn coefs<T: Coef, const EARLY: bool>(rows: &[&[T]; 4], u: usize) -> [__m5
     }
 }
 
-/// The tile sums S of the module doc for 8 G lanes (G = 2 or 4), written to `s[r][..8 G]`.
+/// The tile sums S of the module doc for 8 G lanes (G = 2 or 4), written to `s[r][..8 G]`,
+/// and with `grad = Some((g, w))` the spread of the rows into G (laid out like X) with the
+/// weights `w[r][..8 G]`.
 ///
 /// # Safety
 /// The processor must have AVX-512F, AVX2 and FMA ([`wide_tile_available`]).
@@ -73,25 +94,52 @@ pub unsafe fn wide_tile<T: Coef, const G: usize>(
     rows: [&[T]; 4],
     x: &[f64],
     stride: usize,
+    grad: Option<(&mut [f64], &TileSums)>,
     s: &mut TileSums,
 ) {
     const { assert!(G == 2 || G == 4) };
     let len = check_tile(&rows, x, stride, 8 * G);
     let head = len.min(3);
-    // SAFETY (for the caller's processor, see above): row u of X covers [u*stride,
-    // u*stride + 8G), inside `x` by `check_tile`; row r is read at u - r < len - r, its
-    // length; a prefetch never faults.
+    // SAFETY (for the caller's processor, see above): row u of X (and of G, asserted below)
+    // covers [u*stride, u*stride + 8G), inside `x` by `check_tile`; row r is read at
+    // u - r < len - r, its length; a prefetch never faults.
     let px = x.as_ptr();
     let mut acc = [[_mm512_setzero_pd(); G]; 4];
-    for u in 0..head {
-        sums(&mut acc, coefs::<T, true>(&rows, u), px.add(u * stride));
-    }
     let mut pf = (rows[0].as_ptr() as *const u8).wrapping_add(TILE_AHEAD);
     let step = 4 * std::mem::size_of::<T>();
-    for u in head..len {
-        _mm_prefetch::<_MM_HINT_T0>(pf as *const i8);
-        pf = pf.wrapping_add(step);
-        sums(&mut acc, coefs::<T, false>(&rows, u), px.add(u * stride));
+    match grad {
+        None => {
+            for u in 0..head {
+                sums(&mut acc, coefs::<T, true>(&rows, u), px.add(u * stride));
+            }
+            for u in head..len {
+                _mm_prefetch::<_MM_HINT_T0>(pf as *const i8);
+                pf = pf.wrapping_add(step);
+                sums(&mut acc, coefs::<T, false>(&rows, u), px.add(u * stride));
+            }
+        }
+        Some((g, w)) => {
+            assert!(len == 0 || g.len() >= (len - 1) * stride + 8 * G);
+            let pg = g.as_mut_ptr();
+            let mut wv = [[_mm512_setzero_pd(); G]; 4];
+            for r in 0..4 {
+                for k in 0..G {
+                    wv[r][k] = _mm512_loadu_pd(w[r].as_ptr().add(8 * k));
+                }
+            }
+            for u in 0..head {
+                let c = coefs::<T, true>(&rows, u);
+                sums(&mut acc, c, px.add(u * stride));
+                spread(&wv, c, pg.add(u * stride));
+            }
+            for u in head..len {
+                _mm_prefetch::<_MM_HINT_T0>(pf as *const i8);
+                pf = pf.wrapping_add(step);
+                let c = coefs::<T, false>(&rows, u);
+                sums(&mut acc, c, px.add(u * stride));
+                spread(&wv, c, pg.add(u * stride));
+            }
+        }
     }
     for r in 0..4 {
         for k in 0..G {
@@ -106,8 +154,9 @@ mod tests {
     use crate::simd::Fused;
     use crate::tile::{tile, SUM_LANES};
 
-    /// Every lane of the wide tile equals the AVX2 tile's (eight lanes at a time) bit for
-    /// bit, for row lengths around the three-position head and both storage types.
+    /// Every lane of the wide tile equals the AVX2 tile's bit for bit, sums (eight lanes at
+    /// a time) and, with a gradient, the spread into G (four lanes at a time, as the batch
+    /// runs it), for row lengths around the three-position head and both storage types.
     fn check<T: Coef, const G: usize>(len: usize) {
         let lanes = 8 * G;
         let stride = lanes + 5;
@@ -121,7 +170,36 @@ mod tests {
             .map(|i| (i as f64 * 0.29).cos() - 0.1)
             .collect();
         let mut wide = [[f64::NAN; SUM_LANES]; 4];
-        unsafe { wide_tile::<T, G>(refs, &x, stride, &mut wide) };
+        unsafe { wide_tile::<T, G>(refs, &x, stride, None, &mut wide) };
+        let w: TileSums = [0, 1, 2, 3].map(|r| {
+            let mut lane = [0f64; SUM_LANES];
+            for (k, v) in lane.iter_mut().enumerate() {
+                *v = ((r * 40 + k) as f64 * 0.61).sin();
+            }
+            lane
+        });
+        let g_start: Vec<f64> = (0..x.len()).map(|i| (i as f64 * 0.17).sin()).collect();
+        let (mut g_wide, mut g_narrow) = (g_start.clone(), g_start.clone());
+        let mut with_grad = [[f64::NAN; SUM_LANES]; 4];
+        unsafe { wide_tile::<T, G>(refs, &x, stride, Some((&mut g_wide, &w)), &mut with_grad) };
+        let bits = |t: &TileSums| t.map(|row| row.map(f64::to_bits));
+        assert_eq!(
+            bits(&with_grad),
+            bits(&wide),
+            "a gradient does not change the sums"
+        );
+        for g0 in (0..lanes).step_by(4) {
+            let mut w4 = [[0f64; SUM_LANES]; 4];
+            for r in 0..4 {
+                w4[r][..4].copy_from_slice(&w[r][g0..g0 + 4]);
+            }
+            let mut sink = [[0f64; SUM_LANES]; 4];
+            let grad = Some((&mut g_narrow[g0..], &w4));
+            tile::<Fused, T, 1>(refs, &x[g0..], stride, grad, &mut sink);
+        }
+        for (i, (a, b)) in g_wide.iter().zip(&g_narrow).enumerate() {
+            assert_eq!(a.to_bits(), b.to_bits(), "len {len} G entry {i}");
+        }
         for g0 in (0..lanes).step_by(8) {
             let mut narrow = [[f64::NAN; SUM_LANES]; 4];
             tile::<Fused, T, 2>(refs, &x[g0..], stride, None, &mut narrow);

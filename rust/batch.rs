@@ -124,21 +124,28 @@ fn block_pass<M: Madd, T: Coef>(
         let left = stride - g0;
         let wide_lanes = WideTile::LANES.into_iter().find(|&l| l <= left);
         let lanes = match (wide, wide_lanes) {
-            (Some(_), Some(l)) if !want_grad => l,
+            (Some(_), Some(l)) => l,
             _ if want_grad || left < 8 => 4,
             _ => 8,
         };
         let xs = &xt[x0 + g0..];
-        if lanes > 8 {
-            wide.expect("wide lanes only with a WideTile")
-                .sums(lanes, slices, xs, stride, &mut s);
-        } else if want_grad {
+        if want_grad {
             for r in 0..active {
                 for l in 0..lanes {
                     w[r][l] = products.base[g0 + l] * xt[x0 + r * stride + g0 + l];
                 }
             }
-            tile::<M, T, 1>(slices, xs, stride, Some((&mut g[x0 + g0..], &w)), &mut s);
+        }
+        let grad = if want_grad {
+            Some((&mut g[x0 + g0..], &w))
+        } else {
+            None
+        };
+        if lanes > 8 {
+            wide.expect("wide lanes only with a WideTile")
+                .run(lanes, slices, xs, stride, grad, &mut s);
+        } else if want_grad {
+            tile::<M, T, 1>(slices, xs, stride, grad, &mut s);
         } else if lanes == 8 {
             tile::<M, T, 2>(slices, xs, stride, None, &mut s);
         } else {
@@ -219,8 +226,8 @@ simd_dispatch!(fn batch_item => batch_item_body(
     n: usize, a: &[T], it: &WorkItem, xt: &[f64], e: &mut [f64], g: &mut [f64],
     run: (&Exec, Option<WideTile>)) -> ());
 
-/// The batch of b points; `wide` lets the energy-only tile take 16 or 32 lanes at once
-/// (same bits per lane as without it; `block_pass` never uses it with gradients).
+/// The batch of b points; `wide` lets the tile take 16 or 32 lanes at once (same bits per
+/// lane as without it, energies and gradients alike).
 fn run_batch<T: Coef>(
     exec: &Exec,
     poly: &Packed<T>,
@@ -295,7 +302,7 @@ pub fn energy_gradient_batch<T: Coef>(
         }
         return Ok((es, gs));
     }
-    run_batch(exec, poly, xs, b, (true, None))
+    run_batch(exec, poly, xs, b, (true, WideTile::detect()))
 }
 
 /// Hessian-vector products of an item for k directions `vs` (k x n) added to `w` (k x n).
@@ -383,8 +390,8 @@ mod tests {
     use crate::kernels::{hvp, pieces};
     use crate::sampling::Disorder;
 
-    /// The wide tile gives every point the same bits as the AVX2 tile: batches whose lanes
-    /// split into 32, 16, 8 and 4, for both storage types.
+    /// The wide tile gives every point the same bits as the AVX2 tile, energies and
+    /// gradients: batches whose lanes split into 32, 16, 8 and 4, for both storage types.
     #[test]
     fn wide_tile_batch_is_bitwise_the_narrow_one() {
         let Some(wide) = WideTile::detect() else {
@@ -398,6 +405,20 @@ mod tests {
             assert_eq!(w.len(), b);
             for (beta, (a, c)) in w.iter().zip(&nw).enumerate() {
                 assert_eq!(a.to_bits(), c.to_bits(), "{} b {b} point {beta}", T::NAME);
+            }
+            let (we, wg) = run_batch(&p, poly, xs, b, (true, Some(wide))).unwrap();
+            let (ne, ng) = run_batch(&p, poly, xs, b, (true, None)).unwrap();
+            assert_eq!((we.len(), wg.len()), (b, xs.len()));
+            for (beta, (a, c)) in we.iter().zip(&ne).enumerate() {
+                assert_eq!(a.to_bits(), c.to_bits(), "{} b {b} energy {beta}", T::NAME);
+            }
+            for (i, (a, c)) in wg.iter().zip(&ng).enumerate() {
+                assert_eq!(
+                    a.to_bits(),
+                    c.to_bits(),
+                    "{} b {b} gradient entry {i}",
+                    T::NAME
+                );
             }
         }
         let terms = [(2usize, 1.0), (3, 0.6), (4, 0.4)];

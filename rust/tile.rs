@@ -129,14 +129,16 @@ impl WideTile {
         None
     }
 
-    /// The tile sums of the module doc for `lanes` (32 or 16) lanes, into `s[r][..lanes]`.
+    /// The tile of the module doc for `lanes` (32 or 16) lanes: sums into `s[r][..lanes]`
+    /// and, with `grad`, the spread into G.
     #[inline]
-    pub fn sums<T: Coef>(
+    pub fn run<T: Coef>(
         self,
         lanes: usize,
         rows: [&[T]; 4],
         x: &[f64],
         stride: usize,
+        grad: Option<(&mut [f64], &TileSums)>,
         s: &mut TileSums,
     ) {
         assert!(Self::LANES.contains(&lanes), "wide tile of {lanes} lanes");
@@ -144,13 +146,16 @@ impl WideTile {
         // SAFETY: a `WideTile` only exists where `wide_tile_available()` held.
         unsafe {
             if lanes == 32 {
-                crate::avx512::wide_tile::<T, 4>(rows, x, stride, s);
+                crate::avx512::wide_tile::<T, 4>(rows, x, stride, grad, s);
             } else {
-                crate::avx512::wide_tile::<T, 2>(rows, x, stride, s);
+                crate::avx512::wide_tile::<T, 2>(rows, x, stride, grad, s);
             }
         }
         #[cfg(not(target_arch = "x86_64"))]
-        unreachable!("no WideTile exists off x86-64: {lanes} {rows:?} {x:?} {stride} {s:?}");
+        unreachable!(
+            "no WideTile exists off x86-64: {lanes} {rows:?} {x:?} {stride} {s:?} {:?}",
+            grad.is_some()
+        );
     }
 }
 

@@ -67,7 +67,11 @@ def test_wide_batches_match_dense_reference(b, dtype, rng):
     tensors = reference.dense_tensors(ham)
     xs = unit(rng.standard_normal((b, 21)))
     want = [reference.energy(tensors, p) for p in xs]
-    _close(ham.energy(xs), want, 1.0 + np.abs(want).max())
+    scale = 1.0 + np.abs(want).max()
+    _close(ham.energy(xs), want, scale)
+    e, g = ham.energy_and_gradient(xs)
+    _close(e, want, scale)
+    _close(g, np.stack([reference.gradient(tensors, p) for p in xs]), scale)
 
 
 def test_energy_gradient_agree_with_central_differences(rng):
