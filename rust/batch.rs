@@ -151,25 +151,54 @@ fn block_pass<M: Madd, T: Coef>(
         } else {
             tile::<M, T, 1>(slices, xs, stride, None, &mut s);
         }
-        for l in 0..lanes {
-            let beta = g0 + l;
-            let mut total = 0.0;
-            for (r, sr) in s.iter().enumerate().take(active) {
-                total = M::madd(xt[x0 + r * stride + beta], sr[l], total);
-            }
-            e[beta] = M::madd(products.base[beta], total, e[beta]);
-            if want_grad {
-                for (r, sr) in s.iter().enumerate().take(active) {
-                    let at = x0 + r * stride + beta;
-                    g[at] = M::madd(products.base[beta], sr[l], g[at]);
-                }
-                for (m, &i) in lead.iter().enumerate() {
-                    let at = i * stride + beta;
-                    g[at] = M::madd(products.loo[m * stride + beta], total, g[at]);
-                }
-            }
-        }
+        combine_lanes::<M>((x0, g0, lanes, active), &s, (lead, products), xt, e, g);
         g0 += lanes;
+    }
+}
+
+/// The per-lane sums after a tile over lanes g0..g0+lanes of the block at row offset x0
+/// (`active` real rows): T = sum_r X[k + r] S_r (r in order), E += base T, and with
+/// gradients G[k + r] += base S_r, then G[lead_m] += loo_m T (m in order). Each lane gets the
+/// same operations in the same order as a lane-by-lane loop; written as loops over whole
+/// lane ranges (no closures, no bounds checks inside) so that they vectorize: the scalar
+/// version was about a sixth of a 32-point batch at p = 3, n = 400.
+#[inline(always)]
+fn combine_lanes<M: Madd>(
+    (x0, g0, lanes, active): (usize, usize, usize, usize),
+    s: &TileSums,
+    (lead, products): (&[usize], &Leading),
+    xt: &[f64],
+    e: &mut [f64],
+    g: &mut [f64],
+) {
+    let stride = e.len();
+    let mut total = [0f64; SUM_LANES];
+    let total = &mut total[..lanes];
+    for (r, sr) in s.iter().enumerate().take(active) {
+        let xr = &xt[x0 + r * stride + g0..][..lanes];
+        for ((t, &xv), &sv) in total.iter_mut().zip(xr).zip(&sr[..lanes]) {
+            *t = M::madd(xv, sv, *t);
+        }
+    }
+    let base = &products.base[g0..g0 + lanes];
+    for ((ev, &bv), &t) in e[g0..g0 + lanes].iter_mut().zip(base).zip(total.iter()) {
+        *ev = M::madd(bv, t, *ev);
+    }
+    if g.is_empty() {
+        return;
+    }
+    for (r, sr) in s.iter().enumerate().take(active) {
+        let at = x0 + r * stride + g0;
+        for ((gv, &bv), &sv) in g[at..at + lanes].iter_mut().zip(base).zip(&sr[..lanes]) {
+            *gv = M::madd(bv, sv, *gv);
+        }
+    }
+    for (m, &i) in lead.iter().enumerate() {
+        let at = i * stride + g0;
+        let loo = &products.loo[m * stride + g0..][..lanes];
+        for ((gv, &lv), &t) in g[at..at + lanes].iter_mut().zip(loo).zip(total.iter()) {
+            *gv = M::madd(lv, t, *gv);
+        }
     }
 }
 
