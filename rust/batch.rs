@@ -129,27 +129,23 @@ fn block_pass<M: Madd, T: Coef>(
             _ => 8,
         };
         let xs = &xt[x0 + g0..];
-        if want_grad {
+        let grad = if want_grad {
             for r in 0..active {
                 for l in 0..lanes {
                     w[r][l] = products.base[g0 + l] * xt[x0 + r * stride + g0 + l];
                 }
             }
-        }
-        let grad = if want_grad {
             Some((&mut g[x0 + g0..], &w))
         } else {
             None
         };
-        if lanes > 8 {
-            wide.expect("wide lanes only with a WideTile")
-                .run(lanes, slices, xs, stride, grad, &mut s);
-        } else if want_grad {
-            tile::<M, T, 1>(slices, xs, stride, grad, &mut s);
-        } else if lanes == 8 {
-            tile::<M, T, 2>(slices, xs, stride, None, &mut s);
-        } else {
-            tile::<M, T, 1>(slices, xs, stride, None, &mut s);
+        // 8 lanes only come without gradients (see `lanes` above)
+        match lanes {
+            8 => tile::<M, T, 2>(slices, xs, stride, grad, &mut s),
+            4 => tile::<M, T, 1>(slices, xs, stride, grad, &mut s),
+            _ => wide
+                .expect("wide lanes only with a WideTile")
+                .run(lanes, slices, xs, stride, grad, &mut s),
         }
         combine_lanes::<M>((x0, g0, lanes, active), &s, (lead, products), xt, e, g);
         g0 += lanes;
