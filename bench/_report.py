@@ -146,7 +146,7 @@ def host_check_text(check: dict) -> str:
 
 
 def _wide_tile(cpu: dict) -> str:
-    # the batch energy tile takes 512-bit vectors where the processor has AVX-512F
+    # batches of 16+ points take the 512-bit tile where the processor has AVX-512F
     simd = cpu.get("simd")
     if simd is None:
         return ""
