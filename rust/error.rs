@@ -97,18 +97,42 @@ impl fmt::Display for CoreError {
 
 impl std::error::Error for CoreError {}
 
-/// Allocate a zeroed `Vec<f64>`-like buffer without aborting on failure (with huge pages
-/// when large, see [`crate::pages`]).
-pub(crate) fn try_zeroed<T: Copy + Default>(len: usize) -> Result<Vec<T>, CoreError> {
-    let bytes =
-        len.checked_mul(std::mem::size_of::<T>())
-            .ok_or_else(|| CoreError::SizeOverflow {
-                what: format!("{len} elements"),
-            })?;
-    let mut v = Vec::new();
-    v.try_reserve_exact(len)
-        .map_err(|_| CoreError::AllocationFailed { bytes })?;
+/// Element types whose all-zero bit pattern is the value zero, so a buffer of them can come
+/// zeroed from the allocator.
+///
+/// # Safety
+/// Implement only for types for which every byte being 0 is a valid value.
+pub unsafe trait ZeroBits: Copy {}
+// SAFETY: 0.0, 0.0 and 0 are all-zero bit patterns.
+unsafe impl ZeroBits for f64 {}
+unsafe impl ZeroBits for f32 {}
+unsafe impl ZeroBits for i64 {}
+
+/// Allocate a zeroed buffer of `len` elements without aborting on failure.
+///
+/// The memory comes zeroed from the allocator (for large buffers, fresh pages that the
+/// kernel zeroes when they are first touched), so nothing is written here: the first writes,
+/// often by the worker threads of a pass that checks for Ctrl-C between chunks, fault the
+/// pages in. Large buffers ask for huge pages before that (see [`crate::pages`]).
+pub(crate) fn try_zeroed<T: ZeroBits>(len: usize) -> Result<Vec<T>, CoreError> {
+    let overflow = || CoreError::SizeOverflow {
+        what: format!("{len} elements"),
+    };
+    let bytes = len
+        .checked_mul(std::mem::size_of::<T>())
+        .ok_or_else(overflow)?;
+    if bytes == 0 {
+        return Ok(vec![]);
+    }
+    let layout = std::alloc::Layout::array::<T>(len).map_err(|_| overflow())?;
+    // SAFETY: the layout has a nonzero size.
+    let ptr = unsafe { std::alloc::alloc_zeroed(layout) } as *mut T;
+    if ptr.is_null() {
+        return Err(CoreError::AllocationFailed { bytes });
+    }
+    // SAFETY: `ptr` comes from the global allocator with the layout of `len` elements of T
+    // (the layout a Vec of that capacity uses), and its zeroed bytes are valid T (ZeroBits).
+    let mut v = unsafe { Vec::from_raw_parts(ptr, len, len) };
     crate::pages::advise_huge(&mut v);
-    v.resize(len, T::default());
     Ok(v)
 }

@@ -6,12 +6,14 @@
 //! Coefficients are stored as f64 or f32 ([`Coef`]); kernels always accumulate in f64.
 
 use crate::combinatorics::{num_multisets, MAX_DEGREE};
-use crate::error::{try_zeroed, CoreError};
+use crate::error::{try_zeroed, CoreError, ZeroBits};
 use crate::exec::Exec;
 use crate::sampling::{fill_block, Disorder};
 
 /// A storage type for coefficients. Arithmetic is always done in f64.
-pub trait Coef: Copy + Send + Sync + Default + PartialEq + std::fmt::Debug + 'static {
+pub trait Coef:
+    Copy + Send + Sync + Default + PartialEq + std::fmt::Debug + ZeroBits + 'static
+{
     const NAME: &'static str;
     /// True when the stored type is narrower than f64, so that every load widens it (f32).
     ///
