@@ -444,7 +444,8 @@ fn get_num_threads(py: Python<'_>) -> PyResult<usize> {
     threads::num_threads().map_err(|e| to_py_err(py, e))
 }
 
-/// The instruction-set path of the kernels on this machine ("avx2+fma" or "baseline").
+/// The instruction-set path of the kernels on this machine ("avx2+fma+avx512f", "avx2+fma"
+/// or "baseline").
 #[pyfunction]
 fn kernel_path() -> &'static str {
     simd_path()

@@ -389,9 +389,13 @@ pub fn has_avx2_fma() -> bool {
     }
 }
 
-/// Name of the instruction-set path the kernels take on this machine.
+/// Name of the instruction-set path the kernels take on this machine: "avx2+fma+avx512f"
+/// (AVX2 kernels, and the 512-bit tile of `crate::avx512` for batches of 16 or more points),
+/// "avx2+fma" or "baseline" (portable code).
 pub fn simd_path() -> &'static str {
-    if has_avx2_fma() {
+    if crate::tile::WideTile::detect().is_some() {
+        "avx2+fma+avx512f"
+    } else if has_avx2_fma() {
         "avx2+fma"
     } else {
         "baseline"

@@ -25,7 +25,23 @@ def test_set_and_get_threads():
         with pytest.raises(exc, match=str(bad) if exc is ValueError else None):
             oc.set_num_threads(bad)
     assert oc.get_num_threads() == before, "a refused setting keeps the old pool"
-    assert oc.kernel_path() in ("avx2+fma", "baseline")
+
+
+def test_kernel_path_follows_the_processor_flags():
+    assert oc.kernel_path() in ("avx2+fma+avx512f", "avx2+fma", "baseline")
+    try:
+        with open("/proc/cpuinfo") as f:
+            line = next(x for x in f if x.startswith("flags"))
+    except (OSError, StopIteration):
+        pytest.skip("no /proc/cpuinfo flags to compare with")
+    flags = set(line.split(":", 1)[1].split())
+    if {"avx2", "fma", "avx512f"} <= flags:
+        want = "avx2+fma+avx512f"
+    elif {"avx2", "fma"} <= flags:
+        want = "avx2+fma"
+    else:
+        want = "baseline"
+    assert oc.kernel_path() == want
 
 
 def _run(code: str, env_value: str) -> subprocess.CompletedProcess:
