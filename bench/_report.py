@@ -129,28 +129,28 @@ def targets_text(targets: list[dict]) -> str:
     return "\n".join(lines)
 
 
-def host_check_text(check: dict) -> str:
-    """The host probe's rate per case against the run's best, flagging the busy cases."""
-    fractions = check.get("fractions", {})
-    if not fractions:
-        return "host check: no case ran the host probe"
-    parts = ", ".join(f"{name} {f:.2f}" for name, f in fractions.items())
-    lines = ["== host check (small dgemm rate per case / the run's best) ==", f"  {parts}"]
+HOST_CHECK_TITLE = "host check (small dgemm rate per case / the run's best)"
+
+
+def _host_check_lines(check: dict) -> list[str]:
+    """The host probe's rate per case against the run's best, then one line per busy case."""
+    fractions = check["fractions"]
+    lines = [", ".join(f"{name} {f:.2f}" for name, f in fractions.items())]
     for name in check.get("busy", []):
         lines.append(
-            f"  BUSY  {name}: the host probe ran at {fractions[name]:.2f} of its best; other "
+            f"BUSY  {name}: the host probe ran at {fractions[name]:.2f} of its best; other "
             "work on the host slowed this case's arithmetic, so its ratios against "
             "memory-bound peers are likely understated"
         )
+    return lines
+
+
+def host_check_text(check: dict) -> str:
+    """The host check for the terminal (see _host_check_lines)."""
+    if not check.get("fractions"):
+        return "host check: no case ran the host probe"
+    lines = [f"== {HOST_CHECK_TITLE} =="] + [f"  {line}" for line in _host_check_lines(check)]
     return "\n".join(lines)
-
-
-def _wide_tile(cpu: dict) -> str:
-    # batches of 16+ points take the 512-bit tile where the processor has AVX-512F
-    simd = cpu.get("simd")
-    if simd is None:
-        return ""
-    return " (+avx512 batch tile)" if "avx512f" in simd else ""
 
 
 def meta_text(meta: dict) -> str:
@@ -159,7 +159,7 @@ def meta_text(meta: dict) -> str:
     v = meta["versions"]
     return (
         f"date {meta['date_utc']}  cpu {cpu.get('model')} ({cpu.get('usable_cpus')} usable)  "
-        f"threads {meta['threads']}  kernel_path {meta['kernel_path']}{_wide_tile(cpu)}\n"
+        f"threads {meta['threads']}  kernel_path {meta['kernel_path']}\n"
         f"numpy {v['numpy']}  scipy {v['scipy']}  opt_einsum {v['opt_einsum']}  "
         f"torch {v['torch']}  load average at start {meta['load_average_start']}  "
         f"other processes' cores at start {_num(meta.get('other_processes_cores_start'), '.2f')}"
@@ -192,9 +192,8 @@ def render_markdown(results: dict) -> str:
             rows.append([t["description"], f">= {t['threshold']:g}{unit}", value, t["status"]])
         lines += _md_table(["target", "threshold", "measured", "status"], rows) + [""]
     if results.get("host_check", {}).get("fractions"):
-        check = host_check_text(results["host_check"]).splitlines()
-        lines += ["### Host check (small dgemm rate per case / the run's best)", ""]
-        lines += [line.strip() + "  " for line in check[1:]] + [""]
+        lines += [f"### {HOST_CHECK_TITLE[0].upper()}{HOST_CHECK_TITLE[1:]}", ""]
+        lines += [line + "  " for line in _host_check_lines(results["host_check"])] + [""]
     for case in results["cases"]:
         head = case_header(case)
         lines += [f"### {head[0].strip('= ')}", ""] + [h.strip() + "  " for h in head[1:]] + [""]
