@@ -20,6 +20,15 @@ matrix-vector product over an array of the same size, so it is the cache, not th
 A block therefore warms for at least ``warm_calls`` calls as well, up to ``warm_max_s``
 seconds, which covers that for the kernels and costs the 25 ms peers a dozen extra calls.
 Users call the kernels many times in a row on one instance; the steady pace is theirs.
+
+Samples are spread over five rounds. On the shared Xeon we measure on, the host's memory
+system has slow phases of one to a few seconds, several times a minute: the energy at p = 3
+then read its 85 MB of L3-resident coefficients at 14 instead of 40-45 GB/s, while a pass
+from main memory slowed from 22 to 14 GB/s, so our L3-bound kernels lose 3x and the dense
+peers 1.6x. A block that falls into such a phase is slow throughout. The median of all of a
+function's samples stays at the steady pace as long as fewer than half of its blocks were hit;
+with five blocks that is less likely than with three (if a fifth of the time is slow, about 6
+in 100 against 10 in 100 per function).
 """
 
 from __future__ import annotations
@@ -57,7 +66,7 @@ class Plan:
     slow_s: float = 0.25
     max_repeats: int = 41
     budget_s: float = 1.5
-    rounds: int = 3
+    rounds: int = 5
     settle_s: float = 0.1
     warm_s: float = 0.08
     warm_calls: int = 40
