@@ -532,6 +532,7 @@ def alternate_threads(fns: dict, counts: tuple[int, ...], plan: _timing.Plan) ->
             for key, st in _timing.measure(fns, per_round).items():
                 merged = stats.setdefault((threads, *key), _timing.Stats([], st.number))
                 merged.samples += st.samples
+                merged.blocks += st.blocks
     return stats
 
 

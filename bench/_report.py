@@ -6,6 +6,8 @@ fractions as plain numbers (1.00 = streaming the coefficients at the measured re
 
 from __future__ import annotations
 
+from _timing import UNSTEADY_SPREAD
+
 COLUMNS = (
     "kernel",
     "impl",
@@ -59,7 +61,10 @@ def row_cells(row: dict) -> list[str]:
     impl = row["impl"] + (f":{row['variant']}" if row.get("variant") else "")
     if row.get("best"):
         impl += " *"
-    note = " ".join(s for s in (target_text(row.get("target")), row.get("note", "")) if s)
+    spread = row.get("block_spread")
+    unsteady = f"UNSTEADY blocks {spread:.1f}x apart" if _is_unsteady(row) else ""
+    parts = (target_text(row.get("target")), row.get("note", ""), unsteady)
+    note = " ".join(s for s in parts if s)
     return [
         row["kernel"],
         impl,
@@ -71,6 +76,35 @@ def row_cells(row: dict) -> list[str]:
         _num(row.get("rel_err"), ".1e"),
         note,
     ]
+
+
+def _is_unsteady(row: dict) -> bool:
+    spread = row.get("block_spread")
+    return spread is not None and spread > UNSTEADY_SPREAD
+
+
+def _unsteady_lines(results: dict) -> list[str]:
+    """One line per measured row whose block medians lie more than UNSTEADY_SPREAD apart."""
+    lines = []
+    for case in results.get("cases", []):
+        for row in case.get("rows", []):
+            if _is_unsteady(row):
+                impl = row["impl"] + (f":{row['variant']}" if row.get("variant") else "")
+                medians = ", ".join(fmt_time(t) for t in row["block_medians_s"])
+                lines.append(f"{case['name']} {row['kernel']} {impl}: blocks {medians}")
+    return lines
+
+
+UNSTEADY_TITLE = f"unsteady timings (block medians more than {UNSTEADY_SPREAD}x apart)"
+
+
+def unsteady_text(results: dict) -> str:
+    """The rows measured partly in a slow phase of the host: their medians hold as long as
+    fewer than half of their blocks were slow, but their ratios deserve a rerun."""
+    lines = _unsteady_lines(results)
+    if not lines:
+        return f"{UNSTEADY_TITLE}: none"
+    return "\n".join([f"== {UNSTEADY_TITLE} =="] + [f"  {line}" for line in lines])
 
 
 def _aligned(rows: list[list[str]]) -> str:
@@ -194,6 +228,10 @@ def render_markdown(results: dict) -> str:
     if results.get("host_check", {}).get("fractions"):
         lines += [f"### {HOST_CHECK_TITLE[0].upper()}{HOST_CHECK_TITLE[1:]}", ""]
         lines += [line + "  " for line in _host_check_lines(results["host_check"])] + [""]
+    unsteady = _unsteady_lines(results)
+    if unsteady:
+        lines += [f"### {UNSTEADY_TITLE[0].upper()}{UNSTEADY_TITLE[1:]}", ""]
+        lines += [line + "  " for line in unsteady] + [""]
     for case in results["cases"]:
         head = case_header(case)
         lines += [f"### {head[0].strip('= ')}", ""] + [h.strip() + "  " for h in head[1:]] + [""]

@@ -38,7 +38,7 @@ import math
 import statistics
 import time
 from collections.abc import Callable, Hashable, Mapping
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 
 import numpy as np
 
@@ -88,12 +88,35 @@ QUICK_PLAN = Plan(
 )
 
 
+UNSTEADY_SPREAD = 1.5
+"""Block medians further apart than this (largest / smallest) mark a function's timing as
+unsteady: some of its blocks ran in a slow phase of the host (see the module docstring)."""
+
+
 @dataclass
 class Stats:
-    """Samples of one function: seconds per call, each averaged over ``number`` calls."""
+    """Samples of one function: seconds per call, each averaged over ``number`` calls.
+    ``blocks`` holds the number of samples of each block, in order (they sum to the number of
+    samples; empty when the block structure is not known)."""
 
     samples: list[float]
     number: int
+    blocks: list[int] = field(default_factory=list)
+
+    @property
+    def block_medians(self) -> list[float]:
+        """The median of each block's samples."""
+        out, start = [], 0
+        for count in self.blocks:
+            out.append(statistics.median(self.samples[start : start + count]))
+            start += count
+        return out
+
+    @property
+    def block_spread(self) -> float | None:
+        """Largest over smallest block median (None with fewer than two blocks)."""
+        medians = self.block_medians
+        return max(medians) / min(medians) if len(medians) > 1 else None
 
     @property
     def median(self) -> float:
@@ -114,6 +137,8 @@ class Stats:
             "repeats": self.repeats,
             "number": self.number,
             "samples_s": self.samples,
+            "block_medians_s": self.block_medians,
+            "block_spread": self.block_spread,
         }
 
 
@@ -190,6 +215,7 @@ def measure(
         number[name] = _calls_per_sample(seconds, plan)
         wanted[name] = _repeats(seconds * number[name], plan)
     samples: dict[Hashable, list[float]] = {name: [] for name in names}
+    blocks: dict[Hashable, list[int]] = {name: [] for name in names}
     for r in range(plan.rounds):
         shift = r % len(names) if names else 0
         for name in names[shift:] + names[:shift]:
@@ -200,7 +226,8 @@ def measure(
             time.sleep(plan.settle_s)
             _warm_block(fns[name], plan)
             samples[name] += _sample_block(fns[name], number[name], count)
-    return {name: Stats(samples[name], number[name]) for name in names}
+            blocks[name].append(count)
+    return {name: Stats(samples[name], number[name], blocks[name]) for name in names}
 
 
 def bandwidth_probes(flat: np.ndarray) -> dict[str, tuple[Callable[[], object], int]]:

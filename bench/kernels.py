@@ -211,6 +211,7 @@ def main(argv=None) -> int:
     print(_report.targets_text(results["targets"]))
     if results.get("host_check"):
         print(_report.host_check_text(results["host_check"]))
+    print(_report.unsteady_text(results))
     if args.markdown:
         write_atomic(args.markdown, _report.render_markdown(results) + "\n")
         _cases.log(f"wrote {args.markdown}")
