@@ -148,6 +148,62 @@ pub unsafe fn wide_tile<T: Coef, const G: usize>(
     }
 }
 
+/// The energy sums of the module doc over positions `from..to` only, continuing from the
+/// sums already in `s[r][..8 G]` (zeros before the first span) and leaving them there. Spans
+/// taken in increasing order give each (row, lane) the same multiply-adds in the same order
+/// as one [`wide_tile`] call. While it runs it prefetches `next`: four segments (row start
+/// pointers and a length in coefficients), the rows the caller reads after this span.
+///
+/// # Safety
+/// The processor must have AVX-512F, AVX2 and FMA ([`wide_tile_available`]).
+#[target_feature(enable = "avx512f,avx2,fma")]
+#[allow(clippy::needless_range_loop)] // r and k index rows and lanes of several arrays
+pub unsafe fn wide_span<T: Coef, const G: usize>(
+    rows: [&[T]; 4],
+    x: &[f64],
+    stride: usize,
+    (from, to): (usize, usize),
+    next: ([*const T; 4], usize),
+    s: &mut TileSums,
+) {
+    const { assert!(G == 2 || G == 4) };
+    let len = check_tile(&rows, x, stride, 8 * G);
+    assert!(from <= to && to <= len);
+    // SAFETY (for the caller's processor, see above): row u < len of X covers
+    // [u*stride, u*stride + 8G), inside `x` by `check_tile`; row r is read at u - r < len - r,
+    // its length; a prefetch never faults, wherever `next` points.
+    let px = x.as_ptr();
+    let mut acc = [[_mm512_setzero_pd(); G]; 4];
+    for r in 0..4 {
+        for k in 0..G {
+            acc[r][k] = _mm512_loadu_pd(s[r].as_ptr().add(8 * k));
+        }
+    }
+    let head = to.min(3);
+    for u in from..head {
+        sums(&mut acc, coefs::<T, true>(&rows, u), px.add(u * stride));
+    }
+    // one prefetch per position, cycling over the four next segments line by line
+    let (next_rows, next_len) = next;
+    let per_line = 64 / std::mem::size_of::<T>();
+    let lines = 4 * (next_len.div_ceil(per_line) + 1);
+    let mut issued = 0;
+    for u in from.max(head)..to {
+        if issued < lines {
+            let (r, line) = (issued & 3, issued >> 2);
+            let at = next_rows[r].wrapping_add(line * per_line);
+            _mm_prefetch::<_MM_HINT_T0>(at as *const i8);
+            issued += 1;
+        }
+        sums(&mut acc, coefs::<T, false>(&rows, u), px.add(u * stride));
+    }
+    for r in 0..4 {
+        for k in 0..G {
+            _mm512_storeu_pd(s[r].as_mut_ptr().add(8 * k), acc[r][k]);
+        }
+    }
+}
+
 #[cfg(test)]
 mod tests {
     use super::*;

@@ -110,7 +110,7 @@ fn block_pass<M: Madd, T: Coef>(
     xt: &[f64],
     e: &mut [f64],
     g: &mut [f64],
-    wide: Option<WideTile>,
+    (wide, from_lane): (Option<WideTile>, usize),
 ) {
     let stride = e.len();
     let want_grad = !g.is_empty();
@@ -119,7 +119,7 @@ fn block_pass<M: Madd, T: Coef>(
     let x0 = k * stride;
     let mut s: TileSums = [[0f64; SUM_LANES]; 4];
     let mut w: TileSums = [[0f64; SUM_LANES]; 4];
-    let mut g0 = 0;
+    let mut g0 = from_lane;
     while g0 < stride {
         let left = stride - g0;
         let wide_lanes = WideTile::LANES.into_iter().find(|&l| l <= left);
@@ -149,6 +149,98 @@ fn block_pass<M: Madd, T: Coef>(
         }
         combine_lanes::<M>((x0, g0, lanes, active), &s, (lead, products), xt, e, g);
         g0 += lanes;
+    }
+}
+
+/// Full blocks per group of [`group_pass`].
+const SPAN_BLOCKS: usize = 4;
+/// Positions per span of [`group_pass`]: 64 rows of X, 16 KiB at 32 lanes, stay in L1 while
+/// the group's blocks take their turns.
+const SPAN: usize = 64;
+
+/// Energies of up to [`SPAN_BLOCKS`] consecutive full blocks of a run (rows k..k + 4 nb), for
+/// every lane, when the coefficients stream from main memory. The wide lane groups walk the
+/// last indices in spans of [`SPAN`] positions and run each block over the span in turn, so
+/// that each span of X is loaded from L2 once for the group instead of once per block, and
+/// each block's tile prefetches the segments read after it (the next block's over the same
+/// span, or the first block's over the next span): from memory that schedule hides the
+/// latency better than one sweep ahead. Per (row, lane) the positions still come in order, so
+/// the sums, and the energies, are bitwise those of one [`block_pass`] per block; the lanes
+/// past the wide groups take [`block_pass`] itself.
+#[inline(always)]
+#[allow(clippy::too_many_arguments)]
+fn group_pass<M: Madd, T: Coef>(
+    n: usize,
+    k: usize,
+    blocks: &[Rows4<'_, T>],
+    zeros: &[T],
+    (lead, products): (&[usize], &Leading),
+    xt: &[f64],
+    e: &mut [f64],
+    wide: WideTile,
+) {
+    let stride = e.len();
+    let nb = blocks.len();
+    let mut slices = [[zeros; 4]; SPAN_BLOCKS];
+    for (slot, b) in slices.iter_mut().zip(blocks) {
+        *slot = b.slices(zeros);
+    }
+    let segment = |b: usize, t: usize, t_end: usize| {
+        let kb = k + 4 * b;
+        let from = t.max(kb) - kb;
+        let len = t_end.saturating_sub(t.max(kb));
+        (
+            [0, 1, 2, 3].map(|r| slices[b][r].as_ptr().wrapping_add(from.saturating_sub(r))),
+            len,
+        )
+    };
+    let mut g0 = 0;
+    while stride - g0 >= WideTile::LANES[1] {
+        let lanes = if stride - g0 >= WideTile::LANES[0] {
+            WideTile::LANES[0]
+        } else {
+            WideTile::LANES[1]
+        };
+        let mut s = [[[0f64; SUM_LANES]; 4]; SPAN_BLOCKS];
+        let mut t = k;
+        while t < n {
+            let t_end = (t + SPAN).min(n);
+            for b in 0..nb {
+                let kb = k + 4 * b;
+                if kb >= t_end {
+                    break;
+                }
+                let next = if b + 1 < nb && k + 4 * (b + 1) < t_end {
+                    segment(b + 1, t, t_end)
+                } else {
+                    segment(0, t_end, (t_end + SPAN).min(n))
+                };
+                let range = (t.max(kb) - kb, t_end - kb);
+                let x = &xt[kb * stride + g0..];
+                wide.span(lanes, slices[b], x, stride, range, next, &mut s[b]);
+            }
+            t = t_end;
+        }
+        for (b, sb) in s.iter().enumerate().take(nb) {
+            let x0 = (k + 4 * b) * stride;
+            combine_lanes::<M>((x0, g0, lanes, 4), sb, (lead, products), xt, e, &mut []);
+        }
+        g0 += lanes;
+    }
+    if g0 < stride {
+        for (b, rows) in blocks.iter().enumerate() {
+            let lanes = (None, g0);
+            block_pass::<M, T>(
+                k + 4 * b,
+                rows,
+                zeros,
+                (lead, products),
+                xt,
+                e,
+                &mut [],
+                lanes,
+            );
+        }
     }
 }
 
@@ -209,7 +301,7 @@ fn batch_item_body<M: Madd, T: Coef>(
     xt: &[f64],
     e: &mut [f64],
     g: &mut [f64],
-    (exec, wide): (&Exec, Option<WideTile>),
+    (exec, wide, spans): (&Exec, Option<WideTile>, bool),
 ) {
     let stride = e.len();
     let coeffs = &a[it.start..it.start + it.len];
@@ -239,9 +331,23 @@ fn batch_item_body<M: Madd, T: Coef>(
             if exec.stop_requested() {
                 return; // a wide batch checks per block: one chunk may be seconds of work
             }
+            let grouped = spans && !want_grad && stride >= WideTile::LANES[1] && k_end - k >= 8;
+            if let Some(w) = wide.filter(|_| grouped) {
+                let nb = ((k_end - k) / 4).min(SPAN_BLOCKS);
+                let (first, mut next) = rows_at(n, k, pos, 4, coeffs);
+                let mut blocks = [first; SPAN_BLOCKS];
+                for (b, slot) in blocks.iter_mut().enumerate().take(nb).skip(1) {
+                    (*slot, next) = rows_at(n, k + 4 * b, next, 4, coeffs);
+                }
+                pos = next;
+                group_pass::<M, T>(n, k, &blocks[..nb], &zeros, (lead, &products), xt, e, w);
+                k += 4 * nb;
+                continue;
+            }
             let count = (k_end - k).min(4);
             let (rows, next) = rows_at(n, k, pos, count, coeffs);
-            block_pass::<M, T>(k, &rows, &zeros, (lead, &products), xt, e, g, wide);
+            let lanes = (wide, 0);
+            block_pass::<M, T>(k, &rows, &zeros, (lead, &products), xt, e, g, lanes);
             (k, pos) = (k + count, next);
         }
     }
@@ -249,16 +355,27 @@ fn batch_item_body<M: Madd, T: Coef>(
 
 simd_dispatch!(fn batch_item => batch_item_body(
     n: usize, a: &[T], it: &WorkItem, xt: &[f64], e: &mut [f64], g: &mut [f64],
-    run: (&Exec, Option<WideTile>)) -> ());
+    run: (&Exec, Option<WideTile>, bool)) -> ());
 
-/// The batch of b points; `wide` lets the tile take 16 or 32 lanes at once (same bits per
-/// lane as without it, energies and gradients alike).
+/// Whether an energy batch over `poly` walks its blocks in groups of spans ([`group_pass`]):
+/// where the coefficients are larger than the last-level cache, so that every call streams
+/// them from memory. There, with two threads, 32 points took 65-67 ms instead of 73-81 at n =
+/// 800 and 122-131 instead of 143-158 at n = 1000, 16 points 8-12 % less; with the
+/// coefficients in L3 (n = 400, 82 MiB of a 260 MiB L3) the spans' own cost made them 6-34 %
+/// slower, so there the blocks go one by one. Unknown cache size: one by one.
+fn spans_for<T: Coef>(poly: &Packed<T>, wide: Option<WideTile>) -> bool {
+    wide.is_some() && crate::cache::last_level_bytes().is_some_and(|llc| poly.nbytes() > llc)
+}
+
+/// The batch of b points; `wide` lets the tile take 16 or 32 lanes at once, and `spans` (with
+/// `wide`, energies only) walks blocks in groups of spans; the bits per lane are the same
+/// either way, energies and gradients alike.
 fn run_batch<T: Coef>(
     exec: &Exec,
     poly: &Packed<T>,
     xs: &[f64],
     b: usize,
-    (want_grad, wide): (bool, Option<WideTile>),
+    (want_grad, wide, spans): (bool, Option<WideTile>, bool),
 ) -> Result<(Vec<f64>, Vec<f64>), CoreError> {
     let n = poly.n();
     let len = b.checked_mul(n).ok_or_else(|| CoreError::SizeOverflow {
@@ -278,7 +395,15 @@ fn run_batch<T: Coef>(
     );
     let blocks = poly.blocks();
     let (mut e, g) = reduce_sums(exec, &items, stride, glen, |it, e, g| {
-        batch_item::<T>(n, &blocks[it.block].coeffs, it, &xt, e, g, (exec, wide));
+        batch_item::<T>(
+            n,
+            &blocks[it.block].coeffs,
+            it,
+            &xt,
+            e,
+            g,
+            (exec, wide, spans),
+        );
     })?;
     e.truncate(b);
     let grads = if want_grad {
@@ -300,7 +425,8 @@ pub fn energy_batch<T: Coef>(
     if b == 1 {
         return Ok(vec![energy(exec, poly, xs)?]);
     }
-    Ok(run_batch(exec, poly, xs, b, (false, WideTile::detect()))?.0)
+    let wide = WideTile::detect();
+    Ok(run_batch(exec, poly, xs, b, (false, wide, spans_for(poly, wide)))?.0)
 }
 
 /// Fewest points for which the energy-and-gradient tile beats single-point calls: at b = 2
@@ -327,7 +453,7 @@ pub fn energy_gradient_batch<T: Coef>(
         }
         return Ok((es, gs));
     }
-    run_batch(exec, poly, xs, b, (true, WideTile::detect()))
+    run_batch(exec, poly, xs, b, (true, WideTile::detect(), false))
 }
 
 /// Hessian-vector products of an item for k directions `vs` (k x n) added to `w` (k x n).
@@ -416,7 +542,9 @@ mod tests {
     use crate::sampling::Disorder;
 
     /// The wide tile gives every point the same bits as the AVX2 tile, energies and
-    /// gradients: batches whose lanes split into 32, 16, 8 and 4, for both storage types.
+    /// gradients, and so does the walk in groups of spans (energies): batches whose lanes
+    /// split into 32, 16, 8 and 4, for both storage types, with runs of one span and (n =
+    /// 150) of several spans and partial groups.
     #[test]
     fn wide_tile_batch_is_bitwise_the_narrow_one() {
         let Some(wide) = WideTile::detect() else {
@@ -425,14 +553,17 @@ mod tests {
         };
         fn both<T: Coef>(poly: &Packed<T>, xs: &[f64], b: usize, wide: WideTile) {
             let p = pool(2);
-            let (w, _) = run_batch(&p, poly, xs, b, (false, Some(wide))).unwrap();
-            let (nw, _) = run_batch(&p, poly, xs, b, (false, None)).unwrap();
-            assert_eq!(w.len(), b);
-            for (beta, (a, c)) in w.iter().zip(&nw).enumerate() {
-                assert_eq!(a.to_bits(), c.to_bits(), "{} b {b} point {beta}", T::NAME);
+            let (nw, _) = run_batch(&p, poly, xs, b, (false, None, false)).unwrap();
+            for spans in [false, true] {
+                let (w, _) = run_batch(&p, poly, xs, b, (false, Some(wide), spans)).unwrap();
+                assert_eq!(w.len(), b);
+                for (beta, (a, c)) in w.iter().zip(&nw).enumerate() {
+                    let what = format!("{} b {b} spans {spans} point {beta}", T::NAME);
+                    assert_eq!(a.to_bits(), c.to_bits(), "{what}");
+                }
             }
-            let (we, wg) = run_batch(&p, poly, xs, b, (true, Some(wide))).unwrap();
-            let (ne, ng) = run_batch(&p, poly, xs, b, (true, None)).unwrap();
+            let (we, wg) = run_batch(&p, poly, xs, b, (true, Some(wide), false)).unwrap();
+            let (ne, ng) = run_batch(&p, poly, xs, b, (true, None, false)).unwrap();
             assert_eq!((we.len(), wg.len()), (b, xs.len()));
             for (beta, (a, c)) in we.iter().zip(&ne).enumerate() {
                 assert_eq!(a.to_bits(), c.to_bits(), "{} b {b} energy {beta}", T::NAME);
@@ -447,17 +578,19 @@ mod tests {
             }
         }
         let terms = [(2usize, 1.0), (3, 0.6), (4, 0.4)];
-        for (n, b) in [(17usize, 16usize), (17, 20), (30, 35), (30, 60)] {
+        let long = [(1usize, 0.3), (2, 1.0), (3, 0.6)];
+        for (n, b) in [(17usize, 16usize), (17, 20), (30, 35), (30, 60), (150, 37)] {
+            let terms = if n > 100 { &long[..] } else { &terms[..] };
             let xs: Vec<f64> = (0..b * n).map(|i| ((i as f64) * 0.43).sin()).collect();
             let d = Disorder::new(9);
             both(
-                &Packed::<f64>::sample(&pool(2), n, &terms, &d).unwrap(),
+                &Packed::<f64>::sample(&pool(2), n, terms, &d).unwrap(),
                 &xs,
                 b,
                 wide,
             );
             both(
-                &Packed::<f32>::sample(&pool(2), n, &terms, &d).unwrap(),
+                &Packed::<f32>::sample(&pool(2), n, terms, &d).unwrap(),
                 &xs,
                 b,
                 wide,
@@ -516,9 +649,25 @@ mod tests {
             for it in &items_for(&poly, 3, 1, 1).items {
                 let a = &poly.blocks()[it.block].coeffs;
                 if fused {
-                    batch_item_body::<Fused, f32>(n, a, it, &xt, &mut e, &mut g, (&exec, None));
+                    batch_item_body::<Fused, f32>(
+                        n,
+                        a,
+                        it,
+                        &xt,
+                        &mut e,
+                        &mut g,
+                        (&exec, None, false),
+                    );
                 } else {
-                    batch_item_body::<Plain, f32>(n, a, it, &xt, &mut e, &mut g, (&exec, None));
+                    batch_item_body::<Plain, f32>(
+                        n,
+                        a,
+                        it,
+                        &xt,
+                        &mut e,
+                        &mut g,
+                        (&exec, None, false),
+                    );
                 }
             }
             (e, g)

@@ -157,6 +157,36 @@ impl WideTile {
             grad.is_some()
         );
     }
+
+    /// [`crate::avx512::wide_span`] for `lanes` (32 or 16) lanes: the energy sums over the
+    /// positions `range` only, continued in `s`, prefetching the segments `next`.
+    #[inline]
+    #[allow(clippy::too_many_arguments)]
+    pub fn span<T: Coef>(
+        self,
+        lanes: usize,
+        rows: [&[T]; 4],
+        x: &[f64],
+        stride: usize,
+        range: (usize, usize),
+        next: ([*const T; 4], usize),
+        s: &mut TileSums,
+    ) {
+        assert!(Self::LANES.contains(&lanes), "wide tile of {lanes} lanes");
+        #[cfg(target_arch = "x86_64")]
+        // SAFETY: a `WideTile` only exists where `wide_tile_available()` held.
+        unsafe {
+            if lanes == 32 {
+                crate::avx512::wide_span::<T, 4>(rows, x, stride, range, next, s);
+            } else {
+                crate::avx512::wide_span::<T, 2>(rows, x, stride, range, next, s);
+            }
+        }
+        #[cfg(not(target_arch = "x86_64"))]
+        unreachable!(
+            "no WideTile off x86-64: {lanes} {rows:?} {x:?} {stride} {range:?} {next:?} {s:?}"
+        );
+    }
 }
 
 #[cfg(test)]
