@@ -646,28 +646,13 @@ mod tests {
         let exec = pool(1);
         let run = |fused: bool| {
             let (mut e, mut g) = (vec![0.0; stride], vec![0.0; n * stride]);
+            let walk = (&exec, None, false);
             for it in &items_for(&poly, 3, 1, 1).items {
                 let a = &poly.blocks()[it.block].coeffs;
                 if fused {
-                    batch_item_body::<Fused, f32>(
-                        n,
-                        a,
-                        it,
-                        &xt,
-                        &mut e,
-                        &mut g,
-                        (&exec, None, false),
-                    );
+                    batch_item_body::<Fused, f32>(n, a, it, &xt, &mut e, &mut g, walk);
                 } else {
-                    batch_item_body::<Plain, f32>(
-                        n,
-                        a,
-                        it,
-                        &xt,
-                        &mut e,
-                        &mut g,
-                        (&exec, None, false),
-                    );
+                    batch_item_body::<Plain, f32>(n, a, it, &xt, &mut e, &mut g, walk);
                 }
             }
             (e, g)
