@@ -56,9 +56,14 @@ def target_text(target: dict | None) -> str:
     return f">= {target['threshold']:g}{unit} {target['status']}"
 
 
+def _impl_name(row: dict) -> str:
+    """The row's implementation, with its variant: 'numpy:einsum'."""
+    return row["impl"] + (f":{row['variant']}" if row.get("variant") else "")
+
+
 def row_cells(row: dict) -> list[str]:
     """The table cells of one measured row."""
-    impl = row["impl"] + (f":{row['variant']}" if row.get("variant") else "")
+    impl = _impl_name(row)
     if row.get("best"):
         impl += " *"
     spread = row.get("block_spread")
@@ -89,9 +94,8 @@ def _unsteady_lines(results: dict) -> list[str]:
     for case in results.get("cases", []):
         for row in case.get("rows", []):
             if _is_unsteady(row):
-                impl = row["impl"] + (f":{row['variant']}" if row.get("variant") else "")
                 medians = ", ".join(fmt_time(t) for t in row["block_medians_s"])
-                lines.append(f"{case['name']} {row['kernel']} {impl}: blocks {medians}")
+                lines.append(f"{case['name']} {row['kernel']} {_impl_name(row)}: blocks {medians}")
     return lines
 
 
@@ -200,6 +204,11 @@ def meta_text(meta: dict) -> str:
     )
 
 
+def _md_heading(title: str) -> str:
+    """A section title of the text report as a Markdown heading, first letter capitalized."""
+    return f"### {title[0].upper()}{title[1:]}"
+
+
 def _md_table(header: list[str], rows: list[list[str]]) -> list[str]:
     def esc(cell: str) -> str:
         return cell.replace("|", "\\|")
@@ -226,11 +235,11 @@ def render_markdown(results: dict) -> str:
             rows.append([t["description"], f">= {t['threshold']:g}{unit}", value, t["status"]])
         lines += _md_table(["target", "threshold", "measured", "status"], rows) + [""]
     if results.get("host_check", {}).get("fractions"):
-        lines += [f"### {HOST_CHECK_TITLE[0].upper()}{HOST_CHECK_TITLE[1:]}", ""]
+        lines += [_md_heading(HOST_CHECK_TITLE), ""]
         lines += [line + "  " for line in _host_check_lines(results["host_check"])] + [""]
     unsteady = _unsteady_lines(results)
     if unsteady:
-        lines += [f"### {UNSTEADY_TITLE[0].upper()}{UNSTEADY_TITLE[1:]}", ""]
+        lines += [_md_heading(UNSTEADY_TITLE), ""]
         lines += [line + "  " for line in unsteady] + [""]
     for case in results["cases"]:
         head = case_header(case)
