@@ -48,6 +48,17 @@ unsafe fn sums<const G: usize>(acc: &mut [[__m512d; G]; 4], c: [__m512d; 4], row
     }
 }
 
+/// s[r][..8 G] = acc[r] for the four rows.
+#[inline(always)]
+#[allow(clippy::needless_range_loop)] // r and k index rows and lanes of several arrays
+unsafe fn store_sums<const G: usize>(acc: &[[__m512d; G]; 4], s: &mut TileSums) {
+    for r in 0..4 {
+        for k in 0..G {
+            _mm512_storeu_pd(s[r].as_mut_ptr().add(8 * k), acc[r][k]);
+        }
+    }
+}
+
 /// G[u, lanes] += (c0 w0 + c1 w1) + (c2 w2 + c3 w3), in the AVX2 tile's order.
 #[inline(always)]
 #[allow(clippy::needless_range_loop)] // r and k index rows and lanes of several arrays
@@ -141,11 +152,7 @@ pub unsafe fn wide_tile<T: Coef, const G: usize>(
             }
         }
     }
-    for r in 0..4 {
-        for k in 0..G {
-            _mm512_storeu_pd(s[r].as_mut_ptr().add(8 * k), acc[r][k]);
-        }
-    }
+    store_sums(&acc, s);
 }
 
 /// The energy sums of the module doc over positions `from..to` only, continuing from the
@@ -197,11 +204,7 @@ pub unsafe fn wide_span<T: Coef, const G: usize>(
         }
         sums(&mut acc, coefs::<T, false>(&rows, u), px.add(u * stride));
     }
-    for r in 0..4 {
-        for k in 0..G {
-            _mm512_storeu_pd(s[r].as_mut_ptr().add(8 * k), acc[r][k]);
-        }
-    }
+    store_sums(&acc, s);
 }
 
 #[cfg(test)]
