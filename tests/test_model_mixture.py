@@ -55,6 +55,7 @@ def test_zero_gammas_are_dropped():
         ({2.5: 1.0}, "2.5"),
         ({2: "x"}, "'x'"),
         ({2: 0.0}, "at least one"),
+        ({3: 1e200}, "1e\\+200"),  # finite, but gamma^2 overflows float64
     ],
 )
 def test_bad_mixtures_name_the_value(spec, fragment):

@@ -75,6 +75,11 @@ class Mixture:
             if p in checked:
                 raise MixtureError(f"degree p = {p} is given twice")
             checked[p] = _check_gamma(p, g_raw)
+            if not math.isfinite(checked[p] * checked[p]):
+                raise MixtureError(
+                    f"gamma for p = {p} is too large: its square, the coefficient of q^{p} in"
+                    f" xi, overflows float64; got {g_raw!r}"
+                )
         kept = {p: g for p, g in sorted(checked.items()) if g > 0.0}
         if not kept:
             raise MixtureError(
