@@ -43,6 +43,8 @@ pub enum CoreError {
     InvalidThreads { detail: String },
     /// The caller asked the call to stop (see [`crate::exec::Exec::request_stop`]).
     Interrupted,
+    /// A kernel's result is not finite although its inputs were: float64 overflowed.
+    Overflow { what: &'static str },
 }
 
 impl fmt::Display for CoreError {
@@ -91,11 +93,51 @@ impl fmt::Display for CoreError {
             }
             CoreError::InvalidThreads { detail } => write!(f, "invalid thread setting: {detail}"),
             CoreError::Interrupted => write!(f, "the call was interrupted before it finished"),
+            CoreError::Overflow { what } => write!(
+                f,
+                "the {what} overflowed float64: the result is not finite although every input \
+                 is; points are meant to lie on the unit sphere (|x| = 1), so rescale x"
+            ),
         }
     }
 }
 
 impl std::error::Error for CoreError {}
+
+/// Kernel results, which must not leave the core with an overflowed value in them (the
+/// inputs are checked finite, so a NaN or infinity here means float64 overflowed, for
+/// example at |x| = 1e300 or with coefficients near the largest float64).
+pub trait KernelResult {
+    /// Whether every value is finite.
+    fn all_finite(&self) -> bool;
+}
+
+impl KernelResult for f64 {
+    fn all_finite(&self) -> bool {
+        self.is_finite()
+    }
+}
+
+impl KernelResult for Vec<f64> {
+    fn all_finite(&self) -> bool {
+        self.iter().all(|v| v.is_finite())
+    }
+}
+
+impl<A: KernelResult, B: KernelResult> KernelResult for (A, B) {
+    fn all_finite(&self) -> bool {
+        self.0.all_finite() && self.1.all_finite()
+    }
+}
+
+/// `out` itself when every value is finite, else [`CoreError::Overflow`] naming `what`.
+pub fn finite<T: KernelResult>(what: &'static str, out: T) -> Result<T, CoreError> {
+    if out.all_finite() {
+        Ok(out)
+    } else {
+        Err(CoreError::Overflow { what })
+    }
+}
 
 /// Element types whose all-zero bit pattern is the value zero, so a buffer of them can come
 /// zeroed from the allocator.
@@ -135,4 +177,31 @@ pub(crate) fn try_zeroed<T: ZeroBits>(len: usize) -> Result<Vec<T>, CoreError> {
     let mut v = unsafe { Vec::from_raw_parts(ptr, len, len) };
     crate::pages::advise_huge(&mut v);
     Ok(v)
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn finite_passes_finite_results_through() {
+        assert_eq!(finite("energy", 1.5), Ok(1.5));
+        let pair = (2.0, vec![f64::MAX, -0.0, f64::MIN_POSITIVE]);
+        assert_eq!(finite("gradient", pair.clone()), Ok(pair));
+    }
+
+    #[test]
+    fn finite_refuses_any_overflowed_value() {
+        let overflow = CoreError::Overflow { what: "Hessian" };
+        assert_eq!(finite("Hessian", f64::INFINITY), Err(overflow.clone()));
+        assert_eq!(
+            finite("Hessian", vec![0.0, f64::NAN]),
+            Err(overflow.clone())
+        );
+        let pair = (1.0, vec![f64::NEG_INFINITY]);
+        assert_eq!(finite("Hessian", pair), Err(overflow.clone()));
+        assert_eq!(finite("Hessian", (f64::NAN, vec![1.0])), Err(overflow));
+        let msg = CoreError::Overflow { what: "energy" }.to_string();
+        assert!(msg.starts_with("the energy overflowed float64"), "{msg}");
+    }
 }

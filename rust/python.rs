@@ -21,7 +21,7 @@ use pyo3::types::PyType;
 
 use crate::batch;
 use crate::combinatorics::{advance, num_multisets};
-use crate::error::CoreError;
+use crate::error::{finite, CoreError, KernelResult};
 use crate::exec::Exec;
 use crate::kernels;
 use crate::sampling::Disorder;
@@ -56,6 +56,7 @@ fn to_py_err(py: Python<'_>, err: CoreError) -> PyErr {
         | CoreError::NoDegrees
         | CoreError::InvalidGamma { .. } => "MixtureError",
         CoreError::LengthMismatch { .. } | CoreError::CoefficientCount { .. } => "ShapeError",
+        CoreError::Overflow { .. } => "NonFiniteError",
         CoreError::AllocationFailed { .. } | CoreError::SizeOverflow { .. } => {
             return package_error(
                 py,
@@ -114,6 +115,16 @@ fn run<T: Send>(
         Ok(Err(e)) => Err(to_py_err(py, e)),
         Err(_) => Err(internal_error(py, what)),
     }
+}
+
+/// [`run`] for a kernel: its result must be finite (inputs are checked finite before a call,
+/// so a NaN or infinity in it means float64 overflowed, [`CoreError::Overflow`]).
+fn run_kernel<T: Send + KernelResult>(
+    py: Python<'_>,
+    what: &'static str,
+    f: impl FnOnce(&Exec) -> Result<T, CoreError> + Send,
+) -> PyResult<T> {
+    run(py, what, |exec| f(exec).and_then(|out| finite(what, out)))
 }
 
 fn slice1<'a>(a: &'a PyReadonlyArray1<'_, f64>, name: &str) -> PyResult<&'a [f64]> {
@@ -260,7 +271,7 @@ impl PyPacked {
     /// H(x).
     fn energy(&self, py: Python<'_>, x: PyReadonlyArray1<'_, f64>) -> PyResult<f64> {
         let x = slice1(&x, "x")?;
-        run(
+        run_kernel(
             py,
             "energy",
             |pool| on_storage!(&self.inner, p => kernels::energy(pool, p, x)),
@@ -274,7 +285,7 @@ impl PyPacked {
         x: PyReadonlyArray1<'_, f64>,
     ) -> PyResult<(f64, Bound<'py, PyArray1<f64>>)> {
         let x = slice1(&x, "x")?;
-        let (e, g) = run(
+        let (e, g) = run_kernel(
             py,
             "gradient",
             |pool| on_storage!(&self.inner, p => kernels::energy_gradient(pool, p, x)),
@@ -290,9 +301,9 @@ impl PyPacked {
     ) -> PyResult<Bound<'py, PyArray2<f64>>> {
         let n = self.n();
         let x = slice1(&x, "x")?;
-        let h = run(
+        let h = run_kernel(
             py,
-            "hessian",
+            "Hessian",
             |pool| on_storage!(&self.inner, p => kernels::hessian(pool, p, x)),
         )?;
         h.into_pyarray(py).reshape([n, n])
@@ -306,9 +317,9 @@ impl PyPacked {
         v: PyReadonlyArray1<'_, f64>,
     ) -> PyResult<Bound<'py, PyArray1<f64>>> {
         let (x, v) = (slice1(&x, "x")?, slice1(&v, "v")?);
-        let w = run(
+        let w = run_kernel(
             py,
-            "hvp",
+            "Hessian-vector product",
             |pool| on_storage!(&self.inner, p => kernels::hvp(pool, p, x, v)),
         )?;
         Ok(w.into_pyarray(py))
@@ -323,9 +334,9 @@ impl PyPacked {
     ) -> PyResult<Bound<'py, PyArray2<f64>>> {
         let shape = [v.shape()[0], v.shape()[1]];
         let (x, vs) = (slice1(&x, "x")?, slice2(&v, "v")?);
-        let w = run(
+        let w = run_kernel(
             py,
-            "hvp",
+            "Hessian-vector product",
             |pool| on_storage!(&self.inner, p => batch::hvp_many(pool, p, x, vs, shape[1])),
         )?;
         w.into_pyarray(py).reshape(shape)
@@ -339,7 +350,7 @@ impl PyPacked {
     ) -> PyResult<Bound<'py, PyArray1<f64>>> {
         let b = xs.shape()[0];
         let xs = slice2(&xs, "x")?;
-        let e = run(
+        let e = run_kernel(
             py,
             "energy",
             |pool| on_storage!(&self.inner, p => batch::energy_batch(pool, p, xs, b)),
@@ -355,7 +366,7 @@ impl PyPacked {
     ) -> PyResult<EnergiesGradients<'py>> {
         let shape = [xs.shape()[0], xs.shape()[1]];
         let xs = slice2(&xs, "x")?;
-        let (e, g) = run(
+        let (e, g) = run_kernel(
             py,
             "gradient",
             |pool| on_storage!(&self.inner, p => batch::energy_gradient_batch(pool, p, xs, shape[0])),

@@ -109,3 +109,33 @@ def test_bad_coefficient_inputs():
     ham = oc.Hamiltonian.from_coefficients(3, {1: [1.0, 2.0, 3.0]})
     with pytest.raises(ValueError, match="no degree-2 term"):
         ham.coefficients(2)
+
+
+def test_overflowed_results_raise_instead_of_returning_nan(ham):
+    # finite inputs whose products pass the largest float64 (about 1.8e308)
+    x = np.full(N, 1e300)
+    for call in (ham.energy, ham.gradient, ham.energy_and_gradient):
+        with pytest.raises(NonFiniteError, match="overflowed float64"):
+            call(x)
+        with pytest.raises(NonFiniteError, match="overflowed float64"):
+            call(np.stack([np.ones(N), x, np.ones(N)]))  # one bad point spoils the batch call
+    with pytest.raises(NonFiniteError, match="Hessian overflowed"):
+        ham.hessian(np.full(N, 1e308))
+    with pytest.raises(NonFiniteError, match="Hessian-vector product overflowed"):
+        ham.hvp(np.ones(N), np.full(N, 1e308))
+    with pytest.raises(NonFiniteError, match="Hessian-vector product overflowed"):
+        ham.hvp(np.ones(N), np.full((N, 3), 1e308))
+    huge = oc.Hamiltonian.from_coefficients(2, {2: [1e308, 1e308, 1e308]})
+    with pytest.raises(NonFiniteError, match="energy overflowed"):
+        huge.energy(np.ones(2))
+
+
+def test_large_finite_results_are_returned(ham):
+    # exact identity: H(c x) = c^2 H_2(x) + c^3 H_3(x) for this mixture of degrees 2 and 3,
+    # so a large but representable result comes back, not an error
+    x = np.linspace(-1.0, 1.0, N)
+    c = 1e100
+    h2 = oc.Hamiltonian.from_coefficients(N, {2: ham.coefficients(2)}).energy(x)
+    h3 = oc.Hamiltonian.from_coefficients(N, {3: ham.coefficients(3)}).energy(x)
+    assert np.isclose(ham.energy(c * x), c**2 * h2 + c**3 * h3, rtol=1e-12)
+    assert np.isfinite(ham.hessian(c * x)).all()

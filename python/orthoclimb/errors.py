@@ -18,7 +18,8 @@ class ShapeError(ValueError):
 
 
 class NonFiniteError(ValueError):
-    """An input array holds NaN or infinity."""
+    """An input array holds NaN or infinity, or a kernel's result overflowed float64 although
+    its inputs were finite (for example at |x| = 1e300)."""
 
 
 class InsufficientMemoryError(MemoryError, ValueError):
