@@ -96,7 +96,7 @@ impl fmt::Display for CoreError {
             CoreError::Overflow { what } => write!(
                 f,
                 "the {what} overflowed float64: the result is not finite although every input \
-                 is; points are meant to lie on the unit sphere (|x| = 1), so rescale x"
+                 is (points are meant to lie on the unit sphere |x| = 1; check the inputs' scale)"
             ),
         }
     }
