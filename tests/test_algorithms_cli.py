@@ -78,3 +78,22 @@ def test_climb_bad_input(tmp_path, capsys, extra):
         args += extra
     assert main(args) == 2
     assert "error" in capsys.readouterr().err
+
+
+@pytest.mark.parametrize(
+    "command",
+    [
+        ["climb", "--gammas", "3:1", "--n", "10", "--seed", "1", "--steps", "2"],
+        ["sweep", "--gammas", "3:1", "--n", "10", "--seeds", "0-1", "--methods", "gradient"],
+    ],
+)
+def test_an_output_folder_that_cannot_be_made_is_a_message_not_a_traceback(
+    tmp_path, capsys, command
+):
+    blocker = tmp_path / "a-file"
+    blocker.write_text("not a folder")
+    code = main([*command, "--out", str(blocker / "out")])
+    err = capsys.readouterr().err
+    assert code == 1
+    assert f"orthoclimb {command[0]}: error:" in err and str(blocker) in err
+    assert "Traceback" not in err

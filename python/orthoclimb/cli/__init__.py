@@ -2,7 +2,9 @@
 
 Each subcommand lives in its own module with two functions: ``add_arguments(parser)`` and
 ``run(args) -> int``. Bad input (any ValueError/TypeError raised while running) is reported as
-``orthoclimb: error: ...`` with exit code 2, like argparse's own usage errors.
+``orthoclimb: error: ...`` with exit code 2, like argparse's own usage errors; a file-system
+failure (OSError: an output folder that cannot be created, a full disk) the same way with exit
+code 1.
 """
 
 from __future__ import annotations
@@ -50,6 +52,10 @@ def main(argv: Sequence[str] | None = None) -> int:
     except (ValueError, TypeError) as exc:
         print(f"orthoclimb {args.command}: error: {exc}", file=sys.stderr)
         return 2
+    except OSError as exc:  # a folder that cannot be made, a full disk: no traceback
+        where = f" ({exc.filename!r})" if exc.filename else ""
+        print(f"orthoclimb {args.command}: error: {exc.strerror or exc}{where}", file=sys.stderr)
+        return 1
     except KeyboardInterrupt:
         print(f"orthoclimb {args.command}: interrupted", file=sys.stderr)
         return 130
