@@ -119,8 +119,21 @@ impl KernelResult for f64 {
 }
 
 impl KernelResult for Vec<f64> {
+    /// x - x is 0 for a finite x and NaN for an infinity or NaN, so eight running sums of it
+    /// stay exactly 0 unless some value is not finite. Unlike a short-circuiting scan they
+    /// vectorize: 28 against 56 us for the 1.3 MB of an n = 400 Hessian (about 1 % of it).
+    #[allow(clippy::needless_range_loop)] // k indexes the sums and the chunk alike
+    #[allow(clippy::eq_op)] // x - x on purpose, see above
     fn all_finite(&self) -> bool {
-        self.iter().all(|v| v.is_finite())
+        let mut sums = [0.0f64; 8];
+        let chunks = self.chunks_exact(8);
+        let tail = chunks.remainder();
+        for c in chunks {
+            for k in 0..8 {
+                sums[k] += c[k] - c[k];
+            }
+        }
+        sums.iter().chain(tail).all(|v| v.is_finite())
     }
 }
 
@@ -201,6 +214,14 @@ mod tests {
         let pair = (1.0, vec![f64::NEG_INFINITY]);
         assert_eq!(finite("Hessian", pair), Err(overflow.clone()));
         assert_eq!(finite("Hessian", (f64::NAN, vec![1.0])), Err(overflow));
+        for bad in [f64::INFINITY, f64::NEG_INFINITY, f64::NAN] {
+            for at in [0, 7, 8, 61, 63, 64, 66] {
+                let mut v = vec![f64::MAX; 67]; // 8 chunks of 8 and a tail of 3
+                v[at] = bad;
+                assert!(!v.all_finite(), "{bad} at {at}");
+            }
+        }
+        assert!(vec![f64::MAX; 67].all_finite());
         let msg = CoreError::Overflow { what: "energy" }.to_string();
         assert!(msg.starts_with("the energy overflowed float64"), "{msg}");
     }
