@@ -1,17 +1,19 @@
 """Rough up-front cost of a study: memory of its largest instance and a time estimate.
 
-Time model (seconds, per task): a kernel pass at size n costs t_pass(n0) (n/n0)^P, with
-t_pass timed on the driver at a calibration size n0 (the largest size whose instance takes at
-most 64 MB, at most 120) and P the largest degree. Hessian ascent: K x (a Hessian pass plus
-Lanczos, about 1e-7 n^2 + 2e-3 s) plus about 150 energy-and-gradient passes for the polish;
-gradient ascent: about 500 passes x 1.5 for backtracking (its iteration count is not known in
-advance), capped by max_iter. The total is divided by the number of
-workers. It is a rough guide (a factor of 2 either way), printed before a sweep starts.
+Time model (seconds, per task): sampling the instance and a kernel pass at size n cost
+their time at a calibration size n0 times (n/n0)^P, both timed on the driver at n0 (the
+largest size whose instance takes at most 64 MB, at most 120), P the largest degree. Hessian
+ascent: K x (a Hessian pass plus Lanczos, about 1e-7 n^2 + 2e-3 s) plus about 150
+energy-and-gradient passes for the polish; gradient ascent: about 150 iterations x 1.5 passes
+for backtracking, capped by max_iter (its iteration count is not known in advance: the demo's
+grids took 60-200, about 75-330 passes). The total is divided by the number of workers. It is
+a rough guide (a factor of 2 either way), printed before a sweep starts.
 """
 
 from __future__ import annotations
 
 import math
+import time
 
 import numpy as np
 
@@ -47,16 +49,19 @@ def estimate_seconds(spec: StudySpec, tasks, workers: int, threads: int = 1) -> 
     old = get_num_threads()
     set_num_threads(max(1, threads))
     try:
-        cal: dict[str, tuple[int, float, float, int]] = {}
+        cal: dict[str, tuple[int, float, float, float, int]] = {}
         for m in spec.mixtures:
             mix = m.mixture
             fits = [n for n in spec.sizes if estimate_memory(mix, n) <= _CAL_BYTES]
             n0 = max(fits) if fits else min(spec.sizes)
             n0 = min(n0, 120)
+            started = time.perf_counter()
             ham = Hamiltonian.sample(mix, n0, seed=0)
+            sampling = time.perf_counter() - started
             x = np.full(n0, 1.0 / math.sqrt(n0))
             cal[m.name] = (
                 n0,
+                sampling,
                 best_time(lambda h=ham, v=x: h.hessian(v)),
                 best_time(lambda h=ham, v=x: h.energy_and_gradient(v)),
                 mix.max_degree,
@@ -65,13 +70,14 @@ def estimate_seconds(spec: StudySpec, tasks, workers: int, threads: int = 1) -> 
         set_num_threads(old)
     total = 0.0
     for t in tasks:
-        n0, th, tg, p = cal[t.mixture.name]
+        n0, ts, th, tg, p = cal[t.mixture.name]
         scale = (t.n / n0) ** p
         opts = dict(t.method.options)
+        total += scale * ts
         if t.method.name == "hessian":
             eigen = 1e-7 * t.n**2 + 2e-3  # Lanczos on the n x n tangent Hessian, per step
             k = auto_steps(t.n) if opts["steps"] == "auto" else opts["steps"]
             total += scale * (k * th + 150 * tg) + eigen * k
         else:
-            total += scale * min(500, opts["max_iter"]) * tg * 1.5
+            total += scale * min(150, opts["max_iter"]) * tg * 1.5
     return total / max(1, workers)
