@@ -77,5 +77,6 @@ def require_memory(needed: int, what: str) -> None:
     if needed > have:
         raise InsufficientMemoryError(
             f"{what} needs {needed} bytes ({format_bytes(needed)}) but only {have} bytes "
-            f"({format_bytes(have)}) are available; pass check_memory=False to try anyway"
+            f"({format_bytes(have)}) are available (in Python, check_memory=False skips this"
+            " check)"
         )
