@@ -68,7 +68,15 @@ def test_climb_baselines_json(tmp_path, capsys, method):
 
 
 @pytest.mark.parametrize(
-    "extra", [["--steps", "0"], ["--tol", "-1"], ["--n", "0"], ["--gammas", "9:1"]]
+    "extra",
+    [
+        ["--steps", "0"],
+        ["--tol", "-1"],
+        ["--n", "0"],
+        ["--gammas", "9:1"],
+        ["--seed", "-3"],
+        ["--start-seed", str(2**64)],
+    ],
 )
 def test_climb_bad_input(tmp_path, capsys, extra):
     args = ["climb", "--gammas", "3:1", "--n", "10", "--out", str(tmp_path)]

@@ -136,6 +136,9 @@ def run(args: argparse.Namespace) -> int:
         set_num_threads(args.threads)
     if args.n < 1:
         raise ValueError(f"--n must be >= 1, got {args.n}")
+    for flag, seed in (("--seed", args.seed), ("--start-seed", args.start_seed)):
+        if not 0 <= seed < 2**64:  # checked before anything is printed or sampled
+            raise ValueError(f"{flag} must be in [0, 2^64), got {seed}")
     default_steps = {"hessian": auto_steps(args.n), "gradient": 2000, "anneal": 400}[args.method]
     steps = default_steps if args.steps is None else args.steps
     if steps < 1:
