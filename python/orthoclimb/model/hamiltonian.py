@@ -268,6 +268,25 @@ class Hamiltonian:
             (n, n), matvec=matvec, rmatvec=matvec, matmat=matmat, dtype=np.float64
         )
 
+    # -- pickling and copying ------------------------------------------------------------
+
+    def __reduce__(self) -> tuple[Any, tuple[Any, ...]]:
+        """Pickle a sampled instance as its recipe (mixture, n, seed, dtype, correlation: a
+        few hundred bytes), regenerated bit for bit when unpickled, after the same memory
+        check as :meth:`sample`; given coefficients travel as their float64 arrays. So an
+        instance can be sent to ``multiprocessing`` or ``concurrent.futures`` workers."""
+        if self._mixture is not None:
+            recipe = (self._mixture, self.n, self._seed, self.dtype, self._correlated_with)
+            return (_unpickle_sampled, recipe)
+        coefficients = {p: self.coefficients(p) for p in self.degrees}
+        return (_unpickle_given, (self.n, coefficients, self.dtype))
+
+    def __copy__(self) -> Hamiltonian:
+        return self  # immutable: kernels only read the coefficients
+
+    def __deepcopy__(self, memo: dict[int, Any]) -> Hamiltonian:
+        return self
+
     # -- files -------------------------------------------------------------------------
 
     def save(self, path: str | os.PathLike, check_memory: bool = True) -> tuple[Path, ...]:
@@ -304,3 +323,13 @@ class Hamiltonian:
 
 
 __all__ = ["Hamiltonian", "MAX_DEGREE"]
+
+
+def _unpickle_sampled(
+    mixture: Mixture, n: int, seed: int, dtype: str, correlated_with: tuple[int, float] | None
+) -> Hamiltonian:
+    return Hamiltonian.sample(mixture, n, seed, dtype, correlated_with)
+
+
+def _unpickle_given(n: int, coefficients: dict[int, np.ndarray], dtype: str) -> Hamiltonian:
+    return Hamiltonian.from_coefficients(n, coefficients, dtype)
