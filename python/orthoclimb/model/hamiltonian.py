@@ -271,8 +271,8 @@ class Hamiltonian:
     # -- pickling and copying ------------------------------------------------------------
 
     def __reduce__(self) -> tuple[Any, tuple[Any, ...]]:
-        """Pickle a sampled instance as its recipe (mixture, n, seed, dtype, correlation: a
-        few hundred bytes), regenerated bit for bit when unpickled, after the same memory
+        """Pickle a sampled instance as its recipe (mixture, n, seed, dtype, correlation:
+        about 200 bytes), regenerated bit for bit when unpickled, after the same memory
         check as :meth:`sample`; given coefficients travel as their float64 arrays. So an
         instance can be sent to ``multiprocessing`` or ``concurrent.futures`` workers."""
         if self._mixture is not None:
