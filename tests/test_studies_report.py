@@ -98,6 +98,13 @@ def test_profile_command(tmp_path, capsys):
     prof = json.loads(capsys.readouterr().out)
     assert [r["n"] for r in prof["rows"]] == [30, 60]
     assert set(prof["exponents"]) >= {"energy", "hessian"}
+    # exact identities: N(n) = C(n+2, 3) coefficients at p = 3, and with two sizes the
+    # least-squares slope is the slope between them
+    for r in prof["rows"]:
+        assert r["coefficients"] == math.comb(r["n"] + 2, 3)
+        assert r["ns_per_coefficient"]["hvp"] == pytest.approx(1e9 * r["hvp"] / r["coefficients"])
+    for k, b in prof["exponents"].items():
+        assert prof["exponents_largest_pair"][k] == pytest.approx(b)
     assert (tmp_path / "p" / "profile.png").stat().st_size > 0
 
 
@@ -129,3 +136,18 @@ def test_paired_comparison_sign_test_is_the_exact_binomial():
     assert balanced["sign_p"] == pytest.approx(1.0) and balanced["diff"] == 0.0
     with pytest.raises(ValueError, match="at least 2 seeds"):
         paired_comparison(np.array([0.1]))
+
+
+def test_fit_exponents_recovers_power_laws():
+    from orthoclimb.studies.profile import KERNELS, fit_exponents
+
+    # synthetic times: t = c n^3 for every kernel except a fixed 1 ms added to the Hessian,
+    # whose fit must then fall below 3 over all sizes and approach 3 at the largest pair
+    rows = []
+    for n in (50, 100, 200, 400, 800):
+        row = {k: 2e-9 * n**3 for k in (*KERNELS, "sample")}
+        row["hessian"] += 1e-3
+        rows.append({"n": n, **row})
+    fit, pair = fit_exponents(rows[::-1])  # order of rows does not matter
+    assert fit["energy"] == pytest.approx(3.0) and pair["energy"] == pytest.approx(3.0)
+    assert fit["hessian"] < 2.9 < pair["hessian"] < 3.0

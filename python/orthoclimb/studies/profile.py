@@ -5,7 +5,11 @@ For each n: sample the instance, then time (best of ``repeats``) one pass of ``e
 pass reads all sum_p C(n+p-1, p) ~ n^P/P! coefficients once, so for large n the time grows like
 n^b with b close to the largest degree P. The exponent b is the slope of the least-squares line
 log t = log c + b log n (``numpy.polyfit``); with few or small sizes, fixed overheads pull b
-below P. Times are wall seconds with the current kernel thread count.
+below P. Two more figures show how far the sizes are from that regime: the slope between the
+two largest sizes alone, log(t2/t1) / log(n2/n1), and the time per coefficient, t / N(n) in
+nanoseconds, which levels off once a pass is bound by reading the coefficients (it rises
+again where they outgrow the last-level cache). Times are wall seconds with the current
+kernel thread count.
 """
 
 from __future__ import annotations
@@ -20,7 +24,7 @@ import numpy as np
 
 from ..fileio import save_figure_atomic, write_json_atomic
 
-__all__ = ["KERNELS", "plot_profile", "profile_kernels"]
+__all__ = ["KERNELS", "fit_exponents", "plot_profile", "profile_kernels"]
 
 KERNELS = ("energy", "energy_and_gradient", "hvp", "hessian")
 
@@ -51,28 +55,46 @@ def profile_kernels(mixture: Any, sizes: Sequence[int], repeats: int = 3) -> dic
         require_memory(need, f"an instance with n = {n}")
         t = time.perf_counter()
         ham = Hamiltonian.sample(mixture, n, seed=0)
-        row: dict[str, Any] = {"n": int(n), "bytes": int(need), "sample": time.perf_counter() - t}
+        row: dict[str, Any] = {
+            "n": int(n),
+            "coefficients": int(ham.num_coefficients),
+            "bytes": int(need),
+            "sample": time.perf_counter() - t,
+        }
         x = np.full(n, 1.0 / math.sqrt(n))
         v = np.random.default_rng(0).standard_normal(n)
         row["energy"] = best_time(lambda h=ham, x=x: h.energy(x), repeats)
         row["energy_and_gradient"] = best_time(lambda h=ham, x=x: h.energy_and_gradient(x), repeats)
         row["hvp"] = best_time(lambda h=ham, x=x, v=v: h.hvp(x, v), repeats)
         row["hessian"] = best_time(lambda h=ham, x=x: h.hessian(x), repeats)
+        row["ns_per_coefficient"] = {
+            k: 1e9 * row[k] / row["coefficients"] for k in (*KERNELS, "sample")
+        }
         rows.append(row)
         del ham
-    logn = np.log([r["n"] for r in rows])
-    exponents = {}
-    for k in (*KERNELS, "sample"):
-        t = np.array([r[k] for r in rows])
-        exponents[k] = float(np.polyfit(logn, np.log(np.maximum(t, 1e-9)), 1)[0])
+    exponents, last_pair = fit_exponents(rows)
     return {
         "mixture": mixture.to_text(),
         "max_degree": mixture.max_degree,
         "threads": get_num_threads(),
         "rows": rows,
         "exponents": exponents,
-        "units": "wall seconds per pass; exponent b of t ~ n^b",
+        "exponents_largest_pair": last_pair,
+        "units": "wall seconds per pass; exponent b of t ~ n^b; ns per coefficient",
     }
+
+
+def fit_exponents(rows: Sequence[dict[str, Any]]) -> tuple[dict[str, float], dict[str, float]]:
+    """(b over all sizes by least squares, b between the two largest sizes) per kernel and
+    for sampling, from rows holding ``n`` and a time per key (module doc)."""
+    rows = sorted(rows, key=lambda r: r["n"])
+    logn = np.log([r["n"] for r in rows])
+    fit, pair = {}, {}
+    for k in (*KERNELS, "sample"):
+        logt = np.log(np.maximum([r[k] for r in rows], 1e-9))
+        fit[k] = float(np.polyfit(logn, logt, 1)[0])
+        pair[k] = float((logt[-1] - logt[-2]) / (logn[-1] - logn[-2]))
+    return fit, pair
 
 
 def plot_profile(prof: dict[str, Any], path: str | Path) -> Path:
