@@ -50,7 +50,7 @@ def profile_kernels(mixture: Any, sizes: Sequence[int], repeats: int = 3) -> dic
     if repeats < 1:
         raise ValueError(f"--repeats must be >= 1, got {repeats}")
     rows = []
-    for n in sizes:
+    for n in sorted(sizes):  # rows in increasing n, whatever the order given
         need = estimate_memory(mixture, n)
         require_memory(need, f"an instance with n = {n}")
         t = time.perf_counter()
