@@ -195,12 +195,8 @@ fn group_pass<M: Madd, T: Coef>(
         )
     };
     let mut g0 = 0;
-    while stride - g0 >= WideTile::LANES[1] {
-        let lanes = if stride - g0 >= WideTile::LANES[0] {
-            WideTile::LANES[0]
-        } else {
-            WideTile::LANES[1]
-        };
+    // the wide lane groups, chosen as in `block_pass`
+    while let Some(lanes) = WideTile::LANES.into_iter().find(|&l| l <= stride - g0) {
         let mut s = [[[0f64; SUM_LANES]; 4]; SPAN_BLOCKS];
         let mut t = k;
         while t < n {
