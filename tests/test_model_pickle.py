@@ -24,7 +24,7 @@ def _same_instance(a: oc.Hamiltonian, b: oc.Hamiltonian) -> None:
         b.seed,
         b.correlated_with,
     )
-    assert a.mixture == b.mixture or (a.mixture is None and b.mixture is None)
+    assert a.mixture == b.mixture  # None for given coefficients
     for p in a.degrees:
         np.testing.assert_array_equal(a.coefficients(p), b.coefficients(p))
 
