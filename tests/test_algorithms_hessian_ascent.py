@@ -205,6 +205,8 @@ def test_deterministic_and_callback():
         ({"tol": float("nan")}, ValueError, "tol"),
         ({"tol": "1e-3"}, TypeError, "tol"),
         ({"seed": -1}, ValueError, "seed"),
+        ({"seed": 2**64}, ValueError, r"seed must be in \[0, 2\^64\)"),
+        ({"seed": 1.0}, TypeError, "seed"),
         ({"polish": "yes"}, TypeError, "polish"),
         ({"callback": 3}, TypeError, "callback"),
         ({"hessian": "sparse"}, ValueError, "hessian"),

@@ -9,7 +9,7 @@ import numpy as np
 
 from ..errors import ShapeError
 from ..model.arrays import as_float_array
-from ..model.hamiltonian import Hamiltonian
+from ..model.hamiltonian import Hamiltonian, _check_seed
 
 __all__ = [
     "check_count",
@@ -44,11 +44,8 @@ def check_positive(value: Any, name: str) -> float:
 
 
 def check_seed(seed: Any, name: str = "seed") -> int:
-    if isinstance(seed, bool) or not isinstance(seed, (int, np.integer)):
-        raise TypeError(f"{name} must be a nonnegative integer, got {seed!r}")
-    if seed < 0:
-        raise ValueError(f"{name} must be >= 0, got {seed}")
-    return int(seed)
+    """A start-point seed, in [0, 2^64) like the instance seeds (and the CLI's flags)."""
+    return _check_seed(seed, name)
 
 
 def check_unit_start(x: Any, n: int, name: str = "x") -> np.ndarray:
