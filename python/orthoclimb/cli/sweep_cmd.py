@@ -144,7 +144,7 @@ def execute(
         else:
             say(f"Dask scheduler: {args.scheduler}")
             workers, threads = 1, args.threads or 1
-        est = estimate_seconds(spec, pending, workers, threads)
+        est = estimate_seconds(spec, pending, workers, threads, embedded=plan is not None)
         where = " (for one worker of the external cluster)" if plan is None else ""
         say(f"rough time estimate: {est:.0f} s{where}", flush=True)
 

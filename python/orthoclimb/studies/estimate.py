@@ -6,14 +6,20 @@ largest size whose instance takes at most 64 MB, at most 120), P the largest deg
 ascent: K x (a Hessian pass plus Lanczos, about 1e-7 n^2 + 2e-3 s) plus about 150
 energy-and-gradient passes for the polish; gradient ascent: about 150 iterations x 1.5 passes
 for backtracking, capped by max_iter (its iteration count is not known in advance: the demo's
-grids took 60-200, about 75-330 passes). The total is divided by the number of workers. It is
-a rough guide (a factor of 2 either way), printed before a sweep starts.
+grids took 60-200, about 75-330 passes). Each task also costs about 0.02 s of Dask round trip
+and row writing, and an embedded cluster about 2 s to start (its worker processes start and
+import the package before their first task). Measured for ``demo --quick`` (72 small tasks, 2
+workers): the sweep took 4.1 s, of which its tasks' own sampling and running were 3.2 s over
+the two workers; a cluster started in 0.6 s and ran its first task, importing the package, in
+1.2-1.3 s; 200 empty tasks took 0.9 s. The total of the tasks is divided by the number of
+workers. It is a rough guide (a factor of 2 either way), printed before a sweep starts.
 """
 
 from __future__ import annotations
 
 import math
 import time
+from dataclasses import dataclass
 
 import numpy as np
 
@@ -21,9 +27,22 @@ from ..algorithms.hessian_ascent import auto_steps
 from .grid import StudySpec
 from .profile import best_time
 
-__all__ = ["estimate_seconds", "largest_instance"]
+__all__ = ["Calibration", "calibrate", "estimate_from", "estimate_seconds", "largest_instance"]
 
 _CAL_BYTES = 64 * 2**20
+_TASK_OVERHEAD = 0.02  # seconds per task: Dask round trip and the row's atomic write
+_CLUSTER_START = 2.0  # seconds: an embedded cluster's processes start and import the package
+
+
+@dataclass(frozen=True)
+class Calibration:
+    """Timings of one mixture at the calibration size ``n0`` (seconds, on the driver)."""
+
+    n0: int
+    sampling: float
+    hessian: float
+    energy_and_gradient: float
+    degree: int
 
 
 def largest_instance(spec: StudySpec, tasks=None) -> tuple[int, str, int]:
@@ -39,17 +58,16 @@ def largest_instance(spec: StudySpec, tasks=None) -> tuple[int, str, int]:
     return best
 
 
-def estimate_seconds(spec: StudySpec, tasks, workers: int, threads: int = 1) -> float:
-    """Rough wall-clock seconds for ``tasks`` on ``workers`` workers (see the module doc)."""
+def calibrate(spec: StudySpec, threads: int = 1) -> dict[str, Calibration]:
+    """Time sampling, a Hessian and an energy-and-gradient pass per mixture of ``spec`` at its
+    calibration size, with ``threads`` kernel threads (see the module doc)."""
     from ..model import Hamiltonian, estimate_memory
     from ..runtime import get_num_threads, set_num_threads
 
-    if not tasks:
-        return 0.0
     old = get_num_threads()
     set_num_threads(max(1, threads))
     try:
-        cal: dict[str, tuple[int, float, float, float, int]] = {}
+        cal: dict[str, Calibration] = {}
         for m in spec.mixtures:
             mix = m.mixture
             fits = [n for n in spec.sizes if estimate_memory(mix, n) <= _CAL_BYTES]
@@ -59,7 +77,7 @@ def estimate_seconds(spec: StudySpec, tasks, workers: int, threads: int = 1) -> 
             ham = Hamiltonian.sample(mix, n0, seed=0)
             sampling = time.perf_counter() - started
             x = np.full(n0, 1.0 / math.sqrt(n0))
-            cal[m.name] = (
+            cal[m.name] = Calibration(
                 n0,
                 sampling,
                 best_time(lambda h=ham, v=x: h.hessian(v)),
@@ -68,16 +86,34 @@ def estimate_seconds(spec: StudySpec, tasks, workers: int, threads: int = 1) -> 
             )
     finally:
         set_num_threads(old)
+    return cal
+
+
+def estimate_from(cal: dict[str, Calibration], tasks, workers: int, embedded: bool = True) -> float:
+    """Seconds for ``tasks`` on ``workers`` workers from the timings ``cal`` (module doc);
+    ``embedded`` adds the start of an embedded cluster."""
+    if not tasks:
+        return 0.0
     total = 0.0
     for t in tasks:
-        n0, ts, th, tg, p = cal[t.mixture.name]
-        scale = (t.n / n0) ** p
+        c = cal[t.mixture.name]
+        scale = (t.n / c.n0) ** c.degree
         opts = dict(t.method.options)
-        total += scale * ts
+        total += scale * c.sampling + _TASK_OVERHEAD
         if t.method.name == "hessian":
             eigen = 1e-7 * t.n**2 + 2e-3  # Lanczos on the n x n tangent Hessian, per step
             k = auto_steps(t.n) if opts["steps"] == "auto" else opts["steps"]
-            total += scale * (k * th + 150 * tg) + eigen * k
+            total += scale * (k * c.hessian + 150 * c.energy_and_gradient) + eigen * k
         else:
-            total += scale * min(150, opts["max_iter"]) * tg * 1.5
-    return total / max(1, workers)
+            total += scale * min(150, opts["max_iter"]) * c.energy_and_gradient * 1.5
+    return total / max(1, workers) + (_CLUSTER_START if embedded else 0.0)
+
+
+def estimate_seconds(
+    spec: StudySpec, tasks, workers: int, threads: int = 1, embedded: bool = True
+) -> float:
+    """Rough wall-clock seconds for ``tasks`` on ``workers`` workers (see the module doc):
+    :func:`calibrate` then :func:`estimate_from`."""
+    if not tasks:
+        return 0.0
+    return estimate_from(calibrate(spec, threads), tasks, workers, embedded)

@@ -1,0 +1,82 @@
+"""The sweep's up-front time estimate: structure of the model on synthetic timings (exact
+arithmetic, no clock), and one real calibration."""
+
+from __future__ import annotations
+
+import pytest
+
+import orthoclimb as oc
+from orthoclimb.studies.estimate import (
+    Calibration,
+    calibrate,
+    estimate_from,
+    estimate_seconds,
+)
+from orthoclimb.studies.grid import MethodSpec, MixtureSpec, StudySpec
+
+
+def _spec(sizes=(20, 40), seeds=(0, 1), methods=("gradient",)) -> StudySpec:
+    mix = MixtureSpec.make(oc.Mixture({3: 1.0}), "cubic")
+    return StudySpec((mix,), tuple(sizes), tuple(seeds), tuple(MethodSpec.make(m) for m in methods))
+
+
+def _cal(**timings) -> dict[str, Calibration]:
+    base = {"n0": 20, "sampling": 0.0, "hessian": 0.0, "energy_and_gradient": 0.0, "degree": 3}
+    base.update(timings)
+    return {"cubic": Calibration(**base)}
+
+
+def test_fixed_costs_alone():
+    # with free kernels, only the per-task overhead (spread over the workers) and the embedded
+    # cluster's start remain; an external cluster has no start cost
+    tasks = _spec().tasks()
+    assert len(tasks) == 4
+    per_task = estimate_from(_cal(), tasks[:1], workers=1, embedded=False)
+    assert per_task > 0
+    assert estimate_from(_cal(), tasks, workers=1, embedded=False) == pytest.approx(4 * per_task)
+    assert estimate_from(_cal(), tasks, workers=2, embedded=False) == pytest.approx(2 * per_task)
+    start = estimate_from(_cal(), tasks, 2, embedded=True) - estimate_from(_cal(), tasks, 2, False)
+    assert start > 0
+    # the start is paid once, not per task or per worker
+    assert estimate_from(_cal(), tasks[:1], 1, True) - per_task == pytest.approx(start)
+
+
+def test_kernel_costs_scale_as_n_to_the_degree():
+    # sampling and gradient passes cost (n / n0)^P times their calibration time (P = 3 here)
+    cal = _cal(sampling=1.0, energy_and_gradient=0.01)
+    small, large = _spec(seeds=(0,)).tasks()
+    assert (small.n, large.n) == (20, 40)
+    fixed = estimate_from(_cal(), [small], 1, embedded=False)
+    t_small = estimate_from(cal, [small], 1, embedded=False) - fixed
+    t_large = estimate_from(cal, [large], 1, embedded=False) - fixed
+    assert t_large / t_small == pytest.approx(2.0**3)
+
+
+def test_hessian_ascent_grows_with_its_steps():
+    cal = _cal(hessian=0.01, energy_and_gradient=0.001)
+    spec = _spec(seeds=(0,))
+    few = StudySpec(
+        spec.mixtures, spec.sizes, spec.seeds, (MethodSpec.make("hessian", {"steps": 10}),)
+    )
+    many = StudySpec(
+        spec.mixtures, spec.sizes, spec.seeds, (MethodSpec.make("hessian", {"steps": 20}),)
+    )
+    t_few = estimate_from(cal, few.tasks(), 1, embedded=False)
+    t_many = estimate_from(cal, many.tasks(), 1, embedded=False)
+    # ten more Hessian passes (and Lanczos solves) per task: at least 10 x 0.01 x (n/n0)^3 more
+    assert t_many - t_few >= 10 * 0.01 * (1 + 8) - 1e-12
+
+
+def test_no_tasks_cost_nothing():
+    assert estimate_from(_cal(), [], 2) == 0.0
+    assert estimate_seconds(_spec(), [], 2) == 0.0
+
+
+def test_real_calibration_is_positive_and_finite():
+    spec = _spec()
+    cal = calibrate(spec)
+    c = cal["cubic"]
+    assert c.n0 == 40 and c.degree == 3  # the largest size under the calibration limit
+    assert 0 < c.sampling < 10 and 0 < c.hessian < 10 and 0 < c.energy_and_gradient < 10
+    est = estimate_seconds(spec, spec.tasks(), workers=2)
+    assert 0 < est < 60
