@@ -9,8 +9,10 @@
 //! [`Exec::run_watched`] runs a call on the pool while the calling thread wakes up at a fixed
 //! interval to ask a `watch` closure whether to stop (the binding layer checks for Ctrl-C
 //! there), so a 10-second pass answers an interrupt within about one interval plus one chunk.
+//! A call may also count the work it has finished ([`Exec::add_done`]; sampling counts
+//! coefficients), which the watching thread reads with [`Exec::done`] to report progress.
 
-use std::sync::atomic::{AtomicBool, Ordering};
+use std::sync::atomic::{AtomicBool, AtomicU64, Ordering};
 use std::sync::mpsc::{sync_channel, RecvTimeoutError};
 use std::sync::Arc;
 use std::time::Duration;
@@ -19,11 +21,13 @@ use rayon::{ThreadPool, ThreadPoolBuilder};
 
 use crate::error::CoreError;
 
-/// A thread pool and one call's stop flag (cheap to clone; clones share both).
+/// A thread pool, one call's stop flag and its count of finished work (cheap to clone;
+/// clones share all three).
 #[derive(Clone)]
 pub struct Exec {
     pool: Arc<ThreadPool>,
     stop: Arc<AtomicBool>,
+    done: Arc<AtomicU64>,
 }
 
 impl Exec {
@@ -32,6 +36,7 @@ impl Exec {
         Exec {
             pool,
             stop: Arc::new(AtomicBool::new(false)),
+            done: Arc::new(AtomicU64::new(0)),
         }
     }
 
@@ -66,6 +71,17 @@ impl Exec {
     #[inline]
     pub fn stop_requested(&self) -> bool {
         self.stop.load(Ordering::Relaxed)
+    }
+
+    /// Counts `units` more of finished work (a call chooses its unit and documents it).
+    #[inline]
+    pub fn add_done(&self, units: u64) {
+        self.done.fetch_add(units, Ordering::Relaxed);
+    }
+
+    /// Work finished so far, in the running call's units (0 for calls that do not count).
+    pub fn done(&self) -> u64 {
+        self.done.load(Ordering::Relaxed)
     }
 
     /// `Err(Interrupted)` once a stop was requested.
@@ -141,6 +157,16 @@ mod tests {
         );
         assert_eq!(out, Err(CoreError::Interrupted));
         assert!(start.elapsed() < Duration::from_secs(2));
+    }
+
+    #[test]
+    fn finished_work_adds_up_across_threads() {
+        use rayon::prelude::*;
+        let ex = Exec::with_threads(2).unwrap();
+        assert_eq!(ex.done(), 0);
+        ex.install(|| (0..1000u64).into_par_iter().for_each(|i| ex.add_done(i)));
+        assert_eq!(ex.done(), 999 * 1000 / 2);
+        assert_eq!(ex.clone().done(), ex.done(), "clones share the count");
     }
 
     #[test]

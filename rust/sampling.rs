@@ -141,7 +141,8 @@ pub fn fill_range<T: Coef>(
 }
 
 /// Fills a whole degree-p block, in parallel on the pool of `exec`, with fixed chunks of
-/// `CHUNK` ranks. After a stop request the remaining chunks are skipped and the result is
+/// `CHUNK` ranks, counting each chunk's coefficients in [`Exec::add_done`] when it is written.
+/// After a stop request the remaining chunks are skipped and the result is
 /// `Err(Interrupted)` (the block is then incomplete and must be dropped).
 pub fn fill_block<T: Coef>(
     exec: &Exec,
@@ -157,6 +158,7 @@ pub fn fill_block<T: Coef>(
             .for_each(|(i, chunk)| {
                 if !exec.stop_requested() {
                     fill_range(n, p, gamma, disorder, i * CHUNK, chunk);
+                    exec.add_done(chunk.len() as u64);
                 }
             });
     });
@@ -222,9 +224,12 @@ mod tests {
         let d = Disorder::new(5);
         let mut one = vec![0f64; len];
         let mut two = vec![0f64; len];
-        fill_block(&pool(1), n, p, 0.5, &d, &mut one).unwrap();
-        fill_block(&pool(2), n, p, 0.5, &d, &mut two).unwrap();
+        let (ex1, ex2) = (pool(1), pool(2));
+        fill_block(&ex1, n, p, 0.5, &d, &mut one).unwrap();
+        fill_block(&ex2, n, p, 0.5, &d, &mut two).unwrap();
         assert_eq!(one, two);
+        // every coefficient is counted once as finished work, whatever the threads
+        assert_eq!((ex1.done(), ex2.done()), (len as u64, len as u64));
         let mut g = vec![0f64; len];
         gaussians(5, p, 0, &mut g);
         let mut idx = [0usize; 3];
