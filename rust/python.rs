@@ -92,12 +92,37 @@ fn run<T: Send>(
     what: &str,
     f: impl FnOnce(&Exec) -> Result<T, CoreError> + Send,
 ) -> PyResult<T> {
+    run_reporting(py, what, None, f)
+}
+
+/// [`run`], and while the call runs, `progress(done)` (a Python callable, with the GIL) at
+/// each poll where the call's count of finished work ([`Exec::done`]) has grown. An
+/// exception from `progress` stops the call and is its result, like one from a signal
+/// handler.
+fn run_reporting<T: Send>(
+    py: Python<'_>,
+    what: &str,
+    progress: Option<&Py<PyAny>>,
+    f: impl FnOnce(&Exec) -> Result<T, CoreError> + Send,
+) -> PyResult<T> {
     let exec = Exec::new(threads::shared_pool().map_err(|e| to_py_err(py, e))?);
     let mut raised: Option<PyErr> = None;
+    let mut reported = 0u64;
     let out = py.detach(|| {
         catch_unwind(AssertUnwindSafe(|| {
             exec.run_watched(SIGNAL_POLL, f, || {
-                match Python::attach(|py| py.check_signals()) {
+                let polled = Python::attach(|py| {
+                    py.check_signals()?;
+                    let done = exec.done();
+                    match progress {
+                        Some(cb) if done > reported => {
+                            reported = done;
+                            cb.call1(py, (done,)).map(drop)
+                        }
+                        _ => Ok(()),
+                    }
+                });
+                match polled {
                     Ok(()) => false,
                     Err(e) => {
                         raised = Some(e);
@@ -176,9 +201,12 @@ fn parse_dtype(py: Python<'_>, dtype: &str) -> PyResult<bool> {
 
 #[pymethods]
 impl PyPacked {
-    /// Samples the coefficients of every degree from the counter-based streams of `seed`.
+    /// Samples the coefficients of every degree from the counter-based streams of `seed`;
+    /// `progress(done)`, if given, is called about every 50 ms with the number of
+    /// coefficients written so far.
     #[staticmethod]
-    #[pyo3(signature = (n, degrees, gammas, seed, dtype="float64", correlated_with=None))]
+    #[pyo3(signature = (n, degrees, gammas, seed, dtype="float64", correlated_with=None, progress=None))]
+    #[allow(clippy::too_many_arguments)] // the Python signature's keyword arguments
     fn sample(
         py: Python<'_>,
         n: usize,
@@ -187,6 +215,7 @@ impl PyPacked {
         seed: u64,
         dtype: &str,
         correlated_with: Option<(u64, f64)>,
+        progress: Option<Py<PyAny>>,
     ) -> PyResult<Self> {
         if degrees.len() != gammas.len() {
             return Err(PyValueError::new_err(format!(
@@ -201,7 +230,7 @@ impl PyPacked {
             seed,
             correlated_with,
         };
-        let inner = run(py, "sampling", |pool| {
+        let inner = run_reporting(py, "sampling", progress.as_ref(), |pool| {
             Ok(if f32_storage {
                 Storage::F32(Packed::sample(pool, n, &terms, &disorder)?)
             } else {

@@ -1,5 +1,7 @@
 """Type stub of the Rust extension module (rust/python.rs). Use orthoclimb.Hamiltonian."""
 
+from collections.abc import Callable
+
 import numpy as np
 import numpy.typing as npt
 
@@ -18,6 +20,7 @@ class PackedPolynomial:
         seed: int,
         dtype: str = "float64",
         correlated_with: tuple[int, float] | None = None,
+        progress: Callable[[int], object] | None = None,
     ) -> PackedPolynomial: ...
     @staticmethod
     def from_coefficients(

@@ -2,7 +2,8 @@
 
 Before sampling it prints the memory the instance needs; after sampling it times one kernel
 pass on the instance and prints an estimate of the run time (steps x that pass, plus the
-polish). A tqdm progress bar shows step, q = |x|^2 and the energy per spin. At the end it
+polish). tqdm progress bars count the coefficients while sampling takes more than half a
+second, then show step, q = |x|^2 and the energy per spin. At the end it
 prints the energy per spin, ALG, the Parisi ground state GS (when the solver converges), the
 gaps, the local-maximum check and the time, and writes into ``--out``: ``result.json`` and
 ``result.npz`` (see :meth:`orthoclimb.Result.save`) and ``path.png`` (energy along the path vs
@@ -152,7 +153,8 @@ def run(args: argparse.Namespace) -> int:
         f"{format_bytes(need)} of coefficients; {get_num_threads()} threads, {kernel_path()}"
     )
     require_memory(need, f"an instance of {mixture!r} with n = {args.n}")
-    ham = Hamiltonian.sample(mixture, args.n, args.seed, dtype=args.dtype)
+    quiet = args.no_progress or args.json
+    ham = Hamiltonian.sample(mixture, args.n, args.seed, dtype=args.dtype, progress=not quiet)
     one = _time_pass(ham, args.method)
     what = "Hessian" if args.method == "hessian" else "gradient"
     say(f"one {what} pass: {one * 1e3:.1f} ms; estimated run time {1.3 * steps * one:.1f} s")
@@ -160,7 +162,7 @@ def run(args: argparse.Namespace) -> int:
     from tqdm import tqdm
 
     total = steps - 1 if args.method == "hessian" else steps
-    bar = tqdm(total=total, disable=args.no_progress or args.json, unit="step", leave=False)
+    bar = tqdm(total=total, disable=quiet, unit="step", leave=False)
 
     def progress(row: dict[str, Any]) -> None:
         bar.update(1)

@@ -1,0 +1,61 @@
+"""Progress reports while sampling: the core's callback and Hamiltonian.sample(progress=True)."""
+
+from __future__ import annotations
+
+import math
+
+import numpy as np
+import pytest
+
+import orthoclimb as oc
+from orthoclimb import _core
+
+
+@pytest.fixture
+def one_thread():
+    old = oc.get_num_threads()
+    oc.set_num_threads(1)
+    yield
+    oc.set_num_threads(old)
+
+
+def test_callback_counts_coefficients_and_changes_nothing(one_thread):
+    # n = 400 at p = 3 (10.8 million coefficients) takes about 0.4 s on one thread here, so
+    # the 50 ms poll reports several times
+    n, total = 400, math.comb(402, 3)
+    seen: list[int] = []
+    with_cb = _core.PackedPolynomial.sample(n, [3], [1.0], 7, "float64", None, seen.append)
+    plain = _core.PackedPolynomial.sample(n, [3], [1.0], 7)
+    assert len(seen) >= 2, seen
+    # reported only when the count grew
+    assert all(a < b for a, b in zip(seen[:-1], seen[1:], strict=True))
+    assert 0 < seen[0] and seen[-1] <= total
+    x = np.random.default_rng(0).standard_normal(n)
+    assert with_cb.energy(x) == plain.energy(x)  # same coefficients bit for bit
+
+
+def test_exception_in_callback_stops_sampling(one_thread):
+    def fail(done: int) -> None:
+        raise RuntimeError(f"stop at {done}")
+
+    with pytest.raises(RuntimeError, match="stop at"):
+        _core.PackedPolynomial.sample(400, [3], [1.0], 7, "float64", None, fail)
+
+
+def test_bar_on_stderr_for_a_slow_sample(one_thread, capsys):
+    # the bar appears only after half a second: n = 500 at p = 3 takes about 0.8 s here
+    ham = oc.Hamiltonian.sample(oc.Mixture({3: 1.0}), 500, seed=3, progress=True)
+    err = capsys.readouterr().err
+    assert "sampling n=500" in err and "coef" in err
+    x = np.random.default_rng(1).standard_normal(500)
+    assert ham.energy(x) == oc.Hamiltonian.sample(oc.Mixture({3: 1.0}), 500, seed=3).energy(x)
+
+
+def test_no_bar_for_a_fast_sample(capsys):
+    oc.Hamiltonian.sample(oc.Mixture({3: 1.0}), 30, seed=3, progress=True)
+    assert "sampling" not in capsys.readouterr().err
+
+
+def test_progress_must_be_a_bool():
+    with pytest.raises(TypeError, match="progress must be True or False, got 'yes'"):
+        oc.Hamiltonian.sample(oc.Mixture({3: 1.0}), 10, seed=3, progress="yes")
