@@ -20,9 +20,9 @@ def one_thread():
 
 
 def test_callback_counts_coefficients_and_changes_nothing(one_thread):
-    # n = 400 at p = 3 (10.8 million coefficients) takes about 0.4 s on one thread here, so
-    # the 50 ms poll reports several times
-    n, total = 400, math.comb(402, 3)
+    # n = 500 at p = 3 (21 million coefficients) takes about 0.8 s on one thread here, so
+    # the 50 ms poll reports many times
+    n, total = 500, math.comb(502, 3)
     seen: list[int] = []
     with_cb = _core.PackedPolynomial.sample(n, [3], [1.0], 7, "float64", None, seen.append)
     plain = _core.PackedPolynomial.sample(n, [3], [1.0], 7)
@@ -42,13 +42,12 @@ def test_exception_in_callback_stops_sampling(one_thread):
         _core.PackedPolynomial.sample(400, [3], [1.0], 7, "float64", None, fail)
 
 
-def test_bar_on_stderr_for_a_slow_sample(one_thread, capsys):
-    # the bar appears only after half a second: n = 500 at p = 3 takes about 0.8 s here
-    ham = oc.Hamiltonian.sample(oc.Mixture({3: 1.0}), 500, seed=3, progress=True)
+def test_bar_on_stderr(monkeypatch, capsys):
+    # shown at once with no delay (the default waits half a second of sampling)
+    monkeypatch.setattr("orthoclimb.model.hamiltonian._PROGRESS_DELAY", 0.0)
+    oc.Hamiltonian.sample(oc.Mixture({3: 1.0}), 40, seed=3, progress=True)
     err = capsys.readouterr().err
-    assert "sampling n=500" in err and "coef" in err
-    x = np.random.default_rng(1).standard_normal(500)
-    assert ham.energy(x) == oc.Hamiltonian.sample(oc.Mixture({3: 1.0}), 500, seed=3).energy(x)
+    assert "sampling n=40" in err and "100%" in err and "11.5k/11.5k" in err  # C(42, 3) = 11480
 
 
 def test_no_bar_for_a_fast_sample(capsys):

@@ -29,6 +29,7 @@ from .memory import check_size, estimate_memory, normalize_dtype, require_memory
 from .mixture import MAX_DEGREE, Mixture, _check_degree
 
 _SEED_LIMIT = 2**64
+_PROGRESS_DELAY = 0.5  # seconds of sampling before sample(progress=True) shows its bar
 
 
 def _check_seed(seed: Any, name: str = "seed") -> int:
@@ -121,8 +122,10 @@ class Hamiltonian:
         from tqdm import tqdm
 
         total = sum(math.comb(n + p - 1, p) for p in degrees)
-        bar = tqdm(total=total, unit="coef", unit_scale=True, desc=f"sampling n={n}", delay=0.5)
-        with bar:  # shown once sampling has taken half a second
+        bar = tqdm(
+            total=total, unit="coef", unit_scale=True, desc=f"sampling n={n}", delay=_PROGRESS_DELAY
+        )
+        with bar:
             core = _core.PackedPolynomial.sample(
                 n, degrees, gammas, seed, dtype, corr, lambda done: bar.update(done - bar.n)
             )
