@@ -100,6 +100,12 @@ pub fn advance(idx: &mut [usize], n: usize) -> bool {
 /// c(m) = p! / prod_i (multiplicity of i in m)!: the number of distinct orderings of the
 /// sorted multiset `idx`.
 pub fn orderings(idx: &[usize]) -> u64 {
+    factorial(idx.len()) / orderings_denominator(idx)
+}
+
+/// prod_i (multiplicity of i in m)!, the denominator of [`orderings`], for a sorted `idx`.
+#[inline]
+pub fn orderings_denominator(idx: &[usize]) -> u64 {
     let mut denom: u64 = 1;
     let mut run: u64 = 1;
     for w in idx.windows(2) {
@@ -110,7 +116,7 @@ pub fn orderings(idx: &[usize]) -> u64 {
             run = 1;
         }
     }
-    factorial(idx.len()) / denom
+    denom
 }
 
 /// n! for n <= 20.

@@ -25,7 +25,7 @@ use rand_chacha::ChaCha12Rng;
 use rand_core::{Rng, SeedableRng};
 use rayon::prelude::*;
 
-use crate::combinatorics::{advance, orderings, unrank, MAX_DEGREE};
+use crate::combinatorics::{advance, factorial, orderings_denominator, unrank, MAX_DEGREE};
 use crate::error::CoreError;
 use crate::exec::Exec;
 use crate::storage::Coef;
@@ -118,6 +118,10 @@ pub fn fill_range<T: Coef>(
     }
     unrank(n, p, r0, &mut idx[..p]);
     let base = (n as f64).sqrt() * gamma;
+    // base sqrt(c(m)) for the last denominator of c(m) seen: consecutive ranks mostly share
+    // it, so the division and the square root run only where it changes (same bits)
+    let fact = factorial(p);
+    let mut scale = (0u64, 0f64);
     let mut g = [0f64; BATCH];
     let mut g0 = [0f64; BATCH];
     let mut done = 0usize;
@@ -132,8 +136,11 @@ pub fn fill_range<T: Coef>(
             }
         }
         for (slot, gi) in out[done..done + len].iter_mut().zip(&g[..len]) {
-            let c = orderings(&idx[..p]) as f64;
-            *slot = T::from_f64(base * c.sqrt() * gi);
+            let denom = orderings_denominator(&idx[..p]);
+            if denom != scale.0 {
+                scale = (denom, base * ((fact / denom) as f64).sqrt());
+            }
+            *slot = T::from_f64(scale.1 * gi);
             advance(&mut idx[..p], n);
         }
         done += len;
@@ -168,7 +175,7 @@ pub fn fill_block<T: Coef>(
 #[cfg(test)]
 mod tests {
     use super::*;
-    use crate::combinatorics::num_multisets;
+    use crate::combinatorics::{num_multisets, orderings};
 
     fn pool(k: usize) -> Exec {
         Exec::with_threads(k).unwrap()
