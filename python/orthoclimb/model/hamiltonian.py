@@ -100,7 +100,7 @@ class Hamiltonian:
         that check; the allocation itself still fails cleanly if the system refuses).
         ``progress=True`` shows a tqdm bar on stderr counting the coefficients written, once
         sampling has taken half a second (large instances take a while: n = 2000 at p = 3,
-        10.7 GB, took about 50 s on two cores).
+        10.7 GB, took 41 s on two cores of a Xeon).
         """
         if not isinstance(mixture, Mixture):
             raise TypeError(f"mixture must be an orthoclimb.Mixture, got {type(mixture).__name__}")
