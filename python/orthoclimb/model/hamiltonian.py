@@ -108,14 +108,14 @@ class Hamiltonian:
         seed = _check_seed(seed)
         dtype = normalize_dtype(dtype)
         corr = _check_correlation(correlated_with)
+        if not isinstance(progress, (bool, np.bool_)):
+            raise TypeError(f"progress must be True or False, got {progress!r}")
         if check_memory:
             require_memory(
                 estimate_memory(mixture, n, dtype), f"an instance of {mixture!r} with n = {n}"
             )
         degrees = list(mixture.degrees)
         gammas = [mixture.gammas[p] for p in degrees]
-        if not isinstance(progress, (bool, np.bool_)):
-            raise TypeError(f"progress must be True or False, got {progress!r}")
         if not progress:
             core = _core.PackedPolynomial.sample(n, degrees, gammas, seed, dtype, corr)
             return cls(core, mixture, seed, corr)
