@@ -18,7 +18,8 @@
 //! The products over L and the sums over r only change with the run (all rows k0.. of one L),
 //! so they are formed once per run and the updates of g_{L_m}, w_{L_m} and H are made there.
 
-use crate::simd::{leave_one_out, leave_two_out, Madd, MAX_PREFIX};
+use crate::prefix::{leave_one_out, leave_two_out, MAX_PREFIX};
+use crate::simd::Madd;
 use crate::stagger::{rows_at, stagger4, stagger4_hess, HessRows, Runs};
 use crate::storage::Coef;
 

@@ -27,9 +27,8 @@ use crate::error::CoreError;
 use crate::exec::Exec;
 use crate::kernels::{check_len, energy, energy_gradient, items_for, pieces};
 use crate::partition::{reduce_sums, WorkItem};
-use crate::simd::{
-    dot, dot_axpy, leave_one_out, leave_two_out, simd_dispatch, Madd, Prefixes, MAX_PREFIX,
-};
+use crate::prefix::{leave_one_out, leave_two_out, Prefixes, MAX_PREFIX};
+use crate::simd::{dot, dot_axpy, simd_dispatch, Madd};
 use crate::stagger::{rows_at, Rows4, Runs};
 use crate::storage::{Coef, Packed};
 use crate::tile::{tile, TileSums, WideTile, SUM_LANES};

@@ -24,10 +24,11 @@ use crate::combinatorics::first_index_offset;
 use crate::error::CoreError;
 use crate::exec::Exec;
 use crate::partition::{plan, reduce, reduce_sums, Plan, WorkItem, CHUNK, QUANTUM};
+use crate::prefix::{leave_one_out, leave_two_out, Prefixes, MAX_PREFIX};
 use crate::quads::{energy_quads, gradient_quads, hessian4_quads, hessian_quads, hvp_quads};
 use crate::simd::{
-    axpy, dot, dot2_axpy, dot_axpy, dot_axpy2, dots4, dots4_axpy, dots8_axpy, leave_one_out,
-    leave_two_out, rows4, simd_dispatch, Madd, Prefixes, MAX_PREFIX,
+    axpy, dot, dot2_axpy, dot_axpy, dot_axpy2, dots4, dots4_axpy, dots8_axpy, rows4, simd_dispatch,
+    Madd,
 };
 use crate::stagger::Runs;
 use crate::storage::{Coef, Packed};

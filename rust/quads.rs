@@ -30,9 +30,8 @@
 
 use crate::adjacent::{energy_blocks, gradient_blocks, hessian_blocks, hvp_blocks, Leading};
 use crate::combinatorics::{first_index_offset, num_multisets};
-use crate::simd::{
-    dots4, dots4_axpy, dots8_axpy, rows4, rows4_shared2, Madd, Prefixes, MAX_PREFIX,
-};
+use crate::prefix::{Prefixes, MAX_PREFIX};
+use crate::simd::{dots4, dots4_axpy, dots8_axpy, rows4, rows4_shared2, Madd};
 use crate::stagger::Runs;
 use crate::storage::Coef;
 

@@ -17,7 +17,8 @@
 //! own lane, and a last, overlapping step covers len mod 4; in both, lanes outside a row get
 //! coefficient zero, so rows of length 4 and more never fall back to scalar steps.
 
-use crate::simd::{Madd, Prefixes};
+use crate::prefix::Prefixes;
+use crate::simd::Madd;
 use crate::storage::Coef;
 
 /// The runs of an item (first indices lo..hi of one degree p >= 2): for p >= 3, each
