@@ -80,3 +80,16 @@ def test_real_calibration_is_positive_and_finite():
     assert 0 < c.sampling < 10 and 0 < c.hessian < 10 and 0 < c.energy_and_gradient < 10
     est = estimate_seconds(spec, spec.tasks(), workers=2)
     assert 0 < est < 60
+
+
+def test_calibration_size_comes_from_the_mixtures_own_sizes():
+    # a mixture with its own sizes is calibrated at the largest of those (under 64 MB), not at
+    # the study's sizes, which it never runs
+    own = MixtureSpec.make(oc.Mixture({3: 1.0}), "own", sizes="10,30")
+    other = MixtureSpec.make(oc.Mixture({2: 1.0}), "study")
+    spec = StudySpec((own, other), (20, 50), (0,), (MethodSpec.make("gradient"),))
+    cal = calibrate(spec)
+    assert cal["own"].n0 == 30 and cal["study"].n0 == 50
+    # above the 64 MB limit the largest size that fits is taken: p = 3 at n = 800 needs 685 MB
+    big = MixtureSpec.make(oc.Mixture({3: 1.0}), "big", sizes="100,200,800")
+    assert calibrate(StudySpec((big,), (20,), (0,), spec.methods))["big"].n0 == 200
