@@ -4,9 +4,9 @@ Time model (seconds, per task): sampling the instance and a kernel pass at size 
 their time at a calibration size n0 times (n/n0)^P, both timed on the driver at n0 (the
 largest of the mixture's sizes whose instance takes at most 64 MB, at most 400), P the largest
 degree. The cost per coefficient falls as n grows (per-segment overheads), so n0 is taken as
-large as that allows: for the demo, n0 = 120 instead of 320 for its cubic mixture gave 101 s
-for a 55 s sweep, n0 = 320 gives 72 s (calibration 0.5 s). Hessian
-ascent: K x (a Hessian pass plus Lanczos, about 1e-7 n^2 + 2e-3 s) plus about 150
+large as that allows. Hessian ascent: K x (a Hessian pass plus Lanczos, about 6e-4 + 1.1e-8
+n^2 s: medians per step on one thread 0.7, 1.4 and 1.8 ms at n = 100, 220 and 320 for the
+pure 3-spin model, 3.9 and 10.4 ms at n = 600 and 1000 for the pure 2-spin one) plus about 150
 energy-and-gradient passes for the polish; gradient ascent: about 150 iterations x 1.5 passes
 for backtracking, capped by max_iter (its iteration count is not known in advance: the demo's
 grids took 60-200, about 75-330 passes). Each task also costs about 0.02 s of Dask round trip
@@ -15,7 +15,9 @@ import the package before their first task). Measured for ``demo --quick`` (72 s
 workers): the sweep took 4.1 s, of which its tasks' own sampling and running were 3.2 s over
 the two workers; a cluster started in 0.6 s and ran its first task, importing the package, in
 1.2-1.3 s; 200 empty tasks took 0.9 s. The total of the tasks is divided by the number of
-workers. It is a rough guide (a factor of 2 either way), printed before a sweep starts.
+workers. It is a rough guide (a factor of 2 either way), printed before a sweep starts. For
+the demo (55 s) it gave 101 s with n0 at most 120 and a Lanczos term of 1e-7 n^2 + 2e-3 s
+(ten times the measured one); it now gives 58 s, and 3.6 s for ``demo --quick`` (3.3 s).
 """
 
 from __future__ import annotations
@@ -105,7 +107,7 @@ def estimate_from(cal: dict[str, Calibration], tasks, workers: int, embedded: bo
         opts = dict(t.method.options)
         total += scale * c.sampling + _TASK_OVERHEAD
         if t.method.name == "hessian":
-            eigen = 1e-7 * t.n**2 + 2e-3  # Lanczos on the n x n tangent Hessian, per step
+            eigen = 6e-4 + 1.1e-8 * t.n**2  # Lanczos on the n x n tangent Hessian, per step
             k = auto_steps(t.n) if opts["steps"] == "auto" else opts["steps"]
             total += scale * (k * c.hessian + 150 * c.energy_and_gradient) + eigen * k
         else:
