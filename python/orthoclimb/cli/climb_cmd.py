@@ -23,6 +23,7 @@ from typing import Any
 import numpy as np
 
 from ..model import Hamiltonian, Mixture, estimate_memory
+from ..model.hamiltonian import _check_seed
 from ..model.memory import format_bytes, require_memory
 from ..runtime import get_num_threads, kernel_path, set_num_threads
 
@@ -138,8 +139,7 @@ def run(args: argparse.Namespace) -> int:
     if args.n < 1:
         raise ValueError(f"--n must be >= 1, got {args.n}")
     for flag, seed in (("--seed", args.seed), ("--start-seed", args.start_seed)):
-        if not 0 <= seed < 2**64:  # checked before anything is printed or sampled
-            raise ValueError(f"{flag} must be in [0, 2^64), got {seed}")
+        _check_seed(seed, flag)  # the library's rule, before anything is printed or sampled
     default_steps = {"hessian": auto_steps(args.n), "gradient": 2000, "anneal": 400}[args.method]
     steps = default_steps if args.steps is None else args.steps
     if steps < 1:
