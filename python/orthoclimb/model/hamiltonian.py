@@ -116,20 +116,10 @@ class Hamiltonian:
             )
         degrees = list(mixture.degrees)
         gammas = [mixture.gammas[p] for p in degrees]
-        if not progress:
+        if progress:
+            core = _sample_with_bar(n, degrees, gammas, seed, dtype, corr)
+        else:
             core = _core.PackedPolynomial.sample(n, degrees, gammas, seed, dtype, corr)
-            return cls(core, mixture, seed, corr)
-        from tqdm import tqdm
-
-        total = sum(math.comb(n + p - 1, p) for p in degrees)
-        bar = tqdm(
-            total=total, unit="coef", unit_scale=True, desc=f"sampling n={n}", delay=_PROGRESS_DELAY
-        )
-        with bar:
-            core = _core.PackedPolynomial.sample(
-                n, degrees, gammas, seed, dtype, corr, lambda done: bar.update(done - bar.n)
-            )
-            bar.update(total - bar.n)
         return cls(core, mixture, seed, corr)
 
     @classmethod
@@ -343,6 +333,30 @@ class Hamiltonian:
 
 
 __all__ = ["Hamiltonian", "MAX_DEGREE"]
+
+
+def _sample_with_bar(
+    n: int,
+    degrees: list[int],
+    gammas: list[float],
+    seed: int,
+    dtype: str,
+    corr: tuple[int, float] | None,
+) -> _core.PackedPolynomial:
+    """The core's sampling with a tqdm bar counting the coefficients written (shown once it
+    has taken ``_PROGRESS_DELAY`` seconds)."""
+    from tqdm import tqdm
+
+    total = sum(math.comb(n + p - 1, p) for p in degrees)
+    bar = tqdm(
+        total=total, unit="coef", unit_scale=True, desc=f"sampling n={n}", delay=_PROGRESS_DELAY
+    )
+    with bar:
+        core = _core.PackedPolynomial.sample(
+            n, degrees, gammas, seed, dtype, corr, lambda done: bar.update(done - bar.n)
+        )
+        bar.update(total - bar.n)
+    return core
 
 
 def _unpickle_sampled(
