@@ -266,7 +266,7 @@ unsafe fn prefetch_segments<T: Coef>(pa: &[*const T; 4], i: usize) {
 
 /// Four segments at once: s_j = sum_t a_j,t x_t (and, with `v`, sum_t a_j,t v_t),
 /// z_t += w_0 a_0,t + w_1 a_1,t + w_2 a_2,t + w_3 a_3,t, summed as in
-/// [`crate::simd::weighted4`].
+/// [`crate::portable::weighted4`].
 #[inline(always)]
 fn dots_axpy4<T: Coef, const WITH_V: bool, const WITH_Z: bool>(
     a: [&[T]; 4],
@@ -323,7 +323,7 @@ fn dots_axpy4<T: Coef, const WITH_V: bool, const WITH_Z: bool>(
         let mut sv = [hsum(av[0]), hsum(av[1]), hsum(av[2]), hsum(av[3])];
         let (mut tx, mut tv) = ([0f64; 4], [0f64; 4]);
         while i < len {
-            let c = crate::simd::coef4(&a, i);
+            let c = crate::portable::coef4(&a, i);
             for j in 0..4 {
                 tx[j] = c[j].mul_add(x[i], tx[j]);
                 if WITH_V {
@@ -331,7 +331,7 @@ fn dots_axpy4<T: Coef, const WITH_V: bool, const WITH_Z: bool>(
                 }
             }
             if WITH_Z {
-                z[i] += crate::simd::weighted4::<Fused, T>(w, c);
+                z[i] += crate::portable::weighted4::<Fused, T>(w, c);
             }
             i += 1;
         }
@@ -454,7 +454,7 @@ fn rows4_shared<T: Coef, const TWO: bool>(
         let mut out = [hsum(acc[0]), hsum(acc[1]), hsum(acc[2]), hsum(acc[3])];
         let mut tail = [0f64; 4];
         while i < len {
-            let c = crate::simd::coef4(&a, i);
+            let c = crate::portable::coef4(&a, i);
             for j in 0..4 {
                 tail[j] = c[j].mul_add(x[i], tail[j]);
                 *py[j].add(i) = w.mul_add(c[j], *py[j].add(i));

@@ -18,6 +18,7 @@ pub mod exec;
 pub mod kernels;
 mod pages;
 pub mod partition;
+pub mod portable;
 pub mod prefix;
 mod quads;
 pub mod sampling;

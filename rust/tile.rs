@@ -158,7 +158,7 @@ impl WideTile {
         );
     }
 
-    /// [`crate::avx512::wide_span`] for `lanes` (32 or 16) lanes: the energy sums over the
+    /// `crate::avx512::wide_span` for `lanes` (32 or 16) lanes: the energy sums over the
     /// positions `range` only, continued in `s`, prefetching the segments `next`.
     #[inline]
     #[allow(clippy::too_many_arguments)]
