@@ -17,21 +17,22 @@
 //! positional product rule counts them (d/dx x^2 = 2x). These satisfy the Euler identities
 //! x . grad H_p = p H_p and Hess H_p x = (p - 1) grad H_p, which the tests check.
 
-use rayon::prelude::*;
-
 use crate::adjacent::energy_blocks;
 use crate::combinatorics::first_index_offset;
 use crate::error::CoreError;
 use crate::exec::Exec;
 use crate::partition::{plan, reduce, reduce_sums, Plan, WorkItem, CHUNK, QUANTUM};
-use crate::prefix::{leave_one_out, leave_two_out, Prefixes, MAX_PREFIX};
-use crate::quads::{energy_quads, gradient_quads, hessian4_quads, hessian_quads, hvp_quads};
-use crate::simd::{
-    axpy, dot, dot2_axpy, dot_axpy, dot_axpy2, dots4, dots4_axpy, dots8_axpy, rows4, simd_dispatch,
-    Madd,
-};
+use crate::prefix::{leave_one_out, Prefixes, MAX_PREFIX};
+use crate::quads::{energy_quads, gradient_quads};
+use crate::simd::{dot, dot_axpy, dots4, dots4_axpy, simd_dispatch, Madd};
 use crate::stagger::Runs;
 use crate::storage::{Coef, Packed};
+
+mod hessian;
+mod hvp;
+
+pub use hessian::hessian;
+pub use hvp::hvp;
 
 /// Most work items of one pass (enough to keep 64 threads busy).
 pub const MAX_PIECES: usize = 64;
@@ -95,6 +96,49 @@ fn gather(x: &[f64], idx: &[usize], out: &mut [f64; MAX_PREFIX]) {
     for (o, &i) in out.iter_mut().zip(idx) {
         *o = x[i];
     }
+}
+
+/// Scratch of the plain per-prefix steps (x and v over the prefix, leave-one-out and
+/// leave-two-out products), kept across prefixes so the 8 x 8 table is not zeroed for each.
+struct PrefixProducts {
+    xp: [f64; MAX_PREFIX],
+    vp: [f64; MAX_PREFIX],
+    q: [f64; MAX_PREFIX],
+    r: [[f64; MAX_PREFIX]; MAX_PREFIX],
+}
+
+impl PrefixProducts {
+    fn new() -> Self {
+        PrefixProducts {
+            xp: [0.0; MAX_PREFIX],
+            vp: [0.0; MAX_PREFIX],
+            q: [0.0; MAX_PREFIX],
+            r: [[0.0; MAX_PREFIX]; MAX_PREFIX],
+        }
+    }
+}
+
+/// The four segments of length `len` starting at `pos` (a group of the grouped passes).
+#[inline(always)]
+fn four_segments<'a, T>(coeffs: &'a [T], pos: &[usize; 4], len: usize) -> [&'a [T]; 4] {
+    [
+        &coeffs[pos[0]..pos[0] + len],
+        &coeffs[pos[1]..pos[1] + len],
+        &coeffs[pos[2]..pos[2] + len],
+        &coeffs[pos[3]..pos[3] + len],
+    ]
+}
+
+/// Start, within the item's coefficients, of the degree-3 segment of prefix (i, j), i <= j:
+/// offset(i) + sum_{k=i}^{j-1} (n - k), relative to the item start `base`.
+#[inline(always)]
+fn segment3(n: usize, base: usize, i: usize, j: usize) -> usize {
+    let skipped = if j == i {
+        0
+    } else {
+        (j - i) * n - (j - i) * (i + j - 1) / 2
+    };
+    first_index_offset(n, 3, i) - base + skipped
 }
 
 // ---------------------------------------------------------------------------------------
@@ -305,389 +349,6 @@ pub fn energy_gradient<T: Coef>(
     Ok((e[0], g))
 }
 
-// ---------------------------------------------------------------------------------------
-// Hessian
-
-/// Scratch of the plain per-prefix steps (x and v over the prefix, leave-one-out and
-/// leave-two-out products), kept across prefixes so the 8 x 8 table is not zeroed for each.
-struct PrefixProducts {
-    xp: [f64; MAX_PREFIX],
-    vp: [f64; MAX_PREFIX],
-    q: [f64; MAX_PREFIX],
-    r: [[f64; MAX_PREFIX]; MAX_PREFIX],
-}
-
-impl PrefixProducts {
-    fn new() -> Self {
-        PrefixProducts {
-            xp: [0.0; MAX_PREFIX],
-            vp: [0.0; MAX_PREFIX],
-            q: [0.0; MAX_PREFIX],
-            r: [[0.0; MAX_PREFIX]; MAX_PREFIX],
-        }
-    }
-}
-
-/// The Hessian contribution of one prefix `pre` (sorted, last index t0) with coefficient
-/// segment `seg` over t = t0..n, the plain way (see the module doc).
-#[inline(always)]
-fn hessian_prefix<M: Madd, T: Coef>(
-    n: usize,
-    seg: &[T],
-    (t0, pre): (usize, &[usize]),
-    x: &[f64],
-    acc: &mut [f64],
-    pp: &mut PrefixProducts,
-) {
-    let l = pre.len();
-    gather(x, pre, &mut pp.xp);
-    leave_one_out(&pp.xp[..l], &mut pp.q);
-    let q = &pp.q;
-    // Distinct prefix indices (equal ones are adjacent) and their summed row weights.
-    let (mut rows, mut weights, mut d) = ([0usize; MAX_PREFIX], [0f64; MAX_PREFIX], 0);
-    for j in 0..l {
-        if d > 0 && rows[d - 1] == pre[j] {
-            weights[d - 1] += q[j];
-        } else {
-            rows[d] = pre[j];
-            weights[d] = q[j];
-            d += 1;
-        }
-    }
-    // Row updates A[row, t0..] += weight * a, fused with S = sum_t a_t x_t when needed.
-    let first = 2.min(d);
-    if l >= 2 {
-        let s = if d >= 2 {
-            let (head, tail) = acc.split_at_mut(rows[1] * n);
-            dot_axpy2::<M, T>(
-                seg,
-                &x[t0..],
-                (&mut head[rows[0] * n + t0..rows[0] * n + n], weights[0]),
-                (&mut tail[t0..n], weights[1]),
-            )
-        } else {
-            let row = &mut acc[rows[0] * n + t0..rows[0] * n + n];
-            dot_axpy::<M, T>(seg, &x[t0..], row, weights[0])
-        };
-        leave_two_out(&pp.xp[..l], &mut pp.r);
-        for j in 0..l {
-            for k in j + 1..l {
-                acc[pre[j] * n + pre[k]] += pp.r[j][k] * s;
-            }
-        }
-    } else {
-        axpy::<M, T>(&mut acc[rows[0] * n + t0..rows[0] * n + n], weights[0], seg);
-    }
-    for e in first..d {
-        axpy::<M, T>(&mut acc[rows[e] * n + t0..rows[e] * n + n], weights[e], seg);
-    }
-}
-
-#[inline(always)]
-fn hessian_item_body<M: Madd, T: Coef>(
-    n: usize,
-    a: &[T],
-    it: &WorkItem,
-    x: &[f64],
-    acc: &mut [f64],
-) {
-    if it.degree == 1 {
-        return; // a linear term has no curvature
-    }
-    if it.degree == 3 {
-        return hessian3_item_body::<M, T>(n, a, it, x, acc);
-    }
-    let coeffs = &a[it.start..it.start + it.len];
-    if it.degree == 4 {
-        return hessian4_quads::<M, T>(n, (it.lo, it.hi, it.start), coeffs, x, acc);
-    }
-    if it.degree >= 5 {
-        return hessian_quads::<M, T>(n, it.degree, (it.lo, it.hi, it.start), coeffs, x, acc);
-    }
-    let mut walk = Prefixes::new(n, it.degree, it.lo, it.hi);
-    let mut pp = PrefixProducts::new();
-    while let Some((t0, pos)) = walk.next_prefix() {
-        let seg = &coeffs[pos..pos + n - t0];
-        hessian_prefix::<M, T>(n, seg, (t0, walk.prefix()), x, acc, &mut pp);
-    }
-}
-
-/// The four segments of length `len` starting at `pos` (a group of the grouped passes).
-#[inline(always)]
-fn four_segments<'a, T>(coeffs: &'a [T], pos: &[usize; 4], len: usize) -> [&'a [T]; 4] {
-    [
-        &coeffs[pos[0]..pos[0] + len],
-        &coeffs[pos[1]..pos[1] + len],
-        &coeffs[pos[2]..pos[2] + len],
-        &coeffs[pos[3]..pos[3] + len],
-    ]
-}
-
-/// Start, within the item's coefficients, of the degree-3 segment of prefix (i, j), i <= j:
-/// offset(i) + sum_{k=i}^{j-1} (n - k), relative to the item start `base`.
-#[inline(always)]
-fn segment3(n: usize, base: usize, i: usize, j: usize) -> usize {
-    let skipped = if j == i {
-        0
-    } else {
-        (j - i) * n - (j - i) * (i + j - 1) / 2
-    };
-    first_index_offset(n, 3, i) - base + skipped
-}
-
-/// The degree-3 Hessian pass of one item, four first indices at a time: for first indices
-/// g..g+4 and every second index j >= g + 4, the four segments share row j of the
-/// accumulator, which [`rows4`] reads and writes once for all four (the plain loop touches it
-/// once per segment, and at n in the hundreds those rows live in L2, not L1). Prefixes with
-/// j < g + 4 and first indices left over at the end of the item go the plain way.
-#[inline(always)]
-fn hessian3_item_body<M: Madd, T: Coef>(
-    n: usize,
-    a: &[T],
-    it: &WorkItem,
-    x: &[f64],
-    acc: &mut [f64],
-) {
-    let coeffs = &a[it.start..it.start + it.len];
-    let mut pp = PrefixProducts::new();
-    let mut g = it.lo;
-    while g + 4 <= it.hi {
-        for i in g..g + 4 {
-            for j in i..g + 4 {
-                let p = segment3(n, it.start, i, j);
-                hessian_prefix::<M, T>(n, &coeffs[p..p + n - j], (j, &[i, j]), x, acc, &mut pp);
-            }
-        }
-        let xi = [x[g], x[g + 1], x[g + 2], x[g + 3]];
-        let mut pos = [0usize; 4];
-        for (k, p) in pos.iter_mut().enumerate() {
-            *p = segment3(n, it.start, g + k, g + 4);
-        }
-        for j in g + 4..n {
-            let len = n - j;
-            let (head, tail) = acc.split_at_mut(j * n);
-            let (r0, rest) = head[g * n..(g + 4) * n].split_at_mut(n);
-            let (r1, rest) = rest.split_at_mut(n);
-            let (r2, r3) = rest.split_at_mut(n);
-            let s = rows4::<M, T>(
-                four_segments(coeffs, &pos, len),
-                &x[j..],
-                [&mut r0[j..], &mut r1[j..], &mut r2[j..], &mut r3[j..]],
-                x[j],
-                &mut tail[j..n],
-                xi,
-            );
-            for k in 0..4 {
-                acc[(g + k) * n + j] += s[k];
-                pos[k] += len;
-            }
-        }
-        g += 4;
-    }
-    for i in g..it.hi {
-        let mut p = segment3(n, it.start, i, i);
-        for j in i..n {
-            hessian_prefix::<M, T>(n, &coeffs[p..p + n - j], (j, &[i, j]), x, acc, &mut pp);
-            p += n - j;
-        }
-    }
-}
-
-simd_dispatch!(fn hessian_item => hessian_item_body(
-    n: usize, a: &[T], it: &WorkItem, x: &[f64], acc: &mut [f64]) -> ());
-
-/// The full n x n Hessian of H at x, row-major.
-pub fn hessian<T: Coef>(exec: &Exec, poly: &Packed<T>, x: &[f64]) -> Result<Vec<f64>, CoreError> {
-    let n = poly.n();
-    check_len("x", n, x.len())?;
-    let nn = n.checked_mul(n).ok_or_else(|| CoreError::SizeOverflow {
-        what: format!("Hessian of n = {n}"),
-    })?;
-    // width 1: a chunk spans several first indices, so the degree-3 pass can take them by four
-    let items = items_for(poly, pieces(poly.num_coefficients(), nn), 1, QUANTUM);
-    let blocks = poly.blocks();
-    let (_, mut upper) = reduce_sums(exec, &items, 0, nn, |it, _, acc| {
-        hessian_item::<T>(n, &blocks[it.block].coeffs, it, x, acc);
-    })?;
-    exec.install(|| symmetrize(&mut upper, n));
-    Ok(upper)
-}
-
-/// Replaces A by A + A^T in place (A is n x n row-major), in square tiles so that both the
-/// rows and the columns being read stay in cache. Bands of TILE rows go to the threads of the
-/// current pool: band b reads and writes the entries (i, j) and (j, i) with i in the band and
-/// j >= i, and no two bands share one, so each entry gets the same sum whatever the split.
-fn symmetrize(a: &mut [f64], n: usize) {
-    const TILE: usize = 32;
-    assert_eq!(a.len(), n * n);
-    /// The matrix shared by the bands (each writes only its own entries, see above).
-    struct Shared(*mut f64);
-    // SAFETY: the bands touch disjoint entries, so sharing the pointer across threads is sound.
-    unsafe impl Sync for Shared {}
-    let shared = Shared(a.as_mut_ptr());
-    (0..n.div_ceil(TILE)).into_par_iter().for_each(|band| {
-        let p = &shared;
-        let bi = band * TILE;
-        for bj in (bi..n).step_by(TILE) {
-            for i in bi..(bi + TILE).min(n) {
-                let j0 = if bi == bj { i } else { bj };
-                for j in j0..(bj + TILE).min(n) {
-                    // SAFETY: i, j < n, inside the n x n matrix; (i, j) and (j, i) with
-                    // i in this band and j >= i belong to this band only.
-                    unsafe {
-                        let (ij, ji) = (p.0.add(i * n + j), p.0.add(j * n + i));
-                        let s = *ij + *ji;
-                        *ij = s;
-                        *ji = s;
-                    }
-                }
-            }
-        }
-    });
-}
-
-// ---------------------------------------------------------------------------------------
-// Hessian-vector product (one direction; several directions are in `batch`)
-
-#[inline(always)]
-fn hvp_item_body<M: Madd, T: Coef>(
-    n: usize,
-    a: &[T],
-    it: &WorkItem,
-    x: &[f64],
-    v: &[f64],
-    w: &mut [f64],
-) {
-    if it.degree == 1 {
-        return;
-    }
-    let coeffs = &a[it.start..it.start + it.len];
-    if it.degree == 3 {
-        return hvp3_item_body::<M, T>(n, coeffs, it, x, v, w);
-    }
-    if it.degree >= 4 {
-        return hvp_quads::<M, T>(n, it.degree, (it.lo, it.hi, it.start), coeffs, (x, v), w);
-    }
-    let mut walk = Prefixes::new(n, it.degree, it.lo, it.hi);
-    let mut pp = PrefixProducts::new();
-    while let Some((t0, pos)) = walk.next_prefix() {
-        let seg = &coeffs[pos..pos + n - t0];
-        hvp_prefix::<M, T>(seg, (t0, walk.prefix()), (x, v), w, &mut pp);
-    }
-}
-
-/// The Hessian-vector contribution of one prefix `pre` (sorted, last index t0) with segment
-/// `seg`, the plain way (module doc): w_t += D a_t, w_{i_j} += Q_j Sv + dQ_j Sx.
-#[inline(always)]
-fn hvp_prefix<M: Madd, T: Coef>(
-    seg: &[T],
-    (t0, pre): (usize, &[usize]),
-    (x, v): (&[f64], &[f64]),
-    w: &mut [f64],
-    pp: &mut PrefixProducts,
-) {
-    let l = pre.len();
-    gather(x, pre, &mut pp.xp);
-    gather(v, pre, &mut pp.vp);
-    leave_one_out(&pp.xp[..l], &mut pp.q);
-    let (vp, q) = (&pp.vp, &pp.q);
-    let d: f64 = (0..l).map(|j| vp[j] * q[j]).sum();
-    let (sx, sv) = dot2_axpy::<M, T>(seg, &x[t0..], &v[t0..], &mut w[t0..], d);
-    if l >= 2 {
-        leave_two_out(&pp.xp[..l], &mut pp.r);
-    }
-    let r = &pp.r;
-    for j in 0..l {
-        let mut dq = 0.0;
-        for k in 0..l {
-            if k != j {
-                dq += vp[k] * if j < k { r[j][k] } else { r[k][j] };
-            }
-        }
-        w[pre[j]] += q[j] * sv + dq * sx;
-    }
-}
-
-/// The degree-3 HVP pass of one item (`coeffs` are the item's), four first indices at a time
-/// as in [`hessian3_item_body`]: the four segments of (g + k, j) share w_t, t >= j, and the
-/// reads of x_t and v_t, which [`dots8_axpy`] does once for all four.
-#[inline(always)]
-fn hvp3_item_body<M: Madd, T: Coef>(
-    n: usize,
-    coeffs: &[T],
-    it: &WorkItem,
-    x: &[f64],
-    v: &[f64],
-    w: &mut [f64],
-) {
-    let mut pp = PrefixProducts::new();
-    let mut g0 = it.lo;
-    while g0 + 4 <= it.hi {
-        for i in g0..g0 + 4 {
-            for j in i..g0 + 4 {
-                let p = segment3(n, it.start, i, j);
-                hvp_prefix::<M, T>(&coeffs[p..p + n - j], (j, &[i, j]), (x, v), w, &mut pp);
-            }
-        }
-        let (xi, vi) = (&x[g0..g0 + 4], &v[g0..g0 + 4]);
-        let mut pos = [0usize; 4];
-        for (k, p) in pos.iter_mut().enumerate() {
-            *p = segment3(n, it.start, g0 + k, g0 + 4);
-        }
-        for j in g0 + 4..n {
-            let len = n - j;
-            let (xj, vj) = (x[j], v[j]);
-            let mut d = [0f64; 4];
-            for k in 0..4 {
-                d[k] = vi[k] * xj + vj * xi[k];
-            }
-            let (sx, sv) = dots8_axpy::<M, T>(
-                four_segments(coeffs, &pos, len),
-                &x[j..],
-                &v[j..],
-                &mut w[j..],
-                d,
-            );
-            let mut wj = [0f64; 4];
-            for k in 0..4 {
-                w[g0 + k] += xj * sv[k] + vj * sx[k];
-                wj[k] = xi[k] * sv[k] + vi[k] * sx[k];
-                pos[k] += len;
-            }
-            w[j] += (wj[0] + wj[1]) + (wj[2] + wj[3]);
-        }
-        g0 += 4;
-    }
-    for i in g0..it.hi {
-        let mut p = segment3(n, it.start, i, i);
-        for j in i..n {
-            hvp_prefix::<M, T>(&coeffs[p..p + n - j], (j, &[i, j]), (x, v), w, &mut pp);
-            p += n - j;
-        }
-    }
-}
-
-simd_dispatch!(fn hvp_item => hvp_item_body(
-    n: usize, a: &[T], it: &WorkItem, x: &[f64], v: &[f64], w: &mut [f64]) -> ());
-
-/// Hess H(x) v for one direction v.
-pub fn hvp<T: Coef>(
-    exec: &Exec,
-    poly: &Packed<T>,
-    x: &[f64],
-    v: &[f64],
-) -> Result<Vec<f64>, CoreError> {
-    let n = poly.n();
-    check_len("x", n, x.len())?;
-    check_len("v", n, v.len())?;
-    let items = items_for(poly, pieces(poly.num_coefficients(), n), 3, QUANTUM);
-    let blocks = poly.blocks();
-    let (_, w) = reduce_sums(exec, &items, 0, n, |it, _, w| {
-        hvp_item::<T>(n, &blocks[it.block].coeffs, it, x, v, w);
-    })?;
-    Ok(w)
-}
-
 #[cfg(test)]
 pub(crate) mod tests {
     use super::*;
@@ -727,7 +388,7 @@ pub(crate) mod tests {
         (e, g, h)
     }
 
-    fn point(n: usize, s: f64) -> Vec<f64> {
+    pub fn point(n: usize, s: f64) -> Vec<f64> {
         (0..n).map(|i| ((i as f64 + 1.0) * s).sin()).collect()
     }
 
@@ -812,27 +473,6 @@ pub(crate) mod tests {
         assert!(num_multisets(n, 3).unwrap() > 50_000);
     }
 
-    /// The banded, threaded symmetrize gives A + A^T exactly, for sizes on and off the tile.
-    #[test]
-    fn symmetrize_gives_a_plus_its_transpose_on_any_pool() {
-        for n in [1usize, 31, 32, 77] {
-            let a: Vec<f64> = (0..n * n).map(|i| (i as f64 * 0.73).sin()).collect();
-            for k in [1, 3] {
-                let mut b = a.clone();
-                pool(k).install(|| symmetrize(&mut b, n));
-                for i in 0..n {
-                    for j in 0..n {
-                        assert_eq!(
-                            b[i * n + j],
-                            a[i * n + j] + a[j * n + i],
-                            "n {n} ({i}, {j})"
-                        );
-                    }
-                }
-            }
-        }
-    }
-
     #[test]
     fn pieces_grow_with_work_per_accumulator_entry() {
         let m = |n: usize, p: usize| num_multisets(n, p).unwrap();
@@ -843,23 +483,6 @@ pub(crate) mod tests {
         assert_eq!(pieces(m(120, 4), 120 * 120), 16);
         assert_eq!(pieces(m(400, 3), 400), 64);
         assert_eq!(pieces(usize::MAX / 2, 10), 64);
-    }
-
-    #[test]
-    fn hessian_with_several_accumulators_is_bitwise_identical_across_thread_counts() {
-        let n = 60; // 595,665 coefficients of degree 4: 4 accumulators
-        let poly =
-            Packed::<f64>::sample(&pool(2), n, &[(2, 1.0), (4, 0.5)], &Disorder::new(2)).unwrap();
-        assert!(pieces(poly.num_coefficients(), n * n) >= 4);
-        let x = point(n, 0.4);
-        let one = hessian(&pool(1), &poly, &x).unwrap();
-        for k in [2, 3] {
-            assert_eq!(hessian(&pool(k), &poly, &x).unwrap(), one);
-        }
-        let (_, _, h0) = naive(&poly, &x);
-        for (a, b) in one.iter().zip(&h0) {
-            assert!((a - b).abs() < 1e-9 * (1.0 + b.abs()));
-        }
     }
 
     /// The degree-3 passes and every degree >= 4 pass take first indices by four, and degree-2
