@@ -51,6 +51,42 @@ fn transpose(
     out
 }
 
+/// The points in lane layout, X[t, beta] = `rows()[t * stride + beta]`, padded with zero
+/// points up to `stride` lanes, starting on a 64-byte boundary (a cache line, one 512-bit
+/// vector). Where the stride is a multiple of 8 lanes (32 points, say), each 512-bit load of
+/// a lane row then reads one cache line instead of straddling two, whatever address the
+/// allocator returned (a batch of 32 energies at n = 400 was up to 10 % slower with its rows
+/// 16 bytes past a line, 3-4 % with them 32 bytes past; bench/NOTES.md).
+struct LaneRows {
+    buf: Vec<f64>,
+    off: usize,
+    len: usize,
+}
+
+impl LaneRows {
+    const LINE: usize = 64 / std::mem::size_of::<f64>();
+
+    /// The b points `xs` (b x n row-major) in lane layout of `stride` >= b lanes.
+    fn new(xs: &[f64], b: usize, n: usize, stride: usize) -> Self {
+        let len = n * stride;
+        let mut buf = vec![0.0; len + Self::LINE - 1];
+        // align_offset may decline (usize::MAX); the rows are then merely unaligned
+        let off = Some(buf.as_ptr().align_offset(64))
+            .filter(|&o| o < Self::LINE)
+            .unwrap_or(0);
+        for r in 0..b {
+            for c in 0..n {
+                buf[off + c * stride + r] = xs[r * n + c];
+            }
+        }
+        LaneRows { buf, off, len }
+    }
+
+    fn rows(&self) -> &[f64] {
+        &self.buf[self.off..self.off + self.len]
+    }
+}
+
 /// Per-lane products over the leading prefix indices of a run (all but the last):
 /// base[beta] = prod_m X[lead_m, beta] and, for the gradient, loo[m][beta] = the same product
 /// without factor m.
@@ -379,7 +415,8 @@ fn run_batch<T: Coef>(
     check_len("points (b x n)", len, xs.len())?;
     // lane layout, padded to a multiple of 4 lanes with zero points
     let stride = b.div_ceil(4) * 4;
-    let xt = transpose(xs, b, n, n, stride);
+    let lane_rows = LaneRows::new(xs, b, n, stride);
+    let xt = lane_rows.rows();
     let glen = if want_grad { n * stride } else { 0 };
     let width = if want_grad { 2 * stride } else { stride };
     let items = items_for(
@@ -394,7 +431,7 @@ fn run_batch<T: Coef>(
             n,
             &blocks[it.block].coeffs,
             it,
-            &xt,
+            xt,
             e,
             g,
             (exec, wide, spans),
@@ -627,6 +664,26 @@ mod tests {
         }
     }
 
+    /// The lane rows hold the transpose of the points, zero-padded, from a 64-byte boundary.
+    #[test]
+    fn lane_rows_are_the_padded_transpose_on_a_line_boundary() {
+        for (b, n, stride) in [(1, 1, 4), (6, 19, 8), (32, 7, 32), (5, 3, 8)] {
+            let xs: Vec<f64> = (0..b * n).map(|i| 1.0 + i as f64).collect();
+            for _ in 0..4 {
+                let lr = LaneRows::new(&xs, b, n, stride);
+                let rows = lr.rows();
+                assert_eq!(rows.as_ptr() as usize % 64, 0, "b {b} n {n}");
+                assert_eq!(rows.len(), n * stride);
+                for t in 0..n {
+                    for beta in 0..stride {
+                        let want = if beta < b { xs[beta * n + t] } else { 0.0 };
+                        assert_eq!(rows[t * stride + beta], want, "b {b} t {t} lane {beta}");
+                    }
+                }
+            }
+        }
+    }
+
     #[test]
     fn portable_and_vector_batch_paths_agree() {
         use crate::simd::{has_avx2_fma, Fused, Plain};
@@ -637,7 +694,8 @@ mod tests {
         let terms = [(1usize, 0.4), (2, 1.0), (3, 0.7), (4, 0.2)];
         let poly = Packed::<f32>::sample(&pool(2), n, &terms, &Disorder::new(8)).unwrap();
         let xs: Vec<f64> = (0..b * n).map(|i| ((i as f64) * 0.29).sin()).collect();
-        let xt = transpose(&xs, b, n, n, stride);
+        let lane_rows = LaneRows::new(&xs, b, n, stride);
+        let xt = lane_rows.rows();
         let exec = pool(1);
         let run = |fused: bool| {
             let (mut e, mut g) = (vec![0.0; stride], vec![0.0; n * stride]);
@@ -645,9 +703,9 @@ mod tests {
             for it in &items_for(&poly, 3, 1, 1).items {
                 let a = &poly.blocks()[it.block].coeffs;
                 if fused {
-                    batch_item_body::<Fused, f32>(n, a, it, &xt, &mut e, &mut g, walk);
+                    batch_item_body::<Fused, f32>(n, a, it, xt, &mut e, &mut g, walk);
                 } else {
-                    batch_item_body::<Plain, f32>(n, a, it, &xt, &mut e, &mut g, walk);
+                    batch_item_body::<Plain, f32>(n, a, it, xt, &mut e, &mut g, walk);
                 }
             }
             (e, g)
