@@ -22,13 +22,16 @@ pytestmark = pytest.mark.skipif(
 # The child measures how long a short version of the call takes, scales it to the full
 # call (kernel cost is linear in the number of directions / points; the full size grows on a
 # fast machine), interrupts the full call one second in, and reports the delay from the
-# signal to the KeyboardInterrupt.
+# signal to the KeyboardInterrupt. Each child first installs Python's own SIGINT handler: a
+# process started in the background by a non-interactive shell (as some CI runners start
+# their jobs) inherits SIGINT ignored, and Python then installs none.
 CHILD = textwrap.dedent(
     """
     import json, os, signal, threading, time
     import numpy as np
     import orthoclimb as oc
 
+    signal.signal(signal.SIGINT, signal.default_int_handler)
     CASE = {case!r}
     ham = oc.Hamiltonian.sample(oc.Mixture({{3: 1.0}}), 300, seed=5)
     rng = np.random.default_rng(0)
@@ -100,6 +103,7 @@ SAMPLING_CHILD = textwrap.dedent(
     import json, os, signal, threading, time
     import orthoclimb as oc
 
+    signal.signal(signal.SIGINT, signal.default_int_handler)
     mix = oc.Mixture({3: 1.0})
     t = time.perf_counter(); oc.Hamiltonian.sample(mix, 250, seed=1, dtype="float32")
     short = time.perf_counter() - t
