@@ -394,7 +394,7 @@ pub fn has_avx2_fma() -> bool {
 }
 
 /// Name of the instruction-set path the kernels take on this machine: "avx2+fma+avx512f"
-/// (AVX2 kernels, and the 512-bit tile of `crate::avx512` for batches of 16 or more points),
+/// (AVX2 kernels, and the 512-bit tile of `crate::avx512` for batches of 9 or more points),
 /// "avx2+fma" or "baseline" (portable code).
 pub fn simd_path() -> &'static str {
     if crate::tile::WideTile::detect().is_some() {
