@@ -11,7 +11,7 @@ use core::arch::x86_64::*;
 use crate::simd::Fused;
 use crate::stagger::{check_rows, lane_from, short_stagger4, split_update, HessRows, Rows4, Steps};
 use crate::storage::Coef;
-use crate::tile::{check_tile, tile_coef, TileSums, TILE_AHEAD};
+use crate::tile::{check_tile, next_block, tile_coef, TileSums};
 
 #[inline(always)]
 unsafe fn hsum(v: __m256d) -> f64 {
@@ -556,7 +556,7 @@ pub fn tile<T: Coef, const G: usize>(
     unsafe {
         let px = x.as_ptr();
         let mut acc = [[_mm256_setzero_pd(); G]; 4];
-        let mut pf = (rows[0].as_ptr() as *const u8).wrapping_add(TILE_AHEAD);
+        let mut pf = next_block(&rows, len);
         let step = 4 * std::mem::size_of::<T>();
         match grad {
             None => {
@@ -564,7 +564,7 @@ pub fn tile<T: Coef, const G: usize>(
                     tile_sums(&mut acc, tile_early(&rows, u), px.add(u * stride));
                 }
                 for u in head..len {
-                    _mm_prefetch::<_MM_HINT_T0>(pf as *const i8);
+                    _mm_prefetch::<_MM_HINT_T1>(pf as *const i8);
                     pf = pf.wrapping_add(step);
                     tile_sums(&mut acc, tile_at(&rows, u), px.add(u * stride));
                 }
@@ -579,7 +579,7 @@ pub fn tile<T: Coef, const G: usize>(
                     }
                 }
                 for u in 0..len {
-                    _mm_prefetch::<_MM_HINT_T0>(pf as *const i8);
+                    _mm_prefetch::<_MM_HINT_T1>(pf as *const i8);
                     pf = pf.wrapping_add(step);
                     let c = if u < head {
                         tile_early(&rows, u)

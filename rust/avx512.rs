@@ -24,7 +24,7 @@
 use core::arch::x86_64::*;
 
 use crate::storage::Coef;
-use crate::tile::{check_tile, tile_coef, TileSums, TILE_AHEAD};
+use crate::tile::{check_tile, next_block, tile_coef, TileSums};
 
 /// True when the processor has AVX-512F besides AVX2 and FMA (checked once, then cached by
 /// std).
@@ -134,7 +134,7 @@ pub unsafe fn wide_tile<T: Coef, const G: usize>(
     // u - r < len - r, its length; a prefetch never faults.
     let px = x.as_ptr();
     let mut acc = [[_mm512_setzero_pd(); G]; 4];
-    let mut pf = (rows[0].as_ptr() as *const u8).wrapping_add(TILE_AHEAD);
+    let mut pf = next_block(&rows, len);
     let step = 4 * std::mem::size_of::<T>();
     match grad {
         None => {
@@ -142,7 +142,7 @@ pub unsafe fn wide_tile<T: Coef, const G: usize>(
                 sums(&mut acc, coefs::<T, true>(&rows, u), px.add(u * stride));
             }
             for u in head..len {
-                _mm_prefetch::<_MM_HINT_T0>(pf as *const i8);
+                _mm_prefetch::<_MM_HINT_T1>(pf as *const i8);
                 pf = pf.wrapping_add(step);
                 if G == 4 {
                     prefetch_row::<G>(px.wrapping_add((u + X_AHEAD) * stride));
@@ -165,7 +165,7 @@ pub unsafe fn wide_tile<T: Coef, const G: usize>(
                 spread(&wv, c, pg.add(u * stride));
             }
             for u in head..len {
-                _mm_prefetch::<_MM_HINT_T0>(pf as *const i8);
+                _mm_prefetch::<_MM_HINT_T1>(pf as *const i8);
                 pf = pf.wrapping_add(step);
                 if G == 4 {
                     prefetch_row::<G>(px.wrapping_add((u + X_AHEAD) * stride));

@@ -26,12 +26,22 @@ pub const TILE_LANES: usize = 8;
 /// Widest lane group of any tile (the AVX-512 tile of `crate::avx512`: 32 lanes).
 pub const SUM_LANES: usize = 32;
 
-/// Prefetch distance of the AVX2 and AVX-512 tiles, in bytes. A tile reads its four rows
-/// (back to back in memory) one coefficient each per position, four slow interleaved streams
-/// that the hardware prefetcher followed poorly on a Xeon with a large, slow L3: without the
-/// software prefetch a batch of 4 points at p = 3, n = 400 took 9.0 ms on two threads, with
-/// it 5.8 ms (1024 bytes: 6.6 ms, 2048: 5.9 ms).
-pub(crate) const TILE_AHEAD: usize = 4096;
+/// Start of the prefetch sweep of the AVX2 and AVX-512 tiles: the bytes right after the
+/// block, where the next block of the run begins (the blocks of a run follow each other in
+/// memory). The tiles issue one L2 prefetch per position and advance it by four
+/// coefficients, the bytes they consume themselves, so the next block is in L2 when its
+/// turn comes. A tile reads its four rows one coefficient each per position, four slow
+/// interleaved streams that the hardware prefetcher followed poorly on a Xeon with a large,
+/// slow L3 (without a software prefetch, 4 points at p = 3, n = 400 took 9.0 ms on two
+/// threads, with a sweep 4 KiB ahead into L1 5.8 ms). A sweep 4 KiB ahead still lagged
+/// behind the block's third and fourth rows, which start 2 and 3 row lengths in; sweeping
+/// the next block into L2 instead took a further 3-13 % off energies of 2 to 32 points at n =
+/// 400 and 15-17 % off 2 to 8 points at n = 800 (bench/NOTES.md).
+#[inline(always)]
+pub(crate) fn next_block<T>(rows: &[&[T]; 4], len: usize) -> *const u8 {
+    // 4 len - 6 coefficients make the block; a prefetch is a hint, six past is as good
+    (rows[0].as_ptr() as *const u8).wrapping_add(4 * std::mem::size_of::<T>() * len)
+}
 
 /// Four sums per lane, one per row (lanes past the tile's width are left alone).
 pub type TileSums = [[f64; SUM_LANES]; 4];
