@@ -17,7 +17,8 @@ the two workers; a cluster started in 0.6 s and ran its first task, importing th
 1.2-1.3 s; 200 empty tasks took 0.9 s. The total of the tasks is divided by the number of
 workers. It is a rough guide (a factor of 2 either way), printed before a sweep starts. For
 the demo (55 s) it gave 101 s with n0 at most 120 and a Lanczos term of 1e-7 n^2 + 2e-3 s
-(ten times the measured one); it now gives 58 s, and 3.6 s for ``demo --quick`` (3.3 s).
+(ten times the measured one); it now gives 67-68 s (the whole demo then took 58-59 s), and
+4 s for ``demo --quick`` (whole runs of 3.3-6 s).
 """
 
 from __future__ import annotations
