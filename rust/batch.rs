@@ -43,12 +43,22 @@ fn transpose(
     dst_stride: usize,
 ) -> Vec<f64> {
     let mut out = vec![0.0; cols * dst_stride];
+    transpose_into(src, (rows, cols, src_stride), dst_stride, &mut out);
+    out
+}
+
+/// [`transpose`] into `out` (cols rows of length `dst_stride`, zeroed by the caller).
+fn transpose_into(
+    src: &[f64],
+    (rows, cols, src_stride): (usize, usize, usize),
+    dst_stride: usize,
+    out: &mut [f64],
+) {
     for r in 0..rows {
         for c in 0..cols {
             out[c * dst_stride + r] = src[r * src_stride + c];
         }
     }
-    out
 }
 
 /// The points in lane layout, X[t, beta] = `rows()[t * stride + beta]`, padded with zero
@@ -74,11 +84,7 @@ impl LaneRows {
         let off = Some(buf.as_ptr().align_offset(64))
             .filter(|&o| o < Self::LINE)
             .unwrap_or(0);
-        for r in 0..b {
-            for c in 0..n {
-                buf[off + c * stride + r] = xs[r * n + c];
-            }
-        }
+        transpose_into(xs, (b, n, n), stride, &mut buf[off..off + len]);
         LaneRows { buf, off, len }
     }
 
