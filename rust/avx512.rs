@@ -180,56 +180,71 @@ pub unsafe fn wide_tile<T: Coef, const G: usize>(
     store_sums(&acc, s);
 }
 
-/// The energy sums of the module doc over positions `from..to` only, continuing from the
-/// sums already in `s[r][..8 G]` (zeros before the first span) and leaving them there. Spans
-/// taken in increasing order give each (row, lane) the same multiply-adds in the same order
-/// as one [`wide_tile`] call. While it runs it prefetches `next`: four segments (row start
-/// pointers and a length in coefficients), the rows the caller reads after this span.
+/// The energy sums of the module doc for a group of consecutive blocks of one run, walked
+/// in spans of `span` positions: for each span, each block in turn over that span, so that
+/// the span's rows of X are read from L2 once for the group and then from L1.
+///
+/// Block b's rows are `blocks[b]`; it starts 4 b positions after block 0, so its X rows
+/// begin at `x[4 b stride..]`. Its sums go to `s[b][r][..8 G]`, continued from what is there
+/// (zeros for a fresh group). Each (row, lane) still takes its positions in order, so the sums
+/// are bitwise those of one [`wide_tile`] per block. Along the way it sweeps `pf` (the next
+/// group) into L2 at the rate it reads its own coefficients, as [`wide_tile`] does. The whole
+/// walk is one function so that no call or check sits between a block's spans.
 ///
 /// # Safety
 /// The processor must have AVX-512F, AVX2 and FMA ([`wide_tile_available`]).
 #[target_feature(enable = "avx512f,avx2,fma")]
 #[allow(clippy::needless_range_loop)] // r and k index rows and lanes of several arrays
-pub unsafe fn wide_span<T: Coef, const G: usize>(
-    rows: [&[T]; 4],
+pub unsafe fn wide_group<T: Coef, const G: usize>(
+    blocks: &[[&[T]; 4]],
     x: &[f64],
     stride: usize,
-    (from, to): (usize, usize),
-    next: ([*const T; 4], usize),
-    s: &mut TileSums,
+    span: usize,
+    pf: *const u8,
+    s: &mut [TileSums],
 ) {
     const { assert!(G == 2 || G == 4) };
-    let len = check_tile(&rows, x, stride, 8 * G);
-    assert!(from <= to && to <= len);
-    // SAFETY (for the caller's processor, see above): row u < len of X covers
-    // [u*stride, u*stride + 8G), inside `x` by `check_tile`; row r is read at u - r < len - r,
-    // its length; a prefetch never faults, wherever `next` points.
+    assert!(span > 0 && s.len() >= blocks.len());
+    let total = blocks.first().map_or(0, |rows| rows[0].len());
+    for (b, rows) in blocks.iter().enumerate() {
+        assert_eq!(rows[0].len() + 4 * b, total, "block {b} of the group");
+        check_tile(rows, &x[(4 * b * stride).min(x.len())..], stride, 8 * G);
+    }
+    // SAFETY (for the caller's processor, see above): block b reads X rows 4 b + u for
+    // u < its length, inside `x` by `check_tile` on its slice; row r is read at u - r, below
+    // its length; a prefetch never faults, wherever `pf` points.
     let px = x.as_ptr();
-    let mut acc = [[_mm512_setzero_pd(); G]; 4];
-    for r in 0..4 {
-        for k in 0..G {
-            acc[r][k] = _mm512_loadu_pd(s[r].as_ptr().add(8 * k));
+    let step = 4 * std::mem::size_of::<T>();
+    let mut at = pf;
+    let mut t = 0;
+    while t < total {
+        let t_end = (t + span).min(total);
+        for (b, rows) in blocks.iter().enumerate() {
+            let kb = 4 * b;
+            if kb >= t_end {
+                break;
+            }
+            let (from, to) = (t.max(kb) - kb, t_end - kb);
+            let xb = px.add(kb * stride);
+            let mut acc = [[_mm512_setzero_pd(); G]; 4];
+            for r in 0..4 {
+                for k in 0..G {
+                    acc[r][k] = _mm512_loadu_pd(s[b][r].as_ptr().add(8 * k));
+                }
+            }
+            let head = to.min(3);
+            for u in from..head {
+                sums(&mut acc, coefs::<T, true>(rows, u), xb.add(u * stride));
+            }
+            for u in from.max(head)..to {
+                _mm_prefetch::<_MM_HINT_T1>(at as *const i8);
+                at = at.wrapping_add(step);
+                sums(&mut acc, coefs::<T, false>(rows, u), xb.add(u * stride));
+            }
+            store_sums(&acc, &mut s[b]);
         }
+        t = t_end;
     }
-    let head = to.min(3);
-    for u in from..head {
-        sums(&mut acc, coefs::<T, true>(&rows, u), px.add(u * stride));
-    }
-    // one prefetch per position, cycling over the four next segments line by line
-    let (next_rows, next_len) = next;
-    let per_line = 64 / std::mem::size_of::<T>();
-    let lines = 4 * (next_len.div_ceil(per_line) + 1);
-    let mut issued = 0;
-    for u in from.max(head)..to {
-        if issued < lines {
-            let (r, line) = (issued & 3, issued >> 2);
-            let at = next_rows[r].wrapping_add(line * per_line);
-            _mm_prefetch::<_MM_HINT_T0>(at as *const i8);
-            issued += 1;
-        }
-        sums(&mut acc, coefs::<T, false>(&rows, u), px.add(u * stride));
-    }
-    store_sums(&acc, s);
 }
 
 #[cfg(test)]

@@ -31,7 +31,7 @@ use crate::prefix::{leave_one_out, leave_two_out, Prefixes, MAX_PREFIX};
 use crate::simd::{dot, dot_axpy, simd_dispatch, Madd};
 use crate::stagger::{rows_at, Rows4, Runs};
 use crate::storage::{Coef, Packed};
-use crate::tile::{tile, TileSums, WideTile, SUM_LANES};
+use crate::tile::{next_block, tile, TileSums, WideTile, SUM_LANES};
 
 /// The transpose of the rows x cols matrix `src` (rows `src_stride` apart), as cols rows of
 /// length `dst_stride` >= rows (the extra entries, if any, are zero padding).
@@ -200,14 +200,14 @@ const SPAN_BLOCKS: usize = 4;
 const SPAN: usize = 64;
 
 /// Energies of up to [`SPAN_BLOCKS`] consecutive full blocks of a run (rows k..k + 4 nb), for
-/// every lane, when the coefficients stream from main memory. The wide lane groups walk the
-/// last indices in spans of [`SPAN`] positions and run each block over the span in turn, so
+/// every lane ([`spans_for`] says when). Each wide lane group walks the last indices in spans
+/// of [`SPAN`] positions and runs each block over the span in turn (`WideTile::group`), so
 /// that each span of X is loaded from L2 once for the group instead of once per block, and
-/// each block's tile prefetches the segments read after it (the next block's over the same
-/// span, or the first block's over the next span): from memory that schedule hides the
-/// latency better than one sweep ahead. Per (row, lane) the positions still come in order, so
-/// the sums, and the energies, are bitwise those of one [`block_pass`] per block; the lanes
-/// past the wide groups take [`block_pass`] itself.
+/// meanwhile sweeps the next group's coefficients (the bytes after this group) into L2. Per
+/// (row, lane) the positions still come in order, so the sums, and the energies, are bitwise
+/// those of one [`block_pass`] per block; the lanes past the wide groups take [`block_pass`]
+/// itself. Four blocks and spans of 64 measured best (two threads, 32 points, n = 800: 47 ms;
+/// eight blocks 53 ms, spans of 128 50 ms).
 #[inline(always)]
 #[allow(clippy::too_many_arguments)]
 fn group_pass<M: Madd, T: Coef>(
@@ -226,38 +226,15 @@ fn group_pass<M: Madd, T: Coef>(
     for (slot, b) in slices.iter_mut().zip(blocks) {
         *slot = b.slices(zeros);
     }
-    let segment = |b: usize, t: usize, t_end: usize| {
-        let kb = k + 4 * b;
-        let from = t.max(kb) - kb;
-        let len = t_end.saturating_sub(t.max(kb));
-        (
-            [0, 1, 2, 3].map(|r| slices[b][r].as_ptr().wrapping_add(from.saturating_sub(r))),
-            len,
-        )
-    };
+    // the sweep of the next group: the bytes after this group's last block
+    let last = nb - 1;
+    let start = next_block(&slices[last], n - (k + 4 * last));
     let mut g0 = 0;
     // the wide lane groups, chosen as in `block_pass`
     while let Some(lanes) = WideTile::LANES.into_iter().find(|&l| l <= stride - g0) {
         let mut s = [[[0f64; SUM_LANES]; 4]; SPAN_BLOCKS];
-        let mut t = k;
-        while t < n {
-            let t_end = (t + SPAN).min(n);
-            for b in 0..nb {
-                let kb = k + 4 * b;
-                if kb >= t_end {
-                    break;
-                }
-                let next = if b + 1 < nb && k + 4 * (b + 1) < t_end {
-                    segment(b + 1, t, t_end)
-                } else {
-                    segment(0, t_end, (t_end + SPAN).min(n))
-                };
-                let range = (t.max(kb) - kb, t_end - kb);
-                let x = &xt[kb * stride + g0..];
-                wide.span(lanes, slices[b], x, stride, range, next, &mut s[b]);
-            }
-            t = t_end;
-        }
+        let x = &xt[k * stride + g0..];
+        wide.group(lanes, &slices[..nb], x, (stride, SPAN), start, &mut s[..nb]);
         for (b, sb) in s.iter().enumerate().take(nb) {
             let x0 = (k + 4 * b) * stride;
             combine_lanes::<M>((x0, g0, lanes, 4), sb, (lead, products), xt, e, &mut []);
@@ -394,15 +371,31 @@ simd_dispatch!(fn batch_item => batch_item_body(
     n: usize, a: &[T], it: &WorkItem, xt: &[f64], e: &mut [f64], g: &mut [f64],
     run: (&Exec, Option<WideTile>, bool)) -> ());
 
-/// Whether an energy batch over `poly` walks its blocks in groups of spans ([`group_pass`]):
-/// where the coefficients are larger than the last-level cache, so that every call streams
-/// them from memory. There, with two threads, 32 points took 65-67 ms instead of 73-81 at n =
-/// 800 and 122-131 instead of 143-158 at n = 1000, 16 points 8-12 % less; with the
-/// coefficients in L3 (n = 400, 82 MiB of a 260 MiB L3) the spans' own cost made them 6-34 %
-/// slower, so there the blocks go one by one. Unknown cache size: one by one.
-fn spans_for<T: Coef>(poly: &Packed<T>, wide: Option<WideTile>) -> bool {
-    wide.is_some() && crate::cache::last_level_bytes().is_some_and(|llc| poly.nbytes() > llc)
+/// Whether an energy batch over `poly` with lane stride `stride` walks its blocks in groups
+/// of spans ([`group_pass`]). Two cases gain:
+///
+/// * coefficients larger than the last-level cache, so that every call streams them from
+///   memory: two threads, n = 800, 32 points 47-49 ms and 16 points 35-40 ms, against 60-62
+///   and 43-45 ms when each block and span was a call of its own with a prefetch one segment
+///   ahead, and 73-81 ms for 32 points one block at a time (an earlier run);
+/// * one group of 32 lanes (17 to 32 points) whose rows of X for a run, n rows of 256
+///   bytes, are larger than [`X_ROWS_IN_L1`]: they then come from L2 at every position of
+///   a block, and the walk reads each span of them from L2 once per group. Two threads, 32
+///   points: n = 320 5 %, 400 7 %, 500 9 % faster; n = 250 the same and n = 150 10-20 %
+///   slower. With several lane groups each group walks the blocks again (64 points at n =
+///   400 6 % slower), so those go one block at a time.
+///
+/// Unknown cache size: only the second case.
+fn spans_for<T: Coef>(poly: &Packed<T>, wide: Option<WideTile>, stride: usize) -> bool {
+    let from_memory = crate::cache::last_level_bytes().is_some_and(|llc| poly.nbytes() > llc);
+    let x_rows = poly.n().saturating_mul(stride * std::mem::size_of::<f64>());
+    let one_group = stride == WideTile::LANES[0] && x_rows > X_ROWS_IN_L1;
+    wide.is_some() && (from_memory || one_group)
 }
+
+/// Bytes of a run's rows of X above which one group of 32 lanes walks in spans (n > 256),
+/// set from the measurements at [`spans_for`]: L1 holds 48 KiB on the Xeon measured.
+const X_ROWS_IN_L1: usize = 64 << 10;
 
 /// Lanes of the lane layout for b points, the extra ones zero points: b rounded up to a
 /// multiple of 4, except with the 512-bit tile, where the points past the groups of 32 are
@@ -490,7 +483,8 @@ pub fn energy_batch<T: Coef>(
     }
     let wide = WideTile::detect();
     let lanes = (b, lane_stride(b, wide.is_some(), false));
-    Ok(run_batch(exec, poly, xs, lanes, (false, wide, spans_for(poly, wide)))?.0)
+    let spans = spans_for(poly, wide, lanes.1);
+    Ok(run_batch(exec, poly, xs, lanes, (false, wide, spans))?.0)
 }
 
 /// Fewest points for which the energy-and-gradient tile beats single-point calls: at b = 2

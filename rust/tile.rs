@@ -168,33 +168,33 @@ impl WideTile {
         );
     }
 
-    /// `crate::avx512::wide_span` for `lanes` (32 or 16) lanes: the energy sums over the
-    /// positions `range` only, continued in `s`, prefetching the segments `next`.
+    /// `crate::avx512::wide_group` for `lanes` (32 or 16) lanes: the energy sums of a group
+    /// of consecutive blocks (block b starting 4 b positions in), walked in spans of `span`
+    /// positions, continued in `s[b]`, sweeping `pf` into L2 on the way.
     #[inline]
-    #[allow(clippy::too_many_arguments)]
-    pub fn span<T: Coef>(
+    #[allow(clippy::not_unsafe_ptr_arg_deref)] // `pf` is only ever a prefetch address
+    pub fn group<T: Coef>(
         self,
         lanes: usize,
-        rows: [&[T]; 4],
+        blocks: &[[&[T]; 4]],
         x: &[f64],
-        stride: usize,
-        range: (usize, usize),
-        next: ([*const T; 4], usize),
-        s: &mut TileSums,
+        (stride, span): (usize, usize),
+        pf: *const u8,
+        s: &mut [TileSums],
     ) {
         assert!(Self::LANES.contains(&lanes), "wide tile of {lanes} lanes");
         #[cfg(target_arch = "x86_64")]
         // SAFETY: a `WideTile` only exists where `wide_tile_available()` held.
         unsafe {
             if lanes == 32 {
-                crate::avx512::wide_span::<T, 4>(rows, x, stride, range, next, s);
+                crate::avx512::wide_group::<T, 4>(blocks, x, stride, span, pf, s);
             } else {
-                crate::avx512::wide_span::<T, 2>(rows, x, stride, range, next, s);
+                crate::avx512::wide_group::<T, 2>(blocks, x, stride, span, pf, s);
             }
         }
         #[cfg(not(target_arch = "x86_64"))]
         unreachable!(
-            "no WideTile off x86-64: {lanes} {rows:?} {x:?} {stride} {range:?} {next:?} {s:?}"
+            "no WideTile off x86-64: {lanes} {blocks:?} {x:?} {stride} {span} {pf:?} {s:?}"
         );
     }
 }
