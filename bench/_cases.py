@@ -645,6 +645,52 @@ def gemm_probe(size: int = GEMM_SIZE) -> Callable[[], object]:
     return lambda: a @ b
 
 
+def same_shape_products(h, b: int) -> dict:
+    """The batch energy's work as NumPy matrix products (BLAS, all its threads): a dense
+    float64 matrix A of ceil(C / n) x n entries (C coefficients, so about the coefficient
+    bytes, read from the same cache level) against n x b points, one multiply-add per entry
+    and point, as the batch needs per coefficient and point. Both orientations, A X and
+    X^T A^T; the faster one is the peer."""
+    rng = np.random.default_rng(SEED)
+    a = rng.random((same_shape_rows(h), h.n))
+    x = rng.random((h.n, b))
+    xt = np.ascontiguousarray(x.T)
+    return {
+        ("compute", "probe:same shape A X"): lambda: a @ x,
+        ("compute", "probe:same shape X^T A^T"): lambda: xt @ a.T,
+    }
+
+
+def same_shape_rows(h) -> int:
+    """Rows of the same-shape matrix: ceil(C / n)."""
+    return -(-h.num_coefficients // h.n)
+
+
+def same_shape_peer(stats: dict, rows: list[dict], h, b: int) -> tuple[dict, str]:
+    """The faster same-shape product's row, with its ratio to the batch (its time / batch
+    time), and a note with both multiply-add rates."""
+    work = same_shape_rows(h) * h.n * b
+    name, st = min(
+        ((k[1], v) for k, v in stats.items() if k[1].startswith("probe:same shape")),
+        key=lambda kv: kv[1].median,
+    )
+    shape = f"{same_shape_rows(h)}x{h.n} @ {h.n}x{b}"
+    row = make_row("compute", name, shape, st, None, h.n)
+    batch = next(r for r in rows if r["kernel"] == "energy" and r["variant"] == f"batch b={b}")
+    row["ratio"] = st.median / batch["median_s"]
+    row["ratio_min"] = st.min / batch["min_s"]
+    ours = h.num_coefficients * b / batch["median_s"]
+    row["note"] = (
+        f"{work / st.median / 1e9:.1f} G multiply-adds/s (median); ratio = its time / batch time"
+    )
+    note = (
+        f"n={h.n}: NumPy's BLAS on the same shape and work ({shape}, the faster orientation) "
+        f"runs at {work / st.median / 1e9:.1f} G multiply-adds/s, the batch at "
+        f"{ours / 1e9:.1f} (medians): the batch is {row['ratio']:.2f}x faster"
+    )
+    return row, note
+
+
 def compute_ceiling(stats: dict, rows: list[dict], h, b: int) -> tuple[dict, str]:
     """The probe's row and a note: the best multiply-add rate of the matrix product, the batch's
     fraction of it (the energy needs one multiply-add per coefficient and point), and the
@@ -688,25 +734,29 @@ def batch_cost_fit(rows: list[dict], h) -> dict | None:
 def case_batch(cfg, ws):
     """Energy of b points in one pass against b single calls, at each configured n."""
     p, sizes = 3, cfg.sizes["batch"]
-    memory = require(
-        "batch", {f"n={n} coefficients": ws.extra_bytes(p, n, "float64") for n in sizes}
-    )
+    parts = {f"n={n} coefficients": ws.extra_bytes(p, n, "float64") for n in sizes}
+    # the same-shape matrix of the largest n, held only while its n is measured
+    parts["same-shape matrix"] = max(oc.estimate_memory(oc.Mixture({p: 1.0}), n) for n in sizes)
+    memory = require("batch", parts)
     rows, notes, fits = [], [], []
     for n in sizes:
         h = ws.instance(p, n)
         xs = points(BATCH, n)
         fns = batch_functions(h, xs, extras=(n == min(sizes)))
         fns[("compute", "probe:dgemm")] = gemm_probe()
+        fns.update(same_shape_products(h, BATCH))
         log(f"   measuring {len(fns)} functions at n={n}")
         stats = _timing.measure(fns, cfg.plan)
+        del fns  # the same-shape matrix
         err = _peers.relative_error(h.energy(xs), [h.energy(row) for row in xs])
         new = batch_rows(stats, h, xs, p, n)
         for row in new:
             if row["variant"] == f"batch b={BATCH}" and row["kernel"] == "energy":
                 row["rel_err"] = err
         probe, ceiling = compute_ceiling(stats, new, h, BATCH)
-        rows += new + [probe]
-        notes.append(ceiling)
+        peer, versus = same_shape_peer(stats, new, h, BATCH)
+        rows += new + [probe, peer]
+        notes += [ceiling, versus]
         fit = batch_cost_fit(new, h)
         if fit:
             fits.append(fit)

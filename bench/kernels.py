@@ -17,7 +17,9 @@ What is measured, all in one run and as ratios only (never absolute timed assert
 * float32: float32 against float64 coefficient storage; ratio = float64 s / float32 s.
 * threads: one worker thread against all of them; ratio = 1-thread s / K-thread s.
 * batch: energy of b points in one call against b single calls; ratio = singles s / batch s.
-  A BLAS matrix product timed alongside gives the multiply-add ceiling of that ratio.
+  A BLAS matrix product timed alongside gives the multiply-add ceiling of that ratio, and
+  a BLAS product of the batch's own shape and work (a dense matrix of the coefficients' size
+  times the n x b points) is its peer: ratio = product s / batch s.
 
 Times are seconds per call: median of repeats after a warm-up (min and repeat count kept).
 """
