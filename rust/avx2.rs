@@ -488,7 +488,7 @@ pub fn rows4<T: Coef>(
     rows4_shared::<T, false>(a, x, rows, w, [(z, 1.0), (&mut [], 0.0)], xi)
 }
 
-/// acc[r][k] += c[r] X[u, lanes 4k..4k+4] for the four rows.
+/// `acc[r][k] += c[r] X[u, lanes 4k..4k+4]` for the four rows.
 #[inline(always)]
 #[allow(clippy::needless_range_loop)] // r and k index rows and lanes of several arrays
 unsafe fn tile_sums<const G: usize>(acc: &mut [[__m256d; G]; 4], c: [__m256d; 4], row: *const f64) {

@@ -51,7 +51,7 @@ unsafe fn prefetch_row<const G: usize>(row: *const f64) {
     }
 }
 
-/// acc[r][k] += c[r] X[u, lanes 8k..8k+8] for the four rows.
+/// `acc[r][k] += c[r] X[u, lanes 8k..8k+8]` for the four rows.
 #[inline(always)]
 #[allow(clippy::needless_range_loop)] // r and k index rows and lanes of several arrays
 unsafe fn sums<const G: usize>(acc: &mut [[__m512d; G]; 4], c: [__m512d; 4], row: *const f64) {
@@ -66,7 +66,7 @@ unsafe fn sums<const G: usize>(acc: &mut [[__m512d; G]; 4], c: [__m512d; 4], row
     }
 }
 
-/// s[r][..8 G] = acc[r] for the four rows.
+/// `s[r][..8 G] = acc[r]` for the four rows.
 #[inline(always)]
 #[allow(clippy::needless_range_loop)] // r and k index rows and lanes of several arrays
 unsafe fn store_sums<const G: usize>(acc: &[[__m512d; G]; 4], s: &mut TileSums) {

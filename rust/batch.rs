@@ -94,7 +94,7 @@ impl LaneRows {
 }
 
 /// Per-lane products over the leading prefix indices of a run (all but the last):
-/// base[beta] = prod_m X[lead_m, beta] and, for the gradient, loo[m][beta] = the same product
+/// `base[beta] = prod_m X[lead_m, beta]` and, for the gradient, `loo[m][beta]` = the same product
 /// without factor m.
 struct Leading {
     base: Vec<f64>,
@@ -139,8 +139,8 @@ impl Leading {
 /// `lead`, for every lane, in tiles of 8 or 4 lanes.
 ///
 /// With S_r the tile sums of row r and T = sum_r X[k + r] S_r, per lane:
-/// E += base T,  G[k + r] += base S_r,  G[lead_m] += loo_m T,  and inside the tile
-/// G[t] += sum_r (base X[k + r]) a_r(t).
+/// `E += base T`, `G[k + r] += base S_r`, `G[lead_m] += loo_m T`, and inside the tile
+/// `G[t] += sum_r (base X[k + r]) a_r(t)`.
 #[inline(always)]
 #[allow(clippy::too_many_arguments)]
 fn block_pass<M: Madd, T: Coef>(
@@ -260,7 +260,7 @@ fn group_pass<M: Madd, T: Coef>(
 
 /// The per-lane sums after a tile over lanes g0..g0+lanes of the block at row offset x0
 /// (`active` real rows): T = sum_r X[k + r] S_r (r in order), E += base T, and with
-/// gradients G[k + r] += base S_r, then G[lead_m] += loo_m T (m in order). Each lane gets the
+/// gradients `G[k + r] += base S_r`, then `G[lead_m] += loo_m T` (m in order). Each lane gets the
 /// same operations in the same order as a lane-by-lane loop; written as loops over whole
 /// lane ranges (no closures, no bounds checks inside) so that they vectorize: the scalar
 /// version was about a sixth of a 32-point batch at p = 3, n = 400.

@@ -176,7 +176,8 @@ pub fn weighted4<M: Madd, T: Coef>(w: [f64; 4], c: [f64; 4]) -> f64 {
     }
 }
 
-/// Portable [`dots4_axpy`] (v = None) and [`dots8_axpy`]: per lane, the operations of the
+/// Portable [`dots4_axpy`](crate::simd::dots4_axpy) (v = None) and
+/// [`dots8_axpy`](crate::simd::dots8_axpy): per lane, the operations of the
 /// AVX2 loops in their order (4-lane sums combined as (l0 + l2) + (l1 + l3), scalar tail last).
 #[inline(always)]
 #[allow(clippy::needless_range_loop)] // l and j index lanes and segments of several arrays at once
@@ -232,7 +233,7 @@ pub(crate) fn portable_dots8_axpy<M: Madd, T: Coef>(
     (sx, sv)
 }
 
-/// Portable [`rows4_shared2`]: per lane, the operations of the AVX2 loop in its order.
+/// Portable [`rows4_shared2`](crate::simd::rows4_shared2): per lane, the operations of the AVX2 loop in its order.
 #[inline(always)]
 pub(crate) fn portable_rows4_shared2<M: Madd, T: Coef>(
     a: [&[T]; 4],
@@ -292,7 +293,7 @@ fn portable_rows4_shared<M: Madd, T: Coef, const TWO: bool>(
     out
 }
 
-/// Portable [`rows4`]: [`portable_rows4_shared2`] with one shared row of weight 1 (exact).
+/// Portable [`rows4`](crate::simd::rows4): [`portable_rows4_shared2`] with one shared row of weight 1 (exact).
 #[inline(always)]
 pub(crate) fn portable_rows4<M: Madd, T: Coef>(
     a: [&[T]; 4],

@@ -71,7 +71,7 @@ fn hvp_prefix<M: Madd, T: Coef>(
 }
 
 /// The degree-3 HVP pass of one item (`coeffs` are the item's), four first indices at a time
-/// as in [`hessian3_item_body`]: the four segments of (g + k, j) share w_t, t >= j, and the
+/// as in `hessian::hessian3_item_body`: the four segments of (g + k, j) share w_t, t >= j, and the
 /// reads of x_t and v_t, which [`dots8_axpy`] does once for all four.
 #[inline(always)]
 fn hvp3_item_body<M: Madd, T: Coef>(
