@@ -281,8 +281,8 @@ fn gradient_prefix<M: Madd, T: Coef>(
 }
 
 /// The degree-3 gradient pass of one item (`coeffs` are the item's), four first indices at a
-/// time as in `hessian::hessian3_item_body`: the four segments of (g + k, j) share g_t, t >= j, which
-/// [`dots4_axpy`] reads and writes once for all four. Returns the item's energy.
+/// time as in `hessian::hessian3_item_body`: the four segments of (g + k, j) share g_t,
+/// t >= j, which [`dots4_axpy`] reads and writes once for all four. Returns the item's energy.
 #[inline(always)]
 fn gradient3_item_body<M: Madd, T: Coef>(
     n: usize,

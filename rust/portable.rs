@@ -233,7 +233,8 @@ pub(crate) fn portable_dots8_axpy<M: Madd, T: Coef>(
     (sx, sv)
 }
 
-/// Portable [`rows4_shared2`](crate::simd::rows4_shared2): per lane, the operations of the AVX2 loop in its order.
+/// Portable [`rows4_shared2`](crate::simd::rows4_shared2): per lane, the operations of the
+/// AVX2 loop in its order.
 #[inline(always)]
 pub(crate) fn portable_rows4_shared2<M: Madd, T: Coef>(
     a: [&[T]; 4],
@@ -293,7 +294,8 @@ fn portable_rows4_shared<M: Madd, T: Coef, const TWO: bool>(
     out
 }
 
-/// Portable [`rows4`](crate::simd::rows4): [`portable_rows4_shared2`] with one shared row of weight 1 (exact).
+/// Portable [`rows4`](crate::simd::rows4): [`portable_rows4_shared2`] with one shared row of
+/// weight 1 (exact).
 #[inline(always)]
 pub(crate) fn portable_rows4<M: Madd, T: Coef>(
     a: [&[T]; 4],
