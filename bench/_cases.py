@@ -669,16 +669,16 @@ def same_shape_rows(h) -> int:
 def same_shape_peer(stats: dict, rows: list[dict], h, b: int) -> tuple[dict, str]:
     """The faster same-shape product's row, with its ratio to the batch (its time / batch
     time), and a note with both multiply-add rates."""
-    work = same_shape_rows(h) * h.n * b
+    m = same_shape_rows(h)
+    work = m * h.n * b
     name, st = min(
         ((k[1], v) for k, v in stats.items() if k[1].startswith("probe:same shape")),
         key=lambda kv: kv[1].median,
     )
-    shape = f"{same_shape_rows(h)}x{h.n} @ {h.n}x{b}"
+    shape = f"{m}x{h.n} @ {h.n}x{b}"
     row = make_row("compute", name, shape, st, None, h.n)
     batch = next(r for r in rows if r["kernel"] == "energy" and r["variant"] == f"batch b={b}")
-    row["ratio"] = st.median / batch["median_s"]
-    row["ratio_min"] = st.min / batch["min_s"]
+    set_peer_ratio(row, batch)
     ours = h.num_coefficients * b / batch["median_s"]
     row["note"] = (
         f"{work / st.median / 1e9:.1f} G multiply-adds/s (median); ratio = its time / batch time"
@@ -686,7 +686,7 @@ def same_shape_peer(stats: dict, rows: list[dict], h, b: int) -> tuple[dict, str
     note = (
         f"n={h.n}: NumPy's BLAS on the same shape and work ({shape}, the faster orientation) "
         f"runs at {work / st.median / 1e9:.1f} G multiply-adds/s, the batch at "
-        f"{ours / 1e9:.1f} (medians): the batch is {row['ratio']:.2f}x faster"
+        f"{ours / 1e9:.1f} (medians): its time / the batch's time = {row['ratio']:.2f}x"
     )
     return row, note
 
