@@ -793,5 +793,7 @@ mod tests {
         for k in [2, 4] {
             assert_eq!(energy_gradient_batch(&pool(k), &poly, &xs, 4).unwrap(), one);
         }
+        let inline = energy_gradient_batch(&Exec::inline(), &poly, &xs, 4).unwrap();
+        assert_eq!(inline, one, "on the calling thread");
     }
 }

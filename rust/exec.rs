@@ -1,4 +1,5 @@
-//! Where one kernel call runs: a thread pool plus that call's stop request.
+//! Where one kernel call runs: a thread pool (or the calling thread) plus that call's stop
+//! request.
 //!
 //! Every kernel takes an [`Exec`]. The pool fixes the threads; the stop flag lets the caller
 //! end a long call early. Kernels poll the flag between work chunks (a chunk is at most
@@ -11,6 +12,12 @@
 //! there), so a 10-second pass answers an interrupt within about one interval plus one chunk.
 //! A call may also count the work it has finished ([`Exec::add_done`]; sampling counts
 //! coefficients), which the watching thread reads with [`Exec::done`] to report progress.
+//!
+//! [`Exec::inline`] runs a call on the calling thread alone: handing a call to the pool and
+//! back costs two thread wake-ups, tens of microseconds on a virtual machine, more than a
+//! small call's whole work. The call keeps its work items and their merge order, and the
+//! parallel loops inside kernels run only on a pool's threads ([`on_pool`]), sequentially
+//! elsewhere, so an inline call returns the same bits as on any pool.
 
 use std::sync::atomic::{AtomicBool, AtomicU64, Ordering};
 use std::sync::mpsc::{sync_channel, RecvTimeoutError};
@@ -21,11 +28,11 @@ use rayon::{ThreadPool, ThreadPoolBuilder};
 
 use crate::error::CoreError;
 
-/// A thread pool, one call's stop flag and its count of finished work (cheap to clone;
-/// clones share all three).
+/// A thread pool (none: the calling thread), one call's stop flag and its count of finished
+/// work (cheap to clone; clones share all three).
 #[derive(Clone)]
 pub struct Exec {
-    pool: Arc<ThreadPool>,
+    pool: Option<Arc<ThreadPool>>,
     stop: Arc<AtomicBool>,
     done: Arc<AtomicU64>,
 }
@@ -34,7 +41,17 @@ impl Exec {
     /// Runs on `pool`, with a fresh stop flag.
     pub fn new(pool: Arc<ThreadPool>) -> Self {
         Exec {
-            pool,
+            pool: Some(pool),
+            stop: Arc::new(AtomicBool::new(false)),
+            done: Arc::new(AtomicU64::new(0)),
+        }
+    }
+
+    /// Runs on the calling thread alone, with a fresh stop flag (small calls, see the
+    /// module doc).
+    pub fn inline() -> Self {
+        Exec {
+            pool: None,
             stop: Arc::new(AtomicBool::new(false)),
             done: Arc::new(AtomicU64::new(0)),
         }
@@ -52,14 +69,17 @@ impl Exec {
             })
     }
 
-    /// Threads of the pool.
+    /// Threads of the pool (1 inline).
     pub fn num_threads(&self) -> usize {
-        self.pool.current_num_threads()
+        self.pool.as_ref().map_or(1, |p| p.current_num_threads())
     }
 
-    /// Runs `f` inside the pool (directly when already on one of its threads).
+    /// Runs `f` inside the pool (directly when already on one of its threads, or inline).
     pub fn install<R: Send>(&self, f: impl FnOnce() -> R + Send) -> R {
-        self.pool.install(f)
+        match &self.pool {
+            Some(pool) => pool.install(f),
+            None => f(),
+        }
     }
 
     /// Asks the running call to stop at its next chunk boundary.
@@ -96,14 +116,18 @@ impl Exec {
     /// Runs `work` on the pool; meanwhile the calling thread calls `watch` every `every` and
     /// requests a stop the first time it answers true. Returns what `work` returned (which,
     /// after a stop, is the kernel's `Err(Interrupted)`). A panic in `work` propagates.
+    /// Inline, `work` runs on the calling thread and `watch` is never called.
     pub fn run_watched<T: Send>(
         &self,
         every: Duration,
         work: impl FnOnce(&Exec) -> T + Send,
         mut watch: impl FnMut() -> bool,
     ) -> T {
+        let Some(pool) = &self.pool else {
+            return work(self);
+        };
         let (tx, rx) = sync_channel(1);
-        let out = self.pool.in_place_scope(|scope| {
+        let out = pool.in_place_scope(|scope| {
             scope.spawn(move |_| {
                 let _ = tx.send(work(self));
             });
@@ -124,6 +148,13 @@ impl Exec {
         });
         out.expect("the scope re-raises a panic of the work before this point")
     }
+}
+
+/// Whether parallel loops may run here: only on a pool's thread. Elsewhere (an inline call)
+/// rayon would hand them to its global pool, so they run sequentially, in the same pieces.
+#[inline]
+pub fn on_pool() -> bool {
+    rayon::current_thread_index().is_some()
 }
 
 #[cfg(test)]
@@ -167,6 +198,21 @@ mod tests {
         ex.install(|| (0..1000u64).into_par_iter().for_each(|i| ex.add_done(i)));
         assert_eq!(ex.done(), 999 * 1000 / 2);
         assert_eq!(ex.clone().done(), ex.done(), "clones share the count");
+    }
+
+    #[test]
+    fn inline_runs_on_the_calling_thread() {
+        let ex = Exec::inline();
+        let caller = std::thread::current().id();
+        let (on, id) = ex.run_watched(
+            Duration::from_millis(5),
+            |e| e.install(|| (on_pool(), std::thread::current().id())),
+            || panic!("an inline call is not watched"),
+        );
+        assert_eq!((on, id), (false, caller));
+        assert_eq!(ex.num_threads(), 1);
+        let pooled = Exec::with_threads(2).unwrap();
+        assert!(pooled.install(on_pool));
     }
 
     #[test]

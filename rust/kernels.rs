@@ -452,15 +452,15 @@ pub(crate) mod tests {
             Packed::<f32>::sample(&pool(2), n, &[(2, 1.0), (3, 0.5)], &Disorder::new(9)).unwrap();
         let x = point(n, 0.21);
         let v = point(n, 0.9);
-        let runs: Vec<_> = [1usize, 2, 4]
+        let execs = [pool(1), pool(2), pool(4), Exec::inline()];
+        let runs: Vec<_> = execs
             .iter()
-            .map(|&k| {
-                let p = pool(k);
+            .map(|p| {
                 (
-                    energy(&p, &poly, &x).unwrap().to_bits(),
-                    energy_gradient(&p, &poly, &x).unwrap().1,
-                    hessian(&p, &poly, &x).unwrap(),
-                    hvp(&p, &poly, &x, &v).unwrap(),
+                    energy(p, &poly, &x).unwrap().to_bits(),
+                    energy_gradient(p, &poly, &x).unwrap().1,
+                    hessian(p, &poly, &x).unwrap(),
+                    hvp(p, &poly, &x, &v).unwrap(),
                 )
             })
             .collect();

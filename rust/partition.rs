@@ -15,7 +15,7 @@ use rayon::prelude::*;
 
 use crate::combinatorics::{count_with_first, first_index_offset};
 use crate::error::CoreError;
-use crate::exec::Exec;
+use crate::exec::{on_pool, Exec};
 use crate::scratch;
 
 /// Multiply-adds in one chunk: the granularity at which a pass notices a stop request
@@ -172,10 +172,14 @@ where
             return acc;
         }
         let mid = groups.start + groups.len() / 2;
-        let (mut left, right) = rayon::join(
-            || rec(pass, groups.start..mid),
-            || rec(pass, mid..groups.end),
-        );
+        let (mut left, right) = if on_pool() {
+            rayon::join(
+                || rec(pass, groups.start..mid),
+                || rec(pass, mid..groups.end),
+            )
+        } else {
+            (rec(pass, groups.start..mid), rec(pass, mid..groups.end))
+        };
         (pass.merge)(&mut left, right);
         left
     }
@@ -256,7 +260,7 @@ pub const PARALLEL_ADD_MIN: usize = 1 << 16;
 /// left += right, entry by entry (so the result does not depend on how it is split).
 fn add_into(left: &mut [f64], right: &[f64]) {
     const PART: usize = 1 << 13;
-    if left.len() < PARALLEL_ADD_MIN {
+    if left.len() < PARALLEL_ADD_MIN || !on_pool() {
         left.iter_mut().zip(right).for_each(|(x, y)| *x += y);
         return;
     }

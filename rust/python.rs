@@ -6,7 +6,8 @@
 //! caught and reported as `orthoclimb.errors.CoreError`, never as a PanicException.
 //! While a kernel runs, the calling thread checks for Ctrl-C every [`SIGNAL_POLL`] and stops
 //! the kernel at its next chunk; the call then raises what the signal handler raised
-//! (KeyboardInterrupt), and the instance is untouched (kernels only read it).
+//! (KeyboardInterrupt), and the instance is untouched (kernels only read it). Small calls run
+//! on the calling thread instead ([`threads::exec_for`], from the work each method reports).
 
 use std::panic::{catch_unwind, AssertUnwindSafe};
 use std::time::Duration;
@@ -83,16 +84,18 @@ fn internal_error(py: Python<'_>, what: &str) -> PyErr {
 /// How often the calling thread checks for Ctrl-C while a kernel runs.
 const SIGNAL_POLL: Duration = Duration::from_millis(50);
 
-/// Runs `f` with the GIL released on the shared pool, mapping errors and panics. The
-/// waiting thread re-takes the GIL every [`SIGNAL_POLL`] to run Python's signal handlers;
-/// when one raises, the kernel is stopped and that exception is the call's result (it is
-/// never swallowed, even when the kernel finished in the meantime).
+/// Runs `f` with the GIL released on the shared pool, or inline when `work` (in coefficient
+/// passes) is small ([`threads::exec_for`]), mapping errors and panics. The waiting thread re-takes the GIL every
+/// [`SIGNAL_POLL`] to run Python's signal handlers; when one raises, the kernel is stopped
+/// and that exception is the call's result (it is never swallowed, even when the kernel
+/// finished in the meantime).
 fn run<T: Send>(
     py: Python<'_>,
     what: &str,
+    work: u64,
     f: impl FnOnce(&Exec) -> Result<T, CoreError> + Send,
 ) -> PyResult<T> {
-    run_reporting(py, what, None, f)
+    run_reporting(py, what, work, None, f)
 }
 
 /// [`run`], and while the call runs, `progress(done)` (a Python callable, with the GIL) at
@@ -102,10 +105,11 @@ fn run<T: Send>(
 fn run_reporting<T: Send>(
     py: Python<'_>,
     what: &str,
+    work: u64,
     progress: Option<&Py<PyAny>>,
     f: impl FnOnce(&Exec) -> Result<T, CoreError> + Send,
 ) -> PyResult<T> {
-    let exec = Exec::new(threads::shared_pool().map_err(|e| to_py_err(py, e))?);
+    let exec = threads::exec_for(work).map_err(|e| to_py_err(py, e))?;
     let mut raised: Option<PyErr> = None;
     let mut reported = 0u64;
     let out = py.detach(|| {
@@ -147,9 +151,12 @@ fn run_reporting<T: Send>(
 fn run_kernel<T: Send + KernelResult>(
     py: Python<'_>,
     what: &'static str,
+    work: u64,
     f: impl FnOnce(&Exec) -> Result<T, CoreError> + Send,
 ) -> PyResult<T> {
-    run(py, what, |exec| f(exec).and_then(|out| finite(what, out)))
+    run(py, what, work, |exec| {
+        f(exec).and_then(|out| finite(what, out))
+    })
 }
 
 fn slice1<'a>(a: &'a PyReadonlyArray1<'_, f64>, name: &str) -> PyResult<&'a [f64]> {
@@ -199,6 +206,18 @@ fn parse_dtype(py: Python<'_>, dtype: &str) -> PyResult<bool> {
     }
 }
 
+impl PyPacked {
+    /// A call's work in coefficient passes ([`threads::INLINE_PASSES`]), from its cost per
+    /// coefficient in eighths of a pass: 8 for one point (a gradient or a Hessian-vector
+    /// product costs about as much as an energy, 1.3 times on the Xeon), 16 for a Hessian,
+    /// and 8 + b for a batch of b energies, where the multiply-adds of the 32-lane tile cost
+    /// about an eighth of a pass each (a batch of 32 took 4.2 times an energy at n = 130).
+    fn work(&self, eighths: usize) -> u64 {
+        let count = on_storage!(&self.inner, p => p.num_coefficients()) as u64;
+        count.saturating_mul(eighths as u64) / 8
+    }
+}
+
 #[pymethods]
 impl PyPacked {
     /// Samples the coefficients of every degree from the counter-based streams of `seed`;
@@ -230,7 +249,14 @@ impl PyPacked {
             seed,
             correlated_with,
         };
-        let inner = run_reporting(py, "sampling", progress.as_ref(), |pool| {
+        // a coefficient's Gaussian costs about 128 passes (36 against 0.3 ns on the Xeon)
+        let count = terms
+            .iter()
+            .map(|&(p, _)| num_multisets(n, p).unwrap_or(usize::MAX));
+        let work = count
+            .fold(0u64, |w, c| w.saturating_add(c as u64))
+            .saturating_mul(128);
+        let inner = run_reporting(py, "sampling", work, progress.as_ref(), |pool| {
             Ok(if f32_storage {
                 Storage::F32(Packed::sample(pool, n, &terms, &disorder)?)
             } else {
@@ -259,7 +285,7 @@ impl PyPacked {
             .map(|a| slice1(a, "coefficients"))
             .collect::<PyResult<_>>()?;
         let parts: Vec<(usize, &[f64])> = degrees.into_iter().zip(slices).collect();
-        let inner = run(py, "packing", |_| {
+        let inner = run(py, "packing", u64::MAX, |_| {
             Ok(if f32_storage {
                 Storage::F32(Packed::from_coefficients(n, &parts)?)
             } else {
@@ -303,6 +329,7 @@ impl PyPacked {
         run_kernel(
             py,
             "energy",
+            self.work(8),
             |pool| on_storage!(&self.inner, p => kernels::energy(pool, p, x)),
         )
     }
@@ -317,6 +344,7 @@ impl PyPacked {
         let (e, g) = run_kernel(
             py,
             "gradient",
+            self.work(8),
             |pool| on_storage!(&self.inner, p => kernels::energy_gradient(pool, p, x)),
         )?;
         Ok((e, g.into_pyarray(py)))
@@ -333,6 +361,7 @@ impl PyPacked {
         let h = run_kernel(
             py,
             "Hessian",
+            self.work(16).saturating_add((n * n) as u64),
             |pool| on_storage!(&self.inner, p => kernels::hessian(pool, p, x)),
         )?;
         h.into_pyarray(py).reshape([n, n])
@@ -349,6 +378,7 @@ impl PyPacked {
         let w = run_kernel(
             py,
             "Hessian-vector product",
+            self.work(8),
             |pool| on_storage!(&self.inner, p => kernels::hvp(pool, p, x, v)),
         )?;
         Ok(w.into_pyarray(py))
@@ -366,6 +396,7 @@ impl PyPacked {
         let w = run_kernel(
             py,
             "Hessian-vector product",
+            self.work(8 + 2 * shape[1]),
             |pool| on_storage!(&self.inner, p => batch::hvp_many(pool, p, x, vs, shape[1])),
         )?;
         w.into_pyarray(py).reshape(shape)
@@ -382,6 +413,7 @@ impl PyPacked {
         let e = run_kernel(
             py,
             "energy",
+            self.work(8 + b),
             |pool| on_storage!(&self.inner, p => batch::energy_batch(pool, p, xs, b)),
         )?;
         Ok(e.into_pyarray(py))
@@ -398,6 +430,7 @@ impl PyPacked {
         let (e, g) = run_kernel(
             py,
             "gradient",
+            self.work(8 + 2 * shape[0]),
             |pool| on_storage!(&self.inner, p => batch::energy_gradient_batch(pool, p, xs, shape[0])),
         )?;
         Ok((e.into_pyarray(py), g.into_pyarray(py).reshape(shape)?))
@@ -449,7 +482,7 @@ fn multiset_table<'py>(py: Python<'py>, n: usize, p: usize) -> PyResult<Bound<'p
         return Err(to_py_err(py, CoreError::InvalidDegree { p }));
     }
     let count = num_multisets(n, p).map_err(|e| to_py_err(py, e))?;
-    let table = run(py, "enumeration", |_| {
+    let table = run(py, "enumeration", u64::MAX, |_| {
         let len = count.checked_mul(p).ok_or(CoreError::SizeOverflow {
             what: format!("index table of {count} x {p}"),
         })?;
@@ -484,6 +517,14 @@ fn get_num_threads(py: Python<'_>) -> PyResult<usize> {
     threads::num_threads().map_err(|e| to_py_err(py, e))
 }
 
+/// Sets the work bound below which calls run on the calling thread (coefficient passes;
+/// 0: every call on the pool) and returns the previous one. For tests, which compare both
+/// ways of running bit for bit.
+#[pyfunction]
+fn _set_inline_passes(bound: u64) -> u64 {
+    threads::set_inline_passes(bound)
+}
+
 /// The instruction-set path of the kernels on this machine ("avx2+fma+avx512f", "avx2+fma"
 /// or "baseline").
 #[pyfunction]
@@ -502,6 +543,7 @@ fn _core(m: &Bound<'_, PyModule>) -> PyResult<()> {
     m.add_function(wrap_pyfunction!(hessian_groups, m)?)?;
     m.add_function(wrap_pyfunction!(set_num_threads, m)?)?;
     m.add_function(wrap_pyfunction!(get_num_threads, m)?)?;
+    m.add_function(wrap_pyfunction!(_set_inline_passes, m)?)?;
     m.add_function(wrap_pyfunction!(kernel_path, m)?)?;
     Ok(())
 }

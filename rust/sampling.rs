@@ -27,7 +27,7 @@ use rayon::prelude::*;
 
 use crate::combinatorics::{advance, factorial, orderings_denominator, unrank, MAX_DEGREE};
 use crate::error::CoreError;
-use crate::exec::Exec;
+use crate::exec::{on_pool, Exec};
 use crate::storage::Coef;
 
 /// Ranks generated per parallel task; even, so that Box–Muller pairs never straddle tasks
@@ -159,15 +159,18 @@ pub fn fill_block<T: Coef>(
     disorder: &Disorder,
     out: &mut [T],
 ) -> Result<(), CoreError> {
+    let fill = |(i, chunk): (usize, &mut [T])| {
+        if !exec.stop_requested() {
+            fill_range(n, p, gamma, disorder, i * CHUNK, chunk);
+            exec.add_done(chunk.len() as u64);
+        }
+    };
     exec.install(|| {
-        out.par_chunks_mut(CHUNK)
-            .enumerate()
-            .for_each(|(i, chunk)| {
-                if !exec.stop_requested() {
-                    fill_range(n, p, gamma, disorder, i * CHUNK, chunk);
-                    exec.add_done(chunk.len() as u64);
-                }
-            });
+        if on_pool() {
+            out.par_chunks_mut(CHUNK).enumerate().for_each(fill);
+        } else {
+            out.chunks_mut(CHUNK).enumerate().for_each(fill);
+        }
     });
     exec.check()
 }
@@ -231,12 +234,16 @@ mod tests {
         let d = Disorder::new(5);
         let mut one = vec![0f64; len];
         let mut two = vec![0f64; len];
-        let (ex1, ex2) = (pool(1), pool(2));
+        let mut three = vec![0f64; len];
+        let (ex1, ex2, ex3) = (pool(1), pool(2), Exec::inline());
         fill_block(&ex1, n, p, 0.5, &d, &mut one).unwrap();
         fill_block(&ex2, n, p, 0.5, &d, &mut two).unwrap();
+        fill_block(&ex3, n, p, 0.5, &d, &mut three).unwrap();
         assert_eq!(one, two);
+        assert_eq!(one, three);
         // every coefficient is counted once as finished work, whatever the threads
         assert_eq!((ex1.done(), ex2.done()), (len as u64, len as u64));
+        assert_eq!(ex3.done(), len as u64);
         let mut g = vec![0f64; len];
         gaussians(5, p, 0, &mut g);
         let mut idx = [0usize; 3];

@@ -1,5 +1,6 @@
 """Bitwise reproducibility: sampling, every kernel and the algorithms give the same bytes for
-1, 2 and 4 threads, across repeated runs, and whether the thread count comes from
+1, 2 and 4 threads, across repeated runs, for small calls run on the calling thread (the
+default) and on the pool, and whether the thread count comes from
 ``orthoclimb.set_num_threads`` or from the environment variable ``ORTHOCLIMB_NUM_THREADS``.
 
 test_model_kernels.py checks the kernels of one float32 instance across 1, 2, 4 threads; this
@@ -21,6 +22,7 @@ import numpy as np
 import pytest
 
 import orthoclimb as oc
+from orthoclimb import _core
 
 N_KERNELS = 60
 N_ASCENT = 40
@@ -114,15 +116,21 @@ def test_the_work_is_split_so_threads_matter():
 
 @pytest.fixture(scope="module")
 def by_threads():
+    # calls this small normally run on the calling thread; with the inline bound at 0 every
+    # call runs on the pool, so the thread counts below split the work across threads
     before = oc.get_num_threads()
+    bound = _core._set_inline_passes(0)
     runs = []
     try:
         for k in (1, 2, 4, 2, 1):  # each count, and repeated runs at the same count
             oc.set_num_threads(k)
             assert oc.get_num_threads() == k
             runs.append((k, fingerprints()))
+        _core._set_inline_passes(bound)  # and the default: small calls inline
+        runs.append(("inline", fingerprints()))
     finally:
         oc.set_num_threads(before)
+        _core._set_inline_passes(bound)
     assert oc.get_num_threads() == before
     return runs
 

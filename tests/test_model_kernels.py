@@ -12,7 +12,7 @@ from scipy.sparse.linalg import eigsh
 
 import orthoclimb as oc
 from conftest import unit
-from orthoclimb import reference
+from orthoclimb import _core, reference
 
 CASES = [
     ({1: 0.7}, 1),
@@ -133,10 +133,14 @@ def test_kernels_are_bitwise_identical_across_thread_counts(rng):
     v = rng.standard_normal((n, 2))
     xs = unit(rng.standard_normal((3, n)))
     before = oc.get_num_threads()
+    bound = _core._set_inline_passes(0)  # every call on the pool, then (None) small ones inline
     results = []
     try:
-        for k in (1, 2, 4):
-            oc.set_num_threads(k)
+        for k in (1, 2, 4, None):
+            if k is None:
+                _core._set_inline_passes(bound)
+            else:
+                oc.set_num_threads(k)
             ham = oc.Hamiltonian.sample(mix, n, seed=77, dtype="float32")
             results.append(
                 [
@@ -152,6 +156,7 @@ def test_kernels_are_bitwise_identical_across_thread_counts(rng):
             )
     finally:
         oc.set_num_threads(before)
+        _core._set_inline_passes(bound)
     for other in results[1:]:
         for a, b in zip(results[0], other, strict=True):
             np.testing.assert_array_equal(a, b)

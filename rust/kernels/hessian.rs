@@ -10,7 +10,7 @@ use rayon::prelude::*;
 
 use super::{check_len, four_segments, gather, items_for, pieces, segment3, PrefixProducts};
 use crate::error::CoreError;
-use crate::exec::Exec;
+use crate::exec::{on_pool, Exec};
 use crate::partition::{reduce_sums, WorkItem, QUANTUM};
 use crate::prefix::{leave_one_out, leave_two_out, Prefixes, MAX_PREFIX};
 use crate::quads::{hessian4_quads, hessian_quads};
@@ -181,8 +181,9 @@ pub fn hessian<T: Coef>(exec: &Exec, poly: &Packed<T>, x: &[f64]) -> Result<Vec<
 
 /// Replaces A by A + A^T in place (A is n x n row-major), in square tiles so that both the
 /// rows and the columns being read stay in cache. Bands of TILE rows go to the threads of the
-/// current pool: band b reads and writes the entries (i, j) and (j, i) with i in the band and
-/// j >= i, and no two bands share one, so each entry gets the same sum whatever the split.
+/// current pool (one after the other off a pool): band b reads and writes the entries (i, j)
+/// and (j, i) with i in the band and j >= i, and no two bands share one, so each entry gets
+/// the same sum whatever the split.
 fn symmetrize(a: &mut [f64], n: usize) {
     const TILE: usize = 32;
     assert_eq!(a.len(), n * n);
@@ -191,7 +192,8 @@ fn symmetrize(a: &mut [f64], n: usize) {
     // SAFETY: the bands touch disjoint entries, so sharing the pointer across threads is sound.
     unsafe impl Sync for Shared {}
     let shared = Shared(a.as_mut_ptr());
-    (0..n.div_ceil(TILE)).into_par_iter().for_each(|band| {
+    let bands = 0..n.div_ceil(TILE);
+    let band = |band: usize| {
         let p = &shared;
         let bi = band * TILE;
         for bj in (bi..n).step_by(TILE) {
@@ -209,7 +211,12 @@ fn symmetrize(a: &mut [f64], n: usize) {
                 }
             }
         }
-    });
+    };
+    if on_pool() {
+        bands.into_par_iter().for_each(band);
+    } else {
+        bands.for_each(band);
+    }
 }
 
 #[cfg(test)]
@@ -223,9 +230,9 @@ mod tests {
     fn symmetrize_gives_a_plus_its_transpose_on_any_pool() {
         for n in [1usize, 31, 32, 77] {
             let a: Vec<f64> = (0..n * n).map(|i| (i as f64 * 0.73).sin()).collect();
-            for k in [1, 3] {
+            for ex in [pool(1), pool(3), Exec::inline()] {
                 let mut b = a.clone();
-                pool(k).install(|| symmetrize(&mut b, n));
+                ex.install(|| symmetrize(&mut b, n));
                 for i in 0..n {
                     for j in 0..n {
                         assert_eq!(
@@ -250,6 +257,7 @@ mod tests {
         for k in [2, 3] {
             assert_eq!(hessian(&pool(k), &poly, &x).unwrap(), one);
         }
+        assert_eq!(hessian(&Exec::inline(), &poly, &x).unwrap(), one, "inline");
         let (_, _, h0) = naive(&poly, &x);
         for (a, b) in one.iter().zip(&h0) {
             assert!((a - b).abs() < 1e-9 * (1.0 + b.abs()));
