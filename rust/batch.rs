@@ -152,14 +152,17 @@ fn block_pass<M: Madd, T: Coef>(
     e: &mut [f64],
     g: &mut [f64],
     (wide, from_lane): (Option<WideTile>, usize),
+    (s, w): (&mut TileSums, &mut TileSums),
 ) {
     let stride = e.len();
     let want_grad = !g.is_empty();
     let slices = rows.slices(zeros);
     let active = rows.count;
     let x0 = k * stride;
-    let mut s: TileSums = [[0f64; SUM_LANES]; 4];
-    let mut w: TileSums = [[0f64; SUM_LANES]; 4];
+    // every tile writes all four rows of `s`; the weights of missing rows must be zero
+    if want_grad {
+        w[active..].iter_mut().for_each(|row| row.fill(0.0));
+    }
     let mut g0 = from_lane;
     while g0 < stride {
         let left = stride - g0;
@@ -176,19 +179,19 @@ fn block_pass<M: Madd, T: Coef>(
                     w[r][l] = products.base[g0 + l] * xt[x0 + r * stride + g0 + l];
                 }
             }
-            Some((&mut g[x0 + g0..], &w))
+            Some((&mut g[x0 + g0..], &*w))
         } else {
             None
         };
         // 8 lanes only come without gradients (see `lanes` above)
         match lanes {
-            8 => tile::<M, T, 2>(slices, xs, stride, grad, &mut s),
-            4 => tile::<M, T, 1>(slices, xs, stride, grad, &mut s),
+            8 => tile::<M, T, 2>(slices, xs, stride, grad, s),
+            4 => tile::<M, T, 1>(slices, xs, stride, grad, s),
             _ => wide
                 .expect("wide lanes only with a WideTile")
-                .run(lanes, slices, xs, stride, grad, &mut s),
+                .run(lanes, slices, xs, stride, grad, s),
         }
-        combine_lanes::<M>((x0, g0, lanes, active), &s, (lead, products), xt, e, g);
+        combine_lanes::<M>((x0, g0, lanes, active), s, (lead, products), xt, e, g);
         g0 += lanes;
     }
 }
@@ -219,6 +222,7 @@ fn group_pass<M: Madd, T: Coef>(
     xt: &[f64],
     e: &mut [f64],
     wide: WideTile,
+    scratch: (&mut TileSums, &mut TileSums),
 ) {
     let stride = e.len();
     let nb = blocks.len();
@@ -242,8 +246,10 @@ fn group_pass<M: Madd, T: Coef>(
         g0 += lanes;
     }
     if g0 < stride {
+        let (s, w) = scratch;
         for (b, rows) in blocks.iter().enumerate() {
             let lanes = (None, g0);
+            let scratch = (&mut *s, &mut *w);
             block_pass::<M, T>(
                 k + 4 * b,
                 rows,
@@ -253,6 +259,7 @@ fn group_pass<M: Madd, T: Coef>(
                 e,
                 &mut [],
                 lanes,
+                scratch,
             );
         }
     }
@@ -337,6 +344,8 @@ fn batch_item_body<M: Madd, T: Coef>(
     }
     let zeros = vec![T::default(); n];
     let mut products = Leading::new(stride);
+    // the tiles' sums and weights, reused by every block of the item
+    let (mut s, mut w) = ([[0f64; SUM_LANES]; 4], [[0f64; SUM_LANES]; 4]);
     let mut runs = Runs::new(n, it.degree, it.lo, it.hi);
     while let Some((mut k, k_end, mut pos)) = runs.next_run() {
         let lead = runs.lead();
@@ -346,7 +355,7 @@ fn batch_item_body<M: Madd, T: Coef>(
                 return; // a wide batch checks per block: one chunk may be seconds of work
             }
             let grouped = spans && !want_grad && stride >= WideTile::LANES[1] && k_end - k >= 8;
-            if let Some(w) = wide.filter(|_| grouped) {
+            if let Some(wt) = wide.filter(|_| grouped) {
                 let nb = ((k_end - k) / 4).min(SPAN_BLOCKS);
                 let (first, mut next) = rows_at(n, k, pos, 4, coeffs);
                 let mut blocks = [first; SPAN_BLOCKS];
@@ -354,14 +363,26 @@ fn batch_item_body<M: Madd, T: Coef>(
                     (*slot, next) = rows_at(n, k + 4 * b, next, 4, coeffs);
                 }
                 pos = next;
-                group_pass::<M, T>(n, k, &blocks[..nb], &zeros, (lead, &products), xt, e, w);
+                let (rows, scratch) = (&blocks[..nb], (&mut s, &mut w));
+                group_pass::<M, T>(n, k, rows, &zeros, (lead, &products), xt, e, wt, scratch);
                 k += 4 * nb;
                 continue;
             }
             let count = (k_end - k).min(4);
             let (rows, next) = rows_at(n, k, pos, count, coeffs);
             let lanes = (wide, 0);
-            block_pass::<M, T>(k, &rows, &zeros, (lead, &products), xt, e, g, lanes);
+            let scratch = (&mut s, &mut w);
+            block_pass::<M, T>(
+                k,
+                &rows,
+                &zeros,
+                (lead, &products),
+                xt,
+                e,
+                g,
+                lanes,
+                scratch,
+            );
             (k, pos) = (k + count, next);
         }
     }
