@@ -43,10 +43,16 @@ pub const MIN_ITEM: usize = 1 << 14;
 /// Number of work items for a pass over `num_coefficients` whose per-item accumulator has
 /// `acc_len` numbers: a power of two, at most [`MAX_PIECES`], with at least [`MIN_ITEM`]
 /// coefficients and at least 32 * acc_len coefficients per item, so that zeroing and merging
-/// accumulators stays a few percent of the pass. It depends on the instance only, never on
-/// the thread count, which keeps results bitwise reproducible.
+/// accumulators stays a few percent of the pass, except that a pass with 16 * acc_len per
+/// half still splits in two. It depends on the instance only, never on the thread count,
+/// which keeps results bitwise reproducible. Without that exception a p = 3 Hessian below
+/// n = 384 was one item, which one thread ran while the other waited (n = 300, two threads:
+/// 2.1-2.4 ms, more than one thread's 2.2 ms; in two items 1.35-1.6 ms). Items of 16 * acc_len
+/// throughout cost more than they gave where there were already two (n = 400: four items,
+/// 4.8 against 3.2-4.4 ms).
 pub fn pieces(num_coefficients: usize, acc_len: usize) -> usize {
-    let by_acc = num_coefficients / 32usize.saturating_mul(acc_len).max(1);
+    let per_item = |factor: usize| num_coefficients / factor.saturating_mul(acc_len).max(1);
+    let by_acc = per_item(32).max(per_item(16).min(2));
     let by_work = num_coefficients / MIN_ITEM;
     let most = by_acc.min(by_work).min(MAX_PIECES);
     if most <= 1 {
@@ -478,6 +484,13 @@ pub(crate) mod tests {
         let m = |n: usize, p: usize| num_multisets(n, p).unwrap();
         assert_eq!(pieces(10, 25), 1);
         assert_eq!(pieces(m(24, 3), 24), 1, "tiny instances run as one item");
+        assert_eq!(
+            pieces(m(300, 3), 300 * 300),
+            2,
+            "a p = 3 Hessian at n = 300 splits"
+        );
+        assert_eq!(pieces(m(200, 3), 200 * 200), 2);
+        assert_eq!(pieces(m(150, 3), 150 * 150), 1);
         assert_eq!(pieces(m(400, 3), 400 * 400), 2);
         assert_eq!(pieces(m(800, 3), 800 * 800), 4);
         assert_eq!(pieces(m(120, 4), 120 * 120), 16);

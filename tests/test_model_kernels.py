@@ -168,3 +168,6 @@ def test_hessian_workspace_is_reported():
     assert small.hessian_workspace_nbytes == (1 + 1) * 50 * 50 * 8
     big = oc.Hamiltonian.sample(oc.Mixture({3: 1.0}), 400, seed=0)  # 10.7 M coefficients
     assert big.hessian_workspace_nbytes == (2 + 1) * 400 * 400 * 8
+    # and two where each half still has 16 n^2: n = 300 (4.5 M coefficients)
+    mid = oc.Hamiltonian.sample(oc.Mixture({3: 1.0}), 300, seed=0)
+    assert mid.hessian_workspace_nbytes == (2 + 1) * 300 * 300 * 8
