@@ -84,15 +84,19 @@ fn internal_error(py: Python<'_>, what: &str) -> PyErr {
 /// How often the calling thread checks for Ctrl-C while a kernel runs.
 const SIGNAL_POLL: Duration = Duration::from_millis(50);
 
-/// Runs `f` with the GIL released on the shared pool, or inline when `work` (in coefficient
-/// passes) is small ([`threads::exec_for`]), mapping errors and panics. The waiting thread re-takes the GIL every
+/// A call's work in coefficient passes and the most work items it splits into (see
+/// [`threads::exec_for`]).
+type Work = (u64, usize);
+
+/// Runs `f` with the GIL released on the shared pool, or inline when its work is small
+/// ([`threads::exec_for`]), mapping errors and panics. The waiting thread re-takes the GIL every
 /// [`SIGNAL_POLL`] to run Python's signal handlers; when one raises, the kernel is stopped
 /// and that exception is the call's result (it is never swallowed, even when the kernel
 /// finished in the meantime).
 fn run<T: Send>(
     py: Python<'_>,
     what: &str,
-    work: u64,
+    work: Work,
     f: impl FnOnce(&Exec) -> Result<T, CoreError> + Send,
 ) -> PyResult<T> {
     run_reporting(py, what, work, None, f)
@@ -105,11 +109,11 @@ fn run<T: Send>(
 fn run_reporting<T: Send>(
     py: Python<'_>,
     what: &str,
-    work: u64,
+    (work, items): Work,
     progress: Option<&Py<PyAny>>,
     f: impl FnOnce(&Exec) -> Result<T, CoreError> + Send,
 ) -> PyResult<T> {
-    let exec = threads::exec_for(work).map_err(|e| to_py_err(py, e))?;
+    let exec = threads::exec_for(work, items).map_err(|e| to_py_err(py, e))?;
     let mut raised: Option<PyErr> = None;
     let mut reported = 0u64;
     let out = py.detach(|| {
@@ -151,7 +155,7 @@ fn run_reporting<T: Send>(
 fn run_kernel<T: Send + KernelResult>(
     py: Python<'_>,
     what: &'static str,
-    work: u64,
+    work: Work,
     f: impl FnOnce(&Exec) -> Result<T, CoreError> + Send,
 ) -> PyResult<T> {
     run(py, what, work, |exec| {
@@ -209,12 +213,22 @@ fn parse_dtype(py: Python<'_>, dtype: &str) -> PyResult<bool> {
 impl PyPacked {
     /// A call's work in coefficient passes ([`threads::INLINE_PASSES`]), from its cost per
     /// coefficient in eighths of a pass: 8 for one point (a gradient or a Hessian-vector
-    /// product costs about as much as an energy, 1.3 times on the Xeon), 16 for a Hessian,
-    /// and 8 + b for a batch of b energies, where the multiply-adds of the 32-lane tile cost
-    /// about an eighth of a pass each (a batch of 32 took 4.2 times an energy at n = 130).
-    fn work(&self, eighths: usize) -> u64 {
+    /// product costs about as much as an energy, 1.3 times on the Xeon) and 8 + b for a batch
+    /// of b energies, where the multiply-adds of the 32-lane tile cost about an eighth of a
+    /// pass each (a batch of 32 took 4.2 times an energy at n = 130); these calls split into
+    /// many items.
+    fn work(&self, eighths: usize) -> Work {
         let count = on_storage!(&self.inner, p => p.num_coefficients()) as u64;
-        count.saturating_mul(eighths as u64) / 8
+        (count.saturating_mul(eighths as u64) / 8, usize::MAX)
+    }
+
+    /// A Hessian's work: two passes and its n x n result, in as many items as it has
+    /// accumulators (one below n = 188 at p = 3).
+    fn hessian_work(&self, n: usize) -> Work {
+        let count = on_storage!(&self.inner, p => p.num_coefficients());
+        let passes = (count as u64).saturating_mul(2);
+        let items = kernels::pieces(count, n.saturating_mul(n));
+        (passes.saturating_add((n * n) as u64), items)
     }
 }
 
@@ -256,6 +270,7 @@ impl PyPacked {
         let work = count
             .fold(0u64, |w, c| w.saturating_add(c as u64))
             .saturating_mul(128);
+        let work = (work, usize::MAX);
         let inner = run_reporting(py, "sampling", work, progress.as_ref(), |pool| {
             Ok(if f32_storage {
                 Storage::F32(Packed::sample(pool, n, &terms, &disorder)?)
@@ -285,7 +300,7 @@ impl PyPacked {
             .map(|a| slice1(a, "coefficients"))
             .collect::<PyResult<_>>()?;
         let parts: Vec<(usize, &[f64])> = degrees.into_iter().zip(slices).collect();
-        let inner = run(py, "packing", u64::MAX, |_| {
+        let inner = run(py, "packing", (u64::MAX, usize::MAX), |_| {
             Ok(if f32_storage {
                 Storage::F32(Packed::from_coefficients(n, &parts)?)
             } else {
@@ -361,7 +376,7 @@ impl PyPacked {
         let h = run_kernel(
             py,
             "Hessian",
-            self.work(16).saturating_add((n * n) as u64),
+            self.hessian_work(n),
             |pool| on_storage!(&self.inner, p => kernels::hessian(pool, p, x)),
         )?;
         h.into_pyarray(py).reshape([n, n])
@@ -482,7 +497,7 @@ fn multiset_table<'py>(py: Python<'py>, n: usize, p: usize) -> PyResult<Bound<'p
         return Err(to_py_err(py, CoreError::InvalidDegree { p }));
     }
     let count = num_multisets(n, p).map_err(|e| to_py_err(py, e))?;
-    let table = run(py, "enumeration", u64::MAX, |_| {
+    let table = run(py, "enumeration", (u64::MAX, usize::MAX), |_| {
         let len = count.checked_mul(p).ok_or(CoreError::SizeOverflow {
             what: format!("index table of {count} x {p}"),
         })?;
