@@ -206,7 +206,8 @@ def test_a_killed_worker_loses_only_its_running_task(tmp_path):
     finally:
         if proc.poll() is None:
             os.killpg(proc.pid, signal.SIGKILL)
-    assert proc.returncode == 0, err.decode()[-2000:]
+    failures = [p.read_text()[:500] for p in (folder / "failed").glob("*")]
+    assert proc.returncode == 0, (err.decode()[-2000:], failures)
     spec = spec_from_flags(["3:1"], None, "40,60", "0-11", "hessian", {"hessian": {"steps": 30}})
     table = pq.read_table(folder / "results.parquet").to_pylist()
     ids = [r["task_id"] for r in table]

@@ -264,13 +264,16 @@ def run_study(
         show()
         for fut in as_completed(futures):
             task = by_key[fut.key]
-            if fut.status == "finished":
-                store.write_row(fut.result())
-                done += 1
-            else:
-                exc = fut.exception()
+            # ask the future itself rather than its status: a result held by a worker that
+            # dies after the task finished is "lost" for a moment, then computed again
+            try:
+                row = fut.result()
+            except Exception as exc:  # noqa: BLE001 - the task's own error, recorded as such
                 store.write_failure(task.task_id, task.config(), f"{type(exc).__name__}: {exc}")
                 failed += 1
+            else:
+                store.write_row(row)
+                done += 1
             bar.update(1)
             show()
             fut.release()
