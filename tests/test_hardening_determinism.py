@@ -22,7 +22,7 @@ import numpy as np
 import pytest
 
 import orthoclimb as oc
-from orthoclimb import _core
+from conftest import every_call_on_the_pool
 
 N_KERNELS = 60
 N_ASCENT = 40
@@ -119,18 +119,14 @@ def by_threads():
     # calls this small normally run on the calling thread; with the inline bound at 0 every
     # call runs on the pool, so the thread counts below split the work across threads
     before = oc.get_num_threads()
-    bound = _core._set_inline_passes(0)
     runs = []
-    try:
+    with every_call_on_the_pool() as inline_again:
         for k in (1, 2, 4, 2, 1):  # each count, and repeated runs at the same count
             oc.set_num_threads(k)
             assert oc.get_num_threads() == k
             runs.append((k, fingerprints()))
-        _core._set_inline_passes(bound)  # and the default: small calls inline
+        inline_again()  # and the default: small calls inline
         runs.append(("inline", fingerprints()))
-    finally:
-        oc.set_num_threads(before)
-        _core._set_inline_passes(bound)
     assert oc.get_num_threads() == before
     return runs
 

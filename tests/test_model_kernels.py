@@ -11,8 +11,8 @@ import pytest
 from scipy.sparse.linalg import eigsh
 
 import orthoclimb as oc
-from conftest import unit
-from orthoclimb import _core, reference
+from conftest import every_call_on_the_pool, unit
+from orthoclimb import reference
 
 CASES = [
     ({1: 0.7}, 1),
@@ -132,13 +132,11 @@ def test_kernels_are_bitwise_identical_across_thread_counts(rng):
     x = unit(rng.standard_normal(n))
     v = rng.standard_normal((n, 2))
     xs = unit(rng.standard_normal((3, n)))
-    before = oc.get_num_threads()
-    bound = _core._set_inline_passes(0)  # every call on the pool, then (None) small ones inline
     results = []
-    try:
-        for k in (1, 2, 4, None):
+    with every_call_on_the_pool() as inline_again:
+        for k in (1, 2, 4, None):  # then (None) the default: small calls inline
             if k is None:
-                _core._set_inline_passes(bound)
+                inline_again()
             else:
                 oc.set_num_threads(k)
             ham = oc.Hamiltonian.sample(mix, n, seed=77, dtype="float32")
@@ -154,9 +152,6 @@ def test_kernels_are_bitwise_identical_across_thread_counts(rng):
                     ham.gradient(xs),
                 ]
             )
-    finally:
-        oc.set_num_threads(before)
-        _core._set_inline_passes(bound)
     for other in results[1:]:
         for a, b in zip(results[0], other, strict=True):
             np.testing.assert_array_equal(a, b)
