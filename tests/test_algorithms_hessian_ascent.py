@@ -10,6 +10,7 @@ import pytest
 import scipy.linalg
 
 import orthoclimb as oc
+from orthoclimb.algorithms._eigen import TangentBasis, top_tangent_eigenpair
 from orthoclimb.algorithms._sphere import HessianReader
 
 ALG_P3 = 2.0 * math.sqrt(2.0 / 3.0)  # Auffinger, Ben Arous, Cerny 2013 (E_inf of the pure 3-spin)
@@ -221,3 +222,75 @@ def test_validation(kwargs, exc, text):
 def test_wrong_hamiltonian_type():
     with pytest.raises(TypeError, match="Hamiltonian"):
         oc.hessian_ascent("not a hamiltonian")
+
+
+@pytest.mark.parametrize(
+    "u",
+    [
+        np.array([1.0, 0.0, 0.0, 0.0]),
+        np.array([-1.0, 0.0, 0.0, 0.0]),
+        np.array([0.0, 0.6, -0.8, 0.0]),
+        np.array([-0.5, 0.5, 0.5, -0.5]),
+        np.array([0.6, -0.8]),
+    ],
+)
+def test_tangent_basis_is_an_orthonormal_basis_of_the_tangent_space(u):
+    # exact identities: B^T B = I, B^T u = 0; the restricted matrix and operator are B^T M B
+    basis = TangentBasis(u)
+    d = u.size - 1
+    b = np.column_stack([basis.lift(e) for e in np.eye(d)])
+    np.testing.assert_allclose(b.T @ b, np.eye(d), atol=1e-14)
+    np.testing.assert_allclose(u @ b, 0.0, atol=1e-15)
+    z = np.random.default_rng(1).standard_normal(u.size)
+    np.testing.assert_allclose(basis.coordinates(z), b.T @ z, atol=1e-14)
+    m = np.random.default_rng(2).standard_normal((u.size, u.size))
+    m = m + m.T
+    want = b.T @ m @ b
+    np.testing.assert_allclose(basis.restrict_inplace(m.copy()), want, atol=1e-13)
+    op = basis.restrict_operator(lambda v: m @ v)
+    np.testing.assert_allclose(op.matmat(np.eye(d)), want, atol=1e-13)
+
+
+@pytest.mark.parametrize("n", [5, 60])  # a dense solve (n - 1 <= DIRECT_MAX) and Lanczos
+@pytest.mark.parametrize("as_operator", [False, True])
+def test_top_tangent_eigenpair_when_every_tangent_eigenvalue_is_negative(n, as_operator):
+    # P M P would have the eigenvalue 0 on u above all of these; the reference is
+    # scipy.linalg.eigh on M restricted to a basis of u^perp from scipy.linalg.null_space
+    rng = np.random.default_rng(n)
+    u = rng.standard_normal(n)
+    u /= np.linalg.norm(u)
+    a = rng.standard_normal((n, n))
+    m = -(a @ a.T) - np.eye(n)  # negative definite
+    basis = TangentBasis(u)
+    op = (
+        basis.restrict_operator(lambda v: m @ v)
+        if as_operator
+        else basis.restrict_inplace(m.copy())
+    )
+    theta, v, fallback = top_tangent_eigenpair(op, basis, rng.standard_normal(n), 1e-12)
+    q = scipy.linalg.null_space(u[None, :])
+    vals, vecs = scipy.linalg.eigh(q.T @ m @ q)
+    assert not fallback
+    assert theta == pytest.approx(vals[-1], rel=1e-9)
+    assert abs(float(u @ v)) < 1e-12 and np.linalg.norm(v) == pytest.approx(1.0)
+    assert abs(float(v @ (q @ vecs[:, -1]))) == pytest.approx(1.0, abs=1e-8)
+
+
+@pytest.mark.parametrize("n", [2, 3, 4])
+def test_small_n_stays_inside_the_ball(n):
+    # tiny spheres, where every tangent eigenvalue can be negative: the steps must still be
+    # orthogonal to x, so |x|^2 = (i+1)/K exactly (before, n = 2 reached |x|^2 = 17)
+    ham = oc.Hamiltonian.sample(oc.Mixture({3: 1.0}), n, seed=0)
+    res = oc.hessian_ascent(ham, steps=50, seed=0, polish=False)
+    np.testing.assert_allclose(res.path["q"], (np.arange(50) + 1) / 50, rtol=1e-10)
+    assert np.linalg.norm(res.x) == pytest.approx(1.0, abs=1e-12)
+    if n == 2:
+        assert np.nanmin(res.path["eigenvalue"]) < 0.0  # the case this test is about
+    polished = oc.hessian_ascent(ham, steps=50, seed=0)
+    assert polished.energy >= res.energy - 1e-12  # polish only climbs
+
+
+def test_one_spin_is_refused():
+    ham = oc.Hamiltonian.sample(oc.Mixture({3: 1.0}), 1, seed=0)
+    with pytest.raises(ValueError, match="n >= 2.*n = 1"):
+        oc.hessian_ascent(ham)

@@ -1,11 +1,18 @@
 """The top eigenvector of the Hessian restricted to the tangent space, by Lanczos.
 
-The tangent Hessian at x (u = x/|x|, P = I - u u^T) is M_T = P M P, a symmetric matrix whose
-restriction to u^perp is the object of SPEC section 5; u itself is an eigenvector of M_T with
-eigenvalue 0, which lies inside the spectrum of the tangent block at every q > 0, so "the largest
-eigenvalue of M_T" is the largest tangent one. Formed in place with two rank-one updates:
+At x (u = x/|x|) the tangent space is u^perp, and SPEC section 5 asks for the top eigenpair of
+the Hessian M restricted to it. We work in an orthonormal basis B (n x (n-1)) of u^perp, never
+formed: B = H[:, 1:] for the Householder reflector H = I - 2 w w^T that maps u to -+e_1
+(w = (u + s e_1)/|u + s e_1|, s = sign(u_1), which never cancels; Golub & Van Loan, Matrix
+Computations, section 5.1). The restricted matrix B^T M B is the trailing (n-1) x (n-1) block
+of H M H, formed in place with two rank-one updates (BLAS dger):
 
-    P M P = M - u z^T - z u^T,   w = M u,   z = w - (u.w / 2) u      (BLAS dger).
+    H M H = M - w z^T - z w^T,   a = M w,   z = 2 a - 2 (w.a) w,
+
+and as an operator B^T M B y = (H M H [0; y])[1:], O(n) besides the product with M. Working in
+u^perp itself, not with the n x n matrix P M P (P = I - u u^T), matters when every tangent
+eigenvalue is negative (small n, or late in a run): P M P has the extra eigenvalue 0 on u, and
+Lanczos, whose vectors pick up a rounding-sized part along u, then converges to u instead.
 
 Stopping rule. ARPACK (``scipy.sparse.linalg.eigsh``, which="LA") stops when the residual of the
 Ritz pair satisfies |M_T y - theta y| <= tol_rel |theta|. A residual r bounds the distance from
@@ -14,53 +21,104 @@ within delta n of an eigenvalue (the top one, since Lanczos with "LA" converges 
 accuracy SPEC section 5 asks for, and no more. |theta| is taken from the previous step (the edge
 moves by O(1/K) per step); on the first step from the Frobenius norm, an upper bound, so the
 first tolerance is only stricter. The start vector is the previous step's eigenvector projected on
-the new tangent space (warm start).
+the new tangent space (warm start). Tangent spaces of at most ``DIRECT_MAX`` dimensions are solved
+exactly by ``scipy.linalg.eigh`` (ARPACK needs more dimensions than wanted eigenvalues, and for
+so few a dense solve is cheaper anyway).
 """
 
 from __future__ import annotations
+
+from collections.abc import Callable
 
 import numpy as np
 import scipy.linalg
 from scipy.linalg.blas import dger
 from scipy.sparse.linalg import ArpackNoConvergence, LinearOperator, eigsh
 
-__all__ = ["project_matrix_inplace", "top_tangent_eigenpair"]
+__all__ = ["DIRECT_MAX", "TangentBasis", "top_tangent_eigenpair"]
+
+DIRECT_MAX = 16  # tangent dimensions solved by a dense eigh
 
 
-def project_matrix_inplace(m: np.ndarray, u: np.ndarray) -> np.ndarray:
-    """Overwrite the C-contiguous symmetric m with P m P (P = I - u u^T, |u| = 1)."""
-    w = m @ u
-    z = w - (0.5 * float(u @ w)) * u
-    mt = m.T  # Fortran-ordered view: dger updates it in place
-    dger(-1.0, u, z, a=mt, overwrite_a=1)
-    dger(-1.0, z, u, a=mt, overwrite_a=1)
-    return m
+class TangentBasis:
+    """The orthonormal basis B = H[:, 1:] of u^perp (see the module doc) for a unit vector u,
+    n >= 2: ``lift`` maps coordinates y (n - 1) to the tangent vector B y, ``coordinates`` maps
+    a vector z to B^T z, and ``restrict_inplace`` turns a symmetric n x n matrix into B^T M B."""
+
+    def __init__(self, u: np.ndarray):
+        if u.size < 2:
+            raise ValueError(f"a tangent space needs n >= 2, got n = {u.size}")
+        w = np.array(u, dtype=np.float64)
+        w[0] += 1.0 if w[0] >= 0.0 else -1.0
+        self.w = w / np.linalg.norm(w)
+
+    @property
+    def dim(self) -> int:
+        return self.w.size - 1
+
+    def lift(self, y: np.ndarray) -> np.ndarray:
+        """B y = H [0; y]: a vector of u^perp."""
+        w = self.w
+        z = np.empty(w.size)
+        z[0] = 0.0
+        z[1:] = y
+        return z - (2.0 * float(w[1:] @ y)) * w
+
+    def coordinates(self, z: np.ndarray) -> np.ndarray:
+        """B^T z = (H z)[1:]."""
+        w = self.w
+        return z[1:] - (2.0 * float(w @ z)) * w[1:]
+
+    def restrict_inplace(self, m: np.ndarray) -> np.ndarray:
+        """Overwrite the C-contiguous symmetric m with H m H; return its trailing block B^T m B
+        (a view)."""
+        w = self.w
+        a = m @ w
+        z = 2.0 * a - (2.0 * float(w @ a)) * w
+        mt = m.T  # Fortran-ordered view: dger updates it in place
+        dger(-1.0, w, z, a=mt, overwrite_a=1)
+        dger(-1.0, z, w, a=mt, overwrite_a=1)
+        return m[1:, 1:]
+
+    def restrict_operator(self, matvec: Callable[[np.ndarray], np.ndarray]) -> LinearOperator:
+        """B^T M B as an operator on R^(n-1), given v -> M v on R^n."""
+        d = self.dim
+
+        def apply(y: np.ndarray) -> np.ndarray:
+            return self.coordinates(matvec(self.lift(np.ravel(y))))
+
+        return LinearOperator((d, d), matvec=apply, rmatvec=apply, dtype=np.float64)
+
+
+def _dense_top(a: np.ndarray) -> tuple[float, np.ndarray]:
+    d = a.shape[0]
+    vals, vecs = scipy.linalg.eigh(a, subset_by_index=[d - 1, d - 1])
+    return float(vals[0]), vecs[:, 0]
 
 
 def top_tangent_eigenpair(
-    op: np.ndarray | LinearOperator, u: np.ndarray, v0: np.ndarray, rel_tol: float
+    op: np.ndarray | LinearOperator, basis: TangentBasis, v0: np.ndarray, rel_tol: float
 ) -> tuple[float, np.ndarray, bool]:
-    """(theta, v, fallback): largest eigenvalue of the tangent operator ``op`` (already
-    projected) and its unit eigenvector, projected on u^perp. ``fallback`` is True when ARPACK
-    did not converge and the result came from its best Ritz pair (operator) or from a dense
-    ``eigh`` of the top eigenvalue (matrix)."""
+    """(theta, v, fallback): largest eigenvalue of ``op`` = B^T M B (a matrix or an operator
+    on the tangent coordinates of ``basis``) and its unit eigenvector as a vector of u^perp.
+    ``v0`` (a vector of R^n) starts Lanczos. ``fallback`` is True when ARPACK did not converge
+    and the result came from its best Ritz pair (operator) or from a dense ``eigh`` (matrix)."""
     fallback = False
-    try:
-        vals, vecs = eigsh(op, k=1, which="LA", v0=v0, tol=rel_tol)
-        theta, v = float(vals[0]), vecs[:, 0]
-    except ArpackNoConvergence as exc:
-        fallback = True
-        if isinstance(op, np.ndarray):
-            n = op.shape[0]
-            vals, vecs = scipy.linalg.eigh(op, subset_by_index=[n - 1, n - 1])
-            theta, v = float(vals[0]), vecs[:, 0]
-        elif exc.eigenvalues.size:
-            theta, v = float(exc.eigenvalues[0]), exc.eigenvectors[:, 0]
-        else:
-            raise
-    v = v - u * float(u @ v)
-    norm = float(np.linalg.norm(v))
-    if norm == 0.0:  # only if the tangent block were <= 0 and Lanczos returned u itself
-        v = v0 - u * float(u @ v0)
-        norm = float(np.linalg.norm(v))
-    return theta, v / norm, fallback
+    d = basis.dim
+    if d <= DIRECT_MAX:
+        mat = op if isinstance(op, np.ndarray) else op.matmat(np.eye(d))
+        theta, y = _dense_top(mat)  # eigh reads one triangle
+    else:
+        try:
+            vals, vecs = eigsh(op, k=1, which="LA", v0=basis.coordinates(v0), tol=rel_tol)
+            theta, y = float(vals[0]), vecs[:, 0]
+        except ArpackNoConvergence as exc:
+            fallback = True
+            if isinstance(op, np.ndarray):
+                theta, y = _dense_top(op)
+            elif exc.eigenvalues.size:
+                theta, y = float(exc.eigenvalues[0]), exc.eigenvectors[:, 0]
+            else:
+                raise
+    v = basis.lift(y)
+    return theta, v / float(np.linalg.norm(v)), fallback

@@ -4,7 +4,8 @@ sphere by orthogonal steps along the top eigenvector of the tangent Hessian.
 Without a field (no p = 1 term). Start at x_0 of norm 1/sqrt(K) in a seeded uniformly random
 direction. Step i = 0..K-2, at x = x_i with u = x/|x|:
 
-1. M = Hess H(x) (one pass of the Rust kernel), projected: M_T = P M P, P = I - u u^T;
+1. M = Hess H(x) (one pass of the Rust kernel), restricted to the tangent space u^perp: M_T =
+   B^T M B for an orthonormal basis B of u^perp (see ``_eigen``);
 2. v = top eigenvector of M_T by Lanczos (``eigsh``), warm-started from the previous step's v,
    stopped when its Rayleigh quotient is within delta n of the top eigenvalue (see ``_eigen``);
 3. flip v if <grad H(x), v> < 0;  x_{i+1} = x_i + v/sqrt(K).
@@ -75,9 +76,9 @@ from ..model.memory import available_memory
 from ..theory import algorithmic_energy, algorithmic_threshold, hessian_edge, path_energy
 from ._checks import check_count, check_ham, check_positive, check_seed
 from ._config import base_config
-from ._eigen import project_matrix_inplace, top_tangent_eigenpair
+from ._eigen import TangentBasis, top_tangent_eigenpair
 from ._riemannian import sphere_ascent
-from ._sphere import HessianReader, project_tangent, random_unit
+from ._sphere import HessianReader, random_unit
 from .polish import polish as polish_point
 from .result import Result
 
@@ -117,14 +118,9 @@ def _choose_mode(ham: Hamiltonian, mode: str) -> str:
     return "dense" if need <= available_memory() // 2 else "operator"
 
 
-def _tangent_operator(ham: Hamiltonian, x: np.ndarray, u: np.ndarray) -> LinearOperator:
-    n = ham.n
-
-    def matvec(v: np.ndarray) -> np.ndarray:
-        pv = project_tangent(np.ravel(v), u)
-        return project_tangent(ham.hvp(x, pv), u)
-
-    return LinearOperator((n, n), matvec=matvec, rmatvec=matvec, dtype=np.float64)
+def _tangent_operator(ham: Hamiltonian, x: np.ndarray, basis: TangentBasis) -> LinearOperator:
+    """B^T Hess H(x) B on the tangent coordinates, one HVP pass per product."""
+    return basis.restrict_operator(lambda v: ham.hvp(x, v))
 
 
 def _first_stage(ham: Hamiltonian, q_hat: float, max_iter: int) -> tuple[np.ndarray, dict]:
@@ -173,6 +169,11 @@ def hessian_ascent(
     row is the end point (no eigen-solve there: NaN).
     """
     ham = check_ham(ham, "hessian_ascent")
+    if ham.n < 2:
+        raise ValueError(
+            f"hessian_ascent needs n >= 2: the sphere of n = {ham.n} is two points, with no "
+            "tangent direction to climb along"
+        )
     k = auto_steps(ham.n) if steps is None else check_count(steps, "steps")
     delta = check_positive(tol, "tol")
     seed = check_seed(seed)
@@ -233,19 +234,19 @@ def hessian_ascent(
                 energy, grad = ham.energy_and_gradient(x)
                 t_grad = time.perf_counter() - t1
             u = x / np.linalg.norm(x)
+            basis = TangentBasis(u)
             t2 = time.perf_counter()
             if mode == "dense":
-                op = project_matrix_inplace(hess, u)
+                op = basis.restrict_inplace(hess)
                 if theta_scale is None:
                     theta_scale = float(np.linalg.norm(op))
             else:
-                op = _tangent_operator(ham, x, u)
+                op = _tangent_operator(ham, x, basis)
                 if theta_scale is None:
                     theta_scale = float(np.linalg.norm(grad)) + 1.0
             v0 = random_unit(n, rng) if v_prev is None else v_prev
-            v0 = project_tangent(v0, u)
             rel_tol = min(0.1, delta * n / max(theta_scale, 1e-300))
-            theta, v, fell_back = top_tangent_eigenpair(op, u, v0, rel_tol)
+            theta, v, fell_back = top_tangent_eigenpair(op, basis, v0, rel_tol)
             t_eig = time.perf_counter() - t2
             fallbacks += fell_back
             theta_scale = max(abs(theta), 1e-12 * n)
