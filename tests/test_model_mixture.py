@@ -56,11 +56,19 @@ def test_zero_gammas_are_dropped():
         ({2: "x"}, "'x'"),
         ({2: 0.0}, "at least one"),
         ({3: 1e200}, "1e\\+200"),  # finite, but gamma^2 overflows float64
+        ({3: 1e-170}, "too small.*1e-170"),  # positive, but gamma^2 underflows to 0
+        ({2: 1.0, 3: 1e-155}, "p = 3.*1e-155"),  # gamma^2 subnormal: xi would lose it
     ],
 )
 def test_bad_mixtures_name_the_value(spec, fragment):
     with pytest.raises(MixtureError, match=fragment):
         Mixture(spec)
+
+
+def test_from_xi_refuses_a_subnormal_coefficient():
+    with pytest.raises(MixtureError, match="gamma_p\\^2 for p = 3 is too small.*1e-320"):
+        Mixture.from_xi({3: 1e-320})
+    assert Mixture.from_xi({3: 1e-300}).xi(1.0) == 1e-300  # the smallest normals are kept
 
 
 @pytest.mark.parametrize("text", ["", "2", "2:", ":1", "a:1", "2:b", "2:1,2:1", "2:1;3:1", "9:1"])

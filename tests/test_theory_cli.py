@@ -106,6 +106,16 @@ def test_malformed_mixture_exit_code_2(text, capsys):
     assert err.startswith("orthoclimb theory: error:")
 
 
+def test_far_scales_print_in_exponent_form(capsys):
+    # ALG of c xi is sqrt(c) ALG(xi) (exact scaling): 1e150 * sqrt(8/3) for the pure 3-spin
+    assert main(["theory", "--gammas", "3:1e150"]) == 0
+    text = capsys.readouterr().out
+    assert f"ALG              {1e150 * math.sqrt(8 / 3):.10e}" in text
+    assert "fails" in text
+    assert main(["theory", "--gammas", "3:1e-170"]) == 2
+    assert "too small" in capsys.readouterr().err
+
+
 def test_bad_tolerance_exit_code_2(capsys):
     assert main(["theory", "--gammas", "3:1", "--tol", "-1"]) == 2
     assert "-1" in capsys.readouterr().err

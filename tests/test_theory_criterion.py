@@ -62,6 +62,18 @@ def test_two_plus_four_past_the_boundary_fails_near_one(a, factor):
     assert lo == pytest.approx(math.sqrt(a / (12 * b)), rel=1e-12)
 
 
+@pytest.mark.parametrize("scale", [1e-300, 1e-150, 1e-20, 1e20, 1e150, 1e300])
+def test_verdict_does_not_depend_on_the_scale_of_xi(scale):
+    # exact: xi''^(-1/2) of c xi is c^(-1/2) times that of xi, so concavity (and the SPEC
+    # section 3 worked examples) cannot change; before, c = 1e200 made N overflow and "hold"
+    for xi in ({3: 1.0}, {2: 1.0, 4: 1 / 16}, {2: 1.0, 4: 1 / 10}, {1: 0.3, 2: 1.0, 3: 0.2}):
+        base = full_rsb(Mixture.from_xi(xi))
+        scaled = full_rsb(Mixture.from_xi({p: c * scale for p, c in xi.items()}))
+        assert scaled.holds == base.holds, (xi, scale)
+        np.testing.assert_allclose(scaled.failing_intervals, base.failing_intervals, rtol=1e-12)
+        assert scaled.q_hat == pytest.approx(base.q_hat, rel=1e-12)
+
+
 @pytest.mark.parametrize("eps", [1e-3, 1e-6])
 def test_boundary_location_is_sharp(eps):
     # SPEC section 3 worked example: the boundary b = a/12 is located to relative precision eps.

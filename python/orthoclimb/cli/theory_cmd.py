@@ -104,6 +104,14 @@ def _report(mixture: Mixture, tol: float) -> dict[str, Any]:
     }
 
 
+def _energy(value: float) -> str:
+    """An energy per spin: ten decimals at the usual scales (xi(1) of order one), eleven
+    significant digits in exponent form for a mixture scaled far from them."""
+    if value == 0.0 or 1e-3 <= abs(value) < 1e6:
+        return f"{value:.10f}"
+    return f"{value:.10e}"
+
+
 def _table(report: dict[str, Any]) -> str:
     gs = report["ground_state"]
     rows = [
@@ -112,12 +120,12 @@ def _table(report: dict[str, Any]) -> str:
     ]
     if report["q_hat"] > 0.0:
         rows.append(("q_hat", f"{report['q_hat']:.10g}"))
-    rows.append(("ALG", f"{report['alg']:.10f}"))
+    rows.append(("ALG", _energy(report["alg"])))
     status = "converged" if gs["converged"] else "NOT converged"
     rows.append(
         (
             "GS (Parisi)",
-            f"{gs['value']:.10f}   ({gs['n_steps']} step(s), grid {gs['grid_size']},"
+            f"{_energy(gs['value'])}   ({gs['n_steps']} step(s), grid {gs['grid_size']},"
             f" {status}, last change {gs['change']:.1e}, tol {gs['tol']:.0e})",
         )
     )
@@ -125,8 +133,8 @@ def _table(report: dict[str, Any]) -> str:
     rows.append(("B", f"{gs['B']:.10g}"))
     pure = report["pure"]
     if pure is not None:
-        rows.append(("E_inf", f"{pure['threshold_energy']:.10f}"))
-        rows.append(("complexity zero", f"{pure['complexity_ground_state']:.10f}"))
+        rows.append(("E_inf", _energy(pure["threshold_energy"])))
+        rows.append(("complexity zero", _energy(pure["complexity_ground_state"])))
         rows.append(("GS - that zero", f"{pure['parisi_minus_complexity']:.3e}"))
     width = max(len(k) for k, _ in rows)
     lines = [f"{k.ljust(width)}  {v}" for k, v in rows]

@@ -12,6 +12,7 @@ E[H(x) H(y)] = n xi(<x, y>). The term p = 1 is a random external field.
 from __future__ import annotations
 
 import math
+import sys
 from collections.abc import Iterable, Mapping
 from typing import Any
 
@@ -80,6 +81,12 @@ class Mixture:
                     f"gamma for p = {p} is too large: its square, the coefficient of q^{p} in"
                     f" xi, overflows float64; got {g_raw!r}"
                 )
+            if 0.0 < checked[p] and checked[p] * checked[p] < sys.float_info.min:
+                raise MixtureError(
+                    f"gamma for p = {p} is too small: its square, the coefficient of q^{p} in"
+                    f" xi, underflows float64 (below {sys.float_info.min:.3g}); give 0 to drop"
+                    f" the degree; got {g_raw!r}"
+                )
         kept = {p: g for p, g in sorted(checked.items()) if g > 0.0}
         if not kept:
             raise MixtureError(
@@ -98,7 +105,14 @@ class Mixture:
         gammas = {}
         for p, c in coeffs.items():
             p = _check_degree(p)
-            gammas[p] = math.sqrt(_check_gamma(p, c, what="xi coefficient gamma_p^2"))
+            c2 = _check_gamma(p, c, what="xi coefficient gamma_p^2")
+            if 0.0 < c2 < sys.float_info.min:
+                raise MixtureError(
+                    f"xi coefficient gamma_p^2 for p = {p} is too small: below float64's"
+                    f" smallest normal number {sys.float_info.min:.3g}; give 0 to drop the"
+                    f" degree; got {c!r}"
+                )
+            gammas[p] = math.sqrt(c2)
         return cls(gammas)
 
     @classmethod

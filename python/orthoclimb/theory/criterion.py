@@ -107,7 +107,7 @@ def _pair_factor(p: int, r: int) -> int:
     return 3 * third_p * third_r - 2 * p * (p - 1) * third_r * (r - 3)
 
 
-def _numerator_coefficients(mixture: Mixture) -> np.ndarray:
+def _numerator_coefficients(mixture: Mixture, unit_scale: bool = False) -> np.ndarray:
     """Ascending coefficients of N(q) = 3 xi'''^2 - 2 xi'' xi''''.
 
     For degrees p, r with xi coefficients c_p, c_r, the product of the q^p and q^r terms gives
@@ -115,8 +115,15 @@ def _numerator_coefficients(mixture: Mixture) -> np.ndarray:
     K(p, r) = 3 p(p-1)(p-2) r(r-1)(r-2) - 2 p(p-1) r(r-1)(r-2)(r-3).
     Pairs with K(p, r) + K(r, p) = 0 are skipped exactly (for instance p = 2 with r = 3, and p = r
     = 2), so structural zeros stay exactly zero.
+
+    With ``unit_scale`` the coefficients of xi are first divided by the largest one: N then
+    changes by a positive factor, which keeps its sign, and the products c_p c_r stay finite
+    however large or small xi is (the verdict does not depend on the scale of xi).
     """
     coeffs = mixture.xi_coefficients
+    if unit_scale:
+        largest = max(coeffs.values())
+        coeffs = {p: c / largest for p, c in coeffs.items()}
     degrees = [p for p in coeffs if p >= 2]
     top = max(degrees, default=0)
     out = np.zeros(max(2 * top - 5, 1))
@@ -183,7 +190,7 @@ def full_rsb(mixture: Mixture) -> FullRSBVerdict:
         return FullRSBVerdict(
             holds=False, failing_intervals=[], q_hat=q_hat, gs_equals_alg=True, linear=True
         )
-    coeffs = _numerator_coefficients(mixture)
+    coeffs = _numerator_coefficients(mixture, unit_scale=True)
     failing = _failing(coeffs)
     on_support = [iv for iv in failing if iv[1] > q_hat]
     return FullRSBVerdict(
