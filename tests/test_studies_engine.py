@@ -88,6 +88,16 @@ def test_refuses_folder_of_a_different_study(tmp_path, capsys):
     assert "different configuration" in capsys.readouterr().err
 
 
+def test_an_instance_larger_than_memory_is_refused_before_anything_starts(tmp_path, capsys):
+    # p = 3, n = 100000: C(100002, 3) coefficients of 8 bytes, 1.3 PB, on any machine
+    out = tmp_path / "s"
+    code = main(["sweep", "--gammas", "3:1", "--n", "100000", "--seeds", "0", "--out", str(out)])
+    assert code == 2
+    err = capsys.readouterr().err
+    assert "n = 100000" in err and "1333373333600000 bytes" in err and "--scheduler" in err
+    assert not out.exists()
+
+
 def test_unreachable_scheduler_is_a_clear_error(tmp_path, capsys):
     start = time.perf_counter()
     code = main(

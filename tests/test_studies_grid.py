@@ -6,6 +6,7 @@ import pytest
 
 from orthoclimb.cli import main
 from orthoclimb.studies.grid import (
+    MAX_TASKS,
     MethodSpec,
     parse_seeds,
     parse_sizes,
@@ -31,11 +32,22 @@ def test_parse_seeds_ranges_and_lists():
         ("1,1", "twice"),
         ("-3", ">= 0"),
         ("1,,2", "empty item"),
+        ("0-1000000000", "more than 100000 seeds.*'0-1000000000' alone has 1000000001"),
+        ("0-60000,70000-130000", "more than 100000 seeds"),
     ],
 )
 def test_parse_seeds_refuses(text, words):
     with pytest.raises(ValueError, match=words):
         parse_seeds(text)
+
+
+def test_a_grid_beyond_the_task_cap_is_refused_before_building_it():
+    # 4 sizes x 2 methods x 20001 seeds = 160008 tasks > MAX_TASKS; counted, not built
+    assert MAX_TASKS == 100_000
+    with pytest.raises(ValueError, match="160008 tasks"):
+        spec_from_flags(["3:1"], None, "20,30,40,50", "0-20000", "hessian,gradient", {}, 2 / 3)
+    ok = spec_from_flags(["3:1"], None, "20,30", "0-99", "hessian,gradient", {}, 2 / 3)
+    assert ok.num_tasks == len(ok.tasks()) == 400
 
 
 def test_parse_sizes():

@@ -162,6 +162,28 @@ def _connect(scheduler: str | None, plan: WorkerPlan, timeout: float):
     return client, None
 
 
+def _check_largest_fits(tasks: list[Task]) -> None:
+    """Refuse, before anything starts, a study run on this machine whose largest instance
+    alone needs more memory than is available: each of its tasks would fail after the
+    cluster started (an external cluster's machines may be larger: not checked)."""
+    from ..errors import InsufficientMemoryError
+    from ..model import available_memory, estimate_memory
+    from ..model.memory import format_bytes
+
+    need, big = max(
+        ((estimate_memory(t.mixture.mixture, t.n, t.dtype), t) for t in tasks),
+        key=lambda pair: pair[0],
+    )
+    have = available_memory()
+    if need > have:
+        raise InsufficientMemoryError(
+            f"the study's largest instance ({big.mixture.name}, n = {big.n}) needs {need} bytes"
+            f" ({format_bytes(need)}) of coefficients, but only {have} bytes"
+            f" ({format_bytes(have)}) are available on this machine; drop that size, or run"
+            " the study on a larger machine with --scheduler"
+        )
+
+
 def _term_to_interrupt(signum, frame):  # pragma: no cover - exercised by a subprocess test
     raise KeyboardInterrupt
 
@@ -195,8 +217,10 @@ def run_study(
         raise ValueError(f"--threads must be a positive integer, got {threads!r}")
     if scheduler is not None:
         check_scheduler_address(scheduler)  # before the study folder is created
-    store = Store.open(folder, spec)
     tasks = spec.tasks()
+    if scheduler is None:
+        _check_largest_fits(tasks)  # before the study folder is created
+    store = Store.open(folder, spec)
     pending = store.pending(tasks)
     skipped = len(tasks) - len(pending)
     plan: WorkerPlan | None = None

@@ -38,6 +38,7 @@ else:  # pragma: no cover - Python 3.10
 
 __all__ = [
     "DEFAULT_EXPONENT",
+    "MAX_TASKS",
     "METHOD_OPTIONS",
     "MethodSpec",
     "MixtureSpec",
@@ -59,6 +60,9 @@ METHOD_OPTIONS: dict[str, dict[str, tuple[type, Any]]] = {
     "gradient": {"max_iter": (int, 2000), "gtol": (float, 1e-7)},
 }
 MAX_SIZE = 100_000
+# A study writes one row file per task and holds its task list in memory: a grid beyond this
+# is almost surely a typo (say "0-1000000000"), and would exhaust memory before starting.
+MAX_TASKS = 100_000
 
 
 def _int_token(text: str, what: str, whole: str) -> int:
@@ -91,6 +95,12 @@ def parse_seeds(text: str | Iterable[int]) -> tuple[int, ...]:
                         f"seed range {piece!r} in {text!r} is reversed (end {hi} < start {lo});"
                         f" write '{hi}-{lo}'"
                     )
+                if len(seeds) + (hi - lo + 1) > MAX_TASKS:
+                    raise ValueError(
+                        f"seeds {text!r} give more than {MAX_TASKS} seeds (the range {piece!r}"
+                        f" alone has {hi - lo + 1}); a study has at most {MAX_TASKS} tasks:"
+                        " split it into several studies"
+                    )
                 seeds.extend(range(lo, hi + 1))
             else:
                 seeds.append(_int_token(piece, "seed", text))
@@ -111,9 +121,11 @@ def parse_seeds(text: str | Iterable[int]) -> tuple[int, ...]:
     bad = [s for s in seeds if s < 0 or s >= 2**63]
     if bad:
         raise ValueError(f"seeds must be in [0, 2^63), got {bad[0]}")
-    dup = sorted({s for s in seeds if seeds.count(s) > 1})
-    if dup:
-        raise ValueError(f"seed {dup[0]} is given twice")
+    seen: set[int] = set()
+    for s in seeds:
+        if s in seen:
+            raise ValueError(f"seed {s} is given twice")
+        seen.add(s)
     return tuple(seeds)
 
 
@@ -242,6 +254,18 @@ class StudySpec:
             raise ValueError(f"the extrapolation exponent must be positive, got {self.exponent}")
         if self.dtype not in ("float64", "float32"):
             raise ValueError(f"dtype must be float64 or float32, got {self.dtype!r}")
+        count = self.num_tasks
+        if count > MAX_TASKS:
+            raise ValueError(
+                f"this study has {count} tasks (mixtures x sizes x methods x seeds); at most"
+                f" {MAX_TASKS} are allowed (one row file each): split it into several studies"
+            )
+
+    @property
+    def num_tasks(self) -> int:
+        """Number of tasks, counted without building them."""
+        sizes = sum(len(m.sizes or self.sizes) for m in self.mixtures)
+        return sizes * len(self.methods) * len(self.seeds)
 
     def to_dict(self) -> dict[str, Any]:
         return {
