@@ -93,15 +93,18 @@ def test_climb_bad_input(tmp_path, capsys, extra):
     [
         ["climb", "--gammas", "3:1", "--n", "10", "--seed", "1", "--steps", "2"],
         ["sweep", "--gammas", "3:1", "--n", "10", "--seeds", "0-1", "--methods", "gradient"],
+        ["profile", "--gammas", "3:1", "--n", "10"],
     ],
 )
-def test_an_output_folder_that_cannot_be_made_is_a_message_not_a_traceback(
-    tmp_path, capsys, command
+@pytest.mark.parametrize("where", ["out", ""])  # under a file, or the file itself
+def test_an_output_folder_that_cannot_be_made_is_refused_before_the_work(
+    tmp_path, capsys, command, where
 ):
     blocker = tmp_path / "a-file"
     blocker.write_text("not a folder")
-    code = main([*command, "--out", str(blocker / "out")])
-    err = capsys.readouterr().err
-    assert code == 1
-    assert f"orthoclimb {command[0]}: error:" in err and str(blocker) in err
-    assert "Traceback" not in err
+    code = main([*command, "--out", str(blocker / where)])
+    captured = capsys.readouterr()
+    assert code == 2
+    assert f"orthoclimb {command[0]}: error:" in captured.err and str(blocker) in captured.err
+    assert "Traceback" not in captured.err
+    assert "instance:" not in captured.out and "study:" not in captured.out  # nothing ran

@@ -7,7 +7,8 @@ import stat
 
 import pytest
 
-from orthoclimb.fileio import write_atomic, write_json_atomic, write_text_atomic
+from orthoclimb.errors import OutputPathError
+from orthoclimb.fileio import ensure_folder, write_atomic, write_json_atomic, write_text_atomic
 
 
 def test_replaces_the_file_and_leaves_no_temporary(tmp_path):
@@ -44,3 +45,17 @@ def test_mode_follows_the_umask_like_open(tmp_path, mask):
     finally:
         os.umask(old)
     assert stat.S_IMODE(atomic.stat().st_mode) == stat.S_IMODE(plain.stat().st_mode)
+
+
+def test_a_folder_blocked_by_a_file_is_a_clear_error(tmp_path):
+    blocker = tmp_path / "a-file"
+    blocker.write_text("keep me")
+    for target in (blocker, blocker / "below"):
+        with pytest.raises(OutputPathError, match="a-file.*a file \\(not a folder\\)"):
+            ensure_folder(target)
+        with pytest.raises(OutputPathError, match=str(target)):
+            write_json_atomic(target / "x.json", {"a": 1})
+    assert blocker.read_text() == "keep me"
+    assert issubclass(OutputPathError, ValueError) and issubclass(OutputPathError, OSError)
+    made = ensure_folder(tmp_path / "new" / "deeper")
+    assert made.is_dir() and ensure_folder(made) == made  # existing folders are fine

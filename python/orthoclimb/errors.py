@@ -35,5 +35,11 @@ class InstanceFileError(ValueError):
     message names the file and the problem."""
 
 
+class OutputPathError(OSError, ValueError):
+    """A folder to write into cannot be made: a file stands at its path (or at a parent's),
+    or the permissions forbid it. Raised before any work that would write there; the message
+    names the path."""
+
+
 class CoreError(RuntimeError):
     """An internal invariant of the Rust core failed. This is a bug: please report it."""

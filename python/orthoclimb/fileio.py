@@ -16,6 +16,8 @@ from collections.abc import Callable
 from pathlib import Path
 from typing import IO, Any
 
+from .errors import OutputPathError
+
 
 def _umask() -> int:
     """The process umask, read without changing it (Linux reports it in /proc; elsewhere the
@@ -30,10 +32,27 @@ def _umask() -> int:
     return 0o022
 
 
+def ensure_folder(path: str | os.PathLike, what: str = "output folder") -> Path:
+    """Create the folder ``path`` and its parents (if missing) and return it, or raise
+    :class:`~orthoclimb.errors.OutputPathError` naming the path. Commands call it before their
+    work, so a bad ``--out`` fails at once instead of after a long run."""
+    folder = Path(path)
+    try:
+        folder.mkdir(parents=True, exist_ok=True)
+    except (FileExistsError, NotADirectoryError):
+        raise OutputPathError(
+            f"{what} {str(folder)!r} cannot be made: a file (not a folder) stands at that path"
+            " or at one of its parents"
+        ) from None
+    except PermissionError:
+        raise OutputPathError(f"{what} {str(folder)!r} cannot be made: permission denied") from None
+    return folder
+
+
 def write_atomic(path: str | os.PathLike, write: Callable[[IO[bytes]], None]) -> Path:
     """Create or replace `path` with what `write(fh)` writes to a binary file handle."""
     dest = Path(path)
-    dest.parent.mkdir(parents=True, exist_ok=True)
+    ensure_folder(dest.parent, f"the folder of {str(dest)!r},")
     fd, tmp = tempfile.mkstemp(dir=dest.parent, prefix=f".{dest.name}.", suffix=".tmp")
     try:
         with os.fdopen(fd, "wb") as fh:

@@ -17,11 +17,11 @@ import argparse
 import json
 import math
 import time
-from pathlib import Path
 from typing import Any
 
 import numpy as np
 
+from ..fileio import ensure_folder
 from ..model import Hamiltonian, Mixture, estimate_memory
 from ..model.hamiltonian import _check_seed
 from ..model.memory import format_bytes, require_memory
@@ -146,6 +146,7 @@ def run(args: argparse.Namespace) -> int:
         raise ValueError(f"--steps must be >= 1, got {steps}")
     if not (math.isfinite(args.tol) and args.tol > 0):
         raise ValueError(f"--tol must be a positive number, got {args.tol!r}")
+    out = ensure_folder(args.out)  # before the run: a bad --out fails at once
     say = (lambda *a: None) if args.json else print
     need = estimate_memory(mixture, args.n, args.dtype)
     say(
@@ -191,7 +192,6 @@ def run(args: argparse.Namespace) -> int:
             )
     finally:
         bar.close()
-    out = Path(args.out)
     json_path, npz_path = result.save(out / "result")
     png = out / "path.png"
     plot_result(result, png)

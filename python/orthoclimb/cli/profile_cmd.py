@@ -26,6 +26,7 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
 
 
 def run(args: argparse.Namespace) -> int:
+    from ..fileio import ensure_folder
     from ..model import Mixture
     from ..runtime import set_num_threads
     from ..studies.grid import parse_sizes
@@ -36,7 +37,9 @@ def run(args: argparse.Namespace) -> int:
     )
     if args.threads is not None:
         set_num_threads(args.threads)
-    prof = profile_kernels(mix, parse_sizes(args.sizes), args.repeats)
+    sizes = parse_sizes(args.sizes)
+    ensure_folder(args.out)  # before the timings: a bad --out fails at once
+    prof = profile_kernels(mix, sizes, args.repeats)
     files = write_profile(prof, args.out)
     if args.json:
         print(json.dumps({**prof, "files": files}, indent=2))
