@@ -417,11 +417,11 @@ CASES = [
         "result_edited_with_new_checksum",
         textwrap.dedent(
             """
-            from orthoclimb.algorithms.result import _digest
+            from orthoclimb.fileio import json_digest
             j, z = saved_result('re')
             doc = json.load(open(j))
             del doc['payload']['config']
-            doc['sha256'] = _digest(doc['payload'])
+            doc["sha256"] = json_digest(doc["payload"])
             json.dump(doc, open(j, 'w'))
             oc.load_result(j)
             """
@@ -520,16 +520,45 @@ CASES = [
         cli=True,
     ),
     Case(
-        "study_row_bad_energy",
+        "study_row_bad_energy",  # a plain (unsealed, older) row object with a bad field
         textwrap.dedent(
             """
-            f = study_copy('s4'); r = a_row(f); row = json.load(open(r)); row['energy'] = 'abc'
+            f = study_copy('s4'); r = a_row(f); row = json.load(open(r))['payload']
+            row['energy'] = 'abc'
             json.dump(row, open(r, 'w'))
             result = report(f)
             """
         ),
         None,
         r"s4/rows/[0-9a-f]{16}\.json' has energy = 'abc'",
+        cli=True,
+    ),
+    Case(
+        "study_row_edited",  # one digit changed in a sealed row: the checksum catches it
+        textwrap.dedent(
+            """
+            f = study_copy('s4b'); r = a_row(f); doc = json.load(open(r))
+            doc['payload']['energy'] += 1.0
+            json.dump(doc, open(r, 'w'))
+            result = report(f)
+            """
+        ),
+        None,
+        r"s4b/rows/[0-9a-f]{16}\.json' fails its checksum",
+        cli=True,
+    ),
+    Case(
+        "study_row_of_another_mixture",  # a plain row renamed to another task's file name
+        textwrap.dedent(
+            """
+            f = study_copy('s4c'); r = a_row(f); row = json.load(open(r))['payload']
+            row['mixture'] = '3:2.0'
+            json.dump(row, open(r, 'w'))
+            result = report(f)
+            """
+        ),
+        None,
+        r"s4c/rows/[0-9a-f]{16}\.json' has mixture = '3:2.0', but its task has '3:1.0'",
         cli=True,
     ),
     Case(

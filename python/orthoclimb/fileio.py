@@ -9,6 +9,7 @@ ordinary ``open(path, "w")`` would give it (0666 less the process umask), not th
 
 from __future__ import annotations
 
+import hashlib
 import json
 import os
 import tempfile
@@ -84,3 +85,10 @@ def save_figure_atomic(fig: Any, path: str | os.PathLike, **kwargs: Any) -> Path
     """Save a matplotlib figure atomically; the format follows the file name's suffix."""
     fmt = kwargs.pop("format", Path(path).suffix.lstrip(".") or "png")
     return write_atomic(path, lambda fh: fig.savefig(fh, format=fmt, **kwargs))
+
+
+def json_digest(payload: Any) -> str:
+    """SHA-256 (hex) of the canonical JSON of ``payload``: sorted keys, no spaces, NaN allowed.
+    The checksum of every file orthoclimb writes with a format name."""
+    text = json.dumps(payload, sort_keys=True, separators=(",", ":"), allow_nan=True)
+    return hashlib.sha256(text.encode("utf-8")).hexdigest()

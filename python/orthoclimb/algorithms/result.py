@@ -26,7 +26,7 @@ from typing import Any
 
 import numpy as np
 
-from ..fileio import write_atomic, write_json_atomic
+from ..fileio import json_digest, write_atomic, write_json_atomic
 
 __all__ = ["FORMAT_VERSION", "Result", "load_result"]
 
@@ -49,11 +49,6 @@ def _plain(value: Any) -> Any:
     if isinstance(value, np.floating):
         return float(value)
     return value
-
-
-def _digest(payload: Any) -> str:
-    text = json.dumps(payload, sort_keys=True, separators=(",", ":"), allow_nan=True)
-    return hashlib.sha256(text.encode("utf-8")).hexdigest()
 
 
 def _x_digest(x: np.ndarray) -> str:
@@ -116,7 +111,7 @@ class Result:
         doc = {
             "format": FORMAT,
             "format_version": FORMAT_VERSION,
-            "sha256": _digest(payload),
+            "sha256": json_digest(payload),
             "payload": payload,
         }
         npz_path = stem.with_name(stem.name + ".npz")
@@ -191,7 +186,7 @@ def load_result(path: str | os.PathLike) -> Result:
             json_path, f"format version {version!r}, this orthoclimb reads {FORMAT_VERSION}"
         )
     payload = doc.get("payload")
-    if not isinstance(payload, dict) or _digest(payload) != doc.get("sha256"):
+    if not isinstance(payload, dict) or json_digest(payload) != doc.get("sha256"):
         raise _fail(json_path, "checksum mismatch: the file was modified or corrupted")
     _check_payload(json_path, payload)
     try:

@@ -52,7 +52,7 @@ import numpy as np
 
 from .. import _core
 from ..errors import InstanceFileError
-from ..fileio import write_atomic, write_json_atomic
+from ..fileio import json_digest, write_atomic, write_json_atomic
 from .hamiltonian import Hamiltonian, _check_correlation, _check_seed
 from .memory import check_size, normalize_dtype, require_memory
 from .mixture import Mixture, _check_degree
@@ -91,11 +91,6 @@ def _stem(path: str | os.PathLike) -> Path:
 def _paths(path: str | os.PathLike) -> tuple[Path, Path]:
     stem = _stem(path)
     return stem.with_name(stem.name + ".json"), stem.with_name(stem.name + ".npz")
-
-
-def _digest(payload: Any) -> str:
-    text = json.dumps(payload, sort_keys=True, separators=(",", ":"), allow_nan=True)
-    return hashlib.sha256(text.encode("utf-8")).hexdigest()
 
 
 def _array_digest(a: np.ndarray) -> str:
@@ -202,7 +197,7 @@ def save_instance(
     doc = {
         "format": FORMAT,
         "format_version": FORMAT_VERSION,
-        "sha256": _digest(payload),
+        "sha256": json_digest(payload),
         "payload": payload,
     }
     write_json_atomic(json_path, doc)
@@ -258,7 +253,7 @@ def _read_payload(json_path: Path) -> dict[str, Any]:
             f"unsupported format version {version} (this orthoclimb reads {FORMAT_VERSION})",
         )
     payload = doc.get("payload")
-    if not isinstance(payload, dict) or _digest(payload) != doc.get("sha256"):
+    if not isinstance(payload, dict) or json_digest(payload) != doc.get("sha256"):
         raise _fail(json_path, "checksum mismatch: the file was modified or corrupted")
     return payload
 

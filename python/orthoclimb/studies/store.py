@@ -3,13 +3,18 @@
 Layout of ``STUDY_DIR``::
 
     study.json            {"format": 1, "config": <StudySpec.to_dict()>, "created": ..., ...}
-    rows/<task_id>.json   one completed task (see orthoclimb.studies.tasks for the fields)
+    rows/<task_id>.json   one completed task: {"format": "orthoclimb-study-row",
+                          "format_version": 1, "sha256": ..., "payload": <the row>} (see
+                          orthoclimb.studies.tasks for the row's fields; sha256 as in
+                          orthoclimb.fileio.json_digest)
     failed/<task_id>.json the last error of a task that failed after its retries
     results.parquet       the tidy table (pyarrow), one row per completed task
     results.csv           the same table as CSV
 
 Every file is written atomically (orthoclimb.fileio: temporary file, fsync, os.replace), so a
-killed sweep leaves only complete files; a row file, once written, is never rewritten. Rerunning
+killed sweep leaves only complete files; a row file, once written, is never rewritten. Reading a
+row checks its checksum and that it describes the task its name says (mixture, method, n,
+seed); rows written before rows were sealed (plain objects) are read without a checksum. Rerunning
 the same configuration skips the tasks whose row exists; a *different* configuration in the same
 folder is refused (:class:`StudyMismatchError`) rather than mixing two studies.
 """
@@ -24,12 +29,21 @@ from datetime import datetime, timezone
 from pathlib import Path
 from typing import Any
 
-from ..fileio import write_atomic, write_json_atomic
+from ..fileio import json_digest, write_atomic, write_json_atomic
 from .grid import StudySpec
 
-__all__ = ["FORMAT", "Store", "StudyMismatchError", "read_config"]
+__all__ = [
+    "FORMAT",
+    "ROW_FORMAT",
+    "ROW_FORMAT_VERSION",
+    "Store",
+    "StudyMismatchError",
+    "read_config",
+]
 
 FORMAT = 1
+ROW_FORMAT = "orthoclimb-study-row"
+ROW_FORMAT_VERSION = 1
 
 
 class StudyMismatchError(ValueError):
@@ -79,26 +93,42 @@ def _read_json(path: Path, what: str) -> Any:
         ) from None
 
 
+def _redo(path: Path, problem: str) -> ValueError:
+    return ValueError(
+        f"the row file {str(path)!r} {problem}; delete it and rerun the sweep to redo that task"
+    )
+
+
+def _unseal_row(path: Path, doc: Any) -> Any:
+    """The row inside a sealed row file (format, version and checksum checked); a plain
+    object (a row written before rows were sealed) as it is."""
+    if not isinstance(doc, dict) or "format" not in doc:
+        return doc
+    if doc["format"] != ROW_FORMAT:
+        raise _redo(path, f"has format {doc['format']!r}, not {ROW_FORMAT!r}")
+    version = doc.get("format_version")
+    if version != ROW_FORMAT_VERSION:
+        raise _redo(
+            path, f"has format version {version!r}; this orthoclimb reads {ROW_FORMAT_VERSION}"
+        )
+    row = doc.get("payload")
+    if not isinstance(row, dict) or json_digest(row) != doc.get("sha256"):
+        raise _redo(path, "fails its checksum: it was modified or corrupted")
+    return row
+
+
 def _read_row(path: Path) -> dict[str, Any]:
     """A row file, checked to be an object with the fields the report reads."""
-    row = _read_json(path, "row file")
+    row = _unseal_row(path, _read_json(path, "row file"))
     if not isinstance(row, dict):
-        raise ValueError(
-            f"the row file {str(path)!r} holds {type(row).__name__} {row!r}, not a JSON object;"
-            " delete it and rerun the sweep to redo that task"
-        )
+        raise _redo(path, f"holds {type(row).__name__} {row!r}, not a JSON object")
     for key, types in _ROW_FIELDS.items():
         value = row.get(key)
         if isinstance(value, bool) or not isinstance(value, types):
-            raise ValueError(
-                f"the row file {str(path)!r} has {key} = {value!r}, expected "
-                f"{' or '.join(t.__name__ for t in types)}; delete it and rerun the sweep to "
-                "redo that task"
-            )
+            expected = " or ".join(t.__name__ for t in types)
+            raise _redo(path, f"has {key} = {value!r}, expected {expected}")
     if row["task_id"] != path.stem:
-        raise ValueError(
-            f"the row file {str(path)!r} holds task {row['task_id']!r}, not {path.stem!r}"
-        )
+        raise _redo(path, f"holds task {row['task_id']!r}, not {path.stem!r}")
     return row
 
 
@@ -177,7 +207,13 @@ class Store:
         path = self.row_path(row["task_id"])
         if path.exists():
             return False
-        write_json_atomic(path, row)
+        sealed = {
+            "format": ROW_FORMAT,
+            "format_version": ROW_FORMAT_VERSION,
+            "sha256": json_digest(row),
+            "payload": row,
+        }
+        write_json_atomic(path, sealed)
         failed = self.failed_dir / path.name
         if failed.exists():
             failed.unlink()
@@ -209,7 +245,18 @@ class Store:
         for task in self.spec.tasks():
             path = self.row_path(task.task_id)
             if path.exists():
-                out.append(_read_row(path))
+                row = _read_row(path)
+                want = {
+                    "mixture": task.mixture.name,
+                    "method": task.method.name,
+                    "n": task.n,
+                    "seed": task.seed,
+                }
+                wrong = [k for k, v in want.items() if row[k] != v]
+                if wrong:
+                    k = wrong[0]
+                    raise _redo(path, f"has {k} = {row[k]!r}, but its task has {want[k]!r}")
+                out.append(row)
         return out
 
     # -- table ---------------------------------------------------------------------------
