@@ -12,7 +12,8 @@ from orthoclimb.cli import main
 from orthoclimb.studies.engine import run_study
 from orthoclimb.studies.extrapolate import extrapolate
 from orthoclimb.studies.grid import spec_from_flags
-from orthoclimb.studies.report import write_report
+from orthoclimb.studies.report import _verdict, build_report, write_report
+from orthoclimb.studies.store import Store
 
 
 def test_extrapolation_exact_law_without_noise():
@@ -151,3 +152,42 @@ def test_fit_exponents_recovers_power_laws():
     fit, pair = fit_exponents(rows[::-1])  # order of rows does not matter
     assert fit["energy"] == pytest.approx(3.0) and pair["energy"] == pytest.approx(3.0)
     assert fit["hessian"] < 2.9 < pair["hessian"] < 3.0
+
+
+def _synthetic_study(folder, sizes: str, energy) -> None:
+    """A study folder whose rows carry energy(n, seed) instead of a run (report tests)."""
+    spec = spec_from_flags(["3:1"], None, sizes, "0-7", "gradient")
+    store = Store.open(folder, spec)
+    for t in spec.tasks():
+        row = {"task_id": t.task_id, "mixture": t.mixture.name, "method": t.method.name}
+        store.write_row({**row, "n": t.n, "seed": t.seed, "energy": energy(t.n, t.seed)})
+
+
+def test_findings_flag_an_extrapolation_above_the_ground_state_and_an_unchecked_law(tmp_path):
+    # GS (Parisi, pure 3-spin: 1.6570) bounds every n -> infinity energy; energies that
+    # extrapolate to 1.9 from two sizes must be flagged, not reported as a finding
+    noise = np.random.default_rng(0).standard_normal(64)
+    _synthetic_study(tmp_path / "s", "20,40", lambda n, s: 1.9 - n ** (-2 / 3) + 0.01 * noise[s])
+    text = build_report(tmp_path / "s").findings[-1]
+    assert "WARNING: the whole interval lies above the ground state GS = 1.6570" in text
+    assert "with 2 sizes the fit has no degree of freedom left" in text
+    assert "consistent with" not in text
+    # a law that holds, from three sizes, near ALG: neither remark
+    _synthetic_study(
+        tmp_path / "t", "20,40,80", lambda n, s: 1.6 - n ** (-2 / 3) + 0.01 * noise[s + 8 * n % 5]
+    )
+    text = build_report(tmp_path / "t").findings[-1]
+    assert "WARNING" not in text and "no degree of freedom" not in text
+
+
+@pytest.mark.parametrize(
+    ("value", "interval", "z", "words"),
+    [
+        (1.445, (1.40, 1.49), -1.9, "below ALG"),  # |z| < 2, but ALG = 1.5 is outside
+        (1.50, (1.45, 1.55), -0.5, "consistent with ALG"),
+        (1.555, (1.51, 1.60), 2.5, "above ALG"),
+        (1.45, (math.nan, math.nan), -1.9, "consistent with ALG"),  # no interval: |z| decides
+    ],
+)
+def test_the_verdict_agrees_with_the_printed_interval(value, interval, z, words):
+    assert words in _verdict(value, interval, 1.5, z, "ALG")

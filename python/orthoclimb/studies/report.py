@@ -185,12 +185,21 @@ def build_report(
     return rep
 
 
-def _verdict(value: float, target: float, z: float, what: str) -> str:
+def _verdict(
+    value: float, interval: tuple[float, float], target: float, z: float, what: str
+) -> str:
+    """ "consistent with" exactly when ``target`` lies in the printed ``interval`` (when it is
+    finite; else when |z| <= Z_CONSISTENT), so the sentence never contradicts the interval
+    printed beside it."""
+    low, high = interval
     if not math.isfinite(z):
         return f"compared with {what} {target:.4f}: no error estimate"
-    if abs(z) <= Z_CONSISTENT:
+    inside = low <= target <= high if math.isfinite(low) and math.isfinite(high) else None
+    if inside is None:
+        inside = abs(z) <= Z_CONSISTENT
+    if inside:
         return f"consistent with {what} = {target:.4f} ({z:+.1f} s.e.)"
-    side = "below" if z < 0 else "above"
+    side = "below" if value < target else "above"
     return f"{abs(value - target):.4f} {side} {what} = {target:.4f} ({z:+.1f} s.e.)"
 
 
@@ -244,12 +253,24 @@ def _findings(rep: Report, seeds: dict) -> list[str]:
             f"{f['mixture']}, {f['method']}: e_inf = {f['value']:.4f} "
             f"[{lvl}%: {f['low']:.4f}, {f['high']:.4f}] from n = "
             f"{', '.join(str(n) for n in f['sizes'])}; "
-            + _verdict(f["value"], f["alg"], f["z_alg"], "ALG")
+            + _verdict(f["value"], (f["low"], f["high"]), f["alg"], f["z_alg"], "ALG")
         )
         if f["dof"] > 0 and f["chi2"] / f["dof"] > 4:
             text += (
                 f"; chi2/dof = {f['chi2']:.1f}/{f['dof']}: the n^(-{f['exponent']:.3g}) law fits"
                 " poorly, so the interval understates the uncertainty"
+            )
+        elif f["dof"] == 0:
+            text += (
+                f"; with {len(f['sizes'])} sizes the fit has no degree of freedom left, so"
+                f" nothing checks the n^(-{f['exponent']:.3g}) law"
+            )
+        gs = f.get("gs", math.nan)
+        if math.isfinite(gs) and math.isfinite(f["low"]) and f["low"] > gs:
+            text += (
+                f"; WARNING: the whole interval lies above the ground state GS = {gs:.4f}, which"
+                " bounds every n -> infinity energy: the sizes are too small (or too few) for"
+                " this extrapolation"
             )
         out.append(text + ".")
     # head-to-head at the largest common size, per mixture
