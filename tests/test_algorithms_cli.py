@@ -73,6 +73,8 @@ def test_climb_baselines_json(tmp_path, capsys, method):
         ["--steps", "0"],
         ["--tol", "-1"],
         ["--n", "0"],
+        ["--method", "gradient", "--tol", "5"],  # an option of another method: not ignored
+        ["--method", "gradient", "--no-polish"],
         ["--gammas", "9:1"],
         ["--seed", "-3"],
         ["--start-seed", str(2**64)],
@@ -108,3 +110,17 @@ def test_an_output_folder_that_cannot_be_made_is_refused_before_the_work(
     assert f"orthoclimb {command[0]}: error:" in captured.err and str(blocker) in captured.err
     assert "Traceback" not in captured.err
     assert "instance:" not in captured.out and "study:" not in captured.out  # nothing ran
+
+
+def test_a_closed_pipe_ends_the_command_quietly():
+    # common practice (POSIX tools): a reader that goes away (`orthoclimb theory | head -1`)
+    # stops the writer with status 141 and no message; the pipe is closed before it writes
+    import subprocess
+    import sys
+
+    cmd = [sys.executable, "-m", "orthoclimb", "theory", "--gammas", "3:1"]
+    proc = subprocess.Popen(cmd, stdout=subprocess.PIPE, stderr=subprocess.PIPE)
+    proc.stdout.close()
+    err = proc.stderr.read().decode()
+    assert proc.wait(timeout=120) == 141, err
+    assert err == ""

@@ -256,6 +256,8 @@ def test_missing_and_unreadable(tmp_path, given):
     assert str(tmp_path / "nothing.json") in message
     (tmp_path / "dir.json").mkdir()
     _refused(tmp_path / "dir", "unreadable")
+    message = _refused(tmp_path / "dir.json", "it is a folder; give the instance's file")
+    assert str(tmp_path / "dir.json") in message
     (tmp_path / "bin.json").write_bytes(bytes(range(128, 256)))
     _refused(tmp_path / "bin", "not UTF-8")
     (tmp_path / "empty.json").write_bytes(b"")

@@ -54,6 +54,7 @@ def test_zero_gammas_are_dropped():
         ({2: float("inf")}, "inf"),
         ({2.5: 1.0}, "2.5"),
         ({2: "x"}, "'x'"),
+        ({3: True}, "got True"),  # a flag where a weight belongs is a typo, not gamma = 1
         ({2: 0.0}, "at least one"),
         ({3: 1e200}, "1e\\+200"),  # finite, but gamma^2 overflows float64
         ({3: 1e-170}, "too small.*1e-170"),  # positive, but gamma^2 underflows to 0
@@ -63,6 +64,11 @@ def test_zero_gammas_are_dropped():
 def test_bad_mixtures_name_the_value(spec, fragment):
     with pytest.raises(MixtureError, match=fragment):
         Mixture(spec)
+
+
+def test_parse_squared_must_be_a_boolean():
+    with pytest.raises(TypeError, match="squared must be True or False, got 'no'"):
+        Mixture.parse("3:1", squared="no")
 
 
 def test_from_xi_refuses_a_subnormal_coefficient():

@@ -64,6 +64,7 @@ def test_bad_directions(ham):
     [
         ({"n": 0}, ValueError, "n must be >= 1, got 0"),
         ({"n": 2.5}, TypeError, "2.5"),
+        ({"n": 2**70}, ValueError, f"below 2\\^63, got {2**70}"),  # not an OverflowError
         ({"seed": -1}, ValueError, "-1"),
         ({"seed": 2**64}, ValueError, str(2**64)),
         ({"seed": "a"}, TypeError, "'a'"),
@@ -95,6 +96,8 @@ def test_memory_guard_refuses_before_allocating(monkeypatch):
 def test_storage_beyond_address_space_is_an_error_not_an_abort():
     with pytest.raises(InsufficientMemoryError):
         oc.estimate_memory(oc.Mixture({8: 1.0}), 10**9)
+    with pytest.raises(ValueError, match=f"below 2\\^63, got {2**64}"):
+        oc.estimate_memory(oc.Mixture({1: 1.0}), 2**64)
 
 
 def test_bad_coefficient_inputs():

@@ -100,6 +100,26 @@ def test_toml_unknown_method_option(tmp_path):
         spec_from_toml(p)
 
 
+@pytest.mark.parametrize(
+    ("methods", "extra", "words"),
+    [
+        (
+            "gradient",
+            ["--tol", "0.1", "--no-polish"],
+            "--tol, --no-polish apply to the method hessian",
+        ),
+        ("hessian", ["--max-iter", "5"], "--max-iter applies to the method gradient"),
+    ],
+)
+def test_cli_options_of_a_method_not_in_the_study_are_refused(
+    tmp_path, capsys, methods, extra, words
+):
+    args = ["sweep", "--gammas", "3:1", "--n", "20,30", "--seeds", "0-1", "--methods", methods]
+    assert main([*args, *extra, "--out", str(tmp_path / "o")]) == 2
+    assert words in capsys.readouterr().err
+    assert not (tmp_path / "o").exists()
+
+
 def test_cli_bad_seeds_exit_2(tmp_path, capsys):
     code = main(
         [

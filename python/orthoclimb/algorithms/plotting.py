@@ -24,8 +24,11 @@ def plot_result(result: Result, path: str | os.PathLike) -> None:
     p = result.path
     alg = result.info.get("alg")
     cfg = result.config
+    mix = cfg.get("mixture")
+    if isinstance(mix, dict):  # {"3": 1.0} -> 3:1.0, the text form the CLI takes
+        mix = ",".join(f"{p}:{g:g}" for p, g in mix.items())
     fig.suptitle(
-        f"{result.method}: mixture {cfg.get('mixture')}, n = {cfg.get('n')}, "
+        f"{result.method}: mixture {mix}, n = {cfg.get('n')}, "
         f"seed = {cfg.get('disorder_seed')}; final energy per spin {result.energy:.5f}",
         fontsize=11,
     )

@@ -10,6 +10,7 @@ code 1.
 from __future__ import annotations
 
 import argparse
+import os
 import sys
 from collections.abc import Sequence
 from importlib import import_module
@@ -49,6 +50,10 @@ def main(argv: Sequence[str] | None = None) -> int:
     args = parser.parse_args(argv)
     try:
         return int(args._run(args) or 0)
+    except BrokenPipeError:  # the reader went away (say `| head`): stop quietly, like POSIX tools
+        devnull = os.open(os.devnull, os.O_WRONLY)
+        os.dup2(devnull, sys.stdout.fileno())  # so the interpreter's final flush cannot fail
+        return 141  # 128 + SIGPIPE, as a shell reports a tool stopped by the broken pipe
     except (ValueError, TypeError) as exc:
         print(f"orthoclimb {args.command}: error: {exc}", file=sys.stderr)
         return 2

@@ -26,6 +26,7 @@ from ..model import Hamiltonian, Mixture, estimate_memory
 from ..model.hamiltonian import _check_seed
 from ..model.memory import format_bytes, require_memory
 from ..runtime import get_num_threads, kernel_path, set_num_threads
+from ..studies.estimate import LANCZOS_SECONDS
 
 __all__ = ["add_arguments", "run"]
 
@@ -46,17 +47,21 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
         "--steps",
         type=int,
         default=None,
-        help="hessian: K (default n/8 clamped to [25, 200]); gradient: max iterations "
-        "(default 2000); "
-        "anneal: Langevin steps (default 400)",
+        help="hessian: K, the number of points on the path (K - 1 Hessian steps; default n/8"
+        " clamped to [25, 200]); gradient: max iterations (default 2000); anneal: Langevin"
+        " steps (default 400)",
     )
     parser.add_argument(
-        "--tol", type=float, default=1e-3, help="hessian: eigen tolerance delta (default 1e-3)"
+        "--tol", type=float, default=None, help="hessian: eigen tolerance delta (default 1e-3)"
     )
     parser.add_argument("--no-polish", action="store_true", help="skip the final polish")
     parser.add_argument("--dtype", choices=("float64", "float32"), default="float64")
     parser.add_argument("--threads", type=int, default=None, help="kernel worker threads")
-    parser.add_argument("--out", default="orthoclimb-climb", help="output folder")
+    parser.add_argument(
+        "--out",
+        default="orthoclimb-climb",
+        help="output folder (default ./orthoclimb-climb; its result files are replaced)",
+    )
     parser.add_argument("--json", action="store_true", help="print the summary as JSON")
     parser.add_argument("--no-progress", action="store_true", help="no progress bar")
 
@@ -144,8 +149,15 @@ def run(args: argparse.Namespace) -> int:
     steps = default_steps if args.steps is None else args.steps
     if steps < 1:
         raise ValueError(f"--steps must be >= 1, got {steps}")
-    if not (math.isfinite(args.tol) and args.tol > 0):
-        raise ValueError(f"--tol must be a positive number, got {args.tol!r}")
+    if args.tol is not None and args.method != "hessian":
+        raise ValueError(f"--tol applies to --method hessian only, not {args.method}")
+    if args.no_polish and args.method == "gradient":
+        raise ValueError(
+            "--no-polish applies to --method hessian or anneal; gradient does not polish"
+        )
+    tol = 1e-3 if args.tol is None else args.tol
+    if not (math.isfinite(tol) and tol > 0):
+        raise ValueError(f"--tol must be a positive number, got {tol!r}")
     out = ensure_folder(args.out)  # before the run: a bad --out fails at once
     say = (lambda *a: None) if args.json else print
     need = estimate_memory(mixture, args.n, args.dtype)
@@ -158,7 +170,10 @@ def run(args: argparse.Namespace) -> int:
     ham = Hamiltonian.sample(mixture, args.n, args.seed, dtype=args.dtype, progress=not quiet)
     one = _time_pass(ham, args.method)
     what = "Hessian" if args.method == "hessian" else "gradient"
-    say(f"one {what} pass: {one * 1e3:.1f} ms; estimated run time {1.3 * steps * one:.1f} s")
+    per_step = one
+    if args.method == "hessian":  # plus Lanczos on the tangent Hessian (studies.estimate)
+        per_step += LANCZOS_SECONDS[0] + LANCZOS_SECONDS[1] * args.n**2
+    say(f"one {what} pass: {one * 1e3:.1f} ms; estimated run time {1.3 * steps * per_step:.2g} s")
 
     from tqdm import tqdm
 
@@ -175,7 +190,7 @@ def run(args: argparse.Namespace) -> int:
             result = hessian_ascent(
                 ham,
                 steps=steps,
-                tol=args.tol,
+                tol=tol,
                 seed=args.start_seed,
                 polish=polish,
                 callback=progress,

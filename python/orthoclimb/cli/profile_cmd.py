@@ -21,7 +21,9 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
     parser.add_argument("--n", dest="sizes", required=True, help="sizes, e.g. 100,200,400")
     parser.add_argument("--repeats", type=int, default=3, help="best of (default 3)")
     parser.add_argument("--threads", type=int, default=None, help="kernel threads")
-    parser.add_argument("--out", default="orthoclimb-profile", help="output folder")
+    parser.add_argument(
+        "--out", default="orthoclimb-profile", help="output folder (default ./orthoclimb-profile)"
+    )
     parser.add_argument("--json", action="store_true", help="print JSON")
 
 

@@ -45,5 +45,6 @@ def run(args: argparse.Namespace) -> int:
     print()
     for f in rep.findings:
         print(f"- {f}")
-    print(f"report: {rep.files['markdown']}")
+    plots = [str(rep.files[k]) for k in ("energy_vs_n", "distribution") if rep.files.get(k)]
+    print(f"report: {rep.files['markdown']}" + (f"; plots: {', '.join(plots)}" if plots else ""))
     return 0

@@ -110,9 +110,17 @@ def _spec(args: argparse.Namespace) -> StudySpec:
     if args.max_iter is not None:
         opts["gradient"]["max_iter"] = args.max_iter
     exponent = DEFAULT_EXPONENT if args.exponent is None else args.exponent
-    return spec_from_flags(
+    spec = spec_from_flags(
         args.gammas, args.xi, args.sizes, args.seeds, args.methods, opts, exponent
     )
+    chosen = {m.name for m in spec.methods}
+    for method, given in opts.items():  # an option for a method not in the study: a mistake
+        if given and method not in chosen:
+            flags = ", ".join(f"--{k.replace('_', '-')}" for k in given)
+            flags = flags.replace("--polish", "--no-polish")
+            verb = "applies" if len(given) == 1 else "apply"
+            raise ValueError(f"{flags} {verb} to the method {method}, which is not in --methods")
+    return spec
 
 
 def execute(

@@ -251,8 +251,9 @@ class Hamiltonian:
         return self.energy_and_gradient(x)[1]
 
     def hessian(self, x: Any) -> np.ndarray:
-        """The full (not projected) n x n Hessian of H at x. Costs one pass plus O(n^2)
-        memory per worker thread."""
+        """The full (not projected) n x n Hessian of H at x. Costs one pass over the
+        coefficients plus :attr:`hessian_workspace_nbytes` of memory: n x n accumulators, a
+        number (1 to 64) fixed by the instance whatever the thread count, and the result."""
         return self._core.hessian(as_point(x, self.n))
 
     def hvp(self, x: Any, v: Any) -> np.ndarray:

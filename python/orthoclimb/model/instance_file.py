@@ -401,6 +401,10 @@ def load_instance(path: str | os.PathLike, check_memory: bool = True) -> Hamilto
     (``check_memory=False`` skips that, as in :meth:`Hamiltonian.sample`). Raises
     :class:`~orthoclimb.errors.InstanceFileError` naming the file and the problem.
     """
+    if Path(path).is_dir():
+        raise _fail(
+            Path(path), "it is a folder; give the instance's file (NAME.json) or its stem NAME"
+        )
     json_path, npz_path = _paths(path)
     payload = _read_payload(json_path)
     kind = payload.get("kind")

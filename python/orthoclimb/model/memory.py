@@ -1,7 +1,8 @@
 """How much memory an instance needs, and how much the machine has.
 
 Storage is one number per sorted monomial: sum_p C(n+p-1, p) coefficients of 8 (float64) or
-4 (float32) bytes. Kernels add O(n) per call, and the Hessian O(n^2) per worker thread.
+4 (float32) bytes. Kernels add O(n) per call, and the Hessian 1 to 64 n x n accumulators fixed
+by the instance (``Hamiltonian.hessian_workspace_nbytes``), whatever the thread count.
 """
 
 from __future__ import annotations
@@ -43,6 +44,8 @@ def check_size(n: object) -> int:
         raise TypeError(f"number of spins n must be an integer, got {n!r}")
     if n < 1:
         raise ValueError(f"number of spins n must be >= 1, got {n}")
+    if n >= 2**63:  # the Rust core counts in 64-bit integers
+        raise ValueError(f"number of spins n must be below 2^63, got {n}")
     return int(n)
 
 

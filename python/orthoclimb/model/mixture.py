@@ -34,6 +34,8 @@ def _check_degree(p: Any) -> int:
 
 
 def _check_gamma(p: int, gamma: Any, what: str = "gamma") -> float:
+    if isinstance(gamma, (bool, np.bool_)):  # True would read as 1.0: a typo, not a weight
+        raise MixtureError(f"{what} for p = {p} must be a real number, got {gamma!r}")
     try:
         value = float(gamma)
     except (TypeError, ValueError):
@@ -121,6 +123,8 @@ class Mixture:
 
         With ``squared=True`` the numbers are gamma_p^2 (the coefficients of xi).
         """
+        if not isinstance(squared, (bool, np.bool_)):
+            raise TypeError(f"squared must be True or False, got {squared!r}")
         if not isinstance(text, str):
             raise MixtureError(f"mixture text must be a string, got {text!r}")
         pairs: dict[int, float] = {}

@@ -33,9 +33,18 @@ from ..algorithms.hessian_ascent import auto_steps
 from .grid import StudySpec
 from .profile import best_time
 
-__all__ = ["Calibration", "calibrate", "estimate_from", "estimate_seconds", "largest_instance"]
+__all__ = [
+    "LANCZOS_SECONDS",
+    "Calibration",
+    "calibrate",
+    "estimate_from",
+    "estimate_seconds",
+    "largest_instance",
+]
 
 _CAL_BYTES = 64 * 2**20
+# seconds of Lanczos per Hessian-ascent step: a + b n^2 (module doc)
+LANCZOS_SECONDS = (6e-4, 1.1e-8)
 _TASK_OVERHEAD = 0.02  # seconds per task: Dask round trip and the row's atomic write
 _CLUSTER_START = 2.0  # seconds: an embedded cluster's processes start and import the package
 
@@ -108,7 +117,7 @@ def estimate_from(cal: dict[str, Calibration], tasks, workers: int, embedded: bo
         opts = dict(t.method.options)
         total += scale * c.sampling + _TASK_OVERHEAD
         if t.method.name == "hessian":
-            eigen = 6e-4 + 1.1e-8 * t.n**2  # Lanczos on the n x n tangent Hessian, per step
+            eigen = LANCZOS_SECONDS[0] + LANCZOS_SECONDS[1] * t.n**2  # per step
             k = auto_steps(t.n) if opts["steps"] == "auto" else opts["steps"]
             total += scale * (k * c.hessian + 150 * c.energy_and_gradient) + eigen * k
         else:
