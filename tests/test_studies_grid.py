@@ -7,6 +7,7 @@ import pytest
 from orthoclimb.cli import main
 from orthoclimb.studies.grid import (
     MAX_TASKS,
+    TOML_EXAMPLE,
     MethodSpec,
     parse_seeds,
     parse_sizes,
@@ -148,3 +149,15 @@ def test_hessian_steps_default_to_auto_per_size():
         MethodSpec.make("hessian", {"steps": "many"})
     with pytest.raises(ValueError, match=r"integer >= 1, got 'auto'"):
         MethodSpec.make("gradient", {"max_iter": "auto"})
+
+
+def test_the_toml_example_in_the_help_is_a_valid_study(tmp_path, capsys):
+    path = tmp_path / "study.toml"
+    path.write_text(TOML_EXAMPLE, encoding="utf-8")
+    spec = spec_from_toml(path)
+    assert spec.sizes == (100, 200, 400) and spec.seeds == tuple(range(20))
+    assert [m.name for m in spec.mixtures] == ["rugged"] and spec.dtype == "float64"
+    assert [(m.name, dict(m.options)["steps"]) for m in spec.methods] == [("hessian", 100)]
+    with pytest.raises(SystemExit):
+        main(["sweep", "--help"])
+    assert TOML_EXAMPLE in capsys.readouterr().out

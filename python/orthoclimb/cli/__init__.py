@@ -38,8 +38,15 @@ def build_parser() -> argparse.ArgumentParser:
     sub = parser.add_subparsers(dest="command", metavar="COMMAND")
     sub.required = True
     for name, (module, help_text) in _COMMANDS.items():
-        cmd = sub.add_parser(name, help=help_text, description=help_text)
         mod = import_module(f"{__name__}.{module}")
+        epilog = getattr(mod, "EPILOG", None)  # shown verbatim after the options
+        cmd = sub.add_parser(
+            name,
+            help=help_text,
+            description=help_text,
+            epilog=epilog,
+            formatter_class=argparse.RawDescriptionHelpFormatter,
+        )
         mod.add_arguments(cmd)
         cmd.set_defaults(_run=mod.run)
     return parser

@@ -17,7 +17,15 @@ import argparse
 import time
 from typing import Any
 
-from ..studies.grid import DEFAULT_EXPONENT, StudySpec, spec_from_flags, spec_from_toml
+from ..studies.grid import (
+    DEFAULT_EXPONENT,
+    TOML_EXAMPLE,
+    StudySpec,
+    spec_from_flags,
+    spec_from_toml,
+)
+
+EPILOG = "A study TOML file (the grid, instead of the flags):\n\n" + TOML_EXAMPLE
 
 __all__ = ["add_arguments", "execute", "run"]
 

@@ -1,23 +1,10 @@
 """Study specification: the grid mixtures x sizes n x seeds x methods (with options).
 
 A study is read from command-line flags (:func:`spec_from_flags`) or from a TOML file
-(:func:`spec_from_toml`)::
-
-    exponent = 0.6666666666666666     # finite-size law e(n) = e_inf + a n^(-exponent)
-    sizes = [100, 200, 400]
-    seeds = "0-19"                    # or a list of integers
-
-    [[mixture]]
-    name = "rugged"
-    gammas = { 3 = 1.0 }              # p -> gamma_p; or xi = { 3 = 1.0 } (p -> gamma_p^2)
-    # sizes = [50, 100]               # optional: this mixture's own sizes
-
-    [[method]]
-    name = "hessian"                  # hessian | gradient
-    steps = 100                       # options of that method (see METHOD_OPTIONS; "auto")
-
-Each task is one (mixture, n, seed, method + options); see :mod:`orthoclimb.studies.tasks`.
-Energies throughout are per spin, H(x)/n on the unit sphere, maximized.
+(:func:`spec_from_toml`) laid out as ``TOML_EXAMPLE`` shows (``orthoclimb sweep --help``
+prints it). Each task is one (mixture, n, seed, method + options); see
+:mod:`orthoclimb.studies.tasks`. Energies throughout are per spin, H(x)/n on the unit
+sphere, maximized.
 """
 
 from __future__ import annotations
@@ -38,6 +25,7 @@ else:  # pragma: no cover - Python 3.10
 
 __all__ = [
     "DEFAULT_EXPONENT",
+    "TOML_EXAMPLE",
     "MAX_TASKS",
     "METHOD_OPTIONS",
     "MethodSpec",
@@ -51,6 +39,23 @@ __all__ = [
 ]
 
 DEFAULT_EXPONENT = 2.0 / 3.0
+
+TOML_EXAMPLE = """\
+exponent = 0.6666666666666666     # finite-size law e(n) = e_inf + a n^(-exponent)
+sizes = [100, 200, 400]
+seeds = "0-19"                    # or a list of integers
+dtype = "float64"                 # optional: float32 halves the memory
+
+[[mixture]]                       # one block per mixture
+name = "rugged"
+gammas = { 3 = 1.0 }              # p -> gamma_p; or xi = { 3 = 1.0 } (p -> gamma_p^2)
+# sizes = [50, 100]               # optional: this mixture's own sizes
+
+[[method]]                        # one block per method
+name = "hessian"                  # hessian | gradient
+steps = 100                       # hessian: steps ("auto"), tol, polish
+                                  # gradient: max_iter, gtol
+"""
 
 # method -> option -> (type, default). Defaults follow orthoclimb.hessian_ascent /
 # orthoclimb.gradient_ascent; an integer option whose default is "auto" also takes "auto"
