@@ -188,7 +188,7 @@ def test_a_killed_worker_loses_only_its_running_task(tmp_path):
     args += ["--no-report"]
     proc = subprocess.Popen(
         [sys.executable, "-m", "orthoclimb", "sweep", *args],
-        stdout=subprocess.DEVNULL,
+        stdout=subprocess.PIPE,
         stderr=subprocess.PIPE,
         start_new_session=True,
     )
@@ -212,7 +212,7 @@ def test_a_killed_worker_loses_only_its_running_task(tmp_path):
                         continue  # exited meanwhile
             time.sleep(0.05)
         assert killed, "found no worker process to kill"
-        _, err = proc.communicate(timeout=300)
+        out, err = proc.communicate(timeout=300)
     finally:
         if proc.poll() is None:
             os.killpg(proc.pid, signal.SIGKILL)
@@ -225,3 +225,4 @@ def test_a_killed_worker_loses_only_its_running_task(tmp_path):
     assert len(ids) == len(set(ids))
     for name, data in before.items():
         assert (rows / name).read_bytes() == data, f"row {name} rewritten after the kill"
+    assert "1 worker process(es) died during the sweep" in out.decode(), out.decode()[-2000:]

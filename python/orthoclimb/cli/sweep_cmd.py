@@ -180,6 +180,12 @@ def execute(
         f"sweep: {outcome.done} tasks run, {outcome.skipped} skipped (already done), "
         f"{outcome.failed} failed, {time.perf_counter() - start:.1f} s"
     )
+    if outcome.replaced_workers:
+        say(
+            f"note: {outcome.replaced_workers} worker process(es) died during the sweep (a crash"
+            " or an out-of-memory kill) and were replaced; Dask ran their tasks again, so every"
+            " row above is complete"
+        )
     if outcome.failed:
         say(f"failed tasks are listed in {out}/failed/; rerun the same command to retry them")
     rep = write_report(out) if report else None

@@ -91,6 +91,7 @@ class SweepOutcome:
     seconds: float
     plan: WorkerPlan | None
     address: str | None
+    replaced_workers: int = 0  # embedded cluster: worker processes that died and were replaced
 
 
 def check_scheduler_address(scheduler: Any) -> tuple[str, str, int | None]:
@@ -184,6 +185,14 @@ def _check_largest_fits(tasks: list[Task]) -> None:
         )
 
 
+def _worker_addresses(client: Any) -> set[str]:
+    """Addresses of the workers the scheduler knows now (empty if it cannot say)."""
+    try:
+        return set(client.scheduler_info()["workers"])
+    except Exception:  # noqa: BLE001 - only a remark in the summary depends on it
+        return set()
+
+
 def _term_to_interrupt(signum, frame):  # pragma: no cover - exercised by a subprocess test
     raise KeyboardInterrupt
 
@@ -242,7 +251,7 @@ def run_study(
         signal.signal(signal.SIGTERM, _term_to_interrupt)
     except ValueError:  # pragma: no cover - not the main thread
         old_term = None
-    done = failed = 0
+    done = failed = replaced = 0
     client = cluster = None
     bar = None
     try:
@@ -277,6 +286,7 @@ def run_study(
             slots = sum(client.nthreads().values())
         except Exception:  # noqa: BLE001 - the count is cosmetic
             slots = 10**9
+        first_workers = _worker_addresses(client) if cluster is not None else set()
 
         def show() -> None:
             try:  # tasks assigned to workers, at most one per worker thread is executing
@@ -301,6 +311,8 @@ def run_study(
             bar.update(1)
             show()
             fut.release()
+        if cluster is not None:  # a restarted worker process listens at a new address
+            replaced = len(_worker_addresses(client) - first_workers)
     finally:
         if bar is not None:
             bar.close()
@@ -313,5 +325,5 @@ def run_study(
         store.write_table()
     address = None if scheduler is None else scheduler
     return SweepOutcome(
-        len(tasks), skipped, done, failed, time.perf_counter() - start, plan, address
+        len(tasks), skipped, done, failed, time.perf_counter() - start, plan, address, replaced
     )
