@@ -212,6 +212,7 @@ def hessian_ascent(
     n_moves = k - 1
     eps = math.sqrt(max(1.0 - float(x @ x), 0.0) / n_moves) if n_moves > 0 else 0.0
     v_prev = None
+    tangent_buf = None  # the restricted Hessian, one buffer for every step
     theta_scale = None
     fallbacks = 0
     with threadpool_limits(limits=1, user_api="blas"):
@@ -237,7 +238,9 @@ def hessian_ascent(
             basis = TangentBasis(u)
             t2 = time.perf_counter()
             if mode == "dense":
-                op = basis.restrict_inplace(hess)
+                if tangent_buf is None:
+                    tangent_buf = np.empty((n - 1, n - 1))
+                op = basis.restrict_inplace(hess, tangent_buf)
                 if theta_scale is None:
                     theta_scale = float(np.linalg.norm(op))
             else:
