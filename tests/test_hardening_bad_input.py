@@ -544,7 +544,7 @@ CASES = [
             """
         ),
         None,
-        r"s4b/rows/[0-9a-f]{16}\.json' fails its checksum",
+        r"s4b/rows/[0-9a-f]{16}\.json' fails: checksum mismatch",
         cli=True,
     ),
     Case(

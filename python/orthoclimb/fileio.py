@@ -87,6 +87,29 @@ def save_figure_atomic(fig: Any, path: str | os.PathLike, **kwargs: Any) -> Path
     return write_atomic(path, lambda fh: fig.savefig(fh, format=fmt, **kwargs))
 
 
+def open_envelope(doc: dict, version: int, fail: Callable[[str], Exception]) -> dict:
+    """The payload of a file envelope ``{"format", "format_version", "sha256", "payload"}``
+    whose format the caller has checked: ``fail(why)`` is raised for a version that is not an
+    integer, newer than ``version`` (upgrade) or another older one, and for a payload that
+    does not match its checksum (:func:`json_digest`)."""
+    from . import __version__
+
+    got = doc.get("format_version")
+    if isinstance(got, bool) or not isinstance(got, int):
+        raise fail(f"format version {got!r} is not an integer (corrupted?)")
+    if got > version:
+        raise fail(
+            f"format version {got} is newer than this orthoclimb {__version__} reads "
+            f"(version {version}); upgrade orthoclimb to load it"
+        )
+    if got != version:
+        raise fail(f"unsupported format version {got} (this orthoclimb reads {version})")
+    payload = doc.get("payload")
+    if not isinstance(payload, dict) or json_digest(payload) != doc.get("sha256"):
+        raise fail("checksum mismatch: the file was modified or corrupted")
+    return payload
+
+
 def json_digest(payload: Any) -> str:
     """SHA-256 (hex) of the canonical JSON of ``payload``: sorted keys, no spaces, NaN allowed.
     The checksum of every file orthoclimb writes with a format name."""

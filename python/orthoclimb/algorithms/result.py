@@ -26,7 +26,7 @@ from typing import Any
 
 import numpy as np
 
-from ..fileio import json_digest, write_atomic, write_json_atomic
+from ..fileio import json_digest, open_envelope, write_atomic, write_json_atomic
 
 __all__ = ["FORMAT_VERSION", "Result", "load_result"]
 
@@ -180,14 +180,7 @@ def load_result(path: str | os.PathLike) -> Result:
         raise _fail(json_path, f"not valid JSON (truncated or corrupted?): {exc}") from None
     if not isinstance(doc, dict) or doc.get("format") != FORMAT:
         raise _fail(json_path, f"not an orthoclimb result (format is not {FORMAT!r})")
-    version = doc.get("format_version")
-    if version != FORMAT_VERSION:
-        raise _fail(
-            json_path, f"format version {version!r}, this orthoclimb reads {FORMAT_VERSION}"
-        )
-    payload = doc.get("payload")
-    if not isinstance(payload, dict) or json_digest(payload) != doc.get("sha256"):
-        raise _fail(json_path, "checksum mismatch: the file was modified or corrupted")
+    payload = open_envelope(doc, FORMAT_VERSION, lambda why: _fail(json_path, why))
     _check_payload(json_path, payload)
     try:
         with np.load(npz_path, allow_pickle=False) as data:

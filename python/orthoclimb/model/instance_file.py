@@ -52,7 +52,7 @@ import numpy as np
 
 from .. import _core
 from ..errors import InstanceFileError
-from ..fileio import json_digest, write_atomic, write_json_atomic
+from ..fileio import json_digest, open_envelope, write_atomic, write_json_atomic
 from .hamiltonian import Hamiltonian, _check_correlation, _check_seed
 from .memory import check_size, normalize_dtype, require_memory
 from .mixture import Mixture, _check_degree
@@ -238,24 +238,7 @@ def _read_payload(json_path: Path) -> dict[str, Any]:
             json_path,
             f"not an orthoclimb instance file (format {fmt!r}, expected {FORMAT!r}){hint}",
         )
-    version = doc.get("format_version")
-    if isinstance(version, bool) or not isinstance(version, int):
-        raise _fail(json_path, f"format version {version!r} is not an integer (corrupted?)")
-    if version > FORMAT_VERSION:
-        raise _fail(
-            json_path,
-            f"format version {version} is newer than this orthoclimb {_version()} reads "
-            f"(version {FORMAT_VERSION}); upgrade orthoclimb to load it",
-        )
-    if version != FORMAT_VERSION:
-        raise _fail(
-            json_path,
-            f"unsupported format version {version} (this orthoclimb reads {FORMAT_VERSION})",
-        )
-    payload = doc.get("payload")
-    if not isinstance(payload, dict) or json_digest(payload) != doc.get("sha256"):
-        raise _fail(json_path, "checksum mismatch: the file was modified or corrupted")
-    return payload
+    return open_envelope(doc, FORMAT_VERSION, lambda why: _fail(json_path, why))
 
 
 def _close(a: float, b: float, rtol: float, scale: float = 0.0) -> bool:

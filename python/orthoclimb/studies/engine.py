@@ -311,8 +311,9 @@ def run_study(
             bar.update(1)
             show()
             fut.release()
-        if cluster is not None:  # a restarted worker process listens at a new address
-            replaced = len(_worker_addresses(client) - first_workers)
+        if cluster is not None:  # a dead worker's address is gone (its replacement gets a
+            # new one, maybe not yet registered when the last task ends)
+            replaced = len(first_workers - _worker_addresses(client))
     finally:
         if bar is not None:
             bar.close()

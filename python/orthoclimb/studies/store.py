@@ -29,7 +29,7 @@ from datetime import datetime, timezone
 from pathlib import Path
 from typing import Any
 
-from ..fileio import json_digest, write_atomic, write_json_atomic
+from ..fileio import json_digest, open_envelope, write_atomic, write_json_atomic
 from .grid import StudySpec
 
 __all__ = [
@@ -106,15 +106,7 @@ def _unseal_row(path: Path, doc: Any) -> Any:
         return doc
     if doc["format"] != ROW_FORMAT:
         raise _redo(path, f"has format {doc['format']!r}, not {ROW_FORMAT!r}")
-    version = doc.get("format_version")
-    if version != ROW_FORMAT_VERSION:
-        raise _redo(
-            path, f"has format version {version!r}; this orthoclimb reads {ROW_FORMAT_VERSION}"
-        )
-    row = doc.get("payload")
-    if not isinstance(row, dict) or json_digest(row) != doc.get("sha256"):
-        raise _redo(path, "fails its checksum: it was modified or corrupted")
-    return row
+    return open_envelope(doc, ROW_FORMAT_VERSION, lambda why: _redo(path, f"fails: {why}"))
 
 
 def _read_row(path: Path) -> dict[str, Any]:
