@@ -72,6 +72,11 @@ def test_bad_directions(ham):
         ({"correlated_with": (1, 1.5)}, ValueError, "1.5"),
         ({"correlated_with": (1, float("nan"))}, ValueError, "nan"),
         ({"correlated_with": 3}, TypeError, "3"),
+        (
+            {"correlated_with": (0, 0.5)},
+            ValueError,
+            r"seed0 in correlated_with must differ from seed \(0\)",
+        ),
         ({"mixture": {2: 1.0}}, TypeError, "dict"),
     ],
 )

@@ -17,13 +17,15 @@ Lanczos, whose vectors pick up a rounding-sized part along u, then converges to 
 Stopping rule. ARPACK (``scipy.sparse.linalg.eigsh``, which="LA") stops when the residual of the
 Ritz pair satisfies |M_T y - theta y| <= tol_rel |theta|. A residual r bounds the distance from
 theta to the spectrum by |r|, so passing tol_rel = delta n / |theta| gives a Rayleigh quotient
-within delta n of an eigenvalue (the top one, since Lanczos with "LA" converges to it first), the
-accuracy SPEC section 5 asks for, and no more. |theta| is taken from the previous step (the edge
-moves by O(1/K) per step); on the first step from the Frobenius norm, an upper bound, so the
-first tolerance is only stricter. The start vector is the previous step's eigenvector projected on
-the new tangent space (warm start). Tangent spaces of at most ``DIRECT_MAX`` dimensions are solved
-exactly by ``scipy.linalg.eigh`` (ARPACK needs more dimensions than wanted eigenvalues, and for
-so few a dense solve is cheaper anyway).
+within delta n of an eigenvalue (the top one, since Lanczos with "LA" converges to it first),
+the accuracy SPEC section 5 asks for, and no more. |theta| is bounded by 1.25 times the previous
+step's (the edge moves by O(1/K) per step); on the first step by the Frobenius norm (dense) or,
+for the operator, by |grad H| + 1, which need not bound it: whenever the solved |theta| exceeds
+the bound used, ``hessian_ascent`` solves again from the vector found with the tolerance that
+|theta| gives, so every step's Rayleigh quotient is within delta n. The start vector is the
+previous step's eigenvector projected on the new tangent space (warm start). Tangent spaces of
+at most ``DIRECT_MAX`` dimensions are solved exactly by ``scipy.linalg.eigh`` (ARPACK needs more
+dimensions than wanted eigenvalues, and for so few a dense solve is cheaper anyway).
 """
 
 from __future__ import annotations

@@ -86,6 +86,7 @@ __all__ = ["auto_steps", "hessian_ascent"]
 
 HESSIAN_MODES = ("auto", "dense", "operator")
 _WORKING_COPIES = 4  # projected copy, eigen-solver workspace, slack
+_SCALE_HEADROOM = 1.25  # next |theta| <= 1.25 |theta| (the edge moves by O(1/K) per step)
 _COLUMNS = (
     "step",
     "stage",
@@ -250,9 +251,17 @@ def hessian_ascent(
             v0 = random_unit(n, rng) if v_prev is None else v_prev
             rel_tol = min(0.1, delta * n / max(theta_scale, 1e-300))
             theta, v, fell_back = top_tangent_eigenpair(op, basis, v0, rel_tol)
+            if abs(theta) > theta_scale and rel_tol > delta * n / abs(theta):
+                # the scale was no bound (the operator's first step, or a grown edge): the
+                # residual may exceed delta n, so solve again from v with the right tolerance
+                rel_tol = min(0.1, delta * n / abs(theta))
+                theta, v, again = top_tangent_eigenpair(op, basis, v, rel_tol)
+                fell_back = fell_back or again
             t_eig = time.perf_counter() - t2
             fallbacks += fell_back
-            theta_scale = max(abs(theta), 1e-12 * n)
+            # headroom: the edge grows along the path, and the next tolerance must come from a
+            # bound on the next |theta|, or the re-solve above would run at every step
+            theta_scale = max(_SCALE_HEADROOM * abs(theta), 1e-12 * n)
             first = float(grad @ v)
             if first < 0.0:
                 v, first = -v, -first

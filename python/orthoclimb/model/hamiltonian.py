@@ -108,6 +108,11 @@ class Hamiltonian:
         seed = _check_seed(seed)
         dtype = normalize_dtype(dtype)
         corr = _check_correlation(correlated_with)
+        if corr is not None and corr[0] == seed:
+            raise ValueError(
+                f"seed0 in correlated_with must differ from seed ({seed}): rho g(seed0) +"
+                " sqrt(1 - rho^2) g(seed) needs two independent Gaussians"
+            )
         if not isinstance(progress, (bool, np.bool_)):
             raise TypeError(f"progress must be True or False, got {progress!r}")
         if check_memory:
