@@ -30,10 +30,11 @@ def test_pure_p_fails_everywhere(p):
     assert not verdict.gs_equals_alg
 
 
-@pytest.mark.parametrize("ratio", [1e-3, 0.1, 1.0, 10.0, 1e3])
+@pytest.mark.parametrize("ratio", [1e-300, 1e-200, 1e-3, 0.1, 1.0, 10.0, 1e3, 1e200])
 def test_two_plus_three_always_fails(ratio):
     # SPEC section 3: every mixture of p = 2 and p = 3 alone fails. Here N = 3 xi'''^2 > 0
     # since the p = 2 term has xi'''' = 0 and the p = 3 term has xi'''' = 0.
+    # The tiny and huge ratios check that N is not lost to underflow (108 c_3^2 = 1e-598).
     verdict = full_rsb(Mixture.from_xi({2: 1.0, 3: ratio}))
     assert not verdict.holds
     assert verdict.failing_intervals == [(0.0, 1.0)]

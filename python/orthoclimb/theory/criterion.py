@@ -38,6 +38,7 @@ Parisi measure is the replica-symmetric point (alpha = 0) and GS = ALG = gamma_1
 from __future__ import annotations
 
 from dataclasses import dataclass
+from fractions import Fraction
 
 import numpy as np
 from numpy.polynomial import Polynomial
@@ -116,24 +117,29 @@ def _numerator_coefficients(mixture: Mixture, unit_scale: bool = False) -> np.nd
     Pairs with K(p, r) + K(r, p) = 0 are skipped exactly (for instance p = 2 with r = 3, and p = r
     = 2), so structural zeros stay exactly zero.
 
-    With ``unit_scale`` the coefficients of xi are first divided by the largest one: N then
-    changes by a positive factor, which keeps its sign, and the products c_p c_r stay finite
-    however large or small xi is (the verdict does not depend on the scale of xi).
+    With ``unit_scale`` N is computed in exact rational arithmetic and divided by its largest
+    coefficient: a positive factor, which keeps its sign, and the result is finite and free of
+    underflow however large or small, or however unequal, the terms of xi are (the verdict does
+    not depend on the scale of xi; with xi = q^2 + 1e-200 q^3 the single term 108 c_3^2 would
+    underflow to 0 in floating point and turn "fails" into "holds").
     """
-    coeffs = mixture.xi_coefficients
+    coeffs: dict[int, float] | dict[int, Fraction] = mixture.xi_coefficients
     if unit_scale:
-        largest = max(coeffs.values())
-        coeffs = {p: c / largest for p, c in coeffs.items()}
+        coeffs = {p: Fraction(c) for p, c in coeffs.items()}
     degrees = [p for p in coeffs if p >= 2]
     top = max(degrees, default=0)
-    out = np.zeros(max(2 * top - 5, 1))
+    terms: list = [0] * max(2 * top - 5, 1)
     for i, p in enumerate(degrees):
         for r in degrees[i:]:
             factor = _pair_factor(p, r) + _pair_factor(r, p) if p != r else _pair_factor(p, p)
             if factor == 0:
                 continue
-            out[p + r - 6] += factor * coeffs[p] * coeffs[r]
-    return out
+            terms[p + r - 6] += factor * coeffs[p] * coeffs[r]
+    if unit_scale:
+        largest = max((abs(t) for t in terms), default=0)
+        if largest:
+            terms = [t / largest for t in terms]
+    return np.array([float(t) for t in terms])
 
 
 def concavity_numerator(mixture: Mixture) -> Polynomial:
