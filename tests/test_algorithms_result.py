@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import dataclasses
 import json
 
 import numpy as np
@@ -62,3 +63,20 @@ def test_wrong_version_and_missing(result, tmp_path):
         oc.load_result(json_path)
     with pytest.raises(ValueError, match="not found"):
         oc.load_result(tmp_path / "missing")
+
+
+def test_equality_is_same_content(result, tmp_path):
+    # a result equals its reloaded copy and its pickle (the path holds NaN: NaN == NaN here);
+    # one ulp in x or a different energy makes them differ; other types compare unequal
+    import copy
+    import pickle
+
+    assert np.isnan(result.path["eigenvalue"][-1])
+    assert result == oc.load_result(result.save(tmp_path / "eq")[0])
+    assert result == pickle.loads(pickle.dumps(result))
+    changed = copy.deepcopy(result)
+    changed.x = changed.x.copy()
+    changed.x[0] = np.nextafter(changed.x[0], 2.0)
+    assert changed != result
+    assert dataclasses.replace(result, energy=result.energy + 1e-12) != result
+    assert result != "a result" and result is not None

@@ -60,7 +60,7 @@ def _stem(path: str | os.PathLike) -> Path:
     return p.with_suffix("") if p.suffix in (".json", ".npz") else p
 
 
-@dataclass
+@dataclass(eq=False)
 class Result:
     """What an algorithm returns.
 
@@ -81,6 +81,15 @@ class Result:
     @property
     def method(self) -> str:
         return str(self.config.get("method", "?"))
+
+    def __eq__(self, other: object) -> bool:
+        """Equal when they would save the same content: x bit for bit, energy, path (NaN equal
+        to NaN), config, seconds and info; so a result equals its reloaded copy or pickle."""
+        if not isinstance(other, Result):
+            return NotImplemented
+        return json_digest(self.payload()) == json_digest(other.payload())
+
+    __hash__ = None  # type: ignore[assignment]  # mutable, like a dataclass with eq
 
     def summary(self) -> dict[str, Any]:
         """The JSON-ready summary: energy, seconds, method, config and info (no path table)."""
