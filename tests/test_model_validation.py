@@ -114,6 +114,11 @@ def test_bad_coefficient_inputs():
         oc.Hamiltonian.from_coefficients(3, {1: [1.0, np.nan, 2.0]})
     with pytest.raises(ValueError, match="non-empty"):
         oc.Hamiltonian.from_coefficients(3, {})
+    # float32 storage would make 1e300 infinite: refused, naming the entry (float64 keeps it)
+    big = {2: np.array([1.0, 2.0, 1e300])}
+    with pytest.raises(ValueError, match=r"coefficients\[2\]\[2\] = 1e\+300 is beyond float32"):
+        oc.Hamiltonian.from_coefficients(2, big, dtype="float32")
+    assert oc.Hamiltonian.from_coefficients(2, big).coefficients(2)[2] == 1e300
     ham = oc.Hamiltonian.from_coefficients(3, {1: [1.0, 2.0, 3.0]})
     with pytest.raises(ValueError, match="no degree-2 term"):
         ham.coefficients(2)

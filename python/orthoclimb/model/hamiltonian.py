@@ -56,6 +56,22 @@ def _check_correlation(spec: Any) -> tuple[int, float] | None:
     return seed0, rho
 
 
+_FLOAT32_MAX = float(np.finfo(np.float32).max)
+
+
+def _check_float32_range(a: np.ndarray, what: str) -> None:
+    """float32 storage would turn a coefficient beyond float32's range into infinity: refuse it,
+    naming the first one (values below float32's range round to 0 or subnormals, the usual
+    loss of a narrower type, as documented for dtype="float32")."""
+    big = np.flatnonzero(np.abs(a) > _FLOAT32_MAX)
+    if big.size:
+        i = int(big[0])
+        raise ValueError(
+            f"{what}[{i}] = {float(a[i])!r} is beyond float32's range (+-{_FLOAT32_MAX:.4g});"
+            ' store these coefficients with dtype="float64"'
+        )
+
+
 class Hamiltonian:
     """A sampled (or given) random polynomial with packed coefficients.
 
@@ -151,6 +167,8 @@ class Hamiltonian:
                     f"coefficients[{p}] for n = {n} must hold C(n+p-1, p) = C({n + p - 1}, {p})"
                     f" values: expected length {expected}, got {a.shape[0]}"
                 )
+            if dtype == "float32":
+                _check_float32_range(a, f"coefficients[{p}]")
             degrees.append(p)
             arrays.append(a)
         core = _core.PackedPolynomial.from_coefficients(n, degrees, arrays, dtype)
