@@ -129,3 +129,13 @@ def test_langevin_schedule_validation(schedule, exc):
     ham = oc.Hamiltonian.sample(oc.Mixture({3: 1.0}), 10, seed=1)
     with pytest.raises(exc, match="schedule"):
         oc.langevin_anneal(ham, schedule=schedule)
+
+
+def test_flags_must_be_booleans():
+    # the string "no" is truthy: taking it as True would run what the caller meant to skip
+    ham = oc.Hamiltonian.sample(oc.Mixture({3: 1.0}), 12, seed=0)
+    x = np.ones(12) / np.sqrt(12)
+    with pytest.raises(TypeError, match="check must be True or False, got 'no'"):
+        oc.polish(ham, x, check="no")
+    with pytest.raises(TypeError, match="check must be True or False, got 1"):
+        oc.gradient_ascent(ham, check=1)

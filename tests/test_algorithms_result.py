@@ -9,6 +9,7 @@ import numpy as np
 import pytest
 
 import orthoclimb as oc
+from orthoclimb.errors import ResultFileError
 
 
 @pytest.fixture(scope="module")
@@ -61,7 +62,7 @@ def test_wrong_version_and_missing(result, tmp_path):
     json_path.write_text(json.dumps(doc))
     with pytest.raises(ValueError, match="version"):
         oc.load_result(json_path)
-    with pytest.raises(ValueError, match="not found"):
+    with pytest.raises(ResultFileError, match="not found"):  # a ValueError subclass
         oc.load_result(tmp_path / "missing")
 
 

@@ -430,3 +430,15 @@ def test_coefficient_file_size(given):
     assert json_path.stat().st_size < 2048
     with zipfile.ZipFile(npz_path) as zf:
         assert sorted(zf.namelist()) == ["p1.npy", "p3.npy"]
+
+
+def test_a_recipe_too_large_for_memory_names_the_file(recipe, monkeypatch):
+    import orthoclimb.model.memory as memory
+    from orthoclimb.errors import InsufficientMemoryError
+
+    _ham, json_path = recipe
+    monkeypatch.setattr(memory, "available_memory", lambda: 1000)
+    with pytest.raises(
+        InsufficientMemoryError, match=f"loading the instance '{json_path}'.*1000 bytes"
+    ):
+        oc.load_instance(json_path)

@@ -55,6 +55,7 @@ def test_zero_gammas_are_dropped():
         ({2.5: 1.0}, "2.5"),
         ({2: "x"}, "'x'"),
         ({3: True}, "got True"),  # a flag where a weight belongs is a typo, not gamma = 1
+        ({2: "0.5"}, "got '0.5'"),  # text is for Mixture.parse
         ({2: 0.0}, "at least one"),
         ({3: 1e200}, "1e\\+200"),  # finite, but gamma^2 overflows float64
         ({3: 1e-170}, "too small.*1e-170"),  # positive, but gamma^2 underflows to 0

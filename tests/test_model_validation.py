@@ -29,6 +29,7 @@ def ham():
         (np.ones(N, dtype=bool), TypeError, "boolean"),
         (np.array(["a"] * N), TypeError, "dtype"),
         (3.0, ShapeError, r"\(\)"),
+        (np.ma.masked_array(np.ones(N), mask=[1] + [0] * (N - 1)), TypeError, "masked array"),
     ],
 )
 def test_bad_points(ham, x, exc, fragment):

@@ -35,6 +35,11 @@ class InstanceFileError(ValueError):
     message names the file and the problem."""
 
 
+class ResultFileError(ValueError):
+    """A result file cannot be loaded: missing, unreadable, truncated, corrupted, of another
+    format or version. The message names the file and the problem."""
+
+
 class OutputPathError(OSError, ValueError):
     """A folder to write into cannot be made: a file stands at its path (or at a parent's),
     or the permissions forbid it. Raised before any work that would write there; the message

@@ -43,6 +43,14 @@ def check_positive(value: Any, name: str) -> float:
     return v
 
 
+def check_flag(value: Any, name: str) -> bool:
+    """``value`` as a bool; anything but True/False (say the string "no", which is truthy) is
+    a TypeError naming it."""
+    if not isinstance(value, (bool, np.bool_)):
+        raise TypeError(f"{name} must be True or False, got {value!r}")
+    return bool(value)
+
+
 def check_seed(seed: Any, name: str = "seed") -> int:
     """A start-point seed, in [0, 2^64) like the instance seeds (and the CLI's flags)."""
     return _check_seed(seed, name)

@@ -30,7 +30,7 @@ from typing import Any
 import numpy as np
 
 from ..model.hamiltonian import Hamiltonian
-from ._checks import check_count, check_ham, check_positive, check_seed
+from ._checks import check_count, check_flag, check_ham, check_positive, check_seed
 from ._config import base_config
 from ._riemannian import sphere_ascent
 from ._sphere import project_tangent, random_unit, retract
@@ -83,6 +83,7 @@ def gradient_ascent(
     """
     ham = check_ham(ham, "gradient_ascent")
     seed = check_seed(seed)
+    check = check_flag(check, "check")
     gtol = check_positive(gtol, "gtol")
     max_iter = check_count(max_iter, "max_iter", minimum=0)
     if callback is not None and not callable(callback):
@@ -128,8 +129,7 @@ def langevin_anneal(
     seed = check_seed(seed)
     temps = _check_schedule(schedule)
     eta = check_positive(eta, "eta")
-    if not isinstance(polish, (bool, np.bool_)):
-        raise TypeError(f"polish must be True or False, got {polish!r}")
+    polish = check_flag(polish, "polish")
     if callback is not None and not callable(callback):
         raise TypeError(f"callback must be callable or None, got {callback!r}")
     start = time.perf_counter()

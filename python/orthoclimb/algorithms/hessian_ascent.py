@@ -74,7 +74,7 @@ from threadpoolctl import threadpool_limits
 from ..model.hamiltonian import Hamiltonian
 from ..model.memory import available_memory
 from ..theory import algorithmic_energy, algorithmic_threshold, hessian_edge, path_energy
-from ._checks import check_count, check_ham, check_positive, check_seed
+from ._checks import check_count, check_flag, check_ham, check_positive, check_seed
 from ._config import base_config
 from ._eigen import TangentBasis, top_tangent_eigenpair
 from ._riemannian import sphere_ascent
@@ -178,8 +178,7 @@ def hessian_ascent(
     k = auto_steps(ham.n) if steps is None else check_count(steps, "steps")
     delta = check_positive(tol, "tol")
     seed = check_seed(seed)
-    if not isinstance(polish, (bool, np.bool_)):
-        raise TypeError(f"polish must be True or False, got {polish!r}")
+    polish = check_flag(polish, "polish")
     if callback is not None and not callable(callback):
         raise TypeError(f"callback must be callable or None, got {callback!r}")
     first_stage_iter = check_count(first_stage_iter, "first_stage_iter", minimum=0)

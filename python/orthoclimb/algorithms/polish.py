@@ -37,7 +37,7 @@ from scipy.sparse.linalg import eigsh
 
 from ..model.hamiltonian import Hamiltonian
 from ..model.memory import available_memory
-from ._checks import check_count, check_ham, check_positive, check_unit_start
+from ._checks import check_count, check_flag, check_ham, check_positive, check_unit_start
 from ._config import base_config
 from ._newton import newton_refine
 from ._riemannian import sphere_ascent
@@ -113,6 +113,7 @@ def polish(
     """
     ham = check_ham(ham, "polish")
     x0 = check_unit_start(x, ham.n)
+    check = check_flag(check, "check")
     gtol = check_positive(gtol, "gtol")
     max_iter = check_count(max_iter, "max_iter", minimum=0)
     start = time.perf_counter()

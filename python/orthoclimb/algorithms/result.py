@@ -26,6 +26,7 @@ from typing import Any
 
 import numpy as np
 
+from ..errors import ResultFileError
 from ..fileio import json_digest, open_envelope, write_atomic, write_json_atomic
 
 __all__ = ["FORMAT_VERSION", "Result", "load_result"]
@@ -138,8 +139,8 @@ class Result:
         )
 
 
-def _fail(path: Path, why: str) -> ValueError:
-    return ValueError(f"cannot load the result {str(path)!r}: {why}")
+def _fail(path: Path, why: str) -> ResultFileError:
+    return ResultFileError(f"cannot load the result {str(path)!r}: {why}")
 
 
 _PAYLOAD_TYPES: dict[str, tuple[type, ...]] = {

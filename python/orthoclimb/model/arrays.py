@@ -12,6 +12,11 @@ from ..errors import NonFiniteError, ShapeError
 def as_float_array(a: object, name: str) -> np.ndarray:
     """A C-contiguous float64 copy or view of `a`. Integers are converted; booleans, complex
     numbers and non-numeric data are refused with TypeError."""
+    if isinstance(a, np.ma.MaskedArray):  # np.asarray would drop the mask silently
+        raise TypeError(
+            f"{name} is a masked array; pass a.filled(value) or a.data to say what masked"
+            " entries mean"
+        )
     try:
         arr = np.asarray(a)
     except (ValueError, TypeError) as exc:  # ragged nested lists and the like

@@ -51,7 +51,7 @@ from typing import IO, Any
 import numpy as np
 
 from .. import _core
-from ..errors import InstanceFileError
+from ..errors import InstanceFileError, InsufficientMemoryError
 from ..fileio import json_digest, open_envelope, write_atomic, write_json_atomic
 from .hamiltonian import Hamiltonian, _check_correlation, _check_seed
 from .memory import check_size, normalize_dtype, require_memory
@@ -284,7 +284,10 @@ def _load_recipe(json_path: Path, payload: dict[str, Any], check_memory: bool) -
             raise ValueError("the fingerprint's degrees are not the mixture's")
     except (KeyError, TypeError, ValueError) as exc:
         raise _fail(json_path, f"malformed recipe ({type(exc).__name__}: {exc})") from None
-    ham = Hamiltonian.sample(mixture, n, seed, dtype, corr, check_memory=check_memory)
+    try:
+        ham = Hamiltonian.sample(mixture, n, seed, dtype, corr, check_memory=check_memory)
+    except InsufficientMemoryError as exc:  # name the file, keep the kind of error
+        raise InsufficientMemoryError(f"loading the instance {str(json_path)!r}: {exc}") from None
     scale = math.sqrt(n * float(mixture.xi(1.0)))  # standard deviation of H(x0), |x0| = 1
     diff = _compare_fingerprint(saved, _fingerprint(ham), dtype, scale)
     if diff is not None:

@@ -34,7 +34,8 @@ def _check_degree(p: Any) -> int:
 
 
 def _check_gamma(p: int, gamma: Any, what: str = "gamma") -> float:
-    if isinstance(gamma, (bool, np.bool_)):  # True would read as 1.0: a typo, not a weight
+    if isinstance(gamma, (bool, np.bool_, str, bytes)):  # True would read as 1.0, "0.5" as 0.5:
+        # both are slips, not weights (Mixture.parse reads text)
         raise MixtureError(f"{what} for p = {p} must be a real number, got {gamma!r}")
     try:
         value = float(gamma)
