@@ -139,3 +139,27 @@ def test_flags_must_be_booleans():
         oc.polish(ham, x, check="no")
     with pytest.raises(TypeError, match="check must be True or False, got 1"):
         oc.gradient_ascent(ham, check=1)
+
+
+def test_the_local_maximum_check_does_not_depend_on_the_scale():
+    # exact scaling: the Hessian of c H is c Hess H, so the count of positive tangent
+    # eigenvalues must be the same at c = 1e-20, 1 and 1e20 (a fixed 1e-9 n threshold said
+    # "local maximum" at a random point when c = 1e-20)
+    base = oc.Hamiltonian.sample(oc.Mixture({3: 1.0}), 30, seed=0)
+    x = np.random.default_rng(3).standard_normal(30)
+    peak = oc.gradient_ascent(base, seed=0).x
+    for point in (x, peak):
+        want = tangent_spectrum(base, point)["n_positive"]
+        for c in (1e-20, 1e20):
+            scaled = oc.Hamiltonian.from_coefficients(30, {3: c * base.coefficients(3)})
+            assert tangent_spectrum(scaled, point)["n_positive"] == want, c
+    assert tangent_spectrum(base, x)["n_positive"] > 0
+    assert tangent_spectrum(base, peak)["n_positive"] == 0
+
+
+def test_far_scales_warn_that_the_tolerances_are_absolute(recwarn):
+    tiny = oc.Hamiltonian.sample(oc.Mixture({3: 1e-20}), 12, seed=0)
+    with pytest.warns(RuntimeWarning, match=r"sqrt\(xi\(1\)\) = 1e-20 is far from 1"):
+        oc.gradient_ascent(tiny, max_iter=5)
+    oc.gradient_ascent(oc.Hamiltonian.sample(oc.Mixture({3: 1.0}), 12, seed=0), max_iter=5)
+    assert not [w for w in recwarn if "far from 1" in str(w.message)]

@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import math
+import warnings
 from typing import Any
 
 import numpy as np
@@ -13,10 +14,12 @@ from ..model.hamiltonian import Hamiltonian, _check_seed
 
 __all__ = [
     "check_count",
+    "check_flag",
     "check_ham",
     "check_positive",
     "check_seed",
     "check_unit_start",
+    "warn_if_far_scale",
 ]
 
 
@@ -41,6 +44,28 @@ def check_positive(value: Any, name: str) -> float:
     if not math.isfinite(v) or v <= 0.0:
         raise ValueError(f"{name} must be finite and > 0, got {value!r}")
     return v
+
+
+FAR_SCALE = 1e4  # sqrt(xi(1)) beyond [1/FAR_SCALE, FAR_SCALE]: absolute tolerances mislead
+
+
+def warn_if_far_scale(ham: Hamiltonian, where: str) -> None:
+    """Warn when the mixture's energy scale sqrt(xi(1)) is far from 1: the optimizers'
+    tolerances (gtol, tol, temperatures, step bounds) are absolute, in energy per spin, so at
+    gamma ~ 1e-20 a random start already "converges". Energies scale as sqrt(xi(1)): rescale
+    the mixture instead. (Given coefficients carry no mixture and are not checked.)"""
+    mixture = ham.mixture
+    if mixture is None:
+        return
+    s = math.sqrt(float(mixture.xi(1.0)))
+    if not 1.0 / FAR_SCALE <= s <= FAR_SCALE:
+        warnings.warn(
+            f"{where}: the energy scale sqrt(xi(1)) = {s:.3g} is far from 1, but the"
+            " tolerances are absolute (energy per spin); rescale the mixture so that xi(1) is"
+            " of order one (energies scale as sqrt(xi(1)))",
+            RuntimeWarning,
+            stacklevel=3,
+        )
 
 
 def check_flag(value: Any, name: str) -> bool:

@@ -30,7 +30,14 @@ from typing import Any
 import numpy as np
 
 from ..model.hamiltonian import Hamiltonian
-from ._checks import check_count, check_flag, check_ham, check_positive, check_seed
+from ._checks import (
+    check_count,
+    check_flag,
+    check_ham,
+    check_positive,
+    check_seed,
+    warn_if_far_scale,
+)
 from ._config import base_config
 from ._riemannian import sphere_ascent
 from ._sphere import project_tangent, random_unit, retract
@@ -82,6 +89,7 @@ def gradient_ascent(
     ``alpha``.
     """
     ham = check_ham(ham, "gradient_ascent")
+    warn_if_far_scale(ham, "gradient_ascent")
     seed = check_seed(seed)
     check = check_flag(check, "check")
     gtol = check_positive(gtol, "gtol")
@@ -126,6 +134,7 @@ def langevin_anneal(
     update), ``grad_norm`` (|P grad H|/n).
     """
     ham = check_ham(ham, "langevin_anneal")
+    warn_if_far_scale(ham, "langevin_anneal")
     seed = check_seed(seed)
     temps = _check_schedule(schedule)
     eta = check_positive(eta, "eta")

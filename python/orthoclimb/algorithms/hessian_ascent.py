@@ -74,7 +74,14 @@ from threadpoolctl import threadpool_limits
 from ..model.hamiltonian import Hamiltonian
 from ..model.memory import available_memory
 from ..theory import algorithmic_energy, algorithmic_threshold, hessian_edge, path_energy
-from ._checks import check_count, check_flag, check_ham, check_positive, check_seed
+from ._checks import (
+    check_count,
+    check_flag,
+    check_ham,
+    check_positive,
+    check_seed,
+    warn_if_far_scale,
+)
 from ._config import base_config
 from ._eigen import TangentBasis, top_tangent_eigenpair
 from ._riemannian import sphere_ascent
@@ -170,6 +177,7 @@ def hessian_ascent(
     row is the end point (no eigen-solve there: NaN).
     """
     ham = check_ham(ham, "hessian_ascent")
+    warn_if_far_scale(ham, "hessian_ascent")
     if ham.n < 2:
         raise ValueError(
             f"hessian_ascent needs n >= 2: the sphere of n = {ham.n} is two points, with no "

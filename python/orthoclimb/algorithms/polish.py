@@ -22,8 +22,10 @@ eigenvalues are negative at a critical point, so the check reports how many are 
 (0 = local maximum) and the largest one per spin. It uses one Hessian pass and
 ``scipy.linalg.eigvalsh`` for n <= 3000 (all n - 1 eigenvalues) and otherwise ``eigsh``
 (Lanczos) for the top 10 only, in which case a count of 10 means "at least 10". The radial
-direction is moved out of the way by giving it the eigenvalue -(|Hess H| + |x.grad H| + 1) * n.
-An eigenvalue counts as positive when it exceeds 1e-9 n (rounding level of the kernels).
+direction is moved out of the way by giving it the eigenvalue -2 (|Hess H|_inf + |x.grad H|).
+An eigenvalue counts as positive when it exceeds 1e-9 times |Hess H|_inf + |x.grad H| (the
+max row sum: rounding in the kernels and in the eigen-solve scales with it), so the verdict does
+not depend on the scale of xi.
 """
 
 from __future__ import annotations
@@ -50,7 +52,7 @@ NEWTON_MAX_N = 4000
 NEWTON_START_GTOL = 1e-3  # per spin: gradient ascent hands over to Newton below this
 NEWTON_MAX_STEPS = 10
 LANCZOS_TOP = 10
-POSITIVE_THRESHOLD = 1e-9  # per spin
+POSITIVE_THRESHOLD = 1e-9  # relative to |Hess H|_inf + |x.grad H|
 
 
 def tangent_spectrum(ham: Hamiltonian, x: Any) -> dict[str, Any]:
@@ -71,7 +73,10 @@ def tangent_spectrum(ham: Hamiltonian, x: Any) -> dict[str, Any]:
     # A = P Hess P - radial P - big x x^T  =  Hess - x w^T - w x^T + c x x^T - radial I.
     w = hess @ x
     a = float(x @ w)
-    big = (float(np.abs(hess).sum(axis=1).max()) + abs(radial) + 1.0) * n
+    scale = float(np.abs(hess).sum(axis=1).max()) + abs(radial)
+    # below every tangent eigenvalue (|lambda| <= scale), and relative: an absolute shift
+    # would swamp a Hessian of scale 1e-20 in the eigen-solve's rounding
+    big = 2.0 * scale if scale > 0.0 else 1.0
     c = a - big + radial
     hess -= np.outer(x, w) + np.outer(w, x) - c * np.outer(x, x)
     hess[np.diag_indices(n)] -= radial
@@ -84,7 +89,7 @@ def tangent_spectrum(ham: Hamiltonian, x: Any) -> dict[str, Any]:
         exhaustive = False
     vals = np.sort(vals)[::-1]
     return {
-        "n_positive": int(np.count_nonzero(vals > POSITIVE_THRESHOLD * n)),
+        "n_positive": int(np.count_nonzero(vals > POSITIVE_THRESHOLD * scale)),
         "top_eigenvalue": float(vals[0]) / n,
         "exhaustive": exhaustive,
         "grad_norm": float(np.linalg.norm(tangent_grad)) / n,
