@@ -64,7 +64,8 @@ pub fn pieces(num_coefficients: usize, acc_len: usize) -> usize {
 
 /// The plan of a pass in `pieces` groups, for a kernel doing about `width` multiply-adds per
 /// coefficient (which sets the chunk length, see [`CHUNK`]) and taking first indices in runs
-/// of `quantum` (1, or [`QUANTUM`] for the grouped degree-3 kernels).
+/// of `quantum` ([`QUANTUM`] for the single-point kernels, whose degree-3 groups and degree
+/// >= 4 quads take first indices four at a time; 1 for the batch kernels).
 pub(crate) fn items_for<T: Coef>(
     poly: &Packed<T>,
     pieces: usize,
