@@ -73,6 +73,7 @@ def test_climb_baselines_json(tmp_path, capsys, method):
         ["--steps", "0"],
         ["--tol", "-1"],
         ["--n", "0"],
+        ["--n", "1"],  # Hessian ascent needs a tangent direction
         ["--method", "gradient", "--tol", "5"],  # an option of another method: not ignored
         ["--method", "gradient", "--no-polish"],
         ["--gammas", "9:1"],

@@ -143,6 +143,8 @@ def run(args: argparse.Namespace) -> int:
         set_num_threads(args.threads)
     if args.n < 1:
         raise ValueError(f"--n must be >= 1, got {args.n}")
+    if args.n < 2 and args.method == "hessian":  # before sampling, not after
+        raise ValueError("--method hessian needs --n >= 2: the sphere of n = 1 is two points")
     for flag, seed in (("--seed", args.seed), ("--start-seed", args.start_seed)):
         _check_seed(seed, flag)  # the library's rule, before anything is printed or sampled
     default_steps = {"hessian": auto_steps(args.n), "gradient": 2000, "anneal": 400}[args.method]
