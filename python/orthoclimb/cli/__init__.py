@@ -58,8 +58,10 @@ def main(argv: Sequence[str] | None = None) -> int:
     try:
         return int(args._run(args) or 0)
     except BrokenPipeError:  # the reader went away (say `| head`): stop quietly, like POSIX tools
-        devnull = os.open(os.devnull, os.O_WRONLY)
-        os.dup2(devnull, sys.stdout.fileno())  # so the interpreter's final flush cannot fail
+        try:  # so the interpreter's final flush cannot fail again
+            os.dup2(os.open(os.devnull, os.O_WRONLY), sys.stdout.fileno())
+        except (OSError, ValueError):  # stdout without a file descriptor (io.UnsupportedOperation)
+            pass
         return 141  # 128 + SIGPIPE, as a shell reports a tool stopped by the broken pipe
     except (ValueError, TypeError) as exc:
         print(f"orthoclimb {args.command}: error: {exc}", file=sys.stderr)
