@@ -163,22 +163,20 @@ def _connect(scheduler: str | None, plan: WorkerPlan, timeout: float):
     return client, None
 
 
-def _check_largest_fits(tasks: list[Task]) -> None:
+def _check_largest_fits(spec: StudySpec, tasks: list[Task]) -> None:
     """Refuse, before anything starts, a study run on this machine whose largest instance
     alone needs more memory than is available: each of its tasks would fail after the
     cluster started (an external cluster's machines may be larger: not checked)."""
     from ..errors import InsufficientMemoryError
-    from ..model import available_memory, estimate_memory
+    from ..model import available_memory
     from ..model.memory import format_bytes
+    from .estimate import largest_instance
 
-    need, big = max(
-        ((estimate_memory(t.mixture.mixture, t.n, t.dtype), t) for t in tasks),
-        key=lambda pair: pair[0],
-    )
+    need, name, n = largest_instance(spec, tasks)
     have = available_memory()
     if need > have:
         raise InsufficientMemoryError(
-            f"the study's largest instance ({big.mixture.name}, n = {big.n}) needs {need} bytes"
+            f"the study's largest instance ({name}, n = {n}) needs {need} bytes"
             f" ({format_bytes(need)}) of coefficients, but only {have} bytes"
             f" ({format_bytes(have)}) are available on this machine; drop that size, or run"
             " the study on a larger machine with --scheduler"
@@ -228,7 +226,7 @@ def run_study(
         check_scheduler_address(scheduler)  # before the study folder is created
     tasks = spec.tasks()
     if scheduler is None:
-        _check_largest_fits(tasks)  # before the study folder is created
+        _check_largest_fits(spec, tasks)  # before the study folder is created
     store = Store.open(folder, spec)
     pending = store.pending(tasks)
     skipped = len(tasks) - len(pending)
@@ -238,9 +236,10 @@ def run_study(
         store.write_table()
         return SweepOutcome(len(tasks), skipped, 0, 0, 0.0, None, None)
     if scheduler is None:
-        from ..model import available_memory, estimate_memory
+        from ..model import available_memory
+        from .estimate import largest_instance
 
-        biggest = max(estimate_memory(t.mixture.mixture, t.n, t.dtype) for t in pending)
+        biggest = largest_instance(spec, pending)[0]
         plan = plan_workers(available_cores(), len(pending), workers, biggest, available_memory())
         if threads is not None:
             plan = WorkerPlan(plan.workers, 1, min(threads, plan.rayon_threads))
