@@ -89,6 +89,18 @@ RUNNER = textwrap.dedent(
         rows = os.path.join(folder, "rows")
         return os.path.join(rows, sorted(os.listdir(rows))[0])
 
+    def edited_row(name, **changes):
+        # a copy of the base study whose first row gets `changes`: inside its sealed file
+        # (seal=True, the checksum no longer matches) or written back as a plain, older row
+        seal = changes.pop("seal")
+        folder = study_copy(name)
+        path = a_row(folder)
+        doc = json.load(open(path))
+        row = doc["payload"]
+        row.update({k: (v(row[k]) if callable(v) else v) for k, v in changes.items()})
+        json.dump(doc if seal else row, open(path, "w"))
+        return folder
+
     def truncate(path, keep=0.5):
         with open(path, "rb") as fh:
             data = fh.read()
@@ -521,42 +533,21 @@ CASES = [
     ),
     Case(
         "study_row_bad_energy",  # a plain (unsealed, older) row object with a bad field
-        textwrap.dedent(
-            """
-            f = study_copy('s4'); r = a_row(f); row = json.load(open(r))['payload']
-            row['energy'] = 'abc'
-            json.dump(row, open(r, 'w'))
-            result = report(f)
-            """
-        ),
+        "result = report(edited_row('s4', energy='abc', seal=False))",
         None,
         r"s4/rows/[0-9a-f]{16}\.json' has energy = 'abc'",
         cli=True,
     ),
     Case(
         "study_row_edited",  # one digit changed in a sealed row: the checksum catches it
-        textwrap.dedent(
-            """
-            f = study_copy('s4b'); r = a_row(f); doc = json.load(open(r))
-            doc['payload']['energy'] += 1.0
-            json.dump(doc, open(r, 'w'))
-            result = report(f)
-            """
-        ),
+        "result = report(edited_row('s4b', energy=lambda e: e + 1.0, seal=True))",
         None,
         r"s4b/rows/[0-9a-f]{16}\.json' fails: checksum mismatch",
         cli=True,
     ),
     Case(
         "study_row_of_another_mixture",  # a plain row renamed to another task's file name
-        textwrap.dedent(
-            """
-            f = study_copy('s4c'); r = a_row(f); row = json.load(open(r))['payload']
-            row['mixture'] = '3:2.0'
-            json.dump(row, open(r, 'w'))
-            result = report(f)
-            """
-        ),
+        "result = report(edited_row('s4c', mixture='3:2.0', seal=False))",
         None,
         r"s4c/rows/[0-9a-f]{16}\.json' has mixture = '3:2.0', but its task has '3:1.0'",
         cli=True,
