@@ -139,6 +139,119 @@ def test_paired_comparison_sign_test_is_the_exact_binomial():
         paired_comparison(np.array([0.1]))
 
 
+def test_paired_comparison_counts_runs_at_the_same_point_as_ties():
+    # exact identity: rounding-level differences (both runs at the same maximum) are ties; of
+    # the 3 seeds that really differ, a is higher on 3: two-sided p = 2 / 2^3 = 0.25
+    from orthoclimb.studies.report import paired_comparison
+
+    noise = np.array([4e-15, 4e-14, 3e-14, 2e-15, 1e-15, 1e-14, 3e-14])
+    real = np.array([0.038, 0.072, 0.0035])
+    c = paired_comparison(np.concatenate([noise, real]), tie=1e-9)
+    assert (c["higher"], c["lower"], c["ties"], c["nonzero"]) == (3, 0, 7, 3)
+    assert c["sign_p"] == pytest.approx(0.25, rel=1e-12)
+    assert c["diff"] == pytest.approx(real.sum() / 10)
+    only_noise = paired_comparison(noise, tie=1e-9)
+    assert only_noise["nonzero"] == 0 and math.isnan(only_noise["sign_p"])
+    assert math.isnan(only_noise["z"])  # no "ahead by 0.0000 (3.2 s.e.)"
+    # without a tie width the same noise is 7 of 7 (p = 2/128): what the report used to say
+    assert paired_comparison(noise)["sign_p"] == pytest.approx(2 / 128)
+    with pytest.raises(ValueError, match="tie"):
+        paired_comparison(real, tie=-1.0)
+
+
+def test_findings_report_runs_that_stop_at_the_same_point(tmp_path):
+    rng = np.random.default_rng(1)
+    base = {s: 1.6 + 0.02 * rng.standard_normal() for s in range(10)}
+    # hessian above gradient by rounding only (1e-14) on every seed: no edge, all ties
+    _synthetic_study(
+        tmp_path / "same",
+        "20,40",
+        lambda n, s, m: base[s] + (1e-14 if m == "hessian" else 0.0),
+        methods="hessian,gradient",
+        seeds="0-9",
+    )
+    text = build_report(tmp_path / "same").findings[-1]
+    assert "stopped at the same point" in text and "on all 10 paired seeds" in text
+    assert "ahead" not in text
+    # a real edge of 0.01 on 9 seeds, one tie: ahead by the sign test (p = 2/512)
+    _synthetic_study(
+        tmp_path / "edge",
+        "20,40",
+        lambda n, s, m: base[s] + (0.01 * (s > 0) if m == "hessian" else 0.0),
+        methods="hessian,gradient",
+        seeds="0-9",
+    )
+    text = build_report(tmp_path / "edge").findings[-1]
+    assert "hessian is ahead of gradient by 0.0090 per spin" in text
+    assert "hessian higher on 9, gradient on 0, the same point on 1" in text
+    assert "p = 0.0039" in text
+
+
+def test_report_statistics_against_independent_formulas(tmp_path):
+    # per-size s.e. = sample sd (ddof = 1, statistics.stdev) / sqrt(count); z(ALG) has the
+    # sign of e_inf - ALG; e_inf under the other laws equals numpy.polyfit's weighted line
+    # (w = 1/s.e.) at n^(-k) = 0
+    import statistics
+
+    noise = np.random.default_rng(2).standard_normal(64)
+    e = {
+        (n, s): 1.8 - 1.5 * n ** (-2 / 3) + 0.01 * noise[s + 8 * (n // 40)]
+        for n in (20, 40, 80)
+        for s in range(8)
+    }
+    _synthetic_study(tmp_path / "s", "20,40,80", lambda n, s: e[(n, s)])
+    rep = build_report(tmp_path / "s")
+    for g in rep.groups:
+        a = [e[(g["n"], s)] for s in range(8)]
+        assert g["se"] == pytest.approx(statistics.stdev(a) / math.sqrt(8), rel=1e-12)
+    (fit,) = rep.fits
+    assert fit["value"] > fit["alg"] and fit["z_alg"] > 0 and fit["z_gs"] > 0
+    sizes = np.array([20, 40, 80])
+    means = np.array([np.mean([e[(n, s)] for s in range(8)]) for n in sizes])
+    ses = np.array([statistics.stdev([e[(n, s)] for s in range(8)]) / math.sqrt(8) for n in sizes])
+    for other in fit["other_laws"]:
+        slope, intercept = np.polyfit(sizes ** (-other["exponent"]), means, 1, w=1 / ses)
+        assert other["value"] == pytest.approx(intercept, rel=1e-10)
+    assert [o["exponent"] for o in fit["other_laws"]] == [0.5, 1.0]
+
+
+def test_findings_name_ties_between_alg_and_gs_and_a_point_above_gs(tmp_path):
+    # pure 3-spin: ALG = 1.6330 (2 sqrt(2/3), Subag 2018), GS = 1.6570; wide noise puts both
+    # inside the interval: the data cannot tell them apart
+    rng = np.random.default_rng(3)
+    noise = {(n, s): rng.standard_normal() for n in (20, 40, 80) for s in range(8)}
+    _synthetic_study(
+        tmp_path / "w", "20,40,80", lambda n, s: 1.645 - n ** (-2 / 3) + 0.4 * noise[(n, s)]
+    )
+    rep = build_report(tmp_path / "w")
+    fit, text = rep.fits[0], rep.findings[-1]
+    assert fit["low"] < fit["alg"] < fit["gs"] < fit["high"]
+    assert "cannot tell ALG = 1.6330" in text and "from GS = 1.6570" in text
+    # a point estimate above GS whose interval still holds GS: named, but no WARNING
+    _synthetic_study(
+        tmp_path / "a", "20,40,80", lambda n, s: 1.64 - n ** (-2 / 3) + 0.1 * noise[(n, s)]
+    )
+    rep = build_report(tmp_path / "a")
+    fit, text = rep.fits[0], rep.findings[-1]
+    assert fit["low"] <= fit["gs"] < fit["value"]
+    assert "the point estimate lies above GS = 1.6570" in text
+    assert f"so the value lies in [{fit['low']:.4f}, 1.6570]" in text
+    assert "WARNING" not in text
+
+
+def test_findings_flag_a_law_that_moves_e_inf_more_than_the_noise(tmp_path):
+    # data from an exact n^(-1) law with tiny noise, fitted in n^(-2/3): the other laws' values
+    # differ by far more than the interval, which must be said; with noise much wider than the
+    # spread of the laws, it must not
+    noise = np.random.default_rng(4).standard_normal(64)
+    _synthetic_study(tmp_path / "l", "20,40,80", lambda n, s: 1.6 - 3 / n + 1e-4 * noise[s])
+    text = build_report(tmp_path / "l").findings[-1]
+    assert "the choice of law moves e_inf more than the noise does" in text
+    assert "under n^(-1)" in text
+    _synthetic_study(tmp_path / "q", "200,400,800", lambda n, s: 1.6 - 3 / n + 0.05 * noise[s])
+    assert "choice of law" not in build_report(tmp_path / "q").findings[-1]
+
+
 def test_fit_exponents_recovers_power_laws():
     from orthoclimb.studies.profile import KERNELS, fit_exponents
 
@@ -154,13 +267,15 @@ def test_fit_exponents_recovers_power_laws():
     assert fit["hessian"] < 2.9 < pair["hessian"] < 3.0
 
 
-def _synthetic_study(folder, sizes: str, energy) -> None:
-    """A study folder whose rows carry energy(n, seed) instead of a run (report tests)."""
-    spec = spec_from_flags(["3:1"], None, sizes, "0-7", "gradient")
+def _synthetic_study(folder, sizes: str, energy, methods="gradient", seeds="0-7") -> None:
+    """A study folder whose rows carry energy(n, seed) (or energy(n, seed, method) with two
+    methods) instead of a run (report tests)."""
+    spec = spec_from_flags(["3:1"], None, sizes, seeds, methods)
     store = Store.open(folder, spec)
     for t in spec.tasks():
         row = {"task_id": t.task_id, "mixture": t.mixture.name, "method": t.method.name}
-        store.write_row({**row, "n": t.n, "seed": t.seed, "energy": energy(t.n, t.seed)})
+        args = (t.n, t.seed) if "," not in methods else (t.n, t.seed, t.method.name)
+        store.write_row({**row, "n": t.n, "seed": t.seed, "energy": energy(*args)})
 
 
 def test_findings_flag_an_extrapolation_above_the_ground_state_and_an_unchecked_law(tmp_path):
@@ -191,3 +306,23 @@ def test_findings_flag_an_extrapolation_above_the_ground_state_and_an_unchecked_
 )
 def test_the_verdict_agrees_with_the_printed_interval(value, interval, z, words):
     assert words in _verdict(value, interval, 1.5, z, "ALG")
+
+
+def test_poor_fit_flag_follows_chi2_per_degree_of_freedom(tmp_path):
+    # common practice: chi2/dof near 1 means the law fits. Ten sizes on the exact n^(-2/3)
+    # law with noise give chi2 near dof = 8 (above 4, below 4 dof): no flag. A curved law
+    # (n^(-1/3)) with small noise fitted in n^(-2/3) must be flagged.
+    rng = np.random.default_rng(5)
+    sizes = (20, 30, 40, 60, 80, 120, 160, 240, 320, 480)
+    noise = {(n, s): rng.standard_normal() for n in sizes for s in range(8)}
+    text_sizes = ",".join(map(str, sizes))
+    _synthetic_study(
+        tmp_path / "ok", text_sizes, lambda n, s: 1.6 - n ** (-2 / 3) + 0.02 * noise[(n, s)]
+    )
+    fit = build_report(tmp_path / "ok").fits[0]
+    assert fit["dof"] == 8 and 4 < fit["chi2"] < 4 * 8, fit["chi2"]
+    assert "fits poorly" not in build_report(tmp_path / "ok").findings[-1]
+    _synthetic_study(
+        tmp_path / "bad", text_sizes, lambda n, s: 1.6 - n ** (-1 / 3) + 0.002 * noise[(n, s)]
+    )
+    assert "law fits poorly" in build_report(tmp_path / "bad").findings[-1]

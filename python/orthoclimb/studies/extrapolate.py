@@ -25,7 +25,7 @@ from dataclasses import asdict, dataclass
 
 import numpy as np
 
-__all__ = ["Extrapolation", "extrapolate"]
+__all__ = ["Extrapolation", "e_inf_under", "extrapolate"]
 
 
 @dataclass(frozen=True)
@@ -60,6 +60,45 @@ def _wls_line(x: np.ndarray, m: np.ndarray, wt: np.ndarray) -> tuple[np.ndarray,
     return (sxx * sy - sx * sxy) / det, (s0 * sxy - sx * sy) / det
 
 
+def _checked(
+    sizes: Sequence[int], samples: Sequence[Sequence[float]], exponent: float
+) -> list[np.ndarray]:
+    if len(sizes) != len(samples):
+        raise ValueError("sizes and samples must have the same length")
+    if len(sizes) < 2:
+        raise ValueError(f"extrapolation needs at least 2 sizes, got {len(sizes)}")
+    if not (math.isfinite(exponent) and exponent > 0):
+        raise ValueError(f"exponent must be positive, got {exponent}")
+    arrays = [np.asarray(s, dtype=np.float64) for s in samples]
+    for n, a in zip(sizes, arrays, strict=True):
+        if a.ndim != 1 or a.size < 2:
+            raise ValueError(f"extrapolation needs at least 2 seeds per size; n = {n} has {a.size}")
+        if not np.all(np.isfinite(a)):
+            raise ValueError(f"non-finite energy among the samples at n = {n}")
+    return arrays
+
+
+def _fit(x: np.ndarray, arrays: list[np.ndarray]) -> tuple[float, float, float, np.ndarray]:
+    """The weighted least-squares line through the means: (e_inf, a, chi2, s_j^2)."""
+    means = np.array([a.mean() for a in arrays])
+    var = np.array([a.var(ddof=1) / a.size for a in arrays])  # s_j^2
+    if np.all(var == 0):
+        var = np.ones_like(var)  # identical samples: plain least squares, zero-width interval
+    floor = 1e-6 * float(np.max(var))
+    var = np.maximum(var, floor)
+    value, slope = _wls_line(x, means, 1.0 / var)
+    chi2 = float(np.sum((means - value - slope * x) ** 2 / var))
+    return float(value), float(slope), chi2, var
+
+
+def e_inf_under(sizes: Sequence[int], samples: Sequence[Sequence[float]], exponent: float) -> float:
+    """The point estimate e_inf of :func:`extrapolate` under the law n^(-``exponent``), without
+    an interval: the report sets it beside the chosen law's value to show how much the law
+    (not the noise) moves the extrapolation."""
+    arrays = _checked(sizes, samples, exponent)
+    return _fit(np.asarray(sizes, dtype=np.float64) ** (-exponent), arrays)[0]
+
+
 def extrapolate(
     sizes: Sequence[int],
     samples: Sequence[Sequence[float]],
@@ -70,29 +109,11 @@ def extrapolate(
 ) -> Extrapolation:
     """Extrapolate the mean of ``samples[j]`` (energies per spin at size ``sizes[j]``) to
     n -> infinity (see the module doc). Needs >= 2 sizes and >= 2 samples per size."""
-    if len(sizes) != len(samples):
-        raise ValueError("sizes and samples must have the same length")
-    if len(sizes) < 2:
-        raise ValueError(f"extrapolation needs at least 2 sizes, got {len(sizes)}")
-    if not (math.isfinite(exponent) and exponent > 0):
-        raise ValueError(f"exponent must be positive, got {exponent}")
+    arrays = _checked(sizes, samples, exponent)
     if not 0 < level < 1:
         raise ValueError(f"level must be in (0, 1), got {level}")
-    arrays = [np.asarray(s, dtype=np.float64) for s in samples]
-    for n, a in zip(sizes, arrays, strict=True):
-        if a.ndim != 1 or a.size < 2:
-            raise ValueError(f"extrapolation needs at least 2 seeds per size; n = {n} has {a.size}")
-        if not np.all(np.isfinite(a)):
-            raise ValueError(f"non-finite energy among the samples at n = {n}")
     x = np.asarray(sizes, dtype=np.float64) ** (-exponent)
-    means = np.array([a.mean() for a in arrays])
-    var = np.array([a.var(ddof=1) / a.size for a in arrays])  # s_j^2
-    if np.all(var == 0):
-        var = np.ones_like(var)  # identical samples: plain least squares, zero-width interval
-    floor = 1e-6 * float(np.max(var))
-    var = np.maximum(var, floor)
-    value, slope = _wls_line(x, means, 1.0 / var)
-    chi2 = float(np.sum((means - value - slope * x) ** 2 / var))
+    value, slope, chi2, var = _fit(x, arrays)
     rng = np.random.default_rng(seed)
     boot_m = np.empty((n_boot, len(arrays)))
     boot_v = np.empty_like(boot_m)

@@ -9,6 +9,10 @@ from these numbers (what was measured, whatever it is). Two methods are compared
 largest common size on the same instances (paired seeds): by the mean difference and its
 standard error, and by the sign test of :func:`paired_comparison` (one method higher on most
 instances, two-sided binomial p < ``SIGN_LEVEL``), which detects a small but consistent edge.
+Both methods start from the seed's random direction, so on an easy landscape they often stop
+at the same point: runs within ``TIE_RELATIVE`` GS of each other are ties, counted apart and
+left out of the sign test. Beside each e_inf the report gives its value under the exponents
+``OTHER_LAWS``: the interval covers the noise of the means, not the choice of law.
 
 Files written into the study folder (atomically): ``report.md``, ``report.json``,
 ``energy_vs_n.png`` (mean +- s vs n^(-k), fitted lines, ALG and GS lines, e_inf with its
@@ -27,7 +31,7 @@ from typing import Any
 import numpy as np
 
 from ..fileio import save_figure_atomic, write_json_atomic, write_text_atomic
-from .extrapolate import Extrapolation, extrapolate
+from .extrapolate import Extrapolation, e_inf_under, extrapolate
 from .grid import StudySpec
 from .store import Store, read_config
 from .tasks import theory_values
@@ -36,6 +40,14 @@ __all__ = ["Report", "build_report", "write_report"]
 
 Z_CONSISTENT = 2.0  # |z| <= 2: "consistent with"
 SIGN_LEVEL = 0.01  # a paired sign test below this: one method is higher on most instances
+# Two runs whose energies per spin differ by at most TIE_RELATIVE * GS stopped at the same
+# point. Measured (pure 3-spin and xi = q^2 + q^4/16, n = 60 and 130, 60 gradient-ascent starts
+# per instance): runs that reach the same maximum differ by at most 2.2e-14 per spin, distinct
+# maxima by at least 8.1e-5; 1e-9 sits between them with five decades to spare on each side.
+TIE_RELATIVE = 1e-9
+# Exponents of the n^(-k) law whose e_inf the report sets beside the chosen law's (the fit is
+# statistical only; these show how far the choice of law alone moves the extrapolation).
+OTHER_LAWS = (0.5, 1.0)
 
 
 @dataclass
@@ -178,6 +190,12 @@ def build_report(
             se = ex.se if ex.se > 0 else math.nan
             entry["z_alg"] = (ex.value - th["alg"]) / se
             entry["z_gs"] = (ex.value - th["gs"]) / se
+            samples = [data[(m.name, meth.name, n)] for n in sizes]
+            entry["other_laws"] = [
+                {"exponent": e, "value": e_inf_under(sizes, samples, e)}
+                for e in OTHER_LAWS
+                if abs(e - k) > 1e-9
+            ]
             fits.append(entry)
     missing = len(spec.tasks()) - len(rows)
     rep = Report(spec, groups, fits, theory, [], missing)
@@ -203,31 +221,77 @@ def _verdict(
     return f"{abs(value - target):.4f} {side} {what} = {target:.4f} ({z:+.1f} s.e.)"
 
 
-def paired_comparison(d: Any) -> dict[str, float]:
+def paired_comparison(d: Any, tie: float = 0.0) -> dict[str, float]:
     """Two methods on the same instances: ``d`` holds method a minus method b, seed by seed.
 
-    Returns the mean difference ``diff``, its standard error ``se`` and ``z = diff/se``, and
-    the sign test: a is higher on ``higher`` of the ``nonzero`` seeds that differ, with the
-    two-sided binomial p-value ``sign_p`` of that count under "each is higher with
-    probability 1/2" (``scipy.stats.binomtest``). The sign test sees a small but consistent
-    edge that the mean's standard error, inflated by instance-to-instance spread, hides.
+    Differences with |d| <= ``tie`` are ties: both runs stopped at the same point, and what
+    separates them is rounding (see ``TIE_RELATIVE``); they count as 0 in the mean. Returns
+    the mean difference ``diff``, its standard error ``se`` and ``z = diff/se``, the counts
+    ``higher`` (a above b), ``lower`` and ``ties``, and the sign test over the ``nonzero`` =
+    higher + lower seeds that differ: the two-sided binomial p-value ``sign_p`` of ``higher``
+    under "each is higher with probability 1/2" (``scipy.stats.binomtest``). The sign test sees
+    a small but consistent edge that the mean's standard error, inflated by instance-to-
+    instance spread, hides.
     """
     from scipy.stats import binomtest
 
     d = np.asarray(d, dtype=np.float64)
     if d.ndim != 1 or d.size < 2:
         raise ValueError(f"a paired comparison needs at least 2 seeds, got {d.size}")
+    if not (math.isfinite(tie) and tie >= 0):
+        raise ValueError(f"tie must be a finite number >= 0, got {tie}")
+    d = np.where(np.abs(d) <= tie, 0.0, d)
     diff = float(d.mean())
     se = float(d.std(ddof=1) / math.sqrt(d.size))
-    higher, nonzero = int(np.count_nonzero(d > 0)), int(np.count_nonzero(d != 0))
+    higher, lower = int(np.count_nonzero(d > 0)), int(np.count_nonzero(d < 0))
+    nonzero = higher + lower
     return {
         "diff": diff,
         "se": se,
         "z": diff / se if se > 0 else math.nan,
         "higher": higher,
+        "lower": lower,
+        "ties": int(d.size) - nonzero,
         "nonzero": nonzero,
         "sign_p": float(binomtest(higher, nonzero).pvalue) if nonzero else math.nan,
     }
+
+
+def _against_theory(f: dict[str, Any]) -> str:
+    """The fit's value set beside ALG and GS. Beyond :func:`_verdict` on ALG: when the mixture
+    has a gap GS > ALG and the interval holds both, the data cannot tell them apart; and a
+    point estimate above GS is named, since GS bounds every n -> infinity energy."""
+    value, low, high, alg, gs = f["value"], f["low"], f["high"], f["alg"], f["gs"]
+    finite = math.isfinite(low) and math.isfinite(high) and math.isfinite(gs)
+    gap = finite and gs - alg > TIE_RELATIVE * abs(gs)
+    if gap and low <= alg and gs <= high:
+        text = (
+            f"cannot tell ALG = {alg:.4f} ({f['z_alg']:+.1f} s.e.) from GS = {gs:.4f} "
+            f"({f['z_gs']:+.1f} s.e.): both lie inside the interval"
+        )
+    else:
+        text = _verdict(value, (low, high), alg, f["z_alg"], "ALG")
+    if finite and value > gs and low <= gs:
+        text += (
+            f"; the point estimate lies above GS = {gs:.4f}, which bounds every n -> infinity"
+            f" energy, so the value lies in [{low:.4f}, {gs:.4f}]"
+        )
+    return text
+
+
+def _law_remark(f: dict[str, Any]) -> str:
+    """A remark when another exponent of the law moves e_inf by more than half the interval."""
+    others = f.get("other_laws") or []
+    half = (f["high"] - f["low"]) / 2
+    if not others or not math.isfinite(half):
+        return ""
+    if max(abs(o["value"] - f["value"]) for o in others) <= half:
+        return ""
+    alts = " and ".join(f"{o['value']:.4f} under n^(-{o['exponent']:.3g})" for o in others)
+    return (
+        f"; the choice of law moves e_inf more than the noise does ({alts}), so the interval"
+        " understates the uncertainty"
+    )
 
 
 def _findings(rep: Report, seeds: dict) -> list[str]:
@@ -252,8 +316,7 @@ def _findings(rep: Report, seeds: dict) -> list[str]:
         text = (
             f"{f['mixture']}, {f['method']}: e_inf = {f['value']:.4f} "
             f"[{lvl}%: {f['low']:.4f}, {f['high']:.4f}] from n = "
-            f"{', '.join(str(n) for n in f['sizes'])}; "
-            + _verdict(f["value"], (f["low"], f["high"]), f["alg"], f["z_alg"], "ALG")
+            f"{', '.join(str(n) for n in f['sizes'])}; " + _against_theory(f) + _law_remark(f)
         )
         if f["dof"] > 0 and f["chi2"] / f["dof"] > 4:
             text += (
@@ -265,7 +328,7 @@ def _findings(rep: Report, seeds: dict) -> list[str]:
                 f"; with {len(f['sizes'])} sizes the fit has no degree of freedom left, so"
                 f" nothing checks the n^(-{f['exponent']:.3g}) law"
             )
-        gs = f.get("gs", math.nan)
+        gs = f["gs"]
         if math.isfinite(gs) and math.isfinite(f["low"]) and f["low"] > gs:
             text += (
                 f"; WARNING: the whole interval lies above the ground state GS = {gs:.4f}, which"
@@ -288,12 +351,21 @@ def _findings(rep: Report, seeds: dict) -> list[str]:
             both = sorted(set(pa_) & set(pb_))
             if len(both) < 2:
                 continue
-            # paired over seeds: both methods ran on the same instances
-            c = paired_comparison([pa_[s] - pb_[s] for s in both])
+            # paired over seeds: both methods ran on the same instances, from the same seeded
+            # random start direction
+            tie = TIE_RELATIVE * abs(rep.theory[mix]["gs"])
+            c = paired_comparison([pa_[s] - pb_[s] for s in both], tie)
             diff, z = c["diff"], c["z"]
+            if c["nonzero"] == 0:
+                out.append(
+                    f"{mix}, n = {n}: {a} and {b} stopped at the same point (energies within "
+                    f"{tie:.0e} per spin) on all {len(both)} paired seeds."
+                )
+                continue
             sign = (
-                f"{a} higher on {c['higher']} of {c['nonzero']} seeds that differ "
-                f"(sign test p = {c['sign_p']:.2g})"
+                f"{a} higher on {c['higher']}, {b} on {c['lower']}, the same point on "
+                f"{c['ties']} (sign test over the {c['nonzero']} that differ: "
+                f"p = {c['sign_p']:.2g})"
             )
             by_mean = math.isfinite(z) and abs(z) > Z_CONSISTENT
             by_sign = math.isfinite(c["sign_p"]) and c["sign_p"] < SIGN_LEVEL
@@ -322,7 +394,11 @@ def _markdown(rep: Report) -> str:
         "Energies are per spin, H(x)/n on the unit sphere, maximized. Mean over seeds and its "
         "standard error s.e. = sd/sqrt(count). Extrapolation: weighted least squares of the "
         f"mean in n^(-{_exp_text(rep)}), {lvl}% bootstrap interval over seeds; "
-        "z = (e_inf - theory)/s.e.(e_inf).",
+        "z = (e_inf - theory)/s.e.(e_inf). The interval is statistical only; the last column "
+        "gives e_inf under other exponents of the law, to show how much the choice of law "
+        "moves it. Head-to-head comparisons pair the methods seed by seed: on each instance "
+        "both start from the same seeded random direction, and runs within "
+        f"{TIE_RELATIVE:.0e} GS of each other count as the same point (a tie).",
         "",
         f"Sizes {list(spec.sizes)}, {len(spec.seeds)} seeds, methods "
         + ", ".join(
@@ -349,17 +425,19 @@ def _markdown(rep: Report) -> str:
         "## Extrapolation",
         "",
         f"| mixture | method | e_inf | {lvl}% interval | s.e. | ALG | z(ALG) | GS | z(GS) |"
-        " chi2/dof |",
-        "| --- | --- | ---: | --- | ---: | ---: | ---: | ---: | ---: | ---: |",
+        " chi2/dof | e_inf, other laws |",
+        "| --- | --- | ---: | --- | ---: | ---: | ---: | ---: | ---: | ---: | --- |",
     ]
     for f in rep.fits:
         if f.get("value") is None:
-            lines.append(f"| {f['mixture']} | {f['method']} | -- | {f['note']} | | | | | | |")
+            lines.append(f"| {f['mixture']} | {f['method']} | -- | {f['note']} | | | | | | | |")
             continue
         lines.append(
             f"| {f['mixture']} | {f['method']} | {f['value']:.4f} | [{f['low']:.4f}, "
             f"{f['high']:.4f}] | {f['se']:.4f} | {f['alg']:.4f} | {f['z_alg']:+.1f} | "
-            f"{f['gs']:.4f} | {f['z_gs']:+.1f} | {f['chi2']:.1f}/{f['dof']} |"
+            f"{f['gs']:.4f} | {f['z_gs']:+.1f} | {f['chi2']:.1f}/{f['dof']} | "
+            + ", ".join(f"{o['value']:.4f} (k = {o['exponent']:.3g})" for o in f["other_laws"])
+            + " |"
         )
     lines += [
         "",
