@@ -130,3 +130,16 @@ def test_argument_errors(argv, capsys):
     with pytest.raises(SystemExit) as info:
         main(argv)
     assert info.value.code == 2
+
+
+def test_a_gap_below_the_solver_resolution_is_flagged(capsys):
+    # 2+4 with gamma_4^2 = 0.16 > 1/12 fails the criterion (Auffinger-Chen 2015 concavity test),
+    # so GS > ALG is predicted, but by about 1e-7: at the default tol 1e-6 the printed gap is
+    # within the solver's resolution and must say so; at tol 1e-10 it is resolved; and a
+    # full-RSB mixture (GS = ALG predicted) gets no such remark
+    assert main(["theory", "--gammas", "2:1,4:0.4"]) == 0
+    assert "within 10x the solver's tolerance 1e-06" in capsys.readouterr().out
+    assert main(["theory", "--gammas", "2:1,4:0.4", "--tol", "1e-10"]) == 0
+    assert "within 10x" not in capsys.readouterr().out
+    assert main(["theory", "--gammas", "2:1,4:0.25"]) == 0
+    assert "within 10x" not in capsys.readouterr().out

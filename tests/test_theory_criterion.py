@@ -193,3 +193,26 @@ def test_rejects_non_mixtures(bad):
     assert type(bad).__name__ in str(info.value)
     with pytest.raises(TypeError, match="Mixture"):
         concavity_numerator(bad)
+
+
+def test_a_failing_interval_narrower_than_six_digits_is_printed_apart():
+    # exact: for xi = q^2 + c q^4, f = xi''^(-1/2) has f'' proportional to 24 c q^2 - 2, so f is
+    # concave exactly on q <= 1/sqrt(12 c); c just above 1/12 fails on (1/sqrt(12 c), 1], an
+    # interval of width 2e-11 that six digits printed as "(1, 1]"
+    c = 0.2886751346**2
+    verdict = full_rsb(Mixture({2: 1.0, 4: 0.2886751346}))
+    ((lo, hi),) = verdict.failing_intervals
+    assert lo == pytest.approx(1 / math.sqrt(12 * c), abs=1e-13) and hi == 1.0
+    text = verdict.describe()
+    assert "(1, 1]" not in text
+    printed = float(text.split("concave on (")[1].split(",")[0])
+    assert printed < 1.0 and printed == pytest.approx(lo, abs=1e-11)
+
+
+def test_a_field_with_q_hat_one_is_described_as_replica_symmetric_not_full_rsb():
+    # xi = q + q^2: q xi''(q) = 2q < xi'(q) = 1 + 2q on (0, 1], so q_hat = 1 (the root of
+    # q xi'' = xi' does not lie in (0, 1)) and GS = ALG = sqrt(xi'(1)) = sqrt(3)
+    verdict = full_rsb(Mixture({1: 1.0, 2: 1.0}))
+    assert verdict.q_hat == 1.0
+    text = verdict.describe()
+    assert "replica symmetric (no RSB at all)" in text and "not needed here" in text

@@ -88,18 +88,31 @@ class FullRSBVerdict:
             text = "holds: xi''^(-1/2) is concave on (0, 1]"
         else:
             parts = ", ".join(
-                f"({lo:.6g}, {hi:.6g}{']' if hi == 1.0 else ')'}"
+                f"({_apart(lo, hi)[0]}, {_apart(lo, hi)[1]}{']' if hi == 1.0 else ')'}"
                 for lo, hi in self.failing_intervals
             )
             text = f"fails: xi''^(-1/2) is not concave on {parts}"
         if self.q_hat >= 1.0:
-            text += "; with the field, q_hat = 1: replica symmetric, GS = ALG = sqrt(xi'(1))"
+            text += (
+                "; not needed here: with this field q_hat = 1, so the solution is replica"
+                " symmetric (no RSB at all) and GS = ALG = sqrt(xi'(1))"
+            )
         elif self.q_hat > 0.0:
             text += (
                 f"; with the field only [q_hat, 1] matters, q_hat = {self.q_hat:.6g}:"
                 f" GS {'=' if self.gs_equals_alg else '>'} ALG predicted"
             )
         return text
+
+
+def _apart(lo: float, hi: float) -> tuple[str, str]:
+    """lo and hi printed with 6 significant digits, or as many more as tell them apart (an
+    interval that just reaches into (0, 1] printed "(1, 1]" at 6)."""
+    for digits in range(6, 18):
+        a, b = f"{lo:.{digits}g}", f"{hi:.{digits}g}"
+        if a != b:
+            break
+    return a, b
 
 
 def _pair_factor(p: int, r: int) -> int:
