@@ -163,3 +163,30 @@ def test_far_scales_warn_that_the_tolerances_are_absolute(recwarn):
         oc.gradient_ascent(tiny, max_iter=5)
     oc.gradient_ascent(oc.Hamiltonian.sample(oc.Mixture({3: 1.0}), 12, seed=0), max_iter=5)
     assert not [w for w in recwarn if "far from 1" in str(w.message)]
+
+
+def test_langevin_noise_diffuses_at_the_stated_temperature():
+    # exact identity for the scheme of the module doc with H = 0 (pure diffusion): a step is
+    # x' = (x + s P xi)/sqrt(1 + s^2 |P xi|^2), s^2 = 2 eta T / n, with |P xi|^2 ~ chi^2_(n-1)
+    # and <P xi, x_0> symmetric given |P xi| (reflection in the tangent space), so
+    # E[<x_K, x_0>] = m^K with m = E[(1 + s^2 chi^2_(n-1))^(-1/2)] (scipy.stats.chi2.expect).
+    # Its continuous limit is the heat kernel of Brownian motion on S^(n-1) with generator
+    # (T/n) Laplacian: exp(-(n-1) T eta K / n) (degree-1 harmonics have eigenvalue -(n-1)).
+    # Noise at half the temperature would give about 0.38 instead of 0.14.
+    from scipy import stats
+
+    n, temp, eta, steps, seeds = 50, 1.0, 0.01, 200, 100
+    ham = oc.Hamiltonian.from_coefficients(n, {1: np.zeros(n)})  # H = 0: no drift at all
+    overlaps = []
+    for seed in range(seeds):
+        # T = 0 and no gradient: one step leaves the seeded start x_0 where it is
+        x0 = oc.langevin_anneal(ham, seed=seed, schedule=[0.0], eta=eta, polish=False).x
+        xk = oc.langevin_anneal(ham, seed=seed, schedule=[temp] * steps, eta=eta, polish=False)
+        overlaps.append(float(x0 @ xk.x))
+    s2 = 2.0 * eta * temp / n
+    m = stats.chi2(n - 1).expect(lambda q: (1.0 + s2 * q) ** -0.5)
+    expected = m**steps
+    assert expected == pytest.approx(np.exp(-(n - 1) * temp * eta * steps / n), rel=0.05)
+    mean = float(np.mean(overlaps))
+    se = float(np.std(overlaps, ddof=1)) / np.sqrt(seeds)
+    assert abs(mean - expected) <= 4.0 * se, (mean, se, expected)

@@ -307,3 +307,42 @@ def test_one_spin_is_refused():
     ham = oc.Hamiltonian.sample(oc.Mixture({3: 1.0}), 1, seed=0)
     with pytest.raises(ValueError, match="n >= 2.*n = 1"):
         oc.hessian_ascent(ham)
+
+
+def test_lanczos_tolerance_is_delta_n_over_the_eigenvalue_bound(monkeypatch):
+    # the stopping rule of the _eigen module doc (ARPACK stops at |M_T y - theta y| <=
+    # tol |theta|; a residual r puts theta within |r| of the spectrum): tol = delta n / bound,
+    # the bound being 1.25 |theta| of the previous step; when the solved |theta| exceeds it
+    # (tol |theta| > delta n) the step is solved again with tol = delta n / |theta|. So every
+    # accepted solve has tol |theta| <= delta n, and none is tighter than needed:
+    # tol |theta| >= delta n / 2 while |theta| grows along the path (the first step's bound,
+    # the Frobenius norm, is not tight and is left out). A tolerance of delta alone, n times
+    # tighter, gives the same path at twice the cost.
+    import orthoclimb.algorithms._eigen as eigen_module
+
+    real_eigsh = eigen_module.eigsh
+    calls = []
+
+    def recording_eigsh(*args, **kwargs):
+        vals, vecs = real_eigsh(*args, **kwargs)
+        calls.append((kwargs["tol"], float(vals[0])))
+        return vals, vecs
+
+    monkeypatch.setattr(eigen_module, "eigsh", recording_eigsh)
+    n, delta, steps = 60, 1e-3, 15
+    need = delta * n
+    ham = oc.Hamiltonian.sample(oc.Mixture({3: 1.0}), n, seed=0)
+    res = oc.hessian_ascent(ham, steps=steps, tol=delta, seed=1, polish=False, hessian="dense")
+    accepted, i = [], 0  # n - 1 > DIRECT_MAX: every step is an ARPACK solve
+    while i < len(calls):
+        tol, theta = calls[i]
+        assert tol < 0.1  # below the cap, so the rule applies unclipped
+        if i > 0:
+            assert tol * abs(theta) >= need / 2, (i, tol, theta)
+        if tol * abs(theta) > need:  # the bound was exceeded: solved again, right tolerance
+            i += 1
+            assert calls[i][0] == pytest.approx(need / abs(theta), rel=1e-12)
+        accepted.append(calls[i][1])
+        i += 1
+    assert len(accepted) == steps - 1
+    np.testing.assert_allclose(np.array(accepted) / n, res.path["eigenvalue"][:-1], rtol=1e-12)

@@ -81,3 +81,18 @@ def test_equality_is_same_content(result, tmp_path):
     assert changed != result
     assert dataclasses.replace(result, energy=result.energy + 1e-12) != result
     assert result != "a result" and result is not None
+
+
+def test_swapped_npz_of_the_same_shape_fails(result, tmp_path):
+    # the JSON records the SHA-256 of x: the x of another result of the same n (same shape,
+    # other values) must be refused, not loaded beside the wrong energy and path
+    other = oc.hessian_ascent(oc.Hamiltonian.sample(oc.Mixture({3: 1.0}), 30, seed=5), steps=5)
+    assert other.x.shape == result.x.shape and not np.array_equal(other.x, result.x)
+    _, npz_a = result.save(tmp_path / "a")
+    _, npz_b = other.save(tmp_path / "b")
+    data_a, data_b = npz_a.read_bytes(), npz_b.read_bytes()
+    npz_a.write_bytes(data_b)
+    npz_b.write_bytes(data_a)
+    for stem in ("a", "b"):
+        with pytest.raises(ResultFileError, match="digest"):
+            oc.load_result(tmp_path / stem)

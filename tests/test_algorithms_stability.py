@@ -46,3 +46,27 @@ def test_stability_with_callable():
     assert calls == [None, (5, 1.0), (5, 0.5)]
     assert st.overlaps[0] == pytest.approx(1.0, abs=1e-12)
     assert np.all(np.abs(st.overlaps) <= 1.0 + 1e-12)
+
+
+def test_overlaps_keep_their_sign():
+    # exact: for a pure field H(x) = h.x the maximum on the sphere is h/|h|, and the
+    # correlated field is rho h + sqrt(1 - rho^2) h', so the overlap of the two outputs is
+    # the cosine of h and h_rho: exactly -1 at rho = -1, and negative for rho < 0 here. Each
+    # output is within the angle asin(n |P grad H|/n / |h|) of its maximum (|P grad H| =
+    # |h| sin angle), which bounds the error of the overlap.
+    mix = oc.Mixture({1: 1.0})
+    n, seed, rhos = 30, 5, [-1.0, -0.5, 0.5]
+    st = oc.stability("gradient", mix, n, seed=seed, rhos=rhos, keep_results=True)
+    h0 = oc.Hamiltonian.sample(mix, n, seed).coefficients(1)
+    base, *runs = st.results
+
+    def angle(res, h):
+        return float(np.arcsin(min(1.0, n * res.info["grad_norm"] / np.linalg.norm(h))))
+
+    for rho, overlap, res in zip(rhos, st.overlaps, runs, strict=True):
+        h = oc.Hamiltonian.sample(mix, n, seed + 1, correlated_with=(seed, rho)).coefficients(1)
+        cosine = float(h0 @ h) / float(np.linalg.norm(h0) * np.linalg.norm(h))
+        tol = angle(base, h0) + angle(res, h) + 1e-12
+        assert overlap == pytest.approx(cosine, abs=tol), rho
+    assert st.overlaps[0] == pytest.approx(-1.0, abs=1e-9)
+    assert st.overlaps[1] < 0.0

@@ -166,3 +166,17 @@ def test_hessian_workspace_is_reported():
     # and two where each half still has 16 n^2: n = 300 (4.5 M coefficients)
     mid = oc.Hamiltonian.sample(oc.Mixture({3: 1.0}), 300, seed=0)
     assert mid.hessian_workspace_nbytes == (2 + 1) * 300 * 300 * 8
+
+
+def test_energy_per_spin_is_the_energy_over_n(rng):
+    # exact identity (its docstring): energy_per_spin(x) = H(x)/n, for one point and a batch
+    n = 9
+    ham = oc.Hamiltonian.sample(oc.Mixture({1: 0.3, 3: 1.0}), n, seed=2)
+    x = unit(rng.standard_normal(n))
+    xs = unit(rng.standard_normal((4, n)))
+    assert isinstance(ham.energy_per_spin(x), float)
+    assert ham.energy_per_spin(x) == ham.energy(x) / n
+    batch = ham.energy_per_spin(xs)
+    assert batch.shape == (4,)
+    np.testing.assert_array_equal(batch, ham.energy(xs) / n)
+    assert ham.energy_per_spin(x) != ham.energy(x)  # n != 1: the division is not a no-op

@@ -99,6 +99,61 @@ def test_memory_guard_refuses_before_allocating(monkeypatch):
     assert oc.Hamiltonian.sample(mix, 100, seed=0, check_memory=False).nbytes == need
 
 
+def _mem_available_from_proc() -> int | None:
+    """MemAvailable from /proc/meminfo in bytes, parsed here independently: the kernel prints
+    it in kibibytes despite the "kB" label (Linux fs/proc/meminfo.c, show_val_kb: pages <<
+    (PAGE_SHIFT - 10); proc(5))."""
+    try:
+        with open("/proc/meminfo", encoding="ascii") as fh:
+            fields = dict(line.split(":", 1) for line in fh if ":" in line)
+    except OSError:
+        return None
+    if "MemAvailable" not in fields:
+        return None
+    value, unit = fields["MemAvailable"].split()
+    assert unit == "kB"
+    return int(value) * 1024
+
+
+def test_available_memory_reads_meminfo_in_kibibytes():
+    # the reading is bracketed by two independent reads; free memory may drift between them
+    # (other processes), so retry until the two agree to 0.2 %, then allow 0.5 % beyond the
+    # bracket. Reading kB as 1000 bytes would be 2.3 % low.
+    import orthoclimb.model.memory as memory
+
+    if _mem_available_from_proc() is None:
+        pytest.skip("no MemAvailable in /proc/meminfo on this system")
+    for _attempt in range(10):
+        before = _mem_available_from_proc()
+        got = memory.available_memory()
+        after = _mem_available_from_proc()
+        if abs(after - before) <= 0.002 * before:
+            break
+    assert min(before, after) * 0.995 <= got <= max(before, after) * 1.005, (before, got, after)
+
+
+def test_available_memory_parses_a_given_meminfo(monkeypatch):
+    # exact: a meminfo text with MemAvailable of 12345678 kB means 12345678 x 1024 bytes
+    # (Linux fs/proc/meminfo.c, show_val_kb); the line is found by its name, not its position
+    import io
+
+    import orthoclimb.model.memory as memory
+
+    text = (
+        "MemTotal:       32000000 kB\n"
+        "MemFree:          999999 kB\n"
+        "MemAvailable:   12345678 kB\n"
+        "Buffers:          111111 kB\n"
+    )
+
+    def fake_open(path, *args, **kwargs):
+        assert str(path) == "/proc/meminfo"
+        return io.StringIO(text)
+
+    monkeypatch.setattr(memory, "open", fake_open, raising=False)
+    assert memory.available_memory() == 12345678 * 1024
+
+
 def test_storage_beyond_address_space_is_an_error_not_an_abort():
     with pytest.raises(InsufficientMemoryError):
         oc.estimate_memory(oc.Mixture({8: 1.0}), 10**9)

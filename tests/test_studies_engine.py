@@ -13,9 +13,10 @@ import time
 import pyarrow.parquet as pq
 import pytest
 
+from orthoclimb import Mixture
 from orthoclimb.cli import main
 from orthoclimb.studies.engine import WorkerPlan, plan_workers, run_study
-from orthoclimb.studies.grid import spec_from_flags
+from orthoclimb.studies.grid import MethodSpec, MixtureSpec, StudySpec, spec_from_flags
 from orthoclimb.studies.store import Store, StudyMismatchError
 
 
@@ -226,3 +227,41 @@ def test_a_killed_worker_loses_only_its_running_task(tmp_path):
     for name, data in before.items():
         assert (rows / name).read_bytes() == data, f"row {name} rewritten after the kill"
     assert "1 worker process(es) died during the sweep" in out.decode(), out.decode()[-2000:]
+
+
+def _one_task_study(gamma=1.0, options=None, dtype="float64") -> StudySpec:
+    mix = MixtureSpec.make(Mixture({3: gamma}), "cubic")  # the same name whatever gamma
+    return StudySpec((mix,), (8,), (0,), (MethodSpec.make("gradient", options),), dtype=dtype)
+
+
+@pytest.mark.parametrize(
+    "other",
+    [{"gamma": 2.0}, {"options": {"max_iter": 7}}, {"dtype": "float32"}],
+    ids=["gammas", "options", "dtype"],
+)
+def test_a_row_of_another_study_with_the_same_names_is_refused(tmp_path, other):
+    # the module doc's guarantee: a row must describe the task its file name says. A row of a
+    # study that differs only in what the names do not show (the gammas behind the mixture's
+    # name, the method's options, the dtype) has the same mixture, method, n and seed but
+    # another task id; copied under this study's file name it must be refused, not reported.
+    mine, theirs = _one_task_study(), _one_task_study(**other)
+    (task,), (their_task,) = mine.tasks(), theirs.tasks()
+    assert (task.mixture.name, task.method.name, task.n, task.seed) == (
+        their_task.mixture.name,
+        their_task.method.name,
+        their_task.n,
+        their_task.seed,
+    )
+    assert task.task_id != their_task.task_id
+    store = Store.open(tmp_path / "mine", mine)
+    other_store = Store.open(tmp_path / "theirs", theirs)
+    row = {"mixture": "cubic", "method": "gradient", "n": 8, "seed": 0, "energy": 0.5}
+    assert other_store.write_row({"task_id": their_task.task_id, **row})
+    data = other_store.row_path(their_task.task_id).read_bytes()
+    store.row_path(task.task_id).write_bytes(data)
+    with pytest.raises(ValueError, match=f"holds task '{their_task.task_id}', not"):
+        store.rows()
+    # the study's own row, written the same way, is read back
+    store.row_path(task.task_id).unlink()
+    assert store.write_row({"task_id": task.task_id, **row})
+    assert [r["task_id"] for r in store.rows()] == [task.task_id]

@@ -7,6 +7,7 @@ import pytest
 
 import orthoclimb as oc
 from orthoclimb.studies.estimate import (
+    LANCZOS_SECONDS,
     Calibration,
     calibrate,
     estimate_from,
@@ -93,3 +94,46 @@ def test_calibration_size_comes_from_the_mixtures_own_sizes():
     # above the 64 MB limit the largest size that fits is taken: p = 3 at n = 800 needs 685 MB
     big = MixtureSpec.make(oc.Mixture({3: 1.0}), "big", sizes="100,200,800")
     assert calibrate(StudySpec((big,), (20,), (0,), spec.methods))["big"].n0 == 200
+
+
+def _hessian_spec(steps) -> StudySpec:
+    spec = _spec(seeds=(0,))
+    return StudySpec(
+        spec.mixtures, spec.sizes, spec.seeds, (MethodSpec.make("hessian", {"steps": steps}),)
+    )
+
+
+def test_lanczos_time_is_paid_at_every_step():
+    # exact arithmetic of the module doc's model: K x (a Hessian pass plus Lanczos, a + b n^2
+    # seconds per step, a = 6e-4, b = 1.1e-8). With free kernels only the Lanczos term depends
+    # on K, so 10 more steps at n = 20 and n = 40 cost 10 x (2a + b (20^2 + 40^2)) more.
+    assert LANCZOS_SECONDS == (6e-4, 1.1e-8)  # the figures the module doc states
+    a, b = LANCZOS_SECONDS
+    t_few = estimate_from(_cal(), _hessian_spec(10).tasks(), 1, embedded=False)
+    t_many = estimate_from(_cal(), _hessian_spec(20).tasks(), 1, embedded=False)
+    assert t_many - t_few == pytest.approx(10 * (2 * a + b * (20**2 + 40**2)), rel=1e-9)
+    # and the whole hessian term with kernel times: (n/n0)^3 (K t_hess + 150 t_eg) + K (a + b n^2)
+    cal = _cal(hessian=0.01, energy_and_gradient=0.001)
+    fixed = estimate_from(_cal(), _hessian_spec(10).tasks()[:1], 1, embedded=False)
+    fixed -= 10 * (a + b * 20**2)
+    one = estimate_from(cal, _hessian_spec(10).tasks()[:1], 1, embedded=False) - fixed
+    assert one == pytest.approx(10 * 0.01 + 150 * 0.001 + 10 * (a + b * 20**2), rel=1e-9)
+
+
+def test_gradient_iterations_are_capped_at_150_and_by_max_iter():
+    # exact arithmetic of the module doc's model: gradient ascent costs about 150 iterations
+    # x 1.5 passes, "capped by max_iter": min(150, max_iter) x 1.5 x t_eg x (n/n0)^P
+    cal = _cal(energy_and_gradient=0.01)
+    for max_iter, iterations in ((40, 40), (2000, 150)):
+        spec = _spec(seeds=(0,))
+        spec = StudySpec(
+            spec.mixtures,
+            spec.sizes,
+            spec.seeds,
+            (MethodSpec.make("gradient", {"max_iter": max_iter}),),
+        )
+        small = spec.tasks()[:1]
+        assert small[0].n == 20 and dict(small[0].method.options)["max_iter"] == max_iter
+        kernel = estimate_from(cal, small, 1, embedded=False)
+        kernel -= estimate_from(_cal(), small, 1, embedded=False)
+        assert kernel == pytest.approx(iterations * 1.5 * 0.01, rel=1e-12), max_iter
