@@ -18,7 +18,7 @@ GS_P3 = 1.657  # Crisanti and Sommers 1992; Auffinger, Ben Arous, Cerny 2013
 
 
 def _sym_from_p2(ham: oc.Hamiltonian) -> np.ndarray:
-    """M with H(x) = x.M x: SPEC order np.triu_indices(n), M_ii = a_ii, M_ij = a_ij/2."""
+    """M with H(x) = x.M x: packed order np.triu_indices(n), M_ii = a_ii, M_ij = a_ij/2."""
     n = ham.n
     a = ham.coefficients(2)
     m = np.zeros((n, n))
@@ -58,7 +58,7 @@ def test_p2_edge_scaling():
 
 @pytest.mark.parametrize("q", [0.5, 1.0])
 def test_p3_edge_at_random_point(q):
-    # SPEC section 3: the top tangent eigenvalue per spin at radius sqrt(q) is about
+    # Subag 2018: the top tangent eigenvalue per spin at radius sqrt(q) is about
     # 2 sqrt(xi''(q)); GOE edge fluctuations are (mean -1.2, sd 1.3) x n^(-2/3)/2 relative
     # (Tracy-Widom), so 0.07 is a > 4 sd band at n = 300.
     n = 300
@@ -82,7 +82,7 @@ def test_p3_energy_near_alg(p3_run):
 
 
 def test_p3_path_tracks_prediction(p3_run):
-    # SPEC section 3: E_path(q) and 2 sqrt(xi''(q)). Tolerances are this package's measurements
+    # Subag 2018: E_path(q) and 2 sqrt(xi''(q)). Tolerances are this package's measurements
     # of the finite-n shortfall along the path (not theory): the top tangent eigenvalue at step
     # i runs below the edge by an amount that grows with i and shrinks with n (about 11 % for
     # i >= 65 at n = 300, 8 % at n = 800; see the hessian_ascent module doc), while at a
@@ -141,7 +141,7 @@ def test_norms_and_columns(p3_run):
 
 
 def test_field_stage_against_alg():
-    # SPEC section 3 (recalled from memory of arXiv:2110.07847): with a field, stage 1 reaches
+    # Recalled from memory of arXiv:2110.07847: with a field, stage 1 reaches
     # sqrt(q_hat xi'(q_hat)) at radius sqrt(q_hat); the end is compared with ALG.
     mix = oc.Mixture({1: 1.0, 3: 1.0})
     res = oc.hessian_ascent(oc.Hamiltonian.sample(mix, 300, seed=0), steps=150, seed=0)
@@ -167,7 +167,7 @@ def test_full_rsb_mixture_approaches_gs_from_below():
 
 @pytest.mark.parametrize("gammas", [{3: 1.0}, {1: 0.5, 3: 1.0}, {2: 1.0, 4: 0.3}, {2: 1.0}])
 def test_energy_gradient_read_off_hessian(gammas):
-    # exact identities (Euler, SPEC section 2)
+    # exact identities (Euler's theorem on homogeneous functions)
     ham = oc.Hamiltonian.sample(oc.Mixture(gammas), 40, seed=2)
     reader = HessianReader(ham)
     assert reader.exact
@@ -188,7 +188,8 @@ def test_operator_mode_matches_dense():
 
 
 def test_operator_mode_keeps_the_tolerance_on_its_first_step():
-    # SPEC section 5: every step's Rayleigh quotient within delta (per spin) of the top tangent
+    # The documented tolerance of hessian_ascent: every step's Rayleigh quotient within delta (per
+    # spin) of the top tangent
     # eigenvalue. The operator's first tolerance came from |grad H| + 1, no bound on |theta|,
     # and here (two top eigenvalues 0.0065 apart) it stopped 0.0062 below the top.
     ham = oc.Hamiltonian.sample(oc.Mixture({3: 1.0}), 150, seed=1)

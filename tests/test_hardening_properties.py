@@ -3,7 +3,8 @@
 Exact identities of homogeneous polynomials (Euler's theorem; "exact identity" in the tests
 below), checked on random instances drawn by hypothesis: mixtures of degrees 1..5 with random
 gammas, n = 1..12, float64 or float32 storage, random points (some with exact zeros), random
-directions and batches. SPEC section 2 states the Euler identities every kernel must satisfy.
+directions and batches. Euler's theorem on homogeneous functions gives identities every kernel must
+satisfy.
 
 Tolerances. Every quantity compared is a sum of at most M = num_coefficients + n + P + 2
 rounded terms, each a product of at most P + 1 factors (kernels accumulate in float64 even with

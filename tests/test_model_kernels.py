@@ -89,7 +89,7 @@ def test_energy_gradient_agree_with_central_differences(rng):
 
 @pytest.mark.parametrize("p", range(1, 9))
 def test_euler_identities(p, rng):
-    # SPEC section 2 (Euler, homogeneity): x.grad H_p = p H_p and Hess H_p x = (p-1) grad H_p
+    # Euler's theorem on homogeneous functions: x.grad H_p = p H_p and Hess H_p x = (p-1) grad H_p
     n = 11 if p >= 7 else 19
     ham = oc.Hamiltonian.sample(oc.Mixture({p: 1.0}), n, seed=p)
     x = rng.standard_normal(n)

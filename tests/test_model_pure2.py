@@ -18,7 +18,8 @@ import orthoclimb as oc
 
 
 def matrix_from_coefficients(a: np.ndarray, n: int) -> np.ndarray:
-    """Independent reconstruction: SPEC order for p = 2 is np.triu_indices(n) row by row."""
+    """Independent reconstruction: the packed order (README, Conventions) for p = 2 is
+    np.triu_indices(n) row by row."""
     iu = np.triu_indices(n)
     m = np.zeros((n, n))
     m[iu] = a

@@ -1,4 +1,4 @@
-"""The law of the sampled coefficients (SPEC section 2) and the covariance of H.
+"""The law of the sampled coefficients (README, Conventions) and the covariance of H.
 
 Statistical checks use fixed seeds and tolerances of several standard errors, so they are
 deterministic and would catch a wrong normalization (a factor sqrt(2) or c(m) misplaced).
@@ -17,7 +17,7 @@ from orthoclimb.model.dense import multisets, orderings
 
 
 def test_standardized_coefficients_are_standard_gaussians():
-    # a_m / sqrt(n gamma^2 c(m)) must be i.i.d. N(0, 1) (SPEC section 2)
+    # a_m / sqrt(n gamma^2 c(m)) must be i.i.d. N(0, 1) (README, Conventions)
     n, gamma = 120, 0.7
     ham = oc.Hamiltonian.sample(oc.Mixture({3: gamma}), n, seed=5)
     a = ham.coefficients(3)
@@ -35,7 +35,8 @@ def test_standardized_coefficients_are_standard_gaussians():
 
 
 def test_covariance_is_n_xi_of_overlap():
-    # E[H(x) H(y)] = n xi(<x, y>) (SPEC section 1); estimated over independent seeds
+    # E[H(x) H(y)] = n xi(<x, y>) (the normalization of the README); estimated over independent
+    # seeds
     n, seeds = 12, 3000
     mix = oc.Mixture({1: 0.5, 2: 1.0, 3: 0.6})
     rng = np.random.default_rng(3)

@@ -40,7 +40,7 @@ def test_pure_two_spin_alg_is_the_semicircle_edge():
 
 
 def test_pure_three_spin_alg():
-    # Auffinger, Ben Arous and Cerny 2013: E_inf = 2 sqrt(2/3) for p = 3 (= ALG, SPEC section 4).
+    # Auffinger, Ben Arous and Cerny 2013: E_inf = 2 sqrt(2/3) for p = 3 (= ALG for pure models).
     assert algorithmic_energy(Mixture({3: 1.0})) == pytest.approx(2 * math.sqrt(2 / 3), abs=1e-12)
 
 
@@ -71,7 +71,8 @@ def test_two_plus_four_path_closed_form():
 
 @pytest.mark.parametrize("mixture", MIXTURES, ids=repr)
 def test_path_energy_against_quad(mixture):
-    # E_path(q) = sqrt(q_hat xi'(q_hat)) + int_{q_hat}^q sqrt(xi'') for q >= q_hat (SPEC section 3),
+    # E_path(q) = sqrt(q_hat xi'(q_hat)) + int_{q_hat}^q sqrt(xi'') for q >= q_hat (Subag 2018; the
+    # field term from memory),
     # sqrt(q xi'(q)) below q_hat; the integral is recomputed with scipy.integrate.quad.
     q_hat = algorithmic_threshold(mixture)
     for q in [0.0, 0.05, 0.3, 0.5, 0.77, 1.0]:
@@ -109,7 +110,8 @@ def test_pure_field():
 
 def test_field_plus_two_spin_uses_q_hat_one():
     # xi = h^2 q + c q^2: q xi''(q) - xi'(q) = 2cq - h^2 - 2cq = -h^2 < 0 on [0, 1], so no root:
-    # q_hat = 1 by the rule of SPEC section 3 and ALG = sqrt(q_hat xi'(q_hat)) = sqrt(h^2 + 2c).
+    # q_hat = 1 by the q_hat rule (q xi'' = xi', from memory) and ALG = sqrt(q_hat xi'(q_hat)) =
+    # sqrt(h^2 + 2c).
     mixture = Mixture.from_xi({1: 0.5, 2: 1.0})
     assert algorithmic_threshold(mixture) == 1.0
     assert algorithmic_energy(mixture) == pytest.approx(math.sqrt(0.5 + 2.0), rel=1e-14)

@@ -19,13 +19,14 @@ def test_threshold_energy(p):
 
 
 def test_threshold_energy_three_spin_value():
-    # SPEC section 4: 2 sqrt(2/3) = 1.632993 (Auffinger, Ben Arous and Cerny 2013).
+    # 2 sqrt(2/3) = 1.632993 (Auffinger, Ben Arous and Cerny 2013).
     assert threshold_energy(3) == pytest.approx(1.632993, abs=5e-7)
 
 
 @pytest.mark.parametrize("p", range(3, 9))
 def test_complexity_at_threshold(p):
-    # I_1(E_inf) = 0, so Theta_p(E_inf) = 1/2 log(p-1) - (p-2)/(4(p-1)) E_inf^2 (SPEC section 3).
+    # I_1(E_inf) = 0, so Theta_p(E_inf) = 1/2 log(p-1) - (p-2)/(4(p-1)) E_inf^2 (Auffinger, Ben
+    # Arous and Cerny 2013).
     e_inf = 2 * math.sqrt((p - 1) / p)
     expected = 0.5 * math.log(p - 1) - (p - 2) / (4 * (p - 1)) * e_inf**2
     assert complexity(p, e_inf) == pytest.approx(expected, abs=1e-15)
@@ -35,7 +36,7 @@ def test_complexity_at_threshold(p):
 @pytest.mark.parametrize("p", [3, 4, 6])
 def test_rate_function_against_quad(p):
     # I_1(E) = (2 / E_inf^2) int_{E_inf}^E sqrt(s^2 - E_inf^2) ds (differentiate the closed form
-    # of SPEC section 3); recompute Theta_p with scipy.integrate.quad.
+    # of Auffinger, Ben Arous and Cerny 2013); recompute Theta_p with scipy.integrate.quad.
     e_inf = 2 * math.sqrt((p - 1) / p)
     for energy in [e_inf * 1.001, 1.7, 2.0, 3.0]:
         if energy < e_inf:

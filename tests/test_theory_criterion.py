@@ -16,14 +16,14 @@ def _inv_sqrt_curvature(mixture: Mixture, q: np.ndarray) -> np.ndarray:
 
 
 def test_pure_two_spin_holds():
-    # xi = q^2: xi'' = 2 is constant, so xi''^(-1/2) is constant, hence concave (SPEC section 3).
+    # xi = q^2: xi'' = 2 is constant, so xi''^(-1/2) is constant, hence concave.
     verdict = full_rsb(Mixture({2: 1.0}))
     assert verdict.holds and verdict.failing_intervals == [] and verdict.gs_equals_alg
 
 
 @pytest.mark.parametrize("p", range(3, 9))
 def test_pure_p_fails_everywhere(p):
-    # SPEC section 3: for pure p >= 3, xi''^(-1/2) = c q^(-(p-2)/2) is convex on (0, 1].
+    # Exact: for pure p >= 3, xi''^(-1/2) = c q^(-(p-2)/2) is convex on (0, 1].
     verdict = full_rsb(Mixture({p: 0.7}))
     assert not verdict.holds
     assert verdict.failing_intervals == [(0.0, 1.0)], f"p = {p}: {verdict.failing_intervals}"
@@ -32,7 +32,7 @@ def test_pure_p_fails_everywhere(p):
 
 @pytest.mark.parametrize("ratio", [1e-300, 1e-200, 1e-3, 0.1, 1.0, 10.0, 1e3, 1e200])
 def test_two_plus_three_always_fails(ratio):
-    # SPEC section 3: every mixture of p = 2 and p = 3 alone fails. Here N = 3 xi'''^2 > 0
+    # Exact: every mixture of p = 2 and p = 3 alone fails. Here N = 3 xi'''^2 > 0
     # since the p = 2 term has xi'''' = 0 and the p = 3 term has xi'''' = 0.
     # The tiny and huge ratios check that N is not lost to underflow (108 c_3^2 = 1e-598).
     verdict = full_rsb(Mixture.from_xi({2: 1.0, 3: ratio}))
@@ -43,7 +43,7 @@ def test_two_plus_three_always_fails(ratio):
 @pytest.mark.parametrize("a", [0.25, 1.0, 3.0])
 @pytest.mark.parametrize("factor", [0.1, 0.5, 0.9, 1.0])
 def test_two_plus_four_holds_up_to_the_boundary(a, factor):
-    # SPEC section 3 worked example: xi = a q^2 + b q^4 satisfies the criterion iff b <= a/12
+    # Worked example: xi = a q^2 + b q^4 satisfies the criterion iff b <= a/12
     # (the boundary itself included: there N(q) = 96 a b (q^2 - 1) <= 0).
     verdict = full_rsb(Mixture.from_xi({2: a, 4: factor * a / 12}))
     assert verdict.holds, f"a = {a}, b = {factor} a/12: {verdict.failing_intervals}"
@@ -52,7 +52,7 @@ def test_two_plus_four_holds_up_to_the_boundary(a, factor):
 @pytest.mark.parametrize("a", [0.25, 1.0, 3.0])
 @pytest.mark.parametrize("factor", [1.01, 1.5, 2.0, 10.0])
 def test_two_plus_four_past_the_boundary_fails_near_one(a, factor):
-    # SPEC section 3 worked example: for b > a/12, (2a + 12 b q^2)^(-1/2) is convex exactly where
+    # Worked example: for b > a/12, (2a + 12 b q^2)^(-1/2) is convex exactly where
     # 2 * 12 b q^2 > 2a, i.e. on (sqrt(a / (12 b)), 1]; the interval reaches q = 1.
     b = factor * a / 12
     verdict = full_rsb(Mixture.from_xi({2: a, 4: b}))
@@ -65,8 +65,8 @@ def test_two_plus_four_past_the_boundary_fails_near_one(a, factor):
 
 @pytest.mark.parametrize("scale", [1e-300, 1e-150, 1e-20, 1e20, 1e150, 1e300])
 def test_verdict_does_not_depend_on_the_scale_of_xi(scale):
-    # exact: xi''^(-1/2) of c xi is c^(-1/2) times that of xi, so concavity (and the SPEC
-    # section 3 worked examples) cannot change; before, c = 1e200 made N overflow and "hold"
+    # exact: xi''^(-1/2) of c xi is c^(-1/2) times that of xi, so concavity (and the worked
+    # examples above) cannot change; before, c = 1e200 made N overflow and "hold"
     for xi in ({3: 1.0}, {2: 1.0, 4: 1 / 16}, {2: 1.0, 4: 1 / 10}, {1: 0.3, 2: 1.0, 3: 0.2}):
         base = full_rsb(Mixture.from_xi(xi))
         scaled = full_rsb(Mixture.from_xi({p: c * scale for p, c in xi.items()}))
@@ -77,7 +77,7 @@ def test_verdict_does_not_depend_on_the_scale_of_xi(scale):
 
 @pytest.mark.parametrize("eps", [1e-3, 1e-6])
 def test_boundary_location_is_sharp(eps):
-    # SPEC section 3 worked example: the boundary b = a/12 is located to relative precision eps.
+    # Worked example: the boundary b = a/12 is located to relative precision eps.
     a = 1.3
     assert full_rsb(Mixture.from_xi({2: a, 4: a / 12 * (1 - eps)})).holds
     past = full_rsb(Mixture.from_xi({2: a, 4: a / 12 * (1 + eps)}))

@@ -61,7 +61,8 @@ def test_closed_form_functional_against_quad(mixture, B, breakpoints, alpha):
 
 
 def test_replica_symmetric_value():
-    # SPEC section 3: alpha = 0 gives min_B (xi'(1) B + 1/B)/2 = sqrt(xi'(1)) at B = xi'(1)^(-1/2).
+    # Chen and Sen 2017 functional: alpha = 0 gives min_B (xi'(1) B + 1/B)/2 = sqrt(xi'(1)) at B =
+    # xi'(1)^(-1/2).
     mixture = Mixture({2: 1.0, 3: 0.4})
     s = math.sqrt(mixture.xi(1.0, 1))
     assert parisi_functional(mixture, 1 / s, [0.0, 1.0], [0.0]) == pytest.approx(s, rel=1e-15)
@@ -146,7 +147,8 @@ def test_parisi_equals_complexity_zero(p):
     elapsed = time.perf_counter() - start
     assert gs.converged
     assert gs.value == pytest.approx(complexity_ground_state(p), abs=1e-6)
-    # SPEC section 3: the optimum of a pure model has one step, alpha constant on [0, 1).
+    # Chen and Sen 2017 (a pure model is 1RSB at zero temperature): the optimum has one step, alpha
+    # constant on [0, 1).
     assert gs.n_steps == 1 and gs.alpha[0] > 0
     assert elapsed < 10.0, f"one-step solve took {elapsed:.1f} s"
 
@@ -176,7 +178,8 @@ def test_full_rsb_mixture_reaches_alg(xi):
 
 
 def test_just_past_the_boundary_gs_exceeds_alg():
-    # SPEC section 3 worked example: for xi = a q^2 + b q^4 with b = 2 a/12 the criterion fails on
+    # Worked example of the concavity criterion (Subag 2018): for xi = a q^2 + b q^4 with b = 2
+    # a/12 the criterion fails on
     # (sqrt(1/2), 1], so GS > ALG. The gap is small this close to the boundary (about 1.5e-7),
     # hence the tight tolerance; it must exceed the solver's own error estimates by far.
     a = 1.0
@@ -221,7 +224,7 @@ def test_strong_field_three_spin_is_replica_symmetric():
 
 
 def test_field_full_rsb_confirms_the_q_hat_rule():
-    # SPEC section 3 gives the field version of ALG from memory and asks for a numerical check:
+    # The field version of ALG is stated from memory (q_hat rule), so it gets a numerical check:
     # for xi = 0.1 q + q^2 + 0.05 q^4 (concave above q_hat) the Parisi minimum must equal it.
     mixture = Mixture.from_xi({1: 0.1, 2: 1.0, 4: 0.05})
     assert full_rsb(mixture).gs_equals_alg

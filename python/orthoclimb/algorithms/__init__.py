@@ -2,8 +2,9 @@
 
 Units and sign: energy per spin e(x) = H(x)/n at unit vectors x; we maximize.
 
-* :func:`hessian_ascent` -- the Hessian-ascent method (SPEC section 5) with a per-step path table
-  compared with ``path_energy`` and ``hessian_edge``; a field stage up to q_hat with a p = 1 term.
+* :func:`hessian_ascent` -- the Hessian-ascent method (Subag 2018, arXiv:1812.04588) with a
+  per-step path table compared with ``path_energy`` and ``hessian_edge``; a field stage up to
+  q_hat with a p = 1 term.
 * :func:`polish` -- Riemannian gradient ascent to a near-critical point, with the local-maximum
   check :func:`tangent_spectrum`.
 * :func:`gradient_ascent`, :func:`langevin_anneal` -- baselines.

@@ -3,8 +3,9 @@
 Tangent space at x (|x| = r): the orthogonal complement of u = x/|x|, with projector
 P = I - u u^T. The retraction used everywhere is the metric projection R(y) = r y/|y|.
 
-Reading the energy and the gradient off the Hessian (exact identities, SPEC section 2). Write
-H = H_1 + H_2 + sum_{p >= 3} H_p. Then Hess H_1 = 0, Hess H_2 = C is the constant matrix
+Reading the energy and the gradient off the Hessian (exact identities: Euler's theorem on
+homogeneous functions). Write H = H_1 + H_2 + sum_{p >= 3} H_p. Then Hess H_1 = 0, Hess H_2 = C is
+the constant matrix
 Hess H(0), and for each homogeneous part Hess H_p(x) x = (p - 1) grad H_p(x) and
 x . grad H_p(x) = p H_p(x) (Euler). So when at most one degree p >= 3 is present,
 

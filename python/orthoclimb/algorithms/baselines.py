@@ -16,8 +16,8 @@ G(x) = P grad H(x)/n, P = I - x x^T.
   R(y) = y/|y|, one gradient pass per step, with temperatures T_k from ``schedule``; then
   :func:`orthoclimb.polish` climbs to the nearest near-critical point. The step ``eta`` (per-spin
   time units) must be small against 1/|Hess e| (the tangent Hessian of e has spectral radius
-  about 2 sqrt(xi''(1)) + xi'(1), about 8 for p = 3); the default 0.02 is safe for the mixtures
-  of SPEC section 4.
+  about 2 sqrt(xi''(1)) + xi'(1), about 8 for p = 3); the default 0.02 is safe for mixtures
+  with xi'(1) of order one.
 """
 
 from __future__ import annotations

@@ -1,4 +1,4 @@
-"""Hessian ascent (arXiv:1812.04588; SPEC section 5): climb from near the origin to the unit
+"""Hessian ascent (Subag 2018, arXiv:1812.04588): climb from near the origin to the unit
 sphere by orthogonal steps along the top eigenvector of the tangent Hessian.
 
 Without a field (no p = 1 term). Start at x_0 of norm 1/sqrt(K) in a seeded uniformly random

@@ -147,8 +147,9 @@ class Hamiltonian:
     def from_coefficients(
         cls, n: int, coefficients: Mapping[int, Any], dtype: str = "float64"
     ) -> Hamiltonian:
-        """Wrap given packed coefficients {p: 1-D array of length C(n+p-1, p)} (SPEC order:
-        sorted index tuples in lexicographic order). ``mixture`` and ``seed`` are None."""
+        """Wrap given packed coefficients {p: 1-D array of length C(n+p-1, p)} (the packed
+        order of the README's Conventions: sorted index tuples in lexicographic order).
+        ``mixture`` and ``seed`` are None."""
         n = check_size(n)
         dtype = normalize_dtype(dtype)
         if not isinstance(coefficients, Mapping) or not coefficients:
@@ -338,7 +339,7 @@ class Hamiltonian:
 
     def coefficients(self, p: int, start: int = 0, stop: int | None = None) -> np.ndarray:
         """The degree-p coefficients a_m of ranks ``start <= r < stop`` (default: all
-        C(n+p-1, p) of them) as a new float64 array in SPEC order. A range reads a slice of a
+        C(n+p-1, p) of them) as a new float64 array in the packed order. A range reads a slice of a
         large instance without copying the whole block."""
         p = _check_degree(p)
         if p not in self.degrees:

@@ -200,7 +200,7 @@ def full_rsb(mixture: Mixture) -> FullRSBVerdict:
     the sign of the exact numerator N(q) = 3 xi'''^2 - 2 xi'' xi'''' of the second derivative
     (see the module docstring), found from the roots of N.
 
-    Examples (SPEC section 3): xi = a q^2 + b q^4 holds iff b <= a/12 and, past that, fails on
+    Examples (from N by hand): xi = a q^2 + b q^4 holds iff b <= a/12 and, past that, fails on
     (sqrt(a / (12 b)), 1]; every pure p >= 3 model and every mixture of p = 2 and p = 3 fails.
     """
     mixture = check_mixture(mixture, "full_rsb")

@@ -14,11 +14,12 @@ B = L - int_0^1 alpha > 0 and integrating the xi'' term by parts gives the form 
     C(q) = B + int_q^1 alpha(s) ds.
 
 Note the direction of the inner integral: C(q) collects alpha from q up to 1, so C(1) = B and C
-decreases. (SPEC section 3 writes B + int_0^q alpha; that version cannot reproduce GS = ALG for
+decreases. (The other direction, B + int_0^q alpha, which a restatement can slip into, cannot
+reproduce GS = ALG for
 full-RSB mixtures, while this one gives back, from its stationarity conditions, both the full-RSB
 criterion and the ALG formula with q_hat. A constant alpha gives the same value in both versions,
 which is why the one-step solution of pure models does not tell them apart. For
-xi = q^2 + 0.05 q^4, which satisfies the criterion, the SPEC version's minimum over 32 steps is
+xi = q^2 + 0.05 q^4, which satisfies the criterion, that version's minimum over 32 steps is
 1.4820897 while ALG = 1.4820407; this version gives ALG to 1e-10.)
 
 Why this form is convenient. P is convex in (B, alpha) jointly: two linear terms plus the integral
