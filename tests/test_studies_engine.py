@@ -69,8 +69,9 @@ def test_sweep_on_two_worker_local_cluster(tmp_path):
 def test_refuses_folder_of_a_different_study(tmp_path, capsys):
     folder = tmp_path / "s"
     Store.open(folder, _spec("0-3"))
+    # dropping seeds is not an extension: refused (adding them is, see the next test)
     with pytest.raises(StudyMismatchError, match="different configuration.*seeds"):
-        Store.open(folder, _spec("0-4"))
+        Store.open(folder, _spec("0-2"))
     code = main(
         [
             "sweep",
@@ -79,14 +80,36 @@ def test_refuses_folder_of_a_different_study(tmp_path, capsys):
             "--n",
             "16,24",
             "--seeds",
-            "0-4",
+            "0-3",
             "--out",
             str(folder),
             "--no-progress",
         ]
     )
-    assert code == 2
-    assert "different configuration" in capsys.readouterr().err
+    assert code == 2  # other methods than the stored study's
+    assert "different configuration (differs in: methods)" in capsys.readouterr().err
+
+
+def test_adding_seeds_and_sizes_extends_a_study_and_runs_only_the_new_tasks(tmp_path):
+    folder = tmp_path / "s"
+    small = spec_from_flags(["3:1"], None, "16,24", "0-1", "gradient")
+    assert run_study(small, folder, workers=1, progress=False).done == 4
+    rows = folder / "rows"
+    before = {p.name: p.read_bytes() for p in rows.glob("*.json")}
+    grown = spec_from_flags(["3:1"], None, "16,24,32", "0-2", "gradient")
+    out = run_study(grown, folder, workers=1, progress=False)
+    assert (out.skipped, out.done, out.failed) == (4, 9 - 4, 0)
+    after = {p.name: p.read_bytes() for p in rows.glob("*.json")}
+    assert all(after[name] == data for name, data in before.items()), "old rows rewritten"
+    meta = json.loads((folder / "study.json").read_text())
+    assert meta["config"]["seeds"] == [0, 1, 2] and meta["config"]["sizes"] == [16, 24, 32]
+    assert meta["extended"][0]["from"] == {"seeds": [0, 1], "sizes": [16, 24]}
+    assert len(Store(folder, grown).rows()) == 9
+    # the report reads the grown study: every size, every seed
+    from orthoclimb.studies.report import build_report
+
+    counts = {g["n"]: g["count"] for g in build_report(folder).groups}
+    assert counts == {16: 3, 24: 3, 32: 3}
 
 
 def test_an_instance_larger_than_memory_is_refused_before_anything_starts(tmp_path, capsys):
@@ -265,3 +288,43 @@ def test_a_row_of_another_study_with_the_same_names_is_refused(tmp_path, other):
     store.row_path(task.task_id).unlink()
     assert store.write_row({"task_id": task.task_id, **row})
     assert [r["task_id"] for r in store.rows()] == [task.task_id]
+
+
+def test_ctrl_c_stops_the_sweep_without_worker_tracebacks(tmp_path):
+    # Ctrl-C in a terminal sends SIGINT to the whole process group (POSIX job control), so the
+    # worker processes get it too; they used to die printing ~70 lines of tracebacks. Only the
+    # sweep's one-line message may remain, with the shell's status for SIGINT (128 + 2).
+    folder = tmp_path / "s"
+    cmd = [sys.executable, "-m", "orthoclimb", "sweep", "--gammas", "3:1", "--n", "40,60"]
+    cmd += ["--seeds", "0-199", "--methods", "hessian", "--steps", "30", "--workers", "2"]
+    cmd += ["--out", str(folder), "--no-progress", "--no-report"]
+    proc = subprocess.Popen(
+        cmd, stdout=subprocess.DEVNULL, stderr=subprocess.PIPE, start_new_session=True, text=True
+    )
+    rows = folder / "rows"
+    deadline = time.time() + 120
+    try:
+        while time.time() < deadline:
+            if rows.is_dir() and len(list(rows.glob("*.json"))) >= 2:
+                break
+            assert proc.poll() is None, "sweep finished or died before the interrupt"
+            time.sleep(0.05)
+        else:
+            pytest.fail("no rows appeared within 120 s")
+        os.killpg(proc.pid, signal.SIGINT)
+        _, err = proc.communicate(timeout=60)
+    finally:
+        if proc.poll() is None:
+            os.killpg(proc.pid, signal.SIGKILL)
+    assert proc.returncode == 130, err
+    assert "Traceback" not in err and "KeyboardInterrupt" not in err, err
+    assert err.strip() == "orthoclimb sweep: interrupted"
+
+
+def test_no_progress_bar_when_stderr_is_not_a_terminal(tmp_path, capsys):
+    # common practice (tqdm's disable=None): a bar redrawn into a log file is noise; the
+    # captured stderr here is not a terminal, so without --no-progress there is still no bar
+    args = ["sweep", "--gammas", "2:1", "--n", "8,10", "--seeds", "0-1", "--methods", "gradient"]
+    assert main([*args, "--workers", "1", "--out", str(tmp_path / "s"), "--no-report"]) == 0
+    err = capsys.readouterr().err
+    assert "task/s" not in err and "%|" not in err and "it/s" not in err, err

@@ -180,7 +180,9 @@ def run(args: argparse.Namespace) -> int:
     from tqdm import tqdm
 
     total = steps - 1 if args.method == "hessian" else steps
-    bar = tqdm(total=total, disable=quiet, unit="step", leave=False)
+    bar = tqdm(
+        total=total, disable=True if quiet else None, unit="step", leave=False
+    )  # None: tty only
 
     def progress(row: dict[str, Any]) -> None:
         bar.update(1)

@@ -7,7 +7,8 @@
 
 Before it starts it prints the number of tasks, the memory of the largest instance and a rough
 time estimate; a progress bar shows done / running / failed and the time left. Each result is
-written as it arrives; rerunning the same command skips completed tasks. At the end the report
+written as it arrives; rerunning the same command skips completed tasks, and rerunning it with
+more seeds or sizes extends the study (only the new tasks run). At the end the report
 (``orthoclimb report``) is written into the folder. Energies are per spin, maximized.
 """
 
@@ -53,7 +54,11 @@ def add_engine_arguments(parser: argparse.ArgumentParser) -> None:
     parser.add_argument(
         "--timeout", type=float, default=20.0, help="seconds to reach the scheduler (default 20)"
     )
-    parser.add_argument("--no-progress", action="store_true", help="no progress bar")
+    parser.add_argument(
+        "--no-progress",
+        action="store_true",
+        help="no progress bar (there is none anyway when stderr is not a terminal, e.g. a log)",
+    )
 
 
 def add_arguments(parser: argparse.ArgumentParser) -> None:

@@ -15,8 +15,10 @@ Every file is written atomically (orthoclimb.fileio: temporary file, fsync, os.r
 killed sweep leaves only complete files; a row file, once written, is never rewritten. Reading a
 row checks its checksum and that it describes the task its name says (mixture, method, n,
 seed); rows written before rows were sealed (plain objects) are read without a checksum. Rerunning
-the same configuration skips the tasks whose row exists; a *different* configuration in the same
-folder is refused (:class:`StudyMismatchError`) rather than mixing two studies.
+the same configuration skips the tasks whose row exists. A configuration that only adds seeds
+and/or sizes extends the study: study.json gets the new configuration (and an "extended" list
+of what it grew from) and only the new tasks run. Any other change in the same folder is refused
+(:class:`StudyMismatchError`) rather than mixing two studies.
 """
 
 from __future__ import annotations
@@ -57,6 +59,33 @@ def _canonical(data: Any) -> str:
 def _differences(old: dict, new: dict) -> list[str]:
     keys = sorted(set(old) | set(new))
     return [k for k in keys if _canonical(old.get(k)) != _canonical(new.get(k))]
+
+
+_GROWABLE = ("seeds", "sizes")
+
+
+def _grows(old: dict, new: dict, diff: list[str]) -> bool:
+    """Whether ``new`` only adds seeds and/or sizes to ``old``: every completed row stays a task
+    of the new study (task ids depend on mixture, method, options, n, seed and dtype only)."""
+    if not set(diff) <= set(_GROWABLE):
+        return False
+    try:
+        return all(set(old[k]) <= set(new[k]) for k in _GROWABLE)
+    except (KeyError, TypeError):
+        return False
+
+
+def _record_growth(meta: Path, config: dict) -> None:
+    """Rewrite study.json (atomically) with the grown configuration, keeping its creation time
+    and listing each extension with the seeds and sizes it started from."""
+    data = json.loads(meta.read_text(encoding="utf-8"))
+    old = data["config"]
+    history = data.get("extended", [])
+    if not isinstance(history, list):
+        history = []
+    stamp = datetime.now(timezone.utc).isoformat(timespec="seconds")
+    history.append({"at": stamp, "from": {k: old.get(k) for k in _GROWABLE}})
+    write_json_atomic(meta, {**data, "config": config, "extended": history})
 
 
 def read_config(folder: str | os.PathLike) -> StudySpec:
@@ -153,11 +182,14 @@ class Store:
                     f"{str(meta)!r} is not a readable study configuration; use another --out folder"
                 ) from None
             diff = _differences(old, json.loads(_canonical(config)))
-            if diff:
+            if diff and _grows(old, config, diff):
+                _record_growth(meta, config)
+            elif diff:
                 raise StudyMismatchError(
                     f"the folder {str(folder)!r} holds a study with a different configuration "
                     f"(differs in: {', '.join(diff)}); refusing to mix two studies. Use another "
-                    "--out folder, or rerun with the same configuration to resume"
+                    "--out folder, rerun with the same configuration to resume, or add seeds or "
+                    "sizes (keeping the old ones) to extend it"
                 )
         else:
             if folder.exists() and any(p.name != ".DS_Store" for p in folder.iterdir()):
