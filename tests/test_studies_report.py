@@ -8,6 +8,7 @@ import math
 import numpy as np
 import pytest
 
+from orthoclimb import Mixture
 from orthoclimb.cli import main
 from orthoclimb.studies.engine import run_study
 from orthoclimb.studies.extrapolate import extrapolate
@@ -326,3 +327,55 @@ def test_poor_fit_flag_follows_chi2_per_degree_of_freedom(tmp_path):
         tmp_path / "bad", text_sizes, lambda n, s: 1.6 - n ** (-1 / 3) + 0.002 * noise[(n, s)]
     )
     assert "law fits poorly" in build_report(tmp_path / "bad").findings[-1]
+
+
+def test_profile_says_its_size_first_and_estimates_each_next_size(tmp_path, capsys):
+    # exact: pure p = 3 at n = 60 has C(62, 3) = 37820 coefficients; the guess for the next
+    # size is this size's wall time times the ratio of coefficient counts
+    seen = []
+    from orthoclimb.studies.profile import profile_kernels
+
+    profile_kernels(Mixture.parse("3:1"), [60, 30], 1, lambda *a: seen.append(a))
+    (row30, nxt, guess), (row60, last, none) = seen
+    assert (row30["n"], nxt, row60["n"], last, none) == (30, 60, 60, None, None)
+    assert guess == pytest.approx(row30["wall"] * math.comb(62, 3) / math.comb(32, 3))
+    args = ["profile", "--gammas", "3:1", "--n", "30,60", "--repeats", "1"]
+    assert main([*args, "--out", str(tmp_path / "p")]) == 0
+    err = capsys.readouterr().err
+    assert err.index("holds 37,820 coefficients") < err.index("n = 30: done")
+    assert "next n = 60: about" in err
+
+
+def test_profile_explains_a_slope_above_the_degree(tmp_path, capsys, monkeypatch):
+    # synthetic timings: n^3 throughout, except that the Hessian's time per coefficient
+    # doubles between the two largest sizes (the step of a cache): b = 4 there, above P = 3
+    import orthoclimb.studies.profile as profile_module
+    from orthoclimb.studies.profile import KERNELS, fit_exponents
+
+    def fake(mixture, sizes, repeats, on_size=None):
+        rows = []
+        for n in sorted(sizes):
+            t = {k: 1e-9 * n**3 for k in (*KERNELS, "sample")}
+            if n == max(sizes):
+                t["hessian"] *= 2
+            per = {k: 1e9 * t[k] / n**3 for k in t}
+            rows.append({"n": n, "coefficients": n**3, **t, "ns_per_coefficient": per})
+        fit, pair = fit_exponents(rows)
+        return {
+            "mixture": "3:1.0",
+            "max_degree": 3,
+            "threads": 1,
+            "rows": rows,
+            "exponents": fit,
+            "exponents_largest_pair": pair,
+        }
+
+    monkeypatch.setattr(profile_module, "profile_kernels", fake)
+    monkeypatch.setattr(
+        profile_module, "write_profile", lambda prof, out: {"json": "j", "plot": "p"}
+    )
+    assert main(["profile", "--gammas", "3:1", "--n", "100,200,400", "--out", str(tmp_path)]) == 0
+    out = capsys.readouterr().out
+    assert "b above P between n = 200 and 400 (hessian)" in out
+    assert "hessian 1 -> 2 ns" in out
+    assert "energy," not in out.split("b above P")[1]  # only the kernel whose slope is above

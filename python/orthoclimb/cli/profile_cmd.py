@@ -10,6 +10,7 @@ from __future__ import annotations
 
 import argparse
 import json
+import sys
 
 __all__ = ["add_arguments", "run"]
 
@@ -27,12 +28,17 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
     parser.add_argument("--json", action="store_true", help="print JSON")
 
 
+def _stderr(text: str) -> None:
+    print(text, file=sys.stderr, flush=True)
+
+
 def run(args: argparse.Namespace) -> int:
     from ..fileio import ensure_folder
-    from ..model import Mixture
+    from ..model import Mixture, available_memory, estimate_memory
+    from ..model.memory import format_bytes
     from ..runtime import set_num_threads
     from ..studies.grid import parse_sizes
-    from ..studies.profile import KERNELS, profile_kernels, write_profile
+    from ..studies.profile import KERNELS, coefficient_count, profile_kernels, write_profile
 
     mix = Mixture.parse(
         args.gammas if args.gammas is not None else args.xi, squared=args.xi is not None
@@ -40,8 +46,29 @@ def run(args: argparse.Namespace) -> int:
     if args.threads is not None:
         set_num_threads(args.threads)
     sizes = parse_sizes(args.sizes)
+    if len(sizes) < 2:
+        raise ValueError("profile needs at least 2 sizes to fit an exponent")
     ensure_folder(args.out)  # before the timings: a bad --out fails at once
-    prof = profile_kernels(mix, sizes, args.repeats)
+    say = _stderr if not args.json else lambda _text: None
+    biggest = max(sizes)
+    need = estimate_memory(mix, biggest)
+    growth = coefficient_count(mix, biggest) / coefficient_count(mix, min(sizes))
+    say(
+        f"profile: n = {', '.join(map(str, sorted(sizes)))}; the largest instance (n = {biggest})"
+        f" holds {coefficient_count(mix, biggest):,} coefficients, {format_bytes(need)} of"
+        f" {format_bytes(available_memory())} available; each size is sampled once and each"
+        f" kernel timed {args.repeats} time(s). Time grows like the coefficient count: the"
+        f" largest size has {growth:.3g} times the smallest's; an estimate for each next size"
+        " follows the one before."
+    )
+
+    def progress(row, nxt, guess) -> None:
+        text = f"n = {row['n']}: done in {row['wall']:.3g} s"
+        if nxt is not None:
+            text += f"; next n = {nxt}: about {guess:.2g} s"
+        say(text)
+
+    prof = profile_kernels(mix, sizes, args.repeats, on_size=progress)
     files = write_profile(prof, args.out)
     if args.json:
         print(json.dumps({**prof, "files": files}, indent=2))
@@ -71,5 +98,15 @@ def run(args: argparse.Namespace) -> int:
         )
     else:
         print()
+    above = [k for k in KERNELS if prof["exponents_largest_pair"][k] > p + 0.5]
+    if above:
+        lo, hi = prof["rows"][-2]["ns_per_coefficient"], prof["rows"][-1]["ns_per_coefficient"]
+        print(
+            f"b above P between n = {big[0]} and {big[1]} ({', '.join(above)}): the time per"
+            " coefficient rose ("
+            + ", ".join(f"{k} {lo[k]:.3g} -> {hi[k]:.3g} ns" for k in above)
+            + "), as when the coefficients outgrow a cache and the pass becomes bound by memory"
+            " bandwidth; once both sizes are past it the slope returns to P"
+        )
     print(f"wrote {files['json']} and {files['plot']}")
     return 0

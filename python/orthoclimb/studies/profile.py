@@ -16,7 +16,7 @@ from __future__ import annotations
 
 import math
 import time
-from collections.abc import Sequence
+from collections.abc import Callable, Sequence
 from pathlib import Path
 from typing import Any
 
@@ -24,7 +24,7 @@ import numpy as np
 
 from ..fileio import save_figure_atomic, write_json_atomic
 
-__all__ = ["KERNELS", "fit_exponents", "plot_profile", "profile_kernels"]
+__all__ = ["KERNELS", "coefficient_count", "fit_exponents", "plot_profile", "profile_kernels"]
 
 KERNELS = ("energy", "energy_and_gradient", "hvp", "hessian")
 
@@ -39,8 +39,17 @@ def best_time(fn, repeats: int = 2) -> float:
     return out
 
 
-def profile_kernels(mixture: Any, sizes: Sequence[int], repeats: int = 3) -> dict[str, Any]:
-    """Time the kernels of ``mixture`` at each n in ``sizes``; fit exponents (module doc)."""
+def profile_kernels(
+    mixture: Any,
+    sizes: Sequence[int],
+    repeats: int = 3,
+    on_size: Callable[[dict[str, Any], int | None, float | None], Any] | None = None,
+) -> dict[str, Any]:
+    """Time the kernels of ``mixture`` at each n in ``sizes``; fit exponents (module doc).
+
+    ``on_size(row, next_n, next_seconds)`` is called after each size with its row, the next
+    size (None after the last) and a guess of the next size's seconds: this size's wall time
+    scaled by the ratio of coefficient counts (the passes stream every coefficient)."""
     from ..model import Hamiltonian, estimate_memory
     from ..model.memory import require_memory
     from ..runtime import get_num_threads
@@ -50,7 +59,8 @@ def profile_kernels(mixture: Any, sizes: Sequence[int], repeats: int = 3) -> dic
     if repeats < 1:
         raise ValueError(f"--repeats must be >= 1, got {repeats}")
     rows = []
-    for n in sorted(sizes):  # rows in increasing n, whatever the order given
+    order = sorted(sizes)  # rows in increasing n, whatever the order given
+    for i, n in enumerate(order):
         need = estimate_memory(mixture, n)
         require_memory(need, f"an instance with n = {n}")
         t = time.perf_counter()
@@ -72,6 +82,14 @@ def profile_kernels(mixture: Any, sizes: Sequence[int], repeats: int = 3) -> dic
         }
         rows.append(row)
         del ham
+        row["wall"] = time.perf_counter() - t  # sampling and every timed repeat
+        if on_size is not None:
+            wall = row["wall"]
+            nxt = order[i + 1] if i + 1 < len(order) else None
+            guess = None
+            if nxt is not None:
+                guess = wall * coefficient_count(mixture, nxt) / row["coefficients"]
+            on_size(row, nxt, guess)
     exponents, last_pair = fit_exponents(rows)
     return {
         "mixture": mixture.to_text(),
@@ -82,6 +100,11 @@ def profile_kernels(mixture: Any, sizes: Sequence[int], repeats: int = 3) -> dic
         "exponents_largest_pair": last_pair,
         "units": "wall seconds per pass; exponent b of t ~ n^b; ns per coefficient",
     }
+
+
+def coefficient_count(mixture: Any, n: int) -> int:
+    """N(n) = sum_p C(n+p-1, p) over the mixture's degrees (exact)."""
+    return sum(math.comb(n + p - 1, p) for p in mixture.degrees)
 
 
 def fit_exponents(rows: Sequence[dict[str, Any]]) -> tuple[dict[str, float], dict[str, float]]:
