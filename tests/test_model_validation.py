@@ -125,7 +125,7 @@ def test_available_memory_reads_meminfo_in_kibibytes():
         pytest.skip("no MemAvailable in /proc/meminfo on this system")
     for _attempt in range(10):
         before = _mem_available_from_proc()
-        got = memory.available_memory()
+        got = memory.machine_available_memory()
         after = _mem_available_from_proc()
         if abs(after - before) <= 0.002 * before:
             break
@@ -151,7 +151,7 @@ def test_available_memory_parses_a_given_meminfo(monkeypatch):
         return io.StringIO(text)
 
     monkeypatch.setattr(memory, "open", fake_open, raising=False)
-    assert memory.available_memory() == 12345678 * 1024
+    assert memory.machine_available_memory() == 12345678 * 1024
 
 
 def test_storage_beyond_address_space_is_an_error_not_an_abort():

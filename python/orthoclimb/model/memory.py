@@ -13,6 +13,7 @@ import numpy as np
 
 from .. import _core
 from ..errors import InsufficientMemoryError
+from .cgroup_memory import cgroup_headroom
 from .mixture import Mixture
 
 DTYPES = {"float64": 8, "float32": 4}
@@ -50,6 +51,15 @@ def check_size(n: object) -> int:
 
 
 def available_memory() -> int:
+    """Bytes available for new allocations: what the kernel reports for the machine
+    (MemAvailable on Linux), or the headroom under this process's cgroup memory limit when
+    that is smaller (a batch job's or container's limit; see ``cgroup_memory``)."""
+    machine = machine_available_memory()
+    room = cgroup_headroom()
+    return machine if room is None else min(machine, room)
+
+
+def machine_available_memory() -> int:
     """Bytes the kernel reports as available for new allocations (MemAvailable on Linux)."""
     try:
         with open("/proc/meminfo", encoding="ascii") as fh:
