@@ -393,7 +393,9 @@ def _markdown(rep: Report) -> str:
         "",
         "Energies are per spin, H(x)/n on the unit sphere, maximized. Mean over seeds and its "
         "standard error s.e. = sd/sqrt(count). Extrapolation: weighted least squares of the "
-        f"mean in n^(-{_exp_text(rep)}), {lvl}% bootstrap interval over seeds; "
+        f"mean in n^(-{_exp_text(rep)}) (by default k = 2/3, the scale on which the top of a "
+        "random spectrum fluctuates (Tracy-Widom); for an optimizer's energy a working "
+        f"assumption), {lvl}% bootstrap interval over seeds; "
         "z = (e_inf - theory)/s.e.(e_inf). The interval is statistical only; the last column "
         "gives e_inf under other exponents of the law, to show how much the choice of law "
         "moves it. Head-to-head comparisons pair the methods seed by seed: on each instance "
