@@ -347,3 +347,24 @@ def test_lanczos_tolerance_is_delta_n_over_the_eigenvalue_bound(monkeypatch):
         i += 1
     assert len(accepted) == steps - 1
     np.testing.assert_allclose(np.array(accepted) / n, res.path["eigenvalue"][:-1], rtol=1e-12)
+
+
+@pytest.mark.parametrize("gammas", [{3: 1.0}, {2: 1.0, 4: 0.25}, {1: 0.3, 3: 1.0}])
+def test_no_step_needs_a_second_lanczos_solve(monkeypatch, gammas):
+    # the tolerance of each solve comes from a bound on |theta| that includes the predicted
+    # edge's growth 2 sqrt(xi''(q)) to the next q (Subag 2018); for pure 3-spin the edge grows
+    # by sqrt(2) from the first step to the second, beyond the fixed 25 % headroom, and that
+    # step used to be solved twice in every run
+    import orthoclimb.algorithms._eigen as eigen_module
+
+    real_eigsh = eigen_module.eigsh
+    calls = []
+
+    def counting_eigsh(*args, **kwargs):
+        calls.append(kwargs["tol"])
+        return real_eigsh(*args, **kwargs)
+
+    monkeypatch.setattr(eigen_module, "eigsh", counting_eigsh)
+    ham = oc.Hamiltonian.sample(oc.Mixture(gammas), 60, seed=0)
+    oc.hessian_ascent(ham, steps=15, seed=1, polish=False, hessian="dense")
+    assert len(calls) == 15 - 1  # one solve per move, none repeated

@@ -73,6 +73,7 @@ from threadpoolctl import threadpool_limits
 
 from ..model.hamiltonian import Hamiltonian
 from ..model.memory import available_memory
+from ..model.mixture import Mixture
 from ..theory import algorithmic_energy, algorithmic_threshold, hessian_edge, path_energy
 from ._checks import (
     check_count,
@@ -129,6 +130,15 @@ def _choose_mode(ham: Hamiltonian, mode: str) -> str:
 def _tangent_operator(ham: Hamiltonian, x: np.ndarray, basis: TangentBasis) -> LinearOperator:
     """B^T Hess H(x) B on the tangent coordinates, one HVP pass per product."""
     return basis.restrict_operator(lambda v: ham.hvp(x, v))
+
+
+def _edge_growth(mixture: Mixture | None, q: float, q_next: float) -> float:
+    """hessian_edge(q_next) / hessian_edge(q), at least 1 (1 without a mixture or edge)."""
+    if mixture is None:
+        return 1.0
+    now = float(hessian_edge(mixture, min(q, 1.0)))
+    later = float(hessian_edge(mixture, min(q_next, 1.0)))
+    return max(1.0, later / now) if now > 0.0 else 1.0
 
 
 def _first_stage(ham: Hamiltonian, q_hat: float, max_iter: int) -> tuple[np.ndarray, dict]:
@@ -267,8 +277,11 @@ def hessian_ascent(
             t_eig = time.perf_counter() - t2
             fallbacks += fell_back
             # headroom: the edge grows along the path, and the next tolerance must come from a
-            # bound on the next |theta|, or the re-solve above would run at every step
-            theta_scale = max(_SCALE_HEADROOM * abs(theta), 1e-12 * n)
+            # bound on the next |theta|, or the re-solve above would run at every step. The
+            # predicted edge 2 sqrt(xi''(q)) grows fastest early (x sqrt 2 from the first to the
+            # second step of a pure 3-spin path), so its growth to the next q is added.
+            growth = _edge_growth(mixture, float(x @ x), float(x @ x) + eps * eps)
+            theta_scale = max(_SCALE_HEADROOM * growth * abs(theta), 1e-12 * n)
             first = float(grad @ v)
             if first < 0.0:
                 v, first = -v, -first
