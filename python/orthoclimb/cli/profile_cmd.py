@@ -46,9 +46,9 @@ def run(args: argparse.Namespace) -> int:
     if args.threads is not None:
         set_num_threads(args.threads)
     sizes = parse_sizes(args.sizes)
+    ensure_folder(args.out)  # before the timings: a bad --out fails at once
     if len(sizes) < 2:
         raise ValueError("profile needs at least 2 sizes to fit an exponent")
-    ensure_folder(args.out)  # before the timings: a bad --out fails at once
     say = _stderr if not args.json else lambda _text: None
     biggest = max(sizes)
     need = estimate_memory(mix, biggest)
