@@ -379,3 +379,26 @@ def test_profile_explains_a_slope_above_the_degree(tmp_path, capsys, monkeypatch
     assert "b above P between n = 200 and 400 (hessian)" in out
     assert "hessian 1 -> 2 ns" in out
     assert "energy," not in out.split("b above P")[1]  # only the kernel whose slope is above
+
+
+def test_report_fits_the_cost_of_a_run_against_n(tmp_path):
+    # exact identity: medians of t = c n^3 (1 + s/100) over seeds s are c' n^3, so the
+    # least-squares slope of log t on log n is 3 (numpy.polyfit on exact data); rows without
+    # a time (older studies) are left out, not counted as zero
+    spec = spec_from_flags(["3:1"], None, "20,40,80", "0-4", "gradient")
+    store = Store.open(tmp_path / "c", spec)
+    for t in spec.tasks():
+        row = {"task_id": t.task_id, "mixture": t.mixture.name, "method": t.method.name}
+        row.update(n=t.n, seed=t.seed, energy=1.5 + 0.01 * t.seed - t.n ** (-2 / 3))
+        if t.seed < 4:
+            row.update(seconds_run=2e-9 * t.n**3 * (1 + t.seed / 100), seconds_sample=1e-3)
+        store.write_row(row)
+    rep = build_report(tmp_path / "c")
+    (cost,) = rep.cost
+    assert cost["sizes"] == [20, 40, 80] and cost["count"] == [4, 4, 4]
+    assert cost["exponent"] == pytest.approx(3.0, abs=1e-12)
+    assert cost["median_seconds_run"][0] == pytest.approx(2e-9 * 20**3 * 1.015)
+    assert cost["max_degree"] == 3
+    assert "a run's median time grows like n^3.00 over n = 20..80" in "\n".join(rep.findings)
+    write_report(tmp_path / "c", plots=False)
+    assert "## Cost" in (tmp_path / "c" / "report.md").read_text()

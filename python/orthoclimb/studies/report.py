@@ -14,6 +14,9 @@ at the same point: runs within ``TIE_RELATIVE`` GS of each other are ties, count
 left out of the sign test. Beside each e_inf the report gives its value under the exponents
 ``OTHER_LAWS``: the interval covers the noise of the means, not the choice of law.
 
+The cost of the runs (median wall seconds per task at each n and the exponent b of t ~ n^b,
+:mod:`.cost`) closes the report.
+
 Files written into the study folder (atomically): ``report.md``, ``report.json``,
 ``energy_vs_n.png`` (mean +- s vs n^(-k), fitted lines, ALG and GS lines, e_inf with its
 interval at n^(-k) = 0) and ``distribution.png`` (energies over seeds at each n).
@@ -31,6 +34,7 @@ from typing import Any
 import numpy as np
 
 from ..fileio import save_figure_atomic, write_json_atomic, write_text_atomic
+from .cost import cost_markdown, cost_table
 from .extrapolate import Extrapolation, e_inf_under, extrapolate
 from .grid import StudySpec
 from .store import Store, read_config
@@ -59,6 +63,7 @@ class Report:
     findings: list[str]
     missing: int
     files: dict[str, str] = field(default_factory=dict)
+    cost: list[dict[str, Any]] = field(default_factory=list)
 
     def table(self) -> str:
         """Plain-text table for the terminal."""
@@ -101,6 +106,7 @@ class Report:
             "theory": self.theory,
             "findings": self.findings,
             "missing_tasks": self.missing,
+            "cost": self.cost,
             "files": self.files,
             "units": "energy per spin H(x)/n on the unit sphere, maximization",
         }
@@ -198,7 +204,8 @@ def build_report(
             ]
             fits.append(entry)
     missing = len(spec.tasks()) - len(rows)
-    rep = Report(spec, groups, fits, theory, [], missing)
+    degrees = {m.name: m.mixture.max_degree for m in spec.mixtures}
+    rep = Report(spec, groups, fits, theory, [], missing, cost=cost_table(rows, degrees))
     rep.findings = _findings(rep, _by_seed(rows))
     return rep
 
@@ -380,6 +387,14 @@ def _findings(rep: Report, seeds: dict) -> list[str]:
                     f"{mix}, n = {n}: {a} - {b} = {diff:+.4f} per spin, not distinguishable in "
                     f"the mean over {len(both)} paired seeds ({z:+.1f} s.e.); {sign}."
                 )
+    for c in rep.cost:
+        if c["exponent"] is not None:
+            ends = c["median_seconds_run"]
+            out.append(
+                f"{c['mixture']}, {c['method']}: a run's median time grows like "
+                f"n^{c['exponent']:.2f} over n = {c['sizes'][0]}..{c['sizes'][-1]} "
+                f"({ends[0]:.3g} s to {ends[-1]:.3g} s; largest degree P = {c['max_degree']})."
+            )
     if rep.missing:
         out.append(f"{rep.missing} task(s) of the study have no result yet; rerun the sweep.")
     return out
@@ -442,6 +457,8 @@ def _markdown(rep: Report) -> str:
             + " |"
         )
     lines += [
+        "",
+        *cost_markdown(rep.cost),
         "",
         "## Per size",
         "",

@@ -1,0 +1,80 @@
+"""What a study's runs cost: wall seconds per task against n, and the exponent b of t ~ n^b.
+
+For each (mixture, method) and size: the median over seeds of ``seconds_run`` (the method's
+wall time, sampling excluded) and of ``seconds_sample``. With two sizes or more, b is the slope
+of the least-squares line log t = log c + b log n through the medians (``numpy.polyfit``).
+A kernel pass reads every coefficient, N(n) ~ n^P/P!, so P (the largest degree) is the
+reference: a method making a fixed number of passes has b near P once n is large; Hessian
+ascent, with K ~ n/8 steps of a Hessian pass each plus Lanczos, grows faster (about P + 1),
+while per-call overheads and caches pull b down at small n. Times are wall seconds of the
+workers, so they also carry the machine's load during the sweep.
+"""
+
+from __future__ import annotations
+
+import math
+from collections import defaultdict
+from typing import Any
+
+import numpy as np
+
+__all__ = ["cost_table", "cost_markdown"]
+
+
+def cost_table(rows: list[dict[str, Any]], max_degree: dict[str, int]) -> list[dict[str, Any]]:
+    """One entry per (mixture, method): sizes, median seconds per size, the exponent b (None
+    with one size) and the mixture's largest degree P."""
+    acc: dict[tuple[str, str], dict[int, list[tuple[float, float]]]] = defaultdict(
+        lambda: defaultdict(list)
+    )
+    for r in rows:
+        run, sample = r.get("seconds_run"), r.get("seconds_sample")
+        if not isinstance(run, (int, float)) or not math.isfinite(run) or run <= 0:
+            continue  # a row without a usable time (older rows): left out
+        if not isinstance(sample, (int, float)) or not math.isfinite(sample):
+            sample = math.nan
+        acc[(r["mixture"], r["method"])][int(r["n"])].append((float(run), float(sample)))
+    out = []
+    for (mix, method), by_n in acc.items():
+        sizes = sorted(by_n)
+        run = [float(np.median([t for t, _ in by_n[n]])) for n in sizes]
+        sample = [float(np.median([s for _, s in by_n[n]])) for n in sizes]
+        b = None
+        if len(sizes) >= 2:
+            b = float(np.polyfit(np.log(sizes), np.log(run), 1)[0])
+        out.append(
+            {
+                "mixture": mix,
+                "method": method,
+                "sizes": sizes,
+                "median_seconds_run": run,
+                "median_seconds_sample": sample,
+                "count": [len(by_n[n]) for n in sizes],
+                "exponent": b,
+                "max_degree": max_degree.get(mix),
+            }
+        )
+    return out
+
+
+def cost_markdown(cost: list[dict[str, Any]]) -> list[str]:
+    """The report's "Cost" section (Markdown lines)."""
+    lines = [
+        "## Cost",
+        "",
+        "Median wall seconds per task over seeds (the method's run; sampling apart), and the "
+        "exponent b of t ~ n^b through the medians; P is the largest degree (one kernel pass "
+        "reads ~n^P/P! coefficients).",
+        "",
+        "| mixture | method | n | median s (run) | median s (sample) | b | P |",
+        "| --- | --- | ---: | ---: | ---: | ---: | ---: |",
+    ]
+    for c in cost:
+        b = "--" if c["exponent"] is None else f"{c['exponent']:.2f}"
+        for i, n in enumerate(c["sizes"]):
+            lines.append(
+                f"| {c['mixture']} | {c['method']} | {n} | {c['median_seconds_run'][i]:.3g} | "
+                f"{c['median_seconds_sample'][i]:.3g} | {b if i == 0 else ''} | "
+                f"{c['max_degree'] if i == 0 else ''} |"
+            )
+    return lines
