@@ -328,3 +328,26 @@ def test_no_progress_bar_when_stderr_is_not_a_terminal(tmp_path, capsys):
     assert main([*args, "--workers", "1", "--out", str(tmp_path / "s"), "--no-report"]) == 0
     err = capsys.readouterr().err
     assert "task/s" not in err and "%|" not in err and "it/s" not in err, err
+
+
+def test_every_unusable_row_is_named_in_one_error(tmp_path):
+    # a user fixing a damaged folder should see all of it at once, not one file per run
+    folder = tmp_path / "s"
+    spec = spec_from_flags(["3:1"], None, "16,24", "0-5", "gradient")
+    store = Store.open(folder, spec)
+    for t in spec.tasks():
+        row = {"task_id": t.task_id, "mixture": t.mixture.name, "method": t.method.name}
+        store.write_row({**row, "n": t.n, "seed": t.seed, "energy": 1.0})
+    broken = sorted((folder / "rows").glob("*.json"))[:3]
+    for path in broken:
+        path.write_text(path.read_text().replace('"energy": 1.0', '"energy": 2.0'))
+    with pytest.raises(ValueError, match="3 row files of the study cannot be used") as err:
+        store.rows()
+    for path in broken:
+        assert str(path) in str(err.value)
+    broken[0].write_text("{")  # and a single bad file keeps its own message
+    for path in broken[1:]:
+        path.unlink()
+    with pytest.raises(ValueError, match="delete it and rerun the sweep") as err:
+        store.rows()
+    assert "row files of the study" not in str(err.value)

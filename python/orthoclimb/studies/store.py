@@ -153,6 +153,18 @@ def _read_row(path: Path) -> dict[str, Any]:
     return row
 
 
+def _checked_row(path: Path, task: Any) -> dict[str, Any]:
+    """The row of ``task`` from ``path``, checked to describe that task."""
+    row = _read_row(path)
+    want = {"mixture": task.mixture.name, "method": task.method.name, "n": task.n}
+    want["seed"] = task.seed
+    wrong = [k for k, v in want.items() if row[k] != v]
+    if wrong:
+        k = wrong[0]
+        raise _redo(path, f"has {k} = {row[k]!r}, but its task has {want[k]!r}")
+    return row
+
+
 class Store:
     """A study folder bound to one configuration (see the module doc)."""
 
@@ -264,23 +276,22 @@ class Store:
         return out
 
     def rows(self) -> list[dict[str, Any]]:
-        """Rows of this study's tasks, in task order."""
-        out = []
+        """Rows of this study's tasks, in task order. Every row file is checked before any
+        error is raised, so one error names all the unusable files (up to ten listed)."""
+        out, bad = [], []
         for task in self.spec.tasks():
             path = self.row_path(task.task_id)
             if path.exists():
-                row = _read_row(path)
-                want = {
-                    "mixture": task.mixture.name,
-                    "method": task.method.name,
-                    "n": task.n,
-                    "seed": task.seed,
-                }
-                wrong = [k for k, v in want.items() if row[k] != v]
-                if wrong:
-                    k = wrong[0]
-                    raise _redo(path, f"has {k} = {row[k]!r}, but its task has {want[k]!r}")
-                out.append(row)
+                try:
+                    out.append(_checked_row(path, task))
+                except ValueError as exc:
+                    bad.append(exc)
+        if len(bad) == 1:
+            raise bad[0]
+        if bad:
+            listed = "\n".join(f"  - {e}" for e in bad[:10])
+            more = f"\n  ... and {len(bad) - 10} more" if len(bad) > 10 else ""
+            raise ValueError(f"{len(bad)} row files of the study cannot be used:\n{listed}{more}")
         return out
 
     # -- table ---------------------------------------------------------------------------
