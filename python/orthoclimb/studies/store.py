@@ -13,8 +13,9 @@ Layout of ``STUDY_DIR``::
 
 Every file is written atomically (orthoclimb.fileio: temporary file, fsync, os.replace), so a
 killed sweep leaves only complete files; a row file, once written, is never rewritten. Reading a
-row checks its checksum and that it describes the task its name says (mixture, method, n,
-seed); rows written before rows were sealed (plain objects) are read without a checksum. Rerunning
+row checks its checksum and that it describes the task its name says: the task id inside must
+be the file name (the id hashes the whole task: mixture, gammas, method, options, n, seed and
+dtype), and its mixture, method, n and seed fields must be that task's; rows written before rows were sealed (plain objects) are read without a checksum. Rerunning
 the same configuration skips the tasks whose row exists. A configuration that only adds seeds
 and/or sizes extends the study: study.json gets the new configuration (and an "extended" list
 of what it grew from) and only the new tasks run. Any other change in the same folder is refused
