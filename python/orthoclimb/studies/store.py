@@ -15,8 +15,9 @@ Every file is written atomically (orthoclimb.fileio: temporary file, fsync, os.r
 killed sweep leaves only complete files; a row file, once written, is never rewritten. Reading a
 row checks its checksum and that it describes the task its name says: the task id inside must
 be the file name (the id hashes the whole task: mixture, gammas, method, options, n, seed and
-dtype), and its mixture, method, n and seed fields must be that task's; rows written before rows were sealed (plain objects) are read without a checksum. Rerunning
-the same configuration skips the tasks whose row exists. A configuration that only adds seeds
+dtype), and its mixture, method, n and seed fields must be that task's. Rows written before
+rows were sealed (plain objects) are read without a checksum. Rerunning the same configuration
+skips the tasks whose row exists. A configuration that only adds seeds
 and/or sizes extends the study: study.json gets the new configuration (and an "extended" list
 of what it grew from) and only the new tasks run. Any other change in the same folder is refused
 (:class:`StudyMismatchError`) rather than mixing two studies.
