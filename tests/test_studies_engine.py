@@ -147,6 +147,17 @@ def test_unreachable_scheduler_is_a_clear_error(tmp_path, capsys):
     assert time.perf_counter() - start < 30
 
 
+def _wait_for_rows(proc: subprocess.Popen, rows, count: int, before: str) -> None:
+    """Wait (at most 120 s) until the sweep in ``proc`` has written ``count`` rows."""
+    deadline = time.time() + 120
+    while time.time() < deadline:
+        if rows.is_dir() and len(list(rows.glob("*.json"))) >= count:
+            return
+        assert proc.poll() is None, f"sweep finished or died before {before}"
+        time.sleep(0.05)
+    pytest.fail("no rows appeared within 120 s")
+
+
 def test_kill_driver_then_resume(tmp_path):
     # the guarantee under test: atomic rows + skip-on-rerun => each task done exactly once
     folder = tmp_path / "s"
@@ -173,15 +184,8 @@ def test_kill_driver_then_resume(tmp_path):
         cmd, stdout=subprocess.DEVNULL, stderr=subprocess.DEVNULL, start_new_session=True
     )
     rows = folder / "rows"
-    deadline = time.time() + 120
     try:
-        while time.time() < deadline:
-            if rows.is_dir() and len(list(rows.glob("*.json"))) >= 3:
-                break
-            assert proc.poll() is None, "sweep finished or died before it could be killed"
-            time.sleep(0.05)
-        else:
-            pytest.fail("no rows appeared within 120 s")
+        _wait_for_rows(proc, rows, 3, "it could be killed")
         os.killpg(proc.pid, signal.SIGKILL)  # the driver and its cluster, abruptly
         proc.wait(timeout=30)
     finally:
@@ -302,15 +306,8 @@ def test_ctrl_c_stops_the_sweep_without_worker_tracebacks(tmp_path):
         cmd, stdout=subprocess.DEVNULL, stderr=subprocess.PIPE, start_new_session=True, text=True
     )
     rows = folder / "rows"
-    deadline = time.time() + 120
     try:
-        while time.time() < deadline:
-            if rows.is_dir() and len(list(rows.glob("*.json"))) >= 2:
-                break
-            assert proc.poll() is None, "sweep finished or died before the interrupt"
-            time.sleep(0.05)
-        else:
-            pytest.fail("no rows appeared within 120 s")
+        _wait_for_rows(proc, rows, 2, "the interrupt")
         os.killpg(proc.pid, signal.SIGINT)
         _, err = proc.communicate(timeout=60)
     finally:
