@@ -402,3 +402,21 @@ def test_report_fits_the_cost_of_a_run_against_n(tmp_path):
     assert "a run's median time grows like n^3.00 over n = 20..80" in "\n".join(rep.findings)
     write_report(tmp_path / "c", plots=False)
     assert "## Cost" in (tmp_path / "c" / "report.md").read_text()
+
+
+def test_ties_are_still_counted_when_the_ground_state_is_unknown(tmp_path, monkeypatch):
+    # the Parisi solver may fail (GS = NaN in the study); the tie width then follows ALG
+    # (ALG <= GS, same scale) instead of becoming NaN and stopping the report
+    import orthoclimb.studies.report as report_module
+
+    monkeypatch.setattr(report_module, "theory_values", lambda gammas: (1.6330, math.nan, False))
+    rng = np.random.default_rng(6)
+    base = {s: 1.6 + 0.02 * rng.standard_normal() for s in range(6)}
+    _synthetic_study(
+        tmp_path / "n",
+        "20,40",
+        lambda n, s, m: base[s] + (1e-14 if m == "hessian" else 0.0),
+        methods="hessian,gradient",
+        seeds="0-5",
+    )
+    assert "stopped at the same point" in build_report(tmp_path / "n").findings[-1]

@@ -360,7 +360,9 @@ def _findings(rep: Report, seeds: dict) -> list[str]:
                 continue
             # paired over seeds: both methods ran on the same instances, from the same seeded
             # random start direction
-            tie = TIE_RELATIVE * abs(rep.theory[mix]["gs"])
+            th = rep.theory[mix]
+            scale = th["gs"] if math.isfinite(th["gs"]) else th["alg"]  # GS is NaN if unsolved
+            tie = TIE_RELATIVE * abs(scale)
             c = paired_comparison([pa_[s] - pb_[s] for s in both], tie)
             diff, z = c["diff"], c["z"]
             if c["nonzero"] == 0:
