@@ -84,3 +84,32 @@ def test_available_memory_is_the_smaller_of_machine_and_cgroup(monkeypatch):
     assert memory.available_memory() == 8 * GiB
     monkeypatch.setattr(memory, "cgroup_headroom", lambda: 2**62)
     assert memory.available_memory() == 8 * GiB
+
+
+def test_a_mount_with_a_non_ascii_path_does_not_hide_the_limit(tmp_path):
+    # mountinfo lists every mount of the machine; one folder named in UTF-8 (or any bytes)
+    # must not make the whole file unreadable
+    mount = tmp_path / "memory"
+    _write(mount / "job", {"memory.limit_in_bytes": f"{GiB}\n", "memory.usage_in_bytes": "0\n"})
+    mountinfo = (
+        "50 31 0:45 / /media/u/Donn\u00e9es rw - ext4 /dev/sdb1 rw\n"
+        f"35 31 0:32 / {mount} rw,relatime - cgroup cgroup rw,memory\n"
+    )
+    proc = tmp_path / "proc"
+    proc.mkdir()
+    (proc / "mountinfo").write_bytes(
+        mountinfo.encode("utf-8") + b"51 31 0:46 / /mnt/\xff rw - x y rw\n"
+    )
+    (proc / "cgroup").write_text("4:memory:/job\n")
+    assert cgroup_headroom(proc) == GiB
+
+
+def test_a_mount_root_matches_whole_path_components_only(tmp_path):
+    # a mount whose root is /job shows /job and below; the process in /jobX is not in it, so
+    # the mount's limit (of /job) must not be applied; /job/a is, at the mount's folder "a"
+    mount = tmp_path / "cg2"
+    _write(mount, {"memory.max": f"{8 * GiB}\n", "memory.current": "0\n"})
+    _write(mount / "a", {"memory.max": f"{2 * GiB}\n", "memory.current": "0\n"})
+    mountinfo = f"30 23 0:26 /job {mount} rw - cgroup2 cgroup2 rw\n"
+    assert cgroup_headroom(_proc(tmp_path, mountinfo, "0::/jobX\n")) is None
+    assert cgroup_headroom(_proc(tmp_path, mountinfo, "0::/job/a\n")) == 2 * GiB

@@ -348,3 +348,11 @@ def test_every_unusable_row_is_named_in_one_error(tmp_path):
     with pytest.raises(ValueError, match="delete it and rerun the sweep") as err:
         store.rows()
     assert "row files of the study" not in str(err.value)
+
+
+def test_the_api_shows_the_bar_when_asked_even_without_a_terminal(tmp_path, capsys):
+    # a notebook's stderr is no terminal: progress=True must still draw the bar (only the
+    # command line asks for "terminal only")
+    spec = spec_from_flags(["2:1"], None, "8,10", "0-1", "gradient")
+    run_study(spec, tmp_path / "s", workers=1, progress=True)
+    assert "task" in capsys.readouterr().err

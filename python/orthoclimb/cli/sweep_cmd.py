@@ -178,7 +178,7 @@ def execute(
         threads=args.threads,
         retries=args.retries,
         timeout=args.timeout,
-        progress=not args.no_progress,
+        progress=None if not args.no_progress else False,  # None: a bar on a terminal only
         on_start=on_start,
     )
     say(

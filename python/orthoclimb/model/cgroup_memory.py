@@ -30,9 +30,11 @@ _V1_UNLIMITED = 2**62
 
 
 def _read(path: Path) -> str | None:
+    # mountinfo lists every mount, whose paths may be any bytes (a "Données" folder): decode
+    # them as the file system does rather than lose the whole file
     try:
-        return path.read_text(encoding="ascii").strip()
-    except (OSError, UnicodeDecodeError):
+        return path.read_text(encoding="utf-8", errors="surrogateescape").strip()
+    except OSError:
         return None
 
 
@@ -93,7 +95,10 @@ def cgroup_headroom(proc: Path = Path("/proc/self")) -> int | None:
         path = paths.get(v2)
         if path is None:
             continue
-        rel = path[len(root) :] if root != "/" and path.startswith(root) else path
+        under = root == "/" or path == root or path.startswith(root.rstrip("/") + "/")
+        if not under:
+            continue  # the process's cgroup is outside what this mount shows
+        rel = path[len(root) :] if root != "/" else path
         folder = mount / rel.lstrip("/")
         if not folder.is_dir():
             folder = mount  # a namespaced container sees its own cgroup at the mount point

@@ -5,8 +5,9 @@ wall time, sampling excluded) and of ``seconds_sample``. With two sizes or more,
 of the least-squares line log t = log c + b log n through the medians (``numpy.polyfit``).
 A kernel pass reads every coefficient, N(n) ~ n^P/P!, so P (the largest degree) is the
 reference: a method making a fixed number of passes has b near P once n is large; Hessian
-ascent, with K ~ n/8 steps of a Hessian pass each plus Lanczos, grows faster (about P + 1),
-while per-call overheads and caches pull b down at small n. Times are wall seconds of the
+ascent takes K = n/8 steps clamped to [25, 200] (a Hessian pass and Lanczos each), so b
+reaches about P + 1 only between n = 200 and 1600, while per-call overheads and caches pull b
+down at small n (the demo measures 1.5-2.2 for it). Times are wall seconds of the
 workers, so they also carry the machine's load during the sweep.
 """
 

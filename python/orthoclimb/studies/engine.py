@@ -148,7 +148,8 @@ def _children_ignore_interrupts():
     Ctrl-C in a terminal signals the whole process group: the workers used to die printing
     about 70 lines of tracebacks while the sweep itself was already stopping them cleanly.
     Now only the sweep sees the interrupt (a worker Dask replaces later does not inherit it).
-    Off the main thread signals cannot be changed, and nothing is done."""
+    A Ctrl-C in the second or two while the cluster starts is lost; the next one stops the
+    sweep. Off the main thread signals cannot be changed, and nothing is done."""
     if threading.current_thread() is not threading.main_thread():
         yield
         return
@@ -229,7 +230,7 @@ def run_study(
     threads: int | None = None,
     retries: int = 2,
     timeout: float = 20.0,
-    progress: bool = True,
+    progress: bool | None = True,
     log: Callable[[str], Any] = print,
     on_start: Callable[[list, WorkerPlan | None], Any] | None = None,
 ) -> SweepOutcome:
@@ -239,6 +240,8 @@ def run_study(
     task (external cluster; default 1). ``retries``: Dask retries per task after an exception.
     ``timeout``: seconds to reach the scheduler. ``on_start(pending, plan)`` is called before
     the cluster starts with the pending tasks (the CLI prints counts and estimates there).
+    ``progress``: a tqdm bar (True), none (False), or one only when stderr is a terminal (None,
+    what the command line uses, so logs get no redrawn bar).
     """
     from tqdm import tqdm
 
@@ -300,7 +303,7 @@ def run_study(
         bar = tqdm(
             total=len(tasks),
             initial=skipped,
-            disable=None if progress else True,  # None: off when stderr is no terminal (logs)
+            disable=None if progress is None else not progress,  # None: a terminal only
             unit="task",
             dynamic_ncols=True,
             smoothing=0.1,
