@@ -160,17 +160,24 @@ def test_paired_comparison_counts_runs_at_the_same_point_as_ties():
         paired_comparison(real, tie=-1.0)
 
 
-def test_findings_report_runs_that_stop_at_the_same_point(tmp_path):
-    rng = np.random.default_rng(1)
-    base = {s: 1.6 + 0.02 * rng.standard_normal() for s in range(10)}
-    # hessian above gradient by rounding only (1e-14) on every seed: no edge, all ties
+def _tied_study(folder, seeds: int) -> dict[int, float]:
+    """Two methods whose energies differ by rounding (1e-14) only, on every seed; returns the
+    gradient energies by seed."""
+    rng = np.random.default_rng(seeds)
+    base = {s: 1.6 + 0.02 * rng.standard_normal() for s in range(seeds)}
     _synthetic_study(
-        tmp_path / "same",
+        folder,
         "20,40",
         lambda n, s, m: base[s] + (1e-14 if m == "hessian" else 0.0),
         methods="hessian,gradient",
-        seeds="0-9",
+        seeds=f"0-{seeds - 1}",
     )
+    return base
+
+
+def test_findings_report_runs_that_stop_at_the_same_point(tmp_path):
+    # hessian above gradient by rounding only (1e-14) on every seed: no edge, all ties
+    base = _tied_study(tmp_path / "same", 10)
     text = build_report(tmp_path / "same").findings[-1]
     assert "stopped at the same point" in text and "on all 10 paired seeds" in text
     assert "ahead" not in text
@@ -410,13 +417,5 @@ def test_ties_are_still_counted_when_the_ground_state_is_unknown(tmp_path, monke
     import orthoclimb.studies.report as report_module
 
     monkeypatch.setattr(report_module, "theory_values", lambda gammas: (1.6330, math.nan, False))
-    rng = np.random.default_rng(6)
-    base = {s: 1.6 + 0.02 * rng.standard_normal() for s in range(6)}
-    _synthetic_study(
-        tmp_path / "n",
-        "20,40",
-        lambda n, s, m: base[s] + (1e-14 if m == "hessian" else 0.0),
-        methods="hessian,gradient",
-        seeds="0-5",
-    )
+    _tied_study(tmp_path / "n", 6)
     assert "stopped at the same point" in build_report(tmp_path / "n").findings[-1]
