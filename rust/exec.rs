@@ -3,7 +3,7 @@
 //!
 //! Every kernel takes an [`Exec`]. The pool fixes the threads; the stop flag lets the caller
 //! end a long call early. Kernels poll the flag between work chunks (a chunk is at most
-//! [`crate::partition::CHUNK`] coefficients, a few milliseconds of work), skip the chunks that
+//! [`crate::partition::CHUNK`] multiply-adds, about a millisecond of work), skip the chunks that
 //! remain once it is set, and return [`CoreError::Interrupted`] instead of a partial result.
 //! The flag is per call, so stopping one call never disturbs another running at the same time.
 //!
