@@ -356,3 +356,22 @@ def test_the_api_shows_the_bar_when_asked_even_without_a_terminal(tmp_path, caps
     spec = spec_from_flags(["2:1"], None, "8,10", "0-1", "gradient")
     run_study(spec, tmp_path / "s", workers=1, progress=True)
     assert "task" in capsys.readouterr().err
+
+
+def test_an_anneal_task_runs_langevin_with_its_options(tmp_path):
+    # the row of a study task equals a direct call with the same instance, seed and schedule
+    # (same code path, so bitwise: the instance and the run are pure functions of the seed)
+    import orthoclimb as oc
+    from orthoclimb.algorithms.baselines import geometric_schedule
+    from orthoclimb.studies.tasks import run_task
+
+    opts = {"steps": 30, "eta": 0.01, "t_start": 0.5, "t_end": 0.05}
+    spec = spec_from_flags(["3:1"], None, "16", "3", "anneal", {"anneal": opts})
+    (task,) = spec.tasks()
+    row = run_task(task, threads=1)
+    ham = oc.Hamiltonian.sample(oc.Mixture({3: 1.0}), 16, seed=3)
+    direct = oc.langevin_anneal(ham, seed=3, schedule=geometric_schedule(0.5, 0.05, 30), eta=0.01)
+    assert row["method"] == "anneal" and row["energy"] == direct.energy
+    assert row["energy_before_polish"] == direct.info["energy_anneal"] <= row["energy"] + 1e-12
+    with pytest.raises(ValueError, match="eta"):
+        spec_from_flags(["3:1"], None, "16", "3", "anneal", {"anneal": {"eta": -1.0}})

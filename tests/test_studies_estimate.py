@@ -137,3 +137,16 @@ def test_gradient_iterations_are_capped_at_150_and_by_max_iter():
         kernel = estimate_from(cal, small, 1, embedded=False)
         kernel -= estimate_from(_cal(), small, 1, embedded=False)
         assert kernel == pytest.approx(iterations * 1.5 * 0.01, rel=1e-12), max_iter
+
+
+def test_anneal_costs_a_pass_per_step_plus_the_polish():
+    # exact arithmetic of the module doc's model: Langevin annealing makes one energy-and-
+    # gradient pass per temperature step, and about 150 more when it polishes
+    cal = _cal(energy_and_gradient=0.01)
+    for steps, polish, passes in ((400, True, 550), (50, False, 50)):
+        method = MethodSpec.make("anneal", {"steps": steps, "polish": polish})
+        spec = StudySpec(_spec().mixtures, (20,), (0,), (method,))
+        (task,) = spec.tasks()
+        kernel = estimate_from(cal, [task], 1, embedded=False)
+        kernel -= estimate_from(_cal(), [task], 1, embedded=False)
+        assert kernel == pytest.approx(passes * 0.01, rel=1e-12), (steps, polish)

@@ -419,3 +419,22 @@ def test_ties_are_still_counted_when_the_ground_state_is_unknown(tmp_path, monke
     monkeypatch.setattr(report_module, "theory_values", lambda gammas: (1.6330, math.nan, False))
     _tied_study(tmp_path / "n", 6)
     assert "stopped at the same point" in build_report(tmp_path / "n").findings[-1]
+
+
+def test_every_pair_of_methods_is_compared(tmp_path):
+    # three methods give three head-to-head lines per mixture (3 choose 2), each on the same
+    # instances: hessian = anneal + 0.01 = gradient + 0.02 on every seed
+    rng = np.random.default_rng(7)
+    base = {s: 1.6 + 0.02 * rng.standard_normal() for s in range(8)}
+    shift = {"hessian": 0.02, "anneal": 0.01, "gradient": 0.0}
+    _synthetic_study(
+        tmp_path / "three",
+        "20,40",
+        lambda n, s, m: base[s] + shift[m],
+        methods="hessian,gradient,anneal",
+    )
+    pairs = [f for f in build_report(tmp_path / "three").findings if ", n = 40: " in f]
+    assert len(pairs) == 3
+    assert "hessian is ahead of gradient by 0.0200" in pairs[0]
+    assert "hessian is ahead of anneal by 0.0100" in pairs[1]
+    assert "anneal is ahead of gradient by 0.0100" in pairs[2]

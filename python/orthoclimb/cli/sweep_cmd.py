@@ -78,7 +78,10 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
     parser.add_argument("--n", dest="sizes", default=None, help="sizes, e.g. 100,200,400")
     parser.add_argument("--seeds", default=None, help="disorder seeds, e.g. 0-19 or 1,5,9")
     parser.add_argument(
-        "--methods", default="hessian,gradient", help="methods: hessian,gradient (default both)"
+        "--methods",
+        default="hessian,gradient",
+        help="methods: hessian,gradient,anneal (default hessian,gradient; anneal's options in a"
+        " TOML file)",
     )
     parser.add_argument(
         "--steps",

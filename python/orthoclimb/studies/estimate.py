@@ -120,6 +120,9 @@ def estimate_from(cal: dict[str, Calibration], tasks, workers: int, embedded: bo
             eigen = LANCZOS_SECONDS[0] + LANCZOS_SECONDS[1] * t.n**2  # per step
             k = auto_steps(t.n) if opts["steps"] == "auto" else opts["steps"]
             total += scale * (k * c.hessian + 150 * c.energy_and_gradient) + eigen * k
+        elif t.method.name == "anneal":  # one pass per step, then about 150 for the polish
+            polish = 150 if opts["polish"] else 0
+            total += scale * (opts["steps"] + polish) * c.energy_and_gradient
         else:
             total += scale * min(150, opts["max_iter"]) * c.energy_and_gradient * 1.5
     return total / max(1, workers) + (_CLUSTER_START if embedded else 0.0)

@@ -52,17 +52,26 @@ gammas = { 3 = 1.0 }              # p -> gamma_p; or xi = { 3 = 1.0 } (p -> gamm
 # sizes = [50, 100]               # optional: this mixture's own sizes
 
 [[method]]                        # one block per method
-name = "hessian"                  # hessian | gradient
+name = "hessian"                  # hessian | gradient | anneal
 steps = 100                       # hessian: steps ("auto"), tol, polish
                                   # gradient: max_iter, gtol
+                                  # anneal: steps, eta, t_start, t_end, polish
 """
 
 # method -> option -> (type, default). Defaults follow orthoclimb.hessian_ascent /
-# orthoclimb.gradient_ascent; an integer option whose default is "auto" also takes "auto"
+# orthoclimb.gradient_ascent / orthoclimb.langevin_anneal (its geometric schedule from t_start
+# to t_end in steps); an integer option whose default is "auto" also takes "auto"
 # (Hessian-ascent steps: orthoclimb.algorithms.auto_steps(n), chosen per task).
 METHOD_OPTIONS: dict[str, dict[str, tuple[type, Any]]] = {
     "hessian": {"steps": (int, "auto"), "tol": (float, 1e-3), "polish": (bool, True)},
     "gradient": {"max_iter": (int, 2000), "gtol": (float, 1e-7)},
+    "anneal": {
+        "steps": (int, 400),
+        "eta": (float, 0.02),
+        "t_start": (float, 1.0),
+        "t_end": (float, 0.01),
+        "polish": (bool, True),
+    },
 }
 MAX_SIZE = 100_000
 # A study writes one row file per task and holds its task list in memory: a grid beyond this

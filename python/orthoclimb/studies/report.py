@@ -5,8 +5,8 @@ error s = sd/sqrt(count) (sd with ddof = 1) and the count. For each (mixture, me
 least two sizes: the extrapolation e_inf of the mean in n^(-k) (:mod:`.extrapolate`), set beside
 ALG and the Parisi ground state GS of the mixture, with z = (e_inf - ALG)/se(e_inf) and
 (e_inf - GS)/se(e_inf), the "difference in standard errors". The findings are sentences computed
-from these numbers (what was measured, whatever it is). Two methods are compared at their
-largest common size on the same instances (paired seeds): by the mean difference and its
+from these numbers (what was measured, whatever it is). Every pair of methods is compared at
+their largest common size on the same instances (paired seeds): by the mean difference and its
 standard error, and by the sign test of :func:`paired_comparison` (one method higher on most
 instances, two-sided binomial p < ``SIGN_LEVEL``), which detects a small but consistent edge.
 Both methods start from the seed's random direction, so on an easy landscape they often stop
@@ -24,6 +24,7 @@ interval at n^(-k) = 0) and ``distribution.png`` (energies over seeds at each n)
 
 from __future__ import annotations
 
+import itertools
 import math
 import os
 from collections import defaultdict
@@ -344,52 +345,13 @@ def _findings(rep: Report, seeds: dict) -> list[str]:
                 " this extrapolation"
             )
         out.append(text + ".")
-    # head-to-head at the largest common size, per mixture
+    # head-to-head at the largest common size, per mixture and pair of methods
     methods = [m.name for m in rep.spec.methods]
-    if len(methods) >= 2:
-        a, b = methods[0], methods[1]
-        for mix in rep.theory:
-            common = sorted(
-                n for (m1, me, n) in seeds if m1 == mix and me == a and (mix, b, n) in seeds
-            )
-            if not common:
-                continue
-            n = common[-1]
-            pa_, pb_ = seeds[(mix, a, n)], seeds[(mix, b, n)]
-            both = sorted(set(pa_) & set(pb_))
-            if len(both) < 2:
-                continue
-            # paired over seeds: both methods ran on the same instances, from the same seeded
-            # random start direction
-            th = rep.theory[mix]
-            scale = th["gs"] if math.isfinite(th["gs"]) else th["alg"]  # GS is NaN if unsolved
-            tie = TIE_RELATIVE * abs(scale)
-            c = paired_comparison([pa_[s] - pb_[s] for s in both], tie)
-            diff, z = c["diff"], c["z"]
-            if c["nonzero"] == 0:
-                out.append(
-                    f"{mix}, n = {n}: {a} and {b} stopped at the same point (energies within "
-                    f"{tie:.0e} per spin) on all {len(both)} paired seeds."
-                )
-                continue
-            sign = (
-                f"{a} higher on {c['higher']}, {b} on {c['lower']}, the same point on "
-                f"{c['ties']} (sign test over the {c['nonzero']} that differ: "
-                f"p = {c['sign_p']:.2g})"
-            )
-            by_mean = math.isfinite(z) and abs(z) > Z_CONSISTENT
-            by_sign = math.isfinite(c["sign_p"]) and c["sign_p"] < SIGN_LEVEL
-            if by_mean or by_sign:
-                lead = f"{a} is ahead of {b}" if diff > 0 else f"{b} is ahead of {a}"
-                out.append(
-                    f"{mix}, n = {n}: {lead} by {abs(diff):.4f} per spin on average "
-                    f"({abs(z):.1f} s.e., paired over {len(both)} seeds); {sign}."
-                )
-            else:
-                out.append(
-                    f"{mix}, n = {n}: {a} - {b} = {diff:+.4f} per spin, not distinguishable in "
-                    f"the mean over {len(both)} paired seeds ({z:+.1f} s.e.); {sign}."
-                )
+    for mix, th in rep.theory.items():
+        for a, b in itertools.combinations(methods, 2):
+            line = _head_to_head(mix, a, b, seeds, th)
+            if line is not None:
+                out.append(line)
     for c in rep.cost:
         if c["exponent"] is not None:
             ends = c["median_seconds_run"]
@@ -401,6 +363,44 @@ def _findings(rep: Report, seeds: dict) -> list[str]:
     if rep.missing:
         out.append(f"{rep.missing} task(s) of the study have no result yet; rerun the sweep.")
     return out
+
+
+def _head_to_head(mix: str, a: str, b: str, seeds: dict, th: dict[str, Any]) -> str | None:
+    """Methods a and b on the same instances of ``mix`` at their largest common size (paired
+    over seeds; both start from each seed's random direction), or None without two seeds."""
+    common = sorted(n for (m1, me, n) in seeds if m1 == mix and me == a and (mix, b, n) in seeds)
+    if not common:
+        return None
+    n = common[-1]
+    pa_, pb_ = seeds[(mix, a, n)], seeds[(mix, b, n)]
+    both = sorted(set(pa_) & set(pb_))
+    if len(both) < 2:
+        return None
+    scale = th["gs"] if math.isfinite(th["gs"]) else th["alg"]  # GS is NaN if unsolved
+    tie = TIE_RELATIVE * abs(scale)
+    c = paired_comparison([pa_[s] - pb_[s] for s in both], tie)
+    diff, z = c["diff"], c["z"]
+    if c["nonzero"] == 0:
+        return (
+            f"{mix}, n = {n}: {a} and {b} stopped at the same point (energies within "
+            f"{tie:.0e} per spin) on all {len(both)} paired seeds."
+        )
+    sign = (
+        f"{a} higher on {c['higher']}, {b} on {c['lower']}, the same point on "
+        f"{c['ties']} (sign test over the {c['nonzero']} that differ: p = {c['sign_p']:.2g})"
+    )
+    by_mean = math.isfinite(z) and abs(z) > Z_CONSISTENT
+    by_sign = math.isfinite(c["sign_p"]) and c["sign_p"] < SIGN_LEVEL
+    if by_mean or by_sign:
+        lead = f"{a} is ahead of {b}" if diff > 0 else f"{b} is ahead of {a}"
+        return (
+            f"{mix}, n = {n}: {lead} by {abs(diff):.4f} per spin on average "
+            f"({abs(z):.1f} s.e., paired over {len(both)} seeds); {sign}."
+        )
+    return (
+        f"{mix}, n = {n}: {a} - {b} = {diff:+.4f} per spin, not distinguishable in "
+        f"the mean over {len(both)} paired seeds ({z:+.1f} s.e.); {sign}."
+    )
 
 
 def _markdown(rep: Report) -> str:

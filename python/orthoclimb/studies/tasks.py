@@ -9,7 +9,7 @@ The task id is the first 16 hex digits of SHA-256 of the canonical JSON of the c
 
 Row fields (one row per task; energies per spin e = H(x)/n, maximization):
 ``task_id``, ``mixture`` (name), ``gammas`` (text p:gamma,...), ``n``, ``seed``, ``method``,
-``options`` (JSON), ``dtype``, ``energy``, ``energy_before_polish`` (Hessian ascent),
+``options`` (JSON), ``dtype``, ``energy``, ``energy_before_polish`` (Hessian ascent, anneal),
 ``alg``, ``ground_state`` (Parisi GS, NaN when the solver does not converge), ``gap_alg`` =
 energy - ALG, ``gap_gs`` = energy - GS, ``local_max``, ``grad_norm`` (|P grad H|/n),
 ``seconds_sample``, ``seconds_run`` (wall seconds), ``threads`` (rayon threads used),
@@ -84,7 +84,8 @@ def run_task(task: Task, threads: int | None = None) -> dict[str, Any]:
     to at this n), the iterations for gradient ascent.
     """
     from .. import __version__
-    from ..algorithms import gradient_ascent, hessian_ascent
+    from ..algorithms import gradient_ascent, hessian_ascent, langevin_anneal
+    from ..algorithms.baselines import geometric_schedule
     from ..model import Hamiltonian
     from ..runtime import get_num_threads, set_num_threads
 
@@ -109,6 +110,13 @@ def run_task(task: Task, threads: int | None = None) -> dict[str, Any]:
         res = gradient_ascent(ham, seed=task.seed, gtol=opts["gtol"], max_iter=opts["max_iter"])
         before = float(res.energy)
         steps = int(res.info["iterations"])
+    elif task.method.name == "anneal":
+        schedule = geometric_schedule(opts["t_start"], opts["t_end"], opts["steps"])
+        res = langevin_anneal(
+            ham, seed=task.seed, schedule=schedule, eta=opts["eta"], polish=opts["polish"]
+        )
+        before = float(res.info["energy_anneal"])
+        steps = int(res.info["steps"])
     else:  # pragma: no cover - MethodSpec.make refuses other names
         raise ValueError(f"unknown method {task.method.name!r}")
     t2 = time.perf_counter()
