@@ -9,10 +9,12 @@ from these numbers (what was measured, whatever it is). Every pair of methods is
 their largest common size on the same instances (paired seeds): by the mean difference and its
 standard error, and by the sign test of :func:`paired_comparison` (one method higher on most
 instances, two-sided binomial p < ``SIGN_LEVEL``), which detects a small but consistent edge.
-Both methods start from the seed's random direction, so on an easy landscape they often stop
-at the same point: runs within ``TIE_RELATIVE`` GS of each other are ties, counted apart and
-left out of the sign test. Beside each e_inf the report gives its value under the exponents
-``OTHER_LAWS``: the interval covers the noise of the means, not the choice of law.
+Each pair is tested at that level on its own, with no correction for multiple comparisons:
+with many methods, expect an occasional edge by chance. All methods start from the seed's
+random direction, so on an easy landscape they often stop at the same point: runs within
+``TIE_RELATIVE`` GS of each other are ties, counted apart and left out of the sign test.
+Beside each e_inf the report gives its value under the exponents ``OTHER_LAWS``: the interval
+covers the noise of the means, not the choice of law.
 
 The cost of the runs (median wall seconds per task at each n and the exponent b of t ~ n^b,
 :mod:`.cost`) closes the report.
