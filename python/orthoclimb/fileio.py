@@ -87,6 +87,17 @@ def save_figure_atomic(fig: Any, path: str | os.PathLike, **kwargs: Any) -> Path
     return write_atomic(path, lambda fh: fig.savefig(fh, format=fmt, **kwargs))
 
 
+def envelope(format_name: str, version: int, payload: dict) -> dict:
+    """The file envelope ``{"format", "format_version", "sha256", "payload"}`` of ``payload``
+    (checksum :func:`json_digest`), which :func:`open_envelope` reads back."""
+    return {
+        "format": format_name,
+        "format_version": version,
+        "sha256": json_digest(payload),
+        "payload": payload,
+    }
+
+
 def open_envelope(doc: dict, version: int, fail: Callable[[str], Exception]) -> dict:
     """The payload of a file envelope ``{"format", "format_version", "sha256", "payload"}``
     whose format the caller has checked: ``fail(why)`` is raised for a version that is not an

@@ -27,7 +27,7 @@ from typing import Any
 import numpy as np
 
 from ..errors import ResultFileError
-from ..fileio import json_digest, open_envelope, write_atomic, write_json_atomic
+from ..fileio import envelope, json_digest, open_envelope, write_atomic, write_json_atomic
 
 __all__ = ["FORMAT_VERSION", "Result", "load_result"]
 
@@ -118,12 +118,7 @@ class Result:
         ``path`` is dropped to get the stem). Returns the two paths."""
         stem = _stem(path)
         payload = self.payload()
-        doc = {
-            "format": FORMAT,
-            "format_version": FORMAT_VERSION,
-            "sha256": json_digest(payload),
-            "payload": payload,
-        }
+        doc = envelope(FORMAT, FORMAT_VERSION, payload)
         npz_path = stem.with_name(stem.name + ".npz")
         json_path = stem.with_name(stem.name + ".json")
         x = np.asarray(self.x, dtype=np.float64)

@@ -52,7 +52,7 @@ import numpy as np
 
 from .. import _core
 from ..errors import InstanceFileError, InsufficientMemoryError
-from ..fileio import json_digest, open_envelope, write_atomic, write_json_atomic
+from ..fileio import envelope, open_envelope, write_atomic, write_json_atomic
 from .hamiltonian import Hamiltonian, _check_correlation, _check_seed
 from .memory import check_size, normalize_dtype, require_memory
 from .mixture import Mixture, _check_degree
@@ -194,13 +194,7 @@ def save_instance(
             "arrays": dict(arrays_info),
         }
         written = (json_path, npz_path)
-    doc = {
-        "format": FORMAT,
-        "format_version": FORMAT_VERSION,
-        "sha256": json_digest(payload),
-        "payload": payload,
-    }
-    write_json_atomic(json_path, doc)
+    write_json_atomic(json_path, envelope(FORMAT, FORMAT_VERSION, payload))
     return written
 
 

@@ -33,7 +33,7 @@ from datetime import datetime, timezone
 from pathlib import Path
 from typing import Any
 
-from ..fileio import json_digest, open_envelope, write_atomic, write_json_atomic
+from ..fileio import envelope, open_envelope, write_atomic, write_json_atomic
 from .grid import StudySpec
 
 __all__ = [
@@ -245,13 +245,7 @@ class Store:
         path = self.row_path(row["task_id"])
         if path.exists():
             return False
-        sealed = {
-            "format": ROW_FORMAT,
-            "format_version": ROW_FORMAT_VERSION,
-            "sha256": json_digest(row),
-            "payload": row,
-        }
-        write_json_atomic(path, sealed)
+        write_json_atomic(path, envelope(ROW_FORMAT, ROW_FORMAT_VERSION, row))
         failed = self.failed_dir / path.name
         if failed.exists():
             failed.unlink()
