@@ -35,10 +35,10 @@ def _stderr(text: str) -> None:
 def run(args: argparse.Namespace) -> int:
     from ..fileio import ensure_folder
     from ..model import Mixture, available_memory, estimate_memory
-    from ..model.memory import format_bytes
+    from ..model.memory import coefficient_count, format_bytes
     from ..runtime import set_num_threads
     from ..studies.grid import parse_sizes
-    from ..studies.profile import KERNELS, coefficient_count, profile_kernels, write_profile
+    from ..studies.profile import KERNELS, profile_kernels, write_profile
 
     mix = Mixture.parse(
         args.gammas if args.gammas is not None else args.xi, squared=args.xi is not None
@@ -52,10 +52,11 @@ def run(args: argparse.Namespace) -> int:
     say = _stderr if not args.json else lambda _text: None
     biggest = max(sizes)
     need = estimate_memory(mix, biggest)
-    growth = coefficient_count(mix, biggest) / coefficient_count(mix, min(sizes))
+    most = coefficient_count(mix.degrees, biggest)
+    growth = most / coefficient_count(mix.degrees, min(sizes))
     say(
         f"profile: n = {', '.join(map(str, sorted(sizes)))}; the largest instance (n = {biggest})"
-        f" holds {coefficient_count(mix, biggest):,} coefficients, {format_bytes(need)} of"
+        f" holds {most:,} coefficients, {format_bytes(need)} of"
         f" {format_bytes(available_memory())} available; each size is sampled once and each"
         f" kernel timed {args.repeats} time(s). Time grows like the coefficient count: the"
         f" largest size has {growth:.3g} times the smallest's; an estimate for each next size"

@@ -12,7 +12,6 @@ which is faster than the batch tile with half its lanes empty).
 
 from __future__ import annotations
 
-import math
 import os
 from collections.abc import Mapping
 from pathlib import Path
@@ -25,7 +24,13 @@ from .. import _core
 from ..errors import ShapeError
 from . import dense as _dense
 from .arrays import as_directions, as_float_array, as_point, as_points
-from .memory import check_size, estimate_memory, normalize_dtype, require_memory
+from .memory import (
+    check_size,
+    coefficient_count,
+    estimate_memory,
+    normalize_dtype,
+    require_memory,
+)
 from .mixture import MAX_DEGREE, Mixture, _check_degree
 
 _SEED_LIMIT = 2**64
@@ -162,7 +167,7 @@ class Hamiltonian:
             a = as_float_array(arr, f"coefficients[{p}]")
             if a.ndim != 1:
                 raise ShapeError(f"coefficients[{p}] must be 1-D, got shape {a.shape}")
-            expected = math.comb(n + p - 1, p)
+            expected = coefficient_count((p,), n)
             if a.shape[0] != expected:
                 raise ShapeError(
                     f"coefficients[{p}] for n = {n} must hold C(n+p-1, p) = C({n + p - 1}, {p})"
@@ -372,7 +377,7 @@ def _sample_with_bar(
     has taken ``_PROGRESS_DELAY`` seconds)."""
     from tqdm import tqdm
 
-    total = sum(math.comb(n + p - 1, p) for p in degrees)
+    total = coefficient_count(degrees, n)
     bar = tqdm(
         total=total, unit="coef", unit_scale=True, desc=f"sampling n={n}", delay=_PROGRESS_DELAY
     )

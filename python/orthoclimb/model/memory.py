@@ -7,7 +7,9 @@ by the instance (``Hamiltonian.hessian_workspace_nbytes``), whatever the thread 
 
 from __future__ import annotations
 
+import math
 import os
+from collections.abc import Iterable
 
 import numpy as np
 
@@ -37,6 +39,11 @@ def estimate_memory(mixture: Mixture, n: int, dtype: object = "float64") -> int:
     n = check_size(n)
     itemsize = DTYPES[normalize_dtype(dtype)]
     return int(_core.storage_nbytes(n, list(mixture.degrees), itemsize))
+
+
+def coefficient_count(degrees: Iterable[int], n: int) -> int:
+    """N(n) = sum_p C(n+p-1, p) over ``degrees``: the coefficients an instance stores (exact)."""
+    return sum(math.comb(n + p - 1, p) for p in degrees)
 
 
 def check_size(n: object) -> int:

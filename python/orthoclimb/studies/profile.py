@@ -24,7 +24,7 @@ import numpy as np
 
 from ..fileio import save_figure_atomic, write_json_atomic
 
-__all__ = ["KERNELS", "coefficient_count", "fit_exponents", "plot_profile", "profile_kernels"]
+__all__ = ["KERNELS", "fit_exponents", "plot_profile", "profile_kernels"]
 
 KERNELS = ("energy", "energy_and_gradient", "hvp", "hessian")
 
@@ -51,7 +51,7 @@ def profile_kernels(
     size (None after the last) and a guess of the next size's seconds: this size's wall time
     scaled by the ratio of coefficient counts (the passes stream every coefficient)."""
     from ..model import Hamiltonian, estimate_memory
-    from ..model.memory import require_memory
+    from ..model.memory import coefficient_count, require_memory
     from ..runtime import get_num_threads
 
     if len(sizes) < 2:
@@ -84,11 +84,10 @@ def profile_kernels(
         del ham
         row["wall"] = time.perf_counter() - t  # sampling and every timed repeat
         if on_size is not None:
-            wall = row["wall"]
             nxt = order[i + 1] if i + 1 < len(order) else None
             guess = None
             if nxt is not None:
-                guess = wall * coefficient_count(mixture, nxt) / row["coefficients"]
+                guess = row["wall"] * coefficient_count(mixture.degrees, nxt) / row["coefficients"]
             on_size(row, nxt, guess)
     exponents, last_pair = fit_exponents(rows)
     return {
@@ -100,11 +99,6 @@ def profile_kernels(
         "exponents_largest_pair": last_pair,
         "units": "wall seconds per pass; exponent b of t ~ n^b; ns per coefficient",
     }
-
-
-def coefficient_count(mixture: Any, n: int) -> int:
-    """N(n) = sum_p C(n+p-1, p) over the mixture's degrees (exact)."""
-    return sum(math.comb(n + p - 1, p) for p in mixture.degrees)
 
 
 def fit_exponents(rows: Sequence[dict[str, Any]]) -> tuple[dict[str, float], dict[str, float]]:
