@@ -77,10 +77,10 @@ def _grows(old: dict, new: dict, diff: list[str]) -> bool:
         return False
 
 
-def _record_growth(meta: Path, config: dict) -> None:
-    """Rewrite study.json (atomically) with the grown configuration, keeping its creation time
-    and listing each extension with the seeds and sizes it started from."""
-    data = json.loads(meta.read_text(encoding="utf-8"))
+def _record_growth(meta: Path, data: dict, config: dict) -> None:
+    """Rewrite study.json (atomically; ``data`` is what it held) with the grown configuration,
+    keeping its creation time and listing each extension with the seeds and sizes it started
+    from."""
     old = data["config"]
     history = data.get("extended", [])
     if not isinstance(history, list):
@@ -188,7 +188,8 @@ class Store:
         config = spec.to_dict()
         if meta.exists():
             try:
-                old = json.loads(meta.read_text(encoding="utf-8"))["config"]
+                stored = json.loads(meta.read_text(encoding="utf-8"))
+                old = stored["config"]
                 if not isinstance(old, dict):
                     raise TypeError(f"config is {type(old).__name__}")
             except (OSError, ValueError, KeyError, TypeError):
@@ -197,7 +198,7 @@ class Store:
                 ) from None
             diff = _differences(old, json.loads(_canonical(config)))
             if diff and _grows(old, config, diff):
-                _record_growth(meta, config)
+                _record_growth(meta, stored, config)
             elif diff:
                 raise StudyMismatchError(
                     f"the folder {str(folder)!r} holds a study with a different configuration "

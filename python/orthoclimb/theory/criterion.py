@@ -88,7 +88,7 @@ class FullRSBVerdict:
             text = "holds: xi''^(-1/2) is concave on (0, 1]"
         else:
             parts = ", ".join(
-                f"({_apart(lo, hi)[0]}, {_apart(lo, hi)[1]}{']' if hi == 1.0 else ')'}"
+                "({}, {}{}".format(*_apart(lo, hi), "]" if hi == 1.0 else ")")
                 for lo, hi in self.failing_intervals
             )
             text = f"fails: xi''^(-1/2) is not concave on {parts}"

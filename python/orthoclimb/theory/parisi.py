@@ -376,8 +376,9 @@ def _lowest_d(grid: _Grid, theta: np.ndarray, k: int, t0: float, d0: float) -> t
     from scipy.optimize import minimize_scalar
 
     lo, width = float(grid.q[k]), float(grid.dq[k])
-    at = np.searchsorted(lo + _JUMP_SAMPLES * width, t0)
-    ends = np.concatenate(([lo], lo + _JUMP_SAMPLES * width, [lo + width]))
+    samples = lo + _JUMP_SAMPLES * width
+    at = np.searchsorted(samples, t0)
+    ends = np.concatenate(([lo], samples, [lo + width]))
     res = minimize_scalar(
         lambda u: float(grid.directional(theta, np.array([u]), np.array([k]))[0]),
         bounds=(float(ends[at]), float(ends[at + 2])),
