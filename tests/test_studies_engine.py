@@ -3,6 +3,7 @@ an unreachable scheduler, a folder of another study."""
 
 from __future__ import annotations
 
+import contextlib
 import json
 import os
 import signal
@@ -15,7 +16,7 @@ import pytest
 
 from orthoclimb import Mixture
 from orthoclimb.cli import main
-from orthoclimb.studies.engine import WorkerPlan, plan_workers, run_study
+from orthoclimb.studies.engine import WorkerPlan, _connect, plan_workers, run_study
 from orthoclimb.studies.grid import MethodSpec, MixtureSpec, StudySpec, spec_from_flags
 from orthoclimb.studies.store import Store, StudyMismatchError
 
@@ -316,6 +317,32 @@ def test_ctrl_c_stops_the_sweep_without_worker_tracebacks(tmp_path):
     assert proc.returncode == 130, err
     assert "Traceback" not in err and "KeyboardInterrupt" not in err, err
     assert err.strip() == "orthoclimb sweep: interrupted"
+
+
+def _worker_sigint() -> tuple[int, bool]:
+    return os.getpid(), signal.getsignal(signal.SIGINT) == signal.SIG_IGN
+
+
+def test_a_worker_that_replaces_a_dead_one_ignores_ctrl_c_too():
+    # the first workers inherit SIGINT ignored from the sweep; a replacement is spawned after
+    # the sweep handles SIGINT again, and used to die with tracebacks on the next Ctrl-C
+    client, cluster = _connect(None, WorkerPlan(1, 1, 1), 60)
+    try:
+        ((first, ignored),) = client.run(_worker_sigint).values()
+        assert ignored
+        os.kill(first, signal.SIGKILL)
+        deadline, after = time.time() + 60, []
+        while time.time() < deadline:
+            with contextlib.suppress(Exception):  # no worker while the nanny restarts it
+                after = list(client.run(_worker_sigint).values())
+            if after and after[0][0] != first:
+                break
+            time.sleep(0.2)
+        assert after and after[0][0] != first, "the nanny started no replacement within 60 s"
+        assert after[0][1], "the replacement worker does not ignore SIGINT"
+    finally:
+        client.close()
+        cluster.close()
 
 
 def test_no_progress_bar_when_stderr_is_not_a_terminal(tmp_path, capsys):

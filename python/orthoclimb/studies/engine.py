@@ -30,6 +30,9 @@ from .grid import StudySpec
 from .store import Store
 from .tasks import Task, run_task
 
+# imported by each worker process of the embedded cluster (replacements included)
+WORKER_PRELOAD = "orthoclimb.studies.worker_signals"
+
 __all__ = ["SweepOutcome", "WorkerPlan", "available_cores", "plan_workers", "run_study"]
 
 
@@ -147,9 +150,11 @@ def _children_ignore_interrupts():
 
     Ctrl-C in a terminal signals the whole process group: the workers used to die printing
     about 70 lines of tracebacks while the sweep itself was already stopping them cleanly.
-    Now only the sweep sees the interrupt (a worker Dask replaces later does not inherit it).
-    A Ctrl-C in the second or two while the cluster starts is lost; the next one stops the
-    sweep. Off the main thread signals cannot be changed, and nothing is done."""
+    Now only the sweep sees the interrupt; a worker Dask starts later to replace a dead one
+    ignores it through the preload module ``worker_signals``. A Ctrl-C in the second or two
+    while the cluster starts is lost (an ignored signal is discarded, not kept pending); the
+    next one stops the sweep. Off the main thread signals cannot be changed, and nothing is
+    done."""
     if threading.current_thread() is not threading.main_thread():
         yield
         return
@@ -173,6 +178,7 @@ def _connect(scheduler: str | None, plan: WorkerPlan, timeout: float):
                 host="127.0.0.1",
                 dashboard_address=":0",
                 env={"ORTHOCLIMB_NUM_THREADS": str(plan.rayon_threads)},
+                preload=[WORKER_PRELOAD],
                 # a worker's heartbeat can fail while the cluster shuts down (1 in 12 Ctrl-C
                 # runs logged that as an ERROR with a traceback); task errors reach the sweep
                 # through their futures and dead workers are counted, so only CRITICAL shows
