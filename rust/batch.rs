@@ -3,7 +3,7 @@
 //! The coefficients are the expensive stream (they come from main memory); the points are
 //! small and stay in cache. The walk takes prefixes four at a time when they differ only in
 //! their last index (a block, whose four segments follow each other in memory), and runs the
-//! register tile of [`crate::tile`] over the block for 8 (4 with a gradient) points at a
+//! register tile of `crate::tile` over the block for 8 (4 with a gradient) points at a
 //! time, so that each coefficient is read from memory once and from L1 once per tile:
 //!
 //! ```text

@@ -33,11 +33,13 @@ pub fn num_multisets(n: usize, p: usize) -> Result<usize, CoreError> {
     if p == 0 {
         return Ok(1);
     }
-    binomial((n + p - 1) as u64, p as u64)
+    let overflow = || CoreError::SizeOverflow {
+        what: format!("C(n + {}, {p}) coefficients for n = {n}, p = {p}", p - 1),
+    };
+    let top = n.checked_add(p - 1).ok_or_else(overflow)?;
+    binomial(top as u64, p as u64)
         .and_then(|v| usize::try_from(v).ok())
-        .ok_or_else(|| CoreError::SizeOverflow {
-            what: format!("C({}, {}) coefficients for n = {n}, p = {p}", n + p - 1, p),
-        })
+        .ok_or_else(overflow)
 }
 
 /// Rank of the first multiset whose first index is `s` (0 <= s <= n): `offset(s)` above.
@@ -205,5 +207,17 @@ mod tests {
                 assert_eq!(s, (n as u64).pow(p as u32));
             }
         }
+    }
+
+    /// n + p - 1 past usize::MAX is an overflow error, not a wrapped (tiny) count.
+    #[test]
+    fn a_count_whose_top_wraps_is_an_error() {
+        for p in 2..=8 {
+            assert!(matches!(
+                num_multisets(usize::MAX - p + 2, p),
+                Err(CoreError::SizeOverflow { .. })
+            ));
+        }
+        assert_eq!(num_multisets(usize::MAX, 1).unwrap(), usize::MAX);
     }
 }

@@ -396,6 +396,7 @@ pub fn has_avx2_fma() -> bool {
 /// Name of the instruction-set path the kernels take on this machine: "avx2+fma+avx512f"
 /// (AVX2 kernels, and the 512-bit tile of `crate::avx512` for batches of 9 or more points),
 /// "avx2+fma" or "baseline" (portable code).
+#[cfg_attr(not(feature = "python"), allow(dead_code))] // reported through the binding only
 pub fn simd_path() -> &'static str {
     if crate::tile::WideTile::detect().is_some() {
         "avx2+fma+avx512f"

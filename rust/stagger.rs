@@ -93,9 +93,9 @@ impl Runs {
 /// are zero. Row r - 1 ends where row r starts, which the vector steps rely on.
 #[derive(Clone, Copy, Debug)]
 pub struct Rows4<'a, T> {
-    pub data: &'a [T],
-    pub len: usize,
-    pub count: usize,
+    pub(crate) data: &'a [T],
+    pub(crate) len: usize,
+    pub(crate) count: usize,
 }
 
 impl<'a, T: Coef> Rows4<'a, T> {
@@ -183,6 +183,11 @@ pub(crate) fn coefs_at<T: Coef>(rows: &Rows4<'_, T>, u: usize) -> [f64; 4] {
 #[inline(always)]
 pub(crate) fn check_rows<T>(rows: &Rows4<'_, T>, x: &[f64], v: Option<&[f64]>, z: usize) -> usize {
     let len = rows.len;
+    // the vector steps read rows.data unchecked, so it must hold exactly the rows
+    let count = rows.count;
+    assert!((1..=4).contains(&count) && count <= len);
+    let expected = count * len - count * (count - 1) / 2;
+    assert_eq!(rows.data.len(), expected, "rows: coefficients");
     assert!(x.len() >= len && v.is_none_or(|v| v.len() >= len));
     assert!(z == 0 || z >= len);
     len
@@ -359,11 +364,11 @@ pub(crate) fn portable_stagger4<M: Madd, T: Coef>(
 /// then comes first, in both implementations. The first vector step also adds b * 0 to the
 /// entries A[k + r, k + u], u < r, left of the diagonal, which leaves them unchanged.
 pub struct HessRows<'a> {
-    pub n: usize,
-    pub k: usize,
-    pub shared: &'a [(usize, f64)],
-    pub b: f64,
-    pub xk: [f64; 4],
+    pub(crate) n: usize,
+    pub(crate) k: usize,
+    pub(crate) shared: &'a [(usize, f64)],
+    pub(crate) b: f64,
+    pub(crate) xk: [f64; 4],
 }
 
 impl HessRows<'_> {
@@ -372,7 +377,10 @@ impl HessRows<'_> {
     pub(crate) fn check<T>(&self, rows: &Rows4<'_, T>, x: &[f64], acc: &[f64]) -> usize {
         let len = check_rows(rows, x, None, 0);
         let (n, k) = (self.n, self.k);
-        assert!(k + len == n && acc.len() >= n * n && self.shared.iter().all(|&(i, _)| i < n));
+        let square = n.checked_mul(n);
+        let fits = k.checked_add(len) == Some(n) && square.is_some_and(|sq| acc.len() >= sq);
+        assert!(fits, "hessian rows: accumulator too short for n = {n}");
+        assert!(self.shared.iter().all(|&(i, _)| i < n));
         len
     }
 
@@ -693,5 +701,39 @@ mod tests {
             let count = |s: usize| num_multisets(n - s, degree - 1).unwrap();
             assert_eq!(got.len(), count(lo) - count(hi));
         }
+    }
+
+    /// Rows whose slice is shorter than their len and count say must fail the check (the
+    /// vector steps read the slice unchecked).
+    #[test]
+    #[should_panic(expected = "rows: coefficients")]
+    fn rows_shorter_than_they_claim_are_refused() {
+        let buf = [1.0f64; 8];
+        let rows = Rows4 {
+            data: &buf[..4],
+            len: 8,
+            count: 1,
+        };
+        let x = [1.0f64; 8];
+        stagger4::<Fused, f64>(rows, &x, None, None);
+    }
+
+    /// An n whose square wraps must fail the check, not write past the accumulator.
+    #[test]
+    #[should_panic(expected = "accumulator too short")]
+    fn a_hessian_side_whose_square_wraps_is_refused() {
+        let data = [1.0f64; 10];
+        let rows = Rows4::new(&data, 4, 4);
+        let x = [1.0f64; 4];
+        let mut acc = [0.0f64; 16];
+        let n = 1usize << 32; // n * n wraps to 0
+        let h = HessRows {
+            n,
+            k: n - 4,
+            shared: &[],
+            b: 1.0,
+            xk: [0.0; 4],
+        };
+        stagger4_hess::<Fused, f64>(rows, &x, &mut acc, &h);
     }
 }

@@ -55,7 +55,14 @@ pub(crate) fn check_tile<T>(rows: &[&[T]; 4], x: &[f64], stride: usize, lanes: u
         assert_eq!(row.len(), len.saturating_sub(r), "tile row {r}");
     }
     assert!(lanes <= SUM_LANES && lanes <= stride);
-    assert!(len == 0 || x.len() >= (len - 1) * stride + lanes);
+    // checked: a wrapped product would let the unchecked loads run past X
+    let reach = (len.max(1) - 1)
+        .checked_mul(stride)
+        .and_then(|e| e.checked_add(lanes));
+    assert!(
+        len == 0 || reach.is_some_and(|reach| x.len() >= reach),
+        "tile: X too short"
+    );
     len
 }
 
@@ -299,5 +306,17 @@ mod tests {
         portable_tile::<Fused, f64, 2>(refs, &x, 8, Some((&mut g2[..], &w)), &mut s2);
         assert_eq!(s1, s2);
         assert_eq!(g1, g2);
+    }
+
+    /// A stride whose product with the row length wraps (release builds do not check) must
+    /// fail the check, not let the unchecked loads run past X.
+    #[test]
+    #[should_panic(expected = "tile: X too short")]
+    fn a_stride_that_wraps_is_refused() {
+        let r: [Vec<f64>; 4] = [vec![1.0; 4], vec![1.0; 3], vec![1.0; 2], vec![1.0; 1]];
+        let x = vec![0.5f64; 8];
+        let mut s: TileSums = [[0.0; SUM_LANES]; 4];
+        let stride = usize::MAX / 3 + 1; // 3 * stride wraps to 2 (mod 2^64)
+        tile::<Fused, f64, 1>([&r[0], &r[1], &r[2], &r[3]], &x, stride, None, &mut s);
     }
 }
