@@ -45,6 +45,15 @@ pub enum CoreError {
     Interrupted,
     /// A kernel's result is not finite although its inputs were: float64 overflowed.
     Overflow { what: &'static str },
+    /// Sampled coefficients of degree p could exceed the storage type's largest value.
+    StorageRange {
+        p: usize,
+        gamma: f64,
+        n: usize,
+        bound: f64,
+        dtype: &'static str,
+        largest: f64,
+    },
 }
 
 impl fmt::Display for CoreError {
@@ -97,6 +106,18 @@ impl fmt::Display for CoreError {
                 f,
                 "the {what} overflowed float64: the result is not finite although every input \
                  is (points are meant to lie on the unit sphere |x| = 1; check the inputs' scale)"
+            ),
+            CoreError::StorageRange {
+                p,
+                gamma,
+                n,
+                bound,
+                dtype,
+                largest,
+            } => write!(
+                f,
+                "gamma = {gamma:?} for p = {p} at n = {n}: sampled coefficients can reach \
+                 {bound:.4e}, beyond {dtype}'s range (+-{largest:.4e}); use dtype 'float64'"
             ),
         }
     }

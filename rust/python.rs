@@ -67,6 +67,7 @@ fn to_py_err(py: Python<'_>, err: CoreError) -> PyErr {
             )
         }
         CoreError::InvalidSize { .. }
+        | CoreError::StorageRange { .. }
         | CoreError::InvalidCorrelation { .. }
         | CoreError::MissingDegree { .. }
         | CoreError::InvalidDtype { .. }
@@ -171,6 +172,26 @@ fn slice1<'a>(a: &'a PyReadonlyArray1<'_, f64>, name: &str) -> PyResult<&'a [f64
 fn slice2<'a>(a: &'a PyReadonlyArray2<'_, f64>, name: &str) -> PyResult<&'a [f64]> {
     a.as_slice()
         .map_err(|_| PyValueError::new_err(format!("{name} must be a C-contiguous float64 array")))
+}
+
+/// A kernel's input, copied while the GIL is held: a read-only view does not stop another
+/// Python thread from writing to the array while the kernel runs detached, which would make
+/// the kernel read a half-written point (and break the borrow's promise). The copy is O(n)
+/// per point or direction, against a pass over all the coefficients.
+fn input1(a: &PyReadonlyArray1<'_, f64>, name: &str) -> PyResult<Vec<f64>> {
+    slice1(a, name).map(<[f64]>::to_vec)
+}
+
+/// [`input1`] for an array of shape (rows, cols), checking the side that must be n.
+fn input2(a: &PyReadonlyArray2<'_, f64>, name: &str, axis: usize, n: usize) -> PyResult<Vec<f64>> {
+    let got = a.shape()[axis];
+    if got != n {
+        let what = if axis == 0 { "rows" } else { "columns" };
+        return Err(PyValueError::new_err(format!(
+            "{name} must have n = {n} {what}, got {got}"
+        )));
+    }
+    slice2(a, name).map(<[f64]>::to_vec)
 }
 
 /// (energies (b,), gradients (b, n)) as NumPy arrays.
@@ -337,7 +358,7 @@ impl PyPacked {
 
     /// H(x).
     fn energy(&self, py: Python<'_>, x: PyReadonlyArray1<'_, f64>) -> PyResult<f64> {
-        let x = slice1(&x, "x")?;
+        let x = &input1(&x, "x")?;
         run_kernel(
             py,
             "energy",
@@ -352,7 +373,7 @@ impl PyPacked {
         py: Python<'py>,
         x: PyReadonlyArray1<'_, f64>,
     ) -> PyResult<(f64, Bound<'py, PyArray1<f64>>)> {
-        let x = slice1(&x, "x")?;
+        let x = &input1(&x, "x")?;
         let (e, g) = run_kernel(
             py,
             "gradient",
@@ -369,7 +390,7 @@ impl PyPacked {
         x: PyReadonlyArray1<'_, f64>,
     ) -> PyResult<Bound<'py, PyArray2<f64>>> {
         let n = self.n();
-        let x = slice1(&x, "x")?;
+        let x = &input1(&x, "x")?;
         let h = run_kernel(
             py,
             "Hessian",
@@ -386,7 +407,7 @@ impl PyPacked {
         x: PyReadonlyArray1<'_, f64>,
         v: PyReadonlyArray1<'_, f64>,
     ) -> PyResult<Bound<'py, PyArray1<f64>>> {
-        let (x, v) = (slice1(&x, "x")?, slice1(&v, "v")?);
+        let (x, v) = (&input1(&x, "x")?, &input1(&v, "v")?);
         let w = run_kernel(
             py,
             "Hessian-vector product",
@@ -404,7 +425,7 @@ impl PyPacked {
         v: PyReadonlyArray2<'_, f64>,
     ) -> PyResult<Bound<'py, PyArray2<f64>>> {
         let shape = [v.shape()[0], v.shape()[1]];
-        let (x, vs) = (slice1(&x, "x")?, slice2(&v, "v")?);
+        let (x, vs) = (&input1(&x, "x")?, &input2(&v, "v", 0, self.n())?);
         let w = run_kernel(
             py,
             "Hessian-vector product",
@@ -421,7 +442,7 @@ impl PyPacked {
         xs: PyReadonlyArray2<'_, f64>,
     ) -> PyResult<Bound<'py, PyArray1<f64>>> {
         let b = xs.shape()[0];
-        let xs = slice2(&xs, "x")?;
+        let xs = &input2(&xs, "x", 1, self.n())?;
         let e = run_kernel(
             py,
             "energy",
@@ -438,7 +459,7 @@ impl PyPacked {
         xs: PyReadonlyArray2<'_, f64>,
     ) -> PyResult<EnergiesGradients<'py>> {
         let shape = [xs.shape()[0], xs.shape()[1]];
-        let xs = slice2(&xs, "x")?;
+        let xs = &input2(&xs, "x", 1, self.n())?;
         let (e, g) = run_kernel(
             py,
             "gradient",

@@ -35,6 +35,8 @@ use crate::storage::Coef;
 const CHUNK: usize = 1 << 15;
 /// Gaussians generated per inner batch (stack buffer).
 const BATCH: usize = 512;
+/// 2^-53: the spacing of the uniforms, and the smallest u1.
+const SCALE: f64 = 1.0 / (1u64 << 53) as f64;
 
 /// Which Gaussians to draw: those of `seed`, optionally correlated with those of another seed.
 #[derive(Debug, Clone, Copy, PartialEq)]
@@ -81,7 +83,6 @@ pub fn gaussians(seed: u64, p: usize, r0: usize, out: &mut [f64]) {
     let mut pos = 0usize;
     let mut skip_first = r0 % 2 == 1;
     const TAU: f64 = std::f64::consts::TAU;
-    const SCALE: f64 = 1.0 / (1u64 << 53) as f64;
     while pos < out.len() {
         let w1 = rng.next_u64();
         let w2 = rng.next_u64();
@@ -101,6 +102,29 @@ pub fn gaussians(seed: u64, p: usize, r0: usize, out: &mut [f64]) {
         out[pos] = radius * s;
         pos += 1;
     }
+}
+
+/// Largest |g| the transform can give: u1 >= 2^-53, so |g| <= sqrt(-2 ln 2^-53) =
+/// sqrt(106 ln 2), about 8.57 (computed as the transform computes it, so the bound holds to
+/// the last bit).
+pub fn largest_gaussian() -> f64 {
+    (-2.0 * SCALE.ln()).sqrt()
+}
+
+/// A bound on |a_m| over the whole degree-p block:
+///
+/// ```text
+/// |a_m| <= sqrt(n) * gamma * sqrt(p!) * G * w,   G = largest_gaussian(),
+/// ```
+///
+/// since c(m) <= p!, with w = |rho| + sqrt(1 - rho^2) <= sqrt(2) for a correlated draw and
+/// w = 1 otherwise. Storage narrower than f64 is refused when it exceeds the type's range.
+pub fn coefficient_bound(n: usize, p: usize, gamma: f64, disorder: &Disorder) -> f64 {
+    let weight = match disorder.correlated_with {
+        Some((_, rho)) => rho.abs() + (1.0 - rho * rho).max(0.0).sqrt(),
+        None => 1.0,
+    };
+    (n as f64).sqrt() * gamma * (factorial(p) as f64).sqrt() * largest_gaussian() * weight
 }
 
 /// Fills `out` with the coefficients of ranks r0.. of the degree-p block (see module docs).
@@ -282,5 +306,16 @@ mod tests {
         }
         .validate()
         .is_err());
+    }
+
+    /// The smallest u1 (from w1 = 0) gives the largest radius, and it is the bound.
+    #[test]
+    fn the_largest_gaussian_is_the_radius_at_the_smallest_uniform() {
+        let u1 = SCALE; // ((w1 >> 11) + 1) 2^-53 at w1 = 0
+        assert_eq!((-2.0 * u1.ln()).sqrt(), largest_gaussian());
+        assert!((largest_gaussian() - (106.0 * std::f64::consts::LN_2).sqrt()).abs() < 1e-14);
+        let mut g = vec![0.0; 1 << 16];
+        gaussians(3, 2, 0, &mut g);
+        assert!(g.iter().all(|v| v.abs() <= largest_gaussian()));
     }
 }

@@ -8,7 +8,7 @@
 use crate::combinatorics::{num_multisets, MAX_DEGREE};
 use crate::error::{try_zeroed, CoreError, ZeroBits};
 use crate::exec::Exec;
-use crate::sampling::{fill_block, Disorder};
+use crate::sampling::{coefficient_bound, fill_block, Disorder};
 
 /// A storage type for coefficients. Arithmetic is always done in f64.
 pub trait Coef:
@@ -27,6 +27,8 @@ pub trait Coef:
     /// For f32 that made the degree-3 gradient at n = 800 2-3 % faster on one and two threads
     /// (the HVP did not change); for f64 the chain was 1-4 % slower, so f64 keeps the pairs.
     const WIDENS: bool;
+    /// The largest finite value of the type, as f64.
+    const LARGEST: f64;
     fn to_f64(self) -> f64;
     fn from_f64(v: f64) -> Self;
     /// Four consecutive coefficients widened to f64 lanes.
@@ -41,6 +43,7 @@ pub trait Coef:
 impl Coef for f64 {
     const NAME: &'static str = "float64";
     const WIDENS: bool = false;
+    const LARGEST: f64 = f64::MAX;
     #[inline(always)]
     fn to_f64(self) -> f64 {
         self
@@ -59,6 +62,7 @@ impl Coef for f64 {
 impl Coef for f32 {
     const NAME: &'static str = "float32";
     const WIDENS: bool = true;
+    const LARGEST: f64 = f32::MAX as f64;
     #[inline(always)]
     fn to_f64(self) -> f64 {
         self as f64
@@ -142,6 +146,20 @@ impl<T: Coef> Packed<T> {
         let degrees: Vec<usize> = terms.iter().map(|t| t.0).collect();
         let lens = block_lengths(n, &degrees)?;
         storage_bytes(n, &degrees, std::mem::size_of::<T>())?;
+        for &(p, gamma) in terms {
+            // a value past T's range would be stored as an infinity
+            let bound = coefficient_bound(n, p, gamma, disorder);
+            if bound > T::LARGEST {
+                return Err(CoreError::StorageRange {
+                    p,
+                    gamma,
+                    n,
+                    bound,
+                    dtype: T::NAME,
+                    largest: T::LARGEST,
+                });
+            }
+        }
         let mut blocks = Vec::with_capacity(terms.len());
         for (&(p, gamma), &len) in terms.iter().zip(&lens) {
             let mut coeffs = try_zeroed::<T>(len)?;
@@ -226,9 +244,34 @@ impl<T: Coef> Packed<T> {
 #[cfg(test)]
 mod tests {
     use super::*;
+    use crate::sampling::largest_gaussian;
 
     fn pool() -> Exec {
         Exec::with_threads(2).unwrap()
+    }
+
+    /// float32 storage refuses a gamma whose coefficients could pass f32::MAX (they would be
+    /// stored as infinities) and takes one just below the bound, whose coefficients are all
+    /// finite; float64 storage takes both.
+    #[test]
+    fn float32_storage_refuses_coefficients_beyond_its_range() {
+        let exec = pool();
+        let (n, p) = (9, 3);
+        let edge = f32::MAX as f64 / ((n as f64).sqrt() * 6f64.sqrt() * largest_gaussian());
+        let over = Packed::<f32>::sample(&exec, n, &[(p, edge * (1.0 + 1e-9))], &Disorder::new(4));
+        assert!(matches!(over, Err(CoreError::StorageRange { p: 3, .. })));
+        let under = Packed::<f32>::sample(&exec, n, &[(p, edge * (1.0 - 1e-9))], &Disorder::new(4));
+        assert!(under.unwrap().blocks[0]
+            .coeffs
+            .iter()
+            .all(|a| a.is_finite()));
+        let wide = Packed::<f64>::sample(&exec, n, &[(p, edge * 2.0)], &Disorder::new(4));
+        assert!(wide.is_ok());
+        // a correlated draw can reach sqrt(2) times further (rho = 1/sqrt(2))
+        let mut corr = Disorder::new(4);
+        corr.correlated_with = Some((5, std::f64::consts::FRAC_1_SQRT_2));
+        let over = Packed::<f32>::sample(&exec, n, &[(p, edge * 0.8)], &corr);
+        assert!(matches!(over, Err(CoreError::StorageRange { .. })));
     }
 
     #[test]

@@ -180,6 +180,23 @@ def test_bad_coefficient_inputs():
         ham.coefficients(2)
 
 
+def test_float32_sampling_refuses_a_gamma_whose_coefficients_pass_its_range():
+    # they used to be stored as infinities (11 of 35 at gamma = 1e38, n = 5), and the energy
+    # then blamed the point's scale. The bound is |a_m| <= sqrt(n) gamma sqrt(p!) G with
+    # G = sqrt(-2 ln 2^-53), the largest Box-Muller radius of 53-bit uniforms
+    # (Box & Muller 1958; c(m) <= p!); a gamma just under it stores finite values only.
+    n, p = 5, 3
+    edge = np.finfo(np.float32).max / (np.sqrt(n) * np.sqrt(6) * np.sqrt(-2 * np.log(2.0**-53)))
+    with pytest.raises(ValueError, match=r"gamma = 1e38 for p = 3 at n = 5.*float32's range"):
+        oc.Hamiltonian.sample(oc.Mixture({3: 1e38}), n, seed=0, dtype="float32")
+    with pytest.raises(ValueError, match="float32's range"):
+        oc.Hamiltonian.sample(oc.Mixture({p: edge * 1.000001}), n, seed=0, dtype="float32")
+    ham32 = oc.Hamiltonian.sample(oc.Mixture({p: edge * 0.999999}), n, seed=0, dtype="float32")
+    assert np.all(np.isfinite(ham32.coefficients(p)))
+    ham64 = oc.Hamiltonian.sample(oc.Mixture({3: 1e38}), n, seed=0)  # float64 takes it
+    assert np.all(np.isfinite(ham64.coefficients(3)))
+
+
 def test_overflowed_results_raise_instead_of_returning_nan(ham):
     # finite inputs whose products pass the largest float64 (about 1.8e308)
     x = np.full(N, 1e300)
