@@ -249,7 +249,7 @@ impl PyPacked {
         let count = on_storage!(&self.inner, p => p.num_coefficients());
         let passes = (count as u64).saturating_mul(2);
         let items = kernels::pieces(count, n.saturating_mul(n));
-        (passes.saturating_add((n * n) as u64), items)
+        (passes.saturating_add((n as u64).saturating_mul(n as u64)), items)
     }
 }
 

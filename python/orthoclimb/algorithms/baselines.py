@@ -15,9 +15,17 @@ G(x) = P grad H(x)/n, P = I - x x^T.
 
   R(y) = y/|y|, one gradient pass per step, with temperatures T_k from ``schedule``; then
   :func:`orthoclimb.polish` climbs to the nearest near-critical point. The step ``eta`` (per-spin
-  time units) must be small against 1/|Hess e| (the tangent Hessian of e has spectral radius
-  about 2 sqrt(xi''(1)) + xi'(1), about 8 for p = 3); the default 0.02 is safe for mixtures
-  with xi'(1) of order one.
+  time units) must be small against 1/|Hess e|. The tangent Hessian of e is P (Hess e) P minus
+  (x . grad e) P, with x . grad e = sum_p p e_p(x) (Euler's theorem), so its spectral radius is
+  about 2 sqrt(xi''(1)) + |sum_p p e_p(x)|: about 10 at a local maximum of the pure 3-spin
+  model (4.9 + 3 x 1.6; measured 9.6 at n = 300). The default 0.02 keeps eta |Hess e| near 0.2
+  for mixtures of that scale.
+
+  The discretization biases the law sampled by O(eta). Measured on one pure 2-spin instance at
+  n = 400 against its exact Gibbs mean energy: with eta = 0.02 the mean energy per spin was
+  0.3-0.8 % low at T = 0.5-2, and with eta = 0.005 within 0.5 %. On pure 3-spin at n = 200 and
+  T = 2 it was 2 % low at eta = 0.02 against the annealed value xi(1)/T. That bias is harmless
+  for annealing toward a maximum; for sampling at a fixed temperature use a smaller eta.
 """
 
 from __future__ import annotations
