@@ -44,7 +44,7 @@ otherwise steal the cores of the next Rust pass.
 Finite n: how many steps. The edge 2 sqrt(xi''(q)) is the top tangent eigenvalue at a point
 that does not depend on the disorder; the points of the path do. Measured on the pure 3-spin
 model (this package, 3 seeds per cell), the top tangent eigenvalue at step i runs below the edge
-by about 1-4 % for i < 5, 6-9 % for i ~ 20, 8-13 % for i >= 100 (n = 800 ... 200): consecutive
+by about 1-4 % for i < 5, 6-9 % for i ~ 20, 6.5-13 % for i >= 100 (n = 800 ... 200): consecutive
 step directions overlap by 0.3-0.5 once i passes about n^(1/3), so the path keeps returning to
 directions it has already used, and the top eigenvector lies mostly in their span. The
 prediction assumes n -> infinity first, then K -> infinity (K/n -> 0). The energy reached
