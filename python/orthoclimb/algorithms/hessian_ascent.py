@@ -47,10 +47,13 @@ model (this package, 3 seeds per cell), the top tangent eigenvalue at step i run
 by about 1-4 % for i < 5, 6-9 % for i ~ 20, 6.5-13 % for i >= 100 (n = 800 ... 200): consecutive
 step directions overlap by 0.3-0.5 once i passes about n^(1/3), so the path keeps returning to
 directions it has already used, and the top eigenvector lies mostly in their span. The
-prediction assumes n -> infinity first, then K -> infinity (K/n -> 0). The energy reached
-hardly depends on K once K >= 25 (within 0.01 per spin at n = 400 for K = 25 ... 400; the coarse
-steps cost about 1.2/K, the reused directions the rest), while the cost is proportional to K.
-So the default is K = ``auto_steps(n)`` = n/8 clamped to [25, 200].
+prediction assumes n -> infinity first, then K -> infinity (K/n -> 0). Before polishing, the
+energy reached falls slightly as K grows at these sizes (n = 400, two seeds: by 0.015-0.023 from
+K = 25 to 400; the coarse steps cost about 1.2/K, the reused directions the rest); after
+polishing it moves by 0.009-0.016 with no trend in K, and at n = 800-1200 K = 25 did about as
+well as K = 100-150 (README, Known limitations), while the cost is proportional to K. The default
+K = ``auto_steps(n)`` = n/8 clamped to [25, 200] grows with n because the n -> infinity limit
+needs K -> infinity; at n <= 1200, ``steps=25`` is as good and cheaper.
 
 Hessian or Hessian-vector products (``hessian="auto"``). One HVP costs almost a Hessian pass
 (measured at n = 800, p = 3: 0.07 s against 0.08 s on 2 cores), and Lanczos needs at least ten
