@@ -7,6 +7,7 @@ import math
 
 import numpy as np
 import pytest
+import scipy.integrate
 import scipy.linalg
 
 import orthoclimb as oc
@@ -99,6 +100,26 @@ def test_p3_path_tracks_prediction(p3_run):
     assert np.all(gap > -0.10)
 
 
+def test_the_stepwise_prediction_is_e_path_less_the_coarse_steps(p3_run):
+    # K steps of eps^2 = 1/K from a random start at q = 1/K: the column is the left Riemann
+    # sum of f = sqrt(xi'') over [1/K, 1], so ALG - E_K(1) = int_0^{1/K} f (what the random
+    # start does not have) + (f(1) - f(1/K)) / (2K) (Euler-Maclaurin, first term; f = sqrt(6q)
+    # has an unbounded derivative at 0, so the remainder is O(K^-3/2) rather than O(K^-2)).
+    _ham, res = p3_run
+    p = res.path
+    k = len(p["q"])  # K points: q = 1/K, ..., 1
+    f = lambda q: math.sqrt(6.0 * q)  # noqa: E731 - xi = q^3
+    head, _ = scipy.integrate.quad(f, 0.0, 1.0 / k)
+    expected = head + (f(1.0) - f(1.0 / k)) / (2 * k)
+    loss = p["predicted_energy"][-1] - p["predicted_energy_steps"][-1]
+    assert loss == pytest.approx(expected, abs=2 * k**-1.5)
+    assert loss > 0.5 * expected  # the correction is not lost in the tolerance
+    # and step by step: the increments are (q_{i+1} - q_i) sqrt(xi''(q_i)), from 0
+    steps = np.diff(p["predicted_energy_steps"])
+    assert p["predicted_energy_steps"][0] == 0.0
+    assert np.allclose(steps, np.diff(p["q"]) * np.sqrt(6.0 * p["q"][:-1]), rtol=1e-12, atol=0)
+
+
 def test_path_deficit_grows_with_the_steps_taken(p3_run):
     # This package's measurement (not theory; hessian_ascent module doc, "Finite n"): early
     # steps see an almost fresh Hessian (1-4 % below the edge for i < 5 at n = 200-800), late
@@ -149,6 +170,9 @@ def test_field_stage_against_alg():
     assert stage["q_hat"] == pytest.approx(math.sqrt(1.0 / 3.0))
     assert abs(stage["energy"] - stage["predicted"]) < 0.05
     assert res.path["stage"][0] == 1 and res.path["q"][0] == pytest.approx(stage["q_hat"])
+    # the steps' own prediction starts where stage 1's does, E_path(q_hat), and stays below
+    assert res.path["predicted_energy_steps"][0] == res.path["predicted_energy"][0]
+    assert np.all(res.path["predicted_energy_steps"][1:] < res.path["predicted_energy"][1:])
     assert res.path["q"][-1] == pytest.approx(1.0)
     alg = oc.algorithmic_energy(mix)
     assert alg - 0.10 < res.info["energy_ascent"] < alg

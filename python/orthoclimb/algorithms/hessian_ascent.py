@@ -106,6 +106,7 @@ _COLUMNS = (
     "eigenvalue",
     "first_order",
     "predicted_energy",
+    "predicted_energy_steps",
     "predicted_edge",
     "t_hessian",
     "t_gradient",
@@ -117,6 +118,22 @@ def auto_steps(n: int) -> int:
     """The default number of steps K for n spins: n // 8, at least 25 and at most 200 (see
     "Finite n" in the module doc for the measurements behind it)."""
     return int(min(200, max(25, n // 8)))
+
+
+def _stepwise_energy(mixture: Mixture, q: np.ndarray, start: float) -> np.ndarray:
+    """The energy per spin the path's own steps predict at each of its points q_0 < q_1 < ...:
+
+        E_K(q_0) = start,   E_K(q_{i+1}) = E_K(q_i) + (q_{i+1} - q_i) sqrt(xi''(q_i)).
+
+    A step of length eps along a top eigenvector gains eps^2 lambda / 2 per spin at second
+    order, with lambda = 2 sqrt(xi''(q_i)) (``hessian_edge``) and eps^2 = q_{i+1} - q_i: the
+    left Riemann sum of E_path(q) = int sqrt(xi''), which K coarse steps fall short of by about
+    (sqrt(xi''(1)) - sqrt(xi''(q_0))) / (2K), plus the part of E_path below q_0 that a random
+    start (``start`` = 0) does not have. Comparing a run with E_K rather than E_path leaves the
+    finite-n effects alone."""
+    q = np.asarray(q, dtype=np.float64)
+    gains = np.diff(q) * np.sqrt(np.asarray(mixture.xi(q[:-1], derivative=2), dtype=np.float64))
+    return start + np.concatenate(([0.0], np.cumsum(gains)))
 
 
 def _choose_mode(ham: Hamiltonian, mode: str) -> str:
@@ -185,9 +202,12 @@ def hessian_ascent(
     one row per visited point: ``step``, ``stage`` (1 = field stage, 2 = Hessian steps), ``q`` =
     |x|^2, ``energy`` H(x)/n, ``eigenvalue`` (top tangent eigenvalue of Hess H(x), per spin),
     ``first_order`` <grad H(x), v>/n after the sign choice, ``predicted_energy`` E_path(q),
-    ``predicted_edge`` 2 sqrt(xi''(q)), and the seconds of the Hessian pass (``t_hessian``),
-    the extra gradient pass if any (``t_gradient``) and the eigen-solve (``t_eigen``). The last
-    row is the end point (no eigen-solve there: NaN).
+    ``predicted_energy_steps`` what the run's own steps predict, E_path less the coarse steps'
+    loss (the sum of (q_{i+1} - q_i) sqrt(xi''(q_i)) over the steps so far, from E_path(q_hat)
+    after stage 1 or from 0 at a random start), ``predicted_edge`` 2 sqrt(xi''(q)), and the
+    seconds of the Hessian pass (``t_hessian``), the extra gradient pass if any
+    (``t_gradient``) and the eigen-solve (``t_eigen``). The last row is the end point (no
+    eigen-solve there: NaN).
     """
     ham = check_ham(ham, "hessian_ascent")
     warn_if_far_scale(ham, "hessian_ascent")
@@ -312,6 +332,9 @@ def hessian_ascent(
     qs = np.clip(path["q"], 0.0, 1.0)
     if mixture is not None:
         path["predicted_energy"] = np.asarray(path_energy(mixture, qs), dtype=np.float64)
+        # stage 1 ends near its predicted maximum E_path(q_hat); a random start has energy ~0
+        start = float(path["predicted_energy"][0]) if q_hat > 0.0 else 0.0
+        path["predicted_energy_steps"] = _stepwise_energy(mixture, qs, start)
         path["predicted_edge"] = np.asarray(hessian_edge(mixture, qs), dtype=np.float64)
     norm = float(np.linalg.norm(x))
     x = x / norm

@@ -36,6 +36,10 @@ def plot_result(result: Result, path: str | os.PathLike) -> None:
         q = p["q"]
         ax1.plot(q, p["energy"], ".", ms=3, color="C0", label="measured H(x)/n")
         ax1.plot(q, p["predicted_energy"], color="C1", label="predicted E_path(q)")
+        if "predicted_energy_steps" in p:  # results saved before the column existed lack it
+            ax1.plot(
+                q, p["predicted_energy_steps"], "--", color="C1", lw=1, label="with K coarse steps"
+            )
         ax1.set_xlabel("q = |x|^2")
         ax2.plot(q, p["eigenvalue"], ".", ms=3, color="C0", label="top tangent eigenvalue / n")
         ax2.plot(q, p["predicted_edge"], color="C1", label="predicted 2 sqrt(xi''(q))")
