@@ -114,11 +114,17 @@ impl fmt::Display for CoreError {
                 bound,
                 dtype,
                 largest,
-            } => write!(
-                f,
-                "gamma = {gamma:?} for p = {p} at n = {n}: sampled coefficients can reach \
-                 {bound:.4e}, beyond {dtype}'s range (+-{largest:.4e}); use dtype 'float64'"
-            ),
+            } => {
+                write!(
+                    f,
+                    "gamma = {gamma:?} for p = {p} at n = {n}: sampled coefficients can reach \
+                     {bound:.4e}, beyond {dtype}'s range (+-{largest:.4e})"
+                )?;
+                if *dtype != "float64" {
+                    write!(f, "; store them with dtype=\"float64\"")?;
+                }
+                Ok(())
+            }
         }
     }
 }

@@ -174,10 +174,13 @@ fn slice2<'a>(a: &'a PyReadonlyArray2<'_, f64>, name: &str) -> PyResult<&'a [f64
         .map_err(|_| PyValueError::new_err(format!("{name} must be a C-contiguous float64 array")))
 }
 
-/// A kernel's input, copied while the GIL is held: a read-only view does not stop another
-/// Python thread from writing to the array while the kernel runs detached, which would make
-/// the kernel read a half-written point (and break the borrow's promise). The copy is O(n)
-/// per point or direction, against a pass over all the coefficients.
+/// A kernel's input, copied when the call starts, while the GIL is held: a read-only view does
+/// not stop another Python thread from writing to the array while the kernel runs detached,
+/// and the kernel then read a point that changed during its pass. The copy is O(n) per point
+/// or direction, against a pass over all the coefficients. It does not make such writes safe:
+/// NumPy releases the GIL while it writes arrays of 500 elements or more, so one can still be
+/// under way during the copy. Writing to an input from another thread during a call is not
+/// supported; the copy only keeps the pass itself on one snapshot.
 fn input1(a: &PyReadonlyArray1<'_, f64>, name: &str) -> PyResult<Vec<f64>> {
     slice1(a, name).map(<[f64]>::to_vec)
 }
@@ -249,7 +252,10 @@ impl PyPacked {
         let count = on_storage!(&self.inner, p => p.num_coefficients());
         let passes = (count as u64).saturating_mul(2);
         let items = kernels::pieces(count, n.saturating_mul(n));
-        (passes.saturating_add((n as u64).saturating_mul(n as u64)), items)
+        (
+            passes.saturating_add((n as u64).saturating_mul(n as u64)),
+            items,
+        )
     }
 }
 

@@ -181,12 +181,17 @@ pub(crate) fn coefs_at<T: Coef>(rows: &Rows4<'_, T>, u: usize) -> [f64; 4] {
 
 /// The checks every implementation relies on; returns len.
 #[inline(always)]
-pub(crate) fn check_rows<T>(rows: &Rows4<'_, T>, x: &[f64], v: Option<&[f64]>, z: usize) -> usize {
+pub(crate) fn check_rows<T: Coef>(
+    rows: &Rows4<'_, T>,
+    x: &[f64],
+    v: Option<&[f64]>,
+    z: usize,
+) -> usize {
     let len = rows.len;
     // the vector steps read rows.data unchecked, so it must hold exactly the rows
     let count = rows.count;
     assert!((1..=4).contains(&count) && count <= len);
-    let expected = count * len - count * (count - 1) / 2;
+    let expected = Rows4::<T>::offset_for(len, count);
     assert_eq!(rows.data.len(), expected, "rows: coefficients");
     assert!(x.len() >= len && v.is_none_or(|v| v.len() >= len));
     assert!(z == 0 || z >= len);
@@ -374,11 +379,15 @@ pub struct HessRows<'a> {
 impl HessRows<'_> {
     /// The checks the loops rely on: every row written exists and holds columns k..n.
     #[inline(always)]
-    pub(crate) fn check<T>(&self, rows: &Rows4<'_, T>, x: &[f64], acc: &[f64]) -> usize {
+    pub(crate) fn check<T: Coef>(&self, rows: &Rows4<'_, T>, x: &[f64], acc: &[f64]) -> usize {
         let len = check_rows(rows, x, None, 0);
         let (n, k) = (self.n, self.k);
+        assert!(
+            k.checked_add(len) == Some(n),
+            "hessian rows: k + len != n = {n}"
+        );
         let square = n.checked_mul(n);
-        let fits = k.checked_add(len) == Some(n) && square.is_some_and(|sq| acc.len() >= sq);
+        let fits = square.is_some_and(|sq| acc.len() >= sq);
         assert!(fits, "hessian rows: accumulator too short for n = {n}");
         assert!(self.shared.iter().all(|&(i, _)| i < n));
         len

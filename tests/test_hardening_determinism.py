@@ -198,7 +198,9 @@ def test_a_point_rewritten_during_a_call_does_not_leak_into_its_result(kernel):
     # before it lets go of the GIL, so the result is that of the point as it was when the
     # call began (or, if the writer got there first, as it was after): never a mixture of both.
     # Before the copy, 5 of 5 Hessians equalled neither (common practice: a kernel must not
-    # read caller memory that Python code may change while it runs).
+    # read caller memory that Python code may change while it runs). n = 300 < 500 keeps the
+    # writer's copy under the GIL (NumPy releases it for larger ones, and then even the start
+    # copy can see a half-written point: the README calls such writes unsupported).
     n = 300
     ham = oc.Hamiltonian.sample(oc.Mixture({3: 1.0}), n, seed=1)
     rng = np.random.default_rng(0)

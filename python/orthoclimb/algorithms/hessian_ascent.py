@@ -53,7 +53,8 @@ K = 25 to 400; the coarse steps cost about 1.2/K, the reused directions the rest
 polishing it moves by 0.009-0.016 with no trend in K, and at n = 800-1200 K = 25 did about as
 well as K = 100-150 (README, Known limitations), while the cost is proportional to K. The default
 K = ``auto_steps(n)`` = n/8 clamped to [25, 200] grows with n because the n -> infinity limit
-needs K -> infinity; at n <= 1200, ``steps=25`` is as good and cheaper.
+needs K -> infinity; at n = 800-1200 ``steps=25`` did about as well on five instances at a
+quarter to a sixth of the cost (too few to change the default on).
 
 Hessian or Hessian-vector products (``hessian="auto"``). One HVP costs almost a Hessian pass
 (measured at n = 800, p = 3: 0.07 s against 0.08 s on 2 cores), and Lanczos needs at least ten
@@ -127,9 +128,10 @@ def _stepwise_energy(mixture: Mixture, q: np.ndarray, start: float) -> np.ndarra
 
     A step of length eps along a top eigenvector gains eps^2 lambda / 2 per spin at second
     order, with lambda = 2 sqrt(xi''(q_i)) (``hessian_edge``) and eps^2 = q_{i+1} - q_i: the
-    left Riemann sum of E_path(q) = int sqrt(xi''), which K coarse steps fall short of by about
-    (sqrt(xi''(1)) - sqrt(xi''(q_0))) / (2K), plus the part of E_path below q_0 that a random
-    start (``start`` = 0) does not have. Comparing a run with E_K rather than E_path leaves the
+    left Riemann sum of E_path(q) = int sqrt(xi''), which K - 1 equal steps from q_0 to 1 fall
+    short of by about (1 - q_0)(f(1) - f(q_0)) / (2 (K - 1)), f = sqrt(xi'') ((f(1) - f(1/K))/(2K)
+    from a random start at q_0 = 1/K), plus the part of E_path below q_0 that a random start
+    (``start`` = 0) does not have. Comparing a run with E_K rather than E_path leaves the
     finite-n effects alone."""
     q = np.asarray(q, dtype=np.float64)
     gains = np.diff(q) * np.sqrt(np.asarray(mixture.xi(q[:-1], derivative=2), dtype=np.float64))
