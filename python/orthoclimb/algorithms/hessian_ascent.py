@@ -50,11 +50,11 @@ directions it has already used, and the top eigenvector lies mostly in their spa
 prediction assumes n -> infinity first, then K -> infinity (K/n -> 0). Before polishing, the
 energy reached falls slightly as K grows at these sizes (n = 400, two seeds: by 0.015-0.023 from
 K = 25 to 400; the coarse steps cost about 1.2/K, the reused directions the rest); after
-polishing it moves by 0.009-0.016 with no trend in K, and at n = 800-1200 K = 25 did about as
-well as K = 100-150 (README, Known limitations), while the cost is proportional to K. The default
-K = ``auto_steps(n)`` = n/8 clamped to [25, 200] grows with n because the n -> infinity limit
-needs K -> infinity; at n = 800-1200 ``steps=25`` did about as well on five instances at a
-quarter to a sixth of the cost (too few to change the default on).
+polishing it moves by 0.009-0.016 with no trend in K. At n = 800-1600 (17 paired instances,
+README, Known limitations) the default K ended 0.011 +- 0.003 higher than K = 25 before
+polishing and the same after it (+0.002 +- 0.002 for K = 25), while the cost is proportional to
+K. The default K = ``auto_steps(n)`` = n/8 clamped to [25, 200] grows with n because the
+n -> infinity limit needs K -> infinity; for polished energies alone ``steps=25`` is cheaper.
 
 Hessian or Hessian-vector products (``hessian="auto"``). One HVP costs almost a Hessian pass
 (measured at n = 800, p = 3: 0.07 s against 0.08 s on 2 cores), and Lanczos needs at least ten
