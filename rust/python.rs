@@ -176,10 +176,10 @@ fn slice2<'a>(a: &'a PyReadonlyArray2<'_, f64>, name: &str) -> PyResult<&'a [f64
 
 /// A kernel's input, copied when the call starts, while the GIL is held: a read-only view does
 /// not stop another Python thread from writing to the array while the kernel runs detached,
-/// and the kernel then read a point that changed during its pass. The copy is O(n) per point
-/// or direction, against a pass over all the coefficients. It does not make such writes safe:
-/// NumPy releases the GIL while it writes arrays of 500 elements or more, so one can still be
-/// under way during the copy. Writing to an input from another thread during a call is not
+/// and the kernel would then read a point that changes during its pass. The copy is O(n) per
+/// point or direction, against a pass over all the coefficients. It does not make such writes
+/// safe: NumPy releases the GIL while it writes arrays of 500 elements or more, so one can still
+/// be under way during the copy. Writing to an input from another thread during a call is not
 /// supported; the copy only keeps the pass itself on one snapshot.
 fn input1(a: &PyReadonlyArray1<'_, f64>, name: &str) -> PyResult<Vec<f64>> {
     slice1(a, name).map(<[f64]>::to_vec)
