@@ -102,16 +102,26 @@ impl<'a, T: Coef> Rows4<'a, T> {
     /// Checks that `data` holds exactly the `count` rows (1 <= count <= 4, each non-empty).
     #[inline(always)]
     pub fn new(data: &'a [T], len: usize, count: usize) -> Self {
+        let rows = Rows4 { data, len, count };
+        rows.check_shape();
+        rows
+    }
+
+    /// The shape [`Rows4::new`] promises (the vector steps read `data` unchecked, so it must
+    /// hold exactly the rows); checked again by [`check_rows`] for rows built in this crate
+    /// without `new`.
+    #[inline(always)]
+    fn check_shape(&self) {
+        let (len, count) = (self.len, self.count);
         assert!(
             (1..=4).contains(&count) && count <= len,
             "rows: count {count}, len {len}"
         );
         assert_eq!(
-            data.len(),
+            self.data.len(),
             Self::offset_for(len, count),
             "rows: coefficients"
         );
-        Rows4 { data, len, count }
     }
 
     #[inline(always)]
@@ -188,11 +198,7 @@ pub(crate) fn check_rows<T: Coef>(
     z: usize,
 ) -> usize {
     let len = rows.len;
-    // the vector steps read rows.data unchecked, so it must hold exactly the rows
-    let count = rows.count;
-    assert!((1..=4).contains(&count) && count <= len);
-    let expected = Rows4::<T>::offset_for(len, count);
-    assert_eq!(rows.data.len(), expected, "rows: coefficients");
+    rows.check_shape();
     assert!(x.len() >= len && v.is_none_or(|v| v.len() >= len));
     assert!(z == 0 || z >= len);
     len

@@ -45,6 +45,7 @@ __all__ = [
 _CAL_BYTES = 64 * 2**20
 # seconds of Lanczos per Hessian-ascent step: a + b n^2 (module doc)
 LANCZOS_SECONDS = (6e-4, 1.1e-8)
+_POLISH_PASSES = 150  # energy-and-gradient passes of a polish (module doc)
 _TASK_OVERHEAD = 0.02  # seconds per task: Dask round trip and the row's atomic write
 _CLUSTER_START = 2.0  # seconds: an embedded cluster's processes start and import the package
 
@@ -119,9 +120,9 @@ def estimate_from(cal: dict[str, Calibration], tasks, workers: int, embedded: bo
         if t.method.name == "hessian":
             eigen = LANCZOS_SECONDS[0] + LANCZOS_SECONDS[1] * t.n**2  # per step
             k = auto_steps(t.n) if opts["steps"] == "auto" else opts["steps"]
-            total += scale * (k * c.hessian + 150 * c.energy_and_gradient) + eigen * k
-        elif t.method.name == "anneal":  # one pass per step, then about 150 for the polish
-            polish = 150 if opts["polish"] else 0
+            total += scale * (k * c.hessian + _POLISH_PASSES * c.energy_and_gradient) + eigen * k
+        elif t.method.name == "anneal":  # one pass per step, then the polish's
+            polish = _POLISH_PASSES if opts["polish"] else 0
             total += scale * (opts["steps"] + polish) * c.energy_and_gradient
         else:
             total += scale * min(150, opts["max_iter"]) * c.energy_and_gradient * 1.5

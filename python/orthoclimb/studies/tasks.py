@@ -84,8 +84,7 @@ def run_task(task: Task, threads: int | None = None) -> dict[str, Any]:
     to at this n), the iterations for gradient ascent.
     """
     from .. import __version__
-    from ..algorithms import gradient_ascent, hessian_ascent, langevin_anneal
-    from ..algorithms.baselines import geometric_schedule
+    from ..algorithms import geometric_schedule, gradient_ascent, hessian_ascent, langevin_anneal
     from ..model import Hamiltonian
     from ..runtime import get_num_threads, set_num_threads
 

@@ -15,12 +15,11 @@ B = L - int_0^1 alpha > 0 and integrating the xi'' term by parts gives the form 
 
 Note the direction of the inner integral: C(q) collects alpha from q up to 1, so C(1) = B and C
 decreases. (The other direction, B + int_0^q alpha, which a restatement can slip into, cannot
-reproduce GS = ALG for
-full-RSB mixtures, while this one gives back, from its stationarity conditions, both the full-RSB
-criterion and the ALG formula with q_hat. A constant alpha gives the same value in both versions,
-which is why the one-step solution of pure models does not tell them apart. For
-xi = q^2 + 0.05 q^4, which satisfies the criterion, that version's minimum over 32 steps is
-1.4820897 while ALG = 1.4820407; this version gives ALG to 1e-10.)
+reproduce GS = ALG for full-RSB mixtures, while this one gives back, from its stationarity
+conditions, both the full-RSB criterion and the ALG formula with q_hat. A constant alpha gives the
+same value in both versions, which is why the one-step solution of pure models does not tell them
+apart. For xi = q^2 + 0.05 q^4, which satisfies the criterion, that version's minimum over 32 steps
+is 1.4820897 while ALG = 1.4820407; this version gives ALG to 1e-10.)
 
 Why this form is convenient. P is convex in (B, alpha) jointly: two linear terms plus the integral
 of 1 / (a positive linear function). We take alpha constant, alpha = m_j, on each piece
@@ -406,9 +405,9 @@ def _move_jumps(
     moved = np.zeros(jumps.size, dtype=bool)
     for i in np.flatnonzero(wanted):  # in order, so neighbours that moved are respected
         j = jumps[i]
+        margin = 1e-6 * (q[j + 1] - q[j - 1])
         for frac in (1.0, 0.5, 0.25, 0.125):
             t = q[j] + frac * (places[i] - q[j])
-            margin = 1e-6 * (q[j + 1] - q[j - 1])
             if not q[j - 1] + margin < t < q[j + 1] - margin:
                 continue
             trial = q.copy()
