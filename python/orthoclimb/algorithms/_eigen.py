@@ -3,9 +3,8 @@
 At x (u = x/|x|) the tangent space is u^perp, and each Hessian-ascent step needs the top
 eigenpair of the Hessian M restricted to it. We work in an orthonormal basis B (n x (n-1)) of
 u^perp, never formed: B = H[:, 1:] for the Householder reflector H = I - 2 w w^T that maps u to
--+e_1
-(w = (u + s e_1)/|u + s e_1|, s = sign(u_1), which never cancels; Golub & Van Loan, Matrix
-Computations, section 5.1). The restricted matrix B^T M B is the trailing (n-1) x (n-1) block
+-+e_1 (w = (u + s e_1)/|u + s e_1|, s = sign(u_1), which never cancels; Golub & Van Loan,
+Matrix Computations, section 5.1). The restricted matrix B^T M B is the trailing (n-1) x (n-1) block
 of H M H, formed in place with two rank-one updates (BLAS dger):
 
     H M H = M - w z^T - z w^T,   a = M w,   z = 2 a - 2 (w.a) w,
@@ -18,15 +17,14 @@ Lanczos, whose vectors pick up a rounding-sized part along u, then converges to 
 Stopping rule. ARPACK (``scipy.sparse.linalg.eigsh``, which="LA") stops when the residual of the
 Ritz pair satisfies |M_T y - theta y| <= tol_rel |theta|. A residual r bounds the distance from
 theta to the spectrum by |r|, so passing tol_rel = delta n / |theta| gives a Rayleigh quotient
-within delta n of an eigenvalue (the top one, since Lanczos with "LA" converges to it first),
-the accuracy ``tol`` of ``hessian_ascent`` asks for, and no more. |theta| is bounded by 1.25
-times the previous step's (the edge moves by O(1/K) per step); on the first step by the
-Frobenius norm (dense) or, for the operator, by |grad H| + 1, which need not bound it: whenever the
-solved |theta| exceeds
-the bound used, ``hessian_ascent`` solves again from the vector found with the tolerance that
-|theta| gives, so every step's Rayleigh quotient is within delta n. The start vector is the
-previous step's eigenvector projected on the new tangent space (warm start). Tangent spaces of
-at most ``DIRECT_MAX`` dimensions are solved exactly by ``scipy.linalg.eigh`` (ARPACK needs more
+within delta n of an eigenvalue (the top one, since Lanczos with "LA" converges to it first), the
+accuracy ``tol`` of ``hessian_ascent`` asks for, and no more. |theta| is bounded by 1.25 times the
+previous step's (the edge moves by O(1/K) per step); on the first step by the Frobenius norm
+(dense) or, for the operator, by |grad H| + 1, which need not bound it: whenever the solved |theta|
+exceeds the bound used, ``hessian_ascent`` solves again from the vector found with the tolerance
+that |theta| gives, so every step's Rayleigh quotient is within delta n. The start vector is the
+previous step's eigenvector projected on the new tangent space (warm start). Tangent spaces of at
+most ``DIRECT_MAX`` dimensions are solved exactly by ``scipy.linalg.eigh`` (ARPACK needs more
 dimensions than wanted eigenvalues, and for so few a dense solve is cheaper anyway).
 """
 

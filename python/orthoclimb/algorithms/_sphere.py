@@ -5,8 +5,7 @@ P = I - u u^T. The retraction used everywhere is the metric projection R(y) = r 
 
 Reading the energy and the gradient off the Hessian (exact identities: Euler's theorem on
 homogeneous functions). Write H = H_1 + H_2 + sum_{p >= 3} H_p. Then Hess H_1 = 0, Hess H_2 = C is
-the constant matrix
-Hess H(0), and for each homogeneous part Hess H_p(x) x = (p - 1) grad H_p(x) and
+the constant matrix Hess H(0), and for each homogeneous part Hess H_p(x) x = (p - 1) grad H_p(x) and
 x . grad H_p(x) = p H_p(x) (Euler). So when at most one degree p >= 3 is present,
 
     grad H(x) = h + C x + (Hess H(x) - C) x / (p - 1),
