@@ -150,3 +150,15 @@ def test_anneal_costs_a_pass_per_step_plus_the_polish():
         kernel = estimate_from(cal, [task], 1, embedded=False)
         kernel -= estimate_from(_cal(), [task], 1, embedded=False)
         assert kernel == pytest.approx(passes * 0.01, rel=1e-12), (steps, polish)
+
+
+def test_hessian_ascent_pays_for_the_polish_only_when_it_polishes():
+    # exact arithmetic of the module doc's model: (n/n0)^3 (K t_hess + 150 t_eg) with the
+    # polish on, (n/n0)^3 K t_hess with it off (the polish is hessian_ascent's own option)
+    cal = _cal(hessian=0.01, energy_and_gradient=0.001)
+    for polish, passes in ((True, 150), (False, 0)):
+        method = MethodSpec.make("hessian", {"steps": 10, "polish": polish})
+        (task,) = StudySpec(_spec().mixtures, (20,), (0,), (method,)).tasks()
+        kernel = estimate_from(cal, [task], 1, embedded=False)
+        kernel -= estimate_from(_cal(), [task], 1, embedded=False)
+        assert kernel == pytest.approx(10 * 0.01 + passes * 0.001, rel=1e-12), polish

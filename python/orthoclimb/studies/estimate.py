@@ -6,10 +6,10 @@ largest of the mixture's sizes whose instance takes at most 64 MB, at most 400),
 degree. The cost per coefficient falls as n grows (per-segment overheads), so n0 is taken as
 large as that allows. Hessian ascent: K x (a Hessian pass plus Lanczos, about 6e-4 + 1.1e-8
 n^2 s: medians per step on one thread 0.7, 1.4 and 1.8 ms at n = 100, 220 and 320 for the
-pure 3-spin model, 3.9 and 10.4 ms at n = 600 and 1000 for the pure 2-spin one) plus about 150
-energy-and-gradient passes for the polish; gradient ascent: about 150 iterations x 1.5 passes
-for backtracking, capped by max_iter (its iteration count is not known in advance: the demo's
-grids took 60-200, about 75-330 passes). Each task also costs about 0.02 s of Dask round trip
+pure 3-spin model, 3.9 and 10.4 ms at n = 600 and 1000 for the pure 2-spin one) plus, when it
+polishes, about 150 energy-and-gradient passes; gradient ascent: about 150 iterations x 1.5
+passes for backtracking, capped by max_iter (its iteration count is not known in advance: the
+demo's grids took 60-200, about 75-330 passes). Each task also costs about 0.02 s of Dask round trip
 and row writing, and an embedded cluster about 2 s to start (its worker processes start and
 import the package before their first task). Measured for ``demo --quick`` (72 small tasks, 2
 workers): the sweep took 4.1 s, of which its tasks' own sampling and running were 3.2 s over
@@ -120,7 +120,8 @@ def estimate_from(cal: dict[str, Calibration], tasks, workers: int, embedded: bo
         if t.method.name == "hessian":
             eigen = LANCZOS_SECONDS[0] + LANCZOS_SECONDS[1] * t.n**2  # per step
             k = auto_steps(t.n) if opts["steps"] == "auto" else opts["steps"]
-            total += scale * (k * c.hessian + _POLISH_PASSES * c.energy_and_gradient) + eigen * k
+            polish = _POLISH_PASSES if opts["polish"] else 0
+            total += scale * (k * c.hessian + polish * c.energy_and_gradient) + eigen * k
         elif t.method.name == "anneal":  # one pass per step, then the polish's
             polish = _POLISH_PASSES if opts["polish"] else 0
             total += scale * (opts["steps"] + polish) * c.energy_and_gradient
