@@ -245,7 +245,8 @@ pub fn dot2_axpy<T: Coef>(a: &[T], x: &[f64], v: &[f64], w: &mut [f64], alpha: f
 /// 128 and 512 floats ahead did no better. float64 later (on a Xeon, medians of 5
 /// alternating runs, with huge pages, see [`crate::pages`]): p = 3, n = 400 energy 3.04 ->
 /// 2.66 ms, gradient 2.88 -> 2.47, Hessian 4.43 -> 4.10, HVP 3.40 -> 2.63; n = 800 (read
-/// from memory) 2-8 % faster.
+/// from memory) 2-8 % faster. Those runs prefetched into L1; on AMD Zen 3 and newer the lines
+/// go to L2 instead (see [`crate::simd::segment_prefetch_level`] for the Zen 4 measurements).
 const AHEAD: usize = 256;
 /// Shortest segments that prefetch. Without this floor the short segments of degree 4 and
 /// up (about 30 long at n = 120) ran 3-5 % slower; with 64 the p = 4, n = 120 float32
@@ -253,13 +254,30 @@ const AHEAD: usize = 256;
 /// keeps its gain.
 const AHEAD_MIN_LEN: usize = 128;
 
-/// Prefetches the line `AHEAD` coefficients past position i of each segment, once per line
-/// (a prefetch is a hint: the address may lie past the segment and never faults).
+/// Where a four-segment loop over segments of `len` coefficients prefetches: nowhere below
+/// [`AHEAD_MIN_LEN`], else into the cache level [`crate::simd::segment_prefetch_level`]
+/// chose for this processor.
 #[inline(always)]
-unsafe fn prefetch_segments<T: Coef>(pa: &[*const T; 4], i: usize) {
+fn segment_prefetch(len: usize) -> Option<crate::simd::PrefetchLevel> {
+    (len >= AHEAD_MIN_LEN).then(crate::simd::segment_prefetch_level)
+}
+
+/// Prefetches the line `AHEAD` coefficients past position i of each segment, once per line,
+/// into `level` (a prefetch is a hint: the address may lie past the segment and never
+/// faults).
+#[inline(always)]
+unsafe fn prefetch_segments<T: Coef>(
+    pa: &[*const T; 4],
+    i: usize,
+    level: crate::simd::PrefetchLevel,
+) {
     if i.is_multiple_of(64 / std::mem::size_of::<T>()) {
         for p in pa {
-            _mm_prefetch::<_MM_HINT_T0>(p.wrapping_add(i + AHEAD) as *const i8);
+            let at = p.wrapping_add(i + AHEAD) as *const i8;
+            match level {
+                crate::simd::PrefetchLevel::L1 => _mm_prefetch::<_MM_HINT_T0>(at),
+                crate::simd::PrefetchLevel::L2 => _mm_prefetch::<_MM_HINT_T1>(at),
+            }
         }
     }
 }
@@ -287,13 +305,13 @@ fn dots_axpy4<T: Coef, const WITH_V: bool, const WITH_Z: bool>(
         let wv = splat4(w);
         let mut ax = [_mm256_setzero_pd(); 4];
         let mut av = [_mm256_setzero_pd(); 4];
-        let prefetch = len >= AHEAD_MIN_LEN;
+        let prefetch = segment_prefetch(len);
         let mut i = 0;
         while i + 4 <= len {
             let xt = _mm256_loadu_pd(px.add(i));
             let mut c = [_mm256_setzero_pd(); 4];
-            if prefetch {
-                prefetch_segments(&pa, i);
+            if let Some(level) = prefetch {
+                prefetch_segments(&pa, i, level);
             }
             for j in 0..4 {
                 c[j] = T::load4(pa[j].add(i));
@@ -421,11 +439,11 @@ fn rows4_shared<T: Coef, const TWO: bool>(
         );
         let xv = splat4(xi);
         let mut acc = [_mm256_setzero_pd(); 4];
-        let prefetch = len >= AHEAD_MIN_LEN;
+        let prefetch = segment_prefetch(len);
         let mut i = 0;
         while i + 4 <= len {
-            if prefetch {
-                prefetch_segments(&pa, i);
+            if let Some(level) = prefetch {
+                prefetch_segments(&pa, i, level);
             }
             let xt = _mm256_loadu_pd(px.add(i));
             let mut c = [_mm256_setzero_pd(); 4];
