@@ -59,3 +59,44 @@ def test_a_folder_blocked_by_a_file_is_a_clear_error(tmp_path):
     assert issubclass(OutputPathError, ValueError) and issubclass(OutputPathError, OSError)
     made = ensure_folder(tmp_path / "new" / "deeper")
     assert made.is_dir() and ensure_folder(made) == made  # existing folders are fine
+
+
+def test_a_folder_at_the_destination_is_a_clear_error(tmp_path):
+    # os.replace onto a folder fails with IsADirectoryError naming the temporary file; the
+    # error must name the path the caller gave, and no temporary may be left behind
+    folder = tmp_path / "plots"
+    folder.mkdir()
+    with pytest.raises(OutputPathError, match=r"'.*plots': it is a folder"):
+        write_text_atomic(folder, "x")
+    assert list(folder.iterdir()) == [] and [p.name for p in tmp_path.iterdir()] == ["plots"]
+
+
+@pytest.mark.parametrize("where", ["mkstemp", "replace"])
+def test_a_refusing_file_system_is_a_clear_error(tmp_path, monkeypatch, where):
+    # a read-only or virtual file system (EROFS, or ENOENT in /proc) refuses the temporary
+    # file or the rename: an OutputPathError naming the destination, not a bare OSError
+    # naming the hidden temporary; nothing is left behind
+    import errno
+
+    import orthoclimb.fileio as fileio
+
+    def refuse(*args, **kwargs):
+        raise OSError(errno.EROFS, os.strerror(errno.EROFS), str(tmp_path / ".a.txt.tmp"))
+
+    monkeypatch.setattr(fileio.tempfile if where == "mkstemp" else fileio.os, where, refuse)
+    with pytest.raises(OutputPathError, match=r"cannot write '.*a\.txt': Read-only") as info:
+        write_text_atomic(tmp_path / "a.txt", "x")
+    assert ".tmp" not in str(info.value)
+    assert list(tmp_path.iterdir()) == []
+
+
+def test_a_folder_the_file_system_refuses_is_a_clear_error(tmp_path, monkeypatch):
+    import errno
+    from pathlib import Path
+
+    def refuse(self, *args, **kwargs):
+        raise OSError(errno.EROFS, os.strerror(errno.EROFS), str(self))
+
+    monkeypatch.setattr(Path, "mkdir", refuse)
+    with pytest.raises(OutputPathError, match=r"'.*out' cannot be made: Read-only"):
+        ensure_folder(tmp_path / "out")

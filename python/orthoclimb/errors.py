@@ -41,9 +41,10 @@ class ResultFileError(ValueError):
 
 
 class OutputPathError(OSError, ValueError):
-    """A folder to write into cannot be made: a file stands at its path (or at a parent's),
-    or the permissions forbid it. Raised before any work that would write there; the message
-    names the path."""
+    """A folder to write into cannot be made (a file stands at its path or at a parent's, the
+    permissions or the file system forbid it), or a file cannot be written there (a folder
+    stands at its path, the file system refuses it). Folders are checked before any work that
+    would write there; the message names the path the caller gave."""
 
 
 class CoreError(RuntimeError):

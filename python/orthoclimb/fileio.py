@@ -47,14 +47,26 @@ def ensure_folder(path: str | os.PathLike, what: str = "output folder") -> Path:
         ) from None
     except PermissionError:
         raise OutputPathError(f"{what} {str(folder)!r} cannot be made: permission denied") from None
+    except OSError as exc:  # a read-only or virtual file system, a name too long, ...
+        reason = exc.strerror or type(exc).__name__
+        raise OutputPathError(f"{what} {str(folder)!r} cannot be made: {reason}") from None
     return folder
 
 
 def write_atomic(path: str | os.PathLike, write: Callable[[IO[bytes]], None]) -> Path:
-    """Create or replace `path` with what `write(fh)` writes to a binary file handle."""
+    """Create or replace `path` with what `write(fh)` writes to a binary file handle.
+
+    A destination that cannot be written (a folder stands at it, the file system refuses the
+    temporary file or the rename) raises :class:`~orthoclimb.errors.OutputPathError` naming
+    `path`, never the temporary file; other errors of ``write`` pass through unchanged."""
     dest = Path(path)
     ensure_folder(dest.parent, f"the folder of {str(dest)!r},")
-    fd, tmp = tempfile.mkstemp(dir=dest.parent, prefix=f".{dest.name}.", suffix=".tmp")
+    if dest.is_dir():
+        raise OutputPathError(f"cannot write {str(dest)!r}: it is a folder; give a file name")
+    try:
+        fd, tmp = tempfile.mkstemp(dir=dest.parent, prefix=f".{dest.name}.", suffix=".tmp")
+    except OSError as exc:
+        raise _unwritable(dest, exc) from None
     try:
         with os.fdopen(fd, "wb") as fh:
             write(fh)
@@ -62,13 +74,20 @@ def write_atomic(path: str | os.PathLike, write: Callable[[IO[bytes]], None]) ->
             os.fsync(fh.fileno())
         os.chmod(tmp, 0o666 & ~_umask())
         os.replace(tmp, dest)
-    except BaseException:
+    except BaseException as exc:
         try:
             os.unlink(tmp)
         except FileNotFoundError:
             pass
+        if isinstance(exc, OSError) and not isinstance(exc, OutputPathError):
+            raise _unwritable(dest, exc) from exc
         raise
     return dest
+
+
+def _unwritable(dest: Path, exc: OSError) -> OutputPathError:
+    reason = exc.strerror or type(exc).__name__
+    return OutputPathError(f"cannot write {str(dest)!r}: {reason}")
 
 
 def write_text_atomic(path: str | os.PathLike, text: str) -> Path:
