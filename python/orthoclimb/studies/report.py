@@ -541,7 +541,7 @@ def _plots(rep: Report, data: dict, folder: Path) -> dict[str, str]:
         ax.set_xlim(-0.03 * max(xmax, 1e-3), 1.05 * max(xmax, 1e-3))
         ax.set_xlabel(f"n^(-{k:.3g})")
         ax.set_ylabel("energy per spin H(x)/n")
-        ax.set_title(f"{mix}  (xi: {th['gammas']})", fontsize=10)
+        ax.set_title(f"{mix}  (gammas {th['gammas']})", fontsize=10)
         ax.legend(fontsize=8)
     out = {"energy_vs_n": str(save_figure_atomic(fig, folder / "energy_vs_n.png", dpi=110))}
 
