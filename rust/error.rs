@@ -62,7 +62,7 @@ impl fmt::Display for CoreError {
             CoreError::InvalidSize { n } => write!(f, "number of spins n must be >= 1, got {n}"),
             CoreError::InvalidDegree { p } => write!(
                 f,
-                "degree p must be in 1..={}, got p = {p}",
+                "degree p must be in 1..{}, got p = {p}",
                 crate::combinatorics::MAX_DEGREE
             ),
             CoreError::DuplicateDegree { p } => write!(f, "degree p = {p} is given twice"),

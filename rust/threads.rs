@@ -27,7 +27,7 @@ pub fn check_threads(k: usize) -> Result<usize, CoreError> {
         Ok(k)
     } else {
         Err(CoreError::InvalidThreads {
-            detail: format!("thread count must be in 1..={MAX_THREADS}, got {k}"),
+            detail: format!("thread count must be in 1..{MAX_THREADS}, got {k}"),
         })
     }
 }
@@ -50,7 +50,7 @@ pub fn default_threads() -> Result<usize, CoreError> {
         Ok(text) => match text.trim().parse::<usize>() {
             Ok(k) if (1..=MAX_THREADS).contains(&k) => Ok(k),
             _ => Err(CoreError::InvalidThreads {
-                detail: format!("{ENV_VAR} must be an integer in 1..={MAX_THREADS}, got {text:?}"),
+                detail: format!("{ENV_VAR} must be an integer in 1..{MAX_THREADS}, got {text:?}"),
             }),
         },
         Err(_) => Ok(std::thread::available_parallelism()

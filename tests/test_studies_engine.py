@@ -16,7 +16,14 @@ import pytest
 
 from orthoclimb import Mixture
 from orthoclimb.cli import main
-from orthoclimb.studies.engine import WorkerPlan, _connect, plan_workers, run_study
+from orthoclimb.studies.engine import (
+    WorkerPlan,
+    _connect,
+    _reduced_requests,
+    counted,
+    plan_workers,
+    run_study,
+)
 from orthoclimb.studies.grid import MethodSpec, MixtureSpec, StudySpec, spec_from_flags
 from orthoclimb.studies.store import Store, StudyMismatchError
 
@@ -42,6 +49,38 @@ def test_plan_memory_and_examples():
     assert plan_workers(8, 1000, memory_per_task=10, memory=45).workers == 2
     with pytest.raises(ValueError):
         plan_workers(0)
+
+
+def test_lowered_requests_are_reported_never_silent():
+    # --workers and --threads beyond what the plan allows are lowered (workers x threads <=
+    # cores, common practice) and each lowering gets a note naming the request and the bound
+    plan = plan_workers(2, 5, workers=9)
+    assert plan == WorkerPlan(2, 1, 1)
+    notes = _reduced_requests(plan, 9, 4, cores=2, pending=5)
+    assert notes == [
+        "note: --workers 9 lowered to 2 (at most one worker per core, per task and per memory"
+        " share; here: 2 cores, 5 tasks to run)",
+        "note: --threads 4 lowered to 1: 2 workers x 1 kernel thread fill the 2 cores",
+    ]
+    # the memory bound is named when it is the one that bit
+    tight = plan_workers(8, 100, workers=8, memory_per_task=10, memory=45)
+    assert tight.workers == 2
+    (note,) = _reduced_requests(tight, 8, None, cores=8, pending=100)
+    assert "8 cores" in note and "memory" in note and "tasks to run" not in note
+    # requests the plan grants give no note
+    assert _reduced_requests(WorkerPlan(2, 1, 1), 2, 1, cores=2, pending=5) == []
+    assert _reduced_requests(WorkerPlan(2, 1, 1), None, None, cores=2, pending=5) == []
+    assert (counted(1, "core"), counted(3, "core")) == ("1 core", "3 cores")
+    assert counted(2, "worker process", "worker processes") == "2 worker processes"
+
+
+def test_absurd_thread_counts_are_refused_before_the_study_folder(tmp_path):
+    # the kernels take at most 1024 threads (orthoclimb.set_num_threads): a larger --threads
+    # would fail in every task, so it is refused before anything is written
+    for bad in (0, 1025, 9999):
+        with pytest.raises(ValueError, match=f"--threads must be an integer in 1..1024, got {bad}"):
+            run_study(_spec(), tmp_path / "s", threads=bad, progress=False)
+    assert not (tmp_path / "s").exists()
 
 
 def _spec(seeds="0-3"):

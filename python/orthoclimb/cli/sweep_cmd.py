@@ -144,7 +144,7 @@ def execute(
 ) -> tuple[Any, Any]:
     """Run ``spec`` into ``out`` with the engine flags of ``args``; then write the report."""
     from ..model.memory import format_bytes
-    from ..studies.engine import run_study
+    from ..studies.engine import counted, run_study
     from ..studies.estimate import estimate_seconds, largest_instance
     from ..studies.report import write_report
 
@@ -161,8 +161,10 @@ def execute(
         )
         if plan is not None:
             say(
-                f"embedded Dask cluster: {plan.workers} worker processes x {plan.dask_threads} "
-                f"task x {plan.rayon_threads} kernel threads = {plan.cores_used} cores"
+                "embedded Dask cluster: "
+                f"{counted(plan.workers, 'worker process', 'worker processes')} x "
+                f"{plan.dask_threads} task x {counted(plan.rayon_threads, 'kernel thread')} = "
+                f"{counted(plan.cores_used, 'core')}"
             )
             workers, threads = plan.workers, plan.rayon_threads
         else:

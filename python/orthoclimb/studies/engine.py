@@ -26,6 +26,7 @@ from collections.abc import Callable
 from dataclasses import dataclass
 from typing import Any
 
+from .._core import MAX_THREADS as _MAX_THREADS
 from .grid import StudySpec
 from .store import Store
 from .tasks import Task, run_task
@@ -86,6 +87,37 @@ def plan_workers(
         limit = min(limit, max(1, int(memory // (2 * memory_per_task))))
     n_workers = max(1, limit)
     return WorkerPlan(n_workers, 1, max(1, cores // n_workers))
+
+
+def counted(k: int, noun: str, plural: str | None = None) -> str:
+    """``k`` and ``noun``, plural unless k is 1: "1 core", "2 cores" (``plural`` for nouns
+    that take more than an s: "2 worker processes")."""
+    return f"{k} {noun if k == 1 else plural or noun + 's'}"
+
+
+def _reduced_requests(
+    plan: WorkerPlan, workers: int | None, threads: int | None, cores: int, pending: int
+) -> list[str]:
+    """Notes for a ``--workers`` or ``--threads`` that :func:`plan_workers` lowered, so that a
+    request is never overridden silently (the plan keeps workers x threads <= cores)."""
+    notes = []
+    if workers is not None and plan.workers < workers:
+        bounds = [counted(cores, "core")]
+        if pending < workers:
+            bounds.append(f"{counted(pending, 'task')} to run")
+        if plan.workers < min(cores, pending):
+            bounds.append("the memory for two instances per running task")
+        notes.append(
+            f"note: --workers {workers} lowered to {plan.workers} (at most one worker per core,"
+            f" per task and per memory share; here: {', '.join(bounds)})"
+        )
+    if threads is not None and plan.rayon_threads < threads:
+        notes.append(
+            f"note: --threads {threads} lowered to {plan.rayon_threads}: "
+            f"{counted(plan.workers, 'worker')} x {counted(plan.rayon_threads, 'kernel thread')}"
+            f" fill the {counted(cores, 'core')}"
+        )
+    return notes
 
 
 @dataclass
@@ -255,8 +287,8 @@ def run_study(
         raise ValueError(f"--retries must be an integer >= 0, got {retries!r}")
     if not (isinstance(timeout, (int, float)) and math.isfinite(timeout) and timeout > 0):
         raise ValueError(f"--timeout must be a positive number of seconds, got {timeout!r}")
-    if threads is not None and (isinstance(threads, bool) or threads < 1):
-        raise ValueError(f"--threads must be a positive integer, got {threads!r}")
+    if threads is not None and (isinstance(threads, bool) or not 1 <= threads <= _MAX_THREADS):
+        raise ValueError(f"--threads must be an integer in 1..{_MAX_THREADS}, got {threads!r}")
     if scheduler is not None:
         check_scheduler_address(scheduler)  # before the study folder is created
     tasks = spec.tasks()
@@ -275,9 +307,12 @@ def run_study(
         from .estimate import largest_instance
 
         biggest = largest_instance(spec, pending)[0]
-        plan = plan_workers(available_cores(), len(pending), workers, biggest, available_memory())
+        cores, memory = available_cores(), available_memory()
+        plan = plan_workers(cores, len(pending), workers, biggest, memory)
         if threads is not None:
             plan = WorkerPlan(plan.workers, 1, min(threads, plan.rayon_threads))
+        for note in _reduced_requests(plan, workers, threads, cores, len(pending)):
+            log(note)
     if on_start is not None:
         on_start(pending, plan)
     old_term = signal.getsignal(signal.SIGTERM)
