@@ -438,3 +438,19 @@ def test_every_pair_of_methods_is_compared(tmp_path):
     assert "hessian is ahead of gradient by 0.0200" in pairs[0]
     assert "hessian is ahead of anneal by 0.0100" in pairs[1]
     assert "anneal is ahead of gradient by 0.0100" in pairs[2]
+
+
+def test_profile_refuses_before_timing_or_printing_its_plan(tmp_path, capsys):
+    # an instance too large for memory (p = 3 at n = 100000: 1.3e15 bytes) and --repeats 0
+    # are refused before any size is sampled or timed and before the plan line is printed
+    from orthoclimb.studies.profile import profile_kernels
+
+    seen = []
+    with pytest.raises(MemoryError):
+        profile_kernels(Mixture.parse("3:1"), [50, 100000], 1, lambda *a: seen.append(a))
+    assert seen == []  # n = 50 was not timed first
+    for extra in (["--n", "50,100000"], ["--n", "50,60", "--repeats", "0"]):
+        args = ["profile", "--gammas", "3:1", *extra, "--out", str(tmp_path / "p")]
+        assert main(args) == 2
+        err = capsys.readouterr().err
+        assert "error:" in err and "profile: n =" not in err and "done in" not in err

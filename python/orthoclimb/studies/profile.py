@@ -58,8 +58,10 @@ def profile_kernels(
         raise ValueError("profile needs at least 2 sizes to fit an exponent")
     if repeats < 1:
         raise ValueError(f"--repeats must be >= 1, got {repeats}")
-    rows = []
     order = sorted(sizes)  # rows in increasing n, whatever the order given
+    # the largest instance is refused before any size is timed, not after the smaller ones
+    require_memory(estimate_memory(mixture, order[-1]), f"an instance with n = {order[-1]}")
+    rows = []
     for i, n in enumerate(order):
         need = estimate_memory(mixture, n)
         require_memory(need, f"an instance with n = {n}")
