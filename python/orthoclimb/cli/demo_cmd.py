@@ -50,7 +50,7 @@ def demo_spec(quick: bool = False) -> StudySpec:
 
 def add_arguments(parser: argparse.ArgumentParser) -> None:
     parser.add_argument(
-        "--quick", action="store_true", help="a smaller study (well under a minute; used by CI)"
+        "--quick", action="store_true", help="a smaller study (about 10 s on two cores; used by CI)"
     )
     parser.add_argument(
         "--out", default="orthoclimb-demo", help="study folder (default: %(default)s)"
