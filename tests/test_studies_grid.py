@@ -101,6 +101,17 @@ def test_toml_unknown_method_option(tmp_path):
         spec_from_toml(p)
 
 
+@pytest.mark.parametrize("value", ['"x"', "true", "[1]"])
+def test_toml_exponent_that_is_no_number_names_the_key(tmp_path, value):
+    p = tmp_path / "s.toml"
+    p.write_text(
+        f"sizes=[20,30]\nseeds=[0,1]\nexponent={value}\n[[mixture]]\ngammas={{3=1.0}}\n"
+        '[[method]]\nname="gradient"\n'
+    )
+    with pytest.raises(ValueError, match="'exponent' must be a number, got"):
+        spec_from_toml(p)
+
+
 @pytest.mark.parametrize(
     ("methods", "extra", "words"),
     [

@@ -404,12 +404,15 @@ def spec_from_toml(path: str | Path) -> StudySpec:
                 raise ValueError(f"[[method]] entry {i} needs a 'name'")
             opts = {k: v for k, v in entry.items() if k != "name"}
             methods.append(MethodSpec.make(entry["name"], opts))
+        exponent = data.get("exponent", DEFAULT_EXPONENT)
+        if isinstance(exponent, bool) or not isinstance(exponent, (int, float)):
+            raise ValueError(f"'exponent' must be a number, got {exponent!r}")
         return StudySpec(
             mixes,
             parse_sizes(data["sizes"]),
             parse_seeds(data["seeds"]),
             tuple(methods),
-            float(data.get("exponent", DEFAULT_EXPONENT)),
+            float(exponent),
             str(data.get("dtype", "float64")),
         )
     except (ValueError, TypeError) as exc:
