@@ -64,6 +64,10 @@ def test_climb_baselines_json(tmp_path, capsys, method):
     assert code == 0
     summary = json.loads(capsys.readouterr().out)
     assert summary["method"] == method and summary["alg"] > 0
+    # the output names its instance: xi = q^2 + q^4/16 is gammas 2:1, 4:0.25
+    assert summary["gammas"] == oc.Mixture({2: 1.0, 4: 0.25}).to_text()
+    assert (summary["n"], summary["seed"], summary["dtype"]) == (20, 0, "float64")
+    assert summary["start_seed"] == 0
     assert (out / "path.png").exists()
 
 

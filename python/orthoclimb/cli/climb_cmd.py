@@ -87,9 +87,14 @@ def _ground_state(mixture: Mixture) -> float | None:
     return float(gs.value) if gs.converged else None
 
 
-def _summary(result: Any, gs: float | None, files: dict[str, str]) -> dict[str, Any]:
+def _summary(
+    result: Any, problem: dict[str, Any], gs: float | None, files: dict[str, str]
+) -> dict[str, Any]:
+    """The run's summary: ``problem`` (gammas, n, seed, start seed, dtype) first, so that a
+    saved ``--json`` output says which instance it is about."""
     info = result.info
     out = {
+        **problem,
         "method": result.method,
         "energy": result.energy,
         "alg": info.get("alg"),
@@ -215,7 +220,14 @@ def run(args: argparse.Namespace) -> int:
     png = out / "path.png"
     plot_result(result, png)
     files = {"result": str(json_path), "x": str(npz_path), "plot": str(png)}
-    summary = _summary(result, _ground_state(mixture), files)
+    problem = {
+        "gammas": mixture.to_text(),
+        "n": args.n,
+        "seed": args.seed,
+        "start_seed": args.start_seed,
+        "dtype": args.dtype,
+    }
+    summary = _summary(result, problem, _ground_state(mixture), files)
     if args.json:
         print(json.dumps(summary, indent=2))
     else:
