@@ -60,6 +60,7 @@ def test_zero_gammas_are_dropped():
         ({3: 1e200}, "1e\\+200"),  # finite, but gamma^2 overflows float64
         ({3: 1e-170}, "too small.*1e-170"),  # positive, but gamma^2 underflows to 0
         ({2: 1.0, 3: 1e-155}, "p = 3.*1e-155"),  # gamma^2 subnormal: xi would lose it
+        ("3:1", r"the text '3:1'; Mixture.parse\('3:1'\) reads"),  # text belongs to parse
     ],
 )
 def test_bad_mixtures_name_the_value(spec, fragment):

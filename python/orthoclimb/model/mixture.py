@@ -62,6 +62,11 @@ class Mixture:
     __slots__ = ("_gammas",)
 
     def __init__(self, gammas: Mapping[int, float] | Iterable[tuple[int, float]]):
+        if isinstance(gammas, str):
+            raise MixtureError(
+                f"a mixture is a mapping p -> gamma_p, got the text {gammas!r}; "
+                f"Mixture.parse({gammas!r}) reads the p:gamma text form"
+            )
         items = gammas.items() if isinstance(gammas, Mapping) else gammas
         checked: dict[int, float] = {}
         try:
