@@ -100,3 +100,23 @@ def test_a_folder_the_file_system_refuses_is_a_clear_error(tmp_path, monkeypatch
     monkeypatch.setattr(Path, "mkdir", refuse)
     with pytest.raises(OutputPathError, match=r"'.*out' cannot be made: Read-only"):
         ensure_folder(tmp_path / "out")
+
+
+def test_saving_a_pair_into_a_folder_path_is_refused(tmp_path):
+    # ham.save("runs/") or ham.save(existing_folder) would write runs.json beside the folder;
+    # it is refused with a message that suggests a stem inside it. Loading keeps its own rule.
+    import orthoclimb as oc
+    from orthoclimb.fileio import output_pair_paths, pair_paths
+
+    folder = tmp_path / "runs"
+    folder.mkdir()
+    ham = oc.Hamiltonian.sample(oc.Mixture({2: 1.0}), 4, seed=1)
+    for given in (folder, str(folder) + os.sep, str(tmp_path / "new") + os.sep):
+        with pytest.raises(OutputPathError, match=r"is a folder; give a file stem in it, e\.g\."):
+            ham.save(given)
+    assert [p.name for p in tmp_path.iterdir()] == ["runs"] and list(folder.iterdir()) == []
+    # stems and either file name give the same pair
+    want = (tmp_path / "a.json", tmp_path / "a.npz")
+    for given in ("a", "a.json", "a.npz"):
+        assert pair_paths(tmp_path / given) == want
+        assert output_pair_paths(tmp_path / given, "x") == want

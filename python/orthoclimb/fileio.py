@@ -48,7 +48,7 @@ def ensure_folder(path: str | os.PathLike, what: str = "output folder") -> Path:
     except PermissionError:
         raise OutputPathError(f"{what} {str(folder)!r} cannot be made: permission denied") from None
     except OSError as exc:  # a read-only or virtual file system, a name too long, ...
-        reason = exc.strerror or type(exc).__name__
+        reason = exc.strerror or str(exc) or type(exc).__name__
         raise OutputPathError(f"{what} {str(folder)!r} cannot be made: {reason}") from None
     return folder
 
@@ -86,8 +86,27 @@ def write_atomic(path: str | os.PathLike, write: Callable[[IO[bytes]], None]) ->
 
 
 def _unwritable(dest: Path, exc: OSError) -> OutputPathError:
-    reason = exc.strerror or type(exc).__name__
+    reason = exc.strerror or str(exc) or type(exc).__name__
     return OutputPathError(f"cannot write {str(dest)!r}: {reason}")
+
+
+def pair_paths(path: str | os.PathLike) -> tuple[Path, Path]:
+    """``(<stem>.json, <stem>.npz)`` of a file pair, the stem being ``path`` less a ``.json``
+    or ``.npz`` suffix (so the stem or either file name may be given)."""
+    p = Path(path)
+    stem = p.with_suffix("") if p.suffix in (".json", ".npz") else p
+    return stem.with_name(stem.name + ".json"), stem.with_name(stem.name + ".npz")
+
+
+def output_pair_paths(path: str | os.PathLike, example: str) -> tuple[Path, Path]:
+    """:func:`pair_paths` for writing: a folder (an existing one, or a path ending in a
+    separator) raises :class:`~orthoclimb.errors.OutputPathError`, since ``<folder>.json``
+    would land beside it; the message suggests ``<folder>/<example>``."""
+    text = os.fspath(path)
+    if Path(text).is_dir() or text.endswith(("/", os.sep)):
+        inside = str(Path(text) / example)
+        raise OutputPathError(f"{text!r} is a folder; give a file stem in it, e.g. {inside!r}")
+    return pair_paths(text)
 
 
 def write_text_atomic(path: str | os.PathLike, text: str) -> Path:

@@ -27,7 +27,15 @@ from typing import Any
 import numpy as np
 
 from ..errors import ResultFileError
-from ..fileio import envelope, json_digest, open_envelope, write_atomic, write_json_atomic
+from ..fileio import (
+    envelope,
+    json_digest,
+    open_envelope,
+    output_pair_paths,
+    pair_paths,
+    write_atomic,
+    write_json_atomic,
+)
 
 __all__ = ["FORMAT_VERSION", "Result", "load_result"]
 
@@ -54,11 +62,6 @@ def _plain(value: Any) -> Any:
 
 def _x_digest(x: np.ndarray) -> str:
     return hashlib.sha256(np.ascontiguousarray(x, dtype="<f8").tobytes()).hexdigest()
-
-
-def _stem(path: str | os.PathLike) -> Path:
-    p = Path(path)
-    return p.with_suffix("") if p.suffix in (".json", ".npz") else p
 
 
 @dataclass(eq=False)
@@ -116,11 +119,9 @@ class Result:
     def save(self, path: str | os.PathLike) -> tuple[Path, Path]:
         """Write ``<stem>.json`` and ``<stem>.npz`` atomically (a ``.json``/``.npz`` suffix on
         ``path`` is dropped to get the stem). Returns the two paths."""
-        stem = _stem(path)
+        json_path, npz_path = output_pair_paths(path, "result")
         payload = self.payload()
         doc = envelope(FORMAT, FORMAT_VERSION, payload)
-        npz_path = stem.with_name(stem.name + ".npz")
-        json_path = stem.with_name(stem.name + ".json")
         x = np.asarray(self.x, dtype=np.float64)
         write_atomic(npz_path, lambda fh: np.savez(fh, x=x))
         write_json_atomic(json_path, doc)
@@ -168,9 +169,7 @@ def _check_payload(path: Path, payload: dict[str, Any]) -> None:
 
 def load_result(path: str | os.PathLike) -> Result:
     """Read a result written by :meth:`Result.save` (give the stem or either file name)."""
-    stem = _stem(path)
-    json_path = stem.with_name(stem.name + ".json")
-    npz_path = stem.with_name(stem.name + ".npz")
+    json_path, npz_path = pair_paths(path)
     try:
         text = json_path.read_text(encoding="utf-8")
     except FileNotFoundError:

@@ -52,7 +52,14 @@ import numpy as np
 
 from .. import _core
 from ..errors import InstanceFileError, InsufficientMemoryError
-from ..fileio import envelope, open_envelope, write_atomic, write_json_atomic
+from ..fileio import (
+    envelope,
+    open_envelope,
+    output_pair_paths,
+    pair_paths,
+    write_atomic,
+    write_json_atomic,
+)
 from .hamiltonian import Hamiltonian, _check_correlation, _check_seed
 from .memory import check_size, normalize_dtype, require_memory
 from .mixture import Mixture, _check_degree
@@ -81,16 +88,6 @@ _CHECK_POINT = "x_i = (-1)^i sqrt(prime_i) / norm, i = 0..n-1"
 
 
 # -- helpers ------------------------------------------------------------------------------
-
-
-def _stem(path: str | os.PathLike) -> Path:
-    p = Path(path)
-    return p.with_suffix("") if p.suffix in (".json", ".npz") else p
-
-
-def _paths(path: str | os.PathLike) -> tuple[Path, Path]:
-    stem = _stem(path)
-    return stem.with_name(stem.name + ".json"), stem.with_name(stem.name + ".npz")
 
 
 def _array_digest(a: np.ndarray) -> str:
@@ -166,7 +163,7 @@ def save_instance(
     the float64 copy of one degree that each kind makes."""
     if not isinstance(ham, Hamiltonian):
         raise TypeError(f"expected an orthoclimb.Hamiltonian, got {type(ham).__name__}")
-    json_path, npz_path = _paths(path)
+    json_path, npz_path = output_pair_paths(path, "instance")
     common = {"n": ham.n, "dtype": ham.dtype, "degrees": list(ham.degrees)}
     if ham.mixture is not None and ham.seed is not None:
         corr = ham.correlated_with
@@ -385,7 +382,7 @@ def load_instance(path: str | os.PathLike, check_memory: bool = True) -> Hamilto
         raise _fail(
             Path(path), "it is a folder; give the instance's file (NAME.json) or its stem NAME"
         )
-    json_path, npz_path = _paths(path)
+    json_path, npz_path = pair_paths(path)
     payload = _read_payload(json_path)
     kind = payload.get("kind")
     if kind == "recipe":
