@@ -143,3 +143,14 @@ def test_a_gap_below_the_solver_resolution_is_flagged(capsys):
     assert "within 10x" not in capsys.readouterr().out
     assert main(["theory", "--gammas", "2:1,4:0.25"]) == 0
     assert "within 10x" not in capsys.readouterr().out
+
+
+@pytest.mark.parametrize("command", ["theory", "climb", "profile"])
+@pytest.mark.parametrize("flag", ["--gammas", "--xi"])
+def test_a_mixture_flag_given_twice_is_refused(command, flag, capsys):
+    # argparse keeps the last of a repeated option; for the one mixture of these commands that
+    # silently studies another mixture than the first given, so a repeat is a usage error
+    with pytest.raises(SystemExit) as info:
+        main([command, flag, "3:1", flag, "2:1"])
+    assert info.value.code == 2
+    assert f"{flag} given twice ('3:1' and '2:1'); give it once" in capsys.readouterr().err

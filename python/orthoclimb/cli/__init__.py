@@ -26,6 +26,17 @@ _COMMANDS: dict[str, tuple[str, str]] = {
 }
 
 
+class GivenOnce(argparse.Action):
+    """Store an option's value and refuse it a second time: argparse keeps the last one
+    silently, so ``--gammas 3:1 --gammas 2:1`` would study a mixture other than the first."""
+
+    def __call__(self, parser, namespace, values, option_string=None):
+        before = getattr(namespace, self.dest, None)
+        if before is not None:
+            parser.error(f"{option_string} given twice ({before!r} and {values!r}); give it once")
+        setattr(namespace, self.dest, values)
+
+
 def build_parser() -> argparse.ArgumentParser:
     parser = argparse.ArgumentParser(
         prog="orthoclimb",

@@ -12,13 +12,19 @@ import argparse
 import json
 import sys
 
+from . import GivenOnce
+
 __all__ = ["add_arguments", "run"]
 
 
 def add_arguments(parser: argparse.ArgumentParser) -> None:
     which = parser.add_mutually_exclusive_group(required=True)
-    which.add_argument("--gammas", metavar="P:G,...", help="mixture as p:gamma_p pairs")
-    which.add_argument("--xi", metavar="P:C,...", help="mixture as p:gamma_p^2 pairs")
+    which.add_argument(
+        "--gammas", action=GivenOnce, metavar="P:G,...", help="mixture as p:gamma_p pairs"
+    )
+    which.add_argument(
+        "--xi", action=GivenOnce, metavar="P:C,...", help="mixture as p:gamma_p^2 pairs"
+    )
     parser.add_argument("--n", dest="sizes", required=True, help="sizes, e.g. 100,200,400")
     parser.add_argument("--repeats", type=int, default=3, help="best of (default 3)")
     parser.add_argument("--threads", type=int, default=None, help="kernel threads")

@@ -28,6 +28,7 @@ from ..theory import (
     path_energy,
     threshold_energy,
 )
+from . import GivenOnce
 
 __all__ = ["add_arguments", "run"]
 
@@ -36,11 +37,13 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
     which = parser.add_mutually_exclusive_group(required=True)
     which.add_argument(
         "--gammas",
+        action=GivenOnce,
         metavar="P:G,...",
         help="the mixture as p:gamma_p pairs, e.g. 2:1,4:0.3",
     )
     which.add_argument(
         "--xi",
+        action=GivenOnce,
         metavar="P:C,...",
         help="the mixture as p:gamma_p^2 pairs (coefficients of xi), e.g. 2:1,4:0.09",
     )
