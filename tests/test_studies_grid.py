@@ -172,3 +172,14 @@ def test_the_toml_example_in_the_help_is_a_valid_study(tmp_path, capsys):
     with pytest.raises(SystemExit):
         main(["sweep", "--help"])
     assert TOML_EXAMPLE in capsys.readouterr().out
+
+
+def test_the_same_mixture_twice_in_flags_names_the_flags():
+    # gamma_3 = 1 and xi_3 = 1 are one mixture: the study would hold it twice under one name;
+    # the error names the two flags instead of the clashing generated names
+    with pytest.raises(ValueError, match=r"--gammas 3:1 and --xi 3:1 give the same mixture"):
+        spec_from_flags(["3:1"], ["3:1"], "20,30", "0", "gradient")
+    with pytest.raises(ValueError, match=r"--gammas 2:1 and --gammas 2:1.0 give the same"):
+        spec_from_flags(["2:1", "3:1", "2:1.0"], None, "20,30", "0", "gradient")
+    two = spec_from_flags(["3:1"], ["3:2"], "20,30", "0", "gradient")  # distinct: fine
+    assert len(two.mixtures) == 2

@@ -345,10 +345,15 @@ def spec_from_flags(
     exponent: float = DEFAULT_EXPONENT,
 ) -> StudySpec:
     """Build a study from the ``sweep`` flags (each ``--gammas``/``--xi`` adds a mixture)."""
-    mixes = [MixtureSpec.make(Mixture.parse(t)) for t in gammas or []]
-    mixes += [MixtureSpec.make(Mixture.parse(t, squared=True)) for t in xi or []]
-    if not mixes:
+    given = [(f"--gammas {t}", Mixture.parse(t)) for t in gammas or []]
+    given += [(f"--xi {t}", Mixture.parse(t, squared=True)) for t in xi or []]
+    if not given:
         raise ValueError("give at least one mixture with --gammas (or --xi), or a TOML file")
+    for i, (flag, mix) in enumerate(given):  # the names would clash: say which flags did it
+        for other, same in given[:i]:
+            if same == mix:
+                raise ValueError(f"{other} and {flag} give the same mixture ({mix.to_text()})")
+    mixes = [MixtureSpec.make(mix) for _, mix in given]
     return StudySpec(
         tuple(mixes),
         parse_sizes(sizes),
