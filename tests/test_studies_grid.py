@@ -183,3 +183,12 @@ def test_the_same_mixture_twice_in_flags_names_the_flags():
         spec_from_flags(["2:1", "3:1", "2:1.0"], None, "20,30", "0", "gradient")
     two = spec_from_flags(["3:1"], ["3:2"], "20,30", "0", "gradient")  # distinct: fine
     assert len(two.mixtures) == 2
+
+
+def test_a_missing_toml_key_says_how_to_add_it(tmp_path):
+    # a study file without [[method]] (the flags default to hessian,gradient; a file does not)
+    # names the key and shows the table to add
+    p = tmp_path / "s.toml"
+    p.write_text("sizes=[20,30]\nseeds=[0,1]\n[[mixture]]\ngammas={3=1.0}\n")
+    with pytest.raises(ValueError, match=r"missing key 'method'; add a table \[\[method\]\] with"):
+        spec_from_toml(p)

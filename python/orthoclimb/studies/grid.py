@@ -398,9 +398,15 @@ def spec_from_toml(path: str | Path) -> StudySpec:
     unknown = sorted(set(data) - known)
     if unknown:
         raise ValueError(f"{str(p)!r}: unknown key {unknown[0]!r}; known keys {sorted(known)}")
+    how = {
+        "sizes": "sizes = [100, 200]",
+        "seeds": 'seeds = "0-19"',
+        "mixture": "a table [[mixture]] with gammas = { 3 = 1.0 }",
+        "method": 'a table [[method]] with name = "hessian" (one per method)',
+    }
     for key in ("sizes", "seeds", "mixture", "method"):
         if key not in data:
-            raise ValueError(f"{str(p)!r}: missing key {key!r}")
+            raise ValueError(f"{str(p)!r}: missing key {key!r}; add {how[key]}")
     try:
         mixes = tuple(_toml_mixture(e, i) for i, e in enumerate(data["mixture"]))
         methods = []
