@@ -86,8 +86,41 @@ def test_a_refusing_file_system_is_a_clear_error(tmp_path, monkeypatch, where):
     monkeypatch.setattr(fileio.tempfile if where == "mkstemp" else fileio.os, where, refuse)
     with pytest.raises(OutputPathError, match=r"cannot write '.*a\.txt': Read-only") as info:
         write_text_atomic(tmp_path / "a.txt", "x")
-    assert ".tmp" not in str(info.value)
+    assert ".tmp" not in str(info.value) and info.value.errno == errno.EROFS
     assert list(tmp_path.iterdir()) == []
+
+
+def test_errors_while_writing_the_data_pass_through(tmp_path, monkeypatch):
+    # a full disk at fsync is no bad path: it keeps its type and errno (the CLI reports it with
+    # exit status 1, not 2), and no temporary is left behind
+    import errno
+
+    import orthoclimb.fileio as fileio
+
+    def full(fd):
+        raise OSError(errno.ENOSPC, os.strerror(errno.ENOSPC))
+
+    monkeypatch.setattr(fileio.os, "fsync", full)
+    with pytest.raises(OSError) as info:
+        write_text_atomic(tmp_path / "a.txt", "x")
+    assert not isinstance(info.value, OutputPathError) and info.value.errno == errno.ENOSPC
+    assert list(tmp_path.iterdir()) == []
+
+
+def test_a_failing_cleanup_does_not_hide_the_first_error(tmp_path, monkeypatch):
+    # the rename fails, and so does removing the temporary (a file system turned read-only):
+    # the caller still gets the rename's error naming the destination
+    import errno
+
+    import orthoclimb.fileio as fileio
+
+    def refuse(*args, **kwargs):
+        raise OSError(errno.EROFS, os.strerror(errno.EROFS))
+
+    monkeypatch.setattr(fileio.os, "replace", refuse)
+    monkeypatch.setattr(fileio.os, "unlink", refuse)
+    with pytest.raises(OutputPathError, match=r"cannot write '.*a\.txt': Read-only"):
+        write_text_atomic(tmp_path / "a.txt", "x")
 
 
 def test_a_folder_the_file_system_refuses_is_a_clear_error(tmp_path, monkeypatch):

@@ -48,8 +48,7 @@ def ensure_folder(path: str | os.PathLike, what: str = "output folder") -> Path:
     except PermissionError:
         raise OutputPathError(f"{what} {str(folder)!r} cannot be made: permission denied") from None
     except OSError as exc:  # a read-only or virtual file system, a name too long, ...
-        reason = exc.strerror or str(exc) or type(exc).__name__
-        raise OutputPathError(f"{what} {str(folder)!r} cannot be made: {reason}") from None
+        raise _path_error(f"{what} {str(folder)!r} cannot be made", exc) from None
     return folder
 
 
@@ -58,7 +57,8 @@ def write_atomic(path: str | os.PathLike, write: Callable[[IO[bytes]], None]) ->
 
     A destination that cannot be written (a folder stands at it, the file system refuses the
     temporary file or the rename) raises :class:`~orthoclimb.errors.OutputPathError` naming
-    `path`, never the temporary file; other errors of ``write`` pass through unchanged."""
+    `path`, never the temporary file, with the OS error's ``errno``. Errors while the data are
+    written (those of ``write`` itself, a full disk at flush or fsync) pass through unchanged."""
     dest = Path(path)
     ensure_folder(dest.parent, f"the folder of {str(dest)!r},")
     if dest.is_dir():
@@ -66,28 +66,31 @@ def write_atomic(path: str | os.PathLike, write: Callable[[IO[bytes]], None]) ->
     try:
         fd, tmp = tempfile.mkstemp(dir=dest.parent, prefix=f".{dest.name}.", suffix=".tmp")
     except OSError as exc:
-        raise _unwritable(dest, exc) from None
+        raise _path_error(f"cannot write {str(dest)!r}", exc) from None
     try:
         with os.fdopen(fd, "wb") as fh:
             write(fh)
             fh.flush()
             os.fsync(fh.fileno())
-        os.chmod(tmp, 0o666 & ~_umask())
-        os.replace(tmp, dest)
-    except BaseException as exc:
+        try:
+            os.chmod(tmp, 0o666 & ~_umask())
+            os.replace(tmp, dest)
+        except OSError as exc:
+            raise _path_error(f"cannot write {str(dest)!r}", exc) from exc
+    except BaseException:
         try:
             os.unlink(tmp)
-        except FileNotFoundError:
+        except OSError:  # gone already, or the file system refuses: keep the first error
             pass
-        if isinstance(exc, OSError) and not isinstance(exc, OutputPathError):
-            raise _unwritable(dest, exc) from exc
         raise
     return dest
 
 
-def _unwritable(dest: Path, exc: OSError) -> OutputPathError:
-    reason = exc.strerror or str(exc) or type(exc).__name__
-    return OutputPathError(f"cannot write {str(dest)!r}: {reason}")
+def _path_error(what: str, exc: OSError) -> OutputPathError:
+    """``OutputPathError("<what>: <reason>")`` carrying ``exc``'s errno."""
+    err = OutputPathError(f"{what}: {exc.strerror or str(exc) or type(exc).__name__}")
+    err.errno = exc.errno
+    return err
 
 
 def pair_paths(path: str | os.PathLike) -> tuple[Path, Path]:
