@@ -60,13 +60,16 @@ def test_lowered_requests_are_reported_never_silent():
     assert notes == [
         "note: --workers 9 lowered to 2 (at most one worker per core, per task and per memory"
         " share; here: 2 cores, 5 tasks to run)",
-        "note: --threads 4 lowered to 1: 2 workers x 1 kernel thread fill the 2 cores",
+        "note: --threads 4 lowered to 1, the share of each of 2 workers in 2 cores",
     ]
     # the memory bound is named when it is the one that bit
     tight = plan_workers(8, 100, workers=8, memory_per_task=10, memory=45)
     assert tight.workers == 2
     (note,) = _reduced_requests(tight, 8, None, cores=8, pending=100)
-    assert "8 cores" in note and "memory" in note and "tasks to run" not in note
+    assert note.endswith("here: the memory for two instances per running task)"), note
+    # 3 cores, 2 tasks: 2 workers of 1 thread leave a core idle; the note claims no more
+    (note,) = _reduced_requests(plan_workers(3, 2), None, 4, cores=3, pending=2)
+    assert note == "note: --threads 4 lowered to 1, the share of each of 2 workers in 3 cores"
     # requests the plan grants give no note
     assert _reduced_requests(WorkerPlan(2, 1, 1), 2, 1, cores=2, pending=5) == []
     assert _reduced_requests(WorkerPlan(2, 1, 1), None, None, cores=2, pending=5) == []

@@ -40,11 +40,11 @@ def _stderr(text: str) -> None:
 
 def run(args: argparse.Namespace) -> int:
     from ..fileio import ensure_folder
-    from ..model import Mixture, available_memory, estimate_memory
-    from ..model.memory import coefficient_count, format_bytes, require_memory
+    from ..model import Mixture, available_memory
+    from ..model.memory import coefficient_count, format_bytes
     from ..runtime import set_num_threads
     from ..studies.grid import parse_sizes
-    from ..studies.profile import KERNELS, profile_kernels, write_profile
+    from ..studies.profile import KERNELS, check_profile, profile_kernels, write_profile
 
     mix = Mixture.parse(
         args.gammas if args.gammas is not None else args.xi, squared=args.xi is not None
@@ -52,15 +52,10 @@ def run(args: argparse.Namespace) -> int:
     if args.threads is not None:
         set_num_threads(args.threads)
     sizes = parse_sizes(args.sizes)
+    need = check_profile(mix, sizes, args.repeats)  # before the plan is printed
     ensure_folder(args.out)  # before the timings: a bad --out fails at once
-    if len(sizes) < 2:
-        raise ValueError("profile needs at least 2 sizes to fit an exponent")
-    if args.repeats < 1:
-        raise ValueError(f"--repeats must be >= 1, got {args.repeats}")
     say = _stderr if not args.json else lambda _text: None
     biggest = max(sizes)
-    need = estimate_memory(mix, biggest)
-    require_memory(need, f"an instance with n = {biggest}")  # before the plan is printed
     most = coefficient_count(mix.degrees, biggest)
     growth = most / coefficient_count(mix.degrees, min(sizes))
     say(

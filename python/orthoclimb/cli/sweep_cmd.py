@@ -184,6 +184,7 @@ def execute(
         retries=args.retries,
         timeout=args.timeout,
         progress=None if not args.no_progress else False,  # None: a bar on a terminal only
+        log=say,
         on_start=on_start,
     )
     say(

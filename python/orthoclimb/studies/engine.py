@@ -102,10 +102,10 @@ def _reduced_requests(
     request is never overridden silently (the plan keeps workers x threads <= cores)."""
     notes = []
     if workers is not None and plan.workers < workers:
-        bounds = [counted(cores, "core")]
+        bounds = [counted(cores, "core")] if cores < workers else []
         if pending < workers:
             bounds.append(f"{counted(pending, 'task')} to run")
-        if plan.workers < min(cores, pending):
+        if plan.workers < min(cores, pending, workers):
             bounds.append("the memory for two instances per running task")
         notes.append(
             f"note: --workers {workers} lowered to {plan.workers} (at most one worker per core,"
@@ -113,9 +113,8 @@ def _reduced_requests(
         )
     if threads is not None and plan.rayon_threads < threads:
         notes.append(
-            f"note: --threads {threads} lowered to {plan.rayon_threads}: "
-            f"{counted(plan.workers, 'worker')} x {counted(plan.rayon_threads, 'kernel thread')}"
-            f" fill the {counted(cores, 'core')}"
+            f"note: --threads {threads} lowered to {plan.rayon_threads}, the share of each of "
+            f"{counted(plan.workers, 'worker')} in {counted(cores, 'core')}"
         )
     return notes
 

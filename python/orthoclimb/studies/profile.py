@@ -24,7 +24,7 @@ import numpy as np
 
 from ..fileio import save_figure_atomic, write_json_atomic
 
-__all__ = ["KERNELS", "fit_exponents", "plot_profile", "profile_kernels"]
+__all__ = ["KERNELS", "check_profile", "fit_exponents", "plot_profile", "profile_kernels"]
 
 KERNELS = ("energy", "energy_and_gradient", "hvp", "hessian")
 
@@ -37,6 +37,23 @@ def best_time(fn, repeats: int = 2) -> float:
         fn()
         out = min(out, time.perf_counter() - t)
     return out
+
+
+def check_profile(mixture: Any, sizes: Sequence[int], repeats: int) -> int:
+    """Refuse a profile that cannot run (fewer than 2 sizes, ``repeats`` < 1, a largest
+    instance that does not fit in memory) before anything is sampled; return the bytes of
+    the largest instance."""
+    from ..model import estimate_memory
+    from ..model.memory import require_memory
+
+    if len(sizes) < 2:
+        raise ValueError("profile needs at least 2 sizes to fit an exponent")
+    if repeats < 1:
+        raise ValueError(f"--repeats must be >= 1, got {repeats}")
+    biggest = max(sizes)
+    need = estimate_memory(mixture, biggest)
+    require_memory(need, f"an instance with n = {biggest}")
+    return need
 
 
 def profile_kernels(
@@ -54,13 +71,8 @@ def profile_kernels(
     from ..model.memory import coefficient_count, require_memory
     from ..runtime import get_num_threads
 
-    if len(sizes) < 2:
-        raise ValueError("profile needs at least 2 sizes to fit an exponent")
-    if repeats < 1:
-        raise ValueError(f"--repeats must be >= 1, got {repeats}")
+    check_profile(mixture, sizes, repeats)  # the largest n before any size is timed
     order = sorted(sizes)  # rows in increasing n, whatever the order given
-    # the largest instance is refused before any size is timed, not after the smaller ones
-    require_memory(estimate_memory(mixture, order[-1]), f"an instance with n = {order[-1]}")
     rows = []
     for i, n in enumerate(order):
         need = estimate_memory(mixture, n)
