@@ -118,7 +118,9 @@ class Result:
 
     def save(self, path: str | os.PathLike) -> tuple[Path, Path]:
         """Write ``<stem>.json`` and ``<stem>.npz`` atomically (a ``.json``/``.npz`` suffix on
-        ``path`` is dropped to get the stem). Returns the two paths."""
+        ``path`` is dropped to get the stem). Returns the two paths. A folder as ``path`` (an
+        existing one, or text ending in a separator) raises
+        :class:`~orthoclimb.errors.OutputPathError`: give a stem inside it."""
         json_path, npz_path = output_pair_paths(path, "result")
         payload = self.payload()
         doc = envelope(FORMAT, FORMAT_VERSION, payload)

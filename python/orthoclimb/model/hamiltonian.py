@@ -337,8 +337,10 @@ class Hamiltonian:
         fingerprint, about a kilobyte) or ``<stem>.npz`` + ``<stem>.json`` (given coefficients,
         with their SHA-256), atomically; returns the paths written, JSON first. Saving given
         coefficients copies one degree at a time as float64, checked against the available
-        memory unless ``check_memory=False``. Read it back with
-        :func:`orthoclimb.load_instance`; format: see :mod:`orthoclimb.model.instance_file`."""
+        memory unless ``check_memory=False``. A folder as ``path`` (an existing one, or text
+        ending in a separator) raises :class:`~orthoclimb.errors.OutputPathError`: give a stem
+        inside it. Read it back with :func:`orthoclimb.load_instance`; format: see
+        :mod:`orthoclimb.model.instance_file`."""
         from .instance_file import save_instance
 
         return save_instance(self, path, check_memory=check_memory)
