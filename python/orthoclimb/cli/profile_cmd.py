@@ -52,8 +52,8 @@ def run(args: argparse.Namespace) -> int:
     if args.threads is not None:
         set_num_threads(args.threads)
     sizes = parse_sizes(args.sizes)
-    need = check_profile(mix, sizes, args.repeats)  # before the plan is printed
     ensure_folder(args.out)  # before the timings: a bad --out fails at once
+    need = check_profile(mix, sizes, args.repeats)  # before the plan is printed
     say = _stderr if not args.json else lambda _text: None
     biggest = max(sizes)
     most = coefficient_count(mix.degrees, biggest)
