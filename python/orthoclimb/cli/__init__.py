@@ -14,6 +14,10 @@ import os
 import sys
 from collections.abc import Sequence
 from importlib import import_module
+from typing import TYPE_CHECKING
+
+if TYPE_CHECKING:
+    from ..model.mixture import Mixture
 
 # subcommand name -> (module under orthoclimb.cli, one-line help)
 _COMMANDS: dict[str, tuple[str, str]] = {
@@ -35,6 +39,32 @@ class GivenOnce(argparse.Action):
         if before is not None:
             parser.error(f"{option_string} given twice ({before!r} and {values!r}); give it once")
         setattr(namespace, self.dest, values)
+
+
+def add_mixture_flags(parser: argparse.ArgumentParser) -> None:
+    """The one mixture of ``theory``, ``climb`` and ``profile``: ``--gammas`` or ``--xi``,
+    exactly one, given once (read back with :func:`mixture_from`)."""
+    which = parser.add_mutually_exclusive_group(required=True)
+    which.add_argument(
+        "--gammas",
+        action=GivenOnce,
+        metavar="P:G,...",
+        help="the mixture as p:gamma_p pairs, e.g. 2:1,4:0.3",
+    )
+    which.add_argument(
+        "--xi",
+        action=GivenOnce,
+        metavar="P:C,...",
+        help="the mixture as p:gamma_p^2 pairs (coefficients of xi), e.g. 2:1,4:0.09",
+    )
+
+
+def mixture_from(args: argparse.Namespace) -> Mixture:
+    """The :class:`~orthoclimb.Mixture` of the flags :func:`add_mixture_flags` added."""
+    from ..model.mixture import Mixture
+
+    text = args.gammas if args.gammas is not None else args.xi
+    return Mixture.parse(text, squared=args.xi is not None)
 
 
 def build_parser() -> argparse.ArgumentParser:

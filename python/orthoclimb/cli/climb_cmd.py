@@ -27,7 +27,7 @@ from ..model.hamiltonian import _check_seed
 from ..model.memory import format_bytes, require_memory
 from ..runtime import get_num_threads, kernel_path, set_num_threads
 from ..studies.estimate import LANCZOS_SECONDS
-from . import GivenOnce
+from . import add_mixture_flags, mixture_from
 
 __all__ = ["add_arguments", "run"]
 
@@ -35,13 +35,7 @@ METHODS = ("hessian", "gradient", "anneal")
 
 
 def add_arguments(parser: argparse.ArgumentParser) -> None:
-    which = parser.add_mutually_exclusive_group(required=True)
-    which.add_argument(
-        "--gammas", action=GivenOnce, metavar="P:G,...", help="mixture as p:gamma_p pairs, e.g. 3:1"
-    )
-    which.add_argument(
-        "--xi", action=GivenOnce, metavar="P:C,...", help="mixture as p:gamma_p^2 pairs (xi)"
-    )
+    add_mixture_flags(parser)
     parser.add_argument("--n", type=int, required=True, help="number of spins")
     parser.add_argument("--seed", type=int, default=0, help="disorder seed (default 0)")
     parser.add_argument(
@@ -147,8 +141,7 @@ def run(args: argparse.Namespace) -> int:
     from ..algorithms.baselines import geometric_schedule
     from ..algorithms.plotting import plot_result
 
-    text = args.gammas if args.gammas is not None else args.xi
-    mixture = Mixture.parse(text, squared=args.xi is not None)
+    mixture = mixture_from(args)
     if args.threads is not None:
         set_num_threads(args.threads)
     if args.n < 1:

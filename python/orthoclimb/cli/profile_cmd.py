@@ -12,19 +12,13 @@ import argparse
 import json
 import sys
 
-from . import GivenOnce
+from . import add_mixture_flags, mixture_from
 
 __all__ = ["add_arguments", "run"]
 
 
 def add_arguments(parser: argparse.ArgumentParser) -> None:
-    which = parser.add_mutually_exclusive_group(required=True)
-    which.add_argument(
-        "--gammas", action=GivenOnce, metavar="P:G,...", help="mixture as p:gamma_p pairs"
-    )
-    which.add_argument(
-        "--xi", action=GivenOnce, metavar="P:C,...", help="mixture as p:gamma_p^2 pairs"
-    )
+    add_mixture_flags(parser)
     parser.add_argument("--n", dest="sizes", required=True, help="sizes, e.g. 100,200,400")
     parser.add_argument("--repeats", type=int, default=3, help="best of (default 3)")
     parser.add_argument("--threads", type=int, default=None, help="kernel threads")
@@ -40,15 +34,13 @@ def _stderr(text: str) -> None:
 
 def run(args: argparse.Namespace) -> int:
     from ..fileio import ensure_folder
-    from ..model import Mixture, available_memory
+    from ..model import available_memory
     from ..model.memory import coefficient_count, format_bytes
     from ..runtime import set_num_threads
     from ..studies.grid import parse_sizes
     from ..studies.profile import KERNELS, check_profile, profile_kernels, write_profile
 
-    mix = Mixture.parse(
-        args.gammas if args.gammas is not None else args.xi, squared=args.xi is not None
-    )
+    mix = mixture_from(args)
     if args.threads is not None:
         set_num_threads(args.threads)
     sizes = parse_sizes(args.sizes)

@@ -28,25 +28,13 @@ from ..theory import (
     path_energy,
     threshold_energy,
 )
-from . import GivenOnce
+from . import add_mixture_flags, mixture_from
 
 __all__ = ["add_arguments", "run"]
 
 
 def add_arguments(parser: argparse.ArgumentParser) -> None:
-    which = parser.add_mutually_exclusive_group(required=True)
-    which.add_argument(
-        "--gammas",
-        action=GivenOnce,
-        metavar="P:G,...",
-        help="the mixture as p:gamma_p pairs, e.g. 2:1,4:0.3",
-    )
-    which.add_argument(
-        "--xi",
-        action=GivenOnce,
-        metavar="P:C,...",
-        help="the mixture as p:gamma_p^2 pairs (coefficients of xi), e.g. 2:1,4:0.09",
-    )
+    add_mixture_flags(parser)
     parser.add_argument(
         "--tol",
         type=float,
@@ -215,8 +203,7 @@ def _plot(mixture: Mixture, report: dict[str, Any], path: str) -> None:
 
 
 def run(args: argparse.Namespace) -> int:
-    text = args.gammas if args.gammas is not None else args.xi
-    mixture = Mixture.parse(text, squared=args.xi is not None)
+    mixture = mixture_from(args)
     if not (math.isfinite(args.tol) and args.tol > 0):
         raise ValueError(f"--tol must be a positive number, got {args.tol!r}")
     report = _report(mixture, args.tol)

@@ -9,8 +9,8 @@ n^2 s: medians per step on one thread 0.7, 1.4 and 1.8 ms at n = 100, 220 and 32
 pure 3-spin model, 3.9 and 10.4 ms at n = 600 and 1000 for the pure 2-spin one) plus, when it
 polishes, about 150 energy-and-gradient passes; gradient ascent: about 150 iterations x 1.5
 passes for backtracking, capped by max_iter (its iteration count is not known in advance: the
-demo's grids took 60-200, about 75-330 passes). Each task also costs about 0.02 s of Dask round trip
-and row writing, and an embedded cluster about 2 s to start (its worker processes start and
+demo's grids took 60-200, about 75-330 passes). Each task also costs about 0.02 s of Dask round
+trip and row writing, and an embedded cluster about 2 s to start (its worker processes start and
 import the package before their first task). Measured for ``demo --quick`` (72 small tasks, 2
 workers): the sweep took 4.1 s, of which its tasks' own sampling and running were 3.2 s over
 the two workers; a cluster started in 0.6 s and ran its first task, importing the package, in
@@ -117,13 +117,12 @@ def estimate_from(cal: dict[str, Calibration], tasks, workers: int, embedded: bo
         scale = (t.n / c.n0) ** c.degree
         opts = dict(t.method.options)
         total += scale * c.sampling + _TASK_OVERHEAD
+        polish = _POLISH_PASSES if opts.get("polish") else 0  # hessian and anneal polish
         if t.method.name == "hessian":
             eigen = LANCZOS_SECONDS[0] + LANCZOS_SECONDS[1] * t.n**2  # per step
             k = auto_steps(t.n) if opts["steps"] == "auto" else opts["steps"]
-            polish = _POLISH_PASSES if opts["polish"] else 0
             total += scale * (k * c.hessian + polish * c.energy_and_gradient) + eigen * k
         elif t.method.name == "anneal":  # one pass per step, then the polish's
-            polish = _POLISH_PASSES if opts["polish"] else 0
             total += scale * (opts["steps"] + polish) * c.energy_and_gradient
         else:
             total += scale * min(150, opts["max_iter"]) * c.energy_and_gradient * 1.5
