@@ -47,12 +47,14 @@ fn build(k: usize) -> Result<Arc<ThreadPool>, CoreError> {
 /// The default thread count: `ORTHOCLIMB_NUM_THREADS` if set, else the available cores.
 pub fn default_threads() -> Result<usize, CoreError> {
     match std::env::var(ENV_VAR) {
-        Ok(text) => match text.trim().parse::<usize>() {
-            Ok(k) if (1..=MAX_THREADS).contains(&k) => Ok(k),
-            _ => Err(CoreError::InvalidThreads {
+        Ok(text) => text
+            .trim()
+            .parse::<usize>()
+            .ok()
+            .and_then(|k| check_threads(k).ok())
+            .ok_or_else(|| CoreError::InvalidThreads {
                 detail: format!("{ENV_VAR} must be an integer in 1..{MAX_THREADS}, got {text:?}"),
             }),
-        },
         Err(_) => Ok(std::thread::available_parallelism()
             .map(|n| n.get())
             .unwrap_or(1)),
