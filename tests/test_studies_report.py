@@ -407,8 +407,32 @@ def test_report_fits_the_cost_of_a_run_against_n(tmp_path):
     assert cost["median_seconds_run"][0] == pytest.approx(2e-9 * 20**3 * 1.015)
     assert cost["max_degree"] == 3
     assert "a run's median time grows like n^3.00 over n = 20..80" in "\n".join(rep.findings)
+    assert cost["fixed_cost_bound"] is False
     write_report(tmp_path / "c", plots=False)
-    assert "## Cost" in (tmp_path / "c" / "report.md").read_text()
+    md = (tmp_path / "c" / "report.md").read_text()
+    assert "## Cost" in md and "| 3.00 |" in md
+
+
+def test_a_time_that_grows_more_slowly_than_n_is_flagged_as_fixed_costs(tmp_path):
+    # exact identity: medians of t = c n^0.5 give the slope 0.5 < 1, which no method reading
+    # every coefficient per step can have; the report says so instead of quoting it as the
+    # method's scaling, and the table shows b in parentheses
+    spec = spec_from_flags(["3:1"], None, "20,40,80", "0-2", "gradient")
+    store = Store.open(tmp_path / "f", spec)
+    for t in spec.tasks():
+        row = {"task_id": t.task_id, "mixture": t.mixture.name, "method": t.method.name}
+        row.update(n=t.n, seed=t.seed, energy=1.5 - t.n ** (-2 / 3))
+        row.update(seconds_run=1e-3 * t.n**0.5, seconds_sample=1e-4)
+        store.write_row(row)
+    rep = build_report(tmp_path / "f")
+    (cost,) = rep.cost
+    assert cost["exponent"] == pytest.approx(0.5, abs=1e-12)
+    assert cost["fixed_cost_bound"] is True
+    (line,) = [f for f in rep.findings if "median time" in f]
+    assert "grows more slowly than n (n^0.50) over n = 20..80" in line
+    assert "fixed per-run costs" in line and "grows like" not in line
+    write_report(tmp_path / "f", plots=False)
+    assert "| (0.50) |" in (tmp_path / "f" / "report.md").read_text()
 
 
 def test_ties_are_still_counted_when_the_ground_state_is_unknown(tmp_path, monkeypatch):

@@ -357,11 +357,19 @@ def _findings(rep: Report, seeds: dict) -> list[str]:
     for c in rep.cost:
         if c["exponent"] is not None:
             ends = c["median_seconds_run"]
-            out.append(
-                f"{c['mixture']}, {c['method']}: a run's median time grows like "
-                f"n^{c['exponent']:.2f} over n = {c['sizes'][0]}..{c['sizes'][-1]} "
-                f"({ends[0]:.3g} s to {ends[-1]:.3g} s; largest degree P = {c['max_degree']})."
-            )
+            span = f"over n = {c['sizes'][0]}..{c['sizes'][-1]} ({ends[0]:.3g} s to {ends[-1]:.3g} s"
+            if c.get("fixed_cost_bound"):
+                out.append(
+                    f"{c['mixture']}, {c['method']}: a run's median time grows more slowly than"
+                    f" n (n^{c['exponent']:.2f}) {span}): at these sizes fixed per-run costs,"
+                    " not the kernel passes, set it; larger n are needed to measure how the"
+                    " method scales."
+                )
+            else:
+                out.append(
+                    f"{c['mixture']}, {c['method']}: a run's median time grows like "
+                    f"n^{c['exponent']:.2f} {span}; largest degree P = {c['max_degree']})."
+                )
     if rep.missing:
         out.append(f"{rep.missing} task(s) of the study have no result yet; rerun the sweep.")
     return out
