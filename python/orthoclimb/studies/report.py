@@ -357,7 +357,8 @@ def _findings(rep: Report, seeds: dict) -> list[str]:
     for c in rep.cost:
         if c["exponent"] is not None:
             ends = c["median_seconds_run"]
-            span = f"over n = {c['sizes'][0]}..{c['sizes'][-1]} ({ends[0]:.3g} s to {ends[-1]:.3g} s"
+            sizes = f"{c['sizes'][0]}..{c['sizes'][-1]}"
+            span = f"over n = {sizes} ({ends[0]:.3g} s to {ends[-1]:.3g} s"
             if c.get("fixed_cost_bound"):
                 out.append(
                     f"{c['mixture']}, {c['method']}: a run's median time grows more slowly than"
