@@ -159,6 +159,17 @@ def test_langevin_schedule_validation(schedule, exc):
         oc.langevin_anneal(ham, schedule=schedule)
 
 
+def test_geometric_schedule_cools_and_refuses_to_heat():
+    # np.geomspace would happily run from 0.01 up to 1; a "cooling schedule" that heats is a
+    # swapped pair of arguments, so it is refused by name (equal ends: constant temperature)
+    temps = geometric_schedule(1.0, 0.01, 5)
+    assert np.all(np.diff(temps) < 0)
+    np.testing.assert_allclose(temps, [1.0, 10**-0.5, 0.1, 10**-1.5, 0.01])
+    np.testing.assert_allclose(geometric_schedule(0.3, 0.3, 4), [0.3] * 4, rtol=1e-14)
+    with pytest.raises(ValueError, match="t_end = 1.0 is above t_start = 0.01"):
+        geometric_schedule(0.01, 1.0, 5)
+
+
 def test_flags_must_be_booleans():
     # the string "no" is truthy: taking it as True would run what the caller meant to skip
     ham = oc.Hamiltonian.sample(oc.Mixture({3: 1.0}), 12, seed=0)

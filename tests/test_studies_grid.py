@@ -101,6 +101,18 @@ def test_toml_unknown_method_option(tmp_path):
         spec_from_toml(p)
 
 
+def test_toml_anneal_that_heats_is_refused(tmp_path):
+    # the anneal options describe a cooling schedule from t_start down to t_end; swapped
+    # values are refused when the study is read, not after its tasks start
+    p = tmp_path / "s.toml"
+    p.write_text(
+        "sizes=[20,30]\nseeds=[0,1]\n[[mixture]]\ngammas={3=1.0}\n"
+        '[[method]]\nname="anneal"\nt_start=0.05\nt_end=2\n'
+    )
+    with pytest.raises(ValueError, match="t_end = 2.0 is above t_start = 0.05"):
+        spec_from_toml(p)
+
+
 @pytest.mark.parametrize("value", ['"x"', "true", "[1]"])
 def test_toml_exponent_that_is_no_number_names_the_key(tmp_path, value):
     p = tmp_path / "s.toml"

@@ -58,10 +58,18 @@ __all__ = ["geometric_schedule", "gradient_ascent", "langevin_anneal"]
 
 def geometric_schedule(t_start: float = 1.0, t_end: float = 0.01, steps: int = 400) -> np.ndarray:
     """Temperatures decreasing geometrically from ``t_start`` to ``t_end`` in ``steps`` steps
-    (energy-per-spin units: the Gibbs weight is exp(n e / T))."""
+    (energy-per-spin units: the Gibbs weight is exp(n e / T)). ``t_end`` above ``t_start`` is
+    refused (it would heat, not cool); equal ones give a constant temperature. Any other
+    sequence of temperatures can go to :func:`langevin_anneal` as its ``schedule``."""
     t_start = check_positive(t_start, "t_start")
     t_end = check_positive(t_end, "t_end")
     steps = check_count(steps, "steps")
+    if t_end > t_start:
+        raise ValueError(
+            f"t_end = {t_end} is above t_start = {t_start}: a cooling schedule needs"
+            " t_end <= t_start (pass your own temperatures as langevin_anneal's schedule to"
+            " heat on purpose)"
+        )
     return np.geomspace(t_start, t_end, steps)
 
 

@@ -205,6 +205,12 @@ class MethodSpec:
                 if not (math.isfinite(value) and value > 0):
                     raise ValueError(f"option {key} of {name} must be positive, got {value!r}")
             out[key] = value
+        if name == "anneal" and out["t_end"] > out["t_start"]:
+            raise ValueError(
+                f"options of anneal: t_end = {out['t_end']} is above t_start ="
+                f" {out['t_start']}; the schedule cools from t_start to t_end, so t_end must"
+                " be <= t_start"
+            )
         return cls(name, tuple(sorted(out.items())))
 
     @property
