@@ -188,6 +188,27 @@ def test_unreachable_scheduler_is_a_clear_error(tmp_path, capsys):
     assert code == 2
     assert "cannot reach the Dask scheduler" in capsys.readouterr().err
     assert time.perf_counter() - start < 30
+    # the new study never started: nothing of it stays, so another configuration may use
+    # the folder (before, study.json stayed and the rerun below was refused as a mismatch)
+    assert list((tmp_path / "s").iterdir()) == []
+    Store.open(tmp_path / "s", _spec("0-2"))
+
+
+def test_a_study_with_results_stays_when_its_scheduler_is_unreachable(tmp_path):
+    # only a study that this very call created, and that holds nothing, is undone; an
+    # existing one keeps its configuration, rows and table
+    folder = tmp_path / "s"
+    spec = _spec("0-1")
+    store = Store.open(folder, spec)
+    task = spec.tasks()[0]
+    row = {"task_id": task.task_id, "mixture": task.mixture.name, "method": task.method.name}
+    store.write_row({**row, "n": task.n, "seed": task.seed, "energy": 1.0})
+    with pytest.raises(ValueError, match="cannot reach the Dask scheduler"):
+        run_study(spec, folder, scheduler="tcp://127.0.0.1:9", timeout=2, progress=False)
+    assert (folder / "study.json").exists() and store.completed_ids() == {task.task_id}
+    assert (folder / "results.parquet").exists()
+    with pytest.raises(StudyMismatchError, match="different configuration"):
+        Store.open(folder, _spec("0"))
 
 
 def _wait_for_rows(proc: subprocess.Popen, rows, count: int, before: str) -> None:

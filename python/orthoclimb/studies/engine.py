@@ -322,8 +322,10 @@ def run_study(
     done = failed = replaced = 0
     client = cluster = None
     bar = None
+    connected = False
     try:
         client, cluster = _connect(scheduler, plan or WorkerPlan(1, 1, 1), timeout)
+        connected = True
         task_threads = plan.rayon_threads if plan is not None else (threads or 1)
         from distributed import as_completed
 
@@ -395,7 +397,10 @@ def run_study(
             client.close()
         if old_term is not None:
             signal.signal(signal.SIGTERM, old_term)
-        store.write_table()
+        # a new study whose cluster never started leaves the folder as it found it, so a
+        # rerun may use another configuration there; otherwise the table is brought up to date
+        if connected or not store.discard_if_unused():
+            store.write_table()
     address = None if scheduler is None else scheduler
     return SweepOutcome(
         len(tasks), skipped, done, failed, time.perf_counter() - start, plan, address, replaced

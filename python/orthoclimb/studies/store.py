@@ -20,7 +20,8 @@ rows were sealed (plain objects) are read without a checksum. Rerunning the same
 skips the tasks whose row exists. A configuration that only adds seeds
 and/or sizes extends the study: study.json gets the new configuration (and an "extended" list
 of what it grew from) and only the new tasks run. Any other change in the same folder is refused
-(:class:`StudyMismatchError`) rather than mixing two studies.
+(:class:`StudyMismatchError`) rather than mixing two studies. A study created by a sweep whose
+cluster never started is removed again (:meth:`Store.discard_if_unused`), since it holds nothing.
 """
 
 from __future__ import annotations
@@ -175,6 +176,8 @@ class Store:
         self.spec = spec
         self.rows_dir = self.folder / "rows"
         self.failed_dir = self.folder / "failed"
+        #: True when :meth:`open` wrote study.json (the folder held no study before).
+        self.created = False
 
     @classmethod
     def open(cls, folder: str | os.PathLike, spec: StudySpec) -> Store:
@@ -186,7 +189,8 @@ class Store:
             raise ValueError(f"study folder {str(folder)!r} exists and is not a folder")
         meta = folder / "study.json"
         config = spec.to_dict()
-        if meta.exists():
+        meta_existed = meta.exists()
+        if meta_existed:
             try:
                 stored = json.loads(meta.read_text(encoding="utf-8"))
                 old = stored["config"]
@@ -223,8 +227,25 @@ class Store:
                 },
             )
         store = cls(folder, spec)
+        store.created = not meta_existed
         store.rows_dir.mkdir(parents=True, exist_ok=True)
         return store
+
+    def discard_if_unused(self) -> bool:
+        """Undo :meth:`open` for a study it created that never got a row or a failure record
+        (a sweep that could not start): study.json and the empty rows folder are removed,
+        so the folder can take another configuration. Returns whether it did; a study that
+        existed before, or holds any result, is never touched."""
+        if not self.created or self.completed_ids() or self.failures():
+            return False
+        (self.folder / "study.json").unlink(missing_ok=True)
+        for folder in (self.rows_dir, self.failed_dir):
+            try:
+                folder.rmdir()  # only if empty
+            except OSError:
+                pass
+        self.created = False
+        return True
 
     # -- rows ----------------------------------------------------------------------------
 
