@@ -40,8 +40,8 @@ def test_climb_hessian_writes_files(tmp_path, capsys):
     assert res.config["n"] == 40 and res.config["steps"] == 20
 
 
-@pytest.mark.parametrize("method", ["gradient", "anneal"])
-def test_climb_baselines_json(tmp_path, capsys, method):
+@pytest.mark.parametrize(("method", "cap"), [("gradient", "--max-iter"), ("anneal", "--steps")])
+def test_climb_baselines_json(tmp_path, capsys, method, cap):
     out = tmp_path / method
     code = main(
         [
@@ -52,7 +52,7 @@ def test_climb_baselines_json(tmp_path, capsys, method):
             "20",
             "--method",
             method,
-            "--steps",
+            cap,
             "50",
             "--out",
             str(out),
@@ -69,6 +69,8 @@ def test_climb_baselines_json(tmp_path, capsys, method):
     assert (summary["n"], summary["seed"], summary["dtype"]) == (20, 0, "float64")
     assert summary["start_seed"] == 0
     assert (out / "path.png").exists()
+    config = oc.load_result(out / "result").config
+    assert config["max_iter" if method == "gradient" else "steps"] == 50
 
 
 @pytest.mark.parametrize(
@@ -80,6 +82,9 @@ def test_climb_baselines_json(tmp_path, capsys, method):
         ["--n", "1"],  # Hessian ascent needs a tangent direction
         ["--method", "gradient", "--tol", "5"],  # an option of another method: not ignored
         ["--method", "gradient", "--no-polish"],
+        ["--method", "gradient", "--steps", "50"],  # gradient's cap is --max-iter, as in sweep
+        ["--method", "anneal", "--max-iter", "50"],
+        ["--method", "gradient", "--max-iter", "0"],
         ["--gammas", "9:1"],
         ["--seed", "-3"],
         ["--start-seed", str(2**64)],

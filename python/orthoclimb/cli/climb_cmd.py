@@ -47,8 +47,13 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
         type=int,
         default=None,
         help="hessian: K, the number of points on the path (K - 1 Hessian steps; default n/8"
-        " clamped to [25, 200]); gradient: max iterations (default 2000); anneal: Langevin"
-        " steps (default 400)",
+        " clamped to [25, 200]); anneal: Langevin steps (default 400)",
+    )
+    parser.add_argument(
+        "--max-iter",
+        type=int,
+        default=None,
+        help="gradient: iteration cap (default 2000; the same flag as in sweep)",
     )
     parser.add_argument(
         "--tol", type=float, default=None, help="hessian: eigen tolerance delta (default 1e-3)"
@@ -150,10 +155,20 @@ def run(args: argparse.Namespace) -> int:
         raise ValueError("--method hessian needs --n >= 2: the sphere of n = 1 is two points")
     for flag, seed in (("--seed", args.seed), ("--start-seed", args.start_seed)):
         _check_seed(seed, flag)  # the library's rule, before anything is printed or sampled
+    if args.method == "gradient" and args.steps is not None:
+        raise ValueError(
+            "--steps applies to --method hessian or anneal; gradient's iteration cap is"
+            " --max-iter (as in sweep)"
+        )
+    if args.method != "gradient" and args.max_iter is not None:
+        raise ValueError(f"--max-iter applies to --method gradient only, not {args.method}")
+    flag, given = (
+        ("--max-iter", args.max_iter) if args.method == "gradient" else ("--steps", args.steps)
+    )
     default_steps = {"hessian": auto_steps(args.n), "gradient": 2000, "anneal": 400}[args.method]
-    steps = default_steps if args.steps is None else args.steps
+    steps = default_steps if given is None else given
     if steps < 1:
-        raise ValueError(f"--steps must be >= 1, got {steps}")
+        raise ValueError(f"{flag} must be >= 1, got {steps}")
     if args.tol is not None and args.method != "hessian":
         raise ValueError(f"--tol applies to --method hessian only, not {args.method}")
     if args.no_polish and args.method == "gradient":
