@@ -225,3 +225,23 @@ def test_large_finite_results_are_returned(ham):
     h3 = oc.Hamiltonian.from_coefficients(N, {3: ham.coefficients(3)}).energy(x)
     assert np.isclose(ham.energy(c * x), c**2 * h2 + c**3 * h3, rtol=1e-12)
     assert np.isfinite(ham.hessian(c * x)).all()
+
+
+def test_a_hessian_workspace_beyond_the_available_memory_is_refused(monkeypatch):
+    # n = 2100, pure p = 2: one n x n accumulator plus the result, 2 * 2100^2 * 8 bytes =
+    # 70.56 MB, above the 64 MiB from which hessian() checks; with 1 MB "available" it is
+    # refused before the kernel allocates anything, and check_memory=False still computes it
+    from orthoclimb.model import memory
+
+    ham = oc.Hamiltonian.sample(oc.Mixture({2: 1.0}), 2100, seed=0)
+    assert ham.hessian_workspace_nbytes == 2 * 2100 * 2100 * 8
+    monkeypatch.setattr(memory, "available_memory", lambda: 10**6)
+    x = np.full(2100, 2100**-0.5)
+    with pytest.raises(InsufficientMemoryError, match="n = 2100 needs 70560000 bytes"):
+        ham.hessian(x)
+    hess = ham.hessian(x, check_memory=False)
+    assert hess.shape == (2100, 2100) and np.isfinite(hess).all()
+    with pytest.raises(TypeError, match="check_memory must be True or False, got 'no'"):
+        ham.hessian(x, check_memory="no")
+    small = oc.Hamiltonian.sample(oc.Mixture({2: 1.0}), 30, seed=0)  # 14 KB: not checked
+    assert small.hessian(np.full(30, 30**-0.5)).shape == (30, 30)

@@ -35,6 +35,10 @@ from .mixture import MAX_DEGREE, Mixture, _check_degree
 
 _SEED_LIMIT = 2**64
 _PROGRESS_DELAY = 0.5  # seconds of sampling before sample(progress=True) shows its bar
+# Hessian workspaces from this size on are checked against the available memory first. Below
+# it the check (a read of /proc/meminfo and the cgroup files, tens of microseconds) would cost
+# more than small calls take, and such a workspace fits on any machine that holds Python.
+_CHECKED_WORKSPACE = 64 << 20
 
 
 def _check_seed(seed: Any, name: str = "seed") -> int:
@@ -282,11 +286,22 @@ class Hamiltonian:
         """grad H(x) (the full gradient in R^n, not projected): (n,) -> (n,); (b, n) -> (b, n)."""
         return self.energy_and_gradient(x)[1]
 
-    def hessian(self, x: Any) -> np.ndarray:
+    def hessian(self, x: Any, *, check_memory: bool = True) -> np.ndarray:
         """The full (not projected) n x n Hessian of H at x. Costs one pass over the
         coefficients plus :attr:`hessian_workspace_nbytes` of memory: n x n accumulators, a
-        number (1 to 64) fixed by the instance whatever the thread count, and the result."""
-        return self._core.hessian(as_point(x, self.n))
+        number (1 to 64) fixed by the instance whatever the thread count, and the result.
+
+        A workspace of 64 MiB or more (n above about 2000) is checked against the available
+        memory first and refused with :class:`~orthoclimb.errors.InsufficientMemoryError`
+        naming both sizes, rather than left to the operating system's out-of-memory killer;
+        ``check_memory=False`` skips the check."""
+        pt = as_point(x, self.n)
+        if not isinstance(check_memory, bool):
+            raise TypeError(f"check_memory must be True or False, got {check_memory!r}")
+        need = self.hessian_workspace_nbytes
+        if check_memory and need >= _CHECKED_WORKSPACE:
+            require_memory(need, f"the Hessian of an instance with n = {self.n}")
+        return self._core.hessian(pt)
 
     def hvp(self, x: Any, v: Any) -> np.ndarray:
         """Hess H(x) v for v of shape (n,) or (n, k) (k directions in one pass)."""
