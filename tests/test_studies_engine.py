@@ -194,6 +194,16 @@ def test_unreachable_scheduler_is_a_clear_error(tmp_path, capsys):
     Store.open(tmp_path / "s", _spec("0-2"))
 
 
+def test_a_new_study_refused_before_its_cluster_starts_leaves_nothing(tmp_path, capsys):
+    # --workers 0 is refused by the worker plan, after the study folder was opened: the
+    # study it created is removed again, so the next sweep there may differ
+    args = ["sweep", "--gammas", "3:1", "--n", "16", "--seeds", "0-1", "--no-progress"]
+    assert main([*args, "--workers", "0", "--out", str(tmp_path / "w")]) == 2
+    assert "--workers" in capsys.readouterr().err
+    assert list((tmp_path / "w").iterdir()) == []
+    Store.open(tmp_path / "w", _spec("0-2"))
+
+
 def test_a_study_with_results_stays_when_its_scheduler_is_unreachable(tmp_path):
     # only a study that this very call created, and that holds nothing, is undone; an
     # existing one keeps its configuration, rows and table

@@ -9,6 +9,7 @@ from orthoclimb.studies.grid import (
     MAX_TASKS,
     TOML_EXAMPLE,
     MethodSpec,
+    StudySpec,
     parse_seeds,
     parse_sizes,
     spec_from_flags,
@@ -111,6 +112,15 @@ def test_toml_anneal_that_heats_is_refused(tmp_path):
     )
     with pytest.raises(ValueError, match="t_end = 2.0 is above t_start = 0.05"):
         spec_from_toml(p)
+    # a study.json written before the rule is still read (and so can be reported)
+    stored = {
+        "mixtures": [{"name": "3:1", "gammas": {"3": 1.0}}],
+        "sizes": [20, 30],
+        "seeds": [0, 1],
+        "methods": [{"name": "anneal", "t_start": 0.05, "t_end": 2.0}],
+    }
+    (method,) = StudySpec.from_dict(stored).methods
+    assert dict(method.options)["t_end"] == 2.0
 
 
 @pytest.mark.parametrize("value", ['"x"', "true", "[1]"])

@@ -91,12 +91,14 @@ def format_bytes(nbytes: float) -> str:
     raise AssertionError("unreachable")
 
 
-def require_memory(needed: int, what: str) -> None:
-    """Raise InsufficientMemoryError when `needed` bytes exceed the available memory."""
+def require_memory(
+    needed: int, what: str, skip: str = "in Python, check_memory=False skips this check"
+) -> None:
+    """Raise InsufficientMemoryError when `needed` bytes exceed the available memory; the
+    message ends with `skip`, how the caller can skip the check."""
     have = available_memory()
     if needed > have:
         raise InsufficientMemoryError(
             f"{what} needs {needed} bytes ({format_bytes(needed)}) but only {have} bytes "
-            f"({format_bytes(have)}) are available (in Python, check_memory=False skips this"
-            " check)"
+            f"({format_bytes(have)}) are available ({skip})"
         )

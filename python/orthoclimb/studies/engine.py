@@ -294,26 +294,30 @@ def run_study(
     if scheduler is None:
         _check_largest_fits(spec, tasks)  # before the study folder is created
     store = Store.open(folder, spec)
-    pending = store.pending(tasks)
-    skipped = len(tasks) - len(pending)
-    plan: WorkerPlan | None = None
-    start = time.perf_counter()
-    if not pending:
-        store.write_table()
-        return SweepOutcome(len(tasks), skipped, 0, 0, 0.0, None, None)
-    if scheduler is None:
-        from ..model import available_memory
-        from .estimate import largest_instance
+    try:  # until the cluster is reached, a failure removes a study this call created
+        pending = store.pending(tasks)
+        skipped = len(tasks) - len(pending)
+        plan: WorkerPlan | None = None
+        start = time.perf_counter()
+        if not pending:
+            store.write_table()
+            return SweepOutcome(len(tasks), skipped, 0, 0, 0.0, None, None)
+        if scheduler is None:
+            from ..model import available_memory
+            from .estimate import largest_instance
 
-        biggest = largest_instance(spec, pending)[0]
-        cores, memory = available_cores(), available_memory()
-        plan = plan_workers(cores, len(pending), workers, biggest, memory)
-        if threads is not None:
-            plan = WorkerPlan(plan.workers, 1, min(threads, plan.rayon_threads))
-        for note in _reduced_requests(plan, workers, threads, cores, len(pending)):
-            log(note)
-    if on_start is not None:
-        on_start(pending, plan)
+            biggest = largest_instance(spec, pending)[0]
+            cores, memory = available_cores(), available_memory()
+            plan = plan_workers(cores, len(pending), workers, biggest, memory)
+            if threads is not None:
+                plan = WorkerPlan(plan.workers, 1, min(threads, plan.rayon_threads))
+            for note in _reduced_requests(plan, workers, threads, cores, len(pending)):
+                log(note)
+        if on_start is not None:
+            on_start(pending, plan)
+    except BaseException:
+        store.discard_if_unused()
+        raise
     old_term = signal.getsignal(signal.SIGTERM)
     try:  # SIGTERM -> KeyboardInterrupt, so the cluster is shut down cleanly
         signal.signal(signal.SIGTERM, _term_to_interrupt)
@@ -397,8 +401,8 @@ def run_study(
             client.close()
         if old_term is not None:
             signal.signal(signal.SIGTERM, old_term)
-        # a new study whose cluster never started leaves the folder as it found it, so a
-        # rerun may use another configuration there; otherwise the table is brought up to date
+        # a new study whose cluster never started is removed again (the folder stays, empty),
+        # so a rerun may use another configuration there; else the table is brought up to date
         if connected or not store.discard_if_unused():
             store.write_table()
     address = None if scheduler is None else scheduler

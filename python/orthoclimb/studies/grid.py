@@ -173,7 +173,13 @@ class MethodSpec:
     options: tuple[tuple[str, Any], ...]
 
     @classmethod
-    def make(cls, name: str, options: Mapping[str, Any] | None = None) -> MethodSpec:
+    def make(
+        cls, name: str, options: Mapping[str, Any] | None = None, *, stored: bool = False
+    ) -> MethodSpec:
+        """The method ``name`` with ``options`` checked and defaults filled in. ``stored``: the
+        options come from an existing study.json, which is read as written even where a new
+        configuration would now be refused (an anneal that heats), so it can still be
+        reported."""
         if name not in METHOD_OPTIONS:
             raise ValueError(f"unknown method {name!r}; choose from {sorted(METHOD_OPTIONS)}")
         allowed = METHOD_OPTIONS[name]
@@ -205,7 +211,7 @@ class MethodSpec:
                 if not (math.isfinite(value) and value > 0):
                     raise ValueError(f"option {key} of {name} must be positive, got {value!r}")
             out[key] = value
-        if name == "anneal" and out["t_end"] > out["t_start"]:
+        if name == "anneal" and not stored and out["t_end"] > out["t_start"]:
             raise ValueError(
                 f"options of anneal: t_end = {out['t_end']} is above t_start ="
                 f" {out['t_start']}; the schedule cools from t_start to t_end, so t_end must"
@@ -305,7 +311,7 @@ class StudySpec:
                 for m in data["mixtures"]
             )
             methods = tuple(
-                MethodSpec.make(m["name"], {k: v for k, v in m.items() if k != "name"})
+                MethodSpec.make(m["name"], {k: v for k, v in m.items() if k != "name"}, stored=True)
                 for m in data["methods"]
             )
             return cls(

@@ -235,10 +235,15 @@ class Store:
         """Undo :meth:`open` for a study it created that never got a row or a failure record
         (a sweep that could not start): study.json and the empty rows folder are removed,
         so the folder can take another configuration. Returns whether it did; a study that
-        existed before, or holds any result, is never touched."""
-        if not self.created or self.completed_ids() or self.failures():
+        existed before, or holds any result, is never touched. One folder takes one sweep at
+        a time: a second sweep that reopened this study before its first row would lose its
+        study.json here."""
+        if not self.created or self.completed_ids() or self.failed_dir.exists():
             return False
-        (self.folder / "study.json").unlink(missing_ok=True)
+        try:
+            (self.folder / "study.json").unlink(missing_ok=True)
+        except OSError:  # it runs while another error is raised: never hide that one
+            return False
         for folder in (self.rows_dir, self.failed_dir):
             try:
                 folder.rmdir()  # only if empty
