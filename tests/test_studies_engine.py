@@ -219,6 +219,14 @@ def test_a_study_with_results_stays_when_its_scheduler_is_unreachable(tmp_path):
     assert (folder / "results.parquet").exists()
     with pytest.raises(StudyMismatchError, match="different configuration"):
         Store.open(folder, _spec("0"))
+    # an extension (more seeds) that could not start is taken back: study.json holds its
+    # previous bytes, so the old configuration is still the study's (before, the seeds 0-3
+    # stayed recorded and a rerun with 0-1 was refused as dropping seeds)
+    before = (folder / "study.json").read_bytes()
+    with pytest.raises(ValueError, match="cannot reach the Dask scheduler"):
+        run_study(_spec("0-3"), folder, scheduler="tcp://127.0.0.1:9", timeout=2, progress=False)
+    assert json.loads((folder / "study.json").read_bytes()) == json.loads(before)
+    assert Store.open(folder, spec).completed_ids() == {task.task_id}
 
 
 def _wait_for_rows(proc: subprocess.Popen, rows, count: int, before: str) -> None:

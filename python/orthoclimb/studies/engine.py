@@ -294,7 +294,7 @@ def run_study(
     if scheduler is None:
         _check_largest_fits(spec, tasks)  # before the study folder is created
     store = Store.open(folder, spec)
-    try:  # until the cluster is reached, a failure removes a study this call created
+    try:  # until the cluster is reached, a failure undoes what Store.open did
         pending = store.pending(tasks)
         skipped = len(tasks) - len(pending)
         plan: WorkerPlan | None = None
@@ -316,7 +316,7 @@ def run_study(
         if on_start is not None:
             on_start(pending, plan)
     except BaseException:
-        store.discard_if_unused()
+        store.undo_open()
         raise
     old_term = signal.getsignal(signal.SIGTERM)
     try:  # SIGTERM -> KeyboardInterrupt, so the cluster is shut down cleanly
@@ -401,9 +401,10 @@ def run_study(
             client.close()
         if old_term is not None:
             signal.signal(signal.SIGTERM, old_term)
-        # a new study whose cluster never started is removed again (the folder stays, empty),
-        # so a rerun may use another configuration there; else the table is brought up to date
-        if connected or not store.discard_if_unused():
+        # a sweep whose cluster never started takes back what it did to the folder (a new
+        # study removed, an extension undone), so a rerun may differ; else the table is
+        # brought up to date
+        if connected or not store.undo_open():
             store.write_table()
     address = None if scheduler is None else scheduler
     return SweepOutcome(

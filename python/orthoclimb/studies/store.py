@@ -20,8 +20,8 @@ rows were sealed (plain objects) are read without a checksum. Rerunning the same
 skips the tasks whose row exists. A configuration that only adds seeds
 and/or sizes extends the study: study.json gets the new configuration (and an "extended" list
 of what it grew from) and only the new tasks run. Any other change in the same folder is refused
-(:class:`StudyMismatchError`) rather than mixing two studies. A study created by a sweep whose
-cluster never started is removed again (:meth:`Store.discard_if_unused`), since it holds nothing.
+(:class:`StudyMismatchError`) rather than mixing two studies. A sweep whose cluster never started
+removes the study it created, or takes back the extension it recorded (:meth:`Store.undo_open`).
 """
 
 from __future__ import annotations
@@ -178,6 +178,8 @@ class Store:
         self.failed_dir = self.folder / "failed"
         #: True when :meth:`open` wrote study.json (the folder held no study before).
         self.created = False
+        #: What study.json held before :meth:`open` extended the study, else None.
+        self.grown_from: dict | None = None
 
     @classmethod
     def open(cls, folder: str | os.PathLike, spec: StudySpec) -> Store:
@@ -190,6 +192,7 @@ class Store:
         meta = folder / "study.json"
         config = spec.to_dict()
         meta_existed = meta.exists()
+        grown_from: dict | None = None
         if meta_existed:
             try:
                 stored = json.loads(meta.read_text(encoding="utf-8"))
@@ -203,6 +206,7 @@ class Store:
             diff = _differences(old, json.loads(_canonical(config)))
             if diff and _grows(old, config, diff):
                 _record_growth(meta, stored, config)
+                grown_from = stored
             elif diff:
                 raise StudyMismatchError(
                     f"the folder {str(folder)!r} holds a study with a different configuration "
@@ -228,20 +232,27 @@ class Store:
             )
         store = cls(folder, spec)
         store.created = not meta_existed
+        store.grown_from = grown_from
         store.rows_dir.mkdir(parents=True, exist_ok=True)
         return store
 
-    def discard_if_unused(self) -> bool:
-        """Undo :meth:`open` for a study it created that never got a row or a failure record
-        (a sweep that could not start): study.json and the empty rows folder are removed,
-        so the folder can take another configuration. Returns whether it did; a study that
-        existed before, or holds any result, is never touched. One folder takes one sweep at
-        a time: a second sweep that reopened this study before its first row would lose its
-        study.json here."""
-        if not self.created or self.completed_ids() or self.failed_dir.exists():
-            return False
+    def undo_open(self) -> bool:
+        """Undo :meth:`open` for a sweep that never ran a task (its cluster could not start):
+        a study it created, and that holds no row or failure record, is removed (study.json
+        and the empty rows folder), and an extension it recorded is taken back (study.json
+        gets its previous content). The folder then takes another configuration, or the
+        old one, as before. Returns whether anything was undone. One folder takes one sweep
+        at a time: a second sweep that reopened the study in between would lose its
+        study.json or its extension here."""
+        meta = self.folder / "study.json"
         try:
-            (self.folder / "study.json").unlink(missing_ok=True)
+            if self.grown_from is not None:
+                write_json_atomic(meta, self.grown_from)
+                self.grown_from = None
+                return True
+            if not self.created or self.completed_ids() or self.failed_dir.exists():
+                return False
+            meta.unlink(missing_ok=True)
         except OSError:  # it runs while another error is raised: never hide that one
             return False
         for folder in (self.rows_dir, self.failed_dir):
