@@ -483,3 +483,23 @@ def test_an_anneal_task_runs_langevin_with_its_options(tmp_path):
     assert row["energy_before_polish"] == direct.info["energy_anneal"] <= row["energy"] + 1e-12
     with pytest.raises(ValueError, match="eta"):
         spec_from_flags(["3:1"], None, "16", "3", "anneal", {"anneal": {"eta": -1.0}})
+
+
+def test_a_script_without_the_main_guard_gets_told_and_leaves_no_study(tmp_path):
+    # Dask's worker processes import the main script again (as __mp_main__); a study call at
+    # its top level would run the whole study once more inside every worker, in the same
+    # folder. The workers refuse with a message naming the fix, and the folder is left
+    # clean (before: the workers wrote results tables and the parent removed study.json)
+    script = tmp_path / "noguard.py"
+    script.write_text(
+        "from orthoclimb.studies.grid import spec_from_flags\n"
+        "from orthoclimb.studies.engine import run_study\n"
+        "spec = spec_from_flags(['3:1'], None, '16', '0', 'gradient')\n"
+        "run_study(spec, 'st', workers=1, progress=False)\n"
+    )
+    proc = subprocess.run(
+        [sys.executable, str(script)], cwd=tmp_path, capture_output=True, text=True, timeout=180
+    )
+    assert proc.returncode != 0
+    assert 'put the call under `if __name__ == "__main__":`' in proc.stderr
+    assert list((tmp_path / "st").iterdir()) == []

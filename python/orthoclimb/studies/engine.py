@@ -20,6 +20,7 @@ import logging
 import math
 import os
 import signal
+import sys
 import threading
 import time
 from collections.abc import Callable
@@ -255,6 +256,18 @@ def _worker_addresses(client: Any) -> set[str]:
         return set()
 
 
+def _inside_script_reimport() -> bool:
+    """Whether this call comes from a script being imported again as ``__mp_main__``: what a
+    worker process started by ``multiprocessing``'s spawn (as Dask's are) does with a script
+    whose study call is not under ``if __name__ == "__main__":``."""
+    frame = sys._getframe(1)
+    while frame is not None:
+        if frame.f_globals.get("__name__") == "__mp_main__":
+            return True
+        frame = frame.f_back
+    return False
+
+
 def _term_to_interrupt(signum, frame):  # pragma: no cover - exercised by a subprocess test
     raise KeyboardInterrupt
 
@@ -279,9 +292,19 @@ def run_study(
     the cluster starts with the pending tasks (the CLI prints counts and estimates there).
     ``progress``: a tqdm bar (True), none (False), or one only when stderr is a terminal (None,
     what the command line uses, so logs get no redrawn bar).
+
+    From a script, call it under ``if __name__ == "__main__":``: the embedded cluster's worker
+    processes import the script again, and a call made during that import is refused.
     """
     from tqdm import tqdm
 
+    if _inside_script_reimport():
+        # each worker would run the whole study again, in the same folder
+        raise RuntimeError(
+            "run_study was called while a worker process imported the calling script again;"
+            ' put the call under `if __name__ == "__main__":` (Dask starts its worker'
+            " processes by importing the main script)"
+        )
     if isinstance(retries, bool) or not isinstance(retries, int) or retries < 0:
         raise ValueError(f"--retries must be an integer >= 0, got {retries!r}")
     if not (isinstance(timeout, (int, float)) and math.isfinite(timeout) and timeout > 0):
