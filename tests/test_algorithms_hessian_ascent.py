@@ -392,3 +392,49 @@ def test_no_step_needs_a_second_lanczos_solve(monkeypatch, gammas):
     ham = oc.Hamiltonian.sample(oc.Mixture(gammas), 60, seed=0)
     oc.hessian_ascent(ham, steps=15, seed=1, polish=False, hessian="dense")
     assert len(calls) == 15 - 1  # one solve per move, none repeated
+
+
+def test_a_pure_field_is_maximized_by_the_first_stage_alone():
+    # exact (Cauchy-Schwarz): max <h, x> over the unit sphere is |h|, at x = h/|h|. With
+    # q_hat = 1 the first stage ends on the sphere, so no Hessian step is taken (before, 24
+    # steps of length 0 ran, and at n >= 20 ARPACK stopped on the zero Hessian)
+    ham = oc.Hamiltonian.sample(oc.Mixture({1: 1.0}), 50, seed=1)
+    res = oc.hessian_ascent(ham)
+    assert res.energy == pytest.approx(np.linalg.norm(ham.coefficients(1)) / 50, rel=1e-12)
+    assert res.path["step"].tolist() == [0] and "no Hessian steps" in res.info["note"]
+
+
+@pytest.mark.parametrize("mode", ["dense", "operator"])
+def test_a_zero_hessian_is_no_error_for_the_eigen_solver(mode):
+    # given degree-1 coefficients (no mixture, so no first stage): the tangent Hessian is
+    # the zero operator, whose top eigenvalue is 0; ARPACK refuses it ("starting vector is
+    # zero") at n - 1 > DIRECT_MAX, and the step goes on with eigenvalue 0. The polish then
+    # reaches |h|/n (Cauchy-Schwarz)
+    h = np.random.default_rng(0).standard_normal(300)
+    ham = oc.Hamiltonian.from_coefficients(300, {1: h})
+    res = oc.hessian_ascent(ham, steps=5, hessian=mode)
+    assert res.path["eigenvalue"][:-1].tolist() == [0.0] * 4
+    assert res.energy == pytest.approx(np.linalg.norm(h) / 300, rel=1e-9)
+
+
+def test_the_returned_energy_is_that_of_the_returned_point():
+    # one point on the path (steps = 1) with q_hat < 1 stops inside the ball; the point is
+    # scaled to the sphere and its energy measured there (before, the energy at radius
+    # sqrt(q_hat) was reported for the scaled point: 0.41 against H(x)/n = 1.58)
+    ham = oc.Hamiltonian.sample(oc.Mixture({1: 0.5, 3: 1.0}), 60, seed=3)
+    res = oc.hessian_ascent(ham, steps=1, polish=False)
+    assert res.info["final_norm"] < 0.9
+    assert res.energy == pytest.approx(ham.energy(res.x) / 60, rel=1e-12)
+    assert res.info["alg_gap"] == pytest.approx(res.energy - res.info["alg"], abs=1e-15)
+
+
+def test_alg_gap_is_that_of_the_returned_point_as_in_the_baselines():
+    # alg_gap compares the point returned (after the polish) with ALG for every method;
+    # alg_gap_ascent keeps the gap of the path's end point, before the polish
+    ham = oc.Hamiltonian.sample(oc.Mixture({3: 1.0}), 60, seed=3)
+    res = oc.hessian_ascent(ham, steps=20)
+    alg = res.info["alg"]
+    assert res.info["alg_gap"] == pytest.approx(res.energy - alg, abs=1e-15)
+    assert res.info["alg_gap_ascent"] == pytest.approx(res.info["energy_ascent"] - alg, abs=1e-15)
+    base = oc.gradient_ascent(ham, seed=0)
+    assert base.info["alg_gap"] == pytest.approx(base.energy - alg, abs=1e-15)

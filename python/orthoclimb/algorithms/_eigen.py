@@ -35,7 +35,7 @@ from collections.abc import Callable
 import numpy as np
 import scipy.linalg
 from scipy.linalg.blas import dger
-from scipy.sparse.linalg import ArpackNoConvergence, LinearOperator, eigsh
+from scipy.sparse.linalg import ArpackError, ArpackNoConvergence, LinearOperator, eigsh
 
 __all__ = ["DIRECT_MAX", "TangentBasis", "top_tangent_eigenpair"]
 
@@ -127,5 +127,15 @@ def top_tangent_eigenpair(
                 theta, y = float(exc.eigenvalues[0]), exc.eigenvectors[:, 0]
             else:
                 raise
+        except ArpackError:
+            # ARPACK stops ("starting vector is zero") when op maps its start to 0: a zero
+            # operator (a Hessian that vanishes, as for a polynomial of degree 1), where every
+            # vector is a top eigenvector with eigenvalue 0. Anything else is raised.
+            y = basis.coordinates(v0)
+            probe = np.random.default_rng(0).standard_normal(d)
+            if np.any(op @ y) or np.any(op @ probe):
+                raise
+            fallback = True
+            theta = 0.0
     v = basis.lift(y)
     return theta, v / float(np.linalg.norm(v)), fallback
