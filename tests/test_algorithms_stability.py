@@ -70,3 +70,20 @@ def test_overlaps_keep_their_sign():
         assert overlap == pytest.approx(cosine, abs=tol), rho
     assert st.overlaps[0] == pytest.approx(-1.0, abs=1e-9)
     assert st.overlaps[1] < 0.0
+
+
+def test_the_start_seed_reaches_a_named_method_and_the_largest_seed_works():
+    # seed is the disorder; start_seed goes to the method's own seed (its random start), the
+    # same for every instance. At rho = 1 the correlated instance is the base one, so the same
+    # start gives the same point (overlap 1 exactly); another start_seed gives another start
+    mix = oc.Mixture({3: 1.0})
+    st = oc.stability("gradient", mix, 30, seed=2, rhos=[1.0], start_seed=7)
+    assert st.config["base_config"]["seed"] == 7
+    assert st.overlaps[0] == pytest.approx(1.0, abs=1e-12)
+    other = oc.stability("gradient", mix, 30, seed=2, rhos=[1.0], start_seed=8)
+    assert other.config["base_config"]["seed"] == 8
+    # the default other_seed wraps around 2^64 instead of naming a seed nobody gave
+    top = oc.stability("gradient", mix, 12, seed=2**64 - 1, rhos=[0.5])
+    assert top.config["other_seed"] == 0
+    with pytest.raises(ValueError, match="start_seed must be in"):
+        oc.stability("gradient", mix, 12, seed=1, rhos=[0.5], start_seed=-1)

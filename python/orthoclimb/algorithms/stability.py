@@ -88,19 +88,24 @@ def stability(
     other_seed: int | None = None,
     dtype: str = "float64",
     keep_results: bool = False,
+    start_seed: int = 0,
     **options: Any,
 ) -> StabilityResult:
     """Run ``algorithm`` on the instance of ``seed`` and on instances correlated with it.
 
     ``algorithm`` is "hessian", "gradient", "anneal" or a callable ham -> Result; ``options``
-    are passed to it (e.g. ``steps=100, seed=0``). ``rhos`` are correlations in [-1, 1]
-    (checked by ``Hamiltonian.sample``); ``other_seed`` (default seed + 1, must differ from
-    ``seed``) drives the independent part. Instances are built one at a time.
+    are passed to it (e.g. ``steps=100``). ``seed`` is the disorder seed; a named method gets
+    ``start_seed`` as its own ``seed`` (its random start or noise, the same for every
+    instance), while a callable chooses its own. ``rhos`` are correlations in [-1, 1]
+    (checked by ``Hamiltonian.sample``); ``other_seed`` (default (seed + 1) mod 2^64, must
+    differ from ``seed``) drives the independent part. Instances are built one at a time.
     """
     if not isinstance(mixture, Mixture):
         raise TypeError(f"mixture must be an orthoclimb.Mixture, got {type(mixture).__name__}")
     seed = check_seed(seed)
-    other = seed + 1 if other_seed is None else check_seed(other_seed, "other_seed")
+    if isinstance(algorithm, str):
+        options = {**options, "seed": check_seed(start_seed, "start_seed")}
+    other = (seed + 1) % 2**64 if other_seed is None else check_seed(other_seed, "other_seed")
     if other == seed:
         raise ValueError(
             f"other_seed must differ from seed ({seed}): the two parts must be independent"
