@@ -51,6 +51,7 @@ def test_kernels_match_dense_reference(gammas, n, dtype, rng):
     _close(ham.hessian(x), h_ref, scale)
     _close(ham.hvp(x, v), h_ref @ v, scale)
     _close(ham.hvp(x, vs), h_ref @ vs, scale)
+    _close(ham._core.hvp_many(x, vs), h_ref @ vs, scale)  # the pass hvp takes at large n
     xs = unit(rng.standard_normal((4, n)))
     _close(ham.energy(xs), [reference.energy(tensors, p) for p in xs], scale)
     eb, gb = ham.energy_and_gradient(xs)
@@ -148,6 +149,7 @@ def test_kernels_are_bitwise_identical_across_thread_counts(rng):
                     ham.hessian(x),
                     ham.hvp(x, v[:, 0]),
                     ham.hvp(x, v),
+                    ham._core.hvp_many(x, v),
                     ham.energy(xs),
                     ham.gradient(xs),
                 ]
@@ -180,3 +182,31 @@ def test_energy_per_spin_is_the_energy_over_n(rng):
     assert batch.shape == (4,)
     np.testing.assert_array_equal(batch, ham.energy(xs) / n)
     assert ham.energy_per_spin(x) != ham.energy(x)  # n != 1: the division is not a no-op
+
+
+def test_hvp_with_several_directions_takes_the_faster_route(monkeypatch, rng):
+    # below a 64 MiB Hessian workspace, k >= 2 directions are one Hessian pass and a matrix
+    # product (4-5x faster than the multi-direction pass at p = 4); one direction in a 2-D
+    # array is the 1-D kernel, bit for bit; above the bound, the multi-direction pass
+    import orthoclimb.model.hamiltonian as hamiltonian_module
+
+    n = 40
+    ham = oc.Hamiltonian.sample(oc.Mixture({2: 0.5, 4: 1.0}), n, seed=3)
+    x = unit(rng.standard_normal(n))
+    vs = rng.standard_normal((n, 5))
+    np.testing.assert_array_equal(ham.hvp(x, vs), ham.hessian(x) @ vs)
+    np.testing.assert_array_equal(ham.hvp(x, vs[:, :1]), ham.hvp(x, vs[:, 0])[:, None])
+    monkeypatch.setattr(hamiltonian_module, "_CHECKED_WORKSPACE", 0)
+    np.testing.assert_array_equal(ham.hvp(x, vs), ham._core.hvp_many(x, vs))
+    _close(ham.hvp(x, vs), ham.hessian(x) @ vs, 1.0 + np.abs(ham.hessian(x)).max())
+
+
+def test_hvp_by_the_hessian_route_refuses_an_overflow():
+    # |x| = 1e150 keeps the Hessian finite (p = 3: linear in x), but times directions of
+    # 1e200 it overflows; the route must raise as the kernels do, not return infinities
+    n = 12
+    ham = oc.Hamiltonian.sample(oc.Mixture({3: 1.0}), n, seed=0)
+    x = np.full(n, 1e150)
+    assert np.isfinite(ham.hessian(x)).all()
+    with pytest.raises(oc.errors.NonFiniteError, match="overflowed float64"):
+        ham.hvp(x, np.full((n, 2), 1e200))
