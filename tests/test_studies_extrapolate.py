@@ -92,3 +92,28 @@ def test_interval_covers_at_stated_rate_with_five_seeds_per_size():
         hits += ex.low <= 1.5 <= ex.high
     rate = hits / draws
     assert abs(rate - 0.9) <= 3 * math.sqrt(0.9 * 0.1 / draws), rate
+
+
+@pytest.mark.parametrize(
+    ("sizes", "kwargs", "words"),
+    [
+        ([100, 100], {}, r"sizes must be distinct, got \[100, 100\]"),
+        ([0, 100], {}, "sizes must be integers >= 1, got 0"),
+        ([-5, 100], {}, "sizes must be integers >= 1, got -5"),
+        ([1.5, 100], {}, "sizes must be integers >= 1, got 1.5"),
+        ([50, 100], {"n_boot": 0}, "n_boot must be an integer >= 2"),
+        ([50, 100], {"n_boot": 1}, "n_boot must be an integer >= 2"),
+    ],
+)
+def test_bad_sizes_and_replicates_are_refused_by_name(sizes, kwargs, words):
+    # before: repeated or non-positive sizes returned NaN (with only a RuntimeWarning) and
+    # n_boot = 0 a bare IndexError
+    samples = [[1.50, 1.52, 1.51], [1.55, 1.56, 1.54]]
+    with pytest.raises(ValueError, match=words):
+        extrapolate(sizes, samples, **kwargs)
+
+
+def test_samples_given_as_sizes_are_named():
+    # the arguments swapped: the message points at the order
+    with pytest.raises(ValueError, match=r"\(sizes, then samples\)"):
+        extrapolate([[1.5, 1.6], [1.55, 1.65]], [100, 200])

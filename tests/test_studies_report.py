@@ -478,3 +478,17 @@ def test_profile_refuses_before_timing_or_printing_its_plan(tmp_path, capsys):
         assert main(args) == 2
         err = capsys.readouterr().err
         assert "error:" in err and "profile: n =" not in err and "done in" not in err
+
+
+@pytest.mark.parametrize(
+    ("kwargs", "words"),
+    [
+        ({"level": 2}, r"level must be in \(0, 1\), got 2"),
+        ({"n_boot": 0}, "n_boot must be an integer >= 2"),
+        ({"exponent": -1.0}, "exponent must be a positive number, got -1.0"),
+    ],
+)
+def test_report_options_are_checked_before_the_study_is_read(tmp_path, kwargs, words):
+    # before, a bad level reached each fit and ended up as its note, with no error at all
+    with pytest.raises(ValueError, match=words):
+        build_report(tmp_path / "nothing-here", **kwargs)

@@ -70,6 +70,13 @@ def _checked(
         raise ValueError(f"extrapolation needs at least 2 sizes, got {len(sizes)}")
     if not (math.isfinite(exponent) and exponent > 0):
         raise ValueError(f"exponent must be positive, got {exponent}")
+    for n in sizes:
+        if isinstance(n, (bool, np.bool_)) or not isinstance(n, (int, np.integer)) or n < 1:
+            raise ValueError(f"sizes must be integers >= 1, got {n!r} (sizes, then samples)")
+    if len(set(int(n) for n in sizes)) != len(sizes):
+        raise ValueError(
+            f"sizes must be distinct, got {list(sizes)}: pool the samples of a repeated size"
+        )
     arrays = [np.asarray(s, dtype=np.float64) for s in samples]
     for n, a in zip(sizes, arrays, strict=True):
         if a.ndim != 1 or a.size < 2:
@@ -113,6 +120,8 @@ def extrapolate(
     arrays = _checked(sizes, samples, exponent)
     if not 0 < level < 1:
         raise ValueError(f"level must be in (0, 1), got {level}")
+    if isinstance(n_boot, bool) or not isinstance(n_boot, (int, np.integer)) or n_boot < 2:
+        raise ValueError(f"n_boot must be an integer >= 2 (bootstrap replicates), got {n_boot!r}")
     x = np.asarray(sizes, dtype=np.float64) ** (-exponent)
     value, slope, chi2, var = _fit(x, arrays)
     rng = np.random.default_rng(seed)
