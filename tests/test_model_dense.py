@@ -59,3 +59,19 @@ def test_dense_shape_errors():
         oc.Hamiltonian.from_dense({2: np.zeros((3, 4))})
     with pytest.raises(ShapeError, match="share one n"):
         oc.Hamiltonian.from_dense({1: np.zeros(3), 2: np.zeros((4, 4))})
+
+
+@pytest.mark.parametrize(("p", "n"), [(2, 5), (3, 4), (4, 3), (5, 3)])
+def test_symmetrized_is_the_average_over_all_axis_permutations(p, n):
+    # against the definition (the mean of T over all p! axis orders, itertools), which the
+    # coset-by-coset average replaces; and max_asymmetry is 0 only for symmetric tensors
+    from orthoclimb.model.dense import max_asymmetry, symmetrized
+
+    t = np.random.default_rng(p).standard_normal((n,) * p)
+    perms = list(itertools.permutations(range(p)))
+    mean = sum(t.transpose(q) for q in perms) / len(perms)
+    np.testing.assert_allclose(symmetrized(t), mean, rtol=0, atol=1e-14)
+    assert max_asymmetry(mean) < 1e-14 < max_asymmetry(t)
+    # a tensor symmetric under one exchange only is still caught
+    half = (t + t.transpose([1, 0, *range(2, p)])) / 2
+    assert max_asymmetry(half) > 0.1 if p >= 3 else max_asymmetry(half) < 1e-14

@@ -57,21 +57,37 @@ def to_dense(coeffs: np.ndarray, n: int, p: int, max_bytes: int = DEFAULT_DENSE_
     return tensor
 
 
+def _swap(p: int, i: int, j: int) -> list[int]:
+    """The axis order of (n,)*p that exchanges axes i and j."""
+    perm = list(range(p))
+    perm[i], perm[j] = j, i
+    return perm
+
+
 def max_asymmetry(tensor: np.ndarray) -> float:
-    """Largest |T - T permuted| over all axis permutations."""
+    """Largest |T - T with two adjacent axes exchanged|. It is zero exactly when T is
+    symmetric, since the adjacent exchanges generate every permutation of the axes, and it
+    takes p - 1 comparisons instead of p! (p = 8, n = 4: 6 s before)."""
+    p = tensor.ndim
     worst = 0.0
-    for perm in itertools.permutations(range(tensor.ndim)):
-        worst = max(worst, float(np.max(np.abs(tensor - tensor.transpose(perm)))))
+    for i in range(p - 1):
+        worst = max(worst, float(np.max(np.abs(tensor - tensor.transpose(_swap(p, i, i + 1))))))
     return worst
 
 
 def symmetrized(tensor: np.ndarray) -> np.ndarray:
-    """Average of the tensor over all permutations of its axes."""
-    perms = list(itertools.permutations(range(tensor.ndim)))
-    total = np.zeros_like(tensor)
-    for perm in perms:
-        total += tensor.transpose(perm)
-    return total / len(perms)
+    """Average of the tensor over all p! permutations of its axes, in p(p-1)/2 exchanges:
+    the transpositions (j, k) with j < k and the identity represent the cosets of the
+    permutations of the first k axes among those of the first k + 1, so averaging over them
+    for k = 1, .., p - 1 in turn averages over the whole group."""
+    p = tensor.ndim
+    out = np.array(tensor, dtype=np.float64, copy=True)
+    for k in range(1, p):
+        total = out.copy()
+        for j in range(k):
+            total += out.transpose(_swap(p, j, k))
+        out = total / (k + 1)
+    return out
 
 
 def pack(tensor: np.ndarray, p: int, symmetrize: bool, rtol: float = 1e-10) -> np.ndarray:
