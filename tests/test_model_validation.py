@@ -251,3 +251,15 @@ def test_a_hessian_workspace_beyond_the_available_memory_is_refused(monkeypatch)
 
     monkeypatch.setattr(memory, "available_memory", not_asked)
     assert small.hessian(np.full(30, 30**-0.5)).shape == (30, 30)
+
+
+def test_numpy_integers_are_integers_for_coefficient_ranges(ham):
+    # a range computed with NumPy (np.int64, np.int32) reads the same slice as Python ints;
+    # a text byte limit is refused by name (before: a bare comparison TypeError)
+    np.testing.assert_array_equal(
+        ham.coefficients(3, np.int64(2), np.int32(5)), ham.coefficients(3, 2, 5)
+    )
+    with pytest.raises(TypeError, match="start must be an integer, got True"):
+        ham.coefficients(3, np.True_)
+    with pytest.raises(TypeError, match="max_bytes must be an integer number of bytes"):
+        ham.to_dense(3, max_bytes="1e9")

@@ -395,17 +395,23 @@ class Hamiltonian:
         p = _check_degree(p)
         if p not in self.degrees:
             raise ValueError(f"this instance has no degree-{p} term (degrees {self.degrees})")
+        bounds = []
         for name, value in (("start", start), ("stop", stop)):
-            if value is not None and (isinstance(value, bool) or not isinstance(value, int)):
+            if value is not None and (
+                isinstance(value, (bool, np.bool_)) or not isinstance(value, (int, np.integer))
+            ):
                 raise TypeError(f"{name} must be an integer, got {value!r}")
             if value is not None and value < 0:
                 raise ValueError(f"{name} must be >= 0, got {value}")
-        return self._core.coefficients(p, start, stop)
+            bounds.append(None if value is None else int(value))
+        return self._core.coefficients(p, bounds[0], bounds[1])
 
     def to_dense(self, p: int, max_bytes: int = _dense.DEFAULT_DENSE_LIMIT) -> np.ndarray:
         """The symmetric dense tensor T of degree p with H_p(x) = T(x, ..., x); refuses when
         it would exceed ``max_bytes`` (n^p * 8 bytes)."""
-        return _dense.to_dense(self.coefficients(p), self.n, p, max_bytes)
+        if isinstance(max_bytes, (bool, np.bool_)) or not isinstance(max_bytes, (int, np.integer)):
+            raise TypeError(f"max_bytes must be an integer number of bytes, got {max_bytes!r}")
+        return _dense.to_dense(self.coefficients(p), self.n, p, int(max_bytes))
 
 
 __all__ = ["Hamiltonian", "MAX_DEGREE"]
