@@ -259,7 +259,7 @@ def test_numpy_integers_are_integers_for_coefficient_ranges(ham):
     np.testing.assert_array_equal(
         ham.coefficients(3, np.int64(2), np.int32(5)), ham.coefficients(3, 2, 5)
     )
-    with pytest.raises(TypeError, match="start must be an integer, got True"):
+    with pytest.raises(TypeError, match="start must be an integer, got np.True_"):
         ham.coefficients(3, np.True_)
     with pytest.raises(TypeError, match="max_bytes must be an integer number of bytes"):
         ham.to_dense(3, max_bytes="1e9")

@@ -330,7 +330,7 @@ class Hamiltonian:
                 out = self._core.hessian(pt) @ dirs
             if not np.isfinite(out).all():  # as the kernels do: never a silent infinity
                 raise NonFiniteError(
-                    "the Hessian-vector products overflowed float64: the result is not finite"
+                    "the Hessian-vector product overflowed float64: the result is not finite"
                     " although every input is (points are meant to lie on the unit sphere"
                     " |x| = 1; check the inputs' scale)"
                 )
