@@ -263,3 +263,11 @@ def test_numpy_integers_are_integers_for_coefficient_ranges(ham):
         ham.coefficients(3, np.True_)
     with pytest.raises(TypeError, match="max_bytes must be an integer number of bytes"):
         ham.to_dense(3, max_bytes="1e9")
+
+
+def test_repr_tells_correlated_instances_apart():
+    # two instances of one mixture and seed that differ in their correlation print apart
+    mix = oc.Mixture({3: 1.0})
+    a = oc.Hamiltonian.sample(mix, 10, seed=2)
+    b = oc.Hamiltonian.sample(mix, 10, seed=2, correlated_with=(1, 0.5))
+    assert repr(a) != repr(b) and "correlated_with=(1, 0.5)" in repr(b)

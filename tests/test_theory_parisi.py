@@ -434,3 +434,12 @@ def test_only_isolated_jumps_are_candidates_for_moving():
     assert gain == pytest.approx(gains.sum()) and np.all(gains >= 0)
     inside = (grid.q[jumps - 1] <= places) & (places <= grid.q[jumps + 1])
     assert inside.all()  # each place lies in one of the jump's two pieces
+
+
+def test_ground_state_repr_is_one_readable_line():
+    # the fields hold the arrays and the history; the repr names the value, the gap to ALG
+    # and whether the solver converged, without dumping a 16-piece grid
+    gs = Mixture({2: 1.0, 4: 0.25}).ground_state()
+    text = repr(gs)
+    assert "\n" not in text and len(text) < 200
+    assert f"value={gs.value:.10g}" in text and "converged" in text and "[" not in text

@@ -258,6 +258,8 @@ class Hamiltonian:
 
     def __repr__(self) -> str:
         origin = f"{self._mixture!r}, seed={self._seed}" if self._mixture else "given"
+        if self._correlated_with is not None:
+            origin += f", correlated_with={self._correlated_with}"
         return f"Hamiltonian({origin}, n={self.n}, dtype={self.dtype!r}, nbytes={self.nbytes})"
 
     # -- kernels -----------------------------------------------------------------------

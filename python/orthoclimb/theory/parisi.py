@@ -272,6 +272,15 @@ class GroundState:
     gap: float
     history: tuple[tuple[int, float], ...] = field(default=())
 
+    def __repr__(self) -> str:
+        # the arrays (up to the solver's grid size) and the history are left to the fields
+        state = "converged" if self.converged else "NOT converged"
+        return (
+            f"GroundState(value={self.value:.10g}, gap={self.gap:.3g} above ALG, {state},"
+            f" n_steps={self.n_steps}, B={self.B:.6g}, grid_size={self.grid_size},"
+            f" change={self.change:.2g}, tol={self.tol:.2g})"
+        )
+
     def to_dict(self) -> dict[str, Any]:
         """JSON-friendly form."""
         return {
