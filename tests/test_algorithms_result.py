@@ -96,3 +96,11 @@ def test_swapped_npz_of_the_same_shape_fails(result, tmp_path):
     for stem in ("a", "b"):
         with pytest.raises(ResultFileError, match="digest"):
             oc.load_result(tmp_path / stem)
+
+
+def test_repr_of_a_hand_made_result_without_numbers():
+    # the file format allows energy: null; a Result built by hand with None still prints
+    from orthoclimb.algorithms.result import Result
+
+    res = Result(np.ones(3) / 3**0.5, None, {}, {"method": "x", "n": 3}, None, {})
+    assert repr(res) == "Result(method='x', n=3, energy=None, rows=0, seconds=None)"

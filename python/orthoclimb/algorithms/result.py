@@ -131,9 +131,14 @@ class Result:
 
     def __repr__(self) -> str:
         steps = len(next(iter(self.path.values()))) if self.path else 0
+
+        def number(value: Any, spec: str) -> str:  # a hand-made Result may hold None
+            return format(value, spec) if isinstance(value, (int, float)) else repr(value)
+
         return (
             f"Result(method={self.method!r}, n={self.config.get('n')}, "
-            f"energy={self.energy:.6f}, rows={steps}, seconds={self.seconds:.3g})"
+            f"energy={number(self.energy, '.6f')}, rows={steps}, "
+            f"seconds={number(self.seconds, '.3g')})"
         )
 
 
