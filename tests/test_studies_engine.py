@@ -80,9 +80,14 @@ def test_lowered_requests_are_reported_never_silent():
 def test_absurd_thread_counts_are_refused_before_the_study_folder(tmp_path):
     # the kernels take at most 1024 threads (orthoclimb.set_num_threads): a larger --threads
     # would fail in every task, so it is refused before anything is written
-    for bad in (0, 1025, 9999):
-        with pytest.raises(ValueError, match=f"--threads must be an integer in 1..1024, got {bad}"):
+    for bad in (0, 1025, 9999, 1.5):
+        words = rf"threads \(--threads\) must be an integer in 1..1024, got {bad}"
+        with pytest.raises(ValueError, match=words):
             run_study(_spec(), tmp_path / "s", threads=bad, progress=False)
+    with pytest.raises(ValueError, match=r"retries \(--retries\) must be an integer >= 0"):
+        run_study(_spec(), tmp_path / "s", retries=-1, progress=False)
+    with pytest.raises(ValueError, match=r"timeout \(--timeout\) must be a positive number"):
+        run_study(_spec(), tmp_path / "s", timeout=True, progress=False)
     assert not (tmp_path / "s").exists()
 
 

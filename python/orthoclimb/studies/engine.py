@@ -306,11 +306,21 @@ def run_study(
             " processes by importing the main script)"
         )
     if isinstance(retries, bool) or not isinstance(retries, int) or retries < 0:
-        raise ValueError(f"--retries must be an integer >= 0, got {retries!r}")
-    if not (isinstance(timeout, (int, float)) and math.isfinite(timeout) and timeout > 0):
-        raise ValueError(f"--timeout must be a positive number of seconds, got {timeout!r}")
-    if threads is not None and (isinstance(threads, bool) or not 1 <= threads <= _MAX_THREADS):
-        raise ValueError(f"--threads must be an integer in 1..{_MAX_THREADS}, got {threads!r}")
+        raise ValueError(f"retries (--retries) must be an integer >= 0, got {retries!r}")
+    if isinstance(timeout, bool) or not (
+        isinstance(timeout, (int, float)) and math.isfinite(timeout) and timeout > 0
+    ):
+        raise ValueError(
+            f"timeout (--timeout) must be a positive number of seconds, got {timeout!r}"
+        )
+    if threads is not None and (
+        isinstance(threads, bool)
+        or not isinstance(threads, int)
+        or not 1 <= threads <= _MAX_THREADS
+    ):
+        raise ValueError(
+            f"threads (--threads) must be an integer in 1..{_MAX_THREADS}, got {threads!r}"
+        )
     if scheduler is not None:
         check_scheduler_address(scheduler)  # before the study folder is created
     tasks = spec.tasks()
