@@ -271,3 +271,20 @@ def test_repr_tells_correlated_instances_apart():
     a = oc.Hamiltonian.sample(mix, 10, seed=2)
     b = oc.Hamiltonian.sample(mix, 10, seed=2, correlated_with=(1, 0.5))
     assert repr(a) != repr(b) and "correlated_with=(1, 0.5)" in repr(b)
+
+
+@pytest.mark.parametrize("flag", ["no", 0, None])
+def test_switches_of_the_model_take_only_true_or_false(tmp_path, flag):
+    # the string "no" is truthy: taking it as True would do what the caller meant to skip
+    mix = oc.Mixture({3: 1.0})
+    with pytest.raises(TypeError, match=f"check_memory must be True or False, got {flag!r}"):
+        oc.Hamiltonian.sample(mix, 5, seed=0, check_memory=flag)
+    ham = oc.Hamiltonian.sample(mix, 5, seed=0)
+    with pytest.raises(TypeError, match=f"symmetrize must be True or False, got {flag!r}"):
+        oc.Hamiltonian.from_dense({3: ham.to_dense(3)}, symmetrize=flag)
+    with pytest.raises(TypeError, match="check_memory must be True or False"):
+        ham.save(tmp_path / "h", check_memory=flag)
+    ham.save(tmp_path / "h")
+    with pytest.raises(TypeError, match="check_memory must be True or False"):
+        oc.load_instance(tmp_path / "h", check_memory=flag)
+    assert oc.load_instance(tmp_path / "h", check_memory=np.True_).n == 5

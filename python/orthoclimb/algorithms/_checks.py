@@ -9,7 +9,7 @@ from typing import Any
 import numpy as np
 
 from ..errors import ShapeError
-from ..model.arrays import as_float_array
+from ..model.arrays import as_flag, as_float_array
 from ..model.hamiltonian import Hamiltonian, _check_seed
 
 __all__ = [
@@ -69,11 +69,8 @@ def warn_if_far_scale(ham: Hamiltonian, where: str) -> None:
 
 
 def check_flag(value: Any, name: str) -> bool:
-    """``value`` as a bool; anything but True/False (say the string "no", which is truthy) is
-    a TypeError naming it."""
-    if not isinstance(value, (bool, np.bool_)):
-        raise TypeError(f"{name} must be True or False, got {value!r}")
-    return bool(value)
+    """``value`` as a bool, or a TypeError naming it (:func:`orthoclimb.model.arrays.as_flag`)."""
+    return as_flag(value, name)
 
 
 def check_seed(seed: Any, name: str = "seed") -> int:

@@ -65,3 +65,11 @@ def as_directions(v: object, n: int, name: str = "v") -> np.ndarray:
     if arr.shape == (n,) or (arr.ndim == 2 and arr.shape[0] == n and arr.shape[1] >= 1):
         return arr
     raise ShapeError(f"{name} must have shape ({n},) or ({n}, k) with k >= 1, got {arr.shape}")
+
+
+def as_flag(value: object, name: str) -> bool:
+    """``value`` as a bool; anything but True/False (say the string "no", which is truthy) is
+    a TypeError naming it."""
+    if not isinstance(value, (bool, np.bool_)):
+        raise TypeError(f"{name} must be True or False, got {value!r}")
+    return bool(value)

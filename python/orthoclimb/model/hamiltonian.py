@@ -23,7 +23,7 @@ from scipy.sparse.linalg import LinearOperator
 from .. import _core
 from ..errors import NonFiniteError, ShapeError
 from . import dense as _dense
-from .arrays import as_directions, as_float_array, as_point, as_points
+from .arrays import as_directions, as_flag, as_float_array, as_point, as_points
 from .memory import (
     check_size,
     coefficient_count,
@@ -138,9 +138,8 @@ class Hamiltonian:
                 f"seed0 in correlated_with must differ from seed ({seed}): rho g(seed0) +"
                 " sqrt(1 - rho^2) g(seed) needs two independent Gaussians"
             )
-        if not isinstance(progress, (bool, np.bool_)):
-            raise TypeError(f"progress must be True or False, got {progress!r}")
-        if check_memory:
+        progress = as_flag(progress, "progress")
+        if as_flag(check_memory, "check_memory"):
             require_memory(
                 estimate_memory(mixture, n, dtype), f"an instance of {mixture!r} with n = {n}"
             )
@@ -202,7 +201,7 @@ class Hamiltonian:
         for p, t in tensors.items():
             p = _check_degree(p)
             arr = as_float_array(t, f"tensors[{p}]")
-            packed[p] = _dense.pack(arr, p, symmetrize)
+            packed[p] = _dense.pack(arr, p, as_flag(symmetrize, "symmetrize"))
             sizes.add(arr.shape[0])
         if len(sizes) != 1:
             raise ShapeError(f"all tensors must share one n, got sizes {sorted(sizes)}")
@@ -300,8 +299,7 @@ class Hamiltonian:
         2050 at degree 2, 1300 at degree 3 and 360 at degree 4 (which takes 64 accumulators
         there)."""
         pt = as_point(x, self.n)
-        if not isinstance(check_memory, bool):
-            raise TypeError(f"check_memory must be True or False, got {check_memory!r}")
+        check_memory = as_flag(check_memory, "check_memory")
         need = self.hessian_workspace_nbytes
         if check_memory and need >= _CHECKED_WORKSPACE:
             require_memory(

@@ -60,6 +60,7 @@ from ..fileio import (
     write_atomic,
     write_json_atomic,
 )
+from .arrays import as_flag
 from .hamiltonian import Hamiltonian, _check_correlation, _check_seed
 from .memory import check_size, normalize_dtype, require_memory
 from .mixture import Mixture, _check_degree
@@ -163,6 +164,7 @@ def save_instance(
     the float64 copy of one degree that each kind makes."""
     if not isinstance(ham, Hamiltonian):
         raise TypeError(f"expected an orthoclimb.Hamiltonian, got {type(ham).__name__}")
+    check_memory = as_flag(check_memory, "check_memory")
     json_path, npz_path = output_pair_paths(path, "instance")
     common = {"n": ham.n, "dtype": ham.dtype, "degrees": list(ham.degrees)}
     if ham.mixture is not None and ham.seed is not None:
@@ -378,6 +380,7 @@ def load_instance(path: str | os.PathLike, check_memory: bool = True) -> Hamilto
     (``check_memory=False`` skips that, as in :meth:`Hamiltonian.sample`). Raises
     :class:`~orthoclimb.errors.InstanceFileError` naming the file and the problem.
     """
+    check_memory = as_flag(check_memory, "check_memory")
     if Path(path).is_dir():
         raise _fail(
             Path(path), "it is a folder; give the instance's file (NAME.json) or its stem NAME"
