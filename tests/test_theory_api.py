@@ -29,3 +29,9 @@ def test_mixture_methods_delegate():
         m.ground_state(tol=-1)
     with pytest.raises(ValueError, match="1.5"):
         m.path_energy(1.5)
+
+
+def test_a_text_tolerance_is_refused_like_a_text_gamma():
+    # float("1e-3") would work, but a text gamma is refused, so a text tolerance is too
+    with pytest.raises(TypeError, match=r"ground_state\(\): tol must be a positive number"):
+        Mixture({3: 1.0}).ground_state(tol="1e-3")

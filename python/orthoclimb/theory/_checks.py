@@ -43,8 +43,9 @@ def check_overlap(q: Any, where: str, name: str = "q") -> np.ndarray:
 
 
 def check_positive(value: Any, where: str, name: str) -> float:
-    """A finite real number > 0 (tolerances and similar)."""
-    if isinstance(value, bool):
+    """A finite real number > 0 (tolerances and similar); text such as "1e-3" is refused,
+    as a text gamma is."""
+    if isinstance(value, (bool, np.bool_, str, bytes)):
         raise TypeError(f"{where}(): {name} must be a positive number, got {value!r}")
     try:
         out = float(value)
