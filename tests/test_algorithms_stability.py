@@ -87,3 +87,13 @@ def test_the_start_seed_reaches_a_named_method_and_the_largest_seed_works():
     assert top.config["other_seed"] == 0
     with pytest.raises(ValueError, match="start_seed must be in"):
         oc.stability("gradient", mix, 12, seed=1, rhos=[0.5], start_seed=-1)
+
+
+def test_a_numpy_dtype_is_recorded_as_its_name():
+    # dtype=np.float32 is accepted like "float32" and recorded as the name, so the summary
+    # stays JSON (before, json.dumps(to_dict()) failed on the NumPy type)
+    import json
+
+    st = oc.stability("gradient", oc.Mixture({3: 1.0}), 12, seed=1, rhos=[0.5], dtype=np.float32)
+    assert st.config["dtype"] == "float32"
+    json.dumps(st.to_dict())

@@ -20,6 +20,7 @@ from typing import Any
 import numpy as np
 
 from ..model.hamiltonian import Hamiltonian
+from ..model.memory import normalize_dtype
 from ..model.mixture import Mixture
 from ._checks import check_seed
 from .result import Result, _plain
@@ -103,6 +104,7 @@ def stability(
     if not isinstance(mixture, Mixture):
         raise TypeError(f"mixture must be an orthoclimb.Mixture, got {type(mixture).__name__}")
     seed = check_seed(seed)
+    dtype = normalize_dtype(dtype)  # "float32" for np.float32 too, so to_dict stays JSON
     if isinstance(algorithm, str):
         options = {**options, "seed": check_seed(start_seed, "start_seed")}
     other = (seed + 1) % 2**64 if other_seed is None else check_seed(other_seed, "other_seed")
