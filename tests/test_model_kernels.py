@@ -196,9 +196,19 @@ def test_hvp_with_several_directions_takes_the_faster_route(monkeypatch, rng):
     vs = rng.standard_normal((n, 5))
     np.testing.assert_array_equal(ham.hvp(x, vs), ham.hessian(x) @ vs)
     np.testing.assert_array_equal(ham.hvp(x, vs[:, :1]), ham.hvp(x, vs[:, 0])[:, None])
+    # a workspace past 64 MiB: still the Hessian while it is at most an eighth of the
+    # coefficients (25.6 kB against 985 kB here) and half the available memory; else the
+    # multi-direction pass
+    from orthoclimb.model import memory
+
     monkeypatch.setattr(hamiltonian_module, "_CHECKED_WORKSPACE", 0)
+    np.testing.assert_array_equal(ham.hvp(x, vs), ham.hessian(x) @ vs)
+    monkeypatch.setattr(memory, "available_memory", lambda: 2 * ham.hessian_workspace_nbytes - 2)
     np.testing.assert_array_equal(ham.hvp(x, vs), ham._core.hvp_many(x, vs))
     _close(ham.hvp(x, vs), ham.hessian(x) @ vs, 1.0 + np.abs(ham.hessian(x)).max())
+    monkeypatch.setattr(memory, "available_memory", lambda: 10**12)
+    quadratic = oc.Hamiltonian.sample(oc.Mixture({2: 1.0}), n, seed=3)  # 6.6 kB < 25.6 kB
+    np.testing.assert_array_equal(quadratic.hvp(x, vs), quadratic._core.hvp_many(x, vs))
 
 
 def test_hvp_by_the_hessian_route_refuses_an_overflow():

@@ -23,6 +23,7 @@ from scipy.sparse.linalg import LinearOperator
 from .. import _core
 from ..errors import NonFiniteError, ShapeError
 from . import dense as _dense
+from . import memory as _memory
 from .arrays import as_directions, as_flag, as_float_array, as_point, as_points
 from .memory import (
     check_size,
@@ -312,20 +313,22 @@ class Hamiltonian:
     def hvp(self, x: Any, v: Any) -> np.ndarray:
         """Hess H(x) v for v of shape (n,) or (n, k) (k directions in one pass).
 
-        Several directions take the route that was fastest in measurement: while the
-        Hessian's workspace is under 64 MiB (see :meth:`hessian`), one Hessian pass and a
-        matrix product; beyond that (where the n x n Hessian is what a caller avoids), the
-        multi-direction HVP pass, which reads the coefficients once and holds only n x k
-        numbers per accumulator. One direction in a 2-D array goes through the 1-D kernel.
-        Four directions, two threads, medians of 15 calls: p = 3, n = 200, 1.89 ms by the
-        multi-direction pass and 0.38 ms by the Hessian; p = 4, n = 120, 22.7 and 4.6 ms."""
+        Several directions take the route that was fastest in measurement, one Hessian pass
+        and a matrix product, whenever the Hessian's workspace (:attr:`hessian_workspace_nbytes`)
+        is small: under 64 MiB, or at most an eighth of the coefficients' storage and half the
+        available memory. Otherwise (low degree at large n, where the n x n Hessian is what a
+        caller avoids) they take the multi-direction HVP pass, which holds only n x k numbers
+        per accumulator. One direction in a 2-D array goes through the 1-D kernel. Four
+        directions, two threads, medians: p = 3, n = 200, 1.89 ms by the multi-direction pass
+        and 0.38 ms by the Hessian; p = 4, n = 120, 22.7 and 4.6 ms; p = 4, n = 360, 807 ms
+        and 216 ms (one direction alone took 192 ms)."""
         pt = as_point(x, self.n)
         dirs = as_directions(v, self.n)
         if dirs.ndim == 1:
             return self._core.hvp(pt, dirs)
         if dirs.shape[1] == 1:
             return self._core.hvp(pt, np.ascontiguousarray(dirs[:, 0]))[:, None]
-        if self.hessian_workspace_nbytes < _CHECKED_WORKSPACE:
+        if self._hessian_route_fits():
             with np.errstate(over="ignore", invalid="ignore"):  # refused just below instead
                 out = self._core.hessian(pt) @ dirs
             if not np.isfinite(out).all():  # as the kernels do: never a silent infinity
@@ -336,6 +339,13 @@ class Hamiltonian:
                 )
             return out
         return self._core.hvp_many(pt, dirs)
+
+    def _hessian_route_fits(self) -> bool:
+        """Whether :meth:`hvp` may form the Hessian for several directions (see there)."""
+        need = self.hessian_workspace_nbytes
+        if need < _CHECKED_WORKSPACE:
+            return True
+        return need <= self.nbytes // 8 and need <= _memory.available_memory() // 2
 
     def hessian_operator(self, x: Any) -> LinearOperator:
         """Hess H(x) as a SciPy LinearOperator (symmetric), each product one pass."""
