@@ -232,6 +232,12 @@ def test_a_study_with_results_stays_when_its_scheduler_is_unreachable(tmp_path):
         run_study(_spec("0-3"), folder, scheduler="tcp://127.0.0.1:9", timeout=2, progress=False)
     assert json.loads((folder / "study.json").read_bytes()) == json.loads(before)
     assert Store.open(folder, spec).completed_ids() == {task.task_id}
+    # a second extension taken back leaves the history of the first one alone
+    Store.open(folder, _spec("0-2"))
+    with pytest.raises(ValueError, match="cannot reach the Dask scheduler"):
+        run_study(_spec("0-3"), folder, scheduler="tcp://127.0.0.1:9", timeout=2, progress=False)
+    stored = json.loads((folder / "study.json").read_text())
+    assert len(stored["extended"]) == 1 and stored["config"]["seeds"] == [0, 1, 2]
 
 
 def _wait_for_rows(proc: subprocess.Popen, rows, count: int, before: str) -> None:
@@ -508,3 +514,29 @@ def test_a_script_without_the_main_guard_gets_told_and_leaves_no_study(tmp_path)
     assert proc.returncode != 0
     assert 'put the call under `if __name__ == "__main__":`' in proc.stderr
     assert list((tmp_path / "st").iterdir()) == []
+
+
+def test_a_study_started_from_a_spawned_pool_is_no_reimport(tmp_path):
+    # a script with the main guard may run studies from a function that a spawn-started
+    # pool calls; that function lives in __mp_main__ too, but is not the script's import, so
+    # the call goes on (here to its own argument check) instead of the main-guard refusal
+    script = tmp_path / "pooled.py"
+    script.write_text(
+        "import multiprocessing as mp\n"
+        "def attempt(_):\n"
+        "    from orthoclimb.studies.grid import spec_from_flags\n"
+        "    from orthoclimb.studies.engine import run_study\n"
+        "    spec = spec_from_flags(['3:1'], None, '16', '0', 'gradient')\n"
+        "    try:\n"
+        "        run_study(spec, 'st', retries=-1, progress=False)\n"
+        "    except Exception as exc:\n"
+        "        return type(exc).__name__ + ': ' + str(exc)\n"
+        "if __name__ == '__main__':\n"
+        "    with mp.get_context('spawn').Pool(1) as pool:\n"
+        "        print(pool.map(attempt, [0])[0])\n"
+    )
+    proc = subprocess.run(
+        [sys.executable, str(script)], cwd=tmp_path, capture_output=True, text=True, timeout=120
+    )
+    assert proc.returncode == 0, proc.stderr
+    assert proc.stdout.startswith("ValueError: retries (--retries)"), proc.stdout

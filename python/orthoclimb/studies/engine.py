@@ -259,10 +259,12 @@ def _worker_addresses(client: Any) -> set[str]:
 def _inside_script_reimport() -> bool:
     """Whether this call comes from a script being imported again as ``__mp_main__``: what a
     worker process started by ``multiprocessing``'s spawn (as Dask's are) does with a script
-    whose study call is not under ``if __name__ == "__main__":``."""
+    whose study call is not under ``if __name__ == "__main__":``. Only the module-level code
+    of that import counts: a function of the script that a spawned pool calls later also
+    lives in ``__mp_main__``, and is a correct use."""
     frame = sys._getframe(1)
     while frame is not None:
-        if frame.f_globals.get("__name__") == "__mp_main__":
+        if frame.f_code.co_name == "<module>" and frame.f_globals.get("__name__") == "__mp_main__":
             return True
         frame = frame.f_back
     return False

@@ -84,8 +84,7 @@ def _record_growth(meta: Path, data: dict, config: dict) -> None:
     from."""
     old = data["config"]
     history = data.get("extended", [])
-    if not isinstance(history, list):
-        history = []
+    history = list(history) if isinstance(history, list) else []  # `data` stays as it was
     stamp = datetime.now(timezone.utc).isoformat(timespec="seconds")
     history.append({"at": stamp, "from": {k: old.get(k) for k in _GROWABLE}})
     write_json_atomic(meta, {**data, "config": config, "extended": history})
