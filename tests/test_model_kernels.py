@@ -185,10 +185,12 @@ def test_energy_per_spin_is_the_energy_over_n(rng):
 
 
 def test_hvp_with_several_directions_takes_the_faster_route(monkeypatch, rng):
-    # below a 64 MiB Hessian workspace, k >= 2 directions are one Hessian pass and a matrix
-    # product (4-5x faster than the multi-direction pass at p = 4); one direction in a 2-D
-    # array is the 1-D kernel, bit for bit; above the bound, the multi-direction pass
+    # degree >= 3 and a small Hessian workspace: k >= 2 directions are one Hessian pass and a
+    # matrix product (4-5x faster than the multi-direction pass at p = 4); one direction in a
+    # 2-D array is the 1-D kernel, bit for bit; degrees <= 2 keep the multi-direction pass
+    # (4x faster than forming the Hessian at p = 2, n = 1800)
     import orthoclimb.model.hamiltonian as hamiltonian_module
+    from orthoclimb.model import memory
 
     n = 40
     ham = oc.Hamiltonian.sample(oc.Mixture({2: 0.5, 4: 1.0}), n, seed=3)
@@ -196,19 +198,17 @@ def test_hvp_with_several_directions_takes_the_faster_route(monkeypatch, rng):
     vs = rng.standard_normal((n, 5))
     np.testing.assert_array_equal(ham.hvp(x, vs), ham.hessian(x) @ vs)
     np.testing.assert_array_equal(ham.hvp(x, vs[:, :1]), ham.hvp(x, vs[:, 0])[:, None])
-    # a workspace past 64 MiB: still the Hessian while it is at most an eighth of the
-    # coefficients (25.6 kB against 985 kB here) and half the available memory; else the
-    # multi-direction pass
-    from orthoclimb.model import memory
-
+    quadratic = oc.Hamiltonian.sample(oc.Mixture({1: 0.3, 2: 1.0}), n, seed=3)
+    np.testing.assert_array_equal(quadratic.hvp(x, vs), quadratic._core.hvp_many(x, vs))
+    # past 64 MiB the Hessian still serves while it is at most an eighth of the coefficients
+    # (25.6 kB against 985 kB here), whatever the memory; if the Hessian cannot be allocated,
+    # the call falls back to the multi-direction pass instead of failing
     monkeypatch.setattr(hamiltonian_module, "_CHECKED_WORKSPACE", 0)
     np.testing.assert_array_equal(ham.hvp(x, vs), ham.hessian(x) @ vs)
-    monkeypatch.setattr(memory, "available_memory", lambda: 2 * ham.hessian_workspace_nbytes - 2)
+    monkeypatch.setattr(memory, "available_memory", lambda: 1000)
     np.testing.assert_array_equal(ham.hvp(x, vs), ham._core.hvp_many(x, vs))
-    _close(ham.hvp(x, vs), ham.hessian(x) @ vs, 1.0 + np.abs(ham.hessian(x)).max())
-    monkeypatch.setattr(memory, "available_memory", lambda: 10**12)
-    quadratic = oc.Hamiltonian.sample(oc.Mixture({2: 1.0}), n, seed=3)  # 6.6 kB < 25.6 kB
-    np.testing.assert_array_equal(quadratic.hvp(x, vs), quadratic._core.hvp_many(x, vs))
+    scale = 1.0 + np.abs(ham.hessian(x, check_memory=False)).max()
+    _close(ham.hvp(x, vs), ham.hessian(x, check_memory=False) @ vs, scale)
 
 
 def test_hvp_by_the_hessian_route_refuses_an_overflow():

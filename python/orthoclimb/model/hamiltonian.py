@@ -21,9 +21,8 @@ import numpy as np
 from scipy.sparse.linalg import LinearOperator
 
 from .. import _core
-from ..errors import NonFiniteError, ShapeError
+from ..errors import InsufficientMemoryError, NonFiniteError, ShapeError
 from . import dense as _dense
-from . import memory as _memory
 from .arrays import as_directions, as_flag, as_float_array, as_point, as_points
 from .memory import (
     check_size,
@@ -313,24 +312,31 @@ class Hamiltonian:
     def hvp(self, x: Any, v: Any) -> np.ndarray:
         """Hess H(x) v for v of shape (n,) or (n, k) (k directions in one pass).
 
-        Several directions take the route that was fastest in measurement, one Hessian pass
-        and a matrix product, whenever the Hessian's workspace (:attr:`hessian_workspace_nbytes`)
-        is small: under 64 MiB, or at most an eighth of the coefficients' storage and half the
-        available memory. Otherwise (low degree at large n, where the n x n Hessian is what a
-        caller avoids) they take the multi-direction HVP pass, which holds only n x k numbers
-        per accumulator. One direction in a 2-D array goes through the 1-D kernel. Four
-        directions, two threads, medians: p = 3, n = 200, 1.89 ms by the multi-direction pass
-        and 0.38 ms by the Hessian; p = 4, n = 120, 22.7 and 4.6 ms; p = 4, n = 360, 807 ms
-        and 216 ms (one direction alone took 192 ms)."""
+        Several directions take the route that was fastest in measurement. With a degree of
+        3 or more and a Hessian workspace (:attr:`hessian_workspace_nbytes`) under 64 MiB or
+        at most an eighth of the coefficients' storage, that is one Hessian pass and a
+        matrix product; otherwise (degrees <= 2, whose HVP pass is cheap next to forming
+        n x n numbers, or a Hessian that is what a caller avoids) the multi-direction HVP
+        pass, which holds only n x k numbers per accumulator. The choice depends on the
+        instance alone, so results repeat bit for bit; only when the Hessian does not fit in
+        the available memory does the call fall back to the multi-direction pass, whose last
+        bits differ. One direction in a 2-D array goes through the 1-D kernel. Four
+        directions, two threads, medians, multi-direction pass against Hessian: p = 3,
+        n = 200, 1.89 and 0.38 ms; p = 4, n = 120, 22.7 and 4.6 ms; p = 4, n = 360, 807 and
+        216 ms (one direction alone: 192 ms); but p = 2, n = 1800, 7.6 and 28.7 ms."""
         pt = as_point(x, self.n)
         dirs = as_directions(v, self.n)
         if dirs.ndim == 1:
             return self._core.hvp(pt, dirs)
         if dirs.shape[1] == 1:
             return self._core.hvp(pt, np.ascontiguousarray(dirs[:, 0]))[:, None]
-        if self._hessian_route_fits():
+        if self._hessian_route():
+            try:
+                hess = self.hessian(pt)
+            except InsufficientMemoryError:
+                return self._core.hvp_many(pt, dirs)
             with np.errstate(over="ignore", invalid="ignore"):  # refused just below instead
-                out = self._core.hessian(pt) @ dirs
+                out = hess @ dirs
             if not np.isfinite(out).all():  # as the kernels do: never a silent infinity
                 raise NonFiniteError(
                     "the Hessian-vector product overflowed float64: the result is not finite"
@@ -340,12 +346,13 @@ class Hamiltonian:
             return out
         return self._core.hvp_many(pt, dirs)
 
-    def _hessian_route_fits(self) -> bool:
-        """Whether :meth:`hvp` may form the Hessian for several directions (see there)."""
+    def _hessian_route(self) -> bool:
+        """Whether :meth:`hvp` forms the Hessian for several directions (see there): decided
+        from the instance alone."""
+        if max(self.degrees) <= 2:
+            return False
         need = self.hessian_workspace_nbytes
-        if need < _CHECKED_WORKSPACE:
-            return True
-        return need <= self.nbytes // 8 and need <= _memory.available_memory() // 2
+        return need < _CHECKED_WORKSPACE or need <= self.nbytes // 8
 
     def hessian_operator(self, x: Any) -> LinearOperator:
         """Hess H(x) as a SciPy LinearOperator (symmetric), each product one pass."""
