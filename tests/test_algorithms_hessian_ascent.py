@@ -438,3 +438,11 @@ def test_alg_gap_is_that_of_the_returned_point_as_in_the_baselines():
     assert res.info["alg_gap_ascent"] == pytest.approx(res.info["energy_ascent"] - alg, abs=1e-15)
     base = oc.gradient_ascent(ham, seed=0)
     assert base.info["alg_gap"] == pytest.approx(base.energy - alg, abs=1e-15)
+
+
+def test_the_no_steps_note_is_only_for_a_first_stage_on_the_sphere():
+    # steps = 1 from a random start (no field, q_hat = 0) takes no Hessian step either, but
+    # not because of q_hat: the note must not say so
+    ham = oc.Hamiltonian.sample(oc.Mixture({3: 1.0}), 30, seed=1)
+    res = oc.hessian_ascent(ham, steps=1, polish=False)
+    assert "q_hat = 1" not in res.info.get("note", "")

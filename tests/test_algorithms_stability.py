@@ -97,3 +97,12 @@ def test_a_numpy_dtype_is_recorded_as_its_name():
     st = oc.stability("gradient", oc.Mixture({3: 1.0}), 12, seed=1, rhos=[0.5], dtype=np.float32)
     assert st.config["dtype"] == "float32"
     json.dumps(st.to_dict())
+
+
+def test_a_start_seed_given_with_a_callable_is_refused():
+    # a callable chooses its own start; a start_seed beside it would be silently unused
+    def run(ham):
+        return oc.gradient_ascent(ham, seed=3)
+
+    with pytest.raises(TypeError, match="start_seed is for the named methods"):
+        oc.stability(run, oc.Mixture({3: 1.0}), 12, seed=1, rhos=[0.5], start_seed=3)

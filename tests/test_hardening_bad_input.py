@@ -333,7 +333,8 @@ CASES = [
         "dense_not_symmetric",
         "oc.Hamiltonian.from_dense({2: np.array([[0.0, 1.0], [0.0, 0.0]])})",
         "ValueError",
-        r"degree-2 tensor is not symmetric \(largest difference under an axis permutation 1,",
+        r"degree-2 tensor is not symmetric \(largest difference under an exchange of two"
+        r" adjacent axes 1,",
     ),
     Case(
         "dense_wrong_shape",

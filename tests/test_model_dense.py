@@ -75,3 +75,19 @@ def test_symmetrized_is_the_average_over_all_axis_permutations(p, n):
     # a tensor symmetric under one exchange only is still caught
     half = (t + t.transpose([1, 0, *range(2, p)])) / 2
     assert max_asymmetry(half) > 0.1 if p >= 3 else max_asymmetry(half) < 1e-14
+
+
+def test_the_symmetry_bound_holds_for_every_permutation():
+    # any axis permutation is at most p(p-1)/2 = 3 adjacent exchanges at p = 3, so an
+    # adjacent difference above 1e-10/3 of the largest entry is refused, and one below it
+    # keeps every permutation's difference under 1e-10 (the documented bound)
+    sym = oc.Hamiltonian.sample(oc.Mixture({3: 1.0}), 4, seed=1).to_dense(3)
+    scale = np.abs(sym).max()
+    for delta, refused in ((5e-11, True), (1e-11, False)):
+        t = sym.copy()
+        t[0, 1, 2] += delta * scale
+        if refused:
+            with pytest.raises(ValueError, match="not symmetric"):
+                oc.Hamiltonian.from_dense({3: t})
+        else:
+            assert oc.Hamiltonian.from_dense({3: t}).n == 4

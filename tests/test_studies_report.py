@@ -486,6 +486,7 @@ def test_profile_refuses_before_timing_or_printing_its_plan(tmp_path, capsys):
         ({"level": 2}, r"level must be in \(0, 1\), got 2"),
         ({"n_boot": 0}, "n_boot must be an integer >= 2"),
         ({"exponent": -1.0}, "exponent must be a positive number, got -1.0"),
+        ({"level": np.float32(0.9), "n_boot": np.int64(1)}, "n_boot must be an integer >= 2"),
     ],
 )
 def test_report_options_are_checked_before_the_study_is_read(tmp_path, kwargs, words):

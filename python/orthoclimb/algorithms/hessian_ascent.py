@@ -257,7 +257,7 @@ def hessian_ascent(
         x = random_unit(n, rng) / math.sqrt(k)
         stage = 2
     n_moves = k - 1
-    if 1.0 - float(x @ x) <= _ON_SPHERE:
+    if q_hat > 0.0 and 1.0 - float(x @ x) <= _ON_SPHERE:
         # stage 1 already ended on the sphere (q_hat = 1: a pure field, or a field strong
         # enough): a Hessian step of length 0 would cost a pass and an eigen-solve for nothing
         n_moves = 0

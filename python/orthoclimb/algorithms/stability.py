@@ -89,15 +89,16 @@ def stability(
     other_seed: int | None = None,
     dtype: str = "float64",
     keep_results: bool = False,
-    start_seed: int = 0,
+    start_seed: int | None = None,
     **options: Any,
 ) -> StabilityResult:
     """Run ``algorithm`` on the instance of ``seed`` and on instances correlated with it.
 
     ``algorithm`` is "hessian", "gradient", "anneal" or a callable ham -> Result; ``options``
     are passed to it (e.g. ``steps=100``). ``seed`` is the disorder seed; a named method gets
-    ``start_seed`` as its own ``seed`` (its random start or noise, the same for every
-    instance), while a callable chooses its own. ``rhos`` are correlations in [-1, 1]
+    ``start_seed`` (default 0) as its own ``seed`` (its random start or noise, the same for
+    every instance), while a callable chooses its own (giving ``start_seed`` with one is a
+    TypeError rather than a silently unused value). ``rhos`` are correlations in [-1, 1]
     (checked by ``Hamiltonian.sample``); ``other_seed`` (default (seed + 1) mod 2^64, must
     differ from ``seed``) drives the independent part. Instances are built one at a time.
     """
@@ -106,7 +107,12 @@ def stability(
     seed = check_seed(seed)
     dtype = normalize_dtype(dtype)  # "float32" for np.float32 too, so to_dict stays JSON
     if isinstance(algorithm, str):
-        options = {**options, "seed": check_seed(start_seed, "start_seed")}
+        start = 0 if start_seed is None else start_seed
+        options = {**options, "seed": check_seed(start, "start_seed")}
+    elif start_seed is not None:
+        raise TypeError(
+            "start_seed is for the named methods; a callable algorithm chooses its own start"
+        )
     other = (seed + 1) % 2**64 if other_seed is None else check_seed(other_seed, "other_seed")
     if other == seed:
         raise ValueError(

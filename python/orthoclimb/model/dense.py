@@ -93,9 +93,11 @@ def symmetrized(tensor: np.ndarray) -> np.ndarray:
 def pack(tensor: np.ndarray, p: int, symmetrize: bool, rtol: float = 1e-10) -> np.ndarray:
     """Packed coefficients a_m = c(m) T[m] of a dense tensor of shape (n,)*p.
 
-    A tensor that is not symmetric (largest asymmetry above rtol * max|T|) is refused unless
-    `symmetrize`, in which case it is first averaged over axis permutations (that keeps the
-    polynomial T(x, ..., x) unchanged).
+    A tensor that is not symmetric is refused unless `symmetrize`, in which case it is first
+    averaged over axis permutations (that keeps the polynomial T(x, ..., x) unchanged). Not
+    symmetric means a difference under some axis permutation above rtol * max|T|; since any
+    permutation is at most p(p-1)/2 adjacent exchanges, the check refuses a difference under
+    one adjacent exchange above that bound divided by p(p-1)/2.
     """
     if tensor.ndim != p or len(set(tensor.shape)) != 1:
         raise ShapeError(f"a degree-{p} tensor must have shape (n,)*{p}, got {tensor.shape}")
@@ -105,12 +107,12 @@ def pack(tensor: np.ndarray, p: int, symmetrize: bool, rtol: float = 1e-10) -> n
     if p >= 2:
         scale = float(np.max(np.abs(tensor))) if tensor.size else 0.0
         asym = max_asymmetry(tensor)
-        if asym > rtol * max(scale, 1e-300):
+        if asym > rtol * max(scale, 1e-300) / (p * (p - 1) // 2):
             if not symmetrize:
                 raise ValueError(
                     f"the degree-{p} tensor is not symmetric (largest difference under an "
-                    f"axis permutation {asym:.3g}, largest entry {scale:.3g}); pass "
-                    "symmetrize=True to average it over permutations"
+                    f"exchange of two adjacent axes {asym:.3g}, largest entry {scale:.3g});"
+                    " pass symmetrize=True to average it over permutations"
                 )
             tensor = symmetrized(tensor)
     idx = multisets(n, p)

@@ -134,9 +134,17 @@ def build_report(
     n_boot: int = 2000,
 ) -> Report:
     """Read the rows of the study in ``folder`` and compute the report (no files written)."""
-    if isinstance(level, bool) or not isinstance(level, (int, float)) or not 0 < level < 1:
+    if (
+        isinstance(level, (bool, np.bool_))
+        or not isinstance(level, (int, float, np.integer, np.floating))
+        or not 0 < level < 1
+    ):
         raise ValueError(f"level must be in (0, 1), got {level!r}")
-    if isinstance(n_boot, bool) or not isinstance(n_boot, int) or n_boot < 2:
+    if (
+        isinstance(n_boot, (bool, np.bool_))
+        or not isinstance(n_boot, (int, np.integer))
+        or n_boot < 2
+    ):
         raise ValueError(f"n_boot must be an integer >= 2 (bootstrap replicates), got {n_boot!r}")
     if exponent is not None and not (
         isinstance(exponent, (int, float))

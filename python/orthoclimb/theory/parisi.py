@@ -276,7 +276,7 @@ class GroundState:
         # the arrays (up to the solver's grid size) and the history are left to the fields
         state = "converged" if self.converged else "NOT converged"
         return (
-            f"GroundState(value={self.value:.10g}, gap={self.gap:.3g} above ALG, {state},"
+            f"GroundState(value={self.value:.10g}, gap to ALG={self.gap:.3g}, {state},"
             f" n_steps={self.n_steps}, B={self.B:.6g}, grid_size={self.grid_size},"
             f" change={self.change:.2g}, tol={self.tol:.2g})"
         )
