@@ -496,20 +496,26 @@ def test_an_anneal_task_runs_langevin_with_its_options(tmp_path):
         spec_from_flags(["3:1"], None, "16", "3", "anneal", {"anneal": {"eta": -1.0}})
 
 
+def _run_script(folder, text: str) -> subprocess.CompletedProcess:
+    """Run ``text`` as the script ``folder/script.py`` with this Python, in ``folder``."""
+    script = folder / "script.py"
+    script.write_text(text)
+    return subprocess.run(
+        [sys.executable, str(script)], cwd=folder, capture_output=True, text=True, timeout=180
+    )
+
+
 def test_a_script_without_the_main_guard_gets_told_and_leaves_no_study(tmp_path):
     # Dask's worker processes import the main script again (as __mp_main__); a study call at
     # its top level would run the whole study once more inside every worker, in the same
     # folder. The workers refuse with a message naming the fix, and the folder is left
     # clean (before: the workers wrote results tables and the parent removed study.json)
-    script = tmp_path / "noguard.py"
-    script.write_text(
+    proc = _run_script(
+        tmp_path,
         "from orthoclimb.studies.grid import spec_from_flags\n"
         "from orthoclimb.studies.engine import run_study\n"
         "spec = spec_from_flags(['3:1'], None, '16', '0', 'gradient')\n"
-        "run_study(spec, 'st', workers=1, progress=False)\n"
-    )
-    proc = subprocess.run(
-        [sys.executable, str(script)], cwd=tmp_path, capture_output=True, text=True, timeout=180
+        "run_study(spec, 'st', workers=1, progress=False)\n",
     )
     assert proc.returncode != 0
     assert 'put the call under `if __name__ == "__main__":`' in proc.stderr
@@ -520,8 +526,8 @@ def test_a_study_started_from_a_spawned_pool_is_no_reimport(tmp_path):
     # a script with the main guard may run studies from a function that a spawn-started
     # pool calls; that function lives in __mp_main__ too, but is not the script's import, so
     # the call goes on (here to its own argument check) instead of the main-guard refusal
-    script = tmp_path / "pooled.py"
-    script.write_text(
+    proc = _run_script(
+        tmp_path,
         "import multiprocessing as mp\n"
         "def attempt(_):\n"
         "    from orthoclimb.studies.grid import spec_from_flags\n"
@@ -533,10 +539,7 @@ def test_a_study_started_from_a_spawned_pool_is_no_reimport(tmp_path):
         "        return type(exc).__name__ + ': ' + str(exc)\n"
         "if __name__ == '__main__':\n"
         "    with mp.get_context('spawn').Pool(1) as pool:\n"
-        "        print(pool.map(attempt, [0])[0])\n"
-    )
-    proc = subprocess.run(
-        [sys.executable, str(script)], cwd=tmp_path, capture_output=True, text=True, timeout=120
+        "        print(pool.map(attempt, [0])[0])\n",
     )
     assert proc.returncode == 0, proc.stderr
     assert proc.stdout.startswith("ValueError: retries (--retries)"), proc.stdout

@@ -92,24 +92,22 @@ def test_malformed_toml_is_a_clear_error(tmp_path, capsys):
     assert "malformed TOML" in capsys.readouterr().err
 
 
-def test_toml_unknown_method_option(tmp_path):
+def _one_method_toml(tmp_path, method: str):
+    """A study TOML with one mixture and the [[method]] table ``method`` (its lines)."""
     p = tmp_path / "s.toml"
-    p.write_text(
-        "sizes=[20,30]\nseeds=[0,1]\n[[mixture]]\ngammas={3=1.0}\n"
-        '[[method]]\nname="hessian"\nstepz=3\n'
-    )
+    p.write_text("sizes=[20,30]\nseeds=[0,1]\n[[mixture]]\ngammas={3=1.0}\n[[method]]\n" + method)
+    return p
+
+
+def test_toml_unknown_method_option(tmp_path):
     with pytest.raises(ValueError, match="no option 'stepz'"):
-        spec_from_toml(p)
+        spec_from_toml(_one_method_toml(tmp_path, 'name="hessian"\nstepz=3\n'))
 
 
 def test_toml_anneal_that_heats_is_refused(tmp_path):
     # the anneal options describe a cooling schedule from t_start down to t_end; swapped
     # values are refused when the study is read, not after its tasks start
-    p = tmp_path / "s.toml"
-    p.write_text(
-        "sizes=[20,30]\nseeds=[0,1]\n[[mixture]]\ngammas={3=1.0}\n"
-        '[[method]]\nname="anneal"\nt_start=0.05\nt_end=2\n'
-    )
+    p = _one_method_toml(tmp_path, 'name="anneal"\nt_start=0.05\nt_end=2\n')
     with pytest.raises(ValueError, match="t_end = 2.0 is above t_start = 0.05"):
         spec_from_toml(p)
     # a study.json written before the rule is still read (and so can be reported)
