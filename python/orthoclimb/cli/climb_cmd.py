@@ -145,6 +145,7 @@ def run(args: argparse.Namespace) -> int:
     from ..algorithms import auto_steps, gradient_ascent, hessian_ascent, langevin_anneal
     from ..algorithms.baselines import geometric_schedule
     from ..algorithms.plotting import plot_result
+    from ..theory import algorithmic_threshold
 
     mixture = mixture_from(args)
     if args.threads is not None:
@@ -193,11 +194,14 @@ def run(args: argparse.Namespace) -> int:
     per_step = one
     if args.method == "hessian":  # plus Lanczos on the tangent Hessian (studies.estimate)
         per_step += LANCZOS_SECONDS[0] + LANCZOS_SECONDS[1] * args.n**2
-    say(f"one {what} pass: {one * 1e3:.1f} ms; estimated run time {1.3 * steps * per_step:.2g} s")
+    passes = steps
+    if args.method == "hessian" and algorithmic_threshold(mixture) >= 1.0:
+        passes = 1  # the first stage ends on the sphere: no Hessian steps (hessian_ascent)
+    say(f"one {what} pass: {one * 1e3:.1f} ms; estimated run time {1.3 * passes * per_step:.2g} s")
 
     from tqdm import tqdm
 
-    total = steps - 1 if args.method == "hessian" else steps
+    total = passes - 1 if args.method == "hessian" else steps
     bar = tqdm(
         total=total, disable=True if quiet else None, unit="step", leave=False
     )  # None: tty only
