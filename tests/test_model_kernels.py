@@ -200,6 +200,8 @@ def test_hvp_with_several_directions_takes_the_faster_route(monkeypatch, rng):
     np.testing.assert_array_equal(ham.hvp(x, vs[:, :1]), ham.hvp(x, vs[:, 0])[:, None])
     quadratic = oc.Hamiltonian.sample(oc.Mixture({1: 0.3, 2: 1.0}), n, seed=3)
     np.testing.assert_array_equal(quadratic.hvp(x, vs), quadratic._core.hvp_many(x, vs))
+    many = rng.standard_normal((n, 32))  # from 32 directions the Hessian pays at degree 2
+    np.testing.assert_array_equal(quadratic.hvp(x, many), quadratic.hessian(x) @ many)
     # past 64 MiB the Hessian still serves while it is at most an eighth of the coefficients
     # (25.6 kB against 985 kB here), whatever the memory; if the Hessian cannot be allocated,
     # the call falls back to the multi-direction pass instead of failing
