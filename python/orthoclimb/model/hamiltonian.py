@@ -39,9 +39,10 @@ _PROGRESS_DELAY = 0.5  # seconds of sampling before sample(progress=True) shows 
 # it the check (a read of /proc/meminfo and the cgroup files, tens of microseconds) would cost
 # more than small calls take, and such a workspace fits on any machine that holds Python.
 _CHECKED_WORKSPACE = 64 << 20
-# Directions from which hvp forms the Hessian of a polynomial of degree <= 2 (see hvp): p = 2,
-# two threads, n = 1000: 8 directions 0.58 ms by the multi-direction pass against 1.05 ms for
-# the Hessian alone; 64 directions 9.0 ms against 2.8 ms (Hessian and product).
+# Directions from which hvp forms the Hessian of a polynomial of degree <= 2 (see hvp). p = 2,
+# two threads, medians, multi-direction pass against Hessian and product: n = 1000, 16
+# directions 1.79 and 1.46 ms, 32 3.55 and 1.96 ms, 64 7.71 and 2.69 ms; n = 2000, 16
+# directions 8.2 and 13.5 ms, 32 17.0 and 18.2 ms, 64 35.3 and 19.0 ms.
 _QUADRATIC_HESSIAN_DIRECTIONS = 32
 
 
