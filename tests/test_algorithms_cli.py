@@ -134,3 +134,18 @@ def test_a_closed_pipe_ends_the_command_quietly():
     err = proc.stderr.read().decode()
     assert proc.wait(timeout=120) == 141, err
     assert err == ""
+
+
+def test_climb_notes_threads_beyond_the_cores(tmp_path, capsys):
+    # sweep lowers such a request with a note; climb keeps what was asked, but says that the
+    # threads will share fewer cores (before: silently)
+    from orthoclimb.studies.engine import available_cores
+
+    cores, before = available_cores(), oc.get_num_threads()
+    args = ["climb", "--gammas", "3:1", "--n", "12", "--steps", "3", "--no-progress"]
+    assert main([*args, "--threads", str(cores + 1), "--out", str(tmp_path / "a")]) == 0
+    out = capsys.readouterr().out
+    assert f"note: --threads {cores + 1} is more than the {cores} core" in out
+    assert main([*args, "--threads", "1", "--out", str(tmp_path / "b")]) == 0
+    assert "note: --threads" not in capsys.readouterr().out
+    oc.set_num_threads(before)

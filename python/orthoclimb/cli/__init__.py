@@ -59,6 +59,25 @@ def add_mixture_flags(parser: argparse.ArgumentParser) -> None:
     )
 
 
+def threads_from(args: argparse.Namespace) -> str | None:
+    """Apply ``--threads`` (when given) to the kernels' pool; returns a note when it is more
+    than the cores this process may use, as sweep notes a lowered request (here nothing is
+    lowered: the caller asked for it)."""
+    if args.threads is None:
+        return None
+    from ..runtime import set_num_threads
+    from ..studies.engine import available_cores, counted
+
+    set_num_threads(args.threads)
+    cores = available_cores()
+    if args.threads <= cores:
+        return None
+    return (
+        f"note: --threads {args.threads} is more than the {counted(cores, 'core')} this process"
+        " may use; the threads share them, which is no faster and makes timings noisier"
+    )
+
+
 def mixture_from(args: argparse.Namespace) -> Mixture:
     """The :class:`~orthoclimb.Mixture` of the flags :func:`add_mixture_flags` added."""
     from ..model.mixture import Mixture

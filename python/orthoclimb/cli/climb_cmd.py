@@ -25,9 +25,9 @@ from ..fileio import ensure_folder
 from ..model import Hamiltonian, Mixture, estimate_memory
 from ..model.hamiltonian import _check_seed
 from ..model.memory import format_bytes, require_memory
-from ..runtime import get_num_threads, kernel_path, set_num_threads
+from ..runtime import get_num_threads, kernel_path
 from ..studies.estimate import LANCZOS_SECONDS
-from . import add_mixture_flags, mixture_from
+from . import add_mixture_flags, mixture_from, threads_from
 
 __all__ = ["add_arguments", "run"]
 
@@ -148,8 +148,7 @@ def run(args: argparse.Namespace) -> int:
     from ..theory import algorithmic_threshold
 
     mixture = mixture_from(args)
-    if args.threads is not None:
-        set_num_threads(args.threads)
+    threads_note = threads_from(args)
     if args.n < 1:
         raise ValueError(f"--n must be >= 1, got {args.n}")
     if args.n < 2 and args.method == "hessian":  # before sampling, not after
@@ -181,6 +180,8 @@ def run(args: argparse.Namespace) -> int:
         raise ValueError(f"--tol must be a positive number, got {tol!r}")
     out = ensure_folder(args.out)  # before the run: a bad --out fails at once
     say = (lambda *a: None) if args.json else print
+    if threads_note is not None:
+        say(threads_note)
     need = estimate_memory(mixture, args.n, args.dtype)
     say(
         f"instance: {mixture!r}, n = {args.n}, seed = {args.seed}, {args.dtype}: "

@@ -12,7 +12,7 @@ import argparse
 import json
 import sys
 
-from . import add_mixture_flags, mixture_from
+from . import add_mixture_flags, mixture_from, threads_from
 
 __all__ = ["add_arguments", "run"]
 
@@ -36,17 +36,17 @@ def run(args: argparse.Namespace) -> int:
     from ..fileio import ensure_folder
     from ..model import available_memory
     from ..model.memory import coefficient_count, format_bytes
-    from ..runtime import set_num_threads
     from ..studies.grid import parse_sizes
     from ..studies.profile import KERNELS, check_profile, profile_kernels, write_profile
 
     mix = mixture_from(args)
-    if args.threads is not None:
-        set_num_threads(args.threads)
+    threads_note = threads_from(args)
     sizes = parse_sizes(args.sizes)
     ensure_folder(args.out)  # before the timings: a bad --out fails at once
     need = check_profile(mix, sizes, args.repeats)  # before the plan is printed
     say = _stderr if not args.json else lambda _text: None
+    if threads_note is not None:
+        say(threads_note)
     biggest = max(sizes)
     most = coefficient_count(mix.degrees, biggest)
     growth = most / coefficient_count(mix.degrees, min(sizes))
