@@ -317,19 +317,22 @@ class Hamiltonian:
     def hvp(self, x: Any, v: Any) -> np.ndarray:
         """Hess H(x) v for v of shape (n,) or (n, k) (k directions in one pass).
 
-        Several directions take the route that was fastest in measurement. With a degree of
-        3 or more and a Hessian workspace (:attr:`hessian_workspace_nbytes`) under 64 MiB or
-        at most an eighth of the coefficients' storage, that is one Hessian pass and a
-        matrix product; otherwise (degrees <= 2, whose HVP pass is cheap next to forming
-        n x n numbers, unless there are 32 directions or more and the Hessian is under 64
-        MiB; or a Hessian that is what a caller avoids) the multi-direction HVP pass, which
-        holds only n x k numbers per accumulator. The choice depends on the
-        instance alone, so results repeat bit for bit; only when the Hessian does not fit in
-        the available memory does the call fall back to the multi-direction pass, whose last
-        bits differ. One direction in a 2-D array goes through the 1-D kernel. Four
-        directions, two threads, medians, multi-direction pass against Hessian: p = 3,
-        n = 200, 1.89 and 0.38 ms; p = 4, n = 120, 22.7 and 4.6 ms; p = 4, n = 360, 807 and
-        216 ms (one direction alone: 192 ms); but p = 2, n = 1800, 7.6 and 28.7 ms."""
+        Several directions take the route that was fastest in measurement:
+
+        * one Hessian pass and a matrix product, at degree 3 or more when the Hessian's
+          workspace (:attr:`hessian_workspace_nbytes`) is under 64 MiB or at most an eighth
+          of the coefficients' storage, and at degree <= 2 from 32 directions on when it is
+          under 64 MiB;
+        * otherwise the multi-direction HVP pass, which holds only n x k numbers per
+          accumulator (at degree <= 2 a pass is cheap next to forming n x n numbers, and a
+          large Hessian is what a caller of this method avoids).
+
+        The choice depends on the instance and k alone, so results repeat bit for bit; only
+        a Hessian that does not fit in the available memory sends the call to the other
+        route, whose last bits differ. One direction in a 2-D array goes through the 1-D
+        kernel. Four directions, two threads, medians, multi-direction pass against Hessian:
+        p = 3, n = 200, 1.89 and 0.38 ms; p = 4, n = 120, 22.7 and 4.6 ms; p = 4, n = 360,
+        807 and 216 ms (one direction alone: 192 ms); but p = 2, n = 1800, 7.6 and 28.7 ms."""
         pt = as_point(x, self.n)
         dirs = as_directions(v, self.n)
         if dirs.ndim == 1:
