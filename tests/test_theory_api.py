@@ -35,3 +35,24 @@ def test_a_text_tolerance_is_refused_like_a_text_gamma():
     # float("1e-3") would work, but a text gamma is refused, so a text tolerance is too
     with pytest.raises(TypeError, match=r"ground_state\(\): tol must be a positive number"):
         Mixture({3: 1.0}).ground_state(tol="1e-3")
+
+
+@pytest.mark.parametrize("q", [None, True, "0.5", 1 + 0j])
+def test_an_overlap_that_is_no_real_number_is_refused_by_name(q):
+    # NumPy reads True as 1.0 and '0.5' as 0.5; the theory functions refuse both, as the
+    # README promises for booleans and text (before: accepted silently; None gave "nan")
+    from orthoclimb.theory import path_energy
+
+    with pytest.raises(TypeError, match=r"path_energy\(\): q must be a real number"):
+        path_energy(Mixture({3: 1.0}), q)
+
+
+def test_bad_step_functions_and_derivatives_name_the_value():
+    # the Parisi functional names the entry that is not finite; a derivative order given as
+    # text is a TypeError (it was a ValueError)
+    from orthoclimb.theory import parisi_functional
+
+    with pytest.raises(ValueError, match=r"alpha must be finite, got alpha\[1\] = nan"):
+        parisi_functional(Mixture({3: 1.0}), 1.0, [0.0, 0.5, 1.0], [0.0, np.nan])
+    with pytest.raises(TypeError, match="derivative must be a nonnegative integer, got '2'"):
+        Mixture({3: 1.0}).xi(0.5, "2")

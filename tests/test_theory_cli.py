@@ -154,3 +154,17 @@ def test_a_mixture_flag_given_twice_is_refused(command, flag, capsys):
         main([command, flag, "3:1", flag, "2:1"])
     assert info.value.code == 2
     assert f"{flag} given twice ('3:1' and '2:1'); give it once" in capsys.readouterr().err
+
+
+def test_a_plot_into_a_missing_folder_is_refused_before_the_work(tmp_path, capsys, monkeypatch):
+    # the ground state takes seconds for some mixtures; a plot that cannot be written is
+    # refused first (before: after the solve)
+    import orthoclimb.cli.theory_cmd as theory_cmd
+
+    def no_work(*_args):
+        raise AssertionError("the report was computed before the plot path was checked")
+
+    monkeypatch.setattr(theory_cmd, "_report", no_work)
+    code = main(["theory", "--gammas", "2:1", "--plot", str(tmp_path / "nope" / "x.png")])
+    assert code == 2
+    assert "does not exist" in capsys.readouterr().err

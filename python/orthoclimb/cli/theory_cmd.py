@@ -138,12 +138,15 @@ def _table(report: dict[str, Any]) -> str:
     return "\n".join(lines)
 
 
-def _plot(mixture: Mixture, report: dict[str, Any], path: str) -> None:
-    from matplotlib.figure import Figure
-
+def _check_plot_path(path: str) -> None:
+    """Refuse a plot whose folder does not exist, before any work starts."""
     folder = os.path.dirname(os.path.abspath(path))
     if not os.path.isdir(folder):
         raise ValueError(f"cannot write the plot {path!r}: folder {folder!r} does not exist")
+
+
+def _plot(mixture: Mixture, report: dict[str, Any], path: str) -> None:
+    from matplotlib.figure import Figure
 
     gs = report["ground_state"]
     verdict = report["full_rsb"]
@@ -206,6 +209,8 @@ def run(args: argparse.Namespace) -> int:
     mixture = mixture_from(args)
     if not (math.isfinite(args.tol) and args.tol > 0):
         raise ValueError(f"--tol must be a positive number, got {args.tol!r}")
+    if args.plot:
+        _check_plot_path(args.plot)
     report = _report(mixture, args.tol)
     if args.plot:
         _plot(mixture, report, args.plot)

@@ -197,9 +197,11 @@ class Mixture:
 
     def xi(self, q: Any, derivative: int = 0) -> Any:
         """The mixture polynomial xi(q) = sum_p gamma_p^2 q^p or its derivative of the given
-        order (0, 1, 2, ...), vectorized over ``q``. Returns a float for scalar ``q``."""
+        order (0, 1, 2, ...), vectorized over ``q``. Returns a float for scalar ``q``. As a
+        polynomial it is evaluated at any real q (outside [0, 1] too, NaN giving NaN); the
+        theory functions, which need q in [0, 1], check that themselves."""
         if isinstance(derivative, bool) or not isinstance(derivative, (int, np.integer)):
-            raise ValueError(f"derivative must be a nonnegative integer, got {derivative!r}")
+            raise TypeError(f"derivative must be a nonnegative integer, got {derivative!r}")
         if derivative < 0:
             raise ValueError(f"derivative must be a nonnegative integer, got {derivative}")
         q_arr = np.asarray(q, dtype=np.float64)

@@ -25,7 +25,11 @@ def check_mixture(mixture: Any, where: str) -> Mixture:
 
 
 def check_overlap(q: Any, where: str, name: str = "q") -> np.ndarray:
-    """Convert ``q`` to a float array and check that every entry is finite and in [0, 1]."""
+    """Convert ``q`` to a float array and check that every entry is finite and in [0, 1].
+    Booleans, text and None are refused (NumPy would read True as 1 and '0.5' as 0.5)."""
+    kind = np.asarray(q).dtype if not isinstance(q, (str, bytes)) else None
+    if q is None or kind is None or (kind.kind in "bUSOc" and not _numeric_objects(q)):
+        raise TypeError(f"{where}(): {name} must be a real number or an array of them, got {q!r}")
     try:
         arr = np.asarray(q, dtype=np.float64)
     except (TypeError, ValueError):
@@ -33,13 +37,23 @@ def check_overlap(q: Any, where: str, name: str = "q") -> np.ndarray:
             f"{where}(): {name} must be a real number or an array of them, got {q!r}"
         ) from None
     if not np.all(np.isfinite(arr)):
-        bad = arr[~np.isfinite(arr)].flat[0]
+        bad = float(arr[~np.isfinite(arr)].flat[0])
         raise NonFiniteError(f"{where}(): {name} must be finite, got {name} = {bad!r}")
     outside = (arr < 0.0) | (arr > 1.0)
     if np.any(outside):
         bad = float(arr[outside].flat[0])
         raise ValueError(f"{where}(): {name} must lie in [0, 1], got {name} = {bad!r}")
     return arr
+
+
+def _numeric_objects(q: Any) -> bool:
+    """Whether an object array (say a list mixing ints and floats, or of Fractions) holds
+    only real numbers, none of them a boolean."""
+    items = np.asarray(q, dtype=object).ravel()
+    return all(
+        isinstance(v, (int, float, np.integer, np.floating)) and not isinstance(v, (bool, np.bool_))
+        for v in items
+    )
 
 
 def check_positive(value: Any, where: str, name: str) -> float:

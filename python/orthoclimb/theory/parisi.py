@@ -196,8 +196,12 @@ def _check_step_function(B: Any, breakpoints: Any, alpha: Any, where: str):
             f"{where}(): alpha needs one value per piece: {q.size - 1} for {q.size} breakpoints,"
             f" got shape {a.shape}"
         )
-    if not (np.all(np.isfinite(q)) and np.all(np.isfinite(a))):
-        raise ValueError(f"{where}(): breakpoints and alpha must be finite")
+    for label, values in (("breakpoints", q), ("alpha", a)):
+        if not np.all(np.isfinite(values)):
+            bad = int(np.flatnonzero(~np.isfinite(values))[0])
+            raise ValueError(
+                f"{where}(): {label} must be finite, got {label}[{bad}] = {float(values[bad])}"
+            )
     if q[0] != 0.0 or q[-1] != 1.0 or np.any(np.diff(q) <= 0.0):
         raise ValueError(
             f"{where}(): breakpoints must increase strictly from 0 to 1, got {q.tolist()!r}"
