@@ -74,6 +74,11 @@ _MAX_RESTARTS = 40
 _D_THRESHOLD = 1e-12
 # Increments below this fraction of 1 + max alpha are not treated as jumps.
 _JUMP_RTOL = 1e-10
+# A jump of alpha counts as isolated (see _jump_moves) when the increments on the grid points
+# next to it are below this fraction of its height: a ramp of 1e-7 left behind a jump of 0.23
+# (xi = 2.25 q + q^3) made it count as a step of a continuous part, so it was never moved and
+# the solve reported converged 8e-10 above the optimum at tol 1e-11.
+_RAMP_RATIO = 1e-3
 # Increments below this fraction of 1 + max alpha are candidates for removal by _tidy.
 _TIDY_RTOL = 1e-6
 # Points per piece where D is sampled next to a step of a continuous part of alpha.
@@ -349,8 +354,9 @@ def _jump_moves(
     if jumps.size == 0:
         return 0.0, np.empty(0), np.empty(0), np.zeros(0, dtype=bool)
     d = theta[1:]
-    step_before = d[jumps - 1] > 0.0
-    step_after = np.array([j + 1 < d.size and d[j + 1] > 0.0 for j in jumps])
+    near = _RAMP_RATIO * d[jumps]
+    step_before = d[jumps - 1] > near
+    step_after = np.array([j + 1 < d.size and d[j + 1] > near[i] for i, j in enumerate(jumps)])
     isolated = ~(step_before | step_after)
     places = np.empty(jumps.size)
     low_d = np.empty(jumps.size)
