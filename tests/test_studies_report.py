@@ -493,3 +493,16 @@ def test_report_options_are_checked_before_the_study_is_read(tmp_path, kwargs, w
     # before, a bad level reached each fit and ended up as its note, with no error at all
     with pytest.raises(ValueError, match=words):
         build_report(tmp_path / "nothing-here", **kwargs)
+
+
+def test_profile_notes_threads_beyond_the_cores(tmp_path, capsys):
+    # as climb: a --threads above the cores this process may use is kept, with a note first
+    import orthoclimb as oc
+    from orthoclimb.studies.engine import available_cores
+
+    cores, before = available_cores(), oc.get_num_threads()
+    args = ["profile", "--gammas", "3:1", "--n", "20,30", "--repeats", "1"]
+    assert main([*args, "--threads", str(cores + 1), "--out", str(tmp_path / "p")]) == 0
+    err = capsys.readouterr().err
+    assert err.startswith(f"note: --threads {cores + 1} is more than the {cores} core")
+    oc.set_num_threads(before)
