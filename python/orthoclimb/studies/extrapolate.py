@@ -23,10 +23,11 @@ from __future__ import annotations
 import math
 from collections.abc import Sequence
 from dataclasses import asdict, dataclass
+from typing import Any
 
 import numpy as np
 
-__all__ = ["Extrapolation", "e_inf_under", "extrapolate"]
+__all__ = ["Extrapolation", "check_interval", "e_inf_under", "extrapolate"]
 
 
 @dataclass(frozen=True)
@@ -59,6 +60,23 @@ def _wls_line(x: np.ndarray, m: np.ndarray, wt: np.ndarray) -> tuple[np.ndarray,
     sxy = (wt * x * m).sum(-1)
     det = s0 * sxx - sx * sx
     return (sxx * sy - sx * sxy) / det, (s0 * sxy - sx * sy) / det
+
+
+def check_interval(level: Any, n_boot: Any) -> None:
+    """The bootstrap interval's options: ``level`` in (0, 1) and ``n_boot`` an integer >= 2
+    (NumPy numbers accepted, booleans not); a ValueError naming the bad value."""
+    if (
+        isinstance(level, (bool, np.bool_))
+        or not isinstance(level, (int, float, np.integer, np.floating))
+        or not 0 < level < 1
+    ):
+        raise ValueError(f"level must be in (0, 1), got {level!r}")
+    if (
+        isinstance(n_boot, (bool, np.bool_))
+        or not isinstance(n_boot, (int, np.integer))
+        or n_boot < 2
+    ):
+        raise ValueError(f"n_boot must be an integer >= 2 (bootstrap replicates), got {n_boot!r}")
 
 
 def _checked(
@@ -118,10 +136,7 @@ def extrapolate(
     """Extrapolate the mean of ``samples[j]`` (energies per spin at size ``sizes[j]``) to
     n -> infinity (see the module doc). Needs >= 2 sizes and >= 2 samples per size."""
     arrays = _checked(sizes, samples, exponent)
-    if not 0 < level < 1:
-        raise ValueError(f"level must be in (0, 1), got {level}")
-    if isinstance(n_boot, bool) or not isinstance(n_boot, (int, np.integer)) or n_boot < 2:
-        raise ValueError(f"n_boot must be an integer >= 2 (bootstrap replicates), got {n_boot!r}")
+    check_interval(level, n_boot)
     x = np.asarray(sizes, dtype=np.float64) ** (-exponent)
     value, slope, chi2, var = _fit(x, arrays)
     rng = np.random.default_rng(seed)

@@ -38,7 +38,7 @@ import numpy as np
 
 from ..fileio import save_figure_atomic, write_json_atomic, write_text_atomic
 from .cost import cost_markdown, cost_table
-from .extrapolate import Extrapolation, e_inf_under, extrapolate
+from .extrapolate import Extrapolation, check_interval, e_inf_under, extrapolate
 from .grid import StudySpec
 from .store import Store, read_config
 from .tasks import theory_values
@@ -134,18 +134,7 @@ def build_report(
     n_boot: int = 2000,
 ) -> Report:
     """Read the rows of the study in ``folder`` and compute the report (no files written)."""
-    if (
-        isinstance(level, (bool, np.bool_))
-        or not isinstance(level, (int, float, np.integer, np.floating))
-        or not 0 < level < 1
-    ):
-        raise ValueError(f"level must be in (0, 1), got {level!r}")
-    if (
-        isinstance(n_boot, (bool, np.bool_))
-        or not isinstance(n_boot, (int, np.integer))
-        or n_boot < 2
-    ):
-        raise ValueError(f"n_boot must be an integer >= 2 (bootstrap replicates), got {n_boot!r}")
+    check_interval(level, n_boot)  # here, since each fit turns extrapolate's errors into notes
     if exponent is not None and not (
         isinstance(exponent, (int, float))
         and not isinstance(exponent, bool)
@@ -158,9 +147,7 @@ def build_report(
     rows = store.rows()
     if not rows:
         raise ValueError(f"the study in {str(folder)!r} has no completed tasks yet")
-    k = spec.exponent if exponent is None else float(exponent)
-    if not (math.isfinite(k) and k > 0):
-        raise ValueError(f"--exponent must be positive, got {exponent}")
+    k = spec.exponent if exponent is None else float(exponent)  # both checked positive
     data = _groups(rows)
     order = {m.name: i for i, m in enumerate(spec.mixtures)}
     morder = {m.name: i for i, m in enumerate(spec.methods)}
