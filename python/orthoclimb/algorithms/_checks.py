@@ -68,9 +68,8 @@ def warn_if_far_scale(ham: Hamiltonian, where: str) -> None:
         )
 
 
-def check_flag(value: Any, name: str) -> bool:
-    """``value`` as a bool, or a TypeError naming it (:func:`orthoclimb.model.arrays.as_flag`)."""
-    return as_flag(value, name)
+# ``value`` as a bool, or a TypeError naming it: the model's check, under this module's names.
+check_flag = as_flag
 
 
 def check_seed(seed: Any, name: str = "seed") -> int:

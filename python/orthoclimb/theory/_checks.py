@@ -27,11 +27,12 @@ def check_mixture(mixture: Any, where: str) -> Mixture:
 def check_overlap(q: Any, where: str, name: str = "q") -> np.ndarray:
     """Convert ``q`` to a float array and check that every entry is finite and in [0, 1].
     Booleans, text and None are refused (NumPy would read True as 1 and '0.5' as 0.5)."""
-    kind = np.asarray(q).dtype if not isinstance(q, (str, bytes)) else None
-    if q is None or kind is None or (kind.kind in "bUSOc" and not _numeric_objects(q)):
+    given = None if q is None or isinstance(q, (str, bytes)) else np.asarray(q)
+    kind = "" if given is None else given.dtype.kind
+    if given is None or kind in "bUSc" or (kind == "O" and not _numeric_objects(given)):
         raise TypeError(f"{where}(): {name} must be a real number or an array of them, got {q!r}")
     try:
-        arr = np.asarray(q, dtype=np.float64)
+        arr = np.asarray(given, dtype=np.float64)
     except (TypeError, ValueError):
         raise TypeError(
             f"{where}(): {name} must be a real number or an array of them, got {q!r}"
@@ -46,13 +47,11 @@ def check_overlap(q: Any, where: str, name: str = "q") -> np.ndarray:
     return arr
 
 
-def _numeric_objects(q: Any) -> bool:
-    """Whether an object array (say a list mixing ints and floats, or of Fractions) holds
-    only real numbers, none of them a boolean."""
-    items = np.asarray(q, dtype=object).ravel()
+def _numeric_objects(arr: np.ndarray) -> bool:
+    """Whether an object array holds only real numbers, none of them a boolean."""
     return all(
         isinstance(v, (int, float, np.integer, np.floating)) and not isinstance(v, (bool, np.bool_))
-        for v in items
+        for v in arr.ravel()
     )
 
 
