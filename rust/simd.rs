@@ -415,21 +415,11 @@ pub enum PrefetchLevel {
 /// measurements of `AHEAD` were made with the L1 hint, which it keeps; AMD's family 0x17
 /// (Zen 1 and Zen 2), where the L2 hint was not tried, keeps the L1 hint too.
 pub fn segment_prefetch_level() -> PrefetchLevel {
-    use std::sync::atomic::{AtomicU8, Ordering::Relaxed};
-    // 0: not decided yet, 1: L1, 2: L2. Relaxed: every thread computes the same answer.
-    static LEVEL: AtomicU8 = AtomicU8::new(0);
-    match LEVEL.load(Relaxed) {
-        1 => PrefetchLevel::L1,
-        2 => PrefetchLevel::L2,
-        _ => {
-            let level = match amd_family() {
-                Some(family) if family >= 0x19 => PrefetchLevel::L2,
-                _ => PrefetchLevel::L1,
-            };
-            LEVEL.store(if level == PrefetchLevel::L2 { 2 } else { 1 }, Relaxed);
-            level
-        }
-    }
+    static LEVEL: std::sync::OnceLock<PrefetchLevel> = std::sync::OnceLock::new();
+    *LEVEL.get_or_init(|| match amd_family() {
+        Some(family) if family >= 0x19 => PrefetchLevel::L2,
+        _ => PrefetchLevel::L1,
+    })
 }
 
 /// The processor family (base family plus extended family, as AMD defines it) when the
