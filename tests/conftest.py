@@ -2,8 +2,10 @@
 
 from __future__ import annotations
 
+import json
 from collections.abc import Callable, Iterator
 from contextlib import contextmanager
+from typing import Any
 
 import numpy as np
 import pytest
@@ -20,6 +22,16 @@ def rng() -> np.random.Generator:
 
 def unit(v: np.ndarray) -> np.ndarray:
     return v / np.linalg.norm(v, axis=-1, keepdims=True)
+
+
+def strict_json_loads(text: str) -> Any:
+    """json.loads that refuses what RFC 8259 (section 6) leaves out of JSON and Python's json
+    module accepts anyway: the bare tokens NaN, Infinity and -Infinity."""
+
+    def refuse(token: str) -> Any:
+        raise ValueError(f"{token} is not JSON (RFC 8259)")
+
+    return json.loads(text, parse_constant=refuse)
 
 
 @contextmanager

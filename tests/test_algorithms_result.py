@@ -4,6 +4,7 @@ from __future__ import annotations
 
 import dataclasses
 import json
+import math
 
 import numpy as np
 import pytest
@@ -31,6 +32,46 @@ def test_round_trip(result, tmp_path):
     assert back.info["local_max"] == result.info["local_max"]
     doc = json.loads(json_path.read_text())
     assert doc["format_version"] == oc.algorithms.FORMAT_VERSION and len(doc["sha256"]) == 64
+
+
+def test_the_file_is_strict_json_and_its_nulls_read_as_nan(result, tmp_path):
+    # the path's last row has no step (NaN eigenvalue); the file writes null there, which
+    # RFC 8259 parsers accept, and loading gives NaN in a float column again
+    from conftest import strict_json_loads
+
+    assert np.isnan(result.path["eigenvalue"][-1])
+    json_path, _ = result.save(tmp_path / "run")
+    doc = strict_json_loads(json_path.read_text())
+    assert doc["payload"]["path"]["eigenvalue"][-1] is None
+    back = oc.load_result(json_path)
+    assert back.path["eigenvalue"].dtype == np.float64
+    np.testing.assert_array_equal(back.path["eigenvalue"], result.path["eigenvalue"])
+    # a NaN in info is written as null too and reads back as None
+    odd = dataclasses.replace(result, info={**result.info, "spread": float("nan")})
+    odd.save(tmp_path / "odd")
+    assert oc.load_result(tmp_path / "odd").info["spread"] is None
+
+
+def test_version_1_files_with_bare_nan_tokens_still_load(result, tmp_path):
+    # version 1 wrote NaN as a bare token and took its checksum over that text
+    from orthoclimb.fileio import json_digest
+
+    json_path, _ = result.save(tmp_path / "old")
+    doc = json.loads(json_path.read_text())
+    payload = doc["payload"]
+    payload["path"] = {
+        k: [math.nan if v is None else v for v in col] for k, col in payload["path"].items()
+    }
+    old = {**doc, "format_version": 1, "sha256": json_digest(payload), "payload": payload}
+    json_path.write_text(json.dumps(old, allow_nan=True))
+    assert "NaN" in json_path.read_text()
+    back = oc.load_result(json_path)
+    np.testing.assert_array_equal(back.path["eigenvalue"], result.path["eigenvalue"])
+    assert back == result
+    doc["format_version"] = 0
+    json_path.write_text(json.dumps(doc))
+    with pytest.raises(ResultFileError, match="version 0 .*reads 1 to 2"):
+        oc.load_result(json_path)
 
 
 def test_modified_json_fails(result, tmp_path):

@@ -5,6 +5,7 @@ from __future__ import annotations
 import os
 import stat
 
+import numpy as np
 import pytest
 
 from orthoclimb.errors import OutputPathError
@@ -153,3 +154,26 @@ def test_saving_a_pair_into_a_folder_path_is_refused(tmp_path):
     for given in ("a", "a.json", "a.npz"):
         assert pair_paths(tmp_path / given) == want
         assert output_pair_paths(tmp_path / given, "x") == want
+
+
+def test_json_files_are_strict_json(tmp_path):
+    # RFC 8259 has no NaN or infinity; every such float is written as null, at any depth and
+    # for NumPy floats too, while finite numbers, integers, booleans and text are kept
+    from conftest import strict_json_loads
+    from orthoclimb.fileio import finite_json, json_text
+
+    data = {
+        "a": float("nan"),
+        "b": [1.5, float("inf"), -float("inf"), (np.float32("nan"), 2)],
+        "c": {"d": np.float64("-inf"), "e": True, "f": "NaN", "g": 0, "h": -0.0},
+    }
+    want = {
+        "a": None,
+        "b": [1.5, None, None, [None, 2]],
+        "c": {"d": None, "e": True, "f": "NaN", "g": 0, "h": -0.0},
+    }
+    assert finite_json(data) == want
+    assert data["b"][1] == float("inf")  # the input is not changed
+    write_json_atomic(tmp_path / "a.json", data)
+    assert strict_json_loads((tmp_path / "a.json").read_text()) == want
+    assert strict_json_loads(json_text(data, indent=None)) == want

@@ -506,3 +506,20 @@ def test_profile_notes_threads_beyond_the_cores(tmp_path, capsys):
     err = capsys.readouterr().err
     assert err.startswith(f"note: --threads {cores + 1} is more than the {cores} core")
     oc.set_num_threads(before)
+
+
+def test_report_json_is_strict_json_with_null_for_undefined_numbers(tmp_path, monkeypatch, capsys):
+    # an unknown ground state (NaN) and energies equal on every seed (standard error 0, so
+    # no z-score) leave numbers undefined; report.json and `report --json` write them as
+    # null, as RFC 8259 requires (Python's json would write a bare NaN token, which jq and
+    # JavaScript refuse)
+    import orthoclimb.studies.report as report_module
+    from conftest import strict_json_loads
+
+    monkeypatch.setattr(report_module, "theory_values", lambda gammas: (1.6330, math.nan, False))
+    _synthetic_study(tmp_path / "s", "20,40", lambda n, seed: 1.5, seeds="0-3")
+    assert main(["report", str(tmp_path / "s"), "--no-plots", "--json"]) == 0
+    printed = strict_json_loads(capsys.readouterr().out)
+    stored = strict_json_loads((tmp_path / "s" / "report.json").read_text())
+    assert printed == stored
+    assert stored["theory"]["3:1.0"]["gs"] is None

@@ -11,11 +11,14 @@ from __future__ import annotations
 
 import hashlib
 import json
+import math
 import os
 import tempfile
 from collections.abc import Callable
 from pathlib import Path
 from typing import IO, Any
+
+import numpy as np
 
 from .errors import OutputPathError
 
@@ -117,9 +120,33 @@ def write_text_atomic(path: str | os.PathLike, text: str) -> Path:
     return write_atomic(path, lambda fh: fh.write(text.encode("utf-8")))
 
 
+def finite_json(value: Any) -> Any:
+    """A copy of ``value`` (dicts, lists, tuples, numbers, text) for strict JSON: every float
+    that is not finite (NaN, +-inf) becomes ``None``, which JSON writes as ``null``.
+
+    JSON has no NaN or infinity (RFC 8259, section 6); Python writes them as the bare tokens
+    ``NaN`` and ``Infinity``, which jq, JavaScript and most other readers refuse. orthoclimb
+    stores a missing or undefined number (a path column where a step has no value, a
+    standard deviation of one sample) as null instead."""
+    if isinstance(value, dict):
+        return {k: finite_json(v) for k, v in value.items()}
+    if isinstance(value, (list, tuple)):
+        return [finite_json(v) for v in value]
+    if isinstance(value, (float, np.floating)) and not math.isfinite(value):
+        return None
+    return value
+
+
+def json_text(data: Any, indent: int | None = 2) -> str:
+    """Strict JSON text of ``data`` (non-finite floats as null, :func:`finite_json`), as every
+    file orthoclimb writes and every ``--json`` output holds it."""
+    return json.dumps(finite_json(data), indent=indent, allow_nan=False)
+
+
 def write_json_atomic(path: str | os.PathLike, data: Any) -> Path:
-    """Create or replace a JSON file atomically (indented, keys in insertion order)."""
-    return write_text_atomic(path, json.dumps(data, indent=2, allow_nan=True) + "\n")
+    """Create or replace a JSON file atomically (strict JSON, :func:`json_text`; indented,
+    keys in insertion order)."""
+    return write_text_atomic(path, json_text(data) + "\n")
 
 
 def save_figure_atomic(fig: Any, path: str | os.PathLike, **kwargs: Any) -> Path:
@@ -130,7 +157,9 @@ def save_figure_atomic(fig: Any, path: str | os.PathLike, **kwargs: Any) -> Path
 
 def envelope(format_name: str, version: int, payload: dict) -> dict:
     """The file envelope ``{"format", "format_version", "sha256", "payload"}`` of ``payload``
-    (checksum :func:`json_digest`), which :func:`open_envelope` reads back."""
+    with its non-finite floats as None (:func:`finite_json`; checksum :func:`json_digest`),
+    which :func:`open_envelope` reads back."""
+    payload = finite_json(payload)
     return {
         "format": format_name,
         "format_version": version,
@@ -139,11 +168,14 @@ def envelope(format_name: str, version: int, payload: dict) -> dict:
     }
 
 
-def open_envelope(doc: dict, version: int, fail: Callable[[str], Exception]) -> dict:
+def open_envelope(
+    doc: dict, version: int, fail: Callable[[str], Exception], oldest: int | None = None
+) -> dict:
     """The payload of a file envelope ``{"format", "format_version", "sha256", "payload"}``
     whose format the caller has checked: ``fail(why)`` is raised for a version that is not an
-    integer, newer than ``version`` (upgrade) or another older one, and for a payload that
-    does not match its checksum (:func:`json_digest`)."""
+    integer, newer than ``version`` (upgrade) or older than ``oldest`` (default: ``version``),
+    and for a payload that does not match its checksum (:func:`json_digest`). The caller
+    reads ``doc["format_version"]`` where the versions differ."""
     from . import __version__
 
     got = doc.get("format_version")
@@ -154,8 +186,10 @@ def open_envelope(doc: dict, version: int, fail: Callable[[str], Exception]) -> 
             f"format version {got} is newer than this orthoclimb {__version__} reads "
             f"(version {version}); upgrade orthoclimb to load it"
         )
-    if got != version:
-        raise fail(f"unsupported format version {got} (this orthoclimb reads {version})")
+    first = version if oldest is None else oldest
+    if got < first:
+        reads = f"{version}" if first == version else f"{first} to {version}"
+        raise fail(f"unsupported format version {got} (this orthoclimb reads {reads})")
     payload = doc.get("payload")
     if not isinstance(payload, dict) or json_digest(payload) != doc.get("sha256"):
         raise fail("checksum mismatch: the file was modified or corrupted")
@@ -163,7 +197,9 @@ def open_envelope(doc: dict, version: int, fail: Callable[[str], Exception]) -> 
 
 
 def json_digest(payload: Any) -> str:
-    """SHA-256 (hex) of the canonical JSON of ``payload``: sorted keys, no spaces, NaN allowed.
-    The checksum of every file orthoclimb writes with a format name."""
+    """SHA-256 (hex) of the canonical JSON of ``payload``: sorted keys, no spaces. The checksum
+    of every file orthoclimb writes with a format name. The payloads it writes hold no NaN
+    (:func:`envelope`); the bare ``NaN`` token is still allowed here so that files written
+    before that (results of format version 1, study rows) keep their checksums."""
     text = json.dumps(payload, sort_keys=True, separators=(",", ":"), allow_nan=True)
     return hashlib.sha256(text.encode("utf-8")).hexdigest()

@@ -2,9 +2,12 @@
 
 ``result.save("runs/a")`` writes two files atomically (temporary file, then rename):
 
-* ``runs/a.json``: ``{"format": "orthoclimb-result", "format_version": 1, "sha256": ...,
+* ``runs/a.json``: ``{"format": "orthoclimb-result", "format_version": 2, "sha256": ...,
   "payload": {...}}``. The payload holds the summary (energy per spin, seconds, info), the full
   configuration, the per-step path table (one list per column) and the SHA-256 and shape of x.
+  It is strict JSON: a number that is not finite is written as ``null`` (the path's last row,
+  which has no step, holds several), and comes back as NaN in the path table and as None in
+  ``info``. Version 1 wrote bare ``NaN`` tokens instead; it is still read.
   ``sha256`` is the hex digest of the payload serialized canonically (``json.dumps`` with sorted
   keys and separators ``(",", ":")``, UTF-8), so any edit or truncation is detected.
 * ``runs/a.npz``: the final point ``x`` (float64, |x| = 1).
@@ -29,6 +32,7 @@ import numpy as np
 from ..errors import ResultFileError
 from ..fileio import (
     envelope,
+    finite_json,
     json_digest,
     open_envelope,
     output_pair_paths,
@@ -40,7 +44,8 @@ from ..fileio import (
 __all__ = ["FORMAT_VERSION", "Result", "load_result"]
 
 FORMAT = "orthoclimb-result"
-FORMAT_VERSION = 1
+FORMAT_VERSION = 2
+OLDEST_VERSION = 1  # version 1 had bare NaN tokens where version 2 has null
 
 
 def _plain(value: Any) -> Any:
@@ -108,13 +113,17 @@ class Result:
         )
 
     def payload(self) -> dict[str, Any]:
+        """The JSON file's payload: the summary, the path table and x's digest and shape, with
+        every non-finite number as None (it is written as null)."""
         x = np.asarray(self.x, dtype=np.float64)
-        return {
-            **self.summary(),
-            "path": _plain({k: np.asarray(v) for k, v in self.path.items()}),
-            "x_sha256": _x_digest(x),
-            "x_shape": list(x.shape),
-        }
+        return finite_json(
+            {
+                **self.summary(),
+                "path": _plain({k: np.asarray(v) for k, v in self.path.items()}),
+                "x_sha256": _x_digest(x),
+                "x_shape": list(x.shape),
+            }
+        )
 
     def save(self, path: str | os.PathLike) -> tuple[Path, Path]:
         """Write ``<stem>.json`` and ``<stem>.npz`` atomically (a ``.json``/``.npz`` suffix on
@@ -174,6 +183,13 @@ def _check_payload(path: Path, payload: dict[str, Any]) -> None:
             raise _fail(path, f"path column {column!r} must be a list, got {values!r}")
 
 
+def _column(values: list) -> np.ndarray:
+    """A path column as written: its nulls (numbers that were not finite) read as NaN."""
+    if any(v is None for v in values):
+        return np.array([math.nan if v is None else v for v in values], dtype=np.float64)
+    return np.asarray(values)
+
+
 def load_result(path: str | os.PathLike) -> Result:
     """Read a result written by :meth:`Result.save` (give the stem or either file name)."""
     json_path, npz_path = pair_paths(path)
@@ -191,7 +207,9 @@ def load_result(path: str | os.PathLike) -> Result:
         raise _fail(json_path, f"not valid JSON (truncated or corrupted?): {exc}") from None
     if not isinstance(doc, dict) or doc.get("format") != FORMAT:
         raise _fail(json_path, f"not an orthoclimb result (format is not {FORMAT!r})")
-    payload = open_envelope(doc, FORMAT_VERSION, lambda why: _fail(json_path, why))
+    payload = open_envelope(
+        doc, FORMAT_VERSION, lambda why: _fail(json_path, why), oldest=OLDEST_VERSION
+    )
     _check_payload(json_path, payload)
     try:
         with np.load(npz_path, allow_pickle=False) as data:
@@ -202,7 +220,7 @@ def load_result(path: str | os.PathLike) -> Result:
         raise _fail(npz_path, f"unreadable (truncated or corrupted?): {exc}") from None
     if list(x.shape) != payload.get("x_shape") or _x_digest(x) != payload.get("x_sha256"):
         raise _fail(npz_path, "x does not match the digest recorded in the JSON file")
-    path_table = {k: np.asarray(v) for k, v in payload.get("path", {}).items()}
+    path_table = {k: _column(v) for k, v in payload.get("path", {}).items()}
     energy = payload["energy"]
     return Result(
         x=x,

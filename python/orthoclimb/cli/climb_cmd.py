@@ -14,14 +14,13 @@ as JSON instead of the table. Energies are per spin, maximization convention.
 from __future__ import annotations
 
 import argparse
-import json
 import math
 import time
 from typing import Any
 
 import numpy as np
 
-from ..fileio import ensure_folder
+from ..fileio import ensure_folder, json_text
 from ..model import Hamiltonian, Mixture, estimate_memory
 from ..model.hamiltonian import _check_seed
 from ..model.memory import format_bytes, require_memory
@@ -247,7 +246,7 @@ def run(args: argparse.Namespace) -> int:
     }
     summary = _summary(result, problem, _ground_state(mixture), files)
     if args.json:
-        print(json.dumps(summary, indent=2))
+        print(json_text(summary))
     else:
         print(_table(summary))
         print("(energies per spin, maximization convention)")

@@ -9,7 +9,6 @@ profile.json and profile.png into ``--out``.
 from __future__ import annotations
 
 import argparse
-import json
 import sys
 
 from . import add_mixture_flags, mixture_from, threads_from
@@ -33,7 +32,7 @@ def _stderr(text: str) -> None:
 
 
 def run(args: argparse.Namespace) -> int:
-    from ..fileio import ensure_folder
+    from ..fileio import ensure_folder, json_text
     from ..model import available_memory
     from ..model.memory import coefficient_count, format_bytes
     from ..studies.grid import parse_sizes
@@ -68,7 +67,7 @@ def run(args: argparse.Namespace) -> int:
     prof = profile_kernels(mix, sizes, args.repeats, on_size=progress)
     files = write_profile(prof, args.out)
     if args.json:
-        print(json.dumps({**prof, "files": files}, indent=2))
+        print(json_text({**prof, "files": files}))
         return 0
     print(f"{'n':>6} " + " ".join(f"{k:>20}" for k in KERNELS))
     for r in prof["rows"]:

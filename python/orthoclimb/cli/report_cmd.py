@@ -9,7 +9,8 @@ energy_vs_n.png and distribution.png into the folder and prints the table.
 from __future__ import annotations
 
 import argparse
-import json
+
+from ..fileio import json_text
 
 __all__ = ["add_arguments", "run"]
 
@@ -39,7 +40,7 @@ def run(args: argparse.Namespace) -> int:
         args.study, args.exponent, args.level, args.bootstrap, plots=not args.no_plots
     )
     if args.json:
-        print(json.dumps(rep.to_dict(), indent=2))
+        print(json_text(rep.to_dict()))
         return 0
     print(rep.table())
     print()

@@ -10,14 +10,13 @@ All energies are per spin, maximization convention.
 from __future__ import annotations
 
 import argparse
-import json
 import math
 import os
 from typing import Any
 
 import numpy as np
 
-from ..fileio import save_figure_atomic
+from ..fileio import json_text, save_figure_atomic
 from ..model.mixture import Mixture
 from ..theory import (
     algorithmic_energy,
@@ -216,7 +215,7 @@ def run(args: argparse.Namespace) -> int:
         _plot(mixture, report, args.plot)
         report["plot"] = args.plot
     if args.json:
-        print(json.dumps(report, indent=2))
+        print(json_text(report))
     else:
         print(_table(report))
         if args.plot:
