@@ -489,3 +489,30 @@ def test_with_a_field_alpha_is_zero_near_zero(h, rest):
     assert gs.alpha[0] == 0.0 and gs.breakpoints[1] > 0.0
     ref, _ = _one_jump_reference(mixture)
     assert gs.value <= ref + 1e-10
+
+
+def test_functional_keeps_its_digits_for_a_large_alpha_on_a_tiny_last_piece():
+    # Two pieces, alpha = a0 on [0, t) and a1 on [t, 1), written out by hand (Chen and Sen,
+    # arXiv:1512.08492, in this module's form): C(q) = B + a1 (1 - max(q, t)) + a0 max(t - q, 0),
+    # 2P = xi'(1) B + a0 xi(t) + a1 (xi(1) - xi(t)) + log1p(a1 (1-t)/B)/a1
+    #      + log1p(a0 t / (B + a1 (1-t)))/a0,
+    # with xi(1) - xi(t) exact in rational arithmetic. At t = 1 - 1.3e-15 and a1 = 2.6e14 the
+    # difference of xi values in floating point had no correct digit, and the functional came
+    # out 2.3e-3 below the ground state (a user review; an upper bound cannot be below it).
+    from fractions import Fraction
+
+    mixture = Mixture({2: 0.3, 3: 1.0})
+    B, t, a0, a1 = 0.0024384, 0.9999999999999987, 0.5627, 2.587e14
+    c = mixture.xi_coefficients
+    tail = float(sum(Fraction(cp) * (1 - Fraction(t) ** p) for p, cp in c.items()))
+    rest = B + a1 * (1 - t)
+    two_p = (
+        mixture.xi(1.0, 1) * B
+        + a0 * mixture.xi(t)
+        + a1 * tail
+        + math.log1p(a1 * (1 - t) / B) / a1
+        + math.log1p(a0 * t / rest) / a0
+    )
+    value = parisi_functional(mixture, B, [0.0, t, 1.0], [a0, a1])
+    assert value == pytest.approx(0.5 * two_p, rel=1e-12)
+    assert value >= ground_state(mixture, tol=1e-8).value - 1e-8

@@ -121,6 +121,21 @@ def _psi(x: np.ndarray) -> np.ndarray:
     return _series_or_closed(x, _PSI_SERIES, lambda v: (np.log1p(v) - v / (1.0 + v)) / (v * v))
 
 
+def _xi_increments(mixture: Mixture, q: np.ndarray) -> np.ndarray:
+    """xi(q_j) - xi(q_{j-1}) for each piece, without cancellation: sum over p of
+    c_p (q_j - q_{j-1}) sum_{k < p} q_j^k q_{j-1}^(p-1-k), a sum of nonnegative terms
+    (q_j - q_{j-1} is exact in floating point for nearby q). The plain difference of xi values
+    loses all its digits on a piece of width 1e-15 near 1, and a large alpha there (2.6e14)
+    turned that rounding into a value 2e-3 below the ground state, which an upper bound must
+    never be (a user review)."""
+    right, left = q[1:], q[:-1]
+    out = np.zeros(right.size)
+    for p, c in mixture.xi_coefficients.items():
+        powers = sum(right**k * left ** (p - 1 - k) for k in range(p))
+        out += c * powers
+    return out * (right - left)
+
+
 class _Grid:
     """A grid 0 = q_0 < ... < q_K = 1 with the mixture quantities the functional needs."""
 
@@ -131,9 +146,8 @@ class _Grid:
         self.weight = weight
         self.q = q
         self.dq = np.diff(q)
-        xi_q = weight * np.asarray(mixture.xi(q), dtype=np.float64)
-        self.dxi = np.diff(xi_q)
-        self.xi1 = float(xi_q[-1])
+        self.dxi = weight * _xi_increments(mixture, q)
+        self.xi1 = weight * float(mixture.xi(1.0))
         self.dxi1 = weight * float(mixture.xi(1.0, 1))
 
     @property
@@ -339,8 +353,11 @@ def _jump_moves(
 ) -> tuple[float, np.ndarray, np.ndarray, np.ndarray]:
     """What moving the jumps of alpha could still gain, and where the isolated ones should go.
 
-    Moving a jump of height d from its breakpoint to a nearby t changes P by about (d/2) D(t)
-    (D = 0 at an active jump). A jump sits on a grid point while its best place may lie between
+    Moving a jump of height d from its breakpoint b to a nearby t changes P by about
+    (d/2) (D(t) - D(b)): a step of height d removed at b and added at t. D(b) = 0 at the exact
+    optimum, but L-BFGS-B can stop with D(b) of order 1e-9 where the problem is flat, and the
+    estimate (d/2) D(t) then missed a gain of 6e-10 for xi = 0.04 q + 0.25 q^2 + q^4 at
+    tol 1e-10. A jump sits on a grid point while its best place may lie between
     grid points, so D is sampled over the two pieces next to each jump. An *isolated* jump (no
     other jump on either neighbouring grid point: a real jump of alpha, not one step of a
     continuous part) is sampled densely (``_JUMP_SAMPLES``, geometric near the jump) and, where
@@ -348,8 +365,8 @@ def _jump_moves(
     move its grid point. The steps of a continuous part keep the coarse estimate
     (``_COARSE_SAMPLES``): there refining the grid is what helps, and moving single steps does
     not (measured: not one of 11-20 such moves lowered P, while the rounds went on).
-    Returns (sum of (d/2) max(0, -min D), the place of each minimum, the gain of each jump,
-    which jumps are isolated).
+    Returns (sum of (d/2) max(0, D(b) - min D), the place of each minimum, the gain of each
+    jump, which jumps are isolated).
     """
     if jumps.size == 0:
         return 0.0, np.empty(0), np.empty(0), np.zeros(0, dtype=bool)
@@ -366,10 +383,11 @@ def _jump_moves(
             places[mask], low_d[mask], rows[mask] = _sampled_minimum(
                 grid, theta, jumps[mask], samples
             )
-    gains = 0.5 * d[jumps] * np.maximum(0.0, -low_d)
+    at = grid.directional(theta, grid.q[jumps], jumps)  # D at each jump, 0 at the exact optimum
+    gains = 0.5 * d[jumps] * np.maximum(0.0, at - low_d)
     for i in np.flatnonzero(isolated & (gains > refine_above)):
         places[i], low_d[i] = _lowest_d(grid, theta, int(rows[i]), places[i], low_d[i])
-        gains[i] = 0.5 * d[jumps[i]] * max(0.0, -low_d[i])
+        gains[i] = 0.5 * d[jumps[i]] * max(0.0, at[i] - low_d[i])
     return float(gains.sum()), places, gains, isolated
 
 
@@ -442,8 +460,8 @@ def _level_at_zero(grid: _Grid, theta: np.ndarray, refine_above: float) -> tuple
     """What starting alpha later than q = 0 could still gain, and where it should start.
 
     alpha's level on the first piece is a jump at q = 0 (from 0 below it). Moving that jump to
-    t inside the first piece (alpha = 0 on [0, t)) changes P by about (d_1/2) D(t), as for an
-    interior jump, and D is sampled the same way (``_JUMP_SAMPLES``, refined with Brent's
+    t inside the first piece (alpha = 0 on [0, t)) changes P by about (d_1/2) (D(t) - D(0)), as
+    for an interior jump, and D is sampled the same way (``_JUMP_SAMPLES``, refined with Brent's
     method above ``refine_above``). With a field, D'(0) = -xi'(0) < 0, so the optimum always
     has alpha = 0 near 0 (module docstring); when its start t lies inside the first piece the
     midpoint test can miss the narrow range where D < 0 (for xi = 0.01 q + q^3, t is near
@@ -459,14 +477,15 @@ def _level_at_zero(grid: _Grid, theta: np.ndarray, refine_above: float) -> tuple
         return 0.0, 0.0
     if d.size > 1 and d[1] > _RAMP_RATIO * d[0]:
         return 0.0, 0.0  # the first step of a continuous part, not an isolated jump
-    t = grid.q[0] + _JUMP_SAMPLES * grid.dq[0]
+    t = np.concatenate(([0.0], grid.q[0] + _JUMP_SAMPLES * grid.dq[0]))
     vals = grid.directional(theta, t, np.zeros(t.size, dtype=np.int64))
-    i = int(vals.argmin())
+    at = float(vals[0])  # D(0), as D at a jump in _jump_moves
+    i = int(vals[1:].argmin()) + 1
     place, low = float(t[i]), float(vals[i])
-    gain = 0.5 * d[0] * max(0.0, -low)
+    gain = 0.5 * d[0] * max(0.0, at - low)
     if gain > refine_above:
         place, low = _lowest_d(grid, theta, 0, place, low)
-        gain = 0.5 * d[0] * max(0.0, -low)
+        gain = 0.5 * d[0] * max(0.0, at - low)
     return gain, place
 
 
