@@ -681,7 +681,7 @@ pub fn stagger4<T: Coef>(
     v: Option<&[f64]>,
     z: Option<(&mut [f64], [f64; 4])>,
 ) -> ([f64; 4], [f64; 4]) {
-    let zlen = z.as_ref().map_or(0, |(z, _)| z.len());
+    let zlen = z.as_ref().map(|(z, _)| z.len());
     let len = check_rows(&rows, x, v, zlen);
     if len < 4 {
         return short_stagger4::<Fused, T>(&rows, x, v, z);

@@ -23,7 +23,7 @@
 //! W[kappa, ij] += Q_j Sv[kappa] + dQ_j[kappa] Sx.
 //! ```
 
-use crate::error::CoreError;
+use crate::error::{try_zeroed, CoreError};
 use crate::exec::Exec;
 use crate::kernels::{check_len, energy, energy_gradient, items_for, pieces};
 use crate::partition::{reduce_sums, WorkItem};
@@ -41,10 +41,15 @@ fn transpose(
     cols: usize,
     src_stride: usize,
     dst_stride: usize,
-) -> Vec<f64> {
-    let mut out = vec![0.0; cols * dst_stride];
+) -> Result<Vec<f64>, CoreError> {
+    let len = cols
+        .checked_mul(dst_stride)
+        .ok_or_else(|| CoreError::SizeOverflow {
+            what: format!("{cols} x {dst_stride} transpose"),
+        })?;
+    let mut out = try_zeroed(len)?; // a huge batch is an error, not an abort
     transpose_into(src, (rows, cols, src_stride), dst_stride, &mut out);
-    out
+    Ok(out)
 }
 
 /// [`transpose`] into `out` (cols rows of length `dst_stride`, zeroed by the caller).
@@ -77,15 +82,19 @@ impl LaneRows {
     const LINE: usize = 64 / std::mem::size_of::<f64>();
 
     /// The b points `xs` (b x n row-major) in lane layout of `stride` >= b lanes.
-    fn new(xs: &[f64], b: usize, n: usize, stride: usize) -> Self {
-        let len = n * stride;
-        let mut buf = vec![0.0; len + Self::LINE - 1];
-        // align_offset may decline (usize::MAX); the rows are then merely unaligned
+    fn new(xs: &[f64], b: usize, n: usize, stride: usize) -> Result<Self, CoreError> {
+        let overflow = || CoreError::SizeOverflow {
+            what: format!("{n} x {stride} lane rows"),
+        };
+        let len = n.checked_mul(stride).ok_or_else(overflow)?;
+        let padded = len.checked_add(Self::LINE - 1).ok_or_else(overflow)?;
+        let mut buf: Vec<f64> = try_zeroed(padded)?; // an error, not an abort, if too big
+                                                     // align_offset may decline (usize::MAX); the rows are then merely unaligned
         let off = Some(buf.as_ptr().align_offset(64))
             .filter(|&o| o < Self::LINE)
             .unwrap_or(0);
         transpose_into(xs, (b, n, n), stride, &mut buf[off..off + len]);
-        LaneRows { buf, off, len }
+        Ok(LaneRows { buf, off, len })
     }
 
     fn rows(&self) -> &[f64] {
@@ -458,7 +467,7 @@ fn run_batch<T: Coef>(
         what: format!("batch of {b} points"),
     })?;
     check_len("points (b x n)", len, xs.len())?;
-    let lane_rows = LaneRows::new(xs, b, n, stride);
+    let lane_rows = LaneRows::new(xs, b, n, stride)?;
     let xt = lane_rows.rows();
     let glen = if want_grad { n * stride } else { 0 };
     // the work split follows the unpadded lanes, so that it, and with it the order of the
@@ -484,7 +493,7 @@ fn run_batch<T: Coef>(
     })?;
     e.truncate(b);
     let grads = if want_grad {
-        transpose(&g, n, b, stride, n)
+        transpose(&g, n, b, stride, n)?
     } else {
         Vec::new()
     };
@@ -606,13 +615,13 @@ pub fn hvp_many<T: Coef>(
         what: format!("{k} directions"),
     })?;
     check_len("directions (n x k)", len, vs.len())?;
-    let rows = transpose(vs, n, k, k, n); // k x n: one contiguous row per direction
+    let rows = transpose(vs, n, k, k, n)?; // k x n: one contiguous row per direction
     let items = items_for(poly, pieces(poly.num_coefficients(), len), 2 * k + 1, 1);
     let blocks = poly.blocks();
     let (_, w) = reduce_sums(exec, &items, 0, len, |it, _, w| {
         hvp_many_item::<T>(n, &blocks[it.block].coeffs, it, x, &rows, w, exec);
     })?;
-    Ok(transpose(&w, k, n, n, k))
+    transpose(&w, k, n, n, k)
 }
 
 #[cfg(test)]
@@ -732,13 +741,33 @@ mod tests {
         }
     }
 
+    /// Buffers of a batch too large to exist are an error, not an abort: the lane rows and
+    /// the transposes allocate with `try_zeroed` and check their products.
+    #[test]
+    fn impossible_batch_buffers_are_errors() {
+        let huge = usize::MAX / 4;
+        assert!(matches!(
+            LaneRows::new(&[], 0, huge, 8),
+            Err(CoreError::SizeOverflow { .. })
+        ));
+        assert!(matches!(
+            transpose(&[], 0, huge, 0, 8),
+            Err(CoreError::SizeOverflow { .. })
+        ));
+        // a size that does not overflow but that no allocator can give (2^60 bytes)
+        assert!(matches!(
+            transpose(&[], 0, 1 << 54, 0, 8),
+            Err(CoreError::AllocationFailed { .. })
+        ));
+    }
+
     /// The lane rows hold the transpose of the points, zero-padded, from a 64-byte boundary.
     #[test]
     fn lane_rows_are_the_padded_transpose_on_a_line_boundary() {
         for (b, n, stride) in [(1, 1, 4), (6, 19, 8), (32, 7, 32), (5, 3, 8)] {
             let xs: Vec<f64> = (0..b * n).map(|i| 1.0 + i as f64).collect();
             for _ in 0..4 {
-                let lr = LaneRows::new(&xs, b, n, stride);
+                let lr = LaneRows::new(&xs, b, n, stride).unwrap();
                 let rows = lr.rows();
                 assert_eq!(rows.as_ptr() as usize % 64, 0, "b {b} n {n}");
                 assert_eq!(rows.len(), n * stride);
@@ -762,7 +791,7 @@ mod tests {
         let terms = [(1usize, 0.4), (2, 1.0), (3, 0.7), (4, 0.2)];
         let poly = Packed::<f32>::sample(&pool(2), n, &terms, &Disorder::new(8)).unwrap();
         let xs: Vec<f64> = (0..b * n).map(|i| ((i as f64) * 0.29).sin()).collect();
-        let lane_rows = LaneRows::new(&xs, b, n, stride);
+        let lane_rows = LaneRows::new(&xs, b, n, stride).unwrap();
         let xt = lane_rows.rows();
         let exec = pool(1);
         let run = |fused: bool| {

@@ -164,14 +164,22 @@ fn run_kernel<T: Send + KernelResult>(
     })
 }
 
-fn slice1<'a>(a: &'a PyReadonlyArray1<'_, f64>, name: &str) -> PyResult<&'a [f64]> {
-    a.as_slice()
-        .map_err(|_| PyValueError::new_err(format!("{name} must be a C-contiguous float64 array")))
+fn not_c_contiguous(name: &str) -> PyErr {
+    PyValueError::new_err(format!("{name} must be a C-contiguous float64 array"))
 }
 
+fn slice1<'a>(a: &'a PyReadonlyArray1<'_, f64>, name: &str) -> PyResult<&'a [f64]> {
+    a.as_slice().map_err(|_| not_c_contiguous(name))
+}
+
+/// The elements in row-major order. `as_slice` also accepts a Fortran-ordered array, whose
+/// buffer holds them column by column: read as rows, a (b, n) batch would silently give the
+/// energies of other points, so only C order is taken (the Python layer converts).
 fn slice2<'a>(a: &'a PyReadonlyArray2<'_, f64>, name: &str) -> PyResult<&'a [f64]> {
-    a.as_slice()
-        .map_err(|_| PyValueError::new_err(format!("{name} must be a C-contiguous float64 array")))
+    if !a.is_c_contiguous() {
+        return Err(not_c_contiguous(name));
+    }
+    a.as_slice().map_err(|_| not_c_contiguous(name))
 }
 
 /// A kernel's input, copied when the call starts, while the GIL is held: a read-only view does
@@ -186,7 +194,13 @@ fn input1(a: &PyReadonlyArray1<'_, f64>, name: &str) -> PyResult<Vec<f64>> {
 }
 
 /// [`input1`] for an array of shape (rows, cols), checking the side that must be n.
-fn input2(a: &PyReadonlyArray2<'_, f64>, name: &str, axis: usize, n: usize) -> PyResult<Vec<f64>> {
+fn input2(
+    py: Python<'_>,
+    a: &PyReadonlyArray2<'_, f64>,
+    name: &str,
+    axis: usize,
+    n: usize,
+) -> PyResult<Vec<f64>> {
     let got = a.shape()[axis];
     if got != n {
         let what = if axis == 0 { "rows" } else { "columns" };
@@ -194,7 +208,11 @@ fn input2(a: &PyReadonlyArray2<'_, f64>, name: &str, axis: usize, n: usize) -> P
             "{name} must have n = {n} {what}, got {got}"
         )));
     }
-    slice2(a, name).map(<[f64]>::to_vec)
+    let src = slice2(a, name)?;
+    // a batch may be large: a failed allocation is an InsufficientMemoryError, not an abort
+    let mut copy = crate::error::try_zeroed::<f64>(src.len()).map_err(|e| to_py_err(py, e))?;
+    copy.copy_from_slice(src);
+    Ok(copy)
 }
 
 /// (energies (b,), gradients (b, n)) as NumPy arrays.
@@ -431,7 +449,7 @@ impl PyPacked {
         v: PyReadonlyArray2<'_, f64>,
     ) -> PyResult<Bound<'py, PyArray2<f64>>> {
         let shape = [v.shape()[0], v.shape()[1]];
-        let (x, vs) = (&input1(&x, "x")?, &input2(&v, "v", 0, self.n())?);
+        let (x, vs) = (&input1(&x, "x")?, &input2(py, &v, "v", 0, self.n())?);
         let w = run_kernel(
             py,
             "Hessian-vector product",
@@ -448,7 +466,7 @@ impl PyPacked {
         xs: PyReadonlyArray2<'_, f64>,
     ) -> PyResult<Bound<'py, PyArray1<f64>>> {
         let b = xs.shape()[0];
-        let xs = &input2(&xs, "x", 1, self.n())?;
+        let xs = &input2(py, &xs, "x", 1, self.n())?;
         let e = run_kernel(
             py,
             "energy",
@@ -465,7 +483,7 @@ impl PyPacked {
         xs: PyReadonlyArray2<'_, f64>,
     ) -> PyResult<EnergiesGradients<'py>> {
         let shape = [xs.shape()[0], xs.shape()[1]];
-        let xs = &input2(&xs, "x", 1, self.n())?;
+        let xs = &input2(py, &xs, "x", 1, self.n())?;
         let (e, g) = run_kernel(
             py,
             "gradient",

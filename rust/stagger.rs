@@ -195,12 +195,13 @@ pub(crate) fn check_rows<T: Coef>(
     rows: &Rows4<'_, T>,
     x: &[f64],
     v: Option<&[f64]>,
-    z: usize,
+    z: Option<usize>,
 ) -> usize {
     let len = rows.len;
     rows.check_shape();
     assert!(x.len() >= len && v.is_none_or(|v| v.len() >= len));
-    assert!(z == 0 || z >= len);
+    // a z given is written at every position, so it must cover the rows (an empty one too)
+    assert!(z.is_none_or(|z| z >= len));
     len
 }
 
@@ -330,7 +331,7 @@ pub(crate) fn portable_stagger4<M: Madd, T: Coef>(
     v: Option<&[f64]>,
     z: Option<(&mut [f64], [f64; 4])>,
 ) -> ([f64; 4], [f64; 4]) {
-    let zlen = z.as_ref().map_or(0, |(z, _)| z.len());
+    let zlen = z.as_ref().map(|(z, _)| z.len());
     let len = check_rows(&rows, x, v, zlen);
     if len < 4 {
         return short_stagger4::<M, T>(&rows, x, v, z);
@@ -386,7 +387,7 @@ impl HessRows<'_> {
     /// The checks the loops rely on: every row written exists and holds columns k..n.
     #[inline(always)]
     pub(crate) fn check<T: Coef>(&self, rows: &Rows4<'_, T>, x: &[f64], acc: &[f64]) -> usize {
-        let len = check_rows(rows, x, None, 0);
+        let len = check_rows(rows, x, None, None);
         let (n, k) = (self.n, self.k);
         assert!(
             k.checked_add(len) == Some(n),
@@ -598,6 +599,32 @@ mod tests {
                     check::<Fused, f64>(len, count, v, z);
                     check::<Fused, f32>(len, count, v, z);
                 }
+            }
+        }
+    }
+
+    /// A z shorter than the rows, even an empty one, is refused before any write on both
+    /// paths: the vector loop once took an empty z for "no z" and wrote eight values through
+    /// it (found by a review; no caller passes one).
+    #[test]
+    fn a_z_shorter_than_the_rows_is_refused_on_both_paths() {
+        fn refused<M: Madd>(zlen: usize) -> bool {
+            let fx = Fixture::<f64>::new(8, 4, wave);
+            let x = vec![1.0; 8];
+            let mut buf = [0.0; 8];
+            let outcome = std::panic::catch_unwind(std::panic::AssertUnwindSafe(|| {
+                stagger4::<M, f64>(fx.rows(), &x, None, Some((&mut buf[..zlen], [1.0; 4])))
+            }));
+            assert!(
+                buf[zlen..].iter().all(|&b| b == 0.0),
+                "wrote past z (zlen {zlen})"
+            );
+            outcome.is_err()
+        }
+        for zlen in [0, 3, 7] {
+            assert!(refused::<Plain>(zlen), "Plain, zlen {zlen}");
+            if has_avx2_fma() {
+                assert!(refused::<Fused>(zlen), "Fused, zlen {zlen}");
             }
         }
     }

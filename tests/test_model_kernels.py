@@ -222,3 +222,24 @@ def test_hvp_by_the_hessian_route_refuses_an_overflow():
     assert np.isfinite(ham.hessian(x)).all()
     with pytest.raises(oc.errors.NonFiniteError, match="overflowed float64"):
         ham.hvp(x, np.full((n, 2), 1e200))
+
+
+def test_the_core_refuses_fortran_ordered_batches_instead_of_misreading_them(rng):
+    # rust-numpy's as_slice takes a Fortran-ordered array too, whose buffer lists the points
+    # column by column; the binding read it as rows and gave other points' energies (a
+    # review: max difference 24 at n = 5). The Hamiltonian converts to C order; the core
+    # itself refuses, naming the array.
+    ham = oc.Hamiltonian.sample(oc.Mixture({2: 1.0, 3: 1.0}), 5, seed=1)
+    xs = unit(rng.standard_normal((3, 5)))
+    x, vs = xs[0], rng.standard_normal((5, 2))
+    for call in (
+        lambda a: ham._core.energy_batch(a),
+        lambda a: ham._core.energy_gradient_batch(a),
+    ):
+        call(xs)  # C order is taken
+        with pytest.raises(ValueError, match="C-contiguous"):
+            call(np.asfortranarray(xs))
+    with pytest.raises(ValueError, match="C-contiguous"):
+        ham._core.hvp_many(x, np.asfortranarray(vs))
+    np.testing.assert_array_equal(ham.energy(np.asfortranarray(xs)), ham.energy(xs))
+    np.testing.assert_array_equal(ham.hvp(x, np.asfortranarray(vs)), ham.hvp(x, vs))
