@@ -149,3 +149,33 @@ def test_climb_notes_threads_beyond_the_cores(tmp_path, capsys):
     assert main([*args, "--threads", "1", "--out", str(tmp_path / "b")]) == 0
     assert "note: --threads" not in capsys.readouterr().out
     oc.set_num_threads(before)
+
+
+def test_a_failed_command_leaves_no_empty_output_folder(tmp_path, monkeypatch, capsys):
+    # a refusal after --out was made (profile's sizes are checked after it), an error and a
+    # Ctrl-C during the run used to leave the new, empty folder (and its new parents) behind
+    new = tmp_path / "a" / "b"
+    assert main(["profile", "--gammas", "3:1", "--n", "50", "--out", str(new)]) == 2
+    assert not (tmp_path / "a").exists()
+
+    def interrupted(*args, **kwargs):
+        raise KeyboardInterrupt
+
+    monkeypatch.setattr(oc.Hamiltonian, "sample", interrupted)
+    climb = ["climb", "--gammas", "3:1", "--n", "20", "--no-progress"]
+    assert main([*climb, "--out", str(new)]) == 130
+    assert not (tmp_path / "a").exists()
+    # folders that existed stay, and so does a new one that received a file
+    kept = tmp_path / "kept"
+    kept.mkdir()
+    assert main([*climb, "--out", str(kept / "run")]) == 130
+    assert kept.is_dir() and not (kept / "run").exists()
+    monkeypatch.undo()
+
+    def fails_after_writing(result, png):
+        raise OSError(28, "No space left on device")
+
+    monkeypatch.setattr("orthoclimb.algorithms.plotting.plot_result", fails_after_writing)
+    assert main([*climb, "--out", str(tmp_path / "c")]) == 1
+    assert sorted(p.name for p in (tmp_path / "c").iterdir()) == ["result.json", "result.npz"]
+    capsys.readouterr()

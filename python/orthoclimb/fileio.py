@@ -9,12 +9,14 @@ ordinary ``open(path, "w")`` would give it (0666 less the process umask), not th
 
 from __future__ import annotations
 
+import contextlib
 import hashlib
 import json
 import math
 import os
 import tempfile
-from collections.abc import Callable
+from collections.abc import Callable, Iterator
+from contextvars import ContextVar
 from pathlib import Path
 from typing import IO, Any
 
@@ -36,11 +38,42 @@ def _umask() -> int:
     return 0o022
 
 
+# Folders made by ensure_folder while a command runs (see undone_on_failure); None outside one.
+_made_folders: ContextVar[list[Path] | None] = ContextVar("_made_folders", default=None)
+
+
+@contextlib.contextmanager
+def undone_on_failure() -> Iterator[None]:
+    """Run a block (a command) that may make output folders: if it raises (a refusal, an
+    error, Ctrl-C), the folders :func:`ensure_folder` made during it are removed again while
+    they are still empty, innermost first, so a failed command leaves no empty folder behind.
+    A folder that received a file is kept with it."""
+    made: list[Path] = []
+    token = _made_folders.set(made)
+    try:
+        yield
+    except BaseException:
+        for folder in reversed(made):
+            try:
+                folder.rmdir()  # only if empty
+            except OSError:
+                pass
+        raise
+    finally:
+        _made_folders.reset(token)
+
+
 def ensure_folder(path: str | os.PathLike, what: str = "output folder") -> Path:
     """Create the folder ``path`` and its parents (if missing) and return it, or raise
     :class:`~orthoclimb.errors.OutputPathError` naming the path. Commands call it before their
-    work, so a bad ``--out`` fails at once instead of after a long run."""
+    work, so a bad ``--out`` fails at once instead of after a long run; inside
+    :func:`undone_on_failure` the folders it makes are noted, to be removed if the command
+    fails."""
     folder = Path(path)
+    made = _made_folders.get()
+    if made is not None:  # the missing ones, outermost first, as mkdir makes them
+        missing = [f for f in (folder, *folder.parents) if not os.path.lexists(f)]
+        made.extend(reversed(missing))
     try:
         folder.mkdir(parents=True, exist_ok=True)
     except (FileExistsError, NotADirectoryError):

@@ -16,6 +16,8 @@ from collections.abc import Sequence
 from importlib import import_module
 from typing import TYPE_CHECKING
 
+from ..fileio import undone_on_failure
+
 if TYPE_CHECKING:
     from ..model.mixture import Mixture
 
@@ -116,7 +118,8 @@ def main(argv: Sequence[str] | None = None) -> int:
     parser = build_parser()
     args = parser.parse_args(argv)
     try:
-        return int(args._run(args) or 0)
+        with undone_on_failure():  # a failed command leaves no empty output folder
+            return int(args._run(args) or 0)
     except BrokenPipeError:  # the reader went away (say `| head`): stop quietly, like POSIX tools
         try:  # so the interpreter's final flush cannot fail again
             os.dup2(os.open(os.devnull, os.O_WRONLY), sys.stdout.fileno())

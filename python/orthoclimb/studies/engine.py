@@ -176,25 +176,34 @@ def _probe(scheduler: str, timeout: float) -> None:
 
 
 @contextlib.contextmanager
-def _children_ignore_interrupts():
-    """Ignore SIGINT while the embedded cluster starts its worker processes, which inherit that
-    (an ignored signal stays ignored across exec, and Python then installs no handler).
+def _interrupts_held():
+    """Hold SIGINT (block it) while the embedded cluster starts its worker processes, which
+    inherit the blocked signal; on leaving, an interrupt that came meanwhile is delivered.
 
     Ctrl-C in a terminal signals the whole process group: the workers used to die printing
-    about 70 lines of tracebacks while the sweep itself was already stopping them cleanly.
-    Now only the sweep sees the interrupt; a worker Dask starts later to replace a dead one
-    ignores it through the preload module ``worker_signals``. A Ctrl-C in the second or two
-    while the cluster starts is lost (an ignored signal is discarded, not kept pending); the
-    next one stops the sweep. Off the main thread signals cannot be changed, and nothing is
-    done."""
+    about 70 lines of tracebacks while the sweep itself was already stopping them cleanly. A
+    worker starts with SIGINT blocked, inherited across fork and exec, and the preload module
+    ``worker_signals`` then ignores it for good, which discards one still pending; a worker
+    Dask starts later to replace a dead one ignores it from that import on. The sweep itself
+    only defers the signal: before, it ignored SIGINT during the start too, and a Ctrl-C in
+    that second or two was lost, so the sweep ran to its end and exited 0 (8 of 8 tries of
+    a user review). Off the main thread signals cannot be changed, and nothing is done."""
     if threading.current_thread() is not threading.main_thread():
         yield
         return
-    old = signal.signal(signal.SIGINT, signal.SIG_IGN)
+    # The worker processes are spawned from Dask's threads, which inherit the mask of the
+    # thread that creates them; but multiprocessing's resource tracker, started with the first
+    # spawned process, unblocks SIGINT in the thread that starts it (SIG_UNBLOCK, not a
+    # restore), and the workers then started with SIGINT deliverable. Started here first, it
+    # is already running then and leaves the masks alone.
+    from multiprocessing import resource_tracker
+
+    resource_tracker.ensure_running()
+    old = signal.pthread_sigmask(signal.SIG_BLOCK, {signal.SIGINT})
     try:
         yield
     finally:
-        signal.signal(signal.SIGINT, old)
+        signal.pthread_sigmask(signal.SIG_SETMASK, old)
 
 
 def _connect(scheduler: str | None, plan: WorkerPlan, timeout: float):
@@ -202,21 +211,27 @@ def _connect(scheduler: str | None, plan: WorkerPlan, timeout: float):
     from distributed import Client, LocalCluster
 
     if scheduler is None:
-        with _children_ignore_interrupts():
-            cluster = LocalCluster(
-                n_workers=plan.workers,
-                threads_per_worker=plan.dask_threads,
-                processes=True,
-                host="127.0.0.1",
-                dashboard_address=":0",
-                env={"ORTHOCLIMB_NUM_THREADS": str(plan.rayon_threads)},
-                preload=[WORKER_PRELOAD],
-                # a worker's heartbeat can fail while the cluster shuts down (1 in 12 Ctrl-C
-                # runs logged that as an ERROR with a traceback); task errors reach the sweep
-                # through their futures and dead workers are counted, so only CRITICAL shows
-                silence_logs=logging.CRITICAL,
-            )
-        return Client(cluster, timeout=timeout), cluster
+        cluster = None
+        try:
+            with _interrupts_held():
+                cluster = LocalCluster(
+                    n_workers=plan.workers,
+                    threads_per_worker=plan.dask_threads,
+                    processes=True,
+                    host="127.0.0.1",
+                    dashboard_address=":0",
+                    env={"ORTHOCLIMB_NUM_THREADS": str(plan.rayon_threads)},
+                    preload=[WORKER_PRELOAD],
+                    # a worker's heartbeat can fail while the cluster shuts down (1 in 12 Ctrl-C
+                    # runs logged that as an ERROR with a traceback); task errors reach the sweep
+                    # through their futures and dead workers are counted, so only CRITICAL shows
+                    silence_logs=logging.CRITICAL,
+                )
+            return Client(cluster, timeout=timeout), cluster
+        except BaseException:  # a Ctrl-C held during the start arrives here, among others
+            if cluster is not None:
+                cluster.close()
+            raise
     _probe(scheduler, timeout)  # also checks the address
     try:
         client = Client(scheduler, timeout=timeout)
