@@ -531,6 +531,22 @@ def test_an_anneal_task_runs_langevin_with_its_options(tmp_path):
         spec_from_flags(["3:1"], None, "16", "3", "anneal", {"anneal": {"eta": -1.0}})
 
 
+def test_climb_with_the_seed_as_start_seed_reruns_a_sweep_row(tmp_path, capsys):
+    # a user could not reproduce a sweep row with climb: the sweep starts each run from its
+    # disorder seed, climb from --start-seed 0. The row names its start seed, and climb with
+    # it gives the row's energy bit for bit (same defaults, same code path).
+    from orthoclimb.studies.tasks import run_task
+
+    spec = spec_from_flags(["3:1"], None, "30", "5", "hessian")
+    (task,) = spec.tasks()
+    row = run_task(task, threads=1)
+    assert row["start_seed"] == row["seed"] == 5
+    climb = ["climb", "--gammas", "3:1", "--n", "30", "--seed", "5", "--threads", "1"]
+    climb += ["--json", "--no-progress", "--out", str(tmp_path / "c")]
+    assert main([*climb, "--start-seed", "5"]) == 0
+    assert json.loads(capsys.readouterr().out)["energy"] == row["energy"]
+
+
 def _run_script(folder, text: str) -> subprocess.CompletedProcess:
     """Run ``text`` as the script ``folder/script.py`` with this Python, in ``folder``."""
     script = folder / "script.py"

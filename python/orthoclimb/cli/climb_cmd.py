@@ -38,7 +38,11 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
     parser.add_argument("--n", type=int, required=True, help="number of spins")
     parser.add_argument("--seed", type=int, default=0, help="disorder seed (default 0)")
     parser.add_argument(
-        "--start-seed", type=int, default=0, help="seed of the start point / noise (default 0)"
+        "--start-seed",
+        type=int,
+        default=0,
+        help="seed of the start point / noise (default 0; a sweep starts each run from its"
+        " disorder seed, so --start-seed equal to --seed reruns a sweep's row)",
     )
     parser.add_argument("--method", choices=METHODS, default="hessian", help="default hessian")
     parser.add_argument(

@@ -128,6 +128,7 @@ def run_task(task: Task, threads: int | None = None) -> dict[str, Any]:
         "gammas": mix.to_text(),
         "n": task.n,
         "seed": task.seed,
+        "start_seed": task.seed,  # the start point's seed (climb --start-seed) is the seed
         "method": task.method.name,
         "options": json.dumps(opts, sort_keys=True),
         "steps": steps,
