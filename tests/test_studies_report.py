@@ -523,3 +523,22 @@ def test_report_json_is_strict_json_with_null_for_undefined_numbers(tmp_path, mo
     stored = strict_json_loads((tmp_path / "s" / "report.json").read_text())
     assert printed == stored
     assert stored["theory"]["3:1.0"]["gs"] is None
+
+
+def test_runs_that_stopped_before_a_local_maximum_are_flagged(tmp_path):
+    # a user capped gradient ascent at 3 iterations: every row had local_max false and the
+    # report extrapolated e_inf = 0.94 without a word. The report now counts such runs per
+    # size and warns; runs whose check passed or was not made (None) are not counted.
+    spec = spec_from_flags(["3:1"], None, "20,40", "0-3", "gradient")
+    store = Store.open(tmp_path / "s", spec)
+    flags = {0: False, 1: True, 2: None, 3: False}
+    for t in spec.tasks():
+        row = {"task_id": t.task_id, "mixture": t.mixture.name, "method": t.method.name}
+        local_max = flags[t.seed] if t.n == 40 else True
+        store.write_row({**row, "n": t.n, "seed": t.seed, "energy": 1.5, "local_max": local_max})
+    rep = build_report(tmp_path / "s")
+    assert [g["not_local_max"] for g in rep.groups] == [0, 2]
+    (warning,) = [f for f in rep.findings if "no local maximum" in f]
+    assert "2 of 8 runs" in warning and "2 at n = 40" in warning
+    _synthetic_study(tmp_path / "c", "20,40", lambda n, seed: 1.5, seeds="0-3")  # no flags
+    assert not [f for f in build_report(tmp_path / "c").findings if "no local maximum" in f]

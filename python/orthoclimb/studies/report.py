@@ -29,7 +29,7 @@ from __future__ import annotations
 import itertools
 import math
 import os
-from collections import defaultdict
+from collections import Counter, defaultdict
 from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any
@@ -149,6 +149,10 @@ def build_report(
         raise ValueError(f"the study in {str(folder)!r} has no completed tasks yet")
     k = spec.exponent if exponent is None else float(exponent)  # both checked positive
     data = _groups(rows)
+    # runs whose end point failed the local-maximum check (an iteration cap reached early)
+    unfinished = Counter(
+        (r["mixture"], r["method"], r["n"]) for r in rows if r.get("local_max") is False
+    )
     order = {m.name: i for i, m in enumerate(spec.mixtures)}
     morder = {m.name: i for i, m in enumerate(spec.methods)}
     keys = sorted(data, key=lambda t: (order.get(t[0], 99), morder.get(t[1], 99), t[2]))
@@ -165,6 +169,7 @@ def build_report(
                 "se": se,
                 "count": int(a.size),
                 "sd": float(a.std(ddof=1)) if a.size > 1 else math.nan,
+                "not_local_max": unfinished[(mix, method, n)],
             }
         )
     theory = {}
@@ -325,6 +330,7 @@ def _findings(rep: Report, seeds: dict) -> list[str]:
                 f"ALG = {th['alg']:.4f} by {th['gap_gs_alg']:.4f}, a gap no algorithm of this "
                 "kind is predicted to close."
             )
+    out.extend(_unfinished_runs(rep.groups))
     for f in rep.fits:
         if f.get("value") is None:
             out.append(f"{f['mixture']}, {f['method']}: no extrapolation ({f['note']}).")
@@ -379,6 +385,30 @@ def _findings(rep: Report, seeds: dict) -> list[str]:
                 )
     if rep.missing:
         out.append(f"{rep.missing} task(s) of the study have no result yet; rerun the sweep.")
+    return out
+
+
+def _unfinished_runs(groups: list[dict[str, Any]]) -> list[str]:
+    """A warning per (mixture, method) whose runs include end points that are no local
+    maximum: their energies sit below the maximum the method was heading for, so means,
+    extrapolation and comparisons of that method are biased low."""
+    out = []
+    for (mix, method), members in itertools.groupby(
+        groups, key=lambda g: (g["mixture"], g["method"])
+    ):
+        members = list(members)
+        bad = sum(g.get("not_local_max", 0) for g in members)
+        if bad:
+            total = sum(g["count"] for g in members)
+            where = ", ".join(
+                f"{g['not_local_max']} at n = {g['n']}" for g in members if g["not_local_max"]
+            )
+            out.append(
+                f"{mix}, {method}: WARNING: {bad} of {total} runs ended at no local maximum"
+                f" ({where}); their energies are below the maximum the method was heading for,"
+                " so this method's means and e_inf are biased low. Give it more iterations"
+                " (gradient: --max-iter) or keep its final polish on, and rerun."
+            )
     return out
 
 
