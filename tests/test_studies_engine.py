@@ -194,8 +194,9 @@ def test_unreachable_scheduler_is_a_clear_error(tmp_path, capsys):
     assert "cannot reach the Dask scheduler" in capsys.readouterr().err
     assert time.perf_counter() - start < 30
     # the new study never started: nothing of it stays, so another configuration may use
-    # the folder (before, study.json stayed and the rerun below was refused as a mismatch)
-    assert list((tmp_path / "s").iterdir()) == []
+    # the folder (before, study.json stayed and the rerun below was refused as a mismatch);
+    # the command also removes the folder it made
+    assert not (tmp_path / "s").exists()
     Store.open(tmp_path / "s", _spec("0-2"))
 
 
@@ -205,7 +206,7 @@ def test_a_new_study_refused_before_its_cluster_starts_leaves_nothing(tmp_path, 
     args = ["sweep", "--gammas", "3:1", "--n", "16", "--seeds", "0-1", "--no-progress"]
     assert main([*args, "--workers", "0", "--out", str(tmp_path / "w")]) == 2
     assert "--workers" in capsys.readouterr().err
-    assert list((tmp_path / "w").iterdir()) == []
+    assert not (tmp_path / "w").exists()
     Store.open(tmp_path / "w", _spec("0-2"))
 
 
@@ -443,6 +444,22 @@ def test_ctrl_c_while_the_cluster_starts_stops_the_sweep(tmp_path):
     assert "Traceback" not in err and "KeyboardInterrupt" not in err, err
     assert err.strip() == "orthoclimb sweep: interrupted"
     assert not folder.exists()
+
+
+def test_a_second_sweep_into_a_busy_folder_is_refused(tmp_path):
+    # two sweeps into one folder both ran the unfinished tasks and rewrote rows (a user
+    # review); a sweep now holds the folder (flock), and another is refused at once. The
+    # lock is per open file, so a second holder in this same process conflicts too.
+    from orthoclimb.studies.store import sweep_lock
+
+    folder = tmp_path / "s"
+    spec = spec_from_flags(["2:1"], None, "8", "0-1", "gradient")
+    with sweep_lock(folder):
+        with pytest.raises(ValueError, match="another sweep is running"):
+            run_study(spec, folder, workers=1, progress=False)
+        assert list(folder.iterdir()) == []  # refused before the study was opened
+    out = run_study(spec, folder, workers=1, progress=False)  # released: it runs
+    assert out.done == 2
 
 
 def _worker_sigint() -> tuple[int, bool]:

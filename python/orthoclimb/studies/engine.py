@@ -29,7 +29,7 @@ from typing import Any
 
 from .._core import MAX_THREADS as _MAX_THREADS
 from .grid import StudySpec
-from .store import Store
+from .store import Store, sweep_lock
 from .tasks import Task, run_task
 
 # imported by each worker process of the embedded cluster (replacements included)
@@ -313,8 +313,6 @@ def run_study(
     From a script, call it under ``if __name__ == "__main__":``: the embedded cluster's worker
     processes import the script again, and a call made during that import is refused.
     """
-    from tqdm import tqdm
-
     if _inside_script_reimport():
         # each worker would run the whole study again, in the same folder
         raise RuntimeError(
@@ -343,6 +341,33 @@ def run_study(
     tasks = spec.tasks()
     if scheduler is None:
         _check_largest_fits(spec, tasks)  # before the study folder is created
+    with sweep_lock(folder):  # one sweep per folder
+        return _sweep(
+            spec,
+            tasks,
+            folder,
+            scheduler,
+            (workers, threads, retries, timeout),
+            progress,
+            log,
+            on_start,
+        )
+
+
+def _sweep(
+    spec: StudySpec,
+    tasks: list[Task],
+    folder: str | os.PathLike,
+    scheduler: str | None,
+    settings: tuple[int | None, int | None, int, float],
+    progress: bool | None,
+    log: Callable[[str], Any],
+    on_start: Callable[[list, WorkerPlan | None], Any] | None,
+) -> SweepOutcome:
+    """The sweep of :func:`run_study` once its arguments are checked and the folder is held."""
+    from tqdm import tqdm
+
+    workers, threads, retries, timeout = settings
     store = Store.open(folder, spec)
     try:  # until the cluster is reached, a failure undoes what Store.open did
         pending = store.pending(tasks)

@@ -22,19 +22,26 @@ and/or sizes extends the study: study.json gets the new configuration (and an "e
 of what it grew from) and only the new tasks run. Any other change in the same folder is refused
 (:class:`StudyMismatchError`) rather than mixing two studies. A sweep whose cluster never started
 removes the study it created, or takes back the extension it recorded (:meth:`Store.undo_open`).
+A sweep holds the folder (:func:`sweep_lock`): a second sweep into it is refused.
 """
 
 from __future__ import annotations
 
+import contextlib
 import io
 import json
 import os
-from collections.abc import Iterable
+from collections.abc import Iterable, Iterator
 from datetime import datetime, timezone
 from pathlib import Path
 from typing import Any
 
-from ..fileio import envelope, open_envelope, write_atomic, write_json_atomic
+try:  # POSIX; elsewhere a sweep does not lock its folder
+    import fcntl
+except ImportError:  # pragma: no cover - Windows
+    fcntl = None  # type: ignore[assignment]
+
+from ..fileio import ensure_folder, envelope, open_envelope, write_atomic, write_json_atomic
 from .grid import StudySpec
 
 __all__ = [
@@ -167,6 +174,34 @@ def _checked_row(path: Path, task: Any) -> dict[str, Any]:
     return row
 
 
+@contextlib.contextmanager
+def sweep_lock(folder: str | os.PathLike) -> Iterator[None]:
+    """Hold the study folder for one sweep: an exclusive advisory lock (flock) on the folder
+    itself, made if missing, held until the block ends (also when the process dies: the OS
+    drops the lock). A second sweep into the same folder, from this machine, is refused
+    (ValueError) instead of running the same tasks twice and rewriting study.json under the
+    first. Where the file system does not support flock on a folder, or off POSIX, nothing is
+    locked."""
+    path = ensure_folder(folder, "study folder")
+    if fcntl is None:  # pragma: no cover - Windows
+        yield
+        return
+    fd = os.open(path, os.O_RDONLY)
+    try:
+        try:
+            fcntl.flock(fd, fcntl.LOCK_EX | fcntl.LOCK_NB)
+        except BlockingIOError:
+            raise ValueError(
+                f"another sweep is running in the study folder {str(path)!r}; wait for it to"
+                " end (or stop it), or use another --out folder"
+            ) from None
+        except OSError:  # no flock on this file system (some network mounts): go unlocked
+            pass
+        yield
+    finally:
+        os.close(fd)  # releases the lock
+
+
 class Store:
     """A study folder bound to one configuration (see the module doc)."""
 
@@ -240,9 +275,8 @@ class Store:
         a study it created, and that holds no row or failure record, is removed (study.json
         and the empty rows folder), and an extension it recorded is taken back (study.json
         gets its previous content). The folder then takes another configuration, or the
-        old one, as before. Returns whether anything was undone. One folder takes one sweep
-        at a time: a second sweep that reopened the study in between would lose its
-        study.json or its extension here."""
+        old one, as before. Returns whether anything was undone. A sweep holds the folder
+        (:func:`sweep_lock`), so no second sweep can have reopened the study in between."""
         meta = self.folder / "study.json"
         try:
             if self.grown_from is not None:
