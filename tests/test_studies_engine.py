@@ -611,3 +611,17 @@ def test_a_study_started_from_a_spawned_pool_is_no_reimport(tmp_path):
     )
     assert proc.returncode == 0, proc.stderr
     assert proc.stdout.startswith("ValueError: retries (--retries)"), proc.stdout
+
+
+def test_a_sweep_that_leaves_the_report_behind_says_so(tmp_path, capsys):
+    # after a sweep with --no-report (or an interrupted one) added rows, report.md still
+    # described the old study with nothing to tell (user review); the sweep now says so
+    base = ["sweep", "--gammas", "2:1", "--n", "8,10", "--methods", "gradient", "--workers", "1"]
+    base += ["--out", str(tmp_path / "s"), "--no-progress"]
+    assert main([*base, "--seeds", "0-1"]) == 0
+    assert (tmp_path / "s" / "report.md").is_file()
+    assert "predates" not in capsys.readouterr().out
+    assert main([*base, "--seeds", "0-2", "--no-report"]) == 0
+    assert "predates this sweep's new rows" in capsys.readouterr().out
+    assert main([*base, "--seeds", "0-2", "--no-report"]) == 0  # nothing new: no note
+    assert "predates" not in capsys.readouterr().out

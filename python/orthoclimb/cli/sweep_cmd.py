@@ -15,7 +15,9 @@ more seeds or sizes extends the study (only the new tasks run). At the end the r
 from __future__ import annotations
 
 import argparse
+import sys
 import time
+from pathlib import Path
 from typing import Any
 
 from ..studies.grid import (
@@ -174,19 +176,29 @@ def execute(
         where = " (for one worker of the external cluster)" if plan is None else ""
         say(f"rough time estimate: {est:.0f} s{where}", flush=True)
 
-    start = time.perf_counter()
-    outcome = run_study(
-        spec,
-        out,
-        scheduler=args.scheduler,
-        workers=args.workers,
-        threads=args.threads,
-        retries=args.retries,
-        timeout=args.timeout,
-        progress=None if not args.no_progress else False,  # None: a bar on a terminal only
-        log=say,
-        on_start=on_start,
+    stale = (
+        f"note: the report in {out} (report.md, report.json, plots) predates this sweep's new"
+        f" rows; `orthoclimb report {out}` brings it up to date"
     )
+    had_report = (Path(out) / "report.md").is_file()
+    start = time.perf_counter()
+    try:
+        outcome = run_study(
+            spec,
+            out,
+            scheduler=args.scheduler,
+            workers=args.workers,
+            threads=args.threads,
+            retries=args.retries,
+            timeout=args.timeout,
+            progress=None if not args.no_progress else False,  # None: a bar on a terminal only
+            log=say,
+            on_start=on_start,
+        )
+    except KeyboardInterrupt:  # rows written before the interrupt are not in the old report
+        if had_report:
+            print(stale, file=sys.stderr)
+        raise
     say(
         f"sweep: {outcome.done} tasks run, {outcome.skipped} skipped (already done), "
         f"{outcome.failed} failed, {time.perf_counter() - start:.1f} s"
@@ -200,6 +212,8 @@ def execute(
     if outcome.failed:
         say(f"failed tasks are listed in {out}/failed/; rerun the same command to retry them")
     rep = write_report(out) if report else None
+    if rep is None and had_report and outcome.done:
+        say(stale)
     return outcome, rep
 
 
