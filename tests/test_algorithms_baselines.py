@@ -229,3 +229,15 @@ def test_langevin_noise_diffuses_at_the_stated_temperature():
     mean = float(np.mean(overlaps))
     se = float(np.std(overlaps, ddof=1)) / np.sqrt(seeds)
     assert abs(mean - expected) <= 4.0 * se, (mean, se, expected)
+
+
+@pytest.mark.parametrize(("eta", "t_start"), [(1e300, 1e300), (1e300, 1.0)])
+def test_absurd_langevin_options_are_named_when_the_step_overflows(eta, t_start, recwarn):
+    # a study with eta = 1e300 failed every task with NumPy overflow warnings and
+    # "NonFiniteError: x holds a non-finite value nan" (user review); the error now names
+    # the step, eta and the temperature, and NumPy stays silent
+    ham = oc.Hamiltonian.sample(oc.Mixture({3: 1.0}), 20, seed=1)
+    schedule = geometric_schedule(t_start, t_start / 10, 3)
+    with pytest.raises(ValueError, match=r"step 0 overflowed .*eta = 1e\+300"):
+        oc.langevin_anneal(ham, eta=eta, schedule=schedule)
+    assert not [w for w in recwarn if issubclass(w.category, RuntimeWarning)]

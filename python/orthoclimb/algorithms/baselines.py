@@ -170,7 +170,17 @@ def langevin_anneal(
         rows["energy"].append(e / n)
         rows["grad_norm"].append(float(np.linalg.norm(gr)))
         noise = project_tangent(rng.standard_normal(n), x)
-        x = retract(x + eta * gr + math.sqrt(2.0 * eta * temp / n) * noise)
+        with np.errstate(over="ignore", invalid="ignore"):  # checked just below
+            y = x + eta * gr + math.sqrt(2.0 * eta * float(temp) / n) * noise
+            size = float(np.linalg.norm(y))
+        if not (math.isfinite(size) and size > 0.0):  # absurd options: name them
+            # (before: NumPy overflow warnings, then "x holds a non-finite value nan")
+            raise ValueError(
+                f"the Langevin step {k} overflowed float64 with eta = {eta!r} and temperature"
+                f" T = {float(temp)!r} (the step is eta * gradient + sqrt(2 eta T / n) * noise);"
+                " use a smaller eta or temperature"
+            )
+        x = retract(y)  # the same division by |y|, of a finite nonzero y
         if callback is not None:
             callback({"step": k, "q": 1.0, "energy": e / n, "temperature": float(temp)})
     energy = ham.energy(x) / n
