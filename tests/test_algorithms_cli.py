@@ -179,3 +179,18 @@ def test_a_failed_command_leaves_no_empty_output_folder(tmp_path, monkeypatch, c
     assert main([*climb, "--out", str(tmp_path / "c")]) == 1
     assert sorted(p.name for p in (tmp_path / "c").iterdir()) == ["result.json", "result.npz"]
     capsys.readouterr()
+
+
+@pytest.mark.parametrize("method", ["hessian", "anneal"])
+def test_climb_shows_the_energy_before_polish_only_when_it_polished(tmp_path, capsys, method):
+    # with --no-polish the table printed a "before polish" line equal to the energy (user
+    # review); anneal's pre-polish energy was not shown at all
+    base = ["climb", "--gammas", "3:1", "--n", "20", "--method", method, "--no-progress"]
+    base += ["--json", "--out", str(tmp_path / method)]
+    assert main(base) == 0
+    polished = json.loads(capsys.readouterr().out)
+    key = "energy_ascent" if method == "hessian" else "energy_anneal"
+    result = oc.load_result(tmp_path / method / "result")
+    assert polished["energy_before_polish"] == result.info[key]
+    assert main([*base, "--no-polish"]) == 0
+    assert "energy_before_polish" not in json.loads(capsys.readouterr().out)

@@ -433,6 +433,14 @@ def test_a_time_that_grows_more_slowly_than_n_is_flagged_as_fixed_costs(tmp_path
     assert "fixed per-run costs" in line and "grows like" not in line
     write_report(tmp_path / "f", plots=False)
     assert "| (0.50) |" in (tmp_path / "f" / "report.md").read_text()
+    # times that fall with n (the quick demo's n^-0.44) are not said to grow
+    for t in spec.tasks():
+        row = {"task_id": t.task_id, "mixture": t.mixture.name, "method": t.method.name}
+        row.update(n=t.n, seed=t.seed, energy=1.5, seconds_run=1e-3 * t.n**-0.5)
+        store.row_path(t.task_id).unlink()
+        store.write_row({**row, "seconds_sample": 1e-4})
+    (line,) = [f for f in build_report(tmp_path / "f").findings if "median time" in f]
+    assert "falls as n grows (n^-0.50)" in line and "grows" not in line.replace("n grows", "")
 
 
 def test_ties_are_still_counted_when_the_ground_state_is_unknown(tmp_path, monkeypatch):

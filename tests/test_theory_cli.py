@@ -93,6 +93,19 @@ def test_plot_for_a_linear_mixture(tmp_path):
     assert target.stat().st_size > 0
 
 
+def test_the_plot_format_follows_the_suffix(tmp_path, capsys):
+    # --plot th.jpg wrote PNG data into a .jpg file (user review); matplotlib writes the
+    # format the suffix names, and a suffix it cannot write is refused before the solve
+    assert main(["theory", "--gammas", "3:1", "--plot", str(tmp_path / "t.pdf")]) == 0
+    assert (tmp_path / "t.pdf").read_bytes()[:5] == b"%PDF-"
+    assert main(["theory", "--gammas", "3:1", "--plot", str(tmp_path / "t.svg")]) == 0
+    assert b"<svg" in (tmp_path / "t.svg").read_bytes()[:2000]
+    capsys.readouterr()
+    assert main(["theory", "--gammas", "3:1", "--plot", str(tmp_path / "t.xyz")]) == 2
+    assert "no format 'xyz'" in capsys.readouterr().err
+    assert not (tmp_path / "t.xyz").exists()
+
+
 def test_plot_into_a_missing_folder_is_an_error(tmp_path, capsys):
     target = tmp_path / "nowhere" / "x.png"
     assert main(["theory", "--gammas", "3:1", "--plot", str(target)]) == 2

@@ -115,8 +115,10 @@ def _summary(
         "files": files,
         "units": "energy per spin H(x)/n on the unit sphere, maximization",
     }
+    before = {"hessian": "energy_ascent", "anneal": "energy_anneal"}.get(result.method)
+    if before is not None and result.config.get("polish"):  # no line equal to the energy
+        out["energy_before_polish"] = info[before]
     if result.method == "hessian":
-        out["energy_before_polish"] = info["energy_ascent"]
         out["q_hat"] = info.get("q_hat")
     return out
 

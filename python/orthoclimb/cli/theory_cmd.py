@@ -138,10 +138,20 @@ def _table(report: dict[str, Any]) -> str:
 
 
 def _check_plot_path(path: str) -> None:
-    """Refuse a plot whose folder does not exist, before any work starts."""
+    """Refuse, before any work starts, a plot whose folder does not exist or whose suffix names
+    a format matplotlib cannot write (no suffix: PNG)."""
+    from matplotlib.figure import Figure
+
     folder = os.path.dirname(os.path.abspath(path))
     if not os.path.isdir(folder):
         raise ValueError(f"cannot write the plot {path!r}: folder {folder!r} does not exist")
+    suffix = os.path.splitext(path)[1].lstrip(".").lower()
+    formats = Figure().canvas.get_supported_filetypes()
+    if suffix and suffix not in formats:
+        raise ValueError(
+            f"cannot write the plot {path!r}: matplotlib has no format {suffix!r}; use one of"
+            f" {', '.join(sorted(formats))}"
+        )
 
 
 def _plot(mixture: Mixture, report: dict[str, Any], path: str) -> None:
@@ -171,7 +181,10 @@ def _plot(mixture: Mixture, report: dict[str, Any], path: str) -> None:
         ax1.axvline(q_hat, color="0.4", ls="--", lw=1, label=f"q_hat = {q_hat:.3g}")
     ax1.set_xlim(0.0, 1.0)
     ax1.set_xlabel("q")
-    ax1.set_title("full-RSB criterion: " + ("holds" if verdict["holds"] else "fails"))
+    state = "holds" if verdict["holds"] else "fails"
+    if verdict["linear"]:  # as the text output says: there is nothing to be concave
+        state = "no full-RSB region (linear xi)"
+    ax1.set_title("full-RSB criterion: " + state)
     if ax1.get_legend_handles_labels()[0]:
         ax1.legend(loc="best", fontsize=9)
 
@@ -201,7 +214,7 @@ def _plot(mixture: Mixture, report: dict[str, Any], path: str) -> None:
     ax3.set_title(f"zero-temperature Parisi alpha, B = {gs['B']:.4g}")
     ax3.legend(loc="best", fontsize=9)
 
-    save_figure_atomic(fig, path, format="png")
+    save_figure_atomic(fig, path)  # the format follows the suffix (PNG without one)
 
 
 def run(args: argparse.Namespace) -> int:

@@ -38,6 +38,7 @@ import numpy as np
 
 from ..fileio import save_figure_atomic, write_json_atomic, write_text_atomic
 from .cost import cost_markdown, cost_table
+from .engine import counted
 from .extrapolate import Extrapolation, check_interval, e_inf_under, extrapolate
 from .grid import StudySpec
 from .store import Store, read_config
@@ -372,9 +373,10 @@ def _findings(rep: Report, seeds: dict) -> list[str]:
             sizes = f"{c['sizes'][0]}..{c['sizes'][-1]}"
             span = f"over n = {sizes} ({ends[0]:.3g} s to {ends[-1]:.3g} s"
             if c.get("fixed_cost_bound"):
+                trend = "falls as n grows" if c["exponent"] < 0 else "grows more slowly than n"
                 out.append(
-                    f"{c['mixture']}, {c['method']}: a run's median time grows more slowly than"
-                    f" n (n^{c['exponent']:.2f}) {span}): at these sizes fixed per-run costs,"
+                    f"{c['mixture']}, {c['method']}: a run's median time {trend}"
+                    f" (n^{c['exponent']:.2f}) {span}): at these sizes fixed per-run costs,"
                     " not the kernel passes, set it; larger n are needed to measure how the"
                     " method scales."
                 )
@@ -464,10 +466,10 @@ def _markdown(rep: Report) -> str:
         "z = (e_inf - theory)/s.e.(e_inf). The interval is statistical only; the last column "
         "gives e_inf under other exponents of the law, to show how much the choice of law "
         "moves it. Head-to-head comparisons pair the methods seed by seed: on each instance "
-        "both start from the same seeded random direction, and runs within "
-        f"{TIE_RELATIVE:.0e} GS of each other count as the same point (a tie).",
+        "both start from the same seeded random direction, and runs whose energies differ "
+        f"by at most {TIE_RELATIVE:.0e} x GS count as the same point (a tie).",
         "",
-        f"Sizes {list(spec.sizes)}, {len(spec.seeds)} seeds, methods "
+        f"Sizes {list(spec.sizes)}, {counted(len(spec.seeds), 'seed')}, methods "
         + ", ".join(
             f"{m.name} ({', '.join(f'{k}={v}' for k, v in m.options)})" for m in spec.methods
         )
