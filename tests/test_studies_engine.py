@@ -10,6 +10,8 @@ import signal
 import subprocess
 import sys
 import time
+from collections.abc import Callable
+from typing import Any
 
 import pyarrow.parquet as pq
 import pytest
@@ -393,15 +395,30 @@ def test_ctrl_c_stops_the_sweep_without_worker_tracebacks(tmp_path):
     # worker processes get it too; they used to die printing ~70 lines of tracebacks. Only the
     # sweep's one-line message may remain, with the shell's status for SIGINT (128 + 2).
     folder = tmp_path / "s"
-    cmd = [sys.executable, "-m", "orthoclimb", "sweep", "--gammas", "3:1", "--n", "40,60"]
-    cmd += ["--seeds", "0-199", "--methods", "hessian", "--steps", "30", "--workers", "2"]
-    cmd += ["--out", str(folder), "--no-progress", "--no-report"]
-    proc = subprocess.Popen(
-        cmd, stdout=subprocess.DEVNULL, stderr=subprocess.PIPE, start_new_session=True, text=True
+    args = ["--gammas", "3:1", "--n", "40,60", "--seeds", "0-199", "--methods", "hessian"]
+    args += ["--steps", "30", "--workers", "2", "--out", str(folder), "--no-progress"]
+    _interrupted_sweep(
+        [*args, "--no-report"], lambda proc: _wait_for_rows(proc, folder / "rows", 2, "Ctrl-C")
     )
-    rows = folder / "rows"
+
+
+def _interrupted_sweep(args: list[str], wait: Callable[[subprocess.Popen], Any]) -> None:
+    """Run ``orthoclimb sweep ARGS`` in a process group of its own, send the group SIGINT (as
+    Ctrl-C in a terminal does) once ``wait(proc)`` returns, and check that the sweep stopped
+    with its one line and the shell's status for SIGINT (128 + 2), and that neither it nor a
+    worker printed a traceback."""
+    cmd = [sys.executable, "-m", "orthoclimb", "sweep", *args]
+    env = {**os.environ, "PYTHONUNBUFFERED": "1"}  # stdout lines arrive as printed
+    proc = subprocess.Popen(
+        cmd,
+        stdout=subprocess.PIPE,
+        stderr=subprocess.PIPE,
+        start_new_session=True,
+        text=True,
+        env=env,
+    )
     try:
-        _wait_for_rows(proc, rows, 2, "the interrupt")
+        wait(proc)
         os.killpg(proc.pid, signal.SIGINT)
         _, err = proc.communicate(timeout=60)
     finally:
@@ -419,30 +436,15 @@ def test_ctrl_c_while_the_cluster_starts_stops_the_sweep(tmp_path):
     # start is over: the sweep stops with its one line and 130, no worker prints a traceback,
     # and the new study folder, with nothing run, is removed.
     folder = tmp_path / "s"
-    cmd = [sys.executable, "-m", "orthoclimb", "sweep", "--gammas", "3:1", "--n", "40,60"]
-    cmd += ["--seeds", "0-99", "--methods", "gradient", "--workers", "2"]
-    cmd += ["--out", str(folder), "--no-progress", "--no-report"]
-    env = {**os.environ, "PYTHONUNBUFFERED": "1"}  # the plan lines arrive as printed
-    proc = subprocess.Popen(
-        cmd,
-        stdout=subprocess.PIPE,
-        stderr=subprocess.PIPE,
-        start_new_session=True,
-        text=True,
-        env=env,
-    )
-    try:
+    args = ["--gammas", "3:1", "--n", "40,60", "--seeds", "0-99", "--methods", "gradient"]
+    args += ["--workers", "2", "--out", str(folder), "--no-progress", "--no-report"]
+
+    def until_the_cluster_starts(proc: subprocess.Popen) -> None:
         for line in proc.stdout:  # printed just before the cluster starts
             if line.startswith("embedded Dask cluster"):
-                break
-        os.killpg(proc.pid, signal.SIGINT)
-        _, err = proc.communicate(timeout=60)
-    finally:
-        if proc.poll() is None:
-            os.killpg(proc.pid, signal.SIGKILL)
-    assert proc.returncode == 130, err
-    assert "Traceback" not in err and "KeyboardInterrupt" not in err, err
-    assert err.strip() == "orthoclimb sweep: interrupted"
+                return
+
+    _interrupted_sweep(args, until_the_cluster_starts)
     assert not folder.exists()
 
 
