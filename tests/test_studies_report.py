@@ -550,3 +550,19 @@ def test_runs_that_stopped_before_a_local_maximum_are_flagged(tmp_path):
     assert "2 of 8 runs" in warning and "2 at n = 40" in warning
     _synthetic_study(tmp_path / "c", "20,40", lambda n, seed: 1.5, seeds="0-3")  # no flags
     assert not [f for f in build_report(tmp_path / "c").findings if "no local maximum" in f]
+
+
+def test_the_grid_line_names_own_sizes_and_the_storage_type():
+    # the report's header said "Sizes [30, 45]" for a study whose first mixture ran at
+    # [20, 40], said nothing of float32, and wrote "1 seeds" (user review)
+    from orthoclimb.studies.grid import MethodSpec, MixtureSpec, StudySpec
+    from orthoclimb.studies.report import _grid_line
+
+    a = MixtureSpec.make(Mixture({3: 1.0}), "a", "20,40")
+    b = MixtureSpec.make(Mixture({2: 1.0}), "b")
+    gradient = MethodSpec.make("gradient", {})
+    line = _grid_line(StudySpec((a, b), (30, 45), (0,), (gradient,), dtype="float32"))
+    assert line.startswith("Sizes [30, 45]; a: [20, 40]; 1 seed; float32 storage")
+    assert "methods gradient (" in line
+    line = _grid_line(StudySpec((a,), (30, 45), (0, 1), (gradient,)))
+    assert line.startswith("Sizes; a: [20, 40]; 2 seeds; float64; methods")

@@ -452,6 +452,22 @@ def _head_to_head(mix: str, a: str, b: str, seeds: dict, th: dict[str, Any]) -> 
     )
 
 
+def _grid_line(spec: StudySpec) -> str:
+    """The study grid in one sentence: sizes (a mixture's own, where it has them), seeds,
+    storage type and methods with their options."""
+    own = [m for m in spec.mixtures if m.sizes and tuple(m.sizes) != tuple(spec.sizes)]
+    sizes = f"Sizes {list(spec.sizes)}"
+    if own:
+        if len(own) == len(spec.mixtures):
+            sizes = "Sizes"
+        sizes += "".join(f"; {m.name}: {list(m.sizes)}" for m in own)
+    methods = ", ".join(
+        f"{m.name} ({', '.join(f'{k}={v}' for k, v in m.options)})" for m in spec.methods
+    )
+    storage = "float32 storage (float64 arithmetic)" if spec.dtype == "float32" else "float64"
+    return f"{sizes}; {counted(len(spec.seeds), 'seed')}; {storage}; methods {methods}."
+
+
 def _markdown(rep: Report) -> str:
     spec = rep.spec
     lvl = int(round(100 * rep.spec_level()))
@@ -469,11 +485,7 @@ def _markdown(rep: Report) -> str:
         "both start from the same seeded random direction, and runs whose energies differ "
         f"by at most {TIE_RELATIVE:.0e} x GS count as the same point (a tie).",
         "",
-        f"Sizes {list(spec.sizes)}, {counted(len(spec.seeds), 'seed')}, methods "
-        + ", ".join(
-            f"{m.name} ({', '.join(f'{k}={v}' for k, v in m.options)})" for m in spec.methods
-        )
-        + ".",
+        _grid_line(spec),
         "",
         "## Findings",
         "",
