@@ -615,7 +615,7 @@ def test_a_study_started_from_a_spawned_pool_is_no_reimport(tmp_path):
     assert proc.stdout.startswith("ValueError: retries (--retries)"), proc.stdout
 
 
-def test_a_sweep_that_leaves_the_report_behind_says_so(tmp_path, capsys):
+def test_a_sweep_that_leaves_the_report_behind_says_so(tmp_path, capsys, monkeypatch):
     # after a sweep with --no-report (or an interrupted one) added rows, report.md still
     # described the old study with nothing to tell (user review); the sweep now says so
     base = ["sweep", "--gammas", "2:1", "--n", "8,10", "--methods", "gradient", "--workers", "1"]
@@ -627,3 +627,29 @@ def test_a_sweep_that_leaves_the_report_behind_says_so(tmp_path, capsys):
     assert "predates this sweep's new rows" in capsys.readouterr().out
     assert main([*base, "--seeds", "0-2", "--no-report"]) == 0  # nothing new: no note
     assert "predates" not in capsys.readouterr().out
+
+    def interrupted(*args, **kwargs):
+        raise KeyboardInterrupt
+
+    # a Ctrl-C before any new row: one line, no note (the note used to come on any Ctrl-C)
+    monkeypatch.setattr("orthoclimb.studies.engine.run_study", interrupted)
+    assert main([*base, "--seeds", "0-3"]) == 130
+    assert capsys.readouterr().err.strip() == "orthoclimb sweep: interrupted"
+
+
+def test_the_table_keeps_every_field_of_rows_from_older_versions(tmp_path):
+    # pyarrow's from_pylist takes its columns from the first row: a study extended by this
+    # version after an older one wrote its first rows lost the new start_seed column (a
+    # review); a number missing in every row (no converged ground state) is a float column
+    import pyarrow.parquet as pq
+
+    spec = spec_from_flags(["3:1"], None, "16", "0-1", "gradient")
+    store = Store.open(tmp_path / "s", spec)
+    for t in spec.tasks():
+        row = {"task_id": t.task_id, "mixture": t.mixture.name, "method": t.method.name}
+        row.update(n=t.n, seed=t.seed, energy=1.5, ground_state=None)
+        store.write_row({**row, "start_seed": t.seed} if t.seed == 1 else row)
+    store.write_table()
+    table = pq.read_table(tmp_path / "s" / "results.parquet")
+    assert table.column("start_seed").to_pylist() == [None, 1]
+    assert str(table.schema.field("ground_state").type) == "double"

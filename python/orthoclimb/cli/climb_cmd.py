@@ -42,7 +42,8 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
         type=int,
         default=0,
         help="seed of the start point / noise (default 0; a sweep starts each run from its"
-        " disorder seed, so --start-seed equal to --seed reruns a sweep's row)",
+        " disorder seed, so --start-seed equal to --seed reruns a sweep's row made with the"
+        " default method options and the same --dtype)",
     )
     parser.add_argument("--method", choices=METHODS, default="hessian", help="default hessian")
     parser.add_argument(

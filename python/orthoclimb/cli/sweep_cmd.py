@@ -181,6 +181,12 @@ def execute(
         f" rows; `orthoclimb report {out}` brings it up to date"
     )
     had_report = (Path(out) / "report.md").is_file()
+    rows = Path(out) / "rows"
+
+    def row_count() -> int:
+        return sum(1 for _ in rows.glob("*.json")) if rows.is_dir() else 0
+
+    rows_before = row_count()
     start = time.perf_counter()
     try:
         outcome = run_study(
@@ -196,7 +202,7 @@ def execute(
             on_start=on_start,
         )
     except KeyboardInterrupt:  # rows written before the interrupt are not in the old report
-        if had_report:
+        if had_report and row_count() > rows_before:
             print(stale, file=sys.stderr)
         raise
     say(

@@ -177,33 +177,41 @@ def _probe(scheduler: str, timeout: float) -> None:
 
 @contextlib.contextmanager
 def _interrupts_held():
-    """Hold SIGINT (block it) while the embedded cluster starts its worker processes, which
-    inherit the blocked signal; on leaving, an interrupt that came meanwhile is delivered.
+    """Hold SIGINT while the embedded cluster starts its worker processes: a Ctrl-C that comes
+    meanwhile is recorded and raised as KeyboardInterrupt when the block is left, after the
+    start (so the caller has a cluster to close), not in the middle of it.
 
     Ctrl-C in a terminal signals the whole process group: the workers used to die printing
-    about 70 lines of tracebacks while the sweep itself was already stopping them cleanly. A
-    worker starts with SIGINT blocked, inherited across fork and exec, and the preload module
-    ``worker_signals`` then ignores it for good, which discards one still pending; a worker
-    Dask starts later to replace a dead one ignores it from that import on. The sweep itself
-    only defers the signal: before, it ignored SIGINT during the start too, and a Ctrl-C in
-    that second or two was lost, so the sweep ran to its end and exited 0 (8 of 8 tries of
-    a user review). Off the main thread signals cannot be changed, and nothing is done."""
-    if threading.current_thread() is not threading.main_thread():
+    about 70 lines of tracebacks while the sweep itself was already stopping them cleanly.
+    SIGINT is blocked in the main thread, so the threads Dask creates now, and the worker
+    processes they spawn, inherit it blocked; the preload module ``worker_signals`` then
+    ignores it for good, which discards one still pending (a worker Dask starts later to
+    replace a dead one ignores it from that import on). Threads that existed before (the
+    kernels' pool, say) still take SIGINT, so the main thread's handler only records it
+    during the start. Before, the sweep ignored SIGINT during the start, and a Ctrl-C in that
+    second or two was lost: the sweep ran to its end and exited 0 (8 of 8 tries of a user
+    review). Off the main thread, or without pthread_sigmask (Windows), nothing is done."""
+    if threading.current_thread() is not threading.main_thread() or not hasattr(
+        signal, "pthread_sigmask"
+    ):
         yield
         return
-    # The worker processes are spawned from Dask's threads, which inherit the mask of the
-    # thread that creates them; but multiprocessing's resource tracker, started with the first
-    # spawned process, unblocks SIGINT in the thread that starts it (SIG_UNBLOCK, not a
-    # restore), and the workers then started with SIGINT deliverable. Started here first, it
-    # is already running then and leaves the masks alone.
+    # multiprocessing's resource tracker, started with the first spawned process, unblocks
+    # SIGINT (SIG_UNBLOCK, not a restore) in the thread that starts it, and the workers then
+    # started with SIGINT deliverable; started here first, it leaves the masks alone.
     from multiprocessing import resource_tracker
 
     resource_tracker.ensure_running()
-    old = signal.pthread_sigmask(signal.SIG_BLOCK, {signal.SIGINT})
+    came: list[int] = []
+    old_handler = signal.signal(signal.SIGINT, lambda signum, frame: came.append(signum))
+    old_mask = signal.pthread_sigmask(signal.SIG_BLOCK, {signal.SIGINT})
     try:
         yield
     finally:
-        signal.pthread_sigmask(signal.SIG_SETMASK, old)
+        signal.pthread_sigmask(signal.SIG_SETMASK, old_mask)  # a pending one is recorded now
+        signal.signal(signal.SIGINT, old_handler)
+    if came:
+        raise KeyboardInterrupt
 
 
 def _connect(scheduler: str | None, plan: WorkerPlan, timeout: float):

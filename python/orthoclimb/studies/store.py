@@ -370,9 +370,16 @@ class Store:
         import pyarrow.parquet as pq
 
         rows = self.rows()
-        table = (
-            pa.Table.from_pylist(rows) if rows else pa.table({"task_id": pa.array([], pa.string())})
-        )
+        if rows:
+            # every field of every row: from_pylist takes the columns of the first row only,
+            # so rows of an older version (no start_seed) would drop a newer field
+            fields = list(dict.fromkeys(k for r in rows for k in r))
+            table = pa.Table.from_pylist([{k: r.get(k) for k in fields} for r in rows])
+            for i, column in enumerate(table.schema):  # a number missing in every row (null)
+                if pa.types.is_null(column.type):  # stays a number column, not Arrow's null
+                    table = table.set_column(i, column.name, table.column(i).cast(pa.float64()))
+        else:
+            table = pa.table({"task_id": pa.array([], pa.string())})
         buf = io.BytesIO()
         pq.write_table(table, buf)
         parquet = write_atomic(self.folder / "results.parquet", lambda fh: fh.write(buf.getvalue()))

@@ -8,12 +8,14 @@ The task id is the first 16 hex digits of SHA-256 of the canonical JSON of the c
 (sorted keys, ``repr``-exact floats), so it is stable across runs, machines and Python versions.
 
 Row fields (one row per task; energies per spin e = H(x)/n, maximization):
-``task_id``, ``mixture`` (name), ``gammas`` (text p:gamma,...), ``n``, ``seed``, ``method``,
-``options`` (JSON), ``dtype``, ``energy``, ``energy_before_polish`` (Hessian ascent, anneal),
-``alg``, ``ground_state`` (Parisi GS, NaN when the solver does not converge), ``gap_alg`` =
-energy - ALG, ``gap_gs`` = energy - GS, ``local_max``, ``grad_norm`` (|P grad H|/n),
-``seconds_sample``, ``seconds_run`` (wall seconds), ``threads`` (rayon threads used),
-``version`` (orthoclimb), ``worker`` (host:pid), ``finished`` (UTC ISO time).
+``task_id``, ``mixture`` (name), ``gammas`` (text p:gamma,...), ``n``, ``seed``,
+``start_seed`` (the start point's seed, equal to ``seed``), ``method``, ``options`` (JSON),
+``dtype``, ``energy``, ``energy_before_polish`` (Hessian ascent, anneal), ``alg``,
+``ground_state`` (Parisi GS; NaN in memory, null in the row file and the table, when the
+solver does not converge), ``gap_alg`` = energy - ALG, ``gap_gs`` = energy - GS,
+``local_max``, ``grad_norm`` (|P grad H|/n), ``seconds_sample``, ``seconds_run`` (wall
+seconds), ``threads`` (rayon threads used), ``version`` (orthoclimb), ``worker`` (host:pid),
+``finished`` (UTC ISO time).
 """
 
 from __future__ import annotations
