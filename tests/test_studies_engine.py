@@ -653,3 +653,32 @@ def test_the_table_keeps_every_field_of_rows_from_older_versions(tmp_path):
     table = pq.read_table(tmp_path / "s" / "results.parquet")
     assert table.column("start_seed").to_pylist() == [None, 1]
     assert str(table.schema.field("ground_state").type) == "double"
+
+
+def test_the_hold_raises_a_ctrl_c_after_its_block_not_inside_it():
+    # a review found that blocking SIGINT in the main thread alone did not hold it: another
+    # thread (the kernels' pool, here a fresh one) took the signal and KeyboardInterrupt came
+    # in the middle of the cluster's start. Inside the hold the signal is only recorded.
+    import threading
+
+    from orthoclimb.studies.engine import _interrupts_held
+
+    other = threading.Thread(target=time.sleep, args=(1.0,))  # SIGINT deliverable there
+    other.start()
+    reached_the_end = False
+    with pytest.raises(KeyboardInterrupt):
+        with _interrupts_held():
+            os.kill(os.getpid(), signal.SIGINT)
+            time.sleep(0.2)  # time for the handler to run, inside the block
+            reached_the_end = True
+    assert reached_the_end
+    assert signal.getsignal(signal.SIGINT) is signal.default_int_handler  # restored
+    # a process that ignores SIGINT (a background job of a script) keeps ignoring it
+    old = signal.signal(signal.SIGINT, signal.SIG_IGN)
+    try:
+        with _interrupts_held():
+            os.kill(os.getpid(), signal.SIGINT)
+            time.sleep(0.1)
+    finally:
+        signal.signal(signal.SIGINT, old)
+    other.join()

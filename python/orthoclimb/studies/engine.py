@@ -190,10 +190,13 @@ def _interrupts_held():
     kernels' pool, say) still take SIGINT, so the main thread's handler only records it
     during the start. Before, the sweep ignored SIGINT during the start, and a Ctrl-C in that
     second or two was lost: the sweep ran to its end and exited 0 (8 of 8 tries of a user
-    review). Off the main thread, or without pthread_sigmask (Windows), nothing is done."""
-    if threading.current_thread() is not threading.main_thread() or not hasattr(
-        signal, "pthread_sigmask"
-    ):
+    review). Off the main thread, without pthread_sigmask (Windows) or where SIGINT is already
+    ignored, nothing is done."""
+    # already ignored (say, `orthoclimb sweep ... &` in a script): the workers inherit that,
+    # and no Ctrl-C is to be counted
+    ignored = signal.getsignal(signal.SIGINT) is signal.SIG_IGN
+    main = threading.current_thread() is threading.main_thread()
+    if not main or not hasattr(signal, "pthread_sigmask") or ignored:
         yield
         return
     # multiprocessing's resource tracker, started with the first spawned process, unblocks
