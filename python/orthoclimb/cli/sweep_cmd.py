@@ -149,6 +149,7 @@ def execute(
     from ..studies.engine import counted, run_study
     from ..studies.estimate import estimate_seconds, largest_instance
     from ..studies.report import write_report
+    from ..studies.store import Store
 
     def on_start(pending: list, plan) -> None:
         total = len(spec.tasks())
@@ -181,12 +182,7 @@ def execute(
         f" rows; `orthoclimb report {out}` brings it up to date"
     )
     had_report = (Path(out) / "report.md").is_file()
-    rows = Path(out) / "rows"
-
-    def row_count() -> int:
-        return sum(1 for _ in rows.glob("*.json")) if rows.is_dir() else 0
-
-    rows_before = row_count()
+    done_before = Store(out, spec).completed_ids()
     start = time.perf_counter()
     try:
         outcome = run_study(
@@ -202,7 +198,7 @@ def execute(
             on_start=on_start,
         )
     except KeyboardInterrupt:  # rows written before the interrupt are not in the old report
-        if had_report and row_count() > rows_before:
+        if had_report and Store(out, spec).completed_ids() - done_before:
             print(stale, file=sys.stderr)
         raise
     say(

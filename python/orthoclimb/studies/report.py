@@ -399,7 +399,7 @@ def _unfinished_runs(groups: list[dict[str, Any]]) -> list[str]:
         groups, key=lambda g: (g["mixture"], g["method"])
     ):
         members = list(members)
-        bad = sum(g.get("not_local_max", 0) for g in members)
+        bad = sum(g["not_local_max"] for g in members)
         if bad:
             total = sum(g["count"] for g in members)
             where = ", ".join(

@@ -79,6 +79,9 @@ _JUMP_RTOL = 1e-10
 # (xi = 2.25 q + q^3) made it count as a step of a continuous part, so it was never moved and
 # the solve reported converged 8e-10 above the optimum at tol 1e-11.
 _RAMP_RATIO = 1e-3
+# A jump of alpha (or its start, _start_later) moves this fraction of the way to its estimated
+# best place, the first that lowers P: the estimate is first order in the jump's height.
+_MOVE_FRACTIONS = (1.0, 0.5, 0.25, 0.125)
 # Increments below this fraction of 1 + max alpha are candidates for removal by _tidy.
 _TIDY_RTOL = 1e-6
 # Points per piece where D is sampled next to a step of a continuous part of alpha.
@@ -443,7 +446,7 @@ def _move_jumps(
     for i in np.flatnonzero(wanted):  # in order, so neighbours that moved are respected
         j = jumps[i]
         margin = 1e-6 * (q[j + 1] - q[j - 1])
-        for frac in (1.0, 0.5, 0.25, 0.125):
+        for frac in _MOVE_FRACTIONS:
             t = q[j] + frac * (places[i] - q[j])
             if not q[j - 1] + margin < t < q[j + 1] - margin:
                 continue
@@ -494,7 +497,7 @@ def _start_later(grid: _Grid, theta: np.ndarray, value: float, place: float):
     place found by :func:`_level_at_zero` or a half, quarter or eighth of it, whichever first
     lowers P; None when none does (then the first piece is split as usual)."""
     q1 = float(grid.q[1])
-    for frac in (1.0, 0.5, 0.25, 0.125):
+    for frac in _MOVE_FRACTIONS:
         t = frac * place
         if not 1e-6 * q1 < t < (1.0 - 1e-6) * q1:
             continue
