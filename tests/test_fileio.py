@@ -4,6 +4,7 @@ from __future__ import annotations
 
 import os
 import stat
+from pathlib import Path
 
 import numpy as np
 import pytest
@@ -177,3 +178,22 @@ def test_json_files_are_strict_json(tmp_path):
     write_json_atomic(tmp_path / "a.json", data)
     assert strict_json_loads((tmp_path / "a.json").read_text()) == want
     assert strict_json_loads(json_text(data, indent=None)) == want
+
+
+def test_a_failed_command_keeps_a_folder_another_process_made(tmp_path, monkeypatch):
+    # two sweeps started at once on one new folder: both saw it missing, the second's mkdir
+    # found it made by the first; the refused second must not remove the folder the first has
+    # just locked (before, both noted it as their own and the failing one removed it)
+    from orthoclimb import fileio
+
+    theirs = tmp_path / "study"
+    theirs.mkdir()  # made by the other process after our lexists check
+    seen_missing = {theirs, theirs / "sub"}
+    real = os.path.lexists
+    monkeypatch.setattr(
+        fileio.os.path, "lexists", lambda p: False if Path(p) in seen_missing else real(p)
+    )
+    with pytest.raises(RuntimeError), fileio.undone_on_failure():
+        ensure_folder(theirs / "sub")
+        raise RuntimeError("refused")
+    assert theirs.is_dir() and not (theirs / "sub").exists()  # ours removed, theirs kept

@@ -63,6 +63,21 @@ def undone_on_failure() -> Iterator[None]:
         _made_folders.reset(token)
 
 
+def _make_noting(folder: Path, made: list[Path]) -> None:
+    """Make the missing folders of ``folder``'s chain, outermost first, noting in ``made`` only
+    those this call's own mkdir created: a folder another process made in between (two
+    commands started at once on one new path) is not ours to remove."""
+    missing = [f for f in (folder, *folder.parents) if not os.path.lexists(f)]
+    for f in reversed(missing):
+        try:
+            f.mkdir()
+        except FileExistsError:
+            if not f.is_dir():
+                raise
+            continue
+        made.append(f)
+
+
 def ensure_folder(path: str | os.PathLike, what: str = "output folder") -> Path:
     """Create the folder ``path`` and its parents (if missing) and return it, or raise
     :class:`~orthoclimb.errors.OutputPathError` naming the path. Commands call it before their
@@ -71,10 +86,9 @@ def ensure_folder(path: str | os.PathLike, what: str = "output folder") -> Path:
     fails."""
     folder = Path(path)
     made = _made_folders.get()
-    if made is not None:  # the missing ones, outermost first, as mkdir makes them
-        missing = [f for f in (folder, *folder.parents) if not os.path.lexists(f)]
-        made.extend(reversed(missing))
     try:
+        if made is not None:
+            _make_noting(folder, made)
         folder.mkdir(parents=True, exist_ok=True)
     except (FileExistsError, NotADirectoryError):
         raise OutputPathError(
