@@ -6,16 +6,42 @@ standard errors s_j over seeds, the weighted least-squares fit minimizes
 sum_j (m_j - e_inf - a x_j)^2 / s_j^2 (closed-form normal equations, :func:`_wls_line`).
 
 Confidence interval: bootstrap over disorder samples. Each replicate resamples the seeds of
-every size with replacement (independently per size), recomputes the means, and refits with the
-original weights; the interval is the central ``level`` percentile range of the replicate
-e_inf values. Each replicate is refitted with its own weights 1/s_j*^2, so the interval also
-carries the uncertainty of the estimated weights, and the resampled values are inflated by
-sqrt(m/(m-1)) around the sample mean (m = seeds at that size) so their spread matches the
-unbiased variance; without these two a bootstrap over few seeds is too narrow (measured
-coverage of a nominal 90% interval with 5 seeds per size: 0.76 without; with them 0.893 over
-10,000 synthetic studies, 0.887-0.908 across generator seeds, still a little short at 5 seeds).
-``se`` is the standard deviation of the replicates.
-The interval covers statistical error only; ``chi2``/``dof`` of the fit flag a wrong law.
+every size with replacement (independently per size), recomputes the means, and refits with
+its own weights 1/s_j*^2, so the interval also carries the uncertainty of the estimated
+weights; the resampled values are inflated by sqrt(m/(m-1)) around the sample mean (m = seeds
+at that size) so their spread matches the unbiased variance. ``se`` is the standard deviation
+of the replicates. With few seeds a percentile interval is still too narrow, as a normal
+interval is where a Student t one is due, so its two arms (from e_inf to each percentile) are
+stretched by t_nu(q) / z(q), q = (1 + level)/2, with nu the Welch-Satterthwaite degrees of
+freedom of e_inf = sum_j c_j m_j (Satterthwaite 1946; Welch 1947):
+
+    nu = (sum_j c_j^2 s_j^2)^2 / sum_j (c_j^2 s_j^2)^2 / (m_j - 1).
+
+Measured coverage of the nominal 90% interval over 1500 synthetic studies per cell (n^(-2/3)
+law, Gaussian noise; Monte Carlo s.e. 0.008), percentile interval -> stretched interval, for
+2, 3, 5, 10, 20 seeds per size:
+
+    2 sizes: 0.800 0.834 0.863 0.889 0.899  ->  0.953 0.923 0.917 0.908 0.907
+    3 sizes: 0.936 0.890 0.879 0.893 0.884  ->  0.990 0.945 0.915 0.908 0.890
+    4 sizes: 0.961 0.941 0.895 0.886 0.877  ->  0.991 0.967 0.919 0.901 0.887
+
+At 20 seeds the stretch is 3 % and the rate stays about 0.01 short (the percentile interval of
+a fit with estimated weights; accepted, common practice).
+
+The interval covers statistical error only, under the assumed law. ``fit_p`` tests that law:
+the probability, under the fitted line with Gaussian noise of the observed spreads, that a
+study of the same shape gives a chi2 at least as large as the observed one (a parametric
+bootstrap: means drawn from N(fit_j, s_j^2), variances from s_j^2 chi2_(m_j-1)/(m_j-1), refitted
+with their own weights, so the estimated weights are accounted for; the chi2 distribution
+itself, p = P(chi2_dof >= chi2), is below 0.05 in 11-23 % of studies where the law holds at
+3 seeds per size, 41 % at 2 seeds and 5 sizes). Measured over the same cells with 3-5 sizes:
+fit_p < 0.05 in 2.1-6.4 % of studies where the law holds. NaN without a degree of freedom left
+(two sizes).
+
+Samples without spread. A size whose samples all agree (up to rounding: variance at most
+(16 eps |mean|)^2) has no noise to weigh by; when every size is like that the fit is plain
+least squares and the interval is the point [e_inf, e_inf] with ``se`` = 0 (no error estimate),
+not a rounding-sized interval that excludes its own estimate.
 """
 
 from __future__ import annotations
@@ -26,13 +52,17 @@ from dataclasses import asdict, dataclass
 from typing import Any
 
 import numpy as np
+from scipy import stats
 
-__all__ = ["Extrapolation", "check_interval", "e_inf_under", "extrapolate"]
+__all__ = ["Extrapolation", "check_interval", "extrapolate"]
 
 
 @dataclass(frozen=True)
 class Extrapolation:
-    """e_inf (energy per spin) with its bootstrap CI [low, high] at ``level``; slope a."""
+    """e_inf (energy per spin) with its CI [low, high] at ``level`` and the bootstrap standard
+    error ``se``; slope a; ``chi2`` over ``dof`` = sizes - 2 degrees of freedom and the law's
+    test ``fit_p`` (NaN with dof = 0); ``t_dof``, the Welch-Satterthwaite nu behind the
+    interval's stretch (inf when the samples have no spread)."""
 
     value: float
     low: float
@@ -44,6 +74,8 @@ class Extrapolation:
     level: float
     exponent: float
     sizes: tuple[int, ...]
+    fit_p: float = math.nan
+    t_dof: float = math.inf
 
     def to_dict(self) -> dict:
         return asdict(self)
@@ -104,25 +136,62 @@ def _checked(
     return arrays
 
 
+# A sample variance at most (SPREADLESS * eps * |mean|)^2 is rounding, not spread.
+SPREADLESS = 16.0
+# Replicates of the parametric bootstrap behind ``fit_p``.
+FIT_TEST_REPLICATES = 2000
+
+
 def _fit(x: np.ndarray, arrays: list[np.ndarray]) -> tuple[float, float, float, np.ndarray]:
-    """The weighted least-squares line through the means: (e_inf, a, chi2, s_j^2)."""
+    """The weighted least-squares line through the means: (e_inf, a, chi2, s_j^2), with s_j^2
+    = 0 at every size when no size has spread (then a plain least-squares fit and chi2 = 0)."""
     means = np.array([a.mean() for a in arrays])
-    var = np.array([a.var(ddof=1) / a.size for a in arrays])  # s_j^2
-    if np.all(var == 0):
-        var = np.ones_like(var)  # identical samples: plain least squares, zero-width interval
-    floor = 1e-6 * float(np.max(var))
-    var = np.maximum(var, floor)
+    var = _spread(arrays, means)
+    if not np.any(var > 0):
+        value, slope = _wls_line(x, means, np.ones_like(means))
+        return float(value), float(slope), 0.0, np.zeros_like(var)
+    var = np.maximum(var, 1e-6 * float(np.max(var)))
     value, slope = _wls_line(x, means, 1.0 / var)
     chi2 = float(np.sum((means - value - slope * x) ** 2 / var))
     return float(value), float(slope), chi2, var
 
 
-def e_inf_under(sizes: Sequence[int], samples: Sequence[Sequence[float]], exponent: float) -> float:
-    """The point estimate e_inf of :func:`extrapolate` under the law n^(-``exponent``), without
-    an interval: the report sets it beside the chosen law's value to show how much the law
-    (not the noise) moves the extrapolation."""
-    arrays = _checked(sizes, samples, exponent)
-    return _fit(np.asarray(sizes, dtype=np.float64) ** (-exponent), arrays)[0]
+def _spread(arrays: list[np.ndarray], means: np.ndarray) -> np.ndarray:
+    """s_j^2 = var(ddof=1)/m_j per size, 0 where the samples agree up to rounding."""
+    var = np.array([a.var(ddof=1) / a.size for a in arrays])
+    eps = np.finfo(np.float64).eps
+    rounding = np.array([(SPREADLESS * eps * np.max(np.abs(a))) ** 2 / a.size for a in arrays])
+    return np.where(var <= rounding, 0.0, var)
+
+
+def _welch_dof(x: np.ndarray, var: np.ndarray, counts: np.ndarray) -> float:
+    """nu of e_inf = sum_j c_j m_j, c_j = w_j (Sxx - Sx x_j) / det the weights of the intercept
+    in the weighted line (see the module doc)."""
+    w = 1.0 / var
+    s0, sx, sxx = w.sum(), (w * x).sum(), (w * x * x).sum()
+    c = w * (sxx - sx * x) / (s0 * sxx - sx * sx)
+    part = c * c * var
+    return float(part.sum() ** 2 / np.sum(part**2 / (counts - 1)))
+
+
+def _fit_p(
+    x: np.ndarray,
+    counts: np.ndarray,
+    value: float,
+    slope: float,
+    var: np.ndarray,
+    chi2: float,
+    rng: np.random.Generator,
+) -> float:
+    """The parametric-bootstrap p-value of ``chi2`` under the fitted law (module doc)."""
+    reps = FIT_TEST_REPLICATES
+    mean = value + slope * x + np.sqrt(var) * rng.standard_normal((reps, x.size))
+    dof = counts - 1
+    v = var * rng.chisquare(dof, size=(reps, x.size)) / dof
+    v = np.maximum(v, 1e-6 * v.max(axis=1, keepdims=True))
+    e, a = _wls_line(x, mean, 1.0 / v)
+    chi2_rep = np.sum((mean - e[:, None] - a[:, None] * x) ** 2 / v, axis=1)
+    return float((1 + np.count_nonzero(chi2_rep >= chi2)) / (reps + 1))
 
 
 def extrapolate(
@@ -139,6 +208,16 @@ def extrapolate(
     check_interval(level, n_boot)
     x = np.asarray(sizes, dtype=np.float64) ** (-exponent)
     value, slope, chi2, var = _fit(x, arrays)
+    shape = dict(
+        slope=float(slope),
+        chi2=chi2,
+        dof=len(arrays) - 2,
+        level=float(level),
+        exponent=float(exponent),
+        sizes=tuple(int(n) for n in sizes),
+    )
+    if not np.any(var > 0):  # no spread anywhere: no error estimate
+        return Extrapolation(value, value, value, 0.0, **shape)
     rng = np.random.default_rng(seed)
     boot_m = np.empty((n_boot, len(arrays)))
     boot_v = np.empty_like(boot_m)
@@ -152,16 +231,11 @@ def extrapolate(
         boot_v[:, j] = np.maximum(draw.var(axis=1, ddof=1) / m, 0.01 * var[j])
     reps, _ = _wls_line(x, boot_m, 1.0 / boot_v)
     alpha = (1.0 - level) / 2.0
-    low, high = np.quantile(reps, [alpha, 1.0 - alpha])
-    return Extrapolation(
-        float(value),
-        float(low),
-        float(high),
-        float(reps.std(ddof=1)),
-        float(slope),
-        chi2,
-        len(arrays) - 2,
-        float(level),
-        float(exponent),
-        tuple(int(n) for n in sizes),
-    )
+    q_low, q_high = np.quantile(reps, [alpha, 1.0 - alpha])
+    counts = np.array([a.size for a in arrays], dtype=np.float64)
+    nu = _welch_dof(x, var, counts)
+    stretch = float(stats.t.ppf(1.0 - alpha, nu) / stats.norm.ppf(1.0 - alpha))
+    low = value - stretch * max(value - float(q_low), 0.0)
+    high = value + stretch * max(float(q_high) - value, 0.0)
+    fit_p = _fit_p(x, counts, value, slope, var, chi2, rng) if len(arrays) > 2 else math.nan
+    return Extrapolation(value, low, high, float(reps.std(ddof=1)), **shape, fit_p=fit_p, t_dof=nu)

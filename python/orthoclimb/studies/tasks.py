@@ -29,11 +29,11 @@ import socket
 import time
 from dataclasses import dataclass
 from datetime import datetime, timezone
-from typing import Any
+from typing import Any, NamedTuple
 
 from .grid import MethodSpec, MixtureSpec
 
-__all__ = ["Task", "run_task", "theory_values"]
+__all__ = ["Task", "TheoryValues", "run_task", "theory_values"]
 
 
 @dataclass(frozen=True)
@@ -61,9 +61,19 @@ class Task:
         return hashlib.sha256(text.encode("utf-8")).hexdigest()[:16]
 
 
+class TheoryValues(NamedTuple):
+    """What the theory says about a study's mixture (energies per spin)."""
+
+    alg: float  # the algorithmic energy ALG
+    gs: float  # the Parisi ground state; NaN when the solver fails
+    full_rsb: bool  # the full-RSB criterion holds on (0, 1]
+    gs_equals_alg: bool  # GS = ALG is predicted (with a field: the criterion on [q_hat, 1])
+    verdict: str  # the criterion's verdict in words (FullRSBVerdict.describe)
+
+
 @functools.lru_cache(maxsize=64)
-def theory_values(gammas: tuple[tuple[int, float], ...]) -> tuple[float, float, bool]:
-    """(ALG, GS, full-RSB holds) for a mixture; GS is NaN when the Parisi solver fails."""
+def theory_values(gammas: tuple[tuple[int, float], ...]) -> TheoryValues:
+    """ALG, GS and the full-RSB verdict of a mixture given as (p, gamma_p) pairs."""
     from ..model import Mixture
     from ..theory import algorithmic_energy, full_rsb, ground_state
 
@@ -74,7 +84,8 @@ def theory_values(gammas: tuple[tuple[int, float], ...]) -> tuple[float, float, 
         gs = float(gs_res.value) if gs_res.converged else math.nan
     except (ValueError, RuntimeError):
         gs = math.nan
-    return alg, gs, bool(full_rsb(mix).holds)
+    verdict = full_rsb(mix)
+    return TheoryValues(alg, gs, verdict.holds, verdict.gs_equals_alg, verdict.describe())
 
 
 def run_task(task: Task, threads: int | None = None) -> dict[str, Any]:
@@ -121,7 +132,8 @@ def run_task(task: Task, threads: int | None = None) -> dict[str, Any]:
     else:  # pragma: no cover - MethodSpec.make refuses other names
         raise ValueError(f"unknown method {task.method.name!r}")
     t2 = time.perf_counter()
-    alg, gs, _ = theory_values(task.mixture.gammas)
+    theory = theory_values(task.mixture.gammas)
+    alg, gs = theory.alg, theory.gs
     energy = float(res.energy)
     local_max = res.info.get("local_max")
     return {
