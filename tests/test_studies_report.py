@@ -475,11 +475,43 @@ def test_report_fits_the_cost_of_a_run_against_n(tmp_path):
     assert cost["exponent"] == pytest.approx(3.0, abs=1e-12)
     assert cost["median_seconds_run"][0] == pytest.approx(2e-9 * 20**3 * 1.015)
     assert cost["max_degree"] == 3
-    assert "a run's median time grows like n^3.00 over n = 20..80" in "\n".join(rep.findings)
+    line = "\n".join(rep.findings)
+    assert "a run's median time grows like n^3.00 +- 0.00 over n = 20..80" in line
     assert cost["fixed_cost_bound"] is False
     write_report(tmp_path / "c", plots=False)
     md = (tmp_path / "c" / "report.md").read_text()
-    assert "## Cost" in md and "| 3.00 |" in md
+    assert "## Cost" in md and "| 3.00 +- 0.00 | 3.00 |" in md
+
+
+def test_cost_exponent_has_its_standard_error_and_says_when_the_slope_rises(tmp_path):
+    # t = c0 + c n^3 with c0 half the time at n = 100: the medians' log-log line (reference:
+    # scipy.stats.linregress, slope and its standard error) has b = 2.44 +- 0.15 while the
+    # last pair's slope is 2.84, so b is a lower bound and the report says so. A tenfold
+    # outlier at one seed per size must not move the medians (before: nothing tested that
+    # the median, not the mean, is taken).
+    from scipy import stats
+
+    sizes = [100, 150, 220, 320]
+    spec = spec_from_flags(["3:1"], None, ",".join(map(str, sizes)), "0-2", "gradient")
+    store = Store.open(tmp_path / "r", spec)
+    for t in spec.tasks():
+        base = 1e-9 * (100**3 + t.n**3)
+        row = {"task_id": t.task_id, "mixture": t.mixture.name, "method": t.method.name}
+        row.update(n=t.n, seed=t.seed, energy=1.5 - t.n ** (-2 / 3) + 0.01 * t.seed)
+        row.update(seconds_run=base * (10.0 if t.seed == 2 else 1.0 + 0.01 * t.seed))
+        store.write_row({**row, "seconds_sample": 1e-4})
+    (cost,) = build_report(tmp_path / "r").cost
+    medians = [1e-9 * (100**3 + n**3) * 1.01 for n in sizes]
+    assert cost["median_seconds_run"] == pytest.approx(medians, rel=1e-12)
+    fit = stats.linregress(np.log(sizes), np.log(medians))
+    assert cost["exponent"] == pytest.approx(fit.slope, rel=1e-10)
+    assert cost["exponent_se"] == pytest.approx(fit.stderr, rel=1e-8)
+    assert cost["exponent_last"] == pytest.approx(
+        math.log(medians[3] / medians[2]) / math.log(320 / 220)
+    )
+    assert cost["rising"] is True and cost["fixed_cost_bound"] is False
+    (line,) = [f for f in build_report(tmp_path / "r").findings if "median time" in f]
+    assert "grows like n^2.44 +- 0.15" in line and "the slope rises with n (n^2.84" in line
 
 
 def test_a_time_that_grows_more_slowly_than_n_is_flagged_as_fixed_costs(tmp_path):
@@ -501,7 +533,7 @@ def test_a_time_that_grows_more_slowly_than_n_is_flagged_as_fixed_costs(tmp_path
     assert "grows more slowly than n (n^0.50) over n = 20..80" in line
     assert "fixed per-run costs" in line and "grows like" not in line
     write_report(tmp_path / "f", plots=False)
-    assert "| (0.50) |" in (tmp_path / "f" / "report.md").read_text()
+    assert "| (0.50 +- 0.00) | 0.50 |" in (tmp_path / "f" / "report.md").read_text()
     # times that fall with n (the quick demo's n^-0.44) are not said to grow
     for t in spec.tasks():
         row = {"task_id": t.task_id, "mixture": t.mixture.name, "method": t.method.name}

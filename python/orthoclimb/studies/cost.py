@@ -2,7 +2,14 @@
 
 For each (mixture, method) and size: the median over seeds of ``seconds_run`` (the method's
 wall time, sampling excluded) and of ``seconds_sample``. With two sizes or more, b is the slope
-of the least-squares line log t = log c + b log n through the medians (``numpy.polyfit``).
+of the least-squares line log t = log c + b log n through the medians (``numpy.polyfit``),
+with three sizes or more its standard error se(b) = sqrt(RSS / (k - 2) / Sxx) (k sizes, Sxx the
+sum of squares of log n about its mean; Draper and Smith, Applied Regression Analysis, ch. 1),
+and the slope ``exponent_last`` between the two largest sizes. Fixed per-run costs flatten
+the curve at small n, so b through all sizes is biased low (synthetic t = c0 + c n^3 over
+n = 100..320: b = 2.82, 2.44, 1.72 when c0 is 20, 50, 80 % of the time at n = 100) and the
+slope rises with n; when the last slope exceeds b by more than 2 se(b) the entry is marked
+``rising``: b is then a lower bound of the exponent the method has at large n.
 A kernel pass reads every coefficient, N(n) ~ n^P/P!, so P (the largest degree) is the
 reference: a method making a fixed number of passes has b near P once n is large; Hessian
 ascent takes K = n/8 steps clamped to [25, 200] (a Hessian pass and Lanczos each), so b
@@ -50,9 +57,7 @@ def cost_table(rows: list[dict[str, Any]], max_degree: dict[str, int]) -> list[d
         sizes = sorted(by_n)
         run = [float(np.median([t for t, _ in by_n[n]])) for n in sizes]
         sample = [float(np.median([s for _, s in by_n[n]])) for n in sizes]
-        b = None
-        if len(sizes) >= 2:
-            b = float(np.polyfit(np.log(sizes), np.log(run), 1)[0])
+        b, se, last = _slopes(sizes, run)
         out.append(
             {
                 "mixture": mix,
@@ -62,11 +67,28 @@ def cost_table(rows: list[dict[str, Any]], max_degree: dict[str, int]) -> list[d
                 "median_seconds_sample": sample,
                 "count": [len(by_n[n]) for n in sizes],
                 "exponent": b,
+                "exponent_se": se,
+                "exponent_last": last,
+                "rising": se is not None and last is not None and last - b > 2.0 * se,
                 "fixed_cost_bound": b is not None and b < FIXED_COST_SLOPE,
                 "max_degree": max_degree.get(mix),
             }
         )
     return out
+
+
+def _slopes(sizes: list[int], times: list[float]) -> tuple[Any, Any, Any]:
+    """(b, se(b), last-pair slope) of log t on log n; None where there are too few sizes."""
+    if len(sizes) < 2:
+        return None, None, None
+    x, y = np.log(np.asarray(sizes, dtype=np.float64)), np.log(np.asarray(times))
+    b, c = np.polyfit(x, y, 1)
+    last = float((y[-1] - y[-2]) / (x[-1] - x[-2]))
+    if len(sizes) < 3:
+        return float(b), None, last
+    rss = float(np.sum((y - (b * x + c)) ** 2))
+    sxx = float(np.sum((x - x.mean()) ** 2))
+    return float(b), math.sqrt(rss / (len(sizes) - 2) / sxx), last
 
 
 def cost_markdown(cost: list[dict[str, Any]]) -> list[str]:
@@ -75,22 +97,27 @@ def cost_markdown(cost: list[dict[str, Any]]) -> list[str]:
         "## Cost",
         "",
         "Median wall seconds per task over seeds (the method's run; sampling apart), and the "
-        "exponent b of t ~ n^b through the medians; P is the largest degree (one kernel pass "
+        "exponent b of t ~ n^b through the medians with its standard error, and b between the "
+        "two largest sizes (last); P is the largest degree (one kernel pass "
         "reads ~n^P/P! coefficients). A b in parentheses is below 1: at these sizes fixed "
         "per-run costs, not the kernel passes, set the time, and larger n are needed to "
         "measure the growth.",
         "",
-        "| mixture | method | n | median s (run) | median s (sample) | b | P |",
-        "| --- | --- | ---: | ---: | ---: | ---: | ---: |",
+        "| mixture | method | n | median s (run) | median s (sample) | b | b (last) | P |",
+        "| --- | --- | ---: | ---: | ---: | ---: | ---: | ---: |",
     ]
     for c in cost:
         b = "--" if c["exponent"] is None else f"{c['exponent']:.2f}"
+        if c.get("exponent_se") is not None:
+            b += f" +- {c['exponent_se']:.2f}"
         if c.get("fixed_cost_bound"):
             b = f"({b})"
+        last = "--" if c.get("exponent_last") is None else f"{c['exponent_last']:.2f}"
         for i, n in enumerate(c["sizes"]):
             lines.append(
                 f"| {c['mixture']} | {c['method']} | {n} | {c['median_seconds_run'][i]:.3g} | "
                 f"{c['median_seconds_sample'][i]:.3g} | {b if i == 0 else ''} | "
+                f"{last if i == 0 else ''} | "
                 f"{c['max_degree'] if i == 0 else ''} |"
             )
     return lines

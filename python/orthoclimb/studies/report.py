@@ -430,10 +430,19 @@ def _findings(rep: Report, seeds: dict) -> list[str]:
                     " method scales."
                 )
             else:
-                out.append(
+                se = c.get("exponent_se")
+                pm = f" +- {se:.2f}" if se is not None else ""
+                text = (
                     f"{c['mixture']}, {c['method']}: a run's median time grows like "
-                    f"n^{c['exponent']:.2f} {span}; largest degree P = {c['max_degree']})."
+                    f"n^{c['exponent']:.2f}{pm} {span}; largest degree P = {c['max_degree']})"
                 )
+                if c.get("rising"):
+                    text += (
+                        f"; the slope rises with n (n^{c['exponent_last']:.2f} between the two"
+                        " largest sizes): fixed per-run costs still weigh at the smaller sizes,"
+                        " so the exponent at large n is likely higher than this fit"
+                    )
+                out.append(text + ".")
     if rep.missing:
         out.append(f"{rep.missing} task(s) of the study have no result yet; rerun the sweep.")
     return out
