@@ -2,13 +2,16 @@
 
 from __future__ import annotations
 
+import numpy as np
 import pytest
 
+from orthoclimb import Mixture
 from orthoclimb.cli import main
 from orthoclimb.studies.grid import (
     MAX_TASKS,
     TOML_EXAMPLE,
     MethodSpec,
+    MixtureSpec,
     StudySpec,
     parse_seeds,
     parse_sizes,
@@ -50,6 +53,23 @@ def test_a_grid_beyond_the_task_cap_is_refused_before_building_it():
         spec_from_flags(["3:1"], None, "20,30,40,50", "0-20000", "hessian,gradient", {}, 2 / 3)
     ok = spec_from_flags(["3:1"], None, "20,30", "0-99", "hessian,gradient", {}, 2 / 3)
     assert ok.num_tasks == len(ok.tasks()) == 400
+    # a mixture with its own sizes counts those: (3 + 2) sizes x 1 method x 4 seeds
+    own = MixtureSpec.make(Mixture({3: 1.0}), "own", sizes="20,30,40")
+    shared = MixtureSpec.make(Mixture({2: 1.0}), "shared")
+    mixed = StudySpec((own, shared), (50, 60), (0, 1, 2, 3), (MethodSpec.make("gradient"),))
+    assert mixed.num_tasks == len(mixed.tasks()) == 20
+
+
+def test_an_anneal_at_one_temperature_is_allowed():
+    # t_end = t_start is a constant-temperature run, which geometric_schedule accepts too;
+    # only a schedule that heats is refused
+    from orthoclimb.algorithms import geometric_schedule
+
+    same = MethodSpec.make("anneal", {"t_start": 0.5, "t_end": 0.5})
+    assert dict(same.options)["t_end"] == 0.5
+    assert np.all(geometric_schedule(0.5, 0.5, 4) == 0.5)
+    with pytest.raises(ValueError, match="t_end = 0.6 is above t_start = 0.5"):
+        MethodSpec.make("anneal", {"t_start": 0.5, "t_end": 0.6})
 
 
 def test_parse_sizes():

@@ -4,6 +4,7 @@ from __future__ import annotations
 
 import json
 import math
+import os
 
 import numpy as np
 import pytest
@@ -256,6 +257,16 @@ def test_report_statistics_against_independent_formulas(tmp_path):
         assert g["se"] == pytest.approx(statistics.stdev(a) / math.sqrt(8), rel=1e-12)
     (fit,) = rep.fits
     assert fit["value"] > fit["alg"] and fit["z_alg"] > 0 and fit["z_gs"] > 0
+    # z = (e_inf - theory)/s.e. against each theory value, ALG = 2 sqrt(2/3) (Subag 2018)
+    alg = 2 * math.sqrt(2 / 3)
+    assert fit["alg"] == pytest.approx(alg, rel=1e-12) and fit["gs"] > alg + 0.02
+    assert fit["z_alg"] == pytest.approx((fit["value"] - alg) / fit["se"], rel=1e-12)
+    assert fit["z_gs"] == pytest.approx((fit["value"] - fit["gs"]) / fit["se"], rel=1e-12)
+    # the range over laws is the union of the three intervals
+    lows = [fit["low"], *(o["low"] for o in fit["other_laws"])]
+    highs = [fit["high"], *(o["high"] for o in fit["other_laws"])]
+    assert (fit["law_low"], fit["law_high"]) == (min(lows), max(highs))
+    assert rep.missing == 0 and not any("no result yet" in f for f in rep.findings)
     sizes = np.array([20, 40, 80])
     means = np.array([np.mean([e[(n, s)] for s in range(8)]) for n in sizes])
     ses = np.array([statistics.stdev([e[(n, s)] for s in range(8)]) / math.sqrt(8) for n in sizes])
@@ -263,6 +274,38 @@ def test_report_statistics_against_independent_formulas(tmp_path):
         slope, intercept = np.polyfit(sizes ** (-other["exponent"]), means, 1, w=1 / ses)
         assert other["value"] == pytest.approx(intercept, rel=1e-10)
     assert [o["exponent"] for o in fit["other_laws"]] == [0.5, 1.0]
+
+
+def test_a_partly_run_study_says_how_many_tasks_are_missing(tmp_path):
+    # 3 sizes x 8 seeds, two rows removed: the report counts 2 missing and says to rerun
+    _synthetic_study(tmp_path / "p", "20,40,80", lambda n, s: 1.6 - n ** (-2 / 3) + 0.01 * s)
+    store = Store(tmp_path / "p", build_report(tmp_path / "p").spec)
+    for task in store.spec.tasks()[:2]:
+        store.row_path(task.task_id).unlink()
+    rep = build_report(tmp_path / "p")
+    assert rep.missing == 2
+    assert "2 task(s) of the study have no result yet; rerun the sweep." in rep.findings
+
+
+def test_every_report_file_is_written_by_an_atomic_rename(tmp_path, monkeypatch):
+    # results are never lost: each file appears by os.replace of a finished temporary, so a
+    # crash mid-write leaves the previous report whole (common practice)
+    import orthoclimb.fileio as fileio
+
+    _synthetic_study(tmp_path / "a", "20,40", lambda n, s: 1.6 - n ** (-2 / 3) + 0.01 * s)
+    renamed = []
+    real = fileio.os.replace
+
+    def recording(src, dst, *args, **kwargs):
+        renamed.append(os.path.basename(dst))
+        return real(src, dst, *args, **kwargs)
+
+    monkeypatch.setattr(fileio.os, "replace", recording)
+    write_report(tmp_path / "a")
+    expected = {"report.md", "report.json", "energy_vs_n.png", "distribution.png"}
+    assert expected <= set(renamed), renamed
+    written = {p.name for p in (tmp_path / "a").iterdir() if p.is_file()}
+    assert expected <= written
 
 
 def test_findings_name_ties_between_alg_and_gs_and_a_point_above_gs(tmp_path):

@@ -136,6 +136,9 @@ def test_random_mixtures_against_dense_sign_scan(seed):
             continue
         inside = any(lo < qi < hi for lo, hi in verdict.failing_intervals)
         assert inside == (si > 0), f"{mixture!r} at q = {qi}: f'' ~ {si}"
+    # the intervals are maximal: sorted, and no two touch (touching ones are one interval)
+    ends = [x for iv in verdict.failing_intervals for x in iv]
+    assert np.all(np.diff(ends) > 0), verdict.failing_intervals
 
 
 def test_numerator_matches_second_derivative_formula():
@@ -178,6 +181,10 @@ def test_field_uses_only_the_interval_above_q_hat():
     weak = full_rsb(Mixture.from_xi({1: 0.09, 3: 1.0}))
     assert weak.q_hat == pytest.approx(0.3 / math.sqrt(3), rel=1e-12)
     assert not weak.gs_equals_alg
+    # the verdict in words says which way it goes when 0 < q_hat < 1: GS = ALG for the
+    # first mixture above, GS > ALG for the weak field on the pure 3-spin
+    assert "q_hat = 0.629961: GS = ALG predicted" in verdict.describe()
+    assert "q_hat = 0.173205: GS > ALG predicted" in weak.describe()
 
 
 def test_verdict_is_frozen():

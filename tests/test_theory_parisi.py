@@ -269,6 +269,10 @@ def test_random_mixtures_bounds_and_consistency(seed):
     assert np.all(np.diff(gs.breakpoints) > 0)
     assert np.all(gs.alpha >= 0) and np.all(np.diff(gs.alpha) > 0)
     assert gs.n_steps == gs.alpha.size
+    # converged means both stopping measures are within tol, and the last steps (moving and
+    # tidying alpha) never raised the value above the best round's
+    assert gs.change <= gs.tol and gs.jump_gain <= gs.tol
+    assert gs.value <= min(v for _, v in gs.history) + 1e-13
     json.dumps(gs.to_dict())
 
 
@@ -306,6 +310,11 @@ def test_functional_validation():
         parisi_functional(m, 1.0, [0, 1], [-1.0])
     with pytest.raises(ValueError, match="from 0 to 1"):
         parisi_functional(m, 1.0, [0.1, 1], [0.0])
+    # a step function that stops short of 1 would give a truncated functional, no bound
+    with pytest.raises(ValueError, match="from 0 to 1"):
+        parisi_functional(m, 1.0, [0, 0.5, 0.9], [0.0, 1.0])
+    with pytest.raises(ValueError, match="from 0 to 1"):
+        parisi_gradient(m, 1.0, [0, 0.5, 0.9], [0.0, 1.0])
     with pytest.raises(ValueError, match="one value per piece"):
         parisi_functional(m, 1.0, [0, 0.5, 1], [0.0])
     with pytest.raises(TypeError, match="Mixture"):

@@ -1,0 +1,59 @@
+"""The study folder: rows written once, checked against their tasks, failure records, and
+folders that hold something else."""
+
+from __future__ import annotations
+
+import pytest
+
+from orthoclimb import Mixture
+from orthoclimb.studies.grid import MethodSpec, MixtureSpec, StudySpec
+from orthoclimb.studies.store import Store, StudyMismatchError
+
+
+def _spec(seeds=(0, 1)) -> StudySpec:
+    mix = MixtureSpec.make(Mixture({3: 1.0}), "cubic")
+    return StudySpec((mix,), (8,), tuple(seeds), (MethodSpec.make("gradient", None),))
+
+
+def _row(task, energy=0.5, **change):
+    row = {"task_id": task.task_id, "mixture": task.mixture.name, "method": task.method.name}
+    return {**row, "n": task.n, "seed": task.seed, "energy": energy, **change}
+
+
+def test_a_row_is_written_once_and_its_failure_record_goes_with_the_success(tmp_path):
+    # the store's contract (module doc): a completed task's row is never rewritten, so a task
+    # run twice (a resumed sweep racing a straggler) keeps its first result; and a failure
+    # record left by an earlier attempt is removed once the task succeeds
+    spec = _spec()
+    store = Store.open(tmp_path / "s", spec)
+    task = spec.tasks()[0]
+    store.write_failure(task.task_id, task.config(), "worker died")
+    assert [f["task_id"] for f in store.failures()] == [task.task_id]
+    assert store.write_row(_row(task, energy=0.5)) is True
+    assert store.failures() == []
+    assert store.write_row(_row(task, energy=0.9)) is False
+    (row,) = store.rows()
+    assert row["energy"] == 0.5
+
+
+def test_a_row_whose_seed_is_not_its_tasks_is_refused(tmp_path):
+    # a row under task 0's file that says seed 1 would be counted as seed 1 by the report,
+    # overwriting that seed's energy in the paired comparisons; it must be named instead
+    spec = _spec()
+    store = Store.open(tmp_path / "s", spec)
+    first, second = spec.tasks()
+    assert (first.seed, second.seed) == (0, 1)
+    store.write_row(_row(first, seed=1))
+    with pytest.raises(ValueError, match="has seed = 1, but its task has 0"):
+        store.rows()
+
+
+def test_a_folder_holding_other_files_is_not_taken_for_a_new_study(tmp_path):
+    # an --out folder that already holds someone's files but no study.json is refused, and
+    # nothing is written into it
+    folder = tmp_path / "busy"
+    folder.mkdir()
+    (folder / "notes.txt").write_text("keep")
+    with pytest.raises(StudyMismatchError, match="is not empty and holds no study.json"):
+        Store.open(folder, _spec())
+    assert sorted(p.name for p in folder.iterdir()) == ["notes.txt"]
