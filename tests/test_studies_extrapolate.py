@@ -116,6 +116,20 @@ def test_stretch_uses_the_welch_satterthwaite_degrees_of_freedom():
     nu = part.sum() ** 2 / np.sum(part**2 / (np.array(counts) - 1))
     ex = extrapolate(sizes, samples, n_boot=4000, seed=1)
     assert ex.t_dof == pytest.approx(nu, rel=1e-12)
+    # with four sizes the intercept's coefficients depend on the weights: c = row 0 of
+    # (X^T W X)^(-1) X^T W, X = [1, x], W = diag(1/s_j^2) (weighted least squares, numpy)
+    sizes4, counts4 = [50, 100, 200, 400], [3, 5, 4, 6]
+    samples4 = [
+        1.4 + 0.05 * rng.standard_normal(m) / math.sqrt(n)
+        for n, m in zip(sizes4, counts4, strict=True)
+    ]
+    var4 = np.array([a.var(ddof=1) / a.size for a in samples4])
+    design = np.column_stack([np.ones(4), np.asarray(sizes4, float) ** (-2 / 3)])
+    w = np.diag(1 / var4)
+    c4 = np.linalg.solve(design.T @ w @ design, design.T @ w)[0]
+    part4 = c4**2 * var4
+    nu4 = part4.sum() ** 2 / np.sum(part4**2 / (np.array(counts4) - 1))
+    assert extrapolate(sizes4, samples4, n_boot=50).t_dof == pytest.approx(nu4, rel=1e-10)
     # the interval's arms are the percentile arms stretched by t_nu(0.95) / z(0.95) > 1
     stretch = stats.t.ppf(0.95, nu) / stats.norm.ppf(0.95)
     assert stretch > 1.1
@@ -138,7 +152,9 @@ def test_fit_test_is_calibrated_where_the_law_holds_and_flags_a_wrong_law():
         flagged += ex.fit_p < 0.05
         naive += stats.chi2.sf(ex.chi2, ex.dof) < 0.05
     se = math.sqrt(0.05 * 0.95 / draws)
-    assert abs(flagged / draws - 0.05) <= 3 * se, flagged / draws
+    # at most its nominal size (a review measured 0.041 +- 0.005 over 40 generator seeds: a
+    # little conservative at 3 seeds), and not a test that never fires
+    assert 0.02 <= flagged / draws <= 0.05 + 3 * se, flagged / draws
     assert naive / draws > 0.05 + 6 * se, naive / draws
     wrong = np.array([50, 100, 200, 400, 800])
     hits = 0
@@ -160,6 +176,8 @@ def test_samples_without_spread_give_a_point_interval_at_the_least_squares_value
     intercept = np.polyfit(np.asarray(sizes, float) ** (-2 / 3), means, 1)[1]
     assert ex.value == pytest.approx(intercept, rel=1e-12, abs=1e-14)
     assert ex.low == ex.value == ex.high and ex.se == 0.0
+    # nothing measures the fit: the 1e-3 kink at n = 200 must not show as chi2 = 0
+    assert math.isnan(ex.chi2) and math.isnan(ex.fit_p)
 
 
 @pytest.mark.parametrize(

@@ -8,8 +8,13 @@ sum of squares of log n about its mean; Draper and Smith, Applied Regression Ana
 and the slope ``exponent_last`` between the two largest sizes. Fixed per-run costs flatten
 the curve at small n, so b through all sizes is biased low (synthetic t = c0 + c n^3 over
 n = 100..320: b = 2.82, 2.44, 1.72 when c0 is 20, 50, 80 % of the time at n = 100) and the
-slope rises with n; when the last slope exceeds b by more than 2 se(b) the entry is marked
-``rising``: b is then a lower bound of the exponent the method has at large n.
+slope rises with n. se(b) measures how far the medians stray from a line, curvature and noise
+alike, so it cannot tell the two apart; the noise alone is measured by a bootstrap over seeds
+(each size's times resampled with replacement, ``RISING_REPLICATES`` times, seeded): the entry
+is marked ``rising`` when the last slope exceeds b by more than ``RISING_MIN`` and by more
+than twice the bootstrap spread of (last - b). b is then a lower bound of the exponent the
+method has at large n. With one seed per size the bootstrap has no spread and only
+``RISING_MIN`` guards against noise.
 A kernel pass reads every coefficient, N(n) ~ n^P/P!, so P (the largest degree) is the
 reference: a method making a fixed number of passes has b near P once n is large; Hessian
 ascent takes K = n/8 steps clamped to [25, 200] (a Hessian pass and Lanczos each), so b
@@ -36,6 +41,10 @@ __all__ = ["FIXED_COST_SLOPE", "cost_table", "cost_markdown"]
 
 #: Slope of log time on log n below which a cost entry is marked ``fixed_cost_bound``.
 FIXED_COST_SLOPE = 1.0
+#: The least excess of the last pair's slope over b that marks an entry ``rising``.
+RISING_MIN = 0.1
+#: Bootstrap replicates (over seeds) behind ``rising``.
+RISING_REPLICATES = 400
 
 
 def cost_table(rows: list[dict[str, Any]], max_degree: dict[str, int]) -> list[dict[str, Any]]:
@@ -58,6 +67,9 @@ def cost_table(rows: list[dict[str, Any]], max_degree: dict[str, int]) -> list[d
         run = [float(np.median([t for t, _ in by_n[n]])) for n in sizes]
         sample = [float(np.median([s for _, s in by_n[n]])) for n in sizes]
         b, se, last = _slopes(sizes, run)
+        rising = len(sizes) >= 3 and _rises(
+            sizes, [[t for t, _ in by_n[n]] for n in sizes], b, last
+        )
         out.append(
             {
                 "mixture": mix,
@@ -69,7 +81,7 @@ def cost_table(rows: list[dict[str, Any]], max_degree: dict[str, int]) -> list[d
                 "exponent": b,
                 "exponent_se": se,
                 "exponent_last": last,
-                "rising": se is not None and last is not None and last - b > 2.0 * se,
+                "rising": rising,
                 "fixed_cost_bound": b is not None and b < FIXED_COST_SLOPE,
                 "max_degree": max_degree.get(mix),
             }
@@ -89,6 +101,24 @@ def _slopes(sizes: list[int], times: list[float]) -> tuple[Any, Any, Any]:
     rss = float(np.sum((y - (b * x + c)) ** 2))
     sxx = float(np.sum((x - x.mean()) ** 2))
     return float(b), math.sqrt(rss / (len(sizes) - 2) / sxx), last
+
+
+def _rises(sizes: list[int], times: list[list[float]], b: float, last: float) -> bool:
+    """Whether the last pair's slope exceeds b beyond RISING_MIN and beyond twice the spread
+    of (last - b) over a bootstrap of the seeds (see the module doc)."""
+    excess = last - b
+    if excess <= RISING_MIN:
+        return False
+    rng = np.random.default_rng(0)
+    y = np.empty((RISING_REPLICATES, len(sizes)))
+    for j, t in enumerate(times):
+        draws = np.asarray(t)[rng.integers(0, len(t), size=(RISING_REPLICATES, len(t)))]
+        y[:, j] = np.log(np.median(draws, axis=1))
+    x = np.log(np.asarray(sizes, dtype=np.float64))
+    xc = x - x.mean()
+    b_rep = (y - y.mean(axis=1, keepdims=True)) @ xc / float(xc @ xc)
+    last_rep = (y[:, -1] - y[:, -2]) / (x[-1] - x[-2])
+    return bool(excess > 2.0 * float(np.std(last_rep - b_rep, ddof=1)))
 
 
 def cost_markdown(cost: list[dict[str, Any]]) -> list[str]:

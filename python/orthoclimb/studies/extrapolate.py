@@ -36,12 +36,15 @@ with their own weights, so the estimated weights are accounted for; the chi2 dis
 itself, p = P(chi2_dof >= chi2), is below 0.05 in 11-23 % of studies where the law holds at
 3 seeds per size, 41 % at 2 seeds and 5 sizes). Measured over the same cells with 3-5 sizes:
 fit_p < 0.05 in 2.1-6.4 % of studies where the law holds. NaN without a degree of freedom left
-(two sizes).
+(two sizes). ``fit_p`` is the law's own test: the report keeps a law whose fit_p is below 0.05
+out of its verdicts (:mod:`.report`).
 
 Samples without spread. A size whose samples all agree (up to rounding: variance at most
-(16 eps |mean|)^2) has no noise to weigh by; when every size is like that the fit is plain
-least squares and the interval is the point [e_inf, e_inf] with ``se`` = 0 (no error estimate),
-not a rounding-sized interval that excludes its own estimate.
+(16 eps max|sample|)^2) has no noise to weigh by. Next to sizes with spread its variance is
+floored at 1e-6 of the largest, so the line passes almost exactly through its mean. When every
+size is like that the fit is plain least squares, the interval is the point [e_inf, e_inf]
+with ``se`` = 0 (no error estimate), not a rounding-sized interval that excludes its own
+estimate, and ``chi2`` and ``fit_p`` are NaN: nothing measures how well the law fits.
 """
 
 from __future__ import annotations
@@ -61,8 +64,8 @@ __all__ = ["Extrapolation", "check_interval", "extrapolate"]
 class Extrapolation:
     """e_inf (energy per spin) with its CI [low, high] at ``level`` and the bootstrap standard
     error ``se``; slope a; ``chi2`` over ``dof`` = sizes - 2 degrees of freedom and the law's
-    test ``fit_p`` (NaN with dof = 0); ``t_dof``, the Welch-Satterthwaite nu behind the
-    interval's stretch (inf when the samples have no spread)."""
+    test ``fit_p`` (NaN with dof = 0 or without spread); ``t_dof``, the Welch-Satterthwaite
+    nu behind the interval's stretch (inf when the samples have no spread)."""
 
     value: float
     low: float
@@ -144,19 +147,19 @@ FIT_TEST_REPLICATES = 2000
 
 def _fit(x: np.ndarray, arrays: list[np.ndarray]) -> tuple[float, float, float, np.ndarray]:
     """The weighted least-squares line through the means: (e_inf, a, chi2, s_j^2), with s_j^2
-    = 0 at every size when no size has spread (then a plain least-squares fit and chi2 = 0)."""
+    = 0 at every size when no size has spread (then a plain least-squares fit and chi2 NaN)."""
     means = np.array([a.mean() for a in arrays])
-    var = _spread(arrays, means)
+    var = _spread(arrays)
     if not np.any(var > 0):
         value, slope = _wls_line(x, means, np.ones_like(means))
-        return float(value), float(slope), 0.0, np.zeros_like(var)
+        return float(value), float(slope), math.nan, np.zeros_like(var)
     var = np.maximum(var, 1e-6 * float(np.max(var)))
     value, slope = _wls_line(x, means, 1.0 / var)
     chi2 = float(np.sum((means - value - slope * x) ** 2 / var))
     return float(value), float(slope), chi2, var
 
 
-def _spread(arrays: list[np.ndarray], means: np.ndarray) -> np.ndarray:
+def _spread(arrays: list[np.ndarray]) -> np.ndarray:
     """s_j^2 = var(ddof=1)/m_j per size, 0 where the samples agree up to rounding."""
     var = np.array([a.var(ddof=1) / a.size for a in arrays])
     eps = np.finfo(np.float64).eps
