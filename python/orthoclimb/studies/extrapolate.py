@@ -139,7 +139,7 @@ def _checked(
     return arrays
 
 
-# A sample variance at most (SPREADLESS * eps * |mean|)^2 is rounding, not spread.
+# A sample variance at most (SPREADLESS * eps * max|sample|)^2 is rounding, not spread.
 SPREADLESS = 16.0
 # Replicates of the parametric bootstrap behind ``fit_p``.
 FIT_TEST_REPLICATES = 2000
