@@ -72,6 +72,23 @@ def test_bad_mixtures_name_the_value(spec, fragment):
         Mixture(spec)
 
 
+@pytest.mark.parametrize("spec", [None, 3, "3:1", [(3,)], {3: "a"}, {"x": 1}, {3.5: 1}, {3: True}])
+def test_a_mixture_of_the_wrong_type_is_a_type_error(spec):
+    # common practice (Python's own convention): a wrong type is a TypeError, a wrong value a
+    # ValueError; MixtureTypeError is both a MixtureError (ValueError) and a TypeError, so
+    # callers catching either keep working. Before: a plain MixtureError (ValueError only)
+    with pytest.raises(TypeError) as caught:
+        Mixture(spec)
+    assert isinstance(caught.value, MixtureError) and isinstance(caught.value, ValueError)
+
+
+@pytest.mark.parametrize("spec", [{0: 1.0}, {3: -1.0}, {3: float("nan")}, {}])
+def test_a_mixture_of_the_right_type_but_a_bad_value_is_no_type_error(spec):
+    with pytest.raises(MixtureError) as caught:
+        Mixture(spec)
+    assert not isinstance(caught.value, TypeError)
+
+
 def test_parse_squared_must_be_a_boolean():
     with pytest.raises(TypeError, match="squared must be True or False, got 'no'"):
         Mixture.parse("3:1", squared="no")

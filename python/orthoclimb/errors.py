@@ -13,6 +13,12 @@ class MixtureError(ValueError):
     empty mixture, malformed text)."""
 
 
+class MixtureTypeError(MixtureError, TypeError):
+    """A mixture specification of the wrong type: not a mapping (or pairs), a degree that is not
+    an integer, a gamma that is not a real number (text, a flag). Both a :class:`MixtureError`
+    (so a :class:`ValueError`) and a :class:`TypeError`."""
+
+
 class ShapeError(ValueError):
     """An array has the wrong shape or length; the message names the expected and the actual."""
 

@@ -18,7 +18,7 @@ from typing import Any
 
 import numpy as np
 
-from ..errors import MixtureError
+from ..errors import MixtureError, MixtureTypeError
 
 MAX_DEGREE = 8
 """Largest degree p the kernels support."""
@@ -26,7 +26,7 @@ MAX_DEGREE = 8
 
 def _check_degree(p: Any) -> int:
     if isinstance(p, bool) or not isinstance(p, (int, np.integer)):
-        raise MixtureError(f"degree p must be an integer in 1..{MAX_DEGREE}, got {p!r}")
+        raise MixtureTypeError(f"degree p must be an integer in 1..{MAX_DEGREE}, got {p!r}")
     p = int(p)
     if not 1 <= p <= MAX_DEGREE:
         raise MixtureError(f"degree p must be in 1..{MAX_DEGREE}, got p = {p}")
@@ -36,11 +36,11 @@ def _check_degree(p: Any) -> int:
 def _check_gamma(p: int, gamma: Any, what: str = "gamma") -> float:
     if isinstance(gamma, (bool, np.bool_, str, bytes)):  # True would read as 1.0, "0.5" as 0.5:
         # both are slips, not weights (Mixture.parse reads text)
-        raise MixtureError(f"{what} for p = {p} must be a real number, got {gamma!r}")
+        raise MixtureTypeError(f"{what} for p = {p} must be a real number, got {gamma!r}")
     try:
         value = float(gamma)
     except (TypeError, ValueError):
-        raise MixtureError(f"{what} for p = {p} must be a real number, got {gamma!r}") from None
+        raise MixtureTypeError(f"{what} for p = {p} must be a real number, got {gamma!r}") from None
     if not math.isfinite(value) or value < 0:
         raise MixtureError(f"{what} for p = {p} must be finite and >= 0, got {gamma!r}")
     return value
@@ -63,7 +63,7 @@ class Mixture:
 
     def __init__(self, gammas: Mapping[int, float] | Iterable[tuple[int, float]]):
         if isinstance(gammas, str):
-            raise MixtureError(
+            raise MixtureTypeError(
                 f"a mixture is a mapping p -> gamma_p, got the text {gammas!r}; "
                 f"Mixture.parse({gammas!r}) reads the p:gamma text form"
             )
@@ -72,14 +72,16 @@ class Mixture:
         try:
             pairs = list(items)
         except TypeError:
-            raise MixtureError(
+            raise MixtureTypeError(
                 f"a mixture is a mapping p -> gamma_p, got {type(gammas).__name__}"
             ) from None
         for pair in pairs:
             try:
                 p_raw, g_raw = pair
             except (TypeError, ValueError):
-                raise MixtureError(f"mixture entries are (p, gamma) pairs, got {pair!r}") from None
+                raise MixtureTypeError(
+                    f"mixture entries are (p, gamma) pairs, got {pair!r}"
+                ) from None
             p = _check_degree(p_raw)
             if p in checked:
                 raise MixtureError(f"degree p = {p} is given twice")
