@@ -60,6 +60,13 @@ def test_a_grid_beyond_the_task_cap_is_refused_before_building_it():
     assert mixed.num_tasks == len(mixed.tasks()) == 20
 
 
+def test_a_seed_beyond_the_tables_integers_is_refused_with_the_reason():
+    # results.parquet holds seeds as int64 (pyarrow); 2^63 - 1 fits, 2^63 does not
+    assert parse_seeds([2**63 - 1]) == (2**63 - 1,)
+    with pytest.raises(ValueError, match=r"\[0, 2\^63\) \(its tables store them as 64-bit"):
+        parse_seeds([2**63])
+
+
 def test_an_anneal_at_one_temperature_is_allowed():
     # t_end = t_start is a constant-temperature run, which geometric_schedule accepts too;
     # only a schedule that heats is refused

@@ -134,7 +134,10 @@ def parse_seeds(text: str | Iterable[int]) -> tuple[int, ...]:
             raise ValueError("the list of seeds is empty")
     bad = [s for s in seeds if s < 0 or s >= 2**63]
     if bad:
-        raise ValueError(f"seeds must be in [0, 2^63), got {bad[0]}")
+        raise ValueError(
+            f"seeds of a study must be in [0, 2^63) (its tables store them as 64-bit signed"
+            f" integers), got {bad[0]}"
+        )
     seen: set[int] = set()
     for s in seeds:
         if s in seen:
