@@ -94,6 +94,10 @@ def test_calibration_size_comes_from_the_mixtures_own_sizes():
     # above the 64 MB limit the largest size that fits is taken: p = 3 at n = 800 needs 685 MB
     big = MixtureSpec.make(oc.Mixture({3: 1.0}), "big", sizes="100,200,800")
     assert calibrate(StudySpec((big,), (20,), (0,), spec.methods))["big"].n0 == 200
+    # and never above n = 400, where one calibration Hessian would already cost seconds:
+    # pure p = 2 at n = 1000 needs only 4 MB, yet it is timed at 400
+    wide = MixtureSpec.make(oc.Mixture({2: 1.0}), "wide", sizes="600,1000")
+    assert calibrate(StudySpec((wide,), (20,), (0,), spec.methods))["wide"].n0 == 400
 
 
 def _hessian_spec(steps) -> StudySpec:

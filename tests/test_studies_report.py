@@ -291,6 +291,8 @@ def test_report_statistics_against_independent_formulas(tmp_path):
     assert fit["laws_kept"] == [law["exponent"] for law in kept]
     lows, highs = [law["low"] for law in kept], [law["high"] for law in kept]
     assert (fit["law_low"], fit["law_high"]) == (min(lows), max(highs))
+    regions = fit["law_regions"]
+    assert (min(r[0] for r in regions), max(r[1] for r in regions)) == (min(lows), max(highs))
     assert rep.missing == 0 and not any("no result yet" in f for f in rep.findings)
     sizes = np.array([20, 40, 80])
     means = np.array([np.mean([e[(n, s)] for s in range(8)]) for n in sizes])
@@ -503,6 +505,11 @@ def test_a_gap_between_kept_laws_counts_only_without_a_rejected_law_inside_it():
     assert "only under a law between n^(-2/3) and n^(-1)" in text
     text = _verdict(fit(0.01), 1.50, 0.5, "ALG")
     assert "only under" not in text and "the nearest law the data keep" in text
+    # the kept laws form one region, or two split by the rejected n^(-2/3)
+    from orthoclimb.studies.report import _regions
+
+    assert [[law["exponent"] for law in run] for run in _regions(fit(0.5))] == [[0.5, 2 / 3, 1.0]]
+    assert [[law["exponent"] for law in run] for run in _regions(fit(0.01))] == [[0.5], [1.0]]
 
 
 def test_no_error_estimate_never_tells_alg_from_gs(tmp_path):

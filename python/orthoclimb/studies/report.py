@@ -252,6 +252,8 @@ def build_report(
             entry["laws_kept"] = [law["exponent"] for law in kept]
             entry["law_low"] = min(law["low"] for law in kept)
             entry["law_high"] = max(law["high"] for law in kept)
+            # usually one region; two when the data reject the law between two kept ones
+            entry["law_regions"] = [list(_span(run)) for run in _regions(entry)]
             fits.append(entry)
     missing = len(spec.tasks()) - len(rows)
     degrees = {m.name: m.mixture.max_degree for m in spec.mixtures}
@@ -694,7 +696,8 @@ def _markdown(rep: Report) -> str:
         "seeds); z = (e_inf - theory)/s.e.(e_inf). That interval is statistical only: the "
         "fit is repeated under the exponents of the last column, each law is tested (p, a "
         "parametric bootstrap of chi2), and 'over laws' spans the intervals of the laws the "
-        "data do not reject; a theory value outside the interval but inside that range is "
+        "data do not reject (when it rejects a law between two kept ones, the findings give "
+        "the two ranges apart); a theory value outside the interval but inside that range is "
         "consistent only under another law. Head-to-head comparisons pair the methods "
         "seed by seed (paired t-test on the mean, sign test on the counts): on each instance "
         "both start from the same seeded random direction, and runs whose energies differ "
