@@ -152,6 +152,12 @@ def test_the_line_search_is_the_nonmonotone_test_of_grippo_lampariello_lucidi():
     assert all(e[k] >= e[max(0, k - 10) : k].min() for k in range(1, e.size))
     assert np.count_nonzero(np.diff(e) < 0) >= 5
     assert trace.passes <= 1.2 * trace.iterations
+    # stopped by the iteration cap inside a dip (62 here), it returns its best point, not the
+    # last one: the energy of the returned x is the path's maximum
+    capped = sphere_ascent(ham, np.random.default_rng(0).standard_normal(300), max_iter=62)
+    path = np.asarray(capped.rows["energy"])
+    assert capped.status == "max_iter" and path[-1] < path.max()
+    assert capped.energy == path.max() == pytest.approx(ham.energy(capped.x) / 300, rel=1e-12)
 
 
 def test_langevin_anneal():

@@ -23,7 +23,8 @@ test stricter than plain Armijo that halved many BB steps: on pure 3- and 4-spin
 six of the nine runs (another local maximum, higher in two, lower in one, in the others). Each
 trial point costs one energy-and-gradient pass. It stops when |G| <= gtol (converged), when the
 best energy so far has not grown by more than 1e-15 relative over 20 iterations (stalled:
-rounding level), or after ``max_iter`` iterations; the last iterate is returned.
+rounding level), or after ``max_iter`` iterations. A converged run returns its last iterate;
+a run stopped otherwise returns its best one, which a dip of the last steps may lie above.
 """
 
 from __future__ import annotations
@@ -87,6 +88,7 @@ def sphere_ascent(
     alpha = 0.1 * radius / max(gnorm, 1e-300)
     recent: deque[float] = deque([e], maxlen=_MEMORY)
     best = deque([e], maxlen=_STALL_WINDOW + 1)  # the best energy so far, per iteration
+    top = (x, e, gr, gnorm)  # the best point so far
     rows: dict[str, list] = {"iteration": [0], "energy": [e], "grad_norm": [gnorm], "alpha": [0.0]}
     status = "max_iter"
     it = 0
@@ -123,10 +125,14 @@ def sphere_ascent(
         gnorm = float(np.linalg.norm(gr))
         recent.append(e)
         best.append(max(best[-1], e))
+        if e > top[1]:
+            top = (x, e, gr, gnorm)
         rows["iteration"].append(it)
         rows["energy"].append(e)
         rows["grad_norm"].append(gnorm)
         rows["alpha"].append(a)
         if callback is not None:
             callback(it, x, e, gnorm)
+    if status != "converged" and top[1] > e:  # stopped inside a dip: the best point instead
+        x, e, gr, gnorm = top
     return AscentTrace(x, e, gnorm, it, passes, status, time.perf_counter() - start, rows)
