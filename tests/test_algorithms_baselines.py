@@ -158,6 +158,33 @@ def test_the_line_search_is_the_nonmonotone_test_of_grippo_lampariello_lucidi():
     path = np.asarray(capped.rows["energy"])
     assert capped.status == "max_iter" and path[-1] < path.max()
     assert capped.energy == path.max() == pytest.approx(ham.energy(capped.x) / 300, rel=1e-12)
+    assert path[capped.returned_iteration] == capped.energy and capped.returned_iteration < 62
+
+
+def test_the_armijo_term_refuses_a_step_that_gains_too_little():
+    # the sufficient-increase term itself (Armijo 1966; common practice): on a scripted
+    # landscape the first trial step (alpha = 0.1, |G| = 1 per spin) gains 1e-6 per spin, less
+    # than 1e-4 * alpha * |G|^2 = 1e-5, so it must be halved (a flipped sign or a missing
+    # term would accept it; the runs of real instances never depend on it, see above)
+    from orthoclimb.algorithms._riemannian import sphere_ascent
+
+    class Scripted:
+        n = 2
+
+        def __init__(self):
+            self.calls = 0
+
+        def energy_and_gradient(self, x):
+            self.calls += 1
+            if self.calls == 1:
+                return 0.0, np.array([0.0, 2.0])  # tangent at (1, 0): |G| = 1 per spin
+            if self.calls == 2:
+                return 2e-6, np.array([0.0, 2.0])  # 1e-6 per spin: too little
+            return 2.0, np.zeros(2)  # a clear gain, at a critical point
+
+    trace = sphere_ascent(Scripted(), np.array([1.0, 0.0]), gtol=1e-7, max_iter=5)
+    assert trace.rows["alpha"] == [0.0, 0.05] and trace.passes == 3
+    assert trace.status == "converged"
 
 
 def test_langevin_anneal():

@@ -49,7 +49,10 @@ _MAX_BACKTRACK = 60
 
 @dataclass
 class AscentTrace:
-    """Outcome of :func:`sphere_ascent`: final point, energy per spin, |G| per spin, status."""
+    """Outcome of :func:`sphere_ascent`: the returned point, its energy per spin and |G| per
+    spin, the status, and ``rows``, the whole path (iteration, energy, grad_norm, alpha) up to
+    the last iterate. ``returned_iteration`` is the path's row of the returned point: the last
+    one, unless a run stopped without converging inside a dip (see the module doc)."""
 
     x: np.ndarray
     energy: float
@@ -59,6 +62,7 @@ class AscentTrace:
     status: str  # "converged", "stalled" or "max_iter"
     seconds: float
     rows: dict[str, list] = field(default_factory=dict)
+    returned_iteration: int = -1
 
 
 def _tangent_grad(ham: Hamiltonian, x: np.ndarray, radius: float) -> tuple[float, np.ndarray]:
@@ -88,7 +92,7 @@ def sphere_ascent(
     alpha = 0.1 * radius / max(gnorm, 1e-300)
     recent: deque[float] = deque([e], maxlen=_MEMORY)
     best = deque([e], maxlen=_STALL_WINDOW + 1)  # the best energy so far, per iteration
-    top = (x, e, gr, gnorm)  # the best point so far
+    top = (x, e, gr, gnorm, 0)  # the best point so far, with its iteration
     rows: dict[str, list] = {"iteration": [0], "energy": [e], "grad_norm": [gnorm], "alpha": [0.0]}
     status = "max_iter"
     it = 0
@@ -126,13 +130,15 @@ def sphere_ascent(
         recent.append(e)
         best.append(max(best[-1], e))
         if e > top[1]:
-            top = (x, e, gr, gnorm)
+            top = (x, e, gr, gnorm, it)
         rows["iteration"].append(it)
         rows["energy"].append(e)
         rows["grad_norm"].append(gnorm)
         rows["alpha"].append(a)
         if callback is not None:
             callback(it, x, e, gnorm)
+    returned = it
     if status != "converged" and top[1] > e:  # stopped inside a dip: the best point instead
-        x, e, gr, gnorm = top
-    return AscentTrace(x, e, gnorm, it, passes, status, time.perf_counter() - start, rows)
+        x, e, gr, gnorm, returned = top
+    seconds = time.perf_counter() - start
+    return AscentTrace(x, e, gnorm, it, passes, status, seconds, rows, returned)

@@ -125,6 +125,8 @@ def gradient_ascent(
         "status": trace.status,
         "iterations": trace.iterations,
         "passes": trace.passes,
+        # the path's row of the returned point (the last, unless stopped inside a dip)
+        "returned_iteration": trace.returned_iteration,
     }
     if check:
         info.update(local_max_info(ham, trace.x))
