@@ -128,9 +128,9 @@ def sphere_ascent(
         x, e, gr = y, e_y, gr_y
         gnorm = float(np.linalg.norm(gr))
         recent.append(e)
-        best.append(max(best[-1], e))
         if e > top[1]:
             top = (x, e, gr, gnorm, it)
+        best.append(top[1])
         rows["iteration"].append(it)
         rows["energy"].append(e)
         rows["grad_norm"].append(gnorm)

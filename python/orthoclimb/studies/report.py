@@ -248,12 +248,12 @@ def build_report(
                 }
                 for o in others
             ]
-            kept = _kept_laws(entry)
-            entry["laws_kept"] = [law["exponent"] for law in kept]
-            entry["law_low"] = min(law["low"] for law in kept)
-            entry["law_high"] = max(law["high"] for law in kept)
+            entry["laws_kept"] = [law["exponent"] for law in _kept_laws(entry)]
             # usually one region; two when the data reject the law between two kept ones
-            entry["law_regions"] = [list(_span(run)) for run in _regions(entry)]
+            regions = [_span(run) for run in _regions(entry)]
+            entry["law_regions"] = [list(r) for r in regions]
+            entry["law_low"] = min(lo for lo, _ in regions)
+            entry["law_high"] = max(hi for _, hi in regions)
             fits.append(entry)
     missing = len(spec.tasks()) - len(rows)
     degrees = {m.name: m.mixture.max_degree for m in spec.mixtures}
@@ -316,10 +316,8 @@ def _law_span(f: dict[str, Any]) -> str:
 def _over_text(f: dict[str, Any]) -> str:
     """The range the verdicts read, for the finding: "over n^(-1/2) to n^(-1): a, b"."""
     spans = [_span(run) for run in _regions(f)]
-    ranges = " and ".join(f"{lo:.4f}, {hi:.4f}" for lo, hi in spans)
-    if len(spans) > 1:
-        ranges = " and ".join(f"[{lo:.4f}, {hi:.4f}]" for lo, hi in spans)
-    return f"over {_law_span(f)}: {ranges}"
+    form = "[{:.4f}, {:.4f}]" if len(spans) > 1 else "{:.4f}, {:.4f}"
+    return f"over {_law_span(f)}: " + " and ".join(form.format(*span) for span in spans)
 
 
 def _power(k: float) -> str:
@@ -365,16 +363,12 @@ def _verdict(f: dict[str, Any], target: float, z: float, what: str) -> str:
         if not lo <= target <= hi:
             continue
         holding = [law for law in run if law["low"] <= target <= law["high"]]
-        pair = (
-            next(
-                (a, b)
-                for a, b in itertools.pairwise(run)
-                if _span([a, b])[0] <= target <= _span([a, b])[1]
-            )
-            if not holding
-            else None
-        )
-        under = _powers(holding) if holding else f"a law between {_powers(list(pair))}"
+        if holding:
+            under = _powers(holding)
+        else:  # between two neighbours' intervals: an exponent between them fits
+            pairs = (list(pair) for pair in itertools.pairwise(run))
+            pair = next(p for p in pairs if _span(p)[0] <= target <= _span(p)[1])
+            under = f"a law between {_powers(pair)}"
         return (
             f"consistent with {what} = {target:.4f} only under {under} ({zt} under"
             f" {chosen}{rejected})"
@@ -550,8 +544,7 @@ def _findings(rep: Report, seeds: dict) -> list[str]:
                 f" nothing checks the {_power(f['exponent'])} law"
             )
         gs = f["gs"]
-        lowest = min(law["low"] for law in _kept_laws(f))  # the chosen law's, when kept alone
-        if math.isfinite(gs) and math.isfinite(lowest) and lowest > gs:
+        if math.isfinite(gs) and math.isfinite(f["law_low"]) and f["law_low"] > gs:
             text += (
                 f"; WARNING: the whole interval lies above the ground state GS = {gs:.4f}, which"
                 " bounds every n -> infinity energy: the sizes are too small (or too few) for"
