@@ -204,3 +204,38 @@ def test_samples_given_as_sizes_are_named():
     # the arguments swapped: the message points at the order
     with pytest.raises(ValueError, match=r"\(sizes, then samples\)"):
         extrapolate([[1.5, 1.6], [1.55, 1.65]], [100, 200])
+
+
+def test_extrapolation_exact_law_without_noise():
+    # exact identity: a noiseless e_inf + a n^(-2/3) law is recovered exactly
+    sizes = [50, 100, 200, 400]
+    samples = [1.5 - 2.0 * n ** (-2 / 3) + np.array([-1e-3, 1e-3]) for n in sizes]
+    ex = extrapolate(sizes, samples)
+    assert ex.value == pytest.approx(1.5, abs=1e-10)
+    assert ex.slope == pytest.approx(-2.0, abs=1e-8)
+
+
+def test_extrapolation_interval_covers_at_stated_rate():
+    # common practice (frequentist coverage): over 200 synthetic studies with a known
+    # n^(-2/3) law and Gaussian noise, the 90% interval covers e_inf = 1.5 in 90% +- 3
+    # binomial s.e. (sqrt(0.9 * 0.1 / 200) = 0.021) of draws; fixed seeds, not flaky.
+    rng = np.random.default_rng(20261201)
+    sizes = [50, 100, 200, 400]
+    draws, hits, widths = 200, 0, []
+    for r in range(draws):
+        samples = [
+            1.5 - 2.0 * n ** (-2 / 3) + 0.3 * n ** (-1 / 3) * rng.standard_normal(10) for n in sizes
+        ]
+        ex = extrapolate(sizes, samples, level=0.9, n_boot=1000, seed=r)
+        hits += ex.low <= 1.5 <= ex.high
+        widths.append(ex.high - ex.low)
+    rate = hits / draws
+    assert abs(rate - 0.9) <= 3 * math.sqrt(0.9 * 0.1 / draws), rate
+    assert np.median(widths) < 0.2  # and the interval is not trivially wide
+
+
+def test_extrapolation_refuses_too_little_data():
+    with pytest.raises(ValueError, match="2 sizes"):
+        extrapolate([10], [[1.0, 2.0]])
+    with pytest.raises(ValueError, match="2 seeds"):
+        extrapolate([10, 20], [[1.0], [1.0, 2.0]])

@@ -1,0 +1,112 @@
+"""The report's figures: energy_vs_n.png and distribution.png, written atomically.
+
+energy_vs_n: per mixture, the mean energy per spin +- its standard error against n^(-k), each
+method's fitted line, e_inf with its interval at n^(-k) = 0, and the ALG and GS lines.
+distribution: per mixture, the energies per spin over seeds at each n (bar: their mean).
+"""
+
+from __future__ import annotations
+
+from pathlib import Path
+from typing import TYPE_CHECKING
+
+import numpy as np
+
+from ..fileio import save_figure_atomic
+
+if TYPE_CHECKING:
+    from .report import Report
+
+__all__ = ["write_plots"]
+
+
+def write_plots(rep: Report, data: dict, folder: Path) -> dict[str, str]:
+    """Draw both figures into ``folder``; returns their paths by name."""
+    from matplotlib.figure import Figure
+
+    mixtures = list(rep.theory)
+    methods = [m.name for m in rep.spec.methods]
+    colors = {m: f"C{i}" for i, m in enumerate(methods)}
+    k = next((f["exponent"] for f in rep.fits if f.get("exponent")), rep.spec.exponent)
+    fig = Figure(figsize=(5.2 * len(mixtures), 4.2), layout="constrained")
+    axes = fig.subplots(1, len(mixtures), squeeze=False)[0]
+    for ax, mix in zip(axes, mixtures, strict=True):
+        th = rep.theory[mix]
+        xmax = 0.0
+        for meth in methods:
+            gs_ = [g for g in rep.groups if g["mixture"] == mix and g["method"] == meth]
+            if not gs_:
+                continue
+            x = np.array([g["n"] for g in gs_], float) ** (-k)
+            xmax = max(xmax, float(x.max()))
+            ax.errorbar(
+                x,
+                [g["mean"] for g in gs_],
+                yerr=[g["se"] for g in gs_],
+                fmt="o",
+                color=colors[meth],
+                label=meth,
+                capsize=3,
+            )
+            fit = next(
+                (
+                    f
+                    for f in rep.fits
+                    if f["mixture"] == mix and f["method"] == meth and f.get("value") is not None
+                ),
+                None,
+            )
+            if fit:
+                xs = np.linspace(0, x.max(), 50)
+                ax.plot(xs, fit["value"] + fit["slope"] * xs, "-", color=colors[meth], lw=1)
+                ax.errorbar(
+                    [0],
+                    [fit["value"]],
+                    yerr=[[fit["value"] - fit["low"]], [fit["high"] - fit["value"]]],
+                    fmt="s",
+                    color=colors[meth],
+                    capsize=4,
+                    mfc="white",
+                )
+        ax.axhline(th["alg"], color="k", ls="--", lw=1, label=f"ALG {th['alg']:.4f}")
+        if abs(th["gap_gs_alg"]) > 1e-4:
+            ax.axhline(th["gs"], color="0.4", ls=":", lw=1.5, label=f"GS {th['gs']:.4f}")
+        ax.set_xlim(-0.03 * max(xmax, 1e-3), 1.05 * max(xmax, 1e-3))
+        ax.set_xlabel(f"n^(-{k:.3g})")
+        ax.set_ylabel("energy per spin H(x)/n")
+        ax.set_title(f"{mix}  (gammas {th['gammas']})", fontsize=10)
+        ax.legend(fontsize=8)
+    out = {"energy_vs_n": str(save_figure_atomic(fig, folder / "energy_vs_n.png", dpi=110))}
+
+    fig = Figure(figsize=(5.2 * len(mixtures), 4.2), layout="constrained")
+    axes = fig.subplots(1, len(mixtures), squeeze=False)[0]
+    rng = np.random.default_rng(0)
+    for ax, mix in zip(axes, mixtures, strict=True):
+        sizes = sorted({n for (m, _, n) in data if m == mix})
+        width = 0.8 / max(1, len(methods))
+        for j, meth in enumerate(methods):
+            for i, n in enumerate(sizes):
+                v = data.get((mix, meth, n))
+                if v is None:
+                    continue
+                pos = i + (j - (len(methods) - 1) / 2) * width
+                ax.scatter(
+                    pos + rng.uniform(-0.3, 0.3, v.size) * width,
+                    v,
+                    s=10,
+                    color=colors[meth],
+                    alpha=0.6,
+                    label=meth if i == 0 else None,
+                )
+                ax.hlines(v.mean(), pos - 0.4 * width, pos + 0.4 * width, color="k", lw=1.5)
+        th = rep.theory[mix]
+        ax.axhline(th["alg"], color="k", ls="--", lw=1, label="ALG")
+        if abs(th["gap_gs_alg"]) > 1e-4:
+            ax.axhline(th["gs"], color="0.4", ls=":", lw=1.5, label="GS")
+        ax.set_xticks(range(len(sizes)), [str(n) for n in sizes])
+        ax.set_xlabel("n")
+        ax.set_ylabel("energy per spin over seeds (bar: mean)")
+        ax.set_title(mix, fontsize=10)
+        ax.legend(fontsize=8)
+    out["distribution"] = str(save_figure_atomic(fig, folder / "distribution.png", dpi=110))
+    return out

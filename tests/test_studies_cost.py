@@ -1,0 +1,134 @@
+"""The cost section of the report: median run time against n, the exponent b of t ~ n^b,
+its standard error and the rising-slope and fixed-cost flags."""
+
+from __future__ import annotations
+
+import math
+
+import numpy as np
+import pytest
+
+from orthoclimb.studies.grid import spec_from_flags
+from orthoclimb.studies.report import build_report, write_report
+from orthoclimb.studies.store import Store
+
+
+def test_report_fits_the_cost_of_a_run_against_n(tmp_path):
+    # exact identity: medians of t = c n^3 (1 + s/100) over seeds s are c' n^3, so the
+    # least-squares slope of log t on log n is 3 (numpy.polyfit on exact data), and it does
+    # not rise; a tenfold outlier at one seed leaves the median of four (1.015 c n^3) alone,
+    # where a mean would move; rows without a time (older studies) or with a zero time are
+    # left out, not counted
+    spec = spec_from_flags(["3:1"], None, "20,40,80", "0-4", "gradient")
+    store = Store.open(tmp_path / "c", spec)
+    for t in spec.tasks():
+        row = {"task_id": t.task_id, "mixture": t.mixture.name, "method": t.method.name}
+        row.update(n=t.n, seed=t.seed, energy=1.5 + 0.01 * t.seed - t.n ** (-2 / 3))
+        if t.seed < 4:
+            factor = 10.0 if t.seed == 3 else 1 + t.seed / 100
+            row.update(seconds_run=2e-9 * t.n**3 * factor, seconds_sample=1e-3)
+        elif t.n == 20:
+            row.update(seconds_run=0.0, seconds_sample=1e-3)
+        store.write_row(row)
+    rep = build_report(tmp_path / "c")
+    (cost,) = rep.cost
+    assert cost["sizes"] == [20, 40, 80] and cost["count"] == [4, 4, 4]
+    assert cost["exponent"] == pytest.approx(3.0, abs=1e-12)
+    assert cost["median_seconds_run"][0] == pytest.approx(2e-9 * 20**3 * 1.015)
+    assert cost["max_degree"] == 3
+    line = "\n".join(rep.findings)
+    assert "a run's median time grows like n^3.00 +- 0.00 over n = 20..80" in line
+    assert cost["fixed_cost_bound"] is False and cost["rising"] is False
+    write_report(tmp_path / "c", plots=False)
+    md = (tmp_path / "c" / "report.md").read_text()
+    assert "## Cost" in md and "| 3.00 +- 0.00 | 3.00 |" in md
+
+
+def test_cost_exponent_has_its_standard_error_and_says_when_the_slope_rises(tmp_path):
+    # t = c0 + c n^3 with c0 half the time at n = 100, 1% apart over seeds: the medians'
+    # log-log line (reference: scipy.stats.linregress, slope and its standard error) has
+    # b = 2.44 +- 0.15 while the last pair's slope is 2.84, far beyond the seeds' noise, so b
+    # is a lower bound and the report says so
+    from scipy import stats
+
+    sizes = [100, 150, 220, 320]
+    spec = spec_from_flags(["3:1"], None, ",".join(map(str, sizes)), "0-2", "gradient")
+    store = Store.open(tmp_path / "r", spec)
+    for t in spec.tasks():
+        base = 1e-9 * (100**3 + t.n**3)
+        row = {"task_id": t.task_id, "mixture": t.mixture.name, "method": t.method.name}
+        row.update(n=t.n, seed=t.seed, energy=1.5 - t.n ** (-2 / 3) + 0.01 * t.seed)
+        row.update(seconds_run=base * (1.0 + 0.01 * t.seed))
+        store.write_row({**row, "seconds_sample": 1e-4})
+    (cost,) = build_report(tmp_path / "r").cost
+    medians = [1e-9 * (100**3 + n**3) * 1.01 for n in sizes]
+    assert cost["median_seconds_run"] == pytest.approx(medians, rel=1e-12)
+    fit = stats.linregress(np.log(sizes), np.log(medians))
+    assert cost["exponent"] == pytest.approx(fit.slope, rel=1e-10)
+    assert cost["exponent_se"] == pytest.approx(fit.stderr, rel=1e-8)
+    assert cost["exponent_last"] == pytest.approx(
+        math.log(medians[3] / medians[2]) / math.log(320 / 220)
+    )
+    assert cost["rising"] is True and cost["fixed_cost_bound"] is False
+    (line,) = [f for f in build_report(tmp_path / "r").findings if "median time" in f]
+    assert "grows like n^2.44 +- 0.15" in line and "the slope rises with n (n^2.84" in line
+
+
+def test_a_last_slope_within_the_seeds_noise_is_not_called_rising():
+    # a pure n^3 law with 30% lognormal noise over 5 seeds at 3 sizes (generator fixed): the
+    # last pair's slope exceeds b by more than RISING_MIN = 0.1, but by less than twice its
+    # bootstrap spread over seeds, so it is noise, not fixed costs; with 2 seeds per size the
+    # bootstrap has no spread to measure, and nothing is claimed
+    from orthoclimb.studies.cost import RISING_MIN, cost_table
+
+    rng = np.random.default_rng(9)
+    sizes = [100, 150, 220]
+    rows = []
+    for n in sizes:
+        for _ in range(5):
+            t = 1e-9 * n**3 * math.exp(0.3 * rng.standard_normal())
+            rows.append({"mixture": "m", "method": "x", "n": n, "seconds_run": t})
+    (cost,) = cost_table(rows, {"m": 3})
+    assert cost["exponent_last"] - cost["exponent"] > RISING_MIN
+    assert cost["rising"] is False
+    # two seeds per size (generator 24: excess 0.73, which a bootstrap over two values calls
+    # far beyond its spread) are too few to tell
+    rng = np.random.default_rng(24)
+    two = [
+        {"mixture": "m", "method": "x", "n": n, "seconds_run": 1e-9 * n**3 * math.exp(0.3 * g)}
+        for n in sizes
+        for g in rng.standard_normal(2)
+    ]
+    (few,) = cost_table(two, {"m": 3})
+    assert few["count"] == [2, 2, 2] and few["exponent_last"] - few["exponent"] > 0.5
+    assert few["rising"] is False
+
+
+def test_a_time_that_grows_more_slowly_than_n_is_flagged_as_fixed_costs(tmp_path):
+    # exact identity: medians of t = c n^0.5 give the slope 0.5 < 1, which no method reading
+    # every coefficient per step can have; the report says so instead of quoting it as the
+    # method's scaling, and the table shows b in parentheses
+    spec = spec_from_flags(["3:1"], None, "20,40,80", "0-2", "gradient")
+    store = Store.open(tmp_path / "f", spec)
+    for t in spec.tasks():
+        row = {"task_id": t.task_id, "mixture": t.mixture.name, "method": t.method.name}
+        row.update(n=t.n, seed=t.seed, energy=1.5 - t.n ** (-2 / 3))
+        row.update(seconds_run=1e-3 * t.n**0.5, seconds_sample=1e-4)
+        store.write_row(row)
+    rep = build_report(tmp_path / "f")
+    (cost,) = rep.cost
+    assert cost["exponent"] == pytest.approx(0.5, abs=1e-12)
+    assert cost["fixed_cost_bound"] is True
+    (line,) = [f for f in rep.findings if "median time" in f]
+    assert "grows more slowly than n (n^0.50) over n = 20..80" in line
+    assert "fixed per-run costs" in line and "grows like" not in line
+    write_report(tmp_path / "f", plots=False)
+    assert "| (0.50 +- 0.00) | 0.50 |" in (tmp_path / "f" / "report.md").read_text()
+    # times that fall with n (the quick demo's n^-0.44) are not said to grow
+    for t in spec.tasks():
+        row = {"task_id": t.task_id, "mixture": t.mixture.name, "method": t.method.name}
+        row.update(n=t.n, seed=t.seed, energy=1.5, seconds_run=1e-3 * t.n**-0.5)
+        store.row_path(t.task_id).unlink()
+        store.write_row({**row, "seconds_sample": 1e-4})
+    (line,) = [f for f in build_report(tmp_path / "f").findings if "median time" in f]
+    assert "falls as n grows (n^-0.50)" in line and "grows" not in line.replace("n grows", "")

@@ -1,0 +1,137 @@
+"""The profile command: kernel timings against n, the fitted exponents and the plan it
+prints before timing."""
+
+from __future__ import annotations
+
+import json
+import math
+
+import pytest
+
+from orthoclimb import Mixture
+from orthoclimb.cli import main
+
+
+def test_profile_command(tmp_path, capsys):
+    code = main(
+        [
+            "profile",
+            "--gammas",
+            "3:1",
+            "--n",
+            "30,60",
+            "--repeats",
+            "1",
+            "--out",
+            str(tmp_path / "p"),
+            "--json",
+        ]
+    )
+    assert code == 0
+    prof = json.loads(capsys.readouterr().out)
+    assert [r["n"] for r in prof["rows"]] == [30, 60]
+    assert set(prof["exponents"]) >= {"energy", "hessian"}
+    # exact identities: N(n) = C(n+2, 3) coefficients at p = 3, and with two sizes the
+    # least-squares slope is the slope between them
+    for r in prof["rows"]:
+        assert r["coefficients"] == math.comb(r["n"] + 2, 3)
+        assert r["ns_per_coefficient"]["hvp"] == pytest.approx(1e9 * r["hvp"] / r["coefficients"])
+    for k, b in prof["exponents"].items():
+        assert prof["exponents_largest_pair"][k] == pytest.approx(b)
+    assert (tmp_path / "p" / "profile.png").stat().st_size > 0
+
+
+def test_fit_exponents_recovers_power_laws():
+    from orthoclimb.studies.profile import KERNELS, fit_exponents
+
+    # synthetic times: t = c n^3 for every kernel except a fixed 1 ms added to the Hessian,
+    # whose fit must then fall below 3 over all sizes and approach 3 at the largest pair
+    rows = []
+    for n in (50, 100, 200, 400, 800):
+        row = {k: 2e-9 * n**3 for k in (*KERNELS, "sample")}
+        row["hessian"] += 1e-3
+        rows.append({"n": n, **row})
+    fit, pair = fit_exponents(rows[::-1])  # order of rows does not matter
+    assert fit["energy"] == pytest.approx(3.0) and pair["energy"] == pytest.approx(3.0)
+    assert fit["hessian"] < 2.9 < pair["hessian"] < 3.0
+
+
+def test_profile_says_its_size_first_and_estimates_each_next_size(tmp_path, capsys):
+    # exact: pure p = 3 at n = 60 has C(62, 3) = 37820 coefficients; the guess for the next
+    # size is this size's wall time times the ratio of coefficient counts
+    seen = []
+    from orthoclimb.studies.profile import profile_kernels
+
+    profile_kernels(Mixture.parse("3:1"), [60, 30], 1, lambda *a: seen.append(a))
+    (row30, nxt, guess), (row60, last, none) = seen
+    assert (row30["n"], nxt, row60["n"], last, none) == (30, 60, 60, None, None)
+    assert guess == pytest.approx(row30["wall"] * math.comb(62, 3) / math.comb(32, 3))
+    args = ["profile", "--gammas", "3:1", "--n", "30,60", "--repeats", "1"]
+    assert main([*args, "--out", str(tmp_path / "p")]) == 0
+    err = capsys.readouterr().err
+    assert err.index("holds 37,820 coefficients") < err.index("n = 30: done")
+    assert "next n = 60: about" in err
+
+
+def test_profile_explains_a_slope_above_the_degree(tmp_path, capsys, monkeypatch):
+    # synthetic timings: n^3 throughout, except that the Hessian's time per coefficient
+    # doubles between the two largest sizes (the step of a cache): b = 4 there, above P = 3
+    import orthoclimb.studies.profile as profile_module
+    from orthoclimb.studies.profile import KERNELS, fit_exponents
+
+    def fake(mixture, sizes, repeats, on_size=None):
+        rows = []
+        for n in sorted(sizes):
+            t = {k: 1e-9 * n**3 for k in (*KERNELS, "sample")}
+            if n == max(sizes):
+                t["hessian"] *= 2
+            per = {k: 1e9 * t[k] / n**3 for k in t}
+            rows.append({"n": n, "coefficients": n**3, **t, "ns_per_coefficient": per})
+        fit, pair = fit_exponents(rows)
+        return {
+            "mixture": "3:1.0",
+            "max_degree": 3,
+            "threads": 1,
+            "rows": rows,
+            "exponents": fit,
+            "exponents_largest_pair": pair,
+        }
+
+    monkeypatch.setattr(profile_module, "profile_kernels", fake)
+    monkeypatch.setattr(
+        profile_module, "write_profile", lambda prof, out: {"json": "j", "plot": "p"}
+    )
+    assert main(["profile", "--gammas", "3:1", "--n", "100,200,400", "--out", str(tmp_path)]) == 0
+    out = capsys.readouterr().out
+    assert "b above P between n = 200 and 400 (hessian)" in out
+    assert "hessian 1 -> 2 ns" in out
+    assert "energy," not in out.split("b above P")[1]  # only the kernel whose slope is above
+
+
+def test_profile_refuses_before_timing_or_printing_its_plan(tmp_path, capsys):
+    # an instance too large for memory (p = 3 at n = 100000: 1.3e15 bytes) and --repeats 0
+    # are refused before any size is sampled or timed and before the plan line is printed
+    from orthoclimb.studies.profile import profile_kernels
+
+    seen = []
+    with pytest.raises(MemoryError):
+        profile_kernels(Mixture.parse("3:1"), [50, 100000], 1, lambda *a: seen.append(a))
+    assert seen == []  # n = 50 was not timed first
+    for extra in (["--n", "50,100000"], ["--n", "50,60", "--repeats", "0"]):
+        args = ["profile", "--gammas", "3:1", *extra, "--out", str(tmp_path / "p")]
+        assert main(args) == 2
+        err = capsys.readouterr().err
+        assert "error:" in err and "profile: n =" not in err and "done in" not in err
+
+
+def test_profile_notes_threads_beyond_the_cores(tmp_path, capsys):
+    # as climb: a --threads above the cores this process may use is kept, with a note first
+    import orthoclimb as oc
+    from orthoclimb.studies.engine import available_cores
+
+    cores, before = available_cores(), oc.get_num_threads()
+    args = ["profile", "--gammas", "3:1", "--n", "20,30", "--repeats", "1"]
+    assert main([*args, "--threads", str(cores + 1), "--out", str(tmp_path / "p")]) == 0
+    err = capsys.readouterr().err
+    assert err.startswith(f"note: --threads {cores + 1} is more than the {cores} core")
+    oc.set_num_threads(before)
