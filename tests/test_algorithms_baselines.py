@@ -292,3 +292,58 @@ def test_absurd_langevin_options_are_named_when_the_step_overflows(eta, t_start,
     with pytest.raises(ValueError, match=r"step 0 overflowed .*eta = 1e\+300"):
         oc.langevin_anneal(ham, eta=eta, schedule=schedule)
     assert not [w for w in recwarn if issubclass(w.category, RuntimeWarning)]
+
+
+def test_a_point_stopped_on_a_slope_is_no_local_maximum():
+    # a local maximum is a critical point with no positive tangent eigenvalue: a run cut off
+    # by its cap after 20 iterations has none positive here, but its tangent gradient is far
+    # above gtol, so it is no maximum (before: local_max True, and the CLI said "yes")
+    ham = oc.Hamiltonian.sample(oc.Mixture({3: 1.0}), 80, seed=7)
+    res = oc.gradient_ascent(ham, max_iter=20)
+    assert res.info["status"] == "max_iter" and res.info["grad_norm"] > 1e-2
+    assert res.info["n_positive"] == 0 and res.info["local_max"] is False
+    done = oc.gradient_ascent(ham)  # the same start, run to convergence
+    assert done.info["grad_norm"] <= 1e-7 and done.info["local_max"] is True
+
+
+def test_polish_says_converged_only_below_its_gtol():
+    # a cap that stage 1 uses up exactly at its hand-over tolerance, with Newton stopping short
+    # of gtol = 1e-16, used to be reported "converged" at |P grad H|/n ~ 1e-10 (a review)
+    ham = oc.Hamiltonian.sample(oc.Mixture({3: 1.0}), 100, seed=3)
+    x = np.random.default_rng(1).standard_normal(100)
+    for cap in (60, 72, 90, 2000):
+        res = oc.polish(ham, x, gtol=1e-16, max_iter=cap)
+        converged = res.info["status"] == "converged"
+        assert converged == (res.info["grad_norm"] <= 1e-16), (cap, res.info["status"])
+        assert res.info["local_max"] is converged
+
+
+@pytest.mark.parametrize("scale", [1e200, 1e-170])
+def test_a_start_of_any_finite_size_is_a_direction(scale):
+    # x is only a direction: 1e200 * ones has a norm that overflows (x/inf was the zero
+    # vector, "a local maximum" with every eigenvalue 0) and 1e-170 * ones one that
+    # underflows ("x is the zero vector"); both must give the results of ones itself
+    ham = oc.Hamiltonian.sample(oc.Mixture({3: 1.0}), 30, seed=0)
+    ones = np.ones(30)
+    assert tangent_spectrum(ham, scale * ones) == tangent_spectrum(ham, ones)
+    a, b = oc.polish(ham, scale * ones), oc.polish(ham, ones)
+    np.testing.assert_array_equal(a.x, b.x)
+    assert tangent_spectrum(ham, ones)["n_positive"] > 0  # the case is not trivial
+
+
+@pytest.mark.parametrize(
+    "run",
+    [
+        lambda h: oc.gradient_ascent(h),
+        lambda h: oc.langevin_anneal(h),
+        lambda h: oc.polish(h, np.ones(1)),
+        lambda h: tangent_spectrum(h, np.ones(1)),
+        lambda h: oc.hessian_ascent(h),
+    ],
+)
+def test_one_spin_is_refused_by_every_algorithm(run):
+    # the sphere of n = 1 is the points -1 and +1: gradient ascent used to return whichever
+    # the seed picked (the minimum for this seed of pure p = 1), "converged", "local maximum"
+    ham = oc.Hamiltonian.sample(oc.Mixture({1: 1.0}), 1, seed=0)
+    with pytest.raises(ValueError, match=r"needs n >= 2: the sphere of n = 1"):
+        run(ham)

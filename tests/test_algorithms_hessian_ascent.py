@@ -317,8 +317,9 @@ def test_top_tangent_eigenpair_when_every_tangent_eigenvalue_is_negative(n, as_o
 def test_an_unconverged_lanczos_returns_the_largest_converged_pair(monkeypatch):
     # ARPACK lists the converged pairs in ascending order; an operator that did not converge
     # falls back on the largest of them, not the first (a diagonal operator: exact pairs)
-    import orthoclimb.algorithms._eigen as eigen_module
     from scipy.sparse.linalg import ArpackNoConvergence
+
+    import orthoclimb.algorithms._eigen as eigen_module
 
     n = 40
     u = np.zeros(n)

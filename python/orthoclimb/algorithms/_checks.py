@@ -24,8 +24,16 @@ __all__ = [
 
 
 def check_ham(ham: Any, where: str) -> Hamiltonian:
+    """``ham`` if it is a Hamiltonian of n >= 2 spins: at n = 1 the unit sphere is the two
+    points -1 and +1, with no tangent direction to climb along or to check (compare
+    ``ham.energy`` at both instead)."""
     if not isinstance(ham, Hamiltonian):
         raise TypeError(f"{where} needs an orthoclimb.Hamiltonian, got {type(ham).__name__}")
+    if ham.n < 2:
+        raise ValueError(
+            f"{where} needs n >= 2: the sphere of n = {ham.n} is the two points -1 and +1, with"
+            " no tangent direction to climb along (compare ham.energy at both instead)"
+        )
     return ham
 
 
@@ -82,7 +90,10 @@ def check_unit_start(x: Any, n: int, name: str = "x") -> np.ndarray:
     arr = as_float_array(x, name)  # refuses booleans and complex numbers; converts integers
     if arr.shape != (n,):
         raise ShapeError(f"{name} must have shape ({n},), got {arr.shape}")
-    norm = float(np.linalg.norm(arr))
-    if norm == 0.0:
+    # scaled by its largest entry first: the norm of 1e200 * ones overflows to inf (and x/inf
+    # is the zero vector), that of 1e-170 * ones underflows to 0
+    big = float(np.max(np.abs(arr))) if arr.size else 0.0  # finite: as_float_array checked
+    if big == 0.0:
         raise ValueError(f"{name} is the zero vector; it has no direction on the sphere")
-    return arr / norm
+    arr = arr / big
+    return arr / float(np.linalg.norm(arr))

@@ -129,7 +129,7 @@ def gradient_ascent(
         "returned_iteration": trace.returned_iteration,
     }
     if check:
-        info.update(local_max_info(ham, trace.x))
+        info.update(local_max_info(ham, trace.x, gtol))
     _add_theory(ham, info, trace.energy)
     config = base_config(ham, "gradient", seed=seed, gtol=gtol, max_iter=max_iter)
     path = {k: np.asarray(v) for k, v in trace.rows.items()}

@@ -217,11 +217,6 @@ def hessian_ascent(
     """
     ham = check_ham(ham, "hessian_ascent")
     warn_if_far_scale(ham, "hessian_ascent")
-    if ham.n < 2:
-        raise ValueError(
-            f"hessian_ascent needs n >= 2: the sphere of n = {ham.n} is two points, with no "
-            "tangent direction to climb along"
-        )
     k = auto_steps(ham.n) if steps is None else check_count(steps, "steps")
     delta = check_positive(tol, "tol")
     seed = check_seed(seed)

@@ -164,6 +164,10 @@ def _polish(ham: Hamiltonian, x0: np.ndarray, gtol: float, max_iter: int, check:
                 rows[k].extend(extra)
             x, energy, gnorm, status = rest.x, rest.energy, rest.grad_norm, rest.status
             iterations, passes = iterations + rest.iterations, passes + rest.passes
+    if gnorm > gtol and status == "converged":
+        # stage 1 converged to its hand-over tolerance with the last allowed iteration and
+        # Newton stopped short: the cap, not convergence, ended the polish
+        status = "max_iter"
     info: dict[str, Any] = {
         "energy_start": e_start,
         "grad_norm": gnorm,
@@ -174,7 +178,7 @@ def _polish(ham: Hamiltonian, x0: np.ndarray, gtol: float, max_iter: int, check:
         "passes": passes,
     }
     if check:
-        info.update(local_max_info(ham, x))
+        info.update(local_max_info(ham, x, gtol))
     config = base_config(ham, "polish", gtol=gtol, max_iter=max_iter)
     path = {k: np.asarray(v) for k, v in rows.items()}
     return Result(x, energy, path, config, time.perf_counter() - start, info)
@@ -189,12 +193,15 @@ def _newton_fits(ham: Hamiltonian) -> bool:
     return need <= available_memory() // 2
 
 
-def local_max_info(ham: Hamiltonian, x: np.ndarray) -> dict[str, Any]:
-    """The :func:`tangent_spectrum` fields plus ``local_max`` (no positive eigenvalue)."""
+def local_max_info(ham: Hamiltonian, x: np.ndarray, gtol: float) -> dict[str, Any]:
+    """The :func:`tangent_spectrum` fields plus ``local_max``: x is critical to the run's own
+    tolerance (|P grad H(x)|/n <= ``gtol``) and no tangent eigenvalue is positive. (A point
+    stopped by an iteration cap on a slope has no positive eigenvalue either, but is no
+    maximum.)"""
     spec = tangent_spectrum(ham, x)
     return {
         "n_positive": spec["n_positive"],
         "top_eigenvalue": spec["top_eigenvalue"],
         "spectrum_exhaustive": spec["exhaustive"],
-        "local_max": spec["n_positive"] == 0,
+        "local_max": spec["n_positive"] == 0 and spec["grad_norm"] <= gtol,
     }
