@@ -80,6 +80,8 @@ def test_climb_baselines_json(tmp_path, capsys, method, cap):
         ["--tol", "-1"],
         ["--n", "0"],
         ["--n", "1"],  # Hessian ascent needs a tangent direction
+        ["--n", "1", "--method", "gradient"],  # and so does every method (it returned -1 or +1)
+        ["--out", ""],  # wrote into the working folder
         ["--method", "gradient", "--tol", "5"],  # an option of another method: not ignored
         ["--method", "gradient", "--no-polish"],
         ["--method", "gradient", "--steps", "50"],  # gradient's cap is --max-iter, as in sweep
@@ -98,6 +100,48 @@ def test_climb_bad_input(tmp_path, capsys, extra):
         args += extra
     assert main(args) == 2
     assert "error" in capsys.readouterr().err
+
+
+@pytest.mark.parametrize("method", ["hessian", "gradient", "anneal"])
+def test_climb_estimates_the_polish_and_a_gradient_cap_and_draws_no_bar_in_a_log(
+    tmp_path, capsys, method
+):
+    # the estimate counts what the run will do: the polish's passes (hessian, anneal), and
+    # for gradient ascent its typical iterations with the time at the cap; a log (stderr not
+    # a terminal, as under capsys) gets no progress-bar frames
+    args = ["climb", "--gammas", "3:1", "--n", "30", "--method", method, "--out", str(tmp_path)]
+    assert main(args) == 0
+    captured = capsys.readouterr()
+    line = next(s for s in captured.out.splitlines() if "estimated run time" in s)
+    if method == "gradient":
+        assert "typically 150 iterations; at most" in line and "--max-iter 2000" in line
+    else:
+        assert "and the polish)" in line
+    assert "\r" not in captured.err and "it/s" not in captured.err and "step/s" not in captured.err
+    if method != "gradient":
+        assert main([*args, "--no-polish"]) == 0
+        assert "and the polish" not in capsys.readouterr().out
+
+
+def test_the_sampling_time_is_estimated_before_a_large_instance_is_sampled(monkeypatch):
+    # above 256 MB, climb times an instance of at most 64 MB and scales by the bytes (one
+    # Gaussian per coefficient): the probe's size and the scaling, with a fake clock
+    import orthoclimb.cli.climb_cmd as climb_module
+
+    ticks = iter([0.0, 0.5])
+    monkeypatch.setattr(climb_module.time, "perf_counter", lambda: next(ticks))
+    mix = oc.Mixture({3: 1.0})
+    need = oc.estimate_memory(mix, 800)
+    text = climb_module._sampling_estimate(mix, 800, "float64", need)
+    n0 = int(text.split("n = ")[1].rstrip(")"))
+    probe = oc.estimate_memory(mix, n0)
+    # the largest size of the chain n, 0.9 n, 0.81 n, ... within 64 MB: at p = 3 at least
+    # 0.9^3 of it
+    assert 0.9**3 * 64 * 2**20 < probe <= 64 * 2**20
+    assert text.startswith(f"sampling: about {0.5 * need / probe:.2g} s")
+    assert (
+        climb_module._sampling_estimate(mix, 400, "float64", oc.estimate_memory(mix, 400)) is None
+    )
 
 
 @pytest.mark.parametrize(

@@ -57,7 +57,9 @@ def plot_result(result: Result, path: str | os.PathLike) -> None:
         ax2.set_title("tangent gradient" + (" and temperature" if "temperature" in p else ""))
     if alg is not None:
         ax1.axhline(alg, color="C2", ls="--", lw=1, label=f"ALG = {alg:.5f}")
-    ax1.axhline(result.energy, color="C3", ls=":", lw=1, label="final (polished)")
+    polished = "polish" in result.info  # hessian and anneal runs that polished
+    final = "final (polished)" if polished else "final"
+    ax1.axhline(result.energy, color="C3", ls=":", lw=1, label=final)
     ax1.set_ylabel("energy per spin")
     ax1.set_title("energy along the run")
     ax1.legend(loc="lower right", fontsize=8)

@@ -1,9 +1,12 @@
 """``orthoclimb climb``: run one algorithm on one sampled instance and compare with the theory.
 
-Before sampling it prints the memory the instance needs; after sampling it times one kernel
-pass on the instance and prints an estimate of the run time (steps x that pass, plus the
-polish). tqdm progress bars count the coefficients while sampling takes more than half a
-second, then show step, q = |x|^2 and the energy per spin. At the end it
+Before sampling it prints the memory the instance needs and, for an instance above 256 MB, how
+long sampling will take (timed on an instance of at most 64 MB and scaled by the number of
+coefficients); after sampling it times the kernel passes on the instance and prints an estimate
+of the run time (the model of :mod:`orthoclimb.studies.estimate`: steps x a pass, the polish's
+passes, and for gradient ascent its typical iteration count, with the time at its cap). On a
+terminal, tqdm progress bars count the coefficients while sampling takes more than half a
+second, then show step, q = |x|^2 and the energy per spin (none in a log). At the end it
 prints the energy per spin, ALG, the Parisi ground state GS (when the solver converges), the
 gaps, the local-maximum check and the time, and writes into ``--out``: ``result.json`` and
 ``result.npz`` (see :meth:`orthoclimb.Result.save`) and ``path.png`` (energy along the path vs
@@ -15,6 +18,7 @@ from __future__ import annotations
 
 import argparse
 import math
+import sys
 import time
 from typing import Any
 
@@ -25,7 +29,12 @@ from ..model import Hamiltonian, Mixture, estimate_memory
 from ..model.hamiltonian import _check_seed
 from ..model.memory import format_bytes, require_memory
 from ..runtime import get_num_threads, kernel_path
-from ..studies.estimate import LANCZOS_SECONDS
+from ..studies.estimate import (
+    BACKTRACK_PASSES,
+    GRADIENT_ITERATIONS,
+    LANCZOS_SECONDS,
+    POLISH_PASSES,
+)
 from . import add_mixture_flags, mixture_from, threads_from
 
 __all__ = ["add_arguments", "run"]
@@ -74,6 +83,10 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
     parser.add_argument("--no-progress", action="store_true", help="no progress bar")
 
 
+_SAMPLING_TIMED_ABOVE = 256 * 2**20  # bytes: larger instances get a sampling-time estimate
+_SAMPLING_PROBE = 64 * 2**20  # bytes: the largest instance timed for it
+
+
 def _time_pass(ham: Hamiltonian, method: str) -> float:
     x = np.full(ham.n, 1.0 / math.sqrt(ham.n))
     fn = ham.hessian if method == "hessian" else ham.energy_and_gradient
@@ -83,6 +96,64 @@ def _time_pass(ham: Hamiltonian, method: str) -> float:
         fn(x)
         best = min(best, time.perf_counter() - t)
     return best
+
+
+def _sampling_estimate(mixture: Mixture, n: int, dtype: str, need: int) -> str | None:
+    """How long sampling ``n`` spins will take, for an instance above 256 MB: an instance of
+    at most 64 MB is sampled and timed, and the time scaled by the bytes (one Gaussian per
+    coefficient). None for smaller instances, which sample in well under a second."""
+    if need <= _SAMPLING_TIMED_ABOVE:
+        return None
+    n0 = n
+    while n0 > 2 and estimate_memory(mixture, n0, dtype) > _SAMPLING_PROBE:
+        n0 = max(2, int(n0 * 0.9))
+    started = time.perf_counter()
+    probe = Hamiltonian.sample(mixture, n0, 0, dtype=dtype)
+    seconds = (time.perf_counter() - started) * need / probe.nbytes
+    del probe
+    return f"sampling: about {_seconds_text(seconds)} (timed at n = {n0})"
+
+
+def _seconds_text(seconds: float) -> str:
+    if seconds < 1.0:
+        return f"{seconds * 1e3:.2g} ms" if seconds < 1e-3 else f"{seconds * 1e3:.0f} ms"
+    return f"{seconds:.2g} s" if seconds < 120 else f"{seconds / 60:.0f} min"
+
+
+def _run_estimate(ham: Hamiltonian, method: str, steps: int, polish: bool) -> str:
+    """The run's time from timed passes (module doc): K - 1 Hessian passes plus Lanczos for
+    hessian (none when the first stage ends on the sphere), ``steps`` passes for anneal, a
+    typical ``GRADIENT_ITERATIONS`` iterations for gradient (with its time at the cap), and
+    ``POLISH_PASSES`` energy-and-gradient passes for a polish."""
+    from ..theory import algorithmic_threshold
+
+    grad = _time_pass(ham, "gradient")
+    if method == "hessian":
+        hess = _time_pass(ham, "hessian")
+        moves = steps - 1
+        if ham.mixture is not None and algorithmic_threshold(ham.mixture) >= 1.0:
+            moves = 0  # the first stage ends on the sphere: no Hessian steps (hessian_ascent)
+        lanczos = LANCZOS_SECONDS[0] + LANCZOS_SECONDS[1] * ham.n**2
+        run = moves * (hess + lanczos) + (POLISH_PASSES * grad if polish else 0.0)
+        what = f"{moves} Hessian steps" + (" and the polish" if polish else "")
+        return (
+            f"one Hessian pass: {_seconds_text(hess)}; estimated run time about"
+            f" {_seconds_text(run)} ({what})"
+        )
+    if method == "anneal":
+        run = (steps + (POLISH_PASSES if polish else 0)) * grad
+        what = f"{steps} Langevin steps" + (" and the polish" if polish else "")
+        return (
+            f"one gradient pass: {_seconds_text(grad)}; estimated run time about"
+            f" {_seconds_text(run)} ({what})"
+        )
+    typical = min(GRADIENT_ITERATIONS, steps) * BACKTRACK_PASSES * grad
+    cap = steps * BACKTRACK_PASSES * grad
+    return (
+        f"one gradient pass: {_seconds_text(grad)}; estimated run time about"
+        f" {_seconds_text(typical)} (typically {min(GRADIENT_ITERATIONS, steps)} iterations;"
+        f" at most {_seconds_text(cap)} if it runs to --max-iter {steps})"
+    )
 
 
 def _ground_state(mixture: Mixture) -> float | None:
@@ -155,10 +226,10 @@ def run(args: argparse.Namespace) -> int:
 
     mixture = mixture_from(args)
     threads_note = threads_from(args)
-    if args.n < 1:
-        raise ValueError(f"--n must be >= 1, got {args.n}")
-    if args.n < 2 and args.method == "hessian":  # before sampling, not after
-        raise ValueError("--method hessian needs --n >= 2: the sphere of n = 1 is two points")
+    if args.n < 2:  # before sampling, not after (every method refuses n = 1)
+        raise ValueError(
+            f"--n must be >= 2, got {args.n} (the sphere of n = 1 is the two points -1 and +1)"
+        )
     for flag, seed in (("--seed", args.seed), ("--start-seed", args.start_seed)):
         _check_seed(seed, flag)  # the library's rule, before anything is printed or sampled
     if args.method == "gradient" and args.steps is not None:
@@ -184,6 +255,8 @@ def run(args: argparse.Namespace) -> int:
     tol = 1e-3 if args.tol is None else args.tol
     if not (math.isfinite(tol) and tol > 0):
         raise ValueError(f"--tol must be a positive number, got {tol!r}")
+    if not args.out.strip():
+        raise ValueError("--out must name a folder, got an empty string")
     out = ensure_folder(args.out)  # before the run: a bad --out fails at once
     say = (lambda *a: None) if args.json else print
     if threads_note is not None:
@@ -194,21 +267,20 @@ def run(args: argparse.Namespace) -> int:
         f"{format_bytes(need)} of coefficients; {get_num_threads()} threads, {kernel_path()}"
     )
     require_memory(need, f"an instance of {mixture!r} with n = {args.n}")
+    sampling = _sampling_estimate(mixture, args.n, args.dtype, need)
+    if sampling is not None:
+        say(sampling)
     quiet = args.no_progress or args.json
-    ham = Hamiltonian.sample(mixture, args.n, args.seed, dtype=args.dtype, progress=not quiet)
-    one = _time_pass(ham, args.method)
-    what = "Hessian" if args.method == "hessian" else "gradient"
-    per_step = one
-    if args.method == "hessian":  # plus Lanczos on the tangent Hessian (studies.estimate)
-        per_step += LANCZOS_SECONDS[0] + LANCZOS_SECONDS[1] * args.n**2
-    passes = steps
-    if args.method == "hessian" and algorithmic_threshold(mixture) >= 1.0:
-        passes = 1  # the first stage ends on the sphere: no Hessian steps (hessian_ascent)
-    say(f"one {what} pass: {one * 1e3:.1f} ms; estimated run time {1.3 * passes * per_step:.2g} s")
+    bars = not quiet and sys.stderr.isatty()  # no bar frames in a log
+    ham = Hamiltonian.sample(mixture, args.n, args.seed, dtype=args.dtype, progress=bars)
+    polish = not args.no_polish and args.method != "gradient"
+    say(_run_estimate(ham, args.method, steps, polish))
 
     from tqdm import tqdm
 
-    total = passes - 1 if args.method == "hessian" else steps
+    total = steps
+    if args.method == "hessian":
+        total = 0 if algorithmic_threshold(mixture) >= 1.0 else steps - 1
     bar = tqdm(
         total=total, disable=True if quiet else None, unit="step", leave=False
     )  # None: tty only
@@ -217,7 +289,6 @@ def run(args: argparse.Namespace) -> int:
         bar.update(1)
         bar.set_postfix(step=row["step"], q=f"{row['q']:.3f}", energy=f"{row['energy']:.4f}")
 
-    polish = not args.no_polish
     try:
         if args.method == "hessian":
             result = hessian_ascent(

@@ -34,7 +34,10 @@ from .grid import StudySpec
 from .profile import best_time
 
 __all__ = [
+    "BACKTRACK_PASSES",
+    "GRADIENT_ITERATIONS",
     "LANCZOS_SECONDS",
+    "POLISH_PASSES",
     "Calibration",
     "calibrate",
     "estimate_from",
@@ -45,7 +48,9 @@ __all__ = [
 _CAL_BYTES = 64 * 2**20
 # seconds of Lanczos per Hessian-ascent step: a + b n^2 (module doc)
 LANCZOS_SECONDS = (6e-4, 1.1e-8)
-_POLISH_PASSES = 150  # energy-and-gradient passes of a polish (module doc)
+POLISH_PASSES = 150  # energy-and-gradient passes of a polish (module doc)
+GRADIENT_ITERATIONS = 150  # typical iterations of gradient ascent (module doc)
+BACKTRACK_PASSES = 1.5  # passes per gradient iteration, with its backtracking
 _TASK_OVERHEAD = 0.02  # seconds per task: Dask round trip and the row's atomic write
 _CLUSTER_START = 2.0  # seconds: an embedded cluster's processes start and import the package
 
@@ -117,7 +122,7 @@ def estimate_from(cal: dict[str, Calibration], tasks, workers: int, embedded: bo
         scale = (t.n / c.n0) ** c.degree
         opts = dict(t.method.options)
         total += scale * c.sampling + _TASK_OVERHEAD
-        polish = _POLISH_PASSES if opts.get("polish") else 0  # hessian and anneal polish
+        polish = POLISH_PASSES if opts.get("polish") else 0  # hessian and anneal polish
         if t.method.name == "hessian":
             eigen = LANCZOS_SECONDS[0] + LANCZOS_SECONDS[1] * t.n**2  # per step
             k = auto_steps(t.n) if opts["steps"] == "auto" else opts["steps"]
@@ -125,7 +130,8 @@ def estimate_from(cal: dict[str, Calibration], tasks, workers: int, embedded: bo
         elif t.method.name == "anneal":  # one pass per step, then the polish's
             total += scale * (opts["steps"] + polish) * c.energy_and_gradient
         else:
-            total += scale * min(150, opts["max_iter"]) * c.energy_and_gradient * 1.5
+            iters = min(GRADIENT_ITERATIONS, opts["max_iter"])
+            total += scale * iters * c.energy_and_gradient * BACKTRACK_PASSES
     return total / max(1, workers) + (_CLUSTER_START if embedded else 0.0)
 
 
