@@ -80,3 +80,24 @@ def test_a_z_from_few_degrees_of_freedom_says_so():
     )
     fit["t_dof"] = 40.0
     assert "(+2.7 s.e.)" in verdict(fit, 1.5, 2.7, "ALG")
+
+
+def test_alg_and_gs_in_different_laws_intervals_are_named_apart():
+    # a review's study (pure 3-spin, ALG = 1.6330, GS = 1.6570): no one interval holds both,
+    # so "both lie inside the intervals under n^(-1/2), n^(-2/3) and n^(-1)" was untrue; the
+    # sentence now gives the range the kept laws span and which law's interval holds each
+    from orthoclimb.studies.laws import against_theory
+
+    fit = {"value": 1.6424, "low": 1.6299, "high": 1.6538, "exponent": 2 / 3, "fit_p": 0.5}
+    fit.update(alg=1.6330, gs=1.6570, z_alg=1.3, z_gs=-2.1, gs_equals_alg=False)
+    fit["other_laws"] = [
+        {"exponent": 0.5, "low": 1.6453, "high": 1.6777, "value": 1.6615, "fit_p": 0.5},
+        {"exponent": 1.0, "low": 1.6146, "high": 1.6306, "value": 1.6226, "fit_p": 0.5},
+    ]
+    text = against_theory(fit)
+    assert "cannot tell ALG = 1.6330" in text and "inside the intervals under" not in text
+    assert "in the range [1.6146, 1.6777] over n^(-1/2) to n^(-1)" in text
+    assert "ALG under n^(-2/3) and GS under n^(-1/2)" in text
+    # ALG in no interval, between n^(-1)'s and n^(-2/3)'s: an exponent between them fits
+    fit["low"] = 1.6340
+    assert "ALG under a law between n^(-2/3) and n^(-1)" in against_theory(fit)

@@ -201,13 +201,7 @@ def verdict(f: dict[str, Any], target: float, z: float, what: str) -> str:
         lo, hi = region_span(run)
         if not lo <= target <= hi:
             continue
-        holding = [law for law in run if law["low"] <= target <= law["high"]]
-        if holding:
-            under = powers_text(holding)
-        else:  # between two neighbours' intervals: an exponent between them fits
-            pairs = (list(pair) for pair in itertools.pairwise(run))
-            pair = next(p for p in pairs if region_span(p)[0] <= target <= region_span(p)[1])
-            under = f"a law between {powers_text(pair)}"
+        under = _laws_holding(run, target)
         return (
             f"consistent with {what} = {target:.4f} only under {under} ({zt} under"
             f" {chosen}{rejected})"
@@ -229,6 +223,18 @@ def verdict(f: dict[str, Any], target: float, z: float, what: str) -> str:
     )
 
 
+def _laws_holding(run: list[dict[str, Any]], target: float) -> str:
+    """The laws of a region whose intervals hold ``target``, as text ("n^(-1)"), or "a law
+    between" the two neighbours whose intervals it falls between (an exponent between two
+    kept ones fits too). ``target`` must lie in the region's span."""
+    holding = [law for law in run if law["low"] <= target <= law["high"]]
+    if holding:
+        return powers_text(holding)
+    pairs = (list(pair) for pair in itertools.pairwise(run))
+    pair = next(p for p in pairs if region_span(p)[0] <= target <= region_span(p)[1])
+    return f"a law between {powers_text(pair)}"
+
+
 def against_theory(f: dict[str, Any]) -> str:
     """The fit's value set beside ALG and GS. Beyond :func:`verdict` on ALG: when the mixture
     has a gap GS > ALG (none is predicted where GS = ALG, whatever the solver's last digits),
@@ -246,21 +252,28 @@ def against_theory(f: dict[str, Any]) -> str:
     if gap and region is not None:
         both = [law for law in region if law["low"] <= alg and gs <= law["high"]]
         if chosen_kept and any(law is f for law in both):
-            where = "the interval"
+            where = "both lie inside the interval"
         elif both:
-            where = f"the interval under {powers_text(both)}"
-        else:
-            where = f"the intervals under {powers_text(region)}"
+            where = f"both lie inside the interval under {powers_text(both)}"
+        else:  # no one interval holds both: say which law holds each
+            lo, hi = region_span(region)
+            ends = sorted({law["exponent"] for law in region})
+            over = power_text(ends[0]) + (f" to {power_text(ends[-1])}" if len(ends) > 1 else "")
+            where = (
+                f"both lie in the range [{lo:.4f}, {hi:.4f}] over {over}, ALG"
+                f" under {_laws_holding(region, alg)} and GS under {_laws_holding(region, gs)}"
+            )
         text = (
             f"cannot tell ALG = {alg:.4f} ({z_text(f, f['z_alg'])}) from GS = {gs:.4f} "
-            f"({z_text(f, f['z_gs'])}): both lie inside {where}"
+            f"({z_text(f, f['z_gs'])}): {where}"
         )
     else:
         text = verdict(f, alg, f["z_alg"], "ALG")
     if finite and chosen_kept and value > gs and low <= gs:
+        # no interval is cut at GS here: the truncated one contradicted the range above
         text += (
             f"; the point estimate lies above GS = {gs:.4f}, which bounds every n -> infinity"
-            f" energy, so the value lies in [{low:.4f}, {gs:.4f}]"
+            " energy: at these sizes the extrapolation overshoots"
         )
     return text
 
