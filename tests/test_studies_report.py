@@ -429,3 +429,20 @@ def test_the_grid_line_names_own_sizes_and_the_storage_type():
     assert "methods gradient (" in line
     line = _grid_line(StudySpec((a,), (30, 45), (0, 1), (gradient,)))
     assert line.startswith("Sizes; a: [20, 40]; 2 seeds; float64; methods")
+
+
+@pytest.mark.parametrize(("flags", "folder"), [([], "orthoclimb-demo"), (["--quick"], "-quick")])
+def test_the_quick_demo_has_its_own_default_folder(monkeypatch, flags, folder):
+    # `demo --quick` and then `demo` (the README's order) used to meet in one folder, where
+    # the second refused a study of another configuration
+    import orthoclimb.cli.demo_cmd as demo_module
+
+    seen = []
+
+    def fake_execute(spec, out, args, report):
+        seen.append(out)
+        raise KeyboardInterrupt  # stop before any work (main returns 130)
+
+    monkeypatch.setattr(demo_module, "execute", fake_execute)
+    assert main(["demo", *flags]) == 130
+    assert seen and seen[0].endswith(folder) and seen[0].startswith("orthoclimb-demo")

@@ -9,7 +9,8 @@ The scenario (invented): a lab compares two landscapes and two climbers.
 
 Climbers: Hessian ascent (K steps, then polish) and gradient ascent from a random point. Each
 (landscape, n, seed, climber) is one task on the embedded LocalCluster; the study folder is
-``--out`` (default ``./orthoclimb-demo``; rerunning resumes). The report extrapolates the mean
+``--out`` (default ``./orthoclimb-demo``, and ``./orthoclimb-demo-quick`` for ``--quick``, so
+that the two never meet in one folder; rerunning resumes). The report extrapolates the mean
 energy per spin in n^(-2/3) and sets it beside ALG and GS, and compares the climbers on the
 same instances at the largest size (mean difference and a paired sign test); its findings are
 computed from the measurements. ``--quick`` is a smaller variant (CI).
@@ -53,13 +54,17 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
         "--quick", action="store_true", help="a smaller study (about 10 s on two cores; used by CI)"
     )
     parser.add_argument(
-        "--out", default="orthoclimb-demo", help="study folder (default: %(default)s)"
+        "--out",
+        default=None,
+        help="study folder (default: orthoclimb-demo, or orthoclimb-demo-quick with --quick)",
     )
     add_engine_arguments(parser)
 
 
 def run(args: argparse.Namespace) -> int:
     spec = demo_spec(args.quick)
+    if args.out is None:  # each variant its own folder: the quick one refused the full one
+        args.out = "orthoclimb-demo-quick" if args.quick else "orthoclimb-demo"
     print("orthoclimb demo: a lab compares two landscapes and two climbers.")
     print("  gentle (2+4): xi = q^2 + q^4/16, full RSB holds, so GS = ALG")
     print("  rugged (3):   xi = q^3, full RSB fails, so GS > ALG")
