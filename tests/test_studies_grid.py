@@ -31,7 +31,8 @@ def test_parse_seeds_ranges_and_lists():
 @pytest.mark.parametrize(
     "text, words",
     [
-        ("5-2", "reversed"),
+        ("5-2", r"^seed range '5-2' is reversed \(end 2 < start 5\); write '2-5'$"),
+        ("0--2", r"^seeds must be >= 0, got -2 in the range '0--2'$"),  # no '-2-0' advice
         ("", "empty"),
         ("a-3", "not an integer"),
         ("1,1", "twice"),
@@ -165,9 +166,10 @@ def test_toml_exponent_that_is_no_number_names_the_key(tmp_path, value):
         (
             "gradient",
             ["--tol", "0.1", "--no-polish"],
-            "--tol, --no-polish apply to the method hessian",
+            "--tol, --no-polish apply to the methods anneal and hessian, not in --methods",
         ),
-        ("hessian", ["--max-iter", "5"], "--max-iter applies to the method gradient"),
+        ("hessian", ["--max-iter", "5"], "--max-iter applies to the method gradient, not in"),
+        ("gradient", ["--steps", "30"], "--steps applies to the methods anneal and hessian"),
     ],
 )
 def test_cli_options_of_a_method_not_in_the_study_are_refused(
@@ -177,6 +179,24 @@ def test_cli_options_of_a_method_not_in_the_study_are_refused(
     assert main([*args, *extra, "--out", str(tmp_path / "o")]) == 2
     assert words in capsys.readouterr().err
     assert not (tmp_path / "o").exists()
+
+
+def test_steps_and_no_polish_reach_anneal_as_in_climb():
+    # climb takes --steps and --no-polish for anneal; sweep refused them there (a review)
+    import argparse
+
+    from orthoclimb.cli import sweep_cmd
+
+    parser = argparse.ArgumentParser()
+    sweep_cmd.add_arguments(parser)
+    base = ["--gammas", "3:1", "--n", "20,30", "--seeds", "0-1", "--out", "x"]
+    args = parser.parse_args([*base, "--methods", "anneal,hessian", "--steps", "30", "--no-polish"])
+    opts = {m.name: dict(m.options) for m in sweep_cmd._spec(args).methods}
+    assert opts["anneal"]["steps"] == 30 and opts["anneal"]["polish"] is False
+    assert opts["hessian"]["steps"] == 30 and opts["hessian"]["polish"] is False
+    args = parser.parse_args([*base, "--methods", "anneal,gradient", "--steps", "30"])
+    opts = {m.name: dict(m.options) for m in sweep_cmd._spec(args).methods}
+    assert opts["anneal"]["steps"] == 30 and "steps" not in opts["gradient"]
 
 
 def test_cli_bad_seeds_exit_2(tmp_path, capsys):

@@ -82,17 +82,26 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
     parser.add_argument(
         "--methods",
         default="hessian,gradient",
-        help="methods: hessian,gradient,anneal (default hessian,gradient; anneal's options in a"
-        " TOML file)",
+        help="methods: hessian,gradient,anneal (default hessian,gradient; anneal's eta and"
+        " temperatures in a TOML file)",
     )
     parser.add_argument(
         "--steps",
         type=int,
         default=None,
-        help="hessian: K (default n/8 clamped to [25, 200], per size)",
+        help="hessian: K, the points of the path (K - 1 Hessian steps; default n/8 clamped to"
+        " [25, 200], per size); anneal: Langevin steps (default 400); as in climb",
     )
-    parser.add_argument("--tol", type=float, default=None, help="hessian: delta (default 1e-3)")
-    parser.add_argument("--no-polish", action="store_true", help="hessian: skip the polish")
+    parser.add_argument(
+        "--tol",
+        type=float,
+        default=None,
+        help="hessian: eigen tolerance delta, per spin: each step's direction is within delta"
+        " of the top tangent eigenvalue (default 1e-3)",
+    )
+    parser.add_argument(
+        "--no-polish", action="store_true", help="hessian and anneal: skip the final polish"
+    )
     parser.add_argument(
         "--max-iter", type=int, default=None, help="gradient: iteration cap (default 2000)"
     )
@@ -118,27 +127,37 @@ def _spec(args: argparse.Namespace) -> StudySpec:
         return spec
     if args.sizes is None or args.seeds is None:
         raise ValueError("give --n and --seeds (and --gammas), or a study TOML file")
-    opts: dict[str, dict[str, Any]] = {"hessian": {}, "gradient": {}}
-    if args.steps is not None:
-        opts["hessian"]["steps"] = args.steps
-    if args.tol is not None:
-        opts["hessian"]["tol"] = args.tol
-    if args.no_polish:
-        opts["hessian"]["polish"] = False
-    if args.max_iter is not None:
-        opts["gradient"]["max_iter"] = args.max_iter
+    # each flag goes to the methods of the study that take it, as in climb; a flag that no
+    # method of the study takes is a mistake, refused
+    chosen = {m.strip() for m in args.methods.split(",")}
+    given = (
+        ("--steps", "steps", args.steps, ("hessian", "anneal")),
+        ("--tol", "tol", args.tol, ("hessian",)),
+        ("--no-polish", "polish", False if args.no_polish else None, ("hessian", "anneal")),
+        ("--max-iter", "max_iter", args.max_iter, ("gradient",)),
+    )
+    opts: dict[str, dict[str, Any]] = {}
+    unused = []
+    for flag, key, value, takers in given:
+        if value is None:
+            continue
+        hit = [m for m in takers if m in chosen]
+        if not hit:
+            unused.append((flag, takers))
+        for m in hit:
+            opts.setdefault(m, {})[key] = value
+    if unused:
+        flags = ", ".join(flag for flag, _ in unused)
+        takers = sorted({m for _, t in unused for m in t})
+        verb = "applies" if len(unused) == 1 else "apply"
+        raise ValueError(
+            f"{flags} {verb} to the method{'s' if len(takers) > 1 else ''}"
+            f" {' and '.join(takers)}, not in --methods {args.methods}"
+        )
     exponent = DEFAULT_EXPONENT if args.exponent is None else args.exponent
-    spec = spec_from_flags(
+    return spec_from_flags(
         args.gammas, args.xi, args.sizes, args.seeds, args.methods, opts, exponent
     )
-    chosen = {m.name for m in spec.methods}
-    for method, given in opts.items():  # an option for a method not in the study: a mistake
-        if given and method not in chosen:
-            flags = ", ".join(f"--{k.replace('_', '-')}" for k in given)
-            flags = flags.replace("--polish", "--no-polish")
-            verb = "applies" if len(given) == 1 else "apply"
-            raise ValueError(f"{flags} {verb} to the method {method}, which is not in --methods")
-    return spec
 
 
 def execute(

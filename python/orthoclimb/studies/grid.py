@@ -104,9 +104,12 @@ def parse_seeds(text: str | Iterable[int]) -> tuple[int, ...]:
                     raise ValueError(f"seeds must be >= 0; cannot read {piece!r} in {text!r}")
                 lo = _int_token(lo_text, "seed", text)
                 hi = _int_token(hi_text, "seed", text)
+                if hi < 0:  # '0--2': its reversal '-2-0' would be refused too
+                    raise ValueError(f"seeds must be >= 0, got {hi} in the range {piece!r}")
                 if hi < lo:
+                    where = "" if piece == body else f" in {text!r}"
                     raise ValueError(
-                        f"seed range {piece!r} in {text!r} is reversed (end {hi} < start {lo});"
+                        f"seed range {piece!r}{where} is reversed (end {hi} < start {lo});"
                         f" write '{hi}-{lo}'"
                     )
                 if len(seeds) + (hi - lo + 1) > MAX_TASKS:
