@@ -2,6 +2,8 @@
 
 from __future__ import annotations
 
+import argparse
+
 import numpy as np
 import pytest
 
@@ -259,3 +261,64 @@ def test_a_missing_toml_key_says_how_to_add_it(tmp_path):
     p.write_text("sizes=[20,30]\nseeds=[0,1]\n[[mixture]]\ngammas={3=1.0}\n")
     with pytest.raises(ValueError, match=r"missing key 'method'; add a table \[\[method\]\] with"):
         spec_from_toml(p)
+
+
+def test_a_sweep_prints_why_its_tasks_failed(tmp_path, capsys, monkeypatch):
+    # the reasons sat only inside failed/*.json (a review); the sweep prints each distinct
+    # first line with its count, the most frequent first
+    import orthoclimb.studies.engine as engine_module
+    from orthoclimb.studies.store import Store
+
+    def fake_run_study(spec, out, **kwargs):
+        store = Store.open(out, spec)
+        tasks = spec.tasks()
+        for t in tasks[:2]:
+            store.write_failure(t.task_id, t.config(), "MemoryError: could not allocate 8 bytes")
+        store.write_failure(tasks[2].task_id, tasks[2].config(), "ValueError: bad\ntrace")
+        return engine_module.SweepOutcome(len(tasks), 0, 0, 3, 0.1, None, None)
+
+    monkeypatch.setattr(engine_module, "run_study", fake_run_study)
+    args = ["sweep", "--gammas", "3:1", "--n", "20,30", "--seeds", "0-1", "--methods", "gradient"]
+    main([*args, "--out", str(tmp_path / "s"), "--no-report"])
+    out = capsys.readouterr().out
+    first = out.index("  2 tasks: MemoryError: could not allocate 8 bytes")
+    assert first < out.index("  1 task: ValueError: bad\n")
+
+
+def test_cli_wording_found_by_a_new_user(tmp_path, capsys):
+    # an unknown option is named by its subcommand with the closest option; --exponent takes
+    # the fraction its help shows; report names a missing folder and a file as such;
+    # --threads errors name the flag
+    with pytest.raises(SystemExit) as stop:
+        main(["theory", "--gammas", "3:1", "--jsn"])
+    assert stop.value.code == 2
+    err = capsys.readouterr().err
+    assert "orthoclimb theory: error: unrecognized arguments: --jsn (did you mean --json?)" in err
+    from orthoclimb.cli import exponent_value
+
+    assert exponent_value("2/3") == 2 / 3 and exponent_value("0.5") == 0.5
+    for bad in ("abc", "-1/2", "1/0"):
+        with pytest.raises(argparse.ArgumentTypeError, match=repr(bad)):
+            exponent_value(bad)
+    assert main(["report", str(tmp_path / "nowhere")]) == 2
+    assert "'" + str(tmp_path / "nowhere") + "' does not exist" in capsys.readouterr().err
+    (tmp_path / "f.txt").write_text("x")
+    assert main(["report", str(tmp_path / "f.txt")]) == 2
+    assert "is a file, not a study folder" in capsys.readouterr().err
+    assert main(["profile", "--gammas", "3:1", "--n", "10,20", "--threads", "0"]) == 2
+    assert "error: --threads: " in capsys.readouterr().err
+
+
+def test_sweep_takes_the_storage_type_as_a_flag():
+    # climb's --start-seed help asks for "the same --dtype" as the sweep, which had no such
+    # flag (only a TOML key)
+    import argparse
+
+    from orthoclimb.cli import sweep_cmd
+
+    parser = argparse.ArgumentParser()
+    sweep_cmd.add_arguments(parser)
+    base = ["--gammas", "3:1", "--n", "20,30", "--seeds", "0-1", "--out", "x"]
+    assert sweep_cmd._spec(parser.parse_args(base)).dtype == "float64"
+    spec = sweep_cmd._spec(parser.parse_args([*base, "--dtype", "float32"]))
+    assert spec.dtype == "float32" and {t.dtype for t in spec.tasks()} == {"float32"}

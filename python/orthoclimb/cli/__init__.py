@@ -61,6 +61,21 @@ def add_mixture_flags(parser: argparse.ArgumentParser) -> None:
     )
 
 
+def exponent_value(text: str) -> float:
+    """An argparse type: a positive finite-size exponent, as a number or a fraction ("2/3")."""
+    from fractions import Fraction
+
+    try:
+        value = float(Fraction(text.strip()))
+    except (ValueError, ZeroDivisionError):
+        raise argparse.ArgumentTypeError(
+            f"expected a positive number or fraction such as 2/3, got {text!r}"
+        ) from None
+    if not value > 0:
+        raise argparse.ArgumentTypeError(f"the exponent must be positive, got {text!r}")
+    return value
+
+
 def threads_from(args: argparse.Namespace) -> str | None:
     """Apply ``--threads`` (when given) to the kernels' pool; returns a note when it is more
     than the cores this process may use, as sweep notes a lowered request (here nothing is
@@ -70,7 +85,10 @@ def threads_from(args: argparse.Namespace) -> str | None:
     from ..runtime import set_num_threads
     from ..studies.engine import available_cores, counted
 
-    set_num_threads(args.threads)
+    try:
+        set_num_threads(args.threads)
+    except (ValueError, TypeError) as exc:  # the runtime's words, under the flag's name
+        raise type(exc)(f"--threads: {exc}") from None
     cores = available_cores()
     if args.threads <= cores:
         return None
@@ -110,13 +128,32 @@ def build_parser() -> argparse.ArgumentParser:
             formatter_class=argparse.RawDescriptionHelpFormatter,
         )
         mod.add_arguments(cmd)
-        cmd.set_defaults(_run=mod.run)
+        cmd.set_defaults(_run=mod.run, _parser=cmd)
     return parser
+
+
+def _parse(parser: argparse.ArgumentParser, argv: Sequence[str] | None) -> argparse.Namespace:
+    """parse_args, but an unknown option is reported by its subcommand's parser (its usage,
+    ``orthoclimb theory: error: ...``), with the closest option it has, if any."""
+    import difflib
+
+    args, extra = parser.parse_known_args(argv)
+    if extra:
+        sub: argparse.ArgumentParser = args._parser
+        known = [o for action in sub._actions for o in action.option_strings]
+        hint = ""
+        for item in extra:
+            close = difflib.get_close_matches(item.split("=")[0], known, n=1)
+            if item.startswith("-") and close:
+                hint = f" (did you mean {close[0]}?)"
+                break
+        sub.error(f"unrecognized arguments: {' '.join(extra)}{hint}")
+    return args
 
 
 def main(argv: Sequence[str] | None = None) -> int:
     parser = build_parser()
-    args = parser.parse_args(argv)
+    args = _parse(parser, argv)
     try:
         with undone_on_failure():  # a failed command leaves no empty output folder
             return int(args._run(args) or 0)

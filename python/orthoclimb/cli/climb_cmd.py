@@ -29,6 +29,7 @@ from ..model import Hamiltonian, Mixture, estimate_memory
 from ..model.hamiltonian import _check_seed
 from ..model.memory import format_bytes, require_memory
 from ..runtime import get_num_threads, kernel_path
+from ..studies.engine import counted
 from ..studies.estimate import (
     BACKTRACK_PASSES,
     GRADIENT_ITERATIONS,
@@ -72,8 +73,19 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
         "--tol", type=float, default=None, help="hessian: eigen tolerance delta (default 1e-3)"
     )
     parser.add_argument("--no-polish", action="store_true", help="skip the final polish")
-    parser.add_argument("--dtype", choices=("float64", "float32"), default="float64")
-    parser.add_argument("--threads", type=int, default=None, help="kernel worker threads")
+    parser.add_argument(
+        "--dtype",
+        choices=("float64", "float32"),
+        default="float64",
+        help="coefficient storage (default float64; float32 halves the memory, the arithmetic"
+        " stays float64)",
+    )
+    parser.add_argument(
+        "--threads",
+        type=int,
+        default=None,
+        help="kernel worker threads (default: ORTHOCLIMB_NUM_THREADS, or all cores)",
+    )
     parser.add_argument(
         "--out",
         default="orthoclimb-climb",
@@ -264,7 +276,8 @@ def run(args: argparse.Namespace) -> int:
     need = estimate_memory(mixture, args.n, args.dtype)
     say(
         f"instance: {mixture!r}, n = {args.n}, seed = {args.seed}, {args.dtype}: "
-        f"{format_bytes(need)} of coefficients; {get_num_threads()} threads, {kernel_path()}"
+        f"{format_bytes(need)} of coefficients; {counted(get_num_threads(), 'thread')},"
+        f" {kernel_path()}"
     )
     require_memory(need, f"an instance of {mixture!r} with n = {args.n}")
     sampling = _sampling_estimate(mixture, args.n, args.dtype, need)

@@ -11,6 +11,7 @@ from __future__ import annotations
 import argparse
 
 from ..fileio import json_text
+from . import exponent_value
 
 __all__ = ["add_arguments", "run"]
 
@@ -19,12 +20,20 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
     parser.add_argument("study", help="study folder written by `orthoclimb sweep`")
     parser.add_argument(
         "--exponent",
-        type=float,
+        type=exponent_value,
         default=None,
-        help="finite-size exponent k (default: the study's, 2/3)",
+        help="finite-size exponent k of e_inf + a n^(-k), a number or a fraction such as 2/3"
+        " (default: the study's, 2/3)",
     )
-    parser.add_argument("--level", type=float, default=0.9, help="interval level (default 0.9)")
-    parser.add_argument("--bootstrap", type=int, default=2000, help="replicates (default 2000)")
+    parser.add_argument(
+        "--level",
+        type=float,
+        default=0.9,
+        help="confidence level of the intervals, in (0, 1) (default 0.9)",
+    )
+    parser.add_argument(
+        "--bootstrap", type=int, default=2000, help="bootstrap replicates, >= 100 (default 2000)"
+    )
     parser.add_argument("--no-plots", action="store_true", help="skip the PNG plots")
     parser.add_argument("--json", action="store_true", help="print the report as JSON")
 

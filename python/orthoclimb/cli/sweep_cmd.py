@@ -27,6 +27,7 @@ from ..studies.grid import (
     spec_from_flags,
     spec_from_toml,
 )
+from . import exponent_value
 
 EPILOG = "A study TOML file (the grid, instead of the flags):\n\n" + TOML_EXAMPLE
 
@@ -77,8 +78,12 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
         metavar="P:C,...",
         help="a mixture as p:gamma_p^2 pairs; repeatable",
     )
-    parser.add_argument("--n", dest="sizes", default=None, help="sizes, e.g. 100,200,400")
-    parser.add_argument("--seeds", default=None, help="disorder seeds, e.g. 0-19 or 1,5,9")
+    parser.add_argument(
+        "--n", dest="sizes", default=None, help="numbers of spins, e.g. 100,200,400 (each >= 2)"
+    )
+    parser.add_argument(
+        "--seeds", default=None, help="disorder seeds, e.g. 0-19 or 1,5,9 (required with flags)"
+    )
     parser.add_argument(
         "--methods",
         default="hessian,gradient",
@@ -107,9 +112,17 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
     )
     parser.add_argument(
         "--exponent",
-        type=float,
+        type=exponent_value,
         default=None,
-        help="finite-size exponent k of e_inf + a n^-k (default 2/3)",
+        help="finite-size exponent k of e_inf + a n^(-k), a number or a fraction such as 2/3"
+        " (default 2/3)",
+    )
+    parser.add_argument(
+        "--dtype",
+        choices=("float64", "float32"),
+        default=None,
+        help="coefficient storage of every instance (default float64; float32 halves the"
+        " memory, the arithmetic stays float64)",
     )
     parser.add_argument("--out", required=True, help="study folder")
     parser.add_argument("--no-report", action="store_true", help="skip the report at the end")
@@ -118,6 +131,7 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
 
 def _spec(args: argparse.Namespace) -> StudySpec:
     flags = [args.gammas, args.xi, args.sizes, args.seeds, args.steps, args.tol, args.max_iter]
+    flags.append(args.dtype)
     if args.spec is not None:
         if any(f is not None for f in flags) or args.no_polish:
             raise ValueError("give the study either as a TOML file or as flags, not both")
@@ -156,7 +170,14 @@ def _spec(args: argparse.Namespace) -> StudySpec:
         )
     exponent = DEFAULT_EXPONENT if args.exponent is None else args.exponent
     return spec_from_flags(
-        args.gammas, args.xi, args.sizes, args.seeds, args.methods, opts, exponent
+        args.gammas,
+        args.xi,
+        args.sizes,
+        args.seeds,
+        args.methods,
+        opts,
+        exponent,
+        args.dtype or "float64",
     )
 
 
@@ -232,6 +253,12 @@ def execute(
         )
     if outcome.failed:
         say(f"failed tasks are listed in {out}/failed/; rerun the same command to retry them")
+        reasons: dict[str, int] = {}
+        for record in Store(out, spec).failures():
+            first = str(record.get("error", "")).strip().splitlines()[:1] or ["(no message)"]
+            reasons[first[0]] = reasons.get(first[0], 0) + 1
+        for reason, count in sorted(reasons.items(), key=lambda kv: -kv[1])[:5]:
+            say(f"  {counted(count, 'task')}: {reason}")
     rep = write_report(out) if report else None
     if rep is None and had_report and outcome.done:
         say(stale)

@@ -361,6 +361,7 @@ def spec_from_flags(
     methods: str,
     method_options: Mapping[str, Mapping[str, Any]] | None = None,
     exponent: float = DEFAULT_EXPONENT,
+    dtype: str = "float64",
 ) -> StudySpec:
     """Build a study from the ``sweep`` flags (each ``--gammas``/``--xi`` adds a mixture)."""
     given = [(f"--gammas {t}", Mixture.parse(t)) for t in gammas or []]
@@ -378,6 +379,7 @@ def spec_from_flags(
         parse_seeds(seeds),
         parse_methods(methods, method_options),
         float(exponent),
+        dtype=dtype,
     )
 
 

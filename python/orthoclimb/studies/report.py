@@ -64,9 +64,10 @@ class Report:
             f"{'mixture':<22} {'method':<9} {'n':>5} {'mean':>8} {'s.e.':>7} {'count':>5}",
         ]
         for g in self.groups:
+            se = f"{g['se']:>7.4f}" if math.isfinite(g["se"]) else f"{'--':>7}"  # one seed
             lines.append(
                 f"{g['mixture']:<22} {g['method']:<9} {g['n']:>5} {g['mean']:>8.4f} "
-                f"{g['se']:>7.4f} {g['count']:>5}"
+                f"{se} {g['count']:>5}"
             )
         lines.append("")
         lvl = int(round(100 * self.spec_level()))
@@ -84,6 +85,10 @@ class Report:
                 f"{f['law_high']:>8.4f}] {f['alg']:>7.4f} {f['gs']:>7.4f} "
                 f"{f['z_alg']:>7.1f} {f['z_gs']:>7.1f}"
             )
+        lines.append(
+            "(energies per spin H(x)/n on the unit sphere, maximized; s.e. = sd/sqrt(count);"
+            " z in s.e. of e_inf)"
+        )
         return "\n".join(lines)
 
     def spec_level(self) -> float:

@@ -100,6 +100,10 @@ def _record_growth(meta: Path, data: dict, config: dict) -> None:
 def read_config(folder: str | os.PathLike) -> StudySpec:
     """The study configuration stored in ``folder/study.json``."""
     path = Path(folder) / "study.json"
+    if not Path(folder).exists():
+        raise ValueError(f"{str(folder)!r} does not exist (a study folder written by sweep)")
+    if not Path(folder).is_dir():
+        raise ValueError(f"{str(folder)!r} is a file, not a study folder")
     if not path.is_file():
         raise ValueError(f"{str(folder)!r} is not a study folder (no study.json)")
     try:
