@@ -238,3 +238,24 @@ def test_climb_shows_the_energy_before_polish_only_when_it_polished(tmp_path, ca
     assert polished["energy_before_polish"] == result.info[key]
     assert main([*base, "--no-polish"]) == 0
     assert "energy_before_polish" not in json.loads(capsys.readouterr().out)
+
+
+def test_climb_plan_only_estimates_without_sampling_or_writing(tmp_path, capsys, monkeypatch):
+    # --plan-only times an instance of at most 64 MB and scales by the bytes: for p = 3 at
+    # n = 6000 (268 GiB, more than this machine has) it prints the plan and the memory note,
+    # samples nothing at n and makes no folder
+    sizes = []
+    real = oc.Hamiltonian.sample
+
+    def recording(mixture, n, *args, **kwargs):
+        sizes.append(n)
+        return real(mixture, n, *args, **kwargs)
+
+    monkeypatch.setattr(oc.Hamiltonian, "sample", staticmethod(recording))
+    out = tmp_path / "never"
+    args = ["climb", "--gammas", "3:1", "--n", "6000", "--method", "gradient", "--plan-only"]
+    assert main([*args, "--out", str(out)]) == 0
+    text = capsys.readouterr().out
+    assert "268.4 GiB of coefficients" in text and "sampling: about" in text
+    assert "estimated run time about" in text and "plan only: nothing was sampled" in text
+    assert sizes and max(sizes) < 400 and not out.exists()

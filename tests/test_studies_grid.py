@@ -322,3 +322,19 @@ def test_sweep_takes_the_storage_type_as_a_flag():
     assert sweep_cmd._spec(parser.parse_args(base)).dtype == "float64"
     spec = sweep_cmd._spec(parser.parse_args([*base, "--dtype", "float32"]))
     assert spec.dtype == "float32" and {t.dtype for t in spec.tasks()} == {"float32"}
+
+
+def test_sweep_plan_only_runs_nothing_and_leaves_the_folder_as_it_was(tmp_path, capsys):
+    # a new study's folder is not left behind, and an extension is taken back
+    args = ["sweep", "--gammas", "3:1", "--n", "20,30", "--methods", "gradient", "--no-report"]
+    new = tmp_path / "new" / "study"
+    assert main([*args, "--seeds", "0-1", "--out", str(new), "--plan-only"]) == 0
+    out = capsys.readouterr().out
+    assert "4 tasks (0 already done, 4 to run)" in out and "rough time estimate" in out
+    assert "plan only: nothing was run" in out and not (tmp_path / "new").exists()
+    old = tmp_path / "old"
+    assert main([*args, "--seeds", "0-1", "--out", str(old), "--no-progress"]) == 0
+    before = (old / "study.json").read_bytes()
+    assert main([*args, "--seeds", "0-3", "--out", str(old), "--plan-only"]) == 0
+    assert "(4 already done, 4 to run)" in capsys.readouterr().out
+    assert (old / "study.json").read_bytes() == before

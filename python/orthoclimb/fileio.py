@@ -53,14 +53,28 @@ def undone_on_failure() -> Iterator[None]:
     try:
         yield
     except BaseException:
-        for folder in reversed(made):
-            try:
-                folder.rmdir()  # only if empty
-            except OSError:
-                pass
+        _remove_empty(made)
         raise
     finally:
         _made_folders.reset(token)
+
+
+def _remove_empty(made: list[Path]) -> None:
+    for folder in reversed(made):
+        try:
+            folder.rmdir()  # only if empty
+        except OSError:
+            pass
+    made.clear()
+
+
+def remove_made_folders() -> None:
+    """Inside :func:`undone_on_failure`, remove the folders made so far that are still empty,
+    innermost first: for a command that ends, successfully, without writing anything (``sweep
+    --plan-only``)."""
+    made = _made_folders.get()
+    if made is not None:
+        _remove_empty(made)
 
 
 def _make_noting(folder: Path, made: list[Path]) -> None:

@@ -93,6 +93,12 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
     )
     parser.add_argument("--json", action="store_true", help="print the summary as JSON")
     parser.add_argument("--no-progress", action="store_true", help="no progress bar")
+    parser.add_argument(
+        "--plan-only",
+        action="store_true",
+        help="print the memory and the sampling and run times, estimated on an instance of at"
+        " most 64 MB, then stop: nothing is sampled at n and nothing is written",
+    )
 
 
 _SAMPLING_TIMED_ABOVE = 256 * 2**20  # bytes: larger instances get a sampling-time estimate
@@ -110,42 +116,57 @@ def _time_pass(ham: Hamiltonian, method: str) -> float:
     return best
 
 
-def _sampling_estimate(mixture: Mixture, n: int, dtype: str, need: int) -> str | None:
-    """How long sampling ``n`` spins will take, for an instance above 256 MB: an instance of
-    at most 64 MB is sampled and timed, and the time scaled by the bytes (one Gaussian per
-    coefficient). None for smaller instances, which sample in well under a second."""
-    if need <= _SAMPLING_TIMED_ABOVE:
-        return None
+def _probe(mixture: Mixture, n: int, dtype: str) -> tuple[Hamiltonian, float]:
+    """An instance of the mixture with at most 64 MB of coefficients (n, or the first of n,
+    0.9 n, 0.81 n, ... that fits) and the seconds its sampling took."""
     n0 = n
     while n0 > 2 and estimate_memory(mixture, n0, dtype) > _SAMPLING_PROBE:
         n0 = max(2, int(n0 * 0.9))
     started = time.perf_counter()
     probe = Hamiltonian.sample(mixture, n0, 0, dtype=dtype)
-    seconds = (time.perf_counter() - started) * need / probe.nbytes
-    del probe
-    return f"sampling: about {_seconds_text(seconds)} (timed at n = {n0})"
+    return probe, time.perf_counter() - started
+
+
+def _sampling_estimate(mixture: Mixture, n: int, dtype: str, need: int) -> str | None:
+    """How long sampling ``n`` spins will take, for an instance above 256 MB: an instance of
+    at most 64 MB is sampled and timed (:func:`_probe`), and the time scaled by the bytes
+    (one Gaussian per coefficient). None for smaller instances, which sample in well under a
+    second."""
+    if need <= _SAMPLING_TIMED_ABOVE:
+        return None
+    probe, seconds = _probe(mixture, n, dtype)
+    return (
+        f"sampling: about {_seconds_text(seconds * need / probe.nbytes)} (timed at n = {probe.n})"
+    )
 
 
 def _seconds_text(seconds: float) -> str:
     if seconds < 1.0:
         return f"{seconds * 1e3:.2g} ms" if seconds < 1e-3 else f"{seconds * 1e3:.0f} ms"
-    return f"{seconds:.2g} s" if seconds < 120 else f"{seconds / 60:.0f} min"
+    if seconds < 120:
+        return f"{seconds:.2g} s"
+    return f"{seconds / 60:.0f} min" if seconds < 7200 else f"{seconds / 3600:.1f} h"
 
 
-def _run_estimate(ham: Hamiltonian, method: str, steps: int, polish: bool) -> str:
+def _run_estimate(
+    ham: Hamiltonian, method: str, steps: int, polish: bool, n: int | None = None, scale=1.0
+) -> str:
     """The run's time from timed passes (module doc): K - 1 Hessian passes plus Lanczos for
     hessian (none when the first stage ends on the sphere), ``steps`` passes for anneal, a
     typical ``GRADIENT_ITERATIONS`` iterations for gradient (with its time at the cap), and
-    ``POLISH_PASSES`` energy-and-gradient passes for a polish."""
+    ``POLISH_PASSES`` energy-and-gradient passes for a polish. For a run at ``n`` timed on a
+    smaller instance ``ham``, ``scale`` is the ratio of their coefficient bytes (a pass reads
+    each coefficient once)."""
     from ..theory import algorithmic_threshold
 
-    grad = _time_pass(ham, "gradient")
+    n = ham.n if n is None else n
+    grad = scale * _time_pass(ham, "gradient")
     if method == "hessian":
-        hess = _time_pass(ham, "hessian")
+        hess = scale * _time_pass(ham, "hessian")
         moves = steps - 1
         if ham.mixture is not None and algorithmic_threshold(ham.mixture) >= 1.0:
             moves = 0  # the first stage ends on the sphere: no Hessian steps (hessian_ascent)
-        lanczos = LANCZOS_SECONDS[0] + LANCZOS_SECONDS[1] * ham.n**2
+        lanczos = LANCZOS_SECONDS[0] + LANCZOS_SECONDS[1] * n**2
         run = moves * (hess + lanczos) + (POLISH_PASSES * grad if polish else 0.0)
         what = f"{moves} Hessian steps" + (" and the polish" if polish else "")
         return (
@@ -269,7 +290,8 @@ def run(args: argparse.Namespace) -> int:
         raise ValueError(f"--tol must be a positive number, got {tol!r}")
     if not args.out.strip():
         raise ValueError("--out must name a folder, got an empty string")
-    out = ensure_folder(args.out)  # before the run: a bad --out fails at once
+    # before the run, so that a bad --out fails at once (a plan writes nothing)
+    out = None if args.plan_only else ensure_folder(args.out)
     say = (lambda *a: None) if args.json else print
     if threads_note is not None:
         say(threads_note)
@@ -279,6 +301,18 @@ def run(args: argparse.Namespace) -> int:
         f"{format_bytes(need)} of coefficients; {counted(get_num_threads(), 'thread')},"
         f" {kernel_path()}"
     )
+    if args.plan_only:  # before the memory check: a plan may be for a bigger machine
+        probe, seconds = _probe(mixture, args.n, args.dtype)
+        scale = need / probe.nbytes
+        polish = not args.no_polish and args.method != "gradient"
+        say(f"sampling: about {_seconds_text(seconds * scale)} (timed at n = {probe.n})")
+        say(_run_estimate(probe, args.method, steps, polish, args.n, scale))
+        try:
+            require_memory(need, f"an instance of {mixture!r} with n = {args.n}")
+        except MemoryError as exc:
+            say(f"note: {exc}")
+        say("plan only: nothing was sampled at n, nothing written")
+        return 0
     require_memory(need, f"an instance of {mixture!r} with n = {args.n}")
     sampling = _sampling_estimate(mixture, args.n, args.dtype, need)
     if sampling is not None:

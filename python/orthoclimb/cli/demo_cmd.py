@@ -71,6 +71,8 @@ def run(args: argparse.Namespace) -> int:
     print("  climbers: Hessian ascent vs gradient ascent; energies per spin, maximized")
     start = time.perf_counter()
     outcome, rep = execute(spec, args.out, args, report=True)
+    if outcome is None:  # --plan-only
+        return 0
     print()
     print(rep.table())
     print("\nwhat this run measured:")

@@ -62,6 +62,12 @@ def add_engine_arguments(parser: argparse.ArgumentParser) -> None:
         action="store_true",
         help="no progress bar (there is none anyway when stderr is not a terminal, e.g. a log)",
     )
+    parser.add_argument(
+        "--plan-only",
+        action="store_true",
+        help="print the tasks, the memory of the largest instance, the workers and the time"
+        " estimate, then stop: nothing runs, and the output folder is left as it was",
+    )
 
 
 def add_arguments(parser: argparse.ArgumentParser) -> None:
@@ -181,10 +187,16 @@ def _spec(args: argparse.Namespace) -> StudySpec:
     )
 
 
+class _PlanShown(Exception):
+    """Raised after the plan is printed under --plan-only: the sweep takes back what it did to
+    the folder (as for a cluster that never started) and nothing runs."""
+
+
 def execute(
     spec: StudySpec, out: str, args: argparse.Namespace, report: bool = True, say=print
 ) -> tuple[Any, Any]:
-    """Run ``spec`` into ``out`` with the engine flags of ``args``; then write the report."""
+    """Run ``spec`` into ``out`` with the engine flags of ``args``; then write the report.
+    With ``args.plan_only``, print the plan and return (None, None) without running."""
     from ..model.memory import format_bytes
     from ..studies.engine import counted, run_study
     from ..studies.estimate import estimate_seconds, largest_instance
@@ -216,6 +228,8 @@ def execute(
         est = estimate_seconds(spec, pending, workers, threads, embedded=plan is not None)
         where = " (for one worker of the external cluster)" if plan is None else ""
         say(f"rough time estimate: {est:.0f} s{where}", flush=True)
+        if getattr(args, "plan_only", False):
+            raise _PlanShown
 
     stale = (
         f"note: the report in {out} (report.md, report.json, plots) predates this sweep's new"
@@ -241,6 +255,12 @@ def execute(
         if had_report and Store(out, spec).completed_ids() - done_before:
             print(stale, file=sys.stderr)
         raise
+    except _PlanShown:
+        from ..fileio import remove_made_folders
+
+        remove_made_folders()  # the sweep took back its study files; the folder goes too
+        say("plan only: nothing was run")
+        return None, None
     say(
         f"sweep: {outcome.done} tasks run, {outcome.skipped} skipped (already done), "
         f"{outcome.failed} failed, {time.perf_counter() - start:.1f} s"
@@ -268,6 +288,8 @@ def execute(
 def run(args: argparse.Namespace) -> int:
     spec = _spec(args)
     outcome, rep = execute(spec, args.out, args, report=not args.no_report)
+    if outcome is None:  # --plan-only
+        return 0
     if rep is not None:
         print(rep.table())
         print(
