@@ -102,6 +102,21 @@ def _energy(value: float) -> str:
     return f"{value:.10e}"
 
 
+def _alpha_text(alpha: list[float]) -> str:
+    """The Parisi alpha in words: its nonzero levels ("alpha = 0" is replica symmetric)."""
+    levels = sum(1 for a in alpha if a > 0.0)
+    if levels == 0:
+        return "alpha = 0, replica symmetric"
+    return f"alpha with {levels} nonzero level{'s' if levels > 1 else ''}"
+
+
+def _difference(value: float, scale: float) -> str:
+    """A difference of two energies per spin; one of rounding size (|d| <= 1e-14 scale) is 0."""
+    if abs(value) <= 1e-14 * scale:
+        return "0 (to rounding)"
+    return f"{value:.3e}"
+
+
 def _table(report: dict[str, Any]) -> str:
     gs = report["ground_state"]
     rows = [
@@ -115,22 +130,23 @@ def _table(report: dict[str, Any]) -> str:
     rows.append(
         (
             "GS (Parisi)",
-            f"{_energy(gs['value'])}   ({gs['n_steps']} step(s), grid {gs['grid_size']},"
+            f"{_energy(gs['value'])}   ({_alpha_text(gs['alpha'])}; grid {gs['grid_size']},"
             f" {status}, last change {gs['change']:.1e}, tol {gs['tol']:.0e})",
         )
     )
-    gap = f"{report['gap']:.3e}"
     resolution = max(gs["tol"], gs["change"], gs["jump_gain"])
+    scale = max(abs(report["alg"]), 1e-300)
+    gap = _difference(report["gap"], scale)
     if not report["full_rsb"]["gs_equals_alg"] and abs(report["gap"]) <= 10 * resolution:
-        # a gap is predicted but the solver's resolution cannot show it yet
-        gap += f"   (within 10x the solver's tolerance {resolution:.0e}: --tol smaller resolves it)"
+        # a gap is predicted, and the solver's resolution is a sizeable part of it
+        gap += f"   (GS to about {resolution:.0e}, the solver's tolerance; --tol for more digits)"
     rows.append(("GS - ALG", gap))
-    rows.append(("B", f"{gs['B']:.10g}"))
+    rows.append(("Parisi B", f"{gs['B']:.10g}"))
     pure = report["pure"]
     if pure is not None:
-        rows.append(("E_inf", _energy(pure["threshold_energy"])))
-        rows.append(("complexity zero", _energy(pure["complexity_ground_state"])))
-        rows.append(("GS - that zero", f"{pure['parisi_minus_complexity']:.3e}"))
+        rows.append(("threshold E_inf", _energy(pure["threshold_energy"])))
+        rows.append(("1RSB GS", _energy(pure["complexity_ground_state"]) + "   (complexity zero)"))
+        rows.append(("GS - 1RSB GS", _difference(pure["parisi_minus_complexity"], scale)))
     width = max(len(k) for k, _ in rows)
     lines = [f"{k.ljust(width)}  {v}" for k, v in rows]
     lines.append("(energies per spin, maximization convention)")
@@ -202,7 +218,7 @@ def _plot(mixture: Mixture, report: dict[str, Any], path: str) -> None:
     # Panel 3: the Parisi alpha (steps) and the full-RSB formula -d/dq xi''^(-1/2) for reference.
     breaks = np.asarray(gs["breakpoints"])
     alpha = np.asarray(gs["alpha"])
-    ax3.stairs(alpha, breaks, color="C0", lw=2, label=f"Parisi alpha ({gs['n_steps']} step(s))")
+    ax3.stairs(alpha, breaks, color="C0", lw=2, label=f"Parisi alpha ({_alpha_text(gs['alpha'])})")
     peak = float(alpha.max()) if alpha.size else 0.0
     if not verdict["linear"]:
         ref = 0.5 * np.asarray(mixture.xi(q, 3), dtype=np.float64) * second**-1.5
