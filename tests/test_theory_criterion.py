@@ -223,3 +223,15 @@ def test_a_field_with_q_hat_one_is_described_as_replica_symmetric_not_full_rsb()
     assert verdict.q_hat == 1.0
     text = verdict.describe()
     assert "replica symmetric (no RSB at all)" in text and "not needed here" in text
+
+
+def test_a_double_root_of_the_numerator_does_not_split_a_failing_interval():
+    # exact: for xi = q^3 + 0.1 q^8, N = 3 xi3^2 - 2 xi2 xi4 (xi_k the k-th derivative)
+    # = 108 - 806.4 q^5 + 1505.28 q^10 = 1505.28 (q^5 - 15/56)^2 >= 0, expanded by hand, zero
+    # only at q0 = (15/56)^(1/5); rounding makes two roots of the double one, which split
+    # (0, 1] at 0.76838812 / 0.76838814 (a review)
+    mix = Mixture.from_xi({3: 1.0, 8: 0.1})
+    q = np.linspace(0.01, 1.0, 7)
+    poly = concavity_numerator(mix)
+    np.testing.assert_allclose(poly(q), 1505.28 * (q**5 - 15 / 56) ** 2, rtol=1e-10, atol=1e-9)
+    assert full_rsb(mix).failing_intervals == [(0.0, 1.0)]

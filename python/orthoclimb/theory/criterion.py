@@ -66,8 +66,10 @@ class FullRSBVerdict:
 
     Attributes:
         holds: True when q -> xi''(q)^(-1/2) is concave on all of (0, 1].
-        failing_intervals: the maximal open sub-intervals (lo, hi) of (0, 1] on which it is not
-            concave (hi = 1.0 means the interval reaches q = 1, included). Empty when ``holds``.
+        failing_intervals: the maximal open sub-intervals (lo, hi) of (0, 1] on which it is
+            strictly convex: N > 0 but at isolated points, where N touches 0 (a double root of
+            N does not split an interval). hi = 1.0 means the interval reaches q = 1,
+            included. Empty when ``holds``.
         q_hat: start of the Parisi support with a field (0.0 without a field).
         gs_equals_alg: True when the function is concave on [q_hat, 1], which is what predicts
             GS = ALG; equal to ``holds`` without a field.
@@ -180,15 +182,22 @@ def _failing(coeffs: np.ndarray) -> list[tuple[float, float]]:
     cuts = sorted(set(cuts))
     abs_coeffs = np.abs(reduced)
     intervals: list[tuple[float, float]] = []
+    joined = False  # the last interval may be continued: only rounding-sized values since
     for a, b in zip(cuts[:-1], cuts[1:], strict=True):
         mid = 0.5 * (a + b)
         value = npoly.polyval(mid, reduced)
         scale = npoly.polyval(mid, abs_coeffs)
         if value > _SIGN_RTOL * scale:
-            if intervals and intervals[-1][1] == a:
+            if intervals and joined:
                 intervals[-1] = (intervals[-1][0], b)
             else:
                 intervals.append((a, b))
+            joined = True
+        elif value < -_SIGN_RTOL * scale:
+            joined = False
+        # else: N is zero to rounding on (a, b), as between the two roots that rounding makes
+        # of a double root (xi = q^3 + 0.1 q^8: N = c (q^5 - 15/56)^2); a positive interval
+        # on each side is one interval
     return intervals
 
 
