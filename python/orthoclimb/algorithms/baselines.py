@@ -32,6 +32,7 @@ from __future__ import annotations
 
 import math
 import time
+import warnings
 from collections.abc import Callable
 from typing import Any
 
@@ -157,6 +158,7 @@ def langevin_anneal(
     temps = _check_schedule(schedule)
     eta = check_positive(eta, "eta")
     polish = check_flag(polish, "polish")
+    _warn_if_eta_too_large(ham, eta)
     if callback is not None and not callable(callback):
         raise TypeError(f"callback must be callable or None, got {callback!r}")
     start = time.perf_counter()
@@ -208,6 +210,24 @@ def langevin_anneal(
     path = {k: np.asarray(v) for k, v in rows.items()}
     path["step"] = path["step"].astype(np.int64)
     return Result(x, energy, path, config, time.perf_counter() - start, info)
+
+
+def _warn_if_eta_too_large(ham: Hamiltonian, eta: float) -> None:
+    """Warn when the step eta times the curvature scale 2 sqrt(xi''(1)) (the edge of the
+    tangent spectrum per spin, Hessian ascent's module doc) exceeds 1: the gradient part of a
+    step then overshoots. Measured on pure 3-spin instances (n = 150, 400 steps, no polish):
+    the energy per gamma stayed at 1.54-1.56 for eta 2 sqrt(xi''(1)) = 0.1 to 0.98 and fell
+    to 0.80 at 1.96 and 0.18 at 4.9. (Given coefficients carry no mixture: not checked.)"""
+    if ham.mixture is None:
+        return
+    edge = 2.0 * math.sqrt(float(ham.mixture.xi(1.0, 2)))
+    if eta * edge > 1.0:
+        warnings.warn(
+            f"langevin_anneal: eta = {eta!r} is large for this mixture: eta 2 sqrt(xi''(1)) ="
+            f" {eta * edge:.3g} > 1, so each step overshoots; use eta <= {1.0 / edge:.3g}",
+            RuntimeWarning,
+            stacklevel=3,
+        )
 
 
 def _add_theory(ham: Hamiltonian, info: dict[str, Any], energy: float) -> None:

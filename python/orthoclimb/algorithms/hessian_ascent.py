@@ -71,6 +71,7 @@ from __future__ import annotations
 
 import math
 import time
+import warnings
 from collections.abc import Callable
 from typing import Any
 
@@ -238,6 +239,13 @@ def hessian_ascent(
     q_hat = algorithmic_threshold(mixture) if mixture is not None else 0.0
     if 1 in ham.degrees and mixture is None:
         info["note"] = "given coefficients: no mixture, so no q_hat and no first stage"
+        warnings.warn(
+            "hessian_ascent: these coefficients have a field (p = 1) but no mixture, so q_hat"
+            " is unknown and the field stage is skipped: the path starts at a random point,"
+            " which with a field ends lower (sample the instance from its Mixture instead)",
+            RuntimeWarning,
+            stacklevel=2,
+        )
     rows: dict[str, list] = {c: [] for c in _COLUMNS}
 
     def add_row(**row: Any) -> None:
@@ -264,6 +272,9 @@ def hessian_ascent(
     fallbacks = 0
     with threadpool_limits(limits=1, user_api="blas"):
         for i in range(n_moves + 1):
+            if i == n_moves:  # the end point: its energy only (one pass, no Hessian)
+                add_row(step=i, stage=stage, q=float(x @ x), energy=ham.energy(x) / n)
+                break
             t0 = time.perf_counter()
             t_grad = 0.0
             if mode == "dense":
@@ -272,11 +283,6 @@ def hessian_ascent(
                 energy, grad = reader.energy_gradient(x, hess)
                 t_grad = time.perf_counter() - t1
             t_hess = time.perf_counter() - t0 - t_grad
-            if i == n_moves:  # the end point: its energy only
-                if mode != "dense":
-                    energy = ham.energy(x)
-                add_row(step=i, stage=stage, q=float(x @ x), energy=energy / n)
-                break
             if mode != "dense":
                 t1 = time.perf_counter()
                 energy, grad = ham.energy_and_gradient(x)
