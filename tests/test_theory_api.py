@@ -52,7 +52,13 @@ def test_bad_step_functions_and_derivatives_name_the_value():
     # text is a TypeError (it was a ValueError)
     from orthoclimb.theory import parisi_functional
 
-    with pytest.raises(ValueError, match=r"alpha must be finite, got alpha\[1\] = nan"):
+    with pytest.raises(ValueError, match=r"alpha holds a non-finite value nan at index \(1,\)"):
         parisi_functional(Mixture({3: 1.0}), 1.0, [0.0, 0.5, 1.0], [0.0, np.nan])
+    # text and flags are no alpha (text raised NumPy's own words, flags were read as 0 and 1)
+    for alpha, words in ((["a"], "alpha must be a real numeric array"), ([True], "boolean")):
+        with pytest.raises(TypeError, match=words):
+            parisi_functional(Mixture({3: 1.0}), 1.0, [0.0, 1.0], alpha)
+    value = parisi_functional(Mixture({3: 1.0}), 1.0, [0.0, 1.0], [0.5])
+    assert type(value) is float
     with pytest.raises(TypeError, match="derivative must be a nonnegative integer, got '2'"):
         Mixture({3: 1.0}).xi(0.5, "2")

@@ -91,3 +91,10 @@ def test_energy_validation():
         complexity(3, float("nan"))
     with pytest.raises(TypeError, match="'high'"):
         complexity(3, "high")
+    # text that looks like a number, flags and None are no energies either (a review: '2'
+    # was read as 2.0 and True as 1.0); a square that overflows is refused, not NaN
+    for bad in ("2", True, None, ["2.0"]):
+        with pytest.raises(TypeError, match="energy must be a real number or array"):
+            complexity(3, bad)
+    with pytest.raises(ValueError, match="its square overflows"):
+        complexity(3, 1e200)

@@ -18,13 +18,16 @@ cross-check of the Parisi value. For gamma_p != 1 every energy scales by gamma_p
 from __future__ import annotations
 
 import math
+import reprlib
 from typing import Any
 
 import numpy as np
 from scipy.optimize import brentq
 
-from ..errors import NonFiniteError
+from ..model.arrays import as_float_array
 from ._checks import scalar_or_array
+
+_E_MAX = 1e150  # energies per spin above this overflow e * e in the formula
 
 __all__ = ["complexity", "complexity_ground_state", "threshold_energy"]
 
@@ -52,13 +55,14 @@ def complexity(p: int, energy: Any) -> Any:
     with energy per spin E >= E_inf for the pure p-spin model with gamma_p = 1 (maximizing sign;
     see the module docstring). Vectorized over ``energy``."""
     p = _check_p(p, "complexity")
+    # the package's array check: text, booleans, None and complex values are refused (before,
+    # '2' was read as 2.0 and True as 1.0), integers converted
     try:
-        e = np.asarray(energy, dtype=np.float64)
-    except (TypeError, ValueError):
-        raise TypeError(f"complexity(): energy must be a real number, got {energy!r}") from None
-    if not np.all(np.isfinite(e)):
-        bad = e[~np.isfinite(e)].flat[0]
-        raise NonFiniteError(f"complexity(): energy must be finite, got energy = {bad!r}")
+        e = as_float_array(energy, "complexity(): energy")
+    except TypeError:  # name the value itself, not only its dtype
+        raise TypeError(
+            f"complexity(): energy must be a real number or array, got {reprlib.repr(energy)}"
+        ) from None
     e_inf = 2.0 * math.sqrt((p - 1) / p)
     below = e < e_inf
     if np.any(below):
@@ -66,6 +70,11 @@ def complexity(p: int, energy: Any) -> Any:
         raise ValueError(
             f"complexity(): the formula holds for energy >= E_inf = {e_inf!r} (p = {p}),"
             f" got energy = {bad!r}"
+        )
+    if np.any(e > _E_MAX):  # e * e overflows: NaN with warnings before
+        raise ValueError(
+            f"complexity(): energy must be at most {_E_MAX:g} (its square overflows), got"
+            f" {float(e.max())!r}"
         )
     root = np.sqrt(e * e - e_inf * e_inf)
     i1 = (e / e_inf**2) * root - np.log((e + root) / e_inf)

@@ -62,6 +62,7 @@ from typing import Any
 import numpy as np
 from scipy.optimize import minimize
 
+from ..model.arrays import as_float_array
 from ..model.mixture import Mixture
 from ._checks import check_count, check_mixture, check_positive
 from .algorithmic import algorithmic_energy
@@ -215,8 +216,8 @@ class _Grid:
 
 def _check_step_function(B: Any, breakpoints: Any, alpha: Any, where: str):
     B = check_positive(B, where, "B")
-    q = np.asarray(breakpoints, dtype=np.float64)
-    a = np.asarray(alpha, dtype=np.float64)
+    q = as_float_array(breakpoints, f"{where}(): breakpoints")  # refuses text, booleans, NaN
+    a = as_float_array(alpha, f"{where}(): alpha")
     if q.ndim != 1 or q.size < 2:
         raise ValueError(f"{where}(): breakpoints must be a 1-d array 0 = q_0 < ... < q_K = 1")
     if a.shape != (q.size - 1,):
@@ -253,7 +254,7 @@ def parisi_functional(mixture: Mixture, B: float, breakpoints: Any, alpha: Any) 
     mixture = check_mixture(mixture, "parisi_functional")
     B, q, a = _check_step_function(B, breakpoints, alpha, "parisi_functional")
     value, _ = _Grid(mixture, q).value_and_gradient(_theta(B, a))
-    return value
+    return float(value)
 
 
 def parisi_gradient(mixture: Mixture, B: float, breakpoints: Any, alpha: Any) -> np.ndarray:
