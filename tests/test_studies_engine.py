@@ -160,6 +160,11 @@ def test_adding_seeds_and_sizes_extends_a_study_and_runs_only_the_new_tasks(tmp_
 
     counts = {g["n"]: g["count"] for g in build_report(folder).groups}
     assert counts == {16: 3, 24: 3, 32: 3}
+    # the first command again: refused, but told that the folder's study contains it (a
+    # review read "differs in: seeds, sizes; refusing to mix two studies")
+    with pytest.raises(ValueError, match="holds a larger study that contains this one") as err:
+        run_study(small, folder, workers=1, progress=False)
+    assert "more seeds and sizes" in str(err.value) and "orthoclimb report" in str(err.value)
 
 
 def test_an_instance_larger_than_memory_is_refused_before_anything_starts(tmp_path, capsys):

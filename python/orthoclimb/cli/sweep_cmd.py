@@ -226,8 +226,13 @@ def execute(
             say(f"Dask scheduler: {args.scheduler}")
             workers, threads = 1, args.threads or 1
         est = estimate_seconds(spec, pending, workers, threads, embedded=plan is not None)
-        where = " (for one worker of the external cluster)" if plan is None else ""
-        say(f"rough time estimate: {est:.0f} s{where}", flush=True)
+        where = " for one worker of the external cluster" if plan is None else ""
+        # timed on this machine as it is now; other work started later slows the run (a
+        # review measured 80 s for an estimate of 30 s with a load of 4 on two cores)
+        say(
+            f"rough time estimate: {est:.2g} s{where}, if the cores stay free of other work",
+            flush=True,
+        )
         if getattr(args, "plan_only", False):
             raise _PlanShown
 

@@ -245,6 +245,12 @@ class Store:
             if diff and _grows(old, config, diff):
                 _record_growth(meta, stored, config)
                 grown_from = stored
+            elif diff and _grows(config, old, diff):  # the stored study contains this one
+                raise StudyMismatchError(
+                    f"the folder {str(folder)!r} holds a larger study that contains this one"
+                    f" (it has more {' and '.join(diff)}): rerun with its full grid to resume it"
+                    f" (study.json lists it), or `orthoclimb report {folder}` for its results"
+                )
             elif diff:
                 raise StudyMismatchError(
                     f"the folder {str(folder)!r} holds a study with a different configuration "
