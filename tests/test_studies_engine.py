@@ -119,8 +119,9 @@ def test_sweep_on_two_worker_local_cluster(tmp_path):
 def test_refuses_folder_of_a_different_study(tmp_path, capsys):
     folder = tmp_path / "s"
     Store.open(folder, _spec("0-3"))
-    # dropping seeds is not an extension: refused (adding them is, see the next test)
-    with pytest.raises(StudyMismatchError, match="different configuration.*seeds"):
+    # dropping seeds is not an extension: refused (adding them is, see the next test), and
+    # named as what it is: a study the folder's contains
+    with pytest.raises(StudyMismatchError, match="larger study that contains this one.*seeds"):
         Store.open(folder, _spec("0-2"))
     code = main(
         [
@@ -230,7 +231,7 @@ def test_a_study_with_results_stays_when_its_scheduler_is_unreachable(tmp_path):
         run_study(spec, folder, scheduler="tcp://127.0.0.1:9", timeout=2, progress=False)
     assert (folder / "study.json").exists() and store.completed_ids() == {task.task_id}
     assert (folder / "results.parquet").exists()
-    with pytest.raises(StudyMismatchError, match="different configuration"):
+    with pytest.raises(StudyMismatchError, match="larger study that contains this one"):
         Store.open(folder, _spec("0"))
     # an extension (more seeds) that could not start is taken back: study.json holds its
     # previous bytes, so the old configuration is still the study's (before, the seeds 0-3
