@@ -360,7 +360,7 @@ def test_change_is_the_step_between_the_last_two_rounds():
     gs = ground_state(Mixture.from_xi({1: 0.09, 3: 1.0}), tol=1e-300, max_rounds=2)
     assert gs.rounds == len(gs.history) == 2 and not gs.converged
     (_, before), (_, last) = gs.history[-2:]
-    assert last == gs.value
+    assert gs.value <= last  # the grid's value, or a fit of a few jumps that is lower
     assert gs.change == pytest.approx(abs(last - before), rel=0, abs=8 * np.spacing(gs.value))
     assert gs.change > 1e-6  # far above the rounding of the values
 
@@ -434,6 +434,10 @@ def test_with_q_hat_near_1_alpha_gets_its_jump_near_1(mixture):
     assert 0.97 < place < 0.99
     assert gs.converged and gs.alpha.max() > 0.0
     assert gs.value <= ref + 1e-6, (gs.value - ref, gs.n_steps)
+    # at tol 1e-10 the grid builds a ramp of steps (233 for 1:6.5,8:1, 2.4e-9 above the
+    # one-jump optimum); the fit of freely placed jumps at the end reaches it
+    tight = ground_state(mixture, tol=1e-10)
+    assert tight.converged and tight.value <= ref + 1e-10, (tight.value - ref, tight.n_steps)
 
 
 @pytest.mark.parametrize(
@@ -490,15 +494,12 @@ def test_ground_state_repr_is_one_readable_line():
     assert f"value={gs.value:.10g}" in text and "converged" in text and "[" not in text
 
 
-@pytest.mark.xfail(
-    strict=True,
-    reason="known: with a field, the solver splits the one jump of alpha into a few nearby "
-    "steps and stops 3.8e-10 above a better one-jump alpha, reporting converged (README)",
-)
 def test_a_converged_ground_state_with_a_field_is_within_its_tolerance():
     # the Parisi value is a minimum over alpha: a hand-placed one-jump alpha (B = 0.407725,
     # jump 0.227030 at q = 0.863604, found by a review's own minimization) bounds it from
-    # above, so a converged solve at tol 1e-11 must not lie more than tol above it
+    # above, so a converged solve at tol 1e-11 must not lie more than tol above it. The grid
+    # spreads the jump over a few nearby steps and stopped 3.8e-10 above it (an expected
+    # failure until the solver fitted freely placed jumps at the end, _few_jumps)
     from orthoclimb.theory import parisi_functional
 
     mix = Mixture({1: 1.5, 3: 1.0})
