@@ -257,5 +257,35 @@ def test_climb_plan_only_estimates_without_sampling_or_writing(tmp_path, capsys,
     assert main([*args, "--out", str(out)]) == 0
     text = capsys.readouterr().out
     assert "268.4 GiB of coefficients" in text and "sampling: about" in text
-    assert "estimated run time about" in text and "plan only: nothing was sampled" in text
+    assert "estimated run time about" in text and "plan only: no run, nothing written" in text
     assert sizes and max(sizes) < 400 and not out.exists()
+
+
+def test_climb_names_a_point_that_is_not_critical_and_refuses_a_json_plan(tmp_path, capsys):
+    # "no (0 positive eigenvalues)" contradicted itself for a run stopped on a slope; a plan
+    # under --json printed nothing at all (a review)
+    args = ["climb", "--gammas", "3:1", "--n", "60", "--method", "gradient", "--max-iter", "20"]
+    assert main([*args, "--out", str(tmp_path / "a")]) == 0
+    assert "no (not a critical point" in capsys.readouterr().out
+    assert main([*args, "--plan-only", "--json", "--out", str(tmp_path / "b")]) == 2
+    assert "--plan-only prints its plan as text" in capsys.readouterr().err
+
+
+@pytest.mark.parametrize(
+    ("seconds", "text"),
+    [
+        (2e-5, "20 us"),
+        (0.85, "850 ms"),
+        (0.9996, "1.0 s"),
+        (3.24, "3.2 s"),
+        (99.4, "99 s"),
+        (99.6, "2 min"),
+        (5969, "99 min"),
+        (9000, "2.5 h"),
+    ],
+)
+def test_durations_read_as_people_write_them(seconds, text):
+    # "1e+02 s", "1.5e+02 s" and "1000 ms" came out of the %g formats before (a review)
+    from orthoclimb.cli import seconds_text
+
+    assert seconds_text(seconds) == text

@@ -297,7 +297,7 @@ def test_cli_wording_found_by_a_new_user(tmp_path, capsys):
     from orthoclimb.cli import exponent_value
 
     assert exponent_value("2/3") == 2 / 3 and exponent_value("0.5") == 0.5
-    for bad in ("abc", "-1/2", "1/0"):
+    for bad in ("abc", "-1/2", "1/0", "1e400", "1e999999999", "9" * 100, "inf"):
         with pytest.raises(argparse.ArgumentTypeError, match=repr(bad)):
             exponent_value(bad)
     assert main(["report", str(tmp_path / "nowhere")]) == 2
@@ -338,3 +338,18 @@ def test_sweep_plan_only_runs_nothing_and_leaves_the_folder_as_it_was(tmp_path, 
     assert main([*args, "--seeds", "0-3", "--out", str(old), "--plan-only"]) == 0
     assert "(4 already done, 4 to run)" in capsys.readouterr().out
     assert (old / "study.json").read_bytes() == before
+
+
+def test_plan_only_on_a_complete_study_writes_nothing(tmp_path, capsys):
+    # with no pending task the sweep used to skip the plan and write the table and the report
+    # (a review); it now says the study is complete and stops
+    args = ["sweep", "--gammas", "2:1", "--n", "4", "--seeds", "0", "--methods", "gradient"]
+    folder = tmp_path / "s"
+    assert main([*args, "--out", str(folder), "--no-progress", "--no-report"]) == 0
+    for name in ("results.csv", "results.parquet"):
+        (folder / name).unlink()
+    capsys.readouterr()
+    assert main([*args, "--out", str(folder), "--plan-only"]) == 0
+    out = capsys.readouterr().out
+    assert "all done already" in out and "plan only: nothing was run" in out
+    assert sorted(p.name for p in folder.iterdir()) == ["rows", "study.json"]

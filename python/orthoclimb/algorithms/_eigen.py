@@ -32,8 +32,9 @@ to the new second eigenvector; asked for one Ritz pair, ARPACK accepted that vec
 stopped on the second eigenvalue, up to 0.035 per spin below the top (exact top from
 ``scipy.linalg.eigvalsh``), 35 times delta. Asking for the top two Ritz pairs (which="LA", k =
 2) makes ARPACK iterate until both have converged, so the vector of the top one has to appear in
-the Krylov space: 0 of the 1063 steps then missed, for 10-20 % more time in the eigen-solves
-(n = 600, pure 3-spin, 75 steps: 0.33-0.42 s against 0.50-0.60 s in a run of 1.4-1.7 s).
+the Krylov space: 0 of the 1063 steps then missed, for about 45 % more time in the
+eigen-solves, 5-19 % of a whole run (n = 600, pure 3-spin, 75 steps: 0.33-0.42 s against
+0.50-0.60 s in a run of 1.4-1.7 s).
 Lanczos certifies nothing about eigenvalues its space never saw, so this is a measured
 safeguard, not a proof. Tangent spaces of at
 most ``DIRECT_MAX`` dimensions are solved exactly by ``scipy.linalg.eigh`` (ARPACK needs more

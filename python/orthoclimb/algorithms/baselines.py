@@ -130,7 +130,8 @@ def gradient_ascent(
         "returned_iteration": trace.returned_iteration,
     }
     if check:
-        info.update(local_max_info(ham, trace.x, gtol))
+        critical = trace.grad_norm <= gtol or trace.status == "stalled"
+        info.update(local_max_info(ham, trace.x, critical))
     _add_theory(ham, info, trace.energy)
     config = base_config(ham, "gradient", seed=seed, gtol=gtol, max_iter=max_iter)
     path = {k: np.asarray(v) for k, v in trace.rows.items()}

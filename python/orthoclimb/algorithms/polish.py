@@ -178,7 +178,7 @@ def _polish(ham: Hamiltonian, x0: np.ndarray, gtol: float, max_iter: int, check:
         "passes": passes,
     }
     if check:
-        info.update(local_max_info(ham, x, gtol))
+        info.update(local_max_info(ham, x, gnorm <= gtol or status == "stalled"))
     config = base_config(ham, "polish", gtol=gtol, max_iter=max_iter)
     path = {k: np.asarray(v) for k, v in rows.items()}
     return Result(x, energy, path, config, time.perf_counter() - start, info)
@@ -193,15 +193,16 @@ def _newton_fits(ham: Hamiltonian) -> bool:
     return need <= available_memory() // 2
 
 
-def local_max_info(ham: Hamiltonian, x: np.ndarray, gtol: float) -> dict[str, Any]:
-    """The :func:`tangent_spectrum` fields plus ``local_max``: x is critical to the run's own
-    tolerance (|P grad H(x)|/n <= ``gtol``) and no tangent eigenvalue is positive. (A point
-    stopped by an iteration cap on a slope has no positive eigenvalue either, but is no
-    maximum.)"""
+def local_max_info(ham: Hamiltonian, x: np.ndarray, critical: bool) -> dict[str, Any]:
+    """The :func:`tangent_spectrum` fields plus ``local_max``: the run found x ``critical``
+    (its gradient within the run's tolerance, or a stall: no progress at rounding level, as
+    at scales far from 1, where the tolerance is absolute) and no tangent eigenvalue is
+    positive. A point stopped by an iteration cap on a slope has no positive eigenvalue
+    either, but is no maximum."""
     spec = tangent_spectrum(ham, x)
     return {
         "n_positive": spec["n_positive"],
         "top_eigenvalue": spec["top_eigenvalue"],
         "spectrum_exhaustive": spec["exhaustive"],
-        "local_max": spec["n_positive"] == 0 and spec["grad_norm"] <= gtol,
+        "local_max": spec["n_positive"] == 0 and bool(critical),
     }

@@ -63,17 +63,40 @@ def add_mixture_flags(parser: argparse.ArgumentParser) -> None:
 
 def exponent_value(text: str) -> float:
     """An argparse type: a positive finite-size exponent, as a number or a fraction ("2/3")."""
-    from fractions import Fraction
+    import math
 
+    bad = argparse.ArgumentTypeError(
+        f"expected a positive number or a fraction such as 2/3, got {text!r}"
+    )
+    body = text.strip()
+    if len(body) > 64:  # Fraction('1e999999999') would build a billion-digit integer
+        raise bad
     try:
-        value = float(Fraction(text.strip()))
-    except (ValueError, ZeroDivisionError):
-        raise argparse.ArgumentTypeError(
-            f"expected a positive number or fraction such as 2/3, got {text!r}"
-        ) from None
-    if not value > 0:
-        raise argparse.ArgumentTypeError(f"the exponent must be positive, got {text!r}")
+        if "/" in body:
+            top, _, bottom = body.partition("/")
+            value = float(top) / float(bottom)
+        else:
+            value = float(body)
+    except (ValueError, ZeroDivisionError, OverflowError):
+        raise bad from None
+    if not (math.isfinite(value) and value > 0):
+        raise argparse.ArgumentTypeError(f"the exponent must be positive and finite, got {text!r}")
     return value
+
+
+def seconds_text(seconds: float) -> str:
+    """A duration for people: "850 ms", "3.2 s", "42 s", "7 min", "2.5 h"."""
+    if seconds < 1e-3:
+        return f"{seconds * 1e6:.0f} us"
+    if seconds < 0.9995:
+        return f"{seconds * 1e3:.0f} ms"
+    if seconds < 9.95:
+        return f"{seconds:.1f} s"
+    if seconds < 99.5:
+        return f"{seconds:.0f} s"
+    if seconds < 5970:
+        return f"{seconds / 60:.0f} min"
+    return f"{seconds / 3600:.1f} h"
 
 
 def threads_from(args: argparse.Namespace) -> str | None:
@@ -143,6 +166,8 @@ def _parse(parser: argparse.ArgumentParser, argv: Sequence[str] | None) -> argpa
         known = [o for action in sub._actions for o in action.option_strings]
         hint = ""
         for item in extra:
+            if item == "--":
+                continue
             close = difflib.get_close_matches(item.split("=")[0], known, n=1)
             if item.startswith("-") and close:
                 hint = f" (did you mean {close[0]}?)"

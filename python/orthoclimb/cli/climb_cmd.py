@@ -36,7 +36,7 @@ from ..studies.estimate import (
     LANCZOS_SECONDS,
     POLISH_PASSES,
 )
-from . import add_mixture_flags, mixture_from, threads_from
+from . import add_mixture_flags, mixture_from, seconds_text, threads_from
 
 __all__ = ["add_arguments", "run"]
 
@@ -97,7 +97,7 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
         "--plan-only",
         action="store_true",
         help="print the memory and the sampling and run times, estimated on an instance of at"
-        " most 64 MB, then stop: nothing is sampled at n and nothing is written",
+        " most 64 MB (the only one sampled), then stop; nothing is written",
     )
 
 
@@ -135,17 +135,7 @@ def _sampling_estimate(mixture: Mixture, n: int, dtype: str, need: int) -> str |
     if need <= _SAMPLING_TIMED_ABOVE:
         return None
     probe, seconds = _probe(mixture, n, dtype)
-    return (
-        f"sampling: about {_seconds_text(seconds * need / probe.nbytes)} (timed at n = {probe.n})"
-    )
-
-
-def _seconds_text(seconds: float) -> str:
-    if seconds < 1.0:
-        return f"{seconds * 1e3:.2g} ms" if seconds < 1e-3 else f"{seconds * 1e3:.0f} ms"
-    if seconds < 120:
-        return f"{seconds:.2g} s"
-    return f"{seconds / 60:.0f} min" if seconds < 7200 else f"{seconds / 3600:.1f} h"
+    return f"sampling: about {seconds_text(seconds * need / probe.nbytes)} (timed at n = {probe.n})"
 
 
 def _run_estimate(
@@ -162,30 +152,30 @@ def _run_estimate(
     n = ham.n if n is None else n
     grad = scale * _time_pass(ham, "gradient")
     if method == "hessian":
-        hess = scale * _time_pass(ham, "hessian")
         moves = steps - 1
         if ham.mixture is not None and algorithmic_threshold(ham.mixture) >= 1.0:
             moves = 0  # the first stage ends on the sphere: no Hessian steps (hessian_ascent)
+        hess = scale * _time_pass(ham, "hessian") if moves > 0 else 0.0
         lanczos = LANCZOS_SECONDS[0] + LANCZOS_SECONDS[1] * n**2
         run = moves * (hess + lanczos) + (POLISH_PASSES * grad if polish else 0.0)
         what = f"{moves} Hessian steps" + (" and the polish" if polish else "")
         return (
-            f"one Hessian pass: {_seconds_text(hess)}; estimated run time about"
-            f" {_seconds_text(run)} ({what})"
+            f"one Hessian pass: {seconds_text(hess)}; estimated run time about"
+            f" {seconds_text(run)} ({what})"
         )
     if method == "anneal":
         run = (steps + (POLISH_PASSES if polish else 0)) * grad
         what = f"{steps} Langevin steps" + (" and the polish" if polish else "")
         return (
-            f"one gradient pass: {_seconds_text(grad)}; estimated run time about"
-            f" {_seconds_text(run)} ({what})"
+            f"one gradient pass: {seconds_text(grad)}; estimated run time about"
+            f" {seconds_text(run)} ({what})"
         )
     typical = min(GRADIENT_ITERATIONS, steps) * BACKTRACK_PASSES * grad
     cap = steps * BACKTRACK_PASSES * grad
     return (
-        f"one gradient pass: {_seconds_text(grad)}; estimated run time about"
-        f" {_seconds_text(typical)} (typically {min(GRADIENT_ITERATIONS, steps)} iterations;"
-        f" at most {_seconds_text(cap)} if it runs to --max-iter {steps})"
+        f"one gradient pass: {seconds_text(grad)}; estimated run time about"
+        f" {seconds_text(typical)} (typically {min(GRADIENT_ITERATIONS, steps)} iterations;"
+        f" at most {seconds_text(cap)} if it runs to --max-iter {steps})"
     )
 
 
@@ -242,7 +232,12 @@ def _table(s: dict[str, Any]) -> str:
         ("energy - GS", num(s["gap_to_ground_state"])),
     ]
     if s["local_max"] is not None:
-        verdict = "yes" if s["local_max"] else f"no ({s['n_positive']} positive eigenvalues)"
+        if s["local_max"]:
+            verdict = "yes"
+        elif s["n_positive"]:
+            verdict = f"no ({s['n_positive']} positive tangent eigenvalues)"
+        else:  # no positive eigenvalue, but the gradient is above the run's tolerance
+            verdict = "no (not a critical point: the run stopped before its gradient tolerance)"
         rows.append(("local maximum", f"{verdict}; |P grad H|/n = {s['grad_norm']:.1e}"))
     rows.append(("time", f"{s['seconds']:.2f} s"))
     for k, v in s["files"].items():
@@ -301,17 +296,19 @@ def run(args: argparse.Namespace) -> int:
         f"{format_bytes(need)} of coefficients; {counted(get_num_threads(), 'thread')},"
         f" {kernel_path()}"
     )
+    if args.plan_only and args.json:
+        raise ValueError("--plan-only prints its plan as text; give it without --json")
     if args.plan_only:  # before the memory check: a plan may be for a bigger machine
         probe, seconds = _probe(mixture, args.n, args.dtype)
         scale = need / probe.nbytes
         polish = not args.no_polish and args.method != "gradient"
-        say(f"sampling: about {_seconds_text(seconds * scale)} (timed at n = {probe.n})")
+        say(f"sampling: about {seconds_text(seconds * scale)} (timed at n = {probe.n})")
         say(_run_estimate(probe, args.method, steps, polish, args.n, scale))
         try:
             require_memory(need, f"an instance of {mixture!r} with n = {args.n}")
         except MemoryError as exc:
             say(f"note: {exc}")
-        say("plan only: nothing was sampled at n, nothing written")
+        say("plan only: no run, nothing written")
         return 0
     require_memory(need, f"an instance of {mixture!r} with n = {args.n}")
     sampling = _sampling_estimate(mixture, args.n, args.dtype, need)

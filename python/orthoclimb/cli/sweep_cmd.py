@@ -27,7 +27,7 @@ from ..studies.grid import (
     spec_from_flags,
     spec_from_toml,
 )
-from . import exponent_value
+from . import exponent_value, seconds_text
 
 EPILOG = "A study TOML file (the grid, instead of the flags):\n\n" + TOML_EXAMPLE
 
@@ -205,6 +205,11 @@ def execute(
 
     def on_start(pending: list, plan) -> None:
         total = len(spec.tasks())
+        if not pending:  # a complete study: nothing to plan
+            say(f"study: {total} tasks, all done already, in {out}")
+            if getattr(args, "plan_only", False):
+                raise _PlanShown
+            return
         nbytes, mix, n = largest_instance(spec, pending)
         say(
             f"study: {total} tasks ({total - len(pending)} already done, {len(pending)} to run)"
@@ -230,7 +235,8 @@ def execute(
         # timed on this machine as it is now; other work started later slows the run (a
         # review measured 80 s for an estimate of 30 s with a load of 4 on two cores)
         say(
-            f"rough time estimate: {est:.2g} s{where}, if the cores stay free of other work",
+            f"rough time estimate: {seconds_text(est)}{where}, if the cores stay free of other"
+            " work",
             flush=True,
         )
         if getattr(args, "plan_only", False):

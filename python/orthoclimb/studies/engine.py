@@ -317,7 +317,8 @@ def run_study(
     ``workers``/``threads``: override the plan (embedded cluster) or set the kernel threads per
     task (external cluster; default 1). ``retries``: Dask retries per task after an exception.
     ``timeout``: seconds to reach the scheduler. ``on_start(pending, plan)`` is called before
-    the cluster starts with the pending tasks (the CLI prints counts and estimates there).
+    the cluster starts with the pending tasks (the CLI prints counts and estimates there),
+    also with none (and no plan) for a complete study.
     ``progress``: a tqdm bar (True), none (False), or one only when stderr is a terminal (None,
     what the command line uses, so logs get no redrawn bar).
 
@@ -386,6 +387,8 @@ def _sweep(
         plan: WorkerPlan | None = None
         start = time.perf_counter()
         if not pending:
+            if on_start is not None:  # a complete study: the caller may still say so
+                on_start(pending, None)
             store.write_table()
             return SweepOutcome(len(tasks), skipped, 0, 0, 0.0, None, None)
         if scheduler is None:

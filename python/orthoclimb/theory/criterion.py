@@ -51,9 +51,10 @@ from .algorithmic import algorithmic_threshold
 __all__ = ["FullRSBVerdict", "concavity_numerator", "full_rsb"]
 
 # Values of |N(q)| below this fraction of sum_k |c_k| q^k (the size of the terms that cancel) are
-# indistinguishable from 0 in double precision; they count as "concave" (N <= 0). This keeps a
-# mixture exactly on a boundary, such as b = a/12 below, from being reported as failing on a
-# sliver of width 1e-16 next to a root.
+# indistinguishable from 0 in double precision; on their own they count as "concave" (N <= 0).
+# This keeps a mixture exactly on a boundary, such as b = a/12 below, from being reported as
+# failing on a sliver of width 1e-16 next to a root. Between two failing stretches they join
+# them (a double root of N, which N touches without changing sign: see _failing).
 _SIGN_RTOL = 64 * np.finfo(float).eps
 # Roots whose imaginary part is this small are used as candidate sign changes. Keeping a spurious
 # candidate is harmless (it only splits a sign test in two).

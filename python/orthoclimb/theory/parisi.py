@@ -218,7 +218,7 @@ class _Grid:
 
 def _check_step_function(B: Any, breakpoints: Any, alpha: Any, where: str):
     B = check_positive(B, where, "B")
-    q = as_float_array(breakpoints, f"{where}(): breakpoints")  # refuses text, booleans, NaN
+    q = as_float_array(breakpoints, f"{where}(): breakpoints")  # text, flag arrays, NaN: refused
     a = as_float_array(alpha, f"{where}(): alpha")
     if q.ndim != 1 or q.size < 2:
         raise ValueError(f"{where}(): breakpoints must be a 1-d array 0 = q_0 < ... < q_K = 1")
@@ -779,7 +779,6 @@ def _ground_state(
         if change <= tol and gain <= tol and (not new_steps or tried):
             converged = True
             break
-        tried = bool(new_steps)
         # Split any piece where adding a step at its midpoint would lower P (D < 0 there), and
         # both pieces next to every interior jump of alpha, unless the jump can move: then its
         # grid point goes toward where D is lowest (splitting alone can leave a jump stranded a
@@ -797,8 +796,10 @@ def _ground_state(
             flag[0] = flag[0] and later is None
         if later is not None:
             new_steps = {}  # found again on the next grid, after alpha's start has moved
-        # a moved jump may have taken the left end of its piece past the point found there
+        # defensive: each point strictly inside its piece (the pieces past alpha's last jump
+        # are not moved by _move_jumps)
         new_steps = {k: t for k, t in new_steps.items() if q[k] < t < q[k + 1]}
+        tried = bool(new_steps)  # only points actually put on the grid count as tried
         for k in new_steps:  # split there at the lowest sample of D, not at the midpoint
             flag[k] = False
         if not np.any(flag) and not np.any(moving) and later is None and not new_steps:
