@@ -353,3 +353,25 @@ def test_plan_only_on_a_complete_study_writes_nothing(tmp_path, capsys):
     out = capsys.readouterr().out
     assert "all done already" in out and "plan only: nothing was run" in out
     assert sorted(p.name for p in folder.iterdir()) == ["rows", "study.json"]
+
+
+def test_a_thread_count_from_the_environment_above_the_cores_gets_a_note(monkeypatch):
+    # --threads above the cores got a note and ORTHOCLIMB_NUM_THREADS did not (a review);
+    # the pool reads the variable once, so the test sets both the pool and the variable
+    import orthoclimb as oc
+    from orthoclimb.cli import threads_from
+    from orthoclimb.studies.engine import available_cores
+
+    before, cores = oc.get_num_threads(), available_cores()
+    monkeypatch.setenv("ORTHOCLIMB_NUM_THREADS", str(cores + 1))
+    try:
+        oc.set_num_threads(cores + 1)
+        note = threads_from(argparse.Namespace(threads=None))
+        assert note.startswith(f"note: ORTHOCLIMB_NUM_THREADS={cores + 1} is more than the")
+        oc.set_num_threads(cores)
+        assert threads_from(argparse.Namespace(threads=None)) is None
+        monkeypatch.delenv("ORTHOCLIMB_NUM_THREADS")
+        oc.set_num_threads(cores + 1)  # set in Python, not from the environment: no note
+        assert threads_from(argparse.Namespace(threads=None)) is None
+    finally:
+        oc.set_num_threads(before)

@@ -100,24 +100,29 @@ def seconds_text(seconds: float) -> str:
 
 
 def threads_from(args: argparse.Namespace) -> str | None:
-    """Apply ``--threads`` (when given) to the kernels' pool; returns a note when it is more
-    than the cores this process may use, as sweep notes a lowered request (here nothing is
-    lowered: the caller asked for it)."""
-    if args.threads is None:
-        return None
-    from ..runtime import set_num_threads
+    """Apply ``--threads`` (when given) to the kernels' pool; returns a note when the thread
+    count (``--threads``, or else ``ORTHOCLIMB_NUM_THREADS``) is more than the cores this
+    process may use, as sweep notes a lowered request (here nothing is lowered: the caller
+    asked for it)."""
+    from ..runtime import get_num_threads, set_num_threads
     from ..studies.engine import available_cores, counted
 
-    try:
-        set_num_threads(args.threads)
-    except (ValueError, TypeError) as exc:  # the runtime's words, under the flag's name
-        raise type(exc)(f"--threads: {exc}") from None
+    if args.threads is not None:
+        try:
+            set_num_threads(args.threads)
+        except (ValueError, TypeError) as exc:  # the runtime's words, under the flag's name
+            raise type(exc)(f"--threads: {exc}") from None
+        what = f"--threads {args.threads}"
+    elif os.environ.get("ORTHOCLIMB_NUM_THREADS"):
+        what = f"ORTHOCLIMB_NUM_THREADS={get_num_threads()}"
+    else:
+        return None
     cores = available_cores()
-    if args.threads <= cores:
+    if get_num_threads() <= cores:
         return None
     return (
-        f"note: --threads {args.threads} is more than the {counted(cores, 'core')} this process"
-        " may use; the threads share them, which is no faster and makes timings noisier"
+        f"note: {what} is more than the {counted(cores, 'core')} this process may use; the"
+        " threads share them, which is no faster and makes timings noisier"
     )
 
 
