@@ -11,16 +11,28 @@ from __future__ import annotations
 import argparse
 import sys
 
-from . import add_mixture_flags, mixture_from, threads_from
+from . import add_mixture_flags, mixture_from, seconds_text, threads_from
 
 __all__ = ["add_arguments", "run"]
 
 
 def add_arguments(parser: argparse.ArgumentParser) -> None:
     add_mixture_flags(parser)
-    parser.add_argument("--n", dest="sizes", required=True, help="sizes, e.g. 100,200,400")
-    parser.add_argument("--repeats", type=int, default=3, help="best of (default 3)")
-    parser.add_argument("--threads", type=int, default=None, help="kernel threads")
+    parser.add_argument(
+        "--n", dest="sizes", required=True, help="numbers of spins, e.g. 100,200,400 (each >= 2)"
+    )
+    parser.add_argument(
+        "--repeats",
+        type=int,
+        default=3,
+        help="timed calls per kernel and size, best kept (default 3)",
+    )
+    parser.add_argument(
+        "--threads",
+        type=int,
+        default=None,
+        help="kernel worker threads (default: ORTHOCLIMB_NUM_THREADS, or all cores)",
+    )
     parser.add_argument(
         "--out", default="orthoclimb-profile", help="output folder (default ./orthoclimb-profile)"
     )
@@ -59,9 +71,9 @@ def run(args: argparse.Namespace) -> int:
     )
 
     def progress(row, nxt, guess) -> None:
-        text = f"n = {row['n']}: done in {row['wall']:.3g} s"
+        text = f"n = {row['n']}: done in {seconds_text(row['wall'])}"
         if nxt is not None:
-            text += f"; next n = {nxt}: about {guess:.2g} s"
+            text += f"; next n = {nxt}: about {seconds_text(guess)}"
         say(text)
 
     prof = profile_kernels(mix, sizes, args.repeats, on_size=progress)
@@ -69,9 +81,10 @@ def run(args: argparse.Namespace) -> int:
     if args.json:
         print(json_text({**prof, "files": files}))
         return 0
+    print("seconds per call (best of the repeats):")
     print(f"{'n':>6} " + " ".join(f"{k:>20}" for k in KERNELS))
-    for r in prof["rows"]:
-        print(f"{r['n']:>6} " + " ".join(f"{r[k]:>19.4g}s" for k in KERNELS))
+    for r in prof["rows"]:  # one fixed format per table: 3.8e-05, not 3.808e-05s beside 0.0035s
+        print(f"{r['n']:>6} " + " ".join(f"{r[k]:>20.3e}" for k in KERNELS))
     print("nanoseconds per coefficient:")
     for r in prof["rows"]:
         per = r["ns_per_coefficient"]
