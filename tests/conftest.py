@@ -20,6 +20,21 @@ def rng() -> np.random.Generator:
     return np.random.default_rng(20261201)
 
 
+@pytest.fixture
+def blas_threads() -> Callable[[], list[int]]:
+    """A function that lists the thread counts of the BLAS pools (threadpoolctl); the test is
+    skipped where BLAS runs one thread anyway, since it could not see a limit then."""
+    threadpoolctl = pytest.importorskip("threadpoolctl")
+
+    def counts() -> list[int]:
+        pools = threadpoolctl.threadpool_info()
+        return [i["num_threads"] for i in pools if i["user_api"] == "blas"]
+
+    if max(counts(), default=1) < 2:
+        pytest.skip("BLAS runs one thread here anyway")
+    return counts
+
+
 def unit(v: np.ndarray) -> np.ndarray:
     return v / np.linalg.norm(v, axis=-1, keepdims=True)
 

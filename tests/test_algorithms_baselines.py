@@ -57,17 +57,9 @@ def test_polish_newton_phase_reaches_the_same_point_as_gradients_alone(monkeypat
     assert fast.info["iterations"] < slow.info["iterations"]
 
 
-def test_polish_runs_its_dense_linear_algebra_on_one_blas_thread(monkeypatch):
+def test_polish_runs_its_dense_linear_algebra_on_one_blas_thread(monkeypatch, blas_threads):
     # common practice with spinning OpenBLAS threads (polish module doc: with two threads and
     # a busy core a 600 x 600 Cholesky factor took 0.85 s instead of 0.01 s)
-    threadpoolctl = pytest.importorskip("threadpoolctl")
-
-    def blas_threads() -> list[int]:
-        pools = threadpoolctl.threadpool_info()
-        return [i["num_threads"] for i in pools if i["user_api"] == "blas"]
-
-    if max(blas_threads(), default=1) < 2:
-        pytest.skip("BLAS runs one thread here anyway")
     seen = []
     for name in ("cho_factor", "eigvalsh"):
         original = getattr(scipy.linalg, name)

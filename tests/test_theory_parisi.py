@@ -554,18 +554,11 @@ def test_functional_keeps_its_digits_for_a_large_alpha_on_a_tiny_last_piece():
     assert value >= ground_state(mixture, tol=1e-8).value - 1e-8
 
 
-def test_the_solve_runs_on_one_blas_thread(monkeypatch):
+def test_the_solve_runs_on_one_blas_thread(monkeypatch, blas_threads):
     # common practice with spinning OpenBLAS threads: L-BFGS-B's small products on two threads
     # of a loaded machine took a solve from 0.08 s to 1.3 s (a review)
-    threadpoolctl = pytest.importorskip("threadpoolctl")
     import orthoclimb.theory.parisi as parisi_module
 
-    def blas_threads() -> list[int]:
-        pools = threadpoolctl.threadpool_info()
-        return [i["num_threads"] for i in pools if i["user_api"] == "blas"]
-
-    if max(blas_threads(), default=1) < 2:
-        pytest.skip("BLAS runs one thread here anyway")
     seen = []
     real = parisi_module.minimize
 
