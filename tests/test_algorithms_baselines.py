@@ -367,3 +367,26 @@ def test_a_stalled_run_at_a_large_scale_is_still_a_local_maximum():
     res = oc.gradient_ascent(ham)
     assert res.info["status"] == "stalled" and res.info["grad_norm"] > 1e-7
     assert res.info["n_positive"] == 0 and res.info["local_max"] is True
+
+
+def test_a_stall_far_from_a_critical_point_is_no_local_maximum():
+    # a review's quadratic: A/n with eigenvalues 1, 0.99, -1e6 and the rest in (-1, 0.99), a
+    # random rotation (generator 2, the sixth draw of 36); the nonmonotone line search's dips
+    # stall gradient ascent at |P grad H|/n = 8.6e-4, 1.85e-5 below the maximum (the top
+    # eigenvalue, scipy.linalg.eigh). A stall is critical only with a gradient near rounding
+    rng = np.random.default_rng(2)
+    n = 60
+    for stiff in (1e2, 1e4, 1e6):
+        for delta in (1e-2, 1e-4, 1e-6):
+            for rep in range(4):
+                q, _ = np.linalg.qr(rng.standard_normal((n, n)))
+                spread = rng.uniform(-1.0, 1.0 - delta, n - 3)
+                if (stiff, delta, rep) == (1e6, 1e-2, 1):
+                    lam = np.concatenate(([1.0, 1.0 - delta, -stiff], spread))
+                    a = (q * lam) @ q.T * n
+                    ham = oc.Hamiltonian.from_dense({2: 0.5 * (a + a.T)})
+    res = oc.gradient_ascent(ham, seed=1, max_iter=5000)
+    top = scipy.linalg.eigh(0.5 * (a + a.T) / n, eigvals_only=True)[-1]
+    assert res.info["status"] == "stalled" and res.info["grad_norm"] > 1e-4
+    assert top - res.energy > 1e-5 and res.info["n_positive"] == 0
+    assert res.info["local_max"] is False

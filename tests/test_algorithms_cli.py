@@ -275,6 +275,9 @@ def test_climb_names_a_point_that_is_not_critical_and_refuses_a_json_plan(tmp_pa
     ("seconds", "text"),
     [
         (2e-5, "20 us"),
+        (0.0009996, "1 ms"),
+        (-1.0, "unknown"),
+        (float("nan"), "unknown"),
         (0.85, "850 ms"),
         (0.9996, "1.0 s"),
         (3.24, "3.2 s"),
@@ -289,3 +292,13 @@ def test_durations_read_as_people_write_them(seconds, text):
     from orthoclimb.cli import seconds_text
 
     assert seconds_text(seconds) == text
+
+
+def test_a_plan_without_hessian_steps_does_not_time_a_hessian(tmp_path, capsys):
+    # a field strong enough that q_hat = 1 ends Hessian ascent's first stage on the sphere:
+    # the plan printed "one Hessian pass: 0 us ... (0 Hessian steps ...)" (a review)
+    args = ["climb", "--gammas", "1:3,2:1", "--n", "200", "--method", "hessian", "--plan-only"]
+    assert main([*args, "--out", str(tmp_path / "p")]) == 0
+    out = capsys.readouterr().out
+    assert "no Hessian step: the field stage ends on the sphere; the polish takes" in out
+    assert "one Hessian pass" not in out

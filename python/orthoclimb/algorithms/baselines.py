@@ -50,7 +50,7 @@ from ._checks import (
 from ._config import base_config
 from ._riemannian import sphere_ascent
 from ._sphere import project_tangent, random_unit, retract
-from .polish import local_max_info
+from .polish import is_critical, local_max_info
 from .polish import polish as polish_point
 from .result import Result
 
@@ -130,7 +130,7 @@ def gradient_ascent(
         "returned_iteration": trace.returned_iteration,
     }
     if check:
-        critical = trace.grad_norm <= gtol or trace.status == "stalled"
+        critical = is_critical(trace.grad_norm, gtol, trace.status, trace.energy)
         info.update(local_max_info(ham, trace.x, critical))
     _add_theory(ham, info, trace.energy)
     config = base_config(ham, "gradient", seed=seed, gtol=gtol, max_iter=max_iter)

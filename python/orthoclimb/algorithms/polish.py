@@ -178,7 +178,7 @@ def _polish(ham: Hamiltonian, x0: np.ndarray, gtol: float, max_iter: int, check:
         "passes": passes,
     }
     if check:
-        info.update(local_max_info(ham, x, gnorm <= gtol or status == "stalled"))
+        info.update(local_max_info(ham, x, is_critical(gnorm, gtol, status, energy)))
     config = base_config(ham, "polish", gtol=gtol, max_iter=max_iter)
     path = {k: np.asarray(v) for k, v in rows.items()}
     return Result(x, energy, path, config, time.perf_counter() - start, info)
@@ -193,12 +193,27 @@ def _newton_fits(ham: Hamiltonian) -> bool:
     return need <= available_memory() // 2
 
 
+# A stalled run is critical when its tangent gradient (per spin) is within this fraction of
+# the energy's scale: sqrt(machine epsilon), the gradient a stall at rounding level leaves.
+STALL_GRADIENT = float(np.sqrt(np.finfo(float).eps))
+
+
+def is_critical(grad_norm: float, gtol: float, status: str, energy: float) -> bool:
+    """Whether a run ended at a critical point: |P grad H|/n <= gtol, or a stall (no progress
+    at rounding level) with |P grad H|/n <= STALL_GRADIENT max(1, |energy per spin|). gtol
+    is absolute, so at gamma = 1e4 gradient ascent stalls at 2.7e-7 > gtol = 1e-7 (the bound
+    there: 2.4e-4). A stall alone is not enough: on a quadratic built with a top eigenvalue
+    gap of 0.01 and one of -1e6, the nonmonotone line search stalled at 8.6e-4, 1.85e-5
+    below the maximum (a review)."""
+    if grad_norm <= gtol:
+        return True
+    return status == "stalled" and grad_norm <= STALL_GRADIENT * max(1.0, abs(energy))
+
+
 def local_max_info(ham: Hamiltonian, x: np.ndarray, critical: bool) -> dict[str, Any]:
     """The :func:`tangent_spectrum` fields plus ``local_max``: the run found x ``critical``
-    (its gradient within the run's tolerance, or a stall: no progress at rounding level, as
-    at scales far from 1, where the tolerance is absolute) and no tangent eigenvalue is
-    positive. A point stopped by an iteration cap on a slope has no positive eigenvalue
-    either, but is no maximum."""
+    (:func:`is_critical`) and no tangent eigenvalue is positive. A point stopped by an
+    iteration cap on a slope has no positive eigenvalue either, but is no maximum."""
     spec = tangent_spectrum(ham, x)
     return {
         "n_positive": spec["n_positive"],

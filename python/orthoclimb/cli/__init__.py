@@ -86,7 +86,11 @@ def exponent_value(text: str) -> float:
 
 def seconds_text(seconds: float) -> str:
     """A duration for people: "850 ms", "3.2 s", "42 s", "7 min", "2.5 h"."""
-    if seconds < 1e-3:
+    import math
+
+    if not (math.isfinite(seconds) and seconds >= 0.0):
+        return "unknown"
+    if seconds < 0.9995e-3:
         return f"{seconds * 1e6:.0f} us"
     if seconds < 0.9995:
         return f"{seconds * 1e3:.0f} ms"

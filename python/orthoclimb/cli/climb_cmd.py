@@ -159,6 +159,9 @@ def _run_estimate(
         lanczos = LANCZOS_SECONDS[0] + LANCZOS_SECONDS[1] * n**2
         run = moves * (hess + lanczos) + (POLISH_PASSES * grad if polish else 0.0)
         what = f"{moves} Hessian steps" + (" and the polish" if polish else "")
+        if moves == 0:
+            polish_time = f"; the polish takes about {seconds_text(run)}" if polish else ""
+            return f"no Hessian step: the field stage ends on the sphere{polish_time}"
         return (
             f"one Hessian pass: {seconds_text(hess)}; estimated run time about"
             f" {seconds_text(run)} ({what})"

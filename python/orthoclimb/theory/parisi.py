@@ -577,7 +577,9 @@ def _new_steps(grid: _Grid, theta: np.ndarray) -> dict[int, float]:
     return {k: v for k, v in out.items() if grid.q[k] < v < grid.q[k + 1]}
 
 
-def _few_jumps(grid: _Grid, theta: np.ndarray, value: float) -> tuple[_Grid, np.ndarray, float]:
+def _few_jumps(
+    grid: _Grid, theta: np.ndarray, value: float, margin: float
+) -> tuple[_Grid, np.ndarray, float]:
     """The solved alpha, or an alpha of ``_FEW_JUMPS`` jumps placed freely if that is lower.
 
     With a field and an isolated jump of alpha, the grid solve can spread the jump over a
@@ -587,8 +589,12 @@ def _few_jumps(grid: _Grid, theta: np.ndarray, value: float) -> tuple[_Grid, np.
     its mass-weighted place with its total height, and P is minimized over B, the heights and
     the places (Nelder-Mead on log B, log heights and the places' logits, as the tests' own
     one-jump reference). Any step function is admissible, so a lower value is a better upper
-    bound, and it replaces the grid's; where alpha has a continuous part, a few jumps do
-    worse and the grid's solution stays."""
+    bound; it replaces the grid's when it is lower by more than ``margin`` (the tolerance).
+    Within the tolerance the grid's alpha stays: where alpha has a continuous part (a
+    full-RSB mixture with a field, whose alpha rises on [q_hat, 1]), a coarse grid can lose
+    to two jumps by less than tol (1:0.3,2:1,4:0.2236 at tol 1e-6: by 1.3e-7), and two jumps
+    would misdraw alpha. Measured by a review over about 1200 solves: the fit's time has a
+    median of 6-19 ms and a maximum of 0.2 s; the value never rose."""
     d = theta[1:]
     steps = np.flatnonzero(d > 0.0)
     best = (grid, theta, value)
@@ -603,7 +609,7 @@ def _few_jumps(grid: _Grid, theta: np.ndarray, value: float) -> tuple[_Grid, np.
         t0 = np.array([np.average(place[g], weights=height[g]) for g in groups])
         h0 = np.array([height[g].sum() for g in groups])
         trial = _fit_jumps(grid, float(theta[0]), t0, h0)
-        if trial is not None and trial[2] < best[2] - 1e-15 * max(1.0, abs(best[2])):
+        if trial is not None and trial[2] < best[2] - max(margin, 1e-15 * max(1.0, abs(best[2]))):
             best = trial
     return best
 
@@ -614,7 +620,8 @@ def _fit_jumps(
     """Minimize P over B and k jumps (places t_1 < ... < t_k in (0, 1), heights > 0) from the
     start (b0, t0, h0); the grid, theta and value of the optimum, None if it is degenerate.
     P of so few pieces is written out in floats (the module doc's closed forms), which is
-    about 20 times faster per value than a _Grid, for Nelder-Mead's thousands of values."""
+    about 15 times faster per value than a _Grid, for Nelder-Mead's thousands of values (the
+    plain differences of xi lose digits next to q = 1; the value kept is a _Grid's)."""
     k = t0.size
     t0 = np.clip(t0, 1e-9, 1.0 - 1e-9)
     # places as nested fractions: t_j = t_{j-1} + (1 - t_{j-1}) sigmoid(u_j), so they increase
@@ -812,7 +819,7 @@ def _ground_state(
         q, theta = _split(q, theta, flag, new_steps)
 
     solved_theta, value = _tidy(solved_grid, solved_theta, value)
-    solved_grid, solved_theta, value = _few_jumps(solved_grid, solved_theta, value)
+    solved_grid, solved_theta, value = _few_jumps(solved_grid, solved_theta, value, tol / s)
     B = float(solved_theta[0]) / s
     d = solved_theta[1:]
     m = np.cumsum(d) / s
