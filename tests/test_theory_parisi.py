@@ -585,3 +585,15 @@ def test_huge_gammas_converge_to_the_scaled_value(scale):
     assert gs.converged and gs.tol == pytest.approx(TOL_FLOOR * s, rel=1e-15)
     ref = ground_state(base, tol=1e-9).value
     assert gs.value / scale == pytest.approx(ref, rel=1e-8)
+
+
+def test_a_piece_too_narrow_to_split_stays_whole():
+    # gammas of 1e100 (1:0.3,2:1,4:0.2236 scaled): the refinement reached a piece two ulps
+    # wide, whose midpoint is one of its ends, and returned two equal breakpoints, which
+    # parisi_functional refuses (a review). The returned step function must be admissible
+    # and its value the functional's at it (exact identity, to rounding)
+    mix = Mixture({1: 0.3e100, 2: 1e100, 4: 0.2236e100})
+    gs = ground_state(mix)
+    assert np.all(np.diff(gs.breakpoints) > 0.0)
+    value = parisi_functional(mix, gs.B, gs.breakpoints, gs.alpha)
+    assert value == pytest.approx(gs.value, rel=1e-13)

@@ -679,14 +679,17 @@ def _fit_jumps(
 
 def _split(q: np.ndarray, theta: np.ndarray, which: np.ndarray, at: dict[int, float] | None = None):
     """Split the pieces flagged in ``which`` at their midpoints, and each piece k of ``at`` at
-    at[k], keeping the same alpha."""
+    at[k], keeping the same alpha. A piece too narrow to hold a point strictly inside it (two
+    ulps wide: its midpoint rounds to an end) stays whole; splitting it made two equal
+    breakpoints, which parisi_functional then refused (a review: gammas of 1e100, and tol at
+    its floor)."""
     at = at or {}
     new_q = [q[0]]
     new_d = []
     d = theta[1:]
     for j in range(q.size - 1):
-        if which[j] or j in at:
-            t = at.get(j, 0.5 * (q[j] + q[j + 1]))
+        t = at.get(j, 0.5 * (q[j] + q[j + 1]))
+        if (which[j] or j in at) and q[j] < t < q[j + 1]:
             new_q.extend((t, q[j + 1]))
             new_d.extend((d[j], 0.0))
         else:
