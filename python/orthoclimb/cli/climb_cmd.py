@@ -134,7 +134,11 @@ def _sampling_estimate(mixture: Mixture, n: int, dtype: str, need: int) -> str |
     second."""
     if need <= _SAMPLING_TIMED_ABOVE:
         return None
-    probe, seconds = _probe(mixture, n, dtype)
+    return _sampling_text(*_probe(mixture, n, dtype), need)
+
+
+def _sampling_text(probe: Hamiltonian, seconds: float, need: int) -> str:
+    """The sampling time of ``need`` bytes, scaled from the probe's ``seconds``."""
     return f"sampling: about {seconds_text(seconds * need / probe.nbytes)} (timed at n = {probe.n})"
 
 
@@ -303,10 +307,9 @@ def run(args: argparse.Namespace) -> int:
         raise ValueError("--plan-only prints its plan as text; give it without --json")
     if args.plan_only:  # before the memory check: a plan may be for a bigger machine
         probe, seconds = _probe(mixture, args.n, args.dtype)
-        scale = need / probe.nbytes
         polish = not args.no_polish and args.method != "gradient"
-        say(f"sampling: about {seconds_text(seconds * scale)} (timed at n = {probe.n})")
-        say(_run_estimate(probe, args.method, steps, polish, args.n, scale))
+        say(_sampling_text(probe, seconds, need))
+        say(_run_estimate(probe, args.method, steps, polish, args.n, need / probe.nbytes))
         try:
             require_memory(need, f"an instance of {mixture!r} with n = {args.n}")
         except MemoryError as exc:

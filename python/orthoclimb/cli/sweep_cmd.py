@@ -24,6 +24,7 @@ from ..studies.grid import (
     DEFAULT_EXPONENT,
     TOML_EXAMPLE,
     StudySpec,
+    method_names,
     spec_from_flags,
     spec_from_toml,
 )
@@ -136,8 +137,8 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
 
 
 def _spec(args: argparse.Namespace) -> StudySpec:
-    flags = [args.gammas, args.xi, args.sizes, args.seeds, args.steps, args.tol, args.max_iter]
-    flags.append(args.dtype)
+    flags = [args.gammas, args.xi, args.sizes, args.seeds, args.steps, args.tol]
+    flags += [args.max_iter, args.dtype]  # every flag of the grid, beside a TOML file
     if args.spec is not None:
         if any(f is not None for f in flags) or args.no_polish:
             raise ValueError("give the study either as a TOML file or as flags, not both")
@@ -149,7 +150,7 @@ def _spec(args: argparse.Namespace) -> StudySpec:
         raise ValueError("give --n and --seeds (and --gammas), or a study TOML file")
     # each flag goes to the methods of the study that take it, as in climb; a flag that no
     # method of the study takes is a mistake, refused
-    chosen = {m.strip() for m in args.methods.split(",")}
+    chosen = set(method_names(args.methods))
     given = (
         ("--steps", "steps", args.steps, ("hessian", "anneal")),
         ("--tol", "tol", args.tol, ("hessian",)),
@@ -203,11 +204,13 @@ def execute(
     from ..studies.report import write_report
     from ..studies.store import Store
 
+    plan_only = getattr(args, "plan_only", False)
+
     def on_start(pending: list, plan) -> None:
         total = len(spec.tasks())
         if not pending:  # a complete study: nothing to plan
             say(f"study: {total} tasks, all done already, in {out}")
-            if getattr(args, "plan_only", False):
+            if plan_only:
                 raise _PlanShown
             return
         nbytes, mix, n = largest_instance(spec, pending)
@@ -239,7 +242,7 @@ def execute(
             " work",
             flush=True,
         )
-        if getattr(args, "plan_only", False):
+        if plan_only:
             raise _PlanShown
 
     stale = (

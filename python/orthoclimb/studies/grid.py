@@ -344,9 +344,14 @@ class StudySpec:
         ]
 
 
+def method_names(text: str) -> list[str]:
+    """The names in ``"hessian,gradient"``, as written (checked by :func:`parse_methods`)."""
+    return [t.strip() for t in text.split(",") if t.strip()]
+
+
 def parse_methods(text: str, options: Mapping[str, Mapping[str, Any]] | None = None):
     """Methods from ``"hessian,gradient"``; ``options`` maps a method name to its options."""
-    names = [t.strip() for t in text.split(",") if t.strip()]
+    names = method_names(text)
     if not names:
         raise ValueError("no method given; choose from " + ", ".join(sorted(METHOD_OPTIONS)))
     options = options or {}

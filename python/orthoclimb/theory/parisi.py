@@ -406,15 +406,23 @@ def _jump_moves(
     return float(gains.sum()), places, gains, isolated
 
 
+def _piece_samples(
+    grid: _Grid, theta: np.ndarray, pieces: np.ndarray, samples: np.ndarray
+) -> tuple[np.ndarray, np.ndarray]:
+    """D at the fractions ``samples`` of each of ``pieces``: (places, values), one row per
+    piece."""
+    k = np.repeat(pieces, samples.size)
+    t = (grid.q[k] + np.tile(samples, pieces.size) * grid.dq[k]).reshape(pieces.size, -1)
+    return t, grid.directional(theta, t.ravel(), k).reshape(t.shape)
+
+
 def _sampled_minimum(
     grid: _Grid, theta: np.ndarray, jumps: np.ndarray, samples: np.ndarray
 ) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
     """For each jump, the lowest sample of D over its two neighbouring pieces: (place, D there,
     the piece it lies in)."""
     pieces = np.concatenate((jumps - 1, jumps))
-    k = np.repeat(pieces, samples.size)
-    t = (grid.q[k] + np.tile(samples, pieces.size) * grid.dq[k]).reshape(pieces.size, -1)
-    vals = grid.directional(theta, t.ravel(), k).reshape(t.shape)
+    t, vals = _piece_samples(grid, theta, pieces, samples)
     lowest = vals.argmin(axis=1)
     side = np.where(vals[: jumps.size].min(axis=1) <= vals[jumps.size :].min(axis=1), 0, 1)
     row = side * jumps.size + np.arange(jumps.size)  # the side of each jump where D is lower
@@ -566,10 +574,7 @@ def _new_steps(grid: _Grid, theta: np.ndarray) -> dict[int, float]:
     if pieces.size == 0:
         return {}
     inner = _JUMP_SAMPLES[(_JUMP_SAMPLES > 1e-6) & (_JUMP_SAMPLES < 1.0 - 1e-6)]
-    k = np.repeat(pieces, inner.size)
-    t = grid.q[k] + np.tile(inner, pieces.size) * grid.dq[k]
-    vals = grid.directional(theta, t, k).reshape(pieces.size, -1)
-    t = t.reshape(pieces.size, -1)
+    t, vals = _piece_samples(grid, theta, pieces, inner)
     low = vals.argmin(axis=1)
     rows = np.flatnonzero(vals[np.arange(pieces.size), low] < -_D_THRESHOLD)
     out = {int(pieces[r]): float(t[r, low[r]]) for r in rows}
@@ -806,10 +811,9 @@ def _ground_state(
             flag[0] = flag[0] and later is None
         if later is not None:
             new_steps = {}  # found again on the next grid, after alpha's start has moved
-        # defensive: each point strictly inside its piece (the pieces past alpha's last jump
-        # are not moved by _move_jumps)
-        new_steps = {k: t for k, t in new_steps.items() if q[k] < t < q[k + 1]}
-        tried = bool(new_steps)  # only points actually put on the grid count as tried
+        # only points actually put on the grid count as tried (_move_jumps leaves the pieces
+        # past alpha's last jump alone, so each point is still inside its piece)
+        tried = bool(new_steps)
         for k in new_steps:  # split there at the lowest sample of D, not at the midpoint
             flag[k] = False
         if not np.any(flag) and not np.any(moving) and later is None and not new_steps:
