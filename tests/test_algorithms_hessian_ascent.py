@@ -499,3 +499,23 @@ def test_the_no_steps_note_is_only_for_a_first_stage_on_the_sphere():
     ham = oc.Hamiltonian.sample(oc.Mixture({3: 1.0}), 30, seed=1)
     res = oc.hessian_ascent(ham, steps=1, polish=False)
     assert "q_hat = 1" not in res.info.get("note", "")
+
+
+def test_the_run_and_the_plan_agree_on_the_number_of_hessian_steps(tmp_path, capsys):
+    # 1:g,3:1 has q_hat = g/sqrt(3) (the root of q xi'' = xi': 6q^2 = g^2 + 3q^2). With
+    # 1 - q_hat = 5e-13 the first stage ends on the sphere to rounding, so the run takes no
+    # Hessian step; climb's plan and progress bar counted K - 1 of them, since they asked for
+    # q_hat >= 1 while the run measured |x|^2 (one rule now, in hessian_moves)
+    from orthoclimb.cli import main
+
+    gamma_1 = math.sqrt(3.0) * (1.0 - 5e-13)
+    mixture = oc.Mixture({1: gamma_1, 3: 1.0})
+    assert 0.0 < 1.0 - oc.theory.algorithmic_threshold(mixture) < 1e-12
+    assert oc.algorithms.hessian_moves(mixture, 10) == 0
+    res = oc.hessian_ascent(oc.Hamiltonian.sample(mixture, 40, seed=0), steps=10, polish=False)
+    assert res.path["step"].tolist() == [0] and "no Hessian steps" in res.info["note"]
+    args = ["climb", "--gammas", f"1:{gamma_1!r},3:1", "--n", "40", "--steps", "10"]
+    assert main([*args, "--plan-only", "--out", str(tmp_path / "p")]) == 0
+    assert "no Hessian step: the field stage ends on the sphere" in capsys.readouterr().out
+    # without a field every one of the K - 1 moves is a Hessian step
+    assert oc.algorithms.hessian_moves(oc.Mixture({3: 1.0}), 10) == 9

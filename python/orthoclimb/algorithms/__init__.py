@@ -13,7 +13,7 @@ Units and sign: energy per spin e(x) = H(x)/n at unit vectors x; we maximize.
 """
 
 from .baselines import geometric_schedule, gradient_ascent, langevin_anneal
-from .hessian_ascent import auto_steps, hessian_ascent
+from .hessian_ascent import auto_steps, hessian_ascent, hessian_moves
 from .polish import polish, tangent_spectrum
 from .result import FORMAT_VERSION, Result, load_result
 from .stability import StabilityResult, stability
@@ -26,6 +26,7 @@ __all__ = [
     "geometric_schedule",
     "gradient_ascent",
     "hessian_ascent",
+    "hessian_moves",
     "langevin_anneal",
     "load_result",
     "polish",

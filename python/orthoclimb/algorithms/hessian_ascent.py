@@ -98,7 +98,7 @@ from ._sphere import HessianReader, random_unit
 from .polish import polish as polish_point
 from .result import Result
 
-__all__ = ["auto_steps", "hessian_ascent"]
+__all__ = ["auto_steps", "hessian_ascent", "hessian_moves"]
 
 HESSIAN_MODES = ("auto", "dense", "operator")
 _WORKING_COPIES = 4  # projected copy, eigen-solver workspace, slack
@@ -124,6 +124,21 @@ def auto_steps(n: int) -> int:
     """The default number of steps K for n spins: n // 8, at least 25 and at most 200 (see
     "Finite n" in the module doc for the measurements behind it)."""
     return int(min(200, max(25, n // 8)))
+
+
+def hessian_moves(mixture: Mixture | None, steps: int) -> int:
+    """The number of Hessian steps (each a Hessian pass and an eigen-solve) in a run of
+    ``steps`` path points: steps - 1, or 0 when the first stage already ends on the unit sphere
+    (1 - q_hat <= 1e-12: a pure field, or a field strong enough; see the module doc). Without a
+    mixture (given coefficients) there is no first stage, so steps - 1."""
+    if mixture is not None and _ends_on_sphere(algorithmic_threshold(mixture)):
+        return 0
+    return steps - 1
+
+
+def _ends_on_sphere(q_hat: float) -> bool:
+    """Whether the first stage, on the sphere of radius sqrt(q_hat), is on the unit sphere."""
+    return 1.0 - q_hat <= _ON_SPHERE
 
 
 def _stepwise_energy(mixture: Mixture, q: np.ndarray, start: float) -> np.ndarray:
@@ -259,11 +274,10 @@ def hessian_ascent(
     else:
         x = random_unit(n, rng) / math.sqrt(k)
         stage = 2
-    n_moves = k - 1
-    if q_hat > 0.0 and 1.0 - float(x @ x) <= _ON_SPHERE:
-        # stage 1 already ended on the sphere (q_hat = 1: a pure field, or a field strong
-        # enough): a Hessian step of length 0 would cost a pass and an eigen-solve for nothing
-        n_moves = 0
+    n_moves = hessian_moves(mixture, k)
+    if _ends_on_sphere(q_hat):
+        # stage 1 already ended on the sphere: a Hessian step of length 0 would cost a pass
+        # and an eigen-solve for nothing
         info["note"] = "q_hat = 1: the first stage ends on the sphere, no Hessian steps"
     eps = math.sqrt(max(1.0 - float(x @ x), 0.0) / n_moves) if n_moves > 0 else 0.0
     v_prev = None

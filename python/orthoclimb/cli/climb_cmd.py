@@ -151,14 +151,12 @@ def _run_estimate(
     ``POLISH_PASSES`` energy-and-gradient passes for a polish. For a run at ``n`` timed on a
     smaller instance ``ham``, ``scale`` is the ratio of their coefficient bytes (a pass reads
     each coefficient once)."""
-    from ..theory import algorithmic_threshold
+    from ..algorithms import hessian_moves
 
     n = ham.n if n is None else n
     grad = scale * _time_pass(ham, "gradient")
     if method == "hessian":
-        moves = steps - 1
-        if ham.mixture is not None and algorithmic_threshold(ham.mixture) >= 1.0:
-            moves = 0  # the first stage ends on the sphere: no Hessian steps (hessian_ascent)
+        moves = hessian_moves(ham.mixture, steps)
         hess = scale * _time_pass(ham, "hessian") if moves > 0 else 0.0
         lanczos = LANCZOS_SECONDS[0] + LANCZOS_SECONDS[1] * n**2
         run = moves * (hess + lanczos) + (POLISH_PASSES * grad if polish else 0.0)
@@ -254,10 +252,15 @@ def _table(s: dict[str, Any]) -> str:
 
 
 def run(args: argparse.Namespace) -> int:
-    from ..algorithms import auto_steps, gradient_ascent, hessian_ascent, langevin_anneal
+    from ..algorithms import (
+        auto_steps,
+        gradient_ascent,
+        hessian_ascent,
+        hessian_moves,
+        langevin_anneal,
+    )
     from ..algorithms.baselines import geometric_schedule
     from ..algorithms.plotting import plot_result
-    from ..theory import algorithmic_threshold
 
     mixture = mixture_from(args)
     threads_note = threads_from(args)
@@ -330,7 +333,7 @@ def run(args: argparse.Namespace) -> int:
 
     total = steps
     if args.method == "hessian":
-        total = 0 if algorithmic_threshold(mixture) >= 1.0 else steps - 1
+        total = hessian_moves(mixture, steps)
     bar = tqdm(
         total=total, disable=True if quiet else None, unit="step", leave=False
     )  # None: tty only
