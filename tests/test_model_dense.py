@@ -91,3 +91,14 @@ def test_the_symmetry_bound_holds_for_every_permutation():
                 oc.Hamiltonian.from_dense({3: t})
         else:
             assert oc.Hamiltonian.from_dense({3: t}).n == 4
+
+
+def test_a_finite_tensor_whose_packed_coefficient_overflows_names_the_tensor():
+    # a_m = c(m) T[m]: 2 * 1e308 overflows, and the error said "coefficients[2] holds a
+    # non-finite value inf" with a RuntimeWarning, though the tensor given was finite (a review)
+    import warnings
+
+    with warnings.catch_warnings():
+        warnings.simplefilter("error")
+        with pytest.raises(ValueError, match=r"degree-2 tensor's entry at \(0, 1\) times its"):
+            oc.Hamiltonian.from_dense({2: np.full((4, 4), 1e308)})

@@ -109,3 +109,49 @@ def test_malformed_text_is_refused(text):
 def test_bad_derivative_order():
     with pytest.raises(ValueError, match="-1"):
         Mixture({2: 1.0}).xi(0.5, derivative=-1)
+
+
+def test_weights_beyond_float64_are_refused_with_the_package_error():
+    # float(10**400) raises OverflowError, which is neither ValueError nor TypeError; a NumPy
+    # complex read as its real part with only a warning (a review)
+    from orthoclimb.errors import MixtureTypeError
+
+    for make in (lambda: Mixture({2: 10**400}), lambda: Mixture.from_xi({2: 10**400})):
+        with pytest.raises(MixtureError, match="beyond float64's range, got an integer of 401"):
+            make()
+    with pytest.raises(MixtureTypeError, match="must be a real number"):
+        Mixture({2: np.complex128(1 + 2j)})
+    with pytest.raises(ValueError, match="q is beyond float64's range"):
+        Mixture({2: 1.0}).xi(10**400)
+
+
+@pytest.mark.parametrize("gammas", [{8: 1e154}, {2: 1e154, 3: 1e154}, {5: 2e153}])
+def test_a_mixture_whose_xi_overflows_at_1_is_refused(gammas):
+    # each gamma_p^2 is finite, but xi(1), xi'(1), xi''(1) or xi'''(1) (sums of falling
+    # factorials times gamma_p^2) overflow: ALG came out NaN for 8:1e154 (a review)
+    derivatives = [
+        sum(g * g * math.perm(p, k) for p, g in gammas.items() if p >= k) for k in range(4)
+    ]
+    assert not all(math.isfinite(v) for v in derivatives)
+    with pytest.raises(MixtureError, match="overflows float64; scale them down"):
+        Mixture(gammas)
+    scaled = Mixture({p: g * 1e-10 for p, g in gammas.items()})  # the same shape, smaller
+    assert math.isfinite(scaled.algorithmic_energy())
+
+
+def test_from_dict_refuses_a_float_degree_instead_of_truncating_it():
+    # int(2.7) is 2: from_dict({2.7: 1}) gave Mixture({2: 1.0}) (a review)
+    from orthoclimb.errors import MixtureTypeError
+
+    with pytest.raises(MixtureTypeError, match="2.7"):
+        Mixture.from_dict({2.7: 1.0})
+    assert Mixture.from_dict({"2": 1.0, 4: 0.5}) == Mixture({2: 1.0, 4: 0.5})
+
+
+@pytest.mark.parametrize("protocol", [0, 1, 2, 5])
+def test_a_mixture_pickles_with_every_protocol(protocol):
+    # __slots__ without __getstate__ refused protocols 0 and 1 (a review)
+    import pickle
+
+    m = Mixture({1: 0.25, 3: 1.0})
+    assert pickle.loads(pickle.dumps(m, protocol=protocol)) == m

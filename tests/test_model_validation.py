@@ -2,6 +2,8 @@
 
 from __future__ import annotations
 
+import math
+
 import numpy as np
 import pytest
 
@@ -155,8 +157,14 @@ def test_available_memory_parses_a_given_meminfo(monkeypatch):
 
 
 def test_storage_beyond_address_space_is_an_error_not_an_abort():
-    with pytest.raises(InsufficientMemoryError):
-        oc.estimate_memory(oc.Mixture({8: 1.0}), 10**9)
+    # the estimate is a number, exact (math.comb), even beyond 64 bits; it raised the core's
+    # "size overflow" before (a review). Sampling such an instance is refused, with the check
+    # of memory or without it (then by the core's checked count), never an abort
+    mixture = oc.Mixture({8: 1.0})
+    assert oc.estimate_memory(mixture, 10**9) == 8 * math.comb(10**9 + 7, 8)
+    for check in (True, False):
+        with pytest.raises(InsufficientMemoryError):
+            oc.Hamiltonian.sample(mixture, 10**9, seed=0, check_memory=check)
     with pytest.raises(ValueError, match=f"below 2\\^63, got {2**64}"):
         oc.estimate_memory(oc.Mixture({1: 1.0}), 2**64)
 
@@ -288,3 +296,40 @@ def test_switches_of_the_model_take_only_true_or_false(tmp_path, flag):
     with pytest.raises(TypeError, match="check_memory must be True or False"):
         oc.load_instance(tmp_path / "h", check_memory=flag)
     assert oc.load_instance(tmp_path / "h", check_memory=np.True_).n == 5
+
+
+def test_odd_integers_and_keys_get_package_errors():
+    # each of these escaped as OverflowError or a bare sort/conversion error (a review)
+    from orthoclimb.errors import MixtureTypeError
+
+    m = oc.Mixture({3: 1.0})
+    with pytest.raises(ValueError, match=r"rho must be in \[-1, 1\]"):
+        oc.Hamiltonian.sample(m, 3, 1, correlated_with=(0, 10**400))
+    ham = oc.Hamiltonian.sample(m, 4, 1)
+    count = math.comb(4 + 2, 3)
+    np.testing.assert_array_equal(ham.coefficients(3, None), ham.coefficients(3))
+    for start, stop in ((2**64, None), (0, 2**64), (0, count + 1)):
+        with pytest.raises(ValueError, match=rf"is outside 0\.\.{count}"):
+            ham.coefficients(3, start, stop)
+    c2 = np.zeros(math.comb(5, 2))
+    with pytest.raises(MixtureTypeError, match="'3'"):
+        oc.Hamiltonian.from_coefficients(4, {2: c2, "3": np.zeros(count)})
+    # np.dtype(None) is float64: None was taken for the default
+    with pytest.raises(ValueError, match="storage dtype must be 'float64' or 'float32', got None"):
+        oc.Hamiltonian.sample(m, 4, 1, dtype=None)
+
+
+def test_float32_storage_from_given_coefficients_makes_no_copy_of_their_size():
+    # the range check for float32 storage built |a| in float64 and a mask: 1.1 times the
+    # array's size at the peak, against a docstring that promises no second copy (a review).
+    # tracemalloc sees NumPy's buffers (NumPy reports them to it), not the core's storage
+    import tracemalloc
+
+    a = np.ones(math.comb(100 + 2, 3))  # 1.4 MB
+    tracemalloc.start()
+    try:
+        oc.Hamiltonian.from_coefficients(100, {3: a}, dtype="float32")
+        _, peak = tracemalloc.get_traced_memory()
+    finally:
+        tracemalloc.stop()
+    assert peak < 0.25 * a.nbytes, peak  # the finiteness check's mask: one byte per value

@@ -168,12 +168,18 @@ def pair_paths(path: str | os.PathLike) -> tuple[Path, Path]:
 def output_pair_paths(path: str | os.PathLike, example: str) -> tuple[Path, Path]:
     """:func:`pair_paths` for writing: a folder (an existing one, or a path ending in a
     separator) raises :class:`~orthoclimb.errors.OutputPathError`, since ``<folder>.json``
-    would land beside it; the message suggests ``<folder>/<example>``."""
+    would land beside it; the message suggests ``<folder>/<example>``. So does a folder
+    standing at either file of the pair, before anything is written (the .npz was written,
+    replacing an older one, before the .json was found to be a folder)."""
     text = os.fspath(path)
     if Path(text).is_dir() or text.endswith(("/", os.sep)):
         inside = str(Path(text) / example)
         raise OutputPathError(f"{text!r} is a folder; give a file stem in it, e.g. {inside!r}")
-    return pair_paths(text)
+    pair = pair_paths(text)
+    for member in pair:  # both checked before either is written
+        if member.is_dir():
+            raise OutputPathError(f"cannot write {str(member)!r}: it is a folder; give a file name")
+    return pair
 
 
 def write_text_atomic(path: str | os.PathLike, text: str) -> Path:

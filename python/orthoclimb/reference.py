@@ -6,7 +6,9 @@ For symmetric T of degree p,
     grad H_p(x) = p T_p(x, ..., x, .),   Hess H_p(x) = p (p - 1) T_p(x, ..., x, ., .),
 
 computed by contracting x into the last axes with matrix products. Memory is n^p numbers per
-degree, so this is only for small n; it shares no code with the Rust kernels.
+degree, so this is only for small n. It shares no code with the Rust kernels; building the
+dense tensors of an instance (``dense_tensors``) goes through ``Hamiltonian.to_dense``, which
+uses the core's table of packed index tuples (itself tested against ``itertools``).
 """
 
 from __future__ import annotations

@@ -116,4 +116,13 @@ def pack(tensor: np.ndarray, p: int, symmetrize: bool, rtol: float = 1e-10) -> n
                 )
             tensor = symmetrized(tensor)
     idx = multisets(n, p)
-    return np.ascontiguousarray(tensor[tuple(idx.T)] * orderings(idx))
+    with np.errstate(over="ignore"):
+        packed = np.ascontiguousarray(tensor[tuple(idx.T)] * orderings(idx))
+    if not np.all(np.isfinite(packed)):  # a finite entry times its count c(m) overflowed
+        i = int(np.flatnonzero(~np.isfinite(packed))[0])
+        raise ValueError(
+            f"the degree-{p} tensor's entry at {tuple(int(v) for v in idx[i])} times its"
+            f" number of orderings c(m) = {int(orderings(idx[i : i + 1])[0])} overflows float64"
+            " (the packed coefficient a_m = c(m) T[m]); scale the tensor down"
+        )
+    return packed

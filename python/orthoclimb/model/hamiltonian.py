@@ -64,7 +64,10 @@ def _check_correlation(spec: Any) -> tuple[int, float] | None:
     seed0 = _check_seed(seed0, "seed0 in correlated_with")
     if isinstance(rho, bool) or not isinstance(rho, (int, float, np.integer, np.floating)):
         raise TypeError(f"correlation rho must be a real number in [-1, 1], got {rho!r}")
-    rho = float(rho)
+    try:
+        rho = float(rho)
+    except OverflowError:  # an integer beyond float64
+        raise ValueError("correlation rho must be in [-1, 1], got a larger integer") from None
     if not -1.0 <= rho <= 1.0:  # also refuses NaN
         raise ValueError(f"correlation rho must be in [-1, 1], got {rho}")
     return seed0, rho
@@ -77,6 +80,8 @@ def _check_float32_range(a: np.ndarray, what: str) -> None:
     """float32 storage would turn a coefficient beyond float32's range into infinity: refuse it,
     naming the first one (values below float32's range round to 0 or subnormals, the usual
     loss of a narrower type, as documented for dtype="float32")."""
+    if a.size == 0 or (float(a.max()) <= _FLOAT32_MAX and float(a.min()) >= -_FLOAT32_MAX):
+        return  # two reductions: no temporary array of the coefficients' size
     big = np.flatnonzero(np.abs(a) > _FLOAT32_MAX)
     if big.size:
         i = int(big[0])
@@ -173,8 +178,9 @@ class Hamiltonian:
                 f"coefficients must be a non-empty mapping p -> array, got {coefficients!r}"
             )
         degrees, arrays = [], []
-        for p, arr in sorted(coefficients.items()):
-            p = _check_degree(p)
+        # degrees checked before sorting: a text key made the sort fail with a bare TypeError
+        checked = [(_check_degree(p), arr) for p, arr in coefficients.items()]
+        for p, arr in sorted(checked, key=lambda item: item[0]):
             a = as_float_array(arr, f"coefficients[{p}]")
             if a.ndim != 1:
                 raise ShapeError(f"coefficients[{p}] must be 1-D, got shape {a.shape}")
@@ -421,8 +427,9 @@ class Hamiltonian:
         p = _check_degree(p)
         if p not in self.degrees:
             raise ValueError(f"this instance has no degree-{p} term (degrees {self.degrees})")
+        count = coefficient_count((p,), self.n)
         bounds = []
-        for name, value in (("start", start), ("stop", stop)):
+        for name, value in (("start", 0 if start is None else start), ("stop", stop)):
             if value is not None and (
                 isinstance(value, (bool, np.bool_)) or not isinstance(value, (int, np.integer))
             ):
@@ -430,6 +437,9 @@ class Hamiltonian:
             if value is not None and value < 0:
                 raise ValueError(f"{name} must be >= 0, got {value}")
             bounds.append(None if value is None else int(value))
+        first, end = bounds[0], count if bounds[1] is None else bounds[1]
+        if max(first, end) > count:  # before the core, whose counts are 64-bit (2^64 overflowed)
+            raise ValueError(f"degree-{p} coefficient range {first}..{end} is outside 0..{count}")
         return self._core.coefficients(p, bounds[0], bounds[1])
 
     def to_dense(self, p: int, max_bytes: int = _dense.DEFAULT_DENSE_LIMIT) -> np.ndarray:

@@ -224,6 +224,8 @@ def _read_payload(json_path: Path) -> dict[str, Any]:
         doc = json.loads(text)
     except ValueError as exc:  # JSONDecodeError, or an absurdly long integer
         raise _fail(json_path, f"not valid JSON (truncated or corrupted?): {exc}") from None
+    except RecursionError:  # arrays nested beyond the parser's depth: not a file of ours
+        raise _fail(json_path, "not valid JSON for this format: nested too deeply") from None
     fmt = doc.get("format") if isinstance(doc, dict) else None
     if fmt != FORMAT:
         hint = " (a result file: use orthoclimb.load_result)" if fmt == "orthoclimb-result" else ""
@@ -275,7 +277,10 @@ def _load_recipe(json_path: Path, payload: dict[str, Any], check_memory: bool) -
             raise ValueError(f"unknown check point {saved['point']!r}")
         if sorted(saved["coefficients"]) != sorted(str(p) for p in mixture.degrees):
             raise ValueError("the fingerprint's degrees are not the mixture's")
-    except (KeyError, TypeError, ValueError) as exc:
+        for ends in saved["coefficients"].values():  # lists of numbers, or malformed
+            for end in ("head", "tail"):
+                [float(v) for v in ends[end]]
+    except (AttributeError, KeyError, TypeError, ValueError) as exc:
         raise _fail(json_path, f"malformed recipe ({type(exc).__name__}: {exc})") from None
     try:
         ham = Hamiltonian.sample(mixture, n, seed, dtype, corr, check_memory=check_memory)
@@ -300,6 +305,9 @@ def _load_recipe(json_path: Path, payload: dict[str, Any], check_memory: bool) -
     return ham
 
 
+_READ_CHUNK = 1 << 24  # bytes per read of a stored array (16 MiB)
+
+
 def _read_member(zf: zipfile.ZipFile, name: str, length: int) -> np.ndarray:
     """One float64 array of the given length from a zip member, read to its end so that the
     zip's CRC-32 is checked."""
@@ -315,10 +323,21 @@ def _read_member(zf: zipfile.ZipFile, name: str, length: int) -> np.ndarray:
             raise ValueError(
                 f"{name}: array of dtype {dtype}, shape {shape}; expected float64 ({length},)"
             )
-        data = f.read()
-    if len(data) != 8 * length:
-        raise ValueError(f"{name}: {len(data)} bytes of data, expected {8 * length}")
-    return np.frombuffer(data, dtype="<f8")
+        # read in chunks straight into the array: a single f.read() joined its chunks into
+        # one bytes object, twice the array's size at the peak (172 MB for an 86 MB degree)
+        out = np.empty(length, dtype="<f8")
+        view = memoryview(out).cast("B")
+        filled = 0
+        while filled < view.nbytes:
+            chunk = f.read(min(_READ_CHUNK, view.nbytes - filled))
+            if not chunk:
+                break
+            view[filled : filled + len(chunk)] = chunk
+            filled += len(chunk)
+        extra = len(f.read())  # to the member's end, where the zip's CRC-32 is checked
+    if filled != 8 * length or extra:
+        raise ValueError(f"{name}: {filled + extra} bytes of data, expected {8 * length}")
+    return out
 
 
 def _load_coefficients(
@@ -341,7 +360,10 @@ def _load_coefficients(
         raise _fail(json_path, f"malformed header ({type(exc).__name__}: {exc})") from None
     if check_memory:
         itemsize = 8 if dtype == "float64" else 4
-        need = 8 * sum(lengths.values()) + int(_core.storage_nbytes(n, degrees, itemsize))
+        # the float64 arrays read, the instance's storage, one read chunk and the one-byte
+        # mask of from_coefficients' finiteness check
+        count = sum(lengths.values())
+        need = 9 * count + int(_core.storage_nbytes(n, degrees, itemsize)) + _READ_CHUNK
         require_memory(need, f"loading the instance {str(npz_path)!r}")
     arrays = {}
     try:

@@ -13,7 +13,6 @@ from collections.abc import Iterable
 
 import numpy as np
 
-from .. import _core
 from ..errors import InsufficientMemoryError
 from .cgroup_memory import cgroup_headroom
 from .mixture import Mixture
@@ -23,8 +22,8 @@ DTYPES = {"float64": 8, "float32": 4}
 
 def normalize_dtype(dtype: object) -> str:
     """'float64' or 'float32' from a string or NumPy dtype; anything else is a ValueError."""
-    try:
-        name = np.dtype(dtype).name  # type: ignore[call-overload]
+    try:  # np.dtype(None) is float64: None is refused, not read as the default
+        name = None if dtype is None else np.dtype(dtype).name  # type: ignore[call-overload]
     except TypeError:
         name = None
     if name not in DTYPES:
@@ -38,7 +37,9 @@ def estimate_memory(mixture: Mixture, n: int, dtype: object = "float64") -> int:
         raise TypeError(f"mixture must be an orthoclimb.Mixture, got {type(mixture).__name__}")
     n = check_size(n)
     itemsize = DTYPES[normalize_dtype(dtype)]
-    return int(_core.storage_nbytes(n, list(mixture.degrees), itemsize))
+    # exact in Python integers, also where the core's 64-bit count overflows (n = 2^40 at
+    # p = 3 needs about 1.6e36 bytes: a number, not an error)
+    return coefficient_count(mixture.degrees, n) * itemsize
 
 
 def coefficient_count(degrees: Iterable[int], n: int) -> int:

@@ -23,6 +23,9 @@ from ..errors import MixtureError, MixtureTypeError
 MAX_DEGREE = 8
 """Largest degree p the kernels support."""
 
+# xi and its derivatives up to this order at q = 1 must be finite (the theory uses the third).
+_CHECKED_DERIVATIVES = 3
+
 
 def _check_degree(p: Any) -> int:
     if isinstance(p, bool) or not isinstance(p, (int, np.integer)):
@@ -34,13 +37,19 @@ def _check_degree(p: Any) -> int:
 
 
 def _check_gamma(p: int, gamma: Any, what: str = "gamma") -> float:
-    if isinstance(gamma, (bool, np.bool_, str, bytes)):  # True would read as 1.0, "0.5" as 0.5:
-        # both are slips, not weights (Mixture.parse reads text)
+    if isinstance(gamma, (bool, np.bool_, str, bytes, np.complexfloating)):
+        # True would read as 1.0, "0.5" as 0.5 and a NumPy complex as its real part (float()
+        # only warns): slips, not weights (Mixture.parse reads text)
         raise MixtureTypeError(f"{what} for p = {p} must be a real number, got {gamma!r}")
     try:
         value = float(gamma)
     except (TypeError, ValueError):
         raise MixtureTypeError(f"{what} for p = {p} must be a real number, got {gamma!r}") from None
+    except OverflowError:  # an integer beyond float64
+        raise MixtureError(
+            f"{what} for p = {p} is beyond float64's range, got an integer of"
+            f" {len(str(abs(int(gamma))))} digits"
+        ) from None
     if not math.isfinite(value) or value < 0:
         raise MixtureError(f"{what} for p = {p} must be finite and >= 0, got {gamma!r}")
     return value
@@ -103,7 +112,21 @@ class Mixture:
                 "a mixture needs at least one degree with gamma > 0, got "
                 + (repr(dict(checked)) if checked else "an empty mixture")
             )
+        for k in range(_CHECKED_DERIVATIVES + 1):
+            # each gamma_p^2 is finite, but their sum or a derivative at q = 1 can overflow
+            # (8:1e154 has xi''(1) = 56e308 = inf, and ALG came out NaN)
+            total = sum(g * g * math.perm(p, k) for p, g in kept.items() if p >= k)
+            if not math.isfinite(total):
+                raise MixtureError(
+                    f"the gammas {kept!r} are too large: xi{chr(39) * k}(1) overflows float64;"
+                    " scale them down (every energy scales with them: gammas times c, energies"
+                    " times c)"
+                )
         self._gammas = kept
+
+    def __reduce__(self) -> tuple[Any, tuple[Any, ...]]:
+        # every pickle protocol, 0 and 1 too (__slots__ without __getstate__ refused them)
+        return (Mixture, (dict(self._gammas),))
 
     # -- constructors -------------------------------------------------------------------
 
@@ -206,7 +229,10 @@ class Mixture:
             raise TypeError(f"derivative must be a nonnegative integer, got {derivative!r}")
         if derivative < 0:
             raise ValueError(f"derivative must be a nonnegative integer, got {derivative}")
-        q_arr = np.asarray(q, dtype=np.float64)
+        try:
+            q_arr = np.asarray(q, dtype=np.float64)
+        except OverflowError:  # an integer beyond float64
+            raise ValueError(f"q is beyond float64's range, got {q!r:.60}") from None
         out = np.zeros_like(q_arr)
         for p, g in self._gammas.items():
             if derivative > p:
@@ -229,7 +255,9 @@ class Mixture:
     def from_dict(cls, data: Mapping[str, float]) -> Mixture:
         """Inverse of :meth:`to_dict`."""
         try:
-            return cls({int(k): v for k, v in data.items()})
+            # keys as to_dict writes them ('2'); a float key such as 2.7 is refused by the
+            # constructor, not truncated to 2
+            return cls({int(k) if isinstance(k, str) else k: v for k, v in data.items()})
         except (AttributeError, ValueError, TypeError) as exc:
             if isinstance(exc, MixtureError):
                 raise
