@@ -688,3 +688,33 @@ def test_the_hold_raises_a_ctrl_c_after_its_block_not_inside_it():
     finally:
         signal.signal(signal.SIGINT, old)
     other.join()
+
+
+@pytest.mark.parametrize("address", ["inproc://x", "tls://127.0.0.1:1"])
+def test_a_scheduler_address_of_another_transport_is_refused_up_front(tmp_path, address):
+    # inproc:// failed inside Dask with "not enough values to unpack (expected 3, got 1)",
+    # tls:// with "TLS expects a ssl_context" (a review); the folder is not created
+    folder = tmp_path / "s"
+    with pytest.raises(ValueError, match=r"takes a tcp://HOST:PORT address, got '.*' \(scheme"):
+        run_study(_spec("0-1"), folder, scheduler=address, timeout=2, progress=False)
+    assert not folder.exists()
+
+
+def test_a_listener_that_is_no_scheduler_gets_a_message_naming_the_address(monkeypatch):
+    # whatever Dask's client raises besides OSError/TimeoutError left as its own message
+    import socket
+
+    import distributed
+
+    from orthoclimb.studies import engine
+
+    def refusing_client(*args, **kwargs):
+        raise RuntimeError("handshake failed")
+
+    monkeypatch.setattr(distributed, "Client", refusing_client)
+    with socket.socket() as listener:
+        listener.bind(("127.0.0.1", 0))
+        listener.listen()
+        address = f"tcp://127.0.0.1:{listener.getsockname()[1]}"
+        with pytest.raises(ValueError, match=rf"cannot connect to a Dask scheduler at {address}"):
+            engine._connect(address, None, 2.0)

@@ -3,6 +3,8 @@ arithmetic, no clock), and one real calibration."""
 
 from __future__ import annotations
 
+import math
+
 import pytest
 
 import orthoclimb as oc
@@ -98,6 +100,13 @@ def test_calibration_size_comes_from_the_mixtures_own_sizes():
     # pure p = 2 at n = 1000 needs only 4 MB, yet it is timed at 400
     wide = MixtureSpec.make(oc.Mixture({2: 1.0}), "wide", sizes="600,1000")
     assert calibrate(StudySpec((wide,), (20,), (0,), spec.methods))["wide"].n0 == 400
+    # when no size fits, the largest n below them that does: 6:1 at n = 150 needs 130 GiB,
+    # which the calibration sampled on the driver (refused here, a review; on a larger
+    # machine it would have taken it). C(n + 5, 6) 8 bytes <= 64 MiB holds up to n = 40
+    huge = MixtureSpec.make(oc.Mixture({6: 1.0}), "huge", sizes="150,200")
+    n0 = calibrate(StudySpec((huge,), (20,), (0,), spec.methods))["huge"].n0
+    assert n0 == 40
+    assert 8 * math.comb(n0 + 5, 6) <= 64 * 2**20 < 8 * math.comb(n0 + 6, 6)
 
 
 def _hessian_spec(steps) -> StudySpec:

@@ -375,3 +375,17 @@ def test_a_thread_count_from_the_environment_above_the_cores_gets_a_note(monkeyp
         assert threads_from(argparse.Namespace(threads=None)) is None
     finally:
         oc.set_num_threads(before)
+
+
+def test_one_mixture_under_two_names_is_refused(tmp_path):
+    # a task id hashes the gammas, not the name, so 'a' (gammas 3:1) and 'b' (xi 3:1) made
+    # pairs of tasks with one id: the second name's rows were refused on every rerun and the
+    # study could never finish (a review)
+    path = tmp_path / "dup.toml"
+    path.write_text(
+        'sizes = [20, 30]\nseeds = "0-2"\n[[method]]\nname = "gradient"\n'
+        '[[mixture]]\nname = "a"\ngammas = {3 = 1.0}\n'
+        '[[mixture]]\nname = "b"\nxi = {3 = 1.0}\n'
+    )
+    with pytest.raises(ValueError, match="mixtures 'a' and 'b' are the same mixture"):
+        spec_from_toml(path)

@@ -57,3 +57,24 @@ def test_a_folder_holding_other_files_is_not_taken_for_a_new_study(tmp_path):
     with pytest.raises(StudyMismatchError, match="is not empty and holds no study.json"):
         Store.open(folder, _spec())
     assert sorted(p.name for p in folder.iterdir()) == ["notes.txt"]
+
+
+def test_a_row_of_a_newer_format_is_not_to_be_deleted(tmp_path):
+    # the message told the user both to upgrade and to delete the row and rerun, which would
+    # throw away a row that is likely valid (a review)
+    import json
+
+    from orthoclimb.fileio import json_digest
+
+    spec = _spec()
+    store = Store.open(tmp_path / "s", spec)
+    task = spec.tasks()[0]
+    store.write_row(_row(task))
+    (path,) = (tmp_path / "s" / "rows").glob("*.json")
+    doc = json.loads(path.read_text())
+    doc["format_version"] += 1
+    doc["sha256"] = json_digest(doc["payload"])
+    path.write_text(json.dumps(doc))
+    with pytest.raises(ValueError, match="newer than this orthoclimb") as info:
+        store.rows()
+    assert "delete" not in str(info.value)

@@ -32,7 +32,10 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
         help="confidence level of the intervals, in (0, 1) (default 0.9)",
     )
     parser.add_argument(
-        "--bootstrap", type=int, default=2000, help="bootstrap replicates, >= 100 (default 2000)"
+        "--bootstrap",
+        type=int,
+        default=2000,
+        help="bootstrap replicates, 100 to 1000000 (default 2000)",
     )
     parser.add_argument("--no-plots", action="store_true", help="skip the PNG plots")
     parser.add_argument("--json", action="store_true", help="print the report as JSON")
@@ -43,8 +46,10 @@ def run(args: argparse.Namespace) -> int:
 
     if not 0 < args.level < 1:
         raise ValueError(f"--level must be in (0, 1), got {args.level}")
-    if args.bootstrap < 100:
-        raise ValueError(f"--bootstrap must be >= 100, got {args.bootstrap}")
+    from ..studies.extrapolate import MAX_BOOT
+
+    if not 100 <= args.bootstrap <= MAX_BOOT:
+        raise ValueError(f"--bootstrap must be in [100, {MAX_BOOT}], got {args.bootstrap}")
     rep = write_report(
         args.study, args.exponent, args.level, args.bootstrap, plots=not args.no_plots
     )

@@ -132,14 +132,19 @@ class SweepOutcome:
     replaced_workers: int = 0  # embedded cluster: worker processes that died and were replaced
 
 
-def check_scheduler_address(scheduler: Any) -> tuple[str, str, int | None]:
-    """(scheme, host, port) of a Dask address like tcp://HOST:PORT; port is None for schemes
-    other than tcp. A ValueError names a malformed address."""
+def check_scheduler_address(scheduler: Any) -> tuple[str, str, int]:
+    """(scheme, host, port) of a Dask address tcp://HOST:PORT. A ValueError names a malformed
+    address, and one of another scheme: inproc:// lives inside one process, and tls:// (or
+    another transport) needs security settings the command line does not take; each failed
+    inside Dask with its own message ("not enough values to unpack")."""
     if not isinstance(scheduler, str) or "://" not in scheduler:
         raise ValueError(f"--scheduler must be an address like tcp://HOST:PORT, got {scheduler!r}")
     scheme, _, rest = scheduler.partition("://")
     if scheme != "tcp":
-        return scheme, rest, None
+        raise ValueError(
+            f"--scheduler takes a tcp://HOST:PORT address, got {scheduler!r} (scheme"
+            f" {scheme!r}): other transports are not supported"
+        )
     from distributed.comm import parse_host_port
 
     try:
@@ -162,8 +167,6 @@ def _probe(scheduler: str, timeout: float) -> None:
     import socket
 
     _, host, port = check_scheduler_address(scheduler)
-    if port is None:
-        return
     try:
         with socket.create_connection((host, port), timeout=timeout):
             pass
@@ -250,6 +253,11 @@ def _connect(scheduler: str | None, plan: WorkerPlan, timeout: float):
         raise ValueError(
             f"cannot reach the Dask scheduler at {scheduler} within {timeout:g} s ({exc}); "
             "check the address, or omit --scheduler to use an embedded local cluster"
+        ) from None
+    except Exception as exc:  # Dask's own complaints, for a listener that is not a scheduler
+        raise ValueError(
+            f"cannot connect to a Dask scheduler at {scheduler}"
+            f" ({type(exc).__name__}: {exc}); check the address"
         ) from None
     return client, None
 

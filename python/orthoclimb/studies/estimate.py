@@ -2,9 +2,10 @@
 
 Time model (seconds, per task): sampling the instance and a kernel pass at size n cost
 their time at a calibration size n0 times (n/n0)^P, both timed on the driver at n0 (the
-largest of the mixture's sizes whose instance takes at most 64 MB, at most 400), P the largest
-degree. The cost per coefficient falls as n grows (per-segment overheads), so n0 is taken as
-large as that allows. Hessian ascent: K x (a Hessian pass plus Lanczos, about 6e-4 + 1.1e-8
+largest of the mixture's sizes whose instance takes at most 64 MB, at most 400; when none
+does, the largest n below its sizes that does), P the largest degree. The cost per
+coefficient falls as n grows (per-segment overheads), so n0 is taken as large as that
+allows. Hessian ascent: K x (a Hessian pass plus Lanczos, about 6e-4 + 1.1e-8
 n^2 s: medians per step on one thread 0.7, 1.4 and 1.8 ms at n = 100, 220 and 320 for the
 pure 3-spin model, 3.9 and 10.4 ms at n = 600 and 1000 for the pure 2-spin one) plus, when it
 polishes, about 150 energy-and-gradient passes; gradient ascent: about 150 iterations x 1.5
@@ -79,6 +80,23 @@ def largest_instance(spec: StudySpec, tasks=None) -> tuple[int, str, int]:
     return best
 
 
+def _largest_fitting(mixture, below: int) -> int:
+    """The largest n <= ``below`` whose instance takes at most ``_CAL_BYTES`` (bisection; n = 1
+    holds one coefficient per degree). Used when none of a mixture's sizes fits: sampling
+    the smallest of them on the driver asked for 130 GiB for 6:1 at n = 150, a study meant
+    for a larger external cluster (a review)."""
+    from ..model import estimate_memory
+
+    lo, hi = 1, below  # estimate_memory(lo) fits, estimate_memory(hi) may not
+    while lo < hi:
+        mid = (lo + hi + 1) // 2
+        if estimate_memory(mixture, mid) <= _CAL_BYTES:
+            lo = mid
+        else:
+            hi = mid - 1
+    return lo
+
+
 def calibrate(spec: StudySpec, threads: int = 1) -> dict[str, Calibration]:
     """Time sampling, a Hessian and an energy-and-gradient pass per mixture of ``spec`` at its
     calibration size, with ``threads`` kernel threads (see the module doc)."""
@@ -93,8 +111,7 @@ def calibrate(spec: StudySpec, threads: int = 1) -> dict[str, Calibration]:
             mix = m.mixture
             sizes = m.sizes if m.sizes is not None else spec.sizes  # the mixture's own sizes
             fits = [n for n in sizes if estimate_memory(mix, n) <= _CAL_BYTES]
-            n0 = max(fits) if fits else min(sizes)
-            n0 = min(n0, 400)
+            n0 = min(max(fits) if fits else _largest_fitting(mix, min(sizes)), 400)
             started = time.perf_counter()
             ham = Hamiltonian.sample(mix, n0, seed=0)
             sampling = time.perf_counter() - started

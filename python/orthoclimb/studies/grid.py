@@ -279,6 +279,15 @@ class StudySpec:
         names = [m.name for m in self.mixtures]
         if len(set(names)) != len(names):
             raise ValueError(f"mixture names must be distinct, got {names}")
+        for i, spec in enumerate(self.mixtures):
+            # a task's id hashes the gammas, not the name: two names for one mixture gave
+            # two tasks one id, and the second name's row was refused on every rerun
+            for other in self.mixtures[:i]:
+                if other.gammas == spec.gammas:
+                    raise ValueError(
+                        f"mixtures {other.name!r} and {spec.name!r} are the same mixture"
+                        f" ({spec.mixture.to_text()}); keep one (give it the sizes of both)"
+                    )
         labels = [m.label for m in self.methods]
         if len(set(labels)) != len(labels):
             raise ValueError(f"each method may appear once, got {labels}")

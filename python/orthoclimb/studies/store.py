@@ -148,6 +148,12 @@ def _unseal_row(path: Path, doc: Any) -> Any:
         return doc
     if doc["format"] != ROW_FORMAT:
         raise _redo(path, f"has format {doc['format']!r}, not {ROW_FORMAT!r}")
+    version = doc.get("format_version")
+    if isinstance(version, int) and not isinstance(version, bool) and version > ROW_FORMAT_VERSION:
+        # a row of a newer orthoclimb is likely valid: no advice to delete it
+        return open_envelope(
+            doc, ROW_FORMAT_VERSION, lambda why: ValueError(f"the row file {str(path)!r}: {why}")
+        )
     return open_envelope(doc, ROW_FORMAT_VERSION, lambda why: _redo(path, f"fails: {why}"))
 
 
