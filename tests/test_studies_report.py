@@ -449,3 +449,32 @@ def test_the_quick_demo_has_its_own_default_folder(monkeypatch, flags, folder):
     monkeypatch.setattr(demo_module, "execute", fake_execute)
     assert main(["demo", *flags]) == 130
     assert seen and seen[0].endswith(folder) and seen[0].startswith("orthoclimb-demo")
+
+
+def test_a_size_with_one_seed_is_left_out_of_the_fit_not_the_whole_fit(tmp_path):
+    # an interrupted sweep left n = 50 with one seed: the report gave "no extrapolation" for
+    # each method although n = 20, 30, 40 had six seeds each, dropped the head-to-head, and
+    # report.md printed nan for that size's s.e. (a review)
+    noise = np.random.default_rng(1).standard_normal((6, 2))
+    folder = tmp_path / "part"
+    _synthetic_study(
+        folder,
+        "20,30,40,50",
+        lambda n, s, m: 1.6 - n ** (-2 / 3) + 0.01 * noise[s, int(m == "hessian")],
+        methods="hessian,gradient",
+        seeds="0-5",
+    )
+    for row in (folder / "rows").glob("*.json"):
+        if json.loads(row.read_text())["payload"]["n"] == 50:
+            if json.loads(row.read_text())["payload"]["seed"] != 0:
+                row.unlink()
+    rep = write_report(folder, n_boot=200, plots=False)
+    for fit in rep.fits:
+        assert fit["value"] is not None and fit["sizes"] == [20, 30, 40]
+        assert fit["left_out"] == [[50, 1]]
+    text = "\n".join(rep.findings)
+    assert text.count("left out: n = 50 (1 seed), a fit needs 2 seeds per size") == 2
+    # the comparison moves to the largest size with two paired seeds, and names the one skipped
+    assert "n = 40:" in text and "(n = 50 has 1 paired seed)." in text
+    md = (folder / "report.md").read_text()
+    assert "| 50 |" in md and "nan" not in md

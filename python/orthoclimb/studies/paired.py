@@ -76,16 +76,28 @@ def paired_comparison(d: Any, tie: float = 0.0) -> dict[str, float]:
 
 
 def head_to_head(mix: str, a: str, b: str, seeds: dict, th: dict[str, Any]) -> str | None:
-    """Methods a and b on the same instances of ``mix`` at their largest common size (paired
-    over seeds; both start from each seed's random direction), or None without two seeds."""
+    """Methods a and b on the same instances of ``mix`` at their largest common size with two
+    or more paired seeds (paired over seeds; both start from each seed's random direction), or
+    None without one. A larger size with fewer paired seeds (an interrupted sweep) is named,
+    not allowed to hide the comparison."""
     common = sorted(n for (m1, me, n) in seeds if m1 == mix and me == a and (mix, b, n) in seeds)
-    if not common:
+    skipped = []
+    for n in reversed(common):
+        pa_, pb_ = seeds[(mix, a, n)], seeds[(mix, b, n)]
+        both = sorted(set(pa_) & set(pb_))
+        if len(both) >= 2:
+            break
+        skipped.append(f"n = {n} has {len(both)} paired seed{'s' if len(both) != 1 else ''}")
+    else:
         return None
-    n = common[-1]
-    pa_, pb_ = seeds[(mix, a, n)], seeds[(mix, b, n)]
-    both = sorted(set(pa_) & set(pb_))
-    if len(both) < 2:
-        return None
+    line = _compare_line(mix, a, b, n, pa_, pb_, both, th)
+    return line if not skipped else f"{line[:-1]} ({'; '.join(skipped)})."
+
+
+def _compare_line(
+    mix: str, a: str, b: str, n: int, pa_: dict, pb_: dict, both: list, th: dict[str, Any]
+) -> str:
+    """The comparison sentence of :func:`head_to_head` at size ``n``."""
     scale = th["gs"] if math.isfinite(th["gs"]) else th["alg"]  # GS is NaN if unsolved
     tie = TIE_RELATIVE * abs(scale)
     c = paired_comparison([pa_[s] - pb_[s] for s in both], tie)

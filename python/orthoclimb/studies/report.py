@@ -191,11 +191,17 @@ def build_report(
                 "gs": th["gs"],
                 "gs_equals_alg": th["gs_equals_alg"],
             }
+            # a size with one seed (an interrupted sweep leaves some) has no spread to weigh
+            # it by: it is left out of the fit, and said so, instead of sinking the whole fit
+            left_out = [[n, len(data[(m.name, meth.name, n)])] for n in sizes]
+            left_out = [pair for pair in left_out if pair[1] < 2]
+            sizes = [n for n in sizes if len(data[(m.name, meth.name, n)]) >= 2]
+            entry["left_out"] = left_out
             samples = [data[(m.name, meth.name, n)] for n in sizes]
             try:
                 ex: Extrapolation = extrapolate(sizes, samples, k, level, n_boot, seed=len(fits))
             except ValueError as exc:
-                entry.update(value=None, note=str(exc))
+                entry.update(value=None, note=str(exc) + _left_out_text(left_out))
                 fits.append(entry)
                 continue
             entry.update(ex.to_dict())
@@ -210,6 +216,14 @@ def build_report(
     rep = Report(spec, groups, fits, theory, [], missing, cost=cost_table(rows, degrees))
     rep.findings = _findings(rep, _by_seed(rows))
     return rep
+
+
+def _left_out_text(left_out: list[list[int]]) -> str:
+    """'; n = 50 left out (1 seed; a fit needs 2 per size)', or '' when none was."""
+    if not left_out:
+        return ""
+    sizes = ", ".join(f"n = {n} ({c} seed{'s' if c != 1 else ''})" for n, c in left_out)
+    return f"; left out: {sizes}, a fit needs 2 seeds per size"
 
 
 def _theory_finding(name: str, th: dict[str, Any]) -> str:
@@ -249,7 +263,8 @@ def _findings(rep: Report, seeds: dict) -> list[str]:
         text = (
             f"{f['mixture']}, {f['method']}: e_inf = {f['value']:.4f} "
             f"[{lvl}%: {f['low']:.4f}, {f['high']:.4f}{over}] from n = "
-            f"{', '.join(str(n) for n in f['sizes'])}; " + against_theory(f)
+            f"{', '.join(str(n) for n in f['sizes'])}"
+            f"{_left_out_text(f.get('left_out', []))}; " + against_theory(f)
         )
         text += law_test_text(f)
         if f["dof"] == 0:
@@ -413,7 +428,10 @@ def _markdown(rep: Report) -> str:
     ]
     for g in rep.groups:
         lines.append(
-            f"| {g['mixture']} | {g['method']} | {g['n']} | {g['mean']:.4f} | {g['se']:.4f} "
+            f"| {g['mixture']} | {g['method']} | {g['n']} | {g['mean']:.4f} | "
+            f"{g['se']:.4f} | {g['count']} |"
+            if math.isfinite(g["se"])
+            else f"| {g['mixture']} | {g['method']} | {g['n']} | {g['mean']:.4f} | -- "
             f"| {g['count']} |"
         )
     if rep.files:
