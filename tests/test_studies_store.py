@@ -78,3 +78,56 @@ def test_a_row_of_a_newer_format_is_not_to_be_deleted(tmp_path):
     with pytest.raises(ValueError, match="newer than this orthoclimb") as info:
         store.rows()
     assert "delete" not in str(info.value)
+
+
+def _study(order=("a", "b"), own_b=(8,), seeds=(0, 1), methods=("gradient",), exponent=None):
+    mixtures = {
+        "a": MixtureSpec.make(Mixture({3: 1.0}), "a"),
+        "b": MixtureSpec.make(Mixture({2: 1.0}), "b", sizes=",".join(map(str, own_b))),
+    }
+    extra = {} if exponent is None else {"exponent": exponent}
+    return StudySpec(
+        tuple(mixtures[k] for k in order),
+        (8,),
+        tuple(seeds),
+        tuple(MethodSpec.make(m, None) for m in methods),
+        **extra,
+    )
+
+
+def test_growing_a_mixtures_own_sizes_extends_the_study(tmp_path):
+    # refused before, with a message that told the user to add sizes (a review)
+    import json
+
+    folder = tmp_path / "s"
+    Store.open(folder, _study(own_b=(8,)))
+    store = Store.open(folder, _study(own_b=(8, 12)))
+    assert store.grown_from is not None
+    meta = json.loads((folder / "study.json").read_text())
+    assert meta["extended"][0]["from"]["mixture_sizes"] == {"b": [8]}
+    # and the smaller grid again: the folder's study contains it
+    with pytest.raises(StudyMismatchError, match="contains this one \\(it has more sizes\\)"):
+        Store.open(folder, _study(own_b=(8,)))
+
+
+def test_reordered_mixtures_methods_and_seeds_are_the_same_study(tmp_path):
+    # the same tasks in another order were refused ("differs in: methods") or, for seeds,
+    # recorded as an extension that added nothing (a review)
+    import json
+
+    folder = tmp_path / "s"
+    Store.open(folder, _study(methods=("hessian", "gradient"), seeds=(0, 1)))
+    for spec in (
+        _study(methods=("gradient", "hessian"), seeds=(0, 1)),
+        _study(order=("b", "a"), methods=("hessian", "gradient"), seeds=(0, 1)),
+        _study(methods=("hessian", "gradient"), seeds=(1, 0)),
+    ):
+        assert Store.open(folder, spec).grown_from is None
+    assert "extended" not in json.loads((folder / "study.json").read_text())
+
+
+def test_another_exponent_points_to_the_report(tmp_path):
+    folder = tmp_path / "s"
+    Store.open(folder, _study())
+    with pytest.raises(StudyMismatchError, match="differs in: exponent.*report .* --exponent K"):
+        Store.open(folder, _study(exponent=1.0))

@@ -17,8 +17,9 @@ row checks its checksum and that it describes the task its name says: the task i
 be the file name (the id hashes the whole task: mixture, gammas, method, options, n, seed and
 dtype), and its mixture, method, n and seed fields must be that task's. Rows written before
 rows were sealed (plain objects) are read without a checksum. Rerunning the same configuration
-skips the tasks whose row exists. A configuration that only adds seeds
-and/or sizes extends the study: study.json gets the new configuration (and an "extended" list
+skips the tasks whose row exists; the same grid in another order (mixtures, methods, seeds,
+sizes) is the same study. A configuration that only adds seeds and/or sizes (study-wide or a
+mixture's own) extends the study: study.json gets the new configuration (and an "extended" list
 of what it grew from) and only the new tasks run. Any other change in the same folder is refused
 (:class:`StudyMismatchError`) rather than mixing two studies. A sweep whose cluster never started
 removes the study it created, or takes back the extension it recorded (:meth:`Store.undo_open`).
@@ -74,26 +75,64 @@ def _differences(old: dict, new: dict) -> list[str]:
 _GROWABLE = ("seeds", "sizes")
 
 
-def _grows(old: dict, new: dict, diff: list[str]) -> bool:
-    """Whether ``new`` only adds seeds and/or sizes to ``old``: every completed row stays a task
-    of the new study (task ids depend on mixture, method, options, n, seed and dtype only)."""
-    if not set(diff) <= set(_GROWABLE):
-        return False
-    try:
-        return all(set(old[k]) <= set(new[k]) for k in _GROWABLE)
-    except (KeyError, TypeError):
-        return False
+def _frame(config: dict) -> dict:
+    """What an extension must keep: the mixtures (names and gammas, without their own sizes)
+    and the methods, each in any order, the exponent and the dtype. Orders do not matter: a
+    task's id depends on its mixture, method, options, n, seed and dtype only."""
+    mixtures = [{k: v for k, v in m.items() if k != "sizes"} for m in config["mixtures"]]
+    return {
+        "mixtures": sorted(mixtures, key=_canonical),
+        "methods": sorted(config["methods"], key=_canonical),
+        "exponent": config.get("exponent"),
+        "dtype": config.get("dtype"),
+    }
+
+
+def _task_keys(config: dict) -> set[tuple[str, str, str]]:
+    """(task id, mixture name, method name) of every task: a row must match all three."""
+    spec = StudySpec.from_dict(config)
+    return {(t.task_id, t.mixture.name, t.method.name) for t in spec.tasks()}
+
+
+def _more(big: dict, small: dict) -> str:
+    """What ``big`` has more of than ``small`` (its tasks contain the other's): 'seeds',
+    'sizes' or both."""
+    spec_big, spec_small = StudySpec.from_dict(big), StudySpec.from_dict(small)
+    what = ["seeds"] if set(spec_big.seeds) > set(spec_small.seeds) else []
+    sizes_big = {m.name: set(m.sizes or spec_big.sizes) for m in spec_big.mixtures}
+    if any(sizes_big[m.name] > set(m.sizes or spec_small.sizes) for m in spec_small.mixtures):
+        what.append("sizes")
+    return " and ".join(what) or "tasks"
+
+
+def _relation(old: dict, new: dict) -> str:
+    """'same', 'grows' (new adds seeds or sizes, study-wide or a mixture's own), 'contained'
+    (old has more) or 'other'. Reordered mixtures, methods, seeds or sizes are the same
+    study; before, they were refused ('differs in: methods') or, for seeds, recorded as an
+    extension that added nothing (a review). Growing a mixture's own sizes was refused."""
+    if _canonical(_frame(old)) != _canonical(_frame(new)):
+        return "other"
+    old_keys, new_keys = _task_keys(old), _task_keys(new)
+    if old_keys == new_keys:
+        return "same"
+    if old_keys < new_keys:
+        return "grows"
+    return "contained" if new_keys < old_keys else "other"
 
 
 def _record_growth(meta: Path, data: dict, config: dict) -> None:
     """Rewrite study.json (atomically; ``data`` is what it held) with the grown configuration,
     keeping its creation time and listing each extension with the seeds and sizes it started
-    from."""
+    from (and the mixtures' own sizes, where any has them)."""
     old = data["config"]
     history = data.get("extended", [])
     history = list(history) if isinstance(history, list) else []  # `data` stays as it was
     stamp = datetime.now(timezone.utc).isoformat(timespec="seconds")
-    history.append({"at": stamp, "from": {k: old.get(k) for k in _GROWABLE}})
+    start = {k: old.get(k) for k in _GROWABLE}
+    own = {m["name"]: m["sizes"] for m in old["mixtures"] if "sizes" in m}
+    if own:
+        start["mixture_sizes"] = own
+    history.append({"at": stamp, "from": start})
     write_json_atomic(meta, {**data, "config": config, "extended": history})
 
 
@@ -248,21 +287,33 @@ class Store:
                     f"{str(meta)!r} is not a readable study configuration; use another --out folder"
                 ) from None
             diff = _differences(old, json.loads(_canonical(config)))
-            if diff and _grows(old, config, diff):
+            try:
+                relation = _relation(old, config) if diff else "same"
+            except (KeyError, TypeError, ValueError, AttributeError):
+                raise StudyMismatchError(
+                    f"{str(meta)!r} is not a readable study configuration; use another --out folder"
+                ) from None
+            if relation == "grows":
                 _record_growth(meta, stored, config)
                 grown_from = stored
-            elif diff and _grows(config, old, diff):  # the stored study contains this one
+            elif relation == "contained":  # the stored study contains this one
                 raise StudyMismatchError(
                     f"the folder {str(folder)!r} holds a larger study that contains this one"
-                    f" (it has more {' and '.join(diff)}): rerun with its full grid to resume it"
+                    f" (it has more {_more(old, config)}): rerun with its full grid to resume it"
                     f" (study.json lists it), or `orthoclimb report {folder}` for its results"
                 )
-            elif diff:
+            elif relation == "other":
+                hint = (
+                    "; the exponent is a setting of the report: `orthoclimb report"
+                    f" {folder} --exponent K` reads this study under another law"
+                    if "exponent" in diff
+                    else ""
+                )
                 raise StudyMismatchError(
                     f"the folder {str(folder)!r} holds a study with a different configuration "
                     f"(differs in: {', '.join(diff)}); refusing to mix two studies. Use another "
                     "--out folder, rerun with the same configuration to resume, or add seeds or "
-                    "sizes (keeping the old ones) to extend it"
+                    f"sizes (keeping the old ones) to extend it{hint}"
                 )
         else:
             if folder.exists() and any(p.name != ".DS_Store" for p in folder.iterdir()):
