@@ -718,3 +718,41 @@ def test_a_listener_that_is_no_scheduler_gets_a_message_naming_the_address(monke
         address = f"tcp://127.0.0.1:{listener.getsockname()[1]}"
         with pytest.raises(ValueError, match=rf"cannot connect to a Dask scheduler at {address}"):
             engine._connect(address, None, 2.0)
+
+
+def test_a_scheduler_without_workers_is_announced_and_the_tasks_wait_for_one(tmp_path):
+    # outside a terminal (no bar) a sweep against a scheduler with no workers waited without
+    # a word until killed (a review); it now says so, and runs once a worker joins
+    import threading
+
+    from distributed import LocalCluster
+
+    cluster = LocalCluster(
+        n_workers=0, processes=False, protocol="tcp://", host="127.0.0.1", dashboard_address=":0"
+    )
+    try:
+        spec = spec_from_flags(["3:1"], None, "8", "0-1", "gradient")
+        logs: list[str] = []
+        out = {}
+
+        def sweep() -> None:
+            out["outcome"] = run_study(
+                spec,
+                tmp_path / "s",
+                scheduler=cluster.scheduler_address,
+                progress=False,
+                log=logs.append,
+            )
+
+        thread = threading.Thread(target=sweep)
+        thread.start()
+        deadline = time.monotonic() + 60
+        while not any("has no workers yet" in line for line in logs):
+            assert time.monotonic() < deadline and thread.is_alive(), logs
+            time.sleep(0.05)
+        cluster.scale(1)
+        thread.join(120)
+        assert not thread.is_alive() and out["outcome"].done == 2
+        assert f"`dask worker {cluster.scheduler_address}`" in logs[-1]
+    finally:
+        cluster.close()

@@ -457,6 +457,14 @@ def _sweep(
             slots = sum(client.nthreads().values())
         except Exception:  # noqa: BLE001 - the count is cosmetic
             slots = 10**9
+        if cluster is None and slots == 0:
+            # an external scheduler without workers holds the tasks until one joins: say so,
+            # or a sweep outside a terminal (no bar) waits without a word (a review)
+            log(
+                f"the Dask scheduler at {scheduler} has no workers yet: the tasks wait until"
+                " one joins (start one with `dask worker " + str(scheduler) + "`; Ctrl-C stops"
+                " the sweep and keeps the rows written)"
+            )
         first_workers = _worker_addresses(client) if cluster is not None else set()
 
         def show() -> None:
