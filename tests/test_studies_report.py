@@ -478,3 +478,22 @@ def test_a_size_with_one_seed_is_left_out_of_the_fit_not_the_whole_fit(tmp_path)
     assert "n = 40:" in text and "(n = 50 has 1 paired seed)." in text
     md = (folder / "report.md").read_text()
     assert "| 50 |" in md and "nan" not in md
+
+
+def test_report_out_writes_elsewhere_and_a_failed_write_points_to_it(tmp_path, capsys):
+    # the report wrote only into the study folder: a study on a read-only medium gave an
+    # error and no numbers at all (a review)
+    noise = np.random.default_rng(2).standard_normal(8)
+    folder = tmp_path / "s"
+    _synthetic_study(folder, "20,40", lambda n, s: 1.6 - n ** (-2 / 3) + 0.01 * noise[s])
+    before = sorted(p.name for p in folder.iterdir())
+    out = tmp_path / "elsewhere"
+    assert main(["report", str(folder), "--out", str(out), "--bootstrap", "200"]) == 0
+    assert sorted(p.name for p in folder.iterdir()) == before
+    for name in ("report.md", "report.json", "energy_vs_n.png", "distribution.png"):
+        assert (out / name).stat().st_size > 0
+    assert f"report: {out / 'report.md'}" in capsys.readouterr().out
+    # a study folder that cannot take the report (here a folder stands at report.md)
+    (folder / "report.md").mkdir()
+    assert main(["report", str(folder), "--no-plots", "--bootstrap", "200"]) == 2
+    assert "give --out FOLDER" in capsys.readouterr().err

@@ -37,6 +37,11 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
         default=2000,
         help="bootstrap replicates, 100 to 1000000 (default 2000)",
     )
+    parser.add_argument(
+        "--out",
+        default=None,
+        help="folder for report.md, report.json and the plots (default: the study folder)",
+    )
     parser.add_argument("--no-plots", action="store_true", help="skip the PNG plots")
     parser.add_argument("--json", action="store_true", help="print the report as JSON")
 
@@ -50,8 +55,15 @@ def run(args: argparse.Namespace) -> int:
 
     if not 100 <= args.bootstrap <= MAX_BOOT:
         raise ValueError(f"--bootstrap must be in [100, {MAX_BOOT}], got {args.bootstrap}")
+    if args.out is not None and not args.out.strip():
+        raise ValueError("--out must name a folder, got an empty string")
     rep = write_report(
-        args.study, args.exponent, args.level, args.bootstrap, plots=not args.no_plots
+        args.study,
+        args.exponent,
+        args.level,
+        args.bootstrap,
+        plots=not args.no_plots,
+        out=args.out,
     )
     if args.json:
         print(json_text(rep.to_dict()))

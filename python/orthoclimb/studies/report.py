@@ -26,7 +26,7 @@ from typing import Any
 
 import numpy as np
 
-from ..fileio import write_json_atomic, write_text_atomic
+from ..fileio import ensure_folder, write_json_atomic, write_text_atomic
 from .cost import cost_markdown, cost_table
 from .engine import counted
 from .extrapolate import Extrapolation, check_interval, extrapolate
@@ -457,15 +457,28 @@ def write_report(
     level: float = 0.9,
     n_boot: int = 2000,
     plots: bool = True,
+    out: str | os.PathLike | None = None,
 ) -> Report:
-    """Compute the report and write report.md, report.json and the plots into ``folder``."""
+    """Compute the report and write report.md, report.json and the plots into ``out``
+    (default: the study ``folder``; a study on a read-only medium needs another)."""
+    from ..errors import OutputPathError
+
     folder = Path(folder)
     rep = build_report(folder, exponent, level, n_boot)
     data = _groups(Store(folder, rep.spec).rows())
-    if plots:
-        rep.files.update(write_plots(rep, data, folder))
-    rep.files["markdown"] = str(folder / "report.md")
-    rep.files["json"] = str(folder / "report.json")
-    write_text_atomic(folder / "report.md", _markdown(rep))
-    write_json_atomic(folder / "report.json", rep.to_dict())
+    target = folder if out is None else Path(out)
+    try:
+        ensure_folder(target, "the report's folder")
+        if plots:
+            rep.files.update(write_plots(rep, data, target))
+        rep.files["markdown"] = str(target / "report.md")
+        rep.files["json"] = str(target / "report.json")
+        write_text_atomic(target / "report.md", _markdown(rep))
+        write_json_atomic(target / "report.json", rep.to_dict())
+    except OutputPathError as exc:
+        if out is not None:
+            raise
+        raise OutputPathError(
+            f"{exc}; give --out FOLDER (out= in Python) to write the report elsewhere"
+        ) from None
     return rep
