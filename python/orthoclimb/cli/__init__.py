@@ -2,9 +2,9 @@
 
 Each subcommand lives in its own module with two functions: ``add_arguments(parser)`` and
 ``run(args) -> int``. Bad input (any ValueError/TypeError raised while running) is reported as
-``orthoclimb: error: ...`` with exit code 2, like argparse's own usage errors; a file-system
-failure (OSError: an output folder that cannot be created, a full disk) the same way with exit
-code 1.
+``orthoclimb: error: ...`` with exit code 2, like argparse's own usage errors (an output
+folder that cannot be made too: OutputPathError is a ValueError); any other file-system
+failure (OSError: a full disk, say) the same way with exit code 1.
 """
 
 from __future__ import annotations
