@@ -181,7 +181,9 @@ def extension_info() -> dict:
 
 
 def _cpu_ticks() -> tuple[float, float] | None:
-    """(busy, total) CPU seconds of the whole machine since boot, from /proc/stat."""
+    """(busy, total) CPU seconds of the whole machine since boot, from /proc/stat. Busy leaves
+    out idle, iowait and steal (time the hypervisor gave to other virtual machines: it is not
+    work of this machine's processes)."""
     try:
         first = Path("/proc/stat").read_text().splitlines()[0].split()
     except (OSError, IndexError):
@@ -189,7 +191,7 @@ def _cpu_ticks() -> tuple[float, float] | None:
     values = [int(v) for v in first[1:9]]  # user nice system idle iowait irq softirq steal
     tick = os.sysconf("SC_CLK_TCK")
     total = sum(values) / tick
-    return total - (values[3] + values[4]) / tick, total
+    return total - (values[3] + values[4] + values[7]) / tick, total
 
 
 class OtherLoad:
@@ -240,6 +242,14 @@ def load_average() -> list[float] | None:
         return None
 
 
+def _torch_threads() -> int | None:
+    try:
+        import torch
+    except ImportError:
+        return None
+    return int(torch.get_num_threads())
+
+
 def environment(threads: int, blas_threads_by: str, torch_version: str | None) -> dict:
     """Everything recorded under "meta" in the JSON, besides the run options."""
     return {
@@ -252,6 +262,7 @@ def environment(threads: int, blas_threads_by: str, torch_version: str | None) -
         "threads": threads,
         "orthoclimb_threads": oc.get_num_threads(),
         "blas_threads_set_by": blas_threads_by or None,
+        "torch_threads": _torch_threads() if torch_version else None,
         "kernel_path": oc.kernel_path(),
         "versions": {
             "orthoclimb": oc.__version__,

@@ -3,8 +3,9 @@
     python bench/ascent.py                    # n = 800, p = 3, K = 200 (about 30 s on 2 cores)
     python bench/ascent.py --n 400 --steps 100 --json bench/results/ascent.json
 
-Times one Hessian pass (median of 5, taken before and after the run, interleaved with nothing
-else), runs ``hessian_ascent`` with and without polish, and prints the ratios
+Times one Hessian pass (after one untimed call, the median of 5 calls before the runs and of 5
+after them; the pass time is the mean of those two medians, nothing else interleaved), runs
+``hessian_ascent`` with and without polish, and prints the ratios
 total / (K x pass). The machine is shared: compare ratios, not absolute seconds.
 """
 
@@ -23,6 +24,7 @@ from orthoclimb.fileio import write_json_atomic
 def _pass_time(ham: oc.Hamiltonian, repeats: int = 5) -> float:
     x = np.random.default_rng(0).standard_normal(ham.n)
     x /= np.linalg.norm(x)
+    ham.hessian(x)  # untimed: the first call after a pause runs slow (bench/README.md)
     times = []
     for _ in range(repeats):
         t = time.perf_counter()
