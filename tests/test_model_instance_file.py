@@ -503,3 +503,36 @@ def test_loading_stored_coefficients_holds_one_copy_of_them(tmp_path, monkeypatc
         tracemalloc.stop()
     np.testing.assert_array_equal(loaded.coefficients(3), a.astype(np.float32))
     assert peak < 1.5 * a.nbytes, peak / a.nbytes
+
+
+@pytest.mark.parametrize(
+    "change",
+    [
+        lambda fp: fp["coefficients"]["3"].update(head=[10**400]),
+        lambda fp: fp.update(energy=10**400),
+        lambda fp: fp["coefficients"]["3"].update(head="123"),
+    ],
+    ids=["huge head", "huge energy", "head text"],
+)
+def test_a_fingerprint_with_huge_numbers_or_text_is_malformed(tmp_path, change):
+    # OverflowError escaped; a text head read as the numbers 1, 2, 3 (a review)
+    stem = tmp_path / "inst"
+    oc.Hamiltonian.sample(oc.Mixture({3: 1.0}), 6, seed=1).save(stem)
+    _edit(tmp_path / "inst.json", lambda d: change(d["payload"]["fingerprint"]))
+    with pytest.raises(InstanceFileError, match="malformed recipe"):
+        oc.load_instance(stem)
+
+
+def test_result_and_study_files_nested_too_deeply_are_clear_errors(tmp_path):
+    from orthoclimb.errors import ResultFileError
+
+    deep = "[" * 100_000 + "]" * 100_000
+    (tmp_path / "r.json").write_text(deep)
+    with pytest.raises(ResultFileError, match="nested too deeply"):
+        oc.load_result(tmp_path / "r.json")
+    from orthoclimb.studies.store import read_config
+
+    (tmp_path / "s").mkdir()
+    (tmp_path / "s" / "study.json").write_text(deep)
+    with pytest.raises(ValueError, match="cannot read"):
+        read_config(tmp_path / "s")

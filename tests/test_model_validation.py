@@ -333,3 +333,32 @@ def test_float32_storage_from_given_coefficients_makes_no_copy_of_their_size():
     finally:
         tracemalloc.stop()
     assert peak < 0.25 * a.nbytes, peak  # the finiteness check's mask: one byte per value
+
+
+def test_integers_beyond_float64_at_the_other_entry_points():
+    # the same OverflowError as for gammas, at q, tol, B and rho of the theory and stability
+    # functions; and messages that print no huge integer (str() refuses over 4300 digits)
+    from orthoclimb.errors import MixtureError
+    from orthoclimb.theory import ground_state, hessian_edge, parisi_functional, path_energy
+
+    m = oc.Mixture({3: 1.0})
+    for call in (
+        lambda: path_energy(m, 10**400),
+        lambda: hessian_edge(m, 10**400),
+        lambda: ground_state(m, tol=10**400),
+        lambda: parisi_functional(m, 10**400, [0.0, 1.0], [0.0]),
+        lambda: oc.stability("gradient", m, 10, 0, [10**400]),
+        lambda: m.xi(10**5000),
+    ):
+        with pytest.raises(ValueError, match="beyond float64's range|larger integer"):
+            call()
+    with pytest.raises(MixtureError, match="an integer of about 5000 digits"):
+        oc.Mixture({3: 10**4999})
+
+
+def test_hessian_moves_checks_its_steps():
+    # hessian_moves(m, 0) returned -1 and (m, 2.5) 1.5 (a review)
+    m = oc.Mixture({3: 1.0})
+    for bad, kind in ((0, ValueError), (2.5, TypeError), (True, TypeError), (None, TypeError)):
+        with pytest.raises(kind, match="steps must be"):
+            oc.algorithms.hessian_moves(m, bad)

@@ -389,3 +389,16 @@ def test_one_mixture_under_two_names_is_refused(tmp_path):
     )
     with pytest.raises(ValueError, match="mixtures 'a' and 'b' are the same mixture"):
         spec_from_toml(path)
+
+
+def test_one_mixture_under_two_names_at_distinct_sizes_is_a_valid_study(tmp_path):
+    # the check above refused it too, and so made such a complete study unreadable by report
+    # (a review): the task ids differ when the sizes do
+    path = tmp_path / "split.toml"
+    path.write_text(
+        'sizes = [20]\nseeds = "0-2"\n[[method]]\nname = "gradient"\n'
+        '[[mixture]]\nname = "small"\ngammas = {3 = 1.0}\nsizes = [10, 12]\n'
+        '[[mixture]]\nname = "large"\ngammas = {3 = 1.0}\nsizes = [16, 20]\n'
+    )
+    tasks = spec_from_toml(path).tasks()
+    assert len({t.task_id for t in tasks}) == len(tasks) == 12

@@ -649,3 +649,11 @@ def test_a_fitted_alpha_is_checked_like_the_grid(gammas, tol):
     assert gs.converged
     gain, place = _one_more_breakpoint_gain(mixture, gs, (np.arange(200) + 0.5) / 200)
     assert gain <= tol, (gain, place)
+
+
+def test_converged_is_a_python_bool_when_the_fit_check_gained():
+    # the fit check's gain was a NumPy float, so converged became a NumPy bool and theory
+    # --json failed ("Object of type bool is not JSON serializable"; a review found the case)
+    gs = ground_state(Mixture({2: 1.702, 7: 1.297, 8: 1.496}), tol=1e-9)
+    assert type(gs.converged) is bool
+    json.dumps(gs.to_dict())

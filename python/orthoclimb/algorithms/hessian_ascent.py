@@ -130,7 +130,14 @@ def hessian_moves(mixture: Mixture | None, steps: int) -> int:
     """The number of Hessian steps (each a Hessian pass and an eigen-solve) in a run of
     ``steps`` path points: steps - 1, or 0 when the first stage already ends on the unit sphere
     (1 - q_hat <= 1e-12: a pure field, or a field strong enough; see the module doc). Without a
-    mixture (given coefficients) there is no first stage, so steps - 1."""
+    mixture (given coefficients) there is no first stage, so steps - 1. ``steps`` is an
+    integer >= 1 (for hessian_ascent's default, pass ``auto_steps(n)``)."""
+    if isinstance(steps, (bool, np.bool_)) or not isinstance(steps, (int, np.integer)):
+        raise TypeError(
+            f"steps must be an integer >= 1 (auto_steps(n) gives the default), got {steps!r}"
+        )
+    if steps < 1:
+        raise ValueError(f"steps must be >= 1, got {steps}")
     if mixture is not None and _ends_on_sphere(algorithmic_threshold(mixture)):
         return 0
     return steps - 1

@@ -203,8 +203,10 @@ def load_result(path: str | os.PathLike) -> Result:
         raise _fail(json_path, f"unreadable: {exc}") from None
     try:
         doc = json.loads(text)
-    except json.JSONDecodeError as exc:
+    except ValueError as exc:  # JSONDecodeError, or an integer too long to read
         raise _fail(json_path, f"not valid JSON (truncated or corrupted?): {exc}") from None
+    except RecursionError:  # arrays nested beyond the parser's depth: not a file of ours
+        raise _fail(json_path, "not valid JSON for this format: nested too deeply") from None
     if not isinstance(doc, dict) or doc.get("format") != FORMAT:
         raise _fail(json_path, f"not an orthoclimb result (format is not {FORMAT!r})")
     payload = open_envelope(

@@ -122,6 +122,8 @@ def stability(
         rho_list = [float(r) for r in rhos]
     except (TypeError, ValueError):
         raise TypeError(f"rhos must be a sequence of numbers, got {rhos!r}") from None
+    except OverflowError:  # an integer beyond float64
+        raise ValueError("correlation rho must be in [-1, 1], got a larger integer") from None
     if not rho_list:
         raise ValueError("rhos is empty")
     for r in rho_list:

@@ -3,7 +3,8 @@
 Per (mixture, method, n): mean energy per spin, standard error and count; per (mixture,
 method): e_inf of the fit e_inf + a n^(-k) (weighted least squares, bootstrap interval) beside
 ALG and GS with the difference in standard errors. Writes report.md, report.json,
-energy_vs_n.png and distribution.png into the folder and prints the table.
+energy_vs_n.png and distribution.png into the study folder (or ``--out FOLDER``) and prints the
+table.
 """
 
 from __future__ import annotations

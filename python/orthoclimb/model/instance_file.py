@@ -279,8 +279,10 @@ def _load_recipe(json_path: Path, payload: dict[str, Any], check_memory: bool) -
             raise ValueError("the fingerprint's degrees are not the mixture's")
         for ends in saved["coefficients"].values():  # lists of numbers, or malformed
             for end in ("head", "tail"):
+                if not isinstance(ends[end], list):  # a text "123" iterates as numbers
+                    raise TypeError(f"{end} is {type(ends[end]).__name__}, not a list")
                 [float(v) for v in ends[end]]
-    except (AttributeError, KeyError, TypeError, ValueError) as exc:
+    except (AttributeError, KeyError, TypeError, ValueError, OverflowError) as exc:
         raise _fail(json_path, f"malformed recipe ({type(exc).__name__}: {exc})") from None
     try:
         ham = Hamiltonian.sample(mixture, n, seed, dtype, corr, check_memory=check_memory)

@@ -36,6 +36,12 @@ def _check_degree(p: Any) -> int:
     return p
 
 
+def _digits(value: int) -> int:
+    """About how many decimal digits ``value`` has, without str() (Python refuses to convert
+    integers of over 4300 digits to text)."""
+    return int(abs(value).bit_length() * math.log10(2)) + 1
+
+
 def _check_gamma(p: int, gamma: Any, what: str = "gamma") -> float:
     if isinstance(gamma, (bool, np.bool_, str, bytes, np.complexfloating)):
         # True would read as 1.0, "0.5" as 0.5 and a NumPy complex as its real part (float()
@@ -47,8 +53,8 @@ def _check_gamma(p: int, gamma: Any, what: str = "gamma") -> float:
         raise MixtureTypeError(f"{what} for p = {p} must be a real number, got {gamma!r}") from None
     except OverflowError:  # an integer beyond float64
         raise MixtureError(
-            f"{what} for p = {p} is beyond float64's range, got an integer of"
-            f" {len(str(abs(int(gamma))))} digits"
+            f"{what} for p = {p} is beyond float64's range, got an integer of about"
+            f" {_digits(int(gamma))} digits"
         ) from None
     if not math.isfinite(value) or value < 0:
         raise MixtureError(f"{what} for p = {p} must be finite and >= 0, got {gamma!r}")
@@ -231,8 +237,8 @@ class Mixture:
             raise ValueError(f"derivative must be a nonnegative integer, got {derivative}")
         try:
             q_arr = np.asarray(q, dtype=np.float64)
-        except OverflowError:  # an integer beyond float64
-            raise ValueError(f"q is beyond float64's range, got {q!r:.60}") from None
+        except OverflowError:  # an integer beyond float64 (not shown: it may be huge)
+            raise ValueError("q holds an integer beyond float64's range") from None
         out = np.zeros_like(q_arr)
         for p, g in self._gammas.items():
             if derivative > p:

@@ -280,13 +280,16 @@ class StudySpec:
         if len(set(names)) != len(names):
             raise ValueError(f"mixture names must be distinct, got {names}")
         for i, spec in enumerate(self.mixtures):
-            # a task's id hashes the gammas, not the name: two names for one mixture gave
-            # two tasks one id, and the second name's row was refused on every rerun
+            # a task's id hashes the gammas and n, not the name: two names for one mixture at
+            # a common size gave two tasks one id, and the second name's row was refused on
+            # every rerun. One mixture under two names at distinct own sizes is fine
             for other in self.mixtures[:i]:
-                if other.gammas == spec.gammas:
+                common = set(spec.sizes or self.sizes) & set(other.sizes or self.sizes)
+                if other.gammas == spec.gammas and common:
                     raise ValueError(
                         f"mixtures {other.name!r} and {spec.name!r} are the same mixture"
-                        f" ({spec.mixture.to_text()}); keep one (give it the sizes of both)"
+                        f" ({spec.mixture.to_text()}) at n = {min(common)}: their tasks would"
+                        " be the same; keep one name for it at each size"
                     )
         labels = [m.label for m in self.methods]
         if len(set(labels)) != len(labels):

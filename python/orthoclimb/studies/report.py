@@ -5,13 +5,15 @@ error s = sd/sqrt(count) (sd with ddof = 1) and the count. For each (mixture, me
 least two sizes: the extrapolation e_inf of the mean in n^(-k) (:mod:`.extrapolate`), repeated
 under other exponents and set beside ALG and the Parisi ground state GS of the mixture
 (:mod:`.laws`), with z = (e_inf - ALG)/se(e_inf) and (e_inf - GS)/se(e_inf), the "difference
-in standard errors". Every pair of methods is compared at their largest common size on the
-same instances (:mod:`.paired`). The findings are sentences computed from these numbers (what
-was measured, whatever it is). The cost of the runs (median wall seconds per task at each n
-and the exponent b of t ~ n^b, :mod:`.cost`) closes the report.
+in standard errors". Every pair of methods is compared on the same instances at their largest
+common size with two paired seeds or more (:mod:`.paired`). The findings are sentences
+computed from these numbers (what was measured, whatever it is). The cost of the runs
+(median wall seconds per task at each n and the exponent b of t ~ n^b, :mod:`.cost`) closes
+the report.
 
-Files written into the study folder (atomically): ``report.md``, ``report.json``,
-``energy_vs_n.png`` and ``distribution.png`` (:mod:`.report_plots`).
+Files written into the study folder, or the folder ``out`` (``report --out``), atomically:
+``report.md``, ``report.json``, ``energy_vs_n.png`` and ``distribution.png``
+(:mod:`.report_plots`).
 """
 
 from __future__ import annotations
@@ -464,11 +466,12 @@ def write_report(
     from ..errors import OutputPathError
 
     folder = Path(folder)
+    target = folder if out is None else Path(out)
+    if out is not None:  # a bad --out fails before the work, not after the bootstrap
+        ensure_folder(target, "the report's folder")
     rep = build_report(folder, exponent, level, n_boot)
     data = _groups(Store(folder, rep.spec).rows())
-    target = folder if out is None else Path(out)
     try:
-        ensure_folder(target, "the report's folder")
         if plots:
             rep.files.update(write_plots(rep, data, target))
         rep.files["markdown"] = str(target / "report.md")

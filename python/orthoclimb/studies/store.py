@@ -148,7 +148,7 @@ def read_config(folder: str | os.PathLike) -> StudySpec:
     try:
         data = json.loads(path.read_text(encoding="utf-8"))
         return StudySpec.from_dict(data["config"])
-    except (OSError, ValueError, KeyError, TypeError, AttributeError) as exc:
+    except (OSError, ValueError, KeyError, TypeError, AttributeError, RecursionError) as exc:
         # ValueError covers malformed JSON, non-UTF-8 bytes and invalid configuration values
         raise ValueError(f"cannot read {str(path)!r}: {exc}") from None
 
@@ -167,7 +167,7 @@ def _read_json(path: Path, what: str) -> Any:
     """The JSON content of ``path``; a ValueError naming the file when it is unreadable."""
     try:
         return json.loads(path.read_text(encoding="utf-8"))
-    except (OSError, ValueError) as exc:  # ValueError: bad JSON or bytes that are not UTF-8
+    except (OSError, ValueError, RecursionError) as exc:  # bad JSON, not UTF-8, too deep
         raise ValueError(
             f"cannot read the {what} {str(path)!r} (truncated or corrupted?): {exc}; delete it "
             "and rerun the sweep to redo that task"
@@ -282,7 +282,7 @@ class Store:
                 old = stored["config"]
                 if not isinstance(old, dict):
                     raise TypeError(f"config is {type(old).__name__}")
-            except (OSError, ValueError, KeyError, TypeError):
+            except (OSError, ValueError, KeyError, TypeError, RecursionError):
                 raise StudyMismatchError(
                     f"{str(meta)!r} is not a readable study configuration; use another --out folder"
                 ) from None

@@ -37,6 +37,8 @@ def check_overlap(q: Any, where: str, name: str = "q") -> np.ndarray:
         raise TypeError(
             f"{where}(): {name} must be a real number or an array of them, got {q!r}"
         ) from None
+    except OverflowError:  # an integer beyond float64 (not shown: it may be huge)
+        raise ValueError(f"{where}(): {name} holds an integer beyond float64's range") from None
     if not np.all(np.isfinite(arr)):
         bad = float(arr[~np.isfinite(arr)].flat[0])
         raise NonFiniteError(f"{where}(): {name} must be finite, got {name} = {bad!r}")
@@ -64,6 +66,8 @@ def check_positive(value: Any, where: str, name: str) -> float:
         out = float(value)
     except (TypeError, ValueError):
         raise TypeError(f"{where}(): {name} must be a positive number, got {value!r}") from None
+    except OverflowError:  # an integer beyond float64
+        raise ValueError(f"{where}(): {name} is an integer beyond float64's range") from None
     if math.isnan(out) or math.isinf(out):
         raise NonFiniteError(f"{where}(): {name} must be finite, got {name} = {value!r}")
     if out <= 0.0:

@@ -653,7 +653,7 @@ def _confirm_fit(
         new_grid = _Grid(grid.mixture, q, grid.weight)
         trial = _solve(new_grid, trial)
         new_value, _ = new_grid.value_and_gradient(trial)
-        gain = max(0.0, value - new_value)
+        gain = max(0.0, float(value - new_value))
         if new_value < value:
             grid, theta, value = new_grid, trial, new_value
         if gain <= tol:
@@ -871,7 +871,7 @@ def _ground_state(
     fitted = _few_jumps(solved_grid, solved_theta, value, tol / s)
     if fitted[0] is not solved_grid:  # the fit won: check it as the rounds checked the grid
         solved_grid, solved_theta, value, fit_gain = _confirm_fit(*fitted, tol / s)
-        converged = converged and s * fit_gain <= tol
+        converged = converged and bool(s * fit_gain <= tol)
     B = float(solved_theta[0]) / s
     d = solved_theta[1:]
     m = np.cumsum(d) / s
@@ -889,7 +889,7 @@ def _ground_state(
         n_steps=int(alpha.size),
         grid_size=solved_grid.size,
         rounds=len(history),
-        converged=converged,
+        converged=bool(converged),  # a NumPy bool failed json.dumps (theory --json)
         change=float(change),
         jump_gain=float(gain),
         tol=tol,
