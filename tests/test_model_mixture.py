@@ -117,11 +117,13 @@ def test_weights_beyond_float64_are_refused_with_the_package_error():
     from orthoclimb.errors import MixtureTypeError
 
     for make in (lambda: Mixture({2: 10**400}), lambda: Mixture.from_xi({2: 10**400})):
-        with pytest.raises(MixtureError, match="beyond float64's range, got an integer of 401"):
+        with pytest.raises(
+            MixtureError, match="beyond float64's range, got an integer of about 401 digits"
+        ):
             make()
     with pytest.raises(MixtureTypeError, match="must be a real number"):
         Mixture({2: np.complex128(1 + 2j)})
-    with pytest.raises(ValueError, match="q is beyond float64's range"):
+    with pytest.raises(ValueError, match="q holds an integer beyond float64's range"):
         Mixture({2: 1.0}).xi(10**400)
 
 
