@@ -18,7 +18,7 @@ def test_hessian_ascent_stability():
     assert st.overlaps[1] > 0.999
     assert st.overlaps[1] >= st.overlaps[2] > st.overlaps[3]
     assert abs(st.overlaps[4]) < 0.5
-    assert st.to_dict()["config"]["other_seed"] == 4
+    assert st.to_dict()["config"]["other_seed"] == 3 ^ 0x9E3779B97F4A7C15
 
 
 def test_stability_validation():
@@ -64,7 +64,8 @@ def test_overlaps_keep_their_sign():
         return float(np.arcsin(min(1.0, n * res.info["grad_norm"] / np.linalg.norm(h))))
 
     for rho, overlap, res in zip(rhos, st.overlaps, runs, strict=True):
-        h = oc.Hamiltonian.sample(mix, n, seed + 1, correlated_with=(seed, rho)).coefficients(1)
+        other = st.config["other_seed"]
+        h = oc.Hamiltonian.sample(mix, n, other, correlated_with=(seed, rho)).coefficients(1)
         cosine = float(h0 @ h) / float(np.linalg.norm(h0) * np.linalg.norm(h))
         tol = angle(base, h0) + angle(res, h) + 1e-12
         assert overlap == pytest.approx(cosine, abs=tol), rho
@@ -82,9 +83,9 @@ def test_the_start_seed_reaches_a_named_method_and_the_largest_seed_works():
     assert st.overlaps[0] == pytest.approx(1.0, abs=1e-12)
     other = oc.stability("gradient", mix, 30, seed=2, rhos=[1.0], start_seed=8)
     assert other.config["base_config"]["seed"] == 8
-    # the default other_seed wraps around 2^64 instead of naming a seed nobody gave
+    # the default other_seed stays a valid seed at the top of the range
     top = oc.stability("gradient", mix, 12, seed=2**64 - 1, rhos=[0.5])
-    assert top.config["other_seed"] == 0
+    assert top.config["other_seed"] == (2**64 - 1) ^ 0x9E3779B97F4A7C15
     with pytest.raises(ValueError, match="start_seed must be in"):
         oc.stability("gradient", mix, 12, seed=1, rhos=[0.5], start_seed=-1)
 
@@ -106,3 +107,29 @@ def test_a_start_seed_given_with_a_callable_is_refused():
 
     with pytest.raises(TypeError, match="start_seed is for the named methods"):
         oc.stability(run, oc.Mixture({3: 1.0}), 12, seed=1, rhos=[0.5], start_seed=3)
+
+
+def test_consecutive_seeds_do_not_share_instances():
+    # the default other_seed was seed + 1: the independent part of seed s was the base
+    # instance of seed s + 1, so the energy at rho = 0 for seed s equalled the base energy of
+    # seed s + 1 and averages over consecutive seeds were not over independent samples
+    mix = oc.Mixture({3: 1.0})
+    runs = [oc.stability("gradient", mix, 30, s, [0.0]) for s in range(3)]
+    bases = {r.energy for r in runs}
+    assert not any(r.energies[0] in bases for r in runs)
+    assert {r.config["other_seed"] for r in runs}.isdisjoint(range(1000))
+
+
+def test_stability_refuses_text_and_flags_as_rhos_and_a_callable_without_a_result():
+    mix = oc.Mixture({3: 1.0})
+    for bad in ("10", [True]):  # "10" ran with rhos 1.0, 0.0 (its characters)
+        with pytest.raises(TypeError, match="rhos must be a sequence of numbers"):
+            oc.stability("gradient", mix, 10, seed=1, rhos=bad)
+    with pytest.raises(TypeError, match="must return an orthoclimb Result, got int"):
+        oc.stability(lambda ham: 3, mix, 10, seed=1, rhos=[0.5])
+
+
+def test_overlaps_stay_within_one_in_float32():
+    # 1.0000000000000002 at rho = 1 in float32 (a review): the overlap of unit vectors
+    st = oc.stability("gradient", oc.Mixture({3: 1.0}), 30, 2, [1.0], dtype="float32")
+    assert -1.0 <= st.overlaps[0] <= 1.0

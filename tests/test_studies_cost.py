@@ -132,3 +132,15 @@ def test_a_time_that_grows_more_slowly_than_n_is_flagged_as_fixed_costs(tmp_path
         store.write_row({**row, "seconds_sample": 1e-4})
     (line,) = [f for f in build_report(tmp_path / "f").findings if "median time" in f]
     assert "falls as n grows (n^-0.50)" in line and "grows" not in line.replace("n grows", "")
+
+
+def test_a_row_without_its_sampling_time_leaves_out_only_itself():
+    # np.median over a size where one row lacked seconds_sample gave NaN for the size
+    from orthoclimb.studies.cost import cost_table
+
+    rows = [
+        {"mixture": "m", "method": "g", "n": n, "seconds_run": 0.1 * n, "seconds_sample": s}
+        for n, s in ((10, 1.0), (10, None), (10, 3.0), (20, 2.0), (20, 4.0))
+    ]
+    (entry,) = cost_table(rows, {"m": 3})
+    assert entry["median_seconds_sample"] == [2.0, 3.0]

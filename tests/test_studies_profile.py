@@ -135,3 +135,28 @@ def test_profile_notes_threads_beyond_the_cores(tmp_path, capsys):
     err = capsys.readouterr().err
     assert err.startswith(f"note: --threads {cores + 1} is more than the {cores} core")
     oc.set_num_threads(before)
+
+
+def test_profile_counts_the_hessian_workspace_before_it_starts(tmp_path, capsys):
+    # 1:1 at n = 100000 holds 0.8 MB of coefficients, but its Hessian's n x n accumulators
+    # need about 149 GiB: the plan did not count them, and the profile failed after timing
+    # the smaller sizes (a review). Now refused before anything is sampled or printed
+    from orthoclimb.model.memory import hessian_workspace_estimate
+
+    big = hessian_workspace_estimate(Mixture({1: 1.0}), 100000)
+    assert big >= 2 * 100000**2 * 8  # at least one accumulator and the result
+    args = ["profile", "--gammas", "1:1", "--n", "50,100000", "--out", str(tmp_path / "p")]
+    assert main(args) == 2
+    captured = capsys.readouterr()
+    assert "and its Hessian" in captured.err and "n = 50: done" not in captured.err
+    # a profile that fits announces the workspace beside the coefficients
+    assert main(["profile", "--gammas", "2:1", "--n", "20,40", "--out", str(tmp_path / "q")]) == 0
+    assert "and its Hessian takes" in capsys.readouterr().err
+
+
+def test_profile_refuses_a_size_given_twice_through_the_api():
+    # profile_kernels(mix, [20, 20]) fitted exponents of -1.67 and -inf (a review)
+    from orthoclimb.studies.profile import profile_kernels
+
+    with pytest.raises(ValueError, match="sizes must be distinct"):
+        profile_kernels(Mixture({3: 1.0}), [20, 20])

@@ -187,3 +187,33 @@ def test_a_plot_into_a_missing_folder_is_refused_before_the_work(tmp_path, capsy
     code = main(["theory", "--gammas", "2:1", "--plot", str(tmp_path / "nope" / "x.png")])
     assert code == 2
     assert "does not exist" in capsys.readouterr().err
+
+
+def test_tiny_scales_keep_their_digits_in_the_plot_labels_and_reference(tmp_path, monkeypatch):
+    # "ALG = 0.000000" for gammas of 1e-150, and xi'''/xi''^1.5 overflowed (a review)
+    import matplotlib.axes
+
+    labels = []
+    real = matplotlib.axes.Axes.axhline
+
+    def spy(self, y=0, *args, **kwargs):
+        labels.append(kwargs.get("label"))
+        return real(self, y, *args, **kwargs)
+
+    curves = {}
+    real_plot = matplotlib.axes.Axes.plot
+
+    def plot_spy(self, *args, **kwargs):
+        curves[kwargs.get("label")] = args[1] if len(args) > 1 else None
+        return real_plot(self, *args, **kwargs)
+
+    monkeypatch.setattr(matplotlib.axes.Axes, "axhline", spy)
+    monkeypatch.setattr(matplotlib.axes.Axes, "plot", plot_spy)
+    out = tmp_path / "tiny.png"
+    assert main(["theory", "--gammas", "2:1e-150,4:1e-151", "--plot", str(out)]) == 0
+    alg = Mixture({2: 1e-150, 4: 1e-151}).algorithmic_energy()
+    assert f"ALG = {alg:.7g}" in labels and "e-150" in f"{alg:.7g}"
+    reference = curves["-d/dq xi''(q)^(-1/2)"]
+    assert reference is not None and len(reference) > 0 and all(map(math.isfinite, reference))
+    # a folder as --plot is refused before the work
+    assert main(["theory", "--gammas", "3:1", "--plot", str(tmp_path)]) == 2

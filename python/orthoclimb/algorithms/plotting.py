@@ -29,7 +29,7 @@ def plot_result(result: Result, path: str | os.PathLike) -> None:
         mix = ",".join(f"{p}:{g:g}" for p, g in mix.items())
     fig.suptitle(
         f"{result.method}: mixture {mix}, n = {cfg.get('n')}, "
-        f"seed = {cfg.get('disorder_seed')}; final energy per spin {result.energy:.5f}",
+        f"seed = {cfg.get('disorder_seed')}; final energy per spin {result.energy:.6g}",
         fontsize=11,
     )
     if result.method == "hessian":
@@ -56,7 +56,7 @@ def plot_result(result: Result, path: str | os.PathLike) -> None:
         ax2.set_xlabel("iteration")
         ax2.set_title("tangent gradient" + (" and temperature" if "temperature" in p else ""))
     if alg is not None:
-        ax1.axhline(alg, color="C2", ls="--", lw=1, label=f"ALG = {alg:.5f}")
+        ax1.axhline(alg, color="C2", ls="--", lw=1, label=f"ALG = {alg:.6g}")
     polished = "polish" in result.info  # hessian and anneal runs that polished
     final = "final (polished)" if polished else "final"
     ax1.axhline(result.energy, color="C3", ls=":", lw=1, label=final)

@@ -28,6 +28,10 @@ from .result import Result, _plain
 __all__ = ["StabilityResult", "stability"]
 
 _METHODS = ("hessian", "gradient", "anneal")
+# The default other_seed is seed XOR this (the 64-bit golden-ratio constant, common practice
+# for spreading integers): far from every small seed, so no seed's independent part is
+# another seed's base instance.
+_OTHER_SEED_MASK = 0x9E3779B97F4A7C15
 
 
 @dataclass
@@ -99,7 +103,7 @@ def stability(
     ``start_seed`` (default 0) as its own ``seed`` (its random start or noise, the same for
     every instance), while a callable chooses its own (giving ``start_seed`` with one is a
     TypeError rather than a silently unused value). ``rhos`` are correlations in [-1, 1]
-    (checked by ``Hamiltonian.sample``); ``other_seed`` (default (seed + 1) mod 2^64, must
+    (checked by ``Hamiltonian.sample``); ``other_seed`` (default seed XOR 0x9E3779B97F4A7C15, must
     differ from ``seed``) drives the independent part. Instances are built one at a time.
     """
     if not isinstance(mixture, Mixture):
@@ -113,11 +117,15 @@ def stability(
         raise TypeError(
             "start_seed is for the named methods; a callable algorithm chooses its own start"
         )
-    other = (seed + 1) % 2**64 if other_seed is None else check_seed(other_seed, "other_seed")
+    # seed + 1 made the independent part of seed s the base instance of seed s + 1, so
+    # results over consecutive seeds were not independent (a review)
+    other = seed ^ _OTHER_SEED_MASK if other_seed is None else check_seed(other_seed, "other_seed")
     if other == seed:
         raise ValueError(
             f"other_seed must differ from seed ({seed}): the two parts must be independent"
         )
+    if isinstance(rhos, (str, bytes)) or any(isinstance(r, (bool, np.bool_)) for r in rhos):
+        raise TypeError(f"rhos must be a sequence of numbers, got {rhos!r}")
     try:
         rho_list = [float(r) for r in rhos]
     except (TypeError, ValueError):
@@ -137,7 +145,12 @@ def stability(
         ham = Hamiltonian.sample(mixture, n, other, dtype=dtype, correlated_with=(seed, r))
         res = run(ham)
         del ham
-        overlaps.append(float(np.dot(base.x, res.x)))
+        if not isinstance(res, Result):
+            raise TypeError(
+                f"the algorithm must return an orthoclimb Result, got {type(res).__name__}"
+            )
+        # unit vectors: |<x, y>| <= 1 up to rounding (1 + 2e-16 was seen in float32)
+        overlaps.append(float(np.clip(np.dot(base.x, res.x), -1.0, 1.0)))
         energies.append(res.energy)
         if keep_results:
             kept.append(res)

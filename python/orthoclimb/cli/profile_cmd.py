@@ -54,7 +54,7 @@ def run(args: argparse.Namespace) -> int:
     threads_note = threads_from(args)
     sizes = parse_sizes(args.sizes)
     ensure_folder(args.out)  # before the timings: a bad --out fails at once
-    need = check_profile(mix, sizes, args.repeats)  # before the plan is printed
+    need, workspace = check_profile(mix, sizes, args.repeats)  # before the plan is printed
     say = _stderr if not args.json else lambda _text: None
     if threads_note is not None:
         say(threads_note)
@@ -63,8 +63,9 @@ def run(args: argparse.Namespace) -> int:
     growth = most / coefficient_count(mix.degrees, min(sizes))
     say(
         f"profile: n = {', '.join(map(str, sorted(sizes)))}; the largest instance (n = {biggest})"
-        f" holds {most:,} coefficients, {format_bytes(need)} of"
-        f" {format_bytes(available_memory())} available; each size is sampled once and each"
+        f" holds {most:,} coefficients, {format_bytes(need)}, and its Hessian takes"
+        f" {format_bytes(workspace)} more, of {format_bytes(available_memory())} available;"
+        " each size is sampled once and each"
         f" kernel timed {args.repeats} time(s). Time grows like the coefficient count: the"
         f" largest size has {growth:.3g} times the smallest's; an estimate for each next size"
         " follows the one before."

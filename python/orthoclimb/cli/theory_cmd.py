@@ -159,6 +159,8 @@ def _check_plot_path(path: str) -> None:
     from matplotlib.figure import Figure
 
     folder = os.path.dirname(os.path.abspath(path))
+    if os.path.isdir(path):
+        raise ValueError(f"cannot write the plot {path!r}: it is a folder; give a file name")
     if not os.path.isdir(folder):
         raise ValueError(f"cannot write the plot {path!r}: folder {folder!r} does not exist")
     suffix = os.path.splitext(path)[1].lstrip(".").lower()
@@ -207,8 +209,8 @@ def _plot(mixture: Mixture, report: dict[str, Any], path: str) -> None:
     # Panel 2: predicted path curve with ALG and GS.
     qq = np.linspace(0.0, 1.0, 201)
     ax2.plot(qq, path_energy(mixture, qq), color="C0", label="path energy E_path(q)")
-    ax2.axhline(report["alg"], color="C2", ls="--", lw=1.2, label=f"ALG = {report['alg']:.6f}")
-    ax2.axhline(gs["value"], color="C3", ls=":", lw=1.5, label=f"GS = {gs['value']:.6f}")
+    ax2.axhline(report["alg"], color="C2", ls="--", lw=1.2, label=f"ALG = {report['alg']:.7g}")
+    ax2.axhline(gs["value"], color="C3", ls=":", lw=1.5, label=f"GS = {gs['value']:.7g}")
     ax2.set_xlim(0.0, 1.0)
     ax2.set_xlabel("q = |x|^2")
     ax2.set_ylabel("energy per spin")
@@ -221,7 +223,9 @@ def _plot(mixture: Mixture, report: dict[str, Any], path: str) -> None:
     ax3.stairs(alpha, breaks, color="C0", lw=2, label=f"Parisi alpha ({_alpha_text(gs['alpha'])})")
     peak = float(alpha.max()) if alpha.size else 0.0
     if not verdict["linear"]:
-        ref = 0.5 * np.asarray(mixture.xi(q, 3), dtype=np.float64) * second**-1.5
+        # (third / second) / sqrt(second): no power of xi'' to over- or underflow at scaled gammas
+        third = np.asarray(mixture.xi(q, 3), dtype=np.float64)
+        ref = 0.5 * (third / second) / np.sqrt(second)
         shown = q >= q_hat
         ax3.plot(q[shown], ref[shown], color="C1", ls="--", lw=1, label="-d/dq xi''(q)^(-1/2)")
     ax3.set_ylim(0.0, 1.3 * peak if peak > 0 else 1.0)

@@ -42,6 +42,17 @@ def estimate_memory(mixture: Mixture, n: int, dtype: object = "float64") -> int:
     return coefficient_count(mixture.degrees, n) * itemsize
 
 
+def hessian_workspace_estimate(mixture: Mixture, n: int) -> int:
+    """Peak bytes a Hessian call at n allocates beside the coefficients (its n x n
+    accumulators and the result; ``Hamiltonian.hessian_workspace_nbytes``), without
+    sampling the instance."""
+    from .. import _core
+
+    count = coefficient_count(mixture.degrees, n)
+    groups = int(_core.hessian_groups(min(count, 2**63 - 1), min(n * n, 2**63 - 1)))
+    return (groups + 1) * n * n * 8
+
+
 def coefficient_count(degrees: Iterable[int], n: int) -> int:
     """N(n) = sum_p C(n+p-1, p) over ``degrees``: the coefficients an instance stores (exact)."""
     return sum(math.comb(n + p - 1, p) for p in degrees)

@@ -68,7 +68,8 @@ def cost_table(rows: list[dict[str, Any]], max_degree: dict[str, int]) -> list[d
     for (mix, method), by_n in acc.items():
         sizes = sorted(by_n)
         run = [float(np.median([t for t, _ in by_n[n]])) for n in sizes]
-        sample = [float(np.median([s for _, s in by_n[n]])) for n in sizes]
+        # a row without a sampling time leaves out only itself (nanmedian; NaN if all do)
+        sample = [_median_of_known([s for _, s in by_n[n]]) for n in sizes]
         b, se, last = _slopes(sizes, run)
         rising = len(sizes) >= 3 and _rises(
             sizes, [[t for t, _ in by_n[n]] for n in sizes], b, last
@@ -90,6 +91,12 @@ def cost_table(rows: list[dict[str, Any]], max_degree: dict[str, int]) -> list[d
             }
         )
     return out
+
+
+def _median_of_known(values: list[float]) -> float:
+    """The median of the values that are not NaN; NaN when none is."""
+    known = [v for v in values if not math.isnan(v)]
+    return float(np.median(known)) if known else math.nan
 
 
 def _slopes(sizes: list[int], times: list[float]) -> tuple[Any, Any, Any]:

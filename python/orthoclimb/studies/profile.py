@@ -40,20 +40,26 @@ def best_time(fn, repeats: int = 2) -> float:
 
 
 def check_profile(mixture: Any, sizes: Sequence[int], repeats: int) -> int:
-    """Refuse a profile that cannot run (fewer than 2 sizes, ``repeats`` < 1, a largest
-    instance that does not fit in memory) before anything is sampled; return the bytes of
-    the largest instance."""
+    """Refuse a profile that cannot run (fewer than 2 sizes or a size twice, ``repeats`` < 1,
+    a largest instance that does not fit in memory with its Hessian's workspace) before
+    anything is sampled; return the bytes of the largest instance and of that workspace.
+    The Hessian's n x n accumulators were not counted, and for degree <= 2 they outweigh the
+    coefficients: 1:1 at n = 100000 holds 0.8 MB but its Hessian needs 149 GiB, refused
+    only after the other sizes had run (a review)."""
     from ..model import estimate_memory
-    from ..model.memory import require_memory
+    from ..model.memory import hessian_workspace_estimate, require_memory
 
     if len(sizes) < 2:
         raise ValueError("profile needs at least 2 sizes to fit an exponent")
+    if len(set(sizes)) < len(sizes):
+        raise ValueError(f"profile sizes must be distinct, got {list(sizes)}")
     if repeats < 1:
         raise ValueError(f"--repeats must be >= 1, got {repeats}")
     biggest = max(sizes)
     need = estimate_memory(mixture, biggest)
-    require_memory(need, f"an instance with n = {biggest}")
-    return need
+    workspace = hessian_workspace_estimate(mixture, biggest)
+    require_memory(need + workspace, f"an instance with n = {biggest} and its Hessian")
+    return need, workspace
 
 
 def profile_kernels(
