@@ -125,6 +125,11 @@ def test_stability_refuses_text_and_flags_as_rhos_and_a_callable_without_a_resul
     for bad in ("10", [True]):  # "10" ran with rhos 1.0, 0.0 (its characters)
         with pytest.raises(TypeError, match="rhos must be a sequence of numbers"):
             oc.stability("gradient", mix, 10, seed=1, rhos=bad)
+    with pytest.raises(TypeError, match="rhos must be a sequence of numbers, got 0.5"):
+        oc.stability("gradient", mix, 10, seed=1, rhos=0.5)
+    # a generator is read once
+    gen = oc.stability("gradient", mix, 10, seed=1, rhos=(r for r in (0.5, 0.0)))
+    assert gen.rhos.tolist() == [0.5, 0.0]
     with pytest.raises(TypeError, match="must return an orthoclimb Result, got int"):
         oc.stability(lambda ham: 3, mix, 10, seed=1, rhos=[0.5])
 

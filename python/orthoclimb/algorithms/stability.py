@@ -124,10 +124,17 @@ def stability(
         raise ValueError(
             f"other_seed must differ from seed ({seed}): the two parts must be independent"
         )
-    if isinstance(rhos, (str, bytes)) or any(isinstance(r, (bool, np.bool_)) for r in rhos):
-        raise TypeError(f"rhos must be a sequence of numbers, got {rhos!r}")
+    bad = TypeError(f"rhos must be a sequence of numbers, got {rhos!r}")
+    if isinstance(rhos, (str, bytes)):  # "10" ran with rhos 1.0 and 0.0, its characters
+        raise bad
     try:
-        rho_list = [float(r) for r in rhos]
+        given = list(rhos)  # once: a generator is read a single time
+    except TypeError:
+        raise bad from None
+    if any(isinstance(r, (bool, np.bool_)) for r in given):
+        raise bad
+    try:
+        rho_list = [float(r) for r in given]
     except (TypeError, ValueError):
         raise TypeError(f"rhos must be a sequence of numbers, got {rhos!r}") from None
     except OverflowError:  # an integer beyond float64
