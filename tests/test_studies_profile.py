@@ -160,3 +160,15 @@ def test_profile_refuses_a_size_given_twice_through_the_api():
 
     with pytest.raises(ValueError, match="sizes must be distinct"):
         profile_kernels(Mixture({3: 1.0}), [20, 20])
+
+
+def test_the_workspace_estimate_counts_the_accumulators_of_the_core():
+    # profile's check estimates the Hessian workspace without sampling; it passed n^2 where
+    # the core takes n, counted too few accumulators and understated it (3:1 at n = 400:
+    # 2.56 MB against 3.84 MB). rust/kernels.rs `pieces`, as in test_model_kernels: one
+    # accumulator per 32 n^2 coefficients, a power of two; plus the result
+    from orthoclimb.model.memory import hessian_workspace_estimate
+
+    assert hessian_workspace_estimate(Mixture({3: 1.0}), 50) == (1 + 1) * 50 * 50 * 8
+    assert hessian_workspace_estimate(Mixture({3: 1.0}), 400) == (2 + 1) * 400 * 400 * 8
+    assert hessian_workspace_estimate(Mixture({3: 1.0}), 300) == (2 + 1) * 300 * 300 * 8

@@ -28,6 +28,7 @@ from .memory import (
     check_size,
     coefficient_count,
     estimate_memory,
+    hessian_workspace_bytes,
     normalize_dtype,
     require_memory,
 )
@@ -263,8 +264,7 @@ class Hamiltonian:
     def hessian_workspace_nbytes(self) -> int:
         """Peak bytes a :meth:`hessian` call allocates: its n x n accumulators (a number fixed
         by the instance, 1 to 64) and the result, 8 bytes per entry each."""
-        groups = int(_core.hessian_groups(self.num_coefficients, self.n))
-        return (groups + 1) * self.n * self.n * 8
+        return hessian_workspace_bytes(self.num_coefficients, self.n)
 
     def __repr__(self) -> str:
         origin = f"{self._mixture!r}, seed={self._seed}" if self._mixture else "given"

@@ -42,15 +42,20 @@ def estimate_memory(mixture: Mixture, n: int, dtype: object = "float64") -> int:
     return coefficient_count(mixture.degrees, n) * itemsize
 
 
-def hessian_workspace_estimate(mixture: Mixture, n: int) -> int:
-    """Peak bytes a Hessian call at n allocates beside the coefficients (its n x n
-    accumulators and the result; ``Hamiltonian.hessian_workspace_nbytes``), without
-    sampling the instance."""
+def hessian_workspace_bytes(num_coefficients: int, n: int) -> int:
+    """Peak bytes a Hessian call allocates beside the coefficients: its n x n accumulators (a
+    number fixed by the instance, 1 to 64) and the result, 8 bytes per entry each."""
     from .. import _core
 
-    count = coefficient_count(mixture.degrees, n)
-    groups = int(_core.hessian_groups(min(count, 2**63 - 1), min(n * n, 2**63 - 1)))
+    top = 2**63 - 1  # the core counts in 64 bits; so many coefficients never fit anyway
+    groups = int(_core.hessian_groups(min(num_coefficients, top), min(n, top)))
     return (groups + 1) * n * n * 8
+
+
+def hessian_workspace_estimate(mixture: Mixture, n: int) -> int:
+    """:func:`hessian_workspace_bytes` of the instance of ``mixture`` at n, without sampling
+    it."""
+    return hessian_workspace_bytes(coefficient_count(mixture.degrees, n), n)
 
 
 def coefficient_count(degrees: Iterable[int], n: int) -> int:
