@@ -263,6 +263,18 @@ def open_envelope(
     return payload
 
 
+def parse_json(text: str, fail: Callable[[str], Exception]) -> Any:
+    """``json.loads(text)``, raising ``fail(why)`` for text that is not JSON: malformed or
+    truncated (a ValueError, also for an integer too long to read) or nested beyond the
+    parser's depth (a RecursionError: not a file orthoclimb writes)."""
+    try:
+        return json.loads(text)
+    except ValueError as exc:
+        raise fail(f"not valid JSON (truncated or corrupted?): {exc}") from None
+    except RecursionError:
+        raise fail("not valid JSON for this format: nested too deeply") from None
+
+
 def json_digest(payload: Any) -> str:
     """SHA-256 (hex) of the canonical JSON of ``payload``: sorted keys, no spaces. The checksum
     of every file orthoclimb writes with a format name. The payloads it writes hold no NaN

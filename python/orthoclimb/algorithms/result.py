@@ -19,7 +19,6 @@ recorded digest; any failure is a ValueError that names the file and the problem
 from __future__ import annotations
 
 import hashlib
-import json
 import math
 import os
 import zipfile
@@ -37,6 +36,7 @@ from ..fileio import (
     open_envelope,
     output_pair_paths,
     pair_paths,
+    parse_json,
     write_atomic,
     write_json_atomic,
 )
@@ -201,12 +201,7 @@ def load_result(path: str | os.PathLike) -> Result:
         raise _fail(json_path, "not UTF-8 text (corrupted?)") from None
     except OSError as exc:  # a folder in its place, no permission, I/O error
         raise _fail(json_path, f"unreadable: {exc}") from None
-    try:
-        doc = json.loads(text)
-    except ValueError as exc:  # JSONDecodeError, or an integer too long to read
-        raise _fail(json_path, f"not valid JSON (truncated or corrupted?): {exc}") from None
-    except RecursionError:  # arrays nested beyond the parser's depth: not a file of ours
-        raise _fail(json_path, "not valid JSON for this format: nested too deeply") from None
+    doc = parse_json(text, lambda why: _fail(json_path, why))
     if not isinstance(doc, dict) or doc.get("format") != FORMAT:
         raise _fail(json_path, f"not an orthoclimb result (format is not {FORMAT!r})")
     payload = open_envelope(

@@ -136,7 +136,7 @@ def stability(
     try:
         rho_list = [float(r) for r in given]
     except (TypeError, ValueError):
-        raise TypeError(f"rhos must be a sequence of numbers, got {rhos!r}") from None
+        raise bad from None
     except OverflowError:  # an integer beyond float64
         raise ValueError("correlation rho must be in [-1, 1], got a larger integer") from None
     if not rho_list:

@@ -35,6 +35,7 @@ from ..studies.estimate import (
     GRADIENT_ITERATIONS,
     LANCZOS_SECONDS,
     POLISH_PASSES,
+    largest_size_within,
 )
 from . import add_mixture_flags, mixture_from, seconds_text, threads_from
 
@@ -117,11 +118,9 @@ def _time_pass(ham: Hamiltonian, method: str) -> float:
 
 
 def _probe(mixture: Mixture, n: int, dtype: str) -> tuple[Hamiltonian, float]:
-    """An instance of the mixture with at most 64 MB of coefficients (n, or the first of n,
-    0.9 n, 0.81 n, ... that fits) and the seconds its sampling took."""
-    n0 = n
-    while n0 > 2 and estimate_memory(mixture, n0, dtype) > _SAMPLING_PROBE:
-        n0 = max(2, int(n0 * 0.9))
+    """An instance of the mixture with at most 64 MB of coefficients (the largest n' <= n that
+    fits, at least 2) and the seconds its sampling took."""
+    n0 = max(2, largest_size_within(mixture, n, _SAMPLING_PROBE, dtype))
     started = time.perf_counter()
     probe = Hamiltonian.sample(mixture, n0, 0, dtype=dtype)
     return probe, time.perf_counter() - started
@@ -308,9 +307,9 @@ def run(args: argparse.Namespace) -> int:
     )
     if args.plan_only and args.json:
         raise ValueError("--plan-only prints its plan as text; give it without --json")
+    polish = not args.no_polish and args.method != "gradient"
     if args.plan_only:  # before the memory check: a plan may be for a bigger machine
         probe, seconds = _probe(mixture, args.n, args.dtype)
-        polish = not args.no_polish and args.method != "gradient"
         say(_sampling_text(probe, seconds, need))
         say(_run_estimate(probe, args.method, steps, polish, args.n, need / probe.nbytes))
         try:
@@ -326,7 +325,6 @@ def run(args: argparse.Namespace) -> int:
     quiet = args.no_progress or args.json
     bars = not quiet and sys.stderr.isatty()  # no bar frames in a log
     ham = Hamiltonian.sample(mixture, args.n, args.seed, dtype=args.dtype, progress=bars)
-    polish = not args.no_polish and args.method != "gradient"
     say(_run_estimate(ham, args.method, steps, polish))
 
     from tqdm import tqdm

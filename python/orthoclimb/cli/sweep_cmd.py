@@ -17,6 +17,7 @@ from __future__ import annotations
 import argparse
 import sys
 import time
+from collections import Counter
 from pathlib import Path
 from typing import Any
 
@@ -287,11 +288,11 @@ def execute(
         )
     if outcome.failed:
         say(f"failed tasks are listed in {out}/failed/; rerun the same command to retry them")
-        reasons: dict[str, int] = {}
-        for record in Store(out, spec).failures():
-            first = str(record.get("error", "")).strip().splitlines()[:1] or ["(no message)"]
-            reasons[first[0]] = reasons.get(first[0], 0) + 1
-        for reason, count in sorted(reasons.items(), key=lambda kv: -kv[1])[:5]:
+        reasons = Counter(
+            (str(record.get("error", "")).strip().splitlines() or ["(no message)"])[0]
+            for record in Store(out, spec).failures()
+        )
+        for reason, count in reasons.most_common(5):
             say(f"  {counted(count, 'task')}: {reason}")
     rep = write_report(out) if report else None
     if rep is None and had_report and outcome.done:

@@ -39,7 +39,6 @@ would not fit in the available memory.
 from __future__ import annotations
 
 import hashlib
-import json
 import math
 import os
 import struct
@@ -57,6 +56,7 @@ from ..fileio import (
     open_envelope,
     output_pair_paths,
     pair_paths,
+    parse_json,
     write_atomic,
     write_json_atomic,
 )
@@ -220,12 +220,7 @@ def _read_payload(json_path: Path) -> dict[str, Any]:
         raise _fail(json_path, "not UTF-8 text (corrupted?)") from None
     if not text.strip():
         raise _fail(json_path, "the file is empty (truncated?)")
-    try:
-        doc = json.loads(text)
-    except ValueError as exc:  # JSONDecodeError, or an absurdly long integer
-        raise _fail(json_path, f"not valid JSON (truncated or corrupted?): {exc}") from None
-    except RecursionError:  # arrays nested beyond the parser's depth: not a file of ours
-        raise _fail(json_path, "not valid JSON for this format: nested too deeply") from None
+    doc = parse_json(text, lambda why: _fail(json_path, why))
     fmt = doc.get("format") if isinstance(doc, dict) else None
     if fmt != FORMAT:
         hint = " (a result file: use orthoclimb.load_result)" if fmt == "orthoclimb-result" else ""

@@ -68,7 +68,8 @@ def cost_table(rows: list[dict[str, Any]], max_degree: dict[str, int]) -> list[d
     for (mix, method), by_n in acc.items():
         sizes = sorted(by_n)
         run = [float(np.median([t for t, _ in by_n[n]])) for n in sizes]
-        # a row without a sampling time leaves out only itself (nanmedian; NaN if all do)
+        # a row without a sampling time leaves out only itself (NaN only if every row lacks it;
+        # np.nanmedian would warn there)
         sample = [_median_of_known([s for _, s in by_n[n]]) for n in sizes]
         b, se, last = _slopes(sizes, run)
         rising = len(sizes) >= 3 and _rises(

@@ -44,6 +44,7 @@ __all__ = [
     "estimate_from",
     "estimate_seconds",
     "largest_instance",
+    "largest_size_within",
 ]
 
 _CAL_BYTES = 64 * 2**20
@@ -80,17 +81,18 @@ def largest_instance(spec: StudySpec, tasks=None) -> tuple[int, str, int]:
     return best
 
 
-def _largest_fitting(mixture, below: int) -> int:
-    """The largest n <= ``below`` whose instance takes at most ``_CAL_BYTES`` (bisection; n = 1
-    holds one coefficient per degree). Used when none of a mixture's sizes fits: sampling
-    the smallest of them on the driver asked for 130 GiB for 6:1 at n = 150, a study meant
-    for a larger external cluster (a review)."""
+def largest_size_within(mixture, below: int, nbytes: int, dtype: str = "float64") -> int:
+    """The largest n <= ``below`` whose instance takes at most ``nbytes`` (bisection; n = 1
+    holds one coefficient per degree). The calibration uses it when none of a mixture's sizes
+    fits 64 MB: sampling the smallest of them on the driver asked for 130 GiB for 6:1 at
+    n = 150, a study meant for a larger external cluster (a review); climb, for the instance
+    it times sampling on."""
     from ..model import estimate_memory
 
     lo, hi = 1, below  # estimate_memory(lo) fits, estimate_memory(hi) may not
     while lo < hi:
         mid = (lo + hi + 1) // 2
-        if estimate_memory(mixture, mid) <= _CAL_BYTES:
+        if estimate_memory(mixture, mid, dtype) <= nbytes:
             lo = mid
         else:
             hi = mid - 1
@@ -111,7 +113,8 @@ def calibrate(spec: StudySpec, threads: int = 1) -> dict[str, Calibration]:
             mix = m.mixture
             sizes = m.sizes if m.sizes is not None else spec.sizes  # the mixture's own sizes
             fits = [n for n in sizes if estimate_memory(mix, n) <= _CAL_BYTES]
-            n0 = min(max(fits) if fits else _largest_fitting(mix, min(sizes)), 400)
+            n0 = max(fits) if fits else largest_size_within(mix, min(sizes), _CAL_BYTES)
+            n0 = min(n0, 400)
             started = time.perf_counter()
             ham = Hamiltonian.sample(mix, n0, seed=0)
             sampling = time.perf_counter() - started

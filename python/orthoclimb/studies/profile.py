@@ -39,7 +39,7 @@ def best_time(fn, repeats: int = 2) -> float:
     return out
 
 
-def check_profile(mixture: Any, sizes: Sequence[int], repeats: int) -> int:
+def check_profile(mixture: Any, sizes: Sequence[int], repeats: int) -> tuple[int, int]:
     """Refuse a profile that cannot run (fewer than 2 sizes or a size twice, ``repeats`` < 1,
     a largest instance that does not fit in memory with its Hessian's workspace) before
     anything is sampled; return the bytes of the largest instance and of that workspace.

@@ -195,9 +195,9 @@ def build_report(
             }
             # a size with one seed (an interrupted sweep leaves some) has no spread to weigh
             # it by: it is left out of the fit, and said so, instead of sinking the whole fit
-            left_out = [[n, len(data[(m.name, meth.name, n)])] for n in sizes]
-            left_out = [pair for pair in left_out if pair[1] < 2]
-            sizes = [n for n in sizes if len(data[(m.name, meth.name, n)]) >= 2]
+            counts = {n: len(data[(m.name, meth.name, n)]) for n in sizes}
+            left_out = [[n, c] for n, c in counts.items() if c < 2]
+            sizes = [n for n, c in counts.items() if c >= 2]
             entry["left_out"] = left_out
             samples = [data[(m.name, meth.name, n)] for n in sizes]
             try:
@@ -429,12 +429,9 @@ def _markdown(rep: Report) -> str:
         "| --- | --- | ---: | ---: | ---: | ---: |",
     ]
     for g in rep.groups:
+        se = f"{g['se']:.4f}" if math.isfinite(g["se"]) else "--"  # one seed
         lines.append(
-            f"| {g['mixture']} | {g['method']} | {g['n']} | {g['mean']:.4f} | "
-            f"{g['se']:.4f} | {g['count']} |"
-            if math.isfinite(g["se"])
-            else f"| {g['mixture']} | {g['method']} | {g['n']} | {g['mean']:.4f} | -- "
-            f"| {g['count']} |"
+            f"| {g['mixture']} | {g['method']} | {g['n']} | {g['mean']:.4f} | {se} | {g['count']} |"
         )
     if rep.files:
         lines += ["", "## Files", ""] + [f"- {k}: `{v}`" for k, v in rep.files.items()]

@@ -277,19 +277,14 @@ class Store:
         meta_existed = meta.exists()
         grown_from: dict | None = None
         if meta_existed:
-            try:
+            try:  # the file, and the configuration in it, which _relation reads as a study
                 stored = json.loads(meta.read_text(encoding="utf-8"))
                 old = stored["config"]
                 if not isinstance(old, dict):
                     raise TypeError(f"config is {type(old).__name__}")
-            except (OSError, ValueError, KeyError, TypeError, RecursionError):
-                raise StudyMismatchError(
-                    f"{str(meta)!r} is not a readable study configuration; use another --out folder"
-                ) from None
-            diff = _differences(old, json.loads(_canonical(config)))
-            try:
+                diff = _differences(old, json.loads(_canonical(config)))
                 relation = _relation(old, config) if diff else "same"
-            except (KeyError, TypeError, ValueError, AttributeError):
+            except (OSError, ValueError, KeyError, TypeError, AttributeError, RecursionError):
                 raise StudyMismatchError(
                     f"{str(meta)!r} is not a readable study configuration; use another --out folder"
                 ) from None
