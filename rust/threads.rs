@@ -3,6 +3,12 @@
 //! Kernels take the pool as an argument; this module only owns the one pool the Python
 //! package uses, sized by [`set_num_threads`] or, before the first call, by the environment
 //! variable `ORTHOCLIMB_NUM_THREADS` (default: all available cores).
+//!
+//! A process made by `fork` (Python's `multiprocessing` on Linux before 3.14, `os.fork`)
+//! inherits the pool's bookkeeping but none of its threads, so a job handed to it would wait
+//! forever. The pool therefore records the process it was built in, and a call from another
+//! process builds a fresh pool of the same size. The inherited one is leaked, not dropped:
+//! dropping it would signal threads that do not exist, through locks they may have held.
 
 use std::sync::atomic::{AtomicU64, Ordering};
 use std::sync::{Arc, RwLock};
@@ -12,7 +18,10 @@ use rayon::{ThreadPool, ThreadPoolBuilder};
 use crate::error::CoreError;
 use crate::exec::Exec;
 
-static POOL: RwLock<Option<(usize, Arc<ThreadPool>)>> = RwLock::new(None);
+/// The pool's thread count, the id of the process that built it, and the pool.
+type Slot = Option<(usize, u32, Arc<ThreadPool>)>;
+
+static POOL: RwLock<Slot> = RwLock::new(None);
 
 /// Name of the environment variable read for the default thread count.
 pub const ENV_VAR: &str = "ORTHOCLIMB_NUM_THREADS";
@@ -40,7 +49,7 @@ fn build(k: usize) -> Result<Arc<ThreadPool>, CoreError> {
         .build()
         .map(Arc::new)
         .map_err(|e| CoreError::InvalidThreads {
-            detail: e.to_string(),
+            detail: format!("cannot start a pool of {k} threads: {e}"),
         })
 }
 
@@ -55,31 +64,53 @@ pub fn default_threads() -> Result<usize, CoreError> {
             .ok_or_else(|| CoreError::InvalidThreads {
                 detail: format!("{ENV_VAR} must be an integer in 1..{MAX_THREADS}, got {text:?}"),
             }),
-        Err(_) => Ok(std::thread::available_parallelism()
+        Err(std::env::VarError::NotUnicode(raw)) => Err(CoreError::InvalidThreads {
+            detail: format!("{ENV_VAR} must be an integer in 1..{MAX_THREADS}, got {raw:?}"),
+        }),
+        Err(std::env::VarError::NotPresent) => Ok(std::thread::available_parallelism()
             .map(|n| n.get())
             .unwrap_or(1)),
+    }
+}
+
+/// Puts `pool` of `k` threads in `slot`. A pool inherited through `fork` is leaked (see the
+/// module doc); one of this process is dropped once its running calls let go of it.
+fn install(slot: &mut Slot, k: usize, pool: Arc<ThreadPool>) {
+    let old = slot.replace((k, std::process::id(), pool));
+    if let Some((_, pid, stale)) = old {
+        if pid != std::process::id() {
+            std::mem::forget(stale);
+        }
     }
 }
 
 /// Replaces the shared pool by one with `k` threads.
 pub fn set_num_threads(k: usize) -> Result<(), CoreError> {
     let pool = build(k)?;
-    *POOL.write().unwrap_or_else(|e| e.into_inner()) = Some((k, pool));
+    install(
+        &mut POOL.write().unwrap_or_else(|e| e.into_inner()),
+        k,
+        pool,
+    );
     Ok(())
 }
 
-/// The shared pool (built on first use).
+/// The shared pool: built on first use, and built again (same size) in a forked child.
 pub fn shared_pool() -> Result<Arc<ThreadPool>, CoreError> {
-    if let Some((_, p)) = POOL.read().unwrap_or_else(|e| e.into_inner()).as_ref() {
-        return Ok(Arc::clone(p));
+    let here = std::process::id();
+    if let Some((_, pid, p)) = POOL.read().unwrap_or_else(|e| e.into_inner()).as_ref() {
+        if *pid == here {
+            return Ok(Arc::clone(p));
+        }
     }
     let mut guard = POOL.write().unwrap_or_else(|e| e.into_inner());
-    if let Some((_, p)) = guard.as_ref() {
-        return Ok(Arc::clone(p));
-    }
-    let k = default_threads()?;
+    let k = match guard.as_ref() {
+        Some((_, pid, p)) if *pid == here => return Ok(Arc::clone(p)),
+        Some((k, _, _)) => *k, // inherited through fork: the same size, new threads
+        None => default_threads()?,
+    };
     let pool = build(k)?;
-    *guard = Some((k, Arc::clone(&pool)));
+    install(&mut guard, k, Arc::clone(&pool));
     Ok(pool)
 }
 
@@ -141,9 +172,14 @@ pub fn exec_for(work: u64, items: usize) -> Result<Exec, CoreError> {
 #[cfg(test)]
 mod tests {
     use super::*;
+    use std::sync::Mutex;
+
+    /// Held by the tests that change the shared pool, which cargo runs on parallel threads.
+    static SHARED: Mutex<()> = Mutex::new(());
 
     #[test]
     fn set_and_get() {
+        let _one = SHARED.lock().unwrap_or_else(|e| e.into_inner());
         set_num_threads(3).unwrap();
         assert_eq!(num_threads().unwrap(), 3);
         assert!(set_num_threads(0).is_err());
@@ -154,6 +190,28 @@ mod tests {
             3,
             "a refused setting keeps the old pool"
         );
+    }
+
+    /// A pool recorded under another process id (what a forked child sees) is replaced by a
+    /// new pool of the same size that runs work, and the inherited one is not dropped.
+    #[test]
+    fn a_pool_inherited_through_fork_is_rebuilt_at_its_size() {
+        let _one = SHARED.lock().unwrap_or_else(|e| e.into_inner());
+        let stale = build(2).unwrap();
+        let watch = Arc::downgrade(&stale);
+        {
+            let mut guard = POOL.write().unwrap_or_else(|e| e.into_inner());
+            *guard = Some((2, std::process::id().wrapping_add(1), stale));
+        }
+        let fresh = shared_pool().unwrap();
+        assert_eq!(fresh.current_num_threads(), 2);
+        assert!(fresh.install(|| rayon::current_thread_index().is_some()));
+        assert!(
+            watch.upgrade().is_some(),
+            "the inherited pool is leaked, not dropped"
+        );
+        let again = shared_pool().unwrap();
+        assert!(Arc::ptr_eq(&fresh, &again), "built once per process");
     }
 
     /// The inline bound: INLINE_PASSES at two threads, lower with more threads (never below

@@ -137,3 +137,36 @@ def test_the_measurement_sees_a_leak(growth):
     # keeping one gradient (>= 1,024 float64 = 8 KiB) per call, 8 MiB in all, must show;
     # some of it lands in memory freed during the warm-up, so ask for twice the bound only
     assert growth["control_keeps_outputs"] >= 2 * BOUND, growth
+
+
+CACHE_CHILD = textwrap.dedent(
+    """
+    import gc, json
+    import numpy as np
+    import psutil
+    import orthoclimb as oc
+
+    proc = psutil.Process()
+    before = proc.memory_info().rss
+    for n in (6000, 5800):  # one n x n accumulator each (288 and 269 MB) goes back to the core
+        ham = oc.Hamiltonian.sample(oc.Mixture({1: 1.0, 2: 1.0}), n, seed=1, dtype="float32")
+        hess = ham.hessian(np.ones(n) / np.sqrt(n))
+        del ham, hess
+        gc.collect()
+    print(json.dumps(proc.memory_info().rss - before))
+    """
+)
+
+
+def test_hessians_over_large_sizes_do_not_pin_their_accumulators():
+    # The core's cache of accumulator buffers kept up to 16 of any length, so each large n
+    # left its n x n buffer (here 288 and 269 MB) resident for the life of the process. It now
+    # keeps 256 MiB in all and no buffer longer than that; the bound leaves 64 MiB for the
+    # allocator (common practice, as above).
+    env = dict(os.environ, MALLOC_MMAP_THRESHOLD_="131072", MALLOC_TRIM_THRESHOLD_="262144")
+    proc = subprocess.run(
+        [sys.executable, "-c", CACHE_CHILD], capture_output=True, text=True, timeout=300, env=env
+    )
+    assert proc.returncode == 0, proc.stderr[-3000:]
+    grown = json.loads(proc.stdout.strip().splitlines()[-1])
+    assert grown <= 64 * 2**20, f"resident memory grew by {grown / 2**20:.0f} MiB"

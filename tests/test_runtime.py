@@ -66,3 +66,20 @@ def test_bad_environment_variable_is_a_clear_error():
         out = _run(code, value)
         assert out.returncode == 0, out.stderr
         assert "ValueError" in out.stdout and f"'{value}'" in out.stdout.replace('"', "'")
+
+
+@pytest.mark.skipif(os.name != "posix", reason="environment values are bytes on POSIX only")
+def test_environment_value_that_is_not_text_is_refused_not_ignored():
+    # Bytes that are not UTF-8 used to be read as "not set", so the pool silently took every
+    # core instead of the count the user meant.
+    code = (
+        "import orthoclimb as oc\n"
+        "try:\n    print(oc.get_num_threads())\nexcept ValueError as e:\n    print('ValueError', e)"
+    )
+    env = {**os.environb, b"ORTHOCLIMB_NUM_THREADS": b"1\xff"}
+    out = subprocess.run(
+        [sys.executable, "-c", code], env=env, capture_output=True, text=True, timeout=120
+    )
+    assert out.returncode == 0, out.stderr
+    assert out.stdout.startswith("ValueError"), out.stdout
+    assert "ORTHOCLIMB_NUM_THREADS" in out.stdout, out.stdout
