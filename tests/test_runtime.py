@@ -5,8 +5,10 @@ from __future__ import annotations
 import os
 import subprocess
 import sys
+import threading
 
 import pytest
+from threadpoolctl import threadpool_info
 
 import orthoclimb as oc
 
@@ -83,3 +85,44 @@ def test_environment_value_that_is_not_text_is_refused_not_ignored():
     assert out.returncode == 0, out.stderr
     assert out.stdout.startswith("ValueError"), out.stdout
     assert "ORTHOCLIMB_NUM_THREADS" in out.stdout, out.stdout
+
+
+def _blas_threads() -> list[int]:
+    return [info["num_threads"] for info in threadpool_info() if info["user_api"] == "blas"]
+
+
+def test_hessian_ascent_from_two_threads_gives_blas_its_threads_back():
+    # Hessian ascent runs BLAS on one thread. threadpoolctl's limit is process-wide, and
+    # entered directly from two threads, the first run to end restored the count while the
+    # second still ran; the second then restored the single thread it had found, for good.
+    # Here run B starts inside run A, and A ends while B waits in its first step: the order
+    # that lost the threads.
+    before = _blas_threads()
+    if not before or max(before) < 2:
+        pytest.skip(f"BLAS runs on one thread here already ({before}): nothing to restore")
+    mix = oc.Mixture({2: 1.0, 4: 0.5})
+    errors: list[Exception] = []
+    a_done, b_inside = threading.Event(), threading.Event()
+
+    def run(seed, tell, wait_for, done):
+        def step(row):
+            tell.set()
+            if not wait_for.wait(timeout=60):
+                raise TimeoutError("the other run did not get there")
+
+        try:
+            ham = oc.Hamiltonian.sample(mix, 30, seed=seed)
+            oc.hessian_ascent(ham, steps=20, seed=0, polish=False, callback=step)
+        except Exception as exc:  # reported below, not lost in the thread
+            errors.append(exc)
+        finally:
+            done.set()
+
+    thread_a = threading.Thread(target=run, args=(1, threading.Event(), b_inside, a_done))
+    thread_b = threading.Thread(target=run, args=(2, b_inside, a_done, threading.Event()))
+    thread_a.start()
+    thread_b.start()
+    thread_a.join(timeout=120)
+    thread_b.join(timeout=120)
+    assert not errors, errors
+    assert _blas_threads() == before

@@ -8,9 +8,18 @@ when that variable is set before the first kernel call, else the number of avail
 
 from __future__ import annotations
 
+import contextlib
+import threading
+from collections.abc import Iterator
+from typing import Any
+
 import numpy as np
 
 from . import _core
+
+_blas_lock = threading.Lock()
+_blas_users = 0
+_blas_limits: Any = None  # threadpoolctl's limiter while a block runs (imported on first use)
 
 
 def set_num_threads(k: int) -> None:
@@ -37,3 +46,31 @@ def kernel_path() -> str:
     alike).
     """
     return str(_core.kernel_path())
+
+
+@contextlib.contextmanager
+def one_blas_thread() -> Iterator[None]:
+    """Run the block with BLAS (NumPy's and SciPy's) on one thread, safely from any number of
+    Python threads at once.
+
+    Hessian ascent, polish and the Parisi solver make many small dense solves, which BLAS
+    threads slow down. threadpoolctl's limits are process-wide: entered from two threads
+    directly, the first to leave restored the old count while the second still ran, and the
+    second then "restored" the single thread it had found, which stayed for the rest of the
+    process. Here the first thread in sets the limit and the last one out restores it.
+    """
+    from threadpoolctl import threadpool_limits
+
+    global _blas_users, _blas_limits
+    with _blas_lock:
+        if _blas_users == 0:
+            _blas_limits = threadpool_limits(limits=1, user_api="blas")
+        _blas_users += 1
+    try:
+        yield
+    finally:
+        with _blas_lock:
+            _blas_users -= 1
+            if _blas_users == 0 and _blas_limits is not None:
+                _blas_limits.restore_original_limits()
+                _blas_limits = None

@@ -77,11 +77,11 @@ from typing import Any
 
 import numpy as np
 from scipy.sparse.linalg import LinearOperator
-from threadpoolctl import threadpool_limits
 
 from ..model.hamiltonian import Hamiltonian
 from ..model.memory import available_memory
 from ..model.mixture import Mixture
+from ..runtime import one_blas_thread
 from ..theory import algorithmic_energy, algorithmic_threshold, hessian_edge, path_energy
 from ._checks import (
     check_count,
@@ -291,7 +291,7 @@ def hessian_ascent(
     tangent_buf = None  # the restricted Hessian, one buffer for every step
     theta_scale = None
     fallbacks = 0
-    with threadpool_limits(limits=1, user_api="blas"):
+    with one_blas_thread():
         for i in range(n_moves + 1):
             if i == n_moves:  # the end point: its energy only (one pass, no Hessian)
                 add_row(step=i, stage=stage, q=float(x @ x), energy=ham.energy(x) / n)

@@ -45,10 +45,10 @@ from typing import Any
 import numpy as np
 import scipy.linalg
 from scipy.sparse.linalg import eigsh
-from threadpoolctl import threadpool_limits
 
 from ..model.hamiltonian import Hamiltonian
 from ..model.memory import available_memory
+from ..runtime import one_blas_thread
 from ._checks import check_count, check_flag, check_ham, check_positive, check_unit_start
 from ._config import base_config
 from ._newton import newton_refine
@@ -131,7 +131,7 @@ def polish(
     check = check_flag(check, "check")
     gtol = check_positive(gtol, "gtol")
     max_iter = check_count(max_iter, "max_iter", minimum=0)
-    with threadpool_limits(limits=1, user_api="blas"):  # see the module doc
+    with one_blas_thread():  # see the module doc
         return _polish(ham, x0, gtol, max_iter, check)
 
 

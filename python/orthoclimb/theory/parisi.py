@@ -64,6 +64,7 @@ from scipy.optimize import minimize
 
 from ..model.arrays import as_float_array
 from ..model.mixture import Mixture
+from ..runtime import one_blas_thread
 from ._checks import check_count, check_mixture, check_positive
 from .algorithmic import algorithmic_energy
 
@@ -781,14 +782,12 @@ def ground_state(
 
     Returns a :class:`GroundState` (value per spin, B, alpha, steps, convergence, gap to ALG).
     """
-    from threadpoolctl import threadpool_limits
-
     mixture = check_mixture(mixture, "ground_state")
     tol = check_positive(tol, "ground_state", "tol")
     initial_steps = check_count(initial_steps, "ground_state", "initial_steps", 1)
     max_steps = check_count(max_steps, "ground_state", "max_steps", initial_steps)
     max_rounds = check_count(max_rounds, "ground_state", "max_rounds", 1)
-    with threadpool_limits(limits=1, user_api="blas"):
+    with one_blas_thread():
         return _ground_state(mixture, tol, initial_steps, max_steps, max_rounds)
 
 
