@@ -107,6 +107,9 @@ def test_errors_while_writing_the_data_pass_through(tmp_path, monkeypatch):
         write_text_atomic(tmp_path / "a.txt", "x")
     assert not isinstance(info.value, OutputPathError) and info.value.errno == errno.ENOSPC
     assert list(tmp_path.iterdir()) == []
+    # it names the file being written (it named none), never the temporary
+    assert info.value.filename == str(tmp_path / "a.txt"), info.value
+    assert str(tmp_path / "a.txt") in str(info.value)
 
 
 def test_a_failing_cleanup_does_not_hide_the_first_error(tmp_path, monkeypatch):
@@ -197,3 +200,95 @@ def test_a_failed_command_keeps_a_folder_another_process_made(tmp_path, monkeypa
         ensure_folder(theirs / "sub")
         raise RuntimeError("refused")
     assert theirs.is_dir() and not (theirs / "sub").exists()  # ours removed, theirs kept
+
+
+def _fail_at_fsync(monkeypatch, which: int) -> None:
+    """Make the ``which``-th os.fsync of fileio (1-based) fail as a full disk does."""
+    import errno
+
+    import orthoclimb.fileio as fileio
+
+    calls = []
+    real = fileio.os.fsync
+
+    def fsync(fd):
+        calls.append(fd)
+        if len(calls) == which:
+            raise OSError(errno.ENOSPC, os.strerror(errno.ENOSPC))
+        real(fd)
+
+    monkeypatch.setattr(fileio.os, "fsync", fsync)
+
+
+@pytest.mark.parametrize("which", [1, 2])
+def test_a_pair_that_fails_to_write_keeps_the_old_pair(tmp_path, monkeypatch, which):
+    # A result is a .npz and a .json. The .npz used to replace the old one before the .json
+    # was written, so a full disk at the .json (which = 2) left a new .npz beside the old
+    # .json: neither result loaded. Both are now complete before either is renamed.
+    import orthoclimb as oc
+
+    ham = oc.Hamiltonian.sample(oc.Mixture({2: 1.0, 3: 0.5}), 12, seed=1)
+    old = oc.gradient_ascent(ham, seed=0, max_iter=3)
+    new = oc.gradient_ascent(ham, seed=1, max_iter=3)
+    old.save(tmp_path / "run")
+    _fail_at_fsync(monkeypatch, which)
+    with pytest.raises(OSError, match="No space left"):
+        new.save(tmp_path / "run")
+    monkeypatch.undo()
+    back = oc.load_result(tmp_path / "run")
+    assert np.array_equal(back.x, old.x) and not np.array_equal(back.x, new.x)
+    assert sorted(p.name for p in tmp_path.iterdir()) == ["run.json", "run.npz"]
+
+
+@pytest.mark.parametrize("which", [1, 2])
+def test_an_instance_pair_that_fails_to_write_keeps_the_old_pair(tmp_path, monkeypatch, which):
+    # the same for an instance of given coefficients (a .npz of coefficients and a .json)
+    import orthoclimb as oc
+
+    n = 6
+    size = n * (n + 1) // 2
+
+    def given(offset: float) -> oc.Hamiltonian:
+        return oc.Hamiltonian.from_coefficients(n, {2: np.arange(size) + offset})
+
+    given(0.0).save(tmp_path / "inst")
+    _fail_at_fsync(monkeypatch, which)
+    with pytest.raises(OSError, match="No space left"):
+        given(100.0).save(tmp_path / "inst")
+    monkeypatch.undo()
+    back = oc.load_instance(tmp_path / "inst")
+    assert np.array_equal(back.coefficients(2), np.arange(size, dtype=float))
+    assert sorted(p.name for p in tmp_path.iterdir()) == ["inst.json", "inst.npz"]
+
+
+def test_a_name_near_the_file_system_limit_can_be_written(tmp_path):
+    # The temporary file's name is the target's plus 14 bytes, so names of 242-255 bytes
+    # (which the file system takes) could not be written. It now starts with 32 characters
+    # of the target's only.
+    for name in ("a" * 250 + ".txt", "\u5b57" * 83 + ".txt"):  # 254 and 253 bytes
+        assert len(name.encode()) <= 255
+        target = write_text_atomic(tmp_path / name, "x")
+        assert target.read_text() == "x"
+    assert len(list(tmp_path.iterdir())) == 2
+
+
+@pytest.mark.skipif(os.name != "posix", reason="POSIX permission bits")
+def test_a_replaced_file_keeps_its_permissions(tmp_path):
+    # A user who made a result private (0600) found it 0644 again after the next save.
+    target = write_text_atomic(tmp_path / "private.txt", "first")
+    target.chmod(0o600)
+    write_text_atomic(target, "second")
+    assert stat.S_IMODE(target.stat().st_mode) == 0o600 and target.read_text() == "second"
+
+
+def test_a_path_too_long_for_the_system_is_a_clear_error(tmp_path):
+    # pathlib's is_dir() raised a bare OSError (name too long) for paths over 4096 bytes
+    import orthoclimb as oc
+    from orthoclimb.errors import InstanceFileError
+
+    long = tmp_path / (("d" * 200 + "/") * 25 + "inst")  # about 5,000 bytes
+    ham = oc.Hamiltonian.from_coefficients(3, {2: np.arange(6.0)})
+    with pytest.raises(OutputPathError, match="cannot be made"):
+        ham.save(long)
+    with pytest.raises(InstanceFileError, match="cannot load the instance file"):
+        oc.load_instance(long)

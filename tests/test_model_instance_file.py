@@ -18,7 +18,7 @@ import numpy as np
 import pytest
 
 import orthoclimb as oc
-from orthoclimb import _core
+from orthoclimb import _core, fileio
 from orthoclimb.errors import InstanceFileError, InsufficientMemoryError
 from orthoclimb.model import hamiltonian as ham_module
 from orthoclimb.model import instance_file, memory
@@ -401,7 +401,17 @@ def test_crash_between_the_two_files_is_detected(tmp_path, monkeypatch, rng):
     old = oc.Hamiltonian.from_coefficients(5, {2: rng.standard_normal(15)})
     old.save(tmp_path / "x")
     new = oc.Hamiltonian.from_coefficients(5, {2: rng.standard_normal(15)})
-    monkeypatch.setattr(instance_file, "write_json_atomic", _boom)
+    # both files are written before either is renamed; a crash between the two renames (a
+    # few system calls) leaves the new .npz beside the old .json
+    renames = []
+
+    def rename_once(src, dst):
+        renames.append(dst)
+        if len(renames) == 2:
+            _boom()
+        os.rename(src, dst)
+
+    monkeypatch.setattr(fileio.os, "replace", rename_once)
     with pytest.raises(OSError, match="simulated"):
         new.save(tmp_path / "x")  # the .npz is replaced, the .json is still the old one
     assert sorted(os.listdir(tmp_path)) == ["x.json", "x.npz"]

@@ -2,9 +2,11 @@
 
 Each writer creates a temporary file in the destination folder, writes and flushes it, then
 renames it over the destination (os.replace, atomic on POSIX and Windows). A crash at any
-moment leaves either the old file or the new one. The new file gets the permissions an
-ordinary ``open(path, "w")`` would give it (0666 less the process umask), not the private
-0600 of a temporary file.
+moment leaves either the old file or the new one. A file pair (an instance's or a result's
+.npz and .json) is written to two temporary files first and renamed only once both are
+complete, so a full disk or Ctrl-C while writing leaves the old pair whole. A new file gets
+the permissions an ordinary ``open(path, "w")`` would give it (0666 less the process umask),
+not the private 0600 of a temporary file; a replaced file keeps its own.
 """
 
 from __future__ import annotations
@@ -14,8 +16,9 @@ import hashlib
 import json
 import math
 import os
+import stat
 import tempfile
-from collections.abc import Callable, Iterator
+from collections.abc import Callable, Iterator, Sequence
 from contextvars import ContextVar
 from pathlib import Path
 from typing import IO, Any
@@ -116,38 +119,98 @@ def ensure_folder(path: str | os.PathLike, what: str = "output folder") -> Path:
     return folder
 
 
+def is_folder(path: str | os.PathLike) -> bool:
+    """Whether a folder stands at ``path``; False where the system cannot tell (a name too
+    long), so that the write or read that follows reports the problem with its path."""
+    try:
+        return Path(path).is_dir()
+    except OSError:
+        return False
+
+
 def write_atomic(path: str | os.PathLike, write: Callable[[IO[bytes]], None]) -> Path:
     """Create or replace `path` with what `write(fh)` writes to a binary file handle.
 
     A destination that cannot be written (a folder stands at it, the file system refuses the
     temporary file or the rename) raises :class:`~orthoclimb.errors.OutputPathError` naming
-    `path`, never the temporary file, with the OS error's ``errno``. Errors while the data are
-    written (those of ``write`` itself, a full disk at flush or fsync) pass through unchanged."""
-    dest = Path(path)
+    `path`, never the temporary file, with the OS error's ``errno``. An OS error while the
+    data are written (a full disk or a quota at write, flush or fsync) is no bad path: it
+    keeps its type and errno and gets `path` as its file name, where it names none. Other
+    errors of ``write`` pass through unchanged."""
+    return write_all_atomic([(path, write)])[0]
+
+
+def write_all_atomic(
+    files: Sequence[tuple[str | os.PathLike, Callable[[IO[bytes]], None]]],
+) -> list[Path]:
+    """:func:`write_atomic` for several files that belong together: every file is written to
+    a temporary file first, in order (so a later writer may use what an earlier one noted),
+    and only when all are complete are they renamed into place, in order. An error or Ctrl-C
+    while writing removes the temporary files and leaves every old file as it was. (A crash
+    between the renames, a few system calls, can still pair a new first file with an old
+    second one; the loaders' checksums tell.)"""
+    staged: list[tuple[str, Path]] = []
+    try:
+        for path, write in files:
+            dest = Path(path)
+            staged.append((_stage(dest, write), dest))
+        while staged:
+            tmp, dest = staged[0]
+            try:
+                os.replace(tmp, dest)
+            except OSError as exc:
+                raise _path_error(f"cannot write {str(dest)!r}", exc) from exc
+            staged.pop(0)
+    except BaseException:
+        for tmp, _ in staged:
+            try:
+                os.unlink(tmp)
+            except OSError:  # gone already, or the file system refuses: keep the first error
+                pass
+        raise
+    return [Path(path) for path, _ in files]
+
+
+def _stage(dest: Path, write: Callable[[IO[bytes]], None]) -> str:
+    """Write a temporary file beside ``dest`` with ``write`` and return its path (see
+    :func:`write_atomic` for the errors). Its name starts with the first 32 characters of
+    ``dest``'s, so a name near the file system's limit of 255 bytes still fits."""
     ensure_folder(dest.parent, f"the folder of {str(dest)!r},")
-    if dest.is_dir():
+    if is_folder(dest):
         raise OutputPathError(f"cannot write {str(dest)!r}: it is a folder; give a file name")
     try:
-        fd, tmp = tempfile.mkstemp(dir=dest.parent, prefix=f".{dest.name}.", suffix=".tmp")
+        fd, tmp = tempfile.mkstemp(dir=dest.parent, prefix=f".{dest.name[:32]}.", suffix=".tmp")
     except OSError as exc:
         raise _path_error(f"cannot write {str(dest)!r}", exc) from None
     try:
         with os.fdopen(fd, "wb") as fh:
-            write(fh)
-            fh.flush()
-            os.fsync(fh.fileno())
+            try:
+                write(fh)
+                fh.flush()
+                os.fsync(fh.fileno())
+            except OSError as exc:  # a full disk, a quota, a file size limit
+                if exc.filename is not None:
+                    raise
+                raise OSError(exc.errno, exc.strerror or str(exc), str(dest)) from exc
         try:
-            os.chmod(tmp, 0o666 & ~_umask())
-            os.replace(tmp, dest)
+            os.chmod(tmp, _mode_for(dest))
         except OSError as exc:
             raise _path_error(f"cannot write {str(dest)!r}", exc) from exc
     except BaseException:
         try:
             os.unlink(tmp)
-        except OSError:  # gone already, or the file system refuses: keep the first error
+        except OSError:
             pass
         raise
-    return dest
+    return tmp
+
+
+def _mode_for(dest: Path) -> int:
+    """The permissions of the file ``dest`` being replaced, else those of a new file."""
+    try:
+        return stat.S_IMODE(os.stat(dest).st_mode)
+    except OSError:
+        return 0o666 & ~_umask()
 
 
 def _path_error(what: str, exc: OSError) -> OutputPathError:
@@ -172,12 +235,12 @@ def output_pair_paths(path: str | os.PathLike, example: str) -> tuple[Path, Path
     standing at either file of the pair, before anything is written (the .npz was written,
     replacing an older one, before the .json was found to be a folder)."""
     text = os.fspath(path)
-    if Path(text).is_dir() or text.endswith(("/", os.sep)):
+    if is_folder(text) or text.endswith(("/", os.sep)):
         inside = str(Path(text) / example)
         raise OutputPathError(f"{text!r} is a folder; give a file stem in it, e.g. {inside!r}")
     pair = pair_paths(text)
     for member in pair:  # both checked before either is written
-        if member.is_dir():
+        if is_folder(member):
             raise OutputPathError(f"cannot write {str(member)!r}: it is a folder; give a file name")
     return pair
 
@@ -210,10 +273,16 @@ def json_text(data: Any, indent: int | None = 2) -> str:
     return json.dumps(finite_json(data), indent=indent, allow_nan=False)
 
 
+def json_writer(data: Any) -> Callable[[IO[bytes]], None]:
+    """A writer for :func:`write_atomic` of the JSON file of ``data`` (strict JSON,
+    :func:`json_text`; indented, keys in insertion order)."""
+    text = (json_text(data) + "\n").encode("utf-8")
+    return lambda fh: fh.write(text)
+
+
 def write_json_atomic(path: str | os.PathLike, data: Any) -> Path:
-    """Create or replace a JSON file atomically (strict JSON, :func:`json_text`; indented,
-    keys in insertion order)."""
-    return write_text_atomic(path, json_text(data) + "\n")
+    """Create or replace a JSON file atomically (:func:`json_writer`)."""
+    return write_atomic(path, json_writer(data))
 
 
 def save_figure_atomic(fig: Any, path: str | os.PathLike, **kwargs: Any) -> Path:

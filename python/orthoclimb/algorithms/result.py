@@ -33,12 +33,12 @@ from ..fileio import (
     envelope,
     finite_json,
     json_digest,
+    json_writer,
     open_envelope,
     output_pair_paths,
     pair_paths,
     parse_json,
-    write_atomic,
-    write_json_atomic,
+    write_all_atomic,
 )
 
 __all__ = ["FORMAT_VERSION", "Result", "load_result"]
@@ -134,8 +134,7 @@ class Result:
         payload = self.payload()
         doc = envelope(FORMAT, FORMAT_VERSION, payload)
         x = np.asarray(self.x, dtype=np.float64)
-        write_atomic(npz_path, lambda fh: np.savez(fh, x=x))
-        write_json_atomic(json_path, doc)
+        write_all_atomic([(npz_path, lambda fh: np.savez(fh, x=x)), (json_path, json_writer(doc))])
         return json_path, npz_path
 
     def __repr__(self) -> str:

@@ -53,11 +53,13 @@ from .. import _core
 from ..errors import InstanceFileError, InsufficientMemoryError
 from ..fileio import (
     envelope,
+    is_folder,
+    json_writer,
     open_envelope,
     output_pair_paths,
     pair_paths,
     parse_json,
-    write_atomic,
+    write_all_atomic,
     write_json_atomic,
 )
 from .arrays import as_flag
@@ -178,13 +180,17 @@ def save_instance(
             "orthoclimb_version": _version(),
             "fingerprint": _fingerprint(ham),
         }
-        written: tuple[Path, ...] = (json_path,)
-    else:
-        if check_memory:
-            need = 8 * max(_degree_size(ham.n, p) for p in ham.degrees)
-            require_memory(need, "reading the coefficients to save them")
-        arrays_info: dict[str, dict[str, Any]] = {}
-        write_atomic(npz_path, lambda fh: arrays_info.update(_write_npz(fh, ham)))
+        write_json_atomic(json_path, envelope(FORMAT, FORMAT_VERSION, payload))
+        return (json_path,)
+    if check_memory:
+        need = 8 * max(_degree_size(ham.n, p) for p in ham.degrees)
+        require_memory(need, "reading the coefficients to save them")
+    arrays_info: dict[str, dict[str, Any]] = {}
+
+    def write_npz(fh: IO[bytes]) -> None:
+        arrays_info.update(_write_npz(fh, ham))
+
+    def write_json(fh: IO[bytes]) -> None:  # after the .npz is written to its temporary file
         payload = {
             "kind": "coefficients",
             **common,
@@ -192,9 +198,11 @@ def save_instance(
             "npz": npz_path.name,
             "arrays": dict(arrays_info),
         }
-        written = (json_path, npz_path)
-    write_json_atomic(json_path, envelope(FORMAT, FORMAT_VERSION, payload))
-    return written
+        json_writer(envelope(FORMAT, FORMAT_VERSION, payload))(fh)
+
+    # both files complete before either replaces an old one (fileio.write_all_atomic)
+    write_all_atomic([(npz_path, write_npz), (json_path, write_json)])
+    return json_path, npz_path
 
 
 # -- loading ------------------------------------------------------------------------------
@@ -400,7 +408,7 @@ def load_instance(path: str | os.PathLike, check_memory: bool = True) -> Hamilto
     :class:`~orthoclimb.errors.InstanceFileError` naming the file and the problem.
     """
     check_memory = as_flag(check_memory, "check_memory")
-    if Path(path).is_dir():
+    if is_folder(path):
         raise _fail(
             Path(path), "it is a folder; give the instance's file (NAME.json) or its stem NAME"
         )
