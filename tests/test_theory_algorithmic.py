@@ -83,6 +83,20 @@ def test_path_energy_against_quad(mixture):
         assert path_energy(mixture, q) == pytest.approx(expected, rel=1e-11, abs=1e-13)
 
 
+@pytest.mark.parametrize("gammas", [{2: 1e-3, 6: 1.0}, {2: 1e-4, 7: 1.0}, {2: 1.0, 4: 0.3}])
+@pytest.mark.parametrize("scale", [1e-20, 1e-8, 1e8])
+def test_alg_is_linear_in_the_scale_of_the_gammas(gammas, scale):
+    # Every gamma times c multiplies xi by c^2, so ALG = int_0^1 sqrt(xi'') (Subag 2018) is
+    # multiplied by c exactly. With an absolute error bound the integral stopped early for
+    # small c and a dominant high degree (relative error 1.6e-10 at c = 1e-20).
+    unscaled = Mixture(gammas)
+    reference, _ = quad(
+        lambda s: math.sqrt(unscaled.xi(s, 2)), 0.0, 1.0, epsabs=0.0, epsrel=1e-13, limit=200
+    )
+    scaled = Mixture({p: g * scale for p, g in gammas.items()})
+    assert algorithmic_energy(scaled) / scale == pytest.approx(reference, rel=1e-12)
+
+
 @pytest.mark.parametrize("mixture", MIXTURES, ids=repr)
 def test_path_energy_is_alg_of_the_restricted_polynomial(mixture):
     # On the sphere of radius sqrt(q) the polynomial has mixture r -> xi(q r), i.e. gammas

@@ -76,7 +76,7 @@ def _sqrt_curvature_integral(mixture: Mixture, q: np.ndarray) -> np.ndarray:
         s = q * (t * t)
         return 2.0 * q * t * np.sqrt(np.maximum(mixture.xi(s, 2), 0.0))
 
-    value, _err = quad_vec(integrand, 0.0, 1.0, epsabs=1e-14, epsrel=1e-13, norm="max")
+    value, _err = quad_vec(integrand, 0.0, 1.0, epsabs=0.0, epsrel=1e-13, norm="max")
     return np.asarray(value, dtype=np.float64)
 
 
