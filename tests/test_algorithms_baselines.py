@@ -390,3 +390,59 @@ def test_a_stall_far_from_a_critical_point_is_no_local_maximum():
     assert res.info["status"] == "stalled" and res.info["grad_norm"] > 1e-4
     assert top - res.energy > 1e-5 and res.info["n_positive"] == 0
     assert res.info["local_max"] is False
+
+
+def _tangent_eigenvalues(ham, x):
+    """The n - 1 eigenvalues (descending) of the Riemannian Hessian P (Hess - x.grad I) P on
+    the tangent space at the unit vector x, from an explicit orthonormal basis of that space
+    (scipy.linalg.null_space) and scipy.linalg.eigvalsh: independent of the package's shift."""
+    _e, g = ham.energy_and_gradient(x)
+    basis = scipy.linalg.null_space(x[None, :])
+    restricted = basis.T @ (ham.hessian(x) - float(x @ g) * np.eye(ham.n)) @ basis
+    return scipy.linalg.eigvalsh(restricted)[::-1]
+
+
+@pytest.mark.parametrize("n", [20, 60])
+def test_the_check_runs_matrix_free_when_the_dense_hessian_does_not_fit(monkeypatch, n):
+    # The check always built the dense n x n Hessian, so a run that had chosen matrix-free
+    # products for lack of memory ran to its end and then failed in its last step. With
+    # 16 KiB "available" (less than the dense check's arrays) it now uses Hessian-vector
+    # products; the Hessian itself is refused as it is at large n (its own check starts at
+    # 64 MiB).
+    import importlib
+
+    polish_module = importlib.import_module("orthoclimb.algorithms.polish")
+    ascent_module = importlib.import_module("orthoclimb.algorithms.hessian_ascent")
+    memory_module = importlib.import_module("orthoclimb.model.memory")
+    ham = oc.Hamiltonian.sample(oc.Mixture({2: 0.5, 3: 1.0}), n, seed=4)
+    x = np.random.default_rng(1).standard_normal(n)
+    x /= np.linalg.norm(x)
+    want = _tangent_eigenvalues(ham, x)
+
+    def refuse(self, x, **kwargs):
+        raise oc.errors.InsufficientMemoryError(f"the Hessian of n = {self.n} does not fit")
+
+    for module in (polish_module, ascent_module, memory_module):
+        monkeypatch.setattr(module, "available_memory", lambda: 16 * 1024)
+    monkeypatch.setattr(oc.Hamiltonian, "hessian", refuse)
+    spec = tangent_spectrum(ham, x)
+    assert spec["top_eigenvalue"] == pytest.approx(want[0] / n, rel=1e-9)
+    assert spec["n_positive"] == min(int(np.count_nonzero(want > 0)), 10 if n > 40 else n)
+    assert spec["exhaustive"] == (n <= 40)
+    run = oc.hessian_ascent(ham, steps=5, seed=0)
+    assert run.info["hessian_mode"] == "operator" and run.info["local_max"] in (True, False)
+    # a quadratic's constant Hessian was taken dense whatever the memory
+    quadratic = oc.Hamiltonian.sample(oc.Mixture({2: 1.0}), n, seed=4)
+    assert oc.hessian_ascent(quadratic, steps=3, seed=0).info["hessian_mode"] == "operator"
+    monkeypatch.undo()
+    assert run.info["n_positive"] == tangent_spectrum(ham, run.x)["n_positive"]
+
+
+def test_the_lanczos_check_gives_the_same_numbers_every_time():
+    # Above 3000 spins the check runs Lanczos; ARPACK's own start vector is random, so three
+    # checks of one point differed in the 15th digit. It now starts from a fixed vector.
+    n = 3001
+    ham = oc.Hamiltonian.sample(oc.Mixture({2: 1.0}), n, seed=1)
+    x = np.random.default_rng(0).standard_normal(n)
+    tops = {tangent_spectrum(ham, x)["top_eigenvalue"] for _ in range(3)}
+    assert len(tops) == 1, tops

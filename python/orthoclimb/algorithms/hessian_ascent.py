@@ -170,8 +170,6 @@ def _choose_mode(ham: Hamiltonian, mode: str) -> str:
         raise ValueError(f"hessian must be one of {HESSIAN_MODES}, got {mode!r}")
     if mode != "auto":
         return mode
-    if max(ham.degrees) <= 2:
-        return "dense"
     need = ham.hessian_workspace_nbytes + _WORKING_COPIES * ham.n * ham.n * 8
     return "dense" if need <= available_memory() // 2 else "operator"
 
