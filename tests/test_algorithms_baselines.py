@@ -446,3 +446,14 @@ def test_the_lanczos_check_gives_the_same_numbers_every_time():
     x = np.random.default_rng(0).standard_normal(n)
     tops = {tangent_spectrum(ham, x)["top_eigenvalue"] for _ in range(3)}
     assert len(tops) == 1, tops
+
+
+def test_the_returned_iteration_is_a_row_of_the_path():
+    # When backtracking gave up (a stall at rounding level), the iteration counter had moved
+    # on without a row: at gamma = 1e100 returned_iteration was 1 with only row 0 in the path.
+    ham = oc.Hamiltonian.sample(oc.Mixture({3: 1e100}), 30, seed=1)
+    with pytest.warns(RuntimeWarning):  # the scale warning
+        run = oc.gradient_ascent(ham)
+    assert run.info["status"] == "stalled"
+    assert run.info["returned_iteration"] in set(run.path["iteration"].tolist())
+    assert run.info["iterations"] == int(run.path["iteration"][-1])

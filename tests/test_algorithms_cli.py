@@ -302,3 +302,11 @@ def test_a_plan_without_hessian_steps_does_not_time_a_hessian(tmp_path, capsys):
     out = capsys.readouterr().out
     assert "no Hessian step: the field stage ends on the sphere; the polish takes" in out
     assert "one Hessian pass" not in out
+
+
+def test_climb_with_one_step_says_why_there_is_no_hessian_step(tmp_path, capsys):
+    # without a field, steps = 1 was explained by "the field stage ends on the sphere"
+    args = ["climb", "--gammas", "3:1", "--n", "30", "--steps", "1", "--out", str(tmp_path)]
+    assert main(args) == 0
+    out = capsys.readouterr().out
+    assert "no Hessian step: --steps 1 has none" in out and "field stage" not in out

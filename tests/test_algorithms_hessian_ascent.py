@@ -519,3 +519,60 @@ def test_the_run_and_the_plan_agree_on_the_number_of_hessian_steps(tmp_path, cap
     assert "no Hessian step: the field stage ends on the sphere" in capsys.readouterr().out
     # without a field every one of the K - 1 moves is a Hessian step
     assert oc.algorithms.hessian_moves(oc.Mixture({3: 1.0}), 10) == 9
+
+
+def test_a_field_too_large_for_the_norm_still_starts_on_its_direction():
+    # |h| overflowed for n gamma_1 above about 1e154: the start became 0 and the first stage
+    # divided by zero (the mixture is accepted, with a warning about its scale)
+    ham = oc.Hamiltonian.sample(oc.Mixture({1: 1e153, 3: 1.0}), 100, seed=1)
+    with pytest.warns(RuntimeWarning):
+        run = oc.hessian_ascent(ham, steps=5, seed=0, polish=False)
+    h = ham.coefficients(1)
+    assert float(run.x @ (h / np.abs(h).max())) > 0.0 and np.isfinite(run.energy)
+    assert abs(float(np.linalg.norm(run.x)) - 1.0) < 1e-12
+
+
+def test_path_radii_stay_in_the_unit_ball_and_feed_the_theory():
+    # |x|^2 rounded to 1.0000000000000002 on the sphere, which path_energy then refused
+    ham = oc.Hamiltonian.sample(oc.Mixture({3: 1.0}), 12, seed=2)
+    run = oc.hessian_ascent(ham, steps=7, seed=4, polish=False)
+    assert np.all(run.path["q"] <= 1.0)
+    oc.theory.path_energy(oc.Mixture({3: 1.0}), run.path["q"])
+
+
+def test_the_callback_sees_the_rows_the_result_keeps():
+    # the predicted columns were NaN in the callback's rows, filled in only after the loop
+    mix = oc.Mixture({1: 0.3, 3: 1.0})
+    ham = oc.Hamiltonian.sample(mix, 40, seed=3)
+    seen = []
+    run = oc.hessian_ascent(ham, steps=8, seed=1, polish=False, callback=seen.append)
+    assert len(seen) >= 5
+    for i, row in enumerate(seen):
+        for column in (
+            "q",
+            "energy",
+            "predicted_energy",
+            "predicted_energy_steps",
+            "predicted_edge",
+        ):
+            assert row[column] == pytest.approx(run.path[column][i], rel=1e-12, abs=1e-15), column
+
+
+def test_a_tol_large_against_the_mixture_is_warned_of():
+    # tol is absolute: at gamma = 1e-3 the default 1e-3 lets a run lose 31 % of ALG
+    small = oc.Hamiltonian.sample(oc.Mixture({3: 1e-3}), 30, seed=1)
+    with pytest.warns(RuntimeWarning, match="% of ALG"):
+        oc.hessian_ascent(small, steps=3, seed=0, polish=False)
+    import warnings
+
+    with warnings.catch_warnings():
+        warnings.simplefilter("error")
+        oc.hessian_ascent(small, steps=3, seed=0, polish=False, tol=1e-5)
+        unit = oc.Hamiltonian.sample(oc.Mixture({3: 1.0}), 30, seed=1)
+        oc.hessian_ascent(unit, steps=3, seed=0, polish=False)
+
+
+@pytest.mark.parametrize(("bad", "error"), [(None, TypeError), (2.7, TypeError), (-4, ValueError)])
+def test_auto_steps_refuses_what_is_no_size(bad, error):
+    with pytest.raises(error, match="n must be"):
+        oc.algorithms.auto_steps(bad)

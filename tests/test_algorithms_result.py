@@ -145,3 +145,31 @@ def test_repr_of_a_hand_made_result_without_numbers():
 
     res = Result(np.ones(3) / 3**0.5, None, {}, {"method": "x", "n": 3}, None, {})
     assert repr(res) == "Result(method='x', n=3, energy=None, rows=0, seconds=None)"
+
+
+def test_an_edited_file_with_a_ragged_path_is_a_clear_error(result, tmp_path):
+    # a file edited by hand (checksum recomputed) whose path column lost a row raised NumPy's
+    # bare ValueError instead of an error naming the file
+    from orthoclimb.fileio import json_digest
+
+    json_path, _ = result.save(tmp_path / "run")
+    doc = json.loads(json_path.read_text())
+    doc["payload"]["path"]["energy"] = [[1.0, 2.0], [3.0]]
+    doc["sha256"] = json_digest(doc["payload"])
+    json_path.write_text(json.dumps(doc))
+    with pytest.raises(ResultFileError, match="run.json.*path column"):
+        oc.load_result(json_path)
+
+
+def test_a_polish_records_which_start_point_it_had():
+    # the start point is the caller's and not stored; its digest lets a rerun check it
+    import hashlib
+
+    ham = oc.Hamiltonian.sample(oc.Mixture({3: 1.0}), 12, seed=1)
+    start = np.arange(1.0, 13.0)
+    unit = start / 12.0  # normalized as documented: by the largest |entry|, then the norm
+    unit /= np.linalg.norm(unit)
+    run = oc.polish(ham, start)
+    want = hashlib.sha256(unit.astype("<f8").tobytes()).hexdigest()
+    assert run.config["start_sha256"] == want
+    assert oc.polish(ham, -start).config["start_sha256"] != want

@@ -116,6 +116,7 @@ def sphere_ascent(
                 break
             a *= 0.5
         else:  # no ascent even for a tiny step: rounding level
+            it -= 1  # no iteration was made (and the path has no row for it)
             status = "stalled"
             break
         s = y - x

@@ -123,6 +123,7 @@ _COLUMNS = (
 def auto_steps(n: int) -> int:
     """The default number of steps K for n spins: n // 8, at least 25 and at most 200 (see
     "Finite n" in the module doc for the measurements behind it)."""
+    n = check_count(n, "n", minimum=1)
     return int(min(200, max(25, n // 8)))
 
 
@@ -179,6 +180,55 @@ def _tangent_operator(ham: Hamiltonian, x: np.ndarray, basis: TangentBasis) -> L
     return basis.restrict_operator(lambda v: ham.hvp(x, v))
 
 
+def _predictions(mixture: Mixture, qs: np.ndarray, q_hat: float) -> dict[str, np.ndarray]:
+    """The predicted columns of the path rows at radii^2 ``qs`` (in [0, 1]): E_path(q), the
+    run's own steps' prediction and the edge 2 sqrt(xi''(q)) (see :func:`hessian_ascent`)."""
+    energy = np.asarray(path_energy(mixture, qs), dtype=np.float64)
+    # stage 1 ends near its predicted maximum E_path(q_hat); a random start has energy ~0
+    start = float(energy[0]) if q_hat > 0.0 else 0.0
+    return {
+        "predicted_energy": energy,
+        "predicted_energy_steps": _stepwise_energy(mixture, qs, start),
+        "predicted_edge": np.asarray(hessian_edge(mixture, qs), dtype=np.float64),
+    }
+
+
+# Share of ALG above which the most a run may lose to its eigen tolerance, tol/2, is warned of.
+_COARSE_SHARE = 0.01
+
+
+def _warn_if_coarse(mixture: Mixture | None, delta: float) -> None:
+    """Warn when tol/2, the energy per spin a run may lose to inexact eigenvectors, exceeds
+    1 % of ALG: tol is absolute, so at gamma = 1e-3 (pure 3-spin) the default 1e-3 is 31 % of
+    ALG, and the energy reached per gamma fell by about 2 % (a review)."""
+    if mixture is None:
+        return
+    alg = float(algorithmic_energy(mixture))
+    if delta / 2.0 > _COARSE_SHARE * alg:
+        warnings.warn(
+            f"hessian_ascent: tol = {delta:.3g} lets the run lose up to tol/2 ="
+            f" {delta / 2:.3g} energy per spin, {50 * delta / alg:.3g} % of ALG = {alg:.3g};"
+            f" tol is absolute: pass one in proportion to the mixture's scale (tol ="
+            f" {2 * _COARSE_SHARE * alg:.2g} for 1 %)",
+            RuntimeWarning,
+            stacklevel=3,
+        )
+
+
+def _last_predictions(mixture: Mixture, q_rows: list[float], q_hat: float) -> dict[str, float]:
+    """:func:`_predictions` of the last of the rows so far (for the callback), with one
+    integral for E_path rather than one per row."""
+    qs = np.clip(np.asarray(q_rows, dtype=np.float64), 0.0, 1.0)
+    ends = qs[[0, -1]]
+    energy = np.asarray(path_energy(mixture, ends), dtype=np.float64)
+    start = float(energy[0]) if q_hat > 0.0 else 0.0
+    return {
+        "predicted_energy": float(energy[-1]),
+        "predicted_energy_steps": float(_stepwise_energy(mixture, qs, start)[-1]),
+        "predicted_edge": float(hessian_edge(mixture, qs[-1])),
+    }
+
+
 def _edge_growth(mixture: Mixture | None, q: float, q_next: float) -> float:
     """hessian_edge(q_next) / hessian_edge(q), at least 1 (1 without a mixture or edge)."""
     if mixture is None:
@@ -191,6 +241,7 @@ def _edge_growth(mixture: Mixture | None, q: float, q_next: float) -> float:
 def _first_stage(ham: Hamiltonian, q_hat: float, max_iter: int) -> tuple[np.ndarray, dict]:
     """Maximize H on |x| = sqrt(q_hat) from the field direction (see the module doc)."""
     h = ham.coefficients(1)
+    h = h / np.abs(h).max()  # |h| overflows for n gamma_1 above about 1e154
     start = h / np.linalg.norm(h)
     trace = sphere_ascent(ham, start, radius=math.sqrt(q_hat), gtol=1e-8, max_iter=max_iter)
     return trace.x, {
@@ -219,7 +270,10 @@ def hessian_ascent(
     Parameters: ``steps`` K >= 1 (K - 1 Hessian steps; default ``auto_steps(n)`` = n/8 clamped
     to [25, 200]); ``tol`` delta > 0, the accepted gap
     between the Rayleigh quotient of the step direction and the top tangent eigenvalue, per spin
-    (each step then loses at most delta/(2K) energy per spin, the whole run at most delta/2);
+    (each step then loses at most delta/(2K) energy per spin, the whole run at most delta/2,
+    as long as Lanczos finds the top eigenvalue, which it does not certify: a review saw 1
+    step in 3324 stop on the second, see ``_eigen``; a warning says when delta/2 exceeds 1 %
+    of ALG, since delta is absolute);
     ``seed`` the start direction (and the first Lanczos start vector); ``polish`` finish with
     :func:`orthoclimb.polish` and the local-maximum check; ``callback(row)`` is called after
     every step with the path row (a dict); ``hessian`` "auto", "dense" or "operator" (see the
@@ -240,6 +294,7 @@ def hessian_ascent(
     warn_if_far_scale(ham, "hessian_ascent")
     k = auto_steps(ham.n) if steps is None else check_count(steps, "steps")
     delta = check_positive(tol, "tol")
+    _warn_if_coarse(ham.mixture, delta)
     seed = check_seed(seed)
     polish = check_flag(polish, "polish")
     if callback is not None and not callable(callback):
@@ -351,7 +406,10 @@ def hessian_ascent(
                 t_eigen=t_eig,
             )
             if callback is not None:
-                callback({c: rows[c][-1] for c in _COLUMNS})
+                row = {c: rows[c][-1] for c in _COLUMNS}
+                if mixture is not None:  # the path's predictions, as the Result will have them
+                    row.update(_last_predictions(mixture, rows["q"], q_hat))
+                callback(row)
             x = x + eps * v
             v_prev = v
             stage = 2
@@ -360,13 +418,9 @@ def hessian_ascent(
     path = {c: np.asarray(rows[c], dtype=np.float64) for c in _COLUMNS}
     path["step"] = path["step"].astype(np.int64)
     path["stage"] = path["stage"].astype(np.int64)
-    qs = np.clip(path["q"], 0.0, 1.0)
+    path["q"] = np.clip(path["q"], 0.0, 1.0)  # |x|^2 rounds to 1 + 2e-16 on the sphere
     if mixture is not None:
-        path["predicted_energy"] = np.asarray(path_energy(mixture, qs), dtype=np.float64)
-        # stage 1 ends near its predicted maximum E_path(q_hat); a random start has energy ~0
-        start = float(path["predicted_energy"][0]) if q_hat > 0.0 else 0.0
-        path["predicted_energy_steps"] = _stepwise_energy(mixture, qs, start)
-        path["predicted_edge"] = np.asarray(hessian_edge(mixture, qs), dtype=np.float64)
+        path.update(_predictions(mixture, path["q"], q_hat))
     norm = float(np.linalg.norm(x))
     x = x / norm
     e_ascent = float(path["energy"][-1])

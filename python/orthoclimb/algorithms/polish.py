@@ -44,6 +44,7 @@ machine grows with n: the check's eigvalsh took 0.08-0.10 s against 0.11-0.14 at
 
 from __future__ import annotations
 
+import hashlib
 import time
 from typing import Any
 
@@ -245,7 +246,9 @@ def _polish(ham: Hamiltonian, x0: np.ndarray, gtol: float, max_iter: int, check:
     }
     if check:
         info.update(local_max_info(ham, x, is_critical(gnorm, gtol, status, energy)))
-    config = base_config(ham, "polish", gtol=gtol, max_iter=max_iter)
+    # the start point is the caller's (too large for the config): its digest identifies it
+    start_digest = hashlib.sha256(np.ascontiguousarray(x0, dtype="<f8").tobytes()).hexdigest()
+    config = base_config(ham, "polish", gtol=gtol, max_iter=max_iter, start_sha256=start_digest)
     path = {k: np.asarray(v) for k, v in rows.items()}
     return Result(x, energy, path, config, time.perf_counter() - start, info)
 

@@ -76,7 +76,10 @@ class Result:
     Attributes: ``x`` the final unit vector (|x| = 1), ``energy`` the energy per spin H(x)/n at
     x, ``path`` the per-step table (column name -> 1-D NumPy array), ``config`` everything needed
     to reproduce the run (mixture, n, seeds, steps, tol, dtype, version, threads, kernel path,
-    method), ``seconds`` the wall-clock time of the run, ``info`` method-specific diagnostics
+    method; for :func:`~orthoclimb.polish`, whose start point is the caller's, ``start_sha256``
+    the SHA-256 of the unit vector it started from, little-endian float64, the point divided by
+    its largest |entry| and then by its norm: keep the point to rerun),
+    ``seconds`` the wall-clock time of the run, ``info`` method-specific diagnostics
     (polish outcome, local-maximum check, ALG reached or not, ...).
     """
 
@@ -216,7 +219,10 @@ def load_result(path: str | os.PathLike) -> Result:
         raise _fail(npz_path, f"unreadable (truncated or corrupted?): {exc}") from None
     if list(x.shape) != payload.get("x_shape") or _x_digest(x) != payload.get("x_sha256"):
         raise _fail(npz_path, "x does not match the digest recorded in the JSON file")
-    path_table = {k: _column(v) for k, v in payload.get("path", {}).items()}
+    try:
+        path_table = {k: _column(v) for k, v in payload.get("path", {}).items()}
+    except (TypeError, ValueError) as exc:  # rows of unequal length, text, nested lists
+        raise _fail(json_path, f"a path column is not a list of numbers: {exc}") from None
     energy = payload["energy"]
     return Result(
         x=x,

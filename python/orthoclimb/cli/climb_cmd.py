@@ -162,7 +162,8 @@ def _run_estimate(
         what = f"{moves} Hessian steps" + (" and the polish" if polish else "")
         if moves == 0:
             polish_time = f"; the polish takes about {seconds_text(run)}" if polish else ""
-            return f"no Hessian step: the field stage ends on the sphere{polish_time}"
+            why = "--steps 1 has none" if steps == 1 else "the field stage ends on the sphere"
+            return f"no Hessian step: {why}{polish_time}"
         return (
             f"one Hessian pass: {seconds_text(hess)}; estimated run time about"
             f" {seconds_text(run)} ({what})"
