@@ -468,6 +468,33 @@ def test_with_q_hat_near_1_alpha_gets_its_jump_near_1(mixture):
 
 
 @pytest.mark.parametrize(
+    ("gammas", "scale", "tol"),
+    [
+        ({1: 6.9, 8: 1.0}, 1.0, 1e-10),
+        ({1: 6.8919, 8: 1.0}, 1.0, 1e-10),
+        ({1: 1.73, 3: 1.0}, 1.0, 1e-10),
+        ({1: 6.891898311677078, 8: 1.0}, 100.0, 1e-6),
+    ],
+    ids=str,
+)
+def test_with_q_hat_within_2e_3_of_1_the_jump_is_found(gammas, scale, tol):
+    # Closer to 1 than the mixtures above (1 - q_hat = 1.2e-3 to 1.5e-3), the solve left the
+    # needed jump at a height of 1.8e-8 and kept the replica-symmetric value, reporting
+    # converged 1.8e-8 to 3.8e-8 above the one-jump optimum at tol 1e-10, and 3.8e-6 above
+    # it at the default tol with the gammas scaled by 100 (a review). The reference is
+    # computed unscaled (P is linear in the scale of the gammas).
+    unscaled = Mixture(gammas)
+    assert 0.998 < algorithmic_threshold(unscaled) < 0.999
+    ref, place = _one_jump_reference(unscaled, t_starts=(6.0, 7.0))
+    assert 0.998 < place < 0.9995
+    mixture = Mixture({p: scale * g for p, g in gammas.items()})
+    ref *= scale
+    gs = ground_state(mixture, tol=tol)
+    assert gs.converged and gs.alpha.max() > 0.0
+    assert gs.value <= ref + tol, (gs.value - ref, gs.n_steps)
+
+
+@pytest.mark.parametrize(
     "gammas",
     [
         {1: 0.2, 4: 1.0},

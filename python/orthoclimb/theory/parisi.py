@@ -95,6 +95,8 @@ _MOVE_FRACTIONS = (1.0, 0.5, 0.25, 0.125)
 _TIDY_RTOL = 1e-6
 # Numbers of freely placed jumps tried against the grid's alpha at the end (_few_jumps).
 _FEW_JUMPS = (1, 2)
+# Least first move of each coordinate in the jump fit's Nelder-Mead (_fit_jumps).
+_SIMPLEX_STEP = 0.05
 # Most steps added to a fitted alpha while each still lowers P by more than tol (_confirm_fit).
 _CONFIRM_STEPS = 8
 # Points per piece where D is sampled next to a step of a continuous part of alpha.
@@ -609,8 +611,11 @@ def _few_jumps(
     d = theta[1:]
     steps = np.flatnonzero(d > 0.0)
     best = (grid, theta, value)
-    if steps.size == 0:
-        return best
+
+    def better(trial: tuple[_Grid, np.ndarray, float] | None) -> bool:
+        floor = max(margin, 1e-15 * max(1.0, abs(best[2])))
+        return trial is not None and trial[2] < best[2] - floor
+
     place, height = grid.q[steps], d[steps]
     for k in _FEW_JUMPS:
         if steps.size < k:
@@ -620,7 +625,54 @@ def _few_jumps(
         t0 = np.array([np.average(place[g], weights=height[g]) for g in groups])
         h0 = np.array([height[g].sum() for g in groups])
         trial = _fit_jumps(grid, float(theta[0]), t0, h0)
-        if trial is not None and trial[2] < best[2] - max(margin, 1e-15 * max(1.0, abs(best[2]))):
+        if better(trial):
+            best = trial
+    trial = _jump_where_d_is_lowest(grid, theta)
+    if better(trial):
+        best = trial
+    return best
+
+
+def _jump_where_d_is_lowest(
+    grid: _Grid, theta: np.ndarray
+) -> tuple[_Grid, np.ndarray, float] | None:
+    """A one-jump fit (:func:`_fit_jumps`) started where D is lowest, with the height a
+    continuous alpha would have there, -f'(t) = xi'''(t) / (2 xi''(t)^(3/2)) for
+    f = xi''^(-1/2) (units of the grid's xi); None where D >= -``_D_THRESHOLD`` everywhere
+    (no step lowers P) or xi'' vanishes there.
+
+    The grid's own steps are no start when the solve left a needed jump at a tiny height:
+    with a field and q_hat within about 1.5e-3 of 1 the optimal alpha is 0 up to q_hat and
+    then jumps by an amount of order one, but L-BFGS-B moved a new step's increment only to
+    1.8e-8 and stopped (P changes by 1e-8 over the whole move), so the grid kept the
+    replica-symmetric value and reported converged: 1:6.9,8:1 at tol 1e-10 1.77e-8 above
+    the one-jump optimum, and scaled by 100 (gammas 689.19 and 100) 3.8e-6 above it at the
+    default tol (a review). Started from a height of order one, the fit reaches it."""
+    d = theta[1:]
+    jumps = np.flatnonzero(d > _JUMP_RTOL * (1.0 + float(d.sum())))
+    first = int(jumps[-1]) + 1 if jumps.size else 0  # past alpha's last jump, as _new_steps
+    pieces = np.arange(first, grid.size)
+    if pieces.size == 0:
+        return None
+    t, vals = _piece_samples(grid, theta, pieces, _INNER_SAMPLES)
+    row, col = np.unravel_index(int(vals.argmin()), vals.shape)
+    k = int(pieces[row])
+    place, low = _lowest_d(grid, theta, k, float(t[row, col]), float(vals[row, col]))
+    if not low < -_D_THRESHOLD:
+        return None
+    best = None
+    # Nelder-Mead on this flat surface (P changes by 1e-8) stops short from some starts
+    # (1:6.9,8:1 from t = 0.99757: 7.2e-9 above the optimum at 0.99883), so it starts from
+    # the lowest D and from two places nearer 1, and the lowest fit is kept
+    for start in (place, 1.0 - (1.0 - place) / 2.0, 1.0 - (1.0 - place) / 4.0):
+        curvature = grid.weight * float(grid.mixture.xi(start, 2))
+        if not curvature > 0.0:
+            continue
+        height = grid.weight * float(grid.mixture.xi(start, 3)) / (2.0 * curvature**1.5)
+        if not (math.isfinite(height) and height > 0.0):
+            continue
+        trial = _fit_jumps(grid, float(theta[0]), np.array([start]), np.array([height]))
+        if trial is not None and (best is None or trial[2] < best[2]):
             best = trial
     return best
 
@@ -714,7 +766,19 @@ def _fit_jumps(
         parts = unpack(z)
         return math.inf if parts is None else value(*parts)
 
-    opts = {"xatol": 1e-12, "fatol": 1e-16, "maxiter": 4000 * k, "maxfev": 4000 * k}
+    # SciPy's own first simplex moves each coordinate by 5 % of its value, which for log B
+    # near 0 (B of order one in these units, the usual case) is no move at all: from
+    # B = 1 - 6e-12 the simplex had no extent in B and the fit ran off to a place of 1 (a
+    # review: 1:6.9,8:1). Each coordinate moves by at least _SIMPLEX_STEP instead.
+    steps = np.maximum(0.05 * np.abs(z0), _SIMPLEX_STEP)
+    simplex = np.vstack((z0, z0 + np.diag(steps)))
+    opts = {
+        "xatol": 1e-12,
+        "fatol": 1e-16,
+        "maxiter": 4000 * k,
+        "maxfev": 4000 * k,
+        "initial_simplex": simplex,
+    }
     res = minimize(objective, z0, method="Nelder-Mead", options=opts)
     parts = unpack(res.x)
     if parts is None or not math.isfinite(float(res.fun)):
