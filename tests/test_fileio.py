@@ -292,3 +292,14 @@ def test_a_path_too_long_for_the_system_is_a_clear_error(tmp_path):
         ham.save(long)
     with pytest.raises(InstanceFileError, match="cannot load the instance file"):
         oc.load_instance(long)
+
+
+@pytest.mark.skipif(os.name != "posix", reason="POSIX symbolic links")
+def test_a_link_at_the_destination_is_replaced_and_its_target_kept(tmp_path):
+    # the documented choice (README, Files are whole or absent): the link becomes the new file
+    target = tmp_path / "elsewhere.txt"
+    target.write_text("kept")
+    link = tmp_path / "result.txt"
+    link.symlink_to(target)
+    write_text_atomic(link, "new")
+    assert not link.is_symlink() and link.read_text() == "new" and target.read_text() == "kept"

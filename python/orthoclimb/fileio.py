@@ -6,7 +6,8 @@ moment leaves either the old file or the new one. A file pair (an instance's or 
 .npz and .json) is written to two temporary files first and renamed only once both are
 complete, so a full disk or Ctrl-C while writing leaves the old pair whole. A new file gets
 the permissions an ordinary ``open(path, "w")`` would give it (0666 less the process umask),
-not the private 0600 of a temporary file; a replaced file keeps its own.
+not the private 0600 of a temporary file; a replaced file keeps its own. A symbolic link at
+the destination is replaced by the new file (its target is left alone), as os.replace does.
 """
 
 from __future__ import annotations
