@@ -56,14 +56,24 @@ impl Kept {
 
 static KEPT: Mutex<Kept> = Mutex::new(Kept(Vec::new()));
 
-fn kept() -> std::sync::MutexGuard<'static, Kept> {
-    KEPT.lock().unwrap_or_else(|e| e.into_inner())
+/// The cache, or None while another thread holds it: then the caller goes without it (a
+/// fresh buffer, or one dropped) instead of waiting. The lock is held only to move a buffer
+/// in or out, so this is rare; and a process made by `fork` while a worker held the lock
+/// inherits it locked forever, where waiting would hang its every Hessian.
+fn kept() -> Option<std::sync::MutexGuard<'static, Kept>> {
+    match KEPT.try_lock() {
+        Ok(guard) => Some(guard),
+        Err(std::sync::TryLockError::Poisoned(e)) => Some(e.into_inner()),
+        Err(std::sync::TryLockError::WouldBlock) => None,
+    }
 }
 
-/// A zeroed buffer of `len` numbers, reused from the cache when one of that length is there.
+/// A zeroed buffer of `len` numbers, reused from the cache when one of that length is there
+/// (zeroed after the lock is released).
 pub fn take(len: usize) -> Result<Vec<f64>, CoreError> {
     if len >= MIN_CACHED_LEN {
-        if let Some(mut buf) = kept().take(len) {
+        let hit = kept().and_then(|mut k| k.take(len));
+        if let Some(mut buf) = hit {
             buf.fill(0.0);
             return Ok(buf);
         }
@@ -72,12 +82,15 @@ pub fn take(len: usize) -> Result<Vec<f64>, CoreError> {
 }
 
 /// Returns a buffer to the cache; the oldest ones are dropped past [`MAX_KEPT`] buffers or
-/// [`MAX_KEPT_LEN`] numbers.
+/// [`MAX_KEPT_LEN`] numbers (and `buf` itself when the cache is busy).
 pub fn give(buf: Vec<f64>) {
     if buf.len() < MIN_CACHED_LEN {
         return;
     }
-    let evicted = kept().keep(buf);
+    let evicted = match kept() {
+        Some(mut k) => k.keep(buf),
+        None => vec![buf],
+    };
     drop(evicted); // freed after the lock is released
 }
 

@@ -411,8 +411,6 @@ def test_the_check_runs_matrix_free_when_the_dense_hessian_does_not_fit(monkeypa
     # 64 MiB).
     import importlib
 
-    polish_module = importlib.import_module("orthoclimb.algorithms.polish")
-    ascent_module = importlib.import_module("orthoclimb.algorithms.hessian_ascent")
     memory_module = importlib.import_module("orthoclimb.model.memory")
     ham = oc.Hamiltonian.sample(oc.Mixture({2: 0.5, 3: 1.0}), n, seed=4)
     x = np.random.default_rng(1).standard_normal(n)
@@ -422,8 +420,7 @@ def test_the_check_runs_matrix_free_when_the_dense_hessian_does_not_fit(monkeypa
     def refuse(self, x, **kwargs):
         raise oc.errors.InsufficientMemoryError(f"the Hessian of n = {self.n} does not fit")
 
-    for module in (polish_module, ascent_module, memory_module):
-        monkeypatch.setattr(module, "available_memory", lambda: 16 * 1024)
+    monkeypatch.setattr(memory_module, "available_memory", lambda: 16 * 1024)
     monkeypatch.setattr(oc.Hamiltonian, "hessian", refuse)
     spec = tangent_spectrum(ham, x)
     assert spec["top_eigenvalue"] == pytest.approx(want[0] / n, rel=1e-9)
@@ -434,6 +431,13 @@ def test_the_check_runs_matrix_free_when_the_dense_hessian_does_not_fit(monkeypa
     # a quadratic's constant Hessian was taken dense whatever the memory
     quadratic = oc.Hamiltonian.sample(oc.Mixture({2: 1.0}), n, seed=4)
     assert oc.hessian_ascent(quadratic, steps=3, seed=0).info["hessian_mode"] == "operator"
+    # a linear H has a zero Hessian, on which Lanczos cannot start: its tangent eigenvalues
+    # are all -x.grad H (exact; ARPACK stopped with "starting vector is zero")
+    field = oc.Hamiltonian.sample(oc.Mixture({1: 1.0}), n, seed=4)
+    h = field.coefficients(1)
+    spec = tangent_spectrum(field, h)
+    assert spec["n_positive"] == 0
+    assert spec["top_eigenvalue"] == pytest.approx(-float(np.linalg.norm(h)) / n, rel=1e-12)
     monkeypatch.undo()
     assert run.info["n_positive"] == tangent_spectrum(ham, run.x)["n_positive"]
 

@@ -570,6 +570,10 @@ def test_a_tol_large_against_the_mixture_is_warned_of():
         oc.hessian_ascent(small, steps=3, seed=0, polish=False, tol=1e-5)
         unit = oc.Hamiltonian.sample(oc.Mixture({3: 1.0}), 30, seed=1)
         oc.hessian_ascent(unit, steps=3, seed=0, polish=False)
+        # no Hessian step, so tol plays no part: one step, or a field that ends on the sphere
+        oc.hessian_ascent(small, steps=1, seed=0, polish=False)
+        field = oc.Hamiltonian.sample(oc.Mixture({1: 0.01}), 30, seed=1)
+        oc.hessian_ascent(field, steps=3, seed=0, polish=False)
 
 
 @pytest.mark.parametrize(("bad", "error"), [(None, TypeError), (2.7, TypeError), (-4, ValueError)])

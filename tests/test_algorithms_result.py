@@ -147,14 +147,19 @@ def test_repr_of_a_hand_made_result_without_numbers():
     assert repr(res) == "Result(method='x', n=3, energy=None, rows=0, seconds=None)"
 
 
-def test_an_edited_file_with_a_ragged_path_is_a_clear_error(result, tmp_path):
-    # a file edited by hand (checksum recomputed) whose path column lost a row raised NumPy's
-    # bare ValueError instead of an error naming the file
+@pytest.mark.parametrize(
+    "column",
+    [[[1.0, 2.0], [3.0]], [[1.0, 2.0], [3.0, 4.0]], ["a", "b"], [True, False], [{"x": 1}]],
+    ids=["ragged", "nested", "text", "flags", "objects"],
+)
+def test_an_edited_file_with_a_malformed_path_is_a_clear_error(result, tmp_path, column):
+    # a file edited by hand (checksum recomputed) whose path column is no flat list of numbers
+    # raised NumPy's bare ValueError (ragged rows) or loaded as text, 2-D or object arrays
     from orthoclimb.fileio import json_digest
 
     json_path, _ = result.save(tmp_path / "run")
     doc = json.loads(json_path.read_text())
-    doc["payload"]["path"]["energy"] = [[1.0, 2.0], [3.0]]
+    doc["payload"]["path"]["energy"] = column
     doc["sha256"] = json_digest(doc["payload"])
     json_path.write_text(json.dumps(doc))
     with pytest.raises(ResultFileError, match="run.json.*path column"):

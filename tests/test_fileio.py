@@ -303,3 +303,34 @@ def test_a_link_at_the_destination_is_replaced_and_its_target_kept(tmp_path):
     link.symlink_to(target)
     write_text_atomic(link, "new")
     assert not link.is_symlink() and link.read_text() == "new" and target.read_text() == "kept"
+
+
+@pytest.mark.skipif(os.name != "posix", reason="POSIX rlimits")
+def test_a_file_size_limit_at_close_still_names_the_file(tmp_path):
+    # A full disk usually fails at the last flush, which close() repeats outside the rename
+    # of the error, so the error that reached the caller named no file. A file size limit
+    # (RLIMIT_FSIZE; Python ignores SIGXFSZ) stands in for the full disk, in a child process.
+    import subprocess
+    import sys
+    import textwrap
+
+    script = textwrap.dedent(
+        f"""
+        import resource
+        import orthoclimb as oc
+        ham = oc.Hamiltonian.sample(oc.Mixture({{3: 1.0}}), 30, seed=1)
+        run = oc.gradient_ascent(ham, seed=0, max_iter=50)
+        resource.setrlimit(resource.RLIMIT_FSIZE, (4096, resource.RLIM_INFINITY))
+        try:
+            run.save({str(tmp_path / "run")!r})
+        except OSError as exc:
+            print(exc.errno, exc.filename)
+        """
+    )
+    out = subprocess.run(
+        [sys.executable, "-c", script], capture_output=True, text=True, timeout=120
+    )
+    assert out.returncode == 0, out.stderr[-2000:]
+    errno_text, filename = out.stdout.split()
+    assert int(errno_text) == 27 and filename.startswith(str(tmp_path / "run")), out.stdout
+    assert sorted(p.name for p in tmp_path.iterdir()) == [], "no temporaries left"

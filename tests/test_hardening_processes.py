@@ -70,3 +70,48 @@ def test_a_forked_child_computes_on_a_pool_of_its_own():
         assert out[kind] != "hung", f"{kind}: the forked child's call never returned"
         assert out[kind] == {"same": True, "threads": 2}, out
     assert out["parent_after"] is True
+
+
+BUSY_SCRIPT = textwrap.dedent(
+    """
+    import os, signal, sys, threading
+    import numpy as np
+    import orthoclimb as oc
+
+    oc.set_num_threads(2)
+    ham = oc.Hamiltonian.sample(oc.Mixture({4: 1.0}), 120, seed=1)  # 16 accumulators, merged
+    x = np.linspace(-1.0, 1.0, 120)
+    x /= np.linalg.norm(x)
+    stop = threading.Event()
+
+    def busy():
+        while not stop.is_set():
+            ham.hessian(x)
+
+    worker = threading.Thread(target=busy)
+    worker.start()
+    hung = 0
+    for _ in range(int(sys.argv[1])):
+        pid = os.fork()
+        if pid == 0:
+            signal.alarm(3)  # a child that hangs is ended by SIGALRM
+            ham.hessian(x)
+            os._exit(0)
+        _, status = os.waitpid(pid, 0)
+        hung += int(os.WIFSIGNALED(status))
+    stop.set()
+    worker.join()
+    print(hung)
+    """
+)
+
+
+def test_a_child_forked_while_another_thread_computes_does_not_hang():
+    # A pool worker of the parent can hold the accumulator cache's lock at the moment of the
+    # fork; the child inherits it locked, and its pool waited on it forever (35 of 633 forks
+    # hung in a review). The cache is now skipped while locked.
+    proc = subprocess.run(
+        [sys.executable, "-c", BUSY_SCRIPT, "150"], capture_output=True, text=True, timeout=600
+    )
+    assert proc.returncode == 0, proc.stderr[-3000:]
+    assert proc.stdout.strip().splitlines()[-1] == "0", "forked children hung"

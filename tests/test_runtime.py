@@ -126,3 +126,70 @@ def test_hessian_ascent_from_two_threads_gives_blas_its_threads_back():
     thread_b.join(timeout=120)
     assert not errors, errors
     assert _blas_threads() == before
+
+
+FORK_BLAS_SCRIPT = """
+import os, signal, sys, threading
+from orthoclimb.runtime import one_blas_thread
+
+stop = threading.Event()
+
+def busy():
+    while not stop.is_set():
+        with one_blas_thread():
+            pass
+
+worker = threading.Thread(target=busy)
+worker.start()
+hung = 0
+for _ in range(int(sys.argv[1])):
+    pid = os.fork()
+    if pid == 0:
+        signal.alarm(3)  # a child that hangs is ended by SIGALRM
+        with one_blas_thread():
+            pass
+        os._exit(0)
+    _, status = os.waitpid(pid, 0)
+    hung += int(os.WIFSIGNALED(status))
+stop.set()
+worker.join()
+print(hung)
+"""
+
+
+@pytest.mark.skipif(not hasattr(os, "fork"), reason="needs os.fork")
+def test_a_child_forked_while_another_thread_limits_blas_does_not_hang():
+    # The limiter's lock is held while threadpoolctl works (milliseconds, GIL released); a
+    # child forked then inherited it locked and hung at its first solve (15 of 57 in a
+    # review). The child now starts with a fresh lock and no users.
+    out = subprocess.run(
+        [sys.executable, "-c", FORK_BLAS_SCRIPT, "60"], capture_output=True, text=True, timeout=600
+    )
+    assert out.returncode == 0, out.stderr[-3000:]
+    assert out.stdout.strip().splitlines()[-1] == "0", "forked children hung"
+
+
+def test_a_failing_blas_restore_warns_and_hides_no_error(monkeypatch):
+    # threadpoolctl failing to restore used to replace the block's own error and leave its
+    # limiter behind, so the next block recorded one thread as the original count
+    from orthoclimb import runtime
+
+    class Stuck:
+        def restore_original_limits(self):
+            raise RuntimeError("cannot restore")
+
+    monkeypatch.setattr(runtime, "_limit_blas_to_one", Stuck)
+    with pytest.warns(RuntimeWarning, match="could not restore the BLAS thread count"):
+        with pytest.raises(KeyError, match="the block's own"):
+            with runtime.one_blas_thread():
+                raise KeyError("the block's own")
+    assert runtime._blas_limits is None and runtime._blas_users == 0
+
+    def refuse():
+        raise OSError("no BLAS control here")
+
+    monkeypatch.setattr(runtime, "_limit_blas_to_one", refuse)
+    with pytest.warns(RuntimeWarning, match="could not limit the BLAS thread count"):
+        with runtime.one_blas_thread():
+            value = 42  # the work goes on without the limit
+    assert value == 42 and runtime._blas_users == 0

@@ -184,15 +184,15 @@ def _stage(dest: Path, write: Callable[[IO[bytes]], None]) -> str:
     except OSError as exc:
         raise _path_error(f"cannot write {str(dest)!r}", exc) from None
     try:
-        with os.fdopen(fd, "wb") as fh:
-            try:
+        try:
+            with os.fdopen(fd, "wb") as fh:  # close() flushes too: it fails the same way
                 write(fh)
                 fh.flush()
                 os.fsync(fh.fileno())
-            except OSError as exc:  # a full disk, a quota, a file size limit
-                if exc.filename is not None:
-                    raise
-                raise OSError(exc.errno, exc.strerror or str(exc), str(dest)) from exc
+        except OSError as exc:  # a full disk, a quota, a file size limit
+            if exc.filename is not None:
+                raise
+            raise OSError(exc.errno, exc.strerror or str(exc), str(dest)) from exc
         try:
             os.chmod(tmp, _mode_for(dest))
         except OSError as exc:

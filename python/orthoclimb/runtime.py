@@ -9,17 +9,20 @@ when that variable is set before the first kernel call, else the number of avail
 from __future__ import annotations
 
 import contextlib
+import os
 import threading
-from collections.abc import Iterator
+import warnings
+from collections.abc import Callable, Iterator
 from typing import Any
 
 import numpy as np
+from threadpoolctl import threadpool_limits
 
 from . import _core
 
 _blas_lock = threading.Lock()
 _blas_users = 0
-_blas_limits: Any = None  # threadpoolctl's limiter while a block runs (imported on first use)
+_blas_limits: Any = None  # threadpoolctl's limiter while a block runs
 
 
 def set_num_threads(k: int) -> None:
@@ -57,20 +60,59 @@ def one_blas_thread() -> Iterator[None]:
     threads slow down. threadpoolctl's limits are process-wide: entered from two threads
     directly, the first to leave restored the old count while the second still ran, and the
     second then "restored" the single thread it had found, which stayed for the rest of the
-    process. Here the first thread in sets the limit and the last one out restores it.
+    process. Here the first thread in sets the limit and the last one out restores it. The
+    limit is only a speed-up: if threadpoolctl fails to set or restore it, a RuntimeWarning
+    says so and the work goes on. A process forked while a block runs starts with no users
+    (see :func:`_blas_after_fork`).
     """
-    from threadpoolctl import threadpool_limits
-
     global _blas_users, _blas_limits
     with _blas_lock:
         if _blas_users == 0:
-            _blas_limits = threadpool_limits(limits=1, user_api="blas")
+            _blas_limits = _blas_call("limit", _limit_blas_to_one)
         _blas_users += 1
     try:
         yield
     finally:
         with _blas_lock:
             _blas_users -= 1
-            if _blas_users == 0 and _blas_limits is not None:
-                _blas_limits.restore_original_limits()
-                _blas_limits = None
+            limits = _blas_limits if _blas_users == 0 else None
+            if _blas_users == 0:
+                _blas_limits = None  # cleared first: a failed restore must not linger
+            if limits is not None:
+                _blas_call("restore", limits.restore_original_limits)
+
+
+def _limit_blas_to_one() -> Any:
+    # threadpoolctl is imported with the module, not here: an import statement takes the
+    # module's import lock even when the module is loaded, and a child forked while another
+    # thread held it hung on it (1 child in 60 in a test)
+    return threadpool_limits(limits=1, user_api="blas")
+
+
+def _blas_call(what: str, call: Callable[[], Any]) -> Any:
+    """``call()``, or None with a RuntimeWarning when threadpoolctl fails."""
+    try:
+        return call()
+    except Exception as exc:
+        warnings.warn(
+            f"could not {what} the BLAS thread count ({type(exc).__name__}: {exc});"
+            " the results are the same, only the speed may differ",
+            RuntimeWarning,
+            stacklevel=4,
+        )
+        return None
+
+
+def _blas_after_fork() -> None:
+    """In a forked child: a fresh lock and no users. A thread of the parent may have held the
+    lock, or been inside a block, at the fork; neither thread exists in the child, so the old
+    lock would never be released and the count never fall to zero (15 of 57 children hung
+    in a review). The child keeps the BLAS setting it inherited."""
+    global _blas_lock, _blas_users, _blas_limits
+    _blas_lock = threading.Lock()
+    _blas_users = 0
+    _blas_limits = None
+
+
+if hasattr(os, "register_at_fork"):
+    os.register_at_fork(after_in_child=_blas_after_fork)

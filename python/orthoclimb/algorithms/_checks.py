@@ -1,4 +1,5 @@
-"""Input checks shared by the algorithms: every refusal names the bad value."""
+"""Input checks shared by the algorithms (every refusal names the bad value), and the memory
+check of their dense n x n work."""
 
 from __future__ import annotations
 
@@ -9,10 +10,12 @@ from typing import Any
 import numpy as np
 
 from ..errors import ShapeError
+from ..model import memory
 from ..model.arrays import as_flag, as_float_array
 from ..model.hamiltonian import Hamiltonian, _check_seed
 
 __all__ = [
+    "dense_work_fits",
     "check_count",
     "check_flag",
     "check_ham",
@@ -97,3 +100,12 @@ def check_unit_start(x: Any, n: int, name: str = "x") -> np.ndarray:
         raise ValueError(f"{name} is the zero vector; it has no direction on the sphere")
     arr = arr / big
     return arr / float(np.linalg.norm(arr))
+
+
+def dense_work_fits(ham: Hamiltonian, copies: int) -> bool:
+    """Whether a dense method's work fits in half the available memory: the kernel's Hessian
+    accumulators (:attr:`Hamiltonian.hessian_workspace_nbytes`) plus ``copies`` n x n float64
+    arrays. Hessian ascent's dense mode, Newton's steps in the polish and the dense
+    local-maximum check ask it; the other half is left to the rest of the process."""
+    need = ham.hessian_workspace_nbytes + copies * ham.n * ham.n * 8
+    return need <= memory.available_memory() // 2

@@ -39,7 +39,8 @@ step is taken.
 Cost. Each stage-2 step costs one Hessian pass plus O(n^2) for the projection and a few dozen
 dense matrix-vector products for Lanczos. When at most one degree >= 3 is present, the energy
 and the gradient are read off the same Hessian (exact Euler identities, see ``_sphere``); with
-degrees <= 2 the Hessian is constant and computed once. Otherwise one extra energy-and-gradient
+degrees <= 2 the Hessian is constant and computed once (when it fits in memory, see below;
+else each product is a pass). Otherwise one extra energy-and-gradient
 pass per step is needed. BLAS runs single-threaded during the loop (``threadpoolctl``): the
 dense products of Lanczos are small, and OpenBLAS threads that busy-wait after a call would
 otherwise steal the cores of the next Rust pass.
@@ -79,7 +80,6 @@ import numpy as np
 from scipy.sparse.linalg import LinearOperator
 
 from ..model.hamiltonian import Hamiltonian
-from ..model.memory import available_memory
 from ..model.mixture import Mixture
 from ..runtime import one_blas_thread
 from ..theory import algorithmic_energy, algorithmic_threshold, hessian_edge, path_energy
@@ -89,6 +89,7 @@ from ._checks import (
     check_ham,
     check_positive,
     check_seed,
+    dense_work_fits,
     warn_if_far_scale,
 )
 from ._config import base_config
@@ -171,8 +172,7 @@ def _choose_mode(ham: Hamiltonian, mode: str) -> str:
         raise ValueError(f"hessian must be one of {HESSIAN_MODES}, got {mode!r}")
     if mode != "auto":
         return mode
-    need = ham.hessian_workspace_nbytes + _WORKING_COPIES * ham.n * ham.n * 8
-    return "dense" if need <= available_memory() // 2 else "operator"
+    return "dense" if dense_work_fits(ham, _WORKING_COPIES) else "operator"
 
 
 def _tangent_operator(ham: Hamiltonian, x: np.ndarray, basis: TangentBasis) -> LinearOperator:
@@ -180,16 +180,20 @@ def _tangent_operator(ham: Hamiltonian, x: np.ndarray, basis: TangentBasis) -> L
     return basis.restrict_operator(lambda v: ham.hvp(x, v))
 
 
-def _predictions(mixture: Mixture, qs: np.ndarray, q_hat: float) -> dict[str, np.ndarray]:
+def _predictions(
+    mixture: Mixture, qs: np.ndarray, q_hat: float, last_only: bool = False
+) -> dict[str, np.ndarray]:
     """The predicted columns of the path rows at radii^2 ``qs`` (in [0, 1]): E_path(q), the
-    run's own steps' prediction and the edge 2 sqrt(xi''(q)) (see :func:`hessian_ascent`)."""
-    energy = np.asarray(path_energy(mixture, qs), dtype=np.float64)
+    run's own steps' prediction and the edge 2 sqrt(xi''(q)) (see :func:`hessian_ascent`);
+    with ``last_only`` those of the last row alone (the callback's, one integral per step)."""
+    at = qs[-1:] if last_only else qs
+    energy = np.asarray(path_energy(mixture, np.concatenate((qs[:1], at))), dtype=np.float64)
     # stage 1 ends near its predicted maximum E_path(q_hat); a random start has energy ~0
     start = float(energy[0]) if q_hat > 0.0 else 0.0
     return {
-        "predicted_energy": energy,
-        "predicted_energy_steps": _stepwise_energy(mixture, qs, start),
-        "predicted_edge": np.asarray(hessian_edge(mixture, qs), dtype=np.float64),
+        "predicted_energy": energy[1:],
+        "predicted_energy_steps": _stepwise_energy(mixture, qs, start)[-at.size :],
+        "predicted_edge": np.asarray(hessian_edge(mixture, at), dtype=np.float64),
     }
 
 
@@ -213,20 +217,6 @@ def _warn_if_coarse(mixture: Mixture | None, delta: float) -> None:
             RuntimeWarning,
             stacklevel=3,
         )
-
-
-def _last_predictions(mixture: Mixture, q_rows: list[float], q_hat: float) -> dict[str, float]:
-    """:func:`_predictions` of the last of the rows so far (for the callback), with one
-    integral for E_path rather than one per row."""
-    qs = np.clip(np.asarray(q_rows, dtype=np.float64), 0.0, 1.0)
-    ends = qs[[0, -1]]
-    energy = np.asarray(path_energy(mixture, ends), dtype=np.float64)
-    start = float(energy[0]) if q_hat > 0.0 else 0.0
-    return {
-        "predicted_energy": float(energy[-1]),
-        "predicted_energy_steps": float(_stepwise_energy(mixture, qs, start)[-1]),
-        "predicted_edge": float(hessian_edge(mixture, qs[-1])),
-    }
 
 
 def _edge_growth(mixture: Mixture | None, q: float, q_next: float) -> float:
@@ -294,7 +284,8 @@ def hessian_ascent(
     warn_if_far_scale(ham, "hessian_ascent")
     k = auto_steps(ham.n) if steps is None else check_count(steps, "steps")
     delta = check_positive(tol, "tol")
-    _warn_if_coarse(ham.mixture, delta)
+    if hessian_moves(ham.mixture, k) > 0:  # tol only matters where there are Hessian steps
+        _warn_if_coarse(ham.mixture, delta)
     seed = check_seed(seed)
     polish = check_flag(polish, "polish")
     if callback is not None and not callable(callback):
@@ -408,7 +399,9 @@ def hessian_ascent(
             if callback is not None:
                 row = {c: rows[c][-1] for c in _COLUMNS}
                 if mixture is not None:  # the path's predictions, as the Result will have them
-                    row.update(_last_predictions(mixture, rows["q"], q_hat))
+                    qs = np.clip(np.asarray(rows["q"], dtype=np.float64), 0.0, 1.0)
+                    last = _predictions(mixture, qs, q_hat, last_only=True)
+                    row.update({c: float(v[0]) for c, v in last.items()})
                 callback(row)
             x = x + eps * v
             v_prev = v

@@ -53,9 +53,15 @@ import scipy.linalg
 from scipy.sparse.linalg import LinearOperator, eigsh
 
 from ..model.hamiltonian import Hamiltonian
-from ..model.memory import available_memory
 from ..runtime import one_blas_thread
-from ._checks import check_count, check_flag, check_ham, check_positive, check_unit_start
+from ._checks import (
+    check_count,
+    check_flag,
+    check_ham,
+    check_positive,
+    check_unit_start,
+    dense_work_fits,
+)
 from ._config import base_config
 from ._newton import newton_refine
 from ._riemannian import sphere_ascent
@@ -85,7 +91,7 @@ def tangent_spectrum(ham: Hamiltonian, x: Any) -> dict[str, Any]:
     _e, g = ham.energy_and_gradient(x)
     radial = float(x @ g)
     tangent_grad = g - radial * x
-    if not _dense_check_fits(ham):
+    if not dense_work_fits(ham, _CHECK_COPIES):
         vals, scale = _operator_spectrum(ham, x, radial)
         return {
             "n_positive": int(np.count_nonzero(vals > POSITIVE_THRESHOLD * scale)),
@@ -129,12 +135,6 @@ _CHECK_COPIES = 5
 _OPERATOR_DENSE_N = 4 * LANCZOS_TOP
 
 
-def _dense_check_fits(ham: Hamiltonian) -> bool:
-    """Whether the dense check's n x n work fits in half the available memory (as Newton's)."""
-    need = ham.hessian_workspace_nbytes + _CHECK_COPIES * ham.n * ham.n * 8
-    return need <= available_memory() // 2
-
-
 def _start(n: int) -> np.ndarray:
     """A fixed start vector for Lanczos, so that a check gives the same numbers every time
     (ARPACK's own start is random: three checks at n = 3001 differed in the 15th digit)."""
@@ -147,6 +147,8 @@ def _operator_spectrum(ham: Hamiltonian, x: np.ndarray, radial: float) -> tuple[
     Hessian-vector products only, and the scale rho(Hess) + |radial| (rho: the spectral
     radius, which the max row sum of the dense check bounds from above)."""
     n = ham.n
+    if max(ham.degrees) == 1:  # a linear H: Hess H = 0, every tangent eigenvalue is -radial
+        return np.full(min(LANCZOS_TOP, n - 1), -radial), abs(radial)
     hop = ham.hessian_operator(x)
     rho = abs(float(eigsh(hop, k=1, which="LM", tol=1e-6, v0=_start(n))[0][0]))
     scale = rho + abs(radial)
@@ -256,10 +258,7 @@ def _polish(ham: Hamiltonian, x0: np.ndarray, gtol: float, max_iter: int, check:
 def _newton_fits(ham: Hamiltonian) -> bool:
     """Whether Newton's dense n x n work (the kernel's Hessian accumulators, the Hessian and
     its Cholesky factor) fits in half the available memory, for n <= NEWTON_MAX_N."""
-    if ham.n > NEWTON_MAX_N or ham.n < 2:
-        return False
-    need = ham.hessian_workspace_nbytes + 3 * ham.n * ham.n * 8
-    return need <= available_memory() // 2
+    return 2 <= ham.n <= NEWTON_MAX_N and dense_work_fits(ham, 3)
 
 
 # A stalled run is critical when its tangent gradient (per spin) is within this fraction of

@@ -186,10 +186,15 @@ def _check_payload(path: Path, payload: dict[str, Any]) -> None:
 
 
 def _column(values: list) -> np.ndarray:
-    """A path column as written: its nulls (numbers that were not finite) read as NaN."""
+    """A path column as written: its nulls (numbers that were not finite) read as NaN. A
+    ValueError for anything but a flat list of numbers (rows of unequal length, text, nested
+    lists, flags: a file edited by hand)."""
     if any(v is None for v in values):
-        return np.array([math.nan if v is None else v for v in values], dtype=np.float64)
-    return np.asarray(values)
+        values = [math.nan if v is None else v for v in values]
+    out = np.asarray(values)
+    if out.ndim != 1 or (out.size and out.dtype.kind not in "iuf"):
+        raise ValueError(f"it begins {values[:3]!r}")
+    return out if out.size else out.astype(np.float64)
 
 
 def load_result(path: str | os.PathLike) -> Result:
@@ -221,7 +226,7 @@ def load_result(path: str | os.PathLike) -> Result:
         raise _fail(npz_path, "x does not match the digest recorded in the JSON file")
     try:
         path_table = {k: _column(v) for k, v in payload.get("path", {}).items()}
-    except (TypeError, ValueError) as exc:  # rows of unequal length, text, nested lists
+    except (TypeError, ValueError) as exc:  # rows of unequal length, text, nested lists, flags
         raise _fail(json_path, f"a path column is not a list of numbers: {exc}") from None
     energy = payload["energy"]
     return Result(

@@ -68,6 +68,7 @@ from ..model.mixture import Mixture
 from ..runtime import one_blas_thread
 from ._checks import check_count, check_mixture, check_positive
 from .algorithmic import algorithmic_energy
+from .criterion import full_rsb
 
 __all__ = ["TOL_FLOOR", "GroundState", "ground_state", "parisi_functional", "parisi_gradient"]
 
@@ -559,6 +560,16 @@ def _tidy(grid: _Grid, theta: np.ndarray, value: float) -> tuple[np.ndarray, flo
     return theta, value
 
 
+def _past_last_jump(grid: _Grid, theta: np.ndarray) -> np.ndarray:
+    """The pieces after the one where alpha last jumps (all of them when alpha = 0). The
+    piece of the jump is left to _jump_moves: D < 0 next to a jump says the jump should move,
+    not that a new step belongs there."""
+    d = theta[1:]
+    jumps = np.flatnonzero(d > _JUMP_RTOL * (1.0 + float(d.sum())))
+    first = int(jumps[-1]) + 1 if jumps.size else 0
+    return np.arange(first, grid.size)
+
+
 def _new_steps(grid: _Grid, theta: np.ndarray) -> dict[int, float]:
     """Where a new step of alpha, after its last jump, would lower P: {piece: t}.
 
@@ -574,12 +585,7 @@ def _new_steps(grid: _Grid, theta: np.ndarray) -> dict[int, float]:
     inside a continuous part of alpha, increments below ``_JUMP_RTOL`` look flat while D sits
     at its discretization error (-1e-9 for xi = q^2 + 0.3 q^4 on 2000 pieces), which refining
     removes anyway."""
-    d = theta[1:]
-    jumps = np.flatnonzero(d > _JUMP_RTOL * (1.0 + float(d.sum())))
-    # the piece where alpha last jumps is left to _jump_moves: D < 0 next to a jump says
-    # the jump should move, not that a new step belongs there
-    first = int(jumps[-1]) + 1 if jumps.size else 0
-    pieces = np.arange(first, grid.size)
+    pieces = _past_last_jump(grid, theta)
     if pieces.size == 0:
         return {}
     t, vals = _piece_samples(grid, theta, pieces, _INNER_SAMPLES)
@@ -607,7 +613,8 @@ def _few_jumps(
     full-RSB mixture with a field, whose alpha rises on [q_hat, 1]), a coarse grid can lose
     to two jumps by less than tol (1:0.3,2:1,4:0.2236 at tol 1e-6: by 1.3e-7), and two jumps
     would misdraw alpha. Measured by a review over about 1200 solves: the fit's time has a
-    median of 6-19 ms and a maximum of 0.2 s; the value never rose."""
+    median of 6-19 ms and a maximum of 0.2 s; the value never rose. Since then up to three
+    one-jump fits from where D is lowest (:func:`_jump_where_d_is_lowest`) come on top."""
     d = theta[1:]
     steps = np.flatnonzero(d > 0.0)
     best = (grid, theta, value)
@@ -642,16 +649,13 @@ def _jump_where_d_is_lowest(
     (no step lowers P) or xi'' vanishes there.
 
     The grid's own steps are no start when the solve left a needed jump at a tiny height:
-    with a field and q_hat within about 1.5e-3 of 1 the optimal alpha is 0 up to q_hat and
+    with a field and q_hat within about 2e-3 of 1 the optimal alpha is 0 up to q_hat and
     then jumps by an amount of order one, but L-BFGS-B moved a new step's increment only to
     1.8e-8 and stopped (P changes by 1e-8 over the whole move), so the grid kept the
     replica-symmetric value and reported converged: 1:6.9,8:1 at tol 1e-10 1.77e-8 above
     the one-jump optimum, and scaled by 100 (gammas 689.19 and 100) 3.8e-6 above it at the
     default tol (a review). Started from a height of order one, the fit reaches it."""
-    d = theta[1:]
-    jumps = np.flatnonzero(d > _JUMP_RTOL * (1.0 + float(d.sum())))
-    first = int(jumps[-1]) + 1 if jumps.size else 0  # past alpha's last jump, as _new_steps
-    pieces = np.arange(first, grid.size)
+    pieces = _past_last_jump(grid, theta)
     if pieces.size == 0:
         return None
     t, vals = _piece_samples(grid, theta, pieces, _INNER_SAMPLES)
@@ -803,8 +807,6 @@ def _explicit_start(mixture: Mixture, s: float) -> Callable[[np.ndarray], np.nda
     see a stall: 2:1,7:0.1319 reported converged at tol 1.5e-11 5.8e-10 above ALG, and
     2:1e5,8:2.1e4 at the default tol 9.5e-5 above it (a review). On a uniform grid of 256
     pieces this start is 1.3e-12 above ALG for 2:1,8:0.1, and the solve lowers it to 2e-13."""
-    from .criterion import full_rsb
-
     verdict = full_rsb(mixture)
     q_hat = verdict.q_hat
     if not verdict.gs_equals_alg or verdict.linear or not q_hat < 1.0:
