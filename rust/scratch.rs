@@ -153,6 +153,28 @@ mod tests {
         assert_eq!(k.0.len(), 3, "and nothing else was pushed out for it");
     }
 
+    /// While another thread holds the cache (as a worker of the parent may at a `fork`, in
+    /// which case it stays held in the child), `take` and `give` go without it instead of
+    /// waiting: a fresh zeroed buffer, a dropped one.
+    #[test]
+    fn a_held_cache_is_skipped_not_waited_on() {
+        let len = MIN_CACHED_LEN + 5; // a length no other test uses
+        give(vec![3.0; len]);
+        let held = KEPT.lock().unwrap_or_else(|e| e.into_inner());
+        let (tx, rx) = std::sync::mpsc::channel();
+        std::thread::spawn(move || {
+            let buf = take(len).unwrap();
+            give(vec![4.0; len]);
+            let _ = tx.send(buf);
+        });
+        let got = rx.recv_timeout(std::time::Duration::from_secs(10));
+        drop(held);
+        assert_eq!(
+            got.expect("take/give waited on a held cache"),
+            vec![0.0; len]
+        );
+    }
+
     /// The global cache hands back zeroed buffers, and never caches small ones.
     #[test]
     fn take_returns_zeroed_buffers() {

@@ -67,3 +67,44 @@ def every_call_on_the_pool() -> Iterator[Callable[[], None]]:
     finally:
         oc.set_num_threads(threads)
         _core._set_inline_passes(bound)
+
+
+_FORK_WHILE_BUSY = """
+import os, signal, sys, threading
+{setup}
+stop = threading.Event()
+
+def busy():
+    while not stop.is_set():
+        {call}
+
+worker = threading.Thread(target=busy)
+worker.start()
+hung = 0
+for _ in range({forks}):
+    pid = os.fork()
+    if pid == 0:
+        signal.alarm(3)  # a child that hangs is ended by SIGALRM
+        {call}
+        os._exit(0)
+    _, status = os.waitpid(pid, 0)
+    hung += int(os.WIFSIGNALED(status))
+stop.set()
+worker.join()
+print(hung)
+"""
+
+
+def hung_forks(setup: str, call: str, forks: int) -> int:
+    """How many of ``forks`` children, each forked while another thread repeats the one-line
+    statement ``call`` and then running ``call`` once itself, hang (ended after 3 s); in a
+    fresh interpreter that first runs ``setup``. A lock held by the busy thread at the fork
+    stays locked in the child, where no thread will release it."""
+    import subprocess
+    import sys
+
+    script = _FORK_WHILE_BUSY.format(setup=setup, call=call, forks=forks)
+    command = [sys.executable, "-c", script]
+    out = subprocess.run(command, capture_output=True, text=True, timeout=600)
+    assert out.returncode == 0, out.stderr[-3000:]
+    return int(out.stdout.strip().splitlines()[-1])

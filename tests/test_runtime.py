@@ -11,6 +11,7 @@ import pytest
 from threadpoolctl import threadpool_info
 
 import orthoclimb as oc
+from conftest import hung_forks
 
 
 def test_set_and_get_threads():
@@ -128,45 +129,19 @@ def test_hessian_ascent_from_two_threads_gives_blas_its_threads_back():
     assert _blas_threads() == before
 
 
-FORK_BLAS_SCRIPT = """
-import os, signal, sys, threading
-from orthoclimb.runtime import one_blas_thread
-
-stop = threading.Event()
-
-def busy():
-    while not stop.is_set():
-        with one_blas_thread():
-            pass
-
-worker = threading.Thread(target=busy)
-worker.start()
-hung = 0
-for _ in range(int(sys.argv[1])):
-    pid = os.fork()
-    if pid == 0:
-        signal.alarm(3)  # a child that hangs is ended by SIGALRM
-        with one_blas_thread():
-            pass
-        os._exit(0)
-    _, status = os.waitpid(pid, 0)
-    hung += int(os.WIFSIGNALED(status))
-stop.set()
-worker.join()
-print(hung)
-"""
-
-
 @pytest.mark.skipif(not hasattr(os, "fork"), reason="needs os.fork")
 def test_a_child_forked_while_another_thread_limits_blas_does_not_hang():
     # The limiter's lock is held while threadpoolctl works (milliseconds, GIL released); a
     # child forked then inherited it locked and hung at its first solve (15 of 57 in a
     # review). The child now starts with a fresh lock and no users.
-    out = subprocess.run(
-        [sys.executable, "-c", FORK_BLAS_SCRIPT, "60"], capture_output=True, text=True, timeout=600
+    setup = (
+        "from orthoclimb.runtime import one_blas_thread\n"
+        "def enter():\n"
+        "    with one_blas_thread():\n"
+        "        pass\n"
     )
-    assert out.returncode == 0, out.stderr[-3000:]
-    assert out.stdout.strip().splitlines()[-1] == "0", "forked children hung"
+    call = "enter()"
+    assert hung_forks(setup, call, 60) == 0, "forked children hung"
 
 
 def test_a_failing_blas_restore_warns_and_hides_no_error(monkeypatch):
