@@ -438,6 +438,9 @@ def test_the_check_runs_matrix_free_when_the_dense_hessian_does_not_fit(monkeypa
     spec = tangent_spectrum(field, h)
     assert spec["n_positive"] == 0
     assert spec["top_eigenvalue"] == pytest.approx(-float(np.linalg.norm(h)) / n, rel=1e-12)
+    # at the minimum -h every one of the n - 1 is +|h| (counted up to 10 where not exhaustive)
+    low = tangent_spectrum(field, -h)
+    assert low["n_positive"] == (n - 1 if low["exhaustive"] else 10)
     monkeypatch.undo()
     assert run.info["n_positive"] == tangent_spectrum(ham, run.x)["n_positive"]
 

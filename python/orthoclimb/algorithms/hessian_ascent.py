@@ -398,6 +398,7 @@ def hessian_ascent(
             )
             if callback is not None:
                 row = {c: rows[c][-1] for c in _COLUMNS}
+                row["q"] = min(max(row["q"], 0.0), 1.0)  # clipped as in the Result's path
                 if mixture is not None:  # the path's predictions, as the Result will have them
                     qs = np.clip(np.asarray(rows["q"], dtype=np.float64), 0.0, 1.0)
                     last = _predictions(mixture, qs, q_hat, last_only=True)

@@ -148,7 +148,8 @@ def _operator_spectrum(ham: Hamiltonian, x: np.ndarray, radial: float) -> tuple[
     radius, which the max row sum of the dense check bounds from above)."""
     n = ham.n
     if max(ham.degrees) == 1:  # a linear H: Hess H = 0, every tangent eigenvalue is -radial
-        return np.full(min(LANCZOS_TOP, n - 1), -radial), abs(radial)
+        count = n - 1 if n <= _OPERATOR_DENSE_N else LANCZOS_TOP  # as the two routes below
+        return np.full(count, -radial), abs(radial)
     hop = ham.hessian_operator(x)
     rho = abs(float(eigsh(hop, k=1, which="LM", tol=1e-6, v0=_start(n))[0][0]))
     scale = rho + abs(radial)
