@@ -44,7 +44,6 @@ machine grows with n: the check's eigvalsh took 0.08-0.10 s against 0.11-0.14 at
 
 from __future__ import annotations
 
-import hashlib
 import time
 from typing import Any
 
@@ -65,7 +64,7 @@ from ._checks import (
 from ._config import base_config
 from ._newton import newton_refine
 from ._riemannian import sphere_ascent
-from .result import Result
+from .result import Result, vector_digest
 
 __all__ = ["polish", "tangent_spectrum"]
 
@@ -250,8 +249,8 @@ def _polish(ham: Hamiltonian, x0: np.ndarray, gtol: float, max_iter: int, check:
     if check:
         info.update(local_max_info(ham, x, is_critical(gnorm, gtol, status, energy)))
     # the start point is the caller's (too large for the config): its digest identifies it
-    start_digest = hashlib.sha256(np.ascontiguousarray(x0, dtype="<f8").tobytes()).hexdigest()
-    config = base_config(ham, "polish", gtol=gtol, max_iter=max_iter, start_sha256=start_digest)
+    digest = vector_digest(x0)
+    config = base_config(ham, "polish", gtol=gtol, max_iter=max_iter, start_sha256=digest)
     path = {k: np.asarray(v) for k, v in rows.items()}
     return Result(x, energy, path, config, time.perf_counter() - start, info)
 

@@ -65,7 +65,8 @@ def _plain(value: Any) -> Any:
     return value
 
 
-def _x_digest(x: np.ndarray) -> str:
+def vector_digest(x: np.ndarray) -> str:
+    """SHA-256 (hex) of a vector as little-endian float64 bytes: a result's x, a polish's start."""
     return hashlib.sha256(np.ascontiguousarray(x, dtype="<f8").tobytes()).hexdigest()
 
 
@@ -123,7 +124,7 @@ class Result:
             {
                 **self.summary(),
                 "path": _plain({k: np.asarray(v) for k, v in self.path.items()}),
-                "x_sha256": _x_digest(x),
+                "x_sha256": vector_digest(x),
                 "x_shape": list(x.shape),
             }
         )
@@ -191,10 +192,10 @@ def _column(values: list) -> np.ndarray:
     lists, flags: a file edited by hand)."""
     if any(v is None for v in values):
         values = [math.nan if v is None else v for v in values]
-    out = np.asarray(values)
+    out = np.asarray(values)  # an empty list gives float64
     if out.ndim != 1 or (out.size and out.dtype.kind not in "iuf"):
         raise ValueError(f"it begins {values[:3]!r}")
-    return out if out.size else out.astype(np.float64)
+    return out
 
 
 def load_result(path: str | os.PathLike) -> Result:
@@ -222,7 +223,7 @@ def load_result(path: str | os.PathLike) -> Result:
         raise _fail(npz_path, "file not found") from None
     except (OSError, ValueError, KeyError, EOFError, zipfile.BadZipFile) as exc:
         raise _fail(npz_path, f"unreadable (truncated or corrupted?): {exc}") from None
-    if list(x.shape) != payload.get("x_shape") or _x_digest(x) != payload.get("x_sha256"):
+    if list(x.shape) != payload.get("x_shape") or vector_digest(x) != payload.get("x_sha256"):
         raise _fail(npz_path, "x does not match the digest recorded in the JSON file")
     try:
         path_table = {k: _column(v) for k, v in payload.get("path", {}).items()}
