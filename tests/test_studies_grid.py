@@ -402,3 +402,17 @@ def test_one_mixture_under_two_names_at_distinct_sizes_is_a_valid_study(tmp_path
     )
     tasks = spec_from_toml(path).tasks()
     assert len({t.task_id for t in tasks}) == len(tasks) == 12
+
+
+@pytest.mark.parametrize(
+    ("flag", "text"), [("--tol", "1e-400"), ("--timeout", "0"), ("--tol", "x")]
+)
+def test_cli_positive_numbers_are_checked_on_the_text_given(tmp_path, capsys, flag, text):
+    # "--tol 1e-400" underflows to 0.0, which the message used to quote instead of the text
+    args = ["sweep", "--gammas", "3:1", "--n", "20,30", "--seeds", "0-1", flag, text]
+    with pytest.raises(SystemExit) as info:
+        main([*args, "--out", str(tmp_path / "o")])
+    assert info.value.code == 2
+    err = capsys.readouterr().err
+    assert f"argument {flag}: expected a positive" in err and f"got {text!r}" in err, err
+    assert not (tmp_path / "o").exists()

@@ -134,9 +134,14 @@ def test_far_scales_print_in_exponent_form(capsys):
     assert "too small" in capsys.readouterr().err
 
 
-def test_bad_tolerance_exit_code_2(capsys):
-    assert main(["theory", "--gammas", "3:1", "--tol", "-1"]) == 2
-    assert "-1" in capsys.readouterr().err
+@pytest.mark.parametrize("tol", ["-1", "0", "nan", "inf", "1e-400", "tiny"])
+def test_bad_tolerance_exit_code_2(tol, capsys):
+    # the message quotes the text given: 1e-400 was reported as "got 0.0"
+    with pytest.raises(SystemExit) as info:
+        main(["theory", "--gammas", "3:1", "--tol", tol])
+    assert info.value.code == 2
+    err = capsys.readouterr().err
+    assert "--tol: expected a positive" in err and f"got {tol!r}" in err, err
 
 
 @pytest.mark.parametrize(

@@ -61,6 +61,23 @@ def add_mixture_flags(parser: argparse.ArgumentParser) -> None:
     )
 
 
+def positive_number(text: str) -> float:
+    """An argparse type: a positive finite number; the message quotes the text as given, so a
+    value that underflows ("1e-400") is not reported as "0.0"."""
+    import math
+
+    try:
+        value = float(text)
+    except ValueError:
+        raise argparse.ArgumentTypeError(f"expected a positive number, got {text!r}") from None
+    if not (math.isfinite(value) and value > 0):
+        why = (
+            " (it rounds to 0.0 in double precision)" if value == 0 and "e-" in text.lower() else ""
+        )
+        raise argparse.ArgumentTypeError(f"expected a positive finite number, got {text!r}{why}")
+    return value
+
+
 def exponent_value(text: str) -> float:
     """An argparse type: a positive finite-size exponent, as a number or a fraction ("2/3")."""
     import math

@@ -37,7 +37,7 @@ from ..studies.estimate import (
     POLISH_PASSES,
     largest_size_within,
 )
-from . import add_mixture_flags, mixture_from, seconds_text, threads_from
+from . import add_mixture_flags, mixture_from, positive_number, seconds_text, threads_from
 
 __all__ = ["add_arguments", "run"]
 
@@ -71,7 +71,10 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
         help="gradient: iteration cap (default 2000; the same flag as in sweep)",
     )
     parser.add_argument(
-        "--tol", type=float, default=None, help="hessian: eigen tolerance delta (default 1e-3)"
+        "--tol",
+        type=positive_number,
+        default=None,
+        help="hessian: eigen tolerance delta (default 1e-3)",
     )
     parser.add_argument("--no-polish", action="store_true", help="skip the final polish")
     parser.add_argument(

@@ -29,7 +29,7 @@ from ..studies.grid import (
     spec_from_flags,
     spec_from_toml,
 )
-from . import exponent_value, seconds_text
+from . import exponent_value, positive_number, seconds_text
 
 EPILOG = "A study TOML file (the grid, instead of the flags):\n\n" + TOML_EXAMPLE
 
@@ -57,7 +57,10 @@ def add_engine_arguments(parser: argparse.ArgumentParser) -> None:
     )
     parser.add_argument("--retries", type=int, default=2, help="Dask retries per task (default 2)")
     parser.add_argument(
-        "--timeout", type=float, default=20.0, help="seconds to reach the scheduler (default 20)"
+        "--timeout",
+        type=positive_number,
+        default=20.0,
+        help="seconds to reach the scheduler (default 20)",
     )
     parser.add_argument(
         "--no-progress",
@@ -107,7 +110,7 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
     )
     parser.add_argument(
         "--tol",
-        type=float,
+        type=positive_number,
         default=None,
         help="hessian: eigen tolerance delta, per spin: each step's direction is within delta"
         " of the top tangent eigenvalue (default 1e-3)",

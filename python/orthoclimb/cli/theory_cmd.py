@@ -27,7 +27,7 @@ from ..theory import (
     path_energy,
     threshold_energy,
 )
-from . import add_mixture_flags, mixture_from
+from . import add_mixture_flags, mixture_from, positive_number
 
 __all__ = ["add_arguments", "run"]
 
@@ -36,7 +36,7 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
     add_mixture_flags(parser)
     parser.add_argument(
         "--tol",
-        type=float,
+        type=positive_number,
         default=1e-6,
         help="tolerance of the ground-state solver (default 1e-6)",
     )
