@@ -507,9 +507,14 @@ impl PyPacked {
             let block = poly.block(p).map_err(|e| to_py_err(py, e))?;
             let len = block.coeffs.len();
             let stop = stop.unwrap_or(len);
-            if start > stop || stop > len {
+            if start > len || stop > len {
                 return Err(PyValueError::new_err(format!(
                     "coefficient range {start}..{stop} is outside 0..{len} for degree {p}"
+                )));
+            }
+            if start > stop {
+                return Err(PyValueError::new_err(format!(
+                    "coefficient range {start}..{stop} for degree {p} starts after it stops"
                 )));
             }
             block.coeffs[start..stop].iter().map(|&c| crate::storage::Coef::to_f64(c)).collect()

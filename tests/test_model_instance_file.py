@@ -546,3 +546,23 @@ def test_result_and_study_files_nested_too_deeply_are_clear_errors(tmp_path):
     (tmp_path / "s" / "study.json").write_text(deep)
     with pytest.raises(ValueError, match="cannot read"):
         read_config(tmp_path / "s")
+
+
+def test_the_energy_check_holds_where_n_xi_1_overflows(tmp_path):
+    # sqrt(n xi(1)) was computed as one product, which overflowed to inf here and made the
+    # tolerance infinite: any saved energy passed (a review)
+    stem = tmp_path / "inst"
+    oc.Hamiltonian.sample(oc.Mixture({1: 1e154}), 4, seed=1).save(stem)
+    assert oc.load_instance(stem).n == 4
+    _edit(tmp_path / "inst.json", lambda d: d["payload"]["fingerprint"].update(energy=12345.0))
+    with pytest.raises(InstanceFileError, match="differs from the saved one .*energy"):
+        oc.load_instance(stem)
+
+
+def test_a_length_that_is_no_integer_is_malformed(tmp_path):
+    # int() read 6.9 as 6
+    stem = tmp_path / "c"
+    oc.Hamiltonian.from_coefficients(2, {2: np.arange(3.0)}).save(stem)
+    _edit(tmp_path / "c.json", lambda d: d["payload"]["arrays"]["2"].update(length=3.0))
+    with pytest.raises(InstanceFileError, match="lists a length 3.0, not an integer"):
+        oc.load_instance(stem)

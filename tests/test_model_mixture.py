@@ -157,3 +157,38 @@ def test_a_mixture_pickles_with_every_protocol(protocol):
 
     m = Mixture({1: 0.25, 3: 1.0})
     assert pickle.loads(pickle.dumps(m, protocol=protocol)) == m
+
+
+@pytest.mark.parametrize(
+    ("q", "error", "words"),
+    [
+        (None, TypeError, "q must be a real numeric array, got None"),
+        ([None, 0.5], TypeError, "got \\[None, 0.5\\]"),
+        ("0.5", TypeError, "got '0.5'"),
+        (True, TypeError, "boolean"),
+        (np.datetime64("2020"), TypeError, "datetime64"),
+        (np.ma.array([0.5, 1.0], mask=[False, True]), TypeError, "masked array"),
+        (1 + 0j, TypeError, "complex"),
+        (10**400, ValueError, "beyond float64's range"),
+    ],
+)
+def test_xi_refuses_what_is_no_real_number(q, error, words):
+    # xi(None) gave nan, xi("0.5") 0.2556, xi(True) xi(1), and a masked entry was evaluated
+    # as if unmasked (a review)
+    with pytest.raises(error, match=words):
+        Mixture({2: 1.0, 4: 0.3}).xi(q)
+
+
+def test_xi_takes_large_python_integers_and_nan():
+    m = Mixture({2: 1.0})
+    assert m.xi([2**64, 0]).tolist() == [float(2**64) ** 2, 0.0]  # an object array of ints
+    assert math.isnan(m.xi(float("nan")))  # documented: NaN gives NaN
+
+
+@pytest.mark.parametrize("text", ["2:1_0", "2_0:1", "\uff12:1", "2:\u0661", "3:1.5\u00a0e1"])
+def test_parse_reads_ascii_numbers_only(text):
+    # Python's int() and float() read "1_0" as 10 and other scripts' digits as digits, so
+    # a typo for "2:1.0" became gamma = 10 (a review)
+    with pytest.raises(MixtureError, match="ASCII digits"):
+        Mixture.parse(text)
+    assert Mixture.parse(" 2 : 1.5e-1 , 4:+2").gammas == {2: 0.15, 4: 2.0}

@@ -311,6 +311,10 @@ def test_odd_integers_and_keys_get_package_errors():
     for start, stop in ((2**64, None), (0, 2**64), (0, count + 1)):
         with pytest.raises(ValueError, match=rf"is outside 0\.\.{count}"):
             ham.coefficients(3, start, stop)
+    # a reversed range inside 0..count was said to be outside it (a review)
+    with pytest.raises(ValueError, match=r"range 5\.\.3 for degree 3 starts after it stops"):
+        ham.coefficients(3, 5, 3)
+    assert ham.coefficients(3, 3, 3).shape == (0,)
     c2 = np.zeros(math.comb(5, 2))
     with pytest.raises(MixtureTypeError, match="'3'"):
         oc.Hamiltonian.from_coefficients(4, {2: c2, "3": np.zeros(count)})
@@ -362,3 +366,16 @@ def test_hessian_moves_checks_its_steps():
     for bad, kind in ((0, ValueError), (2.5, TypeError), (True, TypeError), (None, TypeError)):
         with pytest.raises(kind, match="steps must be"):
             oc.algorithms.hessian_moves(m, bad)
+
+
+def test_values_beyond_float64_are_named_as_such():
+    # a finite long double beyond float64 was reported as "a non-finite value inf", and an
+    # integer above int64 as "dtype object" (a review)
+    h = oc.Hamiltonian.sample(oc.Mixture({3: 1.0}), 4, seed=1)
+    if np.finfo(np.longdouble).max > np.finfo(np.float64).max:  # x86-64's 80-bit long double
+        with pytest.raises(ValueError, match="x holds .*1e\\+400.* at index \\(0,\\), beyond"):
+            h.energy(np.array([np.longdouble("1e400"), 0, 0, 0]))
+    with pytest.raises(ValueError, match="x holds an integer beyond float64's range"):
+        h.gradient([10**400, 0, 0, 0])
+    x = [2**64, 0, 0, 0]  # fits float64: converted like any integer
+    assert h.energy(x) == h.energy(np.array(x, dtype=np.float64))

@@ -9,10 +9,13 @@ import numpy as np
 from ..errors import NonFiniteError, ShapeError
 
 
-def as_float_array(a: object, name: str) -> np.ndarray:
-    """A C-contiguous float64 copy or view of `a`. Integers are converted; booleans, complex
-    numbers and non-numeric data are refused with TypeError."""
-    if isinstance(a, np.ma.MaskedArray):  # np.asarray would drop the mask silently
+def real_array(a: object, name: str) -> np.ndarray:
+    """``a`` as a NumPy array of a real dtype (float, int or uint, not converted), or the
+    exception that names what it is: TypeError for masked arrays (np.asarray would drop the
+    mask), booleans, complex numbers and non-numeric data (strings, dates, None), ShapeError
+    for ragged nesting, ValueError for an integer beyond float64's range. Python integers
+    too large for int64 (an object array) are converted to float64."""
+    if isinstance(a, np.ma.MaskedArray):
         raise TypeError(
             f"{name} is a masked array; pass a.filled(value) or a.data to say what masked"
             " entries mean"
@@ -24,21 +27,47 @@ def as_float_array(a: object, name: str) -> np.ndarray:
             f"{name} is not a rectangular numeric array: {reprlib.repr(a)} ({exc})"
         ) from None
     kind = arr.dtype.kind
+    if kind == "O" and all(type(v) is int for v in arr.flat):  # ints beyond int64
+        try:
+            return np.asarray(arr, dtype=np.float64)
+        except OverflowError:
+            top = int(np.finfo(np.float64).max)
+            big = max((v for v in arr.flat), key=abs) if arr.size else 0
+            big = big if abs(big) > top else top
+            digits = int(abs(big).bit_length() * 0.30103) + 1  # str() refuses > 4300 digits
+            raise ValueError(
+                f"{name} holds an integer beyond float64's range (about {digits} digits)"
+            ) from None
     if kind == "b":
         raise TypeError(f"{name} must be a real array, got a boolean array")
     if kind == "c":
         raise TypeError(f"{name} must be a real array, got complex dtype {arr.dtype}")
     if kind not in "fiu":
-        raise TypeError(f"{name} must be a real numeric array, got dtype {arr.dtype}")
-    arr = np.asarray(arr, dtype=np.float64, order="C")
-    if not np.isfinite(arr).all():
-        bad = np.argwhere(~np.isfinite(arr))[0]
-        where = tuple(int(i) for i in bad)
-        raise NonFiniteError(
-            f"{name} holds a non-finite value {arr[where]} at index {where}"
-            " (NaN and infinity are not allowed)"
+        raise TypeError(
+            f"{name} must be a real numeric array, got {reprlib.repr(a)} (dtype {arr.dtype})"
         )
     return arr
+
+
+def as_float_array(a: object, name: str) -> np.ndarray:
+    """A C-contiguous float64 copy or view of `a`, finite. Integers are converted; the rest
+    of :func:`real_array`'s refusals apply, and a value that is finite but beyond float64's
+    range (a long double) is named as such rather than as the infinity it would become."""
+    arr = real_array(a, name)
+    with np.errstate(over="ignore"):
+        out = np.asarray(arr, dtype=np.float64, order="C")
+    if not np.isfinite(out).all():
+        bad = np.argwhere(~np.isfinite(out))[0]
+        where = tuple(int(i) for i in bad)
+        if np.isfinite(arr[where]):
+            raise ValueError(
+                f"{name} holds {arr[where]!r} at index {where}, beyond float64's range"
+            )
+        raise NonFiniteError(
+            f"{name} holds a non-finite value {out[where]} at index {where}"
+            " (NaN and infinity are not allowed)"
+        )
+    return out
 
 
 def as_points(x: object, n: int, name: str = "x") -> np.ndarray:

@@ -90,31 +90,49 @@ def symmetrized(tensor: np.ndarray) -> np.ndarray:
     return out
 
 
+def asymmetry_problem(tensor: np.ndarray, rtol: float = 1e-10) -> str | None:
+    """None for a symmetric tensor, else what is wrong. Not symmetric means a difference under
+    some axis permutation above rtol * max|T|; since any permutation is at most p(p-1)/2
+    adjacent exchanges, a difference under one adjacent exchange above that bound divided by
+    p(p-1)/2 is refused."""
+    p = tensor.ndim
+    if p < 2 or tensor.size == 0:
+        return None
+    scale = float(np.max(np.abs(tensor)))
+    asym = max_asymmetry(tensor)
+    if asym <= rtol * max(scale, 1e-300) / (p * (p - 1) // 2):
+        return None
+    return (
+        f"the degree-{p} tensor is not symmetric (largest difference under an exchange of"
+        f" two adjacent axes {asym:.3g}, largest entry {scale:.3g})"
+    )
+
+
+def require_symmetric(tensor: np.ndarray, rtol: float = 1e-10, advice: str = "") -> None:
+    """ValueError (with ``advice`` appended after a semicolon) unless the tensor is
+    symmetric in the sense of :func:`asymmetry_problem`."""
+    problem = asymmetry_problem(tensor, rtol)
+    if problem is not None:
+        raise ValueError(problem + (";" + advice if advice else ""))
+
+
 def pack(tensor: np.ndarray, p: int, symmetrize: bool, rtol: float = 1e-10) -> np.ndarray:
     """Packed coefficients a_m = c(m) T[m] of a dense tensor of shape (n,)*p.
 
-    A tensor that is not symmetric is refused unless `symmetrize`, in which case it is first
-    averaged over axis permutations (that keeps the polynomial T(x, ..., x) unchanged). Not
-    symmetric means a difference under some axis permutation above rtol * max|T|; since any
-    permutation is at most p(p-1)/2 adjacent exchanges, the check refuses a difference under
-    one adjacent exchange above that bound divided by p(p-1)/2.
+    A tensor that is not symmetric (:func:`asymmetry_problem`) is refused unless `symmetrize`,
+    in which case it is first averaged over axis permutations (that keeps the polynomial
+    T(x, ..., x) unchanged).
     """
     if tensor.ndim != p or len(set(tensor.shape)) != 1:
         raise ShapeError(f"a degree-{p} tensor must have shape (n,)*{p}, got {tensor.shape}")
     n = tensor.shape[0]
     if n < 1:
         raise ShapeError(f"a degree-{p} tensor must have n >= 1, got shape {tensor.shape}")
-    if p >= 2:
-        scale = float(np.max(np.abs(tensor))) if tensor.size else 0.0
-        asym = max_asymmetry(tensor)
-        if asym > rtol * max(scale, 1e-300) / (p * (p - 1) // 2):
-            if not symmetrize:
-                raise ValueError(
-                    f"the degree-{p} tensor is not symmetric (largest difference under an "
-                    f"exchange of two adjacent axes {asym:.3g}, largest entry {scale:.3g});"
-                    " pass symmetrize=True to average it over permutations"
-                )
+    if symmetrize:
+        if asymmetry_problem(tensor, rtol) is not None:
             tensor = symmetrized(tensor)
+    else:
+        require_symmetric(tensor, rtol, " pass symmetrize=True to average it over permutations")
     idx = multisets(n, p)
     with np.errstate(over="ignore"):
         packed = np.ascontiguousarray(tensor[tuple(idx.T)] * orderings(idx))

@@ -291,7 +291,9 @@ def _load_recipe(json_path: Path, payload: dict[str, Any], check_memory: bool) -
         ham = Hamiltonian.sample(mixture, n, seed, dtype, corr, check_memory=check_memory)
     except InsufficientMemoryError as exc:  # name the file, keep the kind of error
         raise InsufficientMemoryError(f"loading the instance {str(json_path)!r}: {exc}") from None
-    scale = math.sqrt(n * float(mixture.xi(1.0)))  # standard deviation of H(x0), |x0| = 1
+    # the standard deviation of H(x0), |x0| = 1; sqrt(n xi(1)) in two factors, since n xi(1)
+    # can overflow where each is finite (an infinite scale let any saved energy pass)
+    scale = math.sqrt(n) * math.sqrt(float(mixture.xi(1.0)))
     diff = _compare_fingerprint(saved, _fingerprint(ham), dtype, scale)
     if diff is not None:
         written_by, running = payload.get("orthoclimb_version"), _version()
@@ -355,7 +357,10 @@ def _load_coefficients(
         entries = payload["arrays"]
         if not degrees or sorted(entries) != sorted(str(p) for p in degrees):
             raise ValueError(f"arrays {sorted(entries)} do not match degrees {degrees}")
-        lengths = {p: int(entries[str(p)]["length"]) for p in degrees}
+        lengths = {p: entries[str(p)]["length"] for p in degrees}
+        for p, length in lengths.items():  # int() took 6.9 as 6
+            if type(length) is not int:
+                raise TypeError(f"degree {p} lists a length {length!r}, not an integer")
         digests = {p: str(entries[str(p)]["sha256"]) for p in degrees}
         for p in degrees:
             size = _degree_size(n, p)

@@ -19,6 +19,7 @@ from typing import Any
 import numpy as np
 
 from ..errors import MixtureError, MixtureTypeError
+from .arrays import real_array
 
 MAX_DEGREE = 8
 """Largest degree p the kernels support."""
@@ -176,6 +177,11 @@ class Mixture:
                     f"cannot read {piece!r} in mixture text {text!r}; expected p:gamma"
                     " pairs like '2:1,4:0.3'"
                 )
+            if "_" in piece or not piece.isascii():  # int() and float() take "1_0" as 10
+                raise MixtureError(
+                    f"cannot read {piece!r} in mixture text {text!r}: numbers are written with"
+                    " ASCII digits, '.', 'e' and signs only (no '_' or other scripts' digits)"
+                )
             try:
                 p = int(p_text)
             except ValueError:
@@ -235,10 +241,7 @@ class Mixture:
             raise TypeError(f"derivative must be a nonnegative integer, got {derivative!r}")
         if derivative < 0:
             raise ValueError(f"derivative must be a nonnegative integer, got {derivative}")
-        try:
-            q_arr = np.asarray(q, dtype=np.float64)
-        except OverflowError:  # an integer beyond float64 (not shown: it may be huge)
-            raise ValueError("q holds an integer beyond float64's range") from None
+        q_arr = np.asarray(real_array(q, "q"), dtype=np.float64)
         out = np.zeros_like(q_arr)
         for p, g in self._gammas.items():
             if derivative > p:
