@@ -756,3 +756,18 @@ def test_a_scheduler_without_workers_is_announced_and_the_tasks_wait_for_one(tmp
         assert f"`dask worker {cluster.scheduler_address}`" in logs[-1]
     finally:
         cluster.close()
+
+
+def test_a_table_that_cannot_be_written_does_not_replace_the_sweeps_own_exception():
+    # the sweep's last step rewrites the table from the row files; one bad row file made it
+    # raise ValueError inside the finally block, replacing a Ctrl-C (exit 130 became 2)
+    from orthoclimb.studies.engine import _write_table_after
+
+    class BadRows:
+        def write_table(self):
+            raise ValueError("1 row file of the study cannot be used")
+
+    with pytest.raises(ValueError, match="cannot be used"):
+        _write_table_after(BadRows(), None)  # a sweep that ends well still reports it
+    with pytest.warns(RuntimeWarning, match="table was not updated: 1 row file"):
+        _write_table_after(BadRows(), KeyboardInterrupt())

@@ -241,3 +241,35 @@ def test_extrapolation_refuses_too_little_data():
         extrapolate([10], [[1.0, 2.0]])
     with pytest.raises(ValueError, match="2 seeds"):
         extrapolate([10, 20], [[1.0], [1.0, 2.0]])
+
+
+def test_bootstrap_draws_in_blocks_same_numbers_bounded_memory(monkeypatch):
+    # one n_boot x seeds array per size asked for 22 GiB at 1e6 replicates and 3000 seeds
+    # (a review); the blocks give the same draws whatever their size
+    import sys
+    import tracemalloc
+
+    module = sys.modules["orthoclimb.studies.extrapolate"]
+    rng = np.random.default_rng(1)
+    sizes = [100, 200, 400]
+    samples = [1.5 - n ** (-2 / 3) + 0.02 * rng.standard_normal(30) for n in sizes]
+    whole = extrapolate(sizes, samples, n_boot=3000, seed=3)
+    monkeypatch.setattr(module, "BOOT_BLOCK", 7)  # one replicate per block here
+    assert extrapolate(sizes, samples, n_boot=3000, seed=3) == whole
+    monkeypatch.undo()
+    many = [rng.standard_normal(3000) for _ in sizes[:2]]
+    tracemalloc.start()
+    try:
+        extrapolate(sizes[:2], many, n_boot=20_000)  # 480 MB of indices in one block
+        _, peak = tracemalloc.get_traced_memory()
+    finally:
+        tracemalloc.stop()
+    assert peak < 100 * 2**20, peak
+
+
+def test_an_exponent_that_underflows_is_refused():
+    # n^(-300) underflows: the line's determinant was 0 and e_inf NaN, reported as "no
+    # spread" (a review)
+    samples = [[1.0, 1.1], [1.2, 1.3], [1.3, 1.4]]
+    with pytest.raises(ValueError, match="exponent 300 is too large for the sizes"):
+        extrapolate([1000, 2000, 4000], samples, exponent=300)

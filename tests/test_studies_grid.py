@@ -416,3 +416,27 @@ def test_cli_positive_numbers_are_checked_on_the_text_given(tmp_path, capsys, fl
     err = capsys.readouterr().err
     assert f"argument {flag}: expected a positive" in err and f"got {text!r}" in err, err
     assert not (tmp_path / "o").exists()
+
+
+@pytest.mark.parametrize(
+    ("mixture", "words"),
+    [
+        (
+            "gammas = {3 = 1.0}\nname = 5",
+            "entry 0: a mixture's name must be a non-empty text, got 5",
+        ),
+        ('gammas = {3 = 1.0}\nname = ""', "non-empty text, got ''"),
+        ('gammas = {3 = 1.0, "03" = 0.5}', "a degree is given twice among \\['3', '03'\\]"),
+        ("gammas = {1_0 = 1.0}", "degrees must be integers, got '1_0'"),
+        ('xi = {3 = 1.0, "3 " = 0.5}', "degrees must be integers, got '3 '"),
+    ],
+)
+def test_toml_mixture_names_and_degrees_are_checked(tmp_path, mixture, words):
+    # name = 5 was stored in every row, which the table then refused, so the study could
+    # never be reported; "03" silently replaced the gamma of 3 (a review)
+    p = tmp_path / "s.toml"
+    p.write_text(
+        f'sizes=[20,30]\nseeds=[0,1]\n[[mixture]]\n{mixture}\n[[method]]\nname="gradient"\n'
+    )
+    with pytest.raises(ValueError, match=words):
+        spec_from_toml(p)

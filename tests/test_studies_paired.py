@@ -83,3 +83,11 @@ def test_paired_comparison_counts_runs_at_the_same_point_as_ties():
     assert paired_comparison(noise)["sign_p"] == pytest.approx(2 / 128)
     with pytest.raises(ValueError, match="tie"):
         paired_comparison(real, tie=-1.0)
+
+
+@pytest.mark.parametrize("bad", [math.nan, math.inf, -math.inf])
+def test_non_finite_differences_are_refused(bad):
+    # se came out NaN and t_p 0.0, "a certain edge", where scipy.stats.ttest_rel gives NaN
+    # (a review)
+    with pytest.raises(ValueError, match=f"must be finite, got {bad} at index 0"):
+        paired_comparison([bad, 0.01, 0.02, 0.03])

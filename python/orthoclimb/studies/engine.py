@@ -220,6 +220,21 @@ def _interrupts_held():
         raise KeyboardInterrupt
 
 
+def _write_table_after(store: Store, pending: BaseException | None) -> None:
+    """Brings the study's table up to date at the end of a sweep. When the sweep is already
+    ending with an exception (Ctrl-C, a lost scheduler), a table that cannot be written
+    (a row file edited by hand, say) is reported as a warning, so that it does not replace
+    that exception (exit 130 became exit 2, and the interruption went unreported)."""
+    try:
+        store.write_table()
+    except (ValueError, OSError) as exc:
+        if pending is None:
+            raise
+        import warnings
+
+        warnings.warn(f"the results table was not updated: {exc}", RuntimeWarning, stacklevel=2)
+
+
 def _connect(scheduler: str | None, plan: WorkerPlan, timeout: float):
     """A (client, cluster) pair; cluster is None for an external scheduler."""
     from distributed import Client, LocalCluster
@@ -510,7 +525,7 @@ def _sweep(
         # study removed, an extension undone), so a rerun may differ; else the table is
         # brought up to date
         if connected or not store.undo_open():
-            store.write_table()
+            _write_table_after(store, sys.exc_info()[1])
     address = None if scheduler is None else scheduler
     return SweepOutcome(
         len(tasks), skipped, done, failed, time.perf_counter() - start, plan, address, replaced

@@ -246,6 +246,9 @@ class MixtureSpec:
     def make(
         cls, mixture: Mixture, name: str | None = None, sizes: Iterable[int] | str | None = None
     ) -> MixtureSpec:
+        if name is not None and not (isinstance(name, str) and name.strip()):
+            # a number was stored as the rows' mixture, which the table then refused
+            raise ValueError(f"a mixture's name must be a non-empty text, got {name!r}")
         own = None if sizes is None else parse_sizes(sizes)
         return cls(name or mixture.to_text(), tuple(sorted(mixture.gammas.items())), own)
 
@@ -409,15 +412,22 @@ def _toml_mixture(entry: Any, i: int) -> MixtureSpec:
     table = entry["gammas"] if has_g else entry["xi"]
     if not isinstance(table, dict):
         raise ValueError(f"[[mixture]] entry {i}: write gammas/xi as a table like {{ 3 = 1.0 }}")
-    try:
-        pairs = {int(k): v for k, v in table.items()}
-    except ValueError:
-        raise ValueError(f"[[mixture]] entry {i}: degrees must be integers, got {table}") from None
+    # keys are text: int() would also read "1_0" as 10 and fold "03" into 3, losing a gamma
+    bad = [k for k in table if not (k.isascii() and k.isdigit())]
+    if bad:
+        raise ValueError(f"[[mixture]] entry {i}: degrees must be integers, got {bad[0]!r}")
+    pairs = {int(k): v for k, v in table.items()}
+    if len(pairs) < len(table):
+        twice = sorted(table, key=int)
+        raise ValueError(f"[[mixture]] entry {i}: a degree is given twice among {twice}")
     mix = Mixture(pairs) if has_g else Mixture.from_xi(pairs)
     unknown = sorted(set(entry) - {"name", "gammas", "xi", "sizes"})
     if unknown:
         raise ValueError(f"[[mixture]] entry {i} has an unknown key {unknown[0]!r}")
-    return MixtureSpec.make(mix, entry.get("name"), entry.get("sizes"))
+    try:
+        return MixtureSpec.make(mix, entry.get("name"), entry.get("sizes"))
+    except ValueError as exc:
+        raise ValueError(f"[[mixture]] entry {i}: {exc}") from None
 
 
 def spec_from_toml(path: str | Path) -> StudySpec:

@@ -49,6 +49,9 @@ def paired_comparison(d: Any, tie: float = 0.0) -> dict[str, float]:
     d = np.asarray(d, dtype=np.float64)
     if d.ndim != 1 or d.size < 2:
         raise ValueError(f"a paired comparison needs at least 2 seeds, got {d.size}")
+    if not np.all(np.isfinite(d)):  # a NaN made se NaN, and that read as "a certain edge"
+        i = int(np.flatnonzero(~np.isfinite(d))[0])
+        raise ValueError(f"the differences must be finite, got {d[i]} at index {i}")
     if not (math.isfinite(tie) and tie >= 0):
         raise ValueError(f"tie must be a finite number >= 0, got {tie}")
     d = np.where(np.abs(d) <= tie, 0.0, d)
