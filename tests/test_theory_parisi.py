@@ -711,3 +711,15 @@ def test_converged_is_a_python_bool_when_the_fit_check_gained():
     gs = ground_state(Mixture({2: 1.702, 7: 1.297, 8: 1.496}), tol=1e-9)
     assert type(gs.converged) is bool
     json.dumps(gs.to_dict())
+
+
+def test_the_functional_alone_computes_no_gradient_that_overflows():
+    # with alpha = 0, P(B) = (xi'(1) B + 1/B) / 2 (the integral of dq / B over [0, 1]);
+    # at B = 1e-300 the unused gradient's 1/B^2 warned of a division by zero (a review)
+    import warnings
+
+    m = Mixture({3: 1.0})
+    with warnings.catch_warnings():
+        warnings.simplefilter("error")
+        value = parisi_functional(m, 1e-300, [0.0, 1.0], [0.0])
+    assert value == pytest.approx(0.5 * (3e-300 + 1e300), rel=1e-14)

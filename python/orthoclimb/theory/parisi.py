@@ -184,14 +184,20 @@ class _Grid:
         c_left = c_right + mass
         return c_right, c_left, mass / c_right
 
-    def value_and_gradient(self, theta: np.ndarray) -> tuple[float, np.ndarray]:
-        """P(B, alpha) and its gradient in theta = (B, d_1, ..., d_K)."""
+    def value_and_gradient(
+        self, theta: np.ndarray, gradient: bool = True
+    ) -> tuple[float, np.ndarray | None]:
+        """P(B, alpha) and its gradient in theta = (B, d_1, ..., d_K); with ``gradient=False``
+        the value only (None for the gradient), whose 1/C^2 terms can overflow where P does
+        not (B = 1e-300 warned of a division by zero)."""
         B = theta[0]
         m = np.cumsum(theta[1:])
         dq = self.dq
         c_right, c_left, x = self.pieces(m, B)
         inv_c = _phi(x) * dq / c_right  # int over each piece of dq / C
         value = 0.5 * (self.dxi1 * B + float(m @ self.dxi) + float(inv_c.sum()))
+        if not gradient:
+            return value, None
         j2 = dq / (c_left * c_right)  # int over each piece of dq / C^2
         before = np.concatenate(([0.0], np.cumsum(j2)[:-1]))  # sum over earlier pieces
         d_inv_c_dm = -(dq * before + (dq / c_right) ** 2 * _psi(x))
@@ -264,7 +270,7 @@ def parisi_functional(mixture: Mixture, B: float, breakpoints: Any, alpha: Any) 
     """
     mixture = check_mixture(mixture, "parisi_functional")
     B, q, a = _check_step_function(B, breakpoints, alpha, "parisi_functional")
-    value, _ = _Grid(mixture, q).value_and_gradient(_theta(B, a))
+    value, _ = _Grid(mixture, q).value_and_gradient(_theta(B, a), gradient=False)
     return float(value)
 
 
@@ -482,7 +488,9 @@ def _move_jumps(
                 continue
             trial = q.copy()
             trial[j] = t
-            trial_value, _ = _Grid(grid.mixture, trial, grid.weight).value_and_gradient(theta)
+            trial_value, _ = _Grid(grid.mixture, trial, grid.weight).value_and_gradient(
+                theta, False
+            )
             if trial_value < value:
                 q, value, moved[i] = trial, trial_value, True
                 break
@@ -533,7 +541,7 @@ def _start_later(grid: _Grid, theta: np.ndarray, value: float, place: float):
             continue
         q = np.concatenate(([0.0, t], grid.q[1:]))
         trial = np.concatenate(([theta[0], 0.0], theta[1:]))
-        trial_value, _ = _Grid(grid.mixture, q, grid.weight).value_and_gradient(trial)
+        trial_value, _ = _Grid(grid.mixture, q, grid.weight).value_and_gradient(trial, False)
         if trial_value < value:
             return q, trial
     return None
@@ -554,7 +562,7 @@ def _tidy(grid: _Grid, theta: np.ndarray, value: float) -> tuple[np.ndarray, flo
         return theta, value
     trial = theta.copy()
     trial[1:][small] = 0.0
-    trial_value, _ = grid.value_and_gradient(trial)
+    trial_value, _ = grid.value_and_gradient(trial, False)
     if trial_value <= value + 1e-14:
         return trial, trial_value
     return theta, value
@@ -710,7 +718,7 @@ def _confirm_fit(
             return grid, theta, value, 0.0
         new_grid = _Grid(grid.mixture, q, grid.weight)
         trial = _solve(new_grid, trial)
-        new_value, _ = new_grid.value_and_gradient(trial)
+        new_value, _ = new_grid.value_and_gradient(trial, False)
         gain = max(0.0, float(value - new_value))
         if new_value < value:
             grid, theta, value = new_grid, trial, new_value
@@ -791,7 +799,7 @@ def _fit_jumps(
     q = np.array([0.0, *t, 1.0])
     th = np.array([B, 0.0, *heights])
     fitted = _Grid(grid.mixture, q, grid.weight)  # the value as the solver computes it
-    return fitted, th, fitted.value_and_gradient(th)[0]
+    return fitted, th, fitted.value_and_gradient(th, False)[0]
 
 
 def _explicit_start(mixture: Mixture, s: float) -> Callable[[np.ndarray], np.ndarray] | None:
@@ -921,10 +929,10 @@ def _ground_state(
         grid = _Grid(mixture, q, weight)
         if explicit is not None:
             known = explicit(q)
-            if grid.value_and_gradient(known)[0] < grid.value_and_gradient(theta)[0]:
+            if grid.value_and_gradient(known, False)[0] < grid.value_and_gradient(theta, False)[0]:
                 theta = known
         theta = _solve(grid, theta)
-        value, _ = grid.value_and_gradient(theta)
+        value, _ = grid.value_and_gradient(theta, False)
         solved_grid, solved_theta = grid, theta
         history.append((grid.size, s * value))
         change = s * abs(previous - value)
