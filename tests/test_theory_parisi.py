@@ -22,7 +22,7 @@ from orthoclimb.theory import (
     parisi_functional,
     parisi_gradient,
 )
-from orthoclimb.theory.parisi import _Grid
+from orthoclimb.theory._parisi_grid import _Grid
 
 
 def _functional_by_quad(mixture, B, breakpoints, alpha):
@@ -521,11 +521,11 @@ def test_a_jump_off_the_grid_reaches_the_one_jump_optimum_to_tol(gammas):
 
 
 def test_only_isolated_jumps_are_candidates_for_moving():
-    # the rule of parisi._jump_moves: a jump with a step of alpha on a neighbouring grid point
+    # the rule of _jump_moves: a jump with a step of alpha on a neighbouring grid point
     # belongs to a continuous part; moving it alone cannot lower P (measured on xi = 0.437 q^2
     # + 0.418 q^6 and 2+5 mixtures, where such moves only delayed convergence and ended up to
     # 3.4e-9 higher), so only a jump with no neighbouring step may move
-    from orthoclimb.theory.parisi import _jump_moves
+    from orthoclimb.theory._parisi_moves import _jump_moves
 
     mixture = Mixture({2: 1.0, 4: 0.5})
     grid = _Grid(mixture, np.linspace(0.0, 1.0, 9), 1.0 / mixture.xi(1.0, 1))
@@ -611,16 +611,16 @@ def test_functional_keeps_its_digits_for_a_large_alpha_on_a_tiny_last_piece():
 def test_the_solve_runs_on_one_blas_thread(monkeypatch, blas_threads):
     # common practice with spinning OpenBLAS threads: L-BFGS-B's small products on two threads
     # of a loaded machine took a solve from 0.08 s to 1.3 s (a review)
-    import orthoclimb.theory.parisi as parisi_module
+    import orthoclimb.theory._parisi_grid as grid_module
 
     seen = []
-    real = parisi_module.minimize
+    real = grid_module.minimize
 
     def spy(*args, **kwargs):
         seen.append(max(blas_threads()))
         return real(*args, **kwargs)
 
-    monkeypatch.setattr(parisi_module, "minimize", spy)
+    monkeypatch.setattr(grid_module, "minimize", spy)
     ground_state(Mixture.from_xi({2: 1.0, 4: 0.05}))
     assert seen and set(seen) == {1}
     assert max(blas_threads()) >= 2  # restored afterwards
