@@ -192,3 +192,10 @@ def test_parse_reads_ascii_numbers_only(text):
     with pytest.raises(MixtureError, match="ASCII digits"):
         Mixture.parse(text)
     assert Mixture.parse(" 2 : 1.5e-1 , 4:+2").gammas == {2: 0.15, 4: 2.0}
+
+
+def test_from_xi_overflow_names_the_coefficients_given():
+    # the message showed only the gammas (1e+154), not the xi coefficient 1e308 the caller
+    # passed (a review)
+    with pytest.raises(MixtureError, match=r"xi coefficients gamma_p\^2 \{2: 1e\+308\}"):
+        Mixture.from_xi({2: 1e308})

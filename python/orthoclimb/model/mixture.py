@@ -124,8 +124,10 @@ class Mixture:
             # (8:1e154 has xi''(1) = 56e308 = inf, and ALG came out NaN)
             total = sum(g * g * math.perm(p, k) for p, g in kept.items() if p >= k)
             if not math.isfinite(total):
+                squares = {p: g * g for p, g in kept.items()}  # what from_xi was given
                 raise MixtureError(
-                    f"the gammas {kept!r} are too large: xi{chr(39) * k}(1) overflows float64;"
+                    f"the gammas {kept!r} (xi coefficients gamma_p^2 {squares!r}) are too"
+                    f" large: xi{chr(39) * k}(1) overflows float64;"
                     " scale them down (every energy scales with them: gammas times c, energies"
                     " times c)"
                 )
