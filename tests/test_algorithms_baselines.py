@@ -194,12 +194,25 @@ def test_langevin_anneal():
 
 @pytest.mark.parametrize(
     ("schedule", "exc"),
-    [([], ValueError), ([1.0, -0.1], ValueError), ([1.0, np.inf], ValueError), ("hot", TypeError)],
+    [
+        ([], ValueError),
+        ([1.0, -0.1], ValueError),
+        ([1.0, np.inf], ValueError),
+        ("hot", TypeError),
+        ([True, False], TypeError),  # ran at temperatures 1 and 0 (a review)
+        ([1.0, 0.5j], TypeError),
+    ],
 )
 def test_langevin_schedule_validation(schedule, exc):
     ham = oc.Hamiltonian.sample(oc.Mixture({3: 1.0}), 10, seed=1)
     with pytest.raises(exc, match="schedule"):
         oc.langevin_anneal(ham, schedule=schedule)
+
+
+def test_a_schedule_of_too_many_steps_is_refused_before_it_is_built():
+    # 10^14 temperatures asked NumPy for 728 TiB (a MemoryError traceback in climb)
+    with pytest.raises(ValueError, match="steps must be at most 10_000_000, got 10{14}"):
+        geometric_schedule(1.0, 0.01, 10**14)
 
 
 def test_geometric_schedule_cools_and_refuses_to_heat():
@@ -464,3 +477,20 @@ def test_the_returned_iteration_is_a_row_of_the_path():
     assert run.info["status"] == "stalled"
     assert run.info["returned_iteration"] in set(run.path["iteration"].tolist())
     assert run.info["iterations"] == int(run.path["iteration"][-1])
+
+
+def test_polish_path_ends_at_the_returned_point():
+    # a gradient stage stopped by max_iter inside a dip returns its best iterate; the path
+    # went on to the last one, so its final energy (1.2629) was not the result's (1.2801)
+    from orthoclimb.algorithms import polish
+
+    ham = oc.Hamiltonian.sample(oc.Mixture({3: 1.0}), 100, 0)
+    start = np.random.default_rng(4).standard_normal(100)
+    dropped = 0
+    for max_iter in range(3, 16):
+        r = polish(ham, start, max_iter=max_iter, check=False)
+        assert r.path["energy"][-1] == r.energy, max_iter
+        assert r.energy == pytest.approx(ham.energy(r.x) / ham.n, rel=1e-13)
+        assert r.info["iterations"] == max_iter or r.info["status"] != "max_iter"
+        dropped += r.info["dropped_iterations"]
+    assert dropped > 0  # the case arises here (13 iterations: 2 dropped)

@@ -77,6 +77,8 @@ def test_climb_baselines_json(tmp_path, capsys, method, cap):
     "extra",
     [
         ["--steps", "0"],
+        ["--steps", str(10**20)],  # ran after estimating 1.7e13 h (a review)
+        ["--method", "anneal", "--steps", str(10**14)],  # a MemoryError traceback
         ["--tol", "-1"],
         ["--tol", "1e-400"],
         ["--n", "0"],

@@ -240,6 +240,7 @@ def test_deterministic_and_callback():
     [
         ({"steps": 0}, ValueError, "steps"),
         ({"steps": 2.5}, TypeError, "steps"),
+        ({"steps": 10**20}, ValueError, "steps must be at most 10_000_000"),  # ran for ever
         ({"tol": 0.0}, ValueError, "tol"),
         ({"tol": float("nan")}, ValueError, "tol"),
         ({"tol": "1e-3"}, TypeError, "tol"),

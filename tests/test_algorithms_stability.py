@@ -33,6 +33,8 @@ def test_stability_validation():
         oc.stability("simplex", mix, 10, seed=1, rhos=[0.5])
     with pytest.raises(TypeError, match="mixture"):
         oc.stability("gradient", {3: 1.0}, 10, seed=1, rhos=[0.5])
+    with pytest.raises(TypeError, match="keep_results must be True or False, got 'no'"):
+        oc.stability("gradient", mix, 10, seed=1, rhos=[0.5], keep_results="no")  # was true
 
 
 def test_stability_with_callable():

@@ -440,3 +440,11 @@ def test_toml_mixture_names_and_degrees_are_checked(tmp_path, mixture, words):
     )
     with pytest.raises(ValueError, match=words):
         spec_from_toml(p)
+
+
+def test_a_study_with_too_many_steps_is_refused():
+    # the same bound as climb's and hessian_ascent's (10^20 steps were taken and ran)
+    with pytest.raises(ValueError, match="option steps of anneal must be at most 10_000_000"):
+        spec_from_flags(
+            ["3:1"], None, "20,30", "0-1", "anneal", method_options={"anneal": {"steps": 10**8}}
+        )

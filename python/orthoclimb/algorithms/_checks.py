@@ -40,11 +40,19 @@ def check_ham(ham: Any, where: str) -> Hamiltonian:
     return ham
 
 
-def check_count(value: Any, name: str, minimum: int = 1) -> int:
+# The most steps of a Hessian-ascent path or an anneal. Each costs at least a pass over the
+# coefficients (about 10 us at n = 20); 10^20 was taken, printed an estimate of 1.7e13 h and
+# ran, and an anneal's schedule of 10^14 temperatures asked for 728 TiB (a review).
+MAX_STEPS = 10**7
+
+
+def check_count(value: Any, name: str, minimum: int = 1, maximum: int | None = None) -> int:
     if isinstance(value, bool) or not isinstance(value, (int, np.integer)):
         raise TypeError(f"{name} must be an integer >= {minimum}, got {value!r}")
     if value < minimum:
         raise ValueError(f"{name} must be >= {minimum}, got {value}")
+    if maximum is not None and value > maximum:
+        raise ValueError(f"{name} must be at most {maximum:_}, got {value}")
     return int(value)
 
 

@@ -38,8 +38,10 @@ from typing import Any
 
 import numpy as np
 
+from ..model.arrays import real_array
 from ..model.hamiltonian import Hamiltonian
 from ._checks import (
+    MAX_STEPS,
     check_count,
     check_flag,
     check_ham,
@@ -64,7 +66,7 @@ def geometric_schedule(t_start: float = 1.0, t_end: float = 0.01, steps: int = 4
     sequence of temperatures can go to :func:`langevin_anneal` as its ``schedule``."""
     t_start = check_positive(t_start, "t_start")
     t_end = check_positive(t_end, "t_end")
-    steps = check_count(steps, "steps")
+    steps = check_count(steps, "steps", maximum=MAX_STEPS)
     if t_end > t_start:
         raise ValueError(
             f"t_end = {t_end} is above t_start = {t_start}: a cooling schedule needs"
@@ -77,10 +79,9 @@ def geometric_schedule(t_start: float = 1.0, t_end: float = 0.01, steps: int = 4
 def _check_schedule(schedule: Any) -> np.ndarray:
     if schedule is None:
         return geometric_schedule()
-    try:
-        temps = np.array(schedule, dtype=np.float64)
-    except (TypeError, ValueError):
-        raise TypeError(f"schedule must be a sequence of temperatures, got {schedule!r}") from None
+    # booleans, complex numbers, text and masked arrays are refused ([True, False] ran at
+    # temperatures 1 and 0: a review)
+    temps = np.array(real_array(schedule, "schedule"), dtype=np.float64)
     if temps.ndim != 1 or temps.size == 0:
         raise ValueError(f"schedule must be a non-empty 1-D sequence, got shape {temps.shape}")
     bad = ~np.isfinite(temps) | (temps < 0.0)

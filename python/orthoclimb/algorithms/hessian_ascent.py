@@ -84,6 +84,7 @@ from ..model.mixture import Mixture
 from ..runtime import one_blas_thread
 from ..theory import algorithmic_energy, algorithmic_threshold, hessian_edge, path_energy
 from ._checks import (
+    MAX_STEPS,
     check_count,
     check_flag,
     check_ham,
@@ -282,7 +283,7 @@ def hessian_ascent(
     """
     ham = check_ham(ham, "hessian_ascent")
     warn_if_far_scale(ham, "hessian_ascent")
-    k = auto_steps(ham.n) if steps is None else check_count(steps, "steps")
+    k = auto_steps(ham.n) if steps is None else check_count(steps, "steps", maximum=MAX_STEPS)
     delta = check_positive(tol, "tol")
     if hessian_moves(ham.mixture, k) > 0:  # tol only matters where there are Hessian steps
         _warn_if_coarse(ham.mixture, delta)

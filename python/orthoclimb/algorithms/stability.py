@@ -22,7 +22,7 @@ import numpy as np
 from ..model.hamiltonian import Hamiltonian
 from ..model.memory import normalize_dtype
 from ..model.mixture import Mixture
-from ._checks import check_seed
+from ._checks import check_flag, check_seed
 from .result import Result, _plain
 
 __all__ = ["StabilityResult", "stability"]
@@ -110,6 +110,7 @@ def stability(
         raise TypeError(f"mixture must be an orthoclimb.Mixture, got {type(mixture).__name__}")
     seed = check_seed(seed)
     dtype = normalize_dtype(dtype)  # "float32" for np.float32 too, so to_dict stays JSON
+    keep_results = check_flag(keep_results, "keep_results")  # "no" was taken as true
     if isinstance(algorithm, str):
         start = 0 if start_seed is None else start_seed
         options = {**options, "seed": check_seed(start, "start_seed")}

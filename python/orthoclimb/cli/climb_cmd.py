@@ -24,6 +24,7 @@ from typing import Any
 
 import numpy as np
 
+from ..algorithms._checks import MAX_STEPS
 from ..fileio import ensure_folder, json_text
 from ..model import Hamiltonian, Mixture, estimate_memory
 from ..model.hamiltonian import _check_seed
@@ -268,9 +269,8 @@ def run(args: argparse.Namespace) -> int:
     mixture = mixture_from(args)
     threads_note = threads_from(args)
     if args.n < 2:  # before sampling, not after (every method refuses n = 1)
-        raise ValueError(
-            f"--n must be >= 2, got {args.n} (the sphere of n = 1 is the two points -1 and +1)"
-        )
+        why = " (the sphere of n = 1 is the two points -1 and +1)" if args.n == 1 else ""
+        raise ValueError(f"--n must be >= 2, got {args.n}{why}")
     for flag, seed in (("--seed", args.seed), ("--start-seed", args.start_seed)):
         _check_seed(seed, flag)  # the library's rule, before anything is printed or sampled
     if args.method == "gradient" and args.steps is not None:
@@ -287,6 +287,8 @@ def run(args: argparse.Namespace) -> int:
     steps = default_steps if given is None else given
     if steps < 1:
         raise ValueError(f"{flag} must be >= 1, got {steps}")
+    if flag == "--steps" and steps > MAX_STEPS:  # refused before the estimate is printed
+        raise ValueError(f"{flag} must be at most {MAX_STEPS:_}, got {steps}")
     if args.tol is not None and args.method != "hessian":
         raise ValueError(f"--tol applies to --method hessian only, not {args.method}")
     if args.no_polish and args.method == "gradient":

@@ -16,6 +16,7 @@ from dataclasses import dataclass
 from pathlib import Path
 from typing import Any
 
+from ..algorithms._checks import MAX_STEPS
 from ..model import Mixture
 
 if sys.version_info >= (3, 11):
@@ -209,6 +210,10 @@ class MethodSpec:
                     also = " or 'auto'" if default == "auto" else ""
                     raise ValueError(
                         f"option {key} of {name} must be an integer >= 1{also}, got {value!r}"
+                    )
+                if key == "steps" and not auto and value > MAX_STEPS:
+                    raise ValueError(
+                        f"option steps of {name} must be at most {MAX_STEPS:_}, got {value}"
                     )
             else:
                 if isinstance(value, bool) or not isinstance(value, (int, float)):
