@@ -494,3 +494,24 @@ def test_polish_path_ends_at_the_returned_point():
         assert r.info["iterations"] == max_iter or r.info["status"] != "max_iter"
         dropped += r.info["dropped_iterations"]
     assert dropped > 0  # the case arises here (13 iterations: 2 dropped)
+
+
+@pytest.mark.parametrize("scale", [1e-20, 1e20])
+def test_newton_steps_do_not_depend_on_the_scale_of_h(scale):
+    # exact identity: c H has the critical points of H, and Newton's steps are the same.
+    # An absolute 1 in the radial shift and in the test of progress stopped Newton at
+    # c = 1e-20 before its first step (a review)
+    from orthoclimb.algorithms._newton import newton_refine
+    from orthoclimb.algorithms._riemannian import sphere_ascent
+
+    n = 30
+    base = oc.Hamiltonian.sample(oc.Mixture({3: 1.0}), n, seed=3)
+    start = np.random.default_rng(1).standard_normal(n) / np.sqrt(n)
+    x0 = sphere_ascent(base, start, gtol=1e-4, max_iter=500).x
+    one = newton_refine(base, x0, gtol=1e-11)
+    scaled = oc.Hamiltonian.from_coefficients(n, {3: base.coefficients(3) * scale})
+    out = newton_refine(scaled, x0, gtol=1e-11 * scale)
+    assert one.status == "converged" and out.status == "converged"
+    assert out.steps == one.steps >= 1
+    np.testing.assert_allclose(out.x, one.x, atol=1e-13)
+    assert out.energy / scale == pytest.approx(one.energy, rel=1e-13)

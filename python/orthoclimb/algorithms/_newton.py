@@ -54,6 +54,14 @@ def _tangent_state(ham: Hamiltonian, x: np.ndarray) -> tuple[float, np.ndarray, 
     return e / ham.n, g - radial * x, radial
 
 
+def radial_shift(a: float, radial: float, scale: float) -> float:
+    """The c of A = Hess - x w^T - w x^T + c x x^T - radial I (a = x^T Hess x), which moves the
+    radial direction to -2 scale, below every tangent eigenvalue (|lambda| <= scale). The shift
+    is relative: an absolute one would swamp a Hessian of scale 1e-20 in the solve's rounding."""
+    big = 2.0 * scale if scale > 0.0 else 1.0
+    return a - big + radial
+
+
 def newton_refine(
     ham: Hamiltonian, x: np.ndarray, gtol: float, max_steps: int = 8
 ) -> NewtonOutcome:
@@ -75,8 +83,8 @@ def newton_refine(
         passes += 1
         # A = P (Hess - radial I) P - big x x^T = Hess - x w^T - w x^T + c x x^T - radial I
         w = hess @ x
-        big = (float(np.abs(hess).sum(axis=1).max()) + abs(radial) + 1.0) * 2.0
-        c = float(x @ w) - big + radial
+        # relative, as in the local-maximum check: an added 1 swamped a Hessian of scale 1e-20
+        c = radial_shift(float(x @ w), radial, float(np.abs(hess).sum(axis=1).max()) + abs(radial))
         hess -= np.outer(x, w) + np.outer(w, x) - c * np.outer(x, x)
         hess[np.diag_indices(n)] -= radial
         hess = 0.5 * (hess + hess.T)
@@ -92,7 +100,7 @@ def newton_refine(
             y = retract(x + scale * d)
             e_y, tg_y, radial_y = _tangent_state(ham, y)
             passes += 1
-            if e_y > e + _ROUNDING * max(abs(e), 1.0):
+            if e_y > e + _ROUNDING * abs(e):  # relative: 1.0 stopped every step at 1e-20
                 break
         else:
             status = "no_progress"

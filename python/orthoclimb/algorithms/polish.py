@@ -62,7 +62,7 @@ from ._checks import (
     dense_work_fits,
 )
 from ._config import base_config
-from ._newton import newton_refine
+from ._newton import newton_refine, radial_shift
 from ._riemannian import sphere_ascent
 from .result import Result, vector_digest
 
@@ -103,7 +103,7 @@ def tangent_spectrum(ham: Hamiltonian, x: Any) -> dict[str, Any]:
     w = hess @ x
     a = float(x @ w)
     scale = float(np.abs(hess).sum(axis=1).max()) + abs(radial)
-    c = _radial_shift(a, radial, scale)
+    c = radial_shift(a, radial, scale)
     hess -= np.outer(x, w) + np.outer(w, x) - c * np.outer(x, x)
     hess[np.diag_indices(n)] -= radial
     hess = 0.5 * (hess + hess.T)
@@ -131,14 +131,6 @@ _CHECK_COPIES = 5
 _OPERATOR_DENSE_N = 4 * LANCZOS_TOP
 
 
-def _radial_shift(a: float, radial: float, scale: float) -> float:
-    """The c of A = Hess - x w^T - w x^T + c x x^T - radial I (a = x^T Hess x), which moves the
-    radial direction to -2 scale, below every tangent eigenvalue (|lambda| <= scale). The shift
-    is relative: an absolute one would swamp a Hessian of scale 1e-20 in the solve's rounding."""
-    big = 2.0 * scale if scale > 0.0 else 1.0
-    return a - big + radial
-
-
 def _start(n: int) -> np.ndarray:
     """A fixed start vector for Lanczos, so that a check gives the same numbers every time
     (ARPACK's own start is random: three checks at n = 3001 differed in the 15th digit)."""
@@ -158,7 +150,7 @@ def _operator_spectrum(ham: Hamiltonian, x: np.ndarray, radial: float) -> tuple[
     rho = abs(float(eigsh(hop, k=1, which="LM", tol=1e-6, v0=_start(n))[0][0]))
     scale = rho + abs(radial)
     w = ham.hvp(x, x)
-    c = _radial_shift(float(x @ w), radial, scale)
+    c = radial_shift(float(x @ w), radial, scale)
 
     def apply(y: np.ndarray) -> np.ndarray:
         y = np.asarray(y, dtype=np.float64)
