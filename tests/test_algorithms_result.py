@@ -178,3 +178,21 @@ def test_a_polish_records_which_start_point_it_had():
     want = hashlib.sha256(unit.astype("<f8").tobytes()).hexdigest()
     assert run.config["start_sha256"] == want
     assert oc.polish(ham, -start).config["start_sha256"] != want
+
+
+def test_a_result_regenerates_its_instance(tmp_path):
+    # a user had to rebuild the instance by hand, and Mixture(config["mixture"]) refuses the
+    # saved text keys (a review); the recipe gives the same coefficients bit for bit
+    ham = oc.Hamiltonian.sample(
+        oc.Mixture({2: 0.5, 3: 1.0}), 40, seed=5, correlated_with=(9, 0.5), dtype="float32"
+    )
+    res = oc.hessian_ascent(ham, seed=1)
+    res.save(tmp_path / "r")
+    again = oc.load_result(tmp_path / "r").hamiltonian()
+    assert (again.n, again.seed, again.correlated_with, again.dtype) == (40, 5, (9, 0.5), "float32")
+    for p in (2, 3):
+        np.testing.assert_array_equal(again.coefficients(p), ham.coefficients(p))
+    assert again.energy(res.x) == ham.energy(res.x)
+    given = oc.Hamiltonian.from_coefficients(4, {2: np.arange(10.0)})
+    with pytest.raises(ValueError, match="given by its coefficients"):
+        oc.gradient_ascent(given).hamiltonian()

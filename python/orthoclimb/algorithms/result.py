@@ -104,6 +104,31 @@ class Result:
 
     __hash__ = None  # type: ignore[assignment]  # mutable, like a dataclass with eq
 
+    def hamiltonian(self, check_memory: bool = True) -> Any:
+        """The instance the run was on, regenerated from the config's recipe (mixture, n,
+        disorder seed, correlation, dtype): the same coefficients bit for bit, so
+        ``r.hamiltonian().energy(r.x) / r.config["n"]`` gives ``r.energy`` back (to rounding
+        of the last step). An instance given by its coefficients has no recipe: ValueError
+        (save it with ``Hamiltonian.save``). The memory check is
+        :meth:`~orthoclimb.Hamiltonian.sample`'s."""
+        from ..model import Hamiltonian, Mixture
+
+        cfg = self.config
+        if cfg.get("mixture") is None or cfg.get("disorder_seed") is None:
+            raise ValueError(
+                "this result's instance was given by its coefficients, not sampled from a seed,"
+                " so it cannot be regenerated; keep it with Hamiltonian.save"
+            )
+        corr = cfg.get("correlated_with")
+        return Hamiltonian.sample(
+            Mixture.from_dict(cfg["mixture"]),
+            cfg["n"],
+            cfg["disorder_seed"],
+            dtype=cfg.get("dtype", "float64"),
+            correlated_with=None if corr is None else (corr[0], corr[1]),
+            check_memory=check_memory,
+        )
+
     def summary(self) -> dict[str, Any]:
         """The JSON-ready summary: energy, seconds, method, config and info (no path table)."""
         return _plain(
