@@ -97,9 +97,13 @@ def evaluate_targets(case: dict) -> list[dict]:
             status = "info"
         else:
             status = "PASS" if value >= t.threshold else "MISS"
+        description = t.description
+        if row is not None and not exact:  # say where the value was measured (--quick)
+            where = ", ".join(f"{k}={row[k]}" for k in SIZE_KEYS if k in row)
+            description += f" (measured at {where})"
         result = {
             "case": t.case,
-            "description": t.description,
+            "description": description,
             "metric": t.metric,
             "threshold": t.threshold,
             "value": value,

@@ -101,7 +101,8 @@ def largest_size_within(mixture, below: int, nbytes: int, dtype: str = "float64"
 
 def calibrate(spec: StudySpec, threads: int = 1) -> dict[str, Calibration]:
     """Time sampling, a Hessian and an energy-and-gradient pass per mixture of ``spec`` at its
-    calibration size, with ``threads`` kernel threads (see the module doc)."""
+    calibration size, with ``threads`` kernel threads (see the module doc). The passes are
+    timed without a warm-up call, as a task's first passes after its sampling run."""
     from ..model import Hamiltonian, estimate_memory
     from ..runtime import get_num_threads, set_num_threads
 
@@ -122,8 +123,8 @@ def calibrate(spec: StudySpec, threads: int = 1) -> dict[str, Calibration]:
             cal[m.name] = Calibration(
                 n0,
                 sampling,
-                best_time(lambda h=ham, v=x: h.hessian(v)),
-                best_time(lambda h=ham, v=x: h.energy_and_gradient(v)),
+                best_time(lambda h=ham, v=x: h.hessian(v), warm_up=False),
+                best_time(lambda h=ham, v=x: h.energy_and_gradient(v), warm_up=False),
                 mix.max_degree,
             )
     finally:
