@@ -628,7 +628,10 @@ def test_a_sweep_that_leaves_the_report_behind_says_so(tmp_path, capsys, monkeyp
     base += ["--out", str(tmp_path / "s"), "--no-progress"]
     assert main([*base, "--seeds", "0-1"]) == 0
     assert (tmp_path / "s" / "report.md").is_file()
-    assert "predates" not in capsys.readouterr().out
+    out = capsys.readouterr().out
+    assert "predates" not in out
+    # the verdicts too, as report and demo print them (sweep printed only the table)
+    assert "\n- 2:1.0: the full-RSB criterion holds" in out, out
     assert main([*base, "--seeds", "0-2", "--no-report"]) == 0
     assert "predates this sweep's new rows" in capsys.readouterr().out
     assert main([*base, "--seeds", "0-2", "--no-report"]) == 0  # nothing new: no note

@@ -308,8 +308,11 @@ def run(args: argparse.Namespace) -> int:
     outcome, rep = execute(spec, args.out, args, report=not args.no_report)
     if outcome is None:  # --plan-only
         return 0
-    if rep is not None:
+    if rep is not None:  # the table and the verdicts, as `orthoclimb report` prints them
         print(rep.table())
+        print()
+        for finding in rep.findings:
+            print(f"- {finding}")
         print(
             f"report: {rep.files['markdown']}; plots: {rep.files.get('energy_vs_n')}, "
             f"{rep.files.get('distribution')}"
