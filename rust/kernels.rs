@@ -554,7 +554,10 @@ pub(crate) mod tests {
                 .map(|b| (b.degree, b.coeffs.iter().map(|&c| c as f64).collect()))
                 .collect();
             let parts: Vec<(usize, &[f64])> = wide.iter().map(|(p, c)| (*p, &c[..])).collect();
-            let (_, _, want32) = naive(&Packed::<f64>::from_coefficients(n, &parts).unwrap(), &x);
+            let (_, _, want32) = naive(
+                &Packed::<f64>::from_coefficients(&Exec::inline(), n, &parts).unwrap(),
+                &x,
+            );
             let got32 = hessian(&pool(2), &f32poly, &x).unwrap();
             for (a, b) in got32.iter().zip(&want32) {
                 assert!(close(*a, *b, scale), "float32 n={n}: {a} vs {b}");

@@ -342,11 +342,11 @@ impl PyPacked {
             .map(|a| slice1(a, "coefficients"))
             .collect::<PyResult<_>>()?;
         let parts: Vec<(usize, &[f64])> = degrees.into_iter().zip(slices).collect();
-        let inner = run(py, "packing", (u64::MAX, usize::MAX), |_| {
+        let inner = run(py, "packing", (u64::MAX, usize::MAX), |exec| {
             Ok(if f32_storage {
-                Storage::F32(Packed::from_coefficients(n, &parts)?)
+                Storage::F32(Packed::from_coefficients(exec, n, &parts)?)
             } else {
-                Storage::F64(Packed::from_coefficients(n, &parts)?)
+                Storage::F64(Packed::from_coefficients(exec, n, &parts)?)
             })
         })?;
         Ok(PyPacked { inner })
@@ -544,13 +544,16 @@ fn multiset_table<'py>(py: Python<'py>, n: usize, p: usize) -> PyResult<Bound<'p
         return Err(to_py_err(py, CoreError::InvalidDegree { p }));
     }
     let count = num_multisets(n, p).map_err(|e| to_py_err(py, e))?;
-    let table = run(py, "enumeration", (u64::MAX, usize::MAX), |_| {
+    let table = run(py, "enumeration", (u64::MAX, usize::MAX), |exec| {
         let len = count.checked_mul(p).ok_or(CoreError::SizeOverflow {
             what: format!("index table of {count} x {p}"),
         })?;
         let mut out = crate::error::try_zeroed::<i64>(len)?;
         let mut idx = vec![0usize; p];
-        for row in out.chunks_exact_mut(p) {
+        for (r, row) in out.chunks_exact_mut(p).enumerate() {
+            if r % (1 << 16) == 0 {
+                exec.check()?; // a table of many millions of rows takes seconds: Ctrl-C
+            }
             for (o, &i) in row.iter_mut().zip(&idx) {
                 *o = i as i64;
             }

@@ -10,6 +10,10 @@ use crate::error::{try_zeroed, CoreError, ZeroBits};
 use crate::exec::Exec;
 use crate::sampling::{coefficient_bound, fill_block, Disorder};
 
+/// Values copied between two polls of the stop flag in [`Packed::from_coefficients`]
+/// (8 MiB of float64, about a millisecond).
+pub const COPY_PIECE: usize = 1 << 20;
+
 /// A storage type for coefficients. Arithmetic is always done in f64.
 pub trait Coef:
     Copy + Send + Sync + Default + PartialEq + std::fmt::Debug + ZeroBits + 'static
@@ -173,8 +177,14 @@ impl<T: Coef> Packed<T> {
         Ok(Self::sorted(n, blocks))
     }
 
-    /// Wraps user-given coefficients (f64, rounded to T), one array per degree.
-    pub fn from_coefficients(n: usize, parts: &[(usize, &[f64])]) -> Result<Self, CoreError> {
+    /// Wraps user-given coefficients (f64, rounded to T), one array per degree, copied in
+    /// pieces of [`COPY_PIECE`] values between which a stop request of `exec` ends the call
+    /// with [`CoreError::Interrupted`].
+    pub fn from_coefficients(
+        exec: &Exec,
+        n: usize,
+        parts: &[(usize, &[f64])],
+    ) -> Result<Self, CoreError> {
         let degrees: Vec<usize> = parts.iter().map(|t| t.0).collect();
         let lens = block_lengths(n, &degrees)?;
         let mut blocks = Vec::with_capacity(parts.len());
@@ -194,7 +204,11 @@ impl<T: Coef> Packed<T> {
                     bytes: len * std::mem::size_of::<T>(),
                 })?;
             crate::pages::advise_huge(&mut coeffs);
-            coeffs.extend(data.iter().map(|&v| T::from_f64(v)));
+            // in pieces, so that a stop request (Ctrl-C) ends a copy of gigabytes early
+            for piece in data.chunks(COPY_PIECE) {
+                exec.check()?;
+                coeffs.extend(piece.iter().map(|&v| T::from_f64(v)));
+            }
             blocks.push(Block {
                 degree: p,
                 gamma: None,
@@ -331,13 +345,29 @@ mod tests {
         }
     }
 
+    /// A stop request ends the copy between pieces: the flag set before the call stops it
+    /// at the first piece, for an array of several pieces and for a short one.
+    #[test]
+    fn from_coefficients_stops_when_asked() {
+        let big = vec![0.5; 3 * COPY_PIECE];
+        let n = 2 * COPY_PIECE; // degree 1: n coefficients, two pieces
+        let exec = Exec::inline();
+        exec.request_stop();
+        let out = Packed::<f32>::from_coefficients(&exec, n, &[(1, &big[..n])]);
+        assert!(matches!(out, Err(CoreError::Interrupted)));
+        let out = Packed::<f64>::from_coefficients(&exec, 3, &[(2, &big[..6])]);
+        assert!(matches!(out, Err(CoreError::Interrupted)));
+        let fine = Packed::<f64>::from_coefficients(&Exec::inline(), n, &[(1, &big[..n])]);
+        assert_eq!(fine.unwrap().block(1).unwrap().coeffs.len(), n);
+    }
+
     #[test]
     fn from_coefficients_checks_lengths() {
         let data = vec![1.0; 6];
-        let ok = Packed::<f64>::from_coefficients(3, &[(2, &data)]).unwrap();
+        let ok = Packed::<f64>::from_coefficients(&Exec::inline(), 3, &[(2, &data)]).unwrap();
         assert_eq!(ok.block(2).unwrap().coeffs, data);
         assert!(ok.block(3).is_err());
-        let bad = Packed::<f64>::from_coefficients(3, &[(2, &data[..5])]);
+        let bad = Packed::<f64>::from_coefficients(&Exec::inline(), 3, &[(2, &data[..5])]);
         assert!(matches!(
             bad,
             Err(CoreError::CoefficientCount {
