@@ -273,3 +273,12 @@ def test_an_exponent_that_underflows_is_refused():
     samples = [[1.0, 1.1], [1.2, 1.3], [1.3, 1.4]]
     with pytest.raises(ValueError, match="exponent 300 is too large for the sizes"):
         extrapolate([1000, 2000, 4000], samples, exponent=300)
+
+
+@pytest.mark.parametrize("exponent", [1e-6, 1e-14, 1e-300])
+def test_an_exponent_too_small_for_the_sizes_is_refused(exponent):
+    # n^(-k) nearly equal over the sizes: the determinant cancelled, and k = 1e-6 gave
+    # e_inf = 185034.9, k = 1e-10 inf (a review); 1e-300 was called "too large"
+    samples = [[1.0, 1.1], [1.2, 1.3], [1.3, 1.4]]
+    with pytest.raises(ValueError, match=f"exponent {exponent} is too small for the sizes"):
+        extrapolate([20, 30, 40], samples, exponent=exponent)

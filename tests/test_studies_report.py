@@ -497,3 +497,10 @@ def test_report_out_writes_elsewhere_and_a_failed_write_points_to_it(tmp_path, c
     (folder / "report.md").mkdir()
     assert main(["report", str(folder), "--no-plots", "--bootstrap", "200"]) == 2
     assert "give --out FOLDER" in capsys.readouterr().err
+
+
+def test_confidence_levels_are_labelled_without_rounding():
+    # int(round(100 level)) printed 0.996 as a "100%" interval and 0.004 as "0%" (a review)
+    from orthoclimb.studies.report import level_text
+
+    assert [level_text(v) for v in (0.9, 0.996, 0.004, 0.95)] == ["90", "99.6", "0.4", "95"]

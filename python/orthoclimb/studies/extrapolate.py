@@ -150,13 +150,24 @@ def _checked(
         if not np.all(np.isfinite(a)):
             raise ValueError(f"non-finite energy among the samples at n = {n}")
     x = np.asarray(sizes, dtype=np.float64) ** (-exponent)
-    if np.any(x * x < sys.float_info.min) or len(np.unique(x)) < len(x):
+    if np.any(x * x < sys.float_info.min):
         # the line's normal equations then divide by zero: e_inf came out NaN
         raise ValueError(
             f"exponent {exponent} is too large for the sizes {list(sizes)}: n^(-exponent)"
-            " underflows or takes the same value at two sizes"
+            " underflows"
+        )
+    if 1.0 - x.min() / x.max() < MIN_SPREAD:
+        # nearly equal x: the determinant cancels, and 1e-6 gave e_inf = 185034.9
+        raise ValueError(
+            f"exponent {exponent} is too small for the sizes {list(sizes)}: n^(-exponent)"
+            f" changes by less than {MIN_SPREAD:g} of itself over them"
         )
     return arrays
+
+
+# The least relative spread of n^(-exponent) over the sizes that a fit takes (common practice:
+# the normal equations lose about log10(1/spread^2) of the 16 digits).
+MIN_SPREAD = 1e-4
 
 
 # A sample variance at most (SPREADLESS * eps * max|sample|)^2 is rounding, not spread.

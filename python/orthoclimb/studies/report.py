@@ -72,7 +72,7 @@ class Report:
                 f"{se} {g['count']:>5}"
             )
         lines.append("")
-        lvl = int(round(100 * self.spec_level()))
+        lvl = level_text(self.spec_level())
         lines.append(
             f"{'mixture':<22} {'method':<9} {'e_inf':>8} {f'{lvl}% interval':>19} "
             f"{'over laws':>19} {'ALG':>7} {'GS':>7} {'z(ALG)':>7} {'z(GS)':>7}"
@@ -257,7 +257,7 @@ def _findings(rep: Report, seeds: dict) -> list[str]:
         if f.get("value") is None:
             out.append(f"{f['mixture']}, {f['method']}: no extrapolation ({f['note']}).")
             continue
-        lvl = int(round(100 * f["level"]))
+        lvl = level_text(f["level"])
         kept = kept_laws(f)
         over = ""
         if len(kept) > 1 or kept[0] is not f:
@@ -361,9 +361,15 @@ def _grid_line(spec: StudySpec) -> str:
     return f"{sizes}; {counted(len(spec.seeds), 'seed')}; {storage}; methods {methods}."
 
 
+def level_text(level: float) -> str:
+    """A confidence level as a percentage without rounding it off: 0.9 -> "90", 0.996 ->
+    "99.6" (int(round()) printed 0.996 as a "100%" interval)."""
+    return f"{100 * level:.6g}"
+
+
 def _markdown(rep: Report) -> str:
     spec = rep.spec
-    lvl = int(round(100 * rep.spec_level()))
+    lvl = level_text(rep.spec_level())
     lines = [
         "# orthoclimb study report",
         "",
