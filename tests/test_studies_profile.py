@@ -183,3 +183,19 @@ def test_best_time_warms_up_once_untimed():
     assert best_time(lambda: calls.append(1), repeats=3) >= 0.0 and len(calls) == 4
     calls.clear()
     assert best_time(lambda: calls.append(1), repeats=3, warm_up=False) >= 0 and len(calls) == 3
+
+
+def test_a_folder_where_a_profile_file_goes_is_refused_before_the_timings(tmp_path, capsys):
+    # the timings ran (35 s at n = 30000), profile.json was written, then the figure failed
+    # on a folder at its path (a review); write_profile also writes both or neither
+    from orthoclimb.errors import OutputPathError
+    from orthoclimb.studies.profile import profile_kernels, write_profile
+
+    (tmp_path / "profile.png").mkdir()
+    assert main(["profile", "--gammas", "3:1", "--n", "20,30", "--out", str(tmp_path)]) == 2
+    assert "profile.png': it is a folder" in capsys.readouterr().err
+    assert not (tmp_path / "profile.json").exists()
+    prof = profile_kernels(Mixture({3: 1.0}), [20, 30], 1)
+    with pytest.raises(OutputPathError, match="it is a folder"):
+        write_profile(prof, tmp_path)
+    assert not (tmp_path / "profile.json").exists()

@@ -504,3 +504,25 @@ def test_confidence_levels_are_labelled_without_rounding():
     from orthoclimb.studies.report import level_text
 
     assert [level_text(v) for v in (0.9, 0.996, 0.004, 0.95)] == ["90", "99.6", "0.4", "95"]
+
+
+def test_a_report_is_written_all_or_nothing(tmp_path, monkeypatch):
+    # a folder at report.json: the report's plots and report.md were replaced, the old JSON
+    # kept, and the new report.md listed a JSON never written (a review); now the clash is
+    # refused before the work and, if it arises while writing, nothing is replaced
+    import orthoclimb.studies.report as report_module
+    from orthoclimb.errors import OutputPathError
+
+    _synthetic_study(tmp_path / "a", "20,40", lambda n, s: 1.6 - n ** (-2 / 3) + 0.01 * s)
+    write_report(tmp_path / "a", exponent=1.0)
+    before = {p.name: p.read_bytes() for p in (tmp_path / "a").iterdir() if p.is_file()}
+    (tmp_path / "a" / "report.json").unlink()
+    (tmp_path / "a" / "report.json").mkdir()
+    with pytest.raises(OutputPathError, match="report.json': it is a folder"):
+        write_report(tmp_path / "a")
+    # the same clash found only at writing time (the early check skipped)
+    monkeypatch.setattr(report_module, "is_folder", lambda path: False)
+    with pytest.raises(OutputPathError, match="it is a folder"):
+        write_report(tmp_path / "a")
+    for name in ("report.md", "energy_vs_n.png", "distribution.png"):
+        assert (tmp_path / "a" / name).read_bytes() == before[name], name

@@ -10,6 +10,7 @@ from __future__ import annotations
 
 import argparse
 import sys
+from pathlib import Path
 
 from . import add_mixture_flags, mixture_from, seconds_text, threads_from
 
@@ -44,16 +45,29 @@ def _stderr(text: str) -> None:
 
 
 def run(args: argparse.Namespace) -> int:
-    from ..fileio import ensure_folder, json_text
+    from ..errors import OutputPathError
+    from ..fileio import ensure_folder, is_folder, json_text
     from ..model import available_memory
     from ..model.memory import coefficient_count, format_bytes
     from ..studies.grid import parse_sizes
-    from ..studies.profile import KERNELS, check_profile, profile_kernels, write_profile
+    from ..studies.profile import (
+        KERNELS,
+        PROFILE_FILES,
+        check_profile,
+        profile_kernels,
+        write_profile,
+    )
 
     mix = mixture_from(args)
     threads_note = threads_from(args)
     sizes = parse_sizes(args.sizes)
     ensure_folder(args.out)  # before the timings: a bad --out fails at once
+    for name in PROFILE_FILES:  # and so does a folder where a file goes
+        if is_folder(Path(args.out) / name):
+            raise OutputPathError(
+                f"cannot write {str(Path(args.out) / name)!r}: it is a folder; remove it or"
+                " give another --out"
+            )
     need, workspace = check_profile(mix, sizes, args.repeats)  # before the plan is printed
     say = _stderr if not args.json else lambda _text: None
     if threads_note is not None:

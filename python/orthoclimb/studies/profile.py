@@ -22,7 +22,7 @@ from typing import Any
 
 import numpy as np
 
-from ..fileio import save_figure_atomic, write_json_atomic
+from ..fileio import json_writer, save_figure_atomic, write_all_atomic
 
 __all__ = ["KERNELS", "check_profile", "fit_exponents", "plot_profile", "profile_kernels"]
 
@@ -140,7 +140,12 @@ def fit_exponents(rows: Sequence[dict[str, Any]]) -> tuple[dict[str, float], dic
 
 
 def plot_profile(prof: dict[str, Any], path: str | Path) -> Path:
-    """Log-log plot of time vs n per kernel, with the fitted power laws."""
+    """Log-log plot of time vs n per kernel, with the fitted power laws, saved atomically."""
+    return save_figure_atomic(_profile_figure(prof), path, dpi=110)
+
+
+def _profile_figure(prof: dict[str, Any]) -> Any:
+    """The figure of :func:`plot_profile`."""
     from matplotlib.figure import Figure
 
     fig = Figure(figsize=(6, 4.5), layout="constrained")
@@ -159,12 +164,24 @@ def plot_profile(prof: dict[str, Any], path: str | Path) -> Path:
         fontsize=10,
     )
     ax.legend(fontsize=8)
-    return save_figure_atomic(fig, path, dpi=110)
+    return fig
+
+
+# The files a profile writes into its folder.
+PROFILE_FILES = ("profile.json", "profile.png")
 
 
 def write_profile(prof: dict[str, Any], folder: str | Path) -> dict[str, str]:
+    """profile.json and profile.png in ``folder``, written together: both or neither (the
+    JSON was written and the figure then refused by a folder at its path, after the whole
+    run's timings: a review)."""
     folder = Path(folder)
-    return {
-        "json": str(write_json_atomic(folder / "profile.json", prof)),
-        "plot": str(plot_profile(prof, folder / "profile.png")),
-    }
+    fig = _profile_figure(prof)
+    json_path, png_path = (folder / name for name in PROFILE_FILES)
+    write_all_atomic(
+        [
+            (json_path, json_writer(prof)),
+            (png_path, lambda fh: fig.savefig(fh, format="png", dpi=110)),
+        ]
+    )
+    return {"json": str(json_path), "plot": str(png_path)}

@@ -28,7 +28,7 @@ from typing import Any
 
 import numpy as np
 
-from ..fileio import ensure_folder, write_json_atomic, write_text_atomic
+from ..fileio import ensure_folder, is_folder, json_writer, write_all_atomic
 from .cost import cost_markdown, cost_table
 from .engine import counted
 from .extrapolate import Extrapolation, check_interval, extrapolate
@@ -42,7 +42,7 @@ from .laws import (
     power_text,
 )
 from .paired import TIE_RELATIVE, head_to_head
-from .report_plots import write_plots
+from .report_plots import plot_files
 from .store import Store, read_config
 from .tasks import theory_values
 
@@ -456,6 +456,11 @@ def _exp_text(rep: Report) -> str:
     return "k"
 
 
+# The files a report writes into its folder.
+REPORT_FILES = ("report.md", "report.json")
+PLOT_FILES = ("energy_vs_n.png", "distribution.png")
+
+
 def write_report(
     folder: str | os.PathLike,
     exponent: float | None = None,
@@ -472,15 +477,28 @@ def write_report(
     target = folder if out is None else Path(out)
     if out is not None:  # a bad --out fails before the work, not after the bootstrap
         ensure_folder(target, "the report's folder")
+    names = REPORT_FILES + (PLOT_FILES if plots else ())
+    for name in names:  # so does a folder standing where a file goes
+        if is_folder(target / name):
+            raise OutputPathError(
+                f"cannot write {str(target / name)!r}: it is a folder; remove it or give"
+                " --out FOLDER (out= in Python)"
+            )
     rep = build_report(folder, exponent, level, n_boot)
     data = _groups(Store(folder, rep.spec).rows())
+    # every file staged first and renamed only when all are written: a folder standing at
+    # report.json left a new report.md and plots beside the old report.json (a review)
+    files = []
+    for name, path, writer in plot_files(rep, data, target) if plots else []:
+        rep.files[name] = str(path)
+        files.append((path, writer))
+    rep.files["markdown"] = str(target / "report.md")
+    rep.files["json"] = str(target / "report.json")
+    text = _markdown(rep).encode("utf-8")
+    files.append((target / "report.md", lambda fh: fh.write(text)))
+    files.append((target / "report.json", json_writer(rep.to_dict())))
     try:
-        if plots:
-            rep.files.update(write_plots(rep, data, target))
-        rep.files["markdown"] = str(target / "report.md")
-        rep.files["json"] = str(target / "report.json")
-        write_text_atomic(target / "report.md", _markdown(rep))
-        write_json_atomic(target / "report.json", rep.to_dict())
+        write_all_atomic(files)
     except OutputPathError as exc:
         if out is not None:
             raise

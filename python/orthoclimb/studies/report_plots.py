@@ -1,4 +1,4 @@
-"""The report's figures: energy_vs_n.png and distribution.png, written atomically.
+"""The report's figures: energy_vs_n.png and distribution.png, written with the report.
 
 energy_vs_n: per mixture, the mean energy per spin +- its standard error against n^(-k), each
 method's fitted line, e_inf with its interval at n^(-k) = 0, and the ALG and GS lines.
@@ -7,21 +7,28 @@ distribution: per mixture, the energies per spin over seeds at each n (bar: thei
 
 from __future__ import annotations
 
+from collections.abc import Callable
 from pathlib import Path
-from typing import TYPE_CHECKING
+from typing import IO, TYPE_CHECKING, Any
 
 import numpy as np
-
-from ..fileio import save_figure_atomic
 
 if TYPE_CHECKING:
     from .report import Report
 
-__all__ = ["write_plots"]
+__all__ = ["plot_files"]
 
 
-def write_plots(rep: Report, data: dict, folder: Path) -> dict[str, str]:
-    """Draw both figures into ``folder``; returns their paths by name."""
+def _png(fig: Any) -> Callable[[IO[bytes]], None]:
+    """A writer of the figure as PNG (for ``fileio.write_all_atomic``)."""
+    return lambda fh: fig.savefig(fh, format="png", dpi=110)
+
+
+def plot_files(
+    rep: Report, data: dict, folder: Path
+) -> list[tuple[str, Path, Callable[[IO[bytes]], None]]]:
+    """Draw both figures; returns (name, path in ``folder``, writer) for each, which the
+    report writes together with its text files, all or none."""
     from matplotlib.figure import Figure
 
     mixtures = list(rep.theory)
@@ -76,7 +83,7 @@ def write_plots(rep: Report, data: dict, folder: Path) -> dict[str, str]:
         ax.set_ylabel("energy per spin H(x)/n")
         ax.set_title(f"{mix}  (gammas {th['gammas']})", fontsize=10)
         ax.legend(fontsize=8)
-    out = {"energy_vs_n": str(save_figure_atomic(fig, folder / "energy_vs_n.png", dpi=110))}
+    out = [("energy_vs_n", folder / "energy_vs_n.png", _png(fig))]  # as PLOT_FILES
 
     fig = Figure(figsize=(5.2 * len(mixtures), 4.2), layout="constrained")
     axes = fig.subplots(1, len(mixtures), squeeze=False)[0]
@@ -108,5 +115,5 @@ def write_plots(rep: Report, data: dict, folder: Path) -> dict[str, str]:
         ax.set_ylabel("energy per spin over seeds (bar: mean)")
         ax.set_title(mix, fontsize=10)
         ax.legend(fontsize=8)
-    out["distribution"] = str(save_figure_atomic(fig, folder / "distribution.png", dpi=110))
+    out.append(("distribution", folder / "distribution.png", _png(fig)))
     return out
