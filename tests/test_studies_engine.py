@@ -774,3 +774,24 @@ def test_a_table_that_cannot_be_written_does_not_replace_the_sweeps_own_exceptio
         _write_table_after(BadRows(), None)  # a sweep that ends well still reports it
     with pytest.warns(RuntimeWarning, match="table was not updated: 1 row file"):
         _write_table_after(BadRows(), KeyboardInterrupt())
+
+
+def test_a_plain_row_with_an_infinite_energy_is_refused(tmp_path, capsys):
+    # a plain (unsealed, older) row file with energy Infinity was read, printed as inf in the
+    # table and as null in the JSON, with exit 0 (a review); and `report ""` reported on "."
+    import json as json_module
+
+    folder = tmp_path / "s"
+    spec = spec_from_flags(["3:1"], None, "16,24", "0-1", "gradient")
+    store = Store.open(folder, spec)
+    for t in spec.tasks():
+        row = {"task_id": t.task_id, "mixture": t.mixture.name, "method": t.method.name}
+        row.update(n=t.n, seed=t.seed, energy=1.0)
+        (folder / "rows" / f"{t.task_id}.json").write_text(json_module.dumps(row))
+    assert len(store.rows()) == 4  # plain rows are read
+    path = sorted((folder / "rows").glob("*.json"))[0]
+    path.write_text(path.read_text().replace('"energy": 1.0', '"energy": Infinity'))
+    with pytest.raises(ValueError, match="has energy = inf, not a finite number"):
+        store.rows()
+    assert main(["report", ""]) == 2
+    assert "the study folder must be named, got an empty string" in capsys.readouterr().err

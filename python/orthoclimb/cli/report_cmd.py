@@ -58,6 +58,8 @@ def run(args: argparse.Namespace) -> int:
         raise ValueError(f"--bootstrap must be in [100, {MAX_BOOT}], got {args.bootstrap}")
     if args.out is not None and not args.out.strip():
         raise ValueError("--out must name a folder, got an empty string")
+    if not args.study.strip():  # "" reported on the working folder (".")
+        raise ValueError("the study folder must be named, got an empty string")
     rep = write_report(
         args.study,
         args.exponent,

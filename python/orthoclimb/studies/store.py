@@ -31,6 +31,7 @@ from __future__ import annotations
 import contextlib
 import io
 import json
+import math
 import os
 from collections.abc import Iterable, Iterator
 from datetime import datetime, timezone
@@ -206,6 +207,8 @@ def _read_row(path: Path) -> dict[str, Any]:
         if isinstance(value, bool) or not isinstance(value, types):
             expected = " or ".join(t.__name__ for t in types)
             raise _redo(path, f"has {key} = {value!r}, expected {expected}")
+    if not math.isfinite(row["energy"]):  # an edited row's Infinity printed inf, exit 0
+        raise _redo(path, f"has energy = {row['energy']!r}, not a finite number")
     if row["task_id"] != path.stem:
         raise _redo(path, f"holds task {row['task_id']!r}, not {path.stem!r}")
     return row
