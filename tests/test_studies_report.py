@@ -521,7 +521,7 @@ def test_a_report_is_written_all_or_nothing(tmp_path, monkeypatch):
     with pytest.raises(OutputPathError, match="report.json': it is a folder"):
         write_report(tmp_path / "a")
     # the same clash found only at writing time (the early check skipped)
-    monkeypatch.setattr(report_module, "is_folder", lambda path: False)
+    monkeypatch.setattr(report_module, "refuse_folder", lambda path, advice: None)
     with pytest.raises(OutputPathError, match="it is a folder"):
         write_report(tmp_path / "a")
     for name in ("report.md", "energy_vs_n.png", "distribution.png"):

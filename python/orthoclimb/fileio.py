@@ -172,13 +172,24 @@ def write_all_atomic(
     return [Path(path) for path, _ in files]
 
 
+def refuse_folder(dest: str | os.PathLike, advice: str = "give a file name") -> None:
+    """:class:`~orthoclimb.errors.OutputPathError` when a folder stands where the file
+    ``dest`` is to be written; callers that write after long work check their files first."""
+    if is_folder(dest):
+        raise OutputPathError(f"cannot write {str(dest)!r}: it is a folder; {advice}")
+
+
+def figure_writer(fig: Any, fmt: str = "png", **kwargs: Any) -> Callable[[IO[bytes]], None]:
+    """A writer for :func:`write_atomic` of a matplotlib figure in format ``fmt``."""
+    return lambda fh: fig.savefig(fh, format=fmt, **kwargs)
+
+
 def _stage(dest: Path, write: Callable[[IO[bytes]], None]) -> str:
     """Write a temporary file beside ``dest`` with ``write`` and return its path (see
     :func:`write_atomic` for the errors). Its name starts with the first 32 characters of
     ``dest``'s, so a name near the file system's limit of 255 bytes still fits."""
     ensure_folder(dest.parent, f"the folder of {str(dest)!r},")
-    if is_folder(dest):
-        raise OutputPathError(f"cannot write {str(dest)!r}: it is a folder; give a file name")
+    refuse_folder(dest)
     try:
         fd, tmp = tempfile.mkstemp(dir=dest.parent, prefix=f".{dest.name[:32]}.", suffix=".tmp")
     except OSError as exc:
@@ -289,7 +300,7 @@ def write_json_atomic(path: str | os.PathLike, data: Any) -> Path:
 def save_figure_atomic(fig: Any, path: str | os.PathLike, **kwargs: Any) -> Path:
     """Save a matplotlib figure atomically; the format follows the file name's suffix."""
     fmt = kwargs.pop("format", Path(path).suffix.lstrip(".") or "png")
-    return write_atomic(path, lambda fh: fig.savefig(fh, format=fmt, **kwargs))
+    return write_atomic(path, figure_writer(fig, fmt, **kwargs))
 
 
 def envelope(format_name: str, version: int, payload: dict) -> dict:

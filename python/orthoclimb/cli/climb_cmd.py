@@ -24,7 +24,7 @@ from typing import Any
 
 import numpy as np
 
-from ..algorithms._checks import MAX_STEPS
+from ..algorithms._checks import MAX_STEPS, check_count
 from ..fileio import ensure_folder, json_text
 from ..model import Hamiltonian, Mixture, estimate_memory
 from ..model.hamiltonian import _check_seed
@@ -285,10 +285,8 @@ def run(args: argparse.Namespace) -> int:
     )
     default_steps = {"hessian": auto_steps(args.n), "gradient": 2000, "anneal": 400}[args.method]
     steps = default_steps if given is None else given
-    if steps < 1:
-        raise ValueError(f"{flag} must be >= 1, got {steps}")
-    if flag == "--steps" and steps > MAX_STEPS:  # refused before the estimate is printed
-        raise ValueError(f"{flag} must be at most {MAX_STEPS:_}, got {steps}")
+    # refused before the estimate is printed, with the methods' own bound on steps
+    check_count(steps, flag, maximum=MAX_STEPS if flag == "--steps" else None)
     if args.tol is not None and args.method != "hessian":
         raise ValueError(f"--tol applies to --method hessian only, not {args.method}")
     if args.no_polish and args.method == "gradient":

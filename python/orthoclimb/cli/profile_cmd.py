@@ -45,8 +45,7 @@ def _stderr(text: str) -> None:
 
 
 def run(args: argparse.Namespace) -> int:
-    from ..errors import OutputPathError
-    from ..fileio import ensure_folder, is_folder, json_text
+    from ..fileio import ensure_folder, json_text, refuse_folder
     from ..model import available_memory
     from ..model.memory import coefficient_count, format_bytes
     from ..studies.grid import parse_sizes
@@ -63,11 +62,7 @@ def run(args: argparse.Namespace) -> int:
     sizes = parse_sizes(args.sizes)
     ensure_folder(args.out)  # before the timings: a bad --out fails at once
     for name in PROFILE_FILES:  # and so does a folder where a file goes
-        if is_folder(Path(args.out) / name):
-            raise OutputPathError(
-                f"cannot write {str(Path(args.out) / name)!r}: it is a folder; remove it or"
-                " give another --out"
-            )
+        refuse_folder(Path(args.out) / name, "remove it or give another --out")
     need, workspace = check_profile(mix, sizes, args.repeats)  # before the plan is printed
     say = _stderr if not args.json else lambda _text: None
     if threads_note is not None:

@@ -2,11 +2,18 @@
 
 from __future__ import annotations
 
+import math
 import reprlib
 
 import numpy as np
 
 from ..errors import NonFiniteError, ShapeError
+
+
+def digits(value: int) -> int:
+    """About how many decimal digits ``value`` has, without str() (Python refuses to convert
+    integers of over 4300 digits to text)."""
+    return int(abs(value).bit_length() * math.log10(2)) + 1
 
 
 def real_array(a: object, name: str) -> np.ndarray:
@@ -34,9 +41,8 @@ def real_array(a: object, name: str) -> np.ndarray:
             top = int(np.finfo(np.float64).max)
             big = max((v for v in arr.flat), key=abs) if arr.size else 0
             big = big if abs(big) > top else top
-            digits = int(abs(big).bit_length() * 0.30103) + 1  # str() refuses > 4300 digits
             raise ValueError(
-                f"{name} holds an integer beyond float64's range (about {digits} digits)"
+                f"{name} holds an integer beyond float64's range (about {digits(big)} digits)"
             ) from None
     if kind == "b":
         raise TypeError(f"{name} must be a real array, got a boolean array")

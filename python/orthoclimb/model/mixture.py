@@ -19,7 +19,7 @@ from typing import Any
 import numpy as np
 
 from ..errors import MixtureError, MixtureTypeError
-from .arrays import real_array
+from .arrays import digits, real_array
 
 MAX_DEGREE = 8
 """Largest degree p the kernels support."""
@@ -37,12 +37,6 @@ def _check_degree(p: Any) -> int:
     return p
 
 
-def _digits(value: int) -> int:
-    """About how many decimal digits ``value`` has, without str() (Python refuses to convert
-    integers of over 4300 digits to text)."""
-    return int(abs(value).bit_length() * math.log10(2)) + 1
-
-
 def _check_gamma(p: int, gamma: Any, what: str = "gamma") -> float:
     if isinstance(gamma, (bool, np.bool_, str, bytes, np.complexfloating)):
         # True would read as 1.0, "0.5" as 0.5 and a NumPy complex as its real part (float()
@@ -55,7 +49,7 @@ def _check_gamma(p: int, gamma: Any, what: str = "gamma") -> float:
     except OverflowError:  # an integer beyond float64
         raise MixtureError(
             f"{what} for p = {p} is beyond float64's range, got an integer of about"
-            f" {_digits(int(gamma))} digits"
+            f" {digits(int(gamma))} digits"
         ) from None
     if not math.isfinite(value) or value < 0:
         raise MixtureError(f"{what} for p = {p} must be finite and >= 0, got {gamma!r}")

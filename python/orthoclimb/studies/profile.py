@@ -22,7 +22,7 @@ from typing import Any
 
 import numpy as np
 
-from ..fileio import json_writer, save_figure_atomic, write_all_atomic
+from ..fileio import figure_writer, json_writer, save_figure_atomic, write_all_atomic
 
 __all__ = ["KERNELS", "check_profile", "fit_exponents", "plot_profile", "profile_kernels"]
 
@@ -181,7 +181,7 @@ def write_profile(prof: dict[str, Any], folder: str | Path) -> dict[str, str]:
     write_all_atomic(
         [
             (json_path, json_writer(prof)),
-            (png_path, lambda fh: fig.savefig(fh, format="png", dpi=110)),
+            (png_path, figure_writer(fig, dpi=110)),
         ]
     )
     return {"json": str(json_path), "plot": str(png_path)}

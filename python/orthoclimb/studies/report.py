@@ -28,7 +28,7 @@ from typing import Any
 
 import numpy as np
 
-from ..fileio import ensure_folder, is_folder, json_writer, write_all_atomic
+from ..fileio import ensure_folder, json_writer, refuse_folder, write_all_atomic
 from .cost import cost_markdown, cost_table
 from .engine import counted
 from .extrapolate import Extrapolation, check_interval, extrapolate
@@ -42,7 +42,7 @@ from .laws import (
     power_text,
 )
 from .paired import TIE_RELATIVE, head_to_head
-from .report_plots import plot_files
+from .report_plots import PLOT_FILES, plot_files
 from .store import Store, read_config
 from .tasks import theory_values
 
@@ -456,9 +456,8 @@ def _exp_text(rep: Report) -> str:
     return "k"
 
 
-# The files a report writes into its folder.
+# The text files a report writes into its folder (PLOT_FILES: its figures).
 REPORT_FILES = ("report.md", "report.json")
-PLOT_FILES = ("energy_vs_n.png", "distribution.png")
 
 
 def write_report(
@@ -479,11 +478,7 @@ def write_report(
         ensure_folder(target, "the report's folder")
     names = REPORT_FILES + (PLOT_FILES if plots else ())
     for name in names:  # so does a folder standing where a file goes
-        if is_folder(target / name):
-            raise OutputPathError(
-                f"cannot write {str(target / name)!r}: it is a folder; remove it or give"
-                " --out FOLDER (out= in Python)"
-            )
+        refuse_folder(target / name, "remove it or give --out FOLDER (out= in Python)")
     rep = build_report(folder, exponent, level, n_boot)
     data = _groups(Store(folder, rep.spec).rows())
     # every file staged first and renamed only when all are written: a folder standing at

@@ -9,19 +9,19 @@ from __future__ import annotations
 
 from collections.abc import Callable
 from pathlib import Path
-from typing import IO, TYPE_CHECKING, Any
+from typing import IO, TYPE_CHECKING
 
 import numpy as np
+
+from ..fileio import figure_writer
 
 if TYPE_CHECKING:
     from .report import Report
 
-__all__ = ["plot_files"]
+__all__ = ["PLOT_FILES", "plot_files"]
 
-
-def _png(fig: Any) -> Callable[[IO[bytes]], None]:
-    """A writer of the figure as PNG (for ``fileio.write_all_atomic``)."""
-    return lambda fh: fig.savefig(fh, format="png", dpi=110)
+# The report's figures, by file name.
+PLOT_FILES = ("energy_vs_n.png", "distribution.png")
 
 
 def plot_files(
@@ -83,7 +83,7 @@ def plot_files(
         ax.set_ylabel("energy per spin H(x)/n")
         ax.set_title(f"{mix}  (gammas {th['gammas']})", fontsize=10)
         ax.legend(fontsize=8)
-    out = [("energy_vs_n", folder / "energy_vs_n.png", _png(fig))]  # as PLOT_FILES
+    out = [("energy_vs_n", folder / PLOT_FILES[0], figure_writer(fig, dpi=110))]
 
     fig = Figure(figsize=(5.2 * len(mixtures), 4.2), layout="constrained")
     axes = fig.subplots(1, len(mixtures), squeeze=False)[0]
@@ -115,5 +115,5 @@ def plot_files(
         ax.set_ylabel("energy per spin over seeds (bar: mean)")
         ax.set_title(mix, fontsize=10)
         ax.legend(fontsize=8)
-    out.append(("distribution", folder / "distribution.png", _png(fig)))
+    out.append(("distribution", folder / PLOT_FILES[1], figure_writer(fig, dpi=110)))
     return out
