@@ -117,6 +117,16 @@ def test_plot_into_a_missing_folder_is_an_error(tmp_path, capsys):
     assert "does not exist" in capsys.readouterr().err
 
 
+def test_plot_below_a_file_names_the_file(tmp_path, capsys):
+    # 'afile/x.png' with afile a file said the folder does not exist (a review)
+    (tmp_path / "afile").write_text("keep")
+    target = tmp_path / "afile" / "sub" / "x.png"
+    assert main(["theory", "--gammas", "3:1", "--plot", str(target)]) == 2
+    err = capsys.readouterr().err
+    assert f"{str(tmp_path / 'afile')!r} is a file, not a folder" in err
+    assert (tmp_path / "afile").read_text() == "keep"
+
+
 @pytest.mark.parametrize("text", ["2:x", "2", "9:1", "2:-1", "", "2:1,2:3"])
 def test_malformed_mixture_exit_code_2(text, capsys):
     assert main(["theory", "--gammas", text]) == 2

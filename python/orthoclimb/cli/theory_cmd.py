@@ -12,6 +12,7 @@ from __future__ import annotations
 import argparse
 import math
 import os
+from pathlib import Path
 from typing import Any
 
 import numpy as np
@@ -162,6 +163,12 @@ def _check_plot_path(path: str) -> None:
     if os.path.isdir(path):
         raise ValueError(f"cannot write the plot {path!r}: it is a folder; give a file name")
     if not os.path.isdir(folder):
+        chain = (Path(folder), *Path(folder).parents)
+        blocker = next((f for f in chain if os.path.lexists(f)), None)
+        if blocker is not None and not blocker.is_dir():
+            raise ValueError(
+                f"cannot write the plot {path!r}: {str(blocker)!r} is a file, not a folder"
+            )
         raise ValueError(f"cannot write the plot {path!r}: folder {folder!r} does not exist")
     suffix = os.path.splitext(path)[1].lstrip(".").lower()
     formats = Figure().canvas.get_supported_filetypes()
