@@ -137,6 +137,12 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
     )
     parser.add_argument("--out", required=True, help="study folder")
     parser.add_argument("--no-report", action="store_true", help="skip the report at the end")
+    parser.add_argument(
+        "--keep-points",
+        action="store_true",
+        help="also keep each run's final point, in OUT/points/ (8 n bytes per task), for the"
+        " report's overlaps between methods; tasks already done are not rerun for it",
+    )
     add_engine_arguments(parser)
 
 
@@ -268,6 +274,7 @@ def execute(
             progress=None if not args.no_progress else False,  # None: a bar on a terminal only
             log=say,
             on_start=on_start,
+            keep_points=getattr(args, "keep_points", False),
         )
     except KeyboardInterrupt:  # rows written before the interrupt are not in the old report
         if had_report and Store(out, spec).completed_ids() - done_before:

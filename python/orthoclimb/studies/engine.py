@@ -29,6 +29,7 @@ from typing import Any
 
 from .._core import MAX_THREADS as _MAX_THREADS
 from .grid import StudySpec
+from .points import write_point
 from .store import Store, sweep_lock
 from .tasks import Task, run_task
 
@@ -334,6 +335,7 @@ def run_study(
     progress: bool | None = True,
     log: Callable[[str], Any] = print,
     on_start: Callable[[list, WorkerPlan | None], Any] | None = None,
+    keep_points: bool = False,
 ) -> SweepOutcome:
     """Run the pending tasks of ``spec`` into the study folder; returns counts and time.
 
@@ -344,6 +346,9 @@ def run_study(
     also with none (and no plan) for a complete study.
     ``progress``: a tqdm bar (True), none (False), or one only when stderr is a terminal (None,
     what the command line uses, so logs get no redrawn bar).
+    ``keep_points``: the tasks this sweep runs also keep their final unit vector, in
+    ``points/<task_id>.npy`` (8 n bytes each; :mod:`.points` reads them and their overlaps);
+    tasks done before are not rerun for it.
 
     From a script, call it under ``if __name__ == "__main__":``: the embedded cluster's worker
     processes import the script again, and a call made during that import is refused.
@@ -371,6 +376,8 @@ def run_study(
         raise ValueError(
             f"threads (--threads) must be an integer in 1..{_MAX_THREADS}, got {threads!r}"
         )
+    if not isinstance(keep_points, bool):
+        raise TypeError(f"keep_points must be True or False, got {keep_points!r}")
     if scheduler is not None:
         check_scheduler_address(scheduler)  # before the study folder is created
     tasks = spec.tasks()
@@ -382,7 +389,7 @@ def run_study(
             tasks,
             folder,
             scheduler,
-            (workers, threads, retries, timeout),
+            (workers, threads, retries, timeout, keep_points),
             progress,
             log,
             on_start,
@@ -394,7 +401,7 @@ def _sweep(
     tasks: list[Task],
     folder: str | os.PathLike,
     scheduler: str | None,
-    settings: tuple[int | None, int | None, int, float],
+    settings: tuple[int | None, int | None, int, float, bool],
     progress: bool | None,
     log: Callable[[str], Any],
     on_start: Callable[[list, WorkerPlan | None], Any] | None,
@@ -402,7 +409,7 @@ def _sweep(
     """The sweep of :func:`run_study` once its arguments are checked and the folder is held."""
     from tqdm import tqdm
 
-    workers, threads, retries, timeout = settings
+    workers, threads, retries, timeout, keep_points = settings
     store = Store.open(folder, spec)
     try:  # until the cluster is reached, a failure undoes what Store.open did
         pending = store.pending(tasks)
@@ -452,6 +459,7 @@ def _sweep(
                 run_task,
                 task,
                 task_threads,
+                keep_points,
                 key=f"orthoclimb-{task.task_id}",
                 retries=retries,
                 pure=False,
@@ -500,6 +508,10 @@ def _sweep(
                 store.write_failure(task.task_id, task.config(), f"{type(exc).__name__}: {exc}")
                 failed += 1
             else:
+                point = row.pop("end_point", None)
+                if point is not None and not store.row_path(task.task_id).exists():
+                    write_point(store.folder, task.task_id, point)  # first: a row naming a
+                    # point has it
                 store.write_row(row)
                 done += 1
             bar.update(1)

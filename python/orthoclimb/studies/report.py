@@ -42,6 +42,7 @@ from .laws import (
     power_text,
 )
 from .paired import TIE_RELATIVE, head_to_head
+from .points import end_point_overlaps, load_end_points, overlap_markdown, overlap_summary
 from .report_plots import PLOT_FILES, plot_files
 from .store import Store, read_config
 from .tasks import theory_values
@@ -59,6 +60,7 @@ class Report:
     missing: int
     files: dict[str, str] = field(default_factory=dict)
     cost: list[dict[str, Any]] = field(default_factory=list)
+    overlaps: list[dict[str, Any]] = field(default_factory=list)
 
     def table(self) -> str:
         """Plain-text table for the terminal."""
@@ -108,6 +110,7 @@ class Report:
             "findings": self.findings,
             "missing_tasks": self.missing,
             "cost": self.cost,
+            "end_point_overlaps": self.overlaps,
             "files": self.files,
             "units": "energy per spin H(x)/n on the unit sphere, maximization",
         }
@@ -216,6 +219,8 @@ def build_report(
     missing = len(spec.tasks()) - len(rows)
     degrees = {m.name: m.mixture.max_degree for m in spec.mixtures}
     rep = Report(spec, groups, fits, theory, [], missing, cost=cost_table(rows, degrees))
+    points = load_end_points(folder, rows)  # those of sweep --keep-points
+    rep.overlaps = overlap_summary(end_point_overlaps(rows, points, [m.name for m in spec.methods]))
     rep.findings = _findings(rep, _by_seed(rows))
     return rep
 
@@ -429,6 +434,7 @@ def _markdown(rep: Report) -> str:
         "",
         *cost_markdown(rep.cost),
         "",
+        *overlap_markdown(rep.overlaps),
         "## Per size",
         "",
         "| mixture | method | n | mean | s.e. | count |",

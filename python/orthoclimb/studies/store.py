@@ -8,6 +8,8 @@ Layout of ``STUDY_DIR``::
                           orthoclimb.studies.tasks for the row's fields; sha256 as in
                           orthoclimb.fileio.json_digest)
     failed/<task_id>.json the last error of a task that failed after its retries
+    points/<task_id>.npy  the run's final point, for tasks run with ``keep_points``
+                          (orthoclimb.studies.points; checked against its row's digest)
     results.parquet       the tidy table (pyarrow), one row per completed task
     results.csv           the same table as CSV
 

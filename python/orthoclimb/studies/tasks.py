@@ -15,7 +15,8 @@ Row fields (one row per task; energies per spin e = H(x)/n, maximization):
 solver does not converge), ``gap_alg`` = energy - ALG, ``gap_gs`` = energy - GS,
 ``local_max``, ``grad_norm`` (|P grad H|/n), ``seconds_sample``, ``seconds_run`` (wall
 seconds), ``threads`` (rayon threads used), ``version`` (orthoclimb), ``worker`` (host:pid),
-``finished`` (UTC ISO time).
+``finished`` (UTC ISO time); with ``keep_point``, ``end_point_sha256`` (the kept end point's
+digest, see :mod:`.points`).
 """
 
 from __future__ import annotations
@@ -30,6 +31,8 @@ import time
 from dataclasses import dataclass
 from datetime import datetime, timezone
 from typing import Any, NamedTuple
+
+import numpy as np
 
 from .grid import MethodSpec, MixtureSpec
 
@@ -88,13 +91,16 @@ def theory_values(gammas: tuple[tuple[int, float], ...]) -> TheoryValues:
     return TheoryValues(alg, gs, verdict.holds, verdict.gs_equals_alg, verdict.describe())
 
 
-def run_task(task: Task, threads: int | None = None) -> dict[str, Any]:
+def run_task(task: Task, threads: int | None = None, keep_point: bool = False) -> dict[str, Any]:
     """Sample the instance of ``task`` from its seed, run its method, return its row.
 
     ``threads``: rayon threads for the kernels in this process (``orthoclimb.set_num_threads``);
     None keeps the current setting. BLAS inside the algorithms is already single-threaded.
     The row's ``steps`` is the work actually done: K for Hessian ascent (what "auto" resolved
-    to at this n), the iterations for gradient ascent.
+    to at this n), the iterations for gradient ascent. ``keep_point``: the row also holds the
+    final unit vector as ``end_point`` (float64, shape (n,); the driver writes it to its own
+    file and drops it from the row) and its digest ``end_point_sha256``
+    (:mod:`orthoclimb.studies.points`).
     """
     from .. import __version__
     from ..algorithms import geometric_schedule, gradient_ascent, hessian_ascent, langevin_anneal
@@ -136,7 +142,7 @@ def run_task(task: Task, threads: int | None = None) -> dict[str, Any]:
     alg, gs = theory.alg, theory.gs
     energy = float(res.energy)
     local_max = res.info.get("local_max")
-    return {
+    row = {
         "task_id": task.task_id,
         "mixture": task.mixture.name,
         "gammas": mix.to_text(),
@@ -162,3 +168,9 @@ def run_task(task: Task, threads: int | None = None) -> dict[str, Any]:
         "worker": f"{socket.gethostname()}:{os.getpid()}",
         "finished": datetime.now(timezone.utc).isoformat(timespec="seconds"),
     }
+    if keep_point:
+        from .points import point_digest
+
+        row["end_point"] = np.array(res.x, dtype=np.float64)
+        row["end_point_sha256"] = point_digest(row["end_point"])
+    return row

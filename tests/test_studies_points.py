@@ -1,0 +1,148 @@
+"""End points kept by ``sweep --keep-points`` and the report's overlaps between methods."""
+
+from __future__ import annotations
+
+import json
+import math
+import shutil
+
+import numpy as np
+import pytest
+import scipy.linalg
+
+from orthoclimb import Hamiltonian, Mixture
+from orthoclimb.cli import main
+from orthoclimb.studies.grid import spec_from_flags
+from orthoclimb.studies.points import (
+    end_point_overlaps,
+    load_end_points,
+    overlap_summary,
+    point_path,
+)
+from orthoclimb.studies.report import build_report
+from orthoclimb.studies.store import Store, read_config
+from orthoclimb.studies.tasks import run_task
+
+
+@pytest.fixture(scope="module")
+def kept(tmp_path_factory):
+    """A small pure 2-spin study swept with --keep-points (two methods, two sizes)."""
+    folder = tmp_path_factory.mktemp("kept") / "s"
+    code = main(
+        ["sweep", "--gammas", "2:1", "--n", "16,24", "--seeds", "0-2", "--out", str(folder),
+         "--keep-points", "--no-progress", "--no-report"]
+    )  # fmt: skip
+    assert code == 0
+    return folder
+
+
+def _rows(folder):
+    return Store(folder, read_config(folder)).rows()
+
+
+def test_each_kept_point_is_its_runs_end_point(kept):
+    rows = _rows(kept)
+    points = load_end_points(kept)
+    assert len(rows) == 12 and set(points) == {r["task_id"] for r in rows}
+    for r in rows:
+        x = points[r["task_id"]]
+        assert np.linalg.norm(x) == pytest.approx(1.0, abs=1e-12)
+        # the row's energy is H(x)/n at its point (exact identity, the instance regenerated)
+        ham = Hamiltonian.sample(Mixture({2: 1.0}), r["n"], r["seed"])
+        assert ham.energy(x) / r["n"] == pytest.approx(r["energy"], rel=1e-12, abs=1e-14)
+
+
+def test_pure_2spin_end_points_are_the_top_eigenvector(kept):
+    # pure p = 2: H(x) = x^T A x (A symmetric) on the unit sphere is maximized by the top
+    # eigenvector of A (Rayleigh quotient), computed with scipy.linalg.eigh; gradient ascent
+    # reaches the maximum here, so its end point is +-v_top, an overlap of +-1
+    points = load_end_points(kept)
+    for r in _rows(kept):
+        if r["method"] != "gradient":
+            continue
+        ham = Hamiltonian.sample(Mixture({2: 1.0}), r["n"], r["seed"])
+        _, vecs = scipy.linalg.eigh(ham.hessian(np.zeros(r["n"])))  # the Hessian is 2 A
+        assert abs(float(points[r["task_id"]] @ vecs[:, -1])) == pytest.approx(1.0, abs=1e-6)
+
+
+def test_overlaps_are_the_inner_products_of_the_two_methods_points(kept):
+    rows = _rows(kept)
+    points = load_end_points(kept)
+    overlaps = end_point_overlaps(rows, points, ["hessian", "gradient"])
+    assert len(overlaps) == 6  # two sizes x three seeds, one pair of methods
+    by = {(r["n"], r["seed"], r["method"]): points[r["task_id"]] for r in rows}
+    for o in overlaps:
+        assert (o["method_a"], o["method_b"]) == ("hessian", "gradient")
+        a, b = by[(o["n"], o["seed"], "hessian")], by[(o["n"], o["seed"], "gradient")]
+        assert o["overlap"] == float(np.dot(a, b))
+        assert abs(o["overlap"]) <= 1 + 1e-12  # Cauchy-Schwarz for unit vectors
+    rep = build_report(kept, n_boot=200)
+    assert {(s["n"], s["count"]) for s in rep.overlaps} == {(16, 3), (24, 3)}
+    assert "end_point_overlaps" in rep.to_dict()
+
+
+def test_the_summary_is_mean_abs_and_standard_error():
+    overlaps = [
+        {"mixture": "m", "n": 10, "seed": s, "method_a": "a", "method_b": "b", "overlap": r}
+        for s, r in enumerate([0.5, -0.25, 1.0, -1.0])
+    ]
+    overlaps.append(dict(overlaps[0], n=20))
+    first, second = overlap_summary(overlaps)
+    r = np.array([0.5, -0.25, 1.0, -1.0])
+    assert first["count"] == 4 and first["mean"] == pytest.approx(r.mean())
+    assert first["mean_abs"] == pytest.approx(np.abs(r).mean())
+    assert first["se_abs"] == pytest.approx(np.abs(r).std(ddof=1) / 2)
+    assert (first["min"], first["max"]) == (-1.0, 1.0)
+    assert second["count"] == 1 and math.isnan(second["se_abs"])
+
+
+def test_without_keep_points_nothing_is_kept_and_the_report_has_no_section(tmp_path):
+    folder = tmp_path / "s"
+    assert main(
+        ["sweep", "--gammas", "2:1", "--n", "12", "--seeds", "0-1", "--out", str(folder),
+         "--no-progress"]
+    ) == 0  # fmt: skip
+    assert not (folder / "points").exists()
+    assert load_end_points(folder) == {}
+    assert all("end_point_sha256" not in r for r in _rows(folder))
+    assert "Overlaps of end points" not in (folder / "report.md").read_text()
+    assert json.loads((folder / "report.json").read_text())["end_point_overlaps"] == []
+
+
+def _damaged(kept, tmp_path, damage):
+    folder = tmp_path / "s"
+    shutil.copytree(kept, folder)
+    row = _rows(folder)[0]
+    path = point_path(folder, row["task_id"])
+    damage(path)
+    return folder, path
+
+
+@pytest.mark.parametrize(
+    "damage, words",
+    [
+        (lambda p: p.unlink(), "is missing"),
+        (lambda p: p.write_bytes(p.read_bytes()[:-8]), "cannot read"),
+        (lambda p: p.write_bytes(p.read_bytes()[:-8] + np.float64(0.5).tobytes()), "digest"),
+        (lambda p: np.save(p, np.zeros(3)), "expected (16,) float64"),
+    ],
+)
+def test_a_damaged_point_is_refused_by_name(kept, tmp_path, damage, words):
+    folder, path = _damaged(kept, tmp_path, damage)
+    with pytest.raises(ValueError, match="end point") as err:
+        load_end_points(folder)
+    assert str(path) in str(err.value) and words in str(err.value)
+    with pytest.raises(ValueError, match="end point"):  # the report says so too
+        build_report(folder, n_boot=200)
+
+
+def test_run_task_returns_the_point_and_its_digest_only_when_asked():
+    spec = spec_from_flags(["3:1"], None, "12", "4", "gradient")
+    (task,) = spec.tasks()
+    plain = run_task(task)
+    kept = run_task(task, keep_point=True)
+    assert "end_point" not in plain and "end_point_sha256" not in plain
+    x = kept["end_point"]
+    assert x.shape == (12,) and kept["energy"] == plain["energy"]
+    ham = Hamiltonian.sample(Mixture({3: 1.0}), 12, 4)
+    assert ham.energy(x) / 12 == pytest.approx(kept["energy"], rel=1e-12)
