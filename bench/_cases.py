@@ -212,17 +212,30 @@ def host_probe_row(stats: dict, p: int, n: int) -> dict:
 
 
 def host_check(cases: list[dict], fraction: float = 0.9) -> dict:
-    """Each case's host-probe rate as a fraction of the best over the run, and the cases below
-    `fraction` of it (their ratios against memory-bound peers are likely understated)."""
-    rates = {
-        c["name"]: r["host_rate"] for c in cases for r in c.get("rows", []) if "host_rate" in r
-    }
-    if not rates:
+    """Each case's host-probe rate as a fraction of the best over the run, and the busy cases:
+    those below `fraction` of it, and those whose own probe was unsteady (block medians more
+    than UNSTEADY_SPREAD apart), which the first test cannot see when a run has one case or
+    every case was slowed alike (a dgemm probe 40x slower than usual read 1.00 in a run of one
+    case, a review). Busy cases' ratios against memory-bound peers are likely understated."""
+    probes = {c["name"]: r for c in cases for r in c.get("rows", []) if "host_rate" in r}
+    if not probes:
         return {"fractions": {}, "busy": []}
-    best = max(rates.values())
-    fractions = {name: rate / best for name, rate in rates.items()}
+    best = max(r["host_rate"] for r in probes.values())
+    fractions = {name: r["host_rate"] / best for name, r in probes.items()}
     busy = [name for name, f in fractions.items() if f < fraction]
-    return {"fractions": fractions, "busy": busy, "threshold": fraction}
+    spreads = {name: r.get("block_spread") for name, r in probes.items()}
+    unsteady = {
+        name: s
+        for name, s in spreads.items()
+        if s is not None and s > _timing.UNSTEADY_SPREAD and name not in busy
+    }
+    return {
+        "fractions": fractions,
+        "busy": busy + list(unsteady),
+        "unsteady": unsteady,
+        "threshold": fraction,
+        "single_case": len(probes) == 1,
+    }
 
 
 def probe_array(nbytes: int) -> np.ndarray:
@@ -303,13 +316,26 @@ def dense_rows(stats, errors, h, tensor, bws) -> list[dict]:
             if bws:
                 set_roofline(row, bws["dense tensor"])
             group.append(row)
-        numpy_rows = [r for r in group if r["impl"] == "numpy"]
-        min(numpy_rows, key=lambda r: r["median_s"])["best"] = True
+        for row in group[1:]:
+            if row["rel_err"] is not None and row["rel_err"] > PEER_TOL:
+                wrong = f"WRONG result (differs from orthoclimb by {row['rel_err']:.1e})"
+                row["note"] = " ".join(s for s in (wrong, row["note"]) if s)
+        numpy_rows = [
+            r for r in group if r["impl"] == "numpy" and (r["rel_err"] or 0.0) <= PEER_TOL
+        ]
+        if numpy_rows:  # none right: the targets on the best NumPy row read "n/a"
+            min(numpy_rows, key=lambda r: r["median_s"])["best"] = True
         rows += group
     return rows
 
 
-def check_against(refs: dict, errors: dict, tol: float = 1e-8):
+# A peer whose result differs from orthoclimb's by more than this (relative, common practice
+# for float64 results of sums of millions of terms) computes something else: it is flagged,
+# and never the best NumPy row a target reads.
+PEER_TOL = 1e-8
+
+
+def check_against(refs: dict, errors: dict, tol: float = PEER_TOL):
     """A warm-up hook recording each peer's relative error against orthoclimb's result for
     the same kernel (keys are (impl, variant, kernel)); warns above `tol`."""
 

@@ -242,7 +242,9 @@ def load_average() -> list[float] | None:
         return None
 
 
-def _torch_threads() -> int | None:
+def torch_threads() -> int | None:
+    """PyTorch's intra-op thread count now (None without torch); the dense cases set it to
+    the run's threads, so the run records it after them."""
     try:
         import torch
     except ImportError:
@@ -262,7 +264,7 @@ def environment(threads: int, blas_threads_by: str, torch_version: str | None) -
         "threads": threads,
         "orthoclimb_threads": oc.get_num_threads(),
         "blas_threads_set_by": blas_threads_by or None,
-        "torch_threads": _torch_threads() if torch_version else None,
+        "torch_threads": torch_threads() if torch_version else None,
         "kernel_path": oc.kernel_path(),
         "versions": {
             "orthoclimb": oc.__version__,

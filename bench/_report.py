@@ -99,6 +99,12 @@ def _unsteady_lines(results: dict) -> list[str]:
     return lines
 
 
+def _any_spread(results: dict) -> bool:
+    """Whether any row had two blocks or more (a spread to check)."""
+    rows = (r for c in results.get("cases", []) for r in c.get("rows", []))
+    return any(r.get("block_spread") is not None for r in rows)
+
+
 UNSTEADY_TITLE = f"unsteady timings (block medians more than {UNSTEADY_SPREAD}x apart)"
 
 
@@ -106,6 +112,8 @@ def unsteady_text(results: dict) -> str:
     """The rows measured partly in a slow phase of the host: their medians hold as long as
     fewer than half of their blocks were slow, but their ratios deserve a rerun."""
     lines = _unsteady_lines(results)
+    if not lines and not _any_spread(results):
+        return f"{UNSTEADY_TITLE}: not measured (one round per function, as in --quick)"
     if not lines:
         return f"{UNSTEADY_TITLE}: none"
     return "\n".join([f"== {UNSTEADY_TITLE} =="] + [f"  {line}" for line in lines])
@@ -174,11 +182,21 @@ def _host_check_lines(check: dict) -> list[str]:
     """The host probe's rate per case against the run's best, then one line per busy case."""
     fractions = check["fractions"]
     lines = [", ".join(f"{name} {f:.2f}" for name, f in fractions.items())]
-    for name in check.get("busy", []):
+    if check.get("single_case"):
         lines.append(
-            f"BUSY  {name}: the host probe ran at {fractions[name]:.2f} of its best; other "
-            "work on the host slowed this case's arithmetic, so its ratios against "
-            "memory-bound peers are likely understated"
+            "(one case ran the probe: its rate is its own best, so only the steadiness of its"
+            " blocks is checked)"
+        )
+    unsteady = check.get("unsteady", {})
+    for name in check.get("busy", []):
+        how = (
+            f"its blocks ran {unsteady[name]:.1f}x apart"
+            if name in unsteady
+            else f"it ran at {fractions[name]:.2f} of its best"
+        )
+        lines.append(
+            f"BUSY  {name}: the host probe says other work ran ({how}); it slowed this case's"
+            " arithmetic, so its ratios against memory-bound peers are likely understated"
         )
     return lines
 

@@ -196,6 +196,14 @@ def _sample_block(fn: Callable[[], object], number: int, count: int) -> list[flo
             gc.enable()
 
 
+def round_share(wanted: int, r: int, rounds: int) -> int:
+    """Samples of round ``r`` when ``wanted`` samples are spread over ``rounds`` rounds as
+    evenly as they go (counts differ by at most one; the larger ones come last). Filling the
+    first rounds first left a peer of 7 samples out of the last round, so it and the kernel it
+    was compared with were not measured over the same phases of the host."""
+    return wanted * (r + 1) // rounds - wanted * r // rounds
+
+
 def measure(
     fns: Mapping[Hashable, Callable[[], object]],
     plan: Plan,
@@ -219,8 +227,7 @@ def measure(
     for r in range(plan.rounds):
         shift = r % len(names) if names else 0
         for name in names[shift:] + names[:shift]:
-            block = math.ceil(wanted[name] / plan.rounds)
-            count = min(block, wanted[name] - len(samples[name]))
+            count = round_share(wanted[name], r, plan.rounds)
             if count <= 0:
                 continue
             time.sleep(plan.settle_s)

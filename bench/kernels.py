@@ -33,6 +33,7 @@ import os
 import sys
 import tempfile
 import time
+import traceback
 from pathlib import Path
 
 import _cases
@@ -49,7 +50,8 @@ SCHEMA = "orthoclimb.bench.kernels/1"
 
 
 def run_case(name: str, cfg: _cases.Config, ws: _cases.Workspace) -> dict:
-    """Run one case; a case refused for memory becomes a 'refused' entry. Records the wall
+    """Run one case; a case refused for memory becomes a 'refused' entry, one that raised a
+    'failed' entry with its error (the traceback is logged). Records the wall
     time and the average number of cores other processes used meanwhile."""
     _cases.log(f"[{name}] starting")
     start = time.perf_counter()
@@ -59,13 +61,13 @@ def run_case(name: str, cfg: _cases.Config, ws: _cases.Workspace) -> dict:
         case = _cases.CASES[name](cfg, ws)
     except _cases.MemoryRefused as exc:
         _cases.log(f"[{name}] REFUSED: {exc}")
-        case = {
-            "name": name,
-            "title": "not run",
-            "status": "refused",
-            "reason": str(exc),
-            "rows": [],
-        }
+        case = {"name": name, "title": "not run", "status": "refused", "reason": str(exc)}
+        case["rows"] = []
+    except Exception as exc:  # noqa: BLE001 - one broken case must not lose the others' rows
+        _cases.log(f"[{name}] FAILED:\n{traceback.format_exc()}")
+        reason = f"{type(exc).__name__}: {exc}"
+        case = {"name": name, "title": "failed", "status": "failed", "reason": reason}
+        case["rows"] = []
     case["elapsed_s"] = time.perf_counter() - start
     case["other_processes_cores"] = others.stop()
     _cases.log(f"[{name}] done in {case['elapsed_s']:.1f} s")
@@ -122,12 +124,19 @@ def measure_all(args) -> dict:
     results = {"schema": SCHEMA, "meta": meta, "notes": cfg.notes, "cases": [], "targets": []}
     start = time.perf_counter()
     for name in args.cases:
-        case = run_case(name, cfg, ws)
+        try:
+            case = run_case(name, cfg, ws)
+        except KeyboardInterrupt:  # the finished cases are still written
+            _cases.log(f"[{name}] interrupted: the cases finished before it are kept")
+            results["interrupted"] = name
+            break
         results["targets"] += _targets.evaluate_targets(case)
         results["cases"].append(case)
         print()
         print(_report.case_text(case), flush=True)
     meta["load_average_end"] = _env.load_average()
+    if cfg.torch_version:  # as the dense cases set it (torch_peers), not as at start-up
+        meta["torch_threads"] = _env.torch_threads()
     meta["elapsed_s"] = time.perf_counter() - start
     results["host_check"] = _cases.host_check(results["cases"])
     return results
@@ -199,7 +208,8 @@ def parse_args(argv=None) -> argparse.Namespace:
 
 def main(argv=None) -> int:
     """Measure (or re-render with --from-json), print, write JSON/Markdown. Exit status 1 when
-    a case was refused for lack of memory."""
+    a case was refused for lack of memory or failed, 130 after a Ctrl-C (the cases finished
+    before it are written)."""
     args = parse_args(argv)
     if args.from_json:
         results = json.loads(args.from_json.read_text(encoding="utf-8"))
@@ -217,8 +227,10 @@ def main(argv=None) -> int:
     if args.markdown:
         write_atomic(args.markdown, _report.render_markdown(results) + "\n")
         _cases.log(f"wrote {args.markdown}")
-    refused = [c["name"] for c in results["cases"] if c.get("status") == "refused"]
-    return 1 if refused else 0
+    if results.get("interrupted"):
+        return 130
+    not_run = [c["name"] for c in results["cases"] if c.get("status") in ("refused", "failed")]
+    return 1 if not_run else 0
 
 
 if __name__ == "__main__":

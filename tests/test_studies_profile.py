@@ -76,36 +76,67 @@ def test_profile_says_its_size_first_and_estimates_each_next_size(tmp_path, caps
 def test_profile_explains_a_slope_above_the_degree(tmp_path, capsys, monkeypatch):
     # synthetic timings: n^3 throughout, except that the Hessian's time per coefficient
     # doubles between the two largest sizes (the step of a cache): b = 4 there, above P = 3
-    import orthoclimb.studies.profile as profile_module
-    from orthoclimb.studies.profile import KERNELS, fit_exponents
+    _fake_profile(monkeypatch, lambda n, big: 2.0 if n == big else 1.0)
+    assert main(["profile", "--gammas", "3:1", "--n", "100,200,400", "--out", str(tmp_path)]) == 0
+    out = capsys.readouterr().out
+    assert "b above that growth between n = 200 and 400 (hessian)" in out
+    assert "hessian 1 -> 2 ns" in out
+    assert "energy," not in out.split("b above")[1]  # only the kernel whose slope is above
 
-    def fake(mixture, sizes, repeats, on_size=None):
+
+def _fake_profile(monkeypatch, hessian_factor, count=lambda n: n**3, mixture="3:1"):
+    """profile_kernels replaced by synthetic timings: count(n) ns for every kernel, the
+    Hessian's times multiplied by hessian_factor(n, largest n); the real summary on top."""
+    import orthoclimb.studies.profile as profile_module
+    from orthoclimb.studies.profile import KERNELS, summarize
+
+    def fake(mix, sizes, repeats, on_size=None):
         rows = []
         for n in sorted(sizes):
-            t = {k: 1e-9 * n**3 for k in (*KERNELS, "sample")}
-            if n == max(sizes):
-                t["hessian"] *= 2
-            per = {k: 1e9 * t[k] / n**3 for k in t}
-            rows.append({"n": n, "coefficients": n**3, **t, "ns_per_coefficient": per})
-        fit, pair = fit_exponents(rows)
-        return {
-            "mixture": "3:1.0",
-            "max_degree": 3,
-            "threads": 1,
-            "rows": rows,
-            "exponents": fit,
-            "exponents_largest_pair": pair,
-        }
+            t = {k: 1e-9 * count(n) for k in (*KERNELS, "sample")}
+            t["hessian"] *= hessian_factor(n, max(sizes))
+            per = {k: 1e9 * t[k] / count(n) for k in t}
+            rows.append({"n": n, "coefficients": count(n), **t, "ns_per_coefficient": per})
+        return summarize(rows, Mixture.parse(mixture), 1)
 
     monkeypatch.setattr(profile_module, "profile_kernels", fake)
     monkeypatch.setattr(
         profile_module, "write_profile", lambda prof, out: {"json": "j", "plot": "p"}
     )
-    assert main(["profile", "--gammas", "3:1", "--n", "100,200,400", "--out", str(tmp_path)]) == 0
+
+
+def test_profile_reads_b_against_the_count_growth_not_p(tmp_path, capsys, monkeypatch):
+    # degree 8 at n = 16..28: C(n+7, 8) grows like n^6.9 there, so times that follow the count
+    # are not "below P" and need no larger sizes (a review); exact binomials, math.comb
+    _fake_profile(monkeypatch, lambda n, big: 1.0, lambda n: math.comb(n + 7, 8), "8:1")
+    args = ["profile", "--gammas", "8:1", "--n", "16,20,24,28", "--out", str(tmp_path)]
+    assert main(args) == 0
     out = capsys.readouterr().out
-    assert "b above P between n = 200 and 400 (hessian)" in out
-    assert "hessian 1 -> 2 ns" in out
-    assert "energy," not in out.split("b above P")[1]  # only the kernel whose slope is above
+    q = math.log(math.comb(35, 8) / math.comb(23, 8)) / math.log(28 / 16)
+    assert 6.5 < q < 7.2 and "count grows like n^6." in out
+    assert "below" not in out and "above" not in out and "loosely" not in out
+
+
+def test_profile_flags_a_slope_above_over_all_sizes_and_a_loose_fit(tmp_path, capsys, monkeypatch):
+    # a 4x step of the Hessian's time per coefficient between the two smallest sizes: the
+    # largest pair is back at n^3, the all-sizes slope is 3.6 and the line misses the points
+    _fake_profile(monkeypatch, lambda n, big: 1.0 if n == 100 else 4.0)
+    assert main(["profile", "--gammas", "3:1", "--n", "100,200,400,800", "--json",
+                 "--out", str(tmp_path)]) == 0  # fmt: skip
+    prof = json.loads(capsys.readouterr().out)
+    text = " ".join(prof["notes"])
+    assert "b over all sizes above that growth (hessian)" in text
+    assert "hessian 1 -> 4 ns" in text and "hessian up to" in text
+    assert prof["coefficient_exponent"] == pytest.approx(3.0)
+    assert prof["fit_spread"]["energy"] == pytest.approx(1.0)
+
+
+def test_profile_of_a_linear_mixture_expects_n2_for_the_hessian(tmp_path, capsys, monkeypatch):
+    # P = 1: the Hessian's n x n output sets its growth, not the n coefficients
+    _fake_profile(monkeypatch, lambda n, big: n / 100, lambda n: n, "1:1")
+    assert main(["profile", "--gammas", "1:1", "--n", "100,200,400", "--out", str(tmp_path)]) == 0
+    out = capsys.readouterr().out
+    assert "grows like n^2 at least" in out and "above" not in out
 
 
 def test_profile_refuses_before_timing_or_printing_its_plan(tmp_path, capsys):

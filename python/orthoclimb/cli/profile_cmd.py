@@ -108,24 +108,7 @@ def run(args: argparse.Namespace) -> int:
             f"exponent b (t ~ n^b), {label}: "
             + ", ".join(f"{k} {prof[key][k]:.2f}" for k in KERNELS)
         )
-    p = prof["max_degree"]
-    print(f"largest degree P = {p}", end="")
-    if min(prof["exponents"][k] for k in KERNELS) < p - 0.5:
-        print(
-            ": b below P means fixed per-call costs (thread start-up, the result's memory) and"
-            " caches still weigh at these sizes; add larger sizes for the asymptotic slope"
-        )
-    else:
-        print()
-    above = [k for k in KERNELS if prof["exponents_largest_pair"][k] > p + 0.5]
-    if above:
-        lo, hi = prof["rows"][-2]["ns_per_coefficient"], prof["rows"][-1]["ns_per_coefficient"]
-        print(
-            f"b above P between n = {big[0]} and {big[1]} ({', '.join(above)}): the time per"
-            " coefficient rose ("
-            + ", ".join(f"{k} {lo[k]:.3g} -> {hi[k]:.3g} ns" for k in above)
-            + "), as when the coefficients outgrow a cache and the pass becomes bound by memory"
-            " bandwidth; once both sizes are past it the slope returns to P"
-        )
+    for note in prof["notes"]:
+        print(note)
     print(f"wrote {files['json']} and {files['plot']}")
     return 0

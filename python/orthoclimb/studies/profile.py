@@ -9,7 +9,10 @@ below P. Two more figures show how far the sizes are from that regime: the slope
 two largest sizes alone, log(t2/t1) / log(n2/n1), and the time per coefficient, t / N(n) in
 nanoseconds, which levels off once a pass is bound by reading the coefficients (it rises
 again where they outgrow the last-level cache). Times are wall seconds with the current
-kernel thread count.
+kernel thread count. Each b is read against the slope of the coefficient count N(n) over the
+same sizes (``coefficient_exponent``; N grows like n^P only once n is well above P) and, for
+the Hessian, against 2 (its n x n result); ``fit_spread`` is the largest factor between a time
+and its fitted line, and ``notes`` says in words what these show (:func:`profile_notes`).
 """
 
 from __future__ import annotations
@@ -24,7 +27,15 @@ import numpy as np
 
 from ..fileio import figure_writer, json_writer, save_figure_atomic, write_all_atomic
 
-__all__ = ["KERNELS", "check_profile", "fit_exponents", "plot_profile", "profile_kernels"]
+__all__ = [
+    "KERNELS",
+    "check_profile",
+    "fit_exponents",
+    "plot_profile",
+    "profile_kernels",
+    "profile_notes",
+    "summarize",
+]
 
 KERNELS = ("energy", "energy_and_gradient", "hvp", "hessian")
 
@@ -114,29 +125,114 @@ def profile_kernels(
             if nxt is not None:
                 guess = row["wall"] * coefficient_count(mixture.degrees, nxt) / row["coefficients"]
             on_size(row, nxt, guess)
+    return summarize(rows, mixture, get_num_threads())
+
+
+def summarize(rows: list[dict[str, Any]], mixture: Any, threads: int) -> dict[str, Any]:
+    """The profile of ``rows`` (increasing n): exponents, the coefficient count's own
+    exponents over the same sizes, how far the times lie off each fitted line, and the notes
+    that read them (:func:`profile_notes`)."""
     exponents, last_pair = fit_exponents(rows)
-    return {
+    counts, counts_pair = _slopes(rows, lambda r: r["coefficients"])
+    prof = {
         "mixture": mixture.to_text(),
         "max_degree": mixture.max_degree,
-        "threads": get_num_threads(),
+        "threads": threads,
         "rows": rows,
         "exponents": exponents,
         "exponents_largest_pair": last_pair,
-        "units": "wall seconds per pass; exponent b of t ~ n^b; ns per coefficient",
+        "coefficient_exponent": counts,
+        "coefficient_exponent_largest_pair": counts_pair,
+        "fit_spread": {k: _spread(rows, k, exponents[k]) for k in (*KERNELS, "sample")},
+        "units": "wall seconds per pass; exponent b of t ~ n^b; ns per coefficient; fit_spread"
+        " is the largest factor between a time and its fitted line",
     }
+    prof["notes"] = profile_notes(prof)
+    return prof
+
+
+def _slopes(rows: Sequence[dict[str, Any]], value: Callable[[dict[str, Any]], float]):
+    """(least-squares slope of log value against log n, slope between the two largest n)."""
+    rows = sorted(rows, key=lambda r: r["n"])
+    logn = np.log([r["n"] for r in rows])
+    logv = np.log(np.maximum([value(r) for r in rows], 1e-9))
+    fit = float(np.polyfit(logn, logv, 1)[0])
+    return fit, float((logv[-1] - logv[-2]) / (logn[-1] - logn[-2]))
+
+
+def _spread(rows: Sequence[dict[str, Any]], key: str, b: float) -> float:
+    """The largest factor between a time and the fitted line c n^b (c by least squares in
+    log space, as the fit's own intercept)."""
+    logn = np.log([r["n"] for r in rows])
+    logt = np.log(np.maximum([r[key] for r in rows], 1e-9))
+    residual = logt - b * logn
+    return float(np.exp(np.max(np.abs(residual - residual.mean()))))
 
 
 def fit_exponents(rows: Sequence[dict[str, Any]]) -> tuple[dict[str, float], dict[str, float]]:
     """(b over all sizes by least squares, b between the two largest sizes) per kernel and
     for sampling, from rows holding ``n`` and a time per key (module doc)."""
-    rows = sorted(rows, key=lambda r: r["n"])
-    logn = np.log([r["n"] for r in rows])
     fit, pair = {}, {}
     for k in (*KERNELS, "sample"):
-        logt = np.log(np.maximum([r[k] for r in rows], 1e-9))
-        fit[k] = float(np.polyfit(logn, logt, 1)[0])
-        pair[k] = float((logt[-1] - logt[-2]) / (logn[-1] - logn[-2]))
+        fit[k], pair[k] = _slopes(rows, lambda r, k=k: r[k])
     return fit, pair
+
+
+_TOUCHED = "what a pass touches (the coefficients; for the Hessian also its n x n matrix)"
+LOOSE_FIT = 1.5  # a time this many times off its fitted line: one power law does not hold
+
+
+def _reference(kernel: str, count_exponent: float) -> float:
+    """The slope a kernel's time tends to: the coefficient count's, and at least 2 for the
+    Hessian, which writes an n x n matrix whatever the degree."""
+    return max(count_exponent, 2.0) if kernel == "hessian" else count_exponent
+
+
+def profile_notes(prof: dict[str, Any]) -> list[str]:
+    """What the exponents say, in sentences: each b is read against the growth of the
+    coefficient count over the same sizes (n^P only once n is well above P: C(n+7, 8) grows
+    like n^6.9 between n = 16 and 28), and against 2 for the Hessian."""
+    p, rows = prof["max_degree"], prof["rows"]
+    q, q_pair = prof["coefficient_exponent"], prof["coefficient_exponent_largest_pair"]
+    b, b_pair = prof["exponents"], prof["exponents_largest_pair"]
+    big = rows[-2]["n"], rows[-1]["n"]
+    notes = [f"largest degree P = {p}; over these sizes the coefficient count grows like n^{q:.2f}"]
+    if p < 2:
+        notes[0] += "; the Hessian writes an n x n matrix, so its time grows like n^2 at least"
+    below = [k for k in KERNELS if b[k] < _reference(k, q) - 0.5]
+    if below:
+        notes.append(
+            f"b below that growth ({', '.join(below)}): fixed per-call costs (thread start-up,"
+            " the result's memory) and caches still weigh at these sizes; larger sizes give the"
+            " asymptotic slope"
+        )
+    above = [k for k in KERNELS if b_pair[k] > _reference(k, q_pair) + 0.5]
+    lo, hi = rows[-2]["ns_per_coefficient"], rows[-1]["ns_per_coefficient"]
+    if above:
+        notes.append(
+            f"b above that growth between n = {big[0]} and {big[1]} ({', '.join(above)}): the"
+            " time per coefficient rose ("
+            + ", ".join(f"{k} {lo[k]:.3g} -> {hi[k]:.3g} ns" for k in above)
+            + f"), as when {_TOUCHED} outgrows a cache and the pass becomes bound by memory"
+            " bandwidth; once both sizes are past it the slope returns to the count's growth"
+        )
+    first = rows[0]["ns_per_coefficient"]
+    rising = [k for k in KERNELS if b[k] > _reference(k, q) + 0.5 and k not in above]
+    if rising:
+        notes.append(
+            f"b over all sizes above that growth ({', '.join(rising)}): the time per"
+            " coefficient rose from the smallest size to the largest ("
+            + ", ".join(f"{k} {first[k]:.3g} -> {hi[k]:.3g} ns" for k in rising)
+            + f"), as when {_TOUCHED} outgrows a cache"
+        )
+    loose = {k: prof["fit_spread"][k] for k in KERNELS if prof["fit_spread"][k] > LOOSE_FIT}
+    if loose:
+        notes.append(
+            "one power law fits these times loosely ("
+            + ", ".join(f"{k} up to {f:.2f}x off its line" for k, f in loose.items())
+            + "): the slope between the largest sizes and the time per coefficient tell more"
+        )
+    return notes
 
 
 def plot_profile(prof: dict[str, Any], path: str | Path) -> Path:

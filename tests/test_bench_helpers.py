@@ -1,0 +1,81 @@
+"""The benchmark's bookkeeping (bench/, not part of the package): how samples are spread over
+rounds, the host check and the peers whose results are wrong. No timing is asserted here."""
+
+from __future__ import annotations
+
+import sys
+from pathlib import Path
+from types import SimpleNamespace
+
+import pytest
+
+sys.path.insert(0, str(Path(__file__).resolve().parents[1] / "bench"))
+
+import _cases  # noqa: E402
+import _report  # noqa: E402
+import _targets  # noqa: E402
+import _timing  # noqa: E402
+
+
+@pytest.mark.parametrize("wanted", range(5, 42))
+def test_samples_are_spread_evenly_over_every_round(wanted):
+    # a peer of 7 samples got blocks [2, 2, 2, 1] and no sample in round 5 (a review)
+    shares = [_timing.round_share(wanted, r, 5) for r in range(5)]
+    assert sum(shares) == wanted
+    assert max(shares) - min(shares) <= 1 and min(shares) >= 1
+
+
+def _probe(rate, blocks):
+    return {"host_rate": rate, "block_spread": max(blocks) / min(blocks)}
+
+
+def test_one_case_with_an_unsteady_probe_is_busy():
+    # one case is 1.00 of its own best by construction; its blocks still tell a busy host
+    check = _cases.host_check([{"name": "dense4", "rows": [_probe(1.1e9, [0.4, 16.0])]}])
+    assert check["busy"] == ["dense4"] and check["single_case"]
+    text = _report.host_check_text(check)
+    assert "BUSY  dense4" in text and "40.0x apart" in text and "one case ran" in text
+
+
+def test_a_slow_case_against_the_runs_best_is_busy_and_a_steady_one_is_not():
+    cases = [
+        {"name": "a", "rows": [_probe(40e9, [1.0, 1.1])]},
+        {"name": "b", "rows": [_probe(20e9, [1.0, 1.2])]},
+    ]
+    check = _cases.host_check(cases)
+    assert check["busy"] == ["b"] and check["fractions"] == {"a": 1.0, "b": 0.5}
+    assert not check["single_case"] and "one case ran" not in _report.host_check_text(check)
+
+
+def test_unsteady_text_says_when_nothing_could_be_checked():
+    one_round = {"cases": [{"rows": [{"block_spread": None}]}]}
+    assert "not measured" in _report.unsteady_text(one_round)
+    steady = {"cases": [{"rows": [{"block_spread": 1.1}]}]}
+    assert _report.unsteady_text(steady).endswith(": none")
+
+
+def _stats(seconds):
+    return _timing.Stats([seconds] * 5, 1, [1] * 5)
+
+
+def test_a_peer_with_a_wrong_result_is_never_the_best_row_a_target_reads():
+    # a NumPy variant returning zeros was marked best and its 0.02x read as the target
+    p, n = 3, 400
+    stats, errors = {}, {}
+    for kernel in ("energy", "gradient", "hessian", "hvp"):
+        stats[("orthoclimb", "", kernel)] = _stats(0.002)
+        stats[("numpy", "wrong", kernel)] = _stats(0.0001)
+        stats[("numpy", "matmul", kernel)] = _stats(0.02)
+        errors[("numpy", "wrong", kernel)] = 1.0
+        errors[("numpy", "matmul", kernel)] = 1e-15
+    h = SimpleNamespace(nbytes=10)
+    tensor = SimpleNamespace(ndim=p, shape=(n,) * p, nbytes=8 * n**p)
+    rows = _cases.dense_rows(stats, errors, h, tensor, None)
+    for row in rows:
+        if row["variant"] == "wrong":
+            assert not row["best"] and row["note"].startswith("WRONG result")
+        if row["variant"] == "matmul":
+            assert row["best"]
+    case = {"name": f"dense{p}", "rows": rows}
+    for t in _targets.evaluate_targets(case):
+        assert t["value"] == pytest.approx(10.0)  # 0.02 / 0.002, the right peer
