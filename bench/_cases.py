@@ -621,6 +621,18 @@ def batch_functions(h, xs: np.ndarray, extras: bool) -> dict:
     return fns
 
 
+def batch_error(h, xs: np.ndarray, kernel: str) -> float:
+    """Relative error of one batch call over the points ``xs`` against single calls: the
+    energies, and with ``kernel`` 'energy_and_gradient' the gradients too."""
+    if kernel == "energy":
+        return _peers.relative_error(h.energy(xs), [h.energy(x) for x in xs])
+    e, g = h.energy_and_gradient(xs)
+    singles = [h.energy_and_gradient(x) for x in xs]
+    value = np.concatenate([e, g.ravel()])
+    reference = np.concatenate([[s[0] for s in singles], np.ravel([s[1] for s in singles])])
+    return _peers.relative_error(value, reference)
+
+
 def per_coefficient_note(row: dict, h, points_per_call: int) -> str:
     """Nanoseconds per (coefficient x point) of a row: the batch kernel's inner-loop cost."""
     ns = 1e9 * row["median_s"] / (h.num_coefficients * points_per_call)
@@ -779,11 +791,11 @@ def case_batch(cfg, ws):
         log(f"   measuring {len(fns)} functions at n={n}")
         stats = _timing.measure(fns, cfg.plan)
         del fns  # the same-shape matrix
-        err = _peers.relative_error(h.energy(xs), [h.energy(row) for row in xs])
         new = batch_rows(stats, h, xs, p, n)
         for row in new:
-            if row["variant"] == f"batch b={BATCH}" and row["kernel"] == "energy":
-                row["rel_err"] = err
+            if row["variant"].startswith("batch b="):
+                k = int(row["variant"].split("=")[1])
+                row["rel_err"] = batch_error(h, xs[:k], row["kernel"])
         probe, ceiling = compute_ceiling(stats, new, h, BATCH)
         peer, versus = same_shape_peer(stats, new, h, BATCH)
         rows += new + [probe, peer]

@@ -79,3 +79,21 @@ def test_a_peer_with_a_wrong_result_is_never_the_best_row_a_target_reads():
     case = {"name": f"dense{p}", "rows": rows}
     for t in _targets.evaluate_targets(case):
         assert t["value"] == pytest.approx(10.0)  # 0.02 / 0.002, the right peer
+
+
+def test_every_batch_row_is_checked_against_single_calls():
+    # only the 32-point batch energy had an error column (a review); energy_and_gradient's
+    # gradients are compared too
+    import orthoclimb as oc
+
+    h = oc.Hamiltonian.sample(oc.Mixture({2: 1.0, 3: 0.5}), 12, seed=1)
+    xs = _cases.points(8, 12)
+    assert _cases.batch_error(h, xs, "energy") < 1e-13
+    assert _cases.batch_error(h, xs, "energy_and_gradient") < 1e-13
+
+    def wrong_batch(y):  # a batch whose gradients are off, single calls right
+        e, g = h.energy_and_gradient(y)
+        return (e, 1.5 * g) if y.ndim == 2 else (e, g)
+
+    broken = SimpleNamespace(energy=h.energy, energy_and_gradient=wrong_batch)
+    assert _cases.batch_error(broken, xs, "energy_and_gradient") > 0.1
