@@ -96,6 +96,23 @@ def test_truncated_files_fail(result, tmp_path):
         oc.load_result(tmp_path / "b")
 
 
+def test_an_npy_file_in_the_npz_slot_is_named(result, tmp_path):
+    # np.save of x under result.npz made load_result fail with a TypeError from a `with`
+    # on an ndarray (a review)
+    json_path, npz_path = result.save(tmp_path / "a")
+    with open(npz_path, "wb") as fh:
+        np.save(fh, result.x)
+    with pytest.raises(ResultFileError, match="not an .npz archive but a single ndarray"):
+        oc.load_result(json_path)
+
+
+def test_a_climb_folder_given_for_its_result_is_told_the_stem(result, tmp_path):
+    # load_result("c3") on a climb --out folder said "'c3.json': file not found"
+    result.save(tmp_path / "c3" / "result")
+    with pytest.raises(ResultFileError, match="it is a folder; give the stem .*result'"):
+        oc.load_result(tmp_path / "c3")
+
+
 def test_wrong_version_and_missing(result, tmp_path):
     json_path, _ = result.save(tmp_path / "c")
     doc = json.loads(json_path.read_text())

@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import io
 import json
 import math
 import shutil
@@ -109,6 +110,12 @@ def test_without_keep_points_nothing_is_kept_and_the_report_has_no_section(tmp_p
     assert json.loads((folder / "report.json").read_text())["end_point_overlaps"] == []
 
 
+def _npz_bytes(**arrays) -> bytes:
+    buf = io.BytesIO()
+    np.savez(buf, **arrays)
+    return buf.getvalue()
+
+
 def _damaged(kept, tmp_path, damage):
     folder = tmp_path / "s"
     shutil.copytree(kept, folder)
@@ -125,6 +132,7 @@ def _damaged(kept, tmp_path, damage):
         (lambda p: p.write_bytes(p.read_bytes()[:-8]), "cannot read"),
         (lambda p: p.write_bytes(p.read_bytes()[:-8] + np.float64(0.5).tobytes()), "digest"),
         (lambda p: np.save(p, np.zeros(3)), "expected (16,) float64"),
+        (lambda p: p.write_bytes(_npz_bytes(x=np.zeros(16))), "not an .npy array"),
     ],
 )
 def test_a_damaged_point_is_refused_by_name(kept, tmp_path, damage, words):

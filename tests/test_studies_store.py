@@ -59,6 +59,16 @@ def test_a_folder_holding_other_files_is_not_taken_for_a_new_study(tmp_path):
     assert sorted(p.name for p in folder.iterdir()) == ["notes.txt"]
 
 
+def test_a_temporary_file_left_by_an_interrupted_write_is_no_other_study(tmp_path):
+    # a Ctrl-C while the first study.json was written left '.study.json.<random>.tmp', and
+    # every later sweep into the folder (empty to `ls`) was refused (a review)
+    folder = tmp_path / "new"
+    folder.mkdir()
+    (folder / ".study.json.lpd7r56d.tmp").write_text("{")
+    store = Store.open(folder, _spec())
+    assert store.created and (folder / "study.json").is_file()
+
+
 def test_a_row_of_a_newer_format_is_not_to_be_deleted(tmp_path):
     # the message told the user both to upgrade and to delete the row and rerun, which would
     # throw away a row that is likely valid (a review)

@@ -17,8 +17,10 @@ import hashlib
 import json
 import math
 import os
+import signal
 import stat
 import tempfile
+import threading
 from collections.abc import Callable, Iterator, Sequence
 from contextvars import ContextVar
 from pathlib import Path
@@ -147,21 +149,26 @@ def write_all_atomic(
     """:func:`write_atomic` for several files that belong together: every file is written to
     a temporary file first, in order (so a later writer may use what an earlier one noted),
     and only when all are complete are they renamed into place, in order. An error or Ctrl-C
-    while writing removes the temporary files and leaves every old file as it was. (A crash
-    between the renames, a few system calls, can still pair a new first file with an old
-    second one; the loaders' checksums tell.)"""
+    while writing removes the temporary files and leaves every old file as it was; a Ctrl-C
+    during the renames waits for them to end (a new .npz beside an old .json loaded as neither,
+    a review). A name longer than the file system takes is refused before anything is written.
+    (A crash between the renames, a few system calls, can still pair a new first file with an
+    old second one; the loaders' checksums tell.)"""
     staged: list[tuple[str, Path]] = []
+    for path, _ in files:
+        _check_name_length(Path(path))
     try:
         for path, write in files:
             dest = Path(path)
             staged.append((_stage(dest, write), dest))
-        while staged:
-            tmp, dest = staged[0]
-            try:
-                os.replace(tmp, dest)
-            except OSError as exc:
-                raise _path_error(f"cannot write {str(dest)!r}", exc) from exc
-            staged.pop(0)
+        with interrupts_deferred():
+            while staged:
+                tmp, dest = staged[0]
+                try:
+                    os.replace(tmp, dest)
+                except OSError as exc:
+                    raise _path_error(f"cannot write {str(dest)!r}", exc) from exc
+                staged.pop(0)
     except BaseException:
         for tmp, _ in staged:
             try:
@@ -170,6 +177,44 @@ def write_all_atomic(
                 pass
         raise
     return [Path(path) for path, _ in files]
+
+
+@contextlib.contextmanager
+def interrupts_deferred() -> Iterator[None]:
+    """Run a short block that must not be cut in two by Ctrl-C: a SIGINT that comes meanwhile
+    is recorded and raised as KeyboardInterrupt when the block ends (or handed to the handler
+    that was installed). Off the main thread, or where SIGINT is ignored or left to the
+    system, nothing is done."""
+    old = signal.getsignal(signal.SIGINT)
+    if threading.current_thread() is not threading.main_thread() or not callable(old):
+        yield
+        return
+    came: list[Any] = []
+    signal.signal(signal.SIGINT, lambda signum, frame: came.append(frame))
+    try:
+        yield
+    finally:
+        signal.signal(signal.SIGINT, old)
+    if came:
+        old(signal.SIGINT, came[0])  # the default handler raises KeyboardInterrupt
+
+
+def _check_name_length(dest: Path) -> None:
+    """:class:`~orthoclimb.errors.OutputPathError` for a file name longer than the file
+    system of its folder takes (the first file of a pair was renamed into place and the second
+    then failed, a review). Where the limit cannot be read, the write reports it."""
+    if not is_folder(dest.parent):  # made later; the write reports a name too long there
+        return
+    try:
+        limit = os.pathconf(dest.parent, "PC_NAME_MAX")
+    except (OSError, ValueError, AttributeError):  # no limit to read, or no pathconf
+        return
+    size = len(os.fsencode(dest.name))
+    if size > limit:
+        raise OutputPathError(
+            f"cannot write {str(dest)!r}: its name has {size} bytes, more than the {limit} the"
+            " file system takes"
+        )
 
 
 def refuse_folder(dest: str | os.PathLike, advice: str = "give a file name") -> None:
@@ -190,13 +235,18 @@ def _stage(dest: Path, write: Callable[[IO[bytes]], None]) -> str:
     ``dest``'s, so a name near the file system's limit of 255 bytes still fits."""
     ensure_folder(dest.parent, f"the folder of {str(dest)!r},")
     refuse_folder(dest)
+    tmp = fh = None
     try:
-        fd, tmp = tempfile.mkstemp(dir=dest.parent, prefix=f".{dest.name[:32]}.", suffix=".tmp")
-    except OSError as exc:
-        raise _path_error(f"cannot write {str(dest)!r}", exc) from None
-    try:
+        try:  # a Ctrl-C inside mkstemp, after it made the file, left it behind (a review)
+            with interrupts_deferred():
+                fd, tmp = tempfile.mkstemp(
+                    dir=dest.parent, prefix=f".{dest.name[:32]}.", suffix=".tmp"
+                )
+                fh = os.fdopen(fd, "wb")
+        except OSError as exc:
+            raise _path_error(f"cannot write {str(dest)!r}", exc) from None
         try:
-            with os.fdopen(fd, "wb") as fh:  # close() flushes too: it fails the same way
+            with fh:  # close() flushes too: it fails the same way
                 write(fh)
                 fh.flush()
                 os.fsync(fh.fileno())
@@ -209,10 +259,12 @@ def _stage(dest: Path, write: Callable[[IO[bytes]], None]) -> str:
         except OSError as exc:
             raise _path_error(f"cannot write {str(dest)!r}", exc) from exc
     except BaseException:
-        try:
-            os.unlink(tmp)
-        except OSError:
-            pass
+        if fh is not None:
+            with contextlib.suppress(OSError):
+                fh.close()
+        if tmp is not None:
+            with contextlib.suppress(OSError):
+                os.unlink(tmp)
         raise
     return tmp
 

@@ -32,6 +32,7 @@ from ..errors import ResultFileError
 from ..fileio import (
     envelope,
     finite_json,
+    is_folder,
     json_digest,
     json_writer,
     open_envelope,
@@ -226,6 +227,12 @@ def _column(values: list) -> np.ndarray:
 def load_result(path: str | os.PathLike) -> Result:
     """Read a result written by :meth:`Result.save` (give the stem or either file name)."""
     json_path, npz_path = pair_paths(path)
+    if is_folder(path) and not json_path.exists():  # a climb --out folder given for its result
+        inside = Path(path) / "result"
+        raise ResultFileError(
+            f"cannot load the result {os.fspath(path)!r}: it is a folder; give the stem of the"
+            f" result in it, e.g. {str(inside)!r}"
+        )
     try:
         text = json_path.read_text(encoding="utf-8")
     except FileNotFoundError:
@@ -241,12 +248,19 @@ def load_result(path: str | os.PathLike) -> Result:
         doc, FORMAT_VERSION, lambda why: _fail(json_path, why), oldest=OLDEST_VERSION
     )
     _check_payload(json_path, payload)
+    unreadable = (OSError, ValueError, KeyError, EOFError, zipfile.BadZipFile)
     try:
-        with np.load(npz_path, allow_pickle=False) as data:
-            x = np.array(data["x"], dtype=np.float64)
+        data = np.load(npz_path, allow_pickle=False)
     except FileNotFoundError:
         raise _fail(npz_path, "file not found") from None
-    except (OSError, ValueError, KeyError, EOFError, zipfile.BadZipFile) as exc:
+    except unreadable as exc:
+        raise _fail(npz_path, f"unreadable (truncated or corrupted?): {exc}") from None
+    if not isinstance(data, np.lib.npyio.NpzFile):  # an .npy file saved under that name
+        raise _fail(npz_path, f"not an .npz archive but a single {type(data).__name__}")
+    try:
+        with data:
+            x = np.array(data["x"], dtype=np.float64)
+    except unreadable as exc:
         raise _fail(npz_path, f"unreadable (truncated or corrupted?): {exc}") from None
     if list(x.shape) != payload.get("x_shape") or vector_digest(x) != payload.get("x_sha256"):
         raise _fail(npz_path, "x does not match the digest recorded in the JSON file")

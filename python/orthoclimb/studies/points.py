@@ -72,6 +72,10 @@ def _read_point(folder: Path, row: dict[str, Any]) -> np.ndarray:
         ) from None
     except (OSError, ValueError, EOFError) as exc:
         raise ValueError(f"cannot read the end point {str(path)!r}: {exc}{redo}") from None
+    if not isinstance(x, np.ndarray):  # an .npz archive saved under that name
+        raise ValueError(
+            f"the end point {str(path)!r} is not an .npy array but a {type(x).__name__}{redo}"
+        )
     n = int(row["n"])
     if x.shape != (n,) or x.dtype != np.float64:
         raise ValueError(

@@ -62,6 +62,12 @@ ROW_FORMAT = "orthoclimb-study-row"
 ROW_FORMAT_VERSION = 1
 
 
+def _counts(name: str) -> bool:
+    """Whether a file in a folder without study.json makes it a folder of other things: not
+    .DS_Store, nor a temporary file an interrupted write left (.<name>.<random>.tmp)."""
+    return name != ".DS_Store" and not (name.startswith(".") and name.endswith(".tmp"))
+
+
 class StudyMismatchError(ValueError):
     """The study folder holds a study with another configuration."""
 
@@ -316,7 +322,7 @@ class Store:
                     f"sizes (keeping the old ones) to extend it{hint}"
                 )
         else:
-            if folder.exists() and any(p.name != ".DS_Store" for p in folder.iterdir()):
+            if folder.exists() and any(_counts(p.name) for p in folder.iterdir()):
                 raise StudyMismatchError(
                     f"the folder {str(folder)!r} is not empty and holds no study.json; "
                     "use an empty or new --out folder"
