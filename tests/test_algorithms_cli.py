@@ -173,6 +173,46 @@ def test_an_output_folder_that_cannot_be_made_is_refused_before_the_work(
     assert "instance:" not in captured.out and "study:" not in captured.out  # nothing ran
 
 
+def _refuse_sampling(monkeypatch):
+    def sample(*args, **kwargs):
+        raise AssertionError("the instance was sampled before the output was checked")
+
+    monkeypatch.setattr(oc.Hamiltonian, "sample", sample)
+
+
+@pytest.mark.parametrize("blocked", ["result.json", "result.npz", "path.png"])
+def test_climb_checks_its_files_before_the_run(tmp_path, capsys, monkeypatch, blocked):
+    # a folder at out/result.json was found only after sampling and the whole run, and the
+    # run was lost (a review)
+    (tmp_path / "c" / blocked).mkdir(parents=True)
+    _refuse_sampling(monkeypatch)
+    args = ["climb", "--gammas", "3:1", "--n", "12", "--steps", "3", "--out", str(tmp_path / "c")]
+    assert main(args) == 2
+    err = capsys.readouterr().err
+    assert f"{str(tmp_path / 'c' / blocked)!r}: it is a folder" in err
+
+
+def test_climb_checks_that_its_folder_takes_files_before_the_run(tmp_path, capsys, monkeypatch):
+    # an immutable folder (chattr +i) refused result.npz after the run; root ignores modes,
+    # so the refusal is simulated at the temporary file the check makes
+    import errno
+    import tempfile
+
+    real = tempfile.mkstemp
+
+    def refusing(*args, dir=None, **kwargs):
+        if str(dir) == str(tmp_path / "c"):
+            raise PermissionError(errno.EPERM, "Operation not permitted")
+        return real(*args, dir=dir, **kwargs)
+
+    (tmp_path / "c").mkdir()
+    monkeypatch.setattr(tempfile, "mkstemp", refusing)
+    _refuse_sampling(monkeypatch)
+    args = ["climb", "--gammas", "3:1", "--n", "12", "--steps", "3", "--out", str(tmp_path / "c")]
+    assert main(args) == 2
+    assert "does not take new files: Operation not permitted" in capsys.readouterr().err
+
+
 def test_a_closed_pipe_ends_the_command_quietly():
     # common practice (POSIX tools): a reader that goes away (`orthoclimb theory | head -1`)
     # stops the writer with status 141 and no message; the pipe is closed before it writes
@@ -317,3 +357,16 @@ def test_climb_with_one_step_says_why_there_is_no_hessian_step(tmp_path, capsys)
     assert main(args) == 0
     out = capsys.readouterr().out
     assert "no Hessian step: --steps 1 has none" in out and "field stage" not in out
+
+
+def test_ctrl_c_while_the_parser_is_built_is_one_line(monkeypatch, capsys):
+    # a Ctrl-C in the first second of a command, while its parser imports SciPy, printed
+    # about 50 lines of traceback (a review)
+    import orthoclimb.cli as cli
+
+    def interrupted():
+        raise KeyboardInterrupt
+
+    monkeypatch.setattr(cli, "build_parser", interrupted)
+    assert cli.main(["theory", "--gammas", "3:1"]) == 130
+    assert capsys.readouterr().err == "orthoclimb: interrupted\n"

@@ -217,6 +217,24 @@ def _check_name_length(dest: Path) -> None:
         )
 
 
+def require_writable(folder: str | os.PathLike, what: str = "output folder") -> None:
+    """:class:`~orthoclimb.errors.OutputPathError` when the existing ``folder`` does not take
+    new files (no permission, a read-only or immutable folder), found by making and removing
+    a temporary file in it: commands that write after long work check before it (climb ran to
+    its end and then lost its result, a review)."""
+    tmp = None
+    try:
+        with interrupts_deferred():
+            fd, tmp = tempfile.mkstemp(dir=folder, prefix=".orthoclimb-probe.", suffix=".tmp")
+            os.close(fd)
+    except OSError as exc:
+        raise _path_error(f"{what} {str(folder)!r} does not take new files", exc) from None
+    finally:
+        if tmp is not None:
+            with contextlib.suppress(OSError):
+                os.unlink(tmp)
+
+
 def refuse_folder(dest: str | os.PathLike, advice: str = "give a file name") -> None:
     """:class:`~orthoclimb.errors.OutputPathError` when a folder stands where the file
     ``dest`` is to be written; callers that write after long work check their files first."""

@@ -203,8 +203,12 @@ def _parse(parser: argparse.ArgumentParser, argv: Sequence[str] | None) -> argpa
 
 
 def main(argv: Sequence[str] | None = None) -> int:
-    parser = build_parser()
-    args = _parse(parser, argv)
+    try:  # building the parser imports SciPy and more: a second or two where Ctrl-C is likely
+        parser = build_parser()
+        args = _parse(parser, argv)
+    except KeyboardInterrupt:
+        print("orthoclimb: interrupted", file=sys.stderr)
+        return 130
     try:
         with undone_on_failure():  # a failed command leaves no empty output folder
             return int(args._run(args) or 0)

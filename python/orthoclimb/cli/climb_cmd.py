@@ -25,7 +25,13 @@ from typing import Any
 import numpy as np
 
 from ..algorithms._checks import MAX_STEPS, check_count
-from ..fileio import ensure_folder, json_text
+from ..fileio import (
+    ensure_folder,
+    json_text,
+    output_pair_paths,
+    refuse_folder,
+    require_writable,
+)
 from ..model import Hamiltonian, Mixture, estimate_memory
 from ..model.hamiltonian import _check_seed
 from ..model.memory import format_bytes, require_memory
@@ -300,6 +306,10 @@ def run(args: argparse.Namespace) -> int:
         raise ValueError("--out must name a folder, got an empty string")
     # before the run, so that a bad --out fails at once (a plan writes nothing)
     out = None if args.plan_only else ensure_folder(args.out)
+    if out is not None:  # and its files can be written: checked again only after the run
+        output_pair_paths(out / "result", "result")
+        refuse_folder(out / "path.png", "remove it or give another --out")
+        require_writable(out)
     say = (lambda *a: None) if args.json else print
     if threads_note is not None:
         say(threads_note)

@@ -45,7 +45,15 @@ try:  # POSIX; elsewhere a sweep does not lock its folder
 except ImportError:  # pragma: no cover - Windows
     fcntl = None  # type: ignore[assignment]
 
-from ..fileio import ensure_folder, envelope, open_envelope, write_atomic, write_json_atomic
+from ..fileio import (
+    ensure_folder,
+    envelope,
+    is_folder,
+    open_envelope,
+    require_writable,
+    write_atomic,
+    write_json_atomic,
+)
 from .grid import StudySpec
 
 __all__ = [
@@ -283,6 +291,11 @@ class Store:
         folder = Path(folder)
         if folder.exists() and not folder.is_dir():
             raise ValueError(f"study folder {str(folder)!r} exists and is not a folder")
+        # before any task runs: a resumed sweep into a read-only rows/ ran its tasks and then
+        # failed at the first row (a review)
+        for place, what in ((folder, "the study folder"), (folder / "rows", "its rows folder")):
+            if is_folder(place):
+                require_writable(place, what)
         meta = folder / "study.json"
         config = spec.to_dict()
         meta_existed = meta.exists()
