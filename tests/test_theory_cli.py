@@ -232,3 +232,12 @@ def test_tiny_scales_keep_their_digits_in_the_plot_labels_and_reference(tmp_path
     assert reference is not None and len(reference) > 0 and all(map(math.isfinite, reference))
     # a folder as --plot is refused before the work
     assert main(["theory", "--gammas", "3:1", "--plot", str(tmp_path)]) == 2
+
+
+def test_a_path_starting_with_a_tilde_is_in_the_home_folder(tmp_path, monkeypatch, capsys):
+    # --plot=~/x.png (the shell expands no ~ after '=') wrote ./~/x.png (a review, for --out)
+    monkeypatch.setenv("HOME", str(tmp_path / "home"))
+    (tmp_path / "home").mkdir()
+    monkeypatch.chdir(tmp_path)
+    assert main(["theory", "--gammas", "3:1", "--plot=~/t.png"]) == 0
+    assert (tmp_path / "home" / "t.png").is_file() and not (tmp_path / "~").exists()

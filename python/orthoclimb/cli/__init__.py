@@ -61,6 +61,13 @@ def add_mixture_flags(parser: argparse.ArgumentParser) -> None:
     )
 
 
+def user_path(text: str) -> str:
+    """An argparse type for paths: a leading ``~`` or ``~user`` is the home folder, as the
+    shell would have made it (it does not after ``--out=``, and ``./~/runs`` was made while
+    the summary pointed at the home folder, a review)."""
+    return os.path.expanduser(text)
+
+
 def positive_number(text: str) -> float:
     """An argparse type: a positive finite number; the message quotes the text as given, so a
     value that underflows ("1e-400") is not reported as "0.0"."""

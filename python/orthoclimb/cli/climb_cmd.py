@@ -44,7 +44,14 @@ from ..studies.estimate import (
     POLISH_PASSES,
     largest_size_within,
 )
-from . import add_mixture_flags, mixture_from, positive_number, seconds_text, threads_from
+from . import (
+    add_mixture_flags,
+    mixture_from,
+    positive_number,
+    seconds_text,
+    threads_from,
+    user_path,
+)
 
 __all__ = ["add_arguments", "run"]
 
@@ -99,6 +106,7 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
     )
     parser.add_argument(
         "--out",
+        type=user_path,
         default="orthoclimb-climb",
         help="output folder (default ./orthoclimb-climb; its result files are replaced)",
     )

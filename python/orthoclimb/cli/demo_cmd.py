@@ -23,6 +23,7 @@ import time
 
 from ..model import Mixture
 from ..studies.grid import MethodSpec, MixtureSpec, StudySpec
+from . import user_path
 from .sweep_cmd import add_engine_arguments, execute
 
 __all__ = ["add_arguments", "demo_spec", "run"]
@@ -55,6 +56,7 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
     )
     parser.add_argument(
         "--out",
+        type=user_path,
         default=None,
         help="study folder (default: orthoclimb-demo, or orthoclimb-demo-quick with --quick)",
     )

@@ -12,7 +12,7 @@ import argparse
 import sys
 from pathlib import Path
 
-from . import add_mixture_flags, mixture_from, seconds_text, threads_from
+from . import add_mixture_flags, mixture_from, seconds_text, threads_from, user_path
 
 __all__ = ["add_arguments", "run"]
 
@@ -35,7 +35,10 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
         help="kernel worker threads (default: ORTHOCLIMB_NUM_THREADS, or all cores)",
     )
     parser.add_argument(
-        "--out", default="orthoclimb-profile", help="output folder (default ./orthoclimb-profile)"
+        "--out",
+        type=user_path,
+        default="orthoclimb-profile",
+        help="output folder (default ./orthoclimb-profile)",
     )
     parser.add_argument("--json", action="store_true", help="print JSON")
 

@@ -12,13 +12,13 @@ from __future__ import annotations
 import argparse
 
 from ..fileio import json_text
-from . import exponent_value
+from . import exponent_value, user_path
 
 __all__ = ["add_arguments", "run"]
 
 
 def add_arguments(parser: argparse.ArgumentParser) -> None:
-    parser.add_argument("study", help="study folder written by `orthoclimb sweep`")
+    parser.add_argument("study", type=user_path, help="study folder written by `orthoclimb sweep`")
     parser.add_argument(
         "--exponent",
         type=exponent_value,
@@ -40,6 +40,7 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
     )
     parser.add_argument(
         "--out",
+        type=user_path,
         default=None,
         help="folder for report.md, report.json and the plots (default: the study folder)",
     )

@@ -29,7 +29,7 @@ from ..studies.grid import (
     spec_from_flags,
     spec_from_toml,
 )
-from . import exponent_value, positive_number, seconds_text
+from . import exponent_value, positive_number, seconds_text, user_path
 
 EPILOG = "A study TOML file (the grid, instead of the flags):\n\n" + TOML_EXAMPLE
 
@@ -76,7 +76,9 @@ def add_engine_arguments(parser: argparse.ArgumentParser) -> None:
 
 
 def add_arguments(parser: argparse.ArgumentParser) -> None:
-    parser.add_argument("spec", nargs="?", default=None, help="study TOML file (instead of flags)")
+    parser.add_argument(
+        "spec", nargs="?", type=user_path, default=None, help="study TOML file (instead of flags)"
+    )
     parser.add_argument(
         "--gammas",
         action="append",
@@ -135,7 +137,7 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
         help="coefficient storage of every instance (default float64; float32 halves the"
         " memory, the arithmetic stays float64)",
     )
-    parser.add_argument("--out", required=True, help="study folder")
+    parser.add_argument("--out", type=user_path, required=True, help="study folder")
     parser.add_argument("--no-report", action="store_true", help="skip the report at the end")
     parser.add_argument(
         "--keep-points",

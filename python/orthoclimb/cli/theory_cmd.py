@@ -28,7 +28,7 @@ from ..theory import (
     path_energy,
     threshold_energy,
 )
-from . import add_mixture_flags, mixture_from, positive_number
+from . import add_mixture_flags, mixture_from, positive_number, user_path
 
 __all__ = ["add_arguments", "run"]
 
@@ -44,6 +44,7 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
     parser.add_argument("--json", action="store_true", help="print JSON instead of a table")
     parser.add_argument(
         "--plot",
+        type=user_path,
         metavar="FILE.png",
         help="also draw xi''^(-1/2), the path curve and the Parisi alpha into this PNG file",
     )
