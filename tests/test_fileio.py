@@ -400,3 +400,27 @@ def test_a_pair_name_too_long_for_the_file_system_writes_nothing(tmp_path):
     with pytest.raises(OutputPathError, match="256 bytes, more than the 255"):
         new.save(tmp_path / ("a" * 251))
     assert list(tmp_path.iterdir()) == []
+
+
+@pytest.mark.parametrize("bad", [None, 123, 1.5])
+def test_a_path_of_the_wrong_type_is_named(bad, tmp_path):
+    # save(None) said only "expected str, bytes or os.PathLike object, not NoneType"
+    import orthoclimb as oc
+
+    ham = oc.Hamiltonian.from_coefficients(3, {2: np.arange(6.0)})
+    res, _ = _two_results()
+    for call in (res.save, oc.load_result, ham.save, oc.load_instance):
+        with pytest.raises(
+            TypeError, match=f"a file path must be text or a path object, got .*{bad!r}"
+        ):
+            call(bad)
+
+
+def test_a_path_with_a_nul_character_is_named_and_bytes_paths_work(tmp_path):
+    import orthoclimb as oc
+
+    res, _ = _two_results()
+    with pytest.raises(ValueError, match="cannot hold a NUL character"):
+        res.save(str(tmp_path / "a\0b"))
+    res.save(os.fsencode(tmp_path / "run"))
+    assert np.array_equal(oc.load_result(os.fsencode(tmp_path / "run")).x, res.x)

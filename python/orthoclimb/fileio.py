@@ -302,10 +302,24 @@ def _path_error(what: str, exc: OSError) -> OutputPathError:
     return err
 
 
+def checked_path(path: Any) -> str:
+    """The text of a file path given as str, bytes or os.PathLike: a TypeError names any other
+    value (pathlib's own said only "expected str, bytes or os.PathLike object, not NoneType"),
+    a ValueError a NUL character, which no file system takes."""
+    if not isinstance(path, (str, bytes, os.PathLike)):
+        raise TypeError(
+            f"a file path must be text or a path object, got {type(path).__name__} {path!r}"
+        )
+    text = os.fsdecode(os.fspath(path))
+    if "\0" in text:
+        raise ValueError(f"a file path cannot hold a NUL character, got {text!r}")
+    return text
+
+
 def pair_paths(path: str | os.PathLike) -> tuple[Path, Path]:
     """``(<stem>.json, <stem>.npz)`` of a file pair, the stem being ``path`` less a ``.json``
     or ``.npz`` suffix (so the stem or either file name may be given)."""
-    p = Path(path)
+    p = Path(checked_path(path))
     stem = p.with_suffix("") if p.suffix in (".json", ".npz") else p
     return stem.with_name(stem.name + ".json"), stem.with_name(stem.name + ".npz")
 
@@ -316,7 +330,7 @@ def output_pair_paths(path: str | os.PathLike, example: str) -> tuple[Path, Path
     would land beside it; the message suggests ``<folder>/<example>``. So does a folder
     standing at either file of the pair, before anything is written (the .npz was written,
     replacing an older one, before the .json was found to be a folder)."""
-    text = os.fspath(path)
+    text = checked_path(path)
     if is_folder(text) or text.endswith(("/", os.sep)):
         inside = str(Path(text) / example)
         raise OutputPathError(f"{text!r} is a folder; give a file stem in it, e.g. {inside!r}")

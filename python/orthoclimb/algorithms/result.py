@@ -30,6 +30,7 @@ import numpy as np
 
 from ..errors import ResultFileError
 from ..fileio import (
+    checked_path,
     envelope,
     finite_json,
     is_folder,
@@ -227,11 +228,11 @@ def _column(values: list) -> np.ndarray:
 def load_result(path: str | os.PathLike) -> Result:
     """Read a result written by :meth:`Result.save` (give the stem or either file name)."""
     json_path, npz_path = pair_paths(path)
-    if is_folder(path) and not json_path.exists():  # a climb --out folder given for its result
-        inside = Path(path) / "result"
+    given = checked_path(path)
+    if is_folder(given) and not json_path.exists():  # a climb --out folder given for its result
         raise ResultFileError(
-            f"cannot load the result {os.fspath(path)!r}: it is a folder; give the stem of the"
-            f" result in it, e.g. {str(inside)!r}"
+            f"cannot load the result {given!r}: it is a folder; give the stem of the result in"
+            f" it, e.g. {str(Path(given) / 'result')!r}"
         )
     try:
         text = json_path.read_text(encoding="utf-8")
