@@ -38,11 +38,13 @@ from ..model.memory import format_bytes, require_memory
 from ..runtime import get_num_threads, kernel_path
 from ..studies.engine import counted
 from ..studies.estimate import (
-    BACKTRACK_PASSES,
-    GRADIENT_ITERATIONS,
     LANCZOS_SECONDS,
-    POLISH_PASSES,
+    PASSES_PER_ITERATION,
+    check_seconds,
+    gradient_passes,
     largest_size_within,
+    polish_extra,
+    polish_passes,
 )
 from . import (
     add_mixture_flags,
@@ -162,21 +164,23 @@ def _sampling_text(probe: Hamiltonian, seconds: float, need: int) -> str:
 def _run_estimate(
     ham: Hamiltonian, method: str, steps: int, polish: bool, n: int | None = None, scale=1.0
 ) -> str:
-    """The run's time from timed passes (module doc): K - 1 Hessian passes plus Lanczos for
-    hessian (none when the first stage ends on the sphere), ``steps`` passes for anneal, a
-    typical ``GRADIENT_ITERATIONS`` iterations for gradient (with its time at the cap), and
-    ``POLISH_PASSES`` energy-and-gradient passes for a polish. For a run at ``n`` timed on a
-    smaller instance ``ham``, ``scale`` is the ratio of their coefficient bytes (a pass reads
-    each coefficient once)."""
+    """The run's time from timed passes, by the sweep's model (orthoclimb.studies.estimate):
+    K - 1 Hessian passes plus Lanczos for hessian (none when the first stage ends on the
+    sphere), ``steps`` passes for anneal, the mean pass count of gradient ascent at n (with its
+    time at the cap), and a polish's passes, Newton steps and local-maximum check. For a run at
+    ``n`` timed on a smaller instance ``ham``, ``scale`` is the ratio of their coefficient bytes
+    (a pass reads each coefficient once)."""
     from ..algorithms import hessian_moves
 
     n = ham.n if n is None else n
     grad = scale * _time_pass(ham, "gradient")
+    moves = hessian_moves(ham.mixture, steps) if method == "hessian" else 0
+    needs_hessian = moves > 0 or polish or method == "gradient"
+    hess = scale * _time_pass(ham, "hessian") if needs_hessian else 0.0
+    finish = polish_passes(n, method) * grad + polish_extra(n, hess) if polish else 0.0
     if method == "hessian":
-        moves = hessian_moves(ham.mixture, steps)
-        hess = scale * _time_pass(ham, "hessian") if moves > 0 else 0.0
         lanczos = LANCZOS_SECONDS[0] + LANCZOS_SECONDS[1] * n**2
-        run = moves * (hess + lanczos) + (POLISH_PASSES * grad if polish else 0.0)
+        run = moves * (hess + lanczos) + finish
         what = f"{moves} Hessian steps" + (" and the polish" if polish else "")
         if moves == 0:
             polish_time = f"; the polish takes about {seconds_text(run)}" if polish else ""
@@ -187,18 +191,20 @@ def _run_estimate(
             f" {seconds_text(run)} ({what})"
         )
     if method == "anneal":
-        run = (steps + (POLISH_PASSES if polish else 0)) * grad
+        run = steps * grad + finish
         what = f"{steps} Langevin steps" + (" and the polish" if polish else "")
         return (
             f"one gradient pass: {seconds_text(grad)}; estimated run time about"
             f" {seconds_text(run)} ({what})"
         )
-    typical = min(GRADIENT_ITERATIONS, steps) * BACKTRACK_PASSES * grad
-    cap = steps * BACKTRACK_PASSES * grad
+    passes = gradient_passes(n, steps)
+    check = grad + hess + check_seconds(n)  # the local-maximum check at the end
+    typical = passes * grad + check
+    cap = PASSES_PER_ITERATION * steps * grad + check
     return (
         f"one gradient pass: {seconds_text(grad)}; estimated run time about"
-        f" {seconds_text(typical)} (typically {min(GRADIENT_ITERATIONS, steps)} iterations;"
-        f" at most {seconds_text(cap)} if it runs to --max-iter {steps})"
+        f" {seconds_text(typical)} (typically {passes:.0f} passes at this n; at most"
+        f" {seconds_text(cap)} if it runs to --max-iter {steps})"
     )
 
 

@@ -5,21 +5,35 @@ their time at a calibration size n0 times (n/n0)^P, both timed on the driver at 
 largest of the mixture's sizes whose instance takes at most 64 MB, at most 400; when none
 does, the largest n below its sizes that does), P the largest degree. The cost per
 coefficient falls as n grows (per-segment overheads), so n0 is taken as large as that
-allows. Hessian ascent: K x (a Hessian pass plus Lanczos, about 6e-4 + 1.1e-8
-n^2 s: medians per step on one thread 0.7, 1.4 and 1.8 ms at n = 100, 220 and 320 for the
-pure 3-spin model, 3.9 and 10.4 ms at n = 600 and 1000 for the pure 2-spin one) plus, when it
-polishes, about 150 energy-and-gradient passes; gradient ascent: about 150 iterations x 1.5
-passes for backtracking, capped by max_iter (its iteration count is not known in advance: the
-demo's grids took 60-200, about 75-330 passes). Each task also costs about 0.02 s of Dask round
-trip and row writing, and an embedded cluster about 2 s to start (its worker processes start and
-import the package before their first task). Measured for ``demo --quick`` (72 small tasks, 2
-workers): the sweep took 4.1 s, of which its tasks' own sampling and running were 3.2 s over
-the two workers; a cluster started in 0.6 s and ran its first task, importing the package, in
-1.2-1.3 s; 200 empty tasks took 0.9 s. The total of the tasks is divided by the number of
-workers. It is a rough guide (a factor of 2 either way), printed before a sweep starts. For
-the demo (55 s) it gave 101 s with n0 at most 120 and a Lanczos term of 1e-7 n^2 + 2e-3 s
-(ten times the measured one); it now gives 67-68 s (the whole demo then took 58-59 s), and
-4 s for ``demo --quick`` (whole runs of 3.3-6 s).
+allows. The pass counts are means measured over 5-20 seeds of four mixtures (3:1, 4:1,
+2:1,3:1 and 2:1,4:0.25; n = 50-800, degree 4 to n = 240; study defaults, 2026-12-04), fitted
+as a + b ln n, since a study adds its tasks up:
+
+* Hessian ascent: K Hessian passes plus Lanczos per step, about 6e-4 + 1.1e-8 n^2 s
+  (medians per step on one thread 0.7, 1.4 and 1.8 ms at n = 100, 220 and 320 for the pure
+  3-spin model, 3.9 and 10.4 ms at n = 600 and 1000 for the pure 2-spin one); with its
+  polish, 22 ln n - 61 energy-and-gradient passes (at least 20; 26 at n = 50, 86 at 800).
+* Gradient ascent: 80 ln n - 234 energy-and-gradient passes (at least 40; 79 at n = 50, 301
+  at 800), about 1.08 per iteration, capped at 1.1 x max_iter; the four mixtures' own fits
+  lie within 25 % of it at n = 100-800. It was 150 iterations x 1.5 passes = 225 before,
+  1.3-3.3 times too many at n <= 200 and 0.66-0.92 times the measured mean at 400-800.
+* Langevin annealing: one pass per step; with its polish, 56 ln n - 179 more (at least 20).
+* A polish adds 3 Hessian passes (two Newton steps and the check) and two Cholesky
+  factorizations (about 1.7e-11 n^3 s each) and ends with the local-maximum check: all
+  n - 1 tangent eigenvalues by scipy.linalg.eigvalsh, about 1e-3 + 7e-11 n^3 s on one thread
+  (7.7, 36 and 101 ms at n = 400, 800 and 1200). Gradient ascent ends with the same check,
+  with one Hessian and one energy-and-gradient pass of its own.
+
+Single runs spread widely around these means: a polish whose Newton step meets a non-maximum
+falls back to gradient steps (3 of 123 after Hessian ascent, 9 of 123 after annealing, up to
+432 and 695 passes), and one gradient run may take 2-3 times the mean. Each task also costs
+about 0.02 s of Dask round trip and row writing, and an embedded cluster about 2 s to start
+(its worker processes start and import the package before their first task). Measured for
+``demo --quick`` (72 small tasks, 2 workers): the sweep took 4.1 s, of which its tasks' own
+sampling and running were 3.2 s over the two workers; a cluster started in 0.6 s and ran its
+first task, importing the package, in 1.2-1.3 s; 200 empty tasks took 0.9 s. The total of
+the tasks is divided by the number of workers. It is a rough guide (a factor of 2 either
+way), printed before a sweep starts.
 """
 
 from __future__ import annotations
@@ -35,26 +49,64 @@ from .grid import StudySpec
 from .profile import best_time
 
 __all__ = [
-    "BACKTRACK_PASSES",
-    "GRADIENT_ITERATIONS",
+    "CHECK_SECONDS",
+    "GRADIENT_PASSES",
     "LANCZOS_SECONDS",
     "POLISH_PASSES",
     "Calibration",
     "calibrate",
+    "check_seconds",
     "estimate_from",
     "estimate_seconds",
+    "gradient_passes",
     "largest_instance",
     "largest_size_within",
+    "polish_extra",
+    "polish_passes",
 ]
 
 _CAL_BYTES = 64 * 2**20
 # seconds of Lanczos per Hessian-ascent step: a + b n^2 (module doc)
 LANCZOS_SECONDS = (6e-4, 1.1e-8)
-POLISH_PASSES = 150  # energy-and-gradient passes of a polish (module doc)
-GRADIENT_ITERATIONS = 150  # typical iterations of gradient ascent (module doc)
-BACKTRACK_PASSES = 1.5  # passes per gradient iteration, with its backtracking
+# seconds of the local-maximum check's dense eigenvalues: a + b n^3 (module doc)
+CHECK_SECONDS = (1e-3, 7e-11)
+CHOLESKY_SECONDS = 1.7e-11  # x n^3: one Newton step's factorization (module doc)
+# energy-and-gradient passes, a + b ln n, and the floor at small n (module doc)
+GRADIENT_PASSES = (-234.0, 80.0, 40.0)
+POLISH_PASSES = {"hessian": (-61.0, 22.0, 20.0), "anneal": (-179.0, 56.0, 20.0)}
+PASSES_PER_ITERATION = 1.1  # gradient ascent, backtracking included: at most this per iteration
+POLISH_HESSIANS = 3  # Hessian passes of a polish: two Newton steps and the check
 _TASK_OVERHEAD = 0.02  # seconds per task: Dask round trip and the row's atomic write
 _CLUSTER_START = 2.0  # seconds: an embedded cluster's processes start and import the package
+
+
+def _log_fit(n: int, fit: tuple[float, float, float]) -> float:
+    a, b, floor = fit
+    return max(floor, a + b * math.log(n))
+
+
+def gradient_passes(n: int, max_iter: int) -> float:
+    """Mean energy-and-gradient passes of gradient ascent at n (module doc), capped by
+    ``max_iter`` iterations."""
+    return min(_log_fit(n, GRADIENT_PASSES), PASSES_PER_ITERATION * max_iter)
+
+
+def polish_passes(n: int, after: str) -> float:
+    """Mean energy-and-gradient passes of the polish that ends ``after`` ('hessian' or
+    'anneal') at n (module doc)."""
+    return _log_fit(n, POLISH_PASSES[after])
+
+
+def check_seconds(n: int) -> float:
+    """Seconds of the dense local-maximum check at n (module doc)."""
+    return CHECK_SECONDS[0] + CHECK_SECONDS[1] * n**3
+
+
+def polish_extra(n: int, hessian_pass: float) -> float:
+    """Seconds a polish adds besides its energy-and-gradient passes: its Hessian passes
+    (``hessian_pass`` seconds each at n), Newton's two factorizations and the dense
+    local-maximum check that ends it."""
+    return POLISH_HESSIANS * hessian_pass + 2 * CHOLESKY_SECONDS * n**3 + check_seconds(n)
 
 
 @dataclass(frozen=True)
@@ -143,16 +195,18 @@ def estimate_from(cal: dict[str, Calibration], tasks, workers: int, embedded: bo
         scale = (t.n / c.n0) ** c.degree
         opts = dict(t.method.options)
         total += scale * c.sampling + _TASK_OVERHEAD
-        polish = POLISH_PASSES if opts.get("polish") else 0  # hessian and anneal polish
+        eg, hess = scale * c.energy_and_gradient, scale * c.hessian  # one pass each at n
         if t.method.name == "hessian":
             eigen = LANCZOS_SECONDS[0] + LANCZOS_SECONDS[1] * t.n**2  # per step
             k = auto_steps(t.n) if opts["steps"] == "auto" else opts["steps"]
-            total += scale * (k * c.hessian + polish * c.energy_and_gradient) + eigen * k
-        elif t.method.name == "anneal":  # one pass per step, then the polish's
-            total += scale * (opts["steps"] + polish) * c.energy_and_gradient
-        else:
-            iters = min(GRADIENT_ITERATIONS, opts["max_iter"])
-            total += scale * iters * c.energy_and_gradient * BACKTRACK_PASSES
+            total += k * (hess + eigen)
+        elif t.method.name == "anneal":  # one pass per step
+            total += opts["steps"] * eg
+        else:  # and its local-maximum check: a Hessian, a pass and the eigenvalues
+            total += (gradient_passes(t.n, opts["max_iter"]) + 1) * eg + hess
+            total += check_seconds(t.n)
+        if t.method.name != "gradient" and opts.get("polish"):
+            total += polish_passes(t.n, t.method.name) * eg + polish_extra(t.n, hess)
     return total / max(1, workers) + (_CLUSTER_START if embedded else 0.0)
 
 
