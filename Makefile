@@ -26,7 +26,7 @@ bench-quick:
 lint:
 	cargo fmt --check
 	cargo clippy --all-targets --features python -- -D warnings
-	RUSTDOCFLAGS="-D warnings" cargo doc --no-deps --document-private-items
+	RUSTDOCFLAGS="-D warnings" cargo doc --no-deps --document-private-items --features python
 	ruff check python tests bench
 	ruff format --check python tests bench
 
