@@ -125,7 +125,7 @@ def test_profile_flags_a_slope_above_over_all_sizes_and_a_loose_fit(tmp_path, ca
                  "--out", str(tmp_path)]) == 0  # fmt: skip
     prof = json.loads(capsys.readouterr().out)
     text = " ".join(prof["notes"])
-    assert "b over all sizes above that growth (hessian)" in text
+    assert "b above that growth over all sizes (hessian)" in text
     assert "hessian 1 -> 4 ns" in text and "hessian up to" in text
     assert prof["coefficient_exponent"] == pytest.approx(3.0)
     assert prof["fit_spread"]["energy"] == pytest.approx(1.0)

@@ -188,6 +188,16 @@ def _reference(kernel: str, count_exponent: float) -> float:
     return max(count_exponent, 2.0) if kernel == "hessian" else count_exponent
 
 
+def _rise_note(where: str, kernels: list[str], before: dict, after: dict) -> str:
+    """'b above that growth <where> (kernels): the time per coefficient rose (...), as when
+    ... outgrows a cache'."""
+    rises = ", ".join(f"{k} {before[k]:.3g} -> {after[k]:.3g} ns" for k in kernels)
+    return (
+        f"b above that growth {where} ({', '.join(kernels)}): the time per coefficient rose"
+        f" ({rises}), as when {_TOUCHED} outgrows a cache"
+    )
+
+
 def profile_notes(prof: dict[str, Any]) -> list[str]:
     """What the exponents say, in sentences: each b is read against the growth of the
     coefficient count over the same sizes (n^P only once n is well above P: C(n+7, 8) grows
@@ -210,21 +220,14 @@ def profile_notes(prof: dict[str, Any]) -> list[str]:
     lo, hi = rows[-2]["ns_per_coefficient"], rows[-1]["ns_per_coefficient"]
     if above:
         notes.append(
-            f"b above that growth between n = {big[0]} and {big[1]} ({', '.join(above)}): the"
-            " time per coefficient rose ("
-            + ", ".join(f"{k} {lo[k]:.3g} -> {hi[k]:.3g} ns" for k in above)
-            + f"), as when {_TOUCHED} outgrows a cache and the pass becomes bound by memory"
-            " bandwidth; once both sizes are past it the slope returns to the count's growth"
+            _rise_note(f"between n = {big[0]} and {big[1]}", above, lo, hi)
+            + " and the pass becomes bound by memory bandwidth; once both sizes are past it"
+            " the slope returns to the count's growth"
         )
-    first = rows[0]["ns_per_coefficient"]
     rising = [k for k in KERNELS if b[k] > _reference(k, q) + 0.5 and k not in above]
     if rising:
-        notes.append(
-            f"b over all sizes above that growth ({', '.join(rising)}): the time per"
-            " coefficient rose from the smallest size to the largest ("
-            + ", ".join(f"{k} {first[k]:.3g} -> {hi[k]:.3g} ns" for k in rising)
-            + f"), as when {_TOUCHED} outgrows a cache"
-        )
+        first = rows[0]["ns_per_coefficient"]
+        notes.append(_rise_note("over all sizes", rising, first, hi))
     loose = {k: prof["fit_spread"][k] for k in KERNELS if prof["fit_spread"][k] > LOOSE_FIT}
     if loose:
         notes.append(
