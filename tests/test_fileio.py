@@ -424,3 +424,39 @@ def test_a_path_with_a_nul_character_is_named_and_bytes_paths_work(tmp_path):
         res.save(str(tmp_path / "a\0b"))
     res.save(os.fsencode(tmp_path / "run"))
     assert np.array_equal(oc.load_result(os.fsencode(tmp_path / "run")).x, res.x)
+
+
+def test_a_pair_name_too_long_for_a_new_folder_writes_nothing(tmp_path):
+    # the length was read only from a folder that exists: into a new one the .npz was
+    # renamed into place before the .json failed (a review)
+    _, new = _two_results()
+    with pytest.raises(OutputPathError, match="256 bytes, more than the 255"):
+        new.save(tmp_path / "new" / "deeper" / ("a" * 251))
+    assert list(tmp_path.iterdir()) == []
+
+
+def test_ctrl_c_just_after_a_file_is_staged_leaves_no_temporary(tmp_path, monkeypatch):
+    # the name of a staged file reached the cleanup only when _stage returned (a review)
+    from orthoclimb import fileio
+
+    old, new = _two_results()
+    old.save(tmp_path / "run")
+    calls: list = []
+    monkeypatch.setattr(fileio, "_stage", _interrupt_after(fileio._stage, calls))
+    with pytest.raises(KeyboardInterrupt):
+        new.save(tmp_path / "run")
+    monkeypatch.undo()
+    assert sorted(p.name for p in tmp_path.iterdir()) == ["run.json", "run.npz"]
+
+
+def test_a_deferred_ctrl_c_is_raised_even_when_the_block_fails():
+    # the Ctrl-C was dropped when the block raised (a review): it wins, the error is its context
+    import signal
+
+    from orthoclimb.fileio import interrupts_deferred
+
+    with pytest.raises(KeyboardInterrupt) as caught:
+        with interrupts_deferred():
+            os.kill(os.getpid(), signal.SIGINT)
+            raise OSError(28, "No space left on device")
+    assert isinstance(caught.value.__context__, OSError)

@@ -159,8 +159,7 @@ def write_all_atomic(
         _check_name_length(Path(path))
     try:
         for path, write in files:
-            dest = Path(path)
-            staged.append((_stage(dest, write), dest))
+            _stage(Path(path), write, staged)
         with interrupts_deferred():
             while staged:
                 tmp, dest = staged[0]
@@ -195,18 +194,20 @@ def interrupts_deferred() -> Iterator[None]:
         yield
     finally:
         signal.signal(signal.SIGINT, old)
-    if came:
-        old(signal.SIGINT, came[0])  # the default handler raises KeyboardInterrupt
+        if came:  # also when the block raised: the Ctrl-C wins, the error is its context
+            old(signal.SIGINT, came[0])  # the default handler raises KeyboardInterrupt
 
 
 def _check_name_length(dest: Path) -> None:
     """:class:`~orthoclimb.errors.OutputPathError` for a file name longer than the file
     system of its folder takes (the first file of a pair was renamed into place and the second
     then failed, a review). Where the limit cannot be read, the write reports it."""
-    if not is_folder(dest.parent):  # made later; the write reports a name too long there
+    # the nearest folder that exists: the ones still to be made are on its file system
+    folder = next((f for f in (dest.parent, *dest.parent.parents) if is_folder(f)), None)
+    if folder is None:
         return
     try:
-        limit = os.pathconf(dest.parent, "PC_NAME_MAX")
+        limit = os.pathconf(folder, "PC_NAME_MAX")
     except (OSError, ValueError, AttributeError):  # no limit to read, or no pathconf
         return
     size = len(os.fsencode(dest.name))
@@ -247,10 +248,12 @@ def figure_writer(fig: Any, fmt: str = "png", **kwargs: Any) -> Callable[[IO[byt
     return lambda fh: fig.savefig(fh, format=fmt, **kwargs)
 
 
-def _stage(dest: Path, write: Callable[[IO[bytes]], None]) -> str:
-    """Write a temporary file beside ``dest`` with ``write`` and return its path (see
-    :func:`write_atomic` for the errors). Its name starts with the first 32 characters of
-    ``dest``'s, so a name near the file system's limit of 255 bytes still fits."""
+def _stage(dest: Path, write: Callable[[IO[bytes]], None], staged: list[tuple[str, Path]]) -> None:
+    """Write a temporary file beside ``dest`` with ``write`` and note it in ``staged`` as
+    (its path, ``dest``) as soon as it exists, so the caller's cleanup knows it whenever a
+    Ctrl-C comes (see :func:`write_atomic` for the errors). Its name starts with the first 32
+    characters of ``dest``'s, so a name near the file system's limit of 255 bytes still
+    fits."""
     ensure_folder(dest.parent, f"the folder of {str(dest)!r},")
     refuse_folder(dest)
     tmp = fh = None
@@ -261,6 +264,7 @@ def _stage(dest: Path, write: Callable[[IO[bytes]], None]) -> str:
                     dir=dest.parent, prefix=f".{dest.name[:32]}.", suffix=".tmp"
                 )
                 fh = os.fdopen(fd, "wb")
+                staged.append((tmp, dest))
         except OSError as exc:
             raise _path_error(f"cannot write {str(dest)!r}", exc) from None
         try:
@@ -284,7 +288,6 @@ def _stage(dest: Path, write: Callable[[IO[bytes]], None]) -> str:
             with contextlib.suppress(OSError):
                 os.unlink(tmp)
         raise
-    return tmp
 
 
 def _mode_for(dest: Path) -> int:
