@@ -317,7 +317,7 @@ def dense_rows(stats, errors, h, tensor, bws) -> list[dict]:
                 set_roofline(row, bws["dense tensor"])
             group.append(row)
         for row in group[1:]:
-            if row["rel_err"] is not None and row["rel_err"] > PEER_TOL:
+            if row["rel_err"] is not None and not row["rel_err"] <= PEER_TOL:  # NaN too
                 wrong = f"WRONG result (differs from orthoclimb by {row['rel_err']:.1e})"
                 row["note"] = " ".join(s for s in (wrong, row["note"]) if s)
         numpy_rows = [
@@ -343,7 +343,7 @@ def check_against(refs: dict, errors: dict, tol: float = PEER_TOL):
         if key[0] in ("orthoclimb", "probe"):
             return
         errors[key] = _peers.relative_error(value, refs[key[2]])
-        if errors[key] > tol:
+        if not errors[key] <= tol:  # a NaN result is wrong too
             log(f"   WARNING: {key} differs from orthoclimb by {errors[key]:.2e}")
 
     return hook

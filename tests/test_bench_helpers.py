@@ -66,7 +66,7 @@ def test_a_peer_with_a_wrong_result_is_never_the_best_row_a_target_reads():
         stats[("orthoclimb", "", kernel)] = _stats(0.002)
         stats[("numpy", "wrong", kernel)] = _stats(0.0001)
         stats[("numpy", "matmul", kernel)] = _stats(0.02)
-        errors[("numpy", "wrong", kernel)] = 1.0
+        errors[("numpy", "wrong", kernel)] = 1.0 if kernel != "hvp" else float("nan")
         errors[("numpy", "matmul", kernel)] = 1e-15
     h = SimpleNamespace(nbytes=10)
     tensor = SimpleNamespace(ndim=p, shape=(n,) * p, nbytes=8 * n**p)
@@ -97,3 +97,25 @@ def test_every_batch_row_is_checked_against_single_calls():
 
     broken = SimpleNamespace(energy=h.energy, energy_and_gradient=wrong_batch)
     assert _cases.batch_error(broken, xs, "energy_and_gradient") > 0.1
+
+
+def test_measure_spreads_each_functions_samples_over_every_round():
+    # the wiring of round_share into measure(): 7 samples over 5 rounds, none empty
+    plan = _timing.Plan(
+        min_repeats=7, max_repeats=7, budget_s=0.0, settle_s=0.0, warm_s=0.0, warm_calls=1,
+        warm_max_s=0.0, min_sample_s=0.0,
+    )  # fmt: skip
+    stats = _timing.measure({"a": lambda: None, "b": lambda: None}, plan)
+    for st in stats.values():
+        assert len(st.blocks) == 5 and min(st.blocks) >= 1 and sum(st.blocks) == 7
+
+
+def test_the_batch_case_checks_every_batch_row(capsys):
+    # the wiring of batch_error into case_batch (seconds at n = 12 with the quick plan)
+    cfg = _cases.Config(
+        plan=_timing.QUICK_PLAN, sizes={"batch": (12,)}, threads=2, quick=True, torch_version=None
+    )
+    case = _cases.case_batch(cfg, _cases.Workspace())
+    batches = [r for r in case["rows"] if r["variant"].startswith("batch b=")]
+    assert len(batches) == 6  # b = 32 for both kernels, and 2, 4, 8, 16 for the energy
+    assert all(r["rel_err"] is not None and r["rel_err"] < 1e-12 for r in batches)

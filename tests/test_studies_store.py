@@ -143,21 +143,24 @@ def test_another_exponent_points_to_the_report(tmp_path):
         Store.open(folder, _study(exponent=1.0))
 
 
-def test_a_study_whose_rows_folder_takes_no_files_is_refused_on_opening(tmp_path, monkeypatch):
-    # a resumed sweep into a read-only rows/ ran its tasks, then failed at the first row
-    # (a review); the refusal is simulated at the check's temporary file (root ignores modes)
+@pytest.mark.parametrize("name", ["rows", "points", "failed"])
+def test_a_study_folder_that_takes_no_files_is_refused_on_opening(tmp_path, monkeypatch, name):
+    # a resumed sweep into a read-only rows/ (or points/ with --keep-points) ran its tasks,
+    # then failed at the first write (reviews); the refusal is simulated at the check's
+    # temporary file (root ignores modes)
     import errno
     import tempfile
 
     folder = tmp_path / "s"
     Store.open(folder, _spec())
+    (folder / name).mkdir(exist_ok=True)
     real = tempfile.mkstemp
 
     def refusing(*args, dir=None, **kwargs):
-        if str(dir) == str(folder / "rows"):
+        if str(dir) == str(folder / name):
             raise PermissionError(errno.EPERM, "Operation not permitted")
         return real(*args, dir=dir, **kwargs)
 
     monkeypatch.setattr(tempfile, "mkstemp", refusing)
-    with pytest.raises(OSError, match="its rows folder .* does not take new files"):
+    with pytest.raises(OSError, match=f"its {name} folder .* does not take new files"):
         Store.open(folder, _spec())

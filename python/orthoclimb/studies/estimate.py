@@ -9,20 +9,23 @@ allows. The pass counts are means measured over 5-20 seeds of four mixtures (3:1
 2:1,3:1 and 2:1,4:0.25; n = 50-800, degree 4 to n = 240; study defaults, 2026-12-04), fitted
 as a + b ln n, since a study adds its tasks up:
 
-* Hessian ascent: K Hessian passes plus Lanczos per step, about 6e-4 + 1.1e-8 n^2 s
+* Hessian ascent: K - 1 Hessian steps (none when the first stage ends on the sphere,
+  ``hessian_moves``), each a Hessian pass plus Lanczos, about 6e-4 + 1.1e-8 n^2 s
   (medians per step on one thread 0.7, 1.4 and 1.8 ms at n = 100, 220 and 320 for the pure
   3-spin model, 3.9 and 10.4 ms at n = 600 and 1000 for the pure 2-spin one); with its
-  polish, 22 ln n - 61 energy-and-gradient passes (at least 20; 26 at n = 50, 86 at 800).
+  polish, 22 ln n - 61 energy-and-gradient passes (at least 20; 25 at n = 50, 86 at 800).
 * Gradient ascent: 80 ln n - 234 energy-and-gradient passes (at least 40; 79 at n = 50, 301
   at 800), about 1.08 per iteration, capped at 1.1 x max_iter; the four mixtures' own fits
-  lie within 25 % of it at n = 100-800. It was 150 iterations x 1.5 passes = 225 before,
-  1.3-3.3 times too many at n <= 200 and 0.66-0.92 times the measured mean at 400-800.
+  lie within 32 % of it at n = 100-800 (2:1,4:0.25 lowest, 3:1 highest). It was 150
+  iterations x 1.5 passes = 225 before, 1.3-3.3 times too many at n <= 200 and 0.66-0.92
+  times the measured mean at 400-800.
 * Langevin annealing: one pass per step; with its polish, 56 ln n - 179 more (at least 20).
 * A polish adds 3 Hessian passes (two Newton steps and the check) and two Cholesky
   factorizations (about 1.7e-11 n^3 s each) and ends with the local-maximum check: all
   n - 1 tangent eigenvalues by scipy.linalg.eigvalsh, about 1e-3 + 7e-11 n^3 s on one thread
-  (7.7, 36 and 101 ms at n = 400, 800 and 1200). Gradient ascent ends with the same check,
-  with one Hessian and one energy-and-gradient pass of its own.
+  (5.5, 37 and 122 ms at n = 400, 800 and 1200 against 7.7, 36 and 101 ms measured).
+  Gradient ascent ends with the same check, with one Hessian and one energy-and-gradient
+  pass of its own.
 
 Single runs spread widely around these means: a polish whose Newton step meets a non-maximum
 falls back to gradient steps (3 of 123 after Hessian ascent, 9 of 123 after annealing, up to
@@ -44,7 +47,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from ..algorithms.hessian_ascent import auto_steps
+from ..algorithms.hessian_ascent import auto_steps, hessian_moves
 from .grid import StudySpec
 from .profile import best_time
 
@@ -199,7 +202,7 @@ def estimate_from(cal: dict[str, Calibration], tasks, workers: int, embedded: bo
         if t.method.name == "hessian":
             eigen = LANCZOS_SECONDS[0] + LANCZOS_SECONDS[1] * t.n**2  # per step
             k = auto_steps(t.n) if opts["steps"] == "auto" else opts["steps"]
-            total += k * (hess + eigen)
+            total += hessian_moves(t.mixture.mixture, k) * (hess + eigen)
         elif t.method.name == "anneal":  # one pass per step
             total += opts["steps"] * eg
         else:  # and its local-maximum check: a Hessian, a pass and the eigenvalues

@@ -15,7 +15,6 @@ direction (see the README), so R measures how far apart they end from a common s
 
 from __future__ import annotations
 
-import hashlib
 import io
 import math
 import os
@@ -25,24 +24,20 @@ from typing import Any
 
 import numpy as np
 
+from ..algorithms.result import vector_digest
 from ..fileio import write_atomic
 
 __all__ = [
     "end_point_overlaps",
     "load_end_points",
+    "readable_end_points",
     "overlap_markdown",
     "overlap_summary",
-    "point_digest",
     "point_path",
     "write_point",
 ]
 
 POINTS_DIR = "points"
-
-
-def point_digest(x: np.ndarray) -> str:
-    """SHA-256 (hex) of ``x`` as little-endian float64 bytes."""
-    return hashlib.sha256(np.ascontiguousarray(x, dtype="<f8").tobytes()).hexdigest()
 
 
 def point_path(folder: str | os.PathLike, task_id: str) -> Path:
@@ -52,23 +47,25 @@ def point_path(folder: str | os.PathLike, task_id: str) -> Path:
 def write_point(folder: str | os.PathLike, task_id: str, x: np.ndarray) -> Path:
     """Write the end point of task ``task_id`` atomically (see the module doc)."""
     data = np.ascontiguousarray(x, dtype="<f8")
-    path = point_path(folder, task_id)
-    path.parent.mkdir(exist_ok=True)
-    return write_atomic(path, lambda fh: np.save(fh, data, allow_pickle=False))
+    return write_atomic(
+        point_path(folder, task_id), lambda fh: np.save(fh, data, allow_pickle=False)
+    )
 
 
 def _read_point(folder: Path, row: dict[str, Any]) -> np.ndarray:
     """The end point of ``row``, checked against the row's shape and digest."""
     path = point_path(folder, row["task_id"])
+    row_file = str(folder / "rows" / f"{row['task_id']}.json")
     redo = (
-        f"; delete {str(path)!r} and rows/{row['task_id']}.json, then rerun the sweep with"
-        " --keep-points to redo that task"
+        f"; to keep it again, delete {str(path)!r} and {row_file!r} and rerun the sweep with"
+        " --keep-points"
     )
     try:
         x = np.load(io.BytesIO(path.read_bytes()), allow_pickle=False)
     except FileNotFoundError:
         raise ValueError(
-            f"the end point {str(path)!r} of a row that kept one is missing{redo}"
+            f"the end point {str(path)!r} of a row that kept one is missing; to keep it again,"
+            f" delete {row_file!r} and rerun the sweep with --keep-points"
         ) from None
     except (OSError, ValueError, EOFError) as exc:
         raise ValueError(f"cannot read the end point {str(path)!r}: {exc}{redo}") from None
@@ -82,7 +79,7 @@ def _read_point(folder: Path, row: dict[str, Any]) -> np.ndarray:
             f"the end point {str(path)!r} has shape {x.shape} and dtype {x.dtype}, expected"
             f" ({n},) float64{redo}"
         )
-    if point_digest(x) != row["end_point_sha256"]:
+    if vector_digest(x) != row["end_point_sha256"]:
         raise ValueError(f"the end point {str(path)!r} does not match its row's digest{redo}")
     return x
 
@@ -91,25 +88,30 @@ def load_end_points(folder: str | os.PathLike, rows: list[dict[str, Any]] | None
     """``{task_id: x}`` for the rows of the study in ``folder`` that kept their end point
     (``sweep --keep-points``); rows without one are left out. Each point is checked against
     its row (shape, SHA-256); a ValueError names every unusable file (up to ten)."""
-    from .store import Store, read_config
+    from .store import Store, combined_error, read_config
 
     folder = Path(folder)
     if rows is None:
         rows = Store(folder, read_config(folder)).rows()
+    out, bad = readable_end_points(folder, rows)
+    if bad:
+        raise combined_error(bad, "end points")
+    return out
+
+
+def readable_end_points(
+    folder: Path, rows: list[dict[str, Any]]
+) -> tuple[dict[str, np.ndarray], list[ValueError]]:
+    """The end points of ``rows`` that can be read, and the errors of those that cannot (the
+    report leaves those runs out of its overlaps and says so, instead of failing)."""
     out, bad = {}, []
     for row in rows:
         if isinstance(row.get("end_point_sha256"), str):
             try:
-                out[row["task_id"]] = _read_point(folder, row)
+                out[row["task_id"]] = _read_point(Path(folder), row)
             except ValueError as exc:
-                bad.append(str(exc))
-    if len(bad) == 1:
-        raise ValueError(bad[0])
-    if bad:
-        listed = "\n".join(f"  - {e}" for e in bad[:10])
-        more = f"\n  ... and {len(bad) - 10} more" if len(bad) > 10 else ""
-        raise ValueError(f"{len(bad)} end points of the study cannot be used:\n{listed}{more}")
-    return out
+                bad.append(exc)
+    return out, bad
 
 
 def end_point_overlaps(

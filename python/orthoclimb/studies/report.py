@@ -42,7 +42,12 @@ from .laws import (
     power_text,
 )
 from .paired import TIE_RELATIVE, head_to_head
-from .points import end_point_overlaps, load_end_points, overlap_markdown, overlap_summary
+from .points import (
+    end_point_overlaps,
+    overlap_markdown,
+    overlap_summary,
+    readable_end_points,
+)
 from .report_plots import PLOT_FILES, plot_files
 from .store import Store, read_config
 from .tasks import theory_values
@@ -219,9 +224,14 @@ def build_report(
     missing = len(spec.tasks()) - len(rows)
     degrees = {m.name: m.mixture.max_degree for m in spec.mixtures}
     rep = Report(spec, groups, fits, theory, [], missing, cost=cost_table(rows, degrees))
-    points = load_end_points(folder, rows)  # those of sweep --keep-points
+    points, unreadable = readable_end_points(Path(folder), rows)  # sweep --keep-points
     rep.overlaps = overlap_summary(end_point_overlaps(rows, points, [m.name for m in spec.methods]))
     rep.findings = _findings(rep, _by_seed(rows))
+    if unreadable:  # the rest of the report stands without them
+        rep.findings.append(
+            f"{len(unreadable)} of the end points kept by --keep-points cannot be read, and the"
+            f" overlaps leave those runs out; the first: {unreadable[0]}"
+        )
     return rep
 
 

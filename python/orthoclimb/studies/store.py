@@ -180,6 +180,16 @@ _ROW_FIELDS: dict[str, tuple[type, ...]] = {
 }
 
 
+def combined_error(errors: list[Exception], what: str) -> ValueError:
+    """One ValueError for several unusable files: the error itself when there is one, else
+    all of them counted and up to ten listed (so one run names every file to fix)."""
+    if len(errors) == 1:
+        return errors[0] if isinstance(errors[0], ValueError) else ValueError(str(errors[0]))
+    listed = "\n".join(f"  - {e}" for e in errors[:10])
+    more = f"\n  ... and {len(errors) - 10} more" if len(errors) > 10 else ""
+    return ValueError(f"{len(errors)} {what} of the study cannot be used:\n{listed}{more}")
+
+
 def _read_json(path: Path, what: str) -> Any:
     """The JSON content of ``path``; a ValueError naming the file when it is unreadable."""
     try:
@@ -291,11 +301,13 @@ class Store:
         folder = Path(folder)
         if folder.exists() and not folder.is_dir():
             raise ValueError(f"study folder {str(folder)!r} exists and is not a folder")
-        # before any task runs: a resumed sweep into a read-only rows/ ran its tasks and then
-        # failed at the first row (a review)
-        for place, what in ((folder, "the study folder"), (folder / "rows", "its rows folder")):
-            if is_folder(place):
-                require_writable(place, what)
+        # before any task runs: a resumed sweep into a read-only rows/ (or points/) ran its
+        # tasks and then failed at the first row (reviews)
+        for name in ("", "rows", "points", "failed"):  # the folders a sweep writes into
+            if is_folder(folder / name):
+                require_writable(
+                    folder / name, f"its {name} folder" if name else "the study folder"
+                )
         meta = folder / "study.json"
         config = spec.to_dict()
         meta_existed = meta.exists()
@@ -439,12 +451,8 @@ class Store:
                     out.append(_checked_row(path, task))
                 except ValueError as exc:
                     bad.append(exc)
-        if len(bad) == 1:
-            raise bad[0]
         if bad:
-            listed = "\n".join(f"  - {e}" for e in bad[:10])
-            more = f"\n  ... and {len(bad) - 10} more" if len(bad) > 10 else ""
-            raise ValueError(f"{len(bad)} row files of the study cannot be used:\n{listed}{more}")
+            raise combined_error(bad, "row files")
         return out
 
     # -- table ---------------------------------------------------------------------------

@@ -169,8 +169,8 @@ def run_task(task: Task, threads: int | None = None, keep_point: bool = False) -
         "finished": datetime.now(timezone.utc).isoformat(timespec="seconds"),
     }
     if keep_point:
-        from .points import point_digest
+        from ..algorithms.result import vector_digest
 
         row["end_point"] = np.array(res.x, dtype=np.float64)
-        row["end_point_sha256"] = point_digest(row["end_point"])
+        row["end_point_sha256"] = vector_digest(row["end_point"])
     return row
