@@ -85,6 +85,17 @@ def test_paired_comparison_counts_runs_at_the_same_point_as_ties():
         paired_comparison(real, tie=-1.0)
 
 
+def test_ties_of_a_mixture_of_even_degrees_may_be_mirror_points():
+    # H(-x) = H(x) when every degree is even: equal energies were called "the same point"
+    # while 3 of 8 such pairs ended at opposite points (R = -1; a user trial)
+    seeds = {("m", "x", 50): {s: 1.5 for s in range(4)}, ("m", "y", 50): {s: 1.5 for s in range(4)}}
+    theory = {"gs": 1.5, "alg": 1.5}
+    plain = head_to_head("m", "x", "y", seeds, theory)
+    even = head_to_head("m", "x", "y", seeds, {**theory, "even": True})
+    assert "stopped at the same point (" in plain and "mirror" not in plain
+    assert "stopped at the same point or its mirror -x (" in even
+
+
 @pytest.mark.parametrize("bad", [math.nan, math.inf, -math.inf])
 def test_non_finite_differences_are_refused(bad):
     # se came out NaN and t_p 0.0, "a certain edge", where scipy.stats.ttest_rel gives NaN

@@ -80,6 +80,21 @@ def test_overlaps_are_the_inner_products_of_the_two_methods_points(kept):
     rep = build_report(kept, n_boot=200)
     assert {(s["n"], s["count"]) for s in rep.overlaps} == {(16, 3), (24, 3)}
     assert "end_point_overlaps" in rep.to_dict()
+    assert "end-point overlaps R = <x_a, x_b>" in rep.table()  # on the terminal too
+
+
+def test_a_polishing_method_is_also_reported_before_its_polish(kept):
+    # Hessian ascent's energy where the ascent ended, before its polish, is a series of its
+    # own: a user trial found the report's verdict on Hessian ascent was the polish's
+    rows = _rows(kept)
+    rep = build_report(kept, n_boot=200)
+    assert rep.labels == ["hessian", "gradient", "hessian before polish"]
+    for g in rep.groups:
+        mine = [r for r in rows if r["n"] == g["n"] and r["method"] == g["method"].split()[0]]
+        key = "energy_before_polish" if g["method"].endswith("before polish") else "energy"
+        assert g["mean"] == pytest.approx(np.mean([r[key] for r in mine]), rel=1e-12)
+        assert g["steps"] == np.median([r["steps"] for r in mine])
+    assert any(f["method"] == "hessian before polish" and f.get("value") for f in rep.fits)
 
 
 def test_the_summary_is_mean_abs_and_standard_error():
@@ -95,6 +110,26 @@ def test_the_summary_is_mean_abs_and_standard_error():
     assert first["se_abs"] == pytest.approx(np.abs(r).std(ddof=1) / 2)
     assert (first["min"], first["max"]) == (-1.0, 1.0)
     assert second["count"] == 1 and math.isnan(second["se_abs"])
+    # same point: |R| > 0.999 (1.0 and -1.0); the others' mean |R| = (0.5 + 0.25) / 2
+    assert first["same"] == 2 and first["mean_abs_other"] == pytest.approx(0.375)
+    assert first["unrelated"] == pytest.approx(math.sqrt(2 / (math.pi * 10)))
+
+
+def test_the_unrelated_value_is_the_mean_overlap_of_random_directions():
+    # two independent uniform unit vectors in R^n: R is about N(0, 1/n), so E|R| =
+    # sqrt(2 / (pi n)) (mean absolute value of a Gaussian, exact identity); checked over
+    # 4000 pairs at n = 200 within 4 standard errors (fixed seed)
+    rng = np.random.default_rng(7)
+    n, pairs = 200, 4000
+    a = rng.standard_normal((pairs, n))
+    b = rng.standard_normal((pairs, n))
+    r = np.abs(np.einsum("ij,ij->i", a, b)) / (
+        np.linalg.norm(a, axis=1) * np.linalg.norm(b, axis=1)
+    )
+    (summary,) = overlap_summary(
+        [{"mixture": "m", "n": n, "seed": 0, "method_a": "a", "method_b": "b", "overlap": 0.0}]
+    )
+    assert abs(r.mean() - summary["unrelated"]) < 4 * r.std(ddof=1) / math.sqrt(pairs)
 
 
 def test_without_keep_points_nothing_is_kept_and_the_report_has_no_section(tmp_path):
@@ -158,3 +193,23 @@ def test_run_task_returns_the_point_and_its_digest_only_when_asked():
     assert x.shape == (12,) and kept["energy"] == plain["energy"]
     ham = Hamiltonian.sample(Mixture({3: 1.0}), 12, 4)
     assert ham.energy(x) / 12 == pytest.approx(kept["energy"], rel=1e-12)
+
+
+def test_a_row_records_the_top_tangent_eigenvalue_of_its_end_point():
+    # the Riemannian Hessian on the unit sphere at a critical point x: P (Hess H - <x, grad H> I) P
+    # with P = I - x x^T; its largest eigenvalue on the tangent space (scipy.linalg.eigh, the
+    # x direction's zero left out) is the row's top_eigenvalue times n (a user trial asked for
+    # it in the rows: marginality of the end points)
+    spec = spec_from_flags(["3:1"], None, "30", "2", "gradient")
+    (task,) = spec.tasks()
+    row = run_task(task, keep_point=True)
+    x = row["end_point"]
+    ham = Hamiltonian.sample(Mixture({3: 1.0}), 30, 2)
+    p = np.eye(30) - np.outer(x, x)
+    riem = p @ (ham.hessian(x) - float(x @ ham.gradient(x)) * np.eye(30)) @ p
+    vals, vecs = scipy.linalg.eigh(riem)
+    tangent = vals[np.abs(vecs.T @ x) < 0.5]  # all but the eigenvector along x
+    assert row["top_eigenvalue"] * 30 == pytest.approx(tangent.max(), rel=1e-6)
+    assert row["top_eigenvalue"] < 0 and row["local_max"]
+    bare = spec_from_flags(["3:1"], None, "30", "2", "hessian", {"hessian": {"polish": False}})
+    assert math.isnan(run_task(bare.tasks()[0])["top_eigenvalue"])  # no check without polish

@@ -105,13 +105,15 @@ def _compare_line(
     tie = TIE_RELATIVE * abs(scale)
     c = paired_comparison([pa_[s] - pb_[s] for s in both], tie)
     diff, z = c["diff"], c["z"]
+    # a mixture of even degrees only has H(-x) = H(x): equal energies may be mirror points
+    same = "the same point or its mirror -x" if th.get("even") else "the same point"
     if c["nonzero"] == 0:
         return (
-            f"{mix}, n = {n}: {a} and {b} stopped at the same point (energies within "
+            f"{mix}, n = {n}: {a} and {b} stopped at {same} (energies within "
             f"{tie:.0e} per spin) on all {len(both)} paired seeds."
         )
     sign = (
-        f"{a} higher on {c['higher']}, {b} on {c['lower']}, the same point on "
+        f"{a} higher on {c['higher']}, {b} on {c['lower']}, {same} on "
         f"{c['ties']} (sign test over the {c['nonzero']} that differ: p = {c['sign_p']:.2g})"
     )
     by_mean = math.isfinite(c["t_p"]) and c["t_p"] < MEAN_LEVEL

@@ -31,6 +31,7 @@ __all__ = [
     "end_point_overlaps",
     "load_end_points",
     "readable_end_points",
+    "overlap_lines",
     "overlap_markdown",
     "overlap_summary",
     "point_path",
@@ -138,9 +139,16 @@ def end_point_overlaps(
     return out
 
 
+SAME_POINT = 0.999  # |R| above this: the same point (or its mirror -x for an even mixture)
+
+
 def overlap_summary(overlaps: list[dict[str, Any]]) -> list[dict[str, Any]]:
     """Per mixture, n and pair of methods: count, mean of R, mean of |R| and its standard
-    error sd(|R|)/sqrt(count) (NaN for one seed), smallest and largest R."""
+    error sd(|R|)/sqrt(count) (NaN for one seed), smallest and largest R; ``same``, the pairs
+    with |R| > SAME_POINT, and ``mean_abs_other``, the mean |R| of the rest (NaN when none);
+    ``unrelated`` = sqrt(2 / (pi n)), the mean |R| of two independent uniform directions
+    for large n (R is then about N(0, 1/n), whose mean absolute value this is: exact
+    identity for a Gaussian)."""
     groups: dict[tuple[str, int, str, str], list[float]] = defaultdict(list)
     for o in overlaps:
         groups[(o["mixture"], o["n"], o["method_a"], o["method_b"])].append(o["overlap"])
@@ -149,6 +157,7 @@ def overlap_summary(overlaps: list[dict[str, Any]]) -> list[dict[str, Any]]:
         r = np.array(values)
         size = np.abs(r)
         se = float(size.std(ddof=1) / math.sqrt(r.size)) if r.size > 1 else math.nan
+        other = size[size <= SAME_POINT]
         out.append(
             {
                 "mixture": mixture,
@@ -161,9 +170,16 @@ def overlap_summary(overlaps: list[dict[str, Any]]) -> list[dict[str, Any]]:
                 "se_abs": se,
                 "min": float(r.min()),
                 "max": float(r.max()),
+                "same": int(r.size - other.size),
+                "mean_abs_other": float(other.mean()) if other.size else math.nan,
+                "unrelated": math.sqrt(2.0 / (math.pi * n)),
             }
         )
     return out
+
+
+def _cell(value: float) -> str:
+    return f"{value:.4f}" if math.isfinite(value) else "--"
 
 
 def overlap_markdown(summary: list[dict[str, Any]]) -> list[str]:
@@ -174,17 +190,36 @@ def overlap_markdown(summary: list[dict[str, Any]]) -> list[str]:
     lines = [
         "## Overlaps of end points",
         "",
-        "R = <x_a, x_b> between two methods' end points on the same instance (unit vectors:"
-        " R = 1 is the same point, |R| of order n^(-1/2) unrelated directions); both start"
-        " from the same seeded random direction.",
+        "R = <x_a, x_b> between two methods' end points on the same instance, both unit"
+        " vectors started from the same seeded random direction. Same: pairs with |R| >"
+        f" {SAME_POINT} (the same point; for a mixture of even degrees only, where"
+        " H(-x) = H(x), R = -1 is the mirror point and only |R| means anything); the mean"
+        " |R| of the other pairs is set beside sqrt(2/(pi n)), its value for unrelated"
+        " directions. s.e. is that of the mean |R|.",
         "",
-        "| mixture | n | methods | mean R | mean abs R | s.e. | min R | max R | count |",
-        "| --- | ---: | --- | ---: | ---: | ---: | ---: | ---: | ---: |",
+        "| mixture | n | methods | mean R | mean abs R | s.e. | same | mean abs R, others |"
+        " unrelated | min R | max R | count |",
+        "| --- | ---: | --- | ---: | ---: | ---: | ---: | ---: | ---: | ---: | ---: | ---: |",
     ]
     for s in summary:
-        se = f"{s['se_abs']:.4f}" if math.isfinite(s["se_abs"]) else "--"
         lines.append(
             f"| {s['mixture']} | {s['n']} | {s['method_a']} / {s['method_b']} | {s['mean']:.4f}"
-            f" | {s['mean_abs']:.4f} | {se} | {s['min']:.4f} | {s['max']:.4f} | {s['count']} |"
+            f" | {s['mean_abs']:.4f} | {_cell(s['se_abs'])} | {s['same']} |"
+            f" {_cell(s['mean_abs_other'])} | {s['unrelated']:.4f} | {s['min']:.4f} |"
+            f" {s['max']:.4f} | {s['count']} |"
         )
     return [*lines, ""]
+
+
+def overlap_lines(summary: list[dict[str, Any]]) -> list[str]:
+    """The overlaps for the terminal: one line per mixture, n and pair of methods."""
+    if not summary:
+        return []
+    out = ["", "end-point overlaps R = <x_a, x_b> (same: |R| > 0.999; unrelated: sqrt(2/(pi n))):"]
+    for s in summary:
+        out.append(
+            f"  {s['mixture']}, n = {s['n']}, {s['method_a']} / {s['method_b']}: same point on"
+            f" {s['same']} of {s['count']}; mean |R| of the others {_cell(s['mean_abs_other'])}"
+            f" (unrelated {s['unrelated']:.4f})"
+        )
+    return out

@@ -22,6 +22,7 @@ import itertools
 import math
 import os
 from collections import Counter, defaultdict
+from collections.abc import Sequence
 from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any
@@ -44,6 +45,7 @@ from .laws import (
 from .paired import TIE_RELATIVE, head_to_head
 from .points import (
     end_point_overlaps,
+    overlap_lines,
     overlap_markdown,
     overlap_summary,
     readable_end_points,
@@ -66,38 +68,45 @@ class Report:
     files: dict[str, str] = field(default_factory=dict)
     cost: list[dict[str, Any]] = field(default_factory=list)
     overlaps: list[dict[str, Any]] = field(default_factory=list)
+    #: the series of the groups and fits: the methods, then "<method> before polish"
+    labels: list[str] = field(default_factory=list)
 
     def table(self) -> str:
         """Plain-text table for the terminal."""
+        w = max(
+            [9, *(len(g["method"]) for g in self.groups), *(len(f["method"]) for f in self.fits)]
+        )
         lines = [
-            f"{'mixture':<22} {'method':<9} {'n':>5} {'mean':>8} {'s.e.':>7} {'count':>5}",
+            f"{'mixture':<22} {'method':<{w}} {'n':>5} {'mean':>8} {'s.e.':>7} {'count':>5}",
         ]
         for g in self.groups:
             se = f"{g['se']:>7.4f}" if math.isfinite(g["se"]) else f"{'--':>7}"  # one seed
             lines.append(
-                f"{g['mixture']:<22} {g['method']:<9} {g['n']:>5} {g['mean']:>8.4f} "
+                f"{g['mixture']:<22} {g['method']:<{w}} {g['n']:>5} {g['mean']:>8.4f} "
                 f"{se} {g['count']:>5}"
             )
         lines.append("")
         lvl = level_text(self.spec_level())
         lines.append(
-            f"{'mixture':<22} {'method':<9} {'e_inf':>8} {f'{lvl}% interval':>19} "
+            f"{'mixture':<22} {'method':<{w}} {'e_inf':>8} {f'{lvl}% interval':>19} "
             f"{'over laws':>19} {'ALG':>7} {'GS':>7} {'z(ALG)':>7} {'z(GS)':>7}"
         )
         for f in self.fits:
             if f.get("value") is None:
-                lines.append(f"{f['mixture']:<22} {f['method']:<9} {'--':>8}  {f['note']}")
+                lines.append(f"{f['mixture']:<22} {f['method']:<{w}} {'--':>8}  {f['note']}")
                 continue
             lines.append(
-                f"{f['mixture']:<22} {f['method']:<9} {f['value']:>8.4f} "
+                f"{f['mixture']:<22} {f['method']:<{w}} {f['value']:>8.4f} "
                 f"[{f['low']:>8.4f},{f['high']:>8.4f}] [{f['law_low']:>8.4f},"
                 f"{f['law_high']:>8.4f}] {f['alg']:>7.4f} {f['gs']:>7.4f} "
                 f"{f['z_alg']:>7.1f} {f['z_gs']:>7.1f}"
             )
         lines.append(
             "(energies per spin H(x)/n on the unit sphere, maximized; s.e. = sd/sqrt(count);"
-            " z in s.e. of e_inf)"
+            " z in s.e. of e_inf; 'before polish': the same runs' energies where the method"
+            " itself ended, before the final local polish)"
         )
+        lines += overlap_lines(self.overlaps)
         return "\n".join(lines)
 
     def spec_level(self) -> float:
@@ -121,15 +130,52 @@ class Report:
         }
 
 
-def _by_seed(rows: list[dict[str, Any]]) -> dict[tuple[str, str, int], dict[int, float]]:
+# The series of a polishing method's energies before its polish: "<method> before polish".
+BEFORE_POLISH = " before polish"
+
+
+def _polished(spec: StudySpec) -> list[str]:
+    """The methods of ``spec`` that end with a polish (hessian, anneal with polish on)."""
+    return [m.name for m in spec.methods if dict(m.options).get("polish")]
+
+
+def _labels(spec: StudySpec) -> list[str]:
+    """The report's series: each method, then each polishing method before its polish."""
+    return [m.name for m in spec.methods] + [m + BEFORE_POLISH for m in _polished(spec)]
+
+
+def _by_seed(
+    rows: list[dict[str, Any]], polished: Sequence[str] = ()
+) -> dict[tuple[str, str, int], dict[int, float]]:
+    """Energies by (mixture, series, n) and seed; with ``polished``, also those methods'
+    energies before the polish (``energy_before_polish``), as the series
+    "<method> before polish"."""
     acc: dict[tuple[str, str, int], dict[int, float]] = defaultdict(dict)
     for r in rows:
         acc[(r["mixture"], r["method"], int(r["n"]))][int(r["seed"])] = float(r["energy"])
+        before = r.get("energy_before_polish")
+        if r["method"] in polished and isinstance(before, (int, float)) and math.isfinite(before):
+            series = r["method"] + BEFORE_POLISH
+            acc[(r["mixture"], series, int(r["n"]))][int(r["seed"])] = float(before)
     return dict(acc)
 
 
-def _groups(rows: list[dict[str, Any]]) -> dict[tuple[str, str, int], np.ndarray]:
-    return {k: np.array(list(v.values())) for k, v in _by_seed(rows).items()}
+def _groups(
+    rows: list[dict[str, Any]], polished: Sequence[str] = ()
+) -> dict[tuple[str, str, int], np.ndarray]:
+    return {k: np.array(list(v.values())) for k, v in _by_seed(rows, polished).items()}
+
+
+def _median_steps(rows: list[dict[str, Any]]) -> dict[tuple[str, str, int], float]:
+    """The median of the rows' ``steps`` (K for Hessian ascent, iterations for gradient
+    ascent, Langevin steps) by (mixture, method, n), for both series of a method."""
+    acc: dict[tuple[str, str, int], list[float]] = defaultdict(list)
+    for r in rows:
+        if isinstance(r.get("steps"), int):
+            acc[(r["mixture"], r["method"], int(r["n"]))].append(r["steps"])
+    out = {k: float(np.median(v)) for k, v in acc.items()}
+    out.update({(m, me + BEFORE_POLISH, n): v for (m, me, n), v in out.items()})
+    return out
 
 
 def build_report(
@@ -153,13 +199,15 @@ def build_report(
     if not rows:
         raise ValueError(f"the study in {str(folder)!r} has no completed tasks yet")
     k = spec.exponent if exponent is None else float(exponent)  # both checked positive
-    data = _groups(rows)
+    labels = _labels(spec)
+    data = _groups(rows, _polished(spec))
+    steps = _median_steps(rows)
     # runs whose end point failed the local-maximum check (an iteration cap reached early)
     unfinished = Counter(
         (r["mixture"], r["method"], r["n"]) for r in rows if r.get("local_max") is False
     )
     order = {m.name: i for i, m in enumerate(spec.mixtures)}
-    morder = {m.name: i for i, m in enumerate(spec.methods)}
+    morder = {label: i for i, label in enumerate(labels)}
     keys = sorted(data, key=lambda t: (order.get(t[0], 99), morder.get(t[1], 99), t[2]))
     groups = []
     for mix, method, n in keys:
@@ -175,6 +223,7 @@ def build_report(
                 "count": int(a.size),
                 "sd": float(a.std(ddof=1)) if a.size > 1 else math.nan,
                 "not_local_max": unfinished[(mix, method, n)],
+                "steps": steps.get((mix, method, n)),
             }
         )
     theory = {}
@@ -188,26 +237,29 @@ def build_report(
             "gs_equals_alg": tv.gs_equals_alg,
             "verdict": tv.verdict,
             "gap_gs_alg": tv.gs - tv.alg,
+            "even": all(p % 2 == 0 for p in m.mixture.degrees),  # H(-x) = H(x)
         }
     fits = []
     for m in spec.mixtures:
-        for meth in spec.methods:
-            sizes = [n for (a, b, n) in keys if a == m.name and b == meth.name]
+        for label in labels:
+            sizes = [n for (a, b, n) in keys if a == m.name and b == label]
+            if label.endswith(BEFORE_POLISH) and not sizes:
+                continue  # a series only where its method has rows
             th = theory[m.name]
             entry: dict[str, Any] = {
                 "mixture": m.name,
-                "method": meth.name,
+                "method": label,
                 "alg": th["alg"],
                 "gs": th["gs"],
                 "gs_equals_alg": th["gs_equals_alg"],
             }
             # a size with one seed (an interrupted sweep leaves some) has no spread to weigh
             # it by: it is left out of the fit, and said so, instead of sinking the whole fit
-            counts = {n: len(data[(m.name, meth.name, n)]) for n in sizes}
+            counts = {n: len(data[(m.name, label, n)]) for n in sizes}
             left_out = [[n, c] for n, c in counts.items() if c < 2]
             sizes = [n for n, c in counts.items() if c >= 2]
             entry["left_out"] = left_out
-            samples = [data[(m.name, meth.name, n)] for n in sizes]
+            samples = [data[(m.name, label, n)] for n in sizes]
             try:
                 ex: Extrapolation = extrapolate(sizes, samples, k, level, n_boot, seed=len(fits))
             except ValueError as exc:
@@ -224,6 +276,7 @@ def build_report(
     missing = len(spec.tasks()) - len(rows)
     degrees = {m.name: m.mixture.max_degree for m in spec.mixtures}
     rep = Report(spec, groups, fits, theory, [], missing, cost=cost_table(rows, degrees))
+    rep.labels = labels
     points, unreadable = readable_end_points(Path(folder), rows)  # sweep --keep-points
     rep.overlaps = overlap_summary(end_point_overlaps(rows, points, [m.name for m in spec.methods]))
     rep.findings = _findings(rep, _by_seed(rows))
@@ -401,7 +454,12 @@ def _markdown(rep: Report) -> str:
         "consistent only under another law. Head-to-head comparisons pair the methods "
         "seed by seed (paired t-test on the mean, sign test on the counts): on each instance "
         "both start from the same seeded random direction, and runs whose energies differ "
-        f"by at most {TIE_RELATIVE:.0e} x GS count as the same point (a tie).",
+        f"by at most {TIE_RELATIVE:.0e} x GS count as the same point (a tie; for a mixture of"
+        " even degrees only, H(-x) = H(x), so a tie may be the mirror point -x). A method that"
+        " ends with a polish (a local ascent to the nearest critical point) is also reported"
+        " as '<method> before polish': the same runs where the method itself ended, which is"
+        " what its theory describes; the polish may carry both methods to the same local"
+        " maximum.",
         "",
         _grid_line(spec),
         "",
@@ -447,13 +505,18 @@ def _markdown(rep: Report) -> str:
         *overlap_markdown(rep.overlaps),
         "## Per size",
         "",
-        "| mixture | method | n | mean | s.e. | count |",
-        "| --- | --- | ---: | ---: | ---: | ---: |",
+        "Steps: the median of the runs' K (Hessian ascent), iterations (gradient ascent) or"
+        " Langevin steps (anneal).",
+        "",
+        "| mixture | method | n | mean | s.e. | count | steps |",
+        "| --- | --- | ---: | ---: | ---: | ---: | ---: |",
     ]
     for g in rep.groups:
         se = f"{g['se']:.4f}" if math.isfinite(g["se"]) else "--"  # one seed
+        steps = "--" if g.get("steps") is None else f"{g['steps']:g}"
         lines.append(
-            f"| {g['mixture']} | {g['method']} | {g['n']} | {g['mean']:.4f} | {se} | {g['count']} |"
+            f"| {g['mixture']} | {g['method']} | {g['n']} | {g['mean']:.4f} | {se} |"
+            f" {g['count']} | {steps} |"
         )
     if rep.files:
         lines += ["", "## Files", ""] + [f"- {k}: `{v}`" for k, v in rep.files.items()]
@@ -496,7 +559,7 @@ def write_report(
     for name in names:  # so does a folder standing where a file goes
         refuse_folder(target / name, "remove it or give --out FOLDER (out= in Python)")
     rep = build_report(folder, exponent, level, n_boot)
-    data = _groups(Store(folder, rep.spec).rows())
+    data = _groups(Store(folder, rep.spec).rows(), _polished(rep.spec))
     # every file staged first and renamed only when all are written: a folder standing at
     # report.json left a new report.md and plots beside the old report.json (a review)
     files = []

@@ -1,7 +1,8 @@
 """The report's figures: energy_vs_n.png and distribution.png, written with the report.
 
 energy_vs_n: per mixture, the mean energy per spin +- its standard error against n^(-k), each
-method's fitted line, e_inf with its interval at n^(-k) = 0, and the ALG and GS lines.
+series' fitted line, e_inf with its interval at n^(-k) = 0 (the x label says which bar is
+which), and the ALG and GS lines (one "ALG = GS" line where they agree).
 distribution: per mixture, the energies per spin over seeds at each n (bar: their mean).
 """
 
@@ -32,7 +33,7 @@ def plot_files(
     from matplotlib.figure import Figure
 
     mixtures = list(rep.theory)
-    methods = [m.name for m in rep.spec.methods]
+    methods = rep.labels or [m.name for m in rep.spec.methods]  # with "... before polish"
     colors = {m: f"C{i}" for i, m in enumerate(methods)}
     k = next((f["exponent"] for f in rep.fits if f.get("exponent")), rep.spec.exponent)
     fig = Figure(figsize=(5.2 * len(mixtures), 4.2), layout="constrained")
@@ -75,11 +76,18 @@ def plot_files(
                     capsize=4,
                     mfc="white",
                 )
-        ax.axhline(th["alg"], color="k", ls="--", lw=1, label=f"ALG {th['alg']:.4f}")
-        if abs(th["gap_gs_alg"]) > 1e-4:
+        equal = abs(th["gap_gs_alg"]) <= 1e-4  # one line for GS = ALG (full RSB)
+        alg_label = f"{'ALG = GS' if equal else 'ALG'} {th['alg']:.4f}"
+        ax.axhline(th["alg"], color="k", ls="--", lw=1, label=alg_label)
+        if not equal:
             ax.axhline(th["gs"], color="0.4", ls=":", lw=1.5, label=f"GS {th['gs']:.4f}")
         ax.set_xlim(-0.03 * max(xmax, 1e-3), 1.05 * max(xmax, 1e-3))
-        ax.set_xlabel(f"n^(-{k:.3g})")
+        level = next((f["level"] for f in rep.fits if f.get("level") is not None), 0.9)
+        ax.set_xlabel(
+            f"n^(-{k:.3g})   (bars: mean +- 1 s.e.; at 0: e_inf and its"
+            f" {100 * level:.3g}% interval)",
+            fontsize=9,
+        )
         ax.set_ylabel("energy per spin H(x)/n")
         ax.set_title(f"{mix}  (gammas {th['gammas']})", fontsize=10)
         ax.legend(fontsize=8)

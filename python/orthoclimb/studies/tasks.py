@@ -7,16 +7,17 @@ no coefficient data travels. The same seed also seeds the algorithm's start poin
 The task id is the first 16 hex digits of SHA-256 of the canonical JSON of the configuration
 (sorted keys, ``repr``-exact floats), so it is stable across runs, machines and Python versions.
 
-Row fields (one row per task; energies per spin e = H(x)/n, maximization):
-``task_id``, ``mixture`` (name), ``gammas`` (text p:gamma,...), ``n``, ``seed``,
-``start_seed`` (the start point's seed, equal to ``seed``), ``method``, ``options`` (JSON),
-``dtype``, ``energy``, ``energy_before_polish`` (Hessian ascent, anneal), ``alg``,
-``ground_state`` (Parisi GS; NaN in memory, null in the row file and the table, when the
-solver does not converge), ``gap_alg`` = energy - ALG, ``gap_gs`` = energy - GS,
-``local_max``, ``grad_norm`` (|P grad H|/n), ``seconds_sample``, ``seconds_run`` (wall
-seconds), ``threads`` (rayon threads used), ``version`` (orthoclimb), ``worker`` (host:pid),
-``finished`` (UTC ISO time); with ``keep_point``, ``end_point_sha256`` (the kept end point's
-digest, see :mod:`.points`).
+Row fields (one row per task; energies per spin e = H(x)/n, maximization): ``task_id``,
+``mixture`` (name), ``gammas`` (text p:gamma,...), ``n``, ``seed``, ``start_seed`` (the start
+point's seed, equal to ``seed``), ``method``, ``options`` (JSON), ``dtype``, ``energy``,
+``energy_before_polish`` (Hessian ascent, anneal), ``alg``, ``ground_state`` (Parisi GS; NaN in
+memory, null in the row file and the table, when the solver does not converge), ``gap_alg`` =
+energy - ALG, ``gap_gs`` = energy - GS, ``local_max``, ``grad_norm`` (|P grad H|/n),
+``top_eigenvalue`` (the largest tangent Hessian eigenvalue at the end point, per spin: <= 0 at a
+local maximum, near 0 where it is marginal), ``seconds_sample``, ``seconds_run`` (wall seconds),
+``threads`` (rayon threads used), ``version`` (orthoclimb), ``worker`` (host:pid), ``finished``
+(UTC ISO time); with ``keep_point``, ``end_point_sha256`` (the kept end point's digest, see
+:mod:`.points`).
 """
 
 from __future__ import annotations
@@ -161,6 +162,9 @@ def run_task(task: Task, threads: int | None = None, keep_point: bool = False) -
         "gap_gs": energy - gs,
         "local_max": None if local_max is None else bool(local_max),
         "grad_norm": float(res.info.get("grad_norm", math.nan)),
+        # the largest tangent Hessian eigenvalue at the end point, per spin (the local-maximum
+        # check's; NaN for a run without one: Hessian ascent or anneal with --no-polish)
+        "top_eigenvalue": float(res.info.get("top_eigenvalue", math.nan)),
         "seconds_sample": t1 - t0,
         "seconds_run": t2 - t1,
         "threads": get_num_threads(),
