@@ -18,7 +18,14 @@ from typing import Any
 
 import numpy as np
 
-__all__ = ["MEAN_LEVEL", "SIGN_LEVEL", "TIE_RELATIVE", "head_to_head", "paired_comparison"]
+__all__ = [
+    "MEAN_LEVEL",
+    "SIGN_LEVEL",
+    "TIE_RELATIVE",
+    "comparisons_per_size",
+    "head_to_head",
+    "paired_comparison",
+]
 
 SIGN_LEVEL = 0.01  # a paired sign test below this: one method is higher on most instances
 MEAN_LEVEL = 0.05  # a paired t-test below this: one method is higher on average
@@ -76,6 +83,24 @@ def paired_comparison(d: Any, tie: float = 0.0) -> dict[str, float]:
         "nonzero": nonzero,
         "sign_p": float(binomtest(higher, nonzero).pvalue) if nonzero else math.nan,
     }
+
+
+def comparisons_per_size(
+    mix: str, a: str, b: str, seeds: dict, th: dict[str, Any]
+) -> list[dict[str, Any]]:
+    """The paired comparison of methods a and b on ``mix`` at every size with two or more
+    paired seeds (the report's table; its findings speak of the largest size): one record per
+    size with the fields of :func:`paired_comparison` and ``mixture``, ``n``, ``a``, ``b``,
+    ``seeds``."""
+    scale = th["gs"] if math.isfinite(th["gs"]) else th["alg"]  # GS is NaN if unsolved
+    out = []
+    for n in sorted(n for (m1, me, n) in seeds if m1 == mix and me == a and (mix, b, n) in seeds):
+        pa_, pb_ = seeds[(mix, a, n)], seeds[(mix, b, n)]
+        both = sorted(set(pa_) & set(pb_))
+        if len(both) >= 2:
+            c = paired_comparison([pa_[s] - pb_[s] for s in both], TIE_RELATIVE * abs(scale))
+            out.append({"mixture": mix, "n": n, "a": a, "b": b, "seeds": len(both), **c})
+    return out
 
 
 def head_to_head(mix: str, a: str, b: str, seeds: dict, th: dict[str, Any]) -> str | None:
