@@ -371,3 +371,17 @@ def test_ctrl_c_while_the_parser_is_built_is_one_line(monkeypatch, capsys):
     monkeypatch.setattr(cli, "build_parser", interrupted)
     assert cli.main(["theory", "--gammas", "3:1"]) == 130
     assert capsys.readouterr().err == "orthoclimb: interrupted\n"
+
+
+def test_climb_reports_its_sampling_time_and_the_top_tangent_eigenvalue(tmp_path, capsys):
+    # a user trial could not set the sampling estimate against the sampling time, and found
+    # the end point's top tangent eigenvalue only in result.json
+    args = ["climb", "--gammas", "3:1", "--n", "40", "--steps", "5", "--no-progress"]
+    assert main([*args, "--json", "--out", str(tmp_path / "a")]) == 0
+    summary = json.loads(capsys.readouterr().out)
+    saved = oc.load_result(tmp_path / "a" / "result")
+    assert summary["top_eigenvalue"] == saved.info["top_eigenvalue"] < 0
+    assert 0 < summary["seconds_sampling"] < 60
+    assert main([*args, "--out", str(tmp_path / "b")]) == 0
+    out = capsys.readouterr().out
+    assert "top tangent eigenvalue" in out and "(sampling " in out
