@@ -241,3 +241,18 @@ def test_a_path_starting_with_a_tilde_is_in_the_home_folder(tmp_path, monkeypatc
     monkeypatch.chdir(tmp_path)
     assert main(["theory", "--gammas", "3:1", "--plot=~/t.png"]) == 0
     assert (tmp_path / "home" / "t.png").is_file() and not (tmp_path / "~").exists()
+
+
+def test_parisi_b_is_printed_to_the_digits_it_has():
+    # full RSB at zero temperature: B = xi''(1)^(-1/2) (Chen and Sen 2017, from memory); the
+    # solver's B is off by 1e-5 at tol 1e-6 while GS is right to 1e-9 (GS is stationary in B),
+    # and it was printed to 10 digits (a user trial)
+    import contextlib
+    import io
+
+    buf = io.StringIO()
+    with contextlib.redirect_stdout(buf):
+        assert main(["theory", "--xi", "2:1,4:0.0625"]) == 0
+    (line,) = [x for x in buf.getvalue().splitlines() if x.startswith("Parisi B")]
+    shown = float(line.split()[2])
+    assert shown == pytest.approx(2.75**-0.5, abs=5e-5) and len(line.split()[2]) <= 6
