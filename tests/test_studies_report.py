@@ -526,3 +526,40 @@ def test_a_report_is_written_all_or_nothing(tmp_path, monkeypatch):
         write_report(tmp_path / "a")
     for name in ("report.md", "energy_vs_n.png", "distribution.png"):
         assert (tmp_path / "a" / name).read_bytes() == before[name], name
+
+
+def test_a_polishing_series_from_older_rows_is_named_and_its_groups_are_unchecked(tmp_path):
+    # rows without energy_before_polish (an older version) leave the series on fewer runs;
+    # the report says so. A before-polish group's end points were never checked: its
+    # not_local_max is None, not 0; steps print whole (1000000, not 1e+06) (a review)
+    spec = spec_from_flags(["3:1"], None, "20,40", "0-3", "hessian")
+    store = Store.open(tmp_path / "s", spec)
+    for t in spec.tasks():
+        row = {"task_id": t.task_id, "mixture": t.mixture.name, "method": t.method.name}
+        row.update(n=t.n, seed=t.seed, energy=1.6 - t.n**-0.5 + 1e-3 * t.seed, steps=1000000)
+        if t.seed > 0:
+            row["energy_before_polish"] = row["energy"] - 0.05
+        store.write_row(row)
+    write_report(tmp_path / "s", plots=False)
+    rep = build_report(tmp_path / "s")
+    assert rep.findings[1].startswith("2 rows of polishing methods lack energy_before_polish")
+    before = [g for g in rep.groups if g["method"] == "hessian before polish"]
+    assert [g["count"] for g in before] == [3, 3]
+    assert all(g["not_local_max"] is None for g in before)
+    text = (tmp_path / "s" / "report.md").read_text()
+    assert "| 1000000 |" in text and "e+06" not in text
+
+
+@pytest.mark.parametrize("mixture, even", [("3:1", False), ("2:1,4:1", True)])
+def test_the_gap_finding_cites_the_proof_only_where_it_holds(tmp_path, mixture, even):
+    # Huang-Sellke 2021 prove the Lipschitz hardness for mixtures of even degrees; for others
+    # the report speaks of a prediction (a review)
+    from orthoclimb.studies.report import _theory_finding
+
+    th = {"alg": 1.6, "gs": 1.65, "full_rsb": False, "gs_equals_alg": False, "even": even}
+    th["gap_gs_alg"] = 0.05
+    text = _theory_finding(mixture, th)
+    assert ("cannot close (Huang-Sellke 2021" in text) == even
+    assert ("are predicted not to close (proved for mixtures of even degrees only" in text) == (
+        not even
+    )

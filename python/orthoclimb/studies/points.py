@@ -34,6 +34,7 @@ __all__ = [
     "overlap_lines",
     "overlap_markdown",
     "overlap_summary",
+    "unrelated_overlap",
     "point_path",
     "write_point",
 ]
@@ -139,16 +140,17 @@ def end_point_overlaps(
     return out
 
 
-SAME_POINT = 0.999  # |R| above this: the same point (or its mirror -x for an even mixture)
+SAME_POINT = 0.999  # R above this: the same point; below minus this: the mirror point -x
 
 
 def overlap_summary(overlaps: list[dict[str, Any]]) -> list[dict[str, Any]]:
     """Per mixture, n and pair of methods: count, mean of R, mean of |R| and its standard
     error sd(|R|)/sqrt(count) (NaN for one seed), smallest and largest R; ``same``, the pairs
-    with |R| > SAME_POINT, and ``mean_abs_other``, the mean |R| of the rest (NaN when none);
-    ``unrelated`` = sqrt(2 / (pi n)), the mean |R| of two independent uniform directions
-    for large n (R is then about N(0, 1/n), whose mean absolute value this is: exact
-    identity for a Gaussian)."""
+    with R > SAME_POINT, ``mirror`` those with R < -SAME_POINT (for a mixture of even degrees
+    only, H(-x) = H(x): the same configuration), and ``mean_abs_other``, the mean |R| of the
+    rest (NaN when none); ``unrelated``, the mean |R| of two independent uniform directions:
+    E|x_1| on the unit sphere of R^n = Gamma(n/2) / (sqrt(pi) Gamma((n+1)/2)) (exact; about
+    sqrt(2 / (pi n)) for large n)."""
     groups: dict[tuple[str, int, str, str], list[float]] = defaultdict(list)
     for o in overlaps:
         groups[(o["mixture"], o["n"], o["method_a"], o["method_b"])].append(o["overlap"])
@@ -158,6 +160,7 @@ def overlap_summary(overlaps: list[dict[str, Any]]) -> list[dict[str, Any]]:
         size = np.abs(r)
         se = float(size.std(ddof=1) / math.sqrt(r.size)) if r.size > 1 else math.nan
         other = size[size <= SAME_POINT]
+        same = int(np.count_nonzero(r > SAME_POINT))
         out.append(
             {
                 "mixture": mixture,
@@ -170,12 +173,21 @@ def overlap_summary(overlaps: list[dict[str, Any]]) -> list[dict[str, Any]]:
                 "se_abs": se,
                 "min": float(r.min()),
                 "max": float(r.max()),
-                "same": int(r.size - other.size),
+                "same": same,
+                "mirror": int(r.size - other.size) - same,
                 "mean_abs_other": float(other.mean()) if other.size else math.nan,
-                "unrelated": math.sqrt(2.0 / (math.pi * n)),
+                "unrelated": unrelated_overlap(n),
             }
         )
     return out
+
+
+def unrelated_overlap(n: int) -> float:
+    """E|R| for two independent uniform unit vectors of R^n: Gamma(n/2) / (sqrt(pi)
+    Gamma((n+1)/2)) (the first coordinate of a uniform point of the sphere; exact identity)."""
+    from scipy.special import gammaln
+
+    return math.exp(gammaln(n / 2) - gammaln((n + 1) / 2)) / math.sqrt(math.pi)
 
 
 def _cell(value: float) -> str:
@@ -191,20 +203,21 @@ def overlap_markdown(summary: list[dict[str, Any]]) -> list[str]:
         "## Overlaps of end points",
         "",
         "R = <x_a, x_b> between two methods' end points on the same instance, both unit"
-        " vectors started from the same seeded random direction. Same: pairs with |R| >"
-        f" {SAME_POINT} (the same point; for a mixture of even degrees only, where"
-        " H(-x) = H(x), R = -1 is the mirror point and only |R| means anything); the mean"
-        " |R| of the other pairs is set beside sqrt(2/(pi n)), its value for unrelated"
-        " directions. s.e. is that of the mean |R|.",
+        f" vectors started from the same seeded random direction. Same: pairs with R >"
+        f" {SAME_POINT}; mirror: R < -{SAME_POINT} (for a mixture of even degrees only, where"
+        " H(-x) = H(x), the same configuration, and only |R| means anything); the mean |R| of"
+        " the other pairs is set beside its value for unrelated directions (Gamma(n/2) /"
+        " (sqrt(pi) Gamma((n+1)/2)), about sqrt(2/(pi n))). s.e. is that of the mean |R|.",
         "",
-        "| mixture | n | methods | mean R | mean abs R | s.e. | same | mean abs R, others |"
-        " unrelated | min R | max R | count |",
-        "| --- | ---: | --- | ---: | ---: | ---: | ---: | ---: | ---: | ---: | ---: | ---: |",
+        "| mixture | n | methods | mean R | mean abs R | s.e. | same | mirror |"
+        " mean abs R, others | unrelated | min R | max R | count |",
+        "| --- | ---: | --- | ---: | ---: | ---: | ---: | ---: | ---: | ---: | ---: | ---: |"
+        " ---: |",
     ]
     for s in summary:
         lines.append(
             f"| {s['mixture']} | {s['n']} | {s['method_a']} / {s['method_b']} | {s['mean']:.4f}"
-            f" | {s['mean_abs']:.4f} | {_cell(s['se_abs'])} | {s['same']} |"
+            f" | {s['mean_abs']:.4f} | {_cell(s['se_abs'])} | {s['same']} | {s['mirror']} |"
             f" {_cell(s['mean_abs_other'])} | {s['unrelated']:.4f} | {s['min']:.4f} |"
             f" {s['max']:.4f} | {s['count']} |"
         )
@@ -215,11 +228,16 @@ def overlap_lines(summary: list[dict[str, Any]]) -> list[str]:
     """The overlaps for the terminal: one line per mixture, n and pair of methods."""
     if not summary:
         return []
-    out = ["", "end-point overlaps R = <x_a, x_b> (same: |R| > 0.999; unrelated: sqrt(2/(pi n))):"]
+    out = [
+        "",
+        f"end-point overlaps R = <x_a, x_b> (same point: R > {SAME_POINT}; mirror point -x:"
+        f" R < -{SAME_POINT}; unrelated directions: mean |R| about sqrt(2/(pi n))):",
+    ]
     for s in summary:
+        mirror = f", its mirror on {s['mirror']}" if s["mirror"] else ""
         out.append(
-            f"  {s['mixture']}, n = {s['n']}, {s['method_a']} / {s['method_b']}: same point on"
-            f" {s['same']} of {s['count']}; mean |R| of the others {_cell(s['mean_abs_other'])}"
-            f" (unrelated {s['unrelated']:.4f})"
+            f"  {s['mixture']}, n = {s['n']}, {s['method_a']} / {s['method_b']}: the same point"
+            f" on {s['same']}{mirror} of {s['count']}; mean |R| of the others"
+            f" {_cell(s['mean_abs_other'])} (unrelated {s['unrelated']:.4f})"
         )
     return out

@@ -105,8 +105,14 @@ class Report:
             )
         lines.append(
             "(energies per spin H(x)/n on the unit sphere, maximized; s.e. = sd/sqrt(count);"
-            " z in s.e. of e_inf; 'before polish': the same runs' energies where the method"
-            " itself ended, before the final local polish)"
+            " z in s.e. of e_inf"
+            + (
+                "; 'before polish': the runs' energies where the method ended, before its"
+                " final polish"
+                if any(g["method"].endswith(BEFORE_POLISH) for g in self.groups)
+                else ""
+            )
+            + ")"
         )
         lines += overlap_lines(self.overlaps)
         return "\n".join(lines)
@@ -225,7 +231,10 @@ def build_report(
                 "se": se,
                 "count": int(a.size),
                 "sd": float(a.std(ddof=1)) if a.size > 1 else math.nan,
-                "not_local_max": unfinished[(mix, method, n)],
+                # before its polish, nothing checked the end point
+                "not_local_max": None
+                if method.endswith(BEFORE_POLISH)
+                else unfinished[(mix, method, n)],
                 "steps": steps.get((mix, method, n)),
             }
         )
@@ -243,11 +252,19 @@ def build_report(
             "even": all(p % 2 == 0 for p in m.mixture.degrees),  # H(-x) = H(x)
         }
     fits = []
-    for m in spec.mixtures:
-        for label in labels:
+    methods = [me.name for me in spec.methods]
+    for i, m in enumerate(spec.mixtures):
+        for j, label in enumerate(labels):
             sizes = [n for (a, b, n) in keys if a == m.name and b == label]
             if label.endswith(BEFORE_POLISH) and not sizes:
                 continue  # a series only where its method has rows
+            # each fit's bootstrap seed: the methods keep the seeds they had before the
+            # before-polish series came (their index over mixtures x methods); those follow
+            if j < len(methods):
+                seed = i * len(methods) + j
+            else:
+                extra = len(labels) - len(methods)
+                seed = len(spec.mixtures) * len(methods) + i * extra + j - len(methods)
             th = theory[m.name]
             entry: dict[str, Any] = {
                 "mixture": m.name,
@@ -264,7 +281,7 @@ def build_report(
             entry["left_out"] = left_out
             samples = [data[(m.name, label, n)] for n in sizes]
             try:
-                ex: Extrapolation = extrapolate(sizes, samples, k, level, n_boot, seed=len(fits))
+                ex: Extrapolation = extrapolate(sizes, samples, k, level, n_boot, seed=seed)
             except ValueError as exc:
                 entry.update(value=None, note=str(exc) + _left_out_text(left_out))
                 fits.append(entry)
@@ -274,7 +291,7 @@ def build_report(
             se = ex.se if ex.se > 0 else math.nan
             entry["z_alg"] = (ex.value - th["alg"]) / se
             entry["z_gs"] = (ex.value - th["gs"]) / se
-            add_other_laws(entry, sizes, samples, level, n_boot, seed=len(fits))
+            add_other_laws(entry, sizes, samples, level, n_boot, seed=seed)
             fits.append(entry)
     missing = len(spec.tasks()) - len(rows)
     degrees = {m.name: m.mixture.max_degree for m in spec.mixtures}
@@ -290,6 +307,21 @@ def build_report(
         for c in comparisons_per_size(mix, a, b, seeds, theory[mix])
     ]
     rep.findings = _findings(rep, seeds)
+    lacking = sum(
+        1
+        for r in rows
+        if r["method"] in _polished(spec)
+        and not (
+            isinstance(r.get("energy_before_polish"), (int, float))
+            and math.isfinite(r["energy_before_polish"])
+        )
+    )
+    if lacking:  # rows of an older version: the series stands on fewer runs than its method
+        rep.findings.insert(  # after the theory's lines, before the extrapolations
+            len(rep.theory),
+            f"{lacking} rows of polishing methods lack energy_before_polish (written by an"
+            " older version): the 'before polish' series leave those runs out.",
+        )
     if unreadable:  # the rest of the report stands without them
         rep.findings.append(
             f"{len(unreadable)} of the end points kept by --keep-points cannot be read, and the"
@@ -322,9 +354,14 @@ def _theory_finding(name: str, th: dict[str, Any]) -> str:
     size = f"{gap:.4f}" if gap >= 1e-4 else f"{gap:.1e}"
     return (
         f"{name}: the full-RSB criterion fails; GS = {gs:.4f} exceeds ALG = {alg:.4f} by"
-        f" {size}, a gap that no algorithm whose output is Lipschitz in the disorder can close"
-        " (Huang-Sellke 2021, from memory; that covers Hessian ascent and gradient-type"
-        " dynamics run for a number of steps that does not grow with n)."
+        f" {size}, a gap that algorithms whose output is Lipschitz in the disorder "
+        + (
+            "cannot close (Huang-Sellke 2021, for mixtures of even degrees: gradient descent,"
+            " approximate message passing and Langevin dynamics run for bounded time)."
+            if th.get("even")
+            else "are predicted not to close (proved for mixtures of even degrees only,"
+            " Huang-Sellke 2021)."
+        )
     )
 
 
@@ -410,7 +447,7 @@ def _unfinished_runs(groups: list[dict[str, Any]]) -> list[str]:
         groups, key=lambda g: (g["mixture"], g["method"])
     ):
         members = list(members)
-        bad = sum(g["not_local_max"] for g in members)
+        bad = sum(g["not_local_max"] or 0 for g in members)  # None: never checked
         if bad:
             total = sum(g["count"] for g in members)
             where = ", ".join(
@@ -467,11 +504,15 @@ def _markdown(rep: Report) -> str:
         "seed by seed (paired t-test on the mean, sign test on the counts): on each instance "
         "both start from the same seeded random direction, and runs whose energies differ "
         f"by at most {TIE_RELATIVE:.0e} x GS count as the same point (a tie; for a mixture of"
-        " even degrees only, H(-x) = H(x), so a tie may be the mirror point -x). A method that"
-        " ends with a polish (a local ascent to the nearest critical point) is also reported"
-        " as '<method> before polish': the same runs where the method itself ended, which is"
-        " what its theory describes; the polish may carry both methods to the same local"
-        " maximum.",
+        " even degrees only, H(-x) = H(x), so a tie may be the mirror point -x)."
+        + (
+            " A method that ends with a polish (a local ascent to a checked local maximum) is"
+            " also reported as '<method> before polish': the runs' energies where the method"
+            " itself ended (for Hessian ascent, the point ALG describes); the polish may carry"
+            " two methods to the same local maximum."
+            if any(g["method"].endswith(BEFORE_POLISH) for g in rep.groups)
+            else ""
+        ),
         "",
         _grid_line(spec),
         "",
@@ -526,7 +567,7 @@ def _markdown(rep: Report) -> str:
     ]
     for g in rep.groups:
         se = f"{g['se']:.4f}" if math.isfinite(g["se"]) else "--"  # one seed
-        steps = "--" if g.get("steps") is None else f"{g['steps']:g}"
+        steps = "--" if g.get("steps") is None else f"{g['steps']:.10g}"  # 1000000, not 1e+06
         lines.append(
             f"| {g['mixture']} | {g['method']} | {g['n']} | {g['mean']:.4f} | {se} |"
             f" {g['count']} | {steps} |"

@@ -32,6 +32,8 @@ def plot_files(
     report writes together with its text files, all or none."""
     from matplotlib.figure import Figure
 
+    from .report import level_text
+
     mixtures = list(rep.theory)
     methods = rep.labels or [m.name for m in rep.spec.methods]  # with "... before polish"
     colors = {m: f"C{i}" for i, m in enumerate(methods)}
@@ -82,10 +84,9 @@ def plot_files(
         if not equal:
             ax.axhline(th["gs"], color="0.4", ls=":", lw=1.5, label=f"GS {th['gs']:.4f}")
         ax.set_xlim(-0.03 * max(xmax, 1e-3), 1.05 * max(xmax, 1e-3))
-        level = next((f["level"] for f in rep.fits if f.get("level") is not None), 0.9)
         ax.set_xlabel(
             f"n^(-{k:.3g})   (bars: mean +- 1 s.e.; at 0: e_inf and its"
-            f" {100 * level:.3g}% interval)",
+            f" {level_text(rep.spec_level())}% interval)",
             fontsize=9,
         )
         ax.set_ylabel("energy per spin H(x)/n")
@@ -100,6 +101,7 @@ def plot_files(
         sizes = sorted({n for (m, _, n) in data if m == mix})
         width = 0.8 / max(1, len(methods))
         for j, meth in enumerate(methods):
+            labelled = False  # at the series' first plotted size (it may miss the smallest)
             for i, n in enumerate(sizes):
                 v = data.get((mix, meth, n))
                 if v is None:
@@ -111,12 +113,14 @@ def plot_files(
                     s=10,
                     color=colors[meth],
                     alpha=0.6,
-                    label=meth if i == 0 else None,
+                    label=None if labelled else meth,
                 )
+                labelled = True
                 ax.hlines(v.mean(), pos - 0.4 * width, pos + 0.4 * width, color="k", lw=1.5)
         th = rep.theory[mix]
-        ax.axhline(th["alg"], color="k", ls="--", lw=1, label="ALG")
-        if abs(th["gap_gs_alg"]) > 1e-4:
+        equal = abs(th["gap_gs_alg"]) <= 1e-4
+        ax.axhline(th["alg"], color="k", ls="--", lw=1, label="ALG = GS" if equal else "ALG")
+        if not equal:
             ax.axhline(th["gs"], color="0.4", ls=":", lw=1.5, label="GS")
         ax.set_xticks(range(len(sizes)), [str(n) for n in sizes])
         ax.set_xlabel("n")
