@@ -358,18 +358,26 @@ def _two_results():
     return oc.gradient_ascent(ham, seed=0, max_iter=3), oc.gradient_ascent(ham, seed=1, max_iter=3)
 
 
+def _save_interrupted(tmp_path, monkeypatch, owner, name: str, at: int = 1):
+    """Save a new result over an old one at tmp_path/run while ``owner.<name>`` sends a
+    Ctrl-C after its call ``at``; the save must raise KeyboardInterrupt. Returns (old, new,
+    the calls made)."""
+    old, new = _two_results()
+    old.save(tmp_path / "run")
+    calls: list = []
+    monkeypatch.setattr(owner, name, _interrupt_after(getattr(owner, name), calls, at))
+    with pytest.raises(KeyboardInterrupt):
+        new.save(tmp_path / "run")
+    monkeypatch.undo()
+    return old, new, calls
+
+
 def test_ctrl_c_between_the_renames_of_a_pair_waits_for_both(tmp_path, monkeypatch):
     # a Ctrl-C after the .npz was renamed left it beside the old .json: neither result
     # loaded (a review). The renames now finish, then the KeyboardInterrupt comes.
     import orthoclimb as oc
 
-    old, new = _two_results()
-    old.save(tmp_path / "run")
-    calls: list = []
-    monkeypatch.setattr(os, "replace", _interrupt_after(os.replace, calls))
-    with pytest.raises(KeyboardInterrupt):
-        new.save(tmp_path / "run")
-    monkeypatch.undo()
+    _, new, calls = _save_interrupted(tmp_path, monkeypatch, os, "replace")
     assert len(calls) == 2
     assert np.array_equal(oc.load_result(tmp_path / "run").x, new.x)
     assert sorted(p.name for p in tmp_path.iterdir()) == ["run.json", "run.npz"]
@@ -382,14 +390,8 @@ def test_ctrl_c_as_a_temporary_file_is_made_leaves_none_behind(tmp_path, monkeyp
 
     import orthoclimb as oc
 
-    old, new = _two_results()
-    old.save(tmp_path / "run")
     for at in (1, 2):
-        calls: list = []
-        monkeypatch.setattr(tempfile, "mkstemp", _interrupt_after(tempfile.mkstemp, calls, at))
-        with pytest.raises(KeyboardInterrupt):
-            new.save(tmp_path / "run")
-        monkeypatch.undo()
+        old, _, _ = _save_interrupted(tmp_path, monkeypatch, tempfile, "mkstemp", at)
         assert sorted(p.name for p in tmp_path.iterdir()) == ["run.json", "run.npz"]
         assert np.array_equal(oc.load_result(tmp_path / "run").x, old.x)
 
@@ -439,13 +441,7 @@ def test_ctrl_c_just_after_a_file_is_staged_leaves_no_temporary(tmp_path, monkey
     # the name of a staged file reached the cleanup only when _stage returned (a review)
     from orthoclimb import fileio
 
-    old, new = _two_results()
-    old.save(tmp_path / "run")
-    calls: list = []
-    monkeypatch.setattr(fileio, "_stage", _interrupt_after(fileio._stage, calls))
-    with pytest.raises(KeyboardInterrupt):
-        new.save(tmp_path / "run")
-    monkeypatch.undo()
+    _save_interrupted(tmp_path, monkeypatch, fileio, "_stage")
     assert sorted(p.name for p in tmp_path.iterdir()) == ["run.json", "run.npz"]
 
 
