@@ -581,3 +581,19 @@ def test_a_tol_large_against_the_mixture_is_warned_of():
 def test_auto_steps_refuses_what_is_no_size(bad, error):
     with pytest.raises(error, match="n must be"):
         oc.algorithms.auto_steps(bad)
+
+
+def test_the_stepwise_limit_is_the_paths_own_prediction():
+    # the n -> infinity end of a K-point path from a random start: the run's last
+    # predicted_energy_steps, and for pure 2-spin (sqrt(xi'') = sqrt(2) constant) the left
+    # Riemann sum sqrt(2) (1 - 1/K) (exact identity); a field's first stage has none
+    from orthoclimb.algorithms.hessian_ascent import stepwise_limit
+
+    mix = oc.Mixture.from_xi({2: 1.0, 4: 0.0625})
+    run = oc.hessian_ascent(oc.Hamiltonian.sample(mix, 40, seed=3), steps=25, seed=3, polish=False)
+    assert stepwise_limit(mix, 25) == pytest.approx(
+        run.path["predicted_energy_steps"][-1], rel=1e-12
+    )
+    assert stepwise_limit(mix, 25) < oc.algorithmic_energy(mix)
+    assert stepwise_limit(oc.Mixture({2: 1.0}), 25) == pytest.approx(2**0.5 * 24 / 25, rel=1e-12)
+    assert stepwise_limit(oc.Mixture({1: 1.0, 3: 1.0}), 25) is None

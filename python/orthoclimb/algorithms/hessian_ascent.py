@@ -100,7 +100,7 @@ from ._sphere import HessianReader, random_unit
 from .polish import polish as polish_point
 from .result import Result
 
-__all__ = ["auto_steps", "hessian_ascent", "hessian_moves"]
+__all__ = ["auto_steps", "hessian_ascent", "hessian_moves", "stepwise_limit"]
 
 HESSIAN_MODES = ("auto", "dense", "operator")
 _WORKING_COPIES = 4  # projected copy, eigen-solver workspace, slack
@@ -149,6 +149,19 @@ def hessian_moves(mixture: Mixture | None, steps: int) -> int:
 def _ends_on_sphere(q_hat: float) -> bool:
     """Whether the first stage, on the sphere of radius sqrt(q_hat), is on the unit sphere."""
     return 1.0 - q_hat <= _ON_SPHERE
+
+
+def stepwise_limit(mixture: Mixture, steps: int) -> float | None:
+    """The energy per spin, as n -> infinity, at the end of a path of ``steps`` = K points from
+    a random start: the steps' own sum E_K(1) of :func:`_stepwise_energy` over the radii^2
+    q_i = (i + 1)/K, i = 0..K-1, the run's (``path["predicted_energy_steps"]``' last value).
+    It falls short of ALG by about (f(1) - f(1/K)) / (2K), f = sqrt(xi''): the coarse steps'
+    loss, which a larger n does not remove. None for a mixture with a field, whose first stage
+    ends at q_hat > 0 instead of starting at random."""
+    if algorithmic_threshold(mixture) > 0.0:
+        return None
+    k = check_count(steps, "steps", minimum=1)
+    return float(_stepwise_energy(mixture, np.arange(1, k + 1) / k, 0.0)[-1])
 
 
 def _stepwise_energy(mixture: Mixture, q: np.ndarray, start: float) -> np.ndarray:

@@ -292,6 +292,10 @@ def build_report(
             entry["z_alg"] = (ex.value - th["alg"]) / se
             entry["z_gs"] = (ex.value - th["gs"]) / se
             add_other_laws(entry, sizes, samples, level, n_boot, seed=seed)
+            if label == "hessian" + BEFORE_POLISH:
+                _add_stepwise_limit(
+                    entry, m.mixture, [steps.get((m.name, label, n)) for n in sizes]
+                )
             fits.append(entry)
     missing = len(spec.tasks()) - len(rows)
     degrees = {m.name: m.mixture.max_degree for m in spec.mixtures}
@@ -328,6 +332,21 @@ def build_report(
             f" overlaps leave those runs out; the first: {unreadable[0]}"
         )
     return rep
+
+
+def _add_stepwise_limit(entry: dict[str, Any], mixture: Any, ks: list[float | None]) -> None:
+    """With the same K at every size of a Hessian-ascent fit before polish, the n -> infinity
+    energy its K points reach (``stepwise_limit``: the coarse steps' loss stays however large
+    n) as ``e_k``, and the fit's distance to it in s.e. as ``z_k``."""
+    from ..algorithms.hessian_ascent import stepwise_limit
+
+    if not ks or ks[0] is None or any(k != ks[0] for k in ks) or ks[0] != int(ks[0]):
+        return
+    e_k = stepwise_limit(mixture, int(ks[0]))
+    if e_k is None:
+        return
+    se = entry["se"] if entry["se"] > 0 else math.nan
+    entry.update(steps_k=int(ks[0]), e_k=e_k, z_k=(entry["value"] - e_k) / se)
 
 
 def _left_out_text(left_out: list[list[int]]) -> str:
@@ -385,6 +404,12 @@ def _findings(rep: Report, seeds: dict) -> list[str]:
             f"{', '.join(str(n) for n in f['sizes'])}"
             f"{_left_out_text(f.get('left_out', []))}; " + against_theory(f)
         )
+        if f.get("e_k") is not None:
+            text += (
+                f"; K = {f['steps_k']} at every size, and a path of K points reaches"
+                f" E_K = {f['e_k']:.4f} as n -> infinity (its coarse steps fall short of ALG by"
+                f" {f['alg'] - f['e_k']:.4f} however large n): {f['z_k']:+.1f} s.e. from it"
+            )
         text += law_test_text(f)
         if f["dof"] == 0:
             text += (
