@@ -158,8 +158,8 @@ def stepwise_limit(mixture: Mixture, steps: int) -> float | None:
     It falls short of ALG = int_0^1 f, f = sqrt(xi''), by about int_0^{1/K} f (the start's
     radius, which a random direction gains nothing on) plus (f(1) - f(1/K)) / (2K) (the steps'
     Riemann sum): 1.32/K at K = 25 and 1.27/K at K = 100 for the pure 3-spin model, 0.061 at
-    K = 25 for xi = q^2 + q^4/16, a loss a larger n does not remove. None for a mixture with a field, whose first stage ends at
-    q_hat > 0 instead of starting at random."""
+    K = 25 for xi = q^2 + q^4/16, a loss a larger n does not remove. None for a mixture with a
+    field, whose first stage ends at q_hat > 0 instead of starting at random."""
     if algorithmic_threshold(mixture) > 0.0:
         return None
     k = check_count(steps, "steps", minimum=1)
