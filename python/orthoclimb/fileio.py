@@ -256,15 +256,15 @@ def _stage(dest: Path, write: Callable[[IO[bytes]], None], staged: list[tuple[st
     fits."""
     ensure_folder(dest.parent, f"the folder of {str(dest)!r},")
     refuse_folder(dest)
-    tmp = fh = None
+    fh = None
     try:
         try:  # a Ctrl-C inside mkstemp, after it made the file, left it behind (a review)
             with interrupts_deferred():
                 fd, tmp = tempfile.mkstemp(
                     dir=dest.parent, prefix=f".{dest.name[:32]}.", suffix=".tmp"
                 )
+                staged.append((tmp, dest))  # the caller's cleanup removes it from here on
                 fh = os.fdopen(fd, "wb")
-                staged.append((tmp, dest))
         except OSError as exc:
             raise _path_error(f"cannot write {str(dest)!r}", exc) from None
         try:
@@ -284,9 +284,6 @@ def _stage(dest: Path, write: Callable[[IO[bytes]], None], staged: list[tuple[st
         if fh is not None:
             with contextlib.suppress(OSError):
                 fh.close()
-        if tmp is not None:
-            with contextlib.suppress(OSError):
-                os.unlink(tmp)
         raise
 
 

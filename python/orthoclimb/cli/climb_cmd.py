@@ -38,13 +38,10 @@ from ..model.memory import format_bytes, require_memory
 from ..runtime import get_num_threads, kernel_path
 from ..studies.engine import counted
 from ..studies.estimate import (
-    LANCZOS_SECONDS,
     PASSES_PER_ITERATION,
-    check_seconds,
     gradient_passes,
     largest_size_within,
-    polish_extra,
-    polish_passes,
+    run_seconds,
 )
 from . import (
     add_mixture_flags,
@@ -177,10 +174,8 @@ def _run_estimate(
     moves = hessian_moves(ham.mixture, steps) if method == "hessian" else 0
     needs_hessian = moves > 0 or polish or method == "gradient"
     hess = scale * _time_pass(ham, "hessian") if needs_hessian else 0.0
-    finish = polish_passes(n, method) * grad + polish_extra(n, hess) if polish else 0.0
+    run = run_seconds(method, n, steps, polish, (grad, hess), moves)
     if method == "hessian":
-        lanczos = LANCZOS_SECONDS[0] + LANCZOS_SECONDS[1] * n**2
-        run = moves * (hess + lanczos) + finish
         what = f"{moves} Hessian steps" + (" and the polish" if polish else "")
         if moves == 0:
             polish_time = f"; the polish takes about {seconds_text(run)}" if polish else ""
@@ -191,19 +186,16 @@ def _run_estimate(
             f" {seconds_text(run)} ({what})"
         )
     if method == "anneal":
-        run = steps * grad + finish
         what = f"{steps} Langevin steps" + (" and the polish" if polish else "")
         return (
             f"one gradient pass: {seconds_text(grad)}; estimated run time about"
             f" {seconds_text(run)} ({what})"
         )
     passes = gradient_passes(n, steps)
-    check = grad + hess + check_seconds(n)  # the local-maximum check at the end
-    typical = passes * grad + check
-    cap = PASSES_PER_ITERATION * steps * grad + check
+    cap = run + (PASSES_PER_ITERATION * steps - passes) * grad  # every iteration to max_iter
     return (
         f"one gradient pass: {seconds_text(grad)}; estimated run time about"
-        f" {seconds_text(typical)} (typically {passes:.0f} passes at this n; at most"
+        f" {seconds_text(run)} (typically {passes:.0f} passes at this n; at most"
         f" {seconds_text(cap)} if it runs to --max-iter {steps})"
     )
 

@@ -66,6 +66,7 @@ __all__ = [
     "largest_size_within",
     "polish_extra",
     "polish_passes",
+    "run_seconds",
 ]
 
 _CAL_BYTES = 64 * 2**20
@@ -187,6 +188,22 @@ def calibrate(spec: StudySpec, threads: int = 1) -> dict[str, Calibration]:
     return cal
 
 
+def run_seconds(
+    method: str, n: int, steps: int, polish: bool, passes: tuple[float, float], moves: int = 0
+) -> float:
+    """Seconds of one run of ``method`` at n (module doc) from ``passes`` = (one energy-and-
+    gradient pass, one Hessian pass) in seconds at n: ``moves`` Hessian steps (hessian),
+    ``steps`` Langevin steps (anneal) or at most ``steps`` = max_iter iterations (gradient),
+    plus the polish when ``polish`` (hessian, anneal). Used by the sweep and by climb."""
+    eg, hess = passes
+    if method == "gradient":  # and its local-maximum check: a Hessian, a pass, the eigenvalues
+        return (gradient_passes(n, steps) + 1) * eg + hess + check_seconds(n)
+    finish = polish_passes(n, method) * eg + polish_extra(n, hess) if polish else 0.0
+    if method == "hessian":  # each step a Hessian pass and Lanczos
+        return moves * (hess + LANCZOS_SECONDS[0] + LANCZOS_SECONDS[1] * n**2) + finish
+    return steps * eg + finish  # anneal: one pass per step
+
+
 def estimate_from(cal: dict[str, Calibration], tasks, workers: int, embedded: bool = True) -> float:
     """Seconds for ``tasks`` on ``workers`` workers from the timings ``cal`` (module doc);
     ``embedded`` adds the start of an embedded cluster."""
@@ -199,17 +216,13 @@ def estimate_from(cal: dict[str, Calibration], tasks, workers: int, embedded: bo
         opts = dict(t.method.options)
         total += scale * c.sampling + _TASK_OVERHEAD
         eg, hess = scale * c.energy_and_gradient, scale * c.hessian  # one pass each at n
+        moves = 0
         if t.method.name == "hessian":
-            eigen = LANCZOS_SECONDS[0] + LANCZOS_SECONDS[1] * t.n**2  # per step
             k = auto_steps(t.n) if opts["steps"] == "auto" else opts["steps"]
-            total += hessian_moves(t.mixture.mixture, k) * (hess + eigen)
-        elif t.method.name == "anneal":  # one pass per step
-            total += opts["steps"] * eg
-        else:  # and its local-maximum check: a Hessian, a pass and the eigenvalues
-            total += (gradient_passes(t.n, opts["max_iter"]) + 1) * eg + hess
-            total += check_seconds(t.n)
-        if t.method.name != "gradient" and opts.get("polish"):
-            total += polish_passes(t.n, t.method.name) * eg + polish_extra(t.n, hess)
+            moves = hessian_moves(t.mixture.mixture, k)
+        steps = opts["max_iter"] if t.method.name == "gradient" else opts["steps"]
+        polish = bool(opts.get("polish"))
+        total += run_seconds(t.method.name, t.n, steps, polish, (eg, hess), moves)
     return total / max(1, workers) + (_CLUSTER_START if embedded else 0.0)
 
 

@@ -85,6 +85,21 @@ def paired_comparison(d: Any, tie: float = 0.0) -> dict[str, float]:
     }
 
 
+def _tie(th: dict[str, Any]) -> float:
+    """The tie width of a mixture's comparisons: TIE_RELATIVE times |GS| (|ALG| when the
+    Parisi solver gave no GS, which is NaN then)."""
+    return TIE_RELATIVE * abs(th["gs"] if math.isfinite(th["gs"]) else th["alg"])
+
+
+def _paired(mix: str, a: str, b: str, n: int, seeds: dict) -> list[int]:
+    """The seeds both methods ran at size n."""
+    return sorted(set(seeds[(mix, a, n)]) & set(seeds[(mix, b, n)]))
+
+
+def _common_sizes(mix: str, a: str, b: str, seeds: dict) -> list[int]:
+    return sorted(n for (m1, me, n) in seeds if m1 == mix and me == a and (mix, b, n) in seeds)
+
+
 def comparisons_per_size(
     mix: str, a: str, b: str, seeds: dict, th: dict[str, Any]
 ) -> list[dict[str, Any]]:
@@ -92,50 +107,55 @@ def comparisons_per_size(
     paired seeds (the report's table; its findings speak of the largest size): one record per
     size with the fields of :func:`paired_comparison` and ``mixture``, ``n``, ``a``, ``b``,
     ``seeds``."""
-    scale = th["gs"] if math.isfinite(th["gs"]) else th["alg"]  # GS is NaN if unsolved
     out = []
-    for n in sorted(n for (m1, me, n) in seeds if m1 == mix and me == a and (mix, b, n) in seeds):
-        pa_, pb_ = seeds[(mix, a, n)], seeds[(mix, b, n)]
-        both = sorted(set(pa_) & set(pb_))
+    for n in _common_sizes(mix, a, b, seeds):
+        both = _paired(mix, a, b, n, seeds)
         if len(both) >= 2:
-            c = paired_comparison([pa_[s] - pb_[s] for s in both], TIE_RELATIVE * abs(scale))
+            pa_, pb_ = seeds[(mix, a, n)], seeds[(mix, b, n)]
+            c = paired_comparison([pa_[s] - pb_[s] for s in both], _tie(th))
             out.append({"mixture": mix, "n": n, "a": a, "b": b, "seeds": len(both), **c})
     return out
 
 
-def head_to_head(mix: str, a: str, b: str, seeds: dict, th: dict[str, Any]) -> str | None:
+def head_to_head(
+    mix: str,
+    a: str,
+    b: str,
+    seeds: dict,
+    th: dict[str, Any],
+    records: list[dict[str, Any]] | None = None,
+) -> str | None:
     """Methods a and b on the same instances of ``mix`` at their largest common size with two
     or more paired seeds (paired over seeds; both start from each seed's random direction), or
     None without one. A larger size with fewer paired seeds (an interrupted sweep) is named,
-    not allowed to hide the comparison."""
-    common = sorted(n for (m1, me, n) in seeds if m1 == mix and me == a and (mix, b, n) in seeds)
-    skipped = []
-    for n in reversed(common):
-        pa_, pb_ = seeds[(mix, a, n)], seeds[(mix, b, n)]
-        both = sorted(set(pa_) & set(pb_))
-        if len(both) >= 2:
-            break
-        skipped.append(f"n = {n} has {len(both)} paired seed{'s' if len(both) != 1 else ''}")
-    else:
+    not allowed to hide the comparison. ``records``: the pair's
+    :func:`comparisons_per_size`, when the caller has them already."""
+    if records is None:
+        records = comparisons_per_size(mix, a, b, seeds, th)
+    if not records:
         return None
-    line = _compare_line(mix, a, b, n, pa_, pb_, both, th)
+    last = records[-1]
+    skipped = []
+    for n in reversed(_common_sizes(mix, a, b, seeds)):
+        if n <= last["n"]:
+            break
+        k = len(_paired(mix, a, b, n, seeds))
+        skipped.append(f"n = {n} has {k} paired seed{'s' if k != 1 else ''}")
+    line = _compare_line(last, th)
     return line if not skipped else f"{line[:-1]} ({'; '.join(skipped)})."
 
 
-def _compare_line(
-    mix: str, a: str, b: str, n: int, pa_: dict, pb_: dict, both: list, th: dict[str, Any]
-) -> str:
-    """The comparison sentence of :func:`head_to_head` at size ``n``."""
-    scale = th["gs"] if math.isfinite(th["gs"]) else th["alg"]  # GS is NaN if unsolved
-    tie = TIE_RELATIVE * abs(scale)
-    c = paired_comparison([pa_[s] - pb_[s] for s in both], tie)
+def _compare_line(c: dict[str, Any], th: dict[str, Any]) -> str:
+    """The comparison sentence of :func:`head_to_head` from its record ``c`` (one of
+    :func:`comparisons_per_size`)."""
+    mix, a, b, n, paired = c["mixture"], c["a"], c["b"], c["n"], c["seeds"]
     diff, z = c["diff"], c["z"]
     # a mixture of even degrees only has H(-x) = H(x): equal energies may be mirror points
     same = "the same point or its mirror -x" if th.get("even") else "the same point"
     if c["nonzero"] == 0:
         return (
             f"{mix}, n = {n}: {a} and {b} stopped at {same} (energies within "
-            f"{tie:.0e} per spin) on all {len(both)} paired seeds."
+            f"{_tie(th):.0e} per spin) on all {paired} paired seeds."
         )
     sign = (
         f"{a} higher on {c['higher']}, {b} on {c['lower']}, {same} on "
@@ -144,9 +164,9 @@ def _compare_line(
     by_mean = math.isfinite(c["t_p"]) and c["t_p"] < MEAN_LEVEL
     by_sign = math.isfinite(c["sign_p"]) and c["sign_p"] < SIGN_LEVEL
     if c["se"] > 0:
-        mean = f"{z:+.1f} s.e., paired t-test over {len(both)} seeds: p = {c['t_p']:.2g}"
+        mean = f"{z:+.1f} s.e., paired t-test over {paired} seeds: p = {c['t_p']:.2g}"
     else:
-        mean = f"the same difference on each of the {len(both)} paired seeds"
+        mean = f"the same difference on each of the {paired} paired seeds"
     if by_mean:
         lead = f"{a} is ahead of {b}" if diff > 0 else f"{b} is ahead of {a}"
         return f"{mix}, n = {n}: {lead} by {abs(diff):.4f} per spin on average ({mean}); {sign}."

@@ -72,6 +72,13 @@ class Report:
     labels: list[str] = field(default_factory=list)
     #: paired comparisons of every pair of methods at every size (paired.comparisons_per_size)
     comparisons: list[dict[str, Any]] = field(default_factory=list)
+    #: the energies per (mixture, series, n), one per seed: what the figures draw
+    energies: dict[tuple[str, str, int], np.ndarray] = field(default_factory=dict, repr=False)
+
+    @property
+    def before_polish(self) -> bool:
+        """Whether the report holds a "<method> before polish" series."""
+        return any(g["method"].endswith(BEFORE_POLISH) for g in self.groups)
 
     def table(self) -> str:
         """Plain-text table for the terminal."""
@@ -109,7 +116,7 @@ class Report:
             + (
                 "; 'before polish': the runs' energies where the method ended, before its"
                 " final polish"
-                if any(g["method"].endswith(BEFORE_POLISH) for g in self.groups)
+                if self.before_polish
                 else ""
             )
             + ")"
@@ -169,12 +176,6 @@ def _by_seed(
     return dict(acc)
 
 
-def _groups(
-    rows: list[dict[str, Any]], polished: Sequence[str] = ()
-) -> dict[tuple[str, str, int], np.ndarray]:
-    return {k: np.array(list(v.values())) for k, v in _by_seed(rows, polished).items()}
-
-
 def _median_steps(rows: list[dict[str, Any]]) -> dict[tuple[str, str, int], float]:
     """The median of the rows' ``steps`` (K for Hessian ascent, iterations for gradient
     ascent, Langevin steps) by (mixture, method, n), for both series of a method."""
@@ -208,8 +209,9 @@ def build_report(
     if not rows:
         raise ValueError(f"the study in {str(folder)!r} has no completed tasks yet")
     k = spec.exponent if exponent is None else float(exponent)  # both checked positive
-    labels = _labels(spec)
-    data = _groups(rows, _polished(spec))
+    labels, polished = _labels(spec), _polished(spec)
+    by_seed = _by_seed(rows, polished)
+    data = {key: np.array(list(v.values())) for key, v in by_seed.items()}
     steps = _median_steps(rows)
     # runs whose end point failed the local-maximum check (an iteration cap reached early)
     unfinished = Counter(
@@ -300,10 +302,10 @@ def build_report(
     missing = len(spec.tasks()) - len(rows)
     degrees = {m.name: m.mixture.max_degree for m in spec.mixtures}
     rep = Report(spec, groups, fits, theory, [], missing, cost=cost_table(rows, degrees))
-    rep.labels = labels
+    rep.labels, rep.energies = labels, data
     points, unreadable = readable_end_points(Path(folder), rows)  # sweep --keep-points
     rep.overlaps = overlap_summary(end_point_overlaps(rows, points, [m.name for m in spec.methods]))
-    seeds = _by_seed(rows)
+    seeds = {key: v for key, v in by_seed.items() if not key[1].endswith(BEFORE_POLISH)}
     rep.comparisons = [
         c
         for mix in theory
@@ -314,7 +316,7 @@ def build_report(
     lacking = sum(
         1
         for r in rows
-        if r["method"] in _polished(spec)
+        if r["method"] in polished
         and not (
             isinstance(r.get("energy_before_polish"), (int, float))
             and math.isfinite(r["energy_before_polish"])
@@ -428,7 +430,8 @@ def _findings(rep: Report, seeds: dict) -> list[str]:
     methods = [m.name for m in rep.spec.methods]
     for mix, th in rep.theory.items():
         for a, b in itertools.combinations(methods, 2):
-            line = head_to_head(mix, a, b, seeds, th)
+            pair = [c for c in rep.comparisons if (c["mixture"], c["a"], c["b"]) == (mix, a, b)]
+            line = head_to_head(mix, a, b, seeds, th, records=pair)
             if line is not None:
                 out.append(line)
     for c in rep.cost:
@@ -535,7 +538,7 @@ def _markdown(rep: Report) -> str:
             " also reported as '<method> before polish': the runs' energies where the method"
             " itself ended (for Hessian ascent, the point ALG describes); the polish may carry"
             " two methods to the same local maximum."
-            if any(g["method"].endswith(BEFORE_POLISH) for g in rep.groups)
+            if rep.before_polish
             else ""
         ),
         "",
@@ -663,11 +666,11 @@ def write_report(
     for name in names:  # so does a folder standing where a file goes
         refuse_folder(target / name, "remove it or give --out FOLDER (out= in Python)")
     rep = build_report(folder, exponent, level, n_boot)
-    data = _groups(Store(folder, rep.spec).rows(), _polished(rep.spec))
     # every file staged first and renamed only when all are written: a folder standing at
     # report.json left a new report.md and plots beside the old report.json (a review)
     files = []
-    for name, path, writer in plot_files(rep, data, target) if plots else []:
+    # the energies build_report read: the row files are not read and checked again
+    for name, path, writer in plot_files(rep, rep.energies, target) if plots else []:
         rep.files[name] = str(path)
         files.append((path, writer))
     rep.files["markdown"] = str(target / "report.md")
