@@ -97,7 +97,7 @@ def _tied_study(folder, seeds: int) -> dict[int, float]:
 def test_findings_report_runs_that_stop_at_the_same_point(tmp_path):
     # hessian above gradient by rounding only (1e-14) on every seed: no edge, all ties
     base = _tied_study(tmp_path / "same", 10)
-    text = build_report(tmp_path / "same").findings[-1]
+    text = build_report(tmp_path / "same").findings[-2]  # the last: the limits' difference
     assert "stopped at the same point" in text and "on all 10 paired seeds" in text
     assert "ahead" not in text
     # a real edge of 0.01 on 9 seeds, one tie: ahead by the sign test (p = 2/512)
@@ -108,7 +108,7 @@ def test_findings_report_runs_that_stop_at_the_same_point(tmp_path):
         methods="hessian,gradient",
         seeds="0-9",
     )
-    text = build_report(tmp_path / "edge").findings[-1]
+    text = build_report(tmp_path / "edge").findings[-2]
     assert "hessian is ahead of gradient by 0.0090 per spin" in text
     assert "hessian higher on 9, gradient on 0, the same point on 1" in text
     assert "p = 0.0039" in text
@@ -563,3 +563,35 @@ def test_the_gap_finding_cites_the_proof_only_where_it_holds(tmp_path, mixture, 
     assert ("are predicted not to close (proved for mixtures of even degrees only" in text) == (
         not even
     )
+
+
+def test_the_report_extrapolates_the_difference_of_two_methods_limits(tmp_path):
+    # hessian - gradient = 0.01 + 0.3 n^(-2/3) + small noise on each instance, over a shared
+    # instance effect 10 times larger: the paired fit recovers 0.01 with an s.e. well below
+    # the two fits' combined one, and the report writes it to its JSON, table and findings
+    rng = np.random.default_rng(11)
+    noise = {(n, s): rng.standard_normal(2) for n in (20, 40, 80) for s in range(8)}
+
+    def energy(n, s, m):
+        shared, own = 0.05 * noise[(n, s)][0], 0.005 * noise[(n, s)][1]
+        gap = 0.01 + 0.3 * n ** (-2 / 3) + own if m == "hessian" else 0.0
+        return 1.6 - n ** (-2 / 3) + shared + gap
+
+    _synthetic_study(tmp_path / "s", "20,40,80", energy, methods="hessian,gradient")
+    rep = write_report(tmp_path / "s", plots=False)
+    (d,) = rep.limit_differences
+    assert (d["mixture"], d["a"], d["b"], d["sizes"]) == (
+        "3:1.0",
+        "hessian",
+        "gradient",
+        [20, 40, 80],
+    )
+    assert d["low"] < 0.01 < d["high"] and d["se"] < d["separate_se"] / 3
+    stored = json.loads((tmp_path / "s" / "report.json").read_text())["limit_differences"]
+    assert stored[0]["value"] == pytest.approx(d["value"])
+    text = (tmp_path / "s" / "report.md").read_text()
+    assert (
+        "## Difference of limits" in text and "| 3:1.0 | hessian - gradient | 20, 40, 80 |" in text
+    )
+    line = [f for f in rep.findings if "as n -> infinity:" in f]
+    assert len(line) == 1 and line[0].startswith("3:1.0: hessian - gradient as n -> infinity")

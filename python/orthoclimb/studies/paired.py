@@ -22,9 +22,12 @@ __all__ = [
     "MEAN_LEVEL",
     "SIGN_LEVEL",
     "TIE_RELATIVE",
+    "common_sizes",
     "comparisons_per_size",
     "head_to_head",
     "paired_comparison",
+    "paired_seeds",
+    "tie_width",
 ]
 
 SIGN_LEVEL = 0.01  # a paired sign test below this: one method is higher on most instances
@@ -85,18 +88,19 @@ def paired_comparison(d: Any, tie: float = 0.0) -> dict[str, float]:
     }
 
 
-def _tie(th: dict[str, Any]) -> float:
+def tie_width(th: dict[str, Any]) -> float:
     """The tie width of a mixture's comparisons: TIE_RELATIVE times |GS| (|ALG| when the
     Parisi solver gave no GS, which is NaN then)."""
     return TIE_RELATIVE * abs(th["gs"] if math.isfinite(th["gs"]) else th["alg"])
 
 
-def _paired(mix: str, a: str, b: str, n: int, seeds: dict) -> list[int]:
+def paired_seeds(mix: str, a: str, b: str, n: int, seeds: dict) -> list[int]:
     """The seeds both methods ran at size n."""
     return sorted(set(seeds[(mix, a, n)]) & set(seeds[(mix, b, n)]))
 
 
-def _common_sizes(mix: str, a: str, b: str, seeds: dict) -> list[int]:
+def common_sizes(mix: str, a: str, b: str, seeds: dict) -> list[int]:
+    """The sizes at which both methods ran on ``mix``."""
     return sorted(n for (m1, me, n) in seeds if m1 == mix and me == a and (mix, b, n) in seeds)
 
 
@@ -108,11 +112,11 @@ def comparisons_per_size(
     size with the fields of :func:`paired_comparison` and ``mixture``, ``n``, ``a``, ``b``,
     ``seeds``."""
     out = []
-    for n in _common_sizes(mix, a, b, seeds):
-        both = _paired(mix, a, b, n, seeds)
+    for n in common_sizes(mix, a, b, seeds):
+        both = paired_seeds(mix, a, b, n, seeds)
         if len(both) >= 2:
             pa_, pb_ = seeds[(mix, a, n)], seeds[(mix, b, n)]
-            c = paired_comparison([pa_[s] - pb_[s] for s in both], _tie(th))
+            c = paired_comparison([pa_[s] - pb_[s] for s in both], tie_width(th))
             out.append({"mixture": mix, "n": n, "a": a, "b": b, "seeds": len(both), **c})
     return out
 
@@ -136,10 +140,10 @@ def head_to_head(
         return None
     last = records[-1]
     skipped = []
-    for n in reversed(_common_sizes(mix, a, b, seeds)):
+    for n in reversed(common_sizes(mix, a, b, seeds)):
         if n <= last["n"]:
             break
-        k = len(_paired(mix, a, b, n, seeds))
+        k = len(paired_seeds(mix, a, b, n, seeds))
         skipped.append(f"n = {n} has {k} paired seed{'s' if k != 1 else ''}")
     line = _compare_line(last, th)
     return line if not skipped else f"{line[:-1]} ({'; '.join(skipped)})."
@@ -155,7 +159,7 @@ def _compare_line(c: dict[str, Any], th: dict[str, Any]) -> str:
     if c["nonzero"] == 0:
         return (
             f"{mix}, n = {n}: {a} and {b} stopped at {same} (energies within "
-            f"{_tie(th):.0e} per spin) on all {paired} paired seeds."
+            f"{tie_width(th):.0e} per spin) on all {paired} paired seeds."
         )
     sign = (
         f"{a} higher on {c['higher']}, {b} on {c['lower']}, {same} on "

@@ -42,6 +42,11 @@ from .laws import (
     over_text,
     power_text,
 )
+from .limit_difference import (
+    limit_difference_line,
+    limit_difference_markdown,
+    limit_differences,
+)
 from .paired import TIE_RELATIVE, comparisons_per_size, head_to_head
 from .points import (
     end_point_overlaps,
@@ -72,6 +77,8 @@ class Report:
     labels: list[str] = field(default_factory=list)
     #: paired comparisons of every pair of methods at every size (paired.comparisons_per_size)
     comparisons: list[dict[str, Any]] = field(default_factory=list)
+    #: e_inf(a) - e_inf(b) of every pair of methods from paired differences (limit_difference)
+    limit_differences: list[dict[str, Any]] = field(default_factory=list)
     #: the energies per (mixture, series, n), one per seed: what the figures draw
     energies: dict[tuple[str, str, int], np.ndarray] = field(default_factory=dict, repr=False)
 
@@ -141,6 +148,7 @@ class Report:
             "cost": self.cost,
             "end_point_overlaps": self.overlaps,
             "comparisons": self.comparisons,
+            "limit_differences": self.limit_differences,
             "files": self.files,
             "units": "energy per spin H(x)/n on the unit sphere, maximization",
         }
@@ -312,6 +320,9 @@ def build_report(
         for a, b in itertools.combinations([m.name for m in spec.methods], 2)
         for c in comparisons_per_size(mix, a, b, seeds, theory[mix])
     ]
+    rep.limit_differences = limit_differences(
+        [m.name for m in spec.mixtures], methods, seeds, theory, fits, k, level, n_boot
+    )
     rep.findings = _findings(rep, seeds)
     lacking = sum(
         1
@@ -434,6 +445,9 @@ def _findings(rep: Report, seeds: dict) -> list[str]:
             line = head_to_head(mix, a, b, seeds, th, records=pair)
             if line is not None:
                 out.append(line)
+            for d in rep.limit_differences:
+                if (d["mixture"], d["a"], d["b"]) == (mix, a, b):
+                    out.append(limit_difference_line(d))
     for c in rep.cost:
         if c["exponent"] is not None:
             ends = c["median_seconds_run"]
@@ -584,6 +598,7 @@ def _markdown(rep: Report) -> str:
         *cost_markdown(rep.cost),
         "",
         *_comparison_markdown(rep.comparisons),
+        *limit_difference_markdown(rep.limit_differences),
         *overlap_markdown(rep.overlaps),
         "## Per size",
         "",
