@@ -222,8 +222,8 @@ def _summary(
         "energy": result.energy,
         "alg": info.get("alg"),
         "ground_state": gs,
-        "gap_to_alg": result.energy - info["alg"] if info.get("alg") is not None else None,
-        "gap_to_ground_state": result.energy - gs if gs is not None else None,
+        "gap_alg": result.energy - info["alg"] if info.get("alg") is not None else None,
+        "gap_gs": result.energy - gs if gs is not None else None,
         "local_max": info.get("local_max"),
         "n_positive": info.get("n_positive"),
         "grad_norm": info.get("grad_norm"),
@@ -250,8 +250,8 @@ def _table(s: dict[str, Any]) -> str:
     rows += [
         ("ALG", num(s["alg"])),
         ("GS (Parisi)", num(s["ground_state"])),
-        ("energy - ALG", num(s["gap_to_alg"])),
-        ("energy - GS", num(s["gap_to_ground_state"])),
+        ("energy - ALG", num(s["gap_alg"])),
+        ("energy - GS", num(s["gap_gs"])),
     ]
     if s["local_max"] is not None:
         if s["local_max"]:
