@@ -212,7 +212,7 @@ def execute(
     With ``args.plan_only``, print the plan and return (None, None) without running."""
     from ..model.memory import format_bytes
     from ..studies.engine import counted, run_study
-    from ..studies.estimate import estimate_seconds, largest_instance
+    from ..studies.estimate import estimate_seconds, fixed_path_notes, largest_instance
     from ..studies.report import write_report
     from ..studies.store import Store
 
@@ -254,6 +254,8 @@ def execute(
             " work",
             flush=True,
         )
+        for note in fixed_path_notes(spec):
+            say(note)
         if plan_only:
             raise _PlanShown
 

@@ -47,7 +47,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from ..algorithms.hessian_ascent import auto_steps, hessian_moves
+from ..algorithms.hessian_ascent import auto_steps, hessian_moves, stepwise_limit
 from .grid import StudySpec
 from .profile import best_time
 
@@ -58,6 +58,7 @@ __all__ = [
     "POLISH_PASSES",
     "Calibration",
     "calibrate",
+    "fixed_path_notes",
     "check_seconds",
     "estimate_from",
     "estimate_seconds",
@@ -234,3 +235,42 @@ def estimate_seconds(
     if not tasks:
         return 0.0
     return estimate_from(calibrate(spec, threads), tasks, workers, embedded)
+
+
+def fixed_path_notes(spec: StudySpec) -> list[str]:
+    """A note per Hessian-ascent method and mixture whose path has the same number of points
+    K at every size of the study (K = n/8 clamped to [25, 200] is 25 for every n < 208, and
+    ``steps`` fixes it): its energy before the polish then tends to E_K
+    (:func:`~orthoclimb.algorithms.hessian_ascent.stepwise_limit`) as n -> infinity, short of
+    ALG by a loss no n removes, so the study cannot show that series reach ALG. None for a
+    mixture with one size, or with a field (no E_K). Printed with the plan."""
+    from ..theory.algorithmic import algorithmic_energy
+
+    out = []
+    for method in spec.methods:
+        if method.name != "hessian":
+            continue
+        given = dict(method.options)["steps"]
+        series = "before its polish it" if dict(method.options)["polish"] else "its energy"
+        for m in spec.mixtures:
+            sizes = m.sizes or spec.sizes
+            ks = {auto_steps(n) if given == "auto" else given for n in sizes}
+            if len(sizes) < 2 or len(ks) != 1:
+                continue
+            k = ks.pop()
+            e_k = stepwise_limit(m.mixture, k)
+            if e_k is None:
+                continue
+            alg = algorithmic_energy(m.mixture)
+            why = "n/8 clamped to [25, 200]" if given == "auto" else "set by steps"
+            grow = (
+                "sizes from n = 208 on, where K grows, let it approach ALG"
+                if given == "auto"
+                else "a K that grows with n lets it approach ALG"
+            )
+            out.append(
+                f"note: {method.label} takes K = {k} path points at every size of {m.name}"
+                f" ({why}): {series} tends to E_K = {e_k:.4f} as n -> infinity,"
+                f" {alg - e_k:.4f} short of ALG = {alg:.4f} however large n; {grow}"
+            )
+    return out
