@@ -77,9 +77,23 @@ def test_overlaps_are_the_inner_products_of_the_two_methods_points(kept):
         a, b = by[(o["n"], o["seed"], "hessian")], by[(o["n"], o["seed"], "gradient")]
         assert o["overlap"] == float(np.dot(a, b))
         assert abs(o["overlap"]) <= 1 + 1e-12  # Cauchy-Schwarz for unit vectors
+        energies = {(r["n"], r["seed"], r["method"]): r["energy"] for r in rows}
+        assert o["energy_a"] == energies[(o["n"], o["seed"], "hessian")]
+        assert o["energy_b"] == energies[(o["n"], o["seed"], "gradient")]
     rep = build_report(kept, n_boot=200)
     assert {(s["n"], s["count"]) for s in rep.overlaps} == {(16, 3), (24, 3)}
     assert "end_point_overlaps" in rep.to_dict()
+    # every instance's overlap is exported, not only the summaries (a user trial)
+    by_run = rep.to_dict()["end_point_overlaps_by_run"]
+    assert [(o["n"], o["seed"]) for o in by_run] == [
+        (16, 0),
+        (16, 1),
+        (16, 2),
+        (24, 0),
+        (24, 1),
+        (24, 2),
+    ]
+    assert sorted(o["overlap"] for o in by_run) == sorted(o["overlap"] for o in overlaps)
     assert "end-point overlaps R = <x_a, x_b>" in rep.table()  # on the terminal too
 
 

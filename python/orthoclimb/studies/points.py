@@ -120,22 +120,24 @@ def end_point_overlaps(
     rows: list[dict[str, Any]], points: dict[str, np.ndarray], methods: list[str]
 ) -> list[dict[str, Any]]:
     """One record per instance (mixture, n, seed) and pair of methods (in the order
-    ``methods``) that both kept their end point: ``overlap`` R = <x_a, x_b>."""
-    by_instance: dict[tuple[str, int, int], dict[str, np.ndarray]] = defaultdict(dict)
+    ``methods``) that both kept their end point: ``overlap`` R = <x_a, x_b>, and the two
+    runs' energies per spin ``energy_a`` and ``energy_b`` (the report writes these records to
+    report.json as ``end_point_overlaps_by_run``)."""
+    by_instance: dict[tuple[str, int, int], dict[str, tuple[np.ndarray, float]]]
+    by_instance = defaultdict(dict)
     for r in rows:
         if r["task_id"] in points:
-            by_instance[(r["mixture"], int(r["n"]), int(r["seed"]))][r["method"]] = points[
-                r["task_id"]
-            ]
+            key = (r["mixture"], int(r["n"]), int(r["seed"]))
+            by_instance[key][r["method"]] = (points[r["task_id"]], float(r["energy"]))
     out = []
     for (mixture, n, seed), xs in by_instance.items():
         kept = [m for m in methods if m in xs]
         for i, a in enumerate(kept):
             for b in kept[i + 1 :]:
-                overlap = float(np.dot(xs[a], xs[b]))
+                (xa, ea), (xb, eb) = xs[a], xs[b]
                 out.append(
                     {"mixture": mixture, "n": n, "seed": seed, "method_a": a, "method_b": b,
-                     "overlap": overlap}
+                     "overlap": float(np.dot(xa, xb)), "energy_a": ea, "energy_b": eb}
                 )  # fmt: skip
     return out
 

@@ -73,6 +73,8 @@ class Report:
     files: dict[str, str] = field(default_factory=dict)
     cost: list[dict[str, Any]] = field(default_factory=list)
     overlaps: list[dict[str, Any]] = field(default_factory=list)
+    #: the overlap of every instance and pair of methods behind ``overlaps``
+    overlaps_by_run: list[dict[str, Any]] = field(default_factory=list)
     #: the series of the groups and fits: the methods, then "<method> before polish"
     labels: list[str] = field(default_factory=list)
     #: paired comparisons of every pair of methods at every size (paired.comparisons_per_size)
@@ -147,6 +149,7 @@ class Report:
             "missing_tasks": self.missing,
             "cost": self.cost,
             "end_point_overlaps": self.overlaps,
+            "end_point_overlaps_by_run": self.overlaps_by_run,
             "comparisons": self.comparisons,
             "limit_differences": self.limit_differences,
             "files": self.files,
@@ -312,7 +315,9 @@ def build_report(
     rep = Report(spec, groups, fits, theory, [], missing, cost=cost_table(rows, degrees))
     rep.labels, rep.energies = labels, data
     points, unreadable = readable_end_points(Path(folder), rows)  # sweep --keep-points
-    rep.overlaps = overlap_summary(end_point_overlaps(rows, points, [m.name for m in spec.methods]))
+    by_run = end_point_overlaps(rows, points, [m.name for m in spec.methods])
+    rep.overlaps_by_run = sorted(by_run, key=lambda o: (order[o["mixture"]], o["n"], o["seed"]))
+    rep.overlaps = overlap_summary(by_run)
     seeds = {key: v for key, v in by_seed.items() if not key[1].endswith(BEFORE_POLISH)}
     rep.comparisons = [
         c
