@@ -30,7 +30,7 @@ def test_a_non_symmetric_tensor_is_refused():
     [
         ({3: S}, [1.0, 1.0], ShapeError, r"degree-3 tensor must have shape \(n,\)\*3"),
         ({2: S, 1: np.ones(3)}, [1.0, 1.0], ShapeError, "n = 2, as for the other degrees"),
-        ({9: S}, [1.0, 1.0], ValueError, "degrees must be integers in 1..8, got 9"),
+        ({9: S}, [1.0, 1.0], ValueError, "degree p must be in 1..8, got p = 9"),
         ({True: np.ones(2)}, [1.0, 1.0], ValueError, "got True"),
         ("2:1", [1.0, 1.0], TypeError, "non-empty mapping"),
         ({}, [1.0, 1.0], TypeError, "non-empty mapping"),

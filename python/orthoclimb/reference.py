@@ -24,6 +24,7 @@ import numpy as np
 from .errors import ShapeError
 from .model.arrays import as_directions, as_float_array, as_point
 from .model.dense import require_symmetric
+from .model.mixture import _check_degree
 
 
 def _checked(tensors: object, x: object) -> tuple[dict[int, np.ndarray], np.ndarray]:
@@ -38,8 +39,7 @@ def _checked(tensors: object, x: object) -> tuple[dict[int, np.ndarray], np.ndar
     out: dict[int, np.ndarray] = {}
     n = None
     for p, t in tensors.items():
-        if isinstance(p, bool) or not isinstance(p, (int, np.integer)) or not 1 <= p <= 8:
-            raise ValueError(f"degrees must be integers in 1..8, got {p!r}")
+        p = _check_degree(p)  # the Mixture's own check: the same words for a bad degree
         arr = as_float_array(t, f"the degree-{p} tensor")
         if (
             arr.ndim != p
@@ -53,7 +53,7 @@ def _checked(tensors: object, x: object) -> tuple[dict[int, np.ndarray], np.ndar
             )
         n = arr.shape[0]
         require_symmetric(arr, advice=" symmetrize it first (the formulas need a symmetric T)")
-        out[int(p)] = arr
+        out[p] = arr
     return out, as_point(x, n)
 
 
