@@ -199,3 +199,24 @@ def test_from_xi_overflow_names_the_coefficients_given():
     # passed (a review)
     with pytest.raises(MixtureError, match=r"xi coefficients gamma_p\^2 \{2: 1e\+308\}"):
         Mixture.from_xi({2: 1e308})
+
+
+@pytest.mark.parametrize(
+    ("text", "squared", "shown"),
+    [
+        ("2:1,4:0.0625", True, "q^2 + 0.0625 q^4"),
+        ("1:0.5,3:1", False, "0.25 q + q^3"),
+        ("2:0.3,3:0.7", True, "0.3 q^2 + 0.7 q^3"),  # gamma^2 = 0.30000000000000004
+    ],
+)
+def test_xi_text_reads_back_as_the_polynomial_xi(text, squared, shown):
+    # the text, read back term by term, evaluates to xi(q) (to its six digits)
+    m = Mixture.parse(text, squared=squared)
+    assert m.xi_text() == shown
+    q = np.linspace(0.0, 1.0, 7)
+    back = np.zeros_like(q)
+    for term in shown.split(" + "):
+        coeff, _, power = term.rpartition(" ")
+        p = int(power.partition("^")[2] or 1)
+        back += float(coeff or 1.0) * q**p
+    np.testing.assert_allclose(back, m.xi(q), rtol=1e-6)

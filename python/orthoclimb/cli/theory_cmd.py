@@ -50,14 +50,6 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
     )
 
 
-def _xi_text(mixture: Mixture) -> str:
-    terms = []
-    for p, c in mixture.xi_coefficients.items():
-        power = "q" if p == 1 else f"q^{p}"
-        terms.append(power if c == 1.0 else f"{c:.6g} {power}")
-    return " + ".join(terms)
-
-
 def _pure(mixture: Mixture, gs_value: float) -> dict[str, Any] | None:
     """Complexity cross-check for a pure model with p >= 3 (energies scale with gamma_p)."""
     if len(mixture.degrees) != 1 or mixture.degrees[0] < 3:
@@ -78,7 +70,7 @@ def _report(mixture: Mixture, tol: float) -> dict[str, Any]:
     verdict = full_rsb(mixture)
     gs = ground_state(mixture, tol=tol)
     return {
-        "mixture": {"gammas": mixture.to_dict(), "xi": _xi_text(mixture)},
+        "mixture": {"gammas": mixture.to_dict(), "xi": mixture.xi_text()},
         "full_rsb": {
             "holds": verdict.holds,
             "failing_intervals": [list(iv) for iv in verdict.failing_intervals],

@@ -252,6 +252,17 @@ class Mixture:
         """The text form read by :meth:`parse` (``repr`` of each gamma, so it round-trips)."""
         return ",".join(f"{p}:{g!r}" for p, g in self._gammas.items())
 
+    def xi_text(self) -> str:
+        """xi(q) as a polynomial for people, "q^2 + 0.0625 q^4" (coefficients gamma_p^2 to six
+        significant digits, a coefficient 1 left out): a mixture given by ``--xi`` reads as
+        typed, where :meth:`to_text` gives its gammas."""
+        terms = []
+        for p, c in self.xi_coefficients.items():
+            power = "q" if p == 1 else f"q^{p}"
+            coeff = f"{c:.6g}"
+            terms.append(power if coeff == "1" else f"{coeff} {power}")
+        return " + ".join(terms)
+
     def to_dict(self) -> dict[str, float]:
         """JSON-friendly form: degree (as a string) -> gamma."""
         return {str(p): g for p, g in self._gammas.items()}

@@ -256,6 +256,7 @@ def build_report(
         tv = theory_values(m.gammas)
         theory[m.name] = {
             "gammas": m.mixture.to_text(),
+            "xi": m.mixture.xi_text(),
             "alg": tv.alg,
             "gs": tv.gs,
             "full_rsb": tv.full_rsb,
@@ -569,12 +570,12 @@ def _markdown(rep: Report) -> str:
         "",
         "## Theory",
         "",
-        "| mixture | gammas | full RSB | GS = ALG predicted | ALG | GS | GS - ALG |",
-        "| --- | --- | --- | --- | ---: | ---: | ---: |",
+        "| mixture | gammas | xi(q) | full RSB | GS = ALG predicted | ALG | GS | GS - ALG |",
+        "| --- | --- | --- | --- | --- | ---: | ---: | ---: |",
     ]
     for name, th in rep.theory.items():
         lines.append(
-            f"| {name} | {th['gammas']} | {'holds' if th['full_rsb'] else 'fails'} | "
+            f"| {name} | {th['gammas']} | {th['xi']} | {'holds' if th['full_rsb'] else 'fails'} | "
             f"{'yes' if th.get('gs_equals_alg', th['full_rsb']) else 'no'} | "
             f"{th['alg']:.6f} | {th['gs']:.6f} | {th['gap_gs_alg']:.2e} |"
         )
