@@ -45,6 +45,14 @@ pub enum CoreError {
     Interrupted,
     /// A kernel's result is not finite although its inputs were: float64 overflowed.
     Overflow { what: &'static str },
+    /// An input (a point, a direction, a given coefficient) holds a NaN or an infinity, or a
+    /// finite value beyond the range of the storage type `dtype` it is rounded to.
+    NonFiniteInput {
+        what: String,
+        index: usize,
+        value: f64,
+        dtype: &'static str,
+    },
     /// Sampled coefficients of degree p could exceed the storage type's largest value.
     StorageRange {
         p: usize,
@@ -107,6 +115,21 @@ impl fmt::Display for CoreError {
                 "the {what} overflowed float64: the result is not finite although every input \
                  is (points are meant to lie on the unit sphere |x| = 1; check the inputs' scale)"
             ),
+            CoreError::NonFiniteInput {
+                what,
+                index,
+                value,
+                dtype,
+            } => {
+                if value.is_finite() {
+                    write!(
+                        f,
+                        "{what}: the value {value:e} at index {index} is beyond {dtype}'s range"
+                    )
+                } else {
+                    write!(f, "{what}: non-finite value {value} at index {index}")
+                }
+            }
             CoreError::StorageRange {
                 p,
                 gamma,

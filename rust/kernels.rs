@@ -555,7 +555,7 @@ pub(crate) mod tests {
                 .collect();
             let parts: Vec<(usize, &[f64])> = wide.iter().map(|(p, c)| (*p, &c[..])).collect();
             let (_, _, want32) = naive(
-                &Packed::<f64>::from_coefficients(&Exec::inline(), n, &parts).unwrap(),
+                &Packed::<f64>::from_coefficients(n, &parts, || Ok(())).unwrap(),
                 &x,
             );
             let got32 = hessian(&pool(2), &f32poly, &x).unwrap();

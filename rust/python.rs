@@ -57,7 +57,7 @@ fn to_py_err(py: Python<'_>, err: CoreError) -> PyErr {
         | CoreError::NoDegrees
         | CoreError::InvalidGamma { .. } => "MixtureError",
         CoreError::LengthMismatch { .. } | CoreError::CoefficientCount { .. } => "ShapeError",
-        CoreError::Overflow { .. } => "NonFiniteError",
+        CoreError::Overflow { .. } | CoreError::NonFiniteInput { .. } => "NonFiniteError",
         CoreError::AllocationFailed { .. } | CoreError::SizeOverflow { .. } => {
             return package_error(
                 py,
@@ -188,9 +188,29 @@ fn slice2<'a>(a: &'a PyReadonlyArray2<'_, f64>, name: &str) -> PyResult<&'a [f64
 /// point or direction, against a pass over all the coefficients. It does not make such writes
 /// safe: NumPy releases the GIL while it writes arrays of 500 elements or more, so one can still
 /// be under way during the copy. Writing to an input from another thread during a call is not
-/// supported; the copy only keeps the pass itself on one snapshot.
+/// supported; the copy only keeps the pass itself on one snapshot. The copy is checked finite
+/// (the Python layer checked the array before, but a write in between, or a direct call of
+/// this module, would otherwise reach the kernel and read as an overflow of its result).
 fn input1(a: &PyReadonlyArray1<'_, f64>, name: &str) -> PyResult<Vec<f64>> {
-    slice1(a, name).map(<[f64]>::to_vec)
+    let copy = slice1(a, name)?.to_vec();
+    finite_input(a.py(), name, &copy)?;
+    Ok(copy)
+}
+
+/// [`CoreError::NonFiniteInput`] for the first NaN or infinity of the copied input `values`.
+fn finite_input(py: Python<'_>, name: &str, values: &[f64]) -> PyResult<()> {
+    match values.iter().position(|v| !v.is_finite()) {
+        None => Ok(()),
+        Some(index) => Err(to_py_err(
+            py,
+            CoreError::NonFiniteInput {
+                what: name.to_string(),
+                index,
+                value: values[index],
+                dtype: "float64",
+            },
+        )),
+    }
 }
 
 /// [`input1`] for an array of shape (rows, cols), checking the side that must be n.
@@ -212,6 +232,7 @@ fn input2(
     // a batch may be large: a failed allocation is an InsufficientMemoryError, not an abort
     let mut copy = crate::error::try_zeroed::<f64>(src.len()).map_err(|e| to_py_err(py, e))?;
     copy.copy_from_slice(src);
+    finite_input(py, name, &copy)?;
     Ok(copy)
 }
 
@@ -323,7 +344,12 @@ impl PyPacked {
         Ok(PyPacked { inner })
     }
 
-    /// Wraps given coefficient arrays (float64, SPEC order), one per degree.
+    /// Wraps given coefficient arrays (float64, SPEC order), one per degree. The copy runs on
+    /// the calling thread with the GIL held, unlike the kernels: it reads the caller's own
+    /// arrays, which another Python thread could resize (freeing their buffer) or fill with
+    /// values the Python layer's check never saw if the GIL were released. Between pieces of
+    /// [`crate::storage::COPY_PIECE`] values it runs Python's signal handlers, so Ctrl-C ends a
+    /// copy of gigabytes early; each stored value is checked finite by the core.
     #[staticmethod]
     #[pyo3(signature = (n, degrees, arrays, dtype="float64"))]
     fn from_coefficients(
@@ -342,14 +368,28 @@ impl PyPacked {
             .map(|a| slice1(a, "coefficients"))
             .collect::<PyResult<_>>()?;
         let parts: Vec<(usize, &[f64])> = degrees.into_iter().zip(slices).collect();
-        let inner = run(py, "packing", (u64::MAX, usize::MAX), |exec| {
-            Ok(if f32_storage {
-                Storage::F32(Packed::from_coefficients(exec, n, &parts)?)
-            } else {
-                Storage::F64(Packed::from_coefficients(exec, n, &parts)?)
+        let mut raised: Option<PyErr> = None;
+        let mut poll = || {
+            py.check_signals().map_err(|e| {
+                raised = Some(e);
+                CoreError::Interrupted
             })
-        })?;
-        Ok(PyPacked { inner })
+        };
+        let built = catch_unwind(AssertUnwindSafe(|| {
+            if f32_storage {
+                Packed::from_coefficients(n, &parts, &mut poll).map(Storage::F32)
+            } else {
+                Packed::from_coefficients(n, &parts, &mut poll).map(Storage::F64)
+            }
+        }));
+        if let Some(err) = raised {
+            return Err(err); // a signal handler's exception (KeyboardInterrupt) is the result
+        }
+        match built {
+            Ok(Ok(inner)) => Ok(PyPacked { inner }),
+            Ok(Err(e)) => Err(to_py_err(py, e)),
+            Err(_) => Err(internal_error(py, "packing")),
+        }
     }
 
     #[getter]
@@ -517,7 +557,13 @@ impl PyPacked {
                     "coefficient range {start}..{stop} for degree {p} starts after it stops"
                 )));
             }
-            block.coeffs[start..stop].iter().map(|&c| crate::storage::Coef::to_f64(c)).collect()
+            // a failed allocation is an InsufficientMemoryError, not an abort (collect aborts)
+            let mut out = Vec::new();
+            out.try_reserve_exact(stop - start).map_err(|_| {
+                to_py_err(py, CoreError::AllocationFailed { bytes: (stop - start) * 8 })
+            })?;
+            out.extend(block.coeffs[start..stop].iter().map(|&c| crate::storage::Coef::to_f64(c)));
+            out
         });
         Ok(data.into_pyarray(py))
     }
@@ -597,7 +643,10 @@ fn kernel_path() -> &'static str {
     simd_path()
 }
 
-#[pymodule]
+/// `gil_used = true`: the inputs' copies ([`input1`], [`input2`]) and `from_coefficients` rely
+/// on the GIL to keep other Python threads from resizing an array while it is read; a
+/// free-threaded Python re-enables the GIL on import rather than run without that guard.
+#[pymodule(gil_used = true)]
 fn _core(m: &Bound<'_, PyModule>) -> PyResult<()> {
     m.add("__version__", env!("CARGO_PKG_VERSION"))?;
     m.add("MAX_DEGREE", crate::combinatorics::MAX_DEGREE)?;

@@ -10,7 +10,7 @@ use crate::error::{try_zeroed, CoreError, ZeroBits};
 use crate::exec::Exec;
 use crate::sampling::{coefficient_bound, fill_block, Disorder};
 
-/// Values copied between two polls of the stop flag in [`Packed::from_coefficients`]
+/// Values copied between two calls of the `between` hook of [`Packed::from_coefficients`]
 /// (8 MiB of float64, about a millisecond).
 pub const COPY_PIECE: usize = 1 << 20;
 
@@ -177,13 +177,16 @@ impl<T: Coef> Packed<T> {
         Ok(Self::sorted(n, blocks))
     }
 
-    /// Wraps user-given coefficients (f64, rounded to T), one array per degree, copied in
-    /// pieces of [`COPY_PIECE`] values between which a stop request of `exec` ends the call
-    /// with [`CoreError::Interrupted`].
+    /// Wraps user-given coefficients (f64, rounded to T), one array per degree, copied on the
+    /// calling thread in pieces of [`COPY_PIECE`] values; `between` runs before each piece,
+    /// and an error from it ends the call (the binding polls for Ctrl-C there, a test may
+    /// return [`CoreError::Interrupted`]). Every stored value is checked finite after its
+    /// rounding to T ([`CoreError::NonFiniteInput`]: a NaN or infinity, or a value beyond
+    /// f32's range), so a check the caller made before the copy is not the only one.
     pub fn from_coefficients(
-        exec: &Exec,
         n: usize,
         parts: &[(usize, &[f64])],
+        mut between: impl FnMut() -> Result<(), CoreError>,
     ) -> Result<Self, CoreError> {
         let degrees: Vec<usize> = parts.iter().map(|t| t.0).collect();
         let lens = block_lengths(n, &degrees)?;
@@ -206,8 +209,17 @@ impl<T: Coef> Packed<T> {
             crate::pages::advise_huge(&mut coeffs);
             // in pieces, so that a stop request (Ctrl-C) ends a copy of gigabytes early
             for piece in data.chunks(COPY_PIECE) {
-                exec.check()?;
+                between()?;
+                let start = coeffs.len();
                 coeffs.extend(piece.iter().map(|&v| T::from_f64(v)));
+                if let Some(k) = coeffs[start..].iter().position(|c| !c.to_f64().is_finite()) {
+                    return Err(CoreError::NonFiniteInput {
+                        what: format!("the degree-{p} coefficients"),
+                        index: start + k,
+                        value: piece[k],
+                        dtype: T::NAME,
+                    });
+                }
             }
             blocks.push(Block {
                 degree: p,
@@ -345,29 +357,58 @@ mod tests {
         }
     }
 
-    /// A stop request ends the copy between pieces: the flag set before the call stops it
-    /// at the first piece, for an array of several pieces and for a short one.
+    /// The hook runs before each piece, and its error ends the copy: a stop at the second
+    /// piece of a two-piece array, and at the first of a short one.
     #[test]
     fn from_coefficients_stops_when_asked() {
         let big = vec![0.5; 3 * COPY_PIECE];
         let n = 2 * COPY_PIECE; // degree 1: n coefficients, two pieces
-        let exec = Exec::inline();
-        exec.request_stop();
-        let out = Packed::<f32>::from_coefficients(&exec, n, &[(1, &big[..n])]);
+        let mut calls = 0;
+        let out = Packed::<f32>::from_coefficients(n, &[(1, &big[..n])], || {
+            calls += 1;
+            if calls == 2 {
+                Err(CoreError::Interrupted)
+            } else {
+                Ok(())
+            }
+        });
+        assert!(matches!(out, Err(CoreError::Interrupted)) && calls == 2);
+        let out =
+            Packed::<f64>::from_coefficients(3, &[(2, &big[..6])], || Err(CoreError::Interrupted));
         assert!(matches!(out, Err(CoreError::Interrupted)));
-        let out = Packed::<f64>::from_coefficients(&exec, 3, &[(2, &big[..6])]);
-        assert!(matches!(out, Err(CoreError::Interrupted)));
-        let fine = Packed::<f64>::from_coefficients(&Exec::inline(), n, &[(1, &big[..n])]);
+        let fine = Packed::<f64>::from_coefficients(n, &[(1, &big[..n])], || Ok(()));
         assert_eq!(fine.unwrap().block(1).unwrap().coeffs.len(), n);
+    }
+
+    /// A NaN, an infinity, or a value beyond f32's range in float32 storage is refused by
+    /// index, in any piece; f64 storage takes 1e300.
+    #[test]
+    fn from_coefficients_refuses_values_that_are_not_finite_once_stored() {
+        let n = COPY_PIECE + 10; // degree 1: two pieces
+        for (value, index) in [(f64::NAN, 3), (f64::INFINITY, COPY_PIECE + 4), (-1e300, 7)] {
+            let mut data = vec![0.25; n];
+            data[index] = value;
+            let out = Packed::<f32>::from_coefficients(n, &[(1, &data)], || Ok(()));
+            match out {
+                Err(CoreError::NonFiniteInput {
+                    index: i, dtype, ..
+                }) => {
+                    assert_eq!((i, dtype), (index, "float32"));
+                }
+                _ => panic!("{value} at {index} was not refused"),
+            }
+            let wide = Packed::<f64>::from_coefficients(n, &[(1, &data)], || Ok(()));
+            assert_eq!(wide.is_ok(), value.is_finite());
+        }
     }
 
     #[test]
     fn from_coefficients_checks_lengths() {
         let data = vec![1.0; 6];
-        let ok = Packed::<f64>::from_coefficients(&Exec::inline(), 3, &[(2, &data)]).unwrap();
+        let ok = Packed::<f64>::from_coefficients(3, &[(2, &data)], || Ok(())).unwrap();
         assert_eq!(ok.block(2).unwrap().coeffs, data);
         assert!(ok.block(3).is_err());
-        let bad = Packed::<f64>::from_coefficients(&Exec::inline(), 3, &[(2, &data[..5])]);
+        let bad = Packed::<f64>::from_coefficients(3, &[(2, &data[..5])], || Ok(()));
         assert!(matches!(
             bad,
             Err(CoreError::CoefficientCount {

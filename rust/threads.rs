@@ -67,8 +67,10 @@ pub fn default_threads() -> Result<usize, CoreError> {
         Err(std::env::VarError::NotUnicode(raw)) => Err(CoreError::InvalidThreads {
             detail: format!("{ENV_VAR} must be an integer in 1..{MAX_THREADS}, got {raw:?}"),
         }),
+        // capped: a host of more than MAX_THREADS logical processors would otherwise make
+        // every call fail its thread check
         Err(std::env::VarError::NotPresent) => Ok(std::thread::available_parallelism()
-            .map(|n| n.get())
+            .map(|n| n.get().min(MAX_THREADS))
             .unwrap_or(1)),
     }
 }

@@ -379,3 +379,80 @@ def test_values_beyond_float64_are_named_as_such():
         h.gradient([10**400, 0, 0, 0])
     x = [2**64, 0, 0, 0]  # fits float64: converted like any integer
     assert h.energy(x) == h.energy(np.array(x, dtype=np.float64))
+
+
+def test_the_core_checks_its_own_copies_of_the_inputs(ham):
+    # the Python layer checks every input before the call; the core checks the copies it
+    # works on too, since a write from another thread can come in between (a review made NaN
+    # coefficients pass the Python check 1 time in 20 that way, and the kernels then blamed a
+    # float64 overflow "although every input is" finite). Called here directly, unchecked.
+    from orthoclimb import _core
+
+    core = ham._core
+    bad = np.linspace(0.1, 0.6, N)
+    bad[2] = np.nan
+    with pytest.raises(NonFiniteError, match="x: non-finite value NaN at index 2"):
+        core.energy(bad)
+    with pytest.raises(NonFiniteError, match="v: non-finite value inf at index 1"):
+        core.hvp(np.full(N, 0.1), np.array([0.0, np.inf, 0, 0, 0, 0]))
+    with pytest.raises(NonFiniteError, match="x: non-finite value -inf at index 7"):
+        core.energy_batch(
+            np.concatenate([np.full(N + 1, 0.1), [-np.inf], np.zeros(4)]).reshape(2, N)
+        )
+    coeffs = np.ones(math.comb(N, 1))
+    coeffs[4] = np.nan
+    with pytest.raises(
+        NonFiniteError, match="degree-1 coefficients: non-finite value NaN at index 4"
+    ):
+        _core.PackedPolynomial.from_coefficients(N, [1], [coeffs], "float64")
+    coeffs[4] = 1e300  # finite, but not in float32
+    with pytest.raises(NonFiniteError, match="1e300 at index 4 is beyond float32's range"):
+        _core.PackedPolynomial.from_coefficients(N, [1], [coeffs], "float32")
+    assert _core.PackedPolynomial.from_coefficients(N, [1], [coeffs], "float64").nbytes == 8 * N
+
+
+def test_a_coefficient_copy_beyond_the_address_space_limit_is_an_error_not_an_abort(tmp_path):
+    # coefficients() builds a float64 copy; when the allocator refused it, Rust's collect
+    # aborted the process (a review: SIGABRT, exit 134, under ulimit -v). A child process
+    # with an address-space limit 150 MB above its own size asks for a 400 MB copy.
+    import subprocess
+    import sys
+
+    code = (
+        "import resource, orthoclimb as oc\n"
+        "from orthoclimb.errors import InsufficientMemoryError\n"
+        "h = oc.Hamiltonian.sample(oc.Mixture({1: 1.0}), 50_000_000, seed=0, dtype='float32')\n"
+        "size = int(open('/proc/self/statm').read().split()[0]) * resource.getpagesize()\n"
+        "resource.setrlimit(resource.RLIMIT_AS, (size + 150 * 2**20, resource.RLIM_INFINITY))\n"
+        "try:\n"
+        "    h.coefficients(1)\n"
+        "except InsufficientMemoryError as exc:\n"
+        "    print('refused:', exc)\n"
+    )
+    proc = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, timeout=120)
+    assert proc.returncode == 0, proc.stderr[-2000:]
+    assert "refused: could not allocate 400000000 bytes" in proc.stdout, proc.stdout
+
+
+def test_a_signal_handler_ends_a_long_coefficient_copy():
+    # the copy holds the GIL (it reads the caller's arrays) and runs Python's signal handlers
+    # between pieces of 2^20 values: a handler's exception ends it and is the call's result
+    import signal
+
+    from orthoclimb import _core
+
+    class Stop(Exception):
+        pass
+
+    def stop(signum, frame):
+        raise Stop
+
+    big = np.full(50_000_000, 0.5)  # 400 MB read, far more than 5 ms of copying
+    old = signal.signal(signal.SIGALRM, stop)
+    try:
+        signal.setitimer(signal.ITIMER_REAL, 0.005)
+        with pytest.raises(Stop):
+            _core.PackedPolynomial.from_coefficients(big.size, [1], [big], "float32")
+    finally:
+        signal.setitimer(signal.ITIMER_REAL, 0)
+        signal.signal(signal.SIGALRM, old)
