@@ -597,3 +597,9 @@ def test_the_stepwise_limit_is_the_paths_own_prediction():
     assert stepwise_limit(mix, 25) < oc.algorithmic_energy(mix)
     assert stepwise_limit(oc.Mixture({2: 1.0}), 25) == pytest.approx(2**0.5 * 24 / 25, rel=1e-12)
     assert stepwise_limit(oc.Mixture({1: 1.0, 3: 1.0}), 25) is None
+    # bad input is named by this function, and steps are checked with a field too (an
+    # independent check of the theory: "algorithmic_threshold() takes ...", and None for -5)
+    with pytest.raises(TypeError, match=r"stepwise_limit\(\) takes an orthoclimb.Mixture"):
+        stepwise_limit({2: 1.0}, 5)
+    with pytest.raises(ValueError, match="steps must be >= 1, got -5"):
+        stepwise_limit(oc.Mixture({1: 1.0, 3: 1.0}), -5)

@@ -256,3 +256,17 @@ def test_parisi_b_is_printed_to_the_digits_it_has():
     (line,) = [x for x in buf.getvalue().splitlines() if x.startswith("Parisi B")]
     shown = float(line.split()[2])
     assert shown == pytest.approx(2.75**-0.5, abs=5e-5) and len(line.split()[2]) <= 6
+
+
+def test_the_ground_state_is_printed_to_the_solvers_tolerance(capsys):
+    # xi = 0.3 q + q^3: the free one-jump optimum is 1.77942008718 (an independent solve of
+    # the Chen-Sen functional); the solver at tol 1e-6 returns a value about 5e-7 above it,
+    # which was printed to ten decimals. Now: six at tol 1e-6, ten at tol 1e-10
+    import re
+
+    for tol, decimals in (("1e-6", 6), ("1e-10", 10)):
+        assert main(["theory", "--xi", "1:0.3,3:1", "--tol", tol]) == 0
+        row = next(r for r in capsys.readouterr().out.splitlines() if r.startswith("GS (Parisi)"))
+        value = re.search(r"GS \(Parisi\)\s+(\d+\.(\d+))", row)
+        assert len(value.group(2)) == decimals, row
+        assert float(value.group(1)) == pytest.approx(1.77942008718, abs=float(tol))

@@ -19,6 +19,14 @@ def test_pure_two_spin_holds():
     # xi = q^2: xi'' = 2 is constant, so xi''^(-1/2) is constant, hence concave.
     verdict = full_rsb(Mixture({2: 1.0}))
     assert verdict.holds and verdict.failing_intervals == [] and verdict.gs_equals_alg
+    # but the Parisi measure is not full RSB: alpha = -(xi''^(-1/2))' = 0, replica symmetric
+    # (an independent check of the theory found "holds: ... concave" printed above "alpha = 0,
+    # replica symmetric"); with a field too (q xi'' = 2q < xi' = h + 2q: q_hat = 1)
+    assert verdict.constant_curvature
+    assert "replica symmetric (no RSB); GS = ALG" in verdict.describe()
+    with_field = full_rsb(Mixture({1: 0.5, 2: 1.0}))
+    assert with_field.constant_curvature and with_field.describe().endswith("= sqrt(xi'(1))")
+    assert not full_rsb(Mixture({2: 1.0, 4: 0.25})).constant_curvature
 
 
 @pytest.mark.parametrize("p", range(3, 9))
@@ -217,9 +225,9 @@ def test_a_failing_interval_narrower_than_six_digits_is_printed_apart():
 
 
 def test_a_field_with_q_hat_one_is_described_as_replica_symmetric_not_full_rsb():
-    # xi = q + q^2: q xi''(q) = 2q < xi'(q) = 1 + 2q on (0, 1], so q_hat = 1 (the root of
-    # q xi'' = xi' does not lie in (0, 1)) and GS = ALG = sqrt(xi'(1)) = sqrt(3)
-    verdict = full_rsb(Mixture({1: 1.0, 2: 1.0}))
+    # xi = q + 0.09 q^3: q xi''(q) = 0.54 q^2 < xi'(q) = 1 + 0.27 q^2 on (0, 1], so q_hat = 1
+    # (the root of q xi'' = xi' does not lie in (0, 1)) and GS = ALG = sqrt(xi'(1))
+    verdict = full_rsb(Mixture({1: 1.0, 3: 0.3}))
     assert verdict.q_hat == 1.0
     text = verdict.describe()
     assert "replica symmetric (no RSB at all)" in text and "not needed here" in text

@@ -83,6 +83,7 @@ from ..model.hamiltonian import Hamiltonian
 from ..model.mixture import Mixture
 from ..runtime import one_blas_thread
 from ..theory import algorithmic_energy, algorithmic_threshold, hessian_edge, path_energy
+from ..theory._checks import check_mixture
 from ._checks import (
     MAX_STEPS,
     check_count,
@@ -152,17 +153,20 @@ def _ends_on_sphere(q_hat: float) -> bool:
 
 
 def stepwise_limit(mixture: Mixture, steps: int) -> float | None:
-    """The energy per spin, as n -> infinity, at the end of a path of ``steps`` = K points from
-    a random start: the steps' own sum E_K(1) of :func:`_stepwise_energy` over the radii^2
+    """The predicted energy per spin, as n -> infinity, at the end of a path of ``steps`` = K
+    points from a random start (a second-order prediction, each step's gain taken at the
+    Hessian's predicted edge, not a proved limit): the steps' own sum E_K(1) of
+    :func:`_stepwise_energy` over the radii^2
     q_i = (i + 1)/K, i = 0..K-1, the run's (``path["predicted_energy_steps"]``' last value).
     It falls short of ALG = int_0^1 f, f = sqrt(xi''), by about int_0^{1/K} f (the start's
     radius, which a random direction gains nothing on) plus (f(1) - f(1/K)) / (2K) (the steps'
     Riemann sum): 1.32/K at K = 25 and 1.27/K at K = 100 for the pure 3-spin model, 0.061 at
     K = 25 for xi = q^2 + q^4/16, a loss a larger n does not remove. None for a mixture with a
     field, whose first stage ends at q_hat > 0 instead of starting at random."""
+    mixture = check_mixture(mixture, "stepwise_limit")
+    k = check_count(steps, "steps", minimum=1)
     if algorithmic_threshold(mixture) > 0.0:
         return None
-    k = check_count(steps, "steps", minimum=1)
     return float(_stepwise_energy(mixture, np.arange(1, k + 1) / k, 0.0)[-1])
 
 

@@ -120,8 +120,10 @@ def path_energy(mixture: Mixture, q: Any) -> Any:
 
 
 def algorithmic_energy(mixture: Mixture) -> float:
-    """ALG: the energy per spin the best known efficient ascent reaches (Subag 2018,
-    arXiv:1812.04588; Montanari 2019; El Alaoui, Montanari and Sellke 2020).
+    """ALG: the energy per spin the best known efficient ascent reaches on the sphere: Hessian
+    ascent attains it (Subag 2018, arXiv:1812.04588), and no algorithm whose output is
+    Lipschitz in the disorder exceeds it (Huang and Sellke 2021, arXiv:2110.07847, where the
+    field version is stated too).
 
     ALG = sqrt(q_hat xi'(q_hat)) + int_{q_hat}^1 sqrt(xi''(q)) dq, i.e. ``path_energy(mixture,
     1.0)``; without a field this is int_0^1 sqrt(xi''(q)) dq. For a pure linear mixture (p = 1

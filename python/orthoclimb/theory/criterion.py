@@ -2,7 +2,10 @@
 
 By arXiv:1812.04588 (for mixtures without a field), the zero-temperature Parisi measure has
 support [0, 1] exactly when f(q) = xi''(q)^(-1/2) is concave on (0, 1]; then the ground-state
-energy equals ALG and Hessian ascent reaches it.
+energy equals ALG and Hessian ascent reaches it. One case is degenerate: with no degree above 2,
+xi'' is constant, f is affine (concave, so GS = ALG still holds), and alpha = -f' = 0: the
+solution is replica symmetric, with no RSB at all (pure p = 2: GS = ALG = sqrt(2 xi(1))). The
+verdict says so (``describe``); for a polynomial xi it is the only affine case.
 
 How it is computed. With f = xi''^(-1/2),
 
@@ -75,6 +78,8 @@ class FullRSBVerdict:
         gs_equals_alg: True when the function is concave on [q_hat, 1], which is what predicts
             GS = ALG; equal to ``holds`` without a field.
         linear: True for a pure field (p = 1 only), where xi'' = 0 and the test is void.
+        constant_curvature: True when no degree exceeds 2 (and one is 2): xi'' is constant,
+            the criterion holds trivially and the solution is replica symmetric.
     """
 
     holds: bool
@@ -82,11 +87,18 @@ class FullRSBVerdict:
     q_hat: float
     gs_equals_alg: bool
     linear: bool
+    constant_curvature: bool = False
 
     def describe(self) -> str:
         """A one-line human-readable verdict."""
         if self.linear:
             return "no full-RSB region: xi'' = 0 (linear polynomial), GS = ALG = gamma_1"
+        if self.holds and self.constant_curvature:  # a field gives q_hat = 1 here
+            return (
+                "holds: xi'' is constant (no degree above 2), so xi''^(-1/2) is affine, alpha"
+                " = 0 and the solution is replica symmetric (no RSB); GS = ALG"
+                + (" = sqrt(xi'(1))" if self.q_hat >= 1.0 else "")
+            )
         if self.holds:
             text = "holds: xi''^(-1/2) is concave on (0, 1]"
         else:
@@ -228,4 +240,5 @@ def full_rsb(mixture: Mixture) -> FullRSBVerdict:
         q_hat=q_hat,
         gs_equals_alg=not on_support,
         linear=False,
+        constant_curvature=mixture.max_degree == 2,
     )
