@@ -164,6 +164,7 @@ def test_without_keep_points_nothing_is_kept_and_the_report_has_no_section(tmp_p
     assert load_end_points(folder) == {}
     assert all("end_point_sha256" not in r for r in _rows(folder))
     assert "Overlaps of end points" not in (folder / "report.md").read_text()
+    assert not (folder / "overlaps.png").exists()
     assert json.loads((folder / "report.json").read_text())["end_point_overlaps"] == []
 
 
@@ -235,3 +236,11 @@ def test_a_row_records_the_top_tangent_eigenvalue_of_its_end_point():
     assert row["top_eigenvalue"] < 0 and row["local_max"]
     bare = spec_from_flags(["3:1"], None, "30", "2", "hessian", {"hessian": {"polish": False}})
     assert math.isnan(run_task(bare.tasks()[0])["top_eigenvalue"])  # no check without polish
+
+
+def test_kept_points_add_the_overlap_figure(kept, tmp_path, capsys):
+    # the report draws each instance's overlap when end points were kept, and names the file
+    assert main(["report", str(kept), "--out", str(tmp_path)]) == 0
+    figure = tmp_path / "overlaps.png"
+    assert figure.read_bytes()[:8] == b"\x89PNG\r\n\x1a\n"
+    assert str(figure) in capsys.readouterr().out

@@ -3,8 +3,8 @@
 Per (mixture, method, n): mean energy per spin, standard error and count; per (mixture,
 method): e_inf of the fit e_inf + a n^(-k) (weighted least squares, bootstrap interval) beside
 ALG and GS with the difference in standard errors. Writes report.md, report.json,
-energy_vs_n.png and distribution.png into the study folder (or ``--out FOLDER``) and prints the
-table.
+energy_vs_n.png, distribution.png (and overlaps.png for a study swept with --keep-points) into
+the study folder (or ``--out FOLDER``) and prints the table.
 """
 
 from __future__ import annotations
@@ -76,6 +76,6 @@ def run(args: argparse.Namespace) -> int:
     print()
     for f in rep.findings:
         print(f"- {f}")
-    plots = [str(rep.files[k]) for k in ("energy_vs_n", "distribution") if rep.files.get(k)]
+    plots = rep.figures()
     print(f"report: {rep.files['markdown']}" + (f"; plots: {', '.join(plots)}" if plots else ""))
     return 0

@@ -324,8 +324,8 @@ def run(args: argparse.Namespace) -> int:
         print()
         for finding in rep.findings:
             print(f"- {finding}")
+        plots = rep.figures()
         print(
-            f"report: {rep.files['markdown']}; plots: {rep.files.get('energy_vs_n')}, "
-            f"{rep.files.get('distribution')}"
+            f"report: {rep.files['markdown']}" + (f"; plots: {', '.join(plots)}" if plots else "")
         )
     return 1 if outcome.failed else 0

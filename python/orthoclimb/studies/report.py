@@ -12,7 +12,8 @@ computed from these numbers (what was measured, whatever it is). The cost of the
 the report.
 
 Files written into the study folder, or the folder ``out`` (``report --out``), atomically:
-``report.md``, ``report.json``, ``energy_vs_n.png`` and ``distribution.png``
+``report.md``, ``report.json``, ``energy_vs_n.png``, ``distribution.png`` and, with kept end
+points, ``overlaps.png``
 (:mod:`.report_plots`).
 """
 
@@ -132,6 +133,11 @@ class Report:
         )
         lines += overlap_lines(self.overlaps)
         return "\n".join(lines)
+
+    def figures(self) -> list[str]:
+        """The paths of the figures :func:`write_report` wrote, in order (none before it, or
+        with plots off)."""
+        return [path for name, path in self.files.items() if name not in ("markdown", "json")]
 
     def spec_level(self) -> float:
         for f in self.fits:

@@ -4,6 +4,9 @@ energy_vs_n: per mixture, the mean energy per spin +- its standard error against
 series' fitted line, e_inf with its interval at n^(-k) = 0 (the x label says which bar is
 which), and the ALG and GS lines (one "ALG = GS" line where they agree).
 distribution: per mixture, the energies per spin over seeds at each n (bar: their mean).
+overlaps (only for a study swept with --keep-points): per mixture, the overlap R = <x_a, x_b> of
+two methods' end points on each instance against n, per pair of methods, beside +-1 (the same
+point, its mirror) and +- the mean |R| of unrelated directions (about sqrt(2/(pi n))).
 """
 
 from __future__ import annotations
@@ -21,14 +24,14 @@ if TYPE_CHECKING:
 
 __all__ = ["PLOT_FILES", "plot_files"]
 
-# The report's figures, by file name.
-PLOT_FILES = ("energy_vs_n.png", "distribution.png")
+# The report's figures, by file name (the last only with kept end points).
+PLOT_FILES = ("energy_vs_n.png", "distribution.png", "overlaps.png")
 
 
 def plot_files(
     rep: Report, data: dict, folder: Path
 ) -> list[tuple[str, Path, Callable[[IO[bytes]], None]]]:
-    """Draw both figures; returns (name, path in ``folder``, writer) for each, which the
+    """Draw the figures; returns (name, path in ``folder``, writer) for each, which the
     report writes together with its text files, all or none."""
     from matplotlib.figure import Figure
 
@@ -128,4 +131,45 @@ def plot_files(
         ax.set_title(mix, fontsize=10)
         ax.legend(fontsize=8)
     out.append(("distribution", folder / PLOT_FILES[1], figure_writer(fig, dpi=110)))
+    if rep.overlaps_by_run:
+        out.append(("overlaps", folder / PLOT_FILES[2], _overlap_writer(rep)))
     return out
+
+
+def _overlap_writer(rep: Report) -> Callable[[IO[bytes]], None]:
+    """The overlaps figure (module doc): a panel per mixture that has kept end points."""
+    from matplotlib.figure import Figure
+
+    from .points import unrelated_overlap
+
+    mixtures = [m for m in rep.theory if any(o["mixture"] == m for o in rep.overlaps_by_run)]
+    pairs = list(dict.fromkeys((o["method_a"], o["method_b"]) for o in rep.overlaps_by_run))
+    fig = Figure(figsize=(5.2 * len(mixtures), 4.2), layout="constrained")
+    axes = fig.subplots(1, len(mixtures), squeeze=False)[0]
+    rng = np.random.default_rng(0)
+    for ax, mix in zip(axes, mixtures, strict=True):
+        runs = [o for o in rep.overlaps_by_run if o["mixture"] == mix]
+        sizes = sorted({o["n"] for o in runs})
+        width = 0.8 / len(pairs)
+        for j, (a, b) in enumerate(pairs):
+            mine = [o for o in runs if (o["method_a"], o["method_b"]) == (a, b)]
+            if not mine:
+                continue
+            pos = np.array([sizes.index(o["n"]) for o in mine], float)
+            pos += (j - (len(pairs) - 1) / 2) * width + rng.uniform(-0.3, 0.3, pos.size) * width
+            r = [o["overlap"] for o in mine]
+            ax.scatter(pos, r, s=12, color=f"C{j}", alpha=0.7, label=f"{a} vs {b}")
+        ref = np.array([unrelated_overlap(n) for n in sizes])
+        ticks = np.arange(len(sizes))
+        for sign in (1.0, -1.0):  # a short bar at each size, the sizes being categories
+            ax.hlines(sign * ref, ticks - 0.45, ticks + 0.45, colors="k", linestyles=":", lw=1)
+        ax.plot([], [], "k:", lw=1, label="+- mean |R|, unrelated directions")
+        for level in (-1.0, 1.0):
+            ax.axhline(level, color="0.6", lw=0.8)
+        ax.set_xticks(ticks, [str(n) for n in sizes])
+        ax.set_ylim(-1.08, 1.08)
+        ax.set_xlabel("n   (R = 1: the same point; R = -1: its mirror -x)")
+        ax.set_ylabel("end-point overlap R = <x_a, x_b>")
+        ax.set_title(mix, fontsize=10)
+        ax.legend(fontsize=8)
+    return figure_writer(fig, dpi=110)
