@@ -35,8 +35,9 @@ def _study(gap: float, seeds: int = 30, rng_seed: int = 1, instance_sd: float = 
 
 
 def test_the_difference_is_the_weighted_line_through_the_mean_differences():
-    # reference: numpy.polyfit of the mean differences against n^(-2/3), weights 1/s.e.
-    # (polyfit's w multiplies the residuals, so w = 1/s gives the weighted least squares)
+    # reference: numpy.polyfit of the mean differences against n^(-2/3), weights 1/s.e., the
+    # per-seed variances pooled as a power law in n: numpy.polyfit of log var on log n with
+    # weights m - 1 (polyfit's w multiplies the residuals, so w = sqrt(weight))
     seeds = _study(gap=0.02)
     f = limit_difference("m", "x", "y", seeds, THEORY, 2 / 3, 0.9, 2000, seed=3)
     d = [
@@ -44,7 +45,8 @@ def test_the_difference_is_the_weighted_line_through_the_mean_differences():
         for n in SIZES
     ]
     means = np.array([a.mean() for a in d])
-    s = np.array([a.std(ddof=1) / math.sqrt(a.size) for a in d])
+    b, a = np.polyfit(np.log(SIZES), np.log([v.var(ddof=1) for v in d]), 1, w=[29**0.5] * 4)
+    s = np.sqrt(np.exp(a + b * np.log(SIZES)) / 30)
     x = np.array(SIZES, dtype=float) ** (-2 / 3)
     slope, intercept = np.polyfit(x, means, 1, w=1 / s)
     assert f["value"] == pytest.approx(intercept, rel=1e-10)
@@ -98,6 +100,13 @@ def test_ties_count_as_zero_and_all_ties_say_no_difference():
     even = limit_difference("m", "x", "y", seeds, {**THEORY, "even": True}, 2 / 3, 0.9, 200, 0)
     assert "the same point or its mirror -x on every" in limit_difference_line(even)
     assert "| -- |" in "\n".join(limit_difference_markdown([f]))  # no s.e. printed as 0
+    # some ties: counted per size in the finding
+    for n in SIZES:
+        for s in range(0, 30, 3):
+            seeds[("m", "y", n)][s] = seeds[("m", "x", n)][s] - 0.01
+    part = limit_difference("m", "x", "y", seeds, THEORY, 2 / 3, 0.9, 200, seed=0)
+    assert part["ties"] == [20] * 4 and not part["all_ties"]
+    assert "(ties, the same point: 20/30, 20/30, 20/30, 20/30)" in limit_difference_line(part)
 
 
 def test_sizes_without_two_paired_seeds_are_left_out_and_named():

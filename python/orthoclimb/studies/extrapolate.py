@@ -39,6 +39,20 @@ fit_p < 0.05 in 2.1-6.4 % of studies where the law holds. NaN without a degree o
 (two sizes). ``fit_p`` is the law's own test: the report keeps a law whose fit_p is below 0.05
 out of its verdicts (:mod:`.report`).
 
+Pooled variances (``pooled=True``). The weights 1/s_j^2 come from each size's own sample
+variance, which few distinct values make unreliable: paired differences of two methods that
+often stop at the same point (ties, :mod:`.limit_difference`) had, at one size, 9 ties and one
+difference of -0.0014 among 10 seeds, so that size took 99.5 % of the weight and the fit an
+interval 18 times narrower than the two methods' own fits (a user trial). With ``pooled`` the
+per-seed variances v_j follow a power law in n fitted to all sizes (least squares of log v_j
+on log n_j, weights m_j - 1, over the sizes with spread; with fewer than three such sizes one
+pooled value sum (m_j - 1) v_j / sum (m_j - 1)), so a size's weight no longer rests on its own
+few values; the bootstrap refits that law in each replicate. Measured coverage of the nominal
+90 % interval, own -> pooled variances (400 synthetic studies per row, n = 50, 100, 200, 400,
+differences 0.005 + 0.3 n^(-2/3) + N(0, 0.09/n), each a tie (0) with probability p; Monte Carlo
+s.e. 0.015): p = 0.85, 10 seeds: 0.585 -> 0.925 (median width 0.004 -> 0.012); p = 0.6, 10
+seeds: 0.882 -> 0.907; p = 0.6, 20 seeds: 0.877 -> 0.880; no ties, 10 seeds: 0.897 -> 0.875.
+
 Samples without spread. A size whose samples all agree (up to rounding: variance at most
 (16 eps max|sample|)^2) has no noise to weigh by. Next to sizes with spread its variance is
 floored at 1e-6 of the largest, so the line passes almost exactly through its mean. When every
@@ -176,14 +190,20 @@ SPREADLESS = 16.0
 FIT_TEST_REPLICATES = 2000
 
 
-def _fit(x: np.ndarray, arrays: list[np.ndarray]) -> tuple[float, float, float, np.ndarray]:
+def _fit(
+    x: np.ndarray, arrays: list[np.ndarray], log_n: np.ndarray | None = None
+) -> tuple[float, float, float, np.ndarray]:
     """The weighted least-squares line through the means: (e_inf, a, chi2, s_j^2), with s_j^2
-    = 0 at every size when no size has spread (then a plain least-squares fit and chi2 NaN)."""
+    = 0 at every size when no size has spread (then a plain least-squares fit and chi2 NaN).
+    With ``log_n`` (log of the sizes), the variances are pooled (module doc)."""
     means = np.array([a.mean() for a in arrays])
     var = _spread(arrays)
     if not np.any(var > 0):
         value, slope = _wls_line(x, means, np.ones_like(means))
         return float(value), float(slope), math.nan, np.zeros_like(var)
+    if log_n is not None:
+        counts = np.array([a.size for a in arrays], dtype=np.float64)
+        var = _pooled(log_n, var * counts, counts) / counts
     var = np.maximum(var, 1e-6 * float(np.max(var)))
     value, slope = _wls_line(x, means, 1.0 / var)
     chi2 = float(np.sum((means - value - slope * x) ** 2 / var))
@@ -196,6 +216,20 @@ def _spread(arrays: list[np.ndarray]) -> np.ndarray:
     eps = np.finfo(np.float64).eps
     rounding = np.array([(SPREADLESS * eps * np.max(np.abs(a))) ** 2 / a.size for a in arrays])
     return np.where(var <= rounding, 0.0, var)
+
+
+def _pooled(log_n: np.ndarray, v: np.ndarray, counts: np.ndarray) -> np.ndarray:
+    """The per-seed variances ``v`` (last axis: sizes; earlier axes: bootstrap replicates) as a
+    power law in n fitted to them, or their pooled value where fewer than three sizes have
+    spread (module doc)."""
+    dof = counts - 1
+    spread = v > 0
+    wt = dof * spread
+    with np.errstate(divide="ignore", invalid="ignore"):  # det = 0 below three sizes: unused
+        a, b = _wls_line(log_n, np.log(np.where(spread, v, 1.0)), wt)
+        law = np.exp(a[..., None] + b[..., None] * log_n)
+    flat = (dof * v).sum(-1, keepdims=True) / dof.sum()
+    return np.where(spread.sum(-1, keepdims=True) >= 3, law, flat)
 
 
 def _welch_dof(x: np.ndarray, var: np.ndarray, counts: np.ndarray) -> float:
@@ -216,12 +250,16 @@ def _fit_p(
     var: np.ndarray,
     chi2: float,
     rng: np.random.Generator,
+    log_n: np.ndarray | None = None,
 ) -> float:
-    """The parametric-bootstrap p-value of ``chi2`` under the fitted law (module doc)."""
+    """The parametric-bootstrap p-value of ``chi2`` under the fitted law (module doc); with
+    ``log_n``, each replicate's variances are pooled as the fit's were."""
     reps = FIT_TEST_REPLICATES
     mean = value + slope * x + np.sqrt(var) * rng.standard_normal((reps, x.size))
     dof = counts - 1
     v = var * rng.chisquare(dof, size=(reps, x.size)) / dof
+    if log_n is not None:
+        v = _pooled(log_n, v * counts, counts) / counts
     v = np.maximum(v, 1e-6 * v.max(axis=1, keepdims=True))
     e, a = _wls_line(x, mean, 1.0 / v)
     chi2_rep = np.sum((mean - e[:, None] - a[:, None] * x) ** 2 / v, axis=1)
@@ -235,13 +273,16 @@ def extrapolate(
     level: float = 0.9,
     n_boot: int = 2000,
     seed: int = 0,
+    pooled: bool = False,
 ) -> Extrapolation:
     """Extrapolate the mean of ``samples[j]`` (energies per spin at size ``sizes[j]``) to
-    n -> infinity (see the module doc). Needs >= 2 sizes and >= 2 samples per size."""
+    n -> infinity (see the module doc). Needs >= 2 sizes and >= 2 samples per size.
+    ``pooled``: weigh the sizes by variances pooled over them (module doc)."""
     arrays = _checked(sizes, samples, exponent)
     check_interval(level, n_boot)
     x = np.asarray(sizes, dtype=np.float64) ** (-exponent)
-    value, slope, chi2, var = _fit(x, arrays)
+    log_n = np.log(np.asarray(sizes, dtype=np.float64)) if pooled else None
+    value, slope, chi2, var = _fit(x, arrays, log_n)
     shape = dict(
         slope=float(slope),
         chi2=chi2,
@@ -268,7 +309,11 @@ def extrapolate(
             boot_m[part, j] = draw.mean(axis=1)
             # refit with each replicate's own weights (floored at 1% of the observed variance
             # so a replicate of identical draws does not get infinite weight)
-            boot_v[part, j] = np.maximum(draw.var(axis=1, ddof=1) / m, 0.01 * var[j])
+            boot_v[part, j] = draw.var(axis=1, ddof=1) / m
+    if log_n is not None:  # each replicate's own pooled law
+        counts = np.array([a.size for a in arrays], dtype=np.float64)
+        boot_v = _pooled(log_n, boot_v * counts, counts) / counts
+    boot_v = np.maximum(boot_v, 0.01 * var)
     reps, _ = _wls_line(x, boot_m, 1.0 / boot_v)
     alpha = (1.0 - level) / 2.0
     q_low, q_high = np.quantile(reps, [alpha, 1.0 - alpha])
@@ -277,5 +322,5 @@ def extrapolate(
     stretch = float(stats.t.ppf(1.0 - alpha, nu) / stats.norm.ppf(1.0 - alpha))
     low = value - stretch * max(value - float(q_low), 0.0)
     high = value + stretch * max(float(q_high) - value, 0.0)
-    fit_p = _fit_p(x, counts, value, slope, var, chi2, rng) if len(arrays) > 2 else math.nan
+    fit_p = _fit_p(x, counts, value, slope, var, chi2, rng, log_n) if len(arrays) > 2 else math.nan
     return Extrapolation(value, low, high, float(reps.std(ddof=1)), **shape, fit_p=fit_p, t_dof=nu)

@@ -72,13 +72,15 @@ def add_other_laws(
     level: float,
     n_boot: int,
     seed: int,
+    pooled: bool = False,
 ) -> None:
-    """Repeat the fit ``entry`` under each of ``OTHER_LAWS`` other than its own exponent and
+    """Repeat the fit ``entry`` under each of ``OTHER_LAWS`` other than its own exponent (with
+    variances ``pooled`` over the sizes as the fit's, :func:`.extrapolate.extrapolate`) and
     set ``other_laws`` (each law's exponent, value, interval, chi2 and fit_p), ``laws_kept``
     (the exponents :func:`kept_laws` keeps), ``law_regions`` (the span of each run of
     neighbours, :func:`law_regions`) and ``law_low``/``law_high`` (the span of them all)."""
     others = [
-        extrapolate(sizes, samples, e, level, n_boot, seed=seed)
+        extrapolate(sizes, samples, e, level, n_boot, seed=seed, pooled=pooled)
         for e in OTHER_LAWS
         if abs(e - entry["exponent"]) > 1e-9
     ]
