@@ -51,6 +51,7 @@ from .limit_difference import (
 from .paired import TIE_RELATIVE, comparisons_per_size, head_to_head
 from .points import (
     end_point_overlaps,
+    field_directions,
     overlap_lines,
     overlap_markdown,
     overlap_summary,
@@ -322,7 +323,10 @@ def build_report(
     rep = Report(spec, groups, fits, theory, [], missing, cost=cost_table(rows, degrees))
     rep.labels, rep.energies = labels, data
     points, unreadable = readable_end_points(Path(folder), rows)  # sweep --keep-points
-    by_run = end_point_overlaps(rows, points, [m.name for m in spec.methods])
+    fields = {m.name: m.mixture.gammas[1] for m in spec.mixtures if m.mixture.has_field}
+    by_run = end_point_overlaps(
+        rows, points, [m.name for m in spec.methods], field_directions(rows, points, fields)
+    )
     rep.overlaps_by_run = sorted(by_run, key=lambda o: (order[o["mixture"]], o["n"], o["seed"]))
     rep.overlaps = overlap_summary(by_run)
     seeds = {key: v for key, v in by_seed.items() if not key[1].endswith(BEFORE_POLISH)}

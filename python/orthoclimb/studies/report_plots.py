@@ -6,7 +6,8 @@ which), and the ALG and GS lines (one "ALG = GS" line where they agree).
 distribution: per mixture, the energies per spin over seeds at each n (bar: their mean).
 overlaps (only for a study swept with --keep-points): per mixture, the overlap R = <x_a, x_b> of
 two methods' end points on each instance against n, per pair of methods, beside +-1 (the same
-point, its mirror) and +- the mean |R| of unrelated directions (about sqrt(2/(pi n))).
+point, its mirror) and +- the mean |R| of unrelated directions (about sqrt(2/(pi n))); with a
+field, the field's share <x_a, e><x_b, e> (:mod:`.points`).
 """
 
 from __future__ import annotations
@@ -159,6 +160,16 @@ def _overlap_writer(rep: Report) -> Callable[[IO[bytes]], None]:
             pos += (j - (len(pairs) - 1) / 2) * width + rng.uniform(-0.3, 0.3, pos.size) * width
             r = [o["overlap"] for o in mine]
             ax.scatter(pos, r, s=12, color=f"C{j}", alpha=0.7, label=f"{a} vs {b}")
+            shares = [
+                (sizes.index(s["n"]), s["field_share"])
+                for s in rep.overlaps
+                if (s["mixture"], s["method_a"], s["method_b"]) == (mix, a, b)
+                and s.get("field_share") is not None
+            ]
+            if shares:  # with a field: what the field's direction alone gives
+                at, share = np.array(shares).T
+                ax.hlines(share, at - 0.45, at + 0.45, colors=f"C{j}", linestyles="-.", lw=1)
+                ax.plot([], [], "-.", color=f"C{j}", lw=1, label="<x_a, e><x_b, e>, e: field")
         ref = np.array([unrelated_overlap(n) for n in sizes])
         ticks = np.arange(len(sizes))
         for sign in (1.0, -1.0):  # a short bar at each size, the sizes being categories
