@@ -291,7 +291,10 @@ class Mixture:
     # -- theory (thin wrappers around orthoclimb.theory, imported lazily) -----------------
 
     def full_rsb(self) -> Any:
-        """The full-RSB criterion; see :func:`orthoclimb.theory.full_rsb`."""
+        """The full-RSB criterion; see :func:`orthoclimb.theory.full_rsb`. Whether GS = ALG
+        is predicted is its ``gs_equals_alg``: with a field, ``holds`` (concavity on all of
+        (0, 1]) can be False while GS = ALG (only [q_hat, 1] matters, and q_hat = 1 makes the
+        solution replica symmetric)."""
         from ..theory import full_rsb
 
         return full_rsb(self)

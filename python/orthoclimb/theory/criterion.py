@@ -220,7 +220,9 @@ def full_rsb(mixture: Mixture) -> FullRSBVerdict:
     Returns a :class:`FullRSBVerdict`: ``holds`` is True when q -> xi''(q)^(-1/2) is concave on
     (0, 1], and ``failing_intervals`` lists the maximal sub-intervals where it is not. The test uses
     the sign of the exact numerator N(q) = 3 xi'''^2 - 2 xi'' xi'''' of the second derivative
-    (see the module docstring), found from the roots of N.
+    (see the module docstring), found from the roots of N. Whether GS = ALG is predicted is
+    ``gs_equals_alg``, not ``holds``: with a field only [q_hat, 1] matters (xi = q + 0.09 q^3
+    fails the criterion, yet q_hat = 1 and GS = ALG = sqrt(xi'(1))).
 
     Examples (from N by hand): xi = a q^2 + b q^4 holds iff b <= a/12 and, past that, fails on
     (sqrt(a / (12 b)), 1]; every pure p >= 3 model and every mixture of p = 2 and p = 3 fails.
