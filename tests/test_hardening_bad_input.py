@@ -164,6 +164,19 @@ CASES = [
     Case("x_wrong_length", "ham.energy(np.ones(N - 1))", "ShapeError", r"got \(5,\)"),
     Case("x_three_dims", "ham.gradient(np.ones((1, 2, N)))", "ShapeError", r"got \(1, 2, 6\)"),
     Case("x_scalar", "ham.energy_and_gradient(3.0)", "ShapeError", r"got \(\)"),
+    # a user trial: 0 returned the random start as a result; a dict gave an AttributeError
+    Case(
+        "gradient_no_steps",
+        "oc.gradient_ascent(ham, max_iter=0)",
+        "ValueError",
+        "max_iter must be >= 1, got 0",
+    ),  # fmt: skip
+    Case(
+        "study_mixture_dict",
+        "from orthoclimb.studies.grid import MixtureSpec; MixtureSpec.make({3: 1.0})",
+        "TypeError",
+        r"MixtureSpec\.make\(\) takes an orthoclimb\.Mixture, got dict",
+    ),
     Case("x_empty", "ham.energy(np.array([]))", "ShapeError", r"got \(0,\)"),
     Case("batch_empty", "ham.gradient(np.zeros((0, N)))", "ShapeError", r"got \(0, 6\)"),
     Case(

@@ -111,7 +111,9 @@ def gradient_ascent(
     seed = check_seed(seed)
     check = check_flag(check, "check")
     gtol = check_positive(gtol, "gtol")
-    max_iter = check_count(max_iter, "max_iter", minimum=0)
+    # at least one step, as --max-iter and a study's max_iter (0 returned the random start as
+    # a result, a user trial)
+    max_iter = check_count(max_iter, "max_iter", minimum=1)
     if callback is not None and not callable(callback):
         raise TypeError(f"callback must be callable or None, got {callback!r}")
     start = time.perf_counter()

@@ -139,11 +139,15 @@ def check_scheduler_address(scheduler: Any) -> tuple[str, str, int]:
     another transport) needs security settings the command line does not take; each failed
     inside Dask with its own message ("not enough values to unpack")."""
     if not isinstance(scheduler, str) or "://" not in scheduler:
-        raise ValueError(f"--scheduler must be an address like tcp://HOST:PORT, got {scheduler!r}")
+        raise ValueError(
+            f"the scheduler (--scheduler; scheduler= in Python) must be an address like tcp://HOST:PORT,"
+            f" got {scheduler!r}"
+        )
     scheme, _, rest = scheduler.partition("://")
     if scheme != "tcp":
         raise ValueError(
-            f"--scheduler takes a tcp://HOST:PORT address, got {scheduler!r} (scheme"
+            "the scheduler (--scheduler; scheduler= in Python) takes a tcp://HOST:PORT address,"
+            f" got {scheduler!r} (scheme"
             f" {scheme!r}): other transports are not supported"
         )
     from distributed.comm import parse_host_port
@@ -152,11 +156,13 @@ def check_scheduler_address(scheduler: Any) -> tuple[str, str, int]:
         host, port = parse_host_port(rest)
     except ValueError as exc:
         raise ValueError(
-            f"--scheduler must be an address like tcp://HOST:PORT, got {scheduler!r} ({exc})"
+            f"the scheduler (--scheduler; scheduler= in Python) must be an address like tcp://HOST:PORT,"
+            f" got {scheduler!r} ({exc})"
         ) from None
     if not host or not 0 < int(port) < 65536:
         raise ValueError(
-            f"--scheduler must be an address like tcp://HOST:PORT with a host and a port in "
+            f"the scheduler (--scheduler; scheduler= in Python) must be an address like tcp://HOST:PORT"
+            " with a host and a port in "
             f"1..65535, got {scheduler!r}"
         )
     return scheme, host, int(port)
@@ -175,7 +181,8 @@ def _probe(scheduler: str, timeout: float) -> None:
         reason = "timed out" if isinstance(exc, TimeoutError) else (exc.strerror or str(exc))
         raise ValueError(
             f"cannot reach the Dask scheduler at {scheduler} ({reason}); check the address, "
-            "or omit --scheduler to use an embedded local cluster"
+            "or give none (omit --scheduler; scheduler=None in Python) to use an embedded"
+            " local cluster"
         ) from None
 
 
@@ -268,7 +275,8 @@ def _connect(scheduler: str | None, plan: WorkerPlan, timeout: float):
     except (OSError, TimeoutError) as exc:
         raise ValueError(
             f"cannot reach the Dask scheduler at {scheduler} within {timeout:g} s ({exc}); "
-            "check the address, or omit --scheduler to use an embedded local cluster"
+            "check the address, or give none (omit --scheduler; scheduler=None in Python) to"
+            " use an embedded local cluster"
         ) from None
     except Exception as exc:  # Dask's own complaints, for a listener that is not a scheduler
         raise ValueError(
@@ -294,7 +302,7 @@ def _check_largest_fits(spec: StudySpec, tasks: list[Task]) -> None:
             f"the study's largest instance ({name}, n = {n}) needs {need} bytes"
             f" ({format_bytes(need)}) of coefficients, but only {have} bytes"
             f" ({format_bytes(have)}) are available on this machine; drop that size, or run"
-            " the study on a larger machine with --scheduler"
+            " the study on a larger machine (--scheduler; scheduler= in Python)"
         )
 
 

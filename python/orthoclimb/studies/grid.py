@@ -251,6 +251,9 @@ class MixtureSpec:
     def make(
         cls, mixture: Mixture, name: str | None = None, sizes: Iterable[int] | str | None = None
     ) -> MixtureSpec:
+        from ..theory._checks import check_mixture
+
+        mixture = check_mixture(mixture, "MixtureSpec.make")  # a dict: AttributeError before
         if name is not None and not (isinstance(name, str) and name.strip()):
             # a number was stored as the rows' mixture, which the table then refused
             raise ValueError(f"a mixture's name must be a non-empty text, got {name!r}")

@@ -271,7 +271,7 @@ def sweep_lock(folder: str | os.PathLike) -> Iterator[None]:
         except BlockingIOError:
             raise ValueError(
                 f"another sweep is running in the study folder {str(path)!r}; wait for it to"
-                " end (or stop it), or use another --out folder"
+                " end (or stop it), or use another folder (--out; folder= in Python)"
             ) from None
         except OSError:  # no flock on this file system (some network mounts): go unlocked
             pass
@@ -322,7 +322,8 @@ class Store:
                 relation = _relation(old, config) if diff else "same"
             except (OSError, ValueError, KeyError, TypeError, AttributeError, RecursionError):
                 raise StudyMismatchError(
-                    f"{str(meta)!r} is not a readable study configuration; use another --out folder"
+                    f"{str(meta)!r} is not a readable study configuration; use another folder"
+                    " (--out; folder= in Python)"
                 ) from None
             if relation == "grows":
                 _record_growth(meta, stored, config)
@@ -343,14 +344,15 @@ class Store:
                 raise StudyMismatchError(
                     f"the folder {str(folder)!r} holds a study with a different configuration "
                     f"(differs in: {', '.join(diff)}); refusing to mix two studies. Use another "
-                    "--out folder, rerun with the same configuration to resume, or add seeds or "
+                    "folder (--out; folder= in Python), rerun with the same configuration to"
+                    " resume, or add seeds or "
                     f"sizes (keeping the old ones) to extend it{hint}"
                 )
         else:
             if folder.exists() and any(_counts(p.name) for p in folder.iterdir()):
                 raise StudyMismatchError(
                     f"the folder {str(folder)!r} is not empty and holds no study.json; "
-                    "use an empty or new --out folder"
+                    "use an empty or new folder (--out; folder= in Python)"
                 )
             write_json_atomic(
                 meta,
