@@ -84,6 +84,20 @@ class Result:
     its largest |entry| and then by its norm: keep the point to rerun),
     ``seconds`` the wall-clock time of the run, ``info`` method-specific diagnostics
     (polish outcome, local-maximum check, ALG reached or not, ...).
+
+    The names that matter most, and what a study's rows and ``climb --json`` call them:
+
+    * ``config["disorder_seed"]``: the instance's seed (rows and climb: ``seed``);
+      ``config["seed"]``: the start point's seed (rows and climb: ``start_seed``; a study
+      starts each run from its disorder seed).
+    * ``info["alg"]``: ALG, energy per spin; ``info["alg_gap"]`` = energy - ALG (rows and
+      climb: ``gap_alg``; negative below ALG). Not ``GroundState.gap``, which is GS - ALG.
+    * ``info["energy_ascent"]`` (Hessian ascent) and ``info["energy_anneal"]`` (Langevin):
+      the energy per spin where the method ended, before its polish (rows and climb:
+      ``energy_before_polish``); ``info["alg_gap_ascent"]`` is that energy - ALG.
+    * ``info["local_max"]``, ``info["n_positive"]``, ``info["top_eigenvalue"]`` (per spin),
+      ``info["grad_norm"]`` (|P grad H|/n): the end point's local-maximum check, under the same
+      names everywhere (None or absent where no check ran).
     """
 
     x: np.ndarray
