@@ -258,3 +258,22 @@ def test_the_sweep_plan_prints_the_path_note(tmp_path, capsys):
     args = ["sweep", "--gammas", "2:1", "--n", "50,100", "--seeds", "0-1", "--plan-only"]
     assert main([*args, "--out", str(tmp_path / "s")]) == 0
     assert "note: hessian takes K = 25 path points at every size" in capsys.readouterr().out
+
+
+def test_hessian_ascent_with_a_field_pays_for_its_first_stage():
+    # exact arithmetic of the module doc's model: a field adds the first stage's 36 ln n - 74
+    # energy-and-gradient passes (at least 30) before the Hessian steps; a user trial found
+    # it missing (0.46 s of a 1.26 s run at n = 400)
+    from orthoclimb.studies.estimate import first_stage_passes
+
+    assert first_stage_passes(10) == 30.0  # the floor: 36 ln 10 - 74 = 8.9
+    method = MethodSpec.make("hessian", {"steps": 10, "polish": False})
+    for gammas, first in (({3: 1.0}, 0.0), ({1: 0.5, 3: 1.0}, first_stage_passes(400))):
+        mix = MixtureSpec.make(oc.Mixture(gammas), "m")
+        (task,) = StudySpec((mix,), (400,), (0,), (method,)).tasks()
+        base = {"n0": 400, "sampling": 0.0, "hessian": 0.0, "degree": 3}
+        busy = {"m": Calibration(energy_and_gradient=0.001, **base)}
+        free = {"m": Calibration(energy_and_gradient=0.0, **base)}
+        diff = estimate_from(busy, [task], 1, False) - estimate_from(free, [task], 1, False)
+        assert diff == pytest.approx(first * 0.001, abs=1e-12), gammas
+    assert first_stage_passes(400) == pytest.approx(36 * math.log(400) - 74)

@@ -174,13 +174,18 @@ def _run_estimate(
     moves = hessian_moves(ham.mixture, steps) if method == "hessian" else 0
     needs_hessian = moves > 0 or polish or method == "gradient"
     hess = scale * _time_pass(ham, "hessian") if needs_hessian else 0.0
-    run = run_seconds(method, n, steps, polish, (grad, hess), moves)
+    field = ham.mixture is not None and ham.mixture.has_field
+    run = run_seconds(method, n, steps, polish, (grad, hess), moves, field)
     if method == "hessian":
-        what = f"{moves} Hessian steps" + (" and the polish" if polish else "")
+        what = ("the field stage, " if field else "") + f"{moves} Hessian steps"
+        what += " and the polish" if polish else ""
         if moves == 0:
-            polish_time = f"; the polish takes about {seconds_text(run)}" if polish else ""
             why = "--steps 1 has none" if steps == 1 else "the field stage ends on the sphere"
-            return f"no Hessian step: {why}{polish_time}"
+            parts = [p for p, on in (("the field stage", field), ("the polish", polish)) if on]
+            if not parts:
+                return f"no Hessian step: {why}"
+            verb = "takes" if len(parts) == 1 else "take"
+            return f"no Hessian step: {why}; {' and '.join(parts)} {verb} about {seconds_text(run)}"
         return (
             f"one Hessian pass: {seconds_text(hess)}; estimated run time about"
             f" {seconds_text(run)} ({what})"

@@ -14,6 +14,10 @@ as a + b ln n, since a study adds its tasks up:
   (medians per step on one thread 0.7, 1.4 and 1.8 ms at n = 100, 220 and 320 for the pure
   3-spin model, 3.9 and 10.4 ms at n = 600 and 1000 for the pure 2-spin one); with its
   polish, 22 ln n - 61 energy-and-gradient passes (at least 20; 25 at n = 50, 86 at 800).
+  With a field, its first stage (an ascent to radius sqrt(q_hat)) adds 36 ln n - 74
+  energy-and-gradient passes (at least 30): 60-113 at n = 50-400 for 1:0.5,3:1 and 78-177
+  for 1:0.3,2:1,4:0.25 (one seed each; a user trial found it missing, 0.46 s of a 1.26 s
+  run at n = 400).
 * Gradient ascent: 80 ln n - 234 energy-and-gradient passes (at least 40; 79 at n = 50, 301
   at 800), about 1.08 per iteration, capped at 1.1 x max_iter; the four mixtures' own fits
   lie within 32 % of it at n = 100-800 (2:1,4:0.25 lowest, 3:1 highest). It was 150
@@ -61,6 +65,7 @@ __all__ = [
     "fixed_path_notes",
     "check_seconds",
     "estimate_from",
+    "first_stage_passes",
     "estimate_seconds",
     "gradient_passes",
     "largest_instance",
@@ -79,6 +84,7 @@ CHOLESKY_SECONDS = 1.7e-11  # x n^3: one Newton step's factorization (module doc
 # energy-and-gradient passes, a + b ln n, and the floor at small n (module doc)
 GRADIENT_PASSES = (-234.0, 80.0, 40.0)
 POLISH_PASSES = {"hessian": (-61.0, 22.0, 20.0), "anneal": (-179.0, 56.0, 20.0)}
+FIRST_STAGE_PASSES = (-74.0, 36.0, 30.0)  # Hessian ascent with a field (module doc)
 PASSES_PER_ITERATION = 1.1  # gradient ascent, backtracking included: at most this per iteration
 POLISH_HESSIANS = 3  # Hessian passes of a polish: two Newton steps and the check
 _TASK_OVERHEAD = 0.02  # seconds per task: Dask round trip and the row's atomic write
@@ -100,6 +106,12 @@ def polish_passes(n: int, after: str) -> float:
     """Mean energy-and-gradient passes of the polish that ends ``after`` ('hessian' or
     'anneal') at n (module doc)."""
     return _log_fit(n, POLISH_PASSES[after])
+
+
+def first_stage_passes(n: int) -> float:
+    """Mean energy-and-gradient passes of Hessian ascent's first stage at n, for a mixture
+    with a field (module doc)."""
+    return _log_fit(n, FIRST_STAGE_PASSES)
 
 
 def check_seconds(n: int) -> float:
@@ -190,18 +202,26 @@ def calibrate(spec: StudySpec, threads: int = 1) -> dict[str, Calibration]:
 
 
 def run_seconds(
-    method: str, n: int, steps: int, polish: bool, passes: tuple[float, float], moves: int = 0
+    method: str,
+    n: int,
+    steps: int,
+    polish: bool,
+    passes: tuple[float, float],
+    moves: int = 0,
+    field: bool = False,
 ) -> float:
     """Seconds of one run of ``method`` at n (module doc) from ``passes`` = (one energy-and-
-    gradient pass, one Hessian pass) in seconds at n: ``moves`` Hessian steps (hessian),
-    ``steps`` Langevin steps (anneal) or at most ``steps`` = max_iter iterations (gradient),
-    plus the polish when ``polish`` (hessian, anneal). Used by the sweep and by climb."""
+    gradient pass, one Hessian pass) in seconds at n: ``moves`` Hessian steps (hessian, after
+    its first stage when the mixture has a ``field``), ``steps`` Langevin steps (anneal) or at
+    most ``steps`` = max_iter iterations (gradient), plus the polish when ``polish`` (hessian,
+    anneal). Used by the sweep and by climb."""
     eg, hess = passes
     if method == "gradient":  # and its local-maximum check: a Hessian, a pass, the eigenvalues
         return (gradient_passes(n, steps) + 1) * eg + hess + check_seconds(n)
     finish = polish_passes(n, method) * eg + polish_extra(n, hess) if polish else 0.0
     if method == "hessian":  # each step a Hessian pass and Lanczos
-        return moves * (hess + LANCZOS_SECONDS[0] + LANCZOS_SECONDS[1] * n**2) + finish
+        first = first_stage_passes(n) * eg if field else 0.0
+        return first + moves * (hess + LANCZOS_SECONDS[0] + LANCZOS_SECONDS[1] * n**2) + finish
     return steps * eg + finish  # anneal: one pass per step
 
 
@@ -223,7 +243,8 @@ def estimate_from(cal: dict[str, Calibration], tasks, workers: int, embedded: bo
             moves = hessian_moves(t.mixture.mixture, k)
         steps = opts["max_iter"] if t.method.name == "gradient" else opts["steps"]
         polish = bool(opts.get("polish"))
-        total += run_seconds(t.method.name, t.n, steps, polish, (eg, hess), moves)
+        field = t.mixture.mixture.has_field
+        total += run_seconds(t.method.name, t.n, steps, polish, (eg, hess), moves, field)
     return total / max(1, workers) + (_CLUSTER_START if embedded else 0.0)
 
 
