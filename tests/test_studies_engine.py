@@ -101,8 +101,14 @@ def _spec(seeds="0-3"):
 
 def test_sweep_on_two_worker_local_cluster(tmp_path):
     spec = _spec()
-    out = run_study(spec, tmp_path / "s", workers=2, progress=False)
+    said: list[str] = []
+    out = run_study(spec, tmp_path / "s", workers=2, progress=False, log=said.append)
     assert out.plan is not None and out.plan.workers == 2
+    # from Python too, the sweep says what it will take before it starts (a user trial: only
+    # the command line printed the memory and the time estimate)
+    assert said[0] == f"study: 16 tasks (0 already done, 16 to run) in {tmp_path / 's'}"
+    assert said[1].startswith("largest instance: ") and "of coefficients" in said[1]
+    assert any(line.startswith("rough time estimate: ") for line in said)
     assert out.done == len(spec.tasks()) == 16 and out.failed == 0
     table = pq.read_table(tmp_path / "s" / "results.parquet").to_pylist()
     assert len(table) == 16
@@ -112,8 +118,10 @@ def test_sweep_on_two_worker_local_cluster(tmp_path):
     assert all(r["steps"] == 10 for r in table if r["method"] == "hessian")
     assert all(r["steps"] >= 1 for r in table if r["method"] == "gradient")
     # rerun: everything skipped, nothing rewritten
-    again = run_study(spec, tmp_path / "s", workers=2, progress=False)
+    said.clear()
+    again = run_study(spec, tmp_path / "s", workers=2, progress=False, log=said.append)
     assert again.skipped == 16 and again.done == 0
+    assert said[0] == f"study: 16 tasks, all done already, in {tmp_path / 's'}"
 
 
 def test_refuses_folder_of_a_different_study(tmp_path, capsys):

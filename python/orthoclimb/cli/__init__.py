@@ -16,6 +16,7 @@ from collections.abc import Sequence
 from importlib import import_module
 from typing import TYPE_CHECKING
 
+from .._text import seconds_text  # noqa: F401  (the subcommands import it from here)
 from ..fileio import undone_on_failure
 
 if TYPE_CHECKING:
@@ -106,25 +107,6 @@ def exponent_value(text: str) -> float:
     if not (math.isfinite(value) and value > 0):
         raise argparse.ArgumentTypeError(f"the exponent must be positive and finite, got {text!r}")
     return value
-
-
-def seconds_text(seconds: float) -> str:
-    """A duration for people: "850 ms", "3.2 s", "42 s", "7 min", "2.5 h"."""
-    import math
-
-    if not (math.isfinite(seconds) and seconds >= 0.0):
-        return "unknown"
-    if seconds < 0.9995e-3:
-        return f"{seconds * 1e6:.0f} us"
-    if seconds < 0.9995:
-        return f"{seconds * 1e3:.0f} ms"
-    if seconds < 9.95:
-        return f"{seconds:.1f} s"
-    if seconds < 99.5:
-        return f"{seconds:.0f} s"
-    if seconds < 5970:
-        return f"{seconds / 60:.0f} min"
-    return f"{seconds / 3600:.1f} h"
 
 
 def threads_from(args: argparse.Namespace) -> str | None:

@@ -29,7 +29,7 @@ from ..studies.grid import (
     spec_from_flags,
     spec_from_toml,
 )
-from . import exponent_value, positive_number, seconds_text, user_path
+from . import exponent_value, positive_number, user_path
 
 EPILOG = "A study TOML file (the grid, instead of the flags):\n\n" + TOML_EXAMPLE
 
@@ -210,52 +210,16 @@ def execute(
 ) -> tuple[Any, Any]:
     """Run ``spec`` into ``out`` with the engine flags of ``args``; then write the report.
     With ``args.plan_only``, print the plan and return (None, None) without running."""
-    from ..model.memory import format_bytes
     from ..studies.engine import counted, run_study
-    from ..studies.estimate import estimate_seconds, fixed_path_notes, largest_instance
+    from ..studies.estimate import plan_lines
     from ..studies.report import write_report
     from ..studies.store import Store
 
     plan_only = getattr(args, "plan_only", False)
 
     def on_start(pending: list, plan) -> None:
-        total = len(spec.tasks())
-        if not pending:  # a complete study: nothing to plan
-            say(f"study: {total} tasks, all done already, in {out}")
-            if plan_only:
-                raise _PlanShown
-            return
-        nbytes, mix, n = largest_instance(spec, pending)
-        say(
-            f"study: {total} tasks ({total - len(pending)} already done, {len(pending)} to run)"
-            f" in {out}"
-        )
-        say(
-            f"largest instance: {mix}, n = {n}: {format_bytes(nbytes)} of coefficients per "
-            "running task"
-        )
-        if plan is not None:
-            say(
-                "embedded Dask cluster: "
-                f"{counted(plan.workers, 'worker process', 'worker processes')} x "
-                f"{plan.dask_threads} task x {counted(plan.rayon_threads, 'kernel thread')} = "
-                f"{counted(plan.cores_used, 'core')}"
-            )
-            workers, threads = plan.workers, plan.rayon_threads
-        else:
-            say(f"Dask scheduler: {args.scheduler}")
-            workers, threads = 1, args.threads or 1
-        est = estimate_seconds(spec, pending, workers, threads, embedded=plan is not None)
-        where = " for one worker of the external cluster" if plan is None else ""
-        # timed on this machine as it is now; other work started later slows the run (a
-        # review measured 80 s for an estimate of 30 s with a load of 4 on two cores)
-        say(
-            f"rough time estimate: {seconds_text(est)}{where}, if the cores stay free of other"
-            " work",
-            flush=True,
-        )
-        for note in fixed_path_notes(spec):
-            say(note)
+        for line in plan_lines(spec, out, pending, plan, args.scheduler, args.threads):
+            say(line, flush=True)
         if plan_only:
             raise _PlanShown
 

@@ -350,8 +350,11 @@ def run_study(
     ``workers``/``threads``: override the plan (embedded cluster) or set the kernel threads per
     task (external cluster; default 1). ``retries``: Dask retries per task after an exception.
     ``timeout``: seconds to reach the scheduler. ``on_start(pending, plan)`` is called before
-    the cluster starts with the pending tasks (the CLI prints counts and estimates there),
-    also with none (and no plan) for a complete study.
+    the cluster starts with the pending tasks, also with none (and no plan) for a complete
+    study; by default it passes to ``log`` the lines the command line prints there
+    (:func:`.estimate.plan_lines`: the tasks, the memory of the largest instance, the workers
+    and a time estimate, for which the kernels are timed first; ``on_start=lambda *a: None``
+    skips them).
     ``progress``: a tqdm bar (True), none (False), or one only when stderr is a terminal (None,
     what the command line uses, so logs get no redrawn bar).
     ``keep_points``: the tasks this sweep runs also keep their final unit vector, in
@@ -391,6 +394,14 @@ def run_study(
     tasks = spec.tasks()
     if scheduler is None:
         _check_largest_fits(spec, tasks)  # before the study folder is created
+    if on_start is None:  # say what the sweep will take before it takes it
+
+        def on_start(pending: list, plan: WorkerPlan | None) -> None:
+            from .estimate import plan_lines
+
+            for line in plan_lines(spec, str(folder), pending, plan, scheduler, threads):
+                log(line)
+
     with sweep_lock(folder):  # one sweep per folder
         return _sweep(
             spec,

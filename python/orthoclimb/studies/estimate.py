@@ -70,6 +70,7 @@ __all__ = [
     "gradient_passes",
     "largest_instance",
     "largest_size_within",
+    "plan_lines",
     "polish_extra",
     "polish_passes",
     "run_seconds",
@@ -295,3 +296,52 @@ def fixed_path_notes(spec: StudySpec) -> list[str]:
                 f" {alg - e_k:.4f} short of ALG = {alg:.4f} however large n; {grow}"
             )
     return out
+
+
+def plan_lines(
+    spec: StudySpec,
+    folder: str,
+    pending: list,
+    plan,
+    scheduler: str | None = None,
+    threads: int | None = None,
+) -> list[str]:
+    """What a sweep says before it starts (the command line prints it, and so does
+    :func:`~orthoclimb.studies.run_study` by default): the tasks to run, the memory of the
+    largest instance, the workers (``plan``, a :class:`~orthoclimb.studies.engine.WorkerPlan`,
+    or None on the external ``scheduler``, where a task takes ``threads`` kernel threads), the
+    time estimate (:func:`estimate_seconds`, which times the kernels first) and the notes of
+    :func:`fixed_path_notes`. With no task pending, one line saying so."""
+    from .._text import seconds_text
+    from ..model.memory import format_bytes
+    from .engine import counted
+
+    total = len(spec.tasks())
+    if not pending:  # a complete study: nothing to plan
+        return [f"study: {total} tasks, all done already, in {folder}"]
+    nbytes, mix, n = largest_instance(spec, pending)
+    lines = [
+        f"study: {total} tasks ({total - len(pending)} already done, {len(pending)} to run)"
+        f" in {folder}",
+        f"largest instance: {mix}, n = {n}: {format_bytes(nbytes)} of coefficients per running"
+        " task",
+    ]
+    if plan is not None:
+        lines.append(
+            "embedded Dask cluster: "
+            f"{counted(plan.workers, 'worker process', 'worker processes')} x "
+            f"{plan.dask_threads} task x {counted(plan.rayon_threads, 'kernel thread')} = "
+            f"{counted(plan.cores_used, 'core')}"
+        )
+        workers, threads = plan.workers, plan.rayon_threads
+    else:
+        lines.append(f"Dask scheduler: {scheduler}")
+        workers, threads = 1, threads or 1
+    est = estimate_seconds(spec, pending, workers, threads, embedded=plan is not None)
+    where = " for one worker of the external cluster" if plan is None else ""
+    # timed on this machine as it is now; other work started later slows the run (a review
+    # measured 80 s for an estimate of 30 s with a load of 4 on two cores)
+    lines.append(
+        f"rough time estimate: {seconds_text(est)}{where}, if the cores stay free of other work"
+    )
+    return lines + fixed_path_notes(spec)

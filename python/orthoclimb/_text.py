@@ -1,0 +1,25 @@
+"""Numbers for people, shared by the command line and the library's own messages (no heavy
+imports: the command line's entry module imports this)."""
+
+from __future__ import annotations
+
+__all__ = ["seconds_text"]
+
+
+def seconds_text(seconds: float) -> str:
+    """A duration for people: "850 ms", "3.2 s", "42 s", "7 min", "2.5 h"."""
+    import math
+
+    if not (math.isfinite(seconds) and seconds >= 0.0):
+        return "unknown"
+    if seconds < 0.9995e-3:
+        return f"{seconds * 1e6:.0f} us"
+    if seconds < 0.9995:
+        return f"{seconds * 1e3:.0f} ms"
+    if seconds < 9.95:
+        return f"{seconds:.1f} s"
+    if seconds < 99.5:
+        return f"{seconds:.0f} s"
+    if seconds < 5970:
+        return f"{seconds / 60:.0f} min"
+    return f"{seconds / 3600:.1f} h"
