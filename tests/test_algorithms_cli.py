@@ -387,3 +387,28 @@ def test_climb_reports_its_sampling_time_and_the_top_tangent_eigenvalue(tmp_path
     assert main([*args, "--out", str(tmp_path / "b")]) == 0
     out = capsys.readouterr().out
     assert "top tangent eigenvalue" in out and "(sampling " in out
+
+
+@pytest.mark.parametrize(
+    ("argv", "words"),
+    [
+        (["climb", "--gammas", "2:1", "--n", "20", "--method", "gradient", "--start", "top"],
+         "--start applies to --method hessian only, not gradient"),
+        (["climb", "--gammas", "3:1", "--n", "20", "--start", "top"],
+         "--start top needs a degree-2 term"),
+        (["sweep", "--gammas", "2:1", "--n", "20", "--seeds", "0", "--methods", "gradient",
+          "--start", "top"], "--start applies to the method hessian, not in --methods gradient"),
+    ],
+)  # fmt: skip
+def test_the_start_flag_is_refused_where_it_does_nothing(tmp_path, capsys, argv, words):
+    assert main([*argv, "--out", str(tmp_path / "o")]) == 2
+    assert words in capsys.readouterr().err
+
+
+def test_climb_starts_along_the_top_eigenvector_where_there_is_a_degree_2_term(tmp_path, capsys):
+    base = ["climb", "--gammas", "2:1,4:0.25", "--n", "40", "--steps", "10", "--json"]
+    for start, used in ((None, "top"), ("random", "random")):
+        flag = [] if start is None else ["--start", start]
+        assert main([*base, *flag, "--out", str(tmp_path / used)]) == 0
+        capsys.readouterr()
+        assert oc.load_result(tmp_path / used / "result").config["start"] == used

@@ -420,9 +420,15 @@ def test_every_step_is_within_delta_of_the_top_eigenvalue(monkeypatch):
     monkeypatch.setattr(ascent_module, "top_tangent_eigenpair", checked)
     delta = 1e-3
     ham = oc.Hamiltonian.sample(oc.Mixture({2: 1.0, 4: 0.3}), 150, seed=10)
-    oc.hessian_ascent(ham, steps=40, tol=delta, seed=0, polish=False, hessian="dense")
-    assert len(short) == 39
-    assert max(short) <= delta, (int(np.argmax(short)), max(short))
+    # the random start of the path the review saw; from the top eigenvector of Hess H(0) the
+    # start's own solve is checked too (40 solves)
+    for start, solves in (("random", 39), ("top", 40)):
+        short.clear()
+        oc.hessian_ascent(
+            ham, steps=40, tol=delta, seed=0, polish=False, hessian="dense", start=start
+        )
+        assert len(short) == solves
+        assert max(short) <= delta, (start, int(np.argmax(short)), max(short))
 
 
 @pytest.mark.parametrize("gammas", [{3: 1.0}, {2: 1.0, 4: 0.25}, {1: 0.3, 3: 1.0}])
@@ -443,7 +449,9 @@ def test_no_step_needs_a_second_lanczos_solve(monkeypatch, gammas):
     monkeypatch.setattr(eigen_module, "eigsh", counting_eigsh)
     ham = oc.Hamiltonian.sample(oc.Mixture(gammas), 60, seed=0)
     oc.hessian_ascent(ham, steps=15, seed=1, polish=False, hessian="dense")
-    assert len(calls) == 15 - 1  # one solve per move, none repeated
+    # one solve per move, none repeated, and one for a start along the top eigenvector of
+    # Hess H(0) (a degree-2 term without a field)
+    assert len(calls) == 15 - 1 + (2 in gammas and 1 not in gammas)
 
 
 def test_a_pure_field_is_maximized_by_the_first_stage_alone():
@@ -590,12 +598,27 @@ def test_the_stepwise_limit_is_the_paths_own_prediction():
     from orthoclimb.algorithms.hessian_ascent import stepwise_limit
 
     mix = oc.Mixture.from_xi({2: 1.0, 4: 0.0625})
-    run = oc.hessian_ascent(oc.Hamiltonian.sample(mix, 40, seed=3), steps=25, seed=3, polish=False)
-    assert stepwise_limit(mix, 25) == pytest.approx(
-        run.path["predicted_energy_steps"][-1], rel=1e-12
-    )
-    assert stepwise_limit(mix, 25) < oc.algorithmic_energy(mix)
-    assert stepwise_limit(oc.Mixture({2: 1.0}), 25) == pytest.approx(2**0.5 * 24 / 25, rel=1e-12)
+    ham = oc.Hamiltonian.sample(mix, 40, seed=3)
+    for start in ("auto", "random"):
+        run = oc.hessian_ascent(ham, steps=25, seed=3, polish=False, start=start)
+        assert stepwise_limit(mix, 25, start) == pytest.approx(
+            run.path["predicted_energy_steps"][-1], rel=1e-12
+        )
+    assert run.config["start"] == "random"
+    # along the top eigenvector of Hess H(0) the start gains (1/K) sqrt(xi''(0)) = sqrt(2)/25
+    top, rand = stepwise_limit(mix, 25), stepwise_limit(mix, 25, "random")
+    assert top - rand == pytest.approx(2**0.5 / 25, rel=1e-12)
+    assert rand < top < oc.algorithmic_energy(mix)
+    # pure 2-spin, sqrt(xi'') = sqrt(2) constant (exact identities): the left Riemann sum from
+    # the top eigenvector is ALG = sqrt(2) itself, from a random start sqrt(2)(1 - 1/K); pure
+    # 3-spin, f = sqrt(6 q): sqrt(6) K^(-3/2) sum_{i<K} sqrt(i), whichever start (f(0) = 0)
+    pure2 = oc.Mixture({2: 1.0})
+    assert stepwise_limit(pure2, 25) == pytest.approx(2**0.5, rel=1e-12)
+    assert stepwise_limit(pure2, 25, "random") == pytest.approx(2**0.5 * 24 / 25, rel=1e-12)
+    want = 6**0.5 * 25**-1.5 * sum(i**0.5 for i in range(1, 25))
+    assert stepwise_limit(oc.Mixture({3: 1.0}), 25) == pytest.approx(want, rel=1e-12)
+    with pytest.raises(ValueError, match="start='top' needs a degree-2 term"):
+        stepwise_limit(oc.Mixture({3: 1.0}), 25, "top")
     assert stepwise_limit(oc.Mixture({1: 1.0, 3: 1.0}), 25) is None
     # bad input is named by this function, and steps are checked with a field too (an
     # independent check of the theory: "algorithmic_threshold() takes ...", and None for -5)
@@ -603,3 +626,28 @@ def test_the_stepwise_limit_is_the_paths_own_prediction():
         stepwise_limit({2: 1.0}, 5)
     with pytest.raises(ValueError, match="steps must be >= 1, got -5"):
         stepwise_limit(oc.Mixture({1: 1.0, 3: 1.0}), -5)
+
+
+def test_the_start_along_the_top_eigenvector_of_the_hessian_at_0():
+    # pure 2-spin, H(x) = x.A x, Hess H(0) = 2A: the first point x_0 = v/sqrt(K) has energy
+    # per spin v.A v/(K n) = theta/(2K), theta the top eigenvalue of 2A per spin; found in the
+    # tangent space of a random direction, it lies between the top two eigenvalues of 2A
+    # (interlacing), checked against scipy.linalg.eigvalsh; a random start has energy about 0
+    ham = oc.Hamiltonian.sample(oc.Mixture({2: 1.0}), 120, seed=4)
+    eig = scipy.linalg.eigvalsh(ham.hessian(np.zeros(120))) / 120
+    for mode in ("dense", "operator"):
+        run = oc.hessian_ascent(ham, steps=20, seed=2, polish=False, hessian=mode)
+        theta = run.info["start_eigenvalue"]
+        assert run.config["start"] == "top"
+        assert eig[-2] - 1e-3 <= theta <= eig[-1] + 1e-12, (mode, theta, eig[-2:])
+        assert run.path["energy"][0] == pytest.approx(theta / (2 * 20), rel=1e-9)
+    rand = oc.hessian_ascent(ham, steps=20, seed=2, polish=False, start="random")
+    assert abs(rand.path["energy"][0]) < 0.2 * run.path["energy"][0]
+    assert "start_eigenvalue" not in rand.info
+    # no degree 2: Hess H(0) = 0, so auto starts at random and top is refused by name
+    cubic = oc.Hamiltonian.sample(oc.Mixture({3: 1.0}), 30, seed=1)
+    assert oc.hessian_ascent(cubic, steps=5, polish=False).config["start"] == "random"
+    with pytest.raises(ValueError, match="start='top' needs a degree-2 term"):
+        oc.hessian_ascent(cubic, steps=5, start="top")
+    with pytest.raises(ValueError, match="start must be one of"):
+        oc.hessian_ascent(cubic, steps=5, start="up")

@@ -227,35 +227,41 @@ def test_a_mixture_whose_first_stage_ends_on_the_sphere_is_charged_no_hessian_st
 def test_the_plan_notes_a_path_of_the_same_k_at_every_size():
     # pure 2-spin: xi'' = 2 everywhere, so a path of K points from a random start gains
     # sqrt(2)/K per step over K - 1 steps, E_K = sqrt(2)(1 - 1/K) (exact identity), and
-    # falls short of ALG = sqrt(2) by sqrt(2)/K; K = 25 at n = 50 and 100 (n/8 < 25)
+    # falls short of ALG = sqrt(2) by sqrt(2)/K; K = 25 at n = 50 and 100 (n/8 < 25). From
+    # the top eigenvector of Hess H(0) (the default there) the start gains the missing
+    # sqrt(2)/K: E_K = ALG, and no note
     from orthoclimb.studies.estimate import fixed_path_notes
     from orthoclimb.studies.grid import spec_from_flags
 
-    (note,) = fixed_path_notes(spec_from_flags(["2:1"], None, "50,100", "0-3", "hessian"))
+    random = {"hessian": {"start": "random"}}
+    (note,) = fixed_path_notes(spec_from_flags(["2:1"], None, "50,100", "0-3", "hessian", random))
     e_k = math.sqrt(2) * (1 - 1 / 25)
     assert "K = 25 path points at every size of 2:1.0 (n/8 clamped to [25, 200])" in note
     assert f"E_K = {e_k:.4f}" in note and f"{math.sqrt(2) / 25:.4f} short of ALG = 1.4142" in note
     assert "before its polish" in note and "sizes from n = 208 on" in note
-    # K grows between the sizes, one size only, a field (no E_K), no Hessian ascent: no note
+    # K grows between the sizes, one size only, a field (no E_K), no Hessian ascent, pure
+    # 2-spin from the top eigenvector: no note
     for flags in [
-        (["2:1"], None, "50,400", "0-3", "hessian"),
-        (["2:1"], None, "100", "0-3", "hessian"),
+        (["3:1"], None, "50,400", "0-3", "hessian"),
+        (["3:1"], None, "100", "0-3", "hessian"),
         (["1:0.5,2:1"], None, "50,100", "0-3", "hessian"),
-        (["2:1"], None, "50,100", "0-3", "gradient"),
+        (["3:1"], None, "50,100", "0-3", "gradient"),
+        (["2:1"], None, "50,100", "0-3", "hessian"),
     ]:
         assert fixed_path_notes(spec_from_flags(*flags)) == []
-    # a K given by steps is the same at every size whatever the sizes
+    # a K given by steps is the same at every size whatever the sizes; pure 3-spin, f =
+    # sqrt(6 q): E_K = sqrt(6) K^(-3/2) sum_{i<K} sqrt(i) (exact identity)
     opts = {"hessian": {"steps": 40, "polish": False}}
-    spec = spec_from_flags(["2:1"], None, "50,400", "0-3", "hessian", opts)
+    spec = spec_from_flags(["3:1"], None, "50,400", "0-3", "hessian", opts)
     (note,) = fixed_path_notes(spec)
     assert "K = 40" in note and "(set by steps): its energy tends to" in note
-    assert f"E_K = {math.sqrt(2) * (1 - 1 / 40):.4f}" in note
+    assert f"E_K = {math.sqrt(6) * 40**-1.5 * sum(math.sqrt(i) for i in range(40)):.4f}" in note
 
 
 def test_the_sweep_plan_prints_the_path_note(tmp_path, capsys):
     from orthoclimb.cli import main
 
-    args = ["sweep", "--gammas", "2:1", "--n", "50,100", "--seeds", "0-1", "--plan-only"]
+    args = ["sweep", "--gammas", "3:1", "--n", "50,100", "--seeds", "0-1", "--plan-only"]
     assert main([*args, "--out", str(tmp_path / "s")]) == 0
     assert "note: hessian takes K = 25 path points at every size" in capsys.readouterr().out
 

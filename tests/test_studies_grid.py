@@ -448,3 +448,39 @@ def test_a_study_with_too_many_steps_is_refused():
         spec_from_flags(
             ["3:1"], None, "20,30", "0-1", "anneal", method_options={"anneal": {"steps": 10**8}}
         )
+
+
+def test_hessian_start_keeps_the_ids_and_configuration_of_runs_it_did_not_change():
+    # Hessian ascent's start option came after studies were made without it (a random start).
+    # Where the default, auto, still starts at random (no degree 2, or a field), a task keeps
+    # the id it had (the sha256 of its configuration, rebuilt here as before the option) and a
+    # study its configuration, so it resumes; where it now starts along the top eigenvector of
+    # Hess H(0) (a degree-2 term), both change, and an old study.json (read as random) refuses
+    # the new default instead of mixing two kinds of runs
+    import hashlib
+    import json
+
+    from orthoclimb.studies.grid import StudySpec, spec_from_flags
+
+    def old_id(task):
+        config = {"gammas": [[p, g] for p, g in task.mixture.gammas], "n": task.n,
+                  "seed": task.seed, "method": "hessian",
+                  "options": {"polish": True, "steps": "auto", "tol": 0.001},
+                  "dtype": "float64"}  # fmt: skip
+        text = json.dumps(config, sort_keys=True, separators=(",", ":"))
+        return hashlib.sha256(text.encode("utf-8")).hexdigest()[:16]
+
+    new = spec_from_flags(["3:1", "1:0.5,2:1", "2:1,4:0.25"], None, "20", "0", "hessian")
+    ids = {t.mixture.name: (t.task_id, old_id(t)) for t in new.tasks()}
+    assert ids["3:1.0"][0] == ids["3:1.0"][1] and ids["1:0.5,2:1.0"][0] == ids["1:0.5,2:1.0"][1]
+    assert ids["2:1.0,4:0.25"][0] != ids["2:1.0,4:0.25"][1]  # now from the top eigenvector
+    stored = new.to_dict()
+    stored["methods"] = [{"name": "hessian", "polish": True, "steps": "auto", "tol": 0.001}]
+    old = StudySpec.from_dict(stored)
+    assert [t.task_id for t in old.tasks()] == [ids[t.mixture.name][1] for t in old.tasks()]
+    assert old.to_dict() != new.to_dict()
+    cubic = spec_from_flags(["3:1"], None, "20", "0", "hessian")
+    assert StudySpec.from_dict({**cubic.to_dict()}).to_dict() == cubic.to_dict()
+    assert "start" not in cubic.to_dict()["methods"][0]
+    with pytest.raises(ValueError, match="start = 'top' needs a degree-2 term, which '3:1.0'"):
+        spec_from_flags(["3:1"], None, "20", "0", "hessian", {"hessian": {"start": "top"}})

@@ -1,8 +1,13 @@
 """Hessian ascent (Subag 2018, arXiv:1812.04588): climb from near the origin to the unit
 sphere by orthogonal steps along the top eigenvector of the tangent Hessian.
 
-Without a field (no p = 1 term). Start at x_0 of norm 1/sqrt(K) in a seeded uniformly random
-direction. Step i = 0..K-2, at x = x_i with u = x/|x|:
+Without a field (no p = 1 term). Start at x_0 of norm 1/sqrt(K): with a degree-2 term, along
+the top eigenvector of Hess H(0) = 2A (the degree-2 matrix; found in the tangent space of a
+seeded random direction, which moves its eigenvalue by O(1/n)), with a seeded random sign;
+without one (Hess H(0) = 0), in a seeded uniformly random direction. Along the top eigenvector
+the start already gains (1/K) sqrt(xi''(0)) per spin, the first segment of E_path; a random
+direction gains nothing there, which cost 0.057 per spin at K = 25 for xi = q^2 + q^4/16 (a
+user trial; ``start="random"`` keeps that start). Step i = 0..K-2, at x = x_i with u = x/|x|:
 
 1. M = Hess H(x) (one pass of the Rust kernel), restricted to the tangent space u^perp: M_T =
    B^T M B for an orthonormal basis B of u^perp (see ``_eigen``);
@@ -101,9 +106,10 @@ from ._sphere import HessianReader, random_unit
 from .polish import polish as polish_point
 from .result import Result
 
-__all__ = ["auto_steps", "hessian_ascent", "hessian_moves", "stepwise_limit"]
+__all__ = ["auto_steps", "hessian_ascent", "hessian_moves", "resolve_start", "stepwise_limit"]
 
 HESSIAN_MODES = ("auto", "dense", "operator")
+START_MODES = ("auto", "top", "random")
 _WORKING_COPIES = 4  # projected copy, eigen-solver workspace, slack
 _SCALE_HEADROOM = 1.25  # next |theta| <= 1.25 |theta| (the edge moves by O(1/K) per step)
 _ON_SPHERE = 1e-12  # |x|^2 within this of 1 counts as on the unit sphere
@@ -152,22 +158,49 @@ def _ends_on_sphere(q_hat: float) -> bool:
     return 1.0 - q_hat <= _ON_SPHERE
 
 
-def stepwise_limit(mixture: Mixture, steps: int) -> float | None:
+def stepwise_limit(mixture: Mixture, steps: int, start: str = "auto") -> float | None:
     """The predicted energy per spin, as n -> infinity, at the end of a path of ``steps`` = K
-    points from a random start (a second-order prediction, each step's gain taken at the
-    Hessian's predicted edge, not a proved limit): the steps' own sum E_K(1) of
-    :func:`_stepwise_energy` over the radii^2
-    q_i = (i + 1)/K, i = 0..K-1, the run's (``path["predicted_energy_steps"]``' last value).
-    It falls short of ALG = int_0^1 f, f = sqrt(xi''), by about int_0^{1/K} f (the start's
-    radius, which a random direction gains nothing on) plus (f(1) - f(1/K)) / (2K) (the steps'
-    Riemann sum): 1.32/K at K = 25 and 1.27/K at K = 100 for the pure 3-spin model, 0.061 at
-    K = 25 for xi = q^2 + q^4/16, a loss a larger n does not remove. None for a mixture with a
-    field, whose first stage ends at q_hat > 0 instead of starting at random."""
+    points (a second-order prediction, each step's gain taken at the Hessian's predicted edge,
+    not a proved limit): the steps' own sum E_K(1) of :func:`_stepwise_energy` over the
+    radii^2 q_i = (i + 1)/K, i = 0..K-1, the run's (``path["predicted_energy_steps"]``' last
+    value), from the start ``start`` resolves to (:func:`hessian_ascent`): along the top
+    eigenvector of Hess H(0) it gains (1/K) sqrt(xi''(0)), at random nothing. It falls short
+    of ALG = int_0^1 f, f = sqrt(xi''), by about (f(1) - f(0)) / (2K) (the left Riemann sum),
+    plus int_0^{1/K} f from a random start: 1.32/K at K = 25 and 1.27/K at K = 100 for the
+    pure 3-spin model (where f(0) = 0 and both starts agree), 0.0048 at K = 25 for xi = q^2 +
+    q^4/16 (0.061 from a random start), a loss a larger n does not remove. None for a mixture
+    with a field, whose first stage ends at q_hat > 0 instead."""
     mixture = check_mixture(mixture, "stepwise_limit")
     k = check_count(steps, "steps", minimum=1)
     if algorithmic_threshold(mixture) > 0.0:
         return None
-    return float(_stepwise_energy(mixture, np.arange(1, k + 1) / k, 0.0)[-1])
+    q = np.arange(1, k + 1) / k
+    first = _start_energy(mixture, q[0], resolve_start(start, mixture.degrees, False))
+    return float(_stepwise_energy(mixture, q, first)[-1])
+
+
+def resolve_start(start: str, degrees: tuple[int, ...], field: bool) -> str:
+    """The start :func:`hessian_ascent` makes, "top" or "random", for ``start`` (one of
+    START_MODES) on a polynomial of these ``degrees``: "auto" is "top" where Hess H(0) is not
+    0 (a degree-2 term) and no first stage runs (no ``field``), else "random". "top" without a
+    degree-2 term is refused; with a field the first stage sets the start and ``start`` is not
+    used ("random" is returned, the value the option had before it existed)."""
+    if start not in START_MODES:
+        raise ValueError(f"start must be one of {START_MODES}, got {start!r}")
+    if field:
+        return "random"
+    if start == "top" and 2 not in degrees:
+        raise ValueError(
+            "start='top' needs a degree-2 term: without one Hess H(0) = 0 has no top"
+            f" eigenvector (degrees {list(degrees)})"
+        )
+    return "top" if start == "top" or (start == "auto" and 2 in degrees) else "random"
+
+
+def _start_energy(mixture: Mixture, q0: float, start: str) -> float:
+    """The predicted energy per spin at the start of radius^2 ``q0``: q0 sqrt(xi''(0)) along
+    the top eigenvector of Hess H(0) (a step from 0, at second order), 0 at random."""
+    return q0 * math.sqrt(float(mixture.xi(0.0, derivative=2))) if start == "top" else 0.0
 
 
 def _stepwise_energy(mixture: Mixture, q: np.ndarray, start: float) -> np.ndarray:
@@ -195,21 +228,47 @@ def _choose_mode(ham: Hamiltonian, mode: str) -> str:
     return "dense" if dense_work_fits(ham, _WORKING_COPIES) else "operator"
 
 
+def _top_start(
+    ham: Hamiltonian, mode: str, rng: np.random.Generator, delta: float
+) -> tuple[np.ndarray, float]:
+    """(v, theta/n): a unit top eigenvector of Hess H(0) with a random sign, and its
+    eigenvalue per spin. Found in the tangent space of a random direction u (the machinery of
+    every step: one direction less moves the top eigenvalue by O(1/n)), within delta n."""
+    n = ham.n
+    zero = np.zeros(n)
+    basis = TangentBasis(random_unit(n, rng))
+    if mode == "dense":
+        op = basis.restrict_inplace(ham.hessian(zero), np.empty((n - 1, n - 1)))
+        scale = float(np.linalg.norm(op))
+    else:
+        op = _tangent_operator(ham, zero, basis)
+        # |Hess v| of a random unit v is the root mean square eigenvalue, half the top one of a
+        # semicircle: three times it bounds the top, so rel_tol below is not too loose
+        scale = 3.0 * float(np.linalg.norm(ham.hvp(zero, random_unit(n, rng)))) + 1e-300
+    rel_tol = min(0.1, delta * n / max(scale, 1e-300))
+    theta, v, _ = top_tangent_eigenpair(op, basis, random_unit(n, rng), rel_tol)
+    return (v if rng.random() < 0.5 else -v), theta / n
+
+
 def _tangent_operator(ham: Hamiltonian, x: np.ndarray, basis: TangentBasis) -> LinearOperator:
     """B^T Hess H(x) B on the tangent coordinates, one HVP pass per product."""
     return basis.restrict_operator(lambda v: ham.hvp(x, v))
 
 
 def _predictions(
-    mixture: Mixture, qs: np.ndarray, q_hat: float, last_only: bool = False
+    mixture: Mixture, qs: np.ndarray, q_hat: float, start: str, last_only: bool = False
 ) -> dict[str, np.ndarray]:
     """The predicted columns of the path rows at radii^2 ``qs`` (in [0, 1]): E_path(q), the
     run's own steps' prediction and the edge 2 sqrt(xi''(q)) (see :func:`hessian_ascent`);
-    with ``last_only`` those of the last row alone (the callback's, one integral per step)."""
+    with ``last_only`` those of the last row alone (the callback's, one integral per step).
+    ``start``: "top" or "random", the resolved start without a field."""
     at = qs[-1:] if last_only else qs
     energy = np.asarray(path_energy(mixture, np.concatenate((qs[:1], at))), dtype=np.float64)
-    # stage 1 ends near its predicted maximum E_path(q_hat); a random start has energy ~0
-    start = float(energy[0]) if q_hat > 0.0 else 0.0
+    # stage 1 ends near its predicted maximum E_path(q_hat); a start gains _start_energy
+    if q_hat > 0.0:
+        start = float(energy[0])
+    else:
+        start = _start_energy(mixture, float(qs[0]), start)
     return {
         "predicted_energy": energy[1:],
         "predicted_energy_steps": _stepwise_energy(mixture, qs, start)[-at.size :],
@@ -274,6 +333,7 @@ def hessian_ascent(
     callback: Callable[[dict[str, Any]], Any] | None = None,
     hessian: str = "auto",
     first_stage_iter: int = 400,
+    start: str = "auto",
 ) -> Result:
     """Run Hessian ascent on ``ham`` with K = ``steps`` and eigen tolerance delta = ``tol``.
 
@@ -287,7 +347,11 @@ def hessian_ascent(
     ``seed`` the start direction (and the first Lanczos start vector); ``polish`` finish with
     :func:`orthoclimb.polish` and the local-maximum check; ``callback(row)`` is called after
     every step with the path row (a dict); ``hessian`` "auto", "dense" or "operator" (see the
-    module doc); ``first_stage_iter`` caps stage 1 with a field.
+    module doc); ``first_stage_iter`` caps stage 1 with a field; ``start`` without a field:
+    "top" along the top eigenvector of Hess H(0) (needs a degree-2 term), "random" in a
+    random direction, "auto" (default) "top" where there is a degree-2 term, else "random"
+    (see the module doc; the config records the one used, and ``info["start_eigenvalue"]`` the
+    top eigenvalue of Hess H(0) per spin, predicted 2 sqrt(xi''(0))).
 
     Returns a :class:`Result`: ``energy`` per spin at the final (polished) point, ``path`` with
     one row per visited point: ``step``, ``stage`` (1 = field stage, 2 = Hessian steps), ``q`` =
@@ -295,7 +359,8 @@ def hessian_ascent(
     ``first_order`` <grad H(x), v>/n after the sign choice, ``predicted_energy`` E_path(q),
     ``predicted_energy_steps`` what the run's own steps predict, E_path less the coarse steps'
     loss (the sum of (q_{i+1} - q_i) sqrt(xi''(q_i)) over the steps so far, from E_path(q_hat)
-    after stage 1 or from 0 at a random start), ``predicted_edge`` 2 sqrt(xi''(q)), and the
+    after stage 1, from (1/K) sqrt(xi''(0)) along the top eigenvector of Hess H(0), or from 0
+    at a random start), ``predicted_edge`` 2 sqrt(xi''(q)), and the
     seconds of the Hessian pass (``t_hessian``), the extra gradient pass if any
     (``t_gradient``) and the eigen-solve (``t_eigen``). The last row is the end point (no
     eigen-solve there: NaN).
@@ -338,10 +403,16 @@ def hessian_ascent(
         for c in _COLUMNS:
             rows[c].append(row.get(c, math.nan))
 
+    begin = resolve_start(start, ham.degrees if mixture is None else mixture.degrees, q_hat > 0)
     if q_hat > 0.0:
         x, info["first_stage"] = _first_stage(ham, q_hat, first_stage_iter)
         info["first_stage"]["predicted"] = float(path_energy(mixture, q_hat))
         stage = 1
+    elif begin == "top":
+        with one_blas_thread():
+            direction, info["start_eigenvalue"] = _top_start(ham, mode, rng, delta)
+        x = direction / math.sqrt(k)
+        stage = 2
     else:
         x = random_unit(n, rng) / math.sqrt(k)
         stage = 2
@@ -421,7 +492,7 @@ def hessian_ascent(
                 row["q"] = min(max(row["q"], 0.0), 1.0)  # clipped as in the Result's path
                 if mixture is not None:  # the path's predictions, as the Result will have them
                     qs = np.clip(np.asarray(rows["q"], dtype=np.float64), 0.0, 1.0)
-                    last = _predictions(mixture, qs, q_hat, last_only=True)
+                    last = _predictions(mixture, qs, q_hat, begin, last_only=True)
                     row.update({c: float(v[0]) for c, v in last.items()})
                 callback(row)
             x = x + eps * v
@@ -434,7 +505,7 @@ def hessian_ascent(
     path["stage"] = path["stage"].astype(np.int64)
     path["q"] = np.clip(path["q"], 0.0, 1.0)  # |x|^2 rounds to 1 + 2e-16 on the sphere
     if mixture is not None:
-        path.update(_predictions(mixture, path["q"], q_hat))
+        path.update(_predictions(mixture, path["q"], q_hat, begin))
     norm = float(np.linalg.norm(x))
     x = x / norm
     e_ascent = float(path["energy"][-1])
@@ -477,5 +548,6 @@ def hessian_ascent(
         polish=bool(polish),
         hessian=hessian,
         first_stage_iter=first_stage_iter,
+        start=begin,
     )
     return Result(x, energy, path, config, time.perf_counter() - t_start, info)

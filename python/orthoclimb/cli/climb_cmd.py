@@ -43,6 +43,7 @@ from ..studies.estimate import (
     largest_size_within,
     run_seconds,
 )
+from ..studies.grid import start_used
 from . import (
     add_mixture_flags,
     mixture_from,
@@ -90,6 +91,15 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
         help="hessian: eigen tolerance delta (default 1e-3)",
     )
     parser.add_argument("--no-polish", action="store_true", help="skip the final polish")
+    parser.add_argument(
+        "--start",
+        choices=("auto", "top", "random"),
+        default=None,
+        help="hessian without a field: the first point along the top eigenvector of Hess H(0)"
+        " (top, needs a degree-2 term) or in a random direction (random, as before December"
+        " 2026: reruns an older sweep's row); auto (default) is top where there is a degree-2"
+        " term",
+    )
     parser.add_argument(
         "--dtype",
         choices=("float64", "float32"),
@@ -159,7 +169,13 @@ def _sampling_text(probe: Hamiltonian, seconds: float, need: int) -> str:
 
 
 def _run_estimate(
-    ham: Hamiltonian, method: str, steps: int, polish: bool, n: int | None = None, scale=1.0
+    ham: Hamiltonian,
+    method: str,
+    steps: int,
+    polish: bool,
+    n: int | None = None,
+    scale=1.0,
+    start: str = "auto",
 ) -> str:
     """The run's time from timed passes, by the sweep's model (orthoclimb.studies.estimate):
     K - 1 Hessian passes plus Lanczos for hessian (none when the first stage ends on the
@@ -172,6 +188,8 @@ def _run_estimate(
     n = ham.n if n is None else n
     grad = scale * _time_pass(ham, "gradient")
     moves = hessian_moves(ham.mixture, steps) if method == "hessian" else 0
+    if method == "hessian" and ham.mixture is not None and start_used(start, ham.mixture) == "top":
+        moves += 1  # the start along the top eigenvector of Hess H(0): about one step more
     needs_hessian = moves > 0 or polish or method == "gradient"
     hess = scale * _time_pass(ham, "hessian") if needs_hessian else 0.0
     field = ham.mixture is not None and ham.mixture.has_field
@@ -311,6 +329,13 @@ def run(args: argparse.Namespace) -> int:
     check_count(steps, flag, maximum=MAX_STEPS if flag == "--steps" else None)
     if args.tol is not None and args.method != "hessian":
         raise ValueError(f"--tol applies to --method hessian only, not {args.method}")
+    if args.start is not None and args.method != "hessian":
+        raise ValueError(f"--start applies to --method hessian only, not {args.method}")
+    start = "auto" if args.start is None else args.start
+    if start == "top" and 2 not in mixture.degrees:
+        raise ValueError(
+            "--start top needs a degree-2 term (Hess H(0) = 0 without one); give auto or random"
+        )
     if args.no_polish and args.method == "gradient":
         raise ValueError(
             "--no-polish applies to --method hessian or anneal; gradient does not polish"
@@ -341,7 +366,8 @@ def run(args: argparse.Namespace) -> int:
     if args.plan_only:  # before the memory check: a plan may be for a bigger machine
         probe, seconds = _probe(mixture, args.n, args.dtype)
         say(_sampling_text(probe, seconds, need))
-        say(_run_estimate(probe, args.method, steps, polish, args.n, need / probe.nbytes))
+        scale = need / probe.nbytes
+        say(_run_estimate(probe, args.method, steps, polish, args.n, scale, start))
         try:
             require_memory(need, f"an instance of {mixture!r} with n = {args.n}")
         except MemoryError as exc:
@@ -357,7 +383,7 @@ def run(args: argparse.Namespace) -> int:
     started = time.perf_counter()
     ham = Hamiltonian.sample(mixture, args.n, args.seed, dtype=args.dtype, progress=bars)
     sampling_seconds = time.perf_counter() - started
-    say(_run_estimate(ham, args.method, steps, polish))
+    say(_run_estimate(ham, args.method, steps, polish, start=start))
 
     from tqdm import tqdm
 
@@ -381,6 +407,7 @@ def run(args: argparse.Namespace) -> int:
                 seed=args.start_seed,
                 polish=polish,
                 callback=progress,
+                start=start,
             )
         elif args.method == "gradient":
             result = gradient_ascent(ham, seed=args.start_seed, max_iter=steps, callback=progress)

@@ -121,6 +121,14 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
         "--no-polish", action="store_true", help="hessian and anneal: skip the final polish"
     )
     parser.add_argument(
+        "--start",
+        choices=("auto", "top", "random"),
+        default=None,
+        help="hessian without a field: its first point along the top eigenvector of Hess H(0)"
+        " (top, needs a degree-2 term) or in a random direction (random); auto (default) is"
+        " top where there is a degree-2 term; as in climb",
+    )
+    parser.add_argument(
         "--max-iter", type=int, default=None, help="gradient: iteration cap (default 2000)"
     )
     parser.add_argument(
@@ -149,7 +157,7 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
 
 
 def _spec(args: argparse.Namespace) -> StudySpec:
-    flags = [args.gammas, args.xi, args.sizes, args.seeds, args.steps, args.tol]
+    flags = [args.gammas, args.xi, args.sizes, args.seeds, args.steps, args.tol, args.start]
     flags += [args.max_iter, args.dtype]  # every flag of the grid, beside a TOML file
     if args.spec is not None:
         if any(f is not None for f in flags) or args.no_polish:
@@ -166,6 +174,7 @@ def _spec(args: argparse.Namespace) -> StudySpec:
     given = (
         ("--steps", "steps", args.steps, ("hessian", "anneal")),
         ("--tol", "tol", args.tol, ("hessian",)),
+        ("--start", "start", args.start, ("hessian",)),
         ("--no-polish", "polish", False if args.no_polish else None, ("hessian", "anneal")),
         ("--max-iter", "max_iter", args.max_iter, ("gradient",)),
     )

@@ -10,7 +10,8 @@ allows. The pass counts are means measured over 5-20 seeds of four mixtures (3:1
 as a + b ln n, since a study adds its tasks up:
 
 * Hessian ascent: K - 1 Hessian steps (none when the first stage ends on the sphere,
-  ``hessian_moves``), each a Hessian pass plus Lanczos, about 6e-4 + 1.1e-8 n^2 s
+  ``hessian_moves``; one more for a start along the top eigenvector of Hess H(0)), each a
+  Hessian pass plus Lanczos, about 6e-4 + 1.1e-8 n^2 s
   (medians per step on one thread 0.7, 1.4 and 1.8 ms at n = 100, 220 and 320 for the pure
   3-spin model, 3.9 and 10.4 ms at n = 600 and 1000 for the pure 2-spin one); with its
   polish, 22 ln n - 61 energy-and-gradient passes (at least 20; 25 at n = 50, 86 at 800).
@@ -52,7 +53,7 @@ from dataclasses import dataclass
 import numpy as np
 
 from ..algorithms.hessian_ascent import auto_steps, hessian_moves, stepwise_limit
-from .grid import StudySpec
+from .grid import LEGACY_START, StudySpec, start_used
 from .profile import best_time
 
 __all__ = [
@@ -242,6 +243,8 @@ def estimate_from(cal: dict[str, Calibration], tasks, workers: int, embedded: bo
         if t.method.name == "hessian":
             k = auto_steps(t.n) if opts["steps"] == "auto" else opts["steps"]
             moves = hessian_moves(t.mixture.mixture, k)
+            # a start along the top eigenvector of Hess H(0) costs about one step more
+            moves += start_used(opts.get("start", LEGACY_START), t.mixture.mixture) == "top"
         steps = opts["max_iter"] if t.method.name == "gradient" else opts["steps"]
         polish = bool(opts.get("polish"))
         field = t.mixture.mixture.has_field
@@ -274,16 +277,19 @@ def fixed_path_notes(spec: StudySpec) -> list[str]:
             continue
         given = dict(method.options)["steps"]
         series = "before its polish it" if dict(method.options)["polish"] else "its energy"
+        start = dict(method.options).get("start", LEGACY_START)
         for m in spec.mixtures:
             sizes = m.sizes or spec.sizes
             ks = {auto_steps(n) if given == "auto" else given for n in sizes}
             if len(sizes) < 2 or len(ks) != 1:
                 continue
             k = ks.pop()
-            e_k = stepwise_limit(m.mixture, k)
+            e_k = stepwise_limit(m.mixture, k, start)
             if e_k is None:
                 continue
             alg = algorithmic_energy(m.mixture)
+            if alg - e_k <= 1e-9 * alg:  # pure 2-spin from the top eigenvector: E_K = ALG
+                continue
             why = "n/8 clamped to [25, 200]" if given == "auto" else "set by steps"
             grow = (
                 "sizes from n = 208 on, where K grows, let it approach ALG"

@@ -54,7 +54,7 @@ gammas = { 3 = 1.0 }              # p -> gamma_p; or xi = { 3 = 1.0 } (p -> gamm
 
 [[method]]                        # one block per method
 name = "hessian"                  # hessian | gradient | anneal
-steps = 100                       # hessian: steps ("auto"), tol, polish
+steps = 100                       # hessian: steps ("auto"), tol, polish, start
                                   # gradient: max_iter, gtol
                                   # anneal: steps, eta, t_start, t_end, polish
 """
@@ -62,9 +62,15 @@ steps = 100                       # hessian: steps ("auto"), tol, polish
 # method -> option -> (type, default). Defaults follow orthoclimb.hessian_ascent /
 # orthoclimb.gradient_ascent / orthoclimb.langevin_anneal (its geometric schedule from t_start
 # to t_end in steps); an integer option whose default is "auto" also takes "auto"
-# (Hessian-ascent steps: orthoclimb.algorithms.auto_steps(n), chosen per task).
+# (Hessian-ascent steps: orthoclimb.algorithms.auto_steps(n), chosen per task); a text option
+# takes one of its CHOICES.
 METHOD_OPTIONS: dict[str, dict[str, tuple[type, Any]]] = {
-    "hessian": {"steps": (int, "auto"), "tol": (float, 1e-3), "polish": (bool, True)},
+    "hessian": {
+        "steps": (int, "auto"),
+        "tol": (float, 1e-3),
+        "polish": (bool, True),
+        "start": (str, "auto"),
+    },
     "gradient": {"max_iter": (int, 2000), "gtol": (float, 1e-7)},
     "anneal": {
         "steps": (int, 400),
@@ -74,7 +80,34 @@ METHOD_OPTIONS: dict[str, dict[str, tuple[type, Any]]] = {
         "polish": (bool, True),
     },
 }
+CHOICES = {"start": ("auto", "top", "random")}
+# Hessian ascent's start before the option existed: a study.json without it was run so, and
+# the option is left out of a configuration (and of its tasks' ids) where it has this value,
+# so such a study keeps its task ids and still resumes (given this value).
+LEGACY_START = "random"
 MAX_SIZE = 100_000
+
+
+def start_used(start: str, mixture: Mixture) -> str:
+    """The start Hessian ascent makes on ``mixture`` under the option ``start``: "top" along
+    the top eigenvector of Hess H(0), or "random" (a random direction; with a field the first
+    stage sets the start, which counts as "random", the value the option had before); see
+    :func:`orthoclimb.algorithms.hessian_ascent.resolve_start`."""
+    from ..algorithms.hessian_ascent import resolve_start
+
+    return resolve_start(start, mixture.degrees, mixture.has_field)
+
+
+def canonical_options(method: MethodSpec, mixtures: list[Mixture]) -> dict[str, Any]:
+    """The options of ``method`` as a configuration records them: Hessian ascent's start is
+    left out where it starts at random on every one of ``mixtures`` (as before the option
+    existed), so a study or task whose runs did not change keeps its configuration and id."""
+    opts = dict(method.options)
+    if "start" in opts and all(start_used(opts["start"], m) == "random" for m in mixtures):
+        del opts["start"]
+    return opts
+
+
 # A study writes one row file per task and holds its task list in memory: a grid beyond this
 # is almost surely a typo (say "0-1000000000"), and would exhaust memory before starting.
 MAX_TASKS = 100_000
@@ -198,8 +231,15 @@ class MethodSpec:
             )
         out = {}
         for key, (kind, default) in allowed.items():
+            if key == "start" and stored:
+                default = LEGACY_START  # a stored study without it ran from random starts
             value = given.get(key, default)
-            if kind is bool:
+            if kind is str:
+                if value not in CHOICES[key]:
+                    raise ValueError(
+                        f"option {key} of {name} must be one of {list(CHOICES[key])}, got {value!r}"
+                    )
+            elif kind is bool:
                 if not isinstance(value, bool):
                     raise TypeError(f"option {key} of {name} must be true/false, got {value!r}")
             elif kind is int:
@@ -302,6 +342,14 @@ class StudySpec:
                         f" ({spec.mixture.to_text()}) at n = {min(common)}: their tasks would"
                         " be the same; keep one name for it at each size"
                     )
+        for method in self.methods:
+            if dict(method.options).get("start") == "top":
+                flat = [m.name for m in self.mixtures if 2 not in m.mixture.degrees]
+                if flat:
+                    raise ValueError(
+                        f"hessian's start = 'top' needs a degree-2 term, which {flat[0]!r} has"
+                        " not (Hess H(0) = 0 there); use 'auto', which starts at random there"
+                    )
         labels = [m.label for m in self.methods]
         if len(set(labels)) != len(labels):
             raise ValueError(f"each method may appear once, got {labels}")
@@ -327,7 +375,10 @@ class StudySpec:
             "mixtures": [m.to_dict() for m in self.mixtures],
             "sizes": list(self.sizes),
             "seeds": list(self.seeds),
-            "methods": [m.to_dict() for m in self.methods],
+            "methods": [
+                {"name": m.name, **canonical_options(m, [x.mixture for x in self.mixtures])}
+                for m in self.methods
+            ],
             "exponent": self.exponent,
             "dtype": self.dtype,
         }

@@ -6,9 +6,10 @@ count - 1 degrees of freedom, p < ``MEAN_LEVEL``), and by the sign test of
 :func:`paired_comparison` (one method higher on most instances, two-sided binomial p <
 ``SIGN_LEVEL``), which detects a small but consistent edge. Each pair is tested on its own,
 with no correction for multiple comparisons: with many methods, expect an occasional edge by
-chance. All methods start from the seed's random direction, so on an easy landscape they often
-stop at the same point: runs within ``TIE_RELATIVE`` GS of each other are ties, counted apart
-and left out of the sign test.
+chance. The methods start from the seed's random direction (Hessian ascent, where there is a
+degree-2 term and no field, along the top eigenvector of Hess H(0) instead), so on an easy
+landscape they often stop at the same point: runs within ``TIE_RELATIVE`` GS of each other
+are ties, counted apart and left out of the sign test.
 """
 
 from __future__ import annotations
@@ -130,7 +131,7 @@ def head_to_head(
     records: list[dict[str, Any]] | None = None,
 ) -> str | None:
     """Methods a and b on the same instances of ``mix`` at their largest common size with two
-    or more paired seeds (paired over seeds; both start from each seed's random direction), or
+    or more paired seeds (paired over seeds, each instance's runs seeded alike), or
     None without one. A larger size with fewer paired seeds (an interrupted sweep) is named,
     not allowed to hide the comparison. ``records``: the pair's
     :func:`comparisons_per_size`, when the caller has them already."""

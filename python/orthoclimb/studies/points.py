@@ -9,8 +9,10 @@ bytes per task this way (n = 1000: 8 kB).
 
 The overlap of two runs on the same instance (same mixture, n and seed) is
 R = <x_a, x_b>, in [-1, 1] since both are unit vectors: 1 for the same point, about
-n^(-1/2) in size for unrelated directions. Both methods start from the same seeded random
-direction (see the README), so R measures how far apart they end from a common start.
+n^(-1/2) in size for unrelated directions. The methods start from the same seeded random
+direction (see the README; Hessian ascent with a degree-2 term and no field along the top
+eigenvector of Hess H(0) instead), so R mostly measures how far apart they end from a common
+start.
 
 With a field (a p = 1 term, H_1(x) = <h, x>) every good end point leans toward the field's
 direction e = h/|h|: x = alpha e + (the rest), so two end points that are otherwise unrelated
@@ -259,7 +261,8 @@ def overlap_markdown(summary: list[dict[str, Any]]) -> list[str]:
         "## Overlaps of end points",
         "",
         "R = <x_a, x_b> between two methods' end points on the same instance, both unit"
-        f" vectors started from the same seeded random direction. Same: pairs with R >"
+        " vectors started from the same seeded random direction (Hessian ascent with a degree-2"
+        " term and no field: along the top eigenvector of Hess H(0)). Same: pairs with R >"
         f" {SAME_POINT}; mirror: R < -{SAME_POINT} (for a mixture of even degrees only, where"
         " H(-x) = H(x), the same configuration, and only |R| means anything); the mean |R| of"
         " the other pairs is set beside its value for unrelated directions (Gamma(n/2) /"

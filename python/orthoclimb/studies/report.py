@@ -34,7 +34,7 @@ from ..fileio import ensure_folder, json_writer, refuse_folder, write_all_atomic
 from .cost import cost_markdown, cost_table
 from .engine import counted
 from .extrapolate import Extrapolation, check_interval, extrapolate
-from .grid import StudySpec
+from .grid import LEGACY_START, StudySpec
 from .laws import (
     add_other_laws,
     against_theory,
@@ -314,8 +314,12 @@ def build_report(
             entry["z_gs"] = (ex.value - th["gs"]) / se
             add_other_laws(entry, sizes, samples, level, n_boot, seed=seed)
             if label == "hessian" + BEFORE_POLISH:
+                hessian = next(me for me in spec.methods if me.name == "hessian")
                 _add_stepwise_limit(
-                    entry, m.mixture, [steps.get((m.name, label, n)) for n in sizes]
+                    entry,
+                    m.mixture,
+                    [steps.get((m.name, label, n)) for n in sizes],
+                    dict(hessian.options).get("start", LEGACY_START),
                 )
             fits.append(entry)
     missing = len(spec.tasks()) - len(rows)
@@ -363,15 +367,17 @@ def build_report(
     return rep
 
 
-def _add_stepwise_limit(entry: dict[str, Any], mixture: Any, ks: list[float | None]) -> None:
+def _add_stepwise_limit(
+    entry: dict[str, Any], mixture: Any, ks: list[float | None], start: str
+) -> None:
     """With the same K at every size of a Hessian-ascent fit before polish, the n -> infinity
-    energy its K points reach (``stepwise_limit``: the coarse steps' loss stays however large
-    n) as ``e_k``, and the fit's distance to it in s.e. as ``z_k``."""
+    energy its K points reach from the runs' ``start`` (``stepwise_limit``: the coarse steps'
+    loss stays however large n) as ``e_k``, and the fit's distance to it in s.e. as ``z_k``."""
     from ..algorithms.hessian_ascent import stepwise_limit
 
     if not ks or ks[0] is None or any(k != ks[0] for k in ks) or ks[0] != int(ks[0]):
         return
-    e_k = stepwise_limit(mixture, int(ks[0]))
+    e_k = stepwise_limit(mixture, int(ks[0]), start)
     if e_k is None:
         return
     se = entry["se"] if entry["se"] > 0 else math.nan
@@ -560,7 +566,9 @@ def _markdown(rep: Report) -> str:
         "the two ranges apart); a theory value outside the interval but inside that range is "
         "consistent only under another law. Head-to-head comparisons pair the methods "
         "seed by seed (paired t-test on the mean, sign test on the counts): on each instance "
-        "both start from the same seeded random direction, and runs whose energies differ "
+        "the methods start from the same seeded random direction (Hessian ascent with a"
+        " degree-2 term and no field along the top eigenvector of Hess H(0)), and runs whose"
+        " energies differ "
         f"by at most {TIE_RELATIVE:.0e} x GS count as the same point (a tie; for a mixture of"
         " even degrees only, H(-x) = H(x), so a tie may be the mirror point -x)."
         + (

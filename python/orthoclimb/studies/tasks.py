@@ -35,7 +35,7 @@ from typing import Any, NamedTuple
 
 import numpy as np
 
-from .grid import MethodSpec, MixtureSpec
+from .grid import LEGACY_START, MethodSpec, MixtureSpec, canonical_options
 
 __all__ = ["Task", "TheoryValues", "run_task", "theory_values"]
 
@@ -55,7 +55,7 @@ class Task:
             "n": self.n,
             "seed": self.seed,
             "method": self.method.name,
-            "options": dict(self.method.options),
+            "options": canonical_options(self.method, [self.mixture.mixture]),
             "dtype": self.dtype,
         }
 
@@ -122,6 +122,7 @@ def run_task(task: Task, threads: int | None = None, keep_point: bool = False) -
             tol=opts["tol"],
             seed=task.seed,
             polish=opts["polish"],
+            start=opts.get("start", LEGACY_START),  # absent: a study made before the option
         )
         before = float(res.info.get("energy_ascent", res.energy))
         steps = int(res.config["steps"])  # K actually used ("auto" resolves per n)
