@@ -168,3 +168,29 @@ def test_a_failing_blas_restore_warns_and_hides_no_error(monkeypatch):
         with runtime.one_blas_thread():
             value = 42  # the work goes on without the limit
     assert value == 42 and runtime._blas_users == 0
+
+
+def test_results_and_rows_record_which_code_made_them(tmp_path):
+    # the version stays 0.x.0 across unreleased changes and editable installs; a digest of
+    # the code tells two versions apart (a user trial could not). Checked on a copy of a
+    # small tree: the same files give the same digest, a changed byte or name another
+    import orthoclimb as oc
+    from orthoclimb.runtime import code_digest, tree_digest
+    from orthoclimb.studies.grid import spec_from_flags
+    from orthoclimb.studies.tasks import run_task
+
+    ham = oc.Hamiltonian.sample(oc.Mixture({3: 1.0}), 12, seed=0)
+    res = oc.gradient_ascent(ham, max_iter=3, check=False)
+    assert res.config["code"] == code_digest() and len(code_digest()) == 16
+    (task,) = spec_from_flags(["3:1"], None, "12", "0", "gradient").tasks()
+    assert run_task(task, threads=1)["code"] == code_digest()
+    (tmp_path / "a").mkdir()
+    (tmp_path / "a" / "m.py").write_text("x = 1\n")
+    (tmp_path / "core.so").write_bytes(b"\0\1")
+    first = tree_digest(tmp_path / "a", tmp_path / "core.so")
+    assert tree_digest(tmp_path / "a", tmp_path / "core.so") == first
+    (tmp_path / "a" / "m.py").write_text("x = 2\n")
+    assert tree_digest(tmp_path / "a", tmp_path / "core.so") != first
+    (tmp_path / "a" / "m.py").write_text("x = 1\n")
+    (tmp_path / "core.so").write_bytes(b"\0\2")
+    assert tree_digest(tmp_path / "a", tmp_path / "core.so") != first

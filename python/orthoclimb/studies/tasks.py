@@ -15,7 +15,8 @@ memory, null in the row file and the table, when the solver does not converge), 
 energy - ALG, ``gap_gs`` = energy - GS, ``local_max``, ``grad_norm`` (|P grad H|/n),
 ``top_eigenvalue`` (the largest tangent Hessian eigenvalue at the end point, per spin: <= 0 at a
 local maximum, near 0 where it is marginal), ``seconds_sample``, ``seconds_run`` (wall seconds),
-``threads`` (rayon threads used), ``version`` (orthoclimb), ``worker`` (host:pid), ``finished``
+``threads`` (rayon threads used), ``version`` (orthoclimb), ``code`` (the digest of the code
+that ran it, :func:`orthoclimb.runtime.code_digest`), ``worker`` (host:pid), ``finished``
 (UTC ISO time); with ``keep_point``, ``end_point_sha256`` (the kept end point's digest, see
 :mod:`.points`).
 """
@@ -106,7 +107,7 @@ def run_task(task: Task, threads: int | None = None, keep_point: bool = False) -
     from .. import __version__
     from ..algorithms import geometric_schedule, gradient_ascent, hessian_ascent, langevin_anneal
     from ..model import Hamiltonian
-    from ..runtime import get_num_threads, set_num_threads
+    from ..runtime import code_digest, get_num_threads, set_num_threads
 
     if threads is not None:
         set_num_threads(int(threads))
@@ -170,6 +171,7 @@ def run_task(task: Task, threads: int | None = None, keep_point: bool = False) -
         "seconds_run": t2 - t1,
         "threads": get_num_threads(),
         "version": __version__,
+        "code": code_digest(),
         "worker": f"{socket.gethostname()}:{os.getpid()}",
         "finished": datetime.now(timezone.utc).isoformat(timespec="seconds"),
     }
