@@ -595,3 +595,21 @@ def test_the_report_extrapolates_the_difference_of_two_methods_limits(tmp_path):
     )
     line = [f for f in rep.findings if "as n -> infinity:" in f]
     assert len(line) == 1 and line[0].startswith("3:1.0: hessian - gradient as n -> infinity")
+
+
+def test_hessian_ascent_before_polish_is_set_beside_e_k_when_k_is_fixed(tmp_path):
+    # pure 3-spin, K = 25 at every size: a path of K points reaches E_K = sqrt(6) K^(-3/2)
+    # sum_{i<K} sqrt(i) as n -> infinity (exact identity of the left Riemann sum of sqrt(6 q))
+    spec = spec_from_flags(["3:1"], None, "20,40,80", "0-5", "hessian")
+    store = Store.open(tmp_path / "s", spec)
+    noise = np.random.default_rng(3).standard_normal(64)
+    for i, t in enumerate(spec.tasks()):
+        e = 1.55 - 0.8 * t.n ** (-2 / 3) + 0.01 * noise[i]
+        row = {"task_id": t.task_id, "mixture": t.mixture.name, "method": "hessian"}
+        row.update(n=t.n, seed=t.seed, energy=e + 0.03, energy_before_polish=e, steps=25)
+        store.write_row(row)
+    rep = build_report(tmp_path / "s", n_boot=200)
+    (fit,) = [f for f in rep.fits if f["method"] == "hessian before polish"]
+    e_k = math.sqrt(6) * 25**-1.5 * sum(math.sqrt(i) for i in range(25))
+    assert fit["steps_k"] == 25 and fit["e_k"] == pytest.approx(e_k, rel=1e-12)
+    assert any(f"a path of K points reaches E_K = {e_k:.4f}" in t for t in rep.findings)

@@ -378,8 +378,8 @@ def _add_stepwise_limit(
     if not ks or ks[0] is None or any(k != ks[0] for k in ks) or ks[0] != int(ks[0]):
         return
     e_k = stepwise_limit(mixture, int(ks[0]), start)
-    if e_k is None:
-        return
+    if e_k is None or entry["alg"] - e_k <= 1e-9 * abs(entry["alg"]):
+        return  # a field, or a path that reaches ALG anyway (pure 2-spin from the top start)
     se = entry["se"] if entry["se"] > 0 else math.nan
     entry.update(steps_k=int(ks[0]), e_k=e_k, z_k=(entry["value"] - e_k) / se)
 
