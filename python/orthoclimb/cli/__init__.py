@@ -44,6 +44,19 @@ class GivenOnce(argparse.Action):
         setattr(namespace, self.dest, values)
 
 
+def add_start_flag(parser: argparse.ArgumentParser, more: str = "") -> None:
+    """``--start`` of ``climb`` and ``sweep``: Hessian ascent's first point (default None:
+    the method's own default, auto); ``more`` ends its help."""
+    parser.add_argument(
+        "--start",
+        choices=("auto", "top", "random"),
+        default=None,
+        help="hessian without a field: the first point along the top eigenvector of Hess H(0)"
+        " (top, needs a degree-2 term) or in a random direction (random, as before December"
+        " 2026); auto (default) is top where there is a degree-2 term" + more,
+    )
+
+
 def add_mixture_flags(parser: argparse.ArgumentParser) -> None:
     """The one mixture of ``theory``, ``climb`` and ``profile``: ``--gammas`` or ``--xi``,
     exactly one, given once (read back with :func:`mixture_from`)."""

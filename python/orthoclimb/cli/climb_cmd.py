@@ -46,6 +46,7 @@ from ..studies.estimate import (
 from ..studies.grid import start_used
 from . import (
     add_mixture_flags,
+    add_start_flag,
     mixture_from,
     positive_number,
     seconds_text,
@@ -91,15 +92,7 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
         help="hessian: eigen tolerance delta (default 1e-3)",
     )
     parser.add_argument("--no-polish", action="store_true", help="skip the final polish")
-    parser.add_argument(
-        "--start",
-        choices=("auto", "top", "random"),
-        default=None,
-        help="hessian without a field: the first point along the top eigenvector of Hess H(0)"
-        " (top, needs a degree-2 term) or in a random direction (random, as before December"
-        " 2026: reruns an older sweep's row); auto (default) is top where there is a degree-2"
-        " term",
-    )
+    add_start_flag(parser, "; random reruns a row of an older sweep")
     parser.add_argument(
         "--dtype",
         choices=("float64", "float32"),

@@ -29,7 +29,7 @@ from ..studies.grid import (
     spec_from_flags,
     spec_from_toml,
 )
-from . import exponent_value, positive_number, user_path
+from . import add_start_flag, exponent_value, positive_number, user_path
 
 EPILOG = "A study TOML file (the grid, instead of the flags):\n\n" + TOML_EXAMPLE
 
@@ -120,14 +120,7 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
     parser.add_argument(
         "--no-polish", action="store_true", help="hessian and anneal: skip the final polish"
     )
-    parser.add_argument(
-        "--start",
-        choices=("auto", "top", "random"),
-        default=None,
-        help="hessian without a field: its first point along the top eigenvector of Hess H(0)"
-        " (top, needs a degree-2 term) or in a random direction (random); auto (default) is"
-        " top where there is a degree-2 term; as in climb",
-    )
+    add_start_flag(parser, "; as in climb")
     parser.add_argument(
         "--max-iter", type=int, default=None, help="gradient: iteration cap (default 2000)"
     )
