@@ -193,23 +193,32 @@ fn slice2<'a>(a: &'a PyReadonlyArray2<'_, f64>, name: &str) -> PyResult<&'a [f64
 /// this module, would otherwise reach the kernel and read as an overflow of its result).
 fn input1(a: &PyReadonlyArray1<'_, f64>, name: &str) -> PyResult<Vec<f64>> {
     let copy = slice1(a, name)?.to_vec();
-    finite_input(a.py(), name, &copy)?;
+    finite_input(a.py(), name, &copy, copy.len())?;
     Ok(copy)
 }
 
-/// [`CoreError::NonFiniteInput`] for the first NaN or infinity of the copied input `values`.
-fn finite_input(py: Python<'_>, name: &str, values: &[f64]) -> PyResult<()> {
+/// [`CoreError::NonFiniteInput`] for the first NaN or infinity of the copied input `values`,
+/// rows of `cols` values each (a batch's: named by row, and the index within it).
+fn finite_input(py: Python<'_>, name: &str, values: &[f64], cols: usize) -> PyResult<()> {
     match values.iter().position(|v| !v.is_finite()) {
         None => Ok(()),
-        Some(index) => Err(to_py_err(
-            py,
-            CoreError::NonFiniteInput {
-                what: name.to_string(),
-                index,
-                value: values[index],
-                dtype: "float64",
-            },
-        )),
+        Some(flat) => {
+            let (row, index) = (flat / cols.max(1), flat % cols.max(1));
+            let what = if cols >= values.len() {
+                name.to_string()
+            } else {
+                format!("{name} row {row}")
+            };
+            Err(to_py_err(
+                py,
+                CoreError::NonFiniteInput {
+                    what,
+                    index,
+                    value: values[flat],
+                    dtype: "float64",
+                },
+            ))
+        }
     }
 }
 
@@ -232,7 +241,7 @@ fn input2(
     // a batch may be large: a failed allocation is an InsufficientMemoryError, not an abort
     let mut copy = crate::error::try_zeroed::<f64>(src.len()).map_err(|e| to_py_err(py, e))?;
     copy.copy_from_slice(src);
-    finite_input(py, name, &copy)?;
+    finite_input(py, name, &copy, a.shape()[1])?;
     Ok(copy)
 }
 

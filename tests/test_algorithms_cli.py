@@ -395,7 +395,7 @@ def test_climb_reports_its_sampling_time_and_the_top_tangent_eigenvalue(tmp_path
         (["climb", "--gammas", "2:1", "--n", "20", "--method", "gradient", "--start", "top"],
          "--start applies to --method hessian only, not gradient"),
         (["climb", "--gammas", "3:1", "--n", "20", "--start", "top"],
-         "--start top needs a degree-2 term"),
+         "start='top' needs a degree-2 term"),
         (["sweep", "--gammas", "2:1", "--n", "20", "--seeds", "0", "--methods", "gradient",
           "--start", "top"], "--start applies to the method hessian, not in --methods gradient"),
     ],

@@ -651,3 +651,16 @@ def test_the_start_along_the_top_eigenvector_of_the_hessian_at_0():
         oc.hessian_ascent(cubic, steps=5, start="top")
     with pytest.raises(ValueError, match="start must be one of"):
         oc.hessian_ascent(cubic, steps=5, start="up")
+
+
+def test_the_field_warning_of_given_coefficients_names_the_start_made():
+    # given coefficients with a field and a degree-2 term: no mixture, so no first stage, and
+    # the start is along the top eigenvector of Hess H(0); the warning said "a random point"
+    # (a review)
+    src = oc.Hamiltonian.sample(oc.Mixture({1: 0.5, 2: 1.0}), 40, seed=2)
+    ham = oc.Hamiltonian.from_coefficients(40, {1: src.coefficients(1), 2: src.coefficients(2)})
+    with pytest.warns(RuntimeWarning, match="starts along the top eigenvector of Hess H.0."):
+        res = oc.hessian_ascent(ham, steps=5, polish=False)
+    assert res.config["start"] == "top"
+    with pytest.warns(RuntimeWarning, match="starts at a random point"):
+        oc.hessian_ascent(ham, steps=5, polish=False, start="random")

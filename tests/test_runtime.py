@@ -194,3 +194,6 @@ def test_results_and_rows_record_which_code_made_them(tmp_path):
     (tmp_path / "a" / "m.py").write_text("x = 1\n")
     (tmp_path / "core.so").write_bytes(b"\0\2")
     assert tree_digest(tmp_path / "a", tmp_path / "core.so") != first
+    (tmp_path / "core.so").write_bytes(b"\0\1")
+    (tmp_path / "a" / "m.py").rename(tmp_path / "a" / "n.py")  # the same bytes, another name
+    assert tree_digest(tmp_path / "a", tmp_path / "core.so") != first

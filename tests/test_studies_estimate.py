@@ -239,6 +239,9 @@ def test_the_plan_notes_a_path_of_the_same_k_at_every_size():
     assert "K = 25 path points at every size of 2:1.0 (n/8 clamped to [25, 200])" in note
     assert f"E_K = {e_k:.4f}" in note and f"{math.sqrt(2) / 25:.4f} short of ALG = 1.4142" in note
     assert "before its polish" in note and "sizes from n = 208 on" in note
+    # at the cap, K = 200 from n = 1600 on, no size lets K grow (a review: the note said so)
+    (note,) = fixed_path_notes(spec_from_flags(["3:1"], None, "1600,3200", "0-3", "hessian"))
+    assert "K = 200 path points" in note and "K stays at its cap from n = 1600 on" in note
     # K grows between the sizes, one size only, a field (no E_K), no Hessian ascent, pure
     # 2-spin from the top eigenvector: no note
     for flags in [

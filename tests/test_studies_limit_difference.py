@@ -176,3 +176,21 @@ def test_kept_laws_on_both_sides_of_zero_are_not_read_as_a_difference():
     assert (
         "equal limits only under n^(-1) (+3.3 s.e. under n^(-2/3), which the data reject)" in line
     )
+
+
+def test_zero_between_two_kept_laws_names_that_pair():
+    # every law kept, 0 between the intervals of n^(-2/3) and n^(-1): an exponent between
+    # them fits too (laws.py), and the reading names that pair, as the energies' verdicts do
+    # (a review: it named the whole run of laws)
+    f = {
+        "mixture": "m", "a": "x", "b": "y", "left_out": [], "sizes": [50, 100, 200],
+        "all_ties": False, "even": False, "level": 0.9, "exponent": 2 / 3,
+        "value": 0.01, "low": 0.005, "high": 0.015, "se": 0.003, "z0": 3.3, "fit_p": 0.5,
+        "other_laws": [
+            {"exponent": 0.5, "value": 0.02, "low": 0.012, "high": 0.03, "fit_p": 0.5},
+            {"exponent": 1.0, "value": -0.01, "low": -0.02, "high": -0.004, "fit_p": 0.5},
+        ],
+        "law_low": -0.02, "law_high": 0.03,
+    }  # fmt: skip
+    line = limit_difference_line(f)
+    assert "equal limits only under a law between n^(-2/3) and n^(-1) (+3.3 s.e." in line

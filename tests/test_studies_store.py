@@ -3,6 +3,8 @@ folders that hold something else."""
 
 from __future__ import annotations
 
+import json
+
 import pytest
 
 from orthoclimb import Mixture
@@ -164,3 +166,23 @@ def test_a_study_folder_that_takes_no_files_is_refused_on_opening(tmp_path, monk
     monkeypatch.setattr(tempfile, "mkstemp", refusing)
     with pytest.raises(OSError, match=f"its {name} folder .* does not take new files"):
         Store.open(folder, _spec())
+
+
+def test_a_study_of_random_starts_refuses_the_new_start_and_says_how_to_resume(tmp_path):
+    # a study made before Hessian ascent's start option (study.json without it) on a mixture
+    # with a degree-2 term ran from random starts: the new default (top) is refused, naming
+    # the way to resume; start = "random" resumes it (a review: "differs in: methods" alone)
+    from orthoclimb.studies.grid import spec_from_flags
+
+    old = spec_from_flags(
+        ["2:1,4:0.25"], None, "20", "0-1", "hessian", {"hessian": {"start": "random"}}
+    )
+    Store.open(tmp_path / "s", old)
+    assert (
+        "start"
+        not in json.loads((tmp_path / "s" / "study.json").read_text())["config"]["methods"][0]
+    )
+    new = spec_from_flags(["2:1,4:0.25"], None, "20", "0-1", "hessian")
+    with pytest.raises(StudyMismatchError, match='resume it with start = "random"'):
+        Store.open(tmp_path / "s", new)
+    Store.open(tmp_path / "s", old)  # resumes

@@ -6,8 +6,10 @@ the top eigenvector of Hess H(0) = 2A (the degree-2 matrix; found in the tangent
 seeded random direction, which moves its eigenvalue by O(1/n)), with a seeded random sign;
 without one (Hess H(0) = 0), in a seeded uniformly random direction. Along the top eigenvector
 the start already gains (1/K) sqrt(xi''(0)) per spin, the first segment of E_path; a random
-direction gains nothing there, which cost 0.057 per spin at K = 25 for xi = q^2 + q^4/16 (a
-user trial; ``start="random"`` keeps that start). Step i = 0..K-2, at x = x_i with u = x/|x|:
+direction gains nothing there (a user trial): for xi = q^2 + q^4/16 at K = 25 the prediction
+is sqrt(2)/25 = 0.057 per spin, and the top start ended 0.043-0.048 higher before the polish
+(4 instances each at n = 100, 200, 400). ``start="random"`` keeps the random start.
+Step i = 0..K-2, at x = x_i with u = x/|x|:
 
 1. M = Hess H(x) (one pass of the Rust kernel), restricted to the tangent space u^perp: M_T =
    B^T M B for an orthonormal basis B of u^perp (see ``_eigen``);
@@ -106,7 +108,14 @@ from ._sphere import HessianReader, random_unit
 from .polish import polish as polish_point
 from .result import Result
 
-__all__ = ["auto_steps", "hessian_ascent", "hessian_moves", "resolve_start", "stepwise_limit"]
+__all__ = [
+    "auto_steps",
+    "eigen_solves",
+    "hessian_ascent",
+    "hessian_moves",
+    "resolve_start",
+    "stepwise_limit",
+]
 
 HESSIAN_MODES = ("auto", "dense", "operator")
 START_MODES = ("auto", "top", "random")
@@ -187,14 +196,25 @@ def resolve_start(start: str, degrees: tuple[int, ...], field: bool) -> str:
     used ("random" is returned, the value the option had before it existed)."""
     if start not in START_MODES:
         raise ValueError(f"start must be one of {START_MODES}, got {start!r}")
-    if field:
-        return "random"
-    if start == "top" and 2 not in degrees:
+    if start == "top" and 2 not in degrees:  # refused with a field too, as everywhere
         raise ValueError(
             "start='top' needs a degree-2 term: without one Hess H(0) = 0 has no top"
             f" eigenvector (degrees {list(degrees)})"
         )
+    if field:
+        return "random"
     return "top" if start == "top" or (start == "auto" and 2 in degrees) else "random"
+
+
+def eigen_solves(mixture: Mixture | None, steps: int, start: str = "auto") -> int:
+    """The Hessian passes with an eigen-solve a run makes (the time estimates' unit):
+    :func:`hessian_moves` steps, and one more for a start along the top eigenvector of
+    Hess H(0) (:func:`resolve_start`; none without a mixture, whose start is then random or
+    top by its coefficients' degrees, not known here)."""
+    moves = hessian_moves(mixture, steps)
+    if mixture is None:
+        return moves
+    return moves + (resolve_start(start, mixture.degrees, mixture.has_field) == "top")
 
 
 def _start_energy(mixture: Mixture, q0: float, start: str) -> float:
@@ -388,12 +408,14 @@ def hessian_ascent(
 
     info: dict[str, Any] = {"hessian_mode": mode}
     q_hat = algorithmic_threshold(mixture) if mixture is not None else 0.0
+    begin = resolve_start(start, ham.degrees if mixture is None else mixture.degrees, q_hat > 0)
     if 1 in ham.degrees and mixture is None:
         info["note"] = "given coefficients: no mixture, so no q_hat and no first stage"
+        where = "along the top eigenvector of Hess H(0)" if begin == "top" else "at a random point"
         warnings.warn(
             "hessian_ascent: these coefficients have a field (p = 1) but no mixture, so q_hat"
-            " is unknown and the field stage is skipped: the path starts at a random point,"
-            " which with a field ends lower (sample the instance from its Mixture instead)",
+            f" is unknown and the field stage is skipped: the path starts {where}, which"
+            " with a field ends lower (sample the instance from its Mixture instead)",
             RuntimeWarning,
             stacklevel=2,
         )
@@ -403,7 +425,6 @@ def hessian_ascent(
         for c in _COLUMNS:
             rows[c].append(row.get(c, math.nan))
 
-    begin = resolve_start(start, ham.degrees if mixture is None else mixture.degrees, q_hat > 0)
     if q_hat > 0.0:
         x, info["first_stage"] = _first_stage(ham, q_hat, first_stage_iter)
         info["first_stage"]["predicted"] = float(path_energy(mixture, q_hat))

@@ -94,7 +94,8 @@ class Result:
       climb: ``gap_alg``; negative below ALG). Not ``GroundState.gap``, which is GS - ALG.
     * ``info["energy_ascent"]`` (Hessian ascent) and ``info["energy_anneal"]`` (Langevin):
       the energy per spin where the method ended, before its polish (rows and climb:
-      ``energy_before_polish``); ``info["alg_gap_ascent"]`` is that energy - ALG.
+      ``energy_before_polish``); for Hessian ascent, ``info["alg_gap_ascent"]`` is that
+      energy - ALG.
     * ``info["local_max"]``, ``info["n_positive"]``, ``info["top_eigenvalue"]`` (per spin),
       ``info["grad_norm"]`` (|P grad H|/n): the end point's local-maximum check, under the same
       names everywhere (None or absent where no check ran).

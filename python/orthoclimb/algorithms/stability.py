@@ -101,7 +101,9 @@ def stability(
     ``algorithm`` is "hessian", "gradient", "anneal" or a callable ham -> Result; ``options``
     are passed to it (e.g. ``steps=100``). ``seed`` is the disorder seed; a named method gets
     ``start_seed`` (default 0) as its own ``seed`` (its random start or noise, the same for
-    every instance), while a callable chooses its own (giving ``start_seed`` with one is a
+    every instance; Hessian ascent on a mixture with a degree-2 term and no field starts along
+    each instance's own top eigenvector of Hess H(0), with the seed's sign), while a callable
+    chooses its own (giving ``start_seed`` with one is a
     TypeError rather than a silently unused value). ``rhos`` are correlations in [-1, 1]
     (checked by ``Hamiltonian.sample``); ``other_seed`` (default seed XOR 0x9E3779B97F4A7C15, must
     differ from ``seed``) drives the independent part. Instances are built one at a time.

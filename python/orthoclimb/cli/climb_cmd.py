@@ -176,19 +176,20 @@ def _run_estimate(
     time at the cap), and a polish's passes, Newton steps and local-maximum check. For a run at
     ``n`` timed on a smaller instance ``ham``, ``scale`` is the ratio of their coefficient bytes
     (a pass reads each coefficient once)."""
-    from ..algorithms import hessian_moves
+    from ..algorithms.hessian_ascent import eigen_solves, hessian_moves
 
     n = ham.n if n is None else n
     grad = scale * _time_pass(ham, "gradient")
-    moves = hessian_moves(ham.mixture, steps) if method == "hessian" else 0
-    if method == "hessian" and ham.mixture is not None and start_used(start, ham.mixture) == "top":
-        moves += 1  # the start along the top eigenvector of Hess H(0): about one step more
+    moves = eigen_solves(ham.mixture, steps, start) if method == "hessian" else 0
     needs_hessian = moves > 0 or polish or method == "gradient"
     hess = scale * _time_pass(ham, "hessian") if needs_hessian else 0.0
     field = ham.mixture is not None and ham.mixture.has_field
     run = run_seconds(method, n, steps, polish, (grad, hess), moves, field)
     if method == "hessian":
-        what = ("the field stage, " if field else "") + f"{moves} Hessian steps"
+        steps_taken = hessian_moves(ham.mixture, steps)
+        what = ("the field stage, " if field else "") + f"{steps_taken} Hessian steps"
+        if moves > steps_taken:
+            what = "the start along the top eigenvector of Hess H(0), " + what
         what += " and the polish" if polish else ""
         if moves == 0:
             why = "--steps 1 has none" if steps == 1 else "the field stage ends on the sphere"
@@ -325,10 +326,7 @@ def run(args: argparse.Namespace) -> int:
     if args.start is not None and args.method != "hessian":
         raise ValueError(f"--start applies to --method hessian only, not {args.method}")
     start = "auto" if args.start is None else args.start
-    if start == "top" and 2 not in mixture.degrees:
-        raise ValueError(
-            "--start top needs a degree-2 term (Hess H(0) = 0 without one); give auto or random"
-        )
+    start_used(start, mixture)  # --start top without a degree-2 term: refused before the work
     if args.no_polish and args.method == "gradient":
         raise ValueError(
             "--no-polish applies to --method hessian or anneal; gradient does not polish"

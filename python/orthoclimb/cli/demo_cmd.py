@@ -10,7 +10,9 @@ The scenario (invented): a lab compares two landscapes and two climbers.
 Climbers: Hessian ascent (K steps, then polish) and gradient ascent from a random point. Each
 (landscape, n, seed, climber) is one task on the embedded LocalCluster; the study folder is
 ``--out`` (default ``./orthoclimb-demo``, and ``./orthoclimb-demo-quick`` for ``--quick``, so
-that the two never meet in one folder; rerunning resumes). The report extrapolates the mean
+that the two never meet in one folder; rerunning resumes; a folder of a version before December
+2026, whose Hessian ascent started at random on the gentle landscape, is refused: give another
+``--out``). The report extrapolates the mean
 energy per spin in n^(-2/3) and sets it beside ALG and GS, and compares the climbers on the
 same instances at the largest size (mean difference and a paired sign test); its findings are
 computed from the measurements. ``--quick`` is a smaller variant (CI).

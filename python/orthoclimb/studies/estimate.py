@@ -52,8 +52,8 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from ..algorithms.hessian_ascent import auto_steps, hessian_moves, stepwise_limit
-from .grid import LEGACY_START, StudySpec, start_used
+from ..algorithms.hessian_ascent import auto_steps, eigen_solves, stepwise_limit
+from .grid import LEGACY_START, StudySpec
 from .profile import best_time
 
 __all__ = [
@@ -242,9 +242,7 @@ def estimate_from(cal: dict[str, Calibration], tasks, workers: int, embedded: bo
         moves = 0
         if t.method.name == "hessian":
             k = auto_steps(t.n) if opts["steps"] == "auto" else opts["steps"]
-            moves = hessian_moves(t.mixture.mixture, k)
-            # a start along the top eigenvector of Hess H(0) costs about one step more
-            moves += start_used(opts.get("start", LEGACY_START), t.mixture.mixture) == "top"
+            moves = eigen_solves(t.mixture.mixture, k, opts.get("start", LEGACY_START))
         steps = opts["max_iter"] if t.method.name == "gradient" else opts["steps"]
         polish = bool(opts.get("polish"))
         field = t.mixture.mixture.has_field
@@ -291,11 +289,12 @@ def fixed_path_notes(spec: StudySpec) -> list[str]:
             if alg - e_k <= 1e-9 * alg:  # pure 2-spin from the top eigenvector: E_K = ALG
                 continue
             why = "n/8 clamped to [25, 200]" if given == "auto" else "set by steps"
-            grow = (
-                "sizes from n = 208 on, where K grows, let it approach ALG"
-                if given == "auto"
-                else "a K that grows with n lets it approach ALG"
-            )
+            if given != "auto":
+                grow = "a K that grows with n lets it approach ALG"
+            elif k == auto_steps(1):  # the floor, 25, below n = 208
+                grow = "sizes from n = 208 on, where K grows, let it approach ALG"
+            else:  # the cap, 200, from n = 1600 on: K no longer grows with n
+                grow = "K stays at its cap from n = 1600 on: a larger steps lets it approach ALG"
             out.append(
                 f"note: {method.label} takes K = {k} path points at every size of {m.name}"
                 f" ({why}): {series} tends to E_K = {e_k:.4f} as n -> infinity,"

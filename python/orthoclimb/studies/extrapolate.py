@@ -52,6 +52,8 @@ few values; the bootstrap refits that law in each replicate. Measured coverage o
 differences 0.005 + 0.3 n^(-2/3) + N(0, 0.09/n), each a tie (0) with probability p; Monte Carlo
 s.e. 0.015): p = 0.85, 10 seeds: 0.585 -> 0.925 (median width 0.004 -> 0.012); p = 0.6, 10
 seeds: 0.882 -> 0.907; p = 0.6, 20 seeds: 0.877 -> 0.880; no ties, 10 seeds: 0.897 -> 0.875.
+The Student stretch still gives each size m_j - 1 degrees of freedom (Welch), more
+conservative than pooled variances need.
 
 Samples without spread. A size whose samples all agree (up to rounding: variance at most
 (16 eps max|sample|)^2) has no noise to weigh by. Next to sizes with spread its variance is

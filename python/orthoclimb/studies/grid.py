@@ -99,12 +99,18 @@ def start_used(start: str, mixture: Mixture) -> str:
 
 
 def canonical_options(method: MethodSpec, mixtures: list[Mixture]) -> dict[str, Any]:
-    """The options of ``method`` as a configuration records them: Hessian ascent's start is
-    left out where it starts at random on every one of ``mixtures`` (as before the option
-    existed), so a study or task whose runs did not change keeps its configuration and id."""
+    """The options of ``method`` as a configuration records them: Hessian ascent's start as
+    the start it makes (:func:`start_used`) where that is the same on every one of
+    ``mixtures`` ("auto" and "top" on a degree-2 mixture are one run), left out where that is
+    a random start (as before the option existed), so a study or task whose runs did not
+    change keeps its configuration and id; as given where the mixtures differ."""
     opts = dict(method.options)
-    if "start" in opts and all(start_used(opts["start"], m) == "random" for m in mixtures):
-        del opts["start"]
+    if "start" in opts:
+        used = {start_used(opts["start"], m) for m in mixtures}
+        if used == {LEGACY_START}:
+            del opts["start"]
+        elif len(used) == 1:
+            opts["start"] = used.pop()
     return opts
 
 
@@ -343,13 +349,13 @@ class StudySpec:
                         " be the same; keep one name for it at each size"
                     )
         for method in self.methods:
-            if dict(method.options).get("start") == "top":
-                flat = [m.name for m in self.mixtures if 2 not in m.mixture.degrees]
-                if flat:
+            for m in self.mixtures if "start" in dict(method.options) else ():
+                try:
+                    start_used(dict(method.options)["start"], m.mixture)
+                except ValueError as exc:  # start = 'top' without a degree-2 term
                     raise ValueError(
-                        f"hessian's start = 'top' needs a degree-2 term, which {flat[0]!r} has"
-                        " not (Hess H(0) = 0 there); use 'auto', which starts at random there"
-                    )
+                        f"hessian on {m.name!r}: {exc}; 'auto' starts at random there"
+                    ) from None
         labels = [m.label for m in self.methods]
         if len(set(labels)) != len(labels):
             raise ValueError(f"each method may appear once, got {labels}")

@@ -30,6 +30,7 @@ import numpy as np
 
 from .extrapolate import extrapolate
 from .laws import (
+    _laws_holding,
     add_other_laws,
     kept_laws,
     law_regions,
@@ -150,9 +151,7 @@ def _reading(f: dict[str, Any]) -> str:
     for run in law_regions(f):
         lo, hi = region_span(run)
         if lo <= 0.0 <= hi:
-            holding = [law for law in run if law["low"] <= 0.0 <= law["high"]]
-            under = powers_text(holding) if holding else "a law between " + powers_text(run)
-            return f"equal limits only under {under} ({z} under {chosen})"
+            return f"equal limits only under {_laws_holding(run, 0.0)} ({z} under {chosen})"
     if f["law_low"] < 0.0 < f["law_high"]:  # 0 falls between two regions: laws disagree
         return (
             f"the laws the data keep disagree on which limit is higher ({z} under {chosen};"
@@ -211,7 +210,8 @@ def limit_difference_markdown(records: list[dict[str, Any]]) -> list[str]:
         "## Difference of limits",
         "",
         "e_inf(a) - e_inf(b), extrapolated from the per-seed differences a - b on the same"
-        " instances (paired; the same law and interval as the energies); 'apart': the two"
+        " instances (paired; the energies' laws and interval, with the sizes weighed by"
+        " variances pooled over n, since ties make a size's own unreliable); 'apart': the two"
         " fits' difference, +- sqrt(s.e.(a)^2 + s.e.(b)^2).",
         "",
         "| mixture | a - b | sizes | difference | interval | over laws | s.e. | z(0) |"

@@ -282,7 +282,7 @@ def overlap_markdown(summary: list[dict[str, Any]]) -> list[str]:
             f"| {s['mixture']} | {s['n']} | {s['method_a']} / {s['method_b']} | {s['mean']:.4f}"
             f" | {s['mean_abs']:.4f} | {_cell(s['se_abs'])} | {s['same']} | {s['mirror']} |"
             f" {_cell(s['mean_abs_other'])} | {s['unrelated']:.4f} |"
-            f" {'--' if share is None else f'{share:.4f}'} | {s['min']:.4f} |"
+            f" {'--' if share is None else _cell(share)} | {s['min']:.4f} |"
             f" {s['max']:.4f} | {s['count']} |"
         )
     return [*lines, ""]
@@ -306,7 +306,7 @@ def overlap_lines(summary: list[dict[str, Any]]) -> list[str]:
             + (
                 ""
                 if s.get("field_share") is None
-                else f"; with the field, <x_a, e><x_b, e> = {s['field_share']:.4f}"
+                else f"; with the field, <x_a, e><x_b, e> = {_cell(s['field_share'])}"
             )
             + ")"
         )

@@ -122,6 +122,17 @@ def _more(big: dict, small: dict) -> str:
     return " and ".join(what) or "tasks"
 
 
+def _only_start_differs(old: dict, new: dict) -> bool:
+    """Whether two configurations differ only in a method's ``start`` option (a study made
+    before the option, read as random starts, against the new default)."""
+
+    def without_start(config: dict) -> dict:
+        methods = [{k: v for k, v in m.items() if k != "start"} for m in config["methods"]]
+        return {**config, "methods": methods}
+
+    return old != new and without_start(old) == without_start(new)
+
+
 def _relation(old: dict, new: dict) -> str:
     """'same', 'grows' (new adds seeds or sizes, study-wide or a mixture's own), 'contained'
     (old has more) or 'other'. Reordered mixtures, methods, seeds or sizes are the same
@@ -341,6 +352,14 @@ class Store:
                     if "exponent" in diff
                     else ""
                 )
+                if _only_start_differs(old, config):
+                    hint += (
+                        "; the difference is Hessian ascent's start: since December 2026 it"
+                        " starts along the top eigenvector of Hess H(0) where a mixture has a"
+                        " degree-2 term, and this study ran from random starts: resume it with"
+                        ' start = "random" (sweep --start random, or in its TOML file), or use'
+                        " another folder for the new start (the demo: another --out)"
+                    )
                 raise StudyMismatchError(
                     f"the folder {str(folder)!r} holds a study with a different configuration "
                     f"(differs in: {', '.join(diff)}); refusing to mix two studies. Use another "
