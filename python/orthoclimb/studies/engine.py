@@ -362,7 +362,9 @@ def run_study(
     tasks done before are not rerun for it.
 
     From a script, call it under ``if __name__ == "__main__":``: the embedded cluster's worker
-    processes import the script again, and a call made during that import is refused.
+    processes import the script again, and a call made during that import is refused. Any
+    other code at the script's top level runs again in every worker process too: keep costly
+    work (sampling an instance, a long computation) under the same guard.
     """
     if _inside_script_reimport():
         # each worker would run the whole study again, in the same folder
