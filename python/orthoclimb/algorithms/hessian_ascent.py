@@ -115,6 +115,7 @@ __all__ = [
     "hessian_moves",
     "resolve_start",
     "stepwise_limit",
+    "stepwise_shortfall",
 ]
 
 HESSIAN_MODES = ("auto", "dense", "operator")
@@ -186,6 +187,15 @@ def stepwise_limit(mixture: Mixture, steps: int, start: str = "auto") -> float |
     q = np.arange(1, k + 1) / k
     first = _start_energy(mixture, q[0], resolve_start(start, mixture.degrees, False))
     return float(_stepwise_energy(mixture, q, first)[-1])
+
+
+def stepwise_shortfall(mixture: Mixture, steps: int, start: str = "auto") -> float | None:
+    """:func:`stepwise_limit` where it falls short of ALG (by more than 1e-9 of it): the
+    energy a study with K fixed is set beside. None with a field, and where the path reaches
+    ALG anyway (pure 2-spin from the top eigenvector: E_K = sqrt(2) = ALG)."""
+    e_k = stepwise_limit(mixture, steps, start)
+    alg = algorithmic_energy(mixture)
+    return None if e_k is None or alg - e_k <= 1e-9 * abs(alg) else e_k
 
 
 def resolve_start(start: str, degrees: tuple[int, ...], field: bool) -> str:

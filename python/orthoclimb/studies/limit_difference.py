@@ -39,7 +39,7 @@ from .laws import (
     powers_text,
     region_span,
 )
-from .paired import common_sizes, paired_seeds, tie_width
+from .paired import common_sizes, paired_differences, paired_seeds, tie_width
 
 __all__ = [
     "limit_difference",
@@ -89,9 +89,8 @@ def limit_difference(
     }
     samples = []
     for n in kept:
-        ea, eb = seeds[(mix, a, n)], seeds[(mix, b, n)]
-        d = np.array([ea[s] - eb[s] for s in paired_seeds(mix, a, b, n, seeds)])
-        samples.append(np.where(np.abs(d) <= tie, 0.0, d))
+        d = paired_differences(mix, a, b, n, seeds)
+        samples.append(np.where(np.abs(d) <= tie, 0.0, d))  # ties count 0, as in paired.py
     try:
         ex = extrapolate(kept, samples, exponent, level, n_boot, seed=seed, pooled=True)
     except ValueError as exc:

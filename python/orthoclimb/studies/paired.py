@@ -27,6 +27,7 @@ __all__ = [
     "comparisons_per_size",
     "head_to_head",
     "paired_comparison",
+    "paired_differences",
     "paired_seeds",
     "tie_width",
 ]
@@ -100,6 +101,13 @@ def paired_seeds(mix: str, a: str, b: str, n: int, seeds: dict) -> list[int]:
     return sorted(set(seeds[(mix, a, n)]) & set(seeds[(mix, b, n)]))
 
 
+def paired_differences(mix: str, a: str, b: str, n: int, seeds: dict) -> np.ndarray:
+    """Method a's energy minus method b's on each seed both ran at size n (in the order of
+    :func:`paired_seeds`)."""
+    ea, eb = seeds[(mix, a, n)], seeds[(mix, b, n)]
+    return np.array([ea[s] - eb[s] for s in paired_seeds(mix, a, b, n, seeds)])
+
+
 def common_sizes(mix: str, a: str, b: str, seeds: dict) -> list[int]:
     """The sizes at which both methods ran on ``mix``."""
     return sorted(n for (m1, me, n) in seeds if m1 == mix and me == a and (mix, b, n) in seeds)
@@ -114,11 +122,10 @@ def comparisons_per_size(
     ``seeds``."""
     out = []
     for n in common_sizes(mix, a, b, seeds):
-        both = paired_seeds(mix, a, b, n, seeds)
-        if len(both) >= 2:
-            pa_, pb_ = seeds[(mix, a, n)], seeds[(mix, b, n)]
-            c = paired_comparison([pa_[s] - pb_[s] for s in both], tie_width(th))
-            out.append({"mixture": mix, "n": n, "a": a, "b": b, "seeds": len(both), **c})
+        d = paired_differences(mix, a, b, n, seeds)
+        if d.size >= 2:
+            c = paired_comparison(d, tie_width(th))
+            out.append({"mixture": mix, "n": n, "a": a, "b": b, "seeds": int(d.size), **c})
     return out
 
 

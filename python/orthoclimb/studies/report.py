@@ -373,12 +373,12 @@ def _add_stepwise_limit(
     """With the same K at every size of a Hessian-ascent fit before polish, the n -> infinity
     energy its K points reach from the runs' ``start`` (``stepwise_limit``: the coarse steps'
     loss stays however large n) as ``e_k``, and the fit's distance to it in s.e. as ``z_k``."""
-    from ..algorithms.hessian_ascent import stepwise_limit
+    from ..algorithms.hessian_ascent import stepwise_shortfall
 
     if not ks or ks[0] is None or any(k != ks[0] for k in ks) or ks[0] != int(ks[0]):
         return
-    e_k = stepwise_limit(mixture, int(ks[0]), start)
-    if e_k is None or entry["alg"] - e_k <= 1e-9 * abs(entry["alg"]):
+    e_k = stepwise_shortfall(mixture, int(ks[0]), start)
+    if e_k is None:
         return  # a field, or a path that reaches ALG anyway (pure 2-spin from the top start)
     se = entry["se"] if entry["se"] > 0 else math.nan
     entry.update(steps_k=int(ks[0]), e_k=e_k, z_k=(entry["value"] - e_k) / se)
