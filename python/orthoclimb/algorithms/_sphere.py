@@ -21,7 +21,7 @@ import numpy as np
 
 from ..model.hamiltonian import Hamiltonian
 
-__all__ = ["HessianReader", "project_tangent", "random_unit", "retract"]
+__all__ = ["HessianReader", "field_direction", "project_tangent", "random_unit", "retract"]
 
 
 def random_unit(n: int, rng: np.random.Generator) -> np.ndarray:
@@ -31,6 +31,13 @@ def random_unit(n: int, rng: np.random.Generator) -> np.ndarray:
         norm = float(np.linalg.norm(g))
         if norm > 0.0:
             return g / norm
+
+
+def field_direction(h: np.ndarray) -> np.ndarray:
+    """e = h/|h| for the degree-1 coefficients h (the field's direction), scaled by max |h_i|
+    first: |h| overflows for n gamma_1 above about 1e154."""
+    h = h / np.abs(h).max()
+    return h / np.linalg.norm(h)
 
 
 def project_tangent(v: np.ndarray, u: np.ndarray) -> np.ndarray:

@@ -104,7 +104,7 @@ from ._checks import (
 from ._config import base_config
 from ._eigen import TangentBasis, top_tangent_eigenpair
 from ._riemannian import sphere_ascent
-from ._sphere import HessianReader, random_unit
+from ._sphere import HessianReader, field_direction, random_unit
 from .polish import polish as polish_point
 from .result import Result
 
@@ -339,9 +339,7 @@ def _edge_growth(mixture: Mixture | None, q: float, q_next: float) -> float:
 
 def _first_stage(ham: Hamiltonian, q_hat: float, max_iter: int) -> tuple[np.ndarray, dict]:
     """Maximize H on |x| = sqrt(q_hat) from the field direction (see the module doc)."""
-    h = ham.coefficients(1)
-    h = h / np.abs(h).max()  # |h| overflows for n gamma_1 above about 1e154
-    start = h / np.linalg.norm(h)
+    start = field_direction(ham.coefficients(1))
     trace = sphere_ascent(ham, start, radius=math.sqrt(q_hat), gtol=1e-8, max_iter=max_iter)
     return trace.x, {
         "q_hat": q_hat,

@@ -134,6 +134,7 @@ def field_directions(
     point whose mixture has a field, ``fields`` mapping those mixtures' names to gamma_1:
     the degree-1 coefficients of Hamiltonian.sample(Mixture({1: gamma_1}), n, seed), which
     are the instance's own (module doc; float64, where a float32 instance rounds them)."""
+    from ..algorithms._sphere import field_direction
     from ..model.hamiltonian import Hamiltonian
     from ..model.mixture import Mixture
 
@@ -143,7 +144,7 @@ def field_directions(
         if r["task_id"] in points and r["mixture"] in fields and key not in out:
             field = Mixture({1: fields[r["mixture"]]})
             h = Hamiltonian.sample(field, key[1], seed=key[2]).coefficients(1)
-            out[key] = h / np.linalg.norm(h)
+            out[key] = field_direction(h)  # the first stage's own start direction
     return out
 
 
