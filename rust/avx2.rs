@@ -1,9 +1,9 @@
 //! The segment loops of [`crate::simd`] written with AVX2 + FMA intrinsics.
 //!
 //! These functions are `#[inline(always)]` and must only be reached from inside a function
-//! compiled with `#[target_feature(enable = "avx2,fma")]` on a processor that has both (the
-//! `simd_dispatch!` macro guarantees it); there the intrinsics inline into plain vector
-//! instructions. Reductions use four 4-wide accumulators (16 lanes) over blocks of 16, then
+//! compiled with `#[target_feature(enable = "avx2,fma")]` (or with AVX-512VL added, for its
+//! 32 registers) on a processor that has them (the `simd_dispatch!` macro guarantees it);
+//! there the intrinsics inline into plain vector instructions. Reductions use four 4-wide accumulators (16 lanes) over blocks of 16, then
 //! one accumulator over blocks of 4, then a scalar tail, combined in a fixed order.
 
 use core::arch::x86_64::*;

@@ -1,10 +1,12 @@
 //! Inner loops shared by the kernels, and the run-time choice of instruction set.
 //!
 //! Every loop is written once, generic over [`Madd`] (how a*b + c is evaluated) and the
-//! coefficient type. `simd_dispatch!` instantiates a kernel twice: with fused multiply-add
-//! inside an `avx2,fma` target-feature function (chosen at run time when the processor has
-//! them) and with plain arithmetic for any other x86-64 or other architecture. One machine
-//! always takes the same path, so results stay bitwise reproducible there.
+//! coefficient type. `simd_dispatch!` instantiates a kernel three times: with fused
+//! multiply-add inside an `avx2,fma` target-feature function and inside an
+//! `avx2,fma,avx512f,avx512vl` one (the same AVX2 loops with 32 vector registers instead of
+//! 16; the same bits), chosen at run time by what the processor has, and with plain
+//! arithmetic for any other x86-64 or other architecture. One machine always takes the same
+//! path, so results stay bitwise reproducible there.
 //!
 //! Reductions use `LANES` independent accumulators combined in a fixed order; that is what
 //! lets the compiler vectorize them without reassociating floating-point sums.
@@ -393,6 +395,42 @@ pub fn has_avx2_fma() -> bool {
     }
 }
 
+/// True when the processor has AVX-512F and AVX-512VL besides AVX2 and FMA (checked once,
+/// then cached by std), so that `simd_dispatch!` can compile the same AVX2 loops with 32
+/// vector registers instead of 16 (see the macro).
+#[inline]
+pub fn has_avx512vl() -> bool {
+    #[cfg(target_arch = "x86_64")]
+    {
+        std::is_x86_feature_detected!("avx512f")
+            && std::is_x86_feature_detected!("avx512vl")
+            && has_avx2_fma()
+            && !narrow_registers_forced()
+    }
+    #[cfg(not(target_arch = "x86_64"))]
+    {
+        false
+    }
+}
+
+/// Tests compare the 32-register instantiation of a kernel with the 16-register one by
+/// switching the former off (`FORCE_NARROW`); outside tests it is always on where the
+/// processor has it.
+#[cfg(test)]
+pub static FORCE_NARROW: std::sync::atomic::AtomicBool = std::sync::atomic::AtomicBool::new(false);
+
+#[inline(always)]
+fn narrow_registers_forced() -> bool {
+    #[cfg(test)]
+    {
+        FORCE_NARROW.load(std::sync::atomic::Ordering::Relaxed)
+    }
+    #[cfg(not(test))]
+    {
+        false
+    }
+}
+
 /// The cache level the single-point four-segment loops prefetch their coefficients into
 /// (see `crate::avx2::AHEAD`).
 #[derive(Clone, Copy, Debug, PartialEq, Eq)]
@@ -456,7 +494,8 @@ pub fn amd_family() -> Option<u32> {
 }
 
 /// Name of the instruction-set path the kernels take on this machine: "avx2+fma+avx512f"
-/// (AVX2 kernels, and the 512-bit tile of `crate::avx512` for batches of 9 or more points),
+/// (AVX2 kernels, with 32 vector registers where AVX-512VL is present too, and the 512-bit
+/// tile of `crate::avx512` for batches of 9 or more points),
 /// "avx2+fma" or "baseline" (portable code).
 #[cfg_attr(not(feature = "python"), allow(dead_code))] // reported through the binding only
 pub fn simd_path() -> &'static str {
@@ -470,8 +509,22 @@ pub fn simd_path() -> &'static str {
 }
 
 /// Defines `pub fn $name<T: Coef>(args) -> ret` that calls `$body::<Fused, T>` inside an
-/// `avx2,fma` function when available and `$body::<Plain, T>` otherwise. `$body` must be
-/// `#[inline(always)]` so that its loops are compiled with the chosen features.
+/// `avx2,fma,avx512f,avx512vl` function where the processor has AVX-512VL ([`has_avx512vl`]),
+/// else inside an `avx2,fma` function when available, and `$body::<Plain, T>` otherwise.
+/// `$body` must be `#[inline(always)]` so that its loops are compiled with the chosen
+/// features.
+///
+/// The AVX-512VL instantiation runs the same 256-bit intrinsics in the same order (same
+/// bits; tested) but lets the compiler use 32 vector registers. With 16, the loops that keep
+/// more than 16 vectors live spill some to the stack on every step: the degree-3 HVP's
+/// (eight dot accumulators, four weights, x, v and four coefficients) kept three of its
+/// accumulators in memory. On the Zen 4 of bench/NOTES.md (p = 3, medians of 4-6 alternating
+/// runs) the HVP took 1.5x less time where the coefficients sit in cache (n = 200, one
+/// thread: 0.41 -> 0.28 ms, float32 0.40 -> 0.26 ms; p = 4, n = 60: 0.28 -> 0.23 ms, Hessian
+/// 0.30 -> 0.28 ms) and in float32 from memory (n = 800: one thread 24.2 -> 16.2 ms, two
+/// threads 12.6 -> 10.4 ms). The float64 HVP from memory at one thread was 10 % slower
+/// (n = 800: 27.1 -> 30.2 ms, unexplained; at two threads, and at n = 400 and p = 4, n = 120,
+/// no change beyond the noise). Energy, gradient and the degree-3 Hessian did not change.
 macro_rules! simd_dispatch {
     ($(#[$meta:meta])* $vis:vis fn $name:ident => $body:ident ($($arg:ident : $ty:ty),* $(,)?) -> $ret:ty) => {
         $(#[$meta])*
@@ -481,6 +534,14 @@ macro_rules! simd_dispatch {
                 #[target_feature(enable = "avx2,fma")]
                 unsafe fn fast<T: $crate::storage::Coef>($($arg: $ty),*) -> $ret {
                     $body::<$crate::simd::Fused, T>($($arg),*)
+                }
+                #[target_feature(enable = "avx2,fma,avx512f,avx512vl")]
+                unsafe fn wide<T: $crate::storage::Coef>($($arg: $ty),*) -> $ret {
+                    $body::<$crate::simd::Fused, T>($($arg),*)
+                }
+                if $crate::simd::has_avx512vl() {
+                    // SAFETY: the processor has the features `wide` was compiled for.
+                    return unsafe { wide::<T>($($arg),*) };
                 }
                 if $crate::simd::has_avx2_fma() {
                     // SAFETY: the processor has the features `fast` was compiled for.
@@ -766,5 +827,73 @@ mod tests {
         }
         check::<f64>(|v| v);
         check::<f32>(|v| v as f32);
+    }
+
+    /// Every dispatched kernel gives the same bits in its 32-register instantiation as in its
+    /// 16-register one: both run the same intrinsics in the same order, and the compiler does
+    /// not reassociate floating-point arithmetic. Covers the degree-3 four-segment loops
+    /// (n = 150: segments long enough to prefetch), the adjacent-row and quad paths of
+    /// degrees 4 and 5, and the batch tiles of 4 and 20 points. On a processor without
+    /// AVX-512VL there is only one instantiation, and the test says so.
+    #[test]
+    fn wide_registers_give_the_same_bits() {
+        use crate::batch::{energy_batch, energy_gradient_batch, hvp_many};
+        use crate::exec::Exec;
+        use crate::kernels::tests::point;
+        use crate::kernels::{energy, energy_gradient, hessian, hvp};
+        use crate::sampling::Disorder;
+        use crate::storage::Packed;
+        use std::sync::atomic::Ordering;
+
+        fn results<T: Coef>(exec: &Exec, poly: &Packed<T>) -> Vec<Vec<u64>> {
+            let n = poly.n();
+            let x = point(n, 0.31);
+            let v = point(n, 0.77);
+            let xs: Vec<f64> = (0..20)
+                .flat_map(|k| point(n, 0.1 + 0.05 * k as f64))
+                .collect();
+            let bits = |v: Vec<f64>| v.into_iter().map(f64::to_bits).collect::<Vec<u64>>();
+            let (e, g) = energy_gradient(exec, poly, &x).unwrap();
+            let (e4, g4) = energy_gradient_batch(exec, poly, &xs[..4 * n], 4).unwrap();
+            vec![
+                bits(vec![energy(exec, poly, &x).unwrap(), e]),
+                bits(g),
+                bits(hessian(exec, poly, &x).unwrap()),
+                bits(hvp(exec, poly, &x, &v).unwrap()),
+                bits(energy_batch(exec, poly, &xs, 20).unwrap()),
+                bits(e4),
+                bits(g4),
+                bits(hvp_many(exec, poly, &x, &xs[..3 * n], 3).unwrap()),
+            ]
+        }
+        fn compare<T: Coef>(n: usize, terms: &[(usize, f64)]) {
+            let exec = Exec::with_threads(2).unwrap();
+            let poly = Packed::<T>::sample(&exec, n, terms, &Disorder::new(5)).unwrap();
+            FORCE_NARROW.store(false, Ordering::Relaxed);
+            assert!(has_avx512vl());
+            let wide = results(&exec, &poly);
+            FORCE_NARROW.store(true, Ordering::Relaxed);
+            assert!(!has_avx512vl());
+            let narrow = results(&exec, &poly);
+            FORCE_NARROW.store(false, Ordering::Relaxed);
+            for (k, (a, b)) in wide.iter().zip(&narrow).enumerate() {
+                assert_eq!(a, b, "{} n={n} {terms:?}: result {k} differs", T::NAME);
+            }
+        }
+        if !has_avx512vl() {
+            eprintln!("no AVX-512VL here: the kernels have one AVX2 instantiation only");
+            return;
+        }
+        for terms in [&[(1, 0.3), (2, 1.0), (3, 0.7)][..], &[(3, 1.0)][..]] {
+            compare::<f64>(150, terms);
+            compare::<f32>(150, terms);
+        }
+        for (n, terms) in [
+            (40, &[(4, 1.0)][..]),
+            (24, &[(2, 0.5), (4, 0.4), (5, 0.2)][..]),
+        ] {
+            compare::<f64>(n, terms);
+            compare::<f32>(n, terms);
+        }
     }
 }

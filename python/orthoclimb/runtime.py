@@ -45,8 +45,9 @@ def get_num_threads() -> int:
 def kernel_path() -> str:
     """Instruction-set path the kernels take here.
 
-    'avx2+fma+avx512f': AVX2 kernels, and a 512-bit tile for batches of 9 or more points (5
-    with gradients; same bits as the AVX2 tile); 'avx2+fma': AVX2 kernels; 'baseline': portable
+    'avx2+fma+avx512f': AVX2 kernels (compiled with AVX-512's 32 vector registers where the
+    processor has AVX-512VL too), and a 512-bit tile for batches of 9 or more points (5 with
+    gradients; same bits as the AVX2 tile); 'avx2+fma': AVX2 kernels; 'baseline': portable
     code. All three give the same results up to rounding (AVX2 and AVX-512 paths bit for bit
     alike).
     """
