@@ -404,6 +404,35 @@ def test_one_mixture_under_two_names_at_distinct_sizes_is_a_valid_study(tmp_path
     assert len({t.task_id for t in tasks}) == len(tasks) == 12
 
 
+def test_study_sizes_may_be_left_out_when_every_mixture_has_its_own(tmp_path):
+    # a trial's wish: the top-level sizes were required even when no mixture used them
+    path = tmp_path / "own.toml"
+    text = (
+        'seeds = "0-1"\n[[method]]\nname = "gradient"\n'
+        '[[mixture]]\nname = "p3"\ngammas = {3 = 1.0}\nsizes = [10, 12]\n'
+        '[[mixture]]\nname = "p4"\ngammas = {4 = 1.0}\nsizes = [8]\n'
+    )
+    path.write_text(text)
+    spec = spec_from_toml(path)
+    assert spec.sizes == ()
+    assert sorted((t.mixture.name, t.n) for t in spec.tasks()) == sorted(
+        [("p3", 10)] * 2 + [("p3", 12)] * 2 + [("p4", 8)] * 2
+    )
+    # study.json round trip keeps it (the store rereads its spec from there)
+    again = StudySpec.from_dict(spec.to_dict())
+    assert [t.task_id for t in again.tasks()] == [t.task_id for t in spec.tasks()]
+    # a mixture without sizes of its own then has none: refused, naming it (it had no
+    # tasks at all before, silently)
+    path.write_text(text + '[[mixture]]\nname = "bare"\ngammas = {2 = 1.0}\n')
+    with pytest.raises(ValueError, match="mixture 'bare' has no sizes of its own"):
+        spec_from_toml(path)
+    bare = MixtureSpec.make(Mixture({2: 1.0}), "bare")
+    with pytest.raises(ValueError, match="'bare' has no sizes"):
+        StudySpec((bare,), (), (0,), (MethodSpec.make("gradient"),))
+    with pytest.raises(ValueError, match="size n must be in"):
+        StudySpec((bare,), (1, 10), (0,), (MethodSpec.make("gradient"),))
+
+
 @pytest.mark.parametrize(
     ("flag", "text"), [("--tol", "1e-400"), ("--timeout", "0"), ("--tol", "x")]
 )

@@ -43,7 +43,7 @@ DEFAULT_EXPONENT = 2.0 / 3.0
 
 TOML_EXAMPLE = """\
 exponent = 0.6666666666666666     # finite-size law e(n) = e_inf + a n^(-exponent)
-sizes = [100, 200, 400]
+sizes = [100, 200, 400]           # optional when every mixture has its own
 seeds = "0-19"                    # or a list of integers
 dtype = "float64"                 # optional: float32 halves the memory
 
@@ -319,7 +319,11 @@ class MixtureSpec:
 
 @dataclass(frozen=True)
 class StudySpec:
-    """The full study grid. ``to_dict`` is the canonical configuration stored in study.json."""
+    """The full study grid. ``to_dict`` is the canonical configuration stored in study.json.
+
+    ``sizes`` are the sizes of every mixture without sizes of its own; it may be empty
+    (``()``) when each mixture has its own.
+    """
 
     mixtures: tuple[MixtureSpec, ...]
     sizes: tuple[int, ...]
@@ -336,6 +340,15 @@ class StudySpec:
         names = [m.name for m in self.mixtures]
         if len(set(names)) != len(names):
             raise ValueError(f"mixture names must be distinct, got {names}")
+        if self.sizes:
+            parse_sizes(self.sizes)  # the checks of a size list (a tuple here, not text)
+        for spec in self.mixtures:
+            if spec.sizes is None and not self.sizes:
+                # such a mixture had no tasks at all, silently
+                raise ValueError(
+                    f"mixture {spec.name!r} has no sizes of its own and the study gives none:"
+                    " give the study's sizes (sizes = [100, 200]) or this mixture's own"
+                )
         for i, spec in enumerate(self.mixtures):
             # a task's id hashes the gammas and n, not the name: two names for one mixture at
             # a common size gave two tasks one id, and the second name's row was refused on
@@ -402,7 +415,7 @@ class StudySpec:
             )
             return cls(
                 mixtures,
-                parse_sizes(data["sizes"]),
+                parse_sizes(data["sizes"]) if data.get("sizes") else (),
                 parse_seeds(data["seeds"]),
                 methods,
                 float(data.get("exponent", DEFAULT_EXPONENT)),
@@ -511,12 +524,11 @@ def spec_from_toml(path: str | Path) -> StudySpec:
     if unknown:
         raise ValueError(f"{str(p)!r}: unknown key {unknown[0]!r}; known keys {sorted(known)}")
     how = {
-        "sizes": "sizes = [100, 200]",
         "seeds": 'seeds = "0-19"',
         "mixture": "a table [[mixture]] with gammas = { 3 = 1.0 }",
         "method": 'a table [[method]] with name = "hessian" (one per method)',
     }
-    for key in ("sizes", "seeds", "mixture", "method"):
+    for key in ("seeds", "mixture", "method"):  # sizes: may come with each mixture
         if key not in data:
             raise ValueError(f"{str(p)!r}: missing key {key!r}; add {how[key]}")
     try:
@@ -532,7 +544,7 @@ def spec_from_toml(path: str | Path) -> StudySpec:
             raise ValueError(f"'exponent' must be a number, got {exponent!r}")
         return StudySpec(
             mixes,
-            parse_sizes(data["sizes"]),
+            parse_sizes(data["sizes"]) if "sizes" in data else (),
             parse_seeds(data["seeds"]),
             tuple(methods),
             float(exponent),
