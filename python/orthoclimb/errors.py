@@ -31,7 +31,9 @@ class NonFiniteError(ValueError):
 class InsufficientMemoryError(MemoryError, ValueError):
     """An instance would need more memory than the machine has available.
 
-    Raised *before* anything is allocated; the message gives the bytes needed and available.
+    Raised before allocating when the memory check refuses (the message gives the bytes
+    needed and available), and when an allocation itself fails (a check turned off with
+    ``check_memory=False``, or memory taken by others after the check).
     """
 
 

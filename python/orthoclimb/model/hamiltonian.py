@@ -169,9 +169,8 @@ class Hamiltonian:
         """Wrap given packed coefficients {p: 1-D array of length C(n+p-1, p)} (the packed
         order of the README's Conventions: sorted index tuples in lexicographic order).
         ``mixture`` and ``seed`` are None. The values are copied into the instance's own storage
-        while other Python threads may run (the GIL is released), without a second copy of
-        arrays that may be gigabytes: do not write to them from another thread until this
-        returns."""
+        with the GIL held (one copy, no second buffer of arrays that may be gigabytes); Ctrl-C
+        stops a large copy between pieces of 2^20 values."""
         n = check_size(n)
         dtype = normalize_dtype(dtype)
         if not isinstance(coefficients, Mapping) or not coefficients:
