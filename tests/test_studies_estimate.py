@@ -242,10 +242,9 @@ def test_the_plan_notes_a_path_of_the_same_k_at_every_size():
     # at the cap, K = 200 from n = 1600 on, no size lets K grow (a review: the note said so)
     (note,) = fixed_path_notes(spec_from_flags(["3:1"], None, "1600,3200", "0-3", "hessian"))
     assert "K = 200 path points" in note and "K stays at its cap from n = 1600 on" in note
-    # K grows between the sizes, one size only, a field (no E_K), no Hessian ascent, pure
-    # 2-spin from the top eigenvector: no note
+    # one size only, a field (no E_K), no Hessian ascent, pure 2-spin from the top
+    # eigenvector: no note
     for flags in [
-        (["3:1"], None, "50,400", "0-3", "hessian"),
         (["3:1"], None, "100", "0-3", "hessian"),
         (["1:0.5,2:1"], None, "50,100", "0-3", "hessian"),
         (["3:1"], None, "50,100", "0-3", "gradient"),
@@ -259,6 +258,25 @@ def test_the_plan_notes_a_path_of_the_same_k_at_every_size():
     (note,) = fixed_path_notes(spec)
     assert "K = 40" in note and "(set by steps): its energy tends to" in note
     assert f"E_K = {math.sqrt(6) * 40**-1.5 * sum(math.sqrt(i) for i in range(40)):.4f}" in note
+
+
+def test_the_plan_notes_a_default_k_that_differs_across_the_sizes():
+    # a trial: K = 25, 25, 37 at n = 75, 150, 300 went without a word, and the report fitted
+    # one law across the three limits. Pure 3-spin: E_K = sqrt(6) K^(-3/2) sum_{i<K} sqrt(i)
+    # (exact identity of the left Riemann sum of sqrt(6 q))
+    from orthoclimb.studies.estimate import fixed_path_notes
+    from orthoclimb.studies.grid import spec_from_flags
+
+    def e(k):
+        return math.sqrt(6) * k**-1.5 * sum(math.sqrt(i) for i in range(k))
+
+    (note,) = fixed_path_notes(spec_from_flags(["3:1"], None, "75,150,300", "0-3", "hessian"))
+    assert "(25 at n = 75, 25 at n = 150, 37 at n = 300)" in note
+    assert f"E_25 = {e(25):.4f}, E_37 = {e(37):.4f}" in note
+    assert "mixes different limits" in note and "before its polish it heads" in note
+    # above the cap K is 200 at every size: the fixed-K note, not this one
+    (note,) = fixed_path_notes(spec_from_flags(["3:1"], None, "1600,3200", "0-3", "hessian"))
+    assert "differs across the sizes" not in note
 
 
 def test_the_sweep_plan_prints_the_path_note(tmp_path, capsys):

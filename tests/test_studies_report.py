@@ -597,6 +597,29 @@ def test_the_report_extrapolates_the_difference_of_two_methods_limits(tmp_path):
     assert len(line) == 1 and line[0].startswith("3:1.0: hessian - gradient as n -> infinity")
 
 
+def test_a_fit_before_polish_over_sizes_of_different_k_says_so(tmp_path):
+    # a trial: one law was fitted over sizes whose paths had K = 25, 25, 37 points, each
+    # heading for its own E_K, without a word. Pure 3-spin: E_K = sqrt(6) K^(-3/2)
+    # sum_{i<K} sqrt(i) (exact identity)
+    spec = spec_from_flags(["3:1"], None, "20,40,80", "0-5", "hessian")
+    store = Store.open(tmp_path / "s", spec)
+    noise = np.random.default_rng(4).standard_normal(64)
+    ks = {20: 25, 40: 25, 80: 37}
+    for i, t in enumerate(spec.tasks()):
+        e = 1.55 - 0.8 * t.n ** (-2 / 3) + 0.01 * noise[i]
+        row = {"task_id": t.task_id, "mixture": t.mixture.name, "method": "hessian"}
+        row.update(n=t.n, seed=t.seed, energy=e + 0.03, energy_before_polish=e, steps=ks[t.n])
+        store.write_row(row)
+    rep = build_report(tmp_path / "s", n_boot=200)
+    (fit,) = [f for f in rep.fits if f["method"] == "hessian before polish"]
+    assert "e_k" not in fit and fit["steps_by_n"] == [[20, 25], [40, 25], [80, 37]]
+    e = [math.sqrt(6) * k**-1.5 * sum(math.sqrt(i) for i in range(k)) for k in (25, 37)]
+    assert fit["e_ks"] == [[25, pytest.approx(e[0], rel=1e-12)], [37, pytest.approx(e[1])]]
+    (line,) = [t for t in rep.findings if "K differs across the sizes" in t]
+    assert "(K = 25 at n = 20, 40; 37 at n = 80)" in line
+    assert f"E_25 = {e[0]:.4f}, E_37 = {e[1]:.4f}" in line
+
+
 def test_hessian_ascent_before_polish_is_set_beside_e_k_when_k_is_fixed(tmp_path):
     # pure 3-spin, K = 25 at every size: a path of K points reaches E_K = sqrt(6) K^(-3/2)
     # sum_{i<K} sqrt(i) as n -> infinity (exact identity of the left Riemann sum of sqrt(6 q))

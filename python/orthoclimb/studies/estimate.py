@@ -265,8 +265,10 @@ def fixed_path_notes(spec: StudySpec) -> list[str]:
     K at every size of the study (K = n/8 clamped to [25, 200] is 25 for every n < 208, and
     ``steps`` fixes it): its energy before the polish then tends to E_K
     (:func:`~orthoclimb.algorithms.hessian_ascent.stepwise_limit`) as n -> infinity, short of
-    ALG by a loss no n removes, so the study cannot show that series reach ALG. None for a
-    mixture with one size, or with a field (no E_K). Printed with the plan."""
+    ALG by a loss no n removes, so the study cannot show that series reach ALG. Where the
+    default K differs across the sizes, a note that each size heads for its own E_K, which
+    one finite-size law over them mixes. None for a mixture with one size, or with a field (no
+    E_K). Printed with the plan."""
     from ..theory.algorithmic import algorithmic_energy
 
     out = []
@@ -279,8 +281,22 @@ def fixed_path_notes(spec: StudySpec) -> list[str]:
         start = opts.get("start", LEGACY_START)
         for m in spec.mixtures:
             sizes = m.sizes or spec.sizes
-            ks = {auto_steps(n) if given == "auto" else given for n in sizes}
-            if len(sizes) < 2 or len(ks) != 1:
+            k_at = {n: auto_steps(n) if given == "auto" else given for n in sizes}
+            ks = set(k_at.values())
+            if len(sizes) < 2:
+                continue
+            if len(ks) > 1:  # K = n/8 passes 25 inside the grid
+                limits = [(k, stepwise_shortfall(m.mixture, k, start)) for k in sorted(ks)]
+                if all(e is not None for _, e in limits):
+                    ns = ", ".join(f"{k_at[n]} at n = {n}" for n in sorted(sizes))
+                    named = ", ".join(f"E_{k} = {e:.4f}" for k, e in limits)
+                    out.append(
+                        f"note: {method.label} takes K = n/8 clamped to [25, 200] path points,"
+                        f" which differs across the sizes of {m.name} ({ns}): {series} heads"
+                        f" at each size for the limit of its own K ({named}), so one"
+                        " finite-size law over these sizes mixes different limits; fix steps"
+                        " to compare sizes at one K"
+                    )
                 continue
             k = ks.pop()
             e_k = stepwise_shortfall(m.mixture, k, start)

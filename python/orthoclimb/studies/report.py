@@ -318,7 +318,7 @@ def build_report(
                 _add_stepwise_limit(
                     entry,
                     m.mixture,
-                    [steps.get((m.name, label, n)) for n in sizes],
+                    {n: steps.get((m.name, label, n)) for n in sizes},
                     dict(hessian.options).get("start", LEGACY_START),
                 )
             fits.append(entry)
@@ -368,20 +368,44 @@ def build_report(
 
 
 def _add_stepwise_limit(
-    entry: dict[str, Any], mixture: Any, ks: list[float | None], start: str
+    entry: dict[str, Any], mixture: Any, k_at: dict[int, float | None], start: str
 ) -> None:
-    """With the same K at every size of a Hessian-ascent fit before polish, the n -> infinity
-    energy its K points reach from the runs' ``start`` (``stepwise_limit``: the coarse steps'
-    loss stays however large n) as ``e_k``, and the fit's distance to it in s.e. as ``z_k``."""
+    """With the same K at every size of a Hessian-ascent fit before polish (``k_at``: n -> K),
+    the n -> infinity energy its K points reach from the runs' ``start`` (``stepwise_limit``:
+    the coarse steps' loss stays however large n) as ``e_k``, and the fit's distance to it in
+    s.e. as ``z_k``. With K differing between sizes, ``steps_by_n`` ([n, K] pairs) and
+    ``e_ks`` ([K, E_K] pairs): each size then heads for its own limit, which one law over the
+    sizes mixes."""
     from ..algorithms.hessian_ascent import stepwise_shortfall
 
-    if not ks or ks[0] is None or any(k != ks[0] for k in ks) or ks[0] != int(ks[0]):
+    ks = list(k_at.values())
+    if not ks or any(k is None or k != int(k) for k in ks):
+        return
+    if len(set(ks)) > 1:  # K = n/8 grows past 25 from n = 208 on, within the grid
+        limits = [[int(k), stepwise_shortfall(mixture, int(k), start)] for k in sorted(set(ks))]
+        if all(e is not None for _, e in limits):
+            entry.update(steps_by_n=[[n, int(k)] for n, k in k_at.items()], e_ks=limits)
         return
     e_k = stepwise_shortfall(mixture, int(ks[0]), start)
     if e_k is None:
         return  # a field, or a path that reaches ALG anyway (pure 2-spin from the top start)
     se = entry["se"] if entry["se"] > 0 else math.nan
     entry.update(steps_k=int(ks[0]), e_k=e_k, z_k=(entry["value"] - e_k) / se)
+
+
+def _mixed_steps_text(steps_by_n: list[list[int]], e_ks: list[list[float]]) -> str:
+    """'K differs across the sizes (K = 25 at n = 75, 150; 37 at n = 300): ...' for a fit
+    before polish whose sizes ran paths of different lengths."""
+    at: dict[int, list[int]] = {}
+    for n, k in steps_by_n:
+        at.setdefault(k, []).append(n)
+    where = "; ".join(f"{k} at n = {', '.join(str(n) for n in ns)}" for k, ns in at.items())
+    limits = ", ".join(f"E_{int(k)} = {e:.4f}" for k, e in e_ks)
+    return (
+        f"K differs across the sizes (K = {where}): before the polish each size heads for the"
+        f" limit of its own K ({limits}), so one law over these sizes mixes different limits"
+        " and its e_inf is none of them (fix steps, or compare sizes of one K)"
+    )
 
 
 def _left_out_text(left_out: list[list[int]]) -> str:
@@ -445,6 +469,8 @@ def _findings(rep: Report, seeds: dict) -> list[str]:
                 f" E_K = {f['e_k']:.4f} as n -> infinity (its coarse steps fall short of ALG by"
                 f" {f['alg'] - f['e_k']:.4f} however large n): {f['z_k']:+.1f} s.e. from it"
             )
+        if f.get("steps_by_n"):
+            text += "; " + _mixed_steps_text(f["steps_by_n"], f["e_ks"])
         text += law_test_text(f)
         if f["dof"] == 0:
             text += (
