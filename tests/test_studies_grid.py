@@ -434,6 +434,17 @@ def test_study_sizes_may_be_left_out_when_every_mixture_has_its_own(tmp_path):
 
 
 @pytest.mark.parametrize(
+    ("given", "missing"),
+    [(["--n", "20"], "give --seeds too"), (["--seeds", "0-1"], "give --n too"), ([], "--n and")],
+)
+def test_sweep_names_the_grid_flags_that_are_missing(tmp_path, capsys, given, missing):
+    # a trial: "give --n and --seeds" when only --seeds was missing
+    args = ["sweep", "--gammas", "2:1", *given, "--out", str(tmp_path / "o")]
+    assert main(args) == 2
+    assert missing in capsys.readouterr().err
+
+
+@pytest.mark.parametrize(
     ("flag", "text"), [("--tol", "1e-400"), ("--timeout", "0"), ("--tol", "x")]
 )
 def test_cli_positive_numbers_are_checked_on_the_text_given(tmp_path, capsys, flag, text):

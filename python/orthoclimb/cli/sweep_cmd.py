@@ -159,8 +159,9 @@ def _spec(args: argparse.Namespace) -> StudySpec:
         if args.exponent is not None:
             raise ValueError("set the exponent inside the TOML file (key 'exponent')")
         return spec
-    if args.sizes is None or args.seeds is None:
-        raise ValueError("give --n and --seeds (and --gammas), or a study TOML file")
+    missing = [flag for flag, v in (("--n", args.sizes), ("--seeds", args.seeds)) if v is None]
+    if missing:  # a trial: the message named --n although it was given
+        raise ValueError(f"give {' and '.join(missing)} too (or a study TOML file instead)")
     # each flag goes to the methods of the study that take it, as in climb; a flag that no
     # method of the study takes is a mistake, refused
     chosen = set(method_names(args.methods))
