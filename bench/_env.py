@@ -20,6 +20,7 @@ import numpy as np
 import scipy
 
 import orthoclimb as oc
+from orthoclimb import _load
 
 ENV_VARS = (
     "OPENBLAS_CORETYPE",
@@ -180,40 +181,9 @@ def extension_info() -> dict:
     }
 
 
-def _cpu_ticks() -> tuple[float, float] | None:
-    """(busy, total) CPU seconds of the whole machine since boot, from /proc/stat. Busy leaves
-    out idle, iowait and steal (time the hypervisor gave to other virtual machines: it is not
-    work of this machine's processes)."""
-    try:
-        first = Path("/proc/stat").read_text().splitlines()[0].split()
-    except (OSError, IndexError):
-        return None
-    values = [int(v) for v in first[1:9]]  # user nice system idle iowait irq softirq steal
-    tick = os.sysconf("SC_CLK_TCK")
-    total = sum(values) / tick
-    return total - (values[3] + values[4] + values[7]) / tick, total
-
-
-class OtherLoad:
-    """Average number of cores used by *other* processes between start() and stop(): the
-    machine's busy CPU time minus this process's own, over the wall time."""
-
-    def start(self) -> None:
-        self._t0 = (time.monotonic(), _cpu_ticks(), _own_cpu())
-
-    def stop(self) -> float | None:
-        wall0, ticks0, own0 = self._t0
-        ticks1 = _cpu_ticks()
-        wall = time.monotonic() - wall0
-        if ticks0 is None or ticks1 is None or wall <= 0:
-            return None
-        others = (ticks1[0] - ticks0[0]) - (_own_cpu() - own0)
-        return max(0.0, others / wall)
-
-
-def _own_cpu() -> float:
-    t = os.times()
-    return t.user + t.system
+# the machine's load from other processes: the package's own measure, which its time
+# estimates use too
+OtherLoad = _load.OtherLoad
 
 
 def others_busy(seconds: float = 1.0) -> float | None:

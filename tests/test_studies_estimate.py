@@ -279,6 +279,19 @@ def test_the_plan_notes_a_default_k_that_differs_across_the_sizes():
     assert "differs across the sizes" not in note
 
 
+def test_the_sweep_plan_says_when_it_was_timed_on_a_busy_machine(tmp_path, capsys, monkeypatch):
+    from orthoclimb import _load
+    from orthoclimb.cli import main
+
+    monkeypatch.setattr(_load.OtherLoad, "stop", lambda self: 1.4)
+    args = ["sweep", "--gammas", "3:1", "--n", "20,30", "--seeds", "0-1", "--plan-only"]
+    assert main([*args, "--out", str(tmp_path / "s")]) == 0
+    out = capsys.readouterr().out
+    (line,) = [t for t in out.splitlines() if "other processes kept" in t]
+    assert line.startswith("note: other processes kept 1.4 of") and "the estimate" in line
+    assert out.index("rough time estimate") < out.index(line)
+
+
 def test_the_sweep_plan_prints_the_path_note(tmp_path, capsys):
     from orthoclimb.cli import main
 

@@ -24,6 +24,7 @@ from typing import Any
 
 import numpy as np
 
+from .._load import OtherLoad, busy_note
 from ..algorithms._checks import MAX_STEPS, check_count
 from ..fileio import (
     ensure_folder,
@@ -355,10 +356,14 @@ def run(args: argparse.Namespace) -> int:
         raise ValueError("--plan-only prints its plan as text; give it without --json")
     polish = not args.no_polish and args.method != "gradient"
     if args.plan_only:  # before the memory check: a plan may be for a bigger machine
+        load = OtherLoad().start()
         probe, seconds = _probe(mixture, args.n, args.dtype)
         say(_sampling_text(probe, seconds, need))
         scale = need / probe.nbytes
         say(_run_estimate(probe, args.method, steps, polish, args.n, scale, start))
+        busy = busy_note(load.stop(), "the plan")  # a trial's plans varied 3-5x under load
+        if busy is not None:
+            say(f"note: {busy}")
         try:
             require_memory(need, f"an instance of {mixture!r} with n = {args.n}")
         except MemoryError as exc:
@@ -374,7 +379,11 @@ def run(args: argparse.Namespace) -> int:
     started = time.perf_counter()
     ham = Hamiltonian.sample(mixture, args.n, args.seed, dtype=args.dtype, progress=bars)
     sampling_seconds = time.perf_counter() - started
+    load = OtherLoad().start()
     say(_run_estimate(ham, args.method, steps, polish, start=start))
+    busy = busy_note(load.stop())
+    if busy is not None:
+        say(f"note: {busy}")
 
     from tqdm import tqdm
 

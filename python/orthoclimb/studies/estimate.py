@@ -332,6 +332,7 @@ def plan_lines(
     or None on the external ``scheduler``, where a task takes ``threads`` kernel threads), the
     time estimate (:func:`estimate_seconds`, which times the kernels first) and the notes of
     :func:`fixed_path_notes`. With no task pending, one line saying so."""
+    from .._load import OtherLoad, busy_note
     from .._text import seconds_text
     from ..model.memory import format_bytes
     from .engine import counted
@@ -357,11 +358,15 @@ def plan_lines(
     else:
         lines.append(f"Dask scheduler: {scheduler}")
         workers, threads = 1, threads or 1
+    load = OtherLoad().start()
     est = estimate_seconds(spec, pending, workers, threads, embedded=plan is not None)
+    busy = busy_note(load.stop())
     where = " for one worker of the external cluster" if plan is None else ""
     # timed on this machine as it is now; other work started later slows the run (a review
     # measured 80 s for an estimate of 30 s with a load of 4 on two cores)
     lines.append(
         f"rough time estimate: {seconds_text(est)}{where}, if the cores stay free of other work"
     )
+    if busy is not None:  # and work already running is in the timings
+        lines.append(f"note: {busy}")
     return lines + fixed_path_notes(spec)

@@ -1,0 +1,69 @@
+"""How busy the machine is with other processes' work, for time estimates made on it.
+
+A time estimate times kernels on this machine; while other processes keep its cores busy, the
+timings (and so the estimate) carry their load. :class:`OtherLoad` measures that load, in
+cores, over a stretch of this process's own work: the machine's busy CPU time (``/proc/stat``,
+Linux) less this process's own, over the wall time. Elsewhere it measures nothing (None).
+"""
+
+from __future__ import annotations
+
+import os
+import time
+from pathlib import Path
+
+__all__ = ["OtherLoad", "busy_note"]
+
+#: Cores of other work from which an estimate says it was timed under load.
+BUSY_CORES = 0.5
+
+
+def _cpu_ticks() -> tuple[float, float] | None:
+    """(busy, total) CPU seconds of the whole machine since boot, from /proc/stat. Busy leaves
+    out idle, iowait and steal (time the hypervisor gave to other virtual machines: it is not
+    work of this machine's processes)."""
+    try:
+        first = Path("/proc/stat").read_text().splitlines()[0].split()
+        values = [int(v) for v in first[1:9]]  # user nice system idle iowait irq softirq steal
+        tick = os.sysconf("SC_CLK_TCK")
+    except (OSError, IndexError, ValueError, AttributeError):
+        return None
+    total = sum(values) / tick
+    return total - (values[3] + values[4] + values[7]) / tick, total
+
+
+def _own_cpu() -> float:
+    t = os.times()
+    return t.user + t.system
+
+
+class OtherLoad:
+    """Average number of cores used by *other* processes between start() and stop(): the
+    machine's busy CPU time minus this process's own, over the wall time (None where
+    /proc/stat cannot be read)."""
+
+    def start(self) -> OtherLoad:
+        self._t0 = (time.monotonic(), _cpu_ticks(), _own_cpu())
+        return self
+
+    def stop(self) -> float | None:
+        wall0, ticks0, own0 = self._t0
+        ticks1 = _cpu_ticks()
+        wall = time.monotonic() - wall0
+        if ticks0 is None or ticks1 is None or wall <= 0:
+            return None
+        others = (ticks1[0] - ticks0[0]) - (_own_cpu() - own0)
+        return max(0.0, others / wall)
+
+
+def busy_note(cores: float | None, what: str = "the estimate") -> str | None:
+    """A sentence for an estimate timed while other processes kept ``cores`` cores busy (None
+    below :data:`BUSY_CORES` or when unmeasured): their load is in the timings, so the run
+    takes about that long only while it lasts."""
+    if cores is None or cores < BUSY_CORES:
+        return None
+    total = os.cpu_count() or 1
+    return (
+        f"other processes kept {cores:.1f} of this machine's {total} cores busy while the"
+        f" kernels were timed: {what} includes their load, and holds only while it lasts"
+    )
