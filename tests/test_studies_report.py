@@ -13,7 +13,7 @@ from orthoclimb import Mixture
 from orthoclimb.cli import main
 from orthoclimb.studies.engine import run_study
 from orthoclimb.studies.grid import spec_from_flags
-from orthoclimb.studies.report import build_report, write_report
+from orthoclimb.studies.report import build_report, caveats, write_report
 from orthoclimb.studies.store import Store
 from orthoclimb.studies.tasks import TheoryValues
 
@@ -242,6 +242,7 @@ def test_verdicts_read_the_laws_the_data_do_not_reject(tmp_path):
     assert "under n^(-2/3), which the data reject)" in text and "above ALG" not in text
     assert "the data reject n^(-1/2) and n^(-2/3)" in text
     assert "so the verdicts read n^(-1)" in text
+    assert caveats(fit) == "n^(-2/3) rejected"
     # ending 0.004 below ALG: no law that fits holds ALG, though the span of all three
     # intervals would (the review's case: the span is not the union)
     _synthetic_study(
@@ -283,6 +284,11 @@ def test_findings_flag_an_extrapolation_above_the_ground_state_and_an_unchecked_
     assert "WARNING: the whole interval lies above the ground state GS = 1.6570" in text
     assert "with 2 sizes the fit has no degree of freedom left" in text
     assert "consistent with" not in text
+    # the tables carry both remarks beside the numbers (a trial read the z columns alone)
+    rep = build_report(tmp_path / "s")
+    assert caveats(rep.fits[0]) == "unchecked, above GS"
+    (row,) = [t for t in rep.table().splitlines() if t.startswith("3:1.0")][-1:]
+    assert row.endswith("  unchecked, above GS") and "caveats: 'unchecked'" in rep.table()
     # a law that holds, from three sizes, near ALG: neither remark
     _synthetic_study(
         tmp_path / "t", "20,40,80", lambda n, s: 1.6 - n ** (-2 / 3) + 0.01 * noise[s + 8 * n % 5]
@@ -324,6 +330,7 @@ def test_poor_fit_flag_follows_the_laws_test(tmp_path):
         )
         rep = build_report(folder)
         assert "the data reject n^(-2/3)" in rep.findings[-1] or "no law from" in rep.findings[-1]
+        assert caveats(rep.fits[0]) in ("n^(-2/3) rejected", "no law fits")
     assert rep.fits[0]["chi2"] / rep.fits[0]["dof"] < 4 and rep.fits[0]["fit_p"] < 0.05
 
 
@@ -615,6 +622,7 @@ def test_a_fit_before_polish_over_sizes_of_different_k_says_so(tmp_path):
     assert "e_k" not in fit and fit["steps_by_n"] == [[20, 25], [40, 25], [80, 37]]
     e = [math.sqrt(6) * k**-1.5 * sum(math.sqrt(i) for i in range(k)) for k in (25, 37)]
     assert fit["e_ks"] == [[25, pytest.approx(e[0], rel=1e-12)], [37, pytest.approx(e[1])]]
+    assert caveats(fit).endswith("mixed K")
     (line,) = [t for t in rep.findings if "K differs across the sizes" in t]
     assert "(K = 25 at n = 20, 40; 37 at n = 80)" in line
     assert f"E_25 = {e[0]:.4f}, E_37 = {e[1]:.4f}" in line

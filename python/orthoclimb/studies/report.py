@@ -38,6 +38,8 @@ from .grid import LEGACY_START, StudySpec
 from .laws import (
     add_other_laws,
     against_theory,
+    fit_laws,
+    is_rejected,
     kept_laws,
     law_test_text,
     over_text,
@@ -109,7 +111,7 @@ class Report:
         lvl = level_text(self.spec_level())
         lines.append(
             f"{'mixture':<22} {'method':<{w}} {'e_inf':>8} {f'{lvl}% interval':>19} "
-            f"{'over laws':>19} {'ALG':>7} {'GS':>7} {'z(ALG)':>7} {'z(GS)':>7}"
+            f"{'over laws':>19} {'ALG':>7} {'GS':>7} {'z(ALG)':>7} {'z(GS)':>7}  caveats"
         )
         for f in self.fits:
             if f.get("value") is None:
@@ -119,11 +121,12 @@ class Report:
                 f"{f['mixture']:<22} {f['method']:<{w}} {f['value']:>8.4f} "
                 f"[{f['low']:>8.4f},{f['high']:>8.4f}] [{f['law_low']:>8.4f},"
                 f"{f['law_high']:>8.4f}] {f['alg']:>7.4f} {f['gs']:>7.4f} "
-                f"{f['z_alg']:>7.1f} {f['z_gs']:>7.1f}"
+                f"{f['z_alg']:>7.1f} {f['z_gs']:>7.1f}  {caveats(f)}".rstrip()
             )
         lines.append(
             "(energies per spin H(x)/n on the unit sphere, maximized; s.e. = sd/sqrt(count);"
-            " z in s.e. of e_inf"
+            " z in s.e. of e_inf; caveats: "
+            + CAVEATS_LEGEND
             + (
                 "; 'before polish': the runs' energies where the method ended, before its"
                 " final polish"
@@ -393,6 +396,32 @@ def _add_stepwise_limit(
     entry.update(steps_k=int(ks[0]), e_k=e_k, z_k=(entry["value"] - e_k) / se)
 
 
+#: What the tables' caveat words mean (the findings say each in full).
+CAVEATS_LEGEND = (
+    "'unchecked': no degree of freedom tests the law; 'no law fits' or a law 'rejected': the"
+    " laws' chi2 tests; 'above GS': the interval lies above the ground state; 'mixed K':"
+    " sizes of different path lengths; the findings give each in full"
+)
+
+
+def caveats(f: dict[str, Any]) -> str:
+    """The remarks of a fit's finding in a few words, for the tables (a trial read the z
+    columns and missed them): 'unchecked', 'no law fits' or 'n^(-2/3) rejected', 'above GS',
+    'mixed K'; '' when there are none."""
+    out = []
+    if f["dof"] == 0:
+        out.append("unchecked")
+    elif all(is_rejected(law) for law in fit_laws(f)):
+        out.append("no law fits")
+    elif is_rejected(f):
+        out.append(f"{power_text(f['exponent'])} rejected")
+    if math.isfinite(f["gs"]) and math.isfinite(f["law_low"]) and f["law_low"] > f["gs"]:
+        out.append("above GS")
+    if f.get("steps_by_n"):
+        out.append("mixed K")
+    return ", ".join(out)
+
+
 def _mixed_steps_text(steps_by_n: list[list[int]], e_ks: list[list[float]]) -> str:
     """'K differs across the sizes (K = 25 at n = 75, 150; 37 at n = 300): ...' for a fit
     before polish whose sizes ran paths of different lengths."""
@@ -628,12 +657,12 @@ def _markdown(rep: Report) -> str:
         "## Extrapolation",
         "",
         f"| mixture | method | e_inf | {lvl}% interval | over laws | s.e. | ALG | z(ALG) | GS |"
-        " z(GS) | chi2/dof (p) | e_inf, other laws |",
-        "| --- | --- | ---: | --- | --- | ---: | ---: | ---: | ---: | ---: | ---: | --- |",
+        " z(GS) | chi2/dof (p) | e_inf, other laws | caveats |",
+        "| --- | --- | ---: | --- | --- | ---: | ---: | ---: | ---: | ---: | ---: | --- | --- |",
     ]
     for f in rep.fits:
         if f.get("value") is None:
-            lines.append(f"| {f['mixture']} | {f['method']} | -- | {f['note']} | | | | | | | | |")
+            lines.append(f"| {f['mixture']} | {f['method']} | -- | {f['note']} | | | | | | | | | |")
             continue
         lines.append(
             f"| {f['mixture']} | {f['method']} | {f['value']:.4f} | [{f['low']:.4f}, "
@@ -641,9 +670,11 @@ def _markdown(rep: Report) -> str:
             f"{f['alg']:.4f} | {f['z_alg']:+.1f} | {f['gs']:.4f} | {f['z_gs']:+.1f} | "
             f"{f['chi2']:.1f}/{f['dof']} ({_p_text(f['fit_p'])}) | "
             + ", ".join(f"{o['value']:.4f} (k = {o['exponent']:.3g})" for o in f["other_laws"])
-            + " |"
+            + f" | {caveats(f)} |"
         )
     lines += [
+        "",
+        f"Caveats: {CAVEATS_LEGEND}.",
         "",
         *cost_markdown(rep.cost),
         "",
