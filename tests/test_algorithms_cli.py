@@ -316,16 +316,16 @@ def test_a_plan_timed_on_a_busy_machine_says_so(tmp_path, capsys, monkeypatch):
     from orthoclimb import _load
 
     args = ["climb", "--gammas", "3:1", "--n", "40", "--plan-only"]
-    monkeypatch.setattr(_load.OtherLoad, "stop", lambda self: 1.6)
+    monkeypatch.setattr(_load.OtherLoad, "stop", lambda self, settle=0.0: 1.6)
     assert main([*args, "--out", str(tmp_path / "a")]) == 0
     out = capsys.readouterr().out
     assert "note: other processes kept 1.6 of this machine's" in out
     assert "the plan includes their load" in out
-    monkeypatch.setattr(_load.OtherLoad, "stop", lambda self: 0.1)
+    monkeypatch.setattr(_load.OtherLoad, "stop", lambda self, settle=0.0: 0.1)
     assert main([*args, "--out", str(tmp_path / "a")]) == 0
     assert "other processes" not in capsys.readouterr().out
     # a real run says it of the estimate it prints before running
-    monkeypatch.setattr(_load.OtherLoad, "stop", lambda self: 1.2)
+    monkeypatch.setattr(_load.OtherLoad, "stop", lambda self, settle=0.0: 1.2)
     run = ["climb", "--gammas", "3:1", "--n", "12", "--steps", "3", "--out", str(tmp_path / "r")]
     assert main(run) == 0
     assert "the estimate includes their load" in capsys.readouterr().out

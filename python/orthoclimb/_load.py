@@ -3,7 +3,9 @@
 A time estimate times kernels on this machine; while other processes keep its cores busy, the
 timings (and so the estimate) carry their load. :class:`OtherLoad` measures that load, in
 cores, over a stretch of this process's own work: the machine's busy CPU time (``/proc/stat``,
-Linux) less this process's own, over the wall time. Elsewhere it measures nothing (None).
+Linux) less this process's own, over the wall time. Both clocks count in ticks of about 10
+ms, so a stretch shorter than :data:`MIN_WINDOW` measures nothing (None), and a caller may wait
+out the rest of a window (``stop(settle=...)``). Elsewhere it measures nothing.
 """
 
 from __future__ import annotations
@@ -12,10 +14,13 @@ import os
 import time
 from pathlib import Path
 
-__all__ = ["OtherLoad", "busy_note"]
+__all__ = ["BUSY_CORES", "MIN_WINDOW", "OtherLoad", "busy_note"]
 
 #: Cores of other work from which an estimate says it was timed under load.
 BUSY_CORES = 0.5
+#: Shortest stretch measured (seconds): 20 ticks of 10 ms, so that one tick is 0.05 cores (a
+#: review: over the 2-36 ms a plan's timing takes, readings were 0 or 5-10 "cores").
+MIN_WINDOW = 0.2
 
 
 def _cpu_ticks() -> tuple[float, float] | None:
@@ -39,21 +44,30 @@ def _own_cpu() -> float:
 
 class OtherLoad:
     """Average number of cores used by *other* processes between start() and stop(): the
-    machine's busy CPU time minus this process's own, over the wall time (None where
-    /proc/stat cannot be read)."""
+    machine's busy CPU time minus this process's own, over the wall time, at most the
+    machine's core count (None where /proc/stat cannot be read, or over a stretch shorter than
+    :data:`MIN_WINDOW`)."""
 
     def start(self) -> OtherLoad:
         self._t0 = (time.monotonic(), _cpu_ticks(), _own_cpu())
         return self
 
-    def stop(self) -> float | None:
+    def stop(self, settle: float = 0.0) -> float | None:
+        """The reading; with ``settle``, first waits (sleeping, so this process adds nothing)
+        until that many seconds have passed since start()."""
         wall0, ticks0, own0 = self._t0
+        if ticks0 is None:
+            return None
+        rest = settle - (time.monotonic() - wall0)
+        if rest > 0:
+            time.sleep(rest)
         ticks1 = _cpu_ticks()
         wall = time.monotonic() - wall0
-        if ticks0 is None or ticks1 is None or wall <= 0:
+        if ticks1 is None or wall < MIN_WINDOW:
             return None
-        others = (ticks1[0] - ticks0[0]) - (_own_cpu() - own0)
-        return max(0.0, others / wall)
+        cores = max(0.0, ((ticks1[0] - ticks0[0]) - (_own_cpu() - own0)) / wall)
+        total = os.cpu_count()
+        return min(cores, float(total)) if total else cores
 
 
 def busy_note(cores: float | None, what: str = "the estimate") -> str | None:
@@ -62,8 +76,9 @@ def busy_note(cores: float | None, what: str = "the estimate") -> str | None:
     takes about that long only while it lasts."""
     if cores is None or cores < BUSY_CORES:
         return None
-    total = os.cpu_count() or 1
+    total = os.cpu_count()
+    of = f" of this machine's {total} cores" if total else " cores"
     return (
-        f"other processes kept {cores:.1f} of this machine's {total} cores busy while the"
-        f" kernels were timed: {what} includes their load, and holds only while it lasts"
+        f"other processes kept {cores:.1f}{of} busy while the kernels were timed: {what}"
+        " includes their load, and holds only while it lasts"
     )
