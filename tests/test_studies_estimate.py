@@ -271,19 +271,28 @@ def test_the_plan_notes_a_default_k_that_differs_across_the_sizes():
         return math.sqrt(6) * k**-1.5 * sum(math.sqrt(i) for i in range(k))
 
     (note,) = fixed_path_notes(spec_from_flags(["3:1"], None, "75,150,300", "0-3", "hessian"))
-    assert "(25 at n = 75, 25 at n = 150, 37 at n = 300)" in note
-    assert f"E_25 = {e(25):.4f}, E_37 = {e(37):.4f}" in note
-    assert "mixes different limits" in note and "before its polish it heads" in note
-    # above the cap K is 200 at every size: the fixed-K note, not this one
-    (note,) = fixed_path_notes(spec_from_flags(["3:1"], None, "1600,3200", "0-3", "hessian"))
-    assert "differs across the sizes" not in note
+    assert note.startswith("note: hessian on 3:1.0 (before its polish): K differs across")
+    assert f"K = 25, its floor, at n = 75, 150, where the path tends to E_25 = {e(25):.4f}" in note
+    assert "K = n/8 at n = 300, where its loss shrinks like 1/n), so one" in note
+    assert "sizes from n = 200 on keep K = n/8" in note
+    # at the cap and below it, without polish
+    opts = {"hessian": {"polish": False}}
+    (note,) = fixed_path_notes(spec_from_flags(["3:1"], None, "800,3200", "0-3", "hessian", opts))
+    assert "(its energy): K differs" in note and "sizes below n = 1608 keep" in note
+    assert f"K = 200, its cap, at n = 3200, where the path tends to E_200 = {e(200):.4f}" in note
+    # K = n/8 at every size (50, 100, 200): a 1/n correction with ALG as its limit, no note
+    # (a review: the note fired there and sent the user in a circle); above the cap K is 200
+    # at every size: the fixed-K note, not this one
+    assert fixed_path_notes(spec_from_flags(["3:1"], None, "400,800,1600", "0-3", "hessian")) == []
+    (note,) = fixed_path_notes(spec_from_flags(["3:1"], None, "1608,3200", "0-3", "hessian"))
+    assert "differs across the sizes" not in note and "K = 200 path points" in note
 
 
 def test_the_sweep_plan_says_when_it_was_timed_on_a_busy_machine(tmp_path, capsys, monkeypatch):
     from orthoclimb import _load
     from orthoclimb.cli import main
 
-    monkeypatch.setattr(_load.OtherLoad, "stop", lambda self: 1.4)
+    monkeypatch.setattr(_load.OtherLoad, "stop", lambda self, settle=0.0: 1.4)
     args = ["sweep", "--gammas", "3:1", "--n", "20,30", "--seeds", "0-1", "--plan-only"]
     assert main([*args, "--out", str(tmp_path / "s")]) == 0
     out = capsys.readouterr().out

@@ -431,11 +431,22 @@ def test_study_sizes_may_be_left_out_when_every_mixture_has_its_own(tmp_path):
         StudySpec((bare,), (), (0,), (MethodSpec.make("gradient"),))
     with pytest.raises(ValueError, match="size n must be in"):
         StudySpec((bare,), (1, 10), (0,), (MethodSpec.make("gradient"),))
+    # given out of order, the sizes are sorted as parsed text is, so that study.json reads
+    # back the same study (a review); an empty own list counts as none
+    grid = StudySpec((bare,), (20, 10), (0,), (MethodSpec.make("gradient"),))
+    assert grid.sizes == (10, 20) and StudySpec.from_dict(grid.to_dict()) == grid
+    empty_own = MixtureSpec("e", ((2, 1.0),), ())
+    with pytest.raises(ValueError, match="'e' has no sizes"):
+        StudySpec((empty_own,), (), (0,), (MethodSpec.make("gradient"),))
 
 
 @pytest.mark.parametrize(
     ("given", "missing"),
-    [(["--n", "20"], "give --seeds too"), (["--seeds", "0-1"], "give --n too"), ([], "--n and")],
+    [
+        (["--n", "20"], "give --seeds too"),
+        (["--seeds", "0-1"], "give --n too"),
+        ([], "give --n and --seeds (and --gammas)"),
+    ],
 )
 def test_sweep_names_the_grid_flags_that_are_missing(tmp_path, capsys, given, missing):
     # a trial: "give --n and --seeds" when only --seeds was missing

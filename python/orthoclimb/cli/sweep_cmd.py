@@ -160,8 +160,10 @@ def _spec(args: argparse.Namespace) -> StudySpec:
             raise ValueError("set the exponent inside the TOML file (key 'exponent')")
         return spec
     missing = [flag for flag, v in (("--n", args.sizes), ("--seeds", args.seeds)) if v is None]
+    if len(missing) == 2:
+        raise ValueError("give --n and --seeds (and --gammas), or a study TOML file")
     if missing:  # a trial: the message named --n although it was given
-        raise ValueError(f"give {' and '.join(missing)} too (or a study TOML file instead)")
+        raise ValueError(f"give {missing[0]} too (or a study TOML file instead)")
     # each flag goes to the methods of the study that take it, as in climb; a flag that no
     # method of the study takes is a mistake, refused
     chosen = set(method_names(args.methods))

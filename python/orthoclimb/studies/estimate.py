@@ -260,6 +260,45 @@ def estimate_seconds(
     return estimate_from(calibrate(spec, threads), tasks, workers, embedded)
 
 
+def mixed_k_text(k_at: dict[int, int], e_k) -> str | None:
+    """For Hessian ascent's default K over a study's sizes (``k_at``: n -> K), a sentence when
+    K is clamped (n // 8 below 25 or above 200) at some sizes and differs across them; None
+    otherwise: K = n/8 at every size makes the coarse steps' loss (about 1.3/K) a 1/n
+    correction whose limit is ALG, and one K at every size is the fixed-K note's case.
+    ``e_k(K)``: the n -> infinity energy of a path of K points (None: no sentence)."""
+    if len(set(k_at.values())) < 2:
+        return None
+    floor = sorted(n for n, k in k_at.items() if n // 8 < k == 25)
+    cap = sorted(n for n, k in k_at.items() if n // 8 > k == 200)
+    grows = sorted(n for n, k in k_at.items() if n // 8 == k)
+    if not floor and not cap:  # K = n/8 everywhere (a review: the note fired there too)
+        return None
+    if len(floor) + len(cap) + len(grows) < len(k_at):  # not the default's K at some size
+        return None
+    parts, advice = [], []
+    for ns, what, where in ((floor, "floor", "from n = 200 on"), (cap, "cap", "below n = 1608")):
+        if not ns:
+            continue
+        k = k_at[ns[0]]
+        limit = e_k(k)
+        if limit is None:
+            return None
+        parts.append(
+            f"K = {k}, its {what}, at n = {', '.join(map(str, ns))}, where the path tends to"
+            f" E_{k} = {limit:.4f} however large n"
+        )
+        advice.append(where)
+    if grows:
+        parts.append(
+            f"K = n/8 at n = {', '.join(map(str, grows))}, where its loss shrinks like 1/n"
+        )
+    return (
+        "K differs across the sizes (" + "; ".join(parts) + "), so one finite-size law over"
+        f" these sizes mixes a fixed shortfall with a vanishing one: sizes {' and '.join(advice)}"
+        " keep K = n/8, and a fixed steps compares all sizes at one K"
+    )
+
+
 def fixed_path_notes(spec: StudySpec) -> list[str]:
     """A note per Hessian-ascent method and mixture whose path has the same number of points
     K at every size of the study (K = n/8 clamped to [25, 200] is 25 for every n < 208, and
@@ -285,18 +324,13 @@ def fixed_path_notes(spec: StudySpec) -> list[str]:
             ks = set(k_at.values())
             if len(sizes) < 2:
                 continue
-            if len(ks) > 1:  # K = n/8 passes 25 inside the grid
-                limits = [(k, stepwise_shortfall(m.mixture, k, start)) for k in sorted(ks)]
-                if all(e is not None for _, e in limits):
-                    ns = ", ".join(f"{k_at[n]} at n = {n}" for n in sorted(sizes))
-                    named = ", ".join(f"E_{k} = {e:.4f}" for k, e in limits)
-                    out.append(
-                        f"note: {method.label} takes K = n/8 clamped to [25, 200] path points,"
-                        f" which differs across the sizes of {m.name} ({ns}): {series} heads"
-                        f" at each size for the limit of its own K ({named}), so one"
-                        " finite-size law over these sizes mixes different limits; fix steps"
-                        " to compare sizes at one K"
-                    )
+            if len(ks) > 1:  # the default K, clamped at some sizes and not at others
+                mixed = mixed_k_text(
+                    k_at, lambda k, m=m, s=start: stepwise_shortfall(m.mixture, k, s)
+                )
+                if mixed is not None:
+                    energy = "before its polish" if opts["polish"] else "its energy"
+                    out.append(f"note: {method.label} on {m.name} ({energy}): {mixed}")
                 continue
             k = ks.pop()
             e_k = stepwise_shortfall(m.mixture, k, start)
@@ -360,7 +394,7 @@ def plan_lines(
         workers, threads = 1, threads or 1
     load = OtherLoad().start()
     est = estimate_seconds(spec, pending, workers, threads, embedded=plan is not None)
-    busy = busy_note(load.stop())
+    busy = busy_note(load.stop(settle=0.5))  # timing a small study takes milliseconds
     where = " for one worker of the external cluster" if plan is None else ""
     # timed on this machine as it is now; other work started later slows the run (a review
     # measured 80 s for an estimate of 30 s with a load of 4 on two cores)

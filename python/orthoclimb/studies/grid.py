@@ -340,10 +340,10 @@ class StudySpec:
         names = [m.name for m in self.mixtures]
         if len(set(names)) != len(names):
             raise ValueError(f"mixture names must be distinct, got {names}")
-        if self.sizes:
-            parse_sizes(self.sizes)  # the checks of a size list (a tuple here, not text)
+        if self.sizes:  # checked and sorted as a parsed list is (tasks run small n first)
+            object.__setattr__(self, "sizes", parse_sizes(self.sizes))
         for spec in self.mixtures:
-            if spec.sizes is None and not self.sizes:
+            if not (spec.sizes or self.sizes):
                 # such a mixture had no tasks at all, silently
                 raise ValueError(
                     f"mixture {spec.name!r} has no sizes of its own and the study gives none:"

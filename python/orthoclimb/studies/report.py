@@ -316,8 +316,13 @@ def build_report(
             entry["z_alg"] = (ex.value - th["alg"]) / se
             entry["z_gs"] = (ex.value - th["gs"]) / se
             add_other_laws(entry, sizes, samples, level, n_boot, seed=seed)
-            if label == "hessian" + BEFORE_POLISH:
-                hessian = next(me for me in spec.methods if me.name == "hessian")
+            hessian = next((me for me in spec.methods if me.name == "hessian"), None)
+            # the path's own energy: before the polish, or the run's without one (a review:
+            # the plan noted a study without polish, the report did not)
+            if hessian is not None and (
+                label == "hessian" + BEFORE_POLISH
+                or (label == "hessian" and not dict(hessian.options)["polish"])
+            ):
                 _add_stepwise_limit(
                     entry,
                     m.mixture,
@@ -376,18 +381,20 @@ def _add_stepwise_limit(
     """With the same K at every size of a Hessian-ascent fit before polish (``k_at``: n -> K),
     the n -> infinity energy its K points reach from the runs' ``start`` (``stepwise_limit``:
     the coarse steps' loss stays however large n) as ``e_k``, and the fit's distance to it in
-    s.e. as ``z_k``. With K differing between sizes, ``steps_by_n`` ([n, K] pairs) and
-    ``e_ks`` ([K, E_K] pairs): each size then heads for its own limit, which one law over the
-    sizes mixes."""
+    s.e. as ``z_k``. With the default K clamped at some sizes and differing across them,
+    ``steps_by_n`` ([n, K] pairs) and ``mixed_k``, the sentence of
+    :func:`~orthoclimb.studies.estimate.mixed_k_text`: one law over such sizes mixes limits."""
     from ..algorithms.hessian_ascent import stepwise_shortfall
+    from .estimate import mixed_k_text
 
     ks = list(k_at.values())
     if not ks or any(k is None or k != int(k) for k in ks):
         return
-    if len(set(ks)) > 1:  # K = n/8 grows past 25 from n = 208 on, within the grid
-        limits = [[int(k), stepwise_shortfall(mixture, int(k), start)] for k in sorted(set(ks))]
-        if all(e is not None for _, e in limits):
-            entry.update(steps_by_n=[[n, int(k)] for n, k in k_at.items()], e_ks=limits)
+    if len(set(ks)) > 1:  # the default K, clamped at some sizes (see mixed_k_text)
+        k_int = {n: int(k) for n, k in k_at.items()}
+        text = mixed_k_text(k_int, lambda k: stepwise_shortfall(mixture, k, start))
+        if text is not None:
+            entry.update(steps_by_n=[[n, k] for n, k in k_int.items()], mixed_k=text)
         return
     e_k = stepwise_shortfall(mixture, int(ks[0]), start)
     if e_k is None:
@@ -420,21 +427,6 @@ def caveats(f: dict[str, Any]) -> str:
     if f.get("steps_by_n"):
         out.append("mixed K")
     return ", ".join(out)
-
-
-def _mixed_steps_text(steps_by_n: list[list[int]], e_ks: list[list[float]]) -> str:
-    """'K differs across the sizes (K = 25 at n = 75, 150; 37 at n = 300): ...' for a fit
-    before polish whose sizes ran paths of different lengths."""
-    at: dict[int, list[int]] = {}
-    for n, k in steps_by_n:
-        at.setdefault(k, []).append(n)
-    where = "; ".join(f"{k} at n = {', '.join(str(n) for n in ns)}" for k, ns in at.items())
-    limits = ", ".join(f"E_{int(k)} = {e:.4f}" for k, e in e_ks)
-    return (
-        f"K differs across the sizes (K = {where}): before the polish each size heads for the"
-        f" limit of its own K ({limits}), so one law over these sizes mixes different limits"
-        " and its e_inf is none of them (fix steps, or compare sizes of one K)"
-    )
 
 
 def _left_out_text(left_out: list[list[int]]) -> str:
@@ -498,8 +490,8 @@ def _findings(rep: Report, seeds: dict) -> list[str]:
                 f" E_K = {f['e_k']:.4f} as n -> infinity (its coarse steps fall short of ALG by"
                 f" {f['alg'] - f['e_k']:.4f} however large n): {f['z_k']:+.1f} s.e. from it"
             )
-        if f.get("steps_by_n"):
-            text += "; " + _mixed_steps_text(f["steps_by_n"], f["e_ks"])
+        if f.get("mixed_k"):
+            text += "; " + f["mixed_k"]
         text += law_test_text(f)
         if f["dof"] == 0:
             text += (
