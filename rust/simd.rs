@@ -415,7 +415,9 @@ pub fn has_avx512vl() -> bool {
 
 /// Tests compare the 32-register instantiation of a kernel with the 16-register one by
 /// switching the former off (`FORCE_NARROW`); outside tests it is always on where the
-/// processor has it.
+/// processor has it. Other tests running meanwhile on other threads may then take either
+/// instantiation: harmless while the two give the same bits, which is what that test checks
+/// (should they ever differ, it fails, and so may others, intermittently).
 #[cfg(test)]
 pub static FORCE_NARROW: std::sync::atomic::AtomicBool = std::sync::atomic::AtomicBool::new(false);
 
@@ -833,7 +835,7 @@ mod tests {
     /// 16-register one: both run the same intrinsics in the same order, and the compiler does
     /// not reassociate floating-point arithmetic. Covers the degree-3 four-segment loops
     /// (n = 150: segments long enough to prefetch), the adjacent-row and quad paths of
-    /// degrees 4 and 5, and the batch tiles of 4 and 20 points. On a processor without
+    /// degrees 4 and 5, and the batch tiles of 4, 5, 8 and 20 points. On a processor without
     /// AVX-512VL there is only one instantiation, and the test says so.
     #[test]
     fn wide_registers_give_the_same_bits() {
@@ -849,6 +851,8 @@ mod tests {
             let n = poly.n();
             let x = point(n, 0.31);
             let v = point(n, 0.77);
+            // 20 points take the 512-bit tile (outside the dispatch where AVX-512 is present),
+            // 5 and 8 the AVX2 tile of 8 lanes, 4 with gradients the AVX2 tile of 4
             let xs: Vec<f64> = (0..20)
                 .flat_map(|k| point(n, 0.1 + 0.05 * k as f64))
                 .collect();
@@ -861,6 +865,8 @@ mod tests {
                 bits(hessian(exec, poly, &x).unwrap()),
                 bits(hvp(exec, poly, &x, &v).unwrap()),
                 bits(energy_batch(exec, poly, &xs, 20).unwrap()),
+                bits(energy_batch(exec, poly, &xs[..5 * n], 5).unwrap()),
+                bits(energy_batch(exec, poly, &xs[..8 * n], 8).unwrap()),
                 bits(e4),
                 bits(g4),
                 bits(hvp_many(exec, poly, &x, &xs[..3 * n], 3).unwrap()),

@@ -78,7 +78,7 @@ def test_table(capsys):
     # under full RSB GS = ALG (Subag 2018), so what the table shows as GS - ALG is the
     # solver's error, and it says so (a trial read 3.4e-10 as a gap); where a gap is
     # predicted (pure 3-spin above) no such words
-    assert "(0 in theory under full RSB: the solver's error)" in text
+    assert "(0 in theory, GS = ALG here: the solver's error)" in text
     assert main(["theory", "--gammas", "2:1"]) == 0  # pure p = 2: alpha = 0 (GS = sqrt 2)
     assert "alpha = 0, replica symmetric" in capsys.readouterr().out
     assert full_rsb(Mixture.from_xi({2: 1, 4: 0.05})).holds
