@@ -305,9 +305,9 @@ def fixed_path_notes(spec: StudySpec) -> list[str]:
     ``steps`` fixes it): its energy before the polish then tends to E_K
     (:func:`~orthoclimb.algorithms.hessian_ascent.stepwise_limit`) as n -> infinity, short of
     ALG by a loss no n removes, so the study cannot show that series reach ALG. Where the
-    default K differs across the sizes, a note that each size heads for its own E_K, which
-    one finite-size law over them mixes. None for a mixture with one size, or with a field (no
-    E_K). Printed with the plan."""
+    default K sits at its floor or cap at some sizes and is n/8 at others, the note of
+    :func:`mixed_k_text`. None for a mixture with one size, or with a field (no E_K). Printed
+    with the plan."""
     from ..theory.algorithmic import algorithmic_energy
 
     out = []

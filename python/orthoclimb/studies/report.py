@@ -406,8 +406,8 @@ def _add_stepwise_limit(
 #: What the tables' caveat words mean (the findings say each in full).
 CAVEATS_LEGEND = (
     "'unchecked': no degree of freedom tests the law; 'no law fits' or a law 'rejected': the"
-    " laws' chi2 tests; 'above GS': the interval lies above the ground state; 'mixed K':"
-    " sizes of different path lengths; the findings give each in full"
+    " laws' chi2 tests; 'above GS': the interval lies above the ground state; 'mixed K': the"
+    " default K at its floor or cap at some sizes only; the findings give each in full"
 )
 
 
