@@ -266,14 +266,12 @@ def mixed_k_text(k_at: dict[int, int], e_k) -> str | None:
     otherwise: K = n/8 at every size makes the coarse steps' loss (about 1.3/K) a 1/n
     correction whose limit is ALG, and one K at every size is the fixed-K note's case.
     ``e_k(K)``: the n -> infinity energy of a path of K points (None: no sentence)."""
-    if len(set(k_at.values())) < 2:
-        return None
-    floor = sorted(n for n, k in k_at.items() if n // 8 < k == 25)
-    cap = sorted(n for n, k in k_at.items() if n // 8 > k == 200)
+    if len(set(k_at.values())) < 2 or any(k != auto_steps(n) for n, k in k_at.items()):
+        return None  # one K, or not the default's K at some size
+    floor = sorted(n for n, k in k_at.items() if n // 8 < k)
+    cap = sorted(n for n, k in k_at.items() if n // 8 > k)
     grows = sorted(n for n, k in k_at.items() if n // 8 == k)
     if not floor and not cap:  # K = n/8 everywhere (a review: the note fired there too)
-        return None
-    if len(floor) + len(cap) + len(grows) < len(k_at):  # not the default's K at some size
         return None
     parts, advice = [], []
     for ns, what, where in ((floor, "floor", "from n = 200 on"), (cap, "cap", "below n = 1608")):
@@ -316,7 +314,8 @@ def fixed_path_notes(spec: StudySpec) -> list[str]:
             continue
         opts = dict(method.options)
         given = opts["steps"]
-        series = "before its polish it" if opts["polish"] else "its energy"
+        energy = "before its polish" if opts["polish"] else "its energy"
+        series = energy + " it" if opts["polish"] else energy
         start = opts.get("start", LEGACY_START)
         for m in spec.mixtures:
             sizes = m.sizes or spec.sizes
@@ -329,7 +328,6 @@ def fixed_path_notes(spec: StudySpec) -> list[str]:
                     k_at, lambda k, m=m, s=start: stepwise_shortfall(m.mixture, k, s)
                 )
                 if mixed is not None:
-                    energy = "before its polish" if opts["polish"] else "its energy"
                     out.append(f"note: {method.label} on {m.name} ({energy}): {mixed}")
                 continue
             k = ks.pop()

@@ -277,6 +277,10 @@ def build_report(
         }
     fits = []
     methods = [me.name for me in spec.methods]
+    # the series whose energies are Hessian ascent's path's own: before its polish, or the
+    # run's without one (a review: the plan noted a study without polish, the report did not)
+    hessian = dict(next((me.options for me in spec.methods if me.name == "hessian"), ()))
+    path_series = {"hessian" + BEFORE_POLISH} if hessian.get("polish", True) else {"hessian"}
     for i, m in enumerate(spec.mixtures):
         for j, label in enumerate(labels):
             sizes = [n for (a, b, n) in keys if a == m.name and b == label]
@@ -316,18 +320,12 @@ def build_report(
             entry["z_alg"] = (ex.value - th["alg"]) / se
             entry["z_gs"] = (ex.value - th["gs"]) / se
             add_other_laws(entry, sizes, samples, level, n_boot, seed=seed)
-            hessian = next((me for me in spec.methods if me.name == "hessian"), None)
-            # the path's own energy: before the polish, or the run's without one (a review:
-            # the plan noted a study without polish, the report did not)
-            if hessian is not None and (
-                label == "hessian" + BEFORE_POLISH
-                or (label == "hessian" and not dict(hessian.options)["polish"])
-            ):
+            if hessian and label in path_series:
                 _add_stepwise_limit(
                     entry,
                     m.mixture,
                     {n: steps.get((m.name, label, n)) for n in sizes},
-                    dict(hessian.options).get("start", LEGACY_START),
+                    hessian.get("start", LEGACY_START),
                 )
             fits.append(entry)
     missing = len(spec.tasks()) - len(rows)
