@@ -248,7 +248,8 @@ pub fn dot2_axpy<T: Coef>(a: &[T], x: &[f64], v: &[f64], w: &mut [f64], alpha: f
 /// from memory) 2-8 % faster. Those runs prefetched into L1; on AMD Zen 3 and newer the lines
 /// go to L2 instead (see [`crate::simd::segment_prefetch_level`] for the Zen 4 measurements).
 const AHEAD: usize = 256;
-/// Shortest segments that prefetch. Without this floor the short segments of degree 4 and
+/// Shortest segments that the energy, gradient and HVP loops prefetch (the Hessian's loop
+/// prefetches shorter ones into L1, see [`hessian_prefetch`]). Without this floor the short segments of degree 4 and
 /// up (about 30 long at n = 120) ran 3-5 % slower; with 64 the p = 4, n = 120 float32
 /// energy still lost 2.6 %, with 128 it is unchanged (within 1.5 %) while p = 3, n = 800
 /// keeps its gain.
@@ -260,6 +261,22 @@ const AHEAD_MIN_LEN: usize = 128;
 #[inline(always)]
 fn segment_prefetch(len: usize) -> Option<crate::simd::PrefetchLevel> {
     (len >= AHEAD_MIN_LEN).then(crate::simd::segment_prefetch_level)
+}
+
+/// Where the Hessian's four-segment loop ([`rows4_shared2`], [`rows4`]) prefetches: as
+/// [`segment_prefetch`] from [`AHEAD_MIN_LEN`] on, and into L1 below it. The Hessian stalls on
+/// its coefficient stream where the other passes do not (it also reads and writes five or six
+/// rows of its accumulator per step), and the short segments of degree 4 and up, which are
+/// contiguous along each of the four tails, gain from the hint. Zen 4 (family 0x19, model
+/// 0x11), medians of 30 calls, three alternating runs: two threads, p = 4, n = 120 3.03 ->
+/// 2.54 ms (float32 2.16 -> 1.74 ms), one thread 5.74 -> 4.65 ms; p = 5, n = 50 1.36 -> 1.14
+/// ms. The L2 hint gained less there (two threads 2.9-3.0 ms), and the L1 hint on the long
+/// segments of degree 3 lost 8-12 % in float64 (n = 400 2.94 -> 3.23 ms, n = 800 24.8 -> 27.8
+/// ms), so those keep [`crate::simd::segment_prefetch_level`]. Prefetching 128 coefficients
+/// ahead instead of [`AHEAD`] was level, 512 ahead slower.
+#[inline(always)]
+fn hessian_prefetch(len: usize) -> crate::simd::PrefetchLevel {
+    segment_prefetch(len).unwrap_or(crate::simd::PrefetchLevel::L1)
 }
 
 /// Prefetches the line `AHEAD` coefficients past position i of each segment, once per line,
@@ -439,12 +456,10 @@ fn rows4_shared<T: Coef, const TWO: bool>(
         );
         let xv = splat4(xi);
         let mut acc = [_mm256_setzero_pd(); 4];
-        let prefetch = segment_prefetch(len);
+        let level = hessian_prefetch(len);
         let mut i = 0;
         while i + 4 <= len {
-            if let Some(level) = prefetch {
-                prefetch_segments(&pa, i, level);
-            }
+            prefetch_segments(&pa, i, level);
             let xt = _mm256_loadu_pd(px.add(i));
             let mut c = [_mm256_setzero_pd(); 4];
             for j in 0..4 {
