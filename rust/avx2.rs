@@ -249,10 +249,10 @@ pub fn dot2_axpy<T: Coef>(a: &[T], x: &[f64], v: &[f64], w: &mut [f64], alpha: f
 /// go to L2 instead (see [`crate::simd::segment_prefetch_level`] for the Zen 4 measurements).
 const AHEAD: usize = 256;
 /// Shortest segments that the energy, gradient and HVP loops prefetch (the Hessian's loop
-/// prefetches shorter ones into L1, see [`hessian_prefetch`]). Without this floor the short segments of degree 4 and
-/// up (about 30 long at n = 120) ran 3-5 % slower; with 64 the p = 4, n = 120 float32
-/// energy still lost 2.6 %, with 128 it is unchanged (within 1.5 %) while p = 3, n = 800
-/// keeps its gain.
+/// prefetches shorter ones into L1, see [`hessian_prefetch`]). Without this floor the short
+/// segments of degree 4 and up (about 30 long at n = 120) ran 3-5 % slower in those passes;
+/// with 64 the p = 4, n = 120 float32 energy still lost 2.6 %, with 128 it is unchanged
+/// (within 1.5 %) while p = 3, n = 800 keeps its gain.
 const AHEAD_MIN_LEN: usize = 128;
 
 /// Where a four-segment loop over segments of `len` coefficients prefetches: nowhere below
