@@ -26,7 +26,7 @@ from .model import (
 from .runtime import get_num_threads, kernel_path, set_num_threads
 from .theory import algorithmic_energy, full_rsb, ground_state, hessian_edge, path_energy
 
-__version__ = "0.1.0"
+__version__ = "0.2.0"
 
 __all__ = [
     "MAX_DEGREE",
