@@ -117,6 +117,13 @@ def test_sweep_on_two_worker_local_cluster(tmp_path):
     assert all(r["threads"] == out.plan.rayon_threads for r in table)
     assert all(r["steps"] == 10 for r in table if r["method"] == "hessian")
     assert all(r["steps"] >= 1 for r in table if r["method"] == "gradient")
+    # 8 instances for 2 workers: the two methods of each ran on one sampling of it
+    assert all(r["sample_shared_by"] == 2 for r in table)
+    by_instance: dict[tuple, set] = {}
+    for r in table:
+        by_instance.setdefault((r["n"], r["seed"]), set()).add(r["seconds_sample"])
+    assert len(by_instance) == 8 and all(len(v) == 1 for v in by_instance.values())
+    assert any("16 tasks share their instances in 8 groups" in line for line in said)
     # rerun: everything skipped, nothing rewritten
     said.clear()
     again = run_study(spec, tmp_path / "s", workers=2, progress=False, log=said.append)
@@ -773,6 +780,36 @@ def test_a_scheduler_without_workers_is_announced_and_the_tasks_wait_for_one(tmp
         assert f"`dask worker {cluster.scheduler_address}`" in logs[-1]
     finally:
         cluster.close()
+
+
+def test_a_method_that_fails_in_a_group_leaves_the_other_rows(tmp_path, monkeypatch):
+    # in-process workers (an external cluster of threads), so that the patch reaches them
+    from distributed import LocalCluster
+
+    import orthoclimb.algorithms as algorithms
+
+    def broken(*args, **kwargs):
+        raise RuntimeError("gradient ascent broke")
+
+    monkeypatch.setattr(algorithms, "gradient_ascent", broken)
+    cluster = LocalCluster(
+        n_workers=1, processes=False, protocol="tcp://", host="127.0.0.1", dashboard_address=":0"
+    )
+    try:
+        spec = spec_from_flags(["3:1"], None, "8", "0-1", "hessian,gradient", {})
+        out = run_study(
+            spec, tmp_path / "s", scheduler=cluster.scheduler_address, progress=False, retries=0
+        )
+    finally:
+        cluster.close()
+    assert (out.done, out.failed) == (2, 2)
+    table = pq.read_table(tmp_path / "s" / "results.parquet").to_pylist()
+    assert sorted(r["method"] for r in table) == ["hessian", "hessian"]
+    assert all(r["sample_shared_by"] == 2 for r in table)
+    failures = sorted((tmp_path / "s" / "failed").glob("*"))
+    gradient_ids = {t.task_id for t in spec.tasks() if t.method.name == "gradient"}
+    assert {p.stem for p in failures} == gradient_ids
+    assert all("RuntimeError: gradient ascent broke" in p.read_text() for p in failures)
 
 
 def test_a_table_that_cannot_be_written_does_not_replace_the_sweeps_own_exception():

@@ -76,16 +76,16 @@ FORMAT_VERSION = 1
 _EDGE = 4
 """Coefficients kept at each end (first and last) of each degree in a recipe's fingerprint."""
 
-# Tolerances of the fingerprint check. Every machine regenerates every coefficient bitwise
-# since the Gaussians' ln, sin and cos come from a pure-Rust math library compiled into
-# orthoclimb; recipes saved by earlier versions, which took them from the platform's math
-# library, differ in the last bit of some coefficients (about 6 %), and float32 storage may
-# then round to the neighbouring float32. The energy is a sum over all coefficients whose order and fused
-# multiply-adds depend on the instruction-set path (AVX2+FMA or plain), which moves it by a few
-# ulps of the sum of |terms|. Hence a relative 1e-9 on H(x0), measured against the larger of
-# |H(x0)| and its standard deviation sqrt(n xi(1)) (|x0| = 1) so that an instance whose H(x0)
-# happens to be near 0 is not held to an impossible bound; and a few ulps of the storage type on
-# the listed coefficients. A different generator moves both by O(1).
+# Tolerances of the fingerprint check. Every machine regenerates every coefficient bitwise since the
+# Gaussians' ln, sin and cos come from a pure-Rust math library compiled into orthoclimb; recipes
+# saved by earlier versions, which took them from the platform's math library, differ in the last
+# bit of some coefficients (about 6 %), and float32 storage may then round to the neighbouring
+# float32. The energy is a sum over all coefficients whose order and fused multiply-adds depend on
+# the instruction-set path (AVX2+FMA or plain), which moves it by a few ulps of the sum of |terms|.
+# Hence a relative 1e-9 on H(x0), measured against the larger of |H(x0)| and its standard deviation
+# sqrt(n xi(1)) (|x0| = 1) so that an instance whose H(x0) happens to be near 0 is not held to an
+# impossible bound; and a few ulps of the storage type on the listed coefficients. A different
+# generator moves both by O(1).
 _ENERGY_RTOL = 1e-9
 _COEF_RTOL = {"float64": 1e-12, "float32": 2.5e-7}
 

@@ -17,7 +17,7 @@ from .grid import StudySpec, parse_seeds, parse_sizes, spec_from_flags, spec_fro
 from .points import end_point_overlaps, load_end_points
 from .report import Report, build_report, write_report
 from .store import Store, StudyMismatchError
-from .tasks import Task, run_task
+from .tasks import Task, run_instance_tasks, run_task
 
 __all__ = [
     "Extrapolation",
@@ -36,6 +36,7 @@ __all__ = [
     "parse_seeds",
     "parse_sizes",
     "plan_workers",
+    "run_instance_tasks",
     "run_study",
     "run_task",
     "spec_from_flags",

@@ -8,6 +8,13 @@ Each finished task's row is written atomically by the driver as soon as it arriv
 (:class:`~orthoclimb.studies.store.Store`), so a killed driver loses only the running tasks,
 and a worker that dies loses its running task, which Dask reschedules on another worker.
 
+Tasks that share an instance (the methods of one mixture, n and seed) go to Dask as one
+future that samples it once (:func:`~orthoclimb.studies.tasks.instance_groups`), when there
+are at least as many such groups as workers: sampling took 27 % of a three-method study's
+compute at n <= 300 when each task sampled its own. Their rows are written when the group
+ends, so an interruption loses the group's finished tasks too; a method that raises fails its
+own task only, and a failed sampling fails the group (after Dask's retries).
+
 Thread sizing. Each worker process runs one task at a time (one Dask thread) and gives its
 kernels ``rayon`` threads, with workers x dask_threads x rayon <= cores, so the two levels of
 parallelism never oversubscribe the machine.
@@ -31,7 +38,7 @@ from .._core import MAX_THREADS as _MAX_THREADS
 from .grid import StudySpec
 from .points import write_point
 from .store import Store, sweep_lock
-from .tasks import Task, run_task
+from .tasks import Task, instance_groups, run_instance_tasks
 
 # imported by each worker process of the embedded cluster (replacements included)
 WORKER_PRELOAD = "orthoclimb.studies.worker_signals"
@@ -473,19 +480,25 @@ def _sweep(
         task_threads = plan.rayon_threads if plan is not None else (threads or 1)
         from distributed import as_completed
 
-        by_key: dict[str, Task] = {}
+        try:
+            slots = sum(client.nthreads().values())
+        except Exception:  # noqa: BLE001 - the count is cosmetic
+            slots = 10**9
+        by_key: dict[str, list[Task]] = {}
         futures = []
-        for task in pending:
+        for group in instance_groups(pending, slots):
+            first = group[0].task_id
             fut = client.submit(
-                run_task,
-                task,
+                run_instance_tasks,
+                group,
                 task_threads,
                 keep_points,
-                key=f"orthoclimb-{task.task_id}",
+                # one task alone keeps the key it always had
+                key=f"orthoclimb-{first}" + (f"-and-{len(group) - 1}" if len(group) > 1 else ""),
                 retries=retries,
                 pure=False,
             )
-            by_key[fut.key] = task
+            by_key[fut.key] = group
             futures.append(fut)
         bar = tqdm(
             total=len(tasks),
@@ -497,10 +510,6 @@ def _sweep(
             mininterval=0.5,
         )
 
-        try:
-            slots = sum(client.nthreads().values())
-        except Exception:  # noqa: BLE001 - the count is cosmetic
-            slots = 10**9
         if cluster is None and slots == 0:
             # an external scheduler without workers holds the tasks until one joins: say so,
             # or a sweep outside a terminal (no bar) waits without a word (a review)
@@ -520,22 +529,25 @@ def _sweep(
 
         show()
         for fut in as_completed(futures):
-            task = by_key[fut.key]
+            group = by_key[fut.key]
             # ask the future itself rather than its status: a result held by a worker that
             # dies after the task finished is "lost" for a moment, then computed again
             try:
-                row = fut.result()
-            except Exception as exc:  # noqa: BLE001 - the task's own error, recorded as such
-                store.write_failure(task.task_id, task.config(), f"{type(exc).__name__}: {exc}")
-                failed += 1
-            else:
-                point = row.pop("end_point", None)
+                outcomes = fut.result()
+            except Exception as exc:  # noqa: BLE001 - the group's own error (its sampling)
+                outcomes = [("error", f"{type(exc).__name__}: {exc}")] * len(group)
+            for task, (kind, value) in zip(group, outcomes, strict=True):
+                if kind == "error":
+                    store.write_failure(task.task_id, task.config(), value)
+                    failed += 1
+                    continue
+                point = value.pop("end_point", None)
                 if point is not None and not store.row_path(task.task_id).exists():
                     write_point(store.folder, task.task_id, point)  # first: a row naming a
                     # point has it
-                store.write_row(row)
+                store.write_row(value)
                 done += 1
-            bar.update(1)
+            bar.update(len(group))
             show()
             fut.release()
         if cluster is not None:  # a dead worker's address is gone (its replacement gets a

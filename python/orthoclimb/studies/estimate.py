@@ -1,6 +1,7 @@
 """Rough up-front cost of a study: memory of its largest instance and a time estimate.
 
-Time model (seconds, per task): sampling the instance and a kernel pass at size n cost
+Time model (seconds, per task): sampling the instance (once per group of tasks sharing it,
+:func:`~orthoclimb.studies.tasks.instance_groups`) and a kernel pass at size n cost
 their time at a calibration size n0 times (n/n0)^P, both timed on the driver at n0 (the
 largest of the mixture's sizes whose instance takes at most 64 MB, at most 400; when none
 does, the largest n below its sizes that does), P the largest degree. The cost per
@@ -55,6 +56,7 @@ import numpy as np
 from ..algorithms.hessian_ascent import auto_steps, eigen_solves, stepwise_shortfall
 from .grid import LEGACY_START, StudySpec
 from .profile import best_time
+from .tasks import instance_groups
 
 __all__ = [
     "CHECK_SECONDS",
@@ -233,11 +235,13 @@ def estimate_from(cal: dict[str, Calibration], tasks, workers: int, embedded: bo
     if not tasks:
         return 0.0
     total = 0.0
+    for group in instance_groups(list(tasks), workers):  # as the sweep submits them
+        c = cal[group[0].mixture.name]
+        total += (group[0].n / c.n0) ** c.degree * c.sampling + _TASK_OVERHEAD
     for t in tasks:
         c = cal[t.mixture.name]
         scale = (t.n / c.n0) ** c.degree
         opts = dict(t.method.options)
-        total += scale * c.sampling + _TASK_OVERHEAD
         eg, hess = scale * c.energy_and_gradient, scale * c.hessian  # one pass each at n
         moves = 0
         if t.method.name == "hessian":
@@ -380,6 +384,13 @@ def plan_lines(
         " task",
     ]
     if plan is not None:
+        shared = [g for g in instance_groups(pending, plan.workers) if len(g) > 1]
+        if shared:  # say it: an interrupted group loses its finished tasks too (engine doc)
+            lines.append(
+                f"{counted(sum(map(len, shared)), 'task')} share their instances in"
+                f" {counted(len(shared), 'group')}: each instance is sampled once per group,"
+                " and a group's rows are written when it ends"
+            )
         lines.append(
             "embedded Dask cluster: "
             f"{counted(plan.workers, 'worker process', 'worker processes')} x "

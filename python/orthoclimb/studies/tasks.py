@@ -2,7 +2,9 @@
 
 The task carries only its configuration; the worker regenerates the instance from the seed
 (``Hamiltonian.sample(mixture, n, seed)`` is a pure function of the seed, see the README), so
-no coefficient data travels. The same seed also seeds the algorithm's start point.
+no coefficient data travels. The same seed also seeds the algorithm's start point. Tasks that
+differ only in their method share one instance; :func:`instance_groups` groups them so that a
+worker samples it once for all of them (:func:`run_instance_tasks`).
 
 The task id is the first 16 hex digits of SHA-256 of the canonical JSON of the configuration
 (sorted keys, ``repr``-exact floats), so it is stable across runs, machines and Python versions.
@@ -14,11 +16,14 @@ point's seed, equal to ``seed``), ``method``, ``options`` (JSON), ``dtype``, ``e
 memory, null in the row file and the table, when the solver does not converge), ``gap_alg`` =
 energy - ALG, ``gap_gs`` = energy - GS, ``local_max``, ``grad_norm`` (|P grad H|/n),
 ``top_eigenvalue`` (the largest tangent Hessian eigenvalue at the end point, per spin: <= 0 at a
-local maximum, near 0 where it is marginal), ``seconds_sample``, ``seconds_run`` (wall seconds),
-``threads`` (rayon threads used), ``version`` (orthoclimb), ``code`` (the digest of the code
-that ran it, :func:`orthoclimb.runtime.code_digest`), ``worker`` (host:pid), ``finished``
-(UTC ISO time); with ``keep_point``, ``end_point_sha256`` (the kept end point's digest, see
-:mod:`.points`).
+local maximum, near 0 where it is marginal), ``seconds_sample``, ``seconds_run`` (wall seconds;
+``seconds_sample`` is the instance's one sampling, the same in each row of a group),
+``sample_shared_by`` (the tasks that ran on that one sampling, this one included: 1 when it was
+sampled for this task alone; the sampling compute of a row is ``seconds_sample /
+sample_shared_by``), ``threads`` (rayon threads used), ``version`` (orthoclimb), ``code`` (the
+digest of the code that ran it, :func:`orthoclimb.runtime.code_digest`), ``worker`` (host:pid),
+``finished`` (UTC ISO time); with ``keep_point``, ``end_point_sha256`` (the kept end point's
+digest, see :mod:`.points`).
 """
 
 from __future__ import annotations
@@ -38,7 +43,15 @@ import numpy as np
 
 from .grid import LEGACY_START, MethodSpec, MixtureSpec, canonical_options
 
-__all__ = ["Task", "TheoryValues", "run_task", "theory_values"]
+__all__ = [
+    "Task",
+    "TheoryValues",
+    "instance_groups",
+    "instance_key",
+    "run_instance_tasks",
+    "run_task",
+    "theory_values",
+]
 
 
 @dataclass(frozen=True)
@@ -64,6 +77,26 @@ class Task:
     def task_id(self) -> str:
         text = json.dumps(self.config(), sort_keys=True, separators=(",", ":"))
         return hashlib.sha256(text.encode("utf-8")).hexdigest()[:16]
+
+
+def instance_key(task: Task) -> tuple:
+    """What fixes a task's instance: (gammas, n, seed, dtype); tasks with the same key differ
+    only in their method and options."""
+    return (task.mixture.gammas, task.n, task.seed, task.dtype)
+
+
+def instance_groups(tasks: list[Task], slots: int) -> list[list[Task]]:
+    """``tasks`` in groups that share one instance (each group in the order of ``tasks``, the
+    groups in the order of their first task), for a sweep whose workers can run ``slots``
+    tasks at once. With fewer groups than slots, one task per group instead: there, running
+    the methods of an instance side by side on several workers beats sampling it once (a
+    study of one instance and three methods on two workers would otherwise leave one idle)."""
+    groups: dict[tuple, list[Task]] = {}
+    for task in tasks:
+        groups.setdefault(instance_key(task), []).append(task)
+    if len(groups) < max(1, int(slots)):
+        return [[task] for task in tasks]
+    return list(groups.values())
 
 
 class TheoryValues(NamedTuple):
@@ -104,17 +137,65 @@ def run_task(task: Task, threads: int | None = None, keep_point: bool = False) -
     file and drops it from the row) and its digest ``end_point_sha256``
     (:mod:`orthoclimb.studies.points`).
     """
-    from .. import __version__
-    from ..algorithms import geometric_schedule, gradient_ascent, hessian_ascent, langevin_anneal
-    from ..model import Hamiltonian
-    from ..runtime import code_digest, get_num_threads, set_num_threads
+    _set_threads(threads)
+    ham, seconds = _sample(task)
+    return _run_on(task, ham, seconds, 1, keep_point)
+
+
+def run_instance_tasks(
+    tasks: list[Task], threads: int | None = None, keep_point: bool = False
+) -> list[tuple[str, Any]]:
+    """Run ``tasks``, which share one instance (:func:`instance_key`), on one sampling of it.
+
+    Returns, per task and in order, ``("row", row)`` (the row of :func:`run_task`, with
+    ``sample_shared_by = len(tasks)``) or ``("error", "Type: message")`` when its method
+    raised: one method's failure is its task's alone, the others' rows are kept. A failure
+    to sample raises, for every task (a sweep has Dask retry the group). ``threads`` and
+    ``keep_point`` as in :func:`run_task`.
+    """
+    if not tasks:
+        return []
+    if len({instance_key(t) for t in tasks}) != 1:
+        raise ValueError(
+            "the tasks of one group must share their instance (mixture, n, seed, dtype), got "
+            + ", ".join(t.task_id for t in tasks)
+        )
+    _set_threads(threads)
+    ham, seconds = _sample(tasks[0])
+    out: list[tuple[str, Any]] = []
+    for task in tasks:
+        try:
+            out.append(("row", _run_on(task, ham, seconds, len(tasks), keep_point)))
+        except Exception as exc:  # noqa: BLE001 - recorded as this task's failure
+            out.append(("error", f"{type(exc).__name__}: {exc}"))
+    return out
+
+
+def _set_threads(threads: int | None) -> None:
+    from ..runtime import set_num_threads
 
     if threads is not None:
         set_num_threads(int(threads))
+
+
+def _sample(task: Task):
+    """The task's instance and the seconds its sampling took."""
+    from ..model import Hamiltonian
+
+    t0 = time.perf_counter()
+    ham = Hamiltonian.sample(task.mixture.mixture, task.n, task.seed, dtype=task.dtype)
+    return ham, time.perf_counter() - t0
+
+
+def _run_on(task: Task, ham, seconds_sample: float, shared: int, keep_point: bool) -> dict:
+    """Run the task's method on its instance ``ham`` (sampled in ``seconds_sample`` for
+    ``shared`` tasks) and return its row."""
+    from .. import __version__
+    from ..algorithms import geometric_schedule, gradient_ascent, hessian_ascent, langevin_anneal
+    from ..runtime import code_digest, get_num_threads
+
     mix = task.mixture.mixture
     opts = dict(task.method.options)
-    t0 = time.perf_counter()
-    ham = Hamiltonian.sample(mix, task.n, task.seed, dtype=task.dtype)
     t1 = time.perf_counter()
     if task.method.name == "hessian":
         res = hessian_ascent(
@@ -167,7 +248,8 @@ def run_task(task: Task, threads: int | None = None, keep_point: bool = False) -
         # the largest tangent Hessian eigenvalue at the end point, per spin (the local-maximum
         # check's; NaN for a run without one: Hessian ascent or anneal with --no-polish)
         "top_eigenvalue": float(res.info.get("top_eigenvalue", math.nan)),
-        "seconds_sample": t1 - t0,
+        "seconds_sample": seconds_sample,
+        "sample_shared_by": shared,
         "seconds_run": t2 - t1,
         "threads": get_num_threads(),
         "version": __version__,
