@@ -144,3 +144,43 @@ def test_a_row_without_its_sampling_time_leaves_out_only_itself():
     ]
     (entry,) = cost_table(rows, {"m": 3})
     assert entry["median_seconds_sample"] == [2.0, 3.0]
+
+
+def test_the_time_of_one_step_has_its_own_exponent(tmp_path):
+    # exact identity: t = c n^3 K with K = n/8 (what hessian's default takes from n = 200 on)
+    # has b = 4 and, per step, t/K = c n^3: b (step) = 3 (numpy.polyfit on exact data)
+    spec = spec_from_flags(["3:1"], None, "240,480,960", "0-2", "hessian")
+    store = Store.open(tmp_path / "k", spec)
+    for t in spec.tasks():
+        k = t.n // 8
+        row = {"task_id": t.task_id, "mixture": t.mixture.name, "method": t.method.name}
+        row.update(n=t.n, seed=t.seed, energy=1.5 + 0.01 * t.seed - t.n ** (-2 / 3))
+        row.update(steps=k, seconds_run=1e-10 * t.n**3 * k * (1 + t.seed / 100))
+        store.write_row({**row, "seconds_sample": 1e-3})
+    rep = build_report(tmp_path / "k")
+    (cost,) = rep.cost
+    assert cost["exponent"] == pytest.approx(4.0, abs=1e-12)
+    assert cost["exponent_per_step"] == pytest.approx(3.0, abs=1e-12)
+    assert cost["median_seconds_per_step"][0] == pytest.approx(1e-10 * 240**3 * 1.01)
+    assert "one step's like n^3.00" in "\n".join(rep.findings)
+    write_report(tmp_path / "k", plots=False)
+    md = (tmp_path / "k" / "report.md").read_text()
+    assert "| 4.00 +- 0.00 | 4.00 | 3.00 | 3 |" in md
+
+
+def test_a_size_without_step_counts_leaves_the_step_exponent_out(tmp_path):
+    # rows of older versions carry no steps (and a bool is no count): no exponent per step,
+    # where a fit through the other sizes alone would mislead
+    spec = spec_from_flags(["3:1"], None, "20,40", "0-1", "gradient")
+    store = Store.open(tmp_path / "o", spec)
+    for t in spec.tasks():
+        row = {"task_id": t.task_id, "mixture": t.mixture.name, "method": t.method.name}
+        row.update(n=t.n, seed=t.seed, energy=1.5 - t.n ** (-2 / 3), seconds_sample=1e-4)
+        row.update(seconds_run=1e-6 * t.n**3)
+        if t.n == 40:
+            row["steps"] = True if t.seed else 50
+        store.write_row(row)
+    (cost,) = build_report(tmp_path / "o").cost
+    assert cost["exponent_per_step"] is None
+    per_step = cost["median_seconds_per_step"]
+    assert math.isnan(per_step[0]) and per_step[1] == pytest.approx(1e-6 * 40**3 / 50)

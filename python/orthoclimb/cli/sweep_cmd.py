@@ -55,7 +55,14 @@ def add_engine_arguments(parser: argparse.ArgumentParser) -> None:
         default=None,
         help="kernel threads per task (default: cores / workers; 1 on an external cluster)",
     )
-    parser.add_argument("--retries", type=int, default=2, help="Dask retries per task (default 2)")
+    parser.add_argument(
+        "--retries",
+        type=int,
+        default=2,
+        help="Dask retries of a task (or group of tasks on one instance) whose sampling failed,"
+        " default 2; a method that raises fails its task at once (with the same seed it would"
+        " fail again)",
+    )
     parser.add_argument(
         "--timeout",
         type=positive_number,

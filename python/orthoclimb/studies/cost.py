@@ -24,6 +24,15 @@ reaches about P + 1 only between n = 200 and 1600, while per-call overheads and 
 down at small n (the demo measures 1.5-2.2 for it). Times are wall seconds of the
 workers, so they also carry the machine's load during the sweep.
 
+The time of one step sets how a run scales apart from how many steps it takes: the same fit
+through the medians of ``seconds_run / steps`` (``steps``: K for Hessian ascent, the
+iterations of gradient ascent, the Langevin steps of anneal, as the row records them) gives
+``exponent_per_step``, which tends to P where one step's kernel pass dominates (a Hessian
+step is one Hessian pass and a Lanczos solve, ~n^2) and stays below it while fixed costs or
+the Lanczos solve weigh; b - b_step is then the growth of the step count (about 1 for K = n/8,
+0 where K is clamped). The polish and the end check (~n^3, once per run) are spread over the
+steps and raise b_step at small K.
+
 A b below :data:`FIXED_COST_SLOPE` (1) marks the entry ``fixed_cost_bound``: every method
 reads all ~n^P/P! coefficients at least once per step, so a run whose time grows more slowly
 than n itself is timing its fixed costs (Python calls, eigen-solver set-up, thread hand-over),
@@ -54,26 +63,31 @@ def cost_table(rows: list[dict[str, Any]], max_degree: dict[str, int]) -> list[d
     """One entry per (mixture, method): sizes, median seconds per size, the exponent b (None
     with one size), ``fixed_cost_bound`` (b below :data:`FIXED_COST_SLOPE`) and the mixture's
     largest degree P."""
-    acc: dict[tuple[str, str], dict[int, list[tuple[float, float]]]] = defaultdict(
+    acc: dict[tuple[str, str], dict[int, list[tuple[float, float, float]]]] = defaultdict(
         lambda: defaultdict(list)
     )
     for r in rows:
-        run, sample = r.get("seconds_run"), r.get("seconds_sample")
+        run, sample, steps = r.get("seconds_run"), r.get("seconds_sample"), r.get("steps")
         if not isinstance(run, (int, float)) or not math.isfinite(run) or run <= 0:
             continue  # a row without a usable time (older rows): left out
         if not isinstance(sample, (int, float)) or not math.isfinite(sample):
             sample = math.nan
-        acc[(r["mixture"], r["method"])][int(r["n"])].append((float(run), float(sample)))
+        # seconds per step; NaN for a row without a step count (older rows) or with none
+        ok = isinstance(steps, int) and not isinstance(steps, bool) and steps > 0
+        per_step = float(run) / steps if ok else math.nan
+        acc[(r["mixture"], r["method"])][int(r["n"])].append((float(run), float(sample), per_step))
     out = []
     for (mix, method), by_n in acc.items():
         sizes = sorted(by_n)
-        run = [float(np.median([t for t, _ in by_n[n]])) for n in sizes]
+        run = [float(np.median([t[0] for t in by_n[n]])) for n in sizes]
         # a row without a sampling time leaves out only itself (NaN only if every row lacks it;
         # np.nanmedian would warn there)
-        sample = [_median_of_known([s for _, s in by_n[n]]) for n in sizes]
+        sample = [_median_of_known([t[1] for t in by_n[n]]) for n in sizes]
+        per_step = [_median_of_known([t[2] for t in by_n[n]]) for n in sizes]
         b, se, last = _slopes(sizes, run)
+        b_step = None if any(map(math.isnan, per_step)) else _slopes(sizes, per_step)[0]
         rising = len(sizes) >= 3 and _rises(
-            sizes, [[t for t, _ in by_n[n]] for n in sizes], b, last
+            sizes, [[t[0] for t in by_n[n]] for n in sizes], b, last
         )
         out.append(
             {
@@ -82,10 +96,12 @@ def cost_table(rows: list[dict[str, Any]], max_degree: dict[str, int]) -> list[d
                 "sizes": sizes,
                 "median_seconds_run": run,
                 "median_seconds_sample": sample,
+                "median_seconds_per_step": per_step,
                 "count": [len(by_n[n]) for n in sizes],
                 "exponent": b,
                 "exponent_se": se,
                 "exponent_last": last,
+                "exponent_per_step": b_step,
                 "rising": rising,
                 "fixed_cost_bound": b is not None and b < FIXED_COST_SLOPE,
                 "max_degree": max_degree.get(mix),
@@ -142,10 +158,14 @@ def cost_markdown(cost: list[dict[str, Any]]) -> list[str]:
         "two largest sizes (last); P is the largest degree (one kernel pass "
         "reads ~n^P/P! coefficients). A b in parentheses is below 1: at these sizes fixed "
         "per-run costs, not the kernel passes, set the time, and larger n are needed to "
-        "measure the growth.",
+        "measure the growth. b (step) is the exponent of the median seconds per step (K for "
+        "hessian, iterations for gradient, Langevin steps for anneal: `steps` in the rows), "
+        "the cost of one step whatever the step count does; it tends to P where one step's "
+        "kernel pass dominates.",
         "",
-        "| mixture | method | n | median s (run) | median s (sample) | b | b (last) | P |",
-        "| --- | --- | ---: | ---: | ---: | ---: | ---: | ---: |",
+        "| mixture | method | n | median s (run) | median s (sample) | b | b (last) | b (step)"
+        " | P |",
+        "| --- | --- | ---: | ---: | ---: | ---: | ---: | ---: | ---: |",
     ]
     for c in cost:
         b = "--" if c["exponent"] is None else f"{c['exponent']:.2f}"
@@ -154,11 +174,13 @@ def cost_markdown(cost: list[dict[str, Any]]) -> list[str]:
         if c.get("fixed_cost_bound"):
             b = f"({b})"
         last = "--" if c.get("exponent_last") is None else f"{c['exponent_last']:.2f}"
+        step = "--" if c.get("exponent_per_step") is None else f"{c['exponent_per_step']:.2f}"
         for i, n in enumerate(c["sizes"]):
+            first = i == 0
             lines.append(
                 f"| {c['mixture']} | {c['method']} | {n} | {c['median_seconds_run'][i]:.3g} | "
-                f"{c['median_seconds_sample'][i]:.3g} | {b if i == 0 else ''} | "
-                f"{last if i == 0 else ''} | "
-                f"{c['max_degree'] if i == 0 else ''} |"
+                f"{c['median_seconds_sample'][i]:.3g} | {b if first else ''} | "
+                f"{last if first else ''} | {step if first else ''} | "
+                f"{c['max_degree'] if first else ''} |"
             )
     return lines

@@ -355,13 +355,14 @@ def run_study(
     """Run the pending tasks of ``spec`` into the study folder; returns counts and time.
 
     ``workers``/``threads``: override the plan (embedded cluster) or set the kernel threads per
-    task (external cluster; default 1). ``retries``: Dask retries per task after an exception.
-    ``timeout``: seconds to reach the scheduler. ``on_start(pending, plan)`` is called before
-    the cluster starts with the pending tasks, also with none (and no plan) for a complete
-    study; by default it passes to ``log`` the lines the command line prints there
-    (:func:`.estimate.plan_lines`: the tasks, the memory of the largest instance, the workers
-    and a time estimate, for which the kernels are timed first; ``on_start=lambda *a: None``
-    skips them).
+    task (external cluster; default 1). ``retries``: Dask retries of a task (a group) whose
+    sampling raised; a method that raises fails its own task without a retry (the same seed
+    would fail again). ``timeout``: seconds to reach the scheduler. ``on_start(pending, plan)``
+    is called before the cluster starts with the pending tasks, also with none (and no plan)
+    for a complete study; by default it passes to ``log`` the lines the command line prints
+    there (:func:`.estimate.plan_lines`: the tasks, the memory of the largest instance, the
+    workers and a time estimate, for which the kernels are timed first; ``on_start=lambda *a:
+    None`` skips them).
     ``progress``: a tqdm bar (True), none (False), or one only when stderr is a terminal (None,
     what the command line uses, so logs get no redrawn bar).
     ``keep_points``: the tasks this sweep runs also keep their final unit vector, in

@@ -535,6 +535,8 @@ def _findings(rep: Report, seeds: dict) -> list[str]:
                     f"{c['mixture']}, {c['method']}: a run's median time grows like "
                     f"n^{c['exponent']:.2f}{pm} {span}; largest degree P = {c['max_degree']})"
                 )
+                if c.get("exponent_per_step") is not None:
+                    text += f", one step's like n^{c['exponent_per_step']:.2f}"
                 if c.get("rising"):
                     text += (
                         f"; the slope rises with n (n^{c['exponent_last']:.2f} between the two"
