@@ -656,3 +656,23 @@ def test_hessian_ascent_before_polish_is_set_beside_e_k_when_k_is_fixed(tmp_path
         store.write_row(row)
     (fit,) = build_report(tmp_path / "bare", n_boot=200).fits
     assert fit["method"] == "hessian" and fit["e_k"] == pytest.approx(e_k, rel=1e-12)
+
+
+def test_rows_of_several_versions_are_named_and_the_sampler_change_is_said(tmp_path):
+    # a study extended after an upgrade: its rows come from two versions; across 0.2.0 the
+    # same seed is not bitwise the same instance (the sampler's ln, sin and cos changed)
+    spec = spec_from_flags(["3:1"], None, "20,40", "0-3", "gradient")
+    for folder, versions in (("a", ("0.1.0", "0.2.0")), ("b", ("0.2.0", "0.2.1")), ("c", None)):
+        store = Store.open(tmp_path / folder, spec)
+        for i, t in enumerate(spec.tasks()):
+            row = {"task_id": t.task_id, "mixture": t.mixture.name, "method": t.method.name}
+            row.update(n=t.n, seed=t.seed, energy=1.6 - t.n ** (-2 / 3) + 0.01 * t.seed)
+            if versions is not None:
+                row["version"] = versions[i % 5 == 0]
+            store.write_row(row)
+    found = {f: "\n".join(build_report(tmp_path / f).findings) for f in "abc"}
+    assert "written by 2 versions of orthoclimb (0.1.0: 6 rows, 0.2.0: 2 rows)" in found["a"]
+    assert "the same seed is not bitwise the same instance" in found["a"]
+    assert "written by 2 versions of orthoclimb (0.2.0: 6 rows, 0.2.1: 2 rows)" in found["b"]
+    assert "bitwise" not in found["b"]
+    assert "versions of orthoclimb" not in found["c"]  # one (unrecorded) version: nothing
