@@ -123,7 +123,7 @@ def test_sweep_on_two_worker_local_cluster(tmp_path):
     for r in table:
         by_instance.setdefault((r["n"], r["seed"]), set()).add(r["seconds_sample"])
     assert len(by_instance) == 8 and all(len(v) == 1 for v in by_instance.values())
-    assert any("16 tasks share their instances in 8 groups" in line for line in said)
+    assert any("16 tasks on 8 instances: each instance is sampled once" in x for x in said)
     # rerun: everything skipped, nothing rewritten
     said.clear()
     again = run_study(spec, tmp_path / "s", workers=2, progress=False, log=said.append)

@@ -326,3 +326,22 @@ def test_hessian_ascent_with_a_field_pays_for_its_first_stage():
         diff = estimate_from(busy, [task], 1, False) - estimate_from(free, [task], 1, False)
         assert diff == pytest.approx(first * 0.001, abs=1e-12), gammas
     assert first_stage_passes(400) == pytest.approx(36 * math.log(400) - 74)
+
+
+def test_the_plan_says_how_the_tasks_of_an_instance_share_its_sampling():
+    from orthoclimb.studies.estimate import grouping_text
+
+    three = ("hessian", "gradient", "anneal")
+    whole = grouping_text(_spec(sizes=(20,), seeds=(0, 1, 2), methods=three).tasks(), 2)
+    assert whole == (
+        "9 tasks on 3 instances: each instance is sampled once for all its tasks, whose rows"
+        " are written when the last of them ends"
+    )
+    split = grouping_text(_spec(sizes=(20,), seeds=(0,), methods=three).tasks(), 2)
+    assert split.startswith("3 tasks on 1 instance: in 2 groups of tasks on one instance")
+    apart = grouping_text(_spec(sizes=(20,), seeds=(0,), methods=three).tasks(), 4)
+    assert (
+        apart
+        == "3 tasks on 1 instance run apart, each sampling its instance: 4 workers for 3 tasks"
+    )
+    assert grouping_text(_spec().tasks(), 2) is None  # one method: nothing shared

@@ -34,12 +34,23 @@ def test_groups_hold_the_tasks_of_one_instance_in_order():
     assert firsts == sorted(firsts)
 
 
-def test_fewer_instances_than_workers_run_their_tasks_apart():
+def test_fewer_instances_than_workers_split_their_tasks_among_the_workers():
     # one instance, two methods, two workers: grouped, one worker would wait
     tasks = _spec(seeds=(0,)).tasks()
     assert instance_groups(tasks, slots=2) == [[t] for t in tasks]
     assert instance_groups(tasks, slots=1) == [tasks]
     assert instance_groups(tasks, slots=0) == [tasks]  # no worker yet: as one
+    # three methods on two workers: two share a sampling, the third runs beside them (a
+    # user trial saw three samplings of the one instance, two on the same worker)
+    three = _spec(seeds=(0,), methods=("hessian", "gradient", "anneal")).tasks()
+    assert instance_groups(three, slots=2) == [three[:2], three[2:]]
+    assert instance_groups(three, slots=8) == [[t] for t in three]  # at most one per task
+    # two instances of three methods: on five workers every task apart, on three 2 + 1 each
+    six = _spec(seeds=(0, 1), methods=("hessian", "gradient", "anneal")).tasks()
+    groups = instance_groups(six, slots=5)
+    assert [len(g) for g in groups] == [1, 1, 1, 1, 1, 1]
+    assert [len(g) for g in instance_groups(six, slots=3)] == [2, 1, 2, 1]
+    assert instance_groups([], slots=2) == []
 
 
 def test_dtype_seed_and_size_each_make_another_instance():

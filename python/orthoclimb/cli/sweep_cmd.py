@@ -274,7 +274,7 @@ def execute(
         say(
             f"note: {outcome.replaced_workers} worker process(es) died during the sweep (a crash"
             " or an out-of-memory kill) and were replaced; Dask ran their tasks again, so every"
-            " row above is complete"
+            " task counted as run has its row"
         )
     if outcome.failed:
         say(f"failed tasks are listed in {out}/failed/; rerun the same command to retry them")

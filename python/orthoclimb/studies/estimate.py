@@ -354,6 +354,35 @@ def fixed_path_notes(spec: StudySpec) -> list[str]:
     return out
 
 
+def grouping_text(pending: list, slots: int) -> str | None:
+    """What the sweep's plan says of :func:`~orthoclimb.studies.tasks.instance_groups` for
+    ``slots`` workers: None when every instance has one task (nothing to share)."""
+    from .engine import counted
+    from .tasks import instance_key
+
+    instances = len({instance_key(t) for t in pending})
+    if instances == len(pending):
+        return None
+    groups = instance_groups(pending, slots)
+    head = f"{counted(len(pending), 'task')} on {counted(instances, 'instance')}"
+    if len(groups) == len(pending):  # as many workers as tasks: every task alone
+        return (
+            f"{head} run apart, each sampling its instance:"
+            f" {counted(slots, 'worker')} for {counted(len(pending), 'task')}"
+        )
+    # an interrupted group loses its finished tasks too (the engine's doc): say when rows come
+    if len(groups) == instances:
+        return (
+            f"{head}: each instance is sampled once for all its tasks, whose rows are written"
+            " when the last of them ends"
+        )
+    return (
+        f"{head}: in {counted(len(groups), 'group')} of tasks on one instance (split so that"
+        " every worker has one), each sampling its instance once; a group's rows are written"
+        " when its last task ends"
+    )
+
+
 def plan_lines(
     spec: StudySpec,
     folder: str,
@@ -381,16 +410,12 @@ def plan_lines(
         f"study: {total} tasks ({total - len(pending)} already done, {len(pending)} to run)"
         f" in {folder}",
         f"largest instance: {mix}, n = {n}: {format_bytes(nbytes)} of coefficients per running"
-        " task",
+        " task (or group of tasks on one instance)",
     ]
     if plan is not None:
-        shared = [g for g in instance_groups(pending, plan.workers) if len(g) > 1]
-        if shared:  # say it: an interrupted group loses its finished tasks too (engine doc)
-            lines.append(
-                f"{counted(sum(map(len, shared)), 'task')} share their instances in"
-                f" {counted(len(shared), 'group')}: each instance is sampled once per group,"
-                " and a group's rows are written when it ends"
-            )
+        shared = grouping_text(pending, plan.workers)
+        if shared is not None:
+            lines.append(shared)
         lines.append(
             "embedded Dask cluster: "
             f"{counted(plan.workers, 'worker process', 'worker processes')} x "

@@ -88,15 +88,26 @@ def instance_key(task: Task) -> tuple:
 def instance_groups(tasks: list[Task], slots: int) -> list[list[Task]]:
     """``tasks`` in groups that share one instance (each group in the order of ``tasks``, the
     groups in the order of their first task), for a sweep whose workers can run ``slots``
-    tasks at once. With fewer groups than slots, one task per group instead: there, running
-    the methods of an instance side by side on several workers beats sampling it once (a
-    study of one instance and three methods on two workers would otherwise leave one idle)."""
+    tasks at once. With fewer instances than slots, each instance's tasks are cut into
+    ceil(slots / instances) groups of consecutive tasks (as even as they go, never empty), so
+    that every worker has a group: one instance with three methods on two workers runs as
+    two methods on one sampling and one on another, not as one group leaving a worker idle."""
     groups: dict[tuple, list[Task]] = {}
     for task in tasks:
         groups.setdefault(instance_key(task), []).append(task)
-    if len(groups) < max(1, int(slots)):
-        return [[task] for task in tasks]
-    return list(groups.values())
+    if not groups or len(groups) >= max(1, int(slots)):
+        return list(groups.values())
+    parts = -(-int(slots) // len(groups))  # ceil
+    out = []
+    for group in groups.values():
+        k = min(parts, len(group))
+        size, extra = divmod(len(group), k)
+        start = 0
+        for i in range(k):
+            stop = start + size + (i < extra)
+            out.append(group[start:stop])
+            start = stop
+    return out
 
 
 class TheoryValues(NamedTuple):
