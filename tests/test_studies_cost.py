@@ -165,7 +165,8 @@ def test_the_time_of_one_step_has_its_own_exponent(tmp_path):
     assert "one step's like n^3.00" in "\n".join(rep.findings)
     write_report(tmp_path / "k", plots=False)
     md = (tmp_path / "k" / "report.md").read_text()
-    assert "| 4.00 +- 0.00 | 4.00 | 3.00 | 3 |" in md
+    assert "| 4.00 +- 0.00 | 4.00 | 3.00 +- 0.00 | 3 |" in md
+    assert "grows faster than its kernel passes" not in "\n".join(rep.findings)
 
 
 def test_a_size_without_step_counts_leaves_the_step_exponent_out(tmp_path):
@@ -184,3 +185,27 @@ def test_a_size_without_step_counts_leaves_the_step_exponent_out(tmp_path):
     assert cost["exponent_per_step"] is None
     per_step = cost["median_seconds_per_step"]
     assert math.isnan(per_step[0]) and per_step[1] == pytest.approx(1e-6 * 40**3 / 50)
+
+
+def test_a_step_that_grows_faster_than_its_passes_is_flagged_and_a_flat_one_bracketed(tmp_path):
+    # one step of a P = 3 method cannot grow like n^4.8 through its passes (a user trial saw
+    # 4.1-4.8 on a busy host): the table marks it and the findings say why; a step time that
+    # grows more slowly than n is in parentheses, like such a b
+    spec = spec_from_flags(["3:1"], None, "100,200,400", "0-2", "hessian,gradient")
+    store = Store.open(tmp_path / "f", spec)
+    for t in spec.tasks():
+        row = {"task_id": t.task_id, "mixture": t.mixture.name, "method": t.method.name}
+        row.update(n=t.n, seed=t.seed, energy=1.5 + 0.01 * t.seed - t.n ** (-2 / 3))
+        per_step = 1e-12 * t.n**4.8 if t.method.name == "hessian" else 1e-3 * t.n**0.5
+        row.update(steps=25, seconds_run=25 * per_step * (1 + t.seed / 100))
+        store.write_row({**row, "seconds_sample": 1e-3})
+    rep = build_report(tmp_path / "f")
+    by_method = {c["method"]: c for c in rep.cost}
+    assert by_method["hessian"]["exponent_per_step"] == pytest.approx(4.8, abs=1e-9)
+    findings = "\n".join(rep.findings)
+    assert "one step grows faster than its kernel passes can make it (P = 3)" in findings
+    assert findings.count("grows faster than its kernel passes") == 1
+    write_report(tmp_path / "f", plots=False)
+    md = (tmp_path / "f" / "report.md").read_text()
+    assert "| 4.80 +- 0.00 ! | 3 |" in md
+    assert "| (0.50 +- 0.00) | 3 |" in md

@@ -31,7 +31,7 @@ from typing import Any
 import numpy as np
 
 from ..fileio import ensure_folder, json_writer, refuse_folder, write_all_atomic
-from .cost import cost_markdown, cost_table
+from .cost import above_degree, cost_markdown, cost_table
 from .engine import counted
 from .extrapolate import Extrapolation, check_interval, extrapolate
 from .grid import LEGACY_START, StudySpec
@@ -576,6 +576,13 @@ def _findings(rep: Report, seeds: dict) -> list[str]:
                 )
                 if c.get("exponent_per_step") is not None:
                     text += f", one step's like n^{c['exponent_per_step']:.2f}"
+                if above_degree(c):
+                    text += (
+                        f"; one step grows faster than its kernel passes can make it (P ="
+                        f" {c['max_degree']}): the coefficients outgrowing a cache between these"
+                        " sizes, or other work on the machine during the sweep, set that"
+                        " growth, not the method"
+                    )
                 if c.get("rising"):
                     text += (
                         f"; the slope rises with n (n^{c['exponent_last']:.2f} between the two"
