@@ -113,6 +113,22 @@ def test_toml_matches_flags(tmp_path):
     assert [t.task_id for t in spec_from_toml(path).tasks()] == [t.task_id for t in flags.tasks()]
 
 
+def test_a_study_file_takes_the_exponent_as_a_fraction_like_the_command_line(tmp_path):
+    # a user trial: --exponent 2/3 worked while exponent = "2/3" in the file was refused
+    from orthoclimb.cli import exponent_value
+
+    body = 'sizes = [20, 30]\nseeds = "0-2"\n[[mixture]]\ngammas = { 3 = 1.0 }\n'
+    body += '[[method]]\nname = "gradient"\n'
+    for text, value in (('"2/3"', 2 / 3), ('"0.5"', 0.5), ("0.75", 0.75)):
+        path = tmp_path / "e.toml"
+        path.write_text(f"exponent = {text}\n" + body)
+        assert spec_from_toml(path).exponent == value == exponent_value(text.strip('"'))
+    for bad in ('"two thirds"', '"-2/3"', '"1/0"', "true"):
+        path.write_text(f"exponent = {bad}\n" + body)
+        with pytest.raises(ValueError, match="'exponent' must be a number or a fraction"):
+            spec_from_toml(path)
+
+
 def test_malformed_toml_is_a_clear_error(tmp_path, capsys):
     bad = tmp_path / "bad.toml"
     bad.write_text("sizes = [20, 30\nseeds = 1\n")
@@ -158,7 +174,7 @@ def test_toml_exponent_that_is_no_number_names_the_key(tmp_path, value):
         f"sizes=[20,30]\nseeds=[0,1]\nexponent={value}\n[[mixture]]\ngammas={{3=1.0}}\n"
         '[[method]]\nname="gradient"\n'
     )
-    with pytest.raises(ValueError, match="'exponent' must be a number, got"):
+    with pytest.raises(ValueError, match="'exponent' must be a number or a fraction such as"):
         spec_from_toml(p)
 
 

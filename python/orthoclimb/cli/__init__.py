@@ -100,26 +100,14 @@ def positive_number(text: str) -> float:
 
 
 def exponent_value(text: str) -> float:
-    """An argparse type: a positive finite-size exponent, as a number or a fraction ("2/3")."""
-    import math
+    """An argparse type: a positive finite-size exponent, as a number or a fraction ("2/3"),
+    read by :func:`orthoclimb.studies.grid.parse_exponent` (as study files are)."""
+    from ..studies.grid import parse_exponent
 
-    bad = argparse.ArgumentTypeError(
-        f"expected a positive number or a fraction such as 2/3, got {text!r}"
-    )
-    body = text.strip()
-    if len(body) > 64:  # Fraction('1e999999999') would build a billion-digit integer
-        raise bad
     try:
-        if "/" in body:
-            top, _, bottom = body.partition("/")
-            value = float(top) / float(bottom)
-        else:
-            value = float(body)
-    except (ValueError, ZeroDivisionError, OverflowError):
-        raise bad from None
-    if not (math.isfinite(value) and value > 0):
-        raise argparse.ArgumentTypeError(f"the exponent must be positive and finite, got {text!r}")
-    return value
+        return parse_exponent(text)
+    except ValueError as exc:
+        raise argparse.ArgumentTypeError(str(exc)) from None
 
 
 def threads_from(args: argparse.Namespace) -> str | None:

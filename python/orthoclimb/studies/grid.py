@@ -189,6 +189,26 @@ def parse_seeds(text: str | Iterable[int]) -> tuple[int, ...]:
     return tuple(seeds)
 
 
+def parse_exponent(text: str) -> float:
+    """A positive finite-size exponent k (of e_inf + a n^(-k)) from text: a number ("0.5") or a
+    fraction ("2/3", read as float(2) / float(3)); a ValueError names anything else."""
+    body = str(text).strip()
+    bad = ValueError(f"expected a positive number or a fraction such as 2/3, got {text!r}")
+    if len(body) > 64:  # no exponent needs more; bounds the work on hostile text
+        raise bad
+    try:
+        if "/" in body:
+            top, _, bottom = body.partition("/")
+            value = float(top) / float(bottom)
+        else:
+            value = float(body)
+    except (ValueError, ZeroDivisionError, OverflowError):
+        raise bad from None
+    if not (math.isfinite(value) and value > 0):
+        raise ValueError(f"the exponent must be positive and finite, got {text!r}")
+    return value
+
+
 def parse_sizes(text: str | Iterable[int]) -> tuple[int, ...]:
     """Sizes n from text like ``"100,200,400"`` or a list; each 2 <= n <= 100000, distinct."""
     if isinstance(text, str):
@@ -540,8 +560,16 @@ def spec_from_toml(path: str | Path) -> StudySpec:
             opts = {k: v for k, v in entry.items() if k != "name"}
             methods.append(MethodSpec.make(entry["name"], opts))
         exponent = data.get("exponent", DEFAULT_EXPONENT)
+        wrong = ValueError(
+            f"'exponent' must be a number or a fraction such as \"2/3\", got {exponent!r}"
+        )
+        if isinstance(exponent, str):  # "2/3", as --exponent takes it (a user trial)
+            try:
+                exponent = parse_exponent(exponent)
+            except ValueError as exc:
+                raise ValueError(f"{wrong} ({exc})") from None
         if isinstance(exponent, bool) or not isinstance(exponent, (int, float)):
-            raise ValueError(f"'exponent' must be a number, got {exponent!r}")
+            raise wrong
         return StudySpec(
             mixes,
             parse_sizes(data["sizes"]) if "sizes" in data else (),
