@@ -263,17 +263,17 @@ fn segment_prefetch(len: usize) -> Option<crate::simd::PrefetchLevel> {
     (len >= AHEAD_MIN_LEN).then(crate::simd::segment_prefetch_level)
 }
 
-/// Where the Hessian's four-segment loop ([`rows4_shared2`], [`rows4`]) prefetches: as
-/// [`segment_prefetch`] from [`AHEAD_MIN_LEN`] on, and into L1 below it. The Hessian stalls on
-/// its coefficient stream where the other passes do not (it also reads and writes five or six
-/// rows of its accumulator per step), and the short segments of degree 4 and up, which are
-/// contiguous along each of the four tails, gain from the hint. Zen 4 (family 0x19, model
-/// 0x11), medians of 30 calls, three alternating runs: two threads, p = 4, n = 120 3.03 ->
-/// 2.54 ms (float32 2.16 -> 1.74 ms), one thread 5.74 -> 4.65 ms; p = 5, n = 50 1.36 -> 1.14
-/// ms. The L2 hint gained less there (two threads 2.9-3.0 ms), and the L1 hint on the long
-/// segments of degree 3 lost 8-12 % in float64 (n = 400 2.94 -> 3.23 ms, n = 800 24.8 -> 27.8
-/// ms), so those keep [`crate::simd::segment_prefetch_level`]. Prefetching 128 coefficients
-/// ahead instead of [`AHEAD`] was level, 512 ahead slower.
+/// Where the Hessian's four-segment loop (`rows4_shared`, the loop of [`rows4_shared2`] and
+/// [`rows4`]) prefetches: as [`segment_prefetch`] from [`AHEAD_MIN_LEN`] on, and into L1 below
+/// it. The Hessian stalls on its coefficient stream where the other passes do not (it also
+/// reads and writes five or six rows of its accumulator per step), and the short segments of
+/// degree 4 and up, which are contiguous along each of the four tails, gain from the hint.
+/// Zen 4 (family 0x19, model 0x11), medians of 30 calls, three alternating runs: two threads,
+/// p = 4, n = 120 3.03 -> 2.54 ms (float32 2.16 -> 1.74 ms), one thread 5.74 -> 4.65 ms; p = 5,
+/// n = 50 1.36 -> 1.14 ms. The L2 hint gained less there (two threads 2.9-3.0 ms), and the L1
+/// hint on the long segments of degree 3 lost 8-12 % in float64 (n = 400 2.94 -> 3.23 ms,
+/// n = 800 24.8 -> 27.8 ms), so those keep [`crate::simd::segment_prefetch_level`]. Prefetching
+/// 128 coefficients ahead instead of [`AHEAD`] was level, 512 ahead slower.
 #[inline(always)]
 fn hessian_prefetch(len: usize) -> crate::simd::PrefetchLevel {
     segment_prefetch(len).unwrap_or(crate::simd::PrefetchLevel::L1)

@@ -846,3 +846,22 @@ def test_a_plain_row_with_an_infinite_energy_is_refused(tmp_path, capsys):
         store.rows()
     assert main(["report", ""]) == 2
     assert "the study folder must be named, got an empty string" in capsys.readouterr().err
+
+
+def test_a_group_result_of_the_wrong_shape_fails_its_tasks_before_any_row_is_written():
+    # a review: zip(strict=True) raised midway, after writing the first rows, and stopped the
+    # whole sweep; the outcomes are now checked first, and the sweep records each task failed
+    from orthoclimb.studies.engine import checked_outcomes
+
+    group = _spec("0").tasks()[:2]
+    good = [("row", {"task_id": "a"}), ("error", "RuntimeError: x")]
+    assert checked_outcomes(group, good) == good
+    for bad, words in (
+        (good[:1], "returned 1 outcomes for a group of 2 tasks"),
+        ({"task_id": "a"}, "returned dict for a group of 2 tasks"),
+        ([("row", {}), ("row", "not a row")], "returned 2 outcomes"),
+        ([("row", {}), ("rows", {})], "returned 2 outcomes"),
+        ([("row", {}), ("error",)], "returned 2 outcomes"),
+    ):
+        with pytest.raises(ValueError, match=words):
+            checked_outcomes(group, bad)

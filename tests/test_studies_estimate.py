@@ -31,7 +31,8 @@ def _cal(**timings) -> dict[str, Calibration]:
 
 
 def test_fixed_costs_alone():
-    # with free kernels, only the per-task overhead (spread over the workers) and the embedded
+    # with free kernels, only the per-task overhead (one per group of tasks on one instance;
+    # here one method, so one per task), spread over the workers, and the embedded
     # cluster's start remain; an external cluster has no start cost
     # (and the dense local-maximum check, which depends on n only)
     tasks = _spec().tasks()
@@ -345,3 +346,16 @@ def test_the_plan_says_how_the_tasks_of_an_instance_share_its_sampling():
         == "3 tasks on 1 instance run apart, each sampling its instance: 4 workers for 3 tasks"
     )
     assert grouping_text(_spec().tasks(), 2) is None  # one method: nothing shared
+
+
+def test_sampling_is_paid_once_per_group_of_tasks_on_one_instance():
+    # three methods on one instance: one group on one worker samples once; on three workers
+    # the sweep runs every task apart (instance_groups), and each samples
+    three = _spec(sizes=(20,), seeds=(0,), methods=("hessian", "gradient", "anneal")).tasks()
+    extra = [
+        estimate_from(_cal(sampling=1.0), three, w, embedded=False)
+        - estimate_from(_cal(), three, w, embedded=False)
+        for w in (1, 3)
+    ]
+    assert extra[0] == pytest.approx(1.0)  # once, on the one worker
+    assert extra[1] == pytest.approx(3.0 / 3)  # three times, over three workers

@@ -676,3 +676,7 @@ def test_rows_of_several_versions_are_named_and_the_sampler_change_is_said(tmp_p
     assert "written by 2 versions of orthoclimb (0.2.0: 6 rows, 0.2.1: 2 rows)" in found["b"]
     assert "bitwise" not in found["b"]
     assert "versions of orthoclimb" not in found["c"]  # one (unrecorded) version: nothing
+    from orthoclimb.studies.report import mixed_versions_text
+
+    text = mixed_versions_text([{"version": "0.10.0"}, {"version": "0.2.0"}, {}])
+    assert "(no version recorded: 1 rows, 0.2.0: 1 rows, 0.10.0: 1 rows)" in text

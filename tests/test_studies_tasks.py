@@ -45,11 +45,14 @@ def test_fewer_instances_than_workers_split_their_tasks_among_the_workers():
     three = _spec(seeds=(0,), methods=("hessian", "gradient", "anneal")).tasks()
     assert instance_groups(three, slots=2) == [three[:2], three[2:]]
     assert instance_groups(three, slots=8) == [[t] for t in three]  # at most one per task
-    # two instances of three methods: on five workers every task apart, on three 2 + 1 each
+    # two instances of three methods: only as many cuts as workers need (a review: cutting
+    # every instance alike made 10 samplings for 6 workers where 6 do)
     six = _spec(seeds=(0, 1), methods=("hessian", "gradient", "anneal")).tasks()
-    groups = instance_groups(six, slots=5)
-    assert [len(g) for g in groups] == [1, 1, 1, 1, 1, 1]
-    assert [len(g) for g in instance_groups(six, slots=3)] == [2, 1, 2, 1]
+    assert [len(g) for g in instance_groups(six, slots=5)] == [1, 1, 1, 2, 1]
+    assert [len(g) for g in instance_groups(six, slots=3)] == [2, 1, 3]
+    assert [len(g) for g in instance_groups(six, slots=6)] == [1] * 6
+    many = _spec(seeds=(0, 1, 2, 3, 4), methods=("hessian", "gradient", "anneal")).tasks()
+    assert len(instance_groups(many, slots=6)) == 6
     assert instance_groups([], slots=2) == []
 
 

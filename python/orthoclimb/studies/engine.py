@@ -5,15 +5,17 @@ sized by :func:`plan_workers`; with ``scheduler="tcp://HOST:PORT"`` the tasks go
 cluster (its workers need orthoclimb installed). Tasks are submitted as futures with Dask's
 ``retries=`` and collected with ``as_completed``: no scheduler, pool or retry loop of our own.
 Each finished task's row is written atomically by the driver as soon as it arrives
-(:class:`~orthoclimb.studies.store.Store`), so a killed driver loses only the running tasks,
-and a worker that dies loses its running task, which Dask reschedules on another worker.
+(:class:`~orthoclimb.studies.store.Store`), so a killed driver loses only the running tasks
+(groups, below), and a worker that dies loses its running one, which Dask reschedules on
+another worker.
 
 Tasks that share an instance (the methods of one mixture, n and seed) go to Dask as one
-future that samples it once (:func:`~orthoclimb.studies.tasks.instance_groups`), when there
-are at least as many such groups as workers: sampling took 27 % of a three-method study's
-compute at n <= 300 when each task sampled its own. Their rows are written when the group
-ends, so an interruption loses the group's finished tasks too; a method that raises fails its
-own task only, and a failed sampling fails the group (after Dask's retries).
+future that samples it once (:func:`~orthoclimb.studies.tasks.instance_groups`; with fewer
+instances than workers an instance's tasks are cut into as many groups as keep the workers
+busy): sampling took 27 % of a three-method study's compute at n <= 300 when each task
+sampled its own. A group's rows are written when it ends, so a killed driver or worker loses
+the running groups' finished tasks too; a method that raises fails its own task only
+(without a retry), and a failed sampling fails the group (after Dask's retries).
 
 Thread sizing. Each worker process runs one task at a time (one Dask thread) and gives its
 kernels ``rayon`` threads, with workers x dask_threads x rayon <= cores, so the two levels of
@@ -335,6 +337,24 @@ def _inside_script_reimport() -> bool:
     return False
 
 
+def checked_outcomes(group: list[Task], outcomes: Any) -> list[tuple[str, Any]]:
+    """The outcomes of a group's future (:func:`~orthoclimb.studies.tasks.run_instance_tasks`),
+    checked before any is written: one ("row", dict) or ("error", str) per task of the group,
+    or a ValueError, which the sweep records as every task's failure (a half-written group
+    would otherwise stop the sweep midway, the other groups' results unread)."""
+    ok = isinstance(outcomes, list) and len(outcomes) == len(group)
+    ok = ok and all(
+        isinstance(o, tuple)
+        and len(o) == 2
+        and (o[0] == "row" and isinstance(o[1], dict) or o[0] == "error" and isinstance(o[1], str))
+        for o in outcomes
+    )
+    if not ok:
+        got = f"{len(outcomes)} outcomes" if isinstance(outcomes, list) else type(outcomes).__name__
+        raise ValueError(f"the worker returned {got} for a group of {len(group)} tasks")
+    return outcomes
+
+
 def _term_to_interrupt(signum, frame):  # pragma: no cover - exercised by a subprocess test
     raise KeyboardInterrupt
 
@@ -481,10 +501,10 @@ def _sweep(
         task_threads = plan.rayon_threads if plan is not None else (threads or 1)
         from distributed import as_completed
 
-        try:
+        try:  # the workers' task slots: they decide the grouping and the "running" count
             slots = sum(client.nthreads().values())
-        except Exception:  # noqa: BLE001 - the count is cosmetic
-            slots = 10**9
+        except Exception:  # noqa: BLE001 - unknown: one group per instance, uncut
+            slots = 1
         by_key: dict[str, list[Task]] = {}
         futures = []
         for group in instance_groups(pending, slots):
@@ -534,7 +554,7 @@ def _sweep(
             # ask the future itself rather than its status: a result held by a worker that
             # dies after the task finished is "lost" for a moment, then computed again
             try:
-                outcomes = fut.result()
+                outcomes = checked_outcomes(group, fut.result())
             except Exception as exc:  # noqa: BLE001 - the group's own error (its sampling)
                 outcomes = [("error", f"{type(exc).__name__}: {exc}")] * len(group)
             for task, (kind, value) in zip(group, outcomes, strict=True):

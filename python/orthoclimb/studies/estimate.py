@@ -365,7 +365,7 @@ def grouping_text(pending: list, slots: int) -> str | None:
         return None
     groups = instance_groups(pending, slots)
     head = f"{counted(len(pending), 'task')} on {counted(instances, 'instance')}"
-    if len(groups) == len(pending):  # as many workers as tasks: every task alone
+    if len(groups) == len(pending):  # at least as many workers as tasks: every task alone
         return (
             f"{head} run apart, each sampling its instance:"
             f" {counted(slots, 'worker')} for {counted(len(pending), 'task')}"
@@ -377,9 +377,9 @@ def grouping_text(pending: list, slots: int) -> str | None:
             " when the last of them ends"
         )
     return (
-        f"{head}: in {counted(len(groups), 'group')} of tasks on one instance (split so that"
-        " every worker has one), each sampling its instance once; a group's rows are written"
-        " when its last task ends"
+        f"{head}: in {counted(len(groups), 'group')} of tasks on one instance (cut so that"
+        " every worker has one), and each group samples its instance once; a group's rows are"
+        " written when its last task ends"
     )
 
 

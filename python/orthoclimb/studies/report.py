@@ -476,7 +476,7 @@ def mixed_versions_text(rows: list[dict[str, Any]]) -> str | None:
     counts: dict[str, int] = {}
     for r in rows:
         v = r.get("version")
-        key = v if isinstance(v, str) and v else "unrecorded"
+        key = v if isinstance(v, str) and v else "no version recorded"
         counts[key] = counts.get(key, 0) + 1
     if len(counts) < 2:
         return None
@@ -485,9 +485,11 @@ def mixed_versions_text(rows: list[dict[str, Any]]) -> str | None:
         try:
             return tuple(int(part) for part in v.split(".")[:3])
         except ValueError:
-            return None  # "unrecorded", or a development version string
+            return None  # no version recorded, or a development version string
 
-    listed = ", ".join(f"{v}: {k} rows" for v, k in sorted(counts.items()))
+    # in version order (0.10.0 after 0.2.0), the unparsed ones first
+    order = sorted(counts, key=lambda v: (parsed(v) is not None, parsed(v) or (), v))
+    listed = ", ".join(f"{v}: {counts[v]} rows" for v in order)
     text = f"the rows were written by {len(counts)} versions of orthoclimb ({listed})"
     known = [parsed(v) for v in counts]
     if any(p is not None and p < SAMPLER_CHANGED for p in known) and any(
@@ -579,7 +581,8 @@ def _findings(rep: Report, seeds: dict) -> list[str]:
                 if above_degree(c):
                     text += (
                         f"; one step grows faster than its kernel passes can make it (P ="
-                        f" {c['max_degree']}): the coefficients outgrowing a cache between these"
+                        f" {c['max_degree']}; steps also do n^2 and, once per run, n^3 work):"
+                        " the coefficients outgrowing a cache between these"
                         " sizes, or other work on the machine during the sweep, set that"
                         " growth, not the method"
                     )

@@ -7,7 +7,8 @@ Layout of ``STUDY_DIR``::
                           "format_version": 1, "sha256": ..., "payload": <the row>} (see
                           orthoclimb.studies.tasks for the row's fields; sha256 as in
                           orthoclimb.fileio.json_digest)
-    failed/<task_id>.json the last error of a task that failed after its retries
+    failed/<task_id>.json the last error of a failed task (its method's, or its group's
+                          sampling's after Dask's retries); a rerun runs it again
     points/<task_id>.npy  the run's final point, for tasks run with ``keep_points``
                           (orthoclimb.studies.points; checked against its row's digest)
     results.parquet       the tidy table (pyarrow), one row per completed task

@@ -88,19 +88,24 @@ def instance_key(task: Task) -> tuple:
 def instance_groups(tasks: list[Task], slots: int) -> list[list[Task]]:
     """``tasks`` in groups that share one instance (each group in the order of ``tasks``, the
     groups in the order of their first task), for a sweep whose workers can run ``slots``
-    tasks at once. With fewer instances than slots, each instance's tasks are cut into
-    ceil(slots / instances) groups of consecutive tasks (as even as they go, never empty), so
-    that every worker has a group: one instance with three methods on two workers runs as
-    two methods on one sampling and one on another, not as one group leaving a worker idle."""
+    tasks at once. With fewer instances than slots, instances are cut into groups of
+    consecutive tasks (as even as they go, never empty) until there are min(slots, tasks)
+    groups, one cut at a time over the instances in turn, so that every worker has a group
+    and no instance is sampled more often than that needs: one instance with three methods
+    on two workers runs as two methods on one sampling and one on another, not as one group
+    leaving a worker idle."""
     groups: dict[tuple, list[Task]] = {}
     for task in tasks:
         groups.setdefault(instance_key(task), []).append(task)
-    if not groups or len(groups) >= max(1, int(slots)):
-        return list(groups.values())
-    parts = -(-int(slots) // len(groups))  # ceil
+    members = list(groups.values())
+    target = min(max(1, int(slots)), len(tasks))
+    parts = [1] * len(members)
+    while sum(parts) < target:  # one more cut for each instance in turn that has tasks left
+        for i, group in enumerate(members):
+            if sum(parts) < target and parts[i] < len(group):
+                parts[i] += 1
     out = []
-    for group in groups.values():
-        k = min(parts, len(group))
+    for group, k in zip(members, parts, strict=True):
         size, extra = divmod(len(group), k)
         start = 0
         for i in range(k):
