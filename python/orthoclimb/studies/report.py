@@ -576,8 +576,10 @@ def _findings(rep: Report, seeds: dict) -> list[str]:
                     f"{c['mixture']}, {c['method']}: a run's median time grows like "
                     f"n^{c['exponent']:.2f}{pm} {span}; largest degree P = {c['max_degree']})"
                 )
-                if c.get("exponent_per_step") is not None:
-                    text += f", one step's like n^{c['exponent_per_step']:.2f}"
+                step = c.get("exponent_per_step")
+                if step is not None and abs(step - c["exponent"]) >= 0.005:  # else the same
+                    # steps at every size (a fixed K): the run's exponent says it already
+                    text += f", one step's like n^{step:.2f}"
                 if above_degree(c):
                     text += (
                         f"; one step grows faster than its kernel passes can make it (P ="
