@@ -217,7 +217,11 @@ def host_check(cases: list[dict], fraction: float = 0.9) -> dict:
     than UNSTEADY_SPREAD apart), which the first test cannot see when a run has one case or
     every case was slowed alike (a dgemm probe 40x slower than usual read 1.00 in a run of one
     case, a review). Busy cases' ratios against memory-bound peers are likely understated."""
-    probes = {c["name"]: r for c in cases for r in c.get("rows", []) if "host_rate" in r}
+    probes = {}
+    for c in cases:
+        own = [r for r in c.get("rows", []) if "host_rate" in r]
+        for r in own:  # a case measured at several sizes (batch) has a probe per size
+            probes[c["name"] if len(own) == 1 else f"{c['name']} n={r['n']}"] = r
     if not probes:
         return {"fractions": {}, "busy": []}
     best = max(r["host_rate"] for r in probes.values())
@@ -788,6 +792,7 @@ def case_batch(cfg, ws):
         fns = batch_functions(h, xs, extras=(n == min(sizes)))
         fns[("compute", "probe:dgemm")] = gemm_probe()
         fns.update(same_shape_products(h, BATCH))
+        add_host_probe(fns)  # the batch rows missed at n = 400 with no word on the host
         log(f"   measuring {len(fns)} functions at n={n}")
         stats = _timing.measure(fns, cfg.plan)
         del fns  # the same-shape matrix
@@ -798,7 +803,7 @@ def case_batch(cfg, ws):
                 row["rel_err"] = batch_error(h, xs[:k], row["kernel"])
         probe, ceiling = compute_ceiling(stats, new, h, BATCH)
         peer, versus = same_shape_peer(stats, new, h, BATCH)
-        rows += new + [probe, peer]
+        rows += new + [probe, peer, host_probe_row(stats, p, n)]
         notes += [ceiling, versus]
         fit = batch_cost_fit(new, h)
         if fit:

@@ -119,3 +119,12 @@ def test_the_batch_case_checks_every_batch_row(capsys):
     batches = [r for r in case["rows"] if r["variant"].startswith("batch b=")]
     assert len(batches) == 6  # b = 32 for both kernels, and 2, 4, 8, 16 for the energy
     assert all(r["rel_err"] is not None and r["rel_err"] < 1e-12 for r in batches)
+
+
+def test_a_case_with_a_probe_per_size_is_checked_per_size():
+    # the batch case measures two sizes, each with its own host probe; keyed by the case
+    # alone, the second probe hid the first
+    slow, fast = _probe(10e9, [1.0, 1.1]), _probe(40e9, [1.0, 1.1])
+    check = _cases.host_check([{"name": "batch", "rows": [{**slow, "n": 400}, {**fast, "n": 800}]}])
+    assert check["fractions"] == {"batch n=400": 0.25, "batch n=800": 1.0}
+    assert check["busy"] == ["batch n=400"]
