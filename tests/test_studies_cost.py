@@ -146,17 +146,29 @@ def test_a_row_without_its_sampling_time_leaves_out_only_itself():
     assert entry["median_seconds_sample"] == [2.0, 3.0]
 
 
+def _timed_study(folder, sizes: str, methods: str, timing, seeds: str = "0-2") -> None:
+    """A 3:1 study folder whose rows carry made-up energies and the fields timing(task) gives
+    (steps, seconds_run), with a sampling time of 1 ms."""
+    spec = spec_from_flags(["3:1"], None, sizes, seeds, methods)
+    store = Store.open(folder, spec)
+    for t in spec.tasks():
+        row = {"task_id": t.task_id, "mixture": t.mixture.name, "method": t.method.name}
+        row.update(n=t.n, seed=t.seed, energy=1.5 + 0.01 * t.seed - t.n ** (-2 / 3))
+        store.write_row({**row, "seconds_sample": 1e-3, **timing(t)})
+
+
 def test_the_time_of_one_step_has_its_own_exponent(tmp_path):
     # exact identity: t = c n^3 K with K = n/8 (what hessian's default takes from n = 200 on)
     # has b = 4 and, per step, t/K = c n^3: b (step) = 3 (numpy.polyfit on exact data)
-    spec = spec_from_flags(["3:1"], None, "240,480,960", "0-2", "hessian")
-    store = Store.open(tmp_path / "k", spec)
-    for t in spec.tasks():
-        k = t.n // 8
-        row = {"task_id": t.task_id, "mixture": t.mixture.name, "method": t.method.name}
-        row.update(n=t.n, seed=t.seed, energy=1.5 + 0.01 * t.seed - t.n ** (-2 / 3))
-        row.update(steps=k, seconds_run=1e-10 * t.n**3 * k * (1 + t.seed / 100))
-        store.write_row({**row, "seconds_sample": 1e-3})
+    _timed_study(
+        tmp_path / "k",
+        "240,480,960",
+        "hessian",
+        lambda t: {
+            "steps": t.n // 8,
+            "seconds_run": 1e-10 * t.n**3 * (t.n // 8) * (1 + t.seed / 100),
+        },
+    )
     rep = build_report(tmp_path / "k")
     (cost,) = rep.cost
     assert cost["exponent"] == pytest.approx(4.0, abs=1e-12)
@@ -172,15 +184,11 @@ def test_the_time_of_one_step_has_its_own_exponent(tmp_path):
 def test_a_size_without_step_counts_leaves_the_step_exponent_out(tmp_path):
     # rows of older versions carry no steps (and a bool is no count): no exponent per step,
     # where a fit through the other sizes alone would mislead
-    spec = spec_from_flags(["3:1"], None, "20,40", "0-1", "gradient")
-    store = Store.open(tmp_path / "o", spec)
-    for t in spec.tasks():
-        row = {"task_id": t.task_id, "mixture": t.mixture.name, "method": t.method.name}
-        row.update(n=t.n, seed=t.seed, energy=1.5 - t.n ** (-2 / 3), seconds_sample=1e-4)
-        row.update(seconds_run=1e-6 * t.n**3)
-        if t.n == 40:
-            row["steps"] = True if t.seed else 50
-        store.write_row(row)
+    def timing(t):
+        steps = {} if t.n == 20 else {"steps": True if t.seed else 50}
+        return {"seconds_run": 1e-6 * t.n**3, **steps}
+
+    _timed_study(tmp_path / "o", "20,40", "gradient", timing, seeds="0-1")
     (cost,) = build_report(tmp_path / "o").cost
     assert cost["exponent_per_step"] is None
     per_step = cost["median_seconds_per_step"]
@@ -191,14 +199,11 @@ def test_a_step_that_grows_faster_than_its_passes_is_flagged_and_a_flat_one_brac
     # one step of a P = 3 method cannot grow like n^4.8 through its passes (a user trial saw
     # 4.1-4.8 on a busy host): the table marks it and the findings say why; a step time that
     # grows more slowly than n is in parentheses, like such a b
-    spec = spec_from_flags(["3:1"], None, "100,200,400", "0-2", "hessian,gradient")
-    store = Store.open(tmp_path / "f", spec)
-    for t in spec.tasks():
-        row = {"task_id": t.task_id, "mixture": t.mixture.name, "method": t.method.name}
-        row.update(n=t.n, seed=t.seed, energy=1.5 + 0.01 * t.seed - t.n ** (-2 / 3))
+    def timing(t):
         per_step = 1e-12 * t.n**4.8 if t.method.name == "hessian" else 1e-3 * t.n**0.5
-        row.update(steps=25, seconds_run=25 * per_step * (1 + t.seed / 100))
-        store.write_row({**row, "seconds_sample": 1e-3})
+        return {"steps": 25, "seconds_run": 25 * per_step * (1 + t.seed / 100)}
+
+    _timed_study(tmp_path / "f", "100,200,400", "hessian,gradient", timing)
     rep = build_report(tmp_path / "f")
     by_method = {c["method"]: c for c in rep.cost}
     assert by_method["hessian"]["exponent_per_step"] == pytest.approx(4.8, abs=1e-9)
