@@ -56,7 +56,7 @@ import numpy as np
 from ..algorithms.hessian_ascent import auto_steps, eigen_solves, stepwise_shortfall
 from .grid import LEGACY_START, StudySpec
 from .profile import best_time
-from .tasks import instance_groups
+from .tasks import instance_groups, instance_key
 
 __all__ = [
     "CHECK_SECONDS",
@@ -358,7 +358,6 @@ def grouping_text(pending: list, slots: int) -> str | None:
     """What the sweep's plan says of :func:`~orthoclimb.studies.tasks.instance_groups` for
     ``slots`` workers: None when every instance has one task (nothing to share)."""
     from .engine import counted
-    from .tasks import instance_key
 
     instances = len({instance_key(t) for t in pending})
     if instances == len(pending):

@@ -487,14 +487,13 @@ def mixed_versions_text(rows: list[dict[str, Any]]) -> str | None:
         except ValueError:
             return None  # no version recorded, or a development version string
 
+    versions = {v: parsed(v) for v in counts}
     # in version order (0.10.0 after 0.2.0), the unparsed ones first
-    order = sorted(counts, key=lambda v: (parsed(v) is not None, parsed(v) or (), v))
+    order = sorted(counts, key=lambda v: (versions[v] is not None, versions[v] or (), v))
     listed = ", ".join(f"{v}: {counts[v]} rows" for v in order)
     text = f"the rows were written by {len(counts)} versions of orthoclimb ({listed})"
-    known = [parsed(v) for v in counts]
-    if any(p is not None and p < SAMPLER_CHANGED for p in known) and any(
-        p is not None and p >= SAMPLER_CHANGED for p in known
-    ):
+    known = [p for p in versions.values() if p is not None]
+    if any(p < SAMPLER_CHANGED for p in known) and any(p >= SAMPLER_CHANGED for p in known):
         text += (
             "; instances sampled before 0.2.0 differ from later ones in the last bit of about"
             " 6 % of their coefficients (the sampler's math library changed), far below the"
