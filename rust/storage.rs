@@ -14,9 +14,17 @@ use crate::sampling::{coefficient_bound, fill_block, Disorder};
 /// (8 MiB of float64, about a millisecond).
 pub const COPY_PIECE: usize = 1 << 20;
 
-/// A storage type for coefficients. Arithmetic is always done in f64.
+/// Keeps [`Coef`] to the two storage types of this crate: the SIMD loops trust `load4` and
+/// the widths of f64 and f32, so a type from outside must not be able to join.
+mod sealed {
+    pub trait Sealed {}
+    impl Sealed for f64 {}
+    impl Sealed for f32 {}
+}
+
+/// A storage type for coefficients (f64 or f32; sealed). Arithmetic is always done in f64.
 pub trait Coef:
-    Copy + Send + Sync + Default + PartialEq + std::fmt::Debug + ZeroBits + 'static
+    sealed::Sealed + Copy + Send + Sync + Default + PartialEq + std::fmt::Debug + ZeroBits + 'static
 {
     const NAME: &'static str;
     /// True when the stored type is narrower than f64, so that every load widens it (f32).
