@@ -652,11 +652,25 @@ fn kernel_path() -> &'static str {
     simd_path()
 }
 
+/// Sets up now, on the importing thread, everything a first call would set up lazily: NumPy's C
+/// API table and rust-numpy's borrow-checking state (each fetched on first use), the
+/// processor's prefetch level and the cache size. A process forked while another thread was
+/// inside such a set-up inherited it half done, marked as in progress by a thread the child
+/// does not have, and its own first call waited on it forever (9 of 80 children forked during
+/// another thread's first call hung in one of rust-numpy's two).
+fn settle_lazy_state(py: Python<'_>) {
+    // the C API table, then the borrow checker's shared state (set up by the first borrow)
+    drop(PyArray1::<f64>::zeros(py, 0, false).readonly());
+    let _ = crate::simd::segment_prefetch_level();
+    let _ = crate::cache::last_level_bytes();
+}
+
 /// `gil_used = true`: the inputs' copies ([`input1`], [`input2`]) and `from_coefficients` rely
 /// on the GIL to keep other Python threads from resizing an array while it is read; a
 /// free-threaded Python re-enables the GIL on import rather than run without that guard.
 #[pymodule(gil_used = true)]
 fn _core(m: &Bound<'_, PyModule>) -> PyResult<()> {
+    settle_lazy_state(m.py());
     m.add("__version__", env!("CARGO_PKG_VERSION"))?;
     m.add("MAX_DEGREE", crate::combinatorics::MAX_DEGREE)?;
     m.add("MAX_THREADS", threads::MAX_THREADS)?;
