@@ -355,10 +355,16 @@ def test_climb_names_a_point_that_is_not_critical_and_refuses_a_json_plan(tmp_pa
         (99.6, "2 min"),
         (5969, "99 min"),
         (9000, "2.5 h"),
+        (71.9 * 3600, "71.9 h"),
+        (72 * 3600, "3 days"),
+        (729 * 86400, "729 days"),
+        (731 * 86400, "2.0 years"),
+        (1.077e12 * 3600, "1.2e+08 years"),
     ],
 )
 def test_durations_read_as_people_write_them(seconds, text):
-    # "1e+02 s", "1.5e+02 s" and "1000 ms" came out of the %g formats before (a review)
+    # "1e+02 s", "1.5e+02 s" and "1000 ms" came out of the %g formats before (a review); a
+    # plan for degree 8 at n = 2000 said "1077240293454.1 h" (a user trial)
     from orthoclimb.cli import seconds_text
 
     assert seconds_text(seconds) == text

@@ -468,3 +468,23 @@ def test_a_signal_handler_ends_a_long_coefficient_copy():
     # from written (a handler run only once the call returned would see all of them; a
     # review found the test passing that way too)
     assert grown and grown[0] < 100 * 2**20, grown
+
+
+@pytest.mark.parametrize(
+    ("nbytes", "text"),
+    [
+        (0, "0 B"),
+        (1023, "1023 B"),
+        (1536, "1.5 KiB"),
+        (1024**3 * 1023.96, "1.0 TiB"),
+        (3 * 1024**5, "3.0 PiB"),
+        (2.5 * 1024**6, "2.5 EiB"),
+        (51508863259604981802000, "5.2e+22 bytes"),
+    ],
+)
+def test_sizes_read_as_people_write_them(nbytes, text):
+    # a plan for degree 8 at n = 2000 said "46847038229.0 TiB" (a user trial): past the
+    # binary units the size is given in powers of ten
+    from orthoclimb.model.memory import format_bytes
+
+    assert format_bytes(nbytes) == text

@@ -7,7 +7,8 @@ __all__ = ["seconds_text"]
 
 
 def seconds_text(seconds: float) -> str:
-    """A duration for people: "850 ms", "3.2 s", "42 s", "7 min", "2.5 h"."""
+    """A duration for people: "850 ms", "3.2 s", "42 s", "7 min", "2.5 h", "12 days",
+    "3.4 years", "2.1e+08 years" (a plan for a size far beyond the machine reads as that)."""
     import math
 
     if not (math.isfinite(seconds) and seconds >= 0.0):
@@ -22,4 +23,10 @@ def seconds_text(seconds: float) -> str:
         return f"{seconds:.0f} s"
     if seconds < 5970:
         return f"{seconds / 60:.0f} min"
-    return f"{seconds / 3600:.1f} h"
+    if seconds < 71.95 * 3600:
+        return f"{seconds / 3600:.1f} h"
+    days = seconds / 86400
+    if days < 730:
+        return f"{days:.0f} days"
+    years = days / 365.25
+    return f"{years:.1f} years" if years < 9999.5 else f"{years:.1e} years"

@@ -99,13 +99,13 @@ def machine_available_memory() -> int:
 
 
 def format_bytes(nbytes: float) -> str:
-    """Human-readable size: '1.5 GiB'."""
+    """Human-readable size: '1.5 GiB'; past 1024 EiB in powers of ten: '5.2e+22 bytes'."""
     value = float(nbytes)
-    for unit in ("B", "KiB", "MiB", "GiB", "TiB"):
-        if abs(value) < 1024 or unit == "TiB":
+    for unit in ("B", "KiB", "MiB", "GiB", "TiB", "PiB", "EiB"):
+        if abs(value) < 1023.95:
             return f"{value:.0f} {unit}" if unit == "B" else f"{value:.1f} {unit}"
         value /= 1024
-    raise AssertionError("unreachable")
+    return f"{float(nbytes):.1e} bytes"
 
 
 def require_memory(
