@@ -4,7 +4,9 @@ from __future__ import annotations
 
 import json
 
+import numpy as np
 import pytest
+import scipy.linalg
 
 import orthoclimb as oc
 from orthoclimb.cli import main
@@ -403,18 +405,28 @@ def test_ctrl_c_while_the_parser_is_built_is_one_line(monkeypatch, capsys):
     assert capsys.readouterr().err == "orthoclimb: interrupted\n"
 
 
-def test_climb_reports_its_sampling_time_and_the_top_tangent_eigenvalue(tmp_path, capsys):
+def test_climb_reports_its_sampling_time_and_the_top_riemannian_eigenvalue(tmp_path, capsys):
     # a user trial could not set the sampling estimate against the sampling time, and found
-    # the end point's top tangent eigenvalue only in result.json
+    # the end point's top tangent eigenvalue only in result.json; a later one read that
+    # number (the Riemannian Hessian's) for the projected Hessian's of the path's column
     args = ["climb", "--gammas", "3:1", "--n", "40", "--steps", "5", "--no-progress"]
     assert main([*args, "--json", "--out", str(tmp_path / "a")]) == 0
     summary = json.loads(capsys.readouterr().out)
     saved = oc.load_result(tmp_path / "a" / "result")
     assert summary["top_eigenvalue"] == saved.info["top_eigenvalue"] < 0
     assert 0 < summary["seconds_sampling"] < 60
+    # the Riemannian Hessian on the unit sphere, B^T (Hess H - (x . grad H) I) B for an
+    # orthonormal basis B of the tangent space (Absil, Mahony and Sepulchre 2008, ch. 5),
+    # with scipy.linalg.null_space and eigvalsh
+    ham = oc.Hamiltonian.sample(oc.Mixture({3: 1.0}), 40, seed=0)
+    x = saved.x / np.linalg.norm(saved.x)
+    basis = scipy.linalg.null_space(x[None, :])
+    riem = basis.T @ (ham.hessian(x) - (x @ ham.gradient(x)) * np.eye(40)) @ basis
+    top = scipy.linalg.eigvalsh(riem)[-1] / 40
+    assert summary["top_eigenvalue"] == pytest.approx(top, rel=1e-9, abs=1e-12)
     assert main([*args, "--out", str(tmp_path / "b")]) == 0
     out = capsys.readouterr().out
-    assert "top tangent eigenvalue" in out and "(sampling " in out
+    assert "top Riemannian eigenvalue" in out and "(sampling " in out
 
 
 @pytest.mark.parametrize(

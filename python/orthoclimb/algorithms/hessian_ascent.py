@@ -383,8 +383,10 @@ def hessian_ascent(
 
     Returns a :class:`Result`: ``energy`` per spin at the final (polished) point, ``path`` with
     one row per visited point: ``step``, ``stage`` (1 = field stage, 2 = Hessian steps), ``q`` =
-    |x|^2, ``energy`` H(x)/n, ``eigenvalue`` (top tangent eigenvalue of Hess H(x), per spin),
-    ``first_order`` <grad H(x), v>/n after the sign choice, ``predicted_energy`` E_path(q),
+    |x|^2, ``energy`` H(x)/n, ``eigenvalue`` (top eigenvalue of Hess H(x) projected on the
+    tangent space, P Hess H P, per spin, beside the edge 2 sqrt(xi''(q)); the end point's
+    ``top_eigenvalue`` in ``info`` is the Riemannian Hessian's instead, which subtracts x . grad
+    H), ``first_order`` <grad H(x), v>/n after the sign choice, ``predicted_energy`` E_path(q),
     ``predicted_energy_steps`` what the run's own steps predict, E_path less the coarse steps'
     loss (the sum of (q_{i+1} - q_i) sqrt(xi''(q_i)) over the steps so far, from E_path(q_hat)
     after stage 1, from (1/K) sqrt(xi''(0)) along the top eigenvector of Hess H(0), or from 0

@@ -80,7 +80,8 @@ def tangent_spectrum(ham: Hamiltonian, x: Any) -> dict[str, Any]:
     """Local-maximum check at x (normalized to |x| = 1), see the module doc.
 
     Returns ``n_positive`` (positive tangent eigenvalues of the Riemannian Hessian; 0 means a
-    local maximum when x is critical), ``top_eigenvalue`` (the largest, per spin),
+    local maximum when x is critical; the Riemannian Hessian is P Hess H P - (x . grad H) I on
+    the tangent space at |x| = 1), ``top_eigenvalue`` (the largest, per spin),
     ``exhaustive`` (False when only the top ``LANCZOS_TOP`` were computed) and ``grad_norm``
     (|P grad H|/n).
     """

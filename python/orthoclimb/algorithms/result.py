@@ -96,7 +96,8 @@ class Result:
       the energy per spin where the method ended, before its polish (rows and climb:
       ``energy_before_polish``); for Hessian ascent, ``info["alg_gap_ascent"]`` is that
       energy - ALG.
-    * ``info["local_max"]``, ``info["n_positive"]``, ``info["top_eigenvalue"]`` (per spin),
+    * ``info["local_max"]``, ``info["n_positive"]``, ``info["top_eigenvalue"]`` (of the
+      Riemannian Hessian P Hess H P - (x . grad H) I at |x| = 1, per spin),
       ``info["grad_norm"]`` (|P grad H|/n): the end point's local-maximum check, under the same
       names everywhere (None or absent where no check ran).
     """

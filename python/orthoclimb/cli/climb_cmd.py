@@ -245,7 +245,7 @@ def _summary(
         "local_max": info.get("local_max"),
         "n_positive": info.get("n_positive"),
         "grad_norm": info.get("grad_norm"),
-        "top_eigenvalue": info.get("top_eigenvalue"),  # tangent Hessian at x, per spin
+        "top_eigenvalue": info.get("top_eigenvalue"),  # Riemannian Hessian at x, per spin
         "seconds": result.seconds,
         "files": files,
         "units": "energy per spin H(x)/n on the unit sphere, maximization",
@@ -280,7 +280,10 @@ def _table(s: dict[str, Any]) -> str:
             verdict = "no (not a critical point: the run stopped before its gradient tolerance)"
         rows.append(("local maximum", f"{verdict}; |P grad H|/n = {s['grad_norm']:.1e}"))
     if s.get("top_eigenvalue") is not None:
-        rows.append(("top tangent eigenvalue", f"{s['top_eigenvalue']:.6f} per spin"))
+        # the Riemannian Hessian's (P Hess P - (x . grad H) I at |x| = 1), not the
+        # projected Hessian's of the path's eigenvalue column (a user trial read one for the
+        # other: -0.059 here, 4.70 there, at the same point)
+        rows.append(("top Riemannian eigenvalue", f"{s['top_eigenvalue']:.6f} per spin"))
     sampling = s.get("seconds_sampling")
     took = f" (sampling {sampling:.2f} s before it)" if sampling is not None else ""
     rows.append(("time", f"{s['seconds']:.2f} s{took}"))

@@ -15,9 +15,11 @@ point's seed, equal to ``seed``), ``method``, ``options`` (JSON), ``dtype``, ``e
 ``energy_before_polish`` (Hessian ascent, anneal), ``alg``, ``ground_state`` (Parisi GS; NaN in
 memory, null in the row file and the table, when the solver does not converge), ``gap_alg`` =
 energy - ALG, ``gap_gs`` = energy - GS, ``local_max``, ``grad_norm`` (|P grad H|/n),
-``top_eigenvalue`` (the largest tangent Hessian eigenvalue at the end point, per spin: <= 0 at a
-local maximum, near 0 where it is marginal), ``seconds_sample``, ``seconds_run`` (wall seconds;
-``seconds_sample`` is the instance's one sampling, the same in each row of a group),
+``top_eigenvalue`` (the largest eigenvalue of the Riemannian Hessian at the end point, P Hess H
+P - (x . grad H) I at |x| = 1, per spin: <= 0 at a local maximum, near 0 where it is marginal;
+not the projected Hessian's of the path's ``eigenvalue`` column), ``seconds_sample``,
+``seconds_run`` (wall seconds; ``seconds_sample`` is the instance's one sampling, the same in
+each row of a group),
 ``sample_shared_by`` (the tasks that ran on that one sampling, this one included: 1 when it was
 sampled for this task alone; the sampling compute of a row is ``seconds_sample /
 sample_shared_by``), ``threads`` (rayon threads used), ``version`` (orthoclimb), ``code`` (the
