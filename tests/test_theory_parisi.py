@@ -9,7 +9,7 @@ import time
 import numpy as np
 import pytest
 from scipy.integrate import quad
-from scipy.optimize import check_grad
+from scipy.optimize import check_grad, minimize
 
 from orthoclimb import Mixture
 from orthoclimb.errors import NonFiniteError
@@ -723,3 +723,29 @@ def test_the_functional_alone_computes_no_gradient_that_overflows():
         warnings.simplefilter("error")
         value = parisi_functional(m, 1e-300, [0.0, 1.0], [0.0])
     assert value == pytest.approx(0.5 * (3e-300 + 1e300), rel=1e-14)
+
+
+@pytest.mark.parametrize("text", ["2:1,6:0.3", "2:1,5:0.3"])
+def test_the_rounds_do_not_stop_above_a_uniform_grids_optimum(text):
+    # Each round warm-starts from the last solution, and L-BFGS-B can stall in this
+    # ill-conditioned problem: for 2:1,6:0.3 at tol 1e-10 two rounds agreed to the last bit
+    # 7e-10 above the optimum of a uniform grid, and the result said converged (a user trial,
+    # with a solver of its own; 2:1,5:0.3: 4e-10). The reference: P (Chen-Sen form, checked
+    # against hand formulas above) over 400 equal pieces, minimized by scipy's L-BFGS-B from
+    # an even start in (log B, increments of alpha): an upper bound on GS.
+    mixture = Mixture.parse(text)
+    k = 400
+    q = np.linspace(0.0, 1.0, k + 1)
+
+    def value_and_gradient(v):
+        b, a = math.exp(v[0]), np.cumsum(v[1:])
+        g = parisi_gradient(mixture, b, q, a)
+        return parisi_functional(mixture, b, q, a), np.concatenate(([g[0] * b], g[1:]))
+
+    start = np.concatenate(([0.0], np.full(k, 1.0 / k)))
+    options = {"maxiter": 100_000, "ftol": 1e-16, "gtol": 1e-13, "maxcor": 50}
+    bounds = [(None, None)] + [(0.0, None)] * k
+    ref = minimize(value_and_gradient, start, jac=True, bounds=bounds, options=options).fun
+    gs = ground_state(mixture, tol=1e-10)
+    assert gs.converged
+    assert gs.value <= ref + 1e-10, gs.value - ref
