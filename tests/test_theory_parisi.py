@@ -749,3 +749,21 @@ def test_the_rounds_do_not_stop_above_a_uniform_grids_optimum(text):
     gs = ground_state(mixture, tol=1e-10)
     assert gs.converged
     assert gs.value <= ref + 1e-10, gs.value - ref
+
+
+def test_a_tighter_tol_does_not_claim_convergence_above_a_looser_ones_value():
+    # the first version of the fresh-start check certified a stalled solve by another solve
+    # from a fresh start, which can stall too: at tol 1e-11 it said converged 7.6e-11 above
+    # the value reached at tol 1e-10 (a review)
+    mixture = Mixture.parse("2:1,6:0.3")
+    loose = ground_state(mixture, tol=1e-10)
+    tight = ground_state(mixture, tol=1e-11)
+    assert not tight.converged or tight.value <= loose.value + tight.tol
+
+
+@pytest.mark.parametrize("max_steps", [64, 200])
+def test_the_grid_stays_within_max_steps(max_steps):
+    # the first version of the fresh-start check split every piece of the last grid without
+    # a look at max_steps: 120 pieces for max_steps = 64 (a review)
+    gs = ground_state(Mixture.parse("2:1,6:0.3"), tol=1e-10, max_steps=max_steps)
+    assert gs.grid_size <= max_steps

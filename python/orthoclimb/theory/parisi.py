@@ -160,17 +160,22 @@ class GroundState:
         converged: True when two successive values differed by at most ``tol`` and moving the
             jumps of alpha could not gain more than ``tol`` (``jump_gain``); when the fit won,
             also when a step added where D is lowest gains at most ``tol`` (``_confirm_fit``);
-            when the grid's solution stands, also when a solve of the last grid from a fresh
-            start gained at most ``tol``, or else when that grid with every piece split, also
-            solved from a fresh start, changed the value by at most ``tol`` (``_fresh_check``).
-        change: |last round's value - the value of the round before| (grid values), or the
-            change between the two fresh solves when ``_fresh_check`` made them.
+            when the grid's solution stands (and GS = ALG is not known in closed form), also
+            when a solve of the last grid from a fresh start gains at most ``tol``
+            (``_fresh_check``): a larger gain means the rounds' solves had stalled, and they go
+            on from the fresh solution with every piece split (at most ``_MAX_RESUMES`` times,
+            within ``max_steps`` and ``max_rounds``); where they cannot, converged is False.
+        change: |last round's value - the value of the round before| (grid values), or what
+            the fresh start gained when that exceeded ``tol`` and the rounds could not go on.
         jump_gain: first-order estimate of the energy still to gain by moving a jump of alpha
-            inside its neighbouring pieces (0 for a continuous alpha without interior jumps).
+            inside its neighbouring pieces (0 for a continuous alpha without interior jumps), for
+            the last round's solution, or for the fresh start's when that won by more than
+            ``tol``.
         tol: the tolerance used: the requested one, or ``TOL_FLOOR`` s if larger.
         alg: ALG for the same mixture.
         gap: value - alg (>= 0 up to tolerances; about 0 for full-RSB mixtures).
-        history: (grid_size, value) for each round of the grid (before the jump fit).
+        history: (grid_size, value) for each round of the grid (before the jump fit and the
+            fresh start, so ``value`` can lie below the last entry).
     """
 
     value: float
@@ -241,6 +246,12 @@ def ground_state(
     alpha jumps inside (0, 1), the error is quadratic in the distance of the jump from its optimal
     place; ``jump_gain`` estimates it and refinement goes on until it is below ``tol`` too.
 
+    L-BFGS-B, warm-started round after round, can stall on this ill-conditioned problem (2:1,6:0.3
+    at tol 1e-10 stopped 7e-10 above the optimum with two rounds agreeing to the last bit), so a
+    converged grid solution is checked by a solve of the last grid from a fresh start; when that
+    gains more than ``tol`` the rounds go on from its solution with every piece split, and where
+    they cannot (limits), the lower value is returned with ``converged = False``.
+
     ``tol`` is absolute, in energy per spin, as every tolerance of the package; GS scales like
     s = sqrt(xi'(1)) (gammas times c: GS times c). Below ``TOL_FLOOR`` s, which the solver's
     estimates cannot resolve, it is raised to that (for gammas of 1e50 a tol of 1e-6 would
@@ -262,43 +273,51 @@ def ground_state(
         return _ground_state(mixture, tol, initial_steps, max_steps, max_rounds)
 
 
+# Times the rounds go on from a fresh start's solution after it showed them stalled.
+_MAX_RESUMES = 2
+
+
 def _even_start(size: int) -> np.ndarray:
     """B~ = 1 and alpha~ rising evenly to 1 over the pieces: every increment inside its bound."""
     return np.concatenate(([1.0], np.full(size, 1.0 / size)))
 
 
 def _fresh_check(
-    mixture: Mixture, weight: float, grid: _Grid, theta: np.ndarray, value: float, tol: float
-) -> tuple[_Grid, np.ndarray, float, float | None]:
+    grid: _Grid, theta: np.ndarray, value: float, tol: float
+) -> tuple[np.ndarray, float, float]:
     """The rounds' solution checked against a solve of the same grid from a fresh start.
 
     Each round starts from the last solution, in which the new pieces begin with increments at
     their bound 0, and L-BFGS-B can stall there in this ill-conditioned problem: for 2:1,6:0.3 at
     tol 1e-10 two rounds agreed to the last bit while a solve of the same grid from
     :func:`_even_start` went 7.3e-10 lower (2:1,5:0.3: 4.0e-10; a user trial found it with a
-    uniform grid of its own). The lower of the two is kept. When the fresh start gains more
-    than ``tol`` (in the normalized units of the solve), the rounds' convergence does not hold,
-    and every piece is split and solved from a fresh start once more: the change between the
-    two fresh solves is returned in place of the rounds' (None when the first gained at most
-    ``tol``). Only where the grid's solution is returned: the fit of freely placed jumps
-    (``_few_jumps``) puts jumps where no grid point is and has its own check.
+    uniform grid of its own). Returns the lower of the two solutions, its value and what the
+    fresh start gained (0 when it did not go lower). A gain above ``tol`` (in the normalized
+    units of the solve) means the rounds had stalled; they then go on from the fresh solution,
+    warm again: a fresh start can stall too (a finer grid solved from one came out above the
+    coarser grid's value in a review), so it does not certify a value by itself.
     """
     fresh = _solve(grid, _even_start(grid.size))
     fresh_value, _ = grid.value_and_gradient(fresh, False)
     if not fresh_value < value:
-        return grid, theta, value, None
-    gained = value - fresh_value
-    theta, value = _tidy(grid, fresh, fresh_value)
-    if gained <= tol:
-        return grid, theta, value, None
-    q = _split(grid.q, theta, np.ones(grid.size, dtype=bool))[0]
-    finer = _Grid(mixture, q, weight)
-    finer_theta = _solve(finer, _even_start(finer.size))
-    finer_value, _ = finer.value_and_gradient(finer_theta, False)
-    change = abs(value - finer_value)
-    if finer_value < value:
-        return finer, *_tidy(finer, finer_theta, finer_value), change
-    return grid, theta, value, change
+        return theta, value, 0.0
+    theta, lower = _tidy(grid, fresh, fresh_value)
+    return theta, lower, value - lower
+
+
+def _jump_gain(grid: _Grid, theta: np.ndarray, tol: float) -> tuple:
+    """The first-order estimates of what moving alpha's jumps (``_jump_moves``) and its start
+    (``_level_at_zero``) could still gain, in the normalized units of the solve: (gain, the
+    jumps, their best places, their gains, which are isolated, the level's gain, its place).
+    The level's estimate is first order in its height, which is not small: near the threshold
+    it came out about 5 % low (1:0.00513,3:1 at tol 1e-10 stopped 1.02e-10 above the one-jump
+    optimum), so it counts twice, toward convergence and the move."""
+    d = theta[1:]
+    jumps = np.flatnonzero(d[1:] > _JUMP_RTOL * (1.0 + float(d.sum()))) + 1
+    gain, places, gains, isolated = _jump_moves(grid, theta, jumps, tol)
+    zero_gain, zero_place = _level_at_zero(grid, theta, tol)
+    zero_gain *= 2.0
+    return gain + zero_gain, jumps, places, gains, isolated, zero_gain, zero_place
 
 
 def _ground_state(
@@ -323,78 +342,93 @@ def _ground_state(
     gain = math.inf
     converged = False
     tried = False  # grid points were put where a new step of alpha might go (_new_steps)
-    for _round in range(max_rounds):
-        grid = _Grid(mixture, q, weight)
-        if explicit is not None:
-            known = explicit(q)
-            if grid.value_and_gradient(known, False)[0] < grid.value_and_gradient(theta, False)[0]:
-                theta = known
-        theta = _solve(grid, theta)
-        value, _ = grid.value_and_gradient(theta, False)
-        solved_grid, solved_theta = grid, theta
-        history.append((grid.size, s * value))
-        change = s * abs(previous - value)
-        previous = value
-        d = theta[1:]
-        jumps = np.flatnonzero(d[1:] > _JUMP_RTOL * (1.0 + float(d.sum()))) + 1
-        gain, places, gains, isolated = _jump_moves(grid, theta, jumps, tol / s)
-        zero_gain, zero_place = _level_at_zero(grid, theta, tol / s)
-        # the estimate is first order in the level's height, which is not small: near the
-        # threshold it came out about 5 % low (1:0.00513,3:1 at tol 1e-10 stopped 1.02e-10
-        # above the one-jump optimum), so it counts twice, toward convergence and the move
-        zero_gain *= 2.0
-        gain = s * (gain + zero_gain)
-        # past alpha's last jump, D is sampled densely: a new step of alpha may belong there.
-        # Grid points put there on the last round and a change within tol since: they did not
-        # help (at a continuous top, D keeps its discretization error there), so they do not
-        # hold the solve up again
-        new_steps = _new_steps(grid, theta)
-        if change <= tol and gain <= tol and (not new_steps or tried):
-            converged = True
-            break
-        # Split any piece where adding a step at its midpoint would lower P (D < 0 there), and
-        # both pieces next to every interior jump of alpha, unless the jump can move: then its
-        # grid point goes toward where D is lowest (splitting alone can leave a jump stranded a
-        # fraction of a piece from its optimum, which L-BFGS-B then never shifts: measured for
-        # xi = 0.04 q + q^4, 3.8e-9 above the optimum while the value had stopped changing).
-        mids = 0.5 * (q[:-1] + q[1:])
-        flag = grid.directional(theta, mids, np.arange(grid.size)) < -_D_THRESHOLD
-        q, moving = _move_jumps(grid, theta, value, jumps, places, isolated & (s * gains > tol))
-        still = jumps[~moving]
-        flag[still - 1] = True
-        flag[still] = True
-        later = None
-        if s * zero_gain > tol:  # alpha should start inside the first piece: start it there
-            later = _start_later(_Grid(mixture, q, weight), theta, value, zero_place)
-            flag[0] = flag[0] and later is None
-        if later is not None:
-            new_steps = {}  # found again on the next grid, after alpha's start has moved
-        # only points actually put on the grid count as tried (_move_jumps leaves the pieces
-        # past alpha's last jump alone, so each point is still inside its piece)
-        tried = bool(new_steps)
-        for k in new_steps:  # split there at the lowest sample of D, not at the midpoint
-            flag[k] = False
-        if not np.any(flag) and not np.any(moving) and later is None and not new_steps:
-            flag[:] = True
-        if grid.size + int(flag.sum()) + (later is not None) + len(new_steps) > max_steps:
-            break
-        if later is not None:
-            q, theta = later
-            flag = np.concatenate(([False], flag))
-        q, theta = _split(q, theta, flag, new_steps)
+    resumed = 0  # times the rounds went on after _fresh_check
+    while True:
+        for _round in range(max_rounds - len(history)):
+            grid = _Grid(mixture, q, weight)
+            if explicit is not None:
+                known = explicit(q)
+                if (
+                    grid.value_and_gradient(known, False)[0]
+                    < grid.value_and_gradient(theta, False)[0]
+                ):
+                    theta = known
+            theta = _solve(grid, theta)
+            value, _ = grid.value_and_gradient(theta, False)
+            solved_grid, solved_theta = grid, theta
+            history.append((grid.size, s * value))
+            change = s * abs(previous - value)
+            previous = value
+            gain, jumps, places, gains, isolated, zero_gain, zero_place = _jump_gain(
+                grid, theta, tol / s
+            )
+            gain *= s
+            # past alpha's last jump, D is sampled densely: a new step of alpha may belong there.
+            # Grid points put there on the last round and a change within tol since: they did not
+            # help (at a continuous top, D keeps its discretization error there), so they do not
+            # hold the solve up again
+            new_steps = _new_steps(grid, theta)
+            if change <= tol and gain <= tol and (not new_steps or tried):
+                converged = True
+                break
+            # Split any piece where adding a step at its midpoint would lower P (D < 0 there), and
+            # both pieces next to every interior jump of alpha, unless the jump can move: then its
+            # grid point goes toward where D is lowest (splitting alone can leave a jump stranded a
+            # fraction of a piece from its optimum, which L-BFGS-B then never shifts: measured for
+            # xi = 0.04 q + q^4, 3.8e-9 above the optimum while the value had stopped changing).
+            mids = 0.5 * (q[:-1] + q[1:])
+            flag = grid.directional(theta, mids, np.arange(grid.size)) < -_D_THRESHOLD
+            q, moving = _move_jumps(grid, theta, value, jumps, places, isolated & (s * gains > tol))
+            still = jumps[~moving]
+            flag[still - 1] = True
+            flag[still] = True
+            later = None
+            if s * zero_gain > tol:  # alpha should start inside the first piece: start it there
+                later = _start_later(_Grid(mixture, q, weight), theta, value, zero_place)
+                flag[0] = flag[0] and later is None
+            if later is not None:
+                new_steps = {}  # found again on the next grid, after alpha's start has moved
+            # only points actually put on the grid count as tried (_move_jumps leaves the pieces
+            # past alpha's last jump alone, so each point is still inside its piece)
+            tried = bool(new_steps)
+            for k in new_steps:  # split there at the lowest sample of D, not at the midpoint
+                flag[k] = False
+            if not np.any(flag) and not np.any(moving) and later is None and not new_steps:
+                flag[:] = True
+            if grid.size + int(flag.sum()) + (later is not None) + len(new_steps) > max_steps:
+                break
+            if later is not None:
+                q, theta = later
+                flag = np.concatenate(([False], flag))
+            q, theta = _split(q, theta, flag, new_steps)
 
-    solved_theta, value = _tidy(solved_grid, solved_theta, value)
-    fitted = _few_jumps(solved_grid, solved_theta, value, tol / s)
-    if fitted[0] is not solved_grid:  # the fit won: check it as the rounds checked the grid
-        solved_grid, solved_theta, value, fit_gain = _confirm_fit(*fitted, tol / s)
-        converged = converged and bool(s * fit_gain <= tol)
-    else:  # the grid's solution stands: check that the rounds did not stall
-        solved_grid, solved_theta, value, fresh_change = _fresh_check(
-            mixture, weight, solved_grid, solved_theta, value, tol / s
-        )
-        if fresh_change is not None:
-            change = s * fresh_change
-            converged = converged and change <= tol
+        solved_theta, value = _tidy(solved_grid, solved_theta, value)
+        fitted = _few_jumps(solved_grid, solved_theta, value, tol / s)
+        if fitted[0] is not solved_grid:  # the fit won: check it as the rounds checked the grid
+            solved_grid, solved_theta, value, fit_gain = _confirm_fit(*fitted, tol / s)
+            converged = converged and bool(s * fit_gain <= tol)
+            break
+        if not converged or explicit is not None:
+            break
+        # the grid's solution stands and the rounds say converged: check that they did not
+        # stall (where the closed-form optimum starts every round they cannot, and it costs a
+        # solve of the whole grid)
+        solved_theta, value, gained = _fresh_check(solved_grid, solved_theta, value, tol / s)
+        if s * gained <= tol:
+            break
+        # they had: go on from the fresh start's solution with every piece split, which the
+        # next round solves warm and compares with it (within the same limits)
+        converged = False
+        change = s * gained
+        gain = s * _jump_gain(solved_grid, solved_theta, tol / s)[0]
+        if resumed == _MAX_RESUMES or len(history) >= max_rounds:
+            break
+        if 2 * solved_grid.size > max_steps:
+            break
+        resumed += 1
+        q, theta = _split(solved_grid.q, solved_theta, np.ones(solved_grid.size, dtype=bool))
+        previous = value
+        tried = False
     B = float(solved_theta[0]) / s
     d = solved_theta[1:]
     m = np.cumsum(d) / s
