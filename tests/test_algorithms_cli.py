@@ -360,6 +360,7 @@ def test_climb_names_a_point_that_is_not_critical_and_refuses_a_json_plan(tmp_pa
         (71.9 * 3600, "71.9 h"),
         (72 * 3600, "3 days"),
         (729 * 86400, "729 days"),
+        (729.7 * 86400, "2.0 years"),
         (731 * 86400, "2.0 years"),
         (1.077e12 * 3600, "1.2e+08 years"),
     ],

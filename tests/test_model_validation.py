@@ -475,6 +475,9 @@ def test_a_signal_handler_ends_a_long_coefficient_copy():
     [
         (0, "0 B"),
         (1023, "1023 B"),
+        (1023.6, "1.0 KiB"),
+        (float("nan"), "unknown"),
+        (float("inf"), "unknown"),
         (1536, "1.5 KiB"),
         (1024**3 * 1023.96, "1.0 TiB"),
         (3 * 1024**5, "3.0 PiB"),

@@ -26,7 +26,7 @@ def seconds_text(seconds: float) -> str:
     if seconds < 71.95 * 3600:
         return f"{seconds / 3600:.1f} h"
     days = seconds / 86400
-    if days < 730:
+    if days < 729.5:
         return f"{days:.0f} days"
     years = days / 365.25
     return f"{years:.1f} years" if years < 9999.5 else f"{years:.1e} years"

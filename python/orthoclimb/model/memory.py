@@ -99,12 +99,18 @@ def machine_available_memory() -> int:
 
 
 def format_bytes(nbytes: float) -> str:
-    """Human-readable size: '1.5 GiB'; past 1024 EiB in powers of ten: '5.2e+22 bytes'."""
+    """Human-readable size: '1.5 GiB'; past 1024 EiB in powers of ten: '5.2e+22 bytes';
+    'unknown' for NaN or infinity."""
     value = float(nbytes)
-    for unit in ("B", "KiB", "MiB", "GiB", "TiB", "PiB", "EiB"):
-        if abs(value) < 1023.95:
-            return f"{value:.0f} {unit}" if unit == "B" else f"{value:.1f} {unit}"
+    if not math.isfinite(value):
+        return "unknown"
+    # a unit holds what rounds to below 1024 of it: 1023.6 B is "1.0 KiB", not "1024 B"
+    if abs(value) < 1023.5:
+        return f"{value:.0f} B"
+    for unit in ("KiB", "MiB", "GiB", "TiB", "PiB", "EiB"):
         value /= 1024
+        if abs(value) < 1023.95:
+            return f"{value:.1f} {unit}"
     return f"{float(nbytes):.1e} bytes"
 
 
