@@ -659,8 +659,13 @@ fn kernel_path() -> &'static str {
 /// does not have, and its own first call waited on it forever (9 of 80 children forked during
 /// another thread's first call hung in one of rust-numpy's two).
 fn settle_lazy_state(py: Python<'_>) {
-    // the C API table, then the borrow checker's shared state (set up by the first borrow)
+    // the C API table, then the borrow checker's shared state (set up by the first borrow),
+    // and the NumPy version (read by the borrow key of 1-d arrays, but asked here by name)
     drop(PyArray1::<f64>::zeros(py, 0, false).readonly());
+    let _ = numpy::npyffi::is_numpy_2(py);
+    // pyo3's one-time check of the interpreter, made at the first attach from a detached
+    // thread (a call's first signal poll)
+    py.detach(|| Python::attach(|_| ()));
     let _ = crate::simd::segment_prefetch_level();
     let _ = crate::cache::last_level_bytes();
 }

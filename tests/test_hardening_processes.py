@@ -116,8 +116,13 @@ def test_a_child_forked_during_another_threads_first_call_does_not_hang():
             )
             for _ in range(2)
         ]
-        for proc in procs:
-            out, _ = proc.communicate(timeout=120)
-            assert proc.returncode == 0
-            hung += int(out.strip().splitlines()[-1])
+        try:
+            for proc in procs:
+                out, _ = proc.communicate(timeout=120)
+                assert proc.returncode == 0
+                hung += int(out.strip().splitlines()[-1])
+        finally:  # a timeout or a failed check leaves no interpreter behind
+            for proc in procs:
+                proc.kill()
+                proc.wait()
     assert hung == 0, f"{hung} of {trials} children forked during a first call hung"
