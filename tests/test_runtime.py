@@ -197,3 +197,16 @@ def test_results_and_rows_record_which_code_made_them(tmp_path):
     (tmp_path / "core.so").write_bytes(b"\0\1")
     (tmp_path / "a" / "m.py").rename(tmp_path / "a" / "n.py")  # the same bytes, another name
     assert tree_digest(tmp_path / "a", tmp_path / "core.so") != first
+
+
+def test_one_blas_thread_is_public_and_limits_blas_inside_its_block():
+    # a user trial lost 2x mixing NumPy products with kernel calls (OpenBLAS's threads spin
+    # after each call); the README points to this block, so it is part of the package's API
+    assert oc.one_blas_thread is oc.runtime.one_blas_thread
+    assert "one_blas_thread" in oc.__all__
+    before = _blas_threads()
+    if not before or max(before) < 2:
+        pytest.skip(f"BLAS runs on one thread here already ({before})")
+    with oc.one_blas_thread():
+        assert set(_blas_threads()) == {1}
+    assert _blas_threads() == before

@@ -23,7 +23,7 @@ from .model import (
     estimate_memory,
     load_instance,
 )
-from .runtime import get_num_threads, kernel_path, set_num_threads
+from .runtime import get_num_threads, kernel_path, one_blas_thread, set_num_threads
 from .theory import algorithmic_energy, full_rsb, ground_state, hessian_edge, path_energy
 
 __version__ = "0.2.0"
@@ -49,6 +49,7 @@ __all__ = [
     "langevin_anneal",
     "load_instance",
     "load_result",
+    "one_blas_thread",
     "path_energy",
     "polish",
     "reference",
