@@ -43,8 +43,12 @@ pub enum CoreError {
     InvalidThreads { detail: String },
     /// The caller asked the call to stop (see [`crate::exec::Exec::request_stop`]).
     Interrupted,
-    /// A kernel's result is not finite although its inputs were: float64 overflowed.
-    Overflow { what: &'static str },
+    /// A kernel's result is not finite although its inputs were: float64 overflowed (at
+    /// `point`, the first row of a batch whose results are not all finite).
+    Overflow {
+        what: &'static str,
+        point: Option<usize>,
+    },
     /// An input (a point, a direction, a given coefficient) holds a NaN or an infinity, or a
     /// finite value beyond the range of the storage type `dtype` it is rounded to.
     NonFiniteInput {
@@ -110,11 +114,17 @@ impl fmt::Display for CoreError {
             }
             CoreError::InvalidThreads { detail } => write!(f, "invalid thread setting: {detail}"),
             CoreError::Interrupted => write!(f, "the call was interrupted before it finished"),
-            CoreError::Overflow { what } => write!(
-                f,
-                "the {what} overflowed float64: the result is not finite although every input \
-                 is (points are meant to lie on the unit sphere |x| = 1; check the inputs' scale)"
-            ),
+            CoreError::Overflow { what, point } => {
+                write!(f, "the {what} overflowed float64")?;
+                if let Some(k) = point {
+                    write!(f, " at point {k} of the batch (row {k} of x)")?;
+                }
+                write!(
+                    f,
+                    ": the result is not finite although every input is (points are meant to \
+                     lie on the unit sphere |x| = 1; check the inputs' scale)"
+                )
+            }
             CoreError::NonFiniteInput {
                 what,
                 index,
@@ -198,7 +208,29 @@ pub fn finite<T: KernelResult>(what: &'static str, out: T) -> Result<T, CoreErro
     if out.all_finite() {
         Ok(out)
     } else {
-        Err(CoreError::Overflow { what })
+        Err(CoreError::Overflow { what, point: None })
+    }
+}
+
+/// [`finite`] for a batch's results, each a row-major block of `row_len` values per point
+/// (1 for energies, n for gradients): the error names the first point with a value that is
+/// not finite, so that a user can find the point whose scale overflowed.
+pub fn finite_rows(what: &'static str, blocks: &[(&[f64], usize)]) -> Result<(), CoreError> {
+    let point = blocks
+        .iter()
+        .filter_map(|(values, row_len)| {
+            values
+                .iter()
+                .position(|v| !v.is_finite())
+                .map(|i| i / row_len.max(&1))
+        })
+        .min();
+    match point {
+        None => Ok(()),
+        Some(k) => Err(CoreError::Overflow {
+            what,
+            point: Some(k),
+        }),
     }
 }
 
@@ -255,7 +287,10 @@ mod tests {
 
     #[test]
     fn finite_refuses_any_overflowed_value() {
-        let overflow = CoreError::Overflow { what: "Hessian" };
+        let overflow = CoreError::Overflow {
+            what: "Hessian",
+            point: None,
+        };
         assert_eq!(finite("Hessian", f64::INFINITY), Err(overflow.clone()));
         assert_eq!(
             finite("Hessian", vec![0.0, f64::NAN]),
@@ -272,7 +307,32 @@ mod tests {
             }
         }
         assert!(vec![f64::MAX; 67].all_finite());
-        let msg = CoreError::Overflow { what: "energy" }.to_string();
-        assert!(msg.starts_with("the energy overflowed float64"), "{msg}");
+        let msg = CoreError::Overflow {
+            what: "energy",
+            point: None,
+        }
+        .to_string();
+        assert!(msg.starts_with("the energy overflowed float64:"), "{msg}");
+    }
+
+    #[test]
+    fn finite_rows_names_the_first_point_with_an_overflow() {
+        let e = [1.0, 2.0, f64::INFINITY];
+        let g = [0.0, 0.0, 0.0, f64::NAN, 1.0, 1.0];
+        assert_eq!(
+            finite_rows("gradient", &[(&e[..2], 1), (&g[..3], 3)]),
+            Ok(())
+        );
+        let err = finite_rows("gradient", &[(&e, 1), (&g, 3)]).unwrap_err();
+        assert_eq!(
+            err,
+            CoreError::Overflow {
+                what: "gradient",
+                point: Some(1)
+            }
+        );
+        assert!(err
+            .to_string()
+            .contains("at point 1 of the batch (row 1 of x)"));
     }
 }

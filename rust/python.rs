@@ -22,7 +22,7 @@ use pyo3::types::PyType;
 
 use crate::batch;
 use crate::combinatorics::{advance, num_multisets};
-use crate::error::{finite, CoreError, KernelResult};
+use crate::error::{finite, finite_rows, CoreError, KernelResult};
 use crate::exec::Exec;
 use crate::kernels;
 use crate::sampling::Disorder;
@@ -516,12 +516,10 @@ impl PyPacked {
     ) -> PyResult<Bound<'py, PyArray1<f64>>> {
         let b = xs.shape()[0];
         let xs = &input2(py, &xs, "x", 1, self.n())?;
-        let e = run_kernel(
-            py,
-            "energy",
-            self.work(8 + b),
-            |pool| on_storage!(&self.inner, p => batch::energy_batch(pool, p, xs, b)),
-        )?;
+        let e = run(py, "energy", self.work(8 + b), |pool| {
+            let e = on_storage!(&self.inner, p => batch::energy_batch(pool, p, xs, b))?;
+            finite_rows("energy", &[(&e, 1)]).map(|()| e)
+        })?;
         Ok(e.into_pyarray(py))
     }
 
@@ -533,12 +531,11 @@ impl PyPacked {
     ) -> PyResult<EnergiesGradients<'py>> {
         let shape = [xs.shape()[0], xs.shape()[1]];
         let xs = &input2(py, &xs, "x", 1, self.n())?;
-        let (e, g) = run_kernel(
-            py,
-            "gradient",
-            self.work(8 + 2 * shape[0]),
-            |pool| on_storage!(&self.inner, p => batch::energy_gradient_batch(pool, p, xs, shape[0])),
-        )?;
+        let (e, g) = run(py, "gradient", self.work(8 + 2 * shape[0]), |pool| {
+            let (e, g) = on_storage!(&self.inner, p =>
+                batch::energy_gradient_batch(pool, p, xs, shape[0]))?;
+            finite_rows("gradient", &[(&e, 1), (&g, shape[1])]).map(|()| (e, g))
+        })?;
         Ok((e.into_pyarray(py), g.into_pyarray(py).reshape(shape)?))
     }
 

@@ -212,8 +212,10 @@ def test_overflowed_results_raise_instead_of_returning_nan(ham):
     for call in (ham.energy, ham.gradient, ham.energy_and_gradient):
         with pytest.raises(NonFiniteError, match="overflowed float64"):
             call(x)
-        with pytest.raises(NonFiniteError, match="overflowed float64"):
-            call(np.stack([np.ones(N), x, np.ones(N)]))  # one bad point spoils the batch call
+        # one bad point spoils the batch call, and the error names it (a user trial could not
+        # tell which of its points had overflowed)
+        with pytest.raises(NonFiniteError, match=r"overflowed float64 at point 1 of the batch"):
+            call(np.stack([np.ones(N), x, np.ones(N)]))
     with pytest.raises(NonFiniteError, match="Hessian overflowed"):
         ham.hessian(np.full(N, 1e308))
     with pytest.raises(NonFiniteError, match="Hessian-vector product overflowed"):
