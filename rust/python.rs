@@ -650,11 +650,12 @@ fn kernel_path() -> &'static str {
 }
 
 /// Sets up now, on the importing thread, everything a first call would set up lazily: NumPy's C
-/// API table and rust-numpy's borrow-checking state (each fetched on first use), the
-/// processor's prefetch level and the cache size. A process forked while another thread was
-/// inside such a set-up inherited it half done, marked as in progress by a thread the child
-/// does not have, and its own first call waited on it forever (9 of 80 children forked during
-/// another thread's first call hung in one of rust-numpy's two).
+/// API table, rust-numpy's borrow-checking state and its record of NumPy's version (each
+/// fetched on first use), PyO3's one-time check of the interpreter, the processor's prefetch
+/// level and the cache size. A process forked while another thread was inside such a set-up
+/// inherited it half done, marked as in progress by a thread the child does not have, and its
+/// own first call waited on it forever (9 of 80 children forked during another thread's first
+/// call hung in one of rust-numpy's).
 fn settle_lazy_state(py: Python<'_>) {
     // the C API table, then the borrow checker's shared state (set up by the first borrow),
     // and the NumPy version (read by the borrow key of 1-d arrays, but asked here by name)
