@@ -47,6 +47,16 @@ def test_quick_start_runs_and_its_quoted_numbers_hold(tmp_path, monkeypatch):
     same = scope["same"]
     x = scope["x"]
     assert same.energy(x) == ham.energy(x)  # "checked on load" and regenerated bit for bit
+    assert abs(scope["top"][0] / ham.n - 3.3) < 0.05  # "about 3.3"
+
+
+def test_ci_runs_the_readme_test_command_as_written():
+    # the README's second command is what a fresh machine's CI runs, so the README stays true
+    text = README.read_text(encoding="utf-8")
+    second = re.search(r"```bash\n[^\n]*\n([^#\n]*?)\s*#", text).group(1).strip()
+    assert second.endswith("pytest -q") and "'.[test]'" in second
+    ci = (README.parent / ".ci" / "run").read_text(encoding="utf-8").splitlines()
+    assert second in ci, f"{second!r} is not a line of .ci/run"
 
 
 def _commands() -> list[list[str]]:

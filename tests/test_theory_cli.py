@@ -64,7 +64,7 @@ def test_field_reports_q_hat(capsys):
 def test_table(capsys):
     assert main(["theory", "--gammas", "3:1"]) == 0
     text = capsys.readouterr().out
-    for label in ("xi(q) = q^3", "full RSB", "ALG", "GS (Parisi)", "GS - ALG", "threshold E_inf"):
+    for label in ("xi(q) = q^3", "full RSB", "ALG", "GS (Parisi)", "GS - ALG", "threshold E_thr"):
         assert label in text
     assert "1RSB GS" in text and "(complexity zero)" in text and "Parisi B" in text
     assert "the solver's error" not in text
@@ -74,7 +74,7 @@ def test_table(capsys):
     assert "alpha with 1 nonzero level;" in text and "GS - 1RSB GS     0 (to rounding)" in text
     assert main(["theory", "--xi", "2:1,4:0.05"]) == 0
     text = capsys.readouterr().out
-    assert "holds" in text and "E_inf" not in text
+    assert "holds" in text and "E_thr" not in text
     # under full RSB GS = ALG (Subag 2018), so what the table shows as GS - ALG is the
     # solver's error, and it says so (a trial read 3.4e-10 as a gap); where a gap is
     # predicted (pure 3-spin above) no such words

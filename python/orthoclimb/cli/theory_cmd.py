@@ -2,7 +2,7 @@
 
 Prints xi, the full-RSB verdict (with the intervals where xi''^(-1/2) is not concave), ALG (and
 q_hat with a field), the Parisi ground state GS, the gap GS - ALG, and for pure models with p >= 3
-the threshold energy E_inf and the zero of the complexity. ``--json`` prints the same as JSON;
+the threshold energy E_thr and the zero of the complexity. ``--json`` prints the same as JSON;
 ``--plot FILE.png`` draws xi''^(-1/2), the predicted path curve and the Parisi alpha.
 All energies are per spin, maximization convention.
 """
@@ -150,7 +150,9 @@ def _table(report: dict[str, Any]) -> str:
     rows.append(("Parisi B", f"{gs['B']:.4g}   (the minimizer: fewer correct digits than GS)"))
     pure = report["pure"]
     if pure is not None:
-        rows.append(("threshold E_inf", _energy(pure["threshold_energy"])))
+        # E_thr, not E_inf: the reports' e_inf is the extrapolated n -> infinity limit (a user
+        # trial read one for the other)
+        rows.append(("threshold E_thr", _energy(pure["threshold_energy"])))
         rows.append(("1RSB GS", _energy(pure["complexity_ground_state"]) + "   (complexity zero)"))
         rows.append(("GS - 1RSB GS", _difference(pure["parisi_minus_complexity"], scale)))
     width = max(len(k) for k, _ in rows)

@@ -45,7 +45,9 @@ def _check_p(p: Any, where: str) -> int:
 
 def threshold_energy(p: int) -> float:
     """E_inf = 2 sqrt((p - 1) / p): energy per spin where the pure p-spin landscape's local maxima
-    concentrate (Auffinger, Ben Arous and Cerny 2013); equals ALG for the pure model."""
+    concentrate (Auffinger, Ben Arous and Cerny 2013); equals ALG for the pure model. `orthoclimb
+    theory` prints it as E_thr, apart from the reports' e_inf (the extrapolated n -> infinity
+    limit of a method's energies)."""
     p = _check_p(p, "threshold_energy")
     return 2.0 * math.sqrt((p - 1) / p)
 
