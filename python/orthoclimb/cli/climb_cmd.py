@@ -1,7 +1,7 @@
 """``orthoclimb climb``: run one algorithm on one sampled instance and compare with the theory.
 
-Before sampling it prints the memory the instance needs and, for an instance above 256 MB, how
-long sampling will take (timed on an instance of at most 64 MB and scaled by the number of
+Before sampling it prints the memory the instance needs and, for an instance above 256 MiB, how
+long sampling will take (timed on an instance of at most 64 MiB and scaled by the number of
 coefficients); after sampling it times the kernel passes on the instance and prints an estimate
 of the run time (the model of :mod:`orthoclimb.studies.estimate`: steps x a pass, the polish's
 passes, and for gradient ascent its typical iteration count, with the time at its cap). On a
@@ -119,7 +119,7 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
         "--plan-only",
         action="store_true",
         help="print the memory and the sampling and run times, estimated on an instance of at"
-        " most 64 MB (the only one sampled), then stop; nothing is written",
+        " most 64 MiB (the only one sampled), then stop; nothing is written",
     )
 
 
@@ -139,7 +139,7 @@ def _time_pass(ham: Hamiltonian, method: str) -> float:
 
 
 def _probe(mixture: Mixture, n: int, dtype: str) -> tuple[Hamiltonian, float]:
-    """An instance of the mixture with at most 64 MB of coefficients (the largest n' <= n that
+    """An instance of the mixture with at most 64 MiB of coefficients (the largest n' <= n that
     fits, at least 2) and the seconds its sampling took."""
     n0 = max(2, largest_size_within(mixture, n, _SAMPLING_PROBE, dtype))
     started = time.perf_counter()
@@ -148,8 +148,8 @@ def _probe(mixture: Mixture, n: int, dtype: str) -> tuple[Hamiltonian, float]:
 
 
 def _sampling_estimate(mixture: Mixture, n: int, dtype: str, need: int) -> str | None:
-    """How long sampling ``n`` spins will take, for an instance above 256 MB: an instance of
-    at most 64 MB is sampled and timed (:func:`_probe`), and the time scaled by the bytes
+    """How long sampling ``n`` spins will take, for an instance above 256 MiB: an instance of
+    at most 64 MiB is sampled and timed (:func:`_probe`), and the time scaled by the bytes
     (one Gaussian per coefficient). None for smaller instances, which sample in well under a
     second."""
     if need <= _SAMPLING_TIMED_ABOVE:
