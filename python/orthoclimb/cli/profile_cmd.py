@@ -78,7 +78,8 @@ def run(args: argparse.Namespace) -> int:
         f" holds {most:,} coefficients, {format_bytes(need)}, and its Hessian takes"
         f" {format_bytes(workspace)} more, of {format_bytes(available_memory())} available;"
         " each size is sampled once and each"
-        f" kernel timed {args.repeats} time(s). Time grows like the coefficient count: the"
+        f" kernel timed {args.repeats} time{'' if args.repeats == 1 else 's'}. Time grows like"
+        " the coefficient count: the"
         f" largest size has {growth:.3g} times the smallest's; an estimate for each next size"
         " follows the one before."
     )

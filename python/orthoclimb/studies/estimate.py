@@ -297,7 +297,7 @@ def mixed_k_text(k_at: dict[int, int], e_k) -> str | None:
     return (
         "K differs across the sizes (" + "; ".join(parts) + "), so one finite-size law over"
         f" these sizes mixes a fixed shortfall with a vanishing one: sizes {' and '.join(advice)}"
-        " keep K = n/8, and a fixed steps compares all sizes at one K"
+        " keep K = n/8, and a fixed step count (steps = K) compares all sizes at one K"
     )
 
 
