@@ -263,7 +263,7 @@ def _run_on(task: Task, ham, seconds_sample: float, shared: int, keep_point: boo
         "gap_gs": energy - gs,
         "local_max": None if local_max is None else bool(local_max),
         "grad_norm": float(res.info.get("grad_norm", math.nan)),
-        # the largest tangent Hessian eigenvalue at the end point, per spin (the local-maximum
+        # the largest Riemannian Hessian eigenvalue at the end point, per spin (the local-maximum
         # check's; NaN for a run without one: Hessian ascent or anneal with --no-polish)
         "top_eigenvalue": float(res.info.get("top_eigenvalue", math.nan)),
         "seconds_sample": seconds_sample,

@@ -417,13 +417,13 @@ def _ground_state(
         if s * gained <= tol:
             break
         # they had: go on from the fresh start's solution with every piece split, which the
-        # next round solves warm and compares with it (within the same limits)
+        # next round solves warm and compares with it (within the same limits); where they
+        # cannot, the result is the fresh solution's, not converged
         converged = False
-        change = s * gained
-        gain = s * _jump_gain(solved_grid, solved_theta, tol / s)[0]
-        if resumed == _MAX_RESUMES or len(history) >= max_rounds:
-            break
-        if 2 * solved_grid.size > max_steps:
+        limits = resumed == _MAX_RESUMES or len(history) >= max_rounds
+        if limits or 2 * solved_grid.size > max_steps:
+            change = s * gained
+            gain = s * _jump_gain(solved_grid, solved_theta, tol / s)[0]
             break
         resumed += 1
         q, theta = _split(solved_grid.q, solved_theta, np.ones(solved_grid.size, dtype=bool))
