@@ -3,7 +3,7 @@ imports: the command line's entry module imports this)."""
 
 from __future__ import annotations
 
-__all__ = ["seconds_text"]
+__all__ = ["format_bytes", "seconds_text"]
 
 
 def seconds_text(seconds: float) -> str:
@@ -30,3 +30,21 @@ def seconds_text(seconds: float) -> str:
         return f"{days:.0f} days"
     years = days / 365.25
     return f"{years:.1f} years" if years < 9999.5 else f"{years:.1e} years"
+
+
+def format_bytes(nbytes: float) -> str:
+    """Human-readable size: '1.5 GiB'; past 1024 EiB in powers of ten: '5.2e+22 bytes';
+    'unknown' for NaN or infinity."""
+    import math
+
+    value = float(nbytes)
+    if not math.isfinite(value):
+        return "unknown"
+    # a unit holds what rounds to below 1024 of it: 1023.6 B is "1.0 KiB", not "1024 B"
+    if abs(value) < 1023.5:
+        return f"{value:.0f} B"
+    for unit in ("KiB", "MiB", "GiB", "TiB", "PiB", "EiB"):
+        value /= 1024
+        if abs(value) < 1023.95:
+            return f"{value:.1f} {unit}"
+    return f"{float(nbytes):.1e} bytes"

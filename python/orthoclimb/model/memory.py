@@ -13,6 +13,7 @@ from collections.abc import Iterable
 
 import numpy as np
 
+from .._text import format_bytes
 from ..errors import InsufficientMemoryError
 from .cgroup_memory import cgroup_headroom
 from .mixture import Mixture
@@ -96,22 +97,6 @@ def machine_available_memory() -> int:
         return os.sysconf("SC_AVPHYS_PAGES") * os.sysconf("SC_PAGE_SIZE")
     except (ValueError, OSError, AttributeError):  # pragma: no cover - non-POSIX
         return 2**63 - 1
-
-
-def format_bytes(nbytes: float) -> str:
-    """Human-readable size: '1.5 GiB'; past 1024 EiB in powers of ten: '5.2e+22 bytes';
-    'unknown' for NaN or infinity."""
-    value = float(nbytes)
-    if not math.isfinite(value):
-        return "unknown"
-    # a unit holds what rounds to below 1024 of it: 1023.6 B is "1.0 KiB", not "1024 B"
-    if abs(value) < 1023.5:
-        return f"{value:.0f} B"
-    for unit in ("KiB", "MiB", "GiB", "TiB", "PiB", "EiB"):
-        value /= 1024
-        if abs(value) < 1023.95:
-            return f"{value:.1f} {unit}"
-    return f"{float(nbytes):.1e} bytes"
 
 
 def require_memory(
