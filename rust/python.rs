@@ -616,10 +616,12 @@ fn multiset_table<'py>(py: Python<'py>, n: usize, p: usize) -> PyResult<Bound<'p
     table.into_pyarray(py).reshape([count, p])
 }
 
-/// Number of n x n accumulators a Hessian pass of this polynomial uses (fixed by the instance).
+/// Number of work items, each with its own accumulator of `acc_len` numbers, of a pass over
+/// `num_coefficients` coefficients (fixed by the instance; n * n for a Hessian, n * k for k
+/// Hessian-vector products).
 #[pyfunction]
-fn hessian_groups(num_coefficients: usize, n: usize) -> usize {
-    kernels::pieces(num_coefficients, n.saturating_mul(n))
+fn pass_pieces(num_coefficients: usize, acc_len: usize) -> usize {
+    kernels::pieces(num_coefficients, acc_len)
 }
 
 /// Sets the number of threads of the shared pool.
@@ -680,7 +682,7 @@ fn _core(m: &Bound<'_, PyModule>) -> PyResult<()> {
     m.add_class::<PyPacked>()?;
     m.add_function(wrap_pyfunction!(storage_nbytes, m)?)?;
     m.add_function(wrap_pyfunction!(multiset_table, m)?)?;
-    m.add_function(wrap_pyfunction!(hessian_groups, m)?)?;
+    m.add_function(wrap_pyfunction!(pass_pieces, m)?)?;
     m.add_function(wrap_pyfunction!(set_num_threads, m)?)?;
     m.add_function(wrap_pyfunction!(get_num_threads, m)?)?;
     m.add_function(wrap_pyfunction!(_set_inline_passes, m)?)?;

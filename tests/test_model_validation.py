@@ -264,6 +264,28 @@ def test_a_hessian_workspace_beyond_the_available_memory_is_refused(monkeypatch)
     assert small.hessian(np.full(30, 30**-0.5)).shape == (30, 30)
 
 
+def test_many_directions_beyond_the_available_memory_are_refused_before_the_pass(monkeypatch):
+    # pure p = 2 at n = 2100 takes the multi-direction pass (its Hessian's workspace is over
+    # 64 MiB); 1000 directions need the core's copy and transpose of them, one accumulator
+    # and the result: 4 * 2100 * 1000 * 8 = 67.2 MB, checked from 64 MiB on. A user trial
+    # saw such a call under ulimit -v fail its allocation after 8.4 s of work instead.
+    from orthoclimb.model import memory
+
+    ham = oc.Hamiltonian.sample(oc.Mixture({2: 1.0}), 2100, seed=0)
+    x, v = np.full(2100, 2100**-0.5), np.ones((2100, 1000))
+    monkeypatch.setattr(memory, "available_memory", lambda: 10**6)
+    with pytest.raises(
+        InsufficientMemoryError, match="1000 directions at n = 2100 needs 67200000 bytes"
+    ):
+        ham.hvp(x, v)
+    with pytest.raises(TypeError, match="check_memory must be True or False, got 1"):
+        ham.hvp(x, v, check_memory=1)
+    # 30 directions (1.5 MB) are not checked at all
+    monkeypatch.setattr(memory, "available_memory", lambda: 0)
+    w = ham.hvp(x, v[:, :30])
+    np.testing.assert_allclose(w[:, 7], ham.hvp(x, v[:, 7]), rtol=1e-12, atol=1e-12)
+
+
 def test_numpy_integers_are_integers_for_coefficient_ranges(ham):
     # a range computed with NumPy (np.int64, np.int32) reads the same slice as Python ints;
     # a text byte limit is refused by name (before: a bare comparison TypeError)

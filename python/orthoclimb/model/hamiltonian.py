@@ -29,6 +29,7 @@ from .memory import (
     coefficient_count,
     estimate_memory,
     hessian_workspace_bytes,
+    hvp_workspace_bytes,
     normalize_dtype,
     require_memory,
 )
@@ -319,7 +320,7 @@ class Hamiltonian:
             )
         return self._core.hessian(pt)
 
-    def hvp(self, x: Any, v: Any) -> np.ndarray:
+    def hvp(self, x: Any, v: Any, *, check_memory: bool = True) -> np.ndarray:
         """Hess H(x) v for v of shape (n,) or (n, k) (k directions in one pass).
 
         Several directions take the route that was fastest in measurement:
@@ -337,18 +338,25 @@ class Hamiltonian:
         route, whose last bits differ. One direction in a 2-D array goes through the 1-D
         kernel. Four directions, two threads, medians, multi-direction pass against Hessian:
         p = 3, n = 200, 1.89 and 0.38 ms; p = 4, n = 120, 22.7 and 4.6 ms; p = 4, n = 360,
-        807 and 216 ms (one direction alone: 192 ms); but p = 2, n = 1800, 7.6 and 28.7 ms."""
+        807 and 216 ms (one direction alone: 192 ms); but p = 2, n = 1800, 7.6 and 28.7 ms.
+
+        The multi-direction pass holds (items + 3) n k numbers (the directions copied and
+        transposed, one accumulator per work item, 1 to 64 by the instance and k, and the
+        result); from 64 MiB on that is checked against the available memory first and
+        refused with :class:`~orthoclimb.errors.InsufficientMemoryError` (``check_memory=False``
+        skips the check, here and for the Hessian)."""
         pt = as_point(x, self.n)
         dirs = as_directions(v, self.n)
+        check_memory = as_flag(check_memory, "check_memory")
         if dirs.ndim == 1:
             return self._core.hvp(pt, dirs)
         if dirs.shape[1] == 1:
             return self._core.hvp(pt, np.ascontiguousarray(dirs[:, 0]))[:, None]
         if self._hessian_route(dirs.shape[1]):
             try:
-                hess = self.hessian(pt)
+                hess = self.hessian(pt, check_memory=check_memory)
             except InsufficientMemoryError:
-                return self._core.hvp_many(pt, dirs)
+                return self._hvp_many(pt, dirs, check_memory)
             with np.errstate(over="ignore", invalid="ignore"):  # refused just below instead
                 out = hess @ dirs
             if not np.isfinite(out).all():  # as the kernels do: never a silent infinity
@@ -358,6 +366,17 @@ class Hamiltonian:
                     " |x| = 1; check the inputs' scale)"
                 )
             return out
+        return self._hvp_many(pt, dirs, check_memory)
+
+    def _hvp_many(self, pt: np.ndarray, dirs: np.ndarray, check_memory: bool) -> np.ndarray:
+        """The multi-direction HVP pass, its memory checked first (see :meth:`hvp`)."""
+        need = hvp_workspace_bytes(self.num_coefficients, self.n, dirs.shape[1])
+        if check_memory and need >= _CHECKED_WORKSPACE:
+            require_memory(
+                need,
+                f"Hessian-vector products in {dirs.shape[1]} directions at n = {self.n}",
+                "Hamiltonian.hvp(x, v, check_memory=False) skips this check",
+            )
         return self._core.hvp_many(pt, dirs)
 
     def _hessian_route(self, k: int) -> bool:

@@ -17,6 +17,7 @@ from .._text import format_bytes
 from ..errors import InsufficientMemoryError
 from .cgroup_memory import cgroup_headroom
 from .mixture import Mixture
+from .process_limits import address_space_headroom
 
 DTYPES = {"float64": 8, "float32": 4}
 
@@ -49,8 +50,20 @@ def hessian_workspace_bytes(num_coefficients: int, n: int) -> int:
     from .. import _core
 
     top = 2**63 - 1  # the core counts in 64 bits; so many coefficients never fit anyway
-    groups = int(_core.hessian_groups(min(num_coefficients, top), min(n, top)))
+    groups = int(_core.pass_pieces(min(num_coefficients, top), min(n * n, top)))
     return (groups + 1) * n * n * 8
+
+
+def hvp_workspace_bytes(num_coefficients: int, n: int, k: int) -> int:
+    """Peak bytes a pass of Hessian-vector products in k directions allocates beside the
+    coefficients and the caller's directions: the core's copy of the directions and their
+    transpose, one n x k accumulator per work item (a number fixed by the instance and k, 1 to
+    64) and the result, 8 bytes per entry."""
+    from .. import _core
+
+    top = 2**63 - 1
+    items = int(_core.pass_pieces(min(num_coefficients, top), min(n * k, top)))
+    return (items + 3) * n * k * 8
 
 
 def hessian_workspace_estimate(mixture: Mixture, n: int) -> int:
@@ -77,11 +90,11 @@ def check_size(n: object) -> int:
 
 def available_memory() -> int:
     """Bytes available for new allocations: what the kernel reports for the machine
-    (MemAvailable on Linux), or the headroom under this process's cgroup memory limit when
-    that is smaller (a batch job's or container's limit; see ``cgroup_memory``)."""
-    machine = machine_available_memory()
-    room = cgroup_headroom()
-    return machine if room is None else min(machine, room)
+    (MemAvailable on Linux), or less where a limit allows less: the headroom under this
+    process's cgroup memory limit (a batch job's or container's limit; see ``cgroup_memory``)
+    and under its address-space and data limits (``ulimit -v``; see ``process_limits``)."""
+    rooms = [machine_available_memory(), cgroup_headroom(), address_space_headroom()]
+    return min(room for room in rooms if room is not None)
 
 
 def machine_available_memory() -> int:
@@ -108,5 +121,17 @@ def require_memory(
     if needed > have:
         raise InsufficientMemoryError(
             f"{what} needs {needed} bytes ({format_bytes(needed)}) but only {have} bytes "
-            f"({format_bytes(have)}) are available ({skip})"
+            f"({format_bytes(have)}) are available{binding_limit(have)} ({skip})"
         )
+
+
+def binding_limit(have: int) -> str:
+    """Which limit leaves only ``have`` bytes, as words for a message (" under this job's
+    cgroup memory limit"), or "" when it is the machine's own memory."""
+    room = address_space_headroom()
+    if room is not None and room <= have:
+        return " under this process's address-space or data limit (ulimit -v or -d)"
+    room = cgroup_headroom()
+    if room is not None and room <= have:
+        return " under this job's cgroup memory limit"
+    return ""

@@ -301,7 +301,7 @@ def _check_largest_fits(spec: StudySpec, tasks: list[Task]) -> None:
     cluster started (an external cluster's machines may be larger: not checked)."""
     from ..errors import InsufficientMemoryError
     from ..model import available_memory
-    from ..model.memory import format_bytes
+    from ..model.memory import binding_limit, format_bytes
     from .estimate import largest_instance
 
     need, name, n = largest_instance(spec, tasks)
@@ -310,7 +310,8 @@ def _check_largest_fits(spec: StudySpec, tasks: list[Task]) -> None:
         raise InsufficientMemoryError(
             f"the study's largest instance ({name}, n = {n}) needs {need} bytes"
             f" ({format_bytes(need)}) of coefficients, but only {have} bytes"
-            f" ({format_bytes(have)}) are available on this machine; drop that size, or run"
+            f" ({format_bytes(have)}) are available on this machine{binding_limit(have)};"
+            " drop that size, or run"
             " the study on a larger machine (--scheduler; scheduler= in Python)"
         )
 
