@@ -2,6 +2,8 @@
 
 from __future__ import annotations
 
+import re
+
 import numpy as np
 import pytest
 import scipy.linalg
@@ -287,18 +289,61 @@ def test_langevin_noise_diffuses_at_the_stated_temperature():
     assert abs(mean - expected) <= 4.0 * se, (mean, se, expected)
 
 
-@pytest.mark.parametrize(("eta", "t_start"), [(1e300, 1e300), (1e300, 1.0)])
+@pytest.mark.parametrize(("eta", "t_start"), [(1e300, 1e300), (1e308, 1.0)])
 def test_absurd_langevin_options_are_named_when_the_step_overflows(eta, t_start, recwarn):
     # a study with eta = 1e300 failed every task with NumPy overflow warnings and
     # "NonFiniteError: x holds a non-finite value nan" (user review); the error now names
-    # the step, eta and the temperature, and NumPy stays silent
+    # the step, eta and the temperature, and NumPy stays silent. (A step of 1e300 times the
+    # gradient alone no longer overflows: its norm is taken scaled, and the retraction is
+    # then a normalized gradient step; 2 eta T overflows here.)
     ham = oc.Hamiltonian.sample(oc.Mixture({3: 1.0}), 20, seed=1)
     schedule = geometric_schedule(t_start, t_start / 10, 3)
-    with pytest.raises(ValueError, match=r"step 0 overflowed .*eta = 1e\+300"):
+    with pytest.raises(ValueError, match=rf"step 0 overflowed .*eta = {re.escape(repr(eta))}"):
         oc.langevin_anneal(ham, eta=eta, schedule=schedule)
-    ours = "langevin_anneal: eta = 1e+300 is large"  # the step-size warning, before the run
+    ours = f"langevin_anneal: eta = {eta:g} is large"  # the step-size warning, before the run
     numpy_warnings = [w for w in recwarn if not str(w.message).startswith(ours)]
     assert not [w for w in numpy_warnings if issubclass(w.category, RuntimeWarning)]
+
+
+def test_given_coefficients_far_from_unit_scale_warn_too(recwarn):
+    # a user trial: from_coefficients at 1e-100 "converged" at its random start, silently
+    # (only sampled instances, which carry a mixture, were checked). The scale of given
+    # coefficients is sqrt(sum_p sum_m a_m^2 / n^(p+1)), an unbiased estimate of xi(1)'s root
+    # for sampled ones since the multinomial counts of the degree-p monomials add up to n^p
+    # (multinomial theorem)
+    from orthoclimb.algorithms._checks import coefficient_scale
+
+    mixture = oc.Mixture({2: 1.0, 4: 0.25})
+    sampled = oc.Hamiltonian.sample(mixture, 200, seed=1)
+    given = oc.Hamiltonian.from_coefficients(200, {p: sampled.coefficients(p) for p in (2, 4)})
+    assert np.exp(coefficient_scale(given)) == pytest.approx(np.sqrt(mixture.xi(1.0)), rel=0.01)
+    oc.gradient_ascent(given, max_iter=5)
+    assert not [w for w in recwarn if "far from 1" in str(w.message)]
+    # 9.96e-101: the degree-2 part alone, whose gamma = 1 this sample estimates as 0.996
+    tiny = oc.Hamiltonian.from_coefficients(200, {2: sampled.coefficients(2) * 1e-100})
+    with pytest.warns(RuntimeWarning, match=r"energy scale 9.96e-101 \(sqrt\(sum_p sum_m a_m"):
+        oc.gradient_ascent(tiny, max_iter=5)
+    huge = oc.Hamiltonian.from_coefficients(200, {2: sampled.coefficients(2) * 1e300})
+    with pytest.warns(RuntimeWarning, match=r"energy scale 9.96e\+299 \(sqrt"):
+        oc.hessian_ascent(huge, steps=3)
+
+
+def test_hessian_ascent_at_1e300_reports_finite_norms_without_numpy_warnings():
+    # a user trial: at coefficients of 1e300 the energy was right but grad_norm came back as
+    # inf, with hundreds of NumPy overflow warnings (|v| summed squares past float64's
+    # range); norms are now taken scaled, so every number is the unit-scale run's times 1e300
+    import warnings
+
+    coeffs = np.random.default_rng(0).standard_normal(1540)
+    unit = oc.hessian_ascent(oc.Hamiltonian.from_coefficients(20, {3: coeffs}))
+    big = oc.Hamiltonian.from_coefficients(20, {3: coeffs * 1e300})
+    with warnings.catch_warnings(record=True) as caught:
+        warnings.simplefilter("always")
+        res = oc.hessian_ascent(big)
+    assert [str(w.message) for w in caught if "far from 1" not in str(w.message)] == []
+    assert res.energy / 1e300 == pytest.approx(unit.energy, rel=1e-12)
+    assert np.isfinite(res.info["grad_norm"]) and res.info["local_max"] is True
+    assert res.info["grad_norm"] / 1e300 <= 1e-7  # converged, as at unit scale
 
 
 def test_a_point_stopped_on_a_slope_is_no_local_maximum():

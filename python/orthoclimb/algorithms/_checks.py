@@ -5,6 +5,7 @@ from __future__ import annotations
 
 import math
 import warnings
+import weakref
 from typing import Any
 
 import numpy as np
@@ -13,6 +14,7 @@ from ..errors import ShapeError
 from ..model import memory
 from ..model.arrays import as_flag, as_float_array
 from ..model.hamiltonian import Hamiltonian, _check_seed
+from ._sphere import norm
 
 __all__ = [
     "dense_work_fits",
@@ -22,6 +24,7 @@ __all__ = [
     "check_positive",
     "check_seed",
     "check_unit_start",
+    "coefficient_scale",
     "warn_if_far_scale",
 ]
 
@@ -69,22 +72,69 @@ FAR_SCALE = 1e4  # sqrt(xi(1)) beyond [1/FAR_SCALE, FAR_SCALE]: absolute toleran
 
 
 def warn_if_far_scale(ham: Hamiltonian, where: str) -> None:
-    """Warn when the mixture's energy scale sqrt(xi(1)) is far from 1: the optimizers'
-    tolerances (gtol, tol, temperatures, step bounds) are absolute, in energy per spin, so at
-    gamma ~ 1e-20 a random start already "converges". Energies scale as sqrt(xi(1)): rescale
-    the mixture instead. (Given coefficients carry no mixture and are not checked.)"""
+    """Warn when the instance's energy scale is far from 1: the optimizers' tolerances (gtol,
+    tol, temperatures, step bounds) are absolute, in energy per spin, so at gamma ~ 1e-20 a
+    random start already "converges", and at 1e20 the steps stall. The scale is sqrt(xi(1))
+    for a sampled instance; for given coefficients, the estimate of it that
+    :func:`coefficient_scale` reads off them. Energies scale with it: rescale instead."""
     mixture = ham.mixture
-    if mixture is None:
-        return
-    s = math.sqrt(float(mixture.xi(1.0)))
-    if not 1.0 / FAR_SCALE <= s <= FAR_SCALE:
+    if mixture is not None:
+        xi1 = float(mixture.xi(1.0))
+        log_scale = 0.5 * math.log(xi1) if xi1 > 0 else -math.inf
+        what = f"sqrt(xi(1)) = {_scale_text(log_scale)}"
+        fix = "rescale the mixture so that xi(1) is of order one"
+    else:
+        log_scale = coefficient_scale(ham)
+        what = (
+            f"{_scale_text(log_scale)} (sqrt(sum_p sum_m a_m^2 / n^(p+1)) of the given"
+            " coefficients, an estimate of sqrt(xi(1)))"
+        )
+        fix = "rescale the coefficients so that it is of order one"
+    if abs(log_scale) > math.log(FAR_SCALE):
         warnings.warn(
-            f"{where}: the energy scale sqrt(xi(1)) = {s:.3g} is far from 1, but the"
-            " tolerances are absolute (energy per spin); rescale the mixture so that xi(1) is"
-            " of order one (energies scale as sqrt(xi(1)))",
+            f"{where}: the energy scale {what} is far from 1, but the tolerances are absolute"
+            f" (energy per spin); {fix} (energies scale with it)",
             RuntimeWarning,
             stacklevel=3,
         )
+
+
+def _scale_text(log_scale: float) -> str:
+    """exp(log_scale) as "1e-20" or "3.16": its digits, also beyond float64's range."""
+    if not math.isfinite(log_scale):
+        return "0" if log_scale < 0 else "inf"
+    exponent = log_scale / math.log(10.0)
+    if abs(exponent) < 300:
+        return f"{math.exp(log_scale):.3g}"
+    whole = math.floor(exponent)
+    return f"{10 ** (exponent - whole):.3g}e{whole:+d}"
+
+
+_SCALES: weakref.WeakKeyDictionary = weakref.WeakKeyDictionary()
+_SLICE = 1 << 20
+
+
+def coefficient_scale(ham: Hamiltonian) -> float:
+    """ln of sqrt(sum_p sum_m a_m^2 / n^(p+1)), the energy scale of given coefficients.
+
+    For a sampled instance it estimates sqrt(xi(1)): E a_m^2 = n gamma_p^2 c(m), and the
+    multinomial counts c(m) of the degree-p monomials add up to n^p (exact identity), so
+    E sum_m a_m^2 / n^(p+1) = gamma_p^2. Read in slices of 2^20 coefficients (one pass, once
+    per instance), in logarithms so that no square overflows; -inf for all zeros."""
+    if ham in _SCALES:
+        return _SCALES[ham]
+    from scipy.special import logsumexp
+
+    n, terms = ham.n, []
+    for p in ham.degrees:
+        count = math.comb(n + p - 1, p)
+        for start in range(0, count, _SLICE):
+            size = norm(ham.coefficients(p, start, min(start + _SLICE, count)))
+            if size > 0.0:
+                terms.append(2.0 * math.log(size) - (p + 1) * math.log(n))
+    value = 0.5 * float(logsumexp(terms)) if terms else -math.inf
+    _SCALES[ham] = value
+    return value
 
 
 # ``value`` as a bool, or a TypeError naming it: the model's check, under this module's names.
@@ -107,7 +157,7 @@ def check_unit_start(x: Any, n: int, name: str = "x") -> np.ndarray:
     if big == 0.0:
         raise ValueError(f"{name} is the zero vector; it has no direction on the sphere")
     arr = arr / big
-    return arr / float(np.linalg.norm(arr))
+    return arr / norm(arr)
 
 
 def dense_work_fits(ham: Hamiltonian, copies: int) -> bool:

@@ -50,6 +50,8 @@ import scipy.linalg
 from scipy.linalg.blas import dger
 from scipy.sparse.linalg import ArpackError, ArpackNoConvergence, LinearOperator, eigsh
 
+from ._sphere import norm
+
 __all__ = ["DIRECT_MAX", "TangentBasis", "top_tangent_eigenpair"]
 
 DIRECT_MAX = 16  # tangent dimensions solved by a dense eigh
@@ -67,7 +69,7 @@ class TangentBasis:
             raise ValueError(f"a tangent space needs n >= 2, got n = {u.size}")
         w = np.array(u, dtype=np.float64)
         w[0] += 1.0 if w[0] >= 0.0 else -1.0
-        self.w = w / np.linalg.norm(w)
+        self.w = w / norm(w)
 
     @property
     def dim(self) -> int:
@@ -155,4 +157,4 @@ def top_tangent_eigenpair(
             fallback = True
             theta = 0.0
     v = basis.lift(y)
-    return theta, v / float(np.linalg.norm(v)), fallback
+    return theta, v / norm(v), fallback

@@ -29,7 +29,7 @@ import numpy as np
 import scipy.linalg
 
 from ..model.hamiltonian import Hamiltonian
-from ._sphere import retract
+from ._sphere import norm, retract
 
 __all__ = ["NewtonOutcome", "newton_refine"]
 
@@ -73,7 +73,7 @@ def newton_refine(
     history = []
     status = "max_steps"
     for _ in range(max_steps + 1):
-        gnorm = float(np.linalg.norm(tg)) / n
+        gnorm = norm(tg) / n
         if gnorm <= gtol:
             status = "converged"
             break
@@ -107,5 +107,5 @@ def newton_refine(
             break
         x, e, tg, radial = y, e_y, tg_y, radial_y
         steps += 1
-        history.append((e, float(np.linalg.norm(tg)) / n))
-    return NewtonOutcome(x, e, float(np.linalg.norm(tg)) / n, steps, passes, status, history)
+        history.append((e, norm(tg) / n))
+    return NewtonOutcome(x, e, norm(tg) / n, steps, passes, status, history)

@@ -36,7 +36,7 @@ from dataclasses import dataclass, field
 import numpy as np
 
 from ..model.hamiltonian import Hamiltonian
-from ._sphere import project_tangent, retract
+from ._sphere import norm, project_tangent, retract
 
 __all__ = ["AscentTrace", "sphere_ascent"]
 
@@ -88,7 +88,7 @@ def sphere_ascent(
     x = retract(np.asarray(x0, dtype=np.float64), radius)
     e, gr = _tangent_grad(ham, x, radius)
     passes = 1
-    gnorm = float(np.linalg.norm(gr))
+    gnorm = norm(gr)
     alpha = 0.1 * radius / max(gnorm, 1e-300)
     recent: deque[float] = deque([e], maxlen=_MEMORY)
     best = deque([e], maxlen=_STALL_WINDOW + 1)  # the best energy so far, per iteration
@@ -127,7 +127,7 @@ def sphere_ascent(
         else:  # no positive curvature seen along s: take a longer step next time
             alpha = 2.0 * a
         x, e, gr = y, e_y, gr_y
-        gnorm = float(np.linalg.norm(gr))
+        gnorm = norm(gr)
         recent.append(e)
         if e > top[1]:
             top = (x, e, gr, gnorm, it)

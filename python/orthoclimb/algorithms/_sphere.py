@@ -17,27 +17,50 @@ grad H for free; with two or more degrees >= 3 one extra energy-and-gradient pas
 
 from __future__ import annotations
 
+import math
+
 import numpy as np
 
 from ..model.hamiltonian import Hamiltonian
 
-__all__ = ["HessianReader", "field_direction", "project_tangent", "random_unit", "retract"]
+__all__ = [
+    "HessianReader",
+    "field_direction",
+    "norm",
+    "project_tangent",
+    "random_unit",
+    "retract",
+]
+
+
+def norm(a: np.ndarray) -> float:
+    """|a|, the Euclidean norm (Frobenius for a matrix). NumPy sums the squares, which overflow
+    for entries above about 1e154 and lose digits below about 1e-154; outside that range the
+    norm is taken of a / max |a_i| and scaled back (inside it, NumPy's value, bit for bit)."""
+    with np.errstate(over="ignore", under="ignore"):
+        value = float(np.linalg.norm(a))
+    if 1e-100 < value < math.inf:
+        return value
+    top = float(np.abs(a).max()) if a.size else 0.0
+    if top == 0.0 or not math.isfinite(top):
+        return value
+    return top * float(np.linalg.norm(a / top))
 
 
 def random_unit(n: int, rng: np.random.Generator) -> np.ndarray:
     """A uniformly random point of the unit sphere S^{n-1} (normalized standard Gaussian)."""
     while True:
         g = rng.standard_normal(n)
-        norm = float(np.linalg.norm(g))
-        if norm > 0.0:
-            return g / norm
+        size = norm(g)
+        if size > 0.0:
+            return g / size
 
 
 def field_direction(h: np.ndarray) -> np.ndarray:
     """e = h/|h| for the degree-1 coefficients h (the field's direction), scaled by max |h_i|
     first: |h| overflows for n gamma_1 above about 1e154."""
     h = h / np.abs(h).max()
-    return h / np.linalg.norm(h)
+    return h / norm(h)
 
 
 def project_tangent(v: np.ndarray, u: np.ndarray) -> np.ndarray:
@@ -47,7 +70,7 @@ def project_tangent(v: np.ndarray, u: np.ndarray) -> np.ndarray:
 
 def retract(y: np.ndarray, radius: float = 1.0) -> np.ndarray:
     """Metric-projection retraction onto the sphere of the given radius: r y / |y|."""
-    return (radius / float(np.linalg.norm(y))) * y
+    return (radius / norm(y)) * y
 
 
 class HessianReader:

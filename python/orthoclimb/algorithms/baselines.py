@@ -51,7 +51,7 @@ from ._checks import (
 )
 from ._config import base_config
 from ._riemannian import sphere_ascent
-from ._sphere import project_tangent, random_unit, retract
+from ._sphere import norm, project_tangent, random_unit, retract
 from .polish import is_critical, local_max_info
 from .polish import polish as polish_point
 from .result import Result
@@ -176,11 +176,11 @@ def langevin_anneal(
         rows["step"].append(k)
         rows["temperature"].append(float(temp))
         rows["energy"].append(e / n)
-        rows["grad_norm"].append(float(np.linalg.norm(gr)))
+        rows["grad_norm"].append(norm(gr))
         noise = project_tangent(rng.standard_normal(n), x)
         with np.errstate(over="ignore", invalid="ignore"):  # checked just below
             y = x + eta * gr + math.sqrt(2.0 * eta * float(temp) / n) * noise
-            size = float(np.linalg.norm(y))
+            size = norm(y)
         if not (math.isfinite(size) and size > 0.0):  # absurd options: name them
             # (before: NumPy overflow warnings, then "x holds a non-finite value nan")
             raise ValueError(

@@ -104,7 +104,7 @@ from ._checks import (
 from ._config import base_config
 from ._eigen import TangentBasis, top_tangent_eigenpair
 from ._riemannian import sphere_ascent
-from ._sphere import HessianReader, field_direction, random_unit
+from ._sphere import HessianReader, field_direction, norm, random_unit
 from .polish import polish as polish_point
 from .result import Result
 
@@ -269,12 +269,12 @@ def _top_start(
     basis = TangentBasis(random_unit(n, rng))
     if mode == "dense":
         op = basis.restrict_inplace(ham.hessian(zero), np.empty((n - 1, n - 1)))
-        scale = float(np.linalg.norm(op))
+        scale = norm(op)
     else:
         op = _tangent_operator(ham, zero, basis)
         # |Hess v| of a random unit v is the root mean square eigenvalue, half the top one of a
         # semicircle: three times it bounds the top, so rel_tol below is not too loose
-        scale = 3.0 * float(np.linalg.norm(ham.hvp(zero, random_unit(n, rng)))) + 1e-300
+        scale = 3.0 * norm(ham.hvp(zero, random_unit(n, rng))) + 1e-300
     rel_tol = min(0.1, delta * n / max(scale, 1e-300))
     theta, v, _ = top_tangent_eigenpair(op, basis, random_unit(n, rng), rel_tol)
     return (v if rng.random() < 0.5 else -v), theta / n
@@ -474,7 +474,7 @@ def hessian_ascent(
                 t1 = time.perf_counter()
                 energy, grad = ham.energy_and_gradient(x)
                 t_grad = time.perf_counter() - t1
-            u = x / np.linalg.norm(x)
+            u = x / norm(x)
             basis = TangentBasis(u)
             t2 = time.perf_counter()
             if mode == "dense":
@@ -482,11 +482,11 @@ def hessian_ascent(
                     tangent_buf = np.empty((n - 1, n - 1))
                 op = basis.restrict_inplace(hess, tangent_buf)
                 if theta_scale is None:
-                    theta_scale = float(np.linalg.norm(op))
+                    theta_scale = norm(op)
             else:
                 op = _tangent_operator(ham, x, basis)
                 if theta_scale is None:
-                    theta_scale = float(np.linalg.norm(grad)) + 1.0
+                    theta_scale = norm(grad) + 1.0
             v0 = random_unit(n, rng) if v_prev is None else v_prev
             rel_tol = min(0.1, delta * n / max(theta_scale, 1e-300))
             theta, v, fell_back = top_tangent_eigenpair(op, basis, v0, rel_tol)
@@ -537,17 +537,17 @@ def hessian_ascent(
     path["q"] = np.clip(path["q"], 0.0, 1.0)  # |x|^2 rounds to 1 + 2e-16 on the sphere
     if mixture is not None:
         path.update(_predictions(mixture, path["q"], q_hat, begin))
-    norm = float(np.linalg.norm(x))
-    x = x / norm
+    size = norm(x)
+    x = x / size
     e_ascent = float(path["energy"][-1])
-    if abs(norm - 1.0) > _ON_SPHERE:
+    if abs(size - 1.0) > _ON_SPHERE:
         # the path stopped inside the ball (steps = 1 with q_hat < 1): the point returned is
         # the end point scaled to the sphere, so its energy is measured there again
         e_ascent = ham.energy(x) / n
     info.update(
         {
             "energy_ascent": e_ascent,
-            "final_norm": norm,
+            "final_norm": size,
             "eigen_fallbacks": fallbacks,
             "ascent_seconds": ascent_seconds,
             "hessian_seconds": float(np.sum(path["t_hessian"][:-1])),

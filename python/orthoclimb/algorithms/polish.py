@@ -64,6 +64,7 @@ from ._checks import (
 from ._config import base_config
 from ._newton import newton_refine, radial_shift
 from ._riemannian import sphere_ascent
+from ._sphere import norm
 from .result import Result, vector_digest
 
 __all__ = ["polish", "tangent_spectrum"]
@@ -97,7 +98,7 @@ def tangent_spectrum(ham: Hamiltonian, x: Any) -> dict[str, Any]:
             "n_positive": int(np.count_nonzero(vals > POSITIVE_THRESHOLD * scale)),
             "top_eigenvalue": float(vals[0]) / n,
             "exhaustive": n <= _OPERATOR_DENSE_N,
-            "grad_norm": float(np.linalg.norm(tangent_grad)) / n,
+            "grad_norm": norm(tangent_grad) / n,
         }
     hess = ham.hessian(x)
     # A = P Hess P - radial P - big x x^T  =  Hess - x w^T - w x^T + c x x^T - radial I.
@@ -121,7 +122,7 @@ def tangent_spectrum(ham: Hamiltonian, x: Any) -> dict[str, Any]:
         "n_positive": int(np.count_nonzero(vals > POSITIVE_THRESHOLD * scale)),
         "top_eigenvalue": float(vals[0]) / n,
         "exhaustive": exhaustive,
-        "grad_norm": float(np.linalg.norm(tangent_grad)) / n,
+        "grad_norm": norm(tangent_grad) / n,
     }
 
 
