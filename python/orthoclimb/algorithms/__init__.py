@@ -4,7 +4,8 @@ Units and sign: energy per spin e(x) = H(x)/n at unit vectors x; we maximize.
 
 * :func:`hessian_ascent` -- the Hessian-ascent method (Subag 2018, arXiv:1812.04588) with a
   per-step path table compared with ``path_energy`` and ``hessian_edge``; a field stage up to
-  q_hat with a p = 1 term.
+  q_hat with a p = 1 term. :func:`stepwise_limit` -- the n -> infinity energy of a path of K
+  points, below ALG by about c/K.
 * :func:`polish` -- Riemannian gradient ascent to a near-critical point, with the local-maximum
   check :func:`tangent_spectrum`.
 * :func:`gradient_ascent`, :func:`langevin_anneal` -- baselines.
@@ -13,7 +14,7 @@ Units and sign: energy per spin e(x) = H(x)/n at unit vectors x; we maximize.
 """
 
 from .baselines import geometric_schedule, gradient_ascent, langevin_anneal
-from .hessian_ascent import auto_steps, hessian_ascent, hessian_moves
+from .hessian_ascent import auto_steps, hessian_ascent, hessian_moves, stepwise_limit
 from .polish import polish, tangent_spectrum
 from .result import FORMAT_VERSION, Result, load_result
 from .stability import StabilityResult, stability
@@ -31,5 +32,6 @@ __all__ = [
     "load_result",
     "polish",
     "stability",
+    "stepwise_limit",
     "tangent_spectrum",
 ]

@@ -53,7 +53,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from ..algorithms.hessian_ascent import auto_steps, eigen_solves, stepwise_shortfall
+from ..algorithms.hessian_ascent import auto_steps, eigen_solves, stepwise_limit_if_short
 from .grid import LEGACY_START, StudySpec
 from .profile import best_time
 from .tasks import instance_groups, instance_key
@@ -329,13 +329,13 @@ def fixed_path_notes(spec: StudySpec) -> list[str]:
                 continue
             if len(ks) > 1:  # the default K, clamped at some sizes and not at others
                 mixed = mixed_k_text(
-                    k_at, lambda k, m=m, s=start: stepwise_shortfall(m.mixture, k, s)
+                    k_at, lambda k, m=m, s=start: stepwise_limit_if_short(m.mixture, k, s)
                 )
                 if mixed is not None:
                     out.append(f"note: {method.label} on {m.name} ({energy}): {mixed}")
                 continue
             k = ks.pop()
-            e_k = stepwise_shortfall(m.mixture, k, start)
+            e_k = stepwise_limit_if_short(m.mixture, k, start)
             if e_k is None:
                 continue
             alg = algorithmic_energy(m.mixture)

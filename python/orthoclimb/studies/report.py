@@ -385,7 +385,7 @@ def _add_stepwise_limit(
     s.e. as ``z_k``. With the default K clamped at some sizes and differing across them,
     ``steps_by_n`` ([n, K] pairs) and ``mixed_k``, the sentence of
     :func:`~orthoclimb.studies.estimate.mixed_k_text`: one law over such sizes mixes limits."""
-    from ..algorithms.hessian_ascent import stepwise_shortfall
+    from ..algorithms.hessian_ascent import stepwise_limit_if_short
     from .estimate import mixed_k_text
 
     ks = list(k_at.values())
@@ -393,11 +393,11 @@ def _add_stepwise_limit(
         return
     if len(set(ks)) > 1:  # the default K, clamped at some sizes (see mixed_k_text)
         k_int = {n: int(k) for n, k in k_at.items()}
-        text = mixed_k_text(k_int, lambda k: stepwise_shortfall(mixture, k, start))
+        text = mixed_k_text(k_int, lambda k: stepwise_limit_if_short(mixture, k, start))
         if text is not None:
             entry.update(steps_by_n=[[n, k] for n, k in k_int.items()], mixed_k=text)
         return
-    e_k = stepwise_shortfall(mixture, int(ks[0]), start)
+    e_k = stepwise_limit_if_short(mixture, int(ks[0]), start)
     if e_k is None:
         return  # a field, or a path that reaches ALG anyway (pure 2-spin from the top start)
     se = entry["se"] if entry["se"] > 0 else math.nan
