@@ -346,6 +346,25 @@ def test_hessian_ascent_at_1e300_reports_finite_norms_without_numpy_warnings():
     assert res.info["grad_norm"] / 1e300 <= 1e-7  # converged, as at unit scale
 
 
+def test_the_baselines_callbacks_see_the_rows_their_paths_keep():
+    # a user trial: gradient ascent's callback rows had "step" where the path has
+    # "iteration", and Langevin's lacked the path's grad_norm. Each now gets the path's row
+    # (gradient ascent: every row but the start's) plus the keys all methods share
+    ham = oc.Hamiltonian.sample(oc.Mixture({3: 1.0}), 40, seed=2)
+    seen: list[dict] = []
+    run = oc.gradient_ascent(ham, seed=1, max_iter=30, callback=seen.append, check=False)
+    assert len(seen) == len(run.path["iteration"]) - 1 > 0
+    for key, column in run.path.items():
+        assert [row[key] for row in seen] == list(column[1:]), key
+    assert all(row["step"] == row["iteration"] and row["q"] == 1.0 for row in seen)
+    seen.clear()
+    schedule = geometric_schedule(1.0, 0.1, 12)
+    run = oc.langevin_anneal(ham, seed=1, schedule=schedule, polish=False, callback=seen.append)
+    assert len(seen) == 12
+    for key, column in run.path.items():
+        assert [row[key] for row in seen] == list(column), key
+
+
 def test_a_point_stopped_on_a_slope_is_no_local_maximum():
     # a local maximum is a critical point with no positive tangent eigenvalue: a run cut off
     # by its cap after 20 iterations has none positive here, but its tangent gradient is far
@@ -443,7 +462,9 @@ def test_a_stall_far_from_a_critical_point_is_no_local_maximum():
                     lam = np.concatenate(([1.0, 1.0 - delta, -stiff], spread))
                     a = (q * lam) @ q.T * n
                     ham = oc.Hamiltonian.from_dense({2: 0.5 * (a + a.T)})
-    res = oc.gradient_ascent(ham, seed=1, max_iter=5000)
+    # its eigenvalue of -1e6 puts its scale (1.8e5) far from 1, which the run says
+    with pytest.warns(RuntimeWarning, match="far from 1"):
+        res = oc.gradient_ascent(ham, seed=1, max_iter=5000)
     top = scipy.linalg.eigh(0.5 * (a + a.T) / n, eigvals_only=True)[-1]
     assert res.info["status"] == "stalled" and res.info["grad_norm"] > 1e-4
     assert top - res.energy > 1e-5 and res.info["n_positive"] == 0

@@ -90,7 +90,8 @@ def warn_if_far_scale(ham: Hamiltonian, where: str) -> None:
             " coefficients, an estimate of sqrt(xi(1)))"
         )
         fix = "rescale the coefficients so that it is of order one"
-    if abs(log_scale) > math.log(FAR_SCALE):
+    # the zero polynomial (scale 0) is left alone: every point is a maximum, at any tolerance
+    if math.isfinite(log_scale) and abs(log_scale) > math.log(FAR_SCALE):
         warnings.warn(
             f"{where}: the energy scale {what} is far from 1, but the tolerances are absolute"
             f" (energy per spin); {fix} (energies scale with it)",

@@ -82,7 +82,8 @@ def sphere_ascent(
     """Riemannian gradient ascent of e = H/n on |x| = radius from ``x0`` (see module doc).
 
     ``gtol`` is a bound on |G| = |P grad H|/n (per-spin units). Records per iteration:
-    ``iteration``, ``energy`` (per spin), ``grad_norm`` and ``alpha``.
+    ``iteration``, ``energy`` (per spin), ``grad_norm`` and ``alpha``; ``callback(row)`` gets
+    each new row (not the start's) as a dict.
     """
     start = time.perf_counter()
     x = retract(np.asarray(x0, dtype=np.float64), radius)
@@ -137,7 +138,7 @@ def sphere_ascent(
         rows["grad_norm"].append(gnorm)
         rows["alpha"].append(a)
         if callback is not None:
-            callback(it, x, e, gnorm)
+            callback({c: column[-1] for c, column in rows.items()})
     returned = it
     if status != "converged" and top[1] > e:  # stopped inside a dip: the best point instead
         x, e, gr, gnorm, returned = top

@@ -104,7 +104,10 @@ def gradient_ascent(
     Stops when |P grad H|/n <= ``gtol`` or after ``max_iter`` iterations (one energy-and-
     gradient pass each, plus one per backtracking halving). ``check`` runs the local-maximum
     check at the end. ``path`` columns: ``iteration``, ``energy`` (per spin), ``grad_norm``,
-    ``alpha``.
+    ``alpha``. ``callback(row)`` is called after every iteration with the path's new row (a
+    dict; the start's row, iteration 0, is not passed) and ``step`` (the iteration) and ``q``
+    (1.0), the keys every method's rows share; its return value is ignored, and an exception
+    it raises ends the run.
     """
     ham = check_ham(ham, "gradient_ascent")
     warn_if_far_scale(ham, "gradient_ascent")
@@ -119,9 +122,9 @@ def gradient_ascent(
     start = time.perf_counter()
     x0 = random_unit(ham.n, np.random.default_rng(seed))
 
-    def cb(it: int, _x: np.ndarray, e: float, g: float) -> None:
+    def cb(row: dict[str, Any]) -> None:
         if callback is not None:
-            callback({"step": it, "q": 1.0, "energy": e, "grad_norm": g})
+            callback({"step": row["iteration"], "q": 1.0, **row})
 
     trace = sphere_ascent(ham, x0, gtol=gtol, max_iter=max_iter, callback=cb)
     info: dict[str, Any] = {
@@ -154,7 +157,9 @@ def langevin_anneal(
     random (``seed`` drives the start and the noise), then polished (see the module doc).
 
     ``path`` columns: ``step``, ``temperature``, ``energy`` (per spin, before the step's
-    update), ``grad_norm`` (|P grad H|/n).
+    update), ``grad_norm`` (|P grad H|/n). ``callback(row)`` is called after every step with
+    the path's row of that step (a dict) and ``q`` (1.0), the keys every method's rows share;
+    its return value is ignored, and an exception it raises ends the run.
     """
     ham = check_ham(ham, "langevin_anneal")
     warn_if_far_scale(ham, "langevin_anneal")
@@ -190,7 +195,7 @@ def langevin_anneal(
             )
         x = retract(y)  # the same division by |y|, of a finite nonzero y
         if callback is not None:
-            callback({"step": k, "q": 1.0, "energy": e / n, "temperature": float(temp)})
+            callback({"q": 1.0, **{c: column[-1] for c, column in rows.items()}})
     energy = ham.energy(x) / n
     info: dict[str, Any] = {"energy_anneal": energy, "steps": int(temps.size)}
     if polish:
