@@ -215,6 +215,15 @@ def test_a_schedule_of_too_many_steps_is_refused_before_it_is_built():
     # 10^14 temperatures asked NumPy for 728 TiB (a MemoryError traceback in climb)
     with pytest.raises(ValueError, match="steps must be at most 10_000_000, got 10{14}"):
         geometric_schedule(1.0, 0.01, 10**14)
+    # the same bound for a schedule of the caller's own and for the iteration caps (a user
+    # trial ran 2 x 10^7 temperatures, about 7 minutes at n = 30, and max_iter = 10^9 passed)
+    ham = oc.Hamiltonian.sample(oc.Mixture({3: 1.0}), 10, seed=1)
+    with pytest.raises(ValueError, match="at most 10_000_000 temperatures .*got 10_000_001"):
+        oc.langevin_anneal(ham, schedule=np.ones(10**7 + 1))
+    with pytest.raises(ValueError, match="max_iter must be at most 10_000_000, got 1000000000"):
+        oc.gradient_ascent(ham, max_iter=10**9)
+    with pytest.raises(ValueError, match="max_iter must be at most 10_000_000, got 1000000000"):
+        oc.polish(ham, np.ones(10), max_iter=10**9)
 
 
 def test_geometric_schedule_cools_and_refuses_to_heat():

@@ -515,6 +515,15 @@ def test_a_study_with_too_many_steps_is_refused():
         spec_from_flags(
             ["3:1"], None, "20,30", "0-1", "anneal", method_options={"anneal": {"steps": 10**8}}
         )
+    with pytest.raises(ValueError, match="option max_iter of gradient must be at most 10_000_000"):
+        spec_from_flags(
+            ["3:1"],
+            None,
+            "20,30",
+            "0-1",
+            "gradient",
+            method_options={"gradient": {"max_iter": 10**8}},
+        )
 
 
 def test_hessian_start_keeps_the_ids_and_configuration_of_runs_it_did_not_change():

@@ -84,6 +84,11 @@ def _check_schedule(schedule: Any) -> np.ndarray:
     temps = np.array(real_array(schedule, "schedule"), dtype=np.float64)
     if temps.ndim != 1 or temps.size == 0:
         raise ValueError(f"schedule must be a non-empty 1-D sequence, got shape {temps.shape}")
+    if temps.size > MAX_STEPS:  # as steps= of geometric_schedule (a user trial ran 2 x 10^7)
+        raise ValueError(
+            f"schedule must have at most {MAX_STEPS:_} temperatures (one step each), got"
+            f" {temps.size:_}"
+        )
     bad = ~np.isfinite(temps) | (temps < 0.0)
     if np.any(bad):
         i = int(np.argmax(bad))
@@ -116,7 +121,7 @@ def gradient_ascent(
     gtol = check_positive(gtol, "gtol")
     # at least one step, as --max-iter and a study's max_iter (0 returned the random start as
     # a result, a user trial)
-    max_iter = check_count(max_iter, "max_iter", minimum=1)
+    max_iter = check_count(max_iter, "max_iter", minimum=1, maximum=MAX_STEPS)
     if callback is not None and not callable(callback):
         raise TypeError(f"callback must be callable or None, got {callback!r}")
     start = time.perf_counter()

@@ -54,6 +54,7 @@ from scipy.sparse.linalg import LinearOperator, eigsh
 from ..model.hamiltonian import Hamiltonian
 from ..runtime import one_blas_thread
 from ._checks import (
+    MAX_STEPS,
     check_count,
     check_flag,
     check_ham,
@@ -200,7 +201,7 @@ def polish(
     x0 = check_unit_start(x, ham.n)
     check = check_flag(check, "check")
     gtol = check_positive(gtol, "gtol")
-    max_iter = check_count(max_iter, "max_iter", minimum=0)
+    max_iter = check_count(max_iter, "max_iter", minimum=0, maximum=MAX_STEPS)
     with one_blas_thread():  # see the module doc
         return _polish(ham, x0, gtol, max_iter, check)
 

@@ -324,7 +324,7 @@ def run(args: argparse.Namespace) -> int:
     default_steps = {"hessian": auto_steps(args.n), "gradient": 2000, "anneal": 400}[args.method]
     steps = default_steps if given is None else given
     # refused before the estimate is printed, with the methods' own bound on steps
-    check_count(steps, flag, maximum=MAX_STEPS if flag == "--steps" else None)
+    check_count(steps, flag, maximum=MAX_STEPS)
     if args.tol is not None and args.method != "hessian":
         raise ValueError(f"--tol applies to --method hessian only, not {args.method}")
     if args.start is not None and args.method != "hessian":

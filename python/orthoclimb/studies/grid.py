@@ -277,9 +277,9 @@ class MethodSpec:
                     raise ValueError(
                         f"option {key} of {name} must be an integer >= 1{also}, got {value!r}"
                     )
-                if key == "steps" and not auto and value > MAX_STEPS:
+                if key in ("steps", "max_iter") and not auto and value > MAX_STEPS:
                     raise ValueError(
-                        f"option steps of {name} must be at most {MAX_STEPS:_}, got {value}"
+                        f"option {key} of {name} must be at most {MAX_STEPS:_}, got {value}"
                     )
             else:
                 if isinstance(value, bool) or not isinstance(value, (int, float)):
