@@ -46,8 +46,9 @@ so stage 1 converges slowly and is capped (``first_stage_iter``), which costs a 
 at finite n. When q_hat = 1 (a field strong enough) stage 1 ends on the sphere and no Hessian
 step is taken. Stage 1 starts from the field direction, not from the seed, so with a field the
 seed moves only Lanczos's first start vector (each step's sign follows the gradient): runs
-with different seeds end at the same point to rounding (a user trial: overlap 1.0 on 1:0.2,2:1,3:0.5), and
-the config's ``start`` then records "random", the unused option's value.
+with different seeds end at the same point to rounding (a user trial: overlap 1.0 on
+1:0.2,2:1,3:0.5), and the config's ``start`` then records "random", the unused option's
+value.
 
 Cost. Each stage-2 step costs one Hessian pass plus O(n^2) for the projection and a few dozen
 dense matrix-vector products for Lanczos. When at most one degree >= 3 is present, the energy
