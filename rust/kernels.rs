@@ -62,6 +62,37 @@ pub fn pieces(num_coefficients: usize, acc_len: usize) -> usize {
     }
 }
 
+/// The accumulators (groups of [`plan`](crate::partition::plan)) of a pass with `acc_len`
+/// numbers per accumulator over a polynomial of these degrees at n, taking first indices in
+/// runs of `quantum` ([`QUANTUM`] for the single-point kernels, 1 for the batch and
+/// multi-direction ones): [`pieces`] groups, or a few more where several degrees are each cut
+/// on their own. It lets a caller size a pass's memory without the polynomial.
+pub fn accumulator_count(
+    n: usize,
+    degrees: &[usize],
+    acc_len: usize,
+    quantum: usize,
+) -> Result<usize, CoreError> {
+    if n == 0 {
+        return Err(CoreError::InvalidSize { n });
+    }
+    let mut blocks = Vec::with_capacity(degrees.len());
+    for &p in degrees {
+        if !(1..=crate::combinatorics::MAX_DEGREE).contains(&p) {
+            return Err(CoreError::InvalidDegree { p });
+        }
+        blocks.push((p, crate::combinatorics::num_multisets(n, p)?));
+    }
+    let total = blocks
+        .iter()
+        .try_fold(0usize, |acc, b| acc.checked_add(b.1));
+    let total = total.ok_or_else(|| CoreError::SizeOverflow {
+        what: format!("the coefficients of degrees {degrees:?} at n = {n}"),
+    })?;
+    let pieces = pieces(total, acc_len);
+    Ok(crate::partition::group_count(n, &blocks, pieces, quantum))
+}
+
 /// The plan of a pass in `pieces` groups, for a kernel doing about `width` multiply-adds per
 /// coefficient (which sets the chunk length, see [`CHUNK`]) and taking first indices in runs
 /// of `quantum` ([`QUANTUM`] for the single-point kernels, whose degree-3 groups and degree
@@ -497,6 +528,44 @@ pub(crate) mod tests {
         assert_eq!(pieces(m(120, 4), 120 * 120), 16);
         assert_eq!(pieces(m(400, 3), 400), 64);
         assert_eq!(pieces(usize::MAX / 2, 10), 64);
+    }
+
+    /// The accumulators a caller counts without the polynomial are the groups of the plan the
+    /// passes build: a Hessian (by fours) and k Hessian-vector products (by ones), one degree
+    /// and several (each degree is cut on its own: {1, 2} at n = 2100 has two groups where
+    /// the piece count is one); bad degrees and n are errors, not panics.
+    #[test]
+    fn accumulator_counts_are_the_plans_groups() {
+        for (n, degrees) in [
+            (2100usize, vec![1usize, 2]),
+            (2100, vec![2]),
+            (40, vec![2, 4]),
+            (300, vec![2, 4]),
+            (150, vec![1, 2, 3]),
+            (1, vec![3]),
+        ] {
+            let terms: Vec<(usize, f64)> = degrees.iter().map(|&p| (p, 1.0)).collect();
+            let poly = Packed::<f64>::sample(&pool(2), n, &terms, &Disorder::new(1)).unwrap();
+            for (acc_len, width, quantum) in [(n * n, 1, QUANTUM), (n * 1000, 2001, 1), (n, 3, 1)] {
+                let got = accumulator_count(n, &degrees, acc_len, quantum).unwrap();
+                let want = items_for(
+                    &poly,
+                    pieces(poly.num_coefficients(), acc_len),
+                    width,
+                    quantum,
+                );
+                assert_eq!(
+                    got,
+                    want.groups.len(),
+                    "n = {n}, degrees {degrees:?}, {acc_len}"
+                );
+            }
+        }
+        assert_eq!(accumulator_count(2100, &[1, 2], 2100 * 1000, 1).unwrap(), 2);
+        assert!(accumulator_count(5, &[0], 25, 1).is_err());
+        assert!(accumulator_count(5, &[9], 25, 1).is_err());
+        assert!(accumulator_count(0, &[2], 25, 1).is_err());
+        assert!(accumulator_count(usize::MAX / 2, &[8], 25, 1).is_err());
     }
 
     /// The degree-3 passes and every degree >= 4 pass take first indices by four, and degree-2

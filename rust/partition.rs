@@ -99,8 +99,7 @@ pub fn plan(
     chunk: usize,
     quantum: usize,
 ) -> Plan {
-    let total: usize = blocks.iter().map(|b| b.1).sum();
-    let target = total.div_ceil(pieces.max(1)).max(1);
+    let target = group_target(blocks, pieces);
     let (mut items, mut groups) = (Vec::new(), Vec::new());
     for (bi, &(p, len)) in blocks.iter().enumerate() {
         for (glo, ghi) in cut(n, p, (0, n), target, quantum) {
@@ -132,6 +131,23 @@ pub fn plan(
         );
     }
     Plan { items, groups }
+}
+
+/// Coefficients per group that [`plan`] aims at: the total over `pieces`, at least 1.
+fn group_target(blocks: &[(usize, usize)], pieces: usize) -> usize {
+    let total: usize = blocks.iter().map(|b| b.1).sum();
+    total.div_ceil(pieces.max(1)).max(1)
+}
+
+/// The number of groups, so of accumulators, that [`plan`] makes of these blocks (it does
+/// not depend on the chunk length): each block is cut on its own, so a polynomial of several
+/// degrees may have up to `pieces` + (number of blocks) groups. O(n) per block.
+pub fn group_count(n: usize, blocks: &[(usize, usize)], pieces: usize, quantum: usize) -> usize {
+    let target = group_target(blocks, pieces);
+    blocks
+        .iter()
+        .map(|&(p, _)| cut(n, p, (0, n), target, quantum).len())
+        .sum()
 }
 
 /// Runs `leaf(item, &mut acc)` for every chunk of every group on the pool of `exec` and
@@ -333,6 +349,8 @@ mod tests {
                     next = g.end;
                 }
                 assert_eq!(next, plan.items.len());
+                // the count of groups alone, without cutting chunks, is the plan's
+                assert_eq!(group_count(n, &blocks, pieces, quantum), plan.groups.len());
             }
         }
     }

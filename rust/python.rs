@@ -616,12 +616,19 @@ fn multiset_table<'py>(py: Python<'py>, n: usize, p: usize) -> PyResult<Bound<'p
     table.into_pyarray(py).reshape([count, p])
 }
 
-/// Number of work items, each with its own accumulator of `acc_len` numbers, of a pass over
-/// `num_coefficients` coefficients (fixed by the instance; n * n for a Hessian, n * k for k
-/// Hessian-vector products).
+/// Number of accumulators of `acc_len` numbers that a pass over a polynomial of these degrees
+/// at n allocates (fixed by the instance: n * n for a Hessian, whose first indices go in runs
+/// of four, `single_point`; n * k for k Hessian-vector products in one pass).
 #[pyfunction]
-fn pass_pieces(num_coefficients: usize, acc_len: usize) -> usize {
-    kernels::pieces(num_coefficients, acc_len)
+fn pass_accumulators(
+    py: Python<'_>,
+    n: usize,
+    degrees: Vec<usize>,
+    acc_len: usize,
+    single_point: bool,
+) -> PyResult<usize> {
+    let quantum = if single_point { crate::partition::QUANTUM } else { 1 };
+    kernels::accumulator_count(n, &degrees, acc_len, quantum).map_err(|e| to_py_err(py, e))
 }
 
 /// Sets the number of threads of the shared pool.
@@ -682,7 +689,7 @@ fn _core(m: &Bound<'_, PyModule>) -> PyResult<()> {
     m.add_class::<PyPacked>()?;
     m.add_function(wrap_pyfunction!(storage_nbytes, m)?)?;
     m.add_function(wrap_pyfunction!(multiset_table, m)?)?;
-    m.add_function(wrap_pyfunction!(pass_pieces, m)?)?;
+    m.add_function(wrap_pyfunction!(pass_accumulators, m)?)?;
     m.add_function(wrap_pyfunction!(set_num_threads, m)?)?;
     m.add_function(wrap_pyfunction!(get_num_threads, m)?)?;
     m.add_function(wrap_pyfunction!(_set_inline_passes, m)?)?;

@@ -20,7 +20,7 @@ import resource
 import orthoclimb as oc
 from orthoclimb.model.process_limits import address_space_headroom, _status_bytes
 limit, field, room = resource.{limit}, "{field}", {room} * 2**20
-resource.setrlimit(limit, (_status_bytes(field) + room, resource.RLIM_INFINITY))
+resource.setrlimit(limit, (_status_bytes()[field] + room, resource.RLIM_INFINITY))
 print(address_space_headroom(), oc.available_memory(), room)
 {extra}
 """
@@ -40,6 +40,23 @@ def test_the_headroom_is_the_limit_less_what_the_process_has_mapped(limit, field
     headroom, available, room = map(int, _child(limit, field, 300)[0].split())
     assert room - 64 * MiB < headroom <= room
     assert available == headroom
+
+
+def test_a_process_named_in_other_bytes_than_ascii_still_reads_its_limits():
+    # /proc/self/status starts with the process's name as the kernel has it (a script named
+    # an\xc3\xa1lisis.py, or a renamed process): read as ASCII, the whole file failed and the
+    # limit was ignored (a review). The child renames itself (prctl PR_SET_NAME = 15, prctl(2))
+    # to a name that is not even UTF-8
+    rename = (
+        "import ctypes\n"
+        "ctypes.CDLL(None).prctl(15, b'py\\xff\\xc3th', 0, 0, 0)\n"
+        "assert open('/proc/self/status', 'rb').readline().startswith(b'Name:\\tpy\\xff')\n"
+    )
+    code = rename + _CHILD.format(limit="RLIMIT_AS", field="VmSize", room=300, extra="")
+    proc = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, timeout=120)
+    assert proc.returncode == 0, proc.stderr[-2000:]
+    headroom, available, room = map(int, proc.stdout.split())
+    assert room - 64 * MiB < headroom <= room and available == headroom
 
 
 def test_without_limits_there_is_no_headroom_to_report():

@@ -268,7 +268,8 @@ def test_many_directions_beyond_the_available_memory_are_refused_before_the_pass
     # pure p = 2 at n = 2100 takes the multi-direction pass (its Hessian's workspace is over
     # 64 MiB); 1000 directions need the core's copy and transpose of them, one accumulator
     # and the result: 4 * 2100 * 1000 * 8 = 67.2 MB, checked from 64 MiB on. A user trial
-    # saw such a call under ulimit -v fail its allocation after 8.4 s of work instead.
+    # saw 10^5 directions under ulimit -v fail an allocation after 8.4 s (of copying and
+    # transposing them) instead.
     from orthoclimb.model import memory
 
     ham = oc.Hamiltonian.sample(oc.Mixture({2: 1.0}), 2100, seed=0)

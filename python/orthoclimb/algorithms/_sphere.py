@@ -35,11 +35,13 @@ __all__ = [
 
 def norm(a: np.ndarray) -> float:
     """|a|, the Euclidean norm (Frobenius for a matrix). NumPy sums the squares, which overflow
-    for entries above about 1e154 and lose digits below about 1e-154; outside that range the
-    norm is taken of a / max |a_i| and scaled back (inside it, NumPy's value, bit for bit)."""
+    for entries above about 1e154 and lose digits below about 1e-154. Where NumPy's value is
+    finite and above 1e-140 it is returned, bit for bit (squares that underflowed there weigh
+    under 1e-27 of the sum per entry); otherwise the norm is taken of a / max |a_i| and scaled
+    back, which may differ from NumPy's in the last bit."""
     with np.errstate(over="ignore", under="ignore"):
         value = float(np.linalg.norm(a))
-    if 1e-100 < value < math.inf:
+    if 1e-140 < value < math.inf:
         return value
     top = float(np.abs(a).max()) if a.size else 0.0
     if top == 0.0 or not math.isfinite(top):

@@ -414,7 +414,9 @@ def hessian_ascent(
     polish = check_flag(polish, "polish")
     if callback is not None and not callable(callback):
         raise TypeError(f"callback must be callable or None, got {callback!r}")
-    first_stage_iter = check_count(first_stage_iter, "first_stage_iter", minimum=0)
+    first_stage_iter = check_count(
+        first_stage_iter, "first_stage_iter", minimum=0, maximum=MAX_STEPS
+    )
     mode = _choose_mode(ham, hessian)
     n = ham.n
     mixture = ham.mixture

@@ -79,9 +79,11 @@ class Result:
     Attributes: ``x`` the final unit vector (|x| = 1), ``energy`` the energy per spin H(x)/n at
     x, ``path`` the per-step table (column name -> 1-D NumPy array), ``config`` everything needed
     to reproduce the run (mixture, n, seeds, steps, tol, dtype, version, threads, kernel path,
-    method; for :func:`~orthoclimb.polish`, whose start point is the caller's, ``start_sha256``
-    the SHA-256 of the unit vector it started from, little-endian float64, the point divided by
-    its largest |entry| and then by its norm: keep the point to rerun),
+    method; where the start point is the caller's, in :func:`~orthoclimb.polish` and with
+    ``x0=`` in the baselines, ``start_sha256`` the SHA-256 of the unit vector it started from,
+    little-endian float64, the point divided by its largest |entry| and then by its norm: keep
+    the point to rerun; ``seed`` is then unused by gradient ascent and drives only the noise
+    of Langevin dynamics),
     ``seconds`` the wall-clock time of the run, ``info`` method-specific diagnostics
     (polish outcome, local-maximum check, ALG reached or not, ...).
 
@@ -89,7 +91,8 @@ class Result:
 
     * ``config["disorder_seed"]``: the instance's seed (rows and climb: ``seed``);
       ``config["seed"]``: the start point's seed (rows and climb: ``start_seed``; a study
-      starts each run from its disorder seed).
+      starts each run from its disorder seed), or, with ``start_sha256`` (a start of the
+      caller's), Langevin's noise seed.
     * ``info["alg"]``: ALG, energy per spin; ``info["alg_gap"]`` = energy - ALG (rows and
       climb: ``gap_alg``; negative below ALG). Not ``GroundState.gap``, which is GS - ALG.
     * ``info["energy_ascent"]`` (Hessian ascent) and ``info["energy_anneal"]`` (Langevin):

@@ -263,8 +263,8 @@ class Hamiltonian:
     @property
     def hessian_workspace_nbytes(self) -> int:
         """Peak bytes a :meth:`hessian` call allocates: its n x n accumulators (a number fixed
-        by the instance, 1 to 64) and the result, 8 bytes per entry each."""
-        return hessian_workspace_bytes(self.num_coefficients, self.n)
+        by the instance, 1 to 64 plus up to one per degree) and the result, 8 bytes each."""
+        return hessian_workspace_bytes(self.degrees, self.n)
 
     def __repr__(self) -> str:
         origin = f"{self._mixture!r}, seed={self._seed}" if self._mixture else "given"
@@ -301,7 +301,8 @@ class Hamiltonian:
     def hessian(self, x: Any, *, check_memory: bool = True) -> np.ndarray:
         """The full (not projected) n x n Hessian of H at x. Costs one pass over the
         coefficients plus :attr:`hessian_workspace_nbytes` of memory: n x n accumulators, a
-        number (1 to 64) fixed by the instance whatever the thread count, and the result.
+        number (1 to 64, plus up to one per degree) fixed by the instance whatever the thread
+        count, and the result.
 
         A workspace of 64 MiB or more is checked against the available memory first and
         refused with :class:`~orthoclimb.errors.InsufficientMemoryError` naming both sizes,
@@ -340,11 +341,11 @@ class Hamiltonian:
         p = 3, n = 200, 1.89 and 0.38 ms; p = 4, n = 120, 22.7 and 4.6 ms; p = 4, n = 360,
         807 and 216 ms (one direction alone: 192 ms); but p = 2, n = 1800, 7.6 and 28.7 ms.
 
-        The multi-direction pass holds (items + 3) n k numbers (the directions copied and
-        transposed, one accumulator per work item, 1 to 64 by the instance and k, and the
-        result); from 64 MiB on that is checked against the available memory first and
-        refused with :class:`~orthoclimb.errors.InsufficientMemoryError` (``check_memory=False``
-        skips the check, here and for the Hessian)."""
+        The multi-direction pass holds (accumulators + 3) n k numbers (the directions copied
+        and transposed, its accumulators, 1 to 64 plus up to one per degree, fixed by the
+        instance and k, and the result); from 64 MiB on that is checked against the available
+        memory first and refused with :class:`~orthoclimb.errors.InsufficientMemoryError`
+        (``check_memory=False`` skips the check, here and for the Hessian)."""
         pt = as_point(x, self.n)
         dirs = as_directions(v, self.n)
         check_memory = as_flag(check_memory, "check_memory")
@@ -370,7 +371,7 @@ class Hamiltonian:
 
     def _hvp_many(self, pt: np.ndarray, dirs: np.ndarray, check_memory: bool) -> np.ndarray:
         """The multi-direction HVP pass, its memory checked first (see :meth:`hvp`)."""
-        need = hvp_workspace_bytes(self.num_coefficients, self.n, dirs.shape[1])
+        need = hvp_workspace_bytes(self.degrees, self.n, dirs.shape[1])
         if check_memory and need >= _CHECKED_WORKSPACE:
             require_memory(
                 need,

@@ -1,8 +1,9 @@
 """How much memory an instance needs, and how much the machine has.
 
 Storage is one number per sorted monomial: sum_p C(n+p-1, p) coefficients of 8 (float64) or
-4 (float32) bytes. Kernels add O(n) per call, and the Hessian 1 to 64 n x n accumulators fixed
-by the instance (``Hamiltonian.hessian_workspace_nbytes``), whatever the thread count.
+4 (float32) bytes. Kernels add O(n) per call, and the Hessian 1 to 64 n x n accumulators (plus
+up to one per degree) fixed by the instance (``Hamiltonian.hessian_workspace_nbytes``),
+whatever the thread count.
 """
 
 from __future__ import annotations
@@ -44,32 +45,37 @@ def estimate_memory(mixture: Mixture, n: int, dtype: object = "float64") -> int:
     return coefficient_count(mixture.degrees, n) * itemsize
 
 
-def hessian_workspace_bytes(num_coefficients: int, n: int) -> int:
-    """Peak bytes a Hessian call allocates beside the coefficients: its n x n accumulators (a
-    number fixed by the instance, 1 to 64) and the result, 8 bytes per entry each."""
+def pass_accumulators(degrees: Iterable[int], n: int, acc_len: int, single_point: bool) -> int:
+    """The accumulators of ``acc_len`` numbers a kernel pass allocates (the core's plan: 1 to
+    64 groups, plus up to one per degree, since each degree is cut on its own), fixed by the
+    instance. Past 2^40 coefficients (which no machine holds) the bound 64 + degrees."""
     from .. import _core
 
-    top = 2**63 - 1  # the core counts in 64 bits; so many coefficients never fit anyway
-    groups = int(_core.pass_pieces(min(num_coefficients, top), min(n * n, top)))
-    return (groups + 1) * n * n * 8
+    degrees = sorted(degrees)
+    if coefficient_count(degrees, n) > 2**40:
+        return 64 + len(degrees)
+    return int(_core.pass_accumulators(n, degrees, acc_len, single_point))
 
 
-def hvp_workspace_bytes(num_coefficients: int, n: int, k: int) -> int:
+def hessian_workspace_bytes(degrees: Iterable[int], n: int) -> int:
+    """Peak bytes a Hessian call allocates beside the coefficients: its n x n accumulators (a
+    number fixed by the instance, see :func:`pass_accumulators`) and the result, 8 bytes per
+    entry each."""
+    return (pass_accumulators(degrees, n, n * n, True) + 1) * n * n * 8
+
+
+def hvp_workspace_bytes(degrees: Iterable[int], n: int, k: int) -> int:
     """Peak bytes a pass of Hessian-vector products in k directions allocates beside the
     coefficients and the caller's directions: the core's copy of the directions and their
-    transpose, one n x k accumulator per work item (a number fixed by the instance and k, 1 to
-    64) and the result, 8 bytes per entry."""
-    from .. import _core
-
-    top = 2**63 - 1
-    items = int(_core.pass_pieces(min(num_coefficients, top), min(n * k, top)))
-    return (items + 3) * n * k * 8
+    transpose, one n x k accumulator per group of its plan (:func:`pass_accumulators`) and
+    the result, 8 bytes per entry."""
+    return (pass_accumulators(degrees, n, n * k, False) + 3) * n * k * 8
 
 
 def hessian_workspace_estimate(mixture: Mixture, n: int) -> int:
     """:func:`hessian_workspace_bytes` of the instance of ``mixture`` at n, without sampling
     it."""
-    return hessian_workspace_bytes(coefficient_count(mixture.degrees, n), n)
+    return hessian_workspace_bytes(mixture.degrees, n)
 
 
 def coefficient_count(degrees: Iterable[int], n: int) -> int:

@@ -20,16 +20,22 @@ from __future__ import annotations
 __all__ = ["address_space_headroom"]
 
 
-def _status_bytes(field: str) -> int | None:
-    """A "Vm..." line of /proc/self/status (in kB there) in bytes, or None."""
+def _status_bytes() -> dict[str, int]:
+    """The "Vm..." lines of /proc/self/status (in kB there) in bytes, by field name; empty
+    when the file cannot be read. Read as bytes: its Name line is the process's name as the
+    kernel has it, which need not be ASCII or UTF-8 (a script named análisis.py)."""
     try:
-        with open("/proc/self/status", encoding="ascii") as fh:
-            for line in fh:
-                if line.startswith(field + ":"):
-                    return int(line.split()[1]) * 1024
-    except (OSError, ValueError, IndexError):
-        return None
-    return None
+        with open("/proc/self/status", "rb") as fh:
+            text = fh.read()
+    except OSError:
+        return {}
+    out = {}
+    for line in text.splitlines():
+        key, _, rest = line.partition(b":")
+        parts = rest.split()
+        if key.startswith(b"Vm") and parts and parts[0].isdigit():
+            out[key.decode("ascii", "replace")] = int(parts[0]) * 1024
+    return out
 
 
 def address_space_headroom() -> int | None:
@@ -39,15 +45,16 @@ def address_space_headroom() -> int | None:
         import resource
     except ImportError:  # pragma: no cover - non-POSIX
         return None
-    rooms = []
+    limits = []
     for limit, field in ((resource.RLIMIT_AS, "VmSize"), (resource.RLIMIT_DATA, "VmData")):
         try:
             soft, _ = resource.getrlimit(limit)
         except (OSError, ValueError):  # pragma: no cover - a platform without the limit
             continue
-        if soft == resource.RLIM_INFINITY:
-            continue
-        used = _status_bytes(field)
-        if used is not None:
-            rooms.append(max(soft - used, 0))
+        if soft != resource.RLIM_INFINITY:
+            limits.append((soft, field))
+    if not limits:
+        return None  # the common case: /proc is not read at all
+    used = _status_bytes()
+    rooms = [max(soft - used[field], 0) for soft, field in limits if field in used]
     return min(rooms) if rooms else None

@@ -311,7 +311,7 @@ def _check_largest_fits(spec: StudySpec, tasks: list[Task]) -> None:
             f"the study's largest instance ({name}, n = {n}) needs {need} bytes"
             f" ({format_bytes(need)}) of coefficients, but only {have} bytes"
             f" ({format_bytes(have)}) are available on this machine{binding_limit(have)};"
-            " drop that size, or run"
+            " drop that size, raise the limit that binds if one does, or run"
             " the study on a larger machine (--scheduler; scheduler= in Python)"
         )
 

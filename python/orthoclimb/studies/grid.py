@@ -277,7 +277,9 @@ class MethodSpec:
                     raise ValueError(
                         f"option {key} of {name} must be an integer >= 1{also}, got {value!r}"
                     )
-                if key in ("steps", "max_iter") and not auto and value > MAX_STEPS:
+                # max_iter had no bound before: a stored study is read as written
+                bounded = key == "steps" or (key == "max_iter" and not stored)
+                if bounded and not auto and value > MAX_STEPS:
                     raise ValueError(
                         f"option {key} of {name} must be at most {MAX_STEPS:_}, got {value}"
                     )
