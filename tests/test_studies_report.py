@@ -178,6 +178,36 @@ def test_a_partly_run_study_says_how_many_tasks_are_missing(tmp_path):
     assert "2 task(s) of the study have no result yet; rerun the sweep." in rep.findings
 
 
+def test_the_report_brings_the_tidy_table_in_step_with_the_row_files(tmp_path):
+    # a user trial: after kill -9 of a sweep's driver, results.parquet kept the rows of the
+    # last finished sweep (164 of 246 row files; none at all in a new study) and the report
+    # did not rewrite it, so pandas users read other data than the report. The report now
+    # writes the table of the rows it read (checked here with pyarrow and the csv module)
+    import csv
+
+    import pyarrow.parquet as pq
+
+    folder = tmp_path / "t"
+    _synthetic_study(folder, "20,40", lambda n, s: 1.6 - n ** (-2 / 3) + 0.01 * s)
+    store = Store(folder, build_report(folder).spec)
+    for name in ("results.parquet", "results.csv"):
+        (folder / name).unlink(missing_ok=True)  # as a killed driver leaves a new study
+    gone = store.spec.tasks()[0].task_id
+    store.row_path(gone).unlink()  # and the table of a study whose rows changed since
+    rep = write_report(folder, plots=False)
+    table = pq.read_table(folder / "results.parquet").to_pylist()
+    with open(folder / "results.csv", newline="") as fh:
+        from_csv = list(csv.DictReader(fh))
+    ids = sorted(r["task_id"] for r in store.rows())
+    assert len(ids) == len(store.spec.tasks()) - 1 and gone not in ids
+    assert sorted(r["task_id"] for r in table) == ids == sorted(r["task_id"] for r in from_csv)
+    assert rep.files["parquet"] == str(folder / "results.parquet")
+    # with --out the study folder is left alone and the table goes beside the report
+    out = tmp_path / "elsewhere"
+    write_report(folder, plots=False, out=out)
+    assert len(pq.read_table(out / "results.parquet")) == len(ids)
+
+
 def test_every_report_file_is_written_by_an_atomic_rename(tmp_path, monkeypatch):
     # results are never lost: each file appears by os.replace of a finished temporary, so a
     # crash mid-write leaves the previous report whole (common practice)
@@ -194,6 +224,7 @@ def test_every_report_file_is_written_by_an_atomic_rename(tmp_path, monkeypatch)
     monkeypatch.setattr(fileio.os, "replace", recording)
     write_report(tmp_path / "a")
     expected = {"report.md", "report.json", "energy_vs_n.png", "distribution.png"}
+    expected |= {"results.parquet", "results.csv"}
     assert expected <= set(renamed), renamed
     written = {p.name for p in (tmp_path / "a").iterdir() if p.is_file()}
     assert expected <= written
@@ -499,6 +530,7 @@ def test_report_out_writes_elsewhere_and_a_failed_write_points_to_it(tmp_path, c
     assert sorted(p.name for p in folder.iterdir()) == before
     for name in ("report.md", "report.json", "energy_vs_n.png", "distribution.png"):
         assert (out / name).stat().st_size > 0
+    assert (out / "results.parquet").stat().st_size > 0  # the table the report read
     assert f"report: {out / 'report.md'}" in capsys.readouterr().out
     # a study folder that cannot take the report (here a folder stands at report.md)
     (folder / "report.md").mkdir()

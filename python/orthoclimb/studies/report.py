@@ -60,7 +60,7 @@ from .points import (
     readable_end_points,
 )
 from .report_plots import PLOT_FILES, plot_files
-from .store import Store, read_config
+from .store import TABLE_FILES, Store, read_config, table_files
 from .tasks import theory_values
 
 __all__ = ["Report", "build_report", "write_report"]
@@ -87,6 +87,8 @@ class Report:
     limit_differences: list[dict[str, Any]] = field(default_factory=list)
     #: the energies per (mixture, series, n), one per seed: what the figures draw
     energies: dict[tuple[str, str, int], np.ndarray] = field(default_factory=dict, repr=False)
+    #: the rows read, one per completed task: the tidy table written beside the report
+    rows: list[dict[str, Any]] = field(default_factory=list, repr=False)
 
     @property
     def before_polish(self) -> bool:
@@ -331,7 +333,7 @@ def build_report(
     missing = len(spec.tasks()) - len(rows)
     degrees = {m.name: m.mixture.max_degree for m in spec.mixtures}
     rep = Report(spec, groups, fits, theory, [], missing, cost=cost_table(rows, degrees))
-    rep.labels, rep.energies = labels, data
+    rep.labels, rep.energies, rep.rows = labels, data, rows
     points, unreadable = readable_end_points(Path(folder), rows)  # sweep --keep-points
     fields = {m.name: m.mixture.gammas[1] for m in spec.mixtures if m.mixture.has_field}
     by_run = end_point_overlaps(
@@ -792,15 +794,18 @@ def write_report(
     plots: bool = True,
     out: str | os.PathLike | None = None,
 ) -> Report:
-    """Compute the report and write report.md, report.json and the plots into ``out``
-    (default: the study ``folder``; a study on a read-only medium needs another)."""
+    """Compute the report and write report.md, report.json, the plots and the tidy table of
+    the rows it read (results.parquet, results.csv) into ``out`` (default: the study
+    ``folder``; a study on a read-only medium needs another). A sweep writes the table when it
+    ends; a driver killed outright (kill -9, out of memory) left it behind its row files,
+    which the report brings it back in step with (a user trial)."""
     from ..errors import OutputPathError
 
     folder = Path(folder)
     target = folder if out is None else Path(out)
     if out is not None:  # a bad --out fails before the work, not after the bootstrap
         ensure_folder(target, "the report's folder")
-    names = REPORT_FILES + (PLOT_FILES if plots else ())
+    names = REPORT_FILES + TABLE_FILES + (PLOT_FILES if plots else ())
     for name in names:  # so does a folder standing where a file goes
         refuse_folder(target / name, "remove it or give --out FOLDER (out= in Python)")
     rep = build_report(folder, exponent, level, n_boot)
@@ -809,6 +814,9 @@ def write_report(
     files = []
     # the energies build_report read: the row files are not read and checked again
     for name, path, writer in plot_files(rep, rep.energies, target) if plots else []:
+        rep.files[name] = str(path)
+        files.append((path, writer))
+    for name, (path, writer) in table_files(rep.rows, target).items():
         rep.files[name] = str(path)
         files.append((path, writer))
     rep.files["markdown"] = str(target / "report.md")

@@ -481,25 +481,39 @@ class Store:
 
     def write_table(self) -> dict[str, Path]:
         """Write results.parquet and results.csv (atomically) from the row files."""
-        import pyarrow as pa
-        import pyarrow.csv as pacsv
-        import pyarrow.parquet as pq
+        written = {}
+        for name, (path, writer) in table_files(self.rows(), self.folder).items():
+            written[name] = write_atomic(path, writer)
+        return written
 
-        rows = self.rows()
-        if rows:
-            # every field of every row: from_pylist takes the columns of the first row only,
-            # so rows of an older version (no start_seed) would drop a newer field
-            fields = list(dict.fromkeys(k for r in rows for k in r))
-            table = pa.Table.from_pylist([{k: r.get(k) for k in fields} for r in rows])
-            for i, column in enumerate(table.schema):  # a number missing in every row (null)
-                if pa.types.is_null(column.type):  # stays a number column, not Arrow's null
-                    table = table.set_column(i, column.name, table.column(i).cast(pa.float64()))
-        else:
-            table = pa.table({"task_id": pa.array([], pa.string())})
-        buf = io.BytesIO()
-        pq.write_table(table, buf)
-        parquet = write_atomic(self.folder / "results.parquet", lambda fh: fh.write(buf.getvalue()))
-        cbuf = io.BytesIO()
-        pacsv.write_csv(table, cbuf)
-        csv = write_atomic(self.folder / "results.csv", lambda fh: fh.write(cbuf.getvalue()))
-        return {"parquet": parquet, "csv": csv}
+
+TABLE_FILES = ("results.parquet", "results.csv")
+
+
+def table_files(rows: list[dict[str, Any]], folder: Path) -> dict[str, tuple[Path, Any]]:
+    """The tidy table of ``rows`` (one per completed task) as {"parquet": (path, writer),
+    "csv": (path, writer)} in ``folder``, each writer taking a binary file, for
+    :func:`~orthoclimb.fileio.write_atomic` or for staging with a report's files."""
+    import pyarrow as pa
+    import pyarrow.csv as pacsv
+    import pyarrow.parquet as pq
+
+    if rows:
+        # every field of every row: from_pylist takes the columns of the first row only,
+        # so rows of an older version (no start_seed) would drop a newer field
+        fields = list(dict.fromkeys(k for r in rows for k in r))
+        table = pa.Table.from_pylist([{k: r.get(k) for k in fields} for r in rows])
+        for i, column in enumerate(table.schema):  # a number missing in every row (null)
+            if pa.types.is_null(column.type):  # stays a number column, not Arrow's null
+                table = table.set_column(i, column.name, table.column(i).cast(pa.float64()))
+    else:
+        table = pa.table({"task_id": pa.array([], pa.string())})
+    buf = io.BytesIO()
+    pq.write_table(table, buf)
+    cbuf = io.BytesIO()
+    pacsv.write_csv(table, cbuf)
+    parquet, csv = buf.getvalue(), cbuf.getvalue()
+    return {
+        "parquet": (folder / TABLE_FILES[0], lambda fh: fh.write(parquet)),
+        "csv": (folder / TABLE_FILES[1], lambda fh: fh.write(csv)),
+    }
