@@ -15,6 +15,18 @@ from orthoclimb.studies.laws import law_regions, verdict
     [
         (1.445, (1.40, 1.49), None, -1.9, "0.0550 below ALG = 1.5000 (-1.9 s.e. under"),
         (1.50, (1.45, 1.55), None, -0.5, "consistent with ALG = 1.5000 (-0.5 s.e.)"),
+        # ALG in the chosen interval but outside that of n^(-1), which the data keep too: said
+        # (a user trial read "consistent with ALG" beside a kept law that excluded it)
+        (
+            1.49,
+            (1.45, 1.53),
+            (1.40, 1.47, 0.25),
+            -0.5,
+            "consistent with ALG = 1.5000 (-0.5 s.e.), not under n^(-1), which the data also keep",
+        ),
+        # ... and nothing is added when n^(-1) holds ALG too, or when the data reject it
+        (1.50, (1.45, 1.55), (1.48, 1.56, 0.4), -0.5, "consistent with ALG = 1.5000 (-0.5 s.e.)"),
+        (1.50, (1.45, 1.55), (1.40, 1.47, 0.01), 0.0, "ALG = 1.5000 (+0.0 s.e.)"),
         (1.555, (1.51, 1.60), None, 2.5, "above ALG"),
         # ALG outside the chosen interval, inside the n^(-1) law's, which fits
         (1.555, (1.51, 1.60), (1.47, 1.53, 0.4), 2.5, "only under n^(-1) (+2.5 s.e. under"),
@@ -42,7 +54,10 @@ def test_the_verdict_agrees_with_the_printed_intervals(value, interval, other, z
     if other is not None:
         fit["other_laws"] = [{"exponent": 1.0, "low": other[0], "high": other[1]}]
         fit["other_laws"][0].update(fit_p=other[2], value=(other[0] + other[1]) / 2)
-    assert words in verdict(fit, 1.5, z, "ALG")
+    got = verdict(fit, 1.5, z, "ALG")
+    assert words in got
+    if "not under" not in words:
+        assert "not under" not in got
 
 
 def test_a_gap_between_kept_laws_counts_only_without_a_rejected_law_inside_it():

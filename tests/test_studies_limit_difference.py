@@ -194,3 +194,18 @@ def test_zero_between_two_kept_laws_names_that_pair():
     }  # fmt: skip
     line = limit_difference_line(f)
     assert "equal limits only under a law between n^(-2/3) and n^(-1) (+3.3 s.e." in line
+
+
+def test_equal_limits_name_a_kept_law_that_excludes_them():
+    # as the verdicts against ALG: 0 in the chosen law's interval but outside that of n^(-1),
+    # which the data keep too, is said (a user trial)
+    from orthoclimb.studies.limit_difference import _reading
+
+    fit = {"se": 0.01, "z0": 0.5, "value": 0.005, "low": -0.01, "high": 0.02, "exponent": 2 / 3}
+    fit.update(fit_p=0.5, a="hessian", b="gradient", law_low=-0.01, law_high=0.05)
+    fit["other_laws"] = [{"exponent": 1.0, "low": 0.01, "high": 0.05, "fit_p": 0.3, "value": 0.03}]
+    assert _reading(fit) == (
+        "consistent with equal limits (+0.5 s.e.), not under n^(-1), which the data also keep"
+    )
+    fit["other_laws"][0]["fit_p"] = 0.01  # rejected: nothing to add
+    assert _reading(fit) == "consistent with equal limits (+0.5 s.e.)"

@@ -9,8 +9,9 @@ repeated under the exponents ``OTHER_LAWS`` (:func:`add_other_laws`), each law i
 (all of them when every one is rejected, with a warning). The range [``law_low``,
 ``law_high``] spans the kept laws' intervals; an exponent between two kept ones fits too, so
 the gap between their intervals belongs to the range. The verdicts against ALG and GS read it:
-"consistent with" when the target lies in the chosen law's interval and that law is kept;
-"only under" another law when it lies elsewhere in the range; "below"/"above" outside it.
+"consistent with" when the target lies in the chosen law's interval and that law is kept
+(naming any other kept law whose interval excludes it: "..., not under n^(-1)"); "only under"
+another law when it lies elsewhere in the range; "below"/"above" outside it.
 "Consistent" is thus a test at 1 - level, with no correction for the two targets compared.
 
 Measured over synthetic studies (400 per cell; 3 or 5 sizes from 50 to 800; 5, 20, 80 seeds;
@@ -42,6 +43,7 @@ __all__ = [
     "Z_CONSISTENT",
     "add_other_laws",
     "against_theory",
+    "excluded_by",
     "fit_laws",
     "is_rejected",
     "kept_laws",
@@ -198,7 +200,7 @@ def verdict(f: dict[str, Any], target: float, z: float, what: str) -> str:
     chosen = power_text(f["exponent"])
     rejected = "" if chosen_kept else ", which the data reject"
     if chosen_kept and low <= target <= high:
-        return f"consistent with {what} = {target:.4f} ({zt})"
+        return f"consistent with {what} = {target:.4f} ({zt}){excluded_by(f, kept, target)}"
     for run in law_regions(f):
         lo, hi = region_span(run)
         if not lo <= target <= hi:
@@ -223,6 +225,23 @@ def verdict(f: dict[str, Any], target: float, z: float, what: str) -> str:
         f" {power_text(near['exponent'])}, the nearest law the data keep (the rejected {chosen}"
         f" gives {value:.4f}, {zt})"
     )
+
+
+def excluded_by(f: dict[str, Any], kept: list[dict[str, Any]], target: float) -> str:
+    """ ", not under n^(-1), which the data also keep" when the intervals of other kept laws
+    than the chosen ``f`` exclude ``target`` (a user trial: an anneal read "consistent with
+    ALG" while the kept n^(-1) law's interval lay below ALG), else ""."""
+    others = [
+        law
+        for law in kept
+        if law is not f
+        and math.isfinite(law["low"])
+        and math.isfinite(law["high"])
+        and not law["low"] <= target <= law["high"]
+    ]
+    if not others:
+        return ""
+    return f", not under {powers_text(others)}, which the data also keep"
 
 
 def _laws_holding(run: list[dict[str, Any]], target: float) -> str:

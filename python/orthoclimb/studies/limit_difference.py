@@ -32,6 +32,7 @@ from .extrapolate import extrapolate
 from .laws import (
     _laws_holding,
     add_other_laws,
+    excluded_by,
     kept_laws,
     law_regions,
     over_text,
@@ -146,7 +147,7 @@ def _reading(f: dict[str, Any]) -> str:
     chosen_kept = any(law is f for law in kept)
     chosen = power_text(f["exponent"]) + ("" if chosen_kept else ", which the data reject")
     if chosen_kept and f["low"] <= 0.0 <= f["high"]:
-        return f"consistent with equal limits ({z})"
+        return f"consistent with equal limits ({z}){excluded_by(f, kept, 0.0)}"
     for run in law_regions(f):
         lo, hi = region_span(run)
         if lo <= 0.0 <= hi:
