@@ -108,6 +108,12 @@ def test_sweep_on_two_worker_local_cluster(tmp_path):
     # the command line printed the memory and the time estimate)
     assert said[0] == f"study: 16 tasks (0 already done, 16 to run) in {tmp_path / 's'}"
     assert said[1].startswith("largest instance: ") and "of coefficients" in said[1]
+    # every method with every option it runs with (a user trial missed that --steps had set
+    # anneal's steps too)
+    assert said[2] == (
+        "methods: hessian (polish = True, start = auto, steps = 10, tol = 0.001);"
+        " gradient (gtol = 1e-07, max_iter = 2000)"
+    )
     assert any(line.startswith("rough time estimate: ") for line in said)
     assert out.done == len(spec.tasks()) == 16 and out.failed == 0
     table = pq.read_table(tmp_path / "s" / "results.parquet").to_pylist()

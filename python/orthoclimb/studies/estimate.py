@@ -73,6 +73,7 @@ __all__ = [
     "gradient_passes",
     "largest_instance",
     "largest_size_within",
+    "methods_line",
     "plan_lines",
     "polish_extra",
     "polish_passes",
@@ -382,6 +383,17 @@ def grouping_text(pending: list, slots: int) -> str | None:
     )
 
 
+def methods_line(spec: StudySpec) -> str:
+    """The methods and every option they run with, for the plan: "methods: hessian (steps =
+    40, tol = 0.001, ...); anneal (steps = 40, ...)" (a user trial did not see that --steps
+    had set anneal's Langevin steps as well as Hessian ascent's K)."""
+    parts = []
+    for m in spec.methods:
+        opts = ", ".join(f"{k} = {v}" for k, v in m.options)
+        parts.append(f"{m.name} ({opts})" if opts else m.name)
+    return "methods: " + "; ".join(parts)
+
+
 def plan_lines(
     spec: StudySpec,
     folder: str,
@@ -410,6 +422,7 @@ def plan_lines(
         f" in {folder}",
         f"largest instance: {mix}, n = {n}: {format_bytes(nbytes)} of coefficients per running"
         " task (or group of tasks on one instance)",
+        methods_line(spec),
     ]
     if plan is not None:
         shared = grouping_text(pending, plan.workers)
