@@ -92,6 +92,25 @@ def test_a_row_of_a_newer_format_is_not_to_be_deleted(tmp_path):
     assert "delete" not in str(info.value)
 
 
+@pytest.mark.parametrize("version", [2, 99])
+def test_a_study_of_a_newer_format_is_refused_as_such(tmp_path, version):
+    # a user trial: "format": 2 in study.json was read (and reported) as format 1, and 99
+    # with another config failed on a missing key; the README promises newer files fail
+    import json
+
+    from orthoclimb.studies.store import read_config
+
+    Store.open(tmp_path / "s", _spec())
+    path = tmp_path / "s" / "study.json"
+    doc = json.loads(path.read_text())
+    doc["format"] = version
+    if version == 99:
+        doc["config"] = {}
+    path.write_text(json.dumps(doc))
+    with pytest.raises(ValueError, match=rf"its format {version} is newer than this orthoclimb"):
+        read_config(tmp_path / "s")
+
+
 def _study(order=("a", "b"), own_b=(8,), seeds=(0, 1), methods=("gradient",), exponent=None):
     mixtures = {
         "a": MixtureSpec.make(Mixture({3: 1.0}), "a"),

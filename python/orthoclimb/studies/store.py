@@ -176,10 +176,24 @@ def read_config(folder: str | os.PathLike) -> StudySpec:
         raise ValueError(f"{str(folder)!r} is not a study folder (no study.json)")
     try:
         data = json.loads(path.read_text(encoding="utf-8"))
+        version = data.get("format") if isinstance(data, dict) else None
+        # a newer study.json is refused as a newer row file is, not read as this version's
+        # (a user trial: "format": 2 was reported as usual, "format": 99 failed on a key)
+        if isinstance(version, int) and not isinstance(version, bool) and version > FORMAT:
+            raise ValueError(
+                f"its format {version} is newer than this orthoclimb {_version()} reads"
+                f" ({FORMAT}); use a newer orthoclimb"
+            )
         return StudySpec.from_dict(data["config"])
     except (OSError, ValueError, KeyError, TypeError, AttributeError, RecursionError) as exc:
         # ValueError covers malformed JSON, non-UTF-8 bytes and invalid configuration values
         raise ValueError(f"cannot read {str(path)!r}: {exc}") from None
+
+
+def _version() -> str:
+    from .. import __version__
+
+    return __version__
 
 
 _ROW_FIELDS: dict[str, tuple[type, ...]] = {
