@@ -143,3 +143,27 @@ def test_ctrl_c_stops_sampling():
     assert report["outcome"] == "KeyboardInterrupt", report
     assert report["delay"] < 1.0, report
     assert report["n"] == 20
+
+
+def test_the_program_ignores_ctrl_c_once_its_command_has_finished():
+    # a user trial: SIGINT in the few tenths of a second after a sweep's last line (the
+    # interpreter closing its cluster) turned a finished study's status 0 into a silent 130.
+    # The installed program (pyproject's console script) runs console_main, which ignores
+    # SIGINT after the command; main itself, for callers in Python, leaves the handler alone
+    from pathlib import Path
+
+    pyproject = (Path(__file__).parent.parent / "pyproject.toml").read_text()
+    assert '\northoclimb = "orthoclimb.cli:console_main"\n' in pyproject
+    code = textwrap.dedent(
+        """
+        import signal, sys
+        from orthoclimb.cli import console_main, main
+        sys.argv = ["orthoclimb", "theory", "--gammas", "3:1", "--json"]
+        assert main() == 0 and signal.getsignal(signal.SIGINT) is signal.default_int_handler
+        assert console_main() == 0 and signal.getsignal(signal.SIGINT) is signal.SIG_IGN
+        print("ok")
+        """
+    )
+    proc = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, timeout=120)
+    assert proc.returncode == 0, proc.stderr[-2000:]
+    assert proc.stdout.strip().endswith("ok")

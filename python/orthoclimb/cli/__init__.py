@@ -220,5 +220,20 @@ def main(argv: Sequence[str] | None = None) -> int:
         return 130
 
 
+def console_main() -> int:
+    """The ``orthoclimb`` program: :func:`main`, and then SIGINT ignored while the interpreter
+    shuts down (closing a sweep's cluster takes a few tenths of a second after its last line:
+    a Ctrl-C there turned a finished study's exit status 0 into a silent 130, a user trial).
+    Not in :func:`main` itself, which callers in Python (tests, notebooks) keep using."""
+    import signal
+
+    code = main()
+    try:
+        signal.signal(signal.SIGINT, signal.SIG_IGN)
+    except ValueError:  # pragma: no cover - not the main thread
+        pass
+    return code
+
+
 if __name__ == "__main__":  # pragma: no cover
-    sys.exit(main())
+    sys.exit(console_main())
