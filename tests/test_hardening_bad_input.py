@@ -595,7 +595,8 @@ CASES = [
         " result = cli(['sweep', '--gammas', '3:1', '--n', '8,12', '--seeds', '0-1',"
         " '--methods', 'gradient', '--out', f, '--no-progress'])",
         None,
-        r"s8' holds a study with a different configuration \(differs in: sizes\)",
+        r"s8' holds a study with a different configuration \(differs in: sizes: \[8,10\] in"
+        r" the folder, \[8,12\] now\)",
         cli=True,
     ),
     Case(
@@ -603,7 +604,8 @@ CASES = [
         "f = study_copy('s9');"
         " result = cli(['sweep', *SWEEP, '--max-iter', '7', '--out', f, '--no-progress'])",
         None,
-        r"s9' holds a study with a different configuration \(differs in: methods\)",
+        r"s9' holds a study with a different configuration \(differs in: methods: .*"
+        r"\"max_iter\":7.* now\)",
         cli=True,
     ),
     Case(

@@ -94,6 +94,9 @@ def test_ties_of_a_mixture_of_even_degrees_may_be_mirror_points():
     even = head_to_head("m", "x", "y", seeds, {**theory, "even": True})
     assert "stopped at the same point (" in plain and "mirror" not in plain
     assert "stopped at the same point or its mirror -x (" in even
+    # the width said is the rule's, 1e-9 of |GS| = 1.5e-9 here (a user trial read "1e-09",
+    # the width rounded to one digit)
+    assert "(energies within 1.5e-09 per spin, 1e-09 of |GS|)" in plain
 
 
 @pytest.mark.parametrize("bad", [math.nan, math.inf, -math.inf])

@@ -167,7 +167,8 @@ def _compare_line(c: dict[str, Any], th: dict[str, Any]) -> str:
     if c["nonzero"] == 0:
         return (
             f"{mix}, n = {n}: {a} and {b} stopped at {same} (energies within "
-            f"{tie_width(th):.0e} per spin) on all {paired} paired seeds."
+            f"{tie_width(th):.2g} per spin, {TIE_RELATIVE:g} of |GS|) on all {paired} paired"
+            " seeds."
         )
     sign = (
         f"{a} higher on {c['higher']}, {b} on {c['lower']}, {same} on "

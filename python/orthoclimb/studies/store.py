@@ -90,6 +90,19 @@ def _differences(old: dict, new: dict) -> list[str]:
     return [k for k in keys if _canonical(old.get(k)) != _canonical(new.get(k))]
 
 
+def _differences_text(old: dict, new: dict, diff: list[str]) -> str:
+    """The differing keys with both values, shortened: "methods: [...] in the folder, [...]
+    now" (a user trial: the names alone did not say that steps were 30 there, 40 here)."""
+
+    def short(value: Any) -> str:
+        text = _canonical(value)
+        return text if len(text) <= 160 else text[:157] + "..."
+
+    return "; ".join(
+        f"{k}: {short(old.get(k))} in the folder, {short(new.get(k))} now" for k in diff
+    )
+
+
 _GROWABLE = ("seeds", "sizes")
 
 
@@ -377,7 +390,8 @@ class Store:
                     )
                 raise StudyMismatchError(
                     f"the folder {str(folder)!r} holds a study with a different configuration "
-                    f"(differs in: {', '.join(diff)}); refusing to mix two studies. Use another "
+                    f"(differs in: {_differences_text(old, json.loads(_canonical(config)), diff)});"
+                    " refusing to mix two studies. Use another "
                     "folder (--out; folder= in Python), rerun with the same configuration to"
                     " resume, or add seeds or "
                     f"sizes (keeping the old ones) to extend it{hint}"
