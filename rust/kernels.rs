@@ -62,7 +62,7 @@ pub fn pieces(num_coefficients: usize, acc_len: usize) -> usize {
     }
 }
 
-/// The accumulators (groups of [`plan`](crate::partition::plan)) of a pass with `acc_len`
+/// The accumulators (groups of [`plan`]) of a pass with `acc_len`
 /// numbers per accumulator over a polynomial of these degrees at n, taking first indices in
 /// runs of `quantum` ([`QUANTUM`] for the single-point kernels, 1 for the batch and
 /// multi-direction ones): [`pieces`] groups, or a few more where several degrees are each cut

@@ -25,6 +25,7 @@ use crate::combinatorics::{advance, num_multisets};
 use crate::error::{finite, finite_rows, CoreError, KernelResult};
 use crate::exec::Exec;
 use crate::kernels;
+use crate::partition::QUANTUM;
 use crate::sampling::Disorder;
 use crate::simd::simd_path;
 use crate::storage::{storage_bytes, Packed};
@@ -627,7 +628,7 @@ fn pass_accumulators(
     acc_len: usize,
     single_point: bool,
 ) -> PyResult<usize> {
-    let quantum = if single_point { crate::partition::QUANTUM } else { 1 };
+    let quantum = if single_point { QUANTUM } else { 1 };
     kernels::accumulator_count(n, &degrees, acc_len, quantum).map_err(|e| to_py_err(py, e))
 }
 
