@@ -176,6 +176,28 @@ def test_a_partly_run_study_says_how_many_tasks_are_missing(tmp_path):
     rep = build_report(tmp_path / "p")
     assert rep.missing == 2
     assert "2 task(s) of the study have no result yet; rerun the sweep." in rep.findings
+    assert rep.stray_files == [] and not any("rows/" in f for f in rep.findings)
+
+
+def test_files_in_rows_that_belong_to_no_task_are_named_not_read(tmp_path):
+    # a user trial: a row copied from another study, a renamed duplicate and a note in rows/
+    # were ignored without a word; the report still reads only its tasks' rows, and says so
+    _synthetic_study(tmp_path / "p", "20,40", lambda n, s: 1.6 - n ** (-2 / 3) + 0.01 * s)
+    store = Store(tmp_path / "p", build_report(tmp_path / "p").spec)
+    first = store.row_path(store.spec.tasks()[0].task_id)
+    (first.parent / "copy-of-a-row.json").write_bytes(first.read_bytes())
+    (first.parent / "notes.txt").write_text("seed 3 looked odd")
+    (first.parent / ".partial.json.tmp").write_text("{")  # a write in progress: not named
+    rep = build_report(tmp_path / "p")
+    assert rep.stray_files == ["copy-of-a-row.json", "notes.txt"]
+    assert (
+        "2 file(s) in rows/ are no row of this study's tasks and were not read"
+        " (copy-of-a-row.json, notes.txt)"
+    ) in rep.findings[-1]
+    assert rep.to_dict()["stray_row_files"] == ["copy-of-a-row.json", "notes.txt"]
+    (first.parent / "copy-of-a-row.json").unlink()
+    (first.parent / "notes.txt").unlink()
+    assert rep.groups == build_report(tmp_path / "p").groups  # nothing of them was read
 
 
 def test_the_report_brings_the_tidy_table_in_step_with_the_row_files(tmp_path):

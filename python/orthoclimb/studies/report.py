@@ -89,6 +89,8 @@ class Report:
     energies: dict[tuple[str, str, int], np.ndarray] = field(default_factory=dict, repr=False)
     #: the rows read, one per completed task: the tidy table written beside the report
     rows: list[dict[str, Any]] = field(default_factory=list, repr=False)
+    #: files in rows/ that are no row of the study's tasks, not read (Store.stray_files)
+    stray_files: list[str] = field(default_factory=list)
 
     @property
     def before_polish(self) -> bool:
@@ -159,6 +161,7 @@ class Report:
             "theory": self.theory,
             "findings": self.findings,
             "missing_tasks": self.missing,
+            "stray_row_files": self.stray_files,
             "cost": self.cost,
             "end_point_overlaps": self.overlaps,
             "end_point_overlaps_by_run": self.overlaps_by_run,
@@ -334,6 +337,7 @@ def build_report(
     degrees = {m.name: m.mixture.max_degree for m in spec.mixtures}
     rep = Report(spec, groups, fits, theory, [], missing, cost=cost_table(rows, degrees))
     rep.labels, rep.energies, rep.rows = labels, data, rows
+    rep.stray_files = store.stray_files()
     points, unreadable = readable_end_points(Path(folder), rows)  # sweep --keep-points
     fields = {m.name: m.mixture.gammas[1] for m in spec.mixtures if m.mixture.has_field}
     by_run = end_point_overlaps(
@@ -598,6 +602,13 @@ def _findings(rep: Report, seeds: dict) -> list[str]:
                 out.append(text + ".")
     if rep.missing:
         out.append(f"{rep.missing} task(s) of the study have no result yet; rerun the sweep.")
+    if rep.stray_files:
+        shown = ", ".join(rep.stray_files[:3]) + (", ..." if len(rep.stray_files) > 3 else "")
+        out.append(
+            f"{len(rep.stray_files)} file(s) in rows/ are no row of this study's tasks and were"
+            f" not read ({shown}): a row of another study or configuration, or a file put"
+            " there by hand."
+        )
     return out
 
 

@@ -455,6 +455,20 @@ class Store:
             return set()
         return {p.stem for p in self.rows_dir.glob("*.json") if not p.name.startswith(".")}
 
+    def stray_files(self) -> list[str]:
+        """Names of the files in rows/ that are no row of this study's tasks (sorted; hidden
+        and temporary files aside): a row copied from another study, a renamed duplicate, a
+        note. The report reads only its tasks' rows and says these were not read (a user
+        trial: they were ignored without a word)."""
+        if not self.rows_dir.is_dir():
+            return []
+        ids = {t.task_id for t in self.spec.tasks()}
+        return sorted(
+            p.name
+            for p in self.rows_dir.iterdir()
+            if not p.name.startswith(".") and not (p.suffix == ".json" and p.stem in ids)
+        )
+
     def pending(self, tasks: Iterable) -> list:
         done = self.completed_ids()
         return [t for t in tasks if t.task_id not in done]
