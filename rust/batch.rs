@@ -610,16 +610,34 @@ pub fn hvp_many<T: Coef>(
     k: usize,
 ) -> Result<Vec<f64>, CoreError> {
     let n = poly.n();
-    check_len("x", n, x.len())?;
     let len = n.checked_mul(k).ok_or_else(|| CoreError::SizeOverflow {
         what: format!("{k} directions"),
     })?;
     check_len("directions (n x k)", len, vs.len())?;
     let rows = transpose(vs, n, k, k, n)?; // k x n: one contiguous row per direction
+    hvp_many_rows(exec, poly, x, &rows, k)
+}
+
+/// [`hvp_many`] with the directions given as `rows`, k x n row-major (one contiguous row per
+/// direction, the layout the pass reads), which saves the caller a copy of n x k numbers; the
+/// result is n x k row-major.
+pub fn hvp_many_rows<T: Coef>(
+    exec: &Exec,
+    poly: &Packed<T>,
+    x: &[f64],
+    rows: &[f64],
+    k: usize,
+) -> Result<Vec<f64>, CoreError> {
+    let n = poly.n();
+    check_len("x", n, x.len())?;
+    let len = n.checked_mul(k).ok_or_else(|| CoreError::SizeOverflow {
+        what: format!("{k} directions"),
+    })?;
+    check_len("directions (k x n)", len, rows.len())?;
     let items = items_for(poly, pieces(poly.num_coefficients(), len), 2 * k + 1, 1);
     let blocks = poly.blocks();
     let (_, w) = reduce_sums(exec, &items, 0, len, |it, _, w| {
-        hvp_many_item::<T>(n, &blocks[it.block].coeffs, it, x, &rows, w, exec);
+        hvp_many_item::<T>(n, &blocks[it.block].coeffs, it, x, rows, w, exec);
     })?;
     transpose(&w, k, n, n, k)
 }

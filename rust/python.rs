@@ -246,6 +246,53 @@ fn input2(
     Ok(copy)
 }
 
+/// The directions V of shape (n, k) as the multi-direction pass reads them, k x n (one row
+/// per direction): the kernel's snapshot of the input, as [`input2`] takes one, but
+/// transposed while it is copied, so that the call holds n x k numbers fewer. Checked finite,
+/// a bad entry named by its place in V ("v row i", index j).
+fn directions_by_row(
+    py: Python<'_>,
+    v: &PyReadonlyArray2<'_, f64>,
+    n: usize,
+) -> PyResult<Vec<f64>> {
+    let (got, k) = (v.shape()[0], v.shape()[1]);
+    if got != n {
+        return Err(PyValueError::new_err(format!(
+            "v must have n = {n} rows, got {got}"
+        )));
+    }
+    let src = slice2(v, "v")?;
+    let mut rows = crate::error::try_zeroed::<f64>(src.len()).map_err(|e| to_py_err(py, e))?;
+    // each value read once, into the snapshot and into the check (the first bad one in V's
+    // own order, as input2 names it)
+    let mut bad = None;
+    for (i, line) in src.chunks_exact(k.max(1)).enumerate() {
+        for (j, &value) in line.iter().enumerate() {
+            rows[j * n + i] = value;
+            if bad.is_none() && !value.is_finite() {
+                bad = Some((i, j, value));
+            }
+        }
+    }
+    if let Some((i, j, value)) = bad {
+        let what = if n > 1 {
+            format!("v row {i}")
+        } else {
+            "v".to_string()
+        };
+        return Err(to_py_err(
+            py,
+            CoreError::NonFiniteInput {
+                what,
+                index: j,
+                value,
+                dtype: "float64",
+            },
+        ));
+    }
+    Ok(rows)
+}
+
 /// (energies (b,), gradients (b, n)) as NumPy arrays.
 type EnergiesGradients<'py> = (Bound<'py, PyArray1<f64>>, Bound<'py, PyArray2<f64>>);
 
@@ -499,12 +546,12 @@ impl PyPacked {
         v: PyReadonlyArray2<'_, f64>,
     ) -> PyResult<Bound<'py, PyArray2<f64>>> {
         let shape = [v.shape()[0], v.shape()[1]];
-        let (x, vs) = (&input1(&x, "x")?, &input2(py, &v, "v", 0, self.n())?);
+        let (x, rows) = (&input1(&x, "x")?, &directions_by_row(py, &v, self.n())?);
         let w = run_kernel(
             py,
             "Hessian-vector product",
             self.work(8 + 2 * shape[1]),
-            |pool| on_storage!(&self.inner, p => batch::hvp_many(pool, p, x, vs, shape[1])),
+            |pool| on_storage!(&self.inner, p => batch::hvp_many_rows(pool, p, x, rows, shape[1])),
         )?;
         w.into_pyarray(py).reshape(shape)
     }

@@ -206,7 +206,7 @@ def test_hvp_with_several_directions_takes_the_faster_route(monkeypatch, rng):
     # past 64 MiB the Hessian still serves while it is at most an eighth of the coefficients
     # (51.2 kB against 993.8 kB here), whatever the memory; if the Hessian cannot be
     # allocated, the call falls back to the multi-direction pass instead of failing (the
-    # Hessian's 51.2 kB do not fit in 20 kB, the pass's 12.8 kB do); when neither fits, it
+    # Hessian's 51.2 kB do not fit in 20 kB, the pass's 11.2 kB do); when neither fits, it
     # is refused
     monkeypatch.setattr(hamiltonian_module, "_CHECKED_WORKSPACE", 0)
     np.testing.assert_array_equal(ham.hvp(x, vs), ham.hessian(x) @ vs)
@@ -215,7 +215,7 @@ def test_hvp_with_several_directions_takes_the_faster_route(monkeypatch, rng):
     scale = 1.0 + np.abs(ham.hessian(x, check_memory=False)).max()
     _close(ham.hvp(x, vs), ham.hessian(x, check_memory=False) @ vs, scale)
     monkeypatch.setattr(memory, "available_memory", lambda: 10_000)
-    with pytest.raises(InsufficientMemoryError, match="5 directions at n = 40 needs 12800 bytes"):
+    with pytest.raises(InsufficientMemoryError, match="5 directions at n = 40 needs 11200 bytes"):
         ham.hvp(x, vs)
 
 

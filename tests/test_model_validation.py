@@ -266,17 +266,17 @@ def test_a_hessian_workspace_beyond_the_available_memory_is_refused(monkeypatch)
 
 def test_many_directions_beyond_the_available_memory_are_refused_before_the_pass(monkeypatch):
     # pure p = 2 at n = 2100 takes the multi-direction pass (its Hessian's workspace is over
-    # 64 MiB); 1000 directions need the core's copy and transpose of them, one accumulator
-    # and the result: 4 * 2100 * 1000 * 8 = 67.2 MB, checked from 64 MiB on. A user trial
-    # saw 10^5 directions under ulimit -v fail an allocation after 8.4 s (of copying and
+    # 64 MiB); 1400 directions need the core's transposed copy of them, one accumulator and
+    # the result: 3 * 2100 * 1400 * 8 = 70.56 MB, checked from 64 MiB on. A user trial saw
+    # 10^5 directions under ulimit -v fail an allocation after 8.4 s (of copying and
     # transposing them) instead.
     from orthoclimb.model import memory
 
     ham = oc.Hamiltonian.sample(oc.Mixture({2: 1.0}), 2100, seed=0)
-    x, v = np.full(2100, 2100**-0.5), np.ones((2100, 1000))
+    x, v = np.full(2100, 2100**-0.5), np.ones((2100, 1400))
     monkeypatch.setattr(memory, "available_memory", lambda: 10**6)
     with pytest.raises(
-        InsufficientMemoryError, match="1000 directions at n = 2100 needs 67200000 bytes"
+        InsufficientMemoryError, match="1400 directions at n = 2100 needs 70560000 bytes"
     ):
         ham.hvp(x, v)
     with pytest.raises(TypeError, match="check_memory must be True or False, got 1"):
@@ -421,6 +421,13 @@ def test_the_core_checks_its_own_copies_of_the_inputs(ham):
         core.energy(bad)
     with pytest.raises(NonFiniteError, match="v: non-finite value inf at index 1"):
         core.hvp(np.full(N, 0.1), np.array([0.0, np.inf, 0, 0, 0, 0]))
+    # several directions: copied transposed, named by their place in V (first in V's order)
+    vs = np.zeros((N, 3))
+    vs[4, 0], vs[2, 1] = np.nan, np.inf
+    with pytest.raises(NonFiniteError, match="v row 2: non-finite value inf at index 1"):
+        core.hvp_many(np.full(N, 0.1), vs)
+    with pytest.raises(ValueError, match=f"v must have n = {N} rows, got {N + 1}"):
+        core.hvp_many(np.full(N, 0.1), np.zeros((N + 1, 3)))
     with pytest.raises(NonFiniteError, match="x row 1: non-finite value -inf at index 1"):
         core.energy_batch(
             np.concatenate([np.full(N + 1, 0.1), [-np.inf], np.zeros(4)]).reshape(2, N)

@@ -341,9 +341,9 @@ class Hamiltonian:
         p = 3, n = 200, 1.89 and 0.38 ms; p = 4, n = 120, 22.7 and 4.6 ms; p = 4, n = 360,
         807 and 216 ms (one direction alone: 192 ms); but p = 2, n = 1800, 7.6 and 28.7 ms.
 
-        The multi-direction pass holds (accumulators + 3) n k numbers (the directions copied
-        and transposed, its accumulators, 1 to 64 plus up to one per degree, fixed by the
-        instance and k, and the result); from 64 MiB on that is checked against the available
+        The multi-direction pass holds (accumulators + 2) n k numbers (its copy of the
+        directions, transposed, its accumulators, 1 to 64 plus up to one per degree, fixed by
+        the instance and k, and the result); from 64 MiB on that is checked against the available
         memory first and refused with :class:`~orthoclimb.errors.InsufficientMemoryError`
         (``check_memory=False`` skips the check, here and for the Hessian)."""
         pt = as_point(x, self.n)

@@ -66,10 +66,10 @@ def hessian_workspace_bytes(degrees: Iterable[int], n: int) -> int:
 
 def hvp_workspace_bytes(degrees: Iterable[int], n: int, k: int) -> int:
     """Peak bytes a pass of Hessian-vector products in k directions allocates beside the
-    coefficients and the caller's directions: the core's copy of the directions and their
-    transpose, one n x k accumulator per group of its plan (:func:`pass_accumulators`) and
-    the result, 8 bytes per entry."""
-    return (pass_accumulators(degrees, n, n * k, False) + 3) * n * k * 8
+    coefficients and the caller's directions: the core's copy of the directions (transposed,
+    one row per direction), one n x k accumulator per group of its plan
+    (:func:`pass_accumulators`) and the result, 8 bytes per entry."""
+    return (pass_accumulators(degrees, n, n * k, False) + 2) * n * k * 8
 
 
 def hessian_workspace_estimate(mixture: Mixture, n: int) -> int:
