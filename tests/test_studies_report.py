@@ -179,6 +179,20 @@ def test_a_partly_run_study_says_how_many_tasks_are_missing(tmp_path):
     assert rep.stray_files == [] and not any("rows/" in f for f in rep.findings)
 
 
+def test_a_long_mixture_name_keeps_the_table_aligned(tmp_path):
+    # a user trial: --xi 2:1,4:0.3 is named 2:1.0,4:0.5477225575051661, longer than the
+    # 22 columns the table gave names, and every row after it shifted
+    name = "2:1.0,4:0.5477225575051661"
+    _synthetic_study(
+        tmp_path / "x", "20,40", lambda n, s: 1.5 - n ** (-2 / 3) + 0.01 * s, mixture=name
+    )
+    lines = build_report(tmp_path / "x").table().splitlines()
+    head, rows = lines[0], lines[1:3]
+    assert all(line.startswith(name) for line in rows)
+    # the method column starts at the same place in the heading and in the rows
+    assert all(line.index("gradient") == head.index("method") for line in rows)
+
+
 def test_files_in_rows_that_belong_to_no_task_are_named_not_read(tmp_path):
     # a user trial: a row copied from another study, a renamed duplicate and a note in rows/
     # were ignored without a word; the report still reads only its tasks' rows, and says so
@@ -553,7 +567,9 @@ def test_report_out_writes_elsewhere_and_a_failed_write_points_to_it(tmp_path, c
     for name in ("report.md", "report.json", "energy_vs_n.png", "distribution.png"):
         assert (out / name).stat().st_size > 0
     assert (out / "results.parquet").stat().st_size > 0  # the table the report read
-    assert f"report: {out / 'report.md'}" in capsys.readouterr().out
+    printed = capsys.readouterr().out
+    assert f"report: {out / 'report.md'}" in printed
+    assert "results.parquet" not in printed.split("plots:")[1]  # the table is no plot
     # a study folder that cannot take the report (here a folder stands at report.md)
     (folder / "report.md").mkdir()
     assert main(["report", str(folder), "--no-plots", "--bootstrap", "200"]) == 2

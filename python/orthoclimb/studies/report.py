@@ -98,31 +98,34 @@ class Report:
         return any(g["method"].endswith(BEFORE_POLISH) for g in self.groups)
 
     def table(self) -> str:
-        """Plain-text table for the terminal."""
+        """Plain-text table for the terminal (columns as wide as the longest mixture name, so
+        a long one, from --xi say, keeps them aligned)."""
         w = max(
             [9, *(len(g["method"]) for g in self.groups), *(len(f["method"]) for f in self.fits)]
         )
+        m = max([22, *(len(g["mixture"]) for g in self.groups)])
+        m = max([m, *(len(f["mixture"]) for f in self.fits)])
         lines = [
-            f"{'mixture':<22} {'method':<{w}} {'n':>5} {'mean':>8} {'s.e.':>7} {'count':>5}",
+            f"{'mixture':<{m}} {'method':<{w}} {'n':>5} {'mean':>8} {'s.e.':>7} {'count':>5}",
         ]
         for g in self.groups:
             se = f"{g['se']:>7.4f}" if math.isfinite(g["se"]) else f"{'--':>7}"  # one seed
             lines.append(
-                f"{g['mixture']:<22} {g['method']:<{w}} {g['n']:>5} {g['mean']:>8.4f} "
+                f"{g['mixture']:<{m}} {g['method']:<{w}} {g['n']:>5} {g['mean']:>8.4f} "
                 f"{se} {g['count']:>5}"
             )
         lines.append("")
         lvl = level_text(self.spec_level())
         lines.append(
-            f"{'mixture':<22} {'method':<{w}} {'e_inf':>8} {f'{lvl}% interval':>19} "
+            f"{'mixture':<{m}} {'method':<{w}} {'e_inf':>8} {f'{lvl}% interval':>19} "
             f"{'over laws':>19} {'ALG':>7} {'GS':>7} {'z(ALG)':>7} {'z(GS)':>7}  caveats"
         )
         for f in self.fits:
             if f.get("value") is None:
-                lines.append(f"{f['mixture']:<22} {f['method']:<{w}} {'--':>8}  {f['note']}")
+                lines.append(f"{f['mixture']:<{m}} {f['method']:<{w}} {'--':>8}  {f['note']}")
                 continue
             lines.append(
-                f"{f['mixture']:<22} {f['method']:<{w}} {f['value']:>8.4f} "
+                f"{f['mixture']:<{m}} {f['method']:<{w}} {f['value']:>8.4f} "
                 f"[{f['low']:>8.4f},{f['high']:>8.4f}] [{f['law_low']:>8.4f},"
                 f"{f['law_high']:>8.4f}] {f['alg']:>7.4f} {f['gs']:>7.4f} "
                 f"{f['z_alg']:>7.1f} {f['z_gs']:>7.1f}  {caveats(f)}".rstrip()
@@ -145,7 +148,8 @@ class Report:
     def figures(self) -> list[str]:
         """The paths of the figures :func:`write_report` wrote, in order (none before it, or
         with plots off)."""
-        return [path for name, path in self.files.items() if name not in ("markdown", "json")]
+        others = ("markdown", "json", "parquet", "csv")
+        return [path for name, path in self.files.items() if name not in others]
 
     def spec_level(self) -> float:
         for f in self.fits:
