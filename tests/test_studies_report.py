@@ -179,6 +179,48 @@ def test_a_partly_run_study_says_how_many_tasks_are_missing(tmp_path):
     assert rep.stray_files == [] and not any("rows/" in f for f in rep.findings)
 
 
+def test_the_report_never_puts_back_an_older_table(tmp_path, monkeypatch):
+    # a review: a report read its rows, a sweep ended and wrote its full table, and the report
+    # then renamed its older, shorter table over it. In the study folder the report writes
+    # under the sweep's lock: rows that came since its reading go into the table; while a
+    # sweep holds the folder the table is left to it; an --out holding another study is refused
+    import pyarrow.parquet as pq
+
+    import orthoclimb.studies.report as report_module
+    from orthoclimb.errors import OutputPathError
+    from orthoclimb.studies.store import sweep_lock
+
+    folder = tmp_path / "r"
+    _synthetic_study(folder, "20,40", lambda n, s: 1.6 - n ** (-2 / 3) + 0.01 * s)
+    store = Store(folder, build_report(folder).spec)
+    late = store.row_path(store.spec.tasks()[0].task_id)
+    saved = late.read_bytes()
+    late.unlink()
+    real = report_module.build_report
+
+    def read_then_a_sweep_ends(*args, **kwargs):
+        rep = real(*args, **kwargs)
+        late.write_bytes(saved)  # the row of a sweep that ended after the reading
+        return rep
+
+    monkeypatch.setattr(report_module, "build_report", read_then_a_sweep_ends)
+    rep = write_report(folder, plots=False)
+    assert rep.missing == 1  # the report is of what it read ...
+    assert len(pq.read_table(folder / "results.parquet")) == len(
+        store.spec.tasks()
+    )  # ... not older
+    monkeypatch.setattr(report_module, "build_report", real)
+    (folder / "results.parquet").unlink()
+    with sweep_lock(folder):  # a sweep running there
+        rep = write_report(folder, plots=False)
+    assert not (folder / "results.parquet").exists()
+    assert "a sweep is running in this folder and writes it when it ends" in rep.findings[-1]
+    other = tmp_path / "other"
+    _synthetic_study(other, "20", lambda n, s: 1.5)
+    with pytest.raises(OutputPathError, match="holds another study"):
+        write_report(folder, plots=False, out=other)
+
+
 def test_a_long_mixture_name_keeps_the_table_aligned(tmp_path):
     # a user trial: --xi 2:1,4:0.3 is named 2:1.0,4:0.5477225575051661, longer than the
     # 22 columns the table gave names, and every row after it shifted

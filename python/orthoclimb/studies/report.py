@@ -19,6 +19,7 @@ points, ``overlaps.png``
 
 from __future__ import annotations
 
+import contextlib
 import itertools
 import math
 import os
@@ -60,7 +61,7 @@ from .points import (
     readable_end_points,
 )
 from .report_plots import PLOT_FILES, plot_files
-from .store import TABLE_FILES, Store, read_config, table_files
+from .store import TABLE_FILES, Store, read_config, sweep_lock, table_files
 from .tasks import theory_values
 
 __all__ = ["Report", "build_report", "write_report"]
@@ -810,20 +811,64 @@ def write_report(
     out: str | os.PathLike | None = None,
 ) -> Report:
     """Compute the report and write report.md, report.json, the plots and the tidy table of
-    the rows it read (results.parquet, results.csv) into ``out`` (default: the study
-    ``folder``; a study on a read-only medium needs another). A sweep writes the table when it
-    ends; a driver killed outright (kill -9, out of memory) left it behind its row files,
-    which the report brings it back in step with (a user trial)."""
+    the rows in the study folder (results.parquet, results.csv) into ``out`` (default: the
+    study ``folder``; a study on a read-only medium needs another). A sweep writes the table
+    when it ends; a driver killed outright (kill -9, out of memory) left it behind its row
+    files, which the report brings it back in step with (a user trial). In the study folder
+    the report writes under the sweep's lock: while a sweep runs there it leaves the table to
+    that sweep (and says so), and rows that came after its reading go into the table too, so
+    a report never puts back an older table. An ``out`` that holds another study is refused."""
     from ..errors import OutputPathError
 
     folder = Path(folder)
     target = folder if out is None else Path(out)
     if out is not None:  # a bad --out fails before the work, not after the bootstrap
         ensure_folder(target, "the report's folder")
+        if (target / "study.json").exists() and target.resolve() != folder.resolve():
+            raise OutputPathError(
+                f"--out {str(target)!r} holds another study (its study.json), whose report and"
+                " table this report would replace; give another folder"
+            )
     names = REPORT_FILES + TABLE_FILES + (PLOT_FILES if plots else ())
     for name in names:  # so does a folder standing where a file goes
         refuse_folder(target / name, "remove it or give --out FOLDER (out= in Python)")
     rep = build_report(folder, exponent, level, n_boot)
+    with contextlib.ExitStack() as stack:
+        rows: list[dict[str, Any]] | None = rep.rows
+        if target == folder:
+            rows = _rows_to_table(stack, folder, rep)
+        _write_report_files(rep, target, plots, rows, reraise=out is not None)
+    return rep
+
+
+def _rows_to_table(
+    stack: contextlib.ExitStack, folder: Path, rep: Report
+) -> list[dict[str, Any]] | None:
+    """The rows whose table goes into the study folder, with the sweep's lock taken on
+    ``stack``: ``rep.rows``, or a fresh reading where rows came since; None, with a finding
+    added, while a sweep holds the folder (it writes the table when it ends)."""
+    try:
+        stack.enter_context(sweep_lock(folder))
+    except ValueError:  # a sweep is running there
+        rep.findings.append(
+            "The tidy table (results.parquet, results.csv) was left as it is: a sweep is"
+            " running in this folder and writes it when it ends."
+        )
+        return None
+    store = Store(folder, rep.spec)
+    wanted = {t.task_id for t in rep.spec.tasks()}
+    if store.completed_ids() & wanted != {r["task_id"] for r in rep.rows}:
+        return store.rows()  # a sweep ended between the reading and now
+    return rep.rows
+
+
+def _write_report_files(
+    rep: Report, target: Path, plots: bool, rows: list[dict[str, Any]] | None, reraise: bool
+) -> None:
+    """Stage the report's files (plots, the table of ``rows`` unless None, report.md,
+    report.json) in ``target`` and rename them all at once."""
+    from ..errors import OutputPathError
+
     # every file staged first and renamed only when all are written: a folder standing at
     # report.json left a new report.md and plots beside the old report.json (a review)
     files = []
@@ -831,7 +876,7 @@ def write_report(
     for name, path, writer in plot_files(rep, rep.energies, target) if plots else []:
         rep.files[name] = str(path)
         files.append((path, writer))
-    for name, (path, writer) in table_files(rep.rows, target).items():
+    for name, (path, writer) in table_files(rows, target).items() if rows is not None else []:
         rep.files[name] = str(path)
         files.append((path, writer))
     rep.files["markdown"] = str(target / "report.md")
@@ -842,9 +887,8 @@ def write_report(
     try:
         write_all_atomic(files)
     except OutputPathError as exc:
-        if out is not None:
+        if reraise:
             raise
         raise OutputPathError(
             f"{exc}; give --out FOLDER (out= in Python) to write the report elsewhere"
         ) from None
-    return rep
