@@ -595,8 +595,8 @@ CASES = [
         " result = cli(['sweep', '--gammas', '3:1', '--n', '8,12', '--seeds', '0-1',"
         " '--methods', 'gradient', '--out', f, '--no-progress'])",
         None,
-        r"s8' holds a study with a different configuration \(differs in: sizes: \[8,10\] in"
-        r" the folder, \[8,12\] now\)",
+        r"s8' holds a study with a different configuration \(differs in: sizes: \[10\] only in"
+        r" the folder, \[12\] only now\)",
         cli=True,
     ),
     Case(

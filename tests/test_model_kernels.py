@@ -169,6 +169,13 @@ def test_hessian_workspace_is_reported():
     # and two where each half still has 16 n^2: n = 300 (4.5 M coefficients)
     mid = oc.Hamiltonian.sample(oc.Mixture({3: 1.0}), 300, seed=0)
     assert mid.hessian_workspace_nbytes == (2 + 1) * 300 * 300 * 8
+    # each degree is cut on its own: a field adds an accumulator (a review); and an estimate
+    # for a size far past any machine is a number, not an OverflowError
+    field = oc.Hamiltonian.sample(oc.Mixture({1: 0.3, 2: 1.0}), 2100, seed=0)
+    assert field.hessian_workspace_nbytes == (2 + 1) * 2100 * 2100 * 8
+    from orthoclimb.model.memory import hessian_workspace_estimate
+
+    assert hessian_workspace_estimate(oc.Mixture({1: 1.0}), 5 * 10**9) > 10**20
 
 
 def test_energy_per_spin_is_the_energy_over_n(rng):

@@ -27,6 +27,8 @@ from orthoclimb.studies.laws import law_regions, verdict
         # ... and nothing is added when n^(-1) holds ALG too, or when the data reject it
         (1.50, (1.45, 1.55), (1.48, 1.56, 0.4), -0.5, "consistent with ALG = 1.5000 (-0.5 s.e.)"),
         (1.50, (1.45, 1.55), (1.40, 1.47, 0.01), 0.0, "ALG = 1.5000 (+0.0 s.e.)"),
+        # every law rejected (all are read then): none is said to be kept (a review)
+        (1.50, (1.45, 1.55, 0.01), (1.40, 1.47, 0.01), 0.0, "ALG = 1.5000 (+0.0 s.e.)"),
         (1.555, (1.51, 1.60), None, 2.5, "above ALG"),
         # ALG outside the chosen interval, inside the n^(-1) law's, which fits
         (1.555, (1.51, 1.60), (1.47, 1.53, 0.4), 2.5, "only under n^(-1) (+2.5 s.e. under"),

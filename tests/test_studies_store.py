@@ -109,6 +109,9 @@ def test_a_study_of_a_newer_format_is_refused_as_such(tmp_path, version):
     path.write_text(json.dumps(doc))
     with pytest.raises(ValueError, match=rf"its format {version} is newer than this orthoclimb"):
         read_config(tmp_path / "s")
+    # nor does a sweep resume or extend it (a review)
+    with pytest.raises(StudyMismatchError, match=rf"its format {version} is newer"):
+        Store.open(tmp_path / "s", _spec())
 
 
 def _study(order=("a", "b"), own_b=(8,), seeds=(0, 1), methods=("gradient",), exponent=None):

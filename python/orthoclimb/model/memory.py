@@ -54,7 +54,9 @@ def pass_accumulators(degrees: Iterable[int], n: int, acc_len: int, single_point
     degrees = sorted(degrees)
     if coefficient_count(degrees, n) > 2**40:
         return 64 + len(degrees)
-    return int(_core.pass_accumulators(n, degrees, acc_len, single_point))
+    # the core counts in 64 bits: n^2 of a degree-1 instance with n > 2^32 does not fit, and
+    # a longer accumulator only means fewer pieces (a review: OverflowError)
+    return int(_core.pass_accumulators(n, degrees, min(acc_len, 2**63 - 1), single_point))
 
 
 def hessian_workspace_bytes(degrees: Iterable[int], n: int) -> int:

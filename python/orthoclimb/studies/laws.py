@@ -231,10 +231,12 @@ def excluded_by(f: dict[str, Any], kept: list[dict[str, Any]], target: float) ->
     """ ", not under n^(-1), which the data also keep" when the intervals of other kept laws
     than the chosen ``f`` exclude ``target`` (a user trial: an anneal read "consistent with
     ALG" while the kept n^(-1) law's interval lay below ALG), else ""."""
+    # when every law is rejected, kept_laws falls back to all of them: none is "kept" then
     others = [
         law
         for law in kept
         if law is not f
+        and not is_rejected(law)
         and math.isfinite(law["low"])
         and math.isfinite(law["high"])
         and not law["low"] <= target <= law["high"]

@@ -91,16 +91,25 @@ def _differences(old: dict, new: dict) -> list[str]:
 
 
 def _differences_text(old: dict, new: dict, diff: list[str]) -> str:
-    """The differing keys with both values, shortened: "methods: [...] in the folder, [...]
-    now" (a user trial: the names alone did not say that steps were 30 there, 40 here)."""
+    """The differing keys with both values: "methods: [...] in the folder, [...] now" (a user
+    trial: the names alone did not say that steps were 30 there, 40 here). For lists, the
+    entries only one side has, so that a long list shows where it differs (a review)."""
 
     def short(value: Any) -> str:
         text = _canonical(value)
         return text if len(text) <= 160 else text[:157] + "..."
 
-    return "; ".join(
-        f"{k}: {short(old.get(k))} in the folder, {short(new.get(k))} now" for k in diff
-    )
+    def one(k: str) -> str:
+        a, b = old.get(k), new.get(k)
+        if isinstance(a, list) and isinstance(b, list):
+            ca, cb = [_canonical(v) for v in a], [_canonical(v) for v in b]
+            gone = [v for v, c in zip(a, ca, strict=True) if c not in cb]
+            added = [v for v, c in zip(b, cb, strict=True) if c not in ca]
+            if gone or added:
+                return f"{k}: {short(gone)} only in the folder, {short(added)} only now"
+        return f"{k}: {short(a)} in the folder, {short(b)} now"
+
+    return "; ".join(one(k) for k in diff)
 
 
 _GROWABLE = ("seeds", "sizes")
@@ -189,24 +198,25 @@ def read_config(folder: str | os.PathLike) -> StudySpec:
         raise ValueError(f"{str(folder)!r} is not a study folder (no study.json)")
     try:
         data = json.loads(path.read_text(encoding="utf-8"))
-        version = data.get("format") if isinstance(data, dict) else None
-        # a newer study.json is refused as a newer row file is, not read as this version's
-        # (a user trial: "format": 2 was reported as usual, "format": 99 failed on a key)
-        if isinstance(version, int) and not isinstance(version, bool) and version > FORMAT:
-            raise ValueError(
-                f"its format {version} is newer than this orthoclimb {_version()} reads"
-                f" ({FORMAT}); use a newer orthoclimb"
-            )
+        _refuse_newer(data, ValueError)
         return StudySpec.from_dict(data["config"])
     except (OSError, ValueError, KeyError, TypeError, AttributeError, RecursionError) as exc:
         # ValueError covers malformed JSON, non-UTF-8 bytes and invalid configuration values
         raise ValueError(f"cannot read {str(path)!r}: {exc}") from None
 
 
-def _version() -> str:
+def _refuse_newer(data: Any, error: type[Exception]) -> None:
+    """Raise ``error`` when a study.json's format is newer than this version's: it is refused
+    as a newer row file is, not read (or extended) as this version's (a user trial: "format":
+    2 was reported as usual; a review: a sweep resumed and extended it)."""
     from .. import __version__
 
-    return __version__
+    version = data.get("format") if isinstance(data, dict) else None
+    if isinstance(version, int) and not isinstance(version, bool) and version > FORMAT:
+        raise error(
+            f"its format {version} is newer than this orthoclimb {__version__} reads"
+            f" ({FORMAT}); use a newer orthoclimb"
+        )
 
 
 _ROW_FIELDS: dict[str, tuple[type, ...]] = {
@@ -291,6 +301,10 @@ def _checked_row(path: Path, task: Any) -> dict[str, Any]:
     return row
 
 
+class _NewerStudy(Exception):
+    """A study.json of a newer format, met by :meth:`Store.open`."""
+
+
 @contextlib.contextmanager
 def sweep_lock(folder: str | os.PathLike) -> Iterator[None]:
     """Hold the study folder for one sweep: an exclusive advisory lock (flock) on the folder
@@ -354,11 +368,14 @@ class Store:
         if meta_existed:
             try:  # the file, and the configuration in it, which _relation reads as a study
                 stored = json.loads(meta.read_text(encoding="utf-8"))
+                _refuse_newer(stored, _NewerStudy)
                 old = stored["config"]
                 if not isinstance(old, dict):
                     raise TypeError(f"config is {type(old).__name__}")
                 diff = _differences(old, json.loads(_canonical(config)))
                 relation = _relation(old, config) if diff else "same"
+            except _NewerStudy as exc:
+                raise StudyMismatchError(f"{str(meta)!r}: {exc}") from None
             except (OSError, ValueError, KeyError, TypeError, AttributeError, RecursionError):
                 raise StudyMismatchError(
                     f"{str(meta)!r} is not a readable study configuration; use another folder"
