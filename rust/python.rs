@@ -342,8 +342,8 @@ impl PyPacked {
         (count.saturating_mul(eighths as u64) / 8, usize::MAX)
     }
 
-    /// A Hessian's work: two passes and its n x n result, in as many items as it has
-    /// accumulators (one below n = 188 at p = 3).
+    /// A Hessian's work: two passes and its n x n result, in [`kernels::pieces`] items (about
+    /// as many as it has accumulators; one below n = 188 at p = 3).
     fn hessian_work(&self, n: usize) -> Work {
         let count = on_storage!(&self.inner, p => p.num_coefficients());
         let passes = (count as u64).saturating_mul(2);

@@ -2,7 +2,8 @@
 //! [`crate::kernels`] (A[ij, t] += Q_j a_t, A[ij, ik] += R_jk S) and returned as A + A^T.
 //!
 //! Each group of work items adds into an n x n accumulator of its own (the number of groups,
-//! [`super::pieces`], depends on the instance only); the accumulators are merged along a
+//! [`super::accumulator_count`]: about [`super::pieces`] in all, each degree cut on its own,
+//! depends on the instance only); the accumulators are merged along a
 //! fixed tree and the transpose is added in place by bands of rows, so the result is bitwise
 //! the same on any number of threads.
 

@@ -308,7 +308,7 @@ class Hamiltonian:
         refused with :class:`~orthoclimb.errors.InsufficientMemoryError` naming both sizes,
         rather than left to the operating system's out-of-memory killer;
         ``check_memory=False`` skips the check. The workspace reaches 64 MiB from n of about
-        2050 at degree 2, 1300 at degree 3 and 360 at degree 4 (which takes 64 accumulators
+        2050 at degree 2, 1300 at degree 3 and 440 at degree 4 (which takes 43 accumulators
         there)."""
         pt = as_point(x, self.n)
         check_memory = as_flag(check_memory, "check_memory")
