@@ -97,6 +97,8 @@ def test_ties_of_a_mixture_of_even_degrees_may_be_mirror_points():
     # the width said is the rule's, 1e-9 of |GS| = 1.5e-9 here (a user trial read "1e-09",
     # the width rounded to one digit)
     assert "(energies within 1.5e-09 per spin, 1e-09 of |GS|)" in plain
+    unknown_gs = head_to_head("m", "x", "y", seeds, {"gs": math.nan, "alg": 1.4})
+    assert "(energies within 1.4e-09 per spin, 1e-09 of |ALG|)" in unknown_gs  # a review
 
 
 @pytest.mark.parametrize("bad", [math.nan, math.inf, -math.inf])

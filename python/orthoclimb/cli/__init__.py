@@ -221,15 +221,26 @@ def main(argv: Sequence[str] | None = None) -> int:
 
 
 def console_main() -> int:
-    """The ``orthoclimb`` program: :func:`main`, and then SIGINT ignored while the interpreter
-    shuts down (closing a sweep's cluster takes a few tenths of a second after its last line:
-    a Ctrl-C there turned a finished study's exit status 0 into a silent 130, a user trial).
-    Not in :func:`main` itself, which callers in Python (tests, notebooks) keep using."""
+    """The ``orthoclimb`` program: :func:`main`, and then a Ctrl-C while the interpreter shuts
+    down ends the process at once with the command's own status (closing a sweep's cluster
+    takes a few tenths of a second after its last line: a Ctrl-C there turned a finished
+    study's exit status 0 into a silent 130, a user trial; ignoring SIGINT instead would
+    leave no way out of a shutdown that hangs, a review). Not in :func:`main` itself, which
+    callers in Python (tests, notebooks) keep using."""
     import signal
 
     code = main()
+
+    def finished(signum: int, frame: object) -> None:
+        for stream in (sys.stdout, sys.stderr):
+            try:
+                stream.flush()
+            except (OSError, ValueError):
+                pass
+        os._exit(code)
+
     try:
-        signal.signal(signal.SIGINT, signal.SIG_IGN)
+        signal.signal(signal.SIGINT, finished)
     except ValueError:  # pragma: no cover - not the main thread
         pass
     return code

@@ -3,8 +3,9 @@
 Per (mixture, method, n): mean energy per spin, standard error and count; per (mixture,
 method): e_inf of the fit e_inf + a n^(-k) (weighted least squares, bootstrap interval) beside
 ALG and GS with the difference in standard errors. Writes report.md, report.json,
-energy_vs_n.png, distribution.png (and overlaps.png for a study swept with --keep-points) into
-the study folder (or ``--out FOLDER``) and prints the table.
+energy_vs_n.png, distribution.png (and overlaps.png for a study swept with --keep-points) and
+the tidy table (results.parquet, results.csv) into the study folder (or ``--out FOLDER``) and
+prints the table.
 """
 
 from __future__ import annotations
@@ -42,7 +43,8 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
         "--out",
         type=user_path,
         default=None,
-        help="folder for report.md, report.json and the plots (default: the study folder)",
+        help="folder for report.md, report.json, the plots and the tidy table (default: the"
+        " study folder)",
     )
     parser.add_argument("--no-plots", action="store_true", help="skip the PNG plots")
     parser.add_argument("--json", action="store_true", help="print the report as JSON")

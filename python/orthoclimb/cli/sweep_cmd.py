@@ -77,8 +77,9 @@ def add_engine_arguments(parser: argparse.ArgumentParser) -> None:
     parser.add_argument(
         "--plan-only",
         action="store_true",
-        help="print the tasks, the memory of the largest instance, the workers and the time"
-        " estimate, then stop: nothing runs, and the output folder is left as it was",
+        help="print the tasks, the memory of the largest instance, the methods with their"
+        " options, the workers and the time estimate, then stop: nothing runs, and the output"
+        " folder is left as it was",
     )
 
 

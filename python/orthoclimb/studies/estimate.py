@@ -404,7 +404,8 @@ def plan_lines(
 ) -> list[str]:
     """What a sweep says before it starts (the command line prints it, and so does
     :func:`~orthoclimb.studies.run_study` by default): the tasks to run, the memory of the
-    largest instance, the workers (``plan``, a :class:`~orthoclimb.studies.engine.WorkerPlan`,
+    largest instance, the methods with every option they run with (:func:`methods_line`), the
+    workers (``plan``, a :class:`~orthoclimb.studies.engine.WorkerPlan`,
     or None on the external ``scheduler``, where a task takes ``threads`` kernel threads), the
     time estimate (:func:`estimate_seconds`, which times the kernels first) and the notes of
     :func:`fixed_path_notes`. With no task pending, one line saying so."""

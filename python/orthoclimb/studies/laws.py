@@ -181,7 +181,8 @@ def z_text(f: dict[str, Any], z: float) -> str:
 def verdict(f: dict[str, Any], target: float, z: float, what: str) -> str:
     """The fit ``f`` against ``target``, reading the laws kept (:func:`kept_laws`) in their
     regions (:func:`law_regions`): "consistent with" when ``target`` lies in the printed interval
-    of the chosen law and the data do not reject that law (a test at 1 - level); "only under"
+    of the chosen law and the data do not reject that law (a test at 1 - level; with ", not
+    under ..." when a kept law's interval excludes it, :func:`excluded_by`); "only under"
     another law when it lies in a region (naming the kept laws whose intervals hold it, or
     "a law between" the two neighbours whose intervals it falls between); "below" or "above"
     outside every region, measured from the chosen law's value when it is kept, else from the

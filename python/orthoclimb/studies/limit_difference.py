@@ -17,7 +17,8 @@ the finding gives the ties at each size.
 As with the energies (:mod:`.laws`), the fit is repeated under ``OTHER_LAWS``, each law is
 tested, and the reading uses the laws the data keep: "the limits differ" when 0 lies outside
 every kept law's interval, "consistent with equal limits" when 0 lies in the chosen law's
-interval and the data keep that law, "equal only under" another law otherwise.
+interval and the data keep that law (naming, with "not under", a kept law whose interval
+excludes 0), "equal only under" another law otherwise.
 """
 
 from __future__ import annotations

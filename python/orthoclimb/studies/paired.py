@@ -164,11 +164,12 @@ def _compare_line(c: dict[str, Any], th: dict[str, Any]) -> str:
     diff, z = c["diff"], c["z"]
     # a mixture of even degrees only has H(-x) = H(x): equal energies may be mirror points
     same = "the same point or its mirror -x" if th.get("even") else "the same point"
+    scale = "GS" if math.isfinite(th["gs"]) else "ALG"  # as tie_width takes it
     if c["nonzero"] == 0:
         return (
             f"{mix}, n = {n}: {a} and {b} stopped at {same} (energies within "
-            f"{tie_width(th):.2g} per spin, {TIE_RELATIVE:g} of |GS|) on all {paired} paired"
-            " seeds."
+            f"{tie_width(th):.2g} per spin, {TIE_RELATIVE:g} of |{scale}|) on all {paired}"
+            " paired seeds."
         )
     sign = (
         f"{a} higher on {c['higher']}, {b} on {c['lower']}, {same} on "

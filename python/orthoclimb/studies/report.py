@@ -13,8 +13,9 @@ the report.
 
 Files written into the study folder, or the folder ``out`` (``report --out``), atomically:
 ``report.md``, ``report.json``, ``energy_vs_n.png``, ``distribution.png`` and, with kept end
-points, ``overlaps.png``
-(:mod:`.report_plots`).
+points, ``overlaps.png`` (:mod:`.report_plots`), and the tidy table of the rows,
+``results.parquet`` and ``results.csv`` (in the study folder under the sweep's lock, see
+:func:`write_report`).
 """
 
 from __future__ import annotations
@@ -679,7 +680,8 @@ def _markdown(rep: Report) -> str:
         "parametric bootstrap of chi2), and 'over laws' spans the intervals of the laws the "
         "data do not reject (when it rejects a law between two kept ones, the findings give "
         "the two ranges apart); a theory value outside the interval but inside that range is "
-        "consistent only under another law. Head-to-head comparisons pair the methods "
+        "consistent only under another law, and one inside it but outside a kept law's "
+        "interval is named with that law ('not under'). Head-to-head comparisons pair the methods "
         "seed by seed (paired t-test on the mean, sign test on the counts): on each instance "
         "the methods start from the same seeded random direction (Hessian ascent with a"
         " degree-2 term and no field along the top eigenvector of Hess H(0)), and runs whose"
