@@ -62,11 +62,12 @@ pub fn pieces(num_coefficients: usize, acc_len: usize) -> usize {
     }
 }
 
-/// The accumulators (groups of [`plan`]) of a pass with `acc_len`
-/// numbers per accumulator over a polynomial of these degrees at n, taking first indices in
-/// runs of `quantum` ([`QUANTUM`] for the single-point kernels, 1 for the batch and
-/// multi-direction ones): [`pieces`] groups, or a few more where several degrees are each cut
-/// on their own. It lets a caller size a pass's memory without the polynomial.
+/// The accumulators (groups of [`plan`]) of a pass with `acc_len` numbers per accumulator over
+/// a polynomial of these degrees at n, taking first indices in runs of `quantum` ([`QUANTUM`]
+/// for the single-point kernels, 1 for the batch and multi-direction ones): about [`pieces`]
+/// groups in all, fewer where runs of `quantum` first indices overshoot the target (39 for 64
+/// pieces at p = 4, n = 360), up to one more per degree where several degrees are each cut on
+/// their own. It lets a caller size a pass's memory without the polynomial.
 pub fn accumulator_count(
     n: usize,
     degrees: &[usize],
