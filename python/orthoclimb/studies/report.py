@@ -62,7 +62,7 @@ from .points import (
     readable_end_points,
 )
 from .report_plots import PLOT_FILES, plot_files
-from .store import TABLE_FILES, Store, read_config, sweep_lock, table_files
+from .store import TABLE_FILES, Store, SweepRunningError, read_config, sweep_lock, table_files
 from .tasks import theory_values
 
 __all__ = ["Report", "build_report", "write_report"]
@@ -851,7 +851,7 @@ def _rows_to_table(
     added, while a sweep holds the folder (it writes the table when it ends)."""
     try:
         stack.enter_context(sweep_lock(folder))
-    except ValueError:  # a sweep is running there
+    except SweepRunningError:
         rep.findings.append(
             "The tidy table (results.parquet, results.csv) was left as it is: a sweep is"
             " running in this folder and writes it when it ends."

@@ -63,6 +63,7 @@ __all__ = [
     "ROW_FORMAT_VERSION",
     "Store",
     "StudyMismatchError",
+    "SweepRunningError",
     "read_config",
 ]
 
@@ -305,14 +306,18 @@ class _NewerStudy(Exception):
     """A study.json of a newer format, met by :meth:`Store.open`."""
 
 
+class SweepRunningError(ValueError):
+    """Another sweep holds the study folder (:func:`sweep_lock`)."""
+
+
 @contextlib.contextmanager
 def sweep_lock(folder: str | os.PathLike) -> Iterator[None]:
     """Hold the study folder for one sweep: an exclusive advisory lock (flock) on the folder
     itself, made if missing, held until the block ends (also when the process dies: the OS
     drops the lock). A second sweep into the same folder, from this machine, is refused
-    (ValueError) instead of running the same tasks twice and rewriting study.json under the
-    first. Where the file system does not support flock on a folder, or off POSIX, nothing is
-    locked."""
+    (:class:`SweepRunningError`, a ValueError) instead of running the same tasks twice and
+    rewriting study.json under the first. Where the file system does not support flock on a
+    folder, or off POSIX, nothing is locked."""
     path = ensure_folder(folder, "study folder")
     if fcntl is None:  # pragma: no cover - Windows
         yield
@@ -322,7 +327,7 @@ def sweep_lock(folder: str | os.PathLike) -> Iterator[None]:
         try:
             fcntl.flock(fd, fcntl.LOCK_EX | fcntl.LOCK_NB)
         except BlockingIOError:
-            raise ValueError(
+            raise SweepRunningError(
                 f"another sweep is running in the study folder {str(path)!r}; wait for it to"
                 " end (or stop it), or use another folder (--out; folder= in Python)"
             ) from None
