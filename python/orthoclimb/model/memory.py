@@ -46,8 +46,8 @@ def estimate_memory(mixture: Mixture, n: int, dtype: object = "float64") -> int:
 
 
 def pass_accumulators(degrees: Iterable[int], n: int, acc_len: int, single_point: bool) -> int:
-    """The accumulators of ``acc_len`` numbers a kernel pass allocates (the core's plan: 1 to
-    64 groups, plus up to one per degree, since each degree is cut on its own), fixed by the
+    """The accumulators of ``acc_len`` numbers a kernel pass allocates (the groups of the
+    core's plan: about its 1 to 64 pieces in all, each degree cut on its own), fixed by the
     instance. Past 2^40 coefficients (which no machine holds) the bound 64 + degrees."""
     from .. import _core
 
