@@ -610,12 +610,16 @@ pub fn hvp_many<T: Coef>(
     k: usize,
 ) -> Result<Vec<f64>, CoreError> {
     let n = poly.n();
-    let len = n.checked_mul(k).ok_or_else(|| CoreError::SizeOverflow {
-        what: format!("{k} directions"),
-    })?;
-    check_len("directions (n x k)", len, vs.len())?;
+    check_len("directions (n x k)", directions_len(n, k)?, vs.len())?;
     let rows = transpose(vs, n, k, k, n)?; // k x n: one contiguous row per direction
     hvp_many_rows(exec, poly, x, &rows, k)
+}
+
+/// n * k, the numbers of k directions, or the overflow as an error.
+fn directions_len(n: usize, k: usize) -> Result<usize, CoreError> {
+    n.checked_mul(k).ok_or_else(|| CoreError::SizeOverflow {
+        what: format!("{k} directions"),
+    })
 }
 
 /// [`hvp_many`] with the directions given as `rows`, k x n row-major (one contiguous row per
@@ -630,9 +634,7 @@ pub fn hvp_many_rows<T: Coef>(
 ) -> Result<Vec<f64>, CoreError> {
     let n = poly.n();
     check_len("x", n, x.len())?;
-    let len = n.checked_mul(k).ok_or_else(|| CoreError::SizeOverflow {
-        what: format!("{k} directions"),
-    })?;
+    let len = directions_len(n, k)?;
     check_len("directions (k x n)", len, rows.len())?;
     let items = items_for(poly, pieces(poly.num_coefficients(), len), 2 * k + 1, 1);
     let blocks = poly.blocks();

@@ -205,21 +205,27 @@ fn finite_input(py: Python<'_>, name: &str, values: &[f64], cols: usize) -> PyRe
         None => Ok(()),
         Some(flat) => {
             let (row, index) = (flat / cols.max(1), flat % cols.max(1));
-            let what = if cols >= values.len() {
-                name.to_string()
-            } else {
-                format!("{name} row {row}")
-            };
+            let one_row = cols >= values.len();
             Err(to_py_err(
                 py,
-                CoreError::NonFiniteInput {
-                    what,
-                    index,
-                    value: values[flat],
-                    dtype: "float64",
-                },
+                non_finite_at(name, one_row, row, index, values[flat]),
             ))
         }
+    }
+}
+
+/// The error for a NaN or infinity `value` at `index` of row `row` of the input `name`, named
+/// by row unless the input is `one_row` (a point, or a single row).
+fn non_finite_at(name: &str, one_row: bool, row: usize, index: usize, value: f64) -> CoreError {
+    CoreError::NonFiniteInput {
+        what: if one_row {
+            name.to_string()
+        } else {
+            format!("{name} row {row}")
+        },
+        index,
+        value,
+        dtype: "float64",
     }
 }
 
@@ -275,20 +281,7 @@ fn directions_by_row(
         }
     }
     if let Some((i, j, value)) = bad {
-        let what = if n > 1 {
-            format!("v row {i}")
-        } else {
-            "v".to_string()
-        };
-        return Err(to_py_err(
-            py,
-            CoreError::NonFiniteInput {
-                what,
-                index: j,
-                value,
-                dtype: "float64",
-            },
-        ));
+        return Err(to_py_err(py, non_finite_at("v", n <= 1, i, j, value)));
     }
     Ok(rows)
 }
