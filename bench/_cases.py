@@ -35,6 +35,7 @@ FULL_SIZES = {
     "float32": 800,
     "threads": 800,
     "batch": (800, 400),
+    "wide": ((3, 300, 2048), (2, 4000, 1024)),
 }
 QUICK_SIZES = {
     "overhead": 12,
@@ -44,6 +45,7 @@ QUICK_SIZES = {
     "float32": 160,
     "threads": 160,
     "batch": (96,),
+    "wide": ((3, 40, 600), (2, 400, 300)),
 }
 
 
@@ -827,6 +829,55 @@ def case_batch(cfg, ws):
     }
 
 
+def case_wide(cfg, ws):
+    """Many points in one call against the same points in calls of BATCH points each.
+
+    A batch runs as passes over chunks of 16-256 points (by n); before, one pass took all of
+    them and a batch of 2048 gradients at p = 3, n = 300 ran 2.5 times slower per point than
+    batches of 32. A ratio near 1 or above means a wide call costs no more per point."""
+    shapes = cfg.sizes["wide"]
+    parts = {f"p={p} n={n} coefficients": ws.extra_bytes(p, n, "float64") for p, n, _ in shapes}
+    # the points, the binding's copy and the gradients of the widest call
+    parts["points and gradients"] = max(3 * 8 * b * n for _, n, b in shapes)
+    memory = require("wide", parts)
+    rows = []
+    for p, n, b in shapes:
+        h = ws.instance(p, n)
+        xs = points(b, n)
+        loop = f"{b} points in calls of {BATCH}"
+        fns = {}
+        for kernel, fn in (("energy", h.energy), ("energy_and_gradient", h.energy_and_gradient)):
+            fns[(kernel, f"batch b={b}")] = lambda fn=fn, xs=xs: fn(xs)
+            fns[(kernel, loop)] = lambda fn=fn, xs=xs: [
+                fn(xs[i : i + BATCH]) for i in range(0, len(xs), BATCH)
+            ]
+        log(f"   measuring {len(fns)} functions at p={p} n={n} b={b}")
+        stats = _timing.measure(fns, cfg.plan)
+        for kernel in ("energy", "energy_and_gradient"):
+            calls = b // BATCH + (b % BATCH > 0)
+            peer = make_row(
+                kernel, "orthoclimb", loop, stats[(kernel, loop)], p, n, h.nbytes * calls
+            )
+            wide = make_row(
+                kernel, "orthoclimb", f"batch b={b}", stats[(kernel, f"batch b={b}")], p, n
+            )
+            set_ratio(wide, peer)
+            for row in (peer, wide):
+                row["note"] = f"{1e6 * row['median_s'] / b:.3g} us per point"
+            wide["rel_err"] = batch_error(h, xs[:: max(1, b // 64)], kernel)
+            rows += [peer, wide]
+    return {
+        "name": "wide",
+        "title": f"wide batches vs the same points in calls of {BATCH}",
+        "status": "ok",
+        "params": {"shapes": [list(s) for s in shapes]},
+        "ratio_meaning": f"time of the calls of {BATCH} points / time of one wide call",
+        "memory": memory,
+        "rows": rows,
+        "notes": [],
+    }
+
+
 CASES = {
     "overhead": case_overhead,
     "dense3": case_dense3,
@@ -835,4 +886,5 @@ CASES = {
     "float32": case_float32,
     "threads": case_threads,
     "batch": case_batch,
+    "wide": case_wide,
 }

@@ -549,7 +549,7 @@ impl PyPacked {
         w.into_pyarray(py).reshape(shape)
     }
 
-    /// H at each row of xs (shape (b, n)), in one pass.
+    /// H at each row of xs (shape (b, n)), in one pass per chunk of points (`batch`).
     fn energy_batch<'py>(
         &self,
         py: Python<'py>,
@@ -564,7 +564,7 @@ impl PyPacked {
         Ok(e.into_pyarray(py))
     }
 
-    /// (H, grad H) at each row of xs (shape (b, n)), in one pass.
+    /// (H, grad H) at each row of xs (shape (b, n)), in one pass per chunk of points.
     fn energy_gradient_batch<'py>(
         &self,
         py: Python<'py>,

@@ -7,7 +7,8 @@ g_m i.i.d. standard Gaussians, so that E[H(x) H(y)] = n xi(<x, y>). On the unit 
 |x| = 1, H(x) is of order n; the figure of merit is the energy per spin H(x)/n, and we
 maximize. All kernels run in the Rust core, multithreaded, reading the packed coefficients
 once per call (a batch of points is one pass, too; a batch of two gradients is two passes,
-which is faster than the batch tile with half its lanes empty).
+which is faster than the batch tile with half its lanes empty; a batch wider than 32-256
+points, fewer at larger n, is one pass per that many points).
 """
 
 from __future__ import annotations
@@ -279,7 +280,12 @@ class Hamiltonian:
     # -- kernels -----------------------------------------------------------------------
 
     def energy(self, x: Any) -> Any:
-        """H(x) for x of shape (n,) (a float) or (b, n) (an array of b values, one pass)."""
+        """H(x) for x of shape (n,) (a float) or (b, n) (an array of b values).
+
+        A batch is one pass over the coefficients per chunk of up to 256 points (the largest
+        power of two from 32 whose n x chunk numbers fit 2 MiB; 512 KiB with gradients), with
+        the multiply-adds per coefficient and point from cache: 32 points take about a tenth
+        of the time of 32 single calls, and wider batches gain no more per point than that."""
         pts = as_points(x, self.n)
         if pts.ndim == 1:
             return float(self._core.energy(pts))
