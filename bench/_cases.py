@@ -830,11 +830,14 @@ def case_batch(cfg, ws):
 
 
 def case_wide(cfg, ws):
-    """Many points in one call against the same points in calls of BATCH points each.
+    """Many points (or directions) in one call against the same ones in calls of BATCH each.
 
-    A batch runs as passes over chunks of 16-256 points (by n); before, one pass took all of
-    them and a batch of 2048 gradients at p = 3, n = 300 ran 2.5 times slower per point than
-    batches of 32. A ratio near 1 or above means a wide call costs no more per point."""
+    Batches and the multi-direction HVP run as passes over chunks of 32-256 points or
+    directions (by n); before, one pass took all of them, and 1024 gradients at p = 2, n =
+    4000 ran 25 times slower per point than batches of 32. A ratio near 1 or above means a
+    wide call costs no more per point. The HVP is timed where ``hvp`` takes the
+    multi-direction pass (degree 2 at n = 4000, whose Hessian is too large to form); at
+    p = 3, n = 300 it forms the Hessian once per call instead."""
     shapes = cfg.sizes["wide"]
     parts = {f"p={p} n={n} coefficients": ws.extra_bytes(p, n, "float64") for p, n, _ in shapes}
     # the points, the binding's copy and the gradients of the widest call
@@ -844,31 +847,37 @@ def case_wide(cfg, ws):
     for p, n, b in shapes:
         h = ws.instance(p, n)
         xs = points(b, n)
-        loop = f"{b} points in calls of {BATCH}"
+        kernels = {"energy": h.energy, "energy_and_gradient": h.energy_and_gradient}
+        if not h._hessian_route(b):
+            at = xs[0]
+            kernels["hvp"] = lambda vs, at=at, h=h: h.hvp(at, vs.T)
         fns = {}
-        for kernel, fn in (("energy", h.energy), ("energy_and_gradient", h.energy_and_gradient)):
+        for kernel, fn in kernels.items():
             fns[(kernel, f"batch b={b}")] = lambda fn=fn, xs=xs: fn(xs)
-            fns[(kernel, loop)] = lambda fn=fn, xs=xs: [
+            fns[(kernel, f"calls of {BATCH}")] = lambda fn=fn, xs=xs: [
                 fn(xs[i : i + BATCH]) for i in range(0, len(xs), BATCH)
             ]
         log(f"   measuring {len(fns)} functions at p={p} n={n} b={b}")
         stats = _timing.measure(fns, cfg.plan)
-        for kernel in ("energy", "energy_and_gradient"):
-            calls = b // BATCH + (b % BATCH > 0)
-            peer = make_row(
-                kernel, "orthoclimb", loop, stats[(kernel, loop)], p, n, h.nbytes * calls
-            )
-            wide = make_row(
-                kernel, "orthoclimb", f"batch b={b}", stats[(kernel, f"batch b={b}")], p, n
-            )
+        calls = b // BATCH + (b % BATCH > 0)
+        for kernel in kernels:
+            loop = stats[(kernel, f"calls of {BATCH}")]
+            peer = make_row(kernel, "orthoclimb", f"{b} in calls of {BATCH}", loop, p, n)
+            peer["bytes"] = h.nbytes * calls
+            wide = make_row(kernel, "orthoclimb", f"b={b}", stats[(kernel, f"batch b={b}")], p, n)
             set_ratio(wide, peer)
             for row in (peer, wide):
                 row["note"] = f"{1e6 * row['median_s'] / b:.3g} us per point"
-            wide["rel_err"] = batch_error(h, xs[:: max(1, b // 64)], kernel)
+            if kernel == "hvp":
+                vs = xs[:: max(1, b // 64)]
+                reference = np.stack([h.hvp(xs[0], v) for v in vs])
+                wide["rel_err"] = _peers.relative_error(h.hvp(xs[0], vs.T).T, reference)
+            else:
+                wide["rel_err"] = batch_error(h, xs[:: max(1, b // 64)], kernel)
             rows += [peer, wide]
     return {
         "name": "wide",
-        "title": f"wide batches vs the same points in calls of {BATCH}",
+        "title": f"wide batches and HVPs vs the same points in calls of {BATCH}",
         "status": "ok",
         "params": {"shapes": [list(s) for s in shapes]},
         "ratio_meaning": f"time of the calls of {BATCH} points / time of one wide call",

@@ -672,6 +672,13 @@ fn pass_accumulators(
     kernels::accumulator_count(n, &degrees, acc_len, quantum).map_err(|e| to_py_err(py, e))
 }
 
+/// Most directions of one pass of the multi-direction HVP at n (32-256: their rows and the
+/// pass's stay near L2).
+#[pyfunction]
+fn direction_chunk(n: usize) -> usize {
+    batch::direction_chunk(n)
+}
+
 /// Sets the number of threads of the shared pool.
 #[pyfunction]
 fn set_num_threads(py: Python<'_>, k: usize) -> PyResult<()> {
@@ -731,6 +738,7 @@ fn _core(m: &Bound<'_, PyModule>) -> PyResult<()> {
     m.add_function(wrap_pyfunction!(storage_nbytes, m)?)?;
     m.add_function(wrap_pyfunction!(multiset_table, m)?)?;
     m.add_function(wrap_pyfunction!(pass_accumulators, m)?)?;
+    m.add_function(wrap_pyfunction!(direction_chunk, m)?)?;
     m.add_function(wrap_pyfunction!(set_num_threads, m)?)?;
     m.add_function(wrap_pyfunction!(get_num_threads, m)?)?;
     m.add_function(wrap_pyfunction!(_set_inline_passes, m)?)?;

@@ -86,6 +86,13 @@ def test_a_batch_wider_than_a_chunk_is_its_chunks_bit_for_bit(rng):
     e_mid, g_mid = ham.energy_and_gradient(xs[256:512])
     assert np.array_equal(e[256:512], e_mid) and np.array_equal(g[256:512], g_mid)
     assert np.array_equal(ham.energy(xs)[512:], ham.energy(xs[512:]))
+    # the multi-direction HVP pass (which hvp takes for large Hessians) chunks directions
+    # the same way; against the Hessian times the directions (exact algebra)
+    vs = rng.standard_normal((21, 600))
+    w = ham._core.hvp_many(xs[0], vs)
+    assert np.array_equal(w[:, 256:512], ham._core.hvp_many(xs[0], vs[:, 256:512].copy()))
+    want = ham.hessian(xs[0]) @ vs
+    _close(w, want, 1.0 + np.abs(want).max())
 
 
 def test_energy_gradient_agree_with_central_differences(rng):

@@ -266,17 +266,17 @@ def test_a_hessian_workspace_beyond_the_available_memory_is_refused(monkeypatch)
 
 def test_many_directions_beyond_the_available_memory_are_refused_before_the_pass(monkeypatch):
     # pure p = 2 at n = 2100 takes the multi-direction pass (its Hessian's workspace is over
-    # 64 MiB); 1400 directions need the core's transposed copy of them, one accumulator and
-    # the result: 3 * 2100 * 1400 * 8 = 70.56 MB, checked from 64 MiB on. A user trial saw
-    # 10^5 directions under ulimit -v fail an allocation after 8.4 s (of copying and
-    # transposing them) instead.
+    # 64 MiB); 2000 directions need the core's transposed copy of them and the result, and
+    # two accumulators for each pass over 32 of them: 2 * 2100 * 2000 * 8 + 2 * 2100 * 32 *
+    # 8 = 68.2752 MB, checked from 64 MiB on. A user trial saw 10^5 directions under
+    # ulimit -v fail an allocation after 8.4 s (of copying and transposing them) instead.
     from orthoclimb.model import memory
 
     ham = oc.Hamiltonian.sample(oc.Mixture({2: 1.0}), 2100, seed=0)
-    x, v = np.full(2100, 2100**-0.5), np.ones((2100, 1400))
+    x, v = np.full(2100, 2100**-0.5), np.ones((2100, 2000))
     monkeypatch.setattr(memory, "available_memory", lambda: 10**6)
     with pytest.raises(
-        InsufficientMemoryError, match="1400 directions at n = 2100 needs 70560000 bytes"
+        InsufficientMemoryError, match="2000 directions at n = 2100 needs 68275200 bytes"
     ):
         ham.hvp(x, v)
     with pytest.raises(TypeError, match="check_memory must be True or False, got 1"):

@@ -332,7 +332,8 @@ class Hamiltonian:
         return self._core.hessian(pt)
 
     def hvp(self, x: Any, v: Any, *, check_memory: bool = True) -> np.ndarray:
-        """Hess H(x) v for v of shape (n,) or (n, k) (k directions in one pass).
+        """Hess H(x) v for v of shape (n,) or (n, k) (k directions in one pass per chunk of
+        32-256 of them, see below).
 
         Several directions take the route that was fastest in measurement:
 
@@ -351,11 +352,14 @@ class Hamiltonian:
         p = 3, n = 200, 1.89 and 0.38 ms; p = 4, n = 120, 22.7 and 4.6 ms; p = 4, n = 360,
         807 and 216 ms (one direction alone: 192 ms); but p = 2, n = 1800, 7.6 and 28.7 ms.
 
-        The multi-direction pass holds (accumulators + 2) n k numbers (its copy of the
-        directions, transposed, its accumulators, 1 to 64 plus up to one per degree, fixed by
-        the instance and k, and the result); from 64 MiB on that is checked against the available
-        memory first and refused with :class:`~orthoclimb.errors.InsufficientMemoryError`
-        (``check_memory=False`` skips the check, here and for the Hessian)."""
+        The multi-direction pass takes the directions in chunks of c = min(k, 32-256), fewer
+        at larger n (as :meth:`energy` takes a batch's points with gradients), one pass over
+        the coefficients each, and holds 2 n k + a n c numbers: its copy of the directions,
+        transposed, and the result, and a pass's accumulators, a of 1 to 64 plus up to one
+        per degree, fixed by the instance and c. From 64 MiB on that is checked against the
+        available memory first and refused with
+        :class:`~orthoclimb.errors.InsufficientMemoryError` (``check_memory=False`` skips the
+        check, here and for the Hessian)."""
         pt = as_point(x, self.n)
         dirs = as_directions(v, self.n)
         check_memory = as_flag(check_memory, "check_memory")

@@ -67,11 +67,15 @@ def hessian_workspace_bytes(degrees: Iterable[int], n: int) -> int:
 
 
 def hvp_workspace_bytes(degrees: Iterable[int], n: int, k: int) -> int:
-    """Peak bytes a pass of Hessian-vector products in k directions allocates beside the
-    coefficients and the caller's directions: the core's copy of the directions (transposed,
-    one row per direction), one n x k accumulator per group of its plan
-    (:func:`pass_accumulators`) and the result, 8 bytes per entry."""
-    return (pass_accumulators(degrees, n, n * k, False) + 2) * n * k * 8
+    """Peak bytes Hessian-vector products in k directions allocate beside the coefficients
+    and the caller's directions: the core's copy of the directions (transposed, one row per
+    direction) and the n x k result, and for the passes over chunks of c = min(k, 32-256)
+    directions (``_core.direction_chunk``) one n x c accumulator per group of a pass's plan
+    (:func:`pass_accumulators`), 8 bytes per entry."""
+    from .. import _core
+
+    c = min(k, int(_core.direction_chunk(n)))
+    return (2 * k + pass_accumulators(degrees, n, n * c, False) * c) * n * 8
 
 
 def hessian_workspace_estimate(mixture: Mixture, n: int) -> int:
