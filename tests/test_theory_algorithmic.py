@@ -144,6 +144,14 @@ def test_field_plus_three_spin_closed_form():
     assert algorithmic_energy(mixture) == pytest.approx(expected, rel=1e-12)
 
 
+@pytest.mark.parametrize("h", [1e-12, 1e-15, 1e-30, 1e-150])
+def test_q_hat_of_a_tiny_field_is_exact_to_relative_precision(h):
+    # the same closed form, q_hat = h / sqrt(3) for xi = h^2 q + q^3: a root found to an
+    # absolute 1e-15 was 1.3e-6 off at h = 1e-12 and 0.0 below h of about 1e-20 (a trial)
+    q_hat = algorithmic_threshold(Mixture({1: h, 3: 1.0}))
+    assert q_hat == pytest.approx(h / math.sqrt(3), rel=1e-13)
+
+
 def test_no_field_means_q_hat_zero():
     assert algorithmic_threshold(Mixture({2: 1.0, 5: 0.4})) == 0.0
 

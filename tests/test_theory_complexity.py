@@ -8,8 +8,14 @@ import numpy as np
 import pytest
 from scipy.integrate import quad
 
+from orthoclimb import Mixture
 from orthoclimb.errors import NonFiniteError
-from orthoclimb.theory import complexity, complexity_ground_state, threshold_energy
+from orthoclimb.theory import (
+    algorithmic_energy,
+    complexity,
+    complexity_ground_state,
+    threshold_energy,
+)
 
 
 @pytest.mark.parametrize("p", range(3, 11))
@@ -31,6 +37,19 @@ def test_complexity_at_threshold(p):
     expected = 0.5 * math.log(p - 1) - (p - 2) / (4 * (p - 1)) * e_inf**2
     assert complexity(p, e_inf) == pytest.approx(expected, abs=1e-15)
     assert expected > 0  # local maxima are exponentially many at the threshold
+
+
+@pytest.mark.parametrize("p", range(3, 9))
+def test_complexity_takes_e_inf_computed_another_way(p):
+    # ALG of the pure p-spin model is E_inf = 2 sqrt((p - 1)/p) (Subag 2018, Auffinger, Ben
+    # Arous and Cerny 2013); computed by quadrature, or as 2 sqrt(p - 1)/sqrt(p), it may land
+    # an ulp or two below and was refused for p = 5, 6, 7, 8 (a user trial)
+    e_inf = threshold_energy(p)
+    for e in (algorithmic_energy(Mixture({p: 1.0})), 2 * math.sqrt(p - 1) / math.sqrt(p)):
+        assert abs(e - e_inf) <= 4 * np.finfo(float).eps * e_inf
+        assert complexity(p, e) == pytest.approx(complexity(p, e_inf), abs=1e-12)
+    with pytest.raises(ValueError, match="energy >= E_inf"):
+        complexity(p, e_inf * (1 - 1e-14))
 
 
 @pytest.mark.parametrize("p", [3, 4, 6])

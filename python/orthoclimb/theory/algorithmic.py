@@ -58,7 +58,16 @@ def algorithmic_threshold(mixture: Mixture) -> float:
 
     if g(1.0) <= 0.0:
         return 1.0
-    return float(brentq(g, 0.0, 1.0, xtol=1e-15, rtol=4 * np.finfo(float).eps, maxiter=200))
+    # to relative precision at any scale: an absolute xtol of 1e-15 left q_hat of a field of
+    # 1e-12 wrong by 1.3e-6 of itself and returned 0.0 for fields below about 1e-20 (a
+    # trial). The bracket shrinks by factors of 1000 first, so that a root near 1e-150 is not
+    # left to some 500 bisections.
+    tiny, hi = np.finfo(float).tiny, 1.0
+    while hi > 1e3 * tiny and g(hi * 1e-3) > 0.0:
+        hi *= 1e-3
+    lo = hi * 1e-3 if hi > 1e3 * tiny else 0.0
+    eps = np.finfo(float).eps
+    return float(brentq(g, lo, hi, xtol=tiny, rtol=4 * eps, maxiter=200))
 
 
 def _sqrt_curvature_integral(mixture: Mixture, q: np.ndarray) -> np.ndarray:
