@@ -53,9 +53,12 @@ fn build(k: usize) -> Result<Arc<ThreadPool>, CoreError> {
         })
 }
 
-/// The default thread count: `ORTHOCLIMB_NUM_THREADS` if set, else the available cores.
+/// The default thread count: `ORTHOCLIMB_NUM_THREADS` if set, else the available cores. Set
+/// to nothing or blanks (`ORTHOCLIMB_NUM_THREADS= python ...`, a job script's empty
+/// substitution) counts as not set, as the CLI already read it.
 pub fn default_threads() -> Result<usize, CoreError> {
     match std::env::var(ENV_VAR) {
+        Ok(text) if text.trim().is_empty() => Ok(available_threads()),
         Ok(text) => text
             .trim()
             .parse::<usize>()
@@ -67,12 +70,16 @@ pub fn default_threads() -> Result<usize, CoreError> {
         Err(std::env::VarError::NotUnicode(raw)) => Err(CoreError::InvalidThreads {
             detail: format!("{ENV_VAR} must be an integer in 1..{MAX_THREADS}, got {raw:?}"),
         }),
-        // capped: a host of more than MAX_THREADS logical processors would otherwise make
-        // every call fail its thread check
-        Err(std::env::VarError::NotPresent) => Ok(std::thread::available_parallelism()
-            .map(|n| n.get().min(MAX_THREADS))
-            .unwrap_or(1)),
+        Err(std::env::VarError::NotPresent) => Ok(available_threads()),
     }
+}
+
+/// The available cores, capped at [`MAX_THREADS`]: a host of more logical processors would
+/// otherwise make every call fail its thread check.
+fn available_threads() -> usize {
+    std::thread::available_parallelism()
+        .map(|n| n.get().min(MAX_THREADS))
+        .unwrap_or(1)
 }
 
 /// Puts `pool` of `k` threads in `slot`. A pool inherited through `fork` is leaked (see the

@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import json
+import math
 
 import numpy as np
 import pytest
@@ -109,6 +110,16 @@ def test_climb_bad_input(tmp_path, capsys, extra):
         code = stop.code
     assert code == 2
     assert "error" in capsys.readouterr().err
+
+
+def test_climb_refused_for_memory_says_what_the_command_can_do(tmp_path, capsys):
+    # p = 3 at n = 100000 needs 1.3e15 bytes; the refusal ended "(in Python, check_memory=False
+    # skips this check)", which a command-line user cannot do (a user trial)
+    args = ["climb", "--gammas", "3:1", "--n", "100000", "--out", str(tmp_path / "c")]
+    assert main(args) == 2
+    err = capsys.readouterr().err
+    assert f"needs {8 * math.comb(100002, 3)} bytes" in err and "check_memory" not in err
+    assert "a smaller --n fits; --plan-only prints the plan without sampling" in err
 
 
 @pytest.mark.parametrize("method", ["hessian", "gradient", "anneal"])

@@ -46,10 +46,22 @@ def test_from_coefficients_round_trip_and_length_check():
         oc.Hamiltonian.from_coefficients(n, {2: a[:-1]})
 
 
-def test_to_dense_refuses_above_limit():
+def test_to_dense_refuses_above_limit(monkeypatch):
     ham = oc.Hamiltonian.sample(oc.Mixture({3: 1.0}), 40, seed=0)
     with pytest.raises(ValueError, match="512000 bytes"):
         ham.to_dense(3, max_bytes=1000)
+    # before copying the coefficients: at n = 1000 that copy took 1.3 GB and 2.3 s, and
+    # under a tight ulimit it failed first, with no word of max_bytes (a user trial)
+
+    def copied(*args, **kwargs):
+        raise AssertionError("the coefficients were copied before the size check")
+
+    monkeypatch.setattr(ham, "coefficients", copied)
+    with pytest.raises(ValueError, match="512000 bytes"):
+        ham.to_dense(3, max_bytes=1000)
+    monkeypatch.undo()
+    with pytest.raises(ValueError, match="no degree-2 term"):
+        ham.to_dense(2, max_bytes=1000)
 
 
 def test_dense_shape_errors():

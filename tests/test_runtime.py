@@ -60,6 +60,22 @@ def test_environment_variable_sets_default():
     assert out.stdout.strip() == "3"
 
 
+def test_an_empty_environment_variable_counts_as_unset():
+    # `ORTHOCLIMB_NUM_THREADS= python ...` (or a job script's empty substitution) raised
+    # ValueError at the first kernel call (a user trial); the CLI already read it as unset
+    code = "import orthoclimb as oc; print(oc.get_num_threads())"
+    unset = dict(os.environ)
+    unset.pop("ORTHOCLIMB_NUM_THREADS", None)
+    want = subprocess.run(
+        [sys.executable, "-c", code], env=unset, capture_output=True, text=True, timeout=120
+    )
+    assert want.returncode == 0, want.stderr
+    for value in ("", "  "):
+        out = _run(code, value)
+        assert out.returncode == 0, out.stderr
+        assert out.stdout == want.stdout
+
+
 def test_bad_environment_variable_is_a_clear_error():
     code = (
         "import orthoclimb as oc\n"

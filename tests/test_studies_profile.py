@@ -145,9 +145,11 @@ def test_profile_refuses_before_timing_or_printing_its_plan(tmp_path, capsys):
     from orthoclimb.studies.profile import profile_kernels
 
     seen = []
-    with pytest.raises(MemoryError):
+    with pytest.raises(MemoryError) as refused:
         profile_kernels(Mixture.parse("3:1"), [50, 100000], 1, lambda *a: seen.append(a))
     assert seen == []  # n = 50 was not timed first
+    # the way on that the message gives is one this function has (it has no check_memory)
+    assert str(refused.value).endswith("(smaller sizes fit)")
     for extra in (["--n", "50,100000"], ["--n", "50,60", "--repeats", "0"]):
         args = ["profile", "--gammas", "3:1", *extra, "--out", str(tmp_path / "p")]
         assert main(args) == 2

@@ -1,7 +1,8 @@
 """The process-wide thread setting of the Rust kernels.
 
 One pool of worker threads serves every kernel call. Its size is ``ORTHOCLIMB_NUM_THREADS``
-when that variable is set before the first kernel call, else the number of available cores;
+when that variable is set (to something other than blanks) before the first kernel call, else
+the number of available cores;
 :func:`set_num_threads` changes it at any time. Results do not depend on the thread count
 (the work decomposition is fixed), only the speed does.
 """

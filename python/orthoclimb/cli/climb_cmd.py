@@ -60,6 +60,10 @@ __all__ = ["add_arguments", "run"]
 METHODS = ("hessian", "gradient", "anneal")
 
 
+# how a refused climb can go on: the command has no switch past its memory check
+_NO_ROOM = "a smaller --n fits; --plan-only prints the plan without sampling"
+
+
 def add_arguments(parser: argparse.ArgumentParser) -> None:
     add_mixture_flags(parser)
     parser.add_argument("--n", type=int, required=True, help="number of spins")
@@ -370,12 +374,14 @@ def run(args: argparse.Namespace) -> int:
         if busy is not None:
             say(f"note: {busy}")
         try:
-            require_memory(need, f"an instance of {mixture!r} with n = {args.n}")
+            require_memory(
+                need, f"an instance of {mixture!r} with n = {args.n}", "a smaller --n fits"
+            )
         except MemoryError as exc:
             say(f"note: {exc}")
         say("plan only: no run, nothing written")
         return 0
-    require_memory(need, f"an instance of {mixture!r} with n = {args.n}")
+    require_memory(need, f"an instance of {mixture!r} with n = {args.n}", _NO_ROOM)
     sampling = _sampling_estimate(mixture, args.n, args.dtype, need)
     if sampling is not None:
         say(sampling)

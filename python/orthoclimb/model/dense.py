@@ -41,14 +41,19 @@ def dense_nbytes(n: int, p: int) -> int:
     return 8 * n**p
 
 
-def to_dense(coeffs: np.ndarray, n: int, p: int, max_bytes: int = DEFAULT_DENSE_LIMIT):
-    """The symmetric (n,)*p float64 tensor with the polynomial of packed `coeffs`."""
+def check_dense_size(n: int, p: int, max_bytes: int) -> None:
+    """ValueError unless the (n,)*p float64 tensor takes at most ``max_bytes``."""
     need = dense_nbytes(n, p)
     if need > max_bytes:
         raise ValueError(
             f"a dense degree-{p} tensor for n = {n} needs {need} bytes ({format_bytes(need)}),"
             f" above the limit max_bytes = {max_bytes}; raise max_bytes if you have the memory"
         )
+
+
+def to_dense(coeffs: np.ndarray, n: int, p: int, max_bytes: int = DEFAULT_DENSE_LIMIT):
+    """The symmetric (n,)*p float64 tensor with the polynomial of packed `coeffs`."""
+    check_dense_size(n, p, max_bytes)
     idx = multisets(n, p)
     values = coeffs / orderings(idx)
     tensor = np.zeros((n,) * p, dtype=np.float64)
