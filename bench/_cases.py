@@ -834,7 +834,7 @@ def case_wide(cfg, ws):
 
     Batches and the multi-direction HVP run as passes over chunks of 32-256 points or
     directions (by n); before, one pass took all of them, and 1024 gradients at p = 2, n =
-    4000 ran 25 times slower per point than batches of 32. A ratio near 1 or above means a
+    4000 ran about 20 times slower per point than batches of 32. A ratio near 1 or above means a
     wide call costs no more per point. The HVP is timed where ``hvp`` takes the
     multi-direction pass (degree 2 at n = 4000, whose Hessian is too large to form); at
     p = 3, n = 300 it forms the Hessian once per call instead."""

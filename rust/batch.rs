@@ -1,4 +1,5 @@
-//! Batched kernels: b points (or k directions) in one pass over the coefficients.
+//! Batched kernels: b points (or k directions) in one pass over the coefficients per chunk of
+//! up to 32-256 of them (see `chunk_points`).
 //!
 //! The coefficients are the expensive stream (they come from main memory); the points are
 //! small and stay in cache. The walk takes prefixes four at a time when they differ only in
@@ -521,14 +522,24 @@ const CHUNK_BYTES: [usize; 2] = [2 << 20, 512 << 10];
 ///   256; b = 2048 93-100 us in passes of 32-256; p = 2, n = 4000, b = 1024: 1689 us in one
 ///   pass; b = 512: 218-245 us in passes of 16-64.
 fn chunk_points(n: usize, want_grad: bool) -> usize {
-    let fit = CHUNK_BYTES[usize::from(want_grad)] / (n.max(1) * std::mem::size_of::<f64>());
+    let row = n.max(1).saturating_mul(std::mem::size_of::<f64>());
+    let fit = CHUNK_BYTES[usize::from(want_grad)] / row;
     1 << fit.clamp(32, 256).ilog2()
 }
 
-/// The b points of `xs` (b x n row-major) through `pass` in chunks of at most
+/// The width of the chunks that split `total` points (or directions) into as few chunks of
+/// at most `most` as can be, of near-equal widths: ceil(total / m) for m = ceil(total /
+/// most), so that a last chunk is never a sliver (257 points in chunks of 256 go as 129 and
+/// 128, not 256 and 1, which would take a four-lane tile for one point).
+fn balanced_chunk(total: usize, most: usize) -> usize {
+    let most = most.max(1);
+    total.div_ceil(total.div_ceil(most).max(1)).max(1)
+}
+
+/// The b points of `xs` (b x n row-major) through `pass` in [`balanced_chunk`]s of at most
 /// [`chunk_points`] points, in order; the energies (b) and, with `want_grad`, the gradients
-/// (b x n row-major) of all chunks. A point's bits depend on its chunk's size, which depends
-/// on b and n only.
+/// (b x n row-major) of all chunks. A point's bits depend on its chunk's width, which
+/// depends on b and n only.
 fn by_chunks(
     n: usize,
     xs: &[f64],
@@ -536,10 +547,11 @@ fn by_chunks(
     want_grad: bool,
     mut pass: impl FnMut(&[f64], usize) -> Result<(Vec<f64>, Vec<f64>), CoreError>,
 ) -> Result<(Vec<f64>, Vec<f64>), CoreError> {
-    let chunk = chunk_points(n, want_grad);
-    if b <= chunk {
+    let most = chunk_points(n, want_grad);
+    if b <= most {
         return pass(xs, b);
     }
+    let chunk = balanced_chunk(b, most);
     let len = b.checked_mul(n).ok_or_else(|| CoreError::SizeOverflow {
         what: format!("batch of {b} points"),
     })?;
@@ -703,17 +715,15 @@ pub fn hvp_many_rows<T: Coef>(
     check_len("x", n, x.len())?;
     let len = directions_len(n, k)?;
     check_len("directions (k x n)", len, rows.len())?;
-    let chunk = direction_chunk(n).min(k).max(1);
+    let chunk = direction_chunk(n, k);
     let mut out: Vec<f64> = try_zeroed(len)?; // n x k, filled chunk by chunk
     let blocks = poly.blocks();
+    // every chunk, a narrower last one too, is cut as a full one, so that no pass holds more
+    // than the accumulators of a full chunk (the count the Python memory check makes)
+    let count = pieces(poly.num_coefficients(), chunk * n);
     for (c, part) in rows.chunks(chunk * n).enumerate() {
         let kc = part.len() / n;
-        let items = items_for(
-            poly,
-            pieces(poly.num_coefficients(), part.len()),
-            2 * kc + 1,
-            1,
-        );
+        let items = items_for(poly, count, 2 * kc + 1, 1);
         let (_, w) = reduce_sums(exec, &items, 0, part.len(), |it, _, w| {
             hvp_many_item::<T>(n, &blocks[it.block].coeffs, it, x, part, w, exec);
         })?;
@@ -727,16 +737,16 @@ pub fn hvp_many_rows<T: Coef>(
     Ok(out)
 }
 
-/// Most directions of one pass of [`hvp_many_rows`] at n: the gradients' [`chunk_points`]
-/// (32-256), since each prefix reads a row of every direction and writes a row of its
+/// The directions of one pass of [`hvp_many_rows`] for k of them at n: the
+/// [`balanced_chunk`] of at most the gradients' [`chunk_points`] (32-256), since each prefix reads a row of every direction and writes a row of its
 /// accumulator, as the gradient tile does for its points. One pass over all directions read
 /// and wrote rows far larger than L2 at every prefix, on one thread: median of three calls
 /// on the Zen 4 host, two threads, one pass against passes of 32-256 directions: p = 3, n =
 /// 300, 1024 directions 1581 ms against 638-694 ms; p = 2, n = 4000, 512 directions 2284 ms
 /// against 591 ms (16), 612 ms (32) and 1158 ms (64); p = 4, n = 100, 512 directions 860
 /// against 742-781 ms.
-pub fn direction_chunk(n: usize) -> usize {
-    chunk_points(n, true)
+pub fn direction_chunk(n: usize, k: usize) -> usize {
+    balanced_chunk(k, chunk_points(n, true))
 }
 
 #[cfg(test)]
@@ -867,7 +877,11 @@ mod tests {
         assert_eq!(chunk_points(4000, false), 64);
         assert_eq!(chunk_points(4000, true), 32);
         assert_eq!(chunk_points(1 << 20, true), 32);
-        let (n, b) = (12usize, 600usize); // chunks of 256, 256 and 88 points
+        let (n, b) = (12usize, 600usize); // at most 256 per chunk: three chunks of 200
+        assert_eq!(balanced_chunk(b, chunk_points(n, true)), 200);
+        assert_eq!(balanced_chunk(257, 256), 129);
+        assert_eq!(balanced_chunk(256, 256), 256);
+        assert_eq!(balanced_chunk(33, 32), 17);
         let terms = [(1usize, 0.5), (2, 1.0), (3, 0.6)];
         let poly = Packed::<f64>::sample(&pool(2), n, &terms, &Disorder::new(5)).unwrap();
         let xs: Vec<f64> = (0..b * n).map(|i| ((i as f64) * 0.37).sin()).collect();
@@ -875,7 +889,7 @@ mod tests {
         let e_all = energy_batch(&p, &poly, &xs, b).unwrap();
         let (eg_all, g_all) = energy_gradient_batch(&p, &poly, &xs, b).unwrap();
         let (mut e_parts, mut eg_parts, mut g_parts) = (vec![], vec![], vec![]);
-        for part in xs.chunks(256 * n) {
+        for part in xs.chunks(200 * n) {
             let c = part.len() / n;
             e_parts.extend(energy_batch(&p, &poly, part, c).unwrap());
             let (e, g) = energy_gradient_batch(&p, &poly, part, c).unwrap();
@@ -886,7 +900,7 @@ mod tests {
         assert_eq!(bits(&e_all), bits(&e_parts));
         assert_eq!(bits(&eg_all), bits(&eg_parts));
         assert_eq!(bits(&g_all), bits(&g_parts));
-        for beta in [0, 255, 256, 511, 512, 599] {
+        for beta in [0, 199, 200, 399, 400, 599] {
             let (e0, g0, _) = naive(&poly, &xs[beta * n..beta * n + n]);
             assert!(
                 (e_all[beta] - e0).abs() < 1e-11 * (1.0 + e0.abs()),
@@ -994,31 +1008,32 @@ mod tests {
         }
     }
 
-    /// More directions than [`direction_chunk`] run as passes over chunks (256, 256, 88 at n
+    /// More directions than [`direction_chunk`] run as passes over chunks (three of 200 at n
     /// = 13): the products are bitwise those of each chunk on its own, in their columns, and
     /// match the one-direction kernel.
     #[test]
     fn many_directions_are_their_chunks_and_match_single_direction() {
         let (n, k) = (13usize, 600usize);
-        assert_eq!(direction_chunk(n), 256);
-        assert_eq!(direction_chunk(4000), 32);
+        assert_eq!(direction_chunk(n, k), 200); // at most 256 at n = 13
+        assert_eq!(direction_chunk(4000, 1000), 32);
+        assert_eq!(direction_chunk(4000, 33), 17);
         let terms = [(1usize, 0.4), (2, 1.0), (3, 0.6)];
         let poly = Packed::<f64>::sample(&pool(2), n, &terms, &Disorder::new(7)).unwrap();
         let x: Vec<f64> = (0..n).map(|i| (i as f64 * 0.3).sin()).collect();
         let rows: Vec<f64> = (0..k * n).map(|i| (i as f64 * 0.23).cos()).collect();
         let p = pool(2);
         let w = hvp_many_rows(&p, &poly, &x, &rows, k).unwrap(); // n x k
-        for (c, part) in rows.chunks(256 * n).enumerate() {
+        for (c, part) in rows.chunks(200 * n).enumerate() {
             let kc = part.len() / n;
             let wc = hvp_many_rows(&p, &poly, &x, part, kc).unwrap(); // n x kc
             for t in 0..n {
                 for j in 0..kc {
-                    let got = w[t * k + c * 256 + j];
+                    let got = w[t * k + c * 200 + j];
                     assert_eq!(got.to_bits(), wc[t * kc + j].to_bits(), "({t}, {c} {j})");
                 }
             }
         }
-        for kap in [0, 255, 256, 599] {
+        for kap in [0, 199, 200, 599] {
             let w1 = hvp(&p, &poly, &x, &rows[kap * n..kap * n + n]).unwrap();
             for t in 0..n {
                 let got = w[t * k + kap];

@@ -531,7 +531,7 @@ impl PyPacked {
         Ok(w.into_pyarray(py))
     }
 
-    /// Hess H(x) V for k directions (V of shape (n, k)), in one pass.
+    /// Hess H(x) V for k directions (V of shape (n, k)), in one pass per chunk of directions.
     fn hvp_many<'py>(
         &self,
         py: Python<'py>,
@@ -672,11 +672,11 @@ fn pass_accumulators(
     kernels::accumulator_count(n, &degrees, acc_len, quantum).map_err(|e| to_py_err(py, e))
 }
 
-/// Most directions of one pass of the multi-direction HVP at n (32-256: their rows and the
-/// pass's stay near L2).
+/// The directions of one pass of the multi-direction HVP for k of them at n (up to 32-256:
+/// their rows and the pass's stay near L2).
 #[pyfunction]
-fn direction_chunk(n: usize) -> usize {
-    batch::direction_chunk(n)
+fn direction_chunk(n: usize, k: usize) -> usize {
+    batch::direction_chunk(n, k)
 }
 
 /// Sets the number of threads of the shared pool.

@@ -64,7 +64,7 @@ def test_kernels_match_dense_reference(gammas, n, dtype, rng):
 @pytest.mark.parametrize("b", [16, 37, 70, 600])
 def test_wide_batches_match_dense_reference(b, dtype, rng):
     # 16, 32 + 4 (+ padding) and 2 x 32 + 8 lanes: the AVX-512 tile where the processor has
-    # it, the AVX2 tile elsewhere; 600 points run as chunks of 256, 256 and 88 at n = 21;
+    # it, the AVX2 tile elsewhere; 600 points run as three chunks of 200 at n = 21;
     # either way each point against the dense reference
     ham = oc.Hamiltonian.sample(oc.Mixture({1: 0.3, 2: 1.0, 3: 0.6, 4: 0.4}), 21, 3, dtype)
     tensors = reference.dense_tensors(ham)
@@ -78,19 +78,19 @@ def test_wide_batches_match_dense_reference(b, dtype, rng):
 
 
 def test_a_batch_wider_than_a_chunk_is_its_chunks_bit_for_bit(rng):
-    # at n = 21 a chunk holds 256 points (n x 256 numbers fit 1 MiB): the middle chunk of a
-    # batch of 600 gives the bits it gives as a batch of its own
+    # at n = 21 a chunk holds at most 256 points (n x 256 numbers fit 512 KiB), so 600 points
+    # go as three chunks of 200: the middle one gives the bits it gives as a batch of its own
     ham = oc.Hamiltonian.sample(oc.Mixture({2: 1.0, 3: 0.6}), 21, 8)
     xs = unit(rng.standard_normal((600, 21)))
     e, g = ham.energy_and_gradient(xs)
-    e_mid, g_mid = ham.energy_and_gradient(xs[256:512])
-    assert np.array_equal(e[256:512], e_mid) and np.array_equal(g[256:512], g_mid)
-    assert np.array_equal(ham.energy(xs)[512:], ham.energy(xs[512:]))
+    e_mid, g_mid = ham.energy_and_gradient(xs[200:400])
+    assert np.array_equal(e[200:400], e_mid) and np.array_equal(g[200:400], g_mid)
+    assert np.array_equal(ham.energy(xs)[400:], ham.energy(xs[400:]))
     # the multi-direction HVP pass (which hvp takes for large Hessians) chunks directions
     # the same way; against the Hessian times the directions (exact algebra)
     vs = rng.standard_normal((21, 600))
     w = ham._core.hvp_many(xs[0], vs)
-    assert np.array_equal(w[:, 256:512], ham._core.hvp_many(xs[0], vs[:, 256:512].copy()))
+    assert np.array_equal(w[:, 200:400], ham._core.hvp_many(xs[0], vs[:, 200:400].copy()))
     want = ham.hessian(xs[0]) @ vs
     _close(w, want, 1.0 + np.abs(want).max())
 

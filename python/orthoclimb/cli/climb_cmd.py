@@ -61,7 +61,8 @@ METHODS = ("hessian", "gradient", "anneal")
 
 
 # how a refused climb can go on: the command has no switch past its memory check
-_NO_ROOM = "a smaller --n fits; --plan-only prints the plan without sampling"
+_SMALLER = "a smaller --n fits"
+_NO_ROOM = f"{_SMALLER}; --plan-only prints the plan without sampling"
 
 
 def add_arguments(parser: argparse.ArgumentParser) -> None:
@@ -374,9 +375,7 @@ def run(args: argparse.Namespace) -> int:
         if busy is not None:
             say(f"note: {busy}")
         try:
-            require_memory(
-                need, f"an instance of {mixture!r} with n = {args.n}", "a smaller --n fits"
-            )
+            require_memory(need, f"an instance of {mixture!r} with n = {args.n}", _SMALLER)
         except MemoryError as exc:
             say(f"note: {exc}")
         say("plan only: no run, nothing written")

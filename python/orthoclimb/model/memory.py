@@ -69,12 +69,15 @@ def hessian_workspace_bytes(degrees: Iterable[int], n: int) -> int:
 def hvp_workspace_bytes(degrees: Iterable[int], n: int, k: int) -> int:
     """Peak bytes Hessian-vector products in k directions allocate beside the coefficients
     and the caller's directions: the core's copy of the directions (transposed, one row per
-    direction) and the n x k result, and for the passes over chunks of c = min(k, 32-256)
-    directions (``_core.direction_chunk``) one n x c accumulator per group of a pass's plan
-    (:func:`pass_accumulators`), 8 bytes per entry."""
+    direction) and the n x k result, and for the passes over chunks of c directions (k split
+    into near-equal chunks of at most 32-256, ``_core.direction_chunk``) one n x c
+    accumulator per group of a chunk's plan (:func:`pass_accumulators`; a narrower last
+    chunk is cut as a full one), 8 bytes per entry."""
     from .. import _core
 
-    c = min(k, int(_core.direction_chunk(n)))
+    if k < 1:
+        return 0
+    c = int(_core.direction_chunk(n, k))
     return (2 * k + pass_accumulators(degrees, n, n * c, False) * c) * n * 8
 
 

@@ -58,10 +58,11 @@ def algorithmic_threshold(mixture: Mixture) -> float:
 
     if g(1.0) <= 0.0:
         return 1.0
-    # to relative precision at any scale: an absolute xtol of 1e-15 left q_hat of a field of
-    # 1e-12 wrong by 1.3e-6 of itself and returned 0.0 for fields below about 1e-20 (a
-    # trial). The bracket shrinks by factors of 1000 first, so that a root near 1e-150 is not
-    # left to some 500 bisections.
+    # to relative precision: an absolute xtol of 1e-15 left q_hat of a field of 1e-12 wrong by
+    # 1.3e-6 of itself and returned 0.0 for fields below about 1e-20 (a trial). The bracket
+    # shrinks by factors of 1000 first, so that a root near 1e-150 is not left to some 500
+    # bisections. Below fields of about 1e-154 gamma_1^2 is subnormal and the root loses
+    # digits; below about 1e-162 it underflows to 0 and so does q_hat.
     tiny, hi = np.finfo(float).tiny, 1.0
     while hi > 1e3 * tiny and g(hi * 1e-3) > 0.0:
         hi *= 1e-3

@@ -67,7 +67,8 @@ def complexity(p: int, energy: Any) -> Any:
         ) from None
     e_inf = 2.0 * math.sqrt((p - 1) / p)
     # E_inf computed another way (ALG of the pure model, 2 sqrt(p - 1) / sqrt(p)) can land a
-    # few ulp below this one, and was refused (a trial): within 8 ulp it is E_inf
+    # few ulp below this one, and was refused (a trial): less than 8 eps relative below (9-16
+    # ulp, as E_inf lies in [1.15, 2)) it is E_inf
     e = np.where((e < e_inf) & (e >= e_inf * (1.0 - 8 * np.finfo(float).eps)), e_inf, e)
     below = e < e_inf
     if np.any(below):
