@@ -125,6 +125,8 @@ def _table(report: dict[str, Any]) -> str:
         rows.append(("q_hat", f"{report['q_hat']:.10g}"))
     rows.append(("ALG", _energy(report["alg"])))
     status = "converged" if gs["converged"] else "NOT converged"
+    if gs.get("looser_tol") is not None:  # the solve at ten times tol ended lower
+        status += f", from the lower solve at tol {gs['looser_tol']:.0e}"
     resolution = max(gs["tol"], gs["change"], gs["jump_gain"])
     rows.append(
         (

@@ -324,8 +324,9 @@ class Mixture:
 
         return hessian_edge(self, q)
 
-    def ground_state(self, **kwargs: Any) -> Any:
-        """Zero-temperature Parisi ground state; see :func:`orthoclimb.theory.ground_state`."""
+    def ground_state(self, tol: float = 1e-6, **kwargs: Any) -> Any:
+        """Zero-temperature Parisi ground state to ``tol`` (absolute, energy per spin), the
+        other options passed on; see :func:`orthoclimb.theory.ground_state`."""
         from ..theory import ground_state
 
-        return ground_state(self, **kwargs)
+        return ground_state(self, tol, **kwargs)
