@@ -275,3 +275,15 @@ def test_the_ground_state_is_printed_to_the_solvers_tolerance(capsys):
         value = re.search(r"GS \(Parisi\)\s+(\d+\.(\d+))", row)
         assert len(value.group(2)) == decimals, row
         assert float(value.group(1)) == pytest.approx(1.77942008718, abs=float(tol))
+
+
+def test_a_tiny_scale_prints_gs_only_to_the_digits_its_tolerance_holds(capsys):
+    # gammas of 1e-8 with the default absolute tol 1e-6: GS (1.76e-8 by scaling, GS of
+    # 1:0.5,3:1 times 1e-8) was printed as 1.7613579572e-08, wrong from the fifth digit (a
+    # trial); exact values keep eleven digits, and a tol in proportion gives GS's digits back
+    assert main(["theory", "--gammas", "1:5e-9,3:1e-8"]) == 0
+    out = capsys.readouterr().out
+    assert "GS (Parisi)  1.8e-08 " in out and "ALG          1.7596324428e-08" in out
+    assert main(["theory", "--gammas", "1:5e-9,3:1e-8", "--tol", "1e-19"]) == 0
+    gs = ground_state(Mixture.parse("1:0.5,3:1"), 1e-11).value * 1e-8
+    assert f"GS (Parisi)  {gs:.9e}"[:-5] in capsys.readouterr().out

@@ -88,16 +88,22 @@ def _report(mixture: Mixture, tol: float) -> dict[str, Any]:
     }
 
 
-def _energy(value: float, resolution: float = 1e-10) -> str:
-    """An energy per spin: decimals down to ``resolution`` (ten for the exact values, fewer
-    for the Parisi solver's GS, whose error is up to its tolerance: an independent check found
-    GS of 1:0.3,3:1 5e-7 high at tol 1e-6, printed to ten decimals), at the usual scales
-    (xi(1) of order one); eleven significant digits in exponent form for a mixture scaled far
-    from them."""
+def _energy(value: float, resolution: float | None = None) -> str:
+    """An energy per spin: decimals down to ``resolution`` (ten for the exact values, None,
+    fewer for the Parisi solver's GS, whose error is up to its tolerance: an independent check
+    found GS of 1:0.3,3:1 5e-7 high at tol 1e-6, printed to ten decimals), at the usual scales
+    (xi(1) of order one); in exponent form for a mixture scaled far from them, eleven
+    significant digits for exact values and those down to ``resolution`` (at least two) for
+    GS (gammas of 1e-8 at tol 1e-6 printed 11 digits of which none held, a trial)."""
     if value == 0.0 or 1e-3 <= abs(value) < 1e6:
+        if resolution is None:
+            return f"{value:.10f}"
         decimals = min(10, max(4, math.ceil(-math.log10(resolution))))
         return f"{value:.{decimals}f}"
-    return f"{value:.10e}"
+    digits = 11
+    if resolution is not None:
+        digits = min(11, max(2, math.floor(math.log10(abs(value) / resolution)) + 1))
+    return f"{value:.{digits - 1}e}"
 
 
 def _alpha_text(alpha: list[float]) -> str:
