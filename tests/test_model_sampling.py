@@ -88,6 +88,12 @@ def test_nbytes_and_estimate_memory():
         assert ham.num_coefficients == count
         assert ham.nbytes == size * count == oc.estimate_memory(mix, n, dtype)
         assert ham.dtype == dtype
+        # with the Hessian: plus one hessian() call's workspace, at least its accumulator and
+        # its result (n x n numbers each), as the instance itself counts it
+        extra = oc.estimate_memory(mix, n, dtype, hessian=True) - ham.nbytes
+        assert extra == ham.hessian_workspace_nbytes >= 2 * n * n * 8
+    with pytest.raises(TypeError, match="hessian must be True or False, got 'yes'"):
+        oc.estimate_memory(mix, n, hessian="yes")
 
 
 def test_coefficient_ranges_are_slices_of_the_block():

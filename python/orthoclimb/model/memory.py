@@ -16,6 +16,7 @@ import numpy as np
 
 from .._text import format_bytes
 from ..errors import InsufficientMemoryError
+from .arrays import as_flag
 from .cgroup_memory import cgroup_headroom
 from .mixture import Mixture
 from .process_limits import address_space_headroom
@@ -34,15 +35,23 @@ def normalize_dtype(dtype: object) -> str:
     return name
 
 
-def estimate_memory(mixture: Mixture, n: int, dtype: object = "float64") -> int:
-    """Bytes of coefficient storage for a sampled instance of `mixture` with n spins."""
+def estimate_memory(
+    mixture: Mixture, n: int, dtype: object = "float64", *, hessian: bool = False
+) -> int:
+    """Bytes of coefficient storage for a sampled instance of `mixture` with n spins; with
+    ``hessian=True`` plus the workspace of one :meth:`Hamiltonian.hessian` call (its n x n
+    accumulators and result, :func:`hessian_workspace_bytes`), what a dense Hessian at n
+    needs beside the instance."""
     if not isinstance(mixture, Mixture):
         raise TypeError(f"mixture must be an orthoclimb.Mixture, got {type(mixture).__name__}")
     n = check_size(n)
     itemsize = DTYPES[normalize_dtype(dtype)]
     # exact in Python integers, also where the core's 64-bit count overflows (n = 2^40 at
     # p = 3 needs about 1.6e36 bytes: a number, not an error)
-    return coefficient_count(mixture.degrees, n) * itemsize
+    storage = coefficient_count(mixture.degrees, n) * itemsize
+    if as_flag(hessian, "hessian"):
+        storage += hessian_workspace_bytes(mixture.degrees, n)
+    return storage
 
 
 def pass_accumulators(degrees: Iterable[int], n: int, acc_len: int, single_point: bool) -> int:
