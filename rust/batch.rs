@@ -737,9 +737,10 @@ pub fn hvp_many_rows<T: Coef>(
     Ok(out)
 }
 
-/// The directions of one pass of [`hvp_many_rows`] for k of them at n: the
-/// [`balanced_chunk`] of at most the gradients' [`chunk_points`] (32-256), since each prefix reads a row of every direction and writes a row of its
-/// accumulator, as the gradient tile does for its points. One pass over all directions read
+/// The directions of one pass of [`hvp_many_rows`] for k of them at n: the near-equal chunk
+/// (`balanced_chunk`) of at most the gradients' `chunk_points` (32-256), since each prefix
+/// reads a row of every direction and writes a row of its accumulator, as the gradient tile
+/// does for its points. One pass over all directions read
 /// and wrote rows far larger than L2 at every prefix, on one thread: median of three calls
 /// on the Zen 4 host, two threads, one pass against passes of 32-256 directions: p = 3, n =
 /// 300, 1024 directions 1581 ms against 638-694 ms; p = 2, n = 4000, 512 directions 2284 ms
