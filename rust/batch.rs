@@ -464,10 +464,7 @@ fn run_batch<T: Coef>(
         "lane stride {stride} for {b} points"
     );
     let n = poly.n();
-    let len = b.checked_mul(n).ok_or_else(|| CoreError::SizeOverflow {
-        what: format!("batch of {b} points"),
-    })?;
-    check_len("points (b x n)", len, xs.len())?;
+    points_len(n, b, xs)?;
     let lane_rows = LaneRows::new(xs, b, n, stride)?;
     let xt = lane_rows.rows();
     let glen = if want_grad { n * stride } else { 0 };
@@ -527,6 +524,16 @@ fn chunk_points(n: usize, want_grad: bool) -> usize {
     1 << fit.clamp(32, 256).ilog2()
 }
 
+/// b * n, the numbers of b points, checked against `xs` (b x n row-major); the overflow or a
+/// wrong length as an error.
+fn points_len(n: usize, b: usize, xs: &[f64]) -> Result<usize, CoreError> {
+    let len = b.checked_mul(n).ok_or_else(|| CoreError::SizeOverflow {
+        what: format!("batch of {b} points"),
+    })?;
+    check_len("points (b x n)", len, xs.len())?;
+    Ok(len)
+}
+
 /// The width of the chunks that split `total` points (or directions) into as few chunks of
 /// at most `most` as can be, of near-equal widths: ceil(total / m) for m = ceil(total /
 /// most), so that a last chunk is never a sliver (257 points in chunks of 256 go as 129 and
@@ -552,10 +559,7 @@ fn by_chunks(
         return pass(xs, b);
     }
     let chunk = balanced_chunk(b, most);
-    let len = b.checked_mul(n).ok_or_else(|| CoreError::SizeOverflow {
-        what: format!("batch of {b} points"),
-    })?;
-    check_len("points (b x n)", len, xs.len())?;
+    let len = points_len(n, b, xs)?;
     let mut e = Vec::with_capacity(b);
     let mut g: Vec<f64> = if want_grad {
         try_zeroed(len)?
@@ -728,11 +732,7 @@ pub fn hvp_many_rows<T: Coef>(
             hvp_many_item::<T>(n, &blocks[it.block].coeffs, it, x, part, w, exec);
         })?;
         // w is kc x n: direction j of the chunk is column c * chunk + j of the result
-        for (j, wrow) in w.chunks_exact(n).enumerate() {
-            for (t, &v) in wrow.iter().enumerate() {
-                out[t * k + c * chunk + j] = v;
-            }
-        }
+        transpose_into(&w, (kc, n, n), k, &mut out[c * chunk..]);
     }
     Ok(out)
 }
