@@ -80,21 +80,42 @@ def test_polish_runs_its_dense_linear_algebra_on_one_blas_thread(monkeypatch, bl
     assert max(blas_threads()) >= 2  # restored afterwards
 
 
-def test_newton_refuses_a_point_that_is_not_near_a_maximum():
-    # exact: at the second eigenvector of M (H = x.M x) the Riemannian Hessian has one positive
-    # eigenvalue 2 (lambda_1 - lambda_2), so the Cholesky test of negative definiteness fails
+def test_newton_leaves_a_saddle_for_the_maximum_with_a_shifted_step():
+    # exact: for H = x.M x the critical points on the sphere are M's eigenvectors and the only
+    # local maximum is the top one (energy lambda_1 / n). At the second eigenvector the
+    # Riemannian Hessian has one positive eigenvalue 2 (lambda_1 - lambda_2), so the Cholesky
+    # factorization of -A fails unshifted: before December 2026 Newton stopped there
+    # ("not_a_maximum"); the shifted step (Nocedal and Wright 2006, Algorithm 3.3) climbs on
+    # along the gradient's small component toward the top eigenvector.
     from orthoclimb.algorithms._newton import newton_refine
 
     n = 60
     ham = oc.Hamiltonian.sample(oc.Mixture({2: 1.0}), n, seed=3)
     vals, vecs = scipy.linalg.eigh(_sym_from_p2(ham))
-    near = vecs[:, -2] + 1e-3 * vecs[:, 0]
-    out = newton_refine(ham, near / np.linalg.norm(near), gtol=1e-12)
-    assert out.status == "not_a_maximum" and out.steps == 0
+    near = vecs[:, -2] + 1e-3 * vecs[:, -1] + 1e-3 * vecs[:, 0]
+    out = newton_refine(ham, near / np.linalg.norm(near), gtol=1e-10, max_steps=40)
+    assert out.status == "converged" and out.shifted >= 1
+    assert out.factorizations > out.steps  # some shifts were refused before one held
+    assert out.energy == pytest.approx(vals[-1] / n, rel=1e-12)
+    assert abs(float(out.x @ vecs[:, -1])) == pytest.approx(1.0, abs=1e-9)
     top = vecs[:, -1] + 1e-2 * vecs[:, 0]
     out = newton_refine(ham, top / np.linalg.norm(top), gtol=1e-10)
-    assert out.status == "converged"
+    assert out.status == "converged" and out.shifted == 0  # near the maximum: plain Newton
     assert out.energy == pytest.approx(vals[-1] / n, rel=1e-12)
+
+
+def test_shifted_cholesky_takes_the_first_shift_that_makes_the_matrix_definite():
+    # exact: diag(-1, 2) needs tau > 1; the sequence is tau_0 = beta + 1, doubling
+    # (Nocedal and Wright 2006, Algorithm 3.3); a NaN matrix gets no factor
+    from orthoclimb.algorithms._newton import _shifted_cholesky
+
+    factor, tau, tried = _shifted_cholesky(np.diag([-1.0, 2.0]), 0.25)
+    assert (tau, tried) == (1.25, 1)
+    c, lower = factor
+    assert np.allclose(np.diag(np.triu(c) if not lower else np.tril(c)) ** 2, [0.25, 3.25])
+    _f, tau, tried = _shifted_cholesky(np.array([[1.0, 2.0], [2.0, 1.0]]), 0.3)
+    assert tried == 4 and tau == pytest.approx(1.2)  # eigenvalues -1, 3: 0, 0.3, 0.6 fail
+    assert _shifted_cholesky(np.full((2, 2), np.nan), 1.0)[0] is None
 
 
 def test_polish_validation():

@@ -122,6 +122,43 @@ def test_climb_refused_for_memory_says_what_the_command_can_do(tmp_path, capsys)
     assert "a smaller --n fits; --plan-only prints the plan without sampling" in err
 
 
+@pytest.mark.parametrize(("method", "extra"), [("hessian", []), ("anneal", ["--steps", "30"])])
+def test_climb_bar_says_polishing_once_the_steps_are_done(
+    tmp_path, capsys, monkeypatch, method, extra
+):
+    # the bar counted the steps and then stood still at its end through the polish, which
+    # can take as long as the steps; its label now says what runs
+    import tqdm
+
+    labels = []
+
+    class Bar:
+        def __init__(self, total, **_kwargs):
+            self.total, self.n = total, 0
+
+        def update(self, k):
+            self.n += k
+
+        def set_postfix(self, **_kwargs):
+            pass
+
+        def set_description_str(self, text, refresh=True):
+            labels.append((self.n, text))
+
+        def close(self):
+            pass
+
+    monkeypatch.setattr(tqdm, "tqdm", Bar)
+    args = ["climb", "--gammas", "3:1", "--n", "30", "--method", method, *extra]
+    assert main([*args, "--out", str(tmp_path / "a")]) == 0
+    assert len(labels) == 1 and labels[0][1] == "polishing"
+    assert labels[0][0] == (24 if method == "hessian" else 30)  # K - 1 steps (K = 25), or 30
+    labels.clear()
+    assert main([*args, "--no-polish", "--out", str(tmp_path / "b")]) == 0
+    assert labels == []
+    capsys.readouterr()
+
+
 @pytest.mark.parametrize("method", ["hessian", "gradient", "anneal"])
 def test_climb_estimates_the_polish_and_a_gradient_cap_and_draws_no_bar_in_a_log(
     tmp_path, capsys, method

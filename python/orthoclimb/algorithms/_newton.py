@@ -10,15 +10,29 @@ method converges quadratically. One Newton step at x solves, in the tangent spac
 R(x + d) = (x + d)/|x + d|. To stay in the tangent space without a basis, the radial direction
 gets the eigenvalue -big (big > the spectral radius): A = Hess_S - big x x^T is then negative
 definite exactly when Hess_S is on the tangent space, and A d = -G has its solution d
-orthogonal to x. The Cholesky factorization of -A (``scipy.linalg.cho_factor``) both solves and
-tests definiteness: a failure means x is not near a local maximum, and the caller keeps its
-gradient method. The step is damped (d, d/2, d/4, d/8: the first that raises the energy is
-taken); near the marginal maxima that ascent methods reach in spin glasses the tangent
-spectrum reaches close to zero, so the region of quadratic convergence is small and the first
-steps are often damped.
+orthogonal to x.
 
-Cost per step: one Hessian pass, one energy-and-gradient pass and a dense n x n Cholesky
-(n^3/3 multiply-adds: about 20 ms at n = 800 on 2 cores).
+Away from a maximum (a saddle, or the flat regions near the marginal maxima that ascent
+methods reach in spin glasses, where the tangent spectrum reaches close to zero) -A is not
+positive definite and the plain step may descend. The step is then regularized by the
+smallest shift tau >= 0 of the sequence of "Cholesky with added multiple of the identity"
+(Nocedal and Wright 2006, Numerical Optimization, 2nd ed., Algorithm 3.3) for which
+``scipy.linalg.cho_factor`` succeeds on -A + tau I:
+
+    tau_0 = 0 if min_i (-A)_ii > 0, else beta - min_i (-A)_ii;   tau_{k+1} = max(2 tau_k, beta),
+
+with beta = 1e-3 (|Hess H|_inf + |x.grad H|), relative to the Hessian's scale as the radial
+shift is. Then (-A + tau I) d = G: d is an ascent direction (G.d > 0), between the Newton
+step (tau = 0: quadratic convergence near a non-degenerate maximum) and a gradient step of
+length |G|/tau. A step longer than 0.5 (about 29 degrees of arc) is shortened to 0.5, and the
+step is damped (d, d/2, ..., d/32: the first that raises the energy is taken).
+
+Until December 2026 a failed factorization ended Newton ("not a maximum") and gradient ascent
+took over, for hundreds of iterations in such flat regions: the slowest polishes took 2-10
+times longer than now (measured in the polish module doc).
+
+Cost per step: one Hessian pass, one energy-and-gradient pass per damping trial and a dense
+n x n Cholesky per shift tried (n^3/3 multiply-adds: about 20 ms at n = 800 on 2 cores).
 """
 
 from __future__ import annotations
@@ -33,8 +47,12 @@ from ._sphere import norm, retract
 
 __all__ = ["NewtonOutcome", "newton_refine"]
 
-_DAMPING = (1.0, 0.5, 0.25, 0.125)
+_DAMPING = (1.0, 0.5, 0.25, 0.125, 0.0625, 0.03125)
 _ROUNDING = 1e-15  # relative energy change below which a step is no progress
+_MAX_STEP = 0.5  # longest step (tangent length) tried
+_SHIFT_FLOOR = 1e-3  # beta of the module doc, relative to the Hessian's scale
+# per step: from beta = 1e-3 scale, doubling passes the spectral radius (<= scale) in 11 tries
+_MAX_FACTORIZATIONS = 80
 
 
 @dataclass
@@ -44,7 +62,9 @@ class NewtonOutcome:
     grad_norm: float  # |P grad H|/n
     steps: int  # accepted Newton steps
     passes: int  # kernel passes spent (Hessian and energy-and-gradient)
-    status: str  # "converged", "not_a_maximum", "no_progress" or "max_steps"
+    status: str  # "converged", "no_progress" or "max_steps"
+    shifted: int = 0  # accepted steps that needed a shift tau > 0 (not near a maximum)
+    factorizations: int = 0  # Cholesky factorizations tried
     history: list[tuple[float, float]] = field(default_factory=list)  # (energy, grad_norm)
 
 
@@ -69,7 +89,7 @@ def newton_refine(
     n = ham.n
     x = retract(np.asarray(x, dtype=np.float64))
     e, tg, radial = _tangent_state(ham, x)
-    passes, steps = 1, 0
+    passes, steps, shifted, factorizations = 1, 0, 0, 0
     history = []
     status = "max_steps"
     for _ in range(max_steps + 1):
@@ -84,20 +104,27 @@ def newton_refine(
         # A = P (Hess - radial I) P - big x x^T = Hess - x w^T - w x^T + c x x^T - radial I
         w = hess @ x
         # relative, as in the local-maximum check: an added 1 swamped a Hessian of scale 1e-20
-        c = radial_shift(float(x @ w), radial, float(np.abs(hess).sum(axis=1).max()) + abs(radial))
+        scale = float(np.abs(hess).sum(axis=1).max()) + abs(radial)
+        c = radial_shift(float(x @ w), radial, scale)
         hess -= np.outer(x, w) + np.outer(w, x) - c * np.outer(x, x)
         hess[np.diag_indices(n)] -= radial
         hess = 0.5 * (hess + hess.T)
-        try:
-            factor = scipy.linalg.cho_factor(-hess, overwrite_a=True, check_finite=False)
-        except np.linalg.LinAlgError:
-            status = "not_a_maximum"
+        factor, tau, tried = _shifted_cholesky(-hess, _SHIFT_FLOOR * scale)
+        factorizations += tried
+        if factor is None:  # not finite, or no shift made it positive definite
+            status = "no_progress"
             break
-        d = scipy.linalg.cho_solve(factor, tg, check_finite=False)  # A d = -G  <=>  -A d = G
+        d = scipy.linalg.cho_solve(factor, tg, check_finite=False)  # (-A + tau I) d = G
+        if not np.isfinite(d).all():  # a factor of a (numerically) singular matrix
+            status = "no_progress"
+            break
         d -= x * float(x @ d)  # exact arithmetic keeps d tangent; remove rounding drift
+        length = norm(d)
+        if length > _MAX_STEP:
+            d *= _MAX_STEP / length
         # damped: the full step, else halves of it, the first one that raises the energy
-        for scale in _DAMPING:
-            y = retract(x + scale * d)
+        for damping in _DAMPING:
+            y = retract(x + damping * d)
             e_y, tg_y, radial_y = _tangent_state(ham, y)
             passes += 1
             if e_y > e + _ROUNDING * abs(e):  # relative: 1.0 stopped every step at 1e-20
@@ -107,5 +134,29 @@ def newton_refine(
             break
         x, e, tg, radial = y, e_y, tg_y, radial_y
         steps += 1
+        shifted += tau > 0.0
         history.append((e, norm(tg) / n))
-    return NewtonOutcome(x, e, norm(tg) / n, steps, passes, status, history)
+    return NewtonOutcome(
+        x, e, norm(tg) / n, steps, passes, status, shifted, factorizations, history
+    )
+
+
+def _shifted_cholesky(m: np.ndarray, beta: float):
+    """(factor of m + tau I, tau, factorizations tried) for the first tau of the module doc's
+    sequence at which the Cholesky factorization succeeds; (None, tau, tried) when none does
+    (a matrix with NaN, or ``_MAX_FACTORIZATIONS`` shifts). ``m`` is overwritten."""
+    low = float(np.diag(m).min())
+    if not np.isfinite(low):
+        return None, 0.0, 0
+    beta = beta if beta > 0.0 else 1.0  # H = 0: any positive shift
+    tau = 0.0 if low > 0.0 else beta - low
+    diag = np.diag_indices(m.shape[0])
+    added = 0.0  # the shift m holds now
+    for tried in range(1, _MAX_FACTORIZATIONS + 1):
+        m[diag] += tau - added
+        added = tau
+        try:  # a failed attempt leaves m untouched (overwrite_a=False)
+            return scipy.linalg.cho_factor(m, check_finite=False), tau, tried
+        except np.linalg.LinAlgError:
+            tau = max(2.0 * tau, beta)
+    return None, tau, _MAX_FACTORIZATIONS

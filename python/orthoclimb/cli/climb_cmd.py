@@ -407,6 +407,8 @@ def run(args: argparse.Namespace) -> int:
     def progress(row: dict[str, Any]) -> None:
         bar.update(1)
         bar.set_postfix(step=row["step"], q=f"{row['q']:.3f}", energy=f"{row['energy']:.4f}")
+        if polish and args.method != "gradient" and bar.n >= total:  # the polish starts now
+            bar.set_description_str("polishing", refresh=True)
 
     try:
         if args.method == "hessian":

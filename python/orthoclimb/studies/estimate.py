@@ -14,8 +14,7 @@ as a + b ln n, since a study adds its tasks up:
   ``hessian_moves``; one more for a start along the top eigenvector of Hess H(0)), each a
   Hessian pass plus Lanczos, about 6e-4 + 1.1e-8 n^2 s
   (medians per step on one thread 0.7, 1.4 and 1.8 ms at n = 100, 220 and 320 for the pure
-  3-spin model, 3.9 and 10.4 ms at n = 600 and 1000 for the pure 2-spin one); with its
-  polish, 22 ln n - 61 energy-and-gradient passes (at least 20; 25 at n = 50, 86 at 800).
+  3-spin model, 3.9 and 10.4 ms at n = 600 and 1000 for the pure 2-spin one), and its polish.
   With a field, its first stage (an ascent to radius sqrt(q_hat)) adds 36 ln n - 74
   energy-and-gradient passes (at least 30): 60-113 at n = 50-400 for 1:0.5,3:1 and 78-177
   for 1:0.3,2:1,4:0.25 (one seed each; a user trial found it missing, 0.46 s of a 1.26 s
@@ -25,17 +24,25 @@ as a + b ln n, since a study adds its tasks up:
   lie within 32 % of it at n = 100-800 (2:1,4:0.25 lowest, 3:1 highest). It was 150
   iterations x 1.5 passes = 225 before, 1.3-3.3 times too many at n <= 200 and 0.66-0.92
   times the measured mean at 400-800.
-* Langevin annealing: one pass per step; with its polish, 56 ln n - 179 more (at least 20).
-* A polish adds 3 Hessian passes (two Newton steps and the check) and two Cholesky
-  factorizations (about 1.7e-11 n^3 s each) and ends with the local-maximum check: all
-  n - 1 tangent eigenvalues by scipy.linalg.eigvalsh, about 1e-3 + 7e-11 n^3 s on one thread
-  (5.5, 37 and 122 ms at n = 400, 800 and 1200 against 7.7, 36 and 101 ms measured).
+* Langevin annealing: one pass per step, and its polish.
+* A polish (:func:`~orthoclimb.polish`: gradient steps, then Newton steps) takes, after
+  Hessian ascent, 15 + 1.7 ln n energy-and-gradient passes (at least 20; 22 at n = 50, 26 at
+  800), 0.86 ln n - 0.6 Newton steps, each a Hessian pass (at least 2; 2.8 at n = 50, 5.2 at
+  800), and 1.04 ln n - 1.0 Cholesky factorizations (at least 2; about 1.7e-11 n^3 s each);
+  after Langevin annealing 25 ln n - 78 passes (at least 20; 72 at n = 400), 2.1 ln n - 5.7
+  Newton steps and 2.6 ln n - 7.4 factorizations. These means were measured on 2026-12-05
+  (the polish of that day, which hands over to Newton at |P grad H|/n <= 0.01) over 6-8 seeds
+  of the four mixtures at n = 50-800 (degree 4 to 240) after Hessian ascent, and of 3:1 (to
+  n = 400) and 2:1,4:0.25 (to 200) after annealing; the polish before it took 22 ln n - 61
+  and 56 ln n - 179 passes. It ends with the local-maximum check: one more Hessian pass and
+  all n - 1 tangent eigenvalues by scipy.linalg.eigvalsh, about 1e-3 + 7e-11 n^3 s on one
+  thread (5.5, 37 and 122 ms at n = 400, 800 and 1200 against 7.7, 36 and 101 ms measured).
   Gradient ascent ends with the same check, with one Hessian and one energy-and-gradient
   pass of its own.
 
-Single runs spread widely around these means: a polish whose Newton step meets a non-maximum
-falls back to gradient steps (3 of 123 after Hessian ascent, 9 of 123 after annealing, up to
-432 and 695 passes), and one gradient run may take 2-3 times the mean. Each task also costs
+Single runs spread widely around these means: a polish took up to 91 passes and 19 Newton
+steps after Hessian ascent (pure 4-spin, n = 160; twice the mean there) and up to 135 passes
+after annealing, and one gradient run may take 2-3 times the mean. Each task also costs
 about 0.02 s of Dask round trip and row writing, and an embedded cluster about 2 s to start
 (its worker processes start and import the package before their first task). Measured for
 ``demo --quick`` (72 small tasks, 2 workers): the sweep took 4.1 s, of which its tasks' own
@@ -85,13 +92,15 @@ _CAL_BYTES = 64 * 2**20
 LANCZOS_SECONDS = (6e-4, 1.1e-8)
 # seconds of the local-maximum check's dense eigenvalues: a + b n^3 (module doc)
 CHECK_SECONDS = (1e-3, 7e-11)
-CHOLESKY_SECONDS = 1.7e-11  # x n^3: one Newton step's factorization (module doc)
+CHOLESKY_SECONDS = 1.7e-11  # x n^3: one Cholesky factorization of a Newton step (module doc)
 # energy-and-gradient passes, a + b ln n, and the floor at small n (module doc)
 GRADIENT_PASSES = (-234.0, 80.0, 40.0)
-POLISH_PASSES = {"hessian": (-61.0, 22.0, 20.0), "anneal": (-179.0, 56.0, 20.0)}
+POLISH_PASSES = {"hessian": (15.0, 1.7, 20.0), "anneal": (-78.0, 25.0, 20.0)}
+# the polish's Newton steps (one Hessian pass each) and Cholesky factorizations (module doc)
+NEWTON_STEPS = {"hessian": (-0.6, 0.86, 2.0), "anneal": (-5.7, 2.1, 2.0)}
+FACTORIZATIONS = {"hessian": (-1.0, 1.04, 2.0), "anneal": (-7.4, 2.6, 2.0)}
 FIRST_STAGE_PASSES = (-74.0, 36.0, 30.0)  # Hessian ascent with a field (module doc)
 PASSES_PER_ITERATION = 1.1  # gradient ascent, backtracking included: at most this per iteration
-POLISH_HESSIANS = 3  # Hessian passes of a polish: two Newton steps and the check
 _TASK_OVERHEAD = 0.02  # seconds per task: Dask round trip and the row's atomic write
 _CLUSTER_START = 2.0  # seconds: an embedded cluster's processes start and import the package
 
@@ -124,11 +133,14 @@ def check_seconds(n: int) -> float:
     return CHECK_SECONDS[0] + CHECK_SECONDS[1] * n**3
 
 
-def polish_extra(n: int, hessian_pass: float) -> float:
-    """Seconds a polish adds besides its energy-and-gradient passes: its Hessian passes
-    (``hessian_pass`` seconds each at n), Newton's two factorizations and the dense
-    local-maximum check that ends it."""
-    return POLISH_HESSIANS * hessian_pass + 2 * CHOLESKY_SECONDS * n**3 + check_seconds(n)
+def polish_extra(n: int, hessian_pass: float, after: str = "hessian") -> float:
+    """Seconds the polish that ends ``after`` ('hessian' or 'anneal') adds at n besides its
+    energy-and-gradient passes: its Newton steps' Hessian passes and the check's one
+    (``hessian_pass`` seconds each), its Cholesky factorizations and the dense local-maximum
+    check's eigenvalues (module doc)."""
+    hessians = _log_fit(n, NEWTON_STEPS[after]) + 1.0
+    factorizations = _log_fit(n, FACTORIZATIONS[after])
+    return hessians * hessian_pass + factorizations * CHOLESKY_SECONDS * n**3 + check_seconds(n)
 
 
 @dataclass(frozen=True)
@@ -223,7 +235,7 @@ def run_seconds(
     eg, hess = passes
     if method == "gradient":  # and its local-maximum check: a Hessian, a pass, the eigenvalues
         return (gradient_passes(n, steps) + 1) * eg + hess + check_seconds(n)
-    finish = polish_passes(n, method) * eg + polish_extra(n, hess) if polish else 0.0
+    finish = polish_passes(n, method) * eg + polish_extra(n, hess, method) if polish else 0.0
     if method == "hessian":  # each step a Hessian pass and Lanczos
         first = first_stage_passes(n) * eg if field else 0.0
         return first + moves * (hess + LANCZOS_SECONDS[0] + LANCZOS_SECONDS[1] * n**2) + finish
