@@ -42,6 +42,7 @@ from ..studies.estimate import (
     PASSES_PER_ITERATION,
     gradient_passes,
     largest_size_within,
+    matvec_seconds,
     run_seconds,
 )
 from ..studies.grid import start_used
@@ -190,7 +191,8 @@ def _run_estimate(
     needs_hessian = moves > 0 or polish or method == "gradient"
     hess = scale * _time_pass(ham, "hessian") if needs_hessian else 0.0
     field = ham.mixture is not None and ham.mixture.has_field
-    run = run_seconds(method, n, steps, polish, (grad, hess), moves, field)
+    matvec = matvec_seconds(n) if moves > 0 else None
+    run = run_seconds(method, n, steps, polish, (grad, hess), moves, field, matvec)
     if method == "hessian":
         steps_taken = hessian_moves(ham.mixture, steps)
         what = ("the field stage, " if field else "") + f"{steps_taken} Hessian steps"

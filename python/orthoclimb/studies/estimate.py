@@ -12,9 +12,18 @@ as a + b ln n, since a study adds its tasks up:
 
 * Hessian ascent: K - 1 Hessian steps (none when the first stage ends on the sphere,
   ``hessian_moves``; one more for a start along the top eigenvector of Hess H(0)), each a
-  Hessian pass plus Lanczos, about 6e-4 + 1.1e-8 n^2 s
-  (medians per step on one thread 0.7, 1.4 and 1.8 ms at n = 100, 220 and 320 for the pure
-  3-spin model, 3.9 and 10.4 ms at n = 600 and 1000 for the pure 2-spin one), and its polish.
+  Hessian pass plus Lanczos, and its polish. Lanczos costs 6e-4 s + m (t_mv + 1.2e-5 s) +
+  3 t_mv per step: m = 44 ln n - 171 products with the dense tangent matrix (at least 40; the
+  means per step of default runs, pure 3-spin, were 62, 84, 111, 133 and 141 at n = 200, 400,
+  800, 1000 and 1200), 1.2e-5 s of ARPACK and Python per product, and three products' worth
+  for restricting the Hessian to the tangent space. t_mv, one product of an n x n matrix with
+  a vector on one BLAS thread, is timed on the driver at each size (:func:`matvec_seconds`),
+  since it grows faster than n^2 once the matrix leaves the caches: 0.23, 0.71, 1.47 and 3.3
+  ms at n = 1200, 1600, 2000 and 2800 here (2026-12-05), where a fixed a + b n^2 per step
+  (6e-4 + 1.1e-8 n^2 s, fitted to n <= 1000) had put a step at 44 ms against 255 ms measured
+  at n = 2000 (pure 2-spin) and 16 against 31 ms at n = 1200 (pure 3-spin). Runs too large
+  for the dense Hessian (Lanczos on Hessian-vector products, n of order 10^4 and more) are
+  not modelled apart.
   With a field, its first stage (an ascent to radius sqrt(q_hat)) adds 36 ln n - 74
   energy-and-gradient passes (at least 30): 60-113 at n = 50-400 for 1:0.5,3:1 and 78-177
   for 1:0.3,2:1,4:0.25 (one seed each; a user trial found it missing, 0.46 s of a 1.26 s
@@ -56,7 +65,7 @@ from __future__ import annotations
 
 import math
 import time
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 
 import numpy as np
 
@@ -68,7 +77,7 @@ from .tasks import instance_groups, instance_key
 __all__ = [
     "CHECK_SECONDS",
     "GRADIENT_PASSES",
-    "LANCZOS_SECONDS",
+    "LANCZOS_MATVECS",
     "POLISH_PASSES",
     "Calibration",
     "calibrate",
@@ -79,7 +88,9 @@ __all__ = [
     "estimate_seconds",
     "gradient_passes",
     "largest_instance",
+    "lanczos_seconds",
     "largest_size_within",
+    "matvec_seconds",
     "methods_line",
     "plan_lines",
     "polish_extra",
@@ -88,8 +99,17 @@ __all__ = [
 ]
 
 _CAL_BYTES = 64 * 2**20
-# seconds of Lanczos per Hessian-ascent step: a + b n^2 (module doc)
-LANCZOS_SECONDS = (6e-4, 1.1e-8)
+# Lanczos per Hessian-ascent step (module doc): products with the tangent matrix, a + b ln n
+# with a floor; seconds per solve and per product besides the product itself; the products'
+# worth of restricting the Hessian to the tangent space
+LANCZOS_MATVECS = (-171.0, 44.0, 40.0)
+LANCZOS_SOLVE = 6e-4
+LANCZOS_ITERATION = 1.2e-5
+RESTRICT_MATVECS = 3
+# one product of a cached n x n matrix with a vector, per entry: the model's t_mv where no
+# timing is given (0.16 ns: measured at n = 1200, 2026-12-05)
+MATVEC_PER_ENTRY = 1.6e-10
+_MATVEC_TIMED_BYTES = 256 * 2**20  # larger matrices: timed at this size, scaled by n^2
 # seconds of the local-maximum check's dense eigenvalues: a + b n^3 (module doc)
 CHECK_SECONDS = (1e-3, 7e-11)
 CHOLESKY_SECONDS = 1.7e-11  # x n^3: one Cholesky factorization of a Newton step (module doc)
@@ -133,6 +153,34 @@ def check_seconds(n: int) -> float:
     return CHECK_SECONDS[0] + CHECK_SECONDS[1] * n**3
 
 
+def lanczos_seconds(n: int, matvec: float | None = None) -> float:
+    """Seconds of one Hessian-ascent step's Lanczos at n (module doc), with ``matvec`` seconds
+    per product of the n x n tangent matrix with a vector (None: MATVEC_PER_ENTRY n^2)."""
+    t_mv = MATVEC_PER_ENTRY * n * n if matvec is None else matvec
+    products = _log_fit(n, LANCZOS_MATVECS)
+    return LANCZOS_SOLVE + products * (t_mv + LANCZOS_ITERATION) + RESTRICT_MATVECS * t_mv
+
+
+_MATVEC_CACHE: dict[int, float] = {}
+
+
+def matvec_seconds(n: int) -> float:
+    """Seconds of one product of a dense n x n float64 matrix with a vector on one BLAS thread,
+    as Lanczos makes them (best of 3 after one untimed product; cached per n for the
+    process). A matrix above 256 MiB is timed at 256 MiB and the time scaled by n^2: that
+    large, the product streams it from memory."""
+    if n not in _MATVEC_CACHE:
+        from ..runtime import one_blas_thread
+
+        side = min(n, math.isqrt(_MATVEC_TIMED_BYTES // 8))
+        a = np.full((side, side), 0.5)
+        v = np.full(side, 0.25)
+        with one_blas_thread():
+            t = best_time(lambda: a @ v, repeats=3)
+        _MATVEC_CACHE[n] = t * (n / side) ** 2
+    return _MATVEC_CACHE[n]
+
+
 def polish_extra(n: int, hessian_pass: float, after: str = "hessian") -> float:
     """Seconds the polish that ends ``after`` ('hessian' or 'anneal') adds at n besides its
     energy-and-gradient passes: its Newton steps' Hessian passes and the check's one
@@ -152,6 +200,9 @@ class Calibration:
     hessian: float
     energy_and_gradient: float
     degree: int
+    # seconds of one dense tangent product at each size of the mixture (:func:`matvec_seconds`;
+    # empty: the model's MATVEC_PER_ENTRY n^2)
+    matvec: dict[int, float] = field(default_factory=dict)
 
 
 def largest_instance(spec: StudySpec, tasks=None) -> tuple[int, str, int]:
@@ -192,6 +243,7 @@ def calibrate(spec: StudySpec, threads: int = 1) -> dict[str, Calibration]:
     from ..model import Hamiltonian, estimate_memory
     from ..runtime import get_num_threads, set_num_threads
 
+    hessian_methods = any(meth.name == "hessian" for meth in spec.methods)
     old = get_num_threads()
     set_num_threads(max(1, threads))
     try:
@@ -212,6 +264,7 @@ def calibrate(spec: StudySpec, threads: int = 1) -> dict[str, Calibration]:
                 best_time(lambda h=ham, v=x: h.hessian(v), warm_up=False),
                 best_time(lambda h=ham, v=x: h.energy_and_gradient(v), warm_up=False),
                 mix.max_degree,
+                {n: matvec_seconds(n) for n in sizes} if hessian_methods else {},
             )
     finally:
         set_num_threads(old)
@@ -226,19 +279,21 @@ def run_seconds(
     passes: tuple[float, float],
     moves: int = 0,
     field: bool = False,
+    matvec: float | None = None,
 ) -> float:
     """Seconds of one run of ``method`` at n (module doc) from ``passes`` = (one energy-and-
     gradient pass, one Hessian pass) in seconds at n: ``moves`` Hessian steps (hessian, after
     its first stage when the mixture has a ``field``), ``steps`` Langevin steps (anneal) or at
     most ``steps`` = max_iter iterations (gradient), plus the polish when ``polish`` (hessian,
-    anneal). Used by the sweep and by climb."""
+    anneal); ``matvec``: seconds of one dense tangent product at n for Lanczos
+    (:func:`lanczos_seconds`). Used by the sweep and by climb."""
     eg, hess = passes
     if method == "gradient":  # and its local-maximum check: a Hessian, a pass, the eigenvalues
         return (gradient_passes(n, steps) + 1) * eg + hess + check_seconds(n)
     finish = polish_passes(n, method) * eg + polish_extra(n, hess, method) if polish else 0.0
     if method == "hessian":  # each step a Hessian pass and Lanczos
         first = first_stage_passes(n) * eg if field else 0.0
-        return first + moves * (hess + LANCZOS_SECONDS[0] + LANCZOS_SECONDS[1] * n**2) + finish
+        return first + moves * (hess + lanczos_seconds(n, matvec)) + finish
     return steps * eg + finish  # anneal: one pass per step
 
 
@@ -263,7 +318,8 @@ def estimate_from(cal: dict[str, Calibration], tasks, workers: int, embedded: bo
         steps = opts["max_iter"] if t.method.name == "gradient" else opts["steps"]
         polish = bool(opts.get("polish"))
         field = t.mixture.mixture.has_field
-        total += run_seconds(t.method.name, t.n, steps, polish, (eg, hess), moves, field)
+        matvec = c.matvec.get(t.n)
+        total += run_seconds(t.method.name, t.n, steps, polish, (eg, hess), moves, field, matvec)
     return total / max(1, workers) + (_CLUSTER_START if embedded else 0.0)
 
 
