@@ -293,6 +293,37 @@ def test_far_scales_warn_that_the_tolerances_are_absolute(recwarn):
     assert not [w for w in recwarn if "far from 1" in str(w.message)]
 
 
+def test_polish_warns_at_a_far_scale_once_per_call_and_methods_warn_only_their_own(recwarn):
+    # the polish's tolerances are absolute like the other optimizers': at 1e-12 a point that is
+    # not critical passes gtol at once, and polish said nothing (a user trial)
+    import warnings
+
+    base = oc.Hamiltonian.sample(oc.Mixture({3: 1.0}), 40, seed=2)
+    tiny = oc.Hamiltonian.from_coefficients(40, {3: 1e-12 * base.coefficients(3)})
+    with pytest.warns(RuntimeWarning, match=r"^polish: the energy scale .* is far from 1"):
+        oc.polish(tiny, np.ones(40), max_iter=5)
+    with warnings.catch_warnings(record=True) as caught:
+        warnings.simplefilter("always")
+        oc.hessian_ascent(tiny, steps=5, seed=0)  # its own warning, not its polish's too
+    far = [str(w.message) for w in caught if "far from 1" in str(w.message)]
+    assert len(far) == 1 and far[0].startswith("hessian_ascent:")
+    recwarn.clear()
+    oc.polish(base, np.ones(40), max_iter=5)
+    assert not [w for w in recwarn if "far from 1" in str(w.message)]
+
+
+def test_the_zero_polynomial_is_a_local_maximum_everywhere():
+    # exact: H = 0 makes every point critical with every tangent eigenvalue 0, so no
+    # eigenvalue is positive (the check's scale is 0 there; rounding noise of 1e-18 counted
+    # as positive against a threshold of 0 before: a user trial)
+    n = 30
+    count = len(oc.Hamiltonian.sample(oc.Mixture({3: 1.0}), n, seed=0).coefficients(3))
+    zero = oc.Hamiltonian.from_coefficients(n, {3: np.zeros(count)})
+    res = oc.polish(zero, np.random.default_rng(1).standard_normal(n))
+    assert res.info["n_positive"] == 0 and res.info["local_max"]
+    assert tangent_spectrum(zero, np.ones(n))["n_positive"] == 0
+
+
 def test_langevin_noise_diffuses_at_the_stated_temperature():
     # exact identity for the scheme of the module doc with H = 0 (pure diffusion): a step is
     # x' = (x + s P xi)/sqrt(1 + s^2 |P xi|^2), s^2 = 2 eta T / n, with |P xi|^2 ~ chi^2_(n-1)

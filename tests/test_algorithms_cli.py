@@ -370,7 +370,7 @@ def test_a_plan_timed_on_a_busy_machine_says_so(tmp_path, capsys, monkeypatch):
     assert main([*args, "--out", str(tmp_path / "a")]) == 0
     out = capsys.readouterr().out
     assert "note: other processes kept 1.6 of this machine's" in out
-    assert "the plan includes their load" in out
+    assert "the plan is for free cores, and the run takes longer" in out
     monkeypatch.setattr(_load.OtherLoad, "stop", lambda self, settle=0.0: 0.1)
     assert main([*args, "--out", str(tmp_path / "a")]) == 0
     assert "other processes" not in capsys.readouterr().out
@@ -378,7 +378,7 @@ def test_a_plan_timed_on_a_busy_machine_says_so(tmp_path, capsys, monkeypatch):
     monkeypatch.setattr(_load.OtherLoad, "stop", lambda self, settle=0.0: 1.2)
     run = ["climb", "--gammas", "3:1", "--n", "12", "--steps", "3", "--out", str(tmp_path / "r")]
     assert main(run) == 0
-    assert "the estimate includes their load" in capsys.readouterr().out
+    assert "the estimate is for free cores" in capsys.readouterr().out
 
 
 def test_climb_names_a_point_that_is_not_critical_and_refuses_a_json_plan(tmp_path, capsys):

@@ -89,6 +89,9 @@ def test_busy_note_only_from_half_a_core(monkeypatch):
     monkeypatch.setattr(_load.os, "cpu_count", lambda: 2)
     note = busy_note(1.6, "the plan")
     assert note is not None and note.startswith("other processes kept 1.6 of this machine's 2")
-    assert "the plan includes their load, and holds only while it lasts" in note
+    # sharing 2 cores with 1.6 cores of other work: (2 + 1.6)/2 = 1.8 times as long
+    assert "the plan is for free cores, and the run takes longer (about 1.8 times as" in note
     monkeypatch.setattr(_load.os, "cpu_count", lambda: None)  # unknown: no total named
-    assert busy_note(1.6).startswith("other processes kept 1.6 cores busy")
+    unknown = busy_note(1.6)
+    assert unknown.startswith("other processes kept 1.6 cores busy")
+    assert "takes longer while that work goes on" in unknown

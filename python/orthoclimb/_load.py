@@ -1,7 +1,8 @@
 """How busy the machine is with other processes' work, for time estimates made on it.
 
 A time estimate times kernels on this machine; while other processes keep its cores busy, the
-timings (and so the estimate) carry their load. :class:`OtherLoad` measures that load, in
+run shares the cores with them (and the timings, best of a few calls, carry little of their
+load: see :func:`busy_note`). :class:`OtherLoad` measures that load, in
 cores, over a stretch of this process's own work: the machine's busy CPU time (``/proc/stat``,
 Linux) less this process's own, over the wall time. Both clocks count in ticks of about 10
 ms, so a stretch shorter than :data:`MIN_WINDOW` measures nothing (None), and a caller may wait
@@ -72,13 +73,17 @@ class OtherLoad:
 
 def busy_note(cores: float | None, what: str = "the estimate") -> str | None:
     """A sentence for an estimate timed while other processes kept ``cores`` cores busy (None
-    below :data:`BUSY_CORES` or when unmeasured): their load is in the timings, so the run
-    takes about that long only while it lasts."""
+    below :data:`BUSY_CORES` or when unmeasured). The timings keep the best of a few calls,
+    which dodge the load, so the estimate is one for free cores: a user trial's sweep under
+    one core of other load took 41 s against 24 s estimated. Sharing N cores fairly with
+    that work, a run using all of them takes (N + cores)/N times as long while it lasts,
+    which the sentence names (1.5 there)."""
     if cores is None or cores < BUSY_CORES:
         return None
     total = os.cpu_count()
     of = f" of this machine's {total} cores" if total else " cores"
+    longer = f" (about {(total + cores) / total:.1f} times as long)" if total else ""
     return (
         f"other processes kept {cores:.1f}{of} busy while the kernels were timed: {what}"
-        " includes their load, and holds only while it lasts"
+        f" is for free cores, and the run takes longer{longer} while that work goes on"
     )

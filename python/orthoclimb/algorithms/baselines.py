@@ -58,7 +58,7 @@ from ._config import base_config
 from ._riemannian import sphere_ascent
 from ._sphere import norm, project_tangent, random_unit, retract
 from .polish import is_critical, local_max_info
-from .polish import polish as polish_point
+from .polish import run_polish as polish_point
 from .result import Result, vector_digest
 
 __all__ = ["geometric_schedule", "gradient_ascent", "langevin_anneal"]

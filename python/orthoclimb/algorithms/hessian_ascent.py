@@ -112,7 +112,7 @@ from ._config import base_config
 from ._eigen import TangentBasis, top_tangent_eigenpair
 from ._riemannian import sphere_ascent
 from ._sphere import HessianReader, field_direction, norm, random_unit
-from .polish import polish as polish_point
+from .polish import run_polish as polish_point
 from .result import Result
 
 __all__ = [
