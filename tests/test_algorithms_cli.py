@@ -464,6 +464,8 @@ def test_climb_reports_its_sampling_time_and_the_top_riemannian_eigenvalue(tmp_p
     saved = oc.load_result(tmp_path / "a" / "result")
     assert summary["top_eigenvalue"] == saved.info["top_eigenvalue"] < 0
     assert 0 < summary["seconds_sampling"] < 60
+    # and the estimate printed before the run, to set beside its time (a user trial's wish)
+    assert summary["seconds_estimated"] > 0
     # the Riemannian Hessian on the unit sphere, B^T (Hess H - (x . grad H) I) B for an
     # orthonormal basis B of the tangent space (Absil, Mahony and Sepulchre 2008, ch. 5),
     # with scipy.linalg.null_space and eigvalsh
@@ -475,7 +477,7 @@ def test_climb_reports_its_sampling_time_and_the_top_riemannian_eigenvalue(tmp_p
     assert summary["top_eigenvalue"] == pytest.approx(top, rel=1e-9, abs=1e-12)
     assert main([*args, "--out", str(tmp_path / "b")]) == 0
     out = capsys.readouterr().out
-    assert "top Riemannian eigenvalue" in out and "(sampling " in out
+    assert "top Riemannian eigenvalue" in out and "; sampling " in out and "(estimated " in out
 
 
 @pytest.mark.parametrize(

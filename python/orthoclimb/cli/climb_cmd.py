@@ -176,8 +176,9 @@ def _run_estimate(
     n: int | None = None,
     scale=1.0,
     start: str = "auto",
-) -> str:
-    """The run's time from timed passes, by the sweep's model (orthoclimb.studies.estimate):
+) -> tuple[str, float]:
+    """(the line to print, the seconds) of the run's time from timed passes, by the sweep's
+    model (orthoclimb.studies.estimate):
     K - 1 Hessian passes plus Lanczos for hessian (none when the first stage ends on the
     sphere), ``steps`` passes for anneal, the mean pass count of gradient ascent at n (with its
     time at the cap), and a polish's passes, Newton steps and local-maximum check. For a run at
@@ -203,26 +204,27 @@ def _run_estimate(
             why = "--steps 1 has none" if steps == 1 else "the field stage ends on the sphere"
             parts = [p for p, on in (("the field stage", field), ("the polish", polish)) if on]
             if not parts:
-                return f"no Hessian step: {why}"
+                return f"no Hessian step: {why}", run
             verb = "takes" if len(parts) == 1 else "take"
-            return f"no Hessian step: {why}; {' and '.join(parts)} {verb} about {seconds_text(run)}"
+            text = f"no Hessian step: {why}; {' and '.join(parts)} {verb} about"
+            return f"{text} {seconds_text(run)}", run
         return (
             f"one Hessian pass: {seconds_text(hess)}; estimated run time about"
             f" {seconds_text(run)} ({what})"
-        )
+        ), run
     if method == "anneal":
         what = f"{steps} Langevin steps" + (" and the polish" if polish else "")
         return (
             f"one gradient pass: {seconds_text(grad)}; estimated run time about"
             f" {seconds_text(run)} ({what})"
-        )
+        ), run
     passes = gradient_passes(n, steps)
     cap = run + (PASSES_PER_ITERATION * steps - passes) * grad  # every iteration to max_iter
     return (
         f"one gradient pass: {seconds_text(grad)}; estimated run time about"
         f" {seconds_text(run)} (typically {passes:.0f} passes at this n; at most"
         f" {seconds_text(cap)} if it runs to --max-iter {steps})"
-    )
+    ), run
 
 
 def _ground_state(mixture: Mixture) -> float | None:
@@ -291,8 +293,10 @@ def _table(s: dict[str, Any]) -> str:
         # projected Hessian's of the path's eigenvalue column (a user trial read one for the
         # other: -0.059 here, 4.70 there, at the same point)
         rows.append(("top Riemannian eigenvalue", f"{s['top_eigenvalue']:.6f} per spin"))
-    sampling = s.get("seconds_sampling")
-    took = f" (sampling {sampling:.2f} s before it)" if sampling is not None else ""
+    sampling, estimated = s.get("seconds_sampling"), s.get("seconds_estimated")
+    notes = [f"estimated {seconds_text(estimated)}"] if estimated is not None else []
+    notes += [f"sampling {sampling:.2f} s before it"] if sampling is not None else []
+    took = f" ({'; '.join(notes)})" if notes else ""
     rows.append(("time", f"{s['seconds']:.2f} s{took}"))
     for k, v in s["files"].items():
         rows.append((k, v))
@@ -370,7 +374,7 @@ def run(args: argparse.Namespace) -> int:
         probe, seconds = _probe(mixture, args.n, args.dtype)
         say(_sampling_text(probe, seconds, need))
         scale = need / probe.nbytes
-        say(_run_estimate(probe, args.method, steps, polish, args.n, scale, start))
+        say(_run_estimate(probe, args.method, steps, polish, args.n, scale, start)[0])
         # a trial's plans varied 3-5x under load; a plan's timing takes milliseconds, so the
         # load is read over half a second (the plan waits out the rest)
         busy = busy_note(load.stop(settle=0.5), "the plan")
@@ -392,7 +396,8 @@ def run(args: argparse.Namespace) -> int:
     load = OtherLoad().start()  # over sampling and timing: long enough only for big instances
     ham = Hamiltonian.sample(mixture, args.n, args.seed, dtype=args.dtype, progress=bars)
     sampling_seconds = time.perf_counter() - started
-    say(_run_estimate(ham, args.method, steps, polish, start=start))
+    estimate_text, estimated = _run_estimate(ham, args.method, steps, polish, start=start)
+    say(estimate_text)
     busy = busy_note(load.stop())
     if busy is not None:
         say(f"note: {busy}")
@@ -448,6 +453,7 @@ def run(args: argparse.Namespace) -> int:
     }
     summary = _summary(result, problem, _ground_state(mixture), files)
     summary["seconds_sampling"] = sampling_seconds  # to set beside the estimate printed first
+    summary["seconds_estimated"] = estimated  # the run's time printed before it (a trial's wish)
     if args.json:
         print(json_text(summary))
     else:
