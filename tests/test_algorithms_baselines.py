@@ -312,6 +312,32 @@ def test_polish_warns_at_a_far_scale_once_per_call_and_methods_warn_only_their_o
     assert not [w for w in recwarn if "far from 1" in str(w.message)]
 
 
+@pytest.mark.parametrize("scale", [1e-20, 1e20])
+def test_polish_from_a_random_start_does_not_depend_on_the_scale_of_h(scale):
+    # exact identity: c H has the critical points of H, with energies and gradients times c.
+    # With gtol times c the polish makes the same steps: its hand-over to Newton and its
+    # step-size bounds are in the instance's units. An absolute hand-over sent a random start
+    # at c = 1e-20 straight to Newton, which climbed to another maximum; absolute step bounds
+    # made c = 1e20 backtrack some 30 halvings a step, to a third one (a review)
+    import warnings
+
+    n = 60
+    base = oc.Hamiltonian.sample(oc.Mixture({3: 1.0}), n, seed=1)
+    x0 = np.random.default_rng(1).standard_normal(n)
+    one = oc.polish(base, x0)
+    scaled = oc.Hamiltonian.from_coefficients(n, {3: scale * base.coefficients(3)})
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore", RuntimeWarning)  # the far-scale warning
+        out = oc.polish(scaled, x0, gtol=1e-7 * scale)
+        grad = oc.gradient_ascent(scaled, x0=x0, gtol=1e-7 * scale)
+    assert out.info["status"] == one.info["status"] == "converged"
+    assert out.info["passes"] == one.info["passes"]
+    assert abs(float(out.x @ one.x)) == pytest.approx(1.0, abs=1e-9)
+    assert out.energy / scale == pytest.approx(one.energy, rel=1e-12)
+    ref = oc.gradient_ascent(base, x0=x0)
+    assert grad.energy / scale == pytest.approx(ref.energy, rel=1e-12)
+
+
 def test_the_zero_polynomial_is_a_local_maximum_everywhere():
     # exact: H = 0 makes every point critical with every tangent eigenvalue 0, so no
     # eigenvalue is positive (the check's scale is 0 there; rounding noise of 1e-18 counted
@@ -541,7 +567,7 @@ def test_a_stalled_run_at_a_large_scale_is_still_a_local_maximum():
 def test_a_stall_far_from_a_critical_point_is_no_local_maximum():
     # a review's quadratic: A/n with eigenvalues 1, 0.99, -1e6 and the rest in (-1, 0.99), a
     # random rotation (generator 2, the sixth draw of 36); the nonmonotone line search's dips
-    # stall gradient ascent at |P grad H|/n = 8.6e-4, 1.85e-5 below the maximum (the top
+    # stalled gradient ascent at |P grad H|/n = 8.6e-4, 1.85e-5 below the maximum (the top
     # eigenvalue, scipy.linalg.eigh). A stall is critical only with a gradient near rounding
     rng = np.random.default_rng(2)
     n = 60
@@ -558,8 +584,12 @@ def test_a_stall_far_from_a_critical_point_is_no_local_maximum():
     with pytest.warns(RuntimeWarning, match="far from 1"):
         res = oc.gradient_ascent(ham, seed=1, max_iter=5000)
     top = scipy.linalg.eigh(0.5 * (a + a.T) / n, eigvals_only=True)[-1]
-    assert res.info["status"] == "stalled" and res.info["grad_norm"] > 1e-4
-    assert top - res.energy > 1e-5 and res.info["n_positive"] == 0
+    # since the step-size bounds follow the energy scale it stalls closer (2.7e-11 below the
+    # top, |P grad H|/n = 2.1e-5), still with a gradient far above rounding: not critical
+    from orthoclimb.algorithms.polish import STALL_GRADIENT
+
+    assert res.info["status"] == "stalled" and res.info["grad_norm"] > 1e3 * STALL_GRADIENT
+    assert 0 < top - res.energy and res.info["n_positive"] == 0
     assert res.info["local_max"] is False
 
 

@@ -122,9 +122,12 @@ def test_climb_refused_for_memory_says_what_the_command_can_do(tmp_path, capsys)
     assert "a smaller --n fits; --plan-only prints the plan without sampling" in err
 
 
-@pytest.mark.parametrize(("method", "extra"), [("hessian", []), ("anneal", ["--steps", "30"])])
+@pytest.mark.parametrize(
+    ("method", "extra", "done"),
+    [("hessian", [], 24), ("anneal", ["--steps", "30"], 30), ("hessian", ["--steps", "1"], 0)],
+)
 def test_climb_bar_says_polishing_once_the_steps_are_done(
-    tmp_path, capsys, monkeypatch, method, extra
+    tmp_path, capsys, monkeypatch, method, extra, done
 ):
     # the bar counted the steps and then stood still at its end through the polish, which
     # can take as long as the steps; its label now says what runs
@@ -152,7 +155,8 @@ def test_climb_bar_says_polishing_once_the_steps_are_done(
     args = ["climb", "--gammas", "3:1", "--n", "30", "--method", method, *extra]
     assert main([*args, "--out", str(tmp_path / "a")]) == 0
     assert len(labels) == 1 and labels[0][1] == "polishing"
-    assert labels[0][0] == (24 if method == "hessian" else 30)  # K - 1 steps (K = 25), or 30
+    # after K - 1 steps (K = 25), 30 Langevin steps, or at once when K = 1 makes no step
+    assert labels[0][0] == done
     labels.clear()
     assert main([*args, "--no-polish", "--out", str(tmp_path / "b")]) == 0
     assert labels == []

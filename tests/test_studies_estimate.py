@@ -158,14 +158,13 @@ def test_the_lanczos_model_is_within_its_factor_of_measured_steps():
     # the estimate promises a factor of 2 either way. Measured 2026-12-05 on one machine (no
     # clock here): Lanczos seconds per step of default runs of the pure 3-spin model
     # (cProfile) and, at the same sizes, one dense product timed as matvec_seconds does. The
-    # model holds within 1.5 of every step; the fixed 6e-4 + 1.1e-8 n^2 of before gave 0.52
-    # of the step at n = 1200 (and 0.17 of a pure 2-spin step at n = 2000)
+    # model holds within 1.5 of every step; the fixed 6e-4 + 1.1e-8 n^2 of before gave
+    # 0.52-0.71 of these steps (0.52 at n = 1200) and 0.17 of a pure 2-spin step at n = 2000
     steps = {200: 1.6e-3, 400: 3.9e-3, 800: 10.7e-3, 1000: 19.9e-3, 1200: 31.4e-3}
     products = {200: 4e-6, 400: 1.7e-5, 800: 6.7e-5, 1000: 1.09e-4, 1200: 1.89e-4}
     for n, seconds in steps.items():
         ratio = lanczos_seconds(n, products[n]) / seconds
         assert 2 / 3 < ratio < 1.5, (n, ratio)
-        assert (6e-4 + 1.1e-8 * n**2) / seconds < 0.75  # the old model, low everywhere
 
 
 def test_calibrate_times_the_dense_product_only_for_hessian_ascent():
@@ -173,9 +172,12 @@ def test_calibrate_times_the_dense_product_only_for_hessian_ascent():
     # (positive, and growing with n: a product reads n^2 entries), and not otherwise
     spec = _hessian_spec(10)
     cal = calibrate(spec)["cubic"]
-    assert sorted(cal.matvec) == [20, 40]
-    assert 0 < cal.matvec[20] <= cal.matvec[40] * 1.5  # timing noise aside
+    assert sorted(cal.matvec) == [20, 40] and min(cal.matvec.values()) > 0
     assert calibrate(_spec())["cubic"].matvec == {}
+    # a dict field, left out of hashing and comparison: the frozen record stays hashable
+    assert hash(cal) == hash(
+        Calibration(cal.n0, cal.sampling, cal.hessian, cal.energy_and_gradient, cal.degree)
+    )
 
 
 def _gradient_task(n: int, max_iter: int):
@@ -248,7 +250,7 @@ def test_the_polish_pass_model_is_within_its_factor_of_the_measured_means():
 
 def test_anneal_costs_a_pass_per_step_plus_the_polish():
     # exact arithmetic of the module doc's model: Langevin annealing makes one energy-and-
-    # gradient pass per temperature step, and its polish 56 ln n - 179 more, at least 20
+    # gradient pass per temperature step, and its polish 25 ln n - 78 more, at least 20
     # (n = 20: the floor); the polish's Hessians cost nothing here (t_hess = 0)
     cal = _cal(energy_and_gradient=0.01)
     for steps, polish, passes in ((400, True, 420), (50, False, 50)):

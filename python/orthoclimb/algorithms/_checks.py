@@ -78,13 +78,11 @@ def warn_if_far_scale(ham: Hamiltonian, where: str) -> None:
     for a sampled instance; for given coefficients, the estimate of it that
     :func:`coefficient_scale` reads off them. Energies scale with it: rescale instead."""
     mixture = ham.mixture
+    log_scale = log_energy_scale(ham)
     if mixture is not None:
-        xi1 = float(mixture.xi(1.0))
-        log_scale = 0.5 * math.log(xi1) if xi1 > 0 else -math.inf
         what = f"sqrt(xi(1)) = {_scale_text(log_scale)}"
         fix = "rescale the mixture so that xi(1) is of order one"
     else:
-        log_scale = coefficient_scale(ham)
         what = (
             f"{_scale_text(log_scale)} (sqrt(sum_p sum_m a_m^2 / n^(p+1)) of the given"
             " coefficients, an estimate of sqrt(xi(1)))"
@@ -98,6 +96,26 @@ def warn_if_far_scale(ham: Hamiltonian, where: str) -> None:
             RuntimeWarning,
             stacklevel=3,
         )
+
+
+def log_energy_scale(ham: Hamiltonian) -> float:
+    """ln of the instance's energy scale: sqrt(xi(1)) of its mixture when sampled, else the
+    estimate :func:`coefficient_scale` reads off its coefficients (-inf for the zero
+    polynomial)."""
+    mixture = ham.mixture
+    if mixture is not None:
+        xi1 = float(mixture.xi(1.0))
+        return 0.5 * math.log(xi1) if xi1 > 0 else -math.inf
+    return coefficient_scale(ham)
+
+
+def energy_scale(ham: Hamiltonian) -> float:
+    """exp(:func:`log_energy_scale`), within float64's range, and 1 for the zero polynomial:
+    a factor for tolerances meant at scale 1."""
+    log_scale = log_energy_scale(ham)
+    if not math.isfinite(log_scale):
+        return 1.0
+    return math.exp(min(max(log_scale, -700.0), 700.0))
 
 
 def _scale_text(log_scale: float) -> str:

@@ -28,11 +28,19 @@ length |G|/tau. A step longer than 0.5 (about 29 degrees of arc) is shortened to
 step is damped (d, d/2, ..., d/32: the first that raises the energy is taken).
 
 Until December 2026 a failed factorization ended Newton ("not a maximum") and gradient ascent
-took over, for hundreds of iterations in such flat regions: the slowest polishes took 2-10
-times longer than now (measured in the polish module doc).
+took over, for hundreds of iterations in such flat regions: the slowest polishes took 4-5
+times as long as now, and 9 times the passes (measured in the polish module doc).
+
+beta is relative to the max row sum, which bounds the spectral radius from above (by a
+factor that grows like sqrt(n) for these random matrices: 6.3, 12.2 and 18.9 at n = 200, 800
+and 2000), so the smallest shift tried is a little larger, relative to the spectrum, at
+large n; it keeps the sequence's bound (11 doublings pass the spectral radius) simple. Each
+step after a shifted one starts its sequence, past tau = 0, at a quarter of the last shift
+taken, which saves the refused factorizations of the doublings up to it.
 
 Cost per step: one Hessian pass, one energy-and-gradient pass per damping trial and a dense
-n x n Cholesky per shift tried (n^3/3 multiply-adds: about 20 ms at n = 800 on 2 cores).
+n x n Cholesky per shift tried (n^3/3 multiply-adds: about 9 ms at n = 800 on the one BLAS
+thread a polish uses).
 """
 
 from __future__ import annotations
@@ -90,6 +98,7 @@ def newton_refine(
     x = retract(np.asarray(x, dtype=np.float64))
     e, tg, radial = _tangent_state(ham, x)
     passes, steps, shifted, factorizations = 1, 0, 0, 0
+    hint = 0.0  # where a refused unshifted factorization resumes (module doc)
     history = []
     status = "max_steps"
     for _ in range(max_steps + 1):
@@ -109,7 +118,7 @@ def newton_refine(
         hess -= np.outer(x, w) + np.outer(w, x) - c * np.outer(x, x)
         hess[np.diag_indices(n)] -= radial
         hess = 0.5 * (hess + hess.T)
-        factor, tau, tried = _shifted_cholesky(-hess, _SHIFT_FLOOR * scale)
+        factor, tau, tried = _shifted_cholesky(-hess, _SHIFT_FLOOR * scale, hint)
         factorizations += tried
         if factor is None:  # not finite, or no shift made it positive definite
             status = "no_progress"
@@ -135,16 +144,18 @@ def newton_refine(
         x, e, tg, radial = y, e_y, tg_y, radial_y
         steps += 1
         shifted += tau > 0.0
+        hint = 0.25 * tau
         history.append((e, norm(tg) / n))
     return NewtonOutcome(
         x, e, norm(tg) / n, steps, passes, status, shifted, factorizations, history
     )
 
 
-def _shifted_cholesky(m: np.ndarray, beta: float):
+def _shifted_cholesky(m: np.ndarray, beta: float, hint: float = 0.0):
     """(factor of m + tau I, tau, factorizations tried) for the first tau of the module doc's
-    sequence at which the Cholesky factorization succeeds; (None, tau, tried) when none does
-    (a matrix with NaN, or ``_MAX_FACTORIZATIONS`` shifts). ``m`` is overwritten."""
+    sequence at which the Cholesky factorization succeeds, the doubling taking at least
+    ``hint`` after its first refusal; (None, tau, tried) when none succeeds (a matrix with
+    NaN, or ``_MAX_FACTORIZATIONS`` shifts). ``m`` is overwritten."""
     low = float(np.diag(m).min())
     if not np.isfinite(low):
         return None, 0.0, 0
@@ -158,5 +169,5 @@ def _shifted_cholesky(m: np.ndarray, beta: float):
         try:  # a failed attempt leaves m untouched (overwrite_a=False)
             return scipy.linalg.cho_factor(m, check_finite=False), tau, tried
         except np.linalg.LinAlgError:
-            tau = max(2.0 * tau, beta)
+            tau = max(2.0 * tau, beta, hint)
     return None, tau, _MAX_FACTORIZATIONS

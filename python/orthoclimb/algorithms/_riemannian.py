@@ -8,7 +8,9 @@ the tangent part of the Euclidean one, G(x) = P grad H(x) / n with P = I - u u^T
 
 with alpha from the Barzilai-Borwein rules (alternating the "long" s.s/s.w and the "short"
 s.w/w.w quotients, where s = y - x and w = -(G(y) - P_y G(x)) is the change of the gradient of
-the minimized objective -e, transported by projection), safeguarded to [1e-10, 1e10], and
+the minimized objective -e, transported by projection), safeguarded to [1e-10, 1e10] / s (s
+the instance's energy scale, sqrt(xi(1)) of its mixture: alpha has units of 1/energy, and
+with fixed bounds an instance at scale 1e20 backtracked some 30 halvings a step), and
 accepted by a nonmonotone Armijo test against the smallest of the last 10 energies:
 
     e(y) >= min_{j < 10} e(x_{k-j}) + 1e-4 alpha |G(x)|^2,
@@ -78,8 +80,11 @@ def sphere_ascent(
     gtol: float = 1e-7,
     max_iter: int = 2000,
     callback=None,
+    scale: float = 1.0,
 ) -> AscentTrace:
-    """Riemannian gradient ascent of e = H/n on |x| = radius from ``x0`` (see module doc).
+    """Riemannian gradient ascent of e = H/n on |x| = radius from ``x0`` (see module doc);
+    ``scale``: the instance's energy scale (:func:`~._checks.energy_scale`), which divides the
+    step-size bounds.
 
     ``gtol`` is a bound on |G| = |P grad H|/n (per-spin units). Records per iteration:
     ``iteration``, ``energy`` (per spin), ``grad_norm`` and ``alpha``; ``callback(row)`` gets
@@ -91,6 +96,8 @@ def sphere_ascent(
     passes = 1
     gnorm = norm(gr)
     alpha = 0.1 * radius / max(gnorm, 1e-300)
+    # alpha has units of 1/energy: its safeguards are meant at energy scale 1
+    alpha_min, alpha_max = _ALPHA_MIN / scale, _ALPHA_MAX / scale
     recent: deque[float] = deque([e], maxlen=_MEMORY)
     best = deque([e], maxlen=_STALL_WINDOW + 1)  # the best energy so far, per iteration
     top = (x, e, gr, gnorm, 0)  # the best point so far, with its iteration
@@ -108,7 +115,7 @@ def sphere_ascent(
             break
         it += 1
         ref = min(recent)
-        a = float(np.clip(alpha, _ALPHA_MIN, _ALPHA_MAX))
+        a = float(np.clip(alpha, alpha_min, alpha_max))
         for _ in range(_MAX_BACKTRACK):
             y = retract(x + a * gr, radius)
             e_y, gr_y = _tangent_grad(ham, y, radius)
@@ -121,10 +128,11 @@ def sphere_ascent(
             status = "stalled"
             break
         s = y - x
-        w = -(gr_y - project_tangent(gr, y / radius))
+        # w in units of the energy scale: w.w of an instance at 1e300 overflowed
+        w = -(gr_y - project_tangent(gr, y / radius)) / scale
         sw = float(s @ w)
         if sw > 0.0:
-            alpha = float(s @ s) / sw if it % 2 else sw / float(w @ w)
+            alpha = (float(s @ s) / sw if it % 2 else sw / float(w @ w)) / scale
         else:  # no positive curvature seen along s: take a longer step next time
             alpha = 2.0 * a
         x, e, gr = y, e_y, gr_y

@@ -52,6 +52,7 @@ from ._checks import (
     check_positive,
     check_seed,
     check_unit_start,
+    energy_scale,
     warn_if_far_scale,
 )
 from ._config import base_config
@@ -141,7 +142,9 @@ def gradient_ascent(
         if callback is not None:
             callback({"step": row["iteration"], "q": 1.0, **row})
 
-    trace = sphere_ascent(ham, first, gtol=gtol, max_iter=max_iter, callback=cb)
+    trace = sphere_ascent(
+        ham, first, gtol=gtol, max_iter=max_iter, callback=cb, scale=energy_scale(ham)
+    )
     info: dict[str, Any] = {
         "grad_norm": trace.grad_norm,
         "status": trace.status,

@@ -106,6 +106,7 @@ from ._checks import (
     check_positive,
     check_seed,
     dense_work_fits,
+    energy_scale,
     warn_if_far_scale,
 )
 from ._config import base_config
@@ -348,7 +349,9 @@ def _edge_growth(mixture: Mixture | None, q: float, q_next: float) -> float:
 def _first_stage(ham: Hamiltonian, q_hat: float, max_iter: int) -> tuple[np.ndarray, dict]:
     """Maximize H on |x| = sqrt(q_hat) from the field direction (see the module doc)."""
     start = field_direction(ham.coefficients(1))
-    trace = sphere_ascent(ham, start, radius=math.sqrt(q_hat), gtol=1e-8, max_iter=max_iter)
+    trace = sphere_ascent(
+        ham, start, radius=math.sqrt(q_hat), gtol=1e-8, max_iter=max_iter, scale=energy_scale(ham)
+    )
     return trace.x, {
         "q_hat": q_hat,
         "energy": trace.energy,

@@ -2,12 +2,13 @@
 whether it is a local maximum.
 
 :func:`polish` runs the Riemannian gradient ascent of :mod:`._riemannian` (Barzilai-Borwein
-steps, nonmonotone Armijo test, retraction x -> x/|x|) until |P grad H(x)|/n <= 0.01 (or
-``gtol`` if larger), then damped Riemannian Newton steps (:mod:`._newton`: one Hessian pass and
-a dense Cholesky solve each, the system shifted by a multiple of the identity where the point
-is not near a maximum) until |P grad H(x)|/n <= gtol, when the dense Hessian fits in memory
-(n <= 4000). If Newton stops short (no damped step raises the energy, or 40 steps), gradient
-ascent continues.
+steps, nonmonotone Armijo test, retraction x -> x/|x|) until |P grad H(x)|/n <= 0.01 s (or
+``gtol`` if larger; s the instance's energy scale, sqrt(xi(1)) of its mixture), then damped
+Riemannian Newton steps (:mod:`._newton`: one Hessian pass and a dense Cholesky solve each,
+the system shifted by a multiple of the identity where the point is not near a maximum) until
+|P grad H(x)|/n <= gtol, when the dense Hessian fits in memory (n <= 4000). If Newton stops
+short (no damped step raises the energy, or 40 steps), gradient ascent continues. With gtol
+times s, polishing c H makes the same steps as polishing H.
 
 Gradient ascent alone converges linearly with a rate set by the tangent spectrum, which near
 the marginal maxima that climbers reach extends close to zero. Until December 2026 the polish
@@ -85,6 +86,7 @@ from ._checks import (
     check_positive,
     check_unit_start,
     dense_work_fits,
+    energy_scale,
     warn_if_far_scale,
 )
 from ._config import base_config
@@ -262,8 +264,12 @@ def _polish(ham: Hamiltonian, x0: np.ndarray, gtol: float, max_iter: int, check:
     start = time.perf_counter()
     e_start = ham.energy(x0) / ham.n
     use_newton = _newton_fits(ham)
-    first_gtol = max(gtol, NEWTON_START_GTOL) if use_newton else gtol
-    trace = sphere_ascent(ham, x0, gtol=first_gtol, max_iter=max_iter)
+    # the hand-over in the instance's own units (a review: at gamma = 1e-20 an absolute 0.01
+    # handed a random start straight to Newton, which climbed to another maximum)
+    scale = energy_scale(ham)
+    handover = NEWTON_START_GTOL * scale
+    first_gtol = max(gtol, handover) if use_newton else gtol
+    trace = sphere_ascent(ham, x0, gtol=first_gtol, max_iter=max_iter, scale=scale)
     # the stages go on from, and the path ends at, the point a stage returns (the path's last
     # energy was above the result's after a dip, 3 runs in 160 at max_iter 3-13: a review)
     rows = {k: list(v[: trace.returned_iteration + 1]) for k, v in trace.rows.items()}
@@ -283,7 +289,7 @@ def _polish(ham: Hamiltonian, x0: np.ndarray, gtol: float, max_iter: int, check:
         x, energy, gnorm = out.x, out.energy, out.grad_norm
         status = "converged" if out.status == "converged" else status
         if gnorm > gtol and iterations < max_iter:  # Newton stopped short: back to gradients
-            rest = sphere_ascent(ham, x, gtol=gtol, max_iter=max_iter - iterations)
+            rest = sphere_ascent(ham, x, gtol=gtol, max_iter=max_iter - iterations, scale=scale)
             dropped += rest.iterations - rest.returned_iteration
             for k in ("iteration", "energy", "grad_norm", "alpha"):
                 extra = rest.rows[k][1 : rest.returned_iteration + 1]
@@ -316,10 +322,15 @@ def _polish(ham: Hamiltonian, x0: np.ndarray, gtol: float, max_iter: int, check:
     return Result(x, energy, path, config, time.perf_counter() - start, info)
 
 
+# n x n arrays a Newton step holds at once: the Hessian, two outer products and their sum
+# (tracemalloc: 4.0 n^2 8 bytes at n = 1000, a review; 3 were counted before)
+_NEWTON_COPIES = 4
+
+
 def _newton_fits(ham: Hamiltonian) -> bool:
     """Whether Newton's dense n x n work (the kernel's Hessian accumulators, the Hessian and
     its Cholesky factor) fits in half the available memory, for n <= NEWTON_MAX_N."""
-    return 2 <= ham.n <= NEWTON_MAX_N and dense_work_fits(ham, 3)
+    return 2 <= ham.n <= NEWTON_MAX_N and dense_work_fits(ham, _NEWTON_COPIES)
 
 
 # A stalled run is critical when its tangent gradient (per spin) is within this fraction of

@@ -40,6 +40,7 @@ from ..runtime import get_num_threads, kernel_path
 from ..studies.engine import counted
 from ..studies.estimate import (
     PASSES_PER_ITERATION,
+    dense_lanczos,
     gradient_passes,
     largest_size_within,
     matvec_seconds,
@@ -135,7 +136,8 @@ _SAMPLING_PROBE = 64 * 2**20  # bytes: the largest instance timed for it
 
 def _time_pass(ham: Hamiltonian, method: str) -> float:
     x = np.full(ham.n, 1.0 / math.sqrt(ham.n))
-    fn = ham.hessian if method == "hessian" else ham.energy_and_gradient
+    calls = {"hessian": ham.hessian, "hvp": lambda v: ham.hvp(v, v)}
+    fn = calls.get(method, ham.energy_and_gradient)
     best = math.inf
     for _ in range(2):
         t = time.perf_counter()
@@ -192,7 +194,10 @@ def _run_estimate(
     needs_hessian = moves > 0 or polish or method == "gradient"
     hess = scale * _time_pass(ham, "hessian") if needs_hessian else 0.0
     field = ham.mixture is not None and ham.mixture.has_field
-    matvec = matvec_seconds(n) if moves > 0 else None
+    matvec = None
+    if moves > 0:  # a dense product, or a Hessian-vector product's pass where that won't fit
+        dense = ham.mixture is None or dense_lanczos(ham.mixture, n)
+        matvec = matvec_seconds(n) if dense else scale * _time_pass(ham, "hvp")
     run = run_seconds(method, n, steps, polish, (grad, hess), moves, field, matvec)
     if method == "hessian":
         steps_taken = hessian_moves(ham.mixture, steps)
@@ -410,6 +415,8 @@ def run(args: argparse.Namespace) -> int:
     bar = tqdm(
         total=total, disable=True if quiet else None, unit="step", leave=False
     )  # None: tty only
+    if polish and args.method != "gradient" and total == 0:  # no step: the polish runs first
+        bar.set_description_str("polishing", refresh=True)
 
     def progress(row: dict[str, Any]) -> None:
         bar.update(1)

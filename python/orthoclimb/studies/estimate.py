@@ -18,12 +18,14 @@ as a + b ln n, since a study adds its tasks up:
   800, 1000 and 1200), 1.2e-5 s of ARPACK and Python per product, and three products' worth
   for restricting the Hessian to the tangent space. t_mv, one product of an n x n matrix with
   a vector on one BLAS thread, is timed on the driver at each size (:func:`matvec_seconds`),
-  since it grows faster than n^2 once the matrix leaves the caches: 0.23, 0.71, 1.47 and 3.3
-  ms at n = 1200, 1600, 2000 and 2800 here (2026-12-05), where a fixed a + b n^2 per step
-  (6e-4 + 1.1e-8 n^2 s, fitted to n <= 1000) had put a step at 44 ms against 255 ms measured
-  at n = 2000 (pure 2-spin) and 16 against 31 ms at n = 1200 (pure 3-spin). Runs too large
-  for the dense Hessian (Lanczos on Hessian-vector products, n of order 10^4 and more) are
-  not modelled apart.
+  since it grows faster than n^2 once the matrix leaves the caches: 0.19-0.23, 0.71, 1.47 and
+  3.3 ms at n = 1200, 1600, 2000 and 2800 here (2026-12-05, in-run and timed apart), where a
+  fixed a + b n^2 per step (6e-4 + 1.1e-8 n^2 s, fitted to n <= 1000) had put a step at 44 ms
+  against 255 ms measured at n = 2000 (pure 2-spin) and 16 against 31 ms at n = 1200 (pure
+  3-spin). Where the dense Hessian does not fit (:func:`dense_lanczos`; n of order 10^4 and
+  more) t_mv is a Hessian-vector product, timed at the calibration size and scaled as a pass.
+  Pure 2-spin runs make fewer products (90 and 102 per step at n = 1000 and 1500), so the
+  model is 1.2-1.5 times their time there.
   With a field, its first stage (an ascent to radius sqrt(q_hat)) adds 36 ln n - 74
   energy-and-gradient passes (at least 30): 60-113 at n = 50-400 for 1:0.5,3:1 and 78-177
   for 1:0.3,2:1,4:0.25 (one seed each; a user trial found it missing, 0.46 s of a 1.26 s
@@ -49,7 +51,9 @@ as a + b ln n, since a study adds its tasks up:
   Gradient ascent ends with the same check, with one Hessian and one energy-and-gradient
   pass of its own.
 
-Single runs spread widely around these means: a polish took up to 91 passes and 19 Newton
+The pooled polish fits are low for pure 4-spin instances (0.45-0.5 of their means at n = 150
+and 160: 47-52 passes against 24), which the Hessian steps' cost outweighs there. Single runs
+spread widely around these means: a polish took up to 91 passes and 19 Newton
 steps after Hessian ascent (pure 4-spin, n = 160; twice the mean there) and up to 135 passes
 after annealing, and one gradient run may take 2-3 times the mean. Each task also costs
 about 0.02 s of Dask round trip and row writing, and an embedded cluster about 2 s to start
@@ -83,6 +87,7 @@ __all__ = [
     "calibrate",
     "fixed_path_notes",
     "check_seconds",
+    "dense_lanczos",
     "estimate_from",
     "first_stage_passes",
     "estimate_seconds",
@@ -109,7 +114,8 @@ RESTRICT_MATVECS = 3
 # one product of a cached n x n matrix with a vector, per entry: the model's t_mv where no
 # timing is given (0.16 ns: measured at n = 1200, 2026-12-05)
 MATVEC_PER_ENTRY = 1.6e-10
-_MATVEC_TIMED_BYTES = 256 * 2**20  # larger matrices: timed at this size, scaled by n^2
+_MATVEC_TIMED_BYTES = 64 * 2**20  # larger matrices: timed at this size, scaled by n^2
+_DENSE_COPIES = 4  # Hessian ascent's working n x n copies besides the kernel's (its module)
 # seconds of the local-maximum check's dense eigenvalues: a + b n^3 (module doc)
 CHECK_SECONDS = (1e-3, 7e-11)
 CHOLESKY_SECONDS = 1.7e-11  # x n^3: one Cholesky factorization of a Newton step (module doc)
@@ -166,19 +172,29 @@ _MATVEC_CACHE: dict[int, float] = {}
 
 def matvec_seconds(n: int) -> float:
     """Seconds of one product of a dense n x n float64 matrix with a vector on one BLAS thread,
-    as Lanczos makes them (best of 3 after one untimed product; cached per n for the
-    process). A matrix above 256 MiB is timed at 256 MiB and the time scaled by n^2: that
-    large, the product streams it from memory."""
-    if n not in _MATVEC_CACHE:
+    as Lanczos makes them (best of 3 after one untimed product; cached for the process). A
+    matrix above 64 MiB (n > 2896; the calibration's own instances hold at most that) is timed
+    at 64 MiB and the time scaled by n^2: that large, the product streams it from memory."""
+    side = min(n, math.isqrt(_MATVEC_TIMED_BYTES // 8))
+    if side not in _MATVEC_CACHE:
         from ..runtime import one_blas_thread
 
-        side = min(n, math.isqrt(_MATVEC_TIMED_BYTES // 8))
         a = np.full((side, side), 0.5)
         v = np.full(side, 0.25)
         with one_blas_thread():
-            t = best_time(lambda: a @ v, repeats=3)
-        _MATVEC_CACHE[n] = t * (n / side) ** 2
-    return _MATVEC_CACHE[n]
+            _MATVEC_CACHE[side] = best_time(lambda: a @ v, repeats=3)
+    return _MATVEC_CACHE[side] * (n / side) ** 2
+
+
+def dense_lanczos(mixture, n: int) -> bool:
+    """Whether Hessian ascent on an instance of ``mixture`` at n runs Lanczos on the dense
+    Hessian here (its "auto" mode: the kernel's accumulators and four n x n copies in half the
+    available memory); otherwise each product is a Hessian-vector product, a pass over the
+    coefficients."""
+    from ..model.memory import available_memory, hessian_workspace_estimate
+
+    need = hessian_workspace_estimate(mixture, n) + _DENSE_COPIES * n * n * 8
+    return need <= available_memory() // 2
 
 
 def polish_extra(n: int, hessian_pass: float, after: str = "hessian") -> float:
@@ -200,9 +216,10 @@ class Calibration:
     hessian: float
     energy_and_gradient: float
     degree: int
-    # seconds of one dense tangent product at each size of the mixture (:func:`matvec_seconds`;
-    # empty: the model's MATVEC_PER_ENTRY n^2)
-    matvec: dict[int, float] = field(default_factory=dict)
+    # seconds of one tangent product at each size of the mixture (:func:`matvec_seconds`, or
+    # a Hessian-vector product's pass where the dense Hessian does not fit; empty: the
+    # model's MATVEC_PER_ENTRY n^2). Left out of hashing and comparison (a dict).
+    matvec: dict[int, float] = field(default_factory=dict, hash=False, compare=False)
 
 
 def largest_instance(spec: StudySpec, tasks=None) -> tuple[int, str, int]:
@@ -264,7 +281,9 @@ def calibrate(spec: StudySpec, threads: int = 1) -> dict[str, Calibration]:
                 best_time(lambda h=ham, v=x: h.hessian(v), warm_up=False),
                 best_time(lambda h=ham, v=x: h.energy_and_gradient(v), warm_up=False),
                 mix.max_degree,
-                {n: matvec_seconds(n) for n in sizes} if hessian_methods else {},
+                _products(mix, sizes, n0, best_time(lambda h=ham, v=x: h.hvp(v, v)))
+                if hessian_methods
+                else {},
             )
     finally:
         set_num_threads(old)
@@ -295,6 +314,17 @@ def run_seconds(
         first = first_stage_passes(n) * eg if field else 0.0
         return first + moves * (hess + lanczos_seconds(n, matvec)) + finish
     return steps * eg + finish  # anneal: one pass per step
+
+
+def _products(mixture, sizes, n0: int, hvp_at_n0: float) -> dict[int, float]:
+    """Seconds of one Lanczos product at each of ``sizes``: a dense one where the dense Hessian
+    fits (:func:`dense_lanczos`), else a Hessian-vector product, a pass scaled from its time
+    at the calibration size n0 as (n/n0)^P."""
+    degree = mixture.max_degree
+    return {
+        n: matvec_seconds(n) if dense_lanczos(mixture, n) else hvp_at_n0 * (n / n0) ** degree
+        for n in sizes
+    }
 
 
 def estimate_from(cal: dict[str, Calibration], tasks, workers: int, embedded: bool = True) -> float:
