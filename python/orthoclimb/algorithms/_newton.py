@@ -117,8 +117,8 @@ def newton_refine(
         c = radial_shift(float(x @ w), radial, scale)
         hess -= np.outer(x, w) + np.outer(w, x) - c * np.outer(x, x)
         hess[np.diag_indices(n)] -= radial
-        hess = 0.5 * (hess + hess.T)
-        factor, tau, tried = _shifted_cholesky(-hess, _SHIFT_FLOOR * scale, hint)
+        hess = -0.5 * (hess + hess.T)  # -A, in place of A: one n x n copy fewer
+        factor, tau, tried = _shifted_cholesky(hess, _SHIFT_FLOOR * scale, hint)
         factorizations += tried
         if factor is None:  # not finite, or no shift made it positive definite
             status = "no_progress"
