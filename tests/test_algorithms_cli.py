@@ -468,8 +468,12 @@ def test_climb_reports_its_sampling_time_and_the_top_riemannian_eigenvalue(tmp_p
     saved = oc.load_result(tmp_path / "a" / "result")
     assert summary["top_eigenvalue"] == saved.info["top_eigenvalue"] < 0
     assert 0 < summary["seconds_sampling"] < 60
-    # and the estimate printed before the run, to set beside its time (a user trial's wish)
+    # and the estimate printed before the run, to set beside its time (a user trial's wish);
+    # none where nothing is estimated (no Hessian step and no polish), not 0
     assert summary["seconds_estimated"] > 0
+    bare = ["climb", "--gammas", "3:1", "--n", "40", "--steps", "1", "--no-polish", "--json"]
+    assert main([*bare, "--out", str(tmp_path / "c")]) == 0
+    assert json.loads(capsys.readouterr().out)["seconds_estimated"] is None
     # the Riemannian Hessian on the unit sphere, B^T (Hess H - (x . grad H) I) B for an
     # orthonormal basis B of the tangent space (Absil, Mahony and Sepulchre 2008, ch. 5),
     # with scipy.linalg.null_space and eigvalsh

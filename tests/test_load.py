@@ -91,6 +91,9 @@ def test_busy_note_only_from_half_a_core(monkeypatch):
     assert note is not None and note.startswith("other processes kept 1.6 of this machine's 2")
     # sharing 2 cores with 1.6 cores of other work: (2 + 1.6)/2 = 1.8 times as long
     assert "the plan is for free cores, and the run takes longer (about 1.8 times as" in note
+    # a run on one thread of the two shares nothing below 1.05: no factor named
+    assert "times as long" not in busy_note(0.6, threads=1)
+    assert "(about 1.3 times as long)" in busy_note(1.6, threads=1)  # (1 + 1.6)/2
     monkeypatch.setattr(_load.os, "cpu_count", lambda: None)  # unknown: no total named
     unknown = busy_note(1.6)
     assert unknown.startswith("other processes kept 1.6 cores busy")

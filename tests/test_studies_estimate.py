@@ -167,6 +167,41 @@ def test_the_lanczos_model_is_within_its_factor_of_measured_steps():
         assert 2 / 3 < ratio < 1.5, (n, ratio)
 
 
+def test_without_room_for_the_dense_hessian_steps_and_the_polish_are_matrix_free(monkeypatch):
+    # exact arithmetic of the model where the dense Hessian does not fit (a review: it still
+    # charged a Hessian pass per step and Newton's polish): a step is an energy-and-gradient
+    # pass and Lanczos on Hessian-vector products (no restricting), and the polish is gradient
+    # ascent's mean passes plus a matrix-free check of OPERATOR_CHECK_PRODUCTS products
+    from orthoclimb.model import estimate_memory
+    from orthoclimb.model import memory as memory_module
+    from orthoclimb.model.memory import hessian_workspace_estimate
+    from orthoclimb.studies.estimate import (
+        OPERATOR_CHECK_PRODUCTS,
+        dense_lanczos,
+        polish_extra,
+        run_seconds,
+    )
+
+    n, eg, hess, mv = 3000, 0.01, 0.5, 0.002
+    sparse = run_seconds("hessian", n, 10, True, (eg, hess), 9, False, mv, dense=False)
+    m = max(40.0, 44 * math.log(n) - 171)
+    step = eg + 6e-4 + m * (mv + 1.2e-5)
+    polish = (gradient_passes(n, 2000) + 1) * eg + OPERATOR_CHECK_PRODUCTS * mv
+    assert sparse == pytest.approx(9 * step + polish)
+    dense = run_seconds("hessian", n, 10, True, (eg, hess), 9, False, mv, dense=True)
+    newton = polish_passes(n, "hessian") * eg + polish_extra(n, hess)
+    assert dense == pytest.approx(9 * (hess + lanczos_seconds(n, mv)) + newton)
+    # the decision leaves the instance's own memory out of what is available, as the run's
+    # does once it has sampled: the work must fit in half of what remains
+    mix = oc.Mixture({2: 1.0})
+    need = hessian_workspace_estimate(mix, n) + 4 * n * n * 8
+    instance = estimate_memory(mix, n)
+    monkeypatch.setattr(memory_module, "available_memory", lambda: 2 * need + instance)
+    assert dense_lanczos(mix, n)
+    monkeypatch.setattr(memory_module, "available_memory", lambda: 2 * need + instance - 2)
+    assert not dense_lanczos(mix, n)
+
+
 def test_calibrate_times_the_dense_product_only_for_hessian_ascent():
     # the products are timed at every size of the mixture when a method needs Lanczos
     # (positive, and growing with n: a product reads n^2 entries), and not otherwise

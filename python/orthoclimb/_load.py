@@ -71,18 +71,21 @@ class OtherLoad:
         return min(cores, float(total)) if total else cores
 
 
-def busy_note(cores: float | None, what: str = "the estimate") -> str | None:
+def busy_note(
+    cores: float | None, what: str = "the estimate", threads: int | None = None
+) -> str | None:
     """A sentence for an estimate timed while other processes kept ``cores`` cores busy (None
     below :data:`BUSY_CORES` or when unmeasured). The timings keep the best of a few calls,
     which dodge the load, so the estimate is one for free cores: a user trial's sweep under
     one core of other load took 41 s against 24 s estimated. Sharing N cores fairly with
-    that work, a run using all of them takes (N + cores)/N times as long while it lasts,
-    which the sentence names (1.5 there)."""
+    that work, a run on ``threads`` of them (default: all) takes max(1, (threads + cores)/N)
+    times as long while it lasts, which the sentence names from 1.05 on (1.5 there)."""
     if cores is None or cores < BUSY_CORES:
         return None
     total = os.cpu_count()
     of = f" of this machine's {total} cores" if total else " cores"
-    longer = f" (about {(total + cores) / total:.1f} times as long)" if total else ""
+    factor = max(1.0, ((threads or total) + cores) / total) if total else None
+    longer = f" (about {factor:.1f} times as long)" if factor and factor >= 1.05 else ""
     return (
         f"other processes kept {cores:.1f}{of} busy while the kernels were timed: {what}"
         f" is for free cores, and the run takes longer{longer} while that work goes on"

@@ -25,6 +25,8 @@ __all__ = [
     "check_seed",
     "check_unit_start",
     "coefficient_scale",
+    "energy_scale",
+    "log_energy_scale",
     "warn_if_far_scale",
 ]
 
@@ -73,8 +75,9 @@ FAR_SCALE = 1e4  # sqrt(xi(1)) beyond [1/FAR_SCALE, FAR_SCALE]: absolute toleran
 
 def warn_if_far_scale(ham: Hamiltonian, where: str) -> None:
     """Warn when the instance's energy scale is far from 1: the optimizers' tolerances (gtol,
-    tol, temperatures, step bounds) are absolute, in energy per spin, so at gamma ~ 1e-20 a
-    random start already "converges", and at 1e20 the steps stall. The scale is sqrt(xi(1))
+    tol, temperatures) are absolute, in energy per spin, so at gamma ~ 1e-20 a random start
+    already "converges", and at 1e20 gtol lies below rounding (the step-size bounds and the
+    polish's hand-over to Newton follow the scale, :func:`energy_scale`). The scale is sqrt(xi(1))
     for a sampled instance; for given coefficients, the estimate of it that
     :func:`coefficient_scale` reads off them. Energies scale with it: rescale instead."""
     mixture = ham.mixture
@@ -110,12 +113,17 @@ def log_energy_scale(ham: Hamiltonian) -> float:
 
 
 def energy_scale(ham: Hamiltonian) -> float:
-    """exp(:func:`log_energy_scale`), within float64's range, and 1 for the zero polynomial:
-    a factor for tolerances meant at scale 1."""
+    """The power of two nearest exp(:func:`log_energy_scale`), between 2^-960 and 2^960, and 1
+    for the zero polynomial: a factor for step bounds and tolerances meant at scale 1. A power
+    of two divides exactly, so a run at a scale within a factor sqrt(2) of 1 makes the same
+    steps, bit for bit, as before these bounds followed the scale, a sampled instance the same
+    as its copy from coefficients, and 2^k H the same as H (a review: dividing by 1.118 moved
+    results at rounding level); the bound keeps 1e10 / scale finite."""
     log_scale = log_energy_scale(ham)
     if not math.isfinite(log_scale):
         return 1.0
-    return math.exp(min(max(log_scale, -700.0), 700.0))
+    exponent = round(log_scale / math.log(2.0))
+    return math.ldexp(1.0, min(max(exponent, -960), 960))
 
 
 def _scale_text(log_scale: float) -> str:

@@ -9,7 +9,8 @@ the tangent part of the Euclidean one, G(x) = P grad H(x) / n with P = I - u u^T
 with alpha from the Barzilai-Borwein rules (alternating the "long" s.s/s.w and the "short"
 s.w/w.w quotients, where s = y - x and w = -(G(y) - P_y G(x)) is the change of the gradient of
 the minimized objective -e, transported by projection), safeguarded to [1e-10, 1e10] / s (s
-the instance's energy scale, sqrt(xi(1)) of its mixture: alpha has units of 1/energy, and
+the power of two nearest the instance's energy scale, sqrt(xi(1)) of its mixture:
+alpha has units of 1/energy, and
 with fixed bounds an instance at scale 1e20 backtracked some 30 halvings a step), and
 accepted by a nonmonotone Armijo test against the smallest of the last 10 energies:
 

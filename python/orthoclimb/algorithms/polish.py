@@ -3,7 +3,8 @@ whether it is a local maximum.
 
 :func:`polish` runs the Riemannian gradient ascent of :mod:`._riemannian` (Barzilai-Borwein
 steps, nonmonotone Armijo test, retraction x -> x/|x|) until |P grad H(x)|/n <= 0.01 s (or
-``gtol`` if larger; s the instance's energy scale, sqrt(xi(1)) of its mixture), then damped
+``gtol`` if larger; s the power of two nearest the instance's energy scale, sqrt(xi(1)) of its
+mixture), then damped
 Riemannian Newton steps (:mod:`._newton`: one Hessian pass and a dense Cholesky solve each,
 the system shifted by a multiple of the identity where the point is not near a maximum) until
 |P grad H(x)|/n <= gtol, when the dense Hessian fits in memory (n <= 4000). If Newton stops
@@ -236,10 +237,11 @@ def polish(
     ``passes``, ``energy_start`` and, with the
     check, ``n_positive``, ``top_eigenvalue``, ``local_max``.
 
-    The tolerances (``gtol``, the hand-over to Newton) are absolute, in energy per spin: an
-    instance whose energy scale is far from 1 gets a RuntimeWarning, as the other optimizers
-    do (at a scale of 1e-12 a non-critical point passes gtol = 1e-7 at once; at 1e12 gtol is
-    below rounding and the polish runs to ``max_iter``).
+    ``gtol`` is absolute, in energy per spin (the hand-over to Newton and the step bounds
+    follow the instance's energy scale): an instance whose energy scale is far from 1 gets a
+    RuntimeWarning, as the other optimizers do (at a scale of 1e-12 a non-critical point
+    passes gtol = 1e-7 at once; at 1e12 gtol lies below rounding, and the polish ends
+    "stalled" after some hundred passes).
     """
     ham = check_ham(ham, "polish")
     warn_if_far_scale(ham, "polish")
@@ -323,7 +325,8 @@ def _polish(ham: Hamiltonian, x0: np.ndarray, gtol: float, max_iter: int, check:
 
 
 # n x n arrays a Newton step holds at once: the Hessian, two outer products and their sum
-# (tracemalloc: 4.0 n^2 8 bytes at n = 1000, a review; 3 were counted before)
+# (tracemalloc: 4.0 n^2 8 bytes at n = 1000, a review; 3.0 since -A is formed in place;
+# 3 were counted before that, and 4 are kept, as Hessian ascent's dense mode counts)
 _NEWTON_COPIES = 4
 
 

@@ -178,7 +178,7 @@ def _run_estimate(
     n: int | None = None,
     scale=1.0,
     start: str = "auto",
-) -> tuple[str, float]:
+) -> tuple[str, float | None]:
     """(the line to print, the seconds) of the run's time from timed passes, by the sweep's
     model (orthoclimb.studies.estimate):
     K - 1 Hessian passes plus Lanczos for hessian (none when the first stage ends on the
@@ -194,11 +194,11 @@ def _run_estimate(
     needs_hessian = moves > 0 or polish or method == "gradient"
     hess = scale * _time_pass(ham, "hessian") if needs_hessian else 0.0
     field = ham.mixture is not None and ham.mixture.has_field
-    matvec = None
+    matvec, dense = None, True
     if moves > 0:  # a dense product, or a Hessian-vector product's pass where that won't fit
         dense = ham.mixture is None or dense_lanczos(ham.mixture, n)
         matvec = matvec_seconds(n) if dense else scale * _time_pass(ham, "hvp")
-    run = run_seconds(method, n, steps, polish, (grad, hess), moves, field, matvec)
+    run = run_seconds(method, n, steps, polish, (grad, hess), moves, field, matvec, dense)
     if method == "hessian":
         steps_taken = hessian_moves(ham.mixture, steps)
         what = ("the field stage, " if field else "") + f"{steps_taken} Hessian steps"
@@ -209,7 +209,7 @@ def _run_estimate(
             why = "--steps 1 has none" if steps == 1 else "the field stage ends on the sphere"
             parts = [p for p, on in (("the field stage", field), ("the polish", polish)) if on]
             if not parts:
-                return f"no Hessian step: {why}", run
+                return f"no Hessian step: {why}", None
             verb = "takes" if len(parts) == 1 else "take"
             text = f"no Hessian step: {why}; {' and '.join(parts)} {verb} about"
             return f"{text} {seconds_text(run)}", run
@@ -382,7 +382,7 @@ def run(args: argparse.Namespace) -> int:
         say(_run_estimate(probe, args.method, steps, polish, args.n, scale, start)[0])
         # a trial's plans varied 3-5x under load; a plan's timing takes milliseconds, so the
         # load is read over half a second (the plan waits out the rest)
-        busy = busy_note(load.stop(settle=0.5), "the plan")
+        busy = busy_note(load.stop(settle=0.5), "the plan", get_num_threads())
         if busy is not None:
             say(f"note: {busy}")
         try:
@@ -403,7 +403,7 @@ def run(args: argparse.Namespace) -> int:
     sampling_seconds = time.perf_counter() - started
     estimate_text, estimated = _run_estimate(ham, args.method, steps, polish, start=start)
     say(estimate_text)
-    busy = busy_note(load.stop())
+    busy = busy_note(load.stop(), threads=get_num_threads())
     if busy is not None:
         say(f"note: {busy}")
 
@@ -415,8 +415,8 @@ def run(args: argparse.Namespace) -> int:
     bar = tqdm(
         total=total, disable=True if quiet else None, unit="step", leave=False
     )  # None: tty only
-    if polish and args.method != "gradient" and total == 0:  # no step: the polish runs first
-        bar.set_description_str("polishing", refresh=True)
+    if polish and args.method != "gradient" and total == 0 and not mixture.has_field:
+        bar.set_description_str("polishing", refresh=True)  # no step: the polish runs first
 
     def progress(row: dict[str, Any]) -> None:
         bar.update(1)

@@ -115,7 +115,9 @@ RESTRICT_MATVECS = 3
 # timing is given (0.16 ns: measured at n = 1200, 2026-12-05)
 MATVEC_PER_ENTRY = 1.6e-10
 _MATVEC_TIMED_BYTES = 64 * 2**20  # larger matrices: timed at this size, scaled by n^2
-_DENSE_COPIES = 4  # Hessian ascent's working n x n copies besides the kernel's (its module)
+# products of the matrix-free local-maximum check (two Lanczos runs on Hessian-vector
+# products: "typically a few hundred", the polish module)
+OPERATOR_CHECK_PRODUCTS = 300
 # seconds of the local-maximum check's dense eigenvalues: a + b n^3 (module doc)
 CHECK_SECONDS = (1e-3, 7e-11)
 CHOLESKY_SECONDS = 1.7e-11  # x n^3: one Cholesky factorization of a Newton step (module doc)
@@ -159,12 +161,14 @@ def check_seconds(n: int) -> float:
     return CHECK_SECONDS[0] + CHECK_SECONDS[1] * n**3
 
 
-def lanczos_seconds(n: int, matvec: float | None = None) -> float:
+def lanczos_seconds(n: int, matvec: float | None = None, dense: bool = True) -> float:
     """Seconds of one Hessian-ascent step's Lanczos at n (module doc), with ``matvec`` seconds
-    per product of the n x n tangent matrix with a vector (None: MATVEC_PER_ENTRY n^2)."""
+    per product of the n x n tangent matrix with a vector (None: MATVEC_PER_ENTRY n^2); not
+    ``dense``: the products are Hessian-vector products and nothing is restricted."""
     t_mv = MATVEC_PER_ENTRY * n * n if matvec is None else matvec
     products = _log_fit(n, LANCZOS_MATVECS)
-    return LANCZOS_SOLVE + products * (t_mv + LANCZOS_ITERATION) + RESTRICT_MATVECS * t_mv
+    restrict = RESTRICT_MATVECS * t_mv if dense else 0.0
+    return LANCZOS_SOLVE + products * (t_mv + LANCZOS_ITERATION) + restrict
 
 
 _MATVEC_CACHE: dict[int, float] = {}
@@ -188,13 +192,16 @@ def matvec_seconds(n: int) -> float:
 
 def dense_lanczos(mixture, n: int) -> bool:
     """Whether Hessian ascent on an instance of ``mixture`` at n runs Lanczos on the dense
-    Hessian here (its "auto" mode: the kernel's accumulators and four n x n copies in half the
-    available memory); otherwise each product is a Hessian-vector product, a pass over the
-    coefficients."""
+    Hessian here, as its "auto" mode decides once the instance is sampled: the kernel's
+    accumulators and its working n x n copies in half the memory the instance leaves
+    available. Otherwise each product is a Hessian-vector product, a pass over the
+    coefficients, and the polish has no Newton steps (its own n x n copies are as many)."""
+    from ..algorithms.hessian_ascent import _WORKING_COPIES
+    from ..model import estimate_memory
     from ..model.memory import available_memory, hessian_workspace_estimate
 
-    need = hessian_workspace_estimate(mixture, n) + _DENSE_COPIES * n * n * 8
-    return need <= available_memory() // 2
+    need = hessian_workspace_estimate(mixture, n) + _WORKING_COPIES * n * n * 8
+    return need <= (available_memory() - estimate_memory(mixture, n)) // 2
 
 
 def polish_extra(n: int, hessian_pass: float, after: str = "hessian") -> float:
@@ -281,7 +288,7 @@ def calibrate(spec: StudySpec, threads: int = 1) -> dict[str, Calibration]:
                 best_time(lambda h=ham, v=x: h.hessian(v), warm_up=False),
                 best_time(lambda h=ham, v=x: h.energy_and_gradient(v), warm_up=False),
                 mix.max_degree,
-                _products(mix, sizes, n0, best_time(lambda h=ham, v=x: h.hvp(v, v)))
+                _products(mix, sizes, n0, lambda h=ham, v=x: h.hvp(v, v))
                 if hessian_methods
                 else {},
             )
@@ -299,32 +306,48 @@ def run_seconds(
     moves: int = 0,
     field: bool = False,
     matvec: float | None = None,
+    dense: bool = True,
 ) -> float:
     """Seconds of one run of ``method`` at n (module doc) from ``passes`` = (one energy-and-
     gradient pass, one Hessian pass) in seconds at n: ``moves`` Hessian steps (hessian, after
     its first stage when the mixture has a ``field``), ``steps`` Langevin steps (anneal) or at
     most ``steps`` = max_iter iterations (gradient), plus the polish when ``polish`` (hessian,
-    anneal); ``matvec``: seconds of one dense tangent product at n for Lanczos
-    (:func:`lanczos_seconds`). Used by the sweep and by climb."""
+    anneal); ``matvec``: seconds of one tangent product at n for Lanczos
+    (:func:`lanczos_seconds`). Not ``dense`` (:func:`dense_lanczos`, for hessian and its
+    polish): each step is an energy-and-gradient pass and Lanczos on Hessian-vector products
+    (``matvec`` each), and the polish has no Newton steps: gradient ascent's mean passes
+    (a stand-in, unmeasured at such sizes) and a matrix-free check of
+    OPERATOR_CHECK_PRODUCTS products. Used by the sweep and by climb."""
     eg, hess = passes
     if method == "gradient":  # and its local-maximum check: a Hessian, a pass, the eigenvalues
         return (gradient_passes(n, steps) + 1) * eg + hess + check_seconds(n)
-    finish = polish_passes(n, method) * eg + polish_extra(n, hess, method) if polish else 0.0
-    if method == "hessian":  # each step a Hessian pass and Lanczos
+    if not polish:
+        finish = 0.0
+    elif dense or matvec is None:
+        finish = polish_passes(n, method) * eg + polish_extra(n, hess, method)
+    else:
+        finish = (gradient_passes(n, 2000) + 1) * eg + OPERATOR_CHECK_PRODUCTS * matvec
+    if method == "hessian":  # each step a Hessian pass (dense) and Lanczos
         first = first_stage_passes(n) * eg if field else 0.0
-        return first + moves * (hess + lanczos_seconds(n, matvec)) + finish
+        step = (hess if dense else eg) + lanczos_seconds(n, matvec, dense)
+        return first + moves * step + finish
     return steps * eg + finish  # anneal: one pass per step
 
 
-def _products(mixture, sizes, n0: int, hvp_at_n0: float) -> dict[int, float]:
+def _products(mixture, sizes, n0: int, hvp) -> dict[int, float]:
     """Seconds of one Lanczos product at each of ``sizes``: a dense one where the dense Hessian
-    fits (:func:`dense_lanczos`), else a Hessian-vector product, a pass scaled from its time
-    at the calibration size n0 as (n/n0)^P."""
-    degree = mixture.max_degree
-    return {
-        n: matvec_seconds(n) if dense_lanczos(mixture, n) else hvp_at_n0 * (n / n0) ** degree
-        for n in sizes
-    }
+    fits (:func:`dense_lanczos`), else a Hessian-vector product, a pass scaled from the time
+    of ``hvp()`` at the calibration size n0 as (n/n0)^P (timed only when needed, without a
+    warm-up call, as the other passes)."""
+    out: dict[int, float] = {}
+    at_n0 = None
+    for n in sizes:
+        if dense_lanczos(mixture, n):
+            out[n] = matvec_seconds(n)
+            continue
+        at_n0 = best_time(hvp, warm_up=False) if at_n0 is None else at_n0
+        out[n] = at_n0 * (n / n0) ** mixture.max_degree
+    return out
 
 
 def estimate_from(cal: dict[str, Calibration], tasks, workers: int, embedded: bool = True) -> float:
@@ -336,6 +359,7 @@ def estimate_from(cal: dict[str, Calibration], tasks, workers: int, embedded: bo
     for group in instance_groups(list(tasks), workers):  # as the sweep submits them
         c = cal[group[0].mixture.name]
         total += (group[0].n / c.n0) ** c.degree * c.sampling + _TASK_OVERHEAD
+    dense_at: dict[tuple[str, int], bool] = {}
     for t in tasks:
         c = cal[t.mixture.name]
         scale = (t.n / c.n0) ** c.degree
@@ -349,7 +373,14 @@ def estimate_from(cal: dict[str, Calibration], tasks, workers: int, embedded: bo
         polish = bool(opts.get("polish"))
         field = t.mixture.mixture.has_field
         matvec = c.matvec.get(t.n)
-        total += run_seconds(t.method.name, t.n, steps, polish, (eg, hess), moves, field, matvec)
+        dense = True
+        if t.method.name == "hessian" and matvec is not None:
+            key = (t.mixture.name, t.n)
+            if key not in dense_at:
+                dense_at[key] = dense_lanczos(t.mixture.mixture, t.n)
+            dense = dense_at[key]
+        args = (steps, polish, (eg, hess), moves, field, matvec, dense)
+        total += run_seconds(t.method.name, t.n, *args)
     return total / max(1, workers) + (_CLUSTER_START if embedded else 0.0)
 
 
@@ -539,7 +570,8 @@ def plan_lines(
         workers, threads = 1, threads or 1
     load = OtherLoad().start()
     est = estimate_seconds(spec, pending, workers, threads, embedded=plan is not None)
-    busy = busy_note(load.stop(settle=0.5))  # timing a small study takes milliseconds
+    # timing a small study takes milliseconds: the load is read over half a second
+    busy = busy_note(load.stop(settle=0.5), threads=plan.cores_used if plan else None)
     where = " for one worker of the external cluster" if plan is None else ""
     # timed on this machine as it is now; other work started later slows the run (a review
     # measured 80 s for an estimate of 30 s with a load of 4 on two cores)
