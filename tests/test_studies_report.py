@@ -684,6 +684,20 @@ def test_the_gap_finding_cites_the_proof_only_where_it_holds(tmp_path, mixture, 
     )
 
 
+def test_a_gap_below_the_solvers_tolerance_is_not_called_unclosable():
+    # a user trial: 2:1,4:0.4 (criterion fails) has GS - ALG = 9.7e-08, which the report
+    # called "a gap that algorithms ... cannot close"; the ground state is computed to 1e-6
+    from orthoclimb.studies.report import _theory_finding
+
+    th = {"alg": 1.6156635, "gs": 1.6156636, "full_rsb": False, "gs_equals_alg": False}
+    th.update(even=True, gap_gs_alg=1.0e-7)
+    text = _theory_finding("2:1,4:0.4", th)
+    assert "by only 1.0e-07, within the Parisi solver's tolerance (1e-06)" in text
+    assert "cannot close" not in text and "predicted not to close" not in text
+    th.update(gap_gs_alg=2e-6)  # above the tolerance: the usual sentence
+    assert "cannot close (Huang-Sellke 2021" in _theory_finding("2:1,4:0.4", th)
+
+
 def test_the_report_extrapolates_the_difference_of_two_methods_limits(tmp_path):
     # hessian - gradient = 0.01 + 0.3 n^(-2/3) + small noise on each instance, over a shared
     # instance effect 10 times larger: the paired fit recovers 0.01 with an s.e. well below
