@@ -384,6 +384,34 @@ def _synthetic_study(
         store.write_row({**row, "n": t.n, "seed": t.seed, "energy": energy(*args)})
 
 
+def test_findings_flag_a_fit_that_one_size_dominates(tmp_path):
+    # weights 1/s_j^2 (the fit's own, extrapolate's module doc): n = 80 with a spread 20 times
+    # smaller than the others' takes nearly all of it, which the finding and the table say
+    # (a user trial: 82 % at n = 190 from 8 seeds, and 8 more seeds moved e_inf by 2.75 s.e.)
+    from orthoclimb.studies.report import caveats, heaviest_size
+
+    rng = np.random.default_rng(3)
+    noise = rng.standard_normal((200, 8))
+
+    def energy(n, s, spread_at_80):
+        sd = spread_at_80 if n == 80 else 0.05
+        return 1.6 - n ** (-2 / 3) + sd * noise[n, s]
+
+    _synthetic_study(tmp_path / "a", "20,40,80", lambda n, s: energy(n, s, 0.0025))
+    rep = build_report(tmp_path / "a")
+    fit = rep.fits[0]
+    n, share = fit["heaviest"]
+    samples = [[energy(m, s, 0.0025) for s in range(8)] for m in (20, 40, 80)]
+    w = [1.0 / (np.var(v, ddof=1) / 8) for v in samples]
+    assert n == 80 and share == pytest.approx(w[2] / sum(w)) and share > 0.99
+    assert f"n = 80 carries {100 * share:.0f} % of the fit's weight" in rep.findings[-1]
+    assert f"n = 80 weighs {100 * share:.0f}%" in caveats(fit)
+    # the same spread everywhere: variances fall with nothing, no size dominates
+    _synthetic_study(tmp_path / "b", "20,40,80", lambda n, s: energy(n, s, 0.05))
+    assert build_report(tmp_path / "b").fits[0]["heaviest"] is None
+    assert heaviest_size([20, 40], [[1.0, 2.0], [1.0, 1.0001]]) is None  # two sizes: no test
+
+
 def test_findings_flag_an_extrapolation_above_the_ground_state_and_an_unchecked_law(tmp_path):
     # GS (Parisi, pure 3-spin: 1.6570) bounds every n -> infinity energy; energies that
     # extrapolate to 1.9 from two sizes must be flagged, not reported as a finding

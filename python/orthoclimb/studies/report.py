@@ -327,6 +327,7 @@ def build_report(
                 continue
             entry.update(ex.to_dict())
             entry["sizes"] = list(ex.sizes)
+            entry["heaviest"] = heaviest_size(sizes, samples)
             se = ex.se if ex.se > 0 else math.nan
             entry["z_alg"] = (ex.value - th["alg"]) / se
             entry["z_gs"] = (ex.value - th["gs"]) / se
@@ -420,14 +421,38 @@ def _add_stepwise_limit(
 CAVEATS_LEGEND = (
     "'unchecked': no degree of freedom tests the law; 'no law fits' or a law 'rejected': the"
     " laws' chi2 tests; 'above GS': the interval lies above the ground state; 'mixed K': the"
-    " default K at its floor or cap at some sizes only; the findings give each in full"
+    " default K at its floor or cap at some sizes only; 'n = N weighs W%': one size carries"
+    " most of the fit's weight; the findings give each in full"
 )
+
+#: Above this share of the weights 1/s_j^2 one size's sample variance decides the fit
+#: (common practice would pool the variances; the flag keeps the fit and says so).
+HEAVY_SHARE = 0.75
+
+
+def heaviest_size(sizes: list[int], samples: list) -> list | None:
+    """[n, share] of the size with the largest weight 1/s_j^2 (s_j^2 = sample variance / seeds)
+    in a fit over three sizes or more, when its share of the weights exceeds HEAVY_SHARE, else
+    None. With variances falling like 1/n the largest of n = 60-190 takes 40 % (the demo's
+    rugged fits, 10 seeds: 63-66 %, not flagged); a user trial's 8 seeds gave n = 190 a
+    spread 3-4 times smaller than the others' and 82 % of the weight, and 8 more seeds moved
+    e_inf by 2.75 of its standard errors. Sizes without spread are left to the fit's own
+    rule (:mod:`.extrapolate`): None."""
+    if len(sizes) < 3:
+        return None
+    var = np.array([np.var(np.asarray(a, dtype=float), ddof=1) / len(a) for a in samples])
+    if not np.all(var > 0.0):
+        return None
+    w = 1.0 / var
+    top = int(np.argmax(w))
+    share = float(w[top] / w.sum())
+    return [int(sizes[top]), share] if share > HEAVY_SHARE else None
 
 
 def caveats(f: dict[str, Any]) -> str:
     """The remarks of a fit's finding in a few words, for the tables (a trial read the z
     columns and missed them): 'unchecked', 'no law fits' or 'n^(-2/3) rejected', 'above GS',
-    'mixed K'; '' when there are none."""
+    'mixed K', 'n = N weighs W%'; '' when there are none."""
     out = []
     if f["dof"] == 0:
         out.append("unchecked")
@@ -439,6 +464,9 @@ def caveats(f: dict[str, Any]) -> str:
         out.append("above GS")
     if f.get("steps_by_n"):
         out.append("mixed K")
+    if f.get("heaviest"):
+        n, share = f["heaviest"]
+        out.append(f"n = {n} weighs {100 * share:.0f}%")
     return ", ".join(out)
 
 
@@ -552,6 +580,13 @@ def _findings(rep: Report, seeds: dict) -> list[str]:
             )
         if f.get("mixed_k"):
             text += "; " + f["mixed_k"]
+        if f.get("heaviest"):
+            n, share = f["heaviest"]
+            text += (
+                f"; n = {n} carries {100 * share:.0f} % of the fit's weight (its seeds spread"
+                " least), so the interval rests mostly on one size's sample variance: more"
+                " seeds make it firmer"
+            )
         text += law_test_text(f)
         if f["dof"] == 0:
             text += (
