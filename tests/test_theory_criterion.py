@@ -23,7 +23,9 @@ def test_pure_two_spin_holds():
     # (an independent check of the theory found "holds: ... concave" printed above "alpha = 0,
     # replica symmetric"); with a field too (q xi'' = 2q < xi' = h + 2q: q_hat = 1)
     assert verdict.constant_curvature
-    assert "replica symmetric (no RSB); GS = ALG" in verdict.describe()
+    # "holds" beside "no RSB" read as a contradiction (a user trial): the degenerate case
+    assert verdict.describe().startswith("holds, in its degenerate case: xi'' is constant")
+    assert "replica symmetric (no RSB at all); GS = ALG" in verdict.describe()
     with_field = full_rsb(Mixture({1: 0.5, 2: 1.0}))
     assert with_field.constant_curvature and with_field.describe().endswith("= sqrt(xi'(1))")
     assert not full_rsb(Mixture({2: 1.0, 4: 0.25})).constant_curvature

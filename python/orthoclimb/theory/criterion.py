@@ -95,8 +95,9 @@ class FullRSBVerdict:
             return "no full-RSB region: xi'' = 0 (linear polynomial), GS = ALG = gamma_1"
         if self.holds and self.constant_curvature:  # a field gives q_hat = 1 here
             return (
-                "holds: xi'' is constant (no degree above 2), so xi''^(-1/2) is affine, alpha"
-                " = 0 and the solution is replica symmetric (no RSB); GS = ALG"
+                "holds, in its degenerate case: xi'' is constant (no degree above 2), so"
+                " xi''^(-1/2) is affine (concave and convex), alpha = 0 and the solution is"
+                " replica symmetric (no RSB at all); GS = ALG"
                 + (" = sqrt(xi'(1))" if self.q_hat >= 1.0 else "")
             )
         if self.holds:
