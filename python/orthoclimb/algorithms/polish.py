@@ -4,12 +4,12 @@ whether it is a local maximum.
 :func:`polish` runs the Riemannian gradient ascent of :mod:`._riemannian` (Barzilai-Borwein
 steps, nonmonotone Armijo test, retraction x -> x/|x|) until |P grad H(x)|/n <= 0.01 s (or
 ``gtol`` if larger; s the power of two nearest the instance's energy scale, sqrt(xi(1)) of its
-mixture), then damped
-Riemannian Newton steps (:mod:`._newton`: one Hessian pass and a dense Cholesky solve each,
-the system shifted by a multiple of the identity where the point is not near a maximum) until
-|P grad H(x)|/n <= gtol, when the dense Hessian fits in memory (n <= 4000). If Newton stops
-short (no damped step raises the energy, or 40 steps), gradient ascent continues. With gtol
-times s, polishing c H makes the same steps as polishing H.
+mixture), then damped Riemannian Newton steps (:mod:`._newton`: one Hessian pass and a dense
+Cholesky solve each, the system shifted by a multiple of the identity where the point is not
+near a maximum) until |P grad H(x)|/n <= gtol, when the dense Hessian fits in memory
+(n <= 4000). If Newton stops short (no damped step raises the energy, or 40 steps), gradient
+ascent continues. With gtol times c, polishing c H makes the same steps as polishing H, bit
+for bit, when c is a power of two (otherwise the hand-over can fall a step apart).
 
 Gradient ascent alone converges linearly with a rate set by the tangent spectrum, which near
 the marginal maxima that climbers reach extends close to zero. Until December 2026 the polish
