@@ -259,6 +259,23 @@ def test_a_cluster_that_fails_to_close_still_leaves_the_table(tmp_path, monkeypa
     table = pq.read_table(tmp_path / "s" / "results.parquet").to_pylist()
     assert len(table) == len(_spec("0").tasks()) == 4
     assert signal.getsignal(signal.SIGTERM) == before
+    # interrupted, with the same failing close: the interruption goes on (exit 130, not an
+    # error's 1: a review), the failure is a warning, and the rows written so far are tabled
+    real_write = Store.write_row
+    calls = []
+
+    def interrupted_write(self, row):
+        calls.append(row)
+        if len(calls) == 2:
+            raise KeyboardInterrupt
+        return real_write(self, row)
+
+    monkeypatch.setattr(Store, "write_row", interrupted_write)
+    with pytest.warns(RuntimeWarning, match="closing the sweep's cluster failed: TimeoutError"):
+        with pytest.raises(KeyboardInterrupt):
+            run_study(_spec("0-1"), tmp_path / "t", workers=1, progress=False, log=print)
+    table = pq.read_table(tmp_path / "t" / "results.parquet").to_pylist()
+    assert len(table) == 1 and signal.getsignal(signal.SIGTERM) == before
 
 
 def test_a_study_with_results_stays_when_its_scheduler_is_unreachable(tmp_path):

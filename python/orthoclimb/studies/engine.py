@@ -237,27 +237,37 @@ def _interrupts_held():
         raise KeyboardInterrupt
 
 
-def _close(bar, cluster, client, old_term) -> None:
+def _close(bar, cluster, client, old_term, pending: BaseException | None) -> None:
     """Close the progress bar, the embedded cluster and the client, and give SIGTERM back its
-    handler: each step runs even when one before it raises (the first exception goes on).
-    The cluster first: closed the other way round, an interrupted sweep's scheduler could
-    still be telling the closed client about results workers held, which Dask logs as
-    CRITICAL with a traceback (6 runs of 8 once the workers imported orthoclimb at start-up;
-    0 of 8 in this order)."""
-    try:
-        if bar is not None:
-            bar.close()
-    finally:
+    handler: every step runs, whatever the ones before it raised, and then the first error
+    is raised; but while the sweep is already ending with ``pending`` (Ctrl-C, say), an
+    ordinary error in closing is only warned about, so that the interruption goes on (a
+    review: a close that timed out turned exit 130 into exit 1). The cluster first: closed
+    the other way round, an interrupted sweep's scheduler could still be telling the closed
+    client about results workers held, which Dask logs as CRITICAL with a traceback (6 runs
+    of 8 once the workers imported orthoclimb at start-up; 0 of 8 in this order)."""
+    steps = (
+        lambda: bar is not None and bar.close(),
+        lambda: cluster is not None and cluster.close(),
+        lambda: client is not None and client.close(),
+        lambda: old_term is not None and signal.signal(signal.SIGTERM, old_term),
+    )
+    first: BaseException | None = None
+    for step in steps:
         try:
-            if cluster is not None:
-                cluster.close()
-        finally:
-            try:
-                if client is not None:
-                    client.close()
-            finally:
-                if old_term is not None:
-                    signal.signal(signal.SIGTERM, old_term)
+            step()
+        except BaseException as exc:  # noqa: BLE001 - raised (or warned about) below
+            first = exc if first is None else first
+    if first is None:
+        return
+    if pending is not None and isinstance(first, Exception):
+        import warnings
+
+        warnings.warn(
+            f"closing the sweep's cluster failed: {first!r}", RuntimeWarning, stacklevel=3
+        )
+        return
+    raise first
 
 
 def _write_table_after(store: Store, pending: BaseException | None) -> None:
@@ -600,7 +610,7 @@ def _sweep(
             replaced = len(first_workers - _worker_addresses(client))
     finally:
         try:
-            _close(bar, cluster, client, old_term)
+            _close(bar, cluster, client, old_term, sys.exc_info()[1])
         finally:  # also when closing failed: a user trial's interrupted sweeps ended 2 times
             # in 6 without a table, after 10 s in the cluster's close
             # a sweep whose cluster never started takes back what it did to the folder (a
