@@ -11,7 +11,8 @@ The task id is the first 16 hex digits of SHA-256 of the canonical JSON of the c
 
 Row fields (one row per task; energies per spin e = H(x)/n, maximization): ``task_id``,
 ``mixture`` (name), ``gammas`` (text p:gamma,...), ``n``, ``seed``, ``start_seed`` (the start
-point's seed, equal to ``seed``), ``method``, ``options`` (JSON), ``dtype``, ``energy``,
+point's seed, equal to ``seed``), ``method``, ``options`` (JSON), ``steps`` (the work done: K
+for Hessian ascent, iterations for gradient ascent, Langevin steps), ``dtype``, ``energy``,
 ``energy_before_polish`` (Hessian ascent, anneal), ``alg``, ``ground_state`` (Parisi GS; NaN in
 memory, null in the row file and the table, when the solver does not converge), ``gap_alg`` =
 energy - ALG, ``gap_gs`` = energy - GS, ``local_max``, ``grad_norm`` (|P grad H|/n),
