@@ -782,3 +782,15 @@ def test_a_tighter_tolerance_never_ends_above_a_looser_one(gammas):
     assert tight.value >= algorithmic_energy(mixture) - 1e-12
     if tight.looser_tol is not None:  # the lower answer came from the looser solve
         assert not tight.converged and tight.looser_tol == pytest.approx(10 * tight.tol)
+
+
+def test_mixture_ground_state_defaults_to_the_solvers_tolerance():
+    # the default is written out in Mixture (a module-level import would be circular): it must
+    # stay the solver's own, which the studies' reports read as the GS tolerance
+    import inspect
+
+    from orthoclimb.theory import ground_state as solver
+    from orthoclimb.theory.parisi import DEFAULT_TOL
+
+    default = inspect.signature(Mixture.ground_state).parameters["tol"].default
+    assert default == DEFAULT_TOL == inspect.signature(solver).parameters["tol"].default

@@ -53,7 +53,7 @@ import scipy.linalg
 from ..model.hamiltonian import Hamiltonian
 from ._sphere import norm, retract
 
-__all__ = ["NewtonOutcome", "newton_refine"]
+__all__ = ["NewtonOutcome", "newton_refine", "shifted_tangent_matrix"]
 
 _DAMPING = (1.0, 0.5, 0.25, 0.125, 0.0625, 0.03125)
 _ROUNDING = 1e-15  # relative energy change below which a step is no progress
@@ -90,6 +90,22 @@ def radial_shift(a: float, radial: float, scale: float) -> float:
     return a - big + radial
 
 
+def shifted_tangent_matrix(
+    hess: np.ndarray, x: np.ndarray, radial: float
+) -> tuple[np.ndarray, float]:
+    """(A, scale) at the unit vector x from its Hessian ``hess`` (overwritten) and radial =
+    x.grad H: A = P (Hess - radial I) P - big x x^T = Hess - x w^T - w x^T + c x x^T - radial I
+    with w = Hess x, symmetrized, and scale = |Hess H|_inf + |radial| (the max row sum), which
+    sets big = 2 scale (:func:`radial_shift`: relative, since an added 1 swamped a Hessian of
+    scale 1e-20). Newton's steps and the local-maximum check both work with A."""
+    w = hess @ x
+    scale = float(np.abs(hess).sum(axis=1).max()) + abs(radial)
+    c = radial_shift(float(x @ w), radial, scale)
+    hess -= np.outer(x, w) + np.outer(w, x) - c * np.outer(x, x)
+    hess[np.diag_indices(hess.shape[0])] -= radial
+    return 0.5 * (hess + hess.T), scale
+
+
 def newton_refine(
     ham: Hamiltonian, x: np.ndarray, gtol: float, max_steps: int = 8
 ) -> NewtonOutcome:
@@ -110,14 +126,8 @@ def newton_refine(
             break
         hess = ham.hessian(x)
         passes += 1
-        # A = P (Hess - radial I) P - big x x^T = Hess - x w^T - w x^T + c x x^T - radial I
-        w = hess @ x
-        # relative, as in the local-maximum check: an added 1 swamped a Hessian of scale 1e-20
-        scale = float(np.abs(hess).sum(axis=1).max()) + abs(radial)
-        c = radial_shift(float(x @ w), radial, scale)
-        hess -= np.outer(x, w) + np.outer(w, x) - c * np.outer(x, x)
-        hess[np.diag_indices(n)] -= radial
-        hess = -0.5 * (hess + hess.T)  # -A, in place of A: one n x n copy fewer
+        hess, scale = shifted_tangent_matrix(hess, x, radial)
+        np.negative(hess, out=hess)  # -A, in place of A: one n x n copy fewer
         factor, tau, tried = _shifted_cholesky(hess, _SHIFT_FLOOR * scale, hint)
         factorizations += tried
         if factor is None:  # not finite, or no shift made it positive definite

@@ -91,7 +91,7 @@ from ._checks import (
     warn_if_far_scale,
 )
 from ._config import base_config
-from ._newton import newton_refine, radial_shift
+from ._newton import newton_refine, radial_shift, shifted_tangent_matrix
 from ._riemannian import sphere_ascent
 from ._sphere import norm
 from .result import Result, vector_digest
@@ -129,15 +129,7 @@ def tangent_spectrum(ham: Hamiltonian, x: Any) -> dict[str, Any]:
             "exhaustive": n <= _OPERATOR_DENSE_N,
             "grad_norm": norm(tangent_grad) / n,
         }
-    hess = ham.hessian(x)
-    # A = P Hess P - radial P - big x x^T  =  Hess - x w^T - w x^T + c x x^T - radial I.
-    w = hess @ x
-    a = float(x @ w)
-    scale = float(np.abs(hess).sum(axis=1).max()) + abs(radial)
-    c = radial_shift(a, radial, scale)
-    hess -= np.outer(x, w) + np.outer(w, x) - c * np.outer(x, x)
-    hess[np.diag_indices(n)] -= radial
-    hess = 0.5 * (hess + hess.T)
+    hess, scale = shifted_tangent_matrix(ham.hessian(x), x, radial)
     if n <= DENSE_EIGVALS_MAX_N:
         vals = scipy.linalg.eigvalsh(hess)
         exhaustive = True

@@ -415,13 +415,13 @@ def run(args: argparse.Namespace) -> int:
     bar = tqdm(
         total=total, disable=True if quiet else None, unit="step", leave=False
     )  # None: tty only
-    if polish and args.method != "gradient" and total == 0 and not mixture.has_field:
+    if polish and total == 0 and not mixture.has_field:  # polish: never for gradient
         bar.set_description_str("polishing", refresh=True)  # no step: the polish runs first
 
     def progress(row: dict[str, Any]) -> None:
         bar.update(1)
         bar.set_postfix(step=row["step"], q=f"{row['q']:.3f}", energy=f"{row['energy']:.4f}")
-        if polish and args.method != "gradient" and bar.n >= total:  # the polish starts now
+        if polish and bar.n >= total:  # the polish starts now
             bar.set_description_str("polishing", refresh=True)
 
     try:

@@ -326,7 +326,8 @@ class Mixture:
 
     def ground_state(self, tol: float = 1e-6, **kwargs: Any) -> Any:
         """Zero-temperature Parisi ground state to ``tol`` (absolute, energy per spin), the
-        other options passed on; see :func:`orthoclimb.theory.ground_state`."""
+        other options passed on; see :func:`orthoclimb.theory.ground_state` (the default is
+        its ``DEFAULT_TOL``, written out: importing it here would be circular)."""
         from ..theory import ground_state
 
         return ground_state(self, tol, **kwargs)

@@ -33,6 +33,7 @@ from typing import Any
 import numpy as np
 
 from ..fileio import ensure_folder, json_writer, refuse_folder, write_all_atomic
+from ..theory.parisi import DEFAULT_TOL
 from .cost import above_degree, cost_markdown, cost_table
 from .engine import counted
 from .extrapolate import Extrapolation, check_interval, extrapolate
@@ -499,8 +500,8 @@ def _left_out_text(left_out: list[list[int]]) -> str:
     return f"; left out: {sizes}, a fit needs 2 seeds per size"
 
 
-# the tolerance of the ground states the report computes (theory.ground_state's default)
-_GS_TOL = 1e-6
+# the tolerance of the ground states the report computes (theory_values: the default)
+_GS_TOL = DEFAULT_TOL
 
 
 def _theory_finding(name: str, th: dict[str, Any]) -> str:

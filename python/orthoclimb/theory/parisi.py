@@ -79,7 +79,18 @@ from ._parisi_moves import (
 )
 from .algorithmic import algorithmic_energy
 
-__all__ = ["TOL_FLOOR", "GroundState", "ground_state", "parisi_functional", "parisi_gradient"]
+__all__ = [
+    "DEFAULT_TOL",
+    "TOL_FLOOR",
+    "GroundState",
+    "ground_state",
+    "parisi_functional",
+    "parisi_gradient",
+]
+
+# ground_state's tolerance unless told otherwise (absolute, energy per spin); the studies'
+# reports compute GS to it
+DEFAULT_TOL = 1e-6
 
 
 # The smallest tolerance of ground_state relative to s = sqrt(xi'(1)), the scale of GS. The
@@ -232,7 +243,7 @@ class GroundState:
 
 def ground_state(
     mixture: Mixture,
-    tol: float = 1e-6,
+    tol: float = DEFAULT_TOL,
     *,
     initial_steps: int = 8,
     max_steps: int = 4096,
