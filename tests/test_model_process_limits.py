@@ -18,9 +18,9 @@ MiB = 2**20
 _CHILD = """
 import resource
 import orthoclimb as oc
-from orthoclimb.model.process_limits import address_space_headroom, _status_bytes
+from orthoclimb.model.process_limits import address_space_headroom, status_bytes
 limit, field, room = resource.{limit}, "{field}", {room} * 2**20
-resource.setrlimit(limit, (_status_bytes()[field] + room, resource.RLIM_INFINITY))
+resource.setrlimit(limit, (status_bytes()[field] + room, resource.RLIM_INFINITY))
 print(address_space_headroom(), oc.available_memory(), room)
 {extra}
 """

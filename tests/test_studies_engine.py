@@ -68,7 +68,9 @@ def test_lowered_requests_are_reported_never_silent():
     tight = plan_workers(8, 100, workers=8, memory_per_task=10, memory=45)
     assert tight.workers == 2
     (note,) = _reduced_requests(tight, 8, None, cores=8, pending=100)
-    assert note.endswith("here: the memory for two instances per running task)"), note
+    assert note.endswith(
+        "here: the memory for each worker process and two instances per running task)"
+    ), note
     # 3 cores, 2 tasks: 2 workers of 1 thread leave a core idle; the note claims no more
     (note,) = _reduced_requests(plan_workers(3, 2), None, 4, cores=3, pending=2)
     assert note == "note: --threads 4 lowered to 1, the share of each of 2 workers in 3 cores"

@@ -145,11 +145,19 @@ def mixture_from(args: argparse.Namespace) -> Mixture:
     return Mixture.parse(text, squared=args.xi is not None)
 
 
+_ENVIRONMENT = """environment:
+  ORTHOCLIMB_NUM_THREADS   kernel threads (default: all cores; --threads overrides)
+  ORTHOCLIMB_MEMORY_LIMIT  the most memory a run may hold, e.g. 8GiB or 500MB (default: what
+                           the machine, the job's cgroup and ulimit -v leave)"""
+
+
 def build_parser() -> argparse.ArgumentParser:
     parser = argparse.ArgumentParser(
         prog="orthoclimb",
         description="Random polynomials on the sphere: sample, evaluate, optimize, compare "
         "with the theory.",
+        epilog=_ENVIRONMENT,
+        formatter_class=argparse.RawDescriptionHelpFormatter,
     )
     from .. import __version__
 

@@ -380,6 +380,7 @@ def run(args: argparse.Namespace) -> int:
         say(_sampling_text(probe, seconds, need))
         scale = need / probe.nbytes
         say(_run_estimate(probe, args.method, steps, polish, args.n, scale, start)[0])
+        del probe  # freed before the memory check, which counts this process's own memory
         # a trial's plans varied 3-5x under load; a plan's timing takes milliseconds, so the
         # load is read over half a second (the plan waits out the rest)
         busy = busy_note(load.stop(settle=0.5), "the plan", get_num_threads())

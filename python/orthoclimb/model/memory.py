@@ -20,6 +20,7 @@ from .arrays import as_flag
 from .cgroup_memory import cgroup_headroom
 from .mixture import Mixture
 from .process_limits import address_space_headroom
+from .user_limit import ENV_VAR, user_headroom, user_memory_limit
 
 DTYPES = {"float64": 8, "float32": 4}
 
@@ -116,8 +117,14 @@ def available_memory() -> int:
     """Bytes available for new allocations: what the kernel reports for the machine
     (MemAvailable on Linux), or less where a limit allows less: the headroom under this
     process's cgroup memory limit (a batch job's or container's limit; see ``cgroup_memory``)
-    and under its address-space and data limits (``ulimit -v``; see ``process_limits``)."""
-    rooms = [machine_available_memory(), cgroup_headroom(), address_space_headroom()]
+    and under its address-space and data limits (``ulimit -v``; see ``process_limits``), and
+    the headroom under the user's own ``ORTHOCLIMB_MEMORY_LIMIT`` (see ``user_limit``)."""
+    rooms = [
+        machine_available_memory(),
+        cgroup_headroom(),
+        address_space_headroom(),
+        user_headroom(),
+    ]
     return min(room for room in rooms if room is not None)
 
 
@@ -151,7 +158,14 @@ def require_memory(
 
 def binding_limit(have: int) -> str:
     """Which limit leaves only ``have`` bytes, as words for a message (" under this job's
-    cgroup memory limit"), or "" when it is the machine's own memory."""
+    cgroup memory limit"), or "" when it is the machine's own memory. The user's own limit is
+    named first where several leave the same room."""
+    room, limit = user_headroom(), user_memory_limit()
+    if room is not None and limit is not None and room <= have:
+        text, held = os.environ[ENV_VAR].strip(), format_bytes(limit - room)
+        if text.isdigit():  # a worker's share is written in bytes
+            text += f" ({format_bytes(limit)})"
+        return f" under {ENV_VAR}={text}, of which this process holds {held}"
     room = address_space_headroom()
     if room is not None and room <= have:
         return " under this process's address-space or data limit (ulimit -v or -d)"

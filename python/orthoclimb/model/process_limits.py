@@ -20,7 +20,7 @@ from __future__ import annotations
 __all__ = ["address_space_headroom"]
 
 
-def _status_bytes() -> dict[str, int]:
+def status_bytes() -> dict[str, int]:
     """The "Vm..." lines of /proc/self/status (in kB there) in bytes, by field name; empty
     when the file cannot be read. Read as bytes: its Name line is the process's name as the
     kernel has it, which need not be ASCII or UTF-8 (a script named análisis.py)."""
@@ -55,6 +55,6 @@ def address_space_headroom() -> int | None:
             limits.append((soft, field))
     if not limits:
         return None  # the common case: /proc is not read at all
-    used = _status_bytes()
+    used = status_bytes()
     rooms = [max(soft - used[field], 0) for soft, field in limits if field in used]
     return min(rooms) if rooms else None

@@ -75,14 +75,16 @@ def plan_workers(
     workers: int | None = None,
     memory_per_task: int | None = None,
     memory: int | None = None,
+    worker_memory: int = 0,
 ) -> WorkerPlan:
     """Choose worker processes and threads for ``cores`` cores.
 
     Policy: one task per worker at a time (dask_threads = 1: the Python parts of an algorithm
     hold the GIL, so processes, not threads, give task parallelism); as many workers as cores
     (many small tasks scale best across processes), but no more than the number of ``tasks``,
-    than ``workers`` if given, nor than ``memory // (2 memory_per_task)`` (each running task
-    holds one instance plus working copies); the cores left go to rayon inside each task:
+    than ``workers`` if given, nor than ``memory // (2 memory_per_task + worker_memory)`` (each
+    running task holds one instance plus working copies, and each worker process its own
+    Python, NumPy and Dask, ``worker_memory``); the cores left go to rayon inside each task:
     rayon_threads = cores // workers. Always workers x dask_threads x rayon_threads <= cores.
     """
     if isinstance(cores, bool) or not isinstance(cores, int) or cores < 1:
@@ -95,7 +97,8 @@ def plan_workers(
     if tasks is not None:
         limit = min(limit, max(1, int(tasks)))
     if memory_per_task and memory:
-        limit = min(limit, max(1, int(memory // (2 * memory_per_task))))
+        per_worker = 2 * memory_per_task + max(0, worker_memory)
+        limit = min(limit, max(1, int(memory // per_worker)))
     n_workers = max(1, limit)
     return WorkerPlan(n_workers, 1, max(1, cores // n_workers))
 
@@ -117,7 +120,7 @@ def _reduced_requests(
         if pending < workers:
             bounds.append(f"{counted(pending, 'task')} to run")
         if plan.workers < min(cores, pending, workers):
-            bounds.append("the memory for two instances per running task")
+            bounds.append("the memory for each worker process and two instances per running task")
         notes.append(
             f"note: --workers {workers} lowered to {plan.workers} (at most one worker per core,"
             f" per task and per memory share; here: {', '.join(bounds)})"
@@ -335,9 +338,18 @@ def _check_largest_fits(spec: StudySpec, tasks: list[Task]) -> None:
     from ..errors import InsufficientMemoryError
     from ..model import available_memory
     from ..model.memory import binding_limit, format_bytes
+    from ..model.user_limit import ENV_VAR, resident_memory, user_headroom
     from .estimate import largest_instance
 
     need, name, n = largest_instance(spec, tasks)
+    room, own = user_headroom(), resident_memory()
+    if room is not None and need + own > room:
+        raise InsufficientMemoryError(
+            f"the study's largest instance ({name}, n = {n}) needs {format_bytes(need)} of"
+            f" coefficients and a worker process about {format_bytes(own)} of its own (as much"
+            f" as this one holds), but {ENV_VAR}={os.environ[ENV_VAR].strip()} leaves"
+            f" {format_bytes(room)}; raise the limit or drop that size"
+        )
     have = available_memory()
     if need > have:
         raise InsufficientMemoryError(
@@ -506,11 +518,14 @@ def _sweep(
             return SweepOutcome(len(tasks), skipped, 0, 0, 0.0, None, None)
         if scheduler is None:
             from ..model import available_memory
+            from ..model.user_limit import resident_memory
             from .estimate import largest_instance
 
             biggest = largest_instance(spec, pending)[0]
             cores, memory = available_cores(), available_memory()
-            plan = plan_workers(cores, len(pending), workers, biggest, memory)
+            # a worker holds about what this process holds before its tasks
+            own = resident_memory()
+            plan = plan_workers(cores, len(pending), workers, biggest, memory, own)
             if threads is not None:
                 plan = WorkerPlan(plan.workers, 1, min(threads, plan.rayon_threads))
             for note in _reduced_requests(plan, workers, threads, cores, len(pending)):
