@@ -20,8 +20,8 @@ test-python:
 bench:            ## kernel benchmark; writes bench/results/kernels.json
 	$(PY) bench/kernels.py
 
-bench-quick:
-	$(PY) bench/kernels.py --quick
+bench-quick:      ## smoke run of the benchmark; writes bench/results/quick.json (not kernels.json)
+	$(PY) bench/kernels.py --quick --out bench/results/quick.json
 
 lint:
 	cargo fmt --check
