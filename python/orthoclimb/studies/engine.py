@@ -13,9 +13,13 @@ Tasks that share an instance (the methods of one mixture, n and seed) go to Dask
 future that samples it once (:func:`~orthoclimb.studies.tasks.instance_groups`; with fewer
 instances than workers an instance's tasks are cut into as many groups as keep the workers
 busy): sampling took 27 % of a three-method study's compute at n <= 300 when each task
-sampled its own. A group's rows are written when it ends, so a killed driver or worker loses
-the running groups' finished tasks too; a method that raises fails its own task only
-(without a retry), and a failed sampling fails the group (after Dask's retries).
+sampled its own. The workers of the embedded cluster write each row of a group as its task
+ends (:func:`~orthoclimb.studies.store.write_completed_row`; the driver's write of the same
+row then finds it done), so a killed driver or worker loses only the running tasks; with an
+external scheduler, whose workers may not see the study folder, a group's rows reach the
+folder when the group ends, and a killed driver loses the running groups' finished tasks
+too. A method that raises fails its own task only (without a retry), and a failed sampling
+fails the group (after Dask's retries).
 
 Thread sizing. Each worker process runs one task at a time (one Dask thread) and gives its
 kernels ``rayon`` threads, with workers x dask_threads x rayon <= cores, so the two levels of
@@ -38,7 +42,6 @@ from typing import Any
 
 from .._core import MAX_THREADS as _MAX_THREADS
 from .grid import StudySpec
-from .points import write_point
 from .store import Store, sweep_lock
 from .tasks import Task, instance_groups, run_instance_tasks
 
@@ -556,6 +559,9 @@ def _sweep(
             slots = 1
         by_key: dict[str, list[Task]] = {}
         futures = []
+        # the embedded cluster's workers share this machine's folder: they write each row as
+        # its task ends, so a Ctrl-C in the middle of a group keeps its finished tasks
+        rows_folder = str(store.folder.resolve()) if cluster is not None else None
         for group in instance_groups(pending, slots):
             first = group[0].task_id
             fut = client.submit(
@@ -563,6 +569,7 @@ def _sweep(
                 group,
                 task_threads,
                 keep_points,
+                rows_folder,
                 # one task alone keeps the key it always had
                 key=f"orthoclimb-{first}" + (f"-and-{len(group) - 1}" if len(group) > 1 else ""),
                 retries=retries,
@@ -611,11 +618,7 @@ def _sweep(
                     store.write_failure(task.task_id, task.config(), value)
                     failed += 1
                     continue
-                point = value.pop("end_point", None)
-                if point is not None and not store.row_path(task.task_id).exists():
-                    write_point(store.folder, task.task_id, point)  # first: a row naming a
-                    # point has it
-                store.write_row(value)
+                store.write_row(value)  # (and its point; the local worker may have written both)
                 done += 1
             bar.update(len(group))
             show()

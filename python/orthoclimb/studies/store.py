@@ -65,6 +65,7 @@ __all__ = [
     "StudyMismatchError",
     "SweepRunningError",
     "read_config",
+    "write_completed_row",
 ]
 
 FORMAT = 1
@@ -186,6 +187,30 @@ def _record_growth(meta: Path, data: dict, config: dict) -> None:
         start["mixture_sizes"] = own
     history.append({"at": stamp, "from": start})
     write_json_atomic(meta, {**data, "config": config, "extended": history})
+
+
+def write_completed_row(folder: str | os.PathLike, row: dict[str, Any]) -> bool:
+    """Write the row of a completed task into the study folder ``folder`` atomically, and
+    first its end point where the row holds one (``end_point``, which the row file leaves
+    out), and remove the task's failure record; False (and no write) if its row exists. The
+    sweep's driver writes each row it receives with it, and so do the workers of its embedded
+    cluster (same machine, same folder) as each task ends, so that a sweep stopped in the
+    middle of a group of tasks keeps the group's finished rows."""
+    from .points import write_point
+
+    folder = Path(folder)
+    path = folder / "rows" / f"{row['task_id']}.json"
+    if path.exists():
+        return False
+    point = row.get("end_point")
+    if point is not None:  # first: a row naming a point has it
+        write_point(folder, row["task_id"], point)
+    payload = {key: value for key, value in row.items() if key != "end_point"}
+    write_json_atomic(path, envelope(ROW_FORMAT, ROW_FORMAT_VERSION, payload))
+    failed = folder / "failed" / path.name
+    if failed.exists():
+        failed.unlink()
+    return True
 
 
 def read_config(folder: str | os.PathLike) -> StudySpec:
@@ -496,15 +521,9 @@ class Store:
         return [t for t in tasks if t.task_id not in done]
 
     def write_row(self, row: dict[str, Any]) -> bool:
-        """Write the row of a completed task atomically; False (and no write) if it exists."""
-        path = self.row_path(row["task_id"])
-        if path.exists():
-            return False
-        write_json_atomic(path, envelope(ROW_FORMAT, ROW_FORMAT_VERSION, row))
-        failed = self.failed_dir / path.name
-        if failed.exists():
-            failed.unlink()
-        return True
+        """Write the row of a completed task atomically (:func:`write_completed_row`); False
+        (and no write) if it exists."""
+        return write_completed_row(self.folder, row)
 
     def write_failure(self, task_id: str, config: dict, error: str) -> None:
         write_json_atomic(

@@ -162,7 +162,10 @@ def run_task(task: Task, threads: int | None = None, keep_point: bool = False) -
 
 
 def run_instance_tasks(
-    tasks: list[Task], threads: int | None = None, keep_point: bool = False
+    tasks: list[Task],
+    threads: int | None = None,
+    keep_point: bool = False,
+    rows_folder: str | None = None,
 ) -> list[tuple[str, Any]]:
     """Run ``tasks``, which share one instance (:func:`instance_key`), on one sampling of it.
 
@@ -170,7 +173,11 @@ def run_instance_tasks(
     ``sample_shared_by = len(tasks)``) or ``("error", "Type: message")`` when its method
     raised: one method's failure is its task's alone, the others' rows are kept. A failure
     to sample raises, for every task (a sweep has Dask retry the group). ``threads`` and
-    ``keep_point`` as in :func:`run_task`.
+    ``keep_point`` as in :func:`run_task`. ``rows_folder``: a study folder this process can
+    write, into which each row (and its end point) goes as soon as its task ends
+    (:func:`~orthoclimb.studies.store.write_completed_row`; a row returned after it was
+    written there has no ``end_point``); a failed write is left to the caller, who writes
+    the returned row again.
     """
     if not tasks:
         return []
@@ -184,10 +191,26 @@ def run_instance_tasks(
     out: list[tuple[str, Any]] = []
     for task in tasks:
         try:
-            out.append(("row", _run_on(task, ham, seconds, len(tasks), keep_point)))
+            row = _run_on(task, ham, seconds, len(tasks), keep_point)
         except Exception as exc:  # noqa: BLE001 - recorded as this task's failure
             out.append(("error", f"{type(exc).__name__}: {exc}"))
+            continue
+        if rows_folder is not None:
+            _write_now(rows_folder, row)
+        out.append(("row", row))
     return out
+
+
+def _write_now(folder: str, row: dict[str, Any]) -> None:
+    """Write ``row`` into the study folder now; on an OSError leave it whole to the caller
+    (whose write of it then names the problem)."""
+    from .store import write_completed_row
+
+    try:
+        write_completed_row(folder, row)
+    except OSError:
+        return
+    row.pop("end_point", None)  # written: it need not travel back
 
 
 def _set_threads(threads: int | None) -> None:
