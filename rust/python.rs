@@ -166,7 +166,9 @@ fn run_kernel<T: Send + KernelResult>(
 }
 
 fn not_c_contiguous(name: &str) -> PyErr {
-    PyValueError::new_err(format!("{name} must be a C-contiguous float64 array"))
+    PyValueError::new_err(format!(
+        "{name} must be a C-contiguous, aligned float64 array"
+    ))
 }
 
 fn slice1<'a>(a: &'a PyReadonlyArray1<'_, f64>, name: &str) -> PyResult<&'a [f64]> {

@@ -220,3 +220,15 @@ def test_xi_text_reads_back_as_the_polynomial_xi(text, squared, shown):
         p = int(power.partition("^")[2] or 1)
         back += float(coeff or 1.0) * q**p
     np.testing.assert_allclose(back, m.xi(q), rtol=1e-6)
+
+
+def test_from_dict_refuses_a_degree_given_twice_or_not_in_digits():
+    # a user trial: {"2": 1.0, "02": 2.0} kept the last value without a word, while the
+    # constructor and Mixture.parse refuse a degree given twice
+    for data in ({"2": 1.0, "02": 2.0}, {2: 1.0, "2": 2.0}):
+        with pytest.raises(MixtureError, match="degree p = 2 is given twice"):
+            Mixture.from_dict(data)
+    for key in ("٢", "0_2", "2.0", ""):
+        with pytest.raises(MixtureError, match=f"must be written in digits, got {key!r}"):
+            Mixture.from_dict({key: 1.0})
+    assert Mixture.from_dict({"2": 1.0, " 4 ": 0.5}) == Mixture({2: 1.0, 4: 0.5})

@@ -51,6 +51,31 @@ def test_integer_and_strided_points_are_converted(ham):
     np.testing.assert_array_equal(ham.energy(fortran), ham.energy(np.ascontiguousarray(fortran)))
 
 
+def _unaligned(a: np.ndarray) -> np.ndarray:
+    """A C-contiguous float64 view of a copy of ``a`` at an odd byte offset (unaligned)."""
+    out = np.frombuffer(
+        b"\0" + np.ascontiguousarray(a, dtype=np.float64).tobytes(), np.float64, offset=1
+    ).reshape(a.shape)
+    assert out.flags.c_contiguous and not out.flags.aligned
+    return out
+
+
+def test_unaligned_contiguous_arrays_are_copied_not_refused(ham):
+    # a user trial: np.frombuffer at an odd offset is C-contiguous but unaligned, and every
+    # kernel refused it as "must be a C-contiguous float64 array"
+    x = np.linspace(-1, 1, N)
+    xs = np.stack([x, -x])
+    ux, uxs = _unaligned(x), _unaligned(xs)
+    assert ham.energy(ux) == ham.energy(x)
+    np.testing.assert_array_equal(ham.energy(uxs), ham.energy(xs))
+    np.testing.assert_array_equal(ham.gradient(ux), ham.gradient(x))
+    np.testing.assert_array_equal(ham.hessian(ux), ham.hessian(x))
+    np.testing.assert_array_equal(ham.hvp(ux, ux), ham.hvp(x, x))
+    np.testing.assert_array_equal(ham.hvp(x, _unaligned(xs.T)), ham.hvp(x, xs.T))
+    given = {p: _unaligned(ham.coefficients(p)) for p in ham.mixture.degrees}
+    assert oc.Hamiltonian.from_coefficients(N, given).energy(x) == ham.energy(x)
+
+
 def test_bad_directions(ham):
     x = np.ones(N)
     with pytest.raises(ShapeError, match=r"\(6, k\)"):

@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import argparse
+import re
 
 import numpy as np
 import pytest
@@ -569,3 +570,22 @@ def test_hessian_start_keeps_the_ids_and_configuration_of_runs_it_did_not_change
     # took it, as the field's first stage sets the start)
     with pytest.raises(ValueError, match="start='top' needs a degree-2 term"):
         spec_from_flags(["1:0.5,3:1"], None, "20", "0", "hessian", {"hessian": {"start": "top"}})
+
+
+def test_numpy_integers_are_integers_and_digits_are_ascii():
+    # a user trial: parse_seeds(np.arange(3)) said "seeds must be integers, got np.int64(0)",
+    # while "1_0" and other scripts' digits were read as numbers (Mixture.parse refuses them)
+    assert parse_seeds(np.arange(3)) == (0, 1, 2)
+    assert parse_sizes(np.array([30, 20], dtype=np.int32)) == (20, 30)
+    with pytest.raises(TypeError, match="seeds must be integers, got 1.0"):
+        parse_seeds([0, 1.0])
+    with pytest.raises(TypeError, match="sizes must be integers, got np.True_"):
+        parse_sizes(np.array([True]))
+    for text in ("1_0", "٣", "+3", "3.0"):
+        with pytest.raises(ValueError, match=re.escape(f"seed {text!r} in {text!r} is not an")):
+            parse_seeds(text)
+        with pytest.raises(ValueError, match=re.escape(f"size {text!r} in {text!r} is not an")):
+            parse_sizes(text)
+    # the exponent as text, as the command line reads it
+    spec = spec_from_flags(["3:1"], None, "20", np.array([0, 1]), "hessian", exponent="2/3")
+    assert spec.exponent == 2 / 3 and spec.seeds == (0, 1)

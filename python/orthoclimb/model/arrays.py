@@ -56,7 +56,8 @@ def real_array(a: object, name: str) -> np.ndarray:
 
 
 def as_float_array(a: object, name: str) -> np.ndarray:
-    """A C-contiguous float64 copy or view of `a`, finite. Integers are converted; the rest
+    """A C-contiguous, aligned float64 copy or view of `a`, finite. Integers are converted
+    (and an unaligned view copied); the rest
     of :func:`real_array`'s refusals apply, and a value that is finite but beyond float64's
     range (a long double) is named as such rather than as the infinity it would become."""
     arr = real_array(a, name)
@@ -65,6 +66,8 @@ def as_float_array(a: object, name: str) -> np.ndarray:
             out = np.asarray(arr, dtype=np.float64, order="C")
     else:  # (no errstate on the common path: it costs about 1 us a call)
         out = np.asarray(arr, dtype=np.float64, order="C")
+    if not out.flags.aligned:  # a view at an odd byte offset: the core reads aligned slices
+        out = out.copy()
     if not np.isfinite(out).all():
         bad = np.argwhere(~np.isfinite(out))[0]
         where = tuple(int(i) for i in bad)

@@ -56,6 +56,18 @@ def _check_gamma(p: int, gamma: Any, what: str = "gamma") -> float:
     return value
 
 
+def _degree_key(key: object) -> object:
+    """A degree as a mapping key: a string of ASCII digits ('2', as to_dict writes it; blanks
+    around it allowed) as its
+    int, anything else as it is (the constructor checks it); other text is a MixtureError."""
+    if not isinstance(key, str):
+        return key
+    digits = key.strip()
+    if not (digits.isascii() and digits.isdigit()):
+        raise MixtureError(f"a degree must be written in digits, got {key!r}")
+    return int(digits)
+
+
 class Mixture:
     """A mixture {p: gamma_p}: degrees 1..8 with nonnegative weights gamma_p (not squared).
 
@@ -272,8 +284,9 @@ class Mixture:
         """Inverse of :meth:`to_dict`."""
         try:
             # keys as to_dict writes them ('2'); a float key such as 2.7 is refused by the
-            # constructor, not truncated to 2
-            return cls({int(k) if isinstance(k, str) else k: v for k, v in data.items()})
+            # constructor, not truncated to 2; pairs, not a dict, so that '2' and '02' are
+            # refused as one degree given twice (a user trial: the last one won)
+            return cls([(_degree_key(k), v) for k, v in data.items()])
         except (AttributeError, ValueError, TypeError) as exc:
             if isinstance(exc, MixtureError):
                 raise

@@ -16,6 +16,8 @@ from dataclasses import dataclass
 from pathlib import Path
 from typing import Any
 
+import numpy as np
+
 from ..algorithms._checks import MAX_STEPS
 from ..model import Mixture
 
@@ -120,10 +122,20 @@ MAX_TASKS = 100_000
 
 
 def _int_token(text: str, what: str, whole: str) -> int:
-    try:
-        return int(text.strip())
-    except ValueError:
-        raise ValueError(f"{what} {text.strip()!r} in {whole!r} is not an integer") from None
+    """An integer written in ASCII digits (with an optional minus sign); int() alone also read
+    '1_0' as 10 and other scripts' digits, which Mixture.parse refuses (a user trial)."""
+    body = text.strip()
+    digits = body[1:] if body.startswith("-") else body
+    if not (digits.isascii() and digits.isdigit()):
+        raise ValueError(f"{what} {body!r} in {whole!r} is not an integer")
+    return int(body)
+
+
+def _given_int(value: object, what: str) -> int:
+    """An integer of a list (Python or NumPy; not bool) as a Python int, or a TypeError."""
+    if isinstance(value, bool) or not isinstance(value, (int, np.integer)):
+        raise TypeError(f"{what} must be integers, got {value!r}")
+    return int(value)
 
 
 def parse_seeds(text: str | Iterable[int]) -> tuple[int, ...]:
@@ -168,11 +180,7 @@ def parse_seeds(text: str | Iterable[int]) -> tuple[int, ...]:
             raise TypeError(
                 f"seeds must be text like '0-19' or a list of integers, got {text!r}"
             ) from None
-        seeds = []
-        for s in items:
-            if isinstance(s, bool) or not isinstance(s, int):
-                raise TypeError(f"seeds must be integers, got {s!r}")
-            seeds.append(s)
+        seeds = [_given_int(s, "seeds") for s in items]
         if not seeds:
             raise ValueError("the list of seeds is empty")
     bad = [s for s in seeds if s < 0 or s >= 2**63]
@@ -216,11 +224,7 @@ def parse_sizes(text: str | Iterable[int]) -> tuple[int, ...]:
             raise ValueError("sizes are empty; expected e.g. '100,200,400'")
         sizes = [_int_token(t, "size", text) for t in text.split(",")]
     else:
-        sizes = []
-        for s in text:
-            if isinstance(s, bool) or not isinstance(s, int):
-                raise TypeError(f"sizes must be integers, got {s!r}")
-            sizes.append(s)
+        sizes = [_given_int(s, "sizes") for s in text]
     if not sizes:
         raise ValueError("the list of sizes is empty")
     for s in sizes:
@@ -480,10 +484,11 @@ def spec_from_flags(
     seeds: str,
     methods: str,
     method_options: Mapping[str, Mapping[str, Any]] | None = None,
-    exponent: float = DEFAULT_EXPONENT,
+    exponent: float | str = DEFAULT_EXPONENT,
     dtype: str = "float64",
 ) -> StudySpec:
-    """Build a study from the ``sweep`` flags (each ``--gammas``/``--xi`` adds a mixture)."""
+    """Build a study from the ``sweep`` flags (each ``--gammas``/``--xi`` adds a mixture);
+    ``exponent`` a number or text as :func:`parse_exponent` reads it ("2/3")."""
     given = [(f"--gammas {t}", Mixture.parse(t)) for t in gammas or []]
     given += [(f"--xi {t}", Mixture.parse(t, squared=True)) for t in xi or []]
     if not given:
@@ -498,7 +503,7 @@ def spec_from_flags(
         parse_sizes(sizes),
         parse_seeds(seeds),
         parse_methods(methods, method_options),
-        float(exponent),
+        parse_exponent(exponent) if isinstance(exponent, str) else float(exponent),
         dtype=dtype,
     )
 
