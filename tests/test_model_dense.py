@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import itertools
+import math
 
 import numpy as np
 import pytest
@@ -114,3 +115,23 @@ def test_a_finite_tensor_whose_packed_coefficient_overflows_names_the_tensor():
         warnings.simplefilter("error")
         with pytest.raises(ValueError, match=r"degree-2 tensor's entry at \(0, 1\) times its"):
             oc.Hamiltonian.from_dense({2: np.full((4, 4), 1e308)})
+
+
+def test_tensors_near_float64s_top_symmetrize_without_overflow_warnings():
+    # a user trial: the symmetry check and the average overflowed in their sums and let
+    # NumPy's RuntimeWarning through, though the average itself is within range
+    import warnings
+
+    from orthoclimb.model.dense import max_asymmetry, symmetrized
+
+    t = np.array([[0.0, 1.5e308], [1e308, 0.0]])
+    with warnings.catch_warnings():
+        warnings.simplefilter("error")
+        assert max_asymmetry(np.array([[0.0, 1e308], [-1e308, 0.0]])) == math.inf
+        np.testing.assert_array_equal(symmetrized(t), [[0.0, 1.25e308], [1.25e308, 0.0]])
+        zero = oc.Hamiltonian.from_dense(
+            {2: np.array([[0.0, 1e308], [-1e308, 0.0]])}, symmetrize=True
+        )
+        np.testing.assert_array_equal(zero.coefficients(2), [0.0, 0.0, 0.0])
+        with pytest.raises(ValueError, match="overflows float64"):  # 2 x 1.25e308 does
+            oc.Hamiltonian.from_dense({2: t}, symmetrize=True)

@@ -302,3 +302,27 @@ def test_pooled_variances_keep_a_size_of_ties_from_taking_the_weight():
     assert not own.low <= unweighted <= own.high and own.high - own.low < 0.007
     assert pooled.low <= unweighted <= pooled.high
     assert abs(pooled.value - unweighted) < 0.25 * (pooled.high - pooled.low)
+
+
+def test_the_fit_does_not_depend_on_the_scale_of_the_samples():
+    # a user trial: samples of 1e308 gave e_inf = NaN with se = 0 (the squares overflowed),
+    # and tiny samples weights beyond float64. Scaling the samples by a power of two is exact,
+    # so every result scales by it bit for bit (and fit_p, chi2 and t_dof stay put)
+    sizes = [20, 40, 80, 160]
+    rng = np.random.default_rng(3)
+    samples = [-0.7 + 0.3 * n ** (-2 / 3) + 0.05 * rng.standard_normal(4) for n in sizes]
+    base = extrapolate(sizes, samples)
+    for k in (-1000, -600, 600, 1000):
+        ex = extrapolate(sizes, [s * 2.0**k for s in samples])
+        for name in ("value", "low", "high", "se", "slope"):
+            assert getattr(ex, name) == getattr(base, name) * 2.0**k, (k, name)
+        assert (ex.chi2, ex.fit_p, ex.t_dof) == (base.chi2, base.fit_p, base.t_dof)
+    with pytest.raises(ValueError, match="as large as 1e\\+308 leaves float64's range"):
+        extrapolate([20, 40, 80], [[1e308, -1e308], [1e308, 1e308], [1.0, 1.0]])
+
+
+def test_boolean_samples_and_a_negative_seed_are_refused():
+    with pytest.raises(ValueError, match="the samples at n = 20 are booleans, not energies"):
+        extrapolate([20, 40, 80], [[True, False]] * 3)
+    with pytest.raises(ValueError, match="seed must be an integer >= 0 .* got -1"):
+        extrapolate([20, 40, 80], [[1.0, 2.0]] * 3, seed=-1)

@@ -155,6 +155,10 @@ def test_profile_refuses_before_timing_or_printing_its_plan(tmp_path, capsys):
         assert main(args) == 2
         err = capsys.readouterr().err
         assert "error:" in err and "profile: n =" not in err and "done in" not in err
+    # a user trial: --repeats 100000000 printed its plan and timed on without an end in sight
+    args = ["profile", "--gammas", "3:1", "--n", "50,60", "--repeats", "1001"]
+    assert main([*args, "--out", str(tmp_path / "p")]) == 2
+    assert "--repeats must be in 1..1000, got 1001" in capsys.readouterr().err
 
 
 def test_profile_notes_threads_beyond_the_cores(tmp_path, capsys):

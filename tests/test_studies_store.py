@@ -208,3 +208,24 @@ def test_a_study_of_random_starts_refuses_the_new_start_and_says_how_to_resume(t
     with pytest.raises(StudyMismatchError, match='resume it with start = "random"'):
         Store.open(tmp_path / "s", new)
     Store.open(tmp_path / "s", old)  # resumes
+
+
+@pytest.mark.parametrize(
+    ("field", "good", "bad"), [("local_max", True, "yes"), ("seconds_run", 1.5, "x")]
+)
+def test_a_row_value_of_another_kind_than_its_column_is_named(tmp_path, field, good, bad):
+    # a user trial: an edited row ("local_max": "yes" among booleans) stopped the table with
+    # Arrow's "Could not convert 'yes' with type str", naming neither the file nor the field
+    spec = _spec(seeds=(0, 1, 2))
+    store = Store.open(tmp_path / "s", spec)
+    first, second, third = spec.tasks()
+    for task, value in ((first, good), (second, bad), (third, good)):
+        store.write_row(_row(task, **{field: value}))
+    path = store.row_path(second.task_id)
+    with pytest.raises(ValueError) as info:
+        store.write_table()
+    assert str(info.value) == (
+        f"the row file {str(path)!r} has {field} = {bad!r}, where the other rows have"
+        f" {'bool' if field == 'local_max' else 'number'}s; delete it and rerun the sweep to"
+        " redo that task"
+    )

@@ -287,3 +287,10 @@ def test_a_tiny_scale_prints_gs_only_to_the_digits_its_tolerance_holds(capsys):
     assert main(["theory", "--gammas", "1:5e-9,3:1e-8", "--tol", "1e-19"]) == 0
     gs = ground_state(Mixture.parse("1:0.5,3:1"), 1e-11).value * 1e-8
     assert f"GS (Parisi)  {gs:.9e}"[:-5] in capsys.readouterr().out
+
+
+@pytest.mark.parametrize("path", ["", "  "])
+def test_an_empty_plot_path_is_an_error_not_ignored(path, capsys):
+    # a user trial: --plot "" printed the theory, drew nothing and exited 0
+    assert main(["theory", "--gammas", "3:1", "--plot", path]) == 2
+    assert f"--plot must name a file, got {path!r}" in capsys.readouterr().err

@@ -26,7 +26,7 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
         "--repeats",
         type=int,
         default=3,
-        help="timed calls per kernel and size, best kept (default 3)",
+        help="timed calls per kernel and size, best kept (default 3, at most 1000)",
     )
     parser.add_argument(
         "--threads",

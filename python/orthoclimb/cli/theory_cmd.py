@@ -263,6 +263,8 @@ def run(args: argparse.Namespace) -> int:
     mixture = mixture_from(args)
     if not (math.isfinite(args.tol) and args.tol > 0):
         raise ValueError(f"--tol must be a positive number, got {args.tol!r}")
+    if args.plot is not None and not args.plot.strip():  # "" was ignored without a word
+        raise ValueError(f"--plot must name a file, got {args.plot!r}")
     if args.plot:
         _check_plot_path(args.plot)
     report = _report(mixture, args.tol)

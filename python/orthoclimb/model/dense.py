@@ -75,8 +75,10 @@ def max_asymmetry(tensor: np.ndarray) -> float:
     takes p - 1 comparisons instead of p! (p = 8, n = 4: 6 s before)."""
     p = tensor.ndim
     worst = 0.0
-    for i in range(p - 1):
-        worst = max(worst, float(np.max(np.abs(tensor - tensor.transpose(_swap(p, i, i + 1))))))
+    with np.errstate(over="ignore"):  # a difference beyond float64 is inf: as asymmetric
+        for i in range(p - 1):
+            swapped = tensor.transpose(_swap(p, i, i + 1))
+            worst = max(worst, float(np.max(np.abs(tensor - swapped))))
     return worst
 
 
@@ -87,11 +89,18 @@ def symmetrized(tensor: np.ndarray) -> np.ndarray:
     for k = 1, .., p - 1 in turn averages over the whole group."""
     p = tensor.ndim
     out = np.array(tensor, dtype=np.float64, copy=True)
+    # sums of up to p <= 8 entries near float64's top overflow before the division; there the
+    # tensor is averaged at 2^-8 of its size (exact but for subnormal entries) and scaled back
+    big = out.size > 0 and float(np.abs(out).max()) > 2.0**1015
+    if big:
+        out *= 2.0**-8
     for k in range(1, p):
         total = out.copy()
         for j in range(k):
             total += out.transpose(_swap(p, j, k))
         out = total / (k + 1)
+    if big:
+        out *= 2.0**8
     return out
 
 

@@ -68,7 +68,7 @@ from __future__ import annotations
 import math
 import sys
 from collections.abc import Sequence
-from dataclasses import asdict, dataclass
+from dataclasses import asdict, dataclass, replace
 from typing import Any
 
 import numpy as np
@@ -159,12 +159,17 @@ def _checked(
         raise ValueError(
             f"sizes must be distinct, got {list(sizes)}: pool the samples of a repeated size"
         )
-    arrays = [np.asarray(s, dtype=np.float64) for s in samples]
+    arrays = []
+    for n, s in zip(sizes, samples, strict=True):
+        if np.asarray(s).dtype.kind == "b":
+            raise ValueError(f"the samples at n = {n} are booleans, not energies")
+        arrays.append(np.asarray(s, dtype=np.float64))
     for n, a in zip(sizes, arrays, strict=True):
         if a.ndim != 1 or a.size < 2:
             raise ValueError(f"extrapolation needs at least 2 seeds per size; n = {n} has {a.size}")
         if not np.all(np.isfinite(a)):
             raise ValueError(f"non-finite energy among the samples at n = {n}")
+
     x = np.asarray(sizes, dtype=np.float64) ** (-exponent)
     if np.any(x * x < sys.float_info.min):
         # the line's normal equations then divide by zero: e_inf came out NaN
@@ -282,6 +287,36 @@ def extrapolate(
     ``pooled``: weigh the sizes by variances pooled over them (module doc)."""
     arrays = _checked(sizes, samples, exponent)
     check_interval(level, n_boot)
+    if isinstance(seed, (bool, np.bool_)) or not isinstance(seed, (int, np.integer)) or seed < 0:
+        raise ValueError(f"seed must be an integer >= 0 (the bootstrap's), got {seed!r}")
+    # the fit runs on samples of order one: divided by a power of two, which is exact, so
+    # energies per spin keep every bit, while 1e308 (NaN fits) or 1e-200 (weights beyond
+    # float64) fit as well as 1 (a user trial); the results are multiplied back
+    top = max(float(np.abs(a).max()) for a in arrays)
+    scale = 2.0 ** round(math.log2(top)) if top > 0 else 1.0
+    ex = _extrapolate([a / scale for a in arrays], sizes, exponent, level, n_boot, seed, pooled)
+    if scale == 1.0:
+        return ex
+    out = replace(
+        ex, **{k: getattr(ex, k) * scale for k in ("value", "low", "high", "se", "slope")}
+    )
+    if not all(math.isfinite(getattr(out, k)) for k in ("value", "low", "high", "se", "slope")):
+        raise ValueError(
+            f"the extrapolation of samples as large as {top:.3g} leaves float64's range"
+        )
+    return out
+
+
+def _extrapolate(
+    arrays: list[np.ndarray],
+    sizes: Sequence[int],
+    exponent: float,
+    level: float,
+    n_boot: int,
+    seed: int,
+    pooled: bool,
+) -> Extrapolation:
+    """:func:`extrapolate` of checked samples ``arrays``."""
     x = np.asarray(sizes, dtype=np.float64) ** (-exponent)
     log_n = np.log(np.asarray(sizes, dtype=np.float64)) if pooled else None
     value, slope, chi2, var = _fit(x, arrays, log_n)

@@ -59,8 +59,13 @@ def best_time(fn, repeats: int = 2, warm_up: bool = True) -> float:
     return out
 
 
+# The most timed calls per kernel and size: the best of 1000 is as good a time as any more
+MAX_REPEATS = 1000
+
+
 def check_profile(mixture: Any, sizes: Sequence[int], repeats: int) -> tuple[int, int]:
-    """Refuse a profile that cannot run (fewer than 2 sizes or a size twice, ``repeats`` < 1,
+    """Refuse a profile that cannot run (fewer than 2 sizes or a size twice, ``repeats``
+    outside 1..MAX_REPEATS,
     a largest instance that does not fit in memory with its Hessian's workspace) before
     anything is sampled; return the bytes of the largest instance and of that workspace.
     The Hessian's n x n accumulators were not counted, and for degree <= 2 they outweigh the
@@ -73,8 +78,8 @@ def check_profile(mixture: Any, sizes: Sequence[int], repeats: int) -> tuple[int
         raise ValueError("profile needs at least 2 sizes to fit an exponent")
     if len(set(sizes)) < len(sizes):
         raise ValueError(f"profile sizes must be distinct, got {list(sizes)}")
-    if repeats < 1:
-        raise ValueError(f"--repeats must be >= 1, got {repeats}")
+    if not 1 <= repeats <= MAX_REPEATS:  # 10^8 ran on without an end in sight (a user trial)
+        raise ValueError(f"--repeats must be in 1..{MAX_REPEATS}, got {repeats}")
     biggest = max(sizes)
     need = estimate_memory(mixture, biggest)
     workspace = hessian_workspace_estimate(mixture, biggest)

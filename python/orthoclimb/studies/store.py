@@ -565,7 +565,7 @@ class Store:
     def write_table(self) -> dict[str, Path]:
         """Write results.parquet and results.csv (atomically) from the row files."""
         written = {}
-        for name, (path, writer) in table_files(self.rows(), self.folder).items():
+        for name, (path, writer) in table_files(self.rows(), self.folder, self.rows_dir).items():
             written[name] = write_atomic(path, writer)
         return written
 
@@ -573,10 +573,50 @@ class Store:
 TABLE_FILES = ("results.parquet", "results.csv")
 
 
-def table_files(rows: list[dict[str, Any]], folder: Path) -> dict[str, tuple[Path, Any]]:
+def _column_problem(rows: list[dict[str, Any]], fields: list[str], rows_dir: Path) -> ValueError:
+    """Which row keeps a column of the table from being built (a value of another kind than
+    the column's other values: an edited row's "local_max": "yes" among booleans), as a
+    ValueError naming its file and field; Arrow's own message named neither (a user trial)."""
+    import pyarrow as pa
+
+    for key in fields:
+        values = [r.get(key) for r in rows]
+        try:
+            pa.array(values)
+            continue
+        except (pa.ArrowInvalid, pa.ArrowTypeError, OverflowError) as exc:
+            problem = str(exc)
+        # the odd one out: the first value whose kind differs from most of the column's
+        # (on a tie, from the kind that comes first)
+        kinds = [_kind(v) for v in values]
+        seen = [k for k in dict.fromkeys(kinds) if k != "null"]
+        common = max(seen, key=kinds.count, default="null")
+        for row, kind in zip(rows, kinds, strict=True):
+            if kind not in (common, "null"):
+                path = rows_dir / f"{row.get('task_id')}.json"
+                return _redo(path, f"has {key} = {row[key]!r}, where the other rows have {common}s")
+        return ValueError(f"the results table's column {key!r} cannot be built: {problem}")
+    return ValueError("the results table cannot be built from the rows")
+
+
+def _kind(value: Any) -> str:
+    """A row value's kind for a table column: "null", "bool", "number", "str" or its type."""
+    if value is None:
+        return "null"
+    if isinstance(value, bool):
+        return "bool"
+    if isinstance(value, (int, float)):
+        return "number"
+    return type(value).__name__
+
+
+def table_files(
+    rows: list[dict[str, Any]], folder: Path, rows_dir: Path = Path("rows")
+) -> dict[str, tuple[Path, Any]]:
     """The tidy table of ``rows`` (one per completed task) as {"parquet": (path, writer),
     "csv": (path, writer)} in ``folder``, each writer taking a binary file, for
-    :func:`~orthoclimb.fileio.write_atomic` or for staging with a report's files."""
+    :func:`~orthoclimb.fileio.write_atomic` or for staging with a report's files. A row whose
+    value does not fit its column is named as a file of ``rows_dir`` (the study's rows/)."""
     import pyarrow as pa
     import pyarrow.csv as pacsv
     import pyarrow.parquet as pq
@@ -585,7 +625,10 @@ def table_files(rows: list[dict[str, Any]], folder: Path) -> dict[str, tuple[Pat
         # every field of every row: from_pylist takes the columns of the first row only,
         # so rows of an older version (no start_seed) would drop a newer field
         fields = list(dict.fromkeys(k for r in rows for k in r))
-        table = pa.Table.from_pylist([{k: r.get(k) for k in fields} for r in rows])
+        try:
+            table = pa.Table.from_pylist([{k: r.get(k) for k in fields} for r in rows])
+        except (pa.ArrowInvalid, pa.ArrowTypeError, OverflowError):
+            raise _column_problem(rows, fields, rows_dir) from None
         for i, column in enumerate(table.schema):  # a number missing in every row (null)
             if pa.types.is_null(column.type):  # stays a number column, not Arrow's null
                 table = table.set_column(i, column.name, table.column(i).cast(pa.float64()))
