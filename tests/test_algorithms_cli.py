@@ -511,3 +511,21 @@ def test_climb_starts_along_the_top_eigenvector_where_there_is_a_degree_2_term(t
         assert main([*base, *flag, "--out", str(tmp_path / used)]) == 0
         capsys.readouterr()
         assert oc.load_result(tmp_path / used / "result").config["start"] == used
+
+
+def test_the_table_shows_energies_far_from_order_one_in_significant_digits(tmp_path, capsys):
+    # a user trial: gammas of 1e-100 printed every energy, ALG and GS as 0.000000. The
+    # table's numbers must read back as the JSON's to six significant digits
+    args = ["climb", "--gammas", "3:1e-100", "--n", "30", "--steps", "10", "--no-progress"]
+    assert main([*args, "--out", str(tmp_path / "a")]) == 0
+    table = capsys.readouterr().out.splitlines()
+    lines = dict(line.split("  ", 1) for line in table if "  " in line)
+    assert main([*args, "--json", "--out", str(tmp_path / "b")]) == 0
+    summary = json.loads(capsys.readouterr().out)
+    for label, key in (
+        ("energy per spin", "energy"),
+        ("ALG", "alg"),
+        ("GS (Parisi)", "ground_state"),
+    ):
+        shown = float(lines[label].strip())
+        assert shown == pytest.approx(summary[key], rel=1e-5) and shown != 0, label

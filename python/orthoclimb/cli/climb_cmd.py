@@ -273,8 +273,14 @@ def _summary(
 
 
 def _table(s: dict[str, Any]) -> str:
+    # six decimals for energies of order one; six significant digits where the instance's
+    # scale is far from it (gammas of 1e-100 printed every energy as 0.000000: a user trial)
+    finite = [abs(v) for v in (s["energy"], s["alg"]) if v is not None and math.isfinite(v)]
+    scale = max(finite, default=0.0)
+    form = ".6f" if scale == 0 or 1e-3 <= scale < 1e7 else ".6e"
+
     def num(v: Any) -> str:
-        return "unknown" if v is None else f"{v:.6f}"
+        return "unknown" if v is None else format(v, form)
 
     rows = [("method", s["method"]), ("energy per spin", num(s["energy"]))]
     if "energy_before_polish" in s:
@@ -297,7 +303,7 @@ def _table(s: dict[str, Any]) -> str:
         # the Riemannian Hessian's (P Hess P - (x . grad H) I at |x| = 1), not the
         # projected Hessian's of the path's eigenvalue column (a user trial read one for the
         # other: -0.059 here, 4.70 there, at the same point)
-        rows.append(("top Riemannian eigenvalue", f"{s['top_eigenvalue']:.6f} per spin"))
+        rows.append(("top Riemannian eigenvalue", f"{num(s['top_eigenvalue'])} per spin"))
     sampling, estimated = s.get("seconds_sampling"), s.get("seconds_estimated")
     notes = [f"estimated {seconds_text(estimated)}"] if estimated is not None else []
     notes += [f"sampling {sampling:.2f} s before it"] if sampling is not None else []
