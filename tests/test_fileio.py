@@ -202,6 +202,28 @@ def test_a_failed_command_keeps_a_folder_another_process_made(tmp_path, monkeypa
     assert theirs.is_dir() and not (theirs / "sub").exists()  # ours removed, theirs kept
 
 
+def test_a_folder_another_sweep_holds_is_not_removed_by_a_failed_command(tmp_path):
+    # two sweeps started at once on a new path: the one whose mkdir made the folder was
+    # refused by the other's lock and removed the still-empty folder from under its holder
+    import fcntl
+
+    from orthoclimb import fileio
+
+    folder = tmp_path / "held"
+    with pytest.raises(RuntimeError), fileio.undone_on_failure():
+        ensure_folder(folder)
+        fd = os.open(folder, os.O_RDONLY)  # the other sweep's lock (flock: per open file)
+        fcntl.flock(fd, fcntl.LOCK_EX | fcntl.LOCK_NB)
+        raise RuntimeError("another sweep is running")
+    assert folder.is_dir()  # left to its holder
+    os.close(fd)
+    free = tmp_path / "free"  # nobody holds it: removed, as before
+    with pytest.raises(RuntimeError), fileio.undone_on_failure():
+        ensure_folder(free)
+        raise RuntimeError("refused")
+    assert not free.exists()
+
+
 def _fail_at_fsync(monkeypatch, which: int) -> None:
     """Make the ``which``-th os.fsync of fileio (1-based) fail as a full disk does."""
     import errno

@@ -28,6 +28,11 @@ from typing import IO, Any
 
 import numpy as np
 
+try:  # POSIX; elsewhere no folder is locked
+    import fcntl
+except ImportError:  # pragma: no cover - Windows
+    fcntl = None  # type: ignore[assignment]
+
 from .errors import OutputPathError
 
 
@@ -67,11 +72,36 @@ def undone_on_failure() -> Iterator[None]:
 
 def _remove_empty(made: list[Path]) -> None:
     for folder in reversed(made):
+        if _locked_elsewhere(folder):
+            continue
         try:
             folder.rmdir()  # only if empty
         except OSError:
             pass
     made.clear()
+
+
+def _locked_elsewhere(folder: Path) -> bool:
+    """Whether another open file holds an flock on ``folder`` (a sweep's study folder lock,
+    ``studies.store.sweep_lock``). Two sweeps started at once on a new path: the one whose
+    mkdir made the folder was refused by the other's lock and removed the folder, still
+    empty, from under it, which then held a lock on a deleted folder that a third sweep could
+    not see. A held folder is left to its holder."""
+    if fcntl is None:  # pragma: no cover - not POSIX
+        return False
+    try:
+        fd = os.open(folder, os.O_RDONLY)
+    except OSError:
+        return False
+    try:
+        fcntl.flock(fd, fcntl.LOCK_EX | fcntl.LOCK_NB)
+    except BlockingIOError:
+        return True
+    except OSError:  # no flock here: nobody can hold one
+        return False
+    finally:
+        os.close(fd)  # (and with it a lock this call took)
+    return False
 
 
 def remove_made_folders() -> None:
