@@ -232,3 +232,13 @@ def test_from_dict_refuses_a_degree_given_twice_or_not_in_digits():
         with pytest.raises(MixtureError, match=f"must be written in digits, got {key!r}"):
             Mixture.from_dict({key: 1.0})
     assert Mixture.from_dict({"2": 1.0, " 4 ": 0.5}) == Mixture({2: 1.0, 4: 0.5})
+
+
+@pytest.mark.parametrize("text", [b"2:1", 2, None])
+def test_parse_takes_text_only_and_says_so_as_a_type_error(text):
+    # a user trial: bytes were a plain MixtureError (a ValueError); a wrong type is both a
+    # MixtureError and a TypeError (MixtureTypeError), as the constructor's are
+    with pytest.raises(TypeError, match="mixture text must be a string"):
+        Mixture.parse(text)
+    with pytest.raises(MixtureError):
+        Mixture.parse(text)

@@ -172,7 +172,7 @@ class Mixture:
         if not isinstance(squared, (bool, np.bool_)):
             raise TypeError(f"squared must be True or False, got {squared!r}")
         if not isinstance(text, str):
-            raise MixtureError(f"mixture text must be a string, got {text!r}")
+            raise MixtureTypeError(f"mixture text must be a string, got {text!r}")
         pairs: dict[int, float] = {}
         body = text.strip()
         if not body:
