@@ -211,11 +211,13 @@ def test_a_study_of_random_starts_refuses_the_new_start_and_says_how_to_resume(t
 
 
 @pytest.mark.parametrize(
-    ("field", "good", "bad"), [("local_max", True, "yes"), ("seconds_run", 1.5, "x")]
+    ("field", "good", "bad", "kind"),
+    [("worker", "host:12", 12, "str"), ("extra_note", 1.5, "x", "number")],
 )
-def test_a_row_value_of_another_kind_than_its_column_is_named(tmp_path, field, good, bad):
+def test_a_row_value_of_another_kind_than_its_column_is_named(tmp_path, field, good, bad, kind):
     # a user trial: an edited row ("local_max": "yes" among booleans) stopped the table with
-    # Arrow's "Could not convert 'yes' with type str", naming neither the file nor the field
+    # Arrow's "Could not convert 'yes' with type str", naming neither the file nor the field;
+    # fields the report reads are checked when a row is read (below), the rest here
     spec = _spec(seeds=(0, 1, 2))
     store = Store.open(tmp_path / "s", spec)
     first, second, third = spec.tasks()
@@ -226,6 +228,39 @@ def test_a_row_value_of_another_kind_than_its_column_is_named(tmp_path, field, g
         store.write_table()
     assert str(info.value) == (
         f"the row file {str(path)!r} has {field} = {bad!r}, where the other rows have"
-        f" {'bool' if field == 'local_max' else 'number'}s; delete it and rerun the sweep to"
-        " redo that task"
+        f" {kind}s; delete it and rerun the sweep to redo that task"
     )
+
+
+@pytest.mark.parametrize(
+    ("field", "bad", "expected"),
+    [
+        ("local_max", "yes", "true, false or null"),
+        ("seconds_run", -1.0, "a finite number >= 0"),
+        ("seconds_sample", "x", "a finite number >= 0"),
+        ("steps", 2.5, "an integer >= 0"),
+        ("steps", True, "an integer >= 0"),
+        ("sample_shared_by", 0, "an integer >= 1"),
+        ("options", "{not json", "a JSON object as text"),
+        ("options", "[1]", "a JSON object as text"),
+        ("end_point_sha256", "00", "64 hexadecimal digits"),
+        ("gap_alg", "0.1", "a finite number or null"),
+    ],
+)
+def test_a_row_field_the_report_reads_is_checked_when_read(tmp_path, field, bad, expected):
+    # a user trial: rows edited with their checksums recomputed (options that are no JSON, a
+    # negative seconds_run, steps = 2.5, a digest of two digits) were reported with exit 0
+    spec = _spec()
+    store = Store.open(tmp_path / "s", spec)
+    task = spec.tasks()[0]
+    store.write_row(_row(task, **{field: bad}))
+    with pytest.raises(ValueError) as info:
+        store.rows()
+    assert str(info.value) == (
+        f"the row file {str(store.row_path(task.task_id))!r} has {field} = {bad!r}, expected"
+        f" {expected}; delete it and rerun the sweep to redo that task"
+    )
+    # null (an unknown number, or an older row's missing field) is fine
+    store.row_path(task.task_id).unlink()
+    store.write_row(_row(task, **{field: None}))
+    assert len(store.rows()) == 1

@@ -255,6 +255,52 @@ _ROW_FIELDS: dict[str, tuple[type, ...]] = {
 }
 
 
+def _number(v: Any) -> bool:
+    return isinstance(v, (int, float)) and not isinstance(v, bool)
+
+
+def _count(least: int) -> Any:
+    return lambda v: isinstance(v, int) and not isinstance(v, bool) and v >= least
+
+
+def _json_object(v: Any) -> bool:
+    try:
+        return isinstance(v, str) and isinstance(json.loads(v), dict)
+    except ValueError:
+        return False
+
+
+# Fields a row may hold (older rows lack some; null where a number is unknown), each with its
+# test and what it expects, checked as the report reads them: a row edited with its checksum
+# recomputed carried options that were no JSON, a negative seconds_run and steps = 2.5, and
+# the report took them (a user trial).
+_OPTIONAL_FIELDS: dict[str, tuple[Any, str]] = {
+    "steps": (_count(0), "an integer >= 0"),
+    "sample_shared_by": (_count(1), "an integer >= 1"),
+    "threads": (_count(1), "an integer >= 1"),
+    "seconds_run": (lambda v: _number(v) and 0 <= v < math.inf, "a finite number >= 0"),
+    "seconds_sample": (lambda v: _number(v) and 0 <= v < math.inf, "a finite number >= 0"),
+    "local_max": (lambda v: isinstance(v, bool), "true, false or null"),
+    "options": (_json_object, "a JSON object as text"),
+    "end_point_sha256": (
+        lambda v: isinstance(v, str) and len(v) == 64 and all(c in "0123456789abcdef" for c in v),
+        "64 hexadecimal digits",
+    ),
+    **{
+        key: (lambda v: _number(v) and math.isfinite(v), "a finite number or null")
+        for key in (
+            "energy_before_polish",
+            "alg",
+            "ground_state",
+            "gap_alg",
+            "gap_gs",
+            "grad_norm",
+            "top_eigenvalue",
+        )
+    },
+}
+
+
 def combined_error(errors: list[Exception], what: str) -> ValueError:
     """One ValueError for several unusable files: the error itself when there is one, else
     all of them counted and up to ten listed (so one run names every file to fix)."""
@@ -310,6 +356,10 @@ def _read_row(path: Path) -> dict[str, Any]:
             raise _redo(path, f"has {key} = {value!r}, expected {expected}")
     if not math.isfinite(row["energy"]):  # an edited row's Infinity printed inf, exit 0
         raise _redo(path, f"has energy = {row['energy']!r}, not a finite number")
+    for key, (test, expected) in _OPTIONAL_FIELDS.items():
+        value = row.get(key)
+        if value is not None and not test(value):
+            raise _redo(path, f"has {key} = {value!r}, expected {expected}")
     if row["task_id"] != path.stem:
         raise _redo(path, f"holds task {row['task_id']!r}, not {path.stem!r}")
     return row
