@@ -434,8 +434,8 @@ def test_the_plan_says_how_the_tasks_of_an_instance_share_its_sampling():
     three = ("hessian", "gradient", "anneal")
     whole = grouping_text(_spec(sizes=(20,), seeds=(0, 1, 2), methods=three).tasks(), 2)
     assert whole == (
-        "9 tasks on 3 instances: each instance is sampled once for all its tasks, whose rows"
-        " are written when the last of them ends"
+        "9 tasks on 3 instances: each instance is sampled once for all its tasks, which run in"
+        " turn (each row is written as its task ends)"
     )
     split = grouping_text(_spec(sizes=(20,), seeds=(0,), methods=three).tasks(), 2)
     assert split.startswith("3 tasks on 1 instance: in 2 groups of tasks on one instance")

@@ -486,7 +486,8 @@ def fixed_path_notes(spec: StudySpec) -> list[str]:
 
 def grouping_text(pending: list, slots: int) -> str | None:
     """What the sweep's plan says of :func:`~orthoclimb.studies.tasks.instance_groups` for
-    ``slots`` workers: None when every instance has one task (nothing to share)."""
+    ``slots`` workers of the embedded cluster (whose workers write each task's row as it
+    ends): None when every instance has one task (nothing to share)."""
     from .engine import counted
 
     instances = len({instance_key(t) for t in pending})
@@ -499,16 +500,14 @@ def grouping_text(pending: list, slots: int) -> str | None:
             f"{head} run apart, each sampling its instance:"
             f" {counted(slots, 'worker')} for {counted(len(pending), 'task')}"
         )
-    # an interrupted group loses its finished tasks too (the engine's doc): say when rows come
     if len(groups) == instances:
         return (
-            f"{head}: each instance is sampled once for all its tasks, whose rows are written"
-            " when the last of them ends"
+            f"{head}: each instance is sampled once for all its tasks, which run in turn (each"
+            " row is written as its task ends)"
         )
     return (
         f"{head}: in {counted(len(groups), 'group')} of tasks on one instance (cut so that"
-        " every worker has one), and each group samples its instance once; a group's rows are"
-        " written when its last task ends"
+        " every worker has one), and each group samples its instance once"
     )
 
 
