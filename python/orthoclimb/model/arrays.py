@@ -57,9 +57,9 @@ def real_array(a: object, name: str) -> np.ndarray:
 
 def as_float_array(a: object, name: str) -> np.ndarray:
     """A C-contiguous, aligned float64 copy or view of `a`, finite. Integers are converted
-    (and an unaligned view copied); the rest
-    of :func:`real_array`'s refusals apply, and a value that is finite but beyond float64's
-    range (a long double) is named as such rather than as the infinity it would become."""
+    (and an unaligned view copied); the rest of :func:`real_array`'s refusals apply, and a
+    value that is finite but beyond float64's range (a long double) is named as such rather
+    than as the infinity it would become."""
     arr = real_array(a, name)
     if arr.dtype.kind == "f" and arr.dtype.itemsize > 8:  # a long double may overflow here
         with np.errstate(over="ignore"):

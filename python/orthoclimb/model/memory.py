@@ -163,7 +163,7 @@ def binding_limit(have: int) -> str:
     room, limit = user_headroom(), user_memory_limit()
     if room is not None and limit is not None and room <= have:
         text, held = os.environ[ENV_VAR].strip(), format_bytes(limit - room)
-        if text.isdigit():  # a worker's share is written in bytes
+        if text.isdigit():  # a limit written in bytes: say it in units too
             text += f" ({format_bytes(limit)})"
         return f" under {ENV_VAR}={text}, of which this process holds {held}"
     room = address_space_headroom()

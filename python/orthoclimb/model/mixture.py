@@ -58,8 +58,8 @@ def _check_gamma(p: int, gamma: Any, what: str = "gamma") -> float:
 
 def _degree_key(key: object) -> object:
     """A degree as a mapping key: a string of ASCII digits ('2', as to_dict writes it; blanks
-    around it allowed) as its
-    int, anything else as it is (the constructor checks it); other text is a MixtureError."""
+    around it allowed) as its int, anything else as it is (the constructor checks it); other
+    text is a MixtureError."""
     if not isinstance(key, str):
         return key
     digits = key.strip()

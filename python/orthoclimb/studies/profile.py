@@ -64,10 +64,10 @@ MAX_REPEATS = 1000
 
 
 def check_profile(mixture: Any, sizes: Sequence[int], repeats: int) -> tuple[int, int]:
-    """Refuse a profile that cannot run (fewer than 2 sizes or a size twice, ``repeats``
-    outside 1..MAX_REPEATS,
-    a largest instance that does not fit in memory with its Hessian's workspace) before
-    anything is sampled; return the bytes of the largest instance and of that workspace.
+    """Refuse a profile that cannot run (fewer than 2 sizes or a size twice, ``repeats`` outside
+    1..MAX_REPEATS, a largest instance that does not fit in memory with its Hessian's
+    workspace) before anything is sampled; return the bytes of the largest instance and of
+    that workspace.
     The Hessian's n x n accumulators were not counted, and for degree <= 2 they outweigh the
     coefficients: 1:1 at n = 100000 holds 0.8 MB but its Hessian needs 149 GiB, refused
     only after the other sizes had run (a review)."""
