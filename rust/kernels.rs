@@ -431,7 +431,7 @@ pub(crate) mod tests {
         (0..n).map(|i| ((i as f64 + 1.0) * s).sin()).collect()
     }
 
-    fn close(a: f64, b: f64, scale: f64) -> bool {
+    pub fn close(a: f64, b: f64, scale: f64) -> bool {
         (a - b).abs() <= 1e-11 * scale.max(1.0)
     }
 
