@@ -33,7 +33,7 @@ def test_unset_or_blank_means_no_limit(monkeypatch, text):
     assert user_memory_limit() is None and user_headroom() is None
 
 
-@pytest.mark.parametrize("text", ["abc", "-5GB", "0", "inf", "nan", "8 parsecs"])
+@pytest.mark.parametrize("text", ["abc", "-5GB", "0", "inf", "nan", "8 parsecs", "1e400"])
 def test_a_bad_limit_is_a_value_error_naming_it(monkeypatch, text):
     monkeypatch.setenv(ENV_VAR, text)
     with pytest.raises(ValueError, match=f"{ENV_VAR} must be a positive size.*got {text!r}"):
@@ -59,6 +59,7 @@ def test_available_memory_takes_the_users_limit_and_names_it(monkeypatch):
     monkeypatch.setattr(memory, "address_space_headroom", lambda: 3 * 2**30)
     monkeypatch.setattr(memory, "user_headroom", lambda: 2 * 2**30)
     monkeypatch.setattr(memory, "user_memory_limit", lambda: 2 * 2**30 + 100 * MiB)
+    monkeypatch.setattr(memory, "resident_memory", lambda: 100 * MiB)
     monkeypatch.setenv(ENV_VAR, " 2GiB ")
     assert memory.available_memory() == 2 * 2**30
     assert memory.binding_limit(2 * 2**30) == (
@@ -116,3 +117,49 @@ def test_a_sweep_whose_largest_instance_and_worker_exceed_the_limit_is_refused(
     assert "largest instance (3:1.0, n = 300) needs 34.7 MiB" in err
     assert "a worker process about" in err and f"but {ENV_VAR}=" in err
     assert not out.exists()  # refused before the study folder is made
+
+
+def test_a_limit_below_what_the_process_holds_says_so_and_offers_no_smaller_size(monkeypatch):
+    # a user trial: at 50MB the message said the process "holds 47.7 MiB" (the limit itself:
+    # limit minus a headroom floored at 0) while it held 110 MiB, and profile added "smaller
+    # sizes fit" with 0 bytes free
+    rss = status_bytes()["VmRSS"]
+    monkeypatch.setenv(ENV_VAR, str(rss // 2))
+    with pytest.raises(InsufficientMemoryError) as info:
+        oc.Hamiltonian.sample(oc.Mixture({3: 1.0}), 10, 0)
+    text = str(info.value)
+    assert "but only 0 bytes (0 B) are available under ORTHOCLIMB_MEMORY_LIMIT=" in text
+    held = float(text.split("this process already holds ")[1].split(" MiB")[0])
+    assert abs(held * MiB - rss) < 8 * MiB  # its resident memory, not the limit
+    assert text.endswith(
+        ", more than the limit (nothing fits until the limit that binds is raised)"
+    )
+
+
+def test_a_plan_times_an_instance_that_fits_under_the_limit(monkeypatch, capsys):
+    # a user trial: under a tight limit, climb --plan-only (which the refusal itself
+    # recommends) was refused for its own 64 MiB timing instance, at an n never asked for
+    from orthoclimb.cli import main
+
+    rss = status_bytes()["VmRSS"]
+    monkeypatch.setenv(ENV_VAR, str(rss + 40 * MiB))
+    assert main(["climb", "--gammas", "3:1", "--n", "500", "--plan-only"]) == 0
+    out = capsys.readouterr().out
+    timed = int(out.split("(timed at n = ")[1].split(")")[0])
+    assert oc.estimate_memory(oc.Mixture({3: 1.0}), timed) <= 20 * MiB < 64 * MiB
+    assert "note: an instance of Mixture({3: 1.0}) with n = 500 needs" in out
+    assert "plan only: no run, nothing written" in out
+
+
+def test_an_external_plan_says_the_limit_holds_this_process_only(monkeypatch):
+    # a user trial set the limit for a sweep on an external cluster and expected the workers
+    # to keep to it; they follow their own environment, and the plan now says so
+    from orthoclimb.studies.estimate import plan_lines
+    from orthoclimb.studies.grid import spec_from_flags
+
+    spec = spec_from_flags(["3:1"], None, "20", "0", "gradient")
+    note = f"note: {ENV_VAR} holds this process only; the external cluster's workers follow"
+    for value, shown in (("64GiB", True), ("", False)):
+        monkeypatch.setenv(ENV_VAR, value)
+        lines = plan_lines(spec, "s", spec.tasks(), None, "tcp://127.0.0.1:8786", None)
+        assert any(line.startswith(note) for line in lines) is shown

@@ -45,6 +45,7 @@ from ..studies.estimate import (
     largest_size_within,
     matvec_seconds,
     run_seconds,
+    timing_budget,
 )
 from ..studies.grid import start_used
 from . import (
@@ -64,7 +65,7 @@ METHODS = ("hessian", "gradient", "anneal")
 
 # how a refused climb can go on: the command has no switch past its memory check
 _SMALLER = "a smaller --n fits"
-_NO_ROOM = f"{_SMALLER}; --plan-only prints the plan without sampling"
+_NO_ROOM = f"{_SMALLER}; --plan-only prints the plan, timing a small instance that fits"
 
 
 def add_arguments(parser: argparse.ArgumentParser) -> None:
@@ -147,9 +148,10 @@ def _time_pass(ham: Hamiltonian, method: str) -> float:
 
 
 def _probe(mixture: Mixture, n: int, dtype: str) -> tuple[Hamiltonian, float]:
-    """An instance of the mixture with at most 64 MiB of coefficients (the largest n' <= n that
-    fits, at least 2) and the seconds its sampling took."""
-    n0 = max(2, largest_size_within(mixture, n, _SAMPLING_PROBE, dtype))
+    """An instance of the mixture with at most 64 MiB of coefficients, or half the available
+    memory where that is less (the largest n' <= n that fits, at least 2), and the seconds its
+    sampling took."""
+    n0 = max(2, largest_size_within(mixture, n, timing_budget(_SAMPLING_PROBE), dtype))
     started = time.perf_counter()
     probe = Hamiltonian.sample(mixture, n0, 0, dtype=dtype)
     return probe, time.perf_counter() - started

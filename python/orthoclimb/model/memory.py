@@ -20,7 +20,7 @@ from .arrays import as_flag
 from .cgroup_memory import cgroup_headroom
 from .mixture import Mixture
 from .process_limits import address_space_headroom
-from .user_limit import ENV_VAR, user_headroom, user_memory_limit
+from .user_limit import ENV_VAR, resident_memory, user_headroom, user_memory_limit
 
 DTYPES = {"float64": 8, "float32": 4}
 
@@ -150,6 +150,8 @@ def require_memory(
     message ends with `skip`, how the caller can skip the check."""
     have = available_memory()
     if needed > have:
+        if have == 0:  # nothing fits: a hint such as "a smaller n fits" would be wrong
+            skip = "nothing fits until the limit that binds is raised"
         raise InsufficientMemoryError(
             f"{what} needs {needed} bytes ({format_bytes(needed)}) but only {have} bytes "
             f"({format_bytes(have)}) are available{binding_limit(have)} ({skip})"
@@ -162,10 +164,15 @@ def binding_limit(have: int) -> str:
     named first where several leave the same room."""
     room, limit = user_headroom(), user_memory_limit()
     if room is not None and limit is not None and room <= have:
-        text, held = os.environ[ENV_VAR].strip(), format_bytes(limit - room)
+        text, held = os.environ[ENV_VAR].strip(), resident_memory()
         if text.isdigit():  # a limit written in bytes: say it in units too
             text += f" ({format_bytes(limit)})"
-        return f" under {ENV_VAR}={text}, of which this process holds {held}"
+        if held >= limit:  # (limit - room would say the limit itself: a user trial)
+            return (
+                f" under {ENV_VAR}={text}: this process already holds {format_bytes(held)},"
+                " more than the limit"
+            )
+        return f" under {ENV_VAR}={text}, of which this process holds {format_bytes(held)}"
     room = address_space_headroom()
     if room is not None and room <= have:
         return " under this process's address-space or data limit (ulimit -v or -d)"

@@ -37,7 +37,7 @@ def user_memory_limit() -> int | None:
 
     try:
         limit = parse_bytes(text)
-    except (ValueError, TypeError):
+    except (ValueError, TypeError, OverflowError):  # 1e400: float inf, then int() overflows
         limit = None
     if not isinstance(limit, int) or limit < 1:
         raise ValueError(

@@ -174,12 +174,23 @@ def lanczos_seconds(n: int, matvec: float | None = None, dense: bool = True) -> 
 _MATVEC_CACHE: dict[int, float] = {}
 
 
+def timing_budget(nbytes: int) -> int:
+    """Bytes a timing instance or matrix on the driver may take: ``nbytes``, or half the
+    available memory where that is less (under a tight ORTHOCLIMB_MEMORY_LIMIT a plan's
+    64 MiB timing instance was refused, though the plan samples nothing of the run's own: a
+    user trial)."""
+    from ..model import available_memory
+
+    return max(0, min(nbytes, available_memory() // 2))
+
+
 def matvec_seconds(n: int) -> float:
     """Seconds of one product of a dense n x n float64 matrix with a vector on one BLAS thread,
     as Lanczos makes them (best of 3 after one untimed product; cached for the process). A
     matrix above 64 MiB (n > 2896; the calibration's own instances hold at most that) is timed
-    at 64 MiB and the time scaled by n^2: that large, the product streams it from memory."""
-    side = min(n, math.isqrt(_MATVEC_TIMED_BYTES // 8))
+    at 64 MiB (or what :func:`timing_budget` allows) and the time scaled by n^2: that large,
+    the product streams it from memory."""
+    side = max(2, min(n, math.isqrt(timing_budget(_MATVEC_TIMED_BYTES) // 8)))
     if side not in _MATVEC_CACHE:
         from ..runtime import one_blas_thread
 
@@ -275,8 +286,9 @@ def calibrate(spec: StudySpec, threads: int = 1) -> dict[str, Calibration]:
         for m in spec.mixtures:
             mix = m.mixture
             sizes = m.sizes if m.sizes is not None else spec.sizes  # the mixture's own sizes
-            fits = [n for n in sizes if estimate_memory(mix, n) <= _CAL_BYTES]
-            n0 = max(fits) if fits else largest_size_within(mix, min(sizes), _CAL_BYTES)
+            budget = timing_budget(_CAL_BYTES)
+            fits = [n for n in sizes if estimate_memory(mix, n) <= budget]
+            n0 = max(fits) if fits else max(2, largest_size_within(mix, min(sizes), budget))
             n0 = min(n0, 400)
             started = time.perf_counter()
             ham = Hamiltonian.sample(mix, n0, seed=0)
@@ -565,10 +577,24 @@ def plan_lines(
         )
         workers, threads = plan.workers, plan.rayon_threads
     else:
+        from ..model.user_limit import ENV_VAR, user_memory_limit
+
         lines.append(f"Dask scheduler: {scheduler}")
         workers, threads = 1, threads or 1
+        if user_memory_limit() is not None:  # a user trial expected it to hold the workers
+            lines.append(
+                f"note: {ENV_VAR} holds this process only; the external cluster's workers"
+                " follow their own environment (set it where they start)"
+            )
     load = OtherLoad().start()
-    est = estimate_seconds(spec, pending, workers, threads, embedded=plan is not None)
+    from ..errors import InsufficientMemoryError
+
+    try:
+        est = estimate_seconds(spec, pending, workers, threads, embedded=plan is not None)
+    except InsufficientMemoryError as exc:  # no room on the driver for a timing instance
+        load.stop()
+        lines.append(f"rough time estimate: none, the kernels could not be timed here: {exc}")
+        return lines + fixed_path_notes(spec)
     # timing a small study takes milliseconds: the load is read over half a second
     busy = busy_note(load.stop(settle=0.5), threads=plan.cores_used if plan else None)
     where = " for one worker of the external cluster" if plan is None else ""
