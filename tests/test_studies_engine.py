@@ -288,7 +288,7 @@ def test_a_cluster_that_fails_to_close_still_leaves_the_table(tmp_path, monkeypa
     assert signal.getsignal(signal.SIGTERM) == before
 
 
-def test_a_study_with_results_stays_when_its_scheduler_is_unreachable(tmp_path):
+def test_a_study_with_results_stays_when_its_scheduler_is_unreachable(tmp_path, monkeypatch):
     # only a study that this very call created, and that holds nothing, is undone; an
     # existing one keeps its configuration, rows and table
     folder = tmp_path / "s"
@@ -297,24 +297,40 @@ def test_a_study_with_results_stays_when_its_scheduler_is_unreachable(tmp_path):
     task = spec.tasks()[0]
     row = {"task_id": task.task_id, "mixture": task.mixture.name, "method": task.method.name}
     store.write_row({**row, "n": task.n, "seed": task.seed, "energy": 1.0})
+    before = (folder / "study.json").read_bytes()
+    # nothing listens there: refused before the folder is touched or a kernel is timed (a
+    # user trial: the plan timed the kernels first, and --plan-only never asked)
     with pytest.raises(ValueError, match="cannot reach the Dask scheduler"):
         run_study(spec, folder, scheduler="tcp://127.0.0.1:9", timeout=2, progress=False)
-    assert (folder / "study.json").exists() and store.completed_ids() == {task.task_id}
-    assert (folder / "results.parquet").exists()
+    assert (folder / "study.json").read_bytes() == before
+    assert store.completed_ids() == {task.task_id}
     with pytest.raises(StudyMismatchError, match="larger study that contains this one"):
         Store.open(folder, _spec("0"))
-    # an extension (more seeds) that could not start is taken back: study.json holds its
+    # a scheduler that answers the probe but whose client then fails: the study is opened,
+    # and an extension (more seeds) that could not start is taken back: study.json holds its
     # previous bytes, so the old configuration is still the study's (before, the seeds 0-3
     # stayed recorded and a rerun with 0-1 was refused as dropping seeds)
-    before = (folder / "study.json").read_bytes()
-    with pytest.raises(ValueError, match="cannot reach the Dask scheduler"):
-        run_study(_spec("0-3"), folder, scheduler="tcp://127.0.0.1:9", timeout=2, progress=False)
-    assert json.loads((folder / "study.json").read_bytes()) == json.loads(before)
-    assert Store.open(folder, spec).completed_ids() == {task.task_id}
-    # a second extension taken back leaves the history of the first one alone
-    Store.open(folder, _spec("0-2"))
-    with pytest.raises(ValueError, match="cannot reach the Dask scheduler"):
-        run_study(_spec("0-3"), folder, scheduler="tcp://127.0.0.1:9", timeout=2, progress=False)
+    import socket
+
+    import distributed
+
+    from orthoclimb.studies import engine
+
+    def failing_client(*args, **kwargs):
+        raise TimeoutError("no reply")
+
+    monkeypatch.setattr(engine, "_identity", lambda *a: {"type": "Scheduler"})
+    monkeypatch.setattr(distributed, "Client", failing_client)
+    with socket.create_server(("127.0.0.1", 0)) as silent:
+        address = f"tcp://127.0.0.1:{silent.getsockname()[1]}"
+        with pytest.raises(ValueError, match="cannot reach the Dask scheduler"):
+            run_study(_spec("0-3"), folder, scheduler=address, timeout=2, progress=False)
+        assert json.loads((folder / "study.json").read_bytes()) == json.loads(before)
+        assert Store.open(folder, spec).completed_ids() == {task.task_id}
+        # a second extension taken back leaves the history of the first one alone
+        Store.open(folder, _spec("0-2"))
+        with pytest.raises(ValueError, match="cannot reach the Dask scheduler"):
+            run_study(_spec("0-3"), folder, scheduler=address, timeout=2, progress=False)
     stored = json.loads((folder / "study.json").read_text())
     assert len(stored["extended"]) == 1 and stored["config"]["seeds"] == [0, 1, 2]
 
@@ -807,6 +823,7 @@ def test_a_listener_that_is_no_scheduler_gets_a_message_naming_the_address(monke
         raise RuntimeError("handshake failed")
 
     monkeypatch.setattr(distributed, "Client", refusing_client)
+    monkeypatch.setattr(engine, "_identity", lambda *a: {"type": "Scheduler"})  # past the probe
     with socket.socket() as listener:
         listener.bind(("127.0.0.1", 0))
         listener.listen()
@@ -936,3 +953,102 @@ def test_a_group_result_of_the_wrong_shape_fails_its_tasks_before_any_row_is_wri
     ):
         with pytest.raises(ValueError, match=words):
             checked_outcomes(group, bad)
+
+
+def test_a_server_that_accepts_but_never_answers_is_no_scheduler(tmp_path):
+    # a user trial's hang, found again in review: Dask's Client(timeout=2) waited forever on a
+    # port whose server accepts connections and never answers (another service); the probe
+    # asks for the scheduler's identity with a deadline, before the folder or a kernel is
+    # touched
+    import socket
+
+    with socket.create_server(("127.0.0.1", 0)) as silent:
+        address = f"tcp://127.0.0.1:{silent.getsockname()[1]}"
+        started = time.perf_counter()
+        with pytest.raises(ValueError, match="does not answer as a Dask scheduler within 2 s"):
+            run_study(_spec("0"), tmp_path / "s", scheduler=address, timeout=2, progress=False)
+    assert time.perf_counter() - started < 30 and not (tmp_path / "s").exists()
+
+
+def test_workers_running_other_code_are_named_before_the_tasks_go_out():
+    # a user trial: a worker of an external cluster imported a copy of the package with one
+    # line changed; its rows differed by up to 0.08 per spin and nothing said so
+    from orthoclimb.runtime import code_digest
+    from orthoclimb.studies.engine import _foreign_code_notes
+
+    class Client:
+        def __init__(self, answer):
+            self.answer = answer
+
+        def run(self, fn):
+            assert fn is code_digest
+            if isinstance(self.answer, Exception):
+                raise self.answer
+            return self.answer
+
+    same, other = code_digest(), "0123456789abcdef"
+    notes = _foreign_code_notes(Client({"tcp://b:2": other, "tcp://a:1": same}))
+    assert notes == [
+        f"note: the worker tcp://b:2 runs other orthoclimb code (digest {other}) than this"
+        f" process ({same}): its rows may differ from this code's; install the same code on"
+        " every worker"
+    ]
+    assert _foreign_code_notes(Client({"tcp://a:1": same})) == []
+    assert _foreign_code_notes(Client(ModuleNotFoundError("orthoclimb"))) == []
+
+
+def test_tasks_cancelled_under_the_sweep_are_no_failures(tmp_path, monkeypatch):
+    # a user trial killed the external scheduler mid-sweep: the unfinished tasks were written
+    # to failed/ with Dask's FutureCancelledError, as if they had failed. Cancelled futures
+    # (here cancelled by the test as the sweep starts collecting) now stop the sweep with one
+    # message, no failure record, and the table of the rows written
+    import distributed
+
+    from orthoclimb.studies.engine import SchedulerLostError
+
+    real = distributed.as_completed
+
+    def cancelled_first(futures, *args, **kwargs):
+        for fut in futures:
+            fut.cancel()
+        return real(futures, *args, **kwargs)
+
+    monkeypatch.setattr(distributed, "as_completed", cancelled_first)
+    folder = tmp_path / "s"
+    with pytest.raises(SchedulerLostError, match=r"lost its Dask scheduler .* did not finish"):
+        run_study(_spec("0"), folder, workers=1, progress=False, log=lambda _: None)
+    assert not (folder / "failed").exists() or not list((folder / "failed").iterdir())
+    assert (folder / "results.parquet").exists()
+
+
+def test_an_external_cluster_that_loses_every_worker_is_announced(monkeypatch):
+    # a user trial's only worker died on its first task, and the sweep waited without a word
+    # until it was killed (the "no workers yet" note comes only at the start)
+    import threading
+
+    from orthoclimb.studies import engine
+
+    class Client:  # the scheduler's view: 1 worker, then none, then 2
+        def __init__(self):
+            self.counts = iter([1, 0, 0, 2, 2])
+
+        def scheduler_info(self):
+            return {"workers": dict.fromkeys(range(next(self.counts, 2)))}
+
+    said: list[str] = []
+    stop = threading.Event()
+    monkeypatch.setattr(engine, "WORKER_WATCH_SECONDS", 0.01)
+    watch = threading.Thread(
+        target=engine._watch_workers, args=(Client(), "tcp://s:1", said.append, stop)
+    )
+    watch.start()
+    deadline = time.time() + 10
+    while len(said) < 2 and time.time() < deadline:
+        time.sleep(0.01)
+    stop.set()
+    watch.join(5)
+    assert said == [
+        "note: the Dask cluster at tcp://s:1 has no workers now: the tasks wait until one joins"
+        " (Ctrl-C stops the sweep and keeps the rows written)",
+        "note: 2 workers in the cluster again",
+    ]

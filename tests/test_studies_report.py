@@ -854,3 +854,24 @@ def test_rows_of_several_versions_are_named_and_the_sampler_change_is_said(tmp_p
 
     text = mixed_versions_text([{"version": "0.10.0"}, {"version": "0.2.0"}, {}])
     assert "(no version recorded: 1 rows, 0.2.0: 1 rows, 0.10.0: 1 rows)" in text
+
+
+def test_rows_of_one_version_from_different_code_are_pointed_out():
+    # a user trial: a worker of an external cluster imported another copy of the package (the
+    # same version, one line changed): 4 of 16 rows came from it, two energies moved by up to
+    # 0.08 per spin, and the report said nothing
+    from orthoclimb.studies.report import mixed_code_text
+
+    rows = [{"version": "0.2.0", "code": "aaaa"}] * 12 + [{"version": "0.2.0", "code": "bbbb"}] * 4
+    assert mixed_code_text(rows) == (
+        "rows of the same version of orthoclimb were written by different code (the rows'"
+        " code digests: 0.2.0: aaaa (12 rows), bbbb (4 rows)): an edited or rebuilt package, or"
+        " a worker importing another copy of it; if that code changed what a method computes,"
+        " its runs are not comparable (the table's worker column says where each row ran)."
+    )
+    # one digest per version (two versions are the other finding's), or none recorded: nothing
+    assert (
+        mixed_code_text([{"version": "0.2.0", "code": "a"}, {"version": "0.2.1", "code": "b"}])
+        is None
+    )
+    assert mixed_code_text([{"version": "0.2.0"}, {"version": "0.2.0", "code": "a"}]) is None

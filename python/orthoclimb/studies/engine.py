@@ -37,6 +37,7 @@ import sys
 import threading
 import time
 from collections.abc import Callable
+from concurrent.futures import CancelledError
 from dataclasses import dataclass
 from typing import Any
 
@@ -136,6 +137,12 @@ def _reduced_requests(
     return notes
 
 
+class SchedulerLostError(ValueError):
+    """The sweep's tasks were cancelled under it: its connection to the Dask scheduler was
+    lost (a user trial killed the scheduler: the unfinished tasks were recorded as failed,
+    each with Dask's FutureCancelledError)."""
+
+
 @dataclass
 class SweepOutcome:
     total: int
@@ -199,6 +206,39 @@ def _probe(scheduler: str, timeout: float) -> None:
             "or give none (omit --scheduler; scheduler=None in Python) to use an embedded"
             " local cluster"
         ) from None
+    # something listens: ask it who it is. Dask's Client waited forever on a server that
+    # accepts connections and never answers (another service on that port), its timeout
+    # covering the connection only
+    try:
+        kind = _identity(scheduler, timeout).get("type")
+    except Exception as exc:  # noqa: BLE001 - a timeout, a reply that is no Dask message, ...
+        kind = f"no answer ({type(exc).__name__})"
+    if kind != "Scheduler":
+        raise ValueError(
+            f"cannot reach the Dask scheduler at {scheduler}: something listens there, but it"
+            f" does not answer as a Dask scheduler within {timeout:g} s ({kind}); check the"
+            " address (the scheduler's port, not its dashboard's)"
+        )
+
+
+def _identity(scheduler: str, timeout: float) -> dict:
+    """The scheduler's reply to Dask's ``identity`` message (its "type", its workers, ...),
+    waited for at most ``timeout`` seconds, in a thread of its own (so that a caller inside a
+    running event loop, a notebook, can call this too)."""
+    import asyncio
+    from concurrent.futures import ThreadPoolExecutor
+
+    from distributed.core import rpc
+
+    async def ask() -> dict:
+        remote = rpc(scheduler)
+        try:
+            return await asyncio.wait_for(remote.identity(), timeout)
+        finally:
+            await remote.close_rpc()
+
+    with ThreadPoolExecutor(1) as pool:
+        return pool.submit(asyncio.run, ask()).result()
 
 
 @contextlib.contextmanager
@@ -364,6 +404,54 @@ def _check_largest_fits(spec: StudySpec, tasks: list[Task]) -> None:
         )
 
 
+#: Seconds between two looks of :func:`_watch_workers` at an external cluster's workers.
+WORKER_WATCH_SECONDS = 10.0
+
+
+def _watch_workers(client: Any, scheduler: str, log: Callable, stop: threading.Event) -> None:
+    """Until ``stop`` is set, look every WORKER_WATCH_SECONDS at the workers of the external
+    cluster and say when it has none left (and when some come back): a user trial's only
+    worker died on its first task and the sweep waited without a word until it was killed,
+    the "no workers yet" note being printed only at the start."""
+    had = True
+    while not stop.wait(WORKER_WATCH_SECONDS):
+        try:
+            now = len(client.scheduler_info()["workers"])
+        except Exception:  # noqa: BLE001 - the note is a courtesy; the sweep goes on
+            continue
+        if had and now == 0:
+            log(
+                f"note: the Dask cluster at {scheduler} has no workers now: the tasks wait"
+                " until one joins (Ctrl-C stops the sweep and keeps the rows written)"
+            )
+        elif not had and now > 0:
+            log(f"note: {counted(now, 'worker')} in the cluster again")
+        had = now > 0
+
+
+def _foreign_code_notes(client: Any) -> list[str]:
+    """Notes for the workers of an external cluster whose orthoclimb is other code than this
+    process's (another :func:`~orthoclimb.runtime.code_digest`: another version, an edited
+    copy, a worker started where another copy of the package is imported first). A user
+    trial's worker ran a copy with one line changed: 4 of 16 rows came from it and two
+    energies moved by up to 0.08 per spin, without a word. Workers that join later are not
+    asked; the report points out rows of one version from different code."""
+    from ..runtime import code_digest
+
+    try:
+        theirs = client.run(code_digest)
+    except Exception:  # noqa: BLE001 - a worker that cannot import orthoclimb fails its tasks
+        return []
+    ours = code_digest()
+    return [
+        f"note: the worker {address} runs other orthoclimb code (digest {digest}) than this"
+        f" process ({ours}): its rows may differ from this code's; install the same code on"
+        " every worker"
+        for address, digest in sorted(theirs.items())
+        if digest != ours
+    ]
+
+
 def _worker_addresses(client: Any) -> set[str]:
     """Addresses of the workers the scheduler knows now (empty if it cannot say)."""
     try:
@@ -468,8 +556,8 @@ def run_study(
         )
     if not isinstance(keep_points, bool):
         raise TypeError(f"keep_points must be True or False, got {keep_points!r}")
-    if scheduler is not None:
-        check_scheduler_address(scheduler)  # before the study folder is created
+    if scheduler is not None:  # before the study folder is made and the plan times kernels
+        _probe(scheduler, timeout)  # (the address's form, then that something listens there)
     tasks = spec.tasks()
     if scheduler is None:
         _check_largest_fits(spec, tasks)  # before the study folder is created
@@ -547,9 +635,13 @@ def _sweep(
     client = cluster = None
     bar = None
     connected = False
+    watch_stop = threading.Event()  # ends the external cluster's worker watch
     try:
         client, cluster = _connect(scheduler, plan or WorkerPlan(1, 1, 1), timeout)
         connected = True
+        if cluster is None:
+            for note in _foreign_code_notes(client):
+                log(note)
         task_threads = plan.rayon_threads if plan is not None else (threads or 1)
         from distributed import as_completed
 
@@ -605,12 +697,24 @@ def _sweep(
             bar.set_postfix(done=skipped + done, running=running, failed=failed, refresh=True)
 
         show()
+        if cluster is None:  # an external cluster can lose every worker: say so
+            watch = threading.Thread(
+                target=_watch_workers, args=(client, scheduler, log, watch_stop), daemon=True
+            )
+            watch.start()
         for fut in as_completed(futures):
             group = by_key[fut.key]
             # ask the future itself rather than its status: a result held by a worker that
             # dies after the task finished is "lost" for a moment, then computed again
             try:
                 outcomes = checked_outcomes(group, fut.result())
+            except CancelledError as exc:  # not the task's failure: nothing may run any more
+                left = len(pending) - done - failed
+                raise SchedulerLostError(
+                    f"the sweep lost its Dask scheduler ({exc}); {counted(left, 'task')} did"
+                    " not finish and none of them failed: rerun the same command to run them"
+                    " (the rows written are kept)"
+                ) from None
             except Exception as exc:  # noqa: BLE001 - the group's own error (its sampling)
                 outcomes = [("error", f"{type(exc).__name__}: {exc}")] * len(group)
             for task, (kind, value) in zip(group, outcomes, strict=True):
@@ -627,6 +731,7 @@ def _sweep(
             # new one, maybe not yet registered when the last task ends)
             replaced = len(first_workers - _worker_addresses(client))
     finally:
+        watch_stop.set()
         try:
             _close(bar, cluster, client, old_term, sys.exc_info()[1])
         finally:  # also when closing failed: a user trial's interrupted sweeps ended 2 times

@@ -379,9 +379,9 @@ def build_report(
             f"{lacking} rows of polishing methods lack energy_before_polish (written by an"
             " older version): the 'before polish' series leave those runs out.",
         )
-    mixed = mixed_versions_text(rows)
-    if mixed is not None:
-        rep.findings.append(mixed)
+    for mixed in (mixed_versions_text(rows), mixed_code_text(rows)):
+        if mixed is not None:
+            rep.findings.append(mixed)
     if unreadable:  # the rest of the report stands without them
         rep.findings.append(
             f"{len(unreadable)} of the end points kept by --keep-points cannot be read, and the"
@@ -572,6 +572,33 @@ def mixed_versions_text(rows: list[dict[str, Any]]) -> str | None:
             " spread over seeds, but the same seed is not bitwise the same instance"
         )
     return text + "."
+
+
+def mixed_code_text(rows: list[dict[str, Any]]) -> str | None:
+    """A finding when rows of one version of orthoclimb were written by different code (their
+    ``code`` digests differ: an editable install edited between runs, or a worker of an
+    external cluster importing another copy of the package), None otherwise. A user trial's
+    worker ran a copy whose gradient ascent started elsewhere: 4 of 16 rows came from it, 2
+    energies moved by up to 0.08 per spin, and nothing said so (the versions were equal)."""
+    digests: dict[str, dict[str, int]] = {}
+    for r in rows:
+        version, code = r.get("version"), r.get("code")
+        if isinstance(version, str) and isinstance(code, str) and code:
+            counts = digests.setdefault(version, {})
+            counts[code] = counts.get(code, 0) + 1
+    parts = [
+        f"{version}: " + ", ".join(f"{c} ({k} rows)" for c, k in sorted(counts.items()))
+        for version, counts in sorted(digests.items())
+        if len(counts) > 1
+    ]
+    if not parts:
+        return None
+    return (
+        "rows of the same version of orthoclimb were written by different code (the rows' code"
+        f" digests: {'; '.join(parts)}): an edited or rebuilt package, or a worker importing"
+        " another copy of it; if that code changed what a method computes, its runs are not"
+        " comparable (the table's worker column says where each row ran)."
+    )
 
 
 def _findings(rep: Report, seeds: dict) -> list[str]:
