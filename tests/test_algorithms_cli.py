@@ -119,7 +119,9 @@ def test_climb_refused_for_memory_says_what_the_command_can_do(tmp_path, capsys)
     assert main(args) == 2
     err = capsys.readouterr().err
     assert f"needs {8 * math.comb(100002, 3)} bytes" in err and "check_memory" not in err
-    assert "a smaller --n fits; --plan-only prints the plan without sampling" in err
+    assert (
+        "a smaller --n fits; --plan-only prints the plan, timing a small instance that fits" in err
+    )
 
 
 @pytest.mark.parametrize(

@@ -163,3 +163,15 @@ def test_an_external_plan_says_the_limit_holds_this_process_only(monkeypatch):
         monkeypatch.setenv(ENV_VAR, value)
         lines = plan_lines(spec, "s", spec.tasks(), None, "tcp://127.0.0.1:8786", None)
         assert any(line.startswith(note) for line in lines) is shown
+
+
+def test_a_plan_with_no_room_to_time_anything_says_so_and_goes_on(monkeypatch, capsys):
+    # a review: with the limit below what the process holds, climb --plan-only was refused
+    # for a timing instance of n = 2, a size the user never asked for
+    from orthoclimb.cli import main
+
+    monkeypatch.setenv(ENV_VAR, "1kB")
+    assert main(["climb", "--gammas", "3:1", "--n", "500", "--plan-only"]) == 0
+    out = capsys.readouterr().out
+    assert "no time estimate: the kernels could not be timed here: " in out
+    assert "plan only: no run, nothing written" in out

@@ -875,3 +875,23 @@ def test_rows_of_one_version_from_different_code_are_pointed_out():
         is None
     )
     assert mixed_code_text([{"version": "0.2.0"}, {"version": "0.2.0", "code": "a"}]) is None
+
+
+def test_a_row_that_breaks_the_table_is_named_by_its_path_in_the_study(tmp_path, monkeypatch):
+    # a review: the report (which every sweep writes) named such a row "rows/<id>.json",
+    # relative to wherever the command ran, not to the study folder
+    from orthoclimb.studies.report import write_report
+
+    spec = spec_from_flags(["3:1"], None, "20,40", "0-2", "gradient")
+    store = Store.open(tmp_path / "s", spec)
+    tasks = spec.tasks()
+    for i, t in enumerate(tasks):
+        row = {"task_id": t.task_id, "mixture": t.mixture.name, "method": t.method.name}
+        row.update(n=t.n, seed=t.seed, energy=1.6 - t.n ** (-2 / 3) + 0.01 * t.seed)
+        row["worker"] = 12 if i == 1 else f"h:{i}"
+        store.write_row(row)
+    monkeypatch.chdir(tmp_path)  # so that a relative path would not point at the study
+    with pytest.raises(ValueError) as info:
+        write_report(tmp_path / "s", plots=False)
+    path = str(tmp_path / "s" / "rows" / f"{tasks[1].task_id}.json")
+    assert str(info.value).startswith(f"the row file {path!r} has worker = 12, where")

@@ -384,16 +384,21 @@ def run(args: argparse.Namespace) -> int:
     polish = not args.no_polish and args.method != "gradient"
     if args.plan_only:  # before the memory check: a plan may be for a bigger machine
         load = OtherLoad().start()
-        probe, seconds = _probe(mixture, args.n, args.dtype)
-        say(_sampling_text(probe, seconds, need))
-        scale = need / probe.nbytes
-        say(_run_estimate(probe, args.method, steps, polish, args.n, scale, start)[0])
-        del probe  # freed before the memory check, which counts this process's own memory
-        # a trial's plans varied 3-5x under load; a plan's timing takes milliseconds, so the
-        # load is read over half a second (the plan waits out the rest)
-        busy = busy_note(load.stop(settle=0.5), "the plan", get_num_threads())
-        if busy is not None:
-            say(f"note: {busy}")
+        try:
+            probe, seconds = _probe(mixture, args.n, args.dtype)
+        except MemoryError as exc:  # not even a small instance to time fits (a review)
+            load.stop()
+            say(f"no time estimate: the kernels could not be timed here: {exc}")
+        else:
+            say(_sampling_text(probe, seconds, need))
+            scale = need / probe.nbytes
+            say(_run_estimate(probe, args.method, steps, polish, args.n, scale, start)[0])
+            del probe  # freed before the memory check, which counts this process's memory
+            # a trial's plans varied 3-5x under load; a plan's timing takes milliseconds, so
+            # the load is read over half a second (the plan waits out the rest)
+            busy = busy_note(load.stop(settle=0.5), "the plan", get_num_threads())
+            if busy is not None:
+                say(f"note: {busy}")
         try:
             require_memory(need, f"an instance of {mixture!r} with n = {args.n}", _SMALLER)
         except MemoryError as exc:

@@ -404,16 +404,21 @@ def _check_largest_fits(spec: StudySpec, tasks: list[Task]) -> None:
         )
 
 
+#: Seconds the sweep waits for the workers of an external cluster to name their code.
+CODE_CHECK_SECONDS = 20.0
+
 #: Seconds between two looks of :func:`_watch_workers` at an external cluster's workers.
 WORKER_WATCH_SECONDS = 10.0
 
 
-def _watch_workers(client: Any, scheduler: str, log: Callable, stop: threading.Event) -> None:
+def _watch_workers(
+    client: Any, scheduler: str, log: Callable, stop: threading.Event, had: bool = True
+) -> None:
     """Until ``stop`` is set, look every WORKER_WATCH_SECONDS at the workers of the external
     cluster and say when it has none left (and when some come back): a user trial's only
     worker died on its first task and the sweep waited without a word until it was killed,
-    the "no workers yet" note being printed only at the start."""
-    had = True
+    the "no workers yet" note being printed only at the start. ``had``: whether it had
+    workers at the start (the start's own note covers a cluster without)."""
     while not stop.wait(WORKER_WATCH_SECONDS):
         try:
             now = len(client.scheduler_info()["workers"])
@@ -438,18 +443,36 @@ def _foreign_code_notes(client: Any) -> list[str]:
     asked; the report points out rows of one version from different code."""
     from ..runtime import code_digest
 
-    try:
-        theirs = client.run(code_digest)
-    except Exception:  # noqa: BLE001 - a worker that cannot import orthoclimb fails its tasks
-        return []
-    ours = code_digest()
-    return [
-        f"note: the worker {address} runs other orthoclimb code (digest {digest}) than this"
-        f" process ({ours}): its rows may differ from this code's; install the same code on"
-        " every worker"
-        for address, digest in sorted(theirs.items())
-        if digest != ours
-    ]
+    answer: dict[str, Any] = {}
+
+    def ask() -> None:
+        try:  # per worker: its digest, or the exception it raised (no orthoclimb there)
+            answer.update(client.run(code_digest, on_error="return"))
+        except Exception:  # noqa: BLE001 - the notes are a courtesy
+            pass
+
+    asker = threading.Thread(target=ask, daemon=True)  # Client.run has no deadline of its own
+    asker.start()
+    asker.join(CODE_CHECK_SECONDS)
+    if asker.is_alive():
+        return [
+            f"note: the workers did not say within {CODE_CHECK_SECONDS:g} s which orthoclimb"
+            " they run (not checked)"
+        ]
+    ours, notes = code_digest(), []
+    for address, digest in sorted(answer.items()):
+        if isinstance(digest, BaseException):
+            notes.append(
+                f"note: the worker {address} cannot run orthoclimb"
+                f" ({type(digest).__name__}: {digest}): its tasks will fail"
+            )
+        elif digest != ours:
+            notes.append(
+                f"note: the worker {address} runs other orthoclimb code (digest {digest}) than"
+                f" this process ({ours}): its rows may differ from this code's; install the"
+                " same code on every worker"
+            )
+    return notes
 
 
 def _worker_addresses(client: Any) -> set[str]:
@@ -476,9 +499,10 @@ def _inside_script_reimport() -> bool:
 
 def checked_outcomes(group: list[Task], outcomes: Any) -> list[tuple[str, Any]]:
     """The outcomes of a group's future (:func:`~orthoclimb.studies.tasks.run_instance_tasks`),
-    checked before any is written: one ("row", dict) or ("error", str) per task of the group,
-    or a ValueError, which the sweep records as every task's failure (a half-written group
-    would otherwise stop the sweep midway, the other groups' results unread)."""
+    checked before the driver writes any: one ("row", dict) or ("error", str) per task of the
+    group, or a ValueError, which the sweep records as the failure of every task without a row
+    (a half-written group would otherwise stop the sweep midway, the other groups' results
+    unread; an embedded cluster's worker has written the rows of the tasks it finished)."""
     ok = isinstance(outcomes, list) and len(outcomes) == len(group)
     ok = ok and all(
         isinstance(o, tuple)
@@ -636,6 +660,12 @@ def _sweep(
     bar = None
     connected = False
     watch_stop = threading.Event()  # ends the external cluster's worker watch
+    # the client's own reconnect attempts after a lost scheduler logged some 35 lines of
+    # ERROR and chained tracebacks before the sweep's one message (a review); the sweep says
+    # what it means (SchedulerLostError, the watch's notes)
+    client_log = logging.getLogger("distributed.client")
+    client_level = client_log.level
+    client_log.setLevel(logging.CRITICAL)
     try:
         client, cluster = _connect(scheduler, plan or WorkerPlan(1, 1, 1), timeout)
         connected = True
@@ -661,7 +691,9 @@ def _sweep(
                 group,
                 task_threads,
                 keep_points,
-                rows_folder,
+                # a keyword, and only where it is used: an external worker with an earlier
+                # release (no such parameter) still runs the group
+                **({"rows_folder": rows_folder} if rows_folder is not None else {}),
                 # one task alone keeps the key it always had
                 key=f"orthoclimb-{first}" + (f"-and-{len(group) - 1}" if len(group) > 1 else ""),
                 retries=retries,
@@ -699,7 +731,9 @@ def _sweep(
         show()
         if cluster is None:  # an external cluster can lose every worker: say so
             watch = threading.Thread(
-                target=_watch_workers, args=(client, scheduler, log, watch_stop), daemon=True
+                target=_watch_workers,
+                args=(client, scheduler, log, watch_stop, slots > 0),
+                daemon=True,
             )
             watch.start()
         for fut in as_completed(futures):
@@ -718,6 +752,12 @@ def _sweep(
             except Exception as exc:  # noqa: BLE001 - the group's own error (its sampling)
                 outcomes = [("error", f"{type(exc).__name__}: {exc}")] * len(group)
             for task, (kind, value) in zip(group, outcomes, strict=True):
+                if kind == "error" and store.row_path(task.task_id).exists():
+                    # the local worker wrote its row before the group failed (a worker killed
+                    # in a later method): done, not failed (a review: a failure record stayed
+                    # beside the row for good)
+                    done += 1
+                    continue
                 if kind == "error":
                     store.write_failure(task.task_id, task.config(), value)
                     failed += 1
@@ -736,6 +776,7 @@ def _sweep(
             _close(bar, cluster, client, old_term, sys.exc_info()[1])
         finally:  # also when closing failed: a user trial's interrupted sweeps ended 2 times
             # in 6 without a table, after 10 s in the cluster's close
+            client_log.setLevel(client_level)  # (after the close, whose retries log too)
             # a sweep whose cluster never started takes back what it did to the folder (a
             # new study removed, an extension undone), so a rerun may differ; else the table
             # is brought up to date

@@ -289,11 +289,13 @@ def extrapolate(
     check_interval(level, n_boot)
     if isinstance(seed, (bool, np.bool_)) or not isinstance(seed, (int, np.integer)) or seed < 0:
         raise ValueError(f"seed must be an integer >= 0 (the bootstrap's), got {seed!r}")
-    # the fit runs on samples of order one: divided by a power of two, which is exact, so
-    # energies per spin keep every bit, while 1e308 (NaN fits) or 1e-200 (weights beyond
-    # float64) fit as well as 1 (a user trial); the results are multiplied back
+    # samples far from order one are fitted divided by a power of two (exact): 1e308 gave
+    # NaN fits and 1e-200 weights beyond float64 (a user trial); the results are multiplied
+    # back. Samples within 2^-500..2^500 are fitted as given, so they keep every bit (the
+    # pooled law's logarithms would not)
     top = max(float(np.abs(a).max()) for a in arrays)
-    scale = 2.0 ** round(math.log2(top)) if top > 0 else 1.0
+    far = top > 0 and not 2.0**-500 <= top <= 2.0**500
+    scale = math.ldexp(1.0, math.frexp(top)[1] - 1) if far else 1.0  # <= top: never inf
     ex = _extrapolate([a / scale for a in arrays], sizes, exponent, level, n_boot, seed, pooled)
     if scale == 1.0:
         return ex

@@ -940,7 +940,7 @@ def write_report(
         rows: list[dict[str, Any]] | None = rep.rows
         if target == folder:
             rows = _rows_to_table(stack, folder, rep)
-        _write_report_files(rep, target, plots, rows, reraise=out is not None)
+        _write_report_files(rep, target, plots, rows, folder / "rows", reraise=out is not None)
     return rep
 
 
@@ -966,7 +966,12 @@ def _rows_to_table(
 
 
 def _write_report_files(
-    rep: Report, target: Path, plots: bool, rows: list[dict[str, Any]] | None, reraise: bool
+    rep: Report,
+    target: Path,
+    plots: bool,
+    rows: list[dict[str, Any]] | None,
+    rows_dir: Path,
+    reraise: bool,
 ) -> None:
     """Stage the report's files (plots, the table of ``rows`` unless None, report.md,
     report.json) in ``target`` and rename them all at once."""
@@ -979,7 +984,8 @@ def _write_report_files(
     for name, path, writer in plot_files(rep, rep.energies, target) if plots else []:
         rep.files[name] = str(path)
         files.append((path, writer))
-    for name, (path, writer) in table_files(rows, target).items() if rows is not None else []:
+    tables = table_files(rows, target, rows_dir).items() if rows is not None else []
+    for name, (path, writer) in tables:
         rep.files[name] = str(path)
         files.append((path, writer))
     rep.files["markdown"] = str(target / "report.md")

@@ -661,7 +661,7 @@ def _kind(value: Any) -> str:
 
 
 def table_files(
-    rows: list[dict[str, Any]], folder: Path, rows_dir: Path = Path("rows")
+    rows: list[dict[str, Any]], folder: Path, rows_dir: Path
 ) -> dict[str, tuple[Path, Any]]:
     """The tidy table of ``rows`` (one per completed task) as {"parquet": (path, writer),
     "csv": (path, writer)} in ``folder``, each writer taking a binary file, for
