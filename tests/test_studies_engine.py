@@ -488,10 +488,24 @@ def test_ctrl_c_stops_the_sweep_without_worker_tracebacks(tmp_path):
     # sweep's one-line message may remain, with the shell's status for SIGINT (128 + 2).
     folder = tmp_path / "s"
     args = ["--gammas", "3:1", "--n", "40,60", "--seeds", "0-199", "--methods", "hessian"]
-    args += ["--steps", "30", "--workers", "2", "--out", str(folder), "--no-progress"]
+    _interrupt_after_rows([*args, "--steps", "30", "--workers", "2"], folder, 2)
+
+
+def _interrupt_after_rows(args: list[str], folder, count: int) -> None:
+    """:func:`_interrupted_sweep` of ``orthoclimb sweep ARGS`` into ``folder`` (no progress bar,
+    no report), interrupted once ``count`` rows are written."""
     _interrupted_sweep(
-        [*args, "--no-report"], lambda proc: _wait_for_rows(proc, folder / "rows", 2, "Ctrl-C")
+        [*args, "--out", str(folder), "--no-progress", "--no-report"],
+        lambda proc: _wait_for_rows(proc, folder / "rows", count, "Ctrl-C"),
     )
+
+
+#: One instance whose gradient ascent ends in about a second and whose Hessian ascent (3000
+#: steps at n = 300) would take half a minute, on one worker.
+_GRADIENT_THEN_LONG_HESSIAN = [
+    *("--gammas", "3:1", "--n", "300", "--seeds", "0", "--methods", "gradient,hessian"),
+    *("--steps", "3000", "--workers", "1"),
+]
 
 
 def _interrupted_sweep(args: list[str], wait: Callable[[subprocess.Popen], Any]) -> None:
@@ -524,14 +538,9 @@ def _interrupted_sweep(args: list[str], wait: Callable[[subprocess.Popen], Any])
 def test_ctrl_c_keeps_the_finished_methods_of_a_running_instance(tmp_path):
     # the methods of one instance run as one Dask task on one sampling; their rows used to
     # reach the folder only when the last method ended, so a Ctrl-C lost the finished ones.
-    # The embedded cluster's worker now writes each row as its method ends: gradient ascent
-    # ends in about a second, Hessian ascent with 3000 steps would take half a minute
+    # The embedded cluster's worker now writes each row as its method ends
     folder = tmp_path / "s"
-    args = ["--gammas", "3:1", "--n", "300", "--seeds", "0", "--methods", "gradient,hessian"]
-    args += ["--steps", "3000", "--workers", "1", "--out", str(folder), "--no-progress"]
-    _interrupted_sweep(
-        [*args, "--no-report"], lambda proc: _wait_for_rows(proc, folder / "rows", 1, "Ctrl-C")
-    )
+    _interrupt_after_rows(_GRADIENT_THEN_LONG_HESSIAN, folder, 1)
     table = pq.read_table(folder / "results.parquet").to_pylist()
     assert [(r["method"], r["sample_shared_by"]) for r in table] == [("gradient", 2)]
     assert Store(folder, spec_from_flags(["3:1"], None, "300", "0", "gradient,hessian")).rows()
@@ -1048,8 +1057,7 @@ def test_a_task_whose_row_the_worker_wrote_is_not_failed_with_its_group(tmp_path
     # wrote failed/ records for every task of the group, the finished one included, and that
     # record stayed beside its row for good
     folder = tmp_path / "s"
-    args = ["--gammas", "3:1", "--n", "300", "--seeds", "0", "--methods", "gradient,hessian"]
-    args += ["--steps", "3000", "--workers", "1", "--retries", "0", "--out", str(folder)]
+    args = [*_GRADIENT_THEN_LONG_HESSIAN, "--retries", "0", "--out", str(folder)]
     cmd = [sys.executable, "-m", "orthoclimb", "sweep", *args, "--no-progress", "--no-report"]
     # Dask reruns a task whose worker died up to allowed-failures times: here none
     env = {**os.environ, "DASK_DISTRIBUTED__SCHEDULER__ALLOWED_FAILURES": "0"}
