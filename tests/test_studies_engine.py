@@ -18,6 +18,7 @@ import pytest
 
 from orthoclimb import Mixture
 from orthoclimb.cli import main
+from orthoclimb.studies import external
 from orthoclimb.studies.engine import (
     WorkerPlan,
     _connect,
@@ -314,12 +315,10 @@ def test_a_study_with_results_stays_when_its_scheduler_is_unreachable(tmp_path, 
 
     import distributed
 
-    from orthoclimb.studies import engine
-
     def failing_client(*args, **kwargs):
         raise TimeoutError("no reply")
 
-    monkeypatch.setattr(engine, "_identity", lambda *a: {"type": "Scheduler"})
+    monkeypatch.setattr(external, "scheduler_identity", lambda *a: {"type": "Scheduler"})
     monkeypatch.setattr(distributed, "Client", failing_client)
     with socket.create_server(("127.0.0.1", 0)) as silent:
         address = f"tcp://127.0.0.1:{silent.getsockname()[1]}"
@@ -832,7 +831,9 @@ def test_a_listener_that_is_no_scheduler_gets_a_message_naming_the_address(monke
         raise RuntimeError("handshake failed")
 
     monkeypatch.setattr(distributed, "Client", refusing_client)
-    monkeypatch.setattr(engine, "_identity", lambda *a: {"type": "Scheduler"})  # past the probe
+    monkeypatch.setattr(
+        external, "scheduler_identity", lambda *a: {"type": "Scheduler"}
+    )  # past the probe
     with socket.socket() as listener:
         listener.bind(("127.0.0.1", 0))
         listener.listen()
@@ -983,7 +984,6 @@ def test_workers_running_other_code_are_named_before_the_tasks_go_out(monkeypatc
     # a user trial: a worker of an external cluster imported a copy of the package with one
     # line changed; its rows differed by up to 0.08 per spin and nothing said so
     from orthoclimb.runtime import code_digest
-    from orthoclimb.studies import engine
 
     class Client:
         def __init__(self, answer, delay=0.0):
@@ -998,7 +998,7 @@ def test_workers_running_other_code_are_named_before_the_tasks_go_out(monkeypatc
 
     same, other = code_digest(), "0123456789abcdef"
     missing = ModuleNotFoundError("No module named 'orthoclimb'")
-    notes = engine._foreign_code_notes(
+    notes = external.foreign_code_notes(
         Client({"tcp://b:2": other, "tcp://a:1": same, "tcp://c:3": missing})
     )
     assert notes == [
@@ -1008,11 +1008,11 @@ def test_workers_running_other_code_are_named_before_the_tasks_go_out(monkeypatc
         "note: the worker tcp://c:3 cannot run orthoclimb (ModuleNotFoundError: No module"
         " named 'orthoclimb'): its tasks will fail",
     ]
-    assert engine._foreign_code_notes(Client({"tcp://a:1": same})) == []
-    assert engine._foreign_code_notes(Client(OSError("scheduler gone"))) == []
+    assert external.foreign_code_notes(Client({"tcp://a:1": same})) == []
+    assert external.foreign_code_notes(Client(OSError("scheduler gone"))) == []
     # a worker that never answers: Client.run has no deadline, the check has one
-    monkeypatch.setattr(engine, "CODE_CHECK_SECONDS", 0.2)
-    (note,) = engine._foreign_code_notes(Client({"tcp://a:1": same}, delay=2.0))
+    monkeypatch.setattr(external, "CODE_CHECK_SECONDS", 0.2)
+    (note,) = external.foreign_code_notes(Client({"tcp://a:1": same}, delay=2.0))
     assert (
         note == "note: the workers did not say within 0.2 s which orthoclimb they run (not checked)"
     )
@@ -1023,8 +1023,6 @@ def test_an_external_cluster_that_loses_every_worker_is_announced(monkeypatch):
     # until it was killed (the "no workers yet" note comes only at the start)
     import threading
 
-    from orthoclimb.studies import engine
-
     class Client:  # the scheduler's view: 1 worker, then none, then 2
         def __init__(self):
             self.counts = iter([1, 0, 0, 2, 2])
@@ -1034,9 +1032,9 @@ def test_an_external_cluster_that_loses_every_worker_is_announced(monkeypatch):
 
     said: list[str] = []
     stop = threading.Event()
-    monkeypatch.setattr(engine, "WORKER_WATCH_SECONDS", 0.01)
+    monkeypatch.setattr(external, "WORKER_WATCH_SECONDS", 0.01)
     watch = threading.Thread(
-        target=engine._watch_workers, args=(Client(), "tcp://s:1", said.append, stop)
+        target=external.watch_workers, args=(Client(), "tcp://s:1", said.append, stop)
     )
     watch.start()
     deadline = time.time() + 10
