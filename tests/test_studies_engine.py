@@ -831,9 +831,6 @@ def test_a_listener_that_is_no_scheduler_gets_a_message_naming_the_address(monke
         raise RuntimeError("handshake failed")
 
     monkeypatch.setattr(distributed, "Client", refusing_client)
-    monkeypatch.setattr(
-        external, "scheduler_identity", lambda *a: {"type": "Scheduler"}
-    )  # past the probe
     with socket.socket() as listener:
         listener.bind(("127.0.0.1", 0))
         listener.listen()

@@ -81,27 +81,41 @@ def _remove_empty(made: list[Path]) -> None:
     made.clear()
 
 
+#: Whether this platform has flock (POSIX); elsewhere no folder is locked.
+FOLDER_LOCKS = fcntl is not None
+
+
+def lock_folder(fd: int) -> bool | None:
+    """Try to take an exclusive flock on the open folder ``fd`` without waiting: True when
+    taken (held until ``fd`` is closed), False when another open file holds one, None where
+    there is no flock (off POSIX, or a file system without it, some network mounts)."""
+    if fcntl is None:  # pragma: no cover - not POSIX
+        return None
+    try:
+        fcntl.flock(fd, fcntl.LOCK_EX | fcntl.LOCK_NB)
+    except BlockingIOError:
+        return False
+    except OSError:
+        return None
+    return True
+
+
 def _locked_elsewhere(folder: Path) -> bool:
     """Whether another open file holds an flock on ``folder`` (a sweep's study folder lock,
     ``studies.store.sweep_lock``). Two sweeps started at once on a new path: the one whose
     mkdir made the folder was refused by the other's lock and removed the folder, still
     empty, from under it, which then held a lock on a deleted folder that a third sweep could
     not see. A held folder is left to its holder."""
-    if fcntl is None:  # pragma: no cover - not POSIX
+    if not FOLDER_LOCKS:  # pragma: no cover - not POSIX
         return False
     try:
         fd = os.open(folder, os.O_RDONLY)
     except OSError:
         return False
     try:
-        fcntl.flock(fd, fcntl.LOCK_EX | fcntl.LOCK_NB)
-    except BlockingIOError:
-        return True
-    except OSError:  # no flock here: nobody can hold one
-        return False
+        return lock_folder(fd) is False
     finally:
         os.close(fd)  # (and with it a lock this call took)
-    return False
 
 
 def remove_made_folders() -> None:

@@ -271,7 +271,7 @@ def _connect(scheduler: str | None, plan: WorkerPlan, timeout: float):
             if cluster is not None:
                 cluster.close()
             raise
-    probe_scheduler(scheduler, timeout)  # also checks the address
+    # (run_study probed the scheduler before the folder was touched: not asked again here)
     try:
         client = Client(scheduler, timeout=timeout)
     except (OSError, TimeoutError) as exc:

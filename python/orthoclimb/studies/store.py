@@ -41,15 +41,12 @@ from datetime import datetime, timezone
 from pathlib import Path
 from typing import Any
 
-try:  # POSIX; elsewhere a sweep does not lock its folder
-    import fcntl
-except ImportError:  # pragma: no cover - Windows
-    fcntl = None  # type: ignore[assignment]
-
 from ..fileio import (
+    FOLDER_LOCKS,
     ensure_folder,
     envelope,
     is_folder,
+    lock_folder,
     open_envelope,
     require_writable,
     write_atomic,
@@ -394,20 +391,17 @@ def sweep_lock(folder: str | os.PathLike) -> Iterator[None]:
     rewriting study.json under the first. Where the file system does not support flock on a
     folder, or off POSIX, nothing is locked."""
     path = ensure_folder(folder, "study folder")
-    if fcntl is None:  # pragma: no cover - Windows
+    if not FOLDER_LOCKS:  # pragma: no cover - Windows
         yield
         return
     fd = os.open(path, os.O_RDONLY)
     try:
-        try:
-            fcntl.flock(fd, fcntl.LOCK_EX | fcntl.LOCK_NB)
-        except BlockingIOError:
+        # None: no flock on this file system (some network mounts): go unlocked
+        if lock_folder(fd) is False:
             raise SweepRunningError(
                 f"another sweep is running in the study folder {str(path)!r}; wait for it to"
                 " end (or stop it), or use another folder (--out; folder= in Python)"
-            ) from None
-        except OSError:  # no flock on this file system (some network mounts): go unlocked
-            pass
+            )
         yield
     finally:
         os.close(fd)  # releases the lock
