@@ -465,6 +465,12 @@ def _sweep(
     from tqdm import tqdm
 
     workers, threads, retries, timeout, keep_points = settings
+    # set up before the study is opened: a Ctrl-C that lands between the block that undoes
+    # an unstarted study and the one that closes the cluster leaves a half-made study (more
+    # statements there made a test's interrupt hit it in 1 run of 3)
+    watch_stop = threading.Event()  # ends the external cluster's worker watch
+    client_log = logging.getLogger("distributed.client")
+    client_level = client_log.level
     store = Store.open(folder, spec)
     try:  # until the cluster is reached, a failure undoes what Store.open did
         pending = store.pending(tasks)
@@ -504,14 +510,11 @@ def _sweep(
     client = cluster = None
     bar = None
     connected = False
-    watch_stop = threading.Event()  # ends the external cluster's worker watch
-    # the client's own reconnect attempts after a lost scheduler logged some 35 lines of
-    # ERROR and chained tracebacks before the sweep's one message (a review); the sweep says
-    # what it means (SchedulerLostError, the watch's notes)
-    client_log = logging.getLogger("distributed.client")
-    client_level = client_log.level
-    client_log.setLevel(logging.CRITICAL)
     try:
+        # the client's own reconnect attempts after a lost scheduler logged some 35 lines of
+        # ERROR and chained tracebacks before the sweep's one message (a review); the sweep
+        # says what it means (SchedulerLostError, the watch's notes)
+        client_log.setLevel(logging.CRITICAL)
         client, cluster = _connect(scheduler, plan or WorkerPlan(1, 1, 1), timeout)
         connected = True
         if cluster is None:
