@@ -238,6 +238,31 @@ def test_unreachable_scheduler_is_a_clear_error(tmp_path, capsys):
     Store.open(tmp_path / "s", _spec("0-2"))
 
 
+def test_a_ctrl_c_while_sigterm_is_taken_over_undoes_the_new_study(tmp_path, monkeypatch):
+    # the last step before the cluster starts (SIGTERM -> KeyboardInterrupt) sat between the
+    # block that undoes an unstarted study and the one that closes the cluster: a Ctrl-C
+    # landing there left study.json of a study that never ran. Simulated: the handler's
+    # installation raises KeyboardInterrupt, as a signal arriving at that statement would.
+    import orthoclimb.studies.engine as engine
+
+    before = signal.getsignal(signal.SIGTERM)
+    real_signal = signal.signal
+
+    def interrupted(signum, handler):
+        if signum == signal.SIGTERM and handler is engine._term_to_interrupt:
+            real_signal(signum, handler)  # installed, then the Ctrl-C comes
+            raise KeyboardInterrupt
+        return real_signal(signum, handler)
+
+    monkeypatch.setattr(engine.signal, "signal", interrupted)
+    with pytest.raises(KeyboardInterrupt):
+        run_study(_spec("0-1"), tmp_path / "s", workers=1, progress=False, log=lambda _: None)
+    monkeypatch.undo()
+    assert not (tmp_path / "s" / "study.json").exists()
+    assert signal.getsignal(signal.SIGTERM) == before  # given back
+    Store.open(tmp_path / "s", _spec("0-2"))  # another configuration may use the folder
+
+
 def test_a_new_study_refused_before_its_cluster_starts_leaves_nothing(tmp_path, capsys):
     # --workers 0 is refused by the worker plan, after the study folder was opened: the
     # study it created is removed again, so the next sweep there may differ

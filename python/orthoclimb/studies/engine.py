@@ -465,12 +465,16 @@ def _sweep(
     from tqdm import tqdm
 
     workers, threads, retries, timeout, keep_points = settings
-    # set up before the study is opened: a Ctrl-C that lands between the block that undoes
-    # an unstarted study and the one that closes the cluster leaves a half-made study (more
-    # statements there made a test's interrupt hit it in 1 run of 3)
+    # set up before the study is opened, and SIGTERM's handler inside the block that undoes
+    # an unstarted study: a Ctrl-C that lands between that block and the one that closes the
+    # cluster leaves a half-made study (more statements there made a test's interrupt hit it
+    # in 1 run of 3)
     watch_stop = threading.Event()  # ends the external cluster's worker watch
     client_log = logging.getLogger("distributed.client")
     client_level = client_log.level
+    done = failed = replaced = 0
+    client = cluster = bar = old_term = None
+    connected = False
     store = Store.open(folder, spec)
     try:  # until the cluster is reached, a failure undoes what Store.open did
         pending = store.pending(tasks)
@@ -498,18 +502,16 @@ def _sweep(
                 log(note)
         if on_start is not None:
             on_start(pending, plan)
+        old_term = signal.getsignal(signal.SIGTERM)
+        try:  # SIGTERM -> KeyboardInterrupt, so the cluster is shut down cleanly
+            signal.signal(signal.SIGTERM, _term_to_interrupt)
+        except ValueError:  # pragma: no cover - not the main thread
+            old_term = None
     except BaseException:
+        if old_term is not None:
+            signal.signal(signal.SIGTERM, old_term)
         store.undo_open()
         raise
-    old_term = signal.getsignal(signal.SIGTERM)
-    try:  # SIGTERM -> KeyboardInterrupt, so the cluster is shut down cleanly
-        signal.signal(signal.SIGTERM, _term_to_interrupt)
-    except ValueError:  # pragma: no cover - not the main thread
-        old_term = None
-    done = failed = replaced = 0
-    client = cluster = None
-    bar = None
-    connected = False
     try:
         # the client's own reconnect attempts after a lost scheduler logged some 35 lines of
         # ERROR and chained tracebacks before the sweep's one message (a review); the sweep
