@@ -28,6 +28,7 @@ __all__ = [
     "field_direction",
     "norm",
     "project_tangent",
+    "quadratic_part",
     "random_unit",
     "retract",
 ]
@@ -75,6 +76,19 @@ def retract(y: np.ndarray, radius: float = 1.0) -> np.ndarray:
     return (radius / norm(y)) * y
 
 
+def quadratic_part(ham: Hamiltonian) -> Hamiltonian:
+    """The degree-2 part of ``ham`` as an instance of its own (``ham`` itself when that is all
+    it has), for Hess H(0) = C at the cost of its n(n+1)/2 coefficients instead of a pass over
+    all of them. Its Hessian at 0 is the whole instance's bit for bit: at x = 0 every term of
+    degree >= 3 adds exactly +-0 to each entry (each carries a factor x_i) and a field has no
+    curvature, so each entry is the same single product of a degree-2 coefficient (whose
+    float32 value float64 holds exactly). Its products C v are not: they sum n terms, split
+    into work items by the instance's size, so they may differ in the last bit."""
+    if set(ham.degrees) == {2}:
+        return ham
+    return Hamiltonian.from_coefficients(ham.n, {2: ham.coefficients(2)})
+
+
 class HessianReader:
     """Energy and gradient of ``ham`` from its Hessian at the same point (see module doc).
 
@@ -90,7 +104,9 @@ class HessianReader:
         self.high = high[0] if len(high) == 1 else None
         n = ham.n
         self.field = ham.coefficients(1) if 1 in degrees else None
-        self.constant = ham.hessian(np.zeros(n)) if (2 in degrees and self.exact) else None
+        self.constant = (
+            quadratic_part(ham).hessian(np.zeros(n)) if (2 in degrees and self.exact) else None
+        )
         self.constant_only = max(degrees) <= 2
 
     def energy_gradient(self, x: np.ndarray, hess: np.ndarray) -> tuple[float, np.ndarray]:

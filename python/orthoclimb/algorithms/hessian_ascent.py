@@ -112,7 +112,7 @@ from ._checks import (
 from ._config import base_config
 from ._eigen import TangentBasis, top_tangent_eigenpair
 from ._riemannian import sphere_ascent
-from ._sphere import HessianReader, field_direction, norm, random_unit
+from ._sphere import HessianReader, field_direction, norm, quadratic_part, random_unit
 from .polish import run_polish as polish_point
 from .result import Result
 
@@ -267,17 +267,26 @@ def _choose_mode(ham: Hamiltonian, mode: str) -> str:
 
 
 def _top_start(
-    ham: Hamiltonian, mode: str, rng: np.random.Generator, delta: float
+    ham: Hamiltonian,
+    mode: str,
+    rng: np.random.Generator,
+    delta: float,
+    constant: np.ndarray | None = None,
 ) -> tuple[np.ndarray, float]:
     """(v, theta/n): a unit top eigenvector of Hess H(0) with a random sign, and its
     eigenvalue per spin. Found in the tangent space of a random direction u (the machinery of
     every step), within delta n: the top eigenpair there, whose eigenvalue lies between the top
-    two of Hess H(0) (interlacing; see the module doc)."""
+    two of Hess H(0) (interlacing; see the module doc). In dense mode Hess H(0) is
+    ``constant`` when the caller has it, else the degree-2 part's (:func:`quadratic_part`:
+    the same bits, without a pass over every coefficient). The operator's products stay
+    passes over the whole instance: the degree-2 part's differ from them in the last bit
+    (its work is split otherwise), and a start moved by that would end elsewhere."""
     n = ham.n
     zero = np.zeros(n)
     basis = TangentBasis(random_unit(n, rng))
     if mode == "dense":
-        op = basis.restrict_inplace(ham.hessian(zero), np.empty((n - 1, n - 1)))
+        h0 = constant.copy() if constant is not None else quadratic_part(ham).hessian(zero)
+        op = basis.restrict_inplace(h0, np.empty((n - 1, n - 1)))
         scale = norm(op)
     else:
         op = _tangent_operator(ham, zero, basis)
@@ -455,7 +464,8 @@ def hessian_ascent(
         stage = 1
     elif begin == "top":
         with one_blas_thread():
-            direction, info["start_eigenvalue"] = _top_start(ham, mode, rng, delta)
+            known = reader.constant if reader is not None else None
+            direction, info["start_eigenvalue"] = _top_start(ham, mode, rng, delta, known)
         x = direction / math.sqrt(k)
         stage = 2
     else:
