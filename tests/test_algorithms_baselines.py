@@ -61,6 +61,32 @@ def test_polish_newton_phase_reaches_the_same_point_as_gradients_alone(monkeypat
     assert fast.info["iterations"] < slow.info["iterations"]
 
 
+def test_polish_counts_every_pass_and_makes_none_for_its_start_energy(monkeypatch):
+    # the start's energy came from a pass of its own, though the gradient stage's first pass
+    # is at the same point (a profile: 1-3 % of a Hessian ascent run); info["passes"] is the
+    # number of passes over the coefficients the polish made (energy, energy and gradient,
+    # Hessian), without the local-maximum check's
+    n = 60
+    ham = oc.Hamiltonian.sample(oc.Mixture({2: 1.0, 3: 1.0}), n, seed=1)
+    x0 = np.random.default_rng(2).standard_normal(n)
+    x0 /= np.linalg.norm(x0)
+    calls = []
+    for name in ("energy", "energy_and_gradient", "gradient", "hessian", "hvp"):
+        real = getattr(oc.Hamiltonian, name)
+
+        def counted(self, *args, _real=real, _name=name, **kwargs):
+            calls.append(_name)
+            return _real(self, *args, **kwargs)
+
+        monkeypatch.setattr(oc.Hamiltonian, name, counted)
+    res = oc.polish(ham, x0, check=False)
+    monkeypatch.undo()
+    assert res.info["newton_steps"] >= 1  # both stages ran
+    assert "energy" not in calls, calls
+    assert res.info["passes"] == len(calls)
+    assert res.info["energy_start"] == pytest.approx(ham.energy(x0) / n, rel=1e-14, abs=1e-14)
+
+
 def test_polish_runs_its_dense_linear_algebra_on_one_blas_thread(monkeypatch, blas_threads):
     # common practice with spinning OpenBLAS threads (polish module doc: with two threads and
     # a busy core a 600 x 600 Cholesky factor took 0.85 s instead of 0.01 s)

@@ -256,7 +256,6 @@ def run_polish(
 
 def _polish(ham: Hamiltonian, x0: np.ndarray, gtol: float, max_iter: int, check: bool) -> Result:
     start = time.perf_counter()
-    e_start = ham.energy(x0) / ham.n
     use_newton = _newton_fits(ham)
     # the hand-over in the instance's own units (a review: at gamma = 1e-20 an absolute 0.01
     # handed a random start straight to Newton, which climbed to another maximum)
@@ -264,12 +263,14 @@ def _polish(ham: Hamiltonian, x0: np.ndarray, gtol: float, max_iter: int, check:
     handover = NEWTON_START_GTOL * scale
     first_gtol = max(gtol, handover) if use_newton else gtol
     trace = sphere_ascent(ham, x0, gtol=first_gtol, max_iter=max_iter, scale=scale)
+    # its first pass is at x0 (retracted: the last bit may move): no pass of its own for it
+    e_start = trace.rows["energy"][0]
     # the stages go on from, and the path ends at, the point a stage returns (the path's last
     # energy was above the result's after a dip, 3 runs in 160 at max_iter 3-13: a review)
     rows = {k: list(v[: trace.returned_iteration + 1]) for k, v in trace.rows.items()}
     dropped = trace.iterations - trace.returned_iteration
     x, energy, gnorm, status = trace.x, trace.energy, trace.grad_norm, trace.status
-    iterations, passes = trace.iterations, trace.passes + 1
+    iterations, passes = trace.iterations, trace.passes
     newton_steps, newton_status, newton_shifted = 0, "not used", 0
     if use_newton and gnorm > gtol and status != "max_iter":
         out = newton_refine(ham, x, gtol, max_steps=NEWTON_MAX_STEPS)
