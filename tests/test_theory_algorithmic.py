@@ -229,3 +229,33 @@ def test_the_path_integral_converges_where_it_underflows(monkeypatch, q):
     value = path_energy(Mixture({3: 1.0}), q)
     assert all(s == 0 for s in statuses), statuses  # none where F is 0 in doubles
     assert value == pytest.approx(2.0 / 3.0 * math.sqrt(6.0) * q**1.5, rel=1e-12, abs=0.0)
+
+
+def test_alg_is_computed_once_per_mixture(monkeypatch):
+    # ALG's integral took 2-4.5 ms and Hessian ascent asked for it three times a run; it is
+    # kept per mixture (equal gammas, however built, share it), and the kept value is the
+    # integral's own
+    import orthoclimb as oc
+    import orthoclimb.theory.algorithmic as algorithmic
+
+    algorithmic._algorithmic_energy.cache_clear()
+    real = algorithmic.path_energy
+    calls = []
+
+    def counted(mixture, q):
+        if isinstance(q, float) and q == 1.0:  # ALG's call; the path's predictions ask more
+            calls.append(mixture)
+        return real(mixture, q)
+
+    monkeypatch.setattr(algorithmic, "path_energy", counted)
+    first = algorithmic.algorithmic_energy(Mixture({2: 1.0, 5: 0.7}))
+    assert algorithmic.algorithmic_energy(Mixture.parse("2:1,5:0.7")) == first
+    assert Mixture({2: 1.0, 5: 0.7}).algorithmic_energy() == first
+    assert len(calls) == 1
+    assert first == float(real(Mixture({2: 1.0, 5: 0.7}), 1.0))
+    other = algorithmic.algorithmic_energy(Mixture({2: 1.0, 5: 0.8}))
+    assert len(calls) == 2 and other > first
+    ham = oc.Hamiltonian.sample(Mixture({3: 1.0}), 30, seed=1)
+    calls.clear()
+    oc.hessian_ascent(ham, steps=5, seed=0, polish=False)
+    assert calls == [Mixture({3: 1.0})]
