@@ -458,3 +458,44 @@ def test_sampling_is_paid_once_per_group_of_tasks_on_one_instance():
     ]
     assert extra[0] == pytest.approx(1.0)  # once, on the one worker
     assert extra[1] == pytest.approx(3.0 / 3)  # three times, over three workers
+
+
+def test_an_external_plan_divides_its_estimate_among_the_clusters_task_slots(monkeypatch):
+    # the external plan's estimate was "for one worker" whatever the cluster held (noticed in
+    # a user trial); it now asks the scheduler how many task slots (worker threads) it has
+    from distributed import LocalCluster
+
+    import orthoclimb.studies.estimate as estimate
+    from orthoclimb.studies.grid import spec_from_flags
+
+    asked = []
+
+    def fake_seconds(spec, tasks, workers, threads=1, embedded=True):
+        asked.append((workers, threads, embedded))
+        return 120.0
+
+    monkeypatch.setattr(estimate, "estimate_seconds", fake_seconds)
+    spec = spec_from_flags(["3:1"], None, "20", "0-3", "gradient")
+
+    def estimate_line(address: str, threads=None) -> str:
+        lines = estimate.plan_lines(spec, "s", spec.tasks(), None, address, threads)
+        return next(line for line in lines if line.startswith("rough time estimate"))
+
+    for n_workers, slots_line in ((2, "4 task slots (2 workers now)"), (0, "it has none yet")):
+        cluster = LocalCluster(
+            n_workers=n_workers,
+            threads_per_worker=2,
+            processes=False,
+            protocol="tcp://",
+            host="127.0.0.1",
+            dashboard_address=":0",
+        )
+        try:
+            assert slots_line in estimate_line(cluster.scheduler_address, threads=3)
+        finally:
+            cluster.close()
+    assert asked == [(4, 3, False), (1, 3, False)]
+    # a scheduler that does not answer: one worker, and the plan says it does not know
+    monkeypatch.setattr("orthoclimb.studies.external.task_slots", lambda *a: None)
+    assert "did not say how many" in estimate_line("tcp://127.0.0.1:9")
+    assert asked[-1] == (1, 1, False)

@@ -534,6 +534,22 @@ def methods_line(spec: StudySpec) -> str:
     return "methods: " + "; ".join(parts)
 
 
+def _external_where(cluster: tuple[int, int] | None) -> str:
+    """How a plan's time estimate applies to an external cluster of ``cluster`` = (task slots,
+    workers) (:func:`~orthoclimb.studies.external.task_slots`; None: not known)."""
+    if cluster is None:
+        return " for one worker of the external cluster (it did not say how many it has)"
+    slots, workers = cluster
+    if slots == 0:
+        return " for one worker of the external cluster (it has none yet)"
+    from .engine import counted
+
+    return (
+        f" on the external cluster's {counted(slots, 'task slot')} ({counted(workers, 'worker')}"
+        " now) at this machine's speed per task"
+    )
+
+
 def plan_lines(
     spec: StudySpec,
     folder: str,
@@ -565,6 +581,7 @@ def plan_lines(
         " task (or group of tasks on one instance)",
         methods_line(spec),
     ]
+    cluster: tuple[int, int] | None = None  # an external cluster's (task slots, workers)
     if plan is not None:
         shared = grouping_text(pending, plan.workers)
         if shared is not None:
@@ -578,9 +595,12 @@ def plan_lines(
         workers, threads = plan.workers, plan.rayon_threads
     else:
         from ..model.user_limit import ENV_VAR, user_memory_limit
+        from .external import task_slots
 
         lines.append(f"Dask scheduler: {scheduler}")
-        workers, threads = 1, threads or 1
+        cluster = task_slots(scheduler) if scheduler is not None else None
+        # its workers' threads run tasks side by side, each task on `threads` kernel threads
+        workers, threads = (cluster[0] if cluster else 0) or 1, threads or 1
         if user_memory_limit() is not None:  # a user trial expected it to hold the workers
             lines.append(
                 f"note: {ENV_VAR} holds this process only; the external cluster's workers"
@@ -597,7 +617,7 @@ def plan_lines(
         return lines + fixed_path_notes(spec)
     # timing a small study takes milliseconds: the load is read over half a second
     busy = busy_note(load.stop(settle=0.5), threads=plan.cores_used if plan else None)
-    where = " for one worker of the external cluster" if plan is None else ""
+    where = "" if plan is not None else _external_where(cluster)
     # timed on this machine as it is now; other work started later slows the run (a review
     # measured 80 s for an estimate of 30 s with a load of 4 on two cores)
     lines.append(

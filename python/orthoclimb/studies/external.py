@@ -22,8 +22,12 @@ __all__ = [
     "foreign_code_notes",
     "probe_scheduler",
     "scheduler_identity",
+    "task_slots",
     "watch_workers",
 ]
+
+# Seconds a plan waits for the scheduler to say how many workers it has.
+SLOTS_SECONDS = 5.0
 
 
 class SchedulerLostError(ValueError):
@@ -116,6 +120,19 @@ def scheduler_identity(scheduler: str, timeout: float) -> dict:
 
     with ThreadPoolExecutor(1) as pool:
         return pool.submit(asyncio.run, ask()).result()
+
+
+def task_slots(scheduler: str, timeout: float = SLOTS_SECONDS) -> tuple[int, int] | None:
+    """(task slots, workers) of the external cluster now: the workers' threads in all (a
+    worker with k threads runs k tasks at once) and the worker count, from the scheduler's
+    ``identity``; None when it does not answer that within ``timeout`` seconds."""
+    try:
+        identity = scheduler_identity(scheduler, timeout)
+        workers = identity.get("workers") or {}
+        slots = sum(int(w.get("nthreads", 0)) for w in workers.values())
+    except Exception:  # noqa: BLE001 - the count only refines an estimate
+        return None
+    return slots, len(workers)
 
 
 #: Seconds the sweep waits for the workers of an external cluster to name their code.
