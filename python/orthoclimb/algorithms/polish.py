@@ -263,7 +263,8 @@ def _polish(ham: Hamiltonian, x0: np.ndarray, gtol: float, max_iter: int, check:
     handover = NEWTON_START_GTOL * scale
     first_gtol = max(gtol, handover) if use_newton else gtol
     trace = sphere_ascent(ham, x0, gtol=first_gtol, max_iter=max_iter, scale=scale)
-    # its first pass is at x0 (retracted: the last bit may move): no pass of its own for it
+    # its first pass is at x0 (retracted, and another kernel: equal to rounding, 1e-15 per
+    # spin absolute, not always to the last bit): no pass of its own for the start energy
     e_start = trace.rows["energy"][0]
     # the stages go on from, and the path ends at, the point a stage returns (the path's last
     # energy was above the result's after a dip, 3 runs in 160 at max_iter 3-13: a review)
