@@ -26,7 +26,7 @@ __all__ = [
     "watch_workers",
 ]
 
-# Seconds a plan waits for the scheduler to say how many workers it has.
+#: Seconds a plan waits for the scheduler to say how many workers it has.
 SLOTS_SECONDS = 5.0
 
 
