@@ -423,10 +423,8 @@ def run_study(
         )
     if not isinstance(keep_points, bool):
         raise TypeError(f"keep_points must be True or False, got {keep_points!r}")
-    if scheduler is not None:  # before the study folder is made and the plan times kernels
-        probe_scheduler(
-            scheduler, timeout
-        )  # (the address's form, then that something listens there)
+    if scheduler is not None:  # before the study folder is made and the plan times kernels:
+        probe_scheduler(scheduler, timeout)  # the address's form, then who listens there
     tasks = spec.tasks()
     if scheduler is None:
         _check_largest_fits(spec, tasks)  # before the study folder is created

@@ -36,21 +36,22 @@ class SchedulerLostError(ValueError):
     each with Dask's FutureCancelledError)."""
 
 
+# How the refusals of a scheduler address name the option, and the form it takes.
+_ADDRESS = "the scheduler (--scheduler; scheduler= in Python)"
+_LIKE = f"{_ADDRESS} must be an address like tcp://HOST:PORT"
+
+
 def check_scheduler_address(scheduler: Any) -> tuple[str, str, int]:
     """(scheme, host, port) of a Dask address tcp://HOST:PORT. A ValueError names a malformed
     address, and one of another scheme: inproc:// lives inside one process, and tls:// (or
     another transport) needs security settings the command line does not take; each failed
     inside Dask with its own message ("not enough values to unpack")."""
     if not isinstance(scheduler, str) or "://" not in scheduler:
-        raise ValueError(
-            f"the scheduler (--scheduler; scheduler= in Python) must be an address like tcp://HOST:PORT,"
-            f" got {scheduler!r}"
-        )
+        raise ValueError(f"{_LIKE}, got {scheduler!r}")
     scheme, _, rest = scheduler.partition("://")
     if scheme != "tcp":
         raise ValueError(
-            "the scheduler (--scheduler; scheduler= in Python) takes a tcp://HOST:PORT address,"
-            f" got {scheduler!r} (scheme"
+            f"{_ADDRESS} takes a tcp://HOST:PORT address, got {scheduler!r} (scheme"
             f" {scheme!r}): other transports are not supported"
         )
     from distributed.comm import parse_host_port
@@ -58,16 +59,9 @@ def check_scheduler_address(scheduler: Any) -> tuple[str, str, int]:
     try:
         host, port = parse_host_port(rest)
     except ValueError as exc:
-        raise ValueError(
-            f"the scheduler (--scheduler; scheduler= in Python) must be an address like tcp://HOST:PORT,"
-            f" got {scheduler!r} ({exc})"
-        ) from None
+        raise ValueError(f"{_LIKE}, got {scheduler!r} ({exc})") from None
     if not host or not 0 < int(port) < 65536:
-        raise ValueError(
-            f"the scheduler (--scheduler; scheduler= in Python) must be an address like tcp://HOST:PORT"
-            " with a host and a port in "
-            f"1..65535, got {scheduler!r}"
-        )
+        raise ValueError(f"{_LIKE} with a host and a port in 1..65535, got {scheduler!r}")
     return scheme, host, int(port)
 
 
