@@ -63,7 +63,15 @@ from .points import (
     readable_end_points,
 )
 from .report_plots import PLOT_FILES, plot_files
-from .store import TABLE_FILES, Store, SweepRunningError, read_config, sweep_lock, table_files
+from .store import (
+    ROWS_DIR,
+    TABLE_FILES,
+    Store,
+    SweepRunningError,
+    read_config,
+    sweep_lock,
+    table_files,
+)
 from .tasks import theory_values
 
 __all__ = ["Report", "build_report", "write_report"]
@@ -940,7 +948,7 @@ def write_report(
         rows: list[dict[str, Any]] | None = rep.rows
         if target == folder:
             rows = _rows_to_table(stack, folder, rep)
-        _write_report_files(rep, target, plots, rows, folder / "rows", reraise=out is not None)
+        _write_report_files(rep, target, plots, rows, folder / ROWS_DIR, reraise=out is not None)
     return rep
 
 

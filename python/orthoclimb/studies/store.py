@@ -66,6 +66,11 @@ __all__ = [
 ]
 
 FORMAT = 1
+
+# The study folder's subfolders: one row file per completed task, one record per failure.
+ROWS_DIR = "rows"
+FAILED_DIR = "failed"
+
 ROW_FORMAT = "orthoclimb-study-row"
 ROW_FORMAT_VERSION = 1
 
@@ -196,7 +201,7 @@ def write_completed_row(folder: str | os.PathLike, row: dict[str, Any]) -> bool:
     from .points import write_point
 
     folder = Path(folder)
-    path = folder / "rows" / f"{row['task_id']}.json"
+    path = folder / ROWS_DIR / f"{row['task_id']}.json"
     if path.exists():
         return False
     point = row.get("end_point")
@@ -204,7 +209,7 @@ def write_completed_row(folder: str | os.PathLike, row: dict[str, Any]) -> bool:
         write_point(folder, row["task_id"], point)
     payload = {key: value for key, value in row.items() if key != "end_point"}
     write_json_atomic(path, envelope(ROW_FORMAT, ROW_FORMAT_VERSION, payload))
-    failed = folder / "failed" / path.name
+    failed = folder / FAILED_DIR / path.name
     if failed.exists():
         failed.unlink()
     return True
@@ -413,8 +418,8 @@ class Store:
     def __init__(self, folder: str | os.PathLike, spec: StudySpec):
         self.folder = Path(folder)
         self.spec = spec
-        self.rows_dir = self.folder / "rows"
-        self.failed_dir = self.folder / "failed"
+        self.rows_dir = self.folder / ROWS_DIR
+        self.failed_dir = self.folder / FAILED_DIR
         #: True when :meth:`open` wrote study.json (the folder held no study before).
         self.created = False
         #: What study.json held before :meth:`open` extended the study, else None.
@@ -430,7 +435,7 @@ class Store:
             raise ValueError(f"study folder {str(folder)!r} exists and is not a folder")
         # before any task runs: a resumed sweep into a read-only rows/ (or points/) ran its
         # tasks and then failed at the first row (reviews)
-        for name in ("", "rows", "points", "failed"):  # the folders a sweep writes into
+        for name in ("", ROWS_DIR, "points", FAILED_DIR):  # the folders a sweep writes into
             if is_folder(folder / name):
                 require_writable(
                     folder / name, f"its {name} folder" if name else "the study folder"
