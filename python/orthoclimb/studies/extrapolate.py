@@ -169,7 +169,6 @@ def _checked(
             raise ValueError(f"extrapolation needs at least 2 seeds per size; n = {n} has {a.size}")
         if not np.all(np.isfinite(a)):
             raise ValueError(f"non-finite energy among the samples at n = {n}")
-
     x = np.asarray(sizes, dtype=np.float64) ** (-exponent)
     if np.any(x * x < sys.float_info.min):
         # the line's normal equations then divide by zero: e_inf came out NaN
@@ -299,10 +298,9 @@ def extrapolate(
     ex = _extrapolate([a / scale for a in arrays], sizes, exponent, level, n_boot, seed, pooled)
     if scale == 1.0:
         return ex
-    out = replace(
-        ex, **{k: getattr(ex, k) * scale for k in ("value", "low", "high", "se", "slope")}
-    )
-    if not all(math.isfinite(getattr(out, k)) for k in ("value", "low", "high", "se", "slope")):
+    scaled = ("value", "low", "high", "se", "slope")  # the fields in units of energy
+    out = replace(ex, **{k: getattr(ex, k) * scale for k in scaled})
+    if not all(math.isfinite(getattr(out, k)) for k in scaled):
         raise ValueError(
             f"the extrapolation of samples as large as {top:.3g} leaves float64's range"
         )
