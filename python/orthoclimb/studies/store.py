@@ -280,8 +280,10 @@ _OPTIONAL_FIELDS: dict[str, tuple[Any, str]] = {
     "steps": (_count(0), "an integer >= 0"),
     "sample_shared_by": (_count(1), "an integer >= 1"),
     "threads": (_count(1), "an integer >= 1"),
-    "seconds_run": (lambda v: _number(v) and 0 <= v < math.inf, "a finite number >= 0"),
-    "seconds_sample": (lambda v: _number(v) and 0 <= v < math.inf, "a finite number >= 0"),
+    **{
+        key: (lambda v: _number(v) and 0 <= v < math.inf, "a finite number >= 0")
+        for key in ("seconds_run", "seconds_sample")
+    },
     "local_max": (lambda v: isinstance(v, bool), "true, false or null"),
     "options": (_json_object, "a JSON object as text"),
     "end_point_sha256": (
