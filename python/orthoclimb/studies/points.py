@@ -36,6 +36,7 @@ import numpy as np
 
 from ..algorithms.result import vector_digest
 from ..fileio import write_atomic
+from .store import POINTS_DIR, row_file
 
 __all__ = [
     "end_point_overlaps",
@@ -49,8 +50,6 @@ __all__ = [
     "point_path",
     "write_point",
 ]
-
-POINTS_DIR = "points"
 
 
 def point_path(folder: str | os.PathLike, task_id: str) -> Path:
@@ -68,9 +67,9 @@ def write_point(folder: str | os.PathLike, task_id: str, x: np.ndarray) -> Path:
 def _read_point(folder: Path, row: dict[str, Any]) -> np.ndarray:
     """The end point of ``row``, checked against the row's shape and digest."""
     path = point_path(folder, row["task_id"])
-    row_file = str(folder / "rows" / f"{row['task_id']}.json")
+    row_name = str(row_file(folder, row["task_id"]))
     redo = (
-        f"; to keep it again, delete {str(path)!r} and {row_file!r} and rerun the sweep with"
+        f"; to keep it again, delete {str(path)!r} and {row_name!r} and rerun the sweep with"
         " --keep-points"
     )
     try:
@@ -78,7 +77,7 @@ def _read_point(folder: Path, row: dict[str, Any]) -> np.ndarray:
     except FileNotFoundError:
         raise ValueError(
             f"the end point {str(path)!r} of a row that kept one is missing; to keep it again,"
-            f" delete {row_file!r} and rerun the sweep with --keep-points"
+            f" delete {row_name!r} and rerun the sweep with --keep-points"
         ) from None
     except (OSError, ValueError, EOFError) as exc:
         raise ValueError(f"cannot read the end point {str(path)!r}: {exc}{redo}") from None

@@ -67,9 +67,17 @@ __all__ = [
 
 FORMAT = 1
 
-# The study folder's subfolders: one row file per completed task, one record per failure.
+# The study folder's subfolders: one row file per completed task, one record per failure, and
+# the end points of the tasks that keep one (``sweep --keep-points``, see ``points``).
 ROWS_DIR = "rows"
 FAILED_DIR = "failed"
+POINTS_DIR = "points"
+
+
+def row_file(folder: str | os.PathLike, task_id: str) -> Path:
+    """The row file of task ``task_id`` in the study folder ``folder``."""
+    return Path(folder) / ROWS_DIR / f"{task_id}.json"
+
 
 ROW_FORMAT = "orthoclimb-study-row"
 ROW_FORMAT_VERSION = 1
@@ -201,7 +209,7 @@ def write_completed_row(folder: str | os.PathLike, row: dict[str, Any]) -> bool:
     from .points import write_point
 
     folder = Path(folder)
-    path = folder / ROWS_DIR / f"{row['task_id']}.json"
+    path = row_file(folder, row["task_id"])
     if path.exists():
         return False
     point = row.get("end_point")
@@ -437,7 +445,7 @@ class Store:
             raise ValueError(f"study folder {str(folder)!r} exists and is not a folder")
         # before any task runs: a resumed sweep into a read-only rows/ (or points/) ran its
         # tasks and then failed at the first row (reviews)
-        for name in ("", ROWS_DIR, "points", FAILED_DIR):  # the folders a sweep writes into
+        for name in ("", ROWS_DIR, POINTS_DIR, FAILED_DIR):  # the folders a sweep writes into
             if is_folder(folder / name):
                 require_writable(
                     folder / name, f"its {name} folder" if name else "the study folder"
@@ -545,7 +553,7 @@ class Store:
     # -- rows ----------------------------------------------------------------------------
 
     def row_path(self, task_id: str) -> Path:
-        return self.rows_dir / f"{task_id}.json"
+        return row_file(self.folder, task_id)
 
     def completed_ids(self) -> set[str]:
         """Ids of the tasks with a complete row file (temporary files are ignored)."""
