@@ -69,6 +69,27 @@ def every_call_on_the_pool() -> Iterator[Callable[[], None]]:
         _core._set_inline_passes(bound)
 
 
+@contextmanager
+def thread_cluster(n_workers: int, **options: Any) -> Iterator[Any]:
+    """An in-process Dask cluster (workers are threads of this process, so a monkeypatch
+    reaches them) listening on a local TCP address, as an external scheduler would; closed on
+    exit. ``options`` go to ``LocalCluster`` (``threads_per_worker``, say)."""
+    from distributed import LocalCluster
+
+    cluster = LocalCluster(
+        n_workers=n_workers,
+        processes=False,
+        protocol="tcp://",
+        host="127.0.0.1",
+        dashboard_address=":0",
+        **options,
+    )
+    try:
+        yield cluster
+    finally:
+        cluster.close()
+
+
 _FORK_WHILE_BUSY = """
 import os, signal, sys, threading
 {setup}

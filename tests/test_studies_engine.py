@@ -16,6 +16,7 @@ from typing import Any
 import pyarrow.parquet as pq
 import pytest
 
+from conftest import thread_cluster
 from orthoclimb import Mixture
 from orthoclimb.cli import main
 from orthoclimb.studies import external
@@ -869,12 +870,7 @@ def test_a_scheduler_without_workers_is_announced_and_the_tasks_wait_for_one(tmp
     # a word until killed (a review); it now says so, and runs once a worker joins
     import threading
 
-    from distributed import LocalCluster
-
-    cluster = LocalCluster(
-        n_workers=0, processes=False, protocol="tcp://", host="127.0.0.1", dashboard_address=":0"
-    )
-    try:
+    with thread_cluster(0) as cluster:
         spec = spec_from_flags(["3:1"], None, "8", "0-1", "gradient")
         logs: list[str] = []
         out = {}
@@ -898,30 +894,21 @@ def test_a_scheduler_without_workers_is_announced_and_the_tasks_wait_for_one(tmp
         thread.join(120)
         assert not thread.is_alive() and out["outcome"].done == 2
         assert f"`dask worker {cluster.scheduler_address}`" in logs[-1]
-    finally:
-        cluster.close()
 
 
 def test_a_method_that_fails_in_a_group_leaves_the_other_rows(tmp_path, monkeypatch):
     # in-process workers (an external cluster of threads), so that the patch reaches them
-    from distributed import LocalCluster
-
     import orthoclimb.algorithms as algorithms
 
     def broken(*args, **kwargs):
         raise RuntimeError("gradient ascent broke")
 
     monkeypatch.setattr(algorithms, "gradient_ascent", broken)
-    cluster = LocalCluster(
-        n_workers=1, processes=False, protocol="tcp://", host="127.0.0.1", dashboard_address=":0"
-    )
-    try:
+    with thread_cluster(1) as cluster:
         spec = spec_from_flags(["3:1"], None, "8", "0-1", "hessian,gradient", {})
         out = run_study(
             spec, tmp_path / "s", scheduler=cluster.scheduler_address, progress=False, retries=0
         )
-    finally:
-        cluster.close()
     assert (out.done, out.failed) == (2, 2)
     table = pq.read_table(tmp_path / "s" / "results.parquet").to_pylist()
     assert sorted(r["method"] for r in table) == ["hessian", "hessian"]

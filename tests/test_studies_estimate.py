@@ -8,6 +8,7 @@ import math
 import pytest
 
 import orthoclimb as oc
+from conftest import thread_cluster
 from orthoclimb.studies.estimate import (
     Calibration,
     calibrate,
@@ -463,8 +464,6 @@ def test_sampling_is_paid_once_per_group_of_tasks_on_one_instance():
 def test_an_external_plan_divides_its_estimate_among_the_clusters_task_slots(monkeypatch):
     # the external plan's estimate was "for one worker" whatever the cluster held (noticed in
     # a user trial); it now asks the scheduler how many task slots (worker threads) it has
-    from distributed import LocalCluster
-
     import orthoclimb.studies.estimate as estimate
     from orthoclimb.studies.grid import spec_from_flags
 
@@ -482,18 +481,8 @@ def test_an_external_plan_divides_its_estimate_among_the_clusters_task_slots(mon
         return next(line for line in lines if line.startswith("rough time estimate"))
 
     for n_workers, slots_line in ((2, "4 task slots (2 workers now)"), (0, "it has none yet")):
-        cluster = LocalCluster(
-            n_workers=n_workers,
-            threads_per_worker=2,
-            processes=False,
-            protocol="tcp://",
-            host="127.0.0.1",
-            dashboard_address=":0",
-        )
-        try:
+        with thread_cluster(n_workers, threads_per_worker=2) as cluster:
             assert slots_line in estimate_line(cluster.scheduler_address, threads=3)
-        finally:
-            cluster.close()
     assert asked == [(4, 3, False), (1, 3, False)]
     # a scheduler that does not answer: one worker, and the plan says it does not know
     monkeypatch.setattr("orthoclimb.studies.external.task_slots", lambda *a: None)
