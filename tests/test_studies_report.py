@@ -53,6 +53,7 @@ def test_demo_quick_completes_and_writes_report(tmp_path, capsys):
     text = capsys.readouterr().out
     assert "rough time estimate" in text and "of coefficients" in text
     assert "what this run measured" in text and "GS" in text
+    assert "caution: 6 seeds per size make these findings a sketch" in text
     md = (out / "report.md").read_text()
     assert "rugged (3)" in md and "gentle (2+4)" in md and "full-RSB criterion fails" in md
     data = json.loads((out / "report.json").read_text())

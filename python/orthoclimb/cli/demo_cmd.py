@@ -82,6 +82,13 @@ def run(args: argparse.Namespace) -> int:
     print("\nwhat this run measured:")
     for f in rep.findings:
         print(f"- {f}")
+    # the findings are the data's; a user who stops here should know how few seeds they had
+    # (the gentle landscape's 10 seeds put ALG outside both intervals, 60 seeds do not)
+    print(
+        f"\ncaution: {len(spec.seeds)} seeds per size make these findings a sketch: the"
+        " gentle study rerun with 60 seeds and n up to 200 (README, Known limitations) puts"
+        " both climbers' extrapolations at ALG"
+    )
     print(f"\nreport: {rep.files['markdown']}")
     print(f"plots:  {rep.files['energy_vs_n']}  {rep.files['distribution']}")
     print(f"table:  {args.out}/results.parquet, {args.out}/results.csv")
