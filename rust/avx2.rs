@@ -283,7 +283,7 @@ fn hessian_prefetch(len: usize) -> crate::simd::PrefetchLevel {
 /// into `level` (a prefetch is a hint: the address may lie past the segment and never
 /// faults).
 #[inline(always)]
-unsafe fn prefetch_segments<T: Coef>(
+pub(crate) unsafe fn prefetch_segments<T: Coef>(
     pa: &[*const T; 4],
     i: usize,
     level: crate::simd::PrefetchLevel,
@@ -405,7 +405,7 @@ pub fn dots8_axpy<T: Coef>(
 /// [`rows4`] with two shared rows: u_t = (xi_0 a_0,t + xi_1 a_1,t) + (xi_2 a_2,t + xi_3 a_3,t),
 /// z1_t += alpha u_t, z2_t += beta u_t, rows_j,t += w a_j,t, s_j = sum_t a_j,t x_t.
 #[inline(always)]
-pub fn rows4_shared2<T: Coef>(
+pub fn rows4_shared2<T: Coef, const WIDE: bool>(
     a: [&[T]; 4],
     x: &[f64],
     rows: [&mut [f64]; 4],
@@ -413,12 +413,14 @@ pub fn rows4_shared2<T: Coef>(
     shared: [(&mut [f64], f64); 2],
     xi: [f64; 4],
 ) -> [f64; 4] {
-    rows4_shared::<T, true>(a, x, rows, w, shared, xi)
+    rows4_shared::<T, true, WIDE>(a, x, rows, w, shared, xi)
 }
 
 /// The loop of [`rows4_shared2`]; with `TWO = false` the second shared row is not touched.
+/// With `WIDE` (compiled with AVX-512F only) and [`crate::simd::wide_hessian_rows`], the
+/// steps of eight positions go first ([`crate::avx512::rows4_octets`], the same bits).
 #[inline(always)]
-fn rows4_shared<T: Coef, const TWO: bool>(
+fn rows4_shared<T: Coef, const TWO: bool, const WIDE: bool>(
     a: [&[T]; 4],
     x: &[f64],
     rows: [&mut [f64]; 4],
@@ -458,6 +460,19 @@ fn rows4_shared<T: Coef, const TWO: bool>(
         let mut acc = [_mm256_setzero_pd(); 4];
         let level = hessian_prefetch(len);
         let mut i = 0;
+        if WIDE && crate::simd::wide_hessian_rows() {
+            let rows = (py, p1, p2);
+            i = crate::avx512::rows4_octets::<T, TWO>(
+                pa,
+                px,
+                rows,
+                (w, alpha, beta),
+                xi,
+                &mut acc,
+                len,
+                level,
+            );
+        }
         while i + 4 <= len {
             prefetch_segments(&pa, i, level);
             let xt = _mm256_loadu_pd(px.add(i));
@@ -510,7 +525,7 @@ fn rows4_shared<T: Coef, const TWO: bool>(
 /// z_t += (xi_0 a_0,t + xi_1 a_1,t) + (xi_2 a_2,t + xi_3 a_3,t): [`rows4_shared2`] with one
 /// shared row of weight 1 (a fused multiply-add by 1 adds exactly, so the sums are the same).
 #[inline(always)]
-pub fn rows4<T: Coef>(
+pub fn rows4<T: Coef, const WIDE: bool>(
     a: [&[T]; 4],
     x: &[f64],
     rows: [&mut [f64]; 4],
@@ -518,7 +533,7 @@ pub fn rows4<T: Coef>(
     z: &mut [f64],
     xi: [f64; 4],
 ) -> [f64; 4] {
-    rows4_shared::<T, false>(a, x, rows, w, [(z, 1.0), (&mut [], 0.0)], xi)
+    rows4_shared::<T, false, WIDE>(a, x, rows, w, [(z, 1.0), (&mut [], 0.0)], xi)
 }
 
 /// `acc[r][k] += c[r] X[u, lanes 4k..4k+4]` for the four rows.

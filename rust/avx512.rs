@@ -247,6 +247,84 @@ pub unsafe fn wide_group<T: Coef, const G: usize>(
     }
 }
 
+/// The 512-bit steps of the Hessian's four-segment loop ([`crate::avx2::rows4_shared2`]): for
+/// positions i = 0, 8, 16, ... while i + 8 <= len, with c_j the eight coefficients of segment
+/// j at i..i+8,
+///
+/// ```text
+/// rows_j[i..i+8] += w c_j,   u = (xi_0 c_0 + xi_1 c_1) + (xi_2 c_2 + xi_3 c_3),
+/// z1[i..i+8] += alpha u,     z2[i..i+8] += beta u (with `TWO`),
+/// acc_j += c_j[0..4] x[i..i+4];  acc_j += c_j[4..8] x[i+4..i+8]   (two 4-lane steps)
+/// ```
+///
+/// Every row entry gets the multiply-adds of the 256-bit loop in its order, and each dot keeps
+/// its four lanes and takes the two halves in position order, as two 256-bit steps would: the
+/// same bits. The gain is in the instructions: one load, multiply-add and store of each row
+/// (and one widening of float32 coefficients) per eight positions instead of two. Returns the
+/// first position not done, for the 256-bit loop to go on from. `pa` are the four segments,
+/// `rows` the pointers (four own rows, z1, z2), each valid for `len` values (z2 only with
+/// `TWO`); the caller compiles with AVX2, FMA and AVX-512F.
+#[inline]
+#[target_feature(enable = "avx2,fma,avx512f")]
+#[allow(clippy::too_many_arguments)] // the loop state of the caller, passed through
+pub(crate) unsafe fn rows4_octets<T: Coef, const TWO: bool>(
+    pa: [*const T; 4],
+    px: *const f64,
+    (py, p1, p2): ([*mut f64; 4], *mut f64, *mut f64),
+    (w, alpha, beta): (f64, f64, f64),
+    xi: [f64; 4],
+    acc: &mut [__m256d; 4],
+    len: usize,
+    level: crate::simd::PrefetchLevel,
+) -> usize {
+    let (wv, av, bv) = (
+        _mm512_set1_pd(w),
+        _mm512_set1_pd(alpha),
+        _mm512_set1_pd(beta),
+    );
+    let xv = xi.map(|v| _mm512_set1_pd(v));
+    let mut i = 0;
+    while i + 8 <= len {
+        crate::avx2::prefetch_segments(&pa, i, level);
+        let xt = _mm512_loadu_pd(px.add(i));
+        let (xlo, xhi) = (_mm512_castpd512_pd256(xt), _mm512_extractf64x4_pd::<1>(xt));
+        let mut c = [_mm512_setzero_pd(); 4];
+        for j in 0..4 {
+            c[j] = load8(pa[j].add(i));
+            acc[j] = _mm256_fmadd_pd(_mm512_castpd512_pd256(c[j]), xlo, acc[j]);
+            acc[j] = _mm256_fmadd_pd(_mm512_extractf64x4_pd::<1>(c[j]), xhi, acc[j]);
+            let y = _mm512_loadu_pd(py[j].add(i));
+            _mm512_storeu_pd(py[j].add(i), _mm512_fmadd_pd(wv, c[j], y));
+        }
+        let u = _mm512_add_pd(
+            _mm512_fmadd_pd(xv[1], c[1], _mm512_mul_pd(xv[0], c[0])),
+            _mm512_fmadd_pd(xv[3], c[3], _mm512_mul_pd(xv[2], c[2])),
+        );
+        _mm512_storeu_pd(
+            p1.add(i),
+            _mm512_fmadd_pd(av, u, _mm512_loadu_pd(p1.add(i))),
+        );
+        if TWO {
+            _mm512_storeu_pd(
+                p2.add(i),
+                _mm512_fmadd_pd(bv, u, _mm512_loadu_pd(p2.add(i))),
+            );
+        }
+        i += 8;
+    }
+    i
+}
+
+/// Eight coefficients from `p` as float64 (float32 ones widened exactly).
+#[inline(always)]
+unsafe fn load8<T: Coef>(p: *const T) -> __m512d {
+    if T::WIDENS {
+        _mm512_cvtps_pd(_mm256_loadu_ps(p as *const f32))
+    } else {
+        _mm512_loadu_pd(p as *const f64)
+    }
+}
+
 #[cfg(test)]
 mod tests {
     use super::*;
@@ -325,6 +403,71 @@ mod tests {
             check::<f64, 2>(len);
             check::<f64, 4>(len);
             check::<f32, 4>(len);
+        }
+    }
+
+    /// The 512-bit steps of the Hessian's four-segment loop give the 256-bit loop's bits:
+    /// returned dots, own rows and shared rows, one or two of them, for lengths around the
+    /// steps of eight and four and both storage types, where the processor takes those steps.
+    fn check_rows<T: Coef>(len: usize, two: bool) {
+        let seg = |j: usize| -> Vec<T> {
+            (0..len)
+                .map(|i| T::from_f64(((i * 7 + j * 13) as f64 * 0.41).sin()))
+                .collect()
+        };
+        let a = [seg(0), seg(1), seg(2), seg(3)];
+        let x: Vec<f64> = (0..len).map(|i| (i as f64 * 0.23).cos() - 0.2).collect();
+        let start = |k: usize| -> Vec<f64> {
+            (0..len)
+                .map(|i| ((i + 31 * k) as f64 * 0.19).sin())
+                .collect()
+        };
+        let run = |wide: bool| {
+            let mut rows = [start(0), start(1), start(2), start(3)];
+            let (mut z1, mut z2) = (start(4), start(5));
+            let refs = [&a[0][..], &a[1][..], &a[2][..], &a[3][..]];
+            let [r0, r1, r2, r3] = &mut rows;
+            let own = [&mut r0[..], &mut r1[..], &mut r2[..], &mut r3[..]];
+            let xi = [0.7, -1.3, 0.25, 2.0];
+            let sums = match (wide, two) {
+                (true, true) => crate::avx2::rows4_shared2::<T, true>(
+                    refs,
+                    &x,
+                    own,
+                    1.7,
+                    [(&mut z1, 0.6), (&mut z2, -1.1)],
+                    xi,
+                ),
+                (false, true) => crate::avx2::rows4_shared2::<T, false>(
+                    refs,
+                    &x,
+                    own,
+                    1.7,
+                    [(&mut z1, 0.6), (&mut z2, -1.1)],
+                    xi,
+                ),
+                (true, false) => crate::avx2::rows4::<T, true>(refs, &x, own, 1.7, &mut z1, xi),
+                (false, false) => crate::avx2::rows4::<T, false>(refs, &x, own, 1.7, &mut z1, xi),
+            };
+            let bits = |v: &[f64]| v.iter().map(|e| e.to_bits()).collect::<Vec<u64>>();
+            let mut all = vec![bits(&sums), bits(&z1), bits(&z2)];
+            all.extend(rows.iter().map(|r| bits(r)));
+            all
+        };
+        assert_eq!(run(true), run(false), "{} len {len} two {two}", T::NAME);
+    }
+
+    #[test]
+    fn hessian_rows_in_512_bit_steps_match_the_256_bit_loop() {
+        if !wide_tile_available() || !crate::simd::wide_hessian_rows() {
+            eprintln!("no AVX-512F (or an AMD processor) here: 512-bit Hessian rows not tested");
+            return;
+        }
+        for len in (0..=20).chain([31, 32, 33, 100]) {
+            for two in [false, true] {
+                check_rows::<f64>(len, two);
+                check_rows::<f32>(len, two);
+            }
         }
     }
 }

@@ -6,7 +6,9 @@
 //! `avx2,fma,avx512f,avx512vl` one (the same AVX2 loops with 32 vector registers instead of
 //! 16; the same bits), chosen at run time by what the processor has, and with plain
 //! arithmetic for any other x86-64 or other architecture. One machine always takes the same
-//! path, so results stay bitwise reproducible there.
+//! path, so results stay bitwise reproducible there. The AVX-512 instantiation
+//! (`FusedWith<true>`) also runs the Hessian's four-segment loop in 512-bit steps where
+//! [`wide_hessian_rows`] says so, again with the same bits.
 //!
 //! Reductions use `LANES` independent accumulators combined in a fixed order; that is what
 //! lets the compiler vectorize them without reassociating floating-point sums.
@@ -82,12 +84,16 @@ pub trait Madd {
 }
 
 /// AVX2 + fused multiply-add (one rounding); only reached where the processor has both.
-pub struct Fused;
+/// `WIDE_ROWS`: the Hessian's four-segment loop may take 512-bit steps (see
+/// [`wide_hessian_rows`]); only the instantiation compiled with AVX-512F sets it.
+pub struct FusedWith<const WIDE_ROWS: bool>;
+/// [`FusedWith`] on 256-bit vectors throughout.
+pub type Fused = FusedWith<false>;
 /// Portable Rust, multiply then add (two roundings).
 pub struct Plain;
 
 #[cfg(target_arch = "x86_64")]
-impl Madd for Fused {
+impl<const W: bool> Madd for FusedWith<W> {
     #[inline(always)]
     fn madd(a: f64, b: f64, c: f64) -> f64 {
         a.mul_add(b, c)
@@ -139,7 +145,7 @@ impl Madd for Fused {
         shared: [(&mut [f64], f64); 2],
         xi: [f64; 4],
     ) -> [f64; 4] {
-        crate::avx2::rows4_shared2(a, x, rows, w, shared, xi)
+        crate::avx2::rows4_shared2::<T, W>(a, x, rows, w, shared, xi)
     }
     #[inline(always)]
     fn rows4<T: Coef>(
@@ -150,7 +156,7 @@ impl Madd for Fused {
         z: &mut [f64],
         xi: [f64; 4],
     ) -> [f64; 4] {
-        crate::avx2::rows4(a, x, rows, w, z, xi)
+        crate::avx2::rows4::<T, W>(a, x, rows, w, z, xi)
     }
     #[inline(always)]
     fn tile<T: Coef, const G: usize>(
@@ -433,6 +439,28 @@ fn narrow_registers_forced() -> bool {
     }
 }
 
+/// Whether the Hessian's four-segment loop takes 512-bit steps where it is compiled with
+/// AVX-512F (`FusedWith<true>`, see `crate::avx512::rows4_octets`): on processors with
+/// AVX-512F that are not AMD's. The steps give the same bits as the 256-bit ones. On an Intel
+/// Xeon (5th generation, two threads, paired medians) they took the float32 Hessian at p = 3
+/// from 21.95 to 20.56 ms at n = 800 and from 1.82 to 1.59 ms at n = 400, float64 by 1-4 %;
+/// p = 4 and 5 moved within the noise (bench/NOTES.md). On AMD's Zen 4, which splits each
+/// 512-bit operation in two, a loop on 512-bit vectors had been slower at n <= 400, and this
+/// one was not measured there. Checked once, then cached.
+pub fn wide_hessian_rows() -> bool {
+    static WIDE: std::sync::OnceLock<bool> = std::sync::OnceLock::new();
+    *WIDE.get_or_init(|| {
+        #[cfg(target_arch = "x86_64")]
+        {
+            std::is_x86_feature_detected!("avx512f") && amd_family().is_none()
+        }
+        #[cfg(not(target_arch = "x86_64"))]
+        {
+            false
+        }
+    })
+}
+
 /// The cache level the single-point four-segment loops prefetch their coefficients into
 /// (see `crate::avx2::AHEAD`).
 #[derive(Clone, Copy, Debug, PartialEq, Eq)]
@@ -539,7 +567,7 @@ macro_rules! simd_dispatch {
                 }
                 #[target_feature(enable = "avx2,fma,avx512f,avx512vl")]
                 unsafe fn wide<T: $crate::storage::Coef>($($arg: $ty),*) -> $ret {
-                    $body::<$crate::simd::Fused, T>($($arg),*)
+                    $body::<$crate::simd::FusedWith<true>, T>($($arg),*)
                 }
                 if $crate::simd::has_avx512vl() {
                     // SAFETY: the processor has the features `wide` was compiled for.
