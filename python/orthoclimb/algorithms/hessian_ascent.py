@@ -65,7 +65,9 @@ model (this package, 3 seeds per cell), the top tangent eigenvalue at step i run
 by about 1-4 % for i < 5, 6-9 % for i ~ 20, 6.5-13 % for i >= 100 (n = 800 ... 200): consecutive
 step directions overlap by 0.3-0.5 once i passes about n^(1/3), so the path keeps returning to
 directions it has already used, and the top eigenvector lies mostly in their span. The
-prediction assumes n -> infinity first, then K -> infinity (K/n -> 0). Before polishing, the
+prediction assumes n -> infinity first, then K -> infinity (K/n -> 0). Steps forced orthogonal
+to every earlier one (a trial, README "Known limitations") ended 0.05-0.26 lower before the
+polish at n = 200-800: the reused directions are where the curvature is. Before polishing, the
 energy reached falls slightly as K grows at these sizes (n = 400, two seeds: by 0.015-0.023 from
 K = 25 to 400; the coarse steps cost about 1.2/K, the reused directions the rest); after
 polishing it moves by 0.009-0.016 with no trend in K. At n = 800-1600 (17 paired instances,
