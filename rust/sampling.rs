@@ -134,6 +134,10 @@ pub fn coefficient_bound(n: usize, p: usize, gamma: f64, disorder: &Disorder) ->
 }
 
 /// Fills `out` with the coefficients of ranks r0.. of the degree-p block (see module docs).
+///
+/// Segment by segment: along a segment (the prefix i1..i_{p-1} fixed, the last index t rising)
+/// c(m) is the prefix's for every t > i_{p-1}, so its scale base sqrt(c(m)) is computed once
+/// per segment (and once more for t = i_{p-1}) and the loop over t is a plain product.
 pub fn fill_range<T: Coef>(
     n: usize,
     p: usize,
@@ -148,10 +152,8 @@ pub fn fill_range<T: Coef>(
     }
     unrank(n, p, r0, &mut idx[..p]);
     let base = (n as f64).sqrt() * gamma;
-    // base sqrt(c(m)) for the last denominator of c(m) seen: consecutive ranks mostly share
-    // it, so the division and the square root run only where it changes (same bits)
     let fact = factorial(p);
-    let mut scale = (0u64, 0f64);
+    let scale = |denom: u64| base * ((fact / denom) as f64).sqrt();
     let mut g = [0f64; BATCH];
     let mut g0 = [0f64; BATCH];
     let mut done = 0usize;
@@ -165,13 +167,27 @@ pub fn fill_range<T: Coef>(
                 *gi = rho * g0i + tail * *gi;
             }
         }
-        for (slot, gi) in out[done..done + len].iter_mut().zip(&g[..len]) {
-            let denom = orderings_denominator(&idx[..p]);
-            if denom != scale.0 {
-                scale = (denom, base * ((fact / denom) as f64).sqrt());
+        let dst = &mut out[done..done + len];
+        let mut k = 0;
+        while k < len {
+            // this segment's ranks in the batch: last index t = idx[p - 1] .. n
+            let t = idx[p - 1];
+            let run = (n - t).min(len - k);
+            dst[k] = T::from_f64(scale(orderings_denominator(&idx[..p])) * g[k]);
+            if run > 1 {
+                // past t = i_{p-1} the last index repeats no other: the prefix's c(m)
+                let s = scale(orderings_denominator(&idx[..p - 1]));
+                for (slot, gi) in dst[k + 1..k + run].iter_mut().zip(&g[k + 1..k + run]) {
+                    *slot = T::from_f64(s * gi);
+                }
             }
-            *slot = T::from_f64(scale.1 * gi);
-            advance(&mut idx[..p], n);
+            k += run;
+            if t + run == n {
+                idx[p - 1] = n - 1;
+                advance(&mut idx[..p], n); // the next prefix's first multiset (or the end)
+            } else {
+                idx[p - 1] = t + run;
+            }
         }
         done += len;
     }
@@ -212,6 +228,96 @@ mod tests {
 
     fn pool(k: usize) -> Exec {
         Exec::with_threads(k).unwrap()
+    }
+
+    /// [`fill_range`] as it was written before its segments: each rank's c(m) from its own
+    /// multiset (the reference its values must equal bit for bit).
+    fn fill_range_by_rank<T: Coef>(
+        n: usize,
+        p: usize,
+        gamma: f64,
+        disorder: &Disorder,
+        r0: usize,
+        out: &mut [T],
+    ) {
+        let mut idx = [0usize; MAX_DEGREE];
+        if out.is_empty() {
+            return;
+        }
+        unrank(n, p, r0, &mut idx[..p]);
+        let base = (n as f64).sqrt() * gamma;
+        // base sqrt(c(m)) for the last denominator of c(m) seen: consecutive ranks mostly share
+        // it, so the division and the square root run only where it changes (same bits)
+        let fact = factorial(p);
+        let mut scale = (0u64, 0f64);
+        let mut g = [0f64; BATCH];
+        let mut g0 = [0f64; BATCH];
+        let mut done = 0usize;
+        while done < out.len() {
+            let len = BATCH.min(out.len() - done);
+            gaussians(disorder.seed, p, r0 + done, &mut g[..len]);
+            if let Some((seed0, rho)) = disorder.correlated_with {
+                gaussians(seed0, p, r0 + done, &mut g0[..len]);
+                let tail = (1.0 - rho * rho).max(0.0).sqrt();
+                for (gi, g0i) in g[..len].iter_mut().zip(&g0[..len]) {
+                    *gi = rho * g0i + tail * *gi;
+                }
+            }
+            for (slot, gi) in out[done..done + len].iter_mut().zip(&g[..len]) {
+                let denom = orderings_denominator(&idx[..p]);
+                if denom != scale.0 {
+                    scale = (denom, base * ((fact / denom) as f64).sqrt());
+                }
+                *slot = T::from_f64(scale.1 * gi);
+                advance(&mut idx[..p], n);
+            }
+            done += len;
+        }
+    }
+
+    #[test]
+    fn segments_give_the_coefficients_rank_by_rank() {
+        // every degree, sizes where segments are shorter and longer than a batch of BATCH,
+        // ranges that start and end inside segments and batches, with and without correlation
+        let plain = Disorder::new(3);
+        let mixed = Disorder {
+            seed: 4,
+            correlated_with: Some((3, 0.6)),
+        };
+        for (n, p) in [
+            (1, 1),
+            (5, 1),
+            (1, 4),
+            (2, 8),
+            (7, 3),
+            (40, 2),
+            (40, 3),
+            (9, 5),
+            (700, 2),
+        ] {
+            let total = num_multisets(n, p).unwrap();
+            for (r0, len) in [
+                (0, total),
+                (1, total - 1),
+                (total / 3, total / 2),
+                (total - 1, 1),
+            ] {
+                for d in [&plain, &mixed] {
+                    let (mut got, mut want) = (vec![0f64; len], vec![0f64; len]);
+                    fill_range(n, p, 0.7, d, r0, &mut got);
+                    fill_range_by_rank(n, p, 0.7, d, r0, &mut want);
+                    let same = got
+                        .iter()
+                        .zip(&want)
+                        .all(|(a, b)| a.to_bits() == b.to_bits());
+                    assert!(same, "n {n} p {p} ranks {r0}..+{len} {d:?}");
+                    let (mut got32, mut want32) = (vec![0f32; len], vec![0f32; len]);
+                    fill_range(n, p, 0.7, d, r0, &mut got32);
+                    fill_range_by_rank(n, p, 0.7, d, r0, &mut want32);
+                    assert_eq!(got32, want32, "float32 n {n} p {p} ranks {r0}..+{len}");
+                }
+            }
+        }
     }
 
     #[test]
