@@ -150,6 +150,10 @@ pub fn fill_range<T: Coef>(
     if out.is_empty() {
         return;
     }
+    debug_assert!(
+        (1..=MAX_DEGREE).contains(&p),
+        "degree {p}: checked by the callers"
+    );
     unrank(n, p, r0, &mut idx[..p]);
     let base = (n as f64).sqrt() * gamma;
     let fact = factorial(p);
@@ -293,6 +297,9 @@ mod tests {
             (40, 2),
             (40, 3),
             (9, 5),
+            (13, 6),
+            (10, 7),
+            (6, 8),
             (700, 2),
         ] {
             let total = num_multisets(n, p).unwrap();
