@@ -76,7 +76,12 @@ POINTS_DIR = "points"
 
 def row_file(folder: str | os.PathLike, task_id: str) -> Path:
     """The row file of task ``task_id`` in the study folder ``folder``."""
-    return Path(folder) / ROWS_DIR / f"{task_id}.json"
+    return row_file_in(Path(folder) / ROWS_DIR, task_id)
+
+
+def row_file_in(rows_dir: Path, task_id: Any) -> Path:
+    """The row file of task ``task_id`` in a study's rows folder ``rows_dir``."""
+    return rows_dir / f"{task_id}.json"
 
 
 ROW_FORMAT = "orthoclimb-study-row"
@@ -652,7 +657,7 @@ def _column_problem(rows: list[dict[str, Any]], fields: list[str], rows_dir: Pat
         common = max(seen, key=kinds.count, default="null")
         for row, kind in zip(rows, kinds, strict=True):
             if kind not in (common, "null"):
-                path = rows_dir / f"{row.get('task_id')}.json"
+                path = row_file_in(rows_dir, row.get("task_id"))
                 return _redo(path, f"has {key} = {row[key]!r}, where the other rows have {common}s")
         return ValueError(f"the results table's column {key!r} cannot be built: {problem}")
     return ValueError("the results table cannot be built from the rows")
