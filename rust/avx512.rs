@@ -282,7 +282,13 @@ pub(crate) unsafe fn rows4_octets<T: Coef, const TWO: bool>(
         _mm512_set1_pd(alpha),
         _mm512_set1_pd(beta),
     );
-    let xv = xi.map(|v| _mm512_set1_pd(v));
+    // written out, not `xi.map(..)`: a closure is compiled without the target features
+    let xv = [
+        _mm512_set1_pd(xi[0]),
+        _mm512_set1_pd(xi[1]),
+        _mm512_set1_pd(xi[2]),
+        _mm512_set1_pd(xi[3]),
+    ];
     let mut i = 0;
     while i + 8 <= len {
         crate::avx2::prefetch_segments(&pa, i, level);

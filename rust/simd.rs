@@ -444,12 +444,12 @@ fn narrow_registers_forced() -> bool {
 /// AVX-512F that are not AMD's. The steps give the same bits as the 256-bit ones. On an Intel
 /// Xeon (5th generation, two threads, paired medians) they took the float32 Hessian at p = 3
 /// from 21.95 to 20.56 ms at n = 800 and from 1.82 to 1.59 ms at n = 400, float64 1-4 % less
-/// time; p = 5 and, in four sets of five, p = 4 moved within the noise (a first p = 4 set
-/// measured 0.87-0.92 of the 256-bit loop's speed; bench/NOTES.md). Measured on that processor
-/// only: older Intel parts that lower their clock for 512-bit work may gain less. On AMD's Zen
-/// 4, which splits each 512-bit operation in two, a loop on 512-bit vectors had been slower at
-/// n <= 400, and this one was not measured there. Checked once, then cached (tests can force
-/// it on with `FORCE_WIDE_ROWS` wherever AVX-512F is present).
+/// time; p = 5 and p = 4 moved within the noise (four p = 4 sets; a first one had measured
+/// 0.87-0.92 of the 256-bit loop's speed, which they did not reproduce; bench/NOTES.md).
+/// Measured on that processor only: older Intel parts that lower their clock for 512-bit work
+/// may gain less. On AMD's Zen 4, which splits each 512-bit operation in two, a loop on 512-bit
+/// vectors had been slower at n <= 400, and this one was not measured there. Checked once,
+/// then cached (tests can force it on with `FORCE_WIDE_ROWS` wherever AVX-512F is present).
 pub fn wide_hessian_rows() -> bool {
     #[cfg(all(test, target_arch = "x86_64"))]
     if FORCE_WIDE_ROWS.load(std::sync::atomic::Ordering::Relaxed) {
