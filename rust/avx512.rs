@@ -412,6 +412,24 @@ mod tests {
         }
     }
 
+    /// `rows4_shared2` with both shared rows (`two`), else `rows4` with the first, on fixed
+    /// weights.
+    fn rows_call<T: Coef, const WIDE: bool>(
+        two: bool,
+        a: [&[T]; 4],
+        x: &[f64],
+        own: [&mut [f64]; 4],
+        shared: [(&mut [f64], f64); 2],
+    ) -> [f64; 4] {
+        let xi = [0.7, -1.3, 0.25, 2.0];
+        if two {
+            crate::avx2::rows4_shared2::<T, WIDE>(a, x, own, 1.7, shared, xi)
+        } else {
+            let [(z1, _), _] = shared;
+            crate::avx2::rows4::<T, WIDE>(a, x, own, 1.7, z1, xi)
+        }
+    }
+
     /// The 512-bit steps of the Hessian's four-segment loop give the 256-bit loop's bits:
     /// returned dots, own rows and shared rows, one or two of them, for lengths around the
     /// steps of eight and four and both storage types, on every processor with AVX-512F (AMD's
@@ -435,26 +453,11 @@ mod tests {
             let refs = [&a[0][..], &a[1][..], &a[2][..], &a[3][..]];
             let [r0, r1, r2, r3] = &mut rows;
             let own = [&mut r0[..], &mut r1[..], &mut r2[..], &mut r3[..]];
-            let xi = [0.7, -1.3, 0.25, 2.0];
-            let sums = match (wide, two) {
-                (true, true) => crate::avx2::rows4_shared2::<T, true>(
-                    refs,
-                    &x,
-                    own,
-                    1.7,
-                    [(&mut z1, 0.6), (&mut z2, -1.1)],
-                    xi,
-                ),
-                (false, true) => crate::avx2::rows4_shared2::<T, false>(
-                    refs,
-                    &x,
-                    own,
-                    1.7,
-                    [(&mut z1, 0.6), (&mut z2, -1.1)],
-                    xi,
-                ),
-                (true, false) => crate::avx2::rows4::<T, true>(refs, &x, own, 1.7, &mut z1, xi),
-                (false, false) => crate::avx2::rows4::<T, false>(refs, &x, own, 1.7, &mut z1, xi),
+            let shared = [(&mut z1[..], 0.6), (&mut z2[..], -1.1)];
+            let sums = if wide {
+                rows_call::<T, true>(two, refs, &x, own, shared)
+            } else {
+                rows_call::<T, false>(two, refs, &x, own, shared)
             };
             let bits = |v: &[f64]| v.iter().map(|e| e.to_bits()).collect::<Vec<u64>>();
             let mut all = vec![bits(&sums), bits(&z1), bits(&z2)];

@@ -133,6 +133,20 @@ pub fn coefficient_bound(n: usize, p: usize, gamma: f64, disorder: &Disorder) ->
     (n as f64).sqrt() * gamma * (factorial(p) as f64).sqrt() * largest_gaussian() * weight
 }
 
+/// The Gaussians of ranks r0.. of stream p that `disorder` asks for, into `g`: those of its
+/// seed, or rho g(seed0) + sqrt(1 - rho^2) g(seed) with a correlation (`g0`, as long as `g`,
+/// is scratch for g(seed0)).
+fn disorder_gaussians(disorder: &Disorder, p: usize, r0: usize, g: &mut [f64], g0: &mut [f64]) {
+    gaussians(disorder.seed, p, r0, g);
+    if let Some((seed0, rho)) = disorder.correlated_with {
+        gaussians(seed0, p, r0, g0);
+        let tail = (1.0 - rho * rho).max(0.0).sqrt();
+        for (gi, g0i) in g.iter_mut().zip(g0.iter()) {
+            *gi = rho * g0i + tail * *gi;
+        }
+    }
+}
+
 /// Fills `out` with the coefficients of ranks r0.. of the degree-p block (see module docs).
 ///
 /// Segment by segment: along a segment (the prefix i1..i_{p-1} fixed, the last index t rising)
@@ -163,14 +177,7 @@ pub fn fill_range<T: Coef>(
     let mut done = 0usize;
     while done < out.len() {
         let len = BATCH.min(out.len() - done);
-        gaussians(disorder.seed, p, r0 + done, &mut g[..len]);
-        if let Some((seed0, rho)) = disorder.correlated_with {
-            gaussians(seed0, p, r0 + done, &mut g0[..len]);
-            let tail = (1.0 - rho * rho).max(0.0).sqrt();
-            for (gi, g0i) in g[..len].iter_mut().zip(&g0[..len]) {
-                *gi = rho * g0i + tail * *gi;
-            }
-        }
+        disorder_gaussians(disorder, p, r0 + done, &mut g[..len], &mut g0[..len]);
         let dst = &mut out[done..done + len];
         let mut k = 0;
         while k < len {
@@ -259,14 +266,7 @@ mod tests {
         let mut done = 0usize;
         while done < out.len() {
             let len = BATCH.min(out.len() - done);
-            gaussians(disorder.seed, p, r0 + done, &mut g[..len]);
-            if let Some((seed0, rho)) = disorder.correlated_with {
-                gaussians(seed0, p, r0 + done, &mut g0[..len]);
-                let tail = (1.0 - rho * rho).max(0.0).sqrt();
-                for (gi, g0i) in g[..len].iter_mut().zip(&g0[..len]) {
-                    *gi = rho * g0i + tail * *gi;
-                }
-            }
+            disorder_gaussians(disorder, p, r0 + done, &mut g[..len], &mut g0[..len]);
             for (slot, gi) in out[done..done + len].iter_mut().zip(&g[..len]) {
                 let denom = orderings_denominator(&idx[..p]);
                 if denom != scale.0 {
