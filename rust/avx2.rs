@@ -413,12 +413,13 @@ pub fn rows4_shared2<T: Coef, const WIDE: bool>(
     shared: [(&mut [f64], f64); 2],
     xi: [f64; 4],
 ) -> [f64; 4] {
-    rows4_shared::<T, true, WIDE>(a, x, rows, w, shared, xi)
+    rows4_shared::<T, true, WIDE>(a, x, rows, w, shared, xi, 0)
 }
 
 /// The loop of [`rows4_shared2`]; with `TWO = false` the second shared row is not touched.
 /// With `WIDE` (compiled with AVX-512F only) and [`crate::simd::wide_hessian_rows`], the
 /// steps of eight positions go first ([`crate::avx512::rows4_octets`], the same bits).
+/// `next_row` as in [`crate::simd::rows4`] (for z1).
 #[inline(always)]
 fn rows4_shared<T: Coef, const TWO: bool, const WIDE: bool>(
     a: [&[T]; 4],
@@ -427,6 +428,7 @@ fn rows4_shared<T: Coef, const TWO: bool, const WIDE: bool>(
     w: f64,
     shared: [(&mut [f64], f64); 2],
     xi: [f64; 4],
+    next_row: usize,
 ) -> [f64; 4] {
     let [(z1, alpha), (z2, beta)] = shared;
     let len = z1.len();
@@ -470,11 +472,14 @@ fn rows4_shared<T: Coef, const TWO: bool, const WIDE: bool>(
                 xi,
                 &mut acc,
                 len,
-                level,
+                (level, next_row),
             );
         }
         while i + 4 <= len {
             prefetch_segments(&pa, i, level);
+            if next_row != 0 && i.is_multiple_of(8) {
+                _mm_prefetch::<_MM_HINT_T0>(p1.wrapping_add(i + next_row) as *const i8);
+            }
             let xt = _mm256_loadu_pd(px.add(i));
             let mut c = [_mm256_setzero_pd(); 4];
             for j in 0..4 {
@@ -524,6 +529,7 @@ fn rows4_shared<T: Coef, const TWO: bool, const WIDE: bool>(
 /// Four segments at once: s_j = sum_t a_j,t x_t, rows_j,t += w a_j,t,
 /// z_t += (xi_0 a_0,t + xi_1 a_1,t) + (xi_2 a_2,t + xi_3 a_3,t): [`rows4_shared2`] with one
 /// shared row of weight 1 (a fused multiply-add by 1 adds exactly, so the sums are the same).
+/// `next_row`: the prefetch hint of [`crate::simd::rows4`].
 #[inline(always)]
 pub fn rows4<T: Coef, const WIDE: bool>(
     a: [&[T]; 4],
@@ -532,8 +538,10 @@ pub fn rows4<T: Coef, const WIDE: bool>(
     w: f64,
     z: &mut [f64],
     xi: [f64; 4],
+    next_row: usize,
 ) -> [f64; 4] {
-    rows4_shared::<T, false, WIDE>(a, x, rows, w, [(z, 1.0), (&mut [], 0.0)], xi)
+    let shared = [(z, 1.0), (&mut [][..], 0.0)];
+    rows4_shared::<T, false, WIDE>(a, x, rows, w, shared, xi, next_row)
 }
 
 /// `acc[r][k] += c[r] X[u, lanes 4k..4k+4]` for the four rows.

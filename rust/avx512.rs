@@ -263,7 +263,8 @@ pub unsafe fn wide_group<T: Coef, const G: usize>(
 /// (and one widening of float32 coefficients) per eight positions instead of two. Returns the
 /// first position not done, for the 256-bit loop to go on from. `pa` are the four segments,
 /// `rows` the pointers (four own rows, z1, z2), each valid for `len` values (z2 only with
-/// `TWO`); the caller compiles with AVX2, FMA and AVX-512F.
+/// `TWO`); `next_row` is the prefetch hint of [`crate::simd::rows4`] for z1; the caller
+/// compiles with AVX2, FMA and AVX-512F.
 #[inline]
 #[target_feature(enable = "avx2,fma,avx512f")]
 #[allow(clippy::too_many_arguments)] // the loop state of the caller, passed through
@@ -275,7 +276,7 @@ pub(crate) unsafe fn rows4_octets<T: Coef, const TWO: bool>(
     xi: [f64; 4],
     acc: &mut [__m256d; 4],
     len: usize,
-    level: crate::simd::PrefetchLevel,
+    (level, next_row): (crate::simd::PrefetchLevel, usize),
 ) -> usize {
     let (wv, av, bv) = (
         _mm512_set1_pd(w),
@@ -292,6 +293,9 @@ pub(crate) unsafe fn rows4_octets<T: Coef, const TWO: bool>(
     let mut i = 0;
     while i + 8 <= len {
         crate::avx2::prefetch_segments(&pa, i, level);
+        if next_row != 0 {
+            _mm_prefetch::<_MM_HINT_T0>(p1.wrapping_add(i + next_row) as *const i8);
+        }
         let xt = _mm512_loadu_pd(px.add(i));
         let (xlo, xhi) = (_mm512_castpd512_pd256(xt), _mm512_extractf64x4_pd::<1>(xt));
         let mut c = [_mm512_setzero_pd(); 4];
@@ -426,7 +430,7 @@ mod tests {
             crate::avx2::rows4_shared2::<T, WIDE>(a, x, own, 1.7, shared, xi)
         } else {
             let [(z1, _), _] = shared;
-            crate::avx2::rows4::<T, WIDE>(a, x, own, 1.7, z1, xi)
+            crate::avx2::rows4::<T, WIDE>(a, x, own, 1.7, z1, xi, 7)
         }
     }
 

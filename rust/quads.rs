@@ -347,7 +347,8 @@ pub(crate) fn hessian4_quads<M: Madd, T: Coef>(
                 let s = if j == k {
                     let weight = xj + xk;
                     let shared = &mut rest[row_j + k..row_j + n];
-                    rows4::<M, T>(segs, &x[k..], rows, xj * xk, shared, xg.map(|v| weight * v))
+                    let xw = xg.map(|v| weight * v);
+                    rows4::<M, T>(segs, &x[k..], rows, xj * xk, shared, xw, 0)
                 } else {
                     let (before_k, row_k) = rest.split_at_mut(row_j + (k - j) * n);
                     let shared = [

@@ -65,6 +65,7 @@ pub trait Madd {
         w: f64,
         z: &mut [f64],
         xi: [f64; 4],
+        next_row: usize,
     ) -> [f64; 4];
     /// The batch tile (see [`crate::tile`]).
     fn tile<T: Coef, const G: usize>(
@@ -155,8 +156,9 @@ impl<const W: bool> Madd for FusedWith<W> {
         w: f64,
         z: &mut [f64],
         xi: [f64; 4],
+        next_row: usize,
     ) -> [f64; 4] {
-        crate::avx2::rows4::<T, W>(a, x, rows, w, z, xi)
+        crate::avx2::rows4::<T, W>(a, x, rows, w, z, xi, next_row)
     }
     #[inline(always)]
     fn tile<T: Coef, const G: usize>(
@@ -250,6 +252,7 @@ impl Madd for Plain {
         w: f64,
         z: &mut [f64],
         xi: [f64; 4],
+        _next_row: usize,
     ) -> [f64; 4] {
         portable_rows4::<Plain, T>(a, x, rows, w, z, xi)
     }
@@ -328,6 +331,12 @@ pub fn dot2_axpy<M: Madd, T: Coef>(
 /// and does rows_j,t += w a_j,t and z_t += sum_j xi_j a_j,t (the sum formed in the order
 /// (xi_0 a_0 + xi_1 a_1) + (xi_2 a_2 + xi_3 a_3) before it is added to z). Each z entry is
 /// read and written once for four coefficients.
+///
+/// `next_row` is a hint, not part of the result: the distance in entries from `z` to the
+/// shared row of the caller's next call (n + 1 in the degree-3 Hessian, whose shared rows are
+/// the rows j, j + 1, ... of an n x n accumulator from column j on), which the vector loops
+/// prefetch into L1 along this call, one line per line of `z`; 0 for none. A prefetch never
+/// faults, so the row may lie past the accumulator's end.
 #[inline(always)]
 pub fn rows4<M: Madd, T: Coef>(
     a: [&[T]; 4],
@@ -336,8 +345,9 @@ pub fn rows4<M: Madd, T: Coef>(
     w: f64,
     z: &mut [f64],
     xi: [f64; 4],
+    next_row: usize,
 ) -> [f64; 4] {
-    M::rows4(a, x, rows, w, z, xi)
+    M::rows4(a, x, rows, w, z, xi, next_row)
 }
 
 /// s_j = sum_t a_j,t x_t for four segments of equal length, reading each x entry once for
@@ -805,6 +815,7 @@ mod tests {
                     -0.5,
                     &mut z,
                     xi,
+                    len + 1,
                 );
                 let close = |p: f64, q: f64| (p - q).abs() <= 1e-13 * (1.0 + q.abs());
                 for k in 0..4 {

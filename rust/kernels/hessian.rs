@@ -143,6 +143,7 @@ fn hessian3_item_body<M: Madd, T: Coef>(
                 x[j],
                 &mut tail[j..n],
                 xi,
+                n + 1, // row j + 1 from column j + 1, the shared row of the next j
             );
             for k in 0..4 {
                 acc[(g + k) * n + j] += s[k];
