@@ -65,6 +65,20 @@ def test_to_dense_refuses_above_limit(monkeypatch):
         ham.to_dense(2, max_bytes=1000)
 
 
+def test_to_dense_refuses_a_tensor_beyond_the_available_memory(monkeypatch):
+    # a user who raised max_bytes got NumPy's MemoryError (or the OS's kill) instead of the
+    # package's refusal with the bytes needed and available (a fuzzing trial)
+    from orthoclimb.errors import InsufficientMemoryError
+    from orthoclimb.model import memory
+
+    ham = oc.Hamiltonian.sample(oc.Mixture({3: 1.0}), 40, seed=0)
+    monkeypatch.setattr(memory, "available_memory", lambda: 100_000)
+    with pytest.raises(InsufficientMemoryError, match="n = 40 needs 512000 bytes.*100000 bytes"):
+        ham.to_dense(3, max_bytes=2**62)
+    monkeypatch.setattr(memory, "available_memory", lambda: 600_000)
+    assert ham.to_dense(3).shape == (40, 40, 40)
+
+
 def test_dense_shape_errors():
     with pytest.raises(ShapeError):
         oc.Hamiltonian.from_dense({3: np.zeros((3, 3))})

@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import math
+from fractions import Fraction
 
 import numpy as np
 import pytest
@@ -92,6 +93,45 @@ def test_a_mixture_of_the_right_type_but_a_bad_value_is_no_type_error(spec):
 def test_parse_squared_must_be_a_boolean():
     with pytest.raises(TypeError, match="squared must be True or False, got 'no'"):
         Mixture.parse("3:1", squared="no")
+
+
+@pytest.mark.parametrize(
+    "text, fragment",
+    [
+        ("2:1,3:1e-400", "'1e-400' for p = 3 .* too small: it rounds to 0"),
+        ("2:1,3:-1e-400", "'-1e-400' for p = 3 .* must be >= 0"),
+        ("2:1, 3: 4.9e-325 ", "'4.9e-325' for p = 3 .* too small"),  # below the least subnormal
+    ],
+)
+@pytest.mark.parametrize("squared", [False, True])
+def test_a_weight_that_reads_as_zero_but_is_not_is_refused(text, fragment, squared):
+    # float() reads these texts as 0.0 or -0.0, which dropped the degree without a word (a
+    # fuzzing trial); written zeros still drop it
+    with pytest.raises(MixtureError, match=fragment):
+        Mixture.parse(text, squared=squared)
+    for zero in ["0", "-0", "0.0e5", "-0e-400"]:
+        assert Mixture.parse(f"2:1,3:{zero}", squared=squared).degrees == (2,)
+
+
+@pytest.mark.parametrize(
+    "value, fragment",
+    [
+        (Fraction(1, 10**400), "too small: it rounds to 0"),
+        (Fraction(-1, 10**400), ">= 0"),
+        (np.longdouble("1e-4000"), "too small: it rounds to 0"),
+        (np.longdouble("-1e-4000"), ">= 0"),
+    ],
+)
+def test_a_weight_that_rounds_to_zero_is_refused(value, fragment):
+    # float() turns these into 0.0 or -0.0; the value itself is compared with 0 (np.longdouble
+    # of 1e-4000 is nonzero only where long double is wider than float64)
+    if value == 0:
+        pytest.skip("long double is float64 here")
+    with pytest.raises(MixtureError, match=fragment):
+        Mixture({2: 1.0, 3: value})
+    with pytest.raises(MixtureError, match=fragment):
+        Mixture.from_xi({2: 1.0, 3: value})
+    assert Mixture({2: 1.0, 3: -0.0}).degrees == (2,)
 
 
 def test_from_xi_refuses_a_subnormal_coefficient():

@@ -289,6 +289,28 @@ def test_a_hessian_workspace_beyond_the_available_memory_is_refused(monkeypatch)
     assert small.hessian(np.full(30, 30**-0.5)).shape == (30, 30)
 
 
+def test_a_copy_of_a_batch_beyond_the_available_memory_is_refused(monkeypatch):
+    # a broadcast view of 2.5 million points costs nothing, but its float64 copy 120 MB: it
+    # is refused before the copy (a fuzzing trial saw 4.5 GB allocated without a word); a
+    # C-contiguous float64 batch needs no copy and copies of at most 64 MiB are not checked
+    from orthoclimb.model import memory
+
+    ham = oc.Hamiltonian.sample(oc.Mixture({3: 1.0}), 6, seed=0)
+    x = np.full(6, 6**-0.5)
+    monkeypatch.setattr(memory, "available_memory", lambda: 10**6)
+    with pytest.raises(
+        InsufficientMemoryError, match=r"copy of x \(shape \(2500000, 6\).*120000000 bytes"
+    ):
+        ham.energy(np.broadcast_to(x, (2_500_000, 6)))
+
+    def not_asked() -> int:
+        raise AssertionError("a small copy read the available memory")
+
+    monkeypatch.setattr(memory, "available_memory", not_asked)
+    e = ham.energy(np.broadcast_to(x, (1000, 6)))
+    assert e.shape == (1000,) and np.allclose(e, ham.energy(x), rtol=1e-13, atol=0)
+
+
 def test_many_directions_beyond_the_available_memory_are_refused_before_the_pass(monkeypatch):
     # pure p = 2 at n = 2100 takes the multi-direction pass (its Hessian's workspace is over
     # 64 MiB); 2000 directions need the core's transposed copy of them and the result, and

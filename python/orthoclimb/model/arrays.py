@@ -55,12 +55,27 @@ def real_array(a: object, name: str) -> np.ndarray:
     return arr
 
 
+_CHECKED_COPY = 1 << 26
+"""Bytes above which :func:`as_float_array` checks the available memory before a copy."""
+
+
 def as_float_array(a: object, name: str) -> np.ndarray:
     """A C-contiguous, aligned float64 copy or view of `a`, finite. Integers are converted
     (and an unaligned view copied); the rest of :func:`real_array`'s refusals apply, and a
     value that is finite but beyond float64's range (a long double) is named as such rather
-    than as the infinity it would become."""
+    than as the infinity it would become. A copy of more than ``_CHECKED_COPY`` bytes (a
+    broadcast view of a large batch, say) is refused first when it does not fit in the
+    available memory."""
     arr = real_array(a, name)
+    copy_bytes = 8 * arr.size
+    if copy_bytes > _CHECKED_COPY and not (arr.dtype == np.float64 and arr.flags.c_contiguous):
+        from .memory import require_memory  # (memory imports this module)
+
+        require_memory(
+            copy_bytes,
+            f"a float64 copy of {name} (shape {arr.shape}, dtype {arr.dtype})",
+            skip="pass a float64 C-contiguous array to avoid the copy, or a smaller one",
+        )
     if arr.dtype.kind == "f" and arr.dtype.itemsize > 8:  # a long double may overflow here
         with np.errstate(over="ignore"):
             out = np.asarray(arr, dtype=np.float64, order="C")

@@ -14,7 +14,7 @@ import numpy as np
 
 from .. import _core
 from ..errors import ShapeError
-from .memory import format_bytes
+from .memory import format_bytes, require_memory
 
 DEFAULT_DENSE_LIMIT = 2**31
 """Default largest dense tensor, in bytes, that `to_dense` builds (2 GiB)."""
@@ -42,13 +42,19 @@ def dense_nbytes(n: int, p: int) -> int:
 
 
 def check_dense_size(n: int, p: int, max_bytes: int) -> None:
-    """ValueError unless the (n,)*p float64 tensor takes at most ``max_bytes``."""
+    """ValueError unless the (n,)*p float64 tensor takes at most ``max_bytes``, and
+    InsufficientMemoryError when it does not fit in the memory available now."""
     need = dense_nbytes(n, p)
     if need > max_bytes:
         raise ValueError(
             f"a dense degree-{p} tensor for n = {n} needs {need} bytes ({format_bytes(need)}),"
             f" above the limit max_bytes = {max_bytes}; raise max_bytes if you have the memory"
         )
+    require_memory(
+        need,
+        f"a dense degree-{p} tensor for n = {n}",
+        skip="the packed kernels need no dense tensor",
+    )
 
 
 def to_dense(coeffs: np.ndarray, n: int, p: int, max_bytes: int = DEFAULT_DENSE_LIMIT):

@@ -14,6 +14,7 @@ from __future__ import annotations
 import math
 import sys
 from collections.abc import Iterable, Mapping
+from decimal import Decimal
 from typing import Any
 
 import numpy as np
@@ -53,7 +54,31 @@ def _check_gamma(p: int, gamma: Any, what: str = "gamma") -> float:
         ) from None
     if not math.isfinite(value) or value < 0:
         raise MixtureError(f"{what} for p = {p} must be finite and >= 0, got {gamma!r}")
+    if value == 0.0 and _nonzero(gamma):
+        # Fraction(1, 10**400) or longdouble('1e-4000') becomes 0.0 (or -0.0 for a negative
+        # one): the degree would vanish, or a negative weight pass, without a word
+        if _negative(gamma):
+            raise MixtureError(f"{what} for p = {p} must be finite and >= 0, got {gamma!r}")
+        raise MixtureError(
+            f"{what} for p = {p} is too small: it rounds to 0 in float64; give 0 to drop the"
+            f" degree; got {gamma!r}"
+        )
     return value
+
+
+def _nonzero(value: Any) -> bool:
+    """Whether `value` (which float() turned into 0.0) is not zero itself."""
+    try:
+        return bool(value != 0)
+    except (TypeError, ValueError):  # a type that cannot compare: float() is all we know
+        return False
+
+
+def _negative(value: Any) -> bool:
+    try:
+        return bool(value < 0)
+    except (TypeError, ValueError):
+        return False
 
 
 def _degree_key(key: object) -> object:
@@ -207,6 +232,16 @@ class Mixture:
                 raise MixtureError(
                     f"weight {g_text.strip()!r} for p = {p} in mixture text {text!r} is not a"
                     " finite number"
+                )
+            exact = Decimal(g_text.strip())
+            if g == 0.0 and exact != 0:  # '1e-400' and '-1e-400' read as 0.0 and -0.0
+                problem = (
+                    "must be >= 0"
+                    if exact < 0
+                    else "is too small: it rounds to 0 in float64; give 0 to drop the degree"
+                )
+                raise MixtureError(
+                    f"weight {g_text.strip()!r} for p = {p} in mixture text {text!r} {problem}"
                 )
             if p in pairs:
                 raise MixtureError(f"degree p = {p} is given twice in mixture text {text!r}")
