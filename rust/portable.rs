@@ -234,9 +234,10 @@ pub(crate) fn portable_dots8_axpy<M: Madd, T: Coef>(
 }
 
 /// Portable [`rows4_shared2`](crate::simd::rows4_shared2): per lane, the operations of the
-/// AVX2 loop in its order.
+/// AVX2 loop in its order, its dots in four lanes, or with `EIGHT` in the eight lanes of its
+/// AVX-512 instantiation (`crate::avx2::rows4_shared2::<T, true>`).
 #[inline(always)]
-pub(crate) fn portable_rows4_shared2<M: Madd, T: Coef>(
+pub(crate) fn portable_rows4_shared2<M: Madd, T: Coef, const EIGHT: bool>(
     a: [&[T]; 4],
     x: &[f64],
     rows: [&mut [f64]; 4],
@@ -244,13 +245,13 @@ pub(crate) fn portable_rows4_shared2<M: Madd, T: Coef>(
     shared: [(&mut [f64], f64); 2],
     xi: [f64; 4],
 ) -> [f64; 4] {
-    portable_rows4_shared::<M, T, true>(a, x, rows, w, shared, xi)
+    portable_rows4_shared::<M, T, true, EIGHT>(a, x, rows, w, shared, xi)
 }
 
 /// The loop of [`portable_rows4_shared2`]; with `TWO = false` the second row is not touched.
 #[inline(always)]
 #[allow(clippy::needless_range_loop)] // l and j index lanes and segments of several arrays at once
-fn portable_rows4_shared<M: Madd, T: Coef, const TWO: bool>(
+fn portable_rows4_shared<M: Madd, T: Coef, const TWO: bool, const EIGHT: bool>(
     a: [&[T]; 4],
     x: &[f64],
     rows: [&mut [f64]; 4],
@@ -267,11 +268,14 @@ fn portable_rows4_shared<M: Madd, T: Coef, const TWO: bool>(
         &mut r2[..len],
         &mut r3[..len],
     ];
-    let mut acc = [[0f64; SHORT]; 4];
+    // the AVX2 loop's dot lanes over its vector steps: position i in lane i mod 4, or with
+    // EIGHT in lane i mod 8 (lanes 4-7 stay zero without)
+    let lanes = if EIGHT { 2 * SHORT } else { SHORT };
+    let mut acc = [[0f64; 2 * SHORT]; 4];
     let body = len / SHORT * SHORT;
     let mut tail = [0f64; 4];
     for i in 0..len {
-        let l = i % SHORT;
+        let l = i % lanes;
         let c = coef4(&a, i);
         for j in 0..4 {
             if i < body {
@@ -289,7 +293,12 @@ fn portable_rows4_shared<M: Madd, T: Coef, const TWO: bool>(
     }
     let mut out = [0f64; 4];
     for j in 0..4 {
-        out[j] = ((acc[j][0] + acc[j][2]) + (acc[j][1] + acc[j][3])) + tail[j];
+        let v: [f64; SHORT] = if EIGHT {
+            std::array::from_fn(|l| acc[j][l] + acc[j][l + SHORT])
+        } else {
+            std::array::from_fn(|l| acc[j][l])
+        };
+        out[j] = ((v[0] + v[2]) + (v[1] + v[3])) + tail[j];
     }
     out
 }
@@ -297,7 +306,7 @@ fn portable_rows4_shared<M: Madd, T: Coef, const TWO: bool>(
 /// Portable [`rows4`](crate::simd::rows4): [`portable_rows4_shared2`] with one shared row of
 /// weight 1 (exact).
 #[inline(always)]
-pub(crate) fn portable_rows4<M: Madd, T: Coef>(
+pub(crate) fn portable_rows4<M: Madd, T: Coef, const EIGHT: bool>(
     a: [&[T]; 4],
     x: &[f64],
     rows: [&mut [f64]; 4],
@@ -305,7 +314,7 @@ pub(crate) fn portable_rows4<M: Madd, T: Coef>(
     z: &mut [f64],
     xi: [f64; 4],
 ) -> [f64; 4] {
-    portable_rows4_shared::<M, T, false>(a, x, rows, w, [(z, 1.0), (&mut [], 0.0)], xi)
+    portable_rows4_shared::<M, T, false, EIGHT>(a, x, rows, w, [(z, 1.0), (&mut [], 0.0)], xi)
 }
 
 #[cfg(test)]
