@@ -491,13 +491,15 @@ fn rows4_shared<T: Coef, const TWO: bool, const WIDE: bool>(
                 (loop_.level, next_row),
             );
         }
-        // i is a multiple of 8 here, so the lanes of each step are those of its positions
-        while i + 8 <= len {
-            loop_.step::<TWO>(i, &mut lo);
-            loop_.step::<TWO>(i + 4, if WIDE { &mut hi } else { &mut lo });
-            i += 8;
+        if WIDE {
+            // i is a multiple of 8 here, so the lanes of each step are those of its positions
+            while i + 8 <= len {
+                loop_.step::<TWO>(i, &mut lo);
+                loop_.step::<TWO>(i + 4, &mut hi);
+                i += 8;
+            }
         }
-        if i + 4 <= len {
+        while i + 4 <= len {
             loop_.step::<TWO>(i, &mut lo);
             i += 4;
         }
