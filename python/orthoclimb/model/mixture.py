@@ -233,8 +233,8 @@ class Mixture:
                     f"weight {g_text.strip()!r} for p = {p} in mixture text {text!r} is not a"
                     " finite number"
                 )
-            exact = Decimal(g_text.strip())
-            if g == 0.0 and exact != 0:  # '1e-400' and '-1e-400' read as 0.0 and -0.0
+            exact = Decimal(g_text.strip()) if g == 0.0 else None  # only a zero reading
+            if exact is not None and exact != 0:  # '1e-400' and '-1e-400' read as 0.0, -0.0
                 problem = (
                     "must be >= 0"
                     if exact < 0
