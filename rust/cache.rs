@@ -1,9 +1,10 @@
 //! What the processor's caches hold, as far as the operating system says.
 //!
 //! The batch walk picks its schedule by whether the coefficients can stay in the last-level
-//! cache between calls (see `crate::batch`). Linux lists the caches of CPU 0 under
-//! `/sys/devices/system/cpu/cpu0/cache/index*/` with a `level` and a `size` such as `48K` or
-//! `266240K`; elsewhere the size is unknown and callers keep their default.
+//! cache between calls (see `crate::batch`), and the degree-3 Hessian cuts its shared rows
+//! into slabs that fit in L2 (see `crate::kernels::hessian`). Linux lists the caches of CPU 0
+//! under `/sys/devices/system/cpu/cpu0/cache/index*/` with a `level`, a `type` and a `size`
+//! such as `48K` or `266240K`; elsewhere the sizes are unknown and callers keep their default.
 
 use std::sync::OnceLock;
 
@@ -19,24 +20,54 @@ pub fn parse_size(text: &str) -> Option<usize> {
     digits.parse::<usize>().ok()?.checked_mul(scale)
 }
 
-/// The largest cache of the deepest level listed for CPU 0, in bytes (read once).
-pub fn last_level_bytes() -> Option<usize> {
-    static SIZE: OnceLock<Option<usize>> = OnceLock::new();
-    *SIZE.get_or_init(|| {
-        let dir = std::fs::read_dir("/sys/devices/system/cpu/cpu0/cache").ok()?;
-        let mut best: Option<(u32, usize)> = None;
+/// One cache listed for CPU 0: its level, its type ("Data", "Instruction", "Unified") and
+/// its size in bytes.
+struct Listed {
+    level: u32,
+    kind: String,
+    bytes: usize,
+}
+
+/// The caches Linux lists for CPU 0 (read once; empty where it lists none).
+fn listed() -> &'static [Listed] {
+    static CACHES: OnceLock<Vec<Listed>> = OnceLock::new();
+    CACHES.get_or_init(|| {
+        let Ok(dir) = std::fs::read_dir("/sys/devices/system/cpu/cpu0/cache") else {
+            return Vec::new();
+        };
+        let mut out = Vec::new();
         for entry in dir.flatten() {
             let read = |name: &str| std::fs::read_to_string(entry.path().join(name)).ok();
             let level = read("level").and_then(|l| l.trim().parse::<u32>().ok());
-            let size = read("size").as_deref().and_then(parse_size);
-            if let (Some(level), Some(size)) = (level, size) {
-                if best.is_none_or(|b| (level, size) > b) {
-                    best = Some((level, size));
-                }
+            let bytes = read("size").as_deref().and_then(parse_size);
+            let kind = read("type")
+                .map(|t| t.trim().to_string())
+                .unwrap_or_default();
+            if let (Some(level), Some(bytes)) = (level, bytes) {
+                out.push(Listed { level, kind, bytes });
             }
         }
-        best.map(|(_, size)| size)
+        out
     })
+}
+
+/// The largest cache of the deepest level listed for CPU 0, in bytes.
+pub fn last_level_bytes() -> Option<usize> {
+    listed()
+        .iter()
+        .map(|c| (c.level, c.bytes))
+        .max()
+        .map(|(_, bytes)| bytes)
+}
+
+/// The level-2 data (or unified) cache of CPU 0, in bytes: on the processors measured, one
+/// core's own (2 MiB on a 5th-generation Xeon, 1 MiB on Zen 4, 512 KiB on the first Zen).
+pub fn level2_bytes() -> Option<usize> {
+    listed()
+        .iter()
+        .filter(|c| c.level == 2 && c.kind != "Instruction")
+        .map(|c| c.bytes)
+        .max()
 }
 
 #[cfg(test)]
@@ -67,5 +98,21 @@ mod tests {
             .as_deref()
             .and_then(parse_size);
         assert!(llc >= l1.unwrap_or(0));
+    }
+
+    /// Where Linux lists an L2, it lies between the first level and the last.
+    #[test]
+    fn level2_lies_between_the_first_and_last_levels() {
+        let Some(l2) = level2_bytes() else {
+            eprintln!("no level-2 cache listed here");
+            return;
+        };
+        let first = listed()
+            .iter()
+            .filter(|c| c.level == 1)
+            .map(|c| c.bytes)
+            .max();
+        assert!(l2 >= first.unwrap_or(0), "L2 {l2} below L1 {first:?}");
+        assert!(last_level_bytes().is_some_and(|llc| llc >= l2));
     }
 }

@@ -724,7 +724,7 @@ fn settle_lazy_state(py: Python<'_>) {
     // thread (a call's first signal poll)
     py.detach(|| Python::attach(|_| ()));
     let _ = crate::simd::segment_prefetch_level();
-    let _ = crate::cache::last_level_bytes();
+    let _ = crate::cache::last_level_bytes(); // reads every listed cache size, once
 }
 
 /// `gil_used = true`: the inputs' copies ([`input1`], [`input2`]) and `from_coefficients` rely
