@@ -36,6 +36,10 @@ pub struct WorkItem {
     /// Coefficient range of the block covered by this item.
     pub start: usize,
     pub len: usize,
+    /// Second indices (i2) whose coefficients this item walks: `second.0..second.1`. All of
+    /// them (0..n) in a [`plan`]; the degree-3 Hessian's row slabs give several items the same
+    /// first indices and coefficients and each a slab of second indices (`kernels::hessian`).
+    pub second: (usize, usize),
 }
 
 /// The work of one pass: chunks in storage order, and the groups of consecutive chunks that
@@ -117,6 +121,7 @@ pub fn plan(
                     hi,
                     start,
                     len: end - start,
+                    second: (0, n),
                 });
             }
             groups.push(first..items.len());

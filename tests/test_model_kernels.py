@@ -133,6 +133,29 @@ def test_hessian_is_symmetric_and_operator_matches(rng):
     assert abs(top - np.linalg.eigvalsh(hess)[-1]) < 1e-8 * abs(top)
 
 
+@pytest.mark.parametrize("dtype", ["float64", "float32"])
+def test_a_hessian_cut_in_row_slabs_matches_single_products(dtype, rng):
+    # At n = 600 the degree-3 Hessian's shared rows (8 (n - lo)^2 bytes) outgrow an L2 of up
+    # to 2.8 MiB, so the pass walks them in row slabs (rust/kernels/hessian.rs `row_slabs`).
+    # Its rows are checked against the single-direction HVP pass, which forms no Hessian, and
+    # its bits across thread counts.
+    n = 600
+    ham = oc.Hamiltonian.sample(oc.Mixture({2: 0.5, 3: 1.0}), n, seed=5, dtype=dtype)
+    x = unit(rng.standard_normal(n))
+    with every_call_on_the_pool():
+        oc.set_num_threads(1)
+        one = ham.hessian(x)
+        oc.set_num_threads(2)
+        two = ham.hessian(x)
+    np.testing.assert_array_equal(one, two)
+    np.testing.assert_array_equal(two, two.T)
+    scale = np.abs(two).max()
+    for i in (0, 1, 5, 57, 301, n - 1):
+        e = np.zeros(n)
+        e[i] = 1.0
+        _close(two[i], ham.hvp(x, e), scale)
+
+
 def test_float32_storage_is_the_rounded_float64_instance(rng):
     n = 30
     mix = oc.Mixture({2: 1.0, 3: 0.5})
