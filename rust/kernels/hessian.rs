@@ -122,14 +122,6 @@ fn hessian3_item_body<M: Madd, T: Coef>(
 ) {
     let coeffs = &a[it.start..it.start + it.len];
     let mut pp = PrefixProducts::new();
-    let mut near = |g: usize, acc: &mut [f64]| {
-        for i in g..g + 4 {
-            for j in i..g + 4 {
-                let p = segment3(n, it.start, i, j);
-                hessian_prefix::<M, T>(n, &coeffs[p..p + n - j], (j, &[i, j]), x, acc, &mut pp);
-            }
-        }
-    };
     let rest = it.hi - (it.hi - it.lo) % 4; // first indices rest..hi are left over
     let fours = (it.lo..rest).step_by(4);
     let (j0, j1) = (it.second.0.max(it.lo + 4), it.second.1);
@@ -139,7 +131,7 @@ fn hessian3_item_body<M: Madd, T: Coef>(
         }
         let from = j0.max(g + 4);
         if from == g + 4 {
-            near(g, acc);
+            hessian3_near::<M, T>((n, it.start), coeffs, g, x, acc, &mut pp);
         }
         let xi = [x[g], x[g + 1], x[g + 2], x[g + 3]];
         let mut pos = [0usize; 4];
@@ -173,13 +165,35 @@ fn hessian3_item_body<M: Madd, T: Coef>(
         return;
     }
     if rest == n && rest >= it.lo + 4 {
-        near(n - 4, acc); // the group g = n - 4 has no row j >= g + 4
+        // the group g = n - 4 has no row j >= g + 4
+        hessian3_near::<M, T>((n, it.start), coeffs, n - 4, x, acc, &mut pp);
     }
     for i in rest..it.hi {
         let mut p = segment3(n, it.start, i, i);
         for j in i..n {
             hessian_prefix::<M, T>(n, &coeffs[p..p + n - j], (j, &[i, j]), x, acc, &mut pp);
             p += n - j;
+        }
+    }
+}
+
+/// The prefixes (i, j) with g <= i <= j < g + 4 of a group of four first indices, the plain
+/// way (`base`: the item's first coefficient, as in [`segment3`]). A function, not a closure
+/// in the caller: a closure does not take the instruction set of the `simd_dispatch!` wrapper,
+/// so the vector loops in it did not inline (the Hessian at n = 400 took 1.7 times as long).
+#[inline(always)]
+fn hessian3_near<M: Madd, T: Coef>(
+    (n, base): (usize, usize),
+    coeffs: &[T],
+    g: usize,
+    x: &[f64],
+    acc: &mut [f64],
+    pp: &mut PrefixProducts,
+) {
+    for i in g..g + 4 {
+        for j in i..g + 4 {
+            let p = segment3(n, base, i, j);
+            hessian_prefix::<M, T>(n, &coeffs[p..p + n - j], (j, &[i, j]), x, acc, pp);
         }
     }
 }
