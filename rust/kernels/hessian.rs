@@ -120,71 +120,92 @@ fn hessian3_item_body<M: Madd, T: Coef>(
     x: &[f64],
     acc: &mut [f64],
 ) {
-    let coeffs = &a[it.start..it.start + it.len];
+    let coeffs = (&a[it.start..it.start + it.len], it.start);
     let mut pp = PrefixProducts::new();
     let rest = it.hi - (it.hi - it.lo) % 4; // first indices rest..hi are left over
-    let fours = (it.lo..rest).step_by(4);
-    let (j0, j1) = (it.second.0.max(it.lo + 4), it.second.1);
-    for g in fours {
-        if g + 4 >= j1 {
-            break; // this group's rows start in a later slab
+    if it.second == (0, n) {
+        // each group whole (a loop of its own: the slab walk's bounds cost 2-4 % here)
+        for g in (it.lo..rest).step_by(4) {
+            hessian3_near::<M, T>(n, coeffs, g, x, acc, &mut pp);
+            hessian3_rows::<M, T>(n, coeffs, g, (g + 4, n), x, acc);
         }
-        let from = j0.max(g + 4);
-        if from == g + 4 {
-            hessian3_near::<M, T>((n, it.start), coeffs, g, x, acc, &mut pp);
-        }
-        let xi = [x[g], x[g + 1], x[g + 2], x[g + 3]];
-        let mut pos = [0usize; 4];
-        for (k, p) in pos.iter_mut().enumerate() {
-            *p = segment3(n, it.start, g + k, from);
-        }
-        for j in from..j1 {
-            let len = n - j;
-            let (head, tail) = acc.split_at_mut(j * n);
-            let (r0, rest) = head[g * n..(g + 4) * n].split_at_mut(n);
-            let (r1, rest) = rest.split_at_mut(n);
-            let (r2, r3) = rest.split_at_mut(n);
-            let s = rows4::<M, T>(
-                four_segments(coeffs, &pos, len),
-                &x[j..],
-                [&mut r0[j..], &mut r1[j..], &mut r2[j..], &mut r3[j..]],
-                x[j],
-                &mut tail[j..n],
-                xi,
-                // row j + 1 from column j + 1, the shared row of the next j (none past the
-                // slab: the next group starts again at its first row)
-                if j + 1 < j1 { n + 1 } else { 0 },
-            );
-            for k in 0..4 {
-                acc[(g + k) * n + j] += s[k];
-                pos[k] += len;
+    } else {
+        let (j0, j1) = (it.second.0.max(it.lo + 4), it.second.1);
+        for g in (it.lo..rest).step_by(4) {
+            if g + 4 >= j1 {
+                break; // this group's rows start in a later slab
             }
+            let from = j0.max(g + 4);
+            if from == g + 4 {
+                hessian3_near::<M, T>(n, coeffs, g, x, acc, &mut pp);
+            }
+            hessian3_rows::<M, T>(n, coeffs, g, (from, j1), x, acc);
         }
-    }
-    if it.second.1 < n {
-        return;
-    }
-    if rest == n && rest >= it.lo + 4 {
-        // the group g = n - 4 has no row j >= g + 4
-        hessian3_near::<M, T>((n, it.start), coeffs, n - 4, x, acc, &mut pp);
+        if j1 < n {
+            return;
+        }
+        if rest == n && rest >= it.lo + 4 {
+            // the group g = n - 4 has no row j >= g + 4
+            hessian3_near::<M, T>(n, coeffs, n - 4, x, acc, &mut pp);
+        }
     }
     for i in rest..it.hi {
         let mut p = segment3(n, it.start, i, i);
         for j in i..n {
-            hessian_prefix::<M, T>(n, &coeffs[p..p + n - j], (j, &[i, j]), x, acc, &mut pp);
+            let seg = &coeffs.0[p..p + n - j];
+            hessian_prefix::<M, T>(n, seg, (j, &[i, j]), x, acc, &mut pp);
             p += n - j;
         }
     }
 }
 
+/// The rows j in `from..to` (from >= g + 4) of a group of four first indices g..g+4: the
+/// four segments of (g + k, j) through [`rows4`], sharing row j of the accumulator.
+/// `coeffs`: the item's coefficients and the first one's place in the block.
+#[inline(always)]
+fn hessian3_rows<M: Madd, T: Coef>(
+    n: usize,
+    (coeffs, base): (&[T], usize),
+    g: usize,
+    (from, to): (usize, usize),
+    x: &[f64],
+    acc: &mut [f64],
+) {
+    let xi = [x[g], x[g + 1], x[g + 2], x[g + 3]];
+    let mut pos = [0usize; 4];
+    for (k, p) in pos.iter_mut().enumerate() {
+        *p = segment3(n, base, g + k, from);
+    }
+    for j in from..to {
+        let len = n - j;
+        let (head, tail) = acc.split_at_mut(j * n);
+        let (r0, rest) = head[g * n..(g + 4) * n].split_at_mut(n);
+        let (r1, rest) = rest.split_at_mut(n);
+        let (r2, r3) = rest.split_at_mut(n);
+        let s = rows4::<M, T>(
+            four_segments(coeffs, &pos, len),
+            &x[j..],
+            [&mut r0[j..], &mut r1[j..], &mut r2[j..], &mut r3[j..]],
+            x[j],
+            &mut tail[j..n],
+            xi,
+            n + 1, // row j + 1 from column j + 1, the shared row of the next j
+        );
+        for k in 0..4 {
+            acc[(g + k) * n + j] += s[k];
+            pos[k] += len;
+        }
+    }
+}
+
 /// The prefixes (i, j) with g <= i <= j < g + 4 of a group of four first indices, the plain
-/// way (`base`: the item's first coefficient, as in [`segment3`]). A function, not a closure
+/// way (`coeffs` as in [`hessian3_rows`]). A function, not a closure
 /// in the caller: a closure does not take the instruction set of the `simd_dispatch!` wrapper,
 /// so the vector loops in it did not inline (the Hessian at n = 400 took 1.7 times as long).
 #[inline(always)]
 fn hessian3_near<M: Madd, T: Coef>(
-    (n, base): (usize, usize),
-    coeffs: &[T],
+    n: usize,
+    (coeffs, base): (&[T], usize),
     g: usize,
     x: &[f64],
     acc: &mut [f64],
