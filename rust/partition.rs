@@ -5,9 +5,11 @@
 //! processes in order. Both boundaries depend only on n, the degrees and a piece count, never
 //! on the number of threads. Each item covers the monomials whose first index i1 lies in
 //! `lo..hi` (for p = 1: the indices `lo..hi` themselves), which are the contiguous coefficient
-//! range `start..start+len`. [`reduce`] combines per-group results along a binary tree that is
-//! fixed by the group count, so every thread count gives bitwise-identical results; between
-//! chunks it polls the call's stop flag ([`Exec`]).
+//! range `start..start+len` (the degree-3 Hessian re-cuts some groups into items that share
+//! that range and split the second indices, [`WorkItem::second`]). [`reduce`] combines
+//! per-group results along a binary tree that is fixed by the group count, so every thread
+//! count gives bitwise-identical results; between chunks it polls the call's stop flag
+//! ([`Exec`]).
 
 use std::ops::Range;
 
@@ -334,6 +336,7 @@ mod tests {
                     // chunks start at multiples of the quantum and exceed `chunk` only by
                     // their last run of `quantum` first indices
                     for it in &mine {
+                        assert_eq!(it.second, (0, n), "a plan's items take every second index");
                         assert_eq!(it.lo % quantum, 0);
                         let run = it.hi.saturating_sub(quantum).max(it.lo)..it.hi;
                         let last: usize = if p == 1 {

@@ -199,9 +199,9 @@ fn hessian3_rows<M: Madd, T: Coef>(
 }
 
 /// The prefixes (i, j) with g <= i <= j < g + 4 of a group of four first indices, the plain
-/// way (`coeffs` as in [`hessian3_rows`]). A function, not a closure
-/// in the caller: a closure does not take the instruction set of the `simd_dispatch!` wrapper,
-/// so the vector loops in it did not inline (the Hessian at n = 400 took 1.7 times as long).
+/// way (`coeffs` as in [`hessian3_rows`]). A function, not a closure in the caller: a closure
+/// does not take the instruction set of the `simd_dispatch!` wrapper, so the vector loops in
+/// it did not inline (the Hessian at n = 400 took 1.7 times as long).
 #[inline(always)]
 fn hessian3_near<M: Madd, T: Coef>(
     n: usize,
@@ -253,7 +253,7 @@ fn row_slabs(plan: Plan, n: usize, l2: usize) -> Plan {
         let (first, last) = (chunks[0], chunks[chunks.len() - 1]);
         let span = n - first.lo;
         let start = out.items.len();
-        if first.degree != 3 || last.hi - first.lo < 8 || span * span * 8 <= l2 {
+        if first.degree != 3 || last.hi - first.lo < 8 || span.saturating_mul(span * 8) <= l2 {
             out.items.extend_from_slice(chunks);
         } else {
             let h = (l2 / 4 / (span * 8)).max(1);
