@@ -135,8 +135,9 @@ def test_hessian_is_symmetric_and_operator_matches(rng):
 
 @pytest.mark.parametrize("dtype", ["float64", "float32"])
 def test_a_hessian_cut_in_row_slabs_matches_single_products(dtype, rng):
-    # At n = 600 the degree-3 Hessian's shared rows (8 (n - lo)^2 bytes) outgrow an L2 of up
-    # to 2.8 MiB, so the pass walks them in row slabs (rust/kernels/hessian.rs `row_slabs`).
+    # At n = 600 the degree-3 Hessian's shared rows (4 (n - lo)^2 bytes at lo = 0) exceed half
+    # of an L2 of up to 2.7 MiB, so the pass walks them in row slabs (rust/kernels/hessian.rs
+    # `row_slabs`).
     # Its rows are checked against the single-direction HVP pass, which forms no Hessian, and
     # its bits across thread counts.
     n = 600
