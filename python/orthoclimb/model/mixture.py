@@ -38,6 +38,10 @@ def _check_degree(p: Any) -> int:
     return p
 
 
+_ROUNDS_TO_ZERO = "is too small: it rounds to 0 in float64; give 0 to drop the degree"
+"""Why a nonzero weight that float64 reads as 0 is refused (it would drop its degree)."""
+
+
 def _check_gamma(p: int, gamma: Any, what: str = "gamma") -> float:
     if isinstance(gamma, (bool, np.bool_, str, bytes, np.complexfloating)):
         # True would read as 1.0, "0.5" as 0.5 and a NumPy complex as its real part (float()
@@ -52,17 +56,12 @@ def _check_gamma(p: int, gamma: Any, what: str = "gamma") -> float:
             f"{what} for p = {p} is beyond float64's range, got an integer of about"
             f" {digits(int(gamma))} digits"
         ) from None
-    if not math.isfinite(value) or value < 0:
+    # Fraction(1, 10**400) or longdouble('1e-4000') becomes 0.0 (or -0.0 for a negative one):
+    # the degree would vanish, or a negative weight pass, without a word
+    if not math.isfinite(value) or value < 0 or (value == 0.0 and _negative(gamma)):
         raise MixtureError(f"{what} for p = {p} must be finite and >= 0, got {gamma!r}")
     if value == 0.0 and _nonzero(gamma):
-        # Fraction(1, 10**400) or longdouble('1e-4000') becomes 0.0 (or -0.0 for a negative
-        # one): the degree would vanish, or a negative weight pass, without a word
-        if _negative(gamma):
-            raise MixtureError(f"{what} for p = {p} must be finite and >= 0, got {gamma!r}")
-        raise MixtureError(
-            f"{what} for p = {p} is too small: it rounds to 0 in float64; give 0 to drop the"
-            f" degree; got {gamma!r}"
-        )
+        raise MixtureError(f"{what} for p = {p} {_ROUNDS_TO_ZERO}; got {gamma!r}")
     return value
 
 
@@ -75,6 +74,7 @@ def _nonzero(value: Any) -> bool:
 
 
 def _negative(value: Any) -> bool:
+    """Whether `value` (which float() turned into 0.0 or -0.0) is below zero itself."""
     try:
         return bool(value < 0)
     except (TypeError, ValueError):
@@ -235,11 +235,7 @@ class Mixture:
                 )
             exact = Decimal(g_text.strip()) if g == 0.0 else None  # only a zero reading
             if exact is not None and exact != 0:  # '1e-400' and '-1e-400' read as 0.0, -0.0
-                problem = (
-                    "must be >= 0"
-                    if exact < 0
-                    else "is too small: it rounds to 0 in float64; give 0 to drop the degree"
-                )
+                problem = "must be >= 0" if exact < 0 else _ROUNDS_TO_ZERO
                 raise MixtureError(
                     f"weight {g_text.strip()!r} for p = {p} in mixture text {text!r} {problem}"
                 )
