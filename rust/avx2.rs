@@ -426,10 +426,11 @@ pub fn rows4_shared2<T: Coef, const WIDE: bool>(
 /// one multiply-add per segment and step where four lanes needed two (a float32 Hessian at
 /// n = 400 1.16x faster, n = 800 1.02-1.07x), and the 256-bit steps of that instantiation
 /// take the same sums (it has 32 vector registers for the four more accumulators). At the
-/// end lane l + 4 is added to lane l. Without `WIDE` (16 registers, where four more accumulators spill: 10-16 % slower)
-/// each dot keeps four lanes, lane l summing the positions t = l mod 4. Then the four lanes
-/// are summed as [`hsum`] does, and the positions past the last vector step follow. So the two
-/// instantiations agree to rounding, not bit for bit.
+/// end lane l + 4 is added to lane l. Without `WIDE` (16 registers, where four more
+/// accumulators spill: 10-16 % slower) each dot keeps four lanes, lane l summing the
+/// positions t = l mod 4. Then the four lanes are summed as [`hsum`] does, and the positions
+/// past the last vector step follow. So the two instantiations agree to rounding, not bit for
+/// bit.
 #[inline(always)]
 fn rows4_shared<T: Coef, const TWO: bool, const WIDE: bool>(
     a: [&[T]; 4],

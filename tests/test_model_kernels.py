@@ -137,9 +137,8 @@ def test_hessian_is_symmetric_and_operator_matches(rng):
 def test_a_hessian_cut_in_row_slabs_matches_single_products(dtype, rng):
     # At n = 600 the degree-3 Hessian's shared rows (4 (n - lo)^2 bytes at lo = 0) exceed half
     # of an L2 of up to 2.7 MiB, so the pass walks them in row slabs (rust/kernels/hessian.rs
-    # `row_slabs`).
-    # Its rows are checked against the single-direction HVP pass, which forms no Hessian, and
-    # its bits across thread counts.
+    # `row_slabs`). Its rows are checked against the single-direction HVP pass, which forms no
+    # Hessian, and its bits across thread counts.
     n = 600
     ham = oc.Hamiltonian.sample(oc.Mixture({2: 0.5, 3: 1.0}), n, seed=5, dtype=dtype)
     x = unit(rng.standard_normal(n))
