@@ -66,6 +66,17 @@ pub enum CoreError {
         dtype: &'static str,
         largest: f64,
     },
+    /// Sampled coefficients of degree p would mostly fall below the storage type's normal
+    /// range (their smallest standard deviation, sqrt(n) gamma, is below it), where they lose
+    /// their precision or round to zero.
+    StoragePrecision {
+        p: usize,
+        gamma: f64,
+        n: usize,
+        scale: f64,
+        dtype: &'static str,
+        smallest: f64,
+    },
 }
 
 impl fmt::Display for CoreError {
@@ -155,6 +166,26 @@ impl fmt::Display for CoreError {
                 )?;
                 if *dtype != "float64" {
                     write!(f, "; store them with dtype=\"float64\"")?;
+                }
+                Ok(())
+            }
+            CoreError::StoragePrecision {
+                p,
+                gamma,
+                n,
+                scale,
+                dtype,
+                smallest,
+            } => {
+                write!(
+                    f,
+                    "gamma = {gamma:?} for p = {p} at n = {n}: sampled coefficients of typical \
+                     size {scale:.4e} fall below {dtype}'s normal range (smallest normal \
+                     {smallest:.4e}), where they lose their precision or round to zero; scale \
+                     the mixture up"
+                )?;
+                if *dtype != "float64" {
+                    write!(f, " or store them with dtype=\"float64\"")?;
                 }
                 Ok(())
             }

@@ -69,6 +69,7 @@ fn to_py_err(py: Python<'_>, err: CoreError) -> PyErr {
         }
         CoreError::InvalidSize { .. }
         | CoreError::StorageRange { .. }
+        | CoreError::StoragePrecision { .. }
         | CoreError::InvalidCorrelation { .. }
         | CoreError::MissingDegree { .. }
         | CoreError::InvalidDtype { .. }

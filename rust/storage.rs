@@ -41,6 +41,8 @@ pub trait Coef:
     const WIDENS: bool;
     /// The largest finite value of the type, as f64.
     const LARGEST: f64;
+    /// The smallest positive normal value of the type, as f64.
+    const SMALLEST_NORMAL: f64;
     fn to_f64(self) -> f64;
     fn from_f64(v: f64) -> Self;
     /// Four consecutive coefficients widened to f64 lanes.
@@ -56,6 +58,7 @@ impl Coef for f64 {
     const NAME: &'static str = "float64";
     const WIDENS: bool = false;
     const LARGEST: f64 = f64::MAX;
+    const SMALLEST_NORMAL: f64 = f64::MIN_POSITIVE;
     #[inline(always)]
     fn to_f64(self) -> f64 {
         self
@@ -75,6 +78,7 @@ impl Coef for f32 {
     const NAME: &'static str = "float32";
     const WIDENS: bool = true;
     const LARGEST: f64 = f32::MAX as f64;
+    const SMALLEST_NORMAL: f64 = f32::MIN_POSITIVE as f64;
     #[inline(always)]
     fn to_f64(self) -> f64 {
         self as f64
@@ -169,6 +173,19 @@ impl<T: Coef> Packed<T> {
                     bound,
                     dtype: T::NAME,
                     largest: T::LARGEST,
+                });
+            }
+            // a coefficient's standard deviation is sqrt(n c(m)) gamma, c(m) >= 1: below T's
+            // normal range most of them would be subnormal (a few significant bits) or zero
+            let scale = (n as f64).sqrt() * gamma;
+            if gamma > 0.0 && scale < T::SMALLEST_NORMAL {
+                return Err(CoreError::StoragePrecision {
+                    p,
+                    gamma,
+                    n,
+                    scale,
+                    dtype: T::NAME,
+                    smallest: T::SMALLEST_NORMAL,
                 });
             }
         }
@@ -306,6 +323,41 @@ mod tests {
         corr.correlated_with = Some((5, std::f64::consts::FRAC_1_SQRT_2));
         let over = Packed::<f32>::sample(&exec, n, &[(p, edge * 0.8)], &corr);
         assert!(matches!(over, Err(CoreError::StorageRange { .. })));
+    }
+
+    /// Storage refuses a gamma whose coefficients' smallest standard deviation, sqrt(n)
+    /// gamma, is below the type's normal range (most would be subnormal or zero: float32
+    /// stored every coefficient of gamma = 1e-50 as 0), and takes one just above it, whose
+    /// coefficients are mostly normal; float64 storage takes the float32 edge. A zero gamma
+    /// (all coefficients exactly zero) is no loss and is taken.
+    #[test]
+    fn storage_refuses_coefficients_below_its_normal_range() {
+        let exec = pool();
+        let (n, p) = (16, 2);
+        let edge = f32::MIN_POSITIVE as f64 / 4.0; // sqrt(16) = 4
+        let below = Packed::<f32>::sample(&exec, n, &[(p, edge * 0.99)], &Disorder::new(4));
+        assert!(matches!(
+            below,
+            Err(CoreError::StoragePrecision { p: 2, n: 16, .. })
+        ));
+        // just above the edge, the coefficients of at least an eighth of the scale keep
+        // about 20 significant bits (subnormal spacing 1.4e-45 against 1.5e-39)
+        let gamma = edge * 1.01;
+        let above = Packed::<f32>::sample(&exec, n, &[(p, gamma)], &Disorder::new(4)).unwrap();
+        let wide = Packed::<f64>::sample(&exec, n, &[(p, gamma)], &Disorder::new(4)).unwrap();
+        let pairs = above.blocks[0].coeffs.iter().zip(&wide.blocks[0].coeffs);
+        let kept: Vec<f64> = pairs
+            .filter(|(_, b)| b.abs() >= gamma * 4.0 / 8.0)
+            .map(|(a, b)| (*a as f64 - b).abs() / b.abs())
+            .collect();
+        assert!(kept.len() > 100, "{} coefficients", kept.len());
+        assert!(kept.iter().all(|&e| e < 1e-6), "{kept:?}");
+        assert!(Packed::<f64>::sample(&exec, n, &[(p, edge * 0.99)], &Disorder::new(4)).is_ok());
+        let tiny = f64::MIN_POSITIVE / 4.0 * 0.99;
+        let below = Packed::<f64>::sample(&exec, n, &[(p, tiny)], &Disorder::new(4));
+        assert!(matches!(below, Err(CoreError::StoragePrecision { .. })));
+        let zero = Packed::<f32>::sample(&exec, n, &[(p, 0.0), (3, 1.0)], &Disorder::new(4));
+        assert!(zero.unwrap().blocks[0].coeffs.iter().all(|a| *a == 0.0));
     }
 
     #[test]

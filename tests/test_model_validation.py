@@ -231,6 +231,25 @@ def test_float32_sampling_refuses_a_gamma_whose_coefficients_pass_its_range():
     assert np.all(np.isfinite(ham64.coefficients(3)))
 
 
+def test_sampling_refuses_a_gamma_whose_coefficients_fall_below_the_normal_range():
+    # float32 stored every coefficient of gamma = 1e-50 as 0 (energy 0.0, the optimizers
+    # then ran on a zero polynomial). The smallest standard deviation of a coefficient is
+    # sqrt(n) gamma (c(m) >= 1, SPEC section 2); below the type's smallest normal number most
+    # coefficients would be subnormal or zero, so the sample is refused (IEEE 754 normal
+    # range: float32 1.18e-38).
+    n = 16
+    edge = float(np.finfo(np.float32).tiny) / np.sqrt(n)
+    with pytest.raises(ValueError, match=r"gamma = 1e-50 for p = 2 at n = 16.*float32's normal"):
+        oc.Hamiltonian.sample(oc.Mixture({2: 1e-50}), n, seed=0, dtype="float32")
+    with pytest.raises(ValueError, match=r"dtype=\"float64\""):
+        oc.Hamiltonian.sample(oc.Mixture({2: edge * 0.99}), n, seed=0, dtype="float32")
+    ham32 = oc.Hamiltonian.sample(oc.Mixture({2: edge * 1.01}), n, seed=0, dtype="float32")
+    ham64 = oc.Hamiltonian.sample(oc.Mixture({2: edge * 1.01}), n, seed=0)
+    assert np.count_nonzero(ham32.coefficients(2)) == np.count_nonzero(ham64.coefficients(2))
+    # (float64 storage has the same check in the core, but Mixture already refuses a gamma
+    # whose square underflows float64, long before sqrt(n) gamma does)
+
+
 def test_overflowed_results_raise_instead_of_returning_nan(ham):
     # finite inputs whose products pass the largest float64 (about 1.8e308)
     x = np.full(N, 1e300)
