@@ -450,6 +450,20 @@ def test_a_path_with_a_nul_character_is_named_and_bytes_paths_work(tmp_path):
     assert np.array_equal(oc.load_result(os.fsencode(tmp_path / "run")).x, res.x)
 
 
+def test_an_empty_path_is_named(tmp_path, monkeypatch):
+    # load_result("") and load_instance("") said "PosixPath('.') has an empty name"
+    import orthoclimb as oc
+
+    monkeypatch.chdir(tmp_path)
+    ham = oc.Hamiltonian.from_coefficients(3, {2: np.arange(6.0)})
+    res, _ = _two_results()
+    for call in (res.save, oc.load_result, ham.save, oc.load_instance):
+        for empty in ("", b""):
+            with pytest.raises(ValueError, match="a file path cannot be empty"):
+                call(empty)
+    assert list(tmp_path.iterdir()) == []
+
+
 def test_a_pair_name_too_long_for_a_new_folder_writes_nothing(tmp_path):
     # the length was read only from a folder that exists: into a new one the .npz was
     # renamed into place before the .json failed (a review)

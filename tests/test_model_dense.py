@@ -63,6 +63,9 @@ def test_to_dense_refuses_above_limit(monkeypatch):
     monkeypatch.undo()
     with pytest.raises(ValueError, match="no degree-2 term"):
         ham.to_dense(2, max_bytes=1000)
+    # a negative limit was taken and reported as "above the limit max_bytes = -1"
+    with pytest.raises(ValueError, match="max_bytes must be a number of bytes >= 0, got -1"):
+        ham.to_dense(3, max_bytes=-1)
 
 
 def test_to_dense_refuses_a_tensor_beyond_the_available_memory(monkeypatch):

@@ -349,12 +349,14 @@ def _path_error(what: str, exc: OSError) -> OutputPathError:
 def checked_path(path: Any) -> str:
     """The text of a file path given as str, bytes or os.PathLike: a TypeError names any other
     value (pathlib's own said only "expected str, bytes or os.PathLike object, not NoneType"),
-    a ValueError a NUL character, which no file system takes."""
+    a ValueError an empty text or a NUL character, which no file system takes."""
     if not isinstance(path, (str, bytes, os.PathLike)):
         raise TypeError(
             f"a file path must be text or a path object, got {type(path).__name__} {path!r}"
         )
     text = os.fsdecode(os.fspath(path))
+    if not text:
+        raise ValueError("a file path cannot be empty, got ''")
     if "\0" in text:
         raise ValueError(f"a file path cannot hold a NUL character, got {text!r}")
     return text

@@ -493,6 +493,8 @@ class Hamiltonian:
         it would exceed ``max_bytes`` (n^p * 8 bytes)."""
         if isinstance(max_bytes, (bool, np.bool_)) or not isinstance(max_bytes, (int, np.integer)):
             raise TypeError(f"max_bytes must be an integer number of bytes, got {max_bytes!r}")
+        if max_bytes < 0:
+            raise ValueError(f"max_bytes must be a number of bytes >= 0, got {max_bytes!r}")
         p = _check_degree(p)
         if p in self.degrees:  # refused before the coefficients' copy (1.3 GB, 2.3 s before)
             _dense.check_dense_size(self.n, p, int(max_bytes))
