@@ -183,6 +183,47 @@ def test_an_edited_file_with_a_malformed_path_is_a_clear_error(result, tmp_path,
         oc.load_result(json_path)
 
 
+def test_an_edited_file_with_an_integer_beyond_float64_is_a_clear_error(result, tmp_path):
+    # a huge JSON integer (checksum recomputed) raised a bare OverflowError in float()
+    from orthoclimb.fileio import json_digest
+
+    json_path, _ = result.save(tmp_path / "run")
+    for key in ("energy", "seconds"):
+        doc = json.loads(json_path.read_text())
+        doc["payload"][key] = 10**400
+        doc["sha256"] = json_digest(doc["payload"])
+        edited = tmp_path / f"edited_{key}.json"
+        edited.write_text(json.dumps(doc))
+        (tmp_path / f"edited_{key}.npz").write_bytes((tmp_path / "run.npz").read_bytes())
+        with pytest.raises(ResultFileError, match=f"'{key}' is an integer of 401 digits"):
+            oc.load_result(edited)
+
+
+@pytest.mark.parametrize(
+    "change, error, match",
+    [
+        ({"x": None}, ValueError, "x must be a 1-D array of finite numbers"),
+        ({"x": np.full(3, np.nan)}, ValueError, r"x must be .* got \[nan nan nan\]"),
+        ({"x": np.ones((2, 2))}, ValueError, "x must be a 1-D array"),
+        ({"energy": "a"}, TypeError, "energy must be a number, got 'a'"),
+        ({"seconds": math.nan}, ValueError, "seconds must be a finite number >= 0, got nan"),
+        ({"seconds": None}, ValueError, "seconds must be a finite number"),
+        ({"config": []}, TypeError, r"config must be a dict, got \[\]"),
+        ({"path": {"a": [1, 2], "b": [1]}}, ValueError, "differ in length: {'a': 2, 'b': 1}"),
+        ({"path": {"a": ["u", "v"]}}, ValueError, "path column 'a' must be a 1-D array of num"),
+    ],
+)
+def test_a_result_load_result_could_not_read_back_is_refused_before_writing(
+    result, tmp_path, change, error, match
+):
+    # save wrote such hand-made results, which load_result then refused or read as NaN
+    bad = dataclasses.replace(result, **change)
+    with pytest.raises(error, match=match):
+        bad.save(tmp_path / "run")
+    assert list(tmp_path.iterdir()) == []
+    dataclasses.replace(result, energy=None).save(tmp_path / "ok")  # energy None is allowed
+
+
 def test_a_polish_records_which_start_point_it_had():
     # the start point is the caller's and not stored; its digest lets a rerun check it
     import hashlib

@@ -179,7 +179,10 @@ class Result:
         """Write ``<stem>.json`` and ``<stem>.npz`` atomically (a ``.json``/``.npz`` suffix on
         ``path`` is dropped to get the stem). Returns the two paths. A folder as ``path`` (an
         existing one, or text ending in a separator) raises
-        :class:`~orthoclimb.errors.OutputPathError`: give a stem inside it."""
+        :class:`~orthoclimb.errors.OutputPathError`: give a stem inside it. A result that
+        :func:`load_result` could not read back (see :func:`_check_saveable`) raises
+        TypeError or ValueError before anything is written."""
+        _check_saveable(self)
         json_path, npz_path = output_pair_paths(path, "result")
         payload = self.payload()
         doc = envelope(FORMAT, FORMAT_VERSION, payload)
@@ -200,9 +203,55 @@ class Result:
         )
 
 
+def _is_real(value: Any) -> bool:
+    return isinstance(value, (int, float, np.integer, np.floating)) and not isinstance(
+        value, (bool, np.bool_)
+    )
+
+
+def _check_saveable(result: Result) -> None:
+    """TypeError or ValueError, naming the field, for a result whose files
+    :func:`load_result` would refuse or misread (a hand-made one): x a 1-D array of finite
+    numbers, energy a real number or None, seconds a finite number >= 0, config and info
+    dicts, path a dict of 1-D numeric columns of one length."""
+    try:
+        x = np.asarray(result.x)
+    except Exception as exc:  # a sequence NumPy cannot shape
+        raise TypeError(f"cannot save the result: x is not an array ({exc})") from None
+    if x.ndim != 1 or x.dtype.kind not in "iuf" or not np.all(np.isfinite(x)):
+        raise ValueError(
+            "cannot save the result: x must be a 1-D array of finite numbers, got"
+            f" {np.array2string(x, threshold=6) if x.dtype.kind != 'O' else repr(result.x)}"
+        )
+    if result.energy is not None and not _is_real(result.energy):
+        raise TypeError(f"cannot save the result: energy must be a number, got {result.energy!r}")
+    if not _is_real(result.seconds) or not 0 <= result.seconds < math.inf:
+        raise ValueError(
+            f"cannot save the result: seconds must be a finite number >= 0, got {result.seconds!r}"
+        )
+    for name in ("config", "info", "path"):
+        value = getattr(result, name)
+        if not isinstance(value, dict):
+            raise TypeError(f"cannot save the result: {name} must be a dict, got {value!r}")
+    lengths = set()
+    for column, values in result.path.items():
+        col = np.asarray(values)
+        if col.ndim != 1 or (col.size and col.dtype.kind not in "iuf"):
+            raise ValueError(
+                f"cannot save the result: path column {column!r} must be a 1-D array of"
+                f" numbers, got {np.array2string(col, threshold=6)}"
+            )
+        lengths.add(col.size)
+    if len(lengths) > 1:
+        sizes = {str(k): np.asarray(v).size for k, v in result.path.items()}
+        raise ValueError(f"cannot save the result: path columns differ in length: {sizes}")
+
+
 def _fail(path: Path, why: str) -> ResultFileError:
     return ResultFileError(f"cannot load the result {str(path)!r}: {why}")
 
+
+_FLOAT_MAX = float(np.finfo(np.float64).max)
 
 _PAYLOAD_TYPES: dict[str, tuple[type, ...]] = {
     "energy": (int, float, type(None)),
@@ -227,6 +276,9 @@ def _check_payload(path: Path, payload: dict[str, Any]) -> None:
         if isinstance(value, bool) or not isinstance(value, types):
             names = " or ".join(t.__name__ for t in types)
             raise _fail(path, f"field {key!r} must be {names}, got {value!r}")
+        if isinstance(value, int) and abs(value) > _FLOAT_MAX:  # float() would overflow
+            digits = len(str(abs(value)))
+            raise _fail(path, f"field {key!r} is an integer of {digits} digits, beyond float64")
     for column, values in payload["path"].items():
         if not isinstance(values, list):
             raise _fail(path, f"path column {column!r} must be a list, got {values!r}")
