@@ -340,3 +340,55 @@ def test_boolean_samples_and_a_negative_seed_are_refused():
         extrapolate([20, 40, 80], [[True, False]] * 3)
     with pytest.raises(ValueError, match="seed must be an integer >= 0 .* got -1"):
         extrapolate([20, 40, 80], [[1.0, 2.0]] * 3, seed=-1)
+
+
+def test_the_student_stretch_at_tiny_and_extreme_levels_against_scipy():
+    # a review: level 1e-17 rounded q = (1 + level)/2 to 1/2, and t.ppf(q) / norm.ppf(q) was
+    # 0/0, an interval [nan, nan] (and 1 - 1e-16 rounded q to 1: inf/inf). As the level goes
+    # to 0 the stretch tends to the ratio of the normal and Student densities at 0
+    from orthoclimb.studies.extrapolate import SMALL_LEVEL, student_stretch
+
+    for nu in (1.0, 2.0, 2.7, 30.0):
+        limit = stats.norm.pdf(0.0) / stats.t.pdf(0.0, nu)
+        for level in (1e-300, 1e-17, 1e-12, SMALL_LEVEL / 2):
+            assert student_stretch(level, nu) == pytest.approx(limit, rel=1e-14)
+        for level in (SMALL_LEVEL, 1e-3, 0.5, 0.9, 0.99):  # SciPy's quantiles, as before
+            q = (1.0 + level) / 2.0
+            ratio = stats.t.ppf(q, nu) / stats.norm.ppf(q)
+            assert student_stretch(level, nu) == pytest.approx(ratio, rel=1e-9), (nu, level)
+    # closed forms: f_1(0) = 1/pi (Cauchy), f_2(0) = 1/(2 sqrt 2)
+    assert student_stretch(1e-300, 1.0) == pytest.approx(math.sqrt(math.pi / 2), rel=1e-15)
+    assert student_stretch(1e-300, 2.0) == pytest.approx(2.0 / math.sqrt(math.pi), rel=1e-15)
+    # near level 1, the t_2 quantile in closed form: (1 - 2a) / sqrt(2 a (1 - a)), a = alpha
+    for level in (1.0 - 1e-16, 1.0 - 2.0**-53, 1.0 - 1e-12):
+        a = (1.0 - level) / 2.0
+        t2 = (1.0 - 2.0 * a) / math.sqrt(2.0 * a * (1.0 - a))
+        assert student_stretch(level, 2.0) == pytest.approx(t2 / stats.norm.isf(a), rel=1e-12)
+
+
+@pytest.mark.parametrize("level", [1e-300, 1e-17, 1e-6, 1.0 - 1e-16])
+def test_tiny_and_extreme_levels_give_finite_intervals(level):
+    # [nan, nan] before (a review): every level in (0, 1) gives an interval around e_inf
+    samples = [[1.0, 1.1, 1.05], [1.2, 1.3, 1.22], [1.3, 1.4, 1.36]]
+    ex = extrapolate([20, 30, 40], samples, level=level)
+    assert math.isfinite(ex.low) and math.isfinite(ex.high)
+    assert ex.low <= ex.value <= ex.high
+
+
+def test_a_large_exponent_is_fitted_where_n_to_the_minus_k_does_not_underflow():
+    # a review: exponent 100 at n = 20..40 was refused as "n^(-exponent) underflows", but
+    # 20^(-100) = 8e-131 is a float64 (its square, in the normal equations, was not). The fit
+    # against numpy.polyfit in x / max(x) (the same weighted least squares, w = 1/s_j)
+    sizes = [20, 30, 40]
+    samples = [[1.0, 1.1, 1.05], [1.2, 1.3, 1.22], [1.3, 1.4, 1.36]]
+    ex = extrapolate(sizes, samples, exponent=100)
+    x = np.asarray(sizes, dtype=float) ** -100.0
+    means = [np.mean(s) for s in samples]
+    se = [np.std(s, ddof=1) / math.sqrt(len(s)) for s in samples]
+    slope, value = np.polyfit(x / x.max(), means, 1, w=1.0 / np.asarray(se))
+    assert ex.value == pytest.approx(value, rel=1e-12)
+    assert ex.slope == pytest.approx(slope / x.max(), rel=1e-9)
+    assert math.isfinite(ex.low) and ex.low <= ex.value <= ex.high
+    # where n^(-k) does leave float64's normal range, the message says at which n
+    with pytest.raises(ValueError, match=r"underflows float64 at n = 40 \(40\^\(-200\) is"):
+        extrapolate(sizes, samples, exponent=200)

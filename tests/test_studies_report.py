@@ -896,3 +896,18 @@ def test_a_row_that_breaks_the_table_is_named_by_its_path_in_the_study(tmp_path,
         write_report(tmp_path / "s", plots=False)
     path = str(tmp_path / "s" / "rows" / f"{tasks[1].task_id}.json")
     assert str(info.value).startswith(f"the row file {path!r} has worker = 12, where")
+
+
+@pytest.mark.parametrize("level", ["1e-17", "1e-300", "0.9999999999999999"])
+def test_a_level_near_0_or_1_gives_an_interval_not_nan(tmp_path, capsys, level):
+    # a review: `report --level 1e-17` printed the interval [nan, nan] and exited 0 (the
+    # Student stretch was 0/0 once (1 + level)/2 rounded to 1/2; inf/inf near 1)
+    noise = np.random.default_rng(5).standard_normal(8)
+    folder = tmp_path / "s"
+    _synthetic_study(folder, "20,30,40", lambda n, s: 1.6 - n ** (-2 / 3) + 0.01 * noise[s])
+    args = ["report", str(folder), "--no-plots", "--bootstrap", "200", "--level", level]
+    assert main(args) == 0
+    assert "nan" not in capsys.readouterr().out
+    fit = json.loads((folder / "report.json").read_text())["extrapolations"][0]
+    assert all(math.isfinite(fit[k]) for k in ("low", "high"))
+    assert fit["low"] <= fit["value"] <= fit["high"]

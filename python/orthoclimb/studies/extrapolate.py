@@ -17,6 +17,11 @@ freedom of e_inf = sum_j c_j m_j (Satterthwaite 1946; Welch 1947):
 
     nu = (sum_j c_j^2 s_j^2)^2 / sum_j (c_j^2 s_j^2)^2 / (m_j - 1).
 
+Below a level of ``SMALL_LEVEL`` the stretch is its limit as the level goes to 0, the ratio
+of the densities at 0, phi(0) / f_nu(0) (both quantiles are (level/2) / density at 0, up to
+terms of relative size level^2): q then rounds toward 1/2, and the quotient of the two
+quantiles lost its digits and was 0/0, an interval [nan, nan], once q rounded to 1/2.
+
 Measured coverage of the nominal 90% interval over 1500 synthetic studies per cell (n^(-2/3)
 law, Gaussian noise; Monte Carlo s.e. 0.008), percentile interval -> stretched interval, for
 2, 3, 5, 10, 20 seeds per size:
@@ -170,11 +175,14 @@ def _checked(
         if not np.all(np.isfinite(a)):
             raise ValueError(f"non-finite energy among the samples at n = {n}")
     x = np.asarray(sizes, dtype=np.float64) ** (-exponent)
-    if np.any(x * x < sys.float_info.min):
-        # the line's normal equations then divide by zero: e_inf came out NaN
+    if np.any(x < sys.float_info.min):
+        # n^(-exponent) below float64's normal range has lost its digits (0 beyond 5e-324),
+        # and the line's normal equations then divided by zero: e_inf came out NaN
+        n = int(sizes[int(np.argmax(x < sys.float_info.min))])
         raise ValueError(
             f"exponent {exponent} is too large for the sizes {list(sizes)}: n^(-exponent)"
-            " underflows"
+            f" underflows float64 at n = {n} ({n}^(-{exponent}) is below"
+            f" {sys.float_info.min:.3g})"
         )
     if 1.0 - x.min() / x.max() < MIN_SPREAD:
         # nearly equal x: the determinant cancels, and 1e-6 gave e_inf = 185034.9
@@ -194,6 +202,29 @@ MIN_SPREAD = 1e-4
 SPREADLESS = 16.0
 # Replicates of the parametric bootstrap behind ``fit_p``.
 FIT_TEST_REPLICATES = 2000
+
+
+def _abscissae(sizes: Sequence[int], exponent: float) -> tuple[np.ndarray, int]:
+    """(u, shift): u_j = n_j^(-exponent) 2^shift, the largest in [1/2, 1). The scaling by a
+    power of two is exact, so the fit in u is the fit in x bit for bit, with the slope a
+    times 2^(-shift); but the normal equations square u, and x squared fell out of float64's
+    normal range (20^(-100) squared is 6e-261, 40^(-100) squared 4e-321)."""
+    x = np.asarray(sizes, dtype=np.float64) ** (-exponent)
+    shift = -math.frexp(float(x.max()))[1]
+    return np.ldexp(x, shift), shift
+
+
+def _slope_in_n(slope: float, shift: int, top: float, exponent: float) -> float:
+    """The slope a in n^(-exponent) of the ``slope`` in u = n^(-exponent) 2^shift (the
+    largest u is ``top``); a ValueError where a leaves float64's range."""
+    out = math.ldexp(slope, shift)
+    if not math.isfinite(out):
+        raise ValueError(
+            f"the slope a of e_inf + a n^(-{exponent}) leaves float64's range: n^(-{exponent})"
+            f" is at most {math.ldexp(top, -shift):.3g} at these sizes, so a would be above"
+            f" {sys.float_info.max:.3g}"
+        )
+    return out
 
 
 def _fit(
@@ -272,6 +303,26 @@ def _fit_p(
     return float((1 + np.count_nonzero(chi2_rep >= chi2)) / (reps + 1))
 
 
+# The level below which the Student stretch is its limit as the level goes to 0 (module doc):
+# t_nu(q) / z(q) = phi(0) / f_nu(0) (1 + c level^2), c at most (pi^2 - pi)/12 = 0.56 (at nu =
+# 1, the least Welch's nu can be), so within 6e-13 of it here, while the quantiles at q =
+# (1 + level)/2 lose digits to q's rounding (3.7e-11 of the ratio at level 1e-6, nu = 1).
+SMALL_LEVEL = 1e-6
+
+
+def student_stretch(level: float, nu: float) -> float:
+    """t_nu(q) / z(q), q = (1 + level)/2, the factor by which the interval's arms are
+    stretched (module doc), for ``level`` in (0, 1) and ``nu`` >= 1; below ``SMALL_LEVEL``,
+    its limit phi(0) / f_nu(0) as the level goes to 0, the ratio of the normal and Student
+    densities at 0."""
+    if level < SMALL_LEVEL:
+        return float(stats.norm.pdf(0.0) / stats.t.pdf(0.0, nu))
+    # the upper tails' quantiles: q = 1 - alpha rounded to 1 above level 1 - 1.2e-16, where
+    # t.ppf(q) / norm.ppf(q) was inf/inf
+    alpha = (1.0 - level) / 2.0
+    return float(stats.t.isf(alpha, nu) / stats.norm.isf(alpha))
+
+
 def extrapolate(
     sizes: Sequence[int],
     samples: Sequence[Sequence[float]],
@@ -317,11 +368,11 @@ def _extrapolate(
     pooled: bool,
 ) -> Extrapolation:
     """:func:`extrapolate` of checked samples ``arrays``."""
-    x = np.asarray(sizes, dtype=np.float64) ** (-exponent)
+    x, shift = _abscissae(sizes, exponent)
     log_n = np.log(np.asarray(sizes, dtype=np.float64)) if pooled else None
-    value, slope, chi2, var = _fit(x, arrays, log_n)
+    value, slope, chi2, var = _fit(x, arrays, log_n)  # slope: in u = n^(-exponent) 2^shift
     shape = dict(
-        slope=float(slope),
+        slope=_slope_in_n(slope, shift, float(x.max()), exponent),
         chi2=chi2,
         dof=len(arrays) - 2,
         level=float(level),
@@ -356,7 +407,7 @@ def _extrapolate(
     q_low, q_high = np.quantile(reps, [alpha, 1.0 - alpha])
     counts = np.array([a.size for a in arrays], dtype=np.float64)
     nu = _welch_dof(x, var, counts)
-    stretch = float(stats.t.ppf(1.0 - alpha, nu) / stats.norm.ppf(1.0 - alpha))
+    stretch = student_stretch(level, nu)
     low = value - stretch * max(value - float(q_low), 0.0)
     high = value + stretch * max(float(q_high) - value, 0.0)
     fit_p = _fit_p(x, counts, value, slope, var, chi2, rng, log_n) if len(arrays) > 2 else math.nan
