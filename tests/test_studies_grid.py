@@ -497,6 +497,14 @@ def test_cli_positive_numbers_are_checked_on_the_text_given(tmp_path, capsys, fl
         ('gammas = {3 = 1.0, "03" = 0.5}', "a degree is given twice among \\['3', '03'\\]"),
         ("gammas = {1_0 = 1.0}", "degrees must be integers, got '1_0'"),
         ('xi = {3 = 1.0, "3 " = 0.5}', "degrees must be integers, got '3 '"),
+        # control characters were printed raw into the table and the report (a review)
+        (
+            'gammas = {3 = 1.0}\nname = "a\\u0000b"',
+            "entry 0: a mixture's name must not hold control characters or line breaks, got"
+            " 'a\\\\x00b'",
+        ),
+        ('gammas = {3 = 1.0}\nname = "a\\tb"', "control characters.*got 'a\\\\tb'"),
+        ('gammas = {3 = 1.0}\nname = "a\\u2028b"', "line breaks, got 'a\\\\u2028b'"),
     ],
 )
 def test_toml_mixture_names_and_degrees_are_checked(tmp_path, mixture, words):
@@ -589,3 +597,83 @@ def test_numpy_integers_are_integers_and_digits_are_ascii():
     # the exponent as text, as the command line reads it
     spec = spec_from_flags(["3:1"], None, "20", np.array([0, 1]), "hessian", exponent="2/3")
     assert spec.exponent == 2 / 3 and spec.seeds == (0, 1)
+
+
+@pytest.mark.parametrize(
+    ("parse", "value", "words"),
+    [
+        (parse_seeds, b"0-1", "seeds must be text like '0-19' or a list of integers, got b'0-1'"),
+        (parse_seeds, bytearray(b"01"), "got bytearray\\(b'01'\\)"),
+        (parse_seeds, None, "seeds must be text like '0-19' or a list of integers, got None"),
+        (
+            parse_sizes,
+            None,
+            "sizes must be text like '100,200,400' or a list of integers, got None",
+        ),
+        (parse_sizes, b"\x14\x1e", "sizes must be text .* got b'\\\\x14\\\\x1e'"),
+        (parse_sizes, bytearray(b"20,30"), "sizes must be text .* got bytearray"),
+    ],
+)
+def test_seeds_and_sizes_refuse_bytes_and_none_by_name(parse, value, words):
+    # a review: parse_seeds(b"0-1") returned the byte values (48, 45, 49), parse_sizes
+    # (b"\x14\x1e") the sizes (20, 30), and parse_sizes(None) "'NoneType' object is not
+    # iterable"
+    with pytest.raises(TypeError, match=words):
+        parse(value)
+
+
+@pytest.mark.parametrize(
+    ("kwargs", "words"),
+    [
+        ({"methods": ["gradient"]}, "methods must be text like 'hessian,gradient', got \\['grad"),
+        ({"gammas": "3:1"}, "gammas must be a list of mixture texts.* got '3:1'"),
+        ({"gammas": None, "xi": "3:1"}, "xi must be a list of mixture texts.* got '3:1'"),
+        ({"gammas": [3]}, "gammas must be a list of mixture texts.* got \\[3\\]"),
+        ({"sizes": None}, "sizes must be text like .* got None"),
+        ({"seeds": b"0-1"}, "seeds must be text like .* got b'0-1'"),
+        ({"method_options": ["hessian"]}, "method_options must map .* got \\['hessian'\\]"),
+        ({"exponent": True}, "exponent must be a number or text like '2/3', got True"),
+    ],
+)
+def test_spec_from_flags_refuses_arguments_of_the_wrong_type_by_name(kwargs, words):
+    # a review: methods=["gradient"] raised AttributeError ('list' object has no attribute
+    # 'split'), and gammas="3:1" was walked character by character ("cannot read '3' in
+    # mixture text '3'")
+    given = {"gammas": ["3:1"], "xi": None, "sizes": "10,20", "seeds": "0-1"}
+    with pytest.raises(TypeError, match=words):
+        spec_from_flags(**{**given, "methods": "gradient", **kwargs})
+
+
+def test_an_empty_method_item_is_refused_as_in_seeds_and_sizes(tmp_path, capsys):
+    # a review: --methods "hessian,,gradient" dropped the empty item, while --n 10,,20 and
+    # --seeds 0,,1 were refused
+    from orthoclimb.studies.grid import parse_methods
+
+    for text in ("hessian,,gradient", "gradient,", ",gradient"):
+        with pytest.raises(ValueError, match=re.escape(f"empty item in methods {text!r}")):
+            parse_methods(text)
+    assert [m.name for m in parse_methods(" hessian , gradient ")] == ["hessian", "gradient"]
+    args = ["sweep", "--gammas", "3:1", "--n", "10,20", "--seeds", "0-1", "--plan-only"]
+    assert main([*args, "--methods", "hessian,,gradient", "--out", str(tmp_path / "o")]) == 2
+    err = capsys.readouterr().err
+    assert "orthoclimb sweep: error: empty item in methods 'hessian,,gradient'" in err
+    assert not (tmp_path / "o").exists()
+
+
+@pytest.mark.parametrize(
+    ("table", "words"),
+    [
+        ("mixture = 5", "'mixture' must be an array of tables, one \\[\\[mixture\\]\\] block per"),
+        ('mixture = "3:1"', "\\[\\[mixture\\]\\] block per mixture, got '3:1'"),
+        ("[mixture]\ngammas = {3 = 1.0}", "got \\{'gammas': \\{'3': 1.0\\}\\} \\(a single table"),
+    ],
+)
+def test_a_study_file_says_what_mixture_and_method_must_be(tmp_path, table, words):
+    # a review: mixture = 5 gave "'int' object is not iterable"
+    p = tmp_path / "s.toml"
+    p.write_text(f'sizes=[20,30]\nseeds=[0,1]\n{table}\n[[method]]\nname="gradient"\n')
+    with pytest.raises(ValueError, match=f"in study file .*{words}"):
+        spec_from_toml(p)
+    p.write_text("sizes=[20,30]\nseeds=[0,1]\nmethod = 5\n[[mixture]]\ngammas = {3 = 1.0}\n")
+    with pytest.raises(ValueError, match="'method' must be an array of tables.* got 5"):
+        spec_from_toml(p)

@@ -11,6 +11,7 @@ from __future__ import annotations
 
 import math
 import sys
+import unicodedata
 from collections.abc import Iterable, Mapping
 from dataclasses import dataclass
 from pathlib import Path
@@ -138,6 +139,20 @@ def _given_int(value: object, what: str) -> int:
     return int(value)
 
 
+def _given_ints(value: object, what: str, example: str) -> list[int]:
+    """The integers of a list given for ``what`` (seeds, sizes), or a TypeError naming the
+    value: not a list (None), or bytes, whose items are byte values (b"0-1" read as the seeds
+    48, 45, 49, a review)."""
+    wrong = TypeError(f"{what} must be text like {example!r} or a list of integers, got {value!r}")
+    if isinstance(value, (bytes, bytearray, memoryview)):
+        raise wrong
+    try:
+        items = list(value)
+    except TypeError:
+        raise wrong from None
+    return [_given_int(s, what) for s in items]
+
+
 def parse_seeds(text: str | Iterable[int]) -> tuple[int, ...]:
     """Seeds from text like ``"0-19"``, ``"1,5,9"`` or ``"0-4,10-12"`` (ranges inclusive),
     or from a list of integers. Refuses empty, negative, reversed (``"5-2"``) and repeated seeds."""
@@ -174,13 +189,7 @@ def parse_seeds(text: str | Iterable[int]) -> tuple[int, ...]:
             else:
                 seeds.append(_int_token(piece, "seed", text))
     else:
-        try:
-            items = list(text)
-        except TypeError:
-            raise TypeError(
-                f"seeds must be text like '0-19' or a list of integers, got {text!r}"
-            ) from None
-        seeds = [_given_int(s, "seeds") for s in items]
+        seeds = _given_ints(text, "seeds", "0-19")
         if not seeds:
             raise ValueError("the list of seeds is empty")
     bad = [s for s in seeds if s < 0 or s >= 2**63]
@@ -224,7 +233,7 @@ def parse_sizes(text: str | Iterable[int]) -> tuple[int, ...]:
             raise ValueError("sizes are empty; expected e.g. '100,200,400'")
         sizes = [_int_token(t, "size", text) for t in text.split(",")]
     else:
-        sizes = [_given_int(s, "sizes") for s in text]
+        sizes = _given_ints(text, "sizes", "100,200,400")
     if not sizes:
         raise ValueError("the list of sizes is empty")
     for s in sizes:
@@ -310,6 +319,11 @@ class MethodSpec:
         return {"name": self.name, **dict(self.options)}
 
 
+# Unicode categories a mixture's name may not hold: control characters (NUL, tab, newline,
+# escape, DEL, ...) and line and paragraph separators, which break the table's lines.
+UNPRINTABLE = frozenset({"Cc", "Zl", "Zp"})
+
+
 @dataclass(frozen=True)
 class MixtureSpec:
     """A named mixture; ``gammas`` as sorted (p, gamma_p) pairs; ``sizes`` overrides the
@@ -329,6 +343,11 @@ class MixtureSpec:
         if name is not None and not (isinstance(name, str) and name.strip()):
             # a number was stored as the rows' mixture, which the table then refused
             raise ValueError(f"a mixture's name must be a non-empty text, got {name!r}")
+        if name is not None and any(unicodedata.category(c) in UNPRINTABLE for c in name):
+            # "a\x00b" was printed raw into the table and the report (a review)
+            raise ValueError(
+                f"a mixture's name must not hold control characters or line breaks, got {name!r}"
+            )
         own = None if sizes is None else parse_sizes(sizes)
         return cls(name or mixture.to_text(), tuple(sorted(mixture.gammas.items())), own)
 
@@ -464,8 +483,17 @@ class StudySpec:
 
 
 def method_names(text: str) -> list[str]:
-    """The names in ``"hessian,gradient"``, as written (checked by :func:`parse_methods`)."""
-    return [t.strip() for t in text.split(",") if t.strip()]
+    """The names in ``"hessian,gradient"``, as written (checked by :func:`parse_methods`);
+    none in blank text. An empty item (``"hessian,,gradient"``) is refused, as in seeds and
+    sizes, and so is anything but text (a list of names: AttributeError before)."""
+    if not isinstance(text, str):
+        raise TypeError(f"methods must be text like 'hessian,gradient', got {text!r}")
+    if not text.strip():
+        return []
+    names = [t.strip() for t in text.split(",")]
+    if not all(names):
+        raise ValueError(f"empty item in methods {text!r}; expected e.g. 'hessian,gradient'")
+    return names
 
 
 def parse_methods(text: str, options: Mapping[str, Mapping[str, Any]] | None = None):
@@ -480,17 +508,21 @@ def parse_methods(text: str, options: Mapping[str, Mapping[str, Any]] | None = N
 def spec_from_flags(
     gammas: list[str] | None,
     xi: list[str] | None,
-    sizes: str,
-    seeds: str,
+    sizes: str | Iterable[int],
+    seeds: str | Iterable[int],
     methods: str,
     method_options: Mapping[str, Mapping[str, Any]] | None = None,
     exponent: float | str = DEFAULT_EXPONENT,
     dtype: str = "float64",
 ) -> StudySpec:
-    """Build a study from the ``sweep`` flags (each ``--gammas``/``--xi`` adds a mixture);
-    ``exponent`` a number or text as :func:`parse_exponent` reads it ("2/3")."""
-    given = [(f"--gammas {t}", Mixture.parse(t)) for t in gammas or []]
-    given += [(f"--xi {t}", Mixture.parse(t, squared=True)) for t in xi or []]
+    """Build a study from the ``sweep`` flags: ``gammas`` and ``xi`` lists of mixture texts
+    (each adds a mixture; None for none), ``sizes`` and ``seeds`` text or lists of integers (as
+    :func:`parse_sizes` and :func:`parse_seeds` read them), ``methods`` text like
+    ``"hessian,gradient"``, ``method_options`` a mapping of a method's name to its options,
+    ``exponent`` a number or text as :func:`parse_exponent` reads it ("2/3"). An argument of
+    another type is a TypeError naming it and the value."""
+    given = [(f"--gammas {t}", Mixture.parse(t)) for t in _mixture_texts(gammas, "gammas")]
+    given += [(f"--xi {t}", Mixture.parse(t, squared=True)) for t in _mixture_texts(xi, "xi")]
     if not given:
         raise ValueError("give at least one mixture with --gammas (or --xi), or a TOML file")
     for i, (flag, mix) in enumerate(given):  # the names would clash: say which flags did it
@@ -498,6 +530,7 @@ def spec_from_flags(
             if same == mix:
                 raise ValueError(f"{other} and {flag} give the same mixture ({mix.to_text()})")
     mixes = [MixtureSpec.make(mix) for _, mix in given]
+    _check_option_types(method_options, exponent)
     return StudySpec(
         tuple(mixes),
         parse_sizes(sizes),
@@ -506,6 +539,34 @@ def spec_from_flags(
         parse_exponent(exponent) if isinstance(exponent, str) else float(exponent),
         dtype=dtype,
     )
+
+
+def _check_option_types(method_options: object, exponent: object) -> None:
+    """A TypeError naming ``method_options`` of :func:`spec_from_flags` when it is no mapping
+    (or None), and ``exponent`` when it is neither a number nor text (a flag: True was read as
+    the exponent 1)."""
+    if method_options is not None and not isinstance(method_options, Mapping):
+        raise TypeError(
+            "method_options must map a method's name to its options, like"
+            f" {{'hessian': {{'steps': 50}}}}, got {method_options!r}"
+        )
+    number = (str, int, float, np.integer, np.floating)
+    if isinstance(exponent, bool) or not isinstance(exponent, number):
+        raise TypeError(f"exponent must be a number or text like '2/3', got {exponent!r}")
+
+
+def _mixture_texts(texts: object, what: str) -> list[str]:
+    """The mixture texts given for ``what`` (gammas, xi) to :func:`spec_from_flags`: a list
+    (or tuple) of texts, one per mixture, or None for none; a TypeError names anything else
+    (one text was read character by character, a review)."""
+    if texts is None:
+        return []
+    if not isinstance(texts, (list, tuple)) or not all(isinstance(t, str) for t in texts):
+        raise TypeError(
+            f"{what} must be a list of mixture texts, one per mixture (like ['3:1',"
+            f" '2:1,4:0.25']), or None, got {texts!r}"
+        )
+    return list(texts)
 
 
 def _toml_mixture(entry: Any, i: int) -> MixtureSpec:
@@ -535,6 +596,19 @@ def _toml_mixture(entry: Any, i: int) -> MixtureSpec:
         raise ValueError(f"[[mixture]] entry {i}: {exc}") from None
 
 
+def _toml_tables(data: Mapping[str, Any], key: str) -> list:
+    """The array of tables ``[[key]]`` of a study file; a ValueError names anything else
+    (``mixture = 5`` was "'int' object is not iterable", a review)."""
+    value = data[key]
+    if not isinstance(value, list):
+        single = " (a single table [" + key + "])" if isinstance(value, dict) else ""
+        raise ValueError(
+            f"'{key}' must be an array of tables, one [[{key}]] block per {key}, got"
+            f" {value!r}{single}"
+        )
+    return value
+
+
 def spec_from_toml(path: str | Path) -> StudySpec:
     """Read a study from a TOML file (format in the module doc). Errors name the file."""
     p = Path(path)
@@ -559,9 +633,9 @@ def spec_from_toml(path: str | Path) -> StudySpec:
         if key not in data:
             raise ValueError(f"{str(p)!r}: missing key {key!r}; add {how[key]}")
     try:
-        mixes = tuple(_toml_mixture(e, i) for i, e in enumerate(data["mixture"]))
+        mixes = tuple(_toml_mixture(e, i) for i, e in enumerate(_toml_tables(data, "mixture")))
         methods = []
-        for i, entry in enumerate(data["method"]):
+        for i, entry in enumerate(_toml_tables(data, "method")):
             if not isinstance(entry, dict) or "name" not in entry:
                 raise ValueError(f"[[method]] entry {i} needs a 'name'")
             opts = {k: v for k, v in entry.items() if k != "name"}
