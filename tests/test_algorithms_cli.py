@@ -531,3 +531,43 @@ def test_the_table_shows_energies_far_from_order_one_in_significant_digits(tmp_p
     ):
         shown = float(lines[label].strip())
         assert shown == pytest.approx(summary[key], rel=1e-5) and shown != 0, label
+
+
+@pytest.mark.parametrize(
+    "command",
+    [
+        ["climb", "--gammas", "3:1", "--n", "10", "--steps", "2"],
+        ["sweep", "--gammas", "3:1", "--n", "10", "--seeds", "0-1", "--methods", "gradient"],
+        ["profile", "--gammas", "3:1", "--n", "10,12", "--repeats", "1"],
+        ["demo", "--quick", "--plan-only"],
+        ["report", "a-study"],
+    ],
+)
+def test_every_command_refuses_an_empty_out_the_same_way(tmp_path, monkeypatch, capsys, command):
+    # a review: sweep and profile wrote into the working folder and demo took "" as ".",
+    # while climb and report refused it
+    monkeypatch.chdir(tmp_path)
+    assert main([*command, "--out", ""]) == 2
+    err = capsys.readouterr().err
+    assert err == f"orthoclimb {command[0]}: error: --out must name a folder, got an empty string\n"
+    assert list(tmp_path.iterdir()) == []  # nothing was written
+
+
+def test_cli_warnings_are_one_line_without_the_source(tmp_path, capsys):
+    # a review: the scale warning of `climb --gammas 2:1e150` (and --tol 1e308's) printed
+    # Python's display, the path of climb_cmd.py, its line and the source line of the call
+    import warnings
+
+    before = warnings.showwarning
+    args = ["climb", "--gammas", "2:1e150", "--n", "12", "--steps", "3", "--no-progress"]
+    assert main([*args, "--out", str(tmp_path / "c")]) == 0
+    err = capsys.readouterr().err
+    line = "orthoclimb climb: warning: hessian_ascent: the energy scale sqrt(xi(1)) = 1e+150"
+    assert line in err
+    assert "climb_cmd.py" not in err and "RuntimeWarning" not in err
+    assert "hessian_ascent(" not in err and len(err.splitlines()) == 1, err
+    # the library's callers keep Python's display, warning category included
+    assert warnings.showwarning is before
+    ham = oc.Hamiltonian.sample(oc.Mixture({2: 1e150}), 12, seed=0)
+    with pytest.warns(RuntimeWarning, match="the energy scale sqrt"):
+        oc.hessian_ascent(ham, steps=3, polish=False)

@@ -4,15 +4,19 @@ Each subcommand lives in its own module with two functions: ``add_arguments(pars
 ``run(args) -> int``. Bad input (any ValueError/TypeError raised while running) is reported as
 ``orthoclimb: error: ...`` with exit code 2, like argparse's own usage errors (an output
 folder that cannot be made too: OutputPathError is a ValueError); any other file-system
-failure (OSError: a full disk, say) the same way with exit code 1.
+failure (OSError: a full disk, say) the same way with exit code 1. A warning raised while a
+command runs is printed as one line, ``orthoclimb COMMAND: warning: ...``, without Python's
+file and source line (:func:`user_warnings`; callers of the library keep Python's display).
 """
 
 from __future__ import annotations
 
 import argparse
+import contextlib
 import os
 import sys
-from collections.abc import Sequence
+import warnings
+from collections.abc import Iterator, Sequence
 from importlib import import_module
 from typing import TYPE_CHECKING
 
@@ -80,6 +84,15 @@ def user_path(text: str) -> str:
     shell would have made it (it does not after ``--out=``, and ``./~/runs`` was made while
     the summary pointed at the home folder, a review)."""
     return os.path.expanduser(text)
+
+
+def out_folder(path: str | None) -> str | None:
+    """The folder of a command's ``--out`` (None where it was not given), or a ValueError for
+    an empty one, the same in every command: ``sweep`` and ``profile`` wrote into the working
+    folder and ``demo`` took it as ".", while ``climb`` and ``report`` refused it."""
+    if path is not None and not path.strip():
+        raise ValueError("--out must name a folder, got an empty string")
+    return path
 
 
 def positive_number(text: str) -> float:
@@ -200,6 +213,26 @@ def _parse(parser: argparse.ArgumentParser, argv: Sequence[str] | None) -> argpa
     return args
 
 
+@contextlib.contextmanager
+def user_warnings(command: str) -> Iterator[None]:
+    """While a command runs, print each warning as ``orthoclimb COMMAND: warning: MESSAGE``
+    on stderr: Python's own display added the file path and the source line of the call that
+    raised it (``climb_cmd.py:443: RuntimeWarning: ...`` and ``result = hessian_ascent(``),
+    meant for a programmer. The filters (which warnings show, and how often) are Python's;
+    the display before is put back afterwards."""
+
+    def show(message, category, filename, lineno, file=None, line=None) -> None:
+        stream = sys.stderr if file is None else file
+        try:
+            stream.write(f"orthoclimb {command}: warning: {message}\n")
+        except (AttributeError, OSError):  # no stderr (pythonw), or it went away: as Python
+            pass
+
+    with warnings.catch_warnings():
+        warnings.showwarning = show
+        yield
+
+
 def main(argv: Sequence[str] | None = None) -> int:
     try:  # building the parser imports SciPy and more: a second or two where Ctrl-C is likely
         parser = build_parser()
@@ -208,7 +241,8 @@ def main(argv: Sequence[str] | None = None) -> int:
         print("orthoclimb: interrupted", file=sys.stderr)
         return 130
     try:
-        with undone_on_failure():  # a failed command leaves no empty output folder
+        # a failed command leaves no empty output folder
+        with undone_on_failure(), user_warnings(args.command):
             return int(args._run(args) or 0)
     except BrokenPipeError:  # the reader went away (say `| head`): stop quietly, like POSIX tools
         try:  # so the interpreter's final flush cannot fail again

@@ -52,6 +52,7 @@ from . import (
     add_mixture_flags,
     add_start_flag,
     mixture_from,
+    out_folder,
     positive_number,
     seconds_text,
     threads_from,
@@ -362,8 +363,7 @@ def run(args: argparse.Namespace) -> int:
     tol = 1e-3 if args.tol is None else args.tol
     if not (math.isfinite(tol) and tol > 0):
         raise ValueError(f"--tol must be a positive number, got {tol!r}")
-    if not args.out.strip():
-        raise ValueError("--out must name a folder, got an empty string")
+    out_folder(args.out)
     # before the run, so that a bad --out fails at once (a plan writes nothing)
     out = None if args.plan_only else ensure_folder(args.out)
     if out is not None:  # and its files can be written: checked again only after the run

@@ -25,7 +25,7 @@ import time
 
 from ..model import Mixture
 from ..studies.grid import MethodSpec, MixtureSpec, StudySpec
-from . import user_path
+from . import out_folder, user_path
 from .sweep_cmd import add_engine_arguments, execute
 
 __all__ = ["add_arguments", "demo_spec", "run"]
@@ -66,6 +66,7 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
 
 
 def run(args: argparse.Namespace) -> int:
+    out_folder(args.out)
     spec = demo_spec(args.quick)
     if args.out is None:  # each variant its own folder: the quick one refused the full one
         args.out = "orthoclimb-demo-quick" if args.quick else "orthoclimb-demo"

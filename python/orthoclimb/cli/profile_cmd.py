@@ -12,7 +12,14 @@ import argparse
 import sys
 from pathlib import Path
 
-from . import add_mixture_flags, mixture_from, seconds_text, threads_from, user_path
+from . import (
+    add_mixture_flags,
+    mixture_from,
+    out_folder,
+    seconds_text,
+    threads_from,
+    user_path,
+)
 
 __all__ = ["add_arguments", "run"]
 
@@ -61,6 +68,7 @@ def run(args: argparse.Namespace) -> int:
     )
 
     mix = mixture_from(args)
+    out_folder(args.out)
     threads_note = threads_from(args)
     sizes = parse_sizes(args.sizes)
     ensure_folder(args.out)  # before the timings: a bad --out fails at once

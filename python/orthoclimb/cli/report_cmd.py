@@ -13,7 +13,7 @@ from __future__ import annotations
 import argparse
 
 from ..fileio import json_text
-from . import exponent_value, user_path
+from . import exponent_value, out_folder, user_path
 
 __all__ = ["add_arguments", "run"]
 
@@ -59,8 +59,7 @@ def run(args: argparse.Namespace) -> int:
 
     if not 100 <= args.bootstrap <= MAX_BOOT:
         raise ValueError(f"--bootstrap must be in [100, {MAX_BOOT}], got {args.bootstrap}")
-    if args.out is not None and not args.out.strip():
-        raise ValueError("--out must name a folder, got an empty string")
+    out_folder(args.out)
     if not args.study.strip():  # "" reported on the working folder (".")
         raise ValueError("the study folder must be named, got an empty string")
     rep = write_report(

@@ -29,7 +29,7 @@ from ..studies.grid import (
     spec_from_flags,
     spec_from_toml,
 )
-from . import add_start_flag, exponent_value, positive_number, user_path
+from . import add_start_flag, exponent_value, out_folder, positive_number, user_path
 
 EPILOG = "A study TOML file (the grid, instead of the flags):\n\n" + TOML_EXAMPLE
 
@@ -292,6 +292,7 @@ def execute(
 
 
 def run(args: argparse.Namespace) -> int:
+    out_folder(args.out)
     spec = _spec(args)
     outcome, rep = execute(spec, args.out, args, report=not args.no_report)
     if outcome is None:  # --plan-only
