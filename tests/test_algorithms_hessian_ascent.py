@@ -570,8 +570,12 @@ def test_the_callback_sees_the_rows_the_result_keeps():
 def test_a_tol_large_against_the_mixture_is_warned_of():
     # tol is absolute: at gamma = 1e-3 the default 1e-3 lets a run lose 31 % of ALG
     small = oc.Hamiltonian.sample(oc.Mixture({3: 1e-3}), 30, seed=1)
-    with pytest.warns(RuntimeWarning, match="% of ALG"):
+    with pytest.warns(RuntimeWarning, match="30.6 % of ALG"):
         oc.hessian_ascent(small, steps=3, seed=0, polish=False)
+    # past ALG the share is given as a multiple; 50 tol / ALG was "inf %" at tol = 1e308
+    for tol, told in ((1.0, "306 times ALG"), (1e308, r"3.06e\+310 times ALG")):
+        with pytest.warns(RuntimeWarning, match=f"energy per spin, {told} = 0.00163"):
+            oc.hessian_ascent(small, steps=3, seed=0, polish=False, tol=tol)
     import warnings
 
     with warnings.catch_warnings():

@@ -337,10 +337,15 @@ def _warn_if_coarse(mixture: Mixture | None, delta: float) -> None:
     if mixture is None:
         return
     alg = float(algorithmic_energy(mixture))
-    if delta / 2.0 > _COARSE_SHARE * alg:
+    share = (delta / 2.0) / alg  # 50 * delta / alg overflowed to "inf %" at tol = 1e308
+    if share > _COARSE_SHARE:
+        part = f"{share:.3g} times" if share >= 1.0 else f"{100 * share:.3g} % of"
+        if math.isinf(share):  # past float64 (tol = 1e308): written from the logarithms
+            lg = math.log10(delta / 2.0) - math.log10(alg)
+            part = f"{10 ** (lg % 1):.3g}e+{math.floor(lg)} times"
         warnings.warn(
             f"hessian_ascent: tol = {delta:.3g} lets the run lose up to tol/2 ="
-            f" {delta / 2:.3g} energy per spin, {50 * delta / alg:.3g} % of ALG = {alg:.3g};"
+            f" {delta / 2:.3g} energy per spin, {part} ALG = {alg:.3g};"
             f" tol is absolute: pass one in proportion to the mixture's scale (tol ="
             f" {2 * _COARSE_SHARE * alg:.2g} for 1 %)",
             RuntimeWarning,
