@@ -259,3 +259,30 @@ def test_alg_is_computed_once_per_mixture(monkeypatch):
     calls.clear()
     oc.hessian_ascent(ham, steps=5, seed=0, polish=False)
     assert calls == [Mixture({3: 1.0})]
+
+
+@pytest.mark.parametrize("function", [path_energy, hessian_edge])
+def test_bad_entries_of_a_q_array_are_named_with_their_index(function):
+    mixture = Mixture({2: 1.0})
+    with pytest.raises(ValueError, match=r"got q\[1\] = 1\.5$"):
+        function(mixture, [0.5, 1.5])
+    with pytest.raises(NonFiniteError, match=r"got q\[1, 0\] = nan$"):
+        function(mixture, [[0.5, 0.2], [float("nan"), 0.1]])
+    # a long list of text is shown cut short (it was printed whole)
+    with pytest.raises(TypeError, match=r"got \['half', 'half', .*\.\.\.\]$") as info:
+        function(mixture, ["half"] * 100_000)
+    assert len(str(info.value)) < 200
+
+
+def test_path_energy_with_a_field_at_the_smallest_q():
+    # E_path(q) = sqrt(q xi'(q)) below q_hat; q xi'(q) = 5e-324 * 0.16 underflowed to 0, and so
+    # did E_path, whose value 8.9e-163 is a normal float. Reference: the same formula with the
+    # square root taken of each factor, in exact decimal arithmetic.
+    from decimal import Decimal, getcontext
+
+    getcontext().prec = 40
+    mixture = Mixture({1: 0.4, 2: 1.0})
+    q = 5e-324
+    slope = Decimal(0.4) ** 2 + 2 * Decimal(q)  # xi'(q) = gamma_1^2 + 2 gamma_2^2 q
+    expected = float((Decimal(q) * slope).sqrt())
+    assert path_energy(mixture, q) == pytest.approx(expected, rel=1e-15, abs=0.0)

@@ -794,3 +794,149 @@ def test_mixture_ground_state_defaults_to_the_solvers_tolerance():
 
     default = inspect.signature(Mixture.ground_state).parameters["tol"].default
     assert default == DEFAULT_TOL == inspect.signature(solver).parameters["tol"].default
+
+
+# Extreme but finite B, alpha and breakpoints. xi = q^3, breakpoints [0, 0.5, 1], alpha [1, 2]:
+# C(q) = B + 1 + (0.5 - q) on [0, 0.5) and B + 2 (1 - q) on [0.5, 1]. The references integrate
+# 1 / C, 1 / C^2 and s / C^2 by their antiderivatives (exact identities), where B below the ulp
+# of 1 drops out of B + 1 and log1p(1 / B) = -log(B) + log1p(B) = -log(B) to double precision:
+#   int_0^0.5 dq / C = log(1.5),  int_0^0.5 dq / C^2 = 1 - 1 / 1.5 = 1/3,
+#   int_0^0.5 (1 - q) dq / C^2 = log(1.5) - 1/6,
+#   int_0.5^1 dq / C = log1p(1 / B) / 2,  int_0.5^1 dq / C^2 = (1 / B - 1 / (B + 1)) / 2,
+#   int_0.5^1 (1 - q) dq / C^2 = int_0^0.5 s ds / (B + 2 s)^2 = (log1p(1 / B) - 1 / (1 + B)) / 4.
+_CUBIC = Mixture({3: 1.0})
+_STEP = ([0.0, 0.5, 1.0], [1.0, 2.0])
+
+
+def _no_warnings(function, *args):
+    import warnings
+
+    with warnings.catch_warnings():
+        warnings.simplefilter("error")  # the overflows were NumPy warnings, and NaN or inf
+        return function(*args)
+
+
+@pytest.mark.parametrize(
+    ("B", "expected"),
+    [
+        # xi'(1) B / 2 = 1.5e308; xi'(1) B alone overflowed (inf); the rest is below its ulp
+        (1e308, 1.5e308),
+        # 2P = 3B + alpha term (1 * xi(0.5) + 2 * (1 - xi(0.5))) + 1/C terms; was NaN
+        (5e-324, 0.5 * (0.125 + 1.75 + math.log(1.5) - 0.5 * math.log(5e-324))),
+        (1e-308, 0.5 * (0.125 + 1.75 + math.log(1.5) - 0.5 * math.log(1e-308))),
+    ],
+)
+def test_the_functional_at_extreme_b_is_its_exact_value(B, expected):
+    assert _no_warnings(parisi_functional, _CUBIC, B, *_STEP) == pytest.approx(expected, rel=1e-14)
+
+
+def test_the_gradient_at_b_1e_308_is_its_exact_value():
+    # dP/dB = (xi'(1) - int dq / C^2) / 2 and dP/dd_k = D(q_(k-1)) / 2 with
+    # D(t) = xi(1) - xi(t) - int_0^1 (1 - max(q, t)) dq / C^2 (module docstring); was
+    # [-2.5e307, nan, nan]
+    B = 1e-308
+    tail = (-math.log(B) - 1.0) / 4.0  # int_0.5^1 (1 - q) dq / C^2
+    expected = [
+        0.5 * (3.0 - 1.0 / 3.0 - 0.5 / B),
+        0.5 * (1.0 - (math.log(1.5) - 1.0 / 6.0) - tail),
+        0.5 * (1.0 - 0.125 - 0.5 / 3.0 - tail),
+    ]
+    grad = _no_warnings(parisi_gradient, _CUBIC, B, *_STEP)
+    np.testing.assert_allclose(grad, expected, rtol=1e-13)
+
+
+@pytest.mark.parametrize(
+    ("B", "breakpoints", "alpha", "value", "grad"),
+    [
+        # constant alpha a = 1e300 and B = 1e-300: P = (3 B + a xi(1) + log1p(a / B) / a) / 2
+        # = a / 2; int dq / C^2 = (1 / B - 1 / (B + a)) / a = 1 / (a B) = 1, so dP/dB = 1;
+        # dP/dd = (xi(1) - xi(t)) / 2 up to log(a / B) / a^2 (D above); was NaN
+        (1e-300, [0.0, 0.5, 1.0], [1e300, 1e300], 5e299, [1.0, 0.5, 0.4375]),
+        # a piece of width 1e-300 at 0: P = 1e308 (xi(1) - xi(1e-300)) / 2 = 5e307 up to
+        # log(1e308 / 5e-324) / 1e308; was NaN. dP/dB = (3 - (1 / B - 1 / (B + 1e308)) /
+        # 1e308) / 2 = -1.01e15 (first piece: 1e-300 / 1e308^2, nothing)
+        (5e-324, [0.0, 1e-300, 1.0], [0.0, 1e308], 5e307, [1.5 - 0.5 / (5e-324 * 1e308), 0.5, 0.5]),
+    ],
+)
+def test_extreme_alpha_and_close_breakpoints_give_the_exact_values(
+    B, breakpoints, alpha, value, grad
+):
+    assert _no_warnings(parisi_functional, _CUBIC, B, breakpoints, alpha) == pytest.approx(
+        value, rel=1e-14
+    )
+    got = _no_warnings(parisi_gradient, _CUBIC, B, breakpoints, alpha)
+    np.testing.assert_allclose(got, grad, rtol=1e-13)
+
+
+@pytest.mark.parametrize(
+    ("call", "words"),
+    [
+        # xi'(1) B / 2 = 2.25e308: beyond float64, and so is P (it returned inf)
+        (lambda: parisi_functional(_CUBIC, 1.5e308, *_STEP), r"B = 1\.5e\+308.*B must be below"),
+        # alpha xi(1) / 2 = 5e309 with xi = 100 q^3
+        (
+            lambda: parisi_functional(Mixture({3: 10.0}), 1.0, [0.0, 1.0], [1e308]),
+            r"alpha \(up to 1e\+308\) must stay below",
+        ),
+        # alpha = 0: P = (3 B + 1 / B) / 2 = 1e323 (it returned inf)
+        (lambda: parisi_functional(_CUBIC, 5e-324, [0.0, 1.0], [0.0]), r"B = 5e-324.*B >= 1e-308"),
+        # dP/dB = (3 - (1 / B - 1 / (B + 1)) / 2) / 2 = -1e323 (it returned [-inf, nan, nan])
+        (lambda: parisi_gradient(_CUBIC, 5e-324, *_STEP), r"B = 5e-324.*B >= 1e-153"),
+    ],
+)
+def test_results_beyond_float64_are_refused_naming_b_and_the_range(call, words):
+    with pytest.raises(NonFiniteError, match=words):
+        _no_warnings(call)
+
+
+@pytest.mark.parametrize("B", [1e-153, 1e-200, 1e-300, 5e-324, 1.0, 1e308])
+@pytest.mark.parametrize("alpha", [[0.0, 0.0], [5e-324, 5e-324], [0.0, 1e-300], [1.0, 1e308]])
+def test_extreme_inputs_give_a_finite_result_or_a_non_finite_error(B, alpha):
+    # never NaN or inf, never a NumPy warning; at B >= 1e-153 the gradient is always finite
+    for function in (parisi_functional, parisi_gradient):
+        try:
+            out = _no_warnings(function, _CUBIC, B, [0.0, 1e-300, 1.0], alpha)
+        except NonFiniteError as exc:
+            assert f"B = {B!r}" in str(exc)
+            assert function is parisi_functional or B < 1e-153
+        else:
+            assert np.all(np.isfinite(out))
+
+
+@pytest.mark.parametrize(
+    ("breakpoints", "alpha", "words"),
+    [
+        ([0.5], [1.0], r"got \[0\.5\]: 1 entry, at least 2 needed"),
+        (0.5, [1.0], r"got 0\.5: shape \(\)"),
+        ([0.1, 1.0], [0.0], r"got \[0\.1, 1\.0\]: breakpoints\[0\] = 0\.1 is not 0"),
+        ([0, 0.5, 0.9], [0, 1], r"got \[0\.0, 0\.5, 0\.9\]: breakpoints\[2\] = 0\.9, the last, is"),
+        # every digit: rounded to 8 it would read 1.0
+        ([0, 0.5, 1 - 2**-53], [0, 1], r"breakpoints\[2\] = 0\.9999999999999999, the last"),
+        ([0, 0.6, 0.5, 1], [0, 1, 2], r"breakpoints\[2\] = 0\.5 is not above breakpoints\[1\] = 0"),
+        ([0, 0.5, 1], [1.0, 0.5], r"got \[1\.0, 0\.5\]: alpha\[1\] = 0\.5 is below alpha\[0\] = 1"),
+        ([0, 0.5, 1], [-1.0, 0.5], r"alpha\[0\] = -1\.0 is negative"),
+        ([0, 0.5, 1], [0.0], r"got shape \(1,\): alpha = \[0\.0\]"),
+    ],
+)
+def test_bad_breakpoints_and_alpha_are_shown_with_what_is_wrong(breakpoints, alpha, words):
+    for function in (parisi_functional, parisi_gradient):
+        with pytest.raises(ValueError, match=words):
+            function(_CUBIC, 0.5, breakpoints, alpha)
+
+
+def test_a_long_bad_step_function_is_shown_shortened():
+    q = np.linspace(0.0, 1.0, 10_001)
+    q[5000] = q[4999]
+    with pytest.raises(ValueError, match=r"\[0\.0, 0\.0001, 0\.0002, \.\.\., 0\.9998") as info:
+        parisi_functional(_CUBIC, 0.5, q, np.zeros(10_000))
+    assert "breakpoints[5000] = 0.4999 is not above breakpoints[4999] = 0.4999" in str(info.value)
+    assert len(str(info.value)) < 300
+
+
+def test_a_long_bad_tolerance_or_count_is_shown_cut_short():
+    # a list where a number belongs was printed whole in the message
+    m = Mixture({2: 1.0})
+    for kwargs in ({"tol": [1e-6] * 100_000}, {"initial_steps": list(range(100_000))}):
+        with pytest.raises(TypeError, match=r", \.\.\.\]$") as info:
+            ground_state(m, **kwargs)
+        assert len(str(info.value)) < 200

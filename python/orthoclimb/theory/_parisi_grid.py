@@ -22,6 +22,13 @@ _K = np.arange(24)
 _PHI_SERIES = (-1.0) ** _K / (_K + 1.0)
 _PSI_SERIES = (-1.0) ** _K * (_K + 1.0) / (_K + 2.0)
 
+# Pieces whose C at the right end is this much smaller than the piece (x = m Delta / C_right or
+# Delta / C_right above it) are "far" (_far_pieces): there x, Delta / C_right or its square can
+# overflow and phi(x) Delta underflow (B = 5e-324 gave a NaN value, B = 1e-308 a NaN gradient from
+# inf * 0), so their integrals are written with m instead. The solver, with B of order 1, never
+# comes near, and keeps the plain forms' arithmetic.
+_FAR = 1e100
+
 # The lower bound on B in the L-BFGS-B solve, and its most restarts (_solve).
 _B_FLOOR = 1e-8
 _MAX_RESTARTS = 40
@@ -45,6 +52,46 @@ def _phi(x: np.ndarray) -> np.ndarray:
 def _psi(x: np.ndarray) -> np.ndarray:
     """int_0^1 t / (1 + x t)^2 dt = (log1p(x) - x / (1 + x)) / x^2, with the value 1/2 at 0."""
     return _series_or_closed(x, _PSI_SERIES, lambda v: (np.log1p(v) - v / (1.0 + v)) / (v * v))
+
+
+def _far_pieces(dq: np.ndarray, c_right: np.ndarray, x: np.ndarray) -> np.ndarray | None:
+    """The pieces where x >= _SMALL_X and x or Delta / C_right exceeds _FAR, or None when there
+    is none (the usual case, told by three reductions)."""
+    if not (x.max() > _FAR or dq.max() > _FAR * c_right.min()):
+        return None
+    far = (x >= _SMALL_X) & ((x > _FAR) | (dq > _FAR * c_right))
+    return far if far.any() else None
+
+
+def _log1p_x(mass: np.ndarray, c_right: np.ndarray, x: np.ndarray) -> np.ndarray:
+    """log1p(x) = log(C_left / C_right), x = mass / C_right, also where that ratio overflowed
+    (then log1p(x) = log(mass) - log(C_right) to within 1/x < 1e-308)."""
+    return np.where(np.isinf(x), np.log(mass) - np.log(c_right), np.log1p(x))
+
+
+def _half_inv_c(dq, m, c_right, x, far) -> np.ndarray:
+    """Half the integral over each piece of dq / C: (Delta / (2 C_right)) log1p(x) / x, and on
+    the ``far`` pieces (m > 0 there) the same as log1p(x) / (2 m)."""
+    out = _phi(x) * (0.5 * dq) / c_right
+    if far is not None:
+        out[far] = 0.5 * _log1p_x(m[far] * dq[far], c_right[far], x[far]) / m[far]
+    return out
+
+
+def _half_inv_c2(dq, m, c_right, c_left, x, far) -> tuple[np.ndarray, np.ndarray]:
+    """Half the integrals over each piece [q_{j-1}, q_j) of dq / C^2 = Delta / (C_left C_right)
+    and of (q_j - q) dq / C^2 = (Delta / C_right)^2 psi(x); on the ``far`` pieces the latter as
+    (log1p(x) - x / (1 + x)) / m^2 (x / (1 + x) = 1 / (1 + 1/x), 1 also for x = inf). Halved
+    first: at B = 3e-309 the first is 3.3e308 = inf, its half 1.7e308."""
+    half_dq = 0.5 * dq
+    j2 = half_dq / (c_left * c_right)
+    own = 0.5 * (dq / c_right) ** 2 * _psi(x)
+    if far is not None:
+        mf, cr, xf = m[far], c_right[far], x[far]
+        j2[far] = half_dq[far] / c_left[far] / cr
+        log1p_x = _log1p_x(mf * dq[far], cr, xf)
+        own[far] = 0.5 * (log1p_x - 1.0 / (1.0 + 1.0 / xf)) / mf / mf
+    return j2, own
 
 
 def _xi_increments(mixture: Mixture, q: np.ndarray) -> np.ndarray:
@@ -94,23 +141,41 @@ class _Grid:
     ) -> tuple[float, np.ndarray | None]:
         """P(B, alpha) and its gradient in theta = (B, d_1, ..., d_K); with ``gradient=False``
         the value only (None for the gradient), whose 1/C^2 terms can overflow where P does
-        not (B = 1e-300 warned of a division by zero)."""
-        B = theta[0]
-        m = np.cumsum(theta[1:])
-        dq = self.dq
-        c_right, c_left, x = self.pieces(m, B)
-        inv_c = _phi(x) * dq / c_right  # int over each piece of dq / C
-        value = 0.5 * (self.dxi1 * B + float(m @ self.dxi) + float(inv_c.sum()))
+        not (B = 1e-300 warned of a division by zero).
+
+        Every term is halved before the terms are added (the same arithmetic as halving the sum,
+        bar subnormals), so that a sum which only its double would overflow stays finite: at
+        B = 1e308 and xi'(1) = 3, xi'(1) B = inf while P = 1.5e308. Where C is tiny against a
+        piece, see _far_pieces. Non-finite results (a true overflow, say) are the callers' to
+        check, and their warnings to silence."""
+        (b_term, a_term, c_term), (m, c_right, c_left, x, far) = self._halves(theta)
+        value = b_term + a_term + c_term
         if not gradient:
             return value, None
-        j2 = dq / (c_left * c_right)  # int over each piece of dq / C^2
-        before = np.concatenate(([0.0], np.cumsum(j2)[:-1]))  # sum over earlier pieces
-        d_inv_c_dm = -(dq * before + (dq / c_right) ** 2 * _psi(x))
-        grad_m = 0.5 * (self.dxi + d_inv_c_dm)
+        dq = self.dq
+        half_j2, half_own = _half_inv_c2(dq, m, c_right, c_left, x, far)
+        before = np.concatenate(([0.0], np.cumsum(half_j2)[:-1]))  # sum over earlier pieces
+        grad_m = 0.5 * self.dxi - (dq * before + half_own)
         grad = np.empty_like(theta)
-        grad[0] = 0.5 * (self.dxi1 - float(j2.sum()))
+        grad[0] = 0.5 * self.dxi1 - float(half_j2.sum())
         grad[1:] = np.cumsum(grad_m[::-1])[::-1]
         return value, grad
+
+    def half_terms(self, theta: np.ndarray) -> tuple[float, float, float]:
+        """The three terms of P(B, alpha) apart: xi'(1) B / 2, int_0^1 xi' alpha / 2 and
+        int_0^1 dq / (2 C) (to name the one that overflows; the caller silences the warnings)."""
+        return self._halves(theta)[0]
+
+    def _halves(self, theta: np.ndarray) -> tuple[tuple[float, float, float], tuple]:
+        """The three terms of P (half_terms), and the quantities the gradient needs: m, C at
+        the right and left end of each piece, x, the far pieces (_far_pieces)."""
+        B = theta[0]
+        m = np.cumsum(theta[1:])
+        c_right, c_left, x = self.pieces(m, B)
+        far = _far_pieces(self.dq, c_right, x)
+        half_inv_c = _half_inv_c(self.dq, m, c_right, x, far)
+        terms = (0.5 * self.dxi1 * B, float((0.5 * m) @ self.dxi), float(half_inv_c.sum()))
+        return terms, (m, c_right, c_left, x, far)
 
     def directional(self, theta: np.ndarray, t: np.ndarray, piece: np.ndarray) -> np.ndarray:
         """D(t) for points t, each inside the given piece index (see the module docstring)."""

@@ -117,8 +117,8 @@ def path_energy(mixture: Mixture, q: Any) -> Any:
     q_hat = algorithmic_threshold(mixture)
     out = np.empty_like(flat)
     low = flat <= q_hat
-    if np.any(low):
-        out[low] = np.sqrt(flat[low] * mixture.xi(flat[low], 1))
+    if np.any(low):  # sqrt(q) sqrt(xi'(q)): q xi'(q) underflowed to 0 at q = 5e-324
+        out[low] = np.sqrt(flat[low]) * np.sqrt(mixture.xi(flat[low], 1))
     high = ~low
     if np.any(high):
         upper = _sqrt_curvature_integral(mixture, flat[high])

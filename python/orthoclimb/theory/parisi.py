@@ -61,10 +61,11 @@ from typing import Any
 
 import numpy as np
 
+from ..errors import NonFiniteError
 from ..model.arrays import as_float_array
 from ..model.mixture import Mixture
 from ..runtime import one_blas_thread
-from ._checks import check_count, check_mixture, check_positive
+from ._checks import check_count, check_mixture, check_positive, shown
 from ._parisi_fits import _confirm_fit, _explicit_start, _few_jumps
 from ._parisi_grid import _Grid, _solve, _split
 from ._parisi_moves import (
@@ -102,28 +103,54 @@ TOL_FLOOR = 1e-11
 
 def _check_step_function(B: Any, breakpoints: Any, alpha: Any, where: str):
     B = check_positive(B, where, "B")
-    q = as_float_array(breakpoints, f"{where}(): breakpoints")  # text, flag arrays, NaN: refused
+    # text, flags and non-finite entries are refused here, with the entry named
+    q = as_float_array(breakpoints, f"{where}(): breakpoints")
     a = as_float_array(alpha, f"{where}(): alpha")
-    if q.ndim != 1 or q.size < 2:
-        raise ValueError(f"{where}(): breakpoints must be a 1-d array 0 = q_0 < ... < q_K = 1")
-    if a.shape != (q.size - 1,):
-        raise ValueError(
-            f"{where}(): alpha needs one value per piece: {q.size - 1} for {q.size} breakpoints,"
-            f" got shape {a.shape}"
-        )
-    for label, values in (("breakpoints", q), ("alpha", a)):
-        if not np.all(np.isfinite(values)):
-            bad = int(np.flatnonzero(~np.isfinite(values))[0])
-            raise ValueError(
-                f"{where}(): {label} must be finite, got {label}[{bad}] = {float(values[bad])}"
-            )
-    if q[0] != 0.0 or q[-1] != 1.0 or np.any(np.diff(q) <= 0.0):
-        raise ValueError(
-            f"{where}(): breakpoints must increase strictly from 0 to 1, got {q.tolist()!r}"
-        )
-    if np.any(a < 0.0) or np.any(np.diff(a) < 0.0):
-        raise ValueError(f"{where}(): alpha must be nonnegative and nondecreasing, got {a!r}")
+    _check_breakpoints(q, where)
+    _check_alpha(a, q.size, where)
     return B, q, a
+
+
+def _check_breakpoints(q: np.ndarray, where: str) -> None:
+    """0 = q_0 < q_1 < ... < q_K = 1 with K >= 1; the message says what is wrong, shows q."""
+    if q.ndim != 1 or q.size < 2:
+        count = f"{q.size} entr{'y' if q.size == 1 else 'ies'}, at least 2 needed"
+        wrong = f"shape {q.shape}" if q.ndim != 1 else count
+    elif q[0] != 0.0:
+        wrong = f"breakpoints[0] = {float(q[0])!r} is not 0"
+    elif q[-1] != 1.0:
+        wrong = f"breakpoints[{q.size - 1}] = {float(q[-1])!r}, the last, is not 1"
+    elif np.any(np.diff(q) <= 0.0):
+        k = int(np.flatnonzero(np.diff(q) <= 0.0)[0]) + 1
+        wrong = (
+            f"breakpoints[{k}] = {float(q[k])!r} is not above"
+            f" breakpoints[{k - 1}] = {float(q[k - 1])!r}"
+        )
+    else:
+        return
+    raise ValueError(
+        f"{where}(): breakpoints must increase strictly from 0 to 1 (a 1-d array"
+        f" 0 = q_0 < ... < q_K = 1, K >= 1), got {shown(q)}: {wrong}"
+    )
+
+
+def _check_alpha(a: np.ndarray, size: int, where: str) -> None:
+    """One value per piece (``size`` - 1 of them), nonnegative and nondecreasing."""
+    if a.shape != (size - 1,):
+        raise ValueError(
+            f"{where}(): alpha needs one value per piece: {size - 1} for {size} breakpoints,"
+            f" got shape {a.shape}: alpha = {shown(a)}"
+        )
+    if a[0] < 0.0:
+        wrong = f"alpha[0] = {float(a[0])!r} is negative"
+    elif np.any(np.diff(a) < 0.0):
+        k = int(np.flatnonzero(np.diff(a) < 0.0)[0]) + 1
+        wrong = f"alpha[{k}] = {float(a[k])!r} is below alpha[{k - 1}] = {float(a[k - 1])!r}"
+    else:
+        return
+    raise ValueError(
+        f"{where}(): alpha must be nonnegative and nondecreasing, got {shown(a)}: {wrong}"
+    )
 
 
 def _theta(B: float, alpha: np.ndarray) -> np.ndarray:
@@ -136,20 +163,90 @@ def parisi_functional(mixture: Mixture, B: float, breakpoints: Any, alpha: Any) 
     ``alpha[j]`` is the value on [breakpoints[j], breakpoints[j+1]); breakpoints increase from 0 to
     1; alpha is nonnegative and nondecreasing; B > 0. Any such (B, alpha) gives an upper bound on
     the ground-state energy per spin.
+
+    P = xi'(1) B / 2 + int_0^1 xi'(q) alpha(q) dq / 2 + int_0^1 dq / (2 C(q)), C(q) = B +
+    int_q^1 alpha, grows without bound as B -> infinity (like xi'(1) B / 2) and, unless alpha
+    ends above 0, as B -> 0 (like 1 / (2 B)); it is computed for every finite B > 0 without
+    overflow in between, down to B = 5e-324. Where P itself exceeds float64's range (1.8e308),
+    NonFiniteError names B and the term that overflows: B above 2 * 1.8e308 / xi'(1), or B
+    below about 1e-308 with alpha near 0 at q = 1, or alpha above 2 * 1.8e308 / xi(1).
     """
     mixture = check_mixture(mixture, "parisi_functional")
     B, q, a = _check_step_function(B, breakpoints, alpha, "parisi_functional")
-    value, _ = _Grid(mixture, q).value_and_gradient(_theta(B, a), gradient=False)
+    grid = _Grid(mixture, q)
+    with np.errstate(over="ignore", invalid="ignore", divide="ignore"):
+        value, _ = grid.value_and_gradient(_theta(B, a), gradient=False)
+    if not math.isfinite(value):
+        raise _functional_overflow("parisi_functional", grid, B, a)
     return float(value)
 
 
 def parisi_gradient(mixture: Mixture, B: float, breakpoints: Any, alpha: Any) -> np.ndarray:
     """Exact gradient of :func:`parisi_functional` with respect to (B, d_1, ..., d_K), where
-    d_j = alpha[j] - alpha[j-1] (alpha[-1] = 0) are the increments the solver works with."""
+    d_j = alpha[j] - alpha[j-1] (alpha[-1] = 0) are the increments the solver works with.
+
+    dP/dB = (xi'(1) - int_0^1 dq / C(q)^2) / 2 and dP/dd_k = D(q_(k-1)) / 2 (D of the module
+    docstring); the 1/C^2 integrals are at most 1 / B^2, so every component is finite for
+    B >= 1e-153 whatever alpha, and is computed without overflow in between. For smaller B a
+    component may exceed float64's range (dP/dB = -1e323 at B = 5e-324 when alpha ends at 2);
+    NonFiniteError then names B and the components.
+    """
     mixture = check_mixture(mixture, "parisi_gradient")
     B, q, a = _check_step_function(B, breakpoints, alpha, "parisi_gradient")
-    _, grad = _Grid(mixture, q).value_and_gradient(_theta(B, a))
+    with np.errstate(over="ignore", invalid="ignore", divide="ignore"):
+        _, grad = _Grid(mixture, q).value_and_gradient(_theta(B, a))
+    if not np.all(np.isfinite(grad)):
+        raise _gradient_overflow("parisi_gradient", B, q, a, grad)
     return grad
+
+
+# float64's largest value, and the smallest B for which the 1/C terms of P and of its gradient
+# cannot overflow whatever alpha: int_0^1 dq / (2 C) <= 1 / (2 B) and int_0^1 dq / C^2 <= 1 / B^2
+# (C >= B), with a margin for the other terms (and B^2 not subnormal).
+_MAX = float(np.finfo(np.float64).max)
+_B_VALUE_FLOOR = 1e-308
+_B_GRADIENT_FLOOR = 1e-153
+
+
+def _functional_overflow(where: str, grid: _Grid, B: float, a: np.ndarray) -> NonFiniteError:
+    """The error for a P(B, alpha) beyond float64's range: its three terms, and for each one
+    that overflows by itself what keeps it finite."""
+    with np.errstate(over="ignore", invalid="ignore", divide="ignore"):
+        b_term, a_term, c_term = grid.half_terms(_theta(B, a))
+    hints = []
+    if math.isinf(b_term):
+        hints.append(f"B must be below 2 * {_MAX:.5g} / xi'(1) = {2.0 * (_MAX / grid.dxi1):.4g}")
+    if math.isinf(a_term):
+        top = 2.0 * (_MAX / grid.xi1)
+        hints.append(
+            f"alpha (up to {float(a[-1])!r}) must stay below 2 * {_MAX:.5g} / xi(1) = {top:.4g}"
+        )
+    if math.isinf(c_term):
+        hints.append(
+            f"C(q) = B + int_q^1 alpha(s) ds >= B is too small near q = 1: B >= {_B_VALUE_FLOOR:g}"
+            " keeps that term finite whatever alpha (it is at most 1 / (2 B))"
+        )
+    if not hints:
+        hints.append(f"their sum exceeds {_MAX:.5g}: lower B or alpha")
+    return NonFiniteError(
+        f"{where}(): P(B, alpha) overflows float64 at B = {B!r} with alpha = {shown(a)}:"
+        f" xi'(1) B / 2 = {b_term:.4g}, int_0^1 xi'(q) alpha(q) dq / 2 = {a_term:.4g},"
+        f" int_0^1 dq / (2 C(q)) = {c_term:.4g}; " + "; ".join(hints)
+    )
+
+
+def _gradient_overflow(
+    where: str, B: float, q: np.ndarray, a: np.ndarray, grad: np.ndarray
+) -> NonFiniteError:
+    """The error for a gradient of P beyond float64's range, which only a small B can cause."""
+    bad = np.flatnonzero(~np.isfinite(grad))
+    return NonFiniteError(
+        f"{where}(): the gradient of P overflows float64 at B = {B!r} with breakpoints ="
+        f" {shown(q)} and alpha = {shown(a)}: component(s) {bad.tolist()} (0 for B, k for d_k)"
+        f" = {shown(grad[bad])}: each is a xi term minus half an integral over [0, 1] of at most"
+        f" 1 / C(q)^2, C(q) = B + int_q^1 alpha(s) ds >= B; B >= {_B_GRADIENT_FLOOR:g} keeps"
+        " every component finite whatever alpha"
+    )
 
 
 @dataclass(frozen=True, eq=False)
