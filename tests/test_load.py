@@ -29,17 +29,24 @@ def test_another_process_spinning_adds_to_the_reading():
     # a child in a busy loop takes up to a core; this process sleeps meanwhile. Compared
     # with readings just before and after, not with 0: a shared machine's own load is in
     # all of them (a review saw 1.0-1.9 cores of it). Under that load the child gets less
-    # than a core, hence the margin of 0.3
-    before = _sleeping_reading()
-    child = subprocess.Popen([sys.executable, "-c", "while True: pass"])
-    try:
-        time.sleep(0.3)  # the child is running its loop
-        spinning = _sleeping_reading(1.0)
-    finally:
-        child.kill()
-        child.wait()
-    after = _sleeping_reading()
-    assert spinning >= max(before, after) + 0.3, (before, spinning, after)
+    # than a core, hence the margin of 0.3. Load that starts between the readings (a test
+    # run beside this one made "after" 1.3 cores) can hide the child once, so up to three
+    # tries; a measure blind to the child fails all three
+    tries = []
+    for _ in range(3):
+        before = _sleeping_reading()
+        child = subprocess.Popen([sys.executable, "-c", "while True: pass"])
+        try:
+            time.sleep(0.3)  # the child is running its loop
+            spinning = _sleeping_reading(1.0)
+        finally:
+            child.kill()
+            child.wait()
+        after = _sleeping_reading()
+        tries.append((before, spinning, after))
+        if spinning >= max(before, after) + 0.3:
+            return
+    pytest.fail(f"no try saw the child: (before, spinning, after) = {tries}")
 
 
 @linux_only
