@@ -66,9 +66,9 @@ pub enum CoreError {
         dtype: &'static str,
         largest: f64,
     },
-    /// Sampled coefficients of degree p would mostly fall below the storage type's normal
-    /// range (their smallest standard deviation, sqrt(n) gamma, is below it), where they lose
-    /// their precision or round to zero.
+    /// Sampled coefficients would nearly all fall below the storage type's normal range: the
+    /// largest standard deviation of any of them (`scale`, of degree p) is below it, where
+    /// they lose their precision or round to zero.
     StoragePrecision {
         p: usize,
         gamma: f64,
@@ -179,10 +179,10 @@ impl fmt::Display for CoreError {
             } => {
                 write!(
                     f,
-                    "gamma = {gamma:?} for p = {p} at n = {n}: sampled coefficients of typical \
-                     size {scale:.4e} fall below {dtype}'s normal range (smallest normal \
-                     {smallest:.4e}), where they lose their precision or round to zero; scale \
-                     the mixture up"
+                    "gamma = {gamma:?} for p = {p} at n = {n}, the mixture's largest term: no \
+                     sampled coefficient has a standard deviation above {scale:.4e}, below \
+                     {dtype}'s normal range (smallest normal {smallest:.4e}), where nearly all \
+                     would lose their precision or round to zero; scale the mixture up"
                 )?;
                 if *dtype != "float64" {
                     write!(f, " or store them with dtype=\"float64\"")?;

@@ -117,6 +117,16 @@ pub fn largest_gaussian() -> f64 {
     (-2.0 * libm::log(SCALE)).sqrt()
 }
 
+/// The largest standard deviation of a coefficient of the degree-p block, sqrt(n c_max)
+/// gamma, with c_max = max_m c(m) = p! / prod_i m_i! at the most even multiplicities (p!
+/// when n >= p: all indices distinct, as most of the block's are).
+pub fn largest_deviation(n: usize, p: usize, gamma: f64) -> f64 {
+    let (q, r) = (p / n.max(1), p % n.max(1)); // r indices taken q + 1 times, the rest q
+    let fact = |k: usize| factorial(k) as f64;
+    let c_max = fact(p) / (fact(q + 1).powi(r as i32) * fact(q).powi((n.max(1) - r) as i32));
+    (n as f64 * c_max).sqrt() * gamma
+}
+
 /// A bound on |a_m| over the whole degree-p block:
 ///
 /// ```text
@@ -276,6 +286,35 @@ mod tests {
                 advance(&mut idx[..p], n);
             }
             done += len;
+        }
+    }
+
+    /// The largest standard deviation is sqrt(n max_m c(m)) gamma, the maximum taken over
+    /// every multiset by brute force (n below, at and above p).
+    #[test]
+    fn largest_deviation_takes_the_largest_multinomial() {
+        for (n, p) in [
+            (1usize, 3usize),
+            (2, 5),
+            (3, 3),
+            (3, 7),
+            (5, 2),
+            (9, 4),
+            (4, 8),
+        ] {
+            let c_max = (0..num_multisets(n, p).unwrap())
+                .map(|r| {
+                    let mut m = vec![0; p];
+                    unrank(n, p, r, &mut m);
+                    orderings(&m) as f64
+                })
+                .fold(0.0, f64::max);
+            let want = (n as f64 * c_max).sqrt() * 0.5;
+            let got = largest_deviation(n, p, 0.5);
+            assert!(
+                (got - want).abs() <= 1e-15 * want,
+                "n {n} p {p}: {got} vs {want}"
+            );
         }
     }
 

@@ -135,9 +135,10 @@ class Hamiltonian:
         ``correlated_with=(seed0, rho)`` every Gaussian is rho g(seed0) + sqrt(1-rho^2) g(seed),
         which is an instance correlated with ``sample(mixture, n, seed0)`` at level rho.
         ``dtype="float32"`` halves the storage; kernels still accumulate in float64.
-        A gamma whose coefficients would leave the storage type's range is refused: beyond
-        its largest value, or with sqrt(n) gamma (a coefficient's smallest standard
-        deviation) below its smallest normal number, where most would be subnormal or zero.
+        A mixture whose coefficients would leave the storage type's range is refused: any
+        beyond its largest value, or all below its normal range (the largest standard
+        deviation of any coefficient, sqrt(n p!) gamma_p, under its smallest normal number),
+        where nearly all would be stored as subnormals or zero.
         Storage is checked against the available memory first (``check_memory=False`` skips
         that check; the allocation itself still fails cleanly if the system refuses).
         ``progress=True`` shows a tqdm bar on stderr counting the coefficients written, once
