@@ -9,8 +9,14 @@ from pathlib import Path
 import numpy as np
 import pytest
 
-from orthoclimb.errors import OutputPathError
-from orthoclimb.fileio import ensure_folder, write_atomic, write_json_atomic, write_text_atomic
+from orthoclimb.errors import InstanceFileError, OutputPathError, ResultFileError
+from orthoclimb.fileio import (
+    ensure_folder,
+    pair_paths,
+    write_atomic,
+    write_json_atomic,
+    write_text_atomic,
+)
 
 
 def test_replaces_the_file_and_leaves_no_temporary(tmp_path):
@@ -451,7 +457,8 @@ def test_a_path_with_a_nul_character_is_named_and_bytes_paths_work(tmp_path):
 
 
 def test_an_empty_path_is_named(tmp_path, monkeypatch):
-    # load_result("") and load_instance("") said "PosixPath('.') has an empty name"
+    # load_result("") and load_instance("") said "PosixPath('.') has an empty name", and so
+    # did ".", "./" and Path("") (a review)
     import orthoclimb as oc
 
     monkeypatch.chdir(tmp_path)
@@ -461,6 +468,14 @@ def test_an_empty_path_is_named(tmp_path, monkeypatch):
         for empty in ("", b""):
             with pytest.raises(ValueError, match="a file path cannot be empty"):
                 call(empty)
+    # and a path that ends in no file name is told so: a folder where a file was meant
+    for nameless in (".", "./", Path(""), ".."):
+        with pytest.raises(ResultFileError, match="it is a folder; give the stem"):
+            oc.load_result(nameless)
+        with pytest.raises(InstanceFileError, match="it is a folder; give the instance's"):
+            oc.load_instance(nameless)
+    with pytest.raises(ValueError, match="must end in a file name, got '..'"):
+        pair_paths("..")
     assert list(tmp_path.iterdir()) == []
 
 

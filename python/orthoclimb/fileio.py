@@ -364,8 +364,11 @@ def checked_path(path: Any) -> str:
 
 def pair_paths(path: str | os.PathLike) -> tuple[Path, Path]:
     """``(<stem>.json, <stem>.npz)`` of a file pair, the stem being ``path`` less a ``.json``
-    or ``.npz`` suffix (so the stem or either file name may be given)."""
+    or ``.npz`` suffix (so the stem or either file name may be given). A path that ends in
+    no file name (".", "..", "/") is a ValueError."""
     p = Path(checked_path(path))
+    if p.name in ("", ".", ".."):  # Path.with_name said "PosixPath('.') has an empty name"
+        raise ValueError(f"a file path must end in a file name, got {str(path)!r}")
     stem = p.with_suffix("") if p.suffix in (".json", ".npz") else p
     return stem.with_name(stem.name + ".json"), stem.with_name(stem.name + ".npz")
 

@@ -21,6 +21,7 @@ from __future__ import annotations
 import hashlib
 import math
 import os
+import reprlib
 import zipfile
 from dataclasses import dataclass, field
 from pathlib import Path
@@ -203,10 +204,17 @@ class Result:
         )
 
 
+_FLOAT_MAX = float(np.finfo(np.float64).max)
+
+
 def _is_real(value: Any) -> bool:
-    return isinstance(value, (int, float, np.integer, np.floating)) and not isinstance(
-        value, (bool, np.bool_)
-    )
+    """A real number a result file can hold: no flag, and no integer beyond float64 (which
+    :func:`load_result` refuses)."""
+    if isinstance(value, (bool, np.bool_)):
+        return False
+    if isinstance(value, (int, np.integer)):
+        return abs(int(value)) <= _FLOAT_MAX
+    return isinstance(value, (float, np.floating))
 
 
 def _check_saveable(result: Result) -> None:
@@ -223,9 +231,14 @@ def _check_saveable(result: Result) -> None:
             "cannot save the result: x must be a 1-D array of finite numbers, got"
             f" {np.array2string(x, threshold=6) if x.dtype.kind != 'O' else repr(result.x)}"
         )
-    if result.energy is not None and not _is_real(result.energy):
-        raise TypeError(f"cannot save the result: energy must be a number, got {result.energy!r}")
-    if not _is_real(result.seconds) or not 0 <= result.seconds < math.inf:
+    for name in ("energy", "seconds"):
+        value = getattr(result, name)
+        if not (_is_real(value) or (name == "energy" and value is None)):
+            raise TypeError(
+                f"cannot save the result: {name} must be a number within float64's range,"
+                f" got {reprlib.repr(value)}"
+            )
+    if not 0 <= result.seconds < math.inf:
         raise ValueError(
             f"cannot save the result: seconds must be a finite number >= 0, got {result.seconds!r}"
         )
@@ -235,7 +248,10 @@ def _check_saveable(result: Result) -> None:
             raise TypeError(f"cannot save the result: {name} must be a dict, got {value!r}")
     lengths = set()
     for column, values in result.path.items():
-        col = np.asarray(values)
+        try:
+            col = np.asarray(values)
+        except ValueError:  # rows of unequal length
+            col = np.asarray(values, dtype=object)
         if col.ndim != 1 or (col.size and col.dtype.kind not in "iuf"):
             raise ValueError(
                 f"cannot save the result: path column {column!r} must be a 1-D array of"
@@ -250,8 +266,6 @@ def _check_saveable(result: Result) -> None:
 def _fail(path: Path, why: str) -> ResultFileError:
     return ResultFileError(f"cannot load the result {str(path)!r}: {why}")
 
-
-_FLOAT_MAX = float(np.finfo(np.float64).max)
 
 _PAYLOAD_TYPES: dict[str, tuple[type, ...]] = {
     "energy": (int, float, type(None)),
@@ -296,15 +310,24 @@ def _column(values: list) -> np.ndarray:
     return out
 
 
+def _pair_beside(folder: str) -> bool:
+    """Whether ``<folder>.json`` stands beside the folder (".", ".." and "/" have none)."""
+    try:
+        return pair_paths(folder)[0].exists()
+    except ValueError:
+        return False
+
+
 def load_result(path: str | os.PathLike) -> Result:
     """Read a result written by :meth:`Result.save` (give the stem or either file name)."""
-    json_path, npz_path = pair_paths(path)
     given = checked_path(path)
-    if is_folder(given) and not json_path.exists():  # a climb --out folder given for its result
+    # a climb --out folder given for its result (unless <folder>.json stands beside it)
+    if is_folder(given) and not _pair_beside(given):
         raise ResultFileError(
             f"cannot load the result {given!r}: it is a folder; give the stem of the result in"
             f" it, e.g. {str(Path(given) / 'result')!r}"
         )
+    json_path, npz_path = pair_paths(path)
     try:
         text = json_path.read_text(encoding="utf-8")
     except FileNotFoundError:

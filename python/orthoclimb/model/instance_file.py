@@ -415,12 +415,12 @@ def load_instance(path: str | os.PathLike, check_memory: bool = True) -> Hamilto
     :class:`~orthoclimb.errors.InstanceFileError` naming the file and the problem.
     """
     check_memory = as_flag(check_memory, "check_memory")
-    json_path, npz_path = pair_paths(path)  # checks the path's type first
-    if is_folder(checked_path(path)):
+    if is_folder(checked_path(path)):  # checks the path's type first
         raise _fail(
             Path(checked_path(path)),
             "it is a folder; give the instance's file (NAME.json) or its stem NAME",
         )
+    json_path, npz_path = pair_paths(path)
     payload = _read_payload(json_path)
     kind = payload.get("kind")
     if kind == "recipe":
