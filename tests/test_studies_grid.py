@@ -644,6 +644,18 @@ def test_spec_from_flags_refuses_arguments_of_the_wrong_type_by_name(kwargs, wor
         spec_from_flags(**{**given, "methods": "gradient", **kwargs})
 
 
+def test_spec_from_flags_takes_an_exponent_as_fraction_or_decimal():
+    # the type check above refused Fraction(2, 3) and Decimal("0.5"), which parse_exponent
+    # had read through their text (a review)
+    from decimal import Decimal
+    from fractions import Fraction
+
+    given = {"gammas": ["3:1"], "xi": None, "sizes": "10,20", "seeds": "0-1"}
+    for exponent, want in ((Fraction(2, 3), 2 / 3), (Decimal("0.5"), 0.5), (np.float32(1), 1.0)):
+        spec = spec_from_flags(**given, methods="gradient", exponent=exponent)
+        assert spec.exponent == pytest.approx(want, rel=1e-15), exponent
+
+
 def test_an_empty_method_item_is_refused_as_in_seeds_and_sizes(tmp_path, capsys):
     # a review: --methods "hessian,,gradient" dropped the empty item, while --n 10,,20 and
     # --seeds 0,,1 were refused

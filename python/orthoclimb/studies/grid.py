@@ -9,7 +9,9 @@ sphere, maximized.
 
 from __future__ import annotations
 
+import decimal
 import math
+import numbers
 import sys
 import unicodedata
 from collections.abc import Iterable, Mapping
@@ -543,15 +545,15 @@ def spec_from_flags(
 
 def _check_option_types(method_options: object, exponent: object) -> None:
     """A TypeError naming ``method_options`` of :func:`spec_from_flags` when it is no mapping
-    (or None), and ``exponent`` when it is neither a number nor text (a flag: True was read as
-    the exponent 1)."""
+    (or None), and ``exponent`` when it is neither a real number (Fraction and Decimal
+    included) nor text (a flag: True was read as the exponent 1)."""
     if method_options is not None and not isinstance(method_options, Mapping):
         raise TypeError(
             "method_options must map a method's name to its options, like"
             f" {{'hessian': {{'steps': 50}}}}, got {method_options!r}"
         )
-    number = (str, int, float, np.integer, np.floating)
-    if isinstance(exponent, bool) or not isinstance(exponent, number):
+    number = (str, numbers.Real, decimal.Decimal)
+    if isinstance(exponent, (bool, np.bool_)) or not isinstance(exponent, number):
         raise TypeError(f"exponent must be a number or text like '2/3', got {exponent!r}")
 
 
