@@ -276,13 +276,14 @@ def test_bad_entries_of_a_q_array_are_named_with_their_index(function):
 
 def test_path_energy_with_a_field_at_the_smallest_q():
     # E_path(q) = sqrt(q xi'(q)) below q_hat; q xi'(q) = 5e-324 * 0.16 underflowed to 0, and so
-    # did E_path, whose value 8.9e-163 is a normal float. Reference: the same formula with the
-    # square root taken of each factor, in exact decimal arithmetic.
-    from decimal import Decimal, getcontext
+    # did E_path, whose value 8.9e-163 is a normal float. Reference: the same formula in
+    # 40-digit decimal arithmetic, where q xi'(q) does not underflow.
+    from decimal import Decimal, localcontext
 
-    getcontext().prec = 40
     mixture = Mixture({1: 0.4, 2: 1.0})
     q = 5e-324
-    slope = Decimal(0.4) ** 2 + 2 * Decimal(q)  # xi'(q) = gamma_1^2 + 2 gamma_2^2 q
-    expected = float((Decimal(q) * slope).sqrt())
+    with localcontext() as ctx:
+        ctx.prec = 40
+        slope = Decimal(0.4) ** 2 + 2 * Decimal(q)  # xi'(q) = gamma_1^2 + 2 gamma_2^2 q
+        expected = float((Decimal(q) * slope).sqrt())
     assert path_energy(mixture, q) == pytest.approx(expected, rel=1e-15, abs=0.0)

@@ -4,6 +4,7 @@ from __future__ import annotations
 
 import json
 import math
+import re
 import time
 
 import numpy as np
@@ -843,6 +844,13 @@ def test_the_gradient_at_b_1e_308_is_its_exact_value():
     ]
     grad = _no_warnings(parisi_gradient, _CUBIC, B, *_STEP)
     np.testing.assert_allclose(grad, expected, rtol=1e-13)
+    # alpha = 0 on one piece: C = B, so dP/dB = (3 - 1 / B^2) / 2 and dP/dd_1 = D(0) / 2 =
+    # (1 - 1 / (2 B^2)) / 2, finite at B = 6e-155 although 1 / B^2 = 2.8e308 is not (its
+    # square was taken before halving: NonFiniteError; a review)
+    B = 6e-155
+    grad = _no_warnings(parisi_gradient, _CUBIC, B, [0.0, 1.0], [0.0])
+    expected = [1.5 - (0.5 / B) * (1.0 / B), 0.5 - (0.25 / B) * (1.0 / B)]
+    np.testing.assert_allclose(grad, expected, rtol=1e-14)
 
 
 @pytest.mark.parametrize(
@@ -880,7 +888,7 @@ def test_extreme_alpha_and_close_breakpoints_give_the_exact_values(
         ),
         # alpha = 0: P = (3 B + 1 / B) / 2 = 1e323 (it returned inf)
         (lambda: parisi_functional(_CUBIC, 5e-324, [0.0, 1.0], [0.0]), r"B = 5e-324.*B >= 1e-308"),
-        # dP/dB = (3 - (1 / B - 1 / (B + 1)) / 2) / 2 = -1e323 (it returned [-inf, nan, nan])
+        # dP/dB = (3 - (1 / B - 1 / (B + 1)) / 2) / 2 = -5e322 (it returned [-inf, nan, nan])
         (lambda: parisi_gradient(_CUBIC, 5e-324, *_STEP), r"B = 5e-324.*B >= 1e-153"),
     ],
 )
@@ -889,18 +897,47 @@ def test_results_beyond_float64_are_refused_naming_b_and_the_range(call, words):
         _no_warnings(call)
 
 
+def _decimal_functional(B, q, alpha):
+    """P(B, alpha) for xi = q^3 in 60-digit decimal arithmetic, from the module doc's closed
+    forms: on a piece of constant alpha = a and length d, whose right end has C_r, the xi term
+    is a (q_j^3 - q_(j-1)^3) and int dq / C = log1p(x) / a, x = a d / C_r (d / C_r at a = 0;
+    log1p by its series below x = 1e-15, where 1 + x would round to 1)."""
+    from decimal import Decimal, localcontext
+
+    with localcontext() as ctx:
+        ctx.prec = 60
+        b, qs, alphas = Decimal(B), [Decimal(v) for v in q], [Decimal(v) for v in alpha]
+        total, c_right = 3 * b, b
+        for j in reversed(range(len(alphas))):
+            a, d = alphas[j], qs[j + 1] - qs[j]
+            total += a * (qs[j + 1] ** 3 - qs[j] ** 3)
+            x = a * d / c_right
+            log1p = x - x**2 / 2 + x**3 / 3 - x**4 / 4 if x < Decimal("1e-15") else (1 + x).ln()
+            total += log1p / a if a > 0 else d / c_right
+            c_right += a * d
+        return total / 2
+
+
 @pytest.mark.parametrize("B", [1e-153, 1e-200, 1e-300, 5e-324, 1.0, 1e308])
 @pytest.mark.parametrize("alpha", [[0.0, 0.0], [5e-324, 5e-324], [0.0, 1e-300], [1.0, 1e308]])
 def test_extreme_inputs_give_a_finite_result_or_a_non_finite_error(B, alpha):
-    # never NaN or inf, never a NumPy warning; at B >= 1e-153 the gradient is always finite
-    for function in (parisi_functional, parisi_gradient):
-        try:
-            out = _no_warnings(function, _CUBIC, B, [0.0, 1e-300, 1.0], alpha)
-        except NonFiniteError as exc:
-            assert f"B = {B!r}" in str(exc)
-            assert function is parisi_functional or B < 1e-153
-        else:
-            assert np.all(np.isfinite(out))
+    # never NaN or inf, never a NumPy warning. The functional is its 60-digit value (within
+    # 1e-14, a few roundings of float64) wherever that value is a float64, and refused
+    # exactly where it is not; at B >= 1e-153 the gradient is always finite
+    breakpoints = [0.0, 1e-300, 1.0]
+    exact = _decimal_functional(B, breakpoints, alpha)
+    if abs(exact) > np.finfo(np.float64).max:
+        with pytest.raises(NonFiniteError, match=re.escape(f"B = {B!r}")):
+            _no_warnings(parisi_functional, _CUBIC, B, breakpoints, alpha)
+    else:
+        got = _no_warnings(parisi_functional, _CUBIC, B, breakpoints, alpha)
+        assert got == pytest.approx(float(exact), rel=1e-14)
+    try:
+        grad = _no_warnings(parisi_gradient, _CUBIC, B, breakpoints, alpha)
+    except NonFiniteError as exc:
+        assert f"B = {B!r}" in str(exc) and B < 1e-153
+    else:
+        assert np.all(np.isfinite(grad))
 
 
 @pytest.mark.parametrize(

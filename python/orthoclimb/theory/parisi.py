@@ -188,7 +188,7 @@ def parisi_gradient(mixture: Mixture, B: float, breakpoints: Any, alpha: Any) ->
     dP/dB = (xi'(1) - int_0^1 dq / C(q)^2) / 2 and dP/dd_k = D(q_(k-1)) / 2 (D of the module
     docstring); the 1/C^2 integrals are at most 1 / B^2, so every component is finite for
     B >= 1e-153 whatever alpha, and is computed without overflow in between. For smaller B a
-    component may exceed float64's range (dP/dB = -1e323 at B = 5e-324 when alpha ends at 2);
+    component may exceed float64's range (dP/dB = -5e322 at B = 5e-324 when alpha ends at 2);
     NonFiniteError then names B and the components.
     """
     mixture = check_mixture(mixture, "parisi_gradient")
