@@ -221,7 +221,7 @@ def _slope_in_n(slope: float, shift: int, top: float, exponent: float) -> float:
     if not math.isfinite(out):
         raise ValueError(
             f"the slope a of e_inf + a n^(-{exponent}) leaves float64's range: n^(-{exponent})"
-            f" is at most {math.ldexp(top, -shift):.3g} at these sizes, so a would be above"
+            f" is at most {math.ldexp(top, -shift):.3g} at these sizes, so |a| would exceed"
             f" {sys.float_info.max:.3g}"
         )
     return out
@@ -303,23 +303,24 @@ def _fit_p(
     return float((1 + np.count_nonzero(chi2_rep >= chi2)) / (reps + 1))
 
 
-# The level below which the Student stretch is its limit as the level goes to 0 (module doc):
-# t_nu(q) / z(q) = phi(0) / f_nu(0) (1 + c level^2), c at most (pi^2 - pi)/12 = 0.56 (at nu =
-# 1, the least Welch's nu can be), so within 6e-13 of it here, while the quantiles at q =
-# (1 + level)/2 lose digits to q's rounding (3.7e-11 of the ratio at level 1e-6, nu = 1).
+# The level below which the Student stretch is its limit as the level goes to 0: t_nu(q) /
+# z(q) = phi(0) / f_nu(0) (1 + c level^2), c at most (pi^2 - pi)/12 = 0.56 (at nu = 1, the
+# least Welch's nu can be), so within 6e-13 of it here, while the quantiles at q = (1 +
+# level)/2 lose digits to q's rounding (3.7e-11 of the ratio at level 1e-6, nu = 1).
 SMALL_LEVEL = 1e-6
 
 
 def student_stretch(level: float, nu: float) -> float:
     """t_nu(q) / z(q), q = (1 + level)/2, the factor by which the interval's arms are
     stretched (module doc), for ``level`` in (0, 1) and ``nu`` >= 1; below ``SMALL_LEVEL``,
-    its limit phi(0) / f_nu(0) as the level goes to 0, the ratio of the normal and Student
-    densities at 0."""
+    its limit as the level goes to 0 (module doc)."""
     if level < SMALL_LEVEL:
         return float(stats.norm.pdf(0.0) / stats.t.pdf(0.0, nu))
-    # the upper tails' quantiles: q = 1 - alpha rounded to 1 above level 1 - 1.2e-16, where
-    # t.ppf(q) / norm.ppf(q) was inf/inf
     alpha = (1.0 - level) / 2.0
+    if alpha >= SMALL_LEVEL:  # the quantiles as before, so intervals keep their bits
+        return float(stats.t.ppf(1.0 - alpha, nu) / stats.norm.ppf(1.0 - alpha))
+    # near level 1 the upper tails' quantiles: 1 - alpha loses alpha's digits (1e-4 of the
+    # stretch at level 1 - 1e-12), and rounds to 1 above level 1 - 1.2e-16 (inf/inf)
     return float(stats.t.isf(alpha, nu) / stats.norm.isf(alpha))
 
 
