@@ -342,7 +342,10 @@ def _warn_if_coarse(mixture: Mixture | None, delta: float) -> None:
         part = f"{share:.3g} times" if share >= 1.0 else f"{100 * share:.3g} % of"
         if math.isinf(share):  # past float64 (tol = 1e308): written from the logarithms
             lg = math.log10(delta / 2.0) - math.log10(alg)
-            part = f"{10 ** (lg % 1):.3g}e+{math.floor(lg)} times"
+            mantissa, power = round(10 ** (lg % 1), 2), math.floor(lg)
+            if mantissa >= 10.0:  # 9.996 rounds up to the next power of ten
+                mantissa, power = mantissa / 10.0, power + 1
+            part = f"{mantissa:.3g}e+{power} times"
         warnings.warn(
             f"hessian_ascent: tol = {delta:.3g} lets the run lose up to tol/2 ="
             f" {delta / 2:.3g} energy per spin, {part} ALG = {alg:.3g};"

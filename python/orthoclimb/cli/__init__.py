@@ -4,9 +4,10 @@ Each subcommand lives in its own module with two functions: ``add_arguments(pars
 ``run(args) -> int``. Bad input (any ValueError/TypeError raised while running) is reported as
 ``orthoclimb: error: ...`` with exit code 2, like argparse's own usage errors (an output
 folder that cannot be made too: OutputPathError is a ValueError); any other file-system
-failure (OSError: a full disk, say) the same way with exit code 1. A warning raised while a
-command runs is printed as one line, ``orthoclimb COMMAND: warning: ...``, without Python's
-file and source line (:func:`user_warnings`; callers of the library keep Python's display).
+failure (OSError: a full disk, say) the same way with exit code 1. A warning raised in this
+process while a command runs is printed as one line, ``orthoclimb COMMAND: warning: ...``,
+without Python's file and source line (:func:`user_warnings`; callers of the library keep
+Python's display, and so do a sweep's worker processes).
 """
 
 from __future__ import annotations
