@@ -167,6 +167,27 @@ def test_hessian_edge_formula_and_shapes():
     assert path_energy(mixture, np.array([])).shape == (0,)
 
 
+@pytest.mark.parametrize(
+    ("gammas", "q", "expected"),
+    [
+        # xi = q^4: 2 sqrt(12 q^2) = 4 sqrt(3) q; 12 q^2 underflowed to 0 (a review)
+        ({4: 1.0}, 1e-200, 4.0 * math.sqrt(3.0) * 1e-200),
+        # xi = q^5 + q^7 / 4: 2 sqrt(20 q^3 + 10.5 q^5) = 2 sqrt(20) q sqrt(q) at q = 1e-110,
+        # where 20 q^3 = 2e-329 underflowed to 0
+        ({5: 1.0, 7: 0.5}, 1e-110, 2.0 * math.sqrt(20.0) * 1e-110 * math.sqrt(1e-110)),
+        # xi = q^6 / 4: 2 sqrt(7.5 q^4) = 2 sqrt(7.5) q^2 = 1.1e-299, q^4 = 1e-600 underflowed
+        ({6: 0.5}, 1e-150, 2.0 * math.sqrt(7.5) * 1e-300),
+    ],
+)
+def test_hessian_edge_at_tiny_q_is_exact(gammas, q, expected):
+    # exact identities of 2 sqrt(xi''(q)) with the lowest power of q taken out of the root
+    assert hessian_edge(Mixture(gammas), q) == pytest.approx(expected, rel=1e-14, abs=0.0)
+    # an array with ordinary entries beside keeps their bits (2 sqrt(xi''(q)) as before)
+    mixture = Mixture(gammas)
+    both = hessian_edge(mixture, np.array([q, 0.5]))
+    assert both[1] == 2.0 * math.sqrt(mixture.xi(0.5, 2))
+
+
 def test_hessian_edge_matches_a_sampled_two_spin_hessian():
     # For xi = gamma^2 q^2 the Hessian of H(x) = sqrt(n) gamma x^T J x is sqrt(n) gamma (J + J^T),
     # a Gaussian symmetric matrix with off-diagonal variance 2 n gamma^2: semicircle edge
