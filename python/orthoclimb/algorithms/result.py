@@ -246,7 +246,7 @@ def _check_saveable(result: Result) -> None:
         value = getattr(result, name)
         if not isinstance(value, dict):
             raise TypeError(f"cannot save the result: {name} must be a dict, got {value!r}")
-    lengths = set()
+    lengths = {}
     for column, values in result.path.items():
         try:
             col = np.asarray(values)
@@ -257,10 +257,9 @@ def _check_saveable(result: Result) -> None:
                 f"cannot save the result: path column {column!r} must be a 1-D array of"
                 f" numbers, got {np.array2string(col, threshold=6)}"
             )
-        lengths.add(col.size)
-    if len(lengths) > 1:
-        sizes = {str(k): np.asarray(v).size for k, v in result.path.items()}
-        raise ValueError(f"cannot save the result: path columns differ in length: {sizes}")
+        lengths[str(column)] = col.size
+    if len(set(lengths.values())) > 1:
+        raise ValueError(f"cannot save the result: path columns differ in length: {lengths}")
 
 
 def _fail(path: Path, why: str) -> ResultFileError:
