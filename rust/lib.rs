@@ -11,6 +11,7 @@ mod avx2;
 #[cfg(target_arch = "x86_64")]
 mod avx512;
 pub mod batch;
+pub mod boxmuller;
 mod cache;
 pub mod combinatorics;
 pub mod error;

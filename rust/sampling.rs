@@ -17,7 +17,8 @@
 //! (796 of 1353400 coefficients of a p = 3, n = 200 instance, when this used them), so the
 //! same seed gave other last bits on a machine without FMA. Instances sampled by version
 //! 0.1.0, which used them, differ from today's in the last bit of about 6 % of their
-//! coefficients. The stored coefficient is
+//! coefficients. The transform runs on vectors ([`crate::boxmuller`]), by exactly the
+//! operations of those `libm` functions, so it gives their bits. The stored coefficient is
 //!
 //! ```text
 //! a_m = sqrt(n) * gamma_p * sqrt(c(m)) * g_m,   c(m) = p! / prod_i mult_i(m)!,
@@ -31,6 +32,7 @@ use rand_chacha::ChaCha12Rng;
 use rand_core::{Rng, SeedableRng};
 use rayon::prelude::*;
 
+use crate::boxmuller::{transform_pairs, uniforms, SCALE};
 use crate::combinatorics::{advance, factorial, orderings_denominator, unrank, MAX_DEGREE};
 use crate::error::CoreError;
 use crate::exec::{on_pool, Exec};
@@ -41,8 +43,6 @@ use crate::storage::Coef;
 const CHUNK: usize = 1 << 15;
 /// Gaussians generated per inner batch (stack buffer).
 const BATCH: usize = 512;
-/// 2^-53: the spacing of the uniforms, and the smallest u1.
-const SCALE: f64 = 1.0 / (1u64 << 53) as f64;
 
 /// Which Gaussians to draw: those of `seed`, optionally correlated with those of another seed.
 #[derive(Debug, Clone, Copy, PartialEq)]
@@ -77,6 +77,9 @@ fn key(seed: u64) -> [u8; 32] {
     k
 }
 
+/// Box–Muller pairs per refill of the word buffer in [`gaussians`].
+const PAIRS: usize = 128;
+
 /// Writes the standard Gaussians g_r, r in [r0, r0 + out.len()), of stream (seed, p).
 pub fn gaussians(seed: u64, p: usize, r0: usize, out: &mut [f64]) {
     if out.is_empty() {
@@ -84,29 +87,36 @@ pub fn gaussians(seed: u64, p: usize, r0: usize, out: &mut [f64]) {
     }
     let mut rng = ChaCha12Rng::from_seed(key(seed));
     rng.set_stream(p as u64);
-    let k0 = r0 / 2;
-    rng.set_word_pos(4 * k0 as u128);
+    rng.set_word_pos(4 * (r0 / 2) as u128);
+    let mut bytes = [0u8; 16 * PAIRS];
+    let (mut u1, mut u2) = ([0f64; PAIRS], [0f64; PAIRS]);
+    let (mut g0, mut g1) = ([0f64; PAIRS], [0f64; PAIRS]);
+    let mut other = [false; PAIRS];
+    let mut flat = [0f64; 2 * PAIRS];
+    let mut skip = r0 % 2; // an odd r0 drops the first Gaussian of its pair
     let mut pos = 0usize;
-    let mut skip_first = r0 % 2 == 1;
-    const TAU: f64 = std::f64::consts::TAU;
     while pos < out.len() {
-        let w1 = rng.next_u64();
-        let w2 = rng.next_u64();
-        let u1 = ((w1 >> 11) + 1) as f64 * SCALE;
-        let u2 = (w2 >> 11) as f64 * SCALE;
-        let radius = (-2.0 * libm::log(u1)).sqrt();
-        let (s, c) = libm::sincos(TAU * u2);
-        if skip_first {
-            skip_first = false;
-        } else {
-            out[pos] = radius * c;
-            pos += 1;
-            if pos == out.len() {
-                break;
-            }
+        let pairs = PAIRS.min((skip + out.len() - pos).div_ceil(2));
+        // the stream's 32-bit words in order, two to a little-endian u64 (as next_u64 reads)
+        rng.fill_bytes(&mut bytes[..16 * pairs]);
+        for (i, b) in bytes[..16 * pairs].chunks_exact(16).enumerate() {
+            let word = |k: usize| u64::from_le_bytes(b[k..k + 8].try_into().expect("8 bytes"));
+            (u1[i], u2[i]) = uniforms(word(0), word(8));
         }
-        out[pos] = radius * s;
-        pos += 1;
+        transform_pairs(
+            &u1[..pairs],
+            &u2[..pairs],
+            &mut g0[..pairs],
+            &mut g1[..pairs],
+            &mut other[..pairs],
+        );
+        for (i, two) in flat[..2 * pairs].chunks_exact_mut(2).enumerate() {
+            (two[0], two[1]) = (g0[i], g1[i]);
+        }
+        let take = (2 * pairs - skip).min(out.len() - pos);
+        out[pos..pos + take].copy_from_slice(&flat[skip..skip + take]);
+        pos += take;
+        skip = 0;
     }
 }
 
@@ -286,6 +296,47 @@ mod tests {
                 advance(&mut idx[..p], n);
             }
             done += len;
+        }
+    }
+
+    /// The Gaussians as [`gaussians`] first drew them: two `next_u64` words per pair and the
+    /// scalar `libm` calls, one pair at a time (the definition the vector transform keeps).
+    fn gaussians_by_libm(seed: u64, p: usize, r0: usize, out: &mut [f64]) {
+        let mut rng = ChaCha12Rng::from_seed(key(seed));
+        rng.set_stream(p as u64);
+        rng.set_word_pos(4 * (r0 / 2) as u128);
+        let mut all = Vec::with_capacity(out.len() + 2);
+        while all.len() < out.len() + r0 % 2 {
+            let (w1, w2) = (rng.next_u64(), rng.next_u64());
+            let (u1, u2) = crate::boxmuller::uniforms(w1, w2);
+            let (g0, g1) = crate::boxmuller::pair_by_libm(u1, u2);
+            all.extend([g0, g1]);
+        }
+        out.copy_from_slice(&all[r0 % 2..r0 % 2 + out.len()]);
+    }
+
+    #[test]
+    fn gaussians_are_the_scalar_transform_of_the_stream() {
+        // odd and even starts, lengths across the word buffer's refills, several streams
+        for (seed, p, r0, len) in [
+            (0u64, 1usize, 0usize, 1usize),
+            (1, 2, 1, 1),
+            (2, 3, 7, 255),
+            (3, 3, 8, 256),
+            (4, 4, 1001, 257),
+            (u64::MAX, 8, 12345, 1 << 16),
+            (5, 5, (1 << 40) + 3, 777),
+        ] {
+            let mut got = vec![0.0; len];
+            let mut want = vec![0.0; len];
+            gaussians(seed, p, r0, &mut got);
+            gaussians_by_libm(seed, p, r0, &mut want);
+            assert!(
+                got.iter()
+                    .zip(&want)
+                    .all(|(a, b)| a.to_bits() == b.to_bits()),
+                "seed {seed} p {p} r0 {r0} len {len}"
+            );
         }
     }
 
