@@ -36,6 +36,7 @@ FULL_SIZES = {
     "threads": 800,
     "batch": (800, 400),
     "wide": ((3, 300, 2048), (2, 4000, 1024)),
+    "sampling": 400,
 }
 QUICK_SIZES = {
     "overhead": 12,
@@ -46,6 +47,7 @@ QUICK_SIZES = {
     "threads": 160,
     "batch": (96,),
     "wide": ((3, 40, 600), (2, 400, 300)),
+    "sampling": 100,
 }
 
 
@@ -887,6 +889,41 @@ def case_wide(cfg, ws):
     }
 
 
+def case_sampling(cfg, ws):
+    """Hamiltonian.sample at p=3 (allocation included) against NumPy drawing as many standard
+    Gaussians (``Generator.standard_normal``, PCG64 and the ziggurat, one thread)."""
+    p, n = 3, cfg.sizes["sampling"]
+    mix = oc.Mixture({p: 1.0})
+    count = math.comb(n + p - 1, p)
+    dtypes = ("float64", "float32")
+    parts = {f"{d} instance": oc.estimate_memory(mix, n, d) for d in dtypes}
+    parts["NumPy draws"] = 8 * count
+    memory = require("sampling", parts)
+    fns = {("orthoclimb", d): lambda d=d: oc.Hamiltonian.sample(mix, n, SEED, d) for d in dtypes}
+    fns[("numpy", "float64")] = lambda: np.random.default_rng(SEED).standard_normal(count)
+    log(f"   measuring {len(fns)} functions, {count} Gaussians a call")
+    stats = _timing.measure(fns, cfg.plan)
+    rows = []
+    for (impl, d), st in stats.items():
+        kernel = "sample" if impl == "orthoclimb" else "standard_normal"
+        row = make_row(kernel, impl, d, st, p, n, count * (8 if d == "float64" else 4))
+        row["note"] = f"{count / row['median_s'] / 1e6:.0f} M/s"
+        rows.append(row)
+    peer = rows[-1]
+    for row in rows[:-1]:
+        set_ratio(row, peer)
+    return {
+        "name": "sampling",
+        "title": f"sampling p={p}, n={n} ({count} coefficients) against NumPy's Gaussians",
+        "status": "ok",
+        "params": {"p": p, "n": n, "count": count, "threads": cfg.threads},
+        "ratio_meaning": "NumPy standard_normal median / orthoclimb median (M/s: per second)",
+        "memory": memory,
+        "rows": rows,
+        "notes": [f"orthoclimb samples on {cfg.threads} thread(s); NumPy's generator runs on one"],
+    }
+
+
 CASES = {
     "overhead": case_overhead,
     "dense3": case_dense3,
@@ -896,4 +933,5 @@ CASES = {
     "threads": case_threads,
     "batch": case_batch,
     "wide": case_wide,
+    "sampling": case_sampling,
 }

@@ -20,6 +20,8 @@ What is measured, all in one run and as ratios only (never absolute timed assert
   A BLAS matrix product timed alongside gives the multiply-add ceiling of that ratio, and
   a BLAS product of the batch's own shape and work (a dense matrix of the coefficients' size
   times the n x b points) is its peer: ratio = product s / batch s.
+* sampling: ``Hamiltonian.sample`` against NumPy's ``standard_normal`` drawing as many
+  Gaussians on one thread; ratio = NumPy s / orthoclimb s.
 
 Times are seconds per call: median of repeats after a warm-up (min and repeat count kept).
 """

@@ -121,6 +121,22 @@ def test_the_batch_case_checks_every_batch_row(capsys):
     assert all(r["rel_err"] is not None and r["rel_err"] < 1e-12 for r in batches)
 
 
+def test_the_sampling_case_puts_numpy_over_each_sample(capsys):
+    # its wiring at n = 10 (220 coefficients): the ratio is the peer's time over each
+    # orthoclimb row's, and the count is C(n + 2, 3)
+    cfg = _cases.Config(
+        plan=_timing.QUICK_PLAN, sizes={"sampling": 10}, threads=2, quick=True, torch_version=None
+    )
+    case = _cases.case_sampling(cfg, _cases.Workspace())
+    assert case["params"]["count"] == 220
+    *ours, peer = case["rows"]
+    assert [r["variant"] for r in ours] == ["float64", "float32"]
+    assert peer["impl"] == "numpy" and peer["ratio"] is None
+    for row in ours:
+        assert row["ratio"] == peer["median_s"] / row["median_s"]
+        assert row["note"].endswith(" M/s")
+
+
 def test_a_case_with_a_probe_per_size_is_checked_per_size():
     # the batch case measures two sizes, each with its own host probe; keyed by the case
     # alone, the second probe hid the first
