@@ -15,17 +15,18 @@
 //! those branches, in the same order (Rust never fuses a product and a sum, so a vector build
 //! rounds as the scalar one does):
 //!
-//! * ln x for a normal x > 0: x = 2^k (1 + f) with 1 + f in [sqrt(2)/2, sqrt(2)), s = f / (2 + f)
-//!   and ln x = k ln2_hi + (f - (hfsq - (s (hfsq + R(s^2)) + k ln2_lo))), hfsq = f^2 / 2, with
-//!   the minimax polynomial R of e_log.c;
+//! * ln x for a normal x > 0: x = 2^k (1 + f) with 1 + f in [sqrt(2)/2, sqrt(2)), s = f / (2 + f),
+//!   hfsq = f^2 / 2 and ln x = (((s (hfsq + R) + k ln2_lo) - hfsq) + f) + k ln2_hi, summed
+//!   left to right, with R = R(s^2) the minimax polynomial of e_log.c;
 //! * sin and cos of t in [0, 2 pi): t = n pi/2 + (y0 + y1) with n in 0..=4 read off the high
 //!   word of t (one subtraction of n pio2_1 and one of n pio2_1t), the polynomials of k_sin and
 //!   k_cos at (y0, y1), and the quadrant's swap and signs.
 //!
 //! A lane whose argument would take any other branch (t below 2^-27 sqrt 2, t within the
 //! cancellation windows near pi/2, pi, 3 pi/2 and 2 pi where e_rem_pio2 falls back to its
-//! medium reduction, u1 = 1) is flagged and computed by the scalar `libm` functions
-//! themselves. About two lanes in a million are flagged.
+//! medium reduction, t past 9 pi/4, which 2 pi u2 never reaches, u1 = 1) is flagged and
+//! computed by the scalar `libm` functions themselves. About two lanes in a million are
+//! flagged.
 
 /// 2^-53: the spacing of the uniforms, and the smallest u1.
 pub const SCALE: f64 = 1.0 / (1u64 << 53) as f64;
