@@ -73,6 +73,28 @@ pub fn uniforms(w1: u64, w2: u64) -> (f64, f64) {
     )
 }
 
+/// [`uniforms`] by operations that vectorize without 64-bit integer conversions: v < 2^53
+/// as 2^32 hi + lo, each half placed in a float's mantissa under a fixed exponent
+/// (2^84 + hi 2^32 and 2^52 + lo, exact) and the exponent's power subtracted; the sum
+/// hi 2^32 + lo is exact below 2^53 + 1, so the result is `uniforms`' to the bit.
+#[inline(always)]
+fn uniforms_lanes(w1: u64, w2: u64) -> (f64, f64) {
+    (
+        below_2_53_as_f64((w1 >> 11) + 1) * SCALE,
+        below_2_53_as_f64(w2 >> 11) * SCALE,
+    )
+}
+
+/// v as f64 for v <= 2^53 (exact), by the two halves of [`uniforms_lanes`].
+#[inline(always)]
+fn below_2_53_as_f64(v: u64) -> f64 {
+    const TWO52: f64 = 4_503_599_627_370_496.0; // 2^52
+    const TWO84: f64 = 19_342_813_113_834_066_795_298_816.0; // 2^84
+    let hi = f64::from_bits(0x4530_0000_0000_0000 | (v >> 32)) - TWO84;
+    let lo = f64::from_bits(0x4330_0000_0000_0000 | (v & 0xffff_ffff)) - TWO52;
+    hi + lo
+}
+
 /// The reference: one pair by the scalar `libm` calls, (R cos t, R sin t).
 #[inline]
 pub fn pair_by_libm(u1: f64, u2: f64) -> (f64, f64) {
@@ -146,37 +168,33 @@ fn sincos_small_branch(t: f64) -> (f64, f64, bool) {
     (sin, cos, other)
 }
 
-/// Writes the Gaussian pair of the uniforms (`u1[i]`, `u2[i]`) into (`g0[i]`, `g1[i]`) =
-/// (R cos t, R sin t) for every i, and returns how many pairs the scalar `libm` calls computed.
-/// `other` is scratch with a flag per pair. All five slices are as long.
+/// Writes the Gaussian pair of the words (`words[2i]`, `words[2i + 1]`) into `out[2i]` and
+/// `out[2i + 1]` (R cos t first, then R sin t, with the [`uniforms`] of the two words) for
+/// every pair i, and returns how many pairs the scalar `libm` calls computed. `out` is as long
+/// as `words`; `other` is scratch with a flag per pair.
 #[inline(always)]
-pub fn transform_pairs_body(
-    u1: &[f64],
-    u2: &[f64],
-    g0: &mut [f64],
-    g1: &mut [f64],
-    other: &mut [bool],
-) -> usize {
-    let len = u1.len();
-    let (u2, g0, g1, other) = (
-        &u2[..len],
-        &mut g0[..len],
-        &mut g1[..len],
-        &mut other[..len],
+pub fn transform_pairs_body(words: &[u64], out: &mut [f64], other: &mut [bool]) -> usize {
+    let pairs = words.len() / 2;
+    let (words, out, other) = (
+        &words[..2 * pairs],
+        &mut out[..2 * pairs],
+        &mut other[..pairs],
     );
     // one branch-free loop the compiler vectorizes
-    for i in 0..len {
-        let (ln, log_other) = log_main_branch(u1[i]);
-        let (sin, cos, trig_other) = sincos_small_branch(TAU * u2[i]);
+    for i in 0..pairs {
+        let (u1, u2) = uniforms_lanes(words[2 * i], words[2 * i + 1]);
+        let (ln, log_other) = log_main_branch(u1);
+        let (sin, cos, trig_other) = sincos_small_branch(TAU * u2);
         let radius = (-2.0 * ln).sqrt();
-        g0[i] = radius * cos;
-        g1[i] = radius * sin;
+        out[2 * i] = radius * cos;
+        out[2 * i + 1] = radius * sin;
         other[i] = log_other | trig_other;
     }
     let mut by_libm = 0;
-    for i in 0..len {
+    for i in 0..pairs {
         if other[i] {
-            (g0[i], g1[i]) = pair_by_libm(u1[i], u2[i]);
+            let (u1, u2) = uniforms(words[2 * i], words[2 * i + 1]);
+            (out[2 * i], out[2 * i + 1]) = pair_by_libm(u1, u2);
             by_libm += 1;
         }
     }
@@ -186,50 +204,32 @@ pub fn transform_pairs_body(
 /// [`transform_pairs_body`] compiled with AVX-512 (the caller checks the processor has it).
 #[cfg(target_arch = "x86_64")]
 #[target_feature(enable = "avx2,fma,avx512f,avx512vl")]
-unsafe fn transform_pairs_wide(
-    u1: &[f64],
-    u2: &[f64],
-    g0: &mut [f64],
-    g1: &mut [f64],
-    other: &mut [bool],
-) -> usize {
-    transform_pairs_body(u1, u2, g0, g1, other)
+unsafe fn transform_pairs_wide(words: &[u64], out: &mut [f64], other: &mut [bool]) -> usize {
+    transform_pairs_body(words, out, other)
 }
 
 /// [`transform_pairs_body`] compiled with AVX2 (the caller checks the processor has it).
 #[cfg(target_arch = "x86_64")]
 #[target_feature(enable = "avx2,fma")]
-unsafe fn transform_pairs_fast(
-    u1: &[f64],
-    u2: &[f64],
-    g0: &mut [f64],
-    g1: &mut [f64],
-    other: &mut [bool],
-) -> usize {
-    transform_pairs_body(u1, u2, g0, g1, other)
+unsafe fn transform_pairs_fast(words: &[u64], out: &mut [f64], other: &mut [bool]) -> usize {
+    transform_pairs_body(words, out, other)
 }
 
 /// [`transform_pairs_body`] compiled for the widest vector instructions this processor has
 /// (the same bits from each: no instruction set changes an IEEE-754 operation's result).
-pub fn transform_pairs(
-    u1: &[f64],
-    u2: &[f64],
-    g0: &mut [f64],
-    g1: &mut [f64],
-    other: &mut [bool],
-) -> usize {
+pub fn transform_pairs(words: &[u64], out: &mut [f64], other: &mut [bool]) -> usize {
     #[cfg(target_arch = "x86_64")]
     {
         if crate::simd::has_avx512vl() {
             // SAFETY: the processor has the features the function was compiled for.
-            return unsafe { transform_pairs_wide(u1, u2, g0, g1, other) };
+            return unsafe { transform_pairs_wide(words, out, other) };
         }
         if crate::simd::has_avx2_fma() {
             // SAFETY: the processor has the features the function was compiled for.
-            return unsafe { transform_pairs_fast(u1, u2, g0, g1, other) };
+            return unsafe { transform_pairs_fast(words, out, other) };
         }
     }
-    transform_pairs_body(u1, u2, g0, g1, other)
+    transform_pairs_body(words, out, other)
 }
 
 #[cfg(test)]
@@ -238,16 +238,15 @@ mod tests {
 
     /// Checks every pair against the scalar calls and returns how many took them.
     fn assert_pairs_match(words: &[u64]) -> usize {
-        let (u1, u2): (Vec<f64>, Vec<f64>) =
-            words.chunks_exact(2).map(|w| uniforms(w[0], w[1])).unzip();
-        let len = u1.len();
-        let (mut g0, mut g1, mut other) = (vec![0.0; len], vec![0.0; len], vec![false; len]);
-        let by_libm = transform_pairs_body(&u1, &u2, &mut g0, &mut g1, &mut other);
-        let mut outputs = vec![(g0, g1)];
+        let pairs = words.len() / 2;
+        let mut other = vec![false; pairs];
+        let mut plain = vec![0.0; 2 * pairs];
+        let by_libm = transform_pairs_body(words, &mut plain, &mut other);
+        let mut outputs = vec![plain];
         #[cfg(target_arch = "x86_64")]
         {
             // every build this processor can run, whichever `transform_pairs` picks
-            type Variant = unsafe fn(&[f64], &[f64], &mut [f64], &mut [f64], &mut [bool]) -> usize;
+            type Variant = unsafe fn(&[u64], &mut [f64], &mut [bool]) -> usize;
             let mut variants: Vec<Variant> = Vec::new();
             if crate::simd::has_avx2_fma() {
                 variants.push(transform_pairs_fast);
@@ -257,24 +256,20 @@ mod tests {
                 variants.push(transform_pairs_wide);
             }
             for variant in variants {
-                let (mut g0, mut g1) = (vec![0.0; len], vec![0.0; len]);
+                let mut out = vec![0.0; 2 * pairs];
                 // SAFETY: the processor has the features the variant was compiled for.
-                let count = unsafe { variant(&u1, &u2, &mut g0, &mut g1, &mut other) };
+                let count = unsafe { variant(words, &mut out, &mut other) };
                 assert_eq!(count, by_libm);
-                outputs.push((g0, g1));
+                outputs.push(out);
             }
         }
-        for (g0, g1) in &outputs {
-            for i in 0..len {
-                let (want0, want1) = pair_by_libm(u1[i], u2[i]);
-                for (got, want) in [(g0[i], want0), (g1[i], want1)] {
-                    assert_eq!(
-                        got.to_bits(),
-                        want.to_bits(),
-                        "u1 {:e} u2 {:e}",
-                        u1[i],
-                        u2[i]
-                    );
+        for out in &outputs {
+            for i in 0..pairs {
+                let (u1, u2) = uniforms(words[2 * i], words[2 * i + 1]);
+                assert_eq!(uniforms_lanes(words[2 * i], words[2 * i + 1]), (u1, u2));
+                let (want0, want1) = pair_by_libm(u1, u2);
+                for (got, want) in [(out[2 * i], want0), (out[2 * i + 1], want1)] {
+                    assert_eq!(got.to_bits(), want.to_bits(), "u1 {u1:e} u2 {u2:e}");
                 }
             }
         }
@@ -284,6 +279,33 @@ mod tests {
     /// The word whose uniform is u (u in [0, 1), a multiple of 2^-53).
     fn word_of(u: f64) -> u64 {
         ((u / SCALE) as u64) << 11
+    }
+
+    #[test]
+    fn lane_uniforms_are_the_conversions() {
+        // the extremes of both words (u1 = 2^-53 and 1, u2 = 0 and 1 - 2^-53) and values whose
+        // halves carry: the lane conversion must equal the plain one bit for bit
+        let words = [
+            0u64,
+            1 << 11,
+            (1 << 43) - 1,
+            1 << 43,
+            u64::MAX - (1 << 11),
+            u64::MAX,
+        ];
+        for &w1 in &words {
+            for &w2 in &words {
+                let (a, b) = uniforms(w1, w2);
+                let (c, d) = uniforms_lanes(w1, w2);
+                assert_eq!(
+                    (a.to_bits(), b.to_bits()),
+                    (c.to_bits(), d.to_bits()),
+                    "{w1} {w2}"
+                );
+            }
+        }
+        assert_eq!(uniforms_lanes(u64::MAX, 0), (1.0, 0.0));
+        assert_eq!(uniforms_lanes(0, u64::MAX), (SCALE, 1.0 - SCALE));
     }
 
     #[test]

@@ -32,7 +32,7 @@ use rand_chacha::ChaCha12Rng;
 use rand_core::{Rng, SeedableRng};
 use rayon::prelude::*;
 
-use crate::boxmuller::{transform_pairs, uniforms, SCALE};
+use crate::boxmuller::{transform_pairs, SCALE};
 use crate::combinatorics::{advance, factorial, orderings_denominator, unrank, MAX_DEGREE};
 use crate::error::CoreError;
 use crate::exec::{on_pool, Exec};
@@ -89,30 +89,19 @@ pub fn gaussians(seed: u64, p: usize, r0: usize, out: &mut [f64]) {
     rng.set_stream(p as u64);
     rng.set_word_pos(4 * (r0 / 2) as u128);
     let mut bytes = [0u8; 16 * PAIRS];
-    let (mut u1, mut u2) = ([0f64; PAIRS], [0f64; PAIRS]);
-    let (mut g0, mut g1) = ([0f64; PAIRS], [0f64; PAIRS]);
-    let mut other = [false; PAIRS];
+    let mut words = [0u64; 2 * PAIRS];
     let mut flat = [0f64; 2 * PAIRS];
+    let mut other = [false; PAIRS];
     let mut skip = r0 % 2; // an odd r0 drops the first Gaussian of its pair
     let mut pos = 0usize;
     while pos < out.len() {
         let pairs = PAIRS.min((skip + out.len() - pos).div_ceil(2));
         // the stream's 32-bit words in order, two to a little-endian u64 (as next_u64 reads)
         rng.fill_bytes(&mut bytes[..16 * pairs]);
-        for (i, b) in bytes[..16 * pairs].chunks_exact(16).enumerate() {
-            let word = |k: usize| u64::from_le_bytes(b[k..k + 8].try_into().expect("8 bytes"));
-            (u1[i], u2[i]) = uniforms(word(0), word(8));
+        for (w, b) in words.iter_mut().zip(bytes.chunks_exact(8)).take(2 * pairs) {
+            *w = u64::from_le_bytes(b.try_into().expect("8 bytes"));
         }
-        transform_pairs(
-            &u1[..pairs],
-            &u2[..pairs],
-            &mut g0[..pairs],
-            &mut g1[..pairs],
-            &mut other[..pairs],
-        );
-        for (i, two) in flat[..2 * pairs].chunks_exact_mut(2).enumerate() {
-            (two[0], two[1]) = (g0[i], g1[i]);
-        }
+        transform_pairs(&words[..2 * pairs], &mut flat[..2 * pairs], &mut other);
         let take = (2 * pairs - skip).min(out.len() - pos);
         out[pos..pos + take].copy_from_slice(&flat[skip..skip + take]);
         pos += take;
