@@ -20,12 +20,13 @@ def one_thread():
 
 
 def test_callback_counts_coefficients_and_changes_nothing(one_thread):
-    # n = 500 at p = 3 (21 million coefficients) takes about 0.8 s on one thread here, so
-    # the 50 ms poll reports many times
-    n, total = 500, math.comb(502, 3)
+    # n = 500 at p = 3 (21 million coefficients), drawn correlated with another seed (two
+    # Gaussians per coefficient), takes about 0.4-0.6 s on one thread here, so the 50 ms poll
+    # reports many times
+    n, total, corr = 500, math.comb(502, 3), (8, 0.5)
     seen: list[int] = []
-    with_cb = _core.PackedPolynomial.sample(n, [3], [1.0], 7, "float64", None, seen.append)
-    plain = _core.PackedPolynomial.sample(n, [3], [1.0], 7)
+    with_cb = _core.PackedPolynomial.sample(n, [3], [1.0], 7, "float64", corr, seen.append)
+    plain = _core.PackedPolynomial.sample(n, [3], [1.0], 7, "float64", corr)
     assert len(seen) >= 2, seen
     # reported only when the count grew
     assert all(a < b for a, b in zip(seen[:-1], seen[1:], strict=True))
@@ -39,7 +40,9 @@ def test_exception_in_callback_stops_sampling(one_thread):
         raise RuntimeError(f"stop at {done}")
 
     with pytest.raises(RuntimeError, match="stop at"):
-        _core.PackedPolynomial.sample(400, [3], [1.0], 7, "float64", None, fail)
+        # about 0.3 s on one thread (correlated: two Gaussians per coefficient), past the
+        # first 50 ms poll
+        _core.PackedPolynomial.sample(400, [3], [1.0], 7, "float64", (8, 0.5), fail)
 
 
 def test_bar_on_stderr(monkeypatch, capsys):
