@@ -328,6 +328,21 @@ mod tests {
         assert!(assert_pairs_match(&words) <= 40);
     }
 
+    /// The high words of t at which libm's sincos changes branch (the lane code's thresholds):
+    /// 2^-27 sqrt 2, pi/4, the pi/2 window, 3 pi/4, the pi window, 5 pi/4, the 3 pi/2
+    /// window, 7 pi/4 and the 2 pi window.
+    const HIGH_WORD_EDGES: [u64; 9] = [
+        0x3e46_a09e,
+        0x3fe9_21fb,
+        0x3ff9_21fb,
+        0x4002_d97c,
+        0x4009_21fb,
+        0x400f_6a7a,
+        0x4012_d97c,
+        0x4015_fdbc,
+        0x4019_21fb,
+    ];
+
     /// sin and cos of every lane that is not flagged, against `libm::sincos` itself, over
     /// 2^20 consecutive u2 on each side of every high-word threshold of its branches: there
     /// |y0| is small and every rounding of the reduction shows (a fused y1 = (z - y0) - n
@@ -335,17 +350,7 @@ mod tests {
     #[test]
     fn every_angle_near_a_branch_edge_gives_libm_sincos() {
         let mut checked = 0usize;
-        for hi in [
-            0x3e46_a09eu64,
-            0x3fe9_21fb,
-            0x3ff9_21fb,
-            0x4002_d97c,
-            0x4009_21fb,
-            0x400f_6a7a,
-            0x4012_d97c,
-            0x4015_fdbc,
-            0x4019_21fb,
-        ] {
+        for hi in HIGH_WORD_EDGES {
             for edge in [hi, hi + 1] {
                 let k = (f64::from_bits(edge << 32) / TAU / SCALE).round() as i64;
                 for j in k - (1 << 20)..k + (1 << 20) {
@@ -377,17 +382,7 @@ mod tests {
         // the smallest t, u1 near 1 (where ln x is computed below and above sqrt(2)/2 reduction
         // bounds), the smallest u1 and u1 = 1, each with its neighbours 2^-53 apart
         let mut u2s = vec![0.0, SCALE, 2.0 * SCALE, 1.0 - SCALE];
-        for hi in [
-            0x3e46_a09eu64,
-            0x3fe9_21fb,
-            0x3ff9_21fb,
-            0x4002_d97c,
-            0x4009_21fb,
-            0x400f_6a7a,
-            0x4012_d97c,
-            0x4015_fdbc,
-            0x4019_21fb,
-        ] {
+        for hi in HIGH_WORD_EDGES {
             for lo in [0u64, 1, 0x5444_2d18, 0xffff_ffff] {
                 for edge in [hi, hi + 1] {
                     let t = f64::from_bits((edge << 32) | lo);
