@@ -296,10 +296,13 @@ mod tests {
         rng.set_word_pos(4 * (r0 / 2) as u128);
         let mut all = Vec::with_capacity(out.len() + 2);
         while all.len() < out.len() + r0 % 2 {
+            // the loop of version 0.2.0, written out
             let (w1, w2) = (rng.next_u64(), rng.next_u64());
-            let (u1, u2) = crate::boxmuller::uniforms(w1, w2);
-            let (g0, g1) = crate::boxmuller::pair_by_libm(u1, u2);
-            all.extend([g0, g1]);
+            let u1 = ((w1 >> 11) + 1) as f64 * SCALE;
+            let u2 = (w2 >> 11) as f64 * SCALE;
+            let radius = (-2.0 * libm::log(u1)).sqrt();
+            let (s, c) = libm::sincos(std::f64::consts::TAU * u2);
+            all.extend([radius * c, radius * s]);
         }
         out.copy_from_slice(&all[r0 % 2..r0 % 2 + out.len()]);
     }
