@@ -890,8 +890,10 @@ def case_wide(cfg, ws):
 
 
 def case_sampling(cfg, ws):
-    """Hamiltonian.sample at p=3 (allocation included) against NumPy drawing as many standard
-    Gaussians (``Generator.standard_normal``, PCG64 and the ziggurat, one thread)."""
+    """Hamiltonian.sample at p=3, the whole call (the Gaussians, their scaling by sqrt(n c(m)),
+    the storage type's conversion and the allocation), against NumPy drawing as many standard
+    Gaussians (``Generator.standard_normal``, PCG64 and the ziggurat, one thread). Runs on the
+    thread count kernels.py set (``cfg.threads``)."""
     p, n = 3, cfg.sizes["sampling"]
     mix = oc.Mixture({p: 1.0})
     count = math.comb(n + p - 1, p)
