@@ -365,6 +365,43 @@ def test_climb_plan_only_estimates_without_sampling_or_writing(tmp_path, capsys,
     assert sizes and max(sizes) < 400 and not out.exists()
 
 
+def test_a_plan_says_when_its_hessian_steps_must_run_matrix_free(tmp_path, capsys, monkeypatch):
+    # a plan of hours where the dense Hessian does not fit beside the instance, with no word
+    # of why (a float32 plan at n = 3000 read 7.8 h): it now says that each Lanczos product
+    # will be a pass over the coefficients, and what the dense work needs
+    from orthoclimb.model import estimate_memory
+    from orthoclimb.model import memory as memory_module
+
+    args = ["climb", "--gammas", "3:1", "--n", "300", "--plan-only"]
+    assert main([*args, "--out", str(tmp_path / "a")]) == 0
+    assert "matrix-free" not in capsys.readouterr().out
+    instance = estimate_memory(oc.Mixture({3: 1.0}), 300)
+    monkeypatch.setattr(memory_module, "available_memory", lambda: instance + 2**20)
+    assert main([*args, "--out", str(tmp_path / "b")]) == 0
+    out = capsys.readouterr().out
+    assert "note: matrix-free Lanczos: the dense Hessian's work at n = 300 (" in out
+    assert "does not fit in half of what this machine leaves beside the instance (512.0 KiB)" in out
+    assert "every Lanczos product is a Hessian-vector product, a pass over the coefficients" in out
+
+
+def test_a_runs_estimate_decides_dense_as_the_run_does_with_its_instance_held(monkeypatch):
+    # after sampling, the estimate took the instance's bytes off the available memory a second
+    # time (they are already held), so it could plan matrix-free Lanczos for a run that then
+    # went dense; it now asks the run's own rule, the work in half of what is available
+    from orthoclimb.cli import climb_cmd
+    from orthoclimb.model import memory as memory_module
+
+    ham = oc.Hamiltonian.sample(oc.Mixture({3: 1.0}), 60, 0)
+    need = ham.hessian_workspace_nbytes + 4 * 60 * 60 * 8
+    monkeypatch.setattr(memory_module, "available_memory", lambda: 2 * need)
+    text, dense = climb_cmd._run_estimate(ham, "hessian", 10, True)
+    assert "matrix-free" not in text
+    monkeypatch.setattr(memory_module, "available_memory", lambda: 2 * need - 2)
+    text, free = climb_cmd._run_estimate(ham, "hessian", 10, True)
+    assert "note: matrix-free Lanczos: the dense Hessian's work at n = 60" in text
+    assert dense is not None and free is not None and dense < 0.5 * free
+
+
 def test_a_plan_timed_on_a_busy_machine_says_so(tmp_path, capsys, monkeypatch):
     # a trial's plans for one run varied 3-5x while its own sweep kept both cores busy: the
     # plan now says when other processes were busy while it timed the kernels (the measure

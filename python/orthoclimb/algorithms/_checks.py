@@ -192,5 +192,11 @@ def dense_work_fits(ham: Hamiltonian, copies: int) -> bool:
     accumulators (:attr:`Hamiltonian.hessian_workspace_nbytes`) plus ``copies`` n x n float64
     arrays. Hessian ascent's dense mode, Newton's steps in the polish and the dense
     local-maximum check ask it; the other half is left to the rest of the process."""
-    need = ham.hessian_workspace_nbytes + copies * ham.n * ham.n * 8
-    return need <= memory.available_memory() // 2
+    need, room = dense_work(ham, copies)
+    return need <= room
+
+
+def dense_work(ham: Hamiltonian, copies: int) -> tuple[int, int]:
+    """(bytes, bytes): the dense work of :func:`dense_work_fits` and the room it has, half the
+    memory available now (with ``ham`` already held)."""
+    return ham.hessian_workspace_nbytes + copies * ham.n * ham.n * 8, memory.available_memory() // 2

@@ -40,7 +40,7 @@ from ..runtime import get_num_threads, kernel_path
 from ..studies.engine import counted
 from ..studies.estimate import (
     PASSES_PER_ITERATION,
-    dense_lanczos,
+    dense_lanczos_memory,
     gradient_passes,
     largest_size_within,
     matvec_seconds,
@@ -188,19 +188,29 @@ def _run_estimate(
     sphere), ``steps`` passes for anneal, the mean pass count of gradient ascent at n (with its
     time at the cap), and a polish's passes, Newton steps and local-maximum check. For a run at
     ``n`` timed on a smaller instance ``ham``, ``scale`` is the ratio of their coefficient bytes
-    (a pass reads each coefficient once)."""
-    from ..algorithms.hessian_ascent import eigen_solves, hessian_moves
+    (a pass reads each coefficient once). Whether Lanczos runs on the dense Hessian is decided
+    as the run decides it: for the run's own instance with the memory available now (it is
+    held), for a plan from the memory the instance at n would leave."""
+    from ..algorithms._checks import dense_work
+    from ..algorithms.hessian_ascent import _WORKING_COPIES, eigen_solves, hessian_moves
 
+    held = n is None  # the run's own instance, not a smaller one timed for a plan
     n = ham.n if n is None else n
     grad = scale * _time_pass(ham, "gradient")
     moves = eigen_solves(ham.mixture, steps, start) if method == "hessian" else 0
     needs_hessian = moves > 0 or polish or method == "gradient"
     hess = scale * _time_pass(ham, "hessian") if needs_hessian else 0.0
     field = ham.mixture is not None and ham.mixture.has_field
-    matvec, dense = None, True
+    matvec, dense, note = None, True, ""
     if moves > 0:  # a dense product, or a Hessian-vector product's pass where that won't fit
-        dense = ham.mixture is None or dense_lanczos(ham.mixture, n)
+        if held or ham.mixture is None:
+            need, room = dense_work(ham, _WORKING_COPIES)
+        else:
+            need, room = dense_lanczos_memory(ham.mixture, n, ham.dtype)
+        dense = need <= room
         matvec = matvec_seconds(n) if dense else scale * _time_pass(ham, "hvp")
+        if not dense:
+            note = "\n" + _matrix_free_note(n, need, room, matvec)
     run = run_seconds(method, n, steps, polish, (grad, hess), moves, field, matvec, dense)
     if method == "hessian":
         steps_taken = hessian_moves(ham.mixture, steps)
@@ -216,10 +226,11 @@ def _run_estimate(
             verb = "takes" if len(parts) == 1 else "take"
             text = f"no Hessian step: {why}; {' and '.join(parts)} {verb} about"
             return f"{text} {seconds_text(run)}", run
-        return (
+        text = (
             f"one Hessian pass: {seconds_text(hess)}; estimated run time about"
             f" {seconds_text(run)} ({what})"
-        ), run
+        )
+        return text + note, run
     if method == "anneal":
         what = f"{steps} Langevin steps" + (" and the polish" if polish else "")
         return (
@@ -233,6 +244,25 @@ def _run_estimate(
         f" {seconds_text(run)} (typically {passes:.0f} passes at this n; at most"
         f" {seconds_text(cap)} if it runs to --max-iter {steps})"
     ), run
+
+
+def _matrix_free_note(n: int, need: int, room: int, product: float) -> str:
+    """Why a run's Hessian steps run Lanczos on Hessian-vector products (each a pass over the
+    coefficients, ``product`` seconds) instead of the dense Hessian, which makes them far
+    slower: the dense work (``need`` bytes) does not fit in half the memory left beside the
+    instance (``room`` bytes)."""
+    left = (
+        f"half of what this machine leaves beside the instance ({format_bytes(room)})"
+        if room > 0
+        else "this machine, which cannot hold the instance itself"
+    )
+    each = f" ({seconds_text(product)} each)"
+    return (
+        f"note: matrix-free Lanczos: the dense Hessian's work at n = {n} ({format_bytes(need)})"
+        f" does not fit in {left}, so every Lanczos product is a Hessian-vector product, a pass"
+        f" over the coefficients{each}; with that memory free (or float32 storage, which halves"
+        " the instance) the steps run on the dense Hessian, far faster"
+    )
 
 
 def _ground_state(mixture: Mixture) -> float | None:

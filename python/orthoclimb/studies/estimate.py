@@ -1,14 +1,14 @@
 """Rough up-front cost of a study: memory of its largest instance and a time estimate.
 
 Time model (seconds, per task): sampling the instance (once per group of tasks sharing it,
-:func:`~orthoclimb.studies.tasks.instance_groups`) and a kernel pass at size n cost
-their time at a calibration size n0 times (n/n0)^P, both timed on the driver at n0 (the
-largest of the mixture's sizes whose instance takes at most 64 MB, at most 400; when none
-does, the largest n below its sizes that does), P the largest degree. The cost per
-coefficient falls as n grows (per-segment overheads), so n0 is taken as large as that
-allows. The pass counts are means measured over 5-20 seeds of four mixtures (3:1, 4:1,
-2:1,3:1 and 2:1,4:0.25; n = 50-800, degree 4 to n = 240; study defaults, 2026-12-04), fitted
-as a + b ln n, since a study adds its tasks up:
+:func:`~orthoclimb.studies.tasks.instance_groups`) and a kernel pass at size n cost their time
+at a calibration size n0 times (n/n0)^P, both timed on the driver at n0 in the study's storage
+type (the largest of the mixture's sizes whose instance takes at most 64 MB, at most 400; when
+none does, the largest n below its sizes that does), P the largest degree. The cost per
+coefficient falls as n grows (per-segment overheads), so n0 is taken as large as that allows.
+The pass counts are means measured over 5-20 seeds of four mixtures (3:1, 4:1, 2:1,3:1 and
+2:1,4:0.25; n = 50-800, degree 4 to n = 240; study defaults, 2026-12-04), fitted as a + b ln n,
+since a study adds its tasks up:
 
 * Hessian ascent: K - 1 Hessian steps (none when the first stage ends on the sphere,
   ``hessian_moves``; one more for a start along the top eigenvector of Hess H(0)), each a
@@ -90,6 +90,7 @@ __all__ = [
     "fixed_path_notes",
     "check_seconds",
     "dense_lanczos",
+    "dense_lanczos_memory",
     "estimate_from",
     "first_stage_passes",
     "estimate_seconds",
@@ -203,18 +204,27 @@ def matvec_seconds(n: int) -> float:
     return _MATVEC_CACHE[side] * (n / side) ** 2
 
 
-def dense_lanczos(mixture, n: int) -> bool:
-    """Whether Hessian ascent on an instance of ``mixture`` at n runs Lanczos on the dense
-    Hessian here, as its "auto" mode decides once the instance is sampled: the kernel's
-    accumulators and its working n x n copies in half the memory the instance leaves
-    available. Otherwise each product is a Hessian-vector product, a pass over the
+def dense_lanczos(mixture, n: int, dtype: str = "float64") -> bool:
+    """Whether Hessian ascent on an instance of ``mixture`` at n stored as ``dtype`` runs
+    Lanczos on the dense Hessian here, as its "auto" mode decides once the instance is sampled:
+    the kernel's accumulators and its working n x n copies in half the memory the instance
+    leaves available. Otherwise each product is a Hessian-vector product, a pass over the
     coefficients, and the polish has no Newton steps (its own n x n copies are as many)."""
+    need, room = dense_lanczos_memory(mixture, n, dtype)
+    return need <= room
+
+
+def dense_lanczos_memory(mixture, n: int, dtype: str = "float64") -> tuple[int, int]:
+    """(bytes, bytes): what Hessian ascent's dense mode needs at n (the kernel's accumulators
+    and its working n x n copies, float64 whatever the storage) and what
+    :func:`dense_lanczos` lets it take, half the memory available beside the ``dtype``
+    instance (negative where the instance itself does not fit)."""
     from ..algorithms.hessian_ascent import _WORKING_COPIES
     from ..model import estimate_memory
     from ..model.memory import available_memory, hessian_workspace_estimate
 
     need = hessian_workspace_estimate(mixture, n) + _WORKING_COPIES * n * n * 8
-    return need <= (available_memory() - estimate_memory(mixture, n)) // 2
+    return need, (available_memory() - estimate_memory(mixture, n, dtype)) // 2
 
 
 def polish_extra(n: int, hessian_pass: float, after: str = "hessian") -> float:
@@ -289,11 +299,11 @@ def calibrate(spec: StudySpec, threads: int = 1) -> dict[str, Calibration]:
             mix = m.mixture
             sizes = m.sizes if m.sizes is not None else spec.sizes  # the mixture's own sizes
             budget = timing_budget(_CAL_BYTES)
-            fits = [n for n in sizes if estimate_memory(mix, n) <= budget]
-            n0 = max(fits) if fits else max(2, largest_size_within(mix, min(sizes), budget))
-            n0 = min(n0, 400)
+            fits = [n for n in sizes if estimate_memory(mix, n, spec.dtype) <= budget]
+            below = largest_size_within(mix, min(sizes), budget, spec.dtype)
+            n0 = min(max(fits) if fits else max(2, below), 400)
             started = time.perf_counter()
-            ham = Hamiltonian.sample(mix, n0, seed=0)
+            ham = Hamiltonian.sample(mix, n0, seed=0, dtype=spec.dtype)
             sampling = time.perf_counter() - started
             x = np.full(n0, 1.0 / math.sqrt(n0))
             cal[m.name] = Calibration(
@@ -302,7 +312,7 @@ def calibrate(spec: StudySpec, threads: int = 1) -> dict[str, Calibration]:
                 best_time(lambda h=ham, v=x: h.hessian(v), warm_up=False),
                 best_time(lambda h=ham, v=x: h.energy_and_gradient(v), warm_up=False),
                 mix.max_degree,
-                _products(mix, sizes, n0, lambda h=ham, v=x: h.hvp(v, v))
+                _products(mix, sizes, n0, lambda h=ham, v=x: h.hvp(v, v), spec.dtype)
                 if hessian_methods
                 else {},
             )
@@ -348,15 +358,15 @@ def run_seconds(
     return steps * eg + finish  # anneal: one pass per step
 
 
-def _products(mixture, sizes, n0: int, hvp) -> dict[int, float]:
+def _products(mixture, sizes, n0: int, hvp, dtype: str = "float64") -> dict[int, float]:
     """Seconds of one Lanczos product at each of ``sizes``: a dense one where the dense Hessian
-    fits (:func:`dense_lanczos`), else a Hessian-vector product, a pass scaled from the time
-    of ``hvp()`` at the calibration size n0 as (n/n0)^P (timed only when needed, without a
-    warm-up call, as the other passes)."""
+    fits beside a ``dtype`` instance (:func:`dense_lanczos`), else a Hessian-vector product, a
+    pass scaled from the time of ``hvp()`` at the calibration size n0 as (n/n0)^P (timed only
+    when needed, without a warm-up call, as the other passes)."""
     out: dict[int, float] = {}
     at_n0 = None
     for n in sizes:
-        if dense_lanczos(mixture, n):
+        if dense_lanczos(mixture, n, dtype):
             out[n] = matvec_seconds(n)
             continue
         at_n0 = best_time(hvp, warm_up=False) if at_n0 is None else at_n0
@@ -373,7 +383,7 @@ def estimate_from(cal: dict[str, Calibration], tasks, workers: int, embedded: bo
     for group in instance_groups(list(tasks), workers):  # as the sweep submits them
         c = cal[group[0].mixture.name]
         total += (group[0].n / c.n0) ** c.degree * c.sampling + _TASK_OVERHEAD
-    dense_at: dict[tuple[str, int], bool] = {}
+    dense_at: dict[tuple[str, int, str], bool] = {}
     for t in tasks:
         c = cal[t.mixture.name]
         scale = (t.n / c.n0) ** c.degree
@@ -389,9 +399,9 @@ def estimate_from(cal: dict[str, Calibration], tasks, workers: int, embedded: bo
         matvec = c.matvec.get(t.n)
         dense = True
         if t.method.name == "hessian" and matvec is not None:
-            key = (t.mixture.name, t.n)
+            key = (t.mixture.name, t.n, t.dtype)
             if key not in dense_at:
-                dense_at[key] = dense_lanczos(t.mixture.mixture, t.n)
+                dense_at[key] = dense_lanczos(t.mixture.mixture, t.n, t.dtype)
             dense = dense_at[key]
         args = (steps, polish, (eg, hess), moves, field, matvec, dense)
         total += run_seconds(t.method.name, t.n, *args)
