@@ -221,6 +221,37 @@ def test_the_dense_decision_counts_the_instance_in_its_storage_type(monkeypatch)
     assert dense_lanczos_memory(mix, n)[1] == need - (estimate_memory(mix, n) - single) // 2
 
 
+def test_the_plan_names_the_sizes_whose_hessian_steps_run_matrix_free(monkeypatch):
+    # with room for the dense work beside the n = 20 instance but not beside the n = 40 one,
+    # only n = 40 is named; gradient ascent has no Lanczos, so it is never named
+    from orthoclimb.model import estimate_memory
+    from orthoclimb.model import memory as memory_module
+    from orthoclimb.model.memory import hessian_workspace_estimate
+    from orthoclimb.studies.estimate import matrix_free_note
+
+    mix = oc.Mixture({3: 1.0})
+    need = {n: hessian_workspace_estimate(mix, n) + 4 * n * n * 8 for n in (20, 40)}
+    # the n = 40 instance (for the calibration) and half its dense work fit, so n = 40 runs
+    # matrix-free; beside the smaller n = 20 instance the room is then ample
+    available = estimate_memory(mix, 40) + need[40]
+    assert available - estimate_memory(mix, 20) >= 2 * need[20]
+    monkeypatch.setattr(memory_module, "available_memory", lambda: available)
+    note = matrix_free_note(_hessian_spec(10).tasks())
+    assert note is not None and "runs matrix-free for cubic at n = 40: the dense" in note
+    assert "n = 20" not in note
+    assert matrix_free_note(_spec().tasks()) is None
+    # the plan of an embedded cluster prints it after the estimate (an external one, whose
+    # workers have their own memory, does not)
+    from orthoclimb.studies import estimate
+    from orthoclimb.studies.engine import WorkerPlan
+
+    spec = _hessian_spec(10)
+    lines = estimate.plan_lines(spec, "s", spec.tasks(), WorkerPlan(1, 1, 1), None, None)
+    assert note in lines and lines.index(note) > 0
+    monkeypatch.setattr(memory_module, "available_memory", lambda: 2**40)
+    assert matrix_free_note(_hessian_spec(10).tasks()) is None
+
+
 def test_calibration_samples_in_the_studys_storage_type(monkeypatch):
     # it sampled and timed float64 instances for a float32 study, whose passes read half the
     # bytes

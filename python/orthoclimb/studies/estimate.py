@@ -91,6 +91,7 @@ __all__ = [
     "check_seconds",
     "dense_lanczos",
     "dense_lanczos_memory",
+    "matrix_free_note",
     "estimate_from",
     "first_stage_passes",
     "estimate_seconds",
@@ -455,6 +456,32 @@ def mixed_k_text(k_at: dict[int, int], e_k) -> str | None:
     )
 
 
+def matrix_free_note(tasks) -> str | None:
+    """A note naming the mixtures and sizes whose Hessian-ascent steps would run Lanczos
+    matrix-free on this machine (:func:`dense_lanczos`: the dense Hessian's work does not fit
+    in half the memory beside the instance), each product then a pass over the coefficients,
+    which the estimate counts; None where every such task runs dense. Printed with the plan
+    of an embedded cluster (an external one's workers have their own memory)."""
+    free: dict[tuple[str, int], bool] = {}
+    for t in tasks:
+        key = (t.mixture.name, t.n)
+        if t.method.name != "hessian" or key in free:
+            continue
+        opts = dict(t.method.options)
+        k = auto_steps(t.n) if opts["steps"] == "auto" else opts["steps"]
+        if eigen_solves(t.mixture.mixture, k, opts.get("start", LEGACY_START)) > 0:
+            free[key] = not dense_lanczos(t.mixture.mixture, t.n, t.dtype)
+    where = [f"{name} at n = {n}" for (name, n), matrix_free in sorted(free.items()) if matrix_free]
+    if not where:
+        return None
+    return (
+        f"note: Hessian ascent's Lanczos runs matrix-free for {', '.join(where)}: the dense"
+        " Hessian's work does not fit in half the memory this machine leaves beside the"
+        " instance, so each product is a pass over the coefficients, far slower (the estimate"
+        " counts it)"
+    )
+
+
 def fixed_path_notes(spec: StudySpec) -> list[str]:
     """A note per Hessian-ascent method and mixture whose path has the same number of points
     K at every size of the study (K = n/8 clamped to [25, 200] is 25 for every n < 208, and
@@ -637,4 +664,7 @@ def plan_lines(
     )
     if busy is not None:  # and work already running is in the timings
         lines.append(f"note: {busy}")
+    free = matrix_free_note(pending) if plan is not None else None
+    if free is not None:
+        lines.append(free)
     return lines + fixed_path_notes(spec)
