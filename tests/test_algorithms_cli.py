@@ -382,6 +382,7 @@ def test_a_plan_says_when_its_hessian_steps_must_run_matrix_free(tmp_path, capsy
     assert "note: matrix-free Lanczos: the dense Hessian's work at n = 300 (" in out
     assert "does not fit in half of what this machine leaves beside the instance (512.0 KiB)" in out
     assert "every Lanczos product is a Hessian-vector product, a pass over the coefficients" in out
+    assert "with that memory free (or with --dtype float32, which halves the instance)" in out
 
 
 def test_a_runs_estimate_decides_dense_as_the_run_does_with_its_instance_held(monkeypatch):

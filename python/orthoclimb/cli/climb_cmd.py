@@ -203,14 +203,16 @@ def _run_estimate(
     field = ham.mixture is not None and ham.mixture.has_field
     matvec, dense, note = None, True, ""
     if moves > 0:  # a dense product, or a Hessian-vector product's pass where that won't fit
-        if held or ham.mixture is None:
+        if held:
             need, room = dense_work(ham, _WORKING_COPIES)
-        else:
+        elif ham.mixture is not None:
             need, room = dense_lanczos_memory(ham.mixture, n, ham.dtype)
+        else:  # given coefficients have no plan (no mixture to size an instance at n)
+            need, room = 0, 0
         dense = need <= room
         matvec = matvec_seconds(n) if dense else scale * _time_pass(ham, "hvp")
         if not dense:
-            note = "\n" + _matrix_free_note(n, need, room, matvec)
+            note = "\n" + _matrix_free_note(n, need, room, matvec, ham.dtype)
     run = run_seconds(method, n, steps, polish, (grad, hess), moves, field, matvec, dense)
     if method == "hessian":
         steps_taken = hessian_moves(ham.mixture, steps)
@@ -246,22 +248,22 @@ def _run_estimate(
     ), run
 
 
-def _matrix_free_note(n: int, need: int, room: int, product: float) -> str:
+def _matrix_free_note(n: int, need: int, room: int, product: float, dtype: str) -> str:
     """Why a run's Hessian steps run Lanczos on Hessian-vector products (each a pass over the
     coefficients, ``product`` seconds) instead of the dense Hessian, which makes them far
     slower: the dense work (``need`` bytes) does not fit in half the memory left beside the
-    instance (``room`` bytes)."""
+    ``dtype`` instance (``room`` bytes)."""
     left = (
         f"half of what this machine leaves beside the instance ({format_bytes(room)})"
         if room > 0
         else "this machine, which cannot hold the instance itself"
     )
-    each = f" ({seconds_text(product)} each)"
+    halves = " (or with --dtype float32, which halves the instance)" if dtype == "float64" else ""
     return (
         f"note: matrix-free Lanczos: the dense Hessian's work at n = {n} ({format_bytes(need)})"
         f" does not fit in {left}, so every Lanczos product is a Hessian-vector product, a pass"
-        f" over the coefficients{each}; with that memory free (or float32 storage, which halves"
-        " the instance) the steps run on the dense Hessian, far faster"
+        f" over the coefficients ({seconds_text(product)} each); with that memory free{halves}"
+        " the steps run on the dense Hessian, far faster"
     )
 
 
