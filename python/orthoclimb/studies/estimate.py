@@ -390,10 +390,7 @@ def estimate_from(cal: dict[str, Calibration], tasks, workers: int, embedded: bo
         scale = (t.n / c.n0) ** c.degree
         opts = dict(t.method.options)
         eg, hess = scale * c.energy_and_gradient, scale * c.hessian  # one pass each at n
-        moves = 0
-        if t.method.name == "hessian":
-            k = auto_steps(t.n) if opts["steps"] == "auto" else opts["steps"]
-            moves = eigen_solves(t.mixture.mixture, k, opts.get("start", LEGACY_START))
+        moves = _eigen_solves_of(t)
         steps = opts["max_iter"] if t.method.name == "gradient" else opts["steps"]
         polish = bool(opts.get("polish"))
         field = t.mixture.mixture.has_field
@@ -456,6 +453,16 @@ def mixed_k_text(k_at: dict[int, int], e_k) -> str | None:
     )
 
 
+def _eigen_solves_of(task) -> int:
+    """The Lanczos solves of a task's run: Hessian ascent's (``eigen_solves`` with its K and
+    start), none for the other methods."""
+    if task.method.name != "hessian":
+        return 0
+    opts = dict(task.method.options)
+    k = auto_steps(task.n) if opts["steps"] == "auto" else opts["steps"]
+    return eigen_solves(task.mixture.mixture, k, opts.get("start", LEGACY_START))
+
+
 def matrix_free_note(tasks) -> str | None:
     """A note naming the mixtures and sizes whose Hessian-ascent steps would run Lanczos
     matrix-free on this machine (:func:`dense_lanczos`: the dense Hessian's work does not fit
@@ -467,9 +474,7 @@ def matrix_free_note(tasks) -> str | None:
         key = (t.mixture.name, t.n)
         if t.method.name != "hessian" or key in free:
             continue
-        opts = dict(t.method.options)
-        k = auto_steps(t.n) if opts["steps"] == "auto" else opts["steps"]
-        if eigen_solves(t.mixture.mixture, k, opts.get("start", LEGACY_START)) > 0:
+        if _eigen_solves_of(t) > 0:
             free[key] = not dense_lanczos(t.mixture.mixture, t.n, t.dtype)
     where = [f"{name} at n = {n}" for (name, n), matrix_free in sorted(free.items()) if matrix_free]
     if not where:
