@@ -315,6 +315,44 @@ def test_top_tangent_eigenpair_when_every_tangent_eigenvalue_is_negative(n, as_o
     assert abs(float(v @ (q @ vecs[:, -1]))) == pytest.approx(1.0, abs=1e-8)
 
 
+def test_symmetric_operator_reads_only_the_upper_triangle():
+    # BLAS dsymv through the transposed view: products equal NumPy's with the symmetric
+    # matrix (to rounding), and the strict lower triangle is never read (NaN there)
+    from orthoclimb.algorithms._eigen import symmetric_operator
+
+    rng = np.random.default_rng(7)
+    n = 70
+    a = rng.standard_normal((n, n))
+    m = a + a.T
+    poisoned = m.copy()
+    poisoned[np.tril_indices(n, -1)] = np.nan
+    op = symmetric_operator(poisoned)
+    y = rng.standard_normal(n)
+    np.testing.assert_allclose(op.matvec(y), m @ y, rtol=1e-13, atol=1e-12)
+    block = rng.standard_normal((n, 3))
+    np.testing.assert_allclose(op.matmat(block), m @ block, rtol=1e-13, atol=1e-12)
+
+
+def test_dense_lanczos_reads_one_triangle_of_the_tangent_matrix():
+    # the restricted matrix's two triangles agree to rounding; Lanczos on the dense matrix
+    # uses the upper one only (half the bytes per product), so a NaN below the diagonal
+    # changes nothing: the top pair is scipy.linalg.eigh's of the symmetric matrix
+    n = 80
+    rng = np.random.default_rng(3)
+    u = rng.standard_normal(n)
+    u /= np.linalg.norm(u)
+    a = rng.standard_normal((n, n))
+    m = a + a.T
+    basis = TangentBasis(u)
+    op = basis.restrict_inplace(m.copy())
+    want_vals, want_vecs = scipy.linalg.eigh(np.triu(op) + np.triu(op, 1).T)
+    op[np.tril_indices(n - 1, -1)] = np.nan
+    theta, v, fallback = top_tangent_eigenpair(op, basis, rng.standard_normal(n), 1e-12)
+    assert not fallback
+    assert theta == pytest.approx(want_vals[-1], rel=1e-10)
+    assert abs(float(basis.coordinates(v) @ want_vecs[:, -1])) == pytest.approx(1.0, abs=1e-8)
+
+
 def test_an_unconverged_lanczos_returns_the_largest_converged_pair(monkeypatch):
     # ARPACK lists the converged pairs in ascending order; an operator that did not converge
     # falls back on the largest of them, not the first (a diagonal operator: exact pairs)

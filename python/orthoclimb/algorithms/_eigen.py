@@ -47,12 +47,12 @@ from collections.abc import Callable
 
 import numpy as np
 import scipy.linalg
-from scipy.linalg.blas import dger
+from scipy.linalg.blas import dger, dsymv
 from scipy.sparse.linalg import ArpackError, ArpackNoConvergence, LinearOperator, eigsh
 
 from ._sphere import norm
 
-__all__ = ["DIRECT_MAX", "TangentBasis", "top_tangent_eigenpair"]
+__all__ = ["DIRECT_MAX", "TangentBasis", "symmetric_operator", "top_tangent_eigenpair"]
 
 DIRECT_MAX = 16  # tangent dimensions solved by a dense eigh
 # Ritz pairs ARPACK must converge (module doc, "Which eigenvalue"): the top two, not the top one
@@ -114,6 +114,35 @@ class TangentBasis:
         return LinearOperator((d, d), matvec=apply, rmatvec=apply, dtype=np.float64)
 
 
+def symmetric_operator(a: np.ndarray) -> LinearOperator:
+    """The symmetric C-contiguous float64 matrix ``a`` as an operator whose products read one
+    triangle (BLAS dsymv on the upper triangle, through the Fortran-ordered view ``a.T``, no
+    copy): half the bytes of the general product NumPy's ``a @ y`` would stream. Lanczos on
+    a tangent matrix of Hessian ascent is bound by those bytes once the matrix outgrows the
+    core's L2 cache; on one BLAS thread at n = 1000 and 2000 a product took 0.16 and 0.63 ms
+    against 0.27 and 1.1 ms for dgemv (Intel Xeon, AVX-512). The two triangles of a
+    restricted matrix (``TangentBasis.restrict_inplace``) agree to rounding, so this is the
+    same operator to within rounding of its entries."""
+    at = a.T  # F-contiguous: dsymv's lower triangle of a.T is the upper triangle of a
+
+    def apply(y: np.ndarray) -> np.ndarray:
+        return dsymv(1.0, at, np.ravel(y), lower=1)
+
+    return LinearOperator(a.shape, matvec=apply, rmatvec=apply, dtype=np.float64)
+
+
+def _dsymv_ready(op: object) -> bool:
+    """True for a C-contiguous float64 square matrix, which :func:`symmetric_operator` takes
+    without a copy."""
+    return (
+        isinstance(op, np.ndarray)
+        and op.dtype == np.float64
+        and op.ndim == 2
+        and op.shape[0] == op.shape[1]
+        and op.flags.c_contiguous
+    )
+
+
 def _dense_top(a: np.ndarray) -> tuple[float, np.ndarray]:
     d = a.shape[0]
     vals, vecs = scipy.linalg.eigh(a, subset_by_index=[d - 1, d - 1])
@@ -134,7 +163,10 @@ def top_tangent_eigenpair(
         theta, y = _dense_top(mat)  # eigh reads one triangle
     else:
         try:
-            vals, vecs = eigsh(op, k=_RITZ_PAIRS, which="LA", v0=basis.coordinates(v0), tol=rel_tol)
+            lanczos_op = symmetric_operator(op) if _dsymv_ready(op) else op
+            vals, vecs = eigsh(
+                lanczos_op, k=_RITZ_PAIRS, which="LA", v0=basis.coordinates(v0), tol=rel_tol
+            )
             top = int(np.argmax(vals))
             theta, y = float(vals[top]), vecs[:, top]
         except ArpackNoConvergence as exc:

@@ -16,10 +16,13 @@ since a study adds its tasks up:
   3 t_mv per step: m = 44 ln n - 171 products with the dense tangent matrix (at least 40; the
   means per step of default runs, pure 3-spin, were 62, 84, 111, 133 and 141 at n = 200, 400,
   800, 1000 and 1200), 1.2e-5 s of ARPACK and Python per product, and three products' worth
-  for restricting the Hessian to the tangent space. t_mv, one product of an n x n matrix with
-  a vector on one BLAS thread, is timed on the driver at each size (:func:`matvec_seconds`),
-  since it grows faster than n^2 once the matrix leaves the caches: 0.19-0.23, 0.71, 1.47 and
-  3.3 ms at n = 1200, 1600, 2000 and 2800 here (2026-12-05, in-run and timed apart), where a
+  for restricting the Hessian to the tangent space. t_mv, one product of the symmetric n x n
+  tangent matrix with a vector on one BLAS thread (one triangle read, as Lanczos does), is
+  timed on the driver at each size (:func:`matvec_seconds`), since it grows faster than n^2
+  once the matrix leaves the caches: 0.23, 0.41, 0.62 and 1.17 ms at n = 1200, 1600, 2000
+  and 2800 on the Intel Xeon (2026-12-05; products of the whole matrix took 0.37, 0.68, 1.06
+  and 2.27 ms in the same minutes, and 0.19-0.23, 0.71, 1.47 and 3.3 ms on an earlier day's
+  host, in-run and timed apart), where a
   fixed a + b n^2 per step (6e-4 + 1.1e-8 n^2 s, fitted to n <= 1000) had put a step at 44 ms
   against 255 ms measured at n = 2000 (pure 2-spin) and 16 against 31 ms at n = 1200 (pure
   3-spin). Where the dense Hessian does not fit (:func:`dense_lanczos`; n of order 10^4 and
@@ -75,6 +78,7 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
+from ..algorithms._eigen import symmetric_operator
 from ..algorithms.hessian_ascent import auto_steps, eigen_solves, stepwise_limit_if_short
 from .grid import LEGACY_START, StudySpec
 from .profile import best_time
@@ -189,8 +193,9 @@ def timing_budget(nbytes: int) -> int:
 
 
 def matvec_seconds(n: int) -> float:
-    """Seconds of one product of a dense n x n float64 matrix with a vector on one BLAS thread,
-    as Lanczos makes them (best of 3 after one untimed product; cached for the process). A
+    """Seconds of one product of a dense symmetric n x n float64 matrix with a vector on one
+    BLAS thread, as Lanczos makes them (reading one triangle, ``symmetric_operator``; best of
+    3 after one untimed product; cached for the process). A
     matrix above 64 MiB (n > 2896; the calibration's own instances hold at most that) is timed
     at 64 MiB (or what :func:`timing_budget` allows) and the time scaled by n^2: that large,
     the product streams it from memory."""
@@ -198,10 +203,10 @@ def matvec_seconds(n: int) -> float:
     if side not in _MATVEC_CACHE:
         from ..runtime import one_blas_thread
 
-        a = np.full((side, side), 0.5)
+        product = symmetric_operator(np.full((side, side), 0.5)).matvec
         v = np.full(side, 0.25)
         with one_blas_thread():
-            _MATVEC_CACHE[side] = best_time(lambda: a @ v, repeats=3)
+            _MATVEC_CACHE[side] = best_time(lambda: product(v), repeats=3)
     return _MATVEC_CACHE[side] * (n / side) ** 2
 
 
