@@ -680,6 +680,27 @@ def test_the_check_runs_matrix_free_when_the_dense_hessian_does_not_fit(monkeypa
     assert run.info["n_positive"] == tangent_spectrum(ham, run.x)["n_positive"]
 
 
+def test_the_dense_lanczos_check_agrees_with_all_eigenvalues(monkeypatch):
+    # above DENSE_EIGVALS_MAX_N spins the dense check runs Lanczos for the top 10 (one
+    # triangle of the shifted matrix per product); lowered here so that n = 80 takes that
+    # route: the top eigenvalue and the count of positive ones among the top 10 are those of
+    # scipy.linalg.eigvalsh on an explicit basis of the tangent space
+    import importlib
+
+    polish_module = importlib.import_module("orthoclimb.algorithms.polish")
+    n = 80
+    ham = oc.Hamiltonian.sample(oc.Mixture({2: 0.5, 3: 1.0}), n, seed=4)
+    x = np.random.default_rng(1).standard_normal(n)
+    x /= np.linalg.norm(x)
+    want = _tangent_eigenvalues(ham, x)
+    monkeypatch.setattr(polish_module, "DENSE_EIGVALS_MAX_N", 50)
+    spec = tangent_spectrum(ham, x)
+    assert spec["exhaustive"] is False
+    assert spec["top_eigenvalue"] == pytest.approx(want[0] / n, rel=1e-9)
+    assert spec["n_positive"] == min(int(np.count_nonzero(want > 0)), 10)
+    assert 0 < spec["n_positive"]  # a random point: some positive directions to count
+
+
 def test_the_lanczos_check_gives_the_same_numbers_every_time():
     # Above 3000 spins the check runs Lanczos; ARPACK's own start vector is random, so three
     # checks of one point differed in the 15th digit. It now starts from a fixed vector.
