@@ -13,7 +13,8 @@ from orthoclimb import Mixture
 from orthoclimb.cli import main
 from orthoclimb.studies.engine import run_study
 from orthoclimb.studies.grid import spec_from_flags
-from orthoclimb.studies.report import build_report, caveats, write_report
+from orthoclimb.studies.report import build_report, write_report
+from orthoclimb.studies.report_text import caveats
 from orthoclimb.studies.store import Store
 from orthoclimb.studies.tasks import TheoryValues
 
@@ -390,7 +391,7 @@ def test_findings_flag_a_fit_that_one_sizes_small_spread_dominates(tmp_path):
     # lies far below the trend of the others' takes most of the weight, which the finding and
     # the table say (a user trial: 82 % at n = 190 from 8 seeds, and 8 more seeds moved e_inf
     # by 2.75 s.e.); variances that fall steeply but on one power law are not flagged
-    from orthoclimb.studies.report import caveats, heaviest_size
+    from orthoclimb.studies.report import heaviest_size
 
     z = np.random.default_rng(3).standard_normal(8)
     z = (z - z.mean()) / z.std(ddof=1)  # exact: sample variance 1 for every size
@@ -584,15 +585,15 @@ def test_the_grid_line_names_own_sizes_and_the_storage_type():
     # the report's header said "Sizes [30, 45]" for a study whose first mixture ran at
     # [20, 40], said nothing of float32, and wrote "1 seeds" (user review)
     from orthoclimb.studies.grid import MethodSpec, MixtureSpec, StudySpec
-    from orthoclimb.studies.report import _grid_line
+    from orthoclimb.studies.report_text import grid_line
 
     a = MixtureSpec.make(Mixture({3: 1.0}), "a", "20,40")
     b = MixtureSpec.make(Mixture({2: 1.0}), "b")
     gradient = MethodSpec.make("gradient", {})
-    line = _grid_line(StudySpec((a, b), (30, 45), (0,), (gradient,), dtype="float32"))
+    line = grid_line(StudySpec((a, b), (30, 45), (0,), (gradient,), dtype="float32"))
     assert line.startswith("Sizes [30, 45]; a: [20, 40]; 1 seed; float32 storage")
     assert "methods gradient (" in line
-    line = _grid_line(StudySpec((a,), (30, 45), (0, 1), (gradient,)))
+    line = grid_line(StudySpec((a,), (30, 45), (0, 1), (gradient,)))
     assert line.startswith("Sizes; a: [20, 40]; 2 seeds; float64; methods")
 
 
@@ -666,7 +667,7 @@ def test_report_out_writes_elsewhere_and_a_failed_write_points_to_it(tmp_path, c
 
 def test_confidence_levels_are_labelled_without_rounding():
     # int(round(100 level)) printed 0.996 as a "100%" interval and 0.004 as "0%" (a review)
-    from orthoclimb.studies.report import level_text
+    from orthoclimb.studies.report_text import level_text
 
     assert [level_text(v) for v in (0.9, 0.996, 0.004, 0.95)] == ["90", "99.6", "0.4", "95"]
 
@@ -719,11 +720,11 @@ def test_a_polishing_series_from_older_rows_is_named_and_its_groups_are_unchecke
 def test_the_gap_finding_cites_the_proof_only_where_it_holds(tmp_path, mixture, even):
     # Huang-Sellke 2021 prove the Lipschitz hardness for mixtures of even degrees; for others
     # the report speaks of a prediction (a review)
-    from orthoclimb.studies.report import _theory_finding
+    from orthoclimb.studies.report_text import theory_finding
 
     th = {"alg": 1.6, "gs": 1.65, "full_rsb": False, "gs_equals_alg": False, "even": even}
     th["gap_gs_alg"] = 0.05
-    text = _theory_finding(mixture, th)
+    text = theory_finding(mixture, th)
     assert ("cannot close (Huang-Sellke 2021" in text) == even
     assert ("are predicted not to close (proved for mixtures of even degrees only" in text) == (
         not even
@@ -733,15 +734,15 @@ def test_the_gap_finding_cites_the_proof_only_where_it_holds(tmp_path, mixture, 
 def test_a_gap_below_the_solvers_tolerance_is_not_called_unclosable():
     # a user trial: 2:1,4:0.4 (criterion fails) has GS - ALG = 9.7e-08, which the report
     # called "a gap that algorithms ... cannot close"; the ground state is computed to 1e-6
-    from orthoclimb.studies.report import _theory_finding
+    from orthoclimb.studies.report_text import theory_finding
 
     th = {"alg": 1.6156635, "gs": 1.6156636, "full_rsb": False, "gs_equals_alg": False}
     th.update(even=True, gap_gs_alg=1.0e-7)
-    text = _theory_finding("2:1,4:0.4", th)
+    text = theory_finding("2:1,4:0.4", th)
     assert "differ by only +1.0e-07, within the Parisi solver's default tolerance (1e-06)" in text
     assert "cannot close" not in text and "predicted not to close" not in text
     th.update(gap_gs_alg=2e-6)  # above the tolerance: the usual sentence
-    assert "cannot close (Huang-Sellke 2021" in _theory_finding("2:1,4:0.4", th)
+    assert "cannot close (Huang-Sellke 2021" in theory_finding("2:1,4:0.4", th)
 
 
 def test_the_report_extrapolates_the_difference_of_two_methods_limits(tmp_path):
@@ -851,7 +852,7 @@ def test_rows_of_several_versions_are_named_and_the_sampler_change_is_said(tmp_p
     assert "written by 2 versions of orthoclimb (0.2.0: 6 rows, 0.2.1: 2 rows)" in found["b"]
     assert "bitwise" not in found["b"]
     assert "versions of orthoclimb" not in found["c"]  # one (unrecorded) version: nothing
-    from orthoclimb.studies.report import mixed_versions_text
+    from orthoclimb.studies.report_text import mixed_versions_text
 
     text = mixed_versions_text([{"version": "0.10.0"}, {"version": "0.2.0"}, {}])
     assert "(no version recorded: 1 rows, 0.2.0: 1 rows, 0.10.0: 1 rows)" in text
@@ -861,7 +862,7 @@ def test_rows_of_one_version_from_different_code_are_pointed_out():
     # a user trial: a worker of an external cluster imported another copy of the package (the
     # same version, one line changed): 4 of 16 rows came from it, two energies moved by up to
     # 0.08 per spin, and the report said nothing
-    from orthoclimb.studies.report import mixed_code_text
+    from orthoclimb.studies.report_text import mixed_code_text
 
     rows = [{"version": "0.2.0", "code": "aaaa"}] * 12 + [{"version": "0.2.0", "code": "bbbb"}] * 4
     assert mixed_code_text(rows) == (
