@@ -36,7 +36,7 @@ def plot_files(
     report writes together with its text files, all or none."""
     from matplotlib.figure import Figure
 
-    from .report import level_text
+    from .report_text import level_text
 
     mixtures = list(rep.theory)
     methods = rep.labels or [m.name for m in rep.spec.methods]  # with "... before polish"
