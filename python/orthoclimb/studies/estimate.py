@@ -12,23 +12,22 @@ since a study adds its tasks up:
 
 * Hessian ascent: K - 1 Hessian steps (none when the first stage ends on the sphere,
   ``hessian_moves``; one more for a start along the top eigenvector of Hess H(0)), each a
-  Hessian pass plus Lanczos, and its polish. Lanczos costs 6e-4 s + m (t_mv + 1.2e-5 s) +
-  3 t_mv per step: m = 44 ln n - 171 products with the dense tangent matrix (at least 40; the
+  Hessian pass plus Lanczos, and its polish. Lanczos costs 6e-4 s + m (t_mv + 1.2e-5 s)
+  + 10 t_mv per step: m = 44 ln n - 171 products with the dense tangent matrix (at least 40; the
   means per step of default runs, pure 3-spin, were 62, 84, 111, 133 and 141 at n = 200, 400,
-  800, 1000 and 1200), 1.2e-5 s of ARPACK and Python per product, and three products' worth
-  for restricting the Hessian to the tangent space. t_mv, one product of the symmetric n x n
-  tangent matrix with a vector on one BLAS thread (one triangle read, as Lanczos does), is
-  timed on the driver at each size (:func:`matvec_seconds`), since it grows faster than n^2
-  once the matrix leaves the caches: 0.23, 0.41, 0.62 and 1.17 ms at n = 1200, 1600, 2000
-  and 2800 on the Intel Xeon (2026-12-05; products of the whole matrix took 0.37, 0.68, 1.06
-  and 2.27 ms in the same minutes, and 0.19-0.23, 0.71, 1.47 and 3.3 ms on an earlier day's
-  host, in-run and timed apart), where a
-  fixed a + b n^2 per step (6e-4 + 1.1e-8 n^2 s, fitted to n <= 1000) had put a step at 44 ms
-  against 255 ms measured at n = 2000 (pure 2-spin) and 16 against 31 ms at n = 1200 (pure
-  3-spin). Where the dense Hessian does not fit (:func:`dense_lanczos`; n of order 10^4 and
-  more) t_mv is a Hessian-vector product, timed at the calibration size and scaled as a pass.
-  Pure 2-spin runs make fewer products (90 and 102 per step at n = 1000 and 1500), so the
-  model is 1.2-1.5 times their time there.
+  800, 1000 and 1200), 1.2e-5 s of ARPACK and Python per product, and ten products' worth for
+  restricting the Hessian to the tangent space (measured: 9.4-12 at n = 400-3000). t_mv, one
+  product of the symmetric n x n tangent matrix with a vector on one BLAS thread (one triangle
+  read, as Lanczos does), is timed on the driver at each size (:func:`matvec_seconds`), since it
+  grows faster than n^2 once the matrix leaves the caches: 0.23, 0.41, 0.62 and 1.17 ms at
+  n = 1200, 1600, 2000 and 2800 on the Intel Xeon (2026-12-05; products of the whole matrix took
+  0.37, 0.68, 1.06 and 2.27 ms in the same minutes, and 0.19-0.23, 0.71, 1.47 and 3.3 ms on an
+  earlier day's host, in-run and timed apart), where a fixed a + b n^2 per step (6e-4 + 1.1e-8
+  n^2 s, fitted to n <= 1000) had put a step at 44 ms against 255 ms measured at n = 2000 (pure
+  2-spin) and 16 against 31 ms at n = 1200 (pure 3-spin). Where the dense Hessian does not fit
+  (:func:`dense_lanczos`; n of order 10^4 and more) t_mv is a Hessian-vector product, timed at
+  the calibration size and scaled as a pass. Pure 2-spin runs make fewer products (90 and 102
+  per step at n = 1000 and 1500), so the model is 1.2-1.5 times their time there.
   With a field, its first stage (an ascent to radius sqrt(q_hat)) adds 36 ln n - 74
   energy-and-gradient passes (at least 30): 60-113 at n = 50-400 for 1:0.5,3:1 and 78-177
   for 1:0.3,2:1,4:0.25 (one seed each; a user trial found it missing, 0.46 s of a 1.26 s
@@ -118,7 +117,9 @@ _CAL_BYTES = 64 * 2**20
 LANCZOS_MATVECS = (-171.0, 44.0, 40.0)
 LANCZOS_SOLVE = 6e-4
 LANCZOS_ITERATION = 1.2e-5
-RESTRICT_MATVECS = 3
+# restricting: two rank-one updates, a product and a copy of the whole matrix, 9.4-12 times
+# one one-triangle product at n = 400-3000 (2026-12-05; 3 was fitted to whole-matrix products)
+RESTRICT_MATVECS = 10
 # one product of a cached n x n matrix with a vector, per entry: the model's t_mv where no
 # timing is given (0.16 ns: measured at n = 1200, 2026-12-05)
 MATVEC_PER_ENTRY = 1.6e-10
