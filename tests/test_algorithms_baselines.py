@@ -696,7 +696,8 @@ def test_the_dense_lanczos_check_agrees_with_all_eigenvalues(monkeypatch):
     monkeypatch.setattr(polish_module, "DENSE_EIGVALS_MAX_N", 50)
     spec = tangent_spectrum(ham, x)
     assert spec["exhaustive"] is False
-    assert spec["top_eigenvalue"] == pytest.approx(want[0] / n, rel=1e-9)
+    # ARPACK's tol = 1e-8 bounds the residual by 1e-8 |theta|, so theta is that close
+    assert spec["top_eigenvalue"] == pytest.approx(want[0] / n, rel=1e-8)
     assert spec["n_positive"] == min(int(np.count_nonzero(want > 0)), 10)
     assert 0 < spec["n_positive"]  # a random point: some positive directions to count
 
