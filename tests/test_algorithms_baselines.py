@@ -450,6 +450,29 @@ def test_given_coefficients_far_from_unit_scale_warn_too(recwarn):
         oc.hessian_ascent(huge, steps=3)
 
 
+def test_a_polish_far_from_unit_scale_ends_where_newton_stopped():
+    # at 1e300 times a unit instance gtol = 1e-7 lies far below rounding, so Newton stops
+    # with "no progress" once its gradient is at rounding level (1e-15 relative here); the
+    # gradient steps that followed could only wander there and returned their best energy,
+    # at 3.6e-9 relative, above the stall bound sqrt(eps) |E| (2.6e-9 here): no local
+    # maximum. The polish now keeps Newton's point; at unit scale nothing changes
+    import warnings
+
+    coeffs = np.random.default_rng(0).standard_normal(1540)
+    unit = oc.Hamiltonian.from_coefficients(20, {3: coeffs})
+    start = oc.hessian_ascent(unit, polish=False).x
+    ref = oc.polish(unit, start)
+    assert ref.info["status"] == "converged" and ref.info["local_max"] is True
+    scale = 1e300
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore", RuntimeWarning)  # the scale warning
+        far = oc.polish(oc.Hamiltonian.from_coefficients(20, {3: coeffs * scale}), start)
+    assert far.info["status"] == "stalled" and far.info["newton_status"] == "no_progress"
+    assert far.info["local_max"] is True
+    assert far.info["grad_norm"] / scale < 1e-9
+    assert far.energy / scale == pytest.approx(ref.energy, rel=1e-12)
+
+
 def test_hessian_ascent_at_1e300_reports_finite_norms_without_numpy_warnings():
     # a user trial: at coefficients of 1e300 the energy was right but grad_norm came back as
     # inf, with hundreds of NumPy overflow warnings (|v| summed squares past float64's

@@ -8,7 +8,9 @@ mixture), then damped Riemannian Newton steps (:mod:`._newton`: one Hessian pass
 Cholesky solve each, the system shifted by a multiple of the identity where the point is not
 near a maximum) until |P grad H(x)|/n <= gtol, when the dense Hessian fits in memory
 (n <= 4000). If Newton stops short (no damped step raises the energy, or 40 steps), gradient
-ascent continues. With gtol times c, polishing c H makes the same steps as polishing H, bit
+ascent continues, unless Newton's gradient is at rounding level already (within the stall bound
+of :func:`is_critical`; an energy scale far from 1 puts gtol below rounding): the polish then
+ends there, "stalled". With gtol times c, polishing c H makes the same steps as polishing H, bit
 for bit, when c is a power of two (otherwise the hand-over can fall a step apart).
 
 Gradient ascent alone converges linearly with a rate set by the tangent spectrum, which near
@@ -291,7 +293,12 @@ def _polish(ham: Hamiltonian, x0: np.ndarray, gtol: float, max_iter: int, check:
             rows["alpha"].append(float("nan"))
         x, energy, gnorm = out.x, out.energy, out.grad_norm
         status = "converged" if out.status == "converged" else status
-        if gnorm > gtol and iterations < max_iter:  # Newton stopped short: back to gradients
+        if out.status == "no_progress" and is_critical(gnorm, gtol, "stalled", energy):
+            # Newton stopped at rounding level (gtol below it: an energy scale far from 1);
+            # gradient steps from there could only wander in the rounding, and their best
+            # energy is not the smallest gradient (1e-16 relative left, 4e-9 brought back)
+            status = "stalled"
+        elif gnorm > gtol and iterations < max_iter:  # Newton stopped short: back to gradients
             rest = sphere_ascent(ham, x, gtol=gtol, max_iter=max_iter - iterations, scale=scale)
             dropped += rest.iterations - rest.returned_iteration
             for k in ("iteration", "energy", "grad_norm", "alpha"):
