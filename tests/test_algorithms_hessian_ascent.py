@@ -202,8 +202,14 @@ def test_energy_gradient_read_off_hessian(gammas):
     np.testing.assert_allclose(g, g0, rtol=1e-11, atol=1e-11)
 
 
-def test_operator_mode_matches_dense():
-    # exact arithmetic gives the same path; Lanczos tolerances allow small differences
+def test_operator_mode_matches_dense(monkeypatch):
+    # exact arithmetic gives the same path; Lanczos tolerances allow small differences. Both
+    # modes go through Lanczos here (a dense space this small is otherwise solved by eigh,
+    # whose eigenvector sign convention is not ARPACK's: the start's sign, and the path, can
+    # then differ between the modes)
+    import orthoclimb.algorithms._eigen as eigen_module
+
+    monkeypatch.setattr(eigen_module, "DIRECT_MAX", eigen_module.OPERATOR_DIRECT_MAX)
     ham = oc.Hamiltonian.sample(oc.Mixture({2: 1.0, 3: 1.0, 4: 0.5}), 40, seed=1)
     a = oc.hessian_ascent(ham, steps=20, tol=1e-6, seed=2, polish=False, hessian="dense")
     b = oc.hessian_ascent(ham, steps=20, tol=1e-6, seed=2, polish=False, hessian="operator")
@@ -363,10 +369,16 @@ def test_symmetric_operator_hands_blas_the_matrix_itself(monkeypatch):
     assert seen[-1] is seen[-2] and seen[-1].flags.f_contiguous  # converted once
 
 
-def test_dense_lanczos_reads_one_triangle_of_the_tangent_matrix():
+@pytest.mark.parametrize("direct_max", [16, None])  # Lanczos at n = 80, and eigh (default)
+def test_dense_lanczos_reads_one_triangle_of_the_tangent_matrix(monkeypatch, direct_max):
     # the restricted matrix's two triangles agree to rounding; Lanczos on the dense matrix
-    # uses the upper one only (half the bytes per product), so a NaN below the diagonal
-    # changes nothing: the top pair is scipy.linalg.eigh's of the symmetric matrix
+    # uses the upper one only (half the bytes per product), and so does the dense solve of
+    # a small space, so garbage below the diagonal changes nothing: the top pair is
+    # scipy.linalg.eigh's of the symmetric matrix
+    import orthoclimb.algorithms._eigen as eigen_module
+
+    if direct_max is not None:
+        monkeypatch.setattr(eigen_module, "DIRECT_MAX", direct_max)
     n = 80
     rng = np.random.default_rng(3)
     u = rng.standard_normal(n)
@@ -376,7 +388,7 @@ def test_dense_lanczos_reads_one_triangle_of_the_tangent_matrix():
     basis = TangentBasis(u)
     op = basis.restrict_inplace(m.copy())
     want_vals, want_vecs = scipy.linalg.eigh(np.triu(op) + np.triu(op, 1).T)
-    op[np.tril_indices(n - 1, -1)] = np.nan
+    op[np.tril_indices(n - 1, -1)] = 1e3  # finite: eigh refuses NaN anywhere
     theta, v, fallback = top_tangent_eigenpair(op, basis, rng.standard_normal(n), 1e-12)
     assert not fallback
     assert theta == pytest.approx(want_vals[-1], rel=1e-10)
@@ -449,11 +461,12 @@ def test_lanczos_tolerance_is_delta_n_over_the_eigenvalue_bound(monkeypatch):
         return vals, vecs
 
     monkeypatch.setattr(eigen_module, "eigsh", recording_eigsh)
+    monkeypatch.setattr(eigen_module, "DIRECT_MAX", 16)  # n = 60: Lanczos, not eigh
     n, delta, steps = 60, 1e-3, 15
     need = delta * n
     ham = oc.Hamiltonian.sample(oc.Mixture({3: 1.0}), n, seed=0)
     res = oc.hessian_ascent(ham, steps=steps, tol=delta, seed=1, polish=False, hessian="dense")
-    accepted, i = [], 0  # n - 1 > DIRECT_MAX: every step is an ARPACK solve
+    accepted, i = [], 0  # n - 1 > DIRECT_MAX (16 here): every step is an ARPACK solve
     while i < len(calls):
         tol, theta = calls[i]
         assert tol < 0.1  # below the cap, so the rule applies unclipped
@@ -515,6 +528,7 @@ def test_no_step_needs_a_second_lanczos_solve(monkeypatch, gammas):
         return real_eigsh(*args, **kwargs)
 
     monkeypatch.setattr(eigen_module, "eigsh", counting_eigsh)
+    monkeypatch.setattr(eigen_module, "DIRECT_MAX", 16)  # n = 60: Lanczos, not eigh
     ham = oc.Hamiltonian.sample(oc.Mixture(gammas), 60, seed=0)
     oc.hessian_ascent(ham, steps=15, seed=1, polish=False, hessian="dense")
     # one solve per move, none repeated, and one for a start along the top eigenvector of

@@ -36,9 +36,22 @@ the Krylov space: 0 of the 1063 steps then missed, for about 45 % more time in t
 eigen-solves, 5-19 % of a whole run (n = 600, pure 3-spin, 75 steps: 0.33-0.42 s against
 0.50-0.60 s in a run of 1.4-1.7 s).
 Lanczos certifies nothing about eigenvalues its space never saw, so this is a measured
-safeguard, not a proof. Tangent spaces of at
-most ``DIRECT_MAX`` dimensions are solved exactly by ``scipy.linalg.eigh`` (ARPACK needs more
-dimensions than wanted eigenvalues, and for so few a dense solve is cheaper anyway).
+safeguard, not a proof.
+
+Small spaces. Dense tangent matrices of at most ``DIRECT_MAX`` = 200 dimensions are solved
+exactly by ``scipy.linalg.eigh`` (LAPACK, the top eigenpair only), which has no tolerance and
+no second-eigenvalue trap; an operator is formed as a matrix and solved so only up to
+``OPERATOR_DIRECT_MAX`` = 16 dimensions (forming it takes a product per dimension).
+ARPACK's Python round trip per product makes it the slower of the two there: runs with K =
+100 (one BLAS thread, two alternating runs each, eigen-solve seconds per run) took 0.07
+against 0.012-0.019 s at n = 40 (xi = q^2 + q^4/16), 0.15-0.25 against 0.08-0.13 s at n =
+150 and 0.30-0.34 against 0.15-0.18 s at n = 220 (pure 3-spin), but 0.37 against 0.43-0.45 s
+at n = 320 and 0.47-0.53 against 0.74 s at n = 400. The polished energies were the same in
+all of these. Two such processes at once on two cores, as a study's workers run (one kernel
+thread each, default K, four seeds, milliseconds per run, two rounds): 33-57 against 18-26
+at n = 60, 36-62 against 23-37 at n = 100, 53-85 against 44-69 at n = 150, but 102-145
+against 100-141 at n = 220 and 153-205 against 160-213 at n = 256; hence the limit 200.
+Until December 2026 it was 16.
 """
 
 from __future__ import annotations
@@ -52,9 +65,17 @@ from scipy.sparse.linalg import ArpackError, ArpackNoConvergence, LinearOperator
 
 from ._sphere import norm
 
-__all__ = ["DIRECT_MAX", "TangentBasis", "symmetric_operator", "top_tangent_eigenpair"]
+__all__ = [
+    "DIRECT_MAX",
+    "OPERATOR_DIRECT_MAX",
+    "TangentBasis",
+    "symmetric_operator",
+    "top_tangent_eigenpair",
+]
 
-DIRECT_MAX = 16  # tangent dimensions solved by a dense eigh
+DIRECT_MAX = 200  # tangent dimensions solved by a dense eigh (module doc, "Small spaces")
+# the same for an operator, whose matrix takes d products (each a pass over the instance)
+OPERATOR_DIRECT_MAX = 16
 # Ritz pairs ARPACK must converge (module doc, "Which eigenvalue"): the top two, not the top one
 _RITZ_PAIRS = 2
 
@@ -163,7 +184,7 @@ def top_tangent_eigenpair(
     and the result came from its best Ritz pair (operator) or from a dense ``eigh`` (matrix)."""
     fallback = False
     d = basis.dim
-    if d <= DIRECT_MAX:
+    if d <= (DIRECT_MAX if isinstance(op, np.ndarray) else OPERATOR_DIRECT_MAX):
         mat = op if isinstance(op, np.ndarray) else op.matmat(np.eye(d))
         theta, y = _dense_top(mat)  # eigh reads the upper triangle
     else:

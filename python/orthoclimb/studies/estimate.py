@@ -27,7 +27,10 @@ since a study adds its tasks up:
   2-spin) and 16 against 31 ms at n = 1200 (pure 3-spin). Where the dense Hessian does not fit
   (:func:`dense_lanczos`; n of order 10^4 and more) t_mv is a Hessian-vector product, timed at
   the calibration size and scaled as a pass. Pure 2-spin runs make fewer products (90 and 102
-  per step at n = 1000 and 1500), so the model is 1.2-1.5 times their time there.
+  per step at n = 1000 and 1500), so the model is 1.2-1.5 times their time there. At n - 1
+  <= DIRECT_MAX = 200 the step solves its tangent space densely instead (``_eigen``): 6e-5 s +
+  4.2e-8 (n - 1)^2 s besides the restriction (measured: 0.14, 0.32, 1.19 and 2.77 ms at
+  n - 1 = 40, 80, 160 and 256).
   With a field, its first stage (an ascent to radius sqrt(q_hat)) adds 36 ln n - 74
   energy-and-gradient passes (at least 30): 60-113 at n = 50-400 for 1:0.5,3:1 and 78-177
   for 1:0.3,2:1,4:0.25 (one seed each; a user trial found it missing, 0.46 s of a 1.26 s
@@ -77,7 +80,7 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
-from ..algorithms._eigen import symmetric_operator
+from ..algorithms._eigen import DIRECT_MAX, symmetric_operator
 from ..algorithms.hessian_ascent import auto_steps, eigen_solves, stepwise_limit_if_short
 from .grid import LEGACY_START, StudySpec
 from .profile import best_time
@@ -120,6 +123,10 @@ LANCZOS_ITERATION = 1.2e-5
 # restricting: two rank-one updates, a product and a copy of the whole matrix, 9.4-12 times
 # one one-triangle product at n = 400-3000 (2026-12-05; 3 was fitted to whole-matrix products)
 RESTRICT_MATVECS = 10
+# the dense solve of a tangent space of d <= DIRECT_MAX dimensions (scipy.linalg.eigh, top
+# pair, one BLAS thread): a + b d^2 seconds, 0.14, 0.32, 1.19 and 2.77 ms at d = 40, 80, 160
+# and 256 (2026-12-05; the d^3 of the reduction does not show yet at these sizes)
+DENSE_SOLVE = (6e-5, 4.2e-8)
 # one product of a cached n x n matrix with a vector, per entry: the model's t_mv where no
 # timing is given (0.16 ns: measured at n = 1200, 2026-12-05)
 MATVEC_PER_ENTRY = 1.6e-10
@@ -171,12 +178,15 @@ def check_seconds(n: int) -> float:
 
 
 def lanczos_seconds(n: int, matvec: float | None = None, dense: bool = True) -> float:
-    """Seconds of one Hessian-ascent step's Lanczos at n (module doc), with ``matvec`` seconds
-    per product of the n x n tangent matrix with a vector (None: MATVEC_PER_ENTRY n^2); not
-    ``dense``: the products are Hessian-vector products and nothing is restricted."""
+    """Seconds of one Hessian-ascent step's eigen-solve at n (module doc): Lanczos, with
+    ``matvec`` seconds per product of the n x n tangent matrix with a vector (None:
+    MATVEC_PER_ENTRY n^2), or below ``DIRECT_MAX`` tangent dimensions LAPACK's dense solve;
+    not ``dense``: the products are Hessian-vector products and nothing is restricted."""
     t_mv = MATVEC_PER_ENTRY * n * n if matvec is None else matvec
-    products = _log_fit(n, LANCZOS_MATVECS)
     restrict = RESTRICT_MATVECS * t_mv if dense else 0.0
+    if dense and n - 1 <= DIRECT_MAX:
+        return DENSE_SOLVE[0] + DENSE_SOLVE[1] * (n - 1) ** 2 + restrict
+    products = _log_fit(n, LANCZOS_MATVECS)
     return LANCZOS_SOLVE + products * (t_mv + LANCZOS_ITERATION) + restrict
 
 
