@@ -8,10 +8,11 @@ mixture), then damped Riemannian Newton steps (:mod:`._newton`: one Hessian pass
 Cholesky solve each, the system shifted by a multiple of the identity where the point is not
 near a maximum) until |P grad H(x)|/n <= gtol, when the dense Hessian fits in memory
 (n <= 4000). If Newton stops short (no damped step raises the energy, or 40 steps), gradient
-ascent continues, unless Newton's gradient is at rounding level already (within the stall bound
-of :func:`is_critical`; an energy scale far from 1 puts gtol below rounding): the polish then
-ends there, "stalled". With gtol times c, polishing c H makes the same steps as polishing H, bit
-for bit, when c is a power of two (otherwise the hand-over can fall a step apart).
+ascent continues; if it gains no energy beyond rounding (1e-12 relative) and ends with a larger
+gradient than Newton's, Newton's point is returned with the gradient steps' status (an energy
+scale far from 1 puts gtol below rounding: there they only wander in it). With gtol times c,
+polishing c H makes the same steps as polishing H, bit for bit, when c is a power of two
+(otherwise the hand-over can fall a step apart).
 
 Gradient ascent alone converges linearly with a rate set by the tangent spectrum, which near
 the marginal maxima that climbers reach extends close to zero. Until December 2026 the polish
@@ -106,6 +107,9 @@ DENSE_EIGVALS_MAX_N = 3000
 NEWTON_MAX_N = 4000
 NEWTON_START_GTOL = 1e-2  # per spin: gradient ascent hands over to Newton below this
 NEWTON_MAX_STEPS = 40
+# relative energy gain below which gradient steps after Newton found nothing (rounding: the
+# energy sums many terms, so its noise is some times eps |E|)
+_FLAT = 1e-12
 LANCZOS_TOP = 10
 POSITIVE_THRESHOLD = 1e-9  # relative to |Hess H|_inf + |x.grad H|
 
@@ -293,21 +297,24 @@ def _polish(ham: Hamiltonian, x0: np.ndarray, gtol: float, max_iter: int, check:
             rows["alpha"].append(float("nan"))
         x, energy, gnorm = out.x, out.energy, out.grad_norm
         status = "converged" if out.status == "converged" else status
-        if out.status == "no_progress" and is_critical(gnorm, gtol, "stalled", energy):
-            # Newton stopped at rounding level (gtol below it: an energy scale far from 1);
-            # gradient steps from there could only wander in the rounding, and their best
-            # energy is not the smallest gradient (1e-16 relative left, 4e-9 brought back)
-            status = "stalled"
-        elif gnorm > gtol and iterations < max_iter:  # Newton stopped short: back to gradients
+        if gnorm > gtol and iterations < max_iter:  # Newton stopped short: back to gradients
             rest = sphere_ascent(ham, x, gtol=gtol, max_iter=max_iter - iterations, scale=scale)
-            dropped += rest.iterations - rest.returned_iteration
-            for k in ("iteration", "energy", "grad_norm", "alpha"):
-                extra = rest.rows[k][1 : rest.returned_iteration + 1]
-                if k == "iteration":
-                    extra = [rows["iteration"][-1] + i for i in extra]
-                rows[k].extend(extra)
-            x, energy, gnorm, status = rest.x, rest.energy, rest.grad_norm, rest.status
             iterations, passes = iterations + rest.iterations, passes + rest.passes
+            if rest.energy <= energy + _FLAT * abs(energy) and rest.grad_norm > gnorm:
+                # no gain beyond rounding and a larger gradient: the steps only wandered in
+                # the rounding (gtol below it, an energy scale far from 1: Newton left 1e-15
+                # relative, their best energy 3.6e-9). Newton's point stays, and its status
+                # is the gradient steps' verdict on it ("stalled" there)
+                dropped += rest.iterations
+                status = rest.status
+            else:  # a saddle or a flat region that the gradient steps climb out of
+                dropped += rest.iterations - rest.returned_iteration
+                for k in ("iteration", "energy", "grad_norm", "alpha"):
+                    extra = rest.rows[k][1 : rest.returned_iteration + 1]
+                    if k == "iteration":
+                        extra = [rows["iteration"][-1] + i for i in extra]
+                    rows[k].extend(extra)
+                x, energy, gnorm, status = rest.x, rest.energy, rest.grad_norm, rest.status
     if gnorm > gtol and status == "converged":
         # stage 1 converged to its hand-over tolerance with the last allowed iteration and
         # Newton stopped short: the cap, not convergence, ended the polish
