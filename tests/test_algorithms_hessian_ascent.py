@@ -296,7 +296,8 @@ def test_tangent_basis_is_an_orthonormal_basis_of_the_tangent_space(u):
     np.testing.assert_allclose(op.matmat(np.eye(d)), want, atol=1e-13)
 
 
-@pytest.mark.parametrize("n", [5, 60])  # a dense solve (n - 1 <= DIRECT_MAX) and Lanczos
+# a dense solve (n - 1 <= DIRECT_MAX) but for the operator at 60, and Lanczos at 250
+@pytest.mark.parametrize("n", [5, 60, 250])
 @pytest.mark.parametrize("as_operator", [False, True])
 def test_top_tangent_eigenpair_when_every_tangent_eigenvalue_is_negative(n, as_operator):
     # P M P would have the eigenvalue 0 on u above all of these; the reference is
@@ -650,21 +651,27 @@ def test_the_callback_sees_the_rows_the_result_keeps():
 
 
 def test_a_tol_large_against_the_mixture_is_warned_of():
-    # tol is absolute: at gamma = 1e-3 the default 1e-3 lets a run lose 31 % of ALG
+    # tol is absolute: at gamma = 1e-3 the default 1e-3 lets a run lose 31 % of ALG. The
+    # operator's solves are Lanczos at any n; a dense tangent space this small is solved
+    # exactly, where tol plays no part and nothing is warned of
     small = oc.Hamiltonian.sample(oc.Mixture({3: 1e-3}), 30, seed=1)
+    lanczos = {"steps": 3, "seed": 0, "polish": False, "hessian": "operator"}
     with pytest.warns(RuntimeWarning, match="30.6 % of ALG"):
-        oc.hessian_ascent(small, steps=3, seed=0, polish=False)
+        oc.hessian_ascent(small, **lanczos)
     # past ALG the share is given as a multiple; 50 tol / ALG was "inf %" at tol = 1e308
     for tol, told in ((1.0, "306 times ALG"), (1e308, r"3.06e\+310 times ALG")):
         with pytest.warns(RuntimeWarning, match=f"energy per spin, {told} = 0.00163"):
-            oc.hessian_ascent(small, steps=3, seed=0, polish=False, tol=tol)
+            oc.hessian_ascent(small, tol=tol, **lanczos)
     import warnings
 
     with warnings.catch_warnings():
         warnings.simplefilter("error")
-        oc.hessian_ascent(small, steps=3, seed=0, polish=False, tol=1e-5)
+        exact = oc.hessian_ascent(small, steps=3, seed=0, polish=False, hessian="dense")
+        coarse = oc.hessian_ascent(small, steps=3, seed=0, polish=False, hessian="dense", tol=0.5)
+        np.testing.assert_array_equal(exact.x, coarse.x)  # exact solves: tol plays no part
+        oc.hessian_ascent(small, tol=1e-5, **lanczos)
         unit = oc.Hamiltonian.sample(oc.Mixture({3: 1.0}), 30, seed=1)
-        oc.hessian_ascent(unit, steps=3, seed=0, polish=False)
+        oc.hessian_ascent(unit, **lanczos)
         # no Hessian step, so tol plays no part: one step, or a field that ends on the sphere
         oc.hessian_ascent(small, steps=1, seed=0, polish=False)
         field = oc.Hamiltonian.sample(oc.Mixture({1: 0.01}), 30, seed=1)

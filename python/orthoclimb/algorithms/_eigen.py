@@ -1,4 +1,5 @@
-"""The top eigenvector of the Hessian restricted to the tangent space, by Lanczos.
+"""The top eigenvector of the Hessian restricted to the tangent space: by Lanczos, or by a
+dense solve in small spaces (see "Small spaces" below).
 
 At x (u = x/|x|) the tangent space is u^perp, and each Hessian-ascent step needs the top
 eigenpair of the Hessian M restricted to it. We work in an orthonormal basis B (n x (n-1)) of

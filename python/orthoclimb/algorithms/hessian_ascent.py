@@ -17,7 +17,8 @@ Step i = 0..K-2, at x = x_i with u = x/|x|:
 1. M = Hess H(x) (one pass of the Rust kernel), restricted to the tangent space u^perp: M_T =
    B^T M B for an orthonormal basis B of u^perp (see ``_eigen``);
 2. v = top eigenvector of M_T by Lanczos (``eigsh``), warm-started from the previous step's v,
-   stopped when its Rayleigh quotient is within delta n of the top eigenvalue (see ``_eigen``);
+   stopped when its Rayleigh quotient is within delta n of the top eigenvalue (see ``_eigen``;
+   a dense M_T of at most 200 dimensions is solved exactly by LAPACK instead);
 3. flip v if <grad H(x), v> < 0;  x_{i+1} = x_i + v/sqrt(K).
 
 The steps are orthogonal to x, so |x_{i+1}|^2 = |x_i|^2 + 1/K = (i + 2)/K and |x_{K-1}| = 1.
@@ -114,7 +115,7 @@ from ._checks import (
     warn_if_far_scale,
 )
 from ._config import base_config
-from ._eigen import TangentBasis, top_tangent_eigenpair
+from ._eigen import DIRECT_MAX, TangentBasis, top_tangent_eigenpair
 from ._riemannian import sphere_ascent
 from ._sphere import HessianReader, field_direction, norm, quadratic_part, random_unit
 from .polish import run_polish as polish_point
@@ -403,7 +404,8 @@ def hessian_ascent(
     (each step then loses at most delta/(2K) energy per spin, the whole run at most delta/2,
     as long as Lanczos finds the top eigenvalue, which it does not certify: a review saw 1
     step in 3324 stop on the second, see ``_eigen``; a warning says when delta/2 exceeds 1 %
-    of ALG, since delta is absolute);
+    of ALG, since delta is absolute; dense tangent spaces of at most 200 dimensions, n <= 201,
+    are solved exactly and delta plays no part there);
     ``seed`` the start direction (and the first Lanczos start vector); ``polish`` finish with
     :func:`orthoclimb.polish` and the local-maximum check; ``callback(row)`` is called after
     every step with the path row (a dict); ``hessian`` "auto", "dense" or "operator" (see the
@@ -432,8 +434,6 @@ def hessian_ascent(
     warn_if_far_scale(ham, "hessian_ascent")
     k = auto_steps(ham.n) if steps is None else check_count(steps, "steps", maximum=MAX_STEPS)
     delta = check_positive(tol, "tol")
-    if hessian_moves(ham.mixture, k) > 0:  # tol only matters where there are Hessian steps
-        _warn_if_coarse(ham.mixture, delta)
     seed = check_seed(seed)
     polish = check_flag(polish, "polish")
     if callback is not None and not callable(callback):
@@ -443,6 +443,11 @@ def hessian_ascent(
     )
     mode = _choose_mode(ham, hessian)
     n = ham.n
+    # tol only matters where there are Hessian steps, solved by Lanczos (small dense tangent
+    # spaces are solved exactly, see _eigen)
+    exact = mode == "dense" and n - 1 <= DIRECT_MAX
+    if hessian_moves(ham.mixture, k) > 0 and not exact:
+        _warn_if_coarse(ham.mixture, delta)
     mixture = ham.mixture
     t_start = time.perf_counter()
     rng = np.random.default_rng(seed)
