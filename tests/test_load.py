@@ -31,7 +31,13 @@ def test_another_process_spinning_adds_to_the_reading():
     # all of them (a review saw 1.0-1.9 cores of it). Under that load the child gets less
     # than a core, hence the margin of 0.3. Load that starts between the readings (a test
     # run beside this one made "after" 1.3 cores) can hide the child once, so up to three
-    # tries; a measure blind to the child fails all three
+    # tries; a measure blind to the child fails all three. A machine whose cores the other
+    # load fills already has no room for the child to show in (a clean-clone CI beside two
+    # busy processes read 1.8-1.9 of 2 cores before it): such tries prove nothing, and when
+    # every try is one the test is skipped, saying so
+    import os
+
+    cores = len(os.sched_getaffinity(0)) if hasattr(os, "sched_getaffinity") else os.cpu_count()
     tries = []
     for _ in range(3):
         before = _sleeping_reading()
@@ -46,6 +52,8 @@ def test_another_process_spinning_adds_to_the_reading():
         tries.append((before, spinning, after))
         if spinning >= max(before, after) + 0.3:
             return
+    if all(min(b, a) > (cores or 1) - 0.5 for b, _, a in tries):
+        pytest.skip(f"the other load filled the {cores} cores in every try: {tries}")
     pytest.fail(f"no try saw the child: (before, spinning, after) = {tries}")
 
 
