@@ -12,8 +12,8 @@ since a study adds its tasks up:
 
 * Hessian ascent: K - 1 Hessian steps (none when the first stage ends on the sphere,
   ``hessian_moves``; one more for a start along the top eigenvector of Hess H(0)), each a
-  Hessian pass plus Lanczos, and its polish. Lanczos costs 6e-4 s + m (t_mv + 1.2e-5 s)
-  + 10 t_mv per step: m = 44 ln n - 171 products with the dense tangent matrix (at least 40; the
+  Hessian pass plus Lanczos, and its polish. Lanczos costs 6e-4 s + 10 t_mv + m (t_mv +
+  1.2e-5 s) per step: m = 44 ln n - 171 products with the dense tangent matrix (at least 40; the
   means per step of default runs, pure 3-spin, were 62, 84, 111, 133 and 141 at n = 200, 400,
   800, 1000 and 1200), 1.2e-5 s of ARPACK and Python per product, and ten products' worth for
   restricting the Hessian to the tangent space (measured: 9.4-12 at n = 400-3000). t_mv, one
