@@ -160,6 +160,37 @@ def test_a_child_forked_while_another_thread_limits_blas_does_not_hang():
     assert hung_forks(setup, call, 60) == 0, "forked children hung"
 
 
+@pytest.mark.skipif(not hasattr(os, "fork"), reason="needs os.fork")
+def test_a_fork_waits_while_another_thread_is_inside_threadpoolctl():
+    # a child forked while another thread was inside threadpoolctl's calls (which run under
+    # the limiter's lock) could inherit OpenBLAS's own lock taken and hang in its first
+    # openblas_set_num_threads (1 child in 1500 under load; faulthandler showed where). The
+    # fork now waits for the lock: held here for 0.5 s by a thread, the fork takes that long
+    code = (
+        "import os, threading, time\n"
+        "from orthoclimb import runtime\n"
+        "held = threading.Event()\n"
+        "def hold():\n"
+        "    with runtime._blas_lock:\n"
+        "        held.set()\n"
+        "        time.sleep(0.5)\n"
+        "t = threading.Thread(target=hold)\n"
+        "t.start()\n"
+        "held.wait()\n"
+        "t0 = time.monotonic()\n"
+        "pid = os.fork()\n"
+        "if pid == 0:\n"
+        "    os._exit(0)\n"
+        "waited = time.monotonic() - t0\n"
+        "os.waitpid(pid, 0)\n"
+        "t.join()\n"
+        "print(waited)\n"
+    )
+    out = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, timeout=60)
+    assert out.returncode == 0, out.stderr[-2000:]
+    assert float(out.stdout.strip().splitlines()[-1]) >= 0.4
+
+
 def test_a_failing_blas_restore_warns_and_hides_no_error(monkeypatch):
     # threadpoolctl failing to restore used to replace the block's own error and leave its
     # limiter behind, so the next block recorded one thread as the original count

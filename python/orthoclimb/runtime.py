@@ -122,8 +122,33 @@ def _blas_after_fork() -> None:
     _blas_limits = None
 
 
+_fork_held: Any = None  # the lock the fork hook took, to give back in the parent
+
+
+def _blas_before_fork() -> None:
+    """Before a fork: wait until no thread is inside threadpoolctl's calls, which run under
+    the lock. Forked in the middle of one, a child inherited OpenBLAS's own lock taken and
+    hung at its first ``openblas_set_num_threads`` (1 child in 1500, forked while another
+    thread entered and left blocks, under load; seen with faulthandler). The wait is
+    bounded: a thread that forks while holding the lock itself goes on after 5 s, as before."""
+    global _fork_held
+    lock = _blas_lock
+    _fork_held = lock if lock.acquire(timeout=5.0) else None
+
+
+def _blas_after_fork_in_parent() -> None:
+    global _fork_held
+    held, _fork_held = _fork_held, None
+    if held is not None:
+        held.release()
+
+
 if hasattr(os, "register_at_fork"):
-    os.register_at_fork(after_in_child=_blas_after_fork)
+    os.register_at_fork(
+        before=_blas_before_fork,
+        after_in_parent=_blas_after_fork_in_parent,
+        after_in_child=_blas_after_fork,
+    )
 
 
 @functools.lru_cache(maxsize=1)
