@@ -70,6 +70,7 @@ __all__ = [
     "DIRECT_MAX",
     "OPERATOR_DIRECT_MAX",
     "TangentBasis",
+    "solved_densely",
     "symmetric_operator",
     "top_tangent_eigenpair",
 ]
@@ -157,6 +158,14 @@ def symmetric_operator(a: np.ndarray) -> LinearOperator:
     return LinearOperator(a.shape, matvec=apply, rmatvec=apply, dtype=np.float64)
 
 
+def solved_densely(dim: int, matrix: bool) -> bool:
+    """Whether a tangent space of ``dim`` dimensions is solved exactly by a dense ``eigh``
+    rather than by Lanczos (module doc, "Small spaces"): up to ``DIRECT_MAX`` dimensions for a
+    ``matrix``, up to ``OPERATOR_DIRECT_MAX`` for an operator. The estimates price the solve
+    and Hessian ascent decides whether its tolerance matters by the same rule."""
+    return dim <= (DIRECT_MAX if matrix else OPERATOR_DIRECT_MAX)
+
+
 def _dsymv_ready(op: object) -> bool:
     """True for a C-contiguous float64 square matrix, which :func:`symmetric_operator` hands
     to dsymv without a copy."""
@@ -185,7 +194,7 @@ def top_tangent_eigenpair(
     and the result came from its best Ritz pair (operator) or from a dense ``eigh`` (matrix)."""
     fallback = False
     d = basis.dim
-    if d <= (DIRECT_MAX if isinstance(op, np.ndarray) else OPERATOR_DIRECT_MAX):
+    if solved_densely(d, isinstance(op, np.ndarray)):
         mat = op if isinstance(op, np.ndarray) else op.matmat(np.eye(d))
         theta, y = _dense_top(mat)  # eigh reads the upper triangle
     else:

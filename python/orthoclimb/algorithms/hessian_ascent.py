@@ -115,7 +115,7 @@ from ._checks import (
     warn_if_far_scale,
 )
 from ._config import base_config
-from ._eigen import DIRECT_MAX, TangentBasis, top_tangent_eigenpair
+from ._eigen import TangentBasis, solved_densely, top_tangent_eigenpair
 from ._riemannian import sphere_ascent
 from ._sphere import HessianReader, field_direction, norm, quadratic_part, random_unit
 from .polish import run_polish as polish_point
@@ -445,7 +445,7 @@ def hessian_ascent(
     n = ham.n
     # tol only matters where there are Hessian steps, solved by Lanczos (small dense tangent
     # spaces are solved exactly, see _eigen)
-    exact = mode == "dense" and n - 1 <= DIRECT_MAX
+    exact = mode == "dense" and solved_densely(n - 1, matrix=True)
     if hessian_moves(ham.mixture, k) > 0 and not exact:
         _warn_if_coarse(ham.mixture, delta)
     mixture = ham.mixture

@@ -80,7 +80,7 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
-from ..algorithms._eigen import DIRECT_MAX, symmetric_operator
+from ..algorithms._eigen import solved_densely, symmetric_operator
 from ..algorithms.hessian_ascent import auto_steps, eigen_solves, stepwise_limit_if_short
 from .grid import LEGACY_START, StudySpec
 from .profile import best_time
@@ -184,7 +184,7 @@ def lanczos_seconds(n: int, matvec: float | None = None, dense: bool = True) -> 
     not ``dense``: the products are Hessian-vector products and nothing is restricted."""
     t_mv = MATVEC_PER_ENTRY * n * n if matvec is None else matvec
     restrict = RESTRICT_MATVECS * t_mv if dense else 0.0
-    if dense and n - 1 <= DIRECT_MAX:
+    if dense and solved_densely(n - 1, matrix=True):
         return DENSE_SOLVE[0] + DENSE_SOLVE[1] * (n - 1) ** 2 + restrict
     products = _log_fit(n, LANCZOS_MATVECS)
     return LANCZOS_SOLVE + products * (t_mv + LANCZOS_ITERATION) + restrict
